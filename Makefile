@@ -1,0 +1,45 @@
+# phasewake: everything installs into a local .venv with pinned versions (constraints.txt).
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test lint typecheck unit bench fuzz screenshots bundle wheel-check clean samples
+
+$(STAMP): pyproject.toml constraints.txt
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -c constraints.txt -e ".[test]"
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/phasewake demo --output demo-output
+
+test: $(STAMP) lint typecheck unit
+
+lint: $(STAMP)
+	$(BIN)/ruff check core app tests sample_data packaging
+
+typecheck: $(STAMP)
+	$(BIN)/mypy core
+
+unit: $(STAMP)
+	QT_QPA_PLATFORM=offscreen $(BIN)/python -m pytest -q -p no:cacheprovider
+
+bench: $(STAMP)
+	QT_QPA_PLATFORM=offscreen $(BIN)/python -m tests.benchmarks --full --output bench-results/summary.json
+
+fuzz: $(STAMP)
+	QT_QPA_PLATFORM=offscreen PHASEWAKE_FUZZ=long $(BIN)/python -m pytest -q -p no:cacheprovider tests/robustness
+
+screenshots: $(STAMP)
+	QT_QPA_PLATFORM=offscreen $(BIN)/python -m phasewake.app.window.screenshots --output screenshots
+
+samples: $(STAMP)
+	$(BIN)/python sample_data/make_samples.py
+
+bundle: $(STAMP)
+	bash packaging/build_bundle.sh
+
+clean:
+	rm -rf $(VENV) build dist demo-output screenshots bench-results *.egg-info

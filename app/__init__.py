@@ -1,0 +1,1 @@
+"""phasewake front ends: the command line (``cli``) and the desktop window (``window``)."""

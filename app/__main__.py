@@ -1,0 +1,3 @@
+from phasewake.app.cli import main
+
+raise SystemExit(main())

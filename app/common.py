@@ -1,0 +1,126 @@
+"""Helpers shared by the command-line verbs: run arguments, progress bar, JSON output."""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import json
+import math
+import sys
+import time
+from collections.abc import Generator
+from pathlib import Path
+from typing import Any, TypeVar
+
+import numpy as np
+from phasewake.core.progress import Progress, drive
+
+T = TypeVar("T")
+
+
+def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> None:
+    """FILES plus the options that say how to read them."""
+    parser.add_argument("files", nargs="+" if many else 1, metavar="FILE",
+                        help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run")
+    parser.add_argument("--top", metavar="FILE", default=None,
+                        help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
+    parser.add_argument("--timestep", metavar="FS", type=float, default=None,
+                        help="integration time step in fs, when the files do not say")
+    parser.add_argument("--constraints", metavar="N", type=int, default=None,
+                        help="number of holonomic constraints (overrides what the files or inference say)")
+    parser.add_argument("--temperature", metavar="K", type=float, default=None,
+                        help="thermostat target temperature in K")
+    parser.add_argument("--json", action="store_true", help="print JSON with every number and its unit")
+
+
+def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    if getattr(args, "timestep", None) is not None:
+        out["timestep_ps"] = args.timestep * 1e-3
+    if getattr(args, "constraints", None) is not None:
+        out["n_constraints"] = args.constraints
+    if getattr(args, "temperature", None) is not None:
+        out["temperature_K"] = args.temperature
+    return out
+
+
+def open_run_from_args(args: argparse.Namespace):  # -> Run
+    from phasewake.core.readers import open_run
+
+    with quiet_stdout():
+        return open_run(args.files, topology=args.top, **run_overrides(args))
+
+
+@contextlib.contextmanager
+def quiet_stdout():
+    """Keep library chatter (mdtraj's DCD plugin prints to stdout) out of our output."""
+    saved = sys.stdout
+    sys.stdout = io.StringIO()
+    try:
+        yield
+    finally:
+        sys.stdout = saved
+
+
+class ProgressBar:
+    """A one-line progress bar on stderr, shown only on a terminal."""
+
+    def __init__(self, label: str, stream=None) -> None:
+        self.stream = stream or sys.stderr
+        self.enabled = hasattr(self.stream, "isatty") and self.stream.isatty()
+        self.label = label
+        self._last = 0.0
+
+    def __call__(self, p: Progress) -> None:
+        if not self.enabled:
+            return
+        now = time.monotonic()
+        if now - self._last < 0.1 and (p.fraction or 0) < 1:
+            return
+        self._last = now
+        frac = p.fraction
+        if frac is None:
+            text = f"\r{self.label}: {p.message} {p.done:.0f}"
+        else:
+            n = int(round(30 * frac))
+            text = f"\r{self.label} [{'#' * n}{'.' * (30 - n)}] {100 * frac:5.1f}% {p.message[:40]}"
+        self.stream.write(text.ljust(90))
+        self.stream.flush()
+
+    def close(self) -> None:
+        if self.enabled:
+            self.stream.write("\r" + " " * 90 + "\r")
+            self.stream.flush()
+
+
+def run_with_progress(work: Generator[Progress, None, T], label: str) -> T:
+    bar = ProgressBar(label)
+    try:
+        return drive(work, bar)
+    finally:
+        bar.close()
+
+
+def _jsonable(obj: Any) -> Any:
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _jsonable(obj.tolist())
+    if isinstance(obj, np.generic):
+        return _jsonable(obj.item())
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, Path):
+        return str(obj)
+    if hasattr(obj, "__dataclass_fields__"):
+        from dataclasses import asdict
+
+        return _jsonable(asdict(obj))
+    return obj
+
+
+def print_json(obj: Any) -> None:
+    sys.stdout.write(json.dumps(_jsonable(obj), indent=2, allow_nan=False) + "\n")

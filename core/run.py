@@ -1,0 +1,174 @@
+"""The Run: what one finished MD run is, independent of the files it came from.
+
+Internal units everywhere (see ``phasewake.core.units``): nm, ps, amu, kJ/mol, K, nm/ps.
+
+Opening a run reads headers, not frames. Frames come from :meth:`FrameSource.iter_chunks` in bounded
+chunks, so memory stays bounded whatever the file size.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, Protocol
+
+import numpy as np
+
+if TYPE_CHECKING:  # mdtraj is heavy; import it only where frames or topologies are built
+    import mdtraj
+
+DEFAULT_CHUNK_FRAMES = 256
+
+# Roles an energy-table column can play. Readers map file column names onto these.
+ENERGY_ROLES = (
+    "time",
+    "step",
+    "potential",
+    "kinetic",
+    "total",
+    "conserved",
+    "bath_heat",
+    "temperature",
+    "pressure",
+    "volume",
+    "density",
+    "other",
+)
+
+
+@dataclass(frozen=True)
+class Series:
+    """One named series of an energy table, in internal units."""
+
+    name: str
+    values: np.ndarray  # shape (n_rows,), float64
+    unit: str  # internal unit string, e.g. "kJ/mol", "K", "ps", "bar", "nm^3", "" for dimensionless
+    role: str = "other"  # one of ENERGY_ROLES
+    source: str = ""  # file (and column) it came from
+
+
+@dataclass(frozen=True)
+class EnergyTable:
+    """Time series of scalar observables (energies, temperature, ...) with one shared time axis."""
+
+    time_ps: np.ndarray  # shape (n_rows,)
+    series: dict[str, Series]
+    sources: tuple[str, ...] = ()
+
+    def by_role(self, role: str) -> Series | None:
+        """The first series with this role, or None."""
+        for s in self.series.values():
+            if s.role == role:
+                return s
+        return None
+
+    def __len__(self) -> int:
+        return int(self.time_ps.shape[0])
+
+
+@dataclass
+class FrameChunk:
+    """A block of consecutive frames.
+
+    positions_nm : ndarray, shape (n, n_atoms, 3), float32, nm
+    velocities_nm_per_ps : ndarray, shape (n, n_atoms, 3), float32, nm/ps, or None
+    box_nm : ndarray, shape (n, 3, 3) box edge vectors as rows (nm), or None when not periodic
+    """
+
+    start: int  # index of the first frame in the run
+    time_ps: np.ndarray
+    positions_nm: np.ndarray
+    velocities_nm_per_ps: np.ndarray | None = None
+    box_nm: np.ndarray | None = None
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.positions_nm.shape[0])
+
+
+class FrameSource(Protocol):
+    """Lazy, chunked access to a run's frames. Implementations live in ``phasewake.core.readers``."""
+
+    n_frames: int
+    n_atoms: int
+    has_velocities: bool  # True when velocities can be had (stored or estimated)
+    velocities_estimated: bool  # True when they are central differences of positions
+    has_box: bool
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+    ) -> Iterator[FrameChunk]: ...
+
+    def read_frame(self, index: int) -> FrameChunk: ...
+
+
+@dataclass
+class RunMetadata:
+    """What is known about how the run was made; None means unknown."""
+
+    timestep_ps: float | None = None  # integration time step (not the frame spacing)
+    ensemble: str | None = None  # "NVE", "NVT", "NPT", ...
+    thermostat: str | None = None  # "langevin", "nose-hoover", "csvr", "none", ...
+    temperature_K: float | None = None  # target temperature of a thermostat
+    n_constraints: int | None = None
+    constraints_source: str | None = None  # "metadata", "user", "inferred from rigid bonds"
+    com_motion_removed: bool | None = None
+    integrator: str | None = None  # "velocity-verlet", "leapfrog", "baoab", ...
+    sources: dict[str, str] = field(default_factory=dict)  # part -> file ("positions": "run.dcd")
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class Run:
+    """One finished run: topology, masses, time axis, lazy frames, energies and metadata."""
+
+    name: str
+    paths: tuple[Path, ...]
+    topology: mdtraj.Topology | None
+    masses_amu: np.ndarray  # shape (n_atoms,)
+    time_ps: np.ndarray  # shape (n_frames,), time of each frame
+    frames: FrameSource | None  # None for a run that has only an energy table
+    energies: EnergyTable | None
+    metadata: RunMetadata = field(default_factory=RunMetadata)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def n_atoms(self) -> int:
+        return int(self.masses_amu.shape[0])
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.time_ps.shape[0])
+
+    @property
+    def frame_spacing_ps(self) -> float | None:
+        if self.time_ps.shape[0] < 2:
+            return None
+        return float(np.median(np.diff(self.time_ps)))
+
+    @property
+    def has_velocities(self) -> bool:
+        return self.frames is not None and self.frames.has_velocities
+
+
+def open_run(
+    paths: Sequence[str | Path],
+    *,
+    topology: str | Path | None = None,
+    **overrides: Any,
+) -> Run:
+    """Build a Run from a list of files (trajectory + topology + energy tables) or one H5MD/HDF5 file.
+
+    Delegates to the reader registry (``phasewake.core.readers.open_run``).
+    """
+    from phasewake.core.readers import open_run as _open
+
+    return _open(paths, topology=topology, **overrides)

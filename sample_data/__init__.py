@@ -1,0 +1,1 @@
+"""Sample runs of our own scenario, regenerated exactly by make_samples.py."""
