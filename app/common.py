@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any, TypeVar
 
 import numpy as np
+
 from phasewake.core.progress import Progress, drive
 
 T = TypeVar("T")
