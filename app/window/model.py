@@ -1,0 +1,287 @@
+"""The window's shared state: loaded runs, the time cursor, the analysis time window, choices.
+
+Views subscribe to the signals of :class:`WindowModel` in their constructor and write user intent
+back through its setters. Every setter emits its signal only when the value really changed, so a
+cursor dragged in one panel updates all others without feeding back into itself.
+
+The cursor is a frame index of the current run; its time is ``run.time_ps[frame]``. The time window
+is a pair of times in ps (``None`` means the whole run).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+from PySide6 import QtCore
+
+from phasewake.core.run import Run
+
+
+@dataclass(frozen=True)
+class RunSettings:
+    """What a user may state about a run when the files do not say (None: keep the files' value)."""
+
+    timestep_fs: float | None = None
+    n_constraints: int | None = None
+    temperature_K: float | None = None
+
+    def overrides(self) -> dict[str, Any]:
+        """Keyword overrides for ``phasewake.core.readers.open_run`` (internal units)."""
+        out: dict[str, Any] = {}
+        if self.timestep_fs is not None:
+            out["timestep_ps"] = self.timestep_fs * 1e-3
+        if self.n_constraints is not None:
+            out["n_constraints"] = self.n_constraints
+        if self.temperature_K is not None:
+            out["temperature_K"] = self.temperature_K
+        return out
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"timestep_fs": self.timestep_fs, "n_constraints": self.n_constraints,
+                "temperature_K": self.temperature_K}
+
+
+@dataclass
+class RunEntry:
+    """One loaded run and how it was opened."""
+
+    run: Run
+    paths: tuple[str, ...] = ()
+    topology: str | None = None
+    settings: RunSettings = field(default_factory=RunSettings)
+
+    @property
+    def label(self) -> str:
+        return self.run.name
+
+
+def apply_settings(run: Run, settings: RunSettings) -> None:
+    """Write a user's per-run settings into the run's metadata (in place)."""
+    md = run.metadata
+    if settings.timestep_fs is not None:
+        md.timestep_ps = settings.timestep_fs * 1e-3
+        md.sources["timestep"] = "user"
+    if settings.n_constraints is not None:
+        md.n_constraints = settings.n_constraints
+        md.constraints_source = "user"
+    if settings.temperature_K is not None:
+        md.temperature_K = settings.temperature_K
+        md.sources["temperature"] = "user"
+
+
+class WindowModel(QtCore.QObject):
+    """Runs, cursor, time window and panel choices, with change signals.
+
+    Signals
+    -------
+    runsChanged()
+        A run was added, removed or its settings changed.
+    currentRunChanged(int)
+        Index of the run the panels show (-1: none).
+    cursorChanged(int)
+        Frame index of the cursor in the current run.
+    timeWindowChanged()
+        The analysis window (``time_window_ps``) changed.
+    coordinateChanged(str)
+        The coordinate specification the phase-space, landscape and crossings panels use.
+    choicesChanged(str)
+        A panel choice (key) changed; read it with :meth:`choice`.
+    """
+
+    runsChanged = QtCore.Signal()
+    currentRunChanged = QtCore.Signal(int)
+    cursorChanged = QtCore.Signal(int)
+    timeWindowChanged = QtCore.Signal()
+    coordinateChanged = QtCore.Signal(str)
+    choicesChanged = QtCore.Signal(str)
+
+    def __init__(self, parent: QtCore.QObject | None = None) -> None:
+        super().__init__(parent)
+        self._entries: list[RunEntry] = []
+        self._current = -1
+        self._cursor = 0
+        self._window: tuple[float, float] | None = None
+        self._coordinate = ""
+        self._choices: dict[str, Any] = {}
+
+    # ---- runs -------------------------------------------------------------------------------
+    @property
+    def entries(self) -> list[RunEntry]:
+        return list(self._entries)
+
+    @property
+    def current_index(self) -> int:
+        return self._current
+
+    @property
+    def current(self) -> RunEntry | None:
+        return self._entries[self._current] if 0 <= self._current < len(self._entries) else None
+
+    @property
+    def time_ps(self) -> np.ndarray:
+        """Frame times of the current run, shape (n_frames,), ps (empty when no run)."""
+        e = self.current
+        if e is None:
+            return np.zeros(0)
+        t = e.run.time_ps
+        if t.size == 0 and e.run.energies is not None:
+            t = e.run.energies.time_ps
+        return np.asarray(t, dtype=float)
+
+    def add_run(self, entry: RunEntry) -> int:
+        self._entries.append(entry)
+        self.runsChanged.emit()
+        if self._current < 0:
+            self.set_current(len(self._entries) - 1)
+        return len(self._entries) - 1
+
+    def remove_run(self, index: int) -> None:
+        if not 0 <= index < len(self._entries):
+            return
+        del self._entries[index]
+        self.runsChanged.emit()
+        if not self._entries:
+            self._current = -1
+            self._cursor = 0
+            self._window = None
+            self.currentRunChanged.emit(-1)
+            self.timeWindowChanged.emit()
+        elif index < self._current:
+            self._current -= 1  # same run, new position in the list
+            self.currentRunChanged.emit(self._current)
+        elif index == self._current:
+            self._current = -1
+            self.set_current(min(index, len(self._entries) - 1))
+
+    def update_settings(self, index: int, settings: RunSettings) -> None:
+        e = self._entries[index]
+        if e.settings == settings:
+            return
+        e.settings = replace(settings)
+        apply_settings(e.run, settings)
+        self.runsChanged.emit()
+        if index == self._current:
+            self.timeWindowChanged.emit()  # analyses depend on the settings: recompute
+
+    def set_current(self, index: int) -> None:
+        if index == self._current or not 0 <= index < len(self._entries):
+            return
+        self._current = index
+        t = self.time_ps
+        self._window = None
+        self._cursor = 0 if t.size == 0 else min(self._cursor, t.size - 1)
+        self.currentRunChanged.emit(index)
+        self.timeWindowChanged.emit()
+        self.cursorChanged.emit(self._cursor)
+
+    # ---- cursor -----------------------------------------------------------------------------
+    @property
+    def cursor_frame(self) -> int:
+        return self._cursor
+
+    @property
+    def cursor_time_ps(self) -> float:
+        t = self.time_ps
+        return float(t[self._cursor]) if t.size else 0.0
+
+    def set_cursor_frame(self, frame: int) -> None:
+        t = self.time_ps
+        if t.size == 0:
+            return
+        frame = int(min(max(int(frame), 0), t.size - 1))
+        if frame != self._cursor:
+            self._cursor = frame
+            self.cursorChanged.emit(frame)
+
+    def frame_at(self, time_ps: float) -> int:
+        """Index of the frame nearest ``time_ps`` in the current run."""
+        t = self.time_ps
+        if t.size == 0 or not math.isfinite(time_ps):
+            return 0
+        i = int(np.searchsorted(t, time_ps))
+        if i <= 0:
+            return 0
+        if i >= t.size:
+            return t.size - 1
+        return i if (t[i] - time_ps) < (time_ps - t[i - 1]) else i - 1
+
+    def set_cursor_time(self, time_ps: float) -> None:
+        self.set_cursor_frame(self.frame_at(time_ps))
+
+    def step_cursor(self, frames: int) -> None:
+        self.set_cursor_frame(self._cursor + frames)
+
+    # ---- analysis window --------------------------------------------------------------------
+    @property
+    def time_window_ps(self) -> tuple[float, float] | None:
+        return self._window
+
+    @property
+    def effective_window_ps(self) -> tuple[float, float]:
+        """The window, or the whole run's span when none is set."""
+        if self._window is not None:
+            return self._window
+        t = self.time_ps
+        return (float(t[0]), float(t[-1])) if t.size else (0.0, 0.0)
+
+    def window_frames(self) -> tuple[int, int]:
+        """(start, stop) frame indices of the window, stop exclusive."""
+        t = self.time_ps
+        if self._window is None or t.size == 0:
+            return 0, int(t.size)
+        lo, hi = self._window
+        start = int(np.searchsorted(t, lo, side="left"))
+        stop = int(np.searchsorted(t, hi, side="right"))
+        return start, max(stop, start + 1)
+
+    def set_time_window(self, window: tuple[float, float] | None) -> None:
+        t = self.time_ps
+        if window is not None:
+            lo, hi = sorted((float(window[0]), float(window[1])))
+            if t.size:
+                lo = max(lo, float(t[0]))
+                hi = min(hi, float(t[-1]))
+                if hi <= lo:
+                    return
+                if lo <= float(t[0]) and hi >= float(t[-1]):
+                    window = None
+                else:
+                    window = (lo, hi)
+            else:
+                window = (lo, hi)
+        if window == self._window:
+            return
+        if window is not None and self._window is not None:
+            # Sub-resolution jitter from a drag is not a change worth recomputing for.
+            tol = 1e-9 * max(1.0, abs(window[1]))
+            if abs(window[0] - self._window[0]) < tol and abs(window[1] - self._window[1]) < tol:
+                return
+        self._window = window
+        self.timeWindowChanged.emit()
+
+    # ---- coordinate and panel choices -------------------------------------------------------
+    @property
+    def coordinate(self) -> str:
+        return self._coordinate
+
+    def set_coordinate(self, spec: str) -> None:
+        spec = spec.strip()
+        if spec != self._coordinate:
+            self._coordinate = spec
+            self.coordinateChanged.emit(spec)
+
+    def choice(self, key: str, default: Any = None) -> Any:
+        return self._choices.get(key, default)
+
+    @property
+    def choices(self) -> dict[str, Any]:
+        return dict(self._choices)
+
+    def set_choice(self, key: str, value: Any) -> None:
+        if self._choices.get(key, object()) == value:
+            return
+        self._choices[key] = value
+        self.choicesChanged.emit(key)
