@@ -1,0 +1,566 @@
+"""Coordinates of a run with their analytic gradients, velocities, effective masses and momenta.
+
+For a coordinate q(x) of the Cartesian positions x (atoms i with masses m_i):
+
+* velocity      dq/dt = sum_i grad_i q . v_i          (from the stored velocities)
+* effective mass m_eff = [ sum_i |grad_i q|^2 / m_i ]^-1
+* momentum      p = m_eff dq/dt
+
+This is the effective mass of a generalised coordinate used in blue-moon / Z-factor work
+(Carter, Ciccotti, Hynes and Kapral, Chem. Phys. Lett. 156, 472 (1989)); for a distance it is the
+reduced mass m_i m_j / (m_i + m_j). It is a function of the configuration (exact for linear q such
+as x(i) or a principal component; frame by frame otherwise).
+
+Canonical check used by the tests: velocities are Gaussian with <v_i v_i^T> = (kT/m_i) 1 and
+independent of positions, so for fixed x, dq/dt = sum_i g_i . v_i is Gaussian with variance
+sum_i |g_i|^2 kT/m_i = kT/m_eff(x); averaging over x gives <(dq/dt)^2> = kT <1/m_eff>.
+
+Periodic boxes: every difference vector goes through the minimum image (fractional coordinates
+rounded to the nearest image, exact for orthorhombic boxes and for triclinic boxes that are not
+strongly skewed); groups (com_distance, rg) are made whole around their first atom. Angles are in
+[0, pi], dihedrals in (-pi, pi] with the sign convention of mdtraj.compute_dihedrals. rmsd assumes
+the group is whole (no minimum image).
+
+Streaming: :func:`compute_coordinates` reads only the atoms the coordinates need, chunk by chunk,
+and evaluates every coordinate vectorised over frames and atoms.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
+from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES
+
+if TYPE_CHECKING:
+    import mdtraj
+
+    from phasewake.core.run import Run
+
+
+@dataclass(frozen=True)
+class CoordinateSeries:
+    """One coordinate over the frames of a run.
+
+    time_ps : (n_frames,) ps
+    values : (n_frames,) in ``unit``
+    velocity : (n_frames,) dq/dt in ``velocity_unit``, or None
+    m_eff : (n_frames,) effective mass in ``m_eff_unit``, or None
+    momentum : (n_frames,) m_eff dq/dt in ``momentum_unit``, or None
+    velocities_estimated : True when dq/dt came from finite differences (of q, or of positions by
+        the reader) rather than from stored velocities.
+    """
+
+    spec: str
+    label: str
+    unit: str
+    time_ps: np.ndarray
+    values: np.ndarray
+    velocity: np.ndarray | None
+    m_eff: np.ndarray | None
+    momentum: np.ndarray | None
+    momentum_unit: str
+    velocities_estimated: bool
+    velocity_unit: str = ""
+    m_eff_unit: str = ""
+    periodic: bool = False  # True for dihedrals (period 2 pi)
+    start: int = 0
+    stop: int | None = None
+    chunk_frames: int = DEFAULT_CHUNK_FRAMES
+
+
+_UNITS: dict[str, tuple[str, str, str, str]] = {
+    # function -> (value, velocity, m_eff, momentum)
+    "x": ("nm", "nm/ps", "amu", "amu nm/ps"),
+    "distance": ("nm", "nm/ps", "amu", "amu nm/ps"),
+    "com_distance": ("nm", "nm/ps", "amu", "amu nm/ps"),
+    "rg": ("nm", "nm/ps", "amu", "amu nm/ps"),
+    "rmsd": ("nm", "nm/ps", "amu", "amu nm/ps"),
+    "angle": ("rad", "rad/ps", "amu nm^2/rad^2", "amu nm^2/(rad ps)"),
+    "pc": ("nm amu^1/2", "nm amu^1/2/ps", "1", "nm amu^1/2/ps"),
+    "pc_unweighted": ("nm", "nm/ps", "amu", "amu nm/ps"),
+}
+
+
+def units_of(resolved: ResolvedCoordinate) -> tuple[str, str, str, str]:
+    """(value, velocity, m_eff, momentum) units of a resolved coordinate."""
+    fn = resolved.function
+    if fn in ("y", "z"):
+        fn = "x"
+    if fn == "dihedral":
+        fn = "angle"
+    if fn == "pc" and resolved.pca is not None and not resolved.pca.mass_weighted:
+        fn = "pc_unweighted"
+    return _UNITS[fn]
+
+
+# ----------------------------------------------------------------------------------------------
+# geometry kernels (pure numpy, vectorised over frames)
+
+
+def minimum_image(d: np.ndarray, box_nm: np.ndarray | None) -> np.ndarray:
+    """Difference vectors through the minimum image.
+
+    d : (n_frames, ..., 3) nm; box_nm : (n_frames, 3, 3) box edge vectors as rows, nm, or None.
+    """
+    if box_nm is None:
+        return d
+    box = np.asarray(box_nm, dtype=np.float64)
+    diag = np.einsum("nii->ni", box)
+    off = box - np.einsum("ni,ij->nij", diag, np.eye(3))
+    shape = (box.shape[0],) + (1,) * (d.ndim - 2) + (3,)
+    if not np.any(off):
+        lengths = diag.reshape(shape)
+        return d - lengths * np.round(d / lengths)
+    inv = np.linalg.inv(box)
+    extra = d.ndim - 2
+    b = box.reshape((box.shape[0],) + (1,) * extra + (3, 3))
+    ib = inv.reshape((inv.shape[0],) + (1,) * extra + (3, 3))
+    s = np.einsum("...a,...ab->...b", d, ib)
+    s -= np.round(s)
+    return np.einsum("...a,...ab->...b", s, b)
+
+
+def _whole(x: np.ndarray, box_nm: np.ndarray | None) -> np.ndarray:
+    """Make a group whole around its first atom. x : (n, g, 3)."""
+    if box_nm is None:
+        return x
+    return x[:, :1] + minimum_image(x - x[:, :1], box_nm)
+
+
+def kabsch(
+    mobile: np.ndarray, reference: np.ndarray, weights: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Optimal superposition of each frame onto a reference (Kabsch, Acta Cryst. A 32, 922 (1976)).
+
+    Parameters
+    ----------
+    mobile : (n_frames, g, 3) nm
+    reference : (g, 3) nm
+    weights : (g,), optional (e.g. masses); equal weights by default.
+
+    Returns
+    -------
+    rotation : (n_frames, 3, 3) with row vectors rotated as ``(x - centre) @ rotation``
+    centre : (n_frames, 3) weighted centre of each mobile frame
+    reference_centre : (3,)
+    """
+    x = np.asarray(mobile, dtype=np.float64)
+    y = np.asarray(reference, dtype=np.float64)
+    w = np.ones(y.shape[0]) if weights is None else np.asarray(weights, dtype=np.float64)
+    w = w / w.sum()
+    cx = np.einsum("i,nia->na", w, x)
+    cy = w @ y
+    h = np.einsum("nia,i,ib->nab", x - cx[:, None, :], w, y - cy)
+    u, _s, vt = np.linalg.svd(h)
+    d = np.sign(np.linalg.det(u @ vt))
+    d[d == 0] = 1.0
+    u[:, :, 2] *= d[:, None]
+    return u @ vt, cx, cy
+
+
+def value_and_gradient(
+    resolved: ResolvedCoordinate,
+    positions_nm: np.ndarray,
+    *,
+    masses_amu: np.ndarray | None = None,
+    box_nm: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Value of a coordinate and its gradient with respect to the atoms it depends on.
+
+    Parameters
+    ----------
+    resolved : ResolvedCoordinate (its ``groups`` index ``positions_nm``)
+    positions_nm : (n_frames, n_atoms, 3) nm
+    masses_amu : (n_atoms,) amu, needed by com_distance, rg and pc
+    box_nm : (n_frames, 3, 3) nm or None
+
+    Returns
+    -------
+    values : (n_frames,)
+    atoms : (n_used,) int, indices into the atom axis of ``positions_nm``
+    gradient : (n_frames, n_used, 3), d q / d r_atom (unit of q per nm)
+    """
+    fn = resolved.function
+    pos = np.asarray(positions_nm)
+    n = pos.shape[0]
+    g = resolved.groups
+    if fn in ("x", "y", "z"):
+        i = int(g[0][0])
+        axis = "xyz".index(fn)
+        grad = np.zeros((n, 1, 3))
+        grad[:, 0, axis] = 1.0
+        return pos[:, i, axis].astype(np.float64), np.array([i]), grad
+    if fn == "distance":
+        i, j = int(g[0][0]), int(g[1][0])
+        d = minimum_image(pos[:, j].astype(np.float64) - pos[:, i], box_nm)
+        r = np.sqrt(np.einsum("na,na->n", d, d))
+        u = d / r[:, None]
+        return r, np.array([i, j]), np.stack([-u, u], axis=1)
+    if fn == "angle":
+        i, j, k = (int(a[0]) for a in g)
+        a = minimum_image(pos[:, i].astype(np.float64) - pos[:, j], box_nm)
+        b = minimum_image(pos[:, k].astype(np.float64) - pos[:, j], box_nm)
+        la = np.sqrt(np.einsum("na,na->n", a, a))
+        lb = np.sqrt(np.einsum("na,na->n", b, b))
+        ah, bh = a / la[:, None], b / lb[:, None]
+        cos = np.clip(np.einsum("na,na->n", ah, bh), -1.0, 1.0)
+        sin_vec = np.cross(ah, bh)
+        sin = np.sqrt(np.einsum("na,na->n", sin_vec, sin_vec))
+        theta = np.arctan2(sin, cos)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            gi = -(bh - cos[:, None] * ah) / (la * sin)[:, None]
+            gk = -(ah - cos[:, None] * bh) / (lb * sin)[:, None]
+        return theta, np.array([i, j, k]), np.stack([gi, -(gi + gk), gk], axis=1)
+    if fn == "dihedral":
+        i, j, k, l = (int(a[0]) for a in g)
+        p = pos.astype(np.float64)
+        b1 = minimum_image(p[:, j] - p[:, i], box_nm)
+        b2 = minimum_image(p[:, k] - p[:, j], box_nm)
+        b3 = minimum_image(p[:, l] - p[:, k], box_nm)
+        # value: the convention of mdtraj.compute_dihedrals (atan2 form)
+        c1 = np.cross(b2, b3)
+        c2 = np.cross(b1, b2)
+        lb2 = np.sqrt(np.einsum("na,na->n", b2, b2))
+        phi = np.arctan2(np.einsum("na,na->n", b1, c1) * lb2, np.einsum("na,na->n", c1, c2))
+        # gradient: Blondel and Karplus, J. Comput. Chem. 17, 1132 (1996), with F = r_i - r_j,
+        # G = r_j - r_k, H = r_l - r_k, A = F x G, B = H x G
+        F, G, H = -b1, -b2, b3
+        A = np.cross(F, G)
+        B = np.cross(H, G)
+        A2 = np.einsum("na,na->n", A, A)
+        B2 = np.einsum("na,na->n", B, B)
+        lg = lb2
+        fg = np.einsum("na,na->n", F, G)
+        hg = np.einsum("na,na->n", H, G)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ta = A * (lg / A2)[:, None]
+            tb = B * (lg / B2)[:, None]
+            ua = A * (fg / (A2 * lg))[:, None]
+            ub = B * (hg / (B2 * lg))[:, None]
+        gi = -ta
+        gl = tb
+        gj = ta + ua - ub
+        gk = -tb - ua + ub
+        grad = np.stack([gi, gj, gk, gl], axis=1)
+        return phi, np.array([i, j, k, l]), grad
+    if fn == "com_distance":
+        if masses_amu is None:
+            raise AnalysisError("com_distance needs atom masses")
+        a_idx, b_idx = np.asarray(g[0]), np.asarray(g[1])
+        ma, mb = masses_amu[a_idx], masses_amu[b_idx]
+        xa = _whole(pos[:, a_idx].astype(np.float64), box_nm)
+        xb = _whole(pos[:, b_idx].astype(np.float64), box_nm)
+        ca = np.einsum("i,nia->na", ma / ma.sum(), xa)
+        cb = np.einsum("i,nia->na", mb / mb.sum(), xb)
+        d = minimum_image(cb - ca, box_nm)
+        r = np.sqrt(np.einsum("na,na->n", d, d))
+        u = d / r[:, None]
+        w = np.concatenate([-ma / ma.sum(), mb / mb.sum()])
+        grad = w[None, :, None] * u[:, None, :]
+        return r, np.concatenate([a_idx, b_idx]), grad
+    if fn == "rg":
+        if masses_amu is None:
+            raise AnalysisError("rg needs atom masses")
+        idx = np.asarray(g[0])
+        m = masses_amu[idx]
+        M = m.sum()
+        x = _whole(pos[:, idx].astype(np.float64), box_nm)
+        c = np.einsum("i,nia->na", m / M, x)
+        dx = x - c[:, None, :]
+        rg = np.sqrt(np.einsum("i,nia,nia->n", m, dx, dx) / M)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            grad = (m / M)[None, :, None] * dx / rg[:, None, None]
+        return rg, idx, grad
+    if fn == "rmsd":
+        idx = np.asarray(g[0])
+        ref = np.asarray(resolved.reference_nm, dtype=np.float64)
+        x = pos[:, idx].astype(np.float64)
+        rot, cx, cy = kabsch(x, ref)
+        # reference brought into each frame: (y - cy) R^T + cx
+        ref_in_frame = np.einsum("ib,nab->nia", ref - cy, rot) + cx[:, None, :]
+        res = x - ref_in_frame
+        nat = idx.size
+        value = np.sqrt(np.einsum("nia,nia->n", res, res) / nat)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            grad = res / (nat * value)[:, None, None]
+        return value, idx, grad
+    if fn == "pc":
+        from phasewake.core.projection import pc_value_and_gradient
+
+        if resolved.pca is None:
+            raise AnalysisError(f"{resolved.spec}: the principal components have not been computed yet")
+        return pc_value_and_gradient(resolved.pca, int(resolved.pc_index or 0), pos[:, np.asarray(g[0])],
+                                     atoms=np.asarray(g[0]))
+    raise CoordinateSpecError(f"no kernel for {fn}", spec=resolved.spec)
+
+
+def evaluate_arrays(
+    defn_resolved: ResolvedCoordinate,
+    positions_nm: np.ndarray,
+    velocities_nm_per_ps: np.ndarray | None = None,
+    masses_amu: np.ndarray | None = None,
+    box_nm: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+    """Value, dq/dt and effective mass of one coordinate on arrays.
+
+    Parameters
+    ----------
+    defn_resolved : ResolvedCoordinate whose groups index the atom axis of the arrays
+    positions_nm : (n_frames, n_atoms, 3) nm
+    velocities_nm_per_ps : (n_frames, n_atoms, 3) nm/ps, optional
+    masses_amu : (n_atoms,) amu, optional (m_eff is None without masses)
+    box_nm : (n_frames, 3, 3) nm, or (3, 3) / (3,) for a fixed box, or None
+
+    Returns
+    -------
+    values : (n_frames,) in the coordinate's unit
+    dqdt : (n_frames,) per ps, or None without velocities
+    m_eff : (n_frames,), or None without masses
+    """
+    pos = np.asarray(positions_nm)
+    if pos.ndim == 2:
+        pos = pos[None]
+    box = _frame_boxes(box_nm, pos.shape[0])
+    masses = None if masses_amu is None else np.asarray(masses_amu, dtype=np.float64)
+    values, atoms, grad = value_and_gradient(defn_resolved, pos, masses_amu=masses, box_nm=box)
+    dqdt = None
+    if velocities_nm_per_ps is not None:
+        vel = np.asarray(velocities_nm_per_ps)
+        if vel.ndim == 2:
+            vel = vel[None]
+        v = vel[:, atoms].astype(np.float64)
+        if defn_resolved.function == "pc":
+            from phasewake.core.projection import pc_velocity
+
+            dqdt = pc_velocity(defn_resolved.pca, int(defn_resolved.pc_index or 0),
+                               pos[:, atoms], v)
+        else:
+            dqdt = np.einsum("nia,nia->n", grad, v)
+    m_eff = None
+    if masses is not None:
+        inv = np.einsum("nia,nia,i->n", grad, grad, 1.0 / masses[atoms])
+        with np.errstate(divide="ignore"):
+            m_eff = 1.0 / inv
+    return values, dqdt, m_eff
+
+
+def _frame_boxes(box_nm: np.ndarray | None, n: int) -> np.ndarray | None:
+    if box_nm is None:
+        return None
+    box = np.asarray(box_nm, dtype=np.float64)
+    if box.shape == (3,):
+        box = np.diag(box)
+    if box.shape == (3, 3):
+        box = np.broadcast_to(box, (n, 3, 3))
+    return box
+
+
+# ----------------------------------------------------------------------------------------------
+# Run adapters
+
+
+def solvent_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
+    """Atoms that look like solvent: water, or small residues (<= 4 atoms) whose name occurs >= 10 times.
+
+    A heuristic (common practice) used only to choose defaults (the PCA group, the first coordinate
+    shown); the user can always name atoms explicitly.
+    """
+    if topology is None:
+        return np.zeros(0, dtype=np.int64)
+    from collections import Counter
+
+    counts = Counter(r.name for r in topology.residues)
+    out: list[CoordinateSeries] = []
+    for res in topology.residues:
+        if res.is_water or (res.n_atoms <= 4 and counts[res.name] >= 10):
+            out.extend(a.index for a in res.atoms)
+    return np.asarray(sorted(out), dtype=np.int64)
+
+
+def solute_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
+    """All atoms that :func:`solvent_atoms` does not call solvent (all atoms when that leaves none)."""
+    solvent = solvent_atoms(topology, n_atoms)
+    rest = np.setdiff1d(np.arange(n_atoms), solvent)
+    return rest if rest.size else np.arange(n_atoms)
+
+
+def default_coordinates(run: Run) -> list[str]:
+    """A sensible first coordinate to show for a run.
+
+    The first bond between two non-solvent atoms when the topology has bonds; else the first two
+    atoms of the first non-solvent residue with two or more atoms; else ``distance(0, 1)``; and
+    ``x(0)`` for a one-atom run.
+    """
+    top = run.topology
+    n = run.n_atoms
+    if n < 2:
+        return ["x(0)"]
+    if top is not None:
+        solvent = set(solvent_atoms(top, n).tolist())
+        for bond in top.bonds:
+            a, b = bond[0].index, bond[1].index
+            if a not in solvent and b not in solvent and a < n and b < n:
+                return [f"distance({min(a, b)}, {max(a, b)})"]
+        for res in top.residues:
+            atoms = [a.index for a in res.atoms if a.index not in solvent]
+            if len(atoms) >= 2:
+                return [f"distance({atoms[0]}, {atoms[1]})"]
+        solute = solute_atoms(top, n)
+        if solute.size >= 2:
+            return [f"distance({int(solute[0])}, {int(solute[1])})"]
+    return ["distance(0, 1)"]
+
+
+def resolve_for_run(spec: str | CoordinateDef, run: Run) -> ResolvedCoordinate:
+    """Parse (if needed) and resolve a specification against a run, filling pc's default group."""
+    base = run.paths[0].parent if run.paths else None
+    resolved = resolve(parse(spec) if isinstance(spec, str) else spec, n_atoms=run.n_atoms,
+                       topology=run.topology, base_dir=base)
+    if resolved.function == "pc" and resolved.groups[0].size == 0:
+        resolved = replace(resolved, groups=(solute_atoms(run.topology, run.n_atoms),))
+    return resolved
+
+
+def compute_coordinates(
+    run: Run,
+    specs: Sequence[str],
+    *,
+    start: int = 0,
+    stop: int | None = None,
+    chunk_frames: int | None = None,
+    mass_weighted_pca: bool = True,
+    fit_pca: bool = True,
+) -> Work[list[CoordinateSeries]]:
+    """Compute coordinates (with velocities, effective masses and momenta) over a run, streaming.
+
+    A generator: yields :class:`Progress`, returns ``list[CoordinateSeries]`` in the order of
+    ``specs``. ``pc(k)`` specifications trigger a first pass that computes the PCA of their group
+    (see :func:`phasewake.core.projection.compute_pca`; ``mass_weighted_pca`` and ``fit_pca`` are
+    its settings).
+
+    Raises
+    ------
+    CoordinateSpecError for bad specifications; MissingDataError when the run has no frames.
+    """
+    if run.frames is None:
+        raise MissingDataError("the run has no frames (positions)", path=run.paths[0] if run.paths else None)
+    if not specs:
+        raise CoordinateSpecError("no coordinate given")
+    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    if not 0 <= start < stop_:
+        raise AnalysisError(f"empty frame range {start}:{stop_} (the run has {run.n_frames} frames)")
+    resolved = [resolve_for_run(s, run) for s in specs]
+
+    # first pass(es): one PCA per distinct pc group
+    pcas: dict[tuple[int, ...], Any] = {}
+    for k, r in enumerate(resolved):
+        if r.function != "pc":
+            continue
+        key = tuple(int(a) for a in r.groups[0])
+        if key not in pcas:
+            from phasewake.core.projection import compute_pca
+
+            n_comp = max(int(q.pc_index or 0) + 1 for q in resolved
+                         if q.function == "pc" and tuple(int(a) for a in q.groups[0]) == key)
+            sub = yield from _relay(
+                compute_pca(run, atom_indices=np.asarray(key), start=start, stop=stop_, chunk_frames=chunk,
+                            mass_weighted=mass_weighted_pca, fit=fit_pca, n_components=max(n_comp, 1),
+                            projections=False),
+                label=f"PCA for {r.spec}",
+            )
+            pcas[key] = sub
+        pca = pcas[key]
+        if int(r.pc_index or 0) >= pca.eigenvalues.shape[0]:
+            raise CoordinateSpecError(
+                f"pc({int(r.pc_index or 0) + 1}) asked for, but the group has only {pca.eigenvalues.shape[0]} "
+                "components",
+                spec=r.spec,
+                position=3,
+            )
+        resolved[k] = replace(r, pca=pca)
+
+    used = np.unique(np.concatenate([r.atoms for r in resolved]))
+    local = {int(a): i for i, a in enumerate(used)}
+    remap = [replace(r, groups=tuple(np.array([local[int(a)] for a in grp], dtype=np.int64) for grp in r.groups))
+             for r in resolved]
+    masses = np.asarray(run.masses_amu, dtype=np.float64)[used]
+    want_vel = bool(run.frames.has_velocities)
+    n_total = stop_ - start
+    values = [np.empty(n_total) for _ in remap]
+    dqdt = [np.empty(n_total) for _ in remap] if want_vel else None
+    meff = [np.empty(n_total) for _ in remap]
+    time = np.empty(n_total)
+    done = 0
+    got_vel = want_vel
+    for ch in run.frames.iter_chunks(chunk_frames=chunk, start=start, stop=stop_, atom_indices=used,
+                                     velocities=want_vel):
+        m = ch.n_frames
+        sl = slice(done, done + m)
+        time[sl] = ch.time_ps
+        vel = ch.velocities_nm_per_ps if want_vel else None
+        if want_vel and vel is None:
+            got_vel = False
+        for k, r in enumerate(remap):
+            v, dq, me = evaluate_arrays(r, ch.positions_nm, vel, masses, ch.box_nm)
+            values[k][sl] = v
+            if dqdt is not None and dq is not None:
+                dqdt[k][sl] = dq
+            if me is not None:
+                meff[k][sl] = me
+        done += m
+        yield Progress(done, n_total, "coordinates")
+    if done != n_total:
+        values = [v[:done] for v in values]
+        meff = [v[:done] for v in meff]
+        time = time[:done]
+        if dqdt is not None:
+            dqdt = [v[:done] for v in dqdt]
+
+    estimated_by_reader = bool(getattr(run.frames, "velocities_estimated", False))
+    out = []
+    for k, r in enumerate(resolved):
+        vu, velu, mu, pu = units_of(r)
+        periodic = r.function == "dihedral"
+        if got_vel and dqdt is not None:
+            vel_k: np.ndarray | None = dqdt[k]
+            estimated = estimated_by_reader
+        else:
+            vel_k = finite_difference_velocity(values[k], time, periodic=periodic)
+            estimated = True
+        mom = None if vel_k is None else meff[k] * vel_k
+        out.append(CoordinateSeries(
+            spec=r.spec, label=r.label, unit=vu, time_ps=time, values=values[k], velocity=vel_k,
+            m_eff=meff[k], momentum=mom, momentum_unit=pu, velocities_estimated=estimated,
+            velocity_unit=velu, m_eff_unit=mu, periodic=periodic, start=start, stop=stop_,
+            chunk_frames=chunk,
+        ))
+    return out
+
+
+def finite_difference_velocity(values: np.ndarray, time_ps: np.ndarray, *, periodic: bool = False) -> np.ndarray | None:
+    """dq/dt by central differences (one-sided at the ends); None for fewer than 2 frames.
+
+    Periodic coordinates (dihedrals) are unwrapped first so a jump across +-pi is not a huge speed.
+    """
+    if values.shape[0] < 2:
+        return None
+    q = np.unwrap(values) if periodic else values
+    return np.gradient(q, time_ps)
+
+
+def _relay(work: Work[Any], *, label: str) -> Work[Any]:
+    """Pass a sub-computation's progress through with a label; return its result."""
+    try:
+        while True:
+            p = next(work)
+            yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
+    except StopIteration as stop:
+        return stop.value
