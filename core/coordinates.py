@@ -377,7 +377,7 @@ def solvent_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
     from collections import Counter
 
     counts = Counter(r.name for r in topology.residues)
-    out: list[CoordinateSeries] = []
+    out: list[int] = []
     for res in topology.residues:
         if res.is_water or (res.n_atoms <= 4 and counts[res.name] >= 10):
             out.extend(a.index for a in res.atoms)
@@ -525,7 +525,7 @@ def compute_coordinates(
             dqdt = [v[:done] for v in dqdt]
 
     estimated_by_reader = bool(getattr(run.frames, "velocities_estimated", False))
-    out = []
+    out: list[CoordinateSeries] = []
     for k, r in enumerate(resolved):
         vu, velu, mu, pu = units_of(r)
         periodic = r.function == "dihedral"
