@@ -1,0 +1,180 @@
+"""Checks of phasewake.core.correlation against analytic AR(1) results and reference libraries."""
+
+from __future__ import annotations
+
+import contextlib
+import importlib
+import io
+import logging
+
+import numpy as np
+import pytest
+from scipy.signal import lfilter
+
+from phasewake.core import correlation as C
+from phasewake.core import verdicts
+from phasewake.core.errors import AnalysisError, TooShortError
+
+
+def ar1(phi: float, n: int, seed: int, shape: tuple[int, ...] = ()) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    eps = rng.standard_normal(shape + (n,))
+    return lfilter([1.0], [1.0, -phi], eps, axis=-1)
+
+
+def quiet_import(name: str):
+    """pymbar prints a banner (via logging / stderr) on import: keep it out of the test output."""
+    logging.disable(logging.CRITICAL)
+    try:
+        with contextlib.redirect_stderr(io.StringIO()), contextlib.redirect_stdout(io.StringIO()):
+            return importlib.import_module(name)
+    finally:
+        logging.disable(logging.NOTSET)
+
+
+# --- AR(1) analytic: rho(k) = phi^k, g = (1 + phi)/(1 - phi) (e.g. Priestley 1981; REFERENCES.md 3.7) ---
+
+def test_ar1_acf_matches_phi_power_k():
+    x = ar1(0.9, 200_000, seed=11)
+    rho = C.autocorrelation(x, max_lag=5)
+    # analytic AR(1) autocorrelation phi^k; tolerance 0.01 from the sampling error at N = 2e5
+    np.testing.assert_allclose(rho, 0.9 ** np.arange(6), atol=0.01)
+    assert rho[0] == pytest.approx(1.0)
+
+
+@pytest.mark.parametrize("phi,tol", [(0.5, 0.07), (0.9, 0.20)])
+@pytest.mark.parametrize("method", C.METHODS)
+def test_ar1_statistical_inefficiency(phi, tol, method):
+    x = ar1(phi, 100_000, seed=3)
+    g = C.statistical_inefficiency(x, method=method)
+    # analytic g = (1 + phi) / (1 - phi); tolerances suited to N = 1e5 (issue 5)
+    assert g == pytest.approx((1 + phi) / (1 - phi), rel=tol)
+
+
+def test_tau_int_is_half_g_and_ess_is_n_over_g():
+    x = ar1(0.8, 50_000, seed=4)
+    r = C.analyse_series(x, dt_ps=0.02, unit="kJ/mol")
+    assert r.tau_int_sokal_samples == pytest.approx(r.statistical_inefficiency / 2)  # Sokal convention
+    assert r.tau_int_sokal_ps == pytest.approx(r.statistical_inefficiency / 2 * 0.02)
+    assert r.effective_sample_size == pytest.approx(50_000 / r.statistical_inefficiency)
+    # phi = 0.8 -> g = 9 (analytic; also the emcee test gist value)
+    assert r.statistical_inefficiency == pytest.approx(9.0, rel=0.15)
+    # SEM = sqrt(var * g / N) with analytic var = 1/(1 - phi^2)
+    assert r.standard_error_of_mean == pytest.approx(np.sqrt(9.0 / (1 - 0.64) / 50_000), rel=0.1)
+    assert r.converged and r.acf[0] == 1.0 and r.acf.shape == r.acf_lag_ps.shape
+
+
+def test_g_at_least_one_for_anticorrelated_series():
+    x = ar1(-0.7, 20_000, seed=8)  # alternating: the true g = 0.3/1.7 < 1 is clipped
+    for m in C.METHODS:
+        assert C.statistical_inefficiency(x, method=m) >= 1.0
+
+
+# --- reference libraries ---
+
+def test_acf_matches_statsmodels_biased_and_unbiased():
+    from statsmodels.tsa.stattools import acf
+
+    x = ar1(0.7, 5000, seed=21) + 3.0
+    ours = C.autocorrelation(x, max_lag=200)
+    ref = acf(x, nlags=200, fft=True, adjusted=False)  # statsmodels: biased (divide by N)
+    np.testing.assert_allclose(ours, ref, atol=1e-10)
+    ours_u = C.autocorrelation(x, max_lag=200, normalisation="unbiased")
+    ref_u = acf(x, nlags=200, fft=True, adjusted=True)  # statsmodels: divide by N - k
+    np.testing.assert_allclose(ours_u, ref_u, atol=1e-10)
+
+
+def test_sokal_g_matches_emcee_integrated_time():
+    import emcee
+
+    for seed, phi in [(1, 0.5), (2, 0.9), (3, 0.97)]:
+        x = ar1(phi, 100_000, seed=seed)
+        ref = float(emcee.autocorr.integrated_time(x, c=5, quiet=True)[0])  # emcee returns g ("tau")
+        ours = C.statistical_inefficiency(x, method="sokal", c=5.0)
+        assert ours == pytest.approx(ref, rel=1e-6)
+
+
+def test_first_zero_g_close_to_pymbar():
+    ts = quiet_import("pymbar.timeseries")
+    for seed, phi in [(5, 0.5), (6, 0.9)]:
+        x = ar1(phi, 50_000, seed=seed)
+        ref = ts.statistical_inefficiency(x, fast=False, mintime=3)  # pymbar: g = 1 + 2 tau
+        ours = C.statistical_inefficiency(x, method="first_zero")
+        # pymbar sums the unbiased C_t(1 - t/N) with the same stopping rule: equal up to its details
+        assert ours == pytest.approx(ref, rel=0.03)
+
+
+def test_vectorised_along_axis_matches_loop():
+    x = ar1(0.6, 4000, seed=9, shape=(7,))
+    many = C.statistical_inefficiency(x, axis=1)
+    one = [C.statistical_inefficiency(row) for row in x]
+    np.testing.assert_allclose(many, one, rtol=1e-12)
+    many_t = C.statistical_inefficiency(x.T, axis=0, method="geyer")
+    np.testing.assert_allclose(many_t, [C.statistical_inefficiency(r, method="geyer") for r in x], rtol=1e-12)
+    ess = C.effective_sample_size(x, axis=-1)
+    np.testing.assert_allclose(ess, 4000 / many)
+
+
+def test_cross_correlation_of_shifted_copy_peaks_at_shift():
+    x = ar1(0.3, 3000, seed=12)
+    y = np.roll(x, 7)  # y(t) = x(t - 7): y lags behind x by 7
+    lags, c = C.cross_correlation(x, y, max_lag=20)
+    assert lags[np.argmax(c)] == 7
+    # against numpy.correlate (reference implementation of the direct sum)
+    dx, dy = x - x.mean(), y - y.mean()
+    direct = np.correlate(dy, dx, mode="full")[len(x) - 1 - 20 : len(x) + 20] / len(x) / (dx.std() * dy.std())
+    np.testing.assert_allclose(c, direct, atol=1e-10)
+
+
+# --- blocking: Flyvbjerg & Petersen 1989 ---
+
+@pytest.mark.parametrize("seed", [13, 14])
+def test_blocking_plateau_within_15_percent_of_exact_sem(seed):
+    phi, n = 0.9, 100_000
+    x = ar1(phi, n, seed=seed)
+    b = C.blocking(x)
+    exact = np.sqrt((1 + phi) / (1 - phi) / (1 - phi ** 2) / n)  # sqrt(g var / N), analytic AR(1)
+    assert b.plateau_found
+    assert b.plateau_sem == pytest.approx(exact, rel=0.15)
+    assert b.naive_sem < 0.3 * exact  # level 0 ignores the correlation (REFERENCES 3.6: 0.0073 vs 0.0316)
+    assert np.all(np.diff(b.block_size) > 0) and b.sem.shape == b.n_blocks.shape
+
+
+def test_blocking_of_white_noise_stops_early():
+    x = np.random.default_rng(2).standard_normal(2 ** 14)
+    b = C.blocking(x)
+    assert b.plateau_level <= 2
+    assert b.plateau_sem == pytest.approx(1 / np.sqrt(2 ** 14), rel=0.1)  # sigma / sqrt(N), iid
+
+
+# --- Chodera 2016 equilibration detection ---
+
+def test_equilibration_after_transient():
+    n = 100_000
+    x = ar1(0.9, n, seed=17) + 5.0 * np.exp(-np.arange(n) / 200.0)
+    e = C.detect_equilibration(x, dt_ps=0.5)
+    # REFERENCES 3.5 suggested scenario (common practice): t0 in [300, 2000]
+    assert 300 <= e.t0_index <= 2000
+    assert e.t0_ps == pytest.approx(0.5 * e.t0_index)
+    ts = quiet_import("pymbar.timeseries")
+    t0_ref, _, _ = ts.detect_equilibration(x, fast=True, nskip=100)  # pymbar's implementation of Chodera 2016
+    assert abs(e.t0_index - t0_ref) < 1000
+    v = C.judge_equilibration(e)
+    assert v.level == "ok" and v.kind == "sampling.equilibration"
+
+
+def test_errors_are_typed():
+    with pytest.raises(TooShortError):
+        C.statistical_inefficiency([1.0, 2.0])
+    with pytest.raises(AnalysisError):
+        C.statistical_inefficiency(np.ones(100))
+    with pytest.raises(AnalysisError):
+        C.analyse_series(np.array([1.0, np.nan, 2, 3, 4]), dt_ps=1.0)
+
+
+def test_verdict_kinds_registered_with_sources():
+    for kind in ("sampling.ess", "sampling.equilibration"):
+        assert kind in verdicts.EXPLANATIONS and verdicts.THRESHOLDS[kind].source
+    r = C.analyse_series(ar1(0.99, 2000, seed=1), dt_ps=1.0)
+    v = C.judge_ess(r, name="potential")
+    assert v.level in ("caution", "problem")  # ~2000/199 = 10 independent samples
