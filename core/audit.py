@@ -1,0 +1,754 @@
+"""The energy audit of one run: energy conservation, kinetic temperature, equipartition, time step.
+
+:func:`audit_run` is a progress generator (yields :class:`~phasewake.core.progress.Progress`, returns an
+:class:`AuditResult`); it streams once over the run's frame chunks for everything per-atom (kinetic
+energy per frame and per group, centre-of-mass motion, rigid-pair distances for constraint inference,
+the velocity spectrum, speed samples) and works on the energy table for the rest.
+
+Every verdict names what was measured, the threshold and its source, and advice. These diagnostics are
+heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+
+from phasewake.core import energy as en
+from phasewake.core import temperature as tm
+from phasewake.core import timestep as ts
+from phasewake.core.errors import AnalysisError, MissingDataError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, Run
+from phasewake.core.verdicts import (
+    EXPLANATIONS,
+    HEURISTIC_NOTE,
+    THRESHOLDS,
+    Explanation,
+    Level,
+    Verdict,
+    judge,
+    register,
+    worst,
+)
+
+register(None, Explanation(
+    title="Check not applicable",
+    what="A check that could not run on this run, with the reason (missing data, wrong ensemble).",
+    method="-", threshold="-", advice="Provide the missing data (see the message) if the check matters to you.",
+), kind="audit.skipped")
+register(None, Explanation(
+    title="Degrees of freedom",
+    what="The number of degrees of freedom used for every per-DOF number and for the kinetic temperature.",
+    method="N_dof = 3 N - constraints - removed centre-of-mass motion (REFERENCES.md §2). Constraints come "
+           "from the user, the files' metadata, or are inferred from atom pairs whose distance does not "
+           "fluctuate (relative spread < 1e-3).",
+    threshold="-", advice="Give --constraints N when the count shown is wrong.",
+), kind="temperature.dof")
+
+THERMOSTATTED_ENSEMBLES = ("NVT", "NPT", "NPH_THERMOSTAT", "MUVT", "NST")
+
+
+@dataclass(frozen=True)
+class EnergyAudit:
+    series_label: str
+    series_columns: tuple[str, ...]
+    expected_conserved: bool
+    reason: str
+    kinetic_source: str | None
+    drift: en.DriftResult | None
+    fluctuations: en.FluctuationResult | None
+    events: en.EventsResult
+    sampling: tuple[en.SeriesSampling, ...]
+    time_ps: np.ndarray  # shape (n_rows,), for figures
+    values_kJ_per_mol: np.ndarray  # shape (n_rows,)
+
+
+@dataclass(frozen=True)
+class TemperatureAudit:
+    n_atoms: int
+    n_dof: int
+    n_constraints: int
+    constraints_source: str
+    n_com_removed: int
+    com_source: str
+    kinetic_source: str  # which kinetic energy the temperature comes from, in words
+    mean_K: float
+    std_K: float
+    error_K: float  # standard error of the mean, g-corrected
+    statistical_inefficiency: float
+    mean_from_velocities_K: float | None
+    mean_from_file_kinetic_K: float | None
+    file_temperature_mean_K: float | None
+    file_mismatch_relative: float | None  # (T_here - T_file) / T_file over common rows
+    implied_file_dof: float | None  # N_dof the file's temperature corresponds to
+    velocities_estimated: bool
+    constraint_inference: tm.ConstraintInference | None
+    groups: tuple[tm.GroupTemperature, ...]
+    kinetic_distribution: tm.DistributionCheck | None
+    maxwell: tuple[tm.DistributionCheck, ...]
+    canonical_note: str
+    time_ps: np.ndarray  # shape (n,), for figures
+    temperature_K: np.ndarray  # shape (n,)
+
+
+@dataclass(frozen=True)
+class TimestepAudit:
+    fastest: ts.FastestMotion | None
+    check: ts.TimestepCheck | None
+    note: str
+    frequency_per_ps: np.ndarray  # spectrum for figures; empty when not computed
+    power: np.ndarray
+
+
+@dataclass(frozen=True)
+class AuditResult:
+    """Everything the audit measured, with units, plus the verdicts and the settings used."""
+
+    run_name: str
+    paths: tuple[str, ...]
+    ensemble: str
+    thermostatted: bool
+    energy: EnergyAudit | None
+    temperature: TemperatureAudit | None
+    timestep: TimestepAudit | None
+    scaling: ts.ScalingResult | None
+    compared: AuditResult | None
+    verdicts: tuple[Verdict, ...]
+    notes: tuple[str, ...]
+    heuristic_note: str = HEURISTIC_NOTE
+    settings: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def level(self) -> Level:
+        """Worst verdict level: ok, caution or problem."""
+        return worst([v.level for v in self.verdicts])
+
+
+def _skipped(kind: str, title: str, reason: str) -> Verdict:
+    return Verdict(kind=kind, level="info", title=title, measured=None, unit="",
+                   message=f"not checked: {reason}", advice="", threshold=THRESHOLDS.get(kind))
+
+
+def _advice(kind: str) -> str:
+    return EXPLANATIONS[kind].advice if kind in EXPLANATIONS else ""
+
+
+def _src(kind: str) -> str:
+    return THRESHOLDS[kind].source
+
+
+def _is_thermostatted(run: Run) -> tuple[bool, str]:
+    md = run.metadata
+    thermo = (md.thermostat or "").strip().lower()
+    ens = (md.ensemble or "").strip().upper()
+    if thermo and thermo not in ("none", "no", "off"):
+        return True, ens or "thermostatted"
+    if ens:
+        return ens in THERMOSTATTED_ENSEMBLES, ens
+    return False, "unknown (treated as NVE)"
+
+
+def _align(t_frames: np.ndarray, t_table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Indices (frame_idx, table_idx) of rows present in both, matched by time."""
+    if t_frames.size == 0 or t_table.size == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64)
+    spacing = np.median(np.diff(t_frames)) if t_frames.size > 1 else 1.0
+    tol = 1e-6 * max(abs(float(spacing)), 1e-12) + 1e-9
+    order = np.argsort(t_table, kind="stable")
+    tt = t_table[order]
+    pos = np.clip(np.searchsorted(tt, t_frames), 0, tt.size - 1)
+    prev = np.clip(pos - 1, 0, tt.size - 1)
+    best = np.where(np.abs(tt[prev] - t_frames) < np.abs(tt[pos] - t_frames), prev, pos)
+    ok = np.abs(tt[best] - t_frames) <= tol
+    return np.nonzero(ok)[0], order[best[ok]]
+
+
+@dataclass
+class _FramePass:
+    time_ps: np.ndarray
+    kinetic: np.ndarray
+    com_kinetic: np.ndarray
+    group_kinetic: np.ndarray  # (n, G)
+    inference: tm.ConstraintInference | None
+    spectrum: tuple[np.ndarray, np.ndarray] | None
+    spectrum_note: str
+    speeds: dict[str, np.ndarray]  # species -> speeds (frames kept, atoms kept) in nm/ps
+    speed_frame_stride: int
+
+
+def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want_speeds: bool,
+                chunk_frames: int, segment_frames: int, done0: float, total: float) -> Work[_FramePass]:
+    frames = run.frames
+    assert frames is not None
+    n = frames.n_frames
+    m = run.masses_amu
+    names = list(groups)
+    member = np.zeros((run.n_atoms, len(names)))
+    for j, nm in enumerate(names):
+        member[np.asarray(groups[nm], dtype=np.int64), j] = 1.0
+    kin = np.empty(n)
+    com = np.empty(n)
+    gk = np.empty((n, len(names)))
+    times = np.empty(n)
+    rigid = None
+    if infer and run.topology is not None:
+        pairs = tm.candidate_pairs(run.topology)
+        if pairs.size:
+            rigid = tm.RigidPairAccumulator(pairs, run.n_atoms)
+    spectrum_note = ""
+    spec = None
+    t = run.time_ps
+    if n >= 32 and t.size == n:
+        dt = np.diff(t)
+        h = float(np.median(dt))
+        if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
+            seg = int(min(segment_frames, n // 2))
+            spec = ts.VelocitySpectrumAccumulator(m, h, segment_frames=seg)
+        else:
+            spectrum_note = "frame spacing is not uniform: no velocity spectrum"
+    else:
+        spectrum_note = f"too few frames for a velocity spectrum ({n} < 32)"
+    species = tm.species_of(run.topology, m) if want_speeds else {}
+    speed_atoms: dict[str, np.ndarray] = {}
+    speed_store: dict[str, list[np.ndarray]] = {}
+    stride = max(1, n // 200)
+    for sp, idx in species.items():
+        speed_atoms[sp] = idx[: max(1, 100_000 // max(1, n // stride))][:2000]
+        speed_store[sp] = []
+    pos = 0
+    for chunk in frames.iter_chunks(chunk_frames=chunk_frames, velocities=True):
+        k = chunk.n_frames
+        v = chunk.velocities_nm_per_ps
+        if v is None:
+            raise MissingDataError("velocities are missing in a chunk of frames", path=run.paths[0] if run.paths else None)
+        v2 = np.einsum("fai,fai->fa", v, v, dtype=np.float64)
+        ke_atoms = 0.5 * v2 * m[None, :]
+        kin[pos:pos + k] = ke_atoms.sum(axis=1)
+        com[pos:pos + k] = tm.com_kinetic_energy(v, m)
+        if names:
+            gk[pos:pos + k] = ke_atoms @ member
+        times[pos:pos + k] = chunk.time_ps
+        if rigid is not None and not rigid.full:
+            rigid.update(chunk.positions_nm, chunk.box_nm)
+        if spec is not None:
+            spec.update(v)
+        if speed_atoms:
+            local = np.arange(pos, pos + k)
+            keep = np.nonzero(local % stride == 0)[0]
+            if keep.size:
+                sp_all = np.sqrt(v2[keep])
+                for sp, idx in speed_atoms.items():
+                    speed_store[sp].append(sp_all[:, idx].astype(np.float32))
+        pos += k
+        yield Progress(done0 + pos, total, "velocities")
+    spectrum = None
+    if spec is not None:
+        if spec.n_segments:
+            spectrum = spec.finish()
+        else:
+            spectrum_note = "too few frames for one spectrum segment"
+    return _FramePass(
+        time_ps=times[:pos], kinetic=kin[:pos], com_kinetic=com[:pos], group_kinetic=gk[:pos],
+        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, spectrum_note=spectrum_note,
+        speeds={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32)) for sp, v_ in speed_store.items()},
+        speed_frame_stride=stride,
+    )
+
+
+def _infer_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None:
+    if run.topology is None or run.frames is None:
+        return None
+    pairs = tm.candidate_pairs(run.topology)
+    if not pairs.size:
+        return None
+    acc = tm.RigidPairAccumulator(pairs, run.n_atoms)
+    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, stop=acc.max_frames, velocities=False):
+        acc.update(chunk.positions_nm, chunk.box_nm)
+        if acc.full:
+            break
+    return acc.finish()
+
+
+def audit_run(
+    run: Run,
+    *,
+    n_constraints: int | None = None,
+    timestep_ps: float | None = None,
+    temperature_K: float | None = None,
+    groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+    require_temperature: bool = False,
+    compare: Run | None = None,
+    chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+    segment_frames: int = 256,
+) -> Work[AuditResult]:
+    """Audit one run (and optionally compare its energy fluctuation with a run at another time step).
+
+    Parameters
+    ----------
+    run : Run
+    n_constraints : int, optional
+        Number of holonomic constraints (overrides metadata and inference).
+    timestep_ps : float, optional
+        Integration time step in ps (overrides metadata).
+    temperature_K : float, optional
+        Target temperature (overrides metadata); used for kT and the canonical checks.
+    groups : mapping name -> atom indices, optional
+        User groups for equipartition (added to the residue-name groups).
+    require_temperature : bool
+        Raise :class:`MissingDataError` when there are no velocities (instead of skipping).
+    compare : Run, optional
+        A run of the same system at another time step: the dt^2 scaling check.
+    chunk_frames, segment_frames : int
+        Frames per chunk read, and per velocity-spectrum segment.
+
+    Yields
+    ------
+    Progress
+
+    Returns
+    -------
+    AuditResult
+    """
+    settings = {"n_constraints": n_constraints, "timestep_ps": timestep_ps, "temperature_K": temperature_K,
+                "groups": {k: list(map(int, v)) for k, v in (groups or {}).items()},
+                "require_temperature": require_temperature, "chunk_frames": chunk_frames,
+                "segment_frames": segment_frames, "compare": None if compare is None else compare.name}
+    path0 = run.paths[0] if run.paths else None
+    md = run.metadata
+    thermostatted, ensemble = _is_thermostatted(run)
+    notes: list[str] = []
+    verdicts: list[Verdict] = []
+    table: EnergyTable | None = run.energies if run.energies is not None and len(run.energies) else None
+    has_vel = run.has_velocities
+    if table is None and not has_vel:
+        raise MissingDataError("nothing to audit: the run has neither an energy table nor velocities", path=path0)
+    if require_temperature and not has_vel:
+        raise MissingDataError("velocities are missing: the kinetic temperature needs velocities", path=path0)
+    if ensemble.startswith("unknown"):
+        notes.append("Ensemble not stated in the files: treated as NVE (unthermostatted).")
+    frames_total = float(run.frames.n_frames if (has_vel and run.frames is not None) else 0)
+    cmp_total = float(compare.frames.n_frames if compare is not None and compare.has_velocities
+                      and compare.frames is not None else 0)
+    total = max(frames_total + cmp_total, 1.0)
+    yield Progress(0, total, "energies")
+
+    # ---- energy table: which series -------------------------------------------------------------
+    conserved: en.ConservedSeries | None = None
+    if table is not None:
+        conserved = en.select_conserved(table, thermostatted=thermostatted)
+
+    # ---- constraints and centre of mass ---------------------------------------------------------
+    user_groups = {k: np.asarray(v, dtype=np.int64) for k, v in (groups or {}).items()}
+    declared_constraints = n_constraints if n_constraints is not None else md.n_constraints
+    infer = run.topology is not None and run.frames is not None
+    fp: _FramePass | None = None
+    inference: tm.ConstraintInference | None = None
+    if has_vel:
+        # groups are fixed before the pass; element groups only when nothing is constrained
+        base_groups = tm.default_groups(run.topology, run.n_atoms,
+                                        by_element=(declared_constraints == 0))
+        all_groups = {**base_groups, **user_groups}
+        fp = yield from _frame_pass(run, groups=all_groups, infer=infer, want_speeds=thermostatted,
+                                    chunk_frames=chunk_frames, segment_frames=segment_frames,
+                                    done0=0.0, total=total)
+        inference = fp.inference
+    elif infer:
+        inference = _infer_only(run, chunk_frames=chunk_frames)
+        all_groups = {}
+    else:
+        all_groups = {}
+
+    if n_constraints is not None:
+        n_con, con_src = int(n_constraints), "user (--constraints)"
+    elif md.n_constraints is not None:
+        n_con, con_src = int(md.n_constraints), md.constraints_source or "metadata"
+    elif inference is not None:
+        n_con = inference.n_constraints
+        con_src = (f"inferred from rigid pair distances ({inference.n_rigid_pairs} rigid pairs in "
+                   f"{inference.n_rigid_clusters} rigid groups, relative spread < {inference.rigid_relative_std:g})")
+    else:
+        n_con, con_src = 0, "none known (no metadata, no topology to infer them from): 0 assumed"
+    if inference is not None and n_con != inference.n_constraints and n_constraints is None:
+        notes.append(f"{con_src} gives {n_con} constraints; the pair distances suggest {inference.n_constraints}.")
+
+    if md.com_motion_removed is not None:
+        n_com = 3 if md.com_motion_removed else 0
+        com_src = "metadata"
+    elif not thermostatted:
+        n_com, com_src = 3, "NVE: total momentum is conserved"
+    elif fp is not None and fp.kinetic.size and float(np.mean(fp.com_kinetic)) < 1e-4 * float(np.mean(fp.kinetic)):
+        n_com, com_src = 3, "inferred: the centre-of-mass momentum stays zero"
+    else:
+        n_com, com_src = 0, "thermostatted and the centre-of-mass momentum fluctuates: not removed"
+    try:
+        n_dof = tm.degrees_of_freedom(run.n_atoms, n_constraints=n_con, n_com=n_com) if run.n_atoms else None
+    except AnalysisError:
+        n_dof = None
+        notes.append("The degrees of freedom could not be counted (too many constraints for the atoms).")
+
+    target_T = temperature_K if temperature_K is not None else md.temperature_K
+
+    # ---- temperature ------------------------------------------------------------------------------
+    temp: TemperatureAudit | None = None
+    file_kin = table.by_role("kinetic") if table is not None else None
+    file_T = table.by_role("temperature") if table is not None else None
+    if n_dof is not None and (fp is not None or file_kin is not None):
+        t_vel = tm.kinetic_temperature(fp.kinetic, n_dof) if fp is not None else None
+        t_filek = None
+        if file_kin is not None and table is not None:
+            t_filek = tm.kinetic_temperature(np.asarray(file_kin.values, dtype=np.float64), n_dof)
+        if t_filek is not None and table is not None:
+            t_series, t_time = t_filek, np.asarray(table.time_ps, dtype=np.float64)
+            ksrc = (f"the file's kinetic energy (column '{file_kin.name}'), preferred over the velocities: "  # type: ignore[union-attr]
+                    "leapfrog-type integrators store velocities half a step off")
+        else:
+            assert fp is not None and t_vel is not None
+            t_series, t_time = t_vel, fp.time_ps
+            ksrc = "velocities (1/2 m v^2 summed over atoms)"
+        fin = np.isfinite(t_series)
+        ts_f = t_series[fin]
+        g_T, _ = en.statistical_inefficiency_of(ts_f)
+        mean_T = float(ts_f.mean()) if ts_f.size else math.nan
+        std_T = float(ts_f.std()) if ts_f.size else math.nan
+        err_T = std_T * math.sqrt(g_T / max(ts_f.size, 1))
+        mismatch = implied = fT_mean = None
+        if file_T is not None and table is not None:
+            fvals = np.asarray(file_T.values, dtype=np.float64)
+            if t_filek is not None:
+                ok = np.isfinite(fvals) & np.isfinite(t_filek)
+                ours, theirs = t_filek[ok], fvals[ok]
+            else:
+                assert fp is not None and t_vel is not None
+                fi, ti = _align(fp.time_ps, np.asarray(table.time_ps, dtype=np.float64))
+                ok = np.isfinite(fvals[ti])
+                ours, theirs = t_vel[fi][ok], fvals[ti][ok]
+            if theirs.size and float(theirs.mean()) > 0:
+                fT_mean = float(theirs.mean())
+                mismatch = (float(ours.mean()) - fT_mean) / fT_mean
+                implied = n_dof * float(ours.mean()) / fT_mean
+        # equipartition groups
+        gtemps: tuple[tm.GroupTemperature, ...] = ()
+        if fp is not None and all_groups and t_vel is not None:
+            gdof = tm.group_degrees_of_freedom(
+                all_groups, run.masses_amu, n_com=n_com,
+                constraint_pairs=None if inference is None else inference.rigid_pairs,
+                constraint_weights=None if inference is None else inference.constraint_weights,
+                n_constraints=n_con)
+            names = list(all_groups)
+            gtemps = tm.group_temperatures(fp.group_kinetic, [gdof[k] for k in names], names,
+                                           [int(all_groups[k].size) for k in names], t_vel)
+        # canonical checks
+        kdist = None
+        maxw: list[tm.DistributionCheck] = []
+        if not thermostatted:
+            cnote = ("not applied: in an NVE run the kinetic energy is not gamma-distributed (it is narrower "
+                     "because the total energy is fixed), so these tests would mislead")
+        elif target_T is None:
+            cnote = "not applied: the target temperature is unknown (give --temperature K)"
+        else:
+            kin_for_test = (np.asarray(file_kin.values, dtype=np.float64) if file_kin is not None
+                            else fp.kinetic if fp is not None else None)
+            cnote = "applied on decorrelated samples (every g-th frame)"
+            if kin_for_test is not None:
+                kf = kin_for_test[np.isfinite(kin_for_test)]
+                gk_, _ = en.statistical_inefficiency_of(kf)
+                sample = kf[tm.thin_indices(kf.size, gk_)]
+                if sample.size >= 20:
+                    kdist = tm.kinetic_energy_distribution_check(sample, n_dof, target_T)
+                else:
+                    cnote = f"kinetic-energy test not applied: only {sample.size} decorrelated samples (< 20)"
+            if fp is not None and fp.speeds:
+                free = tm.unconstrained_atoms(run.n_atoms, np.zeros((0, 2)) if inference is None
+                                              else inference.rigid_pairs)
+                species = tm.species_of(run.topology, run.masses_amu)
+                g_frames = max(1.0, g_T if t_filek is None else en.statistical_inefficiency_of(t_vel)[0]
+                               if t_vel is not None else 1.0)
+                step = max(1, int(math.ceil(g_frames / fp.speed_frame_stride)))
+                for sp, speeds in fp.speeds.items():
+                    if speeds.size == 0:
+                        continue
+                    idx = species[sp]
+                    kept = idx[: speeds.shape[1]]
+                    cols = free[kept]
+                    if n_con > 0 and inference is None:
+                        continue  # cannot tell constrained atoms apart
+                    s = speeds[::step][:, cols].ravel()
+                    if s.size >= 50:
+                        mass = float(run.masses_amu[kept[cols]][0])
+                        maxw.append(tm.maxwell_speed_check(s, mass, target_T, name=sp))
+        temp = TemperatureAudit(
+            n_atoms=run.n_atoms, n_dof=n_dof, n_constraints=n_con, constraints_source=con_src,
+            n_com_removed=n_com, com_source=com_src, kinetic_source=ksrc, mean_K=mean_T, std_K=std_T,
+            error_K=err_T, statistical_inefficiency=g_T,
+            mean_from_velocities_K=None if t_vel is None else float(np.mean(t_vel)),
+            mean_from_file_kinetic_K=None if t_filek is None else float(np.nanmean(t_filek)),
+            file_temperature_mean_K=fT_mean, file_mismatch_relative=mismatch, implied_file_dof=implied,
+            velocities_estimated=bool(run.frames is not None and run.frames.velocities_estimated),
+            constraint_inference=inference, groups=gtemps, kinetic_distribution=kdist, maxwell=tuple(maxw),
+            canonical_note=cnote, time_ps=t_time, temperature_K=t_series,
+        )
+        if temp.velocities_estimated and t_filek is None:
+            notes.append("Velocities were estimated from positions (central differences): the kinetic "
+                         "temperature from them is biased low when frames are far apart.")
+    kT_ref = target_T if target_T is not None else (temp.mean_K if temp is not None else None)
+
+    # ---- energy conservation ------------------------------------------------------------------
+    eaudit: EnergyAudit | None = None
+    if conserved is not None:
+        t = conserved.time_ps
+        e = conserved.values_kJ_per_mol
+        events = en.find_energy_events(t, e, jump_robust_sigma=THRESHOLDS["energy.jumps"].caution)
+        good = np.isfinite(e) & np.isfinite(t)
+        kin = conserved.kinetic_kJ_per_mol
+        ksrc_e: str | None = None
+        if kin is not None:
+            good &= np.isfinite(kin)
+            ksrc_e = f"file column '{conserved.kinetic_column}'"
+        drift = fl = None
+        if good.sum() >= 3:
+            drift = en.drift_fit(t[good], e[good], n_atoms=run.n_atoms or None, n_dof=n_dof,
+                                 temperature_K=kT_ref)
+            kin_used = None if kin is None else kin[good]
+            if kin_used is None and fp is not None:
+                fi, ti = _align(fp.time_ps, t[good])
+                if fi.size == int(good.sum()):
+                    kin_used = fp.kinetic[fi[np.argsort(ti)]]
+                    ksrc_e = "velocities (frames matched to energy rows by time)"
+            fl = en.energy_fluctuations(t[good], e[good], kin_used)
+        eaudit = EnergyAudit(series_label=conserved.label, series_columns=conserved.columns,
+                             expected_conserved=conserved.expected_conserved, reason=conserved.reason,
+                             kinetic_source=ksrc_e, drift=drift, fluctuations=fl, events=events,
+                             sampling=en.series_sampling(table) if table is not None else (),
+                             time_ps=t, values_kJ_per_mol=e)
+
+    # ---- time step ------------------------------------------------------------------------------
+    dt = timestep_ps if timestep_ps is not None else md.timestep_ps
+    dt_src = "user (--timestep)" if timestep_ps is not None else ("metadata" if md.timestep_ps else "unknown")
+    tsa: TimestepAudit | None = None
+    if fp is not None:
+        if fp.spectrum is not None:
+            freq, power = fp.spectrum
+            try:
+                fast = ts.fastest_motion(freq, power)
+            except AnalysisError as exc:
+                tsa = TimestepAudit(None, None, str(exc), freq, power)
+            else:
+                spacing = float(np.median(np.diff(fp.time_ps)))
+                chk = ts.check_timestep(fast.period_ps, spacing, dt, timestep_source=dt_src)
+                tsa = TimestepAudit(fast, chk, "fastest motion from the mass-weighted velocity power spectrum "
+                                    "(Welch, Hann window; the audit's own estimator)", freq, power)
+        else:
+            tsa = TimestepAudit(None, None, fp.spectrum_note, np.zeros(0), np.zeros(0))
+
+    # ---- comparison run -----------------------------------------------------------------------
+    compared: AuditResult | None = None
+    scaling: ts.ScalingResult | None = None
+    if compare is not None:
+        compared = yield from _nested(audit_run(compare, temperature_K=temperature_K, chunk_frames=chunk_frames,
+                                                segment_frames=segment_frames), frames_total, total)
+        dt2 = compare.metadata.timestep_ps
+        s1 = eaudit.fluctuations if eaudit is not None else None
+        s2 = compared.energy.fluctuations if compared.energy is not None else None
+        if dt and dt2 and s1 is not None and s2 is not None:
+            try:
+                scaling = ts.timestep_scaling(dt, s1.sigma_total_kJ_per_mol, dt2, s2.sigma_total_kJ_per_mol,
+                                              ratio_1=s1.ratio, ratio_2=s2.ratio)
+            except AnalysisError as exc:
+                notes.append(f"Time-step scaling not checked: {exc}")
+
+    verdicts = _verdicts(eaudit, temp, tsa, scaling, compared, thermostatted, has_vel, conserved, dt)
+    yield Progress(total, total, "done")
+    return AuditResult(run_name=run.name, paths=tuple(str(p) for p in run.paths), ensemble=ensemble,
+                       thermostatted=thermostatted, energy=eaudit, temperature=temp, timestep=tsa,
+                       scaling=scaling, compared=compared, verdicts=tuple(verdicts), notes=tuple(notes),
+                       settings=settings)
+
+
+def _nested(work: Work[AuditResult], done0: float, total: float) -> Work[AuditResult]:
+    """Re-yield a nested audit's progress on the outer scale."""
+    try:
+        while True:
+            p = next(work)
+            yield Progress(min(done0 + p.done, total), total, f"comparison run: {p.message}")
+    except StopIteration as stop:
+        return stop.value  # type: ignore[no-any-return]
+
+
+def _fmt(x: float | None, unit: str = "", digits: int = 4) -> str:
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    return f"{x:.{digits}g}{(' ' + unit) if unit else ''}"
+
+
+def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: TimestepAudit | None,
+              scaling: ts.ScalingResult | None, compared: AuditResult | None, thermostatted: bool,
+              has_vel: bool, conserved: en.ConservedSeries | None, dt: float | None) -> list[Verdict]:
+    out: list[Verdict] = []
+    # energy
+    if ea is None:
+        for kind, title in (("energy.drift", "Energy drift"), ("energy.fluctuation_ratio", "Energy fluctuation ratio")):
+            out.append(_skipped(kind, title, "the run has no energy table"))
+    else:
+        ev = ea.events
+        out.append(judge("energy.nonfinite", float(ev.n_nonfinite), title="Non-finite energies", unit="rows",
+                         message=f"{ev.n_nonfinite} rows of {ea.series_label} are NaN or infinite "
+                                 f"(threshold: any; {_src('energy.nonfinite')})",
+                         advice=_advice("energy.nonfinite") if ev.n_nonfinite else "",
+                         details={"first_time_ps": next((e.time_ps for e in ev.events if e.kind == "nonfinite"), None)}))
+        if not ea.expected_conserved:
+            out.append(_skipped("energy.drift", "Energy drift", ea.reason))
+            out.append(_skipped("energy.fluctuation_ratio", "Energy fluctuation ratio", ea.reason))
+        else:
+            d = ea.drift
+            if d is not None:
+                measured = abs(d.slope_kT_per_dof_per_ns) if d.slope_kT_per_dof_per_ns is not None else None
+                thr = THRESHOLDS["energy.drift"]
+                msg = (f"{ea.series_label}: slope {_fmt(d.slope_kJ_per_mol_per_ns)} +- "
+                       f"{_fmt(d.slope_error_kJ_per_mol_per_ns)} kJ/mol/ns (z = {d.z_score:.2f}, "
+                       f"{'significant' if d.significant else 'not significant'} at |z| > 3), = "
+                       f"{_fmt(d.slope_kT_per_dof_per_ns)} kT/DOF/ns against {thr.caution:g} caution / "
+                       f"{thr.problem:g} problem ({thr.source})")
+                if measured is None:
+                    out.append(Verdict("energy.drift", "info", "Energy drift", None, "kT/DOF/ns",
+                                       msg + "; kT/DOF not known (degrees of freedom or temperature missing)",
+                                       threshold=thr))
+                else:
+                    v = judge("energy.drift", measured, title="Energy drift", unit="kT/DOF/ns", message=msg,
+                              advice=_advice("energy.drift"))
+                    if not d.significant and v.level != "ok":
+                        v = replace(v, level="ok", message=v.message + "; within its error bar, so not flagged")
+                    if v.level == "ok":
+                        v = replace(v, advice="")
+                    out.append(v)
+            f = ea.fluctuations
+            if f is not None and f.ratio is not None:
+                thr = THRESHOLDS["energy.fluctuation_ratio"]
+                v = judge("energy.fluctuation_ratio", f.ratio, title="Energy fluctuation ratio", unit="",
+                          message=f"sigma_E/sigma_K = {_fmt(f.sigma_total_kJ_per_mol)} / "
+                                  f"{_fmt(f.sigma_kinetic_kJ_per_mol)} kJ/mol = {_fmt(f.ratio)} against "
+                                  f"{thr.caution:g} good / {thr.problem:g} acceptable ({thr.source})",
+                          advice=_advice("energy.fluctuation_ratio"))
+                out.append(v if v.level != "ok" else replace(v, advice=""))
+            elif f is not None:
+                out.append(_skipped("energy.fluctuation_ratio", "Energy fluctuation ratio",
+                                    "no kinetic energy in the files or from velocities matched to the rows"))
+        mj = ev.max_jump_robust_sigma
+        v = judge("energy.jumps", mj, title="Energy jumps", unit="robust sigma",
+                  message=f"largest frame-to-frame step {mj:.3g} robust sigma; {ev.n_jumps} steps above "
+                          f"{THRESHOLDS['energy.jumps'].caution:g} ({_src('energy.jumps')})",
+                  advice=_advice("energy.jumps"),
+                  details={"times_ps": [e.time_ps for e in ev.events if e.kind == "jump"]})
+        out.append(v if v.level != "ok" else replace(v, advice=""))
+        if ev.runaway_ratio is not None:
+            v = judge("energy.runaway", ev.runaway_ratio, title="Runaway energy", unit="",
+                      message=f"frame-to-frame energy noise in the last tenth is {ev.runaway_ratio:.3g} times "
+                              f"that in the first tenth ({_src('energy.runaway')})",
+                      advice=_advice("energy.runaway"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        v = judge("time.gaps", float(ev.n_gaps), title="Time gaps", unit="gaps",
+                  message=f"{ev.n_gaps} spacings above 1.5 x the median spacing {_fmt(ev.median_spacing_ps, 'ps')}",
+                  advice=_advice("time.gaps"), details={"times_ps": [e.time_ps for e in ev.events if e.kind == "gap"]})
+        out.append(v if v.level != "ok" else replace(v, advice=""))
+        v = judge("time.overlaps", float(ev.n_overlaps), title="Time overlaps and reversals", unit="rows",
+                  message=f"{ev.n_overlaps} rows where time repeats or goes back",
+                  advice=_advice("time.overlaps"),
+                  details={"times_ps": [e.time_ps for e in ev.events if e.kind in ("overlap", "reversal")]})
+        out.append(v if v.level != "ok" else replace(v, advice=""))
+    # temperature
+    if ta is None:
+        out.append(_skipped("temperature.file_mismatch", "Kinetic temperature",
+                            "no velocities and no kinetic energy in the files"))
+    else:
+        out.append(Verdict("temperature.dof", "info", "Kinetic temperature", ta.mean_K, "K",
+                           f"T = {_fmt(ta.mean_K)} +- {_fmt(ta.error_K)} K from {ta.kinetic_source}; N_dof = "
+                           f"{ta.n_dof} = 3 x {ta.n_atoms} - {ta.n_constraints} constraints ({ta.constraints_source}) "
+                           f"- {ta.n_com_removed} centre of mass ({ta.com_source})"))
+        if ta.file_mismatch_relative is not None:
+            v = judge("temperature.file_mismatch", abs(ta.file_mismatch_relative), title="Temperature vs file",
+                      unit="", message=f"mean T here {_fmt((1 + ta.file_mismatch_relative) * (ta.file_temperature_mean_K or 0))} K "
+                                       f"against {_fmt(ta.file_temperature_mean_K)} K in the file "
+                                       f"(relative {ta.file_mismatch_relative:+.3%}); the file's value matches "
+                                       f"N_dof = {_fmt(ta.implied_file_dof, digits=6)} against {ta.n_dof} here "
+                                       f"({_src('temperature.file_mismatch')})",
+                      advice=_advice("temperature.file_mismatch"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        if ta.groups:
+            sig = [g for g in ta.groups if g.significant]
+            worst_g = max(sig or list(ta.groups), key=lambda g: abs(g.relative_difference))
+            measured = abs(worst_g.relative_difference) if sig else 0.0
+            listing = "; ".join(f"{g.name}: {g.mean_K:.2f} +- {g.error_K:.2f} K ({g.z_score:+.1f} sigma)"
+                                for g in ta.groups[:12])
+            v = judge("temperature.equipartition", measured, title="Equipartition", unit="",
+                      message=f"largest significant relative difference {measured:.3%} ({worst_g.name} if "
+                              f"significant); groups: {listing} ({_src('temperature.equipartition')})",
+                      advice=_advice("temperature.equipartition"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        if ta.kinetic_distribution is not None:
+            kd = ta.kinetic_distribution
+            v = judge("temperature.kinetic_distribution", kd.p_value, title="Kinetic-energy distribution",
+                      unit="p-value", message=f"KS p = {kd.p_value:.3g} for {kd.n_samples} decorrelated kinetic "
+                                              f"energies against {kd.reference} (std {kd.sample_std:.4g} vs "
+                                              f"{kd.expected_std:.4g} kJ/mol; {_src('temperature.kinetic_distribution')})",
+                      advice=_advice("temperature.kinetic_distribution"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        else:
+            out.append(_skipped("temperature.kinetic_distribution", "Kinetic-energy distribution", ta.canonical_note))
+        if ta.maxwell:
+            nsp = len(ta.maxwell)
+            pmin = min(1.0, min(c.p_value for c in ta.maxwell) * nsp)
+            listing = "; ".join(f"{c.name}: p = {c.p_value:.3g} (n = {c.n_samples})" for c in ta.maxwell)
+            v = judge("temperature.maxwell", pmin, title="Maxwell-Boltzmann speeds", unit="p-value",
+                      message=f"smallest Bonferroni-corrected KS p = {pmin:.3g}; {listing} "
+                              f"({_src('temperature.maxwell')})", advice=_advice("temperature.maxwell"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        else:
+            reason = ta.canonical_note if not thermostatted else (
+                ta.canonical_note if "not applied" in ta.canonical_note else
+                "no unconstrained species with enough decorrelated speeds (needs velocities)")
+            out.append(_skipped("temperature.maxwell", "Maxwell-Boltzmann speeds", reason))
+    # time step
+    if tsa is None:
+        out.append(_skipped("timestep.fastest_period", "Time step", "no velocities: the fastest motion is unknown"))
+    elif tsa.fastest is None or tsa.check is None:
+        out.append(_skipped("timestep.fastest_period", "Time step", tsa.note))
+    else:
+        c, fm = tsa.check, tsa.fastest
+        if c.steps_per_period is None:
+            out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
+                               f"fastest motion {fm.wavenumber_per_cm:.0f} cm^-1 (period {c.fastest_period_ps * 1e3:.3g} fs); "
+                               f"the time step is unknown (give --timestep FS); common practice asks for at most "
+                               f"{c.recommended_max_timestep_ps * 1e3:.3g} fs", threshold=THRESHOLDS["timestep.fastest_period"]))
+        else:
+            v = judge("timestep.fastest_period", c.steps_per_period, title="Time step", unit="steps per period",
+                      message=f"dt = {c.timestep_ps * 1e3:.4g} fs ({c.timestep_source}) against the fastest period "  # type: ignore[operator]
+                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1): "
+                              f"{c.steps_per_period:.3g} steps per period, limit period/10 = "
+                              f"{c.recommended_max_timestep_ps * 1e3:.3g} fs ({_src('timestep.fastest_period')})",
+                      advice=_advice("timestep.fastest_period"))
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        msg = (f"frame spacing {c.frame_spacing_ps * 1e3:.4g} fs gives {c.frames_per_period:.3g} frames per "
+               f"fastest period seen ({_src('timestep.nyquist')})")
+        v = judge("timestep.nyquist", c.frames_per_period, title="Frame spacing vs fastest motion",
+                  unit="frames per period", message=msg, advice=_advice("timestep.nyquist"))
+        if fm.near_nyquist and v.level == "ok":
+            v = replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: a faster "
+                        "motion may be aliased")
+        out.append(v if v.level != "ok" else replace(v, advice=""))
+    if scaling is not None:
+        dev = abs(scaling.exponent - scaling.expected_exponent)
+        v = judge("timestep.scaling", dev, title="Fluctuation vs time step", unit="",
+                  message=f"sigma_E {scaling.sigma_1_kJ_per_mol:.4g} kJ/mol at {scaling.timestep_1_ps * 1e3:.4g} fs vs "
+                          f"{scaling.sigma_2_kJ_per_mol:.4g} kJ/mol at {scaling.timestep_2_ps * 1e3:.4g} fs: ratio "
+                          f"{scaling.measured_ratio:.4g} against (dt1/dt2)^2 = {scaling.expected_ratio:.4g}; exponent "
+                          f"{scaling.exponent:.3f} against 2 ({_src('timestep.scaling')})",
+                  advice=_advice("timestep.scaling"), details={"exponent": scaling.exponent})
+        out.append(v if v.level != "ok" else replace(v, advice=""))
+    elif compared is not None:
+        out.append(_skipped("timestep.scaling", "Fluctuation vs time step",
+                            "both runs need a known time step and an energy fluctuation (give --timestep)"))
+    return out

@@ -1,0 +1,603 @@
+"""Energy conservation: conserved-quantity selection, drift, fluctuations and events.
+
+Pure array kernels (``drift_fit``, ``energy_fluctuations``, ``find_energy_events``,
+``statistical_inefficiency_of``) plus :func:`select_conserved`, which picks the series to judge from an
+:class:`~phasewake.core.run.EnergyTable` and says which one it picked. The Run adapter that runs all
+checks is :func:`phasewake.core.audit.audit_run`.
+
+Units: time ps, energies kJ/mol, temperatures K. Drift is reported per ns.
+
+Every threshold used here is registered in :mod:`phasewake.core.verdicts` with its source; these are
+heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError, UnitError
+from phasewake.core.run import EnergyTable
+from phasewake.core.verdicts import Explanation, Threshold, register
+
+KB_CODATA_2018_KJ_PER_MOL_K = 0.00831446261815324  # k_B * N_A, exact since SI 2019 (CODATA 2018)
+
+
+def boltzmann_kJ_per_mol_K() -> float:
+    """k_B in kJ/mol/K: the project's constant when the units module exists, else CODATA 2018 exact."""
+    try:
+        from phasewake.core.units import KB_KJ_PER_MOL_K
+    except ImportError:
+        return KB_CODATA_2018_KJ_PER_MOL_K
+    return float(KB_KJ_PER_MOL_K)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Thresholds (all common practice unless a source is named) and explanations
+# ---------------------------------------------------------------------------------------------------
+
+register(
+    Threshold("energy.fluctuation_ratio", caution=0.01, problem=0.05, unit="",
+              source="common practice (sigma_E/sigma_K <= 0.01 good, <= 0.05 acceptable)",
+              description="RMS of the detrended conserved energy over the RMS of the kinetic energy"),
+    Explanation(
+        title="Energy fluctuation ratio",
+        what="How large the fluctuations of the conserved energy are compared with those of the kinetic "
+             "energy. It does not depend on the arbitrary zero of the energy.",
+        method="sigma_E = standard deviation of the conserved energy after removing a least-squares line; "
+               "sigma_K = standard deviation of the kinetic energy; R = sigma_E / sigma_K. For velocity "
+               "Verlet on a harmonic mode R = (omega dt)^2 / 4 (from the shadow Hamiltonian, Tuckerman 2010 "
+               "eq. 3.13.3).",
+        threshold="R <= 0.01 good, <= 0.05 acceptable: common practice, no citable source.",
+        advice="Reduce the time step, constrain bonds to hydrogen, tighten constraint and integrator "
+               "tolerances, or check the cut-off treatment (a smooth switch or shift removes jumps).",
+    ),
+)
+register(
+    Threshold("energy.drift", caution=0.01, problem=0.1, unit="kT/DOF/ns",
+              source="common practice (drift in kT per degree of freedom per ns; no citable source)",
+              description="absolute least-squares slope of the conserved energy, in kT per DOF per ns"),
+    Explanation(
+        title="Energy drift",
+        what="The systematic change of the conserved energy over the run.",
+        method="Ordinary least-squares slope of E(t). Its error bar is the OLS standard error inflated by "
+               "sqrt(g), g the statistical inefficiency of the residuals (residuals are correlated). "
+               "Reported in kJ/mol/ns, per atom, per degree of freedom and as kT per DOF per ns.",
+        threshold="|drift| <= 0.01 kT/DOF/ns ok, <= 0.1 caution, above that a problem: common practice, "
+                  "no citable source. A drift is only flagged when it is also significant (|z| > 3).",
+        advice="A steady drift usually means a too-large time step, loose constraint tolerances, "
+               "cut-off artefacts, or single-precision accumulation. Compare with a run at half the step.",
+    ),
+)
+register(
+    Threshold("energy.jumps", caution=8.0, problem=20.0, unit="robust sigma",
+              source="common practice (a step between frames far outside the spread of the steps)",
+              description="largest frame-to-frame change of the energy in units of the robust spread "
+                          "(1.4826 MAD) of all frame-to-frame changes"),
+    Explanation(
+        title="Energy jumps",
+        what="Sudden steps in the energy between two frames: restarts, glued runs, a changed setting.",
+        method="d_i = E_(i+1) - E_i; robust spread s = 1.4826 * median|d - median(d)|; a jump is "
+               "|d_i - median(d)| > threshold * s. Each jump is located in time.",
+        threshold="8 robust sigma caution, 20 problem: common practice.",
+        advice="Look at the run's log near the reported times: restarts from checkpoints, concatenated "
+               "pieces or a changed parameter. Analyse the pieces separately if they differ.",
+    ),
+)
+register(
+    Threshold("energy.nonfinite", caution=0.0, problem=0.0, unit="rows",
+              source="common practice (any NaN or infinite energy is unusable)",
+              description="number of rows with NaN or infinite energy"),
+    Explanation(
+        title="Non-finite energies",
+        what="Rows where an energy is NaN or infinite: the integration blew up or the file is damaged.",
+        method="Count of rows whose selected energy terms are not finite; the other checks skip them.",
+        threshold="Any such row is a problem.",
+        advice="Find the first bad time and inspect the frames before it (overlapping atoms, too-large "
+               "step, bad restart).",
+    ),
+)
+register(
+    Threshold("energy.runaway", caution=3.0, problem=10.0, unit="",
+              source="common practice (growth of the frame-to-frame energy noise over the run)",
+              description="RMS frame-to-frame energy change in the last tenth over that in the first tenth"),
+    Explanation(
+        title="Runaway energy",
+        what="Whether the energy noise grows over the run, the signature of an integration going unstable.",
+        method="Ratio of the RMS of E_(i+1) - E_i in the last tenth of the run to that in the first tenth "
+               "(insensitive to a steady drift).",
+        threshold="3 caution, 10 problem: common practice.",
+        advice="A growing noise means the integrator is becoming unstable: reduce the step and look for "
+               "atoms coming too close.",
+    ),
+)
+register(
+    Threshold("time.gaps", caution=0.0, problem=10.0, unit="gaps",
+              source="common practice (a spacing more than 1.5 times the median spacing)",
+              description="number of time gaps"),
+    Explanation(
+        title="Time gaps",
+        what="Places where the time between two rows is much larger than usual: missing output or glued runs.",
+        method="Spacings larger than 1.5 times the median spacing, each located in time.",
+        threshold="Any gap is a caution, more than 10 a problem: common practice.",
+        advice="Check whether pieces are missing; time correlations across a gap are not meaningful.",
+    ),
+)
+register(
+    Threshold("time.overlaps", caution=0.0, problem=0.0, unit="rows",
+              source="common practice (time must increase strictly)",
+              description="number of repeated times or reversals"),
+    Explanation(
+        title="Time overlaps and reversals",
+        what="Repeated times or time going backwards: typically a run restarted from an earlier checkpoint "
+             "and appended.",
+        method="Spacings <= 0 between consecutive rows, each located in time.",
+        threshold="Any overlap or reversal is a problem: common practice.",
+        advice="Remove the duplicated stretch (keep one continuous piece) before analysing.",
+    ),
+)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Statistical inefficiency (correlation module when present, else a private Sokal-window estimator)
+# ---------------------------------------------------------------------------------------------------
+
+
+def _sokal_statistical_inefficiency(x: np.ndarray, c: float = 5.0) -> float:
+    """g = 1 + 2 sum_k rho(k) with Sokal's automatic window (smallest M with M >= c * g(M)).
+
+    Sokal, "Monte Carlo Methods in Statistical Mechanics", NATO ASI Series B 361 (1997). FFT
+    autocovariance, zero-padded to avoid wrap-around, biased (divide by N) normalisation.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    n = x.shape[0]
+    if n < 4:
+        return 1.0
+    y = x - x.mean()
+    var = float(np.dot(y, y)) / n
+    if not var > 0.0:
+        return 1.0
+    nfft = 1 << int(math.ceil(math.log2(2 * n)))
+    f = np.fft.rfft(y, nfft)
+    acov = np.fft.irfft(f * np.conj(f), nfft)[:n] / n
+    rho = acov / acov[0]
+    g_m = 1.0 + 2.0 * np.cumsum(rho[1:])
+    m = np.arange(1, n)
+    ok = np.nonzero(m >= c * g_m)[0]
+    g = float(g_m[ok[0]]) if ok.size else float(g_m[-1])
+    return max(1.0, g)
+
+
+def statistical_inefficiency_of(x: np.ndarray) -> tuple[float, str]:
+    """Statistical inefficiency g (>= 1) of a series and the name of the estimator used.
+
+    Uses ``phasewake.core.correlation.statistical_inefficiency`` when that module exists, else a
+    private Sokal-window estimator (Sokal 1997, c = 5).
+
+    Parameters
+    ----------
+    x : ndarray, shape (n,)
+
+    Returns
+    -------
+    g : float, dimensionless, >= 1
+    method : str
+    """
+    try:
+        from phasewake.core.correlation import statistical_inefficiency
+    except ImportError:
+        return _sokal_statistical_inefficiency(x), "Sokal automatic window (c = 5), audit's own estimator"
+    arr = np.asarray(x, dtype=np.float64)
+    if arr.shape[0] < 4 or not float(np.ptp(arr)) > 0.0:
+        return 1.0, "constant or very short series (g = 1)"
+    try:
+        g = float(statistical_inefficiency(arr))
+    except AnalysisError:
+        return 1.0, "constant series (g = 1)"
+    return max(1.0, g), "phasewake.core.correlation.statistical_inefficiency (Sokal window)"
+
+
+# ---------------------------------------------------------------------------------------------------
+# Conserved quantity
+# ---------------------------------------------------------------------------------------------------
+
+ENERGY_UNIT = "kJ/mol"
+
+
+@dataclass(frozen=True)
+class ConservedSeries:
+    """The energy series an audit judges, and why it was chosen.
+
+    ``values_kJ_per_mol`` and ``time_ps`` have shape (n_rows,). ``expected_conserved`` is False when
+    the run is thermostatted and the files give no conserved quantity or bath heat: then drift and
+    fluctuation verdicts are not applicable.
+    """
+
+    time_ps: np.ndarray
+    values_kJ_per_mol: np.ndarray
+    label: str  # in words, e.g. "total energy (column 'total_energy')"
+    columns: tuple[str, ...]
+    expected_conserved: bool
+    reason: str
+    kinetic_kJ_per_mol: np.ndarray | None = None
+    kinetic_column: str | None = None
+    unit: str = ENERGY_UNIT
+
+
+def _energy_values(table: EnergyTable, role: str) -> tuple[np.ndarray, str] | None:
+    s = table.by_role(role)
+    if s is None:
+        return None
+    if s.unit.replace(" ", "") not in ("kJ/mol", "kJmol-1", "kJ/mole"):
+        raise UnitError(f"energy column '{s.name}' has unit '{s.unit}', expected kJ/mol after reading",
+                        path=s.source.split(":")[0] or None)
+    return np.asarray(s.values, dtype=np.float64), s.name
+
+
+def select_conserved(table: EnergyTable, *, thermostatted: bool) -> ConservedSeries:
+    """Pick the series whose conservation is judged.
+
+    Order: a ``conserved`` column; for thermostatted runs total + ``bath_heat`` (the cumulative energy
+    the thermostat removed, as the readers define it; Bussi, Donadio and Parrinello 2007 bookkeeping);
+    for unthermostatted runs ``total``, else ``potential + kinetic``.
+
+    Raises
+    ------
+    MissingDataError
+        When the table has no usable energy column.
+    """
+    src = table.sources[0] if table.sources else None
+    kin = _energy_values(table, "kinetic")
+    pot = _energy_values(table, "potential")
+    tot = _energy_values(table, "total")
+    con = _energy_values(table, "conserved")
+    heat = _energy_values(table, "bath_heat")
+    kin_v, kin_c = (kin if kin is not None else (None, None))
+    t = np.asarray(table.time_ps, dtype=np.float64)
+
+    def made(values: np.ndarray, label: str, cols: tuple[str, ...], conserved: bool,
+             reason: str) -> ConservedSeries:
+        return ConservedSeries(time_ps=t, values_kJ_per_mol=values, label=label, columns=cols,
+                               expected_conserved=conserved, reason=reason,
+                               kinetic_kJ_per_mol=kin_v, kinetic_column=kin_c)
+
+    total: tuple[np.ndarray, str, tuple[str, ...]] | None = None
+    if tot is not None:
+        total = (tot[0], f"total energy (column '{tot[1]}')", (tot[1],))
+    elif pot is not None and kin is not None:
+        total = (pot[0] + kin[0], f"potential + kinetic (columns '{pot[1]}' + '{kin[1]}')", (pot[1], kin[1]))
+
+    if con is not None:
+        return made(con[0], f"conserved energy (column '{con[1]}')", (con[1],), True,
+                    "the file gives a conserved quantity")
+    if thermostatted:
+        if total is not None and heat is not None:
+            return made(total[0] + heat[0], f"{total[1]} + bath heat (column '{heat[1]}')",
+                        total[2] + (heat[1],), True,
+                        "thermostatted run: total energy plus the heat the thermostat removed")
+        if total is not None:
+            return made(total[0], total[1], total[2], False,
+                        "thermostatted run without a conserved quantity or bath heat in the files: the "
+                        "total energy is not expected to be conserved")
+    elif total is not None:
+        return made(total[0], total[1], total[2], True, "unthermostatted run: the total energy is conserved")
+    names = ", ".join(f"{s.name} ({s.role})" for s in table.series.values()) or "none"
+    raise MissingDataError(
+        "no usable energy column: need a conserved or total energy, or potential and kinetic energy; "
+        f"found {names}", path=src)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Drift
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class DriftResult:
+    """Least-squares drift of an energy series with a correlation-corrected error bar.
+
+    Per-atom / per-DOF / kT-per-DOF numbers are None when ``n_atoms`` / ``n_dof`` / ``temperature_K``
+    were not given.
+    """
+
+    slope_kJ_per_mol_per_ns: float
+    slope_error_kJ_per_mol_per_ns: float  # OLS standard error inflated by sqrt(g)
+    slope_error_ols_kJ_per_mol_per_ns: float  # plain OLS standard error (too small when correlated)
+    z_score: float  # slope / error
+    significant: bool  # |z| > significance_z
+    residual_statistical_inefficiency: float
+    error_method: str
+    intercept_kJ_per_mol: float
+    n_samples: int
+    duration_ps: float
+    slope_per_atom_kJ_per_mol_per_ns: float | None
+    slope_per_dof_kJ_per_mol_per_ns: float | None
+    slope_kT_per_dof_per_ns: float | None
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def drift_fit(
+    time_ps: np.ndarray,
+    energy_kJ_per_mol: np.ndarray,
+    *,
+    n_atoms: int | None = None,
+    n_dof: int | None = None,
+    temperature_K: float | None = None,
+    significance_z: float = 3.0,
+) -> DriftResult:
+    """Fit E(t) = E0 + s t by ordinary least squares; error bar corrected for correlated residuals.
+
+    The OLS standard error assumes independent residuals; MD residuals are correlated, so it is
+    multiplied by sqrt(g), g the statistical inefficiency of the residuals (REFERENCES.md §1.1,
+    common practice). Closed-form sums, no polyfit (PERFORMANCE.md).
+
+    Parameters
+    ----------
+    time_ps : ndarray, shape (n,), ps
+    energy_kJ_per_mol : ndarray, shape (n,), kJ/mol; must be finite
+    n_atoms, n_dof : int, optional
+        For per-atom and per-degree-of-freedom drifts.
+    temperature_K : float, optional
+        For the drift in kT per DOF per ns (needs ``n_dof`` too).
+    significance_z : float
+        |slope| / error above which the drift is called significant.
+    """
+    t = np.asarray(time_ps, dtype=np.float64)
+    e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
+    n = int(e.shape[0])
+    if n < 3:
+        raise TooShortError("an energy drift fit", have=n, need=3)
+    tc = t - t.mean()
+    sxx = float(np.dot(tc, tc))
+    if not sxx > 0.0:
+        raise TooShortError("an energy drift fit over distinct times", have=1, need=2)
+    emean = float(e.mean())
+    slope = float(np.dot(tc, e - emean)) / sxx  # kJ/mol/ps
+    resid = e - emean - slope * tc
+    s2 = float(np.dot(resid, resid)) / (n - 2)
+    se_ols = math.sqrt(s2 / sxx)
+    g, method = statistical_inefficiency_of(resid)
+    se = se_ols * math.sqrt(g)
+    z = slope / se if se > 0 else (math.inf if slope != 0 else 0.0)
+    slope_ns = slope * 1e3
+    per_atom = slope_ns / n_atoms if n_atoms else None
+    per_dof = slope_ns / n_dof if n_dof else None
+    kt_dof = None
+    if n_dof and temperature_K:
+        kt_dof = slope_ns / (n_dof * boltzmann_kJ_per_mol_K() * temperature_K)
+    return DriftResult(
+        slope_kJ_per_mol_per_ns=slope_ns,
+        slope_error_kJ_per_mol_per_ns=se * 1e3,
+        slope_error_ols_kJ_per_mol_per_ns=se_ols * 1e3,
+        z_score=float(z),
+        significant=bool(abs(z) > significance_z),
+        residual_statistical_inefficiency=g,
+        error_method=f"OLS standard error x sqrt(g); g by {method}",
+        intercept_kJ_per_mol=emean - slope * float(t.mean()),
+        n_samples=n,
+        duration_ps=float(t[-1] - t[0]),
+        slope_per_atom_kJ_per_mol_per_ns=per_atom,
+        slope_per_dof_kJ_per_mol_per_ns=per_dof,
+        slope_kT_per_dof_per_ns=kt_dof,
+        settings={"n_atoms": n_atoms, "n_dof": n_dof, "temperature_K": temperature_K,
+                  "significance_z": significance_z},
+    )
+
+
+# ---------------------------------------------------------------------------------------------------
+# Fluctuations
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class FluctuationResult:
+    """RMS fluctuation of the detrended conserved energy and the ratio to the kinetic energy's."""
+
+    sigma_total_kJ_per_mol: float  # std of E after removing the least-squares line
+    sigma_kinetic_kJ_per_mol: float | None  # std of K
+    ratio: float | None  # sigma_total / sigma_kinetic, dimensionless
+    n_samples: int
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def detrended_std(time_ps: np.ndarray, values: np.ndarray) -> float:
+    """Standard deviation of ``values`` after removing a least-squares line in ``time_ps``."""
+    t = np.asarray(time_ps, dtype=np.float64)
+    y = np.asarray(values, dtype=np.float64)
+    tc = t - t.mean()
+    sxx = float(np.dot(tc, tc))
+    yc = y - y.mean()
+    if sxx > 0:
+        yc = yc - (float(np.dot(tc, yc)) / sxx) * tc
+    return float(np.sqrt(np.mean(yc * yc)))
+
+
+def energy_fluctuations(
+    time_ps: np.ndarray,
+    energy_kJ_per_mol: np.ndarray,
+    kinetic_kJ_per_mol: np.ndarray | None = None,
+) -> FluctuationResult:
+    """sigma_E (detrended), sigma_K and R = sigma_E / sigma_K.
+
+    For velocity Verlet on a harmonic oscillator R = (omega dt)^2 / 4, derived from the shadow
+    Hamiltonian of Tuckerman 2010, eq. 3.13.3 (REFERENCES.md §1.2).
+
+    Parameters
+    ----------
+    time_ps : ndarray, shape (n,), ps
+    energy_kJ_per_mol : ndarray, shape (n,), kJ/mol
+    kinetic_kJ_per_mol : ndarray, shape (n,), kJ/mol, optional
+    """
+    e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
+    n = int(e.shape[0])
+    if n < 3:
+        raise TooShortError("an energy fluctuation estimate", have=n, need=3)
+    se = detrended_std(time_ps, e)
+    sk = ratio = None
+    if kinetic_kJ_per_mol is not None:
+        k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
+        sk = float(np.std(k))
+        ratio = se / sk if sk > 0 else math.inf
+    return FluctuationResult(sigma_total_kJ_per_mol=se, sigma_kinetic_kJ_per_mol=sk, ratio=ratio,
+                             n_samples=n, settings={"detrend": "least-squares line"})
+
+
+# ---------------------------------------------------------------------------------------------------
+# Events
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class EnergyEvent:
+    """One located event: ``kind`` in nonfinite, jump, gap, overlap, reversal, runaway."""
+
+    kind: str
+    index: int  # row index (for a spacing event: the row after the spacing)
+    time_ps: float
+    size: float
+    unit: str
+    description: str
+
+
+@dataclass(frozen=True)
+class EventsResult:
+    events: tuple[EnergyEvent, ...]
+    n_nonfinite: int
+    n_jumps: int
+    n_gaps: int
+    n_overlaps: int  # repeated times and reversals
+    max_jump_robust_sigma: float  # largest |d - median d| / robust spread; 0 when too short
+    runaway_ratio: float | None  # RMS step noise last tenth / first tenth
+    median_spacing_ps: float | None
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def find_energy_events(
+    time_ps: np.ndarray,
+    energy_kJ_per_mol: np.ndarray,
+    *,
+    jump_robust_sigma: float = 8.0,
+    gap_factor: float = 1.5,
+    max_listed: int = 50,
+) -> EventsResult:
+    """Locate non-finite rows, jumps, time gaps/overlaps/reversals and a runaway trend.
+
+    Parameters
+    ----------
+    time_ps : ndarray, shape (n,), ps
+    energy_kJ_per_mol : ndarray, shape (n,), kJ/mol (may contain NaN/inf)
+    jump_robust_sigma : float
+        A frame-to-frame change this many robust spreads from the median change is a jump.
+    gap_factor : float
+        A spacing above this many median spacings is a gap.
+    max_listed : int
+        At most this many events of each kind are listed (all are counted).
+    """
+    t = np.asarray(time_ps, dtype=np.float64)
+    e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
+    events: list[EnergyEvent] = []
+
+    bad = np.nonzero(~np.isfinite(e))[0]
+    for i in bad[:max_listed]:
+        events.append(EnergyEvent("nonfinite", int(i), float(t[i]), float(e[i]) if not np.isnan(e[i]) else math.nan,
+                                  ENERGY_UNIT, f"non-finite energy at t = {t[i]:.6g} ps"))
+
+    dt = np.diff(t)
+    median_dt: float | None = None
+    n_gaps = n_over = 0
+    if dt.size:
+        pos = dt[dt > 0]
+        median_dt = float(np.median(pos)) if pos.size else None
+        over = np.nonzero(dt <= 0)[0]
+        n_over = int(over.size)
+        for i in over[:max_listed]:
+            kind = "overlap" if dt[i] == 0 else "reversal"
+            events.append(EnergyEvent(kind, int(i + 1), float(t[i + 1]), float(dt[i]), "ps",
+                                      f"time {'repeats' if kind == 'overlap' else 'goes back'} at row {i + 1}: "
+                                      f"{t[i]:.6g} ps -> {t[i + 1]:.6g} ps"))
+        if median_dt is not None:
+            gaps = np.nonzero(dt > gap_factor * median_dt)[0]
+            n_gaps = int(gaps.size)
+            for i in gaps[:max_listed]:
+                events.append(EnergyEvent("gap", int(i + 1), float(t[i + 1]), float(dt[i]), "ps",
+                                          f"gap of {dt[i]:.6g} ps (median spacing {median_dt:.6g} ps) "
+                                          f"before t = {t[i + 1]:.6g} ps"))
+
+    good = np.isfinite(e)
+    ef, tf = e[good], t[good]
+    idx = np.nonzero(good)[0]
+    max_jump = 0.0
+    n_jumps = 0
+    runaway: float | None = None
+    if ef.size >= 5:
+        d = np.diff(ef)
+        med = float(np.median(d))
+        s = 1.4826 * float(np.median(np.abs(d - med)))
+        floor = 1e-12 * max(1.0, float(np.max(np.abs(ef))))
+        s = max(s, floor)
+        score = np.abs(d - med) / s
+        max_jump = float(score.max())
+        jumps = np.nonzero(score > jump_robust_sigma)[0]
+        n_jumps = int(jumps.size)
+        for j in jumps[np.argsort(-score[jumps])][:max_listed]:
+            events.append(EnergyEvent("jump", int(idx[j + 1]), float(tf[j + 1]), float(d[j]), ENERGY_UNIT,
+                                      f"energy step of {d[j]:.6g} kJ/mol ({score[j]:.1f} robust sigma) at "
+                                      f"t = {tf[j + 1]:.6g} ps"))
+        tenth = d.size // 10
+        if tenth >= 2:
+            first = float(np.sqrt(np.mean((d[:tenth] - med) ** 2)))
+            last = float(np.sqrt(np.mean((d[-tenth:] - med) ** 2)))
+            runaway = last / max(first, floor)
+            if runaway > 3.0:
+                events.append(EnergyEvent("runaway", int(idx[-1]), float(tf[-1]), runaway, "",
+                                          f"frame-to-frame energy noise grew {runaway:.3g}-fold from the "
+                                          "first to the last tenth of the run"))
+    events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
+    return EventsResult(events=tuple(events), n_nonfinite=int(bad.size), n_jumps=n_jumps, n_gaps=n_gaps,
+                        n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
+                        median_spacing_ps=median_dt,
+                        settings={"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor,
+                                  "max_listed": max_listed})
+
+
+# ---------------------------------------------------------------------------------------------------
+# Effective sample sizes of energy-table series
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SeriesSampling:
+    """Mean, spread and effective sample size of one energy-table series."""
+
+    name: str
+    role: str
+    unit: str
+    mean: float
+    std: float
+    n_samples: int
+    statistical_inefficiency: float
+    effective_samples: float  # n / g
+    standard_error_of_mean: float  # std * sqrt(g / n), in ``unit``
+    method: str
+
+
+def series_sampling(table: EnergyTable) -> tuple[SeriesSampling, ...]:
+    """g and N_eff = n/g of every numeric series in an energy table (time and step excluded)."""
+    out: list[SeriesSampling] = []
+    for s in table.series.values():
+        if s.role in ("time", "step"):
+            continue
+        v = np.asarray(s.values, dtype=np.float64)
+        v = v[np.isfinite(v)]
+        if v.size < 4:
+            continue
+        g, method = statistical_inefficiency_of(v)
+        sd = float(np.std(v))
+        out.append(SeriesSampling(name=s.name, role=s.role, unit=s.unit, mean=float(v.mean()), std=sd,
+                                  n_samples=int(v.size), statistical_inefficiency=g,
+                                  effective_samples=float(v.size / g),
+                                  standard_error_of_mean=sd * math.sqrt(g / v.size), method=method))
+    return tuple(out)

@@ -1,0 +1,521 @@
+"""Kinetic temperature, degrees of freedom, constraint inference, equipartition and canonical checks.
+
+Pure array kernels plus small streaming accumulators (``update`` per frame chunk, then ``finish``);
+:func:`phasewake.core.audit.audit_run` drives them over a Run.
+
+Units: velocities nm/ps, masses amu, kinetic energy kJ/mol (1 amu nm^2/ps^2 = 1 kJ/mol), T in K.
+
+T_kin = 2 K / (N_dof k_B) with N_dof = 3 N - N_constraints - N_com (REFERENCES.md §2).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from phasewake.core.energy import boltzmann_kJ_per_mol_K, statistical_inefficiency_of
+from phasewake.core.errors import AnalysisError
+from phasewake.core.verdicts import Explanation, Threshold, register
+
+register(
+    Threshold("temperature.file_mismatch", caution=0.005, problem=0.02, unit="",
+              source="common practice (relative difference of mean temperatures)",
+              description="|mean T from velocities - mean T in the file| / mean T in the file"),
+    Explanation(
+        title="Temperature in the file against the kinetic temperature",
+        what="Whether the temperature the engine wrote agrees with the one computed here from the "
+             "velocities (or the file's kinetic energy) and the degrees of freedom counted here.",
+        method="Mean of both series over frames present in both; the ratio also gives the number of "
+               "degrees of freedom the engine must have used (N_dof * T_here / T_file).",
+        threshold="0.5% caution, 2% problem: common practice. Leapfrog-type integrators store "
+                  "velocities half a step off (about 0.6% per frame seen on a real water run), so small "
+                  "differences of single frames are expected.",
+        advice="A constant ratio means a different count of constraints or of removed centre-of-mass "
+               "motion: give --constraints N, or check which velocities (half-step or on-step) were "
+               "written.",
+    ),
+)
+register(
+    Threshold("temperature.equipartition", caution=0.02, problem=0.05, unit="",
+              source="common practice (relative temperature difference of a group; only when "
+                     "significant at 3 sigma)",
+              description="largest |T_group - T| / T over groups whose difference is significant"),
+    Explanation(
+        title="Equipartition between groups",
+        what="Whether every group of atoms (molecule type, element, user group) has the same kinetic "
+             "temperature, as equipartition demands (Gibbs 1902): e.g. 'hot solvent, cold solute'.",
+        method="Per-frame group temperature 2 K_g / (N_dof,g k_B) with N_dof,g = 3 n_g - c_g - N_com "
+               "M_g / M (constraints across groups split half/half; common practice); the error of the "
+               "difference to the whole system is its standard deviation times sqrt(g / n).",
+        threshold="2% caution, 5% problem, and only for differences beyond 3 standard errors: common "
+                  "practice.",
+        advice="Check the thermostat coupling (separate coupling groups, too weak coupling), removed "
+               "centre-of-mass motion per group, or a too-large time step with stiff solute bonds.",
+    ),
+)
+register(
+    Threshold("temperature.kinetic_distribution", caution=0.01, problem=0.001, unit="p-value",
+              source="common practice (Kolmogorov-Smirnov p-value on decorrelated samples)",
+              higher_is_worse=False,
+              description="KS p-value of the kinetic energy against Gamma(N_dof/2, scale kT)"),
+    Explanation(
+        title="Kinetic-energy distribution (canonical runs)",
+        what="In the canonical ensemble the total kinetic energy follows a gamma distribution with shape "
+             "N_dof/2 and scale kT (Gibbs 1902); a thermostat that fixes the mean but not the spread "
+             "(e.g. Berendsen) fails this.",
+        method="Kolmogorov-Smirnov test (scipy.stats.kstest) of kinetic energies taken every g frames "
+               "against scipy.stats.gamma(N_dof/2, scale=kT), kT from the target temperature. Not "
+               "applied to NVE runs, where K is narrower because E is fixed.",
+        threshold="p < 0.01 caution, p < 0.001 problem: common practice.",
+        advice="Use a thermostat that samples the canonical ensemble (Langevin, stochastic velocity "
+               "rescaling, Nose-Hoover chains) and check the degrees of freedom.",
+    ),
+)
+register(
+    Threshold("temperature.maxwell", caution=0.01, problem=0.001, unit="p-value",
+              source="common practice (Kolmogorov-Smirnov p-value, Bonferroni-corrected over species)",
+              higher_is_worse=False,
+              description="smallest Bonferroni-corrected KS p-value of speeds against Maxwell-Boltzmann"),
+    Explanation(
+        title="Maxwell-Boltzmann speeds per species (canonical runs)",
+        what="Whether the speeds of each species follow the Maxwell-Boltzmann distribution at the target "
+             "temperature.",
+        method="KS test of the speeds of unconstrained atoms of one species from frames g apart against "
+               "scipy.stats.maxwell(scale=sqrt(kT/m)); p-values multiplied by the number of species "
+               "(Bonferroni). Constrained atoms are left out (their speeds are not Maxwellian in m_i).",
+        threshold="p < 0.01 caution, p < 0.001 problem: common practice.",
+        advice="A failing species points at a thermostat that does not reach it, or wrong masses.",
+    ),
+)
+
+RIGID_RELATIVE_STD = 1e-3  # a pair distance fluctuating less than this (relative) is held rigid
+
+
+def kinetic_energy(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray) -> np.ndarray:
+    """K = sum_i m_i v_i^2 / 2 per frame.
+
+    Parameters
+    ----------
+    velocities_nm_per_ps : ndarray, shape (n_frames, n_atoms, 3), nm/ps
+    masses_amu : ndarray, shape (n_atoms,), amu
+
+    Returns
+    -------
+    ndarray, shape (n_frames,), kJ/mol (accumulated in float64)
+    """
+    v = np.asarray(velocities_nm_per_ps)
+    m = np.asarray(masses_amu, dtype=np.float64)
+    v2 = np.einsum("fai,fai->fa", v, v, dtype=np.float64)
+    return 0.5 * (v2 @ m)
+
+
+def com_kinetic_energy(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray) -> np.ndarray:
+    """Kinetic energy of the centre-of-mass motion, |sum m v|^2 / (2 M), shape (n_frames,), kJ/mol."""
+    m = np.asarray(masses_amu, dtype=np.float64)
+    p = np.einsum("fai,a->fi", np.asarray(velocities_nm_per_ps), m, dtype=np.float64)
+    return np.einsum("fi,fi->f", p, p) / (2.0 * float(m.sum()))
+
+
+def degrees_of_freedom(n_atoms: int, *, n_constraints: int = 0, n_com: int = 3, dims: int = 3) -> int:
+    """N_dof = dims * n_atoms - n_constraints - n_com (REFERENCES.md §2; common practice for n_com)."""
+    n = dims * n_atoms - n_constraints - n_com
+    if n <= 0:
+        raise AnalysisError(f"{n_atoms} atoms with {n_constraints} constraints and {n_com} removed "
+                            f"centre-of-mass degrees of freedom leave {n} degrees of freedom")
+    return n
+
+
+def kinetic_temperature(kinetic_kJ_per_mol: np.ndarray | float, n_dof: float) -> np.ndarray:
+    """T = 2 K / (N_dof k_B), in K; k_B = 0.00831446261815324 kJ/mol/K (CODATA 2018)."""
+    return 2.0 * np.asarray(kinetic_kJ_per_mol, dtype=np.float64) / (n_dof * boltzmann_kJ_per_mol_K())
+
+
+# ---------------------------------------------------------------------------------------------------
+# Constraint inference from rigid pair distances
+# ---------------------------------------------------------------------------------------------------
+
+
+def candidate_pairs(topology: Any, *, small_residue_atoms: int = 5) -> np.ndarray:
+    """Atom pairs whose distance could be constrained.
+
+    Topology bonds, pairs of atoms bonded to a common atom (they make a rigid triangle in rigid water
+    and other rigid molecules), and every pair inside residues of at most ``small_residue_atoms``
+    atoms (water written without bonds).
+
+    Returns
+    -------
+    ndarray, shape (n_pairs, 2), int64, sorted rows, unique
+    """
+    pairs: set[tuple[int, int]] = set()
+    neighbours: dict[int, list[int]] = {}
+    for bond in topology.bonds:
+        a, b = int(bond[0].index), int(bond[1].index)
+        if a == b:
+            continue
+        pairs.add((min(a, b), max(a, b)))
+        neighbours.setdefault(a, []).append(b)
+        neighbours.setdefault(b, []).append(a)
+    for nb in neighbours.values():
+        for i in range(len(nb)):
+            for j in range(i + 1, len(nb)):
+                a, b = nb[i], nb[j]
+                pairs.add((min(a, b), max(a, b)))
+    for res in topology.residues:
+        idx = [int(at.index) for at in res.atoms]
+        if 2 <= len(idx) <= small_residue_atoms:
+            for i in range(len(idx)):
+                for j in range(i + 1, len(idx)):
+                    pairs.add((min(idx[i], idx[j]), max(idx[i], idx[j])))
+    if not pairs:
+        return np.zeros((0, 2), dtype=np.int64)
+    return np.array(sorted(pairs), dtype=np.int64)
+
+
+def pair_distances(positions_nm: np.ndarray, pairs: np.ndarray, box_nm: np.ndarray | None = None) -> np.ndarray:
+    """Distances of atom pairs per frame, minimum image along the box diagonal when a box is given.
+
+    Parameters
+    ----------
+    positions_nm : ndarray, shape (n_frames, n_atoms, 3), nm
+    pairs : ndarray, shape (n_pairs, 2), int
+    box_nm : ndarray, shape (n_frames, 3, 3), nm, optional
+
+    Returns
+    -------
+    ndarray, shape (n_frames, n_pairs), nm, float64
+    """
+    x = np.asarray(positions_nm, dtype=np.float64)
+    d = x[:, pairs[:, 1]] - x[:, pairs[:, 0]]
+    if box_nm is not None:
+        lengths = np.einsum("fii->fi", np.asarray(box_nm, dtype=np.float64))[:, None, :]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            shift = np.where(lengths > 0, np.round(d / np.where(lengths > 0, lengths, 1.0)), 0.0)
+        d = d - shift * lengths
+    return np.sqrt(np.einsum("fpi,fpi->fp", d, d))
+
+
+@dataclass(frozen=True)
+class ConstraintInference:
+    """Constraints inferred from pair distances that do not fluctuate."""
+
+    n_constraints: int
+    n_candidate_pairs: int
+    n_rigid_pairs: int
+    n_rigid_clusters: int
+    n_frames_used: int
+    rigid_relative_std: float  # the criterion used
+    rigid_pairs: np.ndarray  # shape (n_rigid_pairs, 2)
+    constraint_weights: np.ndarray  # shape (n_rigid_pairs,), constraints each rigid pair stands for
+    largest_rigid_relative_std: float | None  # among rigid pairs
+    smallest_flexible_relative_std: float | None  # among candidate pairs not rigid
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+class RigidPairAccumulator:
+    """Streaming mean/variance of candidate pair distances; ``finish`` counts the constraints.
+
+    A rigid cluster (atoms joined by rigid pairs) of n atoms holds min(rigid pairs, 3n - 6) constraints
+    (1 for n = 2): a rigid triangle (water) holds 3, a rigid X-H bond 1.
+    """
+
+    def __init__(self, pairs: np.ndarray, n_atoms: int, *, max_frames: int = 500,
+                 rigid_relative_std: float = RIGID_RELATIVE_STD) -> None:
+        self.pairs = np.asarray(pairs, dtype=np.int64).reshape(-1, 2)
+        self.n_atoms = n_atoms
+        self.max_frames = max_frames
+        self.rigid_relative_std = rigid_relative_std
+        self._n = 0
+        self._sum = np.zeros(self.pairs.shape[0])
+        self._sum2 = np.zeros(self.pairs.shape[0])
+        self._shift: np.ndarray | None = None  # first frame's distances, for a stable variance
+
+    @property
+    def full(self) -> bool:
+        return self._n >= self.max_frames
+
+    def update(self, positions_nm: np.ndarray, box_nm: np.ndarray | None = None) -> None:
+        if self.pairs.shape[0] == 0 or self.full:
+            return
+        take = self.max_frames - self._n
+        pos = positions_nm[:take]
+        d = pair_distances(pos, self.pairs, None if box_nm is None else box_nm[:take])
+        if self._shift is None:
+            self._shift = d[0].copy()
+        dd = d - self._shift
+        self._sum += dd.sum(axis=0)
+        self._sum2 += (dd * dd).sum(axis=0)
+        self._n += d.shape[0]
+
+    def finish(self) -> ConstraintInference:
+        n = self._n
+        if self.pairs.shape[0] == 0 or n < 2 or self._shift is None:
+            return ConstraintInference(0, int(self.pairs.shape[0]), 0, 0, n, self.rigid_relative_std,
+                                       np.zeros((0, 2), np.int64), np.zeros(0), None, None,
+                                       {"max_frames": self.max_frames})
+        mean = self._shift + self._sum / n
+        var = np.maximum(self._sum2 / n - (self._sum / n) ** 2, 0.0)
+        rel = np.sqrt(var) / np.where(mean > 0, mean, np.inf)
+        rigid = rel < self.rigid_relative_std
+        rp = self.pairs[rigid]
+        # connected clusters of the rigid-pair graph (union-find over atoms)
+        parent = np.arange(self.n_atoms)
+
+        def root(i: int) -> int:
+            while parent[i] != i:
+                parent[i] = parent[parent[i]]
+                i = int(parent[i])
+            return i
+
+        for a, b in rp:
+            ra, rb = root(int(a)), root(int(b))
+            if ra != rb:
+                parent[ra] = rb
+        roots = np.array([root(int(a)) for a in rp[:, 0]], dtype=np.int64) if rp.size else np.zeros(0, np.int64)
+        weights = np.zeros(rp.shape[0])
+        total = 0
+        n_clusters = 0
+        if rp.size:
+            atoms_of: dict[int, set[int]] = {}
+            for (a, b), r in zip(rp, roots, strict=True):
+                atoms_of.setdefault(int(r), set()).update((int(a), int(b)))
+            for r, atoms in atoms_of.items():
+                sel = roots == r
+                n_pairs = int(sel.sum())
+                na = len(atoms)
+                cap = 1 if na == 2 else 3 * na - 6
+                c = min(n_pairs, cap)
+                weights[sel] = c / n_pairs
+                total += c
+                n_clusters += 1
+        return ConstraintInference(
+            n_constraints=int(total), n_candidate_pairs=int(self.pairs.shape[0]), n_rigid_pairs=int(rp.shape[0]),
+            n_rigid_clusters=n_clusters, n_frames_used=n, rigid_relative_std=self.rigid_relative_std,
+            rigid_pairs=rp, constraint_weights=weights,
+            largest_rigid_relative_std=float(rel[rigid].max()) if rigid.any() else None,
+            smallest_flexible_relative_std=float(rel[~rigid].min()) if (~rigid).any() else None,
+            settings={"max_frames": self.max_frames, "rigid_relative_std": self.rigid_relative_std},
+        )
+
+
+# ---------------------------------------------------------------------------------------------------
+# Equipartition per group
+# ---------------------------------------------------------------------------------------------------
+
+
+def group_degrees_of_freedom(
+    groups: Mapping[str, np.ndarray],
+    masses_amu: np.ndarray,
+    *,
+    n_com: int = 3,
+    constraint_pairs: np.ndarray | None = None,
+    constraint_weights: np.ndarray | None = None,
+    n_constraints: int = 0,
+) -> dict[str, float]:
+    """N_dof of each group: 3 n_g - c_g - n_com M_g / M.
+
+    The centre-of-mass share M_g/M follows from the zero-total-momentum constraint: with it,
+    <m_i v_i,x^2> = kT (1 - m_i / M) for independent Gaussian momenta (derivation). Constraints are
+    split half/half between the atoms of each constrained pair (common practice). Without pair
+    information, ``n_constraints`` is shared in proportion to atom counts (approximate).
+
+    Parameters
+    ----------
+    groups : mapping name -> ndarray of atom indices
+    masses_amu : ndarray, shape (n_atoms,)
+    constraint_pairs : ndarray, shape (n_pairs, 2), optional
+    constraint_weights : ndarray, shape (n_pairs,), optional
+        Constraints each pair stands for (scaled so they sum to ``n_constraints`` when that is larger
+        than zero and differs).
+    """
+    m = np.asarray(masses_amu, dtype=np.float64)
+    n_atoms = m.shape[0]
+    per_atom = np.zeros(n_atoms)
+    if constraint_pairs is not None and constraint_pairs.size and n_constraints > 0:
+        w = np.ones(constraint_pairs.shape[0]) if constraint_weights is None else np.asarray(constraint_weights, float)
+        w = w * (n_constraints / w.sum())
+        np.add.at(per_atom, constraint_pairs[:, 0], 0.5 * w)
+        np.add.at(per_atom, constraint_pairs[:, 1], 0.5 * w)
+    elif n_constraints > 0:
+        per_atom[:] = n_constraints / n_atoms
+    mtot = float(m.sum())
+    out: dict[str, float] = {}
+    for name, idx in groups.items():
+        idx = np.asarray(idx, dtype=np.int64)
+        out[name] = 3.0 * idx.size - float(per_atom[idx].sum()) - n_com * float(m[idx].sum()) / mtot
+    return out
+
+
+@dataclass(frozen=True)
+class GroupTemperature:
+    name: str
+    n_atoms: int
+    n_dof: float
+    mean_K: float
+    error_K: float  # standard error of the mean, sqrt(g/n) corrected
+    difference_K: float  # mean(T_group - T_all)
+    difference_error_K: float
+    z_score: float
+    relative_difference: float  # difference / mean T_all
+    significant: bool
+    statistical_inefficiency: float
+
+
+def group_temperatures(
+    group_kinetic_kJ_per_mol: np.ndarray,
+    group_dof: Sequence[float],
+    names: Sequence[str],
+    group_sizes: Sequence[int],
+    total_temperature_K: np.ndarray,
+    *,
+    significance_z: float = 3.0,
+) -> tuple[GroupTemperature, ...]:
+    """Temperatures of groups with statistical errors and their difference to the whole system.
+
+    Parameters
+    ----------
+    group_kinetic_kJ_per_mol : ndarray, shape (n_frames, n_groups), kJ/mol
+    group_dof : sequence of float, length n_groups
+    names, group_sizes : sequences, length n_groups
+    total_temperature_K : ndarray, shape (n_frames,), K
+    """
+    kg = np.asarray(group_kinetic_kJ_per_mol, dtype=np.float64)
+    tall = np.asarray(total_temperature_K, dtype=np.float64)
+    n = kg.shape[0]
+    tmean = float(tall.mean())
+    out: list[GroupTemperature] = []
+    for j, name in enumerate(names):
+        if group_dof[j] <= 0:
+            continue
+        tg = kinetic_temperature(kg[:, j], group_dof[j])
+        g, _ = statistical_inefficiency_of(tg) if n >= 4 else (1.0, "")
+        err = float(np.std(tg)) * math.sqrt(g / n)
+        diff = tg - tall
+        gd, _ = statistical_inefficiency_of(diff) if n >= 4 else (1.0, "")
+        derr = float(np.std(diff)) * math.sqrt(gd / n)
+        dmean = float(diff.mean())
+        z = dmean / derr if derr > 0 else (0.0 if dmean == 0 else math.inf)
+        out.append(GroupTemperature(name=name, n_atoms=int(group_sizes[j]), n_dof=float(group_dof[j]),
+                                    mean_K=float(tg.mean()), error_K=err, difference_K=dmean,
+                                    difference_error_K=derr, z_score=float(z),
+                                    relative_difference=dmean / tmean if tmean else math.nan,
+                                    significant=bool(abs(z) > significance_z), statistical_inefficiency=g))
+    return tuple(out)
+
+
+def default_groups(topology: Any, n_atoms: int, *, by_element: bool) -> dict[str, np.ndarray]:
+    """Groups by residue name (when there are several kinds) and by element (when asked).
+
+    Element groups cut through rigid molecules, where the kinetic energy is not shared out per atom
+    as 3/2 kT minus constraint halves, so the audit asks for them only when nothing is constrained.
+    """
+    groups: dict[str, np.ndarray] = {}
+    if topology is None:
+        return groups
+    by_res: dict[str, list[int]] = {}
+    by_el: dict[str, list[int]] = {}
+    for atom in topology.atoms:
+        by_res.setdefault(f"residue {atom.residue.name}", []).append(int(atom.index))
+        el = atom.element.symbol if atom.element is not None else atom.name
+        by_el.setdefault(f"element {el}", []).append(int(atom.index))
+    if len(by_res) > 1:
+        groups.update({k: np.array(v) for k, v in by_res.items()})
+    if by_element and len(by_el) > 1:
+        groups.update({k: np.array(v) for k, v in by_el.items()})
+    return {k: v for k, v in groups.items() if v.size < n_atoms}
+
+
+# ---------------------------------------------------------------------------------------------------
+# Canonical-ensemble distribution checks
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class DistributionCheck:
+    """A Kolmogorov-Smirnov test of samples against a reference distribution."""
+
+    name: str
+    reference: str  # e.g. "scipy.stats.gamma(a=150, scale=2.494 kJ/mol)"
+    n_samples: int
+    statistic: float
+    p_value: float
+    sample_mean: float
+    expected_mean: float
+    sample_std: float
+    expected_std: float
+    unit: str
+
+
+def thin_indices(n: int, g: float) -> np.ndarray:
+    """Indices 0, s, 2s, ... with s = ceil(g): roughly independent samples of a series with inefficiency g."""
+    return np.arange(0, n, max(1, int(math.ceil(g))))
+
+
+def kinetic_energy_distribution_check(
+    kinetic_kJ_per_mol: np.ndarray, n_dof: float, temperature_K: float,
+) -> DistributionCheck:
+    """KS test of (decorrelated) kinetic energies against Gamma(N_dof/2, scale = kT).
+
+    REFERENCES.md §2.3 (canonical K distribution, Gibbs 1902); scipy.stats.gamma / kstest.
+
+    Parameters
+    ----------
+    kinetic_kJ_per_mol : ndarray, shape (n,), kJ/mol, decorrelated samples
+    n_dof : float
+    temperature_K : float
+    """
+    from scipy import stats
+
+    k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
+    kt = boltzmann_kJ_per_mol_K() * temperature_K
+    dist = stats.gamma(a=n_dof / 2.0, scale=kt)
+    res = stats.kstest(k, dist.cdf)
+    return DistributionCheck(name="kinetic energy", reference=f"gamma(a={n_dof / 2:g}, scale={kt:.6g} kJ/mol)",
+                             n_samples=int(k.size), statistic=float(res.statistic), p_value=float(res.pvalue),
+                             sample_mean=float(k.mean()), expected_mean=float(dist.mean()),
+                             sample_std=float(k.std(ddof=1)) if k.size > 1 else math.nan,
+                             expected_std=float(dist.std()), unit="kJ/mol")
+
+
+def maxwell_speed_check(speeds_nm_per_ps: np.ndarray, mass_amu: float, temperature_K: float,
+                        *, name: str = "speeds") -> DistributionCheck:
+    """KS test of speeds against Maxwell-Boltzmann, scipy.stats.maxwell(scale = sqrt(kT/m)).
+
+    REFERENCES.md §2.2. Parameters: speeds (n,), nm/ps; mass in amu; temperature in K.
+    """
+    from scipy import stats
+
+    s = np.asarray(speeds_nm_per_ps, dtype=np.float64)
+    a = math.sqrt(boltzmann_kJ_per_mol_K() * temperature_K / mass_amu)
+    dist = stats.maxwell(scale=a)
+    res = stats.kstest(s, dist.cdf)
+    return DistributionCheck(name=name, reference=f"maxwell(scale={a:.6g} nm/ps)", n_samples=int(s.size),
+                             statistic=float(res.statistic), p_value=float(res.pvalue),
+                             sample_mean=float(s.mean()), expected_mean=float(dist.mean()),
+                             sample_std=float(s.std(ddof=1)) if s.size > 1 else math.nan,
+                             expected_std=float(dist.std()), unit="nm/ps")
+
+
+def species_of(topology: Any, masses_amu: np.ndarray) -> dict[str, np.ndarray]:
+    """Atoms grouped by species: element symbol and mass from the topology, else by mass alone."""
+    m = np.asarray(masses_amu, dtype=np.float64)
+    out: dict[str, list[int]] = {}
+    if topology is not None:
+        for atom in topology.atoms:
+            el = atom.element.symbol if atom.element is not None else atom.name
+            out.setdefault(f"{el} ({m[atom.index]:.4g} amu)", []).append(int(atom.index))
+    else:
+        for i, mi in enumerate(m):
+            out.setdefault(f"mass {mi:.4g} amu", []).append(i)
+    return {k: np.array(v) for k, v in out.items()}
+
+
+def unconstrained_atoms(n_atoms: int, rigid_pairs: Iterable[Sequence[int]] | np.ndarray) -> np.ndarray:
+    """Boolean mask, shape (n_atoms,), True for atoms in no rigid pair."""
+    mask = np.ones(n_atoms, dtype=bool)
+    rp = np.asarray(rigid_pairs, dtype=np.int64).reshape(-1, 2)
+    mask[rp.ravel()] = False
+    return mask

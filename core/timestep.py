@@ -1,0 +1,252 @@
+"""Time-step checks: the fastest motion, steps per period, Nyquist, and dt^2 scaling between two runs.
+
+The fastest motion is the highest-frequency significant peak of the mass-weighted velocity power
+spectrum (vibrational density of states up to a factor; REFERENCES.md §4.3). This module has a small
+streaming Welch estimator of its own (Welch, IEEE Trans. Audio Electroacoust. 15, 70 (1967)): the
+Hann-windowed spectrum of each segment of frames, summed over atoms with their masses, averaged over
+segments, so memory stays bounded by one chunk.
+
+Units: ps, 1/ps (frequency), cm^-1 (wavenumber), fs only in messages.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.verdicts import Explanation, Threshold, register
+
+C_CM_PER_PS = 2.99792458e-2  # speed of light, exact: 2.99792458e10 cm/s = 2.99792458e-2 cm/ps
+
+register(
+    Threshold("timestep.fastest_period", caution=10.0, problem=5.0, unit="steps per period",
+              source="common practice (time step <= fastest period / 10)", higher_is_worse=False,
+              description="fastest vibrational period divided by the integration time step"),
+    Explanation(
+        title="Time step against the fastest motion",
+        what="How many integration steps resolve one period of the fastest motion in the run.",
+        method="The highest-frequency significant peak of the mass-weighted velocity power spectrum "
+               "(Welch segments, Hann window) gives the period T; the check is T / dt. For a harmonic "
+               "mode under velocity Verlet the energy fluctuation ratio is (2 pi dt / T)^2 / 4, so "
+               "T/dt = 10 gives about 0.1 (REFERENCES.md §1.2).",
+        threshold="Fewer than 10 steps per period caution, fewer than 5 a problem: common practice.",
+        advice="Reduce the time step, or constrain the fastest bonds (bonds to hydrogen) or use heavier "
+               "hydrogens, then re-check the energy conservation.",
+    ),
+)
+register(
+    Threshold("timestep.nyquist", caution=4.0, problem=2.0, unit="frames per period",
+              source="Nyquist-Shannon sampling: at least 2 frames per period (caution below 4: common practice)",
+              higher_is_worse=False,
+              description="fastest period seen divided by the frame spacing"),
+    Explanation(
+        title="Frame spacing against the fastest motion",
+        what="Whether the saved frames are close enough in time to see the fastest motion at all.",
+        method="The fastest period found, divided by the spacing between frames. A peak close to the "
+               "Nyquist frequency 1/(2 spacing) may be an aliased faster motion.",
+        threshold="Fewer than 2 frames per period cannot resolve it (Nyquist); fewer than 4 is a caution "
+                  "(common practice).",
+        advice="Save velocities more often (a short extra run is enough) to check the time step; with "
+               "coarse frames the period found here is a lower bound.",
+    ),
+)
+register(
+    Threshold("timestep.scaling", caution=0.25, problem=0.5, unit="",
+              source="second-order symplectic integrators: sigma_E proportional to dt^2 (Hairer, Lubich "
+                     "and Wanner 2006); tolerance common practice",
+              description="|measured exponent - 2| of sigma_E against the time step between two runs"),
+    Explanation(
+        title="Energy fluctuation against time step (two runs)",
+        what="For a second-order symplectic integrator (velocity Verlet, leapfrog) the energy error is "
+             "O(dt^2): halving the step divides the fluctuation by 4.",
+        method="Exponent p = ln(sigma_E1 / sigma_E2) / ln(dt1 / dt2) from two runs of one system.",
+        threshold="|p - 2| > 0.25 caution, > 0.5 problem: common practice.",
+        advice="An exponent far from 2 means the larger step is outside the asymptotic regime (too "
+               "large), or the runs differ in more than the step (cut-offs, constraints, precision).",
+    ),
+)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Streaming mass-weighted velocity power spectrum (Welch)
+# ---------------------------------------------------------------------------------------------------
+
+
+class VelocitySpectrumAccumulator:
+    """Welch average of sum_i m_i |FFT(w v_i)|^2 over segments of ``segment_frames`` frames.
+
+    Feed chunks of velocities in time order with :meth:`update`; frames are cut into consecutive
+    segments of equal length (a remainder shorter than a segment is carried into the next chunk).
+    """
+
+    def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256) -> None:
+        if segment_frames < 8:
+            raise TooShortError("a velocity spectrum segment", have=segment_frames, need=8)
+        self.masses = np.asarray(masses_amu, dtype=np.float64)
+        self.spacing_ps = float(frame_spacing_ps)
+        self.segment_frames = int(segment_frames)
+        self.window = np.hanning(self.segment_frames)
+        self._power = np.zeros(self.segment_frames // 2 + 1)
+        self._n_segments = 0
+        self._carry: np.ndarray | None = None
+
+    def update(self, velocities_nm_per_ps: np.ndarray) -> None:
+        """velocities : ndarray, shape (n_frames, n_atoms, 3), nm/ps."""
+        v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
+        if self._carry is not None:
+            v = np.concatenate([self._carry, v], axis=0)
+            self._carry = None
+        L = self.segment_frames
+        n_full = v.shape[0] // L
+        sw = np.sqrt(self.masses).astype(np.float32)[None, :, None]
+        for k in range(n_full):
+            seg = v[k * L:(k + 1) * L] * sw
+            seg = seg - seg.mean(axis=0, keepdims=True)
+            f = np.fft.rfft(seg * self.window[:, None, None].astype(np.float32), axis=0)
+            self._power += np.einsum("fai,fai->f", f.real, f.real, dtype=np.float64)
+            self._power += np.einsum("fai,fai->f", f.imag, f.imag, dtype=np.float64)
+            self._n_segments += 1
+        rest = v[n_full * L:]
+        if rest.shape[0]:
+            self._carry = np.array(rest, copy=True)
+
+    @property
+    def n_segments(self) -> int:
+        return self._n_segments
+
+    def finish(self) -> tuple[np.ndarray, np.ndarray]:
+        """Frequencies (1/ps), shape (L//2+1,), and the average power (arbitrary units, amu nm^2/ps^2)."""
+        if self._n_segments == 0:
+            raise TooShortError("a velocity spectrum", have=0 if self._carry is None else self._carry.shape[0],
+                                need=self.segment_frames)
+        freq = np.fft.rfftfreq(self.segment_frames, d=self.spacing_ps)
+        return freq, self._power / self._n_segments
+
+
+def velocity_power_spectrum(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray, frame_spacing_ps: float,
+                            *, segment_frames: int = 256) -> tuple[np.ndarray, np.ndarray]:
+    """Array form of :class:`VelocitySpectrumAccumulator` (one call over all frames)."""
+    acc = VelocitySpectrumAccumulator(masses_amu, frame_spacing_ps,
+                                      segment_frames=min(segment_frames, velocities_nm_per_ps.shape[0]))
+    acc.update(velocities_nm_per_ps)
+    return acc.finish()
+
+
+@dataclass(frozen=True)
+class FastestMotion:
+    """The highest-frequency significant peak of a velocity spectrum."""
+
+    frequency_per_ps: float
+    period_ps: float
+    wavenumber_per_cm: float
+    resolution_per_ps: float
+    nyquist_per_ps: float
+    near_nyquist: bool  # the peak lies in the top 20% of the band: possibly aliased
+    relative_height: float  # peak height / tallest peak
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def fastest_motion(freq_per_ps: np.ndarray, power: np.ndarray, *, min_relative_prominence: float = 0.05,
+                   near_nyquist_fraction: float = 0.8) -> FastestMotion:
+    """Pick the highest-frequency peak whose prominence is at least a fraction of the largest.
+
+    The zero-frequency bin (drift of the centre of mass, diffusion) is not a vibration and is ignored.
+
+    Parameters
+    ----------
+    freq_per_ps : ndarray, shape (n,), 1/ps
+    power : ndarray, shape (n,)
+    """
+    from scipy.signal import find_peaks
+
+    f = np.asarray(freq_per_ps, dtype=np.float64)
+    p = np.asarray(power, dtype=np.float64)
+    if f.size < 4 or not np.any(p[1:] > 0):
+        raise AnalysisError("the velocity spectrum is empty: no motion to time")
+    padded = np.concatenate([[0.0], p[1:], [0.0]])  # so peaks at either end of the band count
+    peaks, props = find_peaks(padded, prominence=0.0)
+    if peaks.size == 0:
+        raise AnalysisError("no peak in the velocity spectrum")
+    prom = props["prominences"]
+    keep = prom >= min_relative_prominence * prom.max()
+    sel = peaks[keep]
+    top = int(sel.max())  # index in padded; padded[i] = p[i] for i >= 1
+    fmax = float(f[top])
+    nyq = float(f[-1])
+    return FastestMotion(
+        frequency_per_ps=fmax, period_ps=1.0 / fmax, wavenumber_per_cm=fmax / C_CM_PER_PS,
+        resolution_per_ps=float(f[1] - f[0]), nyquist_per_ps=nyq,
+        near_nyquist=bool(fmax >= near_nyquist_fraction * nyq), relative_height=float(p[top] / p[1:].max()),
+        settings={"min_relative_prominence": min_relative_prominence,
+                  "near_nyquist_fraction": near_nyquist_fraction},
+    )
+
+
+@dataclass(frozen=True)
+class TimestepCheck:
+    timestep_ps: float | None
+    timestep_source: str
+    frame_spacing_ps: float
+    fastest_period_ps: float
+    steps_per_period: float | None  # period / dt
+    frames_per_period: float  # period / frame spacing
+    recommended_max_timestep_ps: float  # period / 10 (common practice)
+
+
+def check_timestep(fastest_period_ps: float, frame_spacing_ps: float, timestep_ps: float | None,
+                   *, timestep_source: str = "") -> TimestepCheck:
+    """Steps and frames per fastest period; the common-practice limit period / 10."""
+    return TimestepCheck(
+        timestep_ps=timestep_ps, timestep_source=timestep_source, frame_spacing_ps=frame_spacing_ps,
+        fastest_period_ps=fastest_period_ps,
+        steps_per_period=None if not timestep_ps else fastest_period_ps / timestep_ps,
+        frames_per_period=fastest_period_ps / frame_spacing_ps,
+        recommended_max_timestep_ps=fastest_period_ps / 10.0,
+    )
+
+
+# ---------------------------------------------------------------------------------------------------
+# dt^2 scaling between two runs
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ScalingResult:
+    """Energy fluctuation against time step for two runs of one system."""
+
+    timestep_1_ps: float
+    timestep_2_ps: float
+    sigma_1_kJ_per_mol: float
+    sigma_2_kJ_per_mol: float
+    measured_ratio: float  # sigma_1 / sigma_2
+    expected_ratio: float  # (dt1 / dt2)^2
+    exponent: float  # ln(sigma ratio) / ln(dt ratio); 2 expected
+    expected_exponent: float
+    fluctuation_ratio_1: float | None  # sigma_E/sigma_K of each run
+    fluctuation_ratio_2: float | None
+
+
+def timestep_scaling(timestep_1_ps: float, sigma_1_kJ_per_mol: float, timestep_2_ps: float,
+                     sigma_2_kJ_per_mol: float, *, ratio_1: float | None = None,
+                     ratio_2: float | None = None, order: int = 2) -> ScalingResult:
+    """Measured exponent p of sigma_E ~ dt^p between two runs (expected p = order = 2 for velocity Verlet).
+
+    Hairer, Lubich and Wanner, Geometric Numerical Integration (2006): energy error O(dt^p) for a
+    symplectic method of order p.
+    """
+    if timestep_1_ps <= 0 or timestep_2_ps <= 0:
+        raise AnalysisError("time steps must be positive to compare runs")
+    if math.isclose(timestep_1_ps, timestep_2_ps, rel_tol=1e-9):
+        raise AnalysisError(f"both runs have the time step {timestep_1_ps * 1e3:g} fs: nothing to compare")
+    if not (sigma_1_kJ_per_mol > 0 and sigma_2_kJ_per_mol > 0):
+        raise AnalysisError("an energy fluctuation is zero: the scaling exponent is undefined")
+    r = sigma_1_kJ_per_mol / sigma_2_kJ_per_mol
+    q = timestep_1_ps / timestep_2_ps
+    return ScalingResult(timestep_1_ps=timestep_1_ps, timestep_2_ps=timestep_2_ps,
+                         sigma_1_kJ_per_mol=sigma_1_kJ_per_mol, sigma_2_kJ_per_mol=sigma_2_kJ_per_mol,
+                         measured_ratio=r, expected_ratio=q ** order, exponent=math.log(r) / math.log(q),
+                         expected_exponent=float(order), fluctuation_ratio_1=ratio_1, fluctuation_ratio_2=ratio_2)
