@@ -1,1 +1,53 @@
-"""The desktop window (PySide6 + pyqtgraph)."""
+"""The desktop window (PySide6 + pyqtgraph).
+
+:func:`launch` opens the window on runs and runs the Qt event loop; the ``open`` and ``demo``
+verbs call it. Qt is imported only when the window is used, so the command line stays fast.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from pathlib import Path
+
+
+def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | None = None,
+           timestep_fs: float | None = None, n_constraints: int | None = None,
+           temperature_K: float | None = None, session: str | Path | None = None) -> int:
+    """Open the window on one run made of ``paths`` (or a saved session) and run until it closes.
+
+    Parameters
+    ----------
+    paths : files of one run (trajectory, topology, energy tables, or one H5MD/HDF5 file); may be empty
+    guide : show a short guide to the window's parts (dismissible)
+    topology, timestep_fs, n_constraints, temperature_K : what the files do not say
+    session : a session file saved from the window (``.pwsession``) to restore instead
+
+    Returns
+    -------
+    int
+        The Qt event loop's exit code (0 when the window was closed normally).
+    """
+    import pyqtgraph as pg
+    from PySide6 import QtCore, QtWidgets
+
+    from phasewake.app.window.main import MainWindow
+    from phasewake.app.window.model import RunSettings
+
+    pg.setConfigOptions(antialias=True, background="w", foreground="k")
+    app = QtWidgets.QApplication.instance() or QtWidgets.QApplication(["phasewake"])
+    QtCore.QCoreApplication.setOrganizationName("phasewake")
+    QtCore.QCoreApplication.setApplicationName("phasewake")
+    win = MainWindow()
+    win.show()
+    if session is not None:
+        win.load_session(session)
+    elif paths:
+        win.open_paths([str(p) for p in paths], topology=topology,
+                       settings=RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints,
+                                            temperature_K=temperature_K))
+    if guide:
+        win.show_guide()
+    return int(app.exec())
+
+
+__all__ = ["launch"]

@@ -104,9 +104,9 @@ class RenderedPlot:
                 xs += [r.left(), r.right()]
                 ys += [r.top(), r.bottom()]
             elif isinstance(it, pg.BarGraphItem):
-                x = np.asarray(it.opts["x"], float)
+                r = it.boundingRect()
                 h = np.asarray(it.opts["height"], float)
-                xs += [x.min(), x.max()]
+                xs += [r.left(), r.right()]
                 ys += [min(0.0, h.min()), h.max()]
         if not xs:
             return (0.0, 1.0), (0.0, 1.0)
@@ -119,8 +119,12 @@ def _draw_line(plot: pg.PlotItem, it: Line) -> pg.GraphicsObject:
     st = it.style
     name = it.label or None
     if it.kind == "bar":
-        width = float(np.min(np.diff(np.unique(x)))) * 0.8 if np.unique(x).size > 1 else 0.8
-        item = pg.BarGraphItem(x=x, height=y, width=width, brush=qcolour(st.colour, 0.6 * st.alpha),
+        if x.size == y.size + 1:  # bin edges, as core.export reads them
+            centres, width = 0.5 * (x[1:] + x[:-1]), np.diff(x)
+        else:
+            centres = x
+            width = float(np.median(np.diff(x))) * 0.8 if x.size > 1 else 0.8
+        item = pg.BarGraphItem(x=centres, height=y, width=width, brush=qcolour(st.colour, 0.6 * st.alpha),
                                pen=make_pen(st), name=name)
         plot.addItem(item)
         if name and plot.legend is not None:

@@ -1,0 +1,38 @@
+"""``phasewake open FILES...``: the desktop window on a run (or a saved session)."""
+
+from __future__ import annotations
+
+import argparse
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("files", nargs="*", metavar="FILE",
+                        help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run "
+                             "(none: an empty window)")
+    parser.add_argument("--top", metavar="FILE", default=None,
+                        help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
+    parser.add_argument("--timestep", metavar="FS", type=float, default=None,
+                        help="integration time step in fs, when the files do not say")
+    parser.add_argument("--constraints", metavar="N", type=int, default=None,
+                        help="number of holonomic constraints")
+    parser.add_argument("--temperature", metavar="K", type=float, default=None,
+                        help="thermostat target temperature in K")
+    parser.add_argument("--session", metavar="FILE", default=None,
+                        help="restore a session saved from the window instead of opening FILES")
+    parser.add_argument("--guide", action="store_true", help="show a short guide to the window")
+
+
+def run(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from phasewake.core.errors import FileMissingError, SessionError
+
+    for f in args.files:
+        if not Path(f).exists():
+            raise FileMissingError("no such file", path=f)
+    if args.session is not None and not Path(args.session).exists():
+        raise SessionError("session file not found", path=args.session)
+    from phasewake.app.window import launch
+
+    return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
+                  n_constraints=args.constraints, temperature_K=args.temperature, session=args.session)

@@ -1,0 +1,171 @@
+"""The coordinate builder: write a coordinate specification by picking atoms, or type one.
+
+The specification language is ``phasewake.core.coordspec`` (documented there). Picking atoms in
+the table (with their names and residues) and choosing a kind writes the text for the user; typed
+text is checked as it is typed, and a mistake is pointed at by character.
+"""
+
+from __future__ import annotations
+
+from PySide6 import QtCore, QtWidgets
+
+from phasewake.core.errors import PhasewakeError
+from phasewake.core.run import Run
+
+# kind -> (function name, number of atoms, what it is)
+KINDS: tuple[tuple[str, int, str], ...] = (
+    ("distance", 2, "distance between two atoms (nm)"),
+    ("angle", 3, "angle at the middle atom (rad)"),
+    ("dihedral", 4, "torsion about the middle bond (rad)"),
+    ("x", 1, "x position of one atom (nm)"),
+    ("y", 1, "y position of one atom (nm)"),
+    ("z", 1, "z position of one atom (nm)"),
+)
+MAX_ROWS = 20_000  # the atom table lists at most this many atoms; type a spec for the rest
+
+
+def atom_rows(run: Run) -> list[tuple[int, str, str, str, str]]:
+    """(index, atom name, residue name, residue number, element) of the run's atoms."""
+    top = run.topology
+    n = min(run.n_atoms, MAX_ROWS)
+    if top is None:
+        return [(i, "", "", "", "") for i in range(n)]
+    rows = []
+    for a in top.atoms:
+        if a.index >= n:
+            break
+        el = a.element.symbol if a.element is not None else ""
+        rows.append((a.index, a.name, a.residue.name, str(a.residue.resSeq), el))
+    return rows
+
+
+def check_spec(spec: str, run: Run | None) -> str:
+    """'' when ``spec`` is a valid coordinate for ``run``, else the error text (with a caret)."""
+    if not spec.strip():
+        return "type a coordinate, e.g. distance(0, 1)"
+    try:
+        from phasewake.core import coordspec
+    except ImportError:
+        return ""  # no checker in this build: the analysis itself will report problems
+    try:
+        defn = coordspec.parse(spec)
+        if run is not None:
+            coordspec.resolve(defn, n_atoms=run.n_atoms, topology=run.topology)
+    except PhasewakeError as exc:
+        return str(exc)
+    return ""
+
+
+class CoordinateBuilder(QtWidgets.QDialog):
+    """Dialog returning a specification string in :attr:`spec` when accepted."""
+
+    def __init__(self, run: Run | None, current: str = "", parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setWindowTitle("Coordinate builder")
+        self.run = run
+        self.picked: list[int] = []
+        self.kind = QtWidgets.QComboBox()
+        for name, n, what in KINDS:
+            self.kind.addItem(f"{name}  \u2014  {what}", (name, n))
+        self.kind.currentIndexChanged.connect(self._compose)
+        self.filter = QtWidgets.QLineEdit()
+        self.filter.setPlaceholderText("filter atoms by name, residue or index")
+        self.filter.textChanged.connect(self._apply_filter)
+        self.table = QtWidgets.QTableWidget(0, 5)
+        self.table.setHorizontalHeaderLabels(["index", "atom", "residue", "res. no.", "element"])
+        self.table.verticalHeader().hide()
+        self.table.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.table.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectionBehavior.SelectRows)
+        self.table.cellDoubleClicked.connect(lambda r, c: self.pick_row(r))
+        rows = atom_rows(run) if run is not None else []
+        self.table.setRowCount(len(rows))
+        for r, row in enumerate(rows):
+            for c, v in enumerate(row):
+                self.table.setItem(r, c, QtWidgets.QTableWidgetItem(str(v)))
+        self.table.resizeColumnsToContents()
+        self.pick_button = QtWidgets.QPushButton("Pick selected atom")
+        self.pick_button.clicked.connect(self._pick_selected)
+        self.clear_button = QtWidgets.QPushButton("Clear picks")
+        self.clear_button.clicked.connect(self.clear_picks)
+        self.picked_label = QtWidgets.QLabel("picked: none (double-click atoms in order)")
+        self.text = QtWidgets.QLineEdit(current)
+        self.text.setPlaceholderText("or type a specification, e.g. distance(0, 1)")
+        self.text.textChanged.connect(self._validate)
+        self.error = QtWidgets.QLabel()
+        self.error.setStyleSheet("font-family: monospace; color: #D55E00")
+        self.error.setWordWrap(True)
+        self.buttons = QtWidgets.QDialogButtonBox(
+            QtWidgets.QDialogButtonBox.StandardButton.Ok | QtWidgets.QDialogButtonBox.StandardButton.Cancel)
+        self.buttons.accepted.connect(self.accept)
+        self.buttons.rejected.connect(self.reject)
+        lay = QtWidgets.QVBoxLayout(self)
+        form = QtWidgets.QFormLayout()
+        form.addRow("Kind", self.kind)
+        lay.addLayout(form)
+        lay.addWidget(self.filter)
+        lay.addWidget(self.table, 1)
+        row = QtWidgets.QHBoxLayout()
+        row.addWidget(self.pick_button)
+        row.addWidget(self.clear_button)
+        row.addWidget(self.picked_label, 1)
+        lay.addLayout(row)
+        lay.addWidget(QtWidgets.QLabel("Specification"))
+        lay.addWidget(self.text)
+        lay.addWidget(self.error)
+        lay.addWidget(self.buttons)
+        self.resize(560, 520)
+        self._validate(current)
+
+    @property
+    def spec(self) -> str:
+        return self.text.text().strip()
+
+    def pick_row(self, row: int) -> None:
+        item = self.table.item(row, 0)
+        if item is None:
+            return
+        _, n = self.kind.currentData()
+        if len(self.picked) >= n:
+            self.picked = []
+        self.picked.append(int(item.text()))
+        self._compose()
+
+    def pick_atoms(self, indices: list[int]) -> None:
+        self.picked = [int(i) for i in indices]
+        self._compose()
+
+    def clear_picks(self) -> None:
+        self.picked = []
+        self._compose()
+
+    def _pick_selected(self) -> None:
+        for idx in self.table.selectionModel().selectedRows():
+            self.pick_row(idx.row())
+
+    def _compose(self) -> None:
+        name, n = self.kind.currentData()
+        names = []
+        for i in self.picked:
+            label = str(i)
+            if self.run is not None and self.run.topology is not None and i < self.run.n_atoms:
+                a = self.run.topology.atom(i)
+                label = f"{i} ({a.residue.name}{a.residue.resSeq} {a.name})"
+            names.append(label)
+        self.picked_label.setText(f"picked {len(self.picked)}/{n}: " + (", ".join(names) or "none"))
+        if len(self.picked) == n:
+            self.text.setText(f"{name}({', '.join(str(i) for i in self.picked)})")
+
+    def _apply_filter(self, text: str) -> None:
+        text = text.strip().lower()
+        for r in range(self.table.rowCount()):
+            cells = " ".join(self.table.item(r, c).text().lower() for c in range(4))
+            self.table.setRowHidden(r, bool(text) and text not in cells)
+
+    def _validate(self, text: str) -> None:
+        problem = check_spec(text, self.run)
+        self.error.setText(problem)
+        ok = self.buttons.button(QtWidgets.QDialogButtonBox.StandardButton.Ok)
+        ok.setEnabled(not problem)
+
+    def sizeHint(self) -> QtCore.QSize:  # noqa: N802 - Qt override
+        return QtCore.QSize(560, 520)

@@ -1,0 +1,725 @@
+"""The main window: Runs list (left), panels (centre), time ruler (under the panels), status area.
+
+All analysis runs in worker threads (``workers.JobRunner``). Opening reads headers only; the Energy
+panel is computed first (it needs only the energy table) and the other panels follow in the
+background. Errors of any job appear as a message; the window stays usable.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from PySide6 import QtCore, QtGui, QtWidgets
+
+from phasewake.app.window import session as session_io
+from phasewake.app.window.analyses import PANEL_JOBS, PANELS, AnalysisContext, PanelResult
+from phasewake.app.window.model import RunEntry, RunSettings, WindowModel, apply_settings
+from phasewake.app.window.panels import PANEL_CLASSES, Panel
+from phasewake.app.window.ruler import TimeRuler
+from phasewake.app.window.runs import RunsList
+from phasewake.app.window.workers import JobOutcome, JobRunner
+from phasewake.core.run import Run
+
+Opener = Callable[[Sequence[str], str | None, RunSettings], Run]
+
+# Choices that change what an analysis computes (others, like the trail length, only redraw).
+RECOMPUTE_CHOICES = {"landscape_marks"}
+GUIDE_TEXT = """<h3>A short guide</h3>
+<p><b>Runs</b> (left): every run you opened, with what its files hold. Add runs with <i>Add…</i>
+or by dropping files on the window; state a time step, constraints or a temperature when the files
+do not say.</p>
+<p><b>Panels</b> (centre): <b>Energy</b> shows the energy table and the audit's verdicts first;
+<b>Phase space</b> a coordinate against its momentum (the current frame is the large dot, with its
+recent path); <b>Correlation</b> how long the run remembers; <b>Sampling</b> whether replicas agree;
+<b>Crossings</b> barrier crossings (click an event to jump to it); <b>Landscape</b> the free-energy
+profile, whose states and dividing surface you can drag.</p>
+<p><b>Time ruler</b> (bottom): drag the cursor line, or use ←/→, PgUp/PgDn, Home/End; drag the shaded
+band to restrict every analysis to part of the run.</p>
+<p><b>Status area</b> (very bottom): progress of background work, with a button to cancel it.</p>
+<p>The verdicts are heuristics: your judgement and your group's practice decide.</p>"""
+
+
+def default_opener(paths: Sequence[str], topology: str | None, settings: RunSettings) -> Run:
+    """Open a run through the reader registry, keeping library chatter off stdout."""
+    from phasewake.app.common import quiet_stdout
+    from phasewake.core.readers import open_run
+
+    with quiet_stdout():
+        return open_run(list(paths), topology=topology, **settings.overrides())
+
+
+class MainWindow(QtWidgets.QMainWindow):
+    def __init__(self, *, opener: Opener | None = None, settings: QtCore.QSettings | None = None,
+                 parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setWindowTitle("phasewake")
+        self.opener = opener or default_opener
+        self.settings = settings or QtCore.QSettings("phasewake", "phasewake")
+        self.model = WindowModel(self)
+        self.jobs = JobRunner(self)
+        self.session_path: Path | None = None
+        self.messages: list[str] = []  # every message shown to the user, newest last
+        self.message_box: QtWidgets.QMessageBox | None = None
+        self._pending_state: session_io.SessionState | None = None
+        self._open_counter = 0
+        self._recompute_only: tuple[str, ...] | None = None
+        self._rest_pending = False
+
+        self.panels: dict[str, Panel] = {name: PANEL_CLASSES[name](self.model) for name in PANELS}
+        self.tabs = QtWidgets.QTabWidget()
+        for name in PANELS:
+            self.tabs.addTab(self.panels[name], name)
+        self.ruler = TimeRuler(self.model)
+        centre = QtWidgets.QWidget()
+        lay = QtWidgets.QVBoxLayout(centre)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.tabs, 1)
+        lay.addWidget(self.ruler)
+        self.setCentralWidget(centre)
+
+        self.runs = RunsList(self.model)
+        self.runs.addRequested.connect(self.open_paths)
+        dock = QtWidgets.QDockWidget("Runs", self)
+        dock.setObjectName("runsDock")
+        dock.setWidget(self.runs)
+        dock.setFeatures(QtWidgets.QDockWidget.DockWidgetFeature.DockWidgetMovable)
+        self.addDockWidget(QtCore.Qt.DockWidgetArea.LeftDockWidgetArea, dock)
+        self.runs_dock = dock
+
+        self._build_status()
+        self._build_menus()
+        self.setAcceptDrops(True)
+
+        self._recompute_timer = QtCore.QTimer(self)
+        self._recompute_timer.setSingleShot(True)
+        self._recompute_timer.setInterval(150)
+        self._recompute_timer.timeout.connect(self.recompute)
+        self.model.currentRunChanged.connect(self._current_run_changed)
+        self.model.timeWindowChanged.connect(self.schedule_recompute)
+        self.model.coordinateChanged.connect(lambda _: self.schedule_recompute())
+        self.model.choicesChanged.connect(self._choice_changed)
+        self.jobs.finished.connect(self._job_finished)
+        self.jobs.progressed.connect(self._job_progress)
+        self.jobs.started.connect(self._job_started)
+        self.jobs.busyChanged.connect(self._busy_changed)
+        for p in self.panels.values():
+            p.show_empty()
+        self.resize(1280, 820)
+
+    # ---- status area --------------------------------------------------------------------------
+    def _build_status(self) -> None:
+        bar = self.statusBar()
+        self.status_label = QtWidgets.QLabel("Open run files to begin (Ctrl+O), or drop them here.")
+        self.progress = QtWidgets.QProgressBar()
+        self.progress.setMaximumWidth(220)
+        self.progress.setRange(0, 1000)
+        self.progress.setTextVisible(True)
+        self.progress.hide()
+        self.cancel_button = QtWidgets.QPushButton("Cancel")
+        self.cancel_button.setToolTip("Stop the background computations (Esc)")
+        self.cancel_button.clicked.connect(self.cancel_work)
+        self.cancel_button.hide()
+        bar.addWidget(self.status_label, 1)
+        bar.addPermanentWidget(self.progress)
+        bar.addPermanentWidget(self.cancel_button)
+
+    def say(self, text: str) -> None:
+        self.status_label.setText(text)
+
+    def show_problem(self, title: str, text: str) -> None:
+        """A message that never blocks the window (non-modal box + status line)."""
+        self.messages.append(text)
+        self.say(text.splitlines()[0] if text else title)
+        if self.message_box is not None:
+            self.message_box.close()
+        box = QtWidgets.QMessageBox(QtWidgets.QMessageBox.Icon.Warning, title, text,
+                                    QtWidgets.QMessageBox.StandardButton.Ok, self)
+        box.setModal(False)
+        box.setWindowModality(QtCore.Qt.WindowModality.NonModal)
+        box.show()
+        self.message_box = box
+
+    # ---- menus --------------------------------------------------------------------------------
+    def _action(self, menu: QtWidgets.QMenu, text: str, slot: Callable[[], Any],
+                shortcut: str | QtGui.QKeySequence.StandardKey | None = None, tip: str = "") -> QtGui.QAction:
+        act = QtGui.QAction(text, self)
+        if shortcut is not None:
+            act.setShortcut(QtGui.QKeySequence(shortcut))
+        act.setShortcutContext(QtCore.Qt.ShortcutContext.WindowShortcut)
+        if tip:
+            act.setStatusTip(tip)
+        act.triggered.connect(lambda checked=False: slot())
+        menu.addAction(act)
+        self.addAction(act)
+        return act
+
+    def _build_menus(self) -> None:
+        mb = self.menuBar()
+        f = mb.addMenu("&File")
+        self.act_open = self._action(f, "Open run files\u2026", self.runs.ask_for_files, "Ctrl+O",
+                                     "Add a run from its files")
+        self._action(f, "Close run", self.runs.remove_selected, "Ctrl+W")
+        f.addSeparator()
+        self._action(f, "Open session\u2026", self.ask_open_session, "Ctrl+Shift+O")
+        self.act_save = self._action(f, "Save session", self.save_session_now, "Ctrl+S")
+        self._action(f, "Save session as\u2026", self.ask_save_session, "Ctrl+Shift+S")
+        f.addSeparator()
+        self._action(f, "Quit", self.close, "Ctrl+Q")
+
+        e = mb.addMenu("E&xport")
+        self.act_export_figure = self._action(e, "Export figure\u2026", self.ask_export_figure, "Ctrl+E",
+                                              "The figure on screen as PNG, SVG or PDF")
+        self.act_export_data = self._action(e, "Export data\u2026", self.ask_export_data, "Ctrl+Shift+E",
+                                            "The data of the figure on screen as CSV")
+        self.act_export_report = self._action(e, "Export report\u2026", self.ask_export_report, "Ctrl+R",
+                                              "A PDF report of the current run")
+
+        a = mb.addMenu("&Analysis")
+        self._action(a, "Coordinate\u2026", self.ask_coordinate, "Ctrl+K",
+                     "Choose the coordinate of the phase-space, crossings and landscape panels")
+        self._action(a, "Whole run", lambda: self.model.set_time_window(None), "Ctrl+0",
+                     "Analyse the whole run (reset the time window)")
+        self._action(a, "Recompute", self.recompute, "F5")
+        self._action(a, "Cancel background work", self.cancel_work, "Esc")
+
+        c = mb.addMenu("&Cursor")
+        self._action(c, "Next frame", lambda: self.model.step_cursor(1), "Right")
+        self._action(c, "Previous frame", lambda: self.model.step_cursor(-1), "Left")
+        self._action(c, "Jump forward", lambda: self.model.step_cursor(self._page()), "PgDown")
+        self._action(c, "Jump back", lambda: self.model.step_cursor(-self._page()), "PgUp")
+        self._action(c, "First frame", lambda: self.model.set_cursor_frame(0), "Home")
+        self._action(c, "Last frame", lambda: self.model.set_cursor_frame(self.model.time_ps.size - 1), "End")
+
+        v = mb.addMenu("&View")
+        for i, name in enumerate(PANELS):
+            self._action(v, f"{name} panel", lambda i=i: self.tabs.setCurrentIndex(i), f"Ctrl+{i + 1}")
+        v.addSeparator()
+        self._action(v, "Trail the recent path", self._toggle_trail, "T")
+
+        h = mb.addMenu("&Help")
+        self._action(h, "Guide", self.show_guide, "F1")
+        self._action(h, "About phasewake", self._about)
+
+    def _page(self) -> int:
+        return max(1, self.model.time_ps.size // 20)
+
+    def _toggle_trail(self) -> None:
+        from phasewake.app.window.panels import DEFAULT_TRAIL
+
+        on = bool(self.model.choice("trail_frames", DEFAULT_TRAIL))
+        self.model.set_choice("trail_frames", 0 if on else DEFAULT_TRAIL)
+
+    def show_guide(self) -> QtWidgets.QDialog:
+        dlg = QtWidgets.QDialog(self)
+        dlg.setWindowTitle("phasewake: a short guide")
+        text = QtWidgets.QLabel(GUIDE_TEXT)
+        text.setWordWrap(True)
+        text.setTextFormat(QtCore.Qt.TextFormat.RichText)
+        close = QtWidgets.QPushButton("Got it")
+        close.clicked.connect(dlg.close)
+        lay = QtWidgets.QVBoxLayout(dlg)
+        lay.addWidget(text)
+        lay.addWidget(close, 0, QtCore.Qt.AlignmentFlag.AlignRight)
+        dlg.setModal(False)
+        dlg.resize(520, 420)
+        dlg.show()
+        self.guide = dlg
+        return dlg
+
+    def _about(self) -> None:
+        from phasewake.core import __version__
+        from phasewake.core.verdicts import HEURISTIC_NOTE
+
+        QtWidgets.QMessageBox.about(self, "About phasewake",
+                                    f"phasewake {__version__}: inspect finished molecular-dynamics runs.\n\n"
+                                    + HEURISTIC_NOTE)
+
+    # ---- opening runs -------------------------------------------------------------------------
+    def open_paths(self, paths: Sequence[str], *, topology: str | None = None,
+                   settings: RunSettings | None = None) -> None:
+        """Open one run from ``paths`` in the background and add it to the Runs list."""
+        self.open_runs([(tuple(str(p) for p in paths), topology, settings or RunSettings())])
+
+    def open_runs(self, specs: Sequence[tuple[tuple[str, ...], str | None, RunSettings]]) -> None:
+        if not specs:
+            return
+        opener = self.opener
+
+        def job():
+            from phasewake.core.errors import PhasewakeError
+            from phasewake.core.progress import Progress
+
+            opened = []
+            failures = []
+            for i, (paths, top, st) in enumerate(specs):
+                yield Progress(i, len(specs), f"opening {Path(paths[0]).name if paths else ''}")
+                try:
+                    run = opener(paths, top, st)
+                except PhasewakeError as exc:
+                    failures.append(str(exc))
+                    continue
+                except OSError as exc:
+                    failures.append(f"{paths[0] if paths else ''}: {exc}")
+                    continue
+                apply_settings(run, st)
+                opened.append(RunEntry(run=run, paths=tuple(paths), topology=top, settings=st))
+            return opened, failures
+
+        self._open_counter += 1
+        self.jobs.start(f"open:{self._open_counter}", job, label="Opening run files")
+        self.say("Opening run files\u2026")
+
+    def add_run(self, run: Run, *, paths: Sequence[str] = (), topology: str | None = None,
+                settings: RunSettings | None = None) -> int:
+        """Add an already opened run (tests, synthetic runs)."""
+        return self.model.add_run(RunEntry(run=run, paths=tuple(paths), topology=topology,
+                                           settings=settings or RunSettings()))
+
+    def _runs_opened(self, outcome: JobOutcome) -> None:
+        if outcome.error:
+            self.show_problem("Could not open files", outcome.error)
+            self._pending_state = None
+            return
+        if outcome.cancelled:
+            self.say("Opening cancelled.")
+            self._pending_state = None
+            return
+        opened, failures = outcome.result
+        for entry in opened:
+            self.model.add_run(entry)
+        if failures:
+            self.show_problem("Could not open files", "\n".join(failures))
+        elif opened:
+            self.say(f"Opened {', '.join(e.label for e in opened)}.")
+        if self._pending_state is not None:
+            state, self._pending_state = self._pending_state, None
+            self._apply_state(state)
+
+    def _current_run_changed(self, index: int) -> None:
+        e = self.model.current
+        if e is None:
+            self.jobs.cancel_all()
+            for p in self.panels.values():
+                p.show_empty()
+            self.setWindowTitle("phasewake")
+            return
+        self.setWindowTitle(f"phasewake \u2014 {e.label}")
+        if not self.model.coordinate and e.run.frames is not None:
+            self.model.set_coordinate(self._default_coordinate(e.run))
+        self.schedule_recompute()
+
+    @staticmethod
+    def _default_coordinate(run: Run) -> str:
+        from phasewake.app.window.analyses import module_or_none
+        from phasewake.core.errors import PhasewakeError
+
+        coords = module_or_none("coordinates")
+        if coords is None or not hasattr(coords, "default_coordinates"):
+            return ""
+        try:
+            specs = coords.default_coordinates(run)
+        except PhasewakeError:
+            return ""
+        return specs[0] if specs else ""
+
+    # ---- computing ----------------------------------------------------------------------------
+    def _choice_changed(self, key: str) -> None:
+        if key in RECOMPUTE_CHOICES:
+            self.schedule_recompute(("Crossings", "Landscape"))
+
+    def schedule_recompute(self, panels: Sequence[str] | None = None) -> None:
+        """Recompute soon (debounced: a dragged window recomputes once it rests)."""
+        pending = self._recompute_timer.isActive()
+        previous = getattr(self, "_recompute_only", None)
+        if not panels or (pending and previous is None):
+            self._recompute_only = None
+        else:
+            self._recompute_only = tuple(dict.fromkeys((previous or ()) + tuple(panels)))
+        self._recompute_timer.start()
+
+    def context(self) -> AnalysisContext | None:
+        e = self.model.current
+        if e is None:
+            return None
+        start, stop = self.model.window_frames()
+        return AnalysisContext(run=e.run, start=start, stop=stop, window_ps=self.model.effective_window_ps,
+                               coordinate=self.model.coordinate, choices=self.model.choices)
+
+    def recompute(self) -> None:
+        """Compute every panel of the current run: Energy first, the others once it is drawn."""
+        self._recompute_timer.stop()
+        only = getattr(self, "_recompute_only", None)
+        self._recompute_only = None
+        ctx = self.context()
+        if ctx is None:
+            return
+        self._ctx = ctx
+        if only:
+            self._start_panels(ctx, only)
+        else:
+            self._start_panels(ctx, ("Energy",))
+            self._rest_pending = True
+
+    def _start_panels(self, ctx: AnalysisContext, names: Sequence[str]) -> None:
+        for name in names:
+            job = PANEL_JOBS[name]
+            self.panels[name].show_busy()
+            self.jobs.start(name, lambda job=job, ctx=ctx: job(ctx), label=f"{name} panel")
+
+    def _job_started(self, key: str, label: str) -> None:
+        self.progress.show()
+        self.cancel_button.show()
+        self.progress.setRange(0, 0)
+        self.say(f"{label}\u2026")
+
+    def _job_progress(self, key: str, fraction: float, message: str) -> None:
+        if fraction < 0:
+            self.progress.setRange(0, 0)
+        else:
+            self.progress.setRange(0, 1000)
+            self.progress.setValue(int(round(1000 * fraction)))
+        label = self.jobs.labels.get(key, key)
+        self.say(f"{label}: {message}" if message else label)
+
+    def _busy_changed(self, busy: bool) -> None:
+        self.progress.setVisible(busy)
+        self.cancel_button.setVisible(busy)
+
+    def cancel_work(self) -> None:
+        running = self.jobs.running()
+        self.jobs.cancel_all()
+        self._rest_pending = False
+        if running:
+            self.say("Cancelled: " + ", ".join(self.jobs.labels.get(k, k) for k in running) + ".")
+
+    def _job_finished(self, outcome: JobOutcome) -> None:
+        key = outcome.key
+        if key.startswith("open:"):
+            self._runs_opened(outcome)
+            return
+        if key.startswith("export:"):
+            self._export_finished(outcome)
+            return
+        panel = self.panels.get(key)
+        if panel is None:
+            return
+        if outcome.cancelled:
+            panel.show_cancelled()
+        elif outcome.error:
+            panel.show_error(outcome.error)
+            self.say(f"{key} panel: {outcome.error.splitlines()[0]}")
+        else:
+            result: PanelResult = outcome.result
+            panel.show_result(result)
+            if not self.jobs.busy:
+                self.say(f"Panels up to date ({outcome.elapsed_s:.2g} s for the last).")
+        if key == "Energy" and getattr(self, "_rest_pending", False):
+            self._rest_pending = False
+            ctx = self.context()
+            if ctx is not None:
+                self._start_panels(ctx, [n for n in PANELS if n != "Energy"])
+
+    def wait_idle(self, timeout_ms: int = 20_000) -> bool:
+        """Process events until no job is running (tests and screenshots)."""
+        timer = QtCore.QElapsedTimer()
+        timer.start()
+        app = QtWidgets.QApplication.instance()
+        while timer.elapsed() < timeout_ms:
+            app.processEvents(QtCore.QEventLoop.ProcessEventsFlag.AllEvents, 50)
+            if (not self.jobs.busy and not self._recompute_timer.isActive()
+                    and not getattr(self, "_rest_pending", False)):
+                app.processEvents()
+                return True
+            QtCore.QThread.msleep(5)
+        return False
+
+    # ---- coordinate ---------------------------------------------------------------------------
+    def ask_coordinate(self) -> None:
+        from phasewake.app.window.builder import CoordinateBuilder
+
+        e = self.model.current
+        dlg = CoordinateBuilder(None if e is None else e.run, self.model.coordinate, self)
+        if dlg.exec() == QtWidgets.QDialog.DialogCode.Accepted and dlg.spec:
+            self.model.set_coordinate(dlg.spec)
+
+    # ---- sessions -----------------------------------------------------------------------------
+    def session_state(self) -> session_io.SessionState:
+        runs = []
+        skipped = []
+        for e in self.model.entries:
+            if not e.paths:
+                skipped.append(e.label)
+                continue
+            runs.append(session_io.RunRecord(paths=e.paths, topology=e.topology, settings=e.settings.to_dict()))
+        current = self.model.current_index
+        if current >= 0 and not self.model.entries[current].paths:
+            current = -1
+        elif current >= 0:
+            current -= sum(1 for e in self.model.entries[:current] if not e.paths)
+        return session_io.SessionState(
+            runs=tuple(runs), current_run=current, cursor_frame=self.model.cursor_frame,
+            time_window_ps=self.model.time_window_ps, coordinate=self.model.coordinate,
+            panel=self.tabs.tabText(self.tabs.currentIndex()), choices=self.model.choices,
+            skipped=tuple(skipped))
+
+    def save_session(self, path: str | Path) -> Path:
+        state = self.session_state()
+        out = session_io.save(state, path)
+        self.session_path = out
+        self.settings.setValue("last_folder", str(out.parent))
+        note = f" (not saved, built in memory: {', '.join(state.skipped)})" if state.skipped else ""
+        self.say(f"Session saved to {out}{note}.")
+        return out
+
+    def load_session(self, path: str | Path) -> None:
+        """Close the open runs and restore a saved session (runs open in the background)."""
+        from phasewake.core.errors import SessionError
+
+        try:
+            state = session_io.load(path)
+        except SessionError as exc:
+            self.show_problem("Could not open the session", str(exc))
+            return
+        self.session_path = Path(path)
+        while self.model.entries:
+            self.model.remove_run(len(self.model.entries) - 1)
+        self.model.set_coordinate(state.coordinate)
+        for k, v in state.choices.items():
+            self.model.set_choice(k, tuple(v) if k == "highlight_ps" and v else v)
+        self._pending_state = state
+        specs = []
+        for r in state.runs:
+            st = RunSettings(**{k: r.settings.get(k) for k in ("timestep_fs", "n_constraints", "temperature_K")})
+            specs.append((r.paths, r.topology, st))
+        if specs:
+            self.open_runs(specs)
+        else:
+            self._pending_state = None
+            self._apply_state(state)
+
+    def _apply_state(self, state: session_io.SessionState) -> None:
+        if 0 <= state.current_run < len(self.model.entries):
+            self.model.set_current(state.current_run)
+        self.model.set_coordinate(state.coordinate)
+        self.model.set_time_window(state.time_window_ps)
+        self.model.set_cursor_frame(state.cursor_frame)
+        if state.panel in PANELS:
+            self.tabs.setCurrentIndex(PANELS.index(state.panel))
+        self.say(f"Session {self.session_path} restored.")
+
+    def _ask_path(self, title: str, filters: str, *, save: bool, suggested: str = "") -> str:
+        folder = str(self.settings.value("last_folder", ""))
+        start = str(Path(folder) / suggested) if folder and suggested else (suggested or folder)
+        if save:
+            path, _ = QtWidgets.QFileDialog.getSaveFileName(self, title, start, filters)
+        else:
+            path, _ = QtWidgets.QFileDialog.getOpenFileName(self, title, folder, filters)
+        if path:
+            self.settings.setValue("last_folder", str(Path(path).parent))
+        return path
+
+    def ask_open_session(self) -> None:
+        path = self._ask_path("Open session", f"phasewake sessions (*{session_io.SUFFIX} *.json);;All files (*)",
+                              save=False)
+        if path:
+            self.load_session(path)
+
+    def save_session_now(self) -> None:
+        if self.session_path is None:
+            self.ask_save_session()
+        else:
+            self._save_reporting(self.session_path)
+
+    def ask_save_session(self) -> None:
+        path = self._ask_path("Save session", f"phasewake sessions (*{session_io.SUFFIX})", save=True,
+                              suggested=f"session{session_io.SUFFIX}")
+        if path:
+            if not Path(path).suffix:
+                path += session_io.SUFFIX
+            self._save_reporting(path)
+
+    def _save_reporting(self, path: str | Path) -> None:
+        from phasewake.core.errors import PhasewakeError
+
+        try:
+            self.save_session(path)
+        except (OSError, PhasewakeError) as exc:
+            self.show_problem("Could not save the session", f"{path}: {exc}")
+
+    # ---- export -------------------------------------------------------------------------------
+    def current_panel(self) -> Panel:
+        return self.tabs.currentWidget()  # type: ignore[return-value]
+
+    def _provenance(self) -> dict[str, Any]:
+        e = self.model.current
+        prov: dict[str, Any] = {"time_window_ps": list(self.model.effective_window_ps),
+                                "coordinate": self.model.coordinate}
+        if e is not None:
+            try:
+                from phasewake.core.export import provenance_of_run
+
+                prov.update(provenance_of_run(e.run, settings={"time_window_ps": list(self.model.effective_window_ps),
+                                                                "coordinate": self.model.coordinate}))
+            except (ImportError, OSError):
+                pass
+        return prov
+
+    def export_figure_to(self, path: str | Path, *, preset: str = "slide", dpi: float = 200.0) -> Path:
+        """Export the figure of the panel on top through core.export (matplotlib)."""
+        from phasewake.core.errors import MissingDataError
+        from phasewake.core.export import export_figure
+
+        spec = self.current_panel().current_figure()
+        if spec is None:
+            raise MissingDataError("the panel on top has no figure to export yet")
+        res = export_figure(spec, path, preset=preset, dpi=dpi, provenance=self._provenance())
+        self.say(f"Figure written to {res.path}.")
+        return Path(res.path)
+
+    def export_data_to(self, path: str | Path) -> Path:
+        from phasewake.core.errors import MissingDataError
+        from phasewake.core.export import export_csv
+
+        spec = self.current_panel().current_figure()
+        if spec is None:
+            raise MissingDataError("the panel on top has no figure to export yet")
+        out = export_csv(spec, path, provenance=self._provenance())
+        self.say(f"Data written to {out}.")
+        return Path(out)
+
+    def ask_export_figure(self) -> None:
+        from phasewake.core.errors import PhasewakeError
+
+        if self.current_panel().current_figure() is None:
+            self.show_problem("Nothing to export", "The panel on top has no figure yet.")
+            return
+        dlg = ExportDialog(self)
+        if dlg.exec() != QtWidgets.QDialog.DialogCode.Accepted:
+            return
+        fmt, preset, dpi = dlg.values()
+        name = (self.current_panel().current_figure().key or "figure").replace(".", "-")  # type: ignore[union-attr]
+        path = self._ask_path("Export figure", f"{fmt.upper()} (*.{fmt})", save=True, suggested=f"{name}.{fmt}")
+        if not path:
+            return
+        if not Path(path).suffix:
+            path += f".{fmt}"
+        try:
+            self.export_figure_to(path, preset=preset, dpi=dpi)
+        except (OSError, PhasewakeError) as exc:
+            self.show_problem("Could not export the figure", str(exc))
+
+    def ask_export_data(self) -> None:
+        from phasewake.core.errors import PhasewakeError
+
+        spec = self.current_panel().current_figure()
+        if spec is None:
+            self.show_problem("Nothing to export", "The panel on top has no figure yet.")
+            return
+        path = self._ask_path("Export data", "CSV (*.csv)", save=True,
+                              suggested=f"{spec.key.replace('.', '-')}.csv")
+        if not path:
+            return
+        try:
+            self.export_data_to(path)
+        except (OSError, PhasewakeError) as exc:
+            self.show_problem("Could not export the data", str(exc))
+
+    def export_report_to(self, path: str | Path) -> None:
+        """Build the report of the current run in the background (core.report)."""
+        from phasewake.app.window.analyses import module_or_none
+
+        e = self.model.current
+        if e is None:
+            self.show_problem("No run", "Open a run before exporting its report.")
+            return
+        report = module_or_none("report")
+        builder = None if report is None else getattr(report, "build_report", None)
+        if builder is None:
+            self.show_problem("Report not available", "The report builder (phasewake.core.report) is not "
+                                                      "in this build yet.")
+            return
+        run, coordinate = e.run, self.model.coordinate
+        start, stop = self.model.window_frames()
+
+        def job():
+            return builder(run, path, **_report_kwargs(builder, coordinate, start, stop))
+
+        self.jobs.start(f"export:{path}", job, label="Report")
+
+    def ask_export_report(self) -> None:
+        path = self._ask_path("Export report", "PDF (*.pdf);;HTML (*.html)", save=True,
+                              suggested="run-report.pdf")
+        if path:
+            self.export_report_to(path)
+
+    def _export_finished(self, outcome: JobOutcome) -> None:
+        if outcome.error:
+            self.show_problem("Could not write the report", outcome.error)
+        elif outcome.cancelled:
+            self.say("Report cancelled.")
+        else:
+            self.say(f"Report written to {outcome.key.split(':', 1)[1]}.")
+
+    # ---- window events ------------------------------------------------------------------------
+    def dragEnterEvent(self, event):  # noqa: N802 - Qt override
+        if event.mimeData().hasUrls():
+            event.acceptProposedAction()
+
+    def dropEvent(self, event):  # noqa: N802 - Qt override
+        paths = [u.toLocalFile() for u in event.mimeData().urls() if u.isLocalFile()]
+        if paths:
+            self.open_paths(paths)
+            event.acceptProposedAction()
+
+    def closeEvent(self, event):  # noqa: N802 - Qt override
+        self.jobs.cancel_all()
+        self.jobs.wait_all(3000)
+        super().closeEvent(event)
+
+
+def _report_kwargs(builder: Callable[..., Any], coordinate: str, start: int, stop: int) -> dict[str, Any]:
+    """Pass the coordinate and window to the report builder when it takes them."""
+    import inspect
+
+    params = inspect.signature(builder).parameters
+    out: dict[str, Any] = {}
+    if coordinate and "coordinate" in params:
+        out["coordinate"] = coordinate
+    if "start" in params:
+        out["start"] = start
+    if "stop" in params:
+        out["stop"] = stop
+    return out
+
+
+class ExportDialog(QtWidgets.QDialog):
+    """Format, size preset and DPI of an exported figure."""
+
+    def __init__(self, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setWindowTitle("Export figure")
+        self.fmt = QtWidgets.QComboBox()
+        for f, what in (("png", "PNG image"), ("svg", "SVG vector"), ("pdf", "PDF vector")):
+            self.fmt.addItem(what, f)
+        self.preset = QtWidgets.QComboBox()
+        for p, what in (("slide", "slide, 16:9"), ("single", "one journal column, ~8.5 cm"),
+                        ("double", "two journal columns, ~17 cm")):
+            self.preset.addItem(what, p)
+        self.dpi = QtWidgets.QSpinBox()
+        self.dpi.setRange(50, 1200)
+        self.dpi.setValue(200)
+        self.dpi.setSuffix(" dpi")
+        buttons = QtWidgets.QDialogButtonBox(
+            QtWidgets.QDialogButtonBox.StandardButton.Ok | QtWidgets.QDialogButtonBox.StandardButton.Cancel)
+        buttons.accepted.connect(self.accept)
+        buttons.rejected.connect(self.reject)
+        form = QtWidgets.QFormLayout(self)
+        form.addRow("Format", self.fmt)
+        form.addRow("Size", self.preset)
+        form.addRow("Resolution (PNG)", self.dpi)
+        form.addRow(buttons)
+
+    def values(self) -> tuple[str, str, float]:
+        return str(self.fmt.currentData()), str(self.preset.currentData()), float(self.dpi.value())

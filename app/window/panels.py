@@ -1,0 +1,357 @@
+"""The analysis panels: Energy, Phase space, Correlation, Sampling, Crossings, Landscape.
+
+Each panel draws the FigureSpecs of its :class:`~phasewake.app.window.analyses.PanelResult` (a
+chooser picks one when there are several), shows the shared cursor on its time axes, and writes the
+user's intent (cursor drags, selected events, dragged states) back to the shared model. A panel
+never talks to a sibling panel: the model is the only link.
+"""
+
+from __future__ import annotations
+
+import html
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6 import QtCore, QtGui, QtWidgets
+
+from phasewake.app.window.analyses import EventRow, PanelResult, Trace
+from phasewake.app.window.model import WindowModel
+from phasewake.app.window.render import CURSOR_COLOUR, FigureView
+from phasewake.core.figures import LEVEL_STYLE, FigureSpec, Mark
+
+LEVEL_SYMBOL = {"ok": "\u25cf", "caution": "\u25b2", "problem": "\u2716", "info": "\u25a0"}  # shape + word
+DEFAULT_TRAIL = 60  # frames of recent path drawn behind the current point
+
+
+def verdict_html(level: str, title: str, message: str) -> str:
+    colour = LEVEL_STYLE.get(level, LEVEL_STYLE["info"])[0]
+    sym = LEVEL_SYMBOL.get(level, "\u25a0")
+    return (f'<span style="color:{colour}; font-weight:bold">{sym} {html.escape(level)}</span> '
+            f"<b>{html.escape(title)}</b>: {html.escape(message)}")
+
+
+class Panel(QtWidgets.QWidget):
+    """Base of every panel: a figure chooser, a verdict/notes strip and the figure view."""
+
+    name = "Panel"
+    movable_roles: tuple[str, ...] = ()
+    figureChosen = QtCore.Signal(str)
+
+    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.model = model
+        self.result: PanelResult | None = None
+        self.view = FigureView(movable_roles=self.movable_roles)
+        self.chooser = QtWidgets.QComboBox()
+        self.chooser.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)
+        self.chooser.currentIndexChanged.connect(self._chooser_changed)
+        self.chooser_label = QtWidgets.QLabel("Show:")
+        self.notes = QtWidgets.QLabel()
+        self.notes.setWordWrap(True)
+        self.notes.setTextFormat(QtCore.Qt.TextFormat.RichText)
+        self.notes.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.notes.hide()
+        top = QtWidgets.QHBoxLayout()
+        top.addWidget(self.chooser_label)
+        top.addWidget(self.chooser)
+        top.addStretch(1)
+        self.top_bar = top
+        self.body = QtWidgets.QVBoxLayout(self)
+        self.body.setContentsMargins(4, 4, 4, 4)
+        self.body.addLayout(top)
+        self.body.addWidget(self.notes)
+        self.body.addWidget(self.view, 1)
+        self._set_chooser_visible(False)
+        self._marker: pg.ScatterPlotItem | None = None
+        self._trail: pg.PlotDataItem | None = None
+        self._highlight: pg.PlotDataItem | None = None
+        self.view.cursorDragged.connect(self.model.set_cursor_time)
+        self.model.cursorChanged.connect(self._on_cursor)
+        self.view.show_message(f"The {self.name} panel shows its results here once a run is open.")
+
+    # ---- states shown while a job runs --------------------------------------------------------
+    def show_busy(self, text: str = "") -> None:
+        if self.result is None or not self.result.figures:
+            self.view.show_message(text or f"Computing the {self.name} panel\u2026")
+
+    def show_error(self, text: str) -> None:
+        self.result = None
+        self.view.show_message(f"The {self.name} analysis could not run:\n{text}")
+        self.notes.hide()
+
+    def show_cancelled(self) -> None:
+        if self.result is None or not self.result.figures:
+            self.view.show_message(f"The {self.name} computation was cancelled. Press F5 to compute it again.")
+
+    def show_empty(self) -> None:
+        self.result = None
+        self._set_chooser_visible(False)
+        self.notes.hide()
+        self.view.show_message("No run is open. Open run files with File \u25b8 Open run files\u2026 "
+                               "or drop them on the window.")
+
+    # ---- results ------------------------------------------------------------------------------
+    def show_result(self, result: PanelResult) -> None:
+        self.result = result
+        self._show_notes(result)
+        self.chooser.blockSignals(True)
+        self.chooser.clear()
+        for fig in result.figures:
+            self.chooser.addItem(fig.title, fig.key)
+        self.chooser.blockSignals(False)
+        self._set_chooser_visible(len(result.figures) > 1)
+        if not result.figures:
+            self.view.show_message(result.message or f"The {self.name} analysis gave nothing to draw.")
+            return
+        wanted = self.model.choice(f"{self.name}.figure")
+        idx = self.chooser.findData(wanted) if wanted else -1
+        self.chooser.blockSignals(True)
+        self.chooser.setCurrentIndex(max(idx, 0))
+        self.chooser.blockSignals(False)
+        self._draw(result.figures[max(idx, 0)])
+
+    def _show_notes(self, result: PanelResult) -> None:
+        lines = [verdict_html(v.level, v.title, v.message) for v in result.verdicts]
+        if result.message and result.figures:
+            lines.append(html.escape(result.message))
+        self.notes.setText("<br>".join(lines))
+        self.notes.setVisible(bool(lines))
+
+    def _set_chooser_visible(self, visible: bool) -> None:
+        self.chooser.setVisible(visible)
+        self.chooser_label.setVisible(visible)
+
+    def _chooser_changed(self, index: int) -> None:
+        if self.result is None or not 0 <= index < len(self.result.figures):
+            return
+        fig = self.result.figures[index]
+        self.model.set_choice(f"{self.name}.figure", fig.key)
+        self._draw(fig)
+        self.figureChosen.emit(fig.key)
+
+    def current_figure(self) -> FigureSpec | None:
+        return self.view.spec
+
+    def _draw(self, fig: FigureSpec) -> None:
+        self._marker = self._trail = self._highlight = None
+        self.view.show_figure(fig)
+        self.view.set_cursor_time(self.model.cursor_time_ps)
+        self._after_draw(fig)
+        self._update_trace()
+
+    def _after_draw(self, fig: FigureSpec) -> None:
+        """Hook for subclasses (extra items on the plots)."""
+
+    # ---- cursor -------------------------------------------------------------------------------
+    def current_trace(self) -> Trace | None:
+        if self.result is None or self.view.spec is None:
+            return None
+        return self.result.traces.get(self.view.spec.key)
+
+    def _on_cursor(self, frame: int) -> None:
+        self.view.set_cursor_time(self.model.cursor_time_ps)
+        self._update_trace()
+
+    def _update_trace(self) -> None:
+        tr = self.current_trace()
+        if tr is None or not self.view.plots or tr.time_ps.size == 0:
+            return
+        plot = self.view.plots[min(tr.plot_index, len(self.view.plots) - 1)].plot
+        if self._marker is None:
+            self._trail = pg.PlotDataItem(pen=pg.mkPen(CURSOR_COLOUR, width=2))
+            self._marker = pg.ScatterPlotItem(symbol="o", size=13, brush=pg.mkBrush(CURSOR_COLOUR),
+                                              pen=pg.mkPen("#000000", width=1.5))
+            self._trail.setZValue(90)
+            self._marker.setZValue(91)
+            plot.addItem(self._trail, ignoreBounds=True)
+            plot.addItem(self._marker, ignoreBounds=True)
+        t = self.model.cursor_time_ps
+        i = int(np.clip(np.searchsorted(tr.time_ps, t), 0, tr.time_ps.size - 1))
+        inside = tr.time_ps[0] <= t <= tr.time_ps[-1]
+        n = int(self.model.choice("trail_frames", DEFAULT_TRAIL) or 0)
+        if inside:
+            self._marker.setData([tr.x[i]], [tr.y[i]])
+            lo = max(0, i - n)
+            self._trail.setData(tr.x[lo:i + 1], tr.y[lo:i + 1]) if n > 0 else self._trail.setData([], [])
+        else:  # the cursor is outside the analysis window: nothing to mark
+            self._marker.setData([], [])
+            self._trail.setData([], [])
+
+    def highlight_segment(self, start_ps: float | None, end_ps: float | None) -> None:
+        """Draw the trace between two times thicker (a selected crossing's path)."""
+        tr = self.current_trace()
+        if tr is None or not self.view.plots:
+            return
+        plot = self.view.plots[min(tr.plot_index, len(self.view.plots) - 1)].plot
+        if self._highlight is None:
+            self._highlight = pg.PlotDataItem(pen=pg.mkPen("#D55E00", width=4))
+            self._highlight.setZValue(80)
+            plot.addItem(self._highlight, ignoreBounds=True)
+        if start_ps is None or end_ps is None:
+            self._highlight.setData([], [])
+            return
+        sel = (tr.time_ps >= start_ps) & (tr.time_ps <= end_ps)
+        self._highlight.setData(tr.x[sel], tr.y[sel])
+
+    def highlighted_points(self) -> int:
+        if self._highlight is None:
+            return 0
+        x, _ = self._highlight.getData()
+        return 0 if x is None else len(x)
+
+
+class EnergyPanel(Panel):
+    name = "Energy"
+
+
+class PhaseSpacePanel(Panel):
+    name = "Phase space"
+
+    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(model, parent)
+        self.trail = QtWidgets.QCheckBox("Trail the recent path")
+        self.trail.setToolTip("Draw the last frames before the cursor behind the current point (T)")
+        self.trail.setChecked(True)
+        self.trail.toggled.connect(
+            lambda on: self.model.set_choice("trail_frames", DEFAULT_TRAIL if on else 0))
+        self.top_bar.addWidget(self.trail)
+        model.choicesChanged.connect(self._on_choice)
+
+    def _on_choice(self, key: str) -> None:
+        if key == "trail_frames":
+            on = bool(self.model.choice("trail_frames", DEFAULT_TRAIL))
+            if self.trail.isChecked() != on:
+                self.trail.setChecked(on)
+            self._update_trace()
+        elif key == "highlight_ps":
+            seg = self.model.choice("highlight_ps")
+            self.highlight_segment(*(seg if seg else (None, None)))
+
+    def _after_draw(self, fig: FigureSpec) -> None:
+        seg = self.model.choice("highlight_ps")
+        if seg:
+            self.highlight_segment(*seg)
+
+
+class CorrelationPanel(Panel):
+    name = "Correlation"
+
+
+class SamplingPanel(Panel):
+    name = "Sampling"
+
+
+class CrossingsPanel(Panel):
+    """Figures plus the event table; selecting a row moves the cursor to that crossing."""
+
+    name = "Crossings"
+    COLUMNS = ("#", "time (ps)", "frame", "kind", "direction", "from \u2192 to", "velocity", "path (ps)")
+
+    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(model, parent)
+        self.filter = QtWidgets.QComboBox()
+        self.filter.addItem("all crossings", "all")
+        self.filter.addItem("transitions only", "transition")
+        self.filter.addItem("recrossings only", "recrossing")
+        self.filter.currentIndexChanged.connect(self._fill_table)
+        self.table = QtWidgets.QTableWidget(0, len(self.COLUMNS))
+        self.table.setHorizontalHeaderLabels(list(self.COLUMNS))
+        self.table.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectionBehavior.SelectRows)
+        self.table.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.SingleSelection)
+        self.table.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)
+        self.table.verticalHeader().hide()
+        self.table.horizontalHeader().setStretchLastSection(True)
+        self.table.itemSelectionChanged.connect(self._row_selected)
+        box = QtWidgets.QWidget()
+        lay = QtWidgets.QVBoxLayout(box)
+        lay.setContentsMargins(0, 0, 0, 0)
+        row = QtWidgets.QHBoxLayout()
+        row.addWidget(QtWidgets.QLabel("Events:"))
+        row.addWidget(self.filter)
+        row.addStretch(1)
+        lay.addLayout(row)
+        lay.addWidget(self.table)
+        self.body.removeWidget(self.view)
+        split = QtWidgets.QSplitter(QtCore.Qt.Orientation.Vertical)
+        split.addWidget(self.view)
+        split.addWidget(box)
+        split.setStretchFactor(0, 3)
+        split.setStretchFactor(1, 2)
+        self.body.addWidget(split, 1)
+        self._rows: list[EventRow] = []
+
+    def show_result(self, result: PanelResult) -> None:
+        super().show_result(result)
+        self._fill_table()
+
+    def show_error(self, text: str) -> None:
+        super().show_error(text)
+        self._fill_table()
+
+    def show_empty(self) -> None:
+        super().show_empty()
+        self._fill_table()
+
+    def visible_events(self) -> list[EventRow]:
+        return list(self._rows)
+
+    def _fill_table(self) -> None:
+        events = self.result.events if self.result is not None else ()
+        kind = self.filter.currentData()
+        self._rows = [e for e in events if kind in (None, "all") or e.kind == kind]
+        self.table.blockSignals(True)
+        self.table.setRowCount(len(self._rows))
+        for r, e in enumerate(self._rows):
+            vel = "" if e.velocity is None else f"{e.velocity:.3g} {e.velocity_unit}".strip()
+            cells = (str(e.index), f"{e.time_ps:.4g}", str(e.frame), e.kind, "+" if e.direction > 0 else "\u2212",
+                     f"{e.from_state} \u2192 {e.to_state}" if e.from_state or e.to_state else "",
+                     vel, "" if e.duration_ps is None else f"{e.duration_ps:.3g}")
+            for c, text in enumerate(cells):
+                item = QtWidgets.QTableWidgetItem(text)
+                if c == 3:
+                    item.setForeground(QtGui.QColor("#0072B2" if e.kind == "transition" else "#D55E00"))
+                self.table.setItem(r, c, item)
+        self.table.blockSignals(False)
+        self.table.resizeColumnsToContents()
+
+    def select_event(self, row: int) -> None:
+        self.table.selectRow(row)
+
+    def _row_selected(self) -> None:
+        rows = self.table.selectionModel().selectedRows()
+        if not rows:
+            return
+        e = self._rows[rows[0].row()]
+        self.model.set_cursor_time(e.time_ps)
+        if e.start_ps is not None and e.end_ps is not None:
+            self.model.set_choice("highlight_ps", (e.start_ps, e.end_ps))
+
+
+class LandscapePanel(Panel):
+    """The free-energy profile; its state and dividing-surface marks can be dragged."""
+
+    name = "Landscape"
+    movable_roles = ("state", "surface")
+
+    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(model, parent)
+        self.view.markMoved.connect(self._mark_moved)
+        hint = QtWidgets.QLabel("Drag the states or the dividing surface to redefine them.")
+        hint.setStyleSheet("color: #555555")
+        self.top_bar.addWidget(hint)
+
+    def _mark_moved(self, mark: Mark, value: float, value2: object) -> None:
+        marks = dict(self.model.choice("landscape_marks") or {})
+        key = f"{mark.role}:{mark.label}"
+        marks[key] = [value, value2] if value2 is not None else [value]
+        self.model.set_choice("landscape_marks", marks)
+
+
+PANEL_CLASSES: dict[str, type[Panel]] = {
+    "Energy": EnergyPanel,
+    "Phase space": PhaseSpacePanel,
+    "Correlation": CorrelationPanel,
+    "Sampling": SamplingPanel,
+    "Crossings": CrossingsPanel,
+    "Landscape": LandscapePanel,
+}
