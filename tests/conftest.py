@@ -4,3 +4,39 @@ import os
 
 os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
 os.environ.setdefault("MPLBACKEND", "Agg")
+
+
+# --- real OpenMM runs (tests/engine_runs.py), made once per test session --------------------------
+# Use in a test as an argument:  def test_x(openmm_water_1fs): run = openmm_water_1fs  (an EngineRun)
+#   run.positions_nm (F, N, 3), run.velocities_nm_per_ps, run.kinetic_kJ_per_mol, run.potential_kJ_per_mol,
+#   run.time_ps, run.step, run.masses_amu, run.n_constraints, run.n_dof, run.temperature_K, run.box_nm,
+#   run.topology, run.paths["h5md" | "mdtraj_h5" | "dcd" | "pdb" | "csv"].
+# Both start from the same equilibrated state; 4 fs differs only in the time step (same 0.8 ps span).
+# Each costs a few seconds: mark tests that use them @pytest.mark.slow.
+import pytest  # noqa: E402
+
+
+def _engine_runs():
+    """tests/engine_runs.py, importable whether or not the project root is on sys.path."""
+    try:
+        from tests import engine_runs
+    except ModuleNotFoundError:
+        import importlib.util
+        import sys
+        from pathlib import Path
+
+        spec = importlib.util.spec_from_file_location("tests.engine_runs", Path(__file__).with_name("engine_runs.py"))
+        engine_runs = importlib.util.module_from_spec(spec)
+        sys.modules["tests.engine_runs"] = engine_runs
+        spec.loader.exec_module(engine_runs)
+    return engine_runs
+
+
+@pytest.fixture(scope="session")
+def openmm_water_1fs(tmp_path_factory):
+    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=1.0, n_steps=800, report_every=8)
+
+
+@pytest.fixture(scope="session")
+def openmm_water_4fs(tmp_path_factory):
+    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=4.0, n_steps=200, report_every=2)

@@ -1,0 +1,304 @@
+"""Pieces shared by the readers: topology JSON, time-axis checks, box conversion, estimated velocities."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.errors import CorruptFileError, TimeAxisError
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource
+
+if TYPE_CHECKING:
+    import mdtraj
+
+
+def decode(value: Any) -> Any:
+    """HDF5 strings come back as bytes, numpy bytes or str: give str (recursively for arrays)."""
+    if isinstance(value, bytes | np.bytes_):
+        return value.decode("utf-8", errors="replace")
+    if isinstance(value, np.ndarray) and value.dtype.kind in "SO":
+        return [decode(v) for v in value.tolist()]
+    if isinstance(value, np.ndarray) and value.ndim == 0:
+        return decode(value.item())
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+# --- topology as JSON (the layout of mdtraj's HDF5 "topology" node, so one parser serves both) ---
+
+
+def topology_to_json(top: mdtraj.Topology) -> str:
+    """Serialise an mdtraj Topology: chains -> residues -> atoms (name, element), and bonds."""
+    chains = []
+    for chain in top.chains:
+        residues = []
+        for res in chain.residues:
+            atoms = [
+                {"index": int(a.index), "name": a.name,
+                 "element": a.element.symbol if a.element is not None else "VS"}
+                for a in res.atoms
+            ]
+            residues.append({"index": int(res.index), "name": res.name, "resSeq": int(res.resSeq),
+                             "segmentID": getattr(res, "segment_id", "") or "", "atoms": atoms})
+        chains.append({"index": int(chain.index), "chain_id": getattr(chain, "chain_id", None),
+                       "residues": residues})
+    bonds = [[int(b[0].index), int(b[1].index)] for b in top.bonds]
+    return json.dumps({"chains": chains, "bonds": bonds})
+
+
+def topology_from_json(text: str | bytes, *, path: str | Path | None = None) -> mdtraj.Topology:
+    """Rebuild an mdtraj Topology from :func:`topology_to_json` / mdtraj HDF5 JSON."""
+    import mdtraj as md
+    from mdtraj.core import element as elem
+
+    try:
+        d = json.loads(decode(text))
+        top = md.Topology()
+        for cd in sorted(d["chains"], key=lambda c: c["index"]):
+            chain = top.add_chain()
+            for rd in sorted(cd["residues"], key=lambda r: r["index"]):
+                res = top.add_residue(rd["name"], chain, resSeq=rd.get("resSeq", rd["index"]),
+                                      segment_id=rd.get("segmentID", "") or "")
+                for ad in sorted(rd["atoms"], key=lambda a: a["index"]):
+                    try:
+                        el = elem.get_by_symbol(ad["element"])
+                    except KeyError:
+                        el = elem.virtual
+                    top.add_atom(ad["name"], el, res)
+        atoms = list(top.atoms)
+        for i, j in d.get("bonds", []):
+            top.add_bond(atoms[int(i)], atoms[int(j)])
+    except (ValueError, KeyError, TypeError, IndexError) as exc:
+        raise CorruptFileError(f"topology JSON cannot be read ({exc})", path=path) from exc
+    return top
+
+
+def topology_from_elements(symbols: Sequence[str], bonds: np.ndarray | None = None) -> mdtraj.Topology:
+    """A minimal topology: one chain, one residue per atom, atoms named by element."""
+    import mdtraj as md
+    from mdtraj.core import element as elem
+
+    top = md.Topology()
+    chain = top.add_chain()
+    for i, sym in enumerate(symbols):
+        res = top.add_residue(str(sym), chain, resSeq=i + 1)
+        try:
+            el = elem.get_by_symbol(str(sym))
+        except KeyError:
+            el = elem.virtual
+        top.add_atom(str(sym), el, res)
+    if bonds is not None:
+        atoms = list(top.atoms)
+        for i, j in np.asarray(bonds, dtype=int).reshape(-1, 2):
+            top.add_bond(atoms[i], atoms[j])
+    return top
+
+
+def masses_from_topology(top: mdtraj.Topology | None, n_atoms: int) -> np.ndarray | None:
+    """Masses (amu) from element data, or None when any atom has no element mass."""
+    if top is None or top.n_atoms != n_atoms:
+        return None
+    masses = np.array([a.element.mass if a.element is not None else np.nan for a in top.atoms], float)
+    if not np.all(np.isfinite(masses)) or np.any(masses <= 0):
+        return None
+    return masses
+
+
+# --- time axis ---
+
+
+def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str = "frames") -> list[str]:
+    """Raise TimeAxisError on non-monotonic or duplicated time; return warnings for gaps.
+
+    Never sorts: a run whose time goes backwards was probably concatenated or restarted, and the user
+    must decide what to do with it.
+    """
+    t = np.asarray(time_ps, dtype=np.float64)
+    warnings: list[str] = []
+    if t.size < 2:
+        return warnings
+    if not np.all(np.isfinite(t)):
+        bad = int(np.flatnonzero(~np.isfinite(t))[0])
+        raise TimeAxisError(f"time of {what} {bad} is not a finite number", path=path)
+    d = np.diff(t)
+    if np.any(d == 0):
+        i = int(np.flatnonzero(d == 0)[0])
+        raise TimeAxisError(
+            f"duplicated time: {what} {i} and {i + 1} both at t = {t[i]:g} ps "
+            "(restart overlap? the run is not sorted or de-duplicated for you)", path=path)
+    if np.any(d < 0):
+        i = int(np.flatnonzero(d < 0)[0])
+        raise TimeAxisError(
+            f"time goes backwards: {what} {i + 1} at t = {t[i + 1]:g} ps after t = {t[i]:g} ps "
+            "(concatenated runs? the run is not sorted for you)", path=path)
+    med = float(np.median(d))
+    gaps = np.flatnonzero(d > 1.5 * med)
+    if gaps.size:
+        i = int(gaps[0])
+        warnings.append(
+            f"{Path(path).name if path else 'time axis'}: {gaps.size} gap(s) in the time axis; the first "
+            f"between {what} {i} (t = {t[i]:g} ps) and {i + 1} (t = {t[i + 1]:g} ps), "
+            f"typical spacing {med:g} ps")
+    return warnings
+
+
+# --- boxes ---
+
+
+def box_vectors_from_lengths_angles(lengths: np.ndarray, angles_deg: np.ndarray) -> np.ndarray:
+    """Box edge vectors as rows, shape (n, 3, 3), from lengths (n, 3) and angles (n, 3) in degrees.
+
+    Convention: a along x, b in the xy plane (the usual lower-triangular box matrix).
+    """
+    lengths = np.asarray(lengths, dtype=np.float64).reshape(-1, 3)
+    ang = np.deg2rad(np.asarray(angles_deg, dtype=np.float64).reshape(-1, 3))
+    a, b, c = lengths.T
+    alpha, beta, gamma = ang.T
+    out = np.zeros((lengths.shape[0], 3, 3))
+    out[:, 0, 0] = a
+    out[:, 1, 0] = b * np.cos(gamma)
+    out[:, 1, 1] = b * np.sin(gamma)
+    cx = c * np.cos(beta)
+    cy = c * (np.cos(alpha) - np.cos(beta) * np.cos(gamma)) / np.sin(gamma)
+    out[:, 2, 0] = cx
+    out[:, 2, 1] = cy
+    out[:, 2, 2] = np.sqrt(np.maximum(c**2 - cx**2 - cy**2, 0.0))
+    # Exact zeros for right angles (cos(90 deg) is 6e-17, not 0).
+    out[np.abs(out) < 1e-12 * np.max(np.abs(out), initial=1.0)] = 0.0
+    return out
+
+
+def box_matrix(box: np.ndarray, n_frames: int) -> np.ndarray:
+    """Normalise a box given as (3,), (3, 3), (F, 3) or (F, 3, 3) to (F, 3, 3) edge vectors as rows."""
+    b = np.asarray(box, dtype=np.float64)
+    if b.shape == (3,):
+        b = np.diag(b)
+    if b.shape == (3, 3):
+        return np.broadcast_to(b, (n_frames, 3, 3)).copy()
+    if b.ndim == 2 and b.shape[1] == 3:
+        out = np.zeros((b.shape[0], 3, 3))
+        out[:, [0, 1, 2], [0, 1, 2]] = b
+        return out
+    if b.ndim == 3 and b.shape[1:] == (3, 3):
+        return b
+    raise ValueError(f"box of shape {b.shape} is not (3,), (3,3), (F,3) or (F,3,3)")
+
+
+# --- estimated velocities ---
+
+
+class EstimatedVelocityFrames:
+    """Wraps a frame source that has positions only; velocities are central differences.
+
+    v(t_i) = (x(t_{i+1}) - x(t_{i-1})) / (t_{i+1} - t_{i-1}), one-sided at the two ends. Positions
+    are unwrapped across periodic boxes by the minimum-image step between neighbouring frames, so a
+    wrap into the box does not make a huge velocity.
+    """
+
+    def __init__(self, inner: FrameSource, time_ps: np.ndarray) -> None:
+        self.inner = inner
+        self.time_ps = np.asarray(time_ps, dtype=np.float64)
+        self.n_frames = inner.n_frames
+        self.n_atoms = inner.n_atoms
+        self.has_velocities = inner.n_frames >= 2
+        self.velocities_estimated = True
+        self.has_box = inner.has_box
+
+    @staticmethod
+    def _step(a: np.ndarray, b: np.ndarray, box: np.ndarray | None) -> np.ndarray:
+        """Displacement b - a (n, N, 3) with the minimum image for orthorhombic/triclinic boxes."""
+        d = (b.astype(np.float64) - a.astype(np.float64))
+        if box is None:
+            return d
+        inv = np.linalg.inv(box)  # (n, 3, 3); fractional = d @ inv
+        frac = np.einsum("fnj,fjk->fnk", d, inv)
+        frac -= np.round(frac)
+        return np.einsum("fnk,fkj->fnj", frac, box)
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+    ) -> Iterator[FrameChunk]:
+        stop = self.n_frames if stop is None else min(stop, self.n_frames)
+        if not velocities or not self.has_velocities:
+            yield from self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop,
+                                              stride=stride, atom_indices=atom_indices, velocities=False)
+            return
+        want = np.arange(start, stop, stride)
+        for i in range(0, want.size, chunk_frames):
+            sel = want[i : i + chunk_frames]
+            lo = max(int(sel[0]) - 1, 0)
+            hi = min(int(sel[-1]) + 2, self.n_frames)
+            pos_parts, box_parts = [], []
+            for ch in self.inner.iter_chunks(chunk_frames=max(hi - lo, 1), start=lo, stop=hi,
+                                             atom_indices=atom_indices, velocities=False):
+                pos_parts.append(ch.positions_nm)
+                box_parts.append(ch.box_nm)
+            pos = np.concatenate(pos_parts)
+            box = None if any(b is None for b in box_parts) else np.concatenate(box_parts)  # type: ignore[arg-type]
+            t = self.time_ps[lo:hi]
+            k = sel - lo
+            kp = np.minimum(k + 1, hi - lo - 1)
+            km = np.maximum(k - 1, 0)
+            bsel = None if box is None else box[k]
+            disp = self._step(pos[km], pos[kp], bsel)
+            dt = (t[kp] - t[km])[:, None, None]
+            vel = (disp / dt).astype(np.float32)
+            yield FrameChunk(start=int(sel[0]), time_ps=self.time_ps[sel], positions_nm=pos[k],
+                             velocities_nm_per_ps=vel, box_nm=None if box is None else box[k])
+
+    def read_frame(self, index: int) -> FrameChunk:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
+        index %= self.n_frames
+        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
+
+
+def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: np.ndarray,
+                          *, temperature_K: float | None = None, sample_frames: int = 64) -> str:
+    """Warning text for estimated velocities: frame spacing vs the fastest motion seen.
+
+    Compares the largest per-atom displacement between neighbouring frames (from up to
+    ``sample_frames`` frames at the start) with the typical thermal speed sqrt(k_B T / m) of the
+    lightest atom (Maxwell-Boltzmann, one component; T = ``temperature_K`` or 300 K).
+    """
+    from phasewake.core.units import KB_KJ_PER_MOL_K
+
+    t = np.asarray(time_ps, dtype=np.float64)
+    if t.size < 2:
+        return "velocities cannot be estimated from fewer than 2 frames"
+    spacing = float(np.median(np.diff(t)))
+    n = min(sample_frames, frames.n_frames)
+    max_disp = 0.0
+    for ch in frames.iter_chunks(chunk_frames=n, start=0, stop=n, velocities=False):
+        box = ch.box_nm
+        disp = EstimatedVelocityFrames._step(ch.positions_nm[:-1], ch.positions_nm[1:],
+                                             None if box is None else box[1:])
+        if disp.size:
+            max_disp = max(max_disp, float(np.max(np.linalg.norm(disp, axis=-1))))
+        break
+    temp = 300.0 if temperature_K is None else float(temperature_K)
+    m = masses_amu[np.isfinite(masses_amu) & (masses_amu > 0)] if masses_amu.size else masses_amu
+    text = (f"velocities are estimated by central differences of positions {spacing:g} ps apart, "
+            f"not stored in the files. The largest displacement of an atom between frames is "
+            f"{max_disp:.3g} nm ({max_disp / spacing:.3g} nm/ps averaged over the spacing)")
+    if m.size:
+        v_th = float(np.sqrt(KB_KJ_PER_MOL_K * temp / np.min(m)))  # nm/ps, one component
+        travel = v_th * spacing
+        text += (f"; the lightest atom's thermal speed sqrt(kT/m) at {temp:g} K is {v_th:.3g} nm/ps, "
+                 f"i.e. {travel:.3g} nm per frame spacing")
+        if travel > 0.02:
+            text += (". Frames are far apart compared with atomic motion: the estimated velocities "
+                     "are smoothed and underestimate kinetic energy and temperature")
+    return text + "."
