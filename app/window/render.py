@@ -144,10 +144,10 @@ def _draw_line(plot: pg.PlotItem, it: Line) -> pg.GraphicsObject:
             kw = dict(symbol=_SYMBOL.get(st.marker, "o"), symbolSize=st.marker_size,
                       symbolBrush=qcolour(st.colour, st.alpha), symbolPen=None)
         item = pg.PlotDataItem(x, y, pen=make_pen(st), name=name, **kw)
+    plot.addItem(item)  # before the options below: they look up the item's ViewBox
     if x.size > BIG_SERIES and it.kind == "line" and _monotonic(x):
         item.setDownsampling(auto=True, method="peak")
         item.setClipToView(True)
-    plot.addItem(item)
     return item
 
 
