@@ -16,8 +16,7 @@ independent of positions, so for fixed x, dq/dt = sum_i g_i . v_i is Gaussian wi
 sum_i |g_i|^2 kT/m_i = kT/m_eff(x); averaging over x gives <(dq/dt)^2> = kT <1/m_eff>.
 
 Periodic boxes: every difference vector goes through the minimum image (fractional coordinates
-rounded to the nearest image, exact for orthorhombic boxes and for triclinic boxes that are not
-strongly skewed); groups (com_distance, rg) are made whole around their first atom. Angles are in
+rounded to the nearest image; for triclinic boxes the 27 neighbours of that image are searched); groups (com_distance, rg) are made whole around their first atom. Angles are in
 [0, pi], dihedrals in (-pi, pi] with the sign convention of mdtraj.compute_dihedrals. rmsd assumes
 the group is whole (no minimum image).
 
@@ -124,7 +123,13 @@ def minimum_image(d: np.ndarray, box_nm: np.ndarray | None) -> np.ndarray:
     ib = inv.reshape((inv.shape[0],) + (1,) * extra + (3, 3))
     s = np.einsum("...a,...ab->...b", d, ib)
     s -= np.round(s)
-    return np.einsum("...a,...ab->...b", s, b)
+    r = np.einsum("...a,...ab->...b", s, b)
+    # a skewed triclinic cell: the rounded image need not be the nearest; try the 27 neighbours
+    shifts = np.array(np.meshgrid([-1, 0, 1], [-1, 0, 1], [-1, 0, 1], indexing="ij")).reshape(3, 27).T
+    images = np.einsum("ka,...ab->...kb", shifts.astype(np.float64), b)  # (..., 27, 3)
+    cand = r[..., None, :] + images
+    best = np.argmin(np.einsum("...ka,...ka->...k", cand, cand), axis=-1)
+    return np.take_along_axis(cand, best[..., None, None], axis=-2)[..., 0, :]
 
 
 def _whole(x: np.ndarray, box_nm: np.ndarray | None) -> np.ndarray:
@@ -296,8 +301,9 @@ def value_and_gradient(
 
         if resolved.pca is None:
             raise AnalysisError(f"{resolved.spec}: the principal components have not been computed yet")
-        return pc_value_and_gradient(resolved.pca, int(resolved.pc_index or 0), pos[:, np.asarray(g[0])],
-                                     atoms=np.asarray(g[0]))
+        idx = np.asarray(g[0])
+        value, grad = pc_value_and_gradient(resolved.pca, int(resolved.pc_index or 0), pos[:, idx])
+        return value, idx, grad
     raise CoordinateSpecError(f"no kernel for {fn}", spec=resolved.spec)
 
 
@@ -336,13 +342,8 @@ def evaluate_arrays(
         if vel.ndim == 2:
             vel = vel[None]
         v = vel[:, atoms].astype(np.float64)
-        if defn_resolved.function == "pc":
-            from phasewake.core.projection import pc_velocity
-
-            dqdt = pc_velocity(defn_resolved.pca, int(defn_resolved.pc_index or 0),
-                               pos[:, atoms], v)
-        else:
-            dqdt = np.einsum("nia,nia->n", grad, v)
+        # for pc this is e_k . M^1/2 (v R): the rotated, mass-weighted velocity projected on the mode
+        dqdt = np.einsum("nia,nia->n", grad, v)
     m_eff = None
     if masses is not None:
         inv = np.einsum("nia,nia,i->n", grad, grad, 1.0 / masses[atoms])

@@ -1,0 +1,353 @@
+"""Principal components of a run (essential dynamics), streamed over frame chunks.
+
+Method (Amadei, Linssen and Berendsen, Proteins 17, 412 (1993)): fit every frame of an atom group
+onto a reference by optimal superposition (Kabsch 1976, mass-weighted when ``mass_weighted``), form
+y = M^1/2 x (or y = x), the covariance C = <(y - <y>)(y - <y>)^T>, and its eigenvectors e_k and
+eigenvalues lambda_k. Projections q_k(t) = e_k . (y(t) - <y>); their conjugate momenta are the
+projections of the mass-weighted velocities (rotated with the same fit), p_k = e_k . M^1/2 v. For
+mass-weighted coordinates the transformation is orthogonal, so each mode has unit effective mass and
+the equipartition check is <p_k^2> = kT.
+
+Quasi-harmonic frequencies: for a harmonic system lambda_k = kT / omega_k^2 (Karplus and Kushick,
+Macromolecules 14, 325 (1981)), so omega_k = sqrt(kT / lambda_k).
+
+Cosine content (Hess, Phys. Rev. E 65, 031910 (2002)): c_k = (2/T) (int cos(k pi t/T) q_k dt)^2 /
+int q_k^2 dt. Values near 1 for the leading components say they look like random diffusion (the
+run has not sampled an equilibrium distribution along them), not like real motions.
+
+Two routes:
+
+* ``method="exact"``: one pass accumulating sum(y) and y^T y per chunk (float32 GEMM on data shifted
+  by the reference, accumulated in float64), then a full symmetric eigen-decomposition.
+* ``method="randomized"``: randomized subspace iteration for the leading components (Halko,
+  Martinsson and Tropp, SIAM Rev. 53, 217 (2011), Alg. 4.4 with a Rayleigh-Ritz step, Alg. 5.3):
+  each pass multiplies the centred data by a thin block (n x d x l flops instead of n x d^2), so the
+  cost grows with the number of components wanted, not with d^2. The total variance (trace) is exact.
+
+Memory is bounded by the chunk size and d x d (exact) or d x l (randomized), never the file.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from phasewake.core.coordinates import kabsch, solute_atoms
+from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES
+
+if TYPE_CHECKING:
+    from phasewake.core.run import Run
+
+K_B_KJ_PER_MOL_K = 0.00831446261815324  # CODATA 2018 exact k_B * N_A (REFERENCES.md section 9)
+C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
+
+
+@dataclass(frozen=True)
+class PCAResult:
+    """Principal components of an atom group.
+
+    atom_indices : (g,) atoms of the run used (d = 3 g coordinates, ordered atom-major: x0 y0 z0 x1 ...)
+    reference_nm : (g, 3) structure the frames were fitted onto
+    mean : (d,) mean of y (nm, or nm amu^1/2 when mass-weighted)
+    eigenvalues : (k,) in ``eigenvalue_unit`` (nm^2, or amu nm^2 when mass-weighted), descending
+    eigenvectors : (d, k), orthonormal columns
+    total_variance : trace of the covariance, same unit as eigenvalues
+    explained_variance_ratio : (k,)
+    cosine_content : (k,) or None (Hess 2002)
+    projections : (n_frames, k) q_k(t) in ``projection_unit``, or None
+    momenta : (n_frames, k) p_k(t) in ``momentum_unit``, or None (no velocities)
+    time_ps : (n_frames,) or None
+    """
+
+    atom_indices: np.ndarray
+    masses_amu: np.ndarray
+    reference_nm: np.ndarray
+    mean: np.ndarray
+    eigenvalues: np.ndarray
+    eigenvectors: np.ndarray
+    total_variance: float
+    explained_variance_ratio: np.ndarray
+    n_frames: int
+    eigenvalue_unit: str
+    projection_unit: str
+    momentum_unit: str
+    cosine_content: np.ndarray | None = None
+    projections: np.ndarray | None = None
+    momenta: np.ndarray | None = None
+    time_ps: np.ndarray | None = None
+    velocities_estimated: bool = False
+    # settings that produced it
+    mass_weighted: bool = True
+    fit: bool = True
+    method: str = "exact"
+    n_components: int = 10
+    start: int = 0
+    stop: int | None = None
+    stride: int = 1
+    chunk_frames: int = DEFAULT_CHUNK_FRAMES
+    n_iter: int = 0
+    oversample: int = 0
+    seed: int = 0
+    precision: str = "float32"
+
+    def quasi_harmonic_frequencies_rad_per_ps(self, temperature_K: float) -> np.ndarray:
+        """omega_k = sqrt(kT / lambda_k) (Karplus and Kushick 1981); meaningful when mass-weighted."""
+        return quasi_harmonic_frequencies(self.eigenvalues, temperature_K)
+
+
+def quasi_harmonic_frequencies(eigenvalues_amu_nm2: np.ndarray, temperature_K: float) -> np.ndarray:
+    """Quasi-harmonic angular frequencies in rad/ps from mass-weighted eigenvalues (amu nm^2).
+
+    omega = sqrt(kT/lambda) with kT in kJ/mol = amu nm^2/ps^2 (Karplus and Kushick 1981).
+    Divide by 2 pi c (c = 0.0299792458 cm/ps) for wavenumbers in cm^-1.
+    """
+    kt = K_B_KJ_PER_MOL_K * float(temperature_K)
+    return np.sqrt(kt / np.asarray(eigenvalues_amu_nm2, dtype=np.float64))
+
+
+def cosine_content(q: np.ndarray, k: int) -> float:
+    """Cosine content of a projection with the cosine of half-period count ``k`` (Hess 2002).
+
+    q : (n_frames,) equally spaced in time. Midpoint rule: t_j = (j + 1/2) T/n.
+    """
+    q = np.asarray(q, dtype=np.float64)
+    q = q - q.mean()
+    n = q.shape[0]
+    c = np.cos(k * np.pi * (np.arange(n) + 0.5) / n)
+    den = float(q @ q)
+    if den == 0.0:
+        return float("nan")
+    return float(2.0 / n * (c @ q) ** 2 / den)
+
+
+def _fitted(x: np.ndarray, reference: np.ndarray, weights: np.ndarray, fit: bool) -> tuple[np.ndarray, np.ndarray | None]:
+    """Fit frames (n, g, 3) onto reference; returns fitted positions and the rotations (or None)."""
+    if not fit:
+        return x.astype(np.float64), None
+    rot, cx, cy = kabsch(x, reference, weights)
+    return np.einsum("nia,nab->nib", x - cx[:, None, :], rot) + cy, rot
+
+
+def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Value of component k (0-based) and its gradient with respect to the group's atoms.
+
+    positions_nm : (n, g, 3) positions of ``pca.atom_indices``. The gradient treats the fitting
+    rotation as fixed for the frame (exact without fitting; for a mass-weighted fit the translation
+    part drops out exactly because the modes are orthogonal to rigid translations).
+
+    Returns values (n,) and gradient (n, g, 3).
+    """
+    x = np.asarray(positions_nm, dtype=np.float64)
+    sq = np.sqrt(pca.masses_amu) if pca.mass_weighted else np.ones(pca.masses_amu.shape[0])
+    xf, rot = _fitted(x, pca.reference_nm, pca.masses_amu if pca.mass_weighted else np.ones_like(sq), pca.fit)
+    e = pca.eigenvectors[:, k].reshape(-1, 3)
+    y = xf * sq[None, :, None] - pca.mean.reshape(-1, 3)[None]
+    q = np.einsum("nia,ia->n", y, e)
+    a = sq[:, None] * e
+    grad = np.broadcast_to(a, x.shape).copy() if rot is None else np.einsum("nab,ib->nia", rot, a)
+    return q, grad
+
+
+def _group_and_masses(run: Run, atom_indices: Sequence[int] | np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    if atom_indices is None:
+        idx = solute_atoms(run.topology, run.n_atoms)
+    else:
+        idx = np.asarray(atom_indices, dtype=np.int64)
+    if idx.size == 0:
+        raise AnalysisError("the PCA group has no atoms")
+    if idx.min() < 0 or idx.max() >= run.n_atoms:
+        raise AnalysisError(f"PCA atom index out of range (the run has {run.n_atoms} atoms)")
+    return idx, np.asarray(run.masses_amu, dtype=np.float64)[idx]
+
+
+def compute_pca(
+    run: Run,
+    *,
+    atom_indices: Sequence[int] | np.ndarray | None = None,
+    start: int = 0,
+    stop: int | None = None,
+    stride: int = 1,
+    chunk_frames: int | None = None,
+    mass_weighted: bool = True,
+    fit: bool = True,
+    reference_nm: np.ndarray | None = None,
+    n_components: int = 10,
+    method: str = "exact",
+    n_iter: int = 4,
+    oversample: int = 10,
+    seed: int = 0,
+    precision: str = "float32",
+    projections: bool = True,
+) -> Work[PCAResult]:
+    """PCA of an atom group of a run, streamed over chunks. A generator returning :class:`PCAResult`.
+
+    Parameters
+    ----------
+    atom_indices : atoms to use; default: the non-solvent atoms (:func:`coordinates.solute_atoms`)
+    mass_weighted : use y = M^1/2 x (unit-mass modes; eigenvalues in amu nm^2)
+    fit : superpose every frame on ``reference_nm`` (default: the first frame of the range) first.
+        Switch it off for a system without overall rotation (e.g. independent oscillators).
+    n_components : number of leading components kept (all eigenvalues are used for the ratio)
+    method : "exact" (full covariance, eigh) or "randomized" (Halko et al. 2011)
+    n_iter, oversample, seed : randomized route only (power passes, extra columns, random seed)
+    precision : "float32" (GEMM in float32, accumulated in float64 per chunk) or "float64"
+    projections : also make a second pass for q_k(t), p_k(t) and the cosine content
+    """
+    if run.frames is None:
+        raise MissingDataError("the run has no frames (positions)")
+    if method not in ("exact", "randomized"):
+        raise AnalysisError(f"unknown PCA method {method!r}: use 'exact' or 'randomized'")
+    if precision not in ("float32", "float64"):
+        raise AnalysisError(f"unknown precision {precision!r}")
+    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    idx, masses = _group_and_masses(run, atom_indices)
+    n_sel = len(range(start, stop_, stride))
+    if n_sel < 2:
+        raise TooShortError("a PCA", have=n_sel, need=2)
+    g = idx.size
+    d = 3 * g
+    k_keep = int(min(max(1, n_components), d))
+    sq = np.sqrt(masses) if mass_weighted else np.ones(g)
+    fit_w = masses if mass_weighted else np.ones(g)
+    if reference_nm is None:
+        first = run.frames.read_frame(start)
+        ref = np.asarray(first.positions_nm[0][idx], dtype=np.float64)
+    else:
+        ref = np.asarray(reference_nm, dtype=np.float64)
+        if ref.shape != (g, 3):
+            raise AnalysisError(f"the PCA reference has shape {ref.shape}, expected ({g}, 3)")
+    shift = (ref * sq[:, None]).reshape(-1)  # data are shifted by the reference before products
+    dt = np.float32 if precision == "float32" else np.float64
+
+    def chunks(velocities: bool = False):
+        for ch in run.frames.iter_chunks(chunk_frames=chunk, start=start, stop=stop_, stride=stride,
+                                         atom_indices=idx, velocities=velocities):
+            xf, rot = _fitted(np.asarray(ch.positions_nm), ref, fit_w, fit)
+            y = (xf * sq[None, :, None]).reshape(ch.n_frames, d) - shift
+            yield ch, y, rot
+
+    n_passes = (1 if method == "exact" else 1 + n_iter) + (1 if projections else 0)
+    total_work = float(n_passes * n_sel)
+    done = 0.0
+    n = 0
+    s1 = np.zeros(d)
+    sdiag = np.zeros(d)
+    if method == "exact":
+        s2 = np.zeros((d, d))
+        for _ch, y, _rot in chunks():
+            yc = y.astype(dt)
+            s2 += (yc.T @ yc).astype(np.float64)
+            s1 += y.sum(axis=0)
+            n += y.shape[0]
+            done += y.shape[0]
+            yield Progress(done, total_work, "PCA covariance")
+        mu = s1 / n
+        cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
+        cov = 0.5 * (cov + cov.T)
+        evals, evecs = np.linalg.eigh(cov)
+        order = np.argsort(evals)[::-1]
+        evals = np.clip(evals[order], 0.0, None)
+        evecs = evecs[:, order]
+        total = float(np.trace(cov))
+        evals_k, evecs_k = evals[:k_keep], evecs[:, :k_keep]
+    else:
+        rng = np.random.default_rng(seed)
+        ell = int(min(d, k_keep + max(0, oversample)))
+        q_block = rng.standard_normal((d, ell))
+        z = np.zeros((d, ell))
+        for it in range(n_iter + 1):
+            z = np.zeros((d, ell))
+            s1_it = np.zeros(d)
+            n_it = 0
+            qd = q_block.astype(dt)
+            for _ch, y, _rot in chunks():
+                yc = y.astype(dt)
+                z += (yc.T @ (yc @ qd)).astype(np.float64)
+                s1_it += y.sum(axis=0)
+                if it == 0:
+                    sdiag += np.einsum("nd,nd->d", y, y)
+                n_it += y.shape[0]
+                done += y.shape[0]
+                yield Progress(done, total_work, f"PCA randomized pass {it + 1}/{n_iter + 1}")
+            if it == 0:
+                n, s1 = n_it, s1_it
+            mu = s1 / n
+            z = (z - n * np.outer(mu, mu @ q_block)) / (n - 1)  # = C Q
+            if it < n_iter:
+                q_block, _ = np.linalg.qr(z)
+        # Rayleigh-Ritz on the last orthonormal block: B = Q^T C Q
+        b = q_block.T @ z
+        b = 0.5 * (b + b.T)
+        w, v = np.linalg.eigh(b)
+        order = np.argsort(w)[::-1]
+        evals_k = np.clip(w[order][:k_keep], 0.0, None)
+        evecs_k = (q_block @ v[:, order])[:, :k_keep]
+        mu = s1 / n
+        total = float((sdiag - n * mu * mu).sum() / (n - 1))
+    mean = mu + shift
+    # a fixed sign per eigenvector (largest component positive) so results are reproducible
+    signs = np.sign(evecs_k[np.argmax(np.abs(evecs_k), axis=0), np.arange(evecs_k.shape[1])])
+    signs[signs == 0] = 1.0
+    evecs_k = evecs_k * signs
+    ev_unit = "amu nm^2" if mass_weighted else "nm^2"
+    q_unit = "nm amu^1/2" if mass_weighted else "nm"
+    p_unit = "nm amu^1/2/ps"
+    proj = mom = tt = cc = None
+    estimated = bool(getattr(run.frames, "velocities_estimated", False))
+    if projections:
+        want_v = bool(run.frames.has_velocities)
+        proj = np.empty((n, k_keep))
+        mom = np.empty((n, k_keep)) if want_v else None
+        tt = np.empty(n)
+        row = 0
+        for ch, y, rot in chunks(velocities=want_v):
+            m = y.shape[0]
+            proj[row : row + m] = (y - (mean - shift)) @ evecs_k
+            tt[row : row + m] = ch.time_ps
+            if mom is not None:
+                if ch.velocities_nm_per_ps is None:
+                    mom = None
+                else:
+                    v = np.asarray(ch.velocities_nm_per_ps, dtype=np.float64)
+                    if rot is not None:
+                        v = np.einsum("nia,nab->nib", v, rot)
+                    mom[row : row + m] = (v * sq[None, :, None]).reshape(m, d) @ evecs_k
+            row += m
+            done += m
+            yield Progress(done, total_work, "PCA projections")
+        cc = np.array([cosine_content(proj[:, j], j + 1) for j in range(k_keep)])
+    return PCAResult(
+        atom_indices=idx, masses_amu=masses, reference_nm=ref, mean=mean, eigenvalues=evals_k,
+        eigenvectors=evecs_k, total_variance=total,
+        explained_variance_ratio=evals_k / total if total > 0 else np.full(k_keep, np.nan),
+        n_frames=n, eigenvalue_unit=ev_unit, projection_unit=q_unit,
+        momentum_unit=p_unit if mass_weighted else "nm/ps (velocity projected on unit vector)",
+        cosine_content=cc, projections=proj, momenta=mom, time_ps=tt, velocities_estimated=estimated,
+        mass_weighted=mass_weighted, fit=fit, method=method, n_components=k_keep, start=start,
+        stop=stop_, stride=stride, chunk_frames=chunk, n_iter=n_iter if method == "randomized" else 0,
+        oversample=oversample if method == "randomized" else 0, seed=seed, precision=precision,
+    )
+
+
+def pca_arrays(
+    positions_nm: np.ndarray,
+    masses_amu: np.ndarray,
+    *,
+    velocities_nm_per_ps: np.ndarray | None = None,
+    time_ps: np.ndarray | None = None,
+    **settings,
+) -> PCAResult:
+    """PCA of in-memory arrays (n_frames, n_atoms, 3): same implementation as :func:`compute_pca`."""
+    from phasewake.core.progress import result_of
+    from phasewake.core.readers.memory import run_from_arrays
+
+    pos = np.asarray(positions_nm)
+    t = np.arange(pos.shape[0], dtype=np.float64) if time_ps is None else np.asarray(time_ps)
+    run = run_from_arrays(pos, t, masses_amu, velocities_nm_per_ps=velocities_nm_per_ps)
+    return result_of(compute_pca(run, **settings))
