@@ -89,7 +89,9 @@ class VelocitySpectrumAccumulator:
         self.masses = np.asarray(masses_amu, dtype=np.float64)
         self.spacing_ps = float(frame_spacing_ps)
         self.segment_frames = int(segment_frames)
-        self.window = np.hanning(self.segment_frames)
+        from scipy.signal import get_window
+
+        self.window = get_window("hann", self.segment_frames)  # periodic Hann, as scipy.signal.welch uses
         self._power = np.zeros(self.segment_frames // 2 + 1)
         self._n_segments = 0
         self._carry: np.ndarray | None = None
