@@ -1,0 +1,1137 @@
+"""Barrier crossings along a reaction coordinate: events, transition paths, dwell times, rates, kappa.
+
+Two states are core sets on the coordinate q: state A is q <= ``a_hi`` (the low side), state B is
+q >= ``b_lo`` (the high side), with ``a_hi < surface < b_lo``. The committed state changes only when q
+enters the *other* core (two thresholds with hysteresis; Buchete and Hummer, J. Phys. Chem. B 112,
+6057 (2008)), so quick returns across the dividing surface q* are recrossings, not transitions.
+
+What is found, per replica, without any per-frame Python loop (loops run over events only):
+
+- every crossing of q* between two frames, its time and dq/dt linearly interpolated to the crossing
+  (from stored velocities where given, else the secant slope of the two frames), its direction (+1 when
+  q increases, A side to B side), and its kind:
+
+  ``transition``  the crossing after which the trajectory reaches the other core without crossing again;
+  ``recrossing``  any other crossing with a known origin (the trajectory crosses back first, or returns
+                  to the core it came from);
+  ``censored``    the origin is unknown (no core visited yet) or the run ends before the outcome.
+
+- transition paths: from the last exit of the origin core to the first entry into the other core,
+  both times interpolated to the core boundary; their durations (Hummer, J. Chem. Phys. 120, 516 (2004)).
+- dwell (committed-state) segments: from the entry into a core to the entry into the other core. The first
+  segment (start unknown) and the last (end unknown) are kept and marked censored: their time counts in the
+  exposure of the rate, but they are not counted as complete dwells.
+- rates k = transitions / time in the origin state (exponential MLE with censoring) with exact Poisson
+  intervals, upper bounds when nothing was seen; a KS test of completed dwells against an exponential;
+- transmission coefficients by counting and by the reactive-flux kappa(t) of the run's own crossings;
+  the TST rate from the run's own distribution of q, so k / k_TST can be compared with kappa.
+
+Several replicas pool their events (:func:`pool_crossings`). The Run adapter is
+:func:`crossings_of_runs`. Everything here is a heuristic read of finite data; see
+:data:`phasewake.core.verdicts.HEURISTIC_NOTE`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.progress import Progress, Work, result_of
+from phasewake.core.rates import (
+    ExponentialTest,
+    PoissonRate,
+    TSTRate,
+    exponential_ks_test,
+    poisson_rate,
+    tst_rate,
+)
+from phasewake.core.verdicts import (
+    HEURISTIC_NOTE,
+    Explanation,
+    Threshold,
+    Verdict,
+    judge,
+    register,
+)
+
+if TYPE_CHECKING:
+    from phasewake.core.run import Run
+
+# --------------------------------------------------------------------------------------------------
+# Verdict kinds
+# --------------------------------------------------------------------------------------------------
+
+register(
+    Threshold(
+        kind="crossings.few_transitions", caution=20, problem=5, unit="transitions",
+        higher_is_worse=False,
+        source="common practice: a count of N has a Poisson relative error of 1/sqrt(N) "
+               "(about 22% at 20, 45% at 5)",
+        description="number of transitions in the rarer direction",
+    ),
+    Explanation(
+        title="Number of transitions",
+        what="How many committed transitions (core to core) the run shows in the rarer direction.",
+        method="Core-set state assignment with hysteresis (Buchete and Hummer 2008); a rate is the number "
+               "of transitions over the time spent in the origin state, whose relative error is 1/sqrt(N).",
+        threshold="caution below 20, problem below 5 transitions (common practice, from the Poisson error).",
+        advice="Run longer or pool independent replicas; with no transitions the rate is only an upper bound.",
+    ),
+)
+register(
+    Threshold(
+        kind="crossings.dwell_exponential", caution=0.05, problem=0.001, unit="p-value",
+        higher_is_worse=False,
+        source="Lilliefors (1969) KS test against an exponential; 5% and 0.1% levels are common practice",
+        description="p-value of completed dwell times against an exponential with the fitted mean",
+    ),
+    Explanation(
+        title="Dwell times exponential",
+        what="Whether the completed dwell times in a state look exponential, as they should for a "
+             "two-state process with a single rate.",
+        method="Kolmogorov-Smirnov distance to an exponential with the sample mean, p-value from Monte "
+               "Carlo draws under the fitted null (Lilliefors 1969). Censored segments are left out.",
+        threshold="caution when p < 0.05, problem when p < 0.001 (common practice significance levels).",
+        advice="Non-exponential dwells suggest hidden intermediate states, a poor reaction coordinate, "
+               "core sets too close to the barrier, or a run barely longer than the dwells (completed "
+               "dwells are then biased short). Try other core boundaries or another coordinate.",
+    ),
+)
+register(
+    Threshold(
+        kind="crossings.path_resolution", caution=5, problem=2, unit="frames",
+        higher_is_worse=False,
+        source="common practice: a crossing that lasts fewer frames than a handful cannot show its "
+               "recrossings",
+        description="median transition-path duration in frames",
+    ),
+    Explanation(
+        title="Time resolution of transition paths",
+        what="How many frames a typical transition path spans.",
+        method="Median duration of the transition paths divided by the frame spacing.",
+        threshold="caution below 5 frames, problem below 2 (common practice).",
+        advice="Recrossings faster than the frame spacing are invisible, so counting kappa is biased "
+               "high; save frames more often if the files allow.",
+    ),
+)
+
+# --------------------------------------------------------------------------------------------------
+# Tables
+# --------------------------------------------------------------------------------------------------
+
+STATE_CODES = ("A", "B")
+
+EVENT_DTYPE = np.dtype([
+    ("index", np.int64),  # row number in the pooled table
+    ("replica", np.int32),
+    ("frame", np.int64),  # frame nearest to the crossing, within its replica
+    ("time_ps", np.float64),  # interpolated crossing time
+    ("direction", np.int8),  # +1: q increases (A side -> B side), -1: the reverse
+    ("kind", "U10"),  # transition | recrossing | censored
+    ("from_state", "U1"),  # committed state before the crossing ("" when none yet)
+    ("to_state", "U1"),  # first core reached after the crossing ("" when the run ends first)
+    ("velocity", np.float64),  # dq/dt at the crossing, unit/ps
+    ("path_duration_ps", np.float64),  # transition-path duration for transitions, else nan
+    ("path", np.int64),  # row in the paths table for transitions, else -1
+])
+
+PATH_DTYPE = np.dtype([
+    ("replica", np.int32),
+    ("from_state", "U1"),
+    ("to_state", "U1"),
+    ("exit_frame", np.int64),  # first frame outside the origin core
+    ("entry_frame", np.int64),  # first frame inside the destination core
+    ("exit_time_ps", np.float64),  # interpolated to the origin core's boundary
+    ("entry_time_ps", np.float64),  # interpolated to the destination core's boundary
+    ("duration_ps", np.float64),
+    ("n_crossings", np.int32),  # crossings of the dividing surface during the path (odd)
+])
+
+DWELL_DTYPE = np.dtype([
+    ("replica", np.int32),
+    ("state", "U1"),
+    ("start_frame", np.int64),
+    ("end_frame", np.int64),
+    ("start_ps", np.float64),
+    ("end_ps", np.float64),
+    ("duration_ps", np.float64),
+    ("censored_start", np.bool_),  # first segment: how long it had been in the state is unknown
+    ("censored_end", np.bool_),  # last segment: the run ended before it left
+])
+
+
+@dataclass(frozen=True)
+class Event:
+    """One crossing of the dividing surface (a row of :attr:`CrossingsResult.events`)."""
+
+    index: int
+    replica: int
+    frame: int
+    time_ps: float
+    direction: int
+    kind: str
+    from_state: str
+    to_state: str
+    velocity: float
+    velocity_unit: str
+    path_duration_ps: float
+    path: int
+
+
+@dataclass(frozen=True)
+class Trace:
+    """One replica's coordinate: times (ps), values (unit) and dq/dt (unit/ps) or None."""
+
+    time_ps: np.ndarray
+    values: np.ndarray
+    velocity: np.ndarray | None = None
+    name: str = ""
+
+
+def as_trace(obj: Any, name: str = "") -> Trace:
+    """A :class:`Trace` from a Trace, a ``CoordinateSeries``-like object or a tuple (t, q[, qdot]).
+
+    A series whose ``velocities_estimated`` is True is taken without velocities: the crossing
+    velocity then comes from the frames themselves, and says so.
+    """
+    if isinstance(obj, Trace):
+        return obj
+    if isinstance(obj, tuple | list):
+        if len(obj) not in (2, 3):
+            raise AnalysisError("a trace is (time_ps, q) or (time_ps, q, dq/dt)")
+        v = obj[2] if len(obj) == 3 else None
+        return Trace(np.asarray(obj[0], float), np.asarray(obj[1], float),
+                     None if v is None else np.asarray(v, float), name)
+    t = getattr(obj, "time_ps", None)
+    q = getattr(obj, "values", None)
+    if t is None or q is None:
+        raise AnalysisError(f"cannot read a coordinate series from {type(obj).__name__}")
+    v = getattr(obj, "velocity", None)
+    if getattr(obj, "velocities_estimated", False):
+        v = None
+    return Trace(np.asarray(t, float), np.asarray(q, float), None if v is None else np.asarray(v, float),
+                 name or str(getattr(obj, "label", "")))
+
+
+# --------------------------------------------------------------------------------------------------
+# Settings and results
+# --------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class CrossingSettings:
+    """What produced a :class:`CrossingsResult`. Values of q in ``unit``; times in ps."""
+
+    a_hi: float  # state A core: q <= a_hi
+    b_lo: float  # state B core: q >= b_lo
+    surface: float  # dividing surface q*
+    unit: str
+    states_source: str  # "given" or "suggested from the free-energy profile"
+    confidence: float
+    kappa_window_ps: tuple[float, float] | None  # plateau window of kappa(t); None = automatic
+    temperature_K: float | None
+
+
+@dataclass(frozen=True)
+class RateEstimate:
+    """Rate of leaving ``from_state`` for ``to_state`` (per ps), pooled over replicas."""
+
+    from_state: str
+    to_state: str
+    n_transitions: int
+    exposure_ps: float  # time committed to the origin state, censored segments included
+    rate_per_ps: float  # MLE n / T; 0 when n == 0 (then report ci_high_per_ps as an upper bound)
+    ci_low_per_ps: float
+    ci_high_per_ps: float
+    confidence: float
+    upper_bound_only: bool
+    interval_method: str
+    mfpt_ps: float  # 1 / rate (exposure per transition); inf when none seen
+    mean_completed_dwell_ps: float  # mean of uncensored dwells (biased short in short runs)
+    n_completed_dwells: int
+    message: str
+
+
+@dataclass(frozen=True)
+class TransmissionCoefficient:
+    """Counting and reactive-flux transmission coefficients.
+
+    Counting: transitions per crossing of the dividing surface in the same direction.
+    Reactive flux: kappa(t) = sum_c s_c theta(q(t_c + t) - q*) / N_+ over the run's own crossings c
+    (s_c their direction); see :func:`reactive_flux`.
+    """
+
+    counting_up: float  # A->B transitions per +1 crossing
+    counting_down: float  # B->A transitions per -1 crossing
+    counting: float  # all transitions per crossing
+    n_crossings_up: int
+    n_crossings_down: int
+    lag_ps: np.ndarray  # shape (n_lags,)
+    kappa_up: np.ndarray  # shape (n_lags,), A->B
+    kappa_down: np.ndarray  # shape (n_lags,), B->A
+    kappa: np.ndarray  # shape (n_lags,), both directions pooled
+    n_used: np.ndarray  # crossings that contribute at each lag
+    plateau_window_ps: tuple[float, float]
+    plateau: float  # mean of kappa(t) exp(k_relax t) over the window
+    plateau_raw: float  # mean of kappa(t) over the window, uncorrected
+    relaxation_rate_per_ps: float  # k_AB + k_BA used in the correction
+    assumptions: str
+
+
+@dataclass(frozen=True)
+class TSTComparison:
+    """k / k_TST for both directions, to compare with kappa."""
+
+    tst: TSTRate
+    kappa_up: float  # k_AB / k_TST(A->B)
+    kappa_down: float
+    note: str
+
+
+@dataclass(frozen=True)
+class PathTimes:
+    """Transition-path durations (ps) pooled over both directions and replicas."""
+
+    n: int
+    mean_ps: float
+    sem_ps: float
+    median_ps: float
+    std_ps: float
+    mean_frames: float
+    median_frames: float
+
+
+@dataclass(frozen=True)
+class StateSuggestion:
+    """Core sets and dividing surface read off a 1D free-energy profile F(q) = -kT ln P(q)."""
+
+    a_hi: float
+    b_lo: float
+    surface: float
+    minimum_a: float
+    minimum_b: float
+    barrier_from_a_kT: float
+    barrier_from_b_kT: float
+    centres: np.ndarray  # bin centres, unit
+    free_energy_kT: np.ndarray  # F - min F, kT (inf where empty)
+    method: str
+
+
+@dataclass(frozen=True)
+class CrossingsResult:
+    """Everything :func:`pool_crossings` finds. Tables are numpy structured arrays (see the dtypes)."""
+
+    settings: CrossingSettings
+    n_replicas: int
+    n_samples: int
+    total_time_ps: float
+    unassigned_time_ps: float  # before the first core visit of each replica (given to the first core reached)
+    frame_spacing_ps: float
+    events: np.ndarray  # EVENT_DTYPE
+    paths: np.ndarray  # PATH_DTYPE
+    dwells: np.ndarray  # DWELL_DTYPE
+    velocity_source: str
+    velocity_unit: str
+    rate_ab: RateEstimate
+    rate_ba: RateEstimate
+    path_times: PathTimes
+    kappa: TransmissionCoefficient
+    tst: TSTComparison | None
+    dwell_tests: dict[str, ExponentialTest]
+    suggestion: StateSuggestion | None
+    verdicts: tuple[Verdict, ...]
+    warnings: tuple[str, ...]
+    note: str = HEURISTIC_NOTE
+    replica_names: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def n_transitions(self) -> int:
+        return int(np.count_nonzero(self.events["kind"] == "transition"))
+
+    @property
+    def n_recrossings(self) -> int:
+        return int(np.count_nonzero(self.events["kind"] == "recrossing"))
+
+    def event(self, i: int) -> Event:
+        """Row i of the events table as an :class:`Event`."""
+        r = self.events[i]
+        return Event(int(r["index"]), int(r["replica"]), int(r["frame"]), float(r["time_ps"]),
+                     int(r["direction"]), str(r["kind"]), str(r["from_state"]), str(r["to_state"]),
+                     float(r["velocity"]), self.velocity_unit, float(r["path_duration_ps"]), int(r["path"]))
+
+    def event_rows(self) -> list[Event]:
+        return [self.event(i) for i in range(self.events.shape[0])]
+
+    def to_dict(self, *, tables: bool = True) -> dict[str, Any]:
+        """Plain data (numbers with units in names) for JSON; tables as lists of row dicts."""
+        from dataclasses import asdict
+
+        def rows(a: np.ndarray) -> list[dict[str, Any]]:
+            names = a.dtype.names or ()
+            return [{k: r[k].item() for k in names} for r in a]
+
+        out: dict[str, Any] = {
+            "settings": asdict(self.settings),
+            "n_replicas": self.n_replicas,
+            "n_samples": self.n_samples,
+            "total_time_ps": self.total_time_ps,
+            "unassigned_time_ps": self.unassigned_time_ps,
+            "frame_spacing_ps": self.frame_spacing_ps,
+            "n_crossings": int(self.events.shape[0]),
+            "n_transitions": self.n_transitions,
+            "n_recrossings": self.n_recrossings,
+            "velocity_source": self.velocity_source,
+            "velocity_unit": self.velocity_unit,
+            "rate_ab": asdict(self.rate_ab),
+            "rate_ba": asdict(self.rate_ba),
+            "path_times": asdict(self.path_times),
+            "kappa": {k: v for k, v in asdict(self.kappa).items()},
+            "tst": None if self.tst is None else asdict(self.tst),
+            "dwell_tests": {k: asdict(v) for k, v in self.dwell_tests.items()},
+            "verdicts": [v.to_dict() for v in self.verdicts],
+            "warnings": list(self.warnings),
+            "note": self.note,
+        }
+        if self.suggestion is not None:
+            s = asdict(self.suggestion)
+            s.pop("centres")
+            s.pop("free_energy_kT")
+            out["suggestion"] = s
+        if tables:
+            out["events"] = rows(self.events)
+            out["paths"] = rows(self.paths)
+            out["dwells"] = rows(self.dwells)
+        return out
+
+
+# --------------------------------------------------------------------------------------------------
+# Kernels
+# --------------------------------------------------------------------------------------------------
+
+_CHUNK = 1 << 20
+
+
+def _change_points(q: np.ndarray, a_hi: float, b_lo: float, surface: float
+                   ) -> tuple[tuple[bool, bool, bool], np.ndarray, np.ndarray, np.ndarray]:
+    """Indices i >= 1 where (q <= a_hi), (q >= b_lo) or (q >= surface) differ between i-1 and i.
+
+    Chunked so the boolean temporaries stay small; one read of q.
+    """
+    n = q.shape[0]
+    ca: list[np.ndarray] = []
+    cb: list[np.ndarray] = []
+    cs: list[np.ndarray] = []
+    for s in range(0, n, _CHUNK):
+        lo = max(s - 1, 0)
+        x = q[lo:s + _CHUNK]
+        for mask, out in ((x <= a_hi, ca), (x >= b_lo, cb), (x >= surface, cs)):
+            d = np.flatnonzero(mask[1:] != mask[:-1])
+            if d.size:
+                out.append(d + (lo + 1))
+    first = (bool(q[0] <= a_hi), bool(q[0] >= b_lo), bool(q[0] >= surface))
+
+    def cat(parts: list[np.ndarray]) -> np.ndarray:
+        return np.concatenate(parts) if parts else np.zeros(0, np.int64)
+
+    return first, cat(ca), cat(cb), cat(cs)
+
+
+def _runs(first: bool, changes: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Starts and (exclusive) ends of the runs of True of a mask given by its first value and flips."""
+    bounds = np.concatenate(([0], changes, [n])).astype(np.int64)
+    k = np.arange(bounds.size - 1)
+    on = (k % 2 == 0) if first else (k % 2 == 1)
+    return bounds[:-1][on], bounds[1:][on]
+
+
+def _interp_time(t: np.ndarray, q: np.ndarray, i0: np.ndarray, level: float | np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """Time at which the straight line between frames i0 and i0+1 reaches ``level``, and the fraction."""
+    q0 = q[i0]
+    dq = q[i0 + 1] - q0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f = np.where(dq != 0, (level - q0) / dq, 0.0)
+    f = np.clip(f, 0.0, 1.0)
+    return t[i0] + f * (t[i0 + 1] - t[i0]), f
+
+
+def committed_states(q: np.ndarray, *, a_hi: float, b_lo: float) -> np.ndarray:
+    """Committed state of every frame: 0 (A), 1 (B), -1 before the first core visit.
+
+    Parameters
+    ----------
+    q : ndarray, shape (n,)
+    a_hi, b_lo : float
+        Core boundaries (A: q <= a_hi, B: q >= b_lo), same unit as q.
+
+    Returns
+    -------
+    ndarray, shape (n,), int8
+    """
+    q = np.asarray(q, dtype=float)
+    if not a_hi < b_lo:
+        raise AnalysisError(f"the states overlap: core A (q <= {a_hi:g}) must lie below core B (q >= {b_lo:g})")
+    n = q.shape[0]
+    out = np.full(n, -1, np.int8)
+    if n == 0:
+        return out
+    first, ca, cb, _ = _change_points(q, a_hi, b_lo, 0.5 * (a_hi + b_lo))
+    sa, _ = _runs(first[0], ca, n)
+    sb, _ = _runs(first[1], cb, n)
+    starts = np.concatenate((sa, sb))
+    labels = np.concatenate((np.zeros(sa.size, np.int8), np.ones(sb.size, np.int8)))
+    order = np.argsort(starts, kind="stable")
+    starts, labels = starts[order], labels[order]
+    keep = np.ones(starts.size, bool)
+    keep[1:] = labels[1:] != labels[:-1]
+    starts, labels = starts[keep], labels[keep]
+    if starts.size:
+        bounds = np.concatenate((starts, [n]))
+        out[starts[0]:] = np.repeat(labels, np.diff(bounds))
+    return out
+
+
+@dataclass
+class _Replica:
+    """Per-replica intermediate results (mutable, private)."""
+
+    n: int
+    time_span_ps: float
+    unassigned_ps: float
+    dt_ps: float
+    events: np.ndarray
+    paths: np.ndarray
+    dwells: np.ndarray
+    crossing_i0: np.ndarray  # frame before each crossing
+    crossing_f: np.ndarray  # sub-frame fraction of each crossing
+    visited: tuple[bool, bool]
+
+
+def _replica_events(tr: Trace, replica: int, *, a_hi: float, b_lo: float, surface: float) -> _Replica:
+    t = tr.time_ps
+    q = tr.values
+    n = int(q.shape[0])
+    first, ca, cb, cs = _change_points(q, a_hi, b_lo, surface)
+    sa, ea = _runs(first[0], ca, n)
+    sb, eb = _runs(first[1], cb, n)
+    starts = np.concatenate((sa, sb))
+    ends = np.concatenate((ea, eb))
+    labels = np.concatenate((np.zeros(sa.size, np.int8), np.ones(sb.size, np.int8)))
+    order = np.argsort(starts, kind="stable")
+    starts, ends, labels = starts[order], ends[order], labels[order]
+    n_runs = int(starts.size)
+
+    # Committed-state changes: run k has another label than run k-1.
+    chg = np.flatnonzero(labels[1:] != labels[:-1]) + 1
+    exit_frame = ends[chg - 1]  # first frame outside the origin core
+    entry_frame = starts[chg]  # first frame inside the destination core
+    origin = labels[chg - 1]
+    dest = labels[chg]
+    level_exit = np.where(origin == 0, a_hi, b_lo)
+    level_entry = np.where(dest == 0, a_hi, b_lo)
+    t_exit, _ = _interp_time(t, q, exit_frame - 1, level_exit)
+    t_entry, _ = _interp_time(t, q, entry_frame - 1, level_entry)
+
+    # Surface crossings: between frames i0 and i0 + 1.
+    i0 = cs - 1
+    t_c, f_c = _interp_time(t, q, i0, surface)
+    direction = np.where(q[i0 + 1] > q[i0], 1, -1).astype(np.int8)
+    if tr.velocity is not None:
+        v = tr.velocity
+        vel = v[i0] + f_c * (v[i0 + 1] - v[i0])
+    else:
+        vel = (q[i0 + 1] - q[i0]) / (t[i0 + 1] - t[i0])
+    n_c = int(i0.size)
+    k_prev = np.searchsorted(starts, i0, side="right") - 1
+    from_lab = np.where(k_prev >= 0, labels[np.maximum(k_prev, 0)] if n_runs else -1, -1)
+    k_next = np.searchsorted(starts, i0 + 1, side="left")
+    has_next_core = k_next < n_runs
+    next_entry = np.where(has_next_core, starts[np.minimum(k_next, max(n_runs - 1, 0))] if n_runs else 0,
+                          np.iinfo(np.int64).max)
+    to_lab = np.where(has_next_core, labels[np.minimum(k_next, max(n_runs - 1, 0))] if n_runs else -1, -1)
+    next_cross = np.empty(n_c, np.int64)
+    if n_c:
+        next_cross[:-1] = i0[1:]
+        next_cross[-1] = np.iinfo(np.int64).max
+    committed = has_next_core & (next_entry <= next_cross)
+    kind = np.full(n_c, "recrossing", dtype="U10")
+    is_transition = committed & (from_lab >= 0) & (to_lab != from_lab)
+    kind[is_transition] = "transition"
+    ended = ~has_next_core & (next_cross == np.iinfo(np.int64).max)
+    kind[ended | (from_lab < 0)] = "censored"
+
+    # Paths: each committed-state change has exactly one transition crossing (the last before entry).
+    n_p = int(chg.size)
+    paths = np.zeros(n_p, PATH_DTYPE)
+    paths["replica"] = replica
+    paths["from_state"] = np.asarray(STATE_CODES)[origin] if n_p else []
+    paths["to_state"] = np.asarray(STATE_CODES)[dest] if n_p else []
+    paths["exit_frame"] = exit_frame
+    paths["entry_frame"] = entry_frame
+    paths["exit_time_ps"] = t_exit
+    paths["entry_time_ps"] = t_entry
+    paths["duration_ps"] = t_entry - t_exit
+    paths["n_crossings"] = (np.searchsorted(i0, entry_frame - 1, side="right")
+                            - np.searchsorted(i0, exit_frame - 1, side="left"))
+
+    codes = np.asarray(("A", "B", ""))
+    events = np.zeros(n_c, EVENT_DTYPE)
+    events["replica"] = replica
+    events["frame"] = i0 + (f_c >= 0.5)
+    events["time_ps"] = t_c
+    events["direction"] = direction
+    events["kind"] = kind
+    events["from_state"] = codes[from_lab] if n_c else []
+    events["to_state"] = codes[to_lab] if n_c else []
+    events["velocity"] = vel
+    events["path_duration_ps"] = np.nan
+    events["path"] = -1
+    if n_p and n_c:
+        tr_idx = np.flatnonzero(is_transition)
+        p_of = np.searchsorted(entry_frame, next_entry[tr_idx])
+        events["path"][tr_idx] = p_of
+        events["path_duration_ps"][tr_idx] = paths["duration_ps"][p_of]
+
+    # Dwell segments of the committed state.
+    if n_runs:
+        seg_start_frame = np.concatenate(([0], entry_frame))
+        seg_label = np.concatenate(([labels[0]], dest))
+        t_first = t[0] if starts[0] == 0 else _interp_time(
+            t, q, np.asarray([starts[0] - 1]), np.asarray([a_hi if labels[0] == 0 else b_lo]))[0][0]
+        # Time before the first core visit is given to the first core reached: the committed state
+        # then was most likely that core (unless the run began on a transition path, a fraction of
+        # about <t_TP>/<dwell>). Counting it keeps the exposure of a run started at a random time
+        # unbiased; starting the clock at the first core entry would bias k low when runs are short.
+        seg_t0 = np.concatenate(([t[0]], t_entry))
+        seg_t1 = np.concatenate((t_entry, [t[-1]]))
+        seg_end_frame = np.concatenate((entry_frame, [n - 1]))
+        dwells = np.zeros(seg_t0.size, DWELL_DTYPE)
+        dwells["replica"] = replica
+        dwells["state"] = np.asarray(STATE_CODES)[seg_label]
+        dwells["start_frame"] = seg_start_frame
+        dwells["end_frame"] = seg_end_frame
+        dwells["start_ps"] = seg_t0
+        dwells["end_ps"] = seg_t1
+        dwells["duration_ps"] = seg_t1 - seg_t0
+        dwells["censored_start"][0] = True
+        dwells["censored_end"][-1] = True
+        unassigned = float(t_first - t[0])
+    else:
+        dwells = np.zeros(0, DWELL_DTYPE)
+        unassigned = float(t[-1] - t[0])
+    dt = float(np.median(np.diff(t))) if n > 1 else float("nan")
+    return _Replica(n=n, time_span_ps=float(t[-1] - t[0]), unassigned_ps=unassigned, dt_ps=dt,
+                    events=events, paths=paths, dwells=dwells, crossing_i0=i0, crossing_f=f_c,
+                    visited=(bool(sa.size), bool(sb.size)))
+
+
+def reactive_flux(q: np.ndarray, crossing_i0: np.ndarray, direction: np.ndarray, *, surface: float,
+                  n_lags: int, block: int = 1 << 20) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Sums for the reactive-flux kappa(t) from one trajectory's own crossings.
+
+    Bennett (1977) and Chandler (J. Chem. Phys. 68, 2959 (1978)) define
+    kappa(t) = <q'(0) delta(q(0) - q*) theta(q(t) - q*)> / <q'(0) delta(q(0) - q*) theta(q'(0))>.
+    Along one long equilibrium trajectory, delta(q(t) - q*) = sum_c delta(t - t_c) / |q'(t_c)| over its
+    crossings c, so the time average turns into a sum over crossings in which each one is weighted by
+    q'/|q'| = its direction s_c: kappa(t) = sum_c s_c theta(q(t_c + t) - q*) / N_+. Only directions
+    are needed; the run must be long and in equilibrium (its crossings then sample the flux-weighted
+    distribution at q*, which is what the reactive-flux average needs).
+
+    Lag j uses frame i0 + 1 + j after a crossing between frames i0 and i0 + 1.
+
+    Returns
+    -------
+    up_num, up_den, down_num, down_den : ndarray, shape (n_lags,)
+        A->B: sum over crossings of s_c theta(q - q*) and the number of +1 crossings that reach lag j;
+        B->A: the same with -s_c theta(q* - q) and the -1 crossings.
+    """
+    n = q.shape[0]
+    lags = np.arange(n_lags)
+    up_num = np.zeros(n_lags)
+    up_den = np.zeros(n_lags)
+    down_num = np.zeros(n_lags)
+    down_den = np.zeros(n_lags)
+    per = max(1, block // max(n_lags, 1))
+    for s in range(0, crossing_i0.size, per):
+        i0 = crossing_i0[s:s + per]
+        d = direction[s:s + per].astype(float)
+        idx = i0[:, None] + 1 + lags[None, :]
+        valid = idx < n
+        above = np.zeros(idx.shape, bool)
+        above[valid] = q[idx[valid]] >= surface
+        up = d > 0
+        down = ~up
+        # s_c theta(q - q*): +1 crossings add theta, -1 crossings subtract it.
+        up_num += np.sum(np.where(valid, d[:, None] * above, 0.0), axis=0)
+        up_den += np.sum(valid[up], axis=0)
+        down_num += np.sum(np.where(valid, -d[:, None] * (~above), 0.0), axis=0)
+        down_den += np.sum(valid[down], axis=0)
+    return up_num, up_den, down_num, down_den
+
+
+def suggest_states(q: np.ndarray, *, n_bins: int | None = None, unit: str = "") -> StateSuggestion:
+    """Core sets and dividing surface from the two deepest minima of F(q) = -kT ln P(q).
+
+    The surface is the highest point of F between the two minima; each core reaches from its minimum
+    towards the barrier until F has risen by min(1 kT, half that side's barrier). These choices are ours
+    (a heuristic): check them against the profile and adjust.
+
+    Parameters
+    ----------
+    q : ndarray, shape (n,)
+        Samples of the coordinate, pooled over replicas.
+    n_bins : int, optional
+        Histogram bins over the 0.1-99.9 % range (default: between 30 and 120, about sqrt(n)/4).
+    """
+    q = np.asarray(q, dtype=float).ravel()
+    q = q[np.isfinite(q)]
+    if q.size < 50:
+        raise TooShortError("suggesting states from a free-energy profile", have=int(q.size), need=50)
+    lo, hi = np.percentile(q, [0.1, 99.9])
+    if not hi > lo:
+        raise AnalysisError("the coordinate has no spread: cannot suggest states; give them explicitly")
+    nb = n_bins or int(np.clip(math.sqrt(q.size) / 4, 30, 120))
+    counts, edges = np.histogram(q, bins=nb, range=(lo, hi))
+    centres = 0.5 * (edges[1:] + edges[:-1])
+    # Light smoothing (binomial 1-2-1 twice) so noise does not make minima.
+    sm = counts.astype(float)
+    for _ in range(2):
+        sm = np.convolve(np.pad(sm, 1, mode="edge"), [0.25, 0.5, 0.25], mode="valid")
+    with np.errstate(divide="ignore"):
+        f = -np.log(sm)
+    f = f - np.min(f[np.isfinite(f)])
+    fin = np.where(np.isfinite(f), f, np.inf)
+    interior = np.flatnonzero((fin[1:-1] <= fin[:-2]) & (fin[1:-1] < fin[2:])) + 1
+    cand: list[int] = [int(x) for x in interior]
+    if fin[0] < fin[1]:
+        cand.insert(0, 0)
+    if fin[-1] < fin[-2]:
+        cand.append(nb - 1)
+    best: tuple[float, int, int, int] | None = None
+    for ii in range(len(cand)):
+        for jj in range(ii + 1, len(cand)):
+            i, j = cand[ii], cand[jj]
+            if j - i < 3:
+                continue
+            b = i + int(np.argmax(fin[i:j + 1]))
+            height = min(fin[b] - fin[i], fin[b] - fin[j])
+            if best is None or height > best[0]:
+                best = (float(height), i, j, b)
+    if best is None or best[0] < 0.5:
+        raise AnalysisError(
+            "the free-energy profile of the coordinate shows no two minima separated by a barrier of at "
+            "least 0.5 kT; give the states (--states A_HI,B_LO) and the surface yourself"
+        )
+    _, i, j, b = best
+    up_a = min(1.0, 0.5 * (fin[b] - fin[i]))
+    up_b = min(1.0, 0.5 * (fin[b] - fin[j]))
+    ka = i + int(np.argmax(fin[i:b + 1] >= fin[i] + up_a))
+    kb = j - int(np.argmax(fin[b:j + 1][::-1] >= fin[j] + up_b))
+    a_hi = float(edges[ka])
+    b_lo = float(edges[kb + 1])
+    surface = float(centres[b])
+    a_hi = min(a_hi, surface - 0.25 * (surface - centres[i]))
+    b_lo = max(b_lo, surface + 0.25 * (centres[j] - surface))
+    return StateSuggestion(
+        a_hi=a_hi, b_lo=b_lo, surface=surface, minimum_a=float(centres[i]), minimum_b=float(centres[j]),
+        barrier_from_a_kT=float(fin[b] - fin[i]), barrier_from_b_kT=float(fin[b] - fin[j]),
+        centres=centres, free_energy_kT=f,
+        method="two deepest minima of -ln P(q) (histogram, 1-2-1 smoothing); surface at the highest "
+               "point between them; cores where F is within min(1 kT, half the barrier) of a minimum "
+               "(our heuristic)",
+    )
+
+
+def _check_traces(traces: Sequence[Trace]) -> None:
+    if not traces:
+        raise AnalysisError("no coordinate series given")
+    for k, tr in enumerate(traces):
+        t, q = tr.time_ps, tr.values
+        label = f"replica {k}" + (f" ({tr.name})" if tr.name else "")
+        if t.ndim != 1 or q.ndim != 1 or t.shape != q.shape:
+            raise AnalysisError(f"{label}: time and coordinate must be 1D arrays of one length "
+                                f"(got {t.shape} and {q.shape})")
+        if q.shape[0] < 2:
+            raise TooShortError(f"crossings of {label}", have=int(q.shape[0]), need=2)
+        if tr.velocity is not None and tr.velocity.shape != q.shape:
+            raise AnalysisError(f"{label}: dq/dt has {tr.velocity.shape[0]} samples, q has {q.shape[0]}")
+        if not np.all(np.isfinite(q)):
+            raise AnalysisError(f"{label}: the coordinate has NaN or infinite values")
+        if np.any(np.diff(t) <= 0):
+            raise AnalysisError(f"{label}: time must increase strictly from frame to frame")
+
+
+def _rate(from_state: str, to_state: str, n: int, exposure: float, dwells: np.ndarray,
+          confidence: float) -> RateEstimate:
+    pr: PoissonRate = poisson_rate(n, exposure, confidence=confidence)
+    complete = dwells[(dwells["state"] == from_state) & ~dwells["censored_start"] & ~dwells["censored_end"]]
+    mean_c = float(complete["duration_ps"].mean()) if complete.size else float("nan")
+    if pr.upper_bound_only:
+        msg = (f"no {from_state}->{to_state} transition in {exposure:.4g} ps in {from_state}: the rate is "
+               f"below {pr.ci_high_per_ps:.3g} /ps ({100 * confidence:.0f}% one-sided upper limit), not zero")
+    else:
+        msg = (f"{n} {from_state}->{to_state} transitions in {exposure:.4g} ps in {from_state}: "
+               f"k = {pr.rate_per_ps:.3g} /ps ({100 * confidence:.0f}% interval {pr.ci_low_per_ps:.3g} to "
+               f"{pr.ci_high_per_ps:.3g})")
+    return RateEstimate(
+        from_state=from_state, to_state=to_state, n_transitions=n, exposure_ps=float(exposure),
+        rate_per_ps=pr.rate_per_ps, ci_low_per_ps=pr.ci_low_per_ps, ci_high_per_ps=pr.ci_high_per_ps,
+        confidence=confidence, upper_bound_only=pr.upper_bound_only, interval_method=pr.method,
+        mfpt_ps=(exposure / n) if n else float("inf"), mean_completed_dwell_ps=mean_c,
+        n_completed_dwells=int(complete.size), message=msg,
+    )
+
+
+def crossings_work(
+    traces: Sequence[Any],
+    *,
+    states: tuple[float, float] | None = None,
+    surface: float | None = None,
+    unit: str = "",
+    confidence: float = 0.95,
+    kappa_window_ps: tuple[float, float] | None = None,
+    temperature_K: float | None = None,
+    kT_over_m_eff: float | None = None,
+    test_dwells: bool = True,
+) -> Work[CrossingsResult]:
+    """Find crossings, paths, dwells, rates and transmission coefficients, pooled over replicas.
+
+    Parameters
+    ----------
+    traces : sequence of Trace, CoordinateSeries or (time_ps, q[, qdot]) tuples
+        One per replica. time_ps shape (n_r,), ps; q shape (n_r,), ``unit``; qdot unit/ps.
+    states : (a_hi, b_lo), optional
+        Core A is q <= a_hi, core B is q >= b_lo. Default: suggested from the free-energy profile
+        (:func:`suggest_states`).
+    surface : float, optional
+        Dividing surface q*, strictly between the cores. Default: the barrier top of the profile when
+        the states are suggested, else midway between the cores.
+    confidence : float
+        Coverage of the rate intervals.
+    kappa_window_ps : (t1, t2), optional
+        Lag window (ps) over which the reactive-flux kappa(t) is averaged; default from the 90th
+        percentile of the transition-path durations to twice that (at least 10 to 20 frames).
+    temperature_K, kT_over_m_eff : optional
+        Used for the TST flux factor when there are no velocities (kT_over_m_eff in (unit/ps)^2).
+
+    Yields :class:`~phasewake.core.progress.Progress`; returns a :class:`CrossingsResult`.
+    """
+    trs = [as_trace(x) for x in traces]
+    _check_traces(trs)
+    total = float(len(trs) * 2 + 2)
+    yield Progress(0, total, "crossings: checking states")
+    q_all_min = min(float(tr.values.min()) for tr in trs)
+    q_all_max = max(float(tr.values.max()) for tr in trs)
+    suggestion: StateSuggestion | None = None
+    if states is None:
+        pooled = np.concatenate([tr.values for tr in trs])
+        suggestion = suggest_states(pooled, unit=unit)
+        a_hi, b_lo = suggestion.a_hi, suggestion.b_lo
+        if surface is None:
+            surface = suggestion.surface
+        source = "suggested from the free-energy profile"
+    else:
+        a_hi, b_lo = float(states[0]), float(states[1])
+        source = "given"
+    if not a_hi < b_lo:
+        raise AnalysisError(
+            f"the states overlap: core A is q <= {a_hi:g} {unit} and core B is q >= {b_lo:g} {unit}; "
+            f"A's upper edge must lie below B's lower edge".replace("  ", " ")
+        )
+    if surface is None:
+        surface = 0.5 * (a_hi + b_lo)
+    surface = float(surface)
+    if not q_all_min < surface < q_all_max:
+        raise AnalysisError(
+            f"the dividing surface {surface:g} {unit} lies outside the range of the coordinate "
+            f"({q_all_min:.6g} to {q_all_max:.6g} {unit}): it is never crossed".replace("  ", " ")
+        )
+    if not a_hi < surface < b_lo:
+        raise AnalysisError(
+            f"the dividing surface {surface:g} {unit} must lie strictly between the cores "
+            f"(q <= {a_hi:g} and q >= {b_lo:g} {unit})".replace("  ", " ")
+        )
+    warnings: list[str] = []
+    if q_all_min > a_hi:
+        warnings.append(f"the coordinate never enters core A (q <= {a_hi:g} {unit}; its minimum is "
+                        f"{q_all_min:.4g})")
+    if q_all_max < b_lo:
+        warnings.append(f"the coordinate never enters core B (q >= {b_lo:g} {unit}; its maximum is "
+                        f"{q_all_max:.4g})")
+
+    reps: list[_Replica] = []
+    for k, tr in enumerate(trs):
+        reps.append(_replica_events(tr, k, a_hi=a_hi, b_lo=b_lo, surface=surface))
+        yield Progress(1 + k, total, "crossings: events")
+
+    events = np.concatenate([r.events for r in reps])
+    events["index"] = np.arange(events.shape[0])
+    offsets = np.cumsum([0] + [r.paths.shape[0] for r in reps])
+    for k, r in enumerate(reps):
+        r.events["path"][r.events["path"] >= 0] += offsets[k]
+    events["path"] = np.concatenate([r.events["path"] for r in reps])
+    paths = np.concatenate([r.paths for r in reps])
+    dwells = np.concatenate([r.dwells for r in reps])
+    with_vel = [tr.velocity is not None for tr in trs]
+    if all(with_vel):
+        vsource = "stored velocities (dq/dt from the run), linearly interpolated to the crossing"
+    elif not any(with_vel):
+        vsource = "finite difference of the two frames around the crossing (secant slope)"
+    else:
+        vsource = "stored velocities where the replica has them, else finite differences of frames"
+
+    # Rates with censoring: exposure = all committed time in the origin state.
+    exp_a = float(dwells["duration_ps"][dwells["state"] == "A"].sum())
+    exp_b = float(dwells["duration_ps"][dwells["state"] == "B"].sum())
+    n_ab = int(np.count_nonzero(paths["from_state"] == "A"))
+    n_ba = int(np.count_nonzero(paths["from_state"] == "B"))
+    rate_ab = _rate("A", "B", n_ab, exp_a, dwells, confidence)
+    rate_ba = _rate("B", "A", n_ba, exp_b, dwells, confidence)
+
+    # Transition-path times.
+    dts = np.array([r.dt_ps for r in reps])
+    dt = float(np.median(dts))
+    dur = paths["duration_ps"]
+    dt_of_path = dts[paths["replica"]] if paths.size else np.zeros(0)
+    if dur.size:
+        path_times = PathTimes(
+            n=int(dur.size), mean_ps=float(dur.mean()),
+            sem_ps=float(dur.std(ddof=1) / math.sqrt(dur.size)) if dur.size > 1 else float("nan"),
+            median_ps=float(np.median(dur)), std_ps=float(dur.std(ddof=1)) if dur.size > 1 else float("nan"),
+            mean_frames=float(np.mean(dur / dt_of_path)), median_frames=float(np.median(dur / dt_of_path)))
+    else:
+        nan = float("nan")
+        path_times = PathTimes(0, nan, nan, nan, nan, nan, nan)
+
+    # Counting transmission coefficient.
+    known = events["kind"] != "censored"
+    up = known & (events["direction"] > 0)
+    down = known & (events["direction"] < 0)
+    n_up, n_down = int(np.count_nonzero(up)), int(np.count_nonzero(down))
+    t_up = int(np.count_nonzero(up & (events["kind"] == "transition")))
+    t_down = int(np.count_nonzero(down & (events["kind"] == "transition")))
+    kc_up = t_up / n_up if n_up else float("nan")
+    kc_down = t_down / n_down if n_down else float("nan")
+    kc = (t_up + t_down) / (n_up + n_down) if (n_up + n_down) else float("nan")
+
+    # Reactive flux kappa(t).
+    if kappa_window_ps is None:
+        # Start after most transition paths (and so most recrossing excursions) are over.
+        base = float(np.percentile(dur, 90)) if path_times.n else 10.0 * dt
+        w0 = max(base, 10.0 * dt)
+        w1 = max(2.0 * w0, 20.0 * dt)
+    else:
+        w0, w1 = float(kappa_window_ps[0]), float(kappa_window_ps[1])
+        if not 0 <= w0 < w1:
+            raise AnalysisError(f"the kappa window must be 0 <= t1 < t2 (got {w0:g}, {w1:g} ps)")
+    longest = max(r.n for r in reps)
+    n_lags = int(min(max(2, math.ceil(w1 / dt) + 1), max(2, longest // 2)))
+    same_dt = bool(np.allclose(dts, dt, rtol=1e-3))
+    if not same_dt:
+        warnings.append("replicas have different frame spacings: kappa(t) uses only those with the "
+                        f"median spacing {dt:.4g} ps")
+    up_num = np.zeros(n_lags)
+    up_den = np.zeros(n_lags)
+    dn_num = np.zeros(n_lags)
+    dn_den = np.zeros(n_lags)
+    f_sum = 0.0
+    f_n = 0
+    for k, (tr, r) in enumerate(zip(trs, reps)):
+        if not math.isclose(r.dt_ps, dt, rel_tol=1e-3):
+            continue
+        a, b, c, d = reactive_flux(tr.values, r.crossing_i0, r.events["direction"], surface=surface,
+                                   n_lags=n_lags)
+        up_num += a
+        up_den += b
+        dn_num += c
+        dn_den += d
+        f_sum += float(r.crossing_f.sum())
+        f_n += int(r.crossing_f.size)
+        yield Progress(1 + len(trs) + k, total, "crossings: reactive flux")
+    mean_f = f_sum / f_n if f_n else 0.5
+    lag = (np.arange(n_lags) + 1.0 - mean_f) * dt
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k_up = up_num / up_den
+        k_dn = dn_num / dn_den
+        k_all = (up_num + dn_num) / (up_den + dn_den)
+    relax = (rate_ab.rate_per_ps if not rate_ab.upper_bound_only else 0.0) + \
+            (rate_ba.rate_per_ps if not rate_ba.upper_bound_only else 0.0)
+    if not math.isfinite(relax):
+        relax = 0.0
+    win = (lag >= w0) & (lag <= w1) & np.isfinite(k_all)
+    if not np.any(win):
+        win = np.isfinite(k_all) & (lag >= lag[-1] / 2)
+    plateau_raw = float(np.mean(k_all[win])) if np.any(win) else float("nan")
+    plateau = float(np.mean((k_all * np.exp(relax * lag))[win])) if np.any(win) else float("nan")
+    kappa = TransmissionCoefficient(
+        counting_up=kc_up, counting_down=kc_down, counting=kc, n_crossings_up=n_up, n_crossings_down=n_down,
+        lag_ps=lag, kappa_up=k_up, kappa_down=k_dn, kappa=k_all, n_used=up_den + dn_den,
+        plateau_window_ps=(float(w0), float(w1)), plateau=plateau, plateau_raw=plateau_raw,
+        relaxation_rate_per_ps=relax,
+        assumptions=(
+            "reactive flux from the run's own crossings (Bennett 1977; Chandler 1978): the run is in "
+            "equilibrium and long enough that its crossings sample the flux through the surface; the "
+            "plateau lies between the barrier-crossing time and 1/k, and kappa(t) is multiplied by "
+            "exp((k_AB + k_BA) t) to undo the slow two-state relaxation (Chandler 1978); recrossings "
+            "faster than the frame spacing are not seen (kappa is then biased high)"
+        ),
+    )
+
+    # TST from the run's own distribution of q.
+    tst_cmp: TSTComparison | None = None
+    pooled_q = np.concatenate([tr.values for tr in trs])
+    pooled_v = np.concatenate([tr.velocity for tr in trs]) if all(with_vel) else None  # type: ignore[misc]
+    try:
+        tst = tst_rate(pooled_q, surface=surface, unit=unit, qdot=pooled_v, kT_over_m_eff=kT_over_m_eff)
+    except AnalysisError as exc:
+        warnings.append(f"no TST estimate: {exc}")
+        tst = None
+    if tst is not None and math.isfinite(tst.flux_factor_unit_per_ps):
+        ka = rate_ab.rate_per_ps / tst.rate_up_per_ps if tst.rate_up_per_ps > 0 else float("nan")
+        kb = rate_ba.rate_per_ps / tst.rate_down_per_ps if tst.rate_down_per_ps > 0 else float("nan")
+        tst_cmp = TSTComparison(
+            tst=tst, kappa_up=float(ka), kappa_down=float(kb),
+            note="k / k_TST uses the committed-state rates and the TST rate of the same surface; it should "
+                 "agree with the reactive-flux plateau when the cores are well separated from the barrier",
+        )
+    elif tst is not None:
+        warnings.append("no TST estimate: neither velocities nor kT/m_eff are known")
+    yield Progress(total - 1, total, "crossings: dwell tests")
+
+    # Dwell-time tests and verdicts.
+    tests: dict[str, ExponentialTest] = {}
+    verdicts: list[Verdict] = []
+    n_rare = min(n_ab, n_ba)
+    verdicts.append(judge(
+        "crossings.few_transitions", float(n_rare), title="Number of transitions", unit="transitions",
+        message=f"{n_ab} A->B and {n_ba} B->A transitions (core A: q <= {a_hi:g}, core B: q >= {b_lo:g} "
+                f"{unit}); the rarer direction sets the precision of the rates".replace("  ", " "),
+        advice="run longer or pool replicas; rates with no transition are upper bounds",
+        details={"n_ab": n_ab, "n_ba": n_ba},
+    ))
+    if test_dwells:
+        for st in STATE_CODES:
+            sel = dwells[(dwells["state"] == st) & ~dwells["censored_start"] & ~dwells["censored_end"]]
+            test = exponential_ks_test(sel["duration_ps"])
+            tests[st] = test
+            if math.isfinite(test.p_value):
+                v = judge(
+                    "crossings.dwell_exponential", test.p_value, title=f"Dwell times in {st} exponential",
+                    unit="p-value",
+                    message=f"{test.n} completed dwells in {st}: KS distance {test.statistic:.3f} to an "
+                            f"exponential of mean {test.mean_ps:.4g} ps, p = {test.p_value:.3g} "
+                            f"(Lilliefors), coefficient of variation {test.cv:.2f} (1 for an exponential)",
+                    advice="see the explanation of crossings.dwell_exponential",
+                    details={"state": st, "n": test.n},
+                )
+                verdicts.append(v)
+                if v.level != "ok":
+                    warnings.append(f"dwell times in {st} do not look exponential (p = {test.p_value:.3g}, "
+                                    f"CV = {test.cv:.2f}): a single rate may not describe {st}")
+    if path_times.n:
+        verdicts.append(judge(
+            "crossings.path_resolution", path_times.median_frames, title="Time resolution of paths",
+            unit="frames",
+            message=f"median transition path spans {path_times.median_frames:.1f} frames "
+                    f"({path_times.median_ps:.4g} ps at {dt:.4g} ps per frame)",
+            advice="recrossings faster than a frame are invisible; save frames more often",
+        ))
+    if rate_ab.upper_bound_only or rate_ba.upper_bound_only:
+        warnings.append("no transition in at least one direction: that rate is an upper bound, not zero")
+
+    settings = CrossingSettings(
+        a_hi=a_hi, b_lo=b_lo, surface=surface, unit=unit, states_source=source, confidence=confidence,
+        kappa_window_ps=None if kappa_window_ps is None else (float(w0), float(w1)), temperature_K=temperature_K,
+    )
+    yield Progress(total, total, "crossings: done")
+    return CrossingsResult(
+        settings=settings, n_replicas=len(trs), n_samples=int(sum(r.n for r in reps)),
+        total_time_ps=float(sum(r.time_span_ps for r in reps)),
+        unassigned_time_ps=float(sum(r.unassigned_ps for r in reps)), frame_spacing_ps=dt,
+        events=events, paths=paths, dwells=dwells, velocity_source=vsource,
+        velocity_unit=f"{unit}/ps" if unit else "1/ps", rate_ab=rate_ab, rate_ba=rate_ba,
+        path_times=path_times, kappa=kappa, tst=tst_cmp, dwell_tests=tests, suggestion=suggestion,
+        verdicts=tuple(verdicts), warnings=tuple(warnings),
+        replica_names=tuple(tr.name for tr in trs),
+    )
+
+
+def pool_crossings(traces: Sequence[Any], **settings: Any) -> CrossingsResult:
+    """:func:`crossings_work` run to the end (no progress display). Same keyword-only settings."""
+    return result_of(crossings_work(traces, **settings))
+
+
+def analyse_crossings(time_ps: np.ndarray, q: np.ndarray, qdot: np.ndarray | None = None, *,
+                      states: tuple[float, float] | None = None, surface: float | None = None,
+                      unit: str = "", confidence: float = 0.95,
+                      kappa_window_ps: tuple[float, float] | None = None,
+                      temperature_K: float | None = None, kT_over_m_eff: float | None = None,
+                      test_dwells: bool = True) -> CrossingsResult:
+    """One replica: time_ps (n,) ps, q (n,) unit, qdot (n,) unit/ps or None. See :func:`crossings_work`."""
+    return result_of(crossings_work(
+        [Trace(np.asarray(time_ps, float), np.asarray(q, float),
+               None if qdot is None else np.asarray(qdot, float))],
+        states=states, surface=surface, unit=unit, confidence=confidence, kappa_window_ps=kappa_window_ps,
+        temperature_K=temperature_K, kT_over_m_eff=kT_over_m_eff, test_dwells=test_dwells))
+
+
+# --------------------------------------------------------------------------------------------------
+# Run adapter
+# --------------------------------------------------------------------------------------------------
+
+MOLAR_GAS_CONSTANT_KJ_PER_MOL_K = 0.00831446261815324  # k_B N_A (CODATA 2018, exact)
+
+
+def crossings_of_runs(
+    runs: Run | Sequence[Run],
+    coordinate: str,
+    *,
+    states: tuple[float, float] | None = None,
+    surface: float | None = None,
+    confidence: float = 0.95,
+    kappa_window_ps: tuple[float, float] | None = None,
+    temperature_K: float | None = None,
+    chunk_frames: int | None = None,
+) -> Work[CrossingsResult]:
+    """Crossings of ``coordinate`` (a coordinate spec, e.g. ``"distance(0, 1)"``) in one or more runs.
+
+    Each run is a replica; their events pool. The coordinate and dq/dt come from
+    :func:`phasewake.core.coordinates.compute_coordinates`, read chunk by chunk. Temperature (for the
+    TST flux factor when there are no velocities) defaults to the first run's thermostat target.
+    """
+    from phasewake.core.coordinates import compute_coordinates
+
+    run_list: list[Run] = [runs] if not isinstance(runs, Sequence) else list(runs)
+    if not run_list:
+        raise AnalysisError("no run given")
+    series = []
+    for k, run in enumerate(run_list):
+        work = compute_coordinates(run, [coordinate], chunk_frames=chunk_frames)
+        try:
+            while True:
+                p = next(work)
+                yield Progress(k + (p.fraction or 0.0), len(run_list) + 1,
+                               f"{run.name}: {p.message}" if p.message else run.name)
+        except StopIteration as stop:
+            series.append(stop.value[0])
+    temp = temperature_K if temperature_K is not None else run_list[0].metadata.temperature_K
+    kt_m: float | None = None
+    s0 = series[0]
+    if temp is not None and s0.m_eff is not None and np.all(np.isfinite(s0.m_eff)):
+        kt = MOLAR_GAS_CONSTANT_KJ_PER_MOL_K * float(temp)
+        kt_m = float(kt * np.mean(1.0 / np.concatenate([s.m_eff for s in series])))
+    traces = [as_trace(s, name=run.name) for s, run in zip(series, run_list)]
+    inner = crossings_work(traces, states=states, surface=surface, unit=s0.unit, confidence=confidence,
+                           kappa_window_ps=kappa_window_ps, temperature_K=temp, kT_over_m_eff=kt_m)
+    try:
+        while True:
+            p = next(inner)
+            yield Progress(len(run_list) + (p.fraction or 0.0), len(run_list) + 1, p.message)
+    except StopIteration as stop:
+        result: CrossingsResult = stop.value
+    return result
