@@ -1,0 +1,799 @@
+"""Velocity autocorrelation, diffusion (Green-Kubo and mean-squared displacement), vibrational spectrum.
+
+Everything streams over frame chunks with bounded memory. The correlation over time origins is
+accumulated block by block: frames are cut into consecutive blocks of L frames (L = the lag window);
+the contribution of the origins in block b to lags 0..L-1 is the FFT cross-correlation of block b with
+the concatenation (block b, block b+1), zero-padded to 2L, so there is no circular wrap-around. Only
+one block and the transform of the previous one are held (about 3 L n_atoms 3 floats), and the exact
+sum over all origins is recovered.
+The spectrum is then the Fourier transform of the averaged, windowed VACF (Wiener-Khinchin).
+
+Methods and papers:
+
+* Green-Kubo: D = (1/d) int_0^T <v(0).v(t)> dt (M. S. Green, J. Chem. Phys. 22, 398 (1954);
+  R. Kubo, J. Phys. Soc. Jpn. 12, 570 (1957)); the upper limit T is chosen where the VACF has
+  decayed into its own noise and stays there, and is reported.
+* Einstein: MSD(t) -> 2 d D t; MSD by the same block correlation of unwrapped positions
+  (MSD(k) = <r(t+k)^2> + <r(t)^2> - 2 <r(t).r(t+k)>, the decomposition of V. Calandrini,
+  E. Pellegrini, P. Calligari, K. Hinsen, G. R. Kneller, Collection SFN 12, 201 (2011)).
+* Finite-size correction: D0 = D_PBC + xi kT / (6 pi eta L), xi = 2.837297 (I.-C. Yeh and
+  G. Hummer, J. Phys. Chem. B 108, 15873 (2004)).
+* Vibrational density of states from the mass-weighted VACF, normalised to the number of degrees
+  of freedom (J. M. Dickey and A. Paskin, Phys. Rev. 188, 1407 (1969); P. H. Berens, D. H. J.
+  Mackay, G. M. White, K. R. Wilson, J. Chem. Phys. 79, 2375 (1983)); a Hann lag window against
+  leakage (common practice).
+
+Units: velocities nm/ps, masses amu, time ps; amu nm^2/ps^2 = kJ/mol; D in nm^2/ps
+(1 nm^2/ps = 1e-6 m^2/s = 1e-2 cm^2/s); wavenumbers cm^-1 (exact c), frequencies THz.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
+from phasewake.core.progress import Progress, Work
+
+if TYPE_CHECKING:
+    from phasewake.core.run import Run
+
+SPEED_OF_LIGHT_CM_PER_S = 2.99792458e10  # exact (SI 2019)
+PS_PER_S = 1e12
+BOLTZMANN_KJ_PER_MOL_K = 0.00831446261815324  # N_A k_B, exact since SI 2019
+YEH_HUMMER_XI = 2.837297  # Yeh & Hummer (2004), cubic box
+NM2_PER_PS_TO_CM2_PER_S = 1e-2
+
+DEFAULT_BUFFER_BYTES = 256 * 2**20
+_FFT_BATCH_BYTES = 48 * 2**20
+
+
+def wavenumber_cm1_from_thz(f_thz: float) -> float:
+    """Wavenumber (cm^-1) of a frequency in THz: nu~ = f / c."""
+    return float(f_thz) * 1e12 / SPEED_OF_LIGHT_CM_PER_S
+
+
+def nyquist_cm1(dt_ps: float) -> float:
+    """Highest wavenumber a sampling interval can represent: 1 / (2 c dt)."""
+    return 1.0 / (2.0 * SPEED_OF_LIGHT_CM_PER_S * dt_ps / PS_PER_S)
+
+
+# ---------------------------------------------------------------------------------------------------
+# The streaming block correlator
+# ---------------------------------------------------------------------------------------------------
+
+
+class BlockCorrelator:
+    """Sum over time origins of a(t) . a(t + k), k = 0..L-1, per atom group, fed chunk by chunk.
+
+    Frames are collected into blocks of ``B >= L`` frames (B a fast FFT length). The FFT of each block,
+    zero-padded to 2B, is computed once; the FFT of the pair (block b, block b+1) is
+    F_b + (-1)^j F_{b+1} (a shift by B = half the FFT length), so the contribution of block b's origins,
+    conj(F_b) (F_b + (-1)^j F_{b+1}), costs one FFT per block. Products are summed over components and
+    atoms (weighted, per group) in the frequency domain; one inverse FFT at the end.
+
+    Parameters
+    ----------
+    n_atoms : int
+    max_lag : int
+        L, the number of lags (0..L-1), in frames.
+    weights : ndarray, shape (n_atoms,)
+        Per-atom weight (masses for mass weighting, ones otherwise).
+    group_of_atom : ndarray of int, shape (n_atoms,)
+        Group index of each atom (0..n_groups-1), or -1 for atoms not used.
+    n_groups : int
+    dtype : numpy dtype
+        Precision of the FFT (float32 is enough for velocities; positions use float64).
+
+    ``update(block)`` takes arrays of shape (n, n_atoms, 3); ``finish()`` returns the sums, shape
+    (n_groups, L), and the number of origins per lag, shape (L,).
+    """
+
+    def __init__(self, *, n_atoms: int, max_lag: int, weights: np.ndarray, group_of_atom: np.ndarray,
+                 n_groups: int, dtype: Any = np.float32) -> None:
+        import scipy.fft
+
+        if max_lag < 1:
+            raise AnalysisError("the lag window must hold at least one lag")
+        self.n_atoms = int(n_atoms)
+        self.L = int(max_lag)
+        self.B = int(scipy.fft.next_fast_len(self.L, real=True))
+        self.nfft = 2 * self.B
+        self.dtype = np.dtype(dtype)
+        self._cdtype = np.result_type(self.dtype, np.complex64)
+        lab = np.asarray(group_of_atom)
+        used = np.flatnonzero(lab >= 0)
+        self._all = used.size == lab.size
+        self._atoms = used
+        w = np.asarray(weights, dtype=np.float64)[used]
+        self.n_groups = int(n_groups)
+        onehot = np.zeros((used.size, self.n_groups))
+        onehot[np.arange(used.size), lab[used]] = w
+        self._onehot3 = np.repeat(onehot, 3, axis=0).astype(self.dtype)  # (3 n_used, n_groups)
+        self._ncol = 3 * used.size
+        self._nfreq = self.B + 1
+        self._sign = np.where(np.arange(self._nfreq) % 2 == 0, 1.0, -1.0).astype(self.dtype)
+        self._onehot3t = np.ascontiguousarray(self._onehot3.T)  # (n_groups, 3 n_used)
+        self._fprev: np.ndarray | None = None
+        self._cur = np.zeros((self._ncol, self.B), dtype=self.dtype)  # time last: contiguous FFTs
+        self._fill = 0
+        self.n_frames = 0
+        self._acc = np.zeros((self.n_groups, self._nfreq), dtype=np.complex128)
+        per_col = self.nfft * self.dtype.itemsize * 6
+        self._batch = int(max(3, min(self._ncol, (_FFT_BATCH_BYTES // per_col) // 3 * 3)))
+
+    @staticmethod
+    def buffer_bytes(n_atoms: int, max_lag: int, dtype: Any = np.float32) -> int:
+        """Memory the block buffer and the previous block's transform need (bytes)."""
+        return 3 * int(max_lag) * int(n_atoms) * 3 * np.dtype(dtype).itemsize
+
+    def update(self, block: np.ndarray) -> None:
+        data = np.asarray(block)
+        if not self._all:
+            data = data[:, self._atoms, :]
+        data = data.reshape(data.shape[0], -1)
+        i = 0
+        n = data.shape[0]
+        while i < n:
+            take = min(self.B - self._fill, n - i)
+            self._cur[:, self._fill : self._fill + take] = data[i : i + take].T
+            self._fill += take
+            i += take
+            self.n_frames += take
+            if self._fill == self.B:
+                self._push(self._cur)
+                self._fill = 0
+
+    def _push(self, block: np.ndarray | None) -> None:
+        """Transform ``block`` (None: no more data) and add the previous block's origins."""
+        import scipy.fft
+
+        fnew = None
+        if block is not None:
+            fnew = np.empty((self._ncol, self._nfreq), dtype=self._cdtype)
+            for b0 in range(0, self._ncol, self._batch):
+                b1 = min(self._ncol, b0 + self._batch)
+                fnew[b0:b1] = scipy.fft.rfft(block[b0:b1], n=self.nfft, axis=-1, workers=2)
+        if self._fprev is not None:
+            for b0 in range(0, self._ncol, self._batch):
+                b1 = min(self._ncol, b0 + self._batch)
+                fp = self._fprev[b0:b1]
+                fw = fp if fnew is None else fp + self._sign * fnew[b0:b1]
+                self._acc += self._onehot3t[:, b0:b1] @ (np.conj(fp) * fw)
+        self._fprev = fnew
+
+    def finish(self) -> tuple[np.ndarray, np.ndarray]:
+        import scipy.fft
+
+        if self._fill:
+            tail = self._cur.copy()
+            tail[:, self._fill :] = 0
+            self._push(tail)
+            self._fill = 0
+        self._push(None)
+        sums = scipy.fft.irfft(self._acc, n=self.nfft, axis=-1)[:, : self.L]
+        counts = np.maximum(self.n_frames - np.arange(self.L), 0).astype(float)
+        return np.ascontiguousarray(sums), counts
+
+
+# ---------------------------------------------------------------------------------------------------
+# Groups
+# ---------------------------------------------------------------------------------------------------
+
+
+def _group_labels(n_atoms: int, groups: Mapping[str, Sequence[int] | np.ndarray] | None
+                  ) -> tuple[np.ndarray, tuple[str, ...], np.ndarray]:
+    """group_of_atom (n_atoms,), names, atom counts. Groups must not overlap."""
+    if not groups:
+        return np.zeros(n_atoms, dtype=np.int64), ("all",), np.array([n_atoms])
+    lab = np.full(n_atoms, -1, dtype=np.int64)
+    names = []
+    sizes = []
+    for gi, (name, idx) in enumerate(groups.items()):
+        ix = np.asarray(idx, dtype=np.int64)
+        if ix.size == 0:
+            raise AnalysisError(f"the atom group {name!r} is empty")
+        if ix.min() < 0 or ix.max() >= n_atoms:
+            raise AnalysisError(f"the atom group {name!r} has indices outside 0..{n_atoms - 1}")
+        if np.any(lab[ix] >= 0):
+            raise AnalysisError(f"the atom group {name!r} overlaps an earlier group")
+        lab[ix] = gi
+        names.append(str(name))
+        sizes.append(ix.size)
+    return lab, tuple(names), np.array(sizes)
+
+
+# ---------------------------------------------------------------------------------------------------
+# VACF
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class VACFResult:
+    """Velocity autocorrelation per atom group, averaged over atoms and time origins.
+
+    vacf : (n_groups, L) in ``unit``: <v_i(0).v_i(t)> (nm^2/ps^2), or <m_i v_i(0).v_i(t)>
+        (amu nm^2/ps^2 = kJ/mol) when mass weighted; one atom's average.
+    vacf_sum : (n_groups, L) the sum over the group's atoms of the same (for the VDOS).
+    """
+
+    lag_ps: np.ndarray  # (L,)
+    vacf: np.ndarray  # (n_groups, L)
+    vacf_sum: np.ndarray  # (n_groups, L)
+    unit: str
+    groups: tuple[str, ...]
+    n_atoms_per_group: np.ndarray  # (n_groups,)
+    mass_weighted: bool
+    n_frames: int
+    dt_ps: float
+    velocities_estimated: bool = False
+    settings: dict[str, Any] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+
+    @property
+    def normalised(self) -> np.ndarray:
+        """vacf / vacf[:, :1] (dimensionless)."""
+        return self.vacf / self.vacf[:, :1]
+
+
+def _default_lag(n_frames: int, n_atoms: int, max_buffer_bytes: int, dtype: Any = np.float32
+                 ) -> tuple[int, list[str]]:
+    notes = []
+    lag = max(1, n_frames // 2)
+    cap = max(2, int(max_buffer_bytes // max(1, BlockCorrelator.buffer_bytes(n_atoms, 1, dtype))))
+    if lag > cap:
+        notes.append(f"the lag window was limited to {cap} frames to keep memory under "
+                     f"{max_buffer_bytes / 2**20:.0f} MiB; choose fewer atoms or a larger buffer for a finer "
+                     "spectral resolution")
+        lag = cap
+    return lag, notes
+
+
+def _vacf_finish(corr: BlockCorrelator, *, sizes: np.ndarray, names: tuple[str, ...], dt_ps: float,
+                 mass_weighted: bool, estimated: bool, settings: dict[str, Any], notes: list[str]) -> VACFResult:
+    sums, counts = corr.finish()
+    if corr.n_frames < 2:
+        raise TooShortError("a velocity autocorrelation", have=corr.n_frames, need=2)
+    ok = counts > 0
+    sums = sums[:, ok]
+    counts = counts[ok]
+    vsum = sums / counts
+    if estimated:
+        notes.append("velocities were estimated from positions by finite differences: the VACF and spectrum "
+                     "are damped at high frequencies")
+    return VACFResult(
+        lag_ps=np.arange(vsum.shape[1]) * dt_ps,
+        vacf=vsum / sizes[:, None],
+        vacf_sum=vsum,
+        unit="kJ/mol" if mass_weighted else "nm^2/ps^2",
+        groups=names,
+        n_atoms_per_group=sizes,
+        mass_weighted=mass_weighted,
+        n_frames=corr.n_frames,
+        dt_ps=float(dt_ps),
+        velocities_estimated=estimated,
+        settings=settings,
+        notes=tuple(notes),
+    )
+
+
+def vacf_from_velocities(
+    velocities_nm_per_ps: np.ndarray,
+    dt_ps: float,
+    *,
+    masses_amu: np.ndarray | None = None,
+    mass_weighted: bool = False,
+    groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+    max_lag: int | None = None,
+) -> VACFResult:
+    """VACF of an in-memory velocity array.
+
+    Parameters
+    ----------
+    velocities_nm_per_ps : ndarray, shape (F, N, 3), nm/ps
+    dt_ps : float
+        Frame spacing (ps).
+    masses_amu : ndarray, shape (N,), amu
+        Needed when ``mass_weighted``.
+    mass_weighted : bool
+        Weight each atom by its mass (then the VACF is in kJ/mol, C(0) = 3 kT per atom).
+    groups : mapping name -> atom indices, optional
+        Non-overlapping groups; default one group "all".
+    max_lag : int, optional
+        Number of lags L (frames); default F // 2.
+
+    Returns
+    -------
+    VACFResult
+    """
+    v = np.asarray(velocities_nm_per_ps)
+    if v.ndim != 3 or v.shape[2] != 3:
+        raise AnalysisError("velocities must have shape (n_frames, n_atoms, 3)")
+    f, n = v.shape[:2]
+    if f < 4:
+        raise TooShortError("a velocity autocorrelation", have=int(f), need=4)
+    if mass_weighted and masses_amu is None:
+        raise AnalysisError("mass weighting needs the masses")
+    lab, names, sizes = _group_labels(n, groups)
+    lag = max(1, f // 2) if max_lag is None else int(max(1, min(max_lag, f)))
+    w = np.asarray(masses_amu, float) if mass_weighted and masses_amu is not None else np.ones(n)
+    corr = BlockCorrelator(n_atoms=n, max_lag=lag, weights=w, group_of_atom=lab, n_groups=len(names))
+    for i in range(0, f, 4096):
+        corr.update(v[i : i + 4096])
+    return _vacf_finish(corr, sizes=sizes, names=names, dt_ps=dt_ps, mass_weighted=mass_weighted,
+                        estimated=False, settings={"max_lag": lag, "mass_weighted": mass_weighted}, notes=[])
+
+
+def _frame_spacing(run: Run, start: int, stop: int | None, stride: int) -> float:
+    t = np.asarray(run.time_ps)[start:stop:stride]
+    if t.size < 2:
+        raise TooShortError("a time-correlation analysis", have=int(t.size), need=2)
+    d = np.diff(t)
+    dt = float(np.median(d))
+    if not dt > 0 or np.max(np.abs(d - dt)) > 1e-3 * dt + 1e-9:
+        raise AnalysisError("frames are not evenly spaced in time: correlations need a uniform time axis",
+                            path=run.paths[0] if run.paths else None)
+    return dt
+
+
+def vacf(
+    run: Run,
+    *,
+    groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+    mass_weighted: bool = False,
+    max_lag_ps: float | None = None,
+    start: int = 0,
+    stop: int | None = None,
+    stride: int = 1,
+    chunk_frames: int = 256,
+    max_buffer_bytes: int = DEFAULT_BUFFER_BYTES,
+) -> Work[VACFResult]:
+    """Streaming VACF of a run (generator: yields Progress, returns VACFResult).
+
+    Parameters
+    ----------
+    run : Run
+        Must have velocities (stored or estimated).
+    groups : mapping name -> atom indices, optional
+        Default: one group of all atoms.
+    mass_weighted : bool
+    max_lag_ps : float, optional
+        Lag window (ps); default half the analysed time, capped so the two blocks fit
+        ``max_buffer_bytes``.
+    start, stop, stride : int
+        Frames analysed.
+    chunk_frames : int
+        Frames read at a time.
+    max_buffer_bytes : int
+        Memory allowed for the two blocks of frames.
+    """
+    if run.frames is None or not run.frames.has_velocities:
+        raise MissingDataError("the run holds no velocities (and none can be estimated)",
+                               path=run.paths[0] if run.paths else None)
+    dt = _frame_spacing(run, start, stop, stride)
+    n_sel = len(range(start, run.frames.n_frames if stop is None else min(stop, run.frames.n_frames), stride))
+    lab, names, sizes = _group_labels(run.n_atoms, groups)
+    used = np.flatnonzero(lab >= 0)
+    notes: list[str] = []
+    if max_lag_ps is None:
+        lag, notes = _default_lag(n_sel, used.size, max_buffer_bytes)
+    else:
+        lag = int(max(1, min(round(max_lag_ps / dt), n_sel)))
+        need = BlockCorrelator.buffer_bytes(used.size, lag)
+        if need > 4 * max_buffer_bytes:
+            from phasewake.core.errors import ResourceError
+
+            raise ResourceError(f"a lag window of {max_lag_ps} ps over {used.size} atoms needs "
+                                f"{need / 2**30:.1f} GiB; choose fewer atoms or a shorter window")
+    w = np.asarray(run.masses_amu, float)[used] if mass_weighted else np.ones(used.size)
+    corr = BlockCorrelator(n_atoms=used.size, max_lag=lag, weights=w, group_of_atom=lab[used],
+                           n_groups=len(names))
+    done = 0
+    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                        atom_indices=used, velocities=True):
+        if chunk.velocities_nm_per_ps is None:
+            raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
+        corr.update(chunk.velocities_nm_per_ps)
+        done += chunk.n_frames
+        yield Progress(done, n_sel, "velocity autocorrelation")
+    settings = {"groups": {k: len(v) for k, v in (groups or {}).items()}, "mass_weighted": mass_weighted,
+                "max_lag": lag, "start": start, "stop": stop, "stride": stride}
+    return _vacf_finish(corr, sizes=sizes, names=names, dt_ps=dt, mass_weighted=mass_weighted,
+                        estimated=bool(run.frames.velocities_estimated), settings=settings, notes=notes)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Green-Kubo
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class GreenKuboResult:
+    """D = (1/d) int_0^limit VACF dt for one group."""
+
+    group: str
+    diffusion_nm2_per_ps: float
+    diffusion_cm2_per_s: float
+    limit_ps: float
+    limit_rule: str  # "user" or how it was chosen
+    noise_nm2_per_ps2: float  # noise level of the VACF used by the rule
+    running_integral_nm2_per_ps: np.ndarray  # (L,) (1/d) cumulative integral
+    lag_ps: np.ndarray  # (L,)
+    dimensions: int
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def green_kubo(result: VACFResult, *, group: int | str = 0, limit_ps: float | None = None,
+               dimensions: int = 3, noise_sigmas: float = 3.0, hold_fraction: float = 0.1) -> GreenKuboResult:
+    """Diffusion coefficient from the (not mass-weighted) VACF by Green-Kubo.
+
+    The integration limit, unless given: the first lag after which |VACF| stays within
+    ``noise_sigmas`` times the noise level for ``hold_fraction`` of the lag window; the noise level is
+    the standard deviation of the VACF over the last quarter of the window (common practice: the tail
+    is assumed decorrelated). Trapezoidal integration.
+
+    Returns
+    -------
+    GreenKuboResult
+    """
+    if result.mass_weighted:
+        raise AnalysisError("Green-Kubo diffusion needs the VACF without mass weighting")
+    gi = result.groups.index(group) if isinstance(group, str) else int(group)
+    c = result.vacf[gi]
+    t = result.lag_ps
+    if c.size < 8:
+        raise TooShortError("a Green-Kubo integral", have=int(c.size), need=8)
+    dt = result.dt_ps
+    running = np.concatenate([[0.0], np.cumsum(0.5 * (c[1:] + c[:-1]) * dt)]) / dimensions
+    tail = c[-max(4, c.size // 4):]
+    noise = float(np.std(tail))
+    if limit_ps is not None:
+        k = int(min(c.size - 1, max(1, round(limit_ps / dt))))
+        rule = "user"
+    else:
+        inside = np.abs(c) <= noise_sigmas * noise
+        hold = max(1, int(hold_fraction * c.size))
+        # run[k] = number of consecutive "inside" lags starting at k
+        run_len = np.zeros(c.size + 1, dtype=np.int64)
+        for_inside = inside[::-1]
+        acc = 0
+        tmp = np.empty(c.size, dtype=np.int64)
+        for j, flag in enumerate(for_inside):  # O(L), L is a lag window (<= ~1e5)
+            acc = acc + 1 if flag else 0
+            tmp[j] = acc
+        run_len[:-1] = tmp[::-1]
+        ok = np.flatnonzero(run_len[:-1] >= np.minimum(hold, c.size - np.arange(c.size)))
+        ok = ok[ok > 0]
+        k = int(ok[0]) if ok.size else c.size - 1
+        rule = (f"first lag where |VACF| stays within {noise_sigmas:g} x noise for {hold} lags"
+                if ok.size else "end of the lag window (the VACF did not decay into its noise)")
+    d = float(running[k])
+    return GreenKuboResult(
+        group=result.groups[gi], diffusion_nm2_per_ps=d, diffusion_cm2_per_s=d * NM2_PER_PS_TO_CM2_PER_S,
+        limit_ps=float(t[k]), limit_rule=rule, noise_nm2_per_ps2=noise, running_integral_nm2_per_ps=running,
+        lag_ps=t, dimensions=dimensions,
+        settings={"limit_ps": limit_ps, "noise_sigmas": noise_sigmas, "hold_fraction": hold_fraction},
+    )
+
+
+def yeh_hummer_correction_nm2_per_ps(*, temperature_K: float, viscosity_mPa_s: float, box_edge_nm: float) -> float:
+    """Yeh-Hummer finite-size correction xi kT / (6 pi eta L) (nm^2/ps), cubic box.
+
+    Yeh and Hummer, J. Phys. Chem. B 108, 15873 (2004); xi = 2.837297. Use the viscosity of the
+    simulated model, not of experiment.
+    """
+    if not (temperature_K > 0 and viscosity_mPa_s > 0 and box_edge_nm > 0):
+        raise AnalysisError("the Yeh-Hummer correction needs positive temperature, viscosity and box edge")
+    kt_j = 1.380649e-23 * temperature_K
+    d_m2_s = YEH_HUMMER_XI * kt_j / (6.0 * math.pi * viscosity_mPa_s * 1e-3 * box_edge_nm * 1e-9)
+    return d_m2_s * 1e6  # m^2/s -> nm^2/ps
+
+
+# ---------------------------------------------------------------------------------------------------
+# MSD
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class MSDResult:
+    """Mean-squared displacement per group with the Einstein D from a linear fit."""
+
+    lag_ps: np.ndarray  # (L,)
+    msd_nm2: np.ndarray  # (n_groups, L)
+    groups: tuple[str, ...]
+    diffusion_nm2_per_ps: np.ndarray  # (n_groups,) slope / (2 d)
+    fit_range_ps: tuple[float, float]
+    dimensions: int
+    unwrapped: bool
+    n_frames: int
+    dt_ps: float
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+class _Unwrapper:
+    """Unwrap positions chunk by chunk: r_u(t) = r_u(t-1) + minimum_image(r(t) - r(t-1)), from r_u(0) = 0.
+
+    Displacements are taken relative to the first frame, which keeps the numbers small.
+    """
+
+    def __init__(self) -> None:
+        self.last: np.ndarray | None = None  # wrapped positions of the last frame seen
+        self.acc: np.ndarray | None = None  # unwrapped displacement of the last frame seen
+
+    def __call__(self, pos: np.ndarray, box: np.ndarray | None) -> np.ndarray:
+        from phasewake.core.coordinates import minimum_image
+
+        p = np.asarray(pos, dtype=np.float64)
+        if self.last is None:
+            prev = p[:1]
+            self.acc = np.zeros_like(p[0])
+        else:
+            prev = self.last[None]
+        steps = np.diff(np.concatenate([prev, p], axis=0), axis=0)  # (n, N, 3)
+        if box is not None:
+            steps = minimum_image(steps, np.asarray(box, dtype=np.float64))
+        assert self.acc is not None
+        out = self.acc + np.cumsum(steps, axis=0)
+        self.last = p[-1].copy()
+        self.acc = out[-1].copy()
+        return out
+
+
+def _msd_finish(corr: BlockCorrelator, sq: np.ndarray, *, names: tuple[str, ...], sizes: np.ndarray, dt: float,
+                fit_range_ps: tuple[float, float] | None, dimensions: int, unwrapped: bool,
+                settings: dict[str, Any]) -> MSDResult:
+    sums, counts = corr.finish()
+    f = corr.n_frames
+    if f < 4:
+        raise TooShortError("a mean-squared displacement", have=f, need=4)
+    L = sums.shape[1]
+    k = np.arange(L)
+    ok = counts > 0
+    # sum_{t=0}^{F-1-k} q(t+k) + q(t), from prefix sums of q (per group, per frame)
+    cs = np.concatenate([np.zeros((sq.shape[0], 1)), np.cumsum(sq, axis=1)], axis=1)
+    head = cs[:, np.maximum(f - k, 0)]  # sum_{t < F-k} q(t)
+    tailsum = cs[:, f:f + 1] - cs[:, np.minimum(k, f)]  # sum_{t >= k} q(t)
+    msd = np.where(ok, (head + tailsum - 2.0 * sums) / np.where(ok, counts, 1.0), np.nan) / sizes[:, None]
+    msd = msd[:, ok]
+    lag = k[ok] * dt
+    lo, hi = fit_range_ps if fit_range_ps is not None else (0.2 * lag[-1], 0.8 * lag[-1])
+    sel = (lag >= lo) & (lag <= hi)
+    if sel.sum() < 2:
+        raise AnalysisError(f"the MSD fit range {lo:g}-{hi:g} ps holds fewer than two lags")
+    A = np.vstack([lag[sel], np.ones(sel.sum())]).T
+    coef, *_ = np.linalg.lstsq(A, msd[:, sel].T, rcond=None)
+    return MSDResult(lag_ps=lag, msd_nm2=msd, groups=names, diffusion_nm2_per_ps=coef[0] / (2 * dimensions),
+                     fit_range_ps=(float(lo), float(hi)), dimensions=dimensions, unwrapped=unwrapped,
+                     n_frames=f, dt_ps=dt, settings=settings)
+
+
+def msd_from_positions(positions_nm: np.ndarray, dt_ps: float, *, box_nm: np.ndarray | None = None,
+                       groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+                       max_lag: int | None = None, fit_range_ps: tuple[float, float] | None = None,
+                       dimensions: int = 3) -> MSDResult:
+    """MSD of an in-memory position array, unwrapped with the box when given.
+
+    Parameters
+    ----------
+    positions_nm : ndarray, shape (F, N, 3), nm
+    dt_ps : float
+    box_nm : ndarray, shape (F, 3, 3) or (3, 3) or (3,), nm, optional
+    groups : mapping name -> atom indices, optional
+    max_lag : int, optional
+        Lags (frames), default F // 2.
+    fit_range_ps : (float, float), optional
+        Time range of the linear fit; default 20%-80% of the lag window.
+    """
+    p = np.asarray(positions_nm)
+    if p.ndim != 3 or p.shape[2] != 3:
+        raise AnalysisError("positions must have shape (n_frames, n_atoms, 3)")
+    f, n = p.shape[:2]
+    box = None
+    if box_nm is not None:
+        b = np.asarray(box_nm, float)
+        if b.shape == (3,):
+            b = np.diag(b)
+        box = np.broadcast_to(b, (f, 3, 3)) if b.shape == (3, 3) else b
+    lab, names, sizes = _group_labels(n, groups)
+    lag = max(1, f // 2) if max_lag is None else int(max(1, min(max_lag, f)))
+    corr = BlockCorrelator(n_atoms=n, max_lag=lag, weights=np.ones(n), group_of_atom=lab,
+                           n_groups=len(names), dtype=np.float64)
+    un = _Unwrapper()
+    r = un(p, box)
+    corr.update(r)
+    sq = _group_square_sums(r, lab, len(names))
+    return _msd_finish(corr, sq, names=names, sizes=sizes, dt=dt_ps, fit_range_ps=fit_range_ps,
+                       dimensions=dimensions, unwrapped=box is not None, settings={"max_lag": lag})
+
+
+def _group_square_sums(r: np.ndarray, lab: np.ndarray, n_groups: int) -> np.ndarray:
+    q = np.einsum("fnc,fnc->fn", r, r)  # (F, N)
+    out = np.zeros((n_groups, r.shape[0]))
+    for g in range(n_groups):
+        out[g] = q[:, lab == g].sum(axis=1)
+    return out
+
+
+def msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+        max_lag_ps: float | None = None, fit_range_ps: tuple[float, float] | None = None,
+        start: int = 0, stop: int | None = None, stride: int = 1, chunk_frames: int = 256,
+        max_buffer_bytes: int = DEFAULT_BUFFER_BYTES, dimensions: int = 3) -> Work[MSDResult]:
+    """Streaming MSD of a run, positions unwrapped with the box (generator returning MSDResult)."""
+    if run.frames is None:
+        raise MissingDataError("the run holds no frames", path=run.paths[0] if run.paths else None)
+    dt = _frame_spacing(run, start, stop, stride)
+    n_sel = len(range(start, run.frames.n_frames if stop is None else min(stop, run.frames.n_frames), stride))
+    lab, names, sizes = _group_labels(run.n_atoms, groups)
+    used = np.flatnonzero(lab >= 0)
+    if max_lag_ps is None:
+        lag, _ = _default_lag(n_sel, used.size, max_buffer_bytes, np.float64)
+    else:
+        lag = int(max(1, min(round(max_lag_ps / dt), n_sel)))
+    corr = BlockCorrelator(n_atoms=used.size, max_lag=lag, weights=np.ones(used.size), group_of_atom=lab[used],
+                           n_groups=len(names), dtype=np.float64)
+    un = _Unwrapper()
+    sq_parts = []
+    done = 0
+    has_box = bool(run.frames.has_box)
+    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                        atom_indices=used, velocities=False):
+        r = un(chunk.positions_nm, chunk.box_nm)
+        corr.update(r)
+        sq_parts.append(_group_square_sums(r, lab[used], len(names)))
+        done += chunk.n_frames
+        yield Progress(done, n_sel, "mean-squared displacement")
+    sq = np.concatenate(sq_parts, axis=1) if sq_parts else np.zeros((len(names), 0))
+    return _msd_finish(corr, sq, names=names, sizes=sizes, dt=dt, fit_range_ps=fit_range_ps,
+                       dimensions=dimensions, unwrapped=has_box,
+                       settings={"max_lag": lag, "start": start, "stop": stop, "stride": stride})
+
+
+# ---------------------------------------------------------------------------------------------------
+# Vibrational density of states
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Peak:
+    wavenumber_cm1: float
+    thz: float
+    intensity: float  # per cm^-1
+    prominence: float  # fraction of the highest peak
+
+
+@dataclass(frozen=True)
+class VDOSResult:
+    """Vibrational density of states from the mass-weighted VACF.
+
+    ``intensity`` is normalised so that its integral over wavenumber (cm^-1) is ``n_dof``;
+    units: degrees of freedom per cm^-1.
+    """
+
+    wavenumber_cm1: np.ndarray  # (n_freq,)
+    thz: np.ndarray  # (n_freq,)
+    intensity: np.ndarray  # (n_freq,), per cm^-1
+    n_dof: float
+    peaks: tuple[Peak, ...]  # significant peaks, by wavenumber
+    highest_significant_peak_cm1: float | None
+    resolution_cm1: float  # 1 / (c * lag window)
+    bin_spacing_cm1: float
+    nyquist_cm1: float
+    dt_ps: float
+    max_lag_ps: float
+    window: str
+    velocities_estimated: bool
+    settings: dict[str, Any] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+
+    @property
+    def intensity_unit(self) -> str:
+        return "1/cm^-1"
+
+
+def vdos_from_vacf(lag_ps: np.ndarray, vacf_mass_weighted: np.ndarray, *, n_dof: float, window: str = "hann",
+                   peak_prominence: float = 0.05, velocities_estimated: bool = False,
+                   notes: Sequence[str] = ()) -> VDOSResult:
+    """VDOS from a mass-weighted VACF (summed over atoms), by a windowed cosine transform.
+
+    Parameters
+    ----------
+    lag_ps : ndarray, shape (L,), ps, evenly spaced from 0
+    vacf_mass_weighted : ndarray, shape (L,), kJ/mol
+    n_dof : float
+        Degrees of freedom the spectrum integrates to.
+    window : {"hann", "none"}
+        Lag window w(k) = (1 + cos(pi k / L)) / 2 for "hann".
+    peak_prominence : float
+        A peak is significant when its prominence is at least this fraction of the highest value.
+    """
+    import scipy.fft
+    from scipy.signal import find_peaks
+
+    c = np.asarray(vacf_mass_weighted, float)
+    L = c.size
+    if L < 4:
+        raise TooShortError("a vibrational spectrum", have=L, need=4)
+    dt = float(lag_ps[1] - lag_ps[0])
+    if window == "hann":
+        w = 0.5 * (1.0 + np.cos(np.pi * np.arange(L) / L))
+    elif window == "none":
+        w = np.ones(L)
+    else:
+        raise ValueError(f"window must be 'hann' or 'none', not {window!r}")
+    cw = c * w
+    n = 2 * L
+    sym = np.zeros(n)
+    sym[:L] = cw
+    sym[n - L + 1 :] = cw[1:][::-1]
+    spec = scipy.fft.rfft(sym).real * dt  # (L + 1,)
+    f_thz = scipy.fft.rfftfreq(n, d=dt)  # 1/ps = THz
+    wn = f_thz * 1e12 / SPEED_OF_LIGHT_CM_PER_S
+    area = np.trapezoid(spec, wn)
+    if not area > 0:
+        raise AnalysisError("the velocity autocorrelation has no spectral weight (zero velocities?)")
+    intensity = spec * (n_dof / area)
+    top = float(intensity.max())
+    idx, props = find_peaks(intensity, prominence=peak_prominence * top)
+    peaks = tuple(Peak(float(wn[i]), float(f_thz[i]), float(intensity[i]), float(p / top))
+                  for i, p in zip(idx, props["prominences"]))
+    return VDOSResult(
+        wavenumber_cm1=wn, thz=f_thz, intensity=intensity, n_dof=float(n_dof), peaks=peaks,
+        highest_significant_peak_cm1=peaks[-1].wavenumber_cm1 if peaks else None,
+        resolution_cm1=1.0 / (SPEED_OF_LIGHT_CM_PER_S * L * dt / PS_PER_S),
+        bin_spacing_cm1=float(wn[1] - wn[0]), nyquist_cm1=nyquist_cm1(dt), dt_ps=dt, max_lag_ps=L * dt,
+        window=window, velocities_estimated=velocities_estimated,
+        settings={"window": window, "peak_prominence": peak_prominence, "max_lag": L}, notes=tuple(notes),
+    )
+
+
+def vdos_from_velocities(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray, dt_ps: float, *,
+                         window: str = "hann", max_lag: int | None = None, n_dof: float | None = None,
+                         peak_prominence: float = 0.05) -> VDOSResult:
+    """Vibrational density of states of an in-memory velocity array.
+
+    Parameters
+    ----------
+    velocities_nm_per_ps : ndarray, shape (F, N, 3), nm/ps
+    masses_amu : ndarray, shape (N,), amu
+    dt_ps : float
+        Frame spacing (ps); the Nyquist limit is 1 / (2 c dt).
+    window : {"hann", "none"}
+    max_lag : int, optional
+        Lag window L in frames (default F // 2); resolution 1 / (c L dt).
+    n_dof : float, optional
+        Normalisation (default 3 N).
+    peak_prominence : float
+
+    Returns
+    -------
+    VDOSResult
+    """
+    v = np.asarray(velocities_nm_per_ps)
+    r = vacf_from_velocities(v, dt_ps, masses_amu=masses_amu, mass_weighted=True, max_lag=max_lag)
+    return vdos_from_vacf(r.lag_ps, r.vacf_sum.sum(axis=0), n_dof=3.0 * v.shape[1] if n_dof is None else n_dof,
+                          window=window, peak_prominence=peak_prominence)
+
+
+def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray | None = None,
+                         window: str = "hann", max_lag_ps: float | None = None, n_dof: float | None = None,
+                         peak_prominence: float = 0.05, start: int = 0, stop: int | None = None,
+                         stride: int = 1, chunk_frames: int = 256,
+                         max_buffer_bytes: int = DEFAULT_BUFFER_BYTES) -> Work[VDOSResult]:
+    """Streaming VDOS of a run (generator: yields Progress, returns VDOSResult).
+
+    ``n_dof`` defaults to 3 x the atoms used (constraints are not subtracted: the spectrum of a
+    constrained run simply has less weight at the constrained frequencies, and the normalisation is a
+    convention). The highest significant peak (``highest_significant_peak_cm1``) is what the time-step
+    check uses.
+    """
+    idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
+    res = yield from vacf(run, groups={"atoms": idx}, mass_weighted=True, max_lag_ps=max_lag_ps, start=start,
+                          stop=stop, stride=stride, chunk_frames=chunk_frames, max_buffer_bytes=max_buffer_bytes)
+    out = vdos_from_vacf(res.lag_ps, res.vacf_sum[0], n_dof=3.0 * idx.size if n_dof is None else n_dof,
+                         window=window, peak_prominence=peak_prominence,
+                         velocities_estimated=res.velocities_estimated, notes=res.notes)
+    return out
