@@ -1,0 +1,319 @@
+"""The reader layer: an explicit registry of file sources and :func:`open_run`.
+
+Each reader in :data:`READERS` claims a path ("mine" / "not mine") by content and suffix before
+anything is read. A run is built from one self-contained file (H5MD, mdtraj HDF5) or from a
+trajectory plus a topology plus energy tables. Opening reads headers, not frames.
+
+Every reader opens its inputs read-only and raises the typed errors of ``phasewake.core.errors``,
+naming the file and the fault.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from phasewake.core.errors import (
+    EmptyFileError,
+    FileMissingError,
+    InputError,
+    MissingDataError,
+    TopologyMismatchError,
+    UnknownFormatError,
+)
+from phasewake.core.run import EnergyTable, Run, RunMetadata
+
+
+@dataclass(frozen=True)
+class ReaderEntry:
+    """One source in the registry.
+
+    kind : "run" (a self-contained file: frames, masses, maybe energies and metadata),
+           "trajectory" (frames; needs a topology unless it carries one), "topology" or "energy".
+    """
+
+    name: str
+    kind: str
+    suffixes: tuple[str, ...]
+    description: str
+    claim: Callable[[Path], bool]
+
+
+def _claim_h5md(path: Path) -> bool:
+    from phasewake.core.readers import h5md
+
+    return h5md.claim(path)
+
+
+def _claim_mdtraj_h5(path: Path) -> bool:
+    from phasewake.core.readers import mdtraj_hdf5
+
+    return mdtraj_hdf5.claim(path)
+
+
+def _claim_trajectory(path: Path) -> bool:
+    from phasewake.core.readers import trajectory
+
+    return trajectory.claim_trajectory(path)
+
+
+def _claim_topology(path: Path) -> bool:
+    from phasewake.core.readers import trajectory
+
+    return trajectory.claim_topology(path)
+
+
+def _claim_table(path: Path) -> bool:
+    from phasewake.core.readers import tables
+
+    return tables.claim(path)
+
+
+#: The registry, in the order claims are tried. Suffix lists are what each reader accepts.
+READERS: tuple[ReaderEntry, ...] = (
+    ReaderEntry("h5md", "run", (".h5md", ".h5", ".hdf5"), "H5MD 1.1 (HDF5 with an /h5md group)", _claim_h5md),
+    ReaderEntry("mdtraj-hdf5", "run", (".h5",), "mdtraj's HDF5 trajectory (read with h5py)", _claim_mdtraj_h5),
+    ReaderEntry("trajectory", "trajectory",
+                (".dcd", ".xtc", ".trr", ".nc", ".ncdf", ".netcdf", ".lammpstrj", ".xyz", ".binpos",
+                 ".pdb", ".pdb.gz", ".gro", ".mdcrd", ".crd", ".arc", ".dtr", ".xml"),
+                "trajectories read by mdtraj (lazily, in chunks)", _claim_trajectory),
+    ReaderEntry("topology", "topology",
+                (".pdb", ".pdb.gz", ".gro", ".psf", ".prmtop", ".parm7", ".mol2", ".top", ".hoomdxml", ".cif", ".pdbx"),
+                "topology files read by mdtraj", _claim_topology),
+    ReaderEntry("energy-table", "energy", (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene", ".xvg"),
+                "energy tables: CSV/TSV/whitespace text with a header row", _claim_table),
+)
+
+
+def supported_formats() -> str:
+    """One line per reader: what it reads and its suffixes."""
+    return "; ".join(f"{r.description} [{' '.join(r.suffixes)}]" for r in READERS)
+
+
+def _check_file(path: Path) -> None:
+    if not path.exists():
+        raise FileMissingError("no such file", path=path)
+    if path.is_dir():
+        raise UnknownFormatError("is a folder, not a file", path=path)
+    if path.stat().st_size == 0:
+        raise EmptyFileError("file is empty", path=path)
+
+
+def identify(path: str | Path) -> ReaderEntry:
+    """The first registry entry that claims ``path``; UnknownFormatError listing what is supported."""
+    p = Path(path)
+    _check_file(p)
+    for entry in READERS:
+        if entry.claim(p):
+            return entry
+    raise UnknownFormatError(f"no reader claims this file. Supported: {supported_formats()}", path=p)
+
+
+_META_KEYS = ("timestep_ps", "n_constraints", "temperature_K", "ensemble", "thermostat", "integrator",
+              "com_motion_removed")
+
+
+def _apply_overrides(md: RunMetadata, overrides: Mapping[str, Any]) -> None:
+    for key, val in overrides.items():
+        if val is None:
+            continue
+        if not hasattr(md, key):
+            raise TypeError(f"open_run() got an unknown metadata keyword {key!r}")
+        setattr(md, key, val)
+        md.sources[key] = "user"
+        if key == "n_constraints":
+            md.constraints_source = "user"
+
+
+def open_run(
+    paths: Sequence[str | Path] | str | Path,
+    *,
+    topology: str | Path | None = None,
+    energy_files: Sequence[str | Path] | None = None,
+    column_roles: Mapping[str, str] | None = None,
+    timestep_ps: float | None = None,
+    n_constraints: int | None = None,
+    temperature_K: float | None = None,
+    ensemble: str | None = None,
+    chunk_frames: int | None = None,
+    group: str | None = None,
+    **metadata: Any,
+) -> Run:
+    """Open one run from its files (headers only; frames stay on disk).
+
+    Parameters
+    ----------
+    paths : one self-contained file (H5MD, mdtraj HDF5), or a trajectory plus optional topology and
+        energy-table files, in any order. A file that only an energy-table reader claims is a table.
+    topology : topology file for a trajectory that has none (PDB, GRO, PSF, PRMTOP, ...).
+    energy_files : more energy tables (joined on time).
+    column_roles : energy-table column name -> role (see ``phasewake.core.run.ENERGY_ROLES``),
+        overriding recognition by name; a name may carry its unit, "Epot (kcal/mol)".
+    timestep_ps, n_constraints, temperature_K, ensemble, **metadata : override RunMetadata fields.
+    chunk_frames : default chunk size for frame iteration (unused by readers that choose their own).
+    group : H5MD particle group to read (default: the first with positions).
+
+    Returns
+    -------
+    Run
+    """
+    if isinstance(paths, str | Path):
+        paths = [paths]
+    all_paths = [Path(p) for p in paths]
+    if topology is not None:
+        all_paths.append(Path(topology))
+    all_paths += [Path(p) for p in (energy_files or [])]
+    if not all_paths:
+        raise InputError("no files given")
+    entries: list[tuple[Path, ReaderEntry]] = []
+    for p in all_paths:
+        entries.append((p, identify(p)))
+
+    explicit_top = Path(topology) if topology is not None else None
+    runs = [(p, e) for p, e in entries if e.kind == "run"]
+    trajs = [(p, e) for p, e in entries if e.kind == "trajectory" and p != explicit_top]
+    tops = [(p, e) for p, e in entries if e.kind == "topology" or p == explicit_top]
+    tables = [p for p, e in entries if e.kind == "energy"]
+    if len(runs) + len(trajs) > 1:
+        # a PDB/GRO next to another trajectory is its topology
+        structural = [(p, e) for p, e in trajs if _is_topology_like(p)]
+        if len(runs) + len(trajs) - len(structural) == 1:
+            trajs = [(p, e) for p, e in trajs if not _is_topology_like(p)]
+            tops += structural
+        else:
+            names = ", ".join(p.name for p, _ in runs + trajs)
+            raise InputError(f"more than one trajectory given ({names}); open one run at a time")
+
+    warnings: list[str] = []
+    if runs:
+        run = _open_self_contained(runs[0][0], runs[0][1], group=group)
+        if tops:
+            run = _replace_topology(run, tops[0][0])
+    elif trajs:
+        from phasewake.core.readers import trajectory
+
+        top_path = tops[0][0] if tops else None
+        run = trajectory.open_trajectory_run(trajs[0][0], top_path)
+    elif tops:
+        # a structure file alone (PDB/GRO): one or a few frames
+        from phasewake.core.readers import trajectory
+
+        run = trajectory.open_trajectory_run(tops[0][0], None)
+    else:
+        run = Run(name=tables[0].stem, paths=(), topology=None, masses_amu=np.zeros(0),
+                  time_ps=np.zeros(0), frames=None, energies=None)
+    warnings.extend(run.warnings)
+
+    if tables:
+        from phasewake.core.readers import tables as tables_mod
+
+        table, table_warnings = tables_mod.read_tables(
+            tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps)
+        warnings.extend(table_warnings)
+        run.energies = _merge_tables(run.energies, table, warnings)
+        run.metadata.sources["energies"] = ", ".join(p.name for p in tables)
+        if run.frames is None:
+            run.time_ps = table.time_ps
+            run.name = tables[0].stem
+        elif run.metadata.extra.get("time_from") == "frame index" and len(table) == run.n_frames \
+                and not any("rows are numbered" in w for w in table_warnings):
+            # a trajectory without times next to a table with one row per frame: the table's clock
+            run.time_ps = table.time_ps
+            retime = getattr(run.frames, "retime", None)
+            if retime is not None:
+                retime(table.time_ps)
+            run.metadata.extra["time_from"] = f"{tables[0].name} (one row per frame)"
+            warnings = [w for w in warnings if "holds no time axis" not in w]
+            warnings.append(f"frame times taken from {tables[0].name}, which has one row per frame")
+
+    _apply_overrides(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
+                                    "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
+    if chunk_frames is not None:
+        run.metadata.extra["chunk_frames"] = int(chunk_frames)
+
+    if run.frames is not None and not run.frames.has_velocities and run.frames.n_frames >= 2:
+        from phasewake.core.readers.common import EstimatedVelocityFrames, frame_spacing_warning
+
+        run.frames = EstimatedVelocityFrames(run.frames, run.time_ps)
+        warnings.append(frame_spacing_warning(run.frames.inner, run.time_ps, run.masses_amu,
+                                              temperature_K=run.metadata.temperature_K))
+        run.metadata.sources["velocities"] = "estimated by central differences of positions"
+
+    run.paths = tuple(dict.fromkeys(all_paths))
+    run.warnings = list(dict.fromkeys(warnings))
+    return run
+
+
+def _is_topology_like(path: Path) -> bool:
+    return path.name.lower().endswith((".pdb", ".pdb.gz", ".gro", ".mol2", ".cif", ".pdbx"))
+
+
+def _open_self_contained(path: Path, entry: ReaderEntry, *, group: str | None) -> Run:
+    if entry.name == "h5md":
+        from phasewake.core.readers import h5md
+
+        c = h5md.read_h5md(path, group=group)
+        warnings = list(c.warnings)
+        masses = c.masses_amu
+        if masses is None:
+            masses = np.full(c.frames.n_atoms, np.nan)
+            warnings.append(f"{path.name}: no masses in the file and no element data; masses unknown")
+        return Run(name=path.stem, paths=(path,), topology=c.topology, masses_amu=masses, time_ps=c.time_ps,
+                   frames=c.frames, energies=c.energies, metadata=c.metadata, warnings=warnings)
+    if entry.name == "mdtraj-hdf5":
+        from phasewake.core.readers import mdtraj_hdf5
+
+        return mdtraj_hdf5.open_mdtraj_h5_run(path)
+    raise UnknownFormatError(f"reader {entry.name} cannot open a run", path=path)  # pragma: no cover
+
+
+def _replace_topology(run: Run, top_path: Path) -> Run:
+    from phasewake.core.readers import trajectory
+    from phasewake.core.readers.common import masses_from_topology
+
+    top = trajectory.load_topology(top_path)
+    if top.n_atoms != run.n_atoms:
+        raise TopologyMismatchError(f"topology has {top.n_atoms} atoms, the run {run.n_atoms}", path=top_path)
+    run.topology = top
+    run.metadata.sources["topology"] = top_path.name
+    if not np.all(np.isfinite(run.masses_amu)):
+        m = masses_from_topology(top, run.n_atoms)
+        if m is not None:
+            run.masses_amu = m
+            run.metadata.sources["masses"] = f"element masses of {top_path.name}"
+    return run
+
+
+def _merge_tables(a: EnergyTable | None, b: EnergyTable, warnings: list[str]) -> EnergyTable:
+    """Energy series from the run file and from tables; the table's series win on name clashes."""
+    if a is None or len(a) == 0:
+        return b
+    if len(a) == len(b) and np.allclose(a.time_ps, b.time_ps, rtol=1e-9, atol=1e-9):
+        series = {**a.series, **b.series}
+        return EnergyTable(time_ps=b.time_ps, series=series, sources=a.sources + b.sources)
+    warnings.append("the energy tables have another time axis than the run file's observables; "
+                    "the tables are used")
+    return b
+
+
+def describe_run(run: Run) -> dict[str, Any]:
+    """A summary of what a run holds, every number with its unit (for `phasewake describe`, the window,
+    the demo)."""
+    from phasewake.core.readers.describe import describe
+
+    return describe(run)
+
+
+def require_frames(run: Run) -> None:
+    """Raise MissingDataError when a run has no frames (an energy table alone)."""
+    if run.frames is None:
+        raise MissingDataError("this run has no trajectory frames (only an energy table)",
+                               path=run.paths[0] if run.paths else None)
+
+
+__all__ = ["READERS", "ReaderEntry", "describe_run", "identify", "open_run", "require_frames",
+           "supported_formats"]

@@ -1,0 +1,275 @@
+"""Energy tables: CSV, TSV or whitespace-separated text with a header row.
+
+- Comment lines start with ``#``, ``@`` or ``;``; a header may itself sit on the last comment line
+  before the data (``#"time (ps)","potential (kJ/mol)"``).
+- Units sit in the header, ``Potential Energy (kcal/mol)`` or ``E_tot [eV]`` (see
+  :func:`phasewake.core.units.split_header`).
+- Column roles (time, step, potential, kinetic, total, conserved, bath_heat, temperature, pressure,
+  volume, density) are recognised by name; ``column_roles`` overrides them and may state a unit,
+  ``{"Epot": "potential (kcal/mol)"}``.
+- A column with a role must have a unit; an unknown unit, ragged rows, text in numeric columns or a
+  duplicated header raise EnergyTableError naming the file and the line.
+- Several tables of one run are joined on time.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+from phasewake.core.errors import EmptyFileError, EnergyTableError, TimeAxisError, UnitError
+from phasewake.core.run import ENERGY_ROLES, EnergyTable, Series
+from phasewake.core.units import parse_unit, split_header
+
+TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene")
+COMMENT_MARKS = ("#", "@", ";")
+
+# normalised column name -> role ("T" is temperature, "t" is time: checked before lower-casing)
+_ROLE_NAMES: dict[str, str] = {}
+for _role, _names in {
+    "time": ("time", "t", "simtime", "simulationtime"),
+    "step": ("step", "steps", "nstep", "istep", "stepnumber", "timestep"),
+    "potential": ("potential", "potentialenergy", "epot", "pe", "epotential", "upot", "u"),
+    "kinetic": ("kinetic", "kineticenergy", "ekin", "ke", "ekinetic"),
+    "total": ("total", "totalenergy", "etot", "etotal", "energy", "e"),
+    "conserved": ("conserved", "conservedenergy", "conservedquantity", "econs", "econserved", "hconserved"),
+    "bath_heat": ("bathheat", "heat", "thermostatheat", "heatbath", "qbath"),
+    "temperature": ("temperature", "temp", "tkin"),
+    "pressure": ("pressure", "press", "p"),
+    "volume": ("volume", "vol", "boxvolume"),
+    "density": ("density", "rho"),
+}.items():
+    for _n in _names:
+        _ROLE_NAMES[_n] = _role
+
+# role -> dimension its unit must have
+_ROLE_DIMENSION = {"time": "time", "potential": "energy", "kinetic": "energy", "total": "energy",
+                   "conserved": "energy", "bath_heat": "energy", "temperature": "temperature",
+                   "pressure": "pressure", "volume": "volume", "density": "density"}
+
+
+def claim(path: Path) -> bool:
+    """A text file with a table suffix (the header is checked when reading)."""
+    if path.suffix.lower() not in TABLE_SUFFIXES:
+        return False
+    try:
+        with open(path, "rb") as f:
+            head = f.read(4096)
+    except OSError:
+        return False
+    return b"\x00" not in head
+
+
+def role_for(name: str) -> str:
+    """The role a column name suggests ("other" when none)."""
+    if name.strip() == "T":
+        return "temperature"
+    key = re.sub(r"[^a-z0-9]", "", name.lower())
+    return _ROLE_NAMES.get(key, "other")
+
+
+def _split(line: str, delim: str | None) -> list[str]:
+    parts = line.split(delim) if delim else line.split()
+    return [p.strip().strip("\"'").strip() for p in parts]
+
+
+def _header_fields(line: str, delim: str | None) -> list[str]:
+    fields = _split(line, delim)
+    if delim is None:  # whitespace: "Epot (kJ/mol)" arrives as two tokens; join a unit to its name
+        merged: list[str] = []
+        for tok in fields:
+            if merged and tok[:1] in "([" and not merged[-1].endswith((")", "]")):
+                merged[-1] = f"{merged[-1]} {tok}"
+            else:
+                merged.append(tok)
+        fields = merged
+    return fields
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def read_table(
+    path: str | Path,
+    *,
+    column_roles: Mapping[str, str] | None = None,
+    timestep_ps: float | None = None,
+) -> tuple[EnergyTable, list[str]]:
+    """Read one energy table.
+
+    Returns
+    -------
+    (EnergyTable in internal units, warnings)
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise EnergyTableError(f"not a text table (byte {exc.start} is not UTF-8 text)", path=path) from exc
+    lines = text.splitlines()
+    content = [(i + 1, ln) for i, ln in enumerate(lines) if ln.strip()]
+    if not content:
+        raise EmptyFileError("energy table is empty", path=path)
+    warnings: list[str] = []
+
+    # header row: the first non-comment line if it is not numeric, else the last comment line before it
+    first_data = next((k for k, (_, ln) in enumerate(content) if not ln.lstrip().startswith(COMMENT_MARKS)), None)
+    if first_data is None:
+        raise EnergyTableError("energy table has a header or comments but no rows", path=path)
+    line_no, first = content[first_data]
+    delim: str | None
+    probe = first
+    first_fields = _split(first, "," if "," in first else ("\t" if "\t" in first else None))
+    if any(not _is_number(f) for f in first_fields if f):
+        header_line_no, header = line_no, first
+        data = content[first_data + 1 :]
+    else:
+        comments = [c for c in content[:first_data]]
+        if not comments:
+            raise EnergyTableError(f"line {line_no}: no header row with column names (and units)", path=path)
+        header_line_no, header = comments[-1]
+        header = header.lstrip()[1:]
+        data = content[first_data:]
+        probe = header
+    delim = "," if "," in probe else ("\t" if "\t" in probe else None)
+    names = _header_fields(header, delim)
+    if delim is None and "," in first:
+        delim = ","
+    if any(not n for n in names):
+        raise EnergyTableError(f"line {header_line_no}: empty column name in the header", path=path)
+    seen: dict[str, int] = {}
+    for k, n in enumerate(names):
+        if n in seen:
+            raise EnergyTableError(f"line {header_line_no}: duplicate column {n!r} (columns {seen[n] + 1} and "
+                                   f"{k + 1})", path=path)
+        seen[n] = k
+    data = [(no, ln) for no, ln in data if not ln.lstrip().startswith(COMMENT_MARKS)]
+    if not data:
+        raise EnergyTableError("energy table has a header but no rows", path=path)
+    rows = [_split(ln, delim) for _, ln in data]
+    ncol = len(names)
+    for (no, _), r in zip(data, rows):
+        if len(r) != ncol:
+            raise EnergyTableError(f"line {no}: {len(r)} fields, the header has {ncol} (ragged row)", path=path)
+    try:
+        values = np.array(rows, dtype=np.float64)
+    except ValueError:
+        for (no, _), r in zip(data, rows):
+            for k, v in enumerate(r):
+                if not _is_number(v):
+                    raise EnergyTableError(f"line {no}: column {names[k]!r} holds {v!r}, not a number",
+                                           path=path) from None
+        raise
+    line_numbers = np.array([no for no, _ in data])
+
+    # roles and units
+    overrides = {split_header(k)[0]: v for k, v in (column_roles or {}).items()}
+    overrides.update(dict(column_roles or {}))
+    series: dict[str, Series] = {}
+    time = None
+    step = None
+    for k, header_name in enumerate(names):
+        name, unit_text = split_header(header_name)
+        role = role_for(name)
+        given = overrides.get(header_name, overrides.get(name))
+        if given is not None:
+            role_text, role_unit = split_header(given)
+            role = role_text.strip()
+            if role not in ENERGY_ROLES:
+                raise EnergyTableError(f"column role {role!r} for {name!r} is not one of {', '.join(ENERGY_ROLES)}",
+                                       path=path)
+            unit_text = role_unit or unit_text
+        col = values[:, k]
+        if role == "step":
+            step = col
+            continue
+        if unit_text is None:
+            if role == "other":
+                warnings.append(f"{path.name}: column {name!r} has no unit; left out (state it in the header, "
+                                "e.g. 'name (unit)')")
+                continue
+            raise EnergyTableError(f"line {header_line_no}: column {name!r} ({role}) has no unit; write it in "
+                                   f"the header, e.g. '{name} (kJ/mol)', or state it with column_roles", path=path)
+        try:
+            u = parse_unit(unit_text, expect=_ROLE_DIMENSION.get(role))
+        except UnitError as exc:
+            if role == "other":
+                warnings.append(f"{path.name}: column {name!r}: {exc.problem}; left out")
+                continue
+            raise EnergyTableError(f"line {header_line_no}: column {name!r}: {exc.problem}", path=path) from exc
+        conv = col * u.factor
+        if role == "time":
+            time = conv
+            continue
+        key = name if name not in series else f"{name} ({k + 1})"
+        series[key] = Series(name=key, values=conv, unit=u.internal, role=role, source=f"{path.name}:{name}")
+    if time is None:
+        if step is not None and timestep_ps is not None:
+            time = step * timestep_ps
+            warnings.append(f"{path.name}: no time column; time = step x {timestep_ps:g} ps")
+        else:
+            time = np.arange(values.shape[0], dtype=np.float64)
+            warnings.append(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)")
+    _check_rows(time, line_numbers, path)
+    return EnergyTable(time_ps=time, series=series, sources=(str(path),)), warnings
+
+
+def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
+    d = np.diff(time)
+    if np.any(d == 0):
+        i = int(np.flatnonzero(d == 0)[0])
+        raise TimeAxisError(f"line {line_numbers[i + 1]}: duplicated time {time[i]:g} ps (also on line "
+                            f"{line_numbers[i]}); the table is not sorted or de-duplicated for you", path=path)
+    if np.any(d < 0):
+        i = int(np.flatnonzero(d < 0)[0])
+        raise TimeAxisError(f"line {line_numbers[i + 1]}: time goes backwards ({time[i + 1]:g} ps after "
+                            f"{time[i]:g} ps); the table is not sorted for you", path=path)
+
+
+def read_tables(
+    paths: Sequence[str | Path],
+    *,
+    column_roles: Mapping[str, str] | None = None,
+    timestep_ps: float | None = None,
+) -> tuple[EnergyTable, list[str]]:
+    """Read several tables of one run and join them on time (rows at times all tables share)."""
+    tables = []
+    warnings: list[str] = []
+    for p in paths:
+        t, w = read_table(p, column_roles=column_roles, timestep_ps=timestep_ps)
+        tables.append(t)
+        warnings.extend(w)
+    out = tables[0]
+    for nxt in tables[1:]:
+        out = _join(out, nxt, warnings)
+    return out, warnings
+
+
+def _join(a: EnergyTable, b: EnergyTable, warnings: list[str]) -> EnergyTable:
+    if len(a) == len(b) and np.allclose(a.time_ps, b.time_ps, rtol=1e-9, atol=1e-9):
+        ia = ib = slice(None)
+        time = a.time_ps
+    else:
+        ta = np.round(a.time_ps, 9)
+        tb = np.round(b.time_ps, 9)
+        time, ia_idx, ib_idx = np.intersect1d(ta, tb, assume_unique=True, return_indices=True)
+        if time.size == 0:
+            raise EnergyTableError(f"the tables {', '.join(Path(s).name for s in a.sources + b.sources)} share "
+                                   "no times; they cannot be joined", path=Path(b.sources[0]))
+        warnings.append(f"tables joined on {time.size} shared times ({len(a)} and {len(b)} rows before)")
+        ia, ib = ia_idx, ib_idx  # type: ignore[assignment]
+    series: dict[str, Series] = {}
+    for s in a.series.values():
+        series[s.name] = Series(s.name, s.values[ia], s.unit, s.role, s.source)
+    for s in b.series.values():
+        name = s.name if s.name not in series else f"{s.name} [{Path(s.source.split(':')[0]).stem}]"
+        series[name] = Series(name, s.values[ib], s.unit, s.role, s.source)
+    return EnergyTable(time_ps=np.asarray(time, dtype=np.float64), series=series, sources=a.sources + b.sources)

@@ -1,0 +1,504 @@
+"""Trajectories and topologies read through mdtraj, lazily in chunks.
+
+Positions come from ``mdtraj.iterload`` (nm, box vectors in nm). Velocities, which mdtraj's public
+readers drop, come from the files themselves where a format stores them:
+
+- TRR (GROMACS): mdtraj's lower-level ``TRRTrajectoryFile._read(..., get_velocities=True)``, after
+  checking every frame's XDR header says velocities are there (a frame without them would otherwise
+  come back as uninitialised memory);
+- AMBER NetCDF: the ``velocities`` variable read with ``scipy.io.netcdf_file(maskandscale=True)``, which
+  applies its ``scale_factor`` (20.455 for AMBER's internal velocity unit), then converted by its unit.
+
+Time axes come from headers where possible: XTC/TRR frame headers, the NetCDF ``time`` variable, the
+DCD header (ISTART, NSAVC, DELTA in AKMA time units) unless it holds mdtraj's placeholder values.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import os
+import struct
+import sys
+import warnings as _warnings
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.errors import (
+    CorruptFileError,
+    MissingDataError,
+    TopologyMismatchError,
+)
+from phasewake.core.readers.common import check_time_axis, masses_from_topology
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata
+from phasewake.core.units import parse_unit
+
+if TYPE_CHECKING:
+    import mdtraj
+
+TRAJECTORY_SUFFIXES = (".dcd", ".xtc", ".trr", ".nc", ".ncdf", ".netcdf", ".lammpstrj", ".xyz", ".binpos",
+                       ".pdb", ".pdb.gz", ".gro", ".mdcrd", ".crd", ".arc", ".dtr")
+TOPOLOGY_SUFFIXES = (".pdb", ".pdb.gz", ".gro", ".psf", ".prmtop", ".parm7", ".mol2", ".hoomdxml", ".cif",
+                     ".pdbx", ".h5")
+# Formats that carry their own topology.
+SELF_TOPOLOGY = (".pdb", ".pdb.gz", ".gro", ".cif", ".pdbx")
+# Formats for which mdtraj wants the atom count given with the file (read from the topology).
+_NEEDS_N_ATOMS = (".mdcrd", ".crd")
+
+
+def _suffix(path: Path) -> str:
+    name = path.name.lower()
+    return ".pdb.gz" if name.endswith(".pdb.gz") else path.suffix.lower()
+
+
+@contextlib.contextmanager
+def quiet_c_stdout() -> Iterator[None]:
+    """Silence writes to file descriptor 1 (mdtraj's DCD plugin prints there from C) and Python's stdout.
+
+    Library code never prints; mdtraj's C plugins do, below Python. This swaps fd 1 for /dev/null for
+    the duration (process-wide, so keep it short).
+    """
+    try:
+        fd = sys.__stdout__.fileno() if sys.__stdout__ is not None else 1
+    except (AttributeError, ValueError, OSError):
+        fd = 1
+    with contextlib.ExitStack() as stack:
+        try:
+            sys.stdout.flush()
+        except (AttributeError, ValueError, OSError):
+            pass
+        saved = None
+        try:
+            saved = os.dup(fd)
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, fd)
+            os.close(devnull)
+        except OSError:
+            saved = None
+        stack.enter_context(contextlib.redirect_stdout(open(os.devnull, "w")))  # noqa: SIM115
+        try:
+            yield
+        finally:
+            if saved is not None:
+                os.dup2(saved, fd)
+                os.close(saved)
+
+
+@contextlib.contextmanager
+def _quiet_mdtraj() -> Iterator[None]:
+    """No chatter on stdout and no mdtraj advice warnings (netCDF4 missing, ...)."""
+    with quiet_c_stdout(), _warnings.catch_warnings():
+        _warnings.filterwarnings("ignore", message=".*netCDF4.*")
+        _warnings.filterwarnings("ignore", category=DeprecationWarning)
+        yield
+
+
+def _sniff(path: Path) -> str | None:
+    """The format the first bytes say, for formats with a signature; None when they say nothing."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(96)
+    except OSError:
+        return None
+    if len(head) >= 8 and head[4:8] == b"CORD":
+        return ".dcd"
+    if len(head) >= 4:
+        magic = struct.unpack(">i", head[:4])[0]
+        if magic == 1995:
+            return ".xtc"
+        if magic == 1993:
+            return ".trr"
+    if head[:3] == b"CDF":
+        return ".nc"
+    if head[:8] == b"\x89HDF\r\n\x1a\n":
+        return ".hdf5"
+    return None
+
+
+_BINARY_WITH_MAGIC = {".dcd": ".dcd", ".xtc": ".xtc", ".trr": ".trr", ".nc": ".nc", ".ncdf": ".nc",
+                      ".netcdf": ".nc"}
+
+
+def claim_trajectory(path: Path) -> bool:
+    return _suffix(path) in TRAJECTORY_SUFFIXES
+
+
+def claim_topology(path: Path) -> bool:
+    return _suffix(path) in TOPOLOGY_SUFFIXES and _suffix(path) != ".h5"
+
+
+def load_topology(path: str | Path) -> mdtraj.Topology:
+    """A topology file through mdtraj (PDB, GRO, PSF, PRMTOP, mol2, ...)."""
+    import mdtraj as md
+
+    p = Path(path)
+    try:
+        with _quiet_mdtraj():
+            return md.load_topology(str(p))
+    except (OSError, ValueError, KeyError, IndexError, TypeError, RuntimeError, struct.error,
+            UnicodeDecodeError) as exc:
+        raise CorruptFileError(f"cannot read the topology ({type(exc).__name__}: {exc})", path=p) from exc
+
+
+# ------------------------------------------------------------------ headers: counts and time axes
+
+# AKMA time unit: sqrt(angstrom^2 amu / (kcal/mol)) = 48.888 fs (CHARMM's internal unit).
+_AKMA_PS = math.sqrt(1e-20 * 1.66053906892e-27 / (4184.0 / 6.02214076e23)) * 1e12
+
+
+def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
+    """Frame times from a DCD header, or None when it holds no real time step (mdtraj writes delta=1, nsavc=1)."""
+    with open(path, "rb") as f:
+        head = f.read(92)
+    if len(head) < 92:
+        return None
+    for endian in ("<", ">"):
+        if struct.unpack(endian + "i", head[:4])[0] == 84:
+            break
+    else:
+        return None
+    icntrl = struct.unpack(endian + "9if10i", head[8:88])
+    istart, nsavc, delta = icntrl[1], icntrl[2], icntrl[9]
+    if not (delta > 0 and nsavc > 0) or (delta == 1.0 and nsavc == 1 and istart == 0):
+        return None
+    return (istart + np.arange(n_frames) * nsavc) * float(delta) * _AKMA_PS
+
+
+def _xdr_times(path: Path, offsets: np.ndarray, kind: str) -> tuple[np.ndarray, np.ndarray]:
+    """(time_ps, step) of each XTC/TRR frame from its header at ``offsets``."""
+    times = np.empty(offsets.size)
+    steps = np.empty(offsets.size, dtype=np.int64)
+    with open(path, "rb") as f:
+        for i, off in enumerate(offsets):
+            f.seek(int(off))
+            if kind == ".xtc":
+                magic, _natoms, step, t = struct.unpack(">iiif", f.read(16))
+                times[i], steps[i] = t, step
+            else:
+                h = _trr_header(f, path)
+                times[i], steps[i] = h["time"], h["step"]
+    return times, steps
+
+
+def _trr_header(f: Any, path: Path) -> dict[str, Any]:
+    """Parse one TRR frame header (XDR, big-endian) at the current position (GROMACS trr layout)."""
+    raw = f.read(8)
+    if len(raw) < 8:
+        raise CorruptFileError("TRR frame header is cut short", path=path)
+    magic, _slen = struct.unpack(">ii", raw)
+    if magic != 1993:
+        raise CorruptFileError(f"bad TRR frame magic {magic}", path=path)
+    (strlen,) = struct.unpack(">i", f.read(4))
+    f.read((strlen + 3) // 4 * 4)
+    fields = struct.unpack(">13i", f.read(52))
+    names = ("ir", "e", "box", "vir", "pres", "top", "sym", "x", "v", "f", "natoms", "step", "nre")
+    h = dict(zip(names, fields))
+    natoms = h["natoms"]
+    size = 4
+    for key, count in (("box", 9), ("x", 3 * natoms), ("v", 3 * natoms), ("f", 3 * natoms)):
+        if h[key]:
+            size = h[key] // count
+            break
+    fmt = ">ff" if size == 4 else ">dd"
+    h["time"], h["lambda"] = struct.unpack(fmt, f.read(2 * size))
+    h["real_size"] = size
+    return h
+
+
+def trr_velocity_frames(path: str | Path, offsets: np.ndarray) -> np.ndarray:
+    """For each TRR frame, whether its header says velocities follow (v_size > 0)."""
+    p = Path(path)
+    out = np.zeros(offsets.size, dtype=bool)
+    with open(p, "rb") as f:
+        for i, off in enumerate(offsets):
+            f.seek(int(off))
+            out[i] = _trr_header(f, p)["v"] > 0
+    return out
+
+
+# ------------------------------------------------------------------------------ frame source
+
+
+class MdtrajFrames:
+    """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
+
+    def __init__(self, path: Path, topology: mdtraj.Topology, *, n_frames: int, time_ps: np.ndarray,
+                 has_box: bool, velocity_kind: str | None, velocity_factor: float = 1.0) -> None:
+        self.path = path
+        self.topology = topology
+        self.n_frames = n_frames
+        self.n_atoms = topology.n_atoms
+        self._time = time_ps
+        self.has_box = has_box
+        self._vkind = velocity_kind  # "trr", "netcdf" or None
+        self._vfactor = velocity_factor
+        self.has_velocities = velocity_kind is not None
+        self.velocities_estimated = False
+
+    def retime(self, time_ps: np.ndarray) -> None:
+        """Use another clock for the frames (a table with one row per frame, for formats without time)."""
+        t = np.asarray(time_ps, dtype=np.float64)
+        if t.shape != (self.n_frames,):
+            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
+        self._time = t
+
+    def _load_kwargs(self) -> dict[str, Any]:
+        kw: dict[str, Any] = {}
+        if _suffix(self.path) not in SELF_TOPOLOGY:
+            kw["top"] = self.topology
+        return kw
+
+    def _velocities(self, sel: np.ndarray, cols: np.ndarray | None) -> np.ndarray:
+        if self._vkind == "trr":
+            import mdtraj as md
+
+            out = []
+            with _quiet_mdtraj(), md.formats.TRRTrajectoryFile(str(self.path)) as f:
+                for i in sel:
+                    f.seek(int(i))
+                    res = f._read(1, None, get_velocities=True, get_forces=False)
+                    out.append(res[5][0])
+            v = np.asarray(out, dtype=np.float32)
+        else:
+            from scipy.io import netcdf_file
+
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                with netcdf_file(str(self.path), "r", mmap=False, maskandscale=True) as nc:
+                    var = nc.variables["velocities"]
+                    v = np.asarray(var[sel], dtype=np.float64)
+            v = (v * self._vfactor).astype(np.float32)
+        return v if cols is None else v[:, cols]
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+    ) -> Iterator[FrameChunk]:
+        import mdtraj as md
+
+        stop = self.n_frames if stop is None else min(stop, self.n_frames)
+        if start >= stop:
+            return
+        cols = None if atom_indices is None else np.asarray(atom_indices)
+        per_chunk = max(1, int(chunk_frames))
+        expected = np.arange(start, stop, stride)
+        done = 0
+        read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error)
+        try:
+            with _quiet_mdtraj():
+                chunks = iter(md.iterload(str(self.path), chunk=per_chunk, skip=start, stride=stride,
+                                          atom_indices=cols, **self._load_kwargs()))
+        except read_errors as exc:
+            raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
+        while done < expected.size:
+            try:
+                with _quiet_mdtraj():
+                    tr = next(chunks, None)
+                    if tr is None:
+                        break
+                    sel = expected[done : done + tr.n_frames]
+                    vel = self._velocities(sel, cols) if (velocities and self.has_velocities) else None
+            except read_errors as exc:
+                raise CorruptFileError(f"cannot read frames after frame {start + done * stride} "
+                                       f"({type(exc).__name__}: {exc})", path=self.path) from exc
+            box = None
+            if self.has_box and tr.unitcell_vectors is not None:
+                box = np.asarray(tr.unitcell_vectors[: sel.size], dtype=np.float64)
+            done += sel.size
+            yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel],
+                             positions_nm=np.asarray(tr.xyz[: sel.size], np.float32),
+                             velocities_nm_per_ps=vel, box_nm=box)
+        if done < expected.size:
+            raise CorruptFileError(f"file ended after {start + done * stride} of {self.n_frames} frames "
+                                   "(truncated?)", path=self.path)
+
+    def read_frame(self, index: int) -> FrameChunk:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
+        index %= self.n_frames
+        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
+
+
+# --------------------------------------------------------------------------------- opening
+
+
+def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tuple[int, np.ndarray | None, bool, dict[str, Any]]:
+    """Frame count, time axis (None when unknown), whether there is a box, and velocity info, from headers."""
+    import mdtraj as md
+
+    suf = _suffix(path)
+    info: dict[str, Any] = {}
+    t: np.ndarray | None
+    if suf == ".dcd":
+        with _quiet_mdtraj(), md.formats.DCDTrajectoryFile(str(path)) as f:
+            n = len(f)
+        _check_dcd_size(path, n, top.n_atoms)
+        return n, _dcd_time(path, n), True, info
+    if suf in (".xtc", ".trr"):
+        cls = md.formats.XTCTrajectoryFile if suf == ".xtc" else md.formats.TRRTrajectoryFile
+        with _quiet_mdtraj(), cls(str(path)) as f:
+            n = len(f)
+            offsets = np.asarray(f.offsets, dtype=np.int64)
+        t_xdr, step = _xdr_times(path, offsets, suf)
+        info["step"] = step
+        if suf == ".trr":
+            has_v = trr_velocity_frames(path, offsets)
+            info["trr_velocity_frames"] = int(has_v.sum())
+            if has_v.all():
+                info["velocity_kind"] = "trr"
+            elif has_v.any():
+                first = int(np.flatnonzero(~has_v)[0])
+                warnings.append(f"{path.name}: only {int(has_v.sum())} of {n} TRR frames hold velocities "
+                                f"(frame {first} has none); stored velocities are not used")
+        return n, t_xdr, True, info
+    if suf in (".nc", ".ncdf", ".netcdf"):
+        from scipy.io import netcdf_file
+
+        try:
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                with netcdf_file(str(path), "r", mmap=False, maskandscale=True) as nc:
+                    n = int(nc.variables["coordinates"].shape[0])
+                    t = None
+                    if "time" in nc.variables:
+                        tv = nc.variables["time"]
+                        unit = tv.units.decode() if isinstance(getattr(tv, "units", None), bytes) else getattr(tv, "units", "picosecond")
+                        t = np.asarray(tv[:], dtype=np.float64) * parse_unit(unit, expect="time").factor
+                    has_box = "cell_lengths" in nc.variables
+                    if "velocities" in nc.variables:
+                        vv = nc.variables["velocities"]
+                        vunit = getattr(vv, "units", b"angstrom/picosecond")
+                        vunit = vunit.decode() if isinstance(vunit, bytes) else vunit
+                        info["velocity_kind"] = "netcdf"
+                        info["velocity_factor"] = parse_unit(vunit, expect="velocity").factor
+        except (TypeError, KeyError) as exc:
+            raise CorruptFileError(f"not an AMBER NetCDF trajectory ({exc})", path=path) from exc
+        return n, t, has_box, info
+    # text formats and others: load through mdtraj (these are usually small), keeping only counts/time
+    kw: dict[str, Any] = {} if suf in SELF_TOPOLOGY else {"top": top}
+    n = 0
+    times = []
+    has_box = False
+    with _quiet_mdtraj():
+        for tr in md.iterload(str(path), chunk=1000, **kw):
+            n += tr.n_frames
+            times.append(np.asarray(tr.time, dtype=np.float64))
+            has_box = has_box or tr.unitcell_vectors is not None
+    t = np.concatenate(times) if times else None
+    if suf in (".xyz", ".lammpstrj", ".mdcrd", ".crd", ".binpos") or (t is not None and n > 1 and np.all(t == np.arange(n))):
+        t = None  # these formats hold no time; mdtraj numbers frames
+    return n, t, has_box, info
+
+
+def _check_dcd_size(path: Path, n: int, n_atoms: int) -> None:
+    """A DCD file whose size is not header + n whole frames was cut short."""
+    with open(path, "rb") as f:
+        head = f.read(4)
+    size = path.stat().st_size
+    if n == 0:
+        raise CorruptFileError("DCD file holds no complete frame (truncated?)", path=path)
+    del head
+    # frame size with a unit cell record: 56 + 3*(4*N + 8); without: 3*(4*N + 8)
+    frame = 3 * (4 * n_atoms + 8)
+    for with_cell in (56, 0):
+        rest = size - n * (frame + with_cell)
+        if 100 <= rest <= 100000:  # header length varies with titles
+            return
+    raise CorruptFileError(f"DCD file size {size} bytes does not hold {n} whole frames of {n_atoms} atoms "
+                           "(truncated?)", path=path)
+
+
+def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
+    """A Run over a trajectory read by mdtraj (and a topology file)."""
+    suf = _suffix(path)
+    warnings: list[str] = []
+    md_meta = RunMetadata()
+    if top_path is not None:
+        top = load_topology(top_path)
+        md_meta.sources["topology"] = top_path.name
+    elif suf in SELF_TOPOLOGY:
+        top = load_topology(path)
+        md_meta.sources["topology"] = path.name
+    else:
+        raise MissingDataError(f"a {suf} trajectory holds no topology: give one (--top FILE: PDB, GRO, PSF, "
+                               "PRMTOP, ...)", path=path)
+    magic = _sniff(path)
+    if suf in _BINARY_WITH_MAGIC and magic != _BINARY_WITH_MAGIC[suf] and not (suf in (".nc", ".ncdf", ".netcdf") and magic == ".hdf5"):
+        raise CorruptFileError(f"content is not {suf[1:].upper()} (no {suf[1:].upper()} signature at the start)",
+                               path=path)
+    try:
+        n, t, has_box, info = _count_and_time(path, top, warnings)
+    except (CorruptFileError, MissingDataError, TopologyMismatchError):
+        raise
+    except (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, KeyError) as exc:
+        raise CorruptFileError(f"cannot read the trajectory ({type(exc).__name__}: {exc})", path=path) from exc
+    if n == 0:
+        raise CorruptFileError("trajectory holds no frames", path=path)
+    # atom count of the trajectory vs the topology
+    n_file = _atoms_in_file(path, top)
+    if n_file is not None and n_file != top.n_atoms:
+        raise TopologyMismatchError(f"trajectory has {n_file} atoms, the topology "
+                                    f"{top_path.name if top_path else path.name} has {top.n_atoms}", path=path)
+    if t is None:
+        t = np.arange(n, dtype=np.float64)
+        warnings.append(f"{path.name}: the file holds no time axis; frames are numbered 0, 1, 2, ... (not ps). "
+                        "An energy table with one row per frame supplies the time")
+        md_meta.extra["time_from"] = "frame index"
+    else:
+        md_meta.extra["time_from"] = f"{path.name} headers"
+    warnings.extend(check_time_axis(t, path=path, what="frame"))
+    masses = masses_from_topology(top, top.n_atoms)
+    if masses is None:
+        masses = np.full(top.n_atoms, np.nan)
+        warnings.append(f"{path.name}: some atoms have no element, so masses are unknown")
+    else:
+        md_meta.sources["masses"] = "element masses of the topology"
+    frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
+                          velocity_kind=info.get("velocity_kind"), velocity_factor=info.get("velocity_factor", 1.0))
+    md_meta.sources["positions"] = path.name
+    if frames.has_velocities:
+        md_meta.sources["velocities"] = path.name
+    return Run(name=path.stem, paths=(path,) + ((top_path,) if top_path else ()), topology=top,
+               masses_amu=masses, time_ps=np.asarray(t, np.float64), frames=frames, energies=None,
+               metadata=md_meta, warnings=warnings)
+
+
+def _atoms_in_file(path: Path, top: mdtraj.Topology) -> int | None:
+    """Atom count stored in a binary trajectory's header, or None when the format has no cheap way to say."""
+    suf = _suffix(path)
+    try:
+        if suf == ".dcd":
+            with open(path, "rb") as f:
+                raw = f.read(400)
+            (endian,) = ("<",) if struct.unpack("<i", raw[:4])[0] == 84 else (">",)
+            # after the 84-byte control block: title record (length-prefixed), then a 4-byte record with N
+            pos = 4 + 84 + 4
+            (tlen,) = struct.unpack(endian + "i", raw[pos : pos + 4])
+            pos += 4 + tlen + 4
+            (_rl, natoms) = struct.unpack(endian + "ii", raw[pos : pos + 8])
+            return int(natoms)
+        if suf == ".xtc":
+            with open(path, "rb") as f:
+                return int(struct.unpack(">ii", f.read(8))[1])
+        if suf == ".trr":
+            with open(path, "rb") as f:
+                return int(_trr_header(f, path)["natoms"])
+        if suf in (".nc", ".ncdf", ".netcdf"):
+            from scipy.io import netcdf_file
+
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("ignore")
+                with netcdf_file(str(path), "r", mmap=False) as nc:
+                    return int(nc.variables["coordinates"].shape[1])
+    except (OSError, struct.error, KeyError, IndexError, TypeError, ValueError):
+        return None
+    return None
