@@ -321,14 +321,18 @@ def audit_run(
     path0 = run.paths[0] if run.paths else None
     md = run.metadata
     thermostatted, ensemble = _is_thermostatted(run)
-    notes: list[str] = []
     verdicts: list[Verdict] = []
     table: EnergyTable | None = run.energies if run.energies is not None and len(run.energies) else None
     has_vel = run.has_velocities
+    notes: list[str] = []
+    if has_vel and not (run.n_atoms and np.all(np.isfinite(run.masses_amu)) and np.all(run.masses_amu > 0)):
+        has_vel = False
+        notes.append("Atom masses are unknown: nothing per atom (temperature from velocities, spectrum) was computed.")
     if table is None and not has_vel:
         raise MissingDataError("nothing to audit: the run has neither an energy table nor velocities", path=path0)
-    if require_temperature and not has_vel:
-        raise MissingDataError("velocities are missing: the kinetic temperature needs velocities", path=path0)
+    if require_temperature and not has_vel and (table is None or table.by_role("kinetic") is None):
+        raise MissingDataError("velocities are missing (and no kinetic energy in the energy table): the kinetic "
+                               "temperature needs them", path=path0)
     if ensemble.startswith("unknown"):
         notes.append("Ensemble not stated in the files: treated as NVE (unthermostatted).")
     frames_total = float(run.frames.n_frames if (has_vel and run.frames is not None) else 0)
@@ -446,8 +450,9 @@ def audit_run(
         kdist = None
         maxw: list[tm.DistributionCheck] = []
         if not thermostatted:
-            cnote = ("not applied: in an NVE run the kinetic energy is not gamma-distributed (it is narrower "
-                     "because the total energy is fixed), so these tests would mislead")
+            cnote = ("not applied: canonical-ensemble tests; in an NVE run the kinetic energy and the speeds "
+                     "do not follow the canonical distributions (K is narrower because E is fixed), so they "
+                     "would mislead")
         elif target_T is None:
             cnote = "not applied: the target temperature is unknown (give --temperature K)"
         else:
@@ -752,3 +757,45 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
         out.append(_skipped("timestep.scaling", "Fluctuation vs time step",
                             "both runs need a known time step and an energy fluctuation (give --timestep)"))
     return out
+
+
+# ---------------------------------------------------------------------------------------------------
+# Plain summary (JSON, reports): every number with its unit, no per-frame arrays
+# ---------------------------------------------------------------------------------------------------
+
+_ARRAY_FIELDS = {"time_ps", "values_kJ_per_mol", "temperature_K", "frequency_per_ps", "power", "rigid_pairs",
+                 "constraint_weights"}
+
+
+def _plain(obj: Any) -> Any:
+    from dataclasses import fields, is_dataclass
+
+    if is_dataclass(obj) and not isinstance(obj, type):
+        out: dict[str, Any] = {}
+        for f in fields(obj):
+            if f.name in _ARRAY_FIELDS:
+                continue
+            out[f.name] = _plain(getattr(obj, f.name))
+        return out
+    if isinstance(obj, dict):
+        return {str(k): _plain(v) for k, v in obj.items()}
+    if isinstance(obj, list | tuple):
+        return [_plain(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def audit_summary(result: AuditResult) -> dict[str, Any]:
+    """The audit as plain data for JSON: every number (units in the field names or a ``unit`` field),
+    the verdicts with thresholds and sources, notes and the heuristics note. Per-frame series are left
+    out (they are in the result object for figures)."""
+    d = _plain(result)
+    d["level"] = result.level
+    d["units"] = {"time": "ps", "energy": "kJ/mol", "temperature": "K", "frequency": "1/ps",
+                  "wavenumber": "cm^-1", "drift": "kJ/mol/ns (kT/DOF/ns where named)"}
+    return d  # type: ignore[no-any-return]

@@ -1,0 +1,139 @@
+"""``phasewake audit``: can I trust this run's dynamics?
+
+Energy conservation (drift, fluctuations, events), kinetic temperature and equipartition, canonical
+distribution checks, and the time step, each as a verdict with the measured number, the threshold and
+its source, and advice. Exit 0 when all is ok, 1 when a caution or problem was found, 2 for unusable
+input.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import textwrap
+from typing import Any
+
+from phasewake.app.common import (
+    add_run_arguments,
+    open_run_from_args,
+    print_json,
+    quiet_stdout,
+    run_with_progress,
+)
+
+LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_run_arguments(parser)
+    parser.add_argument("--compare", nargs="+", metavar="OTHER_FILE", default=None,
+                        help="files of a second run of the same system at another time step: checks that the "
+                             "energy fluctuation scales as (dt1/dt2)^2")
+    parser.add_argument("--explain", action="store_true",
+                        help="print what each check measures, how, its threshold and source, and advice")
+
+
+def _num(x: float | None, unit: str = "") -> str:
+    if x is None:
+        return "-"
+    text = f"{x:.4g}"
+    return f"{text} {unit}".strip()
+
+
+def _threshold_text(v: Any) -> tuple[str, str]:
+    t = v.threshold
+    if t is None:
+        return "-", "-"
+    op = ">" if t.higher_is_worse else "<"
+    return f"caution {op} {t.caution:g}, problem {op} {t.problem:g} {t.unit}".strip(), t.source
+
+
+def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> None:
+    from phasewake.core.verdicts import EXPLANATIONS
+
+    w = out.write
+    head = label or result.run_name
+    w(f"phasewake audit: {head}  [ensemble: {result.ensemble}]\n")
+    if result.paths:
+        w(f"  files: {', '.join(result.paths)}\n")
+    ea, ta = result.energy, result.temperature
+    if ea is not None:
+        w(f"  energy judged: {ea.series_label} ({ea.reason})\n")
+        if ea.kinetic_source:
+            w(f"  kinetic energy for sigma_K: {ea.kinetic_source}\n")
+    if ta is not None:
+        w(f"  kinetic temperature: {ta.mean_K:.2f} +- {ta.error_K:.2f} K from {ta.kinetic_source}\n")
+        w(f"  degrees of freedom: {ta.n_dof} = 3 x {ta.n_atoms} - {ta.n_constraints} constraints "
+          f"[{ta.constraints_source}] - {ta.n_com_removed} centre of mass [{ta.com_source}]\n")
+    w("\n")
+    wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
+    for v in result.verdicts:
+        thr, src = _threshold_text(v)
+        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}: {_num(v.measured, v.unit)}\n")
+        w(wrap.fill(v.message) + "\n")
+        if v.threshold is not None:
+            w(wrap.fill(f"threshold: {thr} (source: {src})") + "\n")
+        if v.advice:
+            w(wrap.fill(f"advice: {v.advice}") + "\n")
+        if explain and v.kind in EXPLANATIONS:
+            e = EXPLANATIONS[v.kind]
+            for part, text in (("what", e.what), ("method", e.method), ("threshold", e.threshold),
+                               ("advice", e.advice)):
+                w(textwrap.fill(f"{part}: {text}", width=100, initial_indent="        | ",
+                                subsequent_indent="        | ") + "\n")
+    if ea is not None and ea.events.events:
+        w("\n  events (time ps: what):\n")
+        for ev in ea.events.events[:20]:
+            w(f"    {ev.time_ps:12.6g}: {ev.description}\n")
+        if len(ea.events.events) > 20:
+            w(f"    ... {len(ea.events.events) - 20} more (see --json)\n")
+    if ea is not None and ea.sampling:
+        w("\n  effective sample sizes (g = statistical inefficiency, N_eff = n / g):\n")
+        for s in ea.sampling:
+            w(f"    {s.name:<24} mean {s.mean:12.6g} {s.unit:<7} +- {s.standard_error_of_mean:.3g}   "
+              f"g = {s.statistical_inefficiency:7.3g}   N_eff = {s.effective_samples:9.4g} of {s.n_samples}\n")
+    if ta is not None and ta.groups:
+        w("\n  kinetic temperature per group:\n")
+        for g in ta.groups:
+            w(f"    {g.name:<24} {g.mean_K:9.2f} +- {g.error_K:.2f} K   N_dof {g.n_dof:.1f}   "
+              f"difference {g.difference_K:+.2f} +- {g.difference_error_K:.2f} K"
+              f"{'  (significant)' if g.significant else ''}\n")
+    for note in result.notes:
+        w(textwrap.fill(f"note: {note}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
+    w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
+
+
+def run(args: argparse.Namespace) -> int:
+    from phasewake.core.audit import audit_run, audit_summary
+    from phasewake.core.readers import open_run
+    from phasewake.core.verdicts import HEURISTIC_NOTE
+
+    the_run = open_run_from_args(args)
+    other = None
+    if args.compare:
+        with quiet_stdout():
+            other = open_run(args.compare, topology=args.top)
+    timestep_ps = None if args.timestep is None else args.timestep * 1e-3
+    work = audit_run(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
+                     temperature_K=args.temperature, require_temperature=args.constraints is not None,
+                     compare=other)
+    result = run_with_progress(work, "audit")
+    if args.json:
+        summary = audit_summary(result)
+        if args.explain:
+            from phasewake.core.verdicts import EXPLANATIONS
+
+            summary["explanations"] = {v.kind: EXPLANATIONS[v.kind] for v in result.verdicts
+                                       if v.kind in EXPLANATIONS}
+        print_json(summary)
+    else:
+        out = sys.stdout
+        _write_table(result, out, explain=args.explain)
+        if result.compared is not None:
+            out.write("\n")
+            _write_table(result.compared, out, explain=False, label=f"comparison run {result.compared.run_name}")
+        out.write("\n" + textwrap.fill(HEURISTIC_NOTE, width=100) + "\n")
+    worst = result.level
+    if result.compared is not None and result.compared.level in ("caution", "problem"):
+        worst = "problem" if "problem" in (worst, result.compared.level) else "caution"
+    return 0 if worst in ("ok", "info") else 1

@@ -1,0 +1,204 @@
+"""``phasewake audit`` end to end: files on disk, exit codes, table, JSON, --compare, --explain.
+
+Test data: atoms in harmonic traps integrated by velocity Verlet (vectorised), whose fluctuation ratio
+is known analytically, R = (w dt)^2 / 4 (Tuckerman 2010 eq. 3.13.3, derived), plus the project's sample
+runs and a real OpenMM water box when they are available.
+"""
+
+import hashlib
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from phasewake.app.cli import main
+
+KB = 0.00831446261815324  # CODATA 2018
+
+
+def traps_vv(n_atoms=32, *, dt, w, n_steps, every, m=12.0, temperature=300.0, seed=0):
+    rng = np.random.default_rng(seed)
+    kt = KB * temperature
+    k = m * w * w
+    x = rng.normal(0, math.sqrt(kt / k), (n_atoms, 3))
+    v = rng.normal(0, math.sqrt(kt / m), (n_atoms, 3))
+    X, V = [x], [v]
+    for s in range(1, n_steps + 1):
+        v = v - 0.5 * dt * k / m * x
+        x = x + dt * v
+        v = v - 0.5 * dt * k / m * x
+        if s % every == 0:
+            X.append(x)
+            V.append(v)
+    X, V = np.array(X), np.array(V)
+    t = np.arange(X.shape[0]) * dt * every
+    kin = 0.5 * m * np.einsum("fai,fai->f", V, V)
+    pot = 0.5 * k * np.einsum("fai,fai->f", X, X)
+    return t, X, V, kin, pot
+
+
+def write_traps(path, *, dt, w, n_steps, every, seed=0, observables=None, with_velocities=True):
+    from phasewake.core.readers.h5md import write_h5md
+
+    t, X, V, kin, pot = traps_vv(dt=dt, w=w, n_steps=n_steps, every=every, seed=seed)
+    obs = {"kinetic_energy": (kin, "kJ mol-1"), "potential_energy": (pot, "kJ mol-1"),
+           "total_energy": (kin + pot, "kJ mol-1")} if observables is None else observables(kin, pot)
+    write_h5md(path, positions_nm=X, time_ps=t, velocities_nm_per_ps=V if with_velocities else None,
+               masses_amu=np.full(X.shape[1], 12.0), species=["C"] * X.shape[1], observables=obs,
+               parameters={"timestep_ps": dt, "ensemble": "NVE", "thermostat": "none", "n_constraints": 0,
+                           "com_motion_removed": 0, "integrator": "velocity-verlet"})
+    return path
+
+
+def _digest(p):
+    return hashlib.sha256(Path(p).read_bytes()).hexdigest()
+
+
+@pytest.fixture(scope="module")
+def good_and_bad(tmp_path_factory):
+    d = tmp_path_factory.mktemp("audit")
+    # w = 50/ps: period 126 fs. dt = 2 fs -> R = (0.1)^2/4 = 0.0025 (good); dt = 1 fs -> R/4.
+    good = write_traps(d / "good.h5md", dt=0.002, w=50.0, n_steps=4000, every=4)
+    half = write_traps(d / "half.h5md", dt=0.001, w=50.0, n_steps=8000, every=8)
+    # dt = 14 fs: w dt = 0.7 -> R = 0.1225 (problem), 9 steps per period (caution)
+    bad = write_traps(d / "bad.h5md", dt=0.014, w=50.0, n_steps=600, every=1)
+    return good, half, bad
+
+
+def test_good_run_exit_0_and_table(good_and_bad, capsys):
+    good = good_and_bad[0]
+    before = _digest(good)
+    code = main(["audit", str(good)])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    assert "Energy fluctuation ratio" in out and "common practice" in out
+    assert "heuristics" in out  # the heuristics note (core.verdicts.HEURISTIC_NOTE)
+    assert "total energy (column 'total_energy')" in out  # says which series was judged
+    assert _digest(good) == before  # input opened read-only, unchanged
+
+
+def test_too_large_step_exit_1_and_json(good_and_bad, capsys):
+    bad = good_and_bad[2]
+    code = main(["audit", str(bad), "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 1
+    v = {x["kind"]: x for x in data["verdicts"]}
+    # From Tuckerman 2010 eq. 3.13.3: E = H~ - K a/(1 - a), a = (w dt)^2/4, so R = a/(1 - a) exactly
+    # (-> (w dt)^2/4 for small dt). Here a = 0.1225: R = 0.1396. Sampled every step.
+    a = 0.7 ** 2 / 4
+    assert v["energy.fluctuation_ratio"]["measured"] == pytest.approx(a / (1 - a), rel=0.02)
+    assert v["energy.fluctuation_ratio"]["level"] == "problem"
+    assert v["timestep.fastest_period"]["level"] == "caution"  # 2 pi / 0.7 = 9.0 steps per period
+    assert v["timestep.fastest_period"]["measured"] == pytest.approx(2 * math.pi / 0.7, rel=0.05)
+    for x in data["verdicts"]:
+        assert "unit" in x and "message" in x
+    assert data["energy"]["fluctuations"]["sigma_total_kJ_per_mol"] > 0
+    assert data["temperature"]["n_dof"] == 96  # 3 N, no constraints, no COM removal (metadata)
+    assert data["heuristic_note"]
+
+
+def test_compare_measures_dt_squared_exponent(good_and_bad, capsys):
+    good, half, _ = good_and_bad
+    code = main(["audit", str(good), "--compare", str(half), "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 0
+    # sigma_E ~ dt^2 for velocity Verlet (Hairer, Lubich & Wanner 2006): exponent 2 (+-1 % on the HO,
+    # REFERENCES.md §1.3; more here because the runs are short and sampled differently)
+    assert data["scaling"]["exponent"] == pytest.approx(2.0, abs=0.05)
+    assert data["scaling"]["expected_ratio"] == pytest.approx(4.0)
+
+
+def test_explain_prints_explanations(good_and_bad, capsys):
+    main(["audit", str(good_and_bad[0]), "--explain"])
+    out = capsys.readouterr().out
+    assert "| method:" in out and "Tuckerman 2010" in out
+
+
+def test_no_usable_energy_column_exit_2(tmp_path, capsys):
+    p = write_traps(tmp_path / "temps.h5md", dt=0.002, w=50.0, n_steps=200, every=4,
+                    observables=lambda k, u: {"temperature": (2 * k / (96 * KB), "K")}, with_velocities=False)
+    # positions only (velocities would be estimated) and only a temperature observable
+    code = main(["audit", str(p)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.count("\n") == 1 and "no usable energy column" in err and "temps.h5md" in err
+
+
+def test_missing_file_exit_2(tmp_path, capsys):
+    assert main(["audit", str(tmp_path / "nope.h5md")]) == 2
+    assert "Traceback" not in capsys.readouterr().err
+
+
+def test_velocities_missing_when_asked_for_temperature_exit_2(tmp_path, capsys):
+    pytest.importorskip("phasewake.core.readers.tables")
+    csv = tmp_path / "energy.csv"
+    csv.write_text("time (ps),total energy (kJ/mol)\n0,1.0\n0.1,1.1\n0.2,0.9\n0.3,1.0\n0.4,1.05\n")
+    code = main(["audit", str(csv), "--constraints", "3"])
+    err = capsys.readouterr().err
+    assert code == 2 and "velocities are missing" in err and err.count("\n") == 1
+
+
+# --- sample runs (sample_data/, generated by the project's own script) -------------------------------
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
+
+
+def _sample(name):
+    p = SAMPLES / name
+    if not p.exists():
+        pytest.skip(f"sample run {name} not generated yet")
+    return p
+
+
+def _audit_json(path, capsys, *extra):
+    code = main(["audit", str(path), "--json", *extra])
+    data = json.loads(capsys.readouterr().out)
+    return code, data, {v["kind"]: v for v in data["verdicts"]}
+
+
+def test_sample_nve_ok(capsys):
+    code, data, v = _audit_json(_sample("dimer_nve.h5md"), capsys)
+    assert v["energy.fluctuation_ratio"]["level"] == "ok"  # sample made with R < 0.01 (common practice)
+    assert v["energy.drift"]["level"] == "ok"
+
+
+def test_sample_bigstep_flagged_on_drift_and_fluctuation(capsys):
+    code, data, v = _audit_json(_sample("dimer_nve_bigstep.h5md"), capsys)
+    assert code == 1
+    assert v["energy.drift"]["level"] in ("caution", "problem")
+    assert v["energy.fluctuation_ratio"]["level"] in ("caution", "problem")
+
+
+def test_sample_langevin_ok_on_conserved_quantity(capsys):
+    code, data, v = _audit_json(_sample("dimer_langevin.h5md"), capsys)
+    assert "conserved" in data["energy"]["series_label"] or "bath heat" in data["energy"]["series_label"]
+    assert data["energy"]["expected_conserved"]
+    assert v["energy.drift"]["level"] == "ok"
+    assert v["energy.fluctuation_ratio"]["level"] == "ok"
+
+
+# --- real engine: OpenMM rigid TIP3P water box, NVE at 1 fs and 4 fs (tests/engine_runs.py) -----------
+
+
+@pytest.mark.slow
+def test_openmm_water_temperature_and_4fs_flagged_worse(openmm_water_1fs, openmm_water_4fs):
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import drive
+    from phasewake.core.readers import open_run
+
+    r1 = drive(audit_run(open_run([openmm_water_1fs.paths["h5md"]])))
+    r4 = drive(audit_run(open_run([openmm_water_4fs.paths["h5md"]])))
+    # constraints counted: rigid water has 3 per molecule; OpenMM's own count (System.getNumConstraints)
+    assert r1.temperature.n_constraints == openmm_water_1fs.n_constraints
+    assert r1.temperature.n_dof == openmm_water_1fs.n_dof
+    # kinetic temperature equals OpenMM's own (its kinetic energy, its DOF count) within 0.1 K
+    assert r1.temperature.mean_K == pytest.approx(float(np.mean(openmm_water_1fs.temperature_K)), abs=0.1)
+    # the 4 fs run is worse: larger fluctuation ratio (FORMATS.md: ~9x spread seen at 4 fs)
+    f1 = r1.energy.fluctuations.ratio
+    f4 = r4.energy.fluctuations.ratio
+    assert f4 > 3 * f1
+    order = {"ok": 0, "info": 0, "caution": 1, "problem": 2}
+    assert order[r4.level] >= order[r1.level]
+    assert order[r4.level] >= 1
