@@ -76,15 +76,15 @@ def _claim_table(path: Path) -> bool:
 #: The registry, in the order claims are tried. Suffix lists are what each reader accepts.
 READERS: tuple[ReaderEntry, ...] = (
     ReaderEntry("h5md", "run", (".h5md", ".h5", ".hdf5"), "H5MD 1.1 (HDF5 with an /h5md group)", _claim_h5md),
-    ReaderEntry("mdtraj-hdf5", "run", (".h5",), "mdtraj's HDF5 trajectory (read with h5py)", _claim_mdtraj_h5),
+    ReaderEntry("mdtraj-hdf5", "run", (".h5", ".hdf5", ".lh5"), "mdtraj's HDF5 trajectory (read with h5py)", _claim_mdtraj_h5),
     ReaderEntry("trajectory", "trajectory",
                 (".dcd", ".xtc", ".trr", ".nc", ".ncdf", ".netcdf", ".lammpstrj", ".xyz", ".binpos",
-                 ".pdb", ".pdb.gz", ".gro", ".mdcrd", ".crd", ".arc", ".dtr", ".xml"),
+                 ".pdb", ".pdb.gz", ".gro", ".mdcrd", ".crd", ".arc", ".dtr"),
                 "trajectories read by mdtraj (lazily, in chunks)", _claim_trajectory),
     ReaderEntry("topology", "topology",
-                (".pdb", ".pdb.gz", ".gro", ".psf", ".prmtop", ".parm7", ".mol2", ".top", ".hoomdxml", ".cif", ".pdbx"),
+                (".pdb", ".pdb.gz", ".gro", ".psf", ".prmtop", ".parm7", ".mol2", ".hoomdxml", ".cif", ".pdbx"),
                 "topology files read by mdtraj", _claim_topology),
-    ReaderEntry("energy-table", "energy", (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene", ".xvg"),
+    ReaderEntry("energy-table", "energy", (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene"),
                 "energy tables: CSV/TSV/whitespace text with a header row", _claim_table),
 )
 

@@ -348,6 +348,7 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
         with _quiet_mdtraj(), cls(str(path)) as f:
             n = len(f)
             offsets = np.asarray(f.offsets, dtype=np.int64)
+        _check_xdr_complete(path, offsets, suf)
         t_xdr, step = _xdr_times(path, offsets, suf)
         info["step"] = step
         if suf == ".trr":
@@ -400,21 +401,54 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
 
 
 def _check_dcd_size(path: Path, n: int, n_atoms: int) -> None:
-    """A DCD file whose size is not header + n whole frames was cut short."""
-    with open(path, "rb") as f:
-        head = f.read(4)
-    size = path.stat().st_size
+    """A DCD file whose size is not header + n whole frames was cut short (mdtraj drops the cut frame)."""
     if n == 0:
         raise CorruptFileError("DCD file holds no complete frame (truncated?)", path=path)
-    del head
-    # frame size with a unit cell record: 56 + 3*(4*N + 8); without: 3*(4*N + 8)
-    frame = 3 * (4 * n_atoms + 8)
-    for with_cell in (56, 0):
-        rest = size - n * (frame + with_cell)
-        if 100 <= rest <= 100000:  # header length varies with titles
-            return
-    raise CorruptFileError(f"DCD file size {size} bytes does not hold {n} whole frames of {n_atoms} atoms "
-                           "(truncated?)", path=path)
+    with open(path, "rb") as f:
+        raw = f.read(4096)
+    endian = "<" if struct.unpack("<i", raw[:4])[0] == 84 else ">"
+    icntrl = struct.unpack(endian + "20i", raw[8:88])
+    has_cell = icntrl[10] != 0
+    four_d = icntrl[11] != 0
+    pos = 4 + 84 + 4
+    (tlen,) = struct.unpack(endian + "i", raw[pos : pos + 4])
+    header = pos + 4 + tlen + 4 + 12
+    frame = (56 if has_cell else 0) + (4 if four_d else 3) * (4 * n_atoms + 8)
+    size = path.stat().st_size
+    extra = size - header - n * frame
+    if extra != 0:
+        raise CorruptFileError(
+            f"DCD file ends {extra} bytes after its last whole frame ({n} frames of {n_atoms} atoms): "
+            "truncated or damaged" if extra > 0 else f"DCD file is {-extra} bytes short of {n} frames (truncated)",
+            path=path)
+
+
+def _check_xdr_complete(path: Path, offsets: np.ndarray, kind: str) -> None:
+    """The last XTC/TRR frame must end where the file ends; mdtraj silently drops a cut last frame."""
+    size = path.stat().st_size
+    if offsets.size == 0:
+        raise CorruptFileError(f"{kind[1:].upper()} file holds no complete frame (truncated?)", path=path)
+    off = int(offsets[-1])
+    with open(path, "rb") as f:
+        f.seek(off)
+        if kind == ".xtc":
+            head = f.read(92)
+            if len(head) < 56:
+                end = size + 1
+            else:
+                natoms = struct.unpack(">i", head[4:8])[0]
+                if natoms <= 9:
+                    end = off + 56 + 12 * natoms
+                else:
+                    nbytes = struct.unpack(">i", head[88:92])[0]
+                    end = off + 92 + (nbytes + 3) // 4 * 4
+        else:
+            h = _trr_header(f, path)
+            body = sum(h[k] for k in ("ir", "e", "box", "vir", "pres", "top", "sym", "x", "v", "f"))
+            end = f.tell() + body
+    if end != size:
+        raise CorruptFileError(f"{kind[1:].upper()} file has {size - end} bytes after its last whole frame "
+                               f"(frame {offsets.size}): truncated or damaged", path=path)
 
 
 def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
@@ -440,7 +474,8 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     except (CorruptFileError, MissingDataError, TopologyMismatchError):
         raise
     except (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, KeyError) as exc:
-        raise CorruptFileError(f"cannot read the trajectory ({type(exc).__name__}: {exc})", path=path) from exc
+        raise CorruptFileError(f"cannot read the trajectory, truncated or damaged? ({type(exc).__name__}: {exc})",
+                               path=path) from exc
     if n == 0:
         raise CorruptFileError("trajectory holds no frames", path=path)
     # atom count of the trajectory vs the topology
