@@ -78,7 +78,8 @@ def quiet_c_stdout() -> Iterator[None]:
             os.close(devnull)
         except OSError:
             saved = None
-        stack.enter_context(contextlib.redirect_stdout(open(os.devnull, "w")))  # noqa: SIM115
+        sink = stack.enter_context(open(os.devnull, "w"))  # noqa: SIM115
+        stack.enter_context(contextlib.redirect_stdout(sink))
         try:
             yield
         finally:
@@ -469,6 +470,11 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     if suf in _BINARY_WITH_MAGIC and magic != _BINARY_WITH_MAGIC[suf] and not (suf in (".nc", ".ncdf", ".netcdf") and magic == ".hdf5"):
         raise CorruptFileError(f"content is not {suf[1:].upper()} (no {suf[1:].upper()} signature at the start)",
                                path=path)
+    # atom count of the trajectory vs the topology
+    n_file = _atoms_in_file(path, top)
+    if n_file is not None and n_file != top.n_atoms:
+        raise TopologyMismatchError(f"trajectory has {n_file} atoms, the topology "
+                                    f"{top_path.name if top_path else path.name} has {top.n_atoms}", path=path)
     try:
         n, t, has_box, info = _count_and_time(path, top, warnings)
     except (CorruptFileError, MissingDataError, TopologyMismatchError):
@@ -478,11 +484,6 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
                                path=path) from exc
     if n == 0:
         raise CorruptFileError("trajectory holds no frames", path=path)
-    # atom count of the trajectory vs the topology
-    n_file = _atoms_in_file(path, top)
-    if n_file is not None and n_file != top.n_atoms:
-        raise TopologyMismatchError(f"trajectory has {n_file} atoms, the topology "
-                                    f"{top_path.name if top_path else path.name} has {top.n_atoms}", path=path)
     if t is None:
         t = np.arange(n, dtype=np.float64)
         warnings.append(f"{path.name}: the file holds no time axis; frames are numbered 0, 1, 2, ... (not ps). "
