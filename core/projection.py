@@ -23,6 +23,9 @@ Two routes:
   Martinsson and Tropp, SIAM Rev. 53, 217 (2011), Alg. 4.4 with a Rayleigh-Ritz step, Alg. 5.3):
   each pass multiplies the centred data by a thin block (n x d x l flops instead of n x d^2), so the
   cost grows with the number of components wanted, not with d^2. The total variance (trace) is exact.
+  With ``n_iter=0`` it reads the data once and uses the stabilised Nystrom approximation (Tropp,
+  Yurtsever, Udell and Cevher, NeurIPS 2017): the cheapest route, less accurate when the spectrum
+  decays slowly.
 
 Memory is bounded by the chunk size and d x d (exact) or d x l (randomized), never the file.
 """
@@ -153,6 +156,30 @@ def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> t
     return q, grad
 
 
+def _nystrom(omega: np.ndarray, y: np.ndarray, k: int, eps: float) -> tuple[np.ndarray, np.ndarray]:
+    """Leading eigenpairs of a PSD matrix C from one sketch Y = C Omega (Omega orthonormal, d x l).
+
+    The stabilised Nystrom approximation C ~ Y (Omega^T Y)^+ Y^T of Tropp, Yurtsever, Udell and
+    Cevher, "Fixed-rank approximation of a positive-semidefinite matrix from streaming data", NeurIPS
+    2017 (Alg. 3): shift by nu = sqrt(d) eps ||Y||, Cholesky of Omega^T Y_nu, SVD, remove the shift.
+    """
+    d = y.shape[0]
+    nu = np.sqrt(d) * eps * np.linalg.norm(y, 2)
+    y_nu = y + nu * omega
+    b = omega.T @ y_nu
+    b = 0.5 * (b + b.T)
+    try:
+        chol = np.linalg.cholesky(b)
+        e = np.linalg.solve(chol, y_nu.T).T
+    except np.linalg.LinAlgError:
+        w, v = np.linalg.eigh(b)
+        keep = w > w.max() * 1e-12
+        e = y_nu @ v[:, keep] / np.sqrt(w[keep])
+    u, sv, _ = np.linalg.svd(e, full_matrices=False)
+    lam = np.clip(sv**2 - nu, 0.0, None)
+    return lam[:k], u[:, :k]
+
+
 def _group_and_masses(run: Run, atom_indices: Sequence[int] | np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
     if atom_indices is None:
         idx = solute_atoms(run.topology, run.n_atoms)
@@ -194,7 +221,8 @@ def compute_pca(
         Switch it off for a system without overall rotation (e.g. independent oscillators).
     n_components : number of leading components kept (all eigenvalues are used for the ratio)
     method : "exact" (full covariance, eigh) or "randomized" (Halko et al. 2011)
-    n_iter, oversample, seed : randomized route only (power passes, extra columns, random seed)
+    n_iter, oversample, seed : randomized route only: extra passes of subspace iteration (0: a single
+        pass with the Nystrom approximation of Tropp et al. 2017), extra columns, random seed
     precision : "float32" (GEMM in float32, accumulated in float64 per chunk) or "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content
     """
@@ -259,7 +287,7 @@ def compute_pca(
     else:
         rng = np.random.default_rng(seed)
         ell = int(min(d, k_keep + max(0, oversample)))
-        q_block = rng.standard_normal((d, ell))
+        q_block, _ = np.linalg.qr(rng.standard_normal((d, ell)))
         z = np.zeros((d, ell))
         for it in range(n_iter + 1):
             z = np.zeros((d, ell))
@@ -278,16 +306,19 @@ def compute_pca(
             if it == 0:
                 n, s1 = n_it, s1_it
             mu = s1 / n
-            z = (z - n * np.outer(mu, mu @ q_block)) / (n - 1)  # = C Q
+            z = (z - n * np.outer(mu, mu @ q_block)) / (n - 1)  # = C Q, one pass over the data
             if it < n_iter:
                 q_block, _ = np.linalg.qr(z)
-        # Rayleigh-Ritz on the last orthonormal block: B = Q^T C Q
-        b = q_block.T @ z
-        b = 0.5 * (b + b.T)
-        w, v = np.linalg.eigh(b)
-        order = np.argsort(w)[::-1]
-        evals_k = np.clip(w[order][:k_keep], 0.0, None)
-        evecs_k = (q_block @ v[:, order])[:, :k_keep]
+        if n_iter == 0:
+            evals_k, evecs_k = _nystrom(q_block, z, k_keep, float(np.finfo(dt).eps))
+        else:
+            # Rayleigh-Ritz on the last orthonormal block: B = Q^T C Q (Halko et al. 2011, Alg. 5.3)
+            b = q_block.T @ z
+            b = 0.5 * (b + b.T)
+            w, v = np.linalg.eigh(b)
+            order = np.argsort(w)[::-1]
+            evals_k = np.clip(w[order][:k_keep], 0.0, None)
+            evecs_k = (q_block @ v[:, order])[:, :k_keep]
         mu = s1 / n
         total = float((sdiag - n * mu * mu).sum() / (n - 1))
     mean = mu + shift

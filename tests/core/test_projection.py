@@ -130,3 +130,14 @@ def test_pc_coordinate_has_unit_mass_and_matches_projection():
     np.testing.assert_allclose(s1.m_eff, 1.0, rtol=1e-9)  # orthogonal mass-weighted transform (7.3)
     np.testing.assert_allclose(s1.momentum, res.momenta[:, 0], atol=1e-6)
     assert s1.unit == "nm amu^1/2"
+
+
+def test_single_pass_nystrom_route():
+    """Tropp, Yurtsever, Udell and Cevher 2017: one pass, Nystrom approximation; checked against exact."""
+    pos, m = _correlated(n=5000, g=20, seed=5)
+    exact = pca_arrays(pos, m, n_components=3, fit=False, projections=False)
+    one = pca_arrays(pos, m, n_components=3, fit=False, method="randomized", n_iter=0, oversample=20,
+                     projections=False, seed=2)
+    np.testing.assert_allclose(one.eigenvalues, exact.eigenvalues, rtol=0.02)
+    overlap = np.abs(np.sum(one.eigenvectors[:, :2] * exact.eigenvectors[:, :2], axis=0))
+    assert np.all(overlap > 0.99)
