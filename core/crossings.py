@@ -624,7 +624,7 @@ def _replica_events(tr: Trace, replica: int, *, a_hi: float, b_lo: float, surfac
     else:
         dwells = np.zeros(0, DWELL_DTYPE)
         unassigned = float(t[-1] - t[0])
-    dt = float(np.median(np.diff(t))) if n > 1 else float("nan")
+    dt = float(t[-1] - t[0]) / (n - 1) if n > 1 else float("nan")  # mean spacing
     return _Replica(n=n, time_span_ps=float(t[-1] - t[0]), unassigned_ps=unassigned, dt_ps=dt,
                     events=events, paths=paths, dwells=dwells, crossing_i0=i0, crossing_f=f_c,
                     visited=(bool(sa.size), bool(sb.size)))
@@ -798,6 +798,7 @@ def crossings_work(
     temperature_K: float | None = None,
     kT_over_m_eff: float | None = None,
     test_dwells: bool = True,
+    kappa_time_series: bool = True,
 ) -> Work[CrossingsResult]:
     """Find crossings, paths, dwells, rates and transmission coefficients, pooled over replicas.
 
@@ -818,6 +819,11 @@ def crossings_work(
         percentile of the transition-path durations to twice that (at least 10 to 20 frames).
     temperature_K, kT_over_m_eff : optional
         Used for the TST flux factor when there are no velocities (kT_over_m_eff in (unit/ps)^2).
+    test_dwells : bool
+        Run the KS test of completed dwells against an exponential.
+    kappa_time_series : bool
+        Compute the reactive-flux kappa(t) (its cost grows with crossings x lags; overdamped data with
+        very many crossings may want it off).
 
     Yields :class:`~phasewake.core.progress.Progress`; returns a :class:`CrossingsResult`.
     """
@@ -942,7 +948,7 @@ def crossings_work(
     f_sum = 0.0
     f_n = 0
     for k, (tr, r) in enumerate(zip(trs, reps)):
-        if not math.isclose(r.dt_ps, dt, rel_tol=1e-3):
+        if not kappa_time_series or not math.isclose(r.dt_ps, dt, rel_tol=1e-3):
             continue
         a, b, c, d = reactive_flux(tr.values, r.crossing_i0, r.events["direction"], surface=surface,
                                    n_lags=n_lags)
@@ -1071,13 +1077,14 @@ def analyse_crossings(time_ps: np.ndarray, q: np.ndarray, qdot: np.ndarray | Non
                       unit: str = "", confidence: float = 0.95,
                       kappa_window_ps: tuple[float, float] | None = None,
                       temperature_K: float | None = None, kT_over_m_eff: float | None = None,
-                      test_dwells: bool = True) -> CrossingsResult:
+                      test_dwells: bool = True, kappa_time_series: bool = True) -> CrossingsResult:
     """One replica: time_ps (n,) ps, q (n,) unit, qdot (n,) unit/ps or None. See :func:`crossings_work`."""
     return result_of(crossings_work(
         [Trace(np.asarray(time_ps, float), np.asarray(q, float),
                None if qdot is None else np.asarray(qdot, float))],
         states=states, surface=surface, unit=unit, confidence=confidence, kappa_window_ps=kappa_window_ps,
-        temperature_K=temperature_K, kT_over_m_eff=kT_over_m_eff, test_dwells=test_dwells))
+        temperature_K=temperature_K, kT_over_m_eff=kT_over_m_eff, test_dwells=test_dwells,
+        kappa_time_series=kappa_time_series))
 
 
 # --------------------------------------------------------------------------------------------------
