@@ -10,13 +10,14 @@ no figure and a plain sentence saying so: the window never shows made-up data.
 from __future__ import annotations
 
 import importlib
+import threading
 from collections.abc import Callable, Generator
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
-from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec, series_style
+from phasewake.core.figures import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec, Style, series_style
 from phasewake.core.progress import Progress
 from phasewake.core.run import Run
 
@@ -77,6 +78,7 @@ class AnalysisContext:
     window_ps: tuple[float, float]
     coordinate: str = ""
     choices: dict[str, Any] = field(default_factory=dict)
+    others: tuple[Run, ...] = ()  # the other runs in the Runs list (replicas), whole
 
 
 Job = Callable[[AnalysisContext], Generator[Progress, None, PanelResult]]
@@ -97,6 +99,147 @@ def missing(what: str, module: str) -> PanelResult:
                                "so this panel has nothing to show. No data is made up.")
 
 
+# ---- helpers ----------------------------------------------------------------------------------
+
+KB_KJ_PER_MOL_K = 0.00831446261815324  # molar gas constant R/1000 (CODATA 2018, exact)
+
+
+class WindowFrames:
+    """A FrameSource restricted to frames [offset, offset + n_frames) of another one.
+
+    Chunk ``start`` indices are relative to the window, as for a run cut to that span.
+    """
+
+    def __init__(self, base: Any, offset: int, stop: int) -> None:
+        self.base = base
+        self.offset = int(offset)
+        self.n_frames = int(stop) - int(offset)
+        self.n_atoms = base.n_atoms
+        self.has_velocities = base.has_velocities
+        self.velocities_estimated = base.velocities_estimated
+        self.has_box = base.has_box
+
+    def iter_chunks(self, *, chunk_frames: int = 256, start: int = 0, stop: int | None = None,
+                    stride: int = 1, atom_indices: Any = None, velocities: bool = True) -> Any:
+        stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
+        for ch in self.base.iter_chunks(chunk_frames=chunk_frames, start=self.offset + int(start),
+                                        stop=self.offset + stop, stride=stride, atom_indices=atom_indices,
+                                        velocities=velocities):
+            ch.start = ch.start - self.offset
+            yield ch
+
+    def read_frame(self, index: int) -> Any:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (window has {self.n_frames})")
+        ch = self.base.read_frame(self.offset + index % self.n_frames)
+        ch.start -= self.offset
+        return ch
+
+
+def window_run(run: Run, start: int, stop: int) -> Run:
+    """The run cut to frames [start, stop) (energies cut to the same time span); no data copied."""
+    import dataclasses
+
+    from phasewake.core.run import EnergyTable
+
+    if start <= 0 and stop >= run.n_frames:
+        return run
+    t = run.time_ps
+    lo, hi = float(t[start]), float(t[stop - 1])
+    energies = run.energies
+    if energies is not None:
+        et = np.asarray(energies.time_ps, float)
+        sel = (et >= lo - 1e-9 * max(1.0, abs(lo))) & (et <= hi + 1e-9 * max(1.0, abs(hi)))
+        energies = EnergyTable(time_ps=et[sel], sources=energies.sources,
+                               series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
+                                       for k, v in energies.series.items()})
+    frames = None if run.frames is None else WindowFrames(run.frames, start, stop)
+    return dataclasses.replace(run, time_ps=t[start:stop], frames=frames, energies=energies,
+                               name=run.name)
+
+
+def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:
+    import dataclasses
+
+    from phasewake.core.run import EnergyTable
+
+    table = run.energies
+    if table is None or window_ps is None:
+        return table
+    t = np.asarray(table.time_ps, float)
+    sel = (t >= window_ps[0]) & (t <= window_ps[1])
+    return EnergyTable(time_ps=t[sel], sources=table.sources,
+                       series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
+                               for k, v in table.series.items()})
+
+
+def _relay(work: Any, lo: float, hi: float, total: float, label: str) -> Generator[Progress, None, Any]:
+    """Re-yield an inner generator's progress scaled into [lo, hi] of ``total``; return its result."""
+    try:
+        while True:
+            p = next(work)
+            frac = p.fraction if p.fraction is not None else 0.0
+            yield Progress(lo + (hi - lo) * frac, total, f"{label}: {p.message}" if p.message else label)
+    except StopIteration as stop:
+        return stop.value
+
+
+def _plots_figures(result: Any, **options: Any) -> list[FigureSpec]:
+    """Figures core.plots draws from ``result`` ([] when it has no builder for it yet)."""
+    plots = module_or_none("plots")
+    if plots is None or not hasattr(plots, "figures_for"):
+        return []
+    try:
+        return list(plots.figures_for(result, **options))
+    except TypeError:  # a builder that takes none of these options
+        return list(plots.figures_for(result))
+
+
+def temperature_of(run: Run) -> tuple[float | None, str]:
+    """The temperature to use for kT: the thermostat target, else the mean stored temperature."""
+    if run.metadata.temperature_K:
+        return float(run.metadata.temperature_K), "thermostat target"
+    if run.energies is not None:
+        s = run.energies.by_role("temperature")
+        if s is not None and np.isfinite(s.values).any():
+            return float(np.nanmean(s.values)), "mean temperature in the energy table"
+    return None, ""
+
+
+# A small cache of coordinate series, so the panels that share a coordinate read frames once.
+_CACHE: dict[tuple[int, str, int, int], Any] = {}
+_CACHE_LOCK = threading.Lock()
+_CACHE_SIZE = 8
+
+
+def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[Progress, None, Any]:
+    """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window)."""
+    key = (id(run), spec, start, stop)
+    with _CACHE_LOCK:
+        hit = _CACHE.get(key)
+    if hit is not None:
+        return hit
+    coords = module_or_none("coordinates")
+    if coords is None:
+        raise ModuleNotFoundError("phasewake.core.coordinates")
+    series = yield from _relay(coords.compute_coordinates(run, [spec], start=start, stop=stop), 0, 1, 1,
+                               f"coordinate {spec}")
+    with _CACHE_LOCK:
+        _CACHE[key] = series[0]
+        while len(_CACHE) > _CACHE_SIZE:
+            _CACHE.pop(next(iter(_CACHE)))
+    return series[0]
+
+
+def _need_coordinate(ctx: AnalysisContext) -> PanelResult | None:
+    if ctx.run.frames is None:
+        return PanelResult(message="This run has no frames (positions), so there is no coordinate to show.")
+    if not ctx.coordinate:
+        return PanelResult(message="No coordinate chosen yet: choose one with Analysis \u25b8 Coordinate\u2026 "
+                                   "(Ctrl+K).")
+    return None
+
+
 # ---- Energy ---------------------------------------------------------------------------------
 
 _ENERGY_GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (  # title, y label, roles
@@ -107,66 +250,543 @@ _ENERGY_GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (  # title, y lab
 
 
 def energy_series_figure(run: Run, window_ps: tuple[float, float] | None = None) -> FigureSpec | None:
-    """The energy table as plots against time (no analysis needed), restricted to ``window_ps``.
+    """The energy table against time, restricted to ``window_ps`` (None when there is no table).
 
-    Returns None when the run has no energy table.
+    Uses ``phasewake.core.plots.energy_series_figure`` when the build has it; this plain version is
+    what the window draws otherwise.
     """
-    table = run.energies
+    table = _table_in_window(run, window_ps)
     if table is None or len(table) == 0:
         return None
+    plots = module_or_none("plots")
+    if plots is not None and hasattr(plots, "energy_series_figure"):
+        return plots.energy_series_figure(table, run_name=run.name)
     t = np.asarray(table.time_ps, dtype=float)
-    sel = np.ones(t.size, dtype=bool)
-    if window_ps is not None:
-        sel = (t >= window_ps[0]) & (t <= window_ps[1])
-    plots = []
-    used: set[str] = set()
+    out = []
     for title, ylabel, roles in _ENERGY_GROUPS:
-        items = []
-        unit = ""
-        for s in table.series.values():
-            if s.role in roles:
-                items.append(Line(t[sel], np.asarray(s.values, float)[sel], label=s.name,
-                                  style=series_style(len(items))))
-                unit = s.unit
-                used.add(s.name)
+        items = [Line(t, np.asarray(s.values, float), label=s.name, style=series_style(i))
+                 for i, s in enumerate(s for s in table.series.values() if s.role in roles)]
         if items:
-            plots.append(PlotSpec(title=title, x=Axis("Time", "ps"), y=Axis(ylabel, unit),
-                                  items=tuple(items), x_is_time=True))
-    if not plots:  # only unclassified columns: show the first few as they are
-        for s in list(table.series.values())[:3]:
-            if s.role in ("time", "step") or s.name in used:
-                continue
-            plots.append(PlotSpec(title=s.name, x=Axis("Time", "ps"), y=Axis(s.name, s.unit),
-                                  items=(Line(t[sel], np.asarray(s.values, float)[sel], label=s.name),),
-                                  x_is_time=True))
-    if not plots:
+            unit = next(s.unit for s in table.series.values() if s.role in roles)
+            out.append(PlotSpec(title=title, x=Axis("Time", "ps"), y=Axis(ylabel, unit), items=tuple(items),
+                                x_is_time=True))
+    if not out:
         return None
-    return FigureSpec(key="energy.series", title=f"Energy table of {run.name}", plots=tuple(plots),
-                      caption="Series as stored in the run's energy table, against time.",
-                      provenance={"run": run.name})
+    return FigureSpec(key="energy.series", title=f"Energy table of {run.name}", plots=tuple(out),
+                      caption="Series as stored in the run's energy table, against time.")
 
 
 def energy_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """The energy table at once (no analysis needed): the fast first figure after opening."""
     yield Progress(0, None, "energy table")
     fig = energy_series_figure(ctx.run, ctx.window_ps)
     if fig is None:
-        return PanelResult(message="This run has no energy table, so the Energy panel has nothing to show.")
-    return PanelResult(figures=(fig,))
+        return PanelResult(message="This run has no energy table; the audit below uses the frames.")
+    figs = [fig]
+    plots = module_or_none("plots")
+    table = _table_in_window(ctx.run, ctx.window_ps)
+    if plots is not None and table is not None and table.by_role("temperature") is not None:
+        figs.append(plots.temperature_figure(table, target_K=ctx.run.metadata.temperature_K, run_name=ctx.run.name))
+    return PanelResult(figures=tuple(figs), message="The audit is running\u2026")
 
 
-def _not_yet(what: str, module: str) -> Job:
-    def job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
-        yield Progress(0, None, what)
-        return missing(what, module)
+def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
+    audit = module_or_none("audit")
+    quick = yield from energy_job(ctx)
+    if audit is None:
+        return PanelResult(figures=quick.figures, message="The energy audit (phasewake.core.audit) is not in "
+                                                          "this build yet: only the energy table is shown.")
+    run = window_run(ctx.run, ctx.start, ctx.stop)
+    res = yield from _relay(audit.audit_run(run), 0, 1, 1, "audit")
+    figs = list(_plots_figures(res, run_name=run.name))
+    if not figs:
+        figs = _audit_figures(res, run, ctx.window_ps)
+    if not figs:
+        figs = list(quick.figures)
+    from phasewake.core.verdicts import HEURISTIC_NOTE
 
-    return job
+    return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
+                       info={"audit": res})
+
+
+def _audit_figures(res: Any, run: Run, window_ps: tuple[float, float] | None) -> list[FigureSpec]:
+    plots = module_or_none("plots")
+    if plots is None:
+        return []
+    figs = []
+    table = _table_in_window(run, window_ps)
+    drift = None if res.energy is None else res.energy.drift
+    if table is not None and len(table):
+        figs.append(plots.energy_series_figure(
+            table, run_name=run.name,
+            drift_slope_kJ_per_mol_per_ps=None if drift is None else drift.slope_kJ_per_mol_per_ns * 1e-3,
+            drift_intercept_kJ_per_mol=None if drift is None else drift.intercept_kJ_per_mol))
+    temp = res.temperature
+    if temp is not None and np.size(temp.temperature_K):
+        figs.append(plots.temperature_figure(table, time_ps=temp.time_ps, kinetic_temperature_K=temp.temperature_K,
+                                             target_K=run.metadata.temperature_K, run_name=run.name,
+                                             label=f"kinetic temperature ({temp.kinetic_source})"))
+    elif table is not None and table.by_role("temperature") is not None:
+        figs.append(plots.temperature_figure(table, target_K=run.metadata.temperature_K, run_name=run.name))
+    ts = res.timestep
+    if ts is not None and np.size(ts.frequency_per_ps):
+        f = np.asarray(ts.frequency_per_ps, float)
+        pw = np.asarray(ts.power, float)
+        items: list[Any] = [Line(f, pw, label="mass-weighted velocity power", style=series_style(0))]
+        if ts.fastest is not None and hasattr(ts.fastest, "frequency_per_ps"):
+            items.append(Mark("vline", float(ts.fastest.frequency_per_ps), label="fastest motion",
+                              role="threshold"))
+        figs.append(FigureSpec(key="audit.timestep_spectrum", title="Velocity power spectrum",
+                               plots=(PlotSpec(title="Velocity power spectrum (time-step check)",
+                                               x=Axis("Frequency", "1/ps"), y=Axis("Power", "arb. units"),
+                                               items=tuple(items)),),
+                               caption=ts.note))
+    return figs
+
+
+# ---- Phase space ----------------------------------------------------------------------------
+
+def _portrait(x: np.ndarray, y: np.ndarray, *, key: str, title: str, xa: Axis, ya: Axis, caption: str,
+              label: str) -> FigureSpec:
+    style = Style(colour="#0072B2", width=1.0, alpha=0.55)
+    return FigureSpec(key=key, title=title, caption=caption, plots=(
+        PlotSpec(title=title, x=xa, y=ya, legend=False, items=(Line(x, y, label=label, style=style),)),))
+
+
+def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """Coordinate against its conjugate momentum, its density, a Poincaré-style section, and PCA."""
+    need = _need_coordinate(ctx)
+    if need is not None:
+        return need
+    if module_or_none("coordinates") is None:
+        return missing("The phase-space analysis", "coordinates")
+    s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
+    figs: list[FigureSpec] = []
+    traces: dict[str, Trace] = {}
+    q = np.asarray(s.values, float)
+    est = " (velocities estimated from positions)" if s.velocities_estimated else ""
+    if s.momentum is not None:
+        p, pu, pname = np.asarray(s.momentum, float), s.momentum_unit, "Conjugate momentum"
+    elif s.velocity is not None:
+        p, pu, pname = np.asarray(s.velocity, float), s.velocity_unit, "Rate of change"
+    else:
+        p = None
+    xa = Axis(s.label or s.spec, s.unit)
+    if p is not None:
+        ya = Axis(pname, pu)
+        figs.append(_portrait(q, p, key="phase.portrait", title=f"Phase portrait of {s.label or s.spec}",
+                              xa=xa, ya=ya, label=s.spec,
+                              caption=f"{s.spec} against its conjugate momentum p = m_eff dq/dt{est}, frames "
+                                      f"{ctx.start}\u2013{ctx.stop - 1}. The large dot is the cursor's frame."))
+        traces["phase.portrait"] = Trace(np.asarray(s.time_ps, float), q, p)
+        land = module_or_none("landscape")
+        if land is not None:
+            h = land.histogram_2d(q, p, x_unit=s.unit, y_unit=pu)
+            dens = np.where(h.counts > 0, h.density, np.nan)
+            figs.append(FigureSpec(
+                key="phase.density", title=f"Phase-space density of {s.label or s.spec}",
+                caption=f"Histogram of ({s.spec}, p) over the window, {h.n_samples} frames; empty cells blank.",
+                plots=(PlotSpec(title=f"Phase-space density of {s.label or s.spec}", x=xa, y=ya, legend=False,
+                                items=(Image(dens, h.x_edges, h.y_edges, colorbar_label="density"),)),)))
+    figs.append(FigureSpec(key="phase.series", title=f"{s.label or s.spec} against time", plots=(
+        PlotSpec(title=f"{s.label or s.spec} against time", x=Axis("Time", "ps"), y=xa, x_is_time=True,
+                 legend=False, items=(Line(np.asarray(s.time_ps, float), q, label=s.spec),)),),
+        caption=f"The coordinate {s.spec} frame by frame."))
+    # principal components of the solute, when the projection module is here and the run is small enough
+    proj = module_or_none("projection")
+    info: dict[str, Any] = {"coordinate": s}
+    if proj is not None and ctx.run.n_atoms >= 2:
+        try:
+            pca = yield from _relay(proj.compute_pca(window_run(ctx.run, ctx.start, ctx.stop), n_components=3),
+                                    0, 1, 1, "principal components")
+        except Exception as exc:  # noqa: BLE001 - PCA is an extra; its failure must not hide the portrait
+            info["pca_error"] = str(exc)
+        else:
+            figs.extend(_pca_figures(pca, traces))
+            info["pca"] = pca
+    return PanelResult(figures=tuple(figs), traces=traces, info=info)
+
+
+def _pca_figures(pca: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
+    out = []
+    ev = np.asarray(pca.explained_variance_ratio, float)
+    k = np.arange(1, ev.size + 1, dtype=float)
+    out.append(FigureSpec(key="phase.pca_variance", title="Principal components: explained variance",
+                          caption=f"Fraction of the total variance per principal component ({pca.n_frames} frames, "
+                                  f"{'mass-weighted' if pca.mass_weighted else 'unweighted'}, "
+                                  f"{'after optimal superposition' if pca.fit else 'no fit'}).",
+                          plots=(PlotSpec(title="Explained variance", x=Axis("Component"),
+                                          y=Axis("Fraction of variance"), legend=False,
+                                          items=(Line(k, ev, kind="bar", label="explained variance"),)),)))
+    if pca.projections is not None and pca.time_ps is not None and pca.projections.shape[1] >= 1:
+        q1 = np.asarray(pca.projections[:, 0], float)
+        t = np.asarray(pca.time_ps, float)
+        if pca.momenta is not None:
+            p1 = np.asarray(pca.momenta[:, 0], float)
+            out.append(_portrait(q1, p1, key="phase.pc1", title="First principal component: phase portrait",
+                                 xa=Axis("PC 1", pca.projection_unit), ya=Axis("Momentum of PC 1", pca.momentum_unit),
+                                 label="pc(1)", caption="Projection on the first principal component against its "
+                                                        "momentum (mass-weighted velocities projected)."))
+            traces["phase.pc1"] = Trace(t, q1, p1)
+        if pca.projections.shape[1] >= 2:
+            q2 = np.asarray(pca.projections[:, 1], float)
+            out.append(_portrait(q1, q2, key="phase.pc12", title="Principal components 1 and 2",
+                                 xa=Axis("PC 1", pca.projection_unit), ya=Axis("PC 2", pca.projection_unit),
+                                 label="pc(1), pc(2)", caption="The run projected on its first two principal "
+                                                               "components."))
+            traces["phase.pc12"] = Trace(t, q1, q2)
+    return out
+
+
+# ---- Correlation ----------------------------------------------------------------------------
+
+def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    corr = module_or_none("correlation")
+    if corr is None:
+        return missing("The correlation analysis", "correlation")
+    figs: list[FigureSpec] = []
+    notes: list[str] = []
+    run = ctx.run
+    plots = module_or_none("plots")
+    series: list[tuple[str, np.ndarray, float, str]] = []
+    table = _table_in_window(run, ctx.window_ps)
+    if table is not None and len(table) > 8:
+        for role in ("potential", "total", "temperature"):
+            s = table.by_role(role)
+            if s is not None:
+                t = np.asarray(table.time_ps, float)
+                series.append((s.name, np.asarray(s.values, float), float(np.median(np.diff(t))), s.unit))
+                break
+    if ctx.coordinate and run.frames is not None and module_or_none("coordinates") is not None:
+        cs = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
+        t = np.asarray(cs.time_ps, float)
+        if t.size > 8:
+            series.append((cs.spec, np.asarray(cs.values, float), float(np.median(np.diff(t))), cs.unit))
+    verdicts = []
+    for i, (name, x, dt, unit) in enumerate(series):
+        yield Progress(i, len(series) + 2, f"autocorrelation of {name}")
+        res = corr.analyse_series(x, dt_ps=dt, unit=unit)
+        figs.append(plots.autocorrelation_figure(res, name=name) if plots else _acf_plain(res, name))
+        verdicts.append(corr.judge_ess(res, name=name))
+        blk = corr.blocking(x, unit=unit)
+        if plots is not None:
+            figs.append(plots.blocking_figure(blk, name=name))
+    vel = module_or_none("velocity")
+    if vel is not None and run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
+        yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
+        sub = window_run(run, ctx.start, ctx.stop)
+        v = yield from _relay(vel.vacf(sub), 0, 1, 1, "VACF")
+        figs.extend(_plots_figures(v) or [_vacf_figure(v)])
+        d = yield from _relay(vel.vibrational_spectrum(sub), 0, 1, 1, "vibrational spectrum")
+        figs.extend(_plots_figures(d) or [_vdos_figure(d)])
+    elif run.frames is not None and not run.has_velocities:
+        notes.append("No velocities: the VACF and the vibrational spectrum need them.")
+    if not figs:
+        return PanelResult(message="Nothing to correlate: the run has no energy series and no coordinate.")
+    # the ACF of a series in time: give the keys a suffix so each can be chosen on its own
+    figs = [_rekey(f, i) for i, f in enumerate(figs)]
+    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes))
+
+
+def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
+    import dataclasses
+
+    return dataclasses.replace(fig, key=f"{fig.key}.{i}")
+
+
+def _acf_plain(res: Any, name: str) -> FigureSpec:
+    return FigureSpec(key="correlation.acf", title=f"Autocorrelation of {name}", plots=(
+        PlotSpec(title=f"Autocorrelation of {name}", x=Axis("Lag", "ps"), y=Axis("Autocorrelation"),
+                 items=(Line(res.acf_lag_ps, res.acf, label=name),)),))
+
+
+def _vacf_figure(v: Any) -> FigureSpec:
+    lag = np.asarray(v.lag_ps, float)
+    items = tuple(Line(lag, np.asarray(v.vacf[i], float), label=g, style=series_style(i))
+                  for i, g in enumerate(v.groups))
+    est = " Velocities estimated from positions." if v.velocities_estimated else ""
+    return FigureSpec(key="velocity.vacf", title="Velocity autocorrelation", caption=(
+        f"Normalised velocity autocorrelation per atom group, {v.n_frames} frames, {v.dt_ps:.3g} ps apart." + est),
+        plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps"),
+                        y=Axis("VACF", v.unit), items=items),))
+
+
+def _vdos_figure(d: Any) -> FigureSpec:
+    items: list[Any] = [Line(np.asarray(d.wavenumber_cm1, float), np.asarray(d.intensity, float),
+                             label="density of states", style=series_style(0))]
+    if d.highest_significant_peak_cm1 is not None:
+        items.append(Mark("vline", float(d.highest_significant_peak_cm1), label="highest peak", role="threshold"))
+    return FigureSpec(key="velocity.vdos", title="Vibrational density of states", caption=(
+        f"Cosine transform of the mass-weighted VACF with a {d.window} window; resolution "
+        f"{d.resolution_cm1:.3g} cm^-1, Nyquist {d.nyquist_cm1:.4g} cm^-1."),
+        plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm^-1"),
+                        y=Axis("Density of states", d.intensity_unit), items=tuple(items)),))
+
+
+# ---- Sampling -------------------------------------------------------------------------------
+
+def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """Running averages, coverage of phase space, segment divergence and R-hat (within and across runs)."""
+    sampling = module_or_none("sampling")
+    yield Progress(0, None, "sampling")
+    if sampling is None:
+        return missing("The sampling analysis (R-hat, coverage, running averages)", "sampling")
+    from phasewake.core.errors import PhasewakeError
+
+    figs: list[FigureSpec] = []
+    verdicts: list[Any] = []
+    notes: list[str] = []
+    run = ctx.run
+    series: list[tuple[str, str, np.ndarray, np.ndarray, str]] = []  # name, key, time, values, unit
+    q_series = None
+    if ctx.coordinate and run.frames is not None and module_or_none("coordinates") is not None:
+        q_series = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
+        series.append((q_series.spec, "coordinate", np.asarray(q_series.time_ps, float),
+                       np.asarray(q_series.values, float), q_series.unit))
+    table = _table_in_window(run, ctx.window_ps)
+    if table is not None and len(table) > 16:
+        s = table.by_role("potential") or table.by_role("total")
+        if s is not None:
+            series.append((s.name, "energy", np.asarray(table.time_ps, float), np.asarray(s.values, float), s.unit))
+    for name, key, t, x, unit in series:
+        if t.size < 16:
+            continue
+        dt = float(np.median(np.diff(t)))
+        try:
+            ra = sampling.running_average(x, dt_ps=dt, unit=unit)
+            verdicts.append(sampling.judge_rhat(sampling.rhat_segments(x), name=name))
+            verdicts.append(sampling.judge_divergence(sampling.segment_divergence(x), name=name))
+        except PhasewakeError as exc:
+            notes.append(f"{name}: {exc}")
+            continue
+        rt = np.asarray(ra.time_ps, float) + float(t[0])
+        mean = np.asarray(ra.mean, float)
+        sem = np.asarray(ra.sem, float)
+        figs.append(FigureSpec(
+            key=f"sampling.running.{key}", title=f"Running average of {name}",
+            caption=(f"Mean of {name} over the frames up to each time, with \u00b11 standard error (g = "
+                     f"{ra.statistical_inefficiency:.3g}, Sokal). A curve that still drifts at the end has not "
+                     "settled."),
+            plots=(PlotSpec(title=f"Running average of {name}", x=Axis("Time", "ps"), y=Axis(name, unit),
+                            x_is_time=True, items=(
+                                Band(rt, mean - sem, mean + sem, label="\u00b11 standard error",
+                                     style=Style(colour="#56B4E9", alpha=0.3)),
+                                Line(rt, mean, label="running mean", style=series_style(0)))),)))
+    if q_series is not None and q_series.momentum is not None and q_series.values.size > 16:
+        t = np.asarray(q_series.time_ps, float)
+        cov = sampling.coverage_over_time(q_series.values, q_series.momentum, dt_ps=float(np.median(np.diff(t))))
+        figs.append(FigureSpec(
+            key="sampling.coverage", title="Phase-space coverage over time",
+            caption=(f"Fraction of the cells of a fixed grid in ({q_series.spec}, p) visited by each time. A "
+                     "curve still rising at the end means the run is still finding new regions."),
+            plots=(PlotSpec(title="Phase-space coverage over time", x=Axis("Time", "ps"),
+                            y=Axis("Fraction of cells visited"), x_is_time=True, legend=False,
+                            items=(Line(np.asarray(cov.time_ps, float) + float(t[0]), np.asarray(cov.fraction, float),
+                                        label="coverage", style=series_style(0, marker=True)),)),)))
+    # across replicas: R-hat of the coordinate between all runs loaded with the same atom count
+    others = [r for r in ctx.others if r.n_atoms == run.n_atoms and r.frames is not None]
+    if others and q_series is not None:
+        chains = [np.asarray(q_series.values, float)]
+        for k, other in enumerate(others):
+            yield Progress(k, len(others), f"replica {other.name}")
+            o = yield from coordinate_series(other, ctx.coordinate, 0, other.n_frames)
+            chains.append(np.asarray(o.values, float))
+        n = min(c.size for c in chains)
+        try:
+            verdicts.append(sampling.judge_rhat(sampling.rhat(np.stack([c[:n] for c in chains])),
+                                                name=f"{ctx.coordinate} across {len(chains)} runs"))
+        except PhasewakeError as exc:
+            notes.append(f"R-hat across runs: {exc}")
+    if not figs and not verdicts:
+        return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
+    from phasewake.core.verdicts import HEURISTIC_NOTE
+
+    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
+
+
+# ---- Crossings and Landscape ----------------------------------------------------------------
+
+def _given_states(ctx: AnalysisContext) -> tuple[tuple[float, float] | None, float | None]:
+    """States and surface dragged on the Landscape panel (choice 'landscape_marks')."""
+    marks = ctx.choices.get("landscape_marks") or {}
+    a = marks.get("state:A")
+    b = marks.get("state:B")
+    surf = marks.get("surface:dividing surface")
+    states = (float(a[0]), float(b[0])) if a and b else None
+    return states, (float(surf[0]) if surf else None)
+
+
+def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    need = _need_coordinate(ctx)
+    if need is not None:
+        return need
+    cr = module_or_none("crossings")
+    if cr is None or module_or_none("coordinates") is None:
+        return missing("The crossings analysis", "crossings")
+    s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
+    temp, _ = temperature_of(ctx.run)
+    states, surface = _given_states(ctx)
+    kt_m = None
+    if temp is not None and s.m_eff is not None and np.all(np.isfinite(s.m_eff)):
+        kt_m = float(KB_KJ_PER_MOL_K * temp * np.mean(1.0 / np.asarray(s.m_eff, float)))
+    res = yield from _relay(cr.crossings_work([cr.as_trace(s, name=ctx.run.name)], states=states, surface=surface,
+                                              unit=s.unit, temperature_K=temp, kT_over_m_eff=kt_m), 0, 1, 1,
+                            "crossings")
+    events = _event_rows(res, ctx)
+    mine = _crossings_figures(res, s)
+    # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
+    figs = mine[:1] + (_plots_figures(res) or mine[1:])
+    msg = (f"{res.n_transitions} transitions and {res.n_recrossings} recrossings of the dividing surface "
+           f"{res.settings.surface:.4g} {res.settings.unit} (states: A \u2264 {res.settings.a_hi:.4g}, "
+           f"B \u2265 {res.settings.b_lo:.4g}; {res.settings.states_source}).")
+    return PanelResult(figures=tuple(figs), events=events, verdicts=tuple(res.verdicts), message=msg,
+                       info={"crossings": res})
+
+
+def _event_rows(res: Any, ctx: AnalysisContext) -> tuple[EventRow, ...]:
+    ev = res.events
+    rows = []
+    paths = res.paths
+    for r in ev:
+        start_ps = end_ps = None
+        if int(r["path"]) >= 0 and paths is not None and len(paths):
+            pr = paths[int(r["path"])]
+            names = pr.dtype.names or ()
+            s_key = next((n for n in ("start_ps", "exit_ps", "t_start_ps", "time_start_ps") if n in names), None)
+            e_key = next((n for n in ("end_ps", "entry_ps", "t_end_ps", "time_end_ps") if n in names), None)
+            if s_key and e_key:
+                start_ps, end_ps = float(pr[s_key]), float(pr[e_key])
+        if start_ps is None:  # a few frames around the crossing
+            dt = float(res.frame_spacing_ps)
+            start_ps, end_ps = float(r["time_ps"]) - 5 * dt, float(r["time_ps"]) + 5 * dt
+        dur = float(r["path_duration_ps"])
+        rows.append(EventRow(index=int(r["index"]), time_ps=float(r["time_ps"]), frame=int(r["frame"]) + ctx.start,
+                             kind=str(r["kind"]), direction=int(r["direction"]), from_state=str(r["from_state"]),
+                             to_state=str(r["to_state"]), velocity=float(r["velocity"]),
+                             velocity_unit=res.velocity_unit, duration_ps=None if not np.isfinite(dur) else dur,
+                             start_ps=start_ps, end_ps=end_ps, replica=int(r["replica"])))
+    return tuple(rows)
+
+
+def _crossings_figures(res: Any, s: Any) -> list[FigureSpec]:
+    st = res.settings
+    t = np.asarray(s.time_ps, float)
+    q = np.asarray(s.values, float)
+    marks = (Mark("hspan", float(np.nanmin(q)), st.a_hi, label="state A", role="state",
+                  style=Style(colour="#56B4E9")),
+             Mark("hspan", st.b_lo, float(np.nanmax(q)), label="state B", role="state",
+                  style=Style(colour="#E69F00")),
+             Mark("hline", st.surface, label="dividing surface", role="surface",
+                  style=Style(colour="#000000", dash="dash", width=1.2)))
+    ev = res.events
+    pts = []
+    for kind, colour, marker in (("transition", "#0072B2", "o"), ("recrossing", "#D55E00", "x")):
+        sel = ev["kind"] == kind
+        if np.any(sel):
+            pts.append(Line(ev["time_ps"][sel], np.full(int(sel.sum()), st.surface), label=f"{kind}s",
+                            kind="scatter", style=Style(colour=colour, marker=marker, marker_size=8)))
+    figs = [FigureSpec(key="crossings.series", title=f"Crossings of {s.label or s.spec}", caption=(
+        f"{s.spec} against time with the two core states (shaded) and the dividing surface (dashed); "
+        f"dots: transitions, crosses: recrossings. {res.n_transitions} transitions, {res.n_recrossings} "
+        "recrossings."), plots=(PlotSpec(
+            title=f"Crossings of {s.label or s.spec}", x=Axis("Time", "ps"), y=Axis(s.label or s.spec, s.unit),
+            x_is_time=True, items=(Line(t, q, label=s.spec, style=Style(colour="#555555", width=1.0)),
+                                   *marks, *pts)),))]
+    d = res.dwells
+    if d is not None and len(d):
+        names = d.dtype.names or ()
+        dur_key = next((n for n in ("duration_ps", "dwell_ps", "length_ps") if n in names), None)
+        state_key = "state" if "state" in names else None
+        if dur_key and state_key:
+            items = []
+            for i, stt in enumerate(("A", "B")):
+                v = np.asarray(d[dur_key][d[state_key] == stt], float)
+                v = v[np.isfinite(v)]
+                if v.size:
+                    edges = np.linspace(0.0, float(v.max()) * 1.05 + 1e-12, min(30, max(5, v.size // 2)) + 1)
+                    counts, _ = np.histogram(v, edges)
+                    items.append(Line(edges, counts.astype(float), kind="step", label=f"in state {stt}",
+                                      style=series_style(i)))
+            if items:
+                figs.append(FigureSpec(key="crossings.dwells", title="Dwell times", caption=(
+                    "Histogram of the time spent in each state between transitions (censored first and last "
+                    "stays included)."), plots=(PlotSpec(title="Dwell times", x=Axis("Dwell time", "ps"),
+                                                        y=Axis("Count"), items=tuple(items)),)))
+    k = res.kappa
+    if k is not None and np.size(k.lag_ps):
+        figs.append(FigureSpec(key="crossings.kappa", title="Transmission coefficient", caption=k.assumptions,
+                               plots=(PlotSpec(title="Reactive flux \u03ba(t)", x=Axis("Time after crossing", "ps"),
+                                               y=Axis("\u03ba(t)"), items=(
+                                                   Line(np.asarray(k.lag_ps, float), np.asarray(k.kappa, float),
+                                                        label="both directions", style=series_style(0)),
+                                                   Mark("hline", float(k.plateau), label="plateau",
+                                                        role="threshold"))),)))
+    return figs
+
+
+def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    need = _need_coordinate(ctx)
+    if need is not None:
+        return need
+    land = module_or_none("landscape")
+    if land is None or module_or_none("coordinates") is None:
+        return missing("The free-energy landscape", "landscape")
+    s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
+    temp, source = temperature_of(ctx.run)
+    if temp is None:
+        return PanelResult(message="The free-energy profile needs a temperature: state the thermostat "
+                                   "temperature in the Runs list (the files do not say).")
+    jac = "distance" if s.spec.replace(" ", "").startswith("distance(") else "none"
+    try:
+        prof = land.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit, jacobian=jac)
+    except TypeError:
+        prof = land.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit)
+    states, surface = _given_states(ctx)
+    cr = module_or_none("crossings")
+    if states is None and cr is not None:
+        try:
+            sug = cr.suggest_states(np.asarray(s.values, float), unit=s.unit)
+            states, surface = (sug.a_hi, sug.b_lo), (surface if surface is not None else sug.surface)
+        except Exception:  # noqa: BLE001 - a profile without two states is still worth drawing
+            states = None
+    if surface is None and states is not None:
+        surface = 0.5 * (states[0] + states[1])
+    figs = _plots_figures(prof) or [_profile_figure(prof, s, states, surface, temp, source)]
+    return PanelResult(figures=tuple(figs), info={"profile": prof, "states": states, "surface": surface})
+
+
+def _profile_figure(prof: Any, s: Any, states: tuple[float, float] | None, surface: float | None,
+                    temp: float, source: str) -> FigureSpec:
+    x = np.asarray(prof.centers, float)
+    f = np.asarray(prof.free_energy_kJ_per_mol, float)
+    e = np.asarray(prof.error_kJ_per_mol, float)
+    items: list[Any] = [Band(x, f - e, f + e, label="\u00b1 block error", style=Style(colour="#56B4E9", alpha=0.3)),
+                        Line(x, f, label="free energy", style=series_style(0, marker=True))]
+    if states is not None:
+        items.append(Mark("vline", float(states[0]), label="A", role="state",
+                          style=Style(colour="#009E73", dash="dashdot", width=2.0)))
+        items.append(Mark("vline", float(states[1]), label="B", role="state",
+                          style=Style(colour="#E69F00", dash="dashdot", width=2.0)))
+    if surface is not None:
+        items.append(Mark("vline", float(surface), label="dividing surface", role="surface",
+                          style=Style(colour="#000000", dash="dash", width=2.0)))
+    bar = "; ".join(f"barrier {b.position:.3g} {prof.unit}" for b in prof.barriers[:2]) if prof.barriers else ""
+    return FigureSpec(key="landscape.profile", title=f"Free-energy profile along {s.label or s.spec}", caption=(
+        f"F(q) = \u2212kT ln P(q) at T = {temp:.4g} K ({source}), {prof.n_samples} frames, error bars from "
+        f"{prof.n_blocks} blocks, Jacobian: {prof.jacobian}. Vertical lines: the edge of core A (q \u2264 A), "
+        f"of core B (q \u2265 B) and the dividing surface; drag them to redefine them. {bar}"),
+        plots=(PlotSpec(title=f"Free-energy profile along {s.label or s.spec}", x=Axis(s.label or s.spec, s.unit),
+                        y=Axis("Free energy", "kJ/mol"), items=tuple(items)),))
 
 
 PANEL_JOBS: dict[str, Job] = {
-    "Energy": energy_job,
-    "Phase space": _not_yet("The phase-space analysis", "coordinates"),
-    "Correlation": _not_yet("The correlation analysis", "correlation"),
-    "Sampling": _not_yet("The sampling analysis", "sampling"),
-    "Crossings": _not_yet("The crossings analysis", "crossings"),
-    "Landscape": _not_yet("The free-energy landscape", "landscape"),
+    "Energy": audit_job,
+    "Phase space": phase_job,
+    "Correlation": correlation_job,
+    "Sampling": sampling_job,
+    "Crossings": crossings_job,
+    "Landscape": landscape_job,
 }
+# The first figure after opening: the energy table alone (no analysis), drawn before the audit runs.
+FIRST_JOB: Job = energy_job

@@ -14,7 +14,7 @@ from typing import Any
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from phasewake.app.window import session as session_io
-from phasewake.app.window.analyses import PANEL_JOBS, PANELS, AnalysisContext, PanelResult
+from phasewake.app.window.analyses import FIRST_JOB, PANEL_JOBS, PANELS, AnalysisContext, PanelResult
 from phasewake.app.window.model import RunEntry, RunSettings, WindowModel, apply_settings
 from phasewake.app.window.panels import PANEL_CLASSES, Panel
 from phasewake.app.window.ruler import TimeRuler
@@ -344,8 +344,9 @@ class MainWindow(QtWidgets.QMainWindow):
         if e is None:
             return None
         start, stop = self.model.window_frames()
+        others = tuple(o.run for o in self.model.entries if o is not e)
         return AnalysisContext(run=e.run, start=start, stop=stop, window_ps=self.model.effective_window_ps,
-                               coordinate=self.model.coordinate, choices=self.model.choices)
+                               coordinate=self.model.coordinate, choices=self.model.choices, others=others)
 
     def recompute(self) -> None:
         """Compute every panel of the current run: Energy first, the others once it is drawn."""
@@ -359,14 +360,18 @@ class MainWindow(QtWidgets.QMainWindow):
         if only:
             self._start_panels(ctx, only)
         else:
-            self._start_panels(ctx, ("Energy",))
+            # the energy table first (no analysis: drawn at once), then everything else
+            self.panels["Energy"].show_busy()
+            self.jobs.start("Energy", lambda: FIRST_JOB(ctx), label="Energy table")
             self._rest_pending = True
 
     def _start_panels(self, ctx: AnalysisContext, names: Sequence[str]) -> None:
         for name in names:
             job = PANEL_JOBS[name]
             self.panels[name].show_busy()
-            self.jobs.start(name, lambda job=job, ctx=ctx: job(ctx), label=f"{name} panel")
+            key = "Energy#audit" if name == "Energy" else name
+            self.jobs.start(key, lambda job=job, ctx=ctx: job(ctx), label="Energy audit" if name == "Energy"
+                            else f"{name} panel")
 
     def _job_started(self, key: str, label: str) -> None:
         self.progress.show()
@@ -402,14 +407,18 @@ class MainWindow(QtWidgets.QMainWindow):
         if key.startswith("export:"):
             self._export_finished(outcome)
             return
-        panel = self.panels.get(key)
+        name = key.split("#")[0]
+        panel = self.panels.get(name)
         if panel is None:
             return
         if outcome.cancelled:
             panel.show_cancelled()
+        elif outcome.error and key.endswith("#audit") and panel.result is not None and panel.result.figures:
+            panel.add_note(f"The audit could not run: {outcome.error}")  # keep the energy table shown
+            self.say(f"Energy audit: {outcome.error.splitlines()[0]}")
         elif outcome.error:
             panel.show_error(outcome.error)
-            self.say(f"{key} panel: {outcome.error.splitlines()[0]}")
+            self.say(f"{name} panel: {outcome.error.splitlines()[0]}")
         else:
             result: PanelResult = outcome.result
             panel.show_result(result)
@@ -419,7 +428,7 @@ class MainWindow(QtWidgets.QMainWindow):
             self._rest_pending = False
             ctx = self.context()
             if ctx is not None:
-                self._start_panels(ctx, [n for n in PANELS if n != "Energy"])
+                self._start_panels(ctx, PANELS)
 
     def wait_idle(self, timeout_ms: int = 20_000) -> bool:
         """Process events until no job is running (tests and screenshots)."""

@@ -46,11 +46,13 @@ class Panel(QtWidgets.QWidget):
         self.chooser.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)
         self.chooser.currentIndexChanged.connect(self._chooser_changed)
         self.chooser_label = QtWidgets.QLabel("Show:")
-        self.notes = QtWidgets.QLabel()
-        self.notes.setWordWrap(True)
-        self.notes.setTextFormat(QtCore.Qt.TextFormat.RichText)
-        self.notes.setTextInteractionFlags(QtCore.Qt.TextInteractionFlag.TextSelectableByMouse)
+        self.notes = QtWidgets.QTextBrowser()  # verdicts and notes; scrolls when there are many
+        self.notes.setObjectName("panelNotes")
+        self.notes.setOpenLinks(False)
+        self.notes.setMaximumHeight(120)
+        self.notes.setFrameShape(QtWidgets.QFrame.Shape.NoFrame)
         self.notes.hide()
+        self._note_lines: list[str] = []
         top = QtWidgets.QHBoxLayout()
         top.addWidget(self.chooser_label)
         top.addWidget(self.chooser)
@@ -77,16 +79,21 @@ class Panel(QtWidgets.QWidget):
     def show_error(self, text: str) -> None:
         self.result = None
         self.view.show_message(f"The {self.name} analysis could not run:\n{text}")
-        self.notes.hide()
+        self._note_lines = []
+        self._set_notes()
 
     def show_cancelled(self) -> None:
         if self.result is None or not self.result.figures:
             self.view.show_message(f"The {self.name} computation was cancelled. Press F5 to compute it again.")
+        else:
+            self.add_note("The new computation was cancelled: the figures are from before. Press F5 to "
+                          "compute again.")
 
     def show_empty(self) -> None:
         self.result = None
         self._set_chooser_visible(False)
-        self.notes.hide()
+        self._note_lines = []
+        self._set_notes()
         self.view.show_message("No run is open. Open run files with File \u25b8 Open run files\u2026 "
                                "or drop them on the window.")
 
@@ -110,12 +117,26 @@ class Panel(QtWidgets.QWidget):
         self.chooser.blockSignals(False)
         self._draw(result.figures[max(idx, 0)])
 
+    def add_note(self, text: str) -> None:
+        """Add a plain line under the verdicts (e.g. why an extra analysis failed)."""
+        self._note_lines.append(f'<span style="color:#D55E00">{html.escape(text)}</span>')
+        self._set_notes()
+
+    def _set_notes(self) -> None:
+        self.notes.setHtml("<br>".join(self._note_lines))
+        self.notes.setVisible(bool(self._note_lines))
+
+    def notes_text(self) -> str:
+        return self.notes.toPlainText()
+
     def _show_notes(self, result: PanelResult) -> None:
-        lines = [verdict_html(v.level, v.title, v.message) for v in result.verdicts]
+        # problems first, so the worst news is what a user sees without scrolling
+        order = {"problem": 0, "caution": 1, "ok": 2, "info": 3}
+        ranked = sorted(result.verdicts, key=lambda v: order.get(v.level, 4))
+        self._note_lines = [verdict_html(v.level, v.title, v.message) for v in ranked]
         if result.message and result.figures:
-            lines.append(html.escape(result.message))
-        self.notes.setText("<br>".join(lines))
-        self.notes.setVisible(bool(lines))
+            self._note_lines.append(html.escape(result.message))
+        self._set_notes()
 
     def _set_chooser_visible(self, visible: bool) -> None:
         self.chooser.setVisible(visible)

@@ -160,7 +160,11 @@ def _draw_band(plot: pg.PlotItem, it: Band) -> pg.GraphicsObject:
     plot.addItem(hi)
     plot.addItem(fill)
     if it.label and plot.legend is not None:
-        plot.legend.addItem(fill, it.label)
+        # pyqtgraph's legend cannot draw a sample of a FillBetweenItem: show a filled square instead
+        sample = pg.PlotDataItem([], [], pen=None, symbol="s", symbolSize=12,
+                                 symbolBrush=qcolour(it.style.colour, max(it.style.alpha, 0.35)), symbolPen=None)
+        plot.legend.addItem(sample, it.label)
+        fill._legend_sample = sample  # keep the Python object alive with the fill
     return lo, hi  # type: ignore[return-value]
 
 

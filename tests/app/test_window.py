@@ -1,0 +1,288 @@
+"""The desktop window on the sample run (pytest-qt, offscreen).
+
+Checks from the window issue: open the sample run; each panel draws non-empty data; the cursor moved
+in one panel moves in every other (through the shared model); selecting an event row moves the
+cursor to that event's time; a long computation keeps the event loop responsive and can be
+cancelled; a bad file shows a message and leaves the window usable; save then reopen reproduces the
+state. These are checks of the window's mechanics: the science of each analysis is tested with the
+analysis itself (tests/core).
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+pytest.importorskip("pytestqt")
+from PySide6 import QtCore, QtGui  # noqa: E402
+
+from phasewake.app.window import analyses  # noqa: E402
+from phasewake.app.window.analyses import PANELS  # noqa: E402
+from phasewake.app.window.main import MainWindow  # noqa: E402
+from phasewake.core.progress import Progress  # noqa: E402
+
+pytestmark = pytest.mark.gui
+SAMPLE = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
+
+
+@pytest.fixture(scope="module")
+def sample_path(tmp_path_factory) -> Path:
+    """The bundled sample run, or (until it is committed) a small H5MD run of the same shape."""
+    if SAMPLE.exists():
+        return SAMPLE
+    from phasewake.core.readers.h5md import write_h5md
+
+    # A dimer (atoms 0, 1) whose bond switches between 0.37 and 0.55 nm a few times, in 6 still atoms.
+    n, dt = 900, 0.05
+    t = np.arange(n) * dt
+    r = 0.46 + 0.09 * np.tanh(3.0 * np.sin(2 * np.pi * t / 12.0)) + 0.01 * np.sin(2 * np.pi * t / 0.6)
+    drdt = np.gradient(r, t)
+    pos = np.zeros((n, 8, 3), np.float32)
+    vel = np.zeros((n, 8, 3), np.float32)
+    pos[:, 0, 0] = 1.0
+    pos[:, 1, 0] = 1.0 + r
+    vel[:, 1, 0] = drdt
+    pos[:, 2:, :] = np.arange(6)[:, None] * 0.5 + 2.0
+    ke = 20.0 + 2.0 * np.sin(t)
+    pe = -60.0 - 2.0 * np.sin(t)
+    path = tmp_path_factory.mktemp("sample") / "dimer_like.h5md"
+    write_h5md(path, positions_nm=pos, time_ps=t, velocities_nm_per_ps=vel, masses_amu=np.full(8, 39.948),
+               species=["Ar"] * 8, box_nm=np.array([5.0, 5.0, 5.0]),
+               observables={"kinetic_energy": (ke, "kJ mol-1"), "potential_energy": (pe, "kJ mol-1"),
+                            "total_energy": (ke + pe, "kJ mol-1"), "temperature": (120 + 10 * np.sin(t), "K")},
+               parameters={"timestep_ps": 0.002, "ensemble": "NVE", "temperature_K": 120.0, "n_constraints": 0})
+    return path
+
+
+def _window(qtbot, tmp_path) -> MainWindow:
+    settings = QtCore.QSettings(str(tmp_path / "settings.ini"), QtCore.QSettings.Format.IniFormat)
+    w = MainWindow(settings=settings)
+    qtbot.addWidget(w)
+    w.resize(1200, 800)
+    w.show()
+    return w
+
+
+@pytest.fixture(scope="module")
+def opened(qapp, tmp_path_factory, sample_path):
+    """One window on the sample run, shared by the tests of this module (opening computes every panel)."""
+    folder = tmp_path_factory.mktemp("window")
+    w = MainWindow(settings=QtCore.QSettings(str(folder / "settings.ini"), QtCore.QSettings.Format.IniFormat))
+    w.resize(1200, 800)
+    w.show()
+    w.open_paths([str(sample_path)])
+    assert w.wait_idle(60_000), "background work did not finish"
+    assert not w.messages, w.messages
+    yield w
+    w.close()
+    w.deleteLater()
+
+
+@pytest.fixture()
+def win(opened):
+    """The shared window, back on the whole run with the cursor at frame 0."""
+    opened.model.set_time_window(None)
+    opened.model.set_cursor_frame(0)
+    assert opened.wait_idle(60_000)
+    return opened
+
+
+def _drawn_points(panel) -> int:
+    n = 0
+    for rp in panel.view.plots:
+        for item in rp.items:
+            if hasattr(item, "getOriginalDataset"):
+                x, _ = item.getOriginalDataset()
+                n += 0 if x is None else len(x)
+            elif hasattr(item, "image") and item.image is not None:
+                n += int(np.isfinite(item.image).sum())
+            elif hasattr(item, "opts") and "height" in item.opts:
+                n += len(item.opts["height"])
+    return n
+
+
+def test_open_sample_every_panel_draws_data(win):
+    w = win
+    assert len(w.model.entries) == 1 and w.model.current is not None
+    assert w.model.coordinate  # a default coordinate was chosen for the phase portrait
+    for name in PANELS:
+        panel = w.panels[name]
+        module = {"Sampling": "sampling"}.get(name)
+        if module and analyses.module_or_none(module) is None:
+            # the analysis is not in this build: the panel says so plainly and draws nothing made up
+            assert "not in this build yet" in panel.view.message.text()
+            assert panel.view.plots == []
+            continue
+        assert panel.view.spec is not None, f"{name}: {panel.view.message.text()}"
+        assert _drawn_points(panel) > 0, name
+    energy = w.panels["Energy"]
+    assert energy.result.verdicts, "the audit's verdicts are shown on the Energy panel"
+    assert any(word in energy.notes_text() for word in ("ok", "caution", "problem"))
+
+
+def test_cursor_is_shared_by_every_panel_and_the_ruler(win, qtbot):
+    w = win
+    energy = w.panels["Energy"]
+    line = energy.view.time_plots[0].cursor
+    t = w.model.time_ps
+    target = float(t[t.size // 3])
+    line.setValue(target)  # what dragging the cursor line does
+    assert w.model.cursor_time_ps == pytest.approx(target)
+    frame = w.model.cursor_frame
+    for name in PANELS:
+        for rp in w.panels[name].view.time_plots:
+            assert rp.cursor.value() == pytest.approx(target), name
+    assert w.ruler.cursor.value() == pytest.approx(target)
+    # the phase portrait marks the cursor's frame
+    phase = w.panels["Phase space"]
+    tr = phase.current_trace()
+    assert tr is not None
+    mx, my = phase._marker.getData()
+    i = int(np.searchsorted(tr.time_ps, w.model.cursor_time_ps))
+    assert (mx[0], my[0]) == (pytest.approx(tr.x[i]), pytest.approx(tr.y[i]))
+    # keyboard: step, jump to the ends
+    qtbot.keyClick(w, QtCore.Qt.Key.Key_Right)
+    assert w.model.cursor_frame == frame + 1
+    qtbot.keyClick(w, QtCore.Qt.Key.Key_End)
+    assert w.model.cursor_frame == t.size - 1
+    qtbot.keyClick(w, QtCore.Qt.Key.Key_Home)
+    assert w.model.cursor_frame == 0
+    qtbot.keyClick(w, QtCore.Qt.Key.Key_PageDown)
+    assert w.model.cursor_frame == max(1, t.size // 20)
+
+
+def test_selecting_an_event_moves_the_cursor_there(win, qtbot):
+    w = win
+    cross = w.panels["Crossings"]
+    events = cross.visible_events()
+    assert events, cross.view.message.text()
+    pick = events[len(events) // 2]
+    row = events.index(pick)
+    w.tabs.setCurrentWidget(cross)
+    cross.select_event(row)
+    t = w.model.time_ps
+    spacing = float(np.median(np.diff(t)))
+    assert abs(w.model.cursor_time_ps - pick.time_ps) <= 0.5 * spacing + 1e-9
+    assert w.model.choice("highlight_ps") == (pick.start_ps, pick.end_ps)
+    assert w.panels["Phase space"].highlighted_points() > 0  # the crossing's segment is drawn in the portrait
+    cross.filter.setCurrentIndex(cross.filter.findData("recrossing"))
+    assert all(e.kind == "recrossing" for e in cross.visible_events())
+
+
+def test_time_window_restricts_the_panels(win):
+    w = win
+    t = w.model.time_ps
+    lo, hi = float(t[t.size // 4]), float(t[3 * t.size // 4])
+    w.ruler.region.setRegion((lo, hi))  # what dragging the band on the ruler does
+    w.ruler._region_dragged(w.ruler.region)
+    assert w.model.time_window_ps == (pytest.approx(lo), pytest.approx(hi))
+    assert w.wait_idle(60_000)
+    rp = w.panels["Energy"].view.time_plots[0]
+    (x0, x1), _ = rp.data_bounds()
+    assert x0 >= lo - 1e-9 and x1 <= hi + 1e-9
+    tr = w.panels["Phase space"].current_trace()
+    assert tr.time_ps[0] >= lo - 1e-9 and tr.time_ps[-1] <= hi + 1e-9
+
+
+def test_long_computation_keeps_window_responsive_and_cancels(win, qtbot, monkeypatch):
+    w = win
+
+    def slow(ctx):
+        for i in range(2000):  # 20 s if left alone
+            time.sleep(0.01)
+            yield Progress(i, 2000, "slow work")
+        return analyses.PanelResult(message="finished")
+
+    monkeypatch.setitem(analyses.PANEL_JOBS, "Correlation", slow)
+    ticks = []
+    timer = QtCore.QTimer()
+    timer.timeout.connect(lambda: ticks.append(1))
+    timer.start(20)
+    w.schedule_recompute(["Correlation"])
+    qtbot.waitUntil(lambda: "Correlation" in w.jobs.running(), timeout=3000)
+    qtbot.wait(400)
+    assert w.cancel_button.isVisible() and w.progress.isVisible()
+    t0 = time.monotonic()
+    qtbot.mouseClick(w.cancel_button, QtCore.Qt.MouseButton.LeftButton)
+    assert w.jobs.wait_all(3000)
+    qtbot.wait(50)
+    timer.stop()
+    assert len(ticks) >= 10  # the GUI thread kept ticking every 20 ms while the job ran
+    assert time.monotonic() - t0 < 2.0
+    panel = w.panels["Correlation"]
+    assert "cancelled" in panel.view.message.text() or "cancelled" in panel.notes_text()
+    assert not w.jobs.busy
+
+
+def test_bad_file_shows_a_message_and_window_stays_usable(qtbot, tmp_path, sample_path):
+    w = _window(qtbot, tmp_path)
+    bad = tmp_path / "broken.h5md"
+    bad.write_bytes(b"\x89HDF\r\n\x1a\n" + b"not really hdf5" * 10)
+    w.open_paths([str(bad)])
+    assert w.wait_idle(20_000)
+    assert w.messages and "broken.h5md" in w.messages[-1]
+    assert w.message_box is not None and w.message_box.isVisible() and not w.message_box.isModal()
+    assert w.model.entries == []
+    w.message_box.close()
+    w.open_paths([str(sample_path)])  # still works afterwards
+    assert w.wait_idle(60_000)
+    assert len(w.model.entries) == 1 and w.panels["Energy"].view.spec is not None
+
+
+def test_analysis_error_is_shown_in_its_panel(win, monkeypatch):
+    w = win
+
+    def broken(ctx):
+        yield Progress(0, 1)
+        raise ValueError("something inside went wrong")
+
+    monkeypatch.setitem(analyses.PANEL_JOBS, "Landscape", broken)
+    w.schedule_recompute(["Landscape"])
+    assert w.wait_idle(20_000)
+    text = w.panels["Landscape"].view.message.text()
+    assert "could not run" in text and "something inside went wrong" in text
+    w.model.step_cursor(3)  # the window is still usable
+    assert w.model.cursor_frame == 3
+
+
+def test_save_then_reopen_reproduces_the_state(win, qtbot, tmp_path):
+    w = win
+    t = w.model.time_ps
+    w.model.set_time_window((float(t[10]), float(t[-10])))
+    w.model.set_cursor_frame(42)
+    w.model.set_choice("trail_frames", 0)
+    w.tabs.setCurrentIndex(PANELS.index("Crossings"))
+    assert w.wait_idle(60_000)
+    path = w.save_session(tmp_path / "state.pwsession")
+    assert path.exists()
+    w2 = _window(qtbot, tmp_path)
+    w2.load_session(path)
+    assert w2.wait_idle(60_000)
+    assert [e.paths for e in w2.model.entries] == [tuple(str(Path(p).resolve()) for p in w.model.entries[0].paths)]
+    assert w2.model.time_window_ps == pytest.approx(w.model.time_window_ps)
+    assert w2.model.cursor_frame == 42
+    assert w2.model.coordinate == w.model.coordinate
+    assert w2.model.choice("trail_frames") == 0
+    assert w2.tabs.tabText(w2.tabs.currentIndex()) == "Crossings"
+
+
+def test_exports_write_what_the_panel_shows(win, tmp_path):
+    w = win
+    w.tabs.setCurrentIndex(PANELS.index("Energy"))
+    png = w.export_figure_to(tmp_path / "energy.png", preset="single", dpi=100)
+    img = QtGui.QImage(str(png))
+    assert not img.isNull() and img.width() == pytest.approx(8.5 / 2.54 * 100, abs=2)  # 8.5 cm at 100 dpi
+    csv = w.export_data_to(tmp_path / "energy.csv")
+    text = csv.read_text()
+    assert "ps" in text and "kJ/mol" in text
+
+
+def test_open_verb_refuses_missing_files(capsys):
+    from phasewake.app.cli import main
+
+    assert main(["open", "definitely-missing.h5md"]) == 2
+    err = capsys.readouterr().err
+    assert "definitely-missing.h5md" in err and "Traceback" not in err
