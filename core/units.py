@@ -348,7 +348,7 @@ def parse_unit(text: str | bytes | None, *, expect: str | None = None) -> Unit:
     mol_diff = q.mol - iq.mol  # each excess mol^+1 in the source = N_A particles
     factor = float(ratio) if mol_diff == 0 else float(ratio * Fraction(AVOGADRO_PER_MOL) ** mol_diff)
     if expect is not None and dim_name != expect:
-        raise UnitError(f"unit {text!r} is a {dim_name} unit, expected a {expect} unit")
+        raise UnitError(f"unit {text!r} is a {dim_name} unit, expected a unit of {expect}")
     return Unit(factor=factor, internal=internal, dimension=dim_name, text=text)
 
 

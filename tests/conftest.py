@@ -11,7 +11,7 @@ os.environ.setdefault("MPLBACKEND", "Agg")
 #   run.positions_nm (F, N, 3), run.velocities_nm_per_ps, run.kinetic_kJ_per_mol, run.potential_kJ_per_mol,
 #   run.time_ps, run.step, run.masses_amu, run.n_constraints, run.n_dof, run.temperature_K, run.box_nm,
 #   run.topology, run.paths["h5md" | "mdtraj_h5" | "dcd" | "pdb" | "csv"].
-# Both start from the same equilibrated state; 4 fs differs only in the time step (same 0.8 ps span).
+# Both start from the same equilibrated state; 4 fs differs only in the time step (same 0.6 ps span; 101 and 76 reports).
 # Each costs a few seconds: mark tests that use them @pytest.mark.slow.
 import pytest  # noqa: E402
 
@@ -34,9 +34,9 @@ def _engine_runs():
 
 @pytest.fixture(scope="session")
 def openmm_water_1fs(tmp_path_factory):
-    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=1.0, n_steps=800, report_every=8)
+    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=1.0, n_steps=600, report_every=6)
 
 
 @pytest.fixture(scope="session")
 def openmm_water_4fs(tmp_path_factory):
-    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=4.0, n_steps=200, report_every=2)
+    return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=4.0, n_steps=150, report_every=2)

@@ -13,7 +13,8 @@ energy, time, masses, constraints, its own degree-of-freedom count), plus files 
 
 Runs are cached per process by their arguments: the 1 fs and 4 fs runs start from the same
 equilibrated state (minimised, 300 K Maxwell-Boltzmann velocities with a fixed seed, 1 fs
-equilibration), so they differ only in the time step. Costs: ~2 ms a step on one CPU thread for the
+equilibration), so they differ only in the time step. Starting from a minimised structure, the
+kinetic temperature settles near 250 K (energy flows into the potential). Costs: ~2 ms a step on one CPU thread for the
 default 185 waters; the 1 fs default is about 4 s in all.
 
 Note on velocities: OpenMM's VerletIntegrator is a leapfrog scheme, so the velocities it returns are
