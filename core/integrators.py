@@ -86,6 +86,13 @@ class IntegratedRun:
         return int(self.time_ps.shape[0])
 
 
+def _sum_per_replica(a: np.ndarray) -> np.ndarray:
+    """Sum over the last two axes (atoms, components); shape (...). Faster than np.sum(axis=(-2, -1))."""
+    if a.ndim == 2:
+        return np.asarray(a.sum())
+    return np.einsum("...ij->...", a)
+
+
 def kinetic_energy(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray) -> np.ndarray:
     """Kinetic energy per replica.
 
@@ -100,7 +107,7 @@ def kinetic_energy(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray) -> 
     """
     v = np.asarray(velocities_nm_per_ps, dtype=np.float64)
     m = np.asarray(masses_amu, dtype=np.float64)
-    return 0.5 * np.sum(m[:, None] * v * v, axis=(-2, -1))
+    return 0.5 * _sum_per_replica(m[:, None] * v * v)
 
 
 def velocity_verlet_step(
@@ -202,9 +209,9 @@ def _baoab(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | float, np.ndarray]:
     v = v + (0.5 * dt) * f * inv_m
     x = x + (0.5 * dt) * v
-    k_before = 0.5 * np.sum(m * v * v, axis=(-2, -1))
+    k_before = 0.5 * _sum_per_replica(m * v * v)
     v = c1 * v + sigma * rng.standard_normal(v.shape)
-    k_after = 0.5 * np.sum(m * v * v, axis=(-2, -1))
+    k_after = 0.5 * _sum_per_replica(m * v * v)
     x = x + (0.5 * dt) * v
     f, u = force_fn(x)
     v = v + (0.5 * dt) * f * inv_m

@@ -459,11 +459,14 @@ def generate(out: Path, *, scenario: Scenario = Scenario(), plan: Plan = Plan(),
     return man
 
 
-def check(reference_dir: Path) -> list[str]:
-    """Regenerate into a temporary folder; the problems found (empty when every file matches)."""
+def check(reference_dir: Path, *, scenario: Scenario = Scenario(), plan: Plan = Plan()) -> list[str]:
+    """Regenerate into a temporary folder and compare with ``reference_dir``/MANIFEST.json.
+
+    Returns the problems found, one line each (empty when every file matches, bit for bit).
+    """
     expected = json.loads((reference_dir / MANIFEST_NAME).read_text())["files"]
     with tempfile.TemporaryDirectory(prefix="phasewake-samples-") as tmp:
-        man = result_of(generate(Path(tmp), write_manifest=False))
+        man = result_of(generate(Path(tmp), scenario=scenario, plan=plan, write_manifest=False))
     got = man["files"]
     assert isinstance(got, dict)
     problems = []
