@@ -221,11 +221,41 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
         speed_atoms[sp] = idx[: max(1, 100_000 // max(1, n // stride))][:2000]
         speed_store[sp] = []
     pos = 0
-    for chunk in frames.iter_chunks(chunk_frames=chunk_frames, velocities=True):
+    chunks = frames.iter_chunks(chunk_frames=chunk_frames, velocities=True)
+    try:
+        pos = yield from _consume(chunks, pos=pos, kin=kin, com=com, gk=gk, times=times, m=m, member=member,
+                                  names=names, rigid=rigid, spec=spec, speed_atoms=speed_atoms,
+                                  speed_store=speed_store, stride=stride, done0=done0, total=total,
+                                  path=run.paths[0] if run.paths else None)
+    finally:
+        close = getattr(chunks, "close", None)
+        if close is not None:
+            close()
+    spectrum = None
+    if spec is not None:
+        if spec.n_segments:
+            spectrum = spec.finish()
+        else:
+            spectrum_note = "too few frames for one spectrum segment"
+    return _FramePass(
+        time_ps=times[:pos], kinetic=kin[:pos], com_kinetic=com[:pos], group_kinetic=gk[:pos],
+        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, spectrum_note=spectrum_note,
+        speeds={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32)) for sp, v_ in speed_store.items()},
+        speed_frame_stride=stride,
+    )
+
+
+def _consume(chunks: Any, *, pos: int, kin: np.ndarray, com: np.ndarray, gk: np.ndarray, times: np.ndarray,
+             m: np.ndarray, member: np.ndarray, names: list[str], rigid: tm.RigidPairAccumulator | None,
+             spec: ts.VelocitySpectrumAccumulator | None, speed_atoms: dict[str, np.ndarray],
+             speed_store: dict[str, list[np.ndarray]], stride: int, done0: float, total: float,
+             path: Any) -> Work[int]:
+    """The per-chunk work of the frame pass; returns the number of frames seen."""
+    for chunk in chunks:
         k = chunk.n_frames
         v = chunk.velocities_nm_per_ps
         if v is None:
-            raise MissingDataError("velocities are missing in a chunk of frames", path=run.paths[0] if run.paths else None)
+            raise MissingDataError("velocities are missing in a chunk of frames", path=path)
         v2 = np.einsum("fai,fai->fa", v, v, dtype=np.float64)
         ke_atoms = 0.5 * v2 * m[None, :]
         kin[pos:pos + k] = ke_atoms.sum(axis=1)
@@ -246,18 +276,7 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
                     speed_store[sp].append(sp_all[:, idx].astype(np.float32))
         pos += k
         yield Progress(done0 + pos, total, "velocities")
-    spectrum = None
-    if spec is not None:
-        if spec.n_segments:
-            spectrum = spec.finish()
-        else:
-            spectrum_note = "too few frames for one spectrum segment"
-    return _FramePass(
-        time_ps=times[:pos], kinetic=kin[:pos], com_kinetic=com[:pos], group_kinetic=gk[:pos],
-        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, spectrum_note=spectrum_note,
-        speeds={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32)) for sp, v_ in speed_store.items()},
-        speed_frame_stride=stride,
-    )
+    return pos
 
 
 def _infer_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None:
@@ -267,10 +286,16 @@ def _infer_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None
     if not pairs.size:
         return None
     acc = tm.RigidPairAccumulator(pairs, run.n_atoms)
-    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, stop=acc.max_frames, velocities=False):
-        acc.update(chunk.positions_nm, chunk.box_nm)
-        if acc.full:
-            break
+    chunks = run.frames.iter_chunks(chunk_frames=chunk_frames, stop=acc.max_frames, velocities=False)
+    try:
+        for chunk in chunks:
+            acc.update(chunk.positions_nm, chunk.box_nm)
+            if acc.full:
+                break
+    finally:
+        close = getattr(chunks, "close", None)
+        if close is not None:
+            close()  # a reader generator left suspended would hold its file open
     return acc.finish()
 
 
@@ -611,25 +636,27 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
         else:
             d = ea.drift
             if d is not None:
-                measured = abs(d.slope_kT_per_dof_per_ns) if d.slope_kT_per_dof_per_ns is not None else None
                 thr = THRESHOLDS["energy.drift"]
+                kt = d.slope_kT_per_dof_per_ns
                 msg = (f"{ea.series_label}: slope {_fmt(d.slope_kJ_per_mol_per_ns)} +- "
-                       f"{_fmt(d.slope_error_kJ_per_mol_per_ns)} kJ/mol/ns (z = {d.z_score:.2f}, "
-                       f"{'significant' if d.significant else 'not significant'} at |z| > 3), = "
-                       f"{_fmt(d.slope_kT_per_dof_per_ns)} kT/DOF/ns against {thr.caution:g} caution / "
-                       f"{thr.problem:g} problem ({thr.source})")
-                if measured is None:
+                       f"{_fmt(d.slope_error_kJ_per_mol_per_ns)} kJ/mol/ns (z = {d.z_score:.2f}) = "
+                       f"{_fmt(kt)} kT/DOF/ns")
+                if kt is None:
                     out.append(Verdict("energy.drift", "info", "Energy drift", None, "kT/DOF/ns",
                                        msg + "; kT/DOF not known (degrees of freedom or temperature missing)",
                                        threshold=thr))
                 else:
-                    v = judge("energy.drift", measured, title="Energy drift", unit="kT/DOF/ns", message=msg,
-                              advice=_advice("energy.drift"))
-                    if not d.significant and v.level != "ok":
-                        v = replace(v, level="ok", message=v.message + "; within its error bar, so not flagged")
-                    if v.level == "ok":
-                        v = replace(v, advice="")
-                    out.append(v)
+                    # judged on the lower end of the 95 % interval: flag only drifts larger than the
+                    # threshold beyond their own error bar
+                    err_kt = abs(kt) / abs(d.z_score) if d.z_score else 0.0
+                    bound = max(0.0, abs(kt) - 1.96 * err_kt)
+                    msg += (f"; lower end of its 95 % interval {bound:.3g} kT/DOF/ns against {thr.caution:g} "
+                            f"caution / {thr.problem:g} problem ({thr.source})")
+                    v = judge("energy.drift", bound, title="Energy drift", unit="kT/DOF/ns", message=msg,
+                              advice=_advice("energy.drift"),
+                              details={"drift_kT_per_dof_per_ns": kt, "error_kT_per_dof_per_ns": err_kt,
+                                       "significant_3_sigma": d.significant})
+                    out.append(v if v.level != "ok" else replace(v, advice=""))
             f = ea.fluctuations
             if f is not None and f.ratio is not None:
                 thr = THRESHOLDS["energy.fluctuation_ratio"]
@@ -725,13 +752,13 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
         c, fm = tsa.check, tsa.fastest
         if c.steps_per_period is None:
             out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
-                               f"fastest motion {fm.wavenumber_per_cm:.0f} cm^-1 (period {c.fastest_period_ps * 1e3:.3g} fs); "
+                               f"fastest motion {fm.wavenumber_per_cm:.0f} cm^-1 ({fm.method}; period {c.fastest_period_ps * 1e3:.3g} fs); "
                                f"the time step is unknown (give --timestep FS); common practice asks for at most "
                                f"{c.recommended_max_timestep_ps * 1e3:.3g} fs", threshold=THRESHOLDS["timestep.fastest_period"]))
         else:
             v = judge("timestep.fastest_period", c.steps_per_period, title="Time step", unit="steps per period",
                       message=f"dt = {c.timestep_ps * 1e3:.4g} fs ({c.timestep_source}) against the fastest period "  # type: ignore[operator]
-                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1): "
+                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1, {fm.method}): "
                               f"{c.steps_per_period:.3g} steps per period, limit period/10 = "
                               f"{c.recommended_max_timestep_ps * 1e3:.3g} fs ({_src('timestep.fastest_period')})",
                       advice=_advice("timestep.fastest_period"))

@@ -59,7 +59,8 @@ register(
 register(
     Threshold("energy.drift", caution=0.01, problem=0.1, unit="kT/DOF/ns",
               source="common practice (drift in kT per degree of freedom per ns; no citable source)",
-              description="absolute least-squares slope of the conserved energy, in kT per DOF per ns"),
+              description="lower end of the 95 % interval of |least-squares slope| of the conserved "
+                          "energy, in kT per DOF per ns"),
     Explanation(
         title="Energy drift",
         what="The systematic change of the conserved energy over the run.",
@@ -67,7 +68,9 @@ register(
                "sqrt(g), g the statistical inefficiency of the residuals (residuals are correlated). "
                "Reported in kJ/mol/ns, per atom, per degree of freedom and as kT per DOF per ns.",
         threshold="|drift| <= 0.01 kT/DOF/ns ok, <= 0.1 caution, above that a problem: common practice, "
-                  "no citable source. A drift is only flagged when it is also significant (|z| > 3).",
+                  "no citable source. The value judged is the lower end of the drift's 95 % interval "
+                  "(|drift| - 1.96 error), so a drift is flagged only when it exceeds the threshold beyond "
+                  "its own error bar.",
         advice="A steady drift usually means a too-large time step, loose constraint tolerances, "
                "cut-off artefacts, or single-precision accumulation. Compare with a run at half the step.",
     ),

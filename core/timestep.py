@@ -30,7 +30,8 @@ register(
         title="Time step against the fastest motion",
         what="How many integration steps resolve one period of the fastest motion in the run.",
         method="The highest-frequency significant peak of the mass-weighted velocity power spectrum "
-               "(Welch segments, Hann window) gives the period T; the check is T / dt. For a harmonic "
+               "(Welch segments, Hann window), or the upper edge of a broad band (liquids), gives the "
+               "period T; the check is T / dt. For a harmonic "
                "mode under velocity Verlet the energy fluctuation ratio is (2 pi dt / T)^2 / 4, so "
                "T/dt = 10 gives about 0.1 (REFERENCES.md §1.2).",
         threshold="Fewer than 10 steps per period caution, fewer than 5 a problem: common practice.",
@@ -140,27 +141,35 @@ def velocity_power_spectrum(velocities_nm_per_ps: np.ndarray, masses_amu: np.nda
 
 @dataclass(frozen=True)
 class FastestMotion:
-    """The highest-frequency significant peak of a velocity spectrum."""
+    """The fastest motion in a velocity spectrum: a sharp peak, or the upper edge of a broad band."""
 
     frequency_per_ps: float
     period_ps: float
     wavenumber_per_cm: float
+    method: str  # "highest significant peak" or "upper edge of a broad band"
+    peak_frequency_per_ps: float  # highest significant peak
+    band_edge_per_ps: float  # highest frequency with power >= edge_fraction of the maximum
     resolution_per_ps: float
     nyquist_per_ps: float
-    near_nyquist: bool  # the peak lies in the top 20% of the band: possibly aliased
-    relative_height: float  # peak height / tallest peak
+    near_nyquist: bool  # the fastest motion lies in the top 20% of the band: possibly aliased
     settings: dict[str, Any] = field(default_factory=dict)
 
 
 def fastest_motion(freq_per_ps: np.ndarray, power: np.ndarray, *, min_relative_prominence: float = 0.05,
+                   edge_fraction: float = 0.05, broad_band_bins: int = 3,
                    near_nyquist_fraction: float = 0.8) -> FastestMotion:
-    """Pick the highest-frequency peak whose prominence is at least a fraction of the largest.
+    """The fastest motion of a velocity power spectrum.
 
-    The zero-frequency bin (drift of the centre of mass, diffusion) is not a vibration and is ignored.
+    The highest-frequency peak whose prominence is at least ``min_relative_prominence`` of the largest
+    one. Liquids show broad bands instead of lines (librations of rigid water reach ~1000 cm^-1 with
+    no peak there), so the upper band edge (highest frequency where the power is still
+    ``edge_fraction`` of the maximum, interpolated between bins) is used instead when it lies more than
+    ``broad_band_bins`` bins above that peak. Both fractions are common practice. The zero-frequency bin
+    (centre-of-mass drift, diffusion) is not a vibration and is ignored.
 
     Parameters
     ----------
-    freq_per_ps : ndarray, shape (n,), 1/ps
+    freq_per_ps : ndarray, shape (n,), 1/ps, evenly spaced from 0
     power : ndarray, shape (n,)
     """
     from scipy.signal import find_peaks
@@ -169,22 +178,32 @@ def fastest_motion(freq_per_ps: np.ndarray, power: np.ndarray, *, min_relative_p
     p = np.asarray(power, dtype=np.float64)
     if f.size < 4 or not np.any(p[1:] > 0):
         raise AnalysisError("the velocity spectrum is empty: no motion to time")
+    df = float(f[1] - f[0])
     padded = np.concatenate([[0.0], p[1:], [0.0]])  # so peaks at either end of the band count
     peaks, props = find_peaks(padded, prominence=0.0)
     if peaks.size == 0:
         raise AnalysisError("no peak in the velocity spectrum")
     prom = props["prominences"]
-    keep = prom >= min_relative_prominence * prom.max()
-    sel = peaks[keep]
-    top = int(sel.max())  # index in padded; padded[i] = p[i] for i >= 1
-    fmax = float(f[top])
+    top = int(peaks[prom >= min_relative_prominence * prom.max()].max())  # padded[i] == p[i] for i >= 1
+    f_peak = float(f[top])
+    pm = float(p[1:].max())
+    thr = edge_fraction * pm
+    above = np.nonzero(p[1:] >= thr)[0] + 1
+    i = int(above.max())
+    edge = float(f[i])
+    if i + 1 < p.size and p[i] > p[i + 1]:
+        edge += df * float((p[i] - thr) / (p[i] - p[i + 1]))
+    if edge > f_peak + broad_band_bins * df:
+        fmax, method = edge, f"upper edge of a broad band (power >= {edge_fraction:g} of the maximum)"
+    else:
+        fmax, method = f_peak, "highest significant peak"
     nyq = float(f[-1])
     return FastestMotion(
-        frequency_per_ps=fmax, period_ps=1.0 / fmax, wavenumber_per_cm=fmax / C_CM_PER_PS,
-        resolution_per_ps=float(f[1] - f[0]), nyquist_per_ps=nyq,
-        near_nyquist=bool(fmax >= near_nyquist_fraction * nyq), relative_height=float(p[top] / p[1:].max()),
-        settings={"min_relative_prominence": min_relative_prominence,
-                  "near_nyquist_fraction": near_nyquist_fraction},
+        frequency_per_ps=fmax, period_ps=1.0 / fmax, wavenumber_per_cm=fmax / C_CM_PER_PS, method=method,
+        peak_frequency_per_ps=f_peak, band_edge_per_ps=edge, resolution_per_ps=df, nyquist_per_ps=nyq,
+        near_nyquist=bool(fmax >= near_nyquist_fraction * nyq),
+        settings={"min_relative_prominence": min_relative_prominence, "edge_fraction": edge_fraction,
+                  "broad_band_bins": broad_band_bins, "near_nyquist_fraction": near_nyquist_fraction},
     )
 
 

@@ -58,6 +58,21 @@ def test_spectrum_shape_matches_scipy_welch():
     np.testing.assert_allclose(ratio, ratio[0], rtol=1e-4)
 
 
+def test_broad_band_upper_edge():
+    # Liquids give bands, not lines: white-noise velocities low-pass filtered (brick wall) at 1000 cm^-1
+    # have a flat spectrum up to that edge and nothing above, so the fastest motion is the edge.
+    rng = np.random.default_rng(7)
+    n, dt = 8192, 0.001
+    f = np.fft.rfftfreq(n, dt)
+    cut = 1000.0 * C_CM_PER_S * 1e-12
+    spec = np.fft.rfft(rng.normal(size=(n, 20, 3)), axis=0)
+    spec[f > cut] = 0.0
+    v = np.fft.irfft(spec, n, axis=0)
+    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, np.ones(20), dt, segment_frames=512))
+    assert fm.method.startswith("upper edge")
+    assert abs(fm.wavenumber_per_cm - 1000.0) <= 2 * fm.resolution_per_ps / (C_CM_PER_S * 1e-12)
+
+
 def test_weak_peak_below_prominence_is_ignored():
     t, v, m = oscillating_atoms([1000.0, 3000.0], [1.0, 0.01], [1.0, 1.0], 0.0005, 4096)
     fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, 0.0005, segment_frames=1024))
