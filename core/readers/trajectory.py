@@ -140,7 +140,7 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
         with _quiet_mdtraj():
             return md.load_topology(str(p))
     except (OSError, ValueError, KeyError, IndexError, TypeError, RuntimeError, struct.error,
-            UnicodeDecodeError) as exc:
+            AssertionError) as exc:
         raise CorruptFileError(f"cannot read the topology ({type(exc).__name__}: {exc})", path=p) from exc
 
 
@@ -293,7 +293,7 @@ class MdtrajFrames:
         per_chunk = max(1, int(chunk_frames))
         expected = np.arange(start, stop, stride)
         done = 0
-        read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error)
+        read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, AssertionError)
         try:
             with _quiet_mdtraj():
                 chunks = iter(md.iterload(str(self.path), chunk=per_chunk, skip=start, stride=stride,
@@ -479,7 +479,7 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
         n, t, has_box, info = _count_and_time(path, top, warnings)
     except (CorruptFileError, MissingDataError, TopologyMismatchError):
         raise
-    except (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, KeyError) as exc:
+    except (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, KeyError, AssertionError) as exc:
         raise CorruptFileError(f"cannot read the trajectory, truncated or damaged? ({type(exc).__name__}: {exc})",
                                path=path) from exc
     if n == 0:
