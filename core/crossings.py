@@ -674,76 +674,87 @@ def reactive_flux(q: np.ndarray, crossing_i0: np.ndarray, direction: np.ndarray,
     return up_num, up_den, down_num, down_den
 
 
-def suggest_states(q: np.ndarray, *, n_bins: int | None = None, unit: str = "") -> StateSuggestion:
-    """Core sets and dividing surface from the two deepest minima of F(q) = -kT ln P(q).
+def _refine_top(centres: np.ndarray, f: np.ndarray, counts: np.ndarray, b: int, i: int, j: int) -> float:
+    """Vertex of a parabola fitted (count-weighted) to F within 1 kT of the barrier top.
 
-    The surface is the highest point of F between the two minima; each core reaches from its minimum
-    towards the barrier until F has risen by min(1 kT, half that side's barrier). These choices are ours
-    (a heuristic): check them against the profile and adjust.
+    The highest bin of a sparse top is mostly noise; the fitted vertex is steadier. Falls back to the
+    bin centre when the fit is not a maximum inside the fitted window.
+    """
+    lo = b
+    while lo - 1 > i and f[lo - 1] >= f[b] - 1.0:
+        lo -= 1
+    hi = b
+    while hi + 1 < j and f[hi + 1] >= f[b] - 1.0:
+        hi += 1
+    sel = np.arange(lo, hi + 1)
+    sel = sel[np.isfinite(f[sel]) & (counts[sel] > 0)]
+    if sel.size < 4:
+        return float(centres[b])
+    c2, c1, _ = np.polyfit(centres[sel], f[sel], 2, w=np.sqrt(counts[sel]))
+    if not c2 < 0:
+        return float(centres[b])
+    top = -c1 / (2.0 * c2)
+    if not centres[lo] <= top <= centres[hi]:
+        return float(centres[b])
+    return float(top)
+
+
+def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None = None) -> StateSuggestion:
+    """Core sets and dividing surface from the free-energy profile F(q) = -kT ln P(q).
+
+    The profile, its minima and barrier tops come from
+    :func:`phasewake.core.landscape.free_energy_profile` (no Jacobian: the states are where q itself
+    dwells). Of its barriers the one highest seen from both sides is used; the surface is its top;
+    each core reaches from its minimum towards the barrier until F has risen by min(1 kT, half that
+    side's barrier). These choices are ours (a heuristic): check them against the profile and adjust.
 
     Parameters
     ----------
     q : ndarray, shape (n,)
-        Samples of the coordinate, pooled over replicas.
-    n_bins : int, optional
-        Histogram bins over the 0.1-99.9 % range (default: between 30 and 120, about sqrt(n)/4).
+        Samples of the coordinate, pooled over replicas, in time order.
+    temperature_K : float, optional
+        Only sets the kJ/mol scale of the profile; F in kT does not depend on it.
     """
+    from phasewake.core.landscape import free_energy_profile
+
     q = np.asarray(q, dtype=float).ravel()
     q = q[np.isfinite(q)]
     if q.size < 50:
         raise TooShortError("suggesting states from a free-energy profile", have=int(q.size), need=50)
-    lo, hi = np.percentile(q, [0.1, 99.9])
-    if not hi > lo:
+    if not float(q.max()) > float(q.min()):
         raise AnalysisError("the coordinate has no spread: cannot suggest states; give them explicitly")
-    nb = n_bins or int(np.clip(math.sqrt(q.size) / 4, 30, 120))
-    counts, edges = np.histogram(q, bins=nb, range=(lo, hi))
-    centres = 0.5 * (edges[1:] + edges[:-1])
-    # Light smoothing (binomial 1-2-1 twice) so noise does not make minima.
-    sm = counts.astype(float)
-    for _ in range(2):
-        sm = np.convolve(np.pad(sm, 1, mode="edge"), [0.25, 0.5, 0.25], mode="valid")
-    with np.errstate(divide="ignore"):
-        f = -np.log(sm)
-    f = f - np.min(f[np.isfinite(f)])
-    fin = np.where(np.isfinite(f), f, np.inf)
-    interior = np.flatnonzero((fin[1:-1] <= fin[:-2]) & (fin[1:-1] < fin[2:])) + 1
-    cand: list[int] = [int(x) for x in interior]
-    if fin[0] < fin[1]:
-        cand.insert(0, 0)
-    if fin[-1] < fin[-2]:
-        cand.append(nb - 1)
-    best: tuple[float, int, int, int] | None = None
-    for ii in range(len(cand)):
-        for jj in range(ii + 1, len(cand)):
-            i, j = cand[ii], cand[jj]
-            if j - i < 3:
-                continue
-            b = i + int(np.argmax(fin[i:j + 1]))
-            height = min(fin[b] - fin[i], fin[b] - fin[j])
-            if best is None or height > best[0]:
-                best = (float(height), i, j, b)
+    prof = free_energy_profile(q, temperature_K=temperature_K or 300.0, unit=unit, min_depth_kT=0.5)
+    kt = prof.kT_kJ_per_mol
+    best = None
+    for bar in prof.barriers:
+        h = min(bar.height_from_left_kJ_per_mol, bar.height_from_right_kJ_per_mol) / kt
+        if math.isfinite(h) and (best is None or h > best[0]):
+            best = (h, bar)
     if best is None or best[0] < 0.5:
         raise AnalysisError(
             "the free-energy profile of the coordinate shows no two minima separated by a barrier of at "
             "least 0.5 kT; give the states (--states A_HI,B_LO) and the surface yourself"
         )
-    _, i, j, b = best
-    up_a = min(1.0, 0.5 * (fin[b] - fin[i]))
-    up_b = min(1.0, 0.5 * (fin[b] - fin[j]))
-    ka = i + int(np.argmax(fin[i:b + 1] >= fin[i] + up_a))
-    kb = j - int(np.argmax(fin[b:j + 1][::-1] >= fin[j] + up_b))
-    a_hi = float(edges[ka])
-    b_lo = float(edges[kb + 1])
-    surface = float(centres[b])
-    a_hi = min(a_hi, surface - 0.25 * (surface - centres[i]))
-    b_lo = max(b_lo, surface + 0.25 * (centres[j] - surface))
+    bar = best[1]
+    f = np.where(np.isfinite(prof.free_energy_kT), prof.free_energy_kT, np.inf)
+    centres, edges = prof.centers, prof.edges
+    i = int(np.argmin(np.abs(centres - bar.left_minimum)))
+    j = int(np.argmin(np.abs(centres - bar.right_minimum)))
+    b = bar.index
+    up_a = min(1.0, 0.5 * (f[b] - f[i]))
+    up_b = min(1.0, 0.5 * (f[b] - f[j]))
+    ka = i + int(np.argmax(f[i:b + 1] >= f[i] + up_a))
+    kb = j - int(np.argmax(f[b:j + 1][::-1] >= f[j] + up_b))
+    surface = _refine_top(centres, f, prof.counts, b, i, j)
+    a_hi = min(float(edges[ka]), surface - 0.25 * (surface - float(centres[i])))
+    b_lo = max(float(edges[kb + 1]), surface + 0.25 * (float(centres[j]) - surface))
     return StateSuggestion(
         a_hi=a_hi, b_lo=b_lo, surface=surface, minimum_a=float(centres[i]), minimum_b=float(centres[j]),
-        barrier_from_a_kT=float(fin[b] - fin[i]), barrier_from_b_kT=float(fin[b] - fin[j]),
-        centres=centres, free_energy_kT=f,
-        method="two deepest minima of -ln P(q) (histogram, 1-2-1 smoothing); surface at the highest "
-               "point between them; cores where F is within min(1 kT, half the barrier) of a minimum "
-               "(our heuristic)",
+        barrier_from_a_kT=float(f[b] - f[i]), barrier_from_b_kT=float(f[b] - f[j]),
+        centres=centres, free_energy_kT=prof.free_energy_kT,
+        method="free-energy profile -kT ln P(q) (phasewake.core.landscape); surface at the top of the "
+               "barrier highest from both sides; cores where F is within min(1 kT, half the barrier) of "
+               "each minimum (our heuristic)",
     )
 
 
@@ -836,7 +847,7 @@ def crossings_work(
     suggestion: StateSuggestion | None = None
     if states is None:
         pooled = np.concatenate([tr.values for tr in trs])
-        suggestion = suggest_states(pooled, unit=unit)
+        suggestion = suggest_states(pooled, unit=unit, temperature_K=temperature_K)
         a_hi, b_lo = suggestion.a_hi, suggestion.b_lo
         if surface is None:
             surface = suggestion.surface
@@ -972,6 +983,11 @@ def crossings_work(
     win = (lag >= w0) & (lag <= w1) & np.isfinite(k_all)
     if not np.any(win):
         win = np.isfinite(k_all) & (lag >= lag[-1] / 2)
+    if kappa_time_series and relax * w1 > 0.3:
+        warnings.append(
+            f"the kappa(t) plateau window ({w0:.3g}-{w1:.3g} ps) is not short against 1/(k_AB + k_BA) = "
+            f"{1 / relax:.3g} ps: the relaxation correction exp((k_AB + k_BA) t) = {math.exp(relax * w1):.2f} "
+            "is large and the reactive-flux kappa unreliable; trust the counting kappa or k/k_TST more")
     plateau_raw = float(np.mean(k_all[win])) if np.any(win) else float("nan")
     plateau = float(np.mean((k_all * np.exp(relax * lag))[win])) if np.any(win) else float("nan")
     kappa = TransmissionCoefficient(

@@ -1,0 +1,198 @@
+"""``phasewake crossings``: barrier crossings, recrossings, transition paths, dwell times and rates.
+
+    phasewake crossings FILES... --coordinate SPEC [--states A_HI,B_LO] [--surface VALUE]
+                        [--replicas] [--events events.csv] [--confidence 0.95]
+                        [--kappa-window T1,T2] [--json]
+
+States are core sets on the coordinate: A is q <= A_HI (the low side), B is q >= B_LO (the high side);
+the dividing surface lies strictly between them. Without ``--states`` they are suggested from the
+coordinate's free-energy profile (minima and barrier top); check the suggestion. With ``--replicas``
+each FILE is one complete run (e.g. one H5MD file per replica) and their events pool; without it the
+FILES together make one run.
+
+``--events`` writes every crossing as a CSV row (time, direction, kind, states, dq/dt, path duration);
+the file is written atomically and never over an input file.
+
+Exit codes: 0 done and every check ok; 1 a caution or problem (e.g. few transitions, dwell times that
+do not look exponential); 2 unusable input (one line, no traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import math
+import sys
+import textwrap
+from pathlib import Path
+from typing import Any
+
+from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+
+LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_run_arguments(parser)
+    parser.add_argument("--coordinate", "-c", metavar="SPEC", required=True,
+                        help='reaction coordinate, e.g. "distance(0, 1)" (see phasewake coords --help)')
+    parser.add_argument("--states", metavar="A_HI,B_LO", default=None,
+                        help="core sets: state A is q <= A_HI, state B is q >= B_LO (coordinate units); "
+                             "default: suggested from the free-energy profile")
+    parser.add_argument("--surface", metavar="VALUE", default=None,
+                        help="dividing surface q* between the cores (default: the barrier top, or midway)")
+    parser.add_argument("--replicas", action="store_true",
+                        help="each FILE is a separate replica run; their events pool")
+    parser.add_argument("--events", metavar="CSV", default=None,
+                        help="write the table of every crossing to this CSV file")
+    parser.add_argument("--confidence", metavar="P", type=float, default=0.95,
+                        help="coverage of the rate intervals (default 0.95)")
+    parser.add_argument("--kappa-window", metavar="T1,T2", default=None,
+                        help="lag window in ps over which the reactive-flux kappa(t) is averaged "
+                             "(default: from the transition-path durations)")
+
+
+def _floats(text: str, n: int, what: str) -> tuple[float, ...]:
+    from phasewake.core.errors import AnalysisError
+
+    parts = [p.strip() for p in text.split(",")]
+    try:
+        vals = tuple(float(p) for p in parts)
+    except ValueError:
+        raise AnalysisError(f"{what} must be {n} number(s) separated by a comma, got {text!r}") from None
+    if len(vals) != n or not all(math.isfinite(v) for v in vals):
+        raise AnalysisError(f"{what} must be {n} finite number(s) separated by a comma, got {text!r}")
+    return vals
+
+
+def _g(x: float, unit: str = "") -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "-"
+    if isinstance(x, float) and math.isinf(x):
+        return "inf"
+    return f"{x:.4g} {unit}".strip()
+
+
+def _rate_line(r: Any) -> str:
+    if r.upper_bound_only:
+        return (f"  k({r.from_state}->{r.to_state}) < {_g(r.ci_high_per_ps, '/ps')}  "
+                f"({100 * r.confidence:.0f}% upper limit; 0 transitions in {_g(r.exposure_ps, 'ps')} in "
+                f"{r.from_state})")
+    return (f"  k({r.from_state}->{r.to_state}) = {_g(r.rate_per_ps, '/ps')}  "
+            f"[{_g(r.ci_low_per_ps)}, {_g(r.ci_high_per_ps)}] ({100 * r.confidence:.0f}%)  "
+            f"{r.n_transitions} transitions in {_g(r.exposure_ps, 'ps')};  MFPT {_g(r.mfpt_ps, 'ps')}")
+
+
+def _write_text(res: Any, names: list[str], out: Any) -> None:
+    w = out.write
+    s = res.settings
+    u = s.unit
+    w(f"phasewake crossings: {', '.join(names)}\n")
+    w(f"  coordinate unit {u}; {res.n_replicas} replica(s), {res.n_samples} frames, "
+      f"{_g(res.total_time_ps, 'ps')} ({_g(res.frame_spacing_ps, 'ps')} per frame)\n")
+    w(f"  states ({s.states_source}): A is q <= {s.a_hi:.4g}, B is q >= {s.b_lo:.4g} {u}; "
+      f"dividing surface q* = {s.surface:.4g} {u}\n")
+    if res.suggestion is not None:
+        g = res.suggestion
+        w(f"  profile: minima at {g.minimum_a:.4g} and {g.minimum_b:.4g} {u}; barrier {g.barrier_from_a_kT:.2f} kT "
+          f"from A, {g.barrier_from_b_kT:.2f} kT from B\n")
+    if res.unassigned_time_ps > 0:
+        w(f"  {_g(res.unassigned_time_ps, 'ps')} before the first core visit (given to the first core reached)\n")
+    ev = res.events
+    n_cens = int((ev["kind"] == "censored").sum())
+    w(f"\n  crossings of q*: {len(ev)}  (transitions {res.n_transitions}, recrossings {res.n_recrossings}, "
+      f"censored {n_cens})\n")
+    w(f"  dq/dt at crossings: {res.velocity_source}\n")
+    w("\n  rates = transitions / time in the origin state, exact Poisson intervals (Garwood 1936):\n")
+    w(_rate_line(res.rate_ab) + "\n")
+    w(_rate_line(res.rate_ba) + "\n")
+    pt = res.path_times
+    if pt.n:
+        w(f"\n  transition paths: {pt.n}; mean {_g(pt.mean_ps, 'ps')} +- {_g(pt.sem_ps)}, median "
+          f"{_g(pt.median_ps, 'ps')} ({pt.median_frames:.1f} frames)\n")
+    k = res.kappa
+    w(f"\n  transmission coefficient: counting {_g(k.counting)} (A->B {_g(k.counting_up)}, "
+      f"B->A {_g(k.counting_down)})\n")
+    w(f"    reactive flux kappa(t) plateau {_g(k.plateau)} over {k.plateau_window_ps[0]:.4g}-"
+      f"{k.plateau_window_ps[1]:.4g} ps (uncorrected {_g(k.plateau_raw)})\n")
+    if res.tst is not None:
+        t = res.tst.tst
+        w(f"    TST ({t.flux_source}): k_TST(A->B) = {_g(t.rate_up_per_ps, '/ps')}, "
+          f"k_TST(B->A) = {_g(t.rate_down_per_ps, '/ps')};  k/k_TST = {_g(res.tst.kappa_up)} and "
+          f"{_g(res.tst.kappa_down)}\n")
+    w("\n")
+    wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
+    for v in res.verdicts:
+        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}: {_g(v.measured, v.unit)}\n")
+        w(wrap.fill(v.message) + "\n")
+        if v.threshold is not None:
+            op = ">" if v.threshold.higher_is_worse else "<"
+            w(wrap.fill(f"threshold: caution {op} {v.threshold.caution:g}, problem {op} "
+                        f"{v.threshold.problem:g} (source: {v.threshold.source})") + "\n")
+    for msg in res.warnings:
+        w(textwrap.fill(f"warning: {msg}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
+    w("\n" + textwrap.fill(res.note, width=100) + "\n")
+
+
+def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) -> None:
+    from phasewake.core.atomic import atomic_open
+    from phasewake.core.errors import InputError
+
+    target = path.resolve()
+    for p in inputs:
+        if p.exists() and p.resolve() == target:
+            raise InputError("refusing to write the events table over an input file", path=path)
+    u = res.velocity_unit
+    with atomic_open(path, "w", encoding="utf-8", newline="") as fh:
+        wr = csv.writer(fh)
+        wr.writerow(["index", "replica", "run", "frame", "time (ps)", "direction", "kind", "from_state",
+                     "to_state", f"velocity ({u})", "path_duration (ps)"])
+        for r in res.events:
+            wr.writerow([int(r["index"]), int(r["replica"]), names[int(r["replica"])], int(r["frame"]),
+                         repr(float(r["time_ps"])), int(r["direction"]), str(r["kind"]), str(r["from_state"]),
+                         str(r["to_state"]), repr(float(r["velocity"])),
+                         "" if math.isnan(r["path_duration_ps"]) else repr(float(r["path_duration_ps"]))])
+
+
+def run(args: argparse.Namespace) -> int:
+    from phasewake.app.common import quiet_stdout
+    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.readers import open_run
+
+    states = None if args.states is None else _floats(args.states, 2, "--states")
+    surface = None if args.surface is None else _floats(args.surface, 1, "--surface")[0]
+    window = None if args.kappa_window is None else _floats(args.kappa_window, 2, "--kappa-window")
+    if not 0.0 < args.confidence < 1.0:
+        from phasewake.core.errors import AnalysisError
+
+        raise AnalysisError(f"--confidence must lie between 0 and 1, got {args.confidence}")
+    if args.replicas:
+        from phasewake.app.common import run_overrides
+
+        runs = []
+        with quiet_stdout():
+            for f in args.files:
+                runs.append(open_run([f], topology=args.top, **run_overrides(args)))
+    else:
+        runs = [open_run_from_args(args)]
+    work = crossings_of_runs(runs, args.coordinate, states=states,  # type: ignore[arg-type]
+                             surface=surface, confidence=args.confidence,
+                             kappa_window_ps=window,  # type: ignore[arg-type]
+                             temperature_K=args.temperature)
+    res = run_with_progress(work, "crossings")
+    names = [r.name for r in runs]
+    if args.events:
+        _write_events(Path(args.events), res, names, [Path(f) for f in args.files])
+    if args.json:
+        d = res.to_dict()
+        d["runs"] = names
+        d["coordinate"] = args.coordinate
+        if args.events:
+            d["events_file"] = str(args.events)
+        print_json(d)
+    else:
+        _write_text(res, names, sys.stdout)
+        if args.events:
+            sys.stdout.write(f"events table: {args.events}\n")
+    levels = [v.level for v in res.verdicts]
+    return 1 if any(lv in ("caution", "problem") for lv in levels) else 0
