@@ -173,6 +173,11 @@ def provenance_of_run(run: Any, *, settings: Mapping[str, Any] | None = None) ->
     return provenance_for(paths, settings=settings, extra={"run": getattr(run, "name", "")})
 
 
+def to_jsonable(obj: Any) -> Any:
+    """Numbers, arrays, paths and dataclasses as plain JSON-ready values (non-finite floats -> None)."""
+    return _jsonable(obj)
+
+
 def _jsonable(obj: Any) -> Any:
     if isinstance(obj, Mapping):
         return {str(k): _jsonable(v) for k, v in obj.items()}
@@ -276,6 +281,7 @@ def rc_params(preset: Preset) -> dict[str, Any]:
         "ytick.labelsize": preset.tick_pt,
         "legend.fontsize": preset.tick_pt,
         "legend.framealpha": 0.9,
+        "legend.title_fontsize": preset.tick_pt,
         "font.family": "sans-serif",
         "font.sans-serif": ["DejaVu Sans"],  # ships with matplotlib: same look on every machine
         "mathtext.default": "regular",
@@ -364,7 +370,8 @@ def draw_into(target: Figure | SubFigure, spec: FigureSpec, *, preset: str | Pre
         one = len(spec.plots) == 1
         for i, plot in enumerate(spec.plots):
             ax = target.add_subplot(rows, cols, i + 1)
-            _draw_plot(ax, plot, pr, title=(plot.title or spec.title) if one and title else plot.title)
+            _draw_plot(ax, plot, pr, title=(plot.title or spec.title) if one and title else plot.title,
+                       cols=cols)
             axes.append(ax)
         if not spec.plots:
             ax = target.add_subplot(1, 1, 1)
@@ -412,7 +419,7 @@ def _decimate(x: np.ndarray, y: np.ndarray, buckets: int) -> tuple[np.ndarray, n
     return x[keep], y[keep]
 
 
-def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str) -> None:
+def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 1) -> None:
     n_points = 0
     for item in plot.items:
         if isinstance(item, Line):
@@ -454,19 +461,23 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str) -> None:
     if not (plot.x.log or plot.y.log):
         # no offset notation: a tick reads as the value itself, not "+1.234e3" in a corner
         ax.ticklabel_format(axis="both", style="sci", scilimits=(-3, 5), useOffset=False)
-    if plot.note:
+    handles, labels = ax.get_legend_handles_labels() if plot.legend else ([], [])
+    if handles:
+        # the note becomes the legend's title, so one box holds all the words and "best" placement
+        # keeps it off the data
+        note = plot.note or None
+        if n_points > _DENSE and cols == 1 and pr.name != "single":
+            # a dense trace fills its axes: the legend goes beside it, where it hides nothing
+            ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, borderaxespad=0.0,
+                      title=note, alignment="left")
+        else:
+            # "best" placement scans every point: slow for long series, so only for small plots
+            ax.legend(loc="best" if n_points <= 5000 else "upper right", frameon=True, title=note,
+                      alignment="left")
+    elif plot.note:
         ax.text(0.015, 0.975, plot.note, transform=ax.transAxes, ha="left", va="top",
                 fontsize=pr.tick_pt, bbox={"boxstyle": "round,pad=0.3", "facecolor": "white",
                                            "edgecolor": "#999999", "alpha": 0.9}, zorder=10)
-    if plot.legend:
-        handles, labels = ax.get_legend_handles_labels()
-        if handles:
-            # "best" placement scans every point: slow for long series, so only for small plots
-            if n_points > _DENSE and pr.name != "single":
-                # a dense trace fills its axes: the legend goes beside it, where it hides nothing
-                ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, borderaxespad=0.0)
-            else:
-                ax.legend(loc="best" if n_points <= 5000 else "upper right", frameon=True)
 
 
 def _draw_line(ax: Axes, item: Line, pr: Preset) -> None:

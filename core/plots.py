@@ -241,6 +241,452 @@ def blocking_figure(result: Any, *, name: str = "series") -> FigureSpec:
 
 
 # --------------------------------------------------------------------------------------------------
+# audit (phasewake.core.audit)
+
+
+def audit_energy_figure(audit: Any, *, cursor_ps: float | None = None) -> FigureSpec:
+    """The series the audit judged for conservation, with its drift fit and the fluctuation ratio."""
+    ea = audit.energy
+    if ea is None:
+        return _empty("energy.audit", "Energy conservation", "The run has no energy series to audit.")
+    t = np.asarray(ea.time_ps, float)
+    e = np.asarray(ea.values_kJ_per_mol, float)
+    items: list[PlotItem] = [Line(t, e, label=ea.series_label.split(" (")[0], style=_style(0))]
+    d = ea.drift
+    fl = ea.fluctuations
+    caption = (f"{ea.series_label[:1].upper() + ea.series_label[1:]} of {audit.run_name} against time "
+               f"({ea.reason}). ")
+    notes = []
+    if d is not None and t.size >= 2:
+        slope_ps = d.slope_kJ_per_mol_per_ns * 1e-3
+        items.append(Line(t[[0, -1]], d.intercept_kJ_per_mol + slope_ps * t[[0, -1]], label="drift fit",
+                          style=Style(colour=PALETTE[0], dash="dash", width=1.5)))
+        notes.append(f"drift {d.slope_kJ_per_mol_per_ns:.3g} ± {d.slope_error_kJ_per_mol_per_ns:.2g} kJ/mol/ns")
+        caption += (f"Dashed: least-squares drift {d.slope_kJ_per_mol_per_ns:.3g} ± "
+                    f"{d.slope_error_kJ_per_mol_per_ns:.2g} kJ/mol/ns ({d.error_method})"
+                    + (f", {d.slope_kT_per_dof_per_ns:.3g} kT per degree of freedom per ns"
+                       if d.slope_kT_per_dof_per_ns is not None else "") + ". ")
+    if fl is not None and fl.ratio is not None:
+        notes.append(f"σ_E/σ_K = {fl.ratio:.3g}")
+        caption += (f"Fluctuation after removing the line σ_E = {fl.sigma_total_kJ_per_mol:.3g} kJ/mol, "
+                    f"σ_E/σ_K = {fl.ratio:.3g}. ")
+    if cursor_ps is not None:
+        items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=_GREY, dash="dot")))
+    return FigureSpec(key="energy.audit", title=f"Energy conservation: {audit.run_name}",
+                      plots=(PlotSpec(title="Energy conservation", x=TIME, y=Axis("Energy", "kJ/mol"),
+                                      items=tuple(items), x_is_time=True, note=", ".join(notes)),),
+                      caption=caption + "Settings: " + (_settings_text(getattr(d, "settings", None)) or "defaults")
+                      + ".", provenance={"settings": dict(audit.settings)})
+
+
+def audit_temperature_figure(audit: Any, *, cursor_ps: float | None = None) -> FigureSpec:
+    """Kinetic temperature from the audit with its mean, the file's mean and the thermostat target."""
+    ta = audit.temperature
+    if ta is None:
+        return _empty("temperature.audit", "Kinetic temperature", "No kinetic temperature could be computed.")
+    t = np.asarray(ta.time_ps, float)
+    items: list[PlotItem] = [Line(t, np.asarray(ta.temperature_K, float), label="kinetic temperature",
+                                  style=_style(0))]
+    items.append(Mark("hline", float(ta.mean_K), label=f"mean {ta.mean_K:.1f} K", role="annotation",
+                      style=Style(colour=PALETTE[0], dash="dash", width=1.2)))
+    target = audit.settings.get("temperature_K") if isinstance(audit.settings, Mapping) else None
+    if target:
+        items.append(Mark("hline", float(target), label=f"target {float(target):g} K", role="threshold",
+                          style=Style(colour=PALETTE[6], dash="dot", width=1.4)))
+    if cursor_ps is not None:
+        items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=_GREY, dash="dot")))
+    caption = (f"Kinetic temperature of {audit.run_name}: {ta.kinetic_source}; N_dof = {ta.n_dof} "
+               f"(3N = {3 * ta.n_atoms}, constraints {ta.n_constraints} from {ta.constraints_source}, "
+               f"centre-of-mass {ta.n_com_removed} from {ta.com_source}). Mean {ta.mean_K:.2f} ± "
+               f"{ta.error_K:.2g} K (g-corrected standard error, g = {ta.statistical_inefficiency:.3g}), "
+               f"standard deviation {ta.std_K:.3g} K."
+               + (f" File temperature mean {ta.file_temperature_mean_K:.2f} K." if ta.file_temperature_mean_K
+                  is not None else "")
+               + (" Velocities estimated from positions by central differences." if ta.velocities_estimated
+                  else ""))
+    return FigureSpec(key="temperature.audit", title=f"Kinetic temperature: {audit.run_name}",
+                      plots=(PlotSpec(title="Kinetic temperature", x=TIME, y=Axis("Temperature", "K"),
+                                      items=tuple(items), x_is_time=True,
+                                      note=f"N_dof = {ta.n_dof}"),),
+                      caption=caption, provenance={"settings": dict(audit.settings)})
+
+
+def audit_spectrum_figure(audit: Any) -> FigureSpec:
+    """The mass-weighted velocity power spectrum used for the time-step check, fastest motion marked."""
+    tsa = audit.timestep
+    if tsa is None or np.asarray(tsa.frequency_per_ps).size == 0:
+        note = getattr(tsa, "note", "") if tsa is not None else ""
+        return _empty("timestep.spectrum", "Velocity spectrum", note or "No velocity spectrum was computed.")
+    f = np.asarray(tsa.frequency_per_ps, float)
+    pw = np.asarray(tsa.power, float)
+    items: list[PlotItem] = [Line(f, pw / (pw.max() if pw.size and pw.max() > 0 else 1.0),
+                                  label="velocity power", style=_style(0))]
+    caption = "Mass-weighted velocity power spectrum (normalised to its maximum). "
+    if tsa.fastest is not None:
+        fm = tsa.fastest
+        items.append(Mark("vline", fm.frequency_per_ps, label=f"fastest motion, period {fm.period_ps:.3g} ps",
+                          role="threshold", style=Style(colour=PALETTE[6], dash="dash", width=1.3)))
+        caption += (f"Fastest significant motion at {fm.frequency_per_ps:.3g} ps⁻¹ "
+                    f"({fm.wavenumber_per_cm:.0f} cm⁻¹, period {fm.period_ps:.3g} ps); resolution "
+                    f"{fm.resolution_per_ps:.2g} ps⁻¹, Nyquist {fm.nyquist_per_ps:.3g} ps⁻¹. ")
+    if tsa.check is not None:
+        c = tsa.check
+        caption += (f"Frames per period {c.frames_per_period:.3g}"
+                    + (f", time steps per period {c.steps_per_period:.3g}" if c.steps_per_period else "")
+                    + f"; a common rule of thumb keeps the time step below period/10 = "
+                      f"{c.recommended_max_timestep_ps * 1e3:.3g} fs. ")
+    caption += tsa.note
+    return FigureSpec(key="timestep.spectrum", title=f"Velocity spectrum: {audit.run_name}",
+                      plots=(PlotSpec(title="Velocity power spectrum", x=Axis("Frequency", "1/ps"),
+                                      y=Axis("Power (normalised)", ""), items=tuple(items)),),
+                      caption=caption)
+
+
+def _empty(key: str, title: str, why: str) -> FigureSpec:
+    return FigureSpec(key=key, title=title,
+                      plots=(PlotSpec(title=title, x=Axis(""), y=Axis(""), items=(), legend=False, note=why),),
+                      caption=why)
+
+
+# --------------------------------------------------------------------------------------------------
+# coordinates and phase space (phasewake.core.coordinates, projection, landscape)
+
+
+def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: float | None = None) -> FigureSpec:
+    """A coordinate against time; with a crossings result, its core sets, dividing surface and events."""
+    t = np.asarray(series.time_ps, float)
+    q = np.asarray(series.values, float)
+    items: list[PlotItem] = []
+    caption = f"{_name_of(series)} against time."
+    if crossings is not None:
+        items.extend(_state_marks(crossings, horizontal=True, data=q))
+    items.append(Line(t, q, label=series.label, style=_style(0)))
+    if crossings is not None:
+        ev = crossings.events
+        if ev.size:
+            for kind, colour, marker in (("transition", PALETTE[6], "o"), ("recrossing", PALETTE[1], "^")):
+                sel = ev[ev["kind"] == kind]
+                if sel.size:
+                    items.append(Line(sel["time_ps"], np.full(sel.size, crossings.settings.surface), kind="scatter",
+                                      label=f"{kind} ({sel.size})",
+                                      style=Style(colour=colour, marker=marker, marker_size=6.0)))
+        cs = crossings.settings
+        caption += (f" Shaded: core sets A (q ≤ {cs.a_hi:.4g} {cs.unit}) and B (q ≥ {cs.b_lo:.4g} {cs.unit}), "
+                    f"{cs.states_source}; dashed: dividing surface q* = {cs.surface:.4g} {cs.unit}. Markers: "
+                    "crossings of q*, classed as transitions (the other core is reached next) or recrossings.")
+    if cursor_ps is not None:
+        items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=_GREY, dash="dot")))
+    return FigureSpec(key="coordinate.series", title=f"{series.label} against time",
+                      plots=(PlotSpec(title=series.label, x=TIME, y=Axis(series.label, series.unit),
+                                      items=tuple(items), x_is_time=True),),
+                      caption=caption, provenance={"settings": {"coordinate": series.spec}})
+
+
+def _name_of(series: Any) -> str:
+    return series.label if series.label == series.spec else f"{series.label} ({series.spec})"
+
+
+def _state_marks(crossings: Any, *, horizontal: bool, data: np.ndarray | None = None) -> list[PlotItem]:
+    """Core sets A and B as shaded spans (out to the data's extent) and the dividing surface as a line."""
+    cs = crossings.settings
+    width = abs(cs.b_lo - cs.a_hi)
+    lo, hi = cs.a_hi - width, cs.b_lo + width
+    if data is not None and data.size and np.isfinite(data).any():
+        lo = min(lo, float(np.nanmin(data))) if np.nanmin(data) < cs.a_hi else lo
+        hi = max(hi, float(np.nanmax(data))) if np.nanmax(data) > cs.b_lo else hi
+        lo = float(np.nanmin(data)) if np.nanmin(data) < cs.a_hi else lo
+        hi = float(np.nanmax(data)) if np.nanmax(data) > cs.b_lo else hi
+    span = "hspan" if horizontal else "vspan"
+    line = "hline" if horizontal else "vline"
+    return [
+        Mark(span, lo, cs.a_hi, label="core A", role="state", style=Style(colour=PALETTE[2], alpha=0.18)),
+        Mark(span, cs.b_lo, hi, label="core B", role="state", style=Style(colour=PALETTE[3], alpha=0.18)),
+        Mark(line, cs.surface, label="dividing surface", role="surface",
+             style=Style(colour=PALETTE[0], dash="dash", width=1.2)),
+    ]
+
+
+def phase_portrait_figure(series: Any, *, crossings: Any = None, max_points: int = 20_000,
+                          cursor_index: int | None = None) -> FigureSpec:
+    """Phase portrait: a coordinate against its conjugate momentum (or its velocity when no mass)."""
+    q = np.asarray(series.values, float)
+    use_p = series.momentum is not None
+    if use_p:
+        p = np.asarray(series.momentum, float)
+        p_axis = Axis(f"Momentum conjugate to {series.label}", series.momentum_unit)
+        what = "conjugate momentum p = m_eff dq/dt"
+    elif series.velocity is not None:
+        p = np.asarray(series.velocity, float)
+        p_axis = Axis(f"d{series.label}/dt", series.velocity_unit or f"{series.unit}/ps")
+        what = "rate of change dq/dt"
+    else:
+        return _empty("phase.portrait", "Phase portrait", "The run has no velocities for a phase portrait.")
+    stride = max(1, q.size // max_points)
+    items: list[PlotItem] = []
+    if crossings is not None:
+        items.extend(_state_marks(crossings, horizontal=False, data=q))
+    items.append(Line(q[::stride], p[::stride], kind="scatter", label="frames" if stride == 1 else
+                      f"every {stride}th frame", style=Style(colour=PALETTE[5], marker="o", marker_size=2.5,
+                                                           alpha=0.5)))
+    if cursor_index is not None and 0 <= cursor_index < q.size:
+        items.append(Mark("point", float(q[cursor_index]), float(p[cursor_index]), label="cursor",
+                          role="cursor", style=Style(colour=PALETTE[6], marker="o", marker_size=5.0)))
+    caption = (f"Phase portrait of {_name_of(series)}: the coordinate against its {what}"
+               + (f", {series.momentum_unit}" if use_p else "")
+               + (f"; every {stride}th of {q.size} frames" if stride > 1 else f"; all {q.size} frames")
+               + "." + (" Velocities were estimated from positions by central differences."
+                        if series.velocities_estimated else " Velocities as stored in the run."))
+    if crossings is not None:
+        caption += " Shaded: core sets; dashed: the dividing surface."
+    return FigureSpec(key="phase.portrait", title=f"Phase portrait of {series.label}",
+                      plots=(PlotSpec(title=f"Phase portrait of {series.label}", x=Axis(series.label, series.unit),
+                                      y=p_axis, items=tuple(items)),),
+                      caption=caption, provenance={"settings": {"coordinate": series.spec, "stride": stride}})
+
+
+def pca_figure(pca: Any, *, max_components: int = 10, max_points: int = 20_000) -> FigureSpec:
+    """Principal components: eigenvalue spectrum (explained variance) and PC1 vs PC2 projection."""
+    ev = np.asarray(pca.explained_variance_ratio, float)[:max_components]
+    k = np.arange(1, ev.size + 1, dtype=float)
+    plots = [PlotSpec(title="Explained variance", x=Axis("Principal component", ""),
+                      y=Axis("Fraction of variance", ""),
+                      items=(Line(k, ev, kind="bar", label="per component", style=_style(0)),
+                             Line(k, np.cumsum(ev), label="cumulative", style=_style(1, marker=True))))]
+    proj = pca.projections
+    if proj is not None and np.asarray(proj).ndim == 2 and np.asarray(proj).shape[1] >= 2:
+        pr = np.asarray(proj, float)
+        stride = max(1, pr.shape[0] // max_points)
+        plots.append(PlotSpec(title="Projection on PC1 and PC2", x=Axis("PC1", pca.projection_unit),
+                              y=Axis("PC2", pca.projection_unit),
+                              items=(Line(pr[::stride, 0], pr[::stride, 1], kind="scatter", label="frames",
+                                          style=Style(colour=PALETTE[5], marker="o", marker_size=2.5, alpha=0.5)),),
+                              legend=False))
+    cc = pca.cosine_content
+    cc_text = ""
+    if cc is not None and np.asarray(cc).size:
+        cc_text = f" Cosine content of PC1: {float(np.asarray(cc)[0]):.2f} (Hess 2002; near 1 suggests random diffusion)."
+    caption = (f"Principal components of {pca.atom_indices.size} atoms over {pca.n_frames} frames "
+               f"({'mass-weighted' if pca.mass_weighted else 'not mass-weighted'}, "
+               f"{'after optimal superposition' if pca.fit else 'no superposition'}, method {pca.method}). "
+               f"PC1 explains {100 * ev[0]:.1f}% of the variance." + cc_text if ev.size else "")
+    return FigureSpec(key="phase.pca", title="Principal components", plots=tuple(plots),
+                      grid=(1, len(plots)), caption=caption,
+                      provenance={"settings": {"mass_weighted": pca.mass_weighted, "fit": pca.fit,
+                                               "method": pca.method, "n_components": pca.n_components}})
+
+
+def free_energy_profile_figure(profile: Any, *, label: str = "q", crossings: Any = None) -> FigureSpec:
+    """F(q) = −kT ln P(q) with block errors, minima and barrier tops marked."""
+    c = np.asarray(profile.centers, float)
+    f = np.asarray(profile.free_energy_kJ_per_mol, float)
+    err = np.asarray(profile.error_kJ_per_mol, float)
+    ok = np.isfinite(f)
+    items: list[PlotItem] = []
+    if crossings is not None:
+        items.extend(_state_marks(crossings, horizontal=False))
+    e_ok = ok & np.isfinite(err)
+    if e_ok.any():
+        items.append(Band(c[e_ok], f[e_ok] - err[e_ok], f[e_ok] + err[e_ok], label="± block error",
+                          style=Style(colour=PALETTE[5], alpha=0.25)))
+    items.append(Line(c[ok], f[ok], label="free energy", style=_style(0)))
+    bar_text = []
+    for m in profile.minima:
+        items.append(Mark("point", m.position, m.free_energy_kJ_per_mol, role="state",
+                          style=Style(colour=PALETTE[3], marker="o", marker_size=5.0)))
+    for i, b in enumerate(profile.barriers):
+        items.append(Mark("vline", b.position, label="barrier top" if i == 0 else "", role="surface",
+                          style=Style(colour=PALETTE[6], dash="dash", width=1.2)))
+        bar_text.append(f"barrier at {b.position:.4g} {profile.unit}: {b.height_from_left_kJ_per_mol:.3g} ± "
+                        f"{b.error_from_left_kJ_per_mol:.2g} kJ/mol from the left, "
+                        f"{b.height_from_right_kJ_per_mol:.3g} ± {b.error_from_right_kJ_per_mol:.2g} kJ/mol "
+                        "from the right")
+    kt = profile.kT_kJ_per_mol
+    caption = (f"Free-energy profile F = −kT ln P of {label} at T = {profile.temperature_K:g} K "
+               f"(kT = {kt:.3g} kJ/mol) from {profile.n_samples} frames; errors from {profile.n_blocks} "
+               f"blocks; Jacobian correction: {profile.jacobian}. Minima: "
+               + (", ".join(f"{m.position:.4g} {profile.unit}" for m in profile.minima) or "none")
+               + ". " + ("; ".join(bar_text) + "." if bar_text else "No barrier found.")
+               + " Frames of one run are correlated: the profile is only as good as the sampling.")
+    return FigureSpec(key="landscape.profile", title=f"Free-energy profile of {label}",
+                      plots=(PlotSpec(title=f"Free-energy profile of {label}", x=Axis(label, profile.unit),
+                                      y=Axis("Free energy", "kJ/mol"), items=tuple(items),
+                                      note=f"kT = {kt:.3g} kJ/mol"),),
+                      caption=caption,
+                      provenance={"settings": {"temperature_K": profile.temperature_K, "n_blocks": profile.n_blocks,
+                                               "jacobian": profile.jacobian}})
+
+
+def free_energy_surface_figure(surface: Any, *, x_label: str = "x", y_label: str = "y") -> FigureSpec:
+    """2D free-energy surface as an image (empty bins left blank)."""
+    f = np.asarray(surface.free_energy_kJ_per_mol, float)
+    f = np.where(np.isfinite(f), f, np.nan)
+    items: list[PlotItem] = [Image(f, np.asarray(surface.x_edges, float), np.asarray(surface.y_edges, float),
+                                   label="free energy", colorbar_label="Free energy (kJ/mol)")]
+    for i, (x, y, _) in enumerate(surface.minima):
+        items.append(Mark("point", float(x), float(y), label="minimum" if i == 0 else "", role="state",
+                          style=Style(colour=PALETTE[7], marker="s", marker_size=5.0)))
+    caption = (f"Free-energy surface F = −kT ln P over {x_label} and {y_label} at T = {surface.temperature_K:g} K "
+               f"(kT = {surface.kT_kJ_per_mol:.3g} kJ/mol), errors from {surface.n_blocks} blocks; empty bins blank.")
+    return FigureSpec(key="landscape.surface", title="Free-energy surface",
+                      plots=(PlotSpec(title="Free-energy surface", x=Axis(x_label, surface.x_unit),
+                                      y=Axis(y_label, surface.y_unit), items=tuple(items)),),
+                      caption=caption)
+
+
+def poincare_figure(section: Any, *, q2_label: str = "q2", p2_label: str = "p2") -> FigureSpec:
+    """Poincaré surface of section: (q2, p2) at each crossing of q1 = value."""
+    items: list[PlotItem] = [Line(np.asarray(section.q2, float), np.asarray(section.p2, float), kind="scatter",
+                                  label=f"{section.q2.size} crossings",
+                                  style=Style(colour=PALETTE[5], marker="o", marker_size=3.0))]
+    caption = (f"Poincaré section: {q2_label} and {p2_label} each time q1 crosses {section.value:g} going "
+               f"{section.direction}, interpolated linearly between frames ({section.q2.size} points). Points on "
+               "one closed curve suggest regular motion; a scattered cloud suggests chaotic motion.")
+    return FigureSpec(key="phase.poincare", title="Poincaré section",
+                      plots=(PlotSpec(title="Poincaré section", x=Axis(q2_label, section.q2_unit),
+                                      y=Axis(p2_label, section.p2_unit), items=tuple(items)),),
+                      caption=caption)
+
+
+# --------------------------------------------------------------------------------------------------
+# velocities (phasewake.core.velocity)
+
+
+def vacf_figure(result: Any) -> FigureSpec:
+    """Velocity autocorrelation per atom group, normalised to its value at zero lag."""
+    lag = np.asarray(result.lag_ps, float)
+    v = np.atleast_2d(np.asarray(result.vacf, float))
+    items: list[PlotItem] = [Mark("hline", 0.0, style=Style(colour=_GREY, dash="solid", width=0.8))]
+    for i, name in enumerate(result.groups):
+        c0 = v[i, 0] if v[i, 0] != 0 else 1.0
+        items.append(Line(lag, v[i] / c0, label=f"{name} ({int(result.n_atoms_per_group[i])} atoms)",
+                          style=_style(i)))
+    caption = (f"Velocity autocorrelation C(t)/C(0) per group ({'mass-weighted' if result.mass_weighted else 'plain'}), "
+               f"averaged over atoms and time origins of {result.n_frames} frames {result.dt_ps:.3g} ps apart."
+               + (" Velocities estimated from positions." if result.velocities_estimated else "")
+               + (" " + " ".join(result.notes) if result.notes else ""))
+    return FigureSpec(key="velocity.vacf", title="Velocity autocorrelation",
+                      plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps"),
+                                      y=Axis("C(t)/C(0)", ""), items=tuple(items)),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
+    """Vibrational density of states against wavenumber, significant peaks marked."""
+    w = np.asarray(result.wavenumber_cm1, float)
+    y = np.asarray(result.intensity, float)
+    if max_cm1 is not None:
+        keep = w <= max_cm1
+        w, y = w[keep], y[keep]
+    items: list[PlotItem] = [Line(w, y, label="density of states", style=_style(0))]
+    for i, pk in enumerate(result.peaks[:6]):
+        items.append(Mark("point", pk.wavenumber_cm1, pk.intensity, label="peaks" if i == 0 else "", role="event",
+                          style=Style(colour=PALETTE[6], marker="v", marker_size=5.0)))
+        items.append(Mark("text", pk.wavenumber_cm1, pk.intensity, label=f"{pk.wavenumber_cm1:.0f}",
+                          style=Style(colour=PALETTE[0])))
+    caption = (f"Vibrational density of states (Fourier transform of the mass-weighted VACF, {result.window} window), "
+               f"normalised to {result.n_dof:g} degrees of freedom. Resolution {result.resolution_cm1:.3g} cm⁻¹ "
+               f"(lag window {result.max_lag_ps:.3g} ps), Nyquist limit {result.nyquist_cm1:.4g} cm⁻¹ from the "
+               f"frame spacing {result.dt_ps:.3g} ps."
+               + (" Velocities estimated from positions: high frequencies are damped." if result.velocities_estimated
+                  else "") + (" " + " ".join(result.notes) if result.notes else ""))
+    return FigureSpec(key="velocity.vdos", title="Vibrational density of states",
+                      plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm⁻¹"),
+                                      y=Axis("Density of states", "1/cm⁻¹"), items=tuple(items)),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+# --------------------------------------------------------------------------------------------------
+# crossings (phasewake.core.crossings)
+
+
+def dwell_times_figure(result: Any) -> FigureSpec:
+    """Completed dwell times in each core set, as survival curves against the fitted exponential."""
+    dw = result.dwells
+    items: list[PlotItem] = []
+    text = []
+    for i, state in enumerate(("A", "B")):
+        sel = dw[(dw["state"] == state) & ~dw["censored_start"] & ~dw["censored_end"]] if dw.size else dw
+        d = np.sort(np.asarray(sel["duration_ps"], float)) if sel.size else np.zeros(0)
+        if d.size == 0:
+            text.append(f"{state}: no completed dwell")
+            continue
+        # survival S(t): 1 on [0, d_1), then (n - i)/n on [d_i, d_{i+1}), drawn on bin edges
+        edges = np.concatenate([[0.0], d])
+        surv = 1.0 - np.arange(d.size) / d.size
+        st = series_style(i)
+        items.append(Line(edges, surv, kind="step", label=f"state {state} ({d.size} dwells)",
+                          style=Style(colour=st.colour, dash="solid" if i == 0 else "dashdot", width=1.8)))
+        grid = np.linspace(0.0, d.max(), 100)
+        items.append(Line(grid, np.exp(-grid / d.mean()), label=f"exponential, mean {d.mean():.3g} ps",
+                          style=Style(colour=st.colour, dash="dot", width=1.2)))
+        test = result.dwell_tests.get(state) if isinstance(result.dwell_tests, Mapping) else None
+        if test is not None and np.isfinite(test.p_value):
+            text.append(f"{state}: KS D = {test.statistic:.3g}, p = {test.p_value:.3g}")
+    caption = ("Fraction of completed dwells in each core set longer than t (censored first and last segments "
+               "left out), with the exponential of the same mean. Kolmogorov–Smirnov test against an "
+               "exponential with a fitted mean (Lilliefors 1969): " + ("; ".join(text) or "not enough dwells") + ".")
+    return FigureSpec(key="crossings.dwells", title="Dwell times",
+                      plots=(PlotSpec(title="Dwell times", x=Axis("Dwell time", "ps"),
+                                      y=Axis("Fraction longer than t", "", log=bool(items)), items=tuple(items)),),
+                      caption=caption)
+
+
+def transmission_figure(result: Any) -> FigureSpec:
+    """Reactive-flux transmission coefficient κ(t) with its plateau window and value."""
+    k = result.kappa
+    lag = np.asarray(k.lag_ps, float)
+    items: list[PlotItem] = []
+    if lag.size:
+        w0, w1 = k.plateau_window_ps
+        items.append(Mark("vspan", w0, w1, label="plateau window", role="annotation",
+                          style=Style(colour=PALETTE[2], alpha=0.18)))
+        for i, (arr, lab) in enumerate(((k.kappa, "both directions"), (k.kappa_up, "A→B"), (k.kappa_down, "B→A"))):
+            a = np.asarray(arr, float)
+            if a.size == lag.size and np.isfinite(a).any():
+                items.append(Line(lag, a, label=lab, style=_style(i)))
+        if np.isfinite(k.plateau):
+            items.append(Mark("hline", float(k.plateau), label=f"κ = {k.plateau:.3g}", role="threshold",
+                              style=Style(colour=PALETTE[6], dash="dash", width=1.2)))
+    caption = (f"Transmission coefficient κ(t) from the run's own crossings of the dividing surface (reactive flux, "
+               f"Bennett 1977, Chandler 1978): plateau {k.plateau:.3g} (raw {k.plateau_raw:.3g}) over "
+               f"{k.plateau_window_ps[0]:.3g}–{k.plateau_window_ps[1]:.3g} ps; counting estimate "
+               f"{k.counting:.3g} ({k.n_crossings_up} up, {k.n_crossings_down} down crossings). {k.assumptions}")
+    return FigureSpec(key="crossings.kappa", title="Transmission coefficient",
+                      plots=(PlotSpec(title="Transmission coefficient", x=Axis("Time after crossing", "ps"),
+                                      y=Axis("κ(t)", ""), items=tuple(items)),),
+                      caption=caption)
+
+
+def crossings_summary_rows(result: Any) -> list[tuple[str, str]]:
+    """Key numbers of a crossings result as (name, value with unit) rows for tables."""
+    cs = result.settings
+    rows = [("Core sets", f"A: q ≤ {cs.a_hi:.4g} {cs.unit}; B: q ≥ {cs.b_lo:.4g} {cs.unit} ({cs.states_source})"),
+            ("Dividing surface", f"q* = {cs.surface:.4g} {cs.unit}")]
+    ev = result.events
+    n_tr = int(np.sum(ev["kind"] == "transition")) if ev.size else 0
+    n_re = int(np.sum(ev["kind"] == "recrossing")) if ev.size else 0
+    rows.append(("Crossings", f"{ev.size} ({n_tr} transitions, {n_re} recrossings)"))
+    for r in (result.rate_ab, result.rate_ba):
+        if r.upper_bound_only:
+            val = f"< {r.ci_high_per_ps:.3g} 1/ps ({100 * r.confidence:.0f}% upper bound, no transition seen)"
+        else:
+            val = (f"{r.rate_per_ps:.3g} 1/ps [{r.ci_low_per_ps:.3g}, {r.ci_high_per_ps:.3g}] "
+                   f"({100 * r.confidence:.0f}%, {r.interval_method}); {r.n_transitions} transitions in "
+                   f"{r.exposure_ps:.4g} ps")
+        rows.append((f"Rate {r.from_state}→{r.to_state}", val))
+    pt = result.path_times
+    if pt.n:
+        rows.append(("Transition-path time", f"mean {pt.mean_ps:.3g} ± {pt.sem_ps:.2g} ps, median {pt.median_ps:.3g} ps "
+                     f"({pt.n} paths)"))
+    rows.append(("Transmission coefficient", f"κ = {result.kappa.plateau:.3g} (reactive flux), "
+                 f"{result.kappa.counting:.3g} (counting)"))
+    if result.tst is not None:
+        rows.append(("κ from rates / TST", f"A→B {result.tst.kappa_up:.3g}, B→A {result.tst.kappa_down:.3g}"))
+    rows.append(("Velocities at crossings", result.velocity_source))
+    return rows
+
+
+# --------------------------------------------------------------------------------------------------
 # verdicts
 
 
@@ -273,15 +719,37 @@ def verdict_style(level: str) -> Style:
 FIGURE_BUILDERS: dict[str, Callable[..., FigureSpec]] = {
     "energy.series": energy_series_figure,
     "temperature.series": temperature_figure,
+    "energy.audit": audit_energy_figure,
+    "temperature.audit": audit_temperature_figure,
+    "timestep.spectrum": audit_spectrum_figure,
     "correlation.acf": autocorrelation_figure,
     "correlation.blocking": blocking_figure,
+    "coordinate.series": coordinate_series_figure,
+    "phase.portrait": phase_portrait_figure,
+    "phase.pca": pca_figure,
+    "phase.poincare": poincare_figure,
+    "landscape.profile": free_energy_profile_figure,
+    "landscape.surface": free_energy_surface_figure,
+    "velocity.vacf": vacf_figure,
+    "velocity.vdos": vdos_figure,
+    "crossings.dwells": dwell_times_figure,
+    "crossings.kappa": transmission_figure,
 }
 
-# result class name -> figure keys drawn from a result of that class (first argument of the builder)
+# result class name -> figure keys drawn from a result of that class (its first builder argument)
 RESULT_FIGURES: dict[str, tuple[str, ...]] = {
     "EnergyTable": ("energy.series", "temperature.series"),
+    "AuditResult": ("energy.audit", "temperature.audit", "timestep.spectrum"),
     "CorrelationResult": ("correlation.acf",),
     "BlockingResult": ("correlation.blocking",),
+    "CoordinateSeries": ("coordinate.series", "phase.portrait"),
+    "PCAResult": ("phase.pca",),
+    "PoincareSection": ("phase.poincare",),
+    "FreeEnergyProfile": ("landscape.profile",),
+    "FreeEnergySurface": ("landscape.surface",),
+    "VACFResult": ("velocity.vacf",),
+    "VDOSResult": ("velocity.vdos",),
+    "CrossingsResult": ("crossings.dwells", "crossings.kappa"),
 }
 
 
@@ -295,14 +763,3 @@ def figures_for(result: Any, **options: Any) -> list[FigureSpec]:
     return out
 
 
-__all__ = [
-    "FIGURE_BUILDERS",
-    "RESULT_FIGURES",
-    "figures_for",
-    "energy_series_figure",
-    "temperature_figure",
-    "autocorrelation_figure",
-    "blocking_figure",
-    "verdict_rows",
-    "Image",
-]

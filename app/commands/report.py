@@ -1,0 +1,84 @@
+"""``phasewake report FILES... -o run-report.pdf``: a multi-page PDF report of a whole run.
+
+The report holds the run's summary and the verdicts table, energy conservation, kinetic temperature,
+the velocity spectrum behind the time-step check, the coordinate against time with its phase
+portrait, time correlations, sampling and barrier crossings; every figure has a caption with what
+was computed and with which settings. ``--html`` writes an HTML page with the same content beside
+the PDF (figures embedded as PNG, one self-contained file).
+
+Exit 0 when the report was written (whatever its verdicts say: read them in the report, or use
+``phasewake audit`` for an exit code), 2 for unusable input or an output that cannot be written.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_run_arguments(parser)
+    parser.add_argument("-o", "--output", metavar="PDF", default="run-report.pdf",
+                        help="report file to write (default: run-report.pdf in the current folder)")
+    parser.add_argument("--html", action="store_true",
+                        help="also write an HTML report (same name, .html) with the figures embedded")
+    parser.add_argument("--coordinate", metavar="SPEC", default=None,
+                        help="coordinate for the phase portrait, correlation, sampling and crossings pages, "
+                             "e.g. 'distance(0, 1)' (default: a suggestion from the run's topology)")
+    parser.add_argument("--states", metavar="A_HI,B_LO", default=None,
+                        help="core sets for the crossings page: A is q <= A_HI, B is q >= B_LO, in the "
+                             "coordinate's unit (default: suggested from its free-energy profile)")
+    parser.add_argument("--surface", metavar="VALUE", type=float, default=None,
+                        help="dividing surface for the crossings page, in the coordinate's unit")
+    parser.add_argument("--preview", metavar="DIR", default=None,
+                        help="also draw each page as PNG into DIR (page-01.png, ...)")
+
+
+def _states(text: str | None) -> tuple[float, float] | None:
+    from phasewake.core.errors import PhasewakeError
+
+    if text is None:
+        return None
+    parts = text.replace(";", ",").split(",")
+    try:
+        a, b = (float(p) for p in parts)
+    except ValueError:
+        raise PhasewakeError(f"--states wants two numbers A_HI,B_LO, got {text!r}") from None
+    return a, b
+
+
+def run(args: argparse.Namespace) -> int:
+    from phasewake.core.errors import PhasewakeError
+    from phasewake.core.report import build_report
+
+    out = Path(args.output)
+    if out.suffix.lower() != ".pdf":
+        raise PhasewakeError("the report is a PDF: give an output name ending in .pdf", path=out)
+    inputs = {Path(f).resolve() for f in args.files}
+    html_path = out.with_suffix(".html") if args.html else None
+    for target in (out, html_path):
+        if target is not None and target.resolve() in inputs:
+            raise PhasewakeError("the report would overwrite one of the input files", path=target)
+    states = _states(args.states)
+    run_ = open_run_from_args(args)
+    result = run_with_progress(
+        build_report(run_, out, coordinate=args.coordinate, html_path=html_path,
+                     temperature_K=args.temperature, n_constraints=args.constraints,
+                     timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
+                     states=states, surface=args.surface, preview_folder=args.preview),
+        "report")
+    if args.json:
+        print_json({"path": result.path, "html_path": result.html_path, "n_pages": result.n_pages,
+                    "sections": list(result.sections), "skipped": [list(s) for s in result.skipped],
+                    "verdict_levels": list(result.verdict_levels), "settings": result.settings})
+        return 0
+    w = sys.stdout.write
+    w(f"wrote {result.path} ({result.n_pages} pages)\n")
+    if result.html_path is not None:
+        w(f"wrote {result.html_path}\n")
+    for section, reason in result.skipped:
+        w(f"  left out {section}: {reason}\n")
+    return 0

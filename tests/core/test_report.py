@@ -1,0 +1,183 @@
+"""The run report: a page per section, the verdicts table, captions, provenance; the HTML variant.
+
+Outside references: pypdf parses the PDF and extracts its text; html.parser parses the HTML.
+The run is a Langevin double-well dimer made here (BAOAB, Leimkuhler and Matthews 2013) so the
+report has crossings, velocities and energies to show.
+"""
+
+import base64
+import html
+import json
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+
+from phasewake.core import __version__
+from phasewake.core.progress import drive
+from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.report import SECTION_TITLES, build_report
+from phasewake.core.run import EnergyTable, RunMetadata, Series
+from phasewake.core.verdicts import HEURISTIC_NOTE
+
+KB = 0.0083144626  # kJ/mol/K (CODATA 2018 R / 1000)
+
+
+def dimer_run(n_frames: int = 3000, *, seed: int = 11, temperature_K: float = 120.0):
+    """Two argon-mass atoms whose distance is a double well V(r) = h [1 - ((r - r0 - w)/w)^2]^2
+    (the bistable dimer of Dellago, Bolhuis and Chandler 1999), plus 4 free bath atoms, by BAOAB."""
+    rng = np.random.default_rng(seed)
+    kT = KB * temperature_K
+    h, r0, w = 2.5 * kT, 0.35, 0.1
+    m = 39.948
+    mu = m / 2
+    gamma, dt, every = 5.0, 0.002, 5
+    c1 = np.exp(-gamma * dt)
+    c2 = np.sqrt((1 - c1 * c1) * kT)
+
+    def force(r):
+        z = (r - r0 - w) / w
+        return 4 * h * (1 - z * z) * z / w
+
+    r, vr = r0, 0.0
+    vb = rng.normal(0, np.sqrt(kT / m), (4, 3))
+    xb = rng.uniform(0, 2, (4, 3))
+    rs = np.empty(n_frames)
+    vs = np.empty(n_frames)
+    pos_b = np.empty((n_frames, 4, 3))
+    vel_b = np.empty((n_frames, 4, 3))
+    noise = rng.normal(size=(n_frames * every, 1 + 12))
+    k = 0
+    for i in range(n_frames):
+        for _ in range(every):
+            vr += 0.5 * dt * force(r) / mu
+            r += 0.5 * dt * vr
+            vr = c1 * vr + c2 / np.sqrt(mu) * noise[k, 0]
+            r += 0.5 * dt * vr
+            vr += 0.5 * dt * force(r) / mu
+            vb = c1 * vb + c2 / np.sqrt(m) * noise[k, 1:].reshape(4, 3)
+            xb = xb + dt * vb
+            k += 1
+        rs[i], vs[i] = r, vr
+        pos_b[i], vel_b[i] = xb, vb
+    pos = np.zeros((n_frames, 6, 3))
+    vel = np.zeros((n_frames, 6, 3))
+    pos[:, 0, 0], pos[:, 1, 0] = 1.0 - rs / 2, 1.0 + rs / 2
+    vel[:, 0, 0], vel[:, 1, 0] = -vs / 2, vs / 2
+    pos[:, 2:], vel[:, 2:] = pos_b, vel_b
+    masses = np.full(6, m)
+    t = np.arange(n_frames) * dt * every
+    z = (rs - r0 - w) / w
+    pot = h * (1 - z * z) ** 2
+    kin = 0.5 * np.einsum("i,fij->f", masses, vel * vel)
+    n_dof = 3 * 6
+    table = EnergyTable(t, {
+        "potential_energy": Series("potential_energy", pot, "kJ/mol", "potential", "made in test"),
+        "kinetic_energy": Series("kinetic_energy", kin, "kJ/mol", "kinetic", "made in test"),
+        "total_energy": Series("total_energy", pot + kin, "kJ/mol", "total", "made in test"),
+        "temperature": Series("temperature", 2 * kin / (n_dof * KB), "K", "temperature", "made in test"),
+    })
+    md = RunMetadata(timestep_ps=dt, ensemble="NVT", thermostat="langevin", temperature_K=temperature_K,
+                     n_constraints=0, com_motion_removed=False)
+    return run_from_arrays(pos, t, masses, velocities_nm_per_ps=vel, energies=table, metadata=md,
+                           name="test dimer")
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory):
+    out = tmp_path_factory.mktemp("report")
+    run = dimer_run()
+    res = drive(build_report(run, out / "run-report.pdf", coordinate="distance(0, 1)",
+                             html_path=out / "run-report.html"))
+    return run, res
+
+
+def test_pdf_has_a_page_per_section_with_titles_and_captions(report):
+    from pypdf import PdfReader  # reference PDF parser
+
+    run, res = report
+    reader = PdfReader(res.path)
+    assert len(reader.pages) == res.n_pages == len(res.sections)
+    texts = [pg.extract_text() for pg in reader.pages]
+    # every section has at least one page, in the documented order
+    present = list(dict.fromkeys(res.sections))
+    assert present == [s for s in SECTION_TITLES if s in present]
+    assert set(present) == set(SECTION_TITLES), f"missing sections; skipped: {res.skipped}"
+    for sec, text in zip(res.sections, texts):
+        assert SECTION_TITLES[sec] in text.replace("\n", " ")
+        # the heuristic caution is on every page
+        assert "heuristics" in text
+    joined = "\n".join(texts).replace("\n", " ")
+    assert "Time (ps)" in joined and "(kJ/mol)" in joined and "Temperature (K)" in joined
+    # captions say what was computed with which settings
+    assert "distance(0, 1)" in joined
+    assert "N_dof" in joined or "degrees of freedom" in joined
+
+
+def test_verdicts_table_lists_every_verdict(report):
+    from pypdf import PdfReader
+
+    run, res = report
+    reader = PdfReader(res.path)
+    first = " ".join(pg.extract_text() for pg, s in zip(reader.pages, res.sections) if s == "summary")
+    assert "Verdict" in first and "Threshold" in first
+    assert res.verdict_levels, "the audit and crossings gave no verdicts"
+    for level in set(res.verdict_levels):
+        assert level in first
+
+
+def test_report_records_provenance_and_settings(report):
+    from pypdf import PdfReader
+
+    run, res = report
+    meta = json.loads(PdfReader(res.path).metadata["/Subject"])
+    assert meta["phasewake_version"] == __version__
+    assert meta["settings"]["coordinate"] == "distance(0, 1)"
+    assert res.settings["coordinate"] == "distance(0, 1)"
+
+
+def test_html_variant_parses_and_embeds_figures(report):
+    run, res = report
+    text = res.html_path.read_text(encoding="utf-8")
+
+    class Collect(HTMLParser):
+        def __init__(self):
+            super().__init__()
+            self.imgs, self.h2 = [], []
+            self._in_h2 = False
+
+        def handle_starttag(self, tag, attrs):
+            if tag == "img":
+                self.imgs.append(dict(attrs)["src"])
+            self._in_h2 = tag == "h2"
+
+        def handle_data(self, data):
+            if self._in_h2:
+                self.h2.append(data)
+                self._in_h2 = False
+
+    c = Collect()
+    c.feed(text)
+    assert len(c.imgs) >= 5
+    for src in c.imgs:
+        assert src.startswith("data:image/png;base64,")
+        assert base64.b64decode(src.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
+    assert SECTION_TITLES["summary"] in c.h2
+    assert html.escape(HEURISTIC_NOTE) in text
+
+
+def test_missing_velocities_give_an_honest_page(tmp_path):
+    from pypdf import PdfReader
+
+    full = dimer_run(600)
+    # the same run with an energy table only: no frames at all
+    from phasewake.core.run import Run
+
+    run = Run(name="energies only", paths=(), topology=None, masses_amu=full.masses_amu, time_ps=full.time_ps,
+              frames=None, energies=full.energies, metadata=full.metadata)
+    res = drive(build_report(run, tmp_path / "r.pdf"))
+    skipped = dict(res.skipped)
+    assert "coordinate" in skipped and "no frames" in skipped["coordinate"]
+    text = " ".join(p.extract_text() for p in PdfReader(res.path).pages)
+    assert "not in the report" in text
+    assert "Energy conservation" in text
