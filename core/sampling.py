@@ -68,7 +68,8 @@ verdicts.register(
         "nats, compared with the divergence that noise alone gives for the effective number of samples.",
         method="Jensen-Shannon divergence (Lin 1991) of histograms on a shared grid; the null level is the "
         "mean divergence of multinomial histograms of the effective sample sizes n = N/g drawn from the "
-        "pooled histogram (about (B - 1)/(4n) nats for B bins and equal halves).",
+        "pooled histogram (about (B - 1)/(4n) nats for B bins and equal halves), with g the statistical "
+        "inefficiency of the bin occupations.",
         threshold="caution above 3x the null level, problem above 10x (common practice).",
         advice="The halves sample different regions: the run is not converged for this quantity (slow "
         "transitions, drift). Extend the run or use enhanced sampling; compare replicas.",
@@ -263,6 +264,40 @@ def jensen_shannon_nats(p: np.ndarray, q: np.ndarray) -> float:
     return 0.5 * kl(p) + 0.5 * kl(q)
 
 
+def histogram_inefficiency(x: np.ndarray, edges: np.ndarray, *, n_batches: int = 20) -> float:
+    """Statistical inefficiency of a histogram of a correlated series, by batch means.
+
+    The noise of a histogram is set by how fast bin occupations decorrelate, which need not be the
+    memory of the series itself (for an Ornstein-Uhlenbeck process a narrow bin's indicator forgets
+    faster than x, but it also keeps a slow tail). In the chi-square limit of the plug-in JSD,
+    E[JSD] = (1/8)(1/N1 + 1/N2) sum_b (1 - p_b) g_b, since var(p_b-hat) = p_b (1 - p_b) g_b / N
+    (derivation). Here var(p_b-hat) is estimated from the spread of the bin frequencies over
+    ``n_batches`` contiguous batches (the batch-means method, e.g. Flegal and Jones, Ann. Stat. 38,
+    1034 (2010)), so g_bar = sum_b var(p_b-hat) N / p_b / sum_b (1 - p_b), clipped at 1.
+    Batches must be long compared with the memory of the series; with fewer than ~10 batch lengths per
+    correlation time the estimate is low.
+    """
+    a = np.asarray(x, dtype=np.float64)
+    nb = edges.size - 1
+    n = a.size
+    k = int(max(2, min(n_batches, n // 4)))
+    size = n // k
+    if size < 2:
+        return 1.0
+    a = a[: size * k]
+    idx = np.clip(np.searchsorted(edges, a, side="right") - 1, 0, nb - 1)
+    batch = np.repeat(np.arange(k), size)
+    freq = np.bincount(batch * nb + idx, minlength=k * nb).reshape(k, nb) / size
+    p = freq.mean(axis=0)
+    ok = (p > 0) & (p < 1)
+    if not ok.any():
+        return 1.0
+    var_of_mean = freq[:, ok].var(axis=0, ddof=1) / k  # variance of p_b-hat over the whole series
+    num = float(np.sum(var_of_mean * (size * k) / p[ok]))
+    den = float(np.sum(1.0 - p[ok]))
+    return max(1.0, num / den) if den > 0 else 1.0
+
+
 def _jsd_rows(h1: np.ndarray, h2: np.ndarray) -> np.ndarray:
     """JSD (nats) of each row pair of two (K, B) count arrays."""
     p = h1 / h1.sum(axis=1, keepdims=True)
@@ -285,7 +320,7 @@ class DivergenceResult:
     max_ratio: float
     half_jsd_nats: float  # first half against second half (S = 2), or first against last segment
     half_null_nats: float
-    statistical_inefficiency: float  # g used for n_eff (samples)
+    statistical_inefficiency: float  # mean g of the histograms used for n_eff (samples)
     n_eff_per_segment: np.ndarray  # (S,)
     bin_edges: np.ndarray  # (B + 1,)
     histograms: np.ndarray  # (S, B) counts
@@ -306,7 +341,8 @@ def segment_divergence(x: Any, *, n_segments: int = 2, bins: int = 50, value_ran
         Histogram bins on one grid shared by all segments (default range: the data's).
     value_range : (float, float), optional
     g : float, optional
-        Statistical inefficiency for the effective sample sizes; default: Sokal g of each segment.
+        Statistical inefficiency for the effective sample sizes; default: the histogram inefficiency of
+        each segment (:func:`histogram_inefficiency`, batch means of the bin frequencies).
     null_draws : int
         Monte Carlo draws for the null level: pairs of multinomial histograms of sizes n_eff1, n_eff2 from
         the pooled histogram of the pair; the null is the mean of their divergence (the plug-in JSD is
@@ -332,7 +368,10 @@ def segment_divergence(x: Any, *, n_segments: int = 2, bins: int = 50, value_ran
     edges = np.linspace(lo, hi, bins + 1)
     segs = np.array_split(a, n_segments)
     hists = np.array([np.histogram(s, bins=edges)[0] for s in segs], dtype=float)
-    gs = np.array([g if g is not None else (statistical_inefficiency(s) if np.ptp(s) > 0 else 1.0) for s in segs])
+    if g is not None:
+        gs = np.full(n_segments, float(g))
+    else:
+        gs = np.array([histogram_inefficiency(s, edges) for s in segs])
     neff = np.array([s.size for s in segs]) / gs
     S = n_segments
     jsd = np.zeros((S, S))
@@ -390,6 +429,8 @@ class RhatResult:
     n_draws: int  # per chain before splitting
     split: bool
     threshold: float
+    ess_per_chain: float  # mean N/g of the (split) chains
+    expected_from_correlation: float  # sqrt(1 + (g - 1)/n): R-hat of stationary chains with this memory
     settings: dict[str, Any] = field(default_factory=dict)
 
 
@@ -448,8 +489,13 @@ def rhat(chains: Any, *, split: bool = True) -> RhatResult:
     tail = _psrf(_rank_normalise(folded))
     classic = _psrf(c)
     thr = verdicts.THRESHOLDS["sampling.rhat"].caution
+    gs = np.array([statistical_inefficiency(row) if np.ptp(row) > 0 else 1.0 for row in c])
+    n_half = c.shape[1]
+    # E[B/n] = g sigma^2 / n for stationary chains, so R^2 ~ 1 + (g - 1)/n (from the Gelman-Rubin formula)
+    expected = math.sqrt(1.0 + max(float(gs.mean()) - 1.0, 0.0) / n_half)
     return RhatResult(rhat=float(max(bulk, tail)), bulk=bulk, tail=tail, classic_split=classic, n_chains=m,
-                      n_draws=n, split=split, threshold=thr, settings={"split": split})
+                      n_draws=n, split=split, threshold=thr, ess_per_chain=float(n_half / gs.mean()),
+                      expected_from_correlation=expected, settings={"split": split})
 
 
 def rhat_segments(x: Any, *, n_segments: int = 4) -> RhatResult:
@@ -464,13 +510,20 @@ def rhat_segments(x: Any, *, n_segments: int = 4) -> RhatResult:
 
 
 def judge_rhat(result: RhatResult, *, name: str = "series") -> verdicts.Verdict:
+    extra = ""
+    if result.ess_per_chain < 100:
+        extra = (f" Each half-chain holds only about {result.ess_per_chain:.0f} independent samples: "
+                 f"memory alone makes R-hat about {result.expected_from_correlation:.3f}, so a value above "
+                 f"{result.threshold} may mean too short rather than different (Vehtari et al. also ask for "
+                 "an effective sample size above 100 per chain).")
     return verdicts.judge(
         "sampling.rhat", result.rhat, title=f"Split R-hat of {name}", unit="",
         message=f"{name}: rank-normalised split R-hat {result.rhat:.4f} (bulk {result.bulk:.4f}, tail "
         f"{result.tail:.4f}) over {result.n_chains} chains; values above {result.threshold} suggest the chains "
-        "sample different distributions. " + verdicts.HEURISTIC_NOTE,
+        "sample different distributions." + extra + " " + verdicts.HEURISTIC_NOTE,
         advice=verdicts.EXPLANATIONS["sampling.rhat"].advice,
-        details={"classic_split": result.classic_split},
+        details={"classic_split": result.classic_split, "ess_per_chain": result.ess_per_chain,
+                 "expected_from_correlation": result.expected_from_correlation},
     )
 
 

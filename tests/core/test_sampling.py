@@ -98,6 +98,11 @@ def test_divergence_flags_a_shift_and_null_level_is_calibrated():
     mean_jsd = np.mean([v.half_jsd_nats for v in vals])
     assert mean_jsd == pytest.approx(1.23e-3, rel=0.15)
     assert vals[0].half_null_nats == pytest.approx(mean_jsd, rel=0.15)
+    # correlated data: the null from the effective size of the histograms tracks the simulated mean JSD
+    # (Monte Carlo over 30 AR(1) runs, phi = 0.9; +-30% allows for the chi-square approximation)
+    reps = [S.segment_divergence(ar1_columns(0.9, 40_000, 1, seed=100 + k)[:, 0], bins=50) for k in range(30)]
+    sim = np.mean([r.half_jsd_nats for r in reps])
+    assert np.mean([r.half_null_nats for r in reps]) == pytest.approx(sim, rel=0.3)
     x = ar1_columns(0.9, 40_000, 1, seed=6)[:, 0]
     x[20_000:] += 4.0  # second half shifted by ~1.7 sigma
     d = S.segment_divergence(x, n_segments=4)
@@ -120,6 +125,18 @@ def test_rhat_flags_shifted_chain():
     c[0] += 0.5
     r = S.rhat(c)
     assert r.rhat > 1.01 and S.judge_rhat(r).level in ("caution", "problem")
+    assert r.expected_from_correlation == pytest.approx(1.0, abs=1e-3)  # iid draws: no memory
+
+
+def test_rhat_expected_level_from_memory():
+    # stationary AR(1) chains, phi = 0.95 (g = 39): R-hat sits near sqrt(1 + (g - 1)/n) (Gelman-Rubin algebra)
+    vals, exp = [], []
+    for k in range(20):
+        r = S.rhat(ar1_columns(0.95, 2000, 4, seed=200 + k).T)
+        vals.append(r.classic_split)
+        exp.append(r.expected_from_correlation)
+    assert np.mean(vals) == pytest.approx(np.mean(exp), abs=0.01)
+    assert np.mean(exp) == pytest.approx(np.sqrt(1 + 38 / 1000), abs=0.01)
 
 
 def test_folded_rhat_flags_double_spread_that_classic_misses():
