@@ -455,7 +455,9 @@ def _iter_observables(og: h5py.Group, prefix: str = "") -> Iterator[tuple[str, A
 
 
 def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_time: np.ndarray,
-                      warnings: list[str], dt_ps: float | None) -> EnergyTable | None:
+                      warnings: list[str], dt_ps: float | None,
+                      other_tables: list[EnergyTable]) -> EnergyTable | None:
+    """The observables sampled like the longest one as an EnergyTable; the others into ``other_tables``."""
     import h5py
 
     if "observables" not in f:
@@ -514,17 +516,31 @@ def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_t
             raise MissingDataError(f"observables/{main[0]} has no time and its steps are not frame steps",
                                    path=path)
     table: dict[str, Series] = {}
+    others: dict[bytes, list[tuple[str, np.ndarray, np.ndarray | None, np.ndarray, str]]] = {}
     for name, st, _t, values, unit in series:
         rows = _align(steps, st)
         if np.any(rows < 0):
             warnings.append(f"{path.name}: observable {name} is sampled at other steps than "
-                            f"{main[0]}; left out of the energy table")
+                            f"{main[0]}; kept in a table of its own (metadata.extra['other_energy_tables'])")
+            others.setdefault(st.tobytes(), []).append((name, st, _t, values, unit))
             continue
         base = name.rsplit("/", 1)[-1]
         table[name] = Series(name=name, values=values[rows], unit=unit,
                              role=OBSERVABLE_ROLES.get(base, "other"),
                              source=f"{path.name}:/observables/{name}")
     warnings.extend(check_time_axis(time, path=path, what="observable sample"))
+    other_tables.clear()
+    for group in others.values():
+        st, t_other = group[0][1], group[0][2]
+        if t_other is None:
+            if dt_ps is None:
+                continue
+            t_other = st * dt_ps
+        other_tables.append(EnergyTable(
+            time_ps=np.asarray(t_other, dtype=np.float64),
+            series={n: Series(name=n, values=v, unit=u, role=OBSERVABLE_ROLES.get(n.rsplit("/", 1)[-1], "other"),
+                              source=f"{path.name}:/observables/{n}") for n, _s, _tt, v, u in group},
+            sources=(str(path),)))
     return EnergyTable(time_ps=np.asarray(time, dtype=np.float64), series=table, sources=(str(path),))
 
 
@@ -722,7 +738,10 @@ def read_h5md(path: str | Path, *, group: str | None = None) -> H5MDContents:
             if masses is not None:
                 md.sources["masses"] = "element masses of the topology"
 
-        energies = _read_observables(f, path, pax.step, time, warnings, md.timestep_ps)
+        other_tables: list[EnergyTable] = []
+        energies = _read_observables(f, path, pax.step, time, warnings, md.timestep_ps, other_tables)
+        if other_tables:
+            md.extra["other_energy_tables"] = other_tables
         if energies is not None:
             md.sources["energies"] = f"{path.name}:/observables"
 

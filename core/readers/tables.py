@@ -219,6 +219,7 @@ def read_table(
             time = np.arange(values.shape[0], dtype=np.float64)
             warnings.append(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)")
     _check_rows(time, line_numbers, path)
+    warnings.extend(_gap_warnings(time, line_numbers, path))
     return EnergyTable(time_ps=time, series=series, sources=(str(path),)), warnings
 
 
@@ -232,6 +233,19 @@ def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
         i = int(np.flatnonzero(d < 0)[0])
         raise TimeAxisError(f"line {line_numbers[i + 1]}: time goes backwards ({time[i + 1]:g} ps after "
                             f"{time[i]:g} ps); the table is not sorted for you", path=path)
+
+
+def _gap_warnings(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> list[str]:
+    if time.size < 3:
+        return []
+    d = np.diff(time)
+    med = float(np.median(d))
+    gaps = np.flatnonzero(d > 1.5 * med)
+    if not gaps.size:
+        return []
+    i = int(gaps[0])
+    return [f"{path.name}: {gaps.size} gap(s) in the time column; the first between line {line_numbers[i]} "
+            f"({time[i]:g} ps) and line {line_numbers[i + 1]} ({time[i + 1]:g} ps), typical spacing {med:g} ps"]
 
 
 def read_tables(

@@ -208,3 +208,29 @@ def test_missing_position_unit(tmp_path):
         p.create_dataset("step", data=[0, 1])
     with pytest.raises(UnitError, match="position has no unit"):
         open_run([path])
+
+
+def test_observable_on_its_own_time_axis(tmp_path):
+    # name -> (values, unit, time) puts an observable on its own axis; it is kept, aligned by step
+    pos, _, time, step = _arrays(n_frames=10)
+    path = tmp_path / "obs.h5md"
+    write_h5md(path, positions_nm=pos, time_ps=time, step=step,
+               observables={"potential_energy": (np.arange(10.0), "kJ mol-1"),
+                            "temperature": (np.array([300.0, 301.0, 302.0]), "K", time[[0, 4, 8]])})
+    run = open_run([path])
+    assert run.energies.by_role("temperature") is None
+    (other,) = run.metadata.extra["other_energy_tables"]
+    np.testing.assert_allclose(other.time_ps, time[[0, 4, 8]])
+    assert other.by_role("temperature").values.tolist() == [300.0, 301.0, 302.0]
+    with h5py.File(path, "r") as f:  # its steps are on the frames' clock (align by step, H5MD)
+        assert f["observables/temperature/step"][()].tolist() == step[[0, 4, 8]].tolist()
+
+
+def test_gap_in_frame_times_is_warned(tmp_path):
+    pos, _, time, step = _arrays(n_frames=8)
+    t = time.copy()
+    t[5:] += 1.0
+    path = tmp_path / "gap.h5md"
+    write_h5md(path, positions_nm=pos, time_ps=t, step=step)
+    run = open_run([path])
+    assert any("gap(s) in the time axis" in w and "frame 4" in w for w in run.warnings)

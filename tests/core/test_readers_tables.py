@@ -125,3 +125,9 @@ def test_empty_table(tmp_path):
     p = _write(tmp_path / "e.csv", "\n\n")
     with pytest.raises(EmptyFileError):
         read_table(p)
+
+
+def test_gaps_are_warned_with_lines(tmp_path):
+    p = _write(tmp_path / "g.csv", "time (ps),potential (kJ/mol)\n0,1\n1,1\n2,1\n5,1\n6,1\n")
+    _, warnings = read_table(p)
+    assert any("1 gap(s)" in w and "line 4" in w and "line 5" in w for w in warnings)
