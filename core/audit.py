@@ -103,6 +103,8 @@ class TimestepAudit:
     note: str
     frequency_per_ps: np.ndarray  # spectrum for figures; empty when not computed
     power: np.ndarray
+    fastest_group: str = "all atoms"  # the atom group whose spectrum holds the fastest motion
+    group_wavenumbers_per_cm: dict[str, float] = field(default_factory=dict)  # fastest motion per group
 
 
 @dataclass(frozen=True)
@@ -176,6 +178,7 @@ class _FramePass:
     group_kinetic: np.ndarray  # (n, G)
     inference: tm.ConstraintInference | None
     spectrum: tuple[np.ndarray, np.ndarray] | None
+    group_spectra: dict[str, np.ndarray]  # group name -> power, same frequencies
     spectrum_note: str
     speeds: dict[str, np.ndarray]  # species -> speeds (frames kept, atoms kept) in nm/ps
     speed_frame_stride: int
@@ -202,13 +205,16 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
             rigid = tm.RigidPairAccumulator(pairs, run.n_atoms)
     spectrum_note = ""
     spec = None
+    spec_names: list[str] = []
     t = run.time_ps
     if n >= 32 and t.size == n:
         dt = np.diff(t)
         h = float(np.median(dt))
         if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
             seg = int(min(segment_frames, n // 2))
-            spec = ts.VelocitySpectrumAccumulator(m, h, segment_frames=seg)
+            labels, spec_names = ts.spectrum_groups(run.topology, m)
+            spec = ts.VelocitySpectrumAccumulator(m, h, segment_frames=seg,
+                                                  labels=labels if len(spec_names) > 1 else None)
         else:
             spectrum_note = "frame spacing is not uniform: no velocity spectrum"
     else:
@@ -232,14 +238,18 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
         if close is not None:
             close()
     spectrum = None
+    group_spectra: dict[str, np.ndarray] = {}
     if spec is not None:
         if spec.n_segments:
             spectrum = spec.finish()
+            if spec.labels is not None:
+                group_spectra = dict(zip(spec_names, spec.finish_groups(), strict=True))
         else:
             spectrum_note = "too few frames for one spectrum segment"
     return _FramePass(
         time_ps=times[:pos], kinetic=kin[:pos], com_kinetic=com[:pos], group_kinetic=gk[:pos],
-        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, spectrum_note=spectrum_note,
+        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, group_spectra=group_spectra,
+        spectrum_note=spectrum_note,
         speeds={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32)) for sp, v_ in speed_store.items()},
         speed_frame_stride=stride,
     )
@@ -563,15 +573,23 @@ def audit_run(
     if fp is not None:
         if fp.spectrum is not None:
             freq, power = fp.spectrum
-            try:
-                fast = ts.fastest_motion(freq, power)
-            except AnalysisError as exc:
-                tsa = TimestepAudit(None, None, str(exc), freq, power)
+            candidates: dict[str, ts.FastestMotion] = {}
+            for gname, gpow in (("all atoms", power), *fp.group_spectra.items()):
+                try:
+                    candidates[gname] = ts.fastest_motion(freq, gpow)
+                except AnalysisError:
+                    continue
+            if not candidates:
+                tsa = TimestepAudit(None, None, "no motion found in the velocity spectrum", freq, power)
             else:
+                gbest = max(candidates, key=lambda k: candidates[k].frequency_per_ps)
+                fast = candidates[gbest]
                 spacing = float(np.median(np.diff(fp.time_ps)))
                 chk = ts.check_timestep(fast.period_ps, spacing, dt, timestep_source=dt_src)
-                tsa = TimestepAudit(fast, chk, "fastest motion from the mass-weighted velocity power spectrum "
-                                    "(Welch, Hann window; the audit's own estimator)", freq, power)
+                tsa = TimestepAudit(fast, chk, "fastest motion from mass-weighted velocity power spectra of "
+                                    "the whole system and of each atom group (Welch, Hann window; the "
+                                    "audit's own estimator)", freq, power, fastest_group=gbest,
+                                    group_wavenumbers_per_cm={k: c.wavenumber_per_cm for k, c in candidates.items()})
         else:
             tsa = TimestepAudit(None, None, fp.spectrum_note, np.zeros(0), np.zeros(0))
 
@@ -758,7 +776,8 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
         else:
             v = judge("timestep.fastest_period", c.steps_per_period, title="Time step", unit="steps per period",
                       message=f"dt = {c.timestep_ps * 1e3:.4g} fs ({c.timestep_source}) against the fastest period "  # type: ignore[operator]
-                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1, {fm.method}): "
+                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1, {fm.method}, "
+                              f"in {tsa.fastest_group}): "
                               f"{c.steps_per_period:.3g} steps per period, limit period/10 = "
                               f"{c.recommended_max_timestep_ps * 1e3:.3g} fs ({_src('timestep.fastest_period')})",
                       advice=_advice("timestep.fastest_period"))

@@ -82,20 +82,46 @@ class VelocitySpectrumAccumulator:
 
     Feed chunks of velocities in time order with :meth:`update`; frames are cut into consecutive
     segments of equal length (a remainder shorter than a segment is carried into the next chunk).
+    With ``labels`` (one integer group per atom) the power is also kept per group, so a few fast
+    atoms (one stiff bond among many slow atoms) are not drowned in the total. Atoms are processed in
+    blocks so memory stays bounded by ``segment_frames x block_atoms``.
     """
 
-    def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256) -> None:
+    def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256,
+                 labels: np.ndarray | None = None, block_atoms: int = 4096) -> None:
         if segment_frames < 8:
             raise TooShortError("a velocity spectrum segment", have=segment_frames, need=8)
         self.masses = np.asarray(masses_amu, dtype=np.float64)
         self.spacing_ps = float(frame_spacing_ps)
         self.segment_frames = int(segment_frames)
+        self.block_atoms = int(block_atoms)
         from scipy.signal import get_window
 
         self.window = get_window("hann", self.segment_frames)  # periodic Hann, as scipy.signal.welch uses
-        self._power = np.zeros(self.segment_frames // 2 + 1)
+        n_freq = self.segment_frames // 2 + 1
+        self.labels = None if labels is None else np.asarray(labels, dtype=np.int64)
+        n_groups = 0 if self.labels is None else int(self.labels.max()) + 1
+        self._power = np.zeros(n_freq)
+        self._group_power = np.zeros((n_groups, n_freq))
         self._n_segments = 0
         self._carry: np.ndarray | None = None
+
+    def _segment(self, seg: np.ndarray) -> None:
+        sw = np.sqrt(self.masses).astype(np.float32)
+        win = self.window.astype(np.float32)[:, None, None]
+        n_atoms = seg.shape[1]
+        for a0 in range(0, n_atoms, self.block_atoms):
+            blk = seg[:, a0:a0 + self.block_atoms] * sw[None, a0:a0 + self.block_atoms, None]
+            blk = blk - blk.mean(axis=0, keepdims=True)
+            f = np.fft.rfft(blk * win, axis=0)
+            per_atom = (np.einsum("fai,fai->fa", f.real, f.real, dtype=np.float64)
+                        + np.einsum("fai,fai->fa", f.imag, f.imag, dtype=np.float64))
+            self._power += per_atom.sum(axis=1)
+            if self.labels is not None:
+                lab = self.labels[a0:a0 + self.block_atoms]
+                for g in np.unique(lab):
+                    self._group_power[g] += per_atom[:, lab == g].sum(axis=1)
+        self._n_segments += 1
 
     def update(self, velocities_nm_per_ps: np.ndarray) -> None:
         """velocities : ndarray, shape (n_frames, n_atoms, 3), nm/ps."""
@@ -105,14 +131,8 @@ class VelocitySpectrumAccumulator:
             self._carry = None
         L = self.segment_frames
         n_full = v.shape[0] // L
-        sw = np.sqrt(self.masses).astype(np.float32)[None, :, None]
         for k in range(n_full):
-            seg = v[k * L:(k + 1) * L] * sw
-            seg = seg - seg.mean(axis=0, keepdims=True)
-            f = np.fft.rfft(seg * self.window[:, None, None].astype(np.float32), axis=0)
-            self._power += np.einsum("fai,fai->f", f.real, f.real, dtype=np.float64)
-            self._power += np.einsum("fai,fai->f", f.imag, f.imag, dtype=np.float64)
-            self._n_segments += 1
+            self._segment(v[k * L:(k + 1) * L])
         rest = v[n_full * L:]
         if rest.shape[0]:
             self._carry = np.array(rest, copy=True)
@@ -128,6 +148,26 @@ class VelocitySpectrumAccumulator:
                                 need=self.segment_frames)
         freq = np.fft.rfftfreq(self.segment_frames, d=self.spacing_ps)
         return freq, self._power / self._n_segments
+
+    def finish_groups(self) -> np.ndarray:
+        """Average power per label group, shape (n_groups, L//2+1); empty without labels."""
+        return self._group_power / max(self._n_segments, 1)
+
+
+def spectrum_groups(topology: Any, masses_amu: np.ndarray, *, max_groups: int = 64) -> tuple[np.ndarray, list[str]]:
+    """Atom labels for per-group spectra: residue and atom name (when at most ``max_groups`` kinds),
+    else element, else mass. Returns labels (n_atoms,) int and the group names."""
+    m = np.asarray(masses_amu, dtype=np.float64)
+    keys: list[str] = []
+    if topology is not None:
+        keys = [f"{a.residue.name}:{a.name}" for a in topology.atoms]
+        if len(set(keys)) > max_groups:
+            keys = [a.element.symbol if a.element is not None else a.name for a in topology.atoms]
+    if not keys or len(set(keys)) > max_groups:
+        keys = [f"mass {x:.4g} amu" for x in m]
+    names = sorted(set(keys))
+    index = {k: i for i, k in enumerate(names)}
+    return np.array([index[k] for k in keys], dtype=np.int64), names
 
 
 def velocity_power_spectrum(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray, frame_spacing_ps: float,

@@ -99,3 +99,28 @@ def test_scaling_exponent_and_errors():
         ts.timestep_scaling(0.001, 1.0, 0.001, 2.0)
     with pytest.raises(AnalysisError):
         ts.fastest_motion(np.arange(10.0), np.zeros(10))
+
+
+def test_few_fast_atoms_are_not_drowned_by_many_slow_ones():
+    # 200 heavy atoms at 300 cm^-1 and 2 light atoms at 3000 cm^-1 carrying 0.03 % of the mass-weighted
+    # power: the total spectrum alone would miss the fast motion; the per-group spectra find it.
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import drive
+    from phasewake.core.readers.memory import run_from_arrays
+
+    dt, n = 0.0005, 4096
+    t, v_slow, _ = oscillating_atoms([300.0] * 200, [1.0] * 200, [40.0] * 200, dt, n, seed=1)
+    _, v_fast, _ = oscillating_atoms([3000.0] * 2, [1.0] * 2, [1.0] * 2, dt, n, seed=2)
+    v = np.concatenate([v_slow, v_fast], axis=1)
+    m = np.array([40.0] * 200 + [1.0] * 2)
+    f_tot, p_tot = ts.velocity_power_spectrum(v, m, dt, segment_frames=1024)
+    assert ts.fastest_motion(f_tot, p_tot).wavenumber_per_cm < 400  # the total alone misses it
+    pos = np.cumsum(v, axis=0) * dt
+    run = run_from_arrays(pos, t, m, velocities_nm_per_ps=v)
+    res = drive(audit_run(run, timestep_ps=0.002, segment_frames=1024))
+    fm = res.timestep.fastest
+    assert abs(fm.wavenumber_per_cm - 3000.0) <= fm.resolution_per_ps / (C_CM_PER_S * 1e-12)
+    assert res.timestep.fastest_group == "mass 1 amu"
+    # period 11.1 fs at dt = 2 fs: 5.6 steps per period -> caution (common practice: >= 10)
+    v_ts = {x.kind: x for x in res.verdicts}["timestep.fastest_period"]
+    assert v_ts.level == "caution"
