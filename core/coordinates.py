@@ -160,9 +160,9 @@ def kabsch(
     y = np.asarray(reference, dtype=np.float64)
     w = np.ones(y.shape[0]) if weights is None else np.asarray(weights, dtype=np.float64)
     w = w / w.sum()
-    cx = np.einsum("i,nia->na", w, x)
+    cx = np.matmul(w, x)  # (n, 3): batched (g,) @ (n, g, 3)
     cy = w @ y
-    h = np.einsum("nia,i,ib->nab", x - cx[:, None, :], w, y - cy)
+    h = np.matmul((x - cx[:, None, :]).transpose(0, 2, 1), (y - cy) * w[:, None])  # (n, 3, 3)
     u, _s, vt = np.linalg.svd(h)
     d = np.sign(np.linalg.det(u @ vt))
     d[d == 0] = 1.0

@@ -18,7 +18,8 @@ run has not sampled an equilibrium distribution along them), not like real motio
 Two routes:
 
 * ``method="exact"``: one pass accumulating sum(y) and y^T y per chunk (float32 GEMM on data shifted
-  by the reference, accumulated in float64), then a full symmetric eigen-decomposition.
+  by the reference, accumulated in float64), then the leading k eigenpairs of the symmetric matrix
+  (LAPACK syevr on an index subset); the total variance is the exact trace.
 * ``method="randomized"``: randomized subspace iteration for the leading components (Halko,
   Martinsson and Tropp, SIAM Rev. 53, 217 (2011), Alg. 4.4 with a Rayleigh-Ritz step, Alg. 5.3):
   each pass multiplies the centred data by a thin block (n x d x l flops instead of n x d^2), so the
@@ -133,7 +134,7 @@ def _fitted(x: np.ndarray, reference: np.ndarray, weights: np.ndarray, fit: bool
     if not fit:
         return x.astype(np.float64), None
     rot, cx, cy = kabsch(x, reference, weights)
-    return np.einsum("nia,nab->nib", x - cx[:, None, :], rot) + cy, rot
+    return np.matmul(x - cx[:, None, :], rot) + cy, rot
 
 
 def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -205,8 +206,8 @@ def compute_pca(
     reference_nm: np.ndarray | None = None,
     n_components: int = 10,
     method: str = "exact",
-    n_iter: int = 4,
-    oversample: int = 10,
+    n_iter: int = 0,
+    oversample: int = 30,
     seed: int = 0,
     precision: str = "float32",
     projections: bool = True,
@@ -221,8 +222,11 @@ def compute_pca(
         Switch it off for a system without overall rotation (e.g. independent oscillators).
     n_components : number of leading components kept (all eigenvalues are used for the ratio)
     method : "exact" (full covariance, eigh) or "randomized" (Halko et al. 2011)
-    n_iter, oversample, seed : randomized route only: extra passes of subspace iteration (0: a single
-        pass with the Nystrom approximation of Tropp et al. 2017), extra columns, random seed
+    n_iter, oversample, seed : randomized route only. ``n_iter`` extra passes of subspace iteration
+        (default 0: one pass over the data with the Nystrom approximation of Tropp et al. 2017, the
+        fastest; each extra pass costs another read and gains accuracy: on a synthetic spectrum the
+        leading eigenvalues were within ~2% after one pass, 3e-4 after two, 1e-7 after five);
+        ``oversample`` extra sketch columns (default 30); ``seed`` of the random sketch.
     precision : "float32" (GEMM in float32, accumulated in float64 per chunk) or "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content
     """
@@ -278,12 +282,14 @@ def compute_pca(
         mu = s1 / n
         cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
         cov = 0.5 * (cov + cov.T)
-        evals, evecs = np.linalg.eigh(cov)
+        import scipy.linalg
+
+        # only the leading k eigenpairs (LAPACK syevr on a subset): much cheaper than all d of them
+        evals, evecs = scipy.linalg.eigh(cov, subset_by_index=[d - k_keep, d - 1], driver="evr")
         order = np.argsort(evals)[::-1]
-        evals = np.clip(evals[order], 0.0, None)
-        evecs = evecs[:, order]
+        evals_k = np.clip(evals[order], 0.0, None)
+        evecs_k = evecs[:, order]
         total = float(np.trace(cov))
-        evals_k, evecs_k = evals[:k_keep], evecs[:, :k_keep]
     else:
         rng = np.random.default_rng(seed)
         ell = int(min(d, k_keep + max(0, oversample)))
@@ -347,7 +353,7 @@ def compute_pca(
                 else:
                     v = np.asarray(ch.velocities_nm_per_ps, dtype=np.float64)
                     if rot is not None:
-                        v = np.einsum("nia,nab->nib", v, rot)
+                        v = np.matmul(v, rot)
                     mom[row : row + m] = (v * sq[None, :, None]).reshape(m, d) @ evecs_k
             row += m
             done += m

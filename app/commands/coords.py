@@ -73,7 +73,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="atoms of the PCA (index, range, [list] or quoted mdtraj query); "
                              "default: every atom that does not look like solvent")
     parser.add_argument("--pca-fast", action="store_true",
-                        help="randomized PCA for the leading components (Halko, Martinsson and Tropp 2011)")
+                        help="randomized PCA for the leading components, one pass over the data "
+                             "(Halko, Martinsson and Tropp 2011; Tropp et al. 2017); approximate")
+    parser.add_argument("--pca-passes", type=int, default=1, metavar="N",
+                        help="passes of the randomized PCA (more passes: more accurate, slower; default 1)")
     parser.add_argument("--no-fit", action="store_true",
                         help="PCA without superposing frames on the first one (no overall rotation)")
     parser.add_argument("--no-mass-weight", action="store_true", help="PCA of plain Cartesian coordinates")
@@ -143,7 +146,7 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
         res = run_with_progress(
             compute_pca(run, atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
                         mass_weighted=not args.no_mass_weight, fit=not args.no_fit,
-                        method="randomized" if args.pca_fast else "exact"),
+                        method="randomized" if args.pca_fast else "exact", n_iter=max(0, args.pca_passes - 1)),
             "PCA",
         )
         if time is None:
@@ -154,7 +157,7 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
                 cols.append((f"p pc{k + 1}", res.momentum_unit, res.momenta[:, k]))
         summary["pca"] = {
             "n_atoms": int(res.atom_indices.size), "method": res.method, "mass_weighted": res.mass_weighted,
-            "fit": res.fit, "eigenvalues": res.eigenvalues.tolist(), "eigenvalue_unit": res.eigenvalue_unit,
+            "fit": res.fit, "passes": res.n_iter + 1, "eigenvalues": res.eigenvalues.tolist(), "eigenvalue_unit": res.eigenvalue_unit,
             "explained_variance_ratio": res.explained_variance_ratio.tolist(),
             "cosine_content": None if res.cosine_content is None else res.cosine_content.tolist(),
             "note": "cosine content near 1 suggests random-diffusion-like motion along a component "
