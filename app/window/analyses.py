@@ -372,7 +372,7 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         p, pu, pname = np.asarray(s.velocity, float), s.velocity_unit, "Rate of change"
     else:
         p = None
-    xa = Axis(s.label or s.spec, s.unit)
+    xa = Axis(s.spec, s.unit)  # the short specification: atom names make axis labels too long
     if p is not None:
         ya = Axis(pname, pu)
         figs.append(_portrait(q, p, key="phase.portrait", title=f"Phase portrait of {s.label or s.spec}",
@@ -690,7 +690,7 @@ def _crossings_figures(res: Any, s: Any) -> list[FigureSpec]:
         f"{s.spec} against time with the two core states (shaded) and the dividing surface (dashed); "
         f"dots: transitions, crosses: recrossings. {res.n_transitions} transitions, {res.n_recrossings} "
         "recrossings."), plots=(PlotSpec(
-            title=f"Crossings of {s.label or s.spec}", x=Axis("Time", "ps"), y=Axis(s.label or s.spec, s.unit),
+            title=f"Crossings of {s.label or s.spec}", x=Axis("Time", "ps"), y=Axis(s.spec, s.unit),
             x_is_time=True, items=(Line(t, q, label=s.spec, style=Style(colour="#555555", width=1.0)),
                                    *marks, *pts)),))]
     d = res.dwells
@@ -752,7 +752,8 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
             states = None
     if surface is None and states is not None:
         surface = 0.5 * (states[0] + states[1])
-    figs = _plots_figures(prof) or [_profile_figure(prof, s, states, surface, temp, source)]
+    # ours first: it carries the states and the dividing surface as marks a user can drag
+    figs = [_profile_figure(prof, s, states, surface, temp, source)] + _plots_figures(prof)
     return PanelResult(figures=tuple(figs), info={"profile": prof, "states": states, "surface": surface})
 
 
@@ -771,12 +772,12 @@ def _profile_figure(prof: Any, s: Any, states: tuple[float, float] | None, surfa
     if surface is not None:
         items.append(Mark("vline", float(surface), label="dividing surface", role="surface",
                           style=Style(colour="#000000", dash="dash", width=2.0)))
-    bar = "; ".join(f"barrier {b.position:.3g} {prof.unit}" for b in prof.barriers[:2]) if prof.barriers else ""
-    return FigureSpec(key="landscape.profile", title=f"Free-energy profile along {s.label or s.spec}", caption=(
+    bar = "; ".join(f"Barrier top at {b.position:.3g} {prof.unit}." for b in prof.barriers[:2]) if prof.barriers else ""
+    return FigureSpec(key="landscape.states", title=f"Free-energy profile along {s.label or s.spec}", caption=(
         f"F(q) = \u2212kT ln P(q) at T = {temp:.4g} K ({source}), {prof.n_samples} frames, error bars from "
         f"{prof.n_blocks} blocks, Jacobian: {prof.jacobian}. Vertical lines: the edge of core A (q \u2264 A), "
         f"of core B (q \u2265 B) and the dividing surface; drag them to redefine them. {bar}"),
-        plots=(PlotSpec(title=f"Free-energy profile along {s.label or s.spec}", x=Axis(s.label or s.spec, s.unit),
+        plots=(PlotSpec(title=f"Free-energy profile along {s.label or s.spec}", x=Axis(s.spec, s.unit),
                         y=Axis("Free energy", "kJ/mol"), items=tuple(items)),))
 
 

@@ -125,6 +125,10 @@ class Panel(QtWidgets.QWidget):
     def _set_notes(self) -> None:
         self.notes.setHtml("<br>".join(self._note_lines))
         self.notes.setVisible(bool(self._note_lines))
+        if self._note_lines:  # as tall as the text, up to a few lines; the rest scrolls
+            doc = self.notes.document()
+            doc.setTextWidth(max(200, self.notes.viewport().width()))
+            self.notes.setFixedHeight(int(min(120, doc.size().height() + 6)))
 
     def notes_text(self) -> str:
         return self.notes.toPlainText()

@@ -99,6 +99,12 @@ class RenderedPlot:
                 y = np.asarray(y, float)
                 xs += [np.nanmin(x), np.nanmax(x)]
                 ys += [np.nanmin(y), np.nanmax(y)]
+            elif isinstance(it, pg.PlotCurveItem):
+                x, y = it.getData()
+                if x is None or len(x) == 0:
+                    continue
+                xs += [float(np.nanmin(x)), float(np.nanmax(x))]
+                ys += [float(np.nanmin(y)), float(np.nanmax(y))]
             elif isinstance(it, pg.ImageItem):
                 r = it.mapRectToParent(it.boundingRect())
                 xs += [r.left(), r.right()]
@@ -151,21 +157,36 @@ def _draw_line(plot: pg.PlotItem, it: Line) -> pg.GraphicsObject:
     return item
 
 
-def _draw_band(plot: pg.PlotItem, it: Band) -> pg.GraphicsObject:
+def _finite_runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """(start, stop) of the runs of True in ``mask`` with at least two samples."""
+    edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
+    starts, stops = np.nonzero(edges == 1)[0], np.nonzero(edges == -1)[0]
+    return [(int(a), int(b)) for a, b in zip(starts, stops) if b - a >= 2]
+
+
+def _draw_band(plot: pg.PlotItem, it: Band) -> list[pg.GraphicsObject]:
     x = np.asarray(it.x, dtype=float)
-    lo = pg.PlotDataItem(x, np.asarray(it.lo, float), pen=None)
-    hi = pg.PlotDataItem(x, np.asarray(it.hi, float), pen=None)
-    fill = pg.FillBetweenItem(lo, hi, brush=qcolour(it.style.colour, it.style.alpha))
-    plot.addItem(lo)
-    plot.addItem(hi)
-    plot.addItem(fill)
-    if it.label and plot.legend is not None:
+    ylo = np.asarray(it.lo, float)
+    yhi = np.asarray(it.hi, float)
+    # a fill through NaN breaks the whole path: fill each finite stretch on its own
+    out: list[pg.GraphicsObject] = []
+    fill = None
+    for a, b in _finite_runs(np.isfinite(x) & np.isfinite(ylo) & np.isfinite(yhi)):
+        # curves with an invisible pen: a PlotDataItem without a pen builds no path to fill between
+        edge = pg.mkPen(qcolour(it.style.colour, 0.0))
+        lo = pg.PlotCurveItem(x[a:b], ylo[a:b], pen=edge)
+        hi = pg.PlotCurveItem(x[a:b], yhi[a:b], pen=edge)
+        fill = pg.FillBetweenItem(lo, hi, brush=qcolour(it.style.colour, it.style.alpha))
+        for item in (lo, hi, fill):
+            plot.addItem(item)
+        out += [lo, hi]
+    if fill is not None and it.label and plot.legend is not None:
         # pyqtgraph's legend cannot draw a sample of a FillBetweenItem: show a filled square instead
         sample = pg.PlotDataItem([], [], pen=None, symbol="s", symbolSize=12,
                                  symbolBrush=qcolour(it.style.colour, max(it.style.alpha, 0.35)), symbolPen=None)
         plot.legend.addItem(sample, it.label)
         fill._legend_sample = sample  # keep the Python object alive with the fill
-    return lo, hi  # type: ignore[return-value]
+    return out
 
 
 def _colormap(name: str) -> pg.ColorMap:
@@ -197,8 +218,11 @@ def _draw_image(plot: pg.PlotItem, it: Image) -> pg.ImageItem:
 
 def _draw_mark(plot: pg.PlotItem, m: Mark, *, movable: bool) -> pg.GraphicsObject | None:
     pen = make_pen(m.style)
-    label_opts = {"position": 0.92, "color": m.style.colour, "movable": False,
-                  "fill": (255, 255, 255, 200)}
+    # labels of vertical lines near the top, of horizontal lines near the left (legends sit top right)
+    label_opts = {"position": 0.92 if m.kind == "vline" else 0.04, "color": m.style.colour, "movable": False,
+                  "fill": (255, 255, 255, 200), "anchors": [(0, 1), (0, 1)] if m.kind == "hline" else None}
+    if label_opts["anchors"] is None:
+        del label_opts["anchors"]
     if m.kind in ("vline", "hline"):
         item = pg.InfiniteLine(pos=m.value, angle=90 if m.kind == "vline" else 0, pen=pen,
                                movable=movable, label=m.label or None, labelOpts=label_opts)
@@ -315,7 +339,7 @@ class FigureView(QtWidgets.QWidget):
             if isinstance(it, Line):
                 rp.items.append(_draw_line(plot, it))
             elif isinstance(it, Band):
-                rp.items.extend(_draw_band(plot, it))  # type: ignore[arg-type]
+                rp.items.extend(_draw_band(plot, it))
             elif isinstance(it, Image):
                 rp.items.append(_draw_image(plot, it))
             elif isinstance(it, Mark):

@@ -1,0 +1,122 @@
+"""Render every panel of the sample run to PNG at a fixed size, offscreen.
+
+    python -m phasewake.app.window.screenshots --output DIR [--size 1400x900] [FILE ...]
+
+Writes ``DIR/<n>-<panel>.png`` (the whole window with that panel on top) for each panel, so anyone
+can look at the window without a display (``make screenshots``). With no FILE, the bundled sample
+run ``dimer_nve.h5md`` is used. Exit code 2 (one line) when the run cannot be found or opened.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+DEFAULT_SIZE = (1400, 900)
+
+
+def sample_run_path(name: str = "dimer_nve.h5md") -> Path | None:
+    """The bundled sample run: sample_data/ of a clone, or the installed phasewake.sample_data."""
+    try:
+        import phasewake.sample_data as pkg
+
+        for folder in getattr(pkg, "__path__", []):
+            p = Path(folder) / name
+            if p.exists():
+                return p
+    except ImportError:
+        pass
+    p = Path(__file__).resolve().parents[2] / "sample_data" / name
+    return p if p.exists() else None
+
+
+def _slug(name: str) -> str:
+    return name.lower().replace(" ", "-")
+
+
+def render(paths: Sequence[str], output: Path, *, size: tuple[int, int] = DEFAULT_SIZE,
+           timeout_s: float = 180.0) -> list[Path]:
+    """Open ``paths`` in a window of ``size`` pixels, wait for every panel, save one PNG per panel."""
+    os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
+    import pyqtgraph as pg
+    from PySide6 import QtCore, QtWidgets
+
+    from phasewake.app.window.analyses import PANELS
+    from phasewake.app.window.main import MainWindow
+
+    pg.setConfigOptions(antialias=True)
+    app = QtWidgets.QApplication.instance() or QtWidgets.QApplication(["phasewake-screenshots"])
+    output.mkdir(parents=True, exist_ok=True)
+    settings = QtCore.QSettings(str(output / ".screenshots-settings.ini"), QtCore.QSettings.Format.IniFormat)
+    win = MainWindow(settings=settings)
+    win.resize(*size)
+    win.show()
+    win.open_paths(list(paths))
+    if not win.wait_idle(int(timeout_s * 1000)):
+        raise TimeoutError(f"the panels were not ready after {timeout_s:.0f} s")
+    if win.messages:
+        raise RuntimeError(win.messages[-1])
+    t = win.model.time_ps
+    if t.size:
+        win.model.set_cursor_frame(t.size // 3)  # a cursor away from the edges, so it can be seen
+    # a crossing selected, so the Crossings and Phase space panels show the linked highlight
+    cross = win.panels["Crossings"]
+    if cross.visible_events():
+        cross.select_event(min(2, len(cross.visible_events()) - 1))
+    written = []
+    for i, name in enumerate(PANELS):
+        win.tabs.setCurrentIndex(i)
+        for _ in range(3):
+            app.processEvents()
+        path = output / f"{i + 1}-{_slug(name)}.png"
+        if not win.grab().save(str(path)):
+            raise OSError(f"could not write {path}")
+        written.append(path)
+    guide = win.show_guide()
+    app.processEvents()
+    gpath = output / "0-guide.png"
+    guide.grab().save(str(gpath))
+    written.insert(0, gpath)
+    guide.close()
+    win.close()
+    return written
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m phasewake.app.window.screenshots",
+                                     description="Render every panel of a run to PNG (offscreen).")
+    parser.add_argument("files", nargs="*", metavar="FILE", help="run files (default: the bundled sample run)")
+    parser.add_argument("--output", "-o", default="screenshots", help="folder for the PNG files")
+    parser.add_argument("--size", default=f"{DEFAULT_SIZE[0]}x{DEFAULT_SIZE[1]}",
+                        help="window size in pixels, WIDTHxHEIGHT")
+    args = parser.parse_args(argv)
+    try:
+        w, h = (int(v) for v in args.size.lower().split("x"))
+    except ValueError:
+        sys.stderr.write(f"screenshots: --size must look like 1400x900, not {args.size!r}\n")
+        return 2
+    files = list(args.files)
+    if not files:
+        sample = sample_run_path()
+        if sample is None:
+            sys.stderr.write("screenshots: the sample run (sample_data/dimer_nve.h5md) is not there; "
+                             "run `make samples` or give FILE\n")
+            return 2
+        files = [str(sample)]
+    from phasewake.core.errors import PhasewakeError
+
+    try:
+        written = render(files, Path(args.output), size=(w, h))
+    except (PhasewakeError, OSError, RuntimeError, TimeoutError) as exc:
+        sys.stderr.write(f"screenshots: {exc}\n")
+        return 2
+    for p in written:
+        sys.stdout.write(f"{p}\n")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
