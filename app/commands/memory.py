@@ -1,0 +1,500 @@
+"""``phasewake memory``: how long a run remembers, how many independent samples it holds, and whether
+it sampled ergodically.
+
+    phasewake memory FILES... [--series NAME ...] [--coordinate SPEC ...]
+                     [--method sokal|geyer|first_zero] [--segments N] [--bins B]
+                     [--replica FILE... [--replica FILE... ...]]
+                     [--vacf [--group GROUP ...] [--mass-weighted] [--gk-limit PS]
+                             [--viscosity MPA_S --box-edge NM]]
+                     [--msd [--group GROUP ...] [--fit-range PS PS]]
+                     [--spectrum [--group GROUP] [--peak-prominence F]]
+                     [--tm [--group GROUP]]
+                     [--max-lag PS] [--start N] [--stop N] [--explain] [--json]
+
+Series analysis (``--series`` for a column of the energy table, by name or role such as
+``potential``; ``--coordinate`` for any coordinate in the grammar of ``phasewake coords``, e.g.
+``"distance(0, 1)"`` or ``"pc(1)"``). For each series:
+
+* the autocorrelation (FFT, zero padded) and the statistical inefficiency g = 1 + 2 sum rho(k) by
+  Sokal's automatic window (c = 5), Geyer's initial positive sequence and the first-zero rule
+  (``--method`` picks the one used for the other numbers); Sokal's tau_int = g/2 in ps; the effective
+  sample size N/g and the g-corrected standard error of the mean;
+* the blocking (Flyvbjerg-Petersen) standard error with its automatically found plateau;
+* the start of equilibrated data (Chodera 2016);
+* rank-normalised split R-hat over ``--segments`` contiguous segments (Vehtari et al. 2021), and the
+  half-against-half Jensen-Shannon divergence against its null level for the effective sample size;
+* with ``--replica`` (repeat for each further replica; each takes that replica's files): R-hat
+  across the run and its replicas for the same series.
+
+With no series, coordinate or velocity option, every energy-table column is summarised (or, for a run
+without energies, the default first coordinate).
+
+Velocity analysis (needs velocities, stored or estimated by the reader):
+
+* ``--vacf``: velocity autocorrelation per ``--group`` (repeatable; an index, a range ``3-17``, a list
+  ``[1, 4, 7-9]`` or a quoted mdtraj atom query ``"name OW"``); the Green-Kubo diffusion coefficient
+  with the integration limit chosen automatically (or ``--gk-limit PS``) and reported; with
+  ``--viscosity`` (mPa s, of the simulated model) and ``--box-edge`` (nm, cubic box) the Yeh-Hummer
+  finite-size correction;
+* ``--msd``: mean-squared displacement (unwrapped through the box) and the Einstein diffusion
+  coefficient, for comparison;
+* ``--spectrum``: vibrational density of states from the mass-weighted VACF (Hann lag window), in
+  cm^-1 and THz, with the significant peaks, the resolution and the Nyquist limit;
+* ``--tm``: the Thirumalai-Mountain metric of per-atom kinetic energies of a group of equivalent atoms.
+
+``--max-lag PS`` sets the lag window of the VACF/MSD/spectrum (default: half the run, limited by
+memory) and the largest lag used for g.
+
+Exit codes: 0 all verdicts ok; 1 a caution or problem was found; 2 unusable input. These diagnostics
+are heuristics: your judgement and your group's practice decide.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import textwrap
+from typing import Any
+
+import numpy as np
+
+from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+
+LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
+_SKIP_ROLES = ("time", "step")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_run_arguments(parser)
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
+    parser.epilog = textwrap.dedent("""\
+        examples:
+          phasewake memory run.h5md                              every energy term: g, tau_int, N_eff
+          phasewake memory run.h5md --series potential --json
+          phasewake memory traj.dcd --top top.pdb -c "distance(0, 1)" --segments 4
+          phasewake memory rep1.h5md --series potential --replica rep2.h5md --replica rep3.h5md
+          phasewake memory run.h5md --vacf --group '"name OW"' --viscosity 0.85 --box-edge 3.1
+          phasewake memory run.h5md --spectrum --max-lag 2
+        """)
+    parser.add_argument("-s", "--series", action="append", default=[], metavar="NAME",
+                        help="an energy-table column by name or role (potential, kinetic, total, ...); repeatable")
+    parser.add_argument("-c", "--coordinate", action="append", default=[], metavar="SPEC",
+                        help="a coordinate in the grammar of 'phasewake coords' (e.g. \"distance(0, 1)\"); repeatable")
+    parser.add_argument("--method", choices=("sokal", "geyer", "first_zero"), default="sokal",
+                        help="estimator of the statistical inefficiency used for N_eff and errors (default sokal)")
+    parser.add_argument("--segments", type=int, default=4, metavar="N",
+                        help="contiguous segments for split R-hat and segment divergences (default 4)")
+    parser.add_argument("--bins", type=int, default=50, metavar="B", help="histogram bins for divergences (default 50)")
+    parser.add_argument("--replica", action="append", nargs="+", default=[], metavar="FILE",
+                        help="files of a replica of the same system (repeat the option per replica): R-hat across runs")
+    parser.add_argument("--vacf", action="store_true", help="velocity autocorrelation and Green-Kubo diffusion")
+    parser.add_argument("--msd", action="store_true", help="mean-squared displacement and Einstein diffusion")
+    parser.add_argument("--spectrum", action="store_true", help="vibrational density of states (cm^-1, THz) and peaks")
+    parser.add_argument("--tm", action="store_true", help="Thirumalai-Mountain metric of per-atom kinetic energies")
+    parser.add_argument("-g", "--group", action="append", default=[], metavar="GROUP",
+                        help="atoms for --vacf/--msd/--spectrum/--tm: index, range, [list] or quoted mdtraj query; "
+                             "repeat for several groups (default all atoms)")
+    parser.add_argument("--mass-weighted", action="store_true", help="mass-weight the VACF of --vacf")
+    parser.add_argument("--gk-limit", type=float, default=None, metavar="PS",
+                        help="upper limit of the Green-Kubo integral (default: chosen where the VACF has decayed)")
+    parser.add_argument("--viscosity", type=float, default=None, metavar="MPA_S",
+                        help="shear viscosity of the simulated model (mPa s) for the Yeh-Hummer correction")
+    parser.add_argument("--box-edge", type=float, default=None, metavar="NM",
+                        help="cubic box edge (nm) for the Yeh-Hummer correction (default: from the first frame)")
+    parser.add_argument("--fit-range", type=float, nargs=2, default=None, metavar=("FROM_PS", "TO_PS"),
+                        help="time range of the MSD line fit (default 20%%-80%% of the lag window)")
+    parser.add_argument("--peak-prominence", type=float, default=0.05, metavar="F",
+                        help="a spectral peak is listed when its prominence is at least F x the highest (default 0.05)")
+    parser.add_argument("--max-lag", type=float, default=None, metavar="PS", help="lag window in ps")
+    parser.add_argument("--start", type=int, default=0, metavar="N", help="first frame / row (0-based)")
+    parser.add_argument("--stop", type=int, default=None, metavar="N", help="stop before this frame / row")
+    parser.add_argument("--explain", action="store_true",
+                        help="print what each verdict measures, how, its threshold and source, and advice")
+
+
+# ---------------------------------------------------------------------------------------------------
+# inputs
+# ---------------------------------------------------------------------------------------------------
+
+
+def _find_series(run: Any, name: str) -> Any:
+    from phasewake.core.errors import MissingDataError
+
+    table = run.energies
+    where = run.paths[0] if run.paths else None
+    if table is None:
+        raise MissingDataError("the run has no energy table; use --coordinate for a coordinate", path=where)
+    if name in table.series:
+        return table.series[name]
+    low = {k.lower(): k for k in table.series}
+    if name.lower() in low:
+        return table.series[low[name.lower()]]
+    by_role = table.by_role(name.lower())
+    if by_role is not None:
+        return by_role
+    names = ", ".join(sorted(table.series)) or "none"
+    raise MissingDataError(f"no energy series named {name!r}; the run has: {names}", path=where)
+
+
+def _time_step(time_ps: np.ndarray, what: str) -> float:
+    from phasewake.core.errors import AnalysisError, TooShortError
+
+    t = np.asarray(time_ps, dtype=float)
+    if t.size < 4:
+        raise TooShortError(what, have=int(t.size), need=4)
+    d = np.diff(t)
+    dt = float(np.median(d))
+    if not dt > 0 or np.max(np.abs(d - dt)) > 1e-3 * dt + 1e-12:
+        raise AnalysisError(f"{what}: samples are not evenly spaced in time")
+    return dt
+
+
+def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
+    """name, unit, values, dt_ps, source of every series asked for."""
+    out: list[dict[str, Any]] = []
+    names = list(args.series)
+    velocity_mode = args.vacf or args.msd or args.spectrum or args.tm
+    if not names and not args.coordinate and not velocity_mode:
+        if run.energies is not None and run.energies.series:
+            names = [k for k, s in run.energies.series.items() if s.role not in _SKIP_ROLES]
+        else:
+            from phasewake.core.coordinates import default_coordinates
+
+            args.coordinate = default_coordinates(run)
+    sl = slice(args.start, args.stop)
+    for nm in names:
+        s = _find_series(run, nm)
+        values = np.asarray(s.values, float)[sl]
+        t = np.asarray(run.energies.time_ps, float)[sl]
+        ok = np.isfinite(values)
+        out.append({"name": s.name, "unit": s.unit, "values": values[ok], "time_ps": t[ok],
+                    "source": s.source or "energy table", "kind": "series"})
+    if args.coordinate:
+        from phasewake.core.coordinates import compute_coordinates
+
+        series = run_with_progress(compute_coordinates(run, args.coordinate, start=args.start, stop=args.stop),
+                                   "coordinates")
+        for c in series:
+            out.append({"name": c.label, "unit": c.unit, "values": np.asarray(c.values, float),
+                        "time_ps": np.asarray(c.time_ps, float), "source": c.spec, "kind": "coordinate"})
+    return out
+
+
+def _groups(args: argparse.Namespace, run: Any) -> dict[str, np.ndarray] | None:
+    if not args.group:
+        return None
+    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.errors import CoordinateSpecError
+
+    out: dict[str, np.ndarray] = {}
+    for text in args.group:
+        try:
+            r = resolve(parse(f"rg({text})"), n_atoms=run.n_atoms, topology=run.topology)
+        except CoordinateSpecError as exc:
+            pos = None if exc.position is None else max(0, exc.position - 3)
+            raise CoordinateSpecError(f"--group: {exc.problem.splitlines()[0]}", spec=text, position=pos) from exc
+        out[text] = r.groups[0]
+    return out
+
+
+# ---------------------------------------------------------------------------------------------------
+# analyses
+# ---------------------------------------------------------------------------------------------------
+
+
+def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[Any]) -> dict[str, Any]:
+    from phasewake.core import correlation as C
+    from phasewake.core import sampling as S
+
+    x = item["values"]
+    dt = _time_step(item["time_ps"], f"series {item['name']}")
+    max_lag = None if args.max_lag is None else max(1, int(round(args.max_lag / dt)))
+    res = C.analyse_series(x, dt_ps=dt, method=args.method, max_lag=max_lag, unit=item["unit"])
+    g_all = {m: C.statistical_inefficiency(x, method=m, max_lag=max_lag) for m in C.METHODS}
+    block = C.blocking(x, unit=item["unit"]) if x.size >= 32 else None
+    equil = run_with_progress(C.equilibration_work(x, dt_ps=dt, method=args.method, max_lag=max_lag),
+                              f"equilibration {item['name']}")
+    seg = max(2, int(args.segments))
+    rh = S.rhat_segments(x, n_segments=seg) if x.size >= 4 * seg else None
+    div = S.segment_divergence(x, n_segments=2, bins=args.bins) if x.size >= 20 and np.ptp(x) > 0 else None
+    verdict_list = [C.judge_ess(res, name=item["name"]), C.judge_equilibration(equil, name=item["name"])]
+    if rh is not None:
+        verdict_list.append(S.judge_rhat(rh, name=f"{item['name']} ({seg} segments)"))
+    if div is not None:
+        verdict_list.append(S.judge_divergence(div, name=item["name"]))
+    rep = None
+    if replicas:
+        rep = _replica_rhat(item, x, replicas, args)
+        if rep is not None:
+            verdict_list.append(S.judge_rhat(rep, name=f"{item['name']} across {rep.n_chains} replicas"))
+    return {
+        "name": item["name"], "kind": item["kind"], "source": item["source"], "unit": item["unit"],
+        "correlation": res, "g_by_method": g_all, "blocking": block, "equilibration": equil,
+        "rhat_segments": rh, "divergence": div, "rhat_replicas": rep, "verdicts": verdict_list,
+    }
+
+
+def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args: argparse.Namespace) -> Any:
+    from phasewake.core import sampling as S
+
+    chains = [x]
+    for rep in replicas:
+        if item["kind"] == "series":
+            s = _find_series(rep, item["name"])
+            chains.append(np.asarray(s.values, float)[args.start:args.stop])
+        else:
+            from phasewake.core.coordinates import compute_coordinates
+
+            c = run_with_progress(compute_coordinates(rep, [item["source"]], start=args.start, stop=args.stop),
+                                  "replica coordinates")[0]
+            chains.append(np.asarray(c.values, float))
+    chains = [c[np.isfinite(c)] for c in chains]
+    n = min(c.size for c in chains)
+    if n < 4:
+        return None
+    return S.rhat(np.vstack([c[:n] for c in chains]), split=True)
+
+
+def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
+    from phasewake.core import sampling as S
+    from phasewake.core import velocity as V
+
+    out: dict[str, Any] = {}
+    groups = _groups(args, run)
+    if args.vacf:
+        vres = run_with_progress(V.vacf(run, groups=groups, mass_weighted=args.mass_weighted,
+                                        max_lag_ps=args.max_lag, start=args.start, stop=args.stop), "VACF")
+        out["vacf"] = vres
+        if not args.mass_weighted:
+            gk = [V.green_kubo(vres, group=i, limit_ps=args.gk_limit) for i in range(len(vres.groups))]
+            out["green_kubo"] = gk
+            if args.viscosity is not None:
+                edge = args.box_edge
+                if edge is None and run.frames is not None and run.frames.has_box:
+                    box = run.frames.read_frame(0).box_nm
+                    if box is not None:
+                        edge = float(np.cbrt(abs(np.linalg.det(np.asarray(box[0], float)))))
+                temp = run.metadata.temperature_K
+                if edge is None or temp is None:
+                    from phasewake.core.errors import InputError
+
+                    raise InputError("the Yeh-Hummer correction needs the box edge (--box-edge) and the "
+                                     "temperature (--temperature)")
+                corr = V.yeh_hummer_correction_nm2_per_ps(temperature_K=temp, viscosity_mPa_s=args.viscosity,
+                                                          box_edge_nm=edge)
+                out["yeh_hummer"] = {"correction_nm2_per_ps": corr, "box_edge_nm": edge, "temperature_K": temp,
+                                     "viscosity_mPa_s": args.viscosity}
+    if args.msd:
+        out["msd"] = run_with_progress(V.msd(run, groups=groups, max_lag_ps=args.max_lag,
+                                             fit_range_ps=tuple(args.fit_range) if args.fit_range else None,
+                                             start=args.start, stop=args.stop), "MSD")
+    if args.spectrum:
+        idx = None
+        if groups:
+            idx = np.unique(np.concatenate(list(groups.values())))
+        out["spectrum"] = run_with_progress(
+            V.vibrational_spectrum(run, atom_indices=idx, max_lag_ps=args.max_lag,
+                                   peak_prominence=args.peak_prominence, start=args.start, stop=args.stop),
+            "spectrum")
+    if args.tm:
+        idx = None
+        if groups:
+            idx = np.unique(np.concatenate(list(groups.values())))
+        tm = run_with_progress(S.thirumalai_mountain_kinetic(run, atom_indices=idx, start=args.start,
+                                                             stop=args.stop), "Thirumalai-Mountain")
+        out["tm"] = tm
+        out["tm_verdict"] = S.judge_tm(tm)
+    return out
+
+
+# ---------------------------------------------------------------------------------------------------
+# output
+# ---------------------------------------------------------------------------------------------------
+
+
+def _series_json(a: dict[str, Any]) -> dict[str, Any]:
+    r = a["correlation"]
+    d: dict[str, Any] = {"name": a["name"], "kind": a["kind"], "source": a["source"], "unit": a["unit"]}
+    d.update(r.to_dict())
+    d["g_by_method"] = a["g_by_method"]
+    d["acf"] = {"lag_ps": r.acf_lag_ps, "rho": r.acf}
+    b = a["blocking"]
+    if b is not None:
+        d["blocking"] = {"block_size_samples": b.block_size, "n_blocks": b.n_blocks, "sem": b.sem,
+                         "sem_error": b.sem_error, "plateau_level": b.plateau_level, "plateau_sem": b.plateau_sem,
+                         "plateau_found": b.plateau_found, "unit": b.unit}
+    e = a["equilibration"]
+    d["equilibration"] = {"t0_index": e.t0_index, "t0_ps": e.t0_ps, "g": e.statistical_inefficiency,
+                          "effective_sample_size": e.effective_sample_size,
+                          "fraction_discarded": e.fraction_discarded, "method": e.method}
+    for key in ("rhat_segments", "rhat_replicas"):
+        rh = a[key]
+        if rh is not None:
+            d[key] = {"rhat": rh.rhat, "bulk": rh.bulk, "tail": rh.tail, "classic_split": rh.classic_split,
+                      "n_chains": rh.n_chains, "n_draws": rh.n_draws, "threshold": rh.threshold}
+    dv = a["divergence"]
+    if dv is not None:
+        d["half_divergence"] = {"jsd_nats": dv.half_jsd_nats, "null_nats": dv.half_null_nats,
+                                "ratio_to_null": float(dv.ratio[0, 1]), "bins": int(dv.histograms.shape[1]),
+                                "n_eff_per_half": dv.n_eff_per_segment}
+    d["verdicts"] = [v.to_dict() for v in a["verdicts"]]
+    return d
+
+
+def _velocity_json(v: dict[str, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    if "vacf" in v:
+        r = v["vacf"]
+        out["vacf"] = {"groups": list(r.groups), "n_atoms_per_group": r.n_atoms_per_group, "unit": r.unit,
+                       "mass_weighted": r.mass_weighted, "lag_ps": r.lag_ps, "vacf": r.vacf,
+                       "velocities_estimated": r.velocities_estimated, "notes": list(r.notes)}
+    if "green_kubo" in v:
+        out["green_kubo"] = [{"group": g.group, "diffusion_nm2_per_ps": g.diffusion_nm2_per_ps,
+                              "diffusion_cm2_per_s": g.diffusion_cm2_per_s, "limit_ps": g.limit_ps,
+                              "limit_rule": g.limit_rule} for g in v["green_kubo"]]
+    if "yeh_hummer" in v:
+        out["yeh_hummer"] = v["yeh_hummer"]
+    if "msd" in v:
+        m = v["msd"]
+        out["msd"] = {"groups": list(m.groups), "lag_ps": m.lag_ps, "msd_nm2": m.msd_nm2,
+                      "diffusion_nm2_per_ps": m.diffusion_nm2_per_ps, "fit_range_ps": list(m.fit_range_ps),
+                      "unwrapped": m.unwrapped}
+    if "spectrum" in v:
+        s = v["spectrum"]
+        out["spectrum"] = {"wavenumber_cm1": s.wavenumber_cm1, "thz": s.thz, "intensity_per_cm1": s.intensity,
+                           "n_dof": s.n_dof, "peaks": [p.__dict__ for p in s.peaks],
+                           "highest_significant_peak_cm1": s.highest_significant_peak_cm1,
+                           "resolution_cm1": s.resolution_cm1, "nyquist_cm1": s.nyquist_cm1,
+                           "window": s.window, "velocities_estimated": s.velocities_estimated,
+                           "notes": list(s.notes)}
+    if "tm" in v:
+        t = v["tm"]
+        out["thirumalai_mountain"] = {"time_ps": t.time_ps, "omega": t.omega, "omega_unit": f"({t.unit})^2",
+                                      "d_per_ps": t.d_per_ps, "late_slope": t.late_slope, "plateau": t.plateau,
+                                      "n_particles": t.n_particles, "verdict": v["tm_verdict"].to_dict()}
+    return out
+
+
+def _g(x: float) -> str:
+    return f"{x:.4g}"
+
+
+def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], explain: bool, out: Any) -> None:
+    from phasewake.core.verdicts import EXPLANATIONS, HEURISTIC_NOTE
+
+    w = out.write
+    wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
+    w(f"phasewake memory: {run.name}\n")
+    for a in analyses:
+        r = a["correlation"]
+        u = f" {a['unit']}" if a["unit"] else ""
+        w(f"\n  {a['name']} [{a['unit'] or 'dimensionless'}] ({a['source']}): {r.n_samples} samples every "
+          f"{_g(r.dt_ps)} ps\n")
+        gm = a["g_by_method"]
+        w(f"    statistical inefficiency g = {_g(r.statistical_inefficiency)} ({r.method}, window {r.window_lags} "
+          f"lags); sokal {_g(gm['sokal'])} | geyer {_g(gm['geyer'])} | first-zero {_g(gm['first_zero'])}\n")
+        w(f"    tau_int (Sokal, g/2) = {_g(r.tau_int_sokal_ps)} ps; effective samples N/g = "
+          f"{r.effective_sample_size:.0f}\n")
+        w(f"    mean {_g(r.mean)}{u} +- {_g(r.standard_error_of_mean)}{u} (g-corrected standard error)\n")
+        b = a["blocking"]
+        if b is not None:
+            state = "plateau" if b.plateau_found else "no clear plateau; largest usable"
+            w(f"    blocking standard error {_g(b.plateau_sem)}{u} ({state} at blocks of {b.block_size[b.plateau_level]} "
+              f"samples; naive {_g(b.naive_sem)})\n")
+        e = a["equilibration"]
+        w(f"    equilibrated from t0 = {_g(e.t0_ps)} ps ({100 * e.fraction_discarded:.1f}% of the run before it), "
+          f"{e.effective_sample_size:.0f} effective samples after\n")
+        rh = a["rhat_segments"]
+        if rh is not None:
+            w(f"    split R-hat over {rh.n_chains} segments {rh.rhat:.4f} (bulk {rh.bulk:.4f}, tail {rh.tail:.4f})\n")
+        dv = a["divergence"]
+        if dv is not None:
+            w(f"    half against half: Jensen-Shannon {dv.half_jsd_nats:.3g} nats, {dv.ratio[0, 1]:.2g}x the noise "
+              f"level {dv.half_null_nats:.3g}\n")
+        rr = a["rhat_replicas"]
+        if rr is not None:
+            w(f"    R-hat across {rr.n_chains} replicas {rr.rhat:.4f}\n")
+        for n in r.notes:
+            w(wrap.fill(f"note: {n}") + "\n")
+    if "vacf" in vel:
+        r = vel["vacf"]
+        w(f"\n  velocity autocorrelation ({'mass-weighted, ' if r.mass_weighted else ''}{r.n_frames} frames, lag window "
+          f"{_g(r.lag_ps[-1])} ps, unit {r.unit})\n")
+        for i, name in enumerate(r.groups):
+            w(f"    group {name}: {int(r.n_atoms_per_group[i])} atoms, C(0) = {_g(r.vacf[i, 0])} {r.unit}\n")
+        for g in vel.get("green_kubo", []):
+            w(f"    Green-Kubo D ({g.group}) = {_g(g.diffusion_nm2_per_ps)} nm^2/ps = {_g(g.diffusion_cm2_per_s)} cm^2/s, "
+              f"integrated to {_g(g.limit_ps)} ps ({g.limit_rule})\n")
+        if "yeh_hummer" in vel:
+            y = vel["yeh_hummer"]
+            w(f"    Yeh-Hummer correction +{_g(y['correction_nm2_per_ps'])} nm^2/ps (L = {_g(y['box_edge_nm'])} nm, "
+              f"eta = {_g(y['viscosity_mPa_s'])} mPa s, T = {_g(y['temperature_K'])} K)\n")
+        for n in r.notes:
+            w(wrap.fill(f"note: {n}") + "\n")
+    if "msd" in vel:
+        m = vel["msd"]
+        for i, name in enumerate(m.groups):
+            w(f"\n  mean-squared displacement ({name}): Einstein D = {_g(m.diffusion_nm2_per_ps[i])} nm^2/ps from a "
+              f"line fit over {_g(m.fit_range_ps[0])}-{_g(m.fit_range_ps[1])} ps"
+              f"{' (unwrapped through the box)' if m.unwrapped else ''}\n")
+    if "spectrum" in vel:
+        s = vel["spectrum"]
+        w(f"\n  vibrational density of states: resolution {_g(s.resolution_cm1)} cm^-1, Nyquist limit "
+          f"{_g(s.nyquist_cm1)} cm^-1, {s.window} lag window of {_g(s.max_lag_ps)} ps\n")
+        if s.peaks:
+            for p in s.peaks:
+                w(f"    peak {p.wavenumber_cm1:9.1f} cm^-1 = {p.thz:7.3f} THz   relative prominence {p.prominence:.2f}\n")
+            w(f"    highest significant peak {s.highest_significant_peak_cm1:.1f} cm^-1\n")
+        else:
+            w("    no significant peak\n")
+        for n in s.notes:
+            w(wrap.fill(f"note: {n}") + "\n")
+    if "tm" in vel:
+        t = vel["tm"]
+        w(f"\n  Thirumalai-Mountain metric ({t.n_particles} atoms, {t.quantity}): late log-log slope "
+          f"{t.late_slope:.2f} (ergodic: -1), D = {_g(t.d_per_ps)} 1/ps\n")
+    verdict_list = [v for a in analyses for v in a["verdicts"]]
+    if "tm_verdict" in vel:
+        verdict_list.append(vel["tm_verdict"])
+    if verdict_list:
+        w("\n  verdicts\n")
+        for v in verdict_list:
+            meas = "-" if v.measured is None else f"{v.measured:.4g} {v.unit}".strip()
+            w(f"    {LEVEL_WORD[v.level]:<8} {v.title}: {meas}")
+            if v.threshold is not None:
+                t = v.threshold
+                op = ">" if t.higher_is_worse else "<"
+                w(f"   [caution {op} {t.caution:g}, problem {op} {t.problem:g}; {t.source}]")
+            w("\n")
+            if v.level in ("caution", "problem") and v.advice:
+                w(wrap.fill(f"advice: {v.advice}") + "\n")
+            if explain and v.kind in EXPLANATIONS:
+                ex = EXPLANATIONS[v.kind]
+                for part, text in (("what", ex.what), ("method", ex.method), ("threshold", ex.threshold)):
+                    w(wrap.fill(f"{part}: {text}") + "\n")
+    w("\n" + textwrap.fill(HEURISTIC_NOTE, width=100, initial_indent="  ", subsequent_indent="  ") + "\n")
+
+
+def run(args: argparse.Namespace) -> int:
+    from phasewake.app.common import quiet_stdout
+    from phasewake.core.readers import open_run
+    from phasewake.core.verdicts import HEURISTIC_NOTE, worst
+
+    run_ = open_run_from_args(args)
+    replicas = []
+    for files in args.replica:
+        with quiet_stdout():
+            replicas.append(open_run(files, topology=args.top))
+    items = _series_inputs(args, run_)
+    analyses = [_analyse_one(it, args, replicas) for it in items]
+    vel = _velocity_analyses(args, run_) if (args.vacf or args.msd or args.spectrum or args.tm) else {}
+    levels = [v.level for a in analyses for v in a["verdicts"]]
+    if "tm_verdict" in vel:
+        levels.append(vel["tm_verdict"].level)
+    if args.json:
+        print_json({"run": run_.name, "files": [str(p) for p in run_.paths],
+                    "series": [_series_json(a) for a in analyses], **_velocity_json(vel),
+                    "worst": worst(levels), "note": HEURISTIC_NOTE})
+    else:
+        _write_text(run_, analyses, vel, args.explain, sys.stdout)
+    return 0 if worst(levels) == "ok" else 1
