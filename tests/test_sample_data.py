@@ -304,6 +304,11 @@ def test_the_project_reader_opens_every_sample():
     # integration: phasewake's own reader layer sees what the files say
     from phasewake.core.readers import open_run
 
+    for name in H5MD_FILES:
+        run = open_run([SAMPLES / name])
+        assert run.n_atoms == 54 and run.n_frames == load(name)["x"].shape[0], name
+        assert run.metadata.n_constraints == 0 and not run.warnings, name
+
     nve = open_run([SAMPLES / "dimer_nve.h5md"])
     assert (nve.n_atoms, nve.n_frames) == (54, 1600)
     assert nve.metadata.timestep_ps == pytest.approx(0.004) and nve.metadata.ensemble == "NVE"
