@@ -112,7 +112,7 @@ def masses_from_topology(top: mdtraj.Topology | None, n_atoms: int) -> np.ndarra
 # --- time axis ---
 
 
-def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str = "frames") -> list[str]:
+def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str = "frame") -> list[str]:
     """Raise TimeAxisError on non-monotonic or duplicated time; return warnings for gaps.
 
     Never sorts: a run whose time goes backwards was probably concatenated or restarted, and the user
@@ -215,6 +215,10 @@ class EstimatedVelocityFrames:
         d = (b.astype(np.float64) - a.astype(np.float64))
         if box is None:
             return d
+        diag = np.diagonal(box, axis1=1, axis2=2)  # (n, 3)
+        if not np.any(box - diag[:, :, None] * np.eye(3)):  # rectangular: the cheap minimum image
+            lengths = diag[:, None, :]
+            return d - lengths * np.round(d / lengths)
         inv = np.linalg.inv(box)  # (n, 3, 3); fractional = d @ inv
         frac = np.einsum("fnj,fjk->fnk", d, inv)
         frac -= np.round(frac)
@@ -266,7 +270,7 @@ class EstimatedVelocityFrames:
 
 
 def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: np.ndarray,
-                          *, temperature_K: float | None = None, sample_frames: int = 64) -> str:
+                          *, temperature_K: float | None = None, sample_frames: int = 16) -> str:
     """Warning text for estimated velocities: frame spacing vs the fastest motion seen.
 
     Compares the largest per-atom displacement between neighbouring frames (from up to
