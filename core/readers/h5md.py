@@ -316,7 +316,7 @@ class H5MDFrames:
     def __init__(self, path: Path, group: str, *, frame_rows: np.ndarray, time_ps: np.ndarray,
                  pos_factor: float, vel_rows: np.ndarray | None, vel_factor: float,
                  box_fixed: np.ndarray | None, box_rows: np.ndarray | None, box_factor: float,
-                 n_atoms: int) -> None:
+                 n_atoms: int, image_rows: np.ndarray | None = None) -> None:
         self.path = path
         self.group = group
         self._rows = frame_rows  # row of position/value for each frame
@@ -326,6 +326,7 @@ class H5MDFrames:
         self._vel_factor = vel_factor
         self._box_fixed = box_fixed
         self._box_rows = box_rows
+        self._image_rows = image_rows  # row of image/value for each frame (positions get unwrapped)
         self._box_factor = box_factor
         self.n_frames = int(frame_rows.shape[0])
         self.n_atoms = n_atoms
@@ -346,7 +347,8 @@ class H5MDFrames:
                           pos_factor=self._pos_factor, vel_rows=self._vel_rows[keep],
                           vel_factor=self._vel_factor, box_fixed=self._box_fixed,
                           box_rows=None if self._box_rows is None else self._box_rows[keep],
-                          box_factor=self._box_factor, n_atoms=self.n_atoms)
+                          box_factor=self._box_factor, n_atoms=self.n_atoms,
+                          image_rows=None if self._image_rows is None else self._image_rows[keep])
 
     @property
     def time_ps(self) -> np.ndarray:
@@ -385,6 +387,7 @@ class H5MDFrames:
             pos_ds = pg["position"]["value"]
             vel_ds = pg["velocity"]["value"] if want_vel else None
             box_ds = pg["box"]["edges"]["value"] if self._box_rows is not None else None
+            img_ds = pg["image"]["value"] if self._image_rows is not None else None
             for i in range(0, idx.size, chunk_frames):
                 sel = idx[i : i + chunk_frames]
                 pos = self._read_rows(pos_ds, self._rows[sel])
@@ -406,6 +409,12 @@ class H5MDFrames:
                     box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
                 elif self._box_fixed is not None:
                     box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
+                if img_ds is not None and self._image_rows is not None and box is not None:
+                    # H5MD: the unwrapped position is position + image . box edges
+                    img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
+                    if cols is not None:
+                        img = img[:, cols]
+                    pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)
                 yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                                  velocities_nm_per_ps=vel, box_nm=box)
 
@@ -683,6 +692,18 @@ def read_h5md(path: str | Path, *, group: str | None = None) -> H5MDContents:
                                         "uses the latest box at or before its step")
                 md.sources["box"] = f"{path.name}:/particles/{gname}/box"
 
+        image_rows = None
+        if "image" in pg and isinstance(pg["image"], h5py.Group) and (box_fixed is not None or box_rows is not None):
+            iel = pg["image"]
+            iax = _axis(iel, int(iel["value"].shape[0]), path=path, name=f"/particles/{gname}/image")
+            image_rows = _align(pax.step, iax.step)
+            if np.any(image_rows < 0) or iel["value"].shape[1:] != (n_atoms, 3):
+                warnings.append(f"{path.name}: periodic images do not match the positions' steps or shape; "
+                                "positions are used as stored (wrapped)")
+                image_rows = None
+            else:
+                md.sources["images"] = f"{path.name}:/particles/{gname}/image (positions unwrapped)"
+
         masses = None
         if "mass" in pg:
             mds = pg["mass"]
@@ -747,6 +768,7 @@ def read_h5md(path: str | Path, *, group: str | None = None) -> H5MDContents:
 
     frames = H5MDFrames(path, gname, frame_rows=frame_rows, time_ps=np.asarray(time, np.float64),
                         pos_factor=pos_factor, vel_rows=vel_rows, vel_factor=vel_factor,
-                        box_fixed=box_fixed, box_rows=box_rows, box_factor=box_factor, n_atoms=n_atoms)
+                        box_fixed=box_fixed, box_rows=box_rows, box_factor=box_factor, n_atoms=n_atoms,
+                        image_rows=image_rows)
     return H5MDContents(frames=frames, time_ps=np.asarray(time, np.float64), masses_amu=masses,
                         topology=topology, energies=energies, metadata=md, warnings=warnings, groups=groups)

@@ -131,14 +131,30 @@ def claim_topology(path: Path) -> bool:
     return _suffix(path) in TOPOLOGY_SUFFIXES and _suffix(path) != ".h5"
 
 
+_TOPOLOGY_CACHE: dict[tuple[str, int, int], mdtraj.Topology] = {}
+_TOPOLOGY_CACHE_SIZE = 8
+
+
 def load_topology(path: str | Path) -> mdtraj.Topology:
-    """A topology file through mdtraj (PDB, GRO, PSF, PRMTOP, mol2, ...)."""
+    """A topology file through mdtraj (PDB, GRO, PSF, PRMTOP, mol2, ...).
+
+    Parsing a large PDB costs more than reading a whole DCD (PERFORMANCE.md), so topologies are kept
+    (a few, keyed by path, size and modification time). The same object is returned: do not modify it.
+    """
     import mdtraj as md
 
     p = Path(path)
     try:
+        st = p.stat()
+        key = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+        if key in _TOPOLOGY_CACHE:
+            return _TOPOLOGY_CACHE[key]
         with _quiet_mdtraj():
-            return md.load_topology(str(p))
+            top = md.load_topology(str(p))
+        if len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
+            _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
+        _TOPOLOGY_CACHE[key] = top
+        return top
     except (OSError, ValueError, KeyError, IndexError, TypeError, RuntimeError, struct.error,
             AssertionError) as exc:
         raise CorruptFileError(f"cannot read the topology ({type(exc).__name__}: {exc})", path=p) from exc

@@ -234,3 +234,32 @@ def test_gap_in_frame_times_is_warned(tmp_path):
     write_h5md(path, positions_nm=pos, time_ps=t, step=step)
     run = open_run([path])
     assert any("gap(s) in the time axis" in w and "frame 4" in w for w in run.warnings)
+
+
+def test_image_element_unwraps_positions(tmp_path):
+    # H5MD: "image" holds the periodic image of each particle; unwrapped = position + image . edges
+    edges = np.array([[2.0, 0.0, 0.0], [0.5, 2.0, 0.0], [0.3, 0.4, 2.0]])
+    rng = np.random.default_rng(9)
+    unwrapped = rng.normal(size=(6, 5, 3)) * 3
+    frac = unwrapped @ np.linalg.inv(edges)
+    image = np.floor(frac)
+    wrapped = (frac - image) @ edges
+    path = tmp_path / "img.h5md"
+    with h5py.File(path, "w") as f:
+        f.create_group("h5md").attrs["version"] = [1, 1]
+        g = f.create_group("particles/all")
+        b = g.create_group("box")
+        b.attrs["dimension"] = 3
+        b.attrs["boundary"] = np.array([b"periodic"] * 3)
+        b.create_dataset("edges", data=edges).attrs["unit"] = "nm"
+        p = g.create_group("position")
+        p.create_dataset("value", data=wrapped).attrs["unit"] = "nm"
+        p.create_dataset("step", data=np.arange(6))
+        p.create_dataset("time", data=np.arange(6.0)).attrs["unit"] = "ps"
+        im = g.create_group("image")
+        im.create_dataset("value", data=image.astype(np.int32))
+        im["step"] = p["step"]
+    run = open_run([path])
+    got = next(run.frames.iter_chunks(chunk_frames=10, velocities=False)).positions_nm
+    np.testing.assert_allclose(got, unwrapped, atol=2e-5)
+    assert "images" in run.metadata.sources
