@@ -249,3 +249,26 @@ def test_default_coordinates():
     assert default_coordinates(run) == ["distance(0, 1)"]
     spec = default_coordinates(run)[0]
     assert resolve(spec, n_atoms=3).function == "distance"
+
+
+SAMPLES = __import__("pathlib").Path(__file__).resolve().parents[2] / "sample_data"
+
+
+@pytest.mark.skipif(not (SAMPLES / "dimer_langevin.h5md").exists(), reason="sample runs not generated")
+def test_sample_dimer_bond_against_mdtraj_and_equipartition():
+    from phasewake.app.common import quiet_stdout
+    from phasewake.core.readers import open_run
+
+    run = open_run([SAMPLES / "dimer_nve.h5md"])
+    (s,) = result_of(compute_coordinates(run, ['distance("name D1", "name D2")']))
+    with quiet_stdout():
+        traj = md.load(str(SAMPLES / "dimer_nve.dcd"), top=str(SAMPLES / "dimer_nve.pdb"))
+    # mdtraj on the DCD copy of the same run (DCD stores Angstrom in float32)
+    np.testing.assert_allclose(s.values, md.compute_distances(traj, [[0, 1]], periodic=True)[:, 0], atol=2e-5)
+
+    lang = open_run([SAMPLES / "dimer_langevin.h5md"])
+    (b,) = result_of(compute_coordinates(lang, ["distance(0, 1)"]))
+    kt = KB * 120.0  # the bath temperature of the sample (sample_data/README.md)
+    np.testing.assert_allclose(b.m_eff, 39.948 / 2, rtol=1e-9)  # reduced mass of two argon-mass atoms
+    # <(dq/dt)^2> = kT <1/m_eff> (REFERENCES.md 7.3); 1600 correlated frames: allow 20% (~3 sigma)
+    assert abs(np.mean(b.velocity**2) / (kt / 19.974) - 1) < 0.2
