@@ -43,12 +43,32 @@ from phasewake.core.coordinates import kabsch, solute_atoms
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES
+from phasewake.core.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 
 if TYPE_CHECKING:
     from phasewake.core.run import Run
 
 K_B_KJ_PER_MOL_K = 0.00831446261815324  # CODATA 2018 exact k_B * N_A (REFERENCES.md section 9)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
+
+register(
+    Threshold(
+        kind="pca.cosine_content", caution=0.5, problem=0.7, unit="",
+        source="Hess, Phys. Rev. E 65, 031910 (2002) (values near 1 mean random diffusion, from memory); "
+               "the limits 0.5 and 0.7 are common practice",
+        description="cosine content of a leading principal component",
+    ),
+    Explanation(
+        title="Cosine content of a principal component",
+        what="How much the projection of the run on a leading principal component looks like a half-cosine "
+             "with k half periods over the whole run.",
+        method="c_k = (2/T) (integral cos(k pi t/T) q_k(t) dt)^2 / integral q_k(t)^2 dt (Hess 2002), midpoint "
+               "rule over the frames.",
+        threshold="caution above 0.5, problem above 0.7 (common practice; Hess 2002 shows that random "
+                  "diffusion gives values near 1 for the first components).",
+        advice="Run longer or treat that component as unconverged; it is a heuristic, not a proof.",
+    ),
+)
 
 
 @dataclass(frozen=True)
@@ -378,13 +398,51 @@ def pca_arrays(
     *,
     velocities_nm_per_ps: np.ndarray | None = None,
     time_ps: np.ndarray | None = None,
-    **settings,
+    atom_indices: Sequence[int] | np.ndarray | None = None,
+    chunk_frames: int | None = None,
+    mass_weighted: bool = True,
+    fit: bool = True,
+    reference_nm: np.ndarray | None = None,
+    n_components: int = 10,
+    method: str = "exact",
+    n_iter: int = 0,
+    oversample: int = 30,
+    seed: int = 0,
+    precision: str = "float32",
+    projections: bool = True,
 ) -> PCAResult:
-    """PCA of in-memory arrays (n_frames, n_atoms, 3): same implementation as :func:`compute_pca`."""
+    """PCA of in-memory arrays: the same implementation as :func:`compute_pca` (same settings).
+
+    positions_nm, velocities_nm_per_ps : (n_frames, n_atoms, 3); masses_amu : (n_atoms,);
+    time_ps : (n_frames,) (default 0, 1, 2, ...).
+    """
     from phasewake.core.progress import result_of
     from phasewake.core.readers.memory import run_from_arrays
 
     pos = np.asarray(positions_nm)
     t = np.arange(pos.shape[0], dtype=np.float64) if time_ps is None else np.asarray(time_ps)
     run = run_from_arrays(pos, t, masses_amu, velocities_nm_per_ps=velocities_nm_per_ps)
-    return result_of(compute_pca(run, **settings))
+    return result_of(compute_pca(
+        run, atom_indices=atom_indices, chunk_frames=chunk_frames, mass_weighted=mass_weighted, fit=fit,
+        reference_nm=reference_nm, n_components=n_components, method=method, n_iter=n_iter,
+        oversample=oversample, seed=seed, precision=precision, projections=projections,
+    ))
+
+
+def cosine_content_verdict(pca: PCAResult, *, component: int = 1) -> Verdict:
+    """Verdict on the cosine content of a leading component (Hess 2002). A heuristic."""
+    if pca.cosine_content is None:
+        raise AnalysisError("the PCA was computed without projections, so it has no cosine content")
+    k = int(component)
+    if not 1 <= k <= pca.cosine_content.shape[0]:
+        raise AnalysisError(f"component {k} is not among the {pca.cosine_content.shape[0]} computed")
+    c = float(pca.cosine_content[k - 1])
+    return judge(
+        "pca.cosine_content", c, title=f"Cosine content of PC{k}", unit="",
+        message=f"PC{k} has cosine content {c:.2f} (1 = a perfect half-cosine{'s' if k > 1 else ''} with {k} "
+                "half period(s) over the run, as random diffusion gives; near 0 = no such shape). "
+                + HEURISTIC_NOTE,
+        advice="A high value means the run has not sampled an equilibrium distribution along this component: "
+               "run longer, or do not read free energies along it.",
+        details={"component": k, "method": pca.method, "n_frames": pca.n_frames},
+    )

@@ -141,3 +141,15 @@ def test_single_pass_nystrom_route():
     np.testing.assert_allclose(one.eigenvalues, exact.eigenvalues, rtol=0.02)
     overlap = np.abs(np.sum(one.eigenvectors[:, :2] * exact.eigenvectors[:, :2], axis=0))
     assert np.all(overlap > 0.99)
+
+
+def test_cosine_content_verdict():
+    from phasewake.core.projection import cosine_content_verdict
+    from phasewake.core.verdicts import EXPLANATIONS
+
+    rng = np.random.default_rng(8)
+    walk = np.cumsum(rng.normal(size=(3000, 20, 3)), axis=0).astype(np.float32)
+    v = cosine_content_verdict(pca_arrays(walk, np.ones(20), fit=False, n_components=2))
+    assert v.level == "problem" and "pca.cosine_content" in EXPLANATIONS  # random diffusion (Hess 2002)
+    still = rng.normal(size=(3000, 20, 3)).astype(np.float32)
+    assert cosine_content_verdict(pca_arrays(still, np.ones(20), fit=False, n_components=2)).level == "ok"
