@@ -88,13 +88,14 @@ class VelocitySpectrumAccumulator:
     """
 
     def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256,
-                 labels: np.ndarray | None = None, block_atoms: int = 4096) -> None:
+                 labels: np.ndarray | None = None, block_atoms: int = 4096, max_segments: int | None = None) -> None:
         if segment_frames < 8:
             raise TooShortError("a velocity spectrum segment", have=segment_frames, need=8)
         self.masses = np.asarray(masses_amu, dtype=np.float64)
         self.spacing_ps = float(frame_spacing_ps)
         self.segment_frames = int(segment_frames)
         self.block_atoms = int(block_atoms)
+        self.max_segments = max_segments  # later segments are ignored (bounds the FFT work on long runs)
         from scipy.signal import get_window
 
         self.window = get_window("hann", self.segment_frames)  # periodic Hann, as scipy.signal.welch uses
@@ -125,6 +126,8 @@ class VelocitySpectrumAccumulator:
 
     def update(self, velocities_nm_per_ps: np.ndarray) -> None:
         """velocities : ndarray, shape (n_frames, n_atoms, 3), nm/ps."""
+        if self.full:
+            return
         v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
         if self._carry is not None:
             v = np.concatenate([self._carry, v], axis=0)
@@ -132,6 +135,8 @@ class VelocitySpectrumAccumulator:
         L = self.segment_frames
         n_full = v.shape[0] // L
         for k in range(n_full):
+            if self.full:
+                return
             self._segment(v[k * L:(k + 1) * L])
         rest = v[n_full * L:]
         if rest.shape[0]:
@@ -140,6 +145,10 @@ class VelocitySpectrumAccumulator:
     @property
     def n_segments(self) -> int:
         return self._n_segments
+
+    @property
+    def full(self) -> bool:
+        return self.max_segments is not None and self._n_segments >= self.max_segments
 
     def finish(self) -> tuple[np.ndarray, np.ndarray]:
         """Frequencies (1/ps), shape (L//2+1,), and the average power (arbitrary units, amu nm^2/ps^2)."""

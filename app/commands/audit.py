@@ -29,6 +29,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--compare", nargs="+", metavar="OTHER_FILE", default=None,
                         help="files of a second run of the same system at another time step: checks that the "
                              "energy fluctuation scales as (dt1/dt2)^2")
+    parser.add_argument("--group", action="append", metavar="NAME=ATOMS", default=None,
+                        help="a group for the equipartition check, e.g. solute=DIM or core=0-99,120; ATOMS "
+                             "is a comma list of residue names and 0-based atom indices or ranges "
+                             "(repeat for more groups)")
     parser.add_argument("--explain", action="store_true",
                         help="print what each check measures, how, its threshold and source, and advice")
 
@@ -103,6 +107,35 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
 
 
+def parse_groups(texts: list[str] | None, topology: Any, n_atoms: int) -> dict[str, list[int]]:
+    """``NAME=ITEM,ITEM,...`` with items residue names or 0-based atom indices / ranges ``a-b`` (inclusive)."""
+    from phasewake.core.errors import InputError
+
+    groups: dict[str, list[int]] = {}
+    for text in texts or []:
+        name, sep, spec = text.partition("=")
+        if not sep or not name.strip() or not spec.strip():
+            raise InputError(f"--group {text!r}: expected NAME=ATOMS, e.g. solute=DIM or core=0-99")
+        atoms: list[int] = []
+        for item in (i.strip() for i in spec.split(",")):
+            lo, dash, hi = item.partition("-")
+            if lo.isdigit() and (not dash or hi.isdigit()):
+                a, b = int(lo), int(hi) if dash else int(lo)
+                if not 0 <= a <= b < n_atoms:
+                    raise InputError(f"--group {name}: atoms {item} out of range (the run has {n_atoms} atoms)")
+                atoms.extend(range(a, b + 1))
+                continue
+            if topology is None:
+                raise InputError(f"--group {name}: residue name {item!r} needs a topology (give --top)")
+            found = [a.index for a in topology.atoms if a.residue.name == item]
+            if not found:
+                names = sorted({r.name for r in topology.residues})
+                raise InputError(f"--group {name}: no residue named {item!r} (residues: {', '.join(names[:20])})")
+            atoms.extend(found)
+        groups[name.strip()] = sorted(set(atoms))
+    return groups
+
+
 def run(args: argparse.Namespace) -> int:
     from phasewake.core.audit import audit_run, audit_summary
     from phasewake.core.readers import open_run
@@ -114,9 +147,10 @@ def run(args: argparse.Namespace) -> int:
         with quiet_stdout():
             other = open_run(args.compare, topology=args.top)
     timestep_ps = None if args.timestep is None else args.timestep * 1e-3
+    groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
     work = audit_run(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
                      temperature_K=args.temperature, require_temperature=args.constraints is not None,
-                     compare=other)
+                     groups=groups or None, compare=other)
     result = run_with_progress(work, "audit")
     if args.json:
         summary = audit_summary(result)

@@ -18,12 +18,19 @@ from phasewake.app.cli import main
 KB = 0.00831446261815324  # CODATA 2018
 
 
-def traps_vv(n_atoms=32, *, dt, w, n_steps, every, m=12.0, temperature=300.0, seed=0):
+def traps_vv(n_atoms=32, *, dt, w, n_steps, every, m=12.0, temperature=300.0, seed=0, hot=0):
     rng = np.random.default_rng(seed)
     kt = KB * temperature
     k = m * w * w
     x = rng.normal(0, math.sqrt(kt / k), (n_atoms, 3))
     v = rng.normal(0, math.sqrt(kt / m), (n_atoms, 3))
+    if hot:
+        # independent traps never share energy: give the first `hot` atoms exactly 1.3x the energy per
+        # atom of the others; their time-averaged K is half their energy (harmonic virial theorem)
+        e = 0.5 * m * np.sum(v * v, axis=1) + 0.5 * k * np.sum(x * x, axis=1)
+        f = math.sqrt(1.3 * e[hot:].mean() / e[:hot].mean())
+        x[:hot] *= f
+        v[:hot] *= f
     X, V = [x], [v]
     for s in range(1, n_steps + 1):
         v = v - 0.5 * dt * k / m * x
@@ -39,10 +46,10 @@ def traps_vv(n_atoms=32, *, dt, w, n_steps, every, m=12.0, temperature=300.0, se
     return t, X, V, kin, pot
 
 
-def write_traps(path, *, dt, w, n_steps, every, seed=0, observables=None, with_velocities=True):
+def write_traps(path, *, dt, w, n_steps, every, seed=0, observables=None, with_velocities=True, hot=0):
     from phasewake.core.readers.h5md import write_h5md
 
-    t, X, V, kin, pot = traps_vv(dt=dt, w=w, n_steps=n_steps, every=every, seed=seed)
+    t, X, V, kin, pot = traps_vv(dt=dt, w=w, n_steps=n_steps, every=every, seed=seed, hot=hot)
     obs = {"kinetic_energy": (kin, "kJ mol-1"), "potential_energy": (pot, "kJ mol-1"),
            "total_energy": (kin + pot, "kJ mol-1")} if observables is None else observables(kin, pot)
     write_h5md(path, positions_nm=X, time_ps=t, velocities_nm_per_ps=V if with_velocities else None,
@@ -114,6 +121,21 @@ def test_explain_prints_explanations(good_and_bad, capsys):
     main(["audit", str(good_and_bad[0]), "--explain"])
     out = capsys.readouterr().out
     assert "| method:" in out and "Tuckerman 2010" in out
+
+
+def test_user_group_hotter_is_flagged(tmp_path, capsys):
+    # Equipartition (Gibbs 1902): independent traps never exchange energy, so 16 atoms started 30 %
+    # hotter stay hotter; the group must be flagged, relative difference ~ (1.3 - 1.15) / 1.15 = 13 %.
+    p = write_traps(tmp_path / "hot.h5md", dt=0.002, w=50.0, n_steps=4000, every=4, hot=16)
+    code = main(["audit", str(p), "--group", "hot=0-15", "--group", "cold=16-31", "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 1
+    v = {x["kind"]: x for x in data["verdicts"]}
+    assert v["temperature.equipartition"]["level"] == "problem"
+    g = {x["name"]: x for x in data["temperature"]["groups"]}
+    assert g["hot"]["significant"] and g["hot"]["relative_difference"] > 0.05
+    assert main(["audit", str(p), "--group", "bad=0-99"]) == 2  # out of range: one-line error
+    assert "out of range" in capsys.readouterr().err
 
 
 def test_no_usable_energy_column_exit_2(tmp_path, capsys):

@@ -336,3 +336,17 @@ def test_audit_without_energies_or_velocities_is_an_error():
     run2 = run_from_arrays(np.zeros((5, 2, 3)), t, np.ones(2), energies=table)
     with pytest.raises(MissingDataError, match="velocities are missing"):
         drive(audit_run(run2, require_temperature=True))
+
+
+def test_windowed_g_for_long_series_matches_ar1():
+    # Long series are estimated on evenly spaced stretches; AR(1) phi = 0.5: g = 3 (REFERENCES.md §3.7),
+    # +-7 % at 1e5 samples (REFERENCES.md §3.2 tolerance).
+    rng = np.random.default_rng(8)
+    x = _ar1(rng, 1, 1 << 18, 0.5)[0]
+    g, method = en.statistical_inefficiency_of(x, window_above=1 << 16, n_windows=4, window=1 << 15)
+    assert "stretches" in method
+    assert g == pytest.approx(3.0, rel=0.07)
+    # a slowly correlated series (g ~ 2000 > window / 50) falls back to the whole series
+    y = _ar1(rng, 1, 1 << 18, 0.999)[0]
+    _, method_y = en.statistical_inefficiency_of(y, window_above=1 << 16, n_windows=4, window=1 << 15)
+    assert "stretches" not in method_y
