@@ -222,6 +222,10 @@ def _normalise(text: str) -> str:
     return s
 
 
+_MAX_POWER = 12  # no physical unit string needs more
+_MAX_EXP10 = 300  # beyond this the factor leaves float range
+
+
 class _Parser:
     """Recursive descent over tokens.
 
@@ -250,6 +254,12 @@ class _Parser:
             pos = m.end()
         self.i = 0
 
+    def _power(self, p: str | None) -> int:
+        n = _parse_power(p)
+        if n == 0 or abs(n) > _MAX_POWER:
+            raise UnitError(f"unit {self.text!r}: power {n} is not a usable unit power")
+        return n
+
     def peek(self) -> tuple[str, str, str | None] | None:
         return self.tokens[self.i] if self.i < len(self.tokens) else None
 
@@ -276,17 +286,23 @@ class _Parser:
         if kind == "num":
             m = re.fullmatch(r"10([+-]\d+)", val)
             if m:
-                return _q(Fraction(10) ** int(m.group(1)), _ZERO)
-            return _q(Fraction(val), _ZERO)
+                exp = int(m.group(1))
+                if abs(exp) > _MAX_EXP10:
+                    raise UnitError(f"unit {self.text!r}: factor 10^{exp} is out of range")
+                return _q(Fraction(10) ** exp, _ZERO)
+            num = Fraction(val)
+            if num <= 0 or not (Fraction(1, 10**_MAX_EXP10) < num < 10**_MAX_EXP10):
+                raise UnitError(f"unit {self.text!r}: numeric factor {val} must be positive and finite")
+            return _q(num, _ZERO)
         if kind == "atom":
-            return _atom(val, self.text) ** _parse_power(pw)
+            return _atom(val, self.text) ** self._power(pw)
         if val == "(":
             q = self.expr()
             close = self.peek()
             if close is None or close[1] != ")":
                 raise UnitError(f"unit {self.text!r}: unbalanced parenthesis")
             self.i += 1
-            return q ** _parse_power(close[2])
+            return q ** self._power(close[2])
         raise UnitError(f"unit {self.text!r}: unexpected {val!r}")
 
 
@@ -346,7 +362,12 @@ def parse_unit(text: str | bytes | None, *, expect: str | None = None) -> Unit:
     internal, dim_name, iq = _internal_for(q.dim)
     ratio = q.si / iq.si
     mol_diff = q.mol - iq.mol  # each excess mol^+1 in the source = N_A particles
-    factor = float(ratio) if mol_diff == 0 else float(ratio * Fraction(AVOGADRO_PER_MOL) ** mol_diff)
+    try:
+        factor = float(ratio) if mol_diff == 0 else float(ratio * Fraction(AVOGADRO_PER_MOL) ** mol_diff)
+    except OverflowError:
+        factor = float("inf")
+    if not (np.isfinite(factor) and factor > 0):
+        raise UnitError(f"unit {text!r} gives a conversion factor out of range")
     if expect is not None and dim_name != expect:
         raise UnitError(f"unit {text!r} is a {dim_name} unit, expected a unit of {expect}")
     return Unit(factor=factor, internal=internal, dimension=dim_name, text=text)

@@ -10,7 +10,9 @@ naming the file and the fault.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping, Sequence
+import contextlib
+import struct
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -18,6 +20,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import (
+    CorruptFileError,
     EmptyFileError,
     FileMissingError,
     InputError,
@@ -190,19 +193,22 @@ def open_run(
 
     warnings: list[str] = []
     if runs:
-        run = _open_self_contained(runs[0][0], runs[0][1], group=group)
+        with _unexpected_is_corrupt(runs[0][0]):
+            run = _open_self_contained(runs[0][0], runs[0][1], group=group)
         if tops:
             run = _replace_topology(run, tops[0][0])
     elif trajs:
         from phasewake.core.readers import trajectory
 
         top_path = tops[0][0] if tops else None
-        run = trajectory.open_trajectory_run(trajs[0][0], top_path)
+        with _unexpected_is_corrupt(trajs[0][0]):
+            run = trajectory.open_trajectory_run(trajs[0][0], top_path)
     elif tops:
         # a structure file alone (PDB/GRO): one or a few frames
         from phasewake.core.readers import trajectory
 
-        run = trajectory.open_trajectory_run(tops[0][0], None)
+        with _unexpected_is_corrupt(tops[0][0]):
+            run = trajectory.open_trajectory_run(tops[0][0], None)
     else:
         run = Run(name=tables[0].stem, paths=(), topology=None, masses_amu=np.zeros(0),
                   time_ps=np.zeros(0), frames=None, energies=None)
@@ -211,8 +217,9 @@ def open_run(
     if tables:
         from phasewake.core.readers import tables as tables_mod
 
-        table, table_warnings = tables_mod.read_tables(
-            tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps)
+        with _unexpected_is_corrupt(tables[0] if len(tables) == 1 else None):
+            table, table_warnings = tables_mod.read_tables(
+                tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps)
         warnings.extend(table_warnings)
         run.energies = _merge_tables(run.energies, table, warnings)
         run.metadata.sources["energies"] = ", ".join(p.name for p in tables)
@@ -250,6 +257,16 @@ def open_run(
 
 def _is_topology_like(path: Path) -> bool:
     return path.name.lower().endswith((".pdb", ".pdb.gz", ".gro", ".mol2", ".cif", ".pdbx"))
+
+
+@contextlib.contextmanager
+def _unexpected_is_corrupt(path: Path | None) -> Iterator[None]:
+    """A library error a reader did not foresee still reaches the user as a typed error naming the file."""
+    try:
+        yield
+    except (KeyError, ValueError, TypeError, IndexError, AttributeError, OSError, RuntimeError, struct.error,
+            AssertionError, EOFError) as exc:
+        raise CorruptFileError(f"cannot read this file ({type(exc).__name__}: {exc})", path=path) from exc
 
 
 def _open_self_contained(path: Path, entry: ReaderEntry, *, group: str | None) -> Run:

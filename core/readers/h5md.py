@@ -382,41 +382,52 @@ class H5MDFrames:
         idx = np.arange(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
         want_vel = velocities and self.has_velocities
-        with h5py.File(self.path, "r") as f:
-            pg = f["particles"][self.group]
-            pos_ds = pg["position"]["value"]
-            vel_ds = pg["velocity"]["value"] if want_vel else None
-            box_ds = pg["box"]["edges"]["value"] if self._box_rows is not None else None
-            img_ds = pg["image"]["value"] if self._image_rows is not None else None
-            for i in range(0, idx.size, chunk_frames):
-                sel = idx[i : i + chunk_frames]
-                pos = self._read_rows(pos_ds, self._rows[sel])
+        try:
+            f = h5py.File(self.path, "r")
+        except OSError as exc:
+            raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
+        with f:
+            try:
+                yield from self._chunks(f, idx, cols, want_vel, chunk_frames)
+            except _LAYOUT_ERRORS as exc:
+                raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
+
+    def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, want_vel: bool,
+                chunk_frames: int) -> Iterator[FrameChunk]:
+        pg = f["particles"][self.group]
+        pos_ds = pg["position"]["value"]
+        vel_ds = pg["velocity"]["value"] if want_vel else None
+        box_ds = pg["box"]["edges"]["value"] if self._box_rows is not None else None
+        img_ds = pg["image"]["value"] if self._image_rows is not None else None
+        for i in range(0, idx.size, chunk_frames):
+            sel = idx[i : i + chunk_frames]
+            pos = self._read_rows(pos_ds, self._rows[sel])
+            if cols is not None:
+                pos = pos[:, cols]
+            pos = np.asarray(pos, dtype=np.float32)
+            if self._pos_factor != 1.0:
+                pos = (pos * self._pos_factor).astype(np.float32)
+            vel = None
+            if vel_ds is not None and self._vel_rows is not None:
+                vel = self._read_rows(vel_ds, self._vel_rows[sel])
                 if cols is not None:
-                    pos = pos[:, cols]
-                pos = np.asarray(pos, dtype=np.float32)
-                if self._pos_factor != 1.0:
-                    pos = (pos * self._pos_factor).astype(np.float32)
-                vel = None
-                if vel_ds is not None and self._vel_rows is not None:
-                    vel = self._read_rows(vel_ds, self._vel_rows[sel])
-                    if cols is not None:
-                        vel = vel[:, cols]
-                    vel = np.asarray(vel, dtype=np.float32)
-                    if self._vel_factor != 1.0:
-                        vel = (vel * self._vel_factor).astype(np.float32)
-                box = None
-                if box_ds is not None and self._box_rows is not None:
-                    box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
-                elif self._box_fixed is not None:
-                    box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
-                if img_ds is not None and self._image_rows is not None and box is not None:
-                    # H5MD: the unwrapped position is position + image . box edges
-                    img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
-                    if cols is not None:
-                        img = img[:, cols]
-                    pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)
-                yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
-                                 velocities_nm_per_ps=vel, box_nm=box)
+                    vel = vel[:, cols]
+                vel = np.asarray(vel, dtype=np.float32)
+                if self._vel_factor != 1.0:
+                    vel = (vel * self._vel_factor).astype(np.float32)
+            box = None
+            if box_ds is not None and self._box_rows is not None:
+                box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
+            elif self._box_fixed is not None:
+                box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
+            if img_ds is not None and self._image_rows is not None and box is not None:
+                # H5MD: the unwrapped position is position + image . box edges
+                img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
+                if cols is not None:
+                    img = img[:, cols]
+                pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)
+            yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
+                             velocities_nm_per_ps=vel, box_nm=box)
 
     def read_frame(self, index: int) -> FrameChunk:
         if not -self.n_frames <= index < self.n_frames:
@@ -553,12 +564,23 @@ def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_t
     return EnergyTable(time_ps=np.asarray(time, dtype=np.float64), series=table, sources=(str(path),))
 
 
+_LAYOUT_ERRORS = (KeyError, ValueError, TypeError, IndexError, AttributeError, OSError, RuntimeError)
+
+
 def read_h5md(path: str | Path, *, group: str | None = None) -> H5MDContents:
     """Open an H5MD file: headers, axes, observables and metadata; frames stay lazy.
 
     Raises MissingDataError when no particle group has positions (or ``group`` is not there),
-    UnitError for a missing/unknown unit, CorruptFileError for inconsistent shapes.
+    UnitError for a missing/unknown unit, CorruptFileError for inconsistent shapes or a damaged layout.
     """
+    try:
+        return _read_h5md(Path(path), group=group)
+    except _LAYOUT_ERRORS as exc:
+        raise CorruptFileError(f"damaged or unexpected H5MD layout ({type(exc).__name__}: {exc})",
+                               path=path) from exc
+
+
+def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
     import h5py
 
     path = Path(path)

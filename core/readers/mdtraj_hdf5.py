@@ -102,7 +102,19 @@ class MdtrajH5Frames:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         idx = np.arange(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
-        with h5py.File(self.path, "r") as f:
+        try:
+            f = h5py.File(self.path, "r")
+        except OSError as exc:
+            raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
+        with f:
+            try:
+                yield from self._chunks(f, idx, cols, stride, velocities, chunk_frames)
+            except (KeyError, ValueError, TypeError, IndexError, OSError) as exc:
+                raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
+
+    def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, stride: int, velocities: bool,
+                chunk_frames: int) -> Iterator[FrameChunk]:
+        if idx.size:
             for i in range(0, idx.size, chunk_frames):
                 sel = idx[i : i + chunk_frames]
                 sl = slice(int(sel[0]), int(sel[-1]) + 1, stride)
