@@ -67,14 +67,37 @@ def nyquist_cm1(dt_ps: float) -> float:
 # ---------------------------------------------------------------------------------------------------
 
 
+GRAM_MAX_LAG = 256  # up to this many lags the Gram-matrix engine (BLAS) beats the FFT one
+
+
+def _blas_single_thread() -> Any:
+    """A context in which BLAS uses one thread, when threadpoolctl is installed (else no change).
+
+    Both engines issue many small matrix products; on a busy machine multithreaded BLAS spends far
+    more time synchronising threads than computing (measured 20-100x slower on a shared 2-core box).
+    """
+    import contextlib
+
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
 class BlockCorrelator:
     """Sum over time origins of a(t) . a(t + k), k = 0..L-1, per atom group, fed chunk by chunk.
 
-    Frames are collected into blocks of ``B >= L`` frames (B a fast FFT length). The FFT of each block,
-    zero-padded to 2B, is computed once; the FFT of the pair (block b, block b+1) is
-    F_b + (-1)^j F_{b+1} (a shift by B = half the FFT length), so the contribution of block b's origins,
-    conj(F_b) (F_b + (-1)^j F_{b+1}), costs one FFT per block. Products are summed over components and
-    atoms (weighted, per group) in the frequency domain; one inverse FFT at the end.
+    Frames are collected into consecutive blocks; the origins of block b see lags reaching into
+    block b+1 only, so two blocks at a time give the exact sum over all origins. Two engines:
+
+    * ``"gram"`` (L <= 256 by default): blocks of B = L frames; the frame-pair products of block b with
+      (b, b+1) are one matrix product G = A_b W [A_b; A_{b+1}]^T per group (BLAS), and the lag-k sum is
+      the sum of the k-th superdiagonal of G. Cost ~ 4 L flops per value, at GEMM speed.
+    * ``"fft"``: blocks of B >= L frames (a fast FFT length); the FFT of each block, zero-padded to 2B,
+      is computed once and the pair (b, b+1) is F_b + (-1)^j F_{b+1} (a shift by half the FFT length),
+      so block b contributes conj(F_b) (F_b + (-1)^j F_{b+1}); products are summed over components and
+      atoms (weighted, per group) in the frequency domain, with one inverse FFT at the end.
 
     Parameters
     ----------
@@ -87,48 +110,71 @@ class BlockCorrelator:
         Group index of each atom (0..n_groups-1), or -1 for atoms not used.
     n_groups : int
     dtype : numpy dtype
-        Precision of the FFT (float32 is enough for velocities; positions use float64).
+        Working precision (float32 is enough for velocities; positions use float64). Sums over
+        blocks are kept in float64.
+    engine : {"auto", "gram", "fft"}
 
     ``update(block)`` takes arrays of shape (n, n_atoms, 3); ``finish()`` returns the sums, shape
     (n_groups, L), and the number of origins per lag, shape (L,).
     """
 
     def __init__(self, *, n_atoms: int, max_lag: int, weights: np.ndarray, group_of_atom: np.ndarray,
-                 n_groups: int, dtype: Any = np.float32) -> None:
+                 n_groups: int, dtype: Any = np.float32, engine: str = "auto") -> None:
         import scipy.fft
 
         if max_lag < 1:
             raise AnalysisError("the lag window must hold at least one lag")
+        if engine not in ("auto", "gram", "fft"):
+            raise ValueError(f"engine must be 'auto', 'gram' or 'fft', not {engine!r}")
         self.n_atoms = int(n_atoms)
         self.L = int(max_lag)
-        self.B = int(scipy.fft.next_fast_len(self.L, real=True))
-        self.nfft = 2 * self.B
+        self.engine = engine if engine != "auto" else ("gram" if self.L <= GRAM_MAX_LAG else "fft")
         self.dtype = np.dtype(dtype)
-        self._cdtype = np.result_type(self.dtype, np.complex64)
         lab = np.asarray(group_of_atom)
         used = np.flatnonzero(lab >= 0)
         self._all = used.size == lab.size
         self._atoms = used
         w = np.asarray(weights, dtype=np.float64)[used]
         self.n_groups = int(n_groups)
-        onehot = np.zeros((used.size, self.n_groups))
-        onehot[np.arange(used.size), lab[used]] = w
-        self._onehot3 = np.repeat(onehot, 3, axis=0).astype(self.dtype)  # (3 n_used, n_groups)
         self._ncol = 3 * used.size
-        self._nfreq = self.B + 1
-        self._sign = np.where(np.arange(self._nfreq) % 2 == 0, 1.0, -1.0).astype(self.dtype)
-        self._onehot3t = np.ascontiguousarray(self._onehot3.T)  # (n_groups, 3 n_used)
-        self._fprev: np.ndarray | None = None
-        self._cur = np.zeros((self._ncol, self.B), dtype=self.dtype)  # time last: contiguous FFTs
         self._fill = 0
         self.n_frames = 0
+        col_group = np.repeat(lab[used], 3)
+        col_w = np.repeat(w, 3)
+        if self.engine == "gram":
+            self.B = self.L
+            self.nfft = 0
+            self._cur = np.zeros((self.B, self._ncol), dtype=self.dtype)  # frames first
+            self._prev: np.ndarray | None = None
+            self._gcols: list[slice | np.ndarray] = []
+            self._gw: list[np.ndarray | float] = []
+            for g in range(self.n_groups):
+                cols = np.flatnonzero(col_group == g)
+                whole = self.n_groups == 1 and cols.size == self._ncol
+                self._gcols.append(slice(None) if whole else cols)
+                cw = col_w[cols]
+                self._gw.append(float(cw[0]) if cw.size and np.all(cw == cw[0]) else cw.astype(self.dtype))
+            rows = np.arange(self.B)[:, None]
+            self._diag = (rows, rows + np.arange(self.L)[None, :])
+            self._gsum = np.zeros((self.n_groups, self.L))
+            return
+        self.B = int(scipy.fft.next_fast_len(self.L, real=True))
+        self.nfft = 2 * self.B
+        self._cdtype = np.result_type(self.dtype, np.complex64)
+        onehot = np.zeros((used.size, self.n_groups))
+        onehot[np.arange(used.size), lab[used]] = w
+        self._onehot3t = np.ascontiguousarray(np.repeat(onehot, 3, axis=0).T.astype(self.dtype))
+        self._nfreq = self.B + 1
+        self._sign = np.where(np.arange(self._nfreq) % 2 == 0, 1.0, -1.0).astype(self.dtype)
+        self._fprev: np.ndarray | None = None
+        self._cur = np.zeros((self._ncol, self.B), dtype=self.dtype)  # time last: contiguous FFTs
         self._acc = np.zeros((self.n_groups, self._nfreq), dtype=np.complex128)
         per_col = self.nfft * self.dtype.itemsize * 6
         self._batch = int(max(3, min(self._ncol, (_FFT_BATCH_BYTES // per_col) // 3 * 3)))
 
     @staticmethod
     def buffer_bytes(n_atoms: int, max_lag: int, dtype: Any = np.float32) -> int:
-        """Memory the block buffer and the previous block's transform need (bytes)."""
+        """Memory the block buffers need (bytes), the larger of the two engines."""
         return 3 * int(max_lag) * int(n_atoms) * 3 * np.dtype(dtype).itemsize
 
     def update(self, block: np.ndarray) -> None:
@@ -136,20 +182,55 @@ class BlockCorrelator:
         if not self._all:
             data = data[:, self._atoms, :]
         data = data.reshape(data.shape[0], -1)
+        gram = self.engine == "gram"
+        if data.shape[0] + self._fill >= self.B:
+            with _blas_single_thread():
+                self._fill_blocks(data, gram)
+        else:
+            self._fill_blocks(data, gram)
+
+    def _fill_blocks(self, data: np.ndarray, gram: bool) -> None:
         i = 0
         n = data.shape[0]
         while i < n:
             take = min(self.B - self._fill, n - i)
-            self._cur[:, self._fill : self._fill + take] = data[i : i + take].T
+            if gram:
+                self._cur[self._fill : self._fill + take] = data[i : i + take]
+            else:
+                self._cur[:, self._fill : self._fill + take] = data[i : i + take].T
             self._fill += take
             i += take
             self.n_frames += take
             if self._fill == self.B:
-                self._push(self._cur)
+                if gram:
+                    self._push_gram(self._cur)
+                else:
+                    self._push(self._cur)
                 self._fill = 0
 
+    def _push_gram(self, block: np.ndarray | None) -> None:
+        """Add the origins of the previous block (lags into ``block``); then ``block`` becomes previous."""
+        prev = self._prev
+        if prev is not None:
+            for g in range(self.n_groups):
+                cols = self._gcols[g]
+                p = prev[:, cols]
+                pw = p * self._gw[g]
+                g1 = pw @ p.T
+                g2 = pw @ block[:, cols].T if block is not None else np.zeros_like(g1)
+                full = np.concatenate([g1, g2], axis=1)  # (B, 2B): frame t against frames t' of (b, b+1)
+                self._gsum[g] += full[self._diag].sum(axis=0, dtype=np.float64)
+        if block is None:
+            self._prev = None
+            return
+        if prev is None:
+            self._prev = block.copy()
+        else:  # reuse the old buffer: swap
+            prev[...] = block
+            self._prev = prev
+
     def _push(self, block: np.ndarray | None) -> None:
-        """Transform ``block`` (None: no more data) and add the previous block's origins."""
+        """FFT engine: transform ``block`` (None: no more data) and add the previous block's origins."""
         import scipy.fft
 
         fnew = None
@@ -169,15 +250,28 @@ class BlockCorrelator:
     def finish(self) -> tuple[np.ndarray, np.ndarray]:
         import scipy.fft
 
+        gram = self.engine == "gram"
         if self._fill:
             tail = self._cur.copy()
-            tail[:, self._fill :] = 0
-            self._push(tail)
+            if gram:
+                tail[self._fill :] = 0
+                with _blas_single_thread():
+                    self._push_gram(tail)
+            else:
+                tail[:, self._fill :] = 0
+                with _blas_single_thread():
+                    self._push(tail)
             self._fill = 0
-        self._push(None)
-        sums = scipy.fft.irfft(self._acc, n=self.nfft, axis=-1)[:, : self.L]
+        if gram:
+            with _blas_single_thread():
+                self._push_gram(None)
+            sums = self._gsum.copy()
+        else:
+            with _blas_single_thread():
+                self._push(None)
+            sums = np.ascontiguousarray(scipy.fft.irfft(self._acc, n=self.nfft, axis=-1)[:, : self.L])
         counts = np.maximum(self.n_frames - np.arange(self.L), 0).astype(float)
-        return np.ascontiguousarray(sums), counts
+        return sums, counts
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -393,8 +487,9 @@ def vacf(
     corr = BlockCorrelator(n_atoms=used.size, max_lag=lag, weights=w, group_of_atom=lab[used],
                            n_groups=len(names))
     done = 0
+    sel_atoms = None if used.size == run.n_atoms else used  # a full read avoids a fancy-index copy
     for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                        atom_indices=used, velocities=True):
+                                        atom_indices=sel_atoms, velocities=True):
         if chunk.velocities_nm_per_ps is None:
             raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
         corr.update(chunk.velocities_nm_per_ps)
@@ -639,8 +734,9 @@ def msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = N
     sq_parts = []
     done = 0
     has_box = bool(run.frames.has_box)
+    sel_atoms = None if used.size == run.n_atoms else used
     for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                        atom_indices=used, velocities=False):
+                                        atom_indices=sel_atoms, velocities=False):
         r = un(chunk.positions_nm, chunk.box_nm)
         corr.update(r)
         sq_parts.append(_group_square_sums(r, lab[used], len(names)))

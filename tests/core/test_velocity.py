@@ -50,6 +50,21 @@ def test_block_vacf_equals_direct_sum(f, lag):
     assert r.unit == "nm^2/ps^2" and r.lag_ps[-1] == pytest.approx(0.1 * (min(lag, f) - 1))
 
 
+@pytest.mark.parametrize("engine", ["gram", "fft"])
+@pytest.mark.parametrize("lag", [1, 7, 40, 203])
+def test_both_engines_equal_direct_sum_with_ragged_chunks(engine, lag):
+    x = np.random.default_rng(lag).standard_normal((203, 5, 3))
+    w = np.array([1.0, 2.0, 3.0, 4.0, 5.0])
+    lab = np.array([0, 1, 1, -1, 0])  # atom 3 unused
+    c = V.BlockCorrelator(n_atoms=5, max_lag=lag, weights=w, group_of_atom=lab, n_groups=2, dtype=np.float64,
+                          engine=engine)
+    for i in range(0, 203, 17):
+        c.update(x[i : i + 17])
+    sums, counts = c.finish()
+    np.testing.assert_allclose(sums[0] / counts / 2, direct_vacf(x[:, [0, 4]], lag, w[[0, 4]]), rtol=1e-10)
+    np.testing.assert_allclose(sums[1] / counts / 2, direct_vacf(x[:, [1, 2]], lag, w[[1, 2]]), rtol=1e-10)
+
+
 def test_groups_and_mass_weighting():
     v = np.random.default_rng(3).standard_normal((120, 5, 3)).astype(np.float32)
     masses = np.array([1.0, 2.0, 3.0, 4.0, 16.0])
