@@ -326,15 +326,17 @@ def get_preset(preset: str | Preset) -> Preset:
 def figure_size_cm(spec: FigureSpec, preset: str | Preset) -> tuple[float, float]:
     """(width, height) in cm of ``spec`` drawn with ``preset``."""
     pr = get_preset(preset)
-    rows, _ = _grid(spec)
+    rows, _ = _grid(spec, pr)
     if pr.fixed_height:
         return pr.width_cm, pr.height_cm
     extra_title = 0.6 if len(spec.plots) > 1 else 0.0
     return pr.width_cm, min(pr.max_height_cm, pr.height_cm * rows + extra_title)
 
 
-def _grid(spec: FigureSpec) -> tuple[int, int]:
+def _grid(spec: FigureSpec, preset: Preset | None = None) -> tuple[int, int]:
     n = max(1, len(spec.plots))
+    if preset is not None and preset.width_cm < 12.0:
+        return n, 1  # a journal column is too narrow for plots side by side: stack them
     if spec.grid is not None:
         rows, cols = spec.grid
         if rows * cols < n:
@@ -364,14 +366,14 @@ def draw_into(target: Figure | SubFigure, spec: FigureSpec, *, preset: str | Pre
     """Draw the plots of ``spec`` on a grid inside a Figure or SubFigure; return the axes."""
 
     pr = get_preset(preset)
-    rows, cols = _grid(spec)
+    rows, cols = _grid(spec, pr)
     axes: list[Axes] = []
     with _rc(pr):
         one = len(spec.plots) == 1
         for i, plot in enumerate(spec.plots):
             ax = target.add_subplot(rows, cols, i + 1)
             _draw_plot(ax, plot, pr, title=(plot.title or spec.title) if one and title else plot.title,
-                       cols=cols)
+                       cols=cols, n_rows=rows)
             axes.append(ax)
         if not spec.plots:
             ax = target.add_subplot(1, 1, 1)
@@ -419,7 +421,15 @@ def _decimate(x: np.ndarray, y: np.ndarray, buckets: int) -> tuple[np.ndarray, n
     return x[keep], y[keep]
 
 
-def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 1) -> None:
+def _wrap_label(text: str, width: int) -> str:
+    import textwrap
+
+    if len(text) <= width:
+        return text
+    return "\n".join(textwrap.wrap(text, width=width, break_long_words=False)) or text
+
+
+def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 1, n_rows: int = 1) -> None:
     n_points = 0
     for item in plot.items:
         if isinstance(item, Line):
@@ -439,10 +449,16 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 
         if isinstance(item, Mark):
             _draw_mark(ax, item, pr)
 
-    ax.set_xlabel(plot.x.text)
-    ax.set_ylabel(plot.y.text)
+    # wrap labels longer than their axis (sizes in pt; a character is about 0.6 em of DejaVu Sans)
+    host = ax.figure  # a Figure or a SubFigure (report pages)
+    w_pt = host.bbox.width / host.dpi * 72.0
+    h_pt = host.bbox.height / host.dpi * 72.0
+    x_chars = max(12, int(0.8 * w_pt / cols / (0.6 * pr.font_pt)))
+    y_chars = max(12, int(0.75 * h_pt / max(1, n_rows) / (0.6 * pr.font_pt)))
+    ax.set_xlabel(_wrap_label(plot.x.text, x_chars))
+    ax.set_ylabel(_wrap_label(plot.y.text, y_chars))
     if title:
-        ax.set_title(title)
+        ax.set_title(_wrap_label(title, max(16, int(0.95 * w_pt / cols / (0.58 * pr.title_pt)))))
     if plot.x.log:
         ax.set_xscale("log")
     if plot.y.log:
@@ -467,7 +483,11 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 
         # keeps it off the data
         note = plot.note or None
         if n_points > _DENSE and cols == 1 and pr.name != "single":
-            # a dense trace fills its axes: the legend goes beside it, where it hides nothing
+            # a dense trace fills its axes: the legend goes beside it, where it hides nothing; a
+            # long note is wrapped so the legend does not squeeze the axes
+            longest = max(len(lab) for lab in labels)
+            if note is not None:
+                note = _wrap_label(note, max(24, longest + 4))
             ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, borderaxespad=0.0,
                       title=note, alignment="left")
         else:
@@ -578,12 +598,23 @@ def _draw_mark(ax: Axes, m: Mark, pr: Preset) -> None:
         ax.axvline(m.value, color=st.colour, linestyle=ls, linewidth=lw, alpha=st.alpha, label=label)
     elif m.kind == "hline":
         ax.axhline(m.value, color=st.colour, linestyle=ls, linewidth=lw, alpha=st.alpha, label=label)
-    elif m.kind == "vspan":
-        ax.axvspan(m.value, m.value if m.value2 is None else m.value2, color=st.colour,
-                   alpha=min(st.alpha, 0.18), linewidth=0, label=label)
-    elif m.kind == "hspan":
-        ax.axhspan(m.value, m.value if m.value2 is None else m.value2, color=st.colour,
-                   alpha=min(st.alpha, 0.18), linewidth=0, label=label)
+    elif m.kind in ("vspan", "hspan"):
+        # a span is labelled inside itself, near the axes edge, not in the legend: direct labels
+        # need no colour matching
+        lo, hi = m.value, m.value if m.value2 is None else m.value2
+        if m.kind == "vspan":
+            ax.axvspan(lo, hi, color=st.colour, alpha=min(st.alpha, 0.18), linewidth=0)
+            if label:
+                ax.text(0.5 * (lo + hi), 0.015, label, transform=ax.get_xaxis_transform(), ha="center",
+                        va="bottom", fontsize=pr.tick_pt, color="#222222", clip_on=True, zorder=4,
+                        bbox={"boxstyle": "round,pad=0.15", "facecolor": "white", "edgecolor": "none",
+                              "alpha": 0.7})
+        else:
+            ax.axhspan(lo, hi, color=st.colour, alpha=min(st.alpha, 0.18), linewidth=0)
+            if label:
+                # just outside the right edge, where a time series leaves room
+                ax.text(1.008, 0.5 * (lo + hi), label, transform=ax.get_yaxis_transform(), ha="left",
+                        va="center", rotation=90, fontsize=pr.tick_pt, color="#222222", zorder=4)
     elif m.kind == "point":
         ax.plot([m.value], [m.value2 if m.value2 is not None else 0.0], linestyle="none",
                 marker=_MARKER.get(st.marker or "o", "o"), markersize=st.marker_size * 1.6 * pr.line_scale,

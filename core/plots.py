@@ -360,7 +360,8 @@ def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: f
     caption = f"{_name_of(series)} against time."
     if crossings is not None:
         items.extend(_state_marks(crossings, horizontal=True, data=q))
-    items.append(Line(t, q, label=series.label, style=_style(0)))
+    # with crossings the legend explains the marks; the trace itself is named by the y axis
+    items.append(Line(t, q, label="" if crossings is not None else series.label, style=_style(0)))
     if crossings is not None:
         ev = crossings.events
         if ev.size:
@@ -413,11 +414,11 @@ def phase_portrait_figure(series: Any, *, crossings: Any = None, max_points: int
     use_p = series.momentum is not None
     if use_p:
         p = np.asarray(series.momentum, float)
-        p_axis = Axis(f"Momentum conjugate to {series.label}", series.momentum_unit)
+        p_axis = Axis("Conjugate momentum p", series.momentum_unit)
         what = "conjugate momentum p = m_eff dq/dt"
     elif series.velocity is not None:
         p = np.asarray(series.velocity, float)
-        p_axis = Axis(f"d{series.label}/dt", series.velocity_unit or f"{series.unit}/ps")
+        p_axis = Axis("Rate of change dq/dt", series.velocity_unit or f"{series.unit}/ps")
         what = "rate of change dq/dt"
     else:
         return _empty("phase.portrait", "Phase portrait", "The run has no velocities for a phase portrait.")
