@@ -171,3 +171,19 @@ def test_bad_input_exit_2_one_line(kind, tmp_path, capfd):
     assert any(p.name in lines[0] for p in paths) and match.split()[0] in lines[0]
     assert _digest(paths) == before
     assert sorted(p.name for p in tmp_path.iterdir()) == listing  # nothing written next to the input
+
+
+def test_describe_group_option(tmp_path, capsys):
+    path = tmp_path / "two.h5md"
+    write_h5md(path, positions_nm=np.zeros((3, 2, 3)), time_ps=np.arange(3.0), group="solute")
+    with h5py.File(path, "r+") as f:  # a second group with positions, written by hand in the spec layout
+        p = f.create_group("particles/solvent/position")
+        p.create_dataset("value", data=np.zeros((3, 5, 3))).attrs["unit"] = "nm"
+        p["step"] = f["particles/solute/position/step"]
+        p["time"] = f["particles/solute/position/time"]
+    assert main(["describe", str(path), "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["n_atoms"] == 2 and any("choose another" in w for w in d["warnings"])
+    assert main(["describe", str(path), "--json", "--group", "solvent"]) == 0
+    assert json.loads(capsys.readouterr().out)["n_atoms"] == 5
+    assert main(["describe", str(path), "--group", "nothere"]) == 2

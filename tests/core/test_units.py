@@ -114,3 +114,10 @@ def test_to_internal_converts_arrays():
 )
 def test_split_header(header, name, unit):
     assert split_header(header) == (name, unit)
+
+
+@pytest.mark.parametrize("text", ["0", "0/0", "1/0 nm", "10+999 m", "m^999", "m^0", "-2 nm"])
+def test_degenerate_factors_and_powers_are_errors(text):
+    # a conversion factor must be positive and finite (found by the fuzz tests in tests/robustness)
+    with pytest.raises(UnitError):
+        parse_unit(text)
