@@ -117,3 +117,20 @@ def test_refuses_to_write_over_its_input(run_file, capsys):
     rc = main(["coords", str(path), "-c", "x(0)", "-o", str(path)])
     assert rc == 2
     assert "input file" in capsys.readouterr().err
+
+
+def test_fast_pca_and_csv_file(run_file, tmp_path, capsys):
+    path, pos, _vel, masses, _top = run_file
+    out = tmp_path / "pcs.csv"
+    rc = main(["coords", str(path), "--pca", "2", "--pca-group", "[0-5]", "--no-fit", "--pca-fast",
+               "--pca-passes", "4", "-o", str(out)])
+    assert rc == 0
+    text = capsys.readouterr().out
+    assert "pc1: eigenvalue" in text and "randomized" in text
+    header, data = _read_csv(out.read_text())
+    assert header == ["time [ps]", "pc1 [nm amu^1/2]", "pc2 [nm amu^1/2]"]
+    y = (pos[:, :6].astype(np.float64) * np.sqrt(masses[:6])[None, :, None]).reshape(len(pos), -1)
+    sk = PCA(2).fit(y)  # scikit-learn on the same coordinates
+    np.testing.assert_allclose(np.var(data[:, 1:], axis=0, ddof=1), sk.explained_variance_, rtol=1e-3)
+    rc = main(["coords", str(path), "--pca", "2", "--pca-group", "[0-5", "-o", str(out)])
+    assert rc == 2 and "--pca-group" in capsys.readouterr().err
