@@ -49,7 +49,7 @@ def files(traj, tmp_path_factory):
     out = {}
     with contextlib.redirect_stdout(io.StringIO()), warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=".*netCDF4.*")  # mdtraj's advice, not our code
-        for ext in ("dcd", "xtc", "trr", "nc", "gro"):
+        for ext in ("dcd", "xtc", "trr", "nc", "gro", "xyz", "lammpstrj"):
             out[ext] = d / f"t.{ext}"
             traj.save(str(out[ext]))
         out["pdb"] = d / "t.pdb"
@@ -61,7 +61,8 @@ def _all_positions(run):
     return np.concatenate([c.positions_nm for c in run.frames.iter_chunks(chunk_frames=7, velocities=False)])
 
 
-@pytest.mark.parametrize(("ext", "atol"), [("dcd", 1e-6), ("xtc", 1.5e-3), ("trr", 0), ("nc", 1e-6)])
+@pytest.mark.parametrize(("ext", "atol"), [("dcd", 1e-6), ("xtc", 1.5e-3), ("trr", 0), ("nc", 1e-6),
+                                           ("xyz", 1e-4), ("lammpstrj", 1e-4)])
 def test_positions_read_back_equal_to_mdtraj(files, traj, ext, atol):
     # Reference: mdtraj.load of the same file (and the positions it was written from).
     with contextlib.redirect_stdout(io.StringIO()), warnings.catch_warnings():
@@ -73,7 +74,10 @@ def test_positions_read_back_equal_to_mdtraj(files, traj, ext, atol):
     np.testing.assert_array_equal(got, ref.xyz)
     np.testing.assert_allclose(got, traj.xyz, atol=atol, rtol=0)  # XTC stores 1e-3 nm precision
     box = run.frames.read_frame(3).box_nm
-    np.testing.assert_allclose(box[0], np.diag([2.0, 2.0, 2.0]), atol=1e-5)
+    if ext == "xyz":  # XYZ holds no box
+        assert box is None and not run.frames.has_box
+    else:
+        np.testing.assert_allclose(box[0], np.diag([2.0, 2.0, 2.0]), atol=1e-5)
 
 
 @pytest.mark.parametrize("ext", ["xtc", "trr", "nc"])
