@@ -23,6 +23,7 @@ These are descriptions of the sampled data; whether a profile is converged is th
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -425,3 +426,30 @@ def poincare_section(
         q2=b[i] + s * (b[i + 1] - b[i]), p2=c[i] + s * (c[i + 1] - c[i]), time_ps=t[i] + s * (t[i + 1] - t[i]),
         value=float(value), direction=direction, q2_unit=q2_unit, p2_unit=p2_unit,
     )
+
+
+def poincare_from_series(q1_series: Any, q2_series: Any, *, value: float = 0.0, direction: str = "up") -> PoincareSection:
+    """Surface of section from two :class:`~phasewake.core.coordinates.CoordinateSeries` of one run.
+
+    Records (q2, p2) when q1 crosses ``value``; p2 is q2's conjugate momentum (its velocity when the
+    run gives no effective mass).
+    """
+    p2 = q2_series.momentum if q2_series.momentum is not None else q2_series.velocity
+    if p2 is None:
+        raise AnalysisError(f"{q2_series.spec} has no momentum or velocity for a surface of section")
+    unit = q2_series.momentum_unit if q2_series.momentum is not None else q2_series.velocity_unit
+    if q1_series.values.shape != q2_series.values.shape:
+        raise AnalysisError("the two coordinates must cover the same frames")
+    return poincare_section(q1_series.values, q2_series.values, p2, q1_series.time_ps, value=value,
+                            direction=direction, q2_unit=q2_series.unit, p2_unit=unit)
+
+
+def free_energy_of_series(series: Any, *, temperature_K: float, jacobian: str = "auto", n_blocks: int = 10,
+                          bins: int | np.ndarray | None = None, min_depth_kT: float = 1.0) -> FreeEnergyProfile:
+    """Free-energy profile of a CoordinateSeries. ``jacobian="auto"`` applies the distance Jacobian
+    -kT ln[P(r)/4 pi r^2] to ``distance`` and ``com_distance`` coordinates and none to the others."""
+    if jacobian == "auto":
+        fn = series.spec.split("(", 1)[0].strip()
+        jacobian = "distance" if fn in ("distance", "com_distance") else "none"
+    return free_energy_profile(series.values, temperature_K=temperature_K, jacobian=jacobian, n_blocks=n_blocks,
+                               bins=bins, unit=series.unit, min_depth_kT=min_depth_kT)
