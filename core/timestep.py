@@ -83,15 +83,17 @@ class VelocitySpectrumAccumulator:
     Feed chunks of velocities in time order with :meth:`update`; frames are cut into consecutive
     segments of equal length (a remainder shorter than a segment is carried into the next chunk).
     With ``labels`` (one integer group per atom) the power is also kept per group, so a few fast
-    atoms (one stiff bond among many slow atoms) are not drowned in the total. Atoms are processed in
-    blocks so memory stays bounded by ``segment_frames x block_atoms``.
+    atoms (one stiff bond among many slow atoms) are not drowned in the total. At most
+    ``max_atoms_per_group`` atoms of a group are used (evenly spread; enough for a stable spectrum),
+    and atoms are processed in blocks, so memory and work stay bounded.
     """
 
     def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256,
-                 labels: np.ndarray | None = None, block_atoms: int = 4096, max_segments: int | None = None) -> None:
+                 labels: np.ndarray | None = None, block_atoms: int = 4096, max_segments: int | None = None,
+                 max_atoms_per_group: int | None = 2000) -> None:
         if segment_frames < 8:
             raise TooShortError("a velocity spectrum segment", have=segment_frames, need=8)
-        self.masses = np.asarray(masses_amu, dtype=np.float64)
+        masses = np.asarray(masses_amu, dtype=np.float64)
         self.spacing_ps = float(frame_spacing_ps)
         self.segment_frames = int(segment_frames)
         self.block_atoms = int(block_atoms)
@@ -100,23 +102,40 @@ class VelocitySpectrumAccumulator:
 
         self.window = get_window("hann", self.segment_frames)  # periodic Hann, as scipy.signal.welch uses
         n_freq = self.segment_frames // 2 + 1
-        self.labels = None if labels is None else np.asarray(labels, dtype=np.int64)
-        n_groups = 0 if self.labels is None else int(self.labels.max()) + 1
+        lab_all = np.zeros(masses.size, np.int64) if labels is None else np.asarray(labels, dtype=np.int64)
+        # at most max_atoms_per_group atoms of each group, evenly spread, each weighted by
+        # n_group / n_kept so the total stays an estimate of the whole system's spectrum
+        keep: list[np.ndarray] = []
+        weight = np.zeros(masses.size)
+        for g in np.unique(lab_all):
+            idx = np.nonzero(lab_all == g)[0]
+            if max_atoms_per_group is not None and idx.size > max_atoms_per_group:
+                idx = idx[np.linspace(0, idx.size - 1, max_atoms_per_group).astype(np.int64)]
+            weight[idx] = np.count_nonzero(lab_all == g) / idx.size
+            keep.append(idx)
+        sel = np.sort(np.concatenate(keep))
+        self.atoms: np.ndarray | None = None if sel.size == masses.size else sel
+        self.masses = masses[sel]
+        self._weight = weight[sel]
+        self.labels = None if labels is None else lab_all[sel]
+        n_groups = 0 if labels is None else int(lab_all.max()) + 1
         self._power = np.zeros(n_freq)
         self._group_power = np.zeros((n_groups, n_freq))
         self._n_segments = 0
         self._carry: np.ndarray | None = None
 
     def _segment(self, seg: np.ndarray) -> None:
+        import scipy.fft
+
         sw = np.sqrt(self.masses).astype(np.float32)
         win = self.window.astype(np.float32)[:, None, None]
         n_atoms = seg.shape[1]
         for a0 in range(0, n_atoms, self.block_atoms):
             blk = seg[:, a0:a0 + self.block_atoms] * sw[None, a0:a0 + self.block_atoms, None]
             blk = blk - blk.mean(axis=0, keepdims=True)
-            f = np.fft.rfft(blk * win, axis=0)
-            per_atom = (np.einsum("fai,fai->fa", f.real, f.real, dtype=np.float64)
-                        + np.einsum("fai,fai->fa", f.imag, f.imag, dtype=np.float64))
+            f = scipy.fft.rfft(blk * win, axis=0)  # float32 in, complex64 out
+            per_atom = (f.real * f.real + f.imag * f.imag).sum(axis=2).astype(np.float64)
+            per_atom *= self._weight[None, a0:a0 + self.block_atoms]
             self._power += per_atom.sum(axis=1)
             if self.labels is not None:
                 lab = self.labels[a0:a0 + self.block_atoms]
@@ -129,6 +148,8 @@ class VelocitySpectrumAccumulator:
         if self.full:
             return
         v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
+        if self.atoms is not None:
+            v = v[:, self.atoms]
         if self._carry is not None:
             v = np.concatenate([self._carry, v], axis=0)
             self._carry = None
