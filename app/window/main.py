@@ -66,6 +66,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self._open_counter = 0
         self._recompute_only: tuple[str, ...] | None = None
         self._rest_pending = False
+        self._computed_for: Run | None = None
 
         self.panels: dict[str, Panel] = {name: PANEL_CLASSES[name](self.model) for name in PANELS}
         self.tabs = QtWidgets.QTabWidget()
@@ -337,7 +338,11 @@ class MainWindow(QtWidgets.QMainWindow):
             self._recompute_only = None
         else:
             self._recompute_only = tuple(dict.fromkeys((previous or ()) + tuple(panels)))
-        self._recompute_timer.start()
+        # a run not computed yet is computed at once (the first panel should appear fast); later
+        # changes wait until a drag rests
+        e = self.model.current
+        first = e is not None and self._computed_for is not e.run
+        self._recompute_timer.start(0 if first else 150)
 
     def context(self) -> AnalysisContext | None:
         e = self.model.current
@@ -357,6 +362,7 @@ class MainWindow(QtWidgets.QMainWindow):
         if ctx is None:
             return
         self._ctx = ctx
+        self._computed_for = ctx.run
         if only:
             self._start_panels(ctx, only)
         else:
@@ -424,11 +430,17 @@ class MainWindow(QtWidgets.QMainWindow):
             panel.show_result(result)
             if not self.jobs.busy:
                 self.say(f"Panels up to date ({outcome.elapsed_s:.2g} s for the last).")
-        if key == "Energy" and getattr(self, "_rest_pending", False):
-            self._rest_pending = False
-            ctx = self.context()
-            if ctx is not None:
-                self._start_panels(ctx, PANELS)
+        if key == "Energy" and self._rest_pending:
+            # let the energy figure reach the screen before the other analyses compete for the CPU
+            QtCore.QTimer.singleShot(30, self._start_rest)
+
+    def _start_rest(self) -> None:
+        if not self._rest_pending:
+            return
+        self._rest_pending = False
+        ctx = self.context()
+        if ctx is not None:
+            self._start_panels(ctx, PANELS)
 
     def wait_idle(self, timeout_ms: int = 20_000) -> bool:
         """Process events until no job is running (tests and screenshots)."""

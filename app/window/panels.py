@@ -125,10 +125,20 @@ class Panel(QtWidgets.QWidget):
     def _set_notes(self) -> None:
         self.notes.setHtml("<br>".join(self._note_lines))
         self.notes.setVisible(bool(self._note_lines))
-        if self._note_lines:  # as tall as the text, up to a few lines; the rest scrolls
-            doc = self.notes.document()
-            doc.setTextWidth(max(200, self.notes.viewport().width()))
-            self.notes.setFixedHeight(int(min(120, doc.size().height() + 6)))
+        self._fit_notes()
+
+    def _fit_notes(self) -> None:
+        """As tall as the text, up to a few lines (the rest scrolls)."""
+        if not self._note_lines:
+            return
+        doc = self.notes.document()
+        width = self.notes.viewport().width() if self.notes.isVisible() else self.width() - 30
+        doc.setTextWidth(max(200, width))
+        self.notes.setFixedHeight(int(min(120, doc.size().height() + 8)))
+
+    def resizeEvent(self, event: QtGui.QResizeEvent) -> None:  # noqa: N802 - Qt override
+        super().resizeEvent(event)
+        self._fit_notes()
 
     def notes_text(self) -> str:
         return self.notes.toPlainText()
@@ -302,6 +312,8 @@ class CrossingsPanel(Panel):
         split.addWidget(box)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 2)
+        split.setSizes([600, 260])
+        self.splitter = split
         self.body.addWidget(split, 1)
         self._rows: list[EventRow] = []
 

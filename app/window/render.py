@@ -71,6 +71,8 @@ def _style_axes(plot: pg.PlotItem, spec: PlotSpec) -> None:
         ax.setTickFont(font)
         ax.setTextPen(pg.mkPen("#000000"))
         ax.setPen(pg.mkPen("#444444"))
+        # axes also draw the grid across the plot: cache them, so a moving cursor does not redraw them
+        ax.setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
     plot.setLogMode(x=spec.x.log, y=spec.y.log)
     plot.setTitle(spec.title, size=f"{FONT_PT + 1}pt", color="#000000")
     plot.showGrid(x=True, y=True, alpha=0.15)
@@ -151,9 +153,18 @@ def _draw_line(plot: pg.PlotItem, it: Line) -> pg.GraphicsObject:
                       symbolBrush=qcolour(st.colour, st.alpha), symbolPen=None)
         item = pg.PlotDataItem(x, y, pen=make_pen(st), name=name, **kw)
     plot.addItem(item)  # before the options below: they look up the item's ViewBox
-    if x.size > BIG_SERIES and it.kind == "line" and _monotonic(x):
-        item.setDownsampling(auto=True, method="peak")
-        item.setClipToView(True)
+    if x.size > BIG_SERIES and it.kind == "line":
+        if _monotonic(x):
+            item.setDownsampling(auto=True, method="peak")
+            item.setClipToView(True)
+        # A thin pen without antialiasing paints a dense curve several times faster, and a cached
+        # picture of it lets the cursor move over it without repainting the curve.
+        pen = make_pen(st)
+        pen.setWidthF(min(pen.widthF(), 1.0))
+        item.setPen(pen)
+        item.curve.setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        item.opts["antialias"] = False
+        item.curve.opts["antialias"] = False
     return item
 
 
