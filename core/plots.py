@@ -619,7 +619,7 @@ def dwell_times_figure(result: Any) -> FigureSpec:
                           style=Style(colour=st.colour, dash="solid" if i == 0 else "dashdot", width=1.8)))
         grid = np.linspace(0.0, d.max(), 100)
         items.append(Line(grid, np.exp(-grid / d.mean()), label=f"exponential, mean {d.mean():.3g} ps",
-                          style=Style(colour=st.colour, dash="dot", width=1.2)))
+                          style=Style(colour=st.colour, dash="dot" if i == 0 else "dash", width=1.2)))
         test = result.dwell_tests.get(state) if isinstance(result.dwell_tests, Mapping) else None
         if test is not None and np.isfinite(test.p_value):
             text.append(f"{state}: KS D = {test.statistic:.3g}, p = {test.p_value:.3g}")
