@@ -144,6 +144,7 @@ def open_run(
     ensemble: str | None = None,
     chunk_frames: int | None = None,
     group: str | None = None,
+    units: Mapping[str, str] | None = None,
     **metadata: Any,
 ) -> Run:
     """Open one run from its files (headers only; frames stay on disk).
@@ -159,6 +160,9 @@ def open_run(
     timestep_ps, n_constraints, temperature_K, ensemble, **metadata : override RunMetadata fields.
     chunk_frames : default chunk size for frame iteration (unused by readers that choose their own).
     group : H5MD particle group to read (default: the first with positions).
+    units : units the user states for quantities whose files give none, by dimension
+        ({"length": "A", "time": "fs", "energy": "kcal/mol", "temperature": "K", ...}); used only where a
+        file is silent, and listed in the warnings. Units in the files always win.
 
     Returns
     -------
@@ -194,7 +198,7 @@ def open_run(
     warnings: list[str] = []
     if runs:
         with _unexpected_is_corrupt(runs[0][0]):
-            run = _open_self_contained(runs[0][0], runs[0][1], group=group)
+            run = _open_self_contained(runs[0][0], runs[0][1], group=group, units=units)
         if tops:
             run = _replace_topology(run, tops[0][0])
     elif trajs:
@@ -219,7 +223,8 @@ def open_run(
 
         with _unexpected_is_corrupt(tables[0] if len(tables) == 1 else None):
             table, table_warnings = tables_mod.read_tables(
-                tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps)
+                tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps,
+                assumed_units=units)
         warnings.extend(table_warnings)
         run.energies = _merge_tables(run.energies, table, warnings)
         run.metadata.sources["energies"] = ", ".join(p.name for p in tables)
@@ -269,11 +274,12 @@ def _unexpected_is_corrupt(path: Path | None) -> Iterator[None]:
         raise CorruptFileError(f"cannot read this file ({type(exc).__name__}: {exc})", path=path) from exc
 
 
-def _open_self_contained(path: Path, entry: ReaderEntry, *, group: str | None) -> Run:
+def _open_self_contained(path: Path, entry: ReaderEntry, *, group: str | None,
+                         units: Mapping[str, str] | None = None) -> Run:
     if entry.name == "h5md":
         from phasewake.core.readers import h5md
 
-        c = h5md.read_h5md(path, group=group)
+        c = h5md.read_h5md(path, group=group, assumed_units=units)
         warnings = list(c.warnings)
         masses = c.masses_amu
         if masses is None:

@@ -13,6 +13,7 @@ energies it defines are multiplied by ``particle_number`` as the module says.
 
 from __future__ import annotations
 
+import contextvars
 import os
 import tempfile
 from collections.abc import Iterator, Mapping, Sequence
@@ -41,6 +42,23 @@ if TYPE_CHECKING:
 
 H5MD_SUFFIXES = (".h5md", ".h5", ".hdf5", ".hdf")
 
+# Units the user stated for elements whose file gives none (dimension -> unit text), set by read_h5md.
+_ASSUMED_UNITS: contextvars.ContextVar[Mapping[str, str] | None] = contextvars.ContextVar(
+    "phasewake_h5md_assumed_units", default=None)
+_ASSUMED_USED: contextvars.ContextVar[list[str] | None] = contextvars.ContextVar(
+    "phasewake_h5md_assumed_used", default=None)
+
+
+def _assumed(dimension: str | None, name: str) -> str | None:
+    """The unit the user stated for this dimension, or None; noted for the run's warnings."""
+    units = _ASSUMED_UNITS.get()
+    if not units or dimension is None or dimension not in units:
+        return None
+    used = _ASSUMED_USED.get()
+    if used is not None:
+        used.append(f"{name} has no unit in the file; using {units[dimension]!r} as stated")
+    return units[dimension]
+
 # Observable name -> energy-table role (our names and common names other engines write).
 OBSERVABLE_ROLES: dict[str, str] = {
     "potential_energy": "potential",
@@ -56,6 +74,9 @@ OBSERVABLE_ROLES: dict[str, str] = {
     "density": "density",
 }
 # Per-particle averages in the H5MD thermodynamics module.
+_ROLE_DIMENSION = {"potential": "energy", "kinetic": "energy", "total": "energy", "conserved": "energy",
+                   "bath_heat": "energy", "temperature": "temperature", "pressure": "pressure",
+                   "volume": "volume", "density": "density"}
 _THERMO_PER_PARTICLE = {"potential_energy", "kinetic_energy", "internal_energy", "enthalpy"}
 
 # /parameters keys that fill RunMetadata.
@@ -282,6 +303,8 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
     if time is not None:
         unit = g["time"].attrs.get("unit")
         if unit is None:
+            unit = _assumed("time", f"{name}/time")
+        if unit is None:
             raise UnitError(f"{name}/time has no unit attribute (state it or add unit=\"ps\")", path=path)
         try:
             time = np.asarray(time, dtype=np.float64) * parse_unit(decode(unit), expect="time").factor
@@ -297,7 +320,9 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
 def _unit_factor(ds: h5py.Dataset, *, path: Path, name: str, expect: str | None) -> tuple[float, str]:
     unit = ds.attrs.get("unit")
     if unit is None:
-        raise UnitError(f"{name} has no unit attribute", path=path)
+        unit = _assumed(expect, name)
+    if unit is None:
+        raise UnitError(f"{name} has no unit attribute (state it: units={{{expect!r}: ...}})", path=path)
     try:
         u = parse_unit(decode(unit), expect=expect)
     except UnitError as exc:
@@ -498,16 +523,19 @@ def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_t
             continue  # vector observables are not energy-table columns
         base = name.rsplit("/", 1)[-1]
         unit = ds.attrs.get("unit")
+        role_dim = _ROLE_DIMENSION.get(OBSERVABLE_ROLES.get(base, "other"))
         if unit is None:
-            if base in OBSERVABLE_ROLES and OBSERVABLE_ROLES[base] not in ("other",):
-                raise UnitError(f"observable {name} has no unit attribute", path=path)
-            factor, internal = 1.0, ""
-        else:
-            try:
-                u = parse_unit(decode(unit))
-            except UnitError as exc:
-                raise UnitError(f"observable {name}: {exc.problem}", path=path) from exc
-            factor, internal = u.factor, u.internal
+            unit = _assumed(role_dim, f"observables/{name}")
+        if unit is None:
+            if role_dim is not None:
+                raise UnitError(f"observable {name} has no unit attribute (state it: units={{{role_dim!r}: ...}})",
+                                path=path)
+            unit = "1"  # H5MD: a quantity without a unit attribute is dimensionless
+        try:
+            u = parse_unit(decode(unit), expect=role_dim)
+        except UnitError as exc:
+            raise UnitError(f"observable {name}: {exc.problem}", path=path) from exc
+        factor, internal = u.factor, u.internal
         values = np.asarray(ds[()], dtype=np.float64) * factor
         if thermo and base in _THERMO_PER_PARTICLE:
             if particle_number is None:
@@ -567,17 +595,33 @@ def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_t
 _LAYOUT_ERRORS = (KeyError, ValueError, TypeError, IndexError, AttributeError, OSError, RuntimeError)
 
 
-def read_h5md(path: str | Path, *, group: str | None = None) -> H5MDContents:
+def read_h5md(path: str | Path, *, group: str | None = None,
+              assumed_units: Mapping[str, str] | None = None) -> H5MDContents:
     """Open an H5MD file: headers, axes, observables and metadata; frames stay lazy.
+
+    Parameters
+    ----------
+    group : particle group to read (default: the first with positions).
+    assumed_units : dimension -> unit text ({"length": "A", "time": "fs", "energy": "kcal/mol", ...}) for
+        elements whose file states no unit; each use is listed in the warnings. Units the file states
+        always win.
 
     Raises MissingDataError when no particle group has positions (or ``group`` is not there),
     UnitError for a missing/unknown unit, CorruptFileError for inconsistent shapes or a damaged layout.
     """
+    used: list[str] = []
+    tok_units = _ASSUMED_UNITS.set(assumed_units)
+    tok_used = _ASSUMED_USED.set(used)
     try:
-        return _read_h5md(Path(path), group=group)
+        contents = _read_h5md(Path(path), group=group)
     except _LAYOUT_ERRORS as exc:
         raise CorruptFileError(f"damaged or unexpected H5MD layout ({type(exc).__name__}: {exc})",
                                path=path) from exc
+    finally:
+        _ASSUMED_UNITS.reset(tok_units)
+        _ASSUMED_USED.reset(tok_used)
+    contents.warnings.extend(f"{Path(path).name}: {u}" for u in dict.fromkeys(used))
+    return contents
 
 
 def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:

@@ -102,8 +102,11 @@ def read_table(
     *,
     column_roles: Mapping[str, str] | None = None,
     timestep_ps: float | None = None,
+    assumed_units: Mapping[str, str] | None = None,
 ) -> tuple[EnergyTable, list[str]]:
     """Read one energy table.
+
+    ``assumed_units`` (dimension -> unit text) fills in the unit of a role column whose header has none.
 
     Returns
     -------
@@ -191,6 +194,9 @@ def read_table(
         if role == "step":
             step = col
             continue
+        if unit_text is None and assumed_units and _ROLE_DIMENSION.get(role) in assumed_units:
+            unit_text = assumed_units[_ROLE_DIMENSION[role]]
+            warnings.append(f"{path.name}: column {name!r} has no unit; using {unit_text!r} as stated")
         if unit_text is None:
             if role == "other":
                 warnings.append(f"{path.name}: column {name!r} has no unit; left out (state it in the header, "
@@ -253,12 +259,13 @@ def read_tables(
     *,
     column_roles: Mapping[str, str] | None = None,
     timestep_ps: float | None = None,
+    assumed_units: Mapping[str, str] | None = None,
 ) -> tuple[EnergyTable, list[str]]:
     """Read several tables of one run and join them on time (rows at times all tables share)."""
     tables = []
     warnings: list[str] = []
     for p in paths:
-        t, w = read_table(p, column_roles=column_roles, timestep_ps=timestep_ps)
+        t, w = read_table(p, column_roles=column_roles, timestep_ps=timestep_ps, assumed_units=assumed_units)
         tables.append(t)
         warnings.extend(w)
     out = tables[0]

@@ -187,3 +187,30 @@ def test_describe_group_option(tmp_path, capsys):
     assert main(["describe", str(path), "--json", "--group", "solvent"]) == 0
     assert json.loads(capsys.readouterr().out)["n_atoms"] == 5
     assert main(["describe", str(path), "--group", "nothere"]) == 2
+
+
+def test_user_states_missing_units(tmp_path, capsys):
+    # a file silent about its units: an error naming it, unless the user states the unit
+    path = tmp_path / "silent.h5md"
+    with h5py.File(path, "w") as f:
+        f.create_group("h5md").attrs["version"] = [1, 1]
+        p = f.create_group("particles/all/position")
+        p.create_dataset("value", data=np.ones((3, 2, 3)))  # 1 Angstrom, no unit attribute
+        p.create_dataset("step", data=[0, 1, 2])
+        p.create_dataset("time", data=[0.0, 1.0, 2.0])  # fs, no unit attribute
+    assert main(["describe", str(path)]) == 2
+    assert "no unit" in capsys.readouterr().err
+    assert main(["describe", str(path), "--unit", "length=A", "--unit", "time=fs", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["time_end_ps"] == pytest.approx(2e-3)  # 2 fs = 2e-3 ps (SI prefixes)
+    assert any("using 'A' as stated" in w for w in d["warnings"])
+    run = open_run([path], units={"length": "A", "time": "fs"})
+    np.testing.assert_allclose(run.frames.read_frame(0).positions_nm, 0.1)  # 1 Angstrom = 0.1 nm
+    assert main(["describe", str(path), "--unit", "length=kcal/mol"]) == 2  # wrong dimension
+
+
+def test_user_states_table_unit(tmp_path):
+    p = tmp_path / "e.csv"
+    p.write_text("time (ps),potential\n0,1\n1,2\n")
+    run = open_run([p], units={"energy": "kcal/mol"})
+    np.testing.assert_allclose(run.energies.by_role("potential").values, [4.184, 8.368])  # NIST SP 811
