@@ -500,6 +500,10 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
                                path=path) from exc
     if n == 0:
         raise CorruptFileError("trajectory holds no frames", path=path)
+    if t is not None and n > 1 and np.all(t == t[0]):
+        warnings.append(f"{path.name}: every frame header gives the same time ({t[0]:g} ps); "
+                        "treated as no time axis")
+        t = None
     if t is None:
         t = np.arange(n, dtype=np.float64)
         warnings.append(f"{path.name}: the file holds no time axis; frames are numbered 0, 1, 2, ... (not ps). "

@@ -284,3 +284,17 @@ def test_mdtraj_hdf5_layout_read_with_h5py(tmp_path, traj):
     # mdtraj's own converter agrees (reference): lengths/angles -> vectors
     ref = md.utils.lengths_and_angles_to_box_vectors(2.0, 2.0, 2.0, 90.0, 90.0, 60.0)
     np.testing.assert_allclose(b, np.array(ref), atol=1e-6)
+
+
+def test_dcd_header_clock(tmp_path, files):
+    # CHARMM/NAMD DCD header: ISTART, NSAVC (steps) and DELTA (time step in AKMA units, 48.88821 fs;
+    # from memory, CHARMM documentation). Patch them into an mdtraj-written file.
+    path = tmp_path / "clock.dcd"
+    data = bytearray(files["dcd"].read_bytes())
+    struct.pack_into("<ii", data, 12, 500, 25)  # ISTART = 500, NSAVC = 25
+    struct.pack_into("<f", data, 44, np.float32(2.0 / 48.88821))  # DELTA = 2 fs in AKMA units
+    path.write_bytes(bytes(data))
+    run = open_run([path, files["pdb"]])
+    expected = (500 + 25 * np.arange(N_FRAMES)) * 2e-3  # ps
+    np.testing.assert_allclose(run.time_ps, expected, rtol=1e-5)
+    assert not any("holds no time axis" in w for w in run.warnings)
