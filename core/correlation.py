@@ -116,22 +116,95 @@ def _as_float_array(x: Any, axis: int) -> tuple[np.ndarray, int]:
     return a, axis
 
 
-def _autocovariance_sums(a: np.ndarray, axis: int, max_lag: int) -> np.ndarray:
-    """Sums S(k) = sum_t d(t) d(t+k) of the centred series d, k = 0..max_lag, along ``axis`` (moved last).
+_FFT_BYTES = 256 * 2**20  # memory budget of one FFT batch
+_ADAPTIVE_ABOVE = 2**14  # series longer than this start with a shorter lag window, widened as needed
+_FIRST_LAG = 2**15
 
-    Zero-padded to a fast FFT length >= N + max_lag, so there is no circular wrap-around.
+
+def _full_sums(d: np.ndarray, max_lag: int) -> np.ndarray:
+    """Rows of centred series d (R, n): sums by one zero-padded FFT per row batch."""
+    import scipy.fft
+
+    r, n = d.shape
+    nfft = scipy.fft.next_fast_len(n + max_lag + 1, real=True)
+    rows = int(max(1, _FFT_BYTES // (nfft * 24)))
+    out = np.empty((r, max_lag + 1))
+    for i in range(0, r, rows):
+        f = scipy.fft.rfft(d[i : i + rows], n=nfft, axis=-1, workers=_WORKERS)
+        power = f.real * f.real + f.imag * f.imag
+        del f
+        out[i : i + rows] = scipy.fft.irfft(power, n=nfft, axis=-1, workers=_WORKERS)[:, : max_lag + 1]
+    return out
+
+
+def _blocked_sums(d: np.ndarray, max_lag: int) -> np.ndarray:
+    """Sums over lags 0..max_lag of one long centred series by blocks of B >= max_lag samples.
+
+    The origins of block b see lags reaching into block b+1 only; with blocks zero-padded to 2B the
+    transform of the pair is F_b + (-1)^j F_{b+1}, so every block is transformed once and block b adds
+    conj(F_b) (F_b + (-1)^j F_{b+1}). Exact, with memory bounded by the batch of blocks.
     """
     import scipy.fft
 
+    n = d.size
+    bsize = int(scipy.fft.next_fast_len(max_lag + 1, real=True))
+    nb = -(-n // bsize)
+    padded = np.zeros((nb + 1) * bsize)
+    padded[:n] = d
+    blocks = padded.reshape(nb + 1, bsize)
+    sign = np.where(np.arange(bsize + 1) % 2 == 0, 1.0, -1.0)
+    acc = np.zeros(bsize + 1, dtype=np.complex128)
+    per = int(max(2, _FFT_BYTES // (2 * bsize * 24)))
+    prev_f = None
+    for i in range(0, nb + 1, per):
+        f = scipy.fft.rfft(blocks[i : i + per], n=2 * bsize, axis=-1, workers=_WORKERS)
+        if prev_f is not None:
+            f = np.concatenate([prev_f, f], axis=0)
+        nxt = f[1:]
+        cur = f[:-1]
+        acc += np.sum(np.conj(cur) * (cur + sign * nxt), axis=0)
+        prev_f = f[-1:]
+    return np.asarray(scipy.fft.irfft(acc, n=2 * bsize)[: max_lag + 1])
+
+
+def _autocovariance_sums(a: np.ndarray, axis: int, max_lag: int) -> np.ndarray:
+    """Sums S(k) = sum_t d(t) d(t+k) of the centred series d, k = 0..max_lag, along ``axis`` (moved last).
+
+    Zero-padded FFTs (no circular wrap-around), batched so memory stays bounded; a short lag window on
+    a long series uses the blocked transform.
+    """
     a = np.moveaxis(a, axis, -1)
     n = a.shape[-1]
-    d = a - a.mean(axis=-1, keepdims=True)
-    nfft = scipy.fft.next_fast_len(n + max_lag + 1, real=True)
-    f = scipy.fft.rfft(d, n=nfft, axis=-1, workers=_WORKERS)
-    power = f.real * f.real + f.imag * f.imag
-    del f
-    s = scipy.fft.irfft(power, n=nfft, axis=-1, workers=_WORKERS)[..., : max_lag + 1]
-    return np.ascontiguousarray(s)
+    lead = a.shape[:-1]
+    d = (a - a.mean(axis=-1, keepdims=True)).reshape(-1, n)
+    if d.shape[0] == 1 and n > 2**16 and 8 * (max_lag + 1) <= n:
+        out = np.stack([_blocked_sums(row, max_lag) for row in d])
+    else:
+        out = _full_sums(d, max_lag)
+    return out.reshape(lead + (max_lag + 1,))
+
+
+def _sums_adaptive(a: np.ndarray, axis: int, max_lag: int | None, method: str, c: float
+                   ) -> tuple[np.ndarray, _GEstimate, int]:
+    """Sums, estimate and lags used. Without ``max_lag``, long series start with min(2^15, N/16) lags and
+    widen the window (x4) until every estimate's truncation falls inside its first half."""
+    n = a.shape[axis % a.ndim]
+    if max_lag is not None:
+        k = int(max(1, min(max_lag, n - 1)))
+    elif n > _ADAPTIVE_ABOVE:
+        k = int(min(n - 1, max(1024, min(_FIRST_LAG, n // 16))))
+    else:
+        k = n - 1
+    while True:
+        s = _autocovariance_sums(a, axis, k)
+        s0 = s[..., :1]
+        if np.any(s0 <= 0):
+            raise AnalysisError("the series has no variance (constant): its statistical inefficiency is undefined")
+        est = _g_from_rho(s / s0, method, c, n)
+        done = max_lag is not None or k >= n - 1 or (bool(np.all(est.converged)) and int(np.max(est.window)) < k // 2)
+        if done:
+            return s, est, k
+        k = n - 1 if 4 * k >= n else 4 * k
 
 
 def autocovariance(
@@ -307,13 +380,8 @@ def _g_from_rho(rho: np.ndarray, method: str, c: float, n: int) -> _GEstimate:
 def _estimate(x: Any, *, method: str, c: float, max_lag: int | None, axis: int) -> tuple[_GEstimate, int]:
     a, axis = _as_float_array(x, axis)
     n = a.shape[axis]
-    k = n - 1 if max_lag is None else int(max(1, min(max_lag, n - 1)))
-    s = _autocovariance_sums(a, axis, k)
-    s0 = s[..., :1]
-    if np.any(s0 <= 0):
-        raise AnalysisError("the series has no variance (constant): its statistical inefficiency is undefined")
-    rho = s / s0  # biased normalisation: sums over N both
-    return _g_from_rho(rho, method, c, n), n
+    _s, est, _k = _sums_adaptive(a, axis, max_lag, method, c)
+    return est, n
 
 
 def statistical_inefficiency(
@@ -456,12 +524,8 @@ def analyse_series(
     if not dt_ps > 0:
         raise AnalysisError(f"the sample spacing must be positive, got {dt_ps} ps")
     n = a.size
-    k = n - 1 if max_lag is None else int(max(1, min(max_lag, n - 1)))
-    s = _autocovariance_sums(a, 0, k)
-    if s[0] <= 0:
-        raise AnalysisError("the series has no variance (constant): its memory is undefined")
+    s, est, k = _sums_adaptive(a, 0, max_lag, method, c)
     rho = s / s[0]
-    est = _g_from_rho(rho, method, c, n)
     g = float(est.g)
     window = int(est.window)
     var = float(s[0] / n)
