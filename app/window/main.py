@@ -648,8 +648,11 @@ class MainWindow(QtWidgets.QMainWindow):
             self.show_problem("Could not export the data", str(exc))
 
     def export_report_to(self, path: str | Path) -> None:
-        """Build the report of the current run in the background (core.report)."""
-        from phasewake.app.window.analyses import module_or_none
+        """Build the report of the current run (restricted to the time window) in the background.
+
+        A ``.html`` path writes the HTML report and the PDF beside it (core.report writes both).
+        """
+        from phasewake.app.window.analyses import AnalysisContext, _given_states, module_or_none, window_run
 
         e = self.model.current
         if e is None:
@@ -661,13 +664,21 @@ class MainWindow(QtWidgets.QMainWindow):
             self.show_problem("Report not available", "The report builder (phasewake.core.report) is not "
                                                       "in this build yet.")
             return
-        run, coordinate = e.run, self.model.coordinate
+        target = Path(path)
+        pdf, html_path = (target.with_suffix(".pdf"), target) if target.suffix.lower() in (".html", ".htm") \
+            else (target, None)
         start, stop = self.model.window_frames()
+        run = window_run(e.run, start, stop)
+        ctx = AnalysisContext(run=e.run, start=start, stop=stop, window_ps=self.model.effective_window_ps,
+                              choices=self.model.choices)
+        states, surface = _given_states(ctx)
+        kwargs = _report_kwargs(builder, coordinate=self.model.coordinate, states=states, surface=surface,
+                                html_path=html_path)
 
         def job():
-            return builder(run, path, **_report_kwargs(builder, coordinate, start, stop))
+            return builder(run, pdf, **kwargs)
 
-        self.jobs.start(f"export:{path}", job, label="Report")
+        self.jobs.start(f"export:{target}", job, label="Report")
 
     def ask_export_report(self) -> None:
         path = self._ask_path("Export report", "PDF (*.pdf);;HTML (*.html)", save=True,
@@ -700,19 +711,12 @@ class MainWindow(QtWidgets.QMainWindow):
         super().closeEvent(event)
 
 
-def _report_kwargs(builder: Callable[..., Any], coordinate: str, start: int, stop: int) -> dict[str, Any]:
-    """Pass the coordinate and window to the report builder when it takes them."""
+def _report_kwargs(builder: Callable[..., Any], **wanted: Any) -> dict[str, Any]:
+    """The options the report builder takes, among those the window knows (None values left out)."""
     import inspect
 
     params = inspect.signature(builder).parameters
-    out: dict[str, Any] = {}
-    if coordinate and "coordinate" in params:
-        out["coordinate"] = coordinate
-    if "start" in params:
-        out["start"] = start
-    if "stop" in params:
-        out["stop"] = stop
-    return out
+    return {k: v for k, v in wanted.items() if v not in (None, "") and k in params}
 
 
 class ExportDialog(QtWidgets.QDialog):

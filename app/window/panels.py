@@ -378,9 +378,15 @@ class LandscapePanel(Panel):
         self.top_bar.addWidget(hint)
 
     def _mark_moved(self, mark: Mark, value: float, value2: object) -> None:
-        marks = dict(self.model.choice("landscape_marks") or {})
-        key = f"{mark.role}:{mark.label}"
-        marks[key] = [value, value2] if value2 is not None else [value]
+        # record every movable mark as it now stands, so moving one keeps the others where they are
+        marks: dict[str, list[float]] = {}
+        for rp in self.view.plots:
+            for m, item in rp.movable_marks:
+                if isinstance(item, pg.InfiniteLine):
+                    marks[f"{m.role}:{m.label}"] = [float(item.value())]
+                elif isinstance(item, pg.LinearRegionItem):
+                    marks[f"{m.role}:{m.label}"] = [float(v) for v in item.getRegion()]
+        marks[f"{mark.role}:{mark.label}"] = [value, value2] if value2 is not None else [value]  # type: ignore[list-item]
         self.model.set_choice("landscape_marks", marks)
 
 

@@ -24,7 +24,7 @@ from phasewake.app.window.analyses import PANELS  # noqa: E402
 from phasewake.app.window.main import MainWindow  # noqa: E402
 from phasewake.core.progress import Progress  # noqa: E402
 
-pytestmark = pytest.mark.gui
+pytestmark = [pytest.mark.gui, pytest.mark.slow]  # opening the sample computes every panel (seconds)
 SAMPLE = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
 
 
@@ -286,3 +286,74 @@ def test_open_verb_refuses_missing_files(capsys):
     assert main(["open", "definitely-missing.h5md"]) == 2
     err = capsys.readouterr().err
     assert "definitely-missing.h5md" in err and "Traceback" not in err
+
+
+def test_dragging_the_dividing_surface_redefines_the_crossings(win, qtbot):
+    w = win
+    land = w.panels["Landscape"]
+    w.tabs.setCurrentWidget(land)
+    marks = [(m, item) for rp in land.view.plots for m, item in rp.movable_marks]
+    roles = {m.role for m, _ in marks}
+    assert {"state", "surface"} <= roles, roles
+    a = next(item for m, item in marks if m.role == "state" and m.label == "A")
+    b = next(item for m, item in marks if m.role == "state" and m.label == "B")
+    surf = next(item for m, item in marks if m.role == "surface")
+    new = 0.5 * (a.value() + surf.value())  # move the surface half-way towards core A
+    surf.setValue(new)
+    surf.sigPositionChangeFinished.emit(surf)  # what releasing the mouse after a drag does
+    assert w.model.choice("landscape_marks")["surface:dividing surface"] == [pytest.approx(new)]
+    assert w.wait_idle(60_000)
+    res = w.panels["Crossings"].result.info["crossings"]
+    assert res.settings.surface == pytest.approx(new)
+    assert res.settings.states_source == "given"
+    assert (res.settings.a_hi, res.settings.b_lo) == (pytest.approx(a.value()), pytest.approx(b.value()))
+    w.model.set_choice("landscape_marks", {})  # back to the suggested states for the other tests
+    assert w.wait_idle(60_000)
+
+
+def test_runs_list_settings_remove_and_drop(win, qtbot, sample_path):
+    w = win
+    runs = w.runs
+    runs.settings.timestep.setValue(1.5)
+    runs.settings.temperature.setValue(130.0)
+    qtbot.mouseClick(runs.settings.apply, QtCore.Qt.MouseButton.LeftButton)
+    md = w.model.current.run.metadata
+    assert md.timestep_ps == pytest.approx(1.5e-3) and md.temperature_K == pytest.approx(130.0)
+    shown = {runs.details.item(r, 0).text(): runs.details.item(r, 1).text() for r in range(runs.details.rowCount())}
+    assert shown["time step"] == "1.5 fs" and shown["temperature"] == "130 K"
+    assert shown["velocities"] in ("stored", "estimated from positions")
+    # dropping a file on the list asks the window to open it as another run
+    mime = QtCore.QMimeData()
+    mime.setUrls([QtCore.QUrl.fromLocalFile(str(sample_path))])
+    drop = QtGui.QDropEvent(QtCore.QPointF(10, 10), QtCore.Qt.DropAction.CopyAction, mime,
+                            QtCore.Qt.MouseButton.LeftButton, QtCore.Qt.KeyboardModifier.NoModifier)
+    runs.dropEvent(drop)
+    assert w.wait_idle(60_000)
+    assert len(w.model.entries) == 2 and runs.list.count() == 2
+    runs.list.setCurrentRow(1)
+    runs.remove_selected()
+    assert len(w.model.entries) == 1 and w.model.current is not None
+    w.model.update_settings(0, type(w.model.current.settings)())  # restore
+    assert w.wait_idle(60_000)
+
+
+def test_coordinate_builder_writes_and_checks_specs(win, qtbot):
+    from phasewake.app.window.builder import CoordinateBuilder
+
+    run = win.model.current.run
+    dlg = CoordinateBuilder(run, "")
+    qtbot.addWidget(dlg)
+    ok = dlg.buttons.button(dlg.buttons.StandardButton.Ok)
+    assert not ok.isEnabled()  # nothing typed yet
+    dlg.kind.setCurrentIndex(0)  # distance: two atoms
+    dlg.pick_row(0)
+    dlg.pick_row(1)
+    assert dlg.spec == "distance(0, 1)" and ok.isEnabled()
+    dlg.text.setText("distance(0, 1")  # a typing mistake is pointed at, and cannot be accepted
+    assert not ok.isEnabled() and "^" in dlg.error.text()
+    dlg.text.setText(f"distance(0, {run.n_atoms + 5})")  # atom out of range for this run
+    assert not ok.isEnabled() and dlg.error.text()
+    if run.topology is not None:
+        dlg.filter.setText(run.topology.atom(1).name)
+        visible = [r for r in range(dlg.table.rowCount()) if not dlg.table.isRowHidden(r)]
+        assert 1 in visible and len(visible) < dlg.table.rowCount()
