@@ -37,11 +37,6 @@ from phasewake.core.verdicts import (
 )
 
 register(None, Explanation(
-    title="Check not applicable",
-    what="A check that could not run on this run, with the reason (missing data, wrong ensemble).",
-    method="-", threshold="-", advice="Provide the missing data (see the message) if the check matters to you.",
-), kind="audit.skipped")
-register(None, Explanation(
     title="Degrees of freedom",
     what="The number of degrees of freedom used for every per-DOF number and for the kinetic temperature.",
     method="N_dof = 3 N - constraints - removed centre-of-mass motion (REFERENCES.md §2). Constraints come "
@@ -329,6 +324,7 @@ def audit_run(
     groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
     require_temperature: bool = False,
     compare: Run | None = None,
+    compare_timestep_ps: float | None = None,
     chunk_frames: int = DEFAULT_CHUNK_FRAMES,
     segment_frames: int = 256,
     max_spectrum_segments: int | None = 64,
@@ -350,6 +346,8 @@ def audit_run(
         Raise :class:`MissingDataError` when there are no velocities (instead of skipping).
     compare : Run, optional
         A run of the same system at another time step: the dt^2 scaling check.
+    compare_timestep_ps : float, optional
+        Time step of the comparison run (overrides its metadata).
     chunk_frames, segment_frames : int
         Frames per chunk read, and per velocity-spectrum segment.
     max_spectrum_segments : int or None
@@ -383,6 +381,7 @@ def audit_run(
     if require_temperature and not has_vel and (table is None or table.by_role("kinetic") is None):
         raise MissingDataError("velocities are missing (and no kinetic energy in the energy table): the kinetic "
                                "temperature needs them", path=path0)
+    notes.extend(f"Reader: {w}" for w in run.warnings)
     if ensemble.startswith("unknown"):
         notes.append("Ensemble not stated in the files: treated as NVE (unthermostatted).")
     frames_total = float(run.frames.n_frames if (has_vel and run.frames is not None) else 0)
@@ -551,6 +550,17 @@ def audit_run(
             notes.append("Velocities were estimated from positions (central differences): the kinetic "
                          "temperature from them is biased low when frames are far apart.")
     kT_ref = target_T if target_T is not None else (temp.mean_K if temp is not None else None)
+    dof_for_drift = n_dof
+    if n_dof is None and file_kin is not None and file_T is not None:
+        # energy table only: the file's own kinetic energy and temperature give the N_dof it used
+        kv = np.asarray(file_kin.values, dtype=np.float64)
+        tv = np.asarray(file_T.values, dtype=np.float64)
+        ok = np.isfinite(kv) & np.isfinite(tv)
+        if ok.any() and float(tv[ok].mean()) > 0:
+            dof_for_drift = int(round(2.0 * float(kv[ok].mean()) / (en.boltzmann_kJ_per_mol_K() * float(tv[ok].mean()))))
+            kT_ref = kT_ref if kT_ref is not None else float(tv[ok].mean())
+            notes.append(f"No atoms in the files: N_dof = {dof_for_drift} for the per-DOF drift comes from the "
+                         "file's kinetic energy and temperature (2 <K> / (k_B <T>)).")
 
     # ---- energy conservation ------------------------------------------------------------------
     eaudit: EnergyAudit | None = None
@@ -566,7 +576,7 @@ def audit_run(
             ksrc_e = f"file column '{conserved.kinetic_column}'"
         drift = fl = None
         if good.sum() >= 3:
-            drift = en.drift_fit(t[good], e[good], n_atoms=run.n_atoms or None, n_dof=n_dof,
+            drift = en.drift_fit(t[good], e[good], n_atoms=run.n_atoms or None, n_dof=dof_for_drift or None,
                                  temperature_K=kT_ref)
             kin_used = None if kin is None else kin[good]
             if kin_used is None and fp is not None:
@@ -613,8 +623,9 @@ def audit_run(
     scaling: ts.ScalingResult | None = None
     if compare is not None:
         compared = yield from _nested(audit_run(compare, temperature_K=temperature_K, chunk_frames=chunk_frames,
-                                                segment_frames=segment_frames), frames_total, total)
-        dt2 = compare.metadata.timestep_ps
+                                                timestep_ps=compare_timestep_ps, segment_frames=segment_frames,
+                                                max_spectrum_segments=max_spectrum_segments), frames_total, total)
+        dt2 = compare_timestep_ps if compare_timestep_ps is not None else compare.metadata.timestep_ps
         s1 = eaudit.fluctuations if eaudit is not None else None
         s2 = compared.energy.fluctuations if compared.energy is not None else None
         if dt and dt2 and s1 is not None and s2 is not None:
@@ -624,7 +635,12 @@ def audit_run(
             except AnalysisError as exc:
                 notes.append(f"Time-step scaling not checked: {exc}")
 
-    verdicts = _verdicts(eaudit, temp, tsa, scaling, compared, thermostatted, has_vel, conserved, dt)
+    verdicts = _verdicts(eaudit, temp, tsa, scaling, compared, thermostatted, has_vel, conserved, dt,
+                         n_atoms_known=bool(run.n_atoms))
+    if not run.n_atoms and temp is None:
+        verdicts = [replace(v, message="not checked: the files hold no atoms (energy table only), so the degrees "
+                            "of freedom cannot be counted") if v.kind == "temperature.file_mismatch" else v
+                    for v in verdicts]
     yield Progress(total, total, "done")
     return AuditResult(run_name=run.name, paths=tuple(str(p) for p in run.paths), ensemble=ensemble,
                        thermostatted=thermostatted, energy=eaudit, temperature=temp, timestep=tsa,
@@ -650,7 +666,8 @@ def _fmt(x: float | None, unit: str = "", digits: int = 4) -> str:
 
 def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: TimestepAudit | None,
               scaling: ts.ScalingResult | None, compared: AuditResult | None, thermostatted: bool,
-              has_vel: bool, conserved: en.ConservedSeries | None, dt: float | None) -> list[Verdict]:
+              has_vel: bool, conserved: en.ConservedSeries | None, dt: float | None,
+              n_atoms_known: bool = True) -> list[Verdict]:
     out: list[Verdict] = []
     # energy
     if ea is None:
@@ -727,7 +744,9 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
     # temperature
     if ta is None:
         out.append(_skipped("temperature.file_mismatch", "Kinetic temperature",
-                            "no velocities and no kinetic energy in the files"))
+                            "no velocities and no kinetic energy in the files" if not n_atoms_known else
+                            "no velocities and no kinetic energy in the files, or the degrees of freedom "
+                            "could not be counted"))
     else:
         out.append(Verdict("temperature.dof", "info", "Kinetic temperature", ta.mean_K, "K",
                            f"T = {_fmt(ta.mean_K)} +- {_fmt(ta.error_K)} K from {ta.kinetic_source}; N_dof = "

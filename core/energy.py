@@ -504,6 +504,7 @@ def find_energy_events(
     jump_robust_sigma: float = 8.0,
     gap_factor: float = 1.5,
     max_listed: int = 50,
+    robust_sample: int = 1 << 20,
 ) -> EventsResult:
     """Locate non-finite rows, jumps, time gaps/overlaps/reversals and a runaway trend.
 
@@ -517,6 +518,8 @@ def find_energy_events(
         A spacing above this many median spacings is a gap.
     max_listed : int
         At most this many events of each kind are listed (all are counted).
+    robust_sample : int
+        Median and MAD of the steps come from at most this many evenly spaced steps.
     """
     t = np.asarray(time_ps, dtype=np.float64)
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
@@ -556,8 +559,10 @@ def find_energy_events(
     runaway: float | None = None
     if ef.size >= 5:
         d = np.diff(ef)
-        med = float(np.median(d))
-        s = 1.4826 * float(np.median(np.abs(d - med)))
+        # robust centre and spread; on very long series from an even subsample (medians are the cost)
+        sub = d if d.size <= robust_sample else d[:: int(math.ceil(d.size / robust_sample))]
+        med = float(np.median(sub))
+        s = 1.4826 * float(np.median(np.abs(sub - med)))
         floor = 1e-12 * max(1.0, float(np.max(np.abs(ef))))
         s = max(s, floor)
         score = np.abs(d - med) / s
@@ -582,7 +587,7 @@ def find_energy_events(
                         n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
                         median_spacing_ps=median_dt,
                         settings={"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor,
-                                  "max_listed": max_listed})
+                                  "max_listed": max_listed, "robust_sample": robust_sample})
 
 
 # ---------------------------------------------------------------------------------------------------

@@ -29,6 +29,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--compare", nargs="+", metavar="OTHER_FILE", default=None,
                         help="files of a second run of the same system at another time step: checks that the "
                              "energy fluctuation scales as (dt1/dt2)^2")
+    parser.add_argument("--compare-timestep", metavar="FS", type=float, default=None,
+                        help="integration time step of the --compare run in fs, when its files do not say")
     parser.add_argument("--group", action="append", metavar="NAME=ATOMS", default=None,
                         help="a group for the equipartition check, e.g. solute=DIM or core=0-99,120; ATOMS "
                              "is a comma list of residue names and 0-based atom indices or ranges "
@@ -76,7 +78,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
         w(f"  {LEVEL_WORD[v.level]:<8} {v.title}: {_num(v.measured, v.unit)}\n")
         w(wrap.fill(v.message) + "\n")
         if v.threshold is not None:
-            w(wrap.fill(f"threshold: {thr} (source: {src})") + "\n")
+            w(wrap.fill(f"threshold: {thr}" + ("" if src in v.message else f" (source: {src})")) + "\n")
         if v.advice:
             w(wrap.fill(f"advice: {v.advice}") + "\n")
         if explain and v.kind in EXPLANATIONS:
@@ -150,7 +152,8 @@ def run(args: argparse.Namespace) -> int:
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
     work = audit_run(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
                      temperature_K=args.temperature, require_temperature=args.constraints is not None,
-                     groups=groups or None, compare=other)
+                     groups=groups or None, compare=other,
+                     compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3)
     result = run_with_progress(work, "audit")
     if args.json:
         summary = audit_summary(result)

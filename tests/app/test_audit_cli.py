@@ -244,3 +244,22 @@ def test_openmm_water_constraints_inferred_without_metadata(openmm_water_1fs):
     assert "inferred" in r.temperature.constraints_source
     assert r.temperature.n_dof == openmm_water_1fs.n_dof
     assert r.temperature.mean_K == pytest.approx(float(np.mean(openmm_water_1fs.temperature_K)), abs=0.1)
+
+
+def test_energy_table_only_gets_dof_from_its_own_columns(tmp_path, capsys):
+    pytest.importorskip("phasewake.core.readers.tables")
+    # K and T written with N_dof = 300 (T = 2K / (N_dof k_B), CODATA 2018 k_B): the audit recovers 300
+    rng = np.random.default_rng(9)
+    n = 400
+    t = np.arange(n) * 0.01
+    k = 374.0 + rng.normal(0, 5, n)
+    temp = 2 * k / (300 * KB)
+    tot = -1000 + rng.normal(0, 0.01, n)
+    rows = "\n".join(f"{a:.4f},{b:.6f},{c:.6f},{d:.6f}" for a, b, c, d in zip(t, k, temp, tot))
+    csv = tmp_path / "e.csv"
+    csv.write_text("time (ps),kinetic energy (kJ/mol),temperature (K),total energy (kJ/mol)\n" + rows + "\n")
+    code = main(["audit", str(csv), "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 0
+    assert any("N_dof = 300" in n for n in data["notes"])
+    assert data["energy"]["drift"]["slope_kT_per_dof_per_ns"] is not None
