@@ -71,6 +71,14 @@ def role_for(name: str) -> str:
     return _ROLE_NAMES.get(key, "other")
 
 
+def _delimiter(line: str) -> str | None:
+    """Comma, tab or semicolon when the line has one (in that order); else None (whitespace)."""
+    for d in (",", "\t", ";"):
+        if d in line:
+            return d
+    return None
+
+
 def _split(line: str, delim: str | None) -> list[str]:
     parts = line.split(delim) if delim else line.split()
     return [p.strip().strip("\"'").strip() for p in parts]
@@ -130,7 +138,7 @@ def read_table(
     line_no, first = content[first_data]
     delim: str | None
     probe = first
-    first_fields = _split(first, "," if "," in first else ("\t" if "\t" in first else None))
+    first_fields = _split(first, _delimiter(first))
     if any(not _is_number(f) for f in first_fields if f):
         header_line_no, header = line_no, first
         data = content[first_data + 1 :]
@@ -142,7 +150,7 @@ def read_table(
         header = header.lstrip()[1:]
         data = content[first_data:]
         probe = header
-    delim = "," if "," in probe else ("\t" if "\t" in probe else None)
+    delim = _delimiter(probe)
     names = _header_fields(header, delim)
     if delim is None and "," in first:
         delim = ","

@@ -131,3 +131,8 @@ def test_gaps_are_warned_with_lines(tmp_path):
     p = _write(tmp_path / "g.csv", "time (ps),potential (kJ/mol)\n0,1\n1,1\n2,1\n5,1\n6,1\n")
     _, warnings = read_table(p)
     assert any("1 gap(s)" in w and "line 4" in w and "line 5" in w for w in warnings)
+
+
+def test_semicolon_separated(tmp_path):
+    p = _write(tmp_path / "e.csv", "; exported table\ntime (ps);kinetic energy (kJ/mol)\n0;1.5\n1;2.5\n")
+    assert read_table(p)[0].by_role("kinetic").values.tolist() == [1.5, 2.5]
