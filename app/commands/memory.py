@@ -23,6 +23,8 @@ Series analysis (``--series`` for a column of the energy table, by name or role 
 * the start of equilibrated data (Chodera 2016);
 * rank-normalised split R-hat over ``--segments`` contiguous segments (Vehtari et al. 2021), and the
   half-against-half Jensen-Shannon divergence against its null level for the effective sample size;
+* the running average with its g-corrected error band (JSON); for a coordinate with a momentum, the
+  fraction of a fixed (q, p) grid visited over time (still rising at the end: still exploring);
 * with ``--replica`` (repeat for each further replica; each takes that replica's files): R-hat
   across the run and its replicas for the same series.
 
@@ -176,7 +178,9 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
                                    "coordinates")
         for c in series:
             out.append({"name": c.label, "unit": c.unit, "values": np.asarray(c.values, float),
-                        "time_ps": np.asarray(c.time_ps, float), "source": c.spec, "kind": "coordinate"})
+                        "time_ps": np.asarray(c.time_ps, float), "source": c.spec, "kind": "coordinate",
+                        "momentum": None if c.momentum is None else np.asarray(c.momentum, float),
+                        "momentum_unit": c.momentum_unit})
     return out
 
 
@@ -222,6 +226,11 @@ def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[
         verdict_list.append(S.judge_rhat(rh, name=f"{item['name']} ({seg} segments)"))
     if div is not None:
         verdict_list.append(S.judge_divergence(div, name=item["name"]))
+    running = S.running_average(x, dt_ps=dt, g=res.statistical_inefficiency, unit=item["unit"])
+    coverage = None
+    mom = item.get("momentum")
+    if mom is not None and mom.shape == x.shape and np.all(np.isfinite(mom)) and np.ptp(mom) > 0:
+        coverage = S.coverage_over_time(x, mom, dt_ps=dt, bins=args.bins)
     rep = None
     if replicas:
         rep = _replica_rhat(item, x, replicas, args)
@@ -231,6 +240,7 @@ def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[
         "name": item["name"], "kind": item["kind"], "source": item["source"], "unit": item["unit"],
         "correlation": res, "g_by_method": g_all, "blocking": block, "equilibration": equil,
         "rhat_segments": rh, "divergence": div, "rhat_replicas": rep, "verdicts": verdict_list,
+        "running": running, "coverage": coverage, "momentum_unit": item.get("momentum_unit", ""),
     }
 
 
@@ -337,6 +347,14 @@ def _series_json(a: dict[str, Any]) -> dict[str, Any]:
         d["half_divergence"] = {"jsd_nats": dv.half_jsd_nats, "null_nats": dv.half_null_nats,
                                 "ratio_to_null": float(dv.ratio[0, 1]), "bins": int(dv.histograms.shape[1]),
                                 "n_eff_per_half": dv.n_eff_per_segment}
+    ra = a["running"]
+    d["running_average"] = {"time_ps": ra.time_ps, "mean": ra.mean, "sem": ra.sem, "unit": ra.unit,
+                            "g": ra.statistical_inefficiency}
+    cov = a["coverage"]
+    if cov is not None:
+        d["phase_space_coverage"] = {"time_ps": cov.time_ps, "fraction": cov.fraction,
+                                     "grid": f"{cov.visits.shape[0]} x {cov.visits.shape[1]} cells, mean +- 4 sd",
+                                     "axes": [a["unit"], a["momentum_unit"]]}
     d["verdicts"] = [v.to_dict() for v in a["verdicts"]]
     return d
 
@@ -411,6 +429,11 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         if dv is not None:
             w(f"    half against half: Jensen-Shannon {dv.half_jsd_nats:.3g} nats, {dv.ratio[0, 1]:.2g}x the noise "
               f"level {dv.half_null_nats:.3g}\n")
+        cov = a["coverage"]
+        if cov is not None:
+            half = cov.fraction[np.searchsorted(cov.time_ps, cov.time_ps[-1] / 2)]
+            w(f"    phase-space coverage (q, p) of a {cov.visits.shape[0]} x {cov.visits.shape[1]} grid: "
+              f"{100 * half:.1f}% of cells by half time, {100 * cov.fraction[-1]:.1f}% at the end\n")
         rr = a["rhat_replicas"]
         if rr is not None:
             w(f"    R-hat across {rr.n_chains} replicas {rr.rhat:.4f}\n")

@@ -150,6 +150,10 @@ def test_coordinate_and_groups(files, capsys):
     assert rc in (0, 1)
     s = out["series"][0]
     assert s["kind"] == "coordinate" and s["unit"] == "nm" and s["n_samples"] == 5000
+    cov = s["phase_space_coverage"]["fraction"]
+    assert 0 < cov[0] <= cov[-1] <= 1 and np.all(np.diff(cov) >= 0)  # visited cells only accumulate
+    ra = s["running_average"]
+    assert ra["mean"][-1] == pytest.approx(s["mean"]) and ra["unit"] == "nm"
     rc = main(["memory", str(files["run"]), "--vacf", "--group", "0-4", "--group", "[5, 6, 7, 8, 9]",
                "--max-lag", "2", "--json"])
     out = _json(capsys)
