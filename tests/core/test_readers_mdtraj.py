@@ -298,3 +298,29 @@ def test_dcd_header_clock(tmp_path, files):
     expected = (500 + 25 * np.arange(N_FRAMES)) * 2e-3  # ps
     np.testing.assert_allclose(run.time_ps, expected, rtol=1e-5)
     assert not any("holds no time axis" in w for w in run.warnings)
+
+
+def test_quiet_stdout_restored_after_concurrent_reads(files, capfd):
+    # the window reads frames in worker threads: the process-wide stdout swap must nest and restore
+    import os
+    import threading
+
+    run = open_run([files["dcd"], files["pdb"]])
+    errors_seen = []
+
+    def work():
+        try:
+            for _ in range(3):
+                _all_positions(run)
+        except Exception as exc:  # noqa: BLE001 - collected for the assertion below
+            errors_seen.append(exc)
+
+    threads = [threading.Thread(target=work) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert not errors_seen
+    capfd.readouterr()
+    os.write(1, b"still here\n")
+    assert capfd.readouterr().out == "still here\n"
