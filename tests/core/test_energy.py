@@ -350,3 +350,23 @@ def test_windowed_g_for_long_series_matches_ar1():
     y = _ar1(rng, 1, 1 << 18, 0.999)[0]
     _, method_y = en.statistical_inefficiency_of(y, window_above=1 << 16, n_windows=4, window=1 << 15)
     assert "stretches" not in method_y
+
+
+def test_audit_compares_velocity_temperature_with_file_when_no_kinetic_column():
+    # The file holds only total energy and a temperature written with 3N - 3 degrees of freedom; the
+    # audit computes K = sum m v^2 / 2 from the velocities (frames matched to rows by time) and finds
+    # the N_dof the file used (3N - 3 = 189 for 64 atoms), as the definition T = 2K/(N_dof k_B) implies.
+    from phasewake.core.audit import audit_run
+    from phasewake.core.readers.memory import run_from_arrays
+
+    t, X, V, kin, pot, _ = harmonic_traps(n_atoms=64, n_steps=2000, every=2, w=50.0, seed=3)
+    table = EnergyTable(time_ps=t[::2], series={
+        "total": Series("total", (kin + pot)[::2], "kJ/mol", "total"),
+        "temperature": Series("temperature", (2 * kin / (189 * 0.00831446261815324))[::2], "K", "temperature")})
+    md = RunMetadata(timestep_ps=0.002, ensemble="NVE", com_motion_removed=False, n_constraints=0)
+    run = run_from_arrays(X, t, np.full(64, 12.0), velocities_nm_per_ps=V, energies=table, metadata=md)
+    res = drive(audit_run(run))
+    assert res.temperature.kinetic_source.startswith("velocities")
+    assert res.temperature.implied_file_dof == pytest.approx(189, rel=1e-6)
+    assert res.energy.kinetic_source.startswith("velocities")  # sigma_K from velocities on matched rows
+    assert res.energy.fluctuations.ratio is not None
