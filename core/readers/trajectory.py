@@ -200,20 +200,24 @@ def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
     return (istart + np.arange(n_frames) * nsavc) * float(delta) * _AKMA_PS
 
 
-def _xdr_times(path: Path, offsets: np.ndarray, kind: str) -> tuple[np.ndarray, np.ndarray]:
-    """(time_ps, step) of each XTC/TRR frame from its header at ``offsets``."""
+def _xdr_times(path: Path, offsets: np.ndarray, kind: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(time_ps, step, has_velocities) of each XTC/TRR frame from its header at ``offsets``.
+
+    One pass over the headers (a seek and a few bytes a frame); XTC frames never hold velocities.
+    """
     times = np.empty(offsets.size)
     steps = np.empty(offsets.size, dtype=np.int64)
+    has_v = np.zeros(offsets.size, dtype=bool)
     with open(path, "rb") as f:
         for i, off in enumerate(offsets):
             f.seek(int(off))
             if kind == ".xtc":
-                magic, _natoms, step, t = struct.unpack(">iiif", f.read(16))
+                _magic, _natoms, step, t = struct.unpack(">iiif", f.read(16))
                 times[i], steps[i] = t, step
             else:
                 h = _trr_header(f, path)
-                times[i], steps[i] = h["time"], h["step"]
-    return times, steps
+                times[i], steps[i], has_v[i] = h["time"], h["step"], h["v"] > 0
+    return times, steps, has_v
 
 
 def _trr_header(f: Any, path: Path) -> dict[str, Any]:
@@ -382,10 +386,9 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
             n = len(f)
             offsets = np.asarray(f.offsets, dtype=np.int64)
         _check_xdr_complete(path, offsets, suf)
-        t_xdr, step = _xdr_times(path, offsets, suf)
+        t_xdr, step, has_v = _xdr_times(path, offsets, suf)
         info["step"] = step
         if suf == ".trr":
-            has_v = trr_velocity_frames(path, offsets)
             info["trr_velocity_frames"] = int(has_v.sum())
             if has_v.all():
                 info["velocity_kind"] = "trr"
