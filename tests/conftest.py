@@ -40,3 +40,34 @@ def openmm_water_1fs(tmp_path_factory):
 @pytest.fixture(scope="session")
 def openmm_water_4fs(tmp_path_factory):
     return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=4.0, n_steps=150, report_every=2)
+
+
+# --- inputs are never written (issue 10) ------------------------------------------------------------
+# Every sample file's sha256 is taken when the test session starts and checked when it ends: a full
+# run of every command over the sample data must leave them byte for byte unchanged.
+import hashlib  # noqa: E402
+from pathlib import Path as _Path  # noqa: E402
+
+_SAMPLES = _Path(__file__).resolve().parents[1] / "sample_data"
+_SAMPLE_HASHES: dict[str, str] = {}
+
+
+def _sample_hashes() -> dict[str, str]:
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(_SAMPLES.iterdir()) if p.is_file() and p.suffix in (".h5md", ".dcd", ".pdb", ".csv")}
+
+
+def pytest_sessionstart(session):
+    _SAMPLE_HASHES.update(_sample_hashes())
+
+
+def pytest_sessionfinish(session, exitstatus):
+    if not _SAMPLE_HASHES:
+        return
+    now = _sample_hashes()
+    changed = sorted(k for k in _SAMPLE_HASHES if now.get(k) != _SAMPLE_HASHES[k])
+    if changed:
+        import sys
+
+        sys.stderr.write(f"\nERROR: the test run modified sample inputs: {', '.join(changed)}\n")
+        session.exitstatus = 1
