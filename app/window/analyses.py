@@ -388,7 +388,8 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                 key="phase.density", title=f"Phase-space density of {s.label or s.spec}",
                 caption=f"Histogram of ({s.spec}, p) over the window, {h.n_samples} frames; empty cells blank.",
                 plots=(PlotSpec(title=f"Phase-space density of {s.label or s.spec}", x=xa, y=ya, legend=False,
-                                items=(Image(dens, h.x_edges, h.y_edges, colorbar_label="density"),)),)))
+                                items=(Image(dens, h.x_edges, h.y_edges,
+                                             colorbar_label=f"density (1/({s.unit} \u00b7 {pu}))"),)),)))
     figs.append(FigureSpec(key="phase.series", title=f"{s.label or s.spec} against time", plots=(
         PlotSpec(title=f"{s.label or s.spec} against time", x=Axis("Time", "ps"), y=xa, x_is_time=True,
                  legend=False, items=(Line(np.asarray(s.time_ps, float), q, label=s.spec),)),),
@@ -429,7 +430,8 @@ def _pca_figures(pca: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
                                  label="pc(1)", caption="Projection on the first principal component against its "
                                                         "momentum (mass-weighted velocities projected)."))
             traces["phase.pc1"] = Trace(t, q1, p1)
-        if pca.projections.shape[1] >= 2:
+        # a second component with no variance (a diatomic after superposition) is not worth a plot
+        if pca.projections.shape[1] >= 2 and ev.size >= 2 and ev[1] > 1e-4:
             q2 = np.asarray(pca.projections[:, 1], float)
             out.append(_portrait(q1, q2, key="phase.pc12", title="Principal components 1 and 2",
                                  xa=Axis("PC 1", pca.projection_unit), ya=Axis("PC 2", pca.projection_unit),

@@ -101,6 +101,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self.model.timeWindowChanged.connect(self.schedule_recompute)
         self.model.coordinateChanged.connect(lambda _: self.schedule_recompute())
         self.model.choicesChanged.connect(self._choice_changed)
+        self.model.runsChanged.connect(self._runs_changed)
         self.jobs.finished.connect(self._job_finished)
         self.jobs.progressed.connect(self._job_progress)
         self.jobs.started.connect(self._job_started)
@@ -324,6 +325,11 @@ class MainWindow(QtWidgets.QMainWindow):
         except PhasewakeError:
             return ""
         return specs[0] if specs else ""
+
+    def _runs_changed(self) -> None:
+        # the Sampling panel compares the current run with the others (R-hat across replicas)
+        if self.model.current is not None and self._computed_for is self.model.current.run:
+            self.schedule_recompute(("Sampling",))
 
     # ---- computing ----------------------------------------------------------------------------
     def _choice_changed(self, key: str) -> None:

@@ -127,7 +127,7 @@ class RunsList(QtWidgets.QWidget):
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.list, 1)
         lay.addLayout(buttons)
-        lay.addWidget(self.details, 2)
+        lay.addWidget(self.details, 3)
         lay.addWidget(self.settings)
         model.runsChanged.connect(self.refresh)
         model.currentRunChanged.connect(self._current_changed)

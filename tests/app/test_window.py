@@ -330,6 +330,9 @@ def test_runs_list_settings_remove_and_drop(win, qtbot, sample_path):
     runs.dropEvent(drop)
     assert w.wait_idle(60_000)
     assert len(w.model.entries) == 2 and runs.list.count() == 2
+    # the Sampling panel now compares the current run with the other one (R-hat across runs)
+    titles = [v.title for v in w.panels["Sampling"].result.verdicts]
+    assert any("across 2 runs" in t for t in titles), titles
     runs.list.setCurrentRow(1)
     runs.remove_selected()
     assert len(w.model.entries) == 1 and w.model.current is not None
