@@ -187,3 +187,36 @@ def test_yeh_hummer_values(eta, box, expected):
     # check values from REFERENCES 4.4 (computed there from the published formula, 298.15 K)
     d = V.yeh_hummer_correction_nm2_per_ps(temperature_K=298.15, viscosity_mPa_s=eta, box_edge_nm=box)
     assert d * 1e-6 == pytest.approx(expected, rel=3e-3)  # nm^2/ps -> m^2/s
+
+
+# --- real OpenMM output: free particles under OpenMM's Langevin integrator ---
+
+@pytest.mark.slow
+def test_openmm_langevin_free_particles_diffusion():
+    import openmm
+    from openmm import unit as u
+
+    n, mass, gamma, temp = 500, 12.0, 3.0, 300.0
+    system = openmm.System()
+    for _ in range(n):
+        system.addParticle(mass)
+    system.addForce(openmm.CustomExternalForce("0"))  # no forces: free particles
+    dt = 0.02  # ps; free particles: the integrator's O step is an exact Ornstein-Uhlenbeck update
+    integ = openmm.LangevinMiddleIntegrator(temp * u.kelvin, gamma / u.picosecond, dt * u.picoseconds)
+    integ.setRandomNumberSeed(7)
+    ctx = openmm.Context(system, integ, openmm.Platform.getPlatformByName("Reference"))
+    ctx.setPositions(np.zeros((n, 3)) * u.nanometer)
+    ctx.setVelocitiesToTemperature(temp * u.kelvin, 11)
+    integ.step(500)
+    every, frames = 10, 2000
+    vel = np.empty((frames, n, 3), np.float32)
+    for i in range(frames):
+        integ.step(every)
+        vel[i] = ctx.getState(getVelocities=True).getVelocities(asNumpy=True).value_in_unit(u.nanometer / u.picosecond)
+    r = V.vacf_from_velocities(vel, every * dt, max_lag=200)
+    kT = 0.00831446261815324 * temp
+    t = r.lag_ps[:17]
+    # OU velocity autocorrelation 3 (kT/m) exp(-gamma t) and Einstein D = kT/(m gamma)
+    np.testing.assert_allclose(r.vacf[0][:17], 3 * kT / mass * np.exp(-gamma * t), rtol=0.05, atol=0.01)
+    gk = V.green_kubo(r)
+    assert gk.diffusion_nm2_per_ps == pytest.approx(kT / (mass * gamma), rel=0.02)  # issue 5: within 2%
