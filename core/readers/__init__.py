@@ -251,8 +251,17 @@ def open_run(
         from phasewake.core.readers.common import EstimatedVelocityFrames, frame_spacing_warning
 
         run.frames = EstimatedVelocityFrames(run.frames, run.time_ps)
-        warnings.append(frame_spacing_warning(run.frames.inner, run.time_ps, run.masses_amu,
-                                              temperature_K=run.metadata.temperature_K))
+        temp = run.metadata.temperature_K
+        if temp is None and run.energies is not None and run.energies.by_role("temperature") is not None:
+            tser = run.energies.by_role("temperature")
+            temp = float(np.nanmean(tser.values)) if tser is not None and tser.values.size else None
+        if run.metadata.extra.get("time_from") == "frame index":
+            warnings.append("velocities are estimated by central differences of positions, but the files "
+                            "hold no time axis: they are per frame, not per ps, until times are given "
+                            "(an energy table with one row per frame, or a trajectory format with times)")
+        else:
+            warnings.append(frame_spacing_warning(run.frames.inner, run.time_ps, run.masses_amu,
+                                                  temperature_K=temp))
         run.metadata.sources["velocities"] = "estimated by central differences of positions"
 
     run.paths = tuple(dict.fromkeys(all_paths))

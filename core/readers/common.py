@@ -275,7 +275,7 @@ def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: 
 
     Compares the largest per-atom displacement between neighbouring frames (from up to
     ``sample_frames`` frames at the start) with the typical thermal speed sqrt(k_B T / m) of the
-    lightest atom (Maxwell-Boltzmann, one component; T = ``temperature_K`` or 300 K).
+    lightest atom (Maxwell-Boltzmann, one velocity component; T = ``temperature_K``, else 300 K, said so).
     """
     from phasewake.core.units import KB_KJ_PER_MOL_K
 
@@ -292,7 +292,8 @@ def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: 
         if disp.size:
             max_disp = max(max_disp, float(np.max(np.linalg.norm(disp, axis=-1))))
         break
-    temp = 300.0 if temperature_K is None else float(temperature_K)
+    temp = 300.0 if temperature_K is None or not np.isfinite(temperature_K) else float(temperature_K)
+    temp_text = f"{temp:g} K" + (" (assumed; the temperature is not known)" if temperature_K is None else "")
     m = masses_amu[np.isfinite(masses_amu) & (masses_amu > 0)] if masses_amu.size else masses_amu
     text = (f"velocities are estimated by central differences of positions {spacing:g} ps apart, "
             f"not stored in the files. The largest displacement of an atom between frames is "
@@ -300,8 +301,10 @@ def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: 
     if m.size:
         v_th = float(np.sqrt(KB_KJ_PER_MOL_K * temp / np.min(m)))  # nm/ps, one component
         travel = v_th * spacing
-        text += (f"; the lightest atom's thermal speed sqrt(kT/m) at {temp:g} K is {v_th:.3g} nm/ps, "
+        text += (f"; the lightest atom's thermal speed sqrt(kT/m) at {temp_text} is {v_th:.3g} nm/ps, "
                  f"i.e. {travel:.3g} nm per frame spacing")
+        # rule of thumb (common practice, no published source): a difference quotient follows the motion
+        # when an atom moves well under a bond length (~0.1 nm) between frames; 0.02 nm is our line
         if travel > 0.02:
             text += (". Frames are far apart compared with atomic motion: the estimated velocities "
                      "are smoothed and underestimate kinetic energy and temperature")

@@ -65,6 +65,8 @@ def test_dcd_pdb_csv_equals_openmm(openmm_water_1fs):
     # no velocities in DCD: estimated by central differences, and said so
     assert run.frames.velocities_estimated
     assert any("estimated by central differences" in w for w in run.warnings)
+    # the spacing warning uses the run's own temperature (the table's mean), not an assumed one
+    assert any(f"{np.mean(ref.temperature_K):g} K" in w for w in run.warnings)
     # the estimate follows OpenMM's velocities for the heavy atoms (8 fs spacing is short against their
     # motion; the fast hydrogens are smoothed): correlation check, a loose sanity bound (common practice)
     oxygen = np.array([a.element.symbol == "O" for a in run.topology.atoms])
