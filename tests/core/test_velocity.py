@@ -207,8 +207,8 @@ def test_openmm_langevin_free_particles_diffusion():
     ctx = openmm.Context(system, integ, openmm.Platform.getPlatformByName("Reference"))
     ctx.setPositions(np.zeros((n, 3)) * u.nanometer)
     ctx.setVelocitiesToTemperature(temp * u.kelvin, 11)
-    integ.step(500)
-    every, frames = 10, 2000
+    integ.step(100)
+    every, frames = 1, 4000
     vel = np.empty((frames, n, 3), np.float32)
     for i in range(frames):
         integ.step(every)
