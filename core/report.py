@@ -56,7 +56,8 @@ PAGE_CM = (29.7, 21.0)
 CM_PER_INCH = 2.54
 _BODY = Preset("report", 27.0, 12.5, 10.0, 9.0, 11.0, 1.0, fixed_height=True,
                description="A4 landscape report page body")
-_CAPTION_CHARS = 150  # characters per caption line at 9.5 pt across the page width
+_CAPTION_CHARS = 135  # characters per caption line at 9.5 pt across the page width (0.6 em each)
+_TEXT_CHARS = 140  # the same for 9 pt text above a table
 
 SECTION_ORDER = ("summary", "energy", "temperature", "timestep", "coordinate", "correlation", "sampling",
                  "crossings")
@@ -376,7 +377,9 @@ def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mappi
     if run.warnings:
         lines.append("Reader warnings: " + " ".join(run.warnings))
     if audit is not None and audit.notes:
-        lines.append("Audit notes: " + " ".join(audit.notes))
+        notes = [n for n in audit.notes if not any(w in n or n in w for w in run.warnings)]
+        if notes:
+            lines.append("Audit notes: " + " ".join(notes))
     rows = plots.verdict_rows(verdicts)
     table = [("Verdict", "Check", "Measured", "Threshold (source)", "What was measured; what to do")]
     levels = []
@@ -476,7 +479,7 @@ def _paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
             out.append(p)
             continue
         header, rows = p.table[0], list(p.table[1:])
-        budget = 40 - (len(_wrap(p.text, 170)) if p.text else 0)
+        budget = 40 - (len(_wrap(p.text, _TEXT_CHARS)) if p.text else 0)
         chunk: list[tuple[str, ...]] = []
         lv: list[str] = []
         used = 0
@@ -498,12 +501,13 @@ def _paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
 
 
 def _widths(ncols: int) -> list[int]:
-    """Characters per column line (about 178 characters fit across the page at 8 pt, 142 at 10 pt)."""
+    """Characters per column line: the page body is 785 pt wide and a DejaVu Sans character is about
+    0.6 em, so about 160 characters fit at 8 pt and 130 at 10 pt; the rest is the gap between columns."""
     if ncols == 5:
-        return [9, 28, 16, 33, 92]
+        return [8, 25, 14, 29, 88]
     if ncols == 2:
-        return [30, 112]
-    return [178 // max(1, ncols)] * ncols
+        return [28, 96]
+    return [150 // max(1, ncols)] * ncols
 
 
 def _row_font(ncols: int) -> float:
@@ -549,11 +553,11 @@ def _page_figure(page: ReportPage, *, run_name: str, number: int, n_total: int) 
     fig.text(0.965, 0.025, folio, fontsize=7.5, va="bottom", ha="right", color="#444444")
     top = 0.9
     if not page.table:
-        fig.text(0.035, top, "\n".join(_wrap(page.text, 140)), fontsize=12, va="top")
+        fig.text(0.035, top, "\n".join(_wrap(page.text, 105)), fontsize=12, va="top")
         return fig
     y = top
     if page.text:
-        lines = _wrap(page.text, 170)
+        lines = _wrap(page.text, _TEXT_CHARS)
         fig.text(0.035, y, "\n".join(lines), fontsize=9, va="top", linespacing=1.3)
         y -= (len(lines) + 1) * 9 * 1.3 / 72 / h
     _draw_table(fig, page, y, h)
