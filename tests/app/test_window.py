@@ -90,6 +90,17 @@ def win(opened):
     return opened
 
 
+def _idle_ticks(qtbot, ms: int) -> int:
+    """Ticks of a 20 ms timer in ``ms`` with nothing running: the same-run baseline (a shared machine)."""
+    ticks = []
+    timer = QtCore.QTimer()
+    timer.timeout.connect(lambda: ticks.append(1))
+    timer.start(20)
+    qtbot.wait(ms)
+    timer.stop()
+    return len(ticks)
+
+
 def _drawn_points(panel) -> int:
     n = 0
     for rp in panel.view.plots:
@@ -197,6 +208,7 @@ def test_long_computation_keeps_window_responsive_and_cancels(win, qtbot, monkey
         return analyses.PanelResult(message="finished")
 
     monkeypatch.setitem(analyses.PANEL_JOBS, "Correlation", slow)
+    baseline = _idle_ticks(qtbot, 400)
     ticks = []
     timer = QtCore.QTimer()
     timer.timeout.connect(lambda: ticks.append(1))
@@ -210,7 +222,8 @@ def test_long_computation_keeps_window_responsive_and_cancels(win, qtbot, monkey
     assert w.jobs.wait_all(3000)
     qtbot.wait(50)
     timer.stop()
-    assert len(ticks) >= 10  # the GUI thread kept ticking every 20 ms while the job ran
+    # the GUI thread kept ticking while the job ran (a frozen loop would tick 0-1 times)
+    assert len(ticks) >= max(3, 0.5 * baseline), (len(ticks), baseline)
     assert time.monotonic() - t0 < 2.0
     panel = w.panels["Correlation"]
     assert "cancelled" in panel.view.message.text() or "cancelled" in panel.notes_text()
@@ -228,8 +241,10 @@ def test_bad_file_shows_a_message_and_window_stays_usable(qtbot, tmp_path, sampl
     assert w.model.entries == []
     w.message_box.close()
     w.open_paths([str(sample_path)])  # still works afterwards
-    assert w.wait_idle(60_000)
-    assert len(w.model.entries) == 1 and w.panels["Energy"].view.spec is not None
+    qtbot.waitUntil(lambda: w.panels["Energy"].view.spec is not None, timeout=60_000)
+    assert len(w.model.entries) == 1
+    w.cancel_work()
+    assert w.jobs.wait_all(20_000)
 
 
 def test_analysis_error_is_shown_in_its_panel(win, monkeypatch):
@@ -260,7 +275,9 @@ def test_save_then_reopen_reproduces_the_state(win, qtbot, tmp_path):
     assert path.exists()
     w2 = _window(qtbot, tmp_path)
     w2.load_session(path)
-    assert w2.wait_idle(60_000)
+    # the state is restored once the runs are open; the panels then compute in the background
+    qtbot.waitUntil(lambda: w2.model.current is not None and w2.model.cursor_frame == 42, timeout=60_000)
+    w2.cancel_work()
     assert [e.paths for e in w2.model.entries] == [tuple(str(Path(p).resolve()) for p in w.model.entries[0].paths)]
     assert w2.model.time_window_ps == pytest.approx(w.model.time_window_ps)
     assert w2.model.cursor_frame == 42
