@@ -700,11 +700,23 @@ def equilibration_work(
     n_candidates: int = 200,
     max_fraction: float = 0.75,
     max_lag: int | None = None,
+    max_points: int = 100_000,
 ) -> Work[EquilibrationResult]:
     """Generator form of :func:`detect_equilibration` (yields Progress, returns the result)."""
-    a, _ = _as_float_array(x, 0)
-    if a.ndim != 1:
+    a0, _ = _as_float_array(x, 0)
+    if a0.ndim != 1:
         raise AnalysisError("equilibration detection takes one 1D series")
+    n_orig = a0.size
+    # Long series: scan block means of s samples. Averaging s neighbours keeps the effective sample size
+    # (g of the means ~ g/s while s << g) and bounds the cost; t0 is then known to s samples.
+    s_blk = int(max(1, -(-n_orig // max_points)))
+    if s_blk > 1:
+        m_blk = n_orig // s_blk
+        a = a0[: m_blk * s_blk].reshape(m_blk, s_blk).mean(axis=1)
+        if max_lag is not None:
+            max_lag = max(1, max_lag // s_blk)
+    else:
+        a = a0
     n = a.size
     last = int(max(1, min(n - MIN_SAMPLES, max_fraction * n)))
     n_c = int(max(2, min(n_candidates, last + 1)))
@@ -723,18 +735,18 @@ def equilibration_work(
         if i % 10 == 0:
             yield Progress(i + 1, cands.size, "equilibration scan")
     best = int(np.argmax(ess))
-    t0 = int(cands[best])
+    t0 = int(cands[best]) * s_blk
     return EquilibrationResult(
         t0_index=t0,
         t0_ps=t0 * float(dt_ps),
-        statistical_inefficiency=float(gs[best]),
+        statistical_inefficiency=float((n_orig - t0) / ess[best]) if ess[best] > 0 else float("inf"),
         effective_sample_size=float(ess[best]),
-        fraction_discarded=t0 / n,
-        candidates_index=cands,
+        fraction_discarded=t0 / n_orig,
+        candidates_index=cands * s_blk,
         candidates_ess=ess,
         method=method,
         settings={"method": method, "n_candidates": n_candidates, "max_fraction": max_fraction,
-                  "max_lag": max_lag, "dt_ps": dt_ps},
+                  "max_lag": max_lag, "dt_ps": dt_ps, "max_points": max_points, "block_of_samples": s_blk},
     )
 
 
@@ -746,6 +758,7 @@ def detect_equilibration(
     n_candidates: int = 200,
     max_fraction: float = 0.75,
     max_lag: int | None = None,
+    max_points: int = 100_000,
 ) -> EquilibrationResult:
     """Chodera (2016) automated equilibration detection.
 
@@ -762,13 +775,17 @@ def detect_equilibration(
         Latest candidate start as a fraction of the series.
     max_lag : int, optional
         Largest lag for each g (speeds up long series).
+    max_points : int
+        Longer series are scanned as block means of ceil(N / max_points) samples (the effective sample
+        size is kept while the block is short compared with g; t0 is then resolved to one block).
 
     Returns
     -------
     EquilibrationResult
+        ``statistical_inefficiency`` is g of x[t0:] in samples of the input.
     """
     return result_of(equilibration_work(x, dt_ps=dt_ps, method=method, n_candidates=n_candidates,
-                                        max_fraction=max_fraction, max_lag=max_lag))
+                                        max_fraction=max_fraction, max_lag=max_lag, max_points=max_points))
 
 
 def judge_equilibration(result: EquilibrationResult, *, name: str = "series") -> verdicts.Verdict:

@@ -163,6 +163,16 @@ def test_equilibration_after_transient():
     assert v.level == "ok" and v.kind == "sampling.equilibration"
 
 
+def test_equilibration_of_long_series_by_block_means():
+    n = 1_000_000
+    x = ar1(0.99, n, seed=18) + 20.0 * np.exp(-np.arange(n) / 2000.0)  # g = 199, transient ~ 2000 x ln(20/7)
+    e = C.detect_equilibration(x, n_candidates=100)
+    assert e.settings["block_of_samples"] == 10
+    assert 2_000 <= e.t0_index <= 30_000  # after the transient, before ~3% of the run (common practice)
+    # the effective sample size is that of the plain series: N/g with g = (1 + phi)/(1 - phi) = 199 (AR(1))
+    assert e.effective_sample_size == pytest.approx((n - e.t0_index) / 199.0, rel=0.25)
+
+
 def test_errors_are_typed():
     with pytest.raises(TooShortError):
         C.statistical_inefficiency([1.0, 2.0])
