@@ -575,16 +575,21 @@ def audit_run(
             good &= np.isfinite(kin)
             ksrc_e = f"file column '{conserved.kinetic_column}'"
         drift = fl = None
-        if good.sum() >= 3:
-            drift = en.drift_fit(t[good], e[good], n_atoms=run.n_atoms or None, n_dof=dof_for_drift or None,
+        n_good = int(good.sum())
+        if n_good == good.size:  # no copies of long series in the usual case
+            tg, eg, kg = t, e, kin
+        else:
+            tg, eg, kg = t[good], e[good], None if kin is None else kin[good]
+        if n_good >= 3:
+            drift = en.drift_fit(tg, eg, n_atoms=run.n_atoms or None, n_dof=dof_for_drift or None,
                                  temperature_K=kT_ref)
-            kin_used = None if kin is None else kin[good]
+            kin_used = kg
             if kin_used is None and fp is not None:
-                fi, ti = _align(fp.time_ps, t[good])
-                if fi.size == int(good.sum()):
+                fi, ti = _align(fp.time_ps, tg)
+                if fi.size == n_good:
                     kin_used = fp.kinetic[fi[np.argsort(ti)]]
                     ksrc_e = "velocities (frames matched to energy rows by time)"
-            fl = en.energy_fluctuations(t[good], e[good], kin_used)
+            fl = en.energy_fluctuations(tg, eg, kin_used)
         eaudit = EnergyAudit(series_label=conserved.label, series_columns=conserved.columns,
                              expected_conserved=conserved.expected_conserved, reason=conserved.reason,
                              kinetic_source=ksrc_e, drift=drift, fluctuations=fl, events=events,

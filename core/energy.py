@@ -14,6 +14,7 @@ heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -186,8 +187,28 @@ def _g_full(x: np.ndarray) -> tuple[float, str]:
     return max(1.0, g), "phasewake.core.correlation.statistical_inefficiency (Sokal window)"
 
 
-def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = 1 << 21, n_windows: int = 4,
-                                window: int = 1 << 19) -> tuple[float, str]:
+WINDOW_ABOVE = 1 << 21  # series longer than this get g from evenly spaced stretches
+N_WINDOWS = 4
+WINDOW = 1 << 19
+
+
+def _windowed_g(piece: Callable[[int, int], np.ndarray], n: int, *, n_windows: int,
+                window: int) -> tuple[float, str] | None:
+    """Mean g over evenly spaced stretches; None when g is too large for them (50 g > window)."""
+    starts = np.linspace(0, n - window, n_windows).astype(np.int64)
+    gs = []
+    method = ""
+    for s0 in starts:
+        g_i, method = _g_full(piece(int(s0), int(s0) + window))
+        gs.append(g_i)
+    g = float(np.mean(gs))
+    if 50.0 * g <= window:
+        return g, f"{method}, mean over {n_windows} stretches of {window} samples"
+    return None
+
+
+def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABOVE, n_windows: int = N_WINDOWS,
+                                window: int = WINDOW) -> tuple[float, str]:
     """Statistical inefficiency g (>= 1) of a series and the name of the estimator used.
 
     Uses ``phasewake.core.correlation.statistical_inefficiency`` when that module exists, else a
@@ -210,15 +231,9 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = 1 << 21, n
     if n < 4 or not float(np.ptp(arr)) > 0.0:
         return 1.0, "constant or very short series (g = 1)"
     if n > window_above:
-        starts = np.linspace(0, n - window, n_windows).astype(np.int64)
-        gs = []
-        method = ""
-        for s0 in starts:
-            g_i, method = _g_full(arr[s0:s0 + window])
-            gs.append(g_i)
-        g = float(np.mean(gs))
-        if 50.0 * g <= window:
-            return g, f"{method}, mean over {n_windows} stretches of {window} samples"
+        got = _windowed_g(lambda a, b: arr[a:b], n, n_windows=n_windows, window=window)
+        if got is not None:
+            return got
     return _g_full(arr)
 
 
@@ -372,16 +387,17 @@ def drift_fit(
     n = int(e.shape[0])
     if n < 3:
         raise TooShortError("an energy drift fit", have=n, need=3)
-    tc = t - t.mean()
-    sxx = float(np.dot(tc, tc))
-    if not sxx > 0.0:
+    fit = _line_fit(t, e)
+    if not fit.sxx > 0.0:
         raise TooShortError("an energy drift fit over distinct times", have=1, need=2)
-    emean = float(e.mean())
-    slope = float(np.dot(tc, e - emean)) / sxx  # kJ/mol/ps
-    resid = e - emean - slope * tc
-    s2 = float(np.dot(resid, resid)) / (n - 2)
-    se_ols = math.sqrt(s2 / sxx)
-    g, method = statistical_inefficiency_of(resid)
+    slope = fit.slope  # kJ/mol/ps
+    emean = fit.ymean
+    s2 = fit.ssr / (n - 2)
+    se_ols = math.sqrt(s2 / fit.sxx)
+    got = None
+    if n > WINDOW_ABOVE:
+        got = _windowed_g(fit.residuals, n, n_windows=N_WINDOWS, window=WINDOW)
+    g, method = got if got is not None else statistical_inefficiency_of(fit.residuals(0, n))
     se = se_ols * math.sqrt(g)
     z = slope / se if se > 0 else (math.inf if slope != 0 else 0.0)
     slope_ns = slope * 1e3
@@ -398,7 +414,7 @@ def drift_fit(
         significant=bool(abs(z) > significance_z),
         residual_statistical_inefficiency=g,
         error_method=f"OLS standard error x sqrt(g); g by {method}",
-        intercept_kJ_per_mol=emean - slope * float(t.mean()),
+        intercept_kJ_per_mol=emean - slope * fit.tmean,
         n_samples=n,
         duration_ps=float(t[-1] - t[0]),
         slope_per_atom_kJ_per_mol_per_ns=per_atom,
@@ -425,16 +441,54 @@ class FluctuationResult:
     settings: dict[str, Any] = field(default_factory=dict)
 
 
+@dataclass(frozen=True)
+class _LineFit:
+    t: np.ndarray
+    y: np.ndarray
+    tmean: float
+    ymean: float
+    sxx: float
+    sxy: float
+    ssr: float  # sum of squared residuals
+
+    @property
+    def slope(self) -> float:
+        return self.sxy / self.sxx if self.sxx > 0 else 0.0
+
+    def residuals(self, a: int, b: int) -> np.ndarray:
+        """Residuals of rows a..b-1, shape (b - a,)."""
+        r = self.y[a:b] - self.ymean
+        r -= self.slope * (self.t[a:b] - self.tmean)
+        return r
+
+
+def _line_fit(t: np.ndarray, y: np.ndarray) -> _LineFit:
+    """Least-squares line by centred sums (two full-length temporaries, updated in place)."""
+    tmean = float(np.mean(t))
+    ymean = float(np.mean(y))
+    tc = t - tmean
+    yc = y - ymean
+    sxx = float(np.dot(tc, tc))
+    sxy = float(np.dot(tc, yc))
+    slope = sxy / sxx if sxx > 0 else 0.0
+    tc *= slope
+    yc -= tc
+    ssr = float(np.dot(yc, yc))
+    return _LineFit(t=t, y=y, tmean=tmean, ymean=ymean, sxx=sxx, sxy=sxy, ssr=ssr)
+
+
+def _std(x: np.ndarray) -> float:
+    """Population standard deviation (one temporary)."""
+    xc = x - float(np.mean(x))
+    return math.sqrt(float(np.dot(xc, xc)) / x.shape[0])
+
+
 def detrended_std(time_ps: np.ndarray, values: np.ndarray) -> float:
     """Standard deviation of ``values`` after removing a least-squares line in ``time_ps``."""
     t = np.asarray(time_ps, dtype=np.float64)
     y = np.asarray(values, dtype=np.float64)
-    tc = t - t.mean()
-    sxx = float(np.dot(tc, tc))
-    yc = y - y.mean()
-    if sxx > 0:
-        yc = yc - (float(np.dot(tc, yc)) / sxx) * tc
-    return float(np.sqrt(np.mean(yc * yc)))
+    fit = _line_fit(t, y)
+    return math.sqrt(fit.ssr / y.shape[0])
 
 
 def energy_fluctuations(
@@ -461,7 +515,7 @@ def energy_fluctuations(
     sk = ratio = None
     if kinetic_kJ_per_mol is not None:
         k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
-        sk = float(np.std(k))
+        sk = _std(k)
         ratio = se / sk if sk > 0 else math.inf
     return FluctuationResult(sigma_total_kJ_per_mol=se, sigma_kinetic_kJ_per_mol=sk, ratio=ratio,
                              n_samples=n, settings={"detrend": "least-squares line"})
@@ -534,7 +588,8 @@ def find_energy_events(
     median_dt: float | None = None
     n_gaps = n_over = 0
     if dt.size:
-        pos = dt[dt > 0]
+        dsub = dt if dt.size <= robust_sample else dt[:: int(math.ceil(dt.size / robust_sample))]
+        pos = dsub[dsub > 0]
         median_dt = float(np.median(pos)) if pos.size else None
         over = np.nonzero(dt <= 0)[0]
         n_over = int(over.size)
@@ -552,8 +607,12 @@ def find_energy_events(
                                           f"before t = {t[i + 1]:.6g} ps"))
 
     good = np.isfinite(e)
-    ef, tf = e[good], t[good]
-    idx = np.nonzero(good)[0]
+    if bad.size:
+        ef, tf = e[good], t[good]
+        idx = np.nonzero(good)[0]
+    else:  # the usual case: no copies of long series
+        ef, tf = e, t
+        idx = np.arange(e.size)
     max_jump = 0.0
     n_jumps = 0
     runaway: float | None = None
