@@ -54,7 +54,8 @@ def _fmt(v: float | None, unit: str = "", digits: int = 3) -> str:
 def _settings_text(settings: Mapping[str, Any] | None) -> str:
     if not settings:
         return ""
-    parts = [f"{k} = {v}" for k, v in settings.items() if v is not None and not isinstance(v, np.ndarray)]
+    parts = [f"{k} = {v:.6g}" if isinstance(v, float) else f"{k} = {v}" for k, v in settings.items()
+             if v is not None and not isinstance(v, np.ndarray)]
     return "; ".join(parts)
 
 
@@ -393,10 +394,11 @@ def _state_marks(crossings: Any, *, horizontal: bool, data: np.ndarray | None = 
     width = abs(cs.b_lo - cs.a_hi)
     lo, hi = cs.a_hi - width, cs.b_lo + width
     if data is not None and data.size and np.isfinite(data).any():
-        lo = min(lo, float(np.nanmin(data))) if np.nanmin(data) < cs.a_hi else lo
-        hi = max(hi, float(np.nanmax(data))) if np.nanmax(data) > cs.b_lo else hi
-        lo = float(np.nanmin(data)) if np.nanmin(data) < cs.a_hi else lo
-        hi = float(np.nanmax(data)) if np.nanmax(data) > cs.b_lo else hi
+        # spans reach out to the data, so they do not widen the axes beyond it
+        if np.nanmin(data) < cs.a_hi:
+            lo = float(np.nanmin(data))
+        if np.nanmax(data) > cs.b_lo:
+            hi = float(np.nanmax(data))
     span = "hspan" if horizontal else "vspan"
     line = "hline" if horizontal else "vline"
     return [
@@ -546,6 +548,112 @@ def poincare_figure(section: Any, *, q2_label: str = "q2", p2_label: str = "p2")
                       plots=(PlotSpec(title="Poincaré section", x=Axis(q2_label, section.q2_unit),
                                       y=Axis(p2_label, section.p2_unit), items=tuple(items)),),
                       caption=caption)
+
+
+# --------------------------------------------------------------------------------------------------
+# sampling (phasewake.core.sampling)
+
+
+def running_average_figure(result: Any, *, name: str = "series") -> FigureSpec:
+    """Running average of a series with its g-corrected standard-error band."""
+    t = np.asarray(result.time_ps, float)
+    m = np.asarray(result.mean, float)
+    e = np.asarray(result.sem, float)
+    items: list[PlotItem] = [
+        Band(t, m - e, m + e, label="± standard error (g-corrected)", style=Style(colour=PALETTE[5], alpha=0.25)),
+        Line(t, m, label="running average", style=_style(0)),
+    ]
+    if m.size:
+        items.append(Mark("hline", float(m[-1]), label="final average", role="annotation",
+                          style=Style(colour=PALETTE[0], dash="dash", width=1.0)))
+    caption = (f"Running average of {name} from the start of the run up to each time, with ± one standard error "
+               f"from the statistical inefficiency g = {result.statistical_inefficiency:.3g}. An average that "
+               "still wanders outside its band late in the run has not converged.")
+    return FigureSpec(key="sampling.running", title=f"Running average of {name}",
+                      plots=(PlotSpec(title=f"Running average of {name}", x=TIME, y=Axis(name, result.unit),
+                                      items=tuple(items), x_is_time=True),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def divergence_figure(result: Any, *, name: str = "series", unit: str = "") -> FigureSpec:
+    """Histograms of a series over consecutive segments, with the Jensen–Shannon divergence noted."""
+    edges = np.asarray(result.bin_edges, float)
+    h = np.asarray(result.histograms, float)
+    widths = np.diff(edges)
+    items: list[PlotItem] = []
+    labels = ("first half", "second half") if result.n_segments == 2 else \
+        tuple(f"segment {i + 1}" for i in range(result.n_segments))
+    for i in range(h.shape[0]):
+        tot = h[i].sum()
+        dens = h[i] / (tot * widths) if tot > 0 else h[i]
+        st = series_style(i)
+        items.append(Line(edges, dens, kind="step", label=labels[i] if i < len(labels) else f"segment {i + 1}",
+                          style=Style(colour=st.colour, dash=st.dash, width=1.6)))
+    note = f"JSD = {result.half_jsd_nats:.3g} nats (noise level {result.half_null_nats:.2g})"
+    caption = (f"Distribution of {name} in {result.n_segments} consecutive segments of the run (normalised "
+               f"histograms, {edges.size - 1} bins). Jensen–Shannon divergence of the first against the "
+               f"{'second half' if result.n_segments == 2 else 'last segment'}: {result.half_jsd_nats:.3g} nats, "
+               f"against {result.half_null_nats:.2g} nats expected from noise alone for the effective sample size "
+               f"(g = {result.statistical_inefficiency:.3g}); the largest pairwise ratio to the noise level is "
+               f"{result.max_ratio:.3g}.")
+    return FigureSpec(key="sampling.divergence", title=f"Segments of {name}",
+                      plots=(PlotSpec(title=f"Distribution of {name} by segment", x=Axis(name, unit),
+                                      y=Axis("Probability density", f"1/{unit}" if unit else ""),
+                                      items=tuple(items), note=note),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def tm_figure(result: Any) -> FigureSpec:
+    """Thirumalai–Mountain ergodic measure: Ω(0)/Ω(t) against t (a straight line for an ergodic run)."""
+    t = np.asarray(result.time_ps, float)
+    r = np.asarray(result.ratio, float)
+    ok = np.isfinite(r)
+    items: list[PlotItem] = [Line(t[ok], r[ok], label="Ω(0)/Ω(t)", style=_style(0))]
+    f0, f1 = result.fit_range_ps
+    items.append(Mark("vspan", f0, f1, label="fit range", role="annotation", style=Style(colour=PALETTE[2], alpha=0.15)))
+    caption = (f"Thirumalai–Mountain fluctuation metric of {result.quantity} over {result.n_particles} particles "
+               f"(Thirumalai, Mountain and Kirkpatrick 1989): Ω(0)/Ω(t) grows as D t when the particles' time "
+               f"averages converge to one value. Fitted D = {result.d_per_ps:.3g} ps⁻¹ over {f0:.3g}–{f1:.3g} ps; "
+               f"late log-log slope {result.late_slope:.2f}" + (" (a plateau: not ergodic on this time scale)."
+                                                                 if result.plateau else "."))
+    return FigureSpec(key="sampling.tm", title="Ergodic measure",
+                      plots=(PlotSpec(title="Thirumalai–Mountain metric", x=TIME, y=Axis("Ω(0)/Ω(t)", ""),
+                                      items=tuple(items), x_is_time=True),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def coverage_figure(result: Any, *, x_label: str = "x", y_label: str = "y") -> FigureSpec:
+    """Phase-space coverage: the fraction of a fixed grid visited so far, against time."""
+    t = np.asarray(result.time_ps, float)
+    f = np.asarray(result.fraction, float)
+    shape = np.asarray(result.visits).shape
+    caption = (f"Fraction of a fixed {shape[0]} × {shape[1]} grid over {x_label} and {y_label} visited up to each "
+               "time. A curve still rising at the end means the run is still finding new regions.")
+    return FigureSpec(key="sampling.coverage", title="Phase-space coverage",
+                      plots=(PlotSpec(title="Phase-space coverage", x=TIME, y=Axis("Fraction of grid visited", ""),
+                                      items=(Line(t, f, label="visited", style=_style(0)),), x_is_time=True,
+                                      legend=False),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def recurrence_figure(result: Any) -> FigureSpec:
+    """Recurrence plot: frames i and j closer than ε in the projection."""
+    t = np.asarray(result.time_ps, float)
+    m = np.asarray(result.matrix, float)
+    if t.size >= 2:
+        dt = float(np.median(np.diff(t)))
+        edges = np.concatenate([t - dt / 2, [t[-1] + dt / 2]])
+    else:
+        edges = np.array([0.0, 1.0])
+    caption = (f"Recurrence plot (Eckmann, Kamphorst and Ruelle 1987): dark where frames i and j lie within ε = "
+               f"{result.epsilon:.3g} of each other (every {result.stride}th frame); recurrence rate "
+               f"{result.recurrence_rate:.3g}.")
+    return FigureSpec(key="sampling.recurrence", title="Recurrence plot",
+                      plots=(PlotSpec(title="Recurrence plot", x=TIME, y=Axis("Time", "ps"),
+                                      items=(Image(m, edges, edges, label="recurrence", colormap="Greys",
+                                                   colorbar_label="recurrent (1) or not (0)"),),
+                                      aspect_equal=True, legend=False),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
 
 
 # --------------------------------------------------------------------------------------------------
@@ -731,6 +839,11 @@ FIGURE_BUILDERS: dict[str, Callable[..., FigureSpec]] = {
     "phase.poincare": poincare_figure,
     "landscape.profile": free_energy_profile_figure,
     "landscape.surface": free_energy_surface_figure,
+    "sampling.running": running_average_figure,
+    "sampling.divergence": divergence_figure,
+    "sampling.tm": tm_figure,
+    "sampling.coverage": coverage_figure,
+    "sampling.recurrence": recurrence_figure,
     "velocity.vacf": vacf_figure,
     "velocity.vdos": vdos_figure,
     "crossings.dwells": dwell_times_figure,
@@ -748,6 +861,11 @@ RESULT_FIGURES: dict[str, tuple[str, ...]] = {
     "PoincareSection": ("phase.poincare",),
     "FreeEnergyProfile": ("landscape.profile",),
     "FreeEnergySurface": ("landscape.surface",),
+    "RunningAverage": ("sampling.running",),
+    "DivergenceResult": ("sampling.divergence",),
+    "TMResult": ("sampling.tm",),
+    "CoverageResult": ("sampling.coverage",),
+    "RecurrenceResult": ("sampling.recurrence",),
     "VACFResult": ("velocity.vacf",),
     "VDOSResult": ("velocity.vdos",),
     "CrossingsResult": ("crossings.dwells", "crossings.kappa"),

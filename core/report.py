@@ -42,7 +42,7 @@ from phasewake.core.export import (
     provenance_json,
     provenance_of_run,
 )
-from phasewake.core.figures import LEVEL_STYLE, FigureSpec
+from phasewake.core.figures import LEVEL_STYLE, FigureSpec, PlotSpec
 from phasewake.core.progress import Progress, Work
 from phasewake.core.verdicts import HEURISTIC_NOTE
 
@@ -237,6 +237,10 @@ def build_report(
     from phasewake.core import plots
 
     # pages ---------------------------------------------------------------------------------------
+    # sampling numbers of the coordinate (their verdicts go into the table) ----------------------
+    sampling = _sampling_numbers(series)
+    verdicts.extend(sampling.get("verdicts", []))
+
     yield Progress(3, total, "drawing figures")
     pages.append(_summary_page(run, verdicts, audit, settings))
 
@@ -284,7 +288,7 @@ def build_report(
         skipped.append(("correlation", "no series long enough to correlate"))
 
     yield Progress(6, total, "sampling")
-    sp = _sampling_page(series, temperature_K or _temperature_of(run, audit), crossings)
+    sp = _sampling_page(series, temperature_K or _temperature_of(run, audit), crossings, sampling)
     if isinstance(sp, str):
         skip("sampling", sp)
     else:
@@ -428,7 +432,39 @@ def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
     return ReportPage("correlation", SECTION_TITLES["correlation"], figure=spec, caption=spec.caption)
 
 
-def _sampling_page(series: Any, temperature_K: float, crossings: Any) -> ReportPage | str:
+def _sampling_numbers(series: Any) -> dict[str, Any]:
+    """Running average, half-against-half divergence and segment R-hat of the coordinate, with verdicts."""
+    samp = _optional("phasewake.core.sampling")
+    out: dict[str, Any] = {"verdicts": []}
+    if samp is None or series is None:
+        return out
+    q = np.asarray(series.values, float)
+    q = q[np.isfinite(q)]
+    if q.size < 40:
+        return out
+    dt = float(np.median(np.diff(series.time_ps)))
+    name = series.label
+    try:
+        out["running"] = samp.running_average(q, dt_ps=dt, unit=series.unit)
+    except PhasewakeError as exc:
+        out["running_error"] = str(exc)
+    try:
+        div = samp.segment_divergence(q)
+        out["divergence"] = div
+        out["verdicts"].append(samp.judge_divergence(div, name=name))
+    except PhasewakeError as exc:
+        out["divergence_error"] = str(exc)
+    try:
+        rh = samp.rhat_segments(q)
+        out["rhat"] = rh
+        out["verdicts"].append(samp.judge_rhat(rh, name=name))
+    except PhasewakeError as exc:
+        out["rhat_error"] = str(exc)
+    return out
+
+
+def _sampling_page(series: Any, temperature_K: float, crossings: Any,
+                   sampling: Mapping[str, Any] | None = None) -> ReportPage | str:
     """Free-energy profile of the coordinate over the whole run and over each half (a sampling check)."""
     land = _optional("phasewake.core.landscape")
     if land is None:
@@ -436,7 +472,7 @@ def _sampling_page(series: Any, temperature_K: float, crossings: Any) -> ReportP
     if series is None:
         return "no coordinate"
     from phasewake.core import plots
-    from phasewake.core.figures import Line, PlotSpec, Style, series_style
+    from phasewake.core.figures import Line, Style, series_style
 
     q = np.asarray(series.values, float)
     q = q[np.isfinite(q)]
@@ -463,7 +499,22 @@ def _sampling_page(series: Any, temperature_K: float, crossings: Any) -> ReportP
     caption = (base.caption + " Dashed and dotted: the same profile from the first and the second half of the "
                "run on the same bins; halves that disagree beyond the block errors mean the run has not "
                "sampled the coordinate's distribution yet.")
-    spec = FigureSpec(key="report.sampling", title="Sampling", plots=(plot,), caption=caption)
+    plots_: list[PlotSpec] = [plot]
+    sampling = sampling or {}
+    if "running" in sampling:
+        ra = plots.running_average_figure(sampling["running"], name=series.label)
+        plots_.extend(ra.plots)
+        caption += " Right: " + ra.caption
+    if "divergence" in sampling:
+        d = sampling["divergence"]
+        caption += (f" Half against half, the Jensen–Shannon divergence of {series.label} is "
+                    f"{d.half_jsd_nats:.3g} nats against {d.half_null_nats:.2g} nats expected from noise.")
+    if "rhat" in sampling:
+        rh = sampling["rhat"]
+        caption += (f" Rank-normalised split R̂ over {rh.n_chains} segments (Vehtari et al. 2021): {rh.rhat:.3f} "
+                    f"(threshold {rh.threshold:g}).")
+    spec = FigureSpec(key="report.sampling", title="Sampling", plots=tuple(plots_), grid=(1, len(plots_)),
+                      caption=caption)
     return ReportPage("sampling", SECTION_TITLES["sampling"], figure=spec, caption=caption)
 
 
@@ -487,7 +538,8 @@ def _paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
         for i, r in enumerate(rows):
             h = _row_height(r, p)
             if chunk and used + h > budget:
-                out.append(ReportPage(p.section, p.title, table=(header, *chunk), table_levels=tuple(lv),
+                out.append(ReportPage(p.section, p.title if first else p.title + " (continued)",
+                                      table=(header, *chunk), table_levels=tuple(lv),
                                       text=p.text if first else "", caption=p.caption))
                 first, chunk, lv, used, budget = False, [], [], 0, 44
             chunk.append(r)
