@@ -552,16 +552,13 @@ def green_kubo(result: VACFResult, *, group: int | str = 0, limit_ps: float | No
     else:
         inside = np.abs(c) <= noise_sigmas * noise
         hold = max(1, int(hold_fraction * c.size))
-        # run[k] = number of consecutive "inside" lags starting at k
-        run_len = np.zeros(c.size + 1, dtype=np.int64)
-        for_inside = inside[::-1]
-        acc = 0
-        tmp = np.empty(c.size, dtype=np.int64)
-        for j, flag in enumerate(for_inside):  # O(L), L is a lag window (<= ~1e5)
-            acc = acc + 1 if flag else 0
-            tmp[j] = acc
-        run_len[:-1] = tmp[::-1]
-        ok = np.flatnonzero(run_len[:-1] >= np.minimum(hold, c.size - np.arange(c.size)))
+        # run_len[k] = number of consecutive "inside" lags starting at k (reverse cumulative count,
+        # reset at every lag outside the band)
+        idx = np.arange(c.size)
+        last_out = np.where(~inside, idx, c.size)  # for each k: the first outside lag at or after k
+        first_out_after = np.minimum.accumulate(last_out[::-1])[::-1]
+        run_len = first_out_after - idx
+        ok = np.flatnonzero(run_len >= np.minimum(hold, c.size - idx))
         ok = ok[ok > 0]
         k = int(ok[0]) if ok.size else c.size - 1
         rule = (f"first lag where |VACF| stays within {noise_sigmas:g} x noise for {hold} lags"
