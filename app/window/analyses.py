@@ -378,7 +378,8 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         figs.append(_portrait(q, p, key="phase.portrait", title=f"Phase portrait of {s.label or s.spec}",
                               xa=xa, ya=ya, label=s.spec,
                               caption=f"{s.spec} against its conjugate momentum p = m_eff dq/dt{est}, frames "
-                                      f"{ctx.start}\u2013{ctx.stop - 1}. The large dot is the cursor's frame."))
+                                      f"{ctx.start}\u2013{ctx.stop - 1}. The large dot is the cursor's frame, the thin line behind it the "
+                                      "recent path; a crossing selected in the Crossings panel is drawn thick."))
         traces["phase.portrait"] = Trace(np.asarray(s.time_ps, float), q, p)
         land = module_or_none("landscape")
         if land is not None:

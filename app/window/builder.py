@@ -79,8 +79,8 @@ class CoordinateBuilder(QtWidgets.QDialog):
         self.table.cellDoubleClicked.connect(lambda r, c: self.pick_row(r))
         rows = atom_rows(run) if run is not None else []
         self.table.setRowCount(len(rows))
-        for r, row in enumerate(rows):
-            for c, v in enumerate(row):
+        for r, values in enumerate(rows):
+            for c, v in enumerate(values):
                 self.table.setItem(r, c, QtWidgets.QTableWidgetItem(str(v)))
         self.table.resizeColumnsToContents()
         self.pick_button = QtWidgets.QPushButton("Pick selected atom")
@@ -158,7 +158,8 @@ class CoordinateBuilder(QtWidgets.QDialog):
     def _apply_filter(self, text: str) -> None:
         text = text.strip().lower()
         for r in range(self.table.rowCount()):
-            cells = " ".join(self.table.item(r, c).text().lower() for c in range(4))
+            cells = " ".join((it.text() if (it := self.table.item(r, c)) is not None else "").lower()
+                             for c in range(4))
             self.table.setRowHidden(r, bool(text) and text not in cells)
 
     def _validate(self, text: str) -> None:

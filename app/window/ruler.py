@@ -45,10 +45,10 @@ class TimeRuler(QtWidgets.QWidget):
                                           pen=pg.mkPen("#0072B2", width=2), swapMode="sort")
         self.region.setZValue(10)
         self.plot.addItem(self.region)
-        self.cursor = pg.InfiniteLine(angle=90, movable=True, pen=pg.mkPen(CURSOR_COLOUR, width=2),
+        self.cursor_line = pg.InfiniteLine(angle=90, movable=True, pen=pg.mkPen(CURSOR_COLOUR, width=2),
                                       hoverPen=pg.mkPen(CURSOR_COLOUR, width=4))
-        self.cursor.setZValue(20)
-        self.plot.addItem(self.cursor)
+        self.cursor_line.setZValue(20)
+        self.plot.addItem(self.cursor_line)
         self.label = QtWidgets.QLabel()
         self.label.setObjectName("rulerLabel")
         self.reset_button = QtWidgets.QPushButton("Whole run")
@@ -66,7 +66,7 @@ class TimeRuler(QtWidgets.QWidget):
         lay.addLayout(top)
         lay.addWidget(self.plot_widget)
         self._updating = False
-        self.cursor.sigPositionChanged.connect(self._cursor_dragged)
+        self.cursor_line.sigPositionChanged.connect(self._cursor_dragged)
         self.region.sigRegionChangeFinished.connect(self._region_dragged)
         model.currentRunChanged.connect(self._run_changed)
         model.cursorChanged.connect(self._follow_cursor)
@@ -80,11 +80,11 @@ class TimeRuler(QtWidgets.QWidget):
             if t.size == 0:
                 self.overview.setData([], [])
                 self.region.hide()
-                self.cursor.hide()
+                self.cursor_line.hide()
                 self.label.setText("no run open")
                 return
             self.region.show()
-            self.cursor.show()
+            self.cursor_line.show()
             y = self._overview_values(t)
             self.overview.setData(t, y)
             lo, hi = float(t[0]), float(t[-1])
@@ -92,7 +92,7 @@ class TimeRuler(QtWidgets.QWidget):
                 hi = lo + 1.0
             self.plot.setXRange(lo, hi, padding=0.01)
             self.region.setBounds((lo, hi))
-            self.cursor.setBounds((lo, hi))
+            self.cursor_line.setBounds((lo, hi))
         finally:
             self._updating = False
         self._follow_window()
@@ -116,7 +116,7 @@ class TimeRuler(QtWidgets.QWidget):
             return
         self._updating = True
         try:
-            self.cursor.setValue(self.model.cursor_time_ps)
+            self.cursor_line.setValue(self.model.cursor_time_ps)
         finally:
             self._updating = False
         self._update_label()

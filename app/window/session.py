@@ -158,5 +158,5 @@ def load(path: str | Path) -> SessionState:
             panel=str(doc.get("panel", "")),
             choices=dict(doc.get("choices") or {}),
         )
-    except (KeyError, TypeError, ValueError, IndexError) as exc:
+    except (KeyError, TypeError, ValueError, IndexError, AttributeError, OverflowError) as exc:
         raise SessionError(f"malformed session ({type(exc).__name__}: {exc})", path=path) from exc

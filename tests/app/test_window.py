@@ -146,7 +146,7 @@ def test_cursor_is_shared_by_every_panel_and_the_ruler(win, qtbot):
     for name in PANELS:
         for rp in w.panels[name].view.time_plots:
             assert rp.cursor.value() == pytest.approx(target), name
-    assert w.ruler.cursor.value() == pytest.approx(target)
+    assert w.ruler.cursor_line.value() == pytest.approx(target)
     # the phase portrait marks the cursor's frame
     phase = w.panels["Phase space"]
     tr = phase.current_trace()
