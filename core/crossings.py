@@ -46,9 +46,11 @@ from phasewake.core.rates import (
     ExponentialTest,
     PoissonRate,
     TSTRate,
+    central_range,
     exponential_ks_test,
+    flux_factor,
     poisson_rate,
-    tst_rate,
+    tst_rate_from_counts,
 )
 from phasewake.core.verdicts import (
     HEURISTIC_NOTE,
@@ -413,40 +415,137 @@ class CrossingsResult:
 # Kernels
 # --------------------------------------------------------------------------------------------------
 
-_CHUNK = 1 << 20
+_CHUNK = 1 << 17  # 1 MB of float64: the temporaries of one chunk stay in cache
 
 
-def _change_points(q: np.ndarray, a_hi: float, b_lo: float, surface: float
-                   ) -> tuple[tuple[bool, bool, bool], np.ndarray, np.ndarray, np.ndarray]:
-    """Indices i >= 1 where (q <= a_hi), (q >= b_lo) or (q >= surface) differ between i-1 and i.
+_NONE = np.iinfo(np.int64).max  # "no such frame"
 
-    Chunked so the boolean temporaries stay small; one read of q.
+
+@dataclass
+class _Scan:
+    """What the events of one replica need, found without keeping per-frame data.
+
+    The surface crossings cut the run into segments, each wholly on one side of q*. A segment *touches*
+    its side's core when its extreme value reaches the core (one reduction per segment). The committed
+    state changes at the first touching segment of the other side; the entry into the core and the last
+    exit from the origin core are then searched for locally. So the cost is a few passes over q, and
+    noisy flickering at a core's edge (many entries and exits) costs nothing extra.
     """
+
+    first: int  # 0 when frame 0 is below the surface, 1 when above
+    entries: np.ndarray  # frames where the committed state changes (the first core entry included)
+    labels: np.ndarray  # 0 (A) or 1 (B) for each entry
+    exits: np.ndarray  # for each entry but the first: first frame outside the origin core, last exit
+    crossings: np.ndarray  # frames i with q[i-1], q[i] on two sides of the surface
+    next_entry: np.ndarray  # for each crossing: first core entry at frame >= i (_NONE if none)
+    next_label: np.ndarray  # its label (-1 if none)
+    finite: bool  # no NaN or infinity in q
+    time_increasing: bool
+
+
+def _first_index(q: np.ndarray, start: int, stop: int, level: float, above: bool, *, last: bool = False) -> int:
+    """First (or last) frame in [start, stop) with q >= level (above) or q <= level; -1 if none.
+
+    Looks in windows that grow from the near end, so a core reached soon is found in O(distance).
+    """
+    width = 64
+    while True:
+        if last:
+            lo = max(start, stop - width)
+            seg = q[lo:stop]
+            hit = seg >= level if above else seg <= level
+            if hit.any():
+                return lo + hit.size - 1 - int(np.argmax(hit[::-1]))
+            if lo == start:
+                return -1
+        else:
+            hi = min(stop, start + width)
+            seg = q[start:hi]
+            hit = seg >= level if above else seg <= level
+            if hit.any():
+                return start + int(np.argmax(hit))
+            if hi == stop:
+                return -1
+            start = hi
+        width *= 8
+
+
+def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels: np.ndarray,
+                   above: np.ndarray, *, last: bool = False, window: int = 64) -> np.ndarray:
+    """:func:`_first_index` for many segments: one gathered window each, a loop only for the rare rest."""
+    m = starts.size
+    out = np.full(m, -1, np.int64)
+    if m == 0:
+        return out
+    off = np.arange(window)
+    idx = (stops[:, None] - 1 - off[None, :]) if last else (starts[:, None] + off[None, :])
+    inside = (idx >= starts[:, None]) & (idx < stops[:, None])
+    vals = q[np.clip(idx, 0, q.shape[0] - 1)]
+    hit = inside & np.where(above[:, None], vals >= levels[:, None], vals <= levels[:, None])
+    found = hit.any(axis=1)
+    pos = np.argmax(hit, axis=1)
+    out[found] = idx[found, pos[found]]
+    for k in np.flatnonzero(~found):  # cores reached later than the window: search on
+        out[k] = _first_index(q, int(starts[k]), int(stops[k]), float(levels[k]), bool(above[k]), last=last)
+    return out
+
+
+def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surface: float) -> _Scan:
+    """Chunked side changes (temporaries stay in cache), then one reduction per segment."""
     n = q.shape[0]
-    ca: list[np.ndarray] = []
-    cb: list[np.ndarray] = []
-    cs: list[np.ndarray] = []
+    crs: list[np.ndarray] = []
+    increasing = True
     for s in range(0, n, _CHUNK):
         lo = max(s - 1, 0)
         x = q[lo:s + _CHUNK]
-        for mask, out in ((x <= a_hi, ca), (x >= b_lo, cb), (x >= surface, cs)):
-            d = np.flatnonzero(mask[1:] != mask[:-1])
-            if d.size:
-                out.append(d + (lo + 1))
-    first = (bool(q[0] <= a_hi), bool(q[0] >= b_lo), bool(q[0] >= surface))
-
-    def cat(parts: list[np.ndarray]) -> np.ndarray:
-        return np.concatenate(parts) if parts else np.zeros(0, np.int64)
-
-    return first, cat(ca), cat(cb), cat(cs)
-
-
-def _runs(first: bool, changes: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray]:
-    """Starts and (exclusive) ends of the runs of True of a mask given by its first value and flips."""
-    bounds = np.concatenate(([0], changes, [n])).astype(np.int64)
-    k = np.arange(bounds.size - 1)
-    on = (k % 2 == 0) if first else (k % 2 == 1)
-    return bounds[:-1][on], bounds[1:][on]
+        side = x >= surface
+        d = np.flatnonzero(side[1:] != side[:-1])
+        if d.size:
+            crs.append(d + (lo + 1))
+        if t is not None and increasing:
+            tc = t[lo:s + _CHUNK]
+            increasing = not bool(np.any(tc[1:] <= tc[:-1]))
+    cr = np.concatenate(crs) if crs else np.zeros(0, np.int64)
+    starts = np.concatenate(([0], cr)).astype(np.int64)
+    ends = np.concatenate((cr, [n])).astype(np.int64)
+    seg_max = np.maximum.reduceat(q, starts)
+    seg_min = np.minimum.reduceat(q, starts)
+    finite = bool(np.all(np.isfinite(seg_max)) and np.all(np.isfinite(seg_min)))
+    first = int(q[0] >= surface)
+    seg_side = ((np.arange(starts.size) + first) % 2).astype(np.int8)  # 1: above the surface (B side)
+    touched = np.where(seg_side == 1, seg_max >= b_lo, seg_min <= a_hi)
+    tseg = np.flatnonzero(touched)
+    tlab = seg_side[tseg]
+    # committed-state changes: touching segments whose side differs from the previous touching one
+    keep = np.ones(tseg.size, bool)
+    keep[1:] = tlab[1:] != tlab[:-1]
+    kseg = tseg[keep]
+    klab = tlab[keep]
+    # the origin's last touching segment before each change: the touching segment just before it
+    pos = np.flatnonzero(keep)
+    oseg = tseg[np.maximum(pos - 1, 0)]
+    b_side = klab.astype(bool)
+    entries = _first_indices(q, starts[kseg], ends[kseg], np.where(b_side, b_lo, a_hi), b_side)
+    exits = np.full(kseg.size, -1, np.int64)
+    if kseg.size > 1:
+        og = oseg[1:]
+        exits[1:] = 1 + _first_indices(q, starts[og], ends[og], np.where(b_side[1:], a_hi, b_lo),
+                                       ~b_side[1:], last=True)
+    # for each crossing (which starts segment j + 1): the first touching segment at or after it
+    j = np.searchsorted(tseg, np.arange(1, starts.size), side="left")
+    has = j < tseg.size
+    jj = np.minimum(j, max(tseg.size - 1, 0))
+    nseg = tseg[jj] if tseg.size else np.zeros(j.size, np.int64)
+    next_label = np.where(has, seg_side[nseg] if tseg.size else -1, -1).astype(np.int8)
+    # Its entry frame matters exactly only where the committed state changes (paths end there);
+    # elsewhere the segment's first frame stands in: it orders the same against the next crossing.
+    next_entry = np.where(has, starts[nseg], _NONE) if tseg.size else np.full(cr.size, _NONE, np.int64)
+    if kseg.size and cr.size:
+        ik = np.minimum(np.searchsorted(kseg, nseg), kseg.size - 1)
+        match = has & (kseg[ik] == nseg)
+        next_entry[match] = entries[ik[match]]
+    return _Scan(first=first, entries=entries, labels=klab.astype(np.int8), exits=exits, crossings=cr,
+                 next_entry=next_entry, next_label=next_label, finite=finite, time_increasing=increasing)
 
 
 def _interp_time(t: np.ndarray, q: np.ndarray, i0: np.ndarray, level: float | np.ndarray
@@ -480,19 +579,10 @@ def committed_states(q: np.ndarray, *, a_hi: float, b_lo: float) -> np.ndarray:
     out = np.full(n, -1, np.int8)
     if n == 0:
         return out
-    first, ca, cb, _ = _change_points(q, a_hi, b_lo, 0.5 * (a_hi + b_lo))
-    sa, _ = _runs(first[0], ca, n)
-    sb, _ = _runs(first[1], cb, n)
-    starts = np.concatenate((sa, sb))
-    labels = np.concatenate((np.zeros(sa.size, np.int8), np.ones(sb.size, np.int8)))
-    order = np.argsort(starts, kind="stable")
-    starts, labels = starts[order], labels[order]
-    keep = np.ones(starts.size, bool)
-    keep[1:] = labels[1:] != labels[:-1]
-    starts, labels = starts[keep], labels[keep]
-    if starts.size:
-        bounds = np.concatenate((starts, [n]))
-        out[starts[0]:] = np.repeat(labels, np.diff(bounds))
+    sc = _scan(None, q, a_hi=a_hi, b_lo=b_lo, surface=0.5 * (a_hi + b_lo))
+    if sc.entries.size:
+        bounds = np.concatenate((sc.entries, [n]))
+        out[sc.entries[0]:] = np.repeat(sc.labels, np.diff(bounds))
     return out
 
 
@@ -508,34 +598,30 @@ class _Replica:
     paths: np.ndarray
     dwells: np.ndarray
     crossing_i0: np.ndarray  # frame before each crossing
+    kind_code: np.ndarray  # 0 transition, 1 recrossing, 2 censored
     crossing_f: np.ndarray  # sub-frame fraction of each crossing
     visited: tuple[bool, bool]
 
 
-def _replica_events(tr: Trace, replica: int, *, a_hi: float, b_lo: float, surface: float) -> _Replica:
+def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: float, surface: float
+                    ) -> _Replica:
     t = tr.time_ps
     q = tr.values
     n = int(q.shape[0])
-    first, ca, cb, cs = _change_points(q, a_hi, b_lo, surface)
-    sa, ea = _runs(first[0], ca, n)
-    sb, eb = _runs(first[1], cb, n)
-    starts = np.concatenate((sa, sb))
-    ends = np.concatenate((ea, eb))
-    labels = np.concatenate((np.zeros(sa.size, np.int8), np.ones(sb.size, np.int8)))
-    order = np.argsort(starts, kind="stable")
-    starts, ends, labels = starts[order], ends[order], labels[order]
+    starts, labels = sc.entries, sc.labels
     n_runs = int(starts.size)
 
-    # Committed-state changes: run k has another label than run k-1.
-    chg = np.flatnonzero(labels[1:] != labels[:-1]) + 1
-    exit_frame = ends[chg - 1]  # first frame outside the origin core
-    entry_frame = starts[chg]  # first frame inside the destination core
-    origin = labels[chg - 1]
-    dest = labels[chg]
+    # Committed-state changes: every entry after the first.
+    exit_frame = sc.exits[1:]  # first frame outside the origin core (its last exit)
+    entry_frame = starts[1:]  # first frame inside the destination core
+    origin = labels[:-1]
+    dest = labels[1:]
+    chg = entry_frame
     level_exit = np.where(origin == 0, a_hi, b_lo)
     level_entry = np.where(dest == 0, a_hi, b_lo)
     t_exit, _ = _interp_time(t, q, exit_frame - 1, level_exit)
     t_entry, _ = _interp_time(t, q, entry_frame - 1, level_entry)
+    cs = sc.crossings
 
     # Surface crossings: between frames i0 and i0 + 1.
     i0 = cs - 1
@@ -549,21 +635,20 @@ def _replica_events(tr: Trace, replica: int, *, a_hi: float, b_lo: float, surfac
     n_c = int(i0.size)
     k_prev = np.searchsorted(starts, i0, side="right") - 1
     from_lab = np.where(k_prev >= 0, labels[np.maximum(k_prev, 0)] if n_runs else -1, -1)
-    k_next = np.searchsorted(starts, i0 + 1, side="left")
-    has_next_core = k_next < n_runs
-    next_entry = np.where(has_next_core, starts[np.minimum(k_next, max(n_runs - 1, 0))] if n_runs else 0,
-                          np.iinfo(np.int64).max)
-    to_lab = np.where(has_next_core, labels[np.minimum(k_next, max(n_runs - 1, 0))] if n_runs else -1, -1)
+    next_entry = sc.next_entry
+    has_next_core = next_entry != _NONE
+    to_lab = sc.next_label.astype(np.int64)
     next_cross = np.empty(n_c, np.int64)
     if n_c:
         next_cross[:-1] = i0[1:]
-        next_cross[-1] = np.iinfo(np.int64).max
+        next_cross[-1] = _NONE
     committed = has_next_core & (next_entry <= next_cross)
-    kind = np.full(n_c, "recrossing", dtype="U10")
+    kind_code = np.full(n_c, 1, np.int8)  # 0 transition, 1 recrossing, 2 censored
     is_transition = committed & (from_lab >= 0) & (to_lab != from_lab)
-    kind[is_transition] = "transition"
-    ended = ~has_next_core & (next_cross == np.iinfo(np.int64).max)
-    kind[ended | (from_lab < 0)] = "censored"
+    kind_code[is_transition] = 0
+    ended = ~has_next_core & (next_cross == _NONE)
+    kind_code[ended | (from_lab < 0)] = 2
+    kind = np.asarray(("transition", "recrossing", "censored"))[kind_code] if n_c else np.zeros(0, "U10")
 
     # Paths: each committed-state change has exactly one transition crossing (the last before entry).
     n_p = int(chg.size)
@@ -626,8 +711,9 @@ def _replica_events(tr: Trace, replica: int, *, a_hi: float, b_lo: float, surfac
         unassigned = float(t[-1] - t[0])
     dt = float(t[-1] - t[0]) / (n - 1) if n > 1 else float("nan")  # mean spacing
     return _Replica(n=n, time_span_ps=float(t[-1] - t[0]), unassigned_ps=unassigned, dt_ps=dt,
-                    events=events, paths=paths, dwells=dwells, crossing_i0=i0, crossing_f=f_c,
-                    visited=(bool(sa.size), bool(sb.size)))
+                    events=events, paths=paths, dwells=dwells, crossing_i0=i0, kind_code=kind_code,
+                    crossing_f=f_c,
+                    visited=(bool(np.any(labels == 0)), bool(np.any(labels == 1))))
 
 
 def reactive_flux(q: np.ndarray, crossing_i0: np.ndarray, direction: np.ndarray, *, surface: float,
@@ -771,10 +857,14 @@ def _check_traces(traces: Sequence[Trace]) -> None:
             raise TooShortError(f"crossings of {label}", have=int(q.shape[0]), need=2)
         if tr.velocity is not None and tr.velocity.shape != q.shape:
             raise AnalysisError(f"{label}: dq/dt has {tr.velocity.shape[0]} samples, q has {q.shape[0]}")
-        if not np.all(np.isfinite(q)):
-            raise AnalysisError(f"{label}: the coordinate has NaN or infinite values")
-        if np.any(np.diff(t) <= 0):
-            raise AnalysisError(f"{label}: time must increase strictly from frame to frame")
+
+
+def _check_scan(sc: _Scan, k: int, tr: Trace) -> None:
+    label = f"replica {k}" + (f" ({tr.name})" if tr.name else "")
+    if not sc.finite:
+        raise AnalysisError(f"{label}: the coordinate has NaN or infinite values")
+    if not sc.time_increasing:
+        raise AnalysisError(f"{label}: time must increase strictly from frame to frame")
 
 
 def _rate(from_state: str, to_state: str, n: int, exposure: float, dwells: np.ndarray,
@@ -842,12 +932,11 @@ def crossings_work(
     _check_traces(trs)
     total = float(len(trs) * 2 + 2)
     yield Progress(0, total, "crossings: checking states")
-    q_all_min = min(float(tr.values.min()) for tr in trs)
-    q_all_max = max(float(tr.values.max()) for tr in trs)
     suggestion: StateSuggestion | None = None
     if states is None:
         pooled = np.concatenate([tr.values for tr in trs])
         suggestion = suggest_states(pooled, unit=unit, temperature_K=temperature_K)
+        del pooled
         a_hi, b_lo = suggestion.a_hi, suggestion.b_lo
         if surface is None:
             surface = suggestion.surface
@@ -863,27 +952,37 @@ def crossings_work(
     if surface is None:
         surface = 0.5 * (a_hi + b_lo)
     surface = float(surface)
-    if not q_all_min < surface < q_all_max:
-        raise AnalysisError(
-            f"the dividing surface {surface:g} {unit} lies outside the range of the coordinate "
-            f"({q_all_min:.6g} to {q_all_max:.6g} {unit}): it is never crossed".replace("  ", " ")
-        )
     if not a_hi < surface < b_lo:
         raise AnalysisError(
             f"the dividing surface {surface:g} {unit} must lie strictly between the cores "
             f"(q <= {a_hi:g} and q >= {b_lo:g} {unit})".replace("  ", " ")
         )
+    scans: list[_Scan] = []
+    for k, tr in enumerate(trs):
+        sc = _scan(tr.time_ps, tr.values, a_hi=a_hi, b_lo=b_lo, surface=surface)
+        _check_scan(sc, k, tr)
+        scans.append(sc)
+    if not any(sc.crossings.size for sc in scans):
+        q_all_min = min(float(tr.values.min()) for tr in trs)
+        q_all_max = max(float(tr.values.max()) for tr in trs)
+        if not q_all_min < surface < q_all_max:
+            raise AnalysisError(
+                f"the dividing surface {surface:g} {unit} lies outside the range of the coordinate "
+                f"({q_all_min:.6g} to {q_all_max:.6g} {unit}): it is never crossed".replace("  ", " ")
+            )
     warnings: list[str] = []
-    if q_all_min > a_hi:
+    seen_a = any(bool(np.any(sc.labels == 0)) for sc in scans)
+    seen_b = any(bool(np.any(sc.labels == 1)) for sc in scans)
+    if not seen_a:
         warnings.append(f"the coordinate never enters core A (q <= {a_hi:g} {unit}; its minimum is "
-                        f"{q_all_min:.4g})")
-    if q_all_max < b_lo:
+                        f"{min(float(tr.values.min()) for tr in trs):.4g})")
+    if not seen_b:
         warnings.append(f"the coordinate never enters core B (q >= {b_lo:g} {unit}; its maximum is "
-                        f"{q_all_max:.4g})")
+                        f"{max(float(tr.values.max()) for tr in trs):.4g})")
 
     reps: list[_Replica] = []
-    for k, tr in enumerate(trs):
-        reps.append(_replica_events(tr, k, a_hi=a_hi, b_lo=b_lo, surface=surface))
+    for k, (tr, sc) in enumerate(zip(trs, scans)):
+        reps.append(_replica_events(tr, k, sc, a_hi=a_hi, b_lo=b_lo, surface=surface))
         yield Progress(1 + k, total, "crossings: events")
 
     events = np.concatenate([r.events for r in reps])
@@ -926,12 +1025,13 @@ def crossings_work(
         path_times = PathTimes(0, nan, nan, nan, nan, nan, nan)
 
     # Counting transmission coefficient.
-    known = events["kind"] != "censored"
+    kcode = np.concatenate([r.kind_code for r in reps])
+    known = kcode != 2
     up = known & (events["direction"] > 0)
     down = known & (events["direction"] < 0)
     n_up, n_down = int(np.count_nonzero(up)), int(np.count_nonzero(down))
-    t_up = int(np.count_nonzero(up & (events["kind"] == "transition")))
-    t_down = int(np.count_nonzero(down & (events["kind"] == "transition")))
+    t_up = int(np.count_nonzero(up & (kcode == 0)))
+    t_down = int(np.count_nonzero(down & (kcode == 0)))
     kc_up = t_up / n_up if n_up else float("nan")
     kc_down = t_down / n_down if n_down else float("nan")
     kc = (t_up + t_down) / (n_up + n_down) if (n_up + n_down) else float("nan")
@@ -1006,10 +1106,27 @@ def crossings_work(
 
     # TST from the run's own distribution of q.
     tst_cmp: TSTComparison | None = None
-    pooled_q = np.concatenate([tr.values for tr in trs])
-    pooled_v = np.concatenate([tr.velocity for tr in trs]) if all(with_vel) else None  # type: ignore[misc]
+    # TST from an evenly strided sample of at most ~2e6 frames (all frames of shorter runs): MD frames
+    # are correlated, so the stride loses little, and a long series is not read again in full.
+    n_all = sum(r.n for r in reps)
+    step = max(1, n_all // 2_000_000)
+    coarse = np.concatenate([tr.values[::step] for tr in trs])
+    coarse_v = (np.concatenate([tr.velocity[::step] for tr in trs])  # type: ignore[index]
+                if all(with_vel) else None)
+    lo_c, hi_c = central_range(coarse)
+    band = (hi_c - lo_c) / 100.0
+    near = np.abs(coarse - surface) < 0.5 * band
+    n_near = int(np.count_nonzero(near))
+    if coarse_v is not None:
+        flux, fsource = flux_factor(coarse_v[near], None)
+    else:
+        flux, fsource = flux_factor(None, kT_over_m_eff)
     try:
-        tst = tst_rate(pooled_q, surface=surface, unit=unit, qdot=pooled_v, kT_over_m_eff=kT_over_m_eff)
+        tst: TSTRate | None = tst_rate_from_counts(
+            surface=surface, unit=unit, n_samples=int(coarse.size), n_near=n_near,
+            n_below=int(np.count_nonzero(coarse < surface)), bin_width=band,
+            flux_factor=flux, flux_source=fsource,
+            histogram=np.histogram(coarse, bins=40, range=(lo_c, hi_c)) if hi_c > lo_c else None)
     except AnalysisError as exc:
         warnings.append(f"no TST estimate: {exc}")
         tst = None

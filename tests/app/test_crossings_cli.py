@@ -80,7 +80,8 @@ def test_replicas_pool(capsys):
 
 @pytest.mark.parametrize("extra,needle", [
     (["--states", "0.6,0.5"], "overlap"),
-    (["--states", "0.4,0.5", "--surface", "3"], "outside the range of the coordinate"),
+    (["--states", "0.4,5", "--surface", "3"], "outside the range of the coordinate"),
+    (["--states", "0.4,0.5", "--surface", "3"], "strictly between the cores"),
     (["--states", "abc"], "--states must be 2 number"),
     (["--states", "0.4,0.5", "--surface", "0.45", "--confidence", "2"], "--confidence"),
 ])
