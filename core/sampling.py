@@ -674,3 +674,67 @@ def coverage_over_time(x: Any, y: Any, *, dt_ps: float = 1.0, bins: int = 50,
     ks = np.unique(np.round(np.geomspace(1, a.size, min(n_points, a.size))).astype(int))
     return CoverageResult(time_ps=ks * float(dt_ps), fraction=cum[ks - 1], x_edges=xe, y_edges=ye, visits=visits,
                           settings={"bins": bins, "x_range": xr, "y_range": yr, "n_sigma": n_sigma})
+
+
+# ---------------------------------------------------------------------------------------------------
+# Figures (declarative; the window and the exporters draw them)
+# ---------------------------------------------------------------------------------------------------
+
+
+def tm_figure(result: TMResult) -> Any:
+    """Omega(0)/Omega(t) against t with the fitted D t + b line (log-log: ergodic decay is slope 1)."""
+    from phasewake.core.figures import PALETTE, Axis, FigureSpec, Line, PlotSpec, Style, series_style
+
+    t = result.time_ps
+    inv = 1.0 / np.where(result.ratio > 0, result.ratio, np.nan)
+    lo, hi = result.fit_range_ps
+    sel = (t >= lo) & (t <= hi)
+    ts = t[sel]
+    b = float(np.nanmean(inv[sel] - result.d_per_ps * ts)) if sel.any() else 0.0
+    items = (Line(t, inv, label="Omega(0)/Omega(t)", style=series_style(0)),
+             Line(ts, result.d_per_ps * ts + b, label=f"fit D t + b, D = {result.d_per_ps:.3g} 1/ps",
+                  style=Style(colour=PALETTE[6], dash="dash")))
+    caption = (f"Thirumalai-Mountain metric of {result.n_particles} particles ({result.quantity}): the inverse of "
+               f"the normalised spread of their time averages. Effectively ergodic sampling grows linearly "
+               f"(late log-log slope of Omega {result.late_slope:.2f}; ergodic -1); a flat curve is a plateau.")
+    return FigureSpec(key="sampling.tm", title="Thirumalai-Mountain metric",
+                      plots=(PlotSpec(title="Thirumalai-Mountain metric", x=Axis("Time", "ps", log=True),
+                                      y=Axis("Omega(0)/Omega(t)", "", log=True), items=items),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def divergence_figure(result: DivergenceResult, *, name: str = "series", unit: str = "") -> Any:
+    """Normalised histograms of the segments on their shared grid, with the divergence noted."""
+    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec, series_style
+
+    edges = result.bin_edges
+    centres = 0.5 * (edges[1:] + edges[:-1])
+    width = float(edges[1] - edges[0])
+    items = tuple(Line(centres, h / (h.sum() * width), kind="step", label=f"segment {i + 1}", style=series_style(i))
+                  for i, h in enumerate(result.histograms))
+    note = f"JSD(first, last) = {result.half_jsd_nats:.3g} nats = {result.ratio[0, -1]:.2g}x noise"
+    caption = (f"Histograms of {name} in {result.n_segments} consecutive segments. Jensen-Shannon divergence of the "
+               f"first and last: {result.half_jsd_nats:.3g} nats against {result.half_null_nats:.3g} expected from "
+               f"noise for about {float(result.n_eff_per_segment.mean()):.0f} effective samples per segment.")
+    return FigureSpec(key="sampling.divergence", title=f"Segments of {name}",
+                      plots=(PlotSpec(title=f"Segments of {name}", x=Axis(name, unit), y=Axis("Density", f"1/{unit}" if unit else ""),
+                                      items=items, note=note),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
+
+
+def recurrence_figure(result: RecurrenceResult, *, name: str = "projection") -> Any:
+    """The recurrence matrix as an image over time x time."""
+    from phasewake.core.figures import Axis, FigureSpec, Image, PlotSpec
+
+    t = result.time_ps
+    step = float(t[1] - t[0]) if t.size > 1 else 1.0
+    edges = np.concatenate([t, [t[-1] + step]])
+    img = Image(data=result.matrix.astype(np.float32), x_edges=edges, y_edges=edges, label="recurrent",
+                colormap="cividis", colorbar_label="recurrence (1 = within epsilon)")
+    caption = (f"Recurrence plot of {name} (Eckmann, Kamphorst and Ruelle 1987): a cell is set when the states at the "
+               f"two times are within epsilon = {result.epsilon:.3g}. Recurrence rate {result.recurrence_rate:.3g}; "
+               "diagonal lines are returns along the same path (periodic motion), isolated blocks are trapped states.")
+    return FigureSpec(key="sampling.recurrence", title=f"Recurrence of {name}",
+                      plots=(PlotSpec(title=f"Recurrence of {name}", x=Axis("Time", "ps"), y=Axis("Time", "ps"),
+                                      items=(img,), aspect_equal=True, legend=False),),
+                      caption=caption, provenance={"settings": dict(result.settings)})
