@@ -390,3 +390,51 @@ def test_brownian_transition_path_time_against_hummer(brownian_run):
     assert r.path_times.n > 400
     assert r.path_times.mean_ps == pytest.approx(ttp, rel=0.10)
     assert r.path_times.sem_ps / r.path_times.mean_ps < 0.04
+
+
+# --------------------------------------------------------------------------------------------------- sample run
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
+
+
+@pytest.mark.skipif(not (SAMPLES / "dimer_langevin.h5md").exists(), reason="sample runs not generated")
+def test_sample_dimer_against_mdtraj_distances_and_a_plain_loop():
+    import mdtraj as md
+
+    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.progress import drive
+    from phasewake.core.readers import open_run
+
+    run = open_run([SAMPLES / "dimer_langevin.h5md"])
+    a_hi, b_lo, qs = 0.42, 0.53, 0.475
+    seen: list[Progress] = []
+    res = drive(crossings_of_runs(run, "distance(0, 1)", states=(a_hi, b_lo), surface=qs), seen.append)
+    assert seen and res.settings.unit == "nm"
+    # Reference coordinate: mdtraj.compute_distances (minimum image) on the same frames.
+    chunks = list(run.frames.iter_chunks(atom_indices=[0, 1], velocities=False))
+    traj = md.Trajectory(np.concatenate([c.positions_nm for c in chunks]), run.topology.subset([0, 1]))
+    if chunks[0].box_nm is not None:
+        traj.unitcell_vectors = np.concatenate([c.box_nm for c in chunks]).astype(np.float32)
+    r = md.compute_distances(traj, [[0, 1]], periodic=chunks[0].box_nm is not None)[:, 0].astype(float)
+    t = run.time_ps
+    # Reference state machine: a plain per-frame loop (fine in a test) with the same core sets.
+    state, n_ab, n_ba = -1, 0, 0
+    for x in r:
+        new = 0 if x <= a_hi else 1 if x >= b_lo else state
+        if state == 0 and new == 1:
+            n_ab += 1
+        elif state == 1 and new == 0:
+            n_ba += 1
+        state = new
+    n_cross = int(np.count_nonzero((r[1:] >= qs) != (r[:-1] >= qs)))
+    assert res.rate_ab.n_transitions == n_ab and res.rate_ba.n_transitions == n_ba
+    assert len(res.events) == n_cross
+    assert n_ab > 0 and n_ba > 0 and res.n_recrossings > 0
+    # each event time is where the (linearly interpolated) mdtraj distance meets the surface
+    np.testing.assert_allclose(np.interp(res.events["time_ps"], t, r), qs, atol=2e-5)
+    for rate in (res.rate_ab, res.rate_ba):
+        assert 0 < rate.ci_low_per_ps < rate.rate_per_ps < rate.ci_high_per_ps
+    # stored velocities were used, and their sign agrees with the direction of every clear crossing
+    assert res.velocity_source.startswith("stored")
+    clear = np.abs(res.events["velocity"]) > 0.05
+    assert np.all(np.sign(res.events["velocity"][clear]) == res.events["direction"][clear])
