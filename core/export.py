@@ -538,7 +538,8 @@ def _draw_line(ax: Axes, item: Line, pr: Preset) -> None:
                 rasterized=x.size > _RASTERISE_ABOVE, gid="data")
     elif item.kind == "step":
         if x.size == y.size + 1:  # bin edges
-            ax.stairs(y, x, color=colour, linewidth=lw, linestyle=_DASH.get(st.dash, "-"),
+            # outline only (no drop to a baseline), like the window's step curves
+            ax.stairs(y, x, baseline=None, color=colour, linewidth=lw, linestyle=_DASH.get(st.dash, "-"),
                       label=label, alpha=st.alpha, gid="data")
         else:  # bin centres
             ax.step(x, y, where="mid", color=colour, linewidth=lw, linestyle=_DASH.get(st.dash, "-"),

@@ -83,7 +83,17 @@ def results():
     pos = rng.normal(0, 0.05, (300, 5, 3)) + np.arange(5)[None, :, None] * 0.3
     pca = projection.pca_arrays(pos, np.full(5, 12.0), n_components=4)
     audit = drive(audit_run(run))
-    return {"table": _table(), "series": series, "crossings": cross, "acf": acf, "blocking": blk,
+    from phasewake.core import sampling
+
+    per_particle = rng.normal(0, 1, (1000, 8))  # independent noise per particle: an ergodic case
+    samp = {
+        "running": sampling.running_average(series.values, dt_ps=0.01, unit="nm"),
+        "divergence": sampling.segment_divergence(series.values),
+        "tm": sampling.thirumalai_mountain(per_particle, dt_ps=0.01),
+        "coverage": sampling.coverage_over_time(series.values, np.asarray(series.momentum), dt_ps=0.01),
+        "recurrence": sampling.recurrence(series.values[:400], dt_ps=0.01),
+    }
+    return {"sampling": samp, "table": _table(), "series": series, "crossings": cross, "acf": acf, "blocking": blk,
             "profile": prof, "surface": surf, "poincare": sec, "vacf": vac, "vdos": vdos, "pca": pca,
             "audit": audit}
 
@@ -108,6 +118,11 @@ def _all_specs(r):
         plots.vdos_figure(r["vdos"]),
         plots.dwell_times_figure(r["crossings"]),
         plots.transmission_figure(r["crossings"]),
+        plots.running_average_figure(r["sampling"]["running"], name="r"),
+        plots.divergence_figure(r["sampling"]["divergence"], name="r", unit="nm"),
+        plots.tm_figure(r["sampling"]["tm"]),
+        plots.coverage_figure(r["sampling"]["coverage"], x_label="r", y_label="p"),
+        plots.recurrence_figure(r["sampling"]["recurrence"]),
     ]
 
 
@@ -123,7 +138,7 @@ def test_every_builder_is_in_the_tables(results):
 
 def test_axes_have_labels_and_units_and_captions(results):
     dimensionless = {"Autocorrelation ρ", "C(t)/C(0)", "κ(t)", "Power (normalised)", "Fraction of variance",
-                     "Fraction longer than t", "Principal component"}
+                     "Fraction longer than t", "Principal component", "Ω(0)/Ω(t)", "Fraction of grid visited"}
     for spec in _all_specs(results):
         assert spec.caption, spec.key
         for p in spec.plots:

@@ -20,6 +20,8 @@ from phasewake.core.report import SECTION_TITLES, build_report
 from phasewake.core.run import EnergyTable, RunMetadata, Series
 from phasewake.core.verdicts import HEURISTIC_NOTE
 
+pytestmark = pytest.mark.slow  # each report draws about ten pages (seconds)
+
 KB = 0.0083144626  # kJ/mol/K (CODATA 2018 R / 1000)
 
 
