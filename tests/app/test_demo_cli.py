@@ -27,8 +27,8 @@ def test_finds_the_bundled_sample_run():
 
 @pytest.mark.slow
 def test_headless_demo_writes_everything(tmp_path, monkeypatch, capsys):
-    from pypdf import PdfReader
     from PIL import Image
+    from pypdf import PdfReader
 
     monkeypatch.delenv("DISPLAY", raising=False)
     monkeypatch.delenv("WAYLAND_DISPLAY", raising=False)
