@@ -65,7 +65,12 @@ class Axis:
 
 @dataclass(frozen=True)
 class Line:
-    """A curve or set of points. kind: line, scatter, step (histogram outline), bar."""
+    """A curve or set of points. kind: line, scatter, step (histogram outline), bar.
+
+    For ``step`` and ``bar``, ``x`` may hold bin edges (``len(x) == len(y) + 1``) or bin centres
+    (``len(x) == len(y)``); both renderers accept either. A step is drawn as an outline only (no drop
+    to a baseline), so its drawn y range is the range of ``y``.
+    """
 
     x: np.ndarray
     y: np.ndarray
