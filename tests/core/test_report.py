@@ -183,3 +183,22 @@ def test_missing_velocities_give_an_honest_page(tmp_path):
     text = " ".join(p.extract_text() for p in PdfReader(res.path).pages)
     assert "not in the report" in text
     assert "Energy conservation" in text
+
+
+def test_report_is_cancellable_and_leaves_no_file(tmp_path):
+    from phasewake.core.errors import Cancelled
+    from phasewake.core.progress import CancelToken
+
+    token = CancelToken()
+    seen = []
+
+    def on_progress(p):
+        seen.append(p)
+        token.cancel()  # the user presses cancel as soon as work starts
+
+    target = tmp_path / "r.pdf"
+    with pytest.raises(Cancelled):
+        drive(build_report(dimer_run(300), target), on_progress, token)
+    assert len(seen) == 1 and seen[0].total is not None
+    assert not target.exists()
+    assert list(tmp_path.iterdir()) == []
