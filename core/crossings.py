@@ -193,6 +193,8 @@ class Trace:
     values: np.ndarray
     velocity: np.ndarray | None = None
     name: str = ""
+    period: float | None = None  # e.g. 2 pi for a dihedral: a jump by more than half of it is a wrap
+
 
 
 def as_trace(obj: Any, name: str = "") -> Trace:
@@ -216,8 +218,9 @@ def as_trace(obj: Any, name: str = "") -> Trace:
     v = getattr(obj, "velocity", None)
     if getattr(obj, "velocities_estimated", False):
         v = None
+    period = 2.0 * math.pi if getattr(obj, "periodic", False) else None
     return Trace(np.asarray(t, float), np.asarray(q, float), None if v is None else np.asarray(v, float),
-                 name or str(getattr(obj, "label", "")))
+                 name or str(getattr(obj, "label", "")), period)
 
 
 # --------------------------------------------------------------------------------------------------
@@ -599,6 +602,7 @@ class _Replica:
     dwells: np.ndarray
     crossing_i0: np.ndarray  # frame before each crossing
     kind_code: np.ndarray  # 0 transition, 1 recrossing, 2 censored
+    n_wraps: int  # jumps across the period of a periodic coordinate (not counted as crossings)
     crossing_f: np.ndarray  # sub-frame fraction of each crossing
     visited: tuple[bool, bool]
 
@@ -648,6 +652,16 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
     kind_code[is_transition] = 0
     ended = ~has_next_core & (next_cross == _NONE)
     kind_code[ended | (from_lab < 0)] = 2
+    # A periodic coordinate (a dihedral) jumping across its period boundary changes side without
+    # crossing q*: such wraps cut segments (above) but are not crossing events.
+    wrap = (np.abs(q[i0 + 1] - q[i0]) > 0.5 * tr.period) if tr.period else np.zeros(n_c, bool)
+    n_wraps = int(np.count_nonzero(wrap))
+    if n_wraps:
+        keep = ~wrap
+        i0, t_c, f_c, direction, vel = i0[keep], t_c[keep], f_c[keep], direction[keep], vel[keep]
+        kind_code, from_lab, to_lab = kind_code[keep], from_lab[keep], to_lab[keep]
+        next_entry, is_transition = next_entry[keep], is_transition[keep]
+        n_c = int(i0.size)
     kind = np.asarray(("transition", "recrossing", "censored"))[kind_code] if n_c else np.zeros(0, "U10")
 
     # Paths: each committed-state change has exactly one transition crossing (the last before entry).
@@ -711,7 +725,7 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
         unassigned = float(t[-1] - t[0])
     dt = float(t[-1] - t[0]) / (n - 1) if n > 1 else float("nan")  # mean spacing
     return _Replica(n=n, time_span_ps=float(t[-1] - t[0]), unassigned_ps=unassigned, dt_ps=dt,
-                    events=events, paths=paths, dwells=dwells, crossing_i0=i0, kind_code=kind_code,
+                    events=events, paths=paths, dwells=dwells, crossing_i0=i0, kind_code=kind_code, n_wraps=n_wraps,
                     crossing_f=f_c,
                     visited=(bool(np.any(labels == 0)), bool(np.any(labels == 1))))
 
@@ -985,6 +999,11 @@ def crossings_work(
         reps.append(_replica_events(tr, k, sc, a_hi=a_hi, b_lo=b_lo, surface=surface))
         yield Progress(1 + k, total, "crossings: events")
 
+    n_wraps = sum(r.n_wraps for r in reps)
+    if n_wraps:
+        warnings.append(f"{n_wraps} jumps across the period of the coordinate were not counted as crossings "
+                        "of the dividing surface; transitions over the other barrier have a path but no "
+                        "transition event")
     events = np.concatenate([r.events for r in reps])
     events["index"] = np.arange(events.shape[0])
     offsets = np.cumsum([0] + [r.paths.shape[0] for r in reps])

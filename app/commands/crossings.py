@@ -32,7 +32,19 @@ from phasewake.app.common import add_run_arguments, open_run_from_args, print_js
 LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 
 
+EPILOG = """\
+examples:
+  phasewake crossings run.h5md --coordinate "distance(0, 1)"
+  phasewake crossings run.h5md -c "distance(0, 1)" --states 0.42,0.53 --surface 0.475 --events events.csv
+  phasewake crossings rep1.h5md rep2.h5md rep3.h5md --replicas -c "distance(0, 1)" --json
+  phasewake crossings traj.dcd --top top.pdb -c "dihedral(4, 6, 8, 14)" --states=-2.5,-0.5
+values that start with a minus sign need the = form: --states=-2.5,-0.5 --surface=-1.4
+"""
+
+
 def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.epilog = EPILOG
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
     add_run_arguments(parser)
     parser.add_argument("--coordinate", "-c", metavar="SPEC", required=True,
                         help='reaction coordinate, e.g. "distance(0, 1)" (see phasewake coords --help)')

@@ -438,3 +438,24 @@ def test_sample_dimer_against_mdtraj_distances_and_a_plain_loop():
     assert res.velocity_source.startswith("stored")
     clear = np.abs(res.events["velocity"]) > 0.05
     assert np.all(np.sign(res.events["velocity"][clear]) == res.events["direction"][clear])
+
+
+def test_periodic_coordinate_wraps_are_not_crossings():
+    # A dihedral turning steadily: q = wrap(w t) into (-pi, pi]. Each turn crosses q* = 0 once upwards
+    # (A -> B) and jumps from +pi to -pi (B -> A over the other barrier) without crossing q*.
+    from phasewake.core.crossings import Trace
+
+    w = 2 * np.pi / 10.0  # one turn per 10 ps
+    t = np.arange(0.0, 50.0, 0.01) + 0.0037
+    q = np.angle(np.exp(1j * (w * t - np.pi + 0.2)))
+    r = pool_crossings([Trace(t, q, period=2 * np.pi)], states=(-1.0, 1.0), surface=0.0, kappa_time_series=False)
+    assert np.all(r.events["direction"] == 1)
+    # zero crossings at w t - pi + 0.2 = 2 pi k  ->  t = (pi - 0.2 + 2 pi k) / w (analytic)
+    expected = (np.pi - 0.2 + 2 * np.pi * np.arange(5)) / w
+    np.testing.assert_allclose(r.events["time_ps"], expected[expected < t[-1]], atol=1e-6)
+    assert any("period" in x for x in r.warnings)
+    assert r.rate_ab.n_transitions == 5 and r.rate_ba.n_transitions >= 4
+    assert set(r.paths["n_crossings"][r.paths["from_state"] == "B"].tolist()) == {0}
+    # Without the period the wraps would be counted as crossings of q* (a plain sign change).
+    naive = pool_crossings([(t, q)], states=(-1.0, 1.0), surface=0.0, kappa_time_series=False)
+    assert len(naive.events) > len(r.events)
