@@ -47,7 +47,17 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
                                             temperature_K=temperature_K))
     if guide:
         win.show_guide()
-    return int(app.exec())
+    code = int(app.exec())
+    if not win.jobs.wait_all(5_000):
+        # A cancelled analysis still inside a long numpy call: nothing is written (inputs are read
+        # only), so leave now instead of letting Qt abort on a thread destroyed while running.
+        import os
+        import sys
+
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    return code
 
 
 __all__ = ["launch"]

@@ -395,6 +395,10 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         PlotSpec(title=f"{s.label or s.spec} against time", x=Axis("Time", "ps"), y=xa, x_is_time=True,
                  legend=False, items=(Line(np.asarray(s.time_ps, float), q, label=s.spec),)),),
         caption=f"The coordinate {s.spec} frame by frame."))
+    spec2 = str(ctx.choices.get("coordinate2") or "").strip()
+    if spec2 and spec2 != ctx.coordinate:
+        s2 = yield from coordinate_series(ctx.run, spec2, ctx.start, ctx.stop)
+        figs.extend(_pair_figures(s, s2, traces))
     # principal components of the solute, when the projection module is here and the run is small enough
     proj = module_or_none("projection")
     info: dict[str, Any] = {"coordinate": s}
@@ -408,6 +412,35 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
             figs.extend(_pca_figures(pca, traces))
             info["pca"] = pca
     return PanelResult(figures=tuple(figs), traces=traces, info=info)
+
+
+def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
+    """Two coordinates against each other, and the Poincaré section (q2, p2) where q1 crosses its median."""
+    t = np.asarray(s1.time_ps, float)
+    q1 = np.asarray(s1.values, float)
+    q2 = np.asarray(s2.values, float)
+    figs = [_portrait(q1, q2, key="phase.pair", title=f"{s1.spec} against {s2.spec}",
+                      xa=Axis(s1.spec, s1.unit), ya=Axis(s2.spec, s2.unit), label=f"{s1.spec}, {s2.spec}",
+                      caption=f"The coordinate pair ({s1.spec}, {s2.spec}) frame by frame; the large dot is "
+                              "the cursor's frame.")]
+    traces["phase.pair"] = Trace(t, q1, q2)
+    land = module_or_none("landscape")
+    if land is not None and s2.momentum is not None:
+        level = float(np.median(q1))
+        sec = land.poincare_section(q1, q2, np.asarray(s2.momentum, float), t, value=level, direction="up",
+                                    q2_unit=s2.unit, p2_unit=s2.momentum_unit)
+        if sec.n_points:
+            figs.append(FigureSpec(
+                key="phase.poincare_pair", title=f"Poincar\u00e9 section at {s1.spec} = {level:.4g} {s1.unit}",
+                caption=(f"({s2.spec}, its momentum) each time {s1.spec} crosses {level:.4g} {s1.unit} (its median) "
+                         f"upwards, interpolated between frames: {sec.n_points} points. Regular motion lies on "
+                         "curves, chaotic motion fills areas."),
+                plots=(PlotSpec(title="Poincar\u00e9 section", x=Axis(s2.spec, s2.unit),
+                                y=Axis(f"Momentum of {s2.spec}", s2.momentum_unit), legend=False,
+                                items=(Line(np.asarray(sec.q2, float), np.asarray(sec.p2, float), kind="scatter",
+                                            label="section", style=Style(colour="#0072B2", marker="o",
+                                                                         marker_size=5)),)),)))
+    return figs
 
 
 def _pca_figures(pca: Any, traces: dict[str, Trace]) -> list[FigureSpec]:

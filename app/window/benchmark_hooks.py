@@ -23,13 +23,14 @@ def _app():
 
 
 def first_panel_seconds(path: str | Path, *, timeout_s: float = 120.0) -> float:
-    """Seconds from ``open_paths`` to the Energy panel painted with its first result.
+    """Seconds from loading the window's code to the Energy panel painted with its first result.
 
     The first result is the energy table's figure, or (for a run without one) the panel's plain
     message; opening reads headers only, so this is what a user waits for before seeing anything.
     """
     import tempfile
 
+    t0 = time.perf_counter()  # what a user waits for includes loading the window's code
     from PySide6 import QtCore
 
     from phasewake.app.window.main import MainWindow
@@ -37,7 +38,6 @@ def first_panel_seconds(path: str | Path, *, timeout_s: float = 120.0) -> float:
     app = _app()
     with tempfile.TemporaryDirectory() as tmp:
         settings = QtCore.QSettings(str(Path(tmp) / "s.ini"), QtCore.QSettings.Format.IniFormat)
-        t0 = time.perf_counter()
         win = MainWindow(settings=settings)
         win.resize(1280, 800)
         win.show()
@@ -51,9 +51,9 @@ def first_panel_seconds(path: str | Path, *, timeout_s: float = 120.0) -> float:
             time.sleep(0.002)
         panel.repaint()  # paint now, synchronously
         elapsed = time.perf_counter() - t0
+        win.cancel_work()  # the other panels are not part of this measurement: never start them
         if win.messages:
             raise RuntimeError(win.messages[-1])
-        win.jobs.cancel_all()
         win.jobs.wait_all(10_000)
         win.close()
         win.deleteLater()

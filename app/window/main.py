@@ -25,7 +25,10 @@ from phasewake.core.run import Run
 Opener = Callable[[Sequence[str], str | None, RunSettings], Run]
 
 # Choices that change what an analysis computes (others, like the trail length, only redraw).
-RECOMPUTE_CHOICES = {"landscape_marks"}
+RECOMPUTE_CHOICES: dict[str, tuple[str, ...]] = {
+    "landscape_marks": ("Crossings", "Landscape"),
+    "coordinate2": ("Phase space",),
+}
 GUIDE_TEXT = """<h3>A short guide</h3>
 <p><b>Runs</b> (left): every run you opened, with what its files hold. Add runs with <i>Add…</i>
 or by dropping files on the window; state a time step, constraints or a temperature when the files
@@ -181,6 +184,8 @@ class MainWindow(QtWidgets.QMainWindow):
         a = mb.addMenu("&Analysis")
         self._action(a, "Coordinate\u2026", self.ask_coordinate, "Ctrl+K",
                      "Choose the coordinate of the phase-space, crossings and landscape panels")
+        self._action(a, "Second coordinate\u2026", self.ask_coordinate2, "Ctrl+Shift+K",
+                     "A second coordinate for coordinate pairs and the Poincar\u00e9 section")
         self._action(a, "Whole run", lambda: self.model.set_time_window(None), "Ctrl+0",
                      "Analyse the whole run (reset the time window)")
         self._action(a, "Recompute", self.recompute, "F5")
@@ -333,8 +338,8 @@ class MainWindow(QtWidgets.QMainWindow):
 
     # ---- computing ----------------------------------------------------------------------------
     def _choice_changed(self, key: str) -> None:
-        if key in RECOMPUTE_CHOICES:
-            self.schedule_recompute(("Crossings", "Landscape"))
+        if key in RECOMPUTE_CHOICES and self.model.current is not None:
+            self.schedule_recompute(RECOMPUTE_CHOICES[key])
 
     def schedule_recompute(self, panels: Sequence[str] | None = None) -> None:
         """Recompute soon (debounced: a dragged window recomputes once it rests)."""
@@ -470,6 +475,15 @@ class MainWindow(QtWidgets.QMainWindow):
         dlg = CoordinateBuilder(None if e is None else e.run, self.model.coordinate, self)
         if dlg.exec() == QtWidgets.QDialog.DialogCode.Accepted and dlg.spec:
             self.model.set_coordinate(dlg.spec)
+
+    def ask_coordinate2(self) -> None:
+        from phasewake.app.window.builder import CoordinateBuilder
+
+        e = self.model.current
+        dlg = CoordinateBuilder(None if e is None else e.run, str(self.model.choice("coordinate2", "") or ""), self)
+        dlg.setWindowTitle("Second coordinate")
+        if dlg.exec() == QtWidgets.QDialog.DialogCode.Accepted:
+            self.model.set_choice("coordinate2", dlg.spec)
 
     # ---- sessions -----------------------------------------------------------------------------
     def session_state(self) -> session_io.SessionState:

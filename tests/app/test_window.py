@@ -377,3 +377,19 @@ def test_coordinate_builder_writes_and_checks_specs(win, qtbot):
         dlg.filter.setText(run.topology.atom(1).name)
         visible = [r for r in range(dlg.table.rowCount()) if not dlg.table.isRowHidden(r)]
         assert 1 in visible and len(visible) < dlg.table.rowCount()
+
+
+def test_second_coordinate_adds_pair_and_poincare_section(win):
+    w = win
+    w.model.set_choice("coordinate2", "distance(0, 2)")
+    assert w.wait_idle(60_000)
+    phase = w.panels["Phase space"]
+    keys = [f.key for f in phase.result.figures]
+    assert "phase.pair" in keys and "phase.poincare_pair" in keys, keys
+    phase.chooser.setCurrentIndex(keys.index("phase.pair"))
+    assert phase.current_trace() is not None and _drawn_points(phase) > 0  # the cursor is marked here too
+    phase.chooser.setCurrentIndex(keys.index("phase.poincare_pair"))
+    assert _drawn_points(phase) > 0
+    w.model.set_choice("coordinate2", "")
+    phase.chooser.setCurrentIndex(0)
+    assert w.wait_idle(60_000)
