@@ -177,6 +177,28 @@ def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> t
     return q, grad
 
 
+def _leading_eigenpairs(cov: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+    """The k largest eigenpairs of a symmetric matrix.
+
+    Few of many (k <= d/10, d >= 500): Lanczos (scipy.sparse.linalg.eigsh, ARPACK) to machine
+    precision from a fixed start vector, so results are reproducible; otherwise LAPACK syevr on the
+    index subset (scipy.linalg.eigh).
+    """
+    d = cov.shape[0]
+    if d >= 500 and k <= d // 10:
+        from scipy.sparse.linalg import ArpackError, eigsh
+
+        v0 = np.cos(np.arange(d) * 0.7071067811865476) + 1.5  # fixed, not orthogonal to anything special
+        try:
+            w, v = eigsh(cov, k=k, which="LA", v0=v0, tol=0.0)
+            return w, v
+        except ArpackError:  # no convergence: fall back to the dense route below
+            pass
+    import scipy.linalg
+
+    return scipy.linalg.eigh(cov, subset_by_index=[d - k, d - 1], driver="evr")  # type: ignore[no-any-return]
+
+
 def _nystrom(omega: np.ndarray, y: np.ndarray, k: int, eps: float) -> tuple[np.ndarray, np.ndarray]:
     """Leading eigenpairs of a PSD matrix C from one sketch Y = C Omega (Omega orthonormal, d x l).
 
@@ -277,11 +299,50 @@ def compute_pca(
     shift = (ref * sq[:, None]).reshape(-1)  # data are shifted by the reference before products
     dt = np.float32 if precision == "float32" else np.float64
 
+    # Work buffers reused from chunk to chunk: fresh memory is slow to touch (PERFORMANCE.md), and a
+    # new d x d product per chunk would cost more than the GEMM that fills it.
+    wn = fit_w / fit_w.sum()
+    ref_c = ref - wn @ ref
+    wy = ref_c * wn[:, None]
+    cy = wn @ ref
+    sq3 = np.repeat(sq, 3)
+    read_cols = None if np.array_equal(idx, np.arange(run.n_atoms)) else idx
+    bufs: dict[str, np.ndarray] = {}
+
+    def buffer(name: str, shape: tuple[int, ...], dtype: type) -> np.ndarray:
+        b = bufs.get(name)
+        if b is None or b.shape[0] < shape[0] or b.dtype != dtype:
+            b = bufs[name] = np.empty((max(shape[0], chunk),) + shape[1:], dtype=dtype)
+        return b[: shape[0]]
+
     def chunks(velocities: bool = False):
         for ch in run.frames.iter_chunks(chunk_frames=chunk, start=start, stop=stop_, stride=stride,
-                                         atom_indices=idx, velocities=velocities):
-            xf, rot = _fitted(np.asarray(ch.positions_nm), ref, fit_w, fit)
-            y = (xf * sq[None, :, None]).reshape(ch.n_frames, d) - shift
+                                         atom_indices=read_cols, velocities=velocities):
+            x = np.asarray(ch.positions_nm)
+            m = x.shape[0]
+            rot = None
+            if fit:  # Kabsch (1976), as coordinates.kabsch, into the reused buffers
+                xc = buffer("xc", (m, g, 3), np.float64)
+                np.subtract(x, np.matmul(wn, x)[:, None, :], out=xc)
+                u, _s, vt = np.linalg.svd(np.matmul(xc.transpose(0, 2, 1), wy))
+                sign = np.sign(np.linalg.det(u @ vt))
+                sign[sign == 0] = 1.0
+                u[:, :, 2] *= sign[:, None]
+                rot = u @ vt
+                xf = buffer("xf", (m, g, 3), np.float64)
+                np.matmul(xc, rot, out=xf)
+                xf += cy - ref  # y - shift = (fitted - reference) M^1/2, in float64 before rounding
+                xf *= sq[:, None]
+                flat = xf.reshape(m, d)
+            else:
+                flat = buffer("xf", (m, g, 3), np.float64).reshape(m, d)
+                np.multiply(x.reshape(m, d), sq3, out=flat)
+                flat -= shift  # in float64, before any rounding to float32
+            if dt is np.float64:
+                y = flat
+            else:
+                y = buffer("y", (m, d), dt)
+                y[...] = flat
             yield ch, y, rot
 
     n_passes = (1 if method == "exact" else 1 + n_iter) + (1 if projections else 0)
@@ -292,20 +353,18 @@ def compute_pca(
     sdiag = np.zeros(d)
     if method == "exact":
         s2 = np.zeros((d, d))
+        prod = np.empty((d, d), dtype=dt)
         for _ch, y, _rot in chunks():
-            yc = y.astype(dt)
-            s2 += (yc.T @ yc).astype(np.float64)
-            s1 += y.sum(axis=0)
+            np.matmul(y.T, y, out=prod)
+            s2 += prod
+            s1 += y.sum(axis=0, dtype=np.float64)
             n += y.shape[0]
             done += y.shape[0]
             yield Progress(done, total_work, "PCA covariance")
         mu = s1 / n
         cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
         cov = 0.5 * (cov + cov.T)
-        import scipy.linalg
-
-        # only the leading k eigenpairs (LAPACK syevr on a subset): much cheaper than all d of them
-        evals, evecs = scipy.linalg.eigh(cov, subset_by_index=[d - k_keep, d - 1], driver="evr")
+        evals, evecs = _leading_eigenpairs(cov, k_keep)
         order = np.argsort(evals)[::-1]
         evals_k = np.clip(evals[order], 0.0, None)
         evecs_k = evecs[:, order]
@@ -321,11 +380,10 @@ def compute_pca(
             n_it = 0
             qd = q_block.astype(dt)
             for _ch, y, _rot in chunks():
-                yc = y.astype(dt)
-                z += (yc.T @ (yc @ qd)).astype(np.float64)
-                s1_it += y.sum(axis=0)
+                z += y.T @ (y @ qd)
+                s1_it += y.sum(axis=0, dtype=np.float64)
                 if it == 0:
-                    sdiag += np.einsum("nd,nd->d", y, y)
+                    sdiag += np.einsum("nd,nd->d", y, y, dtype=np.float64)
                 n_it += y.shape[0]
                 done += y.shape[0]
                 yield Progress(done, total_work, f"PCA randomized pass {it + 1}/{n_iter + 1}")

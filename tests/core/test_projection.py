@@ -153,3 +153,12 @@ def test_cosine_content_verdict():
     assert v.level == "problem" and "pca.cosine_content" in EXPLANATIONS  # random diffusion (Hess 2002)
     still = rng.normal(size=(3000, 20, 3)).astype(np.float32)
     assert cosine_content_verdict(pca_arrays(still, np.ones(20), fit=False, n_components=2)).level == "ok"
+
+
+def test_many_coordinates_lanczos_route_matches_numpy():
+    """d = 600 >= 500 with k = 5: the Lanczos (ARPACK) route against numpy's dense eigh."""
+    pos, m = _correlated(n=1500, g=200, seed=12)
+    res = pca_arrays(pos, m, n_components=5, fit=False, projections=False, precision="float64")
+    y = (pos.astype(np.float64) * np.sqrt(m)[None, :, None]).reshape(len(pos), -1)
+    w = np.linalg.eigvalsh(np.cov(y, rowvar=False))[::-1][:5]  # numpy
+    np.testing.assert_allclose(res.eigenvalues, w, rtol=1e-8)
