@@ -49,6 +49,7 @@ YEH_HUMMER_XI = 2.837297  # Yeh & Hummer (2004), cubic box
 NM2_PER_PS_TO_CM2_PER_S = 1e-2
 
 DEFAULT_BUFFER_BYTES = 256 * 2**20
+DEFAULT_SPECTRUM_LAG_PS = 2.0  # lag window of the VDOS unless asked: 16.7 cm^-1 resolution, smooth
 _FFT_BATCH_BYTES = 48 * 2**20
 
 
@@ -772,6 +773,7 @@ class VDOSResult:
     n_dof: float
     peaks: tuple[Peak, ...]  # significant peaks, by wavenumber
     highest_significant_peak_cm1: float | None
+    upper_wavenumber_cm1: float  # below this lies 99% of the spectral weight (robust when no peak stands out)
     resolution_cm1: float  # 1 / (c * lag window)
     bin_spacing_cm1: float
     nyquist_cm1: float
@@ -831,11 +833,14 @@ def vdos_from_vacf(lag_ps: np.ndarray, vacf_mass_weighted: np.ndarray, *, n_dof:
     intensity = spec * (n_dof / area)
     top = float(intensity.max())
     idx, props = find_peaks(intensity, prominence=peak_prominence * top)
+    pos = np.clip(intensity, 0.0, None)
+    cum = np.concatenate([[0.0], np.cumsum(0.5 * (pos[1:] + pos[:-1]) * np.diff(wn))])
+    upper = float(wn[min(int(np.searchsorted(cum, 0.99 * cum[-1])), wn.size - 1)])
     peaks = tuple(Peak(float(wn[i]), float(f_thz[i]), float(intensity[i]), float(p / top))
                   for i, p in zip(idx, props["prominences"]))
     return VDOSResult(
         wavenumber_cm1=wn, thz=f_thz, intensity=intensity, n_dof=float(n_dof), peaks=peaks,
-        highest_significant_peak_cm1=peaks[-1].wavenumber_cm1 if peaks else None,
+        highest_significant_peak_cm1=peaks[-1].wavenumber_cm1 if peaks else None, upper_wavenumber_cm1=upper,
         resolution_cm1=1.0 / (SPEED_OF_LIGHT_CM_PER_S * L * dt / PS_PER_S),
         bin_spacing_cm1=float(wn[1] - wn[0]), nyquist_cm1=nyquist_cm1(dt), dt_ps=dt, max_lag_ps=L * dt,
         window=window, velocities_estimated=velocities_estimated,
@@ -856,7 +861,9 @@ def vdos_from_velocities(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarra
         Frame spacing (ps); the Nyquist limit is 1 / (2 c dt).
     window : {"hann", "none"}
     max_lag : int, optional
-        Lag window L in frames (default F // 2); resolution 1 / (c L dt).
+        Lag window L in frames; default the frames in 2 ps (at most F // 2). Resolution 1 / (c L dt):
+        a longer window resolves finer but is noisier (the variance of a lag-window estimate grows
+        with L / F), so the default favours a smooth spectrum (2 ps: 16.7 cm^-1).
     n_dof : float, optional
         Normalisation (default 3 N).
     peak_prominence : float
@@ -866,6 +873,8 @@ def vdos_from_velocities(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarra
     VDOSResult
     """
     v = np.asarray(velocities_nm_per_ps)
+    if max_lag is None:
+        max_lag = int(max(4, min(v.shape[0] // 2, round(DEFAULT_SPECTRUM_LAG_PS / dt_ps))))
     r = vacf_from_velocities(v, dt_ps, masses_amu=masses_amu, mass_weighted=True, max_lag=max_lag)
     return vdos_from_vacf(r.lag_ps, r.vacf_sum.sum(axis=0), n_dof=3.0 * v.shape[1] if n_dof is None else n_dof,
                           window=window, peak_prominence=peak_prominence)
@@ -878,12 +887,17 @@ def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray |
                          max_buffer_bytes: int = DEFAULT_BUFFER_BYTES) -> Work[VDOSResult]:
     """Streaming VDOS of a run (generator: yields Progress, returns VDOSResult).
 
+    ``max_lag_ps`` defaults to 2 ps (at most half the run; see :func:`vdos_from_velocities`).
     ``n_dof`` defaults to 3 x the atoms used (constraints are not subtracted: the spectrum of a
     constrained run simply has less weight at the constrained frequencies, and the normalisation is a
     convention). The highest significant peak (``highest_significant_peak_cm1``) is what the time-step
     check uses.
     """
     idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
+    if max_lag_ps is None:
+        t = np.asarray(run.time_ps)[start:stop:stride]
+        span = float(t.size * np.median(np.diff(t))) if t.size > 1 else 0.0
+        max_lag_ps = min(DEFAULT_SPECTRUM_LAG_PS, 0.5 * span) if span > 0 else None
     res = yield from vacf(run, groups={"atoms": idx}, mass_weighted=True, max_lag_ps=max_lag_ps, start=start,
                           stop=stop, stride=stride, chunk_frames=chunk_frames, max_buffer_bytes=max_buffer_bytes)
     out = vdos_from_vacf(res.lag_ps, res.vacf_sum[0], n_dof=3.0 * idx.size if n_dof is None else n_dof,

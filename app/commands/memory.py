@@ -382,6 +382,7 @@ def _velocity_json(v: dict[str, Any]) -> dict[str, Any]:
         out["spectrum"] = {"wavenumber_cm1": s.wavenumber_cm1, "thz": s.thz, "intensity_per_cm1": s.intensity,
                            "n_dof": s.n_dof, "peaks": [p.__dict__ for p in s.peaks],
                            "highest_significant_peak_cm1": s.highest_significant_peak_cm1,
+                           "upper_wavenumber_cm1": s.upper_wavenumber_cm1,
                            "resolution_cm1": s.resolution_cm1, "nyquist_cm1": s.nyquist_cm1,
                            "window": s.window, "velocities_estimated": s.velocities_estimated,
                            "notes": list(s.notes)}
@@ -470,6 +471,7 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
             w(f"    highest significant peak {s.highest_significant_peak_cm1:.1f} cm^-1\n")
         else:
             w("    no significant peak\n")
+        w(f"    99% of the spectral weight lies below {s.upper_wavenumber_cm1:.1f} cm^-1\n")
         for n in s.notes:
             w(wrap.fill(f"note: {n}") + "\n")
     if "tm" in vel:

@@ -144,7 +144,7 @@ def test_vdos_of_3657_cosine_peaks_within_one_bin():
     t = np.arange(20_000) * dt  # 10 ps
     v = np.zeros((t.size, 1, 3), np.float32)
     v[:, 0, 0] = np.cos(2 * np.pi * C_CM_PER_S * 3657.0 * t * 1e-12)  # c exact; 3657 cm^-1 water nu1
-    r = V.vdos_from_velocities(v, np.ones(1), dt)
+    r = V.vdos_from_velocities(v, np.ones(1), dt, max_lag=10_000)  # lag window 5 ps: bins of 1/(c 10 ps)
     assert len(r.peaks) == 1
     # within one bin of 1/(c * 10 ps) = 3.336 cm^-1 (REFERENCES 4.3)
     assert abs(r.peaks[0].wavenumber_cm1 - 3657.0) <= 1 / (C_CM_PER_S * 10e-12)
@@ -162,10 +162,14 @@ def test_vdos_two_modes_and_highest_peak():
     v[:, 0, 1] = np.cos(2 * np.pi * C_CM_PER_S * 1595.0 * t * 1e-12 + rng.uniform(0, 6))
     v[:, 1, 2] = 0.5 * np.cos(2 * np.pi * C_CM_PER_S * 3756.0 * t * 1e-12 + rng.uniform(0, 6))
     r = V.vdos_from_velocities(v, np.array([1.0, 4.0]), dt)  # equal mass-weighted power in both modes
+    assert r.max_lag_ps == pytest.approx(2.0)  # default lag window
+    assert r.resolution_cm1 == pytest.approx(1 / (C_CM_PER_S * 2e-12))  # 16.7 cm^-1
     found = sorted(p.wavenumber_cm1 for p in r.peaks)
     assert len(found) == 2
     assert abs(found[0] - 1595) <= r.bin_spacing_cm1 and abs(found[1] - 3756) <= r.bin_spacing_cm1
     assert r.highest_significant_peak_cm1 == pytest.approx(found[1])
+    # 99% of the weight lies below a little above the top mode (Hann leakage spreads ~ one resolution)
+    assert 3756 < r.upper_wavenumber_cm1 < 3756 + 3 * r.resolution_cm1
 
 
 def test_streaming_spectrum_matches_kernel():
@@ -176,6 +180,7 @@ def test_streaming_spectrum_matches_kernel():
     run = run_from_arrays(np.zeros_like(v), t, np.array([1.0, 12.0, 16.0]), velocities_nm_per_ps=v)
     a = result_of(V.vibrational_spectrum(run, chunk_frames=64))
     b = V.vdos_from_velocities(v, np.array([1.0, 12.0, 16.0]), dt)
+    assert a.max_lag_ps == pytest.approx(1.0)  # half of the 2 ps run
     np.testing.assert_allclose(a.intensity, b.intensity, rtol=1e-4, atol=1e-9)
     assert abs(a.highest_significant_peak_cm1 - 2000) < 2 * a.bin_spacing_cm1
 
