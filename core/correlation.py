@@ -791,10 +791,14 @@ def detect_equilibration(
 def judge_equilibration(result: EquilibrationResult, *, name: str = "series") -> verdicts.Verdict:
     """The ``sampling.equilibration`` verdict."""
     f = result.fraction_discarded
+    extra = ""
+    if result.effective_sample_size < 100:
+        extra = ("With so few independent samples the estimates of g on the shorter tails are noisy and the "
+                 "detected start is uncertain (it tends to move late). ")
     return verdicts.judge(
         "sampling.equilibration", f, title=f"Equilibration of {name}", unit="fraction of run",
         message=f"{name}: the data from t0 = {result.t0_ps:.4g} ps on ({100 * (1 - f):.0f}% of the run) hold "
-        f"the most independent samples ({result.effective_sample_size:.0f}). " + verdicts.HEURISTIC_NOTE,
+        f"the most independent samples ({result.effective_sample_size:.0f}). " + extra + verdicts.HEURISTIC_NOTE,
         advice=verdicts.EXPLANATIONS["sampling.equilibration"].advice,
         details={"t0_index": result.t0_index},
     )
