@@ -459,3 +459,67 @@ def test_periodic_coordinate_wraps_are_not_crossings():
     # Without the period the wraps would be counted as crossings of q* (a plain sign change).
     naive = pool_crossings([(t, q)], states=(-1.0, 1.0), surface=0.0, kappa_time_series=False)
     assert len(naive.events) > len(r.events)
+
+
+def _reference_events(q: np.ndarray, a_hi: float, b_lo: float, qs: float):
+    """The definitions written as plain per-frame loops (slow, obvious): kinds, from/to states, counts."""
+    n = q.size
+    core = np.where(q <= a_hi, 0, np.where(q >= b_lo, 1, -1))
+    committed = np.empty(n, int)
+    state = -1
+    n_ab = n_ba = 0
+    for i in range(n):
+        if core[i] >= 0 and core[i] != state:
+            if state == 0:
+                n_ab += 1
+            elif state == 1:
+                n_ba += 1
+            state = core[i]
+        committed[i] = state
+    side = q >= qs
+    cross = [i for i in range(1, n) if side[i] != side[i - 1]]
+    kinds, froms, tos = [], [], []
+    for k, i in enumerate(cross):
+        nxt = cross[k + 1] if k + 1 < len(cross) else n
+        frm = committed[i - 1]
+        first_core = next((j for j in range(i, n) if core[j] >= 0), None)
+        to = -1 if first_core is None else core[first_core]
+        hit = first_core is not None and first_core < nxt
+        if frm < 0:
+            kind = "censored"
+        elif hit and to != frm:
+            kind = "transition"
+        elif first_core is None and nxt == n:
+            kind = "censored"
+        else:
+            kind = "recrossing"
+        kinds.append(kind)
+        froms.append("AB"[frm] if frm >= 0 else "")
+        tos.append("AB"[to] if to >= 0 else "")
+    return n_ab, n_ba, kinds, froms, tos, committed
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_vectorised_kernel_matches_plain_loops_on_random_signals(seed):
+    rng = np.random.default_rng(100 + seed)
+    n = int(rng.integers(50, 3000))
+    # a random walk with occasional jumps (so a frame can leap from core to core)
+    steps = rng.normal(0, rng.uniform(0.05, 0.4), n)
+    steps[rng.random(n) < 0.01] *= 15
+    q = np.cumsum(steps)
+    q = 2.0 * (q - q.min()) / (np.ptp(q) + 1e-12) - 1.0
+    a_hi = float(rng.uniform(-0.8, -0.1))
+    b_lo = float(rng.uniform(0.1, 0.8))
+    qs = float(rng.uniform(a_hi + 0.01, b_lo - 0.01))
+    t = np.cumsum(rng.uniform(0.5, 1.5, n))
+    r = analyse_crossings(t, q, states=(a_hi, b_lo), surface=qs, kappa_time_series=False, test_dwells=False)
+    n_ab, n_ba, kinds, froms, tos, committed = _reference_events(q, a_hi, b_lo, qs)
+    assert r.rate_ab.n_transitions == n_ab and r.rate_ba.n_transitions == n_ba
+    assert list(r.events["kind"]) == kinds
+    assert list(r.events["from_state"]) == froms
+    assert list(r.events["to_state"]) == tos
+    np.testing.assert_array_equal(committed_states(q, a_hi=a_hi, b_lo=b_lo), committed)
+    # one transition event per path, and exposures add up to the run's length
+    assert r.n_transitions == len(r.paths)
+    assert r.rate_ab.exposure_ps + r.rate_ba.exposure_ps == pytest.approx(
+        (t[-1] - t[0]) if len(r.dwells) else 0.0)
