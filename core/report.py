@@ -530,7 +530,7 @@ def _paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
             out.append(p)
             continue
         header, rows = p.table[0], list(p.table[1:])
-        budget = 40 - (len(_wrap(p.text, _TEXT_CHARS)) if p.text else 0)
+        budget = 36 - (len(_wrap(p.text, _TEXT_CHARS)) if p.text else 0)
         chunk: list[tuple[str, ...]] = []
         lv: list[str] = []
         used = 0
@@ -541,7 +541,7 @@ def _paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
                 out.append(ReportPage(p.section, p.title if first else p.title + " (continued)",
                                       table=(header, *chunk), table_levels=tuple(lv),
                                       text=p.text if first else "", caption=p.caption))
-                first, chunk, lv, used, budget = False, [], [], 0, 44
+                first, chunk, lv, used, budget = False, [], [], 0, 42
             chunk.append(r)
             if p.table_levels:
                 lv.append(p.table_levels[i])
@@ -556,7 +556,7 @@ def _widths(ncols: int) -> list[int]:
     """Characters per column line: the page body is 785 pt wide and a DejaVu Sans character is about
     0.6 em, so about 160 characters fit at 8 pt and 130 at 10 pt; the rest is the gap between columns."""
     if ncols == 5:
-        return [8, 25, 14, 29, 88]
+        return [13, 24, 14, 28, 85]
     if ncols == 2:
         return [28, 96]
     return [150 // max(1, ncols)] * ncols
