@@ -404,6 +404,9 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
     w = out.write
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
     w(f"phasewake memory: {run.name}\n")
+    for text in run.warnings:
+        w(textwrap.fill(f"note from reading the files: {text}", width=100, initial_indent="  ",
+                        subsequent_indent="    ") + "\n")
     for a in analyses:
         r = a["correlation"]
         u = f" {a['unit']}" if a["unit"] else ""
@@ -517,7 +520,7 @@ def run(args: argparse.Namespace) -> int:
     if "tm_verdict" in vel:
         levels.append(vel["tm_verdict"].level)
     if args.json:
-        print_json({"run": run_.name, "files": [str(p) for p in run_.paths],
+        print_json({"run": run_.name, "files": [str(p) for p in run_.paths], "warnings": list(run_.warnings),
                     "series": [_series_json(a) for a in analyses], **_velocity_json(vel),
                     "worst": worst(levels), "note": HEURISTIC_NOTE})
     else:
