@@ -263,3 +263,15 @@ def test_energy_table_only_gets_dof_from_its_own_columns(tmp_path, capsys):
     assert code == 0
     assert any("N_dof = 300" in n for n in data["notes"])
     assert data["energy"]["drift"]["slope_kT_per_dof_per_ns"] is not None
+
+
+def test_sample_runs_follow_dt_squared(capsys):
+    # The two NVE sample runs differ only in the step (4 fs and 40 fs): sigma_E ~ dt^2 for velocity
+    # Verlet (Hairer, Lubich & Wanner 2006); 40 fs is far from the small-step limit, so the tolerance
+    # is loose (+-0.5 on the exponent, common practice).
+    code = main(["audit", str(_sample("dimer_nve.h5md")), "--compare", str(_sample("dimer_nve_bigstep.h5md")),
+                 "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert code == 1  # the comparison run itself has problems
+    assert data["scaling"]["exponent"] == pytest.approx(2.0, abs=0.5)
+    assert data["compared"]["level"] in ("caution", "problem")
