@@ -883,6 +883,8 @@ def audit_summary(result: AuditResult) -> dict[str, Any]:
     out (they are in the result object for figures)."""
     d = _plain(result)
     d["level"] = result.level
+    if result.compared is not None and isinstance(d.get("compared"), dict):
+        d["compared"]["level"] = result.compared.level
     d["units"] = {"time": "ps", "energy": "kJ/mol", "temperature": "K", "frequency": "1/ps",
                   "wavenumber": "cm^-1", "drift": "kJ/mol/ns (kT/DOF/ns where named)"}
     return d  # type: ignore[no-any-return]
