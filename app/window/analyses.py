@@ -399,19 +399,27 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     if spec2 and spec2 != ctx.coordinate:
         s2 = yield from coordinate_series(ctx.run, spec2, ctx.start, ctx.stop)
         figs.extend(_pair_figures(s, s2, traces))
-    # principal components of the solute, when the projection module is here and the run is small enough
-    proj = module_or_none("projection")
     info: dict[str, Any] = {"coordinate": s}
-    if proj is not None and ctx.run.n_atoms >= 2:
-        try:
-            pca = yield from _relay(proj.compute_pca(window_run(ctx.run, ctx.start, ctx.stop), n_components=3),
-                                    0, 1, 1, "principal components")
-        except Exception as exc:  # noqa: BLE001 - PCA is an extra; its failure must not hide the portrait
-            info["pca_error"] = str(exc)
-        else:
-            figs.extend(_pca_figures(pca, traces))
-            info["pca"] = pca
     return PanelResult(figures=tuple(figs), traces=traces, info=info)
+
+
+PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (PERFORMANCE.md: eigh of
+# a 3000 x 3000 covariance takes seconds, and the full covariance grows as the square)
+
+
+def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """Principal components of the solute: figures added to the Phase space panel when ready."""
+    proj = module_or_none("projection")
+    coords = module_or_none("coordinates")
+    if proj is None or coords is None or ctx.run.frames is None or ctx.run.n_atoms < 2:
+        return PanelResult()
+    group = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
+    method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
+    pca = yield from _relay(proj.compute_pca(window_run(ctx.run, ctx.start, ctx.stop), atom_indices=group,
+                                             n_components=3, method=method), 0, 1, 1, "principal components")
+    traces: dict[str, Trace] = {}
+    figs = _pca_figures(pca, traces)
+    return PanelResult(figures=tuple(figs), traces=traces, info={"pca": pca})
 
 
 def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
@@ -825,5 +833,7 @@ PANEL_JOBS: dict[str, Job] = {
     "Crossings": crossings_job,
     "Landscape": landscape_job,
 }
+# Extra jobs whose figures are added to a panel after its main job: key suffix -> (panel, job).
+EXTRA_JOBS: dict[str, tuple[str, Job]] = {"pca": ("Phase space", pca_job)}
 # The first figure after opening: the energy table alone (no analysis), drawn before the audit runs.
 FIRST_JOB: Job = energy_job

@@ -14,7 +14,14 @@ from typing import Any
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from phasewake.app.window import session as session_io
-from phasewake.app.window.analyses import FIRST_JOB, PANEL_JOBS, PANELS, AnalysisContext, PanelResult
+from phasewake.app.window.analyses import (
+    EXTRA_JOBS,
+    FIRST_JOB,
+    PANEL_JOBS,
+    PANELS,
+    AnalysisContext,
+    PanelResult,
+)
 from phasewake.app.window.model import RunEntry, RunSettings, WindowModel, apply_settings
 from phasewake.app.window.panels import PANEL_CLASSES, Panel
 from phasewake.app.window.ruler import TimeRuler
@@ -70,6 +77,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self._recompute_only: tuple[str, ...] | None = None
         self._rest_pending = False
         self._computed_for: Run | None = None
+        self._extras_waiting: dict[str, list[PanelResult]] = {}
 
         self.panels: dict[str, Panel] = {name: PANEL_CLASSES[name](self.model) for name in PANELS}
         self.tabs = QtWidgets.QTabWidget()
@@ -389,6 +397,10 @@ class MainWindow(QtWidgets.QMainWindow):
             key = "Energy#audit" if name == "Energy" else name
             self.jobs.start(key, lambda job=job, ctx=ctx: job(ctx), label="Energy audit" if name == "Energy"
                             else f"{name} panel")
+            for suffix, (panel_name, extra) in EXTRA_JOBS.items():
+                if panel_name == name:
+                    self.jobs.start(f"{name}#{suffix}", lambda extra=extra, ctx=ctx: extra(ctx),
+                                    label=f"{name} panel ({suffix})")
 
     def _job_started(self, key: str, label: str) -> None:
         self.progress.show()
@@ -428,8 +440,14 @@ class MainWindow(QtWidgets.QMainWindow):
         panel = self.panels.get(name)
         if panel is None:
             return
+        waiting = [] if "#" in key else self._extras_waiting.pop(name, [])
         if outcome.cancelled:
             panel.show_cancelled()
+        elif "#" in key and not key.endswith("#audit"):  # an extra job: add to what the panel shows
+            if outcome.error:
+                panel.add_note(f"{key.split('#')[1]}: {outcome.error}")
+            else:
+                self._extra_done(panel, name, outcome.result)
         elif outcome.error and key.endswith("#audit") and panel.result is not None and panel.result.figures:
             panel.add_note(f"The audit could not run: {outcome.error}")  # keep the energy table shown
             self.say(f"Energy audit: {outcome.error.splitlines()[0]}")
@@ -439,11 +457,20 @@ class MainWindow(QtWidgets.QMainWindow):
         else:
             result: PanelResult = outcome.result
             panel.show_result(result)
+            for extra in waiting:
+                panel.add_result(extra)
             if not self.jobs.busy:
                 self.say(f"Panels up to date ({outcome.elapsed_s:.2g} s for the last).")
         if key == "Energy" and self._rest_pending:
             # let the energy figure reach the screen before the other analyses compete for the CPU
             QtCore.QTimer.singleShot(30, self._start_rest)
+
+    def _extra_done(self, panel: Panel, name: str, result: PanelResult) -> None:
+        if name in self.jobs.running():
+            # the panel's main job is still running: add the extra figures once it has drawn
+            self._extras_waiting.setdefault(name, []).append(result)
+        else:
+            panel.add_result(result)
 
     def _start_rest(self) -> None:
         if not self._rest_pending:

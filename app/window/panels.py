@@ -143,6 +143,39 @@ class Panel(QtWidgets.QWidget):
     def notes_text(self) -> str:
         return self.notes.toPlainText()
 
+    def add_result(self, extra: PanelResult) -> None:
+        """Add the figures (and traces, verdicts) of an extra job to what the panel shows."""
+        import dataclasses
+
+        if not extra.figures and not extra.verdicts:
+            return
+        if self.result is None or not self.result.figures:
+            self.show_result(extra)
+            return
+        keys = {f.key for f in extra.figures}
+        merged = dataclasses.replace(
+            self.result,
+            figures=tuple(f for f in self.result.figures if f.key not in keys) + extra.figures,
+            traces={**self.result.traces, **extra.traces},
+            verdicts=self.result.verdicts + extra.verdicts,
+            info={**self.result.info, **extra.info})
+        current = self.view.spec.key if self.view.spec is not None else None
+        self.result = merged
+        self.chooser.blockSignals(True)
+        self.chooser.clear()
+        for fig in merged.figures:
+            self.chooser.addItem(fig.title, fig.key)
+        idx = max(0, self.chooser.findData(current))
+        self.chooser.setCurrentIndex(idx)
+        self.chooser.blockSignals(False)
+        self._set_chooser_visible(len(merged.figures) > 1)
+        self._show_notes(merged)
+        if current is None or self.chooser.findData(current) < 0:
+            self._draw(merged.figures[idx])
+        wanted = self.model.choice(f"{self.name}.figure")
+        if wanted in keys and wanted != current:  # e.g. a session that was showing a PCA figure
+            self.chooser.setCurrentIndex(self.chooser.findData(wanted))
+
     def _show_notes(self, result: PanelResult) -> None:
         # problems first, so the worst news is what a user sees without scrolling
         order = {"problem": 0, "caution": 1, "ok": 2, "info": 3}

@@ -129,6 +129,9 @@ def test_open_sample_every_panel_draws_data(win):
             continue
         assert panel.view.spec is not None, f"{name}: {panel.view.message.text()}"
         assert _drawn_points(panel) > 0, name
+    if analyses.module_or_none("projection") is not None:  # principal components join the Phase space panel
+        keys = [f.key for f in w.panels["Phase space"].result.figures]
+        assert "phase.pca_variance" in keys, keys
     energy = w.panels["Energy"]
     assert energy.result.verdicts, "the audit's verdicts are shown on the Energy panel"
     assert any(word in energy.notes_text() for word in ("ok", "caution", "problem"))
