@@ -84,6 +84,16 @@ def test_acf_matches_statsmodels_biased_and_unbiased():
     np.testing.assert_allclose(ours_u, ref_u, atol=1e-10)
 
 
+def test_long_series_blocked_transform_matches_statsmodels():
+    from statsmodels.tsa.stattools import acf
+
+    x = ar1(0.95, 70_000, seed=22) - 7.0  # long enough for the blocked transform with a short lag window
+    np.testing.assert_allclose(C.autocorrelation(x, max_lag=100), acf(x, nlags=100, fft=True), atol=1e-10)
+    many = np.vstack([x, x[::-1]])
+    np.testing.assert_allclose(C.autocorrelation(many, max_lag=100, axis=1)[1], acf(x[::-1], nlags=100, fft=True),
+                               atol=1e-10)
+
+
 def test_sokal_g_matches_emcee_integrated_time():
     import emcee
 
