@@ -345,7 +345,7 @@ class CrossingsPanel(Panel):
         split.addWidget(box)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 2)
-        split.setSizes([600, 260])
+        split.setSizes([470, 300])
         self.splitter = split
         self.body.addWidget(split, 1)
         self._rows: list[EventRow] = []
@@ -379,7 +379,8 @@ class CrossingsPanel(Panel):
             for c, text in enumerate(cells):
                 item = QtWidgets.QTableWidgetItem(text)
                 if c == 3:
-                    item.setForeground(QtGui.QColor("#0072B2" if e.kind == "transition" else "#D55E00"))
+                    item.setForeground(QtGui.QColor({"transition": "#0072B2", "recrossing": "#D55E00"}
+                                                    .get(e.kind, "#555555")))
                 self.table.setItem(r, c, item)
         self.table.blockSignals(False)
         self.table.resizeColumnsToContents()
