@@ -494,26 +494,52 @@ def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels:
 
 
 def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surface: float) -> _Scan:
-    """Chunked side changes (temporaries stay in cache), then one reduction per segment."""
+    """Chunked side changes and per-segment extremes, both while a chunk is in cache."""
     n = q.shape[0]
     crs: list[np.ndarray] = []
+    maxs: list[np.ndarray] = []  # extremes of closed segments, in order
+    mins: list[np.ndarray] = []
+    open_max, open_min = -math.inf, math.inf  # extremes so far of the segment still open
+    finite = True
     increasing = True
     for s in range(0, n, _CHUNK):
         lo = max(s - 1, 0)
         x = q[lo:s + _CHUNK]
         side = x >= surface
         d = np.flatnonzero(side[1:] != side[:-1])
+        own = q[s:s + _CHUNK]
         if d.size:
-            crs.append(d + (lo + 1))
+            c = d + (lo + 1)
+            crs.append(c)
+            loc = c - s  # local starts of the segments that begin in this chunk (all >= 0)
+            starts_here = loc if loc[0] == 0 else np.concatenate(([0], loc))
+            mx = np.maximum.reduceat(own, starts_here)
+            mn = np.minimum.reduceat(own, starts_here)
+            finite = finite and bool(np.isfinite(mx).all() and np.isfinite(mn).all())
+            if loc[0] != 0:  # the first piece continues the open segment
+                maxs.append(np.array([max(open_max, float(mx[0]))]))
+                mins.append(np.array([min(open_min, float(mn[0]))]))
+                mx, mn = mx[1:], mn[1:]
+            else:  # the open segment ended with the previous chunk
+                maxs.append(np.array([open_max]))
+                mins.append(np.array([open_min]))
+            maxs.append(mx[:-1])
+            mins.append(mn[:-1])
+            open_max, open_min = float(mx[-1]), float(mn[-1])
+        else:
+            hi_, lo_ = float(own.max()), float(own.min())
+            finite = finite and math.isfinite(hi_) and math.isfinite(lo_)
+            open_max, open_min = max(open_max, hi_), min(open_min, lo_)
         if t is not None and increasing:
             tc = t[lo:s + _CHUNK]
             increasing = not bool(np.any(tc[1:] <= tc[:-1]))
+    maxs.append(np.array([open_max]))
+    mins.append(np.array([open_min]))
     cr = np.concatenate(crs) if crs else np.zeros(0, np.int64)
     starts = np.concatenate(([0], cr)).astype(np.int64)
     ends = np.concatenate((cr, [n])).astype(np.int64)
-    seg_max = np.maximum.reduceat(q, starts)
-    seg_min = np.minimum.reduceat(q, starts)
-    finite = bool(np.all(np.isfinite(seg_max)) and np.all(np.isfinite(seg_min)))
+    seg_max = np.concatenate(maxs)
+    seg_min = np.concatenate(mins)
     first = int(q[0] >= surface)
     seg_side = ((np.arange(starts.size) + first) % 2).astype(np.int8)  # 1: above the surface (B side)
     touched = np.where(seg_side == 1, seg_max >= b_lo, seg_min <= a_hi)
@@ -858,6 +884,16 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
     )
 
 
+def _spread_blocks(x: np.ndarray, fraction: float, n_blocks: int = 200) -> np.ndarray:
+    """About ``fraction`` of x as n_blocks contiguous blocks spread evenly (cache-friendly, unlike a stride)."""
+    n = x.shape[0]
+    if fraction >= 1.0 or n <= n_blocks:
+        return x
+    length = max(1, int(n * fraction / n_blocks))
+    starts = np.linspace(0, n - length, n_blocks).astype(np.int64)
+    return np.concatenate([x[a:a + length] for a in starts])
+
+
 def _check_traces(traces: Sequence[Trace]) -> None:
     if not traces:
         raise AnalysisError("no coordinate series given")
@@ -1125,12 +1161,12 @@ def crossings_work(
 
     # TST from the run's own distribution of q.
     tst_cmp: TSTComparison | None = None
-    # TST from an evenly strided sample of at most ~2e6 frames (all frames of shorter runs): MD frames
-    # are correlated, so the stride loses little, and a long series is not read again in full.
+    # TST from at most ~2e6 frames (all frames of shorter runs) in evenly spread contiguous blocks:
+    # MD frames are correlated, so this loses little, and a long series is not read again in full.
     n_all = sum(r.n for r in reps)
-    step = max(1, n_all // 2_000_000)
-    coarse = np.concatenate([tr.values[::step] for tr in trs])
-    coarse_v = (np.concatenate([tr.velocity[::step] for tr in trs])  # type: ignore[index]
+    frac = min(1.0, 2_000_000 / n_all)
+    coarse = np.concatenate([_spread_blocks(tr.values, frac) for tr in trs])
+    coarse_v = (np.concatenate([_spread_blocks(tr.velocity, frac) for tr in trs])  # type: ignore[arg-type]
                 if all(with_vel) else None)
     lo_c, hi_c = central_range(coarse)
     band = (hi_c - lo_c) / 100.0
