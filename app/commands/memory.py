@@ -180,7 +180,7 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
             out.append({"name": c.label, "unit": c.unit, "values": np.asarray(c.values, float),
                         "time_ps": np.asarray(c.time_ps, float), "source": c.spec, "kind": "coordinate",
                         "momentum": None if c.momentum is None else np.asarray(c.momentum, float),
-                        "momentum_unit": c.momentum_unit})
+                        "momentum_unit": c.momentum_unit, "periodic": bool(c.periodic)})
     return out
 
 
@@ -241,6 +241,8 @@ def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[
         "correlation": res, "g_by_method": g_all, "blocking": block, "equilibration": equil,
         "rhat_segments": rh, "divergence": div, "rhat_replicas": rep, "verdicts": verdict_list,
         "running": running, "coverage": coverage, "momentum_unit": item.get("momentum_unit", ""),
+        "notes": (["a periodic coordinate (an angle in (-pi, pi]): jumps across +-pi count as large changes; "
+                   "if it sits near +-pi, analyse cos or sin of it instead"] if item.get("periodic") else []),
     }
 
 
@@ -355,6 +357,7 @@ def _series_json(a: dict[str, Any]) -> dict[str, Any]:
         d["phase_space_coverage"] = {"time_ps": cov.time_ps, "fraction": cov.fraction,
                                      "grid": f"{cov.visits.shape[0]} x {cov.visits.shape[1]} cells, mean +- 4 sd",
                                      "axes": [a["unit"], a["momentum_unit"]]}
+    d["notes"] = list(d.get("notes", [])) + list(a["notes"])
     d["verdicts"] = [v.to_dict() for v in a["verdicts"]]
     return d
 
@@ -441,7 +444,7 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         rr = a["rhat_replicas"]
         if rr is not None:
             w(f"    R-hat across {rr.n_chains} replicas {rr.rhat:.4f}\n")
-        for n in r.notes:
+        for n in (*r.notes, *a["notes"]):
             w(wrap.fill(f"note: {n}") + "\n")
     if "vacf" in vel:
         r = vel["vacf"]
