@@ -171,7 +171,7 @@ def test_html_variant_parses_and_embeds_figures(report):
 def test_missing_velocities_give_an_honest_page(tmp_path):
     from pypdf import PdfReader
 
-    full = dimer_run(600)
+    full = dimer_run(300)
     # the same run with an energy table only: no frames at all
     from phasewake.core.run import Run
 
