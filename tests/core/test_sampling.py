@@ -231,20 +231,3 @@ def test_errors_and_verdicts_registered():
     for kind in ("sampling.rhat", "sampling.divergence", "sampling.tm_slope"):
         assert verdicts.THRESHOLDS[kind].source and kind in verdicts.EXPLANATIONS
 
-
-def test_figures_describe_the_results():
-    from phasewake.core.figures import FigureSpec, Image
-
-    e = ar1_columns(0.9, 2000, 20, seed=20)
-    tm = S.thirumalai_mountain(e, dt_ps=0.1)
-    f = S.tm_figure(tm)
-    assert isinstance(f, FigureSpec) and f.plots[0].x.log and "ergodic" in f.caption
-    d = S.segment_divergence(e[:, 0], n_segments=3)
-    f = S.divergence_figure(d, name="potential", unit="kJ/mol")
-    dens = f.plots[0].items[0]
-    assert np.sum(dens.y) * (d.bin_edges[1] - d.bin_edges[0]) == pytest.approx(1.0)  # normalised density
-    r = S.recurrence(e[:, :2], max_points=300)
-    f = S.recurrence_figure(r)
-    img = f.plots[0].items[0]
-    assert isinstance(img, Image) and img.data.shape == (r.matrix.shape[0], r.matrix.shape[0])
-    assert img.x_edges.size == img.data.shape[0] + 1
