@@ -9,6 +9,17 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
+SELF_CONTAINED = (".h5md", ".h5", ".hdf5")  # one file holds a whole run (frames, topology, energies)
+
+
+def group_runs(paths: Sequence[str | Path]) -> list[tuple[str, ...]]:
+    """Files given together, as runs: several self-contained files (H5MD, HDF5) are replicas, one run
+    each; anything else (a trajectory with its topology and energy tables) is one run."""
+    names = [str(p) for p in paths]
+    if len(names) > 1 and all(Path(n).suffix.lower() in SELF_CONTAINED for n in names):
+        return [(n,) for n in names]
+    return [tuple(names)]
+
 
 def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | None = None,
            timestep_fs: float | None = None, n_constraints: int | None = None,
@@ -17,7 +28,8 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
 
     Parameters
     ----------
-    paths : files of one run (trajectory, topology, energy tables, or one H5MD/HDF5 file); may be empty
+    paths : files of one run (trajectory, topology, energy tables), or several H5MD/HDF5 files, each a
+        run of its own (replicas); may be empty
     guide : show a short guide to the window's parts (dismissible)
     topology, timestep_fs, n_constraints, temperature_K : what the files do not say
     session : a session file saved from the window (``.pwsession``) to restore instead
@@ -42,9 +54,8 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     if session is not None:
         win.load_session(session)
     elif paths:
-        win.open_paths([str(p) for p in paths], topology=topology,
-                       settings=RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints,
-                                            temperature_K=temperature_K))
+        settings = RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints, temperature_K=temperature_K)
+        win.open_runs([(group, topology, settings) for group in group_runs(paths)])
     if guide:
         win.show_guide()
     code = int(app.exec())
@@ -60,4 +71,4 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     return code
 
 
-__all__ = ["launch"]
+__all__ = ["group_runs", "launch"]

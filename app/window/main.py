@@ -254,8 +254,11 @@ class MainWindow(QtWidgets.QMainWindow):
     # ---- opening runs -------------------------------------------------------------------------
     def open_paths(self, paths: Sequence[str], *, topology: str | None = None,
                    settings: RunSettings | None = None) -> None:
-        """Open one run from ``paths`` in the background and add it to the Runs list."""
-        self.open_runs([(tuple(str(p) for p in paths), topology, settings or RunSettings())])
+        """Open ``paths`` in the background and add to the Runs list: one run, or one run per file when
+        they are several self-contained run files (replicas; see ``phasewake.app.window.group_runs``)."""
+        from phasewake.app.window import group_runs
+
+        self.open_runs([(group, topology, settings or RunSettings()) for group in group_runs(paths)])
 
     def open_runs(self, specs: Sequence[tuple[tuple[str, ...], str | None, RunSettings]]) -> None:
         if not specs:

@@ -212,3 +212,13 @@ def test_session_round_trip_and_bad_files(tmp_path):
             session_io.load(p)
     with pytest.raises(SessionError, match="not found"):
         session_io.load(tmp_path / "missing.pwsession")
+
+
+def test_files_given_together_are_grouped_into_runs():
+    from phasewake.app.window import group_runs
+
+    # several self-contained run files are replicas, one run each
+    assert group_runs(["a.h5md", "b.h5md", "c.H5"]) == [("a.h5md",), ("b.h5md",), ("c.H5",)]
+    # a trajectory with its topology and energy table is one run
+    assert group_runs(["run.dcd", "run.pdb", "energy.csv"]) == [("run.dcd", "run.pdb", "energy.csv")]
+    assert group_runs(["only.h5md"]) == [("only.h5md",)]
