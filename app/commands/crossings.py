@@ -147,13 +147,21 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
 
 
 def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) -> None:
-    from phasewake.core.atomic import atomic_open
     from phasewake.core.errors import InputError
 
     target = path.resolve()
     for p in inputs:
         if p.exists() and p.resolve() == target:
             raise InputError("refusing to write the events table over an input file", path=path)
+    try:
+        _write_events_rows(path, res, names)
+    except OSError as exc:
+        raise InputError(f"cannot write the events table: {exc.strerror or exc}", path=path) from None
+
+
+def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
+    from phasewake.core.atomic import atomic_open
+
     u = res.velocity_unit
     with atomic_open(path, "w", encoding="utf-8", newline="") as fh:
         wr = csv.writer(fh)

@@ -118,3 +118,11 @@ def test_no_transitions_gives_upper_bound_and_exit_1(capsys):
     assert r["n_transitions"] == 0 and r["upper_bound_only"]
     assert r["ci_high_per_ps"] > 0 and "upper limit" in r["message"]
     assert any("never enters core B" in w for w in out["warnings"])
+
+
+def test_unwritable_events_path_exits_2(tmp_path, capsys):
+    blocker = tmp_path / "blocker"
+    blocker.write_text("a file, not a folder")
+    rc = main(["crossings", str(NVE), "-c", COORD, "--states", "0.42,0.53", "--events", str(blocker / "ev.csv")])
+    err = capsys.readouterr().err
+    assert rc == 2 and "cannot write the events table" in err and "Traceback" not in err
