@@ -396,3 +396,28 @@ def test_second_coordinate_adds_pair_and_poincare_section(win):
     w.model.set_choice("coordinate2", "")
     phase.chooser.setCurrentIndex(0)
     assert w.wait_idle(60_000)
+
+
+def test_export_menu_remembers_the_last_folder(win, tmp_path, monkeypatch):
+    from PySide6 import QtWidgets
+
+    from phasewake.app.window import main as main_module
+
+    w = win
+    w.tabs.setCurrentIndex(PANELS.index("Energy"))
+    out = tmp_path / "figs" / "energy.svg"
+    out.parent.mkdir()
+    asked = []
+
+    def fake_save(parent, title, start, filters):
+        asked.append(start)
+        return str(out), filters
+
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getSaveFileName", staticmethod(fake_save))
+    monkeypatch.setattr(main_module.ExportDialog, "exec", lambda self: QtWidgets.QDialog.DialogCode.Accepted)
+    monkeypatch.setattr(main_module.ExportDialog, "values", lambda self: ("svg", "single", 150.0))
+    w.ask_export_figure()
+    assert out.exists() and "<svg" in out.read_text()[:2000]
+    assert w.settings.value("last_folder") == str(out.parent)
+    w.ask_export_data()  # the next dialog starts in that folder
+    assert asked[-1].startswith(str(out.parent))
