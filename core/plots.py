@@ -59,12 +59,14 @@ def _settings_text(settings: Mapping[str, Any] | None) -> str:
     return "; ".join(parts)
 
 
-def _get(obj: Any, *names: str, default: Any = None) -> Any:
-    """The first attribute of ``obj`` that exists (results of modules still settling their names)."""
-    for n in names:
-        if obj is not None and hasattr(obj, n):
-            return getattr(obj, n)
-    return default
+def _notes_text(notes: Sequence[str]) -> str:
+    """Notes as sentences appended to a caption."""
+    out = ""
+    for n in notes:
+        n = n.strip()
+        if n:
+            out += " " + n[:1].upper() + n[1:] + ("" if n.endswith((".", "!", "?")) else ".")
+    return out
 
 
 # --------------------------------------------------------------------------------------------------
@@ -211,7 +213,7 @@ def autocorrelation_figure(result: Any, *, name: str = "series", max_lag_ps: flo
                f"Sokal's τ_int = g/2 = {result.tau_int_sokal_ps:.3g} ps, effective sample size "
                f"{result.effective_sample_size:.0f}, standard error of the mean "
                f"{_fmt(result.standard_error_of_mean, result.unit)}."
-               + (" " + " ".join(result.notes) if getattr(result, "notes", ()) else ""))
+               + _notes_text(getattr(result, "notes", ())))
     return FigureSpec(key="correlation.acf", title=f"Autocorrelation of {name}",
                       plots=(PlotSpec(title=f"Autocorrelation of {name}", x=Axis("Lag", "ps"),
                                       y=Axis("Autocorrelation ρ", ""), items=tuple(items), note=note),),
@@ -672,7 +674,7 @@ def vacf_figure(result: Any) -> FigureSpec:
     caption = (f"Velocity autocorrelation C(t)/C(0) per group ({'mass-weighted' if result.mass_weighted else 'plain'}), "
                f"averaged over atoms and time origins of {result.n_frames} frames {result.dt_ps:.3g} ps apart."
                + (" Velocities estimated from positions." if result.velocities_estimated else "")
-               + (" " + " ".join(result.notes) if result.notes else ""))
+               + _notes_text(result.notes))
     return FigureSpec(key="velocity.vacf", title="Velocity autocorrelation",
                       plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps"),
                                       y=Axis("C(t)/C(0)", ""), items=tuple(items)),),
@@ -697,7 +699,7 @@ def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
                f"(lag window {result.max_lag_ps:.3g} ps), Nyquist limit {result.nyquist_cm1:.4g} cm⁻¹ from the "
                f"frame spacing {result.dt_ps:.3g} ps."
                + (" Velocities estimated from positions: high frequencies are damped." if result.velocities_estimated
-                  else "") + (" " + " ".join(result.notes) if result.notes else ""))
+                  else "") + _notes_text(result.notes))
     return FigureSpec(key="velocity.vdos", title="Vibrational density of states",
                       plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm⁻¹"),
                                       y=Axis("Density of states", "1/cm⁻¹"), items=tuple(items)),),

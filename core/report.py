@@ -428,7 +428,9 @@ def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
         return None
     spec = FigureSpec(key="report.correlation", title="Time correlations",
                       plots=tuple(p for f in figs for p in f.plots), grid=(1, len(figs)),
-                      caption=" ".join(f"({chr(97 + i)}) {f.caption}" for i, f in enumerate(figs)))
+                      caption=" ".join(f"({chr(97 + i)}) {f.caption.rstrip()}" + ("" if f.caption.rstrip().endswith(".")
+                                                                                 else ".")
+                                       for i, f in enumerate(figs)))
     return ReportPage("correlation", SECTION_TITLES["correlation"], figure=spec, caption=spec.caption)
 
 
