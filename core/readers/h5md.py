@@ -314,7 +314,12 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
         if time is None:
             raise CorruptFileError(f"{name} has neither step nor time", path=path)
         step = np.arange(n)
-    return _Axis(np.asarray(step, dtype=np.int64), time)
+    step_f = np.asarray(step, dtype=np.float64)
+    if not np.all(np.isfinite(step_f)) or np.any(np.abs(step_f) > 2.0**62):
+        raise CorruptFileError(f"{name}/step holds values that are not step numbers (NaN, inf or huge)", path=path)
+    if time is not None and not np.all(np.isfinite(time)):
+        raise CorruptFileError(f"{name}/time holds NaN or infinite values", path=path)
+    return _Axis(step_f.astype(np.int64), time)
 
 
 def _unit_factor(ds: h5py.Dataset, *, path: Path, name: str, expect: str | None) -> tuple[float, str]:
