@@ -458,7 +458,7 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 
     ax.set_xlabel(_wrap_label(plot.x.text, x_chars))
     ax.set_ylabel(_wrap_label(plot.y.text, y_chars))
     if title:
-        ax.set_title(_wrap_label(title, max(16, int(0.95 * w_pt / cols / (0.58 * pr.title_pt)))))
+        ax.set_title(_wrap_label(title, max(16, int(0.75 * w_pt / cols / (0.6 * pr.title_pt)))))
     if plot.x.log:
         ax.set_xscale("log")
     if plot.y.log:
