@@ -50,6 +50,9 @@ if TYPE_CHECKING:
 
 K_B_KJ_PER_MOL_K = 0.00831446261815324  # CODATA 2018 exact k_B * N_A (REFERENCES.md section 9)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
+# Frames per chunk of the PCA: the d x d accumulation is paid once per chunk, so chunks are longer
+# than the reader default (memory: a few chunk x 3 n_atoms float64 buffers).
+PCA_CHUNK_FRAMES = 1024
 
 register(
     Threshold(
@@ -269,7 +272,8 @@ def compute_pca(
         fastest; each extra pass costs another read and gains accuracy: on a synthetic spectrum the
         leading eigenvalues were within ~2% after one pass, 3e-4 after two, 1e-7 after five);
         ``oversample`` extra sketch columns (default 30); ``seed`` of the random sketch.
-    precision : "float32" (GEMM in float32, accumulated in float64 per chunk) or "float64"
+    chunk_frames : frames per chunk (default PCA_CHUNK_FRAMES = 1024)
+    precision : "float32" (products in float32, accumulated in float64 per chunk) or "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content
     """
     if run.frames is None:
@@ -278,7 +282,7 @@ def compute_pca(
         raise AnalysisError(f"unknown PCA method {method!r}: use 'exact' or 'randomized'")
     if precision not in ("float32", "float64"):
         raise AnalysisError(f"unknown precision {precision!r}")
-    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    chunk = int(chunk_frames or PCA_CHUNK_FRAMES)
     stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
     idx, masses = _group_and_masses(run, atom_indices)
     n_sel = len(range(start, stop_, stride))
@@ -352,15 +356,23 @@ def compute_pca(
     s1 = np.zeros(d)
     sdiag = np.zeros(d)
     if method == "exact":
-        s2 = np.zeros((d, d))
-        prod = np.empty((d, d), dtype=dt)
+        from scipy.linalg import blas
+
+        # y^T y by the symmetric rank-k update (BLAS syrk: the upper triangle only, half the flops of a
+        # GEMM), in the working precision, added into a float64 accumulator once per chunk.
+        syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
+        s2 = np.zeros((d, d), order="F")
+        prod = np.zeros((d, d), dtype=dt, order="F")
         for _ch, y, _rot in chunks():
-            np.matmul(y.T, y, out=prod)
+            prod = syrk(1.0, y.T, beta=0.0, c=prod, trans=0, lower=0, overwrite_c=1)
             s2 += prod
             s1 += y.sum(axis=0, dtype=np.float64)
             n += y.shape[0]
             done += y.shape[0]
             yield Progress(done, total_work, "PCA covariance")
+        del prod
+        upper = np.triu(s2)
+        s2 = upper + np.triu(upper, 1).T
         mu = s1 / n
         cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
         cov = 0.5 * (cov + cov.T)
