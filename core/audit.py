@@ -39,10 +39,11 @@ from phasewake.core.verdicts import (
 register(None, Explanation(
     title="Degrees of freedom",
     what="The number of degrees of freedom used for every per-DOF number and for the kinetic temperature.",
-    method="N_dof = 3 N - constraints - removed centre-of-mass motion (REFERENCES.md §2). Constraints come "
+    method="N_dof = 3 N - constraints - removed centre-of-mass motion (common practice). Constraints come "
            "from the user, the files' metadata, or are inferred from atom pairs whose distance does not "
            "fluctuate (relative spread < 1e-3).",
-    threshold="-", advice="Give --constraints N when the count shown is wrong.",
+    threshold="None: this is information for the other checks, not a verdict.",
+    advice="Give --constraints N when the count shown is wrong.",
 ), kind="temperature.dof")
 
 THERMOSTATTED_ENSEMBLES = ("NVT", "NPT", "NPH_THERMOSTAT", "MUVT", "NST")
