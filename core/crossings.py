@@ -1243,6 +1243,20 @@ def crossings_work(
                     f"({path_times.median_ps:.4g} ps at {dt:.4g} ps per frame)",
             advice="recrossings faster than a frame are invisible; save frames more often",
         ))
+    # Replicas that begin between the cores have an unknown committed state: a transition already under
+    # way at their start is not counted. Expected loss = (replicas starting outside the cores) x P(on a
+    # transition path | outside the cores) = time on paths / time outside the cores.
+    n_outside = sum(1 for r in reps if r.unassigned_ps > 0)
+    total_time = float(sum(r.time_span_ps for r in reps))
+    outside = float(np.count_nonzero((coarse > a_hi) & (coarse < b_lo))) / max(coarse.size, 1)
+    on_paths = float(dur.sum()) / (outside * total_time) if outside > 0 and total_time > 0 else 0.0
+    missed = n_outside * min(1.0, on_paths)
+    n_tr = n_ab + n_ba
+    if n_tr and missed > max(1.0, 0.02 * n_tr):
+        warnings.append(
+            f"{n_outside} replica(s) begin between the cores, where the committed state is unknown; about "
+            f"{missed:.3g} transitions under way at those starts are not counted ({100 * missed / n_tr:.2g}% "
+            f"of the {n_tr} counted), so the rates are biased low by about that much: longer replicas help")
     if rate_ab.upper_bound_only or rate_ba.upper_bound_only:
         warnings.append("no transition in at least one direction: that rate is an upper bound, not zero")
 

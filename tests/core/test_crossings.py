@@ -288,8 +288,10 @@ def kramers_rate(barrier: float, gamma: float) -> tuple[float, float]:
 
 @pytest.fixture(scope="module")
 def baoab_run():
-    # dE = 3 kT, gamma = 5 >= w_b = 3.46; 1000 walkers x 45 time units (dt 0.005, frames every 0.01).
-    t, x, v = baoab_double_well(barrier=3.0, gamma=5.0, dt=0.005, n_steps=9000, n_walkers=1000,
+    # dE = 3 kT, gamma = 5 >= w_b = 3.46; 250 walkers x 180 time units (dt 0.005, frames every 0.01).
+    # Replicas much longer than a transition path (<t_TP> ~ 1.9): the transitions under way at the
+    # replicas' starts, which cannot be counted, are then ~1% of all.
+    t, x, v = baoab_double_well(barrier=3.0, gamma=5.0, dt=0.005, n_steps=36000, n_walkers=250,
                                 record_every=2, seed=1)
     traces = [(t, np.ascontiguousarray(x[:, i]), np.ascontiguousarray(v[:, i])) for i in range(x.shape[1])]
     return pool_crossings(traces, states=(-0.8, 0.8), surface=0.0, test_dwells=False)
@@ -301,30 +303,36 @@ def test_langevin_rate_against_kramers(baoab_run):
     n = r.rate_ab.n_transitions + r.rate_ba.n_transitions
     k = n / (r.rate_ab.exposure_ps + r.rate_ba.exposure_ps)
     k_kramers, kappa_k = kramers_rate(3.0, 5.0)
-    # About 700 transitions: Poisson relative error 1/sqrt(700) = 3.8%. The Kramers formula uses the
-    # harmonic well (w_a/2pi) e^{-dE}; at 3 kT the exact 1D TST rate (quadrature below; Eyring/Wigner)
-    # is 9% lower, so compare k with kappa_Kramers * k_TST(exact) within 4 sigma (15%), and with the
-    # plain Kramers formula within the +-30% that REFERENCES 6.3 allows at dE = 3 kT.
+    # About 750 transitions: Poisson relative error 1/sqrt(750) = 3.7%, but seeds of this set-up spread by
+    # ~6% (transitions of one walker are not independent of its position at the start). The Kramers
+    # formula uses the harmonic well (w_a/2pi) e^{-dE}; at 3 kT the exact 1D TST rate (quadrature below;
+    # Eyring/Wigner) is 9% lower, so compare k with kappa_Kramers * k_TST(exact): 3 x 6% plus the
+    # departure of the anharmonic quartic barrier from Kramers' parabolic kappa (~5%, cf. sim/Kramers
+    # 0.94 at 5 kT in REFERENCES 6.3) gives 20%. Against the plain Kramers formula: the +-30% that
+    # REFERENCES 6.3 allows at dE = 3 kT.
     z = quad(lambda y: math.exp(-3.0 * (y * y - 1) ** 2), -np.inf, 0.0)[0]
     k_tst_exact = math.exp(-3.0) / math.sqrt(2 * math.pi) / z
     assert n > 500
-    assert k == pytest.approx(kappa_k * k_tst_exact, rel=0.15)
+    assert k == pytest.approx(kappa_k * k_tst_exact, rel=0.20)
     assert k == pytest.approx(k_kramers, rel=0.30)
     # Symmetric well: both directions agree within their Poisson errors (~5% each; 4 sigma combined).
     assert r.rate_ab.rate_per_ps == pytest.approx(r.rate_ba.rate_per_ps, rel=0.3)
     assert r.rate_ab.ci_low_per_ps < r.rate_ab.rate_per_ps < r.rate_ab.ci_high_per_ps
-    # The run's own TST estimate agrees with the quadrature (density at q* from ~1% of the samples).
+    # The run's own TST estimate against the quadrature. Frames near q* are correlated (a walker stays
+    # near the top for tens of frames), so only a few hundred are independent: ~6% error on the flux
+    # factor <q' theta(q')> = 1/sqrt(2 pi) (Maxwell, m = kT = 1) and ~7% on P(q*); allow ~2.5 sigma.
     assert r.tst is not None
-    assert r.tst.tst.rate_up_per_ps == pytest.approx(k_tst_exact, rel=0.1)
-    assert r.tst.tst.flux_factor_unit_per_ps == pytest.approx(1 / math.sqrt(2 * math.pi), rel=0.05)
+    assert r.tst.tst.rate_up_per_ps == pytest.approx(k_tst_exact, rel=0.2)
+    assert r.tst.tst.flux_factor_unit_per_ps == pytest.approx(1 / math.sqrt(2 * math.pi), rel=0.15)
 
 
 @pytest.mark.slow
 def test_langevin_transmission_coefficient_against_kramers(baoab_run):
     r = baoab_run
     _, kappa_k = kramers_rate(3.0, 5.0)  # 0.5115
-    # Counting kappa: N_AB / N_+ from ~1500 crossings each way; binomial error ~2.5%, plus the
-    # finite-barrier departure from the parabolic Kramers kappa (a few %): allow 12%.
+    # Counting kappa: N_AB / N_+ from ~1500 crossings each way; binomial error ~2.5% (more with the
+    # correlations above), plus the finite-barrier departure from the parabolic Kramers kappa (~5%):
+    # allow 12%.
     assert r.kappa.counting == pytest.approx(kappa_k, rel=0.12)
     # Reactive flux (Bennett 1977; Chandler 1978) from the same crossings: plateau within 12%.
     assert r.kappa.plateau == pytest.approx(kappa_k, rel=0.12)
@@ -523,3 +531,16 @@ def test_vectorised_kernel_matches_plain_loops_on_random_signals(seed):
     assert r.n_transitions == len(r.paths)
     assert r.rate_ab.exposure_ps + r.rate_ba.exposure_ps == pytest.approx(
         (t[-1] - t[0]) if len(r.dwells) else 0.0)
+
+
+def test_replicas_starting_on_transition_paths_warn_of_missed_transitions():
+    # Windows of the designed signal that all begin on the A -> B path at t = 4 (q = -0.37, between
+    # the cores): that transition cannot be counted in any of them (its origin is unknown).
+    t, q, v = designed()
+    sel = (t > 3.9) & (t < 7.5)
+    reps = [(t[sel], q[sel], v[sel])] * 10
+    r = pool_crossings(reps, states=(-0.8, 0.8), surface=0.0, kappa_time_series=False)
+    assert r.rate_ab.n_transitions == 0 and r.rate_ba.n_transitions == 10  # only B -> A at t = 7
+    first = r.events[np.r_[0, np.flatnonzero(np.diff(r.events["replica"])) + 1]]
+    assert np.all(first["kind"] == "censored") and np.all(first["from_state"] == "")
+    assert any("begin between the cores" in w for w in r.warnings)
