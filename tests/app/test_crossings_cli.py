@@ -126,3 +126,17 @@ def test_unwritable_events_path_exits_2(tmp_path, capsys):
     rc = main(["crossings", str(NVE), "-c", COORD, "--states", "0.42,0.53", "--events", str(blocker / "ev.csv")])
     err = capsys.readouterr().err
     assert rc == 2 and "cannot write the events table" in err and "Traceback" not in err
+
+
+def test_kappa_window_and_confidence_options(capsys):
+    base = ["crossings", str(LANGEVIN), "-c", COORD, "--states", "0.42,0.53", "--surface", "0.475", "--json"]
+    main(base + ["--kappa-window", "0.5,1.0"])
+    a = json.loads(capsys.readouterr().out)
+    assert a["settings"]["kappa_window_ps"] == [0.5, 1.0]
+    assert a["kappa"]["plateau_window_ps"] == [0.5, 1.0]
+    main(base + ["--confidence", "0.99"])
+    b = json.loads(capsys.readouterr().out)
+    # a 99% exact interval contains the 95% one (same count and exposure)
+    assert b["rate_ab"]["ci_low_per_ps"] < a["rate_ab"]["ci_low_per_ps"]
+    assert b["rate_ab"]["ci_high_per_ps"] > a["rate_ab"]["ci_high_per_ps"]
+    assert b["rate_ab"]["rate_per_ps"] == pytest.approx(a["rate_ab"]["rate_per_ps"])
