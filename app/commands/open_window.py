@@ -20,6 +20,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--session", metavar="FILE", default=None,
                         help="restore a session saved from the window instead of opening FILES")
     parser.add_argument("--guide", action="store_true", help="show a short guide to the window")
+    parser.add_argument("--smoke-test", action="store_true",
+                        help="check that the window starts here: open it (offscreen works), wait for the "
+                             "panels, print one line and exit (0 when at least one panel was drawn and no "
+                             "error was shown)")
+    parser.add_argument("--smoke-timeout", metavar="S", type=float, default=60.0,
+                        help="seconds the smoke test waits for the panels (default 60)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -35,4 +41,5 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.app.window import launch
 
     return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
-                  n_constraints=args.constraints, temperature_K=args.temperature, session=args.session)
+                  n_constraints=args.constraints, temperature_K=args.temperature, session=args.session,
+                  smoke_test=args.smoke_test, smoke_timeout_s=args.smoke_timeout)

@@ -23,7 +23,8 @@ def group_runs(paths: Sequence[str | Path]) -> list[tuple[str, ...]]:
 
 def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | None = None,
            timestep_fs: float | None = None, n_constraints: int | None = None,
-           temperature_K: float | None = None, session: str | Path | None = None) -> int:
+           temperature_K: float | None = None, session: str | Path | None = None,
+           smoke_test: bool = False, smoke_timeout_s: float = 60.0, settings: object | None = None) -> int:
     """Open the window on one run made of ``paths`` (or a saved session) and run until it closes.
 
     Parameters
@@ -33,6 +34,12 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     guide : show a short guide to the window's parts (dismissible)
     topology, timestep_fs, n_constraints, temperature_K : what the files do not say
     session : a session file saved from the window (``.pwsession``) to restore instead
+    smoke_test : open the window (offscreen is fine), wait until the first panel is drawn or an error
+        is shown, give the other panels the rest of ``smoke_timeout_s`` seconds, write one line
+        ("smoke test: window opened, N panels drawn") to stdout and return 0; return 1 (with one line
+        on stderr) when no panel was drawn in time or an error was shown. Leaves the user's settings
+        (first-run flag) alone.
+    settings : a ``QtCore.QSettings`` to use instead of the user's (tests)
 
     Returns
     -------
@@ -49,14 +56,25 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     app = QtWidgets.QApplication.instance() or QtWidgets.QApplication(["phasewake"])
     QtCore.QCoreApplication.setOrganizationName("phasewake")
     QtCore.QCoreApplication.setApplicationName("phasewake")
-    win = MainWindow()
+    scratch = None
+    if settings is None and smoke_test:  # never touch the user's settings (first-run flag, folders)
+        import tempfile
+
+        scratch = tempfile.TemporaryDirectory(prefix="phasewake-smoke-")
+        settings = QtCore.QSettings(str(Path(scratch.name) / "settings.ini"), QtCore.QSettings.Format.IniFormat)
+    win = MainWindow(settings=settings)  # type: ignore[arg-type]
     win.show()
     if session is not None:
         win.load_session(session)
     elif paths:
         settings = RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints, temperature_K=temperature_K)
         win.open_runs([(group, topology, settings) for group in group_runs(paths)])
-    if guide:
+    if smoke_test:
+        code = _smoke(app, win, smoke_timeout_s)
+        if scratch is not None:
+            scratch.cleanup()
+        return code
+    if guide or win.first_start():
         win.show_guide()
     code = int(app.exec())
     if not win.jobs.wait_all(5_000):
@@ -71,4 +89,65 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     return code
 
 
-__all__ = ["group_runs", "launch"]
+def smoke_outcome(win: object) -> tuple[int, int, list[str]]:
+    """Panels drawn, panels in total, and the problems shown so far (window messages, panel errors)."""
+    panels = getattr(win, "panels", {})
+    drawn = sum(1 for p in panels.values() if p.view.spec is not None)
+    problems = list(getattr(win, "messages", []))
+    problems += [f"{name} panel: {p.error}" for name, p in panels.items() if getattr(p, "error", None)]
+    return drawn, len(panels), problems
+
+
+def _smoke(app: object, win: object, timeout_s: float) -> int:
+    """Run the event loop until the first panel is drawn (then until idle, within ``timeout_s``)."""
+    import sys
+
+    from PySide6 import QtCore, QtWidgets
+
+    clock = QtCore.QElapsedTimer()
+    clock.start()
+    state = {"first_ms": -1.0}
+    qapp = QtWidgets.QApplication.instance()
+
+    def poll() -> None:
+        drawn, _, problems = smoke_outcome(win)
+        if problems:
+            qapp.quit()
+            return
+        if drawn and state["first_ms"] < 0:
+            state["first_ms"] = float(clock.elapsed())
+        idle = not win.jobs.busy and not win._recompute_timer.isActive() and not win._rest_pending  # type: ignore[attr-defined]
+        if (drawn and idle) or clock.elapsed() > timeout_s * 1000:
+            qapp.quit()
+
+    timer = QtCore.QTimer()
+    timer.timeout.connect(poll)
+    timer.start(50)
+    qapp.exec()
+    timer.stop()
+    drawn, total, problems = smoke_outcome(win)
+    win.jobs.cancel_all()  # type: ignore[attr-defined]
+    finished = win.jobs.wait_all(30_000)  # type: ignore[attr-defined]
+    win.close()  # type: ignore[attr-defined]
+    if problems:
+        sys.stderr.write(f"smoke test failed: {problems[0].splitlines()[0] if problems[0] else 'error shown'}\n")
+        code = 1
+    elif drawn == 0:
+        sys.stderr.write(f"smoke test failed: no panel drawn within {timeout_s:.0f} s\n")
+        code = 1
+    else:
+        first = state["first_ms"] / 1000.0
+        rest = "" if drawn == total else f" of {total} (the others were still computing after {timeout_s:.0f} s)"
+        sys.stdout.write(f"smoke test: window opened, {drawn} panels drawn{rest} "
+                         f"(first after {first:.1f} s)\n")
+        code = 0
+    sys.stdout.flush()
+    sys.stderr.flush()
+    if not finished:
+        import os
+
+        os._exit(code)
+    return code
+
+
+__all__ = ["group_runs", "launch", "smoke_outcome"]

@@ -226,6 +226,14 @@ class MainWindow(QtWidgets.QMainWindow):
         on = bool(self.model.choice("trail_frames", DEFAULT_TRAIL))
         self.model.set_choice("trail_frames", 0 if on else DEFAULT_TRAIL)
 
+    def first_start(self) -> bool:
+        """True the very first time the window starts with these settings (then remembered)."""
+        seen = str(self.settings.value("guide_shown", "false")).lower() in ("true", "1")
+        if not seen:
+            self.settings.setValue("guide_shown", True)
+            self.settings.sync()
+        return not seen
+
     def show_guide(self) -> QtWidgets.QDialog:
         dlg = QtWidgets.QDialog(self)
         dlg.setWindowTitle("phasewake: a short guide")

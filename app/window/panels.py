@@ -41,6 +41,7 @@ class Panel(QtWidgets.QWidget):
         super().__init__(parent)
         self.model = model
         self.result: PanelResult | None = None
+        self.error: str | None = None  # the last analysis error shown in this panel, if any
         self.view = FigureView(movable_roles=self.movable_roles)
         self.chooser = QtWidgets.QComboBox()
         self.chooser.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)
@@ -78,6 +79,7 @@ class Panel(QtWidgets.QWidget):
 
     def show_error(self, text: str) -> None:
         self.result = None
+        self.error = text
         self.view.show_message(f"The {self.name} analysis could not run:\n{text}")
         self._note_lines = []
         self._set_notes()
@@ -91,6 +93,7 @@ class Panel(QtWidgets.QWidget):
 
     def show_empty(self) -> None:
         self.result = None
+        self.error = None
         self._set_chooser_visible(False)
         self._note_lines = []
         self._set_notes()
@@ -100,6 +103,7 @@ class Panel(QtWidgets.QWidget):
     # ---- results ------------------------------------------------------------------------------
     def show_result(self, result: PanelResult) -> None:
         self.result = result
+        self.error = None
         self._show_notes(result)
         self.chooser.blockSignals(True)
         self.chooser.clear()
