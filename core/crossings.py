@@ -1121,17 +1121,23 @@ def crossings_work(
     dn_den = np.zeros(n_lags)
     f_sum = 0.0
     f_n = 0
+    # kappa(t) costs crossings x lags gathers; above ~2e8 use every k-th crossing (still an unbiased
+    # sample of the crossings, only noisier).
+    n_cross_all = sum(int(r.crossing_i0.size) for r in reps)
+    every = max(1, math.ceil(n_cross_all * n_lags / 2e8))
+    if kappa_time_series and every > 1:
+        warnings.append(f"kappa(t) uses every {every}th of the {n_cross_all} crossings (to bound its cost)")
     for k, (tr, r) in enumerate(zip(trs, reps)):
         if not kappa_time_series or not math.isclose(r.dt_ps, dt, rel_tol=1e-3):
             continue
-        a, b, c, d = reactive_flux(tr.values, r.crossing_i0, r.events["direction"], surface=surface,
-                                   n_lags=n_lags)
+        a, b, c, d = reactive_flux(tr.values, r.crossing_i0[::every], r.events["direction"][::every],
+                                   surface=surface, n_lags=n_lags)
         up_num += a
         up_den += b
         dn_num += c
         dn_den += d
-        f_sum += float(r.crossing_f.sum())
-        f_n += int(r.crossing_f.size)
+        f_sum += float(r.crossing_f[::every].sum())
+        f_n += int(r.crossing_f[::every].size)
         yield Progress(1 + len(trs) + k, total, "crossings: reactive flux")
     mean_f = f_sum / f_n if f_n else 0.5
     lag = (np.arange(n_lags) + 1.0 - mean_f) * dt
