@@ -23,6 +23,7 @@ from phasewake.core import temperature as tm
 from phasewake.core import timestep as ts
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import Progress, Work
+from phasewake.core.readers.common import iter_frame_chunks
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, Run
 from phasewake.core.verdicts import (
     EXPLANATIONS,
@@ -225,7 +226,8 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
         speed_atoms[sp] = idx[: max(1, 100_000 // max(1, n // stride))][:2000]
         speed_store[sp] = []
     pos = 0
-    chunks = frames.iter_chunks(chunk_frames=chunk_frames, velocities=True)
+    # positions only for the constraint inference: velocity-only reads are half the I/O
+    chunks = iter_frame_chunks(frames, chunk_frames=chunk_frames, velocities=True, positions=rigid is not None)
     try:
         pos = yield from _consume(chunks, pos=pos, kin=kin, com=com, gk=gk, times=times, m=m, member=member,
                                   names=names, rigid=rigid, spec=spec, speed_atoms=speed_atoms,

@@ -105,7 +105,13 @@ class FrameSource(Protocol):
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
-    ) -> Iterator[FrameChunk]: ...
+        positions: bool = True,
+    ) -> Iterator[FrameChunk]:
+        """Chunks of frames. ``positions=False`` (for velocity-only analyses) may skip reading positions:
+        ``positions_nm`` is then an empty array of shape (n, 0, 3) and ``box_nm`` may be None. Call it
+        through :func:`phasewake.core.readers.common.iter_frame_chunks` when the source may predate the
+        keyword."""
+        ...
 
     def read_frame(self, index: int) -> FrameChunk: ...
 

@@ -38,6 +38,7 @@ import numpy as np
 
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
+from phasewake.core.readers.common import iter_frame_chunks
 
 if TYPE_CHECKING:
     from phasewake.core.run import Run
@@ -489,8 +490,8 @@ def vacf(
                            n_groups=len(names))
     done = 0
     sel_atoms = None if used.size == run.n_atoms else used  # a full read avoids a fancy-index copy
-    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                        atom_indices=sel_atoms, velocities=True):
+    for chunk in iter_frame_chunks(run.frames, chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                   atom_indices=sel_atoms, velocities=True, positions=False):
         if chunk.velocities_nm_per_ps is None:
             raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
         corr.update(chunk.velocities_nm_per_ps)

@@ -189,6 +189,43 @@ def box_matrix(box: np.ndarray, n_frames: int) -> np.ndarray:
     raise ValueError(f"box of shape {b.shape} is not (3,), (3,3), (F,3) or (F,3,3)")
 
 
+# --- chunk iteration ---
+
+_TAKES_POSITIONS: dict[type, bool] = {}
+
+
+def iter_frame_chunks(frames: FrameSource, *, positions: bool = True, **kwargs: Any) -> Iterator[FrameChunk]:
+    """``frames.iter_chunks(**kwargs)``, passing ``positions=False`` only to sources that accept it.
+
+    Velocity-only analyses ask for ``positions=False`` so readers skip the position read (half the I/O
+    of a file with both); a frame source written before that keyword (a wrapper, a test double) still
+    works and just returns its positions.
+
+    Parameters
+    ----------
+    frames : FrameSource
+    positions : bool
+        False: the positions are not needed (``positions_nm`` may then have shape (n, 0, 3)).
+    **kwargs
+        The other keywords of :meth:`FrameSource.iter_chunks`.
+    """
+    if not positions:
+        kind = type(frames)
+        takes = _TAKES_POSITIONS.get(kind)
+        if takes is None:
+            import inspect
+
+            try:
+                params = inspect.signature(frames.iter_chunks).parameters
+            except (TypeError, ValueError):
+                params = {}  # type: ignore[assignment]
+            takes = "positions" in params or any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
+            _TAKES_POSITIONS[kind] = takes
+        if takes:
+            kwargs["positions"] = False
+    return frames.iter_chunks(**kwargs)
+
+
 # --- estimated velocities ---
 
 
@@ -233,11 +270,13 @@ class EstimatedVelocityFrames:
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
+        positions: bool = True,
     ) -> Iterator[FrameChunk]:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         if not velocities or not self.has_velocities:
-            yield from self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop,
-                                              stride=stride, atom_indices=atom_indices, velocities=False)
+            yield from iter_frame_chunks(self.inner, chunk_frames=chunk_frames, start=start, stop=stop,
+                                         stride=stride, atom_indices=atom_indices, velocities=False,
+                                         positions=positions)
             return
         want = np.arange(start, stop, stride)
         for i in range(0, want.size, chunk_frames):
@@ -259,7 +298,8 @@ class EstimatedVelocityFrames:
             disp = self._step(pos[km], pos[kp], bsel)
             dt = (t[kp] - t[km])[:, None, None]
             vel = (disp / dt).astype(np.float32)
-            yield FrameChunk(start=int(sel[0]), time_ps=self.time_ps[sel], positions_nm=pos[k],
+            yield FrameChunk(start=int(sel[0]), time_ps=self.time_ps[sel],
+                             positions_nm=pos[k] if positions else np.empty((sel.size, 0, 3), np.float32),
                              velocities_nm_per_ps=vel, box_nm=None if box is None else box[k])
 
     def read_frame(self, index: int) -> FrameChunk:

@@ -405,6 +405,7 @@ class H5MDFrames:
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
+        positions: bool = True,
     ) -> Iterator[FrameChunk]:
         import h5py
 
@@ -418,12 +419,12 @@ class H5MDFrames:
             raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
         with f:
             try:
-                yield from self._chunks(f, idx, cols, want_vel, chunk_frames)
+                yield from self._chunks(f, idx, cols, want_vel, chunk_frames, positions)
             except _LAYOUT_ERRORS as exc:
                 raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
 
     def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, want_vel: bool,
-                chunk_frames: int) -> Iterator[FrameChunk]:
+                chunk_frames: int, want_pos: bool = True) -> Iterator[FrameChunk]:
         pg = f["particles"][self.group]
         pos_ds = pg["position"]["value"]
         vel_ds = pg["velocity"]["value"] if want_vel else None
@@ -431,12 +432,15 @@ class H5MDFrames:
         img_ds = pg["image"]["value"] if self._image_rows is not None else None
         for i in range(0, idx.size, chunk_frames):
             sel = idx[i : i + chunk_frames]
-            pos = self._read_rows(pos_ds, self._rows[sel])
-            if cols is not None:
-                pos = pos[:, cols]
-            pos = np.asarray(pos, dtype=np.float32)
-            if self._pos_factor != 1.0:
-                pos = (pos * self._pos_factor).astype(np.float32)
+            if want_pos:
+                pos = self._read_rows(pos_ds, self._rows[sel])
+                if cols is not None:
+                    pos = pos[:, cols]
+                pos = np.asarray(pos, dtype=np.float32)
+                if self._pos_factor != 1.0:
+                    pos = (pos * self._pos_factor).astype(np.float32)
+            else:  # a velocity-only analysis: half the reading
+                pos = np.empty((sel.size, 0, 3), np.float32)
             vel = None
             if vel_ds is not None and self._vel_rows is not None:
                 vel = self._read_rows(vel_ds, self._vel_rows[sel])
@@ -450,7 +454,7 @@ class H5MDFrames:
                 box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
             elif self._box_fixed is not None:
                 box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
-            if img_ds is not None and self._image_rows is not None and box is not None:
+            if want_pos and img_ds is not None and self._image_rows is not None and box is not None:
                 # H5MD: the unwrapped position is position + image . box edges
                 img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
                 if cols is not None:

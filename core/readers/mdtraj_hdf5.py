@@ -96,6 +96,7 @@ class MdtrajH5Frames:
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
+        positions: bool = True,
     ) -> Iterator[FrameChunk]:
         import h5py
 
@@ -108,21 +109,24 @@ class MdtrajH5Frames:
             raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
         with f:
             try:
-                yield from self._chunks(f, idx, cols, stride, velocities, chunk_frames)
+                yield from self._chunks(f, idx, cols, stride, velocities, chunk_frames, positions)
             except (KeyError, ValueError, TypeError, IndexError, OSError) as exc:
                 raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
 
     def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, stride: int, velocities: bool,
-                chunk_frames: int) -> Iterator[FrameChunk]:
+                chunk_frames: int, positions: bool = True) -> Iterator[FrameChunk]:
         if idx.size:
             for i in range(0, idx.size, chunk_frames):
                 sel = idx[i : i + chunk_frames]
                 sl = slice(int(sel[0]), int(sel[-1]) + 1, stride)
-                pos = np.asarray(f["coordinates"][sl], dtype=np.float32)
-                if cols is not None:
-                    pos = pos[:, cols]
-                if self._pf != 1.0:
-                    pos = (pos * self._pf).astype(np.float32)
+                if positions:
+                    pos = np.asarray(f["coordinates"][sl], dtype=np.float32)
+                    if cols is not None:
+                        pos = pos[:, cols]
+                    if self._pf != 1.0:
+                        pos = (pos * self._pf).astype(np.float32)
+                else:  # a velocity-only analysis
+                    pos = np.empty((sel.size, 0, 3), np.float32)
                 vel = None
                 if velocities and self._vf is not None:
                     vel = np.asarray(f["velocities"][sl], dtype=np.float32)

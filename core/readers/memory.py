@@ -56,6 +56,7 @@ class ArrayFrames:
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
+        positions: bool = True,
     ) -> Iterator[FrameChunk]:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         idx = np.arange(start, stop, stride)
@@ -68,7 +69,7 @@ class ArrayFrames:
             yield FrameChunk(
                 start=int(sel[0]),
                 time_ps=self._time[sel],
-                positions_nm=self._pos[sel][:, cols],
+                positions_nm=self._pos[sel][:, cols] if positions else np.empty((sel.size, 0, 3), np.float32),
                 velocities_nm_per_ps=vel,
                 box_nm=None if self._box is None else np.asarray(self._box[sel]),
             )

@@ -319,6 +319,7 @@ class MdtrajFrames:
         stride: int = 1,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         velocities: bool = True,
+        positions: bool = True,
     ) -> Iterator[FrameChunk]:
         import mdtraj as md
 
@@ -330,6 +331,20 @@ class MdtrajFrames:
         expected = np.arange(start, stop, stride)
         done = 0
         read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, AssertionError)
+        if not positions and velocities and self.has_velocities:
+            # velocities are read on their own (TRR, NetCDF): no position decode at all; no box either
+            for i in range(0, expected.size, per_chunk):
+                sel = expected[i : i + per_chunk]
+                try:
+                    with _quiet_mdtraj():
+                        only_vel = self._velocities(sel, cols)
+                except read_errors as exc:
+                    raise CorruptFileError(f"cannot read velocities at frame {int(sel[0])} "
+                                           f"({type(exc).__name__}: {exc})", path=self.path) from exc
+                yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel],
+                                 positions_nm=np.empty((sel.size, 0, 3), np.float32),
+                                 velocities_nm_per_ps=only_vel, box_nm=None)
+            return
         try:
             with _quiet_mdtraj():
                 chunks = iter(md.iterload(str(self.path), chunk=per_chunk, skip=start, stride=stride,

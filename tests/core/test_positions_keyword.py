@@ -1,0 +1,124 @@
+"""``iter_chunks(positions=False)``: velocity-only reads give the velocities written to the file.
+
+The reference is the data as written by h5py / mdtraj (libraries outside the project), not our own
+reader's output.
+"""
+
+import numpy as np
+
+from phasewake.core.readers.common import EstimatedVelocityFrames, iter_frame_chunks
+from phasewake.core.readers.memory import ArrayFrames
+
+
+def _data(n_frames=7, n_atoms=5):
+    rng = np.random.default_rng(7)
+    pos = rng.uniform(0, 3, (n_frames, n_atoms, 3)).astype(np.float32)
+    vel = rng.standard_normal((n_frames, n_atoms, 3)).astype(np.float32)
+    return pos, vel
+
+
+def _h5md(path, pos, vel):
+    import h5py
+
+    with h5py.File(path, "w") as f:
+        f.create_group("h5md").attrs["version"] = np.array([1, 1])
+        f["h5md"].create_group("author").attrs["name"] = "test"
+        cr = f["h5md"].create_group("creator")
+        cr.attrs["name"], cr.attrs["version"] = "test", "0"
+        g = f.create_group("particles/all")
+        box = g.create_group("box")
+        box.attrs["dimension"] = 3
+        box.attrs["boundary"] = np.array([b"none"] * 3)
+        g.create_dataset("mass", data=np.full(pos.shape[1], 12.0)).attrs["unit"] = "u"
+        for name, arr, unit in (("position", pos, "nm"), ("velocity", vel, "nm ps-1")):
+            e = g.create_group(name)
+            e.create_dataset("value", data=arr).attrs["unit"] = unit
+            e.create_dataset("step", data=np.arange(arr.shape[0]) * 10)
+            e.create_dataset("time", data=np.arange(arr.shape[0]) * 0.02).attrs["unit"] = "ps"
+    return path
+
+
+def _check(frames, vel, **kw):
+    got = list(iter_frame_chunks(frames, chunk_frames=3, velocities=True, positions=False, **kw))
+    cols = kw.get("atom_indices")
+    want = vel if cols is None else vel[:, cols]
+    assert sum(c.n_frames for c in got) == want.shape[0]
+    for c in got:
+        assert c.positions_nm.shape == (c.n_frames, 0, 3)
+    np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), want)
+    assert [c.start for c in got] == list(range(0, want.shape[0], 3))
+
+
+def test_memory_frames_skip_positions():
+    pos, vel = _data()
+    fr = ArrayFrames(pos, np.arange(7) * 0.02, vel)
+    _check(fr, vel)
+    _check(fr, vel, atom_indices=np.array([4, 1]))
+    with_pos = list(fr.iter_chunks(chunk_frames=3))
+    np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in with_pos]), pos)
+
+
+def test_h5md_skips_positions(tmp_path):
+    from phasewake.core.readers import open_run
+
+    pos, vel = _data()
+    run = open_run([_h5md(tmp_path / "a.h5md", pos, vel)])
+    _check(run.frames, vel)
+    _check(run.frames, vel, atom_indices=np.array([0, 3]))
+
+
+def test_mdtraj_hdf5_skips_positions(tmp_path):
+    # mdtraj's HDF5 layout (mdtraj/formats/hdf5.py, "Pande" conventions 1.1), written with h5py
+    import json
+
+    import h5py
+
+    from phasewake.core.readers import open_run
+
+    pos, vel = _data()
+    top = {"chains": [{"index": 0, "residues": [
+        {"index": i, "name": "C", "resSeq": i + 1, "atoms": [{"index": i, "name": "C", "element": "C"}]}
+        for i in range(pos.shape[1])]}], "bonds": []}
+    path = tmp_path / "a.h5"
+    with h5py.File(path, "w") as f:
+        f.attrs["conventions"] = b"Pande"
+        f.attrs["conventionVersion"] = b"1.1"
+        f.create_dataset("coordinates", data=pos).attrs["units"] = b"nanometers"
+        f.create_dataset("time", data=np.arange(7) * 0.02).attrs["units"] = b"picoseconds"
+        f.create_dataset("velocities", data=vel).attrs["units"] = b"nanometers/picosecond"
+        f.create_dataset("topology", data=[json.dumps(top).encode()])
+    run = open_run([path])
+    _check(run.frames, vel)
+
+
+def test_estimated_velocities_without_positions():
+    # central differences (x(t+1) - x(t-1)) / (2 dt) computed here with numpy, one-sided at the ends
+    pos, _ = _data()
+    t = np.arange(7) * 0.02
+    inner = ArrayFrames(pos, t)
+    est = EstimatedVelocityFrames(inner, t)
+    p64 = pos.astype(np.float64)
+    want = np.empty_like(p64)
+    want[1:-1] = (p64[2:] - p64[:-2]) / (t[2:] - t[:-2])[:, None, None]
+    want[0] = (p64[1] - p64[0]) / (t[1] - t[0])
+    want[-1] = (p64[-1] - p64[-2]) / (t[-1] - t[-2])
+    got = list(iter_frame_chunks(est, chunk_frames=3, velocities=True, positions=False))
+    assert all(c.positions_nm.shape == (c.n_frames, 0, 3) for c in got)
+    np.testing.assert_allclose(np.concatenate([c.velocities_nm_per_ps for c in got]), want, rtol=1e-5)
+
+
+def test_old_sources_still_get_their_positions():
+    class Legacy:  # a frame source written before the keyword
+        def __init__(self, inner):
+            self.inner = inner
+
+        def iter_chunks(self, *, chunk_frames=256, start=0, stop=None, stride=1, atom_indices=None,
+                        velocities=True):
+            return self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                          atom_indices=atom_indices, velocities=velocities)
+
+    pos, vel = _data()
+    got = list(iter_frame_chunks(Legacy(ArrayFrames(pos, np.arange(7) * 0.02, vel)), chunk_frames=4,
+                                 positions=False))
+    np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in got]), pos)
+    np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), vel)
