@@ -17,17 +17,112 @@ from PySide6 import QtCore, QtGui, QtWidgets
 from phasewake.app.window.analyses import EventRow, PanelResult, Trace
 from phasewake.app.window.model import WindowModel
 from phasewake.app.window.render import CURSOR_COLOUR, FigureView
+from phasewake.core import explain
 from phasewake.core.figures import LEVEL_STYLE, FigureSpec, Mark
 
 LEVEL_SYMBOL = {"ok": "\u25cf", "caution": "\u25b2", "problem": "\u2716", "info": "\u25a0"}  # shape + word
 DEFAULT_TRAIL = 60  # frames of recent path drawn behind the current point
 
 
-def verdict_html(level: str, title: str, message: str) -> str:
+EXPLAIN_SCHEME = "explain:"  # anchors of the notes strip: explain:<verdict kind or number.*>
+
+
+def explain_link(kind: str, text: str) -> str:
+    """``text`` as a link whose tooltip (and click) shows the explanation of ``kind``."""
+    return (f'<a href="{EXPLAIN_SCHEME}{html.escape(kind)}" style="color:#000000; text-decoration:none">'
+            f"{text}</a>")
+
+
+def verdict_html(level: str, title: str, message: str, kind: str = "") -> str:
     colour = LEVEL_STYLE.get(level, LEVEL_STYLE["info"])[0]
     sym = LEVEL_SYMBOL.get(level, "\u25a0")
+    head = f"<b>{html.escape(title)}</b>"
+    if kind and explain.explanation(kind) is not None:
+        head = explain_link(kind, head + ' <span style="color:#0072B2">\u24d8</span>')
     return (f'<span style="color:{colour}; font-weight:bold">{sym} {html.escape(level)}</span> '
-            f"<b>{html.escape(title)}</b>: {html.escape(message)}")
+            f"{head}: {html.escape(message)}")
+
+
+class ExplainingNotes(QtWidgets.QTextBrowser):
+    """The verdicts and notes strip: hovering an explained title shows its explanation as a tooltip
+    (the text of ``core.explain.explanation_html``); clicking it emits ``explainRequested(kind)``."""
+
+    explainRequested = QtCore.Signal(str)
+
+    def __init__(self, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.setOpenLinks(False)
+        self.setOpenExternalLinks(False)
+        self.anchorClicked.connect(self._clicked)
+
+    @staticmethod
+    def kind_of(anchor: str) -> str:
+        return anchor[len(EXPLAIN_SCHEME):] if anchor.startswith(EXPLAIN_SCHEME) else ""
+
+    def tooltip_at(self, pos: QtCore.QPoint) -> str:
+        """The tooltip for a point of the viewport: the explanation under it, or empty."""
+        kind = self.kind_of(self.anchorAt(pos))
+        return explain.explanation_html(kind) if kind else ""
+
+    def anchors(self) -> list[tuple[str, QtCore.QPoint]]:
+        """Every explain link in the text with a viewport point inside it (tests walk these)."""
+        found = []
+        doc = self.document()
+        block = doc.begin()
+        while block.isValid():
+            it = block.begin()
+            while not it.atEnd():
+                frag = it.fragment()
+                href = frag.charFormat().anchorHref()
+                if frag.isValid() and href.startswith(EXPLAIN_SCHEME) and frag.length() > 1:
+                    cur = QtGui.QTextCursor(doc)
+                    cur.setPosition(frag.position() + 1)
+                    found.append((self.kind_of(href), self.cursorRect(cur).center()))
+                it += 1
+            block = block.next()
+        return found
+
+    def viewportEvent(self, event: QtCore.QEvent) -> bool:  # noqa: N802 - Qt override
+        if event.type() == QtCore.QEvent.Type.ToolTip:
+            help_event = event  # a QHelpEvent
+            text = self.tooltip_at(help_event.pos())  # type: ignore[attr-defined]
+            if text:
+                QtWidgets.QToolTip.showText(help_event.globalPos(), text, self)  # type: ignore[attr-defined]
+            else:
+                QtWidgets.QToolTip.hideText()
+                event.ignore()
+            return True
+        return super().viewportEvent(event)
+
+    def _clicked(self, url: QtCore.QUrl) -> None:
+        kind = self.kind_of(url.toString())
+        if kind:
+            self.explainRequested.emit(kind)
+
+
+class SideNote(QtWidgets.QWidget):
+    """The explanation of one verdict or number, beside the notes strip, until closed."""
+
+    def __init__(self, parent: QtWidgets.QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.kind = ""
+        self.text = QtWidgets.QTextBrowser()
+        self.text.setObjectName("sideNote")
+        close = QtWidgets.QToolButton()
+        close.setText("\u2715")
+        close.setToolTip("Close the explanation")
+        close.clicked.connect(self.hide)
+        lay = QtWidgets.QHBoxLayout(self)
+        lay.setContentsMargins(0, 0, 0, 0)
+        lay.addWidget(self.text, 1)
+        lay.addWidget(close, 0, QtCore.Qt.AlignmentFlag.AlignTop)
+        self.setMinimumWidth(320)
+        self.hide()
+
+    def explain(self, kind: str) -> None:
+        self.kind = kind
+        self.text.setHtml(explain.explanation_html(kind))
+        self.show()
 
 
 class Panel(QtWidgets.QWidget):
@@ -47,13 +142,15 @@ class Panel(QtWidgets.QWidget):
         self.chooser.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToContents)
         self.chooser.currentIndexChanged.connect(self._chooser_changed)
         self.chooser_label = QtWidgets.QLabel("Show:")
-        self.notes = QtWidgets.QTextBrowser()  # verdicts and notes; scrolls when there are many
+        self.notes = ExplainingNotes()  # verdicts and notes; scrolls when there are many
         self.notes.setObjectName("panelNotes")
-        self.notes.setOpenLinks(False)
         self.notes.setMaximumHeight(120)
         self.notes.setFrameShape(QtWidgets.QFrame.Shape.NoFrame)
         self.notes.hide()
         self._note_lines: list[str] = []
+        self._numbers_line = ""  # links explaining the numbers of the figure on screen
+        self.side_note = SideNote()
+        self.notes.explainRequested.connect(self.side_note.explain)
         top = QtWidgets.QHBoxLayout()
         top.addWidget(self.chooser_label)
         top.addWidget(self.chooser)
@@ -62,7 +159,10 @@ class Panel(QtWidgets.QWidget):
         self.body = QtWidgets.QVBoxLayout(self)
         self.body.setContentsMargins(4, 4, 4, 4)
         self.body.addLayout(top)
-        self.body.addWidget(self.notes)
+        strip = QtWidgets.QHBoxLayout()
+        strip.addWidget(self.notes, 3)
+        strip.addWidget(self.side_note, 2)
+        self.body.addLayout(strip)
         self.body.addWidget(self.view, 1)
         self._set_chooser_visible(False)
         self._marker: pg.ScatterPlotItem | None = None
@@ -82,6 +182,7 @@ class Panel(QtWidgets.QWidget):
         self.error = text
         self.view.show_message(f"The {self.name} analysis could not run:\n{text}")
         self._note_lines = []
+        self._numbers_line = ""
         self._set_notes()
 
     def show_cancelled(self) -> None:
@@ -96,6 +197,7 @@ class Panel(QtWidgets.QWidget):
         self.error = None
         self._set_chooser_visible(False)
         self._note_lines = []
+        self._numbers_line = ""
         self._set_notes()
         self.view.show_message("No run is open. Open run files with File \u25b8 Open run files\u2026 "
                                "or drop them on the window.")
@@ -127,13 +229,23 @@ class Panel(QtWidgets.QWidget):
         self._set_notes()
 
     def _set_notes(self) -> None:
-        self.notes.setHtml("<br>".join(self._note_lines))
-        self.notes.setVisible(bool(self._note_lines))
+        lines = self._note_lines + ([self._numbers_line] if self._numbers_line else [])
+        self.notes.setHtml("<br>".join(lines))
+        self.notes.setVisible(bool(lines))
         self._fit_notes()
+
+    def _explain_numbers(self, fig: FigureSpec | None) -> None:
+        """A line of links explaining the numbers of ``fig``; the caption's tooltip says the same."""
+        kinds = explain.kinds_for_figure(fig.key) if fig is not None else ()
+        links = [explain_link(k, f'<span style="color:#0072B2">\u24d8 {html.escape(explain.EXPLANATIONS[k].title)}'
+                                 "</span>") for k in kinds]
+        self._numbers_line = ("<i>About the numbers</i> (hover or click): " + " \u00b7 ".join(links)) if links else ""
+        self.view.caption.setToolTip("".join(explain.explanation_html(k) for k in kinds))
+        self._set_notes()
 
     def _fit_notes(self) -> None:
         """As tall as the text, up to a few lines (the rest scrolls)."""
-        if not self._note_lines:
+        if not self._note_lines and not self._numbers_line:
             return
         doc = self.notes.document()
         width = self.notes.viewport().width() if self.notes.isVisible() else self.width() - 30
@@ -184,7 +296,7 @@ class Panel(QtWidgets.QWidget):
         # problems first, so the worst news is what a user sees without scrolling
         order = {"problem": 0, "caution": 1, "ok": 2, "info": 3}
         ranked = sorted(result.verdicts, key=lambda v: order.get(v.level, 4))
-        self._note_lines = [verdict_html(v.level, v.title, v.message) for v in ranked]
+        self._note_lines = [verdict_html(v.level, v.title, v.message, getattr(v, "kind", "")) for v in ranked]
         if result.message and result.figures:
             self._note_lines.append(html.escape(result.message))
         self._set_notes()
@@ -207,6 +319,7 @@ class Panel(QtWidgets.QWidget):
     def _draw(self, fig: FigureSpec) -> None:
         self._marker = self._trail = self._highlight = None
         self.view.show_figure(fig)
+        self._explain_numbers(fig)
         self.view.set_cursor_time(self.model.cursor_time_ps)
         self._after_draw(fig)
         self._update_trace()
