@@ -69,7 +69,7 @@ def test_every_verdict_shown_has_its_explanation_as_tooltip(window):
 @pytest.mark.slow
 def test_numbers_of_every_figure_are_explained_and_clicking_opens_a_side_note(window):
     explained = set()
-    for name, panel in window.panels.items():
+    for panel in window.panels.values():
         if panel.result is None:
             continue
         window.tabs.setCurrentWidget(panel)
