@@ -74,7 +74,8 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
         if scratch is not None:
             scratch.cleanup()
         return code
-    if guide or win.first_start():
+    first = win.first_start()  # remembered in QSettings: the guide shows itself once
+    if guide or first:
         win.show_guide()
     code = int(app.exec())
     if not win.jobs.wait_all(5_000):

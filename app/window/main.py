@@ -36,19 +36,7 @@ RECOMPUTE_CHOICES: dict[str, tuple[str, ...]] = {
     "landscape_marks": ("Crossings", "Landscape"),
     "coordinate2": ("Phase space",),
 }
-GUIDE_TEXT = """<h3>A short guide</h3>
-<p><b>Runs</b> (left): every run you opened, with what its files hold. Add runs with <i>Add…</i>
-or by dropping files on the window; state a time step, constraints or a temperature when the files
-do not say.</p>
-<p><b>Panels</b> (centre): <b>Energy</b> shows the energy table and the audit's verdicts first;
-<b>Phase space</b> a coordinate against its momentum (the current frame is the large dot, with its
-recent path); <b>Correlation</b> how long the run remembers; <b>Sampling</b> whether replicas agree;
-<b>Crossings</b> barrier crossings (click an event to jump to it); <b>Landscape</b> the free-energy
-profile, whose states and dividing surface you can drag.</p>
-<p><b>Time ruler</b> (bottom): drag the cursor line, or use ←/→, PgUp/PgDn, Home/End; drag the shaded
-band to restrict every analysis to part of the run.</p>
-<p><b>Status area</b> (very bottom): progress of background work, with a button to cancel it.</p>
-<p>The verdicts are heuristics: your judgement and your group's practice decide.</p>"""
+from phasewake.app.window.guide_text import GUIDE_TEXT  # noqa: E402,F401 - kept for callers of the old name
 
 
 def default_opener(paths: Sequence[str], topology: str | None, settings: RunSettings) -> Run:
@@ -214,8 +202,11 @@ class MainWindow(QtWidgets.QMainWindow):
         self._action(v, "Trail the recent path", self._toggle_trail, "T")
 
         h = mb.addMenu("&Help")
-        self._action(h, "Guide", self.show_guide, "F1")
-        self._action(h, "About phasewake", self._about)
+        self._action(h, "User guide", self.show_user_guide, "F1",
+                     "The job, the panels, the coordinate specification, file formats, units and cautions")
+        self._action(h, "Short guide", self.show_guide, "Shift+F1", "Where things are in this window")
+        h.addSeparator()
+        self._action(h, "About phasewake", self._about, tip="Version, licences of the dependencies, how to cite")
 
     def _page(self) -> int:
         return max(1, self.model.time_ps.size // 20)
@@ -235,29 +226,26 @@ class MainWindow(QtWidgets.QMainWindow):
         return not seen
 
     def show_guide(self) -> QtWidgets.QDialog:
-        dlg = QtWidgets.QDialog(self)
-        dlg.setWindowTitle("phasewake: a short guide")
-        text = QtWidgets.QLabel(GUIDE_TEXT)
-        text.setWordWrap(True)
-        text.setTextFormat(QtCore.Qt.TextFormat.RichText)
-        close = QtWidgets.QPushButton("Got it")
-        close.clicked.connect(dlg.close)
-        lay = QtWidgets.QVBoxLayout(dlg)
-        lay.addWidget(text)
-        lay.addWidget(close, 0, QtCore.Qt.AlignmentFlag.AlignRight)
-        dlg.setModal(False)
-        dlg.resize(520, 420)
-        dlg.show()
-        self.guide = dlg
-        return dlg
+        """The short, dismissible guide pointing at each part of the window (first start, ``demo``)."""
+        from phasewake.app.window import help as help_dialogs
 
-    def _about(self) -> None:
-        from phasewake.core import __version__
-        from phasewake.core.verdicts import HEURISTIC_NOTE
+        self.guide = help_dialogs.short_guide(self)
+        self.guide.show()
+        return self.guide
 
-        QtWidgets.QMessageBox.about(self, "About phasewake",
-                                    f"phasewake {__version__}: inspect finished molecular-dynamics runs.\n\n"
-                                    + HEURISTIC_NOTE)
+    def show_user_guide(self) -> QtWidgets.QDialog:
+        from phasewake.app.window import help as help_dialogs
+
+        self.user_guide = help_dialogs.user_guide(self)
+        self.user_guide.show()
+        return self.user_guide
+
+    def _about(self) -> QtWidgets.QDialog:
+        from phasewake.app.window import help as help_dialogs
+
+        self.about_box = help_dialogs.about(self)
+        self.about_box.show()
+        return self.about_box
 
     # ---- opening runs -------------------------------------------------------------------------
     def open_paths(self, paths: Sequence[str], *, topology: str | None = None,
