@@ -123,24 +123,37 @@ class VelocitySpectrumAccumulator:
         self._group_power = np.zeros((n_groups, n_freq))
         self._n_segments = 0
         self._carry: np.ndarray | None = None
+        self._colw: np.ndarray | None = None  # per-column weights of the flat layout, made on first use
+        self._sw3 = np.zeros(0, np.float32)
+        self._win32 = np.zeros((0, 1), np.float32)
 
     def _segment(self, seg: np.ndarray) -> None:
+        """One segment (L, n_atoms, 3). Works on the flat (L, 3 n) layout: numpy reductions over a
+        trailing axis of length 3 are slow, so the sums over components, atoms and groups are one
+        float64 matrix product with per-column weights (``_column_weights``)."""
         import scipy.fft
 
-        sw = np.sqrt(self.masses).astype(np.float32)
-        win = self.window.astype(np.float32)[:, None, None]
-        n_atoms = seg.shape[1]
-        for a0 in range(0, n_atoms, self.block_atoms):
-            blk = seg[:, a0:a0 + self.block_atoms] * sw[None, a0:a0 + self.block_atoms, None]
-            blk = blk - blk.mean(axis=0, keepdims=True)
-            f = scipy.fft.rfft(blk * win, axis=0)  # float32 in, complex64 out
-            per_atom = (f.real * f.real + f.imag * f.imag).sum(axis=2).astype(np.float64)
-            per_atom *= self._weight[None, a0:a0 + self.block_atoms]
-            self._power += per_atom.sum(axis=1)
+        if self._colw is None:
+            sw = np.sqrt(self.masses).astype(np.float32)
+            self._sw3 = np.repeat(sw, 3)
+            cols = [self._weight]
             if self.labels is not None:
-                lab = self.labels[a0:a0 + self.block_atoms]
-                for g in np.unique(lab):
-                    self._group_power[g] += per_atom[:, lab == g].sum(axis=1)
+                for g in range(self._group_power.shape[0]):
+                    cols.append(np.where(self.labels == g, self._weight, 0.0))
+            self._colw = np.repeat(np.stack(cols, axis=1), 3, axis=0)  # (3 n, 1 + G) float64
+            self._win32 = self.window.astype(np.float32)[:, None]
+        flat = np.ascontiguousarray(seg, dtype=np.float32).reshape(seg.shape[0], -1)
+        width = 3 * self.block_atoms
+        for c0 in range(0, flat.shape[1], width):
+            blk = flat[:, c0:c0 + width] * self._sw3[None, c0:c0 + width]
+            blk -= blk.mean(axis=0, keepdims=True)
+            blk *= self._win32
+            f = scipy.fft.rfft(blk, axis=0)  # float32 in, complex64 out
+            pw = (f.real * f.real + f.imag * f.imag).astype(np.float64)  # (n_freq, cols)
+            both = pw @ self._colw[c0:c0 + width]  # (n_freq, 1 + G)
+            self._power += both[:, 0]
+            if self.labels is not None:
+                self._group_power += both[:, 1:].T
         self._n_segments += 1
 
     def update(self, velocities_nm_per_ps: np.ndarray) -> None:
@@ -149,7 +162,7 @@ class VelocitySpectrumAccumulator:
             return
         v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
         if self.atoms is not None:
-            v = v[:, self.atoms]
+            v = np.take(v, self.atoms, axis=1)  # C-ordered (v[:, idx] is not: every later pass was slow)
         if self._carry is not None:
             v = np.concatenate([self._carry, v], axis=0)
             self._carry = None
