@@ -435,7 +435,7 @@ class H5MDFrames:
             if want_pos:
                 pos = self._read_rows(pos_ds, self._rows[sel])
                 if cols is not None:
-                    pos = pos[:, cols]
+                    pos = np.take(pos, cols, axis=1)  # C-ordered, unlike pos[:, cols]
                 pos = np.asarray(pos, dtype=np.float32)
                 if self._pos_factor != 1.0:
                     pos = (pos * self._pos_factor).astype(np.float32)
@@ -445,7 +445,7 @@ class H5MDFrames:
             if vel_ds is not None and self._vel_rows is not None:
                 vel = self._read_rows(vel_ds, self._vel_rows[sel])
                 if cols is not None:
-                    vel = vel[:, cols]
+                    vel = np.take(vel, cols, axis=1)
                 vel = np.asarray(vel, dtype=np.float32)
                 if self._vel_factor != 1.0:
                     vel = (vel * self._vel_factor).astype(np.float32)
@@ -458,7 +458,7 @@ class H5MDFrames:
                 # H5MD: the unwrapped position is position + image . box edges
                 img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
                 if cols is not None:
-                    img = img[:, cols]
+                    img = np.take(img, cols, axis=1)
                 pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=box)

@@ -122,7 +122,7 @@ class MdtrajH5Frames:
                 if positions:
                     pos = np.asarray(f["coordinates"][sl], dtype=np.float32)
                     if cols is not None:
-                        pos = pos[:, cols]
+                        pos = np.take(pos, cols, axis=1)  # C-ordered, unlike pos[:, cols]
                     if self._pf != 1.0:
                         pos = (pos * self._pf).astype(np.float32)
                 else:  # a velocity-only analysis
@@ -131,7 +131,7 @@ class MdtrajH5Frames:
                 if velocities and self._vf is not None:
                     vel = np.asarray(f["velocities"][sl], dtype=np.float32)
                     if cols is not None:
-                        vel = vel[:, cols]
+                        vel = np.take(vel, cols, axis=1)
                     if self._vf != 1.0:
                         vel = (vel * self._vf).astype(np.float32)
                 box = None

@@ -60,16 +60,20 @@ class ArrayFrames:
     ) -> Iterator[FrameChunk]:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         idx = np.arange(start, stop, stride)
-        cols = slice(None) if atom_indices is None else np.asarray(atom_indices)
+        cols = None if atom_indices is None else np.asarray(atom_indices)
+
+        def pick(a: np.ndarray, sel: np.ndarray) -> np.ndarray:
+            return a[sel] if cols is None else np.take(a[sel], cols, axis=1)  # C-ordered, unlike a[sel][:, cols]
+
         for i in range(0, idx.size, chunk_frames):
             sel = idx[i : i + chunk_frames]
             vel = None
             if velocities and self._vel is not None:
-                vel = self._vel[sel][:, cols]
+                vel = pick(self._vel, sel)
             yield FrameChunk(
                 start=int(sel[0]),
                 time_ps=self._time[sel],
-                positions_nm=self._pos[sel][:, cols] if positions else np.empty((sel.size, 0, 3), np.float32),
+                positions_nm=pick(self._pos, sel) if positions else np.empty((sel.size, 0, 3), np.float32),
                 velocities_nm_per_ps=vel,
                 box_nm=None if self._box is None else np.asarray(self._box[sel]),
             )

@@ -308,7 +308,7 @@ class MdtrajFrames:
                     var = nc.variables["velocities"]
                     v = np.asarray(var[sel], dtype=np.float64)
             v = (v * self._vfactor).astype(np.float32)
-        return v if cols is None else v[:, cols]
+        return v if cols is None else np.take(v, cols, axis=1)
 
     def iter_chunks(
         self,
