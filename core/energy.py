@@ -579,7 +579,8 @@ def find_energy_events(
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
     events: list[EnergyEvent] = []
 
-    bad = np.nonzero(~np.isfinite(e))[0]
+    good = np.isfinite(e)
+    bad = np.flatnonzero(~good) if not good.all() else np.zeros(0, np.int64)
     for i in bad[:max_listed]:
         events.append(EnergyEvent("nonfinite", int(i), float(t[i]), float(e[i]) if not np.isnan(e[i]) else math.nan,
                                   ENERGY_UNIT, f"non-finite energy at t = {t[i]:.6g} ps"))
@@ -606,7 +607,6 @@ def find_energy_events(
                                           f"gap of {dt[i]:.6g} ps (median spacing {median_dt:.6g} ps) "
                                           f"before t = {t[i + 1]:.6g} ps"))
 
-    good = np.isfinite(e)
     if bad.size:
         ef, tf = e[good], t[good]
         idx = np.nonzero(good)[0]
@@ -622,15 +622,19 @@ def find_energy_events(
         sub = d if d.size <= robust_sample else d[:: int(math.ceil(d.size / robust_sample))]
         med = float(np.median(sub))
         s = 1.4826 * float(np.median(np.abs(sub - med)))
-        floor = 1e-12 * max(1.0, float(np.max(np.abs(ef))))
+        floor = 1e-12 * max(1.0, float(ef.max()), -float(ef.min()))
         s = max(s, floor)
-        score = np.abs(d - med) / s
-        max_jump = float(score.max())
-        jumps = np.nonzero(score > jump_robust_sigma)[0]
+        # |d - med| / s from the extremes and two comparisons: no full-length float temporaries
+        max_jump = max(float(d.max()) - med, med - float(d.min())) / s
+        band = jump_robust_sigma * s * (1.0 - 1e-9)  # a little inside, then the exact rule below
+        jumps = np.flatnonzero((d > med + band) | (d < med - band))
+        jumps = jumps[np.abs(d[jumps] - med) / s > jump_robust_sigma]  # the exact rule at the border
+        score_j = np.abs(d[jumps] - med) / s
         n_jumps = int(jumps.size)
-        for j in jumps[np.argsort(-score[jumps])][:max_listed]:
+        for r in np.argsort(-score_j)[:max_listed]:
+            j = jumps[r]
             events.append(EnergyEvent("jump", int(idx[j + 1]), float(tf[j + 1]), float(d[j]), ENERGY_UNIT,
-                                      f"energy step of {d[j]:.6g} kJ/mol ({score[j]:.1f} robust sigma) at "
+                                      f"energy step of {d[j]:.6g} kJ/mol ({score_j[r]:.1f} robust sigma) at "
                                       f"t = {tf[j + 1]:.6g} ps"))
         tenth = d.size // 10
         if tenth >= 2:
@@ -677,12 +681,15 @@ def series_sampling(table: EnergyTable) -> tuple[SeriesSampling, ...]:
         if s.role in ("time", "step"):
             continue
         v = np.asarray(s.values, dtype=np.float64)
-        v = v[np.isfinite(v)]
+        fin = np.isfinite(v)
+        if not fin.all():  # a copy only when there is something to drop
+            v = v[fin]
         if v.size < 4:
             continue
         g, method = statistical_inefficiency_of(v)
-        sd = float(np.std(v))
-        out.append(SeriesSampling(name=s.name, role=s.role, unit=s.unit, mean=float(v.mean()), std=sd,
+        mean = float(np.mean(v))
+        sd = _std(v)
+        out.append(SeriesSampling(name=s.name, role=s.role, unit=s.unit, mean=mean, std=sd,
                                   n_samples=int(v.size), statistical_inefficiency=g,
                                   effective_samples=float(v.size / g),
                                   standard_error_of_mean=sd * math.sqrt(g / v.size), method=method))
