@@ -355,7 +355,8 @@ def _empty(key: str, title: str, why: str) -> FigureSpec:
 # coordinates and phase space (phasewake.core.coordinates, projection, landscape)
 
 
-def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: float | None = None) -> FigureSpec:
+def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: float | None = None,
+                             key: str = "coordinate.series") -> FigureSpec:
     """A coordinate against time; with a crossings result, its core sets, dividing surface and events."""
     t = np.asarray(series.time_ps, float)
     q = np.asarray(series.values, float)
@@ -380,7 +381,7 @@ def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: f
                     "crossings of q*, classed as transitions (the other core is reached next) or recrossings.")
     if cursor_ps is not None:
         items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=_GREY, dash="dot")))
-    return FigureSpec(key="coordinate.series", title=f"{series.label} against time",
+    return FigureSpec(key=key, title=f"{series.label} against time",
                       plots=(PlotSpec(title=series.label, x=TIME, y=Axis(series.label, series.unit),
                                       items=tuple(items), x_is_time=True),),
                       caption=caption, provenance={"settings": {"coordinate": series.spec}})
@@ -556,9 +557,13 @@ def poincare_figure(section: Any, *, q2_label: str = "q2", p2_label: str = "p2")
 # sampling (phasewake.core.sampling)
 
 
-def running_average_figure(result: Any, *, name: str = "series") -> FigureSpec:
-    """Running average of a series with its g-corrected standard-error band."""
-    t = np.asarray(result.time_ps, float)
+def running_average_figure(result: Any, *, name: str = "series", key: str = "sampling.running",
+                           time_offset_ps: float = 0.0) -> FigureSpec:
+    """Running average of a series with its g-corrected standard-error band.
+
+    time_offset_ps : added to the result's times (which start at 0), e.g. the start of a time window.
+    """
+    t = np.asarray(result.time_ps, float) + time_offset_ps
     m = np.asarray(result.mean, float)
     e = np.asarray(result.sem, float)
     items: list[PlotItem] = [
@@ -571,7 +576,7 @@ def running_average_figure(result: Any, *, name: str = "series") -> FigureSpec:
     caption = (f"Running average of {name} from the start of the run up to each time, with ± one standard error "
                f"from the statistical inefficiency g = {result.statistical_inefficiency:.3g}. An average that "
                "still wanders outside its band late in the run has not converged.")
-    return FigureSpec(key="sampling.running", title=f"Running average of {name}",
+    return FigureSpec(key=key, title=f"Running average of {name}",
                       plots=(PlotSpec(title=f"Running average of {name}", x=TIME, y=Axis(name, result.unit),
                                       items=tuple(items), x_is_time=True),),
                       caption=caption, provenance={"settings": dict(result.settings)})
@@ -624,9 +629,12 @@ def tm_figure(result: Any) -> FigureSpec:
                       caption=caption, provenance={"settings": dict(result.settings)})
 
 
-def coverage_figure(result: Any, *, x_label: str = "x", y_label: str = "y") -> FigureSpec:
-    """Phase-space coverage: the fraction of a fixed grid visited so far, against time."""
-    t = np.asarray(result.time_ps, float)
+def coverage_figure(result: Any, *, x_label: str = "x", y_label: str = "y", time_offset_ps: float = 0.0) -> FigureSpec:
+    """Phase-space coverage: the fraction of a fixed grid visited so far, against time.
+
+    time_offset_ps : added to the result's times (which start at 0), e.g. the start of a time window.
+    """
+    t = np.asarray(result.time_ps, float) + time_offset_ps
     f = np.asarray(result.fraction, float)
     shape = np.asarray(result.visits).shape
     caption = (f"Fraction of a fixed {shape[0]} × {shape[1]} grid over {x_label} and {y_label} visited up to each "
@@ -827,6 +835,162 @@ def verdict_style(level: str) -> Style:
 # tables
 
 
+# --------------------------------------------------------------------------------------------------
+# the window's phase-space, sampling and landscape figures (also drawn in the report)
+
+
+def phase_path_figure(x: np.ndarray, y: np.ndarray, *, key: str, title: str, x_axis: Axis, y_axis: Axis,
+                      caption: str, label: str) -> FigureSpec:
+    """Two quantities against each other as a thin line through the frames in time order.
+
+    x, y : ndarray, shape (n_frames,), in the units of ``x_axis`` and ``y_axis``.
+    """
+    style = Style(colour=PALETTE[5], width=1.0, alpha=0.55)
+    return FigureSpec(key=key, title=title, caption=caption, plots=(
+        PlotSpec(title=title, x=x_axis, y=y_axis, legend=False,
+                 items=(Line(np.asarray(x, float), np.asarray(y, float), label=label, style=style),)),))
+
+
+def _momentum_of(series: Any) -> tuple[np.ndarray, str, str] | None:
+    if series.momentum is not None:
+        return np.asarray(series.momentum, float), series.momentum_unit, "Conjugate momentum"
+    if series.velocity is not None:
+        return np.asarray(series.velocity, float), series.velocity_unit or f"{series.unit}/ps", "Rate of change"
+    return None
+
+
+def phase_density_figure(series: Any, histogram: Any) -> FigureSpec:
+    """Density of the frames in the (q, p) plane (key ``phase.density``); empty cells blank.
+
+    histogram : phasewake.core.landscape.Histogram2D of (q, p), computed by the caller.
+    """
+    mp = _momentum_of(series)
+    pu, pname = (mp[1], mp[2]) if mp is not None else ("", "Momentum")
+    dens = np.where(np.asarray(histogram.counts) > 0, np.asarray(histogram.density, float), np.nan)
+    title = f"Phase-space density of {series.label or series.spec}"
+    return FigureSpec(
+        key="phase.density", title=title,
+        caption=(f"Histogram of ({series.spec}, p) over the window, {histogram.n_samples} frames; empty cells "
+                 "blank. Blank regions between visited ones are where the run rarely went."),
+        plots=(PlotSpec(title=title, x=Axis(series.spec, series.unit), y=Axis(pname, pu), legend=False,
+                        items=(Image(dens, np.asarray(histogram.x_edges, float), np.asarray(histogram.y_edges, float),
+                                     colorbar_label=f"density (1/({series.unit} \u00b7 {pu}))"),)),))
+
+
+def coordinate_time_figure(series: Any) -> FigureSpec:
+    """A coordinate frame by frame against time (key ``phase.series``), linked to the time cursor."""
+    title = f"{series.label or series.spec} against time"
+    return FigureSpec(key="phase.series", title=title, caption=f"The coordinate {series.spec} frame by frame.",
+                      plots=(PlotSpec(title=title, x=TIME, y=Axis(series.spec, series.unit), x_is_time=True,
+                                      legend=False, items=(Line(np.asarray(series.time_ps, float),
+                                                                np.asarray(series.values, float),
+                                                                label=series.spec, style=_style(0)),)),))
+
+
+def coordinate_pair_figure(first: Any, second: Any) -> FigureSpec:
+    """Two coordinates against each other, frame by frame (key ``phase.pair``)."""
+    return phase_path_figure(
+        np.asarray(first.values, float), np.asarray(second.values, float), key="phase.pair",
+        title=f"{first.spec} against {second.spec}", x_axis=Axis(first.spec, first.unit),
+        y_axis=Axis(second.spec, second.unit), label=f"{first.spec}, {second.spec}",
+        caption=f"The coordinate pair ({first.spec}, {second.spec}) frame by frame; the large dot is the cursor's frame.")
+
+
+def poincare_pair_figure(first: Any, second: Any, section: Any) -> FigureSpec:
+    """Poincaré section of a coordinate pair: (q2, p2) where q1 crosses ``section.value`` upwards
+    (key ``phase.poincare_pair``). section : phasewake.core.landscape.PoincareSection."""
+    level = float(section.value)
+    title = f"Poincar\u00e9 section at {first.spec} = {level:.4g} {first.unit}"
+    return FigureSpec(
+        key="phase.poincare_pair", title=title,
+        caption=(f"({second.spec}, its momentum) each time {first.spec} crosses {level:.4g} {first.unit} "
+                 f"going {section.direction}, interpolated between frames: {section.n_points} points. Regular "
+                 "motion lies on curves, chaotic motion fills areas."),
+        plots=(PlotSpec(title="Poincar\u00e9 section", x=Axis(second.spec, second.unit),
+                        y=Axis(f"Momentum of {second.spec}", section.p2_unit), legend=False,
+                        items=(Line(np.asarray(section.q2, float), np.asarray(section.p2, float), kind="scatter",
+                                    label="section", style=Style(colour=PALETTE[5], marker="o", marker_size=5)),)),))
+
+
+def pca_variance_figure(pca: Any) -> FigureSpec:
+    """Explained variance per principal component (key ``phase.pca_variance``)."""
+    return principal_component_figures(pca)[0]
+
+
+def principal_component_figures(pca: Any) -> list[FigureSpec]:
+    """Explained variance per component (``phase.pca_variance``), PC 1 against its momentum
+    (``phase.pc1``) and PC 1 against PC 2 (``phase.pc12``, when PC 2 carries variance).
+
+    pca : phasewake.core.projection.PCAResult.
+    """
+    out = []
+    ev = np.asarray(pca.explained_variance_ratio, float)
+    k = np.arange(1, ev.size + 1, dtype=float)
+    cc = pca.cosine_content
+    cc_text = ""
+    if cc is not None and np.asarray(cc).size:
+        cc_text = (f" Cosine content of PC 1: {float(np.asarray(cc)[0]):.2f} (Hess 2002; near 1 suggests random "
+                   "diffusion rather than structure).")
+    out.append(FigureSpec(
+        key="phase.pca_variance", title="Principal components: explained variance",
+        caption=(f"Fraction of the total variance per principal component ({pca.n_frames} frames, "
+                 f"{'mass-weighted' if pca.mass_weighted else 'unweighted'}, "
+                 f"{'after optimal superposition' if pca.fit else 'no fit'}, method {pca.method})." + cc_text),
+        plots=(PlotSpec(title="Explained variance", x=Axis("Principal component"), y=Axis("Fraction of variance"),
+                        legend=False, items=(Line(k, ev, kind="bar", label="explained variance", style=_style(0)),)),)))
+    proj = pca.projections
+    if proj is None or pca.time_ps is None or np.asarray(proj).ndim != 2 or np.asarray(proj).shape[1] < 1:
+        return out
+    pr = np.asarray(proj, float)
+    if pca.momenta is not None:
+        out.append(phase_path_figure(
+            pr[:, 0], np.asarray(pca.momenta, float)[:, 0], key="phase.pc1",
+            title="First principal component: phase portrait", x_axis=Axis("PC 1", pca.projection_unit),
+            y_axis=Axis("Momentum of PC 1", pca.momentum_unit), label="pc(1)",
+            caption="Projection on the first principal component against its momentum (mass-weighted "
+                    "velocities projected)."))
+    # a second component with no variance (a diatomic after superposition) is not worth a plot
+    if pr.shape[1] >= 2 and ev.size >= 2 and ev[1] > 1e-4:
+        out.append(phase_path_figure(
+            pr[:, 0], pr[:, 1], key="phase.pc12", title="Principal components 1 and 2",
+            x_axis=Axis("PC 1", pca.projection_unit), y_axis=Axis("PC 2", pca.projection_unit),
+            label="pc(1), pc(2)", caption="The run projected on its first two principal components."))
+    return out
+
+
+def landscape_states_figure(profile: Any, series: Any, *, states: tuple[float, float] | None,
+                            surface: float | None, temperature_source: str = "") -> FigureSpec:
+    """The free-energy profile with the core-state edges A, B and the dividing surface as marks a user
+    can drag (key ``landscape.states``; roles ``state`` and ``surface``).
+
+    profile : phasewake.core.landscape.FreeEnergyProfile; series : the coordinate it was made from;
+    states : (A_hi, B_lo) in the coordinate's unit.
+    """
+    x = np.asarray(profile.centers, float)
+    f = np.asarray(profile.free_energy_kJ_per_mol, float)
+    e = np.asarray(profile.error_kJ_per_mol, float)
+    items: list[PlotItem] = [Band(x, f - e, f + e, label="\u00b1 block error", style=Style(colour=PALETTE[5], alpha=0.3)),
+                             Line(x, f, label="free energy", style=series_style(0, marker=True))]
+    if states is not None:
+        items.append(Mark("vline", float(states[0]), label="A", role="state",
+                          style=Style(colour=PALETTE[3], dash="dashdot", width=2.0)))
+        items.append(Mark("vline", float(states[1]), label="B", role="state",
+                          style=Style(colour=PALETTE[1], dash="dashdot", width=2.0)))
+    if surface is not None:
+        items.append(Mark("vline", float(surface), label="dividing surface", role="surface",
+                          style=Style(colour=PALETTE[0], dash="dash", width=2.0)))
+    bar = " ".join(f"Barrier top at {b.position:.3g} {profile.unit}." for b in profile.barriers[:2])
+    source = f" ({temperature_source})" if temperature_source else ""
+    name = series.label or series.spec
+    return FigureSpec(key="landscape.states", title=f"Free-energy profile along {name}", caption=(
+        f"F(q) = \u2212kT ln P(q) at T = {profile.temperature_K:.4g} K{source}, {profile.n_samples} frames, error bars "
+        f"from {profile.n_blocks} blocks, Jacobian: {profile.jacobian}. Vertical lines: the edge of core A "
+        f"(q \u2264 A), of core B (q \u2265 B) and the dividing surface; drag them to redefine them. {bar}").strip(),
+        plots=(PlotSpec(title=f"Free-energy profile along {name}", x=Axis(series.spec, series.unit),
+                        y=Axis("Free energy", "kJ/mol"), items=tuple(items)),))
+
+
+
 FIGURE_BUILDERS: dict[str, Callable[..., FigureSpec]] = {
     "energy.series": energy_series_figure,
     "temperature.series": temperature_figure,
@@ -838,6 +1002,12 @@ FIGURE_BUILDERS: dict[str, Callable[..., FigureSpec]] = {
     "coordinate.series": coordinate_series_figure,
     "phase.portrait": phase_portrait_figure,
     "phase.pca": pca_figure,
+    "phase.pca_variance": pca_variance_figure,
+    "phase.density": phase_density_figure,
+    "phase.series": coordinate_time_figure,
+    "phase.pair": coordinate_pair_figure,
+    "phase.poincare_pair": poincare_pair_figure,
+    "landscape.states": landscape_states_figure,
     "phase.poincare": poincare_figure,
     "landscape.profile": free_energy_profile_figure,
     "landscape.surface": free_energy_surface_figure,

@@ -17,7 +17,8 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.figures import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec, Style, series_style
+from phasewake.core import plots
+from phasewake.core.figures import FigureSpec
 from phasewake.core.progress import Progress
 from phasewake.core.run import Run
 
@@ -186,9 +187,6 @@ def _relay(work: Any, lo: float, hi: float, total: float, label: str) -> Generat
 
 def _plots_figures(result: Any, **options: Any) -> list[FigureSpec]:
     """Figures core.plots draws from ``result`` ([] when it has no builder for it yet)."""
-    plots = module_or_none("plots")
-    if plots is None or not hasattr(plots, "figures_for"):
-        return []
     try:
         return list(plots.figures_for(result, **options))
     except TypeError:  # a builder that takes none of these options
@@ -250,30 +248,11 @@ _ENERGY_GROUPS: tuple[tuple[str, str, tuple[str, ...]], ...] = (  # title, y lab
 
 
 def energy_series_figure(run: Run, window_ps: tuple[float, float] | None = None) -> FigureSpec | None:
-    """The energy table against time, restricted to ``window_ps`` (None when there is no table).
-
-    Uses ``phasewake.core.plots.energy_series_figure`` when the build has it; this plain version is
-    what the window draws otherwise.
-    """
+    """The energy table against time, restricted to ``window_ps`` (None when there is no table)."""
     table = _table_in_window(run, window_ps)
     if table is None or len(table) == 0:
         return None
-    plots = module_or_none("plots")
-    if plots is not None and hasattr(plots, "energy_series_figure"):
-        return plots.energy_series_figure(table, run_name=run.name)
-    t = np.asarray(table.time_ps, dtype=float)
-    out = []
-    for title, ylabel, roles in _ENERGY_GROUPS:
-        items = [Line(t, np.asarray(s.values, float), label=s.name, style=series_style(i))
-                 for i, s in enumerate(s for s in table.series.values() if s.role in roles)]
-        if items:
-            unit = next(s.unit for s in table.series.values() if s.role in roles)
-            out.append(PlotSpec(title=title, x=Axis("Time", "ps"), y=Axis(ylabel, unit), items=tuple(items),
-                                x_is_time=True))
-    if not out:
-        return None
-    return FigureSpec(key="energy.series", title=f"Energy table of {run.name}", plots=tuple(out),
-                      caption="Series as stored in the run's energy table, against time.")
+    return plots.energy_series_figure(table, run_name=run.name)
 
 
 def energy_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
@@ -283,9 +262,8 @@ def energy_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     if fig is None:
         return PanelResult(message="This run has no energy table; the audit below uses the frames.")
     figs = [fig]
-    plots = module_or_none("plots")
     table = _table_in_window(ctx.run, ctx.window_ps)
-    if plots is not None and table is not None and table.by_role("temperature") is not None:
+    if table is not None and table.by_role("temperature") is not None:
         figs.append(plots.temperature_figure(table, target_K=ctx.run.metadata.temperature_K, run_name=ctx.run.name))
     return PanelResult(figures=tuple(figs), message="The audit is running\u2026")
 
@@ -311,9 +289,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
 
 
 def _audit_figures(res: Any, run: Run, window_ps: tuple[float, float] | None) -> list[FigureSpec]:
-    plots = module_or_none("plots")
-    if plots is None:
-        return []
+    """The audit's figures when core.plots has no builder for its result type."""
     figs = []
     table = _table_in_window(run, window_ps)
     drift = None if res.energy is None else res.energy.drift
@@ -322,37 +298,14 @@ def _audit_figures(res: Any, run: Run, window_ps: tuple[float, float] | None) ->
             table, run_name=run.name,
             drift_slope_kJ_per_mol_per_ps=None if drift is None else drift.slope_kJ_per_mol_per_ns * 1e-3,
             drift_intercept_kJ_per_mol=None if drift is None else drift.intercept_kJ_per_mol))
-    temp = res.temperature
-    if temp is not None and np.size(temp.temperature_K):
-        figs.append(plots.temperature_figure(table, time_ps=temp.time_ps, kinetic_temperature_K=temp.temperature_K,
-                                             target_K=run.metadata.temperature_K, run_name=run.name,
-                                             label=f"kinetic temperature ({temp.kinetic_source})"))
-    elif table is not None and table.by_role("temperature") is not None:
-        figs.append(plots.temperature_figure(table, target_K=run.metadata.temperature_K, run_name=run.name))
-    ts = res.timestep
-    if ts is not None and np.size(ts.frequency_per_ps):
-        f = np.asarray(ts.frequency_per_ps, float)
-        pw = np.asarray(ts.power, float)
-        items: list[Any] = [Line(f, pw, label="mass-weighted velocity power", style=series_style(0))]
-        if ts.fastest is not None and hasattr(ts.fastest, "frequency_per_ps"):
-            items.append(Mark("vline", float(ts.fastest.frequency_per_ps), label="fastest motion",
-                              role="threshold"))
-        figs.append(FigureSpec(key="audit.timestep_spectrum", title="Velocity power spectrum",
-                               plots=(PlotSpec(title="Velocity power spectrum (time-step check)",
-                                               x=Axis("Frequency", "1/ps"), y=Axis("Power", "arb. units"),
-                                               items=tuple(items)),),
-                               caption=ts.note))
+    if res.temperature is not None and np.size(res.temperature.temperature_K):
+        figs.append(plots.audit_temperature_figure(res))
+    if res.timestep is not None and np.size(res.timestep.frequency_per_ps):
+        figs.append(plots.audit_spectrum_figure(res))
     return figs
 
 
 # ---- Phase space ----------------------------------------------------------------------------
-
-def _portrait(x: np.ndarray, y: np.ndarray, *, key: str, title: str, xa: Axis, ya: Axis, caption: str,
-              label: str) -> FigureSpec:
-    style = Style(colour="#0072B2", width=1.0, alpha=0.55)
-    return FigureSpec(key=key, title=title, caption=caption, plots=(
-        PlotSpec(title=title, x=xa, y=ya, legend=False, items=(Line(x, y, label=label, style=style),)),))
-
 
 def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Coordinate against its conjugate momentum, its density, a Poincaré-style section, and PCA."""
@@ -365,36 +318,16 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     figs: list[FigureSpec] = []
     traces: dict[str, Trace] = {}
     q = np.asarray(s.values, float)
-    est = " (velocities estimated from positions)" if s.velocities_estimated else ""
-    if s.momentum is not None:
-        p, pu, pname = np.asarray(s.momentum, float), s.momentum_unit, "Conjugate momentum"
-    elif s.velocity is not None:
-        p, pu, pname = np.asarray(s.velocity, float), s.velocity_unit, "Rate of change"
-    else:
-        p = None
-    xa = Axis(s.spec, s.unit)  # the short specification: atom names make axis labels too long
-    if p is not None:
-        ya = Axis(pname, pu)
-        figs.append(_portrait(q, p, key="phase.portrait", title=f"Phase portrait of {s.label or s.spec}",
-                              xa=xa, ya=ya, label=s.spec,
-                              caption=f"{s.spec} against its conjugate momentum p = m_eff dq/dt{est}, frames "
-                                      f"{ctx.start}\u2013{ctx.stop - 1}. The large dot is the cursor's frame, the thin line behind it the "
-                                      "recent path; a crossing selected in the Crossings panel is drawn thick."))
+    mp = s.momentum if s.momentum is not None else s.velocity
+    if mp is not None:
+        figs.append(plots.phase_portrait_figure(s))
+        p = np.asarray(mp, float)
         traces["phase.portrait"] = Trace(np.asarray(s.time_ps, float), q, p)
         land = module_or_none("landscape")
         if land is not None:
-            h = land.histogram_2d(q, p, x_unit=s.unit, y_unit=pu)
-            dens = np.where(h.counts > 0, h.density, np.nan)
-            figs.append(FigureSpec(
-                key="phase.density", title=f"Phase-space density of {s.label or s.spec}",
-                caption=f"Histogram of ({s.spec}, p) over the window, {h.n_samples} frames; empty cells blank.",
-                plots=(PlotSpec(title=f"Phase-space density of {s.label or s.spec}", x=xa, y=ya, legend=False,
-                                items=(Image(dens, h.x_edges, h.y_edges,
-                                             colorbar_label=f"density (1/({s.unit} \u00b7 {pu}))"),)),)))
-    figs.append(FigureSpec(key="phase.series", title=f"{s.label or s.spec} against time", plots=(
-        PlotSpec(title=f"{s.label or s.spec} against time", x=Axis("Time", "ps"), y=xa, x_is_time=True,
-                 legend=False, items=(Line(np.asarray(s.time_ps, float), q, label=s.spec),)),),
-        caption=f"The coordinate {s.spec} frame by frame."))
+            pu = s.momentum_unit if s.momentum is not None else s.velocity_unit
+            figs.append(plots.phase_density_figure(s, land.histogram_2d(q, p, x_unit=s.unit, y_unit=pu)))
+    figs.append(plots.coordinate_time_figure(s))
     spec2 = str(ctx.choices.get("coordinate2") or "").strip()
     if spec2 and spec2 != ctx.coordinate:
         s2 = yield from coordinate_series(ctx.run, spec2, ctx.start, ctx.stop)
@@ -426,61 +359,29 @@ def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec
     """Two coordinates against each other, and the Poincaré section (q2, p2) where q1 crosses its median."""
     t = np.asarray(s1.time_ps, float)
     q1 = np.asarray(s1.values, float)
-    q2 = np.asarray(s2.values, float)
-    figs = [_portrait(q1, q2, key="phase.pair", title=f"{s1.spec} against {s2.spec}",
-                      xa=Axis(s1.spec, s1.unit), ya=Axis(s2.spec, s2.unit), label=f"{s1.spec}, {s2.spec}",
-                      caption=f"The coordinate pair ({s1.spec}, {s2.spec}) frame by frame; the large dot is "
-                              "the cursor's frame.")]
-    traces["phase.pair"] = Trace(t, q1, q2)
+    figs = [plots.coordinate_pair_figure(s1, s2)]
+    traces["phase.pair"] = Trace(t, q1, np.asarray(s2.values, float))
     land = module_or_none("landscape")
     if land is not None and s2.momentum is not None:
-        level = float(np.median(q1))
-        sec = land.poincare_section(q1, q2, np.asarray(s2.momentum, float), t, value=level, direction="up",
-                                    q2_unit=s2.unit, p2_unit=s2.momentum_unit)
+        sec = land.poincare_section(q1, np.asarray(s2.values, float), np.asarray(s2.momentum, float), t,
+                                    value=float(np.median(q1)), direction="up", q2_unit=s2.unit,
+                                    p2_unit=s2.momentum_unit)
         if sec.n_points:
-            figs.append(FigureSpec(
-                key="phase.poincare_pair", title=f"Poincar\u00e9 section at {s1.spec} = {level:.4g} {s1.unit}",
-                caption=(f"({s2.spec}, its momentum) each time {s1.spec} crosses {level:.4g} {s1.unit} (its median) "
-                         f"upwards, interpolated between frames: {sec.n_points} points. Regular motion lies on "
-                         "curves, chaotic motion fills areas."),
-                plots=(PlotSpec(title="Poincar\u00e9 section", x=Axis(s2.spec, s2.unit),
-                                y=Axis(f"Momentum of {s2.spec}", s2.momentum_unit), legend=False,
-                                items=(Line(np.asarray(sec.q2, float), np.asarray(sec.p2, float), kind="scatter",
-                                            label="section", style=Style(colour="#0072B2", marker="o",
-                                                                         marker_size=5)),)),)))
+            figs.append(plots.poincare_pair_figure(s1, s2, sec))
     return figs
 
 
 def _pca_figures(pca: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
-    out = []
-    ev = np.asarray(pca.explained_variance_ratio, float)
-    k = np.arange(1, ev.size + 1, dtype=float)
-    out.append(FigureSpec(key="phase.pca_variance", title="Principal components: explained variance",
-                          caption=f"Fraction of the total variance per principal component ({pca.n_frames} frames, "
-                                  f"{'mass-weighted' if pca.mass_weighted else 'unweighted'}, "
-                                  f"{'after optimal superposition' if pca.fit else 'no fit'}).",
-                          plots=(PlotSpec(title="Explained variance", x=Axis("Component"),
-                                          y=Axis("Fraction of variance"), legend=False,
-                                          items=(Line(k, ev, kind="bar", label="explained variance"),)),)))
-    if pca.projections is not None and pca.time_ps is not None and pca.projections.shape[1] >= 1:
-        q1 = np.asarray(pca.projections[:, 0], float)
+    figs = plots.principal_component_figures(pca)
+    if pca.projections is not None and pca.time_ps is not None:
         t = np.asarray(pca.time_ps, float)
-        if pca.momenta is not None:
-            p1 = np.asarray(pca.momenta[:, 0], float)
-            out.append(_portrait(q1, p1, key="phase.pc1", title="First principal component: phase portrait",
-                                 xa=Axis("PC 1", pca.projection_unit), ya=Axis("Momentum of PC 1", pca.momentum_unit),
-                                 label="pc(1)", caption="Projection on the first principal component against its "
-                                                        "momentum (mass-weighted velocities projected)."))
-            traces["phase.pc1"] = Trace(t, q1, p1)
-        # a second component with no variance (a diatomic after superposition) is not worth a plot
-        if pca.projections.shape[1] >= 2 and ev.size >= 2 and ev[1] > 1e-4:
-            q2 = np.asarray(pca.projections[:, 1], float)
-            out.append(_portrait(q1, q2, key="phase.pc12", title="Principal components 1 and 2",
-                                 xa=Axis("PC 1", pca.projection_unit), ya=Axis("PC 2", pca.projection_unit),
-                                 label="pc(1), pc(2)", caption="The run projected on its first two principal "
-                                                               "components."))
-            traces["phase.pc12"] = Trace(t, q1, q2)
-    return out
+        pr = np.asarray(pca.projections, float)
+        keys = {f.key for f in figs}
+        if "phase.pc1" in keys:
+            traces["phase.pc1"] = Trace(t, pr[:, 0], np.asarray(pca.momenta, float)[:, 0])
+        if "phase.pc12" in keys:
+            traces["phase.pc12"] = Trace(t, pr[:, 0], pr[:, 1])
+    return figs
 
 
 # ---- Correlation ----------------------------------------------------------------------------
@@ -492,7 +393,6 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     figs: list[FigureSpec] = []
     notes: list[str] = []
     run = ctx.run
-    plots = module_or_none("plots")
     series: list[tuple[str, np.ndarray, float, str]] = []
     table = _table_in_window(run, ctx.window_ps)
     if table is not None and len(table) > 8:
@@ -511,19 +411,17 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     for i, (name, x, dt, unit) in enumerate(series):
         yield Progress(i, len(series) + 2, f"autocorrelation of {name}")
         res = corr.analyse_series(x, dt_ps=dt, unit=unit)
-        figs.append(plots.autocorrelation_figure(res, name=name) if plots else _acf_plain(res, name))
+        figs.append(plots.autocorrelation_figure(res, name=name))
         verdicts.append(corr.judge_ess(res, name=name))
-        blk = corr.blocking(x, unit=unit)
-        if plots is not None:
-            figs.append(plots.blocking_figure(blk, name=name))
+        figs.append(plots.blocking_figure(corr.blocking(x, unit=unit), name=name))
     vel = module_or_none("velocity")
     if vel is not None and run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
         yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
         sub = window_run(run, ctx.start, ctx.stop)
         v = yield from _relay(vel.vacf(sub), 0, 1, 1, "VACF")
-        figs.extend(_plots_figures(v) or [_vacf_figure(v)])
+        figs.append(plots.vacf_figure(v))
         d = yield from _relay(vel.vibrational_spectrum(sub), 0, 1, 1, "vibrational spectrum")
-        figs.extend(_plots_figures(d) or [_vdos_figure(d)])
+        figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
     if not figs:
@@ -537,35 +435,6 @@ def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
     import dataclasses
 
     return dataclasses.replace(fig, key=f"{fig.key}.{i}")
-
-
-def _acf_plain(res: Any, name: str) -> FigureSpec:
-    return FigureSpec(key="correlation.acf", title=f"Autocorrelation of {name}", plots=(
-        PlotSpec(title=f"Autocorrelation of {name}", x=Axis("Lag", "ps"), y=Axis("Autocorrelation"),
-                 items=(Line(res.acf_lag_ps, res.acf, label=name),)),))
-
-
-def _vacf_figure(v: Any) -> FigureSpec:
-    lag = np.asarray(v.lag_ps, float)
-    items = tuple(Line(lag, np.asarray(v.vacf[i], float), label=g, style=series_style(i))
-                  for i, g in enumerate(v.groups))
-    est = " Velocities estimated from positions." if v.velocities_estimated else ""
-    return FigureSpec(key="velocity.vacf", title="Velocity autocorrelation", caption=(
-        f"Normalised velocity autocorrelation per atom group, {v.n_frames} frames, {v.dt_ps:.3g} ps apart." + est),
-        plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps"),
-                        y=Axis("VACF", v.unit), items=items),))
-
-
-def _vdos_figure(d: Any) -> FigureSpec:
-    items: list[Any] = [Line(np.asarray(d.wavenumber_cm1, float), np.asarray(d.intensity, float),
-                             label="density of states", style=series_style(0))]
-    if d.highest_significant_peak_cm1 is not None:
-        items.append(Mark("vline", float(d.highest_significant_peak_cm1), label="highest peak", role="threshold"))
-    return FigureSpec(key="velocity.vdos", title="Vibrational density of states", caption=(
-        f"Cosine transform of the mass-weighted VACF with a {d.window} window; resolution "
-        f"{d.resolution_cm1:.3g} cm^-1, Nyquist {d.nyquist_cm1:.4g} cm^-1."),
-        plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm^-1"),
-                        y=Axis("Density of states", d.intensity_unit), items=tuple(items)),))
 
 
 # ---- Sampling -------------------------------------------------------------------------------
@@ -604,30 +473,12 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
         except PhasewakeError as exc:
             notes.append(f"{name}: {exc}")
             continue
-        rt = np.asarray(ra.time_ps, float) + float(t[0])
-        mean = np.asarray(ra.mean, float)
-        sem = np.asarray(ra.sem, float)
-        figs.append(FigureSpec(
-            key=f"sampling.running.{key}", title=f"Running average of {name}",
-            caption=(f"Mean of {name} over the frames up to each time, with \u00b11 standard error (g = "
-                     f"{ra.statistical_inefficiency:.3g}, Sokal). A curve that still drifts at the end has not "
-                     "settled."),
-            plots=(PlotSpec(title=f"Running average of {name}", x=Axis("Time", "ps"), y=Axis(name, unit),
-                            x_is_time=True, items=(
-                                Band(rt, mean - sem, mean + sem, label="\u00b11 standard error",
-                                     style=Style(colour="#56B4E9", alpha=0.3)),
-                                Line(rt, mean, label="running mean", style=series_style(0)))),)))
+        figs.append(plots.running_average_figure(ra, name=name, key=f"sampling.running.{key}",
+                                                 time_offset_ps=float(t[0])))
     if q_series is not None and q_series.momentum is not None and q_series.values.size > 16:
         t = np.asarray(q_series.time_ps, float)
         cov = sampling.coverage_over_time(q_series.values, q_series.momentum, dt_ps=float(np.median(np.diff(t))))
-        figs.append(FigureSpec(
-            key="sampling.coverage", title="Phase-space coverage over time",
-            caption=(f"Fraction of the cells of a fixed grid in ({q_series.spec}, p) visited by each time. A "
-                     "curve still rising at the end means the run is still finding new regions."),
-            plots=(PlotSpec(title="Phase-space coverage over time", x=Axis("Time", "ps"),
-                            y=Axis("Fraction of cells visited"), x_is_time=True, legend=False,
-                            items=(Line(np.asarray(cov.time_ps, float) + float(t[0]), np.asarray(cov.fraction, float),
-                                        label="coverage", style=series_style(0, marker=True)),)),)))
+        figs.append(plots.coverage_figure(cov, x_label=q_series.spec, y_label="p", time_offset_ps=float(t[0])))
     # across replicas: R-hat of the coordinate between all runs loaded with the same atom count
     others = [r for r in ctx.others if r.n_atoms == run.n_atoms and r.frames is not None]
     if others and q_series is not None:
@@ -678,9 +529,8 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
                                               unit=s.unit, temperature_K=temp, kT_over_m_eff=kt_m), 0, 1, 1,
                             "crossings")
     events = _event_rows(res, ctx)
-    mine = _crossings_figures(res, s)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
-    figs = mine[:1] + (_plots_figures(res) or mine[1:])
+    figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + _plots_figures(res)
     msg = (f"{res.n_transitions} transitions and {res.n_recrossings} recrossings of the dividing surface "
            f"{res.settings.surface:.4g} {res.settings.unit} (states: A \u2264 {res.settings.a_hi:.4g}, "
            f"B \u2265 {res.settings.b_lo:.4g}; {res.settings.states_source}).")
@@ -713,62 +563,6 @@ def _event_rows(res: Any, ctx: AnalysisContext) -> tuple[EventRow, ...]:
     return tuple(rows)
 
 
-def _crossings_figures(res: Any, s: Any) -> list[FigureSpec]:
-    st = res.settings
-    t = np.asarray(s.time_ps, float)
-    q = np.asarray(s.values, float)
-    marks = (Mark("hspan", float(np.nanmin(q)), st.a_hi, label="state A", role="state",
-                  style=Style(colour="#56B4E9")),
-             Mark("hspan", st.b_lo, float(np.nanmax(q)), label="state B", role="state",
-                  style=Style(colour="#E69F00")),
-             Mark("hline", st.surface, label="dividing surface", role="surface",
-                  style=Style(colour="#000000", dash="dash", width=1.2)))
-    ev = res.events
-    pts = []
-    for kind, colour, marker in (("transition", "#0072B2", "o"), ("recrossing", "#D55E00", "x")):
-        sel = ev["kind"] == kind
-        if np.any(sel):
-            pts.append(Line(ev["time_ps"][sel], np.full(int(sel.sum()), st.surface), label=f"{kind}s",
-                            kind="scatter", style=Style(colour=colour, marker=marker, marker_size=8)))
-    figs = [FigureSpec(key="crossings.series", title=f"Crossings of {s.label or s.spec}", caption=(
-        f"{s.spec} against time with the two core states (shaded) and the dividing surface (dashed); "
-        f"dots: transitions, crosses: recrossings. {res.n_transitions} transitions, {res.n_recrossings} "
-        "recrossings."), plots=(PlotSpec(
-            title=f"Crossings of {s.label or s.spec}", x=Axis("Time", "ps"), y=Axis(s.spec, s.unit),
-            x_is_time=True, items=(Line(t, q, label=s.spec, style=Style(colour="#555555", width=1.0)),
-                                   *marks, *pts)),))]
-    d = res.dwells
-    if d is not None and len(d):
-        names = d.dtype.names or ()
-        dur_key = next((n for n in ("duration_ps", "dwell_ps", "length_ps") if n in names), None)
-        state_key = "state" if "state" in names else None
-        if dur_key and state_key:
-            items = []
-            for i, stt in enumerate(("A", "B")):
-                v = np.asarray(d[dur_key][d[state_key] == stt], float)
-                v = v[np.isfinite(v)]
-                if v.size:
-                    edges = np.linspace(0.0, float(v.max()) * 1.05 + 1e-12, min(30, max(5, v.size // 2)) + 1)
-                    counts, _ = np.histogram(v, edges)
-                    items.append(Line(edges, counts.astype(float), kind="step", label=f"in state {stt}",
-                                      style=series_style(i)))
-            if items:
-                figs.append(FigureSpec(key="crossings.dwells", title="Dwell times", caption=(
-                    "Histogram of the time spent in each state between transitions (censored first and last "
-                    "stays included)."), plots=(PlotSpec(title="Dwell times", x=Axis("Dwell time", "ps"),
-                                                        y=Axis("Count"), items=tuple(items)),)))
-    k = res.kappa
-    if k is not None and np.size(k.lag_ps):
-        figs.append(FigureSpec(key="crossings.kappa", title="Transmission coefficient", caption=k.assumptions,
-                               plots=(PlotSpec(title="Reactive flux \u03ba(t)", x=Axis("Time after crossing", "ps"),
-                                               y=Axis("\u03ba(t)"), items=(
-                                                   Line(np.asarray(k.lag_ps, float), np.asarray(k.kappa, float),
-                                                        label="both directions", style=series_style(0)),
-                                                   Mark("hline", float(k.plateau), label="plateau",
-                                                        role="threshold"))),)))
-    return figs
-
-
 def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     need = _need_coordinate(ctx)
     if need is not None:
@@ -797,32 +591,9 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     if surface is None and states is not None:
         surface = 0.5 * (states[0] + states[1])
     # ours first: it carries the states and the dividing surface as marks a user can drag
-    figs = [_profile_figure(prof, s, states, surface, temp, source)] + _plots_figures(prof)
+    figs = [plots.landscape_states_figure(prof, s, states=states, surface=surface, temperature_source=source)]
+    figs += _plots_figures(prof)
     return PanelResult(figures=tuple(figs), info={"profile": prof, "states": states, "surface": surface})
-
-
-def _profile_figure(prof: Any, s: Any, states: tuple[float, float] | None, surface: float | None,
-                    temp: float, source: str) -> FigureSpec:
-    x = np.asarray(prof.centers, float)
-    f = np.asarray(prof.free_energy_kJ_per_mol, float)
-    e = np.asarray(prof.error_kJ_per_mol, float)
-    items: list[Any] = [Band(x, f - e, f + e, label="\u00b1 block error", style=Style(colour="#56B4E9", alpha=0.3)),
-                        Line(x, f, label="free energy", style=series_style(0, marker=True))]
-    if states is not None:
-        items.append(Mark("vline", float(states[0]), label="A", role="state",
-                          style=Style(colour="#009E73", dash="dashdot", width=2.0)))
-        items.append(Mark("vline", float(states[1]), label="B", role="state",
-                          style=Style(colour="#E69F00", dash="dashdot", width=2.0)))
-    if surface is not None:
-        items.append(Mark("vline", float(surface), label="dividing surface", role="surface",
-                          style=Style(colour="#000000", dash="dash", width=2.0)))
-    bar = "; ".join(f"Barrier top at {b.position:.3g} {prof.unit}." for b in prof.barriers[:2]) if prof.barriers else ""
-    return FigureSpec(key="landscape.states", title=f"Free-energy profile along {s.label or s.spec}", caption=(
-        f"F(q) = \u2212kT ln P(q) at T = {temp:.4g} K ({source}), {prof.n_samples} frames, error bars from "
-        f"{prof.n_blocks} blocks, Jacobian: {prof.jacobian}. Vertical lines: the edge of core A (q \u2264 A), "
-        f"of core B (q \u2265 B) and the dividing surface; drag them to redefine them. {bar}"),
-        plots=(PlotSpec(title=f"Free-energy profile along {s.label or s.spec}", x=Axis(s.spec, s.unit),
-                        y=Axis("Free energy", "kJ/mol"), items=tuple(items)),))
 
 
 PANEL_JOBS: dict[str, Job] = {

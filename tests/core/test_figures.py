@@ -93,7 +93,9 @@ def results():
         "coverage": sampling.coverage_over_time(series.values, np.asarray(series.momentum), dt_ps=0.01),
         "recurrence": sampling.recurrence(series.values[:400], dt_ps=0.01),
     }
-    return {"sampling": samp, "table": _table(), "series": series, "crossings": cross, "acf": acf, "blocking": blk,
+    density = landscape.histogram_2d(series.values, np.asarray(series.momentum), x_unit="nm",
+                                     y_unit=series.momentum_unit)
+    return {"density": density, "sampling": samp, "table": _table(), "series": series, "crossings": cross, "acf": acf, "blocking": blk,
             "profile": prof, "surface": surf, "poincare": sec, "vacf": vac, "vdos": vdos, "pca": pca,
             "audit": audit}
 
@@ -123,6 +125,12 @@ def _all_specs(r):
         plots.tm_figure(r["sampling"]["tm"]),
         plots.coverage_figure(r["sampling"]["coverage"], x_label="r", y_label="p"),
         plots.recurrence_figure(r["sampling"]["recurrence"]),
+        plots.phase_density_figure(r["series"], r["density"]),
+        plots.coordinate_time_figure(r["series"]),
+        plots.coordinate_pair_figure(r["series"], r["series"]),
+        plots.poincare_pair_figure(r["series"], r["series"], r["poincare"]),
+        plots.pca_variance_figure(r["pca"]),
+        plots.landscape_states_figure(r["profile"], r["series"], states=(0.4, 0.5), surface=0.45),
     ]
 
 
@@ -209,3 +217,48 @@ def test_crossings_figure_marks_every_event(results):
     assert len(spans) == 2
     assert spans[0].value2 == pytest.approx(cross.settings.a_hi)
     assert spans[1].value == pytest.approx(cross.settings.b_lo)
+
+
+# ---- the window's phase-space and landscape figures, drawn by core.plots for window and report ----------
+
+def test_phase_density_is_the_numpy_histogram_with_empty_cells_blank(results):
+    s, h = results["series"], results["density"]
+    spec = plots.phase_density_figure(s, h)
+    img = next(it for it in spec.plots[0].items if isinstance(it, Image))
+    # numpy.histogram2d on the same edges is the reference (density=True: counts / (N * cell area))
+    ref, _, _ = np.histogram2d(s.values, np.asarray(s.momentum), bins=[img.x_edges, img.y_edges], density=True)
+    filled = ref > 0
+    np.testing.assert_allclose(np.asarray(img.data)[filled], ref[filled], rtol=1e-10)
+    assert np.all(np.isnan(np.asarray(img.data)[~filled]))
+    assert spec.plots[0].x.unit == "nm" and spec.plots[0].y.unit == s.momentum_unit
+
+
+def test_pca_figures_carry_the_explained_variance_of_sklearn(results):
+    from sklearn.decomposition import PCA
+
+    rng = np.random.default_rng(4)
+    # anisotropic Gaussian cloud of 4 atoms, no fit needed: compare with scikit-learn on the same data
+    pos = rng.normal(0, 1, (500, 4, 3)) * np.array([0.3, 0.1, 0.02])[None, None, :] + np.arange(4)[None, :, None]
+    from phasewake.core import projection
+
+    pca = projection.pca_arrays(pos, np.full(4, 1.0), n_components=3, fit=False)
+    figs = plots.principal_component_figures(pca)
+    assert figs[0].key == "phase.pca_variance"
+    bars = figs[0].plots[0].items[0]
+    ref = PCA(n_components=12).fit(pos.reshape(500, -1)).explained_variance_ratio_  # scikit-learn
+    np.testing.assert_allclose(np.asarray(bars.y)[:3], ref[:3], rtol=1e-6)
+    assert "phase.pc12" in [f.key for f in figs]  # PC 2 carries variance here
+
+
+def test_landscape_states_marks_can_be_dragged_and_profile_is_minus_kT_ln_p(results):
+    prof, s = results["profile"], results["series"]
+    spec = plots.landscape_states_figure(prof, s, states=(0.41, 0.49), surface=0.45)
+    marks = {(m.role, m.label): m.value for m in spec.plots[0].items if isinstance(m, Mark)}
+    assert marks == {("state", "A"): 0.41, ("state", "B"): 0.49, ("surface", "dividing surface"): 0.45}
+    line = next(it for it in spec.plots[0].items if isinstance(it, Line))
+    # F = -kT ln P from numpy's histogram on the profile's bins (Boltzmann inversion), lowest bin at 0
+    counts, _ = np.histogram(s.values, bins=np.asarray(prof.edges))
+    ok = counts > 0
+    ref = -KB * 120.0 * np.log(counts[ok] / np.diff(prof.edges)[ok])
+    ref -= ref.min()
+    np.testing.assert_allclose(np.asarray(line.y)[ok], ref, atol=1e-6)
