@@ -385,16 +385,30 @@ class H5MDFrames:
         return self._time
 
     @staticmethod
-    def _read_rows(ds: h5py.Dataset, rows: np.ndarray) -> np.ndarray:
-        """Read rows (sorted, maybe strided) with as few HDF5 selections as possible."""
+    def _read_rows(ds: h5py.Dataset, rows: np.ndarray, span: slice | None = None) -> np.ndarray:
+        """Read rows (sorted, maybe strided) with as few HDF5 selections as possible; ``span``: only
+        these atoms (a hyperslab: HDF5 copies just the selected bytes)."""
         if rows.size == 0:
-            return np.empty((0, *ds.shape[1:]), dtype=ds.dtype)
+            shape = ds.shape[1:] if span is None else (len(range(*span.indices(ds.shape[1]))), *ds.shape[2:])
+            return np.empty((0, *shape), dtype=ds.dtype)
+        cols = slice(None) if span is None else span
         d = np.diff(rows)
         if rows.size == 1 or np.all(d == d[0]) and d[0] > 0:
             step = 1 if rows.size == 1 else int(d[0])
-            return ds[int(rows[0]) : int(rows[-1]) + 1 : step]
+            return ds[int(rows[0]) : int(rows[-1]) + 1 : step, cols]
         uniq, inv = np.unique(rows, return_inverse=True)
-        return ds[uniq][inv]
+        return ds[uniq, cols][inv]
+
+    def _atom_span(self, cols: np.ndarray | None) -> tuple[slice | None, np.ndarray | None]:
+        """A few atoms close together are read as the hyperslab of atoms that spans them."""
+        if cols is None or cols.size == 0:
+            return None, cols
+        lo, hi = int(cols.min()), int(cols.max()) + 1
+        if lo < 0 or hi - lo > self.n_atoms // 2:
+            return None, cols
+        local = cols - lo
+        whole = local.size == hi - lo and bool(np.all(local == np.arange(hi - lo)))
+        return slice(lo, hi), None if whole else local
 
     def iter_chunks(
         self,
@@ -430,10 +444,11 @@ class H5MDFrames:
         vel_ds = pg["velocity"]["value"] if want_vel else None
         box_ds = pg["box"]["edges"]["value"] if self._box_rows is not None else None
         img_ds = pg["image"]["value"] if self._image_rows is not None else None
+        span, cols = self._atom_span(cols)
         for i in range(0, idx.size, chunk_frames):
             sel = idx[i : i + chunk_frames]
             if want_pos:
-                pos = self._read_rows(pos_ds, self._rows[sel])
+                pos = self._read_rows(pos_ds, self._rows[sel], span)
                 if cols is not None:
                     pos = np.take(pos, cols, axis=1)  # C-ordered, unlike pos[:, cols]
                 pos = np.asarray(pos, dtype=np.float32)
@@ -443,7 +458,7 @@ class H5MDFrames:
                 pos = np.empty((sel.size, 0, 3), np.float32)
             vel = None
             if vel_ds is not None and self._vel_rows is not None:
-                vel = self._read_rows(vel_ds, self._vel_rows[sel])
+                vel = self._read_rows(vel_ds, self._vel_rows[sel], span)
                 if cols is not None:
                     vel = np.take(vel, cols, axis=1)
                 vel = np.asarray(vel, dtype=np.float32)
@@ -456,7 +471,7 @@ class H5MDFrames:
                 box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
             if want_pos and img_ds is not None and self._image_rows is not None and box is not None:
                 # H5MD: the unwrapped position is position + image . box edges
-                img = np.asarray(self._read_rows(img_ds, self._image_rows[sel]), dtype=np.float64)
+                img = np.asarray(self._read_rows(img_ds, self._image_rows[sel], span), dtype=np.float64)
                 if cols is not None:
                     img = np.take(img, cols, axis=1)
                 pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)

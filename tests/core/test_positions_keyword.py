@@ -122,3 +122,17 @@ def test_old_sources_still_get_their_positions():
                                  positions=False))
     np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in got]), pos)
     np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), vel)
+
+
+def test_h5md_few_atoms_read_as_a_hyperslab(tmp_path):
+    # a few nearby atoms (unsorted, repeated) are read as one hyperslab; the values are those written
+    from phasewake.core.readers import open_run
+
+    pos, vel = _data(n_frames=9, n_atoms=12)
+    run = open_run([_h5md(tmp_path / "b.h5md", pos, vel)])
+    for cols in (np.array([3, 1, 3]), np.array([4, 5, 6]), np.array([0, 11])):
+        got = list(run.frames.iter_chunks(chunk_frames=4, atom_indices=cols))
+        np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in got]), pos[:, cols])
+        np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), vel[:, cols])
+        strided = list(run.frames.iter_chunks(chunk_frames=2, start=1, stride=3, atom_indices=cols))
+        np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in strided]), pos[1::3][:, cols])
