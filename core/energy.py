@@ -462,25 +462,37 @@ class _LineFit:
         return r
 
 
+_FIT_BLOCK = 1 << 16  # rows per block of the centred sums: the temporaries stay in cache
+
+
 def _line_fit(t: np.ndarray, y: np.ndarray) -> _LineFit:
-    """Least-squares line by centred sums (two full-length temporaries, updated in place)."""
+    """Least-squares line by centred sums, in blocks of rows (no full-length temporaries)."""
     tmean = float(np.mean(t))
     ymean = float(np.mean(y))
-    tc = t - tmean
-    yc = y - ymean
-    sxx = float(np.dot(tc, tc))
-    sxy = float(np.dot(tc, yc))
+    n = t.shape[0]
+    sxx = sxy = 0.0
+    for a in range(0, n, _FIT_BLOCK):
+        tc = t[a:a + _FIT_BLOCK] - tmean
+        yc = y[a:a + _FIT_BLOCK] - ymean
+        sxx += float(np.dot(tc, tc))
+        sxy += float(np.dot(tc, yc))
     slope = sxy / sxx if sxx > 0 else 0.0
-    tc *= slope
-    yc -= tc
-    ssr = float(np.dot(yc, yc))
+    ssr = 0.0
+    for a in range(0, n, _FIT_BLOCK):
+        r = y[a:a + _FIT_BLOCK] - ymean
+        r -= slope * (t[a:a + _FIT_BLOCK] - tmean)
+        ssr += float(np.dot(r, r))
     return _LineFit(t=t, y=y, tmean=tmean, ymean=ymean, sxx=sxx, sxy=sxy, ssr=ssr)
 
 
 def _std(x: np.ndarray) -> float:
-    """Population standard deviation (one temporary)."""
-    xc = x - float(np.mean(x))
-    return math.sqrt(float(np.dot(xc, xc)) / x.shape[0])
+    """Population standard deviation (centred sums in blocks: no full-length temporary)."""
+    mean = float(np.mean(x))
+    ss = 0.0
+    for a in range(0, x.shape[0], _FIT_BLOCK):
+        xc = x[a:a + _FIT_BLOCK] - mean
+        ss += float(np.dot(xc, xc))
+    return math.sqrt(ss / x.shape[0])
 
 
 def detrended_std(time_ps: np.ndarray, values: np.ndarray) -> float:
