@@ -217,7 +217,8 @@ class BlockCorrelator:
             for g in range(self.n_groups):
                 cols = self._gcols[g]
                 p = prev[:, cols]
-                pw = p * self._gw[g]
+                gw = self._gw[g]
+                pw = p if isinstance(gw, float) and gw == 1.0 else p * gw  # no copy for unit weights
                 g1 = pw @ p.T
                 g2 = pw @ block[:, cols].T if block is not None else np.zeros_like(g1)
                 full = np.concatenate([g1, g2], axis=1)  # (B, 2B): frame t against frames t' of (b, b+1)
@@ -225,9 +226,12 @@ class BlockCorrelator:
         if block is None:
             self._prev = None
             return
-        if prev is None:
+        if block is self._cur:  # the block being filled becomes the previous one: swap, no copy
+            self._prev = block
+            self._cur = prev if prev is not None else np.zeros_like(block)
+        elif prev is None:
             self._prev = block.copy()
-        else:  # reuse the old buffer: swap
+        else:
             prev[...] = block
             self._prev = prev
 
