@@ -210,7 +210,12 @@ FIGURE_NUMBERS: dict[str, tuple[str, ...]] = {
     "sampling.divergence": ("sampling.divergence",),
     "sampling.tm": ("sampling.tm_slope",),
     "sampling.rhat": ("sampling.rhat",),
-    "report.sampling": ("sampling.rhat", "sampling.ess", "sampling.divergence"),
+    "report.sampling": ("number.free_energy", "number.running_average", "number.coverage", "sampling.rhat",
+                        "sampling.divergence"),
+    "report.coordinate": ("number.conjugate_momentum",),
+    "report.phase": ("number.phase_density", "number.explained_variance", "pca.cosine_content"),
+    "report.correlation": ("number.statistical_inefficiency", "number.tau_int", "sampling.ess",
+                           "number.block_sem"),
     "crossings": ("number.rate", "crossings.few_transitions"),
     "crossings.dwells": ("crossings.dwell_exponential",),
     "crossings.kappa": ("number.transmission_coefficient",),
@@ -294,13 +299,17 @@ def kinds_for_figure(key: str) -> tuple[str, ...]:
     return tuple(k for k in FIGURE_NUMBERS.get(best, ()) if explanation(k) is not None)
 
 
-def caption_note(key: str) -> str:
+def caption_note(key: str, *, numbers_only: bool = False) -> str:
     """A sentence for a report caption: what each number of the figure is and how it was computed.
 
     The words are those of the window's tooltips (the ``what`` and ``method`` of each explanation).
+    ``numbers_only`` leaves out verdict kinds (a report lists those, with threshold and advice, in its
+    verdict table) and keeps the derived numbers (``number.*``).
     """
     notes = []
     for kind in kinds_for_figure(key):
+        if numbers_only and not kind.startswith("number."):
+            continue
         e = EXPLANATIONS[kind]
         notes.append(f"{e.title}: {e.what} {e.method}")
     return " ".join(notes)

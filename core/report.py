@@ -17,6 +17,7 @@ Building a report is long work: :func:`build_report` is a generator that yields
 from __future__ import annotations
 
 import base64
+import dataclasses
 import html
 import importlib
 import textwrap
@@ -59,7 +60,7 @@ _BODY = Preset("report", 27.0, 12.5, 10.0, 9.0, 11.0, 1.0, fixed_height=True,
 _CAPTION_CHARS = 135  # characters per caption line at 9.5 pt across the page width (0.6 em each)
 _TEXT_CHARS = 140  # the same for 9 pt text above a table
 
-SECTION_ORDER = ("summary", "energy", "temperature", "timestep", "coordinate", "correlation", "sampling",
+SECTION_ORDER = ("summary", "energy", "temperature", "timestep", "coordinate", "phase", "correlation", "sampling",
                  "crossings")
 SECTION_TITLES = {
     "summary": "Run and verdicts",
@@ -67,6 +68,7 @@ SECTION_TITLES = {
     "temperature": "Kinetic temperature",
     "timestep": "Time step and fastest motion",
     "coordinate": "Coordinate and phase portrait",
+    "phase": "Phase-space density and principal components",
     "correlation": "Time correlations",
     "sampling": "Sampling",
     "crossings": "Barrier crossings",
@@ -280,6 +282,13 @@ def build_report(
     else:
         skip("coordinate", coord_reason)
 
+    yield Progress(4.5, total, "phase-space density and principal components")
+    phase = yield from _phase_page(run, series, 4.5, total)
+    if isinstance(phase, str):
+        skip("phase", phase)
+    else:
+        pages.append(phase)
+
     yield Progress(5, total, "time correlations")
     pages.append(_correlation_page(run, audit, series) or
                  ReportPage("correlation", SECTION_TITLES["correlation"],
@@ -306,6 +315,7 @@ def build_report(
         skip("crossings", cross_reason or "no coordinate")
 
     yield Progress(7, total, "writing the PDF")
+    pages = [_explained(p) for p in pages]
     figs: list[FigureSpec] = []
     for p in pages:
         if p.figure is not None:
@@ -434,6 +444,72 @@ def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
     return ReportPage("correlation", SECTION_TITLES["correlation"], figure=spec, caption=spec.caption)
 
 
+def _explained(page: ReportPage) -> ReportPage:
+    """The page with the explanation of its figure's numbers appended to its caption: the words of the
+    window's tooltips (``phasewake.core.explain``)."""
+    from phasewake.core import explain
+
+    if page.figure is None:
+        return page
+    note = explain.caption_note(page.figure.key, numbers_only=True)  # verdicts: explained in the table
+    if not note:
+        return page
+    caption = page.caption.rstrip()
+    caption = (caption + ("" if not caption or caption.endswith(".") else ".") + " About the numbers. " + note).strip()
+    return dataclasses.replace(page, caption=caption)
+
+
+PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
+
+
+def _phase_page(run: Run, series: Any, base: float, total: float) -> Generator[Progress, None, ReportPage | str]:
+    """Density of the coordinate in the (q, p) plane and the principal components of the solute."""
+    from phasewake.core import plots
+
+    yield Progress(base, total, "phase-space density")
+    figs: list[FigureSpec] = []
+    reasons: list[str] = []
+    land = _optional("phasewake.core.landscape")
+    if series is None:
+        reasons.append("no coordinate")
+    elif land is None:
+        reasons.append("the landscape module is not part of this build")
+    else:
+        p = series.momentum if series.momentum is not None else series.velocity
+        if p is None:
+            reasons.append("the coordinate has no momentum (no velocities)")
+        else:
+            pu = series.momentum_unit if series.momentum is not None else series.velocity_unit
+            try:
+                h = land.histogram_2d(np.asarray(series.values, float), np.asarray(p, float), x_unit=series.unit,
+                                      y_unit=pu)
+                figs.append(plots.phase_density_figure(series, h))
+            except PhasewakeError as exc:
+                reasons.append(f"the density could not be computed: {exc}")
+    proj = _optional("phasewake.core.projection")
+    coords = _optional("phasewake.core.coordinates")
+    group = None if coords is None or run.frames is None else coords.solute_atoms(run.topology, run.n_atoms)
+    if proj is not None and group is not None and np.asarray(group).size >= 3:  # 2 atoms: one distance, no PCA
+        try:
+            method = "exact" if 3 * np.asarray(group).size <= PCA_EXACT_MAX_COORDS else "randomized"
+            pca = yield from _sub(proj.compute_pca(run, atom_indices=group, n_components=3, method=method),
+                                  base, total, "principal components")
+            figs.append(plots.pca_variance_figure(pca))
+        except PhasewakeError as exc:
+            reasons.append(f"the principal components could not be computed: {exc}")
+    elif run.frames is None:
+        reasons.append("the run has no frames")
+    elif group is not None:
+        reasons.append("principal components left out: the solute has fewer than 3 atoms")
+    if not figs:
+        return "; ".join(reasons) or "nothing to draw"
+    spec = FigureSpec(key="report.phase", title=SECTION_TITLES["phase"], plots=tuple(pl for f in figs for pl in f.plots),
+                      grid=(1, len(figs)),
+                      caption=" ".join([f"({chr(97 + i)}) {f.caption.rstrip()}" for i, f in enumerate(figs)]
+                                       + [r[0].upper() + r[1:] + "." for r in reasons]))
+    return ReportPage("phase", SECTION_TITLES["phase"], figure=spec, caption=spec.caption)
+
+
 def _sampling_numbers(series: Any) -> dict[str, Any]:
     """Running average, half-against-half divergence and segment R-hat of the coordinate, with verdicts."""
     samp = _optional("phasewake.core.sampling")
@@ -456,6 +532,13 @@ def _sampling_numbers(series: Any) -> dict[str, Any]:
         out["verdicts"].append(samp.judge_divergence(div, name=name))
     except PhasewakeError as exc:
         out["divergence_error"] = str(exc)
+    p = series.momentum if series.momentum is not None else series.velocity
+    if p is not None and np.asarray(p).size == np.asarray(series.values).size:
+        both = np.isfinite(series.values) & np.isfinite(p)
+        try:
+            out["coverage"] = samp.coverage_over_time(np.asarray(series.values)[both], np.asarray(p)[both], dt_ps=dt)
+        except PhasewakeError as exc:
+            out["coverage_error"] = str(exc)
     try:
         rh = samp.rhat_segments(q)
         out["rhat"] = rh
@@ -507,6 +590,10 @@ def _sampling_page(series: Any, temperature_K: float, crossings: Any,
         ra = plots.running_average_figure(sampling["running"], name=series.label)
         plots_.extend(ra.plots)
         caption += " Right: " + ra.caption
+    if "coverage" in sampling:
+        cov = plots.coverage_figure(sampling["coverage"], x_label=series.label, y_label="p")
+        plots_.extend(cov.plots)
+        caption += " Far right: " + cov.caption
     if "divergence" in sampling:
         d = sampling["divergence"]
         caption += (f" Half against half, the Jensen–Shannon divergence of {series.label} is "

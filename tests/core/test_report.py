@@ -202,3 +202,38 @@ def test_report_is_cancellable_and_leaves_no_file(tmp_path):
     assert len(seen) == 1 and seen[0].total is not None
     assert not target.exists()
     assert list(tmp_path.iterdir()) == []
+
+
+def test_phase_page_draws_the_density_of_distance_and_reduced_mass_momentum(report):
+    run, res = report
+    spec = next(f for f in res.figures if f.key == "report.phase")
+    from phasewake.core.figures import Image
+
+    img = next(it for p in spec.plots for it in p.items if isinstance(it, Image))
+    # reference made here with numpy: q = |x1 - x0| (the atoms move along x), p = mu dq/dt with the
+    # reduced mass mu = m/2 of the pair (analytic effective mass of a distance)
+    pos = np.concatenate([c.positions_nm for c in run.frames.iter_chunks()])
+    vel = np.concatenate([c.velocities_nm_per_ps for c in run.frames.iter_chunks()])
+    q = pos[:, 1, 0] - pos[:, 0, 0]
+    p = 39.948 / 2 * (vel[:, 1, 0] - vel[:, 0, 0])
+    ref, _, _ = np.histogram2d(q, p, bins=[img.x_edges, img.y_edges])
+    area = np.outer(np.diff(img.x_edges), np.diff(img.y_edges))
+    counts = np.nan_to_num(np.asarray(img.data)) * area * q.size  # density back to frames per cell
+    # frames exactly on a bin edge may fall either side (float32 frames against float64 here)
+    diff = np.abs(counts - ref)
+    assert np.all(diff < 1.5) and np.count_nonzero(diff > 0.5) <= 4, np.count_nonzero(diff > 0.5)
+    assert abs(counts.sum() - q.size) <= 4
+    assert len(spec.plots) == 2  # and the principal components of the six atoms
+
+
+def test_captions_carry_the_explanations_the_window_shows(report):
+    from phasewake.core import explain
+    from phasewake.core.verdicts import EXPLANATIONS
+
+    _, res = report
+    text = html.unescape(res.html_path.read_text(encoding="utf-8"))
+    for kind in ("number.statistical_inefficiency", "number.tau_int", "number.phase_density",
+                 "number.free_energy", "number.conjugate_momentum"):
+        e = EXPLANATIONS[kind]
+        assert f"{e.title}: {e.what} {e.method}" in text, kind
+    assert explain.caption_note("correlation.acf", numbers_only=True) in explain.caption_note("correlation.acf")
