@@ -333,7 +333,9 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         s2 = yield from coordinate_series(ctx.run, spec2, ctx.start, ctx.stop)
         figs.extend(_pair_figures(s, s2, traces))
     info: dict[str, Any] = {"coordinate": s}
-    return PanelResult(figures=tuple(figs), traces=traces, info=info)
+    return PanelResult(figures=tuple(figs), traces=traces, info=info,
+                       message="The large dot is the cursor's frame and the thin line behind it the recent path "
+                               "(T toggles it); a crossing selected in the Crossings panel is drawn thick.")
 
 
 PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (PERFORMANCE.md: eigh of

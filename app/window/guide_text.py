@@ -19,7 +19,7 @@ first; <b>Phase space</b> a coordinate against its momentum (the current frame i
 recent path); <b>Correlation</b> how long the run remembers; <b>Sampling</b> whether parts of the run
 (or replicas) agree; <b>Crossings</b> barrier crossings (click an event to jump to it); <b>Landscape</b>
 the free-energy profile, whose states and dividing surface you can drag.</p>
-<p><b>Verdicts and numbers</b> (above each figure): hover a title marked ⓘ to read what it is, how it
+<p><b>Verdicts and numbers</b> (above each figure): hover a title marked (?) to read what it is, how it
 was computed, its threshold and what to do when it is off; click it to keep the note open.</p>
 <p><b>Time ruler</b> (bottom): drag the cursor line, or use ←/→, PgUp/PgDn, Home/End; drag the shaded
 band to restrict every analysis to part of the run.</p>
@@ -71,7 +71,7 @@ dividing surface drawn; drag them to redefine them, and the Crossings panel foll
 <p>Every panel is computed in the background; the status area shows progress and <b>Esc</b> cancels.
 A panel whose analysis cannot run says why in plain words; nothing is made up. Above each figure the
 verdicts (● ok, ▲ caution, ✖ problem, ■ information) and the numbers of the figure are listed: hover a
-title marked ⓘ for its explanation, click to keep it open beside the list.</p>
+title marked (?) for its explanation, click to keep it open beside the list.</p>
 
 <h3>Time: cursor and window</h3>
 <p>One cursor (a frame) is shared by every panel: drag it on any time axis or on the time ruler, step

@@ -25,6 +25,7 @@ DEFAULT_TRAIL = 60  # frames of recent path drawn behind the current point
 
 
 EXPLAIN_SCHEME = "explain:"  # anchors of the notes strip: explain:<verdict kind or number.*>
+EXPLAIN_MARK = "(?)"  # beside every explained title (plain characters: every font has them)
 
 
 def explain_link(kind: str, text: str) -> str:
@@ -38,7 +39,7 @@ def verdict_html(level: str, title: str, message: str, kind: str = "") -> str:
     sym = LEVEL_SYMBOL.get(level, "\u25a0")
     head = f"<b>{html.escape(title)}</b>"
     if kind and explain.explanation(kind) is not None:
-        head = explain_link(kind, head + ' <span style="color:#0072B2">\u24d8</span>')
+        head = explain_link(kind, head + f' <span style="color:#0072B2">{EXPLAIN_MARK}</span>')
     return (f'<span style="color:{colour}; font-weight:bold">{sym} {html.escape(level)}</span> '
             f"{head}: {html.escape(message)}")
 
@@ -229,7 +230,7 @@ class Panel(QtWidgets.QWidget):
         self._set_notes()
 
     def _set_notes(self) -> None:
-        lines = self._note_lines + ([self._numbers_line] if self._numbers_line else [])
+        lines = ([self._numbers_line] if self._numbers_line else []) + self._note_lines
         self.notes.setHtml("<br>".join(lines))
         self.notes.setVisible(bool(lines))
         self._fit_notes()
@@ -237,7 +238,7 @@ class Panel(QtWidgets.QWidget):
     def _explain_numbers(self, fig: FigureSpec | None) -> None:
         """A line of links explaining the numbers of ``fig``; the caption's tooltip says the same."""
         kinds = explain.kinds_for_figure(fig.key) if fig is not None else ()
-        links = [explain_link(k, f'<span style="color:#0072B2">\u24d8 {html.escape(explain.EXPLANATIONS[k].title)}'
+        links = [explain_link(k, f'<span style="color:#0072B2">{EXPLAIN_MARK} {html.escape(explain.EXPLANATIONS[k].title)}'
                                  "</span>") for k in kinds]
         self._numbers_line = ("<i>About the numbers</i> (hover or click): " + " \u00b7 ".join(links)) if links else ""
         self.view.caption.setToolTip("".join(explain.explanation_html(k) for k in kinds))

@@ -75,12 +75,27 @@ def render(paths: Sequence[str], output: Path, *, size: tuple[int, int] = DEFAUL
         if not win.grab().save(str(path)):
             raise OSError(f"could not write {path}")
         written.append(path)
-    guide = win.show_guide()
-    app.processEvents()
-    gpath = output / "0-guide.png"
-    guide.grab().save(str(gpath))
-    written.insert(0, gpath)
-    guide.close()
+    # an explanation side note open, as after clicking a verdict's title
+    energy = win.panels["Energy"]
+    win.tabs.setCurrentWidget(energy)
+    kinds = [k for k, _ in energy.notes.anchors()]
+    if kinds:
+        energy.side_note.explain(kinds[0])
+        for _ in range(3):
+            app.processEvents()
+        path = output / f"{len(PANELS) + 1}-explanation.png"
+        win.grab().save(str(path))
+        written.append(path)
+        energy.side_note.hide()
+    first = []
+    for name, show in (("guide", win.show_guide), ("user-guide", win.show_user_guide), ("about", win._about)):
+        dlg = show()
+        app.processEvents()
+        gpath = output / f"0-{name}.png"
+        dlg.grab().save(str(gpath))
+        first.append(gpath)
+        dlg.close()
+    written[:0] = first
     win.close()
     return written
 
