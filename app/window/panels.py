@@ -432,6 +432,19 @@ class CrossingsPanel(Panel):
 
     name = "Crossings"
     COLUMNS = ("#", "time (ps)", "frame", "kind", "direction", "from \u2192 to", "velocity", "path (ps)")
+    COLUMN_TIPS = (
+        "Number of the crossing of the dividing surface, in time order",
+        "Time of the crossing, interpolated linearly between the two frames around it (ps)",
+        "The frame nearest to the crossing",
+        "transition: the coordinate reaches the other core state next; recrossing: it comes back to the "
+        "state it left (core-set assignment, Buchete and Hummer 2008); censored: the run ends or starts "
+        "before the outcome is known",
+        "+ when the coordinate increases through the dividing surface, \u2212 when it decreases",
+        "Core state left and core state reached next",
+        "dq/dt of the coordinate at the crossing (from the stored velocities, or from frame differences "
+        "when the run has none)",
+        "Transition path time: from leaving one core state to entering the other, for transitions (ps)",
+    )
 
     def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
         super().__init__(model, parent)
@@ -442,6 +455,8 @@ class CrossingsPanel(Panel):
         self.filter.currentIndexChanged.connect(self._fill_table)
         self.table = QtWidgets.QTableWidget(0, len(self.COLUMNS))
         self.table.setHorizontalHeaderLabels(list(self.COLUMNS))
+        for c, tip in enumerate(self.COLUMN_TIPS):
+            self.table.horizontalHeaderItem(c).setToolTip(tip)
         self.table.setSelectionBehavior(QtWidgets.QAbstractItemView.SelectionBehavior.SelectRows)
         self.table.setSelectionMode(QtWidgets.QAbstractItemView.SelectionMode.SingleSelection)
         self.table.setEditTriggers(QtWidgets.QAbstractItemView.EditTrigger.NoEditTriggers)

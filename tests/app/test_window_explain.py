@@ -124,3 +124,10 @@ def test_threshold_words_show_the_configured_limits():
     finally:
         verdicts.THRESHOLDS["energy.fluctuation_ratio"] = old
     assert explain.explanation_text("no.such.kind") == ""
+
+
+@pytest.mark.slow
+def test_event_table_columns_say_what_they_hold(window):
+    table = window.panels["Crossings"].table
+    for c in range(table.columnCount()):
+        assert len(table.horizontalHeaderItem(c).toolTip()) > 20, table.horizontalHeaderItem(c).text()
