@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import html
 import importlib
+from collections.abc import Sequence
 
 from phasewake.core.verdicts import EXPLANATIONS, HEURISTIC_NOTE, THRESHOLDS, Explanation, register
 
@@ -299,15 +300,17 @@ def kinds_for_figure(key: str) -> tuple[str, ...]:
     return tuple(k for k in FIGURE_NUMBERS.get(best, ()) if explanation(k) is not None)
 
 
-def caption_note(key: str, *, numbers_only: bool = False) -> str:
+def caption_note(key: str | Sequence[str], *, numbers_only: bool = False) -> str:
     """A sentence for a report caption: what each number of the figure is and how it was computed.
 
     The words are those of the window's tooltips (the ``what`` and ``method`` of each explanation).
-    ``numbers_only`` leaves out verdict kinds (a report lists those, with threshold and advice, in its
+    ``key`` may be several figure keys (a page that combines figures). ``numbers_only`` leaves out verdict kinds (a report lists those, with threshold and advice, in its
     verdict table) and keeps the derived numbers (``number.*``).
     """
+    keys = [key] if isinstance(key, str) else list(key)
+    kinds = dict.fromkeys(k for one in keys for k in kinds_for_figure(one))  # in order, once each
     notes = []
-    for kind in kinds_for_figure(key):
+    for kind in kinds:
         if numbers_only and not kind.startswith("number."):
             continue
         e = EXPLANATIONS[kind]

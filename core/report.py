@@ -277,7 +277,8 @@ def build_report(
         f1 = plots.coordinate_series_figure(series, crossings=crossings)
         f2 = plots.phase_portrait_figure(series, crossings=crossings, max_points=max_points)
         both = FigureSpec(key="report.coordinate", title=f"{series.label}: time series and phase portrait",
-                          plots=f1.plots + f2.plots, grid=(1, 2), caption=f1.caption + " " + f2.caption)
+                          plots=f1.plots + f2.plots, grid=(1, 2), caption=f1.caption + " " + f2.caption,
+                          provenance={"parts": [f1.key, f2.key]})
         pages.append(ReportPage("coordinate", SECTION_TITLES["coordinate"], figure=both, caption=both.caption))
     else:
         skip("coordinate", coord_reason)
@@ -438,6 +439,7 @@ def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
         return None
     spec = FigureSpec(key="report.correlation", title="Time correlations",
                       plots=tuple(p for f in figs for p in f.plots), grid=(1, len(figs)),
+                      provenance={"parts": [f.key for f in figs]},
                       caption=" ".join(f"({chr(97 + i)}) {f.caption.rstrip()}" + ("" if f.caption.rstrip().endswith(".")
                                                                                  else ".")
                                        for i, f in enumerate(figs)))
@@ -451,7 +453,9 @@ def _explained(page: ReportPage) -> ReportPage:
 
     if page.figure is None:
         return page
-    note = explain.caption_note(page.figure.key, numbers_only=True)  # verdicts: explained in the table
+    parts = page.figure.provenance.get("parts") if isinstance(page.figure.provenance, dict) else None
+    note = explain.caption_note(list(parts) if parts else page.figure.key,
+                                numbers_only=True)  # verdicts: explained in the verdict table
     if not note:
         return page
     caption = page.caption.rstrip()
@@ -504,7 +508,7 @@ def _phase_page(run: Run, series: Any, base: float, total: float) -> Generator[P
     if not figs:
         return "; ".join(reasons) or "nothing to draw"
     spec = FigureSpec(key="report.phase", title=SECTION_TITLES["phase"], plots=tuple(pl for f in figs for pl in f.plots),
-                      grid=(1, len(figs)),
+                      grid=(1, len(figs)), provenance={"parts": [f.key for f in figs]},
                       caption=" ".join([f"({chr(97 + i)}) {f.caption.rstrip()}" for i, f in enumerate(figs)]
                                        + [r[0].upper() + r[1:] + "." for r in reasons]))
     return ReportPage("phase", SECTION_TITLES["phase"], figure=spec, caption=spec.caption)
@@ -602,8 +606,10 @@ def _sampling_page(series: Any, temperature_K: float, crossings: Any,
         rh = sampling["rhat"]
         caption += (f" Rank-normalised split R̂ over {rh.n_chains} segments (Vehtari et al. 2021): {rh.rhat:.3f} "
                     f"(threshold {rh.threshold:g}).")
+    parts = ["landscape.profile"] + (["sampling.running"] if "running" in sampling else []) \
+        + (["sampling.coverage"] if "coverage" in sampling else [])
     spec = FigureSpec(key="report.sampling", title="Sampling", plots=tuple(plots_), grid=(1, len(plots_)),
-                      caption=caption)
+                      caption=caption, provenance={"parts": parts})
     return ReportPage("sampling", SECTION_TITLES["sampling"], figure=spec, caption=caption)
 
 
