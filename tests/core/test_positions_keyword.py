@@ -136,3 +136,25 @@ def test_h5md_few_atoms_read_as_a_hyperslab(tmp_path):
         np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), vel[:, cols])
         strided = list(run.frames.iter_chunks(chunk_frames=2, start=1, stride=3, atom_indices=cols))
         np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in strided]), pos[1::3][:, cols])
+
+
+def test_h5md_reused_buffers_never_overwrite_data_still_held(tmp_path):
+    # chunk buffers are reused only when nothing else refers to them: a consumer that keeps a view of
+    # an earlier chunk, or the chunks themselves, still sees the values written by h5py
+    from phasewake.core.readers import open_run
+
+    pos, vel = _data(n_frames=40, n_atoms=6)
+    run = open_run([_h5md(tmp_path / "c.h5md", pos, vel)])
+    kept_views, kept_chunks, addresses = [], [], set()
+    for i, c in enumerate(run.frames.iter_chunks(chunk_frames=4)):
+        addresses.add(c.velocities_nm_per_ps.__array_interface__["data"][0])
+        if i % 3 == 0:
+            kept_views.append((c.start, c.velocities_nm_per_ps[1:]))
+        if i % 4 == 1:
+            kept_chunks.append(c)
+    for start, view in kept_views:
+        np.testing.assert_array_equal(view, vel[start + 1 : start + 4])
+    for c in kept_chunks:
+        np.testing.assert_array_equal(c.positions_nm, pos[c.start : c.start + 4])
+        np.testing.assert_array_equal(c.velocities_nm_per_ps, vel[c.start : c.start + 4])
+    assert len(addresses) < 10  # buffers were reused for the chunks nobody kept
