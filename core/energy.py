@@ -624,7 +624,7 @@ def find_energy_events(
         idx = np.nonzero(good)[0]
     else:  # the usual case: no copies of long series
         ef, tf = e, t
-        idx = np.arange(e.size)
+        idx = None  # row numbers are the positions themselves
     max_jump = 0.0
     n_jumps = 0
     runaway: float | None = None
@@ -645,7 +645,7 @@ def find_energy_events(
         n_jumps = int(jumps.size)
         for r in np.argsort(-score_j)[:max_listed]:
             j = jumps[r]
-            events.append(EnergyEvent("jump", int(idx[j + 1]), float(tf[j + 1]), float(d[j]), ENERGY_UNIT,
+            events.append(EnergyEvent("jump", int(j + 1 if idx is None else idx[j + 1]), float(tf[j + 1]), float(d[j]), ENERGY_UNIT,
                                       f"energy step of {d[j]:.6g} kJ/mol ({score_j[r]:.1f} robust sigma) at "
                                       f"t = {tf[j + 1]:.6g} ps"))
         tenth = d.size // 10
@@ -654,7 +654,7 @@ def find_energy_events(
             last = float(np.sqrt(np.mean((d[-tenth:] - med) ** 2)))
             runaway = last / max(first, floor)
             if runaway > 3.0:
-                events.append(EnergyEvent("runaway", int(idx[-1]), float(tf[-1]), runaway, "",
+                events.append(EnergyEvent("runaway", int(e.size - 1 if idx is None else idx[-1]), float(tf[-1]), runaway, "",
                                           f"frame-to-frame energy noise grew {runaway:.3g}-fold from the "
                                           "first to the last tenth of the run"))
     events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
