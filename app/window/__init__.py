@@ -78,6 +78,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     if guide or first:
         win.show_guide()
     code = int(app.exec())
+    _drop_pending_quits(app)
     if not win.jobs.wait_all(5_000):
         # A cancelled analysis still inside a long numpy call: nothing is written (inputs are read
         # only), so leave now instead of letting Qt abort on a thread destroyed while running.
@@ -88,6 +89,18 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
         sys.stderr.flush()
         os._exit(code)
     return code
+
+
+def _drop_pending_quits(app: object) -> None:
+    """Remove quit requests still queued after the event loop returned.
+
+    Closing the last window and an explicit quit() each post a Quit event; the first ends the loop,
+    a second one left in the queue would later set Qt's quit-now flag and end every following event
+    loop at once (a host application or a test harness would stop processing events).
+    """
+    from PySide6 import QtCore
+
+    QtCore.QCoreApplication.removePostedEvents(app, QtCore.QEvent.Type.Quit)  # type: ignore[arg-type]
 
 
 def smoke_outcome(win: object) -> tuple[int, int, list[str]]:
@@ -131,6 +144,7 @@ def _smoke(app: object, win: object, timeout_s: float) -> int:
     timer.timeout.connect(poll)
     timer.start(50)
     qapp.exec()
+    _drop_pending_quits(qapp)
     timer.stop()
     drawn, total, problems = smoke_outcome(win)
     win.jobs.cancel_all()  # type: ignore[attr-defined]
