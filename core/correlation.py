@@ -1,6 +1,6 @@
 """Time correlations of scalar series: autocorrelation, statistical inefficiency, blocking, equilibration.
 
-Conventions (kept apart on purpose, because sources disagree; see REFERENCES.md section 3.2):
+Conventions (kept apart on purpose, because sources disagree):
 
 * ``g`` -- the **statistical inefficiency**, ``g = 1 + 2 sum_{k>=1} rho(k)``, in samples. The number of
   effectively independent samples is ``N_eff = N / g``. ``g >= 1`` always (we clip).

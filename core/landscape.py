@@ -28,8 +28,9 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.units import KB_KJ_PER_MOL_K
 
-K_B_KJ_PER_MOL_K = 0.00831446261815324  # CODATA 2018 exact k_B * N_A (REFERENCES.md section 9)
+K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
 
 
 def auto_bins(values: np.ndarray, *, min_bins: int = 10, max_bins: int = 200,

@@ -43,12 +43,13 @@ from phasewake.core.coordinates import kabsch, solute_atoms
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES
+from phasewake.core.units import KB_KJ_PER_MOL_K
 from phasewake.core.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 
 if TYPE_CHECKING:
     from phasewake.core.run import Run
 
-K_B_KJ_PER_MOL_K = 0.00831446261815324  # CODATA 2018 exact k_B * N_A (REFERENCES.md section 9)
+K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
 # Frames per chunk of the PCA: the d x d accumulation is paid once per chunk, so chunks are longer
 # than the reader default (memory: a few chunk x 3 n_atoms float64 buffers).

@@ -5,7 +5,7 @@ Pure array kernels plus small streaming accumulators (``update`` per frame chunk
 
 Units: velocities nm/ps, masses amu, kinetic energy kJ/mol (1 amu nm^2/ps^2 = 1 kJ/mol), T in K.
 
-T_kin = 2 K / (N_dof k_B) with N_dof = 3 N - N_constraints - N_com (REFERENCES.md §2).
+T_kin = 2 K / (N_dof k_B) with N_dof = 3 N - N_constraints - N_com (common practice).
 """
 
 from __future__ import annotations
@@ -121,7 +121,7 @@ def com_kinetic_energy(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray)
 
 
 def degrees_of_freedom(n_atoms: int, *, n_constraints: int = 0, n_com: int = 3, dims: int = 3) -> int:
-    """N_dof = dims * n_atoms - n_constraints - n_com (REFERENCES.md §2; common practice for n_com)."""
+    """N_dof = dims * n_atoms - n_constraints - n_com (common practice, also for n_com)."""
     n = dims * n_atoms - n_constraints - n_com
     if n <= 0:
         raise AnalysisError(f"{n_atoms} atoms with {n_constraints} constraints and {n_com} removed "
@@ -459,7 +459,7 @@ def kinetic_energy_distribution_check(
 ) -> DistributionCheck:
     """KS test of (decorrelated) kinetic energies against Gamma(N_dof/2, scale = kT).
 
-    REFERENCES.md §2.3 (canonical K distribution, Gibbs 1902); scipy.stats.gamma / kstest.
+    The canonical kinetic-energy distribution (Gibbs 1902); scipy.stats.gamma / kstest.
 
     Parameters
     ----------
@@ -484,7 +484,7 @@ def maxwell_speed_check(speeds_nm_per_ps: np.ndarray, mass_amu: float, temperatu
                         *, name: str = "speeds") -> DistributionCheck:
     """KS test of speeds against Maxwell-Boltzmann, scipy.stats.maxwell(scale = sqrt(kT/m)).
 
-    REFERENCES.md §2.2. Parameters: speeds (n,), nm/ps; mass in amu; temperature in K.
+    Maxwell-Boltzmann speeds, scale sqrt(kT/m). Parameters: speeds (n,), nm/ps; mass in amu; temperature in K.
     """
     from scipy import stats
 

@@ -1,7 +1,7 @@
 """Time-step checks: the fastest motion, steps per period, Nyquist, and dt^2 scaling between two runs.
 
 The fastest motion is the highest-frequency significant peak of the mass-weighted velocity power
-spectrum (vibrational density of states up to a factor; REFERENCES.md §4.3). This module has a small
+spectrum (vibrational density of states up to a factor; Dickey and Paskin 1969). This module has a small
 streaming Welch estimator of its own (Welch, IEEE Trans. Audio Electroacoust. 15, 70 (1967)): the
 Hann-windowed spectrum of each segment of frames, summed over atoms with their masses, averaged over
 segments, so memory stays bounded by one chunk.
@@ -33,7 +33,7 @@ register(
                "(Welch segments, Hann window), or the upper edge of a broad band (liquids), gives the "
                "period T; the check is T / dt. For a harmonic "
                "mode under velocity Verlet the energy fluctuation ratio is (2 pi dt / T)^2 / 4, so "
-               "T/dt = 10 gives about 0.1 (REFERENCES.md §1.2).",
+               "T/dt = 10 gives about 0.1 (from the shadow Hamiltonian of velocity Verlet, Tuckerman 2010 eq. 3.13.3).",
         threshold="Fewer than 10 steps per period caution, fewer than 5 a problem: common practice.",
         advice="Reduce the time step, or constrain the fastest bonds (bonds to hydrogen) or use heavier "
                "hydrogens, then re-check the energy conservation.",
