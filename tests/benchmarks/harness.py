@@ -71,14 +71,14 @@ def finish(o: Outcome) -> Outcome:
 
 
 def _child(name: str, full: bool, workdir: str, q: Any) -> None:
-    from tests.benchmarks import cases  # noqa: F401 - registers the cases in this process too
-
     # One-time import costs (scipy.stats alone takes seconds on a loaded machine) are not analysis time.
     import h5py  # noqa: F401
     import mdtraj  # noqa: F401
     import scipy.fft  # noqa: F401
     import scipy.signal  # noqa: F401
     import scipy.stats  # noqa: F401
+
+    from tests.benchmarks import cases  # noqa: F401 - registers the cases in this process too
 
     try:
         out = CASES[name](full, Path(workdir))
