@@ -1,0 +1,457 @@
+"""One pass over the frames feeds several analyses (issue 9).
+
+A request that needs coordinates, the kinetic temperature per group and the VACF reads every frame once,
+not once per analysis: :func:`run_pass` iterates ``run.frames.iter_chunks`` a single time (asking for
+positions and velocities only if some consumer needs them, and for the union of the atoms they need) and
+hands each chunk to every consumer. A consumer is a chunk reduction built on the existing kernels:
+
+* ``prepare(columns, start=, stop=, chunk_frames=)``: told which run atoms the chunk's atom axis holds
+  (``columns``, shape (n_read,), or None for all atoms) and the frame range of the pass;
+* ``update(chunk)``: one :class:`~phasewake.core.run.FrameChunk`;
+* ``finish()``: the same frozen result the separate analysis returns.
+
+Consumers here: :class:`CoordinatesConsumer` (``coordinates.evaluate_arrays`` per chunk, finishing into the
+``CoordinateSeries`` that :func:`~phasewake.core.coordinates.compute_coordinates` returns; pc(k) specs need
+a PCA pass first and are refused), :class:`GroupTemperatureConsumer` (``temperature.kinetic_energy`` per
+group, then ``group_degrees_of_freedom`` and ``group_temperatures`` as the audit does) and
+:class:`VACFConsumer` (``velocity.BlockCorrelator`` and the finish of ``velocity.vacf``).
+
+The PCA covariance is not a consumer yet: ``projection.compute_pca`` accumulates inside its own
+generator (closures over its buffers), so it cannot be fed from outside without changing that module.
+
+Because every consumer is an update/finish reduction, the same objects can be driven over blocks of a
+distributed array (see DEVELOPERS.md, "Scaling out").
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any, Protocol
+
+import numpy as np
+
+from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk
+
+if TYPE_CHECKING:
+    from phasewake.core.coordinates import CoordinateSeries
+    from phasewake.core.run import Run
+    from phasewake.core.temperature import GroupTemperature
+    from phasewake.core.velocity import VACFResult
+
+
+class ChunkConsumer(Protocol):
+    """What :func:`run_pass` needs from a consumer (see the module docstring)."""
+
+    atoms: np.ndarray | None  # run atom indices needed (sorted, unique), None for all atoms
+    needs_positions: bool
+    needs_velocities: bool
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None: ...
+
+    def update(self, chunk: FrameChunk) -> None: ...
+
+    def finish(self) -> Any: ...
+
+
+def _path(run: Run) -> Any:
+    return run.paths[0] if run.paths else None
+
+
+def _frame_range(run: Run, start: int, stop: int | None) -> tuple[int, int]:
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    if not 0 <= int(start) < stop_:
+        raise AnalysisError(f"empty frame range {start}:{stop_} (the run has {run.n_frames} frames)",
+                            path=_path(run))
+    return int(start), stop_
+
+
+def _local(columns: np.ndarray | None, atoms: np.ndarray) -> np.ndarray:
+    """Positions of run atoms ``atoms`` on the chunk's atom axis."""
+    if columns is None:
+        return np.asarray(atoms, dtype=np.int64)
+    pos = np.searchsorted(columns, atoms)
+    if np.any(pos >= columns.size) or np.any(columns[np.minimum(pos, columns.size - 1)] != atoms):
+        raise AnalysisError("a consumer's atoms are not among the atoms read by the pass")
+    return pos.astype(np.int64)
+
+
+# ------------------------------------------------------------------------------------------------------
+# coordinates
+
+
+class CoordinatesConsumer:
+    """Coordinates with velocities, effective masses and momenta, as :func:`compute_coordinates`.
+
+    Parameters
+    ----------
+    run : Run
+    specs : sequence of str
+        Coordinate specifications (``phasewake.core.coordspec``); not ``pc(k)``.
+
+    ``finish()`` returns ``list[CoordinateSeries]`` in the order of ``specs``, field for field what
+    ``compute_coordinates(run, specs, start=, stop=, chunk_frames=)`` returns for the pass's range.
+    """
+
+    needs_positions = True
+
+    def __init__(self, run: Run, specs: Sequence[str]) -> None:
+        from phasewake.core.coordinates import resolve_for_run
+
+        if run.frames is None:
+            raise MissingDataError("the run has no frames (positions)", path=_path(run))
+        if not specs:
+            raise CoordinateSpecError("no coordinate given")
+        self.run = run
+        self.resolved = [resolve_for_run(s, run) for s in specs]
+        for r in self.resolved:
+            if r.function == "pc":
+                raise CoordinateSpecError("pc(k) needs a PCA pass first: use coordinates.compute_coordinates",
+                                          spec=r.spec)
+        self.atoms: np.ndarray | None = np.unique(np.concatenate([r.atoms for r in self.resolved])).astype(np.int64)
+        self.needs_velocities = bool(run.frames.has_velocities)
+        self._remap: list[Any] = []
+        self._masses = np.zeros(0)
+        self._values: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._dqdt: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._meff: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._time: list[np.ndarray] = []
+        self._got_vel = self.needs_velocities
+        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        self._range = (start, stop, chunk_frames)
+        self._remap = [replace(r, groups=tuple(_local(columns, np.asarray(g, dtype=np.int64)) for g in r.groups))
+                       for r in self.resolved]
+        m = np.asarray(self.run.masses_amu, dtype=np.float64)
+        self._masses = m if columns is None else m[columns]
+
+    def update(self, chunk: FrameChunk) -> None:
+        from phasewake.core.coordinates import evaluate_arrays
+
+        vel = chunk.velocities_nm_per_ps if self.needs_velocities else None
+        if self.needs_velocities and vel is None:
+            self._got_vel = False
+        self._time.append(np.asarray(chunk.time_ps, dtype=np.float64))
+        for k, r in enumerate(self._remap):
+            v, dq, me = evaluate_arrays(r, chunk.positions_nm, vel, self._masses, chunk.box_nm)
+            self._values[k].append(v)
+            if dq is not None:
+                self._dqdt[k].append(dq)
+            if me is not None:
+                self._meff[k].append(me)
+
+    def finish(self) -> list[CoordinateSeries]:
+        from phasewake.core.coordinates import CoordinateSeries, finite_difference_velocity, units_of
+
+        start, stop, chunk = self._range
+        time = np.concatenate(self._time) if self._time else np.zeros(0)
+        estimated_by_reader = bool(getattr(self.run.frames, "velocities_estimated", False))
+        out: list[CoordinateSeries] = []
+        for k, r in enumerate(self.resolved):
+            values = np.concatenate(self._values[k]) if self._values[k] else np.zeros(0)
+            meff = np.concatenate(self._meff[k]) if self._meff[k] else np.zeros(0)
+            vu, velu, mu, pu = units_of(r)
+            periodic = r.function == "dihedral"
+            if self._got_vel and len(self._dqdt[k]) == len(self._values[k]) and self._dqdt[k]:
+                vel_k: np.ndarray | None = np.concatenate(self._dqdt[k])
+                estimated = estimated_by_reader
+            else:
+                vel_k = finite_difference_velocity(values, time, periodic=periodic)
+                estimated = True
+            mom = None if vel_k is None else meff * vel_k
+            out.append(CoordinateSeries(
+                spec=r.spec, label=r.label, unit=vu, time_ps=time, values=values, velocity=vel_k, m_eff=meff,
+                momentum=mom, momentum_unit=pu, velocities_estimated=estimated, velocity_unit=velu,
+                m_eff_unit=mu, periodic=periodic, start=start, stop=stop, chunk_frames=chunk,
+            ))
+        return out
+
+
+# ------------------------------------------------------------------------------------------------------
+# kinetic energy and temperature per group
+
+
+@dataclass(frozen=True)
+class GroupKinetics:
+    """Kinetic energy and temperature per frame, of all atoms and of groups, with equipartition per group.
+
+    time_ps : (n,) ps; kinetic_kJ_per_mol, com_kinetic_kJ_per_mol : (n,) kJ/mol; temperature_K : (n,) K
+    group_kinetic_kJ_per_mol : (n, G) kJ/mol, columns in the order of ``group_names``
+    groups : per-group temperatures with errors (``temperature.group_temperatures``)
+    settings : n_com, n_constraints, group sizes, start, stop, chunk_frames
+    """
+
+    time_ps: np.ndarray
+    kinetic_kJ_per_mol: np.ndarray
+    com_kinetic_kJ_per_mol: np.ndarray
+    temperature_K: np.ndarray
+    n_dof: int
+    group_names: tuple[str, ...]
+    group_kinetic_kJ_per_mol: np.ndarray
+    group_dof: tuple[float, ...]
+    groups: tuple[GroupTemperature, ...]
+    velocities_estimated: bool
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+class GroupTemperatureConsumer:
+    """Kinetic temperature of all atoms and of atom groups, frame by frame (needs velocities).
+
+    Parameters
+    ----------
+    run : Run
+    groups : mapping name -> atom indices, optional
+        Default: ``temperature.default_groups`` (by residue name; by element too when nothing is
+        constrained), as the audit chooses them.
+    n_com : int
+        Centre-of-mass degrees of freedom removed (default 3).
+    n_constraints : int, optional
+        Default: the run's metadata, else 0. Constraints are shared between groups in proportion to atom
+        counts (no rigid-pair inference here: the audit infers them from positions).
+    significance_z : float
+        Passed to ``group_temperatures``.
+
+    Kinetic energies use ``temperature.kinetic_energy`` (float64 accumulation); the temperature is
+    T = 2 K / (N_dof k_B).
+    """
+
+    needs_positions = False
+    needs_velocities = True
+
+    def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+                 n_com: int = 3, n_constraints: int | None = None, significance_z: float = 3.0) -> None:
+        from phasewake.core import temperature as tm
+
+        if run.frames is None or not run.frames.has_velocities:
+            raise MissingDataError("the run holds no velocities (and none can be estimated)", path=_path(run))
+        self.run = run
+        n_con = n_constraints if n_constraints is not None else (run.metadata.n_constraints or 0)
+        self.n_constraints = int(n_con)
+        self.n_com = int(n_com)
+        self.significance_z = float(significance_z)
+        if groups is None:
+            groups = tm.default_groups(run.topology, run.n_atoms, by_element=(self.n_constraints == 0))
+        self.group_atoms = {k: np.asarray(v, dtype=np.int64) for k, v in groups.items()}
+        self.atoms: np.ndarray | None = None
+        self._masses = np.asarray(run.masses_amu, dtype=np.float64)
+        self._kin: list[np.ndarray] = []
+        self._com: list[np.ndarray] = []
+        self._gk: list[np.ndarray] = []
+        self._time: list[np.ndarray] = []
+        self._local: dict[str, np.ndarray] = {}
+        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        if columns is not None:
+            raise AnalysisError("the temperature needs every atom's velocity")
+        self._range = (start, stop, chunk_frames)
+
+    def update(self, chunk: FrameChunk) -> None:
+        from phasewake.core import temperature as tm
+
+        v = chunk.velocities_nm_per_ps
+        if v is None:
+            raise MissingDataError("velocities are missing in a chunk of frames", path=_path(self.run))
+        self._time.append(np.asarray(chunk.time_ps, dtype=np.float64))
+        self._kin.append(tm.kinetic_energy(v, self._masses))
+        self._com.append(tm.com_kinetic_energy(v, self._masses))
+        cols = [tm.kinetic_energy(v[:, idx], self._masses[idx]) for idx in self.group_atoms.values()]
+        self._gk.append(np.stack(cols, axis=1) if cols else np.zeros((v.shape[0], 0)))
+
+    def finish(self) -> GroupKinetics:
+        from phasewake.core import temperature as tm
+
+        start, stop, chunk = self._range
+        kin = np.concatenate(self._kin) if self._kin else np.zeros(0)
+        com = np.concatenate(self._com) if self._com else np.zeros(0)
+        names = tuple(self.group_atoms)
+        gk = np.concatenate(self._gk) if self._gk else np.zeros((0, len(names)))
+        n_dof = tm.degrees_of_freedom(self.run.n_atoms, n_constraints=self.n_constraints, n_com=self.n_com)
+        t_all = tm.kinetic_temperature(kin, n_dof)
+        gdof = tm.group_degrees_of_freedom(self.group_atoms, self._masses, n_com=self.n_com,
+                                           n_constraints=self.n_constraints)
+        gt = tm.group_temperatures(gk, [gdof[k] for k in names], list(names),
+                                   [int(self.group_atoms[k].size) for k in names], t_all,
+                                   significance_z=self.significance_z) if names and kin.size else ()
+        return GroupKinetics(
+            time_ps=np.concatenate(self._time) if self._time else np.zeros(0), kinetic_kJ_per_mol=kin,
+            com_kinetic_kJ_per_mol=com, temperature_K=t_all, n_dof=int(n_dof), group_names=names,
+            group_kinetic_kJ_per_mol=gk, group_dof=tuple(float(gdof[k]) for k in names), groups=tuple(gt),
+            velocities_estimated=bool(getattr(self.run.frames, "velocities_estimated", False)),
+            settings={"n_com": self.n_com, "n_constraints": self.n_constraints,
+                      "groups": {k: int(v.size) for k, v in self.group_atoms.items()},
+                      "significance_z": self.significance_z, "start": start, "stop": stop,
+                      "chunk_frames": chunk},
+        )
+
+
+# ------------------------------------------------------------------------------------------------------
+# VACF
+
+
+class VACFConsumer:
+    """Velocity autocorrelation, as :func:`phasewake.core.velocity.vacf` with stride 1.
+
+    Parameters are those of ``vacf`` (``groups``, ``mass_weighted``, ``max_lag_ps``,
+    ``max_buffer_bytes``); ``start``/``stop`` must be the pass's range (they set the lag window).
+    ``finish()`` returns the ``VACFResult`` that ``drive(vacf(run, ..., start=start, stop=stop))`` returns.
+    """
+
+    needs_positions = False
+    needs_velocities = True
+
+    def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+                 mass_weighted: bool = False, max_lag_ps: float | None = None, start: int = 0,
+                 stop: int | None = None, max_buffer_bytes: int | None = None) -> None:
+        from phasewake.core import velocity as vel
+
+        if run.frames is None or not run.frames.has_velocities:
+            raise MissingDataError("the run holds no velocities (and none can be estimated)", path=_path(run))
+        buf = vel.DEFAULT_BUFFER_BYTES if max_buffer_bytes is None else int(max_buffer_bytes)
+        self.run = run
+        self.start, self.stop = int(start), stop
+        self.dt = vel._frame_spacing(run, self.start, stop, 1)
+        n_sel = len(range(self.start, run.frames.n_frames if stop is None else min(stop, run.frames.n_frames)))
+        self.lab, self.names, self.sizes = vel._group_labels(run.n_atoms, groups)
+        used = np.flatnonzero(self.lab >= 0)
+        self.notes: list[str] = []
+        if max_lag_ps is None:
+            self.lag, self.notes = vel._default_lag(n_sel, used.size, buf)
+        else:
+            self.lag = int(max(1, min(round(max_lag_ps / self.dt), n_sel)))
+            need = vel.BlockCorrelator.buffer_bytes(used.size, self.lag)
+            if need > 4 * buf:
+                from phasewake.core.errors import ResourceError
+
+                raise ResourceError(f"a lag window of {max_lag_ps} ps over {used.size} atoms needs "
+                                    f"{need / 2**30:.1f} GiB; choose fewer atoms or a shorter window")
+        self.mass_weighted = bool(mass_weighted)
+        self.groups = groups
+        self.atoms: np.ndarray | None = None if used.size == run.n_atoms else used.astype(np.int64)
+        self._corr: Any = None
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        from phasewake.core.velocity import BlockCorrelator
+
+        want_stop = self.run.n_frames if self.stop is None else min(int(self.stop), self.run.n_frames)
+        if (start, stop) != (self.start, want_stop):
+            raise AnalysisError(f"the VACF was set up for frames {self.start}:{want_stop}, the pass reads "
+                                f"{start}:{stop}")
+        cols = np.arange(self.run.n_atoms) if columns is None else columns
+        m = np.asarray(self.run.masses_amu, dtype=float)[cols]
+        w = m if self.mass_weighted else np.ones(cols.size)
+        self._corr = BlockCorrelator(n_atoms=cols.size, max_lag=self.lag, weights=w, group_of_atom=self.lab[cols],
+                                     n_groups=len(self.names))
+
+    def update(self, chunk: FrameChunk) -> None:
+        if chunk.velocities_nm_per_ps is None:
+            raise MissingDataError("the frames came without velocities", path=_path(self.run))
+        self._corr.update(chunk.velocities_nm_per_ps)
+
+    def finish(self) -> VACFResult:
+        from phasewake.core.velocity import _vacf_finish
+
+        settings = {"groups": {k: len(v) for k, v in (self.groups or {}).items()},
+                    "mass_weighted": self.mass_weighted, "max_lag": self.lag, "start": self.start,
+                    "stop": self.stop, "stride": 1}
+        return _vacf_finish(self._corr, sizes=self.sizes, names=self.names, dt_ps=self.dt,
+                            mass_weighted=self.mass_weighted,
+                            estimated=bool(getattr(self.run.frames, "velocities_estimated", False)),
+                            settings=settings, notes=list(self.notes))
+
+
+# ------------------------------------------------------------------------------------------------------
+# the pass
+
+
+def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
+             chunk_frames: int | None = None) -> Work[dict[str, Any]]:
+    """Read frames [start, stop) once and feed every chunk to every consumer.
+
+    Parameters
+    ----------
+    run : Run
+    consumers : mapping name -> consumer (:class:`CoordinatesConsumer`, :class:`GroupTemperatureConsumer`,
+        :class:`VACFConsumer`, or anything with ``atoms``, ``needs_positions``, ``needs_velocities``,
+        ``prepare``, ``update`` and ``finish``)
+    start, stop : int
+        Frame range (``stop`` None: to the end).
+    chunk_frames : int, optional
+        Frames per chunk (default ``run.DEFAULT_CHUNK_FRAMES``); peak memory is about one chunk of the
+        atoms read.
+
+    Returns
+    -------
+    A generator yielding :class:`Progress` and returning ``{name: consumer.finish()}``.
+    """
+    from phasewake.core.readers.common import iter_frame_chunks
+
+    if run.frames is None:
+        raise MissingDataError("the run has no frames (positions)", path=_path(run))
+    if not consumers:
+        raise AnalysisError("a frame pass needs at least one analysis")
+    start_, stop_ = _frame_range(run, start, stop)
+    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    if any(c.atoms is None for c in consumers.values()):
+        columns: np.ndarray | None = None
+    else:
+        columns = np.unique(np.concatenate([np.asarray(c.atoms, dtype=np.int64) for c in consumers.values()]))
+        if columns.size == run.n_atoms:
+            columns = None  # a full read avoids a fancy-index copy
+    want_pos = any(c.needs_positions for c in consumers.values())
+    want_vel = any(c.needs_velocities for c in consumers.values()) and bool(run.frames.has_velocities)
+    for c in consumers.values():
+        c.prepare(columns, start=start_, stop=stop_, chunk_frames=chunk)
+    n_total = stop_ - start_
+    done = 0
+    label = "one pass: " + ", ".join(consumers)
+    chunks = iter_frame_chunks(run.frames, chunk_frames=chunk, start=start_, stop=stop_, atom_indices=columns,
+                               velocities=want_vel, positions=want_pos)
+    try:
+        for ch in chunks:
+            for c in consumers.values():
+                c.update(ch)
+            done += ch.n_frames
+            yield Progress(done, n_total, label)
+    finally:
+        close = getattr(chunks, "close", None)
+        if close is not None:
+            close()
+    return {name: c.finish() for name, c in consumers.items()}
+
+
+class FramePass:
+    """A builder for :func:`run_pass`: add analyses, then ``work()``.
+
+    ::
+
+        fp = FramePass(run, start=0, stop=None)
+        fp.coordinates("q", ["distance(0, 1)"]); fp.temperatures("T"); fp.vacf("vacf", max_lag_ps=0.5)
+        results = drive(fp.work())   # {"q": [CoordinateSeries], "T": GroupKinetics, "vacf": VACFResult}
+    """
+
+    def __init__(self, run: Run, *, start: int = 0, stop: int | None = None, chunk_frames: int | None = None) -> None:
+        self.run = run
+        self.start, self.stop, self.chunk_frames = int(start), stop, chunk_frames
+        self.consumers: dict[str, ChunkConsumer] = {}
+
+    def add(self, name: str, consumer: ChunkConsumer) -> FramePass:
+        if name in self.consumers:
+            raise AnalysisError(f"two analyses named {name!r} in one pass")
+        self.consumers[name] = consumer
+        return self
+
+    def coordinates(self, name: str, specs: Sequence[str]) -> FramePass:
+        return self.add(name, CoordinatesConsumer(self.run, specs))
+
+    def temperatures(self, name: str, **settings: Any) -> FramePass:
+        return self.add(name, GroupTemperatureConsumer(self.run, **settings))
+
+    def vacf(self, name: str, **settings: Any) -> FramePass:
+        return self.add(name, VACFConsumer(self.run, start=self.start, stop=self.stop, **settings))
+
+    def work(self) -> Work[dict[str, Any]]:
+        return run_pass(self.run, self.consumers, start=self.start, stop=self.stop, chunk_frames=self.chunk_frames)

@@ -1,0 +1,230 @@
+"""One pass over the frames for many analyses (issue 9): each consumer equals its separate analysis, and
+the frames are read once.
+
+The separate analyses are themselves tested against outside references (analytic results, scipy,
+statsmodels, mdtraj) in their own test files; here the check is that feeding them from one shared pass
+changes nothing, plus direct checks of the kinetic energy against its definition K = sum m v^2 / 2.
+"""
+
+from dataclasses import fields
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from phasewake.core.coordinates import compute_coordinates
+from phasewake.core.errors import CoordinateSpecError
+from phasewake.core.onepass import (
+    CoordinatesConsumer,
+    FramePass,
+    GroupTemperatureConsumer,
+    VACFConsumer,
+    run_pass,
+)
+from phasewake.core.progress import drive
+from phasewake.core.readers import open_run
+from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.run import RunMetadata
+from phasewake.core.velocity import vacf
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
+KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 (from memory; R/1000)
+
+
+class CountingFrames:
+    """A FrameSource wrapper that counts iter_chunks calls (and the frames it hands out)."""
+
+    def __init__(self, base):
+        self.base = base
+        self.calls = 0
+        self.frames_read = 0
+        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
+            setattr(self, k, getattr(base, k))
+
+    def iter_chunks(self, **kw):
+        self.calls += 1
+        for ch in self.base.iter_chunks(**kw):
+            self.frames_read += ch.n_frames
+            yield ch
+
+    def read_frame(self, index):
+        return self.base.read_frame(index)
+
+
+def _counting(run):
+    import dataclasses
+
+    frames = CountingFrames(run.frames)
+    return dataclasses.replace(run, frames=frames), frames
+
+
+def _synthetic(n_frames=300, n_atoms=12, seed=7, box=True):
+    rng = np.random.default_rng(seed)
+    masses = rng.uniform(1.0, 16.0, n_atoms)
+    pos = rng.uniform(0.0, 2.0, (n_frames, n_atoms, 3)).astype(np.float32)
+    # velocities with a memory (AR(1)) so the VACF is not trivial
+    v = np.empty((n_frames, n_atoms, 3))
+    v[0] = rng.standard_normal((n_atoms, 3))
+    for t in range(1, n_frames):
+        v[t] = 0.9 * v[t - 1] + np.sqrt(1 - 0.81) * rng.standard_normal((n_atoms, 3))
+    v /= np.sqrt(masses)[None, :, None]
+    time = np.arange(n_frames) * 0.01
+    return run_from_arrays(pos, time, masses, velocities_nm_per_ps=v.astype(np.float32),
+                           box_nm=np.array([2.5, 2.5, 2.5]) if box else None,
+                           metadata=RunMetadata(n_constraints=0, com_motion_removed=False))
+
+
+def _assert_series_equal(a, b, tol=1e-10):
+    assert len(a) == len(b)
+    for sa, sb in zip(a, b, strict=True):
+        for f in fields(sa):
+            x, y = getattr(sa, f.name), getattr(sb, f.name)
+            if isinstance(x, np.ndarray) or isinstance(y, np.ndarray):
+                assert x is not None and y is not None, f.name
+                assert x.shape == y.shape, f.name
+                np.testing.assert_allclose(x, y, rtol=tol, atol=0, err_msg=f.name)
+            else:
+                assert x == y, f.name
+
+
+SPECS = ["distance(0, 1)", "angle(0, 1, 2)", "dihedral(2, 3, 4, 5)", "com_distance([0, 1], [6-8])", "rg(3-9)",
+         "x(5)"]
+
+
+def test_coordinates_equal_compute_coordinates_synthetic():
+    run = _synthetic()
+    sep = drive(compute_coordinates(run, SPECS, start=10, stop=250, chunk_frames=64))
+    got = drive(run_pass(run, {"q": CoordinatesConsumer(run, SPECS)}, start=10, stop=250, chunk_frames=64))["q"]
+    _assert_series_equal(got, sep)
+
+
+@pytest.mark.parametrize("name", ["dimer_nve.h5md", "dimer_langevin.h5md"])
+def test_coordinates_equal_on_sample_runs(name):
+    run = open_run([SAMPLES / name])
+    specs = ["distance(0, 1)"]
+    sep = drive(compute_coordinates(run, specs))
+    got = drive(run_pass(run, {"q": CoordinatesConsumer(run, specs)}))["q"]
+    _assert_series_equal(got, sep)
+
+
+def test_coordinates_without_velocities_fall_back_like_compute_coordinates():
+    rng = np.random.default_rng(3)
+    pos = rng.uniform(0, 1, (50, 4, 3))
+    run = run_from_arrays(pos, np.arange(50) * 0.002, np.ones(4))
+    sep = drive(compute_coordinates(run, ["distance(0, 3)"]))
+    got = drive(run_pass(run, {"q": CoordinatesConsumer(run, ["distance(0, 3)"])}))["q"]
+    _assert_series_equal(got, sep)
+    assert got[0].velocities_estimated
+
+
+def test_pc_specs_are_refused():
+    run = _synthetic(n_frames=20)
+    with pytest.raises(CoordinateSpecError):
+        CoordinatesConsumer(run, ["pc(1, 0-5)"])
+
+
+def test_vacf_equals_vacf_synthetic_groups_and_mass_weighting():
+    run = _synthetic()
+    groups = {"a": [0, 2, 4], "b": [5, 6, 7, 8]}
+    sep = drive(vacf(run, groups=groups, mass_weighted=True, max_lag_ps=0.5, start=5, stop=280))
+    got = drive(run_pass(run, {"v": VACFConsumer(run, groups=groups, mass_weighted=True, max_lag_ps=0.5,
+                                                 start=5, stop=280)}, start=5, stop=280, chunk_frames=37))["v"]
+    for f in fields(sep):
+        x, y = getattr(sep, f.name), getattr(got, f.name)
+        if isinstance(x, np.ndarray):
+            np.testing.assert_allclose(y, x, rtol=1e-10, atol=1e-12, err_msg=f.name)
+        else:
+            assert x == y, f.name
+    # C(0) of the mass-weighted VACF is <m v^2> per atom, the mean of 2 K_i over frames (definition)
+    v = np.asarray(run.frames._vel[5:280], dtype=np.float64)
+    m = run.masses_amu
+    c0 = np.mean(np.einsum("fia,fia,i->fi", v, v, m)[:, [0, 2, 4]])
+    assert got.vacf[0, 0] == pytest.approx(c0, rel=1e-5)
+
+
+def test_vacf_equals_vacf_sample_run():
+    run = open_run([SAMPLES / "dimer_nve.h5md"])
+    sep = drive(vacf(run))
+    got = drive(run_pass(run, {"v": VACFConsumer(run)}))["v"]
+    np.testing.assert_allclose(got.vacf, sep.vacf, rtol=1e-10, atol=1e-14)
+    np.testing.assert_allclose(got.lag_ps, sep.lag_ps, rtol=1e-12)
+    assert got.settings == sep.settings
+
+
+def test_group_temperatures_match_definition_and_audit():
+    from phasewake.core.audit import audit_run
+
+    run = _synthetic(n_frames=200, n_atoms=30, box=False)
+    groups = {"first": np.arange(0, 10), "second": np.arange(10, 30)}
+    res = drive(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0, n_constraints=0)}))["T"]
+    v = np.asarray(run.frames._vel, dtype=np.float64)
+    m = run.masses_amu
+    # K = sum_i m_i v_i^2 / 2 (definition); T = 2 K / (N_dof k_B) with N_dof = 3 N (no COM removed)
+    k_ref = 0.5 * np.einsum("fia,fia,i->f", v, v, m)
+    np.testing.assert_allclose(res.kinetic_kJ_per_mol, k_ref, rtol=1e-6)
+    np.testing.assert_allclose(res.temperature_K, 2 * k_ref / (90 * KB), rtol=1e-6)
+    k1 = 0.5 * np.einsum("fia,fia,i->f", v[:, :10], v[:, :10], m[:10])
+    np.testing.assert_allclose(res.group_kinetic_kJ_per_mol[:, 0], k1, rtol=1e-6)
+    assert res.groups[0].mean_K == pytest.approx(float(np.mean(2 * k1 / (30 * KB))), rel=1e-6)
+    # the audit's own frame pass (float32 BLAS sums) with the same groups and counting
+    au = drive(audit_run(run, groups=groups, n_constraints=0))
+    ta = au.temperature
+    assert ta is not None and ta.n_dof == res.n_dof
+    np.testing.assert_allclose(res.temperature_K, ta.temperature_K, rtol=1e-5)
+    by_name = {g.name: g for g in ta.groups}
+    for g in res.groups:
+        a = by_name[g.name]
+        assert g.n_dof == pytest.approx(a.n_dof, rel=1e-12)
+        assert g.mean_K == pytest.approx(a.mean_K, rel=1e-5)
+
+
+def test_frames_are_read_once_for_three_analyses():
+    run0 = _synthetic()
+    run, counter = _counting(run0)
+    fp = FramePass(run, start=0, stop=None, chunk_frames=50)
+    fp.coordinates("q", ["distance(0, 1)", "angle(0, 1, 2)"]).temperatures("T", n_com=0).vacf("v", max_lag_ps=0.3)
+    out = drive(fp.work())
+    assert counter.calls == 1 and counter.frames_read == run.n_frames
+    assert set(out) == {"q", "T", "v"}
+    # the separate analyses read the frames once each
+    drive(compute_coordinates(run, ["distance(0, 1)", "angle(0, 1, 2)"], chunk_frames=50))
+    sep_v = drive(vacf(run, max_lag_ps=0.3))
+    assert counter.calls == 3
+    np.testing.assert_allclose(out["v"].vacf, sep_v.vacf, rtol=1e-10)
+
+
+def test_velocity_only_pass_does_not_ask_for_positions():
+    run0 = _synthetic(n_frames=40)
+    seen = []
+
+    class Spy(CountingFrames):
+        def iter_chunks(self, **kw):
+            seen.append(kw)
+            return super().iter_chunks(**kw)
+
+    import dataclasses
+
+    run = dataclasses.replace(run0, frames=Spy(run0.frames))
+    drive(run_pass(run, {"v": VACFConsumer(run, groups={"a": [1, 3]})}))
+    assert seen[0]["positions"] is False and seen[0]["velocities"] is True
+    np.testing.assert_array_equal(seen[0]["atom_indices"], [1, 3])
+
+
+def test_dask_blocks_drive_the_same_consumer():
+    """The chunk reduction over dask.array blocks gives the same VACF (DEVELOPERS.md, Scaling out)."""
+    da = pytest.importorskip("dask.array", reason="dask is not installed")
+    from phasewake.core.run import FrameChunk
+
+    run = _synthetic(n_frames=120)
+    vel = da.from_array(run.frames._vel, chunks=(25, -1, -1))
+    c = VACFConsumer(run, max_lag_ps=0.2)
+    c.prepare(None, start=0, stop=run.n_frames, chunk_frames=25)
+    t0 = 0
+    for block in vel.blocks:
+        arr = np.asarray(block.compute(scheduler="synchronous"))
+        c.update(FrameChunk(start=t0, time_ps=run.time_ps[t0:t0 + arr.shape[0]],
+                            positions_nm=np.empty((arr.shape[0], 0, 3), np.float32), velocities_nm_per_ps=arr))
+        t0 += arr.shape[0]
+    got = c.finish()
+    sep = drive(vacf(run, max_lag_ps=0.2))
+    np.testing.assert_allclose(got.vacf, sep.vacf, rtol=1e-10)
