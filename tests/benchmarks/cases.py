@@ -395,3 +395,40 @@ def window_first_panel_and_cursor(full: bool, work: Path) -> Outcome:
         notes=f"cursor redraw {1000 * cursor_s:.1f} ms with {s['plot_points']:.0e} points",
         sizes={"atoms": s["atoms"], "frames": s["frames"], "plot_points": s["plot_points"],
                "cursor_redraw_ms": 1000 * cursor_s}))
+
+
+@case
+def one_pass_many(full: bool, work: Path) -> Outcome:
+    """Coordinates + group temperatures + VACF from one read (core.onepass), against the sum of the three
+    separate analyses and against the plain read of positions + velocities."""
+    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.onepass import FramePass
+    from phasewake.core.velocity import vacf
+
+    s = _sizes(full)
+    path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
+    run = _open([path])
+    groups = {"first half": np.arange(s["atoms"] // 2), "second half": np.arange(s["atoms"] // 2, s["atoms"])}
+    specs = ["distance(0, 1)"]
+
+    def one_pass():
+        fp = FramePass(run).coordinates("q", specs).temperatures("T", groups=groups, n_com=0, n_constraints=0)
+        return _drain(fp.vacf("v", max_lag_ps=0.5).work())
+
+    def separate():
+        from phasewake.core.onepass import GroupTemperatureConsumer, run_pass
+
+        _drain(compute_coordinates(run, specs))
+        _drain(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0, n_constraints=0)}))
+        _drain(vacf(run, max_lag_ps=0.5))
+
+    base = best_of(lambda: _h5_plain_read(path), repeat=2)
+    sep = best_of(separate, repeat=2)
+    meas = best_of(one_pass, repeat=2)
+    return finish(Outcome(
+        name="one_pass_many", what="one pass: distance(0, 1) with momentum + 2 group temperatures + VACF",
+        baseline="plain h5py read of positions+velocities", measured_s=meas, baseline_s=base,
+        target="<= 2x the plain read, and less than the sum of the separate passes", target_ratio=2.0,
+        notes=f"sum of the separate analyses {sep:.3f} s: one pass is {meas / sep:.2f}x of it"
+              + ("" if meas < sep else " (NOT below the sum)"),
+        sizes={"atoms": s["atoms"], "frames": s["frames"], "separate_s": sep, "ratio_to_separate": meas / sep}))
