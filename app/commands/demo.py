@@ -81,10 +81,13 @@ def _launcher() -> Any:
 def run(args: argparse.Namespace) -> int:
     path = sample_run_path()
     if not args.headless and display_available():
-        launch = _launcher()
+        from phasewake.app.qt_probe import qt_start_problem
+
+        problem = qt_start_problem()
+        launch = _launcher() if problem is None else None
         if launch is not None:
             return int(launch([str(path)], guide=True))
-        reason = "the window cannot start here (Qt is not available)"
+        reason = problem or "the window cannot start here (Qt is not available)"
     else:
         reason = "no display found" if not args.headless else "headless mode asked for"
     out = Path(args.output)

@@ -4,6 +4,12 @@ from __future__ import annotations
 
 import argparse
 
+from phasewake.core.errors import PhasewakeError
+
+
+class WindowUnavailable(PhasewakeError):
+    """The desktop window cannot start in this environment (exit 2 with the reason)."""
+
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("files", nargs="*", metavar="FILE",
@@ -38,6 +44,11 @@ def run(args: argparse.Namespace) -> int:
             raise FileMissingError("no such file", path=f)
     if args.session is not None and not Path(args.session).exists():
         raise SessionError("session file not found", path=args.session)
+    from phasewake.app.qt_probe import qt_start_problem
+
+    problem = qt_start_problem()
+    if problem is not None:
+        raise WindowUnavailable(problem)
     from phasewake.app.window import launch
 
     return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
