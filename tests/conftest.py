@@ -71,3 +71,18 @@ def pytest_sessionfinish(session, exitstatus):
 
         sys.stderr.write(f"\nERROR: the test run modified sample inputs: {', '.join(changed)}\n")
         session.exitstatus = 1
+
+
+# --- the result cache never touches ~/.cache during tests (issue 9) ---------------------------------
+@pytest.fixture(scope="session", autouse=True)
+def _session_cache_dir(tmp_path_factory):
+    """Point PHASEWAKE_CACHE_DIR at a session temporary folder (tests may monkeypatch it further)."""
+    import os
+
+    old = os.environ.get("PHASEWAKE_CACHE_DIR")
+    os.environ["PHASEWAKE_CACHE_DIR"] = str(tmp_path_factory.mktemp("phasewake_cache"))
+    yield
+    if old is None:
+        os.environ.pop("PHASEWAKE_CACHE_DIR", None)
+    else:
+        os.environ["PHASEWAKE_CACHE_DIR"] = old

@@ -2,7 +2,7 @@
 
     phasewake coords FILES... --coordinate SPEC [--coordinate SPEC ...] [--momentum]
                      [--pca K [--pca-group GROUP] [--pca-fast] [--no-fit] [--no-mass-weight]]
-                     [--start N] [--stop N] [-o out.csv | -o out.h5md] [--json]
+                     [--start N] [--stop N] [-o out.csv | -o out.h5md] [--json] [--no-cache]
 
 Without ``-o`` the table goes to standard output as CSV. With ``-o out.csv`` it is written there,
 with ``-o out.h5md`` (or .h5) as an H5MD 1.1 file holding one ``/observables/<name>`` time series
@@ -14,6 +14,11 @@ Columns: ``time [ps]``, then for each coordinate its value; with ``--momentum`` 
 dq/dt, effective mass and conjugate momentum p = m_eff dq/dt. ``--pca K`` adds the first K principal
 components of an atom group (and, with ``--momentum``, their momenta p_k = e_k . M^1/2 v), and a
 summary of eigenvalues, explained variance and cosine content.
+
+Coordinates (not the ``--pca`` table) are kept in the result cache (``phasewake cache``; folder
+``PHASEWAKE_CACHE_DIR``, off with ``PHASEWAKE_NO_CACHE=1``), keyed by the input files' identity and the
+settings: asking again for the same coordinates of an unchanged file reads no frames. ``--no-cache``
+computes afresh and stores nothing.
 
 Exit codes: 0 done; 2 unusable input (a bad coordinate specification points at the offending
 character).
@@ -82,6 +87,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-mass-weight", action="store_true", help="PCA of plain Cartesian coordinates")
     parser.add_argument("--start", type=int, default=0, metavar="N", help="first frame (0-based)")
     parser.add_argument("--stop", type=int, default=None, metavar="N", help="stop before this frame")
+    parser.add_argument("--no-cache", action="store_true",
+                        help="compute the coordinates afresh; neither read nor write the result cache")
     parser.add_argument("-o", "--output", metavar="FILE", default=None,
                         help="write the table to FILE (.csv, or .h5md/.h5 for H5MD observables); "
                              "default: CSV on standard output")
@@ -103,7 +110,9 @@ def _pca_group(text: str, run: Any) -> np.ndarray:
 
 def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, np.ndarray]], np.ndarray, dict]:
     """Compute everything; returns (name, unit, values) columns, the time axis and a summary."""
-    from phasewake.core.coordinates import compute_coordinates, default_coordinates
+    from phasewake.core.cache import ResultCache
+    from phasewake.core.cached import cached_coordinates
+    from phasewake.core.coordinates import default_coordinates
     from phasewake.core.errors import InputError
 
     specs = list(args.coordinate)
@@ -120,8 +129,9 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
     time = None
     if specs:
         series = run_with_progress(
-            compute_coordinates(run, specs, start=args.start, stop=args.stop,
-                                mass_weighted_pca=not args.no_mass_weight, fit_pca=not args.no_fit),
+            cached_coordinates(run, specs, start=args.start, stop=args.stop,
+                               mass_weighted_pca=not args.no_mass_weight, fit_pca=not args.no_fit,
+                               cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
             "coordinates",
         )
         time = series[0].time_ps
