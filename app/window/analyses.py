@@ -211,7 +211,8 @@ _CACHE_SIZE = 8
 
 
 def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[Progress, None, Any]:
-    """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window)."""
+    """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window in memory, and
+    for runs with files in the result cache, ``phasewake.core.cached``)."""
     key = (id(run), spec, start, stop)
     with _CACHE_LOCK:
         hit = _CACHE.get(key)
@@ -220,8 +221,10 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     coords = module_or_none("coordinates")
     if coords is None:
         raise ModuleNotFoundError("phasewake.core.coordinates")
-    series = yield from _relay(coords.compute_coordinates(run, [spec], start=start, stop=stop), 0, 1, 1,
-                               f"coordinate {spec}")
+    cached = module_or_none("cached")  # the on-disk result cache: reopening a run reads no frames
+    work = (cached.cached_coordinates(run, [spec], start=start, stop=stop) if cached is not None
+            else coords.compute_coordinates(run, [spec], start=start, stop=stop))
+    series = yield from _relay(work, 0, 1, 1, f"coordinate {spec}")
     with _CACHE_LOCK:
         _CACHE[key] = series[0]
         while len(_CACHE) > _CACHE_SIZE:

@@ -147,3 +147,15 @@ def test_coords_command_uses_the_cache_and_no_cache_bypasses_it(tmp_path, cache_
     assert main(["coords", str(path), "-c", "distance(0, 1)", "--momentum", "--no-cache", "-o", str(out3)]) == 0
     assert not cache_dir.exists()
     assert out3.read_text() == out1.read_text()
+
+
+def test_window_coordinate_series_uses_the_result_cache(tmp_path, cache_dir):
+    from phasewake.app.window import analyses
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    first = drive(analyses.coordinate_series(run, "distance(0, 1)", 0, 100))
+    run2, frames2 = _counted(path)  # the run reopened (a new window): the in-memory cache misses
+    second = drive(analyses.coordinate_series(run2, "distance(0, 1)", 0, 100))
+    assert frames.calls == 1 and frames2.calls == 0
+    _equal([second], [first])
