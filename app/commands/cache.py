@@ -2,7 +2,9 @@
 
 The cache keeps analysis results (HDF5 files) so looking at the same run again is instant. It lives in
 ``PHASEWAKE_CACHE_DIR`` or ``~/.cache/phasewake``, never beside your data; ``PHASEWAKE_NO_CACHE=1`` turns
-it off.
+it off. What is cached today: coordinate series (``phasewake coords`` without ``--no-cache``, and the
+window's Phase space / Crossings / Landscape panels), keyed by the input files' identity (a changed or
+touched file is a miss) and the settings, time window included.
 """
 
 from __future__ import annotations
