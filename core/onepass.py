@@ -214,8 +214,9 @@ class GroupTemperatureConsumer:
     significance_z : float
         Passed to ``group_temperatures``.
 
-    Kinetic energies use ``temperature.kinetic_energy`` (float64 accumulation); the temperature is
-    T = 2 K / (N_dof k_B).
+    Kinetic energies are those of ``temperature.kinetic_energy`` (squared speeds per atom in float32, sums
+    over atoms in float64, all groups in one product); the temperature is T = 2 K / (N_dof k_B). Groups
+    may overlap each other (an atom listed twice in one group counts once).
     """
 
     needs_positions = False
@@ -243,6 +244,13 @@ class GroupTemperatureConsumer:
         self._time: list[np.ndarray] = []
         self._local: dict[str, np.ndarray] = {}
         self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+        w = np.zeros((run.n_atoms, 1 + len(self.group_atoms)))
+        w[:, 0] = 0.5 * self._masses
+        for j, idx in enumerate(self.group_atoms.values()):
+            w[idx, 1 + j] = 0.5 * self._masses[idx]
+        self._weights = w
+        self._m32 = self._masses.astype(np.float32)
+        self._mtot = float(self._masses.sum())
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
         if columns is not None:
@@ -250,16 +258,20 @@ class GroupTemperatureConsumer:
         self._range = (start, stop, chunk_frames)
 
     def update(self, chunk: FrameChunk) -> None:
-        from phasewake.core import temperature as tm
 
         v = chunk.velocities_nm_per_ps
         if v is None:
             raise MissingDataError("velocities are missing in a chunk of frames", path=_path(self.run))
         self._time.append(np.asarray(chunk.time_ps, dtype=np.float64))
-        self._kin.append(tm.kinetic_energy(v, self._masses))
-        self._com.append(tm.com_kinetic_energy(v, self._masses))
-        cols = [tm.kinetic_energy(v[:, idx], self._masses[idx]) for idx in self.group_atoms.values()]
-        self._gk.append(np.stack(cols, axis=1) if cols else np.zeros((v.shape[0], 0)))
+        # K = sum_i m_i |v_i|^2 / 2 as temperature.kinetic_energy, for all atoms and every group at once:
+        # |v_i|^2 per atom in float32 (3 terms), the mass-weighted sums over atoms in float64 (one product)
+        v = np.asarray(v, dtype=np.float32)
+        v2 = np.einsum("fai,fai->fa", v, v).astype(np.float64)
+        both = v2 @ self._weights  # (k, 1 + G)
+        self._kin.append(both[:, 0])
+        self._gk.append(both[:, 1:])
+        p = np.matmul(self._m32, v).astype(np.float64)  # (k, 3) total momentum
+        self._com.append(np.einsum("fi,fi->f", p, p) / (2.0 * self._mtot))
 
     def finish(self) -> GroupKinetics:
         from phasewake.core import temperature as tm
