@@ -291,6 +291,13 @@ def compute_pca(
         raise TooShortError("a PCA", have=n_sel, need=2)
     g = idx.size
     d = 3 * g
+    if method == "exact":
+        from phasewake.core.resources import require_memory
+
+        # the float64 covariance, its eigen-decomposition workspace and a copy: about 3 d^2 doubles
+        require_memory(3.0 * 8.0 * d * d, what=f"an exact PCA of {d} coordinates ({g} atoms)",
+                       hint="choose fewer atoms (e.g. pc(1, \"name CA\")) or the randomized route",
+                       path=run.paths[0] if run.paths else None)
     k_keep = int(min(max(1, n_components), d))
     sq = np.sqrt(masses) if mass_weighted else np.ones(g)
     fit_w = masses if mass_weighted else np.ones(g)
