@@ -6,15 +6,12 @@ import argparse
 import contextlib
 import io
 import json
-import math
 import sys
 import time
 from collections.abc import Generator
-from pathlib import Path
 from typing import Any, TypeVar
 
-import numpy as np
-
+from phasewake.core.jsonable import to_jsonable
 from phasewake.core.progress import Progress, drive
 
 T = TypeVar("T")
@@ -103,25 +100,5 @@ def run_with_progress(work: Generator[Progress, None, T], label: str) -> T:
         bar.close()
 
 
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return _jsonable(obj.item())
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, Path):
-        return str(obj)
-    if hasattr(obj, "__dataclass_fields__"):
-        from dataclasses import asdict
-
-        return _jsonable(asdict(obj))
-    return obj
-
-
 def print_json(obj: Any) -> None:
-    sys.stdout.write(json.dumps(_jsonable(obj), indent=2, allow_nan=False) + "\n")
+    sys.stdout.write(json.dumps(to_jsonable(obj), indent=2, allow_nan=False) + "\n")

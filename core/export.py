@@ -39,6 +39,7 @@ import numpy as np
 from phasewake.core import __version__
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
+from phasewake.core.jsonable import to_jsonable
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
@@ -160,10 +161,10 @@ def provenance_for(
         "matplotlib_version": matplotlib.__version__,
         "numpy_version": np.__version__,
         "inputs": files,
-        "settings": _jsonable(dict(settings or {})),
+        "settings": to_jsonable(dict(settings or {})),
     }
     if extra:
-        out.update(_jsonable(dict(extra)))
+        out.update(to_jsonable(dict(extra)))
     return out
 
 
@@ -173,42 +174,15 @@ def provenance_of_run(run: Any, *, settings: Mapping[str, Any] | None = None) ->
     return provenance_for(paths, settings=settings, extra={"run": getattr(run, "name", "")})
 
 
-def to_jsonable(obj: Any) -> Any:
-    """Numbers, arrays, paths and dataclasses as plain JSON-ready values (non-finite floats -> None)."""
-    return _jsonable(obj)
-
-
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, Mapping):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    if isinstance(obj, np.generic):
-        return _jsonable(obj.item())
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, Path):
-        return str(obj)
-    if isinstance(obj, str | int | bool) or obj is None:
-        return obj
-    if hasattr(obj, "__dataclass_fields__"):
-        from dataclasses import asdict
-
-        return _jsonable(asdict(obj))
-    return str(obj)
-
-
 def provenance_json(prov: Mapping[str, Any]) -> str:
-    return json.dumps(_jsonable(prov), sort_keys=True, separators=(",", ":"))
+    return json.dumps(to_jsonable(prov), sort_keys=True, separators=(",", ":"))
 
 
 def _merged_provenance(spec: FigureSpec, provenance: Mapping[str, Any] | None) -> dict[str, Any]:
     prov: dict[str, Any] = {"figure": spec.key}
-    prov.update(_jsonable(dict(spec.provenance)))
+    prov.update(to_jsonable(dict(spec.provenance)))
     if provenance:
-        prov.update(_jsonable(dict(provenance)))
+        prov.update(to_jsonable(dict(provenance)))
     prov.setdefault("phasewake_version", __version__)
     return prov
 

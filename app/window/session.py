@@ -34,6 +34,7 @@ from pathlib import Path
 from typing import Any
 
 from phasewake.core.errors import SessionError
+from phasewake.core.jsonable import to_jsonable
 
 FORMAT = "phasewake-session"
 VERSION = 1
@@ -85,23 +86,9 @@ def to_json(state: SessionState, session_path: str | Path) -> str:
         "time_window_ps": None if state.time_window_ps is None else [float(v) for v in state.time_window_ps],
         "coordinate": state.coordinate,
         "panel": state.panel,
-        "choices": _jsonable(state.choices),
+        "choices": to_jsonable(state.choices),
     }
     return json.dumps(doc, indent=2, allow_nan=False) + "\n"
-
-
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, dict):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, list | tuple):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, bool | int | str) or obj is None:
-        return obj
-    if isinstance(obj, float):
-        return obj if obj == obj and abs(obj) != float("inf") else None
-    if hasattr(obj, "item"):  # numpy scalar
-        return _jsonable(obj.item())
-    return str(obj)
 
 
 def save(state: SessionState, path: str | Path) -> Path:
