@@ -30,6 +30,32 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> 
     parser.add_argument("--temperature", metavar="K", type=float, default=None,
                         help="thermostat target temperature in K")
     parser.add_argument("--json", action="store_true", help="print JSON with every number and its unit")
+    add_chunk_argument(parser)
+
+
+def _positive_mb(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not value > 0 or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a positive number of MB, got {text!r}")
+    return value
+
+
+def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
+    """``--chunk-mb``: the memory budget of one chunk of frames (``phasewake.core.run.chunk_budget_mb``)."""
+    parser.add_argument("--chunk-mb", metavar="MB", type=_positive_mb, default=None,
+                        help="memory for one chunk of frames while streaming (default: PHASEWAKE_CHUNK_MB or 128); "
+                             "lower it for very large systems or small machines")
+
+
+def apply_chunk_budget(args: argparse.Namespace) -> None:
+    """Use ``--chunk-mb`` for every frame read in this process (no-op when not given)."""
+    from phasewake.core.run import set_chunk_budget_mb
+
+    if getattr(args, "chunk_mb", None) is not None:
+        set_chunk_budget_mb(args.chunk_mb)
 
 
 def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
@@ -46,6 +72,7 @@ def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
 def open_run_from_args(args: argparse.Namespace):  # -> Run
     from phasewake.core.readers import open_run
 
+    apply_chunk_budget(args)
     with quiet_stdout():
         return open_run(args.files, topology=args.top, **run_overrides(args))
 

@@ -32,6 +32,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "error was shown)")
     parser.add_argument("--smoke-timeout", metavar="S", type=float, default=60.0,
                         help="seconds the smoke test waits for the panels (default 60)")
+    from phasewake.app.common import add_chunk_argument
+
+    add_chunk_argument(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -49,8 +52,10 @@ def run(args: argparse.Namespace) -> int:
     problem = qt_start_problem()
     if problem is not None:
         raise WindowUnavailable(problem)
+    from phasewake.app.common import apply_chunk_budget
     from phasewake.app.window import launch
 
+    apply_chunk_budget(args)
     return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
                   n_constraints=args.constraints, temperature_K=args.temperature, session=args.session,
                   smoke_test=args.smoke_test, smoke_timeout_s=args.smoke_timeout)

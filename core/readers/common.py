@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, TimeAxisError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, budget_chunk_frames
 
 if TYPE_CHECKING:
     import mdtraj
@@ -279,6 +279,8 @@ class EstimatedVelocityFrames:
                                          positions=positions)
             return
         want = np.arange(start, stop, stride)
+        n_read = self.n_atoms if atom_indices is None else len(atom_indices)
+        chunk_frames = budget_chunk_frames(chunk_frames, n_read, n_arrays=2 + int(positions))
         for i in range(0, want.size, chunk_frames):
             sel = want[i : i + chunk_frames]
             lo = max(int(sel[0]) - 1, 0)

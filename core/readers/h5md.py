@@ -34,7 +34,14 @@ from phasewake.core.readers.common import (
     topology_from_json,
     topology_to_json,
 )
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, RunMetadata, Series
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    EnergyTable,
+    FrameChunk,
+    RunMetadata,
+    Series,
+    budget_chunk_frames,
+)
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -469,6 +476,8 @@ class H5MDFrames:
         idx = np.arange(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
         want_vel = velocities and self.has_velocities
+        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
+                                           n_arrays=int(positions) + int(want_vel))
         try:
             f = h5py.File(self.path, "r")
         except OSError as exc:

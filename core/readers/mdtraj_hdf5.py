@@ -22,7 +22,15 @@ from phasewake.core.readers.common import (
     masses_from_topology,
     topology_from_json,
 )
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, Run, RunMetadata, Series
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    EnergyTable,
+    FrameChunk,
+    Run,
+    RunMetadata,
+    Series,
+    budget_chunk_frames,
+)
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -107,6 +115,8 @@ class MdtrajH5Frames:
             f = h5py.File(self.path, "r")
         except OSError as exc:
             raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
+        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
+                                           n_arrays=int(positions) + int(velocities and self.has_velocities))
         with f:
             try:
                 yield from self._chunks(f, idx, cols, stride, velocities, chunk_frames, positions)

@@ -12,6 +12,7 @@ from phasewake.core.run import (
     FrameChunk,
     Run,
     RunMetadata,
+    budget_chunk_frames,
 )
 
 
@@ -61,6 +62,9 @@ class ArrayFrames:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         idx = np.arange(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
+        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
+                                           n_arrays=int(positions) + int(velocities and self._vel is not None),
+                                           itemsize=self._pos.dtype.itemsize)
 
         def pick(a: np.ndarray, sel: np.ndarray) -> np.ndarray:
             return a[sel] if cols is None else np.take(a[sel], cols, axis=1)  # C-ordered, unlike a[sel][:, cols]

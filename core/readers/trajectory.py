@@ -34,7 +34,7 @@ from phasewake.core.errors import (
     TopologyMismatchError,
 )
 from phasewake.core.readers.common import check_time_axis, masses_from_topology
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata, budget_chunk_frames
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -327,7 +327,8 @@ class MdtrajFrames:
         if start >= stop:
             return
         cols = None if atom_indices is None else np.asarray(atom_indices)
-        per_chunk = max(1, int(chunk_frames))
+        per_chunk = budget_chunk_frames(max(1, int(chunk_frames)), self.n_atoms if cols is None else cols.size,
+                                        n_arrays=int(positions) + int(velocities and self.has_velocities))
         expected = np.arange(start, stop, stride)
         done = 0
         read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, AssertionError)

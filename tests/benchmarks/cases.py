@@ -432,3 +432,68 @@ def one_pass_many(full: bool, work: Path) -> Outcome:
         notes=f"sum of the separate analyses {sep:.3f} s: one pass is {meas / sep:.2f}x of it"
               + ("" if meas < sep else " (NOT below the sum)"),
         sizes={"atoms": s["atoms"], "frames": s["frames"], "separate_s": sep, "ratio_to_separate": meas / sep}))
+
+
+def _peak_child(path: str, budget_mb: float, q) -> None:  # runs in a spawned process
+    import resource
+
+    import scipy.fft  # noqa: F401 - import costs are not the pass's memory
+    import scipy.signal  # noqa: F401
+    import scipy.stats  # noqa: F401
+
+    import phasewake.core.coordinates  # noqa: F401
+    import phasewake.core.temperature  # noqa: F401
+    import phasewake.core.velocity  # noqa: F401
+    from phasewake.core.onepass import FramePass
+    from phasewake.core.readers import open_run
+    from phasewake.core.run import set_chunk_budget_mb
+
+    set_chunk_budget_mb(budget_mb)
+    run = open_run([path])
+    with open("/proc/self/statm") as fh:
+        rss0 = int(fh.read().split()[1]) * resource.getpagesize() / 1e6
+    fp = FramePass(run).coordinates("q", ["distance(0, 1)"]).temperatures("T", n_com=0, n_constraints=0)
+    _drain(fp.vacf("v", max_lag_ps=0.05).work())
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0 * 1.048576  # KiB -> MB
+    q.put(peak - rss0)
+
+
+def _extra_peak_mb(path: Path, budget_mb: float) -> float:
+    import multiprocessing as mp
+
+    ctx = mp.get_context("spawn")
+    q = ctx.Queue()
+    p = ctx.Process(target=_peak_child, args=(str(path), budget_mb, q))
+    p.start()
+    out = q.get()
+    p.join()
+    return float(out)
+
+
+@case
+def memory_bounded_by_chunk(full: bool, work: Path) -> Outcome:
+    """Peak memory of one pass (coordinate + temperatures + VACF) is set by the chunk budget, not the file:
+    the same pass over a file 4x longer, and with a 4x larger budget, each in a fresh process."""
+    n_atoms = 20_000 if full else 300
+    frames = 500 if full else 200
+    budget = 32.0 if full else 0.5
+    short = make_h5md(work / "mem_short.h5md", n_atoms, frames)
+    long = make_h5md(work / "mem_long.h5md", n_atoms, 4 * frames)
+    per_frame_mb = n_atoms * 3 * 4 * 2 / 1e6  # positions + velocities, float32
+    p_short = _extra_peak_mb(short, budget)
+    p_long = _extra_peak_mb(long, budget)
+    p_big = _extra_peak_mb(long, 4 * budget)
+    o = Outcome(
+        name="memory_bounded_by_chunk",
+        what=f"peak memory of one pass: file 4x longer; budget {budget:g} -> {4 * budget:g} MB",
+        baseline=f"the same pass over the {frames}-frame file (extra peak {p_short:.0f} MB)",
+        target="extra peak for the 4x longer file <= 1.25x that of the short file", target_ratio=1.25,
+        ratio=p_long / max(p_short, 1e-9),
+        notes=(f"extra peak RSS above the opened run: {p_short:.1f} MB ({frames} frames), {p_long:.1f} MB "
+               f"({4 * frames} frames, file {4 * frames * per_frame_mb:.0f} MB), {p_big:.1f} MB with a "
+               f"{4 * budget:g} MB budget; a chunk is min(256 frames, budget) = "
+               f"{min(256, int(budget / per_frame_mb))} frames at {budget:g} MB"),
+        sizes={"atoms": n_atoms, "frames_short": frames, "frames_long": 4 * frames, "budget_mb": budget,
+               "extra_peak_short_mb": p_short, "extra_peak_long_mb": p_long, "extra_peak_big_budget_mb": p_big})
+    o.met = o.ratio is not None and o.ratio <= 1.25
+    return o
