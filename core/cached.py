@@ -1,95 +1,253 @@
 """Cached analyses: results kept in the result cache (``core/cache.py``) and rebuilt on the next request.
 
-Only runs read from files are cached (``run.paths`` non-empty); in-memory runs are always computed. The
-key holds the identity of every input file (path, size, modification time, edge hashes: touching or
-changing a file makes a new key), the analysis name, its settings (time window included), a hash of the
-run's time axis and masses (so command-line overrides of the time step or masses are part of the key),
-the identity of any reference file a specification names, and the phasewake version.
+:func:`cached_work` wraps any analysis generator (``Work[T]``) of a run: the first request computes and
+stores the result (through the codec of ``core/resultcodec.py``), a later request with the same key
+reads no frames and returns an equal result. Only runs read from files are cached (``run.paths``
+non-empty); in-memory runs are always computed.
 
-A cache that cannot be written (read-only folder, full disk) never fails the analysis: the result is
-returned uncached.
+The key (:func:`analysis_key`) holds:
+
+- the identity of every input file (path, size, modification time, hashes of the first and last
+  64 KiB: touching or changing a file makes a new key) and of any extra file the analysis reads (a
+  reference structure named in a coordinate specification);
+- the analysis name and its settings, every keyword that changes the result (arrays by content hash,
+  other runs such as a ``compare`` run by their own fingerprint);
+- the run as the analysis sees it: a hash of its time axis and masses (command-line overrides of the
+  time step or masses), the atom count, the frame window of a windowed run (offset and length), its
+  metadata (time step, ensemble, temperature, constraints overrides) and a fingerprint of its energy
+  table (rows, columns, units, edge values);
+- the phasewake version, the entry format, and a fingerprint of the installed ``phasewake.core``
+  source files (sizes and modification times), so a changed analysis never serves an old answer.
+
+A cache that cannot be read or written (read-only folder, full disk) never fails the analysis: the
+result is returned uncached. A result the codec cannot store is simply not cached.
 """
 
 from __future__ import annotations
 
+import dataclasses
+import enum
+import functools
 import hashlib
-from collections.abc import Sequence
-from typing import TYPE_CHECKING, Any
+import json
+from collections.abc import Iterable, Mapping, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any, TypeVar
 
 import numpy as np
 
-from phasewake.core.cache import ResultCache, file_identity, make_key
+from phasewake.core import resultcodec
+from phasewake.core.cache import CacheEntry, ResultCache, file_identity, make_key
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
     from phasewake.core.coordinates import CoordinateSeries
     from phasewake.core.run import Run
 
-_FORMAT = 1  # bump when the stored layout changes
-_OPTIONAL = ("velocity", "m_eff", "momentum")
-_SCALARS = ("spec", "label", "unit", "momentum_unit", "velocities_estimated", "velocity_unit", "m_eff_unit",
-            "periodic", "start", "stop", "chunk_frames")
+T = TypeVar("T")
+
+_FORMAT = 2  # bump when the stored layout or the key contents change
+_EDGE_ROWS = 4096  # energy-table rows hashed at each end (the files' identity covers the rest)
+
+
+class _Uncacheable(Exception):
+    """A setting that cannot be turned into a stable key: the analysis runs uncached."""
 
 
 def _digest(a: np.ndarray) -> str:
     arr = np.ascontiguousarray(a)
-    return hashlib.sha256(arr.tobytes() + str(arr.dtype).encode()).hexdigest()[:16]
+    if arr.dtype.kind == "O":
+        raise _Uncacheable("object array in the settings")
+    h = hashlib.sha256(str(arr.dtype).encode() + str(arr.shape).encode())
+    h.update(arr.reshape(-1).view(np.uint8).tobytes() if arr.size else b"")
+    return h.hexdigest()[:16]
 
 
-def coordinates_key(run: Run, specs: Sequence[str], *, start: int, stop: int | None, chunk_frames: int | None,
-                    mass_weighted_pca: bool, fit_pca: bool) -> str:
-    """The cache key of :func:`cached_coordinates` (the run must have files)."""
+@functools.lru_cache(maxsize=1)
+def code_fingerprint() -> str:
+    """A hash of the sizes and modification times of the phasewake.core source files (once per process)."""
+    root = Path(__file__).resolve().parent
+    h = hashlib.sha256()
+    for p in sorted(root.rglob("*.py")):
+        try:
+            st = p.stat()
+        except OSError:
+            continue
+        h.update(f"{p.relative_to(root)}:{st.st_size}:{st.st_mtime_ns};".encode())
+    return h.hexdigest()[:16]
+
+
+def _canon(x: Any) -> Any:
+    """A JSON-ready, stable form of a setting (raises _Uncacheable for what has none)."""
+    from phasewake.core.run import Run
+
+    if x is None or isinstance(x, (bool, str)):
+        return x
+    if isinstance(x, enum.Enum):
+        return {"enum": f"{type(x).__qualname__}.{x.name}"}
+    if isinstance(x, (int, float)):
+        return x if not isinstance(x, float) or x == x else "nan"
+    if isinstance(x, np.generic):
+        return _canon(x.item())
+    if isinstance(x, np.ndarray):
+        return {"array_sha": _digest(x), "shape": list(x.shape), "dtype": str(x.dtype)}
+    if isinstance(x, Path):
+        return str(x)
+    if isinstance(x, Run):
+        return run_fingerprint(x)
+    if dataclasses.is_dataclass(x) and not isinstance(x, type):
+        return {"class": type(x).__qualname__,
+                **{f.name: _canon(getattr(x, f.name)) for f in dataclasses.fields(x)}}
+    if isinstance(x, Mapping):
+        return {"mapping": sorted(([json.dumps(_canon(k), sort_keys=True), _canon(v)] for k, v in x.items()),
+                                  key=lambda kv: kv[0])}
+    if isinstance(x, (list, tuple, range)):
+        return [_canon(v) for v in x]
+    if isinstance(x, (set, frozenset)):
+        return sorted((_canon(v) for v in x), key=lambda v: json.dumps(v, sort_keys=True))
+    raise _Uncacheable(f"a {type(x).__qualname__} setting")
+
+
+def _energies_fingerprint(run: Run) -> Any:
+    table = run.energies
+    if table is None:
+        return None
+    n = len(table)
+
+    def edges(a: Any) -> str:
+        arr = np.asarray(a)
+        if arr.shape[0] > 2 * _EDGE_ROWS:
+            arr = np.concatenate([arr[:_EDGE_ROWS], arr[-_EDGE_ROWS:]])
+        return _digest(arr)
+
+    return {"rows": n, "time": edges(table.time_ps), "sources": list(table.sources),
+            "series": [[k, s.name, s.unit, s.role, s.source, edges(s.values)] for k, s in table.series.items()]}
+
+
+def run_fingerprint(run: Run) -> dict[str, Any]:
+    """What identifies a run as an analysis sees it (files, time axis, masses, window, metadata, energies).
+
+    Raises _Uncacheable for a run without files.
+    """
+    if not run.paths:
+        raise _Uncacheable("a run without files")
+    frames = run.frames
+    window = None
+    if frames is not None:
+        window = [int(getattr(frames, "offset", 0)), int(frames.n_frames)]
+    meta = dataclasses.asdict(run.metadata)
+    return {"inputs": [file_identity(p) for p in run.paths],
+            "time_sha": _digest(np.asarray(run.time_ps, dtype=np.float64)),
+            "masses_sha": _digest(np.asarray(run.masses_amu, dtype=np.float64)),
+            "n_atoms": run.n_atoms, "n_frames": run.n_frames, "frame_window": window,
+            "has_frames": frames is not None,
+            "has_velocities": None if frames is None else bool(frames.has_velocities),
+            "velocities_estimated": None if frames is None else bool(frames.velocities_estimated),
+            "metadata": _canon(meta), "energies": _energies_fingerprint(run)}
+
+
+def analysis_key(run: Run, analysis: str, settings: Mapping[str, Any], *,
+                 extra_paths: Iterable[str | Path] = ()) -> str:
+    """The cache key of ``analysis`` with ``settings`` on ``run`` (see the module docstring).
+
+    Raises _Uncacheable when the run has no files or a setting has no stable form.
+    """
+    fp = run_fingerprint(run)
+    extra = [file_identity(p) for p in extra_paths]
+    full = {"format": _FORMAT, "codec": resultcodec.CODEC_VERSION, "code": code_fingerprint(),
+            "settings": _canon(dict(settings)), "run": {k: v for k, v in fp.items() if k != "inputs"},
+            "extra_inputs": extra}
+    return make_key(list(run.paths), analysis, full)
+
+
+def _hit(entry: CacheEntry, analysis: str) -> tuple[bool, Any]:
+    if entry.meta.get("analysis") != analysis or entry.meta.get("format") != _FORMAT:
+        return False, None
+    try:
+        return True, resultcodec.from_entry(entry.arrays)
+    except resultcodec.Undecodable:
+        return False, None
+
+
+def store(cache: ResultCache, key: str, analysis: str, result: Any) -> bool:
+    """Put ``result`` under ``key``; False when it cannot be encoded or the cache cannot be written."""
+    try:
+        arrays = resultcodec.to_entry(result)
+    except resultcodec.Unencodable:
+        return False
+    try:
+        cache.put(key, arrays, {"analysis": analysis, "format": _FORMAT})
+    except (OSError, ValueError, TypeError):
+        return False  # an unwritable cache only costs the next request a recomputation
+    return True
+
+
+def lookup(cache: ResultCache, key: str, analysis: str) -> tuple[bool, Any]:
+    """``(True, result)`` for a usable entry, else ``(False, None)`` (missing, stale, unreadable)."""
+    try:
+        entry = cache.get(key)
+    except (OSError, ValueError):
+        return False, None
+    if entry is None:
+        return False, None
+    return _hit(entry, analysis)
+
+
+def cached_work(run: Run, analysis: str, settings: Mapping[str, Any], work: Work[T], *,
+                cache: ResultCache | None = None, extra_paths: Sequence[str | Path] = ()) -> Work[T]:
+    """``work`` (an unstarted analysis generator of ``run``) through the result cache.
+
+    Parameters
+    ----------
+    run : Run
+        The run the analysis reads; only runs with files (``run.paths``) are cached.
+    analysis : str
+        Short name of the analysis (``"audit"``, ``"pca"``, ...), stored in the entry.
+    settings : mapping
+        Every keyword that changes the result (time window, groups, overrides, method, seeds, ...).
+        Values may be numbers, strings, arrays, paths, sequences, mappings, dataclasses or other Runs.
+    work : generator
+        The analysis itself, not yet started; on a hit it is closed without running.
+    cache : ResultCache, optional
+        Default ``ResultCache()`` (``PHASEWAKE_CACHE_DIR``, ``PHASEWAKE_NO_CACHE``).
+    extra_paths : sequence of paths
+        Other files the analysis reads (their identity joins the key).
+
+    Returns
+    -------
+    Work[T]
+        Yields Progress; returns the result (from the cache: one Progress "<analysis> (from the cache)").
+    """
+    cache = ResultCache() if cache is None else cache
+    if not run.paths or not cache.enabled:
+        return (yield from work)
+    try:
+        key = analysis_key(run, analysis, settings, extra_paths=extra_paths)
+    except (_Uncacheable, OSError):
+        return (yield from work)
+    ok, value = lookup(cache, key, analysis)
+    if ok:
+        work.close()
+        yield Progress(1, 1, f"{analysis} (from the cache)")
+        return value  # type: ignore[no-any-return]
+    result = yield from work
+    store(cache, key, analysis, result)
+    return result
+
+
+# ---------------------------------------------------------------------------------------------------
+# cached variants of the analyses users repeat (same keywords and results as the originals)
+# ---------------------------------------------------------------------------------------------------
+
+def _reference_paths(run: Run, specs: Sequence[str]) -> list[str]:
     from phasewake.core.coordinates import resolve_for_run
 
     refs = []
     for s in specs:
         r = resolve_for_run(s, run)
         if r.reference_path:
-            refs.append(file_identity(r.reference_path))
-    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
-    settings = {"format": _FORMAT, "specs": list(specs), "start": int(start), "stop": stop_,
-                "chunk_frames": chunk_frames, "mass_weighted_pca": bool(mass_weighted_pca), "fit_pca": bool(fit_pca),
-                "time_sha": _digest(np.asarray(run.time_ps, dtype=np.float64)),
-                "masses_sha": _digest(np.asarray(run.masses_amu, dtype=np.float64)),
-                "n_atoms": run.n_atoms, "references": refs}
-    return make_key(list(run.paths), "coordinates", settings)
-
-
-def _store(cache: ResultCache, key: str, series: list[CoordinateSeries]) -> None:
-    arrays: dict[str, np.ndarray] = {"time_ps": series[0].time_ps}
-    meta: list[dict[str, Any]] = []
-    for k, s in enumerate(series):
-        arrays[f"{k}/values"] = s.values
-        for name in _OPTIONAL:
-            value = getattr(s, name)
-            if value is not None:
-                arrays[f"{k}/{name}"] = value
-        meta.append({name: getattr(s, name) for name in _SCALARS})
-    try:
-        cache.put(key, {n.replace("/", "_"): v for n, v in arrays.items()},
-                  {"series": meta, "format": _FORMAT})
-    except OSError:
-        pass  # an unwritable cache only costs the next request a recomputation
-
-
-def _rebuild(entry: Any) -> list[CoordinateSeries] | None:
-    from phasewake.core.coordinates import CoordinateSeries
-
-    meta = entry.meta.get("series")
-    if entry.meta.get("format") != _FORMAT or not isinstance(meta, list):
-        return None
-    arrays = entry.arrays
-    time = arrays.get("time_ps")
-    if time is None:
-        return None
-    out = []
-    for k, m in enumerate(meta):
-        values = arrays.get(f"{k}_values")
-        if values is None:
-            return None
-        opt = {name: arrays.get(f"{k}_{name}") for name in _OPTIONAL}
-        out.append(CoordinateSeries(time_ps=time, values=values, **opt, **{n: m[n] for n in _SCALARS}))
-    return out
+            refs.append(str(r.reference_path))
+    return refs
 
 
 def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
@@ -105,18 +263,85 @@ def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | N
 
     work = compute_coordinates(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
                                mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
-    cache = ResultCache() if cache is None else cache
-    if not run.paths or not cache.enabled or run.frames is None or not specs:
+    if not run.paths or run.frames is None or not specs:
         return (yield from work)
-    key = coordinates_key(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
-                          mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
-    entry = cache.get(key)
-    if entry is not None:
-        hit = _rebuild(entry)
-        if hit is not None:
-            work.close()
-            yield Progress(1, 1, "coordinates (from the cache)")
-            return hit
-    series = yield from work
-    _store(cache, key, series)
-    return series
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    settings = {"specs": list(specs), "start": int(start), "stop": stop_, "chunk_frames": chunk_frames,
+                "mass_weighted_pca": bool(mass_weighted_pca), "fit_pca": bool(fit_pca)}
+    return (yield from cached_work(run, "coordinates", settings, work, cache=cache,
+                                   extra_paths=_reference_paths(run, specs)))
+
+
+def cached_audit(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """:func:`phasewake.core.audit.audit_run` through the result cache (same keywords and result).
+
+    Every keyword of ``audit_run`` (``n_constraints``, ``timestep_ps``, ``temperature_K``, ``groups``,
+    ``require_temperature``, ``compare`` (a Run: its own files join the key), ``compare_timestep_ps``,
+    ``chunk_frames``, ``segment_frames``, ``max_spectrum_segments``) is part of the key.
+    """
+    from phasewake.core.audit import audit_run
+
+    return (yield from cached_work(run, "audit", _with_defaults(audit_run, settings),
+                                   audit_run(run, **settings), cache=cache))
+
+
+def cached_pca(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """:func:`phasewake.core.projection.compute_pca` through the result cache (same keywords and result)."""
+    from phasewake.core.projection import compute_pca
+
+    return (yield from cached_work(run, "pca", _with_defaults(compute_pca, settings),
+                                   compute_pca(run, **settings), cache=cache))
+
+
+def cached_vacf(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """:func:`phasewake.core.velocity.vacf` through the result cache (same keywords and result)."""
+    from phasewake.core.velocity import vacf
+
+    return (yield from cached_work(run, "vacf", _with_defaults(vacf, settings), vacf(run, **settings),
+                                   cache=cache))
+
+
+def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """:func:`phasewake.core.velocity.vibrational_spectrum` through the result cache."""
+    from phasewake.core.velocity import vibrational_spectrum
+
+    return (yield from cached_work(run, "spectrum", _with_defaults(vibrational_spectrum, settings),
+                                   vibrational_spectrum(run, **settings), cache=cache))
+
+
+def cached_crossings_of_runs(runs: Run | Sequence[Run], coordinate: str, *, cache: ResultCache | None = None,
+                             **settings: Any) -> Work[Any]:
+    """:func:`phasewake.core.crossings.crossings_of_runs` through the result cache.
+
+    The key is that of the first run, with every run's fingerprint, the coordinate and every keyword.
+    """
+    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.errors import PhasewakeError
+    from phasewake.core.run import Run as _Run
+
+    all_runs = [runs] if isinstance(runs, _Run) else list(runs)
+    work = crossings_of_runs(runs, coordinate, **settings)
+    if not all_runs:
+        return (yield from work)
+    key_settings = _with_defaults(crossings_of_runs, settings)
+    key_settings.update({"coordinate": coordinate, "runs": all_runs})
+    try:
+        refs = _reference_paths(all_runs[0], [coordinate])
+    except (PhasewakeError, ValueError):  # a bad spec is reported by the analysis itself, uncached
+        return (yield from work)
+    return (yield from cached_work(all_runs[0], "crossings", key_settings, work, cache=cache, extra_paths=refs))
+
+
+def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:
+    """The keyword-only settings of ``func`` with their defaults, updated by ``given`` (all join the key)."""
+    import inspect
+
+    out: dict[str, Any] = {}
+    for name, p in inspect.signature(func).parameters.items():
+        if p.kind is inspect.Parameter.KEYWORD_ONLY:
+            out[name] = p.default
+    unknown = set(given) - set(out)
+    if unknown:
+        raise TypeError(f"{func.__name__}() got unexpected keyword(s) {sorted(unknown)}")
+    out.update(given)
+    return out
