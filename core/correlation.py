@@ -377,9 +377,48 @@ def _g_from_rho(rho: np.ndarray, method: str, c: float, n: int) -> _GEstimate:
     raise ValueError(f"method must be one of {METHODS}, not {method!r}")
 
 
+_DIRECT_LAGS = 32  # lags summed directly (no FFT) before falling back to the FFT route
+
+
+def _direct_estimate(a: np.ndarray, max_lag: int | None, method: str, c: float) -> _GEstimate | None:
+    """g of one 1D series from lag sums S(k) = sum_t d(t) d(t+k), k <= 32, by direct dot products.
+
+    Every estimator here stops at the first lag that meets its rule (Sokal's window, Geyer's first
+    non-positive pair, the first non-positive rho), so when that lag lies within the directly summed
+    lags the estimate is the one the FFT route gives with any longer lag window, up to rounding of the
+    sums (~1e-16 relative). Returns None when the rule is not met there (or is not expected to be: the
+    lag-1 correlation r gives the AR(1) guess g = (1 + r) / (1 - r), and c g must fit in the lags);
+    the caller then takes the FFT route. Short-memory series (g of a few samples, as energies sampled
+    every few hundred steps) cost K + 1 memory passes over the series instead of FFTs.
+    """
+    n = a.shape[0]
+    k_max = min(_DIRECT_LAGS, n - 1) if max_lag is None else min(_DIRECT_LAGS, n - 1, int(max_lag))
+    if k_max < 4:
+        return None
+    d = a - a.mean()
+    s0 = float(np.vecdot(d, d))
+    if not s0 > 0.0:
+        return None  # the FFT route raises the constant-series error
+    s1 = float(np.vecdot(d[:-1], d[1:]))
+    r1 = s1 / s0
+    if not r1 < 1.0 or c * (1.0 + r1) / (1.0 - r1) > k_max:
+        return None
+    s = np.empty(k_max + 1)
+    s[0] = s0
+    s[1] = s1
+    for k in range(2, k_max + 1):
+        s[k] = np.vecdot(d[:-k], d[k:])
+    est = _g_from_rho(s / s0, method, c, n)
+    return est if bool(est.converged) else None
+
+
 def _estimate(x: Any, *, method: str, c: float, max_lag: int | None, axis: int) -> tuple[_GEstimate, int]:
     a, axis = _as_float_array(x, axis)
     n = a.shape[axis]
+    if a.ndim == 1:
+        direct = _direct_estimate(a, max_lag, method, c)
+        if direct is not None:
+            return direct, n
     _s, est, _k = _sums_adaptive(a, axis, max_lag, method, c)
     return est, n
 
