@@ -159,6 +159,22 @@ class ResultCache:
                 n += p.suffix == ".h5"
         return n
 
+    def entries_by_analysis(self) -> dict[str, int]:
+        """How many entries each analysis has (from the ``analysis`` name in their meta; "other" if none)."""
+        import h5py
+
+        counts: dict[str, int] = {}
+        if not self.folder.is_dir():
+            return counts
+        for p in sorted(self.folder.glob("*.h5")):
+            try:
+                with h5py.File(p, "r") as f:
+                    name = str(json.loads(f.attrs["meta"]).get("analysis") or "other")
+            except (OSError, KeyError, ValueError, AttributeError):
+                name = "other"
+            counts[name] = counts.get(name, 0) + 1
+        return counts
+
     def info(self) -> CacheInfo:
         files = list(self.folder.glob("*.h5")) if self.folder.is_dir() else []
         return CacheInfo(folder=self.folder, entries=len(files),

@@ -29,6 +29,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core import __version__
+from phasewake.core.cache import ResultCache
+from phasewake.core.cached import cached_audit, cached_coordinates, cached_pca
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.export import (
     ExportError,
@@ -144,6 +146,7 @@ def build_report(
     max_points: int = 20_000,
     preview_folder: str | Path | None = None,
     preview_dpi: float = 60.0,
+    cache: ResultCache | None = None,
 ) -> Work[ReportResult]:
     """Analyse ``run`` and write a multi-page PDF report (and optionally an HTML one).
 
@@ -160,6 +163,8 @@ def build_report(
     max_points : largest number of frames drawn in a scatter figure (every k-th frame beyond it)
     preview_folder : also draw each page as ``page-NN.png`` here (to look at pages without a PDF viewer)
     preview_dpi : resolution of the page previews
+    cache : the result cache for the audit, the coordinate and the principal components (default: the
+        default cache, ``ResultCache()``; ``ResultCache(enabled=False)`` computes everything afresh)
 
     Returns
     -------
@@ -190,8 +195,8 @@ def build_report(
         audit_reason = "the audit module is not part of this build"
     else:
         try:
-            audit = yield from _sub(audit_mod.audit_run(run, n_constraints=n_constraints, timestep_ps=timestep_ps,
-                                                        temperature_K=temperature_K), 0, total, "audit")
+            audit = yield from _sub(cached_audit(run, n_constraints=n_constraints, timestep_ps=timestep_ps,
+                                                 temperature_K=temperature_K, cache=cache), 0, total, "audit")
             verdicts.extend(audit.verdicts)
             audit_reason = ""
         except PhasewakeError as exc:
@@ -213,7 +218,7 @@ def build_report(
                 coord_reason = "no coordinate was given and none could be suggested (use --coordinate)"
             else:
                 settings["coordinate"] = spec
-                out = yield from _sub(coords_mod.compute_coordinates(run, [spec]), 1, total, "coordinate")
+                out = yield from _sub(cached_coordinates(run, [spec], cache=cache), 1, total, "coordinate")
                 series = out[0]
         except PhasewakeError as exc:
             coord_reason = f"the coordinate could not be computed: {exc}"
@@ -284,7 +289,7 @@ def build_report(
         skip("coordinate", coord_reason)
 
     yield Progress(4.5, total, "phase-space density and principal components")
-    phase = yield from _phase_page(run, series, 4.5, total)
+    phase = yield from _phase_page(run, series, 4.5, total, cache=cache)
     if isinstance(phase, str):
         skip("phase", phase)
     else:
@@ -466,7 +471,8 @@ def _explained(page: ReportPage) -> ReportPage:
 PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
 
 
-def _phase_page(run: Run, series: Any, base: float, total: float) -> Generator[Progress, None, ReportPage | str]:
+def _phase_page(run: Run, series: Any, base: float, total: float, *,
+                cache: ResultCache | None = None) -> Generator[Progress, None, ReportPage | str]:
     """Density of the coordinate in the (q, p) plane and the principal components of the solute."""
     from phasewake.core import plots
 
@@ -496,7 +502,7 @@ def _phase_page(run: Run, series: Any, base: float, total: float) -> Generator[P
     if proj is not None and group is not None and np.asarray(group).size >= 3:  # 2 atoms: one distance, no PCA
         try:
             method = "exact" if 3 * np.asarray(group).size <= PCA_EXACT_MAX_COORDS else "randomized"
-            pca = yield from _sub(proj.compute_pca(run, atom_indices=group, n_components=3, method=method),
+            pca = yield from _sub(cached_pca(run, atom_indices=group, n_components=3, method=method, cache=cache),
                                   base, total, "principal components")
             figs.append(plots.pca_variance_figure(pca))
         except PhasewakeError as exc:

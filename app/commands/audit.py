@@ -37,6 +37,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(repeat for more groups)")
     parser.add_argument("--explain", action="store_true",
                         help="print what each check measures, how, its threshold and source, and advice")
+    parser.add_argument("--no-cache", action="store_true",
+                        help="audit afresh; neither read nor write the result cache (default: a repeated audit "
+                             "of unchanged files with the same options is read from the cache)")
 
 
 def _num(x: float | None, unit: str = "") -> str:
@@ -139,7 +142,9 @@ def parse_groups(texts: list[str] | None, topology: Any, n_atoms: int) -> dict[s
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.core.audit import audit_run, audit_summary
+    from phasewake.core.audit import audit_summary
+    from phasewake.core.cache import ResultCache
+    from phasewake.core.cached import cached_audit
     from phasewake.core.readers import open_run
     from phasewake.core.verdicts import HEURISTIC_NOTE
 
@@ -150,10 +155,11 @@ def run(args: argparse.Namespace) -> int:
             other = open_run(args.compare, topology=args.top)
     timestep_ps = None if args.timestep is None else args.timestep * 1e-3
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
-    work = audit_run(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
-                     temperature_K=args.temperature, require_temperature=args.constraints is not None,
-                     groups=groups or None, compare=other,
-                     compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3)
+    work = cached_audit(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
+                        temperature_K=args.temperature, require_temperature=args.constraints is not None,
+                        groups=groups or None, compare=other,
+                        compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3,
+                        cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
     result = run_with_progress(work, "audit")
     if args.json:
         summary = audit_summary(result)

@@ -62,6 +62,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--kappa-window", metavar="T1,T2", default=None,
                         help="lag window in ps over which the reactive-flux kappa(t) is averaged "
                              "(default: from the transition-path durations)")
+    parser.add_argument("--no-cache", action="store_true",
+                        help="compute afresh; neither read nor write the result cache")
 
 
 def _floats(text: str, n: int, what: str) -> tuple[float, ...]:
@@ -176,7 +178,8 @@ def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import quiet_stdout
-    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.cache import ResultCache
+    from phasewake.core.cached import cached_crossings_of_runs
     from phasewake.core.readers import open_run
 
     states = None if args.states is None else _floats(args.states, 2, "--states")
@@ -195,10 +198,10 @@ def run(args: argparse.Namespace) -> int:
                 runs.append(open_run([f], topology=args.top, **run_overrides(args)))
     else:
         runs = [open_run_from_args(args)]
-    work = crossings_of_runs(runs, args.coordinate, states=states,  # type: ignore[arg-type]
-                             surface=surface, confidence=args.confidence,
-                             kappa_window_ps=window,  # type: ignore[arg-type]
-                             temperature_K=args.temperature)
+    work = cached_crossings_of_runs(runs, args.coordinate, states=states, surface=surface,
+                                    confidence=args.confidence, kappa_window_ps=window,
+                                    temperature_K=args.temperature,
+                                    cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
     res = run_with_progress(work, "crossings")
     names = [r.name for r in runs]
     if args.events:

@@ -35,6 +35,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="dividing surface for the crossings page, in the coordinate's unit")
     parser.add_argument("--preview", metavar="DIR", default=None,
                         help="also draw each page as PNG into DIR (page-01.png, ...)")
+    parser.add_argument("--no-cache", action="store_true",
+                        help="compute every analysis afresh; neither read nor write the result cache")
 
 
 def _states(text: str | None) -> tuple[float, float] | None:
@@ -51,6 +53,7 @@ def _states(text: str | None) -> tuple[float, float] | None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from phasewake.core.cache import ResultCache
     from phasewake.core.errors import PhasewakeError
     from phasewake.core.report import build_report
 
@@ -68,7 +71,8 @@ def run(args: argparse.Namespace) -> int:
         build_report(run_, out, coordinate=args.coordinate, html_path=html_path,
                      temperature_K=args.temperature, n_constraints=args.constraints,
                      timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
-                     states=states, surface=args.surface, preview_folder=args.preview),
+                     states=states, surface=args.surface, preview_folder=args.preview,
+                     cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
         "report")
     if args.json:
         print_json({"path": result.path, "html_path": result.html_path, "n_pages": result.n_pages,

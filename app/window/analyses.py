@@ -232,6 +232,17 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     return series[0]
 
 
+def through_cache(run: Run, analysis: str, settings: dict[str, Any],
+                  work: Generator[Progress, None, Any]) -> Generator[Progress, None, Any]:
+    """``work`` through the on-disk result cache (``phasewake.core.cached.cached_work``): a panel shown again,
+    or the same file reopened, reads no frames. ``settings`` must hold everything that changes the result.
+    ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are never cached."""
+    cached = module_or_none("cached")
+    if cached is None:
+        return (yield from work)
+    return (yield from cached.cached_work(run, analysis, settings, work))
+
+
 def _need_coordinate(ctx: AnalysisContext) -> PanelResult | None:
     if ctx.run.frames is None:
         return PanelResult(message="This run has no frames (positions), so there is no coordinate to show.")
@@ -279,7 +290,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         return PanelResult(figures=quick.figures, message="The energy audit (phasewake.core.audit) is not in "
                                                           "this build yet: only the energy table is shown.")
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    res = yield from _relay(audit.audit_run(run), 0, 1, 1, "audit")
+    res = yield from _relay(through_cache(run, "audit", {}, audit.audit_run(run)), 0, 1, 1, "audit")
     figs = list(_plots_figures(res, run_name=run.name))
     if not figs:
         figs = _audit_figures(res, run, ctx.window_ps)
@@ -353,8 +364,10 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         return PanelResult()
     group = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
     method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
-    pca = yield from _relay(proj.compute_pca(window_run(ctx.run, ctx.start, ctx.stop), atom_indices=group,
-                                             n_components=3, method=method), 0, 1, 1, "principal components")
+    sub = window_run(ctx.run, ctx.start, ctx.stop)
+    work = through_cache(sub, "pca", {"atom_indices": group, "n_components": 3, "method": method},
+                         proj.compute_pca(sub, atom_indices=group, n_components=3, method=method))
+    pca = yield from _relay(work, 0, 1, 1, "principal components")
     traces: dict[str, Trace] = {}
     figs = _pca_figures(pca, traces)
     return PanelResult(figures=tuple(figs), traces=traces, info={"pca": pca})
@@ -423,9 +436,10 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     if vel is not None and run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
         yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
         sub = window_run(run, ctx.start, ctx.stop)
-        v = yield from _relay(vel.vacf(sub), 0, 1, 1, "VACF")
+        v = yield from _relay(through_cache(sub, "vacf", {}, vel.vacf(sub)), 0, 1, 1, "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _relay(vel.vibrational_spectrum(sub), 0, 1, 1, "vibrational spectrum")
+        d = yield from _relay(through_cache(sub, "spectrum", {}, vel.vibrational_spectrum(sub)), 0, 1, 1,
+                              "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
@@ -472,9 +486,11 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
             continue
         dt = float(np.median(np.diff(t)))
         try:
-            ra = sampling.running_average(x, dt_ps=dt, unit=unit)
-            verdicts.append(sampling.judge_rhat(sampling.rhat_segments(x), name=name))
-            verdicts.append(sampling.judge_divergence(sampling.segment_divergence(x), name=name))
+            what = {"series": key, "name": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
+                    "window_ps": ctx.window_ps}
+            ra, rh, div = yield from through_cache(run, "sampling", what, _sampling_numbers(sampling, x, dt, unit))
+            verdicts.append(sampling.judge_rhat(rh, name=name))
+            verdicts.append(sampling.judge_divergence(div, name=name))
         except PhasewakeError as exc:
             notes.append(f"{name}: {exc}")
             continue
@@ -505,6 +521,13 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
 
 
+def _sampling_numbers(sampling: Any, x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
+    """Running average, segment R-hat and segment divergence of one series (the heavy part: null draws)."""
+    yield Progress(0, 1, "running average, R-hat and divergence")
+    return (sampling.running_average(x, dt_ps=dt, unit=unit), sampling.rhat_segments(x),
+            sampling.segment_divergence(x))
+
+
 # ---- Crossings and Landscape ----------------------------------------------------------------
 
 def _given_states(ctx: AnalysisContext) -> tuple[tuple[float, float] | None, float | None]:
@@ -530,9 +553,11 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     kt_m = None
     if temp is not None and s.m_eff is not None and np.all(np.isfinite(s.m_eff)):
         kt_m = float(KB_KJ_PER_MOL_K * temp * np.mean(1.0 / np.asarray(s.m_eff, float)))
-    res = yield from _relay(cr.crossings_work([cr.as_trace(s, name=ctx.run.name)], states=states, surface=surface,
-                                              unit=s.unit, temperature_K=temp, kT_over_m_eff=kt_m), 0, 1, 1,
-                            "crossings")
+    work = cr.crossings_work([cr.as_trace(s, name=ctx.run.name)], states=states, surface=surface, unit=s.unit,
+                             temperature_K=temp, kT_over_m_eff=kt_m)
+    what = {"coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop, "name": ctx.run.name,
+            "states": states, "surface": surface, "temperature_K": temp, "kT_over_m_eff": kt_m}
+    res = yield from _relay(through_cache(ctx.run, "crossings", what, work), 0, 1, 1, "crossings")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
     figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + _plots_figures(res)

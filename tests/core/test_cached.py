@@ -159,3 +159,204 @@ def test_window_coordinate_series_uses_the_result_cache(tmp_path, cache_dir):
     second = drive(analyses.coordinate_series(run2, "distance(0, 1)", 0, 100))
     assert frames.calls == 1 and frames2.calls == 0
     _equal([second], [first])
+
+
+# ---- cached_work: any analysis (issue 9, "looking at the same run again is instant") ---------------
+
+def _same(a, b, where="root"):
+    """Deep equality for results: same classes, arrays equal with NaN in place and the same dtype."""
+    import math
+
+    assert type(a) is type(b), where
+    if isinstance(a, np.ndarray):
+        assert a.dtype == b.dtype and a.shape == b.shape, where
+        if a.dtype.names:
+            for n in a.dtype.names:
+                _same(a[n], b[n], f"{where}[{n}]")
+        else:
+            assert np.array_equal(a, b, equal_nan=a.dtype.kind in "fc"), where
+    elif dataclasses.is_dataclass(a):
+        for f in fields(a):
+            _same(getattr(a, f.name), getattr(b, f.name), f"{where}.{f.name}")
+    elif isinstance(a, dict):
+        assert list(a) == list(b), where
+        for k in a:
+            _same(a[k], b[k], f"{where}[{k!r}]")
+    elif isinstance(a, (list, tuple)):
+        assert len(a) == len(b), where
+        for i, (x, y) in enumerate(zip(a, b, strict=True)):
+            _same(x, y, f"{where}[{i}]")
+    elif isinstance(a, float) and math.isnan(a):
+        assert math.isnan(b), where
+    else:
+        assert a == b, f"{where}: {a!r} != {b!r}"
+
+
+def _entries(cache_dir):
+    return sorted(cache_dir.glob("*.h5")) if cache_dir.exists() else []
+
+
+def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, cache_dir):
+    from phasewake.core.audit import audit_run
+    from phasewake.core.cached import cached_audit
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    first = drive(cached_audit(run))
+    assert frames.calls >= 1 and len(_entries(cache_dir)) == 1
+    run2, frames2 = _counted(path)
+    messages = []
+    second = drive(cached_audit(run2), messages.append)
+    assert frames2.calls == 0
+    assert [m.message for m in messages] == ["audit (from the cache)"]
+    _same(second, first)
+    _same(second, drive(audit_run(open_run([path]))))  # the uncached computation of the same request
+    # a changed setting is another entry (and reads frames again)
+    drive(cached_audit(run2, timestep_ps=0.002))
+    drive(cached_audit(run2, groups={"dimer": [0, 1]}))
+    assert frames2.calls >= 2 and len(_entries(cache_dir)) == 3
+    # a changed run override (the window's Runs list or --timestep on open) is another entry too
+    run3, frames3 = _counted(path)
+    run3.metadata.timestep_ps = 0.003  # the file says 0.004
+    drive(cached_audit(run3))
+    assert frames3.calls >= 1 and len(_entries(cache_dir)) == 4
+
+
+def test_touching_the_input_invalidates_an_analysis(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_vacf
+
+    path = _copy(tmp_path)
+    run, _ = _counted(path)
+    drive(cached_vacf(run))
+    st = path.stat()
+    os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns + 5_000_000_000))
+    run2, frames2 = _counted(path)
+    drive(cached_vacf(run2))
+    assert frames2.calls == 1 and len(_entries(cache_dir)) == 2
+
+
+def test_pca_settings_that_change_the_result_change_the_key(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_pca
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    base = {"atom_indices": np.arange(6), "n_components": 3, "stop": 120}
+    drive(cached_pca(run, **base))
+    n = frames.calls
+    drive(cached_pca(run, **base))
+    assert frames.calls == n  # same settings: a hit
+    variants = [{"n_components": 2}, {"stop": 100}, {"start": 5}, {"mass_weighted": False}, {"fit": False},
+                {"atom_indices": np.arange(1, 7)}, {"method": "randomized", "n_iter": 2},
+                {"method": "randomized", "n_iter": 2, "seed": 1}]
+    for k, change in enumerate(variants):
+        drive(cached_pca(run, **{**base, **change}))
+        assert frames.calls > n, change
+        n = frames.calls
+        assert len(_entries(cache_dir)) == k + 2
+
+
+def test_window_runs_key_on_their_frame_range(tmp_path, cache_dir):
+    from phasewake.app.window.analyses import window_run
+    from phasewake.core.cached import cached_spectrum
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    a = drive(cached_spectrum(window_run(run, 0, 150), max_lag_ps=0.5))
+    b = drive(cached_spectrum(window_run(run, 50, 200), max_lag_ps=0.5))
+    assert frames.calls == 2 and len(_entries(cache_dir)) == 2
+    assert not np.array_equal(a.intensity, b.intensity)  # really another window
+    run2, frames2 = _counted(path)
+    again = drive(cached_spectrum(window_run(run2, 50, 200), max_lag_ps=0.5))
+    assert frames2.calls == 0
+    _same(again, b)
+
+
+def test_compare_run_joins_the_key_and_in_memory_settings_are_not_cached(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_audit
+
+    path = _copy(tmp_path)
+    big = _copy(tmp_path, "dimer_nve_bigstep.h5md")
+    run, frames = _counted(path)
+    drive(cached_audit(run, compare=open_run([big])))
+    drive(cached_audit(run, compare=open_run([big])))
+    assert len(_entries(cache_dir)) == 1
+    n = frames.calls
+    memory = dataclasses.replace(open_run([big]), paths=())  # a compare run without files: no stable key
+    drive(cached_audit(run, compare=memory))  # computed, not cached
+    assert frames.calls > n and len(_entries(cache_dir)) == 1
+
+
+def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_work
+
+    path = _copy(tmp_path)
+    blocker = tmp_path / "not-a-folder"
+    blocker.write_text("x")
+    cache = ResultCache(blocker / "cache", enabled=True)  # mkdir fails: a file is in the way
+
+    def work():
+        yield Progress(0, 1, "x")
+        return np.arange(3.0)
+
+    from phasewake.core.progress import Progress
+
+    got = drive(cached_work(open_run([path]), "test", {}, work(), cache=cache))
+    np.testing.assert_array_equal(got, np.arange(3.0))
+    # a read-only folder (effective for non-root users): a hit is still served, a miss still computed
+    ro = tmp_path / "ro"
+    ok_cache = ResultCache(ro, enabled=True)
+    drive(cached_work(open_run([path]), "test", {}, work(), cache=ok_cache))
+    ro.chmod(0o555)
+    try:
+        np.testing.assert_array_equal(drive(cached_work(open_run([path]), "test", {}, work(), cache=ok_cache)),
+                                      np.arange(3.0))
+        np.testing.assert_array_equal(drive(cached_work(open_run([path]), "test", {"k": 1}, work(),
+                                                        cache=ok_cache)), np.arange(3.0))
+    finally:
+        ro.chmod(0o755)
+
+
+def test_a_result_the_codec_cannot_store_is_simply_not_cached(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_work
+    from phasewake.core.progress import Progress
+
+    path = _copy(tmp_path)
+    marker = object()
+
+    def work():
+        yield Progress(0, 1, "x")
+        return {"thing": marker}
+
+    assert drive(cached_work(open_run([path]), "odd", {}, work()))["thing"] is marker
+    assert _entries(cache_dir) == []
+
+
+def test_two_processes_caching_the_same_analysis_leave_a_readable_entry(tmp_path, cache_dir):
+    import subprocess
+    import sys
+    import textwrap
+
+    path = _copy(tmp_path)
+    code = textwrap.dedent(
+        f"""
+        import numpy as np
+        from phasewake.core.cache import ResultCache
+        from phasewake.core.cached import cached_work
+        from phasewake.core.progress import drive, Progress
+        from phasewake.core.readers import open_run
+        from phasewake.core.verdicts import Threshold
+        cache = ResultCache({str(cache_dir)!r}, enabled=True)
+        run = open_run([{str(path)!r}])
+        def work():
+            yield Progress(0, 1, "x")
+            return (np.full(40_000, 2.5), Threshold(kind="k", caution=1.0, problem=float("nan"), unit="K",
+                                                    source="s"))
+        for i in range(12):
+            cache.clear() if i % 4 == 3 else None
+            arr, thr = drive(cached_work(run, "race", {{}}, work(), cache=cache))
+            assert arr.shape == (40_000,) and (arr == 2.5).all() and thr.kind == "k" and thr.problem != thr.problem
+        """
+    )
+    procs = [subprocess.Popen([sys.executable, "-c", code]) for _ in range(2)]
+    assert all(p.wait(timeout=120) == 0 for p in procs)
+    assert not list(cache_dir.glob(".*.part"))
