@@ -427,6 +427,7 @@ class CrossingsResult:
 # --------------------------------------------------------------------------------------------------
 
 _CHUNK = 1 << 17  # 1 MB of float64: the temporaries of one chunk stay in cache
+SCAN_THREADS: int | None = None  # threads of the scan; None: up to 2 when the series is long and cores allow
 
 
 _NONE = np.iinfo(np.int64).max  # "no such frame"
@@ -501,53 +502,98 @@ def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels:
     return out
 
 
-def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surface: float) -> _Scan:
-    """Chunked side changes and per-segment extremes, both while a chunk is in cache."""
-    n = q.shape[0]
+def _scan_part(t: np.ndarray | None, q: np.ndarray, s0: int, s1: int, surface: float
+               ) -> tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray], bool, bool]:
+    """Side changes and piece extremes of frames [s0, s1), chunk by chunk (each chunk's temporaries in cache).
+
+    Returns, per chunk, the crossings c (frames with q[c - 1], q[c] on two sides; c = s0 included when
+    s0 > 0) and the maxima and minima of the chunk's pieces between them (len(c) + 1 pieces; an empty
+    piece, when the chunk begins with a crossing, has extremes -inf and +inf); then whether every value
+    is finite and whether the times increase strictly.
+    """
     crs: list[np.ndarray] = []
-    maxs: list[np.ndarray] = []  # extremes of closed segments, in order
+    maxs: list[np.ndarray] = []
     mins: list[np.ndarray] = []
-    open_max, open_min = -math.inf, math.inf  # extremes so far of the segment still open
     finite = True
     increasing = True
-    for s in range(0, n, _CHUNK):
+    for s in range(s0, s1, _CHUNK):
+        e = min(s + _CHUNK, s1)
         lo = max(s - 1, 0)
-        x = q[lo:s + _CHUNK]
-        side = x >= surface
+        side = q[lo:e] >= surface
         d = np.flatnonzero(side[1:] != side[:-1])
-        own = q[s:s + _CHUNK]
-        if d.size:
-            c = d + (lo + 1)
-            crs.append(c)
-            loc = c - s  # local starts of the segments that begin in this chunk (all >= 0)
-            starts_here = loc if loc[0] == 0 else np.concatenate(([0], loc))
-            mx = np.maximum.reduceat(own, starts_here)
-            mn = np.minimum.reduceat(own, starts_here)
+        own = q[s:e]
+        c = d + (lo + 1)
+        loc = c - s  # local starts of the pieces after each crossing (all >= 0)
+        if loc.size and loc[0] == 0:  # the chunk begins with a crossing: its first piece is empty
+            mx = np.maximum.reduceat(own, loc)
+            mn = np.minimum.reduceat(own, loc)
             finite = finite and bool(np.isfinite(mx).all() and np.isfinite(mn).all())
-            if loc[0] != 0:  # the first piece continues the open segment
-                maxs.append(np.array([max(open_max, float(mx[0]))]))
-                mins.append(np.array([min(open_min, float(mn[0]))]))
-                mx, mn = mx[1:], mn[1:]
-            else:  # the open segment ended with the previous chunk
-                maxs.append(np.array([open_max]))
-                mins.append(np.array([open_min]))
-            maxs.append(mx[:-1])
-            mins.append(mn[:-1])
-            open_max, open_min = float(mx[-1]), float(mn[-1])
+            mx = np.concatenate(([-math.inf], mx))
+            mn = np.concatenate(([math.inf], mn))
         else:
-            hi_, lo_ = float(own.max()), float(own.min())
-            finite = finite and math.isfinite(hi_) and math.isfinite(lo_)
-            open_max, open_min = max(open_max, hi_), min(open_min, lo_)
+            st = np.concatenate(([0], loc)) if loc.size else np.zeros(1, np.int64)
+            mx = np.maximum.reduceat(own, st)
+            mn = np.minimum.reduceat(own, st)
+            finite = finite and bool(np.isfinite(mx).all() and np.isfinite(mn).all())
+        crs.append(c)
+        maxs.append(mx)
+        mins.append(mn)
         if t is not None and increasing:
-            tc = t[lo:s + _CHUNK]
+            tc = t[lo:e]
             increasing = not bool(np.any(tc[1:] <= tc[:-1]))
-    maxs.append(np.array([open_max]))
-    mins.append(np.array([open_min]))
-    cr = np.concatenate(crs) if crs else np.zeros(0, np.int64)
+    return crs, maxs, mins, finite, increasing
+
+
+def _scan_workers(n: int) -> int:
+    """Threads for the scan: numpy releases the GIL in its loops, so two parts can run on two cores.
+
+    Only when a core is idle (1-minute load average below cores - 1): on a busy machine a second thread
+    only competes for the same cores (measured: no gain at load 2-3.5 on 2 cores).
+    """
+    import os
+
+    if SCAN_THREADS is not None:
+        return max(1, int(SCAN_THREADS))
+    if n < 8 * _CHUNK:
+        return 1
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    try:
+        load = os.getloadavg()[0]
+    except OSError:
+        return 1
+    return int(max(1, min(2, math.floor(cores - load))))
+
+
+def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surface: float) -> _Scan:
+    """Chunked side changes and per-segment extremes, both while a chunk is in cache (threads over parts)."""
+    n = q.shape[0]
+    workers = _scan_workers(n)
+    bounds = sorted({0, n, *(min(n, (n * k // workers) // _CHUNK * _CHUNK) for k in range(1, workers))})
+    if len(bounds) <= 2:
+        parts = [_scan_part(t, q, 0, n, surface)]
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=len(bounds) - 1) as pool:
+            parts = list(pool.map(lambda k: _scan_part(t, q, bounds[k], bounds[k + 1], surface),
+                                  range(len(bounds) - 1)))
+    crs = [c for p in parts for c in p[0]]
+    pmax = np.concatenate([m for p in parts for m in p[1]])
+    pmin = np.concatenate([m for p in parts for m in p[2]])
+    finite = all(p[3] for p in parts)
+    increasing = all(p[4] for p in parts)
+    # Piece j of a chunk with C crossings before it belongs to segment C + j; the segments' extremes
+    # are the extremes of their pieces (pieces are in order, each segment has at least one).
+    per_chunk = np.array([c.size for c in crs], np.int64)
+    before = np.concatenate(([0], np.cumsum(per_chunk)[:-1]))
+    seg_of_piece = np.repeat(before, per_chunk + 1) + (
+        np.arange(pmax.size) - np.repeat(np.concatenate(([0], np.cumsum(per_chunk + 1)[:-1])), per_chunk + 1))
+    first_piece = np.flatnonzero(np.concatenate(([True], seg_of_piece[1:] != seg_of_piece[:-1])))
+    seg_max = np.maximum.reduceat(pmax, first_piece)
+    seg_min = np.minimum.reduceat(pmin, first_piece)
+    cr = np.concatenate(crs).astype(np.int64) if crs else np.zeros(0, np.int64)
     starts = np.concatenate(([0], cr)).astype(np.int64)
     ends = np.concatenate((cr, [n])).astype(np.int64)
-    seg_max = np.concatenate(maxs)
-    seg_min = np.concatenate(mins)
     first = int(q[0] >= surface)
     seg_side = ((np.arange(starts.size) + first) % 2).astype(np.int8)  # 1: above the surface (B side)
     touched = np.where(seg_side == 1, seg_max >= b_lo, seg_min <= a_hi)
@@ -661,15 +707,22 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
     t_entry, _ = _interp_time(t, q, entry_frame - 1, level_entry)
     cs = sc.crossings
 
-    # Surface crossings: between frames i0 and i0 + 1.
+    # Surface crossings: between frames i0 and i0 + 1. Each of q and t is gathered once at i0 and i0 + 1
+    # (scattered reads from a long series cost a cache miss each).
     i0 = cs - 1
-    t_c, f_c = _interp_time(t, q, i0, surface)
-    direction = np.where(q[i0 + 1] > q[i0], 1, -1).astype(np.int8)
+    q0, q1 = q[i0], q[i0 + 1]
+    t0, t1 = t[i0], t[i0 + 1]
+    dq = q1 - q0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        f_c = np.clip(np.where(dq != 0, (surface - q0) / dq, 0.0), 0.0, 1.0)  # as _interp_time
+    t_c = t0 + f_c * (t1 - t0)
+    direction = np.where(q1 > q0, 1, -1).astype(np.int8)
     if tr.velocity is not None:
         v = tr.velocity
-        vel = v[i0] + f_c * (v[i0 + 1] - v[i0])
+        v0 = v[i0]
+        vel = v0 + f_c * (v[i0 + 1] - v0)
     else:
-        vel = (q[i0 + 1] - q[i0]) / (t[i0 + 1] - t[i0])
+        vel = dq / (t1 - t0)
     n_c = int(i0.size)
     k_prev = np.searchsorted(starts, i0, side="right") - 1
     from_lab = np.where(k_prev >= 0, labels[np.maximum(k_prev, 0)] if n_runs else -1, -1)
@@ -688,7 +741,7 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
     kind_code[ended | (from_lab < 0)] = 2
     # A periodic coordinate (a dihedral) jumping across its period boundary changes side without
     # crossing q*: such wraps cut segments (above) but are not crossing events.
-    wrap = (np.abs(q[i0 + 1] - q[i0]) > 0.5 * tr.period) if tr.period else np.zeros(n_c, bool)
+    wrap = (np.abs(dq) > 0.5 * tr.period) if tr.period else np.zeros(n_c, bool)
     n_wraps = int(np.count_nonzero(wrap))
     if n_wraps:
         keep = ~wrap
@@ -852,7 +905,10 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
     from phasewake.core.landscape import free_energy_profile
 
     q = np.asarray(q, dtype=float).ravel()
-    q = q[np.isfinite(q)]
+    fin = np.isfinite(q)
+    if not fin.all():  # no full-length copy when every value is finite
+        q = q[fin]
+    del fin
     if q.size < 50:
         raise TooShortError("suggesting states from a free-energy profile", have=int(q.size), need=50)
     if not float(q.max()) > float(q.min()):
@@ -992,7 +1048,7 @@ def crossings_work(
     yield Progress(0, total, "crossings: checking states")
     suggestion: StateSuggestion | None = None
     if states is None:
-        pooled = np.concatenate([tr.values for tr in trs])
+        pooled = trs[0].values if len(trs) == 1 else np.concatenate([tr.values for tr in trs])
         suggestion = suggest_states(pooled, unit=unit, temperature_K=temperature_K)
         del pooled
         a_hi, b_lo = suggestion.a_hi, suggestion.b_lo
@@ -1048,14 +1104,15 @@ def crossings_work(
         warnings.append(f"{n_wraps} jumps across the period of the coordinate were not counted as crossings "
                         "of the dividing surface; transitions over the other barrier have a path but no "
                         "transition event")
-    events = np.concatenate([r.events for r in reps])
-    events["index"] = np.arange(events.shape[0])
     offsets = np.cumsum([0] + [r.paths.shape[0] for r in reps])
     for k, r in enumerate(reps):
-        r.events["path"][r.events["path"] >= 0] += offsets[k]
-    events["path"] = np.concatenate([r.events["path"] for r in reps])
-    paths = np.concatenate([r.paths for r in reps])
-    dwells = np.concatenate([r.dwells for r in reps])
+        if offsets[k]:
+            r.events["path"][r.events["path"] >= 0] += offsets[k]
+    # the tables of one replica are its own (private) arrays: no copy
+    events = reps[0].events if len(reps) == 1 else np.concatenate([r.events for r in reps])
+    events["index"] = np.arange(events.shape[0])
+    paths = reps[0].paths if len(reps) == 1 else np.concatenate([r.paths for r in reps])
+    dwells = reps[0].dwells if len(reps) == 1 else np.concatenate([r.dwells for r in reps])
     with_vel = [tr.velocity is not None for tr in trs]
     if all(with_vel):
         vsource = "stored velocities (dq/dt from the run), linearly interpolated to the crossing"
