@@ -21,6 +21,7 @@ import numpy as np
 from phasewake.core import energy as en
 from phasewake.core import temperature as tm
 from phasewake.core import timestep as ts
+from phasewake.core.correlation import one_blas_thread
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import iter_frame_chunks
@@ -255,29 +256,6 @@ def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want
     )
 
 
-_BLAS: list[Any] = []  # a threadpoolctl controller, made on first use
-
-
-def _one_blas_thread() -> Any:
-    """A context in which BLAS uses one thread (threadpoolctl; no change without it).
-
-    The frame pass issues a few skinny matrix products per chunk; on this shared 2-core machine two
-    BLAS threads made the whole audit of 20k atoms x 2200 frames 1.5-1.7 s instead of 0.9 s. Entered
-    per chunk, never across a yield, so the caller's own BLAS use is untouched.
-    """
-    import contextlib
-
-    if not _BLAS:
-        try:
-            from threadpoolctl import ThreadpoolController
-        except ImportError:
-            _BLAS.append(None)
-        else:
-            _BLAS.append(ThreadpoolController())
-    ctrl = _BLAS[0]
-    return contextlib.nullcontext() if ctrl is None else ctrl.limit(limits=1, user_api="blas")
-
-
 def _consume(chunks: Any, *, pos: int, kin: np.ndarray, com: np.ndarray, gk: np.ndarray, times: np.ndarray,
              m: np.ndarray, member: np.ndarray, names: list[str], rigid: tm.RigidPairAccumulator | None,
              spec: ts.VelocitySpectrumAccumulator | None, speed_atoms: dict[str, np.ndarray],
@@ -300,7 +278,7 @@ def _consume(chunks: Any, *, pos: int, kin: np.ndarray, com: np.ndarray, gk: np.
         m3[c::3, c] = m32
     bufs: dict[str, np.ndarray] = {}  # reused between chunks (fresh pages are slow to touch)
     for chunk in chunks:
-        with _one_blas_thread():
+        with one_blas_thread():
             _chunk_sums(chunk, pos=pos, kin=kin, com=com, gk=gk, times=times, m_total=m_total, w3=w3, m3=m3,
                         bufs=bufs, names=names, rigid=rigid, spec=spec, speed_atoms=speed_atoms,
                         speed_store=speed_store, stride=stride, path=path)
