@@ -1,0 +1,138 @@
+"""The result cache from the command line (issue 9): `audit`, `crossings` and `report` run twice on an
+unchanged file read the frames once and print the same thing; `--no-cache` neither reads nor writes it;
+`phasewake cache` counts the entries by analysis.
+
+The reference for "the same thing" is the first (computed) run's own output; the numbers themselves are
+checked against outside references in test_audit_cli.py, test_crossings_cli.py and the core tests.
+"""
+
+import json
+import shutil
+from pathlib import Path
+
+import pytest
+
+from phasewake.app.cli import main
+from phasewake.core.readers import h5md
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
+
+
+@pytest.fixture
+def cache_dir(tmp_path, monkeypatch):
+    d = tmp_path / "cache"
+    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
+    monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
+    return d
+
+
+@pytest.fixture
+def reads(monkeypatch):
+    """Count the H5MD reader's chunk iterations (every analysis of frames goes through it)."""
+    count = {"n": 0}
+    original = h5md.H5MDFrames.iter_chunks
+
+    def counting(self, **kw):
+        count["n"] += 1
+        yield from original(self, **kw)
+
+    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
+    return count
+
+
+def _copy(tmp_path, name):
+    data = tmp_path / "data"
+    data.mkdir(exist_ok=True)
+    shutil.copyfile(SAMPLES / name, data / name)
+    return data / name
+
+
+def _cache_json(capsys):
+    capsys.readouterr()
+    assert main(["cache", "--json"]) == 0
+    return json.loads(capsys.readouterr().out)
+
+
+def test_audit_twice_second_run_is_from_the_cache(tmp_path, cache_dir, reads, capsys):
+    path = _copy(tmp_path, "dimer_nve.h5md")
+    argv = ["audit", str(path), "--json", "--group", "dimer=0,1"]
+    code1 = main(argv)
+    out1 = capsys.readouterr().out
+    n1 = reads["n"]
+    assert n1 >= 1
+    info = _cache_json(capsys)
+    assert info["entries"] == 1 and info["by_analysis"] == {"audit": 1}
+    code2 = main(argv)
+    out2 = capsys.readouterr().out
+    assert reads["n"] == n1  # no frames read the second time
+    assert code2 == code1 and out2 == out1 and json.loads(out1)
+    # another option is another entry
+    main(["audit", str(path), "--json", "--timestep", "2"])
+    capsys.readouterr()
+    assert reads["n"] > n1
+    assert _cache_json(capsys)["by_analysis"] == {"audit": 2}
+
+
+def test_cache_command_summary_line(tmp_path, cache_dir, capsys):
+    path = _copy(tmp_path, "dimer_nve.h5md")
+    main(["audit", str(path), "--json"])
+    main(["coords", str(path), "-c", "distance(0, 1)", "-o", str(tmp_path / "q.csv")])
+    capsys.readouterr()
+    assert main(["cache"]) == 0
+    out = capsys.readouterr().out
+    assert "2 entries" in out and "(audit 1, coordinates 1)" in out, out
+    assert main(["cache", "--clear"]) == 0
+    assert "removed 2" in capsys.readouterr().out
+    assert _cache_json(capsys)["entries"] == 0
+
+
+def test_audit_no_cache_writes_nothing_and_reads_nothing(tmp_path, cache_dir, reads, capsys):
+    path = _copy(tmp_path, "dimer_nve.h5md")
+    assert main(["audit", str(path), "--json", "--no-cache"]) in (0, 1)
+    assert not cache_dir.exists() or not list(cache_dir.glob("*.h5"))
+    out_plain = capsys.readouterr().out
+    main(["audit", str(path), "--json"])  # fills the cache
+    capsys.readouterr()
+    n = reads["n"]
+    main(["audit", str(path), "--json", "--no-cache"])  # must compute again, not read the entry
+    assert reads["n"] > n
+    assert capsys.readouterr().out == out_plain
+    assert _cache_json(capsys)["entries"] == 1
+
+
+def test_crossings_twice_and_no_cache(tmp_path, cache_dir, reads, capsys):
+    path = _copy(tmp_path, "dimer_langevin.h5md")
+    argv = ["crossings", str(path), "-c", "distance(0, 1)", "--json"]
+    code1 = main(argv)
+    out1 = capsys.readouterr().out
+    n1 = reads["n"]
+    assert json.loads(out1)["n_transitions"] >= 1
+    assert main(argv) == code1
+    assert capsys.readouterr().out == out1 and reads["n"] == n1
+    assert _cache_json(capsys)["by_analysis"] == {"crossings": 1}
+    main(argv + ["--states", "0.42,0.53"])  # another setting: computed
+    assert reads["n"] > n1
+    capsys.readouterr()
+    shutil.rmtree(cache_dir)
+    assert main(argv + ["--no-cache"]) == code1
+    assert capsys.readouterr().out == out1 and not cache_dir.exists()
+
+
+@pytest.mark.slow
+def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys):
+    path = _copy(tmp_path, "dimer_nve.h5md")
+    out = tmp_path / "out"
+    out.mkdir()
+    argv = ["report", str(path), "--coordinate", "distance(0, 1)", "--json"]
+    assert main(argv + ["-o", str(out / "a.pdf")]) == 0
+    first = json.loads(capsys.readouterr().out)
+    n1 = reads["n"]
+    by = _cache_json(capsys)["by_analysis"]
+    assert by.get("audit") == 1 and by.get("coordinates") == 1, by
+    assert main(argv + ["-o", str(out / "b.pdf")]) == 0
+    second = json.loads(capsys.readouterr().out)
+    assert reads["n"] == n1
+    for k in ("n_pages", "sections", "skipped", "verdict_levels", "settings"):
+        assert second[k] == first[k], k
+    assert main(argv + ["-o", str(out / "c.pdf"), "--no-cache"]) == 0
+    assert reads["n"] > n1
