@@ -421,8 +421,24 @@ def audit_run(
 
     # ---- energy table: which series -------------------------------------------------------------
     conserved: en.ConservedSeries | None = None
+    scan: en.TableScan | None = None  # one blocked pass over the table's columns, when all are finite
+    sampling: tuple[en.SeriesSampling, ...] = ()
     if table is not None:
         conserved = en.select_conserved(table, thermostatted=thermostatted)
+        scan = en.scan_energy_table(conserved.time_ps, conserved.values_kJ_per_mol, table)
+        sampling = en.series_sampling(table, scan=scan)
+        if not scan.finite:
+            scan = None
+
+    def table_stats(name: str) -> tuple[float, float, float] | None:
+        """Mean, population std and g of a table series from the scan (None: take the masked route)."""
+        key = en._SERIES + name
+        if scan is None or key not in scan.names:
+            return None
+        g = next((x.statistical_inefficiency for x in sampling if x.name == name), None)
+        if g is None:
+            return None
+        return float(scan.mean[scan.index(key)]), scan.std(key), g
 
     # ---- constraints and centre of mass ---------------------------------------------------------
     user_groups = {k: np.asarray(v, dtype=np.int64) for k, v in (groups or {}).items()}
@@ -492,16 +508,27 @@ def audit_run(
             assert fp is not None and t_vel is not None
             t_series, t_time = t_vel, fp.time_ps
             ksrc = "velocities (1/2 m v^2 summed over atoms)"
-        fin = np.isfinite(t_series)
-        ts_f = t_series[fin]
-        g_T, _ = en.statistical_inefficiency_of(ts_f)
-        mean_T = float(ts_f.mean()) if ts_f.size else math.nan
-        std_T = float(ts_f.std()) if ts_f.size else math.nan
-        err_T = std_T * math.sqrt(g_T / max(ts_f.size, 1))
+        k_stats = table_stats(file_kin.name) if t_filek is not None and file_kin is not None else None
+        if k_stats is not None:
+            # T = f K with f = 2 / (N_dof k_B): mean, spread and g follow from the kinetic energy's
+            f_T = float(tm.kinetic_temperature(1.0, n_dof))
+            mean_T, std_T, g_T = f_T * k_stats[0], f_T * k_stats[1], k_stats[2]
+            n_T = int(t_series.size)
+        else:
+            fin = np.isfinite(t_series)
+            ts_f = t_series[fin]
+            g_T, _ = en.statistical_inefficiency_of(ts_f)
+            mean_T = float(ts_f.mean()) if ts_f.size else math.nan
+            std_T = float(ts_f.std()) if ts_f.size else math.nan
+            n_T = int(ts_f.size)
+        err_T = std_T * math.sqrt(g_T / max(n_T, 1))
         mismatch = implied = fT_mean = None
         if file_T is not None and table is not None:
             fvals = np.asarray(file_T.values, dtype=np.float64)
-            if t_filek is not None:
+            ft_stats = table_stats(file_T.name)
+            if t_filek is not None and k_stats is not None and ft_stats is not None:
+                ours, theirs = np.array([mean_T]), np.array([ft_stats[0]])  # every row finite: the means
+            elif t_filek is not None:
                 ok = np.isfinite(fvals) & np.isfinite(t_filek)
                 ours, theirs = t_filek[ok], fvals[ok]
             else:
@@ -539,7 +566,8 @@ def audit_run(
             cnote = "applied on decorrelated samples (every g-th frame)"
             if kin_for_test is not None:
                 kf = kin_for_test[np.isfinite(kin_for_test)]
-                gk_, _ = en.statistical_inefficiency_of(kf)
+                gk_ = k_stats[2] if (k_stats is not None and file_kin is not None) else \
+                    en.statistical_inefficiency_of(kf)[0]
                 sample = kf[tm.thin_indices(kf.size, gk_)]
                 if sample.size >= 20:
                     kdist = tm.kinetic_energy_distribution_check(sample, n_dof, target_T)
@@ -569,7 +597,8 @@ def audit_run(
             n_com_removed=n_com, com_source=com_src, kinetic_source=ksrc, mean_K=mean_T, std_K=std_T,
             error_K=err_T, statistical_inefficiency=g_T,
             mean_from_velocities_K=None if t_vel is None else float(np.mean(t_vel)),
-            mean_from_file_kinetic_K=None if t_filek is None else float(np.nanmean(t_filek)),
+            mean_from_file_kinetic_K=None if t_filek is None else (mean_T if k_stats is not None
+                                                                   else float(np.nanmean(t_filek))),
             file_temperature_mean_K=fT_mean, file_mismatch_relative=mismatch, implied_file_dof=implied,
             velocities_estimated=bool(run.frames is not None and run.frames.velocities_estimated),
             constraint_inference=inference, groups=gtemps, kinetic_distribution=kdist, maxwell=tuple(maxw),
@@ -582,12 +611,18 @@ def audit_run(
     dof_for_drift = n_dof
     if n_dof is None and file_kin is not None and file_T is not None:
         # energy table only: the file's own kinetic energy and temperature give the N_dof it used
-        kv = np.asarray(file_kin.values, dtype=np.float64)
-        tv = np.asarray(file_T.values, dtype=np.float64)
-        ok = np.isfinite(kv) & np.isfinite(tv)
-        if ok.any() and float(tv[ok].mean()) > 0:
-            dof_for_drift = int(round(2.0 * float(kv[ok].mean()) / (en.boltzmann_kJ_per_mol_K() * float(tv[ok].mean()))))
-            kT_ref = kT_ref if kT_ref is not None else float(tv[ok].mean())
+        ks, tst = table_stats(file_kin.name), table_stats(file_T.name)
+        if ks is not None and tst is not None:  # every row finite: the scan's means
+            k_mean, t_mean = ks[0], tst[0]
+        else:
+            kv = np.asarray(file_kin.values, dtype=np.float64)
+            tv = np.asarray(file_T.values, dtype=np.float64)
+            ok = np.isfinite(kv) & np.isfinite(tv)
+            k_mean = float(kv[ok].mean()) if ok.any() else math.nan
+            t_mean = float(tv[ok].mean()) if ok.any() else math.nan
+        if t_mean > 0:
+            dof_for_drift = int(round(2.0 * k_mean / (en.boltzmann_kJ_per_mol_K() * t_mean)))
+            kT_ref = kT_ref if kT_ref is not None else t_mean
             notes.append(f"No atoms in the files: N_dof = {dof_for_drift} for the per-DOF drift comes from the "
                          "file's kinetic energy and temperature (2 <K> / (k_B <T>)).")
 
@@ -596,34 +631,40 @@ def audit_run(
     if conserved is not None:
         t = conserved.time_ps
         e = conserved.values_kJ_per_mol
-        events = en.find_energy_events(t, e, jump_robust_sigma=THRESHOLDS["energy.jumps"].caution)
-        good = np.isfinite(e) & np.isfinite(t)
+        events = en.find_energy_events(t, e, jump_robust_sigma=THRESHOLDS["energy.jumps"].caution, scan=scan)
         kin = conserved.kinetic_kJ_per_mol
         ksrc_e: str | None = None
         if kin is not None:
-            good &= np.isfinite(kin)
             ksrc_e = f"file column '{conserved.kinetic_column}'"
         drift = fl = None
-        n_good = int(good.sum())
-        if n_good == good.size:  # no copies of long series in the usual case
+        if scan is not None:  # every row finite (the scan says so): no masks, no copies
+            n_good = int(e.size)
             tg, eg, kg = t, e, kin
         else:
-            tg, eg, kg = t[good], e[good], None if kin is None else kin[good]
+            good = np.isfinite(e) & np.isfinite(t)
+            if kin is not None:
+                good &= np.isfinite(kin)
+            n_good = int(good.sum())
+            if n_good == good.size:
+                tg, eg, kg = t, e, kin
+            else:
+                tg, eg, kg = t[good], e[good], None if kin is None else kin[good]
         if n_good >= 3:
             drift = en.drift_fit(tg, eg, n_atoms=run.n_atoms or None, n_dof=dof_for_drift or None,
-                                 temperature_K=kT_ref)
+                                 temperature_K=kT_ref, scan=scan)
             kin_used = kg
             if kin_used is None and fp is not None:
                 fi, ti = _align(fp.time_ps, tg)
                 if fi.size == n_good:
                     kin_used = fp.kinetic[fi[np.argsort(ti)]]
                     ksrc_e = "velocities (frames matched to energy rows by time)"
-            fl = en.energy_fluctuations(tg, eg, kin_used)
+            kcol = (en._SERIES + conserved.kinetic_column
+                    if kin_used is kg and kg is not None and conserved.kinetic_column is not None else None)
+            fl = en.energy_fluctuations(tg, eg, kin_used, scan=scan, kinetic_column=kcol)
         eaudit = EnergyAudit(series_label=conserved.label, series_columns=conserved.columns,
                              expected_conserved=conserved.expected_conserved, reason=conserved.reason,
                              kinetic_source=ksrc_e, drift=drift, fluctuations=fl, events=events,
-                             sampling=en.series_sampling(table) if table is not None else (),
-                             time_ps=t, values_kJ_per_mol=e)
+                             sampling=sampling, time_ps=t, values_kJ_per_mol=e)
 
     # ---- time step ------------------------------------------------------------------------------
     dt = timestep_ps if timestep_ps is not None else md.timestep_ps

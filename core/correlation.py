@@ -436,10 +436,15 @@ def _direct_sums_estimate(a: np.ndarray, k_max: int, method: str, c: float) -> _
     s = np.empty(k_max + 1)
     s[0] = s0
     s[1] = s1
-    for k in range(2, k_max + 1):
-        s[k] = np.vecdot(d[:-k], d[k:])
-    est = _g_from_rho(s / s0, method, c, n)
-    return est if bool(est.converged) else None
+    done = 1
+    for k_now in (min(8, k_max), k_max):  # most short-memory series meet the rule within 8 lags
+        for k in range(done + 1, k_now + 1):
+            s[k] = np.vecdot(d[:-k], d[k:])
+        done = k_now
+        est = _g_from_rho(s[: k_now + 1] / s0, method, c, n)
+        if bool(est.converged):
+            return est
+    return None
 
 
 def _estimate(x: Any, *, method: str, c: float, max_lag: int | None, axis: int) -> tuple[_GEstimate, int]:

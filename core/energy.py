@@ -204,7 +204,7 @@ def _windowed_g(piece: Callable[[int, int], np.ndarray], n: int, *, n_windows: i
 
 
 def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABOVE, n_windows: int = N_WINDOWS,
-                                window: int = WINDOW) -> tuple[float, str]:
+                                window: int = WINDOW, value_range: float | None = None) -> tuple[float, str]:
     """Statistical inefficiency g (>= 1) of a series and the name of the estimator used.
 
     Uses ``phasewake.core.correlation.statistical_inefficiency`` when that module exists, else a
@@ -216,6 +216,8 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABO
     Parameters
     ----------
     x : ndarray, shape (n,)
+    value_range : float, optional
+        max(x) - min(x) when the caller knows it (saves a pass).
 
     Returns
     -------
@@ -224,7 +226,7 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABO
     """
     arr = np.asarray(x, dtype=np.float64)
     n = int(arr.shape[0])
-    if n < 4 or not float(np.ptp(arr)) > 0.0:
+    if n < 4 or not (float(np.ptp(arr)) if value_range is None else value_range) > 0.0:
         return 1.0, "constant or very short series (g = 1)"
     if n > window_above:
         got = _windowed_g(lambda a, b: arr[a:b], n, n_windows=n_windows, window=window)
@@ -324,6 +326,157 @@ def select_conserved(table: EnergyTable, *, thermostatted: bool) -> ConservedSer
 
 
 # ---------------------------------------------------------------------------------------------------
+# One blocked pass over the columns of a table (issue 9)
+# ---------------------------------------------------------------------------------------------------
+
+SCAN_BLOCK = 1 << 16  # rows per block: a few columns of a block stay in cache while they are summed
+
+
+@dataclass(frozen=True)
+class DiffScan:
+    """Frame-to-frame differences d_i = x_(i+1) - x_i of one column, as seen by the pass.
+
+    ``block_min`` / ``block_max`` (n_blocks,) bound the differences of each block of rows (block b covers
+    d indices max(b B - 1, 0) .. (b + 1) B - 2), so only blocks that can hold an event are looked at
+    again; ``sample`` is d[::stride] (the even subsample the robust medians use).
+    """
+
+    block_min: np.ndarray
+    block_max: np.ndarray
+    sample: np.ndarray
+    stride: int
+
+
+@dataclass(frozen=True)
+class TableScan:
+    """Moments of equally long float64 columns from one blocked pass (:func:`scan_columns`).
+
+    ``mean``, ``m2`` (centred sums of squares), ``minimum``, ``maximum``: shape (C,), in the columns'
+    units (squared for ``m2``); ``cross`` maps the pairs asked for to their centred cross sums
+    sum_i (x_i - mean_x)(y_i - mean_y). ``finite`` is False when any value is NaN or infinite: then
+    the moments are not usable and the callers take their masked routes.
+    """
+
+    n_rows: int
+    names: tuple[str, ...]
+    mean: np.ndarray
+    m2: np.ndarray
+    minimum: np.ndarray
+    maximum: np.ndarray
+    cross: dict[tuple[str, str], float]
+    finite: bool
+    diffs: dict[str, DiffScan]
+    block_rows: int
+
+    def index(self, name: str) -> int:
+        return self.names.index(name)
+
+    def std(self, name: str) -> float:
+        """Population standard deviation of a column."""
+        return math.sqrt(max(float(self.m2[self.index(name)]), 0.0) / self.n_rows)
+
+
+def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
+                 cross: tuple[tuple[str, str], ...] = (), no_extremes: tuple[str, ...] = (),
+                 robust_sample: int = 1 << 20, block: int = SCAN_BLOCK) -> TableScan:
+    """Means, extremes, centred sums of squares and cross sums of columns, and difference bounds, in one pass.
+
+    Per block of rows (in cache) every column is shifted by a reference value (the mean of an even
+    subsample, so the shifted sums do not cancel) and its sum and sum of squares taken; the cross sums
+    of the pairs in ``cross`` likewise. Centred sums follow as S_xy - n m_x m_y of the shifted means
+    m (Chan, Golub and LeVeque 1983: with the shift within a few standard deviations of the mean the
+    error is that of the two-pass sums). The differences of the columns in ``diffs`` are made per
+    block too. Dot products run with one BLAS thread.
+
+    Parameters
+    ----------
+    columns : dict name -> ndarray, shape (n,), float64
+    diffs : names of columns whose differences are scanned
+    cross : pairs of names whose centred cross sums are wanted
+    no_extremes : names of columns whose minimum and maximum are not needed (reported as NaN)
+    robust_sample : int
+        The difference subsample holds at most this many values, every ceil((n - 1) / robust_sample)-th.
+    block : int
+        Rows per block.
+    """
+    from phasewake.core.correlation import one_blas_thread
+
+    names = tuple(columns)
+    cols = [np.asarray(columns[k], dtype=np.float64) for k in names]
+    n = int(cols[0].shape[0]) if cols else 0
+    c = len(cols)
+    if any(x.shape != (n,) for x in cols):
+        raise AnalysisError("the columns of one scan must be 1D and equally long")
+    stride_sub = max(1, n // 1024)
+    shift = np.array([float(np.mean(x[::stride_sub])) if n else 0.0 for x in cols])
+    if not np.all(np.isfinite(shift)):
+        shift = np.zeros(c)  # a non-finite value in the subsample: the pass reports it below
+    pairs = [(names.index(a), names.index(b)) for a, b in cross]
+    extremes = [k not in no_extremes for k in names]
+    nd = max(n - 1, 0)
+    dstride = int(math.ceil(nd / robust_sample)) if nd > robust_sample else 1
+    n_blocks = -(-n // block) if n else 0
+    dsc = {k: (np.full(n_blocks, np.inf), np.full(n_blocks, -np.inf), np.empty(-(-nd // dstride) if nd else 0))
+           for k in diffs}
+    sums = np.zeros(c)
+    sq = np.zeros(c)
+    xy = np.zeros(len(pairs))
+    lo = np.full(c, np.inf)
+    hi = np.full(c, -np.inf)
+    width = min(block, max(n, 1))
+    buf = np.empty((c, width))
+    dbuf = np.empty(width)
+    with one_blas_thread():
+        for b in range(n_blocks):
+            a0, a1 = b * block, min(n, (b + 1) * block)
+            m = a1 - a0
+            for j, col in enumerate(cols):
+                raw = col[a0:a1]
+                if extremes[j]:
+                    lo[j] = min(lo[j], raw.min())
+                    hi[j] = max(hi[j], raw.max())
+                x = np.subtract(raw, shift[j], out=buf[j, :m])
+                sums[j] += x.sum()
+                sq[j] += np.vecdot(x, x)
+            for q, (ja, jb) in enumerate(pairs):
+                xy[q] += np.vecdot(buf[ja, :m], buf[jb, :m])
+            for k in diffs:
+                col = cols[names.index(k)]
+                d0 = max(a0 - 1, 0)
+                if a1 - d0 < 2:
+                    continue
+                d = np.subtract(col[d0 + 1:a1], col[d0:a1 - 1], out=dbuf[:a1 - d0 - 1])
+                bmin, bmax, sub = dsc[k]
+                bmin[b] = d.min()
+                bmax[b] = d.max()
+                first = -(-d0 // dstride) * dstride
+                if first < d0 + d.size:
+                    got = d[first - d0 :: dstride]
+                    sub[first // dstride : first // dstride + got.size] = got
+    ext = np.array(extremes, dtype=bool)
+    finite = bool(np.all(np.isfinite(sums)) and np.all(np.isfinite(sq)) and np.all(np.isfinite(lo[ext]))
+                  and np.all(np.isfinite(hi[ext])))
+    lo[~ext] = np.nan
+    hi[~ext] = np.nan
+    mu = sums / n if n else sums
+    return TableScan(n_rows=n, names=names, mean=shift + mu, m2=sq - n * mu * mu, minimum=lo, maximum=hi,
+                     cross={cross[q]: float(xy[q] - n * mu[ja] * mu[jb]) for q, (ja, jb) in enumerate(pairs)},
+                     finite=finite, diffs={k: DiffScan(v[0], v[1], v[2], dstride) for k, v in dsc.items()},
+                     block_rows=block)
+
+
+def fast_median(x: np.ndarray) -> float:
+    """np.median of a finite 1D array by one partition (np.median partitions at two ranks plus a NaN check)."""
+    a = np.asarray(x, dtype=np.float64)
+    n = a.size
+    h = n // 2
+    part = np.partition(a, h)
+    if n % 2:
+        return float(part[h])
+    return float((part[:h].max() + part[h]) / 2.0)
+
+
+# ---------------------------------------------------------------------------------------------------
 # Drift
 # ---------------------------------------------------------------------------------------------------
 
@@ -360,6 +513,7 @@ def drift_fit(
     n_dof: int | None = None,
     temperature_K: float | None = None,
     significance_z: float = 3.0,
+    scan: TableScan | None = None,
 ) -> DriftResult:
     """Fit E(t) = E0 + s t by ordinary least squares; error bar corrected for correlated residuals.
 
@@ -377,13 +531,15 @@ def drift_fit(
         For the drift in kT per DOF per ns (needs ``n_dof`` too).
     significance_z : float
         |slope| / error above which the drift is called significant.
+    scan : TableScan, optional
+        A finite scan of these arrays (:func:`scan_energy_table`), so the sums are not made again.
     """
     t = np.asarray(time_ps, dtype=np.float64)
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
     n = int(e.shape[0])
     if n < 3:
         raise TooShortError("an energy drift fit", have=n, need=3)
-    fit = _line_fit(t, e)
+    fit = _line_fit(t, e, scan)
     if not fit.sxx > 0.0:
         raise TooShortError("an energy drift fit over distinct times", have=1, need=2)
     slope = fit.slope  # kJ/mol/ps
@@ -458,7 +614,7 @@ class _LineFit:
         return r
 
 
-_FIT_BLOCK = 1 << 16  # rows per block of the centred sums: the temporaries stay in cache
+_FIT_BLOCK = 1 << 16  # rows per block of the exact residual sums
 
 
 def _dot(a: np.ndarray, b: np.ndarray) -> float:
@@ -468,41 +624,45 @@ def _dot(a: np.ndarray, b: np.ndarray) -> float:
     return float(np.einsum("i,i->", a, b))
 
 
-def _line_fit(t: np.ndarray, y: np.ndarray) -> _LineFit:
-    """Least-squares line by centred sums, in blocks of rows (no full-length temporaries)."""
-    tmean = float(np.mean(t))
-    ymean = float(np.mean(y))
-    n = t.shape[0]
-    sxx = sxy = 0.0
-    for a in range(0, n, _FIT_BLOCK):
-        tc = t[a:a + _FIT_BLOCK] - tmean
-        yc = y[a:a + _FIT_BLOCK] - ymean
-        sxx += _dot(tc, tc)
-        sxy += _dot(tc, yc)
+_T, _Y = "@time", "@energy"  # column names of the time and the judged energy in a scan
+
+
+def _fit_scan(t: np.ndarray, y: np.ndarray) -> TableScan:
+    return scan_columns({_T: t, _Y: y}, cross=((_T, _Y),), no_extremes=(_T,))
+
+
+def _line_fit(t: np.ndarray, y: np.ndarray, scan: TableScan | None = None) -> _LineFit:
+    """Least-squares line from the centred sums of one blocked pass (``scan``: a :class:`TableScan`
+    holding columns ``@time`` and ``@energy``; made here when not given).
+
+    The residual sum of squares is S_yy - S_xy^2 / S_xx; when that cancels (residuals below 1e-6 of the
+    spread, a nearly perfect line) it is summed again exactly from the residuals, in blocks.
+    """
+    if scan is None or not scan.finite or scan.n_rows != t.shape[0] or (_T, _Y) not in scan.cross:
+        scan = _fit_scan(t, y)
+    it, iy = scan.index(_T), scan.index(_Y)
+    tmean, ymean = float(scan.mean[it]), float(scan.mean[iy])
+    sxx, sxy, syy = float(scan.m2[it]), scan.cross[(_T, _Y)], float(scan.m2[iy])
     slope = sxy / sxx if sxx > 0 else 0.0
-    ssr = 0.0
-    for a in range(0, n, _FIT_BLOCK):
-        r = y[a:a + _FIT_BLOCK] - ymean
-        r -= slope * (t[a:a + _FIT_BLOCK] - tmean)
-        ssr += _dot(r, r)
-    return _LineFit(t=t, y=y, tmean=tmean, ymean=ymean, sxx=sxx, sxy=sxy, ssr=ssr)
+    ssr = syy - slope * sxy
+    if not ssr > 1e-6 * syy:
+        ssr = 0.0
+        for a in range(0, t.shape[0], _FIT_BLOCK):
+            r = y[a:a + _FIT_BLOCK] - ymean
+            r -= slope * (t[a:a + _FIT_BLOCK] - tmean)
+            ssr += _dot(r, r)
+    return _LineFit(t=t, y=y, tmean=tmean, ymean=ymean, sxx=sxx, sxy=sxy, ssr=max(ssr, 0.0))
 
 
-def _std(x: np.ndarray) -> float:
-    """Population standard deviation (centred sums in blocks: no full-length temporary)."""
-    mean = float(np.mean(x))
-    ss = 0.0
-    for a in range(0, x.shape[0], _FIT_BLOCK):
-        xc = x[a:a + _FIT_BLOCK] - mean
-        ss += _dot(xc, xc)
-    return math.sqrt(ss / x.shape[0])
+def detrended_std(time_ps: np.ndarray, values: np.ndarray, *, scan: TableScan | None = None) -> float:
+    """Standard deviation of ``values`` after removing a least-squares line in ``time_ps``.
 
-
-def detrended_std(time_ps: np.ndarray, values: np.ndarray) -> float:
-    """Standard deviation of ``values`` after removing a least-squares line in ``time_ps``."""
+    ``scan``: a finite :class:`TableScan` of these arrays as columns ``@time`` and ``@energy`` (from
+    :func:`scan_energy_table`), so the sums are not made again.
+    """
     t = np.asarray(time_ps, dtype=np.float64)
     y = np.asarray(values, dtype=np.float64)
-    fit = _line_fit(t, y)
+    fit = _line_fit(t, y, scan)
     return math.sqrt(fit.ssr / y.shape[0])
 
 
@@ -510,6 +670,9 @@ def energy_fluctuations(
     time_ps: np.ndarray,
     energy_kJ_per_mol: np.ndarray,
     kinetic_kJ_per_mol: np.ndarray | None = None,
+    *,
+    scan: TableScan | None = None,
+    kinetic_column: str | None = None,
 ) -> FluctuationResult:
     """sigma_E (detrended), sigma_K and R = sigma_E / sigma_K.
 
@@ -521,16 +684,22 @@ def energy_fluctuations(
     time_ps : ndarray, shape (n,), ps
     energy_kJ_per_mol : ndarray, shape (n,), kJ/mol
     kinetic_kJ_per_mol : ndarray, shape (n,), kJ/mol, optional
+    scan : TableScan, optional
+        A finite scan of these arrays (:func:`scan_energy_table`); ``kinetic_column`` names the kinetic
+        energy's column in it (else its spread is summed here).
     """
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
     n = int(e.shape[0])
     if n < 3:
         raise TooShortError("an energy fluctuation estimate", have=n, need=3)
-    se = detrended_std(time_ps, e)
+    se = detrended_std(time_ps, e, scan=scan)
     sk = ratio = None
     if kinetic_kJ_per_mol is not None:
-        k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
-        sk = _std(k)
+        if scan is not None and kinetic_column is not None and kinetic_column in scan.names:
+            sk = scan.std(kinetic_column)
+        else:
+            k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
+            sk = scan_columns({"k": k}, no_extremes=("k",)).std("k")
         ratio = se / sk if sk > 0 else math.inf
     return FluctuationResult(sigma_total_kJ_per_mol=se, sigma_kinetic_kJ_per_mol=sk, ratio=ratio,
                              n_samples=n, settings={"detrend": "least-squares line"})
@@ -574,6 +743,7 @@ def find_energy_events(
     gap_factor: float = 1.5,
     max_listed: int = 50,
     robust_sample: int = 1 << 20,
+    scan: TableScan | None = None,
 ) -> EventsResult:
     """Locate non-finite rows, jumps, time gaps/overlaps/reversals and a runaway trend.
 
@@ -589,9 +759,27 @@ def find_energy_events(
         At most this many events of each kind are listed (all are counted).
     robust_sample : int
         Median and MAD of the steps come from at most this many evenly spaced steps.
+    scan : TableScan, optional
+        A scan of these arrays from :func:`scan_energy_table` (made here when not given). When every
+        value is finite the events come from it (one pass; only blocks whose bounds can hold an event are
+        looked at again), else from the masked arrays.
     """
     t = np.asarray(time_ps, dtype=np.float64)
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
+    settings = {"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor, "max_listed": max_listed,
+                "robust_sample": robust_sample}
+    if scan is None or scan.n_rows != e.shape[0] or _Y not in scan.diffs or _T not in scan.diffs:
+        scan = scan_columns({_T: t, _Y: e}, diffs=(_T, _Y), no_extremes=(_T,), robust_sample=robust_sample)
+    if scan.finite and e.shape[0] >= 2:
+        return _events_from_scan(t, e, scan, jump_robust_sigma=jump_robust_sigma, gap_factor=gap_factor,
+                                 max_listed=max_listed, settings=settings)
+    return _events_masked(t, e, jump_robust_sigma=jump_robust_sigma, gap_factor=gap_factor, max_listed=max_listed,
+                          robust_sample=robust_sample, settings=settings)
+
+
+def _events_masked(t: np.ndarray, e: np.ndarray, *, jump_robust_sigma: float, gap_factor: float, max_listed: int,
+                   robust_sample: int, settings: dict[str, Any]) -> EventsResult:
+    """:func:`find_energy_events` on whole arrays with non-finite rows masked out (several passes)."""
     events: list[EnergyEvent] = []
 
     good = np.isfinite(e)
@@ -663,9 +851,99 @@ def find_energy_events(
     events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
     return EventsResult(events=tuple(events), n_nonfinite=int(bad.size), n_jumps=n_jumps, n_gaps=n_gaps,
                         n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
-                        median_spacing_ps=median_dt,
-                        settings={"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor,
-                                  "max_listed": max_listed, "robust_sample": robust_sample})
+                        median_spacing_ps=median_dt, settings=settings)
+
+
+def _rows_of_blocks(flag: np.ndarray, block: int, n_diffs: int) -> list[tuple[int, int]]:
+    """d-index ranges [lo, hi) of the flagged blocks of a scan (block b: max(bB - 1, 0) .. (b + 1)B - 2)."""
+    out = []
+    for b in np.flatnonzero(flag):
+        lo = max(int(b) * block - 1, 0)
+        hi = min((int(b) + 1) * block - 1, n_diffs)
+        if hi > lo:
+            out.append((lo, hi))
+    return out
+
+
+def _events_from_scan(t: np.ndarray, e: np.ndarray, scan: TableScan, *, jump_robust_sigma: float,
+                      gap_factor: float, max_listed: int, settings: dict[str, Any]) -> EventsResult:
+    """:func:`find_energy_events` for finite arrays from a scan: the same rules, the same events."""
+    events: list[EnergyEvent] = []
+    n = e.shape[0]
+    nd = n - 1
+    B = scan.block_rows
+    dt_s, de_s = scan.diffs[_T], scan.diffs[_Y]
+    # time spacings: overlaps/reversals (d <= 0) and gaps, looked for only in blocks that can hold one
+    pos = dt_s.sample[dt_s.sample > 0]
+    median_dt = fast_median(pos) if pos.size else None
+    over_l: list[np.ndarray] = []
+    for lo, hi in _rows_of_blocks(dt_s.block_min <= 0, B, nd):
+        dt = np.diff(t[lo:hi + 1])
+        over_l.append(lo + np.nonzero(dt <= 0)[0])
+    over = np.concatenate(over_l) if over_l else np.zeros(0, np.int64)
+    over = np.unique(over)  # neighbouring blocks share one spacing
+    n_over = int(over.size)
+    for i in over[:max_listed]:
+        dti = float(t[i + 1] - t[i])
+        kind = "overlap" if dti == 0 else "reversal"
+        events.append(EnergyEvent(kind, int(i + 1), float(t[i + 1]), dti, "ps",
+                                  f"time {'repeats' if kind == 'overlap' else 'goes back'} at row {i + 1}: "
+                                  f"{t[i]:.6g} ps -> {t[i + 1]:.6g} ps"))
+    n_gaps = 0
+    if median_dt is not None:
+        lim = gap_factor * median_dt
+        gap_l = []
+        for lo, hi in _rows_of_blocks(dt_s.block_max > lim, B, nd):
+            dt = np.diff(t[lo:hi + 1])
+            gap_l.append(lo + np.nonzero(dt > lim)[0])
+        gaps = np.unique(np.concatenate(gap_l)) if gap_l else np.zeros(0, np.int64)
+        n_gaps = int(gaps.size)
+        for i in gaps[:max_listed]:
+            dti = float(t[i + 1] - t[i])
+            events.append(EnergyEvent("gap", int(i + 1), float(t[i + 1]), dti, "ps",
+                                      f"gap of {dti:.6g} ps (median spacing {median_dt:.6g} ps) "
+                                      f"before t = {t[i + 1]:.6g} ps"))
+    max_jump = 0.0
+    n_jumps = 0
+    runaway: float | None = None
+    if n >= 5:
+        sub = de_s.sample
+        med = fast_median(sub)
+        s = 1.4826 * fast_median(np.abs(sub - med))
+        ie = scan.index(_Y)
+        floor = 1e-12 * max(1.0, float(scan.maximum[ie]), -float(scan.minimum[ie]))
+        s = max(s, floor)
+        dmax, dmin = float(de_s.block_max.max()), float(de_s.block_min.min())
+        max_jump = max(dmax - med, med - dmin) / s
+        band = jump_robust_sigma * s * (1.0 - 1e-9)  # a little inside, then the exact rule below
+        flag = (de_s.block_max > med + band) | (de_s.block_min < med - band)
+        jl: list[np.ndarray] = []
+        for lo, hi in _rows_of_blocks(flag, B, nd):
+            d = np.diff(e[lo:hi + 1])
+            j = np.flatnonzero((d > med + band) | (d < med - band))
+            jl.append(lo + j[np.abs(d[j] - med) / s > jump_robust_sigma])  # the exact rule at the border
+        jumps = np.unique(np.concatenate(jl)) if jl else np.zeros(0, np.int64)
+        dj = e[jumps + 1] - e[jumps]
+        score_j = np.abs(dj - med) / s
+        n_jumps = int(jumps.size)
+        for r in np.argsort(-score_j)[:max_listed]:
+            jr = int(jumps[r])
+            events.append(EnergyEvent("jump", jr + 1, float(t[jr + 1]), float(dj[r]), ENERGY_UNIT,
+                                      f"energy step of {dj[r]:.6g} kJ/mol ({score_j[r]:.1f} robust sigma) at "
+                                      f"t = {t[jr + 1]:.6g} ps"))
+        tenth = nd // 10
+        if tenth >= 2:
+            first = float(np.sqrt(np.mean((np.diff(e[:tenth + 1]) - med) ** 2)))
+            last = float(np.sqrt(np.mean((np.diff(e[nd - tenth:]) - med) ** 2)))
+            runaway = last / max(first, floor)
+            if runaway > 3.0:
+                events.append(EnergyEvent("runaway", int(n - 1), float(t[-1]), runaway, "",
+                                          f"frame-to-frame energy noise grew {runaway:.3g}-fold from the "
+                                          "first to the last tenth of the run"))
+    events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
+    return EventsResult(events=tuple(events), n_nonfinite=0, n_jumps=n_jumps, n_gaps=n_gaps,
+                        n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
+                        median_spacing_ps=median_dt, settings=settings)
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -689,23 +967,56 @@ class SeriesSampling:
     method: str
 
 
-def series_sampling(table: EnergyTable) -> tuple[SeriesSampling, ...]:
-    """g and N_eff = n/g of every numeric series in an energy table (time and step excluded)."""
+def series_sampling(table: EnergyTable, *, scan: TableScan | None = None) -> tuple[SeriesSampling, ...]:
+    """g and N_eff = n/g of every numeric series in an energy table (time and step excluded).
+
+    ``scan``: a finite :class:`TableScan` holding the series under their names (from
+    :func:`scan_energy_table`): their means, spreads and ranges are not summed again.
+    """
     out: list[SeriesSampling] = []
     for s in table.series.values():
         if s.role in ("time", "step"):
             continue
         v = np.asarray(s.values, dtype=np.float64)
-        fin = np.isfinite(v)
-        if not fin.all():  # a copy only when there is something to drop
-            v = v[fin]
-        if v.size < 4:
-            continue
-        g, method = statistical_inefficiency_of(v)
-        mean = float(np.mean(v))
-        sd = _std(v)
+        key = _SERIES + s.name
+        if scan is not None and scan.finite and key in scan.names and v.size == scan.n_rows:
+            i = scan.index(key)
+            if v.size < 4:
+                continue
+            g, method = statistical_inefficiency_of(v, value_range=float(scan.maximum[i] - scan.minimum[i]))
+            mean, sd = float(scan.mean[i]), scan.std(key)
+        else:
+            fin = np.isfinite(v)
+            if not fin.all():  # a copy only when there is something to drop
+                v = v[fin]
+            if v.size < 4:
+                continue
+            one = scan_columns({"v": v})
+            g, method = statistical_inefficiency_of(v, value_range=float(one.maximum[0] - one.minimum[0]))
+            mean, sd = float(one.mean[0]), one.std("v")
         out.append(SeriesSampling(name=s.name, role=s.role, unit=s.unit, mean=mean, std=sd,
                                   n_samples=int(v.size), statistical_inefficiency=g,
                                   effective_samples=float(v.size / g),
                                   standard_error_of_mean=sd * math.sqrt(g / v.size), method=method))
     return tuple(out)
+
+
+_SERIES = "series:"  # prefix of the table series' names in the scan of an energy table
+
+
+def scan_energy_table(time_ps: np.ndarray, energy_kJ_per_mol: np.ndarray,
+                      table: EnergyTable | None = None) -> TableScan:
+    """One blocked pass over the time, the judged energy and every numeric series of ``table``.
+
+    The result feeds :func:`find_energy_events`, :func:`drift_fit`, :func:`energy_fluctuations` and
+    :func:`series_sampling` (``scan=``), which otherwise each pass over the columns themselves. Series of
+    another length than the time are left out (their kernels sum them alone).
+    """
+    t = np.asarray(time_ps, dtype=np.float64)
+    cols = {_T: t, _Y: np.asarray(energy_kJ_per_mol, dtype=np.float64)}
+    if table is not None:
+        for s in table.series.values():
+            v = np.asarray(s.values)
+            if s.role not in ("time", "step") and v.shape == t.shape:
+                cols[_SERIES + s.name] = v
+    return scan_columns(cols, diffs=(_T, _Y), cross=((_T, _Y),), no_extremes=(_T,))
