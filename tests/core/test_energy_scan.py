@@ -1,0 +1,141 @@
+"""The energy audit's one-pass route (issue 9) against numpy and against the masked multi-pass route.
+
+References: numpy's own mean / var / min / max / polyfit / median (outside the project), and the
+previous float64 route of the events (``energy._events_masked``, the code that ran before the scan).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from phasewake.core import energy as en
+from phasewake.core.run import EnergyTable, RunMetadata, Series
+
+
+def _noisy(n: int, seed: int, offset: float = -3.0e5, sigma: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    t = 10.0 + np.arange(n) * 2e-3
+    e = offset + 3e-4 * t + sigma * rng.standard_normal(n)
+    return t, e
+
+
+def test_scan_moments_match_numpy_with_a_large_offset():
+    t, e = _noisy(300_001, seed=1)
+    k = 500.0 + 10.0 * np.random.default_rng(2).standard_normal(t.size)
+    sc = en.scan_columns({"t": t, "e": e, "k": k}, cross=(("t", "e"),), block=4096)
+    assert sc.finite
+    for name, x in (("t", t), ("e", e), ("k", k)):
+        i = sc.index(name)
+        # numpy two-pass mean and variance (reference); the spread of e is 6e-6 of its offset: shifted sums
+        # must not cancel (Chan, Golub and LeVeque 1983)
+        assert sc.mean[i] == pytest.approx(float(np.mean(x)), rel=1e-13)
+        assert sc.m2[i] == pytest.approx(float(np.var(x)) * x.size, rel=1e-9)
+        assert sc.minimum[i] == np.min(x) and sc.maximum[i] == np.max(x)
+    ref_cross = float(np.sum((t - t.mean()) * (e - e.mean())))
+    assert sc.cross[("t", "e")] == pytest.approx(ref_cross, rel=1e-9)
+    bad = e.copy()
+    bad[12345] = np.nan
+    assert not en.scan_columns({"t": t, "e": bad}).finite
+
+
+def test_line_fit_matches_polyfit_and_the_residual_sum():
+    t, e = _noisy(200_000, seed=3)
+    fit = en._line_fit(t, e)
+    slope, icpt = np.polyfit(t, e, 1)  # numpy least squares (reference)
+    assert fit.slope == pytest.approx(slope, rel=1e-7)
+    r = e - (icpt + slope * t)
+    assert fit.ssr == pytest.approx(float(r @ r), rel=1e-7)
+    # a nearly perfect line: S_yy - S_xy^2/S_xx cancels, the exact residual pass takes over
+    e2 = 5.0 + 2.0 * t + 1e-9 * np.random.default_rng(4).standard_normal(t.size)
+    fit2 = en._line_fit(t, e2)
+    r2 = e2 - np.polyval(np.polyfit(t, e2, 1), t)
+    assert fit2.ssr == pytest.approx(float(r2 @ r2), rel=1e-3)
+
+
+def _planted(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) * 1e-3
+    e = 40.0 + 0.01 * rng.standard_normal(n)
+    e[[777, 4095, 4096, 9000, 20001]] += [1.0, -2.0, 3.0, 0.5, -0.7]  # jumps, two at a block border
+    t[[1000, 5000]] += [0.05, 0.2]  # each makes a gap and then a reversal/overlap-like step
+    t[8191] = t[8190]  # an overlap exactly at a block border
+    t[15000:] += 0.01  # a gap
+    return t, e
+
+
+@pytest.mark.parametrize("block", [1000, 4096, 1 << 16])
+def test_events_from_the_scan_equal_the_masked_route(block):
+    t, e = _planted(30_000, seed=5)
+    sc = en.scan_columns({en._T: t, en._Y: e}, diffs=(en._T, en._Y), no_extremes=(en._T,), block=block,
+                         robust_sample=7000)  # a subsample, as on long series
+    settings = {"jump_robust_sigma": 8.0, "gap_factor": 1.5, "max_listed": 50, "robust_sample": 7000}
+    fast = en.find_energy_events(t, e, robust_sample=7000, scan=sc)
+    ref = en._events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=7000,
+                            settings=settings)  # the previous float64 route
+    assert fast == ref
+    assert fast.n_jumps >= 5 and fast.n_gaps >= 3 and fast.n_overlaps >= 2
+
+
+def test_fast_median_is_numpys_median():
+    rng = np.random.default_rng(6)
+    for n in (1, 2, 7, 1000, 1001):
+        x = rng.standard_normal(n)
+        assert en.fast_median(x) == float(np.median(x))  # numpy (reference), bit for bit
+
+
+def test_series_sampling_matches_numpy():
+    t, e = _noisy(50_000, seed=7)
+    k = 300.0 + np.random.default_rng(8).standard_normal(t.size)
+    tab = EnergyTable(time_ps=t, series={"kin": Series("kin", k, "kJ/mol", "kinetic"),
+                                         "tot": Series("tot", e, "kJ/mol", "total")})
+    sc = en.scan_energy_table(t, e, tab)
+    for ss in (en.series_sampling(tab, scan=sc), en.series_sampling(tab)):
+        by = {s.name: s for s in ss}
+        assert by["kin"].mean == pytest.approx(float(np.mean(k)), rel=1e-13)
+        assert by["kin"].std == pytest.approx(float(np.std(k)), rel=1e-10)  # numpy population std
+        assert by["tot"].std == pytest.approx(float(np.std(e)), rel=1e-9)
+        assert by["kin"].statistical_inefficiency == pytest.approx(
+            en.statistical_inefficiency_of(k)[0], rel=1e-12)
+
+
+@pytest.mark.slow
+def test_audit_of_a_long_table_matches_direct_numpy_numbers():
+    """An energy table longer than the windowed-g threshold (2^21 rows): the audit's numbers from the
+    one-pass route against numpy on the whole arrays (the previous route's formulas)."""
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import drive
+    from phasewake.core.readers.memory import run_from_arrays
+    from phasewake.core.temperature import kinetic_temperature
+
+    n = (1 << 21) + 4096
+    rng = np.random.default_rng(9)
+    t = np.arange(n) * 1e-3
+    ke = 500 + 10 * rng.standard_normal(n)
+    pe = -800 + 1e-5 * t - (ke - 500) + 0.05 * rng.standard_normal(n)
+    table = EnergyTable(time_ps=t, series={"kinetic": Series("kinetic", ke, "kJ/mol", "kinetic"),
+                                           "potential": Series("potential", pe, "kJ/mol", "potential")})
+    run = run_from_arrays(np.zeros((1, 100, 3)), np.zeros(1), np.ones(100), energies=table,
+                          metadata=RunMetadata(ensemble="NVE", timestep_ps=0.001))
+    run.frames = None
+    run.time_ps = t[:0]
+    res = drive(audit_run(run))
+    e = pe + ke
+    slope, icpt = np.polyfit(t, e, 1)  # numpy least squares (reference)
+    d = res.energy.drift
+    assert d.slope_kJ_per_mol_per_ns == pytest.approx(slope * 1e3, rel=1e-6)
+    r = e - (icpt + slope * t)
+    fl = res.energy.fluctuations
+    assert fl.sigma_total_kJ_per_mol == pytest.approx(math.sqrt(float(r @ r) / n), rel=1e-7)
+    assert fl.sigma_kinetic_kJ_per_mol == pytest.approx(float(np.std(ke)), rel=1e-10)
+    tk = kinetic_temperature(ke, res.temperature.n_dof)
+    assert res.temperature.mean_K == pytest.approx(float(np.mean(tk)), rel=1e-13)
+    assert res.temperature.std_K == pytest.approx(float(np.std(tk)), rel=1e-10)
+    g_ref, _ = en.statistical_inefficiency_of(tk)  # g of the temperature array itself (previous route)
+    assert res.temperature.statistical_inefficiency == pytest.approx(g_ref, rel=1e-10)
+    ev = res.energy.events
+    ref = en._events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=1 << 20,
+                            settings=ev.settings)
+    assert ev == ref
