@@ -118,8 +118,11 @@ def test_crossings_twice_and_no_cache(tmp_path, cache_dir, reads, capsys):
     assert capsys.readouterr().out == out1 and not cache_dir.exists()
 
 
-@pytest.mark.slow
-def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys):
+def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys, monkeypatch):
+    from phasewake.core import report
+
+    # drawing the pages (matplotlib, ~10 s) is not what is cached: count them instead of drawing them
+    monkeypatch.setattr(report, "_write_pdf", lambda target, pages, **kw: len(report._paginate(pages)))
     path = _copy(tmp_path, "dimer_nve.h5md")
     out = tmp_path / "out"
     out.mkdir()
