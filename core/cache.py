@@ -109,7 +109,10 @@ class ResultCache:
         except (OSError, KeyError, ValueError):
             path.unlink(missing_ok=True)
             return None
-        os.utime(path)  # recently used: pruned last
+        try:
+            os.utime(path)  # recently used: pruned last
+        except OSError:
+            pass  # a read-only cache is still worth reading
         return CacheEntry(arrays=arrays, meta=meta)
 
     def put(self, key: str, arrays: Mapping[str, np.ndarray], meta: Mapping[str, Any] | None = None) -> None:

@@ -280,10 +280,13 @@ def test_compare_run_joins_the_key_and_in_memory_settings_are_not_cached(tmp_pat
     drive(cached_audit(run, compare=open_run([big])))
     drive(cached_audit(run, compare=open_run([big])))
     assert len(_entries(cache_dir)) == 1
+    other = _copy(tmp_path, "dimer_langevin.h5md")
+    drive(cached_audit(run, compare=open_run([other])))  # another compare run: another entry
+    assert len(_entries(cache_dir)) == 2
     n = frames.calls
     memory = dataclasses.replace(open_run([big]), paths=())  # a compare run without files: no stable key
     drive(cached_audit(run, compare=memory))  # computed, not cached
-    assert frames.calls > n and len(_entries(cache_dir)) == 1
+    assert frames.calls > n and len(_entries(cache_dir)) == 2
 
 
 def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
@@ -360,3 +363,22 @@ def test_two_processes_caching_the_same_analysis_leave_a_readable_entry(tmp_path
     procs = [subprocess.Popen([sys.executable, "-c", code]) for _ in range(2)]
     assert all(p.wait(timeout=120) == 0 for p in procs)
     assert not list(cache_dir.glob(".*.part"))
+
+
+def test_a_hit_is_served_when_the_entry_cannot_be_touched(tmp_path, cache_dir, monkeypatch):
+    # A read-only cache (shared, or on a read-only file system): marking the entry as recently used fails,
+    # the entry is still served. Simulated by making os.utime fail (root ignores folder permissions).
+    from phasewake.core import cache as cache_mod
+    from phasewake.core.cached import cached_vacf
+
+    path = _copy(tmp_path)
+    run, _ = _counted(path)
+    first = drive(cached_vacf(run))
+
+    def refuse(*a, **k):
+        raise PermissionError(13, "read-only file system")
+
+    monkeypatch.setattr(cache_mod.os, "utime", refuse)
+    run2, frames2 = _counted(path)
+    _same(drive(cached_vacf(run2)), first)
+    assert frames2.calls == 0
