@@ -24,8 +24,7 @@ from phasewake.core import timestep as ts
 from phasewake.core.correlation import one_blas_thread
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import Progress, Work
-from phasewake.core.readers.common import iter_frame_chunks
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, Run
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, Run
 from phasewake.core.verdicts import (
     EXPLANATIONS,
     HEURISTIC_NOTE,
@@ -168,160 +167,242 @@ def _align(t_frames: np.ndarray, t_table: np.ndarray) -> tuple[np.ndarray, np.nd
     return np.nonzero(ok)[0], order[best[ok]]
 
 
-@dataclass
-class _FramePass:
-    time_ps: np.ndarray
-    kinetic: np.ndarray
-    com_kinetic: np.ndarray
-    group_kinetic: np.ndarray  # (n, G)
-    inference: tm.ConstraintInference | None
-    spectrum: tuple[np.ndarray, np.ndarray] | None
-    group_spectra: dict[str, np.ndarray]  # group name -> power, same frequencies
-    spectrum_note: str
-    speeds: dict[str, np.ndarray]  # species -> speeds (frames kept, atoms kept) in nm/ps
-    speed_frame_stride: int
+@dataclass(frozen=True)
+class AuditFrames:
+    """What the audit takes from the frames: the result of :class:`AuditFramesConsumer`.
 
-
-def _frame_pass(run: Run, *, groups: Mapping[str, np.ndarray], infer: bool, want_speeds: bool,
-                chunk_frames: int, segment_frames: int, max_segments: int | None, done0: float,
-                total: float) -> Work[_FramePass]:
-    frames = run.frames
-    assert frames is not None
-    n = frames.n_frames
-    m = run.masses_amu
-    names = list(groups)
-    member = np.zeros((run.n_atoms, len(names)))
-    for j, nm in enumerate(names):
-        member[np.asarray(groups[nm], dtype=np.int64), j] = 1.0
-    kin = np.empty(n)
-    com = np.empty(n)
-    gk = np.empty((n, len(names)))
-    times = np.empty(n)
-    rigid = None
-    if infer and run.topology is not None:
-        pairs = tm.candidate_pairs(run.topology)
-        if pairs.size:
-            rigid = tm.RigidPairAccumulator(pairs, run.n_atoms)
-    spectrum_note = ""
-    spec = None
-    spec_names: list[str] = []
-    t = run.time_ps
-    if n >= 32 and t.size == n:
-        dt = np.diff(t)
-        h = float(np.median(dt))
-        if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
-            seg = int(min(segment_frames, n // 2))
-            labels, spec_names = ts.spectrum_groups(run.topology, m)
-            spec = ts.VelocitySpectrumAccumulator(m, h, segment_frames=seg,
-                                                  labels=labels if len(spec_names) > 1 else None,
-                                                  max_segments=max_segments)
-        else:
-            spectrum_note = "frame spacing is not uniform: no velocity spectrum"
-    else:
-        spectrum_note = f"too few frames for a velocity spectrum ({n} < 32)"
-    species = tm.species_of(run.topology, m) if want_speeds else {}
-    speed_atoms: dict[str, np.ndarray] = {}
-    speed_store: dict[str, list[np.ndarray]] = {}
-    stride = max(1, n // 200)
-    for sp, idx in species.items():
-        speed_atoms[sp] = idx[: max(1, 100_000 // max(1, n // stride))][:2000]
-        speed_store[sp] = []
-    pos = 0
-    # positions only for the constraint inference: velocity-only reads are half the I/O
-    chunks = iter_frame_chunks(frames, chunk_frames=chunk_frames, velocities=True, positions=rigid is not None)
-    try:
-        pos = yield from _consume(chunks, pos=pos, kin=kin, com=com, gk=gk, times=times, m=m, member=member,
-                                  names=names, rigid=rigid, spec=spec, speed_atoms=speed_atoms,
-                                  speed_store=speed_store, stride=stride, done0=done0, total=total,
-                                  path=run.paths[0] if run.paths else None)
-    finally:
-        close = getattr(chunks, "close", None)
-        if close is not None:
-            close()
-    spectrum = None
-    group_spectra: dict[str, np.ndarray] = {}
-    if spec is not None:
-        if spec.n_segments:
-            spectrum = spec.finish()
-            if spec.labels is not None:
-                group_spectra = dict(zip(spec_names, spec.finish_groups(), strict=True))
-        else:
-            spectrum_note = "too few frames for one spectrum segment"
-    return _FramePass(
-        time_ps=times[:pos], kinetic=kin[:pos], com_kinetic=com[:pos], group_kinetic=gk[:pos],
-        inference=None if rigid is None else rigid.finish(), spectrum=spectrum, group_spectra=group_spectra,
-        spectrum_note=spectrum_note,
-        speeds={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32)) for sp, v_ in speed_store.items()},
-        speed_frame_stride=stride,
-    )
-
-
-def _consume(chunks: Any, *, pos: int, kin: np.ndarray, com: np.ndarray, gk: np.ndarray, times: np.ndarray,
-             m: np.ndarray, member: np.ndarray, names: list[str], rigid: tm.RigidPairAccumulator | None,
-             spec: ts.VelocitySpectrumAccumulator | None, speed_atoms: dict[str, np.ndarray],
-             speed_store: dict[str, list[np.ndarray]], stride: int, done0: float, total: float,
-             path: Any) -> Work[int]:
-    """The per-chunk work of the frame pass; returns the number of frames seen.
-
-    Two matrix products per chunk on the flat (k, 3 n_atoms) velocities: v @ M3 gives the total momentum
-    (M3[3i + c, c] = m_i) and (v*v) @ W3 the kinetic energy of all atoms and of every group at once
-    (W3[3i + c, j] = m_i / 2 for the atoms i of column j). float32 products with float32 BLAS sums:
-    relative error ~1e-6, far below anything judged here, and one memory pass each.
+    Per-frame arrays have shape (n,) (n frames of the pass); ``group_kinetic_kJ_per_mol`` (n, G) with
+    columns in the order of ``group_names``. ``spectrum_frequency_per_ps`` / ``spectrum_power``: the
+    mass-weighted velocity power spectrum of all atoms (Welch; None when not computed, see
+    ``spectrum_note``), ``group_spectra`` the power per atom group at the same frequencies.
+    ``speeds_nm_per_ps``: species -> (frames kept, atoms kept) speeds, every ``speed_frame_stride``-th
+    frame (canonical runs only).
     """
-    n_atoms = m.shape[0]
-    m32 = m.astype(np.float32)
-    m_total = float(m.sum())
-    w = np.concatenate([(0.5 * m)[:, None], member * (0.5 * m)[:, None]], axis=1)  # (n_atoms, 1 + G)
-    w3 = np.repeat(w, 3, axis=0).astype(np.float32)  # (3 n_atoms, 1 + G)
-    m3 = np.zeros((3 * n_atoms, 3), np.float32)
-    for c in range(3):
-        m3[c::3, c] = m32
-    bufs: dict[str, np.ndarray] = {}  # reused between chunks (fresh pages are slow to touch)
-    for chunk in chunks:
+
+    time_ps: np.ndarray
+    kinetic_kJ_per_mol: np.ndarray
+    com_kinetic_kJ_per_mol: np.ndarray
+    group_names: tuple[str, ...]
+    group_kinetic_kJ_per_mol: np.ndarray
+    inference: tm.ConstraintInference | None
+    spectrum_frequency_per_ps: np.ndarray | None
+    spectrum_power: np.ndarray | None
+    group_spectra: dict[str, np.ndarray]
+    spectrum_note: str
+    speeds_nm_per_ps: dict[str, np.ndarray]
+    speed_frame_stride: int
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+def audit_groups(run: Run, *, n_constraints: int | None = None,
+                 groups: Mapping[str, Sequence[int] | np.ndarray] | None = None) -> dict[str, np.ndarray]:
+    """The equipartition groups the audit uses: residue names (and elements when nothing is constrained,
+    by ``n_constraints`` or the metadata), plus the user's ``groups``."""
+    declared = n_constraints if n_constraints is not None else run.metadata.n_constraints
+    base = tm.default_groups(run.topology, run.n_atoms, by_element=(declared == 0))
+    return {**base, **{k: np.asarray(v, dtype=np.int64) for k, v in (groups or {}).items()}}
+
+
+class AuditFramesConsumer:
+    """The audit's frame pass as a chunk reduction (``prepare`` / ``update`` / ``finish``).
+
+    Kinetic energy per frame of all atoms and of every group, the centre-of-mass kinetic energy, the
+    rigid-pair statistics for constraint inference (positions of the first 500 frames), the streaming
+    velocity power spectrum (:class:`~phasewake.core.timestep.VelocitySpectrumAccumulator`) and speed
+    samples for the Maxwell-Boltzmann test. It follows the ``ChunkConsumer`` protocol of
+    :mod:`phasewake.core.onepass`, so one frame pass can feed the audit together with other analyses;
+    :func:`audit_run` drives this same consumer through ``onepass.run_pass``.
+
+    Parameters
+    ----------
+    run : Run
+    groups : mapping name -> atom indices
+        Equipartition groups (:func:`audit_groups` gives the audit's choice).
+    infer : bool
+        Collect rigid-pair distances (needs positions and a topology).
+    want_speeds : bool
+        Keep speed samples (the audit does for thermostatted runs).
+    segment_frames : int
+        Frames per spectrum segment (at most half the frames of the pass).
+    max_segments : int or None
+        At most this many spectrum segments, from the start of the pass.
+
+    Per chunk the work goes in sub-blocks of 8 frames, which stay in cache while they are squared,
+    multiplied with the kinetic-energy weights (one float32 product for all atoms and every group:
+    relative error ~1e-6), summed into the total momentum and gathered for the spectrum: one memory
+    pass over the chunk instead of four.
+    """
+
+    atoms: np.ndarray | None = None
+    needs_velocities = True
+    SUB_FRAMES = 8  # frames per sub-block (8 x 3 n_atoms float32: ~2 MB for 20,000 atoms)
+
+    def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray], infer: bool,
+                 want_speeds: bool, segment_frames: int = 256, max_segments: int | None = 64) -> None:
+        if run.frames is None or not run.frames.has_velocities:
+            raise MissingDataError("the run holds no velocities (and none can be estimated)",
+                                   path=run.paths[0] if run.paths else None)
+        self.run = run
+        self.groups = {k: np.asarray(v, dtype=np.int64) for k, v in groups.items()}
+        self.want_speeds = bool(want_speeds)
+        self.segment_frames = int(segment_frames)
+        self.max_segments = max_segments
+        self.rigid: tm.RigidPairAccumulator | None = None
+        if infer and run.topology is not None:
+            pairs = tm.candidate_pairs(run.topology)
+            if pairs.size:
+                self.rigid = tm.RigidPairAccumulator(pairs, run.n_atoms)
+        # positions only for the constraint inference: velocity-only reads are half the I/O
+        self.needs_positions = self.rigid is not None
+        m = np.asarray(run.masses_amu, dtype=np.float64)
+        self._m32 = m.astype(np.float32)
+        self._m_total = float(m.sum())
+        names = list(self.groups)
+        w = np.zeros((run.n_atoms, 1 + len(names)))
+        w[:, 0] = 0.5 * m
+        for j, nm in enumerate(names):
+            w[self.groups[nm], 1 + j] = 0.5 * m[self.groups[nm]]
+        self._w3 = np.repeat(w, 3, axis=0).astype(np.float32)  # (3 n_atoms, 1 + G): W3[3i + c, j] = m_i / 2
+        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+        self._pos = 0
+
+    @classmethod
+    def for_run(cls, run: Run, *, n_constraints: int | None = None,
+                groups: Mapping[str, Sequence[int] | np.ndarray] | None = None, segment_frames: int = 256,
+                max_spectrum_segments: int | None = 64) -> AuditFramesConsumer:
+        """The consumer with the choices :func:`audit_run` makes for the same arguments."""
+        thermostatted, _ = _is_thermostatted(run)
+        return cls(run, groups=audit_groups(run, n_constraints=n_constraints, groups=groups),
+                   infer=run.topology is not None and run.frames is not None, want_speeds=thermostatted,
+                   segment_frames=segment_frames, max_segments=max_spectrum_segments)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        if columns is not None:
+            raise AnalysisError("the audit needs every atom's velocity")
+        run = self.run
+        n = int(stop - start)
+        self._range = (int(start), int(stop), int(chunk_frames))
+        self._pos = 0
+        g = len(self.groups)
+        self._kin = np.empty(n)
+        self._com = np.empty(n)
+        self._gk = np.empty((n, g))
+        self._times = np.empty(n)
+        self.spectrum_note = ""
+        self.spec: ts.VelocitySpectrumAccumulator | None = None
+        self.spec_names: list[str] = []
+        t = np.asarray(run.time_ps)[start:stop]
+        if n >= 32 and t.size == n:
+            dt = np.diff(t)
+            h = float(np.median(dt))
+            if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
+                seg = int(min(self.segment_frames, n // 2))
+                labels, self.spec_names = ts.spectrum_groups(run.topology, run.masses_amu)
+                self.spec = ts.VelocitySpectrumAccumulator(run.masses_amu, h, segment_frames=seg,
+                                                           labels=labels if len(self.spec_names) > 1 else None,
+                                                           max_segments=self.max_segments)
+            else:
+                self.spectrum_note = "frame spacing is not uniform: no velocity spectrum"
+        else:
+            self.spectrum_note = f"too few frames for a velocity spectrum ({n} < 32)"
+        species = tm.species_of(run.topology, run.masses_amu) if self.want_speeds else {}
+        self.stride = max(1, n // 200)
+        self.speed_atoms = {sp: idx[: max(1, 100_000 // max(1, n // self.stride))][:2000]
+                            for sp, idx in species.items()}
+        self.speed_store: dict[str, list[np.ndarray]] = {sp: [] for sp in species}
+        n_atoms = run.n_atoms
+        self._sq = np.empty((self.SUB_FRAMES, 3 * n_atoms), np.float32)  # reused (fresh pages are slow)
+        self._sel = (np.empty((chunk_frames, self.spec.atoms.size, 3), np.float32)
+                     if self.spec is not None and self.spec.atoms is not None else None)
+
+    def update(self, chunk: FrameChunk) -> None:
+        v = chunk.velocities_nm_per_ps
+        if v is None:
+            raise MissingDataError("velocities are missing in a chunk of frames",
+                                   path=self.run.paths[0] if self.run.paths else None)
         with one_blas_thread():
-            _chunk_sums(chunk, pos=pos, kin=kin, com=com, gk=gk, times=times, m_total=m_total, w3=w3, m3=m3,
-                        bufs=bufs, names=names, rigid=rigid, spec=spec, speed_atoms=speed_atoms,
-                        speed_store=speed_store, stride=stride, path=path)
-        pos += chunk.n_frames
-        yield Progress(done0 + pos, total, "velocities")
-    return pos
+            self._update(chunk, np.ascontiguousarray(v, dtype=np.float32))
+
+    def _update(self, chunk: FrameChunk, v: np.ndarray) -> None:
+        k = v.shape[0]
+        pos = self._pos
+        n_atoms = v.shape[1]
+        vf = v.reshape(k, 3 * n_atoms)
+        both = np.empty((k, self._w3.shape[1]), np.float32)
+        p = np.empty((k, 3), np.float32)
+        spec = self.spec if self.spec is not None and not self.spec.full else None
+        idx = None if spec is None else spec.atoms
+        sel = self._sel
+        if sel is not None and sel.shape[0] < k:
+            sel = self._sel = np.empty((k,) + sel.shape[1:], np.float32)
+        fb = self.SUB_FRAMES
+        for f0 in range(0, k, fb):
+            f1 = min(k, f0 + fb)
+            vb = vf[f0:f1]
+            sq = np.multiply(vb, vb, out=self._sq[: f1 - f0])  # squared components, in cache
+            np.matmul(sq, self._w3, out=both[f0:f1])  # kinetic energy of all atoms, then of every group
+            p[f0:f1] = np.matmul(self._m32, v[f0:f1])  # total momentum
+            if spec is not None and sel is not None and idx is not None:
+                np.take(v[f0:f1], idx, axis=1, out=sel[f0:f1])
+        self._kin[pos:pos + k] = both[:, 0]
+        p64 = p.astype(np.float64)
+        self._com[pos:pos + k] = np.einsum("fi,fi->f", p64, p64) / (2.0 * self._m_total)
+        if self.groups:
+            self._gk[pos:pos + k] = both[:, 1:]
+        self._times[pos:pos + k] = chunk.time_ps
+        if self.rigid is not None and not self.rigid.full:
+            self.rigid.update(chunk.positions_nm, chunk.box_nm)
+        if spec is not None:
+            spec.update_selected(v if idx is None or sel is None else sel[:k])
+        if self.speed_atoms:
+            keep = np.nonzero(np.arange(pos, pos + k) % self.stride == 0)[0]
+            if keep.size:
+                vk = v[keep]
+                sp_all = np.sqrt((vk * vk).sum(axis=2))
+                for sp, ia in self.speed_atoms.items():
+                    self.speed_store[sp].append(sp_all[:, ia])
+        self._pos = pos + k
+
+    def finish(self) -> AuditFrames:
+        pos = self._pos
+        freq = power = None
+        group_spectra: dict[str, np.ndarray] = {}
+        note = self.spectrum_note
+        if self.spec is not None:
+            if self.spec.n_segments:
+                freq, power = self.spec.finish()
+                if self.spec.labels is not None:
+                    group_spectra = dict(zip(self.spec_names, self.spec.finish_groups(), strict=True))
+            else:
+                note = "too few frames for one spectrum segment"
+        start, stop, chunk = self._range
+        return AuditFrames(
+            time_ps=self._times[:pos], kinetic_kJ_per_mol=self._kin[:pos], com_kinetic_kJ_per_mol=self._com[:pos],
+            group_names=tuple(self.groups), group_kinetic_kJ_per_mol=self._gk[:pos],
+            inference=None if self.rigid is None else self.rigid.finish(),
+            spectrum_frequency_per_ps=freq, spectrum_power=power, group_spectra=group_spectra, spectrum_note=note,
+            speeds_nm_per_ps={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32))
+                              for sp, v_ in self.speed_store.items()},
+            speed_frame_stride=self.stride,
+            settings={"groups": {k: int(v.size) for k, v in self.groups.items()},
+                      "infer": self.rigid is not None, "want_speeds": self.want_speeds,
+                      "segment_frames": self.segment_frames, "max_segments": self.max_segments,
+                      "start": start, "stop": stop, "chunk_frames": chunk},
+        )
 
 
-def _chunk_sums(chunk: Any, *, pos: int, kin: np.ndarray, com: np.ndarray, gk: np.ndarray, times: np.ndarray,
-                m_total: float, w3: np.ndarray, m3: np.ndarray, bufs: dict[str, np.ndarray], names: list[str],
-                rigid: tm.RigidPairAccumulator | None, spec: ts.VelocitySpectrumAccumulator | None,
-                speed_atoms: dict[str, np.ndarray], speed_store: dict[str, list[np.ndarray]], stride: int,
-                path: Any) -> None:
-    """Everything the frame pass takes from one chunk (see :func:`_consume`)."""
-    k = chunk.n_frames
-    n_atoms = m3.shape[0] // 3
-    v = chunk.velocities_nm_per_ps
-    if v is None:
-        raise MissingDataError("velocities are missing in a chunk of frames", path=path)
-    v = np.ascontiguousarray(v, dtype=np.float32)
-    vf = v.reshape(k, 3 * n_atoms)
-    sq_buf = bufs.get("sq")
-    if sq_buf is None or sq_buf.shape[0] < k:
-        sq_buf = bufs["sq"] = np.empty((k, 3 * n_atoms), np.float32)
-    sq = np.multiply(vf, vf, out=sq_buf[:k])  # (k, 3 n_atoms) squared components
-    both = sq @ w3  # (k, 1 + G) kinetic energy of all atoms, then of every group
-    kin[pos:pos + k] = both[:, 0]
-    p_tot = (vf @ m3).astype(np.float64)  # (k, 3) total momentum
-    com[pos:pos + k] = np.einsum("fi,fi->f", p_tot, p_tot) / (2.0 * m_total)
-    if names:
-        gk[pos:pos + k] = both[:, 1:]
-    times[pos:pos + k] = chunk.time_ps
-    if rigid is not None and not rigid.full:
-        rigid.update(chunk.positions_nm, chunk.box_nm)
-    if spec is not None and not spec.full:
-        spec.update(v)
-    if speed_atoms:
-        local = np.arange(pos, pos + k)
-        keep = np.nonzero(local % stride == 0)[0]
-        if keep.size:
-            sp_all = np.sqrt(sq[keep].reshape(keep.size, n_atoms, 3).sum(axis=2))
-            for sp, idx in speed_atoms.items():
-                speed_store[sp].append(sp_all[:, idx])
+def _frame_pass(run: Run, consumer: AuditFramesConsumer, *, chunk_frames: int, done0: float,
+                total: float) -> Work[AuditFrames]:
+    """Drive the consumer through the one-pass engine (``onepass.run_pass``), progress on the audit's scale."""
+    from phasewake.core.onepass import run_pass
+
+    work = run_pass(run, {"audit": consumer}, chunk_frames=chunk_frames)
+    try:
+        while True:
+            p = next(work)
+            yield Progress(min(done0 + p.done, total), total, "velocities")
+    except StopIteration as stop:
+        return stop.value["audit"]  # type: ignore[no-any-return]
 
 
 def _infer_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None:
@@ -357,6 +438,7 @@ def audit_run(
     chunk_frames: int = DEFAULT_CHUNK_FRAMES,
     segment_frames: int = 256,
     max_spectrum_segments: int | None = 64,
+    frames: AuditFrames | None = None,
 ) -> Work[AuditResult]:
     """Audit one run (and optionally compare its energy fluctuation with a run at another time step).
 
@@ -382,6 +464,10 @@ def audit_run(
     max_spectrum_segments : int or None
         At most this many spectrum segments (from the start of the run) are averaged: enough for a
         stable peak, and it bounds the FFT work on long runs. None: all.
+    frames : AuditFrames, optional
+        The frame results of an :class:`AuditFramesConsumer` fed by a shared one-pass request
+        (``AuditFramesConsumer.for_run(run, n_constraints=, groups=, segment_frames=,
+        max_spectrum_segments=)`` with the same arguments, over all frames): then no frame is read here.
 
     Yields
     ------
@@ -441,19 +527,21 @@ def audit_run(
         return float(scan.mean[scan.index(key)]), scan.std(key), g
 
     # ---- constraints and centre of mass ---------------------------------------------------------
-    user_groups = {k: np.asarray(v, dtype=np.int64) for k, v in (groups or {}).items()}
-    declared_constraints = n_constraints if n_constraints is not None else md.n_constraints
     infer = run.topology is not None and run.frames is not None
-    fp: _FramePass | None = None
+    fp: AuditFrames | None = None
     inference: tm.ConstraintInference | None = None
     if has_vel:
         # groups are fixed before the pass; element groups only when nothing is constrained
-        base_groups = tm.default_groups(run.topology, run.n_atoms,
-                                        by_element=(declared_constraints == 0))
-        all_groups = {**base_groups, **user_groups}
-        fp = yield from _frame_pass(run, groups=all_groups, infer=infer, want_speeds=thermostatted,
-                                    chunk_frames=chunk_frames, segment_frames=segment_frames,
-                                    max_segments=max_spectrum_segments, done0=0.0, total=total)
+        all_groups = audit_groups(run, n_constraints=n_constraints, groups=groups)
+        if frames is not None:
+            if frames.group_names != tuple(all_groups) or frames.kinetic_kJ_per_mol.size != run.n_frames:
+                raise AnalysisError("the frame results given to the audit were made for other groups or "
+                                    "another frame range", path=path0)
+            fp = frames
+        else:
+            consumer = AuditFramesConsumer(run, groups=all_groups, infer=infer, want_speeds=thermostatted,
+                                           segment_frames=segment_frames, max_segments=max_spectrum_segments)
+            fp = yield from _frame_pass(run, consumer, chunk_frames=chunk_frames, done0=0.0, total=total)
         inference = fp.inference
     elif infer:
         inference = _infer_only(run, chunk_frames=chunk_frames)
@@ -479,7 +567,7 @@ def audit_run(
         com_src = "metadata"
     elif not thermostatted:
         n_com, com_src = 3, "NVE: total momentum is conserved"
-    elif fp is not None and fp.kinetic.size and float(np.mean(fp.com_kinetic)) < 1e-4 * float(np.mean(fp.kinetic)):
+    elif fp is not None and fp.kinetic_kJ_per_mol.size and float(np.mean(fp.com_kinetic_kJ_per_mol)) < 1e-4 * float(np.mean(fp.kinetic_kJ_per_mol)):
         n_com, com_src = 3, "inferred: the centre-of-mass momentum stays zero"
     else:
         n_com, com_src = 0, "thermostatted and the centre-of-mass momentum fluctuates: not removed"
@@ -496,7 +584,7 @@ def audit_run(
     file_kin = table.by_role("kinetic") if table is not None else None
     file_T = table.by_role("temperature") if table is not None else None
     if n_dof is not None and (fp is not None or file_kin is not None):
-        t_vel = tm.kinetic_temperature(fp.kinetic, n_dof) if fp is not None else None
+        t_vel = tm.kinetic_temperature(fp.kinetic_kJ_per_mol, n_dof) if fp is not None else None
         t_filek = None
         if file_kin is not None and table is not None:
             t_filek = tm.kinetic_temperature(np.asarray(file_kin.values, dtype=np.float64), n_dof)
@@ -549,7 +637,7 @@ def audit_run(
                 constraint_weights=None if inference is None else inference.constraint_weights,
                 n_constraints=n_con)
             names = list(all_groups)
-            gtemps = tm.group_temperatures(fp.group_kinetic, [gdof[k] for k in names], names,
+            gtemps = tm.group_temperatures(fp.group_kinetic_kJ_per_mol, [gdof[k] for k in names], names,
                                            [int(all_groups[k].size) for k in names], t_vel)
         # canonical checks
         kdist = None
@@ -562,7 +650,7 @@ def audit_run(
             cnote = "not applied: the target temperature is unknown (give --temperature K)"
         else:
             kin_for_test = (np.asarray(file_kin.values, dtype=np.float64) if file_kin is not None
-                            else fp.kinetic if fp is not None else None)
+                            else fp.kinetic_kJ_per_mol if fp is not None else None)
             cnote = "applied on decorrelated samples (every g-th frame)"
             if kin_for_test is not None:
                 kf = kin_for_test[np.isfinite(kin_for_test)]
@@ -573,14 +661,14 @@ def audit_run(
                     kdist = tm.kinetic_energy_distribution_check(sample, n_dof, target_T)
                 else:
                     cnote = f"kinetic-energy test not applied: only {sample.size} decorrelated samples (< 20)"
-            if fp is not None and fp.speeds:
+            if fp is not None and fp.speeds_nm_per_ps:
                 free = tm.unconstrained_atoms(run.n_atoms, np.zeros((0, 2)) if inference is None
                                               else inference.rigid_pairs)
                 species = tm.species_of(run.topology, run.masses_amu)
                 g_frames = max(1.0, g_T if t_filek is None else en.statistical_inefficiency_of(t_vel)[0]
                                if t_vel is not None else 1.0)
                 step = max(1, int(math.ceil(g_frames / fp.speed_frame_stride)))
-                for sp, speeds in fp.speeds.items():
+                for sp, speeds in fp.speeds_nm_per_ps.items():
                     if speeds.size == 0:
                         continue
                     idx = species[sp]
@@ -656,7 +744,7 @@ def audit_run(
             if kin_used is None and fp is not None:
                 fi, ti = _align(fp.time_ps, tg)
                 if fi.size == n_good:
-                    kin_used = fp.kinetic[fi[np.argsort(ti)]]
+                    kin_used = fp.kinetic_kJ_per_mol[fi[np.argsort(ti)]]
                     ksrc_e = "velocities (frames matched to energy rows by time)"
             kcol = (en._SERIES + conserved.kinetic_column
                     if kin_used is kg and kg is not None and conserved.kinetic_column is not None else None)
@@ -671,8 +759,8 @@ def audit_run(
     dt_src = "user (--timestep)" if timestep_ps is not None else ("metadata" if md.timestep_ps else "unknown")
     tsa: TimestepAudit | None = None
     if fp is not None:
-        if fp.spectrum is not None:
-            freq, power = fp.spectrum
+        if fp.spectrum_frequency_per_ps is not None and fp.spectrum_power is not None:
+            freq, power = fp.spectrum_frequency_per_ps, fp.spectrum_power
             candidates: dict[str, ts.FastestMotion] = {}
             for gname, gpow in (("all atoms", power), *fp.group_spectra.items()):
                 try:
