@@ -428,10 +428,12 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     verdicts = []
     for i, (name, x, dt, unit) in enumerate(series):
         yield Progress(i, len(series) + 2, f"autocorrelation of {name}")
-        res = corr.analyse_series(x, dt_ps=dt, unit=unit)
+        what = {"series": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
+                "window_ps": ctx.window_ps}
+        res, blocks = yield from through_cache(run, "correlation", what, _correlation_numbers(corr, x, dt, unit))
         figs.append(plots.autocorrelation_figure(res, name=name))
         verdicts.append(corr.judge_ess(res, name=name))
-        figs.append(plots.blocking_figure(corr.blocking(x, unit=unit), name=name))
+        figs.append(plots.blocking_figure(blocks, name=name))
     vel = module_or_none("velocity")
     if vel is not None and run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
         yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
@@ -448,6 +450,12 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     # the ACF of a series in time: give the keys a suffix so each can be chosen on its own
     figs = [_rekey(f, i) for i, f in enumerate(figs)]
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes))
+
+
+def _correlation_numbers(corr: Any, x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
+    """Autocorrelation, statistical inefficiency and block averages of one series (FFTs of the whole series)."""
+    yield Progress(0, 1, "autocorrelation and block averages")
+    return corr.analyse_series(x, dt_ps=dt, unit=unit), corr.blocking(x, unit=unit)
 
 
 def _rekey(fig: FigureSpec, i: int) -> FigureSpec:

@@ -58,8 +58,14 @@ def _numbers(result):
             result.message, len(result.events))
 
 
-@pytest.mark.parametrize("job", ["Energy", "Correlation", "Sampling", "Crossings", "pca"])
+CACHED = {"Energy": {"audit"}, "Correlation": {"coordinates", "correlation", "vacf", "spectrum"},
+          "Sampling": {"coordinates", "sampling"}, "Crossings": {"coordinates", "crossings"}, "pca": {"pca"}}
+
+
+@pytest.mark.parametrize("job", sorted(CACHED))
 def test_panel_shown_again_reads_no_frames(tmp_path, cache_dir, job):
+    from phasewake.core.cache import ResultCache
+
     name = "dimer_langevin.h5md" if job == "Crossings" else "dimer_nve.h5md"
     data = tmp_path / "data"
     data.mkdir()
@@ -69,10 +75,12 @@ def test_panel_shown_again_reads_no_frames(tmp_path, cache_dir, job):
     ctx, frames = _context(path, 10, 190)
     first = drive(fn(ctx))
     assert frames.calls >= 1, "the first showing computes"
-    assert list(cache_dir.glob("*.h5")), "and stores something"
+    stored = ResultCache().entries_by_analysis()
+    assert set(stored) == CACHED[job], stored
     ctx2, frames2 = _context(path, 10, 190)
     second = drive(fn(ctx2))
     assert frames2.calls == 0
+    assert ResultCache().entries_by_analysis() == stored  # every part was a hit: nothing new written
     assert _numbers(second) == _numbers(first)
     for key in ("audit", "pca", "crossings"):
         if key in first.info:

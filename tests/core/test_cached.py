@@ -334,6 +334,7 @@ def test_a_result_the_codec_cannot_store_is_simply_not_cached(tmp_path, cache_di
     assert _entries(cache_dir) == []
 
 
+@pytest.mark.slow
 def test_two_processes_caching_the_same_analysis_leave_a_readable_entry(tmp_path, cache_dir):
     import subprocess
     import sys
