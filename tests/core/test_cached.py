@@ -383,3 +383,28 @@ def test_a_hit_is_served_when_the_entry_cannot_be_touched(tmp_path, cache_dir, m
     run2, frames2 = _counted(path)
     _same(drive(cached_vacf(run2)), first)
     assert frames2.calls == 0
+
+
+def test_a_hit_never_starts_the_analysis(tmp_path, cache_dir):
+    from phasewake.core.cached import cached_work
+    from phasewake.core.progress import Progress
+
+    path = _copy(tmp_path)
+    started = []
+
+    def work():
+        started.append(1)
+        yield Progress(0, 2, "half")
+        yield Progress(1, 2, "done")
+        return {"values": np.array([1.0, np.nan]), "n": 3}
+
+    seen = []
+    first = drive(cached_work(open_run([path]), "toy", {"a": 1}, work()), seen.append)
+    assert started == [1] and [p.message for p in seen] == ["half", "done"]
+    seen.clear()
+    second = drive(cached_work(open_run([path]), "toy", {"a": 1}, work()), seen.append)
+    assert started == [1] and [p.message for p in seen] == ["toy (from the cache)"]
+    _same(second, first)
+    # the same settings under another analysis name are another entry
+    drive(cached_work(open_run([path]), "toy2", {"a": 1}, work()))
+    assert started == [1, 1]
