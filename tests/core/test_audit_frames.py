@@ -1,0 +1,144 @@
+"""The audit's frame pass as a chunk reduction (issue 9): AuditFramesConsumer in a shared one pass.
+
+References: the definition K = sum_i m_i v_i^2 / 2 in float64 numpy, |sum_i m_i v_i|^2 / (2M) for the
+centre-of-mass part, and the array form of the streaming Welch spectrum fed the whole velocity array at
+once (the previous route, itself checked against scipy.signal.welch in test_timestep.py).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pytest
+
+from phasewake.core import timestep as ts
+from phasewake.core.audit import AuditFramesConsumer, audit_run, audit_summary
+from phasewake.core.onepass import CoordinatesConsumer, run_pass
+from phasewake.core.progress import drive
+from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.run import RunMetadata
+
+
+class CountingFrames:
+    """A FrameSource wrapper that counts iter_chunks calls and the frames handed out."""
+
+    def __init__(self, base):
+        self.base = base
+        self.calls = 0
+        self.frames_read = 0
+        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
+            setattr(self, k, getattr(base, k))
+
+    def iter_chunks(self, **kw):
+        self.calls += 1
+        for ch in self.base.iter_chunks(**kw):
+            self.frames_read += ch.n_frames
+            yield ch
+
+    def read_frame(self, index):
+        return self.base.read_frame(index)
+
+
+def _water_ions(n_frames: int = 300, thermostatted: bool = True, seed: int = 3):
+    """60 three-site molecules and 20 ions with an mdtraj topology; H atoms carry a 40/ps oscillation."""
+    import mdtraj as md
+
+    top = md.Topology()
+    ch = top.add_chain()
+    for _ in range(60):
+        r = top.add_residue("HOH", ch)
+        o = top.add_atom("O", md.element.oxygen, r)
+        top.add_bond(o, top.add_atom("H1", md.element.hydrogen, r))
+        top.add_bond(o, top.add_atom("H2", md.element.hydrogen, r))
+    for _ in range(20):
+        top.add_atom("NA", md.element.sodium, top.add_residue("NA", ch))
+    n = top.n_atoms
+    rng = np.random.default_rng(seed)
+    m = np.array([a.element.mass for a in top.atoms])
+    t = np.arange(n_frames) * 0.002
+    x = rng.uniform(0, 3, (n, 3))[None] + 0.01 * rng.standard_normal((n_frames, n, 3))
+    v = rng.standard_normal((n_frames, n, 3)) * np.sqrt(2.494 / m)[None, :, None]
+    v += 0.3 * np.sin(2 * np.pi * 40 * t)[:, None, None] * (m < 2)[None, :, None]
+    meta = RunMetadata(ensemble="NVT" if thermostatted else "NVE", thermostat="langevin" if thermostatted else None,
+                       temperature_K=300.0, timestep_ps=0.002)
+    return run_from_arrays(x.astype(np.float32), t, m, velocities_nm_per_ps=v.astype(np.float32), topology=top,
+                           metadata=meta, name="water-ions")
+
+
+def _counting(run):
+    frames = CountingFrames(run.frames)
+    return dataclasses.replace(run, frames=frames), frames
+
+
+def test_one_pass_feeds_the_audit_and_coordinates_reading_frames_once():
+    run, counter = _counting(_water_ions())
+    consumers = {"audit": AuditFramesConsumer.for_run(run), "q": CoordinatesConsumer(run, ["distance(0, 1)"])}
+    out = drive(run_pass(run, consumers, chunk_frames=64))
+    assert counter.calls == 1 and counter.frames_read == run.n_frames
+    fr = out["audit"]
+    assert fr.kinetic_kJ_per_mol.shape == (run.n_frames,) and out["q"][0].values.shape == (run.n_frames,)
+    # the audit fed from the shared pass reads no frames and says exactly what its own pass says
+    shared = drive(audit_run(run, frames=fr, chunk_frames=64))
+    assert counter.calls == 1
+    alone = drive(audit_run(run, chunk_frames=64))
+    assert counter.calls == 2
+    assert audit_summary(shared) == audit_summary(alone)
+    np.testing.assert_array_equal(shared.temperature.temperature_K, alone.temperature.temperature_K)
+    np.testing.assert_array_equal(shared.timestep.power, alone.timestep.power)
+
+
+@pytest.mark.parametrize("chunk", [37, 256])
+def test_frame_sums_match_their_definitions(chunk):
+    run = _water_ions(n_frames=301, thermostatted=False)
+    groups = {"water": np.arange(180), "ions": np.arange(180, 200), "some": np.arange(5, 50, 3)}
+    c = AuditFramesConsumer(run, groups=groups, infer=True, want_speeds=True, segment_frames=64)
+    fr = drive(run_pass(run, {"a": c}, chunk_frames=chunk))["a"]
+    v = np.asarray(run.frames.iter_chunks(chunk_frames=run.n_frames).__next__().velocities_nm_per_ps,
+                   dtype=np.float64)
+    m = run.masses_amu
+    k_ref = 0.5 * np.einsum("fia,fia,i->f", v, v, m)  # K = sum m v^2 / 2 (definition), float64
+    np.testing.assert_allclose(fr.kinetic_kJ_per_mol, k_ref, rtol=1e-5)  # float32 products
+    for j, idx in enumerate(groups.values()):
+        kg = 0.5 * np.einsum("fia,fia,i->f", v[:, idx], v[:, idx], m[idx])
+        np.testing.assert_allclose(fr.group_kinetic_kJ_per_mol[:, j], kg, rtol=1e-5)
+    p = np.einsum("fia,i->fa", v, m)
+    com_ref = np.einsum("fa,fa->f", p, p) / (2 * m.sum())
+    # the total momentum is a sum with cancellation in float32: its error is judged against K itself
+    np.testing.assert_allclose(fr.com_kinetic_kJ_per_mol, com_ref, atol=1e-6 * float(k_ref.mean()))
+    # the spectrum equals the accumulator fed the whole array at once (previous route), to float32 rounding
+    labels, names = ts.spectrum_groups(run.topology, m)
+    h = float(np.median(np.diff(run.time_ps)))  # the frame spacing, as the audit takes it
+    acc = ts.VelocitySpectrumAccumulator(m, h, segment_frames=64, labels=labels, max_segments=64)
+    acc.update(v.astype(np.float32))
+    f_ref, p_ref = acc.finish()
+    np.testing.assert_array_equal(fr.spectrum_frequency_per_ps, f_ref)
+    np.testing.assert_allclose(fr.spectrum_power, p_ref, rtol=1e-6)
+    for name, gp in zip(names, acc.finish_groups(), strict=True):
+        np.testing.assert_allclose(fr.group_spectra[name], gp, rtol=1e-6, atol=1e-9 * float(gp.max()))
+    # speeds of kept frames: |v| of the stored velocities (every stride-th frame)
+    sp = next(iter(fr.speeds_nm_per_ps))
+    got = fr.speeds_nm_per_ps[sp]
+    from phasewake.core.temperature import species_of
+
+    idx = species_of(run.topology, m)[sp][: got.shape[1]]
+    ref = np.sqrt((v[:: fr.speed_frame_stride] ** 2).sum(axis=2))[:, idx]
+    np.testing.assert_allclose(got, ref, rtol=1e-6)
+    assert fr.inference is not None and fr.inference.n_frames_used == run.n_frames
+
+
+def test_spectrum_groups_by_mass_match_the_per_atom_rule():
+    m = np.random.default_rng(0).choice([1.008, 15.999, 12.011, 1.0080001, 39.948], 3000)
+    labels, names = ts.spectrum_groups(None, m)
+    keys = [f"mass {x:.4g} amu" for x in m]  # the rule, atom by atom
+    assert names == sorted(set(keys))
+    assert [names[i] for i in labels] == keys
+
+
+def test_frames_for_other_groups_are_refused():
+    from phasewake.core.errors import AnalysisError
+
+    run = _water_ions(n_frames=64)
+    fr = drive(run_pass(run, {"a": AuditFramesConsumer.for_run(run, groups={"x": np.arange(3)})}))["a"]
+    with pytest.raises(AnalysisError, match="other groups"):
+        drive(audit_run(run, frames=fr))
