@@ -25,7 +25,7 @@ distributed array (see DEVELOPERS.md, "Scaling out").
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any, Protocol
 
@@ -33,10 +33,12 @@ import numpy as np
 
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
 from phasewake.core.progress import Progress, Work
+from phasewake.core.projection import PCAProjection, PCAReduction
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 
 if TYPE_CHECKING:
     from phasewake.core.coordinates import CoordinateSeries
+    from phasewake.core.projection import PCAResult
     from phasewake.core.run import Run
     from phasewake.core.temperature import GroupTemperature
     from phasewake.core.velocity import VACFResult
@@ -376,28 +378,47 @@ class VACFConsumer:
 
 
 # ------------------------------------------------------------------------------------------------------
+# PCA
+
+
+class PCAConsumer(PCAReduction):
+    """The PCA covariance (exact route) or the one-pass Nystrom sketch (randomized, ``n_iter=0``).
+
+    Settings are those of :func:`phasewake.core.projection.compute_pca` except ``start``, ``stop`` (the
+    pass's) and ``projections``; ``finish()`` returns the :class:`~phasewake.core.projection.PCAResult`
+    that ``compute_pca(run, ..., start=, stop=, projections=False)`` returns, to float rounding identical
+    (the same reduction: blocks of ``chunk_frames`` frames whatever the pass's chunks; reference: the
+    first frame of the pass unless ``reference_nm``). Subspace iteration (``n_iter`` > 0) needs more
+    passes and is refused; projections need the eigenvectors, so a later pass with
+    :class:`PCAProjectionConsumer`.
+    """
+
+    def __init__(self, run: Run, *, projections: bool = False, **settings: Any) -> None:
+        if projections:
+            raise AnalysisError("PCA projections need the eigenvectors first: add a PCAProjectionConsumer to a "
+                                "second pass, or call projection.compute_pca")
+        if "stride" in settings and int(settings["stride"]) != 1:
+            raise AnalysisError("a frame pass reads every frame: stride must be 1 (use compute_pca for a stride)")
+        for key in ("start", "stop"):
+            if key in settings:
+                raise AnalysisError(f"{key} is the pass's setting (FramePass / run_pass), not the PCA's")
+        super().__init__(run, **settings)
+
+
+class PCAProjectionConsumer(PCAProjection):
+    """q_k(t), p_k(t) and cosine contents of a computed PCA (``compute_pca``'s projection pass)."""
+
+
+# ------------------------------------------------------------------------------------------------------
 # the pass
 
 
-def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
-             chunk_frames: int | None = None) -> Work[dict[str, Any]]:
-    """Read frames [start, stop) once and feed every chunk to every consumer.
+def feed(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
+         stride: int = 1, chunk_frames: int | None = None) -> Iterator[int]:
+    """Prepare every consumer, read frames [start, stop) with ``stride`` once, hand every chunk to each.
 
-    Parameters
-    ----------
-    run : Run
-    consumers : mapping name -> consumer (:class:`CoordinatesConsumer`, :class:`GroupTemperatureConsumer`,
-        :class:`VACFConsumer`, or anything with ``atoms``, ``needs_positions``, ``needs_velocities``,
-        ``prepare``, ``update`` and ``finish``)
-    start, stop : int
-        Frame range (``stop`` None: to the end).
-    chunk_frames : int, optional
-        Frames per chunk (default ``run.DEFAULT_CHUNK_FRAMES``); peak memory is about one chunk of the
-        atoms read.
-
-    Returns
-    -------
-    A generator yielding :class:`Progress` and returning ``{name: consumer.finish()}``.
+    A generator yielding the number of frames handed out so far after each chunk; the caller calls
+    ``finish()`` (this is the loop of :func:`run_pass`, shared with ``projection.compute_pca``).
     """
     from phasewake.core.readers.common import iter_frame_chunks
 
@@ -417,21 +438,51 @@ def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0
     want_vel = any(c.needs_velocities for c in consumers.values()) and bool(run.frames.has_velocities)
     for c in consumers.values():
         c.prepare(columns, start=start_, stop=stop_, chunk_frames=chunk)
-    n_total = stop_ - start_
+    kw: dict[str, Any] = {"chunk_frames": chunk, "start": start_, "stop": stop_, "atom_indices": columns,
+                          "velocities": want_vel, "positions": want_pos}
+    if int(stride) != 1:
+        kw["stride"] = int(stride)
     done = 0
-    label = "one pass: " + ", ".join(consumers)
-    chunks = iter_frame_chunks(run.frames, chunk_frames=chunk, start=start_, stop=stop_, atom_indices=columns,
-                               velocities=want_vel, positions=want_pos)
+    chunks = iter_frame_chunks(run.frames, **kw)
     try:
         for ch in chunks:
             for c in consumers.values():
                 c.update(ch)
             done += ch.n_frames
-            yield Progress(done, n_total, label)
+            yield done
     finally:
         close = getattr(chunks, "close", None)
         if close is not None:
             close()
+
+
+def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
+             chunk_frames: int | None = None) -> Work[dict[str, Any]]:
+    """Read frames [start, stop) once and feed every chunk to every consumer.
+
+    Parameters
+    ----------
+    run : Run
+    consumers : mapping name -> consumer (:class:`CoordinatesConsumer`, :class:`GroupTemperatureConsumer`,
+        :class:`VACFConsumer`, :class:`PCAConsumer`, :class:`PCAProjectionConsumer`, or anything with
+        ``atoms``, ``needs_positions``, ``needs_velocities``, ``prepare``, ``update`` and ``finish``)
+    start, stop : int
+        Frame range (``stop`` None: to the end).
+    chunk_frames : int, optional
+        Frames per chunk (default ``run.DEFAULT_CHUNK_FRAMES``); peak memory is about one chunk of the
+        atoms read.
+
+    Returns
+    -------
+    A generator yielding :class:`Progress` and returning ``{name: consumer.finish()}``.
+    """
+    if run.frames is None:
+        raise MissingDataError("the run has no frames (positions)", path=_path(run))
+    start_, stop_ = _frame_range(run, start, stop)
+    n_total = stop_ - start_
+    label = "one pass: " + ", ".join(consumers)
+    for done in feed(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames):
+        yield Progress(done, n_total, label)
     return {name: c.finish() for name, c in consumers.items()}
 
 
@@ -464,6 +515,14 @@ class FramePass:
 
     def vacf(self, name: str, **settings: Any) -> FramePass:
         return self.add(name, VACFConsumer(self.run, start=self.start, stop=self.stop, **settings))
+
+    def pca(self, name: str, **settings: Any) -> FramePass:
+        """The PCA covariance or one-pass sketch (:class:`PCAConsumer`; settings of ``compute_pca``)."""
+        return self.add(name, PCAConsumer(self.run, **settings))
+
+    def pca_projections(self, name: str, pca: PCAResult) -> FramePass:
+        """Projections of a computed PCA (:class:`PCAProjectionConsumer`), in a later pass."""
+        return self.add(name, PCAProjectionConsumer(self.run, pca))
 
     def work(self) -> Work[dict[str, Any]]:
         return run_pass(self.run, self.consumers, start=self.start, stop=self.stop, chunk_frames=self.chunk_frames)

@@ -35,14 +35,14 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from phasewake.core.coordinates import kabsch, solute_atoms
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 from phasewake.core.units import KB_KJ_PER_MOL_K
 from phasewake.core.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 
@@ -51,9 +51,15 @@ if TYPE_CHECKING:
 
 K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
-# Frames per chunk of the PCA: the d x d accumulation is paid once per chunk, so chunks are longer
-# than the reader default (memory: a few chunk x 3 n_atoms float64 buffers).
-PCA_CHUNK_FRAMES = 1024
+# Frames per block of the PCA's products: the d x d accumulation is paid once per block, so blocks are
+# longer than the reader's chunks; at most PCA_CHUNK_FRAMES frames and PCA_BLOCK_BYTES per block buffer.
+PCA_CHUNK_FRAMES = 2048
+PCA_BLOCK_BYTES = 32 * 2**20
+
+
+def default_block_frames(n_coordinates: int, itemsize: int = 4) -> int:
+    """Frames per PCA block when ``chunk_frames`` is not given: min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES / row)."""
+    return int(max(16, min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES // max(1, n_coordinates * itemsize))))
 
 register(
     Threshold(
@@ -194,7 +200,9 @@ def _leading_eigenpairs(cov: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray
 
         v0 = np.cos(np.arange(d) * 0.7071067811865476) + 1.5  # fixed, not orthogonal to anything special
         try:
-            w, v = eigsh(cov, k=k, which="LA", v0=v0, tol=0.0)
+            # ncv = 40 Lanczos vectors (ARPACK's default is 2k + 1): fewer restarts when the top of the
+            # spectrum is crowded (3000 coordinates of noise: 2.2 -> 1.9 s, same eigenpairs to 1e-14)
+            w, v = eigsh(cov, k=k, which="LA", v0=v0, tol=0.0, ncv=min(d - 1, max(2 * k + 1, 40)))
             return w, v
         except ArpackError:  # no convergence: fall back to the dense route below
             pass
@@ -239,6 +247,339 @@ def _group_and_masses(run: Run, atom_indices: Sequence[int] | np.ndarray | None)
     return idx, np.asarray(run.masses_amu, dtype=np.float64)[idx]
 
 
+def _path(run: Run) -> Any:
+    return run.paths[0] if run.paths else None
+
+
+def _group_columns(idx: np.ndarray, n_atoms: int) -> np.ndarray | None:
+    """Run atoms a PCA reads (sorted, unique), or None when the group is every atom in order."""
+    if idx.size == n_atoms and np.array_equal(idx, np.arange(n_atoms)):
+        return None
+    return np.unique(idx)
+
+
+def _local_positions(columns: np.ndarray | None, idx: np.ndarray, n_atoms: int) -> np.ndarray | None:
+    """Where the group's atoms sit on a chunk's atom axis (None: the chunk is the group, in order)."""
+    if columns is None:
+        return None if np.array_equal(idx, np.arange(n_atoms)) else idx
+    pos = np.searchsorted(columns, idx)
+    if np.any(pos >= columns.size) or np.any(columns[np.minimum(pos, columns.size - 1)] != idx):
+        raise AnalysisError("the PCA group's atoms are not among the atoms read by the pass")
+    if pos.size == columns.size and np.array_equal(pos, np.arange(columns.size)):
+        return None
+    return pos.astype(np.int64)
+
+
+class _Accumulator:
+    """Fitted displacements y (``superpose.FrameFitter``) gathered into blocks of ``block`` frames; per block
+    either y^T y (exact: BLAS syrk in the working precision, upper triangle added into float64) or the sketch
+    y^T (y Omega) (randomized), plus sum(y) and sum |y|^2 in float64.
+
+    Blocks, not the reader's chunks, set the rounding: results depend on ``block`` only, so a PCA fed from a
+    shared pass (other consumers, other chunk sizes) equals the separate call bitwise.
+    """
+
+    def __init__(self, fitter: Any, *, block: int, mode: str, omega: np.ndarray | None = None,
+                 sums: bool = True) -> None:
+        self.fitter, self.block, self.mode, self.sums = fitter, int(block), mode, sums
+        d, dt = fitter.d, fitter.dtype
+        self.d = d
+        self.ybuf = np.empty((self.block, d), dtype=dt)
+        self.fill = 0
+        self.n = 0
+        self.s1 = np.zeros(d)
+        self.sqnorm = 0.0
+        if mode == "exact":
+            from scipy.linalg import blas
+
+            self._syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
+            self.s2 = np.zeros((d, d), order="F")
+            self._prod = np.zeros((d, d), dtype=dt, order="F")
+        else:
+            assert omega is not None
+            self.omega = omega
+            self._omega_t = np.ascontiguousarray(omega, dtype=dt)
+            self.z = np.zeros((d, omega.shape[1]))
+
+    def update(self, x: np.ndarray) -> None:
+        i, m = 0, x.shape[0]
+        while i < m:
+            p = min(self.block - self.fill, m - i)
+            self.fitter.displacements(x[i:i + p], self.ybuf[self.fill:self.fill + p])
+            self.fill += p
+            i += p
+            if self.fill == self.block:
+                self._reduce(self.ybuf)
+                self.fill = 0
+
+    def flush(self) -> None:
+        if self.fill:
+            self._reduce(self.ybuf[:self.fill])
+            self.fill = 0
+
+    def _reduce(self, y: np.ndarray) -> None:
+        m = y.shape[0]
+        if self.mode == "exact":
+            # y^T y by the symmetric rank-k update (upper triangle only, half the flops of a GEMM)
+            prod = self._syrk(1.0, y.T, beta=0.0, c=self._prod, trans=0, lower=0, overwrite_c=1)
+            self._prod = prod
+            d = self.d
+            step = 256  # add the upper triangle only, by column panels (Fortran order: contiguous columns)
+            for j0 in range(0, d, step):
+                j1 = min(d, j0 + step)
+                self.s2[:j1, j0:j1] += prod[:j1, j0:j1]
+        else:
+            t = y @ self._omega_t
+            self.z += y.T @ t
+            if self.sums:
+                self.sqnorm += float(np.einsum("fd,fd->f", y, y).sum(dtype=np.float64))
+        if self.sums:
+            self.s1 += y.sum(axis=0, dtype=np.float64)
+        self.n += m
+
+
+def _finish_exact(acc: _Accumulator, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
+    n = acc.n
+    upper = np.triu(acc.s2)
+    s2 = upper + np.triu(upper, 1).T
+    mu = acc.s1 / n
+    cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
+    cov = 0.5 * (cov + cov.T)
+    evals, evecs = _leading_eigenpairs(cov, k)
+    order = np.argsort(evals)[::-1]
+    return np.clip(evals[order], 0.0, None), evecs[:, order], mu, float(np.trace(cov))
+
+
+def _sketch_cq(acc: _Accumulator, n: int, mu: np.ndarray) -> np.ndarray:
+    """C Omega from the pass's sketch sum y^T y Omega (centred with the mean of the first pass)."""
+    return (acc.z - n * np.outer(mu, mu @ acc.omega)) / (n - 1)
+
+
+class PCAReduction:
+    """The PCA of an atom group as a chunk reduction: ``prepare``, ``update(chunk)``, ``finish()``.
+
+    Settings are those of :func:`compute_pca` (keyword-only). One pass over the frames:
+
+    * ``method="exact"``: sum(y) and y^T y of the fitted displacements; ``finish`` forms the covariance
+      and its leading eigenpairs;
+    * ``method="randomized"`` with ``n_iter=0``: the single-pass Nystrom sketch (Tropp et al. 2017).
+      Subspace iteration (``n_iter`` > 0) needs ``n_iter + 1`` passes and is refused here: use
+      :func:`compute_pca`.
+
+    Reference: ``reference_nm`` if given, else the first frame of the pass (frame ``start`` of the window,
+    taken from the first chunk, exactly what :func:`compute_pca` uses). No iterative mean-structure fit.
+
+    ``finish()`` returns a :class:`PCAResult` without projections (they need the eigenvectors, so a second
+    pass: :class:`PCAProjection`). Attributes ``atoms``, ``needs_positions``, ``needs_velocities`` follow
+    the ``onepass.ChunkConsumer`` protocol.
+    """
+
+    needs_positions = True
+    needs_velocities = False
+
+    def __init__(
+        self,
+        run: Run,
+        *,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        stride: int = 1,
+        chunk_frames: int | None = None,
+        mass_weighted: bool = True,
+        fit: bool = True,
+        reference_nm: np.ndarray | None = None,
+        n_components: int = 10,
+        method: str = "exact",
+        n_iter: int = 0,
+        oversample: int = 30,
+        seed: int = 0,
+        precision: str = "float32",
+        _allow_iterations: bool = False,
+    ) -> None:
+        if run.frames is None:
+            raise MissingDataError("the run has no frames (positions)", path=_path(run))
+        if method not in ("exact", "randomized"):
+            raise AnalysisError(f"unknown PCA method {method!r}: use 'exact' or 'randomized'")
+        if precision not in ("float32", "float64"):
+            raise AnalysisError(f"unknown precision {precision!r}")
+        if method == "randomized" and n_iter > 0 and not _allow_iterations:
+            raise AnalysisError(f"the randomized PCA with n_iter={n_iter} reads the frames {n_iter + 1} times; "
+                                "a one-pass consumer supports n_iter=0 (the Nystrom sketch) or the exact route")
+        self.run = run
+        self.idx, self.masses = _group_and_masses(run, atom_indices)
+        g = self.idx.size
+        self.d = 3 * g
+        if method == "exact":
+            from phasewake.core.resources import require_memory
+
+            # the float64 covariance, its eigen-decomposition workspace and a copy: about 3 d^2 doubles
+            require_memory(3.0 * 8.0 * self.d * self.d, what=f"an exact PCA of {self.d} coordinates ({g} atoms)",
+                           hint="choose fewer atoms (e.g. pc(1, \"name CA\")) or the randomized route",
+                           path=_path(run))
+        self.k = int(min(max(1, n_components), self.d))
+        self.block = int(chunk_frames or default_block_frames(self.d, 4 if precision == "float32" else 8))
+        self.stride = int(stride)
+        self.mass_weighted, self.fit, self.method = bool(mass_weighted), bool(fit), method
+        self.n_iter, self.oversample, self.seed, self.precision = int(n_iter), int(oversample), int(seed), precision
+        self.dt: type = np.float32 if precision == "float32" else np.float64
+        self.sq = np.sqrt(self.masses) if self.mass_weighted else np.ones(g)
+        self.fit_w = self.masses if self.mass_weighted else np.ones(g)
+        if reference_nm is not None:
+            ref = np.asarray(reference_nm, dtype=np.float64)
+            if ref.shape != (g, 3):
+                raise AnalysisError(f"the PCA reference has shape {ref.shape}, expected ({g}, 3)")
+            self.reference: np.ndarray | None = ref
+        else:
+            self.reference = None
+        self.atoms = _group_columns(self.idx, run.n_atoms)
+        self._local: np.ndarray | None = None
+        self.acc: _Accumulator | None = None
+        self.fitter: Any = None
+        self.omega0: np.ndarray | None = None
+        if method == "randomized":
+            rng = np.random.default_rng(self.seed)
+            ell = int(min(self.d, self.k + max(0, self.oversample)))
+            self.omega0, _ = np.linalg.qr(rng.standard_normal((self.d, ell)))  # atom-major rows
+        self._range = (0, run.n_frames)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        self._local = _local_positions(columns, self.idx, self.run.n_atoms)
+        self._range = (int(start), int(stop))
+
+    def group_positions(self, chunk: FrameChunk) -> np.ndarray:
+        """The group's positions (m, g, 3) from a chunk of the pass."""
+        pos = np.asarray(chunk.positions_nm)
+        return pos if self._local is None else np.take(pos, self._local, axis=1)
+
+    def _start(self, x: np.ndarray) -> None:
+        from phasewake.core.superpose import FrameFitter
+
+        if self.reference is None:
+            self.reference = np.asarray(x[0], dtype=np.float64)  # the first frame of the window
+        self.fitter = FrameFitter(self.reference, self.fit_w, scale=self.sq, dtype=self.dt, fit=self.fit)
+        omega = None if self.omega0 is None else self.omega0[self.fitter.order]
+        self.acc = _Accumulator(self.fitter, block=self.block, mode=self.method, omega=omega)
+
+    def update(self, chunk: FrameChunk) -> None:
+        x = self.group_positions(chunk)
+        if x.shape[0] == 0:
+            return
+        if self.acc is None:
+            self._start(x)
+        assert self.acc is not None
+        self.acc.update(x)
+
+    def finish(self) -> PCAResult:
+        acc = self.acc
+        if acc is None or (acc.n + acc.fill) < 2:
+            raise TooShortError("a PCA", have=0 if acc is None else acc.n + acc.fill, need=2)
+        acc.flush()
+        if self.method == "exact":
+            evals, evecs, mu, total = _finish_exact(acc, self.k)
+        else:
+            n = acc.n
+            mu = acc.s1 / n
+            evals, evecs = _nystrom(acc.omega, _sketch_cq(acc, n, mu), self.k, float(np.finfo(self.dt).eps))
+            total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
+        return self._result(evals, evecs, mu, total, acc.n)
+
+    def _result(self, evals: np.ndarray, evecs: np.ndarray, mu: np.ndarray, total: float, n: int) -> PCAResult:
+        """Back to atom-major order, fixed signs, units and settings."""
+        assert self.reference is not None
+        order = self.fitter.order
+        vec = np.empty_like(evecs)
+        vec[order] = evecs
+        mean = np.empty(self.d)
+        mean[order] = mu + self.fitter.shift
+        # a fixed sign per eigenvector (largest component positive) so results are reproducible
+        signs = np.sign(vec[np.argmax(np.abs(vec), axis=0), np.arange(vec.shape[1])])
+        signs[signs == 0] = 1.0
+        vec = vec * signs
+        mw = self.mass_weighted
+        start, stop = self._range
+        return PCAResult(
+            atom_indices=self.idx, masses_amu=self.masses, reference_nm=self.reference, mean=mean,
+            eigenvalues=evals, eigenvectors=vec, total_variance=float(total),
+            explained_variance_ratio=evals / total if total > 0 else np.full(evals.shape[0], np.nan),
+            n_frames=int(n), eigenvalue_unit="amu nm^2" if mw else "nm^2",
+            projection_unit="nm amu^1/2" if mw else "nm",
+            momentum_unit="nm amu^1/2/ps" if mw else "nm/ps (velocity projected on unit vector)",
+            velocities_estimated=bool(getattr(self.run.frames, "velocities_estimated", False)),
+            mass_weighted=mw, fit=self.fit, method=self.method, n_components=self.k, start=start, stop=stop,
+            stride=self.stride, chunk_frames=self.block, n_iter=self.n_iter if self.method == "randomized" else 0,
+            oversample=self.oversample if self.method == "randomized" else 0, seed=self.seed,
+            precision=self.precision,
+        )
+
+
+class PCAProjection:
+    """Projections q_k(t), mode momenta p_k(t) and cosine contents of a computed PCA: the second pass.
+
+    Frames are fitted in float64 (as :func:`pc_value_and_gradient`), q = e_k . (y - <y>); velocities are
+    rotated with the frame's fit and projected, p_k = e_k . M^1/2 v. ``finish()`` returns the
+    :class:`PCAResult` with ``projections``, ``momenta``, ``time_ps`` and ``cosine_content`` filled in.
+    """
+
+    needs_positions = True
+
+    def __init__(self, run: Run, pca: PCAResult) -> None:
+        from phasewake.core.superpose import FrameFitter
+
+        if run.frames is None:
+            raise MissingDataError("the run has no frames (positions)", path=_path(run))
+        self.run, self.pca = run, pca
+        self.idx = np.asarray(pca.atom_indices, dtype=np.int64)
+        self.atoms = _group_columns(self.idx, run.n_atoms)
+        self.needs_velocities = bool(run.frames.has_velocities)
+        g = self.idx.size
+        self.sq = np.sqrt(pca.masses_amu) if pca.mass_weighted else np.ones(g)
+        fit_w = pca.masses_amu if pca.mass_weighted else np.ones(g)
+        self.fitter = FrameFitter(pca.reference_nm, fit_w, scale=self.sq, dtype=np.float64, fit=pca.fit)
+        order = self.fitter.order
+        self.e_fit = np.ascontiguousarray(pca.eigenvectors[order])
+        self.offset = (self.fitter.shift - pca.mean[order]) @ self.e_fit  # (k,)
+        self._local: np.ndarray | None = None
+        self._q: list[np.ndarray] = []
+        self._p: list[np.ndarray] = []
+        self._t: list[np.ndarray] = []
+        self._got_v = self.needs_velocities
+        self._y = np.zeros((0, 3 * g))
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        self._local = _local_positions(columns, self.idx, self.run.n_atoms)
+
+    def update(self, chunk: FrameChunk) -> None:
+        pos = np.asarray(chunk.positions_nm)
+        x = pos if self._local is None else np.take(pos, self._local, axis=1)
+        m = x.shape[0]
+        if self._y.shape[0] < m:
+            self._y = np.empty((m, self.fitter.d))
+        y = self._y[:m]
+        rot = self.fitter.displacements(x, y)
+        self._q.append(y @ self.e_fit + self.offset)
+        self._t.append(np.asarray(chunk.time_ps, dtype=np.float64))
+        if self._got_v:
+            vel = chunk.velocities_nm_per_ps
+            if vel is None:
+                self._got_v = False
+                return
+            v = np.asarray(vel, dtype=np.float64)
+            if self._local is not None:
+                v = np.take(v, self._local, axis=1)
+            if rot is not None:
+                v = np.matmul(v, rot)
+            self._p.append((v * self.sq[None, :, None]).reshape(m, -1) @ self.pca.eigenvectors)
+
+    def finish(self) -> PCAResult:
+        from dataclasses import replace
+
+        k = self.pca.eigenvalues.shape[0]
+        proj = np.concatenate(self._q) if self._q else np.zeros((0, k))
+        mom = np.concatenate(self._p) if (self._got_v and self._p) else None
+        cc = np.array([cosine_content(proj[:, j], j + 1) for j in range(k)])
+        return replace(self.pca, projections=proj, momenta=mom, time_ps=np.concatenate(self._t) if self._t
+                       else np.zeros(0), cosine_content=cc)
+
+
 def compute_pca(
     run: Run,
     *,
@@ -260,6 +601,10 @@ def compute_pca(
 ) -> Work[PCAResult]:
     """PCA of an atom group of a run, streamed over chunks. A generator returning :class:`PCAResult`.
 
+    The passes are :class:`PCAReduction` (covariance or sketch), ``n_iter`` more sketch passes for the
+    randomized subspace iteration, and :class:`PCAProjection` when ``projections``; each reads the frames
+    once through ``onepass.feed`` (the same loop as ``onepass.run_pass``).
+
     Parameters
     ----------
     atom_indices : atoms to use; default: the non-solvent atoms (:func:`coordinates.solute_atoms`)
@@ -273,201 +618,88 @@ def compute_pca(
         fastest; each extra pass costs another read and gains accuracy: on a synthetic spectrum the
         leading eigenvalues were within ~2% after one pass, 3e-4 after two, 1e-7 after five);
         ``oversample`` extra sketch columns (default 30); ``seed`` of the random sketch.
-    chunk_frames : frames per chunk (default PCA_CHUNK_FRAMES = 1024)
-    precision : "float32" (products in float32, accumulated in float64 per chunk) or "float64"
-    projections : also make a second pass for q_k(t), p_k(t) and the cosine content
+    chunk_frames : frames per block of the products (default :func:`default_block_frames`: 2048 frames,
+        fewer for big groups, at most 32 MB per block); results depend on it (float32 rounding), not on
+        the reader's chunking
+    precision : "float32" (fit and products in float32, 3 x 3 algebra and accumulation in float64) or
+        "float64"
+    projections : also make a second pass for q_k(t), p_k(t) and the cosine content (fitted in float64)
     """
+    from phasewake.core.onepass import feed
+
     if run.frames is None:
-        raise MissingDataError("the run has no frames (positions)")
+        raise MissingDataError("the run has no frames (positions)", path=_path(run))
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    n_sel = len(range(start, stop_, stride))
     if method not in ("exact", "randomized"):
         raise AnalysisError(f"unknown PCA method {method!r}: use 'exact' or 'randomized'")
-    if precision not in ("float32", "float64"):
-        raise AnalysisError(f"unknown precision {precision!r}")
-    chunk = int(chunk_frames or PCA_CHUNK_FRAMES)
-    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
-    idx, masses = _group_and_masses(run, atom_indices)
-    n_sel = len(range(start, stop_, stride))
     if n_sel < 2:
         raise TooShortError("a PCA", have=n_sel, need=2)
-    g = idx.size
-    d = 3 * g
-    if method == "exact":
-        from phasewake.core.resources import require_memory
-
-        # the float64 covariance, its eigen-decomposition workspace and a copy: about 3 d^2 doubles
-        require_memory(3.0 * 8.0 * d * d, what=f"an exact PCA of {d} coordinates ({g} atoms)",
-                       hint="choose fewer atoms (e.g. pc(1, \"name CA\")) or the randomized route",
-                       path=run.paths[0] if run.paths else None)
-    k_keep = int(min(max(1, n_components), d))
-    sq = np.sqrt(masses) if mass_weighted else np.ones(g)
-    fit_w = masses if mass_weighted else np.ones(g)
-    if reference_nm is None:
-        first = run.frames.read_frame(start)
-        ref = np.asarray(first.positions_nm[0][idx], dtype=np.float64)
+    red = PCAReduction(run, atom_indices=atom_indices, stride=stride, chunk_frames=chunk_frames,
+                       mass_weighted=mass_weighted, fit=fit, reference_nm=reference_nm, n_components=n_components,
+                       method=method, n_iter=n_iter, oversample=oversample, seed=seed, precision=precision,
+                       _allow_iterations=True)
+    n_extra = n_iter if method == "randomized" else 0
+    total_work = float((1 + n_extra + (1 if projections else 0)) * n_sel)
+    read = {"start": start, "stop": stop_, "stride": stride, "chunk_frames": red.block}
+    label = "PCA covariance" if method == "exact" else f"PCA randomized pass 1/{n_extra + 1}"
+    for done in feed(run, {"pca": red}, **read):
+        yield Progress(done, total_work, label)
+    if n_extra == 0:
+        res = red.finish()
     else:
-        ref = np.asarray(reference_nm, dtype=np.float64)
-        if ref.shape != (g, 3):
-            raise AnalysisError(f"the PCA reference has shape {ref.shape}, expected ({g}, 3)")
-    shift = (ref * sq[:, None]).reshape(-1)  # data are shifted by the reference before products
-    dt = np.float32 if precision == "float32" else np.float64
-
-    # Work buffers reused from chunk to chunk: fresh memory is slow to touch (PERFORMANCE.md), and a
-    # new d x d product per chunk would cost more than the GEMM that fills it.
-    wn = fit_w / fit_w.sum()
-    ref_c = ref - wn @ ref
-    wy = ref_c * wn[:, None]
-    cy = wn @ ref
-    sq3 = np.repeat(sq, 3)
-    read_cols = None if np.array_equal(idx, np.arange(run.n_atoms)) else idx
-    bufs: dict[str, np.ndarray] = {}
-
-    def buffer(name: str, shape: tuple[int, ...], dtype: type) -> np.ndarray:
-        b = bufs.get(name)
-        if b is None or b.shape[0] < shape[0] or b.dtype != dtype:
-            b = bufs[name] = np.empty((max(shape[0], chunk),) + shape[1:], dtype=dtype)
-        return b[: shape[0]]
-
-    def chunks(velocities: bool = False):
-        for ch in run.frames.iter_chunks(chunk_frames=chunk, start=start, stop=stop_, stride=stride,
-                                         atom_indices=read_cols, velocities=velocities):
-            x = np.asarray(ch.positions_nm)
-            m = x.shape[0]
-            rot = None
-            if fit:  # Kabsch (1976), as coordinates.kabsch, into the reused buffers
-                xc = buffer("xc", (m, g, 3), np.float64)
-                np.subtract(x, np.matmul(wn, x)[:, None, :], out=xc)
-                u, _s, vt = np.linalg.svd(np.matmul(xc.transpose(0, 2, 1), wy))
-                sign = np.sign(np.linalg.det(u @ vt))
-                sign[sign == 0] = 1.0
-                u[:, :, 2] *= sign[:, None]
-                rot = u @ vt
-                xf = buffer("xf", (m, g, 3), np.float64)
-                np.matmul(xc, rot, out=xf)
-                xf += cy - ref  # y - shift = (fitted - reference) M^1/2, in float64 before rounding
-                xf *= sq[:, None]
-                flat = xf.reshape(m, d)
-            else:
-                flat = buffer("xf", (m, g, 3), np.float64).reshape(m, d)
-                np.multiply(x.reshape(m, d), sq3, out=flat)
-                flat -= shift  # in float64, before any rounding to float32
-            if dt is np.float64:
-                y = flat
-            else:
-                y = buffer("y", (m, d), dt)
-                y[...] = flat
-            yield ch, y, rot
-
-    n_passes = (1 if method == "exact" else 1 + n_iter) + (1 if projections else 0)
-    total_work = float(n_passes * n_sel)
-    done = 0.0
-    n = 0
-    s1 = np.zeros(d)
-    sdiag = np.zeros(d)
-    if method == "exact":
-        from scipy.linalg import blas
-
-        # y^T y by the symmetric rank-k update (BLAS syrk: the upper triangle only, half the flops of a
-        # GEMM), in the working precision, added into a float64 accumulator once per chunk.
-        syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
-        s2 = np.zeros((d, d), order="F")
-        prod = np.zeros((d, d), dtype=dt, order="F")
-        for _ch, y, _rot in chunks():
-            prod = syrk(1.0, y.T, beta=0.0, c=prod, trans=0, lower=0, overwrite_c=1)
-            s2 += prod
-            s1 += y.sum(axis=0, dtype=np.float64)
-            n += y.shape[0]
-            done += y.shape[0]
-            yield Progress(done, total_work, "PCA covariance")
-        del prod
-        upper = np.triu(s2)
-        s2 = upper + np.triu(upper, 1).T
-        mu = s1 / n
-        cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
-        cov = 0.5 * (cov + cov.T)
-        evals, evecs = _leading_eigenpairs(cov, k_keep)
-        order = np.argsort(evals)[::-1]
-        evals_k = np.clip(evals[order], 0.0, None)
-        evecs_k = evecs[:, order]
-        total = float(np.trace(cov))
-    else:
-        rng = np.random.default_rng(seed)
-        ell = int(min(d, k_keep + max(0, oversample)))
-        q_block, _ = np.linalg.qr(rng.standard_normal((d, ell)))
-        z = np.zeros((d, ell))
-        for it in range(n_iter + 1):
-            z = np.zeros((d, ell))
-            s1_it = np.zeros(d)
-            n_it = 0
-            qd = q_block.astype(dt)
-            for _ch, y, _rot in chunks():
-                z += y.T @ (y @ qd)
-                s1_it += y.sum(axis=0, dtype=np.float64)
-                if it == 0:
-                    sdiag += np.einsum("nd,nd->d", y, y, dtype=np.float64)
-                n_it += y.shape[0]
-                done += y.shape[0]
-                yield Progress(done, total_work, f"PCA randomized pass {it + 1}/{n_iter + 1}")
-            if it == 0:
-                n, s1 = n_it, s1_it
-            mu = s1 / n
-            z = (z - n * np.outer(mu, mu @ q_block)) / (n - 1)  # = C Q, one pass over the data
-            if it < n_iter:
-                q_block, _ = np.linalg.qr(z)
-        if n_iter == 0:
-            evals_k, evecs_k = _nystrom(q_block, z, k_keep, float(np.finfo(dt).eps))
-        else:
-            # Rayleigh-Ritz on the last orthonormal block: B = Q^T C Q (Halko et al. 2011, Alg. 5.3)
-            b = q_block.T @ z
-            b = 0.5 * (b + b.T)
-            w, v = np.linalg.eigh(b)
-            order = np.argsort(w)[::-1]
-            evals_k = np.clip(w[order][:k_keep], 0.0, None)
-            evecs_k = (q_block @ v[:, order])[:, :k_keep]
-        mu = s1 / n
-        total = float((sdiag - n * mu * mu).sum() / (n - 1))
-    mean = mu + shift
-    # a fixed sign per eigenvector (largest component positive) so results are reproducible
-    signs = np.sign(evecs_k[np.argmax(np.abs(evecs_k), axis=0), np.arange(evecs_k.shape[1])])
-    signs[signs == 0] = 1.0
-    evecs_k = evecs_k * signs
-    ev_unit = "amu nm^2" if mass_weighted else "nm^2"
-    q_unit = "nm amu^1/2" if mass_weighted else "nm"
-    p_unit = "nm amu^1/2/ps"
-    proj = mom = tt = cc = None
-    estimated = bool(getattr(run.frames, "velocities_estimated", False))
+        # randomized subspace iteration (Halko et al. 2011, Alg. 4.4), Rayleigh-Ritz at the end (Alg. 5.3)
+        acc = red.acc
+        assert acc is not None
+        acc.flush()
+        n = acc.n
+        mu = acc.s1 / n
+        total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
+        z = _sketch_cq(acc, n, mu)
+        q_block = acc.omega
+        for it in range(n_extra):
+            q_block, _ = np.linalg.qr(z)
+            sketch = _Accumulator(red.fitter, block=red.block, mode="randomized", omega=q_block, sums=False)
+            stage = _Stage(red, sketch)
+            for done in feed(run, {"pca": stage}, **read):
+                yield Progress((it + 1) * n_sel + done, total_work, f"PCA randomized pass {it + 2}/{n_extra + 1}")
+            sketch.flush()
+            z = _sketch_cq(sketch, n, mu)
+        b = q_block.T @ z
+        b = 0.5 * (b + b.T)
+        w, v = np.linalg.eigh(b)
+        order = np.argsort(w)[::-1]
+        evals = np.clip(w[order][:red.k], 0.0, None)
+        evecs = (q_block @ v[:, order])[:, :red.k]
+        res = red._result(evals, evecs, mu, total, n)
     if projections:
-        want_v = bool(run.frames.has_velocities)
-        proj = np.empty((n, k_keep))
-        mom = np.empty((n, k_keep)) if want_v else None
-        tt = np.empty(n)
-        row = 0
-        for ch, y, rot in chunks(velocities=want_v):
-            m = y.shape[0]
-            proj[row : row + m] = (y - (mean - shift)) @ evecs_k
-            tt[row : row + m] = ch.time_ps
-            if mom is not None:
-                if ch.velocities_nm_per_ps is None:
-                    mom = None
-                else:
-                    v = np.asarray(ch.velocities_nm_per_ps, dtype=np.float64)
-                    if rot is not None:
-                        v = np.matmul(v, rot)
-                    mom[row : row + m] = (v * sq[None, :, None]).reshape(m, d) @ evecs_k
-            row += m
-            done += m
-            yield Progress(done, total_work, "PCA projections")
-        cc = np.array([cosine_content(proj[:, j], j + 1) for j in range(k_keep)])
-    return PCAResult(
-        atom_indices=idx, masses_amu=masses, reference_nm=ref, mean=mean, eigenvalues=evals_k,
-        eigenvectors=evecs_k, total_variance=total,
-        explained_variance_ratio=evals_k / total if total > 0 else np.full(k_keep, np.nan),
-        n_frames=n, eigenvalue_unit=ev_unit, projection_unit=q_unit,
-        momentum_unit=p_unit if mass_weighted else "nm/ps (velocity projected on unit vector)",
-        cosine_content=cc, projections=proj, momenta=mom, time_ps=tt, velocities_estimated=estimated,
-        mass_weighted=mass_weighted, fit=fit, method=method, n_components=k_keep, start=start,
-        stop=stop_, stride=stride, chunk_frames=chunk, n_iter=n_iter if method == "randomized" else 0,
-        oversample=oversample if method == "randomized" else 0, seed=seed, precision=precision,
-    )
+        proj = PCAProjection(run, res)
+        offset = (1 + n_extra) * n_sel
+        for done in feed(run, {"pca": proj}, **{**read, "chunk_frames": red.block}):
+            yield Progress(offset + done, total_work, "PCA projections")
+        res = proj.finish()
+    return res
+
+
+class _Stage:
+    """One more sketch pass of the subspace iteration, fed like a consumer (same group, same fitter)."""
+
+    needs_positions = True
+    needs_velocities = False
+
+    def __init__(self, red: PCAReduction, acc: _Accumulator) -> None:
+        self.red, self.acc, self.atoms = red, acc, red.atoms
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        self.red.prepare(columns, start=start, stop=stop, chunk_frames=chunk_frames)
+
+    def update(self, chunk: FrameChunk) -> None:
+        x = self.red.group_positions(chunk)
+        if x.shape[0]:
+            self.acc.update(x)
+
+    def finish(self) -> None:
+        self.acc.flush()
 
 
 def pca_arrays(
