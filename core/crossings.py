@@ -545,23 +545,13 @@ def _scan_part(t: np.ndarray | None, q: np.ndarray, s0: int, s1: int, surface: f
 
 
 def _scan_workers(n: int) -> int:
-    """Threads for the scan: numpy releases the GIL in its loops, so two parts can run on two cores.
-
-    Only when a core is idle (1-minute load average below cores - 1): on a busy machine a second thread
-    only competes for the same cores (measured: no gain at load 2-3.5 on 2 cores).
-    """
-    import os
+    """Threads for the scan (numpy releases the GIL in its loops): 2 when a core is idle right now
+    (:func:`phasewake.core.cpuload.kernel_threads`) and the series is long, else 1."""
+    from phasewake.core.cpuload import kernel_threads
 
     if SCAN_THREADS is not None:
         return max(1, int(SCAN_THREADS))
-    if n < 8 * _CHUNK:
-        return 1
-    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-    try:
-        load = os.getloadavg()[0]
-    except OSError:
-        return 1
-    return int(max(1, min(2, math.floor(cores - load))))
+    return 1 if n < 8 * _CHUNK else kernel_threads()
 
 
 def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surface: float) -> _Scan:

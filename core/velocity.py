@@ -105,20 +105,13 @@ def _gram_subblock(max_lag: int) -> int:
 
 
 def _gram_workers(n_origins: int, sub: int) -> int:
-    """Threads for one banded sum: 2 when a core is idle (1-minute load below cores - 1) and the work
-    is large, else 1 (a second thread on a busy machine only competes for the same cores)."""
-    import os
+    """Threads for one banded sum: 2 when a core is idle right now
+    (:func:`phasewake.core.cpuload.kernel_threads`) and the work is large, else 1."""
+    from phasewake.core.cpuload import kernel_threads
 
     if n_origins < 8 * sub:
         return 1
-    if GRAM_THREADS is not None:
-        return max(1, int(GRAM_THREADS))
-    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
-    try:
-        load = os.getloadavg()[0]
-    except OSError:
-        return 1
-    return int(max(1, min(2, math.floor(cores - load))))
+    return kernel_threads(GRAM_THREADS)
 
 
 class BlockCorrelator:
