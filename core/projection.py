@@ -271,12 +271,13 @@ def _local_positions(columns: np.ndarray | None, idx: np.ndarray, n_atoms: int) 
 
 
 class _Accumulator:
-    """Fitted displacements y (``superpose.FrameFitter``) gathered into blocks of ``block`` frames; per block
-    either y^T y (exact: BLAS syrk in the working precision, upper triangle added into float64) or the sketch
+    """Frames gathered into blocks of ``block`` frames, fitted (``superpose.FrameFitter``) a block at a time;
+    per block of fitted displacements y either y^T y (exact: BLAS syrk in the working precision, upper triangle added into float64) or the sketch
     y^T (y Omega) (randomized), plus sum(y) and sum |y|^2 in float64.
 
-    Blocks, not the reader's chunks, set the rounding: results depend on ``block`` only, so a PCA fed from a
-    shared pass (other consumers, other chunk sizes) equals the separate call bitwise.
+    Blocks, not the reader's chunks, set the rounding (BLAS kernels round differently for different row
+    counts): results depend on ``block`` only, so a PCA fed from a shared pass (other consumers, other
+    chunk sizes) equals the separate call bitwise.
     """
 
     def __init__(self, fitter: Any, *, block: int, mode: str, omega: np.ndarray | None = None,
@@ -285,6 +286,7 @@ class _Accumulator:
         d, dt = fitter.d, fitter.dtype
         self.d = d
         self.ybuf = np.empty((self.block, d), dtype=dt)
+        self.xbuf: np.ndarray | None = None  # positions of a block being gathered across chunks
         self.fill = 0
         self.n = 0
         self.s1 = np.zeros(d)
@@ -302,20 +304,33 @@ class _Accumulator:
             self.z = np.zeros((d, omega.shape[1]))
 
     def update(self, x: np.ndarray) -> None:
-        i, m = 0, x.shape[0]
+        """Positions (m, g, 3) of the next frames, in order."""
+        i, m, b = 0, x.shape[0], self.block
+        if self.xbuf is None:
+            self.xbuf = np.empty((b,) + x.shape[1:], dtype=np.result_type(x.dtype, self.fitter.dtype))
         while i < m:
-            p = min(self.block - self.fill, m - i)
-            self.fitter.displacements(x[i:i + p], self.ybuf[self.fill:self.fill + p])
+            if self.fill == 0 and m - i >= b and x.dtype == self.xbuf.dtype:
+                self._fit_reduce(x[i:i + b])  # a whole block straight from the chunk (the usual case)
+                i += b
+                continue
+            p = min(b - self.fill, m - i)
+            self.xbuf[self.fill:self.fill + p] = x[i:i + p]
             self.fill += p
             i += p
-            if self.fill == self.block:
-                self._reduce(self.ybuf)
+            if self.fill == b:
+                self._fit_reduce(self.xbuf)
                 self.fill = 0
 
     def flush(self) -> None:
         if self.fill:
-            self._reduce(self.ybuf[:self.fill])
+            assert self.xbuf is not None
+            self._fit_reduce(self.xbuf[:self.fill])
             self.fill = 0
+
+    def _fit_reduce(self, x: np.ndarray) -> None:
+        y = self.ybuf[:x.shape[0]]
+        self.fitter.displacements(x, y)
+        self._reduce(y)
 
     def _reduce(self, y: np.ndarray) -> None:
         m = y.shape[0]

@@ -228,3 +228,90 @@ def test_dask_blocks_drive_the_same_consumer():
     got = c.finish()
     sep = drive(vacf(run, max_lag_ps=0.2))
     np.testing.assert_allclose(got.vacf, sep.vacf, rtol=1e-10)
+
+
+# ------------------------------------------------------------------------------------------------------
+# PCA in the shared pass
+
+
+def _pca_equal(a, b, tol=1e-10):
+    from phasewake.core.projection import PCAResult
+
+    assert isinstance(a, PCAResult) and isinstance(b, PCAResult)
+    for f in fields(a):
+        x, y = getattr(a, f.name), getattr(b, f.name)
+        if isinstance(x, np.ndarray) or isinstance(y, np.ndarray):
+            assert x is not None and y is not None, f.name
+            np.testing.assert_allclose(x, y, rtol=tol, atol=tol * np.abs(y).max(), err_msg=f.name)
+        else:
+            assert x == y, f.name
+
+
+@pytest.mark.parametrize("method", ["exact", "randomized"])
+def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
+    """run_pass with {PCA, coordinates, VACF}: the frames are read once, each result equals its separate call
+    (the separate analyses are checked against scikit-learn, numpy and analytic results in their own files)."""
+    from phasewake.core.projection import compute_pca
+
+    run0 = _synthetic(n_frames=260, n_atoms=12)
+    run, counter = _counting(run0)
+    group = [2, 3, 4, 5, 6, 7, 8, 9]  # not all atoms: the pass reads the union with the coordinates' atoms
+    settings = {"atom_indices": group, "method": method, "n_components": 4, "chunk_frames": 64, "oversample": 8}
+    fp = FramePass(run, chunk_frames=37)  # other chunks than the PCA's blocks: the result must not change
+    fp.pca("pca", **settings).coordinates("q", ["distance(0, 1)"]).vacf("v", max_lag_ps=0.3)
+    out = drive(fp.work())
+    assert counter.calls == 1 and counter.frames_read == run.n_frames
+    sep = drive(compute_pca(run0, projections=False, **settings))
+    _pca_equal(out["pca"], sep)
+    # the same blocks of frames meet the same BLAS calls: bitwise equal, whatever the pass's chunks
+    np.testing.assert_array_equal(out["pca"].eigenvalues, sep.eigenvalues)
+    np.testing.assert_array_equal(out["pca"].eigenvectors, sep.eigenvectors)
+    _assert_series_equal(out["q"], drive(compute_coordinates(run0, ["distance(0, 1)"], chunk_frames=37)))
+    np.testing.assert_allclose(out["v"].vacf, drive(vacf(run0, max_lag_ps=0.3)).vacf, rtol=1e-10)
+
+
+def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
+    from phasewake.core.onepass import PCAConsumer
+    from phasewake.core.projection import compute_pca
+
+    run0 = _synthetic(n_frames=200, n_atoms=10)
+    run, counter = _counting(run0)
+    first = drive(run_pass(run, {"pca": PCAConsumer(run, n_components=3)}))["pca"]
+    second = drive(FramePass(run).pca_projections("proj", first).temperatures("T", n_com=0).work())
+    assert counter.calls == 2
+    sep = drive(compute_pca(run0, n_components=3))  # covariance pass + projection pass
+    _pca_equal(second["proj"], sep)
+    # the mode momenta of unit-mass (mass-weighted) modes: p_k = e_k . M^1/2 v (definition), checked directly
+    v = np.asarray(run0.frames._vel, dtype=np.float64)
+    pos = np.asarray(run0.frames._pos, dtype=np.float64)
+    from phasewake.core.coordinates import kabsch
+
+    rot, _, _ = kabsch(pos, pos[0], run0.masses_amu)
+    pv = (np.matmul(v, rot) * np.sqrt(run0.masses_amu)[None, :, None]).reshape(len(v), -1) @ sep.eigenvectors
+    np.testing.assert_allclose(second["proj"].momenta, pv, rtol=1e-9, atol=1e-9 * np.abs(pv).max())
+
+
+def test_pca_consumer_refuses_what_one_pass_cannot_do():
+    from phasewake.core.errors import AnalysisError
+    from phasewake.core.onepass import PCAConsumer
+
+    run = _synthetic(n_frames=30)
+    with pytest.raises(AnalysisError, match="n_iter"):
+        PCAConsumer(run, method="randomized", n_iter=2)
+    with pytest.raises(AnalysisError, match="second pass"):
+        PCAConsumer(run, projections=True)
+    with pytest.raises(AnalysisError, match="stride"):
+        PCAConsumer(run, stride=2)
+
+
+def test_compute_pca_reads_once_per_pass_and_no_extra_frame():
+    from phasewake.core.projection import compute_pca
+
+    run0 = _synthetic(n_frames=120)
+    run, counter = _counting(run0)
+    calls = []
+    counter.read_frame = lambda i: calls.append(i) or run0.frames.read_frame(i)
+    drive(compute_pca(run, n_components=2, projections=False))
+    assert counter.calls == 1 and calls == []  # the reference is the first frame of the first chunk
+    drive(compute_pca(run, n_components=2, method="randomized", n_iter=2, projections=True))
+    assert counter.calls == 1 + 3 + 1
