@@ -13,11 +13,17 @@ hands each chunk to every consumer. A consumer is a chunk reduction built on the
 Consumers here: :class:`CoordinatesConsumer` (``coordinates.evaluate_arrays`` per chunk, finishing into the
 ``CoordinateSeries`` that :func:`~phasewake.core.coordinates.compute_coordinates` returns; pc(k) specs need
 a PCA pass first and are refused), :class:`GroupTemperatureConsumer` (``temperature.kinetic_energy`` per
-group, then ``group_degrees_of_freedom`` and ``group_temperatures`` as the audit does) and
-:class:`VACFConsumer` (``velocity.BlockCorrelator`` and the finish of ``velocity.vacf``).
+group, then ``group_degrees_of_freedom`` and ``group_temperatures`` as the audit does),
+:class:`VACFConsumer` (``velocity.BlockCorrelator`` and the finish of ``velocity.vacf``),
+:class:`PCAConsumer` (``projection.PCAReduction``: the PCA covariance, exact route, or the single-pass
+Nystrom sketch; bitwise what ``compute_pca(..., projections=False)`` returns, because the reduction works
+on its own blocks of frames whatever the pass's chunks; subspace iteration, ``n_iter`` > 0, needs more
+passes and is refused) and :class:`PCAProjectionConsumer` (``projection.PCAProjection``: projections,
+mode momenta and cosine contents of a computed PCA, for a second pass, which may feed other analyses
+too).
 
-The PCA covariance is not a consumer yet: ``projection.compute_pca`` accumulates inside its own
-generator (closures over its buffers), so it cannot be fed from outside without changing that module.
+:func:`feed` is the loop itself (prepare, read once, update; the caller finishes); ``run_pass`` and
+``projection.compute_pca`` both use it.
 
 Because every consumer is an update/finish reduction, the same objects can be driven over blocks of a
 distributed array (see DEVELOPERS.md, "Scaling out").
@@ -493,7 +499,10 @@ class FramePass:
 
         fp = FramePass(run, start=0, stop=None)
         fp.coordinates("q", ["distance(0, 1)"]); fp.temperatures("T"); fp.vacf("vacf", max_lag_ps=0.5)
-        results = drive(fp.work())   # {"q": [CoordinateSeries], "T": GroupKinetics, "vacf": VACFResult}
+        fp.pca("pca", atom_indices=ca, n_components=10)
+        results = drive(fp.work())   # {"q": [...], "T": GroupKinetics, "vacf": VACFResult, "pca": PCAResult}
+        # projections need the eigenvectors: a second pass (which can carry other analyses too)
+        proj = drive(FramePass(run).pca_projections("proj", results["pca"]).work())["proj"]
     """
 
     def __init__(self, run: Run, *, start: int = 0, stop: int | None = None, chunk_frames: int | None = None) -> None:

@@ -17,18 +17,38 @@ run has not sampled an equilibrium distribution along them), not like real motio
 
 Two routes:
 
-* ``method="exact"``: one pass accumulating sum(y) and y^T y per chunk (float32 GEMM on data shifted
-  by the reference, accumulated in float64), then the leading k eigenpairs of the symmetric matrix
-  (LAPACK syevr on an index subset); the total variance is the exact trace.
+* ``method="exact"``: one pass accumulating sum(y) and y^T y per block of frames (BLAS syrk in float32
+  on the fitted displacements from the reference, added into float64), then the leading k eigenpairs of
+  the symmetric matrix (Lanczos, or LAPACK syevr on an index subset); the total variance is the exact
+  trace.
 * ``method="randomized"``: randomized subspace iteration for the leading components (Halko,
   Martinsson and Tropp, SIAM Rev. 53, 217 (2011), Alg. 4.4 with a Rayleigh-Ritz step, Alg. 5.3):
   each pass multiplies the centred data by a thin block (n x d x l flops instead of n x d^2), so the
   cost grows with the number of components wanted, not with d^2. The total variance (trace) is exact.
   With ``n_iter=0`` it reads the data once and uses the stabilised Nystrom approximation (Tropp,
   Yurtsever, Udell and Cevher, NeurIPS 2017): the cheapest route, less accurate when the spectrum
-  decays slowly.
+  decays slowly. ``n_iter`` > 0 reads the frames ``n_iter + 1`` times (range finder passes, then the
+  Rayleigh-Ritz step on the last sketch).
 
-Memory is bounded by the chunk size and d x d (exact) or d x l (randomized), never the file.
+Chunk reductions (issue 9): the accumulation is :class:`PCAReduction` (``prepare``, ``update(chunk)``,
+``finish()``, the ``onepass.ChunkConsumer`` protocol) and the projections are :class:`PCAProjection`, a
+second reduction that needs the eigenvectors. :func:`compute_pca` drives them through ``onepass.feed``
+(the loop of ``onepass.run_pass``), so ``onepass.PCAConsumer`` in a shared pass with other analyses gives
+bitwise the same result as ``compute_pca(..., projections=False)`` with the same settings. A one-pass
+consumer supports the exact route and the single-pass sketch (``n_iter=0``) only.
+
+Reference structure: ``reference_nm`` if given, else the first frame of the window (taken from the first
+chunk of the pass, so no extra read). There is no iterative mean-structure refit; fitting onto the mean
+would need a second pass (fit, average, refit), which a user can do by passing the ``mean`` of a first
+PCA (reshaped to (g, 3), divided by sqrt(mass)) as ``reference_nm``.
+
+Fitting (``core/superpose.py``): per block, centres and correlation matrices by BLAS products, rotations
+by the quaternion method (Horn 1987; Theobald 2005) in float64, the fitted block in float32 in a
+component-major layout (x0 x1 ... y0 ... z0 ...; eigenvectors and means are returned atom-major). Blocks
+of ``chunk_frames`` frames are gathered across the reader's chunks, so the result does not depend on
+how a reader cuts the frames. The projection pass fits in float64 (as :func:`pc_value_and_gradient`).
+
+Memory is bounded by the block size and d x d (exact) or d x l (randomized), never the file.
 """
 
 from __future__ import annotations

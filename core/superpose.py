@@ -16,17 +16,23 @@ over the frames of a chunk (no loop over frames in Python): about half the time 
 
 Data: :class:`FrameFitter` forms, for a chunk x of shape (m, g, 3), the fitted displacements
 y = s * ((x - c_x) R - (ref - c_ref)) (s a per-atom scale, e.g. sqrt(mass)) in the working precision
-(float32 by default) with BLAS products only:
+(float32 by default), every step a contiguous array operation or a BLAS product:
 
 * the weighted centre of every frame, c_x = x W_c, one (m x 3g) (3g x 3) product;
-* the scaled centred frame s (x - c_x), an elementwise scale and a rank-3 update (GEMM with beta = 1);
+* the centred frame, transposed to a component-major (m, 3, g) layout in the same pass (x - c_x), then
+  scaled by s (in the rotation instead when s is the same for every atom);
 * S for every frame, one (m x 3g) (3g x 9) product on the centred frame (centring first keeps the
   float32 rounding relative to the size of the group, not to the distance from the box origin);
-* the rotation of every frame (batched matmul), minus the constant s (ref - c_ref).
+* the rotation of every frame, R^T (x - c_x)^T (batched matmul), minus the constant s (ref - c_ref).
 
-Rounding: float32 data with float64 3 x 3 algebra give rotations within ~1e-6 of the float64 route and
-displacements within ~1e-7 nm (times s) of it; the tests check both against the float64 route and the
-rotations against scipy's ``Rotation.align_vectors``.
+The output is component-major (``order`` maps its columns to atom-major coordinates): in the atom-major
+layout the per-frame 3-vector broadcasts run with an inner loop of length 3, measured 2-3x slower.
+Measured here (one core, 1000 atoms, 1000 frames): 14 ms against 47 ms for the float64 SVD route.
+
+Rounding: float32 data with float64 3 x 3 algebra give rotations within ~2e-7 of the float64 route and
+displacements within ~2e-7 |x| s of it (the centre is rounded once in float32: a rigid translation of
+~1e-7 |x| per frame, which a PCA sees as noise of relative size ~1e-14 in the variance); the tests check
+both against the float64 route and the rotations against scipy's ``Rotation.align_vectors``.
 """
 
 from __future__ import annotations
