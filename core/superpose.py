@@ -31,7 +31,8 @@ Measured here (one core, 1000 atoms, 1000 frames): 14 ms against 47 ms for the f
 
 Rounding: float32 data with float64 3 x 3 algebra give rotations within ~2e-7 of the float64 route and
 displacements within ~2e-7 |x| s of it (the centre is rounded once in float32: a rigid translation of
-~1e-7 |x| per frame, which a PCA sees as noise of relative size ~1e-14 in the variance); the tests check
+~1e-7 |x| per frame: variance of order (1e-7 |x| s)^2 along the rigid translations, ~1e-10 of a typical
+mode's variance); the tests check
 both against the float64 route and the rotations against scipy's ``Rotation.align_vectors``.
 """
 
