@@ -148,15 +148,16 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
                 "velocities_estimated": s.velocities_estimated,
             })
     if args.pca is not None:
-        from phasewake.core.projection import compute_pca
+        from phasewake.core.cached import cached_pca
 
         if args.pca < 1:
             raise InputError("--pca needs K >= 1")
         group = None if args.pca_group is None else _pca_group(args.pca_group, run)
         res = run_with_progress(
-            compute_pca(run, atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
-                        mass_weighted=not args.no_mass_weight, fit=not args.no_fit,
-                        method="randomized" if args.pca_fast else "exact", n_iter=max(0, args.pca_passes - 1)),
+            cached_pca(run, atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
+                       mass_weighted=not args.no_mass_weight, fit=not args.no_fit,
+                       method="randomized" if args.pca_fast else "exact", n_iter=max(0, args.pca_passes - 1),
+                       cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
             "PCA",
         )
         if time is None:

@@ -93,6 +93,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--msd", action="store_true", help="mean-squared displacement and Einstein diffusion")
     parser.add_argument("--spectrum", action="store_true", help="vibrational density of states (cm^-1, THz) and peaks")
     parser.add_argument("--tm", action="store_true", help="Thirumalai-Mountain metric of per-atom kinetic energies")
+    parser.add_argument("--no-cache", action="store_true",
+                        help="recompute instead of using (and filling) the result cache")
     parser.add_argument("-g", "--group", action="append", default=[], metavar="GROUP",
                         help="atoms for --vacf/--msd/--spectrum/--tm: index, range, [list] or quoted mdtraj query; "
                              "repeat for several groups (default all atoms)")
@@ -270,12 +272,21 @@ def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args
 def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
     from phasewake.core import sampling as S
     from phasewake.core import velocity as V
+    from phasewake.core.cache import ResultCache
+    from phasewake.core.cached import _with_defaults, cached_work
 
     out: dict[str, Any] = {}
     groups = _groups(args, run)
+    cache = ResultCache(enabled=False) if getattr(args, "no_cache", False) else ResultCache()
+
+    def through_cache(name: str, func: Any, **settings: Any) -> Any:
+        # every keyword of the analysis, with its defaults, joins the key
+        return cached_work(run, name, _with_defaults(func, settings), func(run, **settings), cache=cache)
+
     if args.vacf:
-        vres = run_with_progress(V.vacf(run, groups=groups, mass_weighted=args.mass_weighted,
-                                        max_lag_ps=args.max_lag, start=args.start, stop=args.stop), "VACF")
+        kw: dict[str, Any] = dict(groups=groups, mass_weighted=args.mass_weighted, max_lag_ps=args.max_lag,
+                                  start=args.start, stop=args.stop)
+        vres = run_with_progress(through_cache("vacf", V.vacf, **kw), "VACF")
         out["vacf"] = vres
         if not args.mass_weighted:
             gk = [V.green_kubo(vres, group=i, limit_ps=args.gk_limit) for i in range(len(vres.groups))]
@@ -297,23 +308,23 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
                 out["yeh_hummer"] = {"correction_nm2_per_ps": corr, "box_edge_nm": edge, "temperature_K": temp,
                                      "viscosity_mPa_s": args.viscosity}
     if args.msd:
-        out["msd"] = run_with_progress(V.msd(run, groups=groups, max_lag_ps=args.max_lag,
-                                             fit_range_ps=tuple(args.fit_range) if args.fit_range else None,
-                                             start=args.start, stop=args.stop), "MSD")
+        kw = dict(groups=groups, max_lag_ps=args.max_lag,
+                  fit_range_ps=tuple(args.fit_range) if args.fit_range else None, start=args.start, stop=args.stop)
+        out["msd"] = run_with_progress(through_cache("msd", V.msd, **kw), "MSD")
     if args.spectrum:
         idx = None
         if groups:
             idx = np.unique(np.concatenate(list(groups.values())))
-        out["spectrum"] = run_with_progress(
-            V.vibrational_spectrum(run, atom_indices=idx, max_lag_ps=args.max_lag,
-                                   peak_prominence=args.peak_prominence, start=args.start, stop=args.stop),
-            "spectrum")
+        kw = dict(atom_indices=idx, max_lag_ps=args.max_lag, peak_prominence=args.peak_prominence,
+                  start=args.start, stop=args.stop)
+        out["spectrum"] = run_with_progress(through_cache("spectrum", V.vibrational_spectrum, **kw),
+                                            "spectrum")
     if args.tm:
         idx = None
         if groups:
             idx = np.unique(np.concatenate(list(groups.values())))
-        tm = run_with_progress(S.thirumalai_mountain_kinetic(run, atom_indices=idx, start=args.start,
-                                                             stop=args.stop), "Thirumalai-Mountain")
+        tm = run_with_progress(through_cache("thirumalai_mountain", S.thirumalai_mountain_kinetic, atom_indices=idx,
+                                             start=args.start, stop=args.stop), "Thirumalai-Mountain")
         out["tm"] = tm
         out["tm_verdict"] = S.judge_tm(tm)
     return out

@@ -139,3 +139,25 @@ def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys, monk
         assert second[k] == first[k], k
     assert main(argv + ["-o", str(out / "c.pdf"), "--no-cache"]) == 0
     assert reads["n"] > n1
+
+
+def test_memory_and_pca_twice_second_run_is_from_the_cache(tmp_path, cache_dir, reads, capsys):
+    """`memory` (VACF, MSD, spectrum, Thirumalai-Mountain) and `coords --pca`: the second run reads no frames,
+    prints the same JSON, and `--no-cache` recomputes without writing."""
+    path = _copy(tmp_path, "dimer_nve.h5md")
+    argv = ["memory", str(path), "--vacf", "--msd", "--spectrum", "--tm", "--json"]
+    assert main(argv) == 0
+    out1 = capsys.readouterr().out
+    n1 = reads["n"]
+    assert main(argv) == 0
+    assert capsys.readouterr().out == out1 and reads["n"] == n1
+    assert _cache_json(capsys)["by_analysis"] == {"msd": 1, "spectrum": 1, "thirumalai_mountain": 1, "vacf": 1}
+    pca = ["coords", str(path), "--pca", "2", "-o", str(tmp_path / "p.csv")]
+    assert main(pca) == 0
+    n2 = reads["n"]
+    first = (tmp_path / "p.csv").read_text()
+    assert main(pca) == 0 and reads["n"] == n2 and (tmp_path / "p.csv").read_text() == first
+    capsys.readouterr()
+    assert main([*argv, "--no-cache"]) == 0
+    assert capsys.readouterr().out == out1 and reads["n"] > n2
+    assert _cache_json(capsys)["entries"] == 5

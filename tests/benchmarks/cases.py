@@ -497,3 +497,28 @@ def memory_bounded_by_chunk(full: bool, work: Path) -> Outcome:
                "extra_peak_short_mb": p_short, "extra_peak_long_mb": p_long, "extra_peak_big_budget_mb": p_big})
     o.met = o.ratio is not None and o.ratio <= 1.25
     return o
+
+
+@case
+def cache_repeat_audit(full: bool, work: Path) -> Outcome:
+    """Looking at the same run again: open + audit through the result cache, against the first audit
+    (compute and store) of the same file in the same process."""
+    from phasewake.core.cache import ResultCache
+    from phasewake.core.cached import cached_audit
+
+    s = _sizes(full)
+    path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
+    folder = work / "cache_repeat"
+    firsts = []
+    for k in range(2):  # best of two first audits, each into an empty cache
+        cache = ResultCache(folder / str(k), enabled=True)
+        firsts.append(best_of(lambda c=cache: _drain(cached_audit(_open([path]), n_constraints=0, cache=c)),
+                              repeat=1))
+    cache = ResultCache(folder / "0", enabled=True)
+    again = best_of(lambda: _drain(cached_audit(_open([path]), n_constraints=0, cache=cache)), repeat=2)
+    return finish(Outcome(
+        name="cache_repeat_audit", what="open + audit of a run already audited (result cache hit)",
+        baseline="the first open + audit of the same file (computed and stored)", measured_s=again,
+        baseline_s=min(firsts), target="<= 0.05x the first audit (full size)",
+        target_ratio=0.05 if full else None, sizes={"atoms": s["atoms"], "frames": s["frames"]},
+        notes="quick sizes: opening the file and the fixed cost of a hit dominate"))

@@ -90,11 +90,15 @@ def _child(name: str, full: bool, workdir: str, q: Any) -> None:
 
 
 def run_cases(names: list[str], *, full: bool, workdir: Path | None = None) -> list[dict[str, Any]]:
+    import os
+
     from tests.benchmarks import cases  # noqa: F401 - registers the cases
 
     ctx = mp.get_context("spawn")
     results = []
     with tempfile.TemporaryDirectory(prefix="phasewake-bench-", dir=workdir) as tmp:
+        # the cases' result cache (the window case's panels fill it too) lives and dies with the work folder
+        os.environ["PHASEWAKE_CACHE_DIR"] = str(Path(tmp) / "cache")
         for name in names or list(CASES):
             q = ctx.Queue()
             p = ctx.Process(target=_child, args=(name, full, tmp, q))
