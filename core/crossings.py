@@ -516,11 +516,15 @@ def _scan_part(t: np.ndarray | None, q: np.ndarray, s0: int, s1: int, surface: f
     mins: list[np.ndarray] = []
     finite = True
     increasing = True
+    side_buf = np.empty(_CHUNK + 1, bool)  # reused: no allocation per chunk
+    pair_buf = np.empty(_CHUNK, bool)
     for s in range(s0, s1, _CHUNK):
         e = min(s + _CHUNK, s1)
         lo = max(s - 1, 0)
-        side = q[lo:e] >= surface
-        d = np.flatnonzero(side[1:] != side[:-1])
+        m = e - lo
+        side = np.greater_equal(q[lo:e], surface, out=side_buf[:m])
+        pair = pair_buf[: m - 1]
+        d = np.flatnonzero(np.not_equal(side[1:], side[:-1], out=pair))
         own = q[s:e]
         c = d + (lo + 1)
         loc = c - s  # local starts of the pieces after each crossing (all >= 0)
@@ -540,7 +544,7 @@ def _scan_part(t: np.ndarray | None, q: np.ndarray, s0: int, s1: int, surface: f
         mins.append(mn)
         if t is not None and increasing:
             tc = t[lo:e]
-            increasing = not bool(np.any(tc[1:] <= tc[:-1]))
+            increasing = not bool(np.less_equal(tc[1:], tc[:-1], out=pair).any())
     return crs, maxs, mins, finite, increasing
 
 
