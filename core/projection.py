@@ -348,8 +348,13 @@ class _Accumulator:
             self.fill = 0
 
     def _fit_reduce(self, x: np.ndarray) -> None:
+        from phasewake.core.correlation import one_blas_thread
+
         y = self.ybuf[:x.shape[0]]
-        self.fitter.displacements(x, y)
+        # the fit's products are skinny (3 and 9 columns): one BLAS thread, as for other short products on
+        # this shared machine (correlation.one_blas_thread); the block's big products below keep them all
+        with one_blas_thread():
+            self.fitter.displacements(x, y)
         self._reduce(y)
 
     def _reduce(self, y: np.ndarray) -> None:
@@ -375,11 +380,14 @@ class _Accumulator:
 
 def _finish_exact(acc: _Accumulator, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     n = acc.n
-    upper = np.triu(acc.s2)
-    s2 = upper + np.triu(upper, 1).T
+    # s2 holds the upper triangle and zeros below (syrk never writes the lower triangle of its zeroed
+    # output): mirror it with one sum; every step keeps the matrix exactly symmetric (few d x d passes:
+    # each costs ~30 ms at d = 3000)
+    cov = acc.s2 + acc.s2.T
+    cov[np.diag_indices_from(cov)] -= np.diag(acc.s2)
     mu = acc.s1 / n
-    cov = (s2 - n * np.outer(mu, mu)) / (n - 1)
-    cov = 0.5 * (cov + cov.T)
+    cov -= n * np.outer(mu, mu)
+    cov /= n - 1
     evals, evecs = _leading_eigenpairs(cov, k)
     order = np.argsort(evals)[::-1]
     return np.clip(evals[order], 0.0, None), evecs[:, order], mu, float(np.trace(cov))
