@@ -30,11 +30,15 @@ Several replicas pool their events (:func:`pool_crossings`). The Run adapter is
 :func:`crossings_of_runs`. A periodic coordinate (``Trace.period``, set for dihedrals) does not count a
 jump across its period as a crossing.
 
-How it stays fast: one chunked pass finds the frames where q changes side of q* and the extreme value
-of q in each segment between them; a segment whose extreme reaches its side's core commits the state.
-Only at committed-state changes is the exact core entry (and the last exit from the origin core)
-looked up, locally. Noise flickering at a core boundary therefore costs nothing; 1e8 samples take
-about 1.4 s on a shared 2-core machine (tests/benchmarks: crossings_long_series). Everything here is a heuristic read of finite data; see
+How it stays fast: one chunked pass (1 MB chunks, temporaries in cache, no full-length temporary)
+finds the frames where q changes side of q* and the extreme value of q in each piece between them;
+pieces are merged into segments with one reduction, and a segment whose extreme reaches its side's
+core commits the state. When a core is idle the pass runs as two parts on two threads
+(:mod:`phasewake.core.cpuload`). Only at committed-state changes is the exact core entry (and the last
+exit from the origin core) looked up, locally. Noise flickering at a core boundary therefore costs
+nothing; 1e8 samples take about 0.7-1.0 s on a shared 2-core machine, 4-5x one numpy pass
+(tests/benchmarks: crossings_long_series), of which the pass is ~2.6x and the events, the dwell tests
+(Monte Carlo) and the TST histogram the rest. Everything here is a heuristic read of finite data; see
 :data:`phasewake.core.verdicts.HEURISTIC_NOTE`.
 """
 
