@@ -1,11 +1,14 @@
 """Velocity autocorrelation, diffusion (Green-Kubo and mean-squared displacement), vibrational spectrum.
 
-Everything streams over frame chunks with bounded memory. The correlation over time origins is
-accumulated block by block: frames are cut into consecutive blocks of L frames (L = the lag window);
-the contribution of the origins in block b to lags 0..L-1 is the FFT cross-correlation of block b with
-the concatenation (block b, block b+1), zero-padded to 2L, so there is no circular wrap-around. Only
-one block and the transform of the previous one are held (about 3 L n_atoms 3 floats), and the exact
-sum over all origins is recovered.
+Everything streams over frame chunks with bounded memory, and the exact sum over all time origins is
+recovered (:class:`BlockCorrelator`). For lag windows up to 256 frames the frame-pair products of the
+band of L lags are BLAS matrix products of S origins against the S + L - 1 frames they reach (cost
+~ 2 (S + L - 1) flops per value and origin, S ~ L / 3); for longer windows, blocks of B >= L frames
+are correlated by FFT with the next block (zero-padded to 2B, so there is no circular wrap-around).
+Either way only about 2 (L + S) frames of the used atoms are held between chunks.
+The VACF is compute-bound: 20,000 atoms, 2,200 frames and 50 lags are ~17 GFLOP of float32 products,
+~0.45 s of one core of the shared test machine, against ~0.1 s to read the velocities from the page
+cache.
 The spectrum is then the Fourier transform of the averaged, windowed VACF (Wiener-Khinchin).
 
 Methods and papers:
