@@ -5,6 +5,13 @@
 energy per frame and per group, centre-of-mass motion, rigid-pair distances for constraint inference,
 the velocity spectrum, speed samples) and works on the energy table for the rest.
 
+The frame pass is a chunk reduction, :class:`AuditFramesConsumer` (``prepare`` / ``update`` /
+``finish``, the protocol of :mod:`phasewake.core.onepass`): ``audit_run`` drives it through
+``onepass.run_pass``, and a shared one-pass request can feed it next to other consumers and hand its
+:class:`AuditFrames` to ``audit_run(run, frames=...)``, which then reads no frames. The energy table is
+summed in one blocked pass (:func:`phasewake.core.energy.scan_energy_table`) that feeds the events,
+the drift, the fluctuations and the sampling of every series.
+
 Every verdict names what was measured, the threshold and its source, and advice. These diagnostics are
 heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
 """
