@@ -219,8 +219,14 @@ class BlockCorrelator:
 
     @staticmethod
     def buffer_bytes(n_atoms: int, max_lag: int, dtype: Any = np.float32) -> int:
-        """Memory the block buffers need (bytes), the larger of the two engines."""
-        return 3 * int(max_lag) * int(n_atoms) * 3 * np.dtype(dtype).itemsize
+        """Memory the block buffers need (bytes), the larger of the two engines.
+
+        FFT engine: about 3 L frames (a block and the transform of the previous one); Gram engine:
+        2 (L + S) frames (the carried frames and those that complete them).
+        """
+        lag = int(max_lag)
+        frames = max(3 * lag, 2 * (lag + _gram_subblock(lag)))
+        return frames * int(n_atoms) * 3 * np.dtype(dtype).itemsize
 
     def update(self, block: np.ndarray) -> None:
         data = np.asarray(block)

@@ -124,3 +124,12 @@ def test_float32_sums_do_not_depend_on_chunking_or_threads(monkeypatch: pytest.M
         out.append(feed(c, x, sizes, scratch=True)[0])
     for o in out[1:]:
         np.testing.assert_allclose(o, out[0], rtol=1e-12, atol=0)
+
+
+@pytest.mark.parametrize("lag", [1, 5, 20, 50, 256, 300])
+def test_buffer_estimate_covers_the_buffers(lag: int) -> None:
+    """buffer_bytes (used for the memory checks of vacf and the one-pass VACF) is not an underestimate."""
+    c = V.BlockCorrelator(n_atoms=10, max_lag=lag, weights=np.ones(10), group_of_atom=np.zeros(10, int),
+                          n_groups=1)
+    held = sum(getattr(c, name).nbytes for name in ("_buf", "_cur") if hasattr(c, name))
+    assert 0 < held <= V.BlockCorrelator.buffer_bytes(10, lag)
