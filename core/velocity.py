@@ -454,7 +454,8 @@ def _default_lag(n_frames: int, n_atoms: int, max_buffer_bytes: int, dtype: Any 
                  ) -> tuple[int, list[str]]:
     notes = []
     lag = max(1, n_frames // 2)
-    cap = max(2, int(max_buffer_bytes // max(1, BlockCorrelator.buffer_bytes(n_atoms, 1, dtype))))
+    per_lag = 3 * max(1, n_atoms) * 3 * np.dtype(dtype).itemsize  # ~3 frames per lag (both engines, L >= 36)
+    cap = max(2, int(max_buffer_bytes // per_lag))
     if lag > cap:
         notes.append(f"the lag window was limited to {cap} frames to keep memory under "
                      f"{max_buffer_bytes / 2**20:.0f} MiB; choose fewer atoms or a larger buffer for a finer "
