@@ -408,7 +408,8 @@ def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
     if any(x.shape != (n,) for x in cols):
         raise AnalysisError("the columns of one scan must be 1D and equally long")
     stride_sub = max(1, n // 1024)
-    shift = np.array([float(np.mean(x[::stride_sub])) if n else 0.0 for x in cols])
+    with np.errstate(invalid="ignore", over="ignore"):
+        shift = np.array([float(np.mean(x[::stride_sub])) if n else 0.0 for x in cols])
     if not np.all(np.isfinite(shift)):
         shift = np.zeros(c)  # a non-finite value in the subsample: the pass reports it below
     pairs = [(names.index(a), names.index(b)) for a, b in cross]
@@ -426,7 +427,8 @@ def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
     width = min(block, max(n, 1))
     buf = np.empty((c, width))
     dbuf = np.empty(width)
-    with one_blas_thread():
+    # non-finite values only make the sums non-finite (reported as finite=False): no warnings for them
+    with one_blas_thread(), np.errstate(invalid="ignore", over="ignore"):
         for b in range(n_blocks):
             a0, a1 = b * block, min(n, (b + 1) * block)
             m = a1 - a0
@@ -459,8 +461,10 @@ def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
     lo[~ext] = np.nan
     hi[~ext] = np.nan
     mu = sums / n if n else sums
-    return TableScan(n_rows=n, names=names, mean=shift + mu, m2=sq - n * mu * mu, minimum=lo, maximum=hi,
-                     cross={cross[q]: float(xy[q] - n * mu[ja] * mu[jb]) for q, (ja, jb) in enumerate(pairs)},
+    with np.errstate(invalid="ignore", over="ignore"):
+        m2 = sq - n * mu * mu
+        xc = {cross[q]: float(xy[q] - n * mu[ja] * mu[jb]) for q, (ja, jb) in enumerate(pairs)}
+    return TableScan(n_rows=n, names=names, mean=shift + mu, m2=m2, minimum=lo, maximum=hi, cross=xc,
                      finite=finite, diffs={k: DiffScan(v[0], v[1], v[2], dstride) for k, v in dsc.items()},
                      block_rows=block)
 
@@ -695,7 +699,8 @@ def energy_fluctuations(
     se = detrended_std(time_ps, e, scan=scan)
     sk = ratio = None
     if kinetic_kJ_per_mol is not None:
-        if scan is not None and kinetic_column is not None and kinetic_column in scan.names:
+        if (scan is not None and scan.finite and scan.n_rows == e.shape[0] and kinetic_column is not None
+                and kinetic_column in scan.names):
             sk = scan.std(kinetic_column)
         else:
             k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)

@@ -139,3 +139,36 @@ def test_audit_of_a_long_table_matches_direct_numpy_numbers():
     ref = en._events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=1 << 20,
                             settings=ev.settings)
     assert ev == ref
+
+
+def test_audit_with_non_finite_rows_takes_the_masked_route():
+    """A NaN kinetic energy and an infinite potential energy: the rows are dropped, and the numbers are
+    numpy's on the remaining rows (reference)."""
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import drive
+    from phasewake.core.readers.memory import run_from_arrays
+
+    n = 20_000
+    rng = np.random.default_rng(10)
+    t = np.arange(n) * 1e-3
+    ke = 500 + 10 * rng.standard_normal(n)
+    pe = -800 - (ke - 500) + 0.05 * rng.standard_normal(n)
+    ke[123] = np.nan
+    pe[4567] = np.inf
+    table = EnergyTable(time_ps=t, series={"kinetic": Series("kinetic", ke, "kJ/mol", "kinetic"),
+                                           "potential": Series("potential", pe, "kJ/mol", "potential")})
+    run = run_from_arrays(np.zeros((1, 10, 3)), np.zeros(1), np.ones(10), energies=table,
+                          metadata=RunMetadata(ensemble="NVE", timestep_ps=0.001))
+    run.frames = None
+    run.time_ps = t[:0]
+    res = drive(audit_run(run))
+    ok = np.isfinite(ke) & np.isfinite(pe)
+    e = (pe + ke)[ok]
+    assert res.energy.events.n_nonfinite == 2
+    slope, icpt = np.polyfit(t[ok], e, 1)  # numpy least squares on the finite rows (reference)
+    assert res.energy.drift.slope_kJ_per_mol_per_ns == pytest.approx(slope * 1e3, rel=1e-6)
+    assert res.energy.fluctuations.sigma_kinetic_kJ_per_mol == pytest.approx(float(np.std(ke[ok])), rel=1e-10)
+    by = {s.name: s for s in res.energy.sampling}
+    assert by["kinetic"].n_samples == n - 1 and by["kinetic"].mean == pytest.approx(float(np.nanmean(ke)), rel=1e-12)
+    assert res.temperature.mean_K == pytest.approx(
+        float(np.nanmean(ke)) * 2 / (res.temperature.n_dof * en.boltzmann_kJ_per_mol_K()), rel=1e-12)
