@@ -124,6 +124,7 @@ class VelocitySpectrumAccumulator:
         self._n_segments = 0
         self._carry: np.ndarray | None = None
         self._colw: np.ndarray | None = None  # per-column weights of the flat layout, made on first use
+        self._bufs: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # work buffers by block width
         self._win32 = np.zeros((0, 1), np.float32)
 
     def _segment(self, seg: np.ndarray) -> None:
@@ -147,12 +148,19 @@ class VelocitySpectrumAccumulator:
         width = 3 * self.block_atoms
         for c0 in range(0, flat.shape[1], width):
             x = flat[:, c0:c0 + width]
-            blk = x - x.mean(axis=0, keepdims=True)
+            w = x.shape[1]
+            bufs = self._bufs.get(w)
+            if bufs is None:  # reused between segments: fresh pages of large temporaries are slow to touch
+                bufs = self._bufs[w] = (np.empty((x.shape[0], w), np.float32),
+                                        np.empty((x.shape[0] // 2 + 1, 2 * w), np.float64))
+            blk = np.subtract(x, x.mean(axis=0, keepdims=True), out=bufs[0])
             blk *= self._win32
-            f = scipy.fft.rfft(blk, axis=0, overwrite_x=True)  # float32 in, complex64 (n_freq, cols) out
+            f = scipy.fft.rfft(blk, axis=0)  # float32 in, complex64 (n_freq, cols) out
             fv = f.view(np.float32)  # (n_freq, 2 cols): real and imaginary parts side by side
             np.multiply(fv, fv, out=fv)
-            both = fv.astype(np.float64) @ self._colw[2 * c0:2 * (c0 + x.shape[1])]  # (n_freq, 1 + G)
+            pw = bufs[1]
+            pw[...] = fv  # float64 sums from here on
+            both = pw @ self._colw[2 * c0:2 * (c0 + w)]  # (n_freq, 1 + G)
             self._power += both[:, 0]
             if self.labels is not None:
                 self._group_power += both[:, 1:].T
