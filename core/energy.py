@@ -469,12 +469,19 @@ def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
                      block_rows=block)
 
 
-def fast_median(x: np.ndarray) -> float:
-    """np.median of a finite 1D array by one partition (np.median partitions at two ranks plus a NaN check)."""
+def fast_median(x: np.ndarray, *, overwrite: bool = False) -> float:
+    """np.median of a finite 1D array by one partition (np.median partitions at two ranks plus a NaN check).
+
+    ``overwrite``: partition ``x`` itself (a float64 array the caller no longer needs) instead of a copy.
+    """
     a = np.asarray(x, dtype=np.float64)
     n = a.size
     h = n // 2
-    part = np.partition(a, h)
+    if overwrite and a is x:
+        a.partition(h)
+        part = a
+    else:
+        part = np.partition(a, h)
     if n % 2:
         return float(part[h])
     return float((part[:h].max() + part[h]) / 2.0)
@@ -879,8 +886,8 @@ def _events_from_scan(t: np.ndarray, e: np.ndarray, scan: TableScan, *, jump_rob
     B = scan.block_rows
     dt_s, de_s = scan.diffs[_T], scan.diffs[_Y]
     # time spacings: overlaps/reversals (d <= 0) and gaps, looked for only in blocks that can hold one
-    pos = dt_s.sample[dt_s.sample > 0]
-    median_dt = fast_median(pos) if pos.size else None
+    pos = dt_s.sample[dt_s.sample > 0]  # a copy: partitioned in place below
+    median_dt = fast_median(pos, overwrite=True) if pos.size else None
     over_l: list[np.ndarray] = []
     for lo, hi in _rows_of_blocks(dt_s.block_min <= 0, B, nd):
         dt = np.diff(t[lo:hi + 1])
@@ -914,7 +921,8 @@ def _events_from_scan(t: np.ndarray, e: np.ndarray, scan: TableScan, *, jump_rob
     if n >= 5:
         sub = de_s.sample
         med = fast_median(sub)
-        s = 1.4826 * fast_median(np.abs(sub - med))
+        dev = np.subtract(sub, med)
+        s = 1.4826 * fast_median(np.abs(dev, out=dev), overwrite=True)
         ie = scan.index(_Y)
         floor = 1e-12 * max(1.0, float(scan.maximum[ie]), -float(scan.minimum[ie]))
         s = max(s, floor)
@@ -938,8 +946,12 @@ def _events_from_scan(t: np.ndarray, e: np.ndarray, scan: TableScan, *, jump_rob
                                       f"t = {t[jr + 1]:.6g} ps"))
         tenth = nd // 10
         if tenth >= 2:
-            first = float(np.sqrt(np.mean((np.diff(e[:tenth + 1]) - med) ** 2)))
-            last = float(np.sqrt(np.mean((np.diff(e[nd - tenth:]) - med) ** 2)))
+            def rms(d: np.ndarray) -> float:  # sqrt(mean((d - med)^2)) without further temporaries
+                d -= med
+                return float(np.sqrt(np.mean(np.square(d, out=d))))
+
+            first = rms(np.diff(e[:tenth + 1]))
+            last = rms(np.diff(e[nd - tenth:]))
             runaway = last / max(first, floor)
             if runaway > 3.0:
                 events.append(EnergyEvent("runaway", int(n - 1), float(t[-1]), runaway, "",

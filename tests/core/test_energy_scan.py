@@ -84,6 +84,7 @@ def test_fast_median_is_numpys_median():
     for n in (1, 2, 7, 1000, 1001):
         x = rng.standard_normal(n)
         assert en.fast_median(x) == float(np.median(x))  # numpy (reference), bit for bit
+        assert en.fast_median(x.copy(), overwrite=True) == float(np.median(x))
 
 
 def test_series_sampling_matches_numpy():
