@@ -576,20 +576,20 @@ def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surf
             parts = list(pool.map(lambda k: _scan_part(t, q, bounds[k], bounds[k + 1], surface),
                                   range(len(bounds) - 1)))
     crs = [c for p in parts for c in p[0]]
-    pmax = np.concatenate([m for p in parts for m in p[1]])
-    pmin = np.concatenate([m for p in parts for m in p[2]])
+    maxs = [m for p in parts for m in p[1]]
+    mins = [m for p in parts for m in p[2]]
     finite = all(p[3] for p in parts)
     increasing = all(p[4] for p in parts)
-    # Piece j of a chunk with C crossings before it belongs to segment C + j; the segments' extremes
-    # are the extremes of their pieces (pieces are in order, each segment has at least one).
+    # Segment s >= 1 begins at crossing s; in its chunk it is a piece after a crossing (index >= 1).
+    # The first piece of every chunk continues the segment open at the chunk's start (number: the
+    # crossings before the chunk) and is folded into it; segment 0 is made of such first pieces only.
     per_chunk = np.array([c.size for c in crs], np.int64)
-    before = np.concatenate(([0], np.cumsum(per_chunk)[:-1]))
-    seg_of_piece = np.repeat(before, per_chunk + 1) + (
-        np.arange(pmax.size) - np.repeat(np.concatenate(([0], np.cumsum(per_chunk + 1)[:-1])), per_chunk + 1))
-    first_piece = np.flatnonzero(np.concatenate(([True], seg_of_piece[1:] != seg_of_piece[:-1])))
-    seg_max = np.maximum.reduceat(pmax, first_piece)
-    seg_min = np.minimum.reduceat(pmin, first_piece)
-    cr = np.concatenate(crs).astype(np.int64) if crs else np.zeros(0, np.int64)
+    before = np.concatenate(([0], np.cumsum(per_chunk)[:-1])).astype(np.intp)
+    cr = np.concatenate(crs).astype(np.int64, copy=False)
+    seg_max = np.concatenate([[-math.inf]] + [m[1:] for m in maxs])
+    seg_min = np.concatenate([[math.inf]] + [m[1:] for m in mins])
+    np.maximum.at(seg_max, before, np.array([m[0] for m in maxs]))
+    np.minimum.at(seg_min, before, np.array([m[0] for m in mins]))
     starts = np.concatenate(([0], cr)).astype(np.int64)
     ends = np.concatenate((cr, [n])).astype(np.int64)
     first = int(q[0] >= surface)
@@ -613,7 +613,8 @@ def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surf
         exits[1:] = 1 + _first_indices(q, starts[og], ends[og], np.where(b_side[1:], a_hi, b_lo),
                                        ~b_side[1:], last=True)
     # for each crossing (which starts segment j + 1): the first touching segment at or after it
-    j = np.searchsorted(tseg, np.arange(1, starts.size), side="left")
+    # j[v - 1] = number of touching segments before segment v (= searchsorted(tseg, v, "left"))
+    j = np.cumsum(np.bincount(tseg, minlength=starts.size))[: starts.size - 1]
     has = j < tseg.size
     jj = np.minimum(j, max(tseg.size - 1, 0))
     nseg = tseg[jj] if tseg.size else np.zeros(j.size, np.int64)
@@ -722,7 +723,8 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
     else:
         vel = dq / (t1 - t0)
     n_c = int(i0.size)
-    k_prev = np.searchsorted(starts, i0, side="right") - 1
+    # k_prev = searchsorted(starts, i0, "right") - 1, by counting (both sorted; i0 has many more entries)
+    k_prev = np.cumsum(np.bincount(np.searchsorted(i0, starts, side="left"), minlength=n_c + 1))[:n_c] - 1
     from_lab = np.where(k_prev >= 0, labels[np.maximum(k_prev, 0)] if n_runs else -1, -1)
     next_entry = sc.next_entry
     has_next_core = next_entry != _NONE
