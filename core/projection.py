@@ -353,8 +353,12 @@ class _Accumulator:
         y = self.ybuf[:x.shape[0]]
         # the fit's products are skinny (3 and 9 columns): one BLAS thread, as for other short products on
         # this shared machine (correlation.one_blas_thread); the block's big products below keep them all
-        with one_blas_thread():
-            self.fitter.displacements(x, y)
+        try:
+            with one_blas_thread():
+                self.fitter.displacements(x, y)
+        except AnalysisError as exc:
+            raise AnalysisError(f"{exc}; the block starts at frame {self.n} of the PCA window (counted from its "
+                                "first frame)") from exc
         self._reduce(y)
 
     def _reduce(self, y: np.ndarray) -> None:
@@ -374,7 +378,11 @@ class _Accumulator:
             if self.sums:
                 self.sqnorm += float(np.einsum("fd,fd->f", y, y).sum(dtype=np.float64))
         if self.sums:
-            self.s1 += _column_sums(y)
+            cs = _column_sums(y)
+            if not np.all(np.isfinite(cs)):
+                raise AnalysisError(f"non-finite positions (NaN or inf) in frames {self.n}-{self.n + m - 1} of the "
+                                    "PCA window (counted from its first frame)")
+            self.s1 += cs
         self.n += m
 
 

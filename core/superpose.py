@@ -40,6 +40,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from phasewake.core.errors import AnalysisError
+
 # Frames are fitted in blocks of at most this many bytes per array (bounded temporaries; smaller blocks
 # were not faster here: the Python overhead per block outweighed the cache gain below ~2 MB).
 BLOCK_BYTES = 1 << 24
@@ -234,6 +236,10 @@ class FrameFitter:
             self._buf = np.empty((m, 3, g), dtype=self.dtype)
         xt = self._buf[:m]
         centre = np.asarray(x).reshape(m, d) @ self.w_centre  # (m, 3)
+        if not np.all(np.isfinite(centre)):  # a NaN or inf anywhere in a frame makes its centre non-finite
+            bad = np.flatnonzero(~np.all(np.isfinite(centre), axis=1))
+            raise AnalysisError(f"non-finite positions (NaN or inf) in {bad.size} frame(s) of a block, the first "
+                                f"at row {int(bad[0])}")
         np.subtract(np.asarray(x).transpose(0, 2, 1), centre[:, :, None], out=xt)  # centred, (m, 3, g)
         if not self.uniform:
             xt *= self.sq

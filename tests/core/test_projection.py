@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import mdtraj as md
 import numpy as np
+import pytest
 from sklearn.decomposition import PCA
 
 from phasewake.core.coordinates import compute_coordinates
@@ -185,3 +186,13 @@ def test_stride_and_reader_chunks():
     whole = result_of(compute_pca(run, n_components=3, chunk_frames=64))
     np.testing.assert_array_equal(small.eigenvalues, whole.eigenvalues)
     np.testing.assert_array_equal(small.eigenvectors, whole.eigenvectors)
+
+
+def test_non_finite_positions_are_named():
+    from phasewake.core.errors import AnalysisError
+
+    pos, m = _correlated(n=300, g=5, seed=14)
+    pos[123, 2, 1] = np.nan
+    for fit in (True, False):
+        with pytest.raises(AnalysisError, match="non-finite"):
+            pca_arrays(pos, m, fit=fit, n_components=2, chunk_frames=100)
