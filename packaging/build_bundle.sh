@@ -6,10 +6,18 @@ cd "$(dirname "$0")/.."
 BIN=.venv/bin
 $BIN/python -m pip install --quiet "pyinstaller==6.22.3"
 start=$(date +%s)
-$BIN/pyinstaller --noconfirm --clean --log-level WARN \
+# The development install is editable (core/ and app/ are mapped onto phasewake.core / phasewake.app by an
+# import hook), which PyInstaller cannot follow: install a plain copy of the package into a staging folder
+# and freeze from there.
+rm -rf build/bundle/site
+$BIN/python -m pip install --quiet --no-deps --target build/bundle/site .
+# PYTHONPATH puts the plain copy ahead of the editable install's import hook in PyInstaller's own helpers
+PYTHONPATH="$PWD/build/bundle/site" $BIN/pyinstaller --noconfirm --clean --log-level WARN \
   --name phasewake --distpath dist/bundle --workpath build/bundle --specpath build/bundle \
+  --paths build/bundle/site \
   --collect-data phasewake.sample_data --collect-submodules phasewake \
-  --collect-all mdtraj --hidden-import scipy.special._cdflib \
+  --collect-submodules phasewake.app.commands --collect-submodules phasewake.app.window \
+  --collect-all mdtraj \
   packaging/bundle_entry.py
 echo "bundle built in $(( $(date +%s) - start )) s: dist/bundle/phasewake/"
 # Smoke test of the frozen program, offscreen, no display needed.
