@@ -522,6 +522,9 @@ class PCAReduction:
 
         if self.reference is None:
             self.reference = np.asarray(x[0], dtype=np.float64)  # the first frame of the window
+        if not np.all(np.isfinite(self.reference)):
+            raise AnalysisError("the PCA reference (default: the first frame of the window) has non-finite "
+                                "positions", path=_path(self.run))
         self.fitter = FrameFitter(self.reference, self.fit_w, scale=self.sq, dtype=self.dt, fit=self.fit)
         omega = None if self.omega0 is None else self.omega0[self.fitter.order]
         self.acc = _Accumulator(self.fitter, block=self.block, mode=self.method, omega=omega)

@@ -196,3 +196,7 @@ def test_non_finite_positions_are_named():
     for fit in (True, False):
         with pytest.raises(AnalysisError, match="non-finite"):
             pca_arrays(pos, m, fit=fit, n_components=2, chunk_frames=100)
+    pos[123, 2, 1] = 0.0
+    pos[0, 1, 0] = np.inf  # in the reference frame
+    with pytest.raises(AnalysisError, match="reference"):
+        pca_arrays(pos, m, n_components=2)
