@@ -188,7 +188,7 @@ class AuditFrames:
 
     time_ps: np.ndarray
     kinetic_kJ_per_mol: np.ndarray
-    com_kinetic_kJ_per_mol: np.ndarray
+    com_kinetic_kJ_per_mol: np.ndarray | None  # None when not asked for (``want_com=False``)
     group_names: tuple[str, ...]
     group_kinetic_kJ_per_mol: np.ndarray
     inference: tm.ConstraintInference | None
@@ -199,6 +199,11 @@ class AuditFrames:
     speeds_nm_per_ps: dict[str, np.ndarray]
     speed_frame_stride: int
     settings: dict[str, Any] = field(default_factory=dict)
+
+
+def _needs_com(run: Run, thermostatted: bool) -> bool:
+    """Whether the audit decides the removed centre-of-mass motion from the frames (see ``audit_run``)."""
+    return thermostatted and run.metadata.com_motion_removed is None
 
 
 def audit_groups(run: Run, *, n_constraints: int | None = None,
@@ -229,6 +234,9 @@ class AuditFramesConsumer:
         Collect rigid-pair distances (needs positions and a topology).
     want_speeds : bool
         Keep speed samples (the audit does for thermostatted runs).
+    want_com : bool
+        Sum the total momentum per frame for the centre-of-mass kinetic energy (the audit needs it only
+        for thermostatted runs whose files do not say whether that motion was removed).
     segment_frames : int
         Frames per spectrum segment (at most half the frames of the pass).
     max_segments : int or None
@@ -245,13 +253,15 @@ class AuditFramesConsumer:
     SUB_FRAMES = 8  # frames per sub-block (8 x 3 n_atoms float32: ~2 MB for 20,000 atoms)
 
     def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray], infer: bool,
-                 want_speeds: bool, segment_frames: int = 256, max_segments: int | None = 64) -> None:
+                 want_speeds: bool, want_com: bool = True, segment_frames: int = 256,
+                 max_segments: int | None = 64) -> None:
         if run.frames is None or not run.frames.has_velocities:
             raise MissingDataError("the run holds no velocities (and none can be estimated)",
                                    path=run.paths[0] if run.paths else None)
         self.run = run
         self.groups = {k: np.asarray(v, dtype=np.int64) for k, v in groups.items()}
         self.want_speeds = bool(want_speeds)
+        self.want_com = bool(want_com)
         self.segment_frames = int(segment_frames)
         self.max_segments = max_segments
         self.rigid: tm.RigidPairAccumulator | None = None
@@ -281,6 +291,7 @@ class AuditFramesConsumer:
         thermostatted, _ = _is_thermostatted(run)
         return cls(run, groups=audit_groups(run, n_constraints=n_constraints, groups=groups),
                    infer=run.topology is not None and run.frames is not None, want_speeds=thermostatted,
+                   want_com=_needs_com(run, thermostatted),
                    segment_frames=segment_frames, max_segments=max_spectrum_segments)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
@@ -348,12 +359,14 @@ class AuditFramesConsumer:
             vb = vf[f0:f1]
             sq = np.multiply(vb, vb, out=self._sq[: f1 - f0])  # squared components, in cache
             np.matmul(sq, self._w3, out=both[f0:f1])  # kinetic energy of all atoms, then of every group
-            p[f0:f1] = np.matmul(self._m32, v[f0:f1])  # total momentum
+            if self.want_com:
+                p[f0:f1] = np.matmul(self._m32, v[f0:f1])  # total momentum
             if spec is not None and sel is not None and idx is not None:
                 np.take(v[f0:f1], idx, axis=1, out=sel[f0:f1])
         self._kin[pos:pos + k] = both[:, 0]
-        p64 = p.astype(np.float64)
-        self._com[pos:pos + k] = np.einsum("fi,fi->f", p64, p64) / (2.0 * self._m_total)
+        if self.want_com:
+            p64 = p.astype(np.float64)
+            self._com[pos:pos + k] = np.einsum("fi,fi->f", p64, p64) / (2.0 * self._m_total)
         if self.groups:
             self._gk[pos:pos + k] = both[:, 1:]
         self._times[pos:pos + k] = chunk.time_ps
@@ -384,7 +397,8 @@ class AuditFramesConsumer:
                 note = "too few frames for one spectrum segment"
         start, stop, chunk = self._range
         return AuditFrames(
-            time_ps=self._times[:pos], kinetic_kJ_per_mol=self._kin[:pos], com_kinetic_kJ_per_mol=self._com[:pos],
+            time_ps=self._times[:pos], kinetic_kJ_per_mol=self._kin[:pos],
+            com_kinetic_kJ_per_mol=self._com[:pos] if self.want_com else None,
             group_names=tuple(self.groups), group_kinetic_kJ_per_mol=self._gk[:pos],
             inference=None if self.rigid is None else self.rigid.finish(),
             spectrum_frequency_per_ps=freq, spectrum_power=power, group_spectra=group_spectra, spectrum_note=note,
@@ -392,7 +406,7 @@ class AuditFramesConsumer:
                               for sp, v_ in self.speed_store.items()},
             speed_frame_stride=self.stride,
             settings={"groups": {k: int(v.size) for k, v in self.groups.items()},
-                      "infer": self.rigid is not None, "want_speeds": self.want_speeds,
+                      "infer": self.rigid is not None, "want_speeds": self.want_speeds, "want_com": self.want_com,
                       "segment_frames": self.segment_frames, "max_segments": self.max_segments,
                       "start": start, "stop": stop, "chunk_frames": chunk},
         )
@@ -544,9 +558,13 @@ def audit_run(
             if frames.group_names != tuple(all_groups) or frames.kinetic_kJ_per_mol.size != run.n_frames:
                 raise AnalysisError("the frame results given to the audit were made for other groups or "
                                     "another frame range", path=path0)
+            if frames.com_kinetic_kJ_per_mol is None and _needs_com(run, thermostatted):
+                raise AnalysisError("the frame results given to the audit lack the centre-of-mass kinetic "
+                                    "energy it needs (make them with AuditFramesConsumer.for_run)", path=path0)
             fp = frames
         else:
             consumer = AuditFramesConsumer(run, groups=all_groups, infer=infer, want_speeds=thermostatted,
+                                           want_com=_needs_com(run, thermostatted),
                                            segment_frames=segment_frames, max_segments=max_spectrum_segments)
             fp = yield from _frame_pass(run, consumer, chunk_frames=chunk_frames, done0=0.0, total=total)
         inference = fp.inference
@@ -574,7 +592,8 @@ def audit_run(
         com_src = "metadata"
     elif not thermostatted:
         n_com, com_src = 3, "NVE: total momentum is conserved"
-    elif fp is not None and fp.kinetic_kJ_per_mol.size and float(np.mean(fp.com_kinetic_kJ_per_mol)) < 1e-4 * float(np.mean(fp.kinetic_kJ_per_mol)):
+    elif (fp is not None and fp.kinetic_kJ_per_mol.size and fp.com_kinetic_kJ_per_mol is not None
+          and float(np.mean(fp.com_kinetic_kJ_per_mol)) < 1e-4 * float(np.mean(fp.kinetic_kJ_per_mol))):
         n_com, com_src = 3, "inferred: the centre-of-mass momentum stays zero"
     else:
         n_com, com_src = 0, "thermostatted and the centre-of-mass momentum fluctuates: not removed"

@@ -142,3 +142,19 @@ def test_frames_for_other_groups_are_refused():
     fr = drive(run_pass(run, {"a": AuditFramesConsumer.for_run(run, groups={"x": np.arange(3)})}))["a"]
     with pytest.raises(AnalysisError, match="other groups"):
         drive(audit_run(run, frames=fr))
+
+
+def test_centre_of_mass_sums_only_when_the_audit_needs_them():
+    nve = _water_ions(n_frames=64, thermostatted=False)
+    fr = drive(run_pass(nve, {"a": AuditFramesConsumer.for_run(nve)}))["a"]
+    assert fr.com_kinetic_kJ_per_mol is None  # NVE: 3 removed by rule, nothing to decide from frames
+    nvt = _water_ions(n_frames=64, thermostatted=True)
+    fr2 = drive(run_pass(nvt, {"a": AuditFramesConsumer.for_run(nvt)}))["a"]
+    assert fr2.com_kinetic_kJ_per_mol is not None and fr2.com_kinetic_kJ_per_mol.shape == (64,)
+    from phasewake.core.errors import AnalysisError
+
+    fr3 = drive(run_pass(nvt, {"a": AuditFramesConsumer(nvt, groups={}, infer=True, want_speeds=True,
+                                                        want_com=False)}))["a"]
+    with pytest.raises(AnalysisError, match="centre-of-mass"):
+        drive(audit_run(nvt, frames=dataclasses.replace(fr3, group_names=fr2.group_names,
+                                                        group_kinetic_kJ_per_mol=fr2.group_kinetic_kJ_per_mol)))
