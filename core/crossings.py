@@ -486,13 +486,10 @@ def _first_index(q: np.ndarray, start: int, stop: int, level: float, above: bool
         width *= 8
 
 
-def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels: np.ndarray,
-                   above: np.ndarray, *, last: bool = False, window: int = 64) -> np.ndarray:
-    """:func:`_first_index` for many segments: one gathered window each, a loop only for the rare rest."""
-    m = starts.size
-    out = np.full(m, -1, np.int64)
-    if m == 0:
-        return out
+def _window_hits(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels: np.ndarray, above: np.ndarray,
+                 last: bool, window: int) -> np.ndarray:
+    """First (last) hit within ``window`` frames of each segment's start (end), -1 where none."""
+    out = np.full(starts.size, -1, np.int64)
     off = np.arange(window)
     idx = (stops[:, None] - 1 - off[None, :]) if last else (starts[:, None] + off[None, :])
     inside = (idx >= starts[:, None]) & (idx < stops[:, None])
@@ -501,7 +498,23 @@ def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels:
     found = hit.any(axis=1)
     pos = np.argmax(hit, axis=1)
     out[found] = idx[found, pos[found]]
-    for k in np.flatnonzero(~found):  # cores reached later than the window: search on
+    return out
+
+
+def _first_indices(q: np.ndarray, starts: np.ndarray, stops: np.ndarray, levels: np.ndarray,
+                   above: np.ndarray, *, last: bool = False) -> np.ndarray:
+    """:func:`_first_index` for many segments: gathered windows of 8 frames, then of 64 for the segments
+    without a hit (the wider window then gives the same first hit, as the narrower held none), and a loop
+    only for the rare rest."""
+    out = np.full(starts.size, -1, np.int64)
+    todo = np.arange(starts.size)
+    for window in (8, 64):
+        if not todo.size:
+            return out
+        got = _window_hits(q, starts[todo], stops[todo], levels[todo], above[todo], last, window)
+        out[todo] = got
+        todo = todo[got < 0]
+    for k in todo:  # cores reached later than the window: search on
         out[k] = _first_index(q, int(starts[k]), int(stops[k]), float(levels[k]), bool(above[k]), last=last)
     return out
 
