@@ -244,8 +244,8 @@ class AuditFramesConsumer:
 
     Per chunk the work goes in sub-blocks of 8 frames, which stay in cache while they are squared,
     multiplied with the kinetic-energy weights (one float32 product for all atoms and every group:
-    relative error ~1e-6), summed into the total momentum and gathered for the spectrum: one memory
-    pass over the chunk instead of four.
+    relative error ~1e-6), summed into the total momentum (when ``want_com``) and gathered for the
+    spectrum: one memory pass over the chunk instead of four.
     """
 
     atoms: np.ndarray | None = None
