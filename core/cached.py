@@ -265,9 +265,8 @@ def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | N
                                mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
     if not run.paths or run.frames is None or not specs:
         return (yield from work)
-    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
-    settings = {"specs": list(specs), "start": int(start), "stop": stop_, "chunk_frames": chunk_frames,
-                "mass_weighted_pca": bool(mass_weighted_pca), "fit_pca": bool(fit_pca)}
+    settings = coordinates_settings(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
+                                    mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
     return (yield from cached_work(run, "coordinates", settings, work, cache=cache,
                                    extra_paths=_reference_paths(run, specs)))
 
@@ -345,3 +344,166 @@ def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:
         raise TypeError(f"{func.__name__}() got unexpected keyword(s) {sorted(unknown)}")
     out.update(given)
     return out
+
+
+# ---------------------------------------------------------------------------------------------------
+# several analyses from one read, each through the cache
+# ---------------------------------------------------------------------------------------------------
+
+@dataclasses.dataclass(frozen=True)
+class PassItem:
+    """One analysis of a :func:`cached_pass`.
+
+    analysis, settings, extra_paths : the cache key, exactly as the analysis's own cached variant makes it
+        (so a later ``cached_audit`` / ``cached_pca`` / ``cached_coordinates`` of the same settings hits
+        the entry written here, and the other way round);
+    consumer : makes the chunk consumer (called only on a miss);
+    then : optional; turns ``consumer.finish()`` into the analysis's result (a generator: the audit's
+        energy part, or the PCA's projection pass, which reads the frames a second time).
+    """
+
+    analysis: str
+    settings: Mapping[str, Any]
+    consumer: Any  # Callable[[], ChunkConsumer]
+    then: Any = None  # Callable[[Any], Work[Any]] | None
+    extra_paths: Sequence[str | Path] = ()
+
+
+class _Guarded:
+    """A consumer whose failure (a PhasewakeError) stops feeding it, not the pass."""
+
+    def __init__(self, inner: Any) -> None:
+        self.inner = inner
+        self.atoms = inner.atoms
+        self.needs_positions = inner.needs_positions
+        self.needs_velocities = inner.needs_velocities
+        self.error: BaseException | None = None
+
+    def prepare(self, columns: Any, *, start: int, stop: int, chunk_frames: int) -> None:
+        from phasewake.core.errors import PhasewakeError
+
+        try:
+            self.inner.prepare(columns, start=start, stop=stop, chunk_frames=chunk_frames)
+        except PhasewakeError as exc:
+            self.error = exc
+
+    def update(self, chunk: Any) -> None:
+        from phasewake.core.errors import PhasewakeError
+
+        if self.error is None:
+            try:
+                self.inner.update(chunk)
+            except PhasewakeError as exc:
+                self.error = exc
+
+    def finish(self) -> Any:
+        from phasewake.core.errors import PhasewakeError
+
+        if self.error is not None:
+            return self.error
+        try:
+            return self.inner.finish()
+        except PhasewakeError as exc:
+            return exc
+
+
+def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache | None = None) \
+        -> Work[dict[str, Any]]:
+    """Several analyses of all frames of ``run`` from one read, each looked up in and stored to the cache.
+
+    Items found in the cache are not computed; the others share one :func:`phasewake.core.onepass.run_pass`
+    over the frames (then their ``then`` step). Returns ``{name: result}``, where a result may be the
+    :class:`~phasewake.core.errors.PhasewakeError` that stopped that analysis (the others go on), or None
+    when the analysis cannot be fed from a shared pass with these settings (its consumer refused them, e.g.
+    a PCA by subspace iteration, which needs several passes): the caller then runs it on its own.
+    """
+    from phasewake.core.errors import PhasewakeError
+    from phasewake.core.onepass import run_pass
+
+    cache = ResultCache() if cache is None else cache
+    out: dict[str, Any] = {}
+    keys: dict[str, str | None] = {}
+    for name, item in items.items():
+        key = None
+        if run.paths and cache.enabled:
+            try:
+                key = analysis_key(run, item.analysis, item.settings, extra_paths=item.extra_paths)
+            except (_Uncacheable, OSError):
+                key = None
+        keys[name] = key
+        if key is not None:
+            ok, value = lookup(cache, key, item.analysis)
+            if ok:
+                out[name] = value
+    missing = {n: it for n, it in items.items() if n not in out}
+    if out:
+        yield Progress(1, 1, ", ".join(out) + " (from the cache)")
+    consumers: dict[str, _Guarded] = {}
+    for name, item in missing.items():
+        try:
+            consumers[name] = _Guarded(item.consumer())
+        except PhasewakeError:
+            continue  # not from a shared pass: None, the caller runs it alone
+    if consumers:
+        firsts = yield from run_pass(run, consumers)
+        for name, first in firsts.items():
+            item = missing[name]
+            if isinstance(first, PhasewakeError) or item.then is None:
+                out[name] = first
+                continue
+            try:
+                out[name] = yield from item.then(first)
+            except PhasewakeError as exc:
+                out[name] = exc
+    for name in consumers:
+        key = keys[name]
+        if key is not None and not isinstance(out.get(name), BaseException):
+            store(cache, key, missing[name].analysis, out[name])
+    return {name: out.get(name) for name in items}
+
+
+def audit_item(run: Run, **settings: Any) -> PassItem:
+    """The audit as a :class:`PassItem` (the key of :func:`cached_audit` with the same keywords)."""
+    from phasewake.core.audit import AuditFramesConsumer, audit_run
+
+    def consumer() -> Any:
+        return AuditFramesConsumer.for_run(run, **{k: settings[k] for k in
+                                                   ("n_constraints", "groups", "segment_frames",
+                                                    "max_spectrum_segments") if k in settings})
+
+    return PassItem("audit", _with_defaults(audit_run, settings), consumer,
+                    then=lambda frames: audit_run(run, frames=frames, **settings))
+
+
+def coordinates_settings(run: Run, specs: Sequence[str], *, start: int = 0, stop: int | None = None,
+                         chunk_frames: int | None = None, mass_weighted_pca: bool = True,
+                         fit_pca: bool = True) -> dict[str, Any]:
+    """The key settings of :func:`cached_coordinates`."""
+    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
+    return {"specs": list(specs), "start": int(start), "stop": stop_, "chunk_frames": chunk_frames,
+            "mass_weighted_pca": bool(mass_weighted_pca), "fit_pca": bool(fit_pca)}
+
+
+def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
+    """Coordinates of all frames as a :class:`PassItem` (the key of :func:`cached_coordinates`)."""
+    from phasewake.core.onepass import CoordinatesConsumer
+
+    return PassItem("coordinates", coordinates_settings(run, specs), lambda: CoordinatesConsumer(run, specs),
+                    extra_paths=_reference_paths(run, specs))
+
+
+def pca_item(run: Run, **settings: Any) -> PassItem:
+    """A PCA of all frames as a :class:`PassItem` (the key of :func:`cached_pca`); its projections are a
+    second pass over the frames, as in ``compute_pca``."""
+    from phasewake.core.onepass import PCAConsumer, PCAProjectionConsumer, run_pass
+    from phasewake.core.projection import compute_pca
+
+    def then(pca: Any) -> Work[Any]:
+        if not settings.get("projections", True):
+            return pca
+        got = yield from run_pass(run, {"p": PCAProjectionConsumer(run, pca)})
+        return got["p"]
+
+    return PassItem("pca", _with_defaults(compute_pca, settings),
+                    lambda: PCAConsumer(run, **{k: v for k, v in settings.items() if k != "projections"}),
+                    then=then)

@@ -187,6 +187,11 @@ def build_report(
         pages.append(ReportPage(section=section, title=SECTION_TITLES[section],
                                 text=f"This section is not in the report: {reason}"))
 
+    # 0. one read of the frames feeds the audit, the coordinate and the principal components ----------
+    audit_kw = {"n_constraints": n_constraints, "timestep_ps": timestep_ps, "temperature_K": temperature_K}
+    spec0 = _report_coordinate(run, coordinate)
+    shared = yield from _sub(_shared_pass(run, spec0, audit_kw, cache), 0, total, "one pass over the frames")
+
     # 1. audit ------------------------------------------------------------------------------------
     yield Progress(0, total, "auditing energies and temperature")
     audit = None
@@ -195,8 +200,8 @@ def build_report(
         audit_reason = "the audit module is not part of this build"
     else:
         try:
-            audit = yield from _sub(cached_audit(run, n_constraints=n_constraints, timestep_ps=timestep_ps,
-                                                 temperature_K=temperature_K, cache=cache), 0, total, "audit")
+            audit = yield from _sub(_or_alone(shared, "audit", lambda: cached_audit(run, cache=cache, **audit_kw)),
+                                    0, total, "audit")
             verdicts.extend(audit.verdicts)
             audit_reason = ""
         except PhasewakeError as exc:
@@ -213,12 +218,14 @@ def build_report(
         coord_reason = "the run has no frames (energy table only)"
     else:
         try:
-            spec = coordinate or (coords_mod.default_coordinates(run) or [None])[0]
+            spec = spec0
             if spec is None:
                 coord_reason = "no coordinate was given and none could be suggested (use --coordinate)"
             else:
                 settings["coordinate"] = spec
-                out = yield from _sub(cached_coordinates(run, [spec], cache=cache), 1, total, "coordinate")
+                out = yield from _sub(_or_alone(shared, "coordinate",
+                                                lambda: cached_coordinates(run, [spec], cache=cache)),
+                                      1, total, "coordinate")
                 series = out[0]
         except PhasewakeError as exc:
             coord_reason = f"the coordinate could not be computed: {exc}"
@@ -289,7 +296,7 @@ def build_report(
         skip("coordinate", coord_reason)
 
     yield Progress(4.5, total, "phase-space density and principal components")
-    phase = yield from _phase_page(run, series, 4.5, total, cache=cache)
+    phase = yield from _phase_page(run, series, 4.5, total, cache=cache, shared=shared)
     if isinstance(phase, str):
         skip("phase", phase)
     else:
@@ -471,8 +478,65 @@ def _explained(page: ReportPage) -> ReportPage:
 PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
 
 
-def _phase_page(run: Run, series: Any, base: float, total: float, *,
-                cache: ResultCache | None = None) -> Generator[Progress, None, ReportPage | str]:
+def _report_coordinate(run: Run, coordinate: str | None) -> str | None:
+    """The report's coordinate: the one given, else the coordinate module's first suggestion (or None)."""
+    coords = _optional("phasewake.core.coordinates")
+    if coordinate is not None or coords is None or run.frames is None:
+        return coordinate
+    try:
+        return (coords.default_coordinates(run) or [None])[0]
+    except PhasewakeError:
+        return None
+
+
+def _pca_request(run: Run) -> dict[str, Any] | None:
+    """The principal-components settings of the report (solute atoms; exact route when small), or None."""
+    coords = _optional("phasewake.core.coordinates")
+    if coords is None or run.frames is None or _optional("phasewake.core.projection") is None:
+        return None
+    group = coords.solute_atoms(run.topology, run.n_atoms)
+    if group is None or np.asarray(group).size < 3:  # 2 atoms: one distance, no PCA
+        return None
+    method = "exact" if 3 * np.asarray(group).size <= PCA_EXACT_MAX_COORDS else "randomized"
+    return {"atom_indices": group, "n_components": 3, "method": method}
+
+
+def _shared_pass(run: Run, spec: str | None, audit_kw: Mapping[str, Any],
+                 cache: ResultCache | None) -> Generator[Progress, None, dict[str, Any]]:
+    """The audit, the coordinate and the principal components from one read of the frames (each looked up in
+    the result cache first: ``cached.cached_pass``). Analyses that cannot share it are left to run alone."""
+    from phasewake.core import cached as cached_mod
+
+    if run.frames is None:
+        return {}
+    items: dict[str, Any] = {}
+    try:
+        if _optional("phasewake.core.audit") is not None:
+            items["audit"] = cached_mod.audit_item(run, **audit_kw)
+        if spec is not None and _optional("phasewake.core.coordinates") is not None:
+            items["coordinate"] = cached_mod.coordinates_item(run, [spec])
+        pca_kw = _pca_request(run)
+        if pca_kw is not None:
+            items["pca"] = cached_mod.pca_item(run, **pca_kw)
+    except PhasewakeError:
+        return {}  # a bad coordinate and the like: each section reports it on its own
+    if not items:
+        return {}
+    return (yield from cached_mod.cached_pass(run, items, cache=cache))
+
+
+def _or_alone(shared: Mapping[str, Any], name: str, alone: Any) -> Generator[Progress, None, Any]:
+    """The shared pass's result for ``name`` (raising the error that stopped it), else ``alone()`` run alone."""
+    value = shared.get(name)
+    if isinstance(value, PhasewakeError):
+        raise value
+    if value is not None:
+        return value
+    return (yield from alone())
+
+
+def _phase_page(run: Run, series: Any, base: float, total: float, *, cache: ResultCache | None = None,
+                shared: Mapping[str, Any] | None = None) -> Generator[Progress, None, ReportPage | str]:
     """Density of the coordinate in the (q, p) plane and the principal components of the solute."""
     from phasewake.core import plots
 
@@ -502,8 +566,9 @@ def _phase_page(run: Run, series: Any, base: float, total: float, *,
     if proj is not None and group is not None and np.asarray(group).size >= 3:  # 2 atoms: one distance, no PCA
         try:
             method = "exact" if 3 * np.asarray(group).size <= PCA_EXACT_MAX_COORDS else "randomized"
-            pca = yield from _sub(cached_pca(run, atom_indices=group, n_components=3, method=method, cache=cache),
-                                  base, total, "principal components")
+            pca = yield from _sub(_or_alone(shared or {}, "pca", lambda: cached_pca(
+                run, atom_indices=group, n_components=3, method=method, cache=cache)), base, total,
+                "principal components")
             figs.append(plots.pca_variance_figure(pca))
         except PhasewakeError as exc:
             reasons.append(f"the principal components could not be computed: {exc}")

@@ -408,3 +408,82 @@ def test_a_hit_never_starts_the_analysis(tmp_path, cache_dir):
     # the same settings under another analysis name are another entry
     drive(cached_work(open_run([path]), "toy2", {"a": 1}, work()))
     assert started == [1, 1]
+
+
+def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_analyses(tmp_path, cache_dir):
+    """Audit + coordinate + PCA from one read (and the PCA's projection pass): results equal to the separate
+    analyses (the reference: audit_run, compute_coordinates and compute_pca on their own), and the entries it
+    writes are the ones cached_audit / cached_coordinates / cached_pca look up."""
+    from phasewake.core.audit import audit_run
+    from phasewake.core.cached import (
+        audit_item,
+        cached_audit,
+        cached_pass,
+        cached_pca,
+        coordinates_item,
+        pca_item,
+    )
+    from phasewake.core.projection import compute_pca
+
+    path = _copy(tmp_path)
+    pca_kw = {"atom_indices": np.arange(2, 12), "n_components": 3, "method": "exact"}
+    run, frames = _counted(path)
+    items = {"audit": audit_item(run, n_constraints=0), "q": coordinates_item(run, SPECS),
+             "pca": pca_item(run, **pca_kw)}
+    got = drive(cached_pass(run, items))
+    assert frames.calls == 2  # one shared pass, then the PCA's projections
+    assert len(_entries(cache_dir)) == 3
+    plain = open_run([path])
+    _same(got["audit"], drive(audit_run(plain, n_constraints=0)))
+    _equal(got["q"], drive(compute_coordinates(plain, SPECS)))
+    alone = drive(compute_pca(plain, **pca_kw))
+    np.testing.assert_allclose(got["pca"].eigenvalues, alone.eigenvalues, rtol=1e-9)
+    np.testing.assert_allclose(np.abs(got["pca"].projections), np.abs(alone.projections), rtol=1e-6, atol=1e-9)
+    # the single analyses hit what the pass stored
+    run2, frames2 = _counted(path)
+    drive(cached_audit(run2, n_constraints=0))
+    drive(cached_coordinates(run2, SPECS))
+    drive(cached_pca(run2, **pca_kw))
+    assert frames2.calls == 0
+    # and the pass itself is served from the cache the second time
+    again = drive(cached_pass(run2, {"audit": audit_item(run2, n_constraints=0), "q": coordinates_item(run2, SPECS)}))
+    assert frames2.calls == 0
+    _same(again["audit"], got["audit"])
+
+
+def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):
+    from phasewake.core.cached import PassItem, cached_pass, coordinates_item, pca_item
+    from phasewake.core.errors import AnalysisError, CoordinateSpecError
+
+    class FailsMidway:  # an analysis that gives up on its second chunk
+        atoms = None
+        needs_positions = True
+        needs_velocities = False
+
+        def __init__(self):
+            self.seen = 0
+
+        def prepare(self, columns, *, start, stop, chunk_frames):
+            pass
+
+        def update(self, chunk):
+            self.seen += 1
+            if self.seen == 2:
+                raise AnalysisError("gave up")
+
+        def finish(self):
+            return "never"
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    items = {"q": coordinates_item(run, SPECS),
+             # subspace iteration needs several passes: its consumer refuses, the caller runs it alone
+             "pca": pca_item(run, atom_indices=np.arange(2, 12), n_components=2, method="randomized", n_iter=2),
+             "bad": PassItem("failing", {"x": 1}, FailsMidway)}
+    got = drive(cached_pass(run, items, cache=ResultCache(enabled=False)))
+    assert frames.calls == 1
+    assert got["pca"] is None
+    assert isinstance(got["bad"], AnalysisError) and "gave up" in str(got["bad"])
+    _equal(got["q"], drive(compute_coordinates(open_run([path]), SPECS)))
+    with pytest.raises(CoordinateSpecError):  # a bad specification is refused when the request is made
+        coordinates_item(run, [f"distance(0, {run.n_atoms + 5})"])
