@@ -144,3 +144,23 @@ def test_scan_flags_nan_and_time_order_in_any_part(monkeypatch: pytest.MonkeyPat
     assert not C._scan(t2, q, a_hi=A_HI, b_lo=B_LO, surface=SURF).time_increasing
     ok = C._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
     assert ok.finite and ok.time_increasing
+
+
+def test_dwell_tests_same_with_two_threads(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The two Monte Carlo KS tests (Lilliefors 1969) run at once when a core is idle: same numbers."""
+    from phasewake.core import cpuload
+
+    rng = np.random.default_rng(9)
+    n = 400_000
+    switches = np.cumsum(rng.exponential(80.0, size=n // 40)).astype(np.int64)
+    state = np.zeros(n)
+    state[switches[switches < n]] = 1.0
+    q = 2.0 * (np.cumsum(state) % 2) - 1.0 + 0.2 * rng.standard_normal(n)
+    t = np.arange(n) * 0.001
+    out = {}
+    for threads in (1, 2):
+        monkeypatch.setattr(cpuload, "kernel_threads", lambda *a, _n=threads, **k: _n)
+        res = result_of(C.crossings_work([(t, q)], states=(A_HI, B_LO), surface=SURF, kappa_time_series=False))
+        out[threads] = res.dwell_tests
+    assert min(test.n for test in out[1].values()) >= 1000  # the threaded path is taken
+    assert out[1] == out[2]
