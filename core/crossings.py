@@ -722,8 +722,8 @@ def _replica_events(tr: Trace, replica: int, sc: _Scan, *, a_hi: float, b_lo: fl
     # Surface crossings: between frames i0 and i0 + 1. Each of q and t is gathered once at i0 and i0 + 1
     # (scattered reads from a long series cost a cache miss each).
     i0 = cs - 1
-    q0, q1 = q[i0], q[i0 + 1]
-    t0, t1 = t[i0], t[i0 + 1]
+    q0, q1 = q[i0], q[cs]
+    t0, t1 = t[i0], t[cs]
     dq = q1 - q0
     with np.errstate(divide="ignore", invalid="ignore"):
         f_c = np.clip(np.where(dq != 0, (surface - q0) / dq, 0.0), 0.0, 1.0)  # as _interp_time
