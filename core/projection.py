@@ -351,13 +351,11 @@ class _Accumulator:
             self.fill = 0
 
     def _fit_reduce(self, x: np.ndarray) -> None:
-        from phasewake.core.correlation import one_blas_thread
-
         y = self.ybuf[:x.shape[0]]
         # the fit's products are skinny (3 and 9 columns): one BLAS thread, as for other short products on
         # this shared machine (correlation.one_blas_thread); the block's big products below keep them all
         try:
-            with one_blas_thread():
+            with _few_threads(y.size):
                 self.fitter.displacements(x, y)
         except AnalysisError as exc:
             raise AnalysisError(f"{exc}; the block starts at frame {self.n} of the PCA window (counted from its "
@@ -387,6 +385,22 @@ class _Accumulator:
                                     "PCA window (counted from its first frame)")
             self.s1 += cs
         self.n += m
+
+
+# Below this many elements a BLAS call is too small to be worth threads, and the first use of the
+# thread limiter costs ~40 ms (threadpoolctl scans the loaded libraries): small PCAs skip it.
+_FEW_THREADS_MIN = 1 << 20
+
+
+def _few_threads(n_elements: int) -> Any:
+    """One BLAS thread for skinny or thin-matrix work of this size (``correlation.one_blas_thread``)."""
+    import contextlib
+
+    if n_elements < _FEW_THREADS_MIN:
+        return contextlib.nullcontext()
+    from phasewake.core.correlation import one_blas_thread
+
+    return one_blas_thread()
 
 
 def _column_sums(y: np.ndarray) -> np.ndarray:
@@ -503,11 +517,9 @@ class PCAReduction:
         self.fitter: Any = None
         self.omega0: np.ndarray | None = None
         if method == "randomized":
-            from phasewake.core.correlation import one_blas_thread
-
             rng = np.random.default_rng(self.seed)
             ell = int(min(self.d, self.k + max(0, self.oversample)))
-            with one_blas_thread():  # a thin QR: threads only synchronise (0.5 s instead of 5 ms at load 3)
+            with _few_threads(self.d * ell):  # a thin QR: threads only synchronise (0.5 s instead of 5 ms at load 3)
                 self.omega0, _ = np.linalg.qr(rng.standard_normal((self.d, ell)))  # atom-major rows
         self._range = (0, run.n_frames)
 
@@ -549,11 +561,9 @@ class PCAReduction:
         if self.method == "exact":
             evals, evecs, mu, total = _finish_exact(acc, self.k)
         else:
-            from phasewake.core.correlation import one_blas_thread
-
             n = acc.n
             mu = acc.s1 / n
-            with one_blas_thread():  # thin QR/SVD/Cholesky of d x l matrices
+            with _few_threads(acc.z.size):  # thin QR/SVD/Cholesky of d x l matrices
                 evals, evecs = _nystrom(acc.omega, _sketch_cq(acc, n, mu), self.k, float(np.finfo(self.dt).eps))
             total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
         return self._result(evals, evecs, mu, total, acc.n)
@@ -733,10 +743,8 @@ def compute_pca(
         total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
         z = _sketch_cq(acc, n, mu)
         q_block = acc.omega
-        from phasewake.core.correlation import one_blas_thread
-
         for it in range(n_extra):
-            with one_blas_thread():
+            with _few_threads(z.size):
                 q_block, _ = np.linalg.qr(z)
             sketch = _Accumulator(red.fitter, block=red.block, mode="randomized", omega=q_block, sums=False)
             stage = _Stage(red, sketch)
