@@ -298,6 +298,8 @@ class _Accumulator:
     per block of fitted displacements y either y^T y (exact: BLAS syrk in the working precision, upper triangle added into float64) or the sketch
     y^T (y Omega) (randomized), plus sum(y) and sum |y|^2 in float64.
 
+    The sketch products and sums run on each cache-sized sub-block of the fit right after it is written
+    (``FrameFitter.displacements(on_rows=)``), the exact route's syrk on the whole block.
     Blocks, not the reader's chunks, set the rounding (BLAS kernels round differently for different row
     counts): results depend on ``block`` only, so a PCA fed from a shared pass (other consumers, other
     chunk sizes) equals the separate call bitwise.
@@ -354,13 +356,17 @@ class _Accumulator:
         y = self.ybuf[:x.shape[0]]
         # the fit's products are skinny (3 and 9 columns): one BLAS thread, as for other short products on
         # this shared machine (correlation.one_blas_thread); the block's big products below keep them all
+        sub = self.mode != "exact"
         try:
             with _few_threads(y.size):
-                self.fitter.displacements(x, y)
+                # the sketch products run on each fitted sub-block while it is in the cache; the exact
+                # route's syrk wants the whole block (long products)
+                self.fitter.displacements(x, y, on_rows=(lambda i, j: self._reduce(y[i:j])) if sub else None)
         except AnalysisError as exc:
             raise AnalysisError(f"{exc}; the block starts at frame {self.n} of the PCA window (counted from its "
                                 "first frame)") from exc
-        self._reduce(y)
+        if not sub:
+            self._reduce(y)
 
     def _reduce(self, y: np.ndarray) -> None:
         m = y.shape[0]

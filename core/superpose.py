@@ -38,6 +38,8 @@ both against the float64 route and the rotations against scipy's ``Rotation.alig
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
 from phasewake.core.errors import AnalysisError
@@ -179,6 +181,7 @@ class FrameFitter:
         w = np.asarray(weights, dtype=np.float64)
         sq = np.ones(g) if scale is None else np.asarray(scale, dtype=np.float64)
         self.g, self.d, self.dtype, self.fit = g, 3 * g, dtype, bool(fit)
+        self.block_bytes = BLOCK_BYTES
         if not self.fit:
             self.order = np.arange(self.d)
             self.sq3 = np.repeat(sq, 3).astype(dtype)
@@ -205,9 +208,8 @@ class FrameFitter:
         self.rc_scaled = np.ascontiguousarray((rc * sq[:, None]).T).astype(dtype)  # (3, g)
         self.shift = (self.rc_scaled.astype(np.float64) + np.outer(cy, sq)).reshape(-1)
         self._buf = np.zeros((0, 3, g), dtype=dtype)
-        self.block_bytes = BLOCK_BYTES
 
-    def displacements(self, x: np.ndarray, out: np.ndarray) -> np.ndarray | None:
+    def displacements(self, x: np.ndarray, out: np.ndarray, on_rows: Any = None) -> np.ndarray | None:
         """Fitted, scaled displacements of a chunk.
 
         Parameters
@@ -215,20 +217,25 @@ class FrameFitter:
         x : (m, g, 3) nm (any float dtype; the arithmetic is in the working precision)
         out : (m, 3g) array of the working dtype, C-ordered; receives y in the column order ``order``
 
+        on_rows : callable (i, j), optional
+            Called after rows i:j of ``out`` are written (a cache-sized sub-block, still in the cache).
+
         Returns
         -------
         rotations (m, 3, 3) float64 (``x @ R`` convention), or None without fitting.
         """
         m, d = x.shape[0], self.d
-        if not self.fit:
-            np.subtract(np.asarray(x).reshape(m, d), self.ref_flat, out=out)
-            out *= self.sq3
-            return None
-        rot = np.empty((m, 3, 3))
         step = max(1, int(self.block_bytes // (d * np.dtype(self.dtype).itemsize)))
+        rot = np.empty((m, 3, 3)) if self.fit else None
         for i in range(0, m, step):
             j = min(m, i + step)
-            rot[i:j] = self._fit_block(x[i:j], out[i:j])
+            if rot is None:
+                np.subtract(np.asarray(x[i:j]).reshape(j - i, d), self.ref_flat, out=out[i:j])
+                out[i:j] *= self.sq3
+            else:
+                rot[i:j] = self._fit_block(x[i:j], out[i:j])
+            if on_rows is not None:
+                on_rows(i, j)
         return rot
 
     def _fit_block(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
