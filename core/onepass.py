@@ -499,7 +499,7 @@ class FramePass:
 
         fp = FramePass(run, start=0, stop=None)
         fp.coordinates("q", ["distance(0, 1)"]); fp.temperatures("T"); fp.vacf("vacf", max_lag_ps=0.5)
-        fp.pca("pca", atom_indices=ca, n_components=10)
+        fp.pca("pca", atom_indices=ca, n_components=10); fp.audit_frames("audit")
         results = drive(fp.work())   # {"q": [...], "T": GroupKinetics, "vacf": VACFResult, "pca": PCAResult}
         # projections need the eigenvectors: a second pass (which can carry other analyses too)
         proj = drive(FramePass(run).pca_projections("proj", results["pca"]).work())["proj"]
@@ -532,6 +532,15 @@ class FramePass:
     def pca_projections(self, name: str, pca: PCAResult) -> FramePass:
         """Projections of a computed PCA (:class:`PCAProjectionConsumer`), in a later pass."""
         return self.add(name, PCAProjectionConsumer(self.run, pca))
+
+    def audit_frames(self, name: str, **settings: Any) -> FramePass:
+        """The audit's frame part (:class:`phasewake.core.audit.AuditFramesConsumer` with the choices
+        ``audit_run`` makes; settings ``n_constraints``, ``groups``, ``segment_frames``,
+        ``max_spectrum_segments``). Hand the result to ``audit_run(run, frames=..., same settings)``, which
+        then reads no frames; it needs a pass over all frames and every atom."""
+        from phasewake.core.audit import AuditFramesConsumer
+
+        return self.add(name, AuditFramesConsumer.for_run(self.run, **settings))
 
     def work(self) -> Work[dict[str, Any]]:
         return run_pass(self.run, self.consumers, start=self.start, stop=self.stop, chunk_frames=self.chunk_frames)

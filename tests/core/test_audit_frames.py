@@ -158,3 +158,19 @@ def test_centre_of_mass_sums_only_when_the_audit_needs_them():
     with pytest.raises(AnalysisError, match="centre-of-mass"):
         drive(audit_run(nvt, frames=dataclasses.replace(fr3, group_names=fr2.group_names,
                                                         group_kinetic_kJ_per_mol=fr2.group_kinetic_kJ_per_mol)))
+
+
+def test_frame_pass_builder_carries_the_audit_with_the_pca_and_vacf():
+    """FramePass.audit_frames next to a PCA and a VACF: one read; each equals its own analysis run alone."""
+    from phasewake.core.onepass import FramePass
+    from phasewake.core.projection import compute_pca
+    from phasewake.core.velocity import vacf
+
+    run, counter = _counting(_water_ions())
+    got = drive(FramePass(run).audit_frames("audit").pca("pca", atom_indices=np.arange(6), n_components=2)
+                .vacf("v", max_lag_ps=0.02).work())
+    assert counter.calls == 1
+    assert audit_summary(drive(audit_run(run, frames=got["audit"]))) == audit_summary(drive(audit_run(run)))
+    alone = drive(compute_pca(run, atom_indices=np.arange(6), n_components=2, projections=False))
+    np.testing.assert_array_equal(got["pca"].eigenvalues, alone.eigenvalues)
+    np.testing.assert_allclose(got["v"].vacf, drive(vacf(run, max_lag_ps=0.02)).vacf, rtol=1e-10)
