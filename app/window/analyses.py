@@ -222,7 +222,7 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     if coords is None:
         raise ModuleNotFoundError("phasewake.core.coordinates")
     cached = module_or_none("cached")  # the on-disk result cache: reopening a run reads no frames
-    work = (cached.cached_coordinates(run, [spec], start=start, stop=stop) if cached is not None
+    work = (cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache()) if cached is not None
             else coords.compute_coordinates(run, [spec], start=start, stop=stop))
     series = yield from _relay(work, 0, 1, 1, f"coordinate {spec}")
     with _CACHE_LOCK:
@@ -232,15 +232,26 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     return series[0]
 
 
+USE_CACHE = True  # the window's Analysis > Use the result cache (remembered in its settings)
+
+
+def window_cache() -> Any:
+    """The result cache the panels use: the default one, or a disabled one when the user turned it off."""
+    from phasewake.core.cache import ResultCache
+
+    return ResultCache() if USE_CACHE else ResultCache(enabled=False)
+
+
 def through_cache(run: Run, analysis: str, settings: dict[str, Any],
                   work: Generator[Progress, None, Any]) -> Generator[Progress, None, Any]:
     """``work`` through the on-disk result cache (``phasewake.core.cached.cached_work``): a panel shown again,
     or the same file reopened, reads no frames. ``settings`` must hold everything that changes the result.
-    ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are never cached."""
+    Analysis \u25b8 Use the result cache or ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are
+    never cached."""
     cached = module_or_none("cached")
     if cached is None:
         return (yield from work)
-    return (yield from cached.cached_work(run, analysis, settings, work))
+    return (yield from cached.cached_work(run, analysis, settings, work, cache=window_cache()))
 
 
 def _need_coordinate(ctx: AnalysisContext) -> PanelResult | None:

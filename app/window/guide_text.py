@@ -79,6 +79,14 @@ it with ←/→, jump with PgUp/PgDn, go to the ends with Home/End. Dragging the
 restricts every analysis to that part of the run (to leave out equilibration, for instance); the
 panels recompute once you let go. <i>Analysis ▸ Whole run</i> (Ctrl+0) undoes it.</p>
 
+<h3>Large runs: memory and the result cache</h3>
+<p>Frames are read in chunks, so memory stays bounded whatever the size of the file: about three times
+the chunk budget (128 MB unless <code>--chunk-mb</code> or <code>PHASEWAKE_CHUNK_MB</code> says
+otherwise). Results are kept in a cache folder (never beside your files), keyed by the files' identity
+and every setting, so a panel shown again or a run opened again is not recomputed; a changed file is
+recomputed. <i>Analysis ▸ Use the result cache</i> turns this off, <i>Analysis ▸ Clear the result
+cache</i> empties the folder (the command line has <code>phasewake cache --clear</code>).</p>
+
 <h3>Sessions and export</h3>
 <p><i>File ▸ Save session</i> writes the whole state (files, coordinates, states, time window, panel
 choices) into a small JSON file of our own (<code>.pwsession</code>), written atomically; open it again

@@ -13,6 +13,7 @@ from typing import Any
 
 from PySide6 import QtCore, QtGui, QtWidgets
 
+from phasewake.app.window import analyses
 from phasewake.app.window import session as session_io
 from phasewake.app.window.analyses import (
     EXTRA_JOBS,
@@ -185,6 +186,15 @@ class MainWindow(QtWidgets.QMainWindow):
         self._action(a, "Whole run", lambda: self.model.set_time_window(None), "Ctrl+0",
                      "Analyse the whole run (reset the time window)")
         self._action(a, "Recompute", self.recompute, "F5")
+        a.addSeparator()
+        self.act_use_cache = self._action(a, "Use the result cache", self._toggle_cache,
+                                          tip="Keep results on disk so a run looked at again is not recomputed")
+        self.act_use_cache.setCheckable(True)
+        self.act_use_cache.setChecked(self._cache_setting())
+        analyses.USE_CACHE = self.act_use_cache.isChecked()
+        self._action(a, "Clear the result cache", self.clear_cache,
+                     tip="Delete every stored result (inputs are never touched)")
+        a.addSeparator()
         self._action(a, "Cancel background work", self.cancel_work, "Esc")
 
         c = mb.addMenu("&Cursor")
@@ -207,6 +217,28 @@ class MainWindow(QtWidgets.QMainWindow):
         self._action(h, "Short guide", self.show_guide, "Shift+F1", "Where things are in this window")
         h.addSeparator()
         self._action(h, "About phasewake", self._about, tip="Version, licences of the dependencies, how to cite")
+
+    def _cache_setting(self) -> bool:
+        return str(self.settings.value("use_result_cache", "true")).lower() in ("true", "1")
+
+    def _toggle_cache(self) -> None:
+        on = self.act_use_cache.isChecked()
+        analyses.USE_CACHE = on
+        self.settings.setValue("use_result_cache", on)
+        self.settings.sync()
+        self.say("Results are kept in the result cache." if on else
+                 "The result cache is off: every panel is computed afresh.")
+
+    def clear_cache(self) -> None:
+        from phasewake.core.cache import ResultCache
+
+        cache = ResultCache()
+        try:
+            n = cache.clear()
+        except OSError as exc:
+            self.show_problem("Result cache", f"Could not clear the result cache in {cache.folder}: {exc}")
+            return
+        self.say(f"Removed {n} stored result{'s' if n != 1 else ''} from {cache.folder}.")
 
     def _page(self) -> int:
         return max(1, self.model.time_ps.size // 20)

@@ -421,3 +421,24 @@ def test_export_menu_remembers_the_last_folder(win, tmp_path, monkeypatch):
     assert w.settings.value("last_folder") == str(out.parent)
     w.ask_export_data()  # the next dialog starts in that folder
     assert asked[-1].startswith(str(out.parent))
+
+
+def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_path, monkeypatch):
+    """Analysis > Use the result cache is remembered in the settings and switches the panels' cache off;
+    Analysis > Clear the result cache empties the cache folder (the input files are untouched)."""
+    from phasewake.app.window import analyses
+    from phasewake.core.cache import ResultCache
+
+    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / "cache"))
+    monkeypatch.setattr(analyses, "USE_CACHE", True)
+    ResultCache().put("a" * 32, {"x": np.zeros(3)}, {"analysis": "audit"})
+    w = _window(qtbot, tmp_path)
+    assert w.act_use_cache.isChecked() and analyses.USE_CACHE
+    assert analyses.window_cache().enabled
+    w.act_use_cache.trigger()  # off
+    assert not analyses.USE_CACHE and not analyses.window_cache().enabled
+    assert str(w.settings.value("use_result_cache")).lower() in ("false", "0")
+    w2 = _window(qtbot, tmp_path)  # a new window with the same settings starts with the cache off
+    assert not w2.act_use_cache.isChecked()
+    w2.clear_cache()
+    assert ResultCache().info().entries == 0 and "Removed 1 stored result" in w2.status_label.text()
