@@ -86,3 +86,12 @@ def _session_cache_dir(tmp_path_factory):
         os.environ.pop("PHASEWAKE_CACHE_DIR", None)
     else:
         os.environ["PHASEWAKE_CACHE_DIR"] = old
+
+
+@pytest.fixture
+def cache_dir(tmp_path, monkeypatch):
+    """A result cache of the test's own (PHASEWAKE_CACHE_DIR), switched on whatever the environment says."""
+    d = tmp_path / "cache"
+    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
+    monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
+    return d

@@ -18,12 +18,6 @@ from phasewake.core.readers import h5md
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
 
-@pytest.fixture
-def cache_dir(tmp_path, monkeypatch):
-    d = tmp_path / "cache"
-    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
-    monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
-    return d
 
 
 @pytest.fixture

@@ -16,31 +16,13 @@ import pytest
 from phasewake.app.window import analyses
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
+from tests.counting import CountingFrames
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
 
-class CountingFrames:
-    def __init__(self, base):
-        self.base = base
-        self.calls = 0
-        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
-            setattr(self, k, getattr(base, k))
-
-    def iter_chunks(self, **kw):
-        self.calls += 1
-        yield from self.base.iter_chunks(**kw)
-
-    def read_frame(self, index):
-        return self.base.read_frame(index)
 
 
-@pytest.fixture
-def cache_dir(tmp_path, monkeypatch):
-    d = tmp_path / "cache"
-    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
-    monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
-    return d
 
 
 def _context(path, start, stop, coordinate="distance(0, 1)"):

@@ -18,26 +18,7 @@ from phasewake.core.onepass import CoordinatesConsumer, run_pass
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
 from phasewake.core.run import RunMetadata
-
-
-class CountingFrames:
-    """A FrameSource wrapper that counts iter_chunks calls and the frames handed out."""
-
-    def __init__(self, base):
-        self.base = base
-        self.calls = 0
-        self.frames_read = 0
-        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
-            setattr(self, k, getattr(base, k))
-
-    def iter_chunks(self, **kw):
-        self.calls += 1
-        for ch in self.base.iter_chunks(**kw):
-            self.frames_read += ch.n_frames
-            yield ch
-
-    def read_frame(self, index):
-        return self.base.read_frame(index)
+from tests.counting import counted
 
 
 def _water_ions(n_frames: int = 300, thermostatted: bool = True, seed: int = 3):
@@ -66,9 +47,7 @@ def _water_ions(n_frames: int = 300, thermostatted: bool = True, seed: int = 3):
                            metadata=meta, name="water-ions")
 
 
-def _counting(run):
-    frames = CountingFrames(run.frames)
-    return dataclasses.replace(run, frames=frames), frames
+_counting = counted
 
 
 def test_one_pass_feeds_the_audit_and_coordinates_reading_frames_once():

@@ -20,32 +20,14 @@ from phasewake.core.coordinates import compute_coordinates
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
+from tests.counting import CountingFrames, counted
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 SPECS = ["distance(0, 1)", "x(0)"]
 
 
-class CountingFrames:
-    def __init__(self, base):
-        self.base = base
-        self.calls = 0
-        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
-            setattr(self, k, getattr(base, k))
-
-    def iter_chunks(self, **kw):
-        self.calls += 1
-        yield from self.base.iter_chunks(**kw)
-
-    def read_frame(self, index):
-        return self.base.read_frame(index)
 
 
-@pytest.fixture
-def cache_dir(tmp_path, monkeypatch):
-    d = tmp_path / "cache"
-    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
-    monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
-    return d
 
 
 def _copy(tmp_path, name="dimer_nve.h5md"):
@@ -57,9 +39,7 @@ def _copy(tmp_path, name="dimer_nve.h5md"):
 
 
 def _counted(path):
-    run = open_run([path])
-    frames = CountingFrames(run.frames)
-    return dataclasses.replace(run, frames=frames), frames
+    return counted(open_run([path]))
 
 
 def _equal(a, b):

@@ -26,36 +26,15 @@ from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
 from phasewake.core.run import RunMetadata
 from phasewake.core.velocity import vacf
+from tests.counting import CountingFrames, counted
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 (from memory; R/1000)
 
 
-class CountingFrames:
-    """A FrameSource wrapper that counts iter_chunks calls (and the frames it hands out)."""
-
-    def __init__(self, base):
-        self.base = base
-        self.calls = 0
-        self.frames_read = 0
-        for k in ("n_frames", "n_atoms", "has_velocities", "velocities_estimated", "has_box"):
-            setattr(self, k, getattr(base, k))
-
-    def iter_chunks(self, **kw):
-        self.calls += 1
-        for ch in self.base.iter_chunks(**kw):
-            self.frames_read += ch.n_frames
-            yield ch
-
-    def read_frame(self, index):
-        return self.base.read_frame(index)
 
 
-def _counting(run):
-    import dataclasses
-
-    frames = CountingFrames(run.frames)
-    return dataclasses.replace(run, frames=frames), frames
+_counting = counted
 
 
 def _synthetic(n_frames=300, n_atoms=12, seed=7, box=True):
