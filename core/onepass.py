@@ -419,13 +419,47 @@ class PCAProjectionConsumer(PCAProjection):
 # the pass
 
 
+def _columns(run: Run, consumers: Mapping[str, ChunkConsumer]) -> np.ndarray | None:
+    """The union of the consumers' atoms (None: every atom)."""
+    if any(c.atoms is None for c in consumers.values()):
+        return None
+    columns = np.unique(np.concatenate([np.asarray(c.atoms, dtype=np.int64) for c in consumers.values()]))
+    return None if columns.size == run.n_atoms else columns
+
+
+def _n_read(run: Run, columns: np.ndarray | None) -> int:
+    return run.n_atoms if columns is None else int(columns.size)
+
+
+def _plan(run: Run, consumers: Mapping[str, ChunkConsumer]) -> list[dict[str, ChunkConsumer]]:
+    """The reads of a pass: one, or two when consumers that need positions want only a few atoms and the
+    others need velocities of many (a distance with its momentum beside a VACF of every atom): then the
+    positions of the many are not read at all. Each byte of the file is still read once, bar the
+    velocities of the few atoms, which both reads hold."""
+    with_pos = {n: c for n, c in consumers.items() if c.needs_positions}
+    vel_only = {n: c for n, c in consumers.items() if not c.needs_positions}
+    if not with_pos or not vel_only:
+        return [dict(consumers)]
+    few = _n_read(run, _columns(run, with_pos))
+    many = _n_read(run, _columns(run, vel_only))
+    if 4 * few > many:  # reading the positions of the union costs little more than a second read
+        return [dict(consumers)]
+    return [with_pos, vel_only]
+
+
 def feed(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
          stride: int = 1, chunk_frames: int | None = None) -> Iterator[int]:
     """Prepare every consumer, read frames [start, stop) with ``stride`` once, hand every chunk to each.
 
     A generator yielding the number of frames handed out so far after each chunk; the caller calls
     ``finish()`` (this is the loop of :func:`run_pass`, shared with ``projection.compute_pca``).
+    Positions and velocities are read only if a consumer needs them, for the union of the atoms they need;
+    when the consumers that need positions want only a few atoms (at most a quarter of the others'), those
+    few are read apart (positions and velocities) and the rest without positions, the two reads interleaved
+    chunk by chunk (:func:`_plan`). Every consumer sees its frames in order, in chunks of any length.
     """
+    from itertools import zip_longest
+
     from phasewake.core.readers.common import iter_frame_chunks
 
     if run.frames is None:
@@ -434,32 +468,33 @@ def feed(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, st
         raise AnalysisError("a frame pass needs at least one analysis")
     start_, stop_ = _frame_range(run, start, stop)
     chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
-    if any(c.atoms is None for c in consumers.values()):
-        columns: np.ndarray | None = None
-    else:
-        columns = np.unique(np.concatenate([np.asarray(c.atoms, dtype=np.int64) for c in consumers.values()]))
-        if columns.size == run.n_atoms:
-            columns = None  # a full read avoids a fancy-index copy
-    want_pos = any(c.needs_positions for c in consumers.values())
-    want_vel = any(c.needs_velocities for c in consumers.values()) and bool(run.frames.has_velocities)
-    for c in consumers.values():
-        c.prepare(columns, start=start_, stop=stop_, chunk_frames=chunk)
-    kw: dict[str, Any] = {"chunk_frames": chunk, "start": start_, "stop": stop_, "atom_indices": columns,
-                          "velocities": want_vel, "positions": want_pos}
-    if int(stride) != 1:
-        kw["stride"] = int(stride)
-    done = 0
-    chunks = iter_frame_chunks(run.frames, **kw)
+    reads = []
+    for group in _plan(run, consumers):
+        columns = _columns(run, group)
+        want_pos = any(c.needs_positions for c in group.values())
+        want_vel = any(c.needs_velocities for c in group.values()) and bool(run.frames.has_velocities)
+        for c in group.values():
+            c.prepare(columns, start=start_, stop=stop_, chunk_frames=chunk)
+        kw: dict[str, Any] = {"chunk_frames": chunk, "start": start_, "stop": stop_, "atom_indices": columns,
+                              "velocities": want_vel, "positions": want_pos}
+        if int(stride) != 1:
+            kw["stride"] = int(stride)
+        reads.append((list(group.values()), iter_frame_chunks(run.frames, **kw)))
+    done = [0] * len(reads)
     try:
-        for ch in chunks:
-            for c in consumers.values():
-                c.update(ch)
-            done += ch.n_frames
-            yield done
+        for chunks in zip_longest(*(it for _, it in reads)):
+            for k, ch in enumerate(chunks):
+                if ch is None:
+                    continue
+                for c in reads[k][0]:
+                    c.update(ch)
+                done[k] += ch.n_frames
+            yield min(done)
     finally:
-        close = getattr(chunks, "close", None)
-        if close is not None:
-            close()
+        for _, it in reads:
+            close = getattr(it, "close", None)
+            if close is not None:
+                close()
 
 
 def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
