@@ -80,7 +80,7 @@ restricts every analysis to that part of the run (to leave out equilibration, fo
 panels recompute once you let go. <i>Analysis ▸ Whole run</i> (Ctrl+0) undoes it.</p>
 
 <h3>Large runs: memory and the result cache</h3>
-<p>Frames are read in chunks, so memory stays bounded whatever the size of the file: about three times
+<p>Frames are read in chunks, so memory stays bounded whatever the size of the file: a few times
 the chunk budget (128 MB unless <code>--chunk-mb</code> or <code>PHASEWAKE_CHUNK_MB</code> says
 otherwise). Results are kept in a cache folder (never beside your files), keyed by the files' identity
 and every setting, so a panel shown again or a run opened again is not recomputed; a changed file is
