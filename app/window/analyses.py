@@ -301,7 +301,10 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         return PanelResult(figures=quick.figures, message="The energy audit (phasewake.core.audit) is not in "
                                                           "this build yet: only the energy table is shown.")
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    res = yield from _relay(through_cache(run, "audit", {}, audit.audit_run(run)), 0, 1, 1, "audit")
+    cached = module_or_none("cached")
+    work = (cached.cached_audit(run, cache=window_cache()) if cached is not None  # the key shared_frames_job uses
+            else audit.audit_run(run))
+    res = yield from _relay(work, 0, 1, 1, "audit")
     figs = list(_plots_figures(res, run_name=run.name))
     if not figs:
         figs = _audit_figures(res, run, ctx.window_ps)
@@ -367,17 +370,57 @@ PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route
 # a 3000 x 3000 covariance takes seconds, and the full covariance grows as the square)
 
 
+def _pca_settings(run: Run) -> dict[str, Any]:
+    """The Phase space panel's principal components: the solute, 3 components, exact route when small."""
+    coords = module_or_none("coordinates")
+    group = coords.solute_atoms(run.topology, run.n_atoms)
+    method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
+    return {"atom_indices": group, "n_components": 3, "method": method}
+
+
+def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """One read of the frames for the audit, the coordinate and the principal components, into the result
+    cache (``cached.cached_pass``), before the panels start: their jobs then find these results there
+    instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
+    analysed (the keys are those of the panels' own requests); otherwise nothing is done here."""
+    cached = module_or_none("cached")
+    run = ctx.run
+    cache = window_cache()
+    if (cached is None or not cache.enabled or not run.paths or run.frames is None
+            or ctx.start > 0 or ctx.stop < run.n_frames):
+        return PanelResult()
+    from phasewake.core.errors import PhasewakeError
+
+    items: dict[str, Any] = {}
+    try:
+        if module_or_none("audit") is not None:
+            items["audit"] = cached.audit_item(run)
+        if ctx.coordinate and module_or_none("coordinates") is not None:
+            items["coordinate"] = cached.coordinates_item(run, [ctx.coordinate])
+        if module_or_none("projection") is not None and module_or_none("coordinates") is not None \
+                and run.n_atoms >= 2:
+            items["pca"] = cached.pca_item(run, **_pca_settings(run))
+    except PhasewakeError:
+        return PanelResult()  # a bad coordinate: the panels say so themselves
+    if items:
+        try:
+            yield from _relay(cached.cached_pass(run, items, cache=cache), 0, 1, 1, "one read of the frames")
+        except PhasewakeError:
+            pass  # each panel runs its own analysis and reports what went wrong
+    return PanelResult()
+
+
 def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Principal components of the solute: figures added to the Phase space panel when ready."""
     proj = module_or_none("projection")
     coords = module_or_none("coordinates")
     if proj is None or coords is None or ctx.run.frames is None or ctx.run.n_atoms < 2:
         return PanelResult()
-    group = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
-    method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
+    settings = _pca_settings(ctx.run)
     sub = window_run(ctx.run, ctx.start, ctx.stop)
-    work = through_cache(sub, "pca", {"atom_indices": group, "n_components": 3, "method": method},
-                         proj.compute_pca(sub, atom_indices=group, n_components=3, method=method))
+    cached = module_or_none("cached")
+    work = (cached.cached_pca(sub, cache=window_cache(), **settings) if cached is not None  # shared_frames_job's key
+            else proj.compute_pca(sub, **settings))
     pca = yield from _relay(work, 0, 1, 1, "principal components")
     traces: dict[str, Trace] = {}
     figs = _pca_figures(pca, traces)

@@ -22,6 +22,7 @@ from phasewake.app.window.analyses import (
     PANELS,
     AnalysisContext,
     PanelResult,
+    shared_frames_job,
 )
 from phasewake.app.window.model import RunEntry, RunSettings, WindowModel, apply_settings
 from phasewake.app.window.panels import PANEL_CLASSES, Panel
@@ -467,6 +468,9 @@ class MainWindow(QtWidgets.QMainWindow):
         if key.startswith("export:"):
             self._export_finished(outcome)
             return
+        if key == "frames:shared":  # the shared read is done (or cancelled): the panels find its results
+            QtCore.QTimer.singleShot(0, self._start_rest_now)
+            return
         name = key.split("#")[0]
         panel = self.panels.get(name)
         if panel is None:
@@ -504,8 +508,19 @@ class MainWindow(QtWidgets.QMainWindow):
             panel.add_result(result)
 
     def _start_rest(self) -> None:
+        """After the energy table: one shared read of the frames (``shared_frames_job``), then the panels."""
         if not self._rest_pending:
             return
+        ctx = self.context()
+        if ctx is None:
+            self._rest_pending = False
+            return
+        self.jobs.start("frames:shared", lambda ctx=ctx: shared_frames_job(ctx),
+                        label="Reading the frames once for the audit, coordinate and principal components")
+
+    def _start_rest_now(self) -> None:
+        if not self._rest_pending:
+            return  # cancelled meanwhile
         self._rest_pending = False
         ctx = self.context()
         if ctx is not None:

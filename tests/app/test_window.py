@@ -442,3 +442,50 @@ def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_pat
     assert not w2.act_use_cache.isChecked()
     w2.clear_cache()
     assert ResultCache().info().entries == 0 and "Removed 1 stored result" in w2.status_label.text()
+
+
+@pytest.mark.slow
+def test_opening_a_run_reads_the_frames_once_for_audit_coordinate_and_pca(qtbot, tmp_path, monkeypatch):
+    """With the result cache on, the window reads the frames once for the audit, the coordinate and the
+    principal components (then the PCA's projections) before the panels start, and those panels find their
+    results in the cache: fewer reads than with the cache off, and the same numbers on screen."""
+    import shutil
+
+    from phasewake.app.window import analyses
+    from phasewake.core.readers import h5md
+
+    reads = {"n": 0}
+    original = h5md.H5MDFrames.iter_chunks
+
+    def counting(self, **kw):
+        reads["n"] += 1
+        yield from original(self, **kw)
+
+    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
+    monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / "cache"))
+    path = tmp_path / SAMPLE.name
+    shutil.copyfile(SAMPLE, path)
+
+    def open_once(use_cache: bool):
+        folder = tmp_path / ("on" if use_cache else "off")
+        settings = QtCore.QSettings(str(folder / "settings.ini"), QtCore.QSettings.Format.IniFormat)
+        settings.setValue("use_result_cache", use_cache)  # the window takes Use the result cache from here
+        settings.sync()
+        analyses._CACHE.clear()  # the in-memory coordinate cache
+        reads["n"] = 0
+        w = _window(qtbot, folder)
+        assert analyses.USE_CACHE is use_cache
+        w.open_paths([str(path)])
+        assert w.wait_idle(90_000) and not w.messages, w.messages
+        shown = {name: [(v.kind, v.level, v.measured) for v in (p.result.verdicts if p.result else ())]
+                 for name, p in w.panels.items()}
+        w.close()
+        return reads["n"], shown
+
+    (tmp_path / "on").mkdir()
+    (tmp_path / "off").mkdir()
+    n_off, shown_off = open_once(False)
+    n_on, shown_on = open_once(True)
+    assert n_on < n_off, (n_on, n_off)
+    assert shown_on == shown_off
+    monkeypatch.setattr(analyses, "USE_CACHE", True)  # leave the module as the other tests expect it
