@@ -115,6 +115,10 @@ class ResultCache:
             pass  # a read-only cache is still worth reading
         return CacheEntry(arrays=arrays, meta=meta)
 
+    def has(self, key: str) -> bool:
+        """Whether an entry for ``key`` is there (without reading it; :meth:`get` still checks it is usable)."""
+        return self.enabled and self._path(key).is_file()
+
     def put(self, key: str, arrays: Mapping[str, np.ndarray], meta: Mapping[str, Any] | None = None) -> None:
         if not self.enabled:
             return

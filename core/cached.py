@@ -407,8 +407,8 @@ class _Guarded:
             return exc
 
 
-def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache | None = None) \
-        -> Work[dict[str, Any]]:
+def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache | None = None,
+                load_hits: bool = True) -> Work[dict[str, Any]]:
     """Several analyses of all frames of ``run`` from one read, each looked up in and stored to the cache.
 
     Items found in the cache are not computed; the others share one :func:`phasewake.core.onepass.run_pass`
@@ -416,6 +416,9 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
     :class:`~phasewake.core.errors.PhasewakeError` that stopped that analysis (the others go on), or None
     when the analysis cannot be fed from a shared pass with these settings (its consumer refused them, e.g.
     a PCA by subspace iteration, which needs several passes): the caller then runs it on its own.
+
+    ``load_hits=False`` only fills the cache for later requests: an item whose entry is already there is
+    neither read nor decoded (None in the returned mapping).
     """
     from phasewake.core.errors import PhasewakeError
     from phasewake.core.onepass import run_pass
@@ -431,7 +434,9 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
             except (_Uncacheable, OSError):
                 key = None
         keys[name] = key
-        if key is not None:
+        if key is not None and not load_hits and cache.has(key):
+            out[name] = None
+        elif key is not None:
             ok, value = lookup(cache, key, item.analysis)
             if ok:
                 out[name] = value

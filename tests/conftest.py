@@ -95,3 +95,20 @@ def cache_dir(tmp_path, monkeypatch):
     monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(d))
     monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
     return d
+
+
+@pytest.fixture
+def h5md_reads(monkeypatch):
+    """Counts the H5MD reader's chunk iterations (``h5md_reads["n"]``): every analysis of an H5MD file's
+    frames goes through it, so a cache hit or a shared pass shows as fewer reads."""
+    from phasewake.core.readers import h5md
+
+    count = {"n": 0}
+    original = h5md.H5MDFrames.iter_chunks
+
+    def counting(self, **kw):
+        count["n"] += 1
+        yield from original(self, **kw)
+
+    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
+    return count

@@ -404,7 +404,8 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
         return PanelResult()  # a bad coordinate: the panels say so themselves
     if items:
         try:
-            yield from _relay(cached.cached_pass(run, items, cache=cache), 0, 1, 1, "one read of the frames")
+            yield from _relay(cached.cached_pass(run, items, cache=cache, load_hits=False), 0, 1, 1,
+                              "one read of the frames")
         except PhasewakeError:
             pass  # each panel runs its own analysis and reports what went wrong
     return PanelResult()

@@ -1,5 +1,5 @@
 """The result cache from the command line (issue 9): `audit`, `crossings` and `report` run twice on an
-unchanged file read the frames once and print the same thing; `--no-cache` neither reads nor writes it;
+unchanged file read the frames once and print the same thing; `--no-cache` neither h5md_reads nor writes it;
 `phasewake cache` counts the entries by analysis.
 
 The reference for "the same thing" is the first (computed) run's own output; the numbers themselves are
@@ -10,28 +10,11 @@ import json
 import shutil
 from pathlib import Path
 
-import pytest
-
 from phasewake.app.cli import main
-from phasewake.core.readers import h5md
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
 
-
-
-@pytest.fixture
-def reads(monkeypatch):
-    """Count the H5MD reader's chunk iterations (every analysis of frames goes through it)."""
-    count = {"n": 0}
-    original = h5md.H5MDFrames.iter_chunks
-
-    def counting(self, **kw):
-        count["n"] += 1
-        yield from original(self, **kw)
-
-    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
-    return count
 
 
 def _copy(tmp_path, name):
@@ -47,23 +30,23 @@ def _cache_json(capsys):
     return json.loads(capsys.readouterr().out)
 
 
-def test_audit_twice_second_run_is_from_the_cache(tmp_path, cache_dir, reads, capsys):
+def test_audit_twice_second_run_is_from_the_cache(tmp_path, cache_dir, h5md_reads, capsys):
     path = _copy(tmp_path, "dimer_nve.h5md")
     argv = ["audit", str(path), "--json", "--group", "dimer=0,1"]
     code1 = main(argv)
     out1 = capsys.readouterr().out
-    n1 = reads["n"]
+    n1 = h5md_reads["n"]
     assert n1 >= 1
     info = _cache_json(capsys)
     assert info["entries"] == 1 and info["by_analysis"] == {"audit": 1}
     code2 = main(argv)
     out2 = capsys.readouterr().out
-    assert reads["n"] == n1  # no frames read the second time
+    assert h5md_reads["n"] == n1  # no frames read the second time
     assert code2 == code1 and out2 == out1 and json.loads(out1)
     # another option is another entry
     main(["audit", str(path), "--json", "--timestep", "2"])
     capsys.readouterr()
-    assert reads["n"] > n1
+    assert h5md_reads["n"] > n1
     assert _cache_json(capsys)["by_analysis"] == {"audit": 2}
 
 
@@ -80,39 +63,39 @@ def test_cache_command_summary_line(tmp_path, cache_dir, capsys):
     assert _cache_json(capsys)["entries"] == 0
 
 
-def test_audit_no_cache_writes_nothing_and_reads_nothing(tmp_path, cache_dir, reads, capsys):
+def test_audit_no_cache_writes_nothing_and_reads_nothing(tmp_path, cache_dir, h5md_reads, capsys):
     path = _copy(tmp_path, "dimer_nve.h5md")
     assert main(["audit", str(path), "--json", "--no-cache"]) in (0, 1)
     assert not cache_dir.exists() or not list(cache_dir.glob("*.h5"))
     out_plain = capsys.readouterr().out
     main(["audit", str(path), "--json"])  # fills the cache
     capsys.readouterr()
-    n = reads["n"]
+    n = h5md_reads["n"]
     main(["audit", str(path), "--json", "--no-cache"])  # must compute again, not read the entry
-    assert reads["n"] > n
+    assert h5md_reads["n"] > n
     assert capsys.readouterr().out == out_plain
     assert _cache_json(capsys)["entries"] == 1
 
 
-def test_crossings_twice_and_no_cache(tmp_path, cache_dir, reads, capsys):
+def test_crossings_twice_and_no_cache(tmp_path, cache_dir, h5md_reads, capsys):
     path = _copy(tmp_path, "dimer_langevin.h5md")
     argv = ["crossings", str(path), "-c", "distance(0, 1)", "--json"]
     code1 = main(argv)
     out1 = capsys.readouterr().out
-    n1 = reads["n"]
+    n1 = h5md_reads["n"]
     assert json.loads(out1)["n_transitions"] >= 1
     assert main(argv) == code1
-    assert capsys.readouterr().out == out1 and reads["n"] == n1
+    assert capsys.readouterr().out == out1 and h5md_reads["n"] == n1
     assert _cache_json(capsys)["by_analysis"] == {"crossings": 1}
     main(argv + ["--states", "0.42,0.53"])  # another setting: computed
-    assert reads["n"] > n1
+    assert h5md_reads["n"] > n1
     capsys.readouterr()
     shutil.rmtree(cache_dir)
     assert main(argv + ["--no-cache"]) == code1
     assert capsys.readouterr().out == out1 and not cache_dir.exists()
 
 
-def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys, monkeypatch):
+def test_report_twice_reads_frames_once(tmp_path, cache_dir, h5md_reads, capsys, monkeypatch):
     from phasewake.core import report
 
     # drawing the pages (matplotlib, ~10 s) is not what is cached: count them instead of drawing them
@@ -123,35 +106,35 @@ def test_report_twice_reads_frames_once(tmp_path, cache_dir, reads, capsys, monk
     argv = ["report", str(path), "--coordinate", "distance(0, 1)", "--json"]
     assert main(argv + ["-o", str(out / "a.pdf")]) == 0
     first = json.loads(capsys.readouterr().out)
-    n1 = reads["n"]
+    n1 = h5md_reads["n"]
     by = _cache_json(capsys)["by_analysis"]
     assert by.get("audit") == 1 and by.get("coordinates") == 1, by
     assert main(argv + ["-o", str(out / "b.pdf")]) == 0
     second = json.loads(capsys.readouterr().out)
-    assert reads["n"] == n1
+    assert h5md_reads["n"] == n1
     for k in ("n_pages", "sections", "skipped", "verdict_levels", "settings"):
         assert second[k] == first[k], k
     assert main(argv + ["-o", str(out / "c.pdf"), "--no-cache"]) == 0
-    assert reads["n"] > n1
+    assert h5md_reads["n"] > n1
 
 
-def test_memory_and_pca_twice_second_run_is_from_the_cache(tmp_path, cache_dir, reads, capsys):
-    """`memory` (VACF, MSD, spectrum, Thirumalai-Mountain) and `coords --pca`: the second run reads no frames,
+def test_memory_and_pca_twice_second_run_is_from_the_cache(tmp_path, cache_dir, h5md_reads, capsys):
+    """`memory` (VACF, MSD, spectrum, Thirumalai-Mountain) and `coords --pca`: the second run h5md_reads no frames,
     prints the same JSON, and `--no-cache` recomputes without writing."""
     path = _copy(tmp_path, "dimer_nve.h5md")
     argv = ["memory", str(path), "--vacf", "--msd", "--spectrum", "--tm", "--json"]
     assert main(argv) == 0
     out1 = capsys.readouterr().out
-    n1 = reads["n"]
+    n1 = h5md_reads["n"]
     assert main(argv) == 0
-    assert capsys.readouterr().out == out1 and reads["n"] == n1
+    assert capsys.readouterr().out == out1 and h5md_reads["n"] == n1
     assert _cache_json(capsys)["by_analysis"] == {"msd": 1, "spectrum": 1, "thirumalai_mountain": 1, "vacf": 1}
     pca = ["coords", str(path), "--pca", "2", "-o", str(tmp_path / "p.csv")]
     assert main(pca) == 0
-    n2 = reads["n"]
+    n2 = h5md_reads["n"]
     first = (tmp_path / "p.csv").read_text()
-    assert main(pca) == 0 and reads["n"] == n2 and (tmp_path / "p.csv").read_text() == first
+    assert main(pca) == 0 and h5md_reads["n"] == n2 and (tmp_path / "p.csv").read_text() == first
     capsys.readouterr()
     assert main([*argv, "--no-cache"]) == 0
-    assert capsys.readouterr().out == out1 and reads["n"] > n2
+    assert capsys.readouterr().out == out1 and h5md_reads["n"] > n2
     assert _cache_json(capsys)["entries"] == 5

@@ -445,23 +445,16 @@ def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_pat
 
 
 @pytest.mark.slow
-def test_opening_a_run_reads_the_frames_once_for_audit_coordinate_and_pca(qtbot, tmp_path, monkeypatch):
+def test_opening_a_run_reads_the_frames_once_for_audit_coordinate_and_pca(qtbot, tmp_path, monkeypatch,
+                                                                          h5md_reads):
     """With the result cache on, the window reads the frames once for the audit, the coordinate and the
     principal components (then the PCA's projections) before the panels start, and those panels find their
     results in the cache: fewer reads than with the cache off, and the same numbers on screen."""
     import shutil
 
     from phasewake.app.window import analyses
-    from phasewake.core.readers import h5md
 
-    reads = {"n": 0}
-    original = h5md.H5MDFrames.iter_chunks
-
-    def counting(self, **kw):
-        reads["n"] += 1
-        yield from original(self, **kw)
-
-    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
+    reads = h5md_reads
     monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / "cache"))
     path = tmp_path / SAMPLE.name
     shutil.copyfile(SAMPLE, path)

@@ -429,6 +429,10 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
     again = drive(cached_pass(run2, {"audit": audit_item(run2, n_constraints=0), "q": coordinates_item(run2, SPECS)}))
     assert frames2.calls == 0
     _same(again["audit"], got["audit"])
+    # only filling the cache (the window's shared read): entries already there are not even read
+    filled = drive(cached_pass(run2, {"audit": audit_item(run2, n_constraints=0), "q": coordinates_item(run2, SPECS)},
+                               load_hits=False))
+    assert frames2.calls == 0 and filled == {"audit": None, "q": None}
 
 
 def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):

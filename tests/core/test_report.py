@@ -239,24 +239,16 @@ def test_captions_carry_the_explanations_the_window_shows(report):
     assert explain.caption_note("correlation.acf", numbers_only=True) in explain.caption_note("correlation.acf")
 
 
-def test_report_reads_the_frames_once(tmp_path, monkeypatch):
+def test_report_reads_the_frames_once(tmp_path, h5md_reads):
     """The audit and the coordinate of the report come from one read of the sample file (issue 9: frames are
     read once per request, not once per analysis); the numbers are those of the separate analyses
     (tests/core/test_cached.py checks the shared pass against them)."""
     from pathlib import Path
 
     from phasewake.core.cache import ResultCache
-    from phasewake.core.readers import h5md, open_run
+    from phasewake.core.readers import open_run
 
-    reads = {"n": 0}
-    original = h5md.H5MDFrames.iter_chunks
-
-    def counting(self, **kw):
-        reads["n"] += 1
-        yield from original(self, **kw)
-
-    monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
     sample = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
     res = drive(build_report(open_run([sample]), tmp_path / "r.pdf", cache=ResultCache(enabled=False)))
-    assert reads["n"] == 1
+    assert h5md_reads["n"] == 1
     assert (tmp_path / "r.pdf").stat().st_size > 0 and res is not None
