@@ -204,8 +204,10 @@ def temperature_of(run: Run) -> tuple[float | None, str]:
     return None, ""
 
 
-# A small cache of coordinate series, so the panels that share a coordinate read frames once.
-_CACHE: dict[tuple[int, str, int, int], Any] = {}
+# A small cache of coordinate series, so the panels that share a coordinate read frames once. Each entry
+# keeps its Run: a key holds id(run), and an id is only unique while the object is alive (a run closed and
+# collected could hand its id to a newly opened one, which would then be shown the old run's series).
+_CACHE: dict[tuple[int, str, int, int], tuple[Run, Any]] = {}
 _CACHE_LOCK = threading.Lock()
 _CACHE_SIZE = 8
 
@@ -216,8 +218,8 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     key = (id(run), spec, start, stop)
     with _CACHE_LOCK:
         hit = _CACHE.get(key)
-    if hit is not None:
-        return hit
+    if hit is not None and hit[0] is run:
+        return hit[1]
     coords = module_or_none("coordinates")
     if coords is None:
         raise ModuleNotFoundError("phasewake.core.coordinates")
@@ -226,7 +228,7 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
             else coords.compute_coordinates(run, [spec], start=start, stop=stop))
     series = yield from _relay(work, 0, 1, 1, f"coordinate {spec}")
     with _CACHE_LOCK:
-        _CACHE[key] = series[0]
+        _CACHE[key] = (run, series[0])
         while len(_CACHE) > _CACHE_SIZE:
             _CACHE.pop(next(iter(_CACHE)))
     return series[0]
