@@ -29,6 +29,13 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> 
                         help="number of holonomic constraints (overrides what the files or inference say)")
     parser.add_argument("--temperature", metavar="K", type=float, default=None,
                         help="thermostat target temperature in K")
+    parser.add_argument("--ensemble", choices=("nve", "nvt", "npt"), type=str.lower, default=None,
+                        help="the ensemble the run was made in, when the files do not say (a thermostatted run "
+                             "is judged by its conserved quantity, not by its total energy)")
+    parser.add_argument("--column", metavar="NAME=ROLE", action="append", default=None,
+                        help="the role of an energy-table column the files do not name clearly, e.g. "
+                             "\"TotEng=total\" (roles: potential, kinetic, total, conserved, bath_heat, "
+                             "temperature, pressure, volume, density, other); repeat for more columns")
     parser.add_argument("--json", action="store_true", help="print JSON with every number and its unit")
     add_chunk_argument(parser)
 
@@ -66,7 +73,27 @@ def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
         out["n_constraints"] = args.constraints
     if getattr(args, "temperature", None) is not None:
         out["temperature_K"] = args.temperature
+    if getattr(args, "ensemble", None) is not None:
+        out["ensemble"] = args.ensemble.upper()
     return out
+
+
+def column_roles_from_args(args: argparse.Namespace) -> dict[str, str] | None:
+    """``--column NAME=ROLE`` options as a mapping; InputError for a malformed one or an unknown role."""
+    from phasewake.core.errors import InputError
+    from phasewake.core.run import ENERGY_ROLES
+
+    items = getattr(args, "column", None)
+    if not items:
+        return None
+    roles: dict[str, str] = {}
+    for item in items:
+        name, sep, role = item.rpartition("=")
+        name, role = name.strip(), role.strip().lower()
+        if not sep or not name or role not in ENERGY_ROLES:
+            raise InputError(f"--column {item!r}: expected NAME=ROLE with ROLE one of {', '.join(ENERGY_ROLES)}")
+        roles[name] = role
+    return roles
 
 
 def open_run_from_args(args: argparse.Namespace):  # -> Run
@@ -74,7 +101,8 @@ def open_run_from_args(args: argparse.Namespace):  # -> Run
 
     apply_chunk_budget(args)
     with quiet_stdout():
-        return open_run(args.files, topology=args.top, **run_overrides(args))
+        return open_run(args.files, topology=args.top, column_roles=column_roles_from_args(args),
+                        **run_overrides(args))
 
 
 @contextlib.contextmanager

@@ -168,7 +168,17 @@ class RunMetadata:
     constraints_source: str | None = None  # "metadata", "user", "inferred from rigid bonds"
     com_motion_removed: bool | None = None
     integrator: str | None = None  # "velocity-verlet", "leapfrog", "baoab", ...
-    sources: dict[str, str] = field(default_factory=dict)  # part -> file ("positions": "run.dcd")
+    barostat: str | None = None  # "none", "parrinello-rahman", "c-rescale", "berendsen", "monte-carlo", ...
+    pressure_bar: float | None = None  # target pressure of a barostat
+    constraints: str | None = None  # what is held rigid, in words: "none", "rigid water", "bonds to hydrogen"
+    n_dof: int | None = None  # the engine's own count of kinetic degrees of freedom, where it reports one
+    velocities_half_step: bool | None = None  # True: stored velocities are half a step off the positions
+    conserved_quantity: str | None = None  # name of the energy series the engine conserves ("Conserved En.")
+    units_style: str | None = None  # the engine's unit system where files carry none ("lammps real", ...)
+    engine: str | None = None  # "GROMACS 2022.5", "LAMMPS 29 Sep 2021", "OpenMM", ...
+    # field name -> where its value came from, in words a user reads: "md.log", "user",
+    # "inferred: sigma_E/sigma_K = 1.02, no drift"; also part -> file ("positions": "run.dcd")
+    sources: dict[str, str] = field(default_factory=dict)
     extra: dict[str, Any] = field(default_factory=dict)
 
 
