@@ -23,6 +23,7 @@ with numbers taken from the OpenMM water run, and say so in their README and JSO
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import shutil
@@ -629,7 +630,739 @@ def make_lammps(root: Path) -> None:
 # ----------------------------------------------------------------------------------------------------
 
 
-MAKERS = {"gromacs": make_gromacs, "lammps": make_lammps}
+# ----------------------------------------------------------------------------------------------------
+# OpenMM: TIP3P water (amber14/tip3p.xml shipped with OpenMM), built from code with Modeller.addSolvent
+
+OPENMM_RUNS: dict[str, dict[str, Any]] = {
+    "tip3p_rigid_nve_verlet": dict(
+        note="rigid TIP3P (129 waters, 387 atoms), NVE with VerletIntegrator (leap-frog), dt 2 fs, 1000 steps; CSV every "
+             "10 steps, DCD and H5MD (positions and velocities) every 50 steps",
+        flexible=False, integrator="verlet", dt_fs=2.0, n_steps=1000, csv_every=10, dcd_every=50, h5_every=50),
+    "tip3p_rigid_nvt_langevin": dict(
+        note="rigid TIP3P (129 waters, 387 atoms), LangevinMiddleIntegrator 300 K, friction 1/ps, dt 2 fs, 1000 steps; "
+             "CSV every 10 steps, DCD and H5MD every 50 steps; nothing in the files says it is thermostatted",
+        flexible=False, integrator="langevin", dt_fs=2.0, n_steps=1000, csv_every=10, dcd_every=50, h5_every=50),
+    "tip3p_flexible_frames_1fs": dict(
+        note="flexible TIP3P (27 waters, 81 atoms, PME with a 0.45 nm cutoff), NVE with VerletIntegrator, dt 0.5 fs, 1000 steps (0.5 ps); H5MD "
+             "frames every 2 steps = 1 fs, CSV every 10 steps",
+        flexible=True, integrator="verlet", dt_fs=0.5, n_steps=1000, csv_every=10, dcd_every=0, h5_every=2),
+    "tip3p_flexible_frames_10fs": dict(
+        note="the same flexible TIP3P from the same start, NVE, dt 0.5 fs, 4000 steps (2 ps); H5MD frames "
+             "every 20 steps = 10 fs, too far apart to resolve the O-H stretch; CSV every 20 steps",
+        flexible=True, integrator="verlet", dt_fs=0.5, n_steps=4000, csv_every=20, dcd_every=0, h5_every=20),
+}
+
+
+def _openmm_system(flexible: bool):
+    import openmm as mm
+    import openmm.app as app
+    import openmm.unit as u
+
+    ff = app.ForceField("amber14/tip3p.xml")
+    modeller = app.Modeller(app.Topology(), [] * u.nanometer)
+    edge, cutoff = (0.95, 0.45) if flexible else (1.6, 0.7)
+    modeller.addSolvent(ff, model="tip3p", boxSize=mm.Vec3(edge, edge, edge) * u.nanometer)
+    system = ff.createSystem(modeller.topology, nonbondedMethod=app.PME, nonbondedCutoff=cutoff * u.nanometer,
+                             constraints=None if flexible else app.HBonds, rigidWater=not flexible,
+                             ewaldErrorTolerance=5e-5)
+    return modeller, system
+
+
+def _openmm_platform():
+    import openmm as mm
+
+    return mm.Platform.getPlatformByName("CPU"), {"Threads": "1", "DeterministicForces": "true"}
+
+
+def _openmm_start(flexible: bool):
+    """Minimise, give 300 K velocities (seeded), equilibrate 1 ps with a Langevin thermostat."""
+    import openmm as mm
+    import openmm.app as app
+    import openmm.unit as u
+
+    modeller, system = _openmm_system(flexible)
+    dt = 0.5 if flexible else 2.0
+    integ = mm.LangevinMiddleIntegrator(300 * u.kelvin, 5.0 / u.picosecond, dt * u.femtosecond)
+    integ.setRandomNumberSeed(SEED)
+    integ.setConstraintTolerance(1e-8)
+    platform, props = _openmm_platform()
+    sim = app.Simulation(modeller.topology, system, integ, platform, props)
+    sim.context.setPositions(modeller.positions)
+    sim.minimizeEnergy(tolerance=10.0, maxIterations=200)
+    sim.context.setVelocitiesToTemperature(300 * u.kelvin, SEED)
+    sim.step(int(round(1000.0 / dt)))
+    return modeller, sim.context.getState(getPositions=True, getVelocities=True)
+
+
+def _write_h5md(path: Path, frames: dict[str, Any], masses: list[float], species: list[int],
+                bonds: list[tuple[int, int]], box_nm: list[float], creator_version: str) -> None:
+    """H5MD 1.1 (de Buyl et al., Comput. Phys. Commun. 185, 1546 (2014)) written here with plain h5py.
+
+    What OpenMM's State gave at each frame: positions, velocities, kinetic and potential energy. Nothing
+    about the ensemble or the time step is written (an H5MD file from an engine does not carry them).
+    """
+    import h5py
+    import numpy as np
+
+    with h5py.File(path, "w") as f:
+        h5 = f.create_group("h5md")
+        h5.attrs["version"] = np.array([1, 1], dtype=np.int32)
+        h5.create_group("author").attrs["name"] = "make_engine_runs.py"
+        cr = h5.create_group("creator")
+        cr.attrs["name"] = "OpenMM (State written by make_engine_runs.py)"
+        cr.attrs["version"] = creator_version
+        g = f.create_group("particles/all")
+        box = g.create_group("box")
+        box.attrs["dimension"] = np.int32(3)
+        box.attrs["boundary"] = np.array([b"periodic"] * 3)
+        box.create_dataset("edges", data=np.asarray(box_nm, dtype=np.float64)).attrs["unit"] = "nm"
+        step = np.asarray(frames["step"], dtype=np.int64)
+        time = np.asarray(frames["time"], dtype=np.float64)
+        for name, key, unit in (("position", "x", "nm"), ("velocity", "v", "nm ps-1")):
+            e = g.create_group(name)
+            e.create_dataset("value", data=np.asarray(frames[key], dtype=np.float32)).attrs["unit"] = unit
+            if name == "position":
+                e.create_dataset("step", data=step)
+                e.create_dataset("time", data=time).attrs["unit"] = "ps"
+            else:
+                e["step"] = g["position/step"]  # hard links: sampled together
+                e["time"] = g["position/time"]
+        g.create_dataset("mass", data=np.asarray(masses, dtype=np.float64)).attrs["unit"] = "u"
+        g.create_dataset("species", data=np.asarray(species, dtype=np.int32))
+        conn = f.create_group("connectivity")
+        ds = conn.create_dataset("bonds", data=np.asarray(bonds, dtype=np.int64))
+        ds.attrs["particles_group"] = g.ref
+        obs = f.create_group("observables")
+        for name, key, unit in (("potential_energy", "pe", "kJ mol-1"), ("kinetic_energy", "ke", "kJ mol-1"),
+                                ("total_energy", "etot", "kJ mol-1")):
+            o = obs.create_group(name)
+            o.create_dataset("value", data=np.asarray(frames[key], dtype=np.float64)).attrs["unit"] = unit
+            o["step"] = g["position/step"]
+            o["time"] = g["position/time"]
+
+
+def _grab_state(context: Any, frames: dict[str, list[Any]]) -> None:
+    """Append what OpenMM's State reports now: step, time, positions, velocities, energies."""
+    import openmm.unit as u
+
+    st = context.getState(getPositions=True, getVelocities=True, getEnergy=True)
+    frames["step"].append(st.getStepCount())
+    frames["time"].append(st.getTime().value_in_unit(u.picosecond))
+    frames["x"].append(st.getPositions(asNumpy=True).value_in_unit(u.nanometer))
+    frames["v"].append(st.getVelocities(asNumpy=True).value_in_unit(u.nanometer / u.picosecond))
+    pe = st.getPotentialEnergy().value_in_unit(u.kilojoule_per_mole)
+    ke = st.getKineticEnergy().value_in_unit(u.kilojoule_per_mole)
+    frames["pe"].append(pe)
+    frames["ke"].append(ke)
+    frames["etot"].append(pe + ke)
+
+
+def _parse_openmm_csv(path: Path) -> dict[str, list[float]]:
+    lines = path.read_text().splitlines()
+    names = [n.strip('"') for n in lines[0].lstrip("#").split(",")]
+    cols: dict[str, list[float]] = {n: [] for n in names}
+    for line in lines[1:]:
+        for n, v in zip(names, line.split(",")):
+            cols[n].append(float(v))
+    return cols
+
+
+def make_openmm(root: Path) -> None:
+    try:
+        import openmm as mm
+        import openmm.app as app
+        import openmm.unit as u
+    except ImportError:
+        print("openmm not importable: OpenMM runs skipped")
+        return
+    out_root = root / "openmm"
+    out_root.mkdir(parents=True, exist_ok=True)
+    version = mm.Platform.getOpenMMVersion()
+    starts = {}
+    kb = u.MOLAR_GAS_CONSTANT_R.value_in_unit(u.kilojoule_per_mole / u.kelvin)
+    for name, cfg in OPENMM_RUNS.items():
+        flexible = cfg["flexible"]
+        if flexible not in starts:
+            starts[flexible] = _openmm_start(flexible)
+        modeller, state0 = starts[flexible]
+        _, system = _openmm_system(flexible)
+        dt = cfg["dt_fs"]
+        if cfg["integrator"] == "verlet":
+            integ = mm.VerletIntegrator(dt * u.femtosecond)
+            ensemble, thermostat, target = "NVE", None, None
+        else:
+            integ = mm.LangevinMiddleIntegrator(300 * u.kelvin, 1.0 / u.picosecond, dt * u.femtosecond)
+            integ.setRandomNumberSeed(SEED + 1)
+            ensemble, thermostat, target = "NVT", "Langevin (LangevinMiddleIntegrator, friction 1/ps)", 300.0
+        integ.setConstraintTolerance(1e-8)
+        platform, props = _openmm_platform()
+        sim = app.Simulation(modeller.topology, system, integ, platform, props)
+        sim.context.setState(state0)
+        sim.context.setTime(0.0)
+        sim.context.setStepCount(0)
+        dest = _fresh(out_root / name)
+        files = ["start.pdb", "energies.csv", "frames.h5md"]
+        with open(dest / "start.pdb", "w") as fh:
+            app.PDBFile.writeFile(modeller.topology, state0.getPositions(), fh)
+        csv_fh = open(dest / "energies.csv", "w")  # noqa: SIM115 (closed below, after the run)
+        sim.reporters.append(app.StateDataReporter(csv_fh, cfg["csv_every"], step=True, time=True,
+                                                   potentialEnergy=True, kineticEnergy=True, totalEnergy=True,
+                                                   temperature=True))
+        if cfg["dcd_every"]:
+            sim.reporters.append(app.DCDReporter(str(dest / "trajectory.dcd"), cfg["dcd_every"]))
+            files.insert(1, "trajectory.dcd")
+        frames: dict[str, list[Any]] = {k: [] for k in ("step", "time", "x", "v", "pe", "ke", "etot")}
+
+        _grab_state(sim.context, frames)
+        for _ in range(cfg["n_steps"] // cfg["h5_every"]):
+            sim.step(cfg["h5_every"])
+            _grab_state(sim.context, frames)
+        csv_fh.close()
+        for r in sim.reporters:
+            if isinstance(r, app.DCDReporter):  # it closes its file only when garbage-collected
+                r._out.close()
+        masses = [system.getParticleMass(i).value_in_unit(u.dalton) for i in range(system.getNumParticles())]
+        species = [a.element.atomic_number for a in modeller.topology.atoms()]
+        bonds = [(b[0].index, b[1].index) for b in modeller.topology.bonds()]
+        box = state0.getPeriodicBoxVectors(asNumpy=True).value_in_unit(u.nanometer)
+        _write_h5md(dest / "frames.h5md", frames, masses, species, bonds, [box[0][0], box[1][1], box[2][2]],
+                    version)
+        n_con = system.getNumConstraints()
+        has_cmm = any(isinstance(f, mm.CMMotionRemover) for f in system.getForces())
+        dof = 3 * sum(1 for m in masses if m > 0) - n_con - (3 if has_cmm else 0)
+        csv = _parse_openmm_csv(dest / "energies.csv")
+        t_frames = [2.0 * ke / (dof * kb) for ke in frames["ke"]]
+        reported = {
+            "atoms": system.getNumParticles(),
+            "waters": modeller.topology.getNumResidues(),
+            "time_step_ps": integ.getStepSize().value_in_unit(u.picosecond),
+            "time_step_fs": dt,
+            "n_steps": cfg["n_steps"],
+            "integrator": type(integ).__name__,
+            "ensemble": ensemble,
+            "thermostat": thermostat,
+            "target_temperature_K": target,
+            "constraints": n_con,
+            "rigid_water": not flexible,
+            "cm_motion_removed": has_cmm,
+            "degrees_of_freedom": dof,
+            "temperature_mean_K": _mean(csv["Temperature (K)"]),
+            "temperature_mean_at_h5md_frames_K": _mean(t_frames),
+            "kinetic_energy_mean_at_h5md_frames_kJ_mol": _mean(frames["ke"]),
+            "total_energy_mean_kJ_mol": _mean(csv["Total Energy (kJ/mole)"]),
+            "total_energy_first_last_kJ_mol": [csv["Total Energy (kJ/mole)"][0], csv["Total Energy (kJ/mole)"][-1]],
+            "frames": {"energies.csv": len(csv["Step"]), "frames.h5md": len(frames["step"])}
+            | ({"trajectory.dcd": cfg["n_steps"] // cfg["dcd_every"]} if cfg["dcd_every"] else {}),
+            "frame_interval_fs": {"energies.csv": cfg["csv_every"] * dt, "frames.h5md": cfg["h5_every"] * dt}
+            | ({"trajectory.dcd": cfg["dcd_every"] * dt} if cfg["dcd_every"] else {}),
+            "units_style": "OpenMM (nm, ps, kJ/mol, K; PDB and DCD in Angstrom)",
+            "velocities": ("as State.getVelocities() returns them: leap-frog, half a step behind the positions"
+                           if cfg["integrator"] == "verlet" else
+                           "as State.getVelocities() returns them (LangevinMiddleIntegrator)"),
+        }
+        report = {
+            "engine": "OpenMM",
+            "engine_version": version,
+            "origin": ("engine output: start.pdb, energies.csv (StateDataReporter) and trajectory.dcd "
+                       "(DCDReporter) written by OpenMM; frames.h5md written by make_engine_runs.py from "
+                       "OpenMM's State at each frame; numbers below from OpenMM's API and its CSV"),
+            "run": name,
+            "what_was_run": cfg["note"],
+            "files": files,
+            "reported": reported,
+            "sources": {
+                "atoms": "System.getNumParticles()",
+                "time_step_ps": "Integrator.getStepSize()",
+                "ensemble": "the integrator class (VerletIntegrator = NVE)",
+                "degrees_of_freedom": "3 x particles with mass - System.getNumConstraints() - 3 (CMMotionRemover), "
+                                      "as StateDataReporter counts them",
+                "temperature_mean_K": "mean of the StateDataReporter 'Temperature (K)' column",
+                "temperature_mean_at_h5md_frames_K": "2 State.getKineticEnergy() / (dof R) at the H5MD frames",
+            },
+        }
+        _write_json(dest / "reported.json", report)
+        print(f"{name}: T {reported['temperature_mean_K']:.3f} K dof {dof} atoms {reported['atoms']}")
+
+
+# ----------------------------------------------------------------------------------------------------
+# CP2K (Fist, classical): the same Lennard-Jones argon, started from the positions in the LAMMPS
+# real-units start.data (an equilibrated liquid at ~120 K); CP2K draws its own 120 K velocities.
+
+CP2K_INPUT = """&GLOBAL
+  PROJECT argon
+  RUN_TYPE MD
+  PRINT_LEVEL LOW
+  SEED {seed}
+&END GLOBAL
+&MOTION
+  &MD
+    ENSEMBLE {ensemble}
+    STEPS 500
+    TIMESTEP 4.0
+    TEMPERATURE 120.0
+{thermostat}    &PRINT
+      &ENERGY
+        &EACH
+          MD 5
+        &END EACH
+      &END ENERGY
+      &PROGRAM_RUN_INFO
+        &EACH
+          MD 50
+        &END EACH
+      &END PROGRAM_RUN_INFO
+    &END PRINT
+  &END MD
+  &PRINT
+    &TRAJECTORY
+      &EACH
+        MD 100
+      &END EACH
+    &END TRAJECTORY
+    &VELOCITIES
+      &EACH
+        MD 100
+      &END EACH
+    &END VELOCITIES
+    &RESTART
+      &EACH
+        MD 500
+      &END EACH
+    &END RESTART
+    &RESTART_HISTORY OFF
+    &END RESTART_HISTORY
+  &END PRINT
+&END MOTION
+&FORCE_EVAL
+  METHOD FIST
+  &MM
+    &FORCEFIELD
+      &CHARGE
+        ATOM Ar
+        CHARGE 0.0
+      &END CHARGE
+      &NONBONDED
+        &LENNARD-JONES
+          ATOMS Ar Ar
+          EPSILON [kcalmol] 0.2381
+          SIGMA [angstrom] 3.405
+          RCUT [angstrom] 8.5
+        &END LENNARD-JONES
+      &END NONBONDED
+    &END FORCEFIELD
+    &POISSON
+      &EWALD
+        EWALD_TYPE NONE
+      &END EWALD
+    &END POISSON
+  &END MM
+  &SUBSYS
+    &CELL
+      ABC {box} {box} {box}
+    &END CELL
+    &COORD
+{coords}
+    &END COORD
+  &END SUBSYS
+&END FORCE_EVAL
+"""
+
+CP2K_THERMOSTAT = """    &THERMOSTAT
+      TYPE CSVR
+      &CSVR
+        TIMECON 100.0
+      &END CSVR
+    &END THERMOSTAT
+"""
+
+
+def parse_cp2k_output(text: str) -> dict[str, Any]:
+    def grab(pattern: str) -> str | None:
+        m = re.search(pattern, text)
+        return m.group(1) if m else None
+
+    out: dict[str, Any] = {
+        "engine_version": grab(r"CP2K\| version string:\s+CP2K version (\S+)"),
+        "ensemble": grab(r"MD_PAR\| Ensemble type\s+(\S+)"),
+        "time_step_fs": float(grab(r"MD_PAR\| Time step \[fs\]\s+(\S+)") or "nan"),
+        "steps": int(grab(r"MD_PAR\| Number of time steps\s+(\d+)") or -1),
+        "temperature_K": float(grab(r"MD_PAR\| Temperature \[K\]\s+(\S+)") or "nan"),
+        "atoms": int(grab(r"DOF\| Number of atoms\s+(\d+)") or -1),
+        "degrees_of_freedom": int(grab(r"DOF\| Degrees of freedom\s+(\d+)") or -1),
+        "thermostat": grab(r"THERMOSTAT\| Type of thermostat\s+(.*\S)"),
+    }
+    blocks = re.findall(r"MD\| Temperature \[K\]\s+(\S+)\s+(\S+)", text)
+    out["temperature_running_average_K"] = float(blocks[-1][1]) if blocks else None
+    drift = re.findall(r"MD\| Energy drift per atom \[K\]\s+(\S+)\s+(\S+)", text)
+    out["energy_drift_per_atom_K_last"] = float(drift[-1][0]) if drift else None
+    return out
+
+
+def make_cp2k(root: Path) -> None:
+    cp2k = shutil.which("cp2k.psmp") or shutil.which("cp2k.ssmp") or shutil.which("cp2k")
+    if cp2k is None:
+        print("cp2k not found: CP2K runs skipped")
+        return
+    data = (root / "lammps" / "argon_real_nve" / "start.data").read_text()
+    rows = data.split("Atoms # atomic", 1)[1].split("Velocities", 1)[0].split("\n")
+    atoms = sorted((int(w[0]), w[2], w[3], w[4]) for w in (r.split() for r in rows) if len(w) >= 5)
+    coords = "\n".join(f"      Ar {float(x):.8f} {float(y):.8f} {float(z):.8f}" for _, x, y, z in atoms)
+    box = re.search(r"(\S+) (\S+) xlo xhi", data).group(2)  # type: ignore[union-attr]
+    work = Path(tempfile.mkdtemp(prefix="pw_cp2k_"))
+    out_root = root / "cp2k"
+    out_root.mkdir(parents=True, exist_ok=True)
+    for name, ensemble, note in (
+        ("argon_fist_nve", "NVE", "Fist Lennard-Jones argon (256 atoms), NVE (velocity Verlet), dt 4 fs, 500 steps"),
+        ("argon_fist_nvt_csvr", "NVT", "the same, NVT with the CSVR (Bussi) thermostat at 120 K, time constant "
+                                       "100 fs, dt 4 fs, 500 steps"),
+    ):
+        w = _fresh(work / name)
+        (w / "argon.inp").write_text(CP2K_INPUT.format(
+            seed=SEED, ensemble=ensemble, thermostat=CP2K_THERMOSTAT if ensemble == "NVT" else "", box=box,
+            coords=coords))
+        _run([cp2k, "-i", "argon.inp", "-o", "argon.out"], w)
+        files = ["argon.inp", "argon.out", "argon-1.ener", "argon-pos-1.xyz", "argon-vel-1.xyz"]
+        dest = _fresh(out_root / name)
+        _copy(w, files, dest)
+        out = parse_cp2k_output((w / "argon.out").read_text())
+        ener = [line.split() for line in (w / "argon-1.ener").read_text().splitlines() if not line.startswith("#")]
+        temps = [float(r[3]) for r in ener]
+        at_frames = [float(r[3]) for r in ener if int(r[0]) % 100 == 0]
+        reported = {
+            "atoms": out["atoms"],
+            "time_step_fs": out["time_step_fs"],
+            "time_step_ps": out["time_step_fs"] * 1e-3,
+            "n_steps": out["steps"],
+            "ensemble": out["ensemble"],
+            "thermostat": out["thermostat"],
+            "target_temperature_K": out["temperature_K"] if ensemble == "NVT" else None,
+            "degrees_of_freedom": out["degrees_of_freedom"],
+            "temperature_mean_K": _mean(temps),
+            "temperature_mean_at_xyz_frames_K": _mean(at_frames),
+            "temperature_running_average_K": out["temperature_running_average_K"],
+            "conserved_quantity_first_last_hartree": [float(ener[0][5]), float(ener[-1][5])],
+            "frames": {"argon-1.ener": len(ener), "argon-pos-1.xyz": out["steps"] // 100 + 1,
+                       "argon-vel-1.xyz": out["steps"] // 100 + 1},
+            "units_style": "CP2K (.ener: fs, hartree, K; pos xyz: Angstrom; vel xyz: bohr per atomic time unit)",
+        }
+        report = {
+            "engine": "CP2K",
+            "engine_version": out["engine_version"],
+            "origin": "engine output: written by cp2k (Fist); numbers read by make_engine_runs.py from argon.out "
+                      "and argon-1.ener",
+            "run": name,
+            "what_was_run": note,
+            "files": files,
+            "reported": reported,
+            "sources": {
+                "atoms": "argon.out 'DOF| Number of atoms'",
+                "time_step_fs": "argon.out 'MD_PAR| Time step [fs]'",
+                "ensemble": "argon.out 'MD_PAR| Ensemble type'",
+                "degrees_of_freedom": "argon.out 'DOF| Degrees of freedom'",
+                "temperature_mean_K": "mean of the Temp[K] column of argon-1.ener (every 5 steps from step 0)",
+                "temperature_running_average_K": "argon.out last 'MD| Temperature [K]' average (all steps)",
+            },
+        }
+        _write_json(dest / "reported.json", report)
+        print(f"{name}: T {reported['temperature_mean_K']:.3f} K dof {reported['degrees_of_freedom']}")
+    shutil.rmtree(work)
+
+
+# ----------------------------------------------------------------------------------------------------
+# AMBER mdout and NAMD log: NOT engine output. Neither engine can be installed here, so these files are
+# laid out as ENGINES.md describes an AMBER (sander) mdout and a NAMD log, with the numbers of the OpenMM
+# Langevin water run (kcal/mol = kJ/mol / 4.184). The split of the potential into VDWAALS/VDW and
+# EELEC/ELECT is OpenMM's: the Lennard-Jones part is the energy of the same frame with all charges off.
+
+KCAL = 4.184  # kJ per kcal (thermochemical calorie, NIST SP 811)
+LAYOUT_NOTE = "laid out per ENGINES.md, not engine output"
+LAYOUT_README = """# {engine}: laid out per ENGINES.md, not engine output
+
+`{file}` was NOT written by the engine: it cannot be installed here. make_engine_runs.py (`layouts`) laid
+it out as the project's ENGINES.md describes this engine's file, with the numbers of the OpenMM run
+`openmm/tip3p_rigid_nvt_langevin` (rigid TIP3P water, Langevin at 300 K, dt 2 fs) converted to kcal/mol
+(/ 4.184), every 100 steps. It checks that a reader follows the documented layout, not that it matches
+the real engine byte for byte. `reported.json` holds the numbers written into it.
+"""
+
+
+def _langevin_records(root: Path, every: int) -> tuple[dict[str, Any], list[dict[str, float]]]:
+    """Rows of the OpenMM Langevin run at the H5MD frames that fall on multiples of ``every`` steps."""
+    import h5py
+    import numpy as np
+    import openmm as mm
+    import openmm.unit as u
+
+    src = root / "openmm" / "tip3p_rigid_nvt_langevin"
+    rep = json.loads((src / "reported.json").read_text())
+    _, system = _openmm_system(flexible=False)
+    for f in system.getForces():
+        if isinstance(f, mm.NonbondedForce):
+            for i in range(f.getNumParticles()):
+                _, sig, eps = f.getParticleParameters(i)
+                f.setParticleParameters(i, 0.0, sig, eps)
+            for i in range(f.getNumExceptions()):
+                a, b, _, sig, eps = f.getExceptionParameters(i)
+                f.setExceptionParameters(i, a, b, 0.0, sig, eps)
+    platform, props = _openmm_platform()
+    ctx = mm.Context(system, mm.VerletIntegrator(0.001), platform, props)
+    dof = rep["reported"]["degrees_of_freedom"]
+    kb = u.MOLAR_GAS_CONSTANT_R.value_in_unit(u.kilojoule_per_mole / u.kelvin)
+    rows = []
+    with h5py.File(src / "frames.h5md", "r") as h5:
+        g = h5["particles/all"]
+        steps = g["position/step"][()]
+        edges = g["box/edges"][()]
+        ctx.setPeriodicBoxVectors(mm.Vec3(edges[0], 0, 0), mm.Vec3(0, edges[1], 0), mm.Vec3(0, 0, edges[2]))
+        for k, step in enumerate(steps):
+            if step == 0 or step % every:
+                continue
+            ctx.setPositions(np.asarray(g["position/value"][k], dtype=np.float64))
+            lj = ctx.getState(getEnergy=True).getPotentialEnergy().value_in_unit(u.kilojoule_per_mole)
+            pe = float(h5["observables/potential_energy/value"][k])
+            ke = float(h5["observables/kinetic_energy/value"][k])
+            rows.append({"step": int(step), "pe": pe / KCAL, "ke": ke / KCAL, "etot": (pe + ke) / KCAL,
+                         "vdw": lj / KCAL, "elec": (pe - lj) / KCAL, "temp": 2.0 * ke / (dof * kb),
+                         "volume": float(edges.prod()) * 1000.0})
+    return rep, rows
+
+
+def _amber_block(step: int, time_ps: float, r: dict[str, float]) -> str:
+    return (
+        f" NSTEP = {step:8d}   TIME(PS) = {time_ps:11.3f}  TEMP(K) = {r['temp']:8.2f}  PRESS = {0.0:7.1f}\n"
+        f" Etot   = {r['etot']:14.4f}  EKtot   = {r['ke']:14.4f}  EPtot      = {r['pe']:14.4f}\n"
+        f" BOND   = {0.0:14.4f}  ANGLE   = {0.0:14.4f}  DIHED      = {0.0:14.4f}\n"
+        f" 1-4 NB = {0.0:14.4f}  1-4 EEL = {0.0:14.4f}  VDWAALS    = {r['vdw']:14.4f}\n"
+        f" EELEC  = {r['elec']:14.4f}  EHBOND  = {0.0:14.4f}  RESTRAINT  = {0.0:14.4f}\n"
+        f" Ewald error estimate:   0.0000E+00\n"
+        f" ------------------------------------------------------------------------------\n\n"
+    )
+
+
+def make_layouts(root: Path) -> None:
+    try:
+        rep, rows = _langevin_records(root, every=100)
+    except ImportError:
+        print("openmm/h5py not importable: AMBER/NAMD layouts skipped")
+        return
+    r0 = rep["reported"]
+    n_atoms, n_wat, dof = r0["atoms"], r0["waters"], r0["degrees_of_freedom"]
+    dt_ps = r0["time_step_ps"]
+    t_begin = 10.0  # time read from the (imagined) restart file: TIME(PS) continues, NSTEP starts at 0
+    n_steps = r0["n_steps"]
+    # ---- AMBER mdout (sander layout)
+    head = f"""
+          -------------------------------------------------------
+          Amber 22 SANDER                              2022
+          -------------------------------------------------------
+
+| Run on 12/03/2026 at 16:00:00
+
+| NOTE: {LAYOUT_NOTE}: written by make_engine_runs.py with numbers of an OpenMM run
+
+File Assignments:
+|  MDIN: md.in
+| MDOUT: mdout
+|INPCRD: eq.rst7
+|  PARM: water.prmtop
+|RESTRT: md.rst7
+|  REFC: refc
+| MDVEL: mdvel
+|  MDEN: mden
+| MDCRD: md.nc
+|MDINFO: mdinfo
+
+ Here is the input file:
+
+TIP3P water box, Langevin MD
+ &cntrl
+  imin=0, irest=1, ntx=5,
+  nstlim={n_steps}, dt={dt_ps},
+  ntc=2, ntf=2,
+  ntt=3, gamma_ln=1.0, temp0=300.0, ig={SEED},
+  ntb=1, cut=7.0,
+  ntpr=100, ntwx=50, ntwv=-1, ioutfm=1,
+ /
+
+--------------------------------------------------------------------------------
+   1.  RESOURCE   USE:
+--------------------------------------------------------------------------------
+
+ NATOM  = {n_atoms:7d} NTYPES =       2 NBONH  = {n_atoms:7d} MBONA  =       0
+ NTHETH = {n_wat:7d} MTHETA =       0 NPHIH  =       0 MPHIA  =       0
+ NRES   = {n_wat:7d}
+
+--------------------------------------------------------------------------------
+   2.  CONTROL  DATA  FOR  THE  RUN
+--------------------------------------------------------------------------------
+
+default_name
+
+General flags:
+     imin    =       0, nmropt  =       0
+
+Nature and format of input:
+     ntx     =       5, irest   =       1, ntrx    =       1
+
+Nature and format of output:
+     ntxo    =       2, ntpr    =     100, ntrx    =       1, ntwr    =    {n_steps}
+     iwrap   =       0, ntwx    =      50, ntwv    =      -1, ntwe    =       0
+     ioutfm  =       1, ntwprt  =       0, idecomp =       0, rbornstat=      0
+
+Potential function:
+     ntf     =       2, ntb     =       1, igb     =       0, nsnb    =      25
+     ipol    =       0, gbsa    =       0, iesp    =       0
+     dielc   =   1.00000, cut     =   7.00000, intdiel =   1.00000
+
+Frozen or restrained atoms:
+     ibelly  =       0, ntr     =       0
+
+Molecular dynamics:
+     nstlim  = {n_steps:9d}, nscm    =      1000, nrespa  =         1
+     t       =   0.00000, dt      =   {dt_ps:.5f}, vlimit  =  20.00000
+
+Langevin dynamics temperature regulation:
+     ig      =    {SEED}
+     temp0   = 300.00000, tempi   =   0.00000, gamma_ln=   1.00000
+
+SHAKE:
+     ntc     =       2, jfastw  =       0
+     tol     =   0.00001
+
+--------------------------------------------------------------------------------
+   3.  ATOMIC COORDINATES AND VELOCITIES
+--------------------------------------------------------------------------------
+
+default_name
+ begin time read from input coords = {t_begin:9.3f} ps
+
+ Number of triangulated 3-point waters found: {n_wat:8d}
+
+--------------------------------------------------------------------------------
+   4.  RESULTS
+--------------------------------------------------------------------------------
+
+|  # of SOLUTE  degrees of freedom (RNDFP): {dof + 3:8d}.
+|  # of SOLVENT degrees of freedom (RNDFS):        0.
+|  NDFMIN =        3.     NUM_NOSHAKE =      0     CORRECTED RNDFP = {dof:8d}.
+|  TOTAL # of degrees of freedom (RNDF) = {dof:8d}.
+ ---------------------------------------------------
+
+"""
+    body = "".join(_amber_block(r["step"], t_begin + r["step"] * dt_ps, r) for r in rows)
+    keys = ("pe", "ke", "etot", "vdw", "elec", "temp")
+    avg = {k: _mean([r[k] for r in rows]) for k in keys}
+    rms = {k: math.sqrt(_mean([(r[k] - avg[k]) ** 2 for r in rows])) for k in keys}
+    last = rows[-1]["step"]
+    tail = (f"\n      A V E R A G E S   O V E R {len(rows):7d} S T E P S\n\n\n"
+            + _amber_block(last, t_begin + last * dt_ps, avg)
+            + "      R M S  F L U C T U A T I O N S\n\n\n"
+            + _amber_block(last, t_begin + last * dt_ps, rms)
+            + "--------------------------------------------------------------------------------\n"
+            + "   5.  TIMINGS\n"
+            + "--------------------------------------------------------------------------------\n\n"
+            + "|  Total CPU time:            1.00 seconds\n")
+    dest = _fresh(root / "amber" / "water_langevin_layout")
+    (dest / "mdout").write_text(head + body + tail)
+    (dest / "README.md").write_text(LAYOUT_README.format(engine="AMBER (sander) mdout", file="mdout"))
+    temps = [r["temp"] for r in rows]
+    _write_json(dest / "reported.json", {
+        "engine": "AMBER (sander) layout",
+        "engine_version": None,
+        "origin": f"{LAYOUT_NOTE}: numbers from OpenMM run openmm/tip3p_rigid_nvt_langevin in kcal/mol",
+        "run": "water_langevin_layout",
+        "what_was_run": "nothing: mdout laid out by make_engine_runs.py (sander layout, ntt=3 Langevin, ntc=2 "
+                        "SHAKE, ntb=1) with the OpenMM Langevin run's energies every 100 steps",
+        "files": ["mdout"],
+        "reported": {
+            "atoms": n_atoms, "time_step_ps": dt_ps, "n_steps": n_steps, "ensemble": "NVT",
+            "thermostat": "Langevin (ntt=3, gamma_ln 1/ps)", "target_temperature_K": 300.0,
+            "degrees_of_freedom": dof, "records": len(rows), "temperature_mean_K": _mean(temps),
+            "temperature_mean_printed_K": _mean([round(t, 2) for t in temps]),
+            "total_energy_mean_kcal_mol": _mean([round(r["etot"], 4) for r in rows]),
+            "first_time_ps": t_begin + rows[0]["step"] * dt_ps, "last_time_ps": t_begin + last * dt_ps,
+            "first_nstep": rows[0]["step"], "units_style": "AMBER (Angstrom, ps, kcal/mol, K)",
+        },
+        "sources": {"all": "the numbers written into mdout by make_engine_runs.py (TEMP(K) printed to 0.01 K)"},
+    })
+    # ---- NAMD log
+    cols = ["TS", "BOND", "ANGLE", "DIHED", "IMPRP", "ELECT", "VDW", "BOUNDARY", "MISC", "KINETIC", "TOTAL", "TEMP",
+            "POTENTIAL", "TOTAL3", "TEMPAVG", "PRESSURE", "GPRESSURE", "VOLUME", "PRESSAVG", "GPRESSAVG"]
+    edge = rows[0]["volume"] ** (1.0 / 3.0)
+    info = [
+        "Charm++> Running in non-SMP mode: 1 processes (layout only)",
+        f"Info: NOTE: {LAYOUT_NOTE}: written by make_engine_runs.py with numbers of an OpenMM run",
+        "Info: NAMD 2.14 for Linux-x86_64-multicore",
+        "Info: Configuration file is water.namd",
+        "Info: SIMULATION PARAMETERS:",
+        f"Info: TIMESTEP               {dt_ps * 1000:g}",
+        f"Info: NUMBER OF STEPS        {n_steps}",
+        "Info: STEPS PER CYCLE        20",
+        f"Info: PERIODIC CELL BASIS 1  {edge:.4f} 0 0",
+        f"Info: PERIODIC CELL BASIS 2  0 {edge:.4f} 0",
+        f"Info: PERIODIC CELL BASIS 3  0 0 {edge:.4f}",
+        "Info: LOAD BALANCER  Centralized",
+        "Info: FIRST TIMESTEP 0",
+        "Info: ENERGY OUTPUT STEPS    100",
+        "Info: LANGEVIN DYNAMICS ACTIVE",
+        "Info: LANGEVIN TEMPERATURE   300",
+        "Info: LANGEVIN USING BBK INTEGRATOR",
+        "Info: LANGEVIN DAMPING COEFFICIENT IS 1 INVERSE PS",
+        "Info: LANGEVIN DYNAMICS NOT APPLIED TO HYDROGENS",
+        "Info: PARTICLE MESH EWALD (PME) ACTIVE",
+        "Info: RIGID BONDS TO HYDROGEN : WATER",
+        "Info:         ERROR TOLERANCE : 1e-08",
+        "Info:          MAX ITERATIONS : 100",
+        "Info: RIGID WATER USING SETTLE ALGORITHM",
+        "Info: *****************************",
+        "Info: STRUCTURE SUMMARY:",
+        f"Info: {n_atoms} ATOMS",
+        f"Info: {2 * n_wat} BONDS",
+        f"Info: {n_wat} ANGLES",
+        "Info: 0 DIHEDRALS",
+        "Info: 0 IMPROPERS",
+        f"Info: {n_atoms} RIGID BONDS",
+        f"Info: {dof} DEGREES OF FREEDOM",
+        "Info: *****************************",
+        "",
+    ]
+    title = "ETITLE:      TS" + "".join(f"{c:>15s}" for c in cols[1:])
+    lines = info + [title, ""]
+    for k, r in enumerate(rows):
+        vals = [0.0, 0.0, 0.0, 0.0, r["elec"], r["vdw"], 0.0, 0.0, r["ke"], r["etot"], r["temp"], r["pe"],
+                r["etot"], r["temp"], 0.0, 0.0, r["volume"], 0.0, 0.0]
+        if k and k % 5 == 0:
+            lines += [title, ""]
+        lines.append(f"ENERGY: {r['step']:7d}" + "".join(f"{v:15.4f}" for v in vals))
+        lines.append("")
+    lines += [f"WRITING EXTENDED SYSTEM TO OUTPUT FILE AT STEP {n_steps}", "WallClock: 1.0  CPUTime: 1.0  Memory: 100 MB",
+              "End of program"]
+    dest = _fresh(root / "namd" / "water_langevin_layout")
+    (dest / "water.log").write_text("\n".join(lines) + "\n")
+    (dest / "README.md").write_text(LAYOUT_README.format(engine="NAMD log", file="water.log"))
+    _write_json(dest / "reported.json", {
+        "engine": "NAMD layout",
+        "engine_version": None,
+        "origin": f"{LAYOUT_NOTE}: numbers from OpenMM run openmm/tip3p_rigid_nvt_langevin in kcal/mol",
+        "run": "water_langevin_layout",
+        "what_was_run": "nothing: log laid out by make_engine_runs.py (Info: start-up lines, ETITLE:/ENERGY: "
+                        "records every 100 steps, ETITLE repeated every 5 records) with the OpenMM Langevin "
+                        "run's energies; the pressure columns are 0 (not computed)",
+        "files": ["water.log"],
+        "reported": {
+            "atoms": n_atoms, "time_step_ps": dt_ps, "time_step_fs": dt_ps * 1000, "n_steps": n_steps,
+            "ensemble": "NVT", "thermostat": "Langevin (1/ps)", "target_temperature_K": 300.0,
+            "degrees_of_freedom": dof, "records": len(rows), "temperature_mean_K": _mean(temps),
+            "total_energy_mean_kcal_mol": _mean([r["etot"] for r in rows]),
+            "units_style": "NAMD (Angstrom, fs, kcal/mol, K)",
+        },
+        "sources": {"all": "the numbers written into water.log by make_engine_runs.py (4 decimals)"},
+    })
+    print(f"layouts: {len(rows)} records, T {_mean(temps):.3f} K")
+
+
+MAKERS = {"gromacs": make_gromacs, "lammps": make_lammps, "openmm": make_openmm,
+          "cp2k": make_cp2k, "layouts": make_layouts}
 
 
 def main(argv: list[str]) -> int:
