@@ -68,7 +68,8 @@ def test_positions_read_back_equal_to_mdtraj(files, traj, ext, atol):
     with contextlib.redirect_stdout(io.StringIO()), warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=".*netCDF4.*")
         ref = md.load(str(files[ext]), top=str(files["pdb"]))
-    run = open_run([files[ext], files["pdb"]])
+    # lammpstrj is read by our own LAMMPS reader, which needs the units style (mdtraj writes Angstrom)
+    run = open_run([files[ext], files["pdb"]], **({"units_style": "real"} if ext == "lammpstrj" else {}))
     assert run.n_frames == N_FRAMES and run.n_atoms == N_ATOMS
     got = _all_positions(run)
     np.testing.assert_array_equal(got, ref.xyz)

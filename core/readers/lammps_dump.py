@@ -1,0 +1,617 @@
+"""LAMMPS text dumps (``dump custom``, ``dump atom``): our own reader, lazily in chunks.
+
+Layout (ENGINES.md, LAMMPS): per frame optional ``ITEM: UNITS`` and ``ITEM: TIME``, then ``ITEM:
+TIMESTEP``, ``ITEM: NUMBER OF ATOMS``, ``ITEM: BOX BOUNDS`` (+ ``xy xz yz`` for a triclinic box) with
+three ``lo hi [tilt]`` lines, ``ITEM: ATOMS <columns>`` and one row per atom in arbitrary order.
+
+- Opening scans the file once for a frame index (byte offsets, steps, boxes, columns); frames are read
+  only when asked for, a chunk at a time.
+- Atoms are sorted by ``id`` in every frame (a dump without ``id`` is refused: rows cannot be matched).
+- Positions: ``xu yu zu`` (unwrapped) when present, else ``x y z`` plus ``ix iy iz`` images (unwrapped
+  with the box), else scaled ``xs ys zs`` / ``xsu ysu zsu``; without images wrapped positions are used
+  as they are, and said so.
+- Velocities ``vx vy vz`` are full-step (the same step as the positions) [V:L in ENGINES.md].
+- An appended continuation repeats the restart step (and may change columns): a frame whose step is not
+  after the previous one replaces the earlier frames from that step on, as the engine's restart did.
+- A last frame cut short is an error naming the file, the frame and its step (like a cut DCD/XTC/TRR):
+  the complete frames are not silently kept, since a cut file usually means a failed copy.
+
+Units: a dump carries none (unless ``ITEM: UNITS``). The style is fixed later by
+:meth:`LammpsDumpFrames.set_units` (from log.lammps, the dump, or the user); time is step x time step.
+"""
+
+from __future__ import annotations
+
+import io
+import warnings as _warnings
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
+from phasewake.core.readers.lammps_units import UnitStyle
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, budget_chunk_frames
+
+DUMP_SUFFIXES = (".lammpstrj", ".lammpsdump", ".dump")
+
+# Numeric columns we read; anything else (element, q, fx, c_*, ...) is skipped, text or numbers.
+_POSITION_SETS = (("xu", "yu", "zu"), ("x", "y", "z"), ("xsu", "ysu", "zsu"), ("xs", "ys", "zs"))
+
+
+def claim(path: Path) -> bool:
+    """A LAMMPS text dump: starts with an ``ITEM:`` line (any suffix: dumps are often named dump.*)."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(64)
+    except OSError:
+        return False
+    return head.lstrip().startswith(b"ITEM:")
+
+
+@dataclass
+class _Index:
+    """What the opening scan learnt about every frame (before de-duplication of repeated steps)."""
+
+    offset: list[int] = field(default_factory=list)  # byte offset of the first atom row
+    end: list[int] = field(default_factory=list)  # byte offset after the last atom row
+    step: list[int] = field(default_factory=list)
+    n_atoms: list[int] = field(default_factory=list)
+    columns: list[int] = field(default_factory=list)  # index into column_sets
+    box: list[np.ndarray] = field(default_factory=list)  # (3, 3) edge vectors as rows, style length
+    origin: list[np.ndarray] = field(default_factory=list)  # (3,) box corner, style length
+    time: list[float | None] = field(default_factory=list)
+    units: list[str | None] = field(default_factory=list)
+    column_sets: list[tuple[str, ...]] = field(default_factory=list)
+
+
+def _box_from_bounds(rows: list[list[float]], triclinic: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Edge vectors (rows) and origin from the three BOX BOUNDS lines.
+
+    Triclinic dumps give the bounding box ``xlo_bound xhi_bound xy`` etc.; the box itself is
+    xlo = xlo_bound - min(0, xy, xz, xy + xz), xhi = xhi_bound - max(0, xy, xz, xy + xz),
+    ylo = ylo_bound - min(0, yz), yhi = yhi_bound - max(0, yz), with edges a = (lx, 0, 0),
+    b = (xy, ly, 0), c = (xz, yz, lz) (LAMMPS documentation, "Triclinic (non-orthogonal) simulation
+    boxes" and the dump command page; from memory, checked against a real triclinic dump in the tests).
+    """
+    (xlo, xhi, *t0), (ylo, yhi, *t1), (zlo, zhi, *t2) = rows
+    xy = xz = yz = 0.0
+    if triclinic:
+        xy, xz, yz = t0[0], t1[0], t2[0]
+        xlo -= min(0.0, xy, xz, xy + xz)
+        xhi -= max(0.0, xy, xz, xy + xz)
+        ylo -= min(0.0, yz)
+        yhi -= max(0.0, yz)
+    box = np.array([[xhi - xlo, 0.0, 0.0], [xy, yhi - ylo, 0.0], [xz, yz, zhi - zlo]])
+    return box, np.array([xlo, ylo, zlo])
+
+
+def _skip_lines(f: io.BufferedReader, pos: int, n: int, size: int, line_guess: float) -> tuple[int, int]:
+    """Byte offset after ``n`` more newlines from ``pos``, and how many were found (< n: file ended).
+
+    Newlines are counted with numpy over blocks of about the expected size, so skipping a frame costs a
+    read of its bytes and no Python loop over its rows. A last row without a newline at the very end of
+    the file counts as a row.
+    """
+    found = 0
+    p = pos
+    while found < n and p < size:
+        want = n - found
+        span = int(min(size - p, max(1 << 16, want * line_guess * 1.25 + 4096)))
+        f.seek(p)
+        buf = np.frombuffer(f.read(span), dtype=np.uint8)
+        nl = np.flatnonzero(buf == 10)
+        if nl.size >= want:
+            return p + int(nl[want - 1]) + 1, n
+        found += int(nl.size)
+        p += span
+    if found == n - 1 and p >= size and size > pos:
+        # the last row has no newline: a complete file written by hand, or a cut one (checked by the caller)
+        f.seek(max(pos, size - 1))
+        if f.read(1) != b"\n":
+            return size, n
+    return p, found
+
+
+def scan(path: Path) -> _Index:
+    """One pass over the dump: the frame index. Errors name the file, the frame and its step."""
+    idx = _Index()
+    size = path.stat().st_size
+    sets: dict[tuple[str, ...], int] = {}
+    line_guess = 40.0
+    with open(path, "rb") as f:
+        pos = 0
+        frame = 0
+        while pos < size:
+            f.seek(pos)
+            step: int | None = None
+            n: int | None = None
+            box = origin = None
+            time: float | None = None
+            units: str | None = None
+            cols: tuple[str, ...] | None = None
+            while cols is None:
+                line = f.readline()
+                if not line:
+                    if step is None and n is None and frame > 0 and not line.strip():
+                        return idx  # trailing blank lines
+                    raise CorruptFileError(f"file ends inside the header of frame {frame}"
+                                           + (f" (step {step})" if step is not None else "")
+                                           + ": truncated", path=path)
+                text = line.decode("utf-8", errors="replace").strip()
+                if not text:
+                    continue
+                if not text.startswith("ITEM:"):
+                    raise CorruptFileError(f"expected an 'ITEM:' line in the header of frame {frame}, found "
+                                           f"{text[:40]!r}", path=path)
+                item = text[5:].strip()
+                try:
+                    if item == "TIMESTEP":
+                        step = int(f.readline().split()[0])
+                    elif item == "NUMBER OF ATOMS":
+                        n = int(f.readline().split()[0])
+                    elif item == "TIME":
+                        time = float(f.readline().split()[0])
+                    elif item == "UNITS":
+                        units = f.readline().decode("utf-8", errors="replace").strip().lower()
+                    elif item.startswith("BOX BOUNDS"):
+                        flags = item.split()[2:]
+                        triclinic = len(flags) >= 3 and flags[:3] == ["xy", "xz", "yz"]
+                        rows = [[float(v) for v in f.readline().split()] for _ in range(3)]
+                        if any(len(r) < (3 if triclinic else 2) for r in rows):
+                            raise ValueError("box bounds line too short")
+                        box, origin = _box_from_bounds(rows, triclinic)
+                    elif item.startswith("ATOMS"):
+                        cols = tuple(item.split()[1:])
+                    else:
+                        raise CorruptFileError(f"unknown header item 'ITEM: {item[:30]}' in frame {frame}",
+                                               path=path)
+                except (ValueError, IndexError) as exc:
+                    raise CorruptFileError(f"cannot read 'ITEM: {item[:30]}' of frame {frame}"
+                                           + (f" (step {step})" if step is not None else "")
+                                           + f": truncated or damaged ({exc})", path=path) from exc
+            missing = [name for name, v in (("TIMESTEP", step), ("NUMBER OF ATOMS", n), ("BOX BOUNDS", box))
+                       if v is None]
+            if missing:
+                raise CorruptFileError(f"frame {frame} has no 'ITEM: {missing[0]}' before its atoms", path=path)
+            assert step is not None and n is not None and box is not None and origin is not None
+            if "id" not in cols:
+                raise MissingDataError(
+                    f"the dump has no 'id' column (ITEM: ATOMS {' '.join(cols)}): atoms cannot be matched "
+                    "from frame to frame. Write the dump with 'id' (dump custom ... id type x y z vx vy vz)",
+                    path=path)
+            if n < 0:
+                raise CorruptFileError(f"frame {frame} (step {step}) claims {n} atoms", path=path)
+            start = f.tell()
+            # Each row holds at least one character and a separator per column: a claimed atom count
+            # the remaining bytes cannot hold is a truncated file, found before anything is allocated.
+            if n * 2 * len(cols) > size - start + 1:
+                raise CorruptFileError(
+                    f"frame {frame} (step {step}) claims {n} atoms, more than the {size - start} bytes left in "
+                    "the file can hold: truncated or damaged", path=path)
+            end, got = _skip_lines(f, start, n, size, line_guess)
+            if got < n:
+                raise CorruptFileError(f"frame {frame} (step {step}) is cut short: {got} of {n} atom rows "
+                                       f"(the file is truncated; frames 0 to {frame - 1} are complete)"
+                                       if frame else f"frame 0 (step {step}) is cut short: {got} of {n} atom "
+                                       "rows (the file is truncated)", path=path)
+            if end == size and n:
+                _check_last_row(f, start, end, len(cols), path, frame, step)
+            if frame == 0 and n:
+                line_guess = max(4.0, (end - start) / n)
+            if cols not in sets:
+                sets[cols] = len(sets)
+                idx.column_sets.append(cols)
+            idx.offset.append(start)
+            idx.end.append(end)
+            idx.step.append(step)
+            idx.n_atoms.append(n)
+            idx.columns.append(sets[cols])
+            idx.box.append(box)
+            idx.origin.append(origin)
+            idx.time.append(time)
+            idx.units.append(units)
+            pos = end
+            frame += 1
+    if not idx.offset:
+        raise CorruptFileError("the dump holds no frame", path=path)
+    return idx
+
+
+def _check_last_row(f: io.BufferedReader, start: int, end: int, ncols: int, path: Path, frame: int,
+                    step: int) -> None:
+    """The file's last row must hold every column (a cut inside the last row leaves fewer fields)."""
+    f.seek(max(start, end - 4096))
+    tail = f.read(end - max(start, end - 4096))
+    last = tail.rstrip(b"\n").rsplit(b"\n", 1)[-1]
+    if len(last.split()) != ncols:
+        raise CorruptFileError(f"the last atom row of frame {frame} (step {step}) is cut short "
+                               f"({len(last.split())} of {ncols} fields): the file is truncated", path=path)
+
+
+class LammpsDumpFrames:
+    """A FrameSource over a LAMMPS text dump (frames read lazily, a chunk at a time)."""
+
+    positions_precision_nm: float | None = None  # text: as many digits as the dump wrote (6 with %g)
+
+    def __init__(self, path: Path, index: _Index, keep: np.ndarray) -> None:
+        self.path = path
+        self._idx = index
+        self._keep = keep  # file frame of each run frame
+        self.n_frames = int(keep.size)
+        first = int(keep[0])
+        self.n_atoms = int(index.n_atoms[first])
+        self.steps = np.asarray(index.step, dtype=np.int64)[keep]
+        self.has_box = True
+        self.velocities_estimated = False
+        cols_per_frame = [index.column_sets[index.columns[int(k)]] for k in keep]
+        self._vel_frames = np.array([all(c in cols for c in ("vx", "vy", "vz")) for cols in cols_per_frame])
+        self.has_velocities = bool(self._vel_frames.all())
+        self.style: UnitStyle | None = None
+        self._time = self.steps.astype(np.float64)  # until set_units/retime: the step number
+        self._ids: np.ndarray | None = None
+        self.lammps: LammpsTopology | None = None  # set by open_dump_run, used by finish_run
+        self.dump_units: str | None = None  # ITEM: UNITS, when the dump has it
+
+    # -- units and time, fixed once the run's metadata is known
+    def set_units(self, style: UnitStyle) -> None:
+        self.style = style
+
+    def retime(self, time_ps: np.ndarray) -> None:
+        t = np.asarray(time_ps, dtype=np.float64)
+        if t.shape != (self.n_frames,):
+            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
+        self._time = t
+
+    @property
+    def time_ps(self) -> np.ndarray:
+        return self._time
+
+    def dump_times(self) -> np.ndarray | None:
+        """The ``ITEM: TIME`` values (style time units) of the frames, or None when some frame has none."""
+        t = [self._idx.time[int(k)] for k in self._keep]
+        return None if any(v is None for v in t) else np.asarray(t, dtype=np.float64)
+
+    # -- reading
+    def read_rows(self, k: int) -> tuple[tuple[str, ...], np.ndarray]:
+        """Columns and the rows (float64, sorted by id) of file frame ``k``; non-numeric columns are NaN."""
+        idx = self._idx
+        cols = idx.column_sets[idx.columns[k]]
+        n = idx.n_atoms[k]
+        with open(self.path, "rb") as f:
+            f.seek(idx.offset[k])
+            raw = f.read(idx.end[k] - idx.offset[k])
+        step = idx.step[k]
+        try:
+            with _warnings.catch_warnings():
+                _warnings.simplefilter("error")
+                values = np.fromstring(raw, dtype=np.float64, sep=" ")  # type: ignore[call-overload]
+            if values.size != n * len(cols):
+                raise ValueError(f"{values.size} numbers for {n} rows of {len(cols)} columns")
+            rows = values.reshape(n, len(cols))
+        except (ValueError, DeprecationWarning):
+            rows = self._rows_with_text(raw, cols, n, k)
+        ids = rows[:, cols.index("id")]
+        order = np.argsort(ids, kind="stable")
+        rows = rows[order]
+        sorted_ids = rows[:, cols.index("id")].astype(np.int64)
+        if self._ids is None:
+            if np.any(np.diff(sorted_ids) == 0):
+                raise CorruptFileError(f"frame {k} (step {step}) lists an atom id twice", path=self.path)
+            self._ids = sorted_ids
+        elif not np.array_equal(sorted_ids, self._ids):
+            raise CorruptFileError(f"frame {k} (step {step}) holds other atom ids than the first frame",
+                                   path=self.path)
+        return cols, rows
+
+    def _rows_with_text(self, raw: bytes, cols: tuple[str, ...], n: int, k: int) -> np.ndarray:
+        """Rows when some column holds text (element names): numbers where they parse, NaN elsewhere."""
+        lines = raw.split(b"\n")
+        rows = np.full((n, len(cols)), np.nan)
+        r = 0
+        for line in lines:
+            fields = line.split()
+            if not fields:
+                continue
+            if r >= n or len(fields) != len(cols):
+                raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}): atom row {r} has {len(fields)} "
+                                       f"fields for {len(cols)} columns", path=self.path)
+            for c, text in enumerate(fields):
+                try:
+                    rows[r, c] = float(text)
+                except ValueError:
+                    if cols[c] in ("id", "type", "x", "y", "z", "xu", "yu", "zu", "xs", "ys", "zs", "xsu", "ysu",
+                                   "zsu", "ix", "iy", "iz", "vx", "vy", "vz", "mass", "mol"):
+                        raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}): {cols[c]} of atom row {r} "
+                                               f"is not a number ({text[:20]!r})", path=self.path) from None
+            r += 1
+        if r != n:
+            raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}): {r} atom rows for {n} atoms",
+                                   path=self.path)
+        return rows
+
+    def column_text(self, name: str) -> list[str] | None:
+        """A text column (``element``) of the first frame, sorted by id, or None."""
+        k = int(self._keep[0])
+        cols = self._idx.column_sets[self._idx.columns[k]]
+        if name not in cols:
+            return None
+        with open(self.path, "rb") as f:
+            f.seek(self._idx.offset[k])
+            raw = f.read(self._idx.end[k] - self._idx.offset[k])
+        table = [line.split() for line in raw.split(b"\n") if line.strip()]
+        ids = np.array([int(r[cols.index("id")]) for r in table])
+        order = np.argsort(ids, kind="stable")
+        return [table[i][cols.index(name)].decode("utf-8", errors="replace") for i in order]
+
+    def _positions(self, cols: tuple[str, ...], rows: np.ndarray, k: int) -> np.ndarray:
+        box = self._idx.box[k]
+        origin = self._idx.origin[k]
+        for names in _POSITION_SETS:
+            if all(c in cols for c in names):
+                xyz = rows[:, [cols.index(c) for c in names]]
+                if names[0].startswith("xs"):  # scaled: fractions of the edge vectors from the corner
+                    xyz = origin + xyz @ box
+                if names == ("x", "y", "z") and all(c in cols for c in ("ix", "iy", "iz")):
+                    xyz = xyz + rows[:, [cols.index(c) for c in ("ix", "iy", "iz")]] @ box
+                return xyz
+        raise MissingDataError(f"frame {k} (step {self._idx.step[k]}) has no positions (columns "
+                               f"{' '.join(cols)}; expected x y z, xu yu zu or xs ys zs)", path=self.path)
+
+    def wrapped_only(self) -> bool:
+        """True when some frame has wrapped positions (x y z or xs ys zs) and no image flags."""
+        for cols in self._idx.column_sets:
+            if not any(all(c in cols for c in s) for s in (("xu", "yu", "zu"), ("xsu", "ysu", "zsu"))):
+                if not all(c in cols for c in ("ix", "iy", "iz")):
+                    return True
+        return False
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+        positions: bool = True,
+    ) -> Iterator[FrameChunk]:
+        if self.style is None:
+            raise MissingDataError("the LAMMPS units style is not known (give log.lammps, which echoes "
+                                   "'units', or state it)", path=self.path)
+        style = self.style
+        stop = self.n_frames if stop is None else min(stop, self.n_frames)
+        want = np.arange(start, stop, stride)
+        if want.size == 0:
+            return
+        cols_sel = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
+        n_read = self.n_atoms if cols_sel is None else cols_sel.size
+        with_v = velocities and self.has_velocities
+        per = budget_chunk_frames(max(1, int(chunk_frames)), n_read, n_arrays=int(positions) + int(with_v))
+        for i in range(0, want.size, per):
+            sel = want[i : i + per]
+            pos = np.empty((sel.size, n_read if positions else 0, 3), np.float32)
+            vel = np.empty((sel.size, n_read, 3), np.float32) if with_v else None
+            box = np.empty((sel.size, 3, 3))
+            for j, fi in enumerate(sel):
+                k = int(self._keep[fi])
+                cols, rows = self.read_rows(k)
+                if rows.shape[0] != self.n_atoms:
+                    raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}) has {rows.shape[0]} atoms, "
+                                           f"the first frame {self.n_atoms}", path=self.path)
+                if cols_sel is not None:
+                    rows = rows[cols_sel]
+                if positions:
+                    pos[j] = self._positions(cols, rows, k) * style.length_nm
+                if vel is not None:
+                    vel[j] = rows[:, [cols.index(c) for c in ("vx", "vy", "vz")]] * style.velocity_nm_per_ps
+                box[j] = self._idx.box[k] * style.length_nm
+            yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
+                             velocities_nm_per_ps=vel, box_nm=box)
+
+    def read_frame(self, index: int) -> FrameChunk:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
+        index %= self.n_frames
+        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
+
+
+@dataclass
+class DumpScan:
+    """A dump opened: its frames (repeated steps resolved) and what the scan found."""
+
+    frames: LammpsDumpFrames
+    repeats: list[str]  # one line per appended continuation that restarted before the previous end
+    units: str | None  # ITEM: UNITS, when the dump has it
+    columns: tuple[str, ...]  # of the first frame
+
+
+def open_dump(path: str | Path) -> DumpScan:
+    """Scan a dump and resolve appended continuations (the later frames of a repeated step win)."""
+    p = Path(path)
+    idx = scan(p)
+    steps = idx.step
+    kept: list[int] = []
+    repeats: list[str] = []
+    for k, s in enumerate(steps):
+        if kept and s <= steps[kept[-1]]:
+            dropped = [j for j in kept if steps[j] >= s]
+            kept = [j for j in kept if steps[j] < s]
+            repeats.append(f"frame {k} restarts at step {s}: {len(dropped)} earlier frame(s) of steps "
+                           f"{steps[dropped[0]]} to {steps[dropped[-1]]} replaced by the later ones")
+        kept.append(k)
+    n0 = idx.n_atoms[kept[0]]
+    for k in kept:
+        if idx.n_atoms[k] != n0:
+            raise CorruptFileError(f"frame {k} (step {steps[k]}) has {idx.n_atoms[k]} atoms, frame 0 has {n0}: "
+                                   "the atom count changes inside the dump", path=p)
+    units = next((u for u in idx.units if u), None)
+    frames = LammpsDumpFrames(p, idx, np.asarray(kept, dtype=np.int64))
+    frames.dump_units = units
+    return DumpScan(frames=frames, repeats=repeats, units=units,
+                    columns=idx.column_sets[idx.columns[kept[0]]])
+
+
+# ------------------------------------------------------------------------------------ a run
+
+
+@dataclass
+class LammpsTopology:
+    """What a dump run knows about its atoms before the units style is known (masses in style units)."""
+
+    dump_path: Path
+    data: object | None = None  # lammps_data.DataFile
+    mdtraj_top: object | None = None  # a topology file read by mdtraj (PDB, ...)
+    top_path: Path | None = None
+    dump_masses: np.ndarray | None = None  # the dump's mass column (style mass unit)
+    dump_types: np.ndarray | None = None
+    elements: list[str] | None = None  # the dump's element column
+
+
+def open_dump_run(path: Path, top_path: Path | None) -> Run:
+    """A Run over a LAMMPS dump (and a data file or another topology), units not yet applied.
+
+    :func:`finish_run` applies the units style and the time step once the run's metadata is known
+    (``open_run`` calls it after reading log.lammps and the user's statements).
+    """
+    from phasewake.core.readers import lammps_data
+    from phasewake.core.run import Run, RunMetadata
+
+    ds = open_dump(path)
+    frames = ds.frames
+    warnings = [f"{path.name}: appended continuation: {r}" for r in ds.repeats]
+    meta = RunMetadata()
+    meta.sources["positions"] = path.name
+    if frames.has_velocities:
+        meta.sources["velocities"] = f"{path.name} (vx vy vz, full-step)"
+    elif frames._vel_frames.any():
+        warnings.append(f"{path.name}: only {int(frames._vel_frames.sum())} of {frames.n_frames} frames hold "
+                        "velocities (the dump's columns change); stored velocities are not used")
+    if ds.repeats:
+        meta.extra["overlaps"] = [f"{path.name}: {r}" for r in ds.repeats]
+    info = LammpsTopology(dump_path=path, top_path=top_path)
+    k0 = int(frames._keep[0])
+    cols, rows = frames.read_rows(k0)
+    if "mass" in cols:
+        info.dump_masses = rows[:, cols.index("mass")].copy()
+    if "type" in cols:
+        info.dump_types = rows[:, cols.index("type")].astype(np.int64)
+    if "element" in cols:
+        info.elements = frames.column_text("element")
+    if top_path is not None:
+        if lammps_data.claim(top_path):
+            data = lammps_data.read_data(top_path)
+            if data.n_atoms != frames.n_atoms:
+                raise TopologyMismatchError(f"the dump has {frames.n_atoms} atoms, the data file {top_path.name} "
+                                            f"{data.n_atoms}", path=path)
+            if frames._ids is not None and not np.array_equal(frames._ids, data.ids):
+                raise TopologyMismatchError(f"the dump's atom ids differ from those of the data file "
+                                            f"{top_path.name}", path=path)
+            info.data = data
+        else:
+            from phasewake.core.readers.trajectory import load_topology
+
+            top = load_topology(top_path)
+            if top.n_atoms != frames.n_atoms:
+                raise TopologyMismatchError(f"the dump has {frames.n_atoms} atoms, the topology {top_path.name} "
+                                            f"{top.n_atoms}", path=path)
+            info.mdtraj_top = top
+        meta.sources["topology"] = top_path.name
+    frames.lammps = info
+    if frames.wrapped_only():
+        warnings.append(f"{path.name}: positions are wrapped into the box (x y z without ix iy iz images): "
+                        "molecules may be cut at the box faces. Dump xu yu zu, or x y z with ix iy iz")
+    meta.extra["time_from"] = "step number"
+    return Run(name=path.stem, paths=(path,) + ((top_path,) if top_path else ()), topology=None,
+               masses_amu=np.full(frames.n_atoms, np.nan), time_ps=frames.time_ps.copy(), frames=frames,
+               energies=None, metadata=meta, warnings=warnings)
+
+
+def lammps_frames(frames: object) -> bool:
+    """True for frames that still need :func:`finish_run` (a dump, or parts made of dumps)."""
+    return getattr(frames, "lammps", None) is not None
+
+
+def finish_run(run: Run, units: str | None = None) -> list[str]:
+    """Apply the units style and the time step to a dump run; return warnings.
+
+    The style comes from ``run.metadata.units_style`` (log.lammps or the user), else ``units`` (the
+    dump's ``ITEM: UNITS``); a run whose style nobody states is refused. Time is step x time step
+    (``run.metadata.timestep_ps``), else the dump's ``ITEM: TIME``, else the step number (said so).
+    """
+    from phasewake.core.readers import lammps_data
+    from phasewake.core.readers.common import check_time_axis, topology_from_elements
+    from phasewake.core.readers.lammps_units import style_from_text
+
+    frames = run.frames
+    info: LammpsTopology = frames.lammps  # type: ignore[union-attr]
+    md = run.metadata
+    warnings: list[str] = []
+    style = style_from_text(md.units_style)
+    if md.units_style and style is None:
+        raise MissingDataError(f"units style {md.units_style!r} is not a LAMMPS style (lj, real, metal, si, "
+                               "cgs, electron, micro, nano)", path=info.dump_path)
+    if style is None:
+        style = style_from_text(units or getattr(frames, "dump_units", None))
+        if style is not None:
+            md.units_style = f"lammps {style.name}"
+            md.sources["units_style"] = f"ITEM: UNITS of {info.dump_path.name}"
+    if style is None:
+        raise MissingDataError("the LAMMPS units style is not known: give log.lammps (it echoes 'units') with "
+                               "the dump, or state it (--units real, metal, lj, ...)", path=info.dump_path)
+    frames.set_units(style)  # type: ignore[union-attr]
+    md.engine = md.engine or "LAMMPS"
+    steps = np.asarray(frames.steps, dtype=np.float64)  # type: ignore[union-attr]
+    if md.timestep_ps is not None:
+        t = steps * float(md.timestep_ps)
+        md.extra["time_from"] = (f"step x time step ({md.timestep_ps:g} "
+                                 f"{'tau' if style.reduced else 'ps'} from {md.sources.get('timestep_ps', 'the run')})")
+    elif (dump_t := frames.dump_times()) is not None:  # type: ignore[union-attr]
+        t = dump_t * style.time_ps
+        md.extra["time_from"] = f"ITEM: TIME of {info.dump_path.name}"
+    else:
+        t = steps
+        md.extra["time_from"] = "step number"
+        warnings.append(f"{info.dump_path.name}: the time step is not known, so time is the step number (not ps): "
+                        "give log.lammps (it echoes 'timestep') or --timestep")
+    frames.retime(t)  # type: ignore[union-attr]
+    run.time_ps = np.asarray(t, dtype=np.float64)
+    warnings.extend(check_time_axis(run.time_ps, path=info.dump_path, what="frame"))
+
+    masses = None
+    g_per_mol = style.name in ("real", "metal", "electron")
+    if info.dump_masses is not None:
+        masses, src = info.dump_masses * style.mass_amu, f"mass column of {info.dump_path.name}"
+    elif info.data is not None and info.data.masses() is not None:  # type: ignore[attr-defined]
+        masses = info.data.masses() * style.mass_amu  # type: ignore[attr-defined]
+        src = f"Masses of {info.top_path.name if info.top_path else 'the data file'}"
+    if info.data is not None:
+        run.topology = lammps_data.topology(info.data, masses_in_amu=g_per_mol,  # type: ignore[arg-type]
+                                            elements=info.elements)
+    elif info.mdtraj_top is not None:
+        run.topology = info.mdtraj_top  # type: ignore[assignment]
+    elif info.elements is not None:
+        run.topology = topology_from_elements(info.elements)
+    elif info.dump_types is not None:
+        run.topology = topology_from_elements([f"T{t}" for t in info.dump_types])
+    if masses is None and run.topology is not None:
+        from phasewake.core.readers.common import masses_from_topology
+
+        masses = masses_from_topology(run.topology, frames.n_atoms)  # type: ignore[union-attr]
+        src = "element masses of " + (info.top_path.name if info.mdtraj_top is not None and info.top_path
+                                      else f"the element column of {info.dump_path.name}")
+    if masses is not None:
+        if not np.all(np.isfinite(masses)) or np.any(masses <= 0):
+            raise CorruptFileError("masses must be positive finite numbers", path=info.dump_path)
+        run.masses_amu = np.asarray(masses, dtype=np.float64)
+        md.sources["masses"] = src
+    else:
+        warnings.append(f"{info.dump_path.name}: masses unknown: give the LAMMPS data file (its Masses section), "
+                        "or dump a mass or element column")
+    if style.reduced:
+        warnings.append(f"{info.dump_path.name}: LAMMPS lj units are reduced: positions, times, velocities and "
+                        "masses are in sigma, tau, sigma/tau and m, shown as numbers without conversion "
+                        "(the labels nm, ps, amu do not apply)")
+    return warnings
