@@ -70,6 +70,18 @@ def _claim_topology(path: Path) -> bool:
     return trajectory.claim_topology(path)
 
 
+def _claim_lammps_dump(path: Path) -> bool:
+    from phasewake.core.readers import lammps_dump
+
+    return lammps_dump.claim(path)
+
+
+def _claim_lammps_data(path: Path) -> bool:
+    from phasewake.core.readers import lammps_data
+
+    return lammps_data.claim(path)
+
+
 def _claim_table(path: Path) -> bool:
     from phasewake.core.readers import tables
 
@@ -80,6 +92,10 @@ def _claim_table(path: Path) -> bool:
 READERS: tuple[ReaderEntry, ...] = (
     ReaderEntry("h5md", "run", (".h5md", ".h5", ".hdf5"), "H5MD 1.1 (HDF5 with an /h5md group)", _claim_h5md),
     ReaderEntry("mdtraj-hdf5", "run", (".h5", ".hdf5", ".lh5"), "mdtraj's HDF5 trajectory (read with h5py)", _claim_mdtraj_h5),
+    ReaderEntry("lammps-dump", "trajectory", (".lammpstrj", ".lammpsdump", ".dump"),
+                "LAMMPS text dumps (dump custom/atom; our own reader, lazily in chunks)", _claim_lammps_dump),
+    ReaderEntry("lammps-data", "topology", (".data", ".lmp", ".lammps"),
+                "LAMMPS data files as topology (masses, molecules, bonds)", _claim_lammps_data),
     ReaderEntry("trajectory", "trajectory",
                 (".dcd", ".xtc", ".trr", ".nc", ".ncdf", ".netcdf", ".lammpstrj", ".xyz", ".binpos",
                  ".pdb", ".pdb.gz", ".gro", ".mdcrd", ".crd", ".arc", ".dtr"),
@@ -176,6 +192,9 @@ def open_run(
     all_paths += [Path(p) for p in (energy_files or [])]
     if not all_paths:
         raise InputError("no files given")
+    folder_notes: list[str] = []
+    if any(p.is_dir() for p in all_paths):
+        all_paths, folder_notes = _expand_folders(all_paths)
     entries: list[tuple[Path, ReaderEntry]] = []
     for p in all_paths:
         entries.append((p, identify(p)))
@@ -188,25 +207,36 @@ def open_run(
     if len(runs) + len(trajs) > 1:
         # a PDB/GRO next to another trajectory is its topology
         structural = [(p, e) for p, e in trajs if _is_topology_like(p)]
-        if len(runs) + len(trajs) - len(structural) == 1:
+        if len(trajs) - len(structural) >= 1:
             trajs = [(p, e) for p, e in trajs if not _is_topology_like(p)]
             tops += structural
-        else:
+        if runs and (trajs or len(runs) > 1):
             names = ", ".join(p.name for p, _ in runs + trajs)
-            raise InputError(f"more than one trajectory given ({names}); open one run at a time")
+            raise InputError(f"more than one run file given ({names}); a self-contained run file (H5MD, HDF5) "
+                             "is opened alone, one run at a time")
 
-    warnings: list[str] = []
+    warnings: list[str] = list(folder_notes)
     if runs:
         with _unexpected_is_corrupt(runs[0][0]):
             run = _open_self_contained(runs[0][0], runs[0][1], group=group, units=units)
         if tops:
             run = _replace_topology(run, tops[0][0])
     elif trajs:
-        from phasewake.core.readers import trajectory
-
         top_path = tops[0][0] if tops else None
-        with _unexpected_is_corrupt(trajs[0][0]):
-            run = trajectory.open_trajectory_run(trajs[0][0], top_path)
+        parts = []
+        for tp, te in trajs:
+            with _unexpected_is_corrupt(tp):
+                parts.append(_open_trajectory(tp, te, top_path))
+        if len(parts) == 1:
+            run = parts[0]
+        else:
+            from phasewake.core.readers.parts import join_runs
+
+            clock = "step" if all(r.metadata.extra.get("time_from") == "step number" for r in parts) else "ps"
+            run, _ = join_runs(parts, clock=clock)
+    elif tops and _is_lammps_data(tops[0][1]):
+        raise MissingDataError("a LAMMPS data file is the topology of a run: give the dump (trajectory) too",
+                               path=tops[0][0])
     elif tops:
         # a structure file alone (PDB/GRO): one or a few frames
         from phasewake.core.readers import trajectory
@@ -246,6 +276,11 @@ def open_run(
                                     "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
     if chunk_frames is not None:
         run.metadata.extra["chunk_frames"] = int(chunk_frames)
+    from phasewake.core.readers import lammps_dump
+
+    if lammps_dump.lammps_frames(run.frames):
+        with _unexpected_is_corrupt(run.paths[0] if run.paths else None):
+            warnings.extend(lammps_dump.finish_run(run))
 
     if run.frames is not None and not run.frames.has_velocities and run.frames.n_frames >= 2:
         from phasewake.core.readers.common import EstimatedVelocityFrames, frame_spacing_warning
@@ -267,6 +302,37 @@ def open_run(
     run.paths = tuple(dict.fromkeys(all_paths))
     run.warnings = list(dict.fromkeys(warnings))
     return run
+
+
+def _open_trajectory(path: Path, entry: ReaderEntry, top_path: Path | None) -> Run:
+    """One trajectory file as a Run, by the reader that claimed it."""
+    if entry.name == "lammps-dump":
+        from phasewake.core.readers import lammps_dump
+
+        return lammps_dump.open_dump_run(path, top_path)
+    from phasewake.core.readers import trajectory
+
+    return trajectory.open_trajectory_run(path, top_path)
+
+
+def _is_lammps_data(entry: ReaderEntry) -> bool:
+    return entry.name == "lammps-data"
+
+
+def _expand_folders(paths: Sequence[Path]) -> tuple[list[Path], list[str]]:
+    """Each folder among ``paths`` replaced by the run files found in it (``core.readers.folder``)."""
+    from phasewake.core.readers import folder
+
+    out: list[Path] = []
+    notes: list[str] = []
+    for p in paths:
+        if p.is_dir():
+            found = folder.find_run_files(p)
+            out.extend(found.paths)
+            notes.extend(found.notes)
+        else:
+            out.append(p)
+    return out, notes
 
 
 def _is_topology_like(path: Path) -> bool:

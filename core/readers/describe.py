@@ -65,6 +65,10 @@ def describe(run: Run) -> dict[str, Any]:
     }
     out["metadata"] = {k: v for k, v in meta.items() if v is not None}
     out["sources"] = dict(md.sources)
+    # a run joined from parts (core/readers/parts.py): each part, overlaps and gaps with their times
+    out["parts"] = list(md.extra.get("parts", []))
+    out["overlaps"] = list(md.extra.get("overlaps", []))
+    out["gaps"] = list(md.extra.get("gaps", []))
     out["warnings"] = list(run.warnings)
     return out
 
@@ -103,6 +107,13 @@ def format_description(d: dict[str, Any]) -> str:
         lines.append("metadata:")
         for k, v in d["metadata"].items():
             lines.append(f"  {k}: {v}")
+    if d.get("parts"):
+        lines.append(f"parts ({len(d['parts'])}, joined in time order):")
+        lines.extend(f"  {p}" for p in d["parts"])
+    for key in ("overlaps", "gaps"):
+        if d.get(key):
+            lines.append(f"{key}:")
+            lines.extend(f"  {x}" for x in d[key])
     if d["warnings"]:
         lines.append("warnings:")
         for w in d["warnings"]:
