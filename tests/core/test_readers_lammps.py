@@ -308,3 +308,61 @@ def test_data_file_with_another_atom_count_names_both(tmp_path):
 def test_data_file_alone_asks_for_the_dump():
     with pytest.raises(MissingDataError, match="dump"):
         open_run([DATAFILE])
+
+
+# ---- the engine-fixture runs (tests/data/engines/lammps, made by make_engine_runs.py with LAMMPS 29 Sep
+# 2021): the outside reference is each run's reported.json, read from the engine's own log.lammps.
+
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "lammps"
+R_KJ = 0.00831446261815324  # molar gas constant, kJ/(mol K) (CODATA 2018)
+
+
+def _reported(name: str) -> dict:
+    import json
+
+    return json.loads((ENGINES / name / "reported.json").read_text())["reported"]
+
+
+def _engine_run(name: str, dump: str = "dump.lammpstrj"):
+    rep = _reported(name)
+    kw = {"units_style": rep["units_style"]}
+    if rep["time_step_ps"] is not None:
+        kw["timestep_ps"] = rep["time_step_ps"]
+    return open_run([ENGINES / name / dump, ENGINES / name / "argon.data"], **kw), rep
+
+
+@pytest.mark.parametrize("name", ["argon_real_nve", "argon_metal_nve", "argon_real_nvt"])
+def test_engine_runs_temperature_at_the_dump_steps_equals_lammps(name):
+    # Reference: LAMMPS's Temp at the dump steps (reported.json, temperature_mean_at_dump_steps) with its
+    # dof 765 = 3N - 3; T = sum m v^2 / (dof R) from the dump's velocities. Within 0.5 K (issue), and
+    # in fact to the dump's 6 digits.
+    run, rep = _engine_run(name)
+    assert run.n_atoms == rep["atoms"] and run.n_frames == rep["frames"]["dump.lammpstrj"]
+    np.testing.assert_allclose(np.diff(run.time_ps), 200 * rep["time_step_ps"])  # dumps every 200 steps
+    _, vel, _, _ = _all(run)
+    t = np.einsum("fai,fai,a->f", vel.astype(np.float64), vel.astype(np.float64), run.masses_amu)
+    t /= rep["degrees_of_freedom"] * R_KJ
+    assert abs(t.mean() - rep["temperature_mean_at_dump_steps"]) < 0.5
+    np.testing.assert_allclose(t.mean(), rep["temperature_mean_at_dump_steps"], rtol=1e-4)
+
+
+def test_engine_run_lj_units_kept_reduced():
+    # Reference: LAMMPS lj Temp at the dump steps (epsilon/kB) = sum m v^2 / dof with kB = 1 (units lj).
+    run, rep = _engine_run("argon_lj_nve")
+    _, vel, _, _ = _all(run)
+    t = np.einsum("fai,fai,a->f", vel.astype(np.float64), vel.astype(np.float64), run.masses_amu)
+    t /= rep["degrees_of_freedom"]
+    np.testing.assert_allclose(t.mean(), rep["temperature_mean_at_dump_steps"], rtol=1e-4)
+    assert any("reduced" in w for w in run.warnings)
+
+
+def test_engine_run_wrapped_and_unwrapped_dumps_agree_modulo_the_box():
+    # Reference: LAMMPS wrote the same run twice: x y z (wrapped, unsorted) and xu yu zu (sorted by id).
+    wrapped, _ = _engine_run("argon_real_nve")
+    unwrapped, _ = _engine_run("argon_real_nve", "dump.unwrapped.lammpstrj")
+    pw, vw, box, _ = _all(wrapped)
+    pu, vu, _, _ = _all(unwrapped)
+    np.testing.assert_array_equal(vw, vu)  # same atoms in the same (id) order
+    d = (pu.astype(np.float64) - pw) / np.diagonal(box, axis1=1, axis2=2)[:, None, :]
+    np.testing.assert_allclose(d - np.round(d), 0, atol=1e-5)
+    assert any("wrapped" in w for w in wrapped.warnings) and not any("wrapped" in w for w in unwrapped.warnings)
