@@ -152,6 +152,7 @@ def open_run(
     paths: Sequence[str | Path] | str | Path,
     *,
     topology: str | Path | None = None,
+    velocities: str | Path | None = None,
     energy_files: Sequence[str | Path] | None = None,
     column_roles: Mapping[str, str] | None = None,
     timestep_ps: float | None = None,
@@ -170,6 +171,8 @@ def open_run(
     paths : one self-contained file (H5MD, mdtraj HDF5), or a trajectory plus optional topology and
         energy-table files, in any order. A file that only an energy-table reader claims is a table.
     topology : topology file for a trajectory that has none (PDB, GRO, PSF, PRMTOP, ...).
+    velocities : a file of velocities beside the positions (NAMD velocity DCD); files named ``*.veldcd``
+        or ``*.vel.dcd`` among ``paths`` are taken as such too.
     energy_files : more energy tables (joined on time).
     column_roles : energy-table column name -> role (see ``phasewake.core.run.ENERGY_ROLES``),
         overriding recognition by name; a name may carry its unit, "Epot (kcal/mol)".
@@ -195,6 +198,14 @@ def open_run(
     folder_notes: list[str] = []
     if any(p.is_dir() for p in all_paths):
         all_paths, folder_notes = _expand_folders(all_paths)
+    from phasewake.core.readers.velocity_file import is_velocity_file
+
+    vel_files = [p for p in all_paths if is_velocity_file(p)] + ([Path(velocities)] if velocities else [])
+    all_paths = [p for p in all_paths if not is_velocity_file(p)]
+    if len(vel_files) > 1:
+        raise InputError(f"more than one velocity file given ({', '.join(p.name for p in vel_files)}); give one")
+    for p in vel_files:
+        _check_file(p)
     entries: list[tuple[Path, ReaderEntry]] = []
     for p in all_paths:
         entries.append((p, identify(p)))
@@ -282,6 +293,16 @@ def open_run(
         with _unexpected_is_corrupt(run.paths[0] if run.paths else None):
             warnings.extend(lammps_dump.finish_run(run))
 
+    if vel_files:
+        from phasewake.core.readers.velocity_file import VelocityFileFrames
+
+        if run.frames is None:
+            raise MissingDataError("a velocity file needs the positions trajectory too", path=vel_files[0])
+        with _unexpected_is_corrupt(vel_files[0]):
+            run.frames = VelocityFileFrames(run.frames, vel_files[0], run.metadata.sources.get("positions", ""))
+        run.metadata.sources["velocities"] = (f"{vel_files[0].name} (NAMD velocity DCD: internal units x "
+                                              "20.45482706 = Angstrom/ps, full-step)")
+        all_paths.append(vel_files[0])
     if run.frames is not None and not run.frames.has_velocities and run.frames.n_frames >= 2:
         from phasewake.core.readers.common import EstimatedVelocityFrames, frame_spacing_warning
 
@@ -297,6 +318,12 @@ def open_run(
         else:
             warnings.append(frame_spacing_warning(run.frames.inner, run.time_ps, run.masses_amu,
                                                   temperature_K=temp))
+        if run.frames.positions_lossy:
+            warnings.append(f"velocities are estimated from positions stored to "
+                            f"{run.frames.positions_precision_nm or 1e-3:g} nm (XTC): each difference carries that "
+                            "rounding; give a trajectory with velocities (TRR) where there is one. Constraints are "
+                            "not inferred from these positions: they come from the engine's files, the topology, "
+                            "or --constraints")
         run.metadata.sources["velocities"] = "estimated by central differences of positions"
 
     run.paths = tuple(dict.fromkeys(all_paths))

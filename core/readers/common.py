@@ -245,6 +245,8 @@ class EstimatedVelocityFrames:
         self.has_velocities = inner.n_frames >= 2
         self.velocities_estimated = True
         self.has_box = inner.has_box
+        self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
+        self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
 
     @staticmethod
     def _step(a: np.ndarray, b: np.ndarray, box: np.ndarray | None) -> np.ndarray:

@@ -56,6 +56,7 @@ class PartsFrames:
         precisions = [getattr(p.frames, "positions_precision_nm", None) for p in self.parts]
         known = [x for x in precisions if x is not None]
         self.positions_precision_nm = max(known) if known else None
+        self.positions_lossy = any(bool(getattr(p.frames, "positions_lossy", False)) for p in self.parts)
         # LAMMPS dumps: units and time step are applied to every part by lammps_dump.finish_run
         self.lammps = getattr(self.parts[0].frames, "lammps", None)
 

@@ -262,6 +262,11 @@ def trr_velocity_frames(path: str | Path, offsets: np.ndarray) -> np.ndarray:
 class MdtrajFrames:
     """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
 
+    # XTC keeps positions to its precision (0.001 nm by default): too coarse to infer constraints from
+    # bond lengths (rigid water looks 0.4% flexible), so the audit does not (ENGINES.md, XTC)
+    positions_precision_nm: float | None = None
+    positions_lossy = False
+
     def __init__(self, path: Path, topology: mdtraj.Topology, *, n_frames: int, time_ps: np.ndarray,
                  has_box: bool, velocity_kind: str | None, velocity_factor: float = 1.0) -> None:
         self.path = path
@@ -556,6 +561,9 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
                           velocity_kind=info.get("velocity_kind"), velocity_factor=info.get("velocity_factor", 1.0))
     md_meta.sources["positions"] = path.name
+    if suf == ".xtc":
+        frames.positions_precision_nm = _xtc_precision_nm(path)
+        frames.positions_lossy = True
     if frames.has_velocities:
         md_meta.sources["velocities"] = path.name
     return Run(name=path.stem, paths=(path,) + ((top_path,) if top_path else ()), topology=top,
@@ -593,3 +601,18 @@ def _atoms_in_file(path: Path, top: mdtraj.Topology) -> int | None:
     except (OSError, struct.error, KeyError, IndexError, TypeError, ValueError):
         return None
     return None
+
+
+def _xtc_precision_nm(path: Path) -> float:
+    """The position precision of an XTC (1 / the precision stored in the first frame, nm); 0.001 nm when
+    the frame is stored uncompressed (9 atoms or fewer) or the header cannot say."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(60)
+        if struct.unpack(">i", head[4:8])[0] > 9:
+            prec = struct.unpack(">f", head[56:60])[0]
+            if prec > 0 and math.isfinite(prec):
+                return 1.0 / prec
+    except (OSError, struct.error):
+        pass
+    return 1e-3

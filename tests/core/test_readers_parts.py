@@ -138,3 +138,40 @@ def test_lammps_dump_parts_join_by_step(tmp_path):
         b = np.concatenate([getattr(c, what) for c in single.frames.iter_chunks(chunk_frames=4)])
         np.testing.assert_array_equal(a, b)
     assert "repeats 1 frame(s) of dump.1.lammpstrj (step 150" in joined.metadata.extra["overlaps"][0]
+
+
+GMX = Path(__file__).resolve().parents[1] / "data" / "engines" / "gromacs"
+
+
+@pytest.mark.parametrize("fmt", ["xtc", "trr"])
+def test_gromacs_noappend_parts_give_the_whole_run(fmt):
+    # Reference: GROMACS 2022.5 made the same run whole and in three -noappend parts (tests/data/engines,
+    # reported.json): parts 2 and 3 share steps 1120-1200 (5 XTC frames); frames equal the whole run's.
+    whole_dir, parts_dir = GMX / "spce_rigid_nve_whole", GMX / "spce_rigid_nve_parts"
+    whole = open_run([whole_dir / f"md.{fmt}", whole_dir / "md.gro"])
+    parts = open_run([parts_dir / f"md.{fmt}", parts_dir / f"md.part0002.{fmt}", parts_dir / f"md.part0003.{fmt}",
+                      parts_dir / "md.gro"])
+    assert parts.n_frames == whole.n_frames
+    np.testing.assert_allclose(parts.time_ps, whole.time_ps, atol=1e-6)
+    for what in ("positions_nm", "velocities_nm_per_ps", "box_nm"):
+        a = np.concatenate([getattr(c, what) for c in parts.frames.iter_chunks(chunk_frames=16)])
+        b = np.concatenate([getattr(c, what) for c in whole.frames.iter_chunks(chunk_frames=16)])
+        np.testing.assert_array_equal(a, b)
+    (overlap,) = parts.metadata.extra["overlaps"][1:] or parts.metadata.extra["overlaps"]
+    if fmt == "xtc":
+        assert "md.part0003.xtc starts at t = 2.24 ps" in overlap and "5 frame(s) of md.part0002.xtc" in overlap
+    assert parts.metadata.extra["gaps"] == []
+
+
+def test_xtc_positions_are_marked_lossy_and_the_estimate_says_so():
+    # ENGINES.md (XTC): positions kept to 0.001 nm (precision 1000 in the frame header of GROMACS's
+    # md.xtc); constraint inference must not run on them (the audit reads positions_lossy).
+    d = GMX / "spce_rigid_nve_whole"
+    xtc = open_run([d / "md.xtc", d / "md.gro"])
+    assert xtc.frames.positions_lossy and xtc.frames.positions_precision_nm == pytest.approx(1e-3)
+    assert any("stored to 0.001 nm (XTC)" in w for w in xtc.warnings)
+    trr = open_run([d / "md.trr", d / "md.gro"])
+    assert not trr.frames.positions_lossy
+    parts = open_run([GMX / "spce_rigid_nve_parts" / "md.xtc", GMX / "spce_rigid_nve_parts" / "md.part0002.xtc",
+                      d / "md.gro"])
+    assert parts.frames.positions_lossy
