@@ -23,6 +23,9 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> 
                         help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run")
     parser.add_argument("--top", metavar="FILE", default=None,
                         help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
+    parser.add_argument("--velocities", metavar="FILE", default=None,
+                        help="velocities written beside the positions (NAMD velocity DCD; files named "
+                             "*.veldcd or *.vel.dcd are recognised without this option)")
     parser.add_argument("--timestep", metavar="FS", type=float, default=None,
                         help="integration time step in fs, when the files do not say")
     parser.add_argument("--constraints", metavar="N", type=int, default=None,
@@ -75,6 +78,8 @@ def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
         out["temperature_K"] = args.temperature
     if getattr(args, "ensemble", None) is not None:
         out["ensemble"] = args.ensemble.upper()
+    if getattr(args, "velocities", None) is not None:
+        out["velocities"] = args.velocities  # a file (open_run's own keyword, not metadata)
     return out
 
 

@@ -71,6 +71,10 @@ def find_run_files(folder: str | Path) -> FolderFiles:
     trajs: list[Path] = []
     tops: list[tuple[Path, str]] = []
     others: list[Path] = []
+    from phasewake.core.readers.velocity_file import is_velocity_file
+
+    velocity_files = [p for p in entries if is_velocity_file(p)]
+    entries = [p for p in entries if not is_velocity_file(p)]
     for p in entries:
         try:
             entry = identify(p)
@@ -126,7 +130,10 @@ def find_run_files(folder: str | Path) -> FolderFiles:
         top = ordered[0][0]
         for p, _ in ordered[1:]:
             out.left_out.append((p, f"another topology ({top.name} taken)"))
-    out.paths = chosen + ([top] if top is not None else []) + others
+    if len(velocity_files) > 1:
+        raise InputError(f"the folder holds {len(velocity_files)} velocity files "
+                         f"({', '.join(p.name for p in velocity_files)}). Name the files to open", path=d)
+    out.paths = chosen + ([top] if top is not None else []) + (velocity_files if chosen else []) + others
     if not out.paths:
         raise InputError("the folder holds no file of a run that we read"
                          + (f" (found {', '.join(p.name for p, _ in out.left_out[:6])})" if out.left_out else ""),
