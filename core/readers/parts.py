@@ -223,3 +223,74 @@ def _at(value: float, clock: str) -> str:
 
 def _span(value: float, clock: str) -> str:
     return f"{value:.0f} steps" if clock == "step" else f"{value:g} ps"
+
+
+def join_energy_parts(tables: Sequence[Any], names: Sequence[str] | None = None) -> tuple[list[Any], list[str]]:
+    """Energy tables of a run written in parts, each group concatenated in time order.
+
+    Tables with the same series (names) but different time axes are parts of one run (md.edr,
+    md.part0002.edr, ...): they are put in order of their first time and concatenated; where a later
+    part starts before an earlier one ended, the earlier part's rows from that time on are dropped (the
+    later part's rows are kept, as the engine did on restart). Tables of other series, or with the same
+    time axis, are returned as they are (to be joined on time as columns of one table).
+
+    Parameters
+    ----------
+    tables : EnergyTable objects
+    names : a name per table for messages (default: its first source)
+
+    Returns
+    -------
+    (tables, warnings): one table per group of parts and the others unchanged, in the order of their
+    first appearance; a line per overlap and per gap, with times.
+    """
+    from phasewake.core.run import EnergyTable, Series
+
+    labels = list(names) if names is not None else [
+        Path(t.sources[0]).name if t.sources else f"table {i + 1}" for i, t in enumerate(tables)]
+    groups: dict[tuple[str, ...], list[int]] = {}
+    for i, t in enumerate(tables):
+        groups.setdefault(tuple(sorted(t.series)), []).append(i)
+    out: list[Any] = []
+    warnings: list[str] = []
+    done: set[int] = set()
+    for i, t in enumerate(tables):
+        if i in done:
+            continue
+        members = groups[tuple(sorted(t.series))]
+        done.update(members)
+        group = [tables[k] for k in members]
+        if len(group) == 1 or all(len(g) == len(group[0]) and np.array_equal(g.time_ps, group[0].time_ps)
+                                  for g in group[1:]) or any(len(g) == 0 for g in group):
+            out.extend(group)
+            continue
+        order = sorted(range(len(group)), key=lambda k: float(group[k].time_ps[0]))
+        keep: list[np.ndarray] = []
+        for pos, k in enumerate(order):
+            tk = np.asarray(group[k].time_ps, dtype=np.float64)
+            later = [float(group[j].time_ps[0]) for j in order[pos + 1 :]]
+            n = int(np.searchsorted(tk, min(later), side="left")) if later else tk.size
+            if n < tk.size:
+                nxt = order[pos + 1 + int(np.argmin(later))]
+                warnings.append(f"{labels[members[nxt]]} starts at t = {min(later):g} ps, before {labels[members[k]]} "
+                                f"ended (t = {tk[-1]:g} ps): {tk.size - n} row(s) of {labels[members[k]]} "
+                                f"(t = {tk[n]:g} to {tk[-1]:g} ps) replaced by the later part's")
+            keep.append(np.arange(n))
+        pieces = [(group[k], idx) for k, idx in zip(order, keep)]
+        time = np.concatenate([np.asarray(g.time_ps, dtype=np.float64)[idx] for g, idx in pieces])
+        ends = [(labels[members[k]], np.asarray(group[k].time_ps)[idx]) for k, idx in zip(order, keep) if idx.size]
+        steps = [float(np.median(np.diff(tt))) for _, tt in ends if tt.size > 1]
+        typical = float(np.median(steps)) if steps else None
+        for (na, ta), (nb, tb) in zip(ends, ends[1:]):
+            if typical is not None and tb[0] - ta[-1] > 1.5 * typical:
+                warnings.append(f"gap of {tb[0] - ta[-1]:g} ps in the energies between {na} (last row at "
+                                f"t = {ta[-1]:g} ps) and {nb} (first row at t = {tb[0]:g} ps)")
+        series = {}
+        for name, s in group[order[0]].series.items():
+            values = np.concatenate([np.asarray(g.series[name].values)[idx] for g, idx in pieces])
+            series[name] = Series(name, values, s.unit, s.role, s.source)
+        sources = tuple(src for k in order for src in group[k].sources)
+        warnings.append(f"energies joined from {len(group)} parts in time order: "
+                        f"{', '.join(labels[members[k]] for k in order)}")
+        out.append(EnergyTable(time_ps=time, series=series, sources=sources))
+    return out, warnings
