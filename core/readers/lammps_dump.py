@@ -230,6 +230,40 @@ def _check_last_row(f: io.BufferedReader, start: int, end: int, ncols: int, path
                                f"({len(last.split())} of {ncols} fields): the file is truncated", path=path)
 
 
+_NUMERIC = frozenset(("id", "type", "x", "y", "z", "xu", "yu", "zu", "xs", "ys", "zs", "xsu", "ysu", "zsu",
+                      "ix", "iy", "iz", "vx", "vy", "vz", "mass", "mol"))
+
+
+def _parse_block(raw: bytes, cols: tuple[str, ...], n: int) -> np.ndarray | None:
+    """The atom rows of one frame as float64 (n, len(cols)), text columns NaN; None when a row does not
+    parse (the caller's slow path then names the row). pandas' C parser when it is installed (about 2.5x
+    numpy's text parsers, measured on a 20,000-atom frame), else numpy."""
+    numeric = [c for c, name in enumerate(cols) if name in _NUMERIC]
+    try:
+        import pandas as pd
+    except ImportError:  # pragma: no cover - pandas comes with the test tools; numpy alone also works
+        pd = None
+    try:
+        if pd is not None:
+            df = pd.read_csv(io.BytesIO(raw), sep=r"\s+", header=None, engine="c", usecols=numeric,
+                             dtype=np.float64, names=list(range(len(cols))))
+            if df.shape[0] != n:
+                return None
+            rows = np.full((n, len(cols)), np.nan)
+            rows[:, numeric] = df.to_numpy(dtype=np.float64)
+            return rows
+        if len(numeric) != len(cols):
+            return None
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("error")
+            values = np.fromstring(raw, dtype=np.float64, sep=" ")  # type: ignore[call-overload]
+        if values.size != n * len(cols):
+            return None
+        return values.reshape(n, len(cols))
+    except (ValueError, DeprecationWarning, IndexError, TypeError):  # pandas' ParserError is a ValueError
+        return None
+
+
 class LammpsDumpFrames:
     """A FrameSource over a LAMMPS text dump (frames read lazily, a chunk at a time)."""
 
@@ -283,15 +317,14 @@ class LammpsDumpFrames:
             f.seek(idx.offset[k])
             raw = f.read(idx.end[k] - idx.offset[k])
         step = idx.step[k]
-        try:
-            with _warnings.catch_warnings():
-                _warnings.simplefilter("error")
-                values = np.fromstring(raw, dtype=np.float64, sep=" ")  # type: ignore[call-overload]
-            if values.size != n * len(cols):
-                raise ValueError(f"{values.size} numbers for {n} rows of {len(cols)} columns")
-            rows = values.reshape(n, len(cols))
-        except (ValueError, DeprecationWarning):
+        rows = _parse_block(raw, cols, n)
+        if rows is None:  # text in a numeric column, a short or long row: the slow path names it
             rows = self._rows_with_text(raw, cols, n, k)
+        used = [c for c, name in enumerate(cols) if name in _NUMERIC]
+        if used and not np.all(np.isfinite(rows[:, used])):
+            r, c = np.argwhere(~np.isfinite(rows[:, used]))[0]
+            raise CorruptFileError(f"frame {k} (step {step}): {cols[used[c]]} of atom row {r} is not a finite "
+                                   "number", path=self.path)
         ids = rows[:, cols.index("id")]
         order = np.argsort(ids, kind="stable")
         rows = rows[order]
@@ -321,8 +354,7 @@ class LammpsDumpFrames:
                 try:
                     rows[r, c] = float(text)
                 except ValueError:
-                    if cols[c] in ("id", "type", "x", "y", "z", "xu", "yu", "zu", "xs", "ys", "zs", "xsu", "ysu",
-                                   "zsu", "ix", "iy", "iz", "vx", "vy", "vz", "mass", "mol"):
+                    if cols[c] in _NUMERIC:
                         raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}): {cols[c]} of atom row {r} "
                                                f"is not a number ({text[:20]!r})", path=self.path) from None
             r += 1

@@ -366,3 +366,49 @@ def test_engine_run_wrapped_and_unwrapped_dumps_agree_modulo_the_box():
     d = (pu.astype(np.float64) - pw) / np.diagonal(box, axis1=1, axis2=2)[:, None, :]
     np.testing.assert_allclose(d - np.round(d), 0, atol=1e-5)
     assert any("wrapped" in w for w in wrapped.warnings) and not any("wrapped" in w for w in unwrapped.warnings)
+
+
+def test_text_and_nan_in_atom_rows_name_the_frame(tmp_path):
+    # an element column (text) is fine; a NaN position or a word in a number column names frame and row
+    p = tmp_path / "el.lammpstrj"
+    p.write_text(HAND.format(step=0).replace("vz mass", "vz mass element").replace(" 16.0\n", " 16.0 O\n")
+                 .replace(" 1.0\n", " 1.0 H\n"))
+    run = open_run([p], units_style="real")
+    assert [a.element.symbol for a in run.topology.atoms] == ["H", "H", "O"]
+    for bad, word in (("4.0 5.0 -1.0", "nan 5.0 -1.0"), ("4.0 5.0 -1.0", "4.0 five -1.0")):
+        q = tmp_path / "bad.lammpstrj"
+        q.write_text(HAND.format(step=0).replace(bad, word))
+        with pytest.raises(CorruptFileError, match=r"frame 0 \(step 0\).*atom row"):
+            _all(open_run([q], units_style="real"))
+
+
+def test_fuzzed_dumps_and_data_files_fail_only_with_our_errors(tmp_path_factory):
+    # Random damage (bytes replaced, cut, lines dropped) to a good dump and data file: either the files
+    # still read, or a PhasewakeError names the file; never another exception.
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    from phasewake.core.errors import PhasewakeError
+
+    good_dump = (HAND.format(step=0) + HAND.format(step=5)).encode()
+    good_data = DATAFILE.read_bytes()[:4000]
+    d = tmp_path_factory.mktemp("fuzz")
+
+    @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @given(which=st.sampled_from(["dump", "data"]), pos=st.integers(0, 3999), cut=st.integers(1, 4000),
+           byte=st.sampled_from([b"x", b"\n", b" ", b"-", b"9", b"\0", b"#", b"e"]))
+    def check(which, pos, cut, byte):
+        src = good_dump if which == "dump" else good_data
+        pos %= len(src)
+        bad = src[:pos] + byte + src[pos + 1 : max(pos + 1, cut)]
+        p = d / ("f.lammpstrj" if which == "dump" else "f.data")
+        p.write_bytes(bad)
+        try:
+            if which == "dump":
+                _all(open_run([p], units_style="metal"))
+            else:
+                read_data(p)
+        except PhasewakeError:
+            pass
+
+    check()
