@@ -260,8 +260,11 @@ def make_gromacs(root: Path) -> None:
                              tau_t=0.1, ref_t=300, gen_vel="yes", gen_temp=300, gen_seed=SEED,
                              ld_seed=SEED, constraints="none", nstenergy=100, nstcalcenergy=100,
                              nstlog=500), "em.gro", "eq_rigid")
+    # flexible: stochastic dynamics (Langevin, friction 1/tau_t on every atom) so that the O-H stretch and
+    # bend, cold when the bonds are released, reach 300 K like the rest (a global thermostat leaves the H
+    # atoms colder than the O atoms for picoseconds)
     _gmx_run(gmx, base, "define          = -DFLEXIBLE\n" + _mdp(
-        integrator="md", dt=0.0005, nsteps=2000, tcoupl="v-rescale", tc_grps="System", tau_t=0.1, ref_t=300,
+        integrator="sd", dt=0.0005, nsteps=6000, tcoupl="no", tc_grps="System", tau_t=0.1, ref_t=300,
         gen_vel="no", continuation="yes", ld_seed=SEED, nstenergy=100, nstcalcenergy=100, nstlog=500),
         "eq_rigid.gro", "eq_flex")
 
