@@ -82,6 +82,15 @@ def _claim_lammps_data(path: Path) -> bool:
     return lammps_data.claim(path)
 
 
+def _engine_claim(module: str, func: str = "claim") -> Callable[[Path], bool]:
+    def claim(path: Path) -> bool:
+        import importlib
+
+        return bool(getattr(importlib.import_module(f"phasewake.core.readers.{module}"), func)(path))
+
+    return claim
+
+
 def _claim_table(path: Path) -> bool:
     from phasewake.core.readers import tables
 
@@ -103,6 +112,21 @@ READERS: tuple[ReaderEntry, ...] = (
     ReaderEntry("topology", "topology",
                 (".pdb", ".pdb.gz", ".gro", ".psf", ".prmtop", ".parm7", ".mol2", ".hoomdxml", ".cif", ".pdbx"),
                 "topology files read by mdtraj", _claim_topology),
+    # engine energy files and logs, claimed by content before the generic tables (engine_common.py)
+    ReaderEntry("gromacs-edr", "energy", (".edr",), "GROMACS energy file (.edr, single or double precision)",
+                _engine_claim("gromacs", "claim_edr")),
+    ReaderEntry("gromacs-log", "energy", (".log",), "GROMACS md.log (energies and run parameters)",
+                _engine_claim("gromacs", "claim_md_log")),
+    ReaderEntry("gromacs-mdp", "parameters", (".mdp",), "GROMACS run parameters (.mdp, mdout.mdp)",
+                _engine_claim("gromacs", "claim_mdp")),
+    ReaderEntry("lammps-log", "energy", (".lammps", ".log"), "LAMMPS log (log.lammps thermo output)",
+                _engine_claim("lammps_log")),
+    ReaderEntry("amber-mdout", "energy", (".out", ".mdout", ".log"), "AMBER mdout (sander, pmemd)",
+                _engine_claim("amber")),
+    ReaderEntry("namd-log", "energy", (".log", ".out"), "NAMD log (ETITLE/ENERGY lines)", _engine_claim("namd")),
+    ReaderEntry("cp2k-ener", "energy", (".ener",), "CP2K MD energy file (.ener)", _engine_claim("cp2k")),
+    ReaderEntry("openmm-csv", "energy", (".csv", ".txt", ".log"), "OpenMM StateDataReporter CSV",
+                _engine_claim("openmm_csv")),
     ReaderEntry("energy-table", "energy", (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene"),
                 "energy tables: CSV/TSV/whitespace text with a header row", _claim_table),
 )
@@ -162,6 +186,7 @@ def open_run(
     chunk_frames: int | None = None,
     group: str | None = None,
     units: Mapping[str, str] | None = None,
+    units_style: str | None = None,
     **metadata: Any,
 ) -> Run:
     """Open one run from its files (headers only; frames stay on disk).
@@ -182,6 +207,7 @@ def open_run(
     units : units the user states for quantities whose files give none, by dimension
         ({"length": "A", "time": "fs", "energy": "kcal/mol", "temperature": "K", ...}); used only where a
         file is silent, and listed in the warnings. Units in the files always win.
+    units_style : the LAMMPS unit style (lj, real, metal, ...) of a log that echoes no ``units`` command.
 
     Returns
     -------
@@ -214,7 +240,8 @@ def open_run(
     runs = [(p, e) for p, e in entries if e.kind == "run"]
     trajs = [(p, e) for p, e in entries if e.kind == "trajectory" and p != explicit_top]
     tops = [(p, e) for p, e in entries if e.kind == "topology" or p == explicit_top]
-    tables = [p for p, e in entries if e.kind == "energy"]
+    tables = [p for p, e in entries if e.kind in ("energy", "parameters")]
+    table_readers = [(p, e.name) for p, e in entries if e.kind in ("energy", "parameters")]
     if len(runs) + len(trajs) > 1:
         # a PDB/GRO next to another trajectory is its topology
         structural = [(p, e) for p, e in trajs if _is_topology_like(p)]
@@ -259,16 +286,21 @@ def open_run(
                   time_ps=np.zeros(0), frames=None, energies=None)
     warnings.extend(run.warnings)
 
+    table = None
     if tables:
-        from phasewake.core.readers import tables as tables_mod
+        from phasewake.core.readers.engine_common import apply_facts, read_energy_sources
 
         with _unexpected_is_corrupt(tables[0] if len(tables) == 1 else None):
-            table, table_warnings = tables_mod.read_tables(
-                tables, column_roles=column_roles, timestep_ps=timestep_ps or run.metadata.timestep_ps,
-                assumed_units=units)
+            table, engine_results, table_warnings = read_energy_sources(
+                table_readers, column_roles=column_roles, timestep_ps=timestep_ps,
+                frame_timestep_ps=run.metadata.timestep_ps, assumed_units=units, units_style=units_style)
+        for res in engine_results:  # what the engine files say about the run (the user's overrides win below)
+            apply_facts(run.metadata, res.facts, res.source, res.fact_sources)
+            run.metadata.extra.update(res.extra)
         warnings.extend(table_warnings)
+    if table is not None:
         run.energies = _merge_tables(run.energies, table, warnings)
-        run.metadata.sources["energies"] = ", ".join(p.name for p in tables)
+        run.metadata.sources["energies"] = ", ".join(Path(p).name for p in table.sources)
         if run.frames is None:
             run.time_ps = table.time_ps
             run.name = tables[0].stem

@@ -1,0 +1,278 @@
+"""What the engine energy readers share: their result, term -> role maps, unit conversion, claims.
+
+Each engine reader (``gromacs``, ``lammps_log``, ``amber``, ``namd``, ``cp2k``, ``openmm_csv``) returns an
+:class:`EngineEnergy`: an energy table in internal units (kJ/mol, K, bar, nm^3, g/cm^3, ps), the run
+facts its file states (RunMetadata field -> value) and warnings. :func:`read_energy_sources` reads every
+energy or parameter file of one run (generic tables through ``tables``), joins the tables on time and
+collects the facts with the file each came from.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from phasewake.core.errors import EnergyTableError, UnitError
+from phasewake.core.run import ENERGY_ROLES, EnergyTable, RunMetadata, Series
+from phasewake.core.units import parse_unit, split_header
+
+# dimension a role's unit must have (the same rule as the generic tables)
+ROLE_DIMENSION = {"time": "time", "potential": "energy", "kinetic": "energy", "total": "energy",
+                  "conserved": "energy", "bath_heat": "energy", "temperature": "temperature",
+                  "pressure": "pressure", "volume": "volume", "density": "density"}
+
+
+@dataclass
+class EngineEnergy:
+    """What one engine file gives: energies (may be None for a parameter file), facts, warnings."""
+
+    table: EnergyTable | None
+    facts: dict[str, Any] = field(default_factory=dict)  # RunMetadata field -> value
+    source: str = ""  # the file name the facts came from, as shown to the user
+    fact_sources: dict[str, str] = field(default_factory=dict)  # field -> source when not ``source``
+    warnings: list[str] = field(default_factory=list)
+    extra: dict[str, Any] = field(default_factory=dict)  # RunMetadata.extra entries
+
+
+def head_text(path: Path, n: int = 65536) -> str:
+    """The first ``n`` bytes as text ('' for a binary file or one that cannot be read)."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(n)
+    except OSError:
+        return ""
+    if b"\x00" in head:
+        return ""
+    return head.decode("utf-8", errors="replace")
+
+
+def role_overrides(column_roles: Mapping[str, str] | None) -> dict[str, tuple[str, str | None]]:
+    """``--column NAME=ROLE`` as name -> (role, unit stated with the role or None), keyed by the name
+    and by the name without its unit."""
+    out: dict[str, tuple[str, str | None]] = {}
+    for key, given in (column_roles or {}).items():
+        role, unit = split_header(given)
+        role = role.strip().lower()
+        if role not in ENERGY_ROLES:
+            raise EnergyTableError(f"column role {role!r} for {key!r} is not one of {', '.join(ENERGY_ROLES)}")
+        out[key] = (role, unit)
+        out[split_header(key)[0]] = (role, unit)
+    return out
+
+
+class SeriesBuilder:
+    """Collects the series of one engine file: each term with the engine's name, role and unit text,
+    converted once to internal units; ``--column`` roles win over the engine's spelling."""
+
+    def __init__(self, path: Path, column_roles: Mapping[str, str] | None, roles: Mapping[str, str]) -> None:
+        self.path = path
+        self.overrides = role_overrides(column_roles)
+        self.roles = roles
+        self.series: dict[str, Series] = {}
+        self.used_overrides: set[str] = set()
+
+    def role_of(self, name: str) -> str:
+        if name in self.overrides:
+            self.used_overrides.add(name)
+            return self.overrides[name][0]
+        return self.roles.get(name, "other")
+
+    def add(self, name: str, values: np.ndarray, unit_text: str | None, *, role: str | None = None,
+            label: str | None = None) -> None:
+        """Add one term. ``unit_text`` None or "" with a role that needs a dimension is an error; a unit
+        that is not a physical one (lj reduced units) is given as ``label`` and kept unconverted."""
+        r = role if role is not None else self.role_of(name)
+        if name in self.overrides and self.overrides[name][1]:
+            unit_text = self.overrides[name][1]
+        values = np.asarray(values, dtype=np.float64)
+        if label is not None:
+            self.series[name] = Series(name, values, label, r, f"{self.path.name}:{name}")
+            return
+        if unit_text is None or not str(unit_text).strip():
+            u_factor, u_internal = 1.0, ""
+            if r in ROLE_DIMENSION:
+                raise EnergyTableError(f"term {name!r} ({r}) has no unit", path=self.path)
+        else:
+            try:
+                u = parse_unit(unit_text, expect=ROLE_DIMENSION.get(r))
+            except UnitError as exc:
+                if r == "other":
+                    return  # an engine term in a unit we do not know: left out, not guessed
+                raise EnergyTableError(f"term {name!r}: {exc.problem}", path=self.path) from exc
+            u_factor, u_internal = u.factor, u.internal
+        conv = values if u_factor == 1.0 else values * u_factor
+        self.series[name] = Series(name, conv, u_internal, r, f"{self.path.name}:{name}")
+
+    def unused_overrides(self) -> list[str]:
+        names = {k for k in self.overrides}
+        return sorted(n for n in names if n not in self.used_overrides and n not in self.series)
+
+
+def finish_table(path: Path, time_ps: np.ndarray, builder: SeriesBuilder, warnings: list[str]) -> EnergyTable:
+    """The EnergyTable of one engine file; duplicate or backward times are dropped with a warning
+    (engines repeat a step on restart: the later value is kept)."""
+    time_ps = np.asarray(time_ps, dtype=np.float64)
+    keep = _keep_last_of_repeats(time_ps)
+    if keep is not None:
+        n_drop = int(time_ps.size - keep.size)
+        warnings.append(f"{path.name}: {n_drop} repeated or earlier time(s) dropped (restarts repeat a step; "
+                        "the later value is kept)")
+        time_ps = time_ps[keep]
+        builder.series = {k: Series(s.name, s.values[keep], s.unit, s.role, s.source)
+                          for k, s in builder.series.items()}
+    return EnergyTable(time_ps=time_ps, series=builder.series, sources=(str(path),))
+
+
+def _keep_last_of_repeats(t: np.ndarray) -> np.ndarray | None:
+    """Indices that keep a strictly increasing time axis, the later row winning where a restart went back;
+    None when the axis is already strictly increasing."""
+    if t.size < 2 or bool(np.all(np.diff(t) > 0)):
+        return None
+    # walking backwards, keep a row when its time is below every later kept time
+    rev_min = np.minimum.accumulate(t[::-1])[::-1]
+    later_min = np.append(rev_min[1:], np.inf)
+    return np.flatnonzero(t < later_min)
+
+
+# ---- numbers from text ---------------------------------------------------------------------------
+
+def parse_rows(lines: Sequence[str], ncol: int, path: Path, first_line_no: int | None = None) -> np.ndarray:
+    """Whitespace-separated numeric rows (all with ``ncol`` fields) as an (n, ncol) float64 array, parsed
+    in one call; a ragged or non-numeric row raises EnergyTableError naming it."""
+    if not lines:
+        return np.zeros((0, ncol))
+    text = " ".join(lines)
+    try:
+        flat = np.array(text.split(), dtype=np.float64)
+    except ValueError:
+        flat = None
+    if flat is None or flat.size != len(lines) * ncol:
+        for k, ln in enumerate(lines):
+            parts = ln.split()
+            where = f"line {first_line_no + k}" if first_line_no is not None else f"row {k + 1}"
+            if len(parts) != ncol:
+                raise EnergyTableError(f"{where}: {len(parts)} values, the header has {ncol}", path=path)
+            for v in parts:
+                try:
+                    float(v)
+                except ValueError:
+                    raise EnergyTableError(f"{where}: {v!r} is not a number", path=path) from None
+        raise EnergyTableError("cannot read the numeric rows", path=path)  # pragma: no cover
+    return flat.reshape(len(lines), ncol)
+
+
+_NUM_RE = re.compile(r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eEdD][-+]?\d+)?")
+
+
+def first_number(text: str) -> float | None:
+    m = _NUM_RE.search(text)
+    return float(m.group(0).replace("D", "e").replace("d", "e")) if m else None
+
+
+# ---- putting facts into the run's metadata ----------------------------------------------------------
+
+_FACT_FIELDS = ("timestep_ps", "ensemble", "thermostat", "temperature_K", "barostat", "pressure_bar",
+                "integrator", "velocities_half_step", "constraints", "n_constraints", "n_dof",
+                "conserved_quantity", "units_style", "engine", "com_motion_removed")
+
+
+def apply_facts(md: RunMetadata, facts: Mapping[str, Any], source: str,
+                fact_sources: Mapping[str, str] | None = None) -> None:
+    """Fill the metadata fields the run does not know yet, each with where it came from."""
+    for key, val in facts.items():
+        if val is None or key not in _FACT_FIELDS:
+            continue
+        if getattr(md, key) is not None:
+            continue
+        setattr(md, key, val)
+        src = (fact_sources or {}).get(key, source)
+        md.sources[key] = src
+        if key == "n_constraints":
+            md.constraints_source = src
+
+
+def ensemble_of(thermostat: str | None, barostat: str | None) -> str:
+    t = bool(thermostat) and thermostat not in ("none", "no")
+    b = bool(barostat) and barostat not in ("none", "no")
+    return {(False, False): "NVE", (True, False): "NVT", (True, True): "NPT", (False, True): "NPH"}[(t, b)]
+
+
+# ---- several files of one run ------------------------------------------------------------------------
+
+Reader = Callable[..., EngineEnergy]
+
+
+def read_energy_sources(
+    items: Sequence[tuple[Path, str]],
+    *,
+    column_roles: Mapping[str, str] | None = None,
+    timestep_ps: float | None = None,
+    assumed_units: Mapping[str, str] | None = None,
+    units_style: str | None = None,
+    frame_timestep_ps: float | None = None,
+) -> tuple[EnergyTable | None, list[EngineEnergy], list[str]]:
+    """Read the energy and parameter files of one run.
+
+    ``items`` are (path, registry reader name). Engine readers read their own layout; anything else goes
+    to the generic table reader. ``timestep_ps`` is the time step the user states (engine readers use it
+    for their time axis); ``frame_timestep_ps`` one known from other files, for step-only tables. Returns (joined energy table or None, the per-file results in reading
+    order, warnings).
+    """
+    from phasewake.core.readers import tables as tables_mod
+
+    results: list[EngineEnergy] = []
+    warnings: list[str] = []
+    engine_readers = engine_reader_table()
+    # parameter files first: a time step they give sets the time axis of step-only tables
+    params = [(p, n) for p, n in items if n in PARAMETER_READERS]
+    energy = [(p, n) for p, n in items if n not in PARAMETER_READERS]
+    dt = timestep_ps or frame_timestep_ps
+    for p, name in params:
+        res = engine_readers[name](p)
+        results.append(res)
+        warnings.extend(res.warnings)
+        if dt is None and res.facts.get("timestep_ps"):
+            dt = res.facts["timestep_ps"]
+    tabs: list[EnergyTable] = []
+    for p, name in energy:
+        if name in engine_readers:
+            res = engine_readers[name](p, column_roles=column_roles, timestep_ps=timestep_ps,
+                                       units_style=units_style)
+        else:
+            table, w = tables_mod.read_table(p, column_roles=column_roles, timestep_ps=dt,
+                                             assumed_units=assumed_units)
+            res = EngineEnergy(table=table, source=p.name, warnings=w)
+        results.append(res)
+        warnings.extend(res.warnings)
+        if res.table is not None:
+            tabs.append(res.table)
+    if not tabs:
+        return None, results, warnings
+    out = tabs[0]
+    for nxt in tabs[1:]:
+        out = tables_mod._join(out, nxt, warnings)
+    return out, results, warnings
+
+
+#: registry names of readers that give only run parameters (no energies)
+PARAMETER_READERS = ("gromacs-mdp",)
+
+
+def engine_reader_table() -> dict[str, Reader]:
+    from phasewake.core.readers import amber, cp2k, gromacs, lammps_log, namd, openmm_csv
+
+    return {
+        "gromacs-edr": gromacs.read_edr,
+        "gromacs-log": gromacs.read_md_log,
+        "gromacs-mdp": gromacs.read_mdp,
+        "lammps-log": lammps_log.read_log,
+        "amber-mdout": amber.read_mdout,
+        "namd-log": namd.read_log,
+        "cp2k-ener": cp2k.read_ener,
+        "openmm-csv": openmm_csv.read_csv,
+    }
