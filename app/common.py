@@ -39,8 +39,15 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> 
                         help="the role of an energy-table column the files do not name clearly, e.g. "
                              "\"TotEng=total\" (roles: potential, kinetic, total, conserved, bath_heat, "
                              "temperature, pressure, volume, density, other); repeat for more columns")
+    parser.add_argument("--units", metavar="STYLE", choices=LAMMPS_UNIT_STYLES, default=None,
+                        help="LAMMPS unit style of a log that does not echo its 'units' command (lj real metal si "
+                             "cgs electron micro nano; LAMMPS' default is lj); a units command in the log wins")
     parser.add_argument("--json", action="store_true", help="print JSON with every number and its unit")
     add_chunk_argument(parser)
+
+
+#: LAMMPS unit styles (phasewake.core.readers.lammps_log.STYLES), for --units
+LAMMPS_UNIT_STYLES = ("lj", "real", "metal", "si", "cgs", "electron", "micro", "nano")
 
 
 def _positive_mb(text: str) -> float:
@@ -80,6 +87,19 @@ def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
         out["ensemble"] = args.ensemble.upper()
     if getattr(args, "velocities", None) is not None:
         out["velocities"] = args.velocities  # a file (open_run's own keyword, not metadata)
+    out.update(reader_options(args))
+    return out
+
+
+def reader_options(args: argparse.Namespace) -> dict[str, Any]:
+    """How to read the files (open_run keywords): ``--column`` roles and the ``--units`` LAMMPS style,
+    for every reader of every run a verb opens."""
+    out: dict[str, Any] = {}
+    roles = column_roles_from_args(args)
+    if roles:
+        out["column_roles"] = roles
+    if getattr(args, "units", None) is not None:
+        out["units_style"] = args.units
     return out
 
 
@@ -106,8 +126,7 @@ def open_run_from_args(args: argparse.Namespace):  # -> Run
 
     apply_chunk_budget(args)
     with quiet_stdout():
-        return open_run(args.files, topology=args.top, column_roles=column_roles_from_args(args),
-                        **run_overrides(args))
+        return open_run(args.files, topology=args.top, **run_overrides(args))
 
 
 @contextlib.contextmanager

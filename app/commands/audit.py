@@ -18,6 +18,7 @@ from phasewake.app.common import (
     open_run_from_args,
     print_json,
     quiet_stdout,
+    reader_options,
     run_with_progress,
 )
 
@@ -152,7 +153,7 @@ def run(args: argparse.Namespace) -> int:
     other = None
     if args.compare:
         with quiet_stdout():
-            other = open_run(args.compare, topology=args.top)
+            other = open_run(args.compare, topology=args.top, **reader_options(args))
     timestep_ps = None if args.timestep is None else args.timestep * 1e-3
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
     work = cached_audit(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,

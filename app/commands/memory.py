@@ -518,7 +518,7 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.app.common import quiet_stdout
+    from phasewake.app.common import quiet_stdout, run_overrides
     from phasewake.core.readers import open_run
     from phasewake.core.verdicts import HEURISTIC_NOTE, worst
 
@@ -526,7 +526,7 @@ def run(args: argparse.Namespace) -> int:
     replicas = []
     for files in args.replica:
         with quiet_stdout():
-            replicas.append(open_run(files, topology=args.top))
+            replicas.append(open_run(files, topology=args.top, **run_overrides(args)))
     items = _series_inputs(args, run_)
     analyses = [_analyse_one(it, args, replicas) for it in items]
     vel = _velocity_analyses(args, run_) if (args.vacf or args.msd or args.spectrum or args.tm) else {}

@@ -129,6 +129,19 @@ def _facts(lines: list[str], path: Path) -> tuple[dict[str, Any], dict[str, str]
             break
         for m in re.finditer(r"\b([A-Za-z_]\w*)\s*=\s*([-+]?\d+\.?\d*(?:[eEdD][-+]?\d+)?)", ln):
             params.setdefault(m.group(1).lower(), float(m.group(2).replace("D", "e").replace("d", "e")))
+    text = "\n".join(section)
+    if "ntt" not in params:  # the section is named by ntt; the echoed &cntrl has it too
+        for title, code in (("Berendsen (weak-coupling) temperature regulation", 1), ("Anderson", 2),
+                            ("Langevin dynamics temperature regulation", 3)):
+            if title in text:
+                params["ntt"] = code
+                break
+        else:
+            mt = re.search(r"\bntt\s*=\s*(\d+)", "\n".join(lines[:start] if start else lines), re.I)
+            if mt:
+                params["ntt"] = float(mt.group(1))
+    if "Monte-Carlo Barostat" in text:
+        params.setdefault("barostat", 2)
     facts: dict[str, Any] = {"engine": "AMBER", "integrator": "leap-frog", "velocities_half_step": True}
     where = f"{path.name} (control data)"
     fsrc: dict[str, str] = {}

@@ -58,10 +58,18 @@ def describe(run: Run) -> dict[str, Any]:
         "ensemble": md.ensemble,
         "thermostat": md.thermostat,
         "temperature_K": md.temperature_K,
+        "barostat": md.barostat,
+        "pressure_bar": md.pressure_bar,
+        "integrator": md.integrator,
+        "velocities_half_step": md.velocities_half_step,
+        "constraints": md.constraints,
         "n_constraints": md.n_constraints,
         "constraints_source": md.constraints_source,
+        "n_dof": md.n_dof,
         "com_motion_removed": md.com_motion_removed,
-        "integrator": md.integrator,
+        "conserved_quantity": md.conserved_quantity,
+        "units_style": md.units_style,
+        "engine": md.engine,
     }
     out["metadata"] = {k: v for k, v in meta.items() if v is not None}
     out["sources"] = dict(md.sources)
@@ -69,6 +77,7 @@ def describe(run: Run) -> dict[str, Any]:
     out["parts"] = list(md.extra.get("parts", []))
     out["overlaps"] = list(md.extra.get("overlaps", []))
     out["gaps"] = list(md.extra.get("gaps", []))
+    out["run_facts"] = run_facts(run)
     out["warnings"] = list(run.warnings)
     return out
 
@@ -103,7 +112,11 @@ def format_description(d: dict[str, Any]) -> str:
             lines.append(f"  {s['name']} [{unit}] ({s['role']}) from {s['source']}")
     else:
         lines.append("energy terms: none")
-    if d["metadata"]:
+    if d.get("run_facts"):
+        lines.append("how the run was made:")
+        for f in d["run_facts"]:
+            lines.append(f"  {f['text']} {f['where']}")
+    elif d["metadata"]:
         lines.append("metadata:")
         for k, v in d["metadata"].items():
             lines.append(f"  {k}: {v}")
@@ -119,3 +132,77 @@ def format_description(d: dict[str, Any]) -> str:
         for w in d["warnings"]:
             lines.append(f"  - {w}")
     return "\n".join(lines)
+
+
+def _where(src: str | None) -> str:
+    if not src:
+        return "(from the run file's own metadata)"
+    if src == "user" or src.startswith("user "):
+        return "stated"
+    if src.startswith("stated"):
+        return src
+    if src.startswith("inferred") or src.startswith("LAMMPS default"):
+        return f"({src})"
+    return f"from {src}"
+
+
+def run_facts(run: Run) -> list[dict[str, Any]]:
+    """Each known fact of how the run was made, as a line of text and where it came from:
+    {"field", "text", "where"}; "where" is "from md.log", "stated" (the user said so), ..."""
+    md = run.metadata
+    src = md.sources
+    out: list[dict[str, Any]] = []
+
+    def add(field: str, text: str, where: str | None = None) -> None:
+        out.append({"field": field, "text": text, "where": where if where is not None else _where(src.get(field))})
+
+    if md.engine:
+        add("engine", f"engine: {md.engine}")
+    if md.units_style:
+        add("units_style", f"unit style: {md.units_style}")
+    if md.timestep_ps is not None:
+        add("timestep_ps", f"time step {md.timestep_ps * 1e3:g} fs")
+    elif "timestep_tau" in md.extra:
+        add("timestep_ps", f"time step {md.extra['timestep_tau']:g} τ (lj reduced units)",
+            _where(src.get("units_style")))
+    if md.integrator:
+        half = {True: " (velocities half a step off the positions)", False: " (full-step velocities)",
+                None: ""}[md.velocities_half_step]
+        add("integrator", f"integrator {md.integrator}{half}")
+    if md.ensemble:
+        bits = []
+        if md.thermostat and md.thermostat not in ("none", "no"):
+            t = f"{md.thermostat} thermostat"
+            if md.temperature_K is not None:
+                t += f", {md.temperature_K:g} K"
+            elif "target_temperature_lj" in md.extra:
+                t += f", {md.extra['target_temperature_lj']:g} ε/k_B"
+            bits.append(t)
+        if md.barostat and md.barostat not in ("none", "no"):
+            b = f"{md.barostat} barostat"
+            if md.pressure_bar is not None:
+                b += f", {md.pressure_bar:g} bar"
+            bits.append(b)
+        add("ensemble", f"ensemble {md.ensemble}" + (f" ({'; '.join(bits)})" if bits else ""))
+    elif md.temperature_K is not None:
+        add("temperature_K", f"target temperature {md.temperature_K:g} K")
+    if md.constraints or md.n_constraints is not None:
+        if md.constraints:
+            text = f"constraints: {md.constraints}"
+            if md.n_constraints is not None and str(md.n_constraints) not in md.constraints \
+                    and not (md.n_constraints == 0 and md.constraints.startswith("none")):
+                text += f", {md.n_constraints} in all"
+        else:
+            text = f"{md.n_constraints} constraints"
+        add("constraints" if md.constraints else "n_constraints", text,
+            _where(src.get("constraints") or md.constraints_source or src.get("n_constraints")))
+        if md.n_constraints is not None and md.constraints and src.get("n_constraints") and \
+                src.get("n_constraints") != src.get("constraints"):
+            out[-1]["where"] += f"; count {md.n_constraints} {_where(src.get('n_constraints'))}"
+    if md.n_dof is not None:
+        add("n_dof", f"degrees of freedom (the engine's count) {md.n_dof}")
+    if md.com_motion_removed is not None:
+        add("com_motion_removed", "centre-of-mass motion " + ("removed" if md.com_motion_removed else "not removed"))
+    if md.conserved_quantity:
+        add("conserved_quantity", f"conserved quantity '{md.conserved_quantity}'")
+    return out

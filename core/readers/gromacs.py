@@ -127,10 +127,11 @@ class _Layout:
         self.data_len = self.nre * self.per_term * r + sum(_BLOCK_ITEM_BYTES.get(t, 0) * n for t, n in self.blocks)
         self.size = self.header_len + self.data_len
 
-    def fixed_columns(self) -> np.ndarray:
-        """Byte columns of the header that are equal in every frame of this layout."""
+    def fixed_ints(self) -> list[int]:
+        """Offsets of the 4-byte header words that are equal in every frame of this layout: the frame
+        marker and version, nre, ndisre, nblock and every block descriptor word."""
         r = self.real
-        return np.r_[0:r + 8, r + 44:self.header_len - 12]
+        return [r, r + 4] + list(range(r + 44, self.header_len - 12, 4))
 
 
 def _frame_real_size(buf: memoryview, p: int) -> int | None:
@@ -180,8 +181,9 @@ def _scan_edr(data: np.ndarray, start: int, nre_header: int, path: Path, warning
                             f"probably a run that was stopped; the {frame} complete frame(s) before it are used")
             break
         # how many frames of this layout follow at a fixed stride (checked in growing windows)
-        fixed = lay.fixed_columns()
-        template = data[p + fixed]
+        fixed = lay.fixed_ints()
+        template = [struct.unpack_from(">i", buf, p + off)[0] for off in fixed]
+        magic = np.frombuffer(data[p:p + real].tobytes(), dtype=">f4" if real == 4 else ">f8")[0]
         nsum_pos = real + 24
         count = 1
         while True:
@@ -190,11 +192,14 @@ def _scan_edr(data: np.ndarray, start: int, nre_header: int, path: Path, warning
             if n_fit <= 0:
                 break
             k = int(min(window, n_fit))
-            view = np.lib.stride_tricks.as_strided(data[q:], shape=(k, lay.header_len), strides=(lay.size, 1),
-                                                   writeable=False)
-            same = np.all(view[:, fixed] == template, axis=1)
-            nsum = view[:, nsum_pos:nsum_pos + 4].copy().view(">i4").ravel()
-            same &= (nsum > 0) == (lay.nsum > 0)
+
+            def word(off: int, dtype: str = ">i4", q: int = q, k: int = k) -> np.ndarray:
+                return np.ndarray((k,), dtype=dtype, buffer=data, offset=q + off, strides=(lay.size,))
+
+            same = word(0, ">f4" if real == 4 else ">f8") == magic
+            for off, val in zip(fixed, template):
+                same &= word(off) == val
+            same &= (word(nsum_pos) > 0) == (lay.nsum > 0)
             bad = np.flatnonzero(~same)
             if bad.size:
                 count += int(bad[0])
@@ -227,7 +232,7 @@ def read_edr(path: Path, *, column_roles: Mapping[str, str] | None = None, times
         raise CorruptFileError("no complete energy frame (frame 0 is cut or missing)", path=path)
     total = sum(n for _, n, _ in runs)
     nre = len(names)
-    values = np.empty((nre, total), dtype=np.float64)
+    values = np.empty((total, nre), dtype=np.float64)  # one strided copy; each term is a column view
     time = np.empty(total, dtype=np.float64)
     step = np.empty(total, dtype=np.int64)
     k = 0
@@ -236,14 +241,14 @@ def read_edr(path: Path, *, column_roles: Mapping[str, str] | None = None, times
         vdtype = np.dtype(">f4" if r == 4 else ">f8")
         vals = np.ndarray((n, nre), dtype=vdtype, buffer=data, offset=p + lay.header_len,
                           strides=(lay.size, r * lay.per_term))
-        values[:, k:k + n].T[...] = vals
+        values[k:k + n] = vals
         time[k:k + n] = np.ndarray((n,), dtype=">f8", buffer=data, offset=p + r + 8, strides=(lay.size,))
         step[k:k + n] = np.ndarray((n,), dtype=">i8", buffer=data, offset=p + r + 16, strides=(lay.size,))
         k += n
     first = runs[0][2]
     builder = SeriesBuilder(path, column_roles, ROLES)
     for j, (name, unit) in enumerate(zip(names, units)):
-        builder.add(name, values[j], unit)
+        builder.add(name, values[:, j], unit)
     table = finish_table(path, time, builder, warnings)
     facts: dict[str, Any] = {"engine": "GROMACS"}
     if first.dt > 0:
@@ -373,7 +378,9 @@ def read_md_log(path: Path, *, column_roles: Mapping[str, str] | None = None, ti
     table = finish_table(path, np.asarray(times), builder, warnings)
     if "Conserved En." in names:
         facts["conserved_quantity"] = "Conserved En."
-    return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings)
+    res = EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings)
+    _mdp_beside(path, res)
+    return res
 
 
 def _log_name_unit(raw: str) -> tuple[str, str]:

@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import re
 import warnings as _warnings
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -93,22 +93,44 @@ class _Block:
     shake: dict[str, int] = field(default_factory=dict)
 
 
-_HEADER = re.compile(r"^[ \t]*Step[ \t]+[A-Za-z_].*$", re.M)
+_HEADER = re.compile(r"[ \t]*Step[ \t]+[A-Za-z_].*$")
 _LOOP = re.compile(r"^Loop time of \S+ on \d+ procs for (\d+) steps with (\d+) atoms", re.M)
 _LETTERS = re.compile(r"[A-DF-Za-df-z]")  # anything but e/E exponents: a non-numeric line inside a block
 _SHAKE_COUNTS = re.compile(r"^\s*(\d+)\s*=\s*# of (size 2 clusters|size 3 clusters|size 4 clusters|frozen angles)",
                            re.M)
 
 
+def _headers(text: str, start: int = 0) -> Iterator[tuple[int, int]]:
+    """(start, end) of every thermo header line ("Step" first, then names), found with str.find (a
+    multi-line regex scan of a 100 MB log takes seconds)."""
+    k = text.find("Step", start)
+    while k >= 0:
+        line_start = text.rfind("\n", 0, k) + 1
+        line_end = text.find("\n", k)
+        line_end = len(text) if line_end < 0 else line_end
+        line = text[line_start:line_end]
+        if line_start >= start and _HEADER.match(line):
+            yield line_start, line_end
+        k = text.find("Step", line_end)
+
+
+def _loop_line(text: str, start: int) -> re.Match[str] | None:
+    k = text.find("Loop time of", start)
+    while k >= 0:
+        if k == 0 or text[k - 1] == "\n":
+            return _LOOP.match(text, k)
+        k = text.find("Loop time of", k + 1)
+    return None
+
+
 def _parse_body(body: str, ncol: int, path: Path, line0: int) -> np.ndarray:
     """The numeric rows of one thermo block; non-numeric lines (SHAKE stats, WARNING) are skipped."""
     n_lines = body.count("\n") + (0 if body.endswith("\n") or not body else 1)
-    if not _LETTERS.search(body):
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")  # numpy warns when text ends in unmatched data; checked below
-            flat = np.fromstring(body, sep=" ")
-        if flat.size == n_lines * ncol:
-            return flat.reshape(n_lines, ncol)
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore")  # numpy warns when text ends in unmatched data: the size shows it
+        flat = np.fromstring(body, sep=" ")
+    if flat.size == n_lines * ncol:
+        return flat.reshape(n_lines, ncol)
     keep: list[str] = []
     skipping_shake = False
     for k, ln in enumerate(body.splitlines()):
@@ -152,18 +174,18 @@ def _scan(text: str, path: Path) -> tuple[list[_Block], dict[str, Any]]:
         state["version"] = m.group(1)
     blocks: list[_Block] = []
     pos = 0
-    for hm in _HEADER.finditer(text):
-        if hm.start() < pos:
+    for h_start, h_end in _headers(text):
+        if h_start < pos:
             continue
-        _commands(text[pos:hm.start()], state)
-        names = hm.group(0).split()
-        body_start = hm.end() + 1
-        lm = _LOOP.search(text, body_start)
-        nh = _HEADER.search(text, body_start)
+        _commands(text[pos:h_start], state)
+        names = text[h_start:h_end].split()
+        body_start = h_end + 1
+        lm = _loop_line(text, body_start)
+        nh = next(_headers(text, body_start), None)
         end = lm.start() if lm else len(text)
         complete = lm is not None
-        if nh is not None and nh.start() < end:
-            end, complete = nh.start(), False
+        if nh is not None and nh[0] < end:
+            end, complete = nh[0], False
         line0 = text.count("\n", 0, body_start) + 1
         values = _parse_body(text[body_start:end], len(names), path, line0)
         n_atoms = int(lm.group(2)) if (lm and complete) else None
@@ -319,7 +341,7 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
 
     # columns the joined runs share
     common = [n for n in md[0].names if all(n in b.names for b in md)]
-    dropped = sorted({n for b in md for n in b.names} - set(common))
+    dropped = sorted({n for b in md for n in b.names} - set(common) - _SKIP)
     if dropped:
         warnings.append(f"{path.name}: column(s) {', '.join(dropped)} are not printed in every run; left out")
     if "Step" not in common:
@@ -489,7 +511,7 @@ def _facts(md: list[_Block], style: str, st: dict[str, Any], norm: bool, n_atoms
                     fsrc["n_dof"] = f"{path.name} (KinEng = 1/2 dof k_B Temp)"
     if "n_constraints" not in facts and "n_dof" in facts and n_atoms and not shake:
         facts["n_constraints"] = 0
-        fsrc["n_constraints"] = f"{path.name} (no fix shake or rattle)"
+        fsrc["n_constraints"] = fsrc["constraints"]
     facts["com_motion_removed"] = None
     return facts, fsrc, extra
 

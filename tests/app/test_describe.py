@@ -68,7 +68,7 @@ def test_describe_text_and_overrides(good_h5md, capsys):
     text = capsys.readouterr().out
     assert "atoms: 3" in text and "frames: 8" in text and "velocities: stored" in text
     assert "total_energy [kJ/mol]" in text
-    assert "timestep_ps: 0.002" in text and "n_constraints: 0" in text
+    assert "time step 2 fs stated" in text and "0 constraints stated" in text  # each value with its source
 
 
 def test_describe_dcd_no_chatter_and_estimated_velocities(tmp_path, capfd):

@@ -526,3 +526,113 @@ def cache_repeat_audit(full: bool, work: Path) -> Outcome:
         baseline_s=min(firsts), target="<= 0.05x the first audit (full size)",
         target_ratio=0.05 if full else None, sizes={"atoms": s["atoms"], "frames": s["frames"]},
         notes="quick sizes: opening the file and the fixed cost of a hit dominate"))
+
+
+# ---- engine energy files (GROMACS .edr, LAMMPS log.lammps) ---------------------------------------------
+
+_EDR_TERMS = ("LJ (SR)", "Coulomb (SR)", "Coul. recip.", "Potential", "Kinetic En.", "Total Energy",
+              "Conserved En.", "Temperature", "Pressure (bar)", "Pres. DC (bar)", "Constr. rmsd", "T-System")
+
+
+def make_edr(path: Path, n_frames: int, *, nsum_from: int = 1) -> Path:
+    """A single-precision .edr laid out as ENGINES.md describes (what GROMACS 2022 writes): frame 0 without
+    accumulators, the rest with two per term (nsum > 0), written with numpy structured big-endian records."""
+    if path.exists():
+        return path
+    names = [t.split(" (bar)")[0] for t in _EDR_TERMS]
+    units = ["bar" if "(bar)" in t else ("K" if t.startswith(("Temp", "T-")) else ("" if "rmsd" in t else "kJ/mol"))
+             for t in _EDR_TERMS]
+    nre = len(names)
+    head = bytearray(np.array([-55555, 5, nre], ">i4").tobytes())
+    for s in [x for pair in zip(names, units) for x in pair]:
+        b = s.encode()
+        head += np.array([len(b)], ">i4").tobytes() + b + b"\0" * ((4 - len(b) % 4) % 4)
+
+    def frames(n: int, start: int, per_term: int) -> bytes:
+        dt = np.dtype([("magic", ">f4"), ("id", ">i4"), ("ver", ">i4"), ("t", ">f8"), ("step", ">i8"),
+                       ("nsum", ">i4"), ("nsteps", ">i8"), ("dt", ">f8"), ("nre", ">i4"), ("ndisre", ">i4"),
+                       ("nblock", ">i4"), ("esize", ">i4"), ("z1", ">i4"), ("z2", ">i4"),
+                       ("e", ">f4", (nre, per_term))])
+        rec = np.zeros(n, dt)
+        k = np.arange(start, start + n)
+        rec["magic"], rec["id"], rec["ver"] = -2e10, -7777777, 5
+        rec["t"], rec["step"], rec["dt"] = k * 0.02, k * 10, 0.002
+        rec["nsum"], rec["nsteps"] = (10 if per_term == 3 else 0), 10
+        rec["nre"], rec["esize"] = nre, 16 * nre
+        rec["e"][:, :, 0] = np.sin(k[:, None] * 0.01 + np.arange(nre)) * 1e3
+        return rec.tobytes()
+
+    tmp = path.with_suffix(".part")
+    with open(tmp, "wb") as f:
+        f.write(bytes(head))
+        f.write(frames(nsum_from, 0, 1))
+        step = 200_000
+        for i in range(nsum_from, n_frames, step):
+            f.write(frames(min(step, n_frames - i), i, 3))
+    tmp.rename(path)
+    return path
+
+
+def make_lammps_log(path: Path, n_rows: int) -> Path:
+    """A log.lammps of one NVE run in real units with n_rows thermo rows, in the 2021 layout (ENGINES.md),
+    with a SHAKE-free block as LAMMPS prints it ('%10d' step, '%-14.8g'-style values)."""
+    if path.exists():
+        return path
+    rng = _rng()
+    tmp = path.with_suffix(".part")
+    with open(tmp, "w") as f:
+        f.write("LAMMPS (29 Sep 2021 - Update 2)\nunits real\natom_style atomic\ntimestep 2.0\n"
+                "fix 1 all nve\nthermo_style custom step temp pe ke etotal press\nthermo 10\n"
+                f"run {10 * (n_rows - 1)}\nStep Temp PotEng KinEng TotEng Press \n")
+        block = 200_000
+        for i in range(0, n_rows, block):
+            n = min(block, n_rows - i)
+            step = np.arange(i, i + n) * 10
+            temp = 300 + 5 * rng.standard_normal(n)
+            pe = -2500 + 3 * rng.standard_normal(n)
+            ke = 0.5 * 765 * 0.0019872067 * temp
+            cols = np.column_stack([step, temp, pe, ke, pe + ke, 100 * rng.standard_normal(n)])
+            np.savetxt(f, cols, fmt=["%10d", "%12.8g", "%12.8g", "%12.8g", "%12.8g", "%12.8g"], delimiter=" ")
+        f.write(f"Loop time of 123.4 on 1 procs for {10 * (n_rows - 1)} steps with 256 atoms\n")
+    tmp.rename(path)
+    return path
+
+
+def _bytes_read(path: Path) -> float:
+    return float(np.fromfile(path, dtype=np.uint8)[-1])
+
+
+@case
+def engine_energy_edr(full: bool, work: Path) -> Outcome:
+    """GROMACS .edr of 1e6 frames through our reader, against a plain numpy read of its bytes."""
+    from phasewake.core.readers import gromacs
+
+    n = 1_000_000 if full else 50_000
+    path = make_edr(work / f"bench{n}.edr", n)
+    base = best_of(lambda: _bytes_read(path))
+    meas = best_of(lambda: gromacs.read_edr(path))
+    return finish(Outcome(
+        name="engine_energy_edr", what=f"GROMACS .edr of {n:.0e} frames ({len(_EDR_TERMS)} terms, accumulators "
+        "skipped) read into an energy table", baseline="np.fromfile of the same bytes", measured_s=meas,
+        baseline_s=base, target="<= 3x the plain read", target_ratio=3.0,
+        sizes={"frames": n, "MB": round(path.stat().st_size / 1e6, 1)}))
+
+
+@case
+def engine_energy_lammps_log(full: bool, work: Path) -> Outcome:
+    """log.lammps with 1e6 thermo rows through our reader, against a plain numpy read of its bytes; the parse
+    of the same numbers by np.loadtxt is measured beside it (notes)."""
+    from phasewake.core.readers import lammps_log
+
+    n = 1_000_000 if full else 50_000
+    path = make_lammps_log(work / f"bench{n}.lammps", n)
+    base = best_of(lambda: _bytes_read(path))
+    meas = best_of(lambda: lammps_log.read_log(path))
+    loadtxt = best_of(lambda: np.loadtxt(path, skiprows=9, max_rows=n), repeat=1)
+    o = finish(Outcome(
+        name="engine_energy_lammps_log", what=f"log.lammps with {n:.0e} thermo rows (6 columns) read into an "
+        "energy table", baseline="np.fromfile of the same bytes", measured_s=meas, baseline_s=base,
+        target="<= 3x the plain read", target_ratio=3.0,
+        sizes={"rows": n, "MB": round(path.stat().st_size / 1e6, 1), "np_loadtxt_s": round(loadtxt, 4),
+               "ratio_to_np_loadtxt": round(meas / loadtxt, 3)}))
+    return o
