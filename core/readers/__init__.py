@@ -125,6 +125,8 @@ READERS: tuple[ReaderEntry, ...] = (
                 _engine_claim("amber")),
     ReaderEntry("namd-log", "energy", (".log", ".out"), "NAMD log (ETITLE/ENERGY lines)", _engine_claim("namd")),
     ReaderEntry("cp2k-ener", "energy", (".ener",), "CP2K MD energy file (.ener)", _engine_claim("cp2k")),
+    ReaderEntry("cp2k-output", "parameters", (".out", ".log"), "CP2K main output (run parameters)",
+                _engine_claim("cp2k", "claim_output")),
     ReaderEntry("openmm-csv", "energy", (".csv", ".txt", ".log"), "OpenMM StateDataReporter CSV",
                 _engine_claim("openmm_csv")),
     ReaderEntry("energy-table", "energy", (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene"),
@@ -315,6 +317,9 @@ def open_run(
             warnings = [w for w in warnings if "holds no time axis" not in w]
             warnings.append(f"frame times taken from {tables[0].name}, which has one row per frame")
 
+    if units_style and run.metadata.units_style is None:  # stated for files that do not say (dumps, tables)
+        run.metadata.units_style = f"lammps {units_style}"
+        run.metadata.sources["units_style"] = "stated (--units)"
     _apply_overrides(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
                                     "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
     if chunk_frames is not None:

@@ -8,14 +8,18 @@ energy and N_A), time in fs. ``Cons Qty`` includes the thermostat's energy: it i
 from __future__ import annotations
 
 import re
-import warnings as _warnings
 from collections.abc import Mapping
 from pathlib import Path
 
-import numpy as np
-
 from phasewake.core.errors import EnergyTableError
-from phasewake.core.readers.engine_common import EngineEnergy, SeriesBuilder, finish_table, head_text
+from phasewake.core.readers.engine_common import (
+    EngineEnergy,
+    SeriesBuilder,
+    finish_table,
+    first_number,
+    head_text,
+    numbers,
+)
 
 # header names -> (our name, role, unit)
 _COLUMNS = {"Step Nr.": ("Step", "step", ""), "Time[fs]": ("Time", "time", "fs"),
@@ -41,13 +45,11 @@ def read_ener(path: Path, *, column_roles: Mapping[str, str] | None = None, time
     first, _, body = text.partition("\n")
     names = _header_names(first)
     body = "\n".join(ln for ln in body.splitlines() if ln.strip() and not ln.lstrip().startswith("#"))
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        flat = np.fromstring(body, sep=" ")
+    flat = numbers(body)
     n_rows = body.count("\n") + 1 if body else 0
     if n_rows == 0:
         raise EnergyTableError("no rows after the header", path=path)
-    if flat.size != n_rows * len(names):
+    if flat is None or flat.size != n_rows * len(names):
         raise EnergyTableError(f"rows do not all hold the {len(names)} numbers the header names", path=path)
     arr = flat.reshape(n_rows, len(names))
     warnings: list[str] = []
@@ -67,7 +69,77 @@ def read_ener(path: Path, *, column_roles: Mapping[str, str] | None = None, time
     facts: dict[str, object] = {"engine": "CP2K", "conserved_quantity": "Cons Qty"}
     fsrc = {"engine": path.name, "conserved_quantity": path.name}
     if step is not None and step.size >= 2 and step[1] != step[0]:
-        facts["timestep_ps"] = float((time[1] - time[0]) / (step[1] - step[0]))
+        facts["timestep_ps"] = float(f"{(time[1] - time[0]) / (step[1] - step[0]):.12g}")
         fsrc["timestep_ps"] = f"{path.name} (Step Nr. and Time[fs] columns)"
     table = finish_table(path, time, builder, warnings)
+    out = output_beside(path)
+    if out is not None:  # the main output beside it says how the run was made
+        more = read_output(out)
+        for key, val in more.facts.items():
+            if key not in facts or key == "engine":  # the output names the version
+                facts[key] = val
+                fsrc[key] = f"{out.name} (beside {path.name})"
     return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings)
+
+
+# ---- the main output (stdout of cp2k): run parameters -----------------------------------------------------
+
+def claim_output(path: Path) -> bool:
+    head = head_text(path, 65536)
+    return "CP2K|" in head and ("PROGRAM STARTED" in head or "CP2K| version" in head)
+
+
+def _field(lines: list[str], prefix: str) -> str | None:
+    for ln in lines:
+        if ln.startswith(prefix):
+            return ln[len(prefix):].strip()
+    return None
+
+
+def read_output(path: Path, **_: object) -> EngineEnergy:
+    """Run facts from a CP2K main output: ``MD_PAR| Ensemble type``, ``Time step [fs]``, ``Temperature
+    [K]``, ``DOF| Degrees of freedom`` (3N - constraints - invariants), ``THERMOSTAT| Type of thermostat``
+    (ENGINES.md, checked on CP2K 2023.1)."""
+    path = Path(path)
+    lines = [ln.strip() for ln in path.read_text(encoding="utf-8", errors="replace").splitlines()]
+    facts: dict[str, object] = {"integrator": "velocity Verlet", "velocities_half_step": False}
+    version = _field(lines, "CP2K| version string:")
+    facts["engine"] = version.replace("CP2K version", "CP2K").strip() if version else "CP2K"
+    ens = _field(lines, "MD_PAR| Ensemble type")
+    if ens:
+        facts["ensemble"] = ens.split("_")[0].upper()
+        thermo = _field(lines, "THERMOSTAT| Type of thermostat")
+        facts["thermostat"] = thermo.lower() if thermo and ens.upper().startswith(("NVT", "NPT")) else "none"
+        if facts["thermostat"] != "none":
+            t = first_number(_field(lines, "MD_PAR| Temperature [K]") or "")
+            if t is not None:
+                facts["temperature_K"] = t
+        facts["barostat"] = "cp2k barostat" if ens.upper().startswith(("NPT", "NPE")) else "none"
+    dt = first_number(_field(lines, "MD_PAR| Time step [fs]") or "")
+    if dt is not None:
+        facts["timestep_ps"] = dt * 1e-3
+    dof = first_number(_field(lines, "DOF| Degrees of freedom") or "")
+    if dof is not None:
+        facts["n_dof"] = int(dof)
+    intra = first_number(_field(lines, "DOF| Number of intramolecular constraints") or "")
+    inter = first_number(_field(lines, "DOF| Number of intermolecular constraints") or "")
+    if intra is not None and inter is not None:
+        facts["n_constraints"] = int(intra + inter)
+        facts["constraints"] = "none" if intra + inter == 0 else f"{int(intra + inter)} constraints"
+    inv = first_number(_field(lines, "DOF| Invariants (translations + rotations)") or "")
+    if inv is not None:
+        facts["com_motion_removed"] = inv >= 3
+    return EngineEnergy(table=None, facts=facts, source=path.name,
+                        fact_sources={k: f"{path.name} (MD_PAR, DOF, THERMOSTAT lines)" for k in facts})
+
+
+def output_beside(ener: Path) -> Path | None:
+    """The main output in the same folder that names this .ener file (its MD_PAR| Energies line)."""
+    for cand in sorted(ener.parent.iterdir()):
+        if cand.suffix.lower() in (".out", ".log") and cand.is_file() and claim_output(cand):
+            try:
+                if ener.name in cand.read_text(encoding="utf-8", errors="replace"):
+                    return cand
+            except OSError:
+                continue
+    return None

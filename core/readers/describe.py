@@ -160,11 +160,10 @@ def run_facts(run: Run) -> list[dict[str, Any]]:
         add("engine", f"engine: {md.engine}")
     if md.units_style:
         add("units_style", f"unit style: {md.units_style}")
-    if md.timestep_ps is not None:
+    if md.timestep_ps is not None and (md.units_style or "").endswith(" lj"):
+        add("timestep_ps", f"time step {md.timestep_ps:g} τ (lj reduced units)")
+    elif md.timestep_ps is not None:
         add("timestep_ps", f"time step {md.timestep_ps * 1e3:g} fs")
-    elif "timestep_tau" in md.extra:
-        add("timestep_ps", f"time step {md.extra['timestep_tau']:g} τ (lj reduced units)",
-            _where(src.get("units_style")))
     if md.integrator:
         half = {True: " (velocities half a step off the positions)", False: " (full-step velocities)",
                 None: ""}[md.velocities_half_step]

@@ -10,6 +10,7 @@ collects the facts with the file each came from.
 from __future__ import annotations
 
 import re
+import warnings as _warnings
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -166,6 +167,17 @@ def parse_rows(lines: Sequence[str], ncol: int, path: Path, first_line_no: int |
     return flat.reshape(len(lines), ncol)
 
 
+def numbers(text: str) -> np.ndarray | None:
+    """All whitespace-separated numbers of ``text`` in one C-level parse (np.fromstring); None when some
+    token is not a number (numpy 2.4 raises for unmatched text; older versions warned)."""
+    with _warnings.catch_warnings():
+        _warnings.simplefilter("ignore")
+        try:
+            return np.fromstring(text, sep=" ")
+        except ValueError:
+            return None
+
+
 _NUM_RE = re.compile(r"[-+]?(?:\d+\.?\d*|\.\d+)(?:[eEdD][-+]?\d+)?")
 
 
@@ -260,7 +272,7 @@ def read_energy_sources(
 
 
 #: registry names of readers that give only run parameters (no energies)
-PARAMETER_READERS = ("gromacs-mdp",)
+PARAMETER_READERS = ("gromacs-mdp", "cp2k-output")
 
 
 def engine_reader_table() -> dict[str, Reader]:
@@ -274,5 +286,6 @@ def engine_reader_table() -> dict[str, Reader]:
         "amber-mdout": amber.read_mdout,
         "namd-log": namd.read_log,
         "cp2k-ener": cp2k.read_ener,
+        "cp2k-output": cp2k.read_output,
         "openmm-csv": openmm_csv.read_csv,
     }

@@ -193,8 +193,8 @@ def _scan_edr(data: np.ndarray, start: int, nre_header: int, path: Path, warning
                 break
             k = int(min(window, n_fit))
 
-            def word(off: int, dtype: str = ">i4", q: int = q, k: int = k) -> np.ndarray:
-                return np.ndarray((k,), dtype=dtype, buffer=data, offset=q + off, strides=(lay.size,))
+            def word(off: int, dtype: str = ">i4", q: int = q, k: int = k, stride: int = lay.size) -> np.ndarray:
+                return np.ndarray((k,), dtype=dtype, buffer=data, offset=q + off, strides=(stride,))
 
             same = word(0, ">f4" if real == 4 else ">f8") == magic
             for off, val in zip(fixed, template):

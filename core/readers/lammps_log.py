@@ -17,7 +17,6 @@
 from __future__ import annotations
 
 import re
-import warnings as _warnings
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -32,6 +31,7 @@ from phasewake.core.readers.engine_common import (
     SeriesBuilder,
     ensemble_of,
     head_text,
+    numbers,
 )
 from phasewake.core.run import EnergyTable, Series
 
@@ -126,10 +126,8 @@ def _loop_line(text: str, start: int) -> re.Match[str] | None:
 def _parse_body(body: str, ncol: int, path: Path, line0: int) -> np.ndarray:
     """The numeric rows of one thermo block; non-numeric lines (SHAKE stats, WARNING) are skipped."""
     n_lines = body.count("\n") + (0 if body.endswith("\n") or not body else 1)
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")  # numpy warns when text ends in unmatched data: the size shows it
-        flat = np.fromstring(body, sep=" ")
-    if flat.size == n_lines * ncol:
+    flat = numbers(body)
+    if flat is not None and flat.size == n_lines * ncol:
         return flat.reshape(n_lines, ncol)
     keep: list[str] = []
     skipping_shake = False
@@ -157,10 +155,8 @@ def _parse_body(body: str, ncol: int, path: Path, line0: int) -> np.ndarray:
         keep.append(s)
     if not keep:
         return np.zeros((0, ncol))
-    with _warnings.catch_warnings():
-        _warnings.simplefilter("ignore")
-        flat = np.fromstring("\n".join(keep), sep=" ")
-    if flat.size != len(keep) * ncol:
+    flat = numbers("\n".join(keep))
+    if flat is None or flat.size != len(keep) * ncol:
         raise EnergyTableError(f"a thermo block from line {line0} holds text that is not a number", path=path)
     return flat.reshape(len(keep), ncol)
 
@@ -451,8 +447,11 @@ def _facts(md: list[_Block], style: str, st: dict[str, Any], norm: bool, n_atoms
     else:
         fsrc["units_style"] = "LAMMPS default (the log shows no units command)"
     dt_native = last.dt if last.dt is not None else st["dt"]
-    if style == "lj":
+    if style == "lj":  # in τ, like the run's time axis (the dump reader reads it so too)
         extra["timestep_tau"] = dt_native
+        facts["timestep_ps"] = dt_native
+        fsrc["timestep_ps"] = (f"{path.name} (echoed 'timestep {dt_native:g}', τ in lj reduced units)"
+                               if last.dt is not None else "LAMMPS default for units lj (0.005 τ)")
     else:
         facts["timestep_ps"] = dt_native * _TIME_TO_PS[st["time"]]
         fsrc["timestep_ps"] = (f"{path.name} (echoed 'timestep {dt_native:g}', {st['time']})" if last.dt is not None

@@ -8,7 +8,6 @@ step, time = TS x the ``Info: TIMESTEP`` (fs). ``TOTAL3`` is a smoothed total, n
 from __future__ import annotations
 
 import re
-import warnings as _warnings
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
@@ -23,6 +22,7 @@ from phasewake.core.readers.engine_common import (
     finish_table,
     first_number,
     head_text,
+    numbers,
 )
 
 ROLES = {"TOTAL": "total", "KINETIC": "kinetic", "POTENTIAL": "potential", "TEMP": "temperature",
@@ -62,10 +62,8 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
     common = [c for c in groups[0][0] if all(c in g[0] for g in groups)]
     parts = []
     for nm, rows in groups:
-        with _warnings.catch_warnings():
-            _warnings.simplefilter("ignore")
-            flat = np.fromstring(" ".join(rows), sep=" ")
-        if flat.size != len(rows) * len(nm):
+        flat = numbers(" ".join(rows))
+        if flat is None or flat.size != len(rows) * len(nm):
             raise EnergyTableError(f"ENERGY: lines do not match their ETITLE: ({len(nm)} columns)", path=path)
         arr = flat.reshape(len(rows), len(nm))
         parts.append(arr[:, [nm.index(c) for c in common]])

@@ -32,7 +32,7 @@ def read_csv(path: Path, *, column_roles: Mapping[str, str] | None = None, times
         i_s, i_t = names.index("Step"), names.index("Time (ps)")
         (s1, t1), (s2, t2) = [(float(r[i_s]), float(r[i_t])) for r in rows[:2]]
         if s2 > s1:
-            facts["timestep_ps"] = (t2 - t1) / (s2 - s1)
+            facts["timestep_ps"] = float(f"{(t2 - t1) / (s2 - s1):.12g}")  # Time is printed with float noise
             fsrc["timestep_ps"] = f"{path.name} (Step and Time columns)"
     except (ValueError, IndexError):
         pass

@@ -253,7 +253,8 @@ def test_lammps_lj_units_are_kept_and_labelled():
     assert "lj reduced" in tot.unit and "kJ/mol" not in tot.unit and "per atom" in tot.unit
     assert np.mean(tot.values) == pytest.approx(rep["total_energy_mean"], rel=1e-12)  # unconverted
     assert np.mean(t.by_role("temperature").values) == pytest.approx(rep["temperature_mean"], rel=1e-12)
-    assert run.metadata.timestep_ps is None and run.metadata.extra["timestep_tau"] == rep["time_step"]
+    # the time step stays in τ like the time axis (the lj run has no ps)
+    assert run.metadata.timestep_ps == rep["time_step"] and "τ" in run.metadata.sources["timestep_ps"]
     assert run.metadata.n_dof == rep["degrees_of_freedom"]  # KinEng per atom x N = 1/2 dof T (k_B = 1)
     assert any("lj reduced units" in w for w in run.warnings)
     assert "time step 0.005 τ" in format_description(describe(run))
@@ -530,3 +531,52 @@ def test_a_table_that_is_no_engine_file_still_goes_to_the_generic_reader(tmp_pat
     assert identify(p).name == "energy-table"
     with pytest.raises(InputError):
         open_run([tmp_path / "nothing.edr"])
+
+
+# ---- the other committed runs: CP2K (engine output), OpenMM CSV (engine output), AMBER/NAMD (laid out) ----
+
+@pytest.mark.parametrize("name", ["argon_fist_nve", "argon_fist_nvt_csvr"])
+def test_cp2k_ener_and_output_equal_what_cp2k_reported(name):
+    rep = _reported(f"cp2k/{name}")["reported"]
+    run = open_run([DATA / "cp2k" / name / "argon-1.ener"])
+    md = run.metadata
+    assert np.mean(run.energies.by_role("temperature").values) == pytest.approx(rep["temperature_mean_K"], abs=1e-9)
+    assert md.timestep_ps == pytest.approx(rep["time_step_ps"], rel=1e-12)
+    # from argon.out beside the .ener (it names the file): MD_PAR and DOF lines
+    assert md.n_dof == rep["degrees_of_freedom"] and md.ensemble == rep["ensemble"]
+    assert md.sources["n_dof"] == "argon.out (beside argon-1.ener)"
+    if rep["ensemble"] == "NVT":
+        assert md.temperature_K == rep["target_temperature_K"]
+    assert md.conserved_quantity == "Cons Qty"
+
+
+@pytest.mark.parametrize("name", ["tip3p_rigid_nve_verlet", "tip3p_rigid_nvt_langevin", "tip3p_flexible_frames_1fs"])
+def test_openmm_csv_time_step_equals_the_integrator_step(name):
+    rep = _reported(f"openmm/{name}")["reported"]
+    run = open_run([DATA / "openmm" / name / "energies.csv"])
+    assert run.metadata.timestep_ps == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    assert np.mean(run.energies.by_role("temperature").values) == pytest.approx(rep["temperature_mean_K"], rel=1e-9)
+    assert run.metadata.engine == "OpenMM"
+
+
+def test_amber_and_namd_layouts_of_one_run():
+    # both laid out by make_engine_runs.py from one OpenMM run (marked as such in their README.md)
+    amber = _reported("amber/water_langevin_layout")["reported"]
+    a = open_run([DATA / "amber" / "water_langevin_layout" / "mdout"])
+    assert len(a.energies) == amber["records"]
+    assert np.mean(a.energies.by_role("temperature").values) == pytest.approx(amber["temperature_mean_printed_K"],
+                                                                               abs=5e-4)
+    assert np.mean(a.energies.by_role("total").values) == pytest.approx(amber["total_energy_mean_kcal_mol"] * KCAL,
+                                                                         rel=1e-6)
+    assert a.energies.time_ps[0] == pytest.approx(amber["first_time_ps"])
+    assert a.metadata.n_dof == amber["degrees_of_freedom"] and a.metadata.ensemble == amber["ensemble"]
+    assert a.metadata.temperature_K == amber["target_temperature_K"]
+    assert a.metadata.timestep_ps == pytest.approx(amber["time_step_ps"])
+    namd = _reported("namd/water_langevin_layout")["reported"]
+    n = open_run([DATA / "namd" / "water_langevin_layout" / "water.log"])
+    assert len(n.energies) == namd["records"]
+    assert np.mean(n.energies.by_role("temperature").values) == pytest.approx(namd["temperature_mean_K"], abs=5e-4)
+    assert np.mean(n.energies.by_role("total").values) == pytest.approx(namd["total_energy_mean_kcal_mol"] * KCAL,
+                                                                         rel=1e-6)
+    assert n.metadata.timestep_ps == pytest.approx(namd["time_step_ps"]) and n.metadata.ensemble == "NVT"
+    assert n.metadata.temperature_K == namd["target_temperature_K"]
