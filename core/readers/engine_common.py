@@ -250,7 +250,7 @@ def read_energy_sources(
         warnings.extend(res.warnings)
         if dt is None and res.facts.get("timestep_ps"):
             dt = res.facts["timestep_ps"]
-    tabs: list[EnergyTable] = []
+    tabs: list[tuple[str, EnergyTable]] = []
     for p, name in energy:
         if name in engine_readers:
             res = engine_readers[name](p, column_roles=column_roles, timestep_ps=timestep_ps,
@@ -262,13 +262,57 @@ def read_energy_sources(
         results.append(res)
         warnings.extend(res.warnings)
         if res.table is not None:
-            tabs.append(res.table)
+            tabs.append((name, res.table))
     if not tabs:
         return None, results, warnings
-    out = tabs[0]
-    for nxt in tabs[1:]:
+    # parts of one run (same reader, same terms, e.g. md.edr md.part0002.edr): joined in time order;
+    # different files of the same time (an .edr and a CSV): joined on their shared times
+    groups: dict[tuple[str, tuple[str, ...]], list[EnergyTable]] = {}
+    for name, t in tabs:
+        groups.setdefault((name, tuple(t.series)), []).append(t)
+    joined = [join_parts(g, warnings) for g in groups.values()]
+    out = joined[0]
+    for nxt in joined[1:]:
         out = tables_mod._join(out, nxt, warnings)
     return out, results, warnings
+
+
+def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable:
+    """Energy tables of one run written in parts, in time order. A part that starts before the previous
+    one ended (a restart from an earlier checkpoint) replaces the rows from its first time on, as the
+    engine's restart did; overlaps and gaps are reported with their times."""
+    if len(parts) == 1:
+        return parts[0]
+    order = sorted(parts, key=lambda t: (float(t.time_ps[0]) if len(t) else np.inf))
+    acc_t = order[0].time_ps
+    acc = {k: s.values for k, s in order[0].series.items()}
+    name = lambda t: Path(t.sources[0]).name if t.sources else "?"  # noqa: E731
+    prev = order[0]
+    for part in order[1:]:
+        if not len(part):
+            continue
+        t0 = float(part.time_ps[0])
+        spacing = float(np.median(np.diff(part.time_ps))) if len(part) > 1 else 0.0
+        tol = 1e-6 * max(spacing, 1e-9)
+        keep = acc_t < t0 - tol
+        n_over = int(acc_t.size - np.count_nonzero(keep))
+        if n_over == 1 and abs(float(acc_t[-1]) - t0) <= tol:
+            warnings.append(f"energy parts: {name(part)} repeats the row at {t0:g} ps (the step it restarted "
+                            "from); its row is kept")
+        elif n_over:
+            warnings.append(f"energy parts: {name(part)} starts at {t0:g} ps, before {name(prev)} ended "
+                            f"({float(acc_t[-1]):g} ps); {n_over} overlapping row(s) {t0:g}-{float(acc_t[-1]):g} ps "
+                            f"are taken from {name(part)} (the restart)")
+        elif acc_t.size and spacing and t0 - float(acc_t[-1]) > 1.5 * spacing:
+            warnings.append(f"energy parts: a gap between {name(prev)} (ends {float(acc_t[-1]):g} ps) and "
+                            f"{name(part)} (starts {t0:g} ps)")
+        acc_t = np.concatenate([acc_t[keep], part.time_ps])
+        acc = {k: np.concatenate([v[keep], part.series[k].values]) for k, v in acc.items()}
+        prev = part
+    first = order[0]
+    series = {k: Series(s.name, acc[k], s.unit, s.role, s.source) for k, s in first.series.items()}
+    sources = tuple(src for t in order for src in t.sources)
+    return EnergyTable(time_ps=acc_t, series=series, sources=sources)
 
 
 #: registry names of readers that give only run parameters (no energies)

@@ -182,6 +182,28 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
 _AKMA_PS = math.sqrt(1e-20 * 1.66053906892e-27 / (4184.0 / 6.02214076e23)) * 1e12
 
 
+def dcd_header_timestep(path: Path) -> tuple[float, int] | None:
+    """(integration time step in ps, steps between frames) from a DCD header's DELTA (AKMA time units) and
+    NSAVC (ENGINES.md: OpenMM and NAMD write them so), or None when the header holds no real step."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(92)
+    except OSError:
+        return None
+    if len(head) < 92:
+        return None
+    for endian in ("<", ">"):
+        if struct.unpack(endian + "i", head[:4])[0] == 84:
+            break
+    else:
+        return None
+    icntrl = struct.unpack(endian + "9if10i", head[8:88])
+    istart, nsavc, delta = icntrl[1], icntrl[2], icntrl[9]
+    if not (delta > 0 and nsavc > 0) or (delta == 1.0 and nsavc == 1 and istart == 0):
+        return None
+    return float(f"{delta * _AKMA_PS:.6g}"), int(nsavc)  # DELTA is float32: 6 digits are what it holds
+
+
 def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
     """Frame times from a DCD header, or None when it holds no real time step (mdtraj writes delta=1, nsavc=1)."""
     with open(path, "rb") as f:
@@ -561,6 +583,10 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
                           velocity_kind=info.get("velocity_kind"), velocity_factor=info.get("velocity_factor", 1.0))
     md_meta.sources["positions"] = path.name
+    step = dcd_header_timestep(path) if suf == ".dcd" else None
+    if step is not None:  # the integration step, not the frame spacing
+        md_meta.timestep_ps = step[0]
+        md_meta.sources["timestep_ps"] = f"{path.name} (header: DELTA, a frame every {step[1]} steps)"
     if suf == ".xtc":
         frames.positions_precision_nm = _xtc_precision_nm(path)
         frames.positions_lossy = True

@@ -580,3 +580,24 @@ def test_amber_and_namd_layouts_of_one_run():
                                                                          rel=1e-6)
     assert n.metadata.timestep_ps == pytest.approx(namd["time_step_ps"]) and n.metadata.ensemble == "NVT"
     assert n.metadata.temperature_K == namd["target_temperature_K"]
+
+
+def test_gromacs_energy_parts_join_to_the_whole_run():
+    # the same NVE run written whole and in three -noappend parts, part 3 restarted from part 2's checkpoint
+    # at 2.24 ps (5 rows of overlap): GROMACS itself made both (tests/data/engines/README.md)
+    parts = DATA / "gromacs" / "spce_rigid_nve_parts"
+    whole = open_run([DATA / "gromacs" / "spce_rigid_nve_whole" / "md.edr"]).energies
+    run = open_run([parts / "md.part0003.edr", parts / "md.edr", parts / "md.part0002.edr"])  # any order
+    np.testing.assert_array_equal(run.energies.time_ps, whole.time_ps)
+    for name in ("Potential", "Kinetic En.", "Total Energy", "Temperature"):
+        np.testing.assert_array_equal(run.energies.series[name].values, whole.series[name].values)
+    assert any("md.part0003.edr starts at 2.24 ps" in w and "5 overlapping row(s) 2.24-2.4 ps" in w
+               for w in run.warnings)
+
+
+def test_dcd_header_gives_the_time_step():
+    d = DATA / "openmm" / "tip3p_rigid_nvt_langevin"
+    rep = _reported("openmm/tip3p_rigid_nvt_langevin")["reported"]
+    run = open_run([d / "trajectory.dcd", d / "start.pdb"])
+    assert run.metadata.timestep_ps == pytest.approx(rep["time_step_ps"], rel=1e-6)  # DELTA is float32
+    assert run.metadata.sources["timestep_ps"].startswith("trajectory.dcd (header: DELTA")
