@@ -244,15 +244,23 @@ def read_energy_sources(
     params = [(p, n) for p, n in items if n in PARAMETER_READERS]
     energy = [(p, n) for p, n in items if n not in PARAMETER_READERS]
     dt = timestep_ps or frame_timestep_ps
+    param_results: list[EngineEnergy] = []
     for p, name in params:
         res = engine_readers[name](p)
-        results.append(res)
+        param_results.append(res)
         warnings.extend(res.warnings)
         if dt is None and res.facts.get("timestep_ps"):
             dt = res.facts["timestep_ps"]
     tabs: list[tuple[str, EnergyTable]] = []
+    have_edr = any(name == "gromacs-edr" for _, name in energy)
     for p, name in energy:
-        if name in engine_readers:
+        if name == "gromacs-log" and have_edr:  # md.log is used for energies only when no .edr is given
+            from phasewake.core.readers import gromacs
+
+            res = gromacs.read_md_log(p, energies=False)
+            res.warnings.append(f"{p.name}: energies taken from the .edr (every energy frame); the log gives the "
+                                "run's parameters")
+        elif name in engine_readers:
             res = engine_readers[name](p, column_roles=column_roles, timestep_ps=timestep_ps,
                                        units_style=units_style)
         else:
@@ -263,6 +271,7 @@ def read_energy_sources(
         warnings.extend(res.warnings)
         if res.table is not None:
             tabs.append((name, res.table))
+    results += param_results  # after the energy files and logs: their resolved values come first
     if not tabs:
         return None, results, warnings
     # parts of one run (same reader, same terms, e.g. md.edr md.part0002.edr): joined in time order;

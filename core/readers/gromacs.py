@@ -292,9 +292,12 @@ def _mdp_beside(path: Path, res: EngineEnergy) -> None:
 
 # ---- md.log ---------------------------------------------------------------------------------------
 
+_MDRUN_BANNER = re.compile(r"^\s*:-\) GROMACS - (gmx )?mdrun|^GROMACS:\s+(gmx )?mdrun", re.M)
+
+
 def claim_md_log(path: Path) -> bool:
-    head = head_text(path, 8192)
-    return "GROMACS" in head and "mdrun" in head
+    """The log of gmx mdrun: its banner (``:-) GROMACS - gmx mdrun``) or ``GROMACS:  gmx mdrun, version``."""
+    return bool(_MDRUN_BANNER.search(head_text(path, 8192)))
 
 
 _STEP_HEADER = re.compile(r"^\s+Step\s+Time\s*$")

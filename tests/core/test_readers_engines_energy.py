@@ -601,3 +601,12 @@ def test_dcd_header_gives_the_time_step():
     run = open_run([d / "trajectory.dcd", d / "start.pdb"])
     assert run.metadata.timestep_ps == pytest.approx(rep["time_step_ps"], rel=1e-6)  # DELTA is float32
     assert run.metadata.sources["timestep_ps"].startswith("trajectory.dcd (header: DELTA")
+
+
+def test_a_gromacs_folder_takes_energies_from_the_edr_and_parameters_from_the_log():
+    folder = DATA / "gromacs" / "spce_rigid_nvt_vrescale"
+    rep = _reported("gromacs/spce_rigid_nvt_vrescale")["reported"]
+    run = open_run([folder / "md.log", folder / "md.edr", folder / "grompp.mdp"])
+    assert len(run.energies) == rep["frames"]["edr"]  # not the 21 log steps
+    assert run.metadata.n_dof == rep["degrees_of_freedom"] and run.metadata.sources["n_dof"].startswith("md.log")
+    assert any("md.log: energies taken from the .edr" in w for w in run.warnings)
