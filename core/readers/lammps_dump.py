@@ -566,12 +566,14 @@ def lammps_frames(frames: object) -> bool:
     return getattr(frames, "lammps", None) is not None
 
 
-def finish_run(run: Run, units: str | None = None) -> list[str]:
+def finish_run(run: Run, stated: str | None = None) -> list[str]:
     """Apply the units style and the time step to a dump run; return warnings.
 
-    The style comes from ``run.metadata.units_style`` (log.lammps or the user), else ``units`` (the
-    dump's ``ITEM: UNITS``); a run whose style nobody states is refused. Time is step x time step
-    (``run.metadata.timestep_ps``), else the dump's ``ITEM: TIME``, else the step number (said so).
+    The style comes from ``run.metadata.units_style`` when log.lammps echoes it (or the user set it),
+    else the dump's ``ITEM: UNITS``, else ``stated`` (``--units``), else the LAMMPS default a log without
+    a ``units`` command implies; a run whose style nothing states is refused. Time is step x time step
+    (``run.metadata.timestep_ps``; for lj the log's time step in tau, ``extra["timestep_tau"]``), else
+    the dump's ``ITEM: TIME``, else the step number (said so).
     """
     from phasewake.core.readers import lammps_data
     from phasewake.core.readers.common import check_time_axis, topology_from_elements
@@ -585,21 +587,32 @@ def finish_run(run: Run, units: str | None = None) -> list[str]:
     if md.units_style and style is None:
         raise MissingDataError(f"units style {md.units_style!r} is not a LAMMPS style (lj, real, metal, si, "
                                "cgs, electron, micro, nano)", path=info.dump_path)
-    if style is None:
-        style = style_from_text(units or getattr(frames, "dump_units", None))
-        if style is not None:
-            md.units_style = f"lammps {style.name}"
-            md.sources["units_style"] = f"ITEM: UNITS of {info.dump_path.name}"
+    guessed = style is not None and md.sources.get("units_style", "").startswith("LAMMPS default")
+    dump_style = style_from_text(getattr(frames, "dump_units", None))
+    if dump_style is not None and (style is None or guessed):
+        style = dump_style
+        md.units_style = f"lammps {style.name}"
+        md.sources["units_style"] = f"ITEM: UNITS of {info.dump_path.name}"
+    elif stated and (style is None or guessed):
+        style = style_from_text(stated)
+        if style is None:
+            raise MissingDataError(f"units style {stated!r} is not a LAMMPS style (lj, real, metal, si, cgs, "
+                                   "electron, micro, nano)", path=info.dump_path)
+        md.units_style = f"lammps {style.name}"
+        md.sources["units_style"] = "stated (--units)"
     if style is None:
         raise MissingDataError("the LAMMPS units style is not known: give log.lammps (it echoes 'units') with "
                                "the dump, or state it (--units real, metal, lj, ...)", path=info.dump_path)
     frames.set_units(style)  # type: ignore[union-attr]
     md.engine = md.engine or "LAMMPS"
     steps = np.asarray(frames.steps, dtype=np.float64)  # type: ignore[union-attr]
-    if md.timestep_ps is not None:
-        t = steps * float(md.timestep_ps)
-        md.extra["time_from"] = (f"step x time step ({md.timestep_ps:g} "
-                                 f"{'tau' if style.reduced else 'ps'} from {md.sources.get('timestep_ps', 'the run')})")
+    dt = md.timestep_ps
+    dt_source = md.sources.get("timestep_ps", "the run")
+    if style.reduced and md.extra.get("timestep_tau") is not None and md.sources.get("timestep_ps") != "user":
+        dt, dt_source = float(md.extra["timestep_tau"]), "log.lammps"
+    if dt is not None:
+        t = steps * float(dt)
+        md.extra["time_from"] = f"step x time step ({dt:g} {'tau' if style.reduced else 'ps'} from {dt_source})"
     elif (dump_t := frames.dump_times()) is not None:  # type: ignore[union-attr]
         t = dump_t * style.time_ps
         md.extra["time_from"] = f"ITEM: TIME of {info.dump_path.name}"
