@@ -29,6 +29,10 @@ from phasewake.core.errors import InputError, PhasewakeError
 _FORMAT_RANK = {".trr": 0, ".nc": 1, ".ncdf": 1, ".netcdf": 1, ".lammpstrj": 2, ".lammpsdump": 2, ".dump": 2,
                 ".dcd": 3, ".xtc": 4}
 _STRUCTURE = (".pdb", ".pdb.gz", ".gro", ".cif", ".pdbx", ".mol2")
+# Files a folder often holds beside a run that no engine writes as run output (notes, scripts, figures,
+# reports); never offered to the readers, whose content claims could mistake them for a log.
+_NOT_RUN_FILES = (".json", ".md", ".rst", ".py", ".sh", ".ipynb", ".png", ".jpg", ".jpeg", ".svg", ".pdf", ".html",
+                  ".yml", ".yaml", ".toml", ".cfg", ".ini", ".gz", ".zip", ".tar", ".bz2", ".xz", ".pwsession")
 _TOPOLOGY_RANK = {"lammps-data": 0, ".psf": 1, ".prmtop": 1, ".parm7": 1, ".gro": 2, ".pdb": 2, ".pdb.gz": 2}
 
 
@@ -70,12 +74,15 @@ def find_run_files(folder: str | Path) -> FolderFiles:
     runs: list[Path] = []
     trajs: list[Path] = []
     tops: list[tuple[Path, str]] = []
-    others: list[Path] = []
+    others: list[tuple[Path, str]] = []
     from phasewake.core.readers.velocity_file import is_velocity_file
 
     velocity_files = [p for p in entries if is_velocity_file(p)]
     entries = [p for p in entries if not is_velocity_file(p)]
     for p in entries:
+        if _suffix(p) in _NOT_RUN_FILES:
+            out.left_out.append((p, "not a run file"))
+            continue
         try:
             entry = identify(p)
         except PhasewakeError:
@@ -88,7 +95,7 @@ def find_run_files(folder: str | Path) -> FolderFiles:
         elif entry.kind == "topology" or _suffix(p) in _STRUCTURE:
             tops.append((p, entry.name))
         else:
-            others.append(p)
+            others.append((p, entry.name))
 
     families: dict[str, list[Path]] = {}
     for p in trajs:
@@ -133,13 +140,14 @@ def find_run_files(folder: str | Path) -> FolderFiles:
     if len(velocity_files) > 1:
         raise InputError(f"the folder holds {len(velocity_files)} velocity files "
                          f"({', '.join(p.name for p in velocity_files)}). Name the files to open", path=d)
-    out.paths = chosen + ([top] if top is not None else []) + (velocity_files if chosen else []) + others
+    out.paths = chosen + ([top] if top is not None else []) + (velocity_files if chosen else []) + \
+        [p for p, _ in others]
     if not out.paths:
         raise InputError("the folder holds no file of a run that we read"
                          + (f" (found {', '.join(p.name for p, _ in out.left_out[:6])})" if out.left_out else ""),
                          path=d)
     took = ", ".join(p.name for p in out.paths)
-    note = f"run folder {d.name}: took {took}"
+    note = f"run folder {d.resolve().name or d}: took {took}"
     if out.left_out:
         note += "; left out " + ", ".join(f"{p.name} ({why})" for p, why in out.left_out)
     out.notes.append(note)

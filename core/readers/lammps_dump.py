@@ -587,9 +587,13 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     if md.units_style and style is None:
         raise MissingDataError(f"units style {md.units_style!r} is not a LAMMPS style (lj, real, metal, si, "
                                "cgs, electron, micro, nano)", path=info.dump_path)
-    guessed = style is not None and md.sources.get("units_style", "").startswith("LAMMPS default")
+    src = md.sources.get("units_style", "")
+    guessed = style is not None and (src.startswith("LAMMPS default") or src.startswith("stated"))
     dump_style = style_from_text(getattr(frames, "dump_units", None))
     if dump_style is not None and (style is None or guessed):
+        if style is not None and style.name != dump_style.name and src.startswith("stated"):
+            warnings.append(f"{info.dump_path.name}: the dump says 'units {dump_style.name}'; the stated "
+                            f"'{style.name}' is not used")
         style = dump_style
         md.units_style = f"lammps {style.name}"
         md.sources["units_style"] = f"ITEM: UNITS of {info.dump_path.name}"

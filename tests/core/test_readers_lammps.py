@@ -324,11 +324,11 @@ def _reported(name: str) -> dict:
 
 
 def _engine_run(name: str, dump: str = "dump.lammpstrj"):
+    # no option a user would not know to give: units style and time step come from log.lammps
     rep = _reported(name)
-    kw = {"units_style": rep["units_style"]}
-    if rep["time_step_ps"] is not None:
-        kw["timestep_ps"] = rep["time_step_ps"]
-    return open_run([ENGINES / name / dump, ENGINES / name / "argon.data"], **kw), rep
+    run = open_run([ENGINES / name / dump, ENGINES / name / "argon.data", ENGINES / name / "log.lammps"])
+    assert run.metadata.units_style == f"lammps {rep['units_style']}"
+    return run, rep
 
 
 @pytest.mark.parametrize("name", ["argon_real_nve", "argon_metal_nve", "argon_real_nvt"])
@@ -339,6 +339,7 @@ def test_engine_runs_temperature_at_the_dump_steps_equals_lammps(name):
     run, rep = _engine_run(name)
     assert run.n_atoms == rep["atoms"] and run.n_frames == rep["frames"]["dump.lammpstrj"]
     np.testing.assert_allclose(np.diff(run.time_ps), 200 * rep["time_step_ps"])  # dumps every 200 steps
+    assert run.metadata.extra["time_from"].startswith("step x time step")
     _, vel, _, _ = _all(run)
     t = np.einsum("fai,fai,a->f", vel.astype(np.float64), vel.astype(np.float64), run.masses_amu)
     t /= rep["degrees_of_freedom"] * R_KJ
@@ -349,6 +350,7 @@ def test_engine_runs_temperature_at_the_dump_steps_equals_lammps(name):
 def test_engine_run_lj_units_kept_reduced():
     # Reference: LAMMPS lj Temp at the dump steps (epsilon/kB) = sum m v^2 / dof with kB = 1 (units lj).
     run, rep = _engine_run("argon_lj_nve")
+    np.testing.assert_allclose(np.diff(run.time_ps), 200 * rep["time_step"])  # in tau
     _, vel, _, _ = _all(run)
     t = np.einsum("fai,fai,a->f", vel.astype(np.float64), vel.astype(np.float64), run.masses_amu)
     t /= rep["degrees_of_freedom"]

@@ -175,30 +175,3 @@ def test_xtc_positions_are_marked_lossy_and_the_estimate_says_so():
     parts = open_run([GMX / "spce_rigid_nve_parts" / "md.xtc", GMX / "spce_rigid_nve_parts" / "md.part0002.xtc",
                       d / "md.gro"])
     assert parts.frames.positions_lossy
-
-
-def test_energy_parts_are_joined_in_time_order_later_rows_kept(tmp_path):
-    # Three CSV energy files of one run (a restart 5 rows back, then a -noappend repeat), joined: the
-    # result equals the whole table (the reference: the rows the parts were cut from), the spoiled
-    # overlapping rows of the earlier part are replaced by the later part's.
-    from phasewake.core.readers.parts import join_energy_parts
-    from phasewake.core.readers.tables import read_table
-
-    t = np.arange(40) * 0.5
-    e = np.sin(t)
-
-    def write(name, rows, spoil=()):
-        vals = e.copy()
-        vals[list(spoil)] += 1.0
-        p = tmp_path / name
-        p.write_text("time (ps),Total Energy (kJ/mol)\n" + "".join(f"{t[i]:g},{float(vals[i])!r}\n" for i in rows))
-        return p
-
-    files = [write("md.csv", range(0, 20), spoil=range(15, 20)), write("md.part0002.csv", range(15, 30)),
-             write("md.part0003.csv", range(29, 40))]
-    tables = [read_table(p)[0] for p in reversed(files)]
-    (joined,), words = join_energy_parts(tables, names=[p.name for p in reversed(files)])
-    np.testing.assert_allclose(joined.time_ps, t)
-    np.testing.assert_allclose(joined.series["Total Energy"].values, e)
-    assert any("md.part0002.csv starts at t = 7.5 ps" in w and "5 row(s) of md.csv" in w for w in words)
-    assert any("1 row(s) of md.part0002.csv" in w for w in words)

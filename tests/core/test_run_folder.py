@@ -119,3 +119,40 @@ def test_window_opens_a_dropped_folder(tmp_path):
     (group,) = group_runs([str(a)])
     run = default_opener(group, None, RunSettings())
     assert run.n_frames == 8 and run.metadata.sources["topology"] == "md.gro"
+
+
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines"
+
+
+def test_real_gromacs_parts_folder_gives_the_whole_run(capsys):
+    # Reference: GROMACS 2022.5 made the run whole and in three -noappend parts (tests/data/engines,
+    # reported.json: 91 energy frames for the whole run, parts 2 and 3 overlapping 1120-1200). The folder
+    # of parts, opened with no option, gives the whole run's frames and energies.
+    parts = open_run([ENGINES / "gromacs" / "spce_rigid_nve_parts"])
+    whole_dir = ENGINES / "gromacs" / "spce_rigid_nve_whole"
+    whole = open_run([whole_dir / "md.trr", whole_dir / "md.gro", whole_dir / "md.edr"])
+    assert parts.n_frames == whole.n_frames and len(parts.energies) == len(whole.energies) == 91
+    np.testing.assert_allclose(parts.energies.time_ps, whole.energies.time_ps, atol=1e-9)
+    np.testing.assert_array_equal(parts.energies.series["Total Energy"].values,
+                                  whole.energies.series["Total Energy"].values)
+    np.testing.assert_array_equal(
+        np.concatenate([c.velocities_nm_per_ps for c in parts.frames.iter_chunks()]),
+        np.concatenate([c.velocities_nm_per_ps for c in whole.frames.iter_chunks()]))
+    note = parts.warnings[0]
+    assert "took md.trr, md.part0002.trr, md.part0003.trr, md.gro" in note
+    assert "md.xtc (the same run as md.trr" in note
+    assert any("md.part0002.edr" in w and "2.24" in w for w in parts.warnings)  # the energy overlap
+    assert parts.metadata.n_dof == 801  # the engine's count, from md.log beside md.edr
+
+
+def test_real_lammps_folder_with_two_dumps_is_ambiguous_and_one_dump_opens(tmp_path, capsys):
+    # argon_real_nve holds two dumps of the run (wrapped, unwrapped): two candidates, named in one line.
+    code = main(["describe", str(ENGINES / "lammps" / "argon_real_nve")])
+    err = capsys.readouterr().err
+    assert code == 2 and "dump.lammpstrj" in err and "dump.unwrapped.lammpstrj" in err and err.count("\n") == 1
+    # argon_metal_nve: one dump, log.lammps and data files: no option needed (reported.json: 256 atoms,
+    # 11 dump frames every 200 steps of 0.004 ps)
+    run = open_run([ENGINES / "lammps" / "argon_metal_nve"])
+    assert run.n_atoms == 256 and run.n_frames == 11
+    np.testing.assert_allclose(np.diff(run.time_ps), 0.8)
+    assert run.metadata.units_style == "lammps metal" and run.energies is not None
