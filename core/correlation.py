@@ -43,8 +43,9 @@ from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 
 Normalisation = Literal["biased", "unbiased"]
-Method = Literal["sokal", "geyer", "first_zero"]
-METHODS: tuple[str, ...] = ("sokal", "geyer", "first_zero")
+Method = Literal["sokal", "geyer", "first_zero", "auto"]
+METHODS: tuple[str, ...] = ("sokal", "geyer", "first_zero")  # the single estimators
+AUTO = "auto"  # Sokal, or Geyer on an oscillating ACF; the largest estimate when the estimators disagree
 
 MIN_SAMPLES = 4
 _WORKERS = max(1, min(2, os.cpu_count() or 1))
@@ -96,6 +97,61 @@ verdicts.register(
         "may still be relaxing: extend it, or check whether it drifts.",
     ),
 )
+
+
+verdicts.register(
+    verdicts.Threshold(
+        kind="sampling.estimator_agreement",
+        caution=3.0,
+        problem=float("inf"),
+        unit="combined standard errors",
+        source="common practice (a difference beyond 3 combined standard errors is more than noise); the "
+        "error of Sokal's and Geyer's g from Madras and Sokal, J. Stat. Phys. 50, 109 (1988), "
+        "var(g)/g^2 = 2 (2M + 1)/N; of the blocking g from the error of the blocking variance, "
+        "sqrt(2/(n_blocks - 1)) (Flyvbjerg and Petersen 1989)",
+        description="largest difference between estimators of the statistical inefficiency, in units of "
+        "their combined standard error",
+    ),
+    verdicts.Explanation(
+        title="Agreement of the estimators of g",
+        what="Whether Sokal's window, Geyer's initial sequence and block averaging give the same statistical "
+        "inefficiency g within their own noise.",
+        method="Each estimate carries its standard error (Madras and Sokal 1988 for the windowed sums; the "
+        "error of the plateau variance for blocking); the largest pairwise difference is divided by the "
+        "combined error. When they disagree the largest g (the conservative one: the wider error bar, the "
+        "fewer effective samples) is reported.",
+        threshold="caution above 3 combined standard errors (common practice).",
+        advice="Estimators disagree on oscillating or slowly drifting series: an oscillation (a bond "
+        "vibration, a periodic motion) closes Sokal's window after a few lags. Trust the larger g, look at "
+        "the autocorrelation and the blocking curve, and run longer if the estimates stay apart.",
+    ),
+)
+
+verdicts.register(
+    verdicts.Threshold(
+        kind="sampling.acf_oscillation",
+        caution=0.1,
+        problem=float("inf"),
+        unit="autocorrelation",
+        source="common practice (a negative lobe deeper than 0.1, and beyond 4 times the Bartlett noise "
+        "sqrt(g/N) of the autocorrelation, is an oscillation, not noise)",
+        description="depth of the first negative lobe of the autocorrelation before the estimators' "
+        "windows close",
+    ),
+    verdicts.Explanation(
+        title="Oscillating autocorrelation",
+        what="Whether the autocorrelation swings negative early (an oscillating quantity such as a bond "
+        "length), where Sokal's automatic window closes too soon.",
+        method="The deepest autocorrelation within the first lags (up to twice Geyer's truncation lag) "
+        "compared with 0.1 and with 4 sqrt(g/N) (Bartlett's noise level). An oscillating series uses "
+        "Geyer's initial monotone sequence (Geyer, Statistical Science 7, 473 (1992)) by default.",
+        threshold="A lobe deeper than -0.1 (common practice) counts as oscillation.",
+        advice="Name the estimator (--method) to override the automatic choice.",
+    ),
+)
+
+OSCILLATION_DEPTH = 0.1  # see sampling.acf_oscillation (common practice)
+OSCILLATION_NOISE_SIGMAS = 4.0
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -447,9 +503,99 @@ def _direct_sums_estimate(a: np.ndarray, k_max: int, method: str, c: float) -> _
     return None
 
 
+@dataclass(frozen=True)
+class AutoEstimate:
+    """The automatic choice among the estimators of g for one series (see :func:`auto_estimate`)."""
+
+    g: float  # reported statistical inefficiency (samples)
+    method: str  # words: which estimator, and why
+    primary: str  # "sokal" or "geyer"
+    oscillating: bool
+    oscillation_depth: float  # -min rho over the first lags (> 0: a negative lobe)
+    estimates: dict[str, tuple[float, float]]  # estimator -> (g, standard error of g), samples
+    disagreement_z: float  # largest |g_i - g_j| / sqrt(se_i^2 + se_j^2)
+    disagree: bool
+    window: int  # lags summed by the primary estimator
+    converged: bool  # the primary's window condition was met inside the lags computed
+    sums: np.ndarray  # lag sums S(0..k) used (for the ACF)
+    lags: int
+
+
+def _windowed_error(g: float, window: int, n: int) -> float:
+    """Standard error of a windowed estimate of g: g sqrt(2 (2M + 1) / N) (Madras and Sokal 1988)."""
+    return float(g * math.sqrt(2.0 * (2.0 * max(int(window), 1) + 1.0) / n))
+
+
+def auto_estimate(x: Any, *, c: float = 5.0, max_lag: int | None = None) -> AutoEstimate:
+    """g of one series by the automatic rule.
+
+    Sokal's automatic window (c) when the autocorrelation does not oscillate; Geyer's initial monotone
+    sequence (Geyer 1992) when it does (a negative lobe deeper than ``sampling.acf_oscillation`` and
+    beyond 4 sqrt(g/N) within the first lags): on an oscillating autocorrelation Sokal's window closes
+    after a few lags, where the partial sum is near its trough (g = 1 for an O-H distance sampled every
+    femtosecond). Sokal, Geyer and, when its plateau is found, Flyvbjerg-Petersen blocking are compared
+    within their standard errors; beyond ``sampling.estimator_agreement`` the largest g (the
+    conservative one) is reported and the disagreement is flagged.
+    """
+    a, _ = _as_float_array(x, 0)
+    if a.ndim != 1:
+        raise AnalysisError("the automatic estimator takes one 1D series")
+    n = a.size
+    s_s, est_s, k_s = _sums_adaptive(a, 0, max_lag, "sokal", c)
+    s_g, est_g, k_g = _sums_adaptive(a, 0, max_lag, "geyer", c)
+    sums, k = (s_g, k_g) if k_g > k_s else (s_s, k_s)
+    rho = sums / sums[0]
+    g_s, g_g = float(est_s.g), float(est_g.g)
+    w_s, w_g = int(est_s.window), int(est_g.window)
+    look = int(min(rho.size - 1, max(10, 2 * max(w_g, 1) + 2)))
+    depth = float(-np.min(rho[1:look + 1])) if look >= 1 else 0.0
+    limit = max(verdicts.THRESHOLDS["sampling.acf_oscillation"].caution,
+                OSCILLATION_NOISE_SIGMAS * math.sqrt(max(g_s, g_g) / n))
+    oscillating = depth > limit
+    estimates: dict[str, tuple[float, float]] = {
+        "sokal": (g_s, _windowed_error(g_s, w_s, n)),
+        "geyer": (g_g, _windowed_error(g_g, w_g, n)),
+    }
+    if n >= 64:
+        b = blocking(a)
+        if b.plateau_found:
+            lvl = b.plateau_level
+            rel = 2.0 * float(b.sem_error[lvl] / b.sem[lvl]) if b.sem[lvl] > 0 else float("inf")
+            estimates["blocking"] = (b.statistical_inefficiency, b.statistical_inefficiency * rel)
+    names = list(estimates)
+    z = 0.0
+    for i, p in enumerate(names):
+        for q in names[i + 1:]:
+            (g1, e1), (g2, e2) = estimates[p], estimates[q]
+            den = math.sqrt(e1 * e1 + e2 * e2)
+            zz = abs(g1 - g2) / den if den > 0 else (0.0 if g1 == g2 else float("inf"))
+            z = max(z, zz)
+    primary = "geyer" if oscillating else "sokal"
+    disagree = verdicts.THRESHOLDS["sampling.estimator_agreement"].level(z) != "ok"
+    why = "oscillating autocorrelation" if oscillating else "no oscillation"
+    g, method = estimates[primary][0], f"{primary} ({why})"
+    if disagree:
+        top = max(names, key=lambda m: estimates[m][0])
+        g = estimates[top][0]
+        method = (f"{top} (the largest of estimators that disagree by {z:.1f} standard errors; "
+                  f"{why}, first choice {primary})")
+    est = est_g if primary == "geyer" else est_s
+    return AutoEstimate(g=float(max(g, 1.0)), method=method, primary=primary, oscillating=oscillating,
+                        oscillation_depth=depth, estimates=estimates, disagreement_z=float(z), disagree=disagree,
+                        window=int(est.window), converged=bool(est.converged), sums=sums, lags=k)
+
+
 def _estimate(x: Any, *, method: str, c: float, max_lag: int | None, axis: int) -> tuple[_GEstimate, int]:
     a, axis = _as_float_array(x, axis)
     n = a.shape[axis]
+    if method == AUTO:
+        rows = np.moveaxis(a, axis, -1)
+        flat = rows.reshape(-1, n)
+        found = [auto_estimate(r, c=c, max_lag=max_lag) for r in flat]
+        shape = rows.shape[:-1]
+        return _GEstimate(np.array([e.g for e in found]).reshape(shape),
+                          np.array([e.window for e in found]).reshape(shape),
+                          np.array([e.converged for e in found]).reshape(shape)), n
     if a.ndim == 1:
         direct = _direct_estimate(a, max_lag, method, c)
         if direct is not None:
@@ -534,6 +680,11 @@ class CorrelationResult:
     acf_lag_ps: np.ndarray  # shape (n_lags,)
     settings: dict[str, Any] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    # the automatic choice (method "auto"): every estimate with its standard error, and whether they agree
+    estimates: dict[str, tuple[float, float]] = field(default_factory=dict)  # name -> (g, standard error)
+    oscillating: bool | None = None  # None: not tested (a single estimator was asked for)
+    disagreement_z: float | None = None  # largest difference of estimates in combined standard errors
+    estimators_disagree: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready numbers (arrays kept; print_json converts them)."""
@@ -554,6 +705,10 @@ class CorrelationResult:
             "method": self.method,
             "settings": self.settings,
             "notes": list(self.notes),
+            "estimates": {k: {"g": v[0], "standard_error": v[1]} for k, v in self.estimates.items()},
+            "oscillating": self.oscillating,
+            "disagreement_standard_errors": self.disagreement_z,
+            "estimators_disagree": self.estimators_disagree,
         }
 
 
@@ -561,7 +716,7 @@ def analyse_series(
     x: Any,
     *,
     dt_ps: float,
-    method: Method = "sokal",
+    method: Method = "auto",
     c: float = 5.0,
     tol: float = 50.0,
     max_lag: int | None = None,
@@ -576,7 +731,9 @@ def analyse_series(
         The series, in ``unit``.
     dt_ps : float
         Spacing of samples (ps).
-    method : {"sokal", "geyer", "first_zero"}
+    method : {"auto", "sokal", "geyer", "first_zero"}
+        "auto" (default): Sokal, or Geyer when the autocorrelation oscillates, compared with blocking;
+        the largest g when they disagree beyond their noise (:func:`auto_estimate`).
     c : float
         Sokal window constant.
     tol : float
@@ -598,17 +755,26 @@ def analyse_series(
     if not dt_ps > 0:
         raise AnalysisError(f"the sample spacing must be positive, got {dt_ps} ps")
     n = a.size
-    s, est, k = _sums_adaptive(a, 0, max_lag, method, c)
+    notes: list[str] = []
+    auto: AutoEstimate | None = None
+    if method == AUTO:
+        auto = auto_estimate(a, c=c, max_lag=max_lag)
+        s, k = auto.sums, auto.lags
+        g, window, window_ok, label = auto.g, auto.window, auto.converged, auto.method
+        if auto.disagree:
+            listing = ", ".join(f"{m} {v[0]:.3g} +- {v[1]:.2g}" for m, v in auto.estimates.items())
+            notes.append(f"the estimators of g disagree by {auto.disagreement_z:.1f} standard errors ({listing}); "
+                         f"the largest, {g:.3g}, is used (conservative)")
+    else:
+        s, est, k = _sums_adaptive(a, 0, max_lag, method, c)
+        g, window, window_ok, label = float(est.g), int(est.window), bool(est.converged), method
     rho = s / s[0]
-    g = float(est.g)
-    window = int(est.window)
     var = float(s[0] / n)
     n_keep = acf_lags if acf_lags is not None else max(50, 5 * max(window, 1))
     n_keep = int(min(max(2, n_keep), rho.size))
-    notes: list[str] = []
-    window_ok = bool(est.converged)
     if not window_ok:
-        notes.append(f"the {method} window condition was not met within {k} lags: g is a lower bound")
+        first = auto.primary if auto is not None else method
+        notes.append(f"the {first} window condition was not met within {k} lags: g is a lower bound")
     if n < tol * g:
         notes.append(f"the series is shorter than {tol:g} g ({n} < {tol * g:.0f}): g is uncertain, "
                      "run longer for a reliable estimate")
@@ -626,11 +792,15 @@ def analyse_series(
         standard_error_of_mean=math.sqrt(var * g / n),
         window_lags=window,
         converged=window_ok and n >= tol * g,
-        method=method,
+        method=label,
         acf=rho[:n_keep].copy(),
         acf_lag_ps=np.arange(n_keep) * float(dt_ps),
         settings={"method": method, "c": c, "tol": tol, "max_lag": max_lag, "normalisation": "biased"},
         notes=tuple(notes),
+        estimates={} if auto is None else dict(auto.estimates),
+        oscillating=None if auto is None else auto.oscillating,
+        disagreement_z=None if auto is None else auto.disagreement_z,
+        estimators_disagree=False if auto is None else auto.disagree,
     )
 
 
@@ -643,6 +813,26 @@ def judge_ess(result: CorrelationResult, *, name: str = "series") -> verdicts.Ve
         f"({result.method}) hold about {ess:.0f} independent samples. " + verdicts.HEURISTIC_NOTE,
         advice=verdicts.EXPLANATIONS["sampling.ess"].advice,
         details={"g": result.statistical_inefficiency, "n_samples": result.n_samples},
+    )
+
+
+def judge_estimators(result: CorrelationResult, *, name: str = "series") -> verdicts.Verdict | None:
+    """The ``sampling.estimator_agreement`` verdict (None when a single estimator was asked for)."""
+    if result.disagreement_z is None or not result.estimates:
+        return None
+    listing = "; ".join(f"{m} g = {v[0]:.3g} +- {v[1]:.2g}" for m, v in result.estimates.items())
+    osc = ("the autocorrelation oscillates, so Geyer's initial sequence is the first choice"
+           if result.oscillating else "the autocorrelation does not oscillate, so Sokal's window is the first choice")
+    if result.estimators_disagree:
+        tail = (f"They disagree by more than their noise: g = {result.statistical_inefficiency:.3g}, the largest "
+                "(conservative), is used for the effective sample size and the error bar.")
+    else:
+        tail = "They agree within their noise."
+    return verdicts.judge(
+        "sampling.estimator_agreement", float(result.disagreement_z), title=f"Estimators of g for {name}",
+        unit="combined standard errors", message=f"{name}: {listing}; {osc}. {tail}",
+        advice=verdicts.EXPLANATIONS["sampling.estimator_agreement"].advice,
+        details={"estimates": {k: list(v) for k, v in result.estimates.items()}, "oscillating": result.oscillating},
     )
 
 

@@ -17,8 +17,10 @@ Series analysis (``--series`` for a column of the energy table, by name or role 
 
 * the autocorrelation (FFT, zero padded) and the statistical inefficiency g = 1 + 2 sum rho(k) by
   Sokal's automatic window (c = 5), Geyer's initial positive sequence and the first-zero rule
-  (``--method`` picks the one used for the other numbers); Sokal's tau_int = g/2 in ps; the effective
-  sample size N/g and the g-corrected standard error of the mean;
+  (``--method`` picks the one used for the other numbers; the default ``auto`` takes Sokal's, or
+  Geyer's when the autocorrelation oscillates, compares them and blocking within their standard
+  errors, and takes the largest, conservative one when they disagree, saying so); Sokal's
+  tau_int = g/2 in ps; the effective sample size N/g and the g-corrected standard error of the mean;
 * the blocking (Flyvbjerg-Petersen) standard error with its automatically found plateau;
 * the start of equilibrated data (Chodera 2016);
 * rank-normalised split R-hat over ``--segments`` contiguous segments (Vehtari et al. 2021), and the
@@ -82,8 +84,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="an energy-table column by name or role (potential, kinetic, total, ...); repeatable")
     parser.add_argument("-c", "--coordinate", action="append", default=[], metavar="SPEC",
                         help="a coordinate in the grammar of 'phasewake coords' (e.g. \"distance(0, 1)\"); repeatable")
-    parser.add_argument("--method", choices=("sokal", "geyer", "first_zero"), default="sokal",
-                        help="estimator of the statistical inefficiency used for N_eff and errors (default sokal)")
+    parser.add_argument("--method", choices=("auto", "sokal", "geyer", "first_zero"), default="auto",
+                        help="estimator of the statistical inefficiency used for N_eff and errors (default auto: "
+                             "Sokal, Geyer on an oscillating autocorrelation, the largest when estimators disagree)")
     parser.add_argument("--segments", type=int, default=4, metavar="N",
                         help="contiguous segments for split R-hat and segment divergences (default 4)")
     parser.add_argument("--bins", type=int, default=50, metavar="B", help="histogram bins for divergences (default 50)")
@@ -224,6 +227,9 @@ def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[
     rh = S.rhat_segments(x, n_segments=seg) if x.size >= 4 * seg else None
     div = S.segment_divergence(x, n_segments=2, bins=args.bins) if x.size >= 20 and np.ptp(x) > 0 else None
     verdict_list = [C.judge_ess(res, name=item["name"]), C.judge_equilibration(equil, name=item["name"])]
+    agreement = C.judge_estimators(res, name=item["name"])
+    if agreement is not None:
+        verdict_list.insert(1, agreement)
     if rh is not None:
         verdict_list.append(S.judge_rhat(rh, name=f"{item['name']} ({seg} segments)"))
     if div is not None:
@@ -429,6 +435,11 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         gm = a["g_by_method"]
         w(f"    statistical inefficiency g = {_g(r.statistical_inefficiency)} ({r.method}, window {r.window_lags} "
           f"lags); sokal {_g(gm['sokal'])} | geyer {_g(gm['geyer'])} | first-zero {_g(gm['first_zero'])}\n")
+        if r.estimates:
+            listing = " | ".join(f"{m} {_g(v[0])} +- {v[1]:.2g}" for m, v in r.estimates.items())
+            state = "DISAGREE" if r.estimators_disagree else "agree"
+            w(f"    estimates with their standard errors: {listing} ({state}: {r.disagreement_z:.1f} standard "
+              f"errors apart at most)\n")
         w(f"    tau_int (Sokal, g/2) = {_g(r.tau_int_sokal_ps)} ps; effective samples N/g = "
           f"{r.effective_sample_size:.0f}\n")
         w(f"    mean {_g(r.mean)}{u} +- {_g(r.standard_error_of_mean)}{u} (g-corrected standard error)\n")

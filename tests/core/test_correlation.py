@@ -222,3 +222,104 @@ def test_long_memory_series_falls_back_to_fft():
     x = ar1(0.95, 100_000, seed=22)  # g = 39: Sokal's window lies far beyond 32 lags
     assert C._direct_estimate(np.asarray(x), None, "sokal", 5.0) is None
     assert C.statistical_inefficiency(x) == pytest.approx(39.0, rel=0.25)  # analytic AR(1) g
+
+
+# --- the automatic estimator on oscillating series (Geyer 1992 initial sequence; Sokal 1997 window) ---
+
+def _langevin_oscillator(n: int, omega: float, gamma: float, seed: int) -> np.ndarray:
+    """Positions of a Langevin harmonic oscillator sampled every unit time by its exact propagator.
+
+    d(x, v)/dt = A (x, v) + noise with A = [[0, 1], [-omega^2, -gamma]]; the sampled process is the
+    vector AR(1) z(k+1) = F z(k) + e with F = expm(A) and noise covariance S - F S F^T, S = diag(1/omega^2, 1)
+    the stationary covariance (kT = m = 1) (Uhlenbeck and Ornstein 1930; exact Gaussian update, from memory).
+    """
+    from scipy.linalg import expm
+
+    a = np.array([[0.0, 1.0], [-omega ** 2, -gamma]])
+    f = expm(a)
+    s = np.diag([1.0 / omega ** 2, 1.0])
+    chol = np.linalg.cholesky(s - f @ s @ f.T)
+    rng = np.random.default_rng(seed)
+    e = rng.standard_normal((n, 2)) @ chol.T
+    z = np.empty((n, 2))
+    z[0] = np.linalg.cholesky(s) @ rng.standard_normal(2)
+    for i in range(1, n):
+        z[i] = f @ z[i - 1] + e[i]
+    return z[:, 0] * omega  # unit variance
+
+
+def _oscillator_rho(k: np.ndarray, omega: float, gamma: float) -> np.ndarray:
+    """Analytic position autocorrelation of the underdamped Langevin oscillator:
+    exp(-gamma t/2) [cos(w1 t) + gamma/(2 w1) sin(w1 t)], w1 = sqrt(omega^2 - gamma^2/4) (textbook, from memory;
+    checked below against the matrix exponential)."""
+    w1 = np.sqrt(omega ** 2 - gamma ** 2 / 4)
+    return np.exp(-gamma * k / 2) * (np.cos(w1 * k) + gamma / (2 * w1) * np.sin(w1 * k))
+
+
+def test_oscillator_analytic_acf_matches_matrix_exponential():
+    # the closed form against [expm(A k) S]_00 / S_00 (an independent route to the same ACF)
+    from scipy.linalg import expm
+
+    omega, gamma = 2 * np.pi / 9, 0.3
+    a = np.array([[0.0, 1.0], [-omega ** 2, -gamma]])
+    ks = np.arange(0, 40)
+    ref = np.array([(expm(a * k) @ np.diag([1 / omega ** 2, 1.0]))[0, 0] * omega ** 2 for k in ks])
+    np.testing.assert_allclose(_oscillator_rho(ks, omega, gamma), ref, atol=1e-12)
+
+
+def test_oscillating_bond_plus_slow_environment_sokal_closes_early_auto_uses_geyer_and_blocking():
+    """Like an O-H distance sampled every fs: a 9-sample vibration (90% of the variance) on a slow AR(1)
+    environment (10%). Analytic g = 0.9 g_osc + 0.1 g_AR1 (variance-weighted sum of independent parts),
+    g_osc = 1 + 2 sum rho_osc(k), g_AR1 = (1 + phi)/(1 - phi) (Sokal 1997)."""
+    n, omega, gamma, phi = 100_000, 2 * np.pi / 9, 0.1, 0.95
+    k = np.arange(1, 20_000)
+    g_true = 0.9 * (1 + 2 * _oscillator_rho(k, omega, gamma).sum()) + 0.1 * (1 + phi) / (1 - phi)
+    x = np.sqrt(0.9) * _langevin_oscillator(n, omega, gamma, seed=1) + np.sqrt(0.1) * ar1(phi, n, seed=2) * np.sqrt(1 - phi ** 2)
+    # the failure the automatic rule guards against: Sokal's window (c = 5) closes on the first trough
+    assert C.statistical_inefficiency(x, method="sokal") < 0.5 * g_true
+    r = C.analyse_series(x, dt_ps=0.001, unit="nm")
+    assert r.oscillating is True
+    assert r.estimators_disagree is True and r.disagreement_z > 3
+    assert set(r.estimates) >= {"sokal", "geyer", "blocking"}
+    # the reported g is the largest (conservative) and lies within 25% of the analytic value
+    assert r.statistical_inefficiency == pytest.approx(max(v[0] for v in r.estimates.values()))
+    assert r.statistical_inefficiency == pytest.approx(g_true, rel=0.25)
+    assert any("disagree" in note for note in r.notes)
+    v = C.judge_estimators(r, name="O-H")
+    assert v is not None and v.level == "caution" and "largest" in v.message
+
+
+def test_damped_oscillator_auto_is_never_below_the_analytic_g():
+    # a pure damped oscillator: g from its analytic ACF; the automatic choice may be conservative, never low
+    n, omega, gamma = 100_000, 2 * np.pi / 9, 0.6
+    k = np.arange(1, 20_000)
+    g_true = 1 + 2 * _oscillator_rho(k, omega, gamma).sum()
+    x = _langevin_oscillator(n, omega, gamma, seed=5)
+    r = C.analyse_series(x, dt_ps=0.001)
+    assert r.oscillating is True
+    assert r.statistical_inefficiency >= 0.9 * g_true
+    assert r.statistical_inefficiency <= 2.0 * g_true
+
+
+@pytest.mark.parametrize("phi,tol", [(0.5, 0.07), (0.9, 0.20)])
+def test_auto_on_ar1_is_sokal_and_estimators_agree(phi, tol):
+    x = ar1(phi, 100_000, seed=3)
+    r = C.analyse_series(x, dt_ps=1.0)
+    # analytic g = (1 + phi)/(1 - phi) (Sokal 1997); no oscillation, no disagreement
+    assert r.oscillating is False and r.estimators_disagree is False
+    assert r.method.startswith("sokal")
+    assert r.statistical_inefficiency == pytest.approx((1 + phi) / (1 - phi), rel=tol)
+    assert C.statistical_inefficiency(x, method="auto") == pytest.approx(r.statistical_inefficiency)
+    v = C.judge_estimators(r)
+    assert v is not None and v.level == "ok"
+    # the standard error of Sokal's g (Madras-Sokal 1988) covers the truth within 3 errors
+    g_s, se_s = r.estimates["sokal"]
+    assert abs(g_s - (1 + phi) / (1 - phi)) < 3 * se_s
+
+
+def test_single_method_keeps_its_number_and_has_no_estimator_verdict():
+    x = ar1(0.8, 20_000, seed=9)
+    r = C.analyse_series(x, dt_ps=1.0, method="sokal")
+    assert r.method == "sokal" and r.oscillating is None
+    assert r.statistical_inefficiency == pytest.approx(C.statistical_inefficiency(x, method="sokal"))
+    assert C.judge_estimators(r) is None
