@@ -109,6 +109,9 @@ class TimestepAudit:
     power: np.ndarray
     fastest_group: str = "all atoms"  # the atom group whose spectrum holds the fastest motion
     group_wavenumbers_per_cm: dict[str, float] = field(default_factory=dict)  # fastest motion per group
+    expected: tuple[ts.ExpectedMotion, ...] = ()  # fast motions the topology and masses imply (timestep.py)
+    frame_spacing_ps: float | None = None
+    timestep_source: str = ""
 
 
 @dataclass(frozen=True)
@@ -806,6 +809,13 @@ def audit_run(
                                     group_wavenumbers_per_cm={k: c.wavenumber_per_cm for k, c in candidates.items()})
         else:
             tsa = TimestepAudit(None, None, fp.spectrum_note, np.zeros(0), np.zeros(0))
+    if run.frame_spacing_ps:  # fast motions the topology and masses imply, judged against the frames
+        known = n_constraints if n_constraints is not None else md.n_constraints
+        expected = ts.expected_fast_motions(run.topology, run.masses_amu, n_constraints=known,
+                                            rigid_pairs=None if inference is None else inference.rigid_pairs,
+                                            constraints_words=md.constraints)
+        tsa = replace(tsa or TimestepAudit(None, None, "no velocities", np.zeros(0), np.zeros(0)),
+                      expected=expected, frame_spacing_ps=float(run.frame_spacing_ps), timestep_source=dt_src)
 
     # ---- comparison run -----------------------------------------------------------------------
     compared: AuditResult | None = None
@@ -986,35 +996,13 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
                 ta.canonical_note if "not applied" in ta.canonical_note else
                 "no unconstrained species with enough decorrelated speeds (needs velocities)")
             out.append(_skipped("temperature.maxwell", "Maxwell-Boltzmann speeds", reason))
-    # time step
-    if tsa is None:
-        out.append(_skipped("timestep.fastest_period", "Time step", "no velocities: the fastest motion is unknown"))
-    elif tsa.fastest is None or tsa.check is None:
-        out.append(_skipped("timestep.fastest_period", "Time step", tsa.note))
+    # time step (verdicts made in timestep.py: resolved motions only, expected fast motions from the topology)
+    if tsa is None or tsa.frame_spacing_ps is None or (tsa.fastest is None and not tsa.expected):
+        out.append(_skipped("timestep.fastest_period", "Time step", "no velocities: the fastest motion is unknown"
+                            if tsa is None or tsa.note == "no velocities" else tsa.note))
     else:
-        c, fm = tsa.check, tsa.fastest
-        if c.steps_per_period is None:
-            out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
-                               f"fastest motion {fm.wavenumber_per_cm:.0f} cm^-1 ({fm.method}; period {c.fastest_period_ps * 1e3:.3g} fs); "
-                               f"the time step is unknown (give --timestep FS); common practice asks for at most "
-                               f"{c.recommended_max_timestep_ps * 1e3:.3g} fs", threshold=THRESHOLDS["timestep.fastest_period"]))
-        else:
-            v = judge("timestep.fastest_period", c.steps_per_period, title="Time step", unit="steps per period",
-                      message=f"dt = {c.timestep_ps * 1e3:.4g} fs ({c.timestep_source}) against the fastest period "  # type: ignore[operator]
-                              f"{c.fastest_period_ps * 1e3:.4g} fs ({fm.wavenumber_per_cm:.0f} cm^-1, {fm.method}, "
-                              f"in {tsa.fastest_group}): "
-                              f"{c.steps_per_period:.3g} steps per period, limit period/10 = "
-                              f"{c.recommended_max_timestep_ps * 1e3:.3g} fs ({_src('timestep.fastest_period')})",
-                      advice=_advice("timestep.fastest_period"))
-            out.append(v if v.level != "ok" else replace(v, advice=""))
-        msg = (f"frame spacing {c.frame_spacing_ps * 1e3:.4g} fs gives {c.frames_per_period:.3g} frames per "
-               f"fastest period seen ({_src('timestep.nyquist')})")
-        v = judge("timestep.nyquist", c.frames_per_period, title="Frame spacing vs fastest motion",
-                  unit="frames per period", message=msg, advice=_advice("timestep.nyquist"))
-        if fm.near_nyquist and v.level == "ok":
-            v = replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: a faster "
-                        "motion may be aliased")
-        out.append(v if v.level != "ok" else replace(v, advice=""))
+        out.extend(ts.timestep_verdicts(tsa.fastest, tsa.frame_spacing_ps, dt, tsa.timestep_source, tsa.expected,
+                                        group=tsa.fastest_group))
     if scaling is not None:
         dev = abs(scaling.exponent - scaling.expected_exponent)
         v = judge("timestep.scaling", dev, title="Fluctuation vs time step", unit="",

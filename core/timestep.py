@@ -51,10 +51,44 @@ register(
                "Nyquist frequency 1/(2 spacing) may be an aliased faster motion.",
         threshold="Fewer than 2 frames per period cannot resolve it (Nyquist); fewer than 4 is a caution "
                   "(common practice).",
-        advice="Save velocities more often (a short extra run is enough) to check the time step; with "
-               "coarse frames the period found here is a lower bound.",
+        advice="Save velocities more often (a short extra run is enough) to check the time step. A motion "
+               "seen in the frames lies at or below the Nyquist frequency, so the frequency found is a lower "
+               "bound on the fastest motion (its period an upper bound): coarse frames can hide a faster one.",
     ),
 )
+register(
+    Threshold("timestep.expected_motion", caution=2.0, problem=2.0, unit="frames per period",
+              source="Nyquist-Shannon sampling (at least 2 frames per period); the expected stretch and bend "
+                     "frequencies are common practice (O-H 3400-3700, N-H 3300-3500, C-H 2900-3100, "
+                     "S-H 2550-2600 cm^-1; H-X-H bends near 1600 cm^-1)",
+              higher_is_worse=False,
+              description="frames per period of the fastest motion expected from the topology and masses"),
+    Explanation(
+        title="Fast motions the frames cannot show",
+        what="Whether the frames are close enough in time to show the fast motions the topology and masses "
+             "imply: stretches of bonds to hydrogen that are not constrained, and H-X-H bends.",
+        method="Bonds to hydrogen in the topology (or, without bonds, atoms lighter than 4 amu) that are not "
+               "held rigid (metadata, the user's count, or the rigid pairs found in the positions). Their usual "
+               "stretch frequencies, scaled by the square root of the reduced-mass ratio when the masses differ "
+               "from the usual ones (heavy hydrogens), are compared with the Nyquist limit 1/(2 c spacing).",
+        threshold="Fewer than 2 frames per period of the expected motion: it cannot be seen, and any peak of the "
+                  "spectrum may be its alias (Nyquist-Shannon).",
+        advice="The time-step verdict then rests on the expected motion's period and on the energy "
+               "conservation, not on the spectrum. Save velocities every 1-2 fs in a short extra run to see "
+               "the fast motions.",
+    ),
+)
+
+# Usual stretch frequencies of bonds to hydrogen and of H-X-H bends (cm^-1): common practice
+# (infrared tables; liquid-phase O-H is broad and red-shifted from the gas-phase 3657/3756).
+XH_STRETCH_CM: dict[str, tuple[float, float]] = {
+    "O": (3400.0, 3700.0), "N": (3300.0, 3500.0), "C": (2900.0, 3100.0), "S": (2550.0, 2600.0),
+}
+XH_STRETCH_OTHER_CM = (2000.0, 3700.0)  # other or unknown partners: a wide band
+HXH_BEND_CM = (1500.0, 1700.0)
+_USUAL_H_MASS = 1.008
+_USUAL_MASS = {"O": 15.999, "N": 14.007, "C": 12.011, "S": 32.06}
+LIGHT_ATOM_AMU = 4.0  # hydrogen and deuterium, also repartitioned hydrogens (~3 amu)
 register(
     Threshold("timestep.scaling", caution=0.25, problem=0.5, unit="",
               source="second-order symplectic integrators: sigma_E proportional to dt^2 (Hairer, Lubich "
@@ -377,3 +411,267 @@ def timestep_scaling(timestep_1_ps: float, sigma_1_kJ_per_mol: float, timestep_2
                          sigma_1_kJ_per_mol=sigma_1_kJ_per_mol, sigma_2_kJ_per_mol=sigma_2_kJ_per_mol,
                          measured_ratio=r, expected_ratio=q ** order, exponent=math.log(r) / math.log(q),
                          expected_exponent=float(order), fluctuation_ratio_1=ratio_1, fluctuation_ratio_2=ratio_2)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Fast motions expected from the topology and masses, and the time-step verdicts
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ExpectedMotion:
+    """A fast motion the topology and masses imply (unconstrained bonds to hydrogen, H-X-H bends)."""
+
+    name: str  # "O-H stretch"
+    low_per_cm: float
+    high_per_cm: float
+    count: int  # bonds or angles of this kind
+    source: str  # where it was found, in words
+
+    @property
+    def shortest_period_ps(self) -> float:
+        return 1.0 / (self.high_per_cm * C_CM_PER_PS)
+
+    def words(self) -> str:
+        return f"the {self.name} near {self.low_per_cm:.0f}-{self.high_per_cm:.0f} cm^-1"
+
+
+def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraints: int | None = None,
+                          rigid_pairs: np.ndarray | None = None,
+                          constraints_words: str | None = None) -> tuple[ExpectedMotion, ...]:
+    """Fast motions the run must contain unless constrained: X-H stretches and H-X-H bends.
+
+    A bond to hydrogen counts when it is not held rigid: with ``n_constraints == 0`` none is; with
+    ``rigid_pairs`` (pairs found rigid in the positions) those are not counted; with ``constraints_words``
+    naming bonds to hydrogen (or all bonds, or rigid water for water) they are taken as constrained;
+    otherwise (unknown) they count, said in ``source``. Without topology bonds, atoms lighter than
+    ``LIGHT_ATOM_AMU`` stand for X-H bonds of unknown partner. Frequencies scale with the square root of
+    the usual over the actual reduced mass (heavy hydrogens).
+    """
+    m = np.asarray(masses_amu, dtype=float)
+    words = (constraints_words or "").lower()
+    rigid = set()
+    if rigid_pairs is not None:
+        rigid = {(int(min(a, b)), int(max(a, b))) for a, b in np.asarray(rigid_pairs).reshape(-1, 2)}
+    all_h = any(w in words for w in ("hbond", "h-bond", "bonds to h", "hydrogen", "all bonds", "allbond", "h-angle"))
+    rigid_water = "water" in words or all_h
+    if n_constraints == 0:
+        how = "not constrained (no constraints)"
+    elif rigid_pairs is not None:
+        how = "not among the rigid pairs found in the positions"
+    elif words:
+        how = f"constraints: {constraints_words}"
+    else:
+        how = "constraints unknown: assumed free"
+
+    def is_light(i: int) -> bool:
+        return 0.0 < m[i] < LIGHT_ATOM_AMU
+
+    out: list[ExpectedMotion] = []
+    bonds: list[tuple[int, int]] = []
+    if topology is not None:
+        bonds = [(int(b[0].index), int(b[1].index)) for b in topology.bonds]
+    if bonds:
+        stretch: dict[str, list[float]] = {}
+        neighbours_h: dict[int, list[int]] = {}
+        water_of: dict[int, bool] = {}
+        atoms = list(topology.atoms)
+        for a, b in bonds:
+            if a >= m.size or b >= m.size:
+                continue
+            if is_light(a) == is_light(b):
+                continue
+            h, x = (a, b) if is_light(a) else (b, a)
+            water = bool(atoms[x].residue.is_water)
+            water_of[x] = water
+            if n_constraints != 0:
+                if (min(h, x), max(h, x)) in rigid:
+                    continue
+                if rigid_pairs is None and (all_h or (water and rigid_water)):
+                    continue
+            el = atoms[x].element.symbol if atoms[x].element is not None else ""
+            lo, hi = XH_STRETCH_CM.get(el, XH_STRETCH_OTHER_CM)
+            mu0 = _USUAL_MASS.get(el, m[x]) * _USUAL_H_MASS / (_USUAL_MASS.get(el, m[x]) + _USUAL_H_MASS)
+            mu = m[x] * m[h] / (m[x] + m[h])
+            scale = math.sqrt(mu0 / mu) if mu > 0 else 1.0
+            key = f"{el or 'X'}-H stretch"
+            stretch.setdefault(key, [lo * scale, hi * scale, 0.0])
+            cur = stretch[key]
+            cur[0], cur[1], cur[2] = min(cur[0], lo * scale), max(cur[1], hi * scale), cur[2] + 1
+            neighbours_h.setdefault(x, []).append(h)
+        for key, (lo, hi, cnt) in sorted(stretch.items(), key=lambda kv: -kv[1][1]):
+            out.append(ExpectedMotion(key, lo, hi, int(cnt), f"topology: {int(cnt)} bonds, {how}"))
+        bends = sum(len(hs) * (len(hs) - 1) // 2 for hs in neighbours_h.values())
+        if bends:
+            out.append(ExpectedMotion("H-X-H bend", HXH_BEND_CM[0], HXH_BEND_CM[1], bends,
+                                      f"topology: {bends} angles between unconstrained bonds to hydrogen"))
+        return tuple(out)
+    n_light = int(np.count_nonzero((m > 0) & (m < LIGHT_ATOM_AMU)))
+    if n_light and n_constraints != 0 and not all_h:
+        mh = float(np.median(m[(m > 0) & (m < LIGHT_ATOM_AMU)]))
+        scale = math.sqrt(_USUAL_H_MASS / mh)  # X much heavier than H: the reduced mass is about m_H
+        lo, hi = XH_STRETCH_OTHER_CM
+        out.append(ExpectedMotion("X-H stretch", lo * scale, 3700.0 * scale, n_light,
+                                  f"masses: {n_light} atoms lighter than {LIGHT_ATOM_AMU:g} amu (hydrogen), "
+                                  f"bonds unknown, {how}"))
+    return tuple(out)
+
+
+def nyquist_per_cm(frame_spacing_ps: float) -> float:
+    return 1.0 / (2.0 * frame_spacing_ps * C_CM_PER_PS)
+
+
+def unresolved_motions(expected: tuple[ExpectedMotion, ...] | list[ExpectedMotion], frame_spacing_ps: float,
+                       ) -> list[ExpectedMotion]:
+    """The expected motions the frames cannot show: upper frequency at or above 0.8 of the Nyquist limit
+    (the margin of :func:`fastest_motion`'s near-Nyquist rule)."""
+    ny = nyquist_per_cm(frame_spacing_ps)
+    return [e for e in expected if e.high_per_cm >= 0.8 * ny]
+
+
+def alias_of(wavenumber_per_cm: float, frame_spacing_ps: float) -> float:
+    """Where a motion at ``wavenumber_per_cm`` appears in frames ``frame_spacing_ps`` apart (folding about
+    the Nyquist limit)."""
+    ny = nyquist_per_cm(frame_spacing_ps)
+    r = wavenumber_per_cm % (2.0 * ny)
+    return float(2.0 * ny - r if r > ny else r)
+
+
+def alias_band(motion: ExpectedMotion, frame_spacing_ps: float, margin: float = 0.05) -> list[tuple[float, float]]:
+    """Wavenumber intervals (cm^-1) where ``motion`` (its band widened by ``margin``) appears after folding."""
+    ny = nyquist_per_cm(frame_spacing_ps)
+    lo, hi = motion.low_per_cm * (1 - margin), motion.high_per_cm * (1 + margin)
+    out = []
+    k0 = int(lo // (2 * ny))
+    for k in range(k0, int(hi // (2 * ny)) + 2):
+        base = 2 * ny * k
+        for a, b, flip in ((base, base + ny, False), (base + ny, base + 2 * ny, True)):
+            x0, x1 = max(lo, a), min(hi, b)
+            if x0 < x1:
+                y0, y1 = (x0 - a, x1 - a) if not flip else (b - x1, b - x0)
+                out.append((float(y0), float(y1)))
+    return out
+
+
+@dataclass(frozen=True)
+class TimestepJudgement:
+    """What the time-step verdict rests on: the period used, why, and what the frames cannot show."""
+
+    period_ps: float | None  # the fastest period the verdict uses
+    basis: str  # words: "the spectrum's peak", "the expected O-H stretch (topology)", ...
+    upper_bound: bool  # the period is only an upper bound (fastest peak near Nyquist, nothing expected)
+    unresolved: tuple[ExpectedMotion, ...]
+    expected: tuple[ExpectedMotion, ...]
+    nyquist_per_cm: float
+    frame_spacing_ps: float
+
+
+def judge_basis(fastest: FastestMotion | None, expected: tuple[ExpectedMotion, ...] | list[ExpectedMotion],
+                frame_spacing_ps: float) -> TimestepJudgement:
+    """The fastest period to judge the time step by.
+
+    The spectrum's fastest motion counts only when it is resolved: not near the Nyquist limit, and no
+    expected fast motion lies beyond what the frames show (it could be an alias). Otherwise the period of
+    the fastest expected motion (its upper frequency: the shortest period) is used; with nothing expected
+    and a peak near Nyquist, the spectrum's period is kept as an upper bound.
+    """
+    exp = tuple(expected)
+    unres = tuple(unresolved_motions(exp, frame_spacing_ps))
+    ny = nyquist_per_cm(frame_spacing_ps)
+    if fastest is not None and not fastest.near_nyquist and not unres:
+        return TimestepJudgement(fastest.period_ps, f"the spectrum's fastest motion {fastest.wavenumber_per_cm:.0f} "
+                                 f"cm^-1 ({fastest.method})", False, unres, exp, ny, frame_spacing_ps)
+    if unres or (fastest is None and exp):
+        e = min(unres or exp, key=lambda m: m.shortest_period_ps)
+        why = ", which the frames cannot show" if unres else ""
+        return TimestepJudgement(e.shortest_period_ps, f"{e.words()} ({e.source}){why}", False, unres, exp, ny,
+                                 frame_spacing_ps)
+    if fastest is not None:
+        return TimestepJudgement(fastest.period_ps, f"the spectrum's fastest motion {fastest.wavenumber_per_cm:.0f} "
+                                 f"cm^-1 ({fastest.method}), near the Nyquist limit {ny:.0f} cm^-1: a faster motion "
+                                 "may be hidden, so this period is an upper bound", True, unres, exp, ny,
+                                 frame_spacing_ps)
+    return TimestepJudgement(None, "no fastest motion known", False, unres, exp, ny, frame_spacing_ps)
+
+
+def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, timestep_ps: float | None,
+                      timestep_source: str, expected: tuple[ExpectedMotion, ...] | list[ExpectedMotion] = (),
+                      *, group: str = "all atoms") -> list[Any]:
+    """The time-step and frame-spacing verdicts (``timestep.fastest_period``, ``timestep.nyquist``,
+    ``timestep.expected_motion``), judged on :func:`judge_basis`.
+
+    Never "ok" on a period that is only an upper bound (a peak near the Nyquist frequency, which may be an
+    alias of a faster motion): a caution at best.
+    """
+    from dataclasses import replace as _replace
+
+    from phasewake.core.verdicts import EXPLANATIONS, THRESHOLDS, Verdict, judge
+
+    def src(kind: str) -> str:
+        return THRESHOLDS[kind].source
+
+    jb = judge_basis(fastest, expected, frame_spacing_ps)
+    out: list[Any] = []
+    spacing_fs = frame_spacing_ps * 1e3
+    cant_see = "; ".join(f"{e.words()} cannot be seen at {spacing_fs:.3g} fs frames" for e in jb.unresolved)
+    # time step
+    if jb.period_ps is None:
+        out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "", "not checked: no fastest "
+                           "motion known (no velocity spectrum and no fast motion expected from the topology)",
+                           threshold=THRESHOLDS["timestep.fastest_period"]))
+    elif not timestep_ps:
+        out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
+                           f"fastest period {jb.period_ps * 1e3:.3g} fs from {jb.basis}; the time step is unknown "
+                           f"(give --timestep FS); common practice asks for at most {jb.period_ps * 1e2:.3g} fs",
+                           threshold=THRESHOLDS["timestep.fastest_period"]))
+    else:
+        spp = jb.period_ps / timestep_ps
+        bound = "at most " if jb.upper_bound else ""
+        msg = (f"dt = {timestep_ps * 1e3:.4g} fs ({timestep_source}) against the fastest period "
+               f"{jb.period_ps * 1e3:.4g} fs from {jb.basis}: {bound}{spp:.3g} steps per period, limit "
+               f"period/10 = {jb.period_ps * 1e2:.3g} fs ({src('timestep.fastest_period')})")
+        if jb.unresolved:
+            msg += (f". {cant_see[0].upper() + cant_see[1:]}: the verdict rests on the expected motion from the "
+                    "topology and masses and on the energy conservation (see its verdicts), not on the spectrum's "
+                    "peaks, which may be aliases")
+        if fastest is not None and group != "all atoms" and not jb.unresolved and not jb.upper_bound:
+            msg += f" (fastest motion in {group})"
+        v = judge("timestep.fastest_period", spp, title="Time step", unit="steps per period", message=msg,
+                  advice=EXPLANATIONS["timestep.fastest_period"].advice,
+                  details={"period_ps": jb.period_ps, "basis": jb.basis, "upper_bound": jb.upper_bound})
+        if jb.upper_bound and v.level == "ok":
+            v = _replace(v, level="caution", message=msg + "; the spectrum cannot show whether a faster motion "
+                         "exists, so 'ok' cannot be concluded")
+        out.append(v if v.level != "ok" else _replace(v, advice=""))
+    # frames against what they must show
+    if fastest is not None:
+        fpp = fastest.period_ps / frame_spacing_ps
+        msg = (f"frame spacing {spacing_fs:.4g} fs gives {fpp:.3g} frames per period of the fastest motion seen "
+               f"({fastest.wavenumber_per_cm:.0f} cm^-1; Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1). A motion seen in "
+               f"the frames is at or below the Nyquist limit, so {fastest.wavenumber_per_cm:.0f} cm^-1 is a lower bound "
+               f"on the fastest frequency and {fastest.period_ps * 1e3:.3g} fs an upper bound on the fastest period "
+               f"({src('timestep.nyquist')})")
+        v = judge("timestep.nyquist", fpp, title="Frame spacing vs fastest motion", unit="frames per period",
+                  message=msg, advice=EXPLANATIONS["timestep.nyquist"].advice)
+        if fastest.near_nyquist and v.level == "ok":
+            v = _replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: it is not "
+                         "resolved and may be an aliased faster motion")
+        out.append(v if v.level != "ok" else _replace(v, advice=""))
+    exp = jb.expected
+    if exp:
+        fastest_exp = min(exp, key=lambda e: e.shortest_period_ps)
+        fpp = fastest_exp.shortest_period_ps / frame_spacing_ps
+        if jb.unresolved:
+            msg = (f"{cant_see} (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1; {fpp:.2g} frames per "
+                   f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period); spectrum peaks may be its aliases "
+                   f"({src('timestep.expected_motion')})")
+        else:
+            msg = (f"{fastest_exp.words()} ({fastest_exp.source}) is resolved: {fpp:.3g} frames per "
+                   f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1)")
+        v = judge("timestep.expected_motion", fpp, title="Frames vs expected fast motions", unit="frames per period",
+                  message=msg, advice=EXPLANATIONS["timestep.expected_motion"].advice,
+                  details={"unresolved": [e.name for e in jb.unresolved]})
+        if jb.unresolved and v.level == "ok":  # between 0.8 and 1 of Nyquist: not resolved either
+            v = _replace(v, level="caution")
+        out.append(v if v.level != "ok" else _replace(v, advice=""))
+    return out

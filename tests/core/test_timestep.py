@@ -124,3 +124,148 @@ def test_few_fast_atoms_are_not_drowned_by_many_slow_ones():
     # period 11.1 fs at dt = 2 fs: 5.6 steps per period -> caution (common practice: >= 10)
     v_ts = {x.kind: x for x in res.verdicts}["timestep.fastest_period"]
     assert v_ts.level == "caution"
+
+
+# --- coarse frames: only resolved motions count; expected fast motions from the topology and masses ---
+
+def _water_topology(n_waters: int, *, bonds: bool = True):
+    import mdtraj as md
+
+    top = md.Topology()
+    chain = top.add_chain()
+    for _ in range(n_waters):
+        r = top.add_residue("HOH", chain)
+        o = top.add_atom("O", md.element.oxygen, r)
+        h1 = top.add_atom("H1", md.element.hydrogen, r)
+        h2 = top.add_atom("H2", md.element.hydrogen, r)
+        if bonds:
+            top.add_bond(o, h1)
+            top.add_bond(o, h2)
+    return top
+
+
+def test_expected_motions_of_flexible_and_rigid_water():
+    top = _water_topology(4)
+    m = np.tile([15.999, 1.008, 1.008], 4)
+    flex = ts.expected_fast_motions(top, m, n_constraints=0)
+    names = [e.name for e in flex]
+    assert names[0] == "O-H stretch" and "H-X-H bend" in names
+    oh = flex[0]
+    # common practice O-H stretch 3400-3700 cm^-1; period of 3700 cm^-1 = 1/(c nu) = 9.01 fs (REFERENCES §1.4)
+    assert (oh.low_per_cm, oh.high_per_cm) == (3400.0, 3700.0) and oh.count == 8
+    assert oh.shortest_period_ps * 1e3 == pytest.approx(1e15 / (3700 * C_CM_PER_S), rel=1e-9)
+    # rigid water: nothing fast is left, whether the metadata says so or the positions show it
+    assert ts.expected_fast_motions(top, m, n_constraints=12, constraints_words="rigid water") == ()
+    rigid = np.array([[3 * k, 3 * k + j] for k in range(4) for j in (1, 2)])
+    assert ts.expected_fast_motions(top, m, n_constraints=12, rigid_pairs=rigid) == ()
+
+
+def test_heavy_hydrogens_scale_the_stretch_by_the_reduced_mass():
+    # harmonic frequency ~ 1/sqrt(mu): hydrogen mass 3.024 amu (repartitioned) lowers the O-H band by
+    # sqrt(mu(16, 1.008) / mu(16, 3.024)) (analytic)
+    top = _water_topology(1)
+    mu = lambda a, b: a * b / (a + b)  # noqa: E731
+    e = ts.expected_fast_motions(top, np.array([15.999, 3.024, 3.024]), n_constraints=0)[0]
+    assert e.high_per_cm == pytest.approx(3700 * np.sqrt(mu(15.999, 1.008) / mu(15.999, 3.024)), rel=1e-9)
+
+
+def test_light_atoms_without_bonds_still_expect_an_xh_stretch():
+    m = np.tile([15.999, 1.008, 1.008], 3)
+    e = ts.expected_fast_motions(None, m)
+    assert len(e) == 1 and e[0].name == "X-H stretch" and "lighter than" in e[0].source
+    assert ts.expected_fast_motions(None, np.full(5, 39.948)) == ()
+
+
+def test_alias_folds_about_nyquist_like_the_sampled_spectrum():
+    # a 3657 cm^-1 motion (REFERENCES §9) seen in frames 10 fs apart: Nyquist 1668 cm^-1 (REFERENCES §4.3);
+    # the sampled cosine's spectrum (same estimator as scipy.signal.welch, tested above) peaks at the folded
+    # frequency |3657 - 2 x 1667.8| = 321.4 cm^-1 (sampling theorem, analytic)
+    dt = 0.010
+    t, v, m = oscillating_atoms([3657.0], [1.0], [1.0], dt, 4096)
+    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=1024))
+    ny = 1 / (2 * dt * 1e-12 * C_CM_PER_S)
+    assert ts.alias_of(3657.0, dt) == pytest.approx(abs(3657.0 - 2 * ny), rel=1e-12)
+    assert fm.wavenumber_per_cm == pytest.approx(ts.alias_of(3657.0, dt), abs=fm.resolution_per_ps / (C_CM_PER_S * 1e-12))
+    band = ts.alias_band(ts.ExpectedMotion("O-H stretch", 3400.0, 3700.0, 1, "test"), dt)
+    assert any(lo <= fm.wavenumber_per_cm <= hi for lo, hi in band)
+
+
+def test_peak_at_nyquist_is_never_ok():
+    # issue: a peak at the Nyquist frequency gave "100 steps per period, ok". Frames 5 fs apart, a motion
+    # at 0.95 x Nyquist (3169 cm^-1), time step 0.1 fs: the period seen is only an upper bound.
+    dt = 0.005
+    ny = 1 / (2 * dt * 1e-12 * C_CM_PER_S)
+    t, v, m = oscillating_atoms([0.95 * ny], [1.0], [12.0], dt, 2048)
+    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=512))
+    assert fm.near_nyquist
+    out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.0001, "user")}
+    assert out["timestep.fastest_period"].level == "caution"
+    assert "at most" in out["timestep.fastest_period"].message
+    assert out["timestep.nyquist"].level != "ok"
+    # the advice no longer swaps the bounds: the frequency found is a lower bound, the period an upper bound
+    assert "lower bound on the fastest frequency" in out["timestep.nyquist"].message
+    assert "upper bound on the fastest period" in out["timestep.nyquist"].message
+
+
+def test_unresolved_oh_stretch_decides_the_time_step_not_its_alias():
+    # flexible water frames 10 fs apart: the spectrum's top peak (an alias near 321 cm^-1) would allow a
+    # 3 fs step; the O-H stretch from the topology (period 9.0 fs: limit 0.9 fs, common practice) does not.
+    dt = 0.010
+    t, v, m = oscillating_atoms([3657.0], [1.0], [1.0], dt, 4096)
+    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=1024))
+    top = _water_topology(2)
+    exp = ts.expected_fast_motions(top, np.tile([15.999, 1.008, 1.008], 2), n_constraints=0)
+    out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.003, "user (--timestep)", exp)}
+    step = out["timestep.fastest_period"]
+    assert step.level == "problem" and step.measured == pytest.approx(9.01 / 3, rel=0.01)
+    assert "the O-H stretch near 3400-3700 cm^-1 cannot be seen at 10 fs frames" in out["timestep.expected_motion"].message
+    assert out["timestep.expected_motion"].level == "problem"
+    # with a 0.5 fs step (common practice for flexible X-H) the same frames give 18 steps per period: ok
+    ok = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.0005, "user", exp)}
+    assert ok["timestep.fastest_period"].level == "ok"
+
+
+# --- a real flexible-water run made with OpenMM (PyPI) ---
+
+@pytest.fixture(scope="module")
+def flexible_water(tmp_path_factory):
+    pytest.importorskip("openmm")
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from flexible_water import flexible_water_files
+
+    return flexible_water_files(tmp_path_factory.mktemp("flexwater"))
+
+
+@pytest.mark.slow
+def test_flexible_water_1fs_vdos_top_peak_is_the_oh_stretch(flexible_water):
+    from phasewake.core.progress import result_of
+    from phasewake.core.readers import open_run
+    from phasewake.core.velocity import vibrational_spectrum
+
+    run = open_run([flexible_water[0]])
+    s = result_of(vibrational_spectrum(run))
+    # the top (highest-frequency) significant peak is the O-H stretch of flexible TIP3P, in 3000-4000 cm^-1
+    # (the issue's check; gas-phase fundamentals 3657/3756 cm^-1, REFERENCES §9)
+    assert s.highest_significant_peak_cm1 is not None and 3000 < s.highest_significant_peak_cm1 < 4000
+    assert not any("cannot be seen" in n for n in s.notes)
+
+
+@pytest.mark.slow
+def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(flexible_water):
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import result_of
+    from phasewake.core.readers import open_run
+
+    res = result_of(audit_run(open_run([flexible_water[1]]), timestep_ps=0.003))
+    v = {x.kind: x for x in res.verdicts}
+    assert v["timestep.fastest_period"].level == "problem"  # limit ~0.9 fs (period of 3700 cm^-1 / 10)
+    assert "O-H stretch near 3400-3700 cm^-1 cannot be seen at 10 fs frames" in v["timestep.expected_motion"].message
+    # the 1 fs frames of the same run resolve it, and the verdict then uses the measured peak
+    res1 = result_of(audit_run(open_run([flexible_water[0]]), timestep_ps=0.003))
+    v1 = {x.kind: x for x in res1.verdicts}
+    assert v1["timestep.fastest_period"].level == "problem"
+    assert "spectrum's fastest motion" in v1["timestep.fastest_period"].message
+    assert v1["timestep.expected_motion"].level == "ok"
