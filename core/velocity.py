@@ -873,6 +873,7 @@ class Peak:
     thz: float
     intensity: float  # per cm^-1
     prominence: float  # fraction of the highest peak
+    not_a_motion: str = ""  # why the peak is not counted as a motion (may be an alias, near Nyquist); "" if it is
 
 
 @dataclass(frozen=True)
@@ -899,6 +900,12 @@ class VDOSResult:
     velocities_estimated: bool
     settings: dict[str, Any] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    unresolved_motions: tuple[str, ...] = ()  # expected fast motions the frames cannot show, in words
+
+    @property
+    def motions(self) -> tuple[Peak, ...]:
+        """The peaks counted as motions (resolved, not possible aliases)."""
+        return tuple(p for p in self.peaks if not p.not_a_motion)
 
     @property
     def intensity_unit(self) -> str:
@@ -1019,4 +1026,55 @@ def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray |
     out = vdos_from_vacf(res.lag_ps, res.vacf_sum[0], n_dof=3.0 * idx.size if n_dof is None else n_dof,
                          window=window, peak_prominence=peak_prominence,
                          velocities_estimated=res.velocities_estimated, notes=res.notes)
-    return out
+    return judge_peaks(out, _expected_motions(run, idx))
+
+
+def _expected_motions(run: Run, idx: np.ndarray) -> tuple[Any, ...]:
+    """Fast motions the topology and masses of the atoms used imply (timestep.expected_fast_motions)."""
+    from phasewake.core.timestep import expected_fast_motions
+
+    md = run.metadata
+    top = run.topology
+    if top is not None and idx.size != run.n_atoms:
+        top = top.subset(idx)
+    return expected_fast_motions(top, np.asarray(run.masses_amu)[idx], n_constraints=md.n_constraints,
+                                 constraints_words=md.constraints)
+
+
+def judge_peaks(result: VDOSResult, expected: Sequence[Any] = ()) -> VDOSResult:
+    """The spectrum with every peak that is not a resolved motion marked (``Peak.not_a_motion``).
+
+    A peak is only a motion when the frames resolve it: peaks in the top 20% below the Nyquist limit may
+    be aliases of faster motions, and when a fast motion expected from the topology and masses
+    (:func:`phasewake.core.timestep.expected_fast_motions`) lies beyond what the frames show, peaks where
+    its band folds to (Nyquist-Shannon) may be its aliases. ``highest_significant_peak_cm1`` then counts
+    motions only, and a note says in words what cannot be seen.
+    """
+    import dataclasses
+
+    from phasewake.core.timestep import alias_band, unresolved_motions
+
+    dt = result.dt_ps
+    ny = result.nyquist_cm1
+    unres = unresolved_motions(list(expected), dt)
+    peaks = []
+    for p in result.peaks:
+        why = ""
+        hits = [e for e in unres if any(lo <= p.wavenumber_cm1 <= hi for lo, hi in alias_band(e, dt))]
+        if hits:
+            why = "may be an alias of " + " or ".join(e.words() for e in hits)
+        elif p.wavenumber_cm1 >= 0.8 * ny:
+            why = f"near the Nyquist limit {ny:.0f} cm^-1: not resolved, may be an alias of a faster motion"
+        peaks.append(dataclasses.replace(p, not_a_motion=why))
+    motions = [p for p in peaks if not p.not_a_motion]
+    notes = list(result.notes)
+    spacing_fs = dt * 1e3
+    for e in unres:
+        aliased = [p for p in peaks if e.words() in p.not_a_motion]
+        where = (", ".join(f"{p.wavenumber_cm1:.0f}" for p in aliased) + " cm^-1") if aliased else ""
+        notes.append(f"{e.words()} cannot be seen at {spacing_fs:.3g} fs frames (Nyquist limit {ny:.0f} cm^-1; "
+                     f"{e.source})" + (f": the peaks at {where} may be its aliases and are not counted as motions"
+                                       if where else ""))
+    return dataclasses.replace(result, peaks=tuple(peaks),
+                               highest_significant_peak_cm1=motions[-1].wavenumber_cm1 if motions else None,
+                               notes=tuple(notes), unresolved_motions=tuple(e.words() for e in unres))

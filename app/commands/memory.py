@@ -31,7 +31,8 @@ Series analysis (``--series`` for a column of the energy table, by name or role 
   across the run and its replicas for the same series.
 
 With no series, coordinate or velocity option, every energy-table column is summarised (or, for a run
-without energies, the default first coordinate).
+without energies, the coordinate chosen automatically, with the reason shown: never a stiff bond or a
+constant; a pure liquid has no obvious reaction coordinate and asks for one).
 
 Velocity analysis (needs velocities, stored or estimated by the reader):
 
@@ -159,15 +160,22 @@ def _time_step(time_ps: np.ndarray, what: str) -> float:
 def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
     """name, unit, values, dt_ps, source of every series asked for."""
     out: list[dict[str, Any]] = []
+    reasons: dict[str, str] = {}  # spec -> why it was chosen (automatic default only)
     names = list(args.series)
     velocity_mode = args.vacf or args.msd or args.spectrum or args.tm
     if not names and not args.coordinate and not velocity_mode:
         if run.energies is not None and run.energies.series:
             names = [k for k, s in run.energies.series.items() if s.role not in _SKIP_ROLES]
         else:
-            from phasewake.core.coordinates import default_coordinates
+            from phasewake.core.coordinate_choice import choose_coordinate
+            from phasewake.core.errors import MissingDataError
 
-            args.coordinate = default_coordinates(run)
+            choice = choose_coordinate(run)
+            if choice.spec is None:
+                raise MissingDataError(f"the run has no energy table, and {choice.reason}",
+                                       path=run.paths[0] if run.paths else None)
+            args.coordinate = [choice.spec]
+            reasons[choice.spec] = choice.reason
     sl = slice(args.start, args.stop)
     for nm in names:
         s = _find_series(run, nm)
@@ -182,8 +190,9 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
         series = run_with_progress(compute_coordinates(run, args.coordinate, start=args.start, stop=args.stop),
                                    "coordinates")
         for c in series:
+            src = f"{c.spec}, {reasons[c.spec]}" if c.spec in reasons else c.spec
             out.append({"name": c.label, "unit": c.unit, "values": np.asarray(c.values, float),
-                        "time_ps": np.asarray(c.time_ps, float), "source": c.spec, "kind": "coordinate",
+                        "time_ps": np.asarray(c.time_ps, float), "source": src, "kind": "coordinate",
                         "momentum": None if c.momentum is None else np.asarray(c.momentum, float),
                         "momentum_unit": c.momentum_unit, "periodic": bool(c.periodic)})
     return out
@@ -493,12 +502,21 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         s = vel["spectrum"]
         w(f"\n  vibrational density of states: resolution {_g(s.resolution_cm1)} cm^-1, Nyquist limit "
           f"{_g(s.nyquist_cm1)} cm^-1, {s.window} lag window of {_g(s.max_lag_ps)} ps\n")
-        if s.peaks:
-            for p in s.peaks:
-                w(f"    peak {p.wavenumber_cm1:9.1f} cm^-1 = {p.thz:7.3f} THz   relative prominence {p.prominence:.2f}\n")
-            w(f"    highest significant peak {s.highest_significant_peak_cm1:.1f} cm^-1\n")
-        else:
+        motions = [p for p in s.peaks if not getattr(p, "not_a_motion", "")]
+        others = [p for p in s.peaks if getattr(p, "not_a_motion", "")]
+        for p in motions:
+            w(f"    peak {p.wavenumber_cm1:9.1f} cm^-1 = {p.thz:7.3f} THz   relative prominence {p.prominence:.2f}\n")
+        if s.highest_significant_peak_cm1 is not None:
+            w(f"    highest significant peak {s.highest_significant_peak_cm1:.1f} cm^-1 (resolved motions only)\n")
+        elif not others:
             w("    no significant peak\n")
+        else:
+            w("    no peak is a resolved motion\n")
+        if others:
+            w("    not counted as motions:\n")
+            for p in others:
+                w(wrap.fill(f"{p.wavenumber_cm1:.1f} cm^-1 (relative prominence {p.prominence:.2f}): "
+                            f"{p.not_a_motion}") + "\n")
         w(f"    99% of the spectral weight lies below {s.upper_wavenumber_cm1:.1f} cm^-1\n")
         for n in s.notes:
             w(wrap.fill(f"note: {n}") + "\n")
