@@ -393,30 +393,16 @@ def solute_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
 
 
 def default_coordinates(run: Run) -> list[str]:
-    """A sensible first coordinate to show for a run.
+    """The default coordinate of a run as a list of zero or one spec.
 
-    The first bond between two non-solvent atoms when the topology has bonds; else the first two
-    atoms of the first non-solvent residue with two or more atoms; else ``distance(0, 1)``; and
-    ``x(0)`` for a one-atom run.
+    Chosen by :func:`phasewake.core.coordinate_choice.choose_coordinate` (one rule for every caller;
+    never a stiff bond or a constant; empty for a pure liquid). Use that function to get the reason,
+    which every output shows ("chosen automatically: ...").
     """
-    top = run.topology
-    n = run.n_atoms
-    if n < 2:
-        return ["x(0)"]
-    if top is not None:
-        solvent = set(solvent_atoms(top, n).tolist())
-        for bond in top.bonds:
-            a, b = bond[0].index, bond[1].index
-            if a not in solvent and b not in solvent and a < n and b < n:
-                return [f"distance({min(a, b)}, {max(a, b)})"]
-        for res in top.residues:
-            atoms = [a.index for a in res.atoms if a.index not in solvent]
-            if len(atoms) >= 2:
-                return [f"distance({atoms[0]}, {atoms[1]})"]
-        solute = solute_atoms(top, n)
-        if solute.size >= 2:
-            return [f"distance({int(solute[0])}, {int(solute[1])})"]
-    return ["distance(0, 1)"]
+    from phasewake.core.coordinate_choice import choose_coordinate
+
+    choice = choose_coordinate(run)
+    return [] if choice.spec is None else [choice.spec]
 
 
 def resolve_for_run(spec: str | CoordinateDef, run: Run) -> ResolvedCoordinate:

@@ -65,6 +65,7 @@ from phasewake.core.rates import (
 )
 from phasewake.core.verdicts import (
     HEURISTIC_NOTE,
+    THRESHOLDS,
     Explanation,
     Threshold,
     Verdict,
@@ -113,6 +114,44 @@ register(
         advice="Non-exponential dwells suggest hidden intermediate states, a poor reaction coordinate, "
                "core sets too close to the barrier, or a run barely longer than the dwells (completed "
                "dwells are then biased short). Try other core boundaries or another coordinate.",
+    ),
+)
+register(
+    Threshold(
+        kind="crossings.barrier", caution=1.0, problem=1.0, unit="kT", higher_is_worse=False,
+        source="common practice: a dip of less than about 1 kT in -kT ln P(q) is within thermal noise, "
+               "not two states",
+        description="highest barrier of the coordinate's free-energy profile, seen from both sides",
+    ),
+    Explanation(
+        title="A barrier to define states",
+        what="Whether the coordinate's distribution has two states separated by a barrier, so that "
+             "crossings between them mean something.",
+        method="The free-energy profile -kT ln P(q) (histogram, minima closer than 0.5 kT merged); the "
+               "barrier highest from both sides.",
+        threshold="States are only suggested over a barrier of at least 1 kT (common practice); below it the "
+                  "crossings would count noise, and no states are defined.",
+        advice="Choose a coordinate that separates the states of your process, or give the states "
+               "yourself (--states) if you know them from elsewhere.",
+    ),
+)
+register(
+    Threshold(
+        kind="crossings.constant", caution=1e-3, problem=1e-3, unit="relative standard deviation",
+        higher_is_worse=False,
+        source="the rigid-pair criterion of the constraint inference (relative spread 1e-3: constraint "
+               "solvers hold bonds to 1e-4 or better; float32 round-off is 6e-8)",
+        description="spread of the coordinate relative to its mean below which it is constant",
+    ),
+    Explanation(
+        title="A coordinate that moves",
+        what="Whether the coordinate changes at all beyond constraint tolerance and round-off.",
+        method="Standard deviation of the coordinate over all frames against its mean magnitude "
+               "(and an absolute floor of 1e-6 of its unit).",
+        threshold="Below a relative 1e-3 the coordinate is constant (a constrained bond, a rigid "
+                  "molecule); its crossings would be round-off noise and are refused.",
+        advice="Choose a coordinate that moves: for a rigid molecule a distance between molecules, an "
+               "angle, or a principal component.",
     ),
 )
 register(
@@ -933,10 +972,14 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
         h = min(bar.height_from_left_kJ_per_mol, bar.height_from_right_kJ_per_mol) / kt
         if math.isfinite(h) and (best is None or h > best[0]):
             best = (h, bar)
-    if best is None or best[0] < 0.5:
+    need = THRESHOLDS["crossings.barrier"].caution
+    if best is None or best[0] < need:
+        seen = "no barrier at all" if best is None else f"its highest barrier is {best[0]:.2f} kT"
         raise AnalysisError(
-            "the free-energy profile of the coordinate shows no two minima separated by a barrier of at "
-            "least 0.5 kT; give the states (--states A_HI,B_LO) and the surface yourself"
+            f"no states defined: the free-energy profile of the coordinate shows no two minima separated by a "
+            f"barrier of at least {need:g} kT ({seen}; {THRESHOLDS['crossings.barrier'].source}); crossings there "
+            "would count noise. Choose a coordinate with a barrier, or give the states (--states A_HI,B_LO) "
+            "and the surface yourself"
         )
     bar = best[1]
     f = np.where(np.isfinite(prof.free_energy_kT), prof.free_energy_kT, np.inf)
@@ -969,6 +1012,37 @@ def _spread_blocks(x: np.ndarray, fraction: float, n_blocks: int = 200) -> np.nd
     length = max(1, int(n * fraction / n_blocks))
     starts = np.linspace(0, n - length, n_blocks).astype(np.int64)
     return np.concatenate([x[a:a + length] for a in starts])
+
+
+def _check_moves(traces: Sequence[Trace], unit: str) -> None:
+    """Refuse a coordinate that is constant to constraint tolerance or round-off (``crossings.constant``):
+    its 'crossings' would be the noise of a rigid bond."""
+    n = 0
+    s1 = 0.0
+    s2 = 0.0
+    shift = 0.0
+    for tr in traces:
+        v = np.asarray(tr.values, dtype=float)
+        v = v[np.isfinite(v)]
+        if v.size:
+            c = float(v[0])
+            n += v.size
+            s1 += float(np.sum(v - c))
+            s2 += float(np.sum((v - c) ** 2))
+            shift = c
+    if n < 2:
+        return
+    mean_d = s1 / n
+    std = math.sqrt(max(s2 / n - mean_d * mean_d, 0.0))
+    mean = shift + mean_d
+    rel_limit = THRESHOLDS["crossings.constant"].caution
+    if std <= max(rel_limit * abs(mean), 1e-6):
+        u = f" {unit}" if unit else ""
+        raise AnalysisError(
+            f"the coordinate is constant: standard deviation {std:.3g}{u} around {mean:.6g}{u} (relative "
+            f"{std / abs(mean) if mean else float('inf'):.2g}, below {rel_limit:g}); a constrained bond or a rigid "
+            "molecule. Its crossings would be round-off noise: choose a coordinate that moves"
+        )
 
 
 def _check_traces(traces: Sequence[Trace]) -> None:
@@ -1057,6 +1131,7 @@ def crossings_work(
     """
     trs = [as_trace(x) for x in traces]
     _check_traces(trs)
+    _check_moves(trs, unit)
     total = float(len(trs) * 2 + 2)
     yield Progress(0, total, "crossings: checking states")
     suggestion: StateSuggestion | None = None
@@ -1389,6 +1464,35 @@ def analyse_crossings(time_ps: np.ndarray, q: np.ndarray, qdot: np.ndarray | Non
 MOLAR_GAS_CONSTANT_KJ_PER_MOL_K = 0.00831446261815324  # k_B N_A (CODATA 2018, exact)
 
 
+def check_not_stiff_bond(coordinate: str, run: Run, values: Sequence[np.ndarray], unit: str) -> None:
+    """Refuse to suggest states on a distance that only vibrates about one length (a covalent bond):
+    two peaks of its histogram are the turning points of the vibration (in a run without a thermostat a
+    single bond keeps its energy for a long time), not two states. ``coordinate.stiff_pair``."""
+    from phasewake.core.coordinate_choice import THRESHOLDS as _T  # registers coordinate.stiff_pair
+    from phasewake.core.coordinates import resolve_for_run
+    from phasewake.core.errors import PhasewakeError
+
+    try:
+        fn = resolve_for_run(coordinate, run).function
+    except PhasewakeError:
+        return
+    if fn != "distance":
+        return
+    v = np.concatenate([np.asarray(x, dtype=float).ravel() for x in values])
+    v = v[np.isfinite(v)]
+    if v.size < 2 or not float(np.mean(v)) > 0:
+        return
+    rel = float(np.std(v) / np.mean(v))
+    stiff = _T["coordinate.stiff_pair"].caution
+    if rel < stiff:
+        raise AnalysisError(
+            f"no states defined: {coordinate} only vibrates about {float(np.mean(v)):.4g} {unit} (relative spread "
+            f"{rel:.3g}, below the {stiff:g} of a stiff bond: {_T['coordinate.stiff_pair'].source}); any two peaks "
+            "of its histogram are the turning points of the vibration, not states. Choose a coordinate that "
+            "changes between states, or give the states (--states A_HI,B_LO) yourself"
+        )
+
+
 def crossings_of_runs(
     runs: Run | Sequence[Run],
     coordinate: str,
@@ -1428,6 +1532,8 @@ def crossings_of_runs(
         kt = MOLAR_GAS_CONSTANT_KJ_PER_MOL_K * float(temp)
         kt_m = float(kt * np.mean(1.0 / np.concatenate([s.m_eff for s in series])))
     traces = [as_trace(s, name=run.name) for s, run in zip(series, run_list)]
+    if states is None:
+        check_not_stiff_bond(coordinate, run_list[0], [s.values for s in series], s0.unit)
     inner = crossings_work(traces, states=states, surface=surface, unit=s0.unit, confidence=confidence,
                            kappa_window_ps=kappa_window_ps, temperature_K=temp, kT_over_m_eff=kt_m)
     try:

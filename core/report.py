@@ -189,7 +189,8 @@ def build_report(
 
     # 0. one read of the frames feeds the audit, the coordinate and the principal components ----------
     audit_kw = {"n_constraints": n_constraints, "timestep_ps": timestep_ps, "temperature_K": temperature_K}
-    spec0 = _report_coordinate(run, coordinate)
+    spec0, spec0_reason = _report_coordinate(run, coordinate)
+    settings["coordinate_reason"] = spec0_reason
     shared = yield from _sub(_shared_pass(run, spec0, audit_kw, cache), 0, total, "one pass over the frames")
 
     # 1. audit ------------------------------------------------------------------------------------
@@ -220,7 +221,8 @@ def build_report(
         try:
             spec = spec0
             if spec is None:
-                coord_reason = "no coordinate was given and none could be suggested (use --coordinate)"
+                coord_reason = ("no coordinate was given and " + (spec0_reason or "none could be suggested")
+                                + ("" if "--coordinate" in spec0_reason else " (use --coordinate)"))
             else:
                 settings["coordinate"] = spec
                 out = yield from _sub(_or_alone(shared, "coordinate",
@@ -239,6 +241,9 @@ def build_report(
             cross_reason = "the crossings module is not part of this build"
         else:
             try:
+                if states is None and settings.get("coordinate") and hasattr(cross_mod, "check_not_stiff_bond"):
+                    cross_mod.check_not_stiff_bond(str(settings["coordinate"]), run, [np.asarray(series.values)],
+                                                   series.unit)
                 crossings = cross_mod.analyse_crossings(
                     np.asarray(series.time_ps), np.asarray(series.values),
                     None if series.velocity is None else np.asarray(series.velocity),
@@ -291,7 +296,9 @@ def build_report(
         both = FigureSpec(key="report.coordinate", title=f"{series.label}: time series and phase portrait",
                           plots=f1.plots + f2.plots, grid=(1, 2), caption=f1.caption + " " + f2.caption,
                           provenance={"parts": [f1.key, f2.key]})
-        pages.append(ReportPage("coordinate", SECTION_TITLES["coordinate"], figure=both, caption=both.caption))
+        cap = both.caption if not spec0_reason or coordinate is not None else (
+            f"Coordinate {series.label}, {spec0_reason}. " + both.caption)
+        pages.append(ReportPage("coordinate", SECTION_TITLES["coordinate"], figure=both, caption=cap))
     else:
         skip("coordinate", coord_reason)
 
@@ -400,7 +407,8 @@ def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mappi
             if v]
     if meta:
         lines.append("Metadata: " + ", ".join(meta))
-    lines.append("Coordinate analysed: " + str(settings.get("coordinate") or "none"))
+    why = settings.get("coordinate_reason") or ""
+    lines.append("Coordinate analysed: " + str(settings.get("coordinate") or "none") + (f" ({why})" if why else ""))
     if run.warnings:
         lines.append("Reader warnings: " + " ".join(run.warnings))
     if audit is not None and audit.notes:
@@ -478,15 +486,17 @@ def _explained(page: ReportPage) -> ReportPage:
 PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
 
 
-def _report_coordinate(run: Run, coordinate: str | None) -> str | None:
-    """The report's coordinate: the one given, else the coordinate module's first suggestion (or None)."""
-    coords = _optional("phasewake.core.coordinates")
-    if coordinate is not None or coords is None or run.frames is None:
-        return coordinate
+def _report_coordinate(run: Run, coordinate: str | None) -> tuple[str | None, str]:
+    """The report's coordinate and why: the one given (reason ""), else the automatic choice of
+    :func:`phasewake.core.coordinate_choice.choose_coordinate` with its reason (spec None for a pure liquid)."""
+    chooser = _optional("phasewake.core.coordinate_choice")
+    if coordinate is not None or chooser is None or run.frames is None:
+        return coordinate, ""
     try:
-        return (coords.default_coordinates(run) or [None])[0]
-    except PhasewakeError:
-        return None
+        choice = chooser.choose_coordinate(run)
+    except PhasewakeError as exc:
+        return None, f"no coordinate could be chosen automatically: {exc}"
+    return choice.spec, choice.reason
 
 
 def _pca_request(run: Run) -> dict[str, Any] | None:

@@ -112,14 +112,20 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
     """Compute everything; returns (name, unit, values) columns, the time axis and a summary."""
     from phasewake.core.cache import ResultCache
     from phasewake.core.cached import cached_coordinates
-    from phasewake.core.coordinates import default_coordinates
     from phasewake.core.errors import InputError
 
     specs = list(args.coordinate)
     summary: dict[str, Any] = {"run": run.name, "files": [str(p) for p in run.paths], "coordinates": []}
     if not specs and args.pca is None:
-        specs = default_coordinates(run)
+        from phasewake.core.coordinate_choice import choose_coordinate
+        from phasewake.core.errors import MissingDataError
+
+        choice = choose_coordinate(run)
+        if choice.spec is None:
+            raise MissingDataError(choice.reason, path=run.paths[0] if run.paths else None)
+        specs = [choice.spec]
         summary["default_coordinate"] = True
+        summary["default_coordinate_reason"] = choice.reason
     if args.output is not None:
         out = Path(args.output).resolve()
         for p in run.paths:
@@ -183,7 +189,7 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
 def _write_csv(stream: Any, cols: list[tuple[str, str, np.ndarray]], time: np.ndarray, summary: dict) -> None:
     stream.write(f"# phasewake coords: {summary['run']}\n")
     if summary.get("default_coordinate"):
-        stream.write("# no --coordinate given: showing the default first coordinate of this run\n")
+        stream.write(f"# no --coordinate given: {summary.get('default_coordinate_reason', 'the default coordinate')}\n")
     writer = csv.writer(stream, lineterminator="\n")
     writer.writerow(["time [ps]"] + [f"{n} [{u}]" if u and u != "1" else n for n, u, _ in cols])
     data = np.column_stack([time] + [c for _, _, c in cols])

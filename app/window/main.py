@@ -354,22 +354,26 @@ class MainWindow(QtWidgets.QMainWindow):
             return
         self.setWindowTitle(f"phasewake \u2014 {e.label}")
         if not self.model.coordinate and e.run.frames is not None:
-            self.model.set_coordinate(self._default_coordinate(e.run))
+            spec, reason = self._default_coordinate(e.run)
+            self.model.set_coordinate(spec)
+            if reason:
+                self.say(f"Coordinate {spec}: {reason}" if spec else reason[0].upper() + reason[1:])
         self.schedule_recompute()
 
     @staticmethod
-    def _default_coordinate(run: Run) -> str:
+    def _default_coordinate(run: Run) -> tuple[str, str]:
+        """The automatic coordinate and its reason (core.coordinate_choice: one rule for every caller)."""
         from phasewake.app.window.analyses import module_or_none
         from phasewake.core.errors import PhasewakeError
 
-        coords = module_or_none("coordinates")
-        if coords is None or not hasattr(coords, "default_coordinates"):
-            return ""
+        chooser = module_or_none("coordinate_choice")
+        if chooser is None or not hasattr(chooser, "choose_coordinate"):
+            return "", ""
         try:
-            specs = coords.default_coordinates(run)
+            choice = chooser.choose_coordinate(run)
         except PhasewakeError:
-            return ""
-        return specs[0] if specs else ""
+            return "", ""
+        return choice.spec or "", choice.reason
 
     def _runs_changed(self) -> None:
         # the Sampling panel compares the current run with the others (R-hat across replicas)
