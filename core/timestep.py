@@ -537,13 +537,19 @@ def alias_of(wavenumber_per_cm: float, frame_spacing_ps: float) -> float:
     return float(2.0 * ny - r if r > ny else r)
 
 
-def alias_band(motion: ExpectedMotion, frame_spacing_ps: float, margin: float = 0.05) -> list[tuple[float, float]]:
-    """Wavenumber intervals (cm^-1) where ``motion`` (its band widened by ``margin``) appears after folding."""
+def alias_band(motion: ExpectedMotion, frame_spacing_ps: float, margin: float = 0.05, *,
+               low_per_cm: float | None = None) -> list[tuple[float, float]]:
+    """Wavenumber intervals (cm^-1) where the part of ``motion``'s band (widened by ``margin``; from
+    ``low_per_cm`` when given) above the Nyquist limit appears after folding. The part below the limit is
+    the motion itself, not an alias."""
     ny = nyquist_per_cm(frame_spacing_ps)
-    lo, hi = motion.low_per_cm * (1 - margin), motion.high_per_cm * (1 + margin)
-    out = []
-    k0 = int(lo // (2 * ny))
-    for k in range(k0, int(hi // (2 * ny)) + 2):
+    lo = (motion.low_per_cm if low_per_cm is None else low_per_cm) * (1 - margin)
+    hi = motion.high_per_cm * (1 + margin)
+    lo = max(lo, ny)
+    out: list[tuple[float, float]] = []
+    if not lo < hi:
+        return out
+    for k in range(int(lo // (2 * ny)), int(hi // (2 * ny)) + 2):
         base = 2 * ny * k
         for a, b, flip in ((base, base + ny, False), (base + ny, base + 2 * ny, True)):
             x0, x1 = max(lo, a), min(hi, b)

@@ -1052,17 +1052,25 @@ def judge_peaks(result: VDOSResult, expected: Sequence[Any] = ()) -> VDOSResult:
     """
     import dataclasses
 
-    from phasewake.core.timestep import alias_band, unresolved_motions
+    from phasewake.core.timestep import HXH_BEND_CM, alias_band, unresolved_motions
 
     dt = result.dt_ps
     ny = result.nyquist_cm1
     unres = unresolved_motions(list(expected), dt)
+    # an unresolved X-H stretch: every hydrogen motion from the H-X-H bend up to the stretch (bends, wags,
+    # model-specific stiff angles) may lie beyond the frames too; what of that band lies above Nyquist folds
+    stretch = [e for e in unres if "stretch" in e.name]
+    h_band = None if not stretch else max(stretch, key=lambda e: e.high_per_cm)
     peaks = []
     for p in result.peaks:
         why = ""
         hits = [e for e in unres if any(lo <= p.wavenumber_cm1 <= hi for lo, hi in alias_band(e, dt))]
         if hits:
             why = "may be an alias of " + " or ".join(e.words() for e in hits)
+        elif h_band is not None and any(lo <= p.wavenumber_cm1 <= hi for lo, hi in
+                                        alias_band(h_band, dt, low_per_cm=HXH_BEND_CM[0])):
+            why = (f"may be an alias of a hydrogen motion between {HXH_BEND_CM[0]:.0f} and "
+                   f"{h_band.high_per_cm:.0f} cm^-1 (bends up to the {h_band.name}), which the frames cannot show")
         elif p.wavenumber_cm1 >= 0.8 * ny:
             why = f"near the Nyquist limit {ny:.0f} cm^-1: not resolved, may be an alias of a faster motion"
         peaks.append(dataclasses.replace(p, not_a_motion=why))
@@ -1070,7 +1078,7 @@ def judge_peaks(result: VDOSResult, expected: Sequence[Any] = ()) -> VDOSResult:
     notes = list(result.notes)
     spacing_fs = dt * 1e3
     for e in unres:
-        aliased = [p for p in peaks if e.words() in p.not_a_motion]
+        aliased = [p for p in peaks if e.words() in p.not_a_motion or (e is h_band and "hydrogen motion" in p.not_a_motion)]
         where = (", ".join(f"{p.wavenumber_cm1:.0f}" for p in aliased) + " cm^-1") if aliased else ""
         notes.append(f"{e.words()} cannot be seen at {spacing_fs:.3g} fs frames (Nyquist limit {ny:.0f} cm^-1; "
                      f"{e.source})" + (f": the peaks at {where} may be its aliases and are not counted as motions"

@@ -95,33 +95,32 @@ def test_default_is_the_two_state_pair_never_the_stiff_bond():
     assert "two-state" in choice.reason and choice.details["barrier_kT"] >= 1.0
 
 
-@pytest.mark.slow
-def test_rigid_water_has_no_obvious_coordinate_and_its_bond_is_constant(openmm_water_1fs):
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm"
+
+
+def _engine_run(name: str):
     from phasewake.core.readers import open_run
 
-    run = open_run([openmm_water_1fs.paths["h5md"]])
+    folder = ENGINES / name
+    if not (folder / "frames.h5md").exists():
+        pytest.skip("engine runs not generated")
+    return open_run([folder / "frames.h5md"], topology=folder / "start.pdb")
+
+
+def test_rigid_water_has_no_obvious_coordinate_and_its_bond_is_constant():
+    # rigid TIP3P made with OpenMM (tests/data/engines/openmm/tip3p_rigid_nve_verlet)
+    run = _engine_run("tip3p_rigid_nve_verlet")
     choice = choose_coordinate(run)
     assert choice.spec is None and "no obvious reaction coordinate" in choice.reason
-    # the first O-H bond of rigid water (SETTLE, tolerance 1e-8): its 'crossings' would be round-off
+    # the first O-H bond of rigid water: its 'crossings' would be round-off (the issue: "rates" of 135/ps)
     with pytest.raises(AnalysisError, match="constant"):
         result_of(crossings_of_runs(run, "distance(0, 1)"))
 
 
-@pytest.fixture(scope="module")
-def flexible_water(tmp_path_factory):
-    pytest.importorskip("openmm")
-    from flexible_water import flexible_water_files
-
-    return flexible_water_files(tmp_path_factory.mktemp("flexwater"))
-
-
-@pytest.mark.slow
-def test_flexible_water_bond_gets_no_states(flexible_water):
+def test_flexible_water_bond_gets_no_states():
     # the issue: an O-H bond of flexible water gave "barrier 1.25 kT" and k = 394/ps (turning points of
-    # the vibration). Its spread is ~2-3% of its length: a stiff bond, refused.
-    from phasewake.core.readers import open_run
-
-    run = open_run([flexible_water[0]])
+    # the vibration). Its spread is a few % of its length: a stiff bond, refused.
+    run = _engine_run("tip3p_flexible_frames_1fs")
     assert choose_coordinate(run).spec is None
     with pytest.raises(AnalysisError, match="stiff bond"):
         result_of(crossings_of_runs(run, "distance(0, 1)"))
