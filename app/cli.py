@@ -10,6 +10,7 @@ stderr, no traceback).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import importlib
 import os
 import sys
@@ -53,6 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    from phasewake.core import interrupts
     from phasewake.core.errors import PhasewakeError
 
     parser = build_parser()
@@ -60,19 +62,44 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
+    # Ctrl-C and SIGTERM are noted and acted on between chunks of work (core/interrupts.py); the window
+    # verbs keep Qt's own handling.
+    from phasewake.core.cache import take_notices
+
+    take_notices()  # notices of earlier work in this process are not this command's
+    guard = interrupts.handling() if args.verb not in WINDOW_VERBS else contextlib.nullcontext()
     try:
-        return int(args._run(args))
-    except PhasewakeError as exc:
-        sys.stderr.write(f"phasewake {args.verb}: {exc}\n")
-        return 2
+        with guard:
+            try:
+                code = int(args._run(args))
+                interrupts.check()  # a signal noted during the last step still ends the command
+                return code
+            except PhasewakeError as exc:
+                if interrupts.requested() is not None:
+                    raise KeyboardInterrupt from None  # Cancelled by the interrupt token
+                sys.stderr.write(f"phasewake {args.verb}: {exc}\n")
+                return 2
     except KeyboardInterrupt:
-        sys.stderr.write(f"phasewake {args.verb}: interrupted\n")
-        return 130
+        sys.stderr.write(f"phasewake {args.verb}: {interrupts.describe()}\n")
+        return interrupts.exit_status()
     except BrokenPipeError:
         # Output piped into a program that stopped reading (e.g. head): not an error of ours.
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
         return 0
+    finally:
+        _print_notices(args.verb)
+
+
+WINDOW_VERBS = ("open", "demo")
+
+
+def _print_notices(verb: str) -> None:
+    """The result cache's notices ("cache skipped", a damaged entry replaced) as warning lines."""
+    from phasewake.core.cache import take_notices
+
+    for text in take_notices():
+        sys.stderr.write(f"phasewake {verb}: warning: {text}\n")
 
 
 def window_main() -> int:

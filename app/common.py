@@ -172,9 +172,11 @@ class ProgressBar:
 
 
 def run_with_progress(work: Generator[Progress, None, T], label: str) -> T:
+    from phasewake.core import interrupts
+
     bar = ProgressBar(label)
     try:
-        return drive(work, bar)
+        return drive(work, bar, interrupts.token())  # Ctrl-C / SIGTERM stop the work between chunks
     finally:
         bar.close()
 

@@ -20,7 +20,10 @@ The key (:func:`analysis_key`) holds:
   source files (sizes and modification times), so a changed analysis never serves an old answer.
 
 A cache that cannot be read or written (read-only folder, full disk) never fails the analysis: the
-result is returned uncached. A result the codec cannot store is simply not cached.
+result is returned uncached and one notice "cache skipped" is recorded (``core.cache.take_notices``;
+the command line prints it as a warning line). A damaged entry is a miss (its checksum is checked on
+every read). A result the codec cannot store is simply not cached. A cache folder that is not ours
+(files and no mark) raises :class:`~phasewake.core.cache.CacheFolderError`.
 """
 
 from __future__ import annotations
@@ -37,7 +40,8 @@ from typing import TYPE_CHECKING, Any, TypeVar
 import numpy as np
 
 from phasewake.core import resultcodec
-from phasewake.core.cache import CacheEntry, ResultCache, file_identity, make_key
+from phasewake.core.atomic import OutputError
+from phasewake.core.cache import CacheEntry, ResultCache, file_identity, make_key, skipped
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -177,8 +181,11 @@ def store(cache: ResultCache, key: str, analysis: str, result: Any) -> bool:
         return False
     try:
         cache.put(key, arrays, {"analysis": analysis, "format": _FORMAT})
-    except (OSError, ValueError, TypeError):
-        return False  # an unwritable cache only costs the next request a recomputation
+    except (OSError, OutputError) as exc:  # an unwritable cache only costs the next request a recomputation
+        skipped(cache, exc)
+        return False
+    except (ValueError, TypeError):
+        return False
     return True
 
 
@@ -186,7 +193,7 @@ def lookup(cache: ResultCache, key: str, analysis: str) -> tuple[bool, Any]:
     """``(True, result)`` for a usable entry, else ``(False, None)`` (missing, stale, unreadable)."""
     try:
         entry = cache.get(key)
-    except (OSError, ValueError):
+    except (OSError, ValueError):  # an unreadable folder: a miss (CacheFolderError goes up: not our folder)
         return False, None
     if entry is None:
         return False, None

@@ -14,8 +14,8 @@ Presets size a figure for where it will be shown:
 Text stays text in vector files (``svg.fonttype = "none"``, ``pdf.fonttype = 42``), so axis labels
 with their units can be searched. Every file carries its provenance (input files with their SHA-256,
 phasewake version, settings) in its metadata: PNG text chunks, the SVG ``<metadata>`` block (Dublin
-Core description) and the PDF information dictionary (Subject). Files are written atomically (a
-temporary file beside the target, then ``os.replace``).
+Core description) and the PDF information dictionary (Subject). Files are drawn in memory, then written
+atomically by ``core/atomic.py`` (a temporary file beside the target, then ``os.replace``).
 
 matplotlib is imported inside the functions that need it, and pyplot is never used: figures are
 plain ``matplotlib.figure.Figure`` objects, safe to build in a worker thread.
@@ -37,6 +37,7 @@ from typing import TYPE_CHECKING, Any, Literal
 import numpy as np
 
 from phasewake.core import __version__
+from phasewake.core.atomic import atomic_open, write_bytes
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
 from phasewake.core.jsonable import to_jsonable
@@ -188,44 +189,8 @@ def _merged_provenance(spec: FigureSpec, provenance: Mapping[str, Any] | None) -
 
 
 # --------------------------------------------------------------------------------------------------
-# atomic writes
-
-
-def _atomic_target(path: Path) -> Any:
-    """Context manager yielding a temporary path beside ``path`` that replaces it on success."""
-    try:
-        from phasewake.core.atomic import atomic_path
-    except ImportError:  # pragma: no cover - the shared helper is part of the tree
-        return _local_atomic_path(path)
-    return atomic_path(path)
-
-
-class _local_atomic_path:  # noqa: N801 - used like a context-manager function
-    def __init__(self, path: Path) -> None:
-        import tempfile
-
-        path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix + ".part", dir=path.parent)
-        os.close(fd)
-        self.target, self.tmp = path, Path(tmp)
-
-    def __enter__(self) -> Path:
-        return self.tmp
-
-    def __exit__(self, exc_type: Any, exc: Any, tb: Any) -> None:
-        try:
-            if exc_type is None:
-                os.replace(self.tmp, self.target)
-        finally:
-            if self.tmp.exists():
-                self.tmp.unlink()
-
-
-def _publish_mode(tmp: Path) -> None:
-    """Give the finished temporary file the usual permissions (mkstemp makes it owner-only)."""
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
+# writing goes through the project's one atomic writer (core/atomic.py): figures are drawn into memory
+# first, so a full disk meets a plain write (OutputError, the old file intact), never a half-drawn file
 
 
 def _check_writable(path: Path) -> None:
@@ -631,9 +596,10 @@ def save_matplotlib_figure(fig: Figure, path: str | Path, *, fmt: str | None = N
     f = _format_of(target, fmt)
     _check_writable(target)
     meta = _metadata(f, title, provenance or {})
-    with _rc(get_preset(preset)), _atomic_target(target) as tmp:
-        fig.savefig(tmp, format=f, dpi=dpi, metadata=meta)
-        _publish_mode(tmp)
+    buf = io.BytesIO()
+    with _rc(get_preset(preset)):
+        fig.savefig(buf, format=f, dpi=dpi, metadata=meta)
+    write_bytes(target, buf.getbuffer())
     return target
 
 
@@ -757,7 +723,7 @@ def export_csv(spec: FigureSpec, path: str | Path, *, provenance: Mapping[str, A
     target = Path(path)
     _check_writable(target)
     prov = _merged_provenance(spec, provenance)
-    with _atomic_target(target) as tmp, open(tmp, "w", encoding="utf-8", newline="") as fh:
+    with atomic_open(target, "w", encoding="utf-8", newline="") as fh:
         fh.write(f"# phasewake {__version__} figure data: {spec.key}: {spec.title}\n")
         for ip, plot in enumerate(spec.plots):
             fh.write(f"# plot {ip}: {plot.title}; x = {plot.x.text}; y = {plot.y.text}\n")
@@ -766,8 +732,6 @@ def export_csv(spec: FigureSpec, path: str | Path, *, provenance: Mapping[str, A
         w.writerow(CSV_COLUMNS)
         for row in iter_data_rows(spec):
             w.writerow([_fmt(row.get(c, "")) for c in CSV_COLUMNS])
-        fh.flush()
-        _publish_mode(tmp)
     return target
 
 

@@ -20,6 +20,7 @@ import base64
 import dataclasses
 import html
 import importlib
+import io
 import textwrap
 from collections.abc import Callable, Generator, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -29,16 +30,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core import __version__
+from phasewake.core.atomic import write_bytes, write_text
 from phasewake.core.cache import ResultCache
 from phasewake.core.cached import cached_audit, cached_coordinates, cached_pca
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.export import (
-    ExportError,
     Preset,
-    _atomic_target,
     _check_writable,
     _metadata,
-    _publish_mode,
     _rc,
     draw_into,
     figure_png_bytes,
@@ -345,14 +344,14 @@ def build_report(
     prov = provenance_of_run(run, settings=settings)
     n_pages = _write_pdf(target, pages, run_name=run.name, provenance=prov)
     if preview_folder is not None:
-        folder = Path(preview_folder)
-        folder.mkdir(parents=True, exist_ok=True)
+        folder = Path(preview_folder)  # created, if need be, by the atomic writer
         laid = _paginate(pages)
         for i, p in enumerate(laid):
             fig = _page_figure(p, run_name=run.name, number=i + 1, n_total=len(laid))
-            with _rc(_BODY), _atomic_target(folder / f"page-{i + 1:02d}.png") as tmp:
-                fig.savefig(tmp, format="png", dpi=preview_dpi)
-                _publish_mode(tmp)
+            buf = io.BytesIO()
+            with _rc(_BODY):
+                fig.savefig(buf, format="png", dpi=preview_dpi)
+            write_bytes(folder / f"page-{i + 1:02d}.png", buf.getbuffer())
     html_out = None
     if html_path is not None:
         html_out = _write_html(Path(html_path), pages, run_name=run.name, provenance=prov)
@@ -849,15 +848,12 @@ def _write_pdf(target: Path, pages: Sequence[ReportPage], *, run_name: str, prov
 
     laid = _paginate(pages)
     meta = _metadata("pdf", f"phasewake report: {run_name}", provenance)
-    try:
-        with _rc(_BODY), _atomic_target(target) as tmp:
-            with PdfPages(tmp, metadata=meta) as pdf:
-                for i, p in enumerate(laid):
-                    fig = _page_figure(p, run_name=run_name, number=i + 1, n_total=len(laid))
-                    pdf.savefig(fig)
-            _publish_mode(tmp)
-    except OSError as exc:
-        raise ExportError(f"cannot write the report: {exc.strerror}", path=target) from exc
+    buf = io.BytesIO()  # the whole PDF in memory first: a full disk meets one plain write, not the PDF writer
+    with _rc(_BODY), PdfPages(buf, metadata=meta) as pdf:
+        for i, p in enumerate(laid):
+            fig = _page_figure(p, run_name=run_name, number=i + 1, n_total=len(laid))
+            pdf.savefig(fig)
+    write_bytes(target, buf.getbuffer())
     return len(laid)
 
 
@@ -897,7 +893,5 @@ def _write_html(target: Path, pages: Sequence[ReportPage], *, run_name: str, pro
         parts.append("</section>")
     parts.append(f"<p class='note'>phasewake {esc(__version__)}. {esc(HEURISTIC_NOTE)}</p></body></html>")
     _check_writable(target)
-    with _atomic_target(target) as tmp:
-        tmp.write_text("\n".join(parts), encoding="utf-8")
-        _publish_mode(tmp)
+    write_text(target, "\n".join(parts))
     return target

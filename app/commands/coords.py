@@ -208,13 +208,13 @@ def _safe_name(name: str, used: set[str]) -> str:
 
 def _write_h5md(path: Path, cols: list[tuple[str, str, np.ndarray]], time: np.ndarray, summary: dict,
                 start: int) -> None:
-    """An H5MD 1.1 file with observables only (de Buyl, Colberg and Hoefling 2014)."""
-    import h5py
+    """An H5MD 1.1 file with observables only (de Buyl, Colberg and Hoefling 2014).
 
+    Built in memory and written in one atomic write: a full disk never reaches the HDF5 library."""
     from phasewake.core import __version__
-    from phasewake.core.atomic import atomic_path
+    from phasewake.core.atomic import atomic_hdf5
 
-    with atomic_path(path) as tmp, h5py.File(tmp, "w") as f:
+    with atomic_hdf5(path) as f:
         h = f.create_group("h5md")
         h.attrs["version"] = np.array([1, 1], dtype=np.int32)
         h.create_group("author").attrs["name"] = "phasewake"

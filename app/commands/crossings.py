@@ -149,6 +149,7 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
 
 
 def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) -> None:
+    from phasewake.core.atomic import OutputError
     from phasewake.core.errors import InputError
 
     target = path.resolve()
@@ -157,8 +158,9 @@ def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) ->
             raise InputError("refusing to write the events table over an input file", path=path)
     try:
         _write_events_rows(path, res, names)
-    except OSError as exc:
-        raise InputError(f"cannot write the events table: {exc.strerror or exc}", path=path) from None
+    except OutputError as exc:
+        raise OutputError(exc.problem.replace("cannot write:", "cannot write the events table:", 1),
+                          path=path) from None
 
 
 def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:

@@ -232,11 +232,12 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def clear_cache(self) -> None:
         from phasewake.core.cache import ResultCache
+        from phasewake.core.errors import PhasewakeError
 
         cache = ResultCache()
         try:
             n = cache.clear()
-        except OSError as exc:
+        except (OSError, PhasewakeError) as exc:  # PhasewakeError: a folder that is not ours, left alone
             self.show_problem("Result cache", f"Could not clear the result cache in {cache.folder}: {exc}")
             return
         self.say(f"Removed {n} stored result{'s' if n != 1 else ''} from {cache.folder}.")

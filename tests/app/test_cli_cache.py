@@ -66,7 +66,7 @@ def test_cache_command_summary_line(tmp_path, cache_dir, capsys):
 def test_audit_no_cache_writes_nothing_and_reads_nothing(tmp_path, cache_dir, h5md_reads, capsys):
     path = _copy(tmp_path, "dimer_nve.h5md")
     assert main(["audit", str(path), "--json", "--no-cache"]) in (0, 1)
-    assert not cache_dir.exists() or not list(cache_dir.glob("*.h5"))
+    assert not cache_dir.exists() or not list(cache_dir.glob("*.pwcache"))
     out_plain = capsys.readouterr().out
     main(["audit", str(path), "--json"])  # fills the cache
     capsys.readouterr()

@@ -8,7 +8,7 @@ import textwrap
 import numpy as np
 
 from phasewake.app.cli import main
-from phasewake.core.cache import ResultCache, make_key
+from phasewake.core.cache import ENTRY_SUFFIX, ResultCache, make_key, take_notices
 
 
 def _inputs(tmp_path):
@@ -41,11 +41,15 @@ def test_roundtrip_and_invalidation(tmp_path):
 
 def test_corrupt_entry_is_dropped(tmp_path):
     cache = ResultCache(tmp_path / "cache", enabled=True)
-    (tmp_path / "cache").mkdir()
-    bad = tmp_path / "cache" / ("a" * 32 + ".h5")
-    bad.write_bytes(b"not hdf5")
+    cache.put("a" * 32, {"x": np.arange(4.0)})
+    bad = tmp_path / "cache" / ("a" * 32 + ENTRY_SUFFIX)
+    data = bytearray(bad.read_bytes())
+    data[-8] ^= 0xFF  # inside the stored array
+    bad.write_bytes(bytes(data))
+    take_notices()
     assert cache.get("a" * 32) is None
     assert not bad.exists()
+    assert any("damaged" in n for n in take_notices())
 
 
 def test_disabled_by_environment(tmp_path, monkeypatch):

@@ -58,7 +58,7 @@ def test_second_call_is_served_from_the_cache(tmp_path, cache_dir):
     run, frames = _counted(path)
     first = drive(cached_coordinates(run, SPECS, start=5, stop=150))
     assert frames.calls == 1
-    assert len(list(cache_dir.glob("*.h5"))) == 1
+    assert len(list(cache_dir.glob("*.pwcache"))) == 1
     run2, frames2 = _counted(path)  # a fresh open, as a second window or command would do
     second = drive(cached_coordinates(run2, SPECS, start=5, stop=150))
     assert frames2.calls == 0
@@ -120,7 +120,7 @@ def test_coords_command_uses_the_cache_and_no_cache_bypasses_it(tmp_path, cache_
     path = _copy(tmp_path)
     out1, out2, out3 = tmp_path / "a.csv", tmp_path / "b.csv", tmp_path / "c.csv"
     assert main(["coords", str(path), "-c", "distance(0, 1)", "--momentum", "-o", str(out1)]) == 0
-    assert len(list(cache_dir.glob("*.h5"))) == 1
+    assert len(list(cache_dir.glob("*.pwcache"))) == 1
     assert main(["coords", str(path), "-c", "distance(0, 1)", "--momentum", "-o", str(out2)]) == 0
     assert out1.read_text() == out2.read_text()
     shutil.rmtree(cache_dir)
@@ -173,7 +173,7 @@ def _same(a, b, where="root"):
 
 
 def _entries(cache_dir):
-    return sorted(cache_dir.glob("*.h5")) if cache_dir.exists() else []
+    return sorted(cache_dir.glob("*.pwcache")) if cache_dir.exists() else []
 
 
 def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, cache_dir):
