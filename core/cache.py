@@ -51,6 +51,7 @@ from phasewake.core.atomic import (
     OutputError,
     atomic_open,
     describe_os_error,
+    is_our_temp,
     stale_temporaries,
     sweep_stale,
     write_text,
@@ -283,7 +284,8 @@ class ResultCache:
             return True
         try:
             with os.scandir(self.folder) as it:
-                return None if next(it, None) is None else False
+                # our own temporary files do not count: another process may be writing the mark right now
+                return None if all(is_our_temp(e.name) for e in it) else False
         except OSError:
             return False
 

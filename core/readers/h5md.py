@@ -14,9 +14,7 @@ energies it defines are multiplied by ``particle_number`` as the module says.
 from __future__ import annotations
 
 import contextvars
-import os
 import sys
-import tempfile
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -112,7 +110,7 @@ def write_h5md(
     author: str = "phasewake",
     creator_version: str | None = None,
 ) -> None:
-    """Write an H5MD 1.1 file (atomically: a temporary file in the same folder, then os.replace).
+    """Write an H5MD 1.1 file (atomically, through core/atomic.py: a temporary file beside it, then a rename).
 
     Parameters
     ----------
@@ -146,9 +144,9 @@ def write_h5md(
     dstep = float(np.median(np.diff(st))) if n_frames > 1 else 1.0
 
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    os.close(fd)
-    try:
+    from phasewake.core.atomic import atomic_path  # the project's one atomic writer
+
+    with atomic_path(path) as tmp:
         with h5py.File(tmp, "w") as f:
             h = f.create_group("h5md")
             h.attrs["version"] = np.array([1, 1], dtype=np.int32)
@@ -259,11 +257,6 @@ def write_h5md(
                     cg = f.create_group("connectivity")
                     bd = cg.create_dataset("bonds", data=bonds.reshape(-1, 2))
                     bd.attrs["particles_group"] = pg.ref
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
 
 
 # ----------------------------------------------------------------------------------- reader
