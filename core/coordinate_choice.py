@@ -240,9 +240,9 @@ def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, 
         rel = np.where(mean > 0, std / mean, 0.0)
     bonded = np.zeros(pairs_local.shape[0], dtype=bool)
     if top is not None:
-        where = {int(a): i for i, a in enumerate(solute)}
-        bset = {(min(where[b[0].index], where[b[1].index]), max(where[b[0].index], where[b[1].index]))
-                for b in top.bonds if b[0].index in where and b[1].index in where}
+        local = {int(a): i for i, a in enumerate(solute)}
+        bset = {(min(local[b[0].index], local[b[1].index]), max(local[b[0].index], local[b[1].index]))
+                for b in top.bonds if b[0].index in local and b[1].index in local}
         bonded = np.array([(int(i), int(j)) in bset for i, j in pairs_local], dtype=bool)
     # a stiff bond: a bonded (or closer than 0.2 nm: covalent length) pair with a small relative spread;
     # a constant: any pair below the crossings.constant spread
