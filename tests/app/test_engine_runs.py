@@ -1,0 +1,464 @@
+"""Real engine output, end to end through the command line (`describe --json`, `audit --json`).
+
+Every run under tests/data/engines was made by the engine itself (GROMACS 2022.5, LAMMPS 29Sep2021,
+OpenMM 8.6.1, CP2K 2023.1; see tests/data/engines/README.md); the AMBER mdout and NAMD log are laid out
+per ENGINES.md (not engine output) with the numbers of an OpenMM run. The outside reference of every
+test is what the engine reported in its own log or API, read by make_engine_runs.py into
+``reported.json`` (never by phasewake's readers): GROMACS md.log (nrdf, averages, "Conserved energy
+drift"), LAMMPS log.lammps (thermo rows, echoed commands), CP2K argon.out and .ener, OpenMM's
+StateDataReporter CSV and System. These tests read only the committed files; the one that runs an
+engine is marked slow and skipped when the engine is absent.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import shutil
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from phasewake.app.cli import main
+
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines"
+KCAL_TO_KJ = 4.184  # thermochemical calorie, NIST SP 811 (2008) Appendix B
+EV_TO_KJ_PER_MOL = 96.48533212  # 1 eV x N_A in kJ/mol, CODATA 2018
+T_TOL_K = 0.5  # the issue's tolerance on a mean temperature
+
+
+def reported(folder: str) -> dict[str, Any]:
+    return json.loads((ENGINES / folder / "reported.json").read_text())
+
+
+def cli(capsys: pytest.CaptureFixture[str], verb: str, *args: str | Path) -> tuple[int, dict[str, Any], str]:
+    """Run ``phasewake VERB ARGS --json``; return exit code, parsed JSON (or {}), stderr."""
+    capsys.readouterr()
+    code = main([verb, *[str(a) for a in args], "--json"])
+    out = capsys.readouterr()
+    data = json.loads(out.out) if out.out.strip() else {}
+    return code, data, out.err
+
+
+def verdicts(audit: dict[str, Any], prefix: str) -> list[dict[str, Any]]:
+    return [v for v in audit["verdicts"] if v["kind"].startswith(prefix)]
+
+
+def sampling(audit: dict[str, Any], role: str) -> dict[str, Any]:
+    found = [s for s in audit["energy"]["sampling"] if s["role"] == role]
+    assert found, f"no {role} series in the audit: {[s['role'] for s in audit['energy']['sampling']]}"
+    return found[0]
+
+
+def engine_dof(describe: dict[str, Any]) -> Any:
+    return describe["metadata"].get("n_dof")
+
+
+# ------------------------------------------------------------------------------------------------
+# GROMACS: md.trr (x and v) + md.edr, topology md.gro (md.log lies beside them); reference md.log
+
+GMX_RUNS = ["spce_flexible_nve_0.5fs", "spce_flexible_nve_2fs", "spce_rigid_nvt_vrescale", "spce_rigid_nve_whole"]
+
+
+def gmx_files(run: str, *extra: str) -> list[str | Path]:
+    d = ENGINES / "gromacs" / run
+    return [d / "md.trr", d / "md.edr", *[d / e for e in extra], "--top", d / "md.gro"]
+
+
+@pytest.mark.parametrize("run", GMX_RUNS)
+def test_gromacs_describe_matches_md_log(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: GROMACS md.log ("There are: 402 Atoms", dt, tcoupl, grpopts nrdf), nsteps/nstxout + 1
+    rep = reported(f"gromacs/{run}")["reported"]
+    code, d, err = cli(capsys, "describe", *gmx_files(run))
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["trr positions"]
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+    assert engine_dof(d) == rep["degrees_of_freedom"]
+
+
+@pytest.mark.parametrize("run", GMX_RUNS)
+def test_gromacs_audit_temperature_and_dof(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log 'A V E R A G E S' Temperature (over the same edr frames: nstcalcenergy = nstenergy)
+    # and its nrdf (1203 flexible, 801 rigid: SETTLE)
+    rep = reported(f"gromacs/{run}")["reported"]
+    code, a, err = cli(capsys, "audit", *gmx_files(run))
+    assert code in (0, 1), err
+    t = a["temperature"]
+    assert t["n_dof"] == rep["degrees_of_freedom"]
+    assert abs(t["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K, (t["mean_K"], t["kinetic_source"])
+
+
+def test_gromacs_md_log_given_too_changes_nothing(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log 'Statistics over 4001 steps using 101 frames' and its average Temperature; md.log
+    # itself prints energies only every nstlog steps (21 blocks), the edr holds all 101 frames
+    rep = reported("gromacs/spce_flexible_nve_0.5fs")["reported"]
+    code, d, err = cli(capsys, "describe", *gmx_files("spce_flexible_nve_0.5fs", "md.log"))
+    assert code == 0, err
+    assert d["energy_rows"] == rep["frames"]["edr"], d["warnings"]
+    code, a, err = cli(capsys, "audit", *gmx_files("spce_flexible_nve_0.5fs", "md.log"))
+    assert abs(a["temperature"]["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
+
+
+def test_gromacs_flexible_2fs_flagged(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log "Conserved energy drift" 0.0971 (2 fs) against 0.00134 kJ/mol/ps/atom (0.5 fs), 72
+    # times larger; 0.5 fs is the usual step with flexible X-H bonds (common practice)
+    r2 = reported("gromacs/spce_flexible_nve_2fs")["reported"]
+    r05 = reported("gromacs/spce_flexible_nve_0.5fs")["reported"]
+    assert r2["conserved_energy_drift_kJ_mol_ps_atom"] > 20 * r05["conserved_energy_drift_kJ_mol_ps_atom"]
+    code, a, err = cli(capsys, "audit", *gmx_files("spce_flexible_nve_2fs"))
+    assert code == 1, err
+    assert a["ensemble"].upper().startswith("NVE")
+    flagged = {v["kind"] for v in a["verdicts"] if v["level"] in ("caution", "problem")}
+    assert "energy.fluctuation_ratio" in flagged, a["verdicts"]
+
+
+def test_gromacs_vrescale_not_judged_as_nve(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log tcoupl = V-rescale, ref-t 300; the engine conserves "Conserved En." (drift -0.00923
+    # kJ/mol/ps/atom in md.log), not the total energy
+    rep = reported("gromacs/spce_rigid_nvt_vrescale")["reported"]
+    assert rep["ensemble"] == "NVT"
+    code, a, err = cli(capsys, "audit", *gmx_files("spce_rigid_nvt_vrescale"))
+    assert code in (0, 1), err
+    assert a["thermostatted"] is True
+    assert a["ensemble"].upper().startswith("NVT"), a["ensemble"]
+    assert "conserved en." in a["energy"]["series_label"].lower(), a["energy"]["series_label"]
+    assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"]
+    assert abs(a["temperature"]["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
+
+
+# ------------------------------------------------------------------------------------------------
+# GROMACS in three parts (mdrun -noappend) against the whole run; reference: the engine's own files of
+# the whole run, read by mdtraj, and the parts' logs (checkpoint steps)
+
+
+def test_gromacs_three_parts_give_the_whole_run(capsys: pytest.CaptureFixture[str]) -> None:
+    import mdtraj as md
+
+    from phasewake.core.readers import open_run
+
+    parts = ENGINES / "gromacs" / "spce_rigid_nve_parts"
+    whole = ENGINES / "gromacs" / "spce_rigid_nve_whole"
+    rep = reported("gromacs/spce_rigid_nve_parts")["reported"]
+    xtcs = [parts / "md.xtc", parts / "md.part0002.xtc", parts / "md.part0003.xtc"]
+    code, d, err = cli(capsys, "describe", *xtcs, "--top", parts / "md.gro")
+    assert code == 0, err
+    assert d["n_frames"] == rep["frames_whole_run"]["xtc"]  # 97 frames written, 91 distinct steps
+    ref = md.load(str(whole / "md.xtc"), top=str(whole / "md.gro"))
+    assert d["time_start_ps"] == pytest.approx(float(ref.time[0]), abs=1e-6)
+    assert d["time_end_ps"] == pytest.approx(float(ref.time[-1]), abs=1e-6)
+    # the overlap of parts 2 and 3 (steps 1120-1200 = 2.24-2.4 ps) is reported with its times
+    text = json.dumps(d)
+    assert "overlap" in text.lower() and "2.24" in text, d.get("warnings")
+    run = open_run(xtcs, topology=parts / "md.gro")
+    assert run.frames is not None
+    xyz = np.concatenate([c.positions_nm for c in run.frames.iter_chunks(velocities=False)])
+    np.testing.assert_array_equal(run.time_ps.round(6), ref.time.astype(np.float64).round(6))
+    np.testing.assert_allclose(xyz, ref.xyz, atol=1e-6)
+
+
+def test_gromacs_three_energy_parts_give_the_whole_run(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log of the whole run (A V E R A G E S Temperature over its 91 edr frames)
+    parts = ENGINES / "gromacs" / "spce_rigid_nve_parts"
+    whole = reported("gromacs/spce_rigid_nve_whole")["reported"]
+    edrs = [parts / "md.edr", parts / "md.part0002.edr", parts / "md.part0003.edr"]
+    code, d, err = cli(capsys, "describe", *edrs)
+    assert code == 0, err
+    assert d["energy_rows"] == whole["frames"]["edr"]
+    code, a, err = cli(capsys, "audit", *edrs)
+    assert code in (0, 1), err
+    assert abs(sampling(a, "temperature")["mean"] - whole["temperature_mean_K"]) < T_TOL_K
+
+
+# ------------------------------------------------------------------------------------------------
+# Run folders as the engines left them (the engine's files copied without reported.json): the folder
+# alone, no option
+
+
+def engine_folder(folder: str, tmp_path: Path) -> Path:
+    """A copy of the run folder holding only the files the engine (and grompp/the input) wrote."""
+    src = ENGINES / folder
+    dest = tmp_path / Path(folder).name
+    dest.mkdir()
+    for name in reported(folder)["files"]:
+        shutil.copy2(src / name, dest / name)
+    return dest
+
+
+@pytest.mark.parametrize("run", GMX_RUNS)
+def test_gromacs_run_folder(run: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: md.log (atoms, dt, tcoupl, nrdf) and nsteps/nstxout + 1 frames of md.trr (the file with
+    # velocities); the folder also holds md.xtc, md.gro, md.edr, md.log, mdout.mdp as mdrun and grompp left them
+    rep = reported(f"gromacs/{run}")["reported"]
+    code, d, err = cli(capsys, "describe", engine_folder(f"gromacs/{run}", tmp_path))
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["trr positions"]
+    assert d["velocities"] == "stored"
+    assert d["energy_rows"] == rep["frames"]["edr"]
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+    assert engine_dof(d) == rep["degrees_of_freedom"]
+
+
+def test_gromacs_parts_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the whole run's md.log and frame counts (19 trr frames, 91 edr frames over 1800 steps)
+    whole = reported("gromacs/spce_rigid_nve_whole")["reported"]
+    code, d, err = cli(capsys, "describe", engine_folder("gromacs/spce_rigid_nve_parts", tmp_path))
+    assert code == 0, err
+    assert d["n_frames"] == whole["frames"]["trr positions"]
+    assert d["time_end_ps"] == pytest.approx(1800 * whole["time_step_ps"], rel=1e-6)
+    assert d["energy_rows"] == whole["frames"]["edr"]
+
+
+def test_lammps_run_folder(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps (atoms, units metal, timestep 0.004 ps, fix nve) and 2000/200 + 1 dump frames
+    rep = reported("lammps/argon_metal_nve")["reported"]
+    code, d, err = cli(capsys, "describe", engine_folder("lammps/argon_metal_nve", tmp_path))
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["dump.lammpstrj"]
+    assert d["velocities"] == "stored"
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+
+
+def test_folder_with_two_candidate_trajectories_is_refused_in_one_line(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # argon_real_nve holds two dumps of one run (wrapped and unwrapped): which to take is the user's choice
+    code = main(["describe", str(engine_folder("lammps/argon_real_nve", tmp_path))])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert len(err.strip().splitlines()) == 1, err
+    assert "dump.lammpstrj" in err and "dump.unwrapped.lammpstrj" in err
+    assert "Traceback" not in err
+
+
+# ------------------------------------------------------------------------------------------------
+# LAMMPS: dump custom + log.lammps, topology from the write_data file; reference log.lammps
+
+LMP_RUNS = ["argon_real_nve", "argon_metal_nve", "argon_lj_nve", "argon_real_nvt"]
+
+
+def lmp_files(run: str, dump: str = "dump.lammpstrj") -> list[str | Path]:
+    d = ENGINES / "lammps" / run
+    return [d / dump, d / "log.lammps", "--top", d / "argon.data"]
+
+
+@pytest.mark.parametrize("run", LMP_RUNS)
+def test_lammps_describe_matches_log(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps ("Loop time ... with 256 atoms", echoed units/timestep/fix), steps/200 + 1 frames
+    rep = reported(f"lammps/{run}")["reported"]
+    code, d, err = cli(capsys, "describe", *lmp_files(run))
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["dump.lammpstrj"]
+    assert d["velocities"] == "stored"
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+    if rep["time_step_ps"] is not None:
+        assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+        # time = step x time step: the last dump frame is step 2000
+        assert d["time_end_ps"] == pytest.approx(2000 * rep["time_step_ps"], rel=1e-9)
+
+
+@pytest.mark.parametrize("run", ["argon_real_nve", "argon_metal_nve", "argon_real_nvt"])
+def test_lammps_temperature_and_dof(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps Temp column (mean over all thermo rows) and KinEng / (kB Temp / 2) = 765
+    rep = reported(f"lammps/{run}")["reported"]
+    code, a, err = cli(capsys, "audit", *lmp_files(run))
+    assert code in (0, 1), err
+    t = a["temperature"]
+    assert t["n_dof"] == rep["degrees_of_freedom"]
+    assert abs(t["mean_K"] - rep["temperature_mean"]) < T_TOL_K, (t["mean_K"], t["kinetic_source"])
+    # the dump's full-step velocities give LAMMPS's Temp at the dump steps (6 digits in the dump)
+    assert t["mean_from_velocities_K"] is not None
+    assert abs(t["mean_from_velocities_K"] - rep["temperature_mean_at_dump_steps"]) < T_TOL_K
+
+
+@pytest.mark.parametrize("run,factor", [("argon_real_nve", KCAL_TO_KJ), ("argon_metal_nve", EV_TO_KJ_PER_MOL)])
+def test_lammps_units_converted_once(run: str, factor: float, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps TotEng and Temp means; kcal/mol x 4.184 (NIST SP 811), eV x 96.485 kJ/mol (CODATA)
+    rep = reported(f"lammps/{run}")["reported"]
+    code, a, err = cli(capsys, "audit", *lmp_files(run))
+    assert code in (0, 1), err
+    total = sampling(a, "total")
+    assert total["unit"] == "kJ/mol"
+    assert total["mean"] == pytest.approx(rep["total_energy_mean"] * factor, rel=1e-5)
+    assert sampling(a, "temperature")["mean"] == pytest.approx(rep["temperature_mean"], rel=1e-6)
+
+
+def test_lammps_lj_units_are_not_passed_off_as_kj_per_mol(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps echoes "units lj": energies in epsilon per atom (thermo_modify norm yes)
+    rep = reported("lammps/argon_lj_nve")["reported"]
+    assert rep["units_style"] == "lj"
+    code, d, err = cli(capsys, "describe", ENGINES / "lammps" / "argon_lj_nve" / "log.lammps")
+    assert code == 0, err
+    units = {s["role"]: s["unit"] for s in d["energy_terms"]}
+    assert units.get("total") not in ("kJ/mol", None), units
+    assert units.get("temperature") != "K", units
+
+
+def test_lammps_log_with_two_runs(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps: run 1 prints 21 rows (steps 0-1000), run 2 11 rows (1000-2000) with other columns;
+    # the first row of run 2 repeats step 1000
+    rep = reported("lammps/argon_real_two_runs")["reported"]
+    runs = rep["thermo_runs"]
+    assert runs[0]["columns"] != runs[1]["columns"]
+    code, d, err = cli(capsys, "describe", ENGINES / "lammps" / "argon_real_two_runs" / "log.lammps")
+    assert code == 0, err
+    assert d["energy_rows"] == runs[0]["n_rows"] + runs[1]["n_rows"] - 1
+    assert d["energy_time_span_ps"] == pytest.approx(rep["n_steps"] * rep["time_step_ps"], rel=1e-9)
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+
+
+def test_lammps_nvt_not_judged_as_nve(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: log.lammps echoes "fix 1 all nvt temp 120.0 120.0 400.0" (Nose-Hoover), Econserve column
+    rep = reported("lammps/argon_real_nvt")["reported"]
+    code, a, err = cli(capsys, "audit", *lmp_files("argon_real_nvt"))
+    assert code in (0, 1), err
+    assert a["thermostatted"] is True
+    assert a["ensemble"].upper().startswith("NVT"), a["ensemble"]
+    assert rep["target_temperature"] == 120.0
+    assert "econserve" in a["energy"]["series_label"].lower(), a["energy"]["series_label"]
+
+
+# ------------------------------------------------------------------------------------------------
+# OpenMM: DCD + PDB + StateDataReporter CSV (what an OpenMM user has); reference: OpenMM's System and CSV
+
+
+OMM_RIGID = ["tip3p_rigid_nve_verlet", "tip3p_rigid_nvt_langevin"]
+
+
+@pytest.mark.parametrize("run", OMM_RIGID)
+def test_openmm_dcd_run_matches_the_engine(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: System.getNumParticles(), Integrator.getStepSize(), StateDataReporter Temperature column
+    # (dof 3N - constraints - 3 = 771 for 387 rigid-water atoms)
+    rep = reported(f"openmm/{run}")["reported"]
+    d_ = ENGINES / "openmm" / run
+    files = [d_ / "trajectory.dcd", d_ / "energies.csv", "--top", d_ / "start.pdb"]
+    code, d, err = cli(capsys, "describe", *files)
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["trajectory.dcd"]
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-6)
+    code, a, err = cli(capsys, "audit", *files)
+    assert code in (0, 1), err
+    assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"]
+    assert abs(a["temperature"]["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
+
+
+@pytest.mark.parametrize("run", ["tip3p_flexible_frames_1fs", "tip3p_flexible_frames_10fs"])
+def test_openmm_flexible_h5md_matches_the_engine(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: OpenMM's State at each frame (frame count and spacing), its System (81 atoms, no
+    # constraints: dof 240), Integrator.getStepSize() = 0.5 fs and the CSV Temperature column
+    rep = reported(f"openmm/{run}")["reported"]
+    d_ = ENGINES / "openmm" / run
+    files = [d_ / "frames.h5md", d_ / "energies.csv", "--top", d_ / "start.pdb"]
+    code, d, err = cli(capsys, "describe", *files)
+    assert code == 0, err
+    assert d["n_atoms"] == rep["atoms"]
+    assert d["n_frames"] == rep["frames"]["frames.h5md"]
+    assert d["frame_spacing_ps"] == pytest.approx(rep["frame_interval_fs"]["frames.h5md"] * 1e-3, rel=1e-6)
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-6)
+    code, a, err = cli(capsys, "audit", *files)
+    assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"]
+    assert abs(a["temperature"]["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
+
+
+# ------------------------------------------------------------------------------------------------
+# CP2K: positions xyz + .ener + main output; reference argon.out (MD_PAR, DOF) and the .ener columns
+
+
+@pytest.mark.parametrize("run", ["argon_fist_nve", "argon_fist_nvt_csvr"])
+def test_cp2k_ener_matches_the_engine(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: argon-1.ener as CP2K wrote it (Temp[K] column mean over its 101 rows, Step Nr. x 4 fs)
+    rep = reported(f"cp2k/{run}")["reported"]
+    ener = ENGINES / "cp2k" / run / "argon-1.ener"
+    code, d, err = cli(capsys, "describe", ener)
+    assert code == 0, err
+    assert d["energy_rows"] == rep["frames"]["argon-1.ener"]
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    code, a, err = cli(capsys, "audit", ener)
+    assert code in (0, 1), err
+    assert abs(sampling(a, "temperature")["mean"] - rep["temperature_mean_K"]) < T_TOL_K
+    # Cons Qty (including the thermostat's energy) is what CP2K conserves, in NVE and NVT alike
+    assert "cons qty" in a["energy"]["series_label"].lower(), a["energy"]["series_label"]
+
+
+@pytest.mark.parametrize("run", ["argon_fist_nve", "argon_fist_nvt_csvr"])
+def test_cp2k_main_output_gives_ensemble_and_dof(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: argon.out 'MD_PAR| Ensemble type', 'DOF| Degrees of freedom 765', 'THERMOSTAT| Type'
+    rep = reported(f"cp2k/{run}")["reported"]
+    d_ = ENGINES / "cp2k" / run
+    code, d, err = cli(capsys, "describe", d_ / "argon-1.ener", d_ / "argon.out")
+    assert code == 0, err
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+    assert engine_dof(d) == rep["degrees_of_freedom"]
+    code, a, err = cli(capsys, "audit", d_ / "argon-1.ener", d_ / "argon.out")
+    assert code in (0, 1), err
+    assert a["thermostatted"] is (rep["ensemble"] == "NVT")
+
+
+# ------------------------------------------------------------------------------------------------
+# AMBER mdout and NAMD log laid out per ENGINES.md (NOT engine output); reference: the numbers written
+# into them (reported.json), themselves those of the OpenMM Langevin run in kcal/mol
+
+
+@pytest.mark.parametrize("folder,name", [("amber/water_langevin_layout", "mdout"),
+                                         ("namd/water_langevin_layout", "water.log")])
+def test_amber_and_namd_layouts(folder: str, name: str, capsys: pytest.CaptureFixture[str]) -> None:
+    info = reported(folder)
+    assert "not engine output" in info["origin"]
+    rep = info["reported"]
+    code, d, err = cli(capsys, "describe", ENGINES / folder / name)
+    assert code == 0, err
+    assert d["energy_rows"] == rep["records"]  # the averages and RMS blocks of an mdout are not records
+    assert d["metadata"].get("timestep_ps") == pytest.approx(rep["time_step_ps"], rel=1e-9)
+    code, a, err = cli(capsys, "audit", ENGINES / folder / name)
+    assert code in (0, 1), err
+    assert abs(sampling(a, "temperature")["mean"] - rep["temperature_mean_K"]) < 0.01  # printed to 0.01 K
+    assert sampling(a, "total")["mean"] == pytest.approx(rep["total_energy_mean_kcal_mol"] * KCAL_TO_KJ, rel=1e-5)
+
+
+@pytest.mark.parametrize("folder,name", [("amber/water_langevin_layout", "mdout"),
+                                         ("namd/water_langevin_layout", "water.log")])
+def test_amber_and_namd_layouts_thermostat(folder: str, name: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the Langevin section of the mdout (ENGINES.md: "a section named by ntt"; &cntrl ntt=3,
+    # temp0=300) and NAMD's "Info: LANGEVIN TEMPERATURE 300"
+    rep = reported(folder)["reported"]
+    code, d, err = cli(capsys, "describe", ENGINES / folder / name)
+    assert code == 0, err
+    assert d["metadata"].get("ensemble") == rep["ensemble"]
+    assert d["metadata"].get("temperature_K") == pytest.approx(rep["target_temperature_K"])
+    code, a, err = cli(capsys, "audit", ENGINES / folder / name)
+    assert a["thermostatted"] is True
+
+
+def test_amber_layout_dof(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the mdout line 'TOTAL # of degrees of freedom (RNDF) = 771.' (ENGINES.md)
+    rep = reported("amber/water_langevin_layout")["reported"]
+    code, d, err = cli(capsys, "describe", ENGINES / "amber" / "water_langevin_layout" / "mdout")
+    assert code == 0, err
+    assert engine_dof(d) == rep["degrees_of_freedom"]
+
+
+# ------------------------------------------------------------------------------------------------
+# The script that made the files still works (needs LAMMPS; deterministic on one process)
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(shutil.which("lmp") is None, reason="LAMMPS (lmp) is not installed")
+def test_make_engine_runs_lammps_reproduces_the_committed_log_numbers(tmp_path: Path) -> None:
+    spec = importlib.util.spec_from_file_location("make_engine_runs", ENGINES / "make_engine_runs.py")
+    assert spec is not None and spec.loader is not None
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    mod.make_lammps(tmp_path)
+    for run in LMP_RUNS:
+        new = json.loads((tmp_path / "lammps" / run / "reported.json").read_text())["reported"]
+        old = reported(f"lammps/{run}")["reported"]
+        assert new["degrees_of_freedom"] == old["degrees_of_freedom"]
+        assert new["temperature_mean"] == pytest.approx(old["temperature_mean"], rel=1e-3)
