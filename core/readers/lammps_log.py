@@ -150,7 +150,7 @@ def _parse_body(body: str, ncol: int, path: Path, line0: int) -> np.ndarray:
         if not numeric or len(parts) != ncol:
             if s.startswith("WARNING") or not numeric:
                 continue
-            raise EnergyTableError(f"line {line0 + k + 1}: {len(parts)} values in a thermo row, the header has "
+            raise EnergyTableError(f"line {line0 + k}: {len(parts)} values in a thermo row, the header has "
                                    f"{ncol}", path=path)
         keep.append(s)
     if not keep:
@@ -164,7 +164,7 @@ def _parse_body(body: str, ncol: int, path: Path, line0: int) -> np.ndarray:
 def _scan(text: str, path: Path) -> tuple[list[_Block], dict[str, Any]]:
     """Walk the log: commands between blocks set the state each block is read with."""
     state: dict[str, Any] = {"units": None, "dt": None, "fixes": {}, "norm": None, "last_cmd": None,
-                             "shake": {}, "version": None, "multi": False}
+                             "shake": {}, "version": None, "multi": False, "warnings": []}
     m = re.match(r"\s*LAMMPS \(([^)]*)\)", text)
     if m:
         state["version"] = m.group(1)
@@ -183,6 +183,10 @@ def _scan(text: str, path: Path) -> tuple[list[_Block], dict[str, Any]]:
         if nh is not None and nh[0] < end:
             end, complete = nh[0], False
         line0 = text.count("\n", 0, body_start) + 1
+        if not complete and end == len(text) and not text.endswith("\n") and "\n" in text[body_start:]:
+            end = text.rfind("\n") + 1  # a run killed while writing a row: that row is not used
+            state["warnings"].append(f"{path.name}: the last thermo row is cut off (the run was stopped while "
+                                     "writing it); it is not used")
         values = _parse_body(text[body_start:end], len(names), path, line0)
         n_atoms = int(lm.group(2)) if (lm and complete) else None
         blocks.append(_Block(kind=state["last_cmd"] or "run", names=names, values=values, n_atoms=n_atoms,
@@ -294,6 +298,7 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
         raise InputError(f"cannot read ({exc})", path=path) from exc
     warnings: list[str] = []
     blocks, state = _scan(text, path)
+    warnings.extend(state["warnings"])
     if state["multi"]:
         raise EnergyTableError("thermo output in the 'multi' or 'yaml' line layout is not read; rerun with the "
                                "default one-line layout (thermo_modify line one)", path=path)

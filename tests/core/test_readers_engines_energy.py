@@ -610,3 +610,62 @@ def test_a_gromacs_folder_takes_energies_from_the_edr_and_parameters_from_the_lo
     assert len(run.energies) == rep["frames"]["edr"]  # not the 21 log steps
     assert run.metadata.n_dof == rep["degrees_of_freedom"] and run.metadata.sources["n_dof"].startswith("md.log")
     assert any("md.log: energies taken from the .edr" in w for w in run.warnings)
+
+
+def test_lammps_runs_of_different_ensembles_read_the_last(tmp_path):
+    # NVT equilibration then NVE production in one log: the production run is what is judged
+    text = ("LAMMPS (29 Sep 2021)\nunits metal\ntimestep 0.002\nfix 1 all nvt temp 100 100 0.1\nrun 10\n"
+            "Step Temp TotEng\n 0 90 -1.0\n 10 95 -1.1\nLoop time of 0.1 on 1 procs for 10 steps with 10 atoms\n"
+            "unfix 1\nfix 2 all nve\nrun 10\nStep Temp TotEng\n 10 95 -1.1\n 20 96 -1.1\n"
+            "Loop time of 0.1 on 1 procs for 10 steps with 10 atoms\n")
+    p = tmp_path / "log.lammps"
+    p.write_text(text)
+    run = open_run([p])
+    np.testing.assert_allclose(run.energies.time_ps, [0.020, 0.040])  # step x 0.002 ps, the repeat dropped
+    assert run.metadata.ensemble == "NVE" and run.metadata.thermostat == "none"
+    assert any("different ensembles; the last (from step 10) is read" in w for w in run.warnings)
+
+
+def test_lammps_killed_run_and_multi_layout(tmp_path):
+    p = tmp_path / "log.lammps"
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nfix 1 all nve\nrun 100\nStep Temp TotEng\n 0 90 -1.0\n"
+                 " 10 95 -1.1\n 20 96")  # killed while writing a row: the complete rows are used
+    run = open_run([p])
+    assert len(run.energies) == 2 and any("the last thermo row is cut off" in w for w in run.warnings)
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nfix 1 all nve\nrun 100\nStep Temp TotEng\n 0 90 -1.0\n"
+                 " 10 95\n 20 96 -1.1\n")
+    with pytest.raises(EnergyTableError, match="line 7: 2 values in a thermo row, the header has 3"):
+        open_run([p])
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nfix 1 all nve\nrun 100\nStep Temp TotEng\n 0 90 -1.0\n 10 95 -1.1\n")
+    run = open_run([p])
+    assert len(run.energies) == 2 and any("no 'Loop time' line" in w for w in run.warnings)
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nthermo_modify line multi\nrun 10\n")
+    with pytest.raises(EnergyTableError, match="'multi'"):
+        open_run([p])
+
+
+def test_units_option_on_the_command_line(tmp_path, capsys):
+    kes = {f"ke{i}": "1.0" for i in range(4)}
+    p = tmp_path / "log.lammps"
+    p.write_text(LOG_HEAD.format(units="", **kes))
+    assert main(["describe", str(p), "--units", "metal"]) == 0
+    out = capsys.readouterr().out
+    assert "unit style: lammps metal stated (--units)" in out and "time step 1 fs" not in out
+    with pytest.raises(SystemExit) as exc:  # argparse refuses a style LAMMPS does not have
+        main(["describe", str(p), "--units", "furlongs"])
+    assert exc.value.code == 2
+
+
+@pytest.mark.parametrize("name,text,match", [
+    ("bad-1.ener", "#     Step Nr.          Time[fs]        Kin.[a.u.]\n 0 0.0 0.1\n 1 0.5\n", "numbers the header"),
+    ("run.log", "Info: NAMD 2.14\nETITLE: TS TOTAL\nENERGY: 0 -1.0\n", "TIMESTEP"),
+    ("run2.log", "Info: NAMD 2.14\nInfo: TIMESTEP 2\nENERGY: 0 -1.0\n", "before any ETITLE"),
+])
+def test_bad_engine_files_are_one_line_exit_2(tmp_path, capsys, name, text, match):
+    p = tmp_path / name
+    p.write_text(text)
+    with pytest.raises(InputError, match=match):
+        open_run([p])
+    assert main(["describe", str(p)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and name in err[0]
