@@ -669,3 +669,11 @@ def test_bad_engine_files_are_one_line_exit_2(tmp_path, capsys, name, text, matc
     assert main(["describe", str(p)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and name in err[0]
+
+
+def test_the_audit_gets_the_engine_facts(capsys):
+    # a v-rescale run is judged as thermostatted, by its conserved quantity (md.log beside the .edr says so)
+    assert main(["audit", str(DATA / "gromacs" / "spce_rigid_nvt_vrescale" / "md.edr"), "--json"]) in (0, 1)
+    out = json.loads(capsys.readouterr().out)
+    assert out["ensemble"] == "NVT" and out["thermostatted"] is True
+    assert "Conserved En." in out["energy"]["series_columns"]
