@@ -46,6 +46,45 @@ from phasewake.core.readers.common import iter_frame_chunks
 if TYPE_CHECKING:
     from phasewake.core.run import Run
 
+from phasewake.core.verdicts import Explanation, Threshold, register  # noqa: E402
+
+register(
+    Threshold("transport.vacf_resolution", caution=5.0, problem=2.0, unit="frames per decay",
+              source="common practice: a trapezoid integral needs several points across the decay of the "
+                     "integrand (the VACF falls to 1/e within 2 frames: the first interval alone holds most of "
+                     "the integral, biased high by up to (spacing x decay rate)/2)",
+              higher_is_worse=False,
+              description="frames within which the normalised VACF falls to 1/e"),
+    Explanation(
+        title="Green-Kubo integral resolved",
+        what="Whether the velocities are saved often enough for the Green-Kubo integral of their "
+             "autocorrelation: the VACF must be sampled across its decay.",
+        method="The lag (in frames) where the normalised VACF first falls to 1/e, interpolated linearly.",
+        threshold="Below 2 frames the Green-Kubo value is unreliable and not used (common practice); below 5 a "
+                  "caution.",
+        advice="Use the mean-squared displacement (Einstein) of the same run, or save velocities every few fs "
+               "in a short extra run for Green-Kubo.",
+    ),
+)
+register(
+    Threshold("transport.gk_msd_agreement", caution=3.0, problem=10.0, unit="combined standard errors",
+              source="common practice (a difference beyond 3 combined standard errors is more than noise; "
+                     "beyond 10 one of the two values is wrong)",
+              description="difference of the Green-Kubo and Einstein (MSD) diffusion coefficients"),
+    Explanation(
+        title="Green-Kubo against mean-squared displacement",
+        what="Whether the two routes to the diffusion coefficient of the same atoms agree.",
+        method="D from the integral of the VACF (Green 1954, Kubo 1957) and from the slope of the MSD "
+               "(Einstein), each with a standard error from contiguous blocks of time origins (block "
+               "averaging; the VACF integral's error also includes half the spread of the running integral "
+               "over its plateau).",
+        threshold="A difference beyond 3 combined standard errors is a caution, beyond 10 a problem (common "
+                  "practice).",
+        advice="Disagreement usually means coarse frames (Green-Kubo biased), a short run (MSD not yet linear), "
+               "or unwrapping problems (MSD). Check the VACF resolution and the MSD fit range.",
+    ),
+)
+
 SPEED_OF_LIGHT_CM_PER_S = 2.99792458e10  # exact (SI 2019)
 PS_PER_S = 1e12
 BOLTZMANN_KJ_PER_MOL_K = 0.00831446261815324  # N_A k_B, exact since SI 2019
@@ -637,6 +676,33 @@ class GreenKuboResult:
     lag_ps: np.ndarray  # (L,)
     dimensions: int
     settings: dict[str, Any] = field(default_factory=dict)
+    decay_frames: float = float("nan")  # lag (frames) where the normalised VACF first falls to 1/e
+    reliable: bool = True  # False: the VACF decays within too few frames (transport.vacf_resolution)
+    plateau_spread_nm2_per_ps: float = float("nan")  # half the range of the running integral from the limit to 2x it
+    block_values_nm2_per_ps: np.ndarray = field(default_factory=lambda: np.zeros(0))  # D of contiguous time blocks
+    block_error_nm2_per_ps: float | None = None  # standard error of the mean over blocks
+
+    @property
+    def error_nm2_per_ps(self) -> float | None:
+        """Standard error: block error and plateau spread combined in quadrature (None without blocks)."""
+        if self.block_error_nm2_per_ps is None:
+            return None
+        spread = self.plateau_spread_nm2_per_ps if math.isfinite(self.plateau_spread_nm2_per_ps) else 0.0
+        return float(math.hypot(self.block_error_nm2_per_ps, spread))
+
+
+def decay_frames(vacf_row: np.ndarray, level: float = math.exp(-1.0)) -> float:
+    """Lag in frames where ``vacf_row / vacf_row[0]`` first falls to ``level`` (linear interpolation);
+    the window length when it never does."""
+    c = np.asarray(vacf_row, dtype=float)
+    if c.size < 2 or not c[0] > 0:
+        return float("nan")
+    r = c / c[0]
+    below = np.flatnonzero(r <= level)
+    if below.size == 0:
+        return float(c.size - 1)
+    k = int(below[0])
+    return float(k - 1 + (r[k - 1] - level) / (r[k - 1] - r[k]))
 
 
 def green_kubo(result: VACFResult, *, group: int | str = 0, limit_ps: float | None = None,
@@ -681,12 +747,23 @@ def green_kubo(result: VACFResult, *, group: int | str = 0, limit_ps: float | No
         rule = (f"first lag where |VACF| stays within {noise_sigmas:g} x noise for {hold} lags"
                 if ok.size else "end of the lag window (the VACF did not decay into its noise)")
     d = float(running[k])
+    plateau = running[k:min(c.size, 2 * k + 1)]
+    dec = decay_frames(c)
     return GreenKuboResult(
         group=result.groups[gi], diffusion_nm2_per_ps=d, diffusion_cm2_per_s=d * NM2_PER_PS_TO_CM2_PER_S,
         limit_ps=float(t[k]), limit_rule=rule, noise_nm2_per_ps2=noise, running_integral_nm2_per_ps=running,
         lag_ps=t, dimensions=dimensions,
         settings={"limit_ps": limit_ps, "noise_sigmas": noise_sigmas, "hold_fraction": hold_fraction},
+        decay_frames=dec,
+        reliable=not (dec < _threshold("transport.vacf_resolution").problem),
+        plateau_spread_nm2_per_ps=float(0.5 * (plateau.max() - plateau.min())) if plateau.size > 1 else float("nan"),
     )
+
+
+def _threshold(kind: str) -> Threshold:
+    from phasewake.core.verdicts import THRESHOLDS
+
+    return THRESHOLDS[kind]
 
 
 def yeh_hummer_correction_nm2_per_ps(*, temperature_K: float, viscosity_mPa_s: float, box_edge_nm: float) -> float:
@@ -700,6 +777,124 @@ def yeh_hummer_correction_nm2_per_ps(*, temperature_K: float, viscosity_mPa_s: f
     kt_j = 1.380649e-23 * temperature_K
     d_m2_s = YEH_HUMMER_XI * kt_j / (6.0 * math.pi * viscosity_mPa_s * 1e-3 * box_edge_nm * 1e-9)
     return d_m2_s * 1e6  # m^2/s -> nm^2/ps
+
+
+@dataclass(frozen=True)
+class TransportResult:
+    """Diffusion of each group by Green-Kubo and by the MSD, with block errors and their comparison."""
+
+    vacf: VACFResult
+    green_kubo: tuple[GreenKuboResult, ...]
+    msd: MSDResult | None
+    msd_block_error_nm2_per_ps: tuple[float | None, ...]  # per group
+    n_blocks: int
+    verdicts: tuple[Any, ...]
+    notes: tuple[str, ...] = ()
+
+
+def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
+              limit_ps: float | None = None, max_lag_ps: float | None = None,
+              fit_range_ps: tuple[float, float] | None = None, start: int = 0, stop: int | None = None,
+              n_blocks: int = 5, with_msd: bool = True, chunk_frames: int = 256,
+              vacf_result: VACFResult | None = None) -> Work[TransportResult]:
+    """Green-Kubo and Einstein diffusion with error bars and their comparison (generator).
+
+    The whole run gives each value; ``n_blocks`` contiguous blocks of time origins give its standard
+    error (block averaging: the standard deviation of the block values over sqrt(blocks)); the Green-Kubo
+    error also holds half the spread of the running integral from the limit to twice it. The Green-Kubo
+    value is marked unreliable (and the comparison says so) when the VACF decays within fewer frames than
+    ``transport.vacf_resolution`` allows: with velocities 100 fs apart in water the first trapezoid alone
+    overestimates D several times. Blocks shorter than 4 limits (or 16 frames) are not used.
+    """
+    import dataclasses
+
+    from phasewake.core.verdicts import judge
+
+    if vacf_result is not None and not vacf_result.mass_weighted:
+        res = vacf_result  # the same run, groups and frames, computed already (not re-read)
+    else:
+        res = yield from vacf(run, groups=groups, max_lag_ps=max_lag_ps, start=start, stop=stop,
+                              chunk_frames=chunk_frames)
+    gks = [green_kubo(res, group=i, limit_ps=limit_ps) for i in range(len(res.groups))]
+    msd_res = None
+    if with_msd and run.frames is not None:
+        msd_res = yield from msd(run, groups=groups, max_lag_ps=max_lag_ps, fit_range_ps=fit_range_ps,
+                                 start=start, stop=stop, chunk_frames=chunk_frames)
+    n_total = len(range(start, run.n_frames if stop is None else min(stop, run.n_frames)))
+    k_max = max(int(round(g.limit_ps / res.dt_ps)) for g in gks)
+    b = int(n_blocks)
+    while b >= 3 and n_total // b < max(16, 4 * k_max):
+        b -= 1
+    notes: list[str] = []
+    msd_err: list[float | None] = [None] * len(res.groups)
+    if b >= 3:
+        size = n_total // b
+        gk_blocks = np.zeros((len(res.groups), b))
+        msd_blocks = np.zeros((len(res.groups), b))
+        for j in range(b):
+            s0 = start + j * size
+            rb = yield from vacf(run, groups=groups, max_lag_ps=max(k_max + 1, 8) * res.dt_ps, start=s0, stop=s0 + size,
+                                 chunk_frames=chunk_frames)
+            for i, g in enumerate(gks):
+                gk_blocks[i, j] = green_kubo(rb, group=i, limit_ps=g.limit_ps).diffusion_nm2_per_ps
+            if msd_res is not None:
+                lo, hi = msd_res.fit_range_ps
+                mb = yield from msd(run, groups=groups, max_lag_ps=min(hi, (size // 2) * res.dt_ps),
+                                    fit_range_ps=(lo, min(hi, (size // 2 - 1) * res.dt_ps)), start=s0,
+                                    stop=s0 + size, chunk_frames=chunk_frames)
+                msd_blocks[:, j] = mb.diffusion_nm2_per_ps
+        gks = [dataclasses.replace(g, block_values_nm2_per_ps=gk_blocks[i],
+                                   block_error_nm2_per_ps=float(np.std(gk_blocks[i], ddof=1) / math.sqrt(b)))
+               for i, g in enumerate(gks)]
+        if msd_res is not None:
+            msd_err = [float(np.std(msd_blocks[i], ddof=1) / math.sqrt(b)) for i in range(len(res.groups))]
+    else:
+        notes.append(f"no block error bars: {n_total} frames make fewer than 3 blocks of at least "
+                     f"{max(16, 4 * k_max)} frames (4 Green-Kubo limits)")
+    verdicts = []
+    for i, g in enumerate(gks):
+        spacing_fs = res.dt_ps * 1e3
+        msg = (f"{g.group}: the VACF falls to 1/e within {g.decay_frames:.2g} frames ({spacing_fs:.3g} fs apart)")
+        if not g.reliable:
+            msg += (f": the Green-Kubo value {g.diffusion_nm2_per_ps:.3g} nm^2/ps rests on the first interval or two "
+                    "and is unreliable (biased high); it is not used")
+        verdicts.append(judge("transport.vacf_resolution", g.decay_frames, title=f"Green-Kubo resolution ({g.group})",
+                              unit="frames per decay", message=msg,
+                              advice=_explanation("transport.vacf_resolution")))
+        if msd_res is not None:
+            dm = float(msd_res.diffusion_nm2_per_ps[i])
+            rel = (g.diffusion_nm2_per_ps - dm) / dm if dm else float("inf")
+            e1, e2 = g.error_nm2_per_ps, msd_err[i]
+            words = (f"{g.group}: Green-Kubo D = {_pm(g.diffusion_nm2_per_ps, e1)} nm^2/ps, MSD (Einstein) D = "
+                     f"{_pm(dm, e2)} nm^2/ps: Green-Kubo is {100 * rel:+.0f}% of the MSD value")
+            if not g.reliable:
+                words += "; the Green-Kubo value is unreliable (coarse frames): use the MSD value"
+            if e1 is not None and e2 is not None and (e1 > 0 or e2 > 0):
+                z = abs(g.diffusion_nm2_per_ps - dm) / math.hypot(e1, e2)
+                v = judge("transport.gk_msd_agreement", z, title=f"Green-Kubo vs MSD ({g.group})",
+                          unit="combined standard errors", message=words + f" ({z:.1f} combined standard errors)",
+                          advice=_explanation("transport.gk_msd_agreement"))
+            else:
+                from phasewake.core.verdicts import THRESHOLDS, Verdict
+
+                v = Verdict("transport.gk_msd_agreement", "info", f"Green-Kubo vs MSD ({g.group})", None, "",
+                            words + " (no error bars: too few frames for blocks)",
+                            threshold=THRESHOLDS["transport.gk_msd_agreement"])
+            if not g.reliable and v.level in ("ok", "info"):
+                v = dataclasses.replace(v, level="caution")
+            verdicts.append(v)
+    return TransportResult(vacf=res, green_kubo=tuple(gks), msd=msd_res, msd_block_error_nm2_per_ps=tuple(msd_err),
+                           n_blocks=b if b >= 3 else 0, verdicts=tuple(verdicts), notes=tuple(notes))
+
+
+def _pm(value: float, error: float | None) -> str:
+    return f"{value:.4g}" if error is None else f"{value:.4g} +- {error:.2g}"
+
+
+def _explanation(kind: str) -> str:
+    from phasewake.core.verdicts import EXPLANATIONS
+
+    return EXPLANATIONS[kind].advice
 
 
 # ---------------------------------------------------------------------------------------------------

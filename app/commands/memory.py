@@ -38,7 +38,9 @@ Velocity analysis (needs velocities, stored or estimated by the reader):
 
 * ``--vacf``: velocity autocorrelation per ``--group`` (repeatable; an index, a range ``3-17``, a list
   ``[1, 4, 7-9]`` or a quoted mdtraj atom query ``"name OW"``); the Green-Kubo diffusion coefficient
-  with the integration limit chosen automatically (or ``--gk-limit PS``) and reported; with
+  with the integration limit chosen automatically (or ``--gk-limit PS``) and reported, with an error
+  bar (blocks of time origins and the spread over the plateau), marked unreliable when the VACF decays
+  within a frame or two, and compared with the MSD (Einstein) value of the same atoms; with
   ``--viscosity`` (mPa s, of the simulated model) and ``--box-edge`` (nm, cubic box) the Yeh-Hummer
   finite-size correction;
 * ``--msd``: mean-squared displacement (unwrapped through the box) and the Einstein diffusion
@@ -304,8 +306,12 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
         vres = run_with_progress(through_cache("vacf", V.vacf, **kw), "VACF")
         out["vacf"] = vres
         if not args.mass_weighted:
-            gk = [V.green_kubo(vres, group=i, limit_ps=args.gk_limit) for i in range(len(vres.groups))]
-            out["green_kubo"] = gk
+            fit = tuple(args.fit_range) if args.fit_range else None
+            tr = run_with_progress(V.transport(run, groups=groups, limit_ps=args.gk_limit, max_lag_ps=args.max_lag,
+                                               fit_range_ps=fit, start=args.start, stop=args.stop,
+                                               vacf_result=vres), "Green-Kubo and MSD with block errors")
+            out["transport"] = tr
+            out["green_kubo"] = list(tr.green_kubo)
             if args.viscosity is not None:
                 edge = args.box_edge
                 if edge is None and run.frames is not None and run.frames.has_box:
@@ -398,7 +404,17 @@ def _velocity_json(v: dict[str, Any]) -> dict[str, Any]:
     if "green_kubo" in v:
         out["green_kubo"] = [{"group": g.group, "diffusion_nm2_per_ps": g.diffusion_nm2_per_ps,
                               "diffusion_cm2_per_s": g.diffusion_cm2_per_s, "limit_ps": g.limit_ps,
-                              "limit_rule": g.limit_rule} for g in v["green_kubo"]]
+                              "limit_rule": g.limit_rule, "reliable": g.reliable, "decay_frames": g.decay_frames,
+                              "standard_error_nm2_per_ps": g.error_nm2_per_ps,
+                              "block_error_nm2_per_ps": g.block_error_nm2_per_ps,
+                              "plateau_spread_nm2_per_ps": g.plateau_spread_nm2_per_ps,
+                              "block_values_nm2_per_ps": g.block_values_nm2_per_ps} for g in v["green_kubo"]]
+    if "transport" in v:
+        tr = v["transport"]
+        out["transport"] = {"n_blocks": tr.n_blocks, "notes": list(tr.notes),
+                            "msd_diffusion_nm2_per_ps": None if tr.msd is None else tr.msd.diffusion_nm2_per_ps,
+                            "msd_block_error_nm2_per_ps": list(tr.msd_block_error_nm2_per_ps),
+                            "verdicts": [x.to_dict() for x in tr.verdicts]}
     if "yeh_hummer" in v:
         out["yeh_hummer"] = v["yeh_hummer"]
     if "msd" in v:
@@ -484,8 +500,28 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         for i, name in enumerate(r.groups):
             w(f"    group {name}: {int(r.n_atoms_per_group[i])} atoms, C(0) = {_g(r.vacf[i, 0])} {r.unit}\n")
         for g in vel.get("green_kubo", []):
-            w(f"    Green-Kubo D ({g.group}) = {_g(g.diffusion_nm2_per_ps)} nm^2/ps = {_g(g.diffusion_cm2_per_s)} cm^2/s, "
-              f"integrated to {_g(g.limit_ps)} ps ({g.limit_rule})\n")
+            err = g.error_nm2_per_ps
+            pm = "" if err is None else f" +- {err:.2g}"
+            flag = "" if g.reliable else "UNRELIABLE (the VACF decays within a frame or two; use the MSD): "
+            w(textwrap.fill(f"Green-Kubo D ({g.group}) = {flag}{_g(g.diffusion_nm2_per_ps)}{pm} nm^2/ps = "
+                        f"{_g(g.diffusion_cm2_per_s)} cm^2/s, integrated to {_g(g.limit_ps)} ps ({g.limit_rule}); "
+                        f"VACF 1/e decay in {g.decay_frames:.3g} frames; error from "
+                        + ("no blocks (too few frames)" if g.block_error_nm2_per_ps is None else
+                           f"{len(g.block_values_nm2_per_ps)} blocks of time origins (+- "
+                           f"{g.block_error_nm2_per_ps:.2g}) and the plateau spread (+- "
+                           f"{g.plateau_spread_nm2_per_ps:.2g})"), width=100, initial_indent="    ",
+                            subsequent_indent="      ") + "\n")
+        tr = vel.get("transport")
+        if tr is not None and tr.msd is not None:
+            for i, name in enumerate(tr.msd.groups):
+                e = tr.msd_block_error_nm2_per_ps[i]
+                dm = float(tr.msd.diffusion_nm2_per_ps[i])
+                gi = tr.green_kubo[i].diffusion_nm2_per_ps if i < len(tr.green_kubo) else float("nan")
+                rel = f"; Green-Kubo is {100 * (gi - dm) / dm:+.0f}% of it" if dm else ""
+                w(f"    MSD (Einstein) D ({name}) = {_g(dm)}{'' if e is None else f' +- {e:.2g}'} nm^2/ps, "
+                  f"for comparison{rel}\n")
+        for n in ([] if tr is None else tr.notes):
+            w(wrap.fill(f"note: {n}") + "\n")
         if "yeh_hummer" in vel:
             y = vel["yeh_hummer"]
             w(f"    Yeh-Hummer correction +{_g(y['correction_nm2_per_ps'])} nm^2/ps (L = {_g(y['box_edge_nm'])} nm, "
@@ -525,6 +561,8 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         w(f"\n  Thirumalai-Mountain metric ({t.n_particles} atoms, {t.quantity}): late log-log slope "
           f"{t.late_slope:.2f} (ergodic: -1), D = {_g(t.d_per_ps)} 1/ps\n")
     verdict_list = [v for a in analyses for v in a["verdicts"]]
+    if "transport" in vel:
+        verdict_list.extend(vel["transport"].verdicts)
     if "tm_verdict" in vel:
         verdict_list.append(vel["tm_verdict"])
     if verdict_list:
@@ -562,6 +600,8 @@ def run(args: argparse.Namespace) -> int:
     levels = [v.level for a in analyses for v in a["verdicts"]]
     if "tm_verdict" in vel:
         levels.append(vel["tm_verdict"].level)
+    if "transport" in vel:
+        levels.extend(v.level for v in vel["transport"].verdicts)
     if args.json:
         print_json({"run": run_.name, "files": [str(p) for p in run_.paths], "warnings": list(run_.warnings),
                     "series": [_series_json(a) for a in analyses], **_velocity_json(vel),

@@ -179,3 +179,23 @@ def test_help_documents_options(capsys):
     for opt in ("--series", "--coordinate", "--vacf", "--spectrum", "--msd", "--tm", "--replica", "--group",
                 "--max-lag", "--method", "--json"):
         assert opt in text
+
+
+def test_vacf_on_water_frames_100_fs_apart_is_unreliable_and_compared_with_msd(capsys):
+    # rigid TIP3P NVE made with OpenMM, velocities every 50 steps of 2 fs (tests/data/engines, reported.json):
+    # the Green-Kubo was 8.7x the MSD value, silently
+    folder = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm" / "tip3p_rigid_nve_verlet"
+    if not (folder / "frames.h5md").exists():
+        pytest.skip("engine runs not generated")
+    rc = main(["memory", str(folder / "frames.h5md"), "--top", str(folder / "start.pdb"), "--vacf", "--no-cache"])
+    text = capsys.readouterr().out
+    assert rc == 1
+    assert "UNRELIABLE" in text and "use the MSD" in text
+    assert "MSD (Einstein) D" in text and "Green-Kubo is" in text
+    rc = main(["memory", str(folder / "frames.h5md"), "--top", str(folder / "start.pdb"), "--vacf", "--no-cache",
+               "--json"])
+    out = _json(capsys)
+    gk = out["green_kubo"][0]
+    assert gk["reliable"] is False and gk["decay_frames"] < 2
+    kinds = {v["kind"]: v["level"] for v in out["transport"]["verdicts"]}
+    assert kinds["transport.vacf_resolution"] == "problem" and kinds["transport.gk_msd_agreement"] == "caution"
