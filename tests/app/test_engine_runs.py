@@ -462,3 +462,56 @@ def test_make_engine_runs_lammps_reproduces_the_committed_log_numbers(tmp_path: 
         old = reported(f"lammps/{run}")["reported"]
         assert new["degrees_of_freedom"] == old["degrees_of_freedom"]
         assert new["temperature_mean"] == pytest.approx(old["temperature_mean"], rel=1e-3)
+
+
+# ------------------------------------------------------------------------------------------------
+# Bad input made from the real files: one line naming the file, exit 2, no traceback
+
+
+def one_line_error(capsys: pytest.CaptureFixture[str], *args: str | Path) -> str:
+    capsys.readouterr()
+    code = main(["describe", *[str(a) for a in args]])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err, err
+    return err
+
+
+def test_lammps_log_without_a_thermo_block(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # the real log.lammps cut before its first thermo header (a run that died in setup)
+    text = (ENGINES / "lammps" / "argon_real_nve" / "log.lammps").read_text()
+    cut = tmp_path / "log.lammps"
+    cut.write_text(text[: text.index("\nStep ")] + "\n")
+    err = one_line_error(capsys, cut)
+    assert "log.lammps" in err and "thermo" in err
+
+
+def test_lammps_dump_without_the_id_column(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # the real dump with its id column removed: atoms cannot be matched between frames
+    lines = (ENGINES / "lammps" / "argon_real_nve" / "dump.lammpstrj").read_text().splitlines()
+    out, in_atoms = [], False
+    for line in lines:
+        if line.startswith("ITEM: ATOMS"):
+            out.append(line.replace(" id", "", 1))
+            in_atoms = True
+        elif line.startswith("ITEM:"):
+            out.append(line)
+            in_atoms = False
+        else:
+            out.append(" ".join(line.split()[1:]) if in_atoms else line)
+    bad = tmp_path / "noid.lammpstrj"
+    bad.write_text("\n".join(out) + "\n")
+    err = one_line_error(capsys, bad, ENGINES / "lammps" / "argon_real_nve" / "log.lammps")
+    assert "noid.lammpstrj" in err and "id" in err
+
+
+def test_parts_with_different_atom_counts(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # part 2 of the real three-part run rewritten (by mdtraj) without its last water: not the same system
+    import mdtraj as md
+
+    parts = ENGINES / "gromacs" / "spce_rigid_nve_parts"
+    t = md.load(str(parts / "md.part0002.xtc"), top=str(parts / "md.gro"))
+    small = tmp_path / "md.part0002.xtc"
+    t.atom_slice(range(t.n_atoms - 3)).save_xtc(str(small))
+    err = one_line_error(capsys, parts / "md.xtc", small, "--top", parts / "md.gro")
+    assert "md.part0002.xtc" in err and "399" in err
