@@ -19,9 +19,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 import scipy.constants as sc
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from phasewake.app.cli import main
-from phasewake.core.errors import CorruptFileError, EnergyTableError, InputError
+from phasewake.core.errors import CorruptFileError, EnergyTableError, InputError, PhasewakeError
 from phasewake.core.readers import identify, open_run
 from phasewake.core.readers.describe import describe, format_description
 
@@ -677,3 +679,63 @@ def test_the_audit_gets_the_engine_facts(capsys):
     out = json.loads(capsys.readouterr().out)
     assert out["ensemble"] == "NVT" and out["thermostatted"] is True
     assert "Conserved En." in out["energy"]["series_columns"]
+
+
+@pytest.mark.parametrize("folder,precision", [("gromacs_nsum_single", "single"), ("gromacs_nsum_double", "double")])
+def test_real_edr_with_accumulators_equals_its_md_log(folder, precision):
+    # GROMACS 2022.5 gmx / gmx_d, nstcalcenergy 5 < nstenergy 10 (tests/data/engines_energy/README.md);
+    # reference: the energies the engine printed in md.log (6 significant digits)
+    d = DATA.parent / "engines_energy" / folder
+    e = open_run([d / "md.edr"])
+    g = open_run([d / "md.log"]).energies
+    assert e.metadata.extra["edr_precision"] == precision
+    assert len(e.energies) == 11 and len(g) == 6  # 100 steps: every 10th in the .edr, every 20th in the log
+    idx = np.searchsorted(e.energies.time_ps, g.time_ps)
+    np.testing.assert_allclose(e.energies.time_ps[idx], g.time_ps)
+    for name in g.series:
+        np.testing.assert_allclose(e.energies.series[name].values[idx], g.series[name].values, rtol=6e-6)
+    md = e.metadata
+    assert md.thermostat == "nose-hoover" and md.temperature_K == 300 and md.timestep_ps == pytest.approx(0.001)
+    assert md.n_dof == 801 and md.conserved_quantity == "Conserved En."
+
+
+# ---- fuzzing: every damaged engine file is a result or one of our typed errors -------------------------
+
+_FUZZ = settings(max_examples=120, deadline=None, derandomize=True,
+                 suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+
+
+@_FUZZ
+@given(st.lists(st.tuples(st.integers(0, 10**6), st.integers(0, 255)), min_size=1, max_size=6),
+       st.integers(0, 10**6))
+def test_fuzz_damaged_edr(tmp_path, flips, cut):
+    src = DATA.parent / "engines_energy" / "gromacs_nsum_double" / "md.edr"
+    data = bytearray(src.read_bytes())
+    for pos, val in flips:
+        data[pos % len(data)] = val
+    data = data[: max(1, cut % (len(data) + 1))]
+    p = tmp_path / "fuzz.edr"
+    p.write_bytes(bytes(data))
+    try:
+        run = open_run([p])
+    except PhasewakeError:
+        return
+    assert len(run.energies) >= 1
+
+
+@_FUZZ
+@given(st.lists(st.tuples(st.integers(0, 10**5), st.sampled_from(["\n", " ", "x", "1", "-", "Step ", "Loop time of ",
+                                                                 "units lj\n", "e+", "SHAKE stats", "\n\n"])),
+                min_size=1, max_size=6))
+def test_fuzz_damaged_lammps_log(tmp_path, edits):
+    text = (DATA / "lammps" / "argon_real_two_runs" / "log.lammps").read_text()
+    for pos, piece in edits:
+        k = pos % (len(text) + 1)
+        text = text[:k] + piece + text[k + 1:]
+    p = tmp_path / "log.lammps"
+    p.write_text(text)
+    try:
+        run = open_run([p])
+    except PhasewakeError:
+        return
+    assert len(run.energies) >= 1
