@@ -209,7 +209,7 @@ def _element_for_mass(mass: float) -> str | None:
 
 
 def topology(data: DataFile, *, masses_in_amu: bool, elements: list[str] | None = None) -> mdtraj.Topology:
-    """An mdtraj Topology: one residue per molecule id (one per atom when there are none), atoms named by
+    """An mdtraj Topology: one residue per molecule id (per run of one atom type when there are none), atoms named by
     element when known (from a dump's element column, or a mass matching an element's in a g/mol style),
     else ``T<type>``; the bonds of the data file."""
     import mdtraj as md
@@ -221,13 +221,15 @@ def topology(data: DataFile, *, masses_in_amu: bool, elements: list[str] | None 
     if masses_in_amu:
         type_el = {t: _element_for_mass(mval) for t, mval in data.type_masses.items()}
     res = None
-    last_mol = None
+    last_key: object = None
     for i in range(data.n_atoms):
         mol = int(data.molecules[i]) if data.molecules is not None else None
-        if res is None or mol is None or mol != last_mol:
-            res = top.add_residue("MOL" if mol is not None else f"T{int(data.types[i])}", chain,
+        # a residue per molecule; without molecule ids, per run of atoms of one type
+        key = mol if mol is not None else f"T{int(data.types[i])}"
+        if res is None or key != last_key:
+            res = top.add_residue("MOL" if mol is not None else str(key), chain,
                                   resSeq=mol if mol is not None else i + 1)
-            last_mol = mol
+            last_key = key
         sym = elements[i] if elements else type_el.get(int(data.types[i]))
         try:
             el = elem.get_by_symbol(sym) if sym else elem.virtual
