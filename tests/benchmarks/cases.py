@@ -636,3 +636,40 @@ def engine_energy_lammps_log(full: bool, work: Path) -> Outcome:
         sizes={"rows": n, "MB": round(path.stat().st_size / 1e6, 1), "np_loadtxt_s": round(loadtxt, 4),
                "ratio_to_np_loadtxt": round(meas / loadtxt, 3)}))
     return o
+
+
+def make_lammps_dump(path: Path, n_atoms: int, n_frames: int) -> Path:
+    """A LAMMPS `dump custom` text file (id type x y z vx vy vz, rows in random order, %g like LAMMPS)."""
+    if path.exists():
+        return path
+    rng = _rng()
+    tmp = path.with_suffix(".part")
+    with open(tmp, "w") as f:
+        for k in range(n_frames):
+            f.write(f"ITEM: TIMESTEP\n{100 * k}\nITEM: NUMBER OF ATOMS\n{n_atoms}\nITEM: BOX BOUNDS pp pp pp\n"
+                    "0 50\n0 50\n0 50\nITEM: ATOMS id type x y z vx vy vz\n")
+            rows = np.column_stack([rng.permutation(n_atoms) + 1, np.ones(n_atoms), 50 * rng.random((n_atoms, 3)),
+                                    0.01 * rng.standard_normal((n_atoms, 3))])
+            np.savetxt(f, rows, fmt=["%d", "%d", "%g", "%g", "%g", "%g", "%g", "%g"])
+    tmp.rename(path)
+    return path
+
+
+@case
+def lammps_dump_open_and_read(full: bool, work: Path) -> Outcome:
+    """A LAMMPS dump opened (one scan for the frame index) against a plain read of its bytes; reading
+    every frame (parse, sort by id, units) is measured beside it (notes)."""
+    from phasewake.core.readers import open_run
+
+    n_atoms, n_frames = (20_000, 200) if full else (2_000, 20)
+    path = make_lammps_dump(work / f"bench{n_atoms}x{n_frames}.lammpstrj", n_atoms, n_frames)
+    base = best_of(lambda: _bytes_read(path))
+    meas = best_of(lambda: open_run([path], units_style="real", timestep_ps=0.001))
+    run = open_run([path], units_style="real", timestep_ps=0.001)
+    read = best_of(lambda: sum(c.n_frames for c in run.frames.iter_chunks()), repeat=1)
+    return finish(Outcome(
+        name="lammps_dump_open_and_read", what=f"open a LAMMPS dump of {n_atoms} atoms x {n_frames} frames "
+        "(frame index scan, first frame read)", baseline="np.fromfile of the same bytes", measured_s=meas,
+        baseline_s=base, target="<= 3x the plain read", target_ratio=3.0,
+        sizes={"atoms": n_atoms, "frames": n_frames, "MB": round(path.stat().st_size / 1e6, 1),
+               "read_all_frames_s": round(read, 3), "read_all_ratio": round(read / base, 2)}))
