@@ -48,6 +48,7 @@ import numpy as np
 
 from phasewake.core import __version__
 from phasewake.core.atomic import (
+    STALE_AFTER_S,
     OutputError,
     atomic_open,
     describe_os_error,
@@ -72,6 +73,8 @@ _MAX_HEADER = 64 * 1024 * 1024
 _KEY = re.compile(r"^[0-9a-f]{16,64}$")
 _ENTRY_NAME = re.compile(r"^[0-9a-f]{16,64}" + re.escape(ENTRY_SUFFIX) + r"$")
 _STORABLE_KINDS = "biufcSUmM"
+# the cache of earlier versions: <key>.h5 HDF5 entries and their mkstemp temporaries
+_LEGACY = re.compile(r"^(?:[0-9a-f]{32}\.h5|\.[0-9a-f]{32}\.h5\.[a-z0-9_]{8}\.h5\.part)$")
 
 
 class CacheFolderError(PhasewakeError):
@@ -284,8 +287,9 @@ class ResultCache:
             return True
         try:
             with os.scandir(self.folder) as it:
-                # our own temporary files do not count: another process may be writing the mark right now
-                return None if all(is_our_temp(e.name) for e in it) else False
+                # our own temporary files do not count (another process may be writing the mark right now),
+                # nor the files of the cache of earlier versions (adopted: marked on the next write)
+                return None if all(is_our_temp(e.name) or _LEGACY.match(e.name) for e in it) else False
         except OSError:
             return False
 
@@ -345,6 +349,34 @@ class ResultCache:
             if self._is_entry(p, st):
                 out.append((p, st))
         return out
+
+    def _drop_legacy(self) -> int:
+        """Remove the entries of earlier versions' cache (``<32 hex>.h5`` HDF5 files) that are verifiably
+        ours: a regular file whose root attributes are the ``phasewake_version`` and ``meta`` we wrote.
+        They are never read again (their key and layout are gone). Returns how many went."""
+        n = 0
+        try:
+            names = [e.name for e in os.scandir(self.folder) if _LEGACY.match(e.name)]
+        except OSError:
+            return 0
+        for name in names:
+            p = self.folder / name
+            try:
+                if not stat.S_ISREG(os.lstat(p).st_mode):
+                    continue
+                if name.endswith(".part"):
+                    ours = time.time() - os.lstat(p).st_mtime >= STALE_AFTER_S
+                else:
+                    import h5py
+
+                    with h5py.File(p, "r") as f:
+                        ours = "phasewake_version" in f.attrs and "meta" in f.attrs and "arrays" in f
+                if ours:
+                    p.unlink()
+                    n += not name.endswith(".part")
+            except (OSError, ValueError, KeyError, RuntimeError):
+                continue
+        return n
 
     # -- reading and writing ------------------------------------------------------------------------
 
@@ -421,6 +453,7 @@ class ResultCache:
         stale temporary files. Only verified entries in a marked folder are touched."""
         if self.owned() is not True:
             return
+        self._drop_legacy()
         now = time.time()
         kept = []
         for p, st in self._entries():
@@ -441,9 +474,9 @@ class ResultCache:
 
         Raises :class:`CacheFolderError` when the folder is not ours (nothing is deleted).
         """
-        if not self._require_owned(create=False):
+        if not self._require_owned(create=self.folder.is_dir()):
             return 0
-        n = 0
+        n = self._drop_legacy()
         for p, _ in self._entries():
             try:
                 p.unlink()

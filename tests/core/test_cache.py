@@ -91,3 +91,26 @@ def test_cache_command(tmp_path, monkeypatch, capsys):
     assert main(["cache", "--clear"]) == 0
     assert "removed 1" in capsys.readouterr().out
     assert ResultCache().info().entries == 0
+
+
+def test_the_cache_of_earlier_versions_is_adopted_and_only_its_entries_removed(tmp_path):
+    # Earlier versions kept <key>.h5 HDF5 entries and wrote no mark. Such a folder is adopted; its entries
+    # go only when they verifiably are ours (root attributes phasewake_version and meta, an arrays group).
+    import h5py
+
+    folder = tmp_path / "cache"
+    folder.mkdir()
+    old = folder / ("1" * 32 + ".h5")
+    with h5py.File(old, "w") as f:
+        f.create_group("arrays").create_dataset("x", data=np.zeros(3))
+        f.attrs["meta"] = "{}"
+        f.attrs["phasewake_version"] = "0.1"
+    lookalike = folder / ("2" * 32 + ".h5")  # an HDF5 file of the same name pattern, not ours
+    with h5py.File(lookalike, "w") as f:
+        f.create_dataset("data", data=np.ones(2))
+    cache = ResultCache(folder, enabled=True)
+    assert cache.owned() is None  # adoptable, not refused
+    assert cache.clear() == 1
+    assert not old.exists() and lookalike.exists() and (folder / ".phasewake-cache").is_file()
+    cache.put("3" * 32, {"x": np.arange(2.0)})
+    assert cache.get("3" * 32) is not None and lookalike.exists()

@@ -281,10 +281,14 @@ def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
         yield Progress(0, 1, "x")
         return np.arange(3.0)
 
+    from phasewake.core.cache import take_notices
     from phasewake.core.progress import Progress
 
+    take_notices()
     got = drive(cached_work(open_run([path]), "test", {}, work(), cache=cache))
     np.testing.assert_array_equal(got, np.arange(3.0))
+    (notice,) = take_notices()  # one line for the front end to show
+    assert notice.startswith("cache skipped") and str(blocker) in notice
     # a read-only folder (effective for non-root users): a hit is still served, a miss still computed
     ro = tmp_path / "ro"
     ok_cache = ResultCache(ro, enabled=True)
