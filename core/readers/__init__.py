@@ -263,6 +263,10 @@ def open_run(
             run = _replace_topology(run, tops[0][0])
     elif trajs:
         top_path = tops[0][0] if tops else None
+        kinds = {e.name == "lammps-dump" for _, e in trajs}
+        if len(kinds) > 1:
+            raise InputError(f"the trajectories {', '.join(p.name for p, _ in trajs)} mix LAMMPS dumps with other "
+                             "formats; parts of one run are of one format: open one run at a time")
         parts = []
         for tp, te in trajs:
             with _unexpected_is_corrupt(tp):

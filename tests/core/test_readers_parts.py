@@ -175,3 +175,12 @@ def test_xtc_positions_are_marked_lossy_and_the_estimate_says_so():
     parts = open_run([GMX / "spce_rigid_nve_parts" / "md.xtc", GMX / "spce_rigid_nve_parts" / "md.part0002.xtc",
                       d / "md.gro"])
     assert parts.frames.positions_lossy
+
+
+def test_a_dump_and_an_xtc_are_not_parts_of_one_run(tmp_path, whole):
+    from phasewake.core.errors import InputError
+
+    xyz, pdb, full = whole
+    dump = Path(__file__).resolve().parents[1] / "data" / "lammps_small" / "tri.lammpstrj"
+    with pytest.raises(InputError, match="mix LAMMPS dumps"):
+        open_run([full, dump, pdb])
