@@ -72,12 +72,29 @@ class Token:
 
 @dataclass(frozen=True)
 class GroupArg:
-    """An atom group as written: explicit indices, or an mdtraj query (needs a topology)."""
+    """An atom group as written: explicit indices, or an mdtraj query (needs a topology).
 
-    indices: tuple[int, ...] | None
+    ``spans`` holds the indices as written, inclusive ``(first, last)`` pairs (``7`` is ``(7, 7)``,
+    ``3-17`` is ``(3, 17)``), so a range is never expanded before it is checked against the run's
+    atom count (``rg(0-999999999)`` costs nothing to parse).
+    """
+
+    spans: tuple[tuple[int, int], ...] | None
     query: str | None
     position: int
     end: int  # one past the last character of the argument
+
+    @property
+    def indices(self) -> tuple[int, ...] | None:
+        """Every index, expanded (only for groups already checked to be small, and for tests)."""
+        if self.spans is None:
+            return None
+        return tuple(i for lo, hi in self.spans for i in range(lo, hi + 1))
+
+    @property
+    def size(self) -> int:
+        """Number of indices as written (before any check)."""
+        return 0 if self.spans is None else sum(hi - lo + 1 for lo, hi in self.spans)
 
 
 @dataclass(frozen=True)
@@ -168,37 +185,42 @@ def tokenize(spec: str) -> list[Token]:
     return tokens
 
 
-def _parse_index_item(tok: Token, spec: str) -> tuple[int, ...]:
-    """A bare word that is an index ``7`` or an inclusive range ``3-17``."""
+#: Largest atom index the parser accepts (an int64; no run has this many atoms, so resolve() refuses it
+#: against the run's atom count with the usual out-of-range message).
+MAX_INDEX = 2**63 - 1
+_DIGITS = "0123456789"
+
+
+def _parse_index(part: str, spec: str, position: int) -> int:
+    """A 0-based index written in ASCII digits (not "²" or other characters Python calls digits)."""
+    if not part:
+        raise CoordinateSpecError("expected an atom index (0-based, no sign) here", spec=spec, position=position)
+    for k, ch in enumerate(part):
+        if ch not in _DIGITS:
+            raise CoordinateSpecError(f"expected a digit 0-9 in an atom index, found {ch!r}", spec=spec,
+                                      position=position + k)
+    if len(part) > 19 or int(part) > MAX_INDEX:
+        raise CoordinateSpecError(f"atom index {part[:12]}{'...' if len(part) > 12 else ''} ({len(part)} digits) "
+                                  "is too large to be an atom index", spec=spec, position=position)
+    return int(part)
+
+
+def _parse_index_item(tok: Token, spec: str) -> tuple[int, int]:
+    """A bare word that is an index ``7`` or an inclusive range ``3-17``, as a (first, last) span."""
     text = tok.text
     parts = text.split("-")
     if len(parts) > 2:
         second = text.index("-", text.index("-") + 1)
         raise CoordinateSpecError("a range has one '-' (like 3-17)", spec=spec, position=tok.position + second)
-    offset = 0
-    values = []
-    for part in parts:
-        if not part:
-            raise CoordinateSpecError(
-                "expected an atom index (0-based, no sign) here", spec=spec, position=tok.position + offset
-            )
-        for k, ch in enumerate(part):
-            if not ch.isdigit():
-                raise CoordinateSpecError(
-                    f"expected a digit in an atom index, found {ch!r}",
-                    spec=spec,
-                    position=tok.position + offset + k,
-                )
-        values.append(int(part))
-        offset += len(part) + 1
-    if len(values) == 1:
-        return (values[0],)
-    lo, hi = values
+    lo = _parse_index(parts[0], spec, tok.position)
+    if len(parts) == 1:
+        return (lo, lo)
+    hi = _parse_index(parts[1], spec, tok.position + len(parts[0]) + 1)
     if hi < lo:
         raise CoordinateSpecError(
             f"range {lo}-{hi} runs backwards; write {hi}-{lo}", spec=spec, position=tok.position
         )
-    return tuple(range(lo, hi + 1))
+    return (lo, hi)
 
 
 class _Parser:
@@ -273,8 +295,10 @@ class _Parser:
             return PathArg(tok.text, tok.position)
         if kind == "int":
             tok = self.take()
-            if tok.kind != "name" or not tok.text.isdigit():
+            if tok.kind != "name" or not tok.text or any(ch not in _DIGITS for ch in tok.text):
                 raise self.error(f"{function} needs a positive whole number here (1 is the first)", tok)
+            if len(tok.text) > 19 or int(tok.text) > MAX_INDEX:
+                raise self.error(f"{tok.text[:12]}... is too large a component number", tok)
             if int(tok.text) < 1:
                 raise self.error("components are counted from 1", tok)
             return IntArg(int(tok.text), tok.position)
@@ -296,22 +320,22 @@ class _Parser:
                     f" (put queries in quotes: \"{tok.text} ...\")",
                     tok,
                 )
-            indices = _parse_index_item(tok, self.spec)
-            if kind == "atom" and len(indices) != 1:
+            span = _parse_index_item(tok, self.spec)
+            if kind == "atom" and span[0] != span[1]:
                 raise self.error(f"argument {index + 1} of {function} is a single atom, not a range", tok)
-            return GroupArg(indices, None, tok.position, tok.position + len(tok.text))
+            return GroupArg((span,), None, tok.position, tok.position + len(tok.text))
         found = "the end of the text" if tok.kind == "end" else repr(tok.text)
         raise self.error(f"expected an atom index or group, found {found}", tok)
 
     def bracket_list(self) -> GroupArg:
         open_tok = self.take()
-        items: list[int] = []
+        items: list[tuple[int, int]] = []
         while True:
             tok = self.take()
             if tok.kind != "name":
                 found = "the end of the text" if tok.kind == "end" else repr(tok.text)
                 raise self.error(f"expected an atom index or range in the list, found {found}", tok)
-            items.extend(_parse_index_item(tok, self.spec))
+            items.append(_parse_index_item(tok, self.spec))
             sep = self.take()
             if sep.kind == ",":
                 continue
@@ -393,15 +417,19 @@ def _resolve_group(
                 position=arg.position,
             )
         return found
-    assert arg.indices is not None
-    idx = np.asarray(arg.indices, dtype=np.int64)
-    bad = idx[idx >= n_atoms]
-    if bad.size:
-        raise CoordinateSpecError(
-            f"atom index {int(bad[0])} is out of range: the run has {n_atoms} atoms (0 to {n_atoms - 1})",
-            spec=spec,
-            position=arg.position,
-        )
+    assert arg.spans is not None
+    # checked on the spans as written, before any index list is built
+    for _lo, hi in arg.spans:
+        if hi >= n_atoms:
+            first_bad = max(_lo, n_atoms)
+            raise CoordinateSpecError(
+                f"atom index {first_bad} is out of range: the run has {n_atoms} atoms (0 to {n_atoms - 1})",
+                spec=spec,
+                position=arg.position,
+            )
+    if arg.size > n_atoms:
+        raise CoordinateSpecError("an atom appears twice in this group", spec=spec, position=arg.position)
+    idx = np.concatenate([np.arange(lo, hi + 1, dtype=np.int64) for lo, hi in arg.spans])
     if idx.size != np.unique(idx).size:
         raise CoordinateSpecError("an atom appears twice in this group", spec=spec, position=arg.position)
     return idx
@@ -447,6 +475,10 @@ def resolve(
                 _resolve_group(arg, spec=spec, n_atoms=n_atoms, topology=topology, single=kind == "atom")
             )
         elif isinstance(arg, IntArg):
+            if arg.value > 3 * max(n_atoms, 1):
+                raise CoordinateSpecError(
+                    f"component {arg.value} does not exist: {n_atoms} atoms have at most {3 * n_atoms} "
+                    "principal components", spec=spec, position=arg.position)
             pc_index = arg.value - 1
         elif isinstance(arg, PathArg):
             reference_path = arg.path

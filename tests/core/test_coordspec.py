@@ -33,7 +33,8 @@ def test_parse_functions_and_groups():
     assert d.function == "distance"
     assert [a.indices for a in d.args] == [(3,), (17,)]
     d = parse('com_distance([0-2, 7], "resname DIM")')
-    assert d.args[0] == GroupArg((0, 1, 2, 7), None, 13, 21)
+    assert d.args[0] == GroupArg(((0, 2), (7, 7)), None, 13, 21)
+    assert d.args[0].indices == (0, 1, 2, 7)
     assert d.args[1].query == "resname DIM"
     d = parse("  pc( 2 , 0-4 ) ")
     assert isinstance(d.args[0], IntArg) and d.args[0].value == 2

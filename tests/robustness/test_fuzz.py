@@ -108,6 +108,40 @@ def test_coordinate_spec_any_text(spec):
         pass
 
 
+# Numbers as a user (or a paste from elsewhere) may write them: huge indices, digits Python accepts but
+# int() or an atom list does not (superscripts, other scripts), NaN/inf literals, signs, huge ranges.
+ODD_NUMBER = st.one_of(
+    st.integers(0, 10**40).map(str),
+    st.builds(lambda a, b: f"{a}-{b}", st.integers(0, 10**30), st.integers(0, 10**30)),
+    st.sampled_from(["²", "³", "¹⁰", "١", "٣-٥", "०", "½", "Ⅻ", "𝟘", "nan", "NaN", "inf", "-inf", "-1", "+1",
+                     "1e5", "1E400", "0x10", "1_000", "1.5", "0-999999999", "99999999999999999999-1", "3-", "-3",
+                     "0-18446744073709551616", "9223372036854775807", "9223372036854775808", "00000000000000000000007"]),
+    st.text(alphabet="0123456789-²³¹⁰١٢٣०१२٠.e+_", min_size=1, max_size=14),
+)
+GROUP = st.one_of(ODD_NUMBER, st.lists(ODD_NUMBER, min_size=1, max_size=3).map(lambda xs: f"[{', '.join(xs)}]"))
+
+
+@BUDGET
+@given(fn=st.sampled_from(["x", "distance", "angle", "rg", "com_distance", "pc"]),
+       args=st.lists(GROUP, min_size=1, max_size=4), n_atoms=st.integers(1, 60))
+def test_coordinate_spec_numeric_edge_cases(fn, args, n_atoms):
+    from phasewake.core.coordspec import parse, resolve
+
+    spec = f"{fn}({', '.join(args)})"
+    try:
+        r = resolve(parse(spec), n_atoms=n_atoms, topology=None)
+    except PhasewakeError as exc:
+        pos = getattr(exc, "position", None)
+        assert pos is None or 0 <= pos <= len(spec)
+        return
+    # accepted: then every atom exists and no group is larger than the run
+    for g in r.groups:
+        assert g.dtype.kind == "i" and g.size <= n_atoms
+        assert np.all((g >= 0) & (g < n_atoms))
+    if r.pc_index is not None:
+        assert 0 <= r.pc_index < 3 * n_atoms
+
+
 def _h5md_paths(f: h5py.File) -> list[str]:
     names: list[str] = []
     f.visit(names.append)
