@@ -35,6 +35,7 @@ import numpy as np
 from phasewake.core.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
 from phasewake.core.progress import Progress, Work
+from phasewake.core.readers.common import check_masses
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES
 
 if TYPE_CHECKING:
@@ -478,6 +479,8 @@ def compute_coordinates(
     local = {int(a): i for i, a in enumerate(used)}
     remap = [replace(r, groups=tuple(np.array([local[int(a)] for a in grp], dtype=np.int64) for grp in r.groups))
              for r in resolved]
+    where = run.paths[0] if run.paths else None
+    check_masses(run.masses_amu, path=where, where=run.metadata.sources.get("masses", "masses"))
     masses = np.asarray(run.masses_amu, dtype=np.float64)[used]
     want_vel = bool(run.frames.has_velocities)
     n_total = stop_ - start
@@ -497,6 +500,8 @@ def compute_coordinates(
             got_vel = False
         for k, r in enumerate(remap):
             v, dq, me = evaluate_arrays(r, ch.positions_nm, vel, masses, ch.box_nm)
+            if not np.all(np.isfinite(v)):
+                refuse_not_finite(r, ch, v, where)
             values[k][sl] = v
             if dqdt is not None and dq is not None:
                 dqdt[k][sl] = dq
@@ -530,6 +535,19 @@ def compute_coordinates(
             chunk_frames=chunk,
         ))
     return out
+
+
+def refuse_not_finite(r: ResolvedCoordinate, ch: Any, v: np.ndarray, path: Any) -> None:
+    """CorruptFileError naming the file and the first frame where a coordinate is NaN or infinite."""
+    from phasewake.core.errors import CorruptFileError
+
+    i = int(np.flatnonzero(~np.isfinite(v))[0])
+    frame = int(ch.start) + i
+    pos = np.asarray(ch.positions_nm[i])
+    why = ("the positions there hold NaN or infinite values" if not np.all(np.isfinite(pos))
+           else "its atoms sit where it is not defined")
+    raise CorruptFileError(f"{r.spec} is {v[i]} at frame {frame} (t = {float(ch.time_ps[i]):g} ps): {why}",
+                           path=path)
 
 
 def finite_difference_velocity(values: np.ndarray, time_ps: np.ndarray, *, periodic: bool = False) -> np.ndarray | None:

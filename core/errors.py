@@ -50,6 +50,11 @@ class UnitError(PhasewakeError):
     """A unit string is missing, unknown or of the wrong dimension."""
 
 
+class ImpossibleValueError(InputError):
+    """A value no physical run can have: a zero or negative mass or box edge, a NaN or non-positive time
+    step, a negative constraint count. Named with where it came from (the file, or the option given)."""
+
+
 class EnergyTableError(InputError):
     """An energy table has ragged rows, text in numeric columns, duplicate or unknown headers."""
 

@@ -107,11 +107,13 @@ class CoordinatesConsumer:
 
     def __init__(self, run: Run, specs: Sequence[str]) -> None:
         from phasewake.core.coordinates import resolve_for_run
+        from phasewake.core.readers.common import check_masses
 
         if run.frames is None:
             raise MissingDataError("the run has no frames (positions)", path=_path(run))
         if not specs:
             raise CoordinateSpecError("no coordinate given")
+        check_masses(run.masses_amu, path=_path(run), where=run.metadata.sources.get("masses", "masses"))
         self.run = run
         self.resolved = [resolve_for_run(s, run) for s in specs]
         for r in self.resolved:
@@ -137,7 +139,7 @@ class CoordinatesConsumer:
         self._masses = m if columns is None else m[columns]
 
     def update(self, chunk: FrameChunk) -> None:
-        from phasewake.core.coordinates import evaluate_arrays
+        from phasewake.core.coordinates import evaluate_arrays, refuse_not_finite
 
         vel = chunk.velocities_nm_per_ps if self.needs_velocities else None
         if self.needs_velocities and vel is None:
@@ -145,6 +147,8 @@ class CoordinatesConsumer:
         self._time.append(np.asarray(chunk.time_ps, dtype=np.float64))
         for k, r in enumerate(self._remap):
             v, dq, me = evaluate_arrays(r, chunk.positions_nm, vel, self._masses, chunk.box_nm)
+            if not np.all(np.isfinite(v)):  # names the file and the frame
+                refuse_not_finite(r, chunk, v, _path(self.run))
             self._values[k].append(v)
             if dq is not None:
                 self._dqdt[k].append(dq)

@@ -25,6 +25,7 @@ from phasewake.core.errors import (
     FileMissingError,
     InputError,
     MissingDataError,
+    ResourceError,
     TopologyMismatchError,
     UnknownFormatError,
 )
@@ -146,6 +147,11 @@ def _check_file(path: Path) -> None:
         raise UnknownFormatError("is a folder, not a file", path=path)
     if path.stat().st_size == 0:
         raise EmptyFileError("file is empty", path=path)
+    try:
+        with open(path, "rb"):
+            pass
+    except PermissionError:
+        raise InputError("permission denied: this file cannot be read", path=path) from None
 
 
 def identify(path: str | Path) -> ReaderEntry:
@@ -155,7 +161,30 @@ def identify(path: str | Path) -> ReaderEntry:
     for entry in READERS:
         if entry.claim(p):
             return entry
+    _refuse_damaged_hdf5(p)
     raise UnknownFormatError(f"no reader claims this file. Supported: {supported_formats()}", path=p)
+
+
+_HDF5_SIGNATURE = b"\x89HDF\r\n\x1a\n"
+
+
+def _refuse_damaged_hdf5(path: Path) -> None:
+    """An HDF5 file (by its signature) that the HDF5 library cannot open is damaged, not of an unknown
+    format: say so, as for .h5md (a truncated .h5 or .hdf5 run)."""
+    try:
+        with open(path, "rb") as f:
+            head = f.read(8)
+    except OSError:
+        return
+    if head != _HDF5_SIGNATURE:
+        return
+    import h5py
+
+    try:
+        with h5py.File(path, "r"):
+            return  # readable HDF5, just not a layout we know
+    except OSError as exc:
+        raise CorruptFileError(f"HDF5 file that cannot be opened: truncated or damaged ({exc})", path=path) from None
 
 
 _META_KEYS = ("timestep_ps", "n_constraints", "temperature_K", "ensemble", "thermostat", "integrator",
@@ -223,6 +252,18 @@ def open_run(
     all_paths += [Path(p) for p in (energy_files or [])]
     if not all_paths:
         raise InputError("no files given")
+    from phasewake.core.readers.common import (
+        check_constraints,
+        check_masses,
+        check_metadata,
+        check_temperature,
+        check_timestep,
+    )
+
+    # values given by the caller are refused before any file is read
+    check_timestep(timestep_ps, path=None, where="the time step given (timestep_ps)")
+    check_constraints(n_constraints, n_atoms=None, path=None, where="the constraint count given (n_constraints)")
+    check_temperature(temperature_K, path=None, where="the temperature given (temperature_K)")
     folder_notes: list[str] = []
     if any(p.is_dir() for p in all_paths):
         all_paths, folder_notes = _expand_folders(all_paths)
@@ -367,6 +408,10 @@ def open_run(
                             "or --constraints")
         run.metadata.sources["velocities"] = "estimated by central differences of positions"
 
+    # every route (any reader, any override): no impossible value reaches an analysis
+    first = run.paths[0] if run.paths else (all_paths[0] if all_paths else None)
+    check_metadata(run.metadata, n_atoms=run.n_atoms or None, path=first)
+    check_masses(run.masses_amu, path=first, where=run.metadata.sources.get("masses", "masses"))
     run.paths = tuple(dict.fromkeys(all_paths))
     run.warnings = list(dict.fromkeys(warnings))
     return run
@@ -415,6 +460,9 @@ def _unexpected_is_corrupt(path: Path | None) -> Iterator[None]:
     except (KeyError, ValueError, TypeError, IndexError, AttributeError, OSError, RuntimeError, struct.error,
             AssertionError, EOFError) as exc:
         raise CorruptFileError(f"cannot read this file ({type(exc).__name__}: {exc})", path=path) from exc
+    except MemoryError as exc:  # a size no header check foresaw: one line naming the file, not a traceback
+        raise ResourceError(f"not enough memory to open this file ({exc or 'allocation failed'})",
+                            path=path) from None
 
 
 def _open_self_contained(path: Path, entry: ReaderEntry, *, group: str | None,

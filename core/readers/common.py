@@ -3,14 +3,15 @@
 from __future__ import annotations
 
 import json
+import math
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.errors import CorruptFileError, TimeAxisError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, budget_chunk_frames
+from phasewake.core.errors import CorruptFileError, ImpossibleValueError, TimeAxisError
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, RunMetadata, budget_chunk_frames
 
 if TYPE_CHECKING:
     import mdtraj
@@ -109,6 +110,102 @@ def masses_from_topology(top: mdtraj.Topology | None, n_atoms: int) -> np.ndarra
     return masses
 
 
+# --- values no physical run can have (refused by name, where a reader or an override meets them) ---
+
+
+def check_masses(masses_amu: np.ndarray, *, path: str | Path | None, where: str = "masses") -> None:
+    """ImpossibleValueError when a known mass is zero, negative or infinite (NaN means unknown: allowed)."""
+    m = np.asarray(masses_amu, dtype=np.float64).ravel()
+    known = ~np.isnan(m)
+    bad = np.flatnonzero(known & ~((m > 0) & np.isfinite(m)))
+    if bad.size:
+        i = int(bad[0])
+        more = f" ({bad.size} atoms in all)" if bad.size > 1 else ""
+        raise ImpossibleValueError(f"{where}: atom {i} has mass {m[i]:g} amu{more}; a mass must be a positive "
+                                   "number", path=path)
+
+
+def check_timestep(timestep_ps: float | None, *, path: str | Path | None, where: str = "time step") -> None:
+    """ImpossibleValueError for a time step that is NaN, infinite, zero or negative (None: unknown, allowed)."""
+    if timestep_ps is None:
+        return
+    try:
+        dt = float(timestep_ps)
+    except (TypeError, ValueError):
+        raise ImpossibleValueError(f"{where} {timestep_ps!r} is not a number", path=path) from None
+    if not (math.isfinite(dt) and dt > 0):
+        raise ImpossibleValueError(f"{where} is {dt:g} ps; a time step must be a positive number", path=path)
+
+
+def check_constraints(n_constraints: int | None, *, n_atoms: int | None, path: str | Path | None,
+                      where: str = "constraint count") -> None:
+    """ImpossibleValueError for a negative constraint count, or more constraints than 3 N coordinates."""
+    if n_constraints is None:
+        return
+    n = int(n_constraints)
+    if n < 0:
+        raise ImpossibleValueError(f"{where} is {n}; the number of constraints cannot be negative", path=path)
+    if n_atoms and n > 3 * n_atoms:
+        raise ImpossibleValueError(f"{where} is {n}, more than the 3 x {n_atoms} = {3 * n_atoms} coordinates "
+                                   "of the atoms", path=path)
+
+
+def check_temperature(temperature_K: float | None, *, path: str | Path | None,
+                      where: str = "target temperature") -> None:
+    """ImpossibleValueError for a thermostat target that is NaN, infinite, zero or negative."""
+    if temperature_K is None:
+        return
+    t = float(temperature_K)
+    if not (math.isfinite(t) and t > 0):
+        raise ImpossibleValueError(f"{where} is {t:g} K; it must be a positive number of kelvin", path=path)
+
+
+def check_metadata(md: RunMetadata, *, n_atoms: int | None, path: str | Path | None) -> None:
+    """The time step, constraint count and target temperature of a run's metadata, each named by its
+    source ("user" when given as an option)."""
+    def where(key: str, what: str) -> str:
+        src = md.sources.get(key)
+        return f"{what} ({'as given' if src == 'user' else 'from ' + src})" if src else what
+
+    check_timestep(md.timestep_ps, path=path, where=where("timestep_ps", "time step"))
+    check_constraints(md.n_constraints, n_atoms=n_atoms, path=path,
+                      where=where("n_constraints", "constraint count"))
+    check_temperature(md.temperature_K, path=path, where=where("temperature_K", "target temperature"))
+
+
+_EDGE = "abc"
+
+
+def check_box(box_nm: np.ndarray | None, *, path: str | Path | None, first_frame: int = 0) -> np.ndarray | None:
+    """Box edge vectors (F, 3, 3) as rows, checked: every edge finite and non-zero, a right-handed cell
+    of positive volume. A box that is all zeros is returned as None: engines write it for a run without
+    periodic boundaries (GROMACS in vacuum, DCD without a cell). ImpossibleValueError names the frame."""
+    if box_nm is None:
+        return None
+    b = np.asarray(box_nm, dtype=np.float64)
+    if b.ndim != 3 or b.shape[1:] != (3, 3) or b.shape[0] == 0:
+        return box_nm
+    if not np.any(b):
+        return None
+    finite = np.isfinite(b).all(axis=(1, 2))
+    if not finite.all():
+        f = int(np.flatnonzero(~finite)[0])
+        raise ImpossibleValueError(f"box of frame {first_frame + f} holds NaN or infinite values", path=path)
+    lengths = np.linalg.norm(b, axis=2)
+    diag = np.diagonal(b, axis1=1, axis2=2)
+    bad = (lengths == 0) | ((diag <= 0) & np.all(b == diag[:, :, None] * np.eye(3), axis=2))
+    if bad.any():
+        f, k = (int(x) for x in np.argwhere(bad)[0])
+        raise ImpossibleValueError(f"box edge {_EDGE[k]} of frame {first_frame + f} is {diag[f, k]:g} nm; box "
+                                   "edges must be positive", path=path)
+    vol = np.linalg.det(b)
+    if np.any(vol <= 0):
+        f = int(np.flatnonzero(vol <= 0)[0])
+        raise ImpossibleValueError(f"box of frame {first_frame + f} is flat or inside out (volume "
+                                   f"{vol[f]:g} nm^3); box edges must span a positive volume", path=path)
+    return box_nm
+
+
 # --- time axis ---
 
 
@@ -120,12 +217,18 @@ def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str =
     """
     t = np.asarray(time_ps, dtype=np.float64)
     warnings: list[str] = []
-    if t.size < 2:
-        return warnings
     if not np.all(np.isfinite(t)):
         bad = int(np.flatnonzero(~np.isfinite(t))[0])
-        raise TimeAxisError(f"time of {what} {bad} is not a finite number", path=path)
-    d = np.diff(t)
+        raise TimeAxisError(f"time of {what} {bad} is not a finite number ({t[bad]:g}; NaN, infinite, or "
+                            "too large: the time axis overflows)", path=path)
+    with np.errstate(over="ignore", invalid="ignore"):
+        d = np.diff(t)
+    if not np.all(np.isfinite(d)):
+        bad = int(np.flatnonzero(~np.isfinite(d))[0])
+        raise TimeAxisError(f"the time axis overflows between {what} {bad} and {bad + 1} ({t[bad]:g} and "
+                            f"{t[bad + 1]:g} ps)", path=path)
+    if t.size < 2:
+        return warnings
     if np.any(d == 0):
         i = int(np.flatnonzero(d == 0)[0])
         raise TimeAxisError(

@@ -14,6 +14,7 @@ energies it defines are multiplied by ``particle_number`` as the module says.
 from __future__ import annotations
 
 import contextvars
+import os
 import sys
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
@@ -22,9 +23,12 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.errors import CorruptFileError, MissingDataError, UnitError
+from phasewake.core.errors import CorruptFileError, MissingDataError, ResourceError, UnitError
 from phasewake.core.readers.common import (
     box_matrix,
+    check_box,
+    check_masses,
+    check_metadata,
     check_time_axis,
     decode,
     masses_from_topology,
@@ -283,8 +287,46 @@ class _Axis:
     time_ps: np.ndarray | None  # (K,) or None when the element has no time
 
 
+def _check_claimed_rows(ds: h5py.Dataset, *, path: Path, name: str) -> None:
+    """CorruptFileError when a dataset's first dimension claims more rows than the file holds data for.
+
+    Checked before anything of that length is allocated: a damaged or hostile header may claim 1e12
+    frames (with scalar step/time nothing else says otherwise). Chunked layout: the chunks actually
+    written bound the rows with data; contiguous layout: the rows must fit in the file.
+    """
+    import h5py
+
+    n = int(ds.shape[0]) if ds.ndim else 0
+    if n <= 1:
+        return
+    row_items = int(np.prod(ds.shape[1:], dtype=np.int64)) if ds.ndim > 1 else 1
+    row_bytes = max(row_items * ds.dtype.itemsize, 1)
+    try:
+        layout = ds.id.get_create_plist().get_layout()
+        if layout == h5py.h5d.CHUNKED and ds.chunks is not None:
+            per_block = 1
+            for size, c in zip(ds.shape[1:], ds.chunks[1:], strict=True):
+                per_block *= -(-int(size) // int(c))
+            written = (int(ds.id.get_num_chunks()) // max(per_block, 1)) * int(ds.chunks[0])
+        elif layout == h5py.h5d.CONTIGUOUS:
+            offset = ds.id.get_offset()
+            room = 0 if offset is None else os.path.getsize(path) - int(offset)
+            written = max(room, 0) // row_bytes
+        else:
+            return
+    except (AttributeError, OSError, ValueError, TypeError):
+        return  # an older library without these calls: the reads themselves fail cleanly later
+    if written < n:
+        raise CorruptFileError(f"{name} claims {n} rows, but the file holds data for at most {written} "
+                               "(a damaged header, or a file that was never finished)", path=path)
+
+
 def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
     """Step and time arrays of element ``g`` with ``n`` samples (array or scalar with offset)."""
+    import h5py
+
+    if "value" in g and isinstance(g["value"], h5py.Dataset):
+        _check_claimed_rows(g["value"], path=path, name=f"{name}/value")
 
     def values(key: str) -> np.ndarray | None:
         if key not in g:
@@ -512,6 +554,7 @@ class H5MDFrames:
             box = None
             if box_ds is not None and self._box_rows is not None:
                 box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
+                box = check_box(box, path=self.path, first_frame=int(sel[0]))
             elif self._box_fixed is not None:
                 box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
             if want_pos and img_ds is not None and self._image_rows is not None and box is not None:
@@ -605,6 +648,7 @@ def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_t
         except UnitError as exc:
             raise UnitError(f"observable {name}: {exc.problem}", path=path) from exc
         factor, internal = u.factor, u.internal
+        _check_claimed_rows(ds, path=path, name=f"observables/{name}/value")
         values = np.asarray(ds[()], dtype=np.float64) * factor
         if thermo and base in _THERMO_PER_PARTICLE:
             if particle_number is None:
@@ -686,6 +730,9 @@ def read_h5md(path: str | Path, *, group: str | None = None,
     except _LAYOUT_ERRORS as exc:
         raise CorruptFileError(f"damaged or unexpected H5MD layout ({type(exc).__name__}: {exc})",
                                path=path) from exc
+    except MemoryError as exc:
+        raise ResourceError(f"not enough memory to read the file's headers and observables ({exc})",
+                            path=path) from None
     finally:
         _ASSUMED_UNITS.reset(tok_units)
         _ASSUMED_USED.reset(tok_used)
@@ -761,6 +808,10 @@ def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
                 if key == "n_constraints":
                     md.constraints_source = "metadata"
         md.extra.update({k: v for k, v in params.items() if k not in _PARAM_FIELDS and k != "topology_json"})
+        for key in ("timestep_ps", "n_constraints", "temperature_K"):
+            if key in params:
+                md.sources.setdefault(key, f"{path.name}:/parameters/{key}")
+        check_metadata(md, n_atoms=n_atoms, path=path)
         md.sources["positions"] = f"{path.name}:/particles/{gname}/position"
 
         if pax.time_ps is not None:
@@ -813,6 +864,8 @@ def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
                 if isinstance(ed, h5py.Dataset):
                     box_factor, _ = _unit_factor(ed, path=path, name=f"/particles/{gname}/box/edges", expect="length")
                     box_fixed = box_matrix(ed[()] * box_factor, 1)[0]
+                    checked = check_box(box_fixed[None], path=path)
+                    box_fixed = None if checked is None else box_fixed
                 else:
                     box_factor, _ = _unit_factor(ed["value"], path=path, name=f"/particles/{gname}/box/edges",
                                                  expect="length")
@@ -857,6 +910,7 @@ def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
                 raise CorruptFileError(f"/particles/{gname}/mass has shape {masses.shape} for {n_atoms} "
                                        "particles", path=path)
             md.sources["masses"] = f"{path.name}:/particles/{gname}/mass"
+            check_masses(masses, path=path, where=f"/particles/{gname}/mass")
 
         topology = None
         if "topology_json" in params or ("parameters" in f and "topology_json" in f["parameters"]):

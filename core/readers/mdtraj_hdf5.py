@@ -17,6 +17,7 @@ import numpy as np
 from phasewake.core.errors import CorruptFileError, MissingDataError, UnitError
 from phasewake.core.readers.common import (
     box_vectors_from_lengths_angles,
+    check_box,
     check_time_axis,
     decode,
     masses_from_topology,
@@ -148,7 +149,8 @@ class MdtrajH5Frames:
                 if self._bf is not None:
                     lengths = f["cell_lengths"][sl] * self._bf
                     angles = f["cell_angles"][sl] if "cell_angles" in f else np.full_like(lengths, 90.0)
-                    box = box_vectors_from_lengths_angles(lengths, angles)
+                    box = check_box(box_vectors_from_lengths_angles(lengths, angles), path=self.path,
+                                    first_frame=int(sel[0]))
                 yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                                  velocities_nm_per_ps=vel, box_nm=box)
 
@@ -179,6 +181,9 @@ def open_mdtraj_h5_run(path: str | Path) -> Run:
         n_frames, n_atoms = int(shape[0]), int(shape[1])
         if n_frames == 0:
             raise MissingDataError("mdtraj HDF5 file has no frames", path=path)
+        from phasewake.core.readers.h5md import _check_claimed_rows
+
+        _check_claimed_rows(f["coordinates"], path=path, name="/coordinates")  # before n_frames is allocated
         pf = _factor(f, "coordinates", path)
         if "time" in f:
             time = np.asarray(f["time"][()], dtype=np.float64) * _factor(f, "time", path)

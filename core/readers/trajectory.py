@@ -33,7 +33,7 @@ from phasewake.core.errors import (
     MissingDataError,
     TopologyMismatchError,
 )
-from phasewake.core.readers.common import check_time_axis, masses_from_topology
+from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
 from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata, budget_chunk_frames
 from phasewake.core.units import parse_unit
 
@@ -173,7 +173,32 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
         return top
     except (OSError, ValueError, KeyError, IndexError, TypeError, RuntimeError, struct.error,
             AssertionError) as exc:
+        _close_files_of(exc)
         raise CorruptFileError(f"cannot read the topology ({type(exc).__name__}: {exc})", path=p) from exc
+    except Exception as exc:
+        _raise_if_bare(exc, p, "cannot read the topology")
+        raise
+
+
+def _close_files_of(exc: BaseException) -> None:
+    """Close the file a reader object opened when its constructor failed (mdtraj's GRO reader opens the
+    file, then raises from ``__init__`` without closing it: the handle would leak)."""
+    tb = exc.__traceback__
+    while tb is not None:
+        fh = getattr(tb.tb_frame.f_locals.get("self"), "_file", None)
+        if fh is not None and hasattr(fh, "close") and not isinstance(fh, str | bytes | Path):
+            with contextlib.suppress(Exception):
+                fh.close()
+        tb = tb.tb_next
+
+
+def _raise_if_bare(exc: Exception, path: Path, what: str) -> None:
+    """mdtraj's text readers (GRO) raise a bare ``Exception`` on a malformed line: a CorruptFileError
+    naming the file. Anything more specific (ours, MemoryError, ...) is left to its own handler."""
+    _close_files_of(exc)
+    if type(exc) is Exception:
+        text = " ".join(str(exc).split())
+        raise CorruptFileError(f"{what} ({text})", path=path) from exc
 
 
 # ------------------------------------------------------------------ headers: counts and time axes
@@ -390,9 +415,13 @@ class MdtrajFrames:
             except read_errors as exc:
                 raise CorruptFileError(f"cannot read frames after frame {start + done * stride} "
                                        f"({type(exc).__name__}: {exc})", path=self.path) from exc
+            except Exception as exc:
+                _raise_if_bare(exc, self.path, f"cannot read frames after frame {start + done * stride}")
+                raise
             box = None
             if self.has_box and tr.unitcell_vectors is not None:
-                box = np.asarray(tr.unitcell_vectors[: sel.size], dtype=np.float64)
+                box = check_box(np.asarray(tr.unitcell_vectors[: sel.size], dtype=np.float64), path=self.path,
+                                first_frame=int(sel[0]))
             done += sel.size
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel],
                              positions_nm=np.asarray(tr.xyz[: sel.size], np.float32),
@@ -452,14 +481,14 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
                     if "time" in nc.variables:
                         tv = nc.variables["time"]
                         unit = tv.units.decode() if isinstance(getattr(tv, "units", None), bytes) else getattr(tv, "units", "picosecond")
-                        t = np.asarray(tv[:], dtype=np.float64) * parse_unit(unit, expect="time").factor
+                        t = np.asarray(tv[:], dtype=np.float64) * _nc_unit(unit, "time", "time", path)
                     has_box = "cell_lengths" in nc.variables
                     if "velocities" in nc.variables:
                         vv = nc.variables["velocities"]
                         vunit = getattr(vv, "units", b"angstrom/picosecond")
                         vunit = vunit.decode() if isinstance(vunit, bytes) else vunit
                         info["velocity_kind"] = "netcdf"
-                        info["velocity_factor"] = parse_unit(vunit, expect="velocity").factor
+                        info["velocity_factor"] = _nc_unit(vunit, "velocity", "velocities", path)
         except (TypeError, KeyError) as exc:
             raise CorruptFileError(f"not an AMBER NetCDF trajectory ({exc})", path=path) from exc
         return n, t, has_box, info
@@ -477,6 +506,17 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
     if suf in (".xyz", ".lammpstrj", ".mdcrd", ".crd", ".binpos") or (t is not None and n > 1 and np.all(t == np.arange(n))):
         t = None  # these formats hold no time; mdtraj numbers frames
     return n, t, has_box, info
+
+
+def _nc_unit(unit: Any, dimension: str, variable: str, path: Path) -> float:
+    """Factor of a NetCDF variable's ``units`` text; a UnitError that names the file and the variable."""
+    from phasewake.core.errors import UnitError
+
+    text = unit.decode(errors="replace") if isinstance(unit, bytes) else str(unit)
+    try:
+        return parse_unit(text, expect=dimension).factor
+    except UnitError as exc:
+        raise UnitError(f"the {variable} variable: {exc.problem}", path=path) from None
 
 
 def _check_dcd_size(path: Path, n: int, n_atoms: int) -> None:
@@ -558,8 +598,12 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     except (CorruptFileError, MissingDataError, TopologyMismatchError):
         raise
     except (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, KeyError, AssertionError) as exc:
+        _close_files_of(exc)
         raise CorruptFileError(f"cannot read the trajectory, truncated or damaged? ({type(exc).__name__}: {exc})",
                                path=path) from exc
+    except Exception as exc:
+        _raise_if_bare(exc, path, "cannot read the trajectory")
+        raise
     if n == 0:
         raise CorruptFileError("trajectory holds no frames", path=path)
     if t is not None and n > 1 and np.all(t == t[0]):
