@@ -15,12 +15,13 @@
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 
-from phasewake.core.errors import EmptyFileError, EnergyTableError, TimeAxisError, UnitError
+from phasewake.core.errors import EmptyFileError, EnergyTableError, ResourceError, TimeAxisError, UnitError
 from phasewake.core.run import ENERGY_ROLES, EnergyTable, Series
 from phasewake.core.units import parse_unit, split_header
 
@@ -122,64 +123,15 @@ def read_table(
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        with open(path, encoding="utf-8") as fh:
+            header_line_no, names, delim, pending, lineno = _read_header(fh, path)
+            values, line_numbers = _read_rows(fh, path, names, delim, pending, lineno)
     except UnicodeDecodeError as exc:
-        raise EnergyTableError(f"not a text table (byte {exc.start} is not UTF-8 text)", path=path) from exc
-    lines = text.splitlines()
-    content = [(i + 1, ln) for i, ln in enumerate(lines) if ln.strip()]
-    if not content:
-        raise EmptyFileError("energy table is empty", path=path)
+        raise EnergyTableError(f"not a text table (byte {exc.start} of a block is not UTF-8 text)",
+                               path=path) from exc
+    except MemoryError:
+        raise ResourceError("not enough memory to read this energy table", path=path) from None
     warnings: list[str] = []
-
-    # header row: the first non-comment line if it is not numeric, else the last comment line before it
-    first_data = next((k for k, (_, ln) in enumerate(content) if not ln.lstrip().startswith(COMMENT_MARKS)), None)
-    if first_data is None:
-        raise EnergyTableError("energy table has a header or comments but no rows", path=path)
-    line_no, first = content[first_data]
-    delim: str | None
-    probe = first
-    first_fields = _split(first, _delimiter(first))
-    if any(not _is_number(f) for f in first_fields if f):
-        header_line_no, header = line_no, first
-        data = content[first_data + 1 :]
-    else:
-        comments = [c for c in content[:first_data]]
-        if not comments:
-            raise EnergyTableError(f"line {line_no}: no header row with column names (and units)", path=path)
-        header_line_no, header = comments[-1]
-        header = header.lstrip()[1:]
-        data = content[first_data:]
-        probe = header
-    delim = _delimiter(probe)
-    names = _header_fields(header, delim)
-    if delim is None and "," in first:
-        delim = ","
-    if any(not n for n in names):
-        raise EnergyTableError(f"line {header_line_no}: empty column name in the header", path=path)
-    seen: dict[str, int] = {}
-    for k, n in enumerate(names):
-        if n in seen:
-            raise EnergyTableError(f"line {header_line_no}: duplicate column {n!r} (columns {seen[n] + 1} and "
-                                   f"{k + 1})", path=path)
-        seen[n] = k
-    data = [(no, ln) for no, ln in data if not ln.lstrip().startswith(COMMENT_MARKS)]
-    if not data:
-        raise EnergyTableError("energy table has a header but no rows", path=path)
-    rows = [_split(ln, delim) for _, ln in data]
-    ncol = len(names)
-    for (no, _), r in zip(data, rows):
-        if len(r) != ncol:
-            raise EnergyTableError(f"line {no}: {len(r)} fields, the header has {ncol} (ragged row)", path=path)
-    try:
-        values = np.array(rows, dtype=np.float64)
-    except ValueError:
-        for (no, _), r in zip(data, rows):
-            for k, v in enumerate(r):
-                if not _is_number(v):
-                    raise EnergyTableError(f"line {no}: column {names[k]!r} holds {v!r}, not a number",
-                                           path=path) from None
-        raise
-    line_numbers = np.array([no for no, _ in data])
 
     # roles and units
     overrides = {split_header(k)[0]: v for k, v in (column_roles or {}).items()}
@@ -198,7 +150,7 @@ def read_table(
                 raise EnergyTableError(f"column role {role!r} for {name!r} is not one of {', '.join(ENERGY_ROLES)}",
                                        path=path)
             unit_text = role_unit or unit_text
-        col = values[:, k]
+        col = values[k]
         if role == "step":
             step = col
             continue
@@ -219,7 +171,10 @@ def read_table(
                 warnings.append(f"{path.name}: column {name!r}: {exc.problem}; left out")
                 continue
             raise EnergyTableError(f"line {header_line_no}: column {name!r}: {exc.problem}", path=path) from exc
-        conv = col * u.factor
+        if u.factor != 1.0:
+            with np.errstate(over="ignore"):
+                col *= u.factor  # in place: a column is a row of the one array read (no second copy)
+        conv = col
         if role == "time":
             time = conv
             continue
@@ -230,7 +185,7 @@ def read_table(
             time = step * timestep_ps
             warnings.append(f"{path.name}: no time column; time = step x {timestep_ps:g} ps")
         else:
-            time = np.arange(values.shape[0], dtype=np.float64)
+            time = np.arange(values.shape[1], dtype=np.float64)
             warnings.append(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)")
     _check_rows(time, line_numbers, path)
     warnings.extend(_gap_warnings(time, line_numbers, path))
@@ -238,7 +193,17 @@ def read_table(
 
 
 def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
-    d = np.diff(time)
+    finite = np.isfinite(time)
+    if not finite.all():
+        i = int(np.flatnonzero(~finite)[0])
+        raise TimeAxisError(f"line {line_numbers[i]}: time is {time[i]:g} ps; every row needs a finite time "
+                            "(NaN, infinite, or too large for its unit: the time axis overflows)", path=path)
+    with np.errstate(over="ignore", invalid="ignore"):
+        d = np.diff(time)
+    if not np.isfinite(d).all():
+        i = int(np.flatnonzero(~np.isfinite(d))[0])
+        raise TimeAxisError(f"line {line_numbers[i + 1]}: the time axis overflows ({time[i]:g} ps, then "
+                            f"{time[i + 1]:g} ps)", path=path)
     if np.any(d == 0):
         i = int(np.flatnonzero(d == 0)[0])
         raise TimeAxisError(f"line {line_numbers[i + 1]}: duplicated time {time[i]:g} ps (also on line "
@@ -260,6 +225,135 @@ def _gap_warnings(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> lis
     i = int(gaps[0])
     return [f"{path.name}: {gaps.size} gap(s) in the time column; the first between line {line_numbers[i]} "
             f"({time[i]:g} ps) and line {line_numbers[i + 1]} ({time[i + 1]:g} ps), typical spacing {med:g} ps"]
+
+
+def _read_header(fh: TextIO, path: Path) -> tuple[int, list[str], str | None, list[tuple[int, str]], int]:
+    """Read up to the first data row: (header line number, column names, delimiter, data lines already
+    read, last line number read). Only the lines before the data are kept."""
+    content: list[tuple[int, str]] = []
+    lineno = 0
+    first_data = None
+    for raw in fh:
+        lineno += 1
+        ln = raw.rstrip("\r\n")
+        if not ln.strip():
+            continue
+        content.append((lineno, ln))
+        if not ln.lstrip().startswith(COMMENT_MARKS):
+            first_data = len(content) - 1
+            break
+    if not content:
+        raise EmptyFileError("energy table is empty", path=path)
+    if first_data is None:
+        raise EnergyTableError("energy table has a header or comments but no rows", path=path)
+    line_no, first = content[first_data]
+    probe = first
+    first_fields = _split(first, _delimiter(first))
+    pending: list[tuple[int, str]]
+    if any(not _is_number(f) for f in first_fields if f):
+        header_line_no, header = line_no, first
+        pending = []
+    else:
+        comments = content[:first_data]
+        if not comments:
+            raise EnergyTableError(f"line {line_no}: no header row with column names (and units)", path=path)
+        header_line_no, header = comments[-1]
+        header = header.lstrip()[1:]
+        pending = [content[first_data]]
+        probe = header
+    delim = _delimiter(probe)
+    names = _header_fields(header, delim)
+    if delim is None and "," in first:
+        delim = ","
+    if any(not n for n in names):
+        raise EnergyTableError(f"line {header_line_no}: empty column name in the header", path=path)
+    seen: dict[str, int] = {}
+    for k, n in enumerate(names):
+        if n in seen:
+            raise EnergyTableError(f"line {header_line_no}: duplicate column {n!r} (columns {seen[n] + 1} and "
+                                   f"{k + 1})", path=path)
+        seen[n] = k
+    return header_line_no, names, delim, pending, lineno
+
+
+_BLOCK_ROWS = 65536
+
+
+def _line_count(path: Path) -> int:
+    """Newlines in the file plus one: an upper bound on its rows, found without holding the text."""
+    n = 1
+    with open(path, "rb") as f:
+        while block := f.read(1 << 22):
+            n += block.count(b"\n")
+    return n
+
+
+def _read_rows(fh: TextIO, path: Path, names: list[str], delim: str | None, pending: list[tuple[int, str]],
+               lineno: int) -> tuple[np.ndarray, np.ndarray]:
+    """Stream the data rows into one float64 array of shape (n_columns, n_rows), a block at a time.
+
+    Memory: the array (8 bytes per number) and one block of text; never the whole text, nor a Python
+    object per cell (a 2 GB table read whole took twice its size). The size is checked against the
+    memory available before anything is allocated.
+    """
+    from phasewake.core.resources import require_memory
+
+    ncol = len(names)
+    capacity = max(_line_count(path) - lineno + len(pending), 1)
+    require_memory(capacity * (ncol + 1) * 8.0, what="reading this energy table", path=path)
+    values = np.empty((ncol, capacity), dtype=np.float64)
+    line_numbers = np.empty(capacity, dtype=np.int64)
+    n = 0
+    block: list[list[str]] = []
+    block_lines: list[int] = []
+
+    def flush() -> None:
+        nonlocal values, line_numbers, n
+        if not block:
+            return
+        m = len(block)
+        if n + m > values.shape[1]:  # more rows than newlines (lone CR line ends): grow
+            grow = max(n + m, 2 * values.shape[1])
+            values = np.concatenate([values[:, :n], np.empty((ncol, grow - n))], axis=1)
+            line_numbers = np.concatenate([line_numbers[:n], np.empty(grow - n, dtype=np.int64)])
+        try:
+            arr = np.array(block, dtype=np.float64)
+        except ValueError:
+            for no, r in zip(block_lines, block, strict=True):
+                for k, v in enumerate(r):
+                    if not _is_number(v):
+                        raise EnergyTableError(f"line {no}: column {names[k]!r} holds {v!r}, not a number",
+                                               path=path) from None
+            raise
+        values[:, n : n + m] = arr.T
+        line_numbers[n : n + m] = block_lines
+        n += m
+        block.clear()
+        block_lines.clear()
+
+    def rows() -> Iterator[tuple[int, str]]:
+        yield from pending
+        no = lineno
+        for raw in fh:
+            no += 1
+            yield no, raw.rstrip("\r\n")
+
+    for no, ln in rows():
+        if not ln.strip() or ln.lstrip().startswith(COMMENT_MARKS):
+            continue
+        r = _split(ln, delim)
+        if len(r) != ncol:
+            raise EnergyTableError(f"line {no}: {len(r)} fields, the header has {ncol} (ragged row)", path=path)
+        block.append(r)
+        block_lines.append(no)
+        if len(block) >= _BLOCK_ROWS:
+            flush()
+    flush()
+    if n == 0:
+        raise EnergyTableError("energy table has a header but no rows", path=path)
+    if n < values.shape[1] // 2:
+        return values[:, :n].copy(), line_numbers[:n].copy()
+    return values[:, :n], line_numbers[:n]
 
 
 def read_tables(
