@@ -71,6 +71,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         with guard:
             try:
+                from phasewake.app.common import check_options
+
+                check_options(args)
                 code = int(args._run(args))
                 interrupts.check()  # a signal noted during the last step still ends the command
                 return code
@@ -79,6 +82,12 @@ def main(argv: Sequence[str] | None = None) -> int:
                     raise KeyboardInterrupt from None  # Cancelled by the interrupt token
                 sys.stderr.write(f"phasewake {args.verb}: {exc}\n")
                 return 2
+    except MemoryError:
+        # an allocation no size check foresaw: one line naming the inputs, never a traceback
+        files = ", ".join(str(f) for f in (getattr(args, "files", None) or []))
+        sys.stderr.write(f"phasewake {args.verb}: {files + ': ' if files else ''}not enough memory for this "
+                         "analysis (try --chunk-mb, --start/--stop or a smaller atom group)\n")
+        return 2
     except KeyboardInterrupt:
         sys.stderr.write(f"phasewake {args.verb}: {interrupts.describe()}\n")
         return interrupts.exit_status()

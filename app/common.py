@@ -9,6 +9,7 @@ import json
 import sys
 import time
 from collections.abc import Generator
+from pathlib import Path
 from typing import Any, TypeVar
 
 from phasewake.core.jsonable import to_jsonable
@@ -73,6 +74,87 @@ def apply_chunk_budget(args: argparse.Namespace) -> None:
 
     if getattr(args, "chunk_mb", None) is not None:
         set_chunk_budget_mb(args.chunk_mb)
+
+
+# dest -> (option, what it must be, unit). Checked by check_options on every verb that has the option.
+_POSITIVE = {
+    "timestep": ("--timestep", "fs"), "compare_timestep": ("--compare-timestep", "fs"),
+    "temperature": ("--temperature", "K"), "max_lag": ("--max-lag", "ps"), "gk_limit": ("--gk-limit", "ps"),
+    "viscosity": ("--viscosity", "mPa s"), "box_edge": ("--box-edge", "nm"),
+    "peak_prominence": ("--peak-prominence", ""),
+}
+_FINITE = {"surface": ("--surface", "")}
+_MIN_INT = {"constraints": ("--constraints", 0), "bins": ("--bins", 2), "segments": ("--segments", 2),
+            "pca": ("--pca", 1), "pca_passes": ("--pca-passes", 1), "start": ("--start", 0), "stop": ("--stop", 0)}
+
+
+def check_options(args: argparse.Namespace) -> None:
+    """Refuse impossible numeric options by name before any file is read (InputError: one line, exit 2).
+
+    NaN, infinite, zero or negative where only a positive number makes sense (``--timestep nan``,
+    ``--max-lag nan``, ``--gk-limit inf``), a negative constraint count, fewer than 2 histogram bins.
+    """
+    import math
+
+    from phasewake.core.errors import InputError
+
+    for dest, (option, unit) in _POSITIVE.items():
+        value = getattr(args, dest, None)
+        if isinstance(value, float | int) and not (math.isfinite(value) and value > 0):
+            raise InputError(f"{option} {value:g}: expected a positive number" + (f" of {unit}" if unit else ""))
+    for dest, (option, _unit) in _FINITE.items():
+        value = getattr(args, dest, None)
+        if isinstance(value, float) and not math.isfinite(value):
+            raise InputError(f"{option} {value:g}: expected a finite number")
+    for dest, (option, least) in _MIN_INT.items():
+        value = getattr(args, dest, None)
+        if isinstance(value, int) and not isinstance(value, bool) and value < least:
+            raise InputError(f"{option} {value}: expected a whole number of at least {least}")
+    fit = getattr(args, "fit_range", None)
+    if fit is not None and not (all(math.isfinite(v) for v in fit) and 0 <= fit[0] < fit[1]):
+        raise InputError(f"--fit-range {fit[0]:g} {fit[1]:g}: expected two finite times 0 <= FROM < TO in ps")
+
+
+def check_output_path(path: str | Path, option: str, what: str = "") -> Path:
+    """Refuse an output that cannot be written, before any analysis runs (InputError naming the option).
+
+    An existing folder where a file is wanted, a folder on the way that is a file, a folder without
+    write permission (a missing folder is made by the writer where its parent permits). Writing itself stays with the atomic writer (core/atomic.py).
+    """
+    from phasewake.core.errors import InputError
+
+    p = Path(path)
+    if p.is_dir():
+        raise InputError(f"{option}: {p} is a folder; give a file name", path=None)
+    folder = p.parent if str(p.parent) else Path(".")
+    _check_folder_writable(folder, option, p, what)
+    return p
+
+
+def check_output_folder(path: str | Path, option: str) -> Path:
+    """Like check_output_path for an output folder: an existing writable folder, or one that can be made."""
+    from phasewake.core.errors import InputError
+
+    p = Path(path)
+    if p.exists() and not p.is_dir():
+        raise InputError(f"{option}: {p} is a file, not a folder")
+    _check_folder_writable(p, option, p)
+    return p
+
+
+def _check_folder_writable(folder: Path, option: str, target: Path, what: str = "") -> None:
+    import os
+
+    from phasewake.core.errors import InputError
+
+    target_text = f"{what} {target}" if what else str(target)
+    probe = folder  # a missing folder is made by the writer, with its parents: the nearest existing one decides
+    while not probe.exists() and probe != probe.parent:
+        probe = probe.parent
+    if probe.exists() and not probe.is_dir():
+        raise InputError(f"{option}: cannot write {target_text}: {probe} is a file, not a folder")
+    if not os.access(probe, os.W_OK | os.X_OK):
+        raise InputError(f"{option}: cannot write {target_text}: permission denied in the folder {probe}")
 
 
 def run_overrides(args: argparse.Namespace) -> dict[str, Any]:

@@ -246,6 +246,10 @@ def _write_h5md(path: Path, cols: list[tuple[str, str, np.ndarray]], time: np.nd
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.output is not None:
+        from phasewake.app.common import check_output_path
+
+        check_output_path(args.output, "-o/--output")
     run_ = open_run_from_args(args)
     cols, time, summary = _columns(args, run_)
     if args.output is None and args.json:

@@ -184,6 +184,10 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.cached import cached_crossings_of_runs
     from phasewake.core.readers import open_run
 
+    if args.events:
+        from phasewake.app.common import check_output_path
+
+        check_output_path(args.events, "--events", "the events table")
     states = None if args.states is None else _floats(args.states, 2, "--states")
     surface = None if args.surface is None else _floats(args.surface, 1, "--surface")[0]
     window = None if args.kappa_window is None else _floats(args.kappa_window, 2, "--kappa-window")

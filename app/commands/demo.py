@@ -91,6 +91,9 @@ def run(args: argparse.Namespace) -> int:
     else:
         reason = "no display found" if not args.headless else "headless mode asked for"
     out = Path(args.output)
+    from phasewake.app.common import check_output_folder
+
+    check_output_folder(out, "--output")
     sys.stdout.write(f"phasewake demo: {reason}; writing the sample run's summary, audit, figures and report "
                      f"to {out}{os.sep}\n")
     sys.stdout.flush()

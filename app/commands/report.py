@@ -40,7 +40,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _states(text: str | None) -> tuple[float, float] | None:
-    from phasewake.core.errors import PhasewakeError
+    """``--states A_HI,B_LO`` as two finite numbers with A below B (InputError otherwise)."""
+    import math
+
+    from phasewake.core.errors import InputError
 
     if text is None:
         return None
@@ -48,11 +51,31 @@ def _states(text: str | None) -> tuple[float, float] | None:
     try:
         a, b = (float(p) for p in parts)
     except ValueError:
-        raise PhasewakeError(f"--states wants two numbers A_HI,B_LO, got {text!r}") from None
+        raise InputError(f"--states wants two numbers A_HI,B_LO, got {text!r}") from None
+    if not (math.isfinite(a) and math.isfinite(b)):
+        raise InputError(f"--states wants two finite numbers A_HI,B_LO, got {text!r}")
+    if not a < b:
+        raise InputError(f"--states {text}: core A (q <= {a:g}) must lie below core B (q >= {b:g})")
     return a, b
 
 
+def _check_explicit(args: argparse.Namespace, run_: object, states: tuple[float, float] | None) -> None:
+    """Options given explicitly are checked before the report is built, so a mistake exits 2 like
+    ``crossings`` and ``coords`` instead of leaving a section out of the report."""
+    from phasewake.core.coordinates import resolve_for_run
+    from phasewake.core.errors import InputError
+
+    if args.coordinate is not None:
+        if getattr(run_, "frames", None) is None:
+            raise InputError("--coordinate needs trajectory frames; this run has only an energy table")
+        resolve_for_run(args.coordinate, run_)  # type: ignore[arg-type]
+    if states is not None and args.surface is not None and not states[0] < args.surface < states[1]:
+        raise InputError(f"--surface {args.surface:g} must lie strictly between the cores of --states "
+                         f"({states[0]:g} and {states[1]:g})")
+
+
 def run(args: argparse.Namespace) -> int:
+    from phasewake.app.common import check_output_folder, check_output_path
     from phasewake.core.cache import ResultCache
     from phasewake.core.errors import PhasewakeError
     from phasewake.core.report import build_report
@@ -65,8 +88,15 @@ def run(args: argparse.Namespace) -> int:
     for target in (out, html_path):
         if target is not None and target.resolve() in inputs:
             raise PhasewakeError("the report would overwrite one of the input files", path=target)
+    # every output is checked before any analysis runs
+    check_output_path(out, "-o/--output")
+    if html_path is not None:
+        check_output_path(html_path, "--html")
+    if args.preview is not None:
+        check_output_folder(args.preview, "--preview")
     states = _states(args.states)
     run_ = open_run_from_args(args)
+    _check_explicit(args, run_, states)
     result = run_with_progress(
         build_report(run_, out, coordinate=args.coordinate, html_path=html_path,
                      temperature_K=args.temperature, n_constraints=args.constraints,
