@@ -6,6 +6,12 @@ value). :class:`JobRunner` runs each job in its own ``QThread`` with a
 progress signals, and reports the result, a cancellation or an error back on the GUI thread. Jobs
 have a key (e.g. the panel name): starting a job cancels the running one with the same key, so a
 dragged time window never piles up stale computations.
+
+Every thread carries a serial number in its signals, and the runner finds the thread by that number:
+it never asks Qt for ``sender()``. A queued progress signal can arrive after the thread that sent it
+was deleted (a job that ends while the GUI thread is busy, e.g. during a burst of exports); reading
+the sender then touched a dead object and crashed the window. The thread is deleted only after its
+``done`` signal has been handled on the GUI thread, its signals disconnected and the thread joined.
 """
 
 from __future__ import annotations
@@ -36,11 +42,12 @@ class JobOutcome:
 
 
 class _Thread(QtCore.QThread):
-    progressed = QtCore.Signal(str, float, str)  # key, fraction (-1 unknown), message
-    done = QtCore.Signal(object)  # JobOutcome
+    progressed = QtCore.Signal(int, str, float, str)  # serial, key, fraction (-1 unknown), message
+    done = QtCore.Signal(int, object)  # serial, JobOutcome
 
-    def __init__(self, key: str, job: Callable[[], Any], token: CancelToken, label: str) -> None:
+    def __init__(self, serial: int, key: str, job: Callable[[], Any], token: CancelToken, label: str) -> None:
         super().__init__()
+        self.serial = serial
         self.key = key
         self.job = job
         self.token = token
@@ -53,10 +60,11 @@ class _Thread(QtCore.QThread):
             return
         self._last = now
         frac = p.fraction
-        self.progressed.emit(self.key, -1.0 if frac is None else float(frac), p.message)
+        self.progressed.emit(self.serial, self.key, -1.0 if frac is None else float(frac), p.message)
 
     def run(self) -> None:  # runs in the worker thread
         t0 = time.monotonic()
+        outcome = JobOutcome(self.key, error=f"{self.label} stopped unexpectedly")
         try:
             work = self.job()
             if hasattr(work, "send") and hasattr(work, "throw"):  # a progress generator
@@ -74,7 +82,8 @@ class _Thread(QtCore.QThread):
             detail = traceback.format_exception_only(type(exc), exc)[-1].strip()
             outcome = JobOutcome(self.key, error=f"{self.label} failed: {detail}",
                                  elapsed_s=time.monotonic() - t0)
-        self.done.emit(outcome)
+        finally:  # always: the runner deletes the thread only once this has arrived
+            self.done.emit(self.serial, outcome)
 
 
 class JobRunner(QtCore.QObject):
@@ -99,8 +108,9 @@ class JobRunner(QtCore.QObject):
 
     def __init__(self, parent: QtCore.QObject | None = None) -> None:
         super().__init__(parent)
-        self._threads: dict[str, _Thread] = {}
-        self._retired: list[_Thread] = []  # cancelled threads still winding down
+        self._threads: dict[str, _Thread] = {}  # key -> the current job's thread
+        self._live: dict[int, _Thread] = {}  # serial -> every thread not yet deleted (current or cancelled)
+        self._serial = 0
         self.labels: dict[str, str] = {}
 
     @property
@@ -115,11 +125,14 @@ class JobRunner(QtCore.QObject):
         was_busy = self.busy
         self.cancel(key, quiet=True)
         token = CancelToken()
-        th = _Thread(key, job, token, label or key)
+        self._serial += 1
+        th = _Thread(self._serial, key, job, token, label or key)
+        # bound methods of this runner (a QObject of the GUI thread): queued across threads, and the
+        # serial in each signal says which thread sent it
         th.progressed.connect(self._relay_progress)
         th.done.connect(self._on_done)
-        th.finished.connect(lambda th=th: self._reap(th))
         self._threads[key] = th
+        self._live[th.serial] = th
         self.labels[key] = label or key
         th.start()
         self.started.emit(key, label or key)
@@ -131,8 +144,7 @@ class JobRunner(QtCore.QObject):
         """Ask the job to stop; listeners get a cancelled outcome now (unless ``quiet``)."""
         th = self._threads.pop(key, None)
         if th is not None:
-            th.token.cancel()
-            self._retired.append(th)
+            th.token.cancel()  # the thread stays in _live until its done signal arrives
             if not quiet:
                 self.finished.emit(JobOutcome(key, cancelled=True))
             if not self._threads and not quiet:
@@ -145,25 +157,47 @@ class JobRunner(QtCore.QObject):
     def wait_all(self, timeout_ms: int = 10_000) -> bool:
         """Block until every thread (running or cancelled) has ended; for shutdown and tests."""
         ok = True
-        for th in list(self._threads.values()) + list(self._retired):
+        for th in list(self._live.values()):
             ok = th.wait(timeout_ms) and ok
         return ok
 
-    def _relay_progress(self, key: str, frac: float, message: str) -> None:
+    @property
+    def n_threads(self) -> int:
+        """Threads not yet deleted (running, cancelled and winding down, or ended and not yet reaped)."""
+        return len(self._live)
+
+    def _current(self, serial: int, key: str) -> bool:
         th = self._threads.get(key)
-        if th is not None and th is self.sender():
+        return th is not None and th.serial == serial
+
+    def _relay_progress(self, serial: int, key: str, frac: float, message: str) -> None:
+        if self._current(serial, key):  # else a superseded, cancelled or already reaped job
             self.progressed.emit(key, frac, message)
 
-    def _on_done(self, outcome: JobOutcome) -> None:
-        th = self.sender()
-        if self._threads.get(outcome.key) is th:
+    def _on_done(self, serial: int, outcome: JobOutcome) -> None:
+        current = self._current(serial, outcome.key)
+        if current:
             del self._threads[outcome.key]
+        self._reap(serial)
+        if current:
             self.finished.emit(outcome)
             if not self._threads:
                 self.busyChanged.emit(False)
         # else: a superseded or cancelled job ending late; its outcome was already reported.
 
-    def _reap(self, th: _Thread) -> None:
-        if th in self._retired:
-            self._retired.remove(th)
+    def _reap(self, serial: int) -> None:
+        """Delete an ended thread: disconnect it first, so nothing it queued later can reach us."""
+        th = self._live.get(serial)
+        if th is None:
+            return
+        if not th.wait(0):
+            # done was its last act; run() is returning: try again in a moment instead of blocking
+            QtCore.QTimer.singleShot(5, lambda serial=serial: self._reap(serial))
+            return
+        del self._live[serial]
+        for signal in (th.progressed, th.done):
+            try:
+                signal.disconnect()
+            except (RuntimeError, TypeError):  # nothing connected any more
+                pass
         th.deleteLater()
