@@ -146,7 +146,9 @@ def provenance_for(
     settings: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """Provenance record: input files with their SHA-256 and size, phasewake version, settings.
+    """Provenance record: input files (by file name, never the absolute path: a figure sent to a
+    colleague or a journal must not carry the folders of the machine it was made on) with their SHA-256
+    and size, phasewake version, settings. The checksum identifies the input wherever it now lives.
 
     No time stamp is recorded, so exporting the same figure twice gives the same bytes (PDF and SVG
     dates are suppressed too).
@@ -156,7 +158,7 @@ def provenance_for(
     files = []
     for p in paths:
         pp = Path(p)
-        files.append({"path": str(pp), "sha256": sha256_file(pp), "size_bytes": pp.stat().st_size})
+        files.append({"file": pp.name, "sha256": sha256_file(pp), "size_bytes": pp.stat().st_size})
     out: dict[str, Any] = {
         "phasewake_version": __version__,
         "matplotlib_version": matplotlib.__version__,
@@ -320,7 +322,7 @@ def draw_into(target: Figure | SubFigure, spec: FigureSpec, *, preset: str | Pre
             ax.text(0.5, 0.5, "nothing to draw", ha="center", va="center", transform=ax.transAxes)
             axes.append(ax)
         if title and not one and spec.title:
-            target.suptitle(spec.title)
+            target.suptitle(mathtext(spec.title) if "_" in spec.title else spec.title)
     return axes
 
 
@@ -360,12 +362,70 @@ def _decimate(x: np.ndarray, y: np.ndarray, buckets: int) -> tuple[np.ndarray, n
     return x[keep], y[keep]
 
 
+_GREEK = {"α": "alpha", "β": "beta", "γ": "gamma", "δ": "delta", "ε": "epsilon", "ζ": "zeta", "η": "eta",
+          "θ": "theta", "κ": "kappa", "λ": "lambda", "μ": "mu", "ν": "nu", "ξ": "xi", "π": "pi", "ρ": "rho",
+          "σ": "sigma", "τ": "tau", "φ": "phi", "χ": "chi", "ψ": "psi", "ω": "omega", "Γ": "Gamma", "Δ": "Delta",
+          "Θ": "Theta", "Λ": "Lambda", "Ξ": "Xi", "Π": "Pi", "Σ": "Sigma", "Φ": "Phi", "Ψ": "Psi", "Ω": "Omega"}
+# a one-letter symbol (Latin or Greek) with a subscript: σ_E, τ_int, N_dof, k_TST, k_{A→B}; never inside a
+# word (a series name such as potential_energy stays as it is)
+_SUBSCRIPTED = (r"(?<![A-Za-z0-9_\\])([A-Za-z" + "".join(_GREEK) + r"])_(\{[^}]+\}|[A-Za-z0-9]+)"
+                r"(?![A-Za-z0-9_])")
+
+
+def _math_symbol(m: Any) -> str:
+    base, sub = m.group(1), m.group(2).strip("{}")
+    base = "\\" + _GREEK[base] if base in _GREEK else base
+    sub = sub if len(sub) == 1 else "\\mathrm{" + sub + "}"
+    return f"{base}_{sub}"
+
+
+def mathtext(text: str) -> str:
+    """Symbols with subscripts as matplotlib mathtext: "σ_E/σ_K = 1.02" -> "$\\sigma_E/\\sigma_K$ = 1.02"
+    (a literal "σ_E" shows its underscore). A run of symbols joined by "/" or "·" is one expression. Text
+    without such symbols is returned with any "$" escaped, so it is never read as mathtext."""
+    import re
+
+    if not text or "_" not in text:
+        return text.replace("$", "\\$") if text and "$" in text else text
+    text = text.replace("$", "\\$")
+    expr = _SUBSCRIPTED + r"(?:[/·]" + _SUBSCRIPTED + r")*"
+
+    def whole(m: Any) -> str:
+        return "$" + re.sub(_SUBSCRIPTED, _math_symbol, m.group(0)).replace("·", r"\cdot ") + "$"
+
+    return re.sub(expr, whole, text)
+
+
+def _apply_mathtext(host: Any) -> None:
+    """Every text of a drawn figure (labels, titles, legends, notes) through :func:`mathtext`."""
+    from matplotlib.text import Text
+
+    for t in host.findobj(Text):
+        s = t.get_text()
+        if s and "_" in s and "$" not in s:
+            t.set_text(mathtext(s))
+
+
+# characters a wrapped label must not be broken at: inside "σ_E = 1.02", "3.2 kJ/mol", "a ± b"
+_NO_BREAK = ((" = ", "\u00a0=\u00a0"), (" ± ", "\u00a0±\u00a0"), (" < ", "\u00a0<\u00a0"),
+             (" > ", "\u00a0>\u00a0"), (" ≤ ", "\u00a0≤\u00a0"), (" ≥ ", "\u00a0≥\u00a0"),
+             (" × ", "\u00a0×\u00a0"))
+
+
 def _wrap_label(text: str, width: int) -> str:
+    """Wrap at spaces between words, never inside an expression (an equation, a number and its unit)."""
+    import re
     import textwrap
 
     if len(text) <= width:
         return text
-    return "\n".join(textwrap.wrap(text, width=width, break_long_words=False)) or text
+    keep = text
+    for a, b in _NO_BREAK:
+        keep = keep.replace(a, b)
+    # a number stays with its unit
+    keep = re.sub(r"(\d) (?=(?:kJ|kcal|K\b|ps|ns|fs|nm|Å|amu|cm|mol|bar|rad|deg|%|°|1/))", "\\1\u00a0", keep)
+    # textwrap breaks only at ASCII whitespace, so the no-break spaces hold; they are drawn as spaces
+    return "\n".join(textwrap.wrap(keep, width=width, break_long_words=False)) or text
 
 
 def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 1, n_rows: int = 1) -> None:
@@ -407,6 +467,13 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 
     if has_image:
         ax.margins(y=0)
         ax.grid(False)
+    if plot.x.integer or plot.y.integer:
+        from matplotlib.ticker import MaxNLocator
+
+        if plot.x.integer:
+            ax.xaxis.set_major_locator(MaxNLocator(integer=True))
+        if plot.y.integer:
+            ax.yaxis.set_major_locator(MaxNLocator(integer=True))
     if plot.x.limits is not None:
         ax.set_xlim(*plot.x.limits)
     if plot.y.limits is not None:
@@ -437,6 +504,7 @@ def _draw_plot(ax: Axes, plot: PlotSpec, pr: Preset, *, title: str, cols: int = 
         ax.text(0.015, 0.975, plot.note, transform=ax.transAxes, ha="left", va="top",
                 fontsize=pr.tick_pt, bbox={"boxstyle": "round,pad=0.3", "facecolor": "white",
                                            "edgecolor": "#999999", "alpha": 0.9}, zorder=10)
+    _apply_mathtext(ax)
 
 
 def _draw_line(ax: Axes, item: Line, pr: Preset) -> None:

@@ -92,7 +92,12 @@ cache</i> empties the folder (the command line has <code>phasewake cache --clear
 choices) into a small JSON file of our own (<code>.pwsession</code>), written atomically; open it again
 with <i>File ▸ Open session…</i> or <code>phasewake open --session FILE</code>. <i>Export</i> writes
 the figure on screen (PNG, SVG, PDF), its data (CSV) or a PDF report of the run; what is exported is
-what the panel shows.</p>
+what the panel shows. Exports run in the background (the window stays usable; the status line says when
+the file is written). Each exported file records where it came from in its metadata (PNG text, SVG
+metadata, PDF Subject, CSV header lines): the phasewake version, the settings, and every input file by
+its <b>file name</b> (never the folder it sits in on your machine) with its SHA-256 checksum and size,
+so the figure can be traced to its input wherever the files now live (<code>sha256sum FILE</code> gives
+the same checksum).</p>
 """
 
 USER_GUIDE_UNITS = """<h3>Units</h3>
