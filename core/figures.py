@@ -57,6 +57,7 @@ class Axis:
     unit: str = ""  # e.g. "kJ/mol"; "" for dimensionless
     log: bool = False
     limits: tuple[float, float] | None = None
+    integer: bool = False  # ticks only at whole numbers (component numbers, counts)
 
     @property
     def text(self) -> str:

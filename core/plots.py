@@ -51,12 +51,75 @@ def _fmt(v: float | None, unit: str = "", digits: int = 3) -> str:
     return f"{text} {unit}".strip()
 
 
+# analysis settings a caption may mention, in words: name -> (phrase, unit)
+_SETTING_WORDS: dict[str, tuple[str, str]] = {
+    "n_atoms": ("{} atoms", ""),
+    "temperature_K": ("temperature", "K"),
+    "significance_z": ("significance threshold", "standard errors"),
+    "timestep_ps": ("time step", "ps"),
+    "n_constraints": ("{} constraints", ""),
+    "n_dof": ("{} degrees of freedom", ""),
+    "block_frames": ("block length", "frames"),
+    "n_blocks": ("{} blocks", ""),
+    "segment_frames": ("segment length", "frames"),
+    "chunk_frames": ("frames read at a time", ""),
+}
+
+
+def _setting_phrase(name: str, value: str) -> str:
+    phrase, unit = _SETTING_WORDS[name]
+    return (phrase.format(value) if "{}" in phrase else f"{phrase} {value}") + (f" {unit}" if unit else "")
+
+
 def _settings_text(settings: Mapping[str, Any] | None) -> str:
+    """Settings a caption mentions, as plain words ("temperature 122.3 K, significance threshold 3
+    standard errors"), never ``name = value`` pairs; settings without a phrase are left out."""
     if not settings:
         return ""
-    parts = [f"{k} = {v:.6g}" if isinstance(v, float) else f"{k} = {v}" for k, v in settings.items()
-             if v is not None and not isinstance(v, np.ndarray)]
-    return "; ".join(parts)
+    parts = []
+    for k, v in settings.items():
+        if v is None or isinstance(v, np.ndarray | list | tuple | dict | Mapping) or k not in _SETTING_WORDS:
+            continue
+        parts.append(_setting_phrase(k, f"{v:.4g}" if isinstance(v, float) else str(v)))
+    return ", ".join(parts)
+
+
+def _plain_number(v: float, decimals: int) -> str:
+    return f"{v:.{max(0, decimals)}f}"
+
+
+def _fix_plus_minus(m: Any) -> str:
+    """"-545 ± 1.9e+02" -> "-545 ± 190": the error in plain digits and the value to the same decimal place."""
+    value, err = float(m.group(1)), float(m.group(2))
+    if not (1e-4 <= abs(err) < 1e6) or not np.isfinite(value):
+        return m.group(0)
+    decimals = 1 - int(np.floor(np.log10(abs(err))))
+    return f"{_plain_number(value, decimals)} ± {_plain_number(round(err, decimals), decimals)}"
+
+
+def plain_words(text: str) -> str:
+    """Text for a reader, not a programmer: no module paths, "±" for "+-", σ_E for sigma_E, an error in
+    plain digits beside its value, settings named in words rather than ``name = value``."""
+    import re
+
+    if not text:
+        return text
+    text = re.sub(r"phasewake\.(?:core|app)\.(?:[A-Za-z_]+\.)*([A-Za-z_]+)", lambda m: m.group(1).replace("_", " "), text)
+    text = text.replace("+/-", "±").replace("+-", "±")
+    text = re.sub(r"\bsigma_([A-Za-z]+)\b", r"σ_\1", text)
+    text = re.sub(r"(-?\d+(?:\.\d+)?(?:[eE][+-]?\d+)?) ± (\d+(?:\.\d+)?[eE][+-]?\d+)", _fix_plus_minus, text)
+
+    def setting(m: Any) -> str:
+        v = m.group(2)
+        try:
+            v = f"{float(v):.4g}"
+        except ValueError:
+            pass
+        return _setting_phrase(m.group(1), v)
+
+    names = "|".join(sorted(_SETTING_WORDS, key=len, reverse=True))
+    text = re.sub(rf"\b({names}) = ([-+0-9.eE]+)", setting, text)
+    return text
 
 
 def _notes_text(notes: Sequence[str]) -> str:
@@ -266,7 +329,7 @@ def audit_energy_figure(audit: Any, *, cursor_ps: float | None = None) -> Figure
                           style=Style(colour=PALETTE[0], dash="dash", width=1.5)))
         notes.append(f"drift {d.slope_kJ_per_mol_per_ns:.3g} ± {d.slope_error_kJ_per_mol_per_ns:.2g} kJ/mol/ns")
         caption += (f"Dashed: least-squares drift {d.slope_kJ_per_mol_per_ns:.3g} ± "
-                    f"{d.slope_error_kJ_per_mol_per_ns:.2g} kJ/mol/ns ({d.error_method})"
+                    f"{d.slope_error_kJ_per_mol_per_ns:.2g} kJ/mol/ns ({plain_words(d.error_method)})"
                     + (f", {d.slope_kT_per_dof_per_ns:.3g} kT per degree of freedom per ns"
                        if d.slope_kT_per_dof_per_ns is not None else "") + ". ")
     if fl is not None and fl.ratio is not None:
@@ -278,8 +341,9 @@ def audit_energy_figure(audit: Any, *, cursor_ps: float | None = None) -> Figure
     return FigureSpec(key="energy.audit", title=f"Energy conservation: {audit.run_name}",
                       plots=(PlotSpec(title="Energy conservation", x=TIME, y=Axis("Energy", "kJ/mol"),
                                       items=tuple(items), x_is_time=True, note=", ".join(notes)),),
-                      caption=caption + "Settings: " + (_settings_text(getattr(d, "settings", None)) or "defaults")
-                      + ".", provenance={"settings": dict(audit.settings)})
+                      caption=caption + (f"Settings: {_settings_text(getattr(d, 'settings', None))}."
+                                         if _settings_text(getattr(d, "settings", None)) else ""),
+                      provenance={"settings": dict(audit.settings)})
 
 
 def audit_temperature_figure(audit: Any, *, cursor_ps: float | None = None) -> FigureSpec:
@@ -321,17 +385,23 @@ def audit_spectrum_figure(audit: Any) -> FigureSpec:
         note = getattr(tsa, "note", "") if tsa is not None else ""
         return _empty("timestep.spectrum", "Velocity spectrum", note or "No velocity spectrum was computed.")
     f = np.asarray(tsa.frequency_per_ps, float)
+    w = f * PER_PS_TO_PER_CM  # in cm⁻¹, as the vibrational density of states
     pw = np.asarray(tsa.power, float)
-    items: list[PlotItem] = [Line(f, pw / (pw.max() if pw.size and pw.max() > 0 else 1.0),
-                                  label="velocity power", style=_style(0))]
-    caption = "Mass-weighted velocity power spectrum (normalised to its maximum). "
+    pn = pw / (pw.max() if pw.size and pw.max() > 0 else 1.0)
+    items: list[PlotItem] = [Line(w, pn, label="velocity power", style=_style(0))]
+    caption = "Mass-weighted velocity power spectrum (normalised to its maximum) against wavenumber. "
+    upper = None
     if tsa.fastest is not None:
         fm = tsa.fastest
-        items.append(Mark("vline", fm.frequency_per_ps, label=f"fastest motion, period {fm.period_ps:.3g} ps",
+        items.append(Mark("vline", fm.wavenumber_per_cm, label=f"fastest motion, period {fm.period_ps:.3g} ps",
                           role="threshold", style=Style(colour=PALETTE[6], dash="dash", width=1.3)))
-        caption += (f"Fastest significant motion at {fm.frequency_per_ps:.3g} ps⁻¹ "
-                    f"({fm.wavenumber_per_cm:.0f} cm⁻¹, period {fm.period_ps:.3g} ps); resolution "
-                    f"{fm.resolution_per_ps:.2g} ps⁻¹, Nyquist {fm.nyquist_per_ps:.3g} ps⁻¹. ")
+        caption += (f"Fastest significant motion at {fm.wavenumber_per_cm:.0f} cm⁻¹ ({fm.frequency_per_ps:.3g} "
+                    f"ps⁻¹, period {fm.period_ps:.3g} ps); resolution {fm.resolution_per_ps * PER_PS_TO_PER_CM:.2g} "
+                    f"cm⁻¹, Nyquist limit {fm.nyquist_per_ps * PER_PS_TO_PER_CM:.4g} cm⁻¹. ")
+        upper = fm.wavenumber_per_cm
+    limits = _spectrum_limits(w, pn, upper)
+    if limits is not None:
+        caption += f"Shown up to {limits[1]:.0f} cm⁻¹ (nothing significant above; the exported data hold all). "
     if tsa.check is not None:
         c = tsa.check
         caption += (f"Frames per period {c.frames_per_period:.3g}"
@@ -340,9 +410,31 @@ def audit_spectrum_figure(audit: Any) -> FigureSpec:
                       f"{c.recommended_max_timestep_ps * 1e3:.3g} fs. ")
     caption += tsa.note
     return FigureSpec(key="timestep.spectrum", title=f"Velocity spectrum: {audit.run_name}",
-                      plots=(PlotSpec(title="Velocity power spectrum", x=Axis("Frequency", "1/ps"),
+                      plots=(PlotSpec(title="Velocity power spectrum", x=Axis("Wavenumber", "cm⁻¹", limits=limits),
                                       y=Axis("Power (normalised)", ""), items=tuple(items)),),
                       caption=caption)
+
+
+PER_PS_TO_PER_CM = 1.0 / 0.0299792458  # 1 ps⁻¹ in cm⁻¹: 1/(c in cm/ps), c exact (SI)
+
+
+def _spectrum_limits(w: np.ndarray, y: np.ndarray, highest: float | None, *,
+                     weight: float = 0.995) -> tuple[float, float] | None:
+    """An x range for a spectrum: up to the highest significant peak plus a margin (or, with none, to
+    where ``weight`` of the spectral weight lies), never beyond the data. None when that is the whole."""
+    if w.size < 2:
+        return None
+    top = float(w[-1])
+    if highest is not None and np.isfinite(highest) and highest > 0:
+        edge = highest
+    else:
+        yy = np.clip(np.nan_to_num(np.asarray(y, float)), 0.0, None)
+        c = np.cumsum(yy)
+        if c[-1] <= 0:
+            return None
+        edge = float(w[min(int(np.searchsorted(c, weight * c[-1])), w.size - 1)])
+    cut = min(top, 1.3 * edge + 200.0)
+    return None if cut >= 0.95 * top else (float(min(0.0, w[0])), cut)
 
 
 def _empty(key: str, title: str, why: str) -> FigureSpec:
@@ -454,7 +546,7 @@ def pca_figure(pca: Any, *, max_components: int = 10, max_points: int = 20_000) 
     """Principal components: eigenvalue spectrum (explained variance) and PC1 vs PC2 projection."""
     ev = np.asarray(pca.explained_variance_ratio, float)[:max_components]
     k = np.arange(1, ev.size + 1, dtype=float)
-    plots = [PlotSpec(title="Explained variance", x=Axis("Principal component", ""),
+    plots = [PlotSpec(title="Explained variance", x=Axis("Principal component", "", integer=True),
                       y=Axis("Fraction of variance", ""),
                       items=(Line(k, ev, kind="bar", label="per component", style=_style(0)),
                              Line(k, np.cumsum(ev), label="cumulative", style=_style(1, marker=True))))]
@@ -471,7 +563,7 @@ def pca_figure(pca: Any, *, max_components: int = 10, max_points: int = 20_000) 
     cc_text = ""
     if cc is not None and np.asarray(cc).size:
         cc_text = f" Cosine content of PC1: {float(np.asarray(cc)[0]):.2f} (Hess 2002; near 1 suggests random diffusion)."
-    caption = (f"Principal components of {pca.atom_indices.size} atoms over {pca.n_frames} frames "
+    caption = (f"Principal components of {atoms_text(pca.atom_indices)} over {pca.n_frames} frames "
                f"({'mass-weighted' if pca.mass_weighted else 'not mass-weighted'}, "
                f"{'after optimal superposition' if pca.fit else 'no superposition'}, method {pca.method}). "
                f"PC1 explains {100 * ev[0]:.1f}% of the variance." + cc_text if ev.size else "")
@@ -679,14 +771,38 @@ def vacf_figure(result: Any) -> FigureSpec:
         c0 = v[i, 0] if v[i, 0] != 0 else 1.0
         items.append(Line(lag, v[i] / c0, label=f"{name} ({int(result.n_atoms_per_group[i])} atoms)",
                           style=_style(i)))
+    limits = _decay_limits(lag, v)
     caption = (f"Velocity autocorrelation C(t)/C(0) per group ({'mass-weighted' if result.mass_weighted else 'plain'}), "
                f"averaged over atoms and time origins of {result.n_frames} frames {result.dt_ps:.3g} ps apart."
                + (" Velocities estimated from positions." if result.velocities_estimated else "")
+               + (f" Shown to {limits[1]:.3g} ps, a few times the lag after which |C(t)/C(0)| stays below "
+                  f"{DECAY_LEVEL:g} (the exported data hold every lag up to {lag[-1]:.3g} ps)."
+                  if limits is not None else "")
                + _notes_text(result.notes))
     return FigureSpec(key="velocity.vacf", title="Velocity autocorrelation",
-                      plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps"),
+                      plots=(PlotSpec(title="Velocity autocorrelation", x=Axis("Lag", "ps", limits=limits),
                                       y=Axis("C(t)/C(0)", ""), items=tuple(items)),),
                       caption=caption, provenance={"settings": dict(result.settings)})
+
+
+DECAY_LEVEL = 0.05  # a correlation below this fraction of its start is taken as decayed (common practice)
+
+
+def _decay_limits(lag: np.ndarray, c: np.ndarray, *, times: float = 4.0) -> tuple[float, float] | None:
+    """(0, a few decay times) for correlation curves ``c`` (n_curves, n_lags) against ``lag``: the decay time
+    is the lag after which every normalised curve stays below DECAY_LEVEL. None when that is most of the
+    range (a curve that never decays, e.g. an undamped vibration, is shown whole)."""
+    if lag.size < 4:
+        return None
+    c = np.atleast_2d(np.asarray(c, float))
+    c0 = np.where(c[:, :1] != 0, c[:, :1], 1.0)
+    above = np.any(np.abs(c / c0) >= DECAY_LEVEL, axis=0)
+    idx = np.nonzero(above)[0]
+    if idx.size == 0:
+        return None
+    t_decay = float(lag[min(int(idx[-1]) + 1, lag.size - 1)])
+    cut = max(times * t_decay, float(lag[min(8, lag.size - 1)]))
+    return None if cut >= 0.8 * float(lag[-1]) else (float(lag[0]), cut)
 
 
 def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
@@ -702,14 +818,17 @@ def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
                           style=Style(colour=PALETTE[6], marker="v", marker_size=5.0)))
         items.append(Mark("text", pk.wavenumber_cm1, pk.intensity, label=f"{pk.wavenumber_cm1:.0f}",
                           style=Style(colour=PALETTE[0])))
+    limits = None if max_cm1 is not None else _spectrum_limits(w, y, getattr(result, "highest_significant_peak_cm1", None))
     caption = (f"Vibrational density of states (Fourier transform of the mass-weighted VACF, {result.window} window), "
                f"normalised to {result.n_dof:g} degrees of freedom. Resolution {result.resolution_cm1:.3g} cm⁻¹ "
                f"(lag window {result.max_lag_ps:.3g} ps), Nyquist limit {result.nyquist_cm1:.4g} cm⁻¹ from the "
                f"frame spacing {result.dt_ps:.3g} ps."
+               + (f" Shown up to {limits[1]:.0f} cm⁻¹, past the highest significant peak (nothing significant "
+                  "above; the exported data hold the whole range)." if limits is not None else "")
                + (" Velocities estimated from positions: high frequencies are damped." if result.velocities_estimated
                   else "") + _notes_text(result.notes))
     return FigureSpec(key="velocity.vdos", title="Vibrational density of states",
-                      plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm⁻¹"),
+                      plots=(PlotSpec(title="Vibrational density of states", x=Axis("Wavenumber", "cm⁻¹", limits=limits),
                                       y=Axis("Density of states", "1/cm⁻¹"), items=tuple(items)),),
                       caption=caption, provenance={"settings": dict(result.settings)})
 
@@ -774,6 +893,35 @@ def transmission_figure(result: Any) -> FigureSpec:
                       plots=(PlotSpec(title="Transmission coefficient", x=Axis("Time after crossing", "ps"),
                                       y=Axis("κ(t)", ""), items=tuple(items)),),
                       caption=caption)
+
+
+def _rate_text(r: Any) -> str:
+    if r.upper_bound_only:
+        return (f"< {r.ci_high_per_ps:.3g} ps⁻¹ ({100 * r.confidence:.0f}% upper limit: no transition in "
+                f"{r.exposure_ps:.4g} ps in {r.from_state})")
+    mfpt = f"; mean first-passage time {r.mfpt_ps:.3g} ps" if np.isfinite(r.mfpt_ps) else ""
+    return (f"{r.rate_per_ps:.3g} ps⁻¹, {100 * r.confidence:.0f}% interval [{r.ci_low_per_ps:.3g}, "
+            f"{r.ci_high_per_ps:.3g}] ps⁻¹ ({r.n_transitions} transition{'s' if r.n_transitions != 1 else ''} in "
+            f"{r.exposure_ps:.4g} ps in {r.from_state}{mfpt})")
+
+
+def crossings_rate_rows(result: Any) -> list[tuple[str, str]]:
+    """The rates of a crossings result as (name, value with unit) rows: the numbers the ``crossings`` verb
+    prints (rates with their intervals, transmission coefficients, transition-state-theory rates)."""
+    rows = [(f"k({r.from_state}→{r.to_state})", _rate_text(r)) for r in (result.rate_ab, result.rate_ba)]
+    k = result.kappa
+    rows.append(("κ, transmission coefficient",
+                 f"{_fmt(k.plateau)} by reactive flux (plateau over {k.plateau_window_ps[0]:.3g}–"
+                 f"{k.plateau_window_ps[1]:.3g} ps), {_fmt(k.counting)} by counting "
+                 f"(A→B {_fmt(k.counting_up)}, B→A {_fmt(k.counting_down)})"))
+    if result.tst is not None:
+        t = result.tst.tst
+        rows.append(("Transition-state theory",
+                     f"k_TST(A→B) = {_fmt(t.rate_up_per_ps, 'ps⁻¹')}, k_TST(B→A) = {_fmt(t.rate_down_per_ps, 'ps⁻¹')} "
+                     f"({t.flux_source}); k/k_TST = {_fmt(result.tst.kappa_up)} and {_fmt(result.tst.kappa_down)}"))
+    else:
+        rows.append(("Transition-state theory", "not computed (needs the temperature and the effective mass)"))
+    return rows
 
 
 def crossings_summary_rows(result: Any) -> list[tuple[str, str]]:
@@ -917,13 +1065,37 @@ def pca_variance_figure(pca: Any) -> FigureSpec:
     return principal_component_figures(pca)[0]
 
 
-def principal_component_figures(pca: Any) -> list[FigureSpec]:
+def atoms_text(indices: Sequence[int] | np.ndarray) -> str:
+    """Atom indices in words: "atoms 0 and 1", "atoms 0–53 (54 atoms)", "12 atoms (0–3, 8–15)"."""
+    idx = sorted(int(i) for i in np.asarray(indices).ravel())
+    if not idx:
+        return "no atoms"
+    if len(idx) == 1:
+        return f"atom {idx[0]}"
+    if len(idx) == 2:
+        return f"atoms {idx[0]} and {idx[1]}"
+    runs: list[tuple[int, int]] = []
+    for i in idx:
+        if runs and i == runs[-1][1] + 1:
+            runs[-1] = (runs[-1][0], i)
+        else:
+            runs.append((i, i))
+    parts = [f"{a}–{b}" if b > a else f"{a}" for a, b in runs[:4]] + (["…"] if len(runs) > 4 else [])
+    if len(runs) == 1:
+        return f"atoms {parts[0]} ({len(idx)} atoms)"
+    return f"{len(idx)} atoms ({', '.join(parts)})"
+
+
+def principal_component_figures(pca: Any, *, atoms: str = "") -> list[FigureSpec]:
     """Explained variance per component (``phase.pca_variance``), PC 1 against its momentum
     (``phase.pc1``) and PC 1 against PC 2 (``phase.pc12``, when PC 2 carries variance).
 
     pca : phasewake.core.projection.PCAResult.
+    atoms : which atoms, in words, for the captions (e.g. "the solute: atoms 0–53 (54 atoms)"); default
+        from ``pca.atom_indices``.
     """
     out = []
+    atoms = atoms or atoms_text(pca.atom_indices)
     ev = np.asarray(pca.explained_variance_ratio, float)
     k = np.arange(1, ev.size + 1, dtype=float)
     cc = pca.cosine_content
@@ -933,10 +1105,14 @@ def principal_component_figures(pca: Any) -> list[FigureSpec]:
                    "diffusion rather than structure).")
     out.append(FigureSpec(
         key="phase.pca_variance", title="Principal components: explained variance",
-        caption=(f"Fraction of the total variance per principal component ({pca.n_frames} frames, "
-                 f"{'mass-weighted' if pca.mass_weighted else 'unweighted'}, "
-                 f"{'after optimal superposition' if pca.fit else 'no fit'}, method {pca.method})." + cc_text),
-        plots=(PlotSpec(title="Explained variance", x=Axis("Principal component"), y=Axis("Fraction of variance"),
+        caption=(f"Fraction of the total variance per principal component of the positions of {atoms} "
+                 f"({pca.n_frames} frames, {'mass-weighted' if pca.mass_weighted else 'unweighted'}, "
+                 f"{'after optimal superposition' if pca.fit else 'no fit'}, method {pca.method})." + cc_text
+                 + (" With two atoms and the rotation and translation fitted away, only their distance can vary:"
+                    " all the variance is in PC 1 by construction, so use the distance itself as the coordinate."
+                    if np.asarray(pca.atom_indices).size == 2 and pca.fit else "")),
+        plots=(PlotSpec(title="Explained variance", x=Axis("Principal component", integer=True),
+                        y=Axis("Fraction of variance"),
                         legend=False, items=(Line(k, ev, kind="bar", label="explained variance", style=_style(0)),)),)))
     proj = pca.projections
     if proj is None or pca.time_ps is None or np.asarray(proj).ndim != 2 or np.asarray(proj).shape[1] < 1:
@@ -947,14 +1123,14 @@ def principal_component_figures(pca: Any) -> list[FigureSpec]:
             pr[:, 0], np.asarray(pca.momenta, float)[:, 0], key="phase.pc1",
             title="First principal component: phase portrait", x_axis=Axis("PC 1", pca.projection_unit),
             y_axis=Axis("Momentum of PC 1", pca.momentum_unit), label="pc(1)",
-            caption="Projection on the first principal component against its momentum (mass-weighted "
-                    "velocities projected)."))
+            caption=f"Projection of {atoms} on the first principal component against its momentum "
+                    "(mass-weighted velocities projected)."))
     # a second component with no variance (a diatomic after superposition) is not worth a plot
     if pr.shape[1] >= 2 and ev.size >= 2 and ev[1] > 1e-4:
         out.append(phase_path_figure(
             pr[:, 0], pr[:, 1], key="phase.pc12", title="Principal components 1 and 2",
             x_axis=Axis("PC 1", pca.projection_unit), y_axis=Axis("PC 2", pca.projection_unit),
-            label="pc(1), pc(2)", caption="The run projected on its first two principal components."))
+            label="pc(1), pc(2)", caption=f"The run ({atoms}) projected on its first two principal components."))
     return out
 
 

@@ -57,11 +57,35 @@ def _edges(x: np.ndarray, n: int) -> np.ndarray:
     return np.concatenate([[x[0] - (mid[0] - x[0])], mid, [x[-1] + (x[-1] - mid[-1])]])
 
 
+class LogAxis(pg.AxisItem):
+    """An axis for log mode that labels only 1, 2 and 5 times a power of ten when ticks are dense.
+
+    pyqtgraph labels every minor tick of a log axis; within a decade near 1 the labels 0.7, 0.8 and 0.9
+    were printed on top of each other. Unlabelled ticks are still drawn.
+    """
+
+    KEEP = (1, 2, 5)
+
+    def logTickStrings(self, values, scale, spacing):  # noqa: N802 - pyqtgraph override
+        strings = super().logTickStrings(values, scale, spacing)
+        vals = np.asarray(values, float)
+        if vals.size <= 4:
+            return strings
+        out = []
+        for v, text in zip(vals, strings):
+            mantissa = 10 ** (v - np.floor(v + 1e-9))
+            out.append(text if any(abs(mantissa - k) < 1e-6 * k for k in self.KEEP) else "")
+        return out
+
+
 def _axis_text(label: str, unit: str) -> str:
     return f"{label} ({unit})" if unit else label
 
 
 def _style_axes(plot: pg.PlotItem, spec: PlotSpec) -> None:
+    swap = {name: LogAxis(orientation=name) for name, axis in (("bottom", spec.x), ("left", spec.y)) if axis.log}
+    if swap:
+        plot.setAxisItems(swap)
     font = QtGui.QFont()
     font.setPointSize(FONT_PT)
     for name, axis in (("bottom", spec.x), ("left", spec.y)):
@@ -73,6 +97,8 @@ def _style_axes(plot: pg.PlotItem, spec: PlotSpec) -> None:
         ax.setPen(pg.mkPen("#444444"))
         # axes also draw the grid across the plot: cache them, so a moving cursor does not redraw them
         ax.setCacheMode(QtWidgets.QGraphicsItem.CacheMode.DeviceCoordinateCache)
+        if axis.integer:  # whole numbers only (component numbers): no tick at 1.5 or 2.5
+            ax.setTickSpacing(major=1.0, minor=1.0)
     plot.setLogMode(x=spec.x.log, y=spec.y.log)
     plot.setTitle(spec.title, size=f"{FONT_PT + 1}pt", color="#000000")
     plot.showGrid(x=True, y=True, alpha=0.15)
@@ -101,10 +127,11 @@ class RenderedPlot:
                 y = np.asarray(y, float)
                 xs += [np.nanmin(x), np.nanmax(x)]
                 ys += [np.nanmin(y), np.nanmax(y)]
-            elif isinstance(it, pg.PlotCurveItem):
+            elif isinstance(it, pg.PlotCurveItem):  # a band's edge: drawn in view coordinates
                 x, y = it.getData()
                 if x is None or len(x) == 0:
                     continue
+                x, y = from_view(x, self.spec.x.log), from_view(y, self.spec.y.log)
                 xs += [float(np.nanmin(x)), float(np.nanmax(x))]
                 ys += [float(np.nanmin(y)), float(np.nanmax(y))]
             elif isinstance(it, pg.ImageItem):
@@ -168,6 +195,26 @@ def _draw_line(plot: pg.PlotItem, it: Line) -> pg.GraphicsObject:
     return item
 
 
+def to_view(values: np.ndarray, log: bool) -> np.ndarray:
+    """Data values in the coordinates a pyqtgraph view uses on an axis: log10 on a log axis.
+
+    pyqtgraph's log mode transforms the data of PlotDataItems only; curves, fills and lines drawn
+    directly (a band's edges, InfiniteLines, text) must be given log10 values, or they land on the
+    linear scale (a band of 1e-3 to 1e2 then stretched the axis to 10^60). Values <= 0 have no place
+    on a log axis: they become NaN.
+    """
+    v = np.asarray(values, dtype=float)
+    if not log:
+        return v
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(v > 0, np.log10(np.where(v > 0, v, 1.0)), np.nan)
+
+
+def from_view(values: np.ndarray, log: bool) -> np.ndarray:
+    v = np.asarray(values, dtype=float)
+    return np.power(10.0, v) if log else v
+
+
 def _finite_runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """(start, stop) of the runs of True in ``mask`` with at least two samples."""
     edges = np.diff(np.concatenate([[0], mask.astype(np.int8), [0]]))
@@ -175,10 +222,14 @@ def _finite_runs(mask: np.ndarray) -> list[tuple[int, int]]:
     return [(int(a), int(b)) for a, b in zip(starts, stops) if b - a >= 2]
 
 
-def _draw_band(plot: pg.PlotItem, it: Band) -> list[pg.GraphicsObject]:
-    x = np.asarray(it.x, dtype=float)
+def _draw_band(plot: pg.PlotItem, it: Band, *, log_x: bool = False, log_y: bool = False) -> list[pg.GraphicsObject]:
+    x = to_view(it.x, log_x)
     ylo = np.asarray(it.lo, float)
     yhi = np.asarray(it.hi, float)
+    if log_y:  # a lower edge at or below zero is drawn down to the smallest positive value shown
+        floor = np.nanmin(yhi[yhi > 0]) * 1e-3 if np.any(yhi > 0) else 1.0
+        ylo = to_view(np.where(ylo > 0, ylo, floor), True)
+        yhi = to_view(yhi, True)
     # a fill through NaN breaks the whole path: fill each finite stretch on its own
     out: list[pg.GraphicsObject] = []
     fill = None
@@ -227,8 +278,24 @@ def _draw_image(plot: pg.PlotItem, it: Image) -> pg.ImageItem:
     return img
 
 
-def _draw_mark(plot: pg.PlotItem, m: Mark, *, movable: bool) -> pg.GraphicsObject | None:
+def _draw_mark(plot: pg.PlotItem, m: Mark, *, movable: bool, log_x: bool = False, log_y: bool = False,
+               inline_label: bool = True) -> pg.GraphicsObject | None:
+    """One mark; values on a log axis are given to pyqtgraph as log10 (see :func:`to_view`).
+
+    inline_label : False when the plot's legend names the mark (a label drawn on a horizontal line sits
+    over the data of a time series).
+    """
     pen = make_pen(m.style)
+    horizontal_value = m.kind in ("hline", "hspan")
+    value = float(to_view(np.array([m.value]), log_y if horizontal_value else log_x)[0])
+    value2 = None
+    if m.value2 is not None:
+        value2 = float(to_view(np.array([m.value2]),
+                               log_y if (horizontal_value or m.kind in ("point", "text")) else log_x)[0])
+    if not np.isfinite(value) or (m.value2 is not None and not np.isfinite(value2 or np.nan)):
+        return None  # e.g. a zero line on a log axis
+    m = Mark(m.kind, value, value2, label=m.label if inline_label or m.kind not in ("hline", "vline") else "",
+             role=m.role, style=m.style)
     # labels of vertical lines near the top, of horizontal lines near the left (legends sit top right)
     label_opts = {"position": 0.92 if m.kind == "vline" else 0.04, "color": m.style.colour, "movable": False,
                   "fill": (255, 255, 255, 200), "anchors": [(0, 1), (0, 1)] if m.kind == "hline" else None}
@@ -259,6 +326,21 @@ def _draw_mark(plot: pg.PlotItem, m: Mark, *, movable: bool) -> pg.GraphicsObjec
         return None
     plot.addItem(item, ignoreBounds=m.kind in ("vline", "hline", "text"))
     return item
+
+
+def _has_labels(ps: PlotSpec) -> bool:
+    return any(getattr(it, "label", "") for it in ps.items if not isinstance(it, Mark | Image))
+
+
+def _legend_sample(legend: pg.LegendItem, m: Mark) -> None:
+    """A legend entry for a horizontal line or shaded span (their own labels would sit on the data)."""
+    if m.kind == "hline":
+        sample = pg.PlotDataItem([], [], pen=make_pen(m.style))
+    else:
+        sample = pg.PlotDataItem([], [], pen=None, symbol="s", symbolSize=12,
+                                 symbolBrush=qcolour(m.style.colour, max(m.style.alpha, 0.35)), symbolPen=None)
+    legend.addItem(sample, m.label)
+    legend._phasewake_samples = [*getattr(legend, "_phasewake_samples", []), sample]  # keep them alive
 
 
 class FigureView(QtWidgets.QWidget):
@@ -322,8 +404,21 @@ class FigureView(QtWidgets.QWidget):
         first_time: pg.PlotItem | None = None
         for i, ps in enumerate(spec.plots):
             row, col = divmod(i, cols)
-            plot = self.layout_widget.addPlot(row=row, col=col)
-            rp = self._draw_plot(plot, ps)
+            legend = None
+            if ps.legend and ps.x_is_time and _has_labels(ps):
+                # a time series fills its plot from edge to edge: its legend goes in a row above it,
+                # where it hides no data (a legend inside covered the end of the trace)
+                cell = self.layout_widget.addLayout(row=row, col=col)
+                cell.setContentsMargins(0, 0, 0, 0)
+                n = sum(1 for it in ps.items if getattr(it, "label", "") and not isinstance(it, Image))
+                legend = pg.LegendItem(labelTextSize=f"{FONT_PT}pt", colCount=max(1, min(4, n)))
+                legend.setLabelTextColor("#000000")
+                cell.addItem(legend, row=0, col=0)
+                plot = cell.addPlot(row=1, col=0)
+                plot.legend = legend  # PlotItem.addItem puts named items into plot.legend
+            else:
+                plot = self.layout_widget.addPlot(row=row, col=col)
+            rp = self._draw_plot(plot, ps, outside_legend=legend)
             if ps.x_is_time:
                 if first_time is None:
                     first_time = plot
@@ -331,38 +426,46 @@ class FigureView(QtWidgets.QWidget):
                     plot.setXLink(first_time)
                 self._add_cursor(rp)
             self.plots.append(rp)
-        self.caption.setText(spec.caption)
+        from phasewake.app.window.words import for_window
+
+        self.caption.setText(for_window(spec.caption))
         self.caption.setVisible(bool(spec.caption))
         self.stack.setCurrentWidget(self.layout_widget)
         if self._cursor_time is not None:
             self.set_cursor_time(self._cursor_time)
 
-    def _draw_plot(self, plot: pg.PlotItem, ps: PlotSpec) -> RenderedPlot:
+    def _draw_plot(self, plot: pg.PlotItem, ps: PlotSpec, *, outside_legend: pg.LegendItem | None = None) -> RenderedPlot:
         rp = RenderedPlot(plot, ps)
         _style_axes(plot, ps)
-        has_labels = any(getattr(it, "label", "") for it in ps.items if not isinstance(it, Mark | Image))
-        if ps.legend and has_labels:
+        if outside_legend is None and ps.legend and _has_labels(ps):
             legend = plot.addLegend(offset=(-10, 10), labelTextSize=f"{FONT_PT}pt")
             legend.setBrush(pg.mkBrush(255, 255, 255, 210))
             legend.setPen(pg.mkPen("#999999"))
             legend.setLabelTextColor("#000000")
+        log_x, log_y = ps.x.log, ps.y.log
         for it in ps.items:
             if isinstance(it, Line):
                 rp.items.append(_draw_line(plot, it))
             elif isinstance(it, Band):
-                rp.items.extend(_draw_band(plot, it))
+                rp.items.extend(_draw_band(plot, it, log_x=log_x, log_y=log_y))
             elif isinstance(it, Image):
                 rp.items.append(_draw_image(plot, it))
             elif isinstance(it, Mark):
                 movable = it.role in self.movable_roles
-                item = _draw_mark(plot, it, movable=movable)
+                # with a legend above the plot, horizontal lines and shaded spans are named there
+                named_in_legend = outside_legend is not None and it.label and it.kind in ("hline", "hspan")
+                item = _draw_mark(plot, it, movable=movable, log_x=log_x, log_y=log_y,
+                                  inline_label=not named_in_legend)
+                if item is not None and named_in_legend:
+                    _legend_sample(outside_legend, it)
                 if item is not None and movable:
                     rp.movable_marks.append((it, item))
-                    self._watch_mark(it, item)
+                    self._watch_mark(it, item, log=log_y if it.kind in ("hline", "hspan") else log_x)
         if ps.x.limits:
-            plot.setXRange(*ps.x.limits, padding=0)
+            plot.setXRange(*to_view(np.array(ps.x.limits, float), log_x), padding=0)
+            plot.setAutoVisible(y=True)  # the y range follows the part of the data that is shown
         if ps.y.limits:
-            plot.setYRange(*ps.y.limits, padding=0)
+            plot.setYRange(*to_view(np.array(ps.y.limits, float), log_y), padding=0)
         if ps.aspect_equal:
             plot.setAspectLocked(True)
         if ps.note:
@@ -372,13 +475,16 @@ class FigureView(QtWidgets.QWidget):
             note.setZValue(50)
         return rp
 
-    def _watch_mark(self, mark: Mark, item: pg.GraphicsObject) -> None:
+    def _watch_mark(self, mark: Mark, item: pg.GraphicsObject, *, log: bool = False) -> None:
+        def data(v: float) -> float:
+            return float(from_view(np.array([v]), log)[0])
+
         if isinstance(item, pg.InfiniteLine):
             item.sigPositionChangeFinished.connect(
-                lambda line: self.markMoved.emit(mark, float(line.value()), None))
+                lambda line: self.markMoved.emit(mark, data(line.value()), None))
         elif isinstance(item, pg.LinearRegionItem):
             item.sigRegionChangeFinished.connect(
-                lambda reg: self.markMoved.emit(mark, float(reg.getRegion()[0]), float(reg.getRegion()[1])))
+                lambda reg: self.markMoved.emit(mark, data(reg.getRegion()[0]), data(reg.getRegion()[1])))
 
     # ---- cursor -----------------------------------------------------------------------------
     def _add_cursor(self, rp: RenderedPlot) -> None:
