@@ -96,8 +96,8 @@ def module_or_none(name: str) -> Any:
 
 
 def missing(what: str, module: str) -> PanelResult:
-    return PanelResult(message=f"{what} is not in this build yet (phasewake.core.{module} is missing), "
-                               "so this panel has nothing to show. No data is made up.")
+    return PanelResult(message=f"{what} is not part of this installation of phasewake, so this panel has "
+                               "nothing to show. No data is made up.")
 
 
 # ---- helpers ----------------------------------------------------------------------------------
@@ -300,8 +300,8 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     audit = module_or_none("audit")
     quick = yield from energy_job(ctx)
     if audit is None:
-        return PanelResult(figures=quick.figures, message="The energy audit (phasewake.core.audit) is not in "
-                                                          "this build yet: only the energy table is shown.")
+        return PanelResult(figures=quick.figures, message="The energy audit is not part of this installation: "
+                                                          "only the energy table is shown.")
     run = window_run(ctx.run, ctx.start, ctx.stop)
     cached = module_or_none("cached")
     work = (cached.cached_audit(run, cache=window_cache()) if cached is not None  # the key shared_frames_job uses
@@ -565,25 +565,80 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
         t = np.asarray(q_series.time_ps, float)
         cov = sampling.coverage_over_time(q_series.values, q_series.momentum, dt_ps=float(np.median(np.diff(t))))
         figs.append(plots.coverage_figure(cov, x_label=q_series.spec, y_label="p", time_offset_ps=float(t[0])))
-    # across replicas: R-hat of the coordinate between all runs loaded with the same atom count
-    others = [r for r in ctx.others if r.n_atoms == run.n_atoms and r.frames is not None]
-    if others and q_series is not None:
+    # across replicas: R-hat of the coordinate between the open runs that really are replicas of this one
+    pooled, skipped = replicas_of(run, ctx.others)
+    if skipped:
+        notes.append("Not pooled as replicas: " + "; ".join(f"{name} ({why})" for name, why in skipped) + ".")
+    if pooled and q_series is not None:
         chains = [np.asarray(q_series.values, float)]
-        for k, other in enumerate(others):
-            yield Progress(k, len(others), f"replica {other.name}")
+        for k, other in enumerate(pooled):
+            yield Progress(k, len(pooled), f"replica {other.name}")
             o = yield from coordinate_series(other, ctx.coordinate, 0, other.n_frames)
             chains.append(np.asarray(o.values, float))
         n = min(c.size for c in chains)
+        names = ", ".join([run.name] + [o.name for o in pooled])
         try:
             verdicts.append(sampling.judge_rhat(sampling.rhat(np.stack([c[:n] for c in chains])),
-                                                name=f"{ctx.coordinate} across {len(chains)} runs"))
+                                                name=f"{ctx.coordinate} across {len(chains)} replicas ({names})"))
+            notes.append(f"Pooled as replicas (same atoms, ensemble, thermostat, temperature and time step): {names}.")
         except PhasewakeError as exc:
-            notes.append(f"R-hat across runs: {exc}")
+            notes.append(f"R-hat across replicas: {exc}")
     if not figs and not verdicts:
         return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
     from phasewake.core.verdicts import HEURISTIC_NOTE
 
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
+
+
+def replica_difference(run: Run, other: Run) -> str:
+    """Why ``other`` is not a replica of ``run`` ('' when it is one): the same atoms (count, masses, names
+    and elements where both have a topology) run the same way (ensemble, thermostat, its temperature and
+    the time step, where the files or the user say)."""
+    if other.frames is None:
+        return "no frames"
+    if other.n_atoms != run.n_atoms:
+        return f"{other.n_atoms} atoms, not {run.n_atoms}"
+    if not np.allclose(np.asarray(other.masses_amu, float), np.asarray(run.masses_amu, float), rtol=1e-4,
+                       equal_nan=True):
+        return "other atom masses"
+    if run.topology is not None and other.topology is not None:
+        def atoms(top: Any) -> list[tuple[str, str]]:
+            return [(a.name, a.element.symbol if a.element is not None else "") for a in top.atoms]
+        if atoms(run.topology) != atoms(other.topology):
+            return "other atom names or elements"
+    a, b = run.metadata, other.metadata
+
+    def norm(v: Any) -> str:
+        return str(v or "").strip().lower()
+
+    if norm(a.ensemble) != norm(b.ensemble):
+        return f"ensemble {b.ensemble or 'unknown'}, not {a.ensemble or 'unknown'}"
+    if norm(a.thermostat) != norm(b.thermostat):
+        return f"thermostat {b.thermostat or 'unknown'}, not {a.thermostat or 'unknown'}"
+    if (a.temperature_K is None) != (b.temperature_K is None) or (
+            a.temperature_K is not None and abs(float(a.temperature_K) - float(b.temperature_K)) > 1e-6):
+        def kelvin(v: float | None) -> str:
+            return "not stated" if v is None else f"{v:.4g} K"
+        return f"target temperature {kelvin(b.temperature_K)}, not {kelvin(a.temperature_K)}"
+    if (a.timestep_ps is None) != (b.timestep_ps is None) or (
+            a.timestep_ps is not None and abs(float(a.timestep_ps) - float(b.timestep_ps)) > 1e-9 * max(1.0, a.timestep_ps)):
+        def fs(v: float | None) -> str:
+            return "unknown" if v is None else f"{v * 1e3:.4g} fs"
+        return f"time step {fs(b.timestep_ps)}, not {fs(a.timestep_ps)}"
+    return ""
+
+
+def replicas_of(run: Run, others: tuple[Run, ...]) -> tuple[list[Run], list[tuple[str, str]]]:
+    """The runs of ``others`` that are replicas of ``run``, and (name, why not) for the rest."""
+    pooled: list[Run] = []
+    skipped: list[tuple[str, str]] = []
+    for o in others:
+        why = replica_difference(run, o)
+        if why:
+            skipped.append((o.name, why))
+        else:
+            pooled.append(o)
+    return pooled, skipped
 
 
 def _sampling_numbers(sampling: Any, x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:

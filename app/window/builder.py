@@ -22,14 +22,80 @@ KINDS: tuple[tuple[str, int, str], ...] = (
     ("z", 1, "z position of one atom (nm)"),
 )
 MAX_ROWS = 20_000  # the atom table lists at most this many atoms; type a spec for the rest
+MASS_TOLERANCE_AMU = 0.01  # a mass this close to an element's standard atomic weight suggests that element
+
+
+def _elements_by_mass() -> list[tuple[float, str]]:
+    from mdtraj.core import element as elem
+
+    out = []
+    for z in range(1, 119):
+        try:
+            e = elem.Element.getByAtomicNumber(z)
+        except KeyError:
+            continue
+        mass = float(getattr(e.mass, "_value", e.mass))
+        if mass > 0:
+            out.append((mass, e.symbol))
+    return out
+
+
+_ELEMENT_MASSES: list[tuple[float, str]] | None = None
+
+
+def element_guess(mass_amu: float) -> str:
+    """The element whose standard atomic weight is within MASS_TOLERANCE_AMU of ``mass_amu`` ('' if none).
+
+    A guess: united atoms (CH2 = 14.027 amu is not nitrogen) and repartitioned hydrogen masses do not match
+    any element, and the window marks every guess with "?".
+    """
+    global _ELEMENT_MASSES
+    if _ELEMENT_MASSES is None:
+        _ELEMENT_MASSES = _elements_by_mass()
+    if not mass_amu or mass_amu != mass_amu or mass_amu <= 0:
+        return ""
+    best = min(_ELEMENT_MASSES, key=lambda ms: abs(ms[0] - mass_amu))
+    return best[1] if abs(best[0] - mass_amu) <= MASS_TOLERANCE_AMU else ""
+
+
+def atom_hint(run: Run, index: int) -> str:
+    """What the files say or suggest about atom ``index``: its name and element from the topology, else a
+    species label from the file and an element guessed from the mass, e.g. "O? (15.999 amu)"."""
+    top = run.topology
+    if top is not None and index < top.n_atoms:
+        a = top.atom(index)
+        return f"{a.residue.name}{a.residue.resSeq} {a.name}"
+    parts = []
+    species = run.metadata.extra.get("species") if isinstance(run.metadata.extra, dict) else None
+    if isinstance(species, list) and len(species) == run.n_atoms:
+        parts.append(f"species {species[index]}")
+    mass = float(run.masses_amu[index]) if index < run.masses_amu.shape[0] else float("nan")
+    guess = element_guess(mass)
+    if mass == mass and mass > 0:
+        parts.append(f"{guess}? ({mass:.5g} amu)" if guess else f"({mass:.5g} amu)")
+    elif mass == 0:
+        parts.append("massless (a virtual site?)")
+    return " ".join(parts)
 
 
 def atom_rows(run: Run) -> list[tuple[int, str, str, str, str]]:
-    """(index, atom name, residue name, residue number, element) of the run's atoms."""
+    """(index, atom name, residue name, residue number, element) of the run's atoms.
+
+    Without a topology the element column holds a guess from the mass ("O? (15.999 amu)") and the name
+    column a species label when the file has one, so an O-O distance can be built from a bare run.
+    """
     top = run.topology
     n = min(run.n_atoms, MAX_ROWS)
     if top is None:
-        return [(i, "", "", "", "") for i in range(n)]
+        species = run.metadata.extra.get("species") if isinstance(run.metadata.extra, dict) else None
+        has_species = isinstance(species, list) and len(species) == run.n_atoms
+        rows = []
+        for i in range(n):
+            mass = float(run.masses_amu[i])
+            guess = element_guess(mass)
+            el = (f"{guess}? ({mass:.5g} amu)" if guess else f"({mass:.5g} amu)") if mass == mass and mass > 0 else ""
+            rows.append((i, f"species {species[i]}" if has_species else "", "", "", el))
+        return rows
     rows = []
     for a in top.atoms:
         if a.index >= n:
@@ -52,7 +118,9 @@ def check_spec(spec: str, run: Run | None) -> str:
         if run is not None:
             coordspec.resolve(defn, n_atoms=run.n_atoms, topology=run.topology)
     except PhasewakeError as exc:
-        return str(exc)
+        from phasewake.app.window.words import for_window
+
+        return for_window(str(exc))
     return ""
 
 
@@ -69,7 +137,7 @@ class CoordinateBuilder(QtWidgets.QDialog):
             self.kind.addItem(f"{name}  \u2014  {what}", (name, n))
         self.kind.currentIndexChanged.connect(self._compose)
         self.filter = QtWidgets.QLineEdit()
-        self.filter.setPlaceholderText("filter atoms by name, residue or index")
+        self.filter.setPlaceholderText("filter atoms by name, residue, element or index")
         self.filter.textChanged.connect(self._apply_filter)
         self.table = QtWidgets.QTableWidget(0, 5)
         self.table.setHorizontalHeaderLabels(["index", "atom", "residue", "res. no.", "element"])
@@ -147,9 +215,9 @@ class CoordinateBuilder(QtWidgets.QDialog):
         names = []
         for i in self.picked:
             label = str(i)
-            if self.run is not None and self.run.topology is not None and i < self.run.n_atoms:
-                a = self.run.topology.atom(i)
-                label = f"{i} ({a.residue.name}{a.residue.resSeq} {a.name})"
+            if self.run is not None and i < self.run.n_atoms:
+                hint = atom_hint(self.run, i)
+                label = f"{i} {hint}" if hint else label
             names.append(label)
         self.picked_label.setText(f"picked {len(self.picked)}/{n}: " + (", ".join(names) or "none"))
         if len(self.picked) == n:
@@ -159,7 +227,7 @@ class CoordinateBuilder(QtWidgets.QDialog):
         text = text.strip().lower()
         for r in range(self.table.rowCount()):
             cells = " ".join((it.text() if (it := self.table.item(r, c)) is not None else "").lower()
-                             for c in range(4))
+                             for c in range(5))
             self.table.setRowHidden(r, bool(text) and text not in cells)
 
     def _validate(self, text: str) -> None:

@@ -7,6 +7,7 @@ background. Errors of any job appear as a message; the window stays usable.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
@@ -29,6 +30,7 @@ from phasewake.app.window.panels import PANEL_CLASSES, Panel
 from phasewake.app.window.ruler import TimeRuler
 from phasewake.app.window.runs import RunsList
 from phasewake.app.window.workers import JobOutcome, JobRunner
+from phasewake.core.progress import Progress
 from phasewake.core.run import Run
 
 Opener = Callable[[Sequence[str], str | None, RunSettings], Run]
@@ -38,6 +40,13 @@ RECOMPUTE_CHOICES: dict[str, tuple[str, ...]] = {
     "landscape_marks": ("Crossings", "Landscape"),
     "coordinate2": ("Phase space",),
 }
+# Each kind of file dialog starts in the folder last used for that kind: opening runs never starts in
+# the folder figures were last exported to.
+FOLDER_KEYS = {"runs": "last_run_folder", "export": "last_export_folder", "session": "last_session_folder"}
+# matplotlib is not thread-safe (its font caches broke a PDF report written while a figure was being
+# exported: "bytes must be in range(0, 256)"): exports run in the background, one after another
+EXPORT_LOCK = threading.Lock()
+PROBLEM_SHOWN_MS = 15_000  # a problem stays in the status line this long (its box stays until closed)
 from phasewake.app.window.guide_text import GUIDE_TEXT  # noqa: E402,F401 - kept for callers of the old name
 
 
@@ -68,6 +77,9 @@ class MainWindow(QtWidgets.QMainWindow):
         self._rest_pending = False
         self._computed_for: Run | None = None
         self._extras_waiting: dict[str, list[PanelResult]] = {}
+        self._export_counter = 0
+        self._coordinates_to_restore: dict[tuple[str, ...], str] = {}  # a session's per-run coordinates
+        self._export_kinds: dict[str, str] = {}  # job key -> "Figure", "Data" or "Report"
 
         self.panels: dict[str, Panel] = {name: PANEL_CLASSES[name](self.model) for name in PANELS}
         self.tabs = QtWidgets.QTabWidget()
@@ -81,7 +93,7 @@ class MainWindow(QtWidgets.QMainWindow):
         lay.addWidget(self.ruler)
         self.setCentralWidget(centre)
 
-        self.runs = RunsList(self.model)
+        self.runs = RunsList(self.model, settings=self.settings, folder_key=FOLDER_KEYS["runs"])
         self.runs.addRequested.connect(self.open_paths)
         dock = QtWidgets.QDockWidget("Runs", self)
         dock.setObjectName("runsDock")
@@ -124,17 +136,45 @@ class MainWindow(QtWidgets.QMainWindow):
         self.cancel_button.setToolTip("Stop the background computations (Esc)")
         self.cancel_button.clicked.connect(self.cancel_work)
         self.cancel_button.hide()
+        self.status_label.setMinimumWidth(80)  # long lines are cut, never widen the window
+        self.status_label.setSizePolicy(QtWidgets.QSizePolicy.Policy.Ignored, QtWidgets.QSizePolicy.Policy.Preferred)
+        self._problem_timer = QtCore.QTimer(self)
+        self._problem_timer.setSingleShot(True)
+        self._problem_timer.setInterval(PROBLEM_SHOWN_MS)
+        self._problem_timer.timeout.connect(self._problem_gone)
         bar.addWidget(self.status_label, 1)
         bar.addPermanentWidget(self.progress)
         bar.addPermanentWidget(self.cancel_button)
 
     def say(self, text: str) -> None:
+        self._problem_timer.stop()
         self.status_label.setText(text)
+        self.status_label.setStyleSheet("")
+
+    def _say_problem(self, text: str) -> None:
+        """A problem in the status line, in the problem colour, for a while (the box keeps the whole text)."""
+        self.say(text)
+        self.status_label.setStyleSheet("color: #D55E00")
+        self._problem_timer.start()
+
+    def _problem_gone(self) -> None:
+        """An old problem leaves the status line: say what the window is doing now instead."""
+        e = self.model.current
+        if self.jobs.busy:
+            self.say("Computing in the background…")
+        elif e is None:
+            self.say("Open run files to begin (Ctrl+O), or drop them here.")
+        else:
+            self.say(f"Showing {e.label}.")
 
     def show_problem(self, title: str, text: str) -> None:
-        """A message that never blocks the window (non-modal box + status line)."""
+        """A message that never blocks the window (non-modal box + status line), in the window's words
+        (what to do here, not a command-line option)."""
+        from phasewake.app.window.words import for_window
+
+        text = for_window(text)
         self.messages.append(text)
-        self.say(text.splitlines()[0] if text else title)
+        self._say_problem(text.splitlines()[0] if text else title)
         if self.message_box is not None:
             self.message_box.close()
         box = QtWidgets.QMessageBox(QtWidgets.QMessageBox.Icon.Warning, title, text,
@@ -336,7 +376,10 @@ class MainWindow(QtWidgets.QMainWindow):
             return
         opened, failures = outcome.result
         for entry in opened:
+            entry.coordinate = self._coordinates_to_restore.pop(tuple(entry.paths), entry.coordinate)
             self.model.add_run(entry)
+        if opened and opened[-1].paths:
+            self.settings.setValue(FOLDER_KEYS["runs"], str(Path(opened[-1].paths[0]).resolve().parent))
         if failures:
             self.show_problem("Could not open files", "\n".join(failures))
         elif opened:
@@ -354,6 +397,10 @@ class MainWindow(QtWidgets.QMainWindow):
             self.setWindowTitle("phasewake")
             return
         self.setWindowTitle(f"phasewake \u2014 {e.label}")
+        # another run's figures must not stay up under this run's name: every panel says it is loading
+        # until its job for this run has drawn (not "No run is open" while the frames are read)
+        for p in self.panels.values():
+            p.show_loading(e.label, has_frames=e.run.frames is not None)
         if not self.model.coordinate and e.run.frames is not None:
             spec, reason = self._default_coordinate(e.run)
             self.model.set_coordinate(spec)
@@ -490,13 +537,19 @@ class MainWindow(QtWidgets.QMainWindow):
                 self._extra_done(panel, name, outcome.result)
         elif outcome.error and key.endswith("#audit") and panel.result is not None and panel.result.figures:
             panel.add_note(f"The audit could not run: {outcome.error}")  # keep the energy table shown
-            self.say(f"Energy audit: {outcome.error.splitlines()[0]}")
+            self._say_problem(f"Energy audit: {outcome.error.splitlines()[0]}")
         elif outcome.error:
             panel.show_error(outcome.error)
-            self.say(f"{name} panel: {outcome.error.splitlines()[0]}")
+            self._say_problem(f"{name} panel: {outcome.error.splitlines()[0]}")
         else:
             result: PanelResult = outcome.result
             panel.show_result(result)
+            audit = result.info.get("audit")
+            ta = getattr(audit, "temperature", None)
+            if ta is not None and self.model.current is not None:
+                self.runs.note_kinetic_temperature(
+                    self.model.current.run, f"{ta.mean_K:.4g} \u00b1 {ta.error_K:.2g} K (audit, {ta.n_dof} degrees "
+                                            "of freedom)")
             for extra in waiting:
                 panel.add_result(extra)
             if not self.jobs.busy:
@@ -571,7 +624,8 @@ class MainWindow(QtWidgets.QMainWindow):
             if not e.paths:
                 skipped.append(e.label)
                 continue
-            runs.append(session_io.RunRecord(paths=e.paths, topology=e.topology, settings=e.settings.to_dict()))
+            runs.append(session_io.RunRecord(paths=e.paths, topology=e.topology,
+                                             settings={**e.settings.to_dict(), "coordinate": e.coordinate}))
         current = self.model.current_index
         if current >= 0 and not self.model.entries[current].paths:
             current = -1
@@ -587,7 +641,7 @@ class MainWindow(QtWidgets.QMainWindow):
         state = self.session_state()
         out = session_io.save(state, path)
         self.session_path = out
-        self.settings.setValue("last_folder", str(out.parent))
+        self.settings.setValue(FOLDER_KEYS["session"], str(out.parent))
         note = f" (not saved, built in memory: {', '.join(state.skipped)})" if state.skipped else ""
         self.say(f"Session saved to {out}{note}.")
         return out
@@ -610,8 +664,10 @@ class MainWindow(QtWidgets.QMainWindow):
         self._pending_state = state
         specs = []
         for r in state.runs:
-            st = RunSettings(**{k: r.settings.get(k) for k in ("timestep_fs", "n_constraints", "temperature_K")})
+            st = RunSettings.from_dict(r.settings)
             specs.append((r.paths, r.topology, st))
+            if r.settings.get("coordinate"):
+                self._coordinates_to_restore[tuple(r.paths)] = str(r.settings["coordinate"])
         if specs:
             self.open_runs(specs)
         else:
@@ -628,20 +684,22 @@ class MainWindow(QtWidgets.QMainWindow):
             self.tabs.setCurrentIndex(PANELS.index(state.panel))
         self.say(f"Session {self.session_path} restored.")
 
-    def _ask_path(self, title: str, filters: str, *, save: bool, suggested: str = "") -> str:
-        folder = str(self.settings.value("last_folder", ""))
+    def _ask_path(self, title: str, filters: str, *, save: bool, suggested: str = "", kind: str = "export") -> str:
+        """A file dialog starting in the last folder used for this ``kind`` (see FOLDER_KEYS)."""
+        key = FOLDER_KEYS[kind]
+        folder = str(self.settings.value(key, "") or self.settings.value(FOLDER_KEYS["runs"], ""))
         start = str(Path(folder) / suggested) if folder and suggested else (suggested or folder)
         if save:
             path, _ = QtWidgets.QFileDialog.getSaveFileName(self, title, start, filters)
         else:
             path, _ = QtWidgets.QFileDialog.getOpenFileName(self, title, folder, filters)
         if path:
-            self.settings.setValue("last_folder", str(Path(path).parent))
+            self.settings.setValue(key, str(Path(path).parent))
         return path
 
     def ask_open_session(self) -> None:
         path = self._ask_path("Open session", f"phasewake sessions (*{session_io.SUFFIX} *.json);;All files (*)",
-                              save=False)
+                              save=False, kind="session")
         if path:
             self.load_session(path)
 
@@ -653,7 +711,7 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def ask_save_session(self) -> None:
         path = self._ask_path("Save session", f"phasewake sessions (*{session_io.SUFFIX})", save=True,
-                              suggested=f"session{session_io.SUFFIX}")
+                              suggested=f"session{session_io.SUFFIX}", kind="session")
         if path:
             if not Path(path).suffix:
                 path += session_io.SUFFIX
@@ -686,27 +744,59 @@ class MainWindow(QtWidgets.QMainWindow):
         return prov
 
     def export_figure_to(self, path: str | Path, *, preset: str = "slide", dpi: float = 200.0) -> Path:
-        """Export the figure of the panel on top through core.export (matplotlib)."""
+        """Export the figure of the panel on top through core.export (matplotlib), as a background job.
+
+        Returns the path at once; the status line says when the file is written (``wait_idle`` waits).
+        """
         from phasewake.core.errors import MissingDataError
         from phasewake.core.export import export_figure
 
         spec = self.current_panel().current_figure()
         if spec is None:
             raise MissingDataError("the panel on top has no figure to export yet")
-        res = export_figure(spec, path, preset=preset, dpi=dpi, provenance=self._provenance())
-        self.say(f"Figure written to {res.path}.")
-        return Path(res.path)
+        target = Path(path)
+        provenance = self._provenance()
+
+        def job():
+            yield Progress(0, None, f"writing {target.name}")
+            return export_figure(spec, target, preset=preset, dpi=dpi, provenance=provenance).path
+
+        self._start_export(target, job, "Figure")
+        return target
 
     def export_data_to(self, path: str | Path) -> Path:
+        """The data of the figure on top as CSV, as a background job (returns the path at once)."""
         from phasewake.core.errors import MissingDataError
         from phasewake.core.export import export_csv
 
         spec = self.current_panel().current_figure()
         if spec is None:
             raise MissingDataError("the panel on top has no figure to export yet")
-        out = export_csv(spec, path, provenance=self._provenance())
-        self.say(f"Data written to {out}.")
-        return Path(out)
+        target = Path(path)
+        provenance = self._provenance()
+
+        def job():
+            yield Progress(0, None, f"writing {target.name}")
+            return export_csv(spec, target, provenance=provenance)
+
+        self._start_export(target, job, "Data")
+        return target
+
+    def _start_export(self, target: Path, job: Callable[[], Any], what: str) -> None:
+        """Run an export as a background job; exports take turns (see EXPORT_LOCK)."""
+        self._export_counter += 1
+        key = f"export:{self._export_counter}:{target}"
+        self._export_kinds[key] = what
+
+        def one_at_a_time():
+            yield Progress(0, None, f"waiting to write {target.name}")
+            with EXPORT_LOCK:
+                work = job()
+                if hasattr(work, "send") and hasattr(work, "throw"):
+                    return (yield from work)
+                return work
+
+        self.jobs.start(key, one_at_a_time, label=f"{what} export")
 
     def ask_export_figure(self) -> None:
         from phasewake.core.errors import PhasewakeError
@@ -759,8 +849,7 @@ class MainWindow(QtWidgets.QMainWindow):
         report = module_or_none("report")
         builder = None if report is None else getattr(report, "build_report", None)
         if builder is None:
-            self.show_problem("Report not available", "The report builder (phasewake.core.report) is not "
-                                                      "in this build yet.")
+            self.show_problem("Report not available", "This installation of phasewake has no report builder.")
             return
         target = Path(path)
         pdf, html_path = (target.with_suffix(".pdf"), target) if target.suffix.lower() in (".html", ".htm") \
@@ -776,7 +865,7 @@ class MainWindow(QtWidgets.QMainWindow):
         def job():
             return builder(run, pdf, **kwargs)
 
-        self.jobs.start(f"export:{target}", job, label="Report")
+        self._start_export(target, job, "Report")
 
     def ask_export_report(self) -> None:
         path = self._ask_path("Export report", "PDF (*.pdf);;HTML (*.html)", save=True,
@@ -785,12 +874,15 @@ class MainWindow(QtWidgets.QMainWindow):
             self.export_report_to(path)
 
     def _export_finished(self, outcome: JobOutcome) -> None:
+        what = self._export_kinds.pop(outcome.key, "Export")
+        target = outcome.key.split(":", 2)[2]
+        noun = {"Figure": "the figure", "Data": "the data", "Report": "the report"}.get(what, "the file")
         if outcome.error:
-            self.show_problem("Could not write the report", outcome.error)
+            self.show_problem(f"Could not write {noun}", outcome.error)
         elif outcome.cancelled:
-            self.say("Report cancelled.")
+            self.say(f"Writing {noun} was cancelled; {Path(target).name} was left as it was.")
         else:
-            self.say(f"Report written to {outcome.key.split(':', 1)[1]}.")
+            self.say(f"{what} written to {target}.")
 
     # ---- window events ------------------------------------------------------------------------
     def dragEnterEvent(self, event):  # noqa: N802 - Qt override

@@ -26,7 +26,11 @@ class RunSettings:
 
     timestep_fs: float | None = None
     n_constraints: int | None = None
-    temperature_K: float | None = None
+    temperature_K: float | None = None  # the thermostat's target temperature
+    ensemble: str | None = None  # "NVE", "NVT", "NPT" (RunMetadata.ensemble)
+    thermostat: str | None = None  # "none", "langevin", "nose-hoover", ... (RunMetadata.thermostat)
+
+    FIELDS = ("timestep_fs", "n_constraints", "temperature_K", "ensemble", "thermostat")
 
     def overrides(self) -> dict[str, Any]:
         """Keyword overrides for ``phasewake.core.readers.open_run`` (internal units)."""
@@ -37,11 +41,19 @@ class RunSettings:
             out["n_constraints"] = self.n_constraints
         if self.temperature_K is not None:
             out["temperature_K"] = self.temperature_K
+        if self.ensemble:
+            out["ensemble"] = self.ensemble
+        if self.thermostat:
+            out["thermostat"] = self.thermostat
         return out
 
     def to_dict(self) -> dict[str, Any]:
-        return {"timestep_fs": self.timestep_fs, "n_constraints": self.n_constraints,
-                "temperature_K": self.temperature_K}
+        return {k: getattr(self, k) for k in self.FIELDS}
+
+    @classmethod
+    def from_dict(cls, d: dict[str, Any]) -> RunSettings:
+        """From :meth:`to_dict` (a saved session); unknown keys are ignored, missing ones stay None."""
+        return cls(**{k: d.get(k) for k in cls.FIELDS})
 
 
 @dataclass
@@ -52,6 +64,8 @@ class RunEntry:
     paths: tuple[str, ...] = ()
     topology: str | None = None
     settings: RunSettings = field(default_factory=RunSettings)
+    coordinate: str = ""  # this run's coordinate (runs with different atoms need different ones)
+    files_metadata: Any = None  # RunMetadata as opened, kept when the user first changes a setting
 
     @property
     def label(self) -> str:
@@ -70,6 +84,12 @@ def apply_settings(run: Run, settings: RunSettings) -> None:
     if settings.temperature_K is not None:
         md.temperature_K = settings.temperature_K
         md.sources["temperature"] = "user"
+    if settings.ensemble:
+        md.ensemble = settings.ensemble
+        md.sources["ensemble"] = "user"
+    if settings.thermostat:
+        md.thermostat = settings.thermostat
+        md.sources["thermostat"] = "user"
 
 
 class WindowModel(QtCore.QObject):
@@ -104,7 +124,7 @@ class WindowModel(QtCore.QObject):
         self._current = -1
         self._cursor = 0
         self._window: tuple[float, float] | None = None
-        self._coordinate = ""
+        self._pending_coordinate = ""  # set before any run is open (a session): given to the first run
         self._choices: dict[str, Any] = {}
 
     # ---- runs -------------------------------------------------------------------------------
@@ -157,10 +177,21 @@ class WindowModel(QtCore.QObject):
             self.set_current(min(index, len(self._entries) - 1))
 
     def update_settings(self, index: int, settings: RunSettings) -> None:
+        """A user's settings for a run: its metadata becomes the files' values with these on top (a value
+        set back to "as in files" is the files' again), and its panels recompute (the result cache keys
+        hold the metadata, so nothing stale is served)."""
+        import copy
+
         e = self._entries[index]
         if e.settings == settings:
             return
+        if e.files_metadata is None:  # what the files said, before any of the user's settings
+            e.files_metadata = copy.deepcopy(e.run.metadata)
+            for k in ("timestep", "temperature", "ensemble", "thermostat"):
+                if e.files_metadata.sources.get(k) == "user":
+                    e.files_metadata.sources.pop(k, None)
         e.settings = replace(settings)
+        e.run.metadata = copy.deepcopy(e.files_metadata)
         apply_settings(e.run, settings)
         self.runsChanged.emit()
         if index == self._current:
@@ -169,11 +200,17 @@ class WindowModel(QtCore.QObject):
     def set_current(self, index: int) -> None:
         if index == self._current or not 0 <= index < len(self._entries):
             return
+        before = self.coordinate
         self._current = index
+        e = self._entries[index]
+        if not e.coordinate and self._pending_coordinate:
+            e.coordinate, self._pending_coordinate = self._pending_coordinate, ""
         t = self.time_ps
         self._window = None
         self._cursor = 0 if t.size == 0 else min(self._cursor, t.size - 1)
         self.currentRunChanged.emit(index)
+        if self.coordinate != before:
+            self.coordinateChanged.emit(self.coordinate)
         self.timeWindowChanged.emit()
         self.cursorChanged.emit(self._cursor)
 
@@ -265,12 +302,22 @@ class WindowModel(QtCore.QObject):
     # ---- coordinate and panel choices -------------------------------------------------------
     @property
     def coordinate(self) -> str:
-        return self._coordinate
+        """The current run's coordinate ('' when none is chosen or no run is open)."""
+        e = self.current
+        return self._pending_coordinate if e is None else e.coordinate
+
+    def coordinate_of(self, index: int) -> str:
+        return self._entries[index].coordinate if 0 <= index < len(self._entries) else ""
 
     def set_coordinate(self, spec: str) -> None:
+        """Set the current run's coordinate (before any run is open: the next run's)."""
         spec = spec.strip()
-        if spec != self._coordinate:
-            self._coordinate = spec
+        e = self.current
+        if e is None:
+            self._pending_coordinate = spec
+            return
+        if spec != e.coordinate:
+            e.coordinate = spec
             self.coordinateChanged.emit(spec)
 
     def choice(self, key: str, default: Any = None) -> Any:

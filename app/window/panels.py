@@ -17,6 +17,7 @@ from PySide6 import QtCore, QtGui, QtWidgets
 from phasewake.app.window.analyses import EventRow, PanelResult, Trace
 from phasewake.app.window.model import WindowModel
 from phasewake.app.window.render import CURSOR_COLOUR, FigureView
+from phasewake.app.window.words import for_window
 from phasewake.core import explain
 from phasewake.core.figures import LEVEL_STYLE, FigureSpec, Mark
 
@@ -37,11 +38,11 @@ def explain_link(kind: str, text: str) -> str:
 def verdict_html(level: str, title: str, message: str, kind: str = "") -> str:
     colour = LEVEL_STYLE.get(level, LEVEL_STYLE["info"])[0]
     sym = LEVEL_SYMBOL.get(level, "\u25a0")
-    head = f"<b>{html.escape(title)}</b>"
+    head = f"<b>{html.escape(for_window(title))}</b>"
     if kind and explain.explanation(kind) is not None:
         head = explain_link(kind, head + f' <span style="color:#0072B2">{EXPLAIN_MARK}</span>')
     return (f'<span style="color:{colour}; font-weight:bold">{sym} {html.escape(level)}</span> '
-            f"{head}: {html.escape(message)}")
+            f"{head}: {html.escape(for_window(message))}")
 
 
 class ExplainingNotes(QtWidgets.QTextBrowser):
@@ -178,10 +179,22 @@ class Panel(QtWidgets.QWidget):
         if self.result is None or not self.result.figures:
             self.view.show_message(text or f"Computing the {self.name} panel\u2026")
 
+    def show_loading(self, run_label: str, *, has_frames: bool = True) -> None:
+        """A run is listed and being read: say so (its figures replace this when computed)."""
+        self.result = None
+        self.error = None
+        self._set_chooser_visible(False)
+        self._note_lines = []
+        self._numbers_line = ""
+        self._set_notes()
+        what = "its frames are being read" if has_frames else "its energy table is being read"
+        self.view.show_message(f"Loading {run_label}: {what}. The {self.name} panel is drawn when they are "
+                               "ready (the progress bar below shows how far it is).")
+
     def show_error(self, text: str) -> None:
         self.result = None
         self.error = text
-        self.view.show_message(f"The {self.name} analysis could not run:\n{text}")
+        self.view.show_message(f"The {self.name} analysis could not run:\n{for_window(text)}")
         self._note_lines = []
         self._numbers_line = ""
         self._set_notes()
@@ -215,7 +228,7 @@ class Panel(QtWidgets.QWidget):
         self.chooser.blockSignals(False)
         self._set_chooser_visible(len(result.figures) > 1)
         if not result.figures:
-            self.view.show_message(result.message or f"The {self.name} analysis gave nothing to draw.")
+            self.view.show_message(for_window(result.message) or f"The {self.name} analysis gave nothing to draw.")
             return
         wanted = self.model.choice(f"{self.name}.figure")
         idx = self.chooser.findData(wanted) if wanted else -1
@@ -226,11 +239,15 @@ class Panel(QtWidgets.QWidget):
 
     def add_note(self, text: str) -> None:
         """Add a plain line under the verdicts (e.g. why an extra analysis failed)."""
-        self._note_lines.append(f'<span style="color:#D55E00">{html.escape(text)}</span>')
+        self._note_lines.append(f'<span style="color:#D55E00">{html.escape(for_window(text))}</span>')
         self._set_notes()
 
+    def _lead_lines(self) -> list[str]:
+        """HTML shown above the verdicts (a panel's own summary, e.g. the Crossings rates)."""
+        return []
+
     def _set_notes(self) -> None:
-        lines = ([self._numbers_line] if self._numbers_line else []) + self._note_lines
+        lines = self._lead_lines() + ([self._numbers_line] if self._numbers_line else []) + self._note_lines
         self.notes.setHtml("<br>".join(lines))
         self.notes.setVisible(bool(lines))
         self._fit_notes()
@@ -245,13 +262,14 @@ class Panel(QtWidgets.QWidget):
         self._set_notes()
 
     def _fit_notes(self) -> None:
-        """As tall as the text, up to a few lines (the rest scrolls)."""
+        """As tall as the text, up to a third of the panel (the rest scrolls)."""
         if not self._note_lines and not self._numbers_line:
             return
         doc = self.notes.document()
         width = self.notes.viewport().width() if self.notes.isVisible() else self.width() - 30
         doc.setTextWidth(max(200, width))
-        self.notes.setFixedHeight(int(min(120, doc.size().height() + 8)))
+        cap = max(120, int(0.33 * self.height()))
+        self.notes.setFixedHeight(int(min(cap, doc.size().height() + 8)))
 
     def resizeEvent(self, event: QtGui.QResizeEvent) -> None:  # noqa: N802 - Qt override
         super().resizeEvent(event)
@@ -299,7 +317,7 @@ class Panel(QtWidgets.QWidget):
         ranked = sorted(result.verdicts, key=lambda v: order.get(v.level, 4))
         self._note_lines = [verdict_html(v.level, v.title, v.message, getattr(v, "kind", "")) for v in ranked]
         if result.message and result.figures:
-            self._note_lines.append(html.escape(result.message))
+            self._note_lines.append(html.escape(for_window(result.message)))
         self._set_notes()
 
     def _set_chooser_visible(self, visible: bool) -> None:
@@ -467,32 +485,72 @@ class CrossingsPanel(Panel):
         lay = QtWidgets.QVBoxLayout(box)
         lay.setContentsMargins(0, 0, 0, 0)
         row = QtWidgets.QHBoxLayout()
-        row.addWidget(QtWidgets.QLabel("Events:"))
+        row.addWidget(QtWidgets.QLabel("Show:"))
         row.addWidget(self.filter)
         row.addStretch(1)
         lay.addLayout(row)
         lay.addWidget(self.table)
+        # Under the figure: the rates and checks (the numbers the crossings verb prints) and the event
+        # table, as tabs in a splitter the user can drag. The verdicts are not squeezed into a strip of a
+        # few lines above the figure, and the table does not squeeze the time plot.
         self.body.removeWidget(self.view)
+        self.notes.setParent(None)
+        self.notes.setMaximumHeight(16_777_215)
+        self.notes.setMinimumHeight(60)
+        self.lower = QtWidgets.QTabWidget()
+        self.lower.setDocumentMode(True)
+        self.lower.addTab(self.notes, "Rates and checks")
+        self.lower.addTab(box, "Events")
         split = QtWidgets.QSplitter(QtCore.Qt.Orientation.Vertical)
+        split.setChildrenCollapsible(False)
         split.addWidget(self.view)
-        split.addWidget(box)
+        split.addWidget(self.lower)
         split.setStretchFactor(0, 3)
         split.setStretchFactor(1, 2)
-        split.setSizes([470, 300])
+        split.setSizes([480, 260])
         self.splitter = split
         self.body.addWidget(split, 1)
         self._rows: list[EventRow] = []
+        self._rates_html = ""
+
+    def _lead_lines(self) -> list[str]:
+        return [self._rates_html] if self._rates_html else []
+
+    def _fit_notes(self) -> None:
+        """The notes fill their tab (it scrolls only when they are longer than the tab)."""
+        self.notes.setVisible(True)
+
+    def rates_text(self) -> str:
+        """The rates as plain text (what the Rates and checks tab shows first)."""
+        doc = QtGui.QTextDocument()
+        doc.setHtml(self._rates_html)
+        return doc.toPlainText()
 
     def show_result(self, result: PanelResult) -> None:
+        from phasewake.core import plots
+
+        res = result.info.get("crossings")
+        self._rates_html = ""
+        if res is not None:
+            rows = "".join(f"<tr><td style='padding-right:10px'><b>{html.escape(k)}</b></td><td>{html.escape(v)}</td></tr>"
+                           for k, v in plots.crossings_rate_rows(res))
+            self._rates_html = f"<table cellspacing='2'>{rows}</table>"
         super().show_result(result)
         self._fill_table()
 
     def show_error(self, text: str) -> None:
+        self._rates_html = ""
         super().show_error(text)
         self._fill_table()
 
     def show_empty(self) -> None:
+        self._rates_html = ""
         super().show_empty()
+        self._fill_table()
+
+    def show_loading(self, run_label: str, *, has_frames: bool = True) -> None:
+        self._rates_html = ""
+        super().show_loading(run_label, has_frames=has_frames)
         self._fill_table()
 
     def visible_events(self) -> list[EventRow]:
@@ -517,6 +575,8 @@ class CrossingsPanel(Panel):
                 self.table.setItem(r, c, item)
         self.table.blockSignals(False)
         self.table.resizeColumnsToContents()
+        n = len(events)
+        self.lower.setTabText(1, f"Events ({n})" if n else "Events")
 
     def select_event(self, row: int) -> None:
         self.table.selectRow(row)

@@ -14,8 +14,25 @@ from phasewake.app.window.model import RunSettings, WindowModel
 from phasewake.core.run import Run
 
 
-def run_summary(run: Run) -> list[tuple[str, str]]:
-    """What a run holds, as (what, value) rows for the Runs list."""
+def _file_temperature(run: Run) -> str:
+    """The mean of the energy table's temperature column, in words ('' when there is none)."""
+    import numpy as np
+
+    if run.energies is None:
+        return ""
+    s = run.energies.by_role("temperature")
+    if s is None:
+        return ""
+    v = np.asarray(s.values, float)
+    v = v[np.isfinite(v)]
+    return f"{v.mean():.4g} K (mean of the energy table's {s.name})" if v.size else ""
+
+
+def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
+    """What a run holds, as (what, value) rows for the Runs list.
+
+    kinetic : the kinetic temperature measured by the audit, in words, when it has run.
+    """
     rows = [("atoms", f"{run.n_atoms}")]
     t = run.time_ps
     rows.append(("frames", f"{run.n_frames}"))
@@ -42,7 +59,11 @@ def run_summary(run: Run) -> list[tuple[str, str]]:
     rows.append(("ensemble", md.ensemble or "unknown"))
     if md.thermostat:
         rows.append(("thermostat", md.thermostat))
-    rows.append(("temperature", "unknown" if md.temperature_K is None else f"{md.temperature_K:.4g} K"))
+    src = md.sources.get("temperature", "")
+    rows.append(("target temperature", "none stated" if md.temperature_K is None else
+                 f"{md.temperature_K:.4g} K" + (" (yours)" if src == "user" else "")))
+    rows.append(("kinetic temperature", kinetic or _file_temperature(run) or
+                 ("being measured" if run.has_velocities else "unknown (no velocities, no temperature column)")))
     rows.append(("constraints", "unknown" if md.n_constraints is None else
                  f"{md.n_constraints}" + (f" ({md.constraints_source})" if md.constraints_source else "")))
     if run.paths:
@@ -52,8 +73,15 @@ def run_summary(run: Run) -> list[tuple[str, str]]:
     return rows
 
 
+ENSEMBLES = (("", "as in files"), ("NVE", "NVE (no thermostat)"), ("NVT", "NVT (thermostat)"),
+             ("NPT", "NPT (thermostat and barostat)"))
+THERMOSTATS = (("", "as in files"), ("none", "none"), ("langevin", "Langevin"), ("nose-hoover", "Nos\u00e9\u2013Hoover"),
+               ("csvr", "stochastic velocity rescaling"), ("berendsen", "Berendsen"), ("andersen", "Andersen"))
+
+
 class SettingsForm(QtWidgets.QGroupBox):
-    """Time step, constraints and temperature a user states for a run (blank: keep the files')."""
+    """Time step, constraints, ensemble, thermostat and its temperature a user states for a run
+    (blank: keep the files'). Apply sends them to the run's metadata and the panels recompute."""
 
     applied = QtCore.Signal(object)  # RunSettings
 
@@ -72,13 +100,27 @@ class SettingsForm(QtWidgets.QGroupBox):
         self.temperature.setDecimals(2)
         self.temperature.setSuffix(" K")
         self.temperature.setSpecialValueText("as in files")
+        self.ensemble = QtWidgets.QComboBox()
+        for value, text in ENSEMBLES:
+            self.ensemble.addItem(text, value)
+        self.ensemble.setToolTip("How the run was made: NVE runs are judged on energy conservation, "
+                                 "thermostatted runs on their temperature")
+        self.thermostat = QtWidgets.QComboBox()
+        for value, text in THERMOSTATS:
+            self.thermostat.addItem(text, value)
+        for combo in (self.ensemble, self.thermostat):
+            combo.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+            combo.setMinimumContentsLength(8)
         self.apply = QtWidgets.QPushButton("Apply")
         self.apply.setToolTip("Use these values for this run and recompute its panels")
         self.apply.clicked.connect(lambda: self.applied.emit(self.settings()))
         form = QtWidgets.QFormLayout(self)
-        form.addRow("Integration time step", self.timestep)
+        form.setRowWrapPolicy(QtWidgets.QFormLayout.RowWrapPolicy.WrapLongRows)
+        form.addRow("Time step", self.timestep)
         form.addRow("Constraints", self.constraints)
-        form.addRow("Thermostat temperature", self.temperature)
+        form.addRow("Ensemble", self.ensemble)
+        form.addRow("Thermostat", self.thermostat)
+        form.addRow("Target temperature", self.temperature)
         form.addRow(self.apply)
 
     def settings(self) -> RunSettings:
@@ -86,12 +128,16 @@ class SettingsForm(QtWidgets.QGroupBox):
             timestep_fs=self.timestep.value() or None,
             n_constraints=None if self.constraints.value() < 0 else self.constraints.value(),
             temperature_K=self.temperature.value() or None,
+            ensemble=self.ensemble.currentData() or None,
+            thermostat=self.thermostat.currentData() or None,
         )
 
     def show_settings(self, s: RunSettings) -> None:
         self.timestep.setValue(s.timestep_fs or 0.0)
         self.constraints.setValue(-1 if s.n_constraints is None else s.n_constraints)
         self.temperature.setValue(s.temperature_K or 0.0)
+        self.ensemble.setCurrentIndex(max(0, self.ensemble.findData(s.ensemble or "")))
+        self.thermostat.setCurrentIndex(max(0, self.thermostat.findData(s.thermostat or "")))
 
 
 class RunsList(QtWidgets.QWidget):
@@ -99,9 +145,13 @@ class RunsList(QtWidgets.QWidget):
 
     addRequested = QtCore.Signal(list)
 
-    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None) -> None:
+    def __init__(self, model: WindowModel, parent: QtWidgets.QWidget | None = None, *,
+                 settings: QtCore.QSettings | None = None, folder_key: str = "last_run_folder") -> None:
         super().__init__(parent)
         self.model = model
+        self.app_settings = settings if settings is not None else QtCore.QSettings()
+        self.folder_key = folder_key  # where the Open dialog starts: the folder a run was last opened from
+        self._kinetic: dict[int, tuple[Run, str]] = {}  # id(run) -> (run, the audit's kinetic temperature)
         self.setAcceptDrops(True)
         self.list = QtWidgets.QListWidget()
         self.list.setToolTip("Loaded runs; the selected one is shown in the panels. Drop files here to add.")
@@ -153,9 +203,17 @@ class RunsList(QtWidgets.QWidget):
             self.list.blockSignals(False)
         self._show_details()
 
+    def note_kinetic_temperature(self, run: Run, text: str) -> None:
+        """The kinetic temperature the audit measured for ``run`` (shown in its details)."""
+        self._kinetic[id(run)] = (run, text)
+        if self.model.current is not None and self.model.current.run is run:
+            self._show_details()
+
     def _show_details(self) -> None:
         e = self.model.current
-        rows = [] if e is None else run_summary(e.run)
+        hit = None if e is None else self._kinetic.get(id(e.run))
+        kinetic = hit[1] if hit is not None and e is not None and hit[0] is e.run else ""
+        rows = [] if e is None else run_summary(e.run, kinetic=kinetic)
         self.details.setRowCount(len(rows))
         for r, (k, v) in enumerate(rows):
             self.details.setItem(r, 0, QtWidgets.QTableWidgetItem(k))
@@ -181,14 +239,14 @@ class RunsList(QtWidgets.QWidget):
             self.model.remove_run(row)
 
     def ask_for_files(self) -> None:
-        settings = QtCore.QSettings()
-        folder = str(settings.value("last_folder", ""))
+        settings = self.app_settings
+        folder = str(settings.value(self.folder_key, "") or "")
         paths, _ = QtWidgets.QFileDialog.getOpenFileNames(
             self, "Open run files", folder,
             "Run files (*.h5md *.h5 *.hdf5 *.dcd *.xtc *.trr *.nc *.pdb *.gro *.csv *.tsv *.txt *.dat "
             "*.xvg *.prmtop *.parm7 *.psf *.lammpstrj *.xyz);;All files (*)")
         if paths:
-            settings.setValue("last_folder", str(Path(paths[0]).parent))
+            settings.setValue(self.folder_key, str(Path(paths[0]).parent))
             self.addRequested.emit(paths)
 
     # ---- drag and drop ------------------------------------------------------------------------

@@ -293,9 +293,12 @@ def test_exports_write_what_the_panel_shows(win, tmp_path):
     w = win
     w.tabs.setCurrentIndex(PANELS.index("Energy"))
     png = w.export_figure_to(tmp_path / "energy.png", preset="single", dpi=100)
+    assert w.wait_idle(30_000)  # exports run as background jobs
+    assert png.exists(), (w.messages, w.status_label.text())
     img = QtGui.QImage(str(png))
     assert not img.isNull() and img.width() == pytest.approx(8.5 / 2.54 * 100, abs=2)  # 8.5 cm at 100 dpi
     csv = w.export_data_to(tmp_path / "energy.csv")
+    assert w.wait_idle(30_000)
     text = csv.read_text()
     assert "ps" in text and "kJ/mol" in text
 
@@ -340,7 +343,8 @@ def test_runs_list_settings_remove_and_drop(win, qtbot, sample_path):
     md = w.model.current.run.metadata
     assert md.timestep_ps == pytest.approx(1.5e-3) and md.temperature_K == pytest.approx(130.0)
     shown = {runs.details.item(r, 0).text(): runs.details.item(r, 1).text() for r in range(runs.details.rowCount())}
-    assert shown["time step"] == "1.5 fs" and shown["temperature"] == "130 K"
+    assert shown["time step"] == "1.5 fs" and shown["target temperature"] == "130 K (yours)"
+    assert shown["kinetic temperature"].endswith("degrees of freedom)") and " K " in shown["kinetic temperature"]
     assert shown["velocities"] in ("stored", "estimated from positions")
     # dropping a file on the list asks the window to open it as another run
     mime = QtCore.QMimeData()
@@ -350,9 +354,18 @@ def test_runs_list_settings_remove_and_drop(win, qtbot, sample_path):
     runs.dropEvent(drop)
     assert w.wait_idle(60_000)
     assert len(w.model.entries) == 2 and runs.list.count() == 2
-    # the Sampling panel now compares the current run with the other one (R-hat across runs)
-    titles = [v.title for v in w.panels["Sampling"].result.verdicts]
-    assert any("across 2 runs" in t for t in titles), titles
+    # the second copy was opened without the time step and temperature stated for the first: not a
+    # replica of it, and the Sampling panel says why instead of pooling them
+    sampling = w.panels["Sampling"]
+    titles = [v.title for v in sampling.result.verdicts]
+    assert not any("across" in t for t in titles), titles
+    assert "Not pooled as replicas: dimer_nve (target temperature not stated, not 130 K)" in sampling.notes_text()
+    # the same settings on both: now they are replicas, pooled and named
+    w.model.update_settings(1, w.model.entries[0].settings)
+    assert w.wait_idle(60_000)
+    titles = [v.title for v in sampling.result.verdicts]
+    assert any("across 2 replicas" in t for t in titles), titles
+    assert "Pooled as replicas" in sampling.notes_text()
     runs.list.setCurrentRow(1)
     runs.remove_selected()
     assert len(w.model.entries) == 1 and w.model.current is not None
@@ -417,10 +430,18 @@ def test_export_menu_remembers_the_last_folder(win, tmp_path, monkeypatch):
     monkeypatch.setattr(main_module.ExportDialog, "exec", lambda self: QtWidgets.QDialog.DialogCode.Accepted)
     monkeypatch.setattr(main_module.ExportDialog, "values", lambda self: ("svg", "single", 150.0))
     w.ask_export_figure()
+    assert w.wait_idle(30_000)  # exports run as background jobs
     assert out.exists() and "<svg" in out.read_text()[:2000]
-    assert w.settings.value("last_folder") == str(out.parent)
+    assert w.settings.value("last_export_folder") == str(out.parent)
     w.ask_export_data()  # the next dialog starts in that folder
     assert asked[-1].startswith(str(out.parent))
+    assert w.wait_idle(30_000)
+    # ...but the Open dialog starts where a run was last opened from, not in the export folder
+    opened_in = []
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getOpenFileNames",
+                        staticmethod(lambda parent, title, start, filters: (opened_in.append(start), ([], ""))[1]))
+    w.runs.ask_for_files()
+    assert opened_in == [str(Path(w.model.current.paths[0]).resolve().parent)]
 
 
 def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_path, monkeypatch):
