@@ -32,8 +32,11 @@ bench: $(STAMP)
 fuzz: $(STAMP)
 	QT_QPA_PLATFORM=offscreen PHASEWAKE_FUZZ=long $(BIN)/python -m pytest -q -p no:cacheprovider tests/robustness
 
+# make screenshots SIZE=1024x640 [QPA=xcb, with DISPLAY set, e.g. under Xvfb + openbox]
+SIZE ?= 1400x900
+QPA  ?= offscreen
 screenshots: $(STAMP)
-	QT_QPA_PLATFORM=offscreen $(BIN)/python -m phasewake.app.window.screenshots --output screenshots
+	QT_QPA_PLATFORM=$(QPA) $(BIN)/python -m phasewake.app.window.screenshots --size $(SIZE) --output screenshots/$(SIZE)-$(QPA)
 
 samples: $(STAMP)
 	$(BIN)/python sample_data/make_samples.py

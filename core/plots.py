@@ -473,8 +473,10 @@ def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: f
                     "crossings of q*, classed as transitions (the other core is reached next) or recrossings.")
     if cursor_ps is not None:
         items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=_GREY, dash="dot")))
+    # a long name (distance(DIM1:D1, DIM1:D2)) is the title; the axis says q, so it is never cut
+    y_name = series.label if len(series.label) <= 16 else "q"
     return FigureSpec(key=key, title=f"{series.label} against time",
-                      plots=(PlotSpec(title=series.label, x=TIME, y=Axis(series.label, series.unit),
+                      plots=(PlotSpec(title=series.label, x=TIME, y=Axis(y_name, series.unit),
                                       items=tuple(items), x_is_time=True),),
                       caption=caption, provenance={"settings": {"coordinate": series.spec}})
 

@@ -420,13 +420,20 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     if proj is None or coords is None or ctx.run.frames is None or ctx.run.n_atoms < 2:
         return PanelResult()
     settings = _pca_settings(ctx.run)
+    group = np.asarray(settings["atom_indices"])
+    if group.size < 3:
+        return PanelResult(message=f"No principal components: the solute has {plots.atoms_text(group)}; with the "
+                                   "rotation and translation fitted away only their distance varies, so PCA would "
+                                   "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
     cached = module_or_none("cached")
     work = (cached.cached_pca(sub, cache=window_cache(), **settings) if cached is not None  # shared_frames_job's key
             else proj.compute_pca(sub, **settings))
     pca = yield from _relay(work, 0, 1, 1, "principal components")
     traces: dict[str, Trace] = {}
-    figs = _pca_figures(pca, traces)
+    coords_text = plots.atoms_text(group)
+    solute = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms).size < ctx.run.n_atoms
+    figs = _pca_figures(pca, traces, atoms=f"the solute, {coords_text}" if solute else coords_text)
     return PanelResult(figures=tuple(figs), traces=traces, info={"pca": pca})
 
 
@@ -446,8 +453,8 @@ def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec
     return figs
 
 
-def _pca_figures(pca: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
-    figs = plots.principal_component_figures(pca)
+def _pca_figures(pca: Any, traces: dict[str, Trace], *, atoms: str = "") -> list[FigureSpec]:
+    figs = plots.principal_component_figures(pca, atoms=atoms)
     if pca.projections is not None and pca.time_ps is not None:
         t = np.asarray(pca.time_ps, float)
         pr = np.asarray(pca.projections, float)
@@ -725,7 +732,9 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     if temp is None:
         return PanelResult(message="The free-energy profile needs a temperature: state the thermostat "
                                    "temperature in the Runs list (the files do not say).")
-    jac = "distance" if s.spec.replace(" ", "").startswith("distance(") else "none"
+    # the same profile as the report (no Jacobian), so both give the same barrier for one run; until both
+    # come from one request, a distance's 4 pi r^2 correction is not applied here either
+    jac = "none"
     try:
         prof = land.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit, jacobian=jac)
     except TypeError:

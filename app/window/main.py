@@ -46,7 +46,9 @@ FOLDER_KEYS = {"runs": "last_run_folder", "export": "last_export_folder", "sessi
 # matplotlib is not thread-safe (its font caches broke a PDF report written while a figure was being
 # exported: "bytes must be in range(0, 256)"): exports run in the background, one after another
 EXPORT_LOCK = threading.Lock()
-PROBLEM_SHOWN_MS = 15_000  # a problem stays in the status line this long (its box stays until closed)
+PROBLEM_SHOWN_MS = 15_000
+RUNS_WIDTH = 230  # the Runs column's width at start; narrower windows narrow it (see resizeEvent)
+NARROW_PX = 1200  # below this width the Runs column takes the least room it can (F9 hides it)  # a problem stays in the status line this long (its box stays until closed)
 from phasewake.app.window.guide_text import GUIDE_TEXT  # noqa: E402,F401 - kept for callers of the old name
 
 
@@ -98,7 +100,8 @@ class MainWindow(QtWidgets.QMainWindow):
         dock = QtWidgets.QDockWidget("Runs", self)
         dock.setObjectName("runsDock")
         dock.setWidget(self.runs)
-        dock.setFeatures(QtWidgets.QDockWidget.DockWidgetFeature.DockWidgetMovable)
+        dock.setFeatures(QtWidgets.QDockWidget.DockWidgetFeature.DockWidgetMovable
+                         | QtWidgets.QDockWidget.DockWidgetFeature.DockWidgetClosable)
         self.addDockWidget(QtCore.Qt.DockWidgetArea.LeftDockWidgetArea, dock)
         self.runs_dock = dock
 
@@ -122,6 +125,7 @@ class MainWindow(QtWidgets.QMainWindow):
         for p in self.panels.values():
             p.show_empty()
         self.resize(1280, 820)
+        self.resizeDocks([self.runs_dock], [RUNS_WIDTH], QtCore.Qt.Orientation.Horizontal)
 
     # ---- status area --------------------------------------------------------------------------
     def _build_status(self) -> None:
@@ -250,6 +254,13 @@ class MainWindow(QtWidgets.QMainWindow):
         for i, name in enumerate(PANELS):
             self._action(v, f"{name} panel", lambda i=i: self.tabs.setCurrentIndex(i), f"Ctrl+{i + 1}")
         v.addSeparator()
+        runs_toggle = self.runs_dock.toggleViewAction()
+        runs_toggle.setText("Runs list")
+        runs_toggle.setShortcut(QtGui.QKeySequence("F9"))
+        runs_toggle.setStatusTip("Show or hide the Runs list (more room for the panels on a small screen)")
+        v.addAction(runs_toggle)
+        self.addAction(runs_toggle)
+        self.act_runs_list = runs_toggle
         self._action(v, "Trail the recent path", self._toggle_trail, "T")
 
         h = mb.addMenu("&Help")
@@ -551,7 +562,7 @@ class MainWindow(QtWidgets.QMainWindow):
                     self.model.current.run, f"{ta.mean_K:.4g} \u00b1 {ta.error_K:.2g} K (audit, {ta.n_dof} degrees "
                                             "of freedom)")
             for extra in waiting:
-                panel.add_result(extra)
+                self._apply_extra(panel, extra)
             if not self.jobs.busy:
                 self.say(f"Panels up to date ({outcome.elapsed_s:.2g} s for the last).")
         if key == "Energy" and self._rest_pending:
@@ -562,6 +573,13 @@ class MainWindow(QtWidgets.QMainWindow):
         if name in self.jobs.running():
             # the panel's main job is still running: add the extra figures once it has drawn
             self._extras_waiting.setdefault(name, []).append(result)
+        else:
+            self._apply_extra(panel, result)
+
+    @staticmethod
+    def _apply_extra(panel: Panel, result: PanelResult) -> None:
+        if not result.figures and result.message:  # e.g. why there are no principal components
+            panel.add_note(result.message)
         else:
             panel.add_result(result)
 
@@ -894,6 +912,12 @@ class MainWindow(QtWidgets.QMainWindow):
         if paths:
             self.open_paths(paths)
             event.acceptProposedAction()
+
+    def resizeEvent(self, event):  # noqa: N802 - Qt override
+        super().resizeEvent(event)
+        if self.width() < NARROW_PX and self.runs_dock.isVisible() and self.runs_dock.width() > 190:
+            # a laptop-sized window: the Runs column collapses to its narrowest, the panels get the room
+            self.resizeDocks([self.runs_dock], [180], QtCore.Qt.Orientation.Horizontal)
 
     def closeEvent(self, event):  # noqa: N802 - Qt override
         self.jobs.cancel_all()

@@ -268,7 +268,7 @@ class Panel(QtWidgets.QWidget):
         doc = self.notes.document()
         width = self.notes.viewport().width() if self.notes.isVisible() else self.width() - 30
         doc.setTextWidth(max(200, width))
-        cap = max(120, int(0.33 * self.height()))
+        cap = 120 if self.height() < 700 else int(0.25 * self.height())  # the figure keeps most of a small panel
         self.notes.setFixedHeight(int(min(cap, doc.size().height() + 8)))
 
     def resizeEvent(self, event: QtGui.QResizeEvent) -> None:  # noqa: N802 - Qt override

@@ -406,15 +406,19 @@ class FigureView(QtWidgets.QWidget):
             row, col = divmod(i, cols)
             legend = None
             if ps.legend and ps.x_is_time and _has_labels(ps):
-                # a time series fills its plot from edge to edge: its legend goes in a row above it,
-                # where it hides no data (a legend inside covered the end of the trace)
+                # a time series fills its plot from edge to edge: its legend goes beside it, where it
+                # hides no data (a legend inside covered the end of the trace) and takes no height
                 cell = self.layout_widget.addLayout(row=row, col=col)
                 cell.setContentsMargins(0, 0, 0, 0)
-                n = sum(1 for it in ps.items if getattr(it, "label", "") and not isinstance(it, Image))
-                legend = pg.LegendItem(labelTextSize=f"{FONT_PT}pt", colCount=max(1, min(4, n)))
+                plot = cell.addPlot(row=0, col=0)
+                legend = pg.LegendItem(labelTextSize=f"{FONT_PT}pt", colCount=1)
                 legend.setLabelTextColor("#000000")
-                cell.addItem(legend, row=0, col=0)
-                plot = cell.addPlot(row=1, col=0)
+                cell.addItem(legend, row=0, col=1)
+                cell.layout.setColumnStretchFactor(0, 1)
+                cell.layout.setColumnStretchFactor(1, 0)
+                # as tall as its entries, at the top (stretched to the plot's height its rows drifted apart)
+                legend.setSizePolicy(QtWidgets.QSizePolicy.Policy.Fixed, QtWidgets.QSizePolicy.Policy.Fixed)
+                cell.layout.setAlignment(legend, QtCore.Qt.AlignmentFlag.AlignTop)
                 plot.legend = legend  # PlotItem.addItem puts named items into plot.legend
             else:
                 plot = self.layout_widget.addPlot(row=row, col=col)

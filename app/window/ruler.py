@@ -51,6 +51,10 @@ class TimeRuler(QtWidgets.QWidget):
         self.plot.addItem(self.cursor_line)
         self.label = QtWidgets.QLabel()
         self.label.setObjectName("rulerLabel")
+        # the text changes with every cursor step: it must never set the window's width (a narrow window
+        # cuts it; the tooltip holds it whole)
+        self.label.setSizePolicy(QtWidgets.QSizePolicy.Policy.Ignored, QtWidgets.QSizePolicy.Policy.Preferred)
+        self.label.setMinimumWidth(40)
         self.reset_button = QtWidgets.QPushButton("Whole run")
         self.reset_button.setToolTip("Analyse the whole run again (Ctrl+0)")
         self.reset_button.clicked.connect(lambda: self.model.set_time_window(None))
@@ -136,11 +140,11 @@ class TimeRuler(QtWidgets.QWidget):
         lo, hi = self.model.effective_window_ps
         start, stop = self.model.window_frames()
         whole = self.model.time_window_ps is None
-        self.label.setText(
-            f"cursor {self.model.cursor_time_ps:.4g} ps (frame {self.model.cursor_frame}) \u2014 "
-            f"analysis window {lo:.4g}\u2013{hi:.4g} ps, frames {start}\u2013{stop - 1}"
-            + (" (whole run)" if whole else "") + " \u2014 drag the shaded band to change it"
-        )
+        text = (f"cursor {self.model.cursor_time_ps:.4g} ps (frame {self.model.cursor_frame}) \u2014 "
+                f"analysis window {lo:.4g}\u2013{hi:.4g} ps, frames {start}\u2013{stop - 1}"
+                + (" (whole run)" if whole else "") + " \u2014 drag the shaded band to change it")
+        self.label.setText(text)
+        self.label.setToolTip(text)
 
     def _cursor_dragged(self, line: pg.InfiniteLine) -> None:
         if not self._updating:

@@ -177,8 +177,22 @@ class RunsList(QtWidgets.QWidget):
         lay.setContentsMargins(4, 4, 4, 4)
         lay.addWidget(self.list, 1)
         lay.addLayout(buttons)
-        lay.addWidget(self.details, 3)
-        lay.addWidget(self.settings)
+        # details and settings scroll together, so a laptop-sized window (640 px high) reaches Apply
+        lower = QtWidgets.QWidget()
+        lower_lay = QtWidgets.QVBoxLayout(lower)
+        lower_lay.setContentsMargins(0, 0, 0, 0)
+        self.details.setMinimumHeight(160)
+        lower_lay.addWidget(self.details, 1)
+        lower_lay.addWidget(self.settings)
+        scroll = QtWidgets.QScrollArea()
+        scroll.setWidgetResizable(True)
+        scroll.setFrameShape(QtWidgets.QFrame.Shape.NoFrame)
+        scroll.setHorizontalScrollBarPolicy(QtCore.Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+        scroll.setWidget(lower)
+        self.lower_scroll = scroll
+        lay.addWidget(scroll, 3)
+        self.list.setMinimumHeight(48)
+        self.setMinimumWidth(170)
         model.runsChanged.connect(self.refresh)
         model.currentRunChanged.connect(self._current_changed)
         self.refresh()
@@ -190,7 +204,7 @@ class RunsList(QtWidgets.QWidget):
         for e in self.model.entries:
             n = e.run.n_frames
             item = QtWidgets.QListWidgetItem(f"{e.label}  \u2014  {e.run.n_atoms} atoms, {n} frames")
-            item.setToolTip("\n".join(e.paths) or "built in memory")
+            item.setToolTip(f"{e.label}: {e.run.n_atoms} atoms, {n} frames\n" + ("\n".join(e.paths) or "built in memory"))
             self.list.addItem(item)
         self.list.setCurrentRow(self.model.current_index)
         self.list.blockSignals(False)

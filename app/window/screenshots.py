@@ -2,9 +2,10 @@
 
     python -m phasewake.app.window.screenshots --output DIR [--size 1400x900] [FILE ...]
 
-Writes ``DIR/<n>-<panel>.png`` (the whole window with that panel on top) for each panel, so anyone
-can look at the window without a display (``make screenshots``). With no FILE, the bundled sample
-run ``dimer_nve.h5md`` is used. Exit code 2 (one line) when the run cannot be found or opened.
+Writes ``DIR/<run>/<n>-<panel>.png`` (the whole window with that panel on top) for each panel, so
+anyone can look at the window without a display (``make screenshots SIZE=1024x640``). Each FILE is a
+run of its own; with no FILE, the bundled sample runs ``dimer_nve.h5md`` and ``dimer_langevin.h5md``
+are used. Exit code 2 (one line) when a run cannot be found or opened.
 """
 
 from __future__ import annotations
@@ -16,6 +17,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 DEFAULT_SIZE = (1400, 900)
+SAMPLE_RUNS = ("dimer_nve.h5md", "dimer_langevin.h5md")
 
 
 def sample_run_path(name: str = "dimer_nve.h5md") -> Path | None:
@@ -115,16 +117,18 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     files = list(args.files)
     if not files:
-        sample = sample_run_path()
-        if sample is None:
-            sys.stderr.write("screenshots: the sample run (sample_data/dimer_nve.h5md) is not there; "
-                             "run `make samples` or give FILE\n")
+        samples = [sample_run_path(n) for n in SAMPLE_RUNS]
+        if any(s is None for s in samples):
+            sys.stderr.write("screenshots: the sample runs (sample_data/dimer_nve.h5md, dimer_langevin.h5md) are "
+                             "not there; run `make samples` or give FILE\n")
             return 2
-        files = [str(sample)]
+        files = [str(s) for s in samples]
     from phasewake.core.errors import PhasewakeError
 
+    written = []
     try:
-        written = render(files, Path(args.output), size=(w, h))
+        for f in files:
+            written += render([f], Path(args.output) / Path(f).stem, size=(w, h))
     except (PhasewakeError, OSError, RuntimeError, TimeoutError) as exc:
         sys.stderr.write(f"screenshots: {exc}\n")
         return 2

@@ -131,7 +131,13 @@ def test_open_sample_every_panel_draws_data(win):
         assert _drawn_points(panel) > 0, name
     if analyses.module_or_none("projection") is not None:  # principal components join the Phase space panel
         keys = [f.key for f in w.panels["Phase space"].result.figures]
-        assert "phase.pca_variance" in keys, keys
+        from phasewake.core.coordinates import solute_atoms
+
+        if solute_atoms(w.model.current.run.topology, w.model.current.run.n_atoms).size >= 3:
+            assert "phase.pca_variance" in keys, keys
+        else:  # the sample's solute is the dimer: PCA over 2 atoms is refused, with the reason
+            assert "phase.pca_variance" not in keys
+            assert "No principal components: the solute has atoms 0 and 1" in w.panels["Phase space"].notes_text()
     energy = w.panels["Energy"]
     assert energy.result.verdicts, "the audit's verdicts are shown on the Energy panel"
     assert any(word in energy.notes_text() for word in ("ok", "caution", "problem"))
@@ -503,3 +509,76 @@ def test_opening_a_run_reads_the_frames_once_for_audit_coordinate_and_pca(qtbot,
     assert n_on < n_off, (n_on, n_off)
     assert shown_on == shown_off
     monkeypatch.setattr(analyses, "USE_CACHE", True)  # leave the module as the other tests expect it
+
+
+def test_crossings_panel_shows_the_rates_the_command_line_prints(win, capsys):
+    """The rates with their intervals, kappa and the TST rates are on screen, from the same crossings result
+    (same coordinate, states and surface) the ``crossings`` verb prints."""
+    import re
+
+    from phasewake.app.cli import main
+
+    w = win
+    panel = w.panels["Crossings"]
+    res = panel.result.info["crossings"]
+    text = panel.rates_text()
+    for needle in ("k(A→B)", "k(B→A)", "95% interval", "κ, transmission coefficient", "k_TST(A→B)", "k/k_TST"):
+        assert needle in text, (needle, text)
+    assert panel.lower.tabText(0) == "Rates and checks" and panel.notes.parent() is not None
+    cs = res.settings
+    capsys.readouterr()
+    path = w.model.current.paths[0]
+    # exit 1 when a verdict says caution or problem (the verb's convention), 0 otherwise: both print the rates
+    assert main(["crossings", path, "--coordinate", w.model.coordinate, "--states", f"{cs.a_hi!r},{cs.b_lo!r}",
+                 "--surface", repr(cs.surface)]) in (0, 1)
+    out = capsys.readouterr().out
+    for direction, rate in (("A->B", res.rate_ab), ("B->A", res.rate_ba)):
+        printed = float(re.search(rf"k\({direction}\) = ([0-9.eE+-]+)", out).group(1))
+        assert printed == pytest.approx(rate.rate_per_ps, rel=1e-3), (direction, printed, rate.rate_per_ps)
+        shown = re.search(rf"k\({direction.replace('->', '→')}\)\s*([0-9.eE+-]+) ps⁻¹", text).group(1)
+        assert float(shown) == pytest.approx(printed, rel=5e-3)
+
+
+def test_apply_thermostat_settings_changes_the_audit(win, qtbot):
+    """Stating the ensemble, thermostat and its temperature in the Runs list reaches the audit: the caption
+    no longer calls the run unthermostatted and the verdicts are those of a thermostatted run."""
+    w = win
+    energy = w.panels["Energy"]
+    before = energy.result.info["audit"]
+    caption_before = " ".join(f.caption for f in energy.result.figures)
+    assert not before.thermostatted and "unthermostatted" in caption_before
+    form = w.runs.settings
+    form.ensemble.setCurrentIndex(form.ensemble.findData("NVT"))
+    form.thermostat.setCurrentIndex(form.thermostat.findData("langevin"))
+    form.temperature.setValue(120.0)
+    qtbot.mouseClick(form.apply, QtCore.Qt.MouseButton.LeftButton)
+    assert w.wait_idle(60_000)
+    after = energy.result.info["audit"]
+    caption_after = " ".join(f.caption for f in energy.result.figures)
+    assert after.thermostatted and after.ensemble == "NVT"
+    assert "unthermostatted" not in caption_after
+    assert [v.message for v in after.verdicts] != [v.message for v in before.verdicts]
+    w.model.update_settings(0, type(w.model.current.settings)())  # back to the files' values
+    assert w.wait_idle(60_000)
+    assert not energy.result.info["audit"].thermostatted
+
+
+def test_everything_is_usable_at_laptop_size(win, qtbot):
+    """1024 x 640: the window is not wider than that, the Crossings figure keeps its height beside the rates
+    and events, and the Runs column gives way."""
+    w = win
+    w.resize(1024, 640)
+    qtbot.wait(200)
+    assert w.minimumSizeHint().width() <= 1024 and w.width() == 1024
+    cross = w.panels["Crossings"]
+    w.tabs.setCurrentWidget(cross)
+    qtbot.wait(200)
+    assert cross.view.height() >= 150 and cross.view.height() >= cross.lower.height()
+    assert w.runs_dock.width() <= 200
+    assert w.act_runs_list.isChecked()
+    w.act_runs_list.trigger()  # F9: the Runs column collapses for more room
+    qtbot.wait(100)
+    assert not w.runs_dock.isVisible()
+    w.act_runs_list.trigger()
+    w.resize(1200, 800)
+    qtbot.wait(100)
