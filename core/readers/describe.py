@@ -73,6 +73,10 @@ def describe(run: Run) -> dict[str, Any]:
     }
     out["metadata"] = {k: v for k, v in meta.items() if v is not None}
     out["sources"] = dict(md.sources)
+    # the frames' clock when it is not ps: step numbers or frame numbers (no time step known), lj tau
+    time_from = str(md.extra.get("time_from", ""))
+    out["frame_time_unit"] = ("steps" if time_from == "step number" else "frames" if time_from == "frame index"
+                              else "tau" if (md.units_style or "").endswith(" lj") else "ps")
     # a run joined from parts (core/readers/parts.py): each part, overlaps and gaps with their times
     out["parts"] = list(md.extra.get("parts", []))
     out["overlaps"] = list(md.extra.get("overlaps", []))
@@ -93,9 +97,10 @@ def format_description(d: dict[str, Any]) -> str:
     if d["positions"]:
         lines.append(f"atoms: {d['n_atoms']}")
         lines.append(f"frames: {d['n_frames']}")
-        lines.append(f"time: {num(d['time_start_ps'], 'ps')} to {num(d['time_end_ps'], 'ps')} "
-                     f"(span {num(d['time_span_ps'], 'ps')})")
-        lines.append(f"frame spacing: {num(d['frame_spacing_ps'], 'ps')}")
+        tu = d.get("frame_time_unit", "ps")  # "steps" / "frames" when the files give no time, "tau" for lj
+        lines.append(f"time: {num(d['time_start_ps'], tu)} to {num(d['time_end_ps'], tu)} "
+                     f"(span {num(d['time_span_ps'], tu)})")
+        lines.append(f"frame spacing: {num(d['frame_spacing_ps'], tu)}")
         lines.append("positions: stored")
         lines.append(f"velocities: {d['velocities']}")
         lines.append(f"box: {'periodic' if d['box'] != 'none' else 'none'}")

@@ -512,6 +512,7 @@ class LammpsTopology:
     dump_masses: np.ndarray | None = None  # the dump's mass column (style mass unit)
     dump_types: np.ndarray | None = None
     elements: list[str] | None = None  # the dump's element column
+    dump_mols: np.ndarray | None = None  # the dump's mol column
 
 
 def open_dump_run(path: Path, top_path: Path | None) -> Run:
@@ -542,6 +543,8 @@ def open_dump_run(path: Path, top_path: Path | None) -> Run:
         info.dump_masses = rows[:, cols.index("mass")].copy()
     if "type" in cols:
         info.dump_types = rows[:, cols.index("type")].astype(np.int64)
+    if "mol" in cols:
+        info.dump_mols = rows[:, cols.index("mol")].astype(np.int64)
     if "element" in cols:
         info.elements = frames.column_text("element")
     if top_path is not None:
@@ -654,7 +657,7 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     elif info.mdtraj_top is not None:
         run.topology = info.mdtraj_top  # type: ignore[assignment]
     elif info.elements is not None or info.dump_types is not None:
-        run.topology = _topology_of_types(info.dump_types, info.elements)  # type: ignore[assignment]
+        run.topology = _topology_of_types(info.dump_types, info.elements, info.dump_mols)  # type: ignore[assignment]
     if masses is None and run.topology is not None:
         from phasewake.core.readers.common import masses_from_topology
 
@@ -676,10 +679,11 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     return warnings
 
 
-def _topology_of_types(types: np.ndarray | None, elements: list[str] | None) -> object:
-    """A topology from a dump alone: atoms named by element (element column) or ``T<type>``, one residue
-    per run of consecutive atoms of one type (a dump says nothing of molecules; one residue per atom
-    costs a second per 20,000 atoms in mdtraj)."""
+def _topology_of_types(types: np.ndarray | None, elements: list[str] | None,
+                       mols: np.ndarray | None = None) -> object:
+    """A topology from a dump alone: atoms named by element (element column) or ``T<type>``; a residue
+    per molecule (mol column), else per run of consecutive atoms of one type (one residue per atom costs
+    a second per 20,000 atoms in mdtraj)."""
     import mdtraj as md
     from mdtraj.core import element as elem
 
@@ -687,12 +691,14 @@ def _topology_of_types(types: np.ndarray | None, elements: list[str] | None) -> 
     top = md.Topology()
     chain = top.add_chain()
     res = None
-    last = None
+    last: object = None
     for i in range(n):
         key = elements[i] if elements is not None else f"T{int(types[i])}"  # type: ignore[index]
-        if key != last:
-            res = top.add_residue(key, chain, resSeq=i + 1)
-            last = key
+        group = (int(mols[i]),) if mols is not None else key
+        if group != last:
+            res = top.add_residue("MOL" if mols is not None else key, chain,
+                                  resSeq=int(mols[i]) if mols is not None else i + 1)
+            last = group
         try:
             el = elem.get_by_symbol(key) if elements is not None else elem.virtual
         except KeyError:

@@ -414,3 +414,15 @@ def test_fuzzed_dumps_and_data_files_fail_only_with_our_errors(tmp_path_factory)
             pass
 
     check()
+
+
+def test_describe_labels_step_numbers_and_molecules_from_the_mol_column(tmp_path, capsys):
+    p = tmp_path / "mols.lammpstrj"
+    p.write_text("".join(HAND.format(step=s).replace("ATOMS id type", "ATOMS id mol type")
+                         .replace("\n3 2 ", "\n3 2 2 ").replace("\n1 1 ", "\n1 1 1 ").replace("\n2 1 ", "\n2 1 1 ")
+                         for s in (0, 100)))
+    assert main(["describe", str(p), "--units", "metal"]) == 0
+    out = capsys.readouterr().out
+    assert "time: 0 steps to 100 steps" in out and "time step is not known" in out
+    run = open_run([p], units_style="metal")
+    assert [r.n_atoms for r in run.topology.residues] == [2, 1]  # molecules 1 (ids 1, 2) and 2 (id 3)
