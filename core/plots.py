@@ -815,9 +815,14 @@ def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
         keep = w <= max_cm1
         w, y = w[keep], y[keep]
     items: list[PlotItem] = [Line(w, y, label="density of states", style=_style(0))]
-    for i, pk in enumerate(result.peaks[:6]):
-        items.append(Mark("point", pk.wavenumber_cm1, pk.intensity, label="peaks" if i == 0 else "", role="event",
-                          style=Style(colour=PALETTE[6], marker="v", marker_size=5.0)))
+    seen: set[str] = set()
+    for pk in result.peaks[:6]:
+        # a peak the frames do not resolve (a possible alias, velocity.judge_peaks) is not a motion
+        kind = "possible aliases, not motions" if getattr(pk, "not_a_motion", "") else "peaks"
+        items.append(Mark("point", pk.wavenumber_cm1, pk.intensity, label="" if kind in seen else kind, role="event",
+                          style=Style(colour=PALETTE[6] if kind == "peaks" else PALETTE[3],
+                                      marker="v" if kind == "peaks" else "x", marker_size=5.0)))
+        seen.add(kind)
         items.append(Mark("text", pk.wavenumber_cm1, pk.intensity, label=f"{pk.wavenumber_cm1:.0f}",
                           style=Style(colour=PALETTE[0])))
     limits = None if max_cm1 is not None else _spectrum_limits(w, y, getattr(result, "highest_significant_peak_cm1", None))

@@ -606,6 +606,14 @@ def _sampling_numbers(series: Any) -> dict[str, Any]:
         return out
     dt = float(np.median(np.diff(series.time_ps)))
     name = series.label
+    corr = _optional("phasewake.core.correlation")
+    if corr is not None and hasattr(corr, "judge_estimators"):
+        try:  # the estimators of g compared (an oscillating coordinate closes Sokal's window early)
+            est = corr.judge_estimators(corr.analyse_series(q, dt_ps=dt, unit=series.unit), name=name)
+            if est is not None:
+                out["verdicts"].append(est)
+        except PhasewakeError as exc:
+            out["estimators_error"] = str(exc)
     try:
         out["running"] = samp.running_average(q, dt_ps=dt, unit=series.unit)
     except PhasewakeError as exc:

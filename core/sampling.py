@@ -548,13 +548,14 @@ class RunningAverage:
 def running_average(x: Any, *, dt_ps: float, n_points: int = 200, g: float | None = None, unit: str = "") -> RunningAverage:
     """Running mean over prefixes x[:k] with standard error sqrt(var_k g / k).
 
-    g is the Sokal statistical inefficiency of the whole series unless given (so the band is a guide, not
-    an exact error for short prefixes).
+    g is the statistical inefficiency of the whole series by the automatic estimator (Sokal, Geyer on an
+    oscillating autocorrelation, the largest when estimators disagree; correlation.auto_estimate) unless
+    given (so the band is a guide, not an exact error for short prefixes).
     """
     a = np.asarray(x, dtype=np.float64)
     if a.ndim != 1 or a.size < 4:
         raise TooShortError("a running average", have=int(a.size), need=4)
-    gg = float(g) if g is not None else (statistical_inefficiency(a) if np.ptp(a) > 0 else 1.0)
+    gg = float(g) if g is not None else (statistical_inefficiency(a, method="auto") if np.ptp(a) > 0 else 1.0)
     ks = np.unique(np.round(np.geomspace(2, a.size, min(n_points, a.size - 1))).astype(int))
     c1 = np.cumsum(a)
     c2 = np.cumsum((a - a.mean()) ** 2)

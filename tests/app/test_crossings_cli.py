@@ -140,3 +140,21 @@ def test_kappa_window_and_confidence_options(capsys):
     assert b["rate_ab"]["ci_low_per_ps"] < a["rate_ab"]["ci_low_per_ps"]
     assert b["rate_ab"]["ci_high_per_ps"] > a["rate_ab"]["ci_high_per_ps"]
     assert b["rate_ab"]["rate_per_ps"] == pytest.approx(a["rate_ab"]["rate_per_ps"])
+
+
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm"
+
+
+@pytest.mark.parametrize("name,why", [("tip3p_rigid_nve_verlet", "constant"),
+                                      ("tip3p_flexible_frames_1fs", "stiff bond")])
+def test_water_bond_gets_no_states_one_line_exit_2(name, why, capsys):
+    # water made with OpenMM (tests/data/engines): an O-H bond of rigid water is constant to round-off (the
+    # issue: "rates" of 135/ps), of flexible water a vibration whose turning points looked like two states
+    folder = ENGINES / name
+    if not (folder / "frames.h5md").exists():
+        pytest.skip("engine runs not generated")
+    rc = main(["crossings", str(folder / "frames.h5md"), "--top", str(folder / "start.pdb"), "-c", COORD,
+               "--no-cache"])
+    err = capsys.readouterr().err
+    assert rc == 2 and len(err.strip().splitlines()) == 1
+    assert why in err

@@ -199,3 +199,31 @@ def test_vacf_on_water_frames_100_fs_apart_is_unreliable_and_compared_with_msd(c
     assert gk["reliable"] is False and gk["decay_frames"] < 2
     kinds = {v["kind"]: v["level"] for v in out["transport"]["verdicts"]}
     assert kinds["transport.vacf_resolution"] == "problem" and kinds["transport.gk_msd_agreement"] == "caution"
+
+
+def test_oscillating_oh_distance_estimators_disagree_and_the_largest_is_used(capsys):
+    # the O-H distance of flexible TIP3P made with OpenMM, frames every 1 fs (tests/data/engines): Sokal's
+    # window closes on the first trough (g = 1); Geyer's initial sequence does not (the issue: g = 1 against
+    # 2.7-4.7). The reference here is the estimators themselves, as emcee's Sokal window also gives ~1.
+    import emcee
+
+    folder = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm" / "tip3p_flexible_frames_1fs"
+    if not (folder / "frames.h5md").exists():
+        pytest.skip("engine runs not generated")
+    rc = main(["memory", str(folder / "frames.h5md"), "--top", str(folder / "start.pdb"), "-c", "distance(0, 1)",
+               "--no-cache", "--json"])
+    s = _json(capsys)["series"][0]
+    assert rc == 1
+    assert s["oscillating"] is True and s["estimators_disagree"] is True
+    assert s["statistical_inefficiency_g"] == pytest.approx(max(e["g"] for e in s["estimates"].values()))
+    assert s["estimates"]["sokal"]["g"] < 1.5 < s["statistical_inefficiency_g"]
+    kinds = {v["kind"]: v["level"] for v in s["verdicts"]}
+    assert kinds["sampling.estimator_agreement"] == "caution"
+    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.progress import result_of  # noqa: F401  (imported for parity with other tests)
+    from phasewake.core.readers import open_run
+
+    run = open_run([folder / "frames.h5md"], topology=folder / "start.pdb")
+    q = np.asarray(result_of(compute_coordinates(run, ["distance(0, 1)"]))[0].values, float)
+    # emcee's Sokal window (c = 5) on the same series: the low value the automatic rule does not trust
+    assert float(emcee.autocorr.integrated_time(q, c=5, quiet=True)[0]) < 1.5

@@ -127,3 +127,19 @@ def test_flexible_water_bond_gets_no_states():
     # given states, the user's choice is analysed (the check is on suggesting states only)
     res = result_of(crossings_of_runs(run, "distance(0, 1)", states=(0.090, 0.102)))
     assert res.n_samples == run.n_frames
+
+
+@pytest.mark.skipif(not (SAMPLES / "dimer_nve.h5md").exists(), reason="sample runs not generated")
+def test_report_and_window_use_the_same_choice_with_its_reason():
+    from phasewake.core.coordinates import default_coordinates
+    from phasewake.core.readers import open_run
+    from phasewake.core.report import _report_coordinate
+
+    run = open_run([SAMPLES / "dimer_nve.h5md"])
+    spec, reason = _report_coordinate(run, None)
+    assert spec == "distance(0, 1)" and reason.startswith("chosen automatically")
+    assert default_coordinates(run) == [spec]  # coords, memory and the window call the same chooser
+    assert _report_coordinate(run, "angle(0, 1, 2)") == ("angle(0, 1, 2)", "")  # a given one has no reason
+    water = _engine_run("tip3p_rigid_nve_verlet")
+    spec, reason = _report_coordinate(water, None)
+    assert spec is None and "no obvious reaction coordinate" in reason
