@@ -739,3 +739,15 @@ def test_fuzz_damaged_lammps_log(tmp_path, edits):
     except PhasewakeError:
         return
     assert len(run.energies) >= 1
+
+
+def test_md_log_and_edr_of_an_appended_restart():
+    # real output of gmx mdrun -cpi (append) (tests/data/engines_energy/README.md): the log's step-60 header
+    # before the restart has no energies; the restart prints step 60 again with them
+    d = DATA.parent / "engines_energy" / "gromacs_append_restart"
+    g = open_run([d / "md.log"])
+    np.testing.assert_allclose(g.energies.time_ps, np.arange(7) * 0.02, atol=1e-12)
+    assert g.energies.series["Potential"].values[3] == pytest.approx(-6.53323e3)  # printed after the restart
+    assert not any("repeated" in w for w in g.warnings)
+    e = open_run([d / "md.edr"])
+    np.testing.assert_allclose(e.energies.time_ps, np.arange(13) * 0.01, atol=1e-12)
