@@ -11,7 +11,10 @@ Engines restart from a checkpoint and write the rest of the run to a new file (G
   dropped;
 - gaps (a later part starting more than 1.5 typical frame spacings after the earlier one's last kept
   frame) are kept as they are and reported;
-- parts with different atom counts are an error naming both files.
+- parts with different atom counts are an error naming both files;
+- parts whose clocks all restart (two parts starting at the same time: OpenMM reporters start each file
+  at the report interval) are joined in the order of their names, each continuing the previous one's
+  time, and said so.
 
 What was joined, dropped and left open is in ``run.metadata.extra["parts"]``, ``["overlaps"]`` and
 ``["gaps"]`` (lines a user reads, with their times) and in the run's warnings.
@@ -146,6 +149,11 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
                 f"parts of one run must have the same atoms: {first.paths[0].name} has {first.n_atoms}, "
                 f"{r.paths[0].name} has {r.n_atoms}", path=r.paths[0])
     numbered = any(r.metadata.extra.get("time_from") == "frame index" for r in runs)
+    # parts whose clocks all restart (OpenMM reporters start each file at the report interval): their
+    # times cannot order them; they follow their names and each continues the previous part's clock
+    starts = [float(r.time_ps[0]) for r in runs]
+    restarted = not numbered and len(set(starts)) < len(starts)
+    numbered = numbered or restarted
     if numbered:
         order = sorted(runs, key=lambda r: natural_key(r.paths[0]))
     else:
@@ -171,7 +179,17 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
                             f"{dropped.size} frame(s) of {r.paths[0].name} ({_at(float(dropped[0]), clock)} to "
                             f"{_at(float(dropped[-1]), clock)}); the later part's frames are kept")
     pieces = [np.asarray(r.time_ps, dtype=np.float64)[:k] for r, k in zip(order, keep)]
-    if numbered:
+    if restarted:
+        shifted = [pieces[0]]
+        for p in pieces[1:]:
+            step = float(np.median(np.diff(p))) if p.size > 1 else float(np.median(np.diff(shifted[-1])))
+            shifted.append(p - p[0] + shifted[-1][-1] + step)
+        time = np.concatenate(shifted)
+        warnings.append(f"the parts start at the same time ({_at(min(starts), clock)}): each file restarts the "
+                        "clock (as OpenMM reporters do), so they are joined in the order of their file names "
+                        f"({', '.join(r.paths[0].name for r in order)}), each continuing the previous one's "
+                        "time; check that order")
+    elif numbered:
         time = np.arange(sum(keep), dtype=np.float64)
         warnings.append("the parts hold no time axis: they are joined in the order of their file names "
                         f"({', '.join(r.paths[0].name for r in order)})")

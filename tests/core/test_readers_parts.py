@@ -184,3 +184,20 @@ def test_a_dump_and_an_xtc_are_not_parts_of_one_run(tmp_path, whole):
     dump = Path(__file__).resolve().parents[1] / "data" / "lammps_small" / "tri.lammpstrj"
     with pytest.raises(InputError, match="mix LAMMPS dumps"):
         open_run([full, dump, pdb])
+
+
+def test_parts_whose_clocks_restart_follow_their_names(tmp_path, whole):
+    # OpenMM reporters start each new file's time at the report interval (ENGINES.md, OpenMM pitfall 5):
+    # two parts both starting at t = 0.5 ps are joined by name, the second continuing the first's clock.
+    xyz, pdb, _ = whole
+    a = tmp_path / "run1.xtc"
+    b = tmp_path / "run2.xtc"
+    for path, rows in ((a, range(0, 10)), (b, range(10, 20))):
+        with contextlib.redirect_stdout(io.StringIO()), md.formats.XTCTrajectoryFile(str(path), "w") as f:
+            idx = np.asarray(list(rows))
+            f.write(xyz[idx], time=((np.arange(idx.size) + 1) * DT).astype(np.float32), step=(np.arange(idx.size) + 1) * 250)
+    run = open_run([b, a, pdb])
+    assert run.n_frames == 20
+    np.testing.assert_allclose(run.time_ps, (np.arange(20) + 1) * DT, atol=1e-5)
+    np.testing.assert_array_equal(_positions(run), xyz[:20])
+    assert any("each file restarts the clock" in w for w in run.warnings)
