@@ -181,9 +181,9 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
     pieces = [np.asarray(r.time_ps, dtype=np.float64)[:k] for r, k in zip(order, keep)]
     if restarted:
         shifted = [pieces[0]]
-        for p in pieces[1:]:
-            step = float(np.median(np.diff(p))) if p.size > 1 else float(np.median(np.diff(shifted[-1])))
-            shifted.append(p - p[0] + shifted[-1][-1] + step)
+        for piece in pieces[1:]:
+            step = float(np.median(np.diff(piece))) if piece.size > 1 else float(np.median(np.diff(shifted[-1])))
+            shifted.append(piece - piece[0] + shifted[-1][-1] + step)
         time = np.concatenate(shifted)
         warnings.append(f"the parts start at the same time ({_at(min(starts), clock)}): each file restarts the "
                         "clock (as OpenMM reporters do), so they are joined in the order of their file names "
@@ -195,7 +195,7 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
                         f"({', '.join(r.paths[0].name for r in order)})")
     else:
         time = np.concatenate(pieces)
-        spacing = [float(np.median(np.diff(p))) for p in pieces if p.size > 1]
+        spacing = [float(np.median(np.diff(piece))) for piece in pieces if piece.size > 1]
         typical = float(np.median(spacing)) if spacing else None
         ends = [(r, p) for r, p in zip(order, pieces) if p.size]
         for (ra, pa), (rb, pb) in zip(ends, ends[1:]):
