@@ -137,13 +137,14 @@ def atomic_path(path: str | Path, *, suffix: str | None = None) -> Iterator[Path
             raise IsADirectoryError(errno.EISDIR, "is a folder", str(target))
         folder.mkdir(parents=True, exist_ok=True)
         sweep_stale(folder)
-        while True:
+        for attempt in range(100):  # 48 random bits: a clash is already unlikely once
             tmp = folder / temp_name(target.name)
             try:
                 fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0), 0o666)
                 break
             except FileExistsError:
-                continue
+                if attempt == 99:
+                    raise
         os.close(fd)
     except OSError as exc:
         raise _output_error(target, exc) from None
