@@ -98,6 +98,10 @@ class TemperatureAudit:
     canonical_note: str
     time_ps: np.ndarray  # shape (n,), for figures
     temperature_K: np.ndarray  # shape (n,)
+    split: dict[str, Any] | None = None  # hottest against coldest group (tm.largest_split)
+    groups_left_out: tuple[str, ...] = ()  # per-atom groups not judged (they cut through rigid molecules)
+    assumption: dict[str, Any] | None = None  # the other plausible constraint count and its temperature
+    half_step: str = ""  # how half-step velocities were handled, in words ("" when they are not)
 
 
 @dataclass(frozen=True)
@@ -131,11 +135,26 @@ class AuditResult:
     notes: tuple[str, ...]
     heuristic_note: str = HEURISTIC_NOTE
     settings: dict[str, Any] = field(default_factory=dict)
+    ensemble_source: str = ""  # where the ensemble came from, in words (files, stated, inferred + evidence)
+    ensemble_origin: str = ""  # "files", "stated", "inferred" or "unknown"
 
     @property
     def level(self) -> Level:
         """Worst verdict level: ok, caution or problem."""
         return worst([v.level for v in self.verdicts])
+
+    @property
+    def checked(self) -> bool:
+        """True when at least one check judged the run (ok, caution or problem); False when every check
+        said 'not checked' or only informs."""
+        return any(v.level in ("ok", "caution", "problem") for v in self.verdicts)
+
+    @property
+    def overall(self) -> str:
+        """The overall verdict in words: ok, caution, problem, or 'not checked' when nothing was."""
+        if not self.checked:
+            return "not checked"
+        return self.level
 
 
 def _skipped(kind: str, title: str, reason: str) -> Verdict:
@@ -151,15 +170,206 @@ def _src(kind: str) -> str:
     return THRESHOLDS[kind].source
 
 
-def _is_thermostatted(run: Run) -> tuple[bool, str]:
+@dataclass(frozen=True)
+class EnsembleDecision:
+    """Which ensemble the audit judges the run in, and where that came from."""
+
+    label: str  # "NVE", "NVT", "NPT", "thermostatted", "unknown"
+    thermostatted: bool
+    origin: str  # "files", "stated", "inferred", "unknown"
+    source: str  # in words: "md.mdp", "you (--ensemble)", "inferred: sigma_E/sigma_K = 1.02, ..."
+    evidence: dict[str, Any] = field(default_factory=dict)
+
+    def words(self) -> str:
+        return f"{self.label} ({self.source})"
+
+
+_USER = ("user",)
+
+
+def _is_user(src: str | None) -> bool:
+    return (src or "").strip().lower().startswith(_USER)
+
+
+def _thermostat_evidence_from_table(table: EnergyTable | None) -> tuple[bool | None, str, dict[str, Any]]:
+    """(thermostatted?, evidence in words, numbers) from the energy table alone; None when it cannot say.
+
+    A bath-heat series, or a conserved quantity that differs from the total energy, means a thermostat.
+    Otherwise sigma_E/sigma_K (E detrended): at or above the ``ensemble`` caution threshold, with no drift
+    pattern (the fitted line changes by less than its ``problem`` value in sigma_E over the run and the
+    frame-to-frame noise does not grow), E fluctuates like K: the signature of a thermostat; well below it
+    E is conserved: the signature of NVE.
+    """
+    if table is None or len(table) < 3:
+        return None, "", {}
+    thr = THRESHOLDS["ensemble"]
+
+    def vals(role: str) -> np.ndarray | None:
+        ser = table.by_role(role)
+        if ser is None or ser.unit.replace(" ", "") not in ("kJ/mol", "kJmol-1", "kJ/mole"):
+            return None
+        return np.asarray(ser.values, dtype=np.float64)
+
+    heat, con, tot = vals("bath_heat"), vals("conserved"), vals("total")
+    pot, kin = vals("potential"), vals("kinetic")
+    if tot is None and pot is not None and kin is not None:
+        tot = pot + kin
+    if heat is not None and np.any(np.isfinite(heat)) and float(np.nanmax(np.abs(heat))) > 0:
+        return True, "a bath-heat series is present (energy exchanged with a thermostat)", {}
+    if con is not None and tot is not None:
+        d = con - tot
+        ok = np.isfinite(d)
+        scale = float(np.nanmax(np.abs(tot[ok]))) if ok.any() else 0.0
+        if ok.sum() >= 3 and float(np.ptp(d[ok])) > 1e-6 * scale + 1e-3:
+            return True, ("a conserved quantity differing from the total energy is present (a thermostat's "
+                          "energy is in it)"), {"conserved_minus_total_range_kJ_per_mol": float(np.ptp(d[ok]))}
+    if tot is None or kin is None:
+        return None, "", {}
+    t = np.asarray(table.time_ps, dtype=np.float64)
+    ok = np.isfinite(tot) & np.isfinite(kin) & np.isfinite(t)
+    if ok.sum() < 20:
+        return None, "", {}
+    tt, ee, kk = t[ok], tot[ok], kin[ok]
+    coef = np.polyfit(tt - tt.mean(), ee, 1)
+    resid = ee - np.polyval(coef, tt - tt.mean())
+    s_e, s_k = float(resid.std()), float(kk.std())
+    if not s_k > 0:
+        return None, "", {}
+    ratio = s_e / s_k
+    line_change = abs(float(coef[0])) * float(tt[-1] - tt[0])
+    d = np.diff(ee)
+    tenth = d.size // 10
+    growth = (float(np.sqrt(np.mean((d[-tenth:] - d.mean()) ** 2)) / max(np.sqrt(np.mean((d[:tenth] - d.mean()) ** 2)),
+                                                                          1e-300)) if tenth >= 2 else 1.0)
+    nums = {"sigma_E_over_sigma_K": ratio, "line_change_over_sigma_E": line_change / s_e if s_e > 0 else math.inf,
+            "noise_growth": growth}
+    no_drift = s_e > 0 and line_change < thr.problem * s_e and growth < THRESHOLDS["energy.runaway"].caution
+    if ratio >= thr.caution and no_drift:
+        return True, (f"sigma_E/sigma_K = {ratio:.3g} (>= {thr.caution:g}: E fluctuates like K) and no drift "
+                      f"pattern (the fitted line changes by {line_change / s_e:.2g} sigma_E over the run), the "
+                      "signature of a thermostat"), nums
+    if ratio < 0.1 * thr.caution:
+        return False, (f"sigma_E/sigma_K = {ratio:.3g} (the total energy is conserved), the signature of an "
+                       "unthermostatted run"), nums
+    return None, (f"sigma_E/sigma_K = {ratio:.3g}" + ("" if no_drift else " with a drift pattern")
+                  + ": neither signature is clear"), nums
+
+
+def decide_ensemble(run: Run, *, temperature_K: float | None = None) -> EnsembleDecision:
+    """The ensemble the audit judges ``run`` in: from the files, else stated, else inferred.
+
+    Stated: ``--ensemble`` (metadata source "user") or a thermostat temperature you gave (``temperature_K``
+    here, or metadata ``temperature_K`` from "user"), which implies a thermostatted run. Inferred: from
+    the energy table (:func:`_thermostat_evidence_from_table`), with its evidence in ``source``.
+    """
     md = run.metadata
     thermo = (md.thermostat or "").strip().lower()
     ens = (md.ensemble or "").strip().upper()
-    if thermo and thermo not in ("none", "no", "off"):
-        return True, ens or "thermostatted"
+    src = md.sources
+
+    def from_ens(origin: str, where: str) -> EnsembleDecision:
+        return EnsembleDecision(ens, ens in THERMOSTATTED_ENSEMBLES, origin, where)
+
+    if ens and _is_user(src.get("ensemble")):
+        return from_ens("stated", "stated by you (--ensemble)")
+    if thermo:
+        where = src.get("thermostat") or "the files"
+        origin = "stated" if _is_user(where) else "files"
+        where = "stated by you" if origin == "stated" else f"from {where}"
+        if thermo not in ("none", "no", "off"):
+            return EnsembleDecision(ens or "thermostatted", True, origin, f"{where}: thermostat {md.thermostat}")
+        return EnsembleDecision(ens or "NVE", ens in THERMOSTATTED_ENSEMBLES, origin, f"{where}: no thermostat")
     if ens:
-        return ens in THERMOSTATTED_ENSEMBLES, ens
-    return False, "unknown (treated as NVE)"
+        return from_ens("files", f"from {src.get('ensemble') or 'the files'}")
+    if temperature_K is not None or (md.temperature_K is not None and _is_user(src.get("temperature_K"))):
+        t_user = temperature_K if temperature_K is not None else md.temperature_K
+        return EnsembleDecision("thermostatted", True, "stated",
+                                f"implied by the thermostat temperature you gave ({t_user:g} K)")
+    verdict, why, nums = _thermostat_evidence_from_table(run.energies)
+    if verdict is True:
+        return EnsembleDecision("thermostatted", True, "inferred", f"inferred: {why}", nums)
+    if verdict is False:
+        return EnsembleDecision("NVE", False, "inferred", f"inferred: {why}", nums)
+    return EnsembleDecision("unknown", False, "unknown",
+                            "not stated in the files" + (f" ({why})" if why else "")
+                            + "; judged as NVE (state it with --ensemble)", nums)
+
+
+def _is_thermostatted(run: Run, temperature_K: float | None = None) -> tuple[bool, str]:
+    d = decide_ensemble(run, temperature_K=temperature_K)
+    return d.thermostatted, d.label
+
+
+def _other_constraints(masses_amu: np.ndarray) -> tuple[int, str] | None:
+    """The other plausible count of constraints when none is known, from the atom masses alone.
+
+    Rigid water (3 constraints per molecule) when the atoms are one oxygen (15.9-16.1 amu) and two
+    hydrogens (1.0-1.1 amu, or deuterium 2.0-2.1) per molecule; else one constraint per hydrogen (bonds to
+    hydrogen constrained, the usual setting: common practice). None without hydrogens.
+    """
+    m = np.asarray(masses_amu, dtype=np.float64)
+    if not m.size or not np.all(np.isfinite(m)):
+        return None
+    n_h = int(np.count_nonzero(((m > 0.99) & (m < 1.1)) | ((m > 2.0) & (m < 2.1))))
+    n_o = int(np.count_nonzero((m > 15.9) & (m < 16.1)))
+    if n_h == 0:
+        return None
+    if n_o and n_h == 2 * n_o and m.size == 3 * n_o:
+        return 3 * n_o, "if the water is rigid (3 constraints per molecule)"
+    return n_h, "with every bond to hydrogen constrained (one per hydrogen)"
+
+
+def _can_infer(run: Run) -> bool:
+    """Constraints can be inferred from pair distances: a topology, frames, and positions precise enough
+    (a frame source may say its positions are lossy, e.g. XTC's 0.001 nm)."""
+    if run.topology is None or run.frames is None:
+        return False
+    return not any(bool(getattr(run.frames, a, False)) for a in ("positions_lossy", "lossy_positions"))
+
+
+def _engine_dof(run: Run, table: EnergyTable | None, fp: AuditFrames | None,
+                n_com: int) -> tuple[int | None, str]:
+    """The engine's own N_dof: the metadata's count, else 2 <K> / (k_B <T>) from the file's kinetic energy
+    (or, for full-step velocities, the velocities' kinetic energy) and the file's temperature."""
+    md = run.metadata
+    if md.n_dof is not None:
+        return int(md.n_dof), md.sources.get("n_dof", "the files")
+    if table is None:
+        return None, ""
+    ft = table.by_role("temperature")
+    if ft is None:
+        return None, ""
+    tv = np.asarray(ft.values, dtype=np.float64)
+    fk = table.by_role("kinetic")
+    if fk is not None:
+        kv = np.asarray(fk.values, dtype=np.float64)
+        ok = np.isfinite(kv) & np.isfinite(tv) & (tv > 0)
+        if ok.sum() >= 1:
+            dof = 2.0 * float(kv[ok].mean()) / (en.boltzmann_kJ_per_mol_K() * float(tv[ok].mean()))
+            return int(round(dof)), (f"2 <K> / (k_B <T>) of the file's columns '{fk.name}' and '{ft.name}'")
+    if fp is not None and not _half_step(run)[0] and not (run.frames is not None and run.frames.velocities_estimated):
+        fi, ti = _align(fp.time_ps, np.asarray(table.time_ps, dtype=np.float64))
+        ok = np.isfinite(tv[ti]) & (tv[ti] > 0)
+        if ok.sum() >= 1:
+            dof = 2.0 * float(fp.kinetic_kJ_per_mol[fi][ok].mean()) / (en.boltzmann_kJ_per_mol_K()
+                                                                      * float(tv[ti][ok].mean()))
+            return int(round(dof)), (f"2 <K> / (k_B <T>) of the velocities and the file's temperature column "
+                                     f"'{ft.name}'")
+    return None, ""
+
+
+_LEAPFROG_WORDS = ("leap", "leapfrog", "leap-frog")
+
+
+def _half_step(run: Run) -> tuple[bool, str]:
+    """Whether the stored velocities are half a step off the positions, and where that came from."""
+    md = run.metadata
+    if md.velocities_half_step is not None:
+        return bool(md.velocities_half_step), md.sources.get("velocities_half_step", "the files")
+    integ = (md.integrator or "").strip().lower()
+    if any(w in integ for w in _LEAPFROG_WORDS) or integ == "md":
+        return True, f"integrator {md.integrator} ({md.sources.get('integrator', 'the files')})"
+    return False, ""
 
 
 def _align(t_frames: np.ndarray, t_table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -214,7 +424,10 @@ def audit_groups(run: Run, *, n_constraints: int | None = None,
     """The equipartition groups the audit uses: residue names (and elements when nothing is constrained,
     by ``n_constraints`` or the metadata), plus the user's ``groups``."""
     declared = n_constraints if n_constraints is not None else run.metadata.n_constraints
-    base = tm.default_groups(run.topology, run.n_atoms, by_element=(declared == 0))
+    species = run.metadata.extra.get("species")
+    base = tm.default_groups(run.topology, run.n_atoms, by_element=(declared is None or declared == 0),
+                             masses_amu=run.masses_amu,
+                             species=species if isinstance(species, list | tuple) else None)
     return {**base, **{k: np.asarray(v, dtype=np.int64) for k, v in (groups or {}).items()}}
 
 
@@ -289,11 +502,11 @@ class AuditFramesConsumer:
     @classmethod
     def for_run(cls, run: Run, *, n_constraints: int | None = None,
                 groups: Mapping[str, Sequence[int] | np.ndarray] | None = None, segment_frames: int = 256,
-                max_spectrum_segments: int | None = 64) -> AuditFramesConsumer:
+                max_spectrum_segments: int | None = 64, temperature_K: float | None = None) -> AuditFramesConsumer:
         """The consumer with the choices :func:`audit_run` makes for the same arguments."""
-        thermostatted, _ = _is_thermostatted(run)
+        thermostatted, _ = _is_thermostatted(run, temperature_K)
         return cls(run, groups=audit_groups(run, n_constraints=n_constraints, groups=groups),
-                   infer=run.topology is not None and run.frames is not None, want_speeds=thermostatted,
+                   infer=_can_infer(run), want_speeds=thermostatted,
                    want_com=_needs_com(run, thermostatted),
                    segment_frames=segment_frames, max_segments=max_spectrum_segments)
 
@@ -507,7 +720,8 @@ def audit_run(
                 "segment_frames": segment_frames, "max_spectrum_segments": max_spectrum_segments, "compare": None if compare is None else compare.name}
     path0 = run.paths[0] if run.paths else None
     md = run.metadata
-    thermostatted, ensemble = _is_thermostatted(run)
+    decision = decide_ensemble(run, temperature_K=temperature_K)
+    thermostatted, ensemble = decision.thermostatted, decision.label
     verdicts: list[Verdict] = []
     table: EnergyTable | None = run.energies if run.energies is not None and len(run.energies) else None
     has_vel = run.has_velocities
@@ -516,13 +730,11 @@ def audit_run(
         has_vel = False
         notes.append("Atom masses are unknown: nothing per atom (temperature from velocities, spectrum) was computed.")
     if table is None and not has_vel:
-        raise MissingDataError("nothing to audit: the run has neither an energy table nor velocities", path=path0)
+        notes.append("Nothing to audit: the run has neither an energy table nor velocities.")
     if require_temperature and not has_vel and (table is None or table.by_role("kinetic") is None):
         raise MissingDataError("velocities are missing (and no kinetic energy in the energy table): the kinetic "
                                "temperature needs them", path=path0)
     notes.extend(f"Reader: {w}" for w in run.warnings)
-    if ensemble.startswith("unknown"):
-        notes.append("Ensemble not stated in the files: treated as NVE (unthermostatted).")
     frames_total = float(run.frames.n_frames if (has_vel and run.frames is not None) else 0)
     cmp_total = float(compare.frames.n_frames if compare is not None and compare.has_velocities
                       and compare.frames is not None else 0)
@@ -533,12 +745,19 @@ def audit_run(
     conserved: en.ConservedSeries | None = None
     scan: en.TableScan | None = None  # one blocked pass over the table's columns, when all are finite
     sampling: tuple[en.SeriesSampling, ...] = ()
+    energy_reason = "the run has no energy table"
     if table is not None:
-        conserved = en.select_conserved(table, thermostatted=thermostatted)
+        try:
+            conserved = en.select_conserved(table, thermostatted=thermostatted)
+        except MissingDataError as exc:
+            energy_reason = "needs " + exc.problem.partition("need ")[2] if "need " in exc.problem else exc.problem
+    if table is not None and conserved is not None:
         scan = en.scan_energy_table(conserved.time_ps, conserved.values_kJ_per_mol, table)
         sampling = en.series_sampling(table, scan=scan)
         if not scan.finite:
             scan = None
+    elif table is not None:
+        sampling = en.series_sampling(table)
 
     def table_stats(name: str) -> tuple[float, float, float] | None:
         """Mean, population std and g of a table series from the scan (None: take the masked route)."""
@@ -551,7 +770,10 @@ def audit_run(
         return float(scan.mean[scan.index(key)]), scan.std(key), g
 
     # ---- constraints and centre of mass ---------------------------------------------------------
-    infer = run.topology is not None and run.frames is not None
+    infer = _can_infer(run)
+    if run.topology is not None and run.frames is not None and not infer:
+        notes.append("The positions are stored with too little precision to tell rigid bonds from flexible "
+                     "ones (a lossy format): constraints are not inferred from them.")
     fp: AuditFrames | None = None
     inference: tm.ConstraintInference | None = None
     if has_vel:
@@ -586,7 +808,9 @@ def audit_run(
         con_src = (f"inferred from rigid pair distances ({inference.n_rigid_pairs} rigid pairs in "
                    f"{inference.n_rigid_clusters} rigid groups, relative spread < {inference.rigid_relative_std:g})")
     else:
-        n_con, con_src = 0, "none known (no metadata, no topology to infer them from): 0 assumed"
+        n_con, con_src = 0, ("none known (no metadata, and no topology or precise positions to infer them from): "
+                             "0 assumed")
+    con_assumed = n_constraints is None and md.n_constraints is None and inference is None
     if inference is not None and n_con != inference.n_constraints and n_constraints is None:
         notes.append(f"{con_src} gives {n_con} constraints; the pair distances suggest {inference.n_constraints}.")
 
@@ -605,6 +829,13 @@ def audit_run(
     except AnalysisError:
         n_dof = None
         notes.append("The degrees of freedom could not be counted (too many constraints for the atoms).")
+    if n_constraints is None and run.n_atoms and (md.n_dof is not None or con_assumed):
+        engine_dof, engine_src = _engine_dof(run, table, fp, n_com)
+        if engine_dof is not None and 0 < engine_dof <= 3 * run.n_atoms:
+            n_dof = int(engine_dof)
+            n_con = max(0, 3 * run.n_atoms - n_com - n_dof)
+            con_src = f"from the engine's own count of degrees of freedom, N_dof = {n_dof} ({engine_src})"
+            con_assumed = False
 
     target_T = temperature_K if temperature_K is not None else md.temperature_K
 
@@ -612,19 +843,40 @@ def audit_run(
     temp: TemperatureAudit | None = None
     file_kin = table.by_role("kinetic") if table is not None else None
     file_T = table.by_role("temperature") if table is not None else None
+    temp_verdicts: list[Verdict] = []
+    half, half_src = _half_step(run) if fp is not None else (False, "")
+    half_words = ""
     if n_dof is not None and (fp is not None or file_kin is not None):
         t_vel = tm.kinetic_temperature(fp.kinetic_kJ_per_mol, n_dof) if fp is not None else None
+        t_vel_time = fp.time_ps if fp is not None else None
+        if half and fp is not None and t_vel is not None and file_kin is None:
+            spacing = float(np.median(np.diff(fp.time_ps))) if fp.time_ps.size > 1 else math.nan
+            step = timestep_ps if timestep_ps is not None else md.timestep_ps
+            if step and fp.time_ps.size > 2 and abs(spacing - step) <= 1e-3 * step:
+                # every step written: KE(n) = mean of 1/2 m v^2 of frames n and n+1 (ENGINES.md, GROMACS)
+                k_full = 0.5 * (fp.kinetic_kJ_per_mol[:-1] + fp.kinetic_kJ_per_mol[1:])
+                t_vel = tm.kinetic_temperature(k_full, n_dof)
+                t_vel_time = fp.time_ps[:-1]
+                half_words = (f"velocities half a step off the positions ({half_src}), averaged to full steps: "
+                              "KE(n) = mean of 1/2 m v^2 of frames n and n+1")
+            else:
+                half_words = (f"velocities half a step off the positions ({half_src}) used as they are: frames "
+                              "are not written every step, so they cannot be averaged to full steps")
         t_filek = None
         if file_kin is not None and table is not None:
             t_filek = tm.kinetic_temperature(np.asarray(file_kin.values, dtype=np.float64), n_dof)
         if t_filek is not None and table is not None:
             t_series, t_time = t_filek, np.asarray(table.time_ps, dtype=np.float64)
             ksrc = (f"the file's kinetic energy (column '{file_kin.name}'), preferred over the velocities: "  # type: ignore[union-attr]
-                    "leapfrog-type integrators store velocities half a step off")
+                    + (f"they are half a step off the positions ({half_src})" if half else
+                       "leapfrog-type integrators store velocities half a step off"))
+            if half:
+                half_words = f"velocities half a step off the positions ({half_src}): the file's kinetic energy is shown"
         else:
-            assert fp is not None and t_vel is not None
-            t_series, t_time = t_vel, fp.time_ps
-            ksrc = "velocities (1/2 m v^2 summed over atoms)"
+            assert fp is not None and t_vel is not None and t_vel_time is not None
+            t_series, t_time = t_vel, t_vel_time
+            ksrc = ("velocities (1/2 m v^2 summed over atoms)" if not half_words else
+                    f"velocities (1/2 m v^2 summed over atoms); {half_words}")
         k_stats = table_stats(file_kin.name) if t_filek is not None and file_kin is not None else None
         if k_stats is not None:
             # T = f K with f = 2 / (N_dof k_B): mean, spread and g follow from the kinetic energy's
@@ -649,8 +901,8 @@ def audit_run(
                 ok = np.isfinite(fvals) & np.isfinite(t_filek)
                 ours, theirs = t_filek[ok], fvals[ok]
             else:
-                assert fp is not None and t_vel is not None
-                fi, ti = _align(fp.time_ps, np.asarray(table.time_ps, dtype=np.float64))
+                assert fp is not None and t_vel is not None and t_vel_time is not None
+                fi, ti = _align(t_vel_time, np.asarray(table.time_ps, dtype=np.float64))
                 ok = np.isfinite(fvals[ti])
                 ours, theirs = t_vel[fi][ok], fvals[ti][ok]
             if theirs.size and float(theirs.mean()) > 0:
@@ -659,6 +911,8 @@ def audit_run(
                 implied = n_dof * float(ours.mean()) / fT_mean
         # equipartition groups
         gtemps: tuple[tm.GroupTemperature, ...] = ()
+        split: dict[str, Any] | None = None
+        left_out: tuple[str, ...] = ()
         if fp is not None and all_groups and t_vel is not None:
             gdof = tm.group_degrees_of_freedom(
                 all_groups, run.masses_amu, n_com=n_com,
@@ -666,8 +920,20 @@ def audit_run(
                 constraint_weights=None if inference is None else inference.constraint_weights,
                 n_constraints=n_con)
             names = list(all_groups)
-            gtemps = tm.group_temperatures(fp.group_kinetic_kJ_per_mol, [gdof[k] for k in names], names,
-                                           [int(all_groups[k].size) for k in names], t_vel)
+            if n_con > 0:
+                # per-atom groups (elements, species, masses) cut through rigid molecules: not judged
+                left_out = tuple(k for k in names if k.startswith(tm.PER_ATOM_PREFIXES) and k not in (groups or {}))
+            judged = [k for k in names if k not in left_out]
+            t_all = tm.kinetic_temperature(fp.kinetic_kJ_per_mol, n_dof)
+            gtemps = tm.group_temperatures(fp.group_kinetic_kJ_per_mol[:, [names.index(k) for k in judged]],
+                                           [gdof[k] for k in judged], judged,
+                                           [int(all_groups[k].size) for k in judged], t_all)
+            split = tm.largest_split(fp.group_kinetic_kJ_per_mol, [gdof[k] for k in names], names, keep=judged)
+            if split is not None:
+                split["mean_K"] = float(np.mean(t_all))
+            if left_out:
+                notes.append("Equipartition: the per-atom groups (" + ", ".join(left_out[:6])
+                             + ") are not judged: they cut through rigid molecules.")
         # canonical checks
         kdist = None
         maxw: list[tm.DistributionCheck] = []
@@ -719,8 +985,41 @@ def audit_run(
             file_temperature_mean_K=fT_mean, file_mismatch_relative=mismatch, implied_file_dof=implied,
             velocities_estimated=bool(run.frames is not None and run.frames.velocities_estimated),
             constraint_inference=inference, groups=gtemps, kinetic_distribution=kdist, maxwell=tuple(maxw),
-            canonical_note=cnote, time_ps=t_time, temperature_K=t_series,
+            canonical_note=cnote, time_ps=t_time, temperature_K=t_series, split=split, groups_left_out=left_out,
+            half_step=half_words,
         )
+        if con_assumed and t_filek is None:
+            alt = _other_constraints(run.masses_amu)
+            if alt is not None:
+                alt_n, alt_words = alt
+                try:
+                    dof_alt = tm.degrees_of_freedom(run.n_atoms, n_constraints=n_con + alt_n, n_com=n_com)
+                except AnalysisError:
+                    dof_alt = 0
+                if dof_alt > 0 and math.isfinite(mean_T):
+                    t_alt = mean_T * n_dof / dof_alt
+                    rel = abs(t_alt - mean_T) / mean_T if mean_T else 0.0
+                    temp = replace(temp, assumption={"assumed_constraints": n_con, "other_constraints": n_con + alt_n,
+                                                     "other_assumption": alt_words, "other_mean_K": t_alt,
+                                                     "relative_change": rel})
+                    v = judge("temperature.assumption", rel, title="Temperature rests on an assumption", unit="",
+                              message=f"T = {mean_T:.4g} K assumes {n_con} constraints (none stated in the files, "
+                                      f"and none could be inferred: no topology or precise positions); "
+                                      f"{alt_words} ({n_con + alt_n} constraints) it would be {t_alt:.4g} K "
+                                      f"({rel:.1%} apart; {_src('temperature.assumption')})",
+                              advice=_advice("temperature.assumption"))
+                    if v.level == "problem":
+                        v = replace(v, level="caution")  # an unknown, not a wrong run
+                    temp_verdicts.append(v if v.level != "ok" else replace(v, advice=""))
+        if half_words and t_filek is None and "as they are" in half_words:
+            temp_verdicts.append(judge("temperature.half_step", 1.0, title="Half-step velocities", unit="",
+                                       message=f"T = {mean_T:.4g} K from {half_words}; the engine's kinetic "
+                                               "energy at full steps differs from it "
+                                               f"({_src('temperature.half_step')})",
+                                       advice=_advice("temperature.half_step")))
+        elif half_words:
+            temp_verdicts.append(Verdict("temperature.half_step", "info", "Half-step velocities", None, "",
+                                         half_words, threshold=THRESHOLDS["temperature.half_step"]))
         if temp.velocities_estimated and t_filek is None:
             notes.append("Velocities were estimated from positions (central differences): the kinetic "
                          "temperature from them is biased low when frames are far apart.")
@@ -834,8 +1133,16 @@ def audit_run(
             except AnalysisError as exc:
                 notes.append(f"Time-step scaling not checked: {exc}")
 
+    pre = [_ensemble_verdict(decision, eaudit)]
+    joins = list(table.joins) if table is not None else []
+    frame_joins = list(md.extra.get("frame_joins") or [])
+    after_energy = []
+    if joins or frame_joins:
+        after_energy.append(_restarts_verdict(joins, frame_joins, eaudit))
     verdicts = _verdicts(eaudit, temp, tsa, scaling, compared, thermostatted, has_vel, conserved, dt,
-                         n_atoms_known=bool(run.n_atoms))
+                         n_atoms_known=bool(run.n_atoms), energy_reason=energy_reason, pre=pre,
+                         after_energy=after_energy, after_temperature=temp_verdicts,
+                         restarts_found=bool(joins))
     if not run.n_atoms and temp is None:
         verdicts = [replace(v, message="not checked: the files hold no atoms (energy table only), so the degrees "
                             "of freedom cannot be counted") if v.kind == "temperature.file_mismatch" else v
@@ -844,7 +1151,64 @@ def audit_run(
     return AuditResult(run_name=run.name, paths=tuple(str(p) for p in run.paths), ensemble=ensemble,
                        thermostatted=thermostatted, energy=eaudit, temperature=temp, timestep=tsa,
                        scaling=scaling, compared=compared, verdicts=tuple(verdicts), notes=tuple(notes),
-                       settings=settings)
+                       settings=settings, ensemble_source=decision.source, ensemble_origin=decision.origin)
+
+
+def _ensemble_verdict(decision: EnsembleDecision, ea: EnergyAudit | None) -> Verdict:
+    """The ensemble the run is judged in and where it came from (information, not a verdict)."""
+    msg = f"{decision.label}: {decision.source}"
+    if decision.thermostatted:
+        if ea is not None and ea.expected_conserved:
+            msg += f"; conservation is judged on the {ea.series_label}"
+        else:
+            msg += ("; conservation is not judged on the total energy (a thermostat exchanges energy with the "
+                    "run): it needs the thermostat's energy or the engine's conserved quantity")
+    elif decision.origin in ("inferred", "unknown"):
+        msg += "; conservation is judged on the total energy"
+    return Verdict("ensemble", "info", "Ensemble", None, "", msg,
+                   details={"origin": decision.origin, "thermostatted": decision.thermostatted,
+                            **decision.evidence})
+
+
+def _restarts_verdict(joins: Sequence[Any], frame_joins: Sequence[Any], ea: EnergyAudit | None) -> Verdict:
+    """Restarts glued into the files: where, what was dropped, and the energy step across each join."""
+    parts: list[str] = []
+    steps: list[dict[str, Any]] = []
+    t = e = None
+    s_rob = med = math.nan
+    if ea is not None:
+        t = np.asarray(ea.time_ps, dtype=np.float64)
+        e = np.asarray(ea.values_kJ_per_mol, dtype=np.float64)
+        d = np.diff(e[np.isfinite(e)])
+        if d.size >= 5:
+            med = float(np.median(d))
+            s_rob = 1.4826 * float(np.median(np.abs(d - med)))
+    for j in joins:
+        text = (f"energy table, t = {j.time_ps:.6g} ps: time went back from {j.back_from_ps:.6g} ps "
+                f"({j.n_dropped} earlier row(s) dropped; {j.where})")
+        step = None
+        if t is not None and e is not None and t.size > 1:
+            i = int(np.searchsorted(t, j.time_ps - 1e-9 * max(1.0, abs(j.time_ps))))
+            if 0 < i < t.size and np.isfinite(e[i]) and np.isfinite(e[i - 1]):
+                step = float(e[i] - e[i - 1])
+                text += f"; energy step across the join {step:+.4g} kJ/mol"
+                if s_rob > 0:
+                    text += f" ({abs(step - med) / s_rob:.1f} robust sigma of the frame-to-frame steps)"
+        steps.append({"time_ps": j.time_ps, "back_from_ps": j.back_from_ps, "n_dropped": j.n_dropped,
+                      "energy_step_kJ_per_mol": step, "where": j.where})
+        parts.append(text)
+    for j in frame_joins:
+        parts.append(f"trajectory, t = {j.time_ps:.6g} ps: time went back from {j.back_from_ps:.6g} ps "
+                     f"({j.n_dropped} earlier frame(s) dropped; {j.where})")
+        steps.append({"time_ps": j.time_ps, "back_from_ps": j.back_from_ps, "n_dropped": j.n_dropped,
+                      "energy_step_kJ_per_mol": None, "where": j.where, "trajectory": True})
+    n = len(joins) + len(frame_joins)
+    v = judge("time.restarts", float(n), title="Restarts glued into one file", unit="joins",
+              message=f"{n} restart(s) glued in; the later segment is kept and every check runs on it: "
+                      + "; ".join(parts[:8]) + (f"; ... {len(parts) - 8} more" if len(parts) > 8 else "")
+                      + f" ({_src('time.restarts')})",
+              advice=_advice("time.restarts"), details={"joins": steps})
+    return v
 
 
 def _nested(work: Work[AuditResult], done0: float, total: float) -> Work[AuditResult]:
@@ -866,22 +1230,37 @@ def _fmt(x: float | None, unit: str = "", digits: int = 4) -> str:
 def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: TimestepAudit | None,
               scaling: ts.ScalingResult | None, compared: AuditResult | None, thermostatted: bool,
               has_vel: bool, conserved: en.ConservedSeries | None, dt: float | None,
-              n_atoms_known: bool = True) -> list[Verdict]:
-    out: list[Verdict] = []
+              n_atoms_known: bool = True, *, energy_reason: str = "the run has no energy table",
+              pre: Sequence[Verdict] = (), after_energy: Sequence[Verdict] = (),
+              after_temperature: Sequence[Verdict] = (), restarts_found: bool = False) -> list[Verdict]:
+    out: list[Verdict] = list(pre)
+    min_rows = THRESHOLDS["audit.min_rows"]
+    few = int(min_rows.caution)  # drift, fluctuations, time gaps
+    few_jumps = int(min_rows.problem)  # energy jumps
     # energy
     if ea is None:
-        for kind, title in (("energy.drift", "Energy drift"), ("energy.fluctuation_ratio", "Energy fluctuation ratio")):
-            out.append(_skipped(kind, title, "the run has no energy table"))
+        for kind, title in (("energy.drift", "Energy drift"), ("energy.fluctuation_ratio", "Energy fluctuation ratio"),
+                            ("energy.jumps", "Energy jumps")):
+            out.append(_skipped(kind, title, energy_reason))
     else:
         ev = ea.events
-        out.append(judge("energy.nonfinite", float(ev.n_nonfinite), title="Non-finite energies", unit="rows",
-                         message=f"{ev.n_nonfinite} rows of {ea.series_label} are NaN or infinite "
-                                 f"(threshold: any; {_src('energy.nonfinite')})",
-                         advice=_advice("energy.nonfinite") if ev.n_nonfinite else "",
-                         details={"first_time_ps": next((e.time_ps for e in ev.events if e.kind == "nonfinite"), None)}))
+        n_rows = int(np.asarray(ea.time_ps).size)
+        v = judge("energy.nonfinite", float(ev.n_nonfinite), title="Non-finite energies", unit="rows",
+                  message=f"{ev.n_nonfinite} rows of {ea.series_label} are NaN or infinite "
+                          f"(threshold: any; {_src('energy.nonfinite')})",
+                  advice=_advice("energy.nonfinite") if ev.n_nonfinite else "",
+                  details={"first_time_ps": next((e.time_ps for e in ev.events if e.kind == "nonfinite"), None)})
+        if v.level == "ok" and n_rows < few:
+            # a finite value in one or two rows judges nothing about the run
+            v = replace(v, level="info", message=v.message + f"; only {n_rows} row(s): this says nothing of the run")
+        out.append(v)
+        too_few = f"too few rows ({n_rows}; needs {few}, {_src('audit.min_rows')})"
         if not ea.expected_conserved:
             out.append(_skipped("energy.drift", "Energy drift", ea.reason))
             out.append(_skipped("energy.fluctuation_ratio", "Energy fluctuation ratio", ea.reason))
+        elif ea.drift is None:
+            out.append(_skipped("energy.drift", "Energy drift", too_few))
+            out.append(_skipped("energy.fluctuation_ratio", "Energy fluctuation ratio", too_few))
         else:
             d = ea.drift
             if d is not None:
@@ -919,27 +1298,40 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
                 out.append(_skipped("energy.fluctuation_ratio", "Energy fluctuation ratio",
                                     "no kinetic energy in the files or from velocities matched to the rows"))
         mj = ev.max_jump_robust_sigma
+        jump_times = [e.time_ps for e in ev.events if e.kind == "jump"]
         v = judge("energy.jumps", mj, title="Energy jumps", unit="robust sigma",
                   message=f"largest frame-to-frame step {mj:.3g} robust sigma; {ev.n_jumps} steps above "
-                          f"{THRESHOLDS['energy.jumps'].caution:g} ({_src('energy.jumps')})",
-                  advice=_advice("energy.jumps"),
-                  details={"times_ps": [e.time_ps for e in ev.events if e.kind == "jump"]})
-        out.append(v if v.level != "ok" else replace(v, advice=""))
+                          f"{THRESHOLDS['energy.jumps'].caution:g}"
+                          + (f" at t = {', '.join(f'{x:.6g}' for x in jump_times[:5])} ps" if jump_times else "")
+                          + f" ({_src('energy.jumps')})",
+                  advice=_advice("energy.jumps"), details={"times_ps": jump_times})
+        if n_rows < few_jumps:
+            out.append(_skipped("energy.jumps", "Energy jumps",
+                                f"too few rows ({n_rows}; needs {few_jumps}, {_src('audit.min_rows')})"))
+        else:
+            out.append(v if v.level != "ok" else replace(v, advice=""))
         if ev.runaway_ratio is not None:
             v = judge("energy.runaway", ev.runaway_ratio, title="Runaway energy", unit="",
                       message=f"frame-to-frame energy noise in the last tenth is {ev.runaway_ratio:.3g} times "
                               f"that in the first tenth ({_src('energy.runaway')})",
                       advice=_advice("energy.runaway"))
             out.append(v if v.level != "ok" else replace(v, advice=""))
+        gap_times = [e.time_ps for e in ev.events if e.kind == "gap"]
         v = judge("time.gaps", float(ev.n_gaps), title="Time gaps", unit="gaps",
-                  message=f"{ev.n_gaps} spacings above 1.5 x the median spacing {_fmt(ev.median_spacing_ps, 'ps')}",
-                  advice=_advice("time.gaps"), details={"times_ps": [e.time_ps for e in ev.events if e.kind == "gap"]})
-        out.append(v if v.level != "ok" else replace(v, advice=""))
-        v = judge("time.overlaps", float(ev.n_overlaps), title="Time overlaps and reversals", unit="rows",
-                  message=f"{ev.n_overlaps} rows where time repeats or goes back",
-                  advice=_advice("time.overlaps"),
-                  details={"times_ps": [e.time_ps for e in ev.events if e.kind in ("overlap", "reversal")]})
-        out.append(v if v.level != "ok" else replace(v, advice=""))
+                  message=f"{ev.n_gaps} spacings above 1.5 x the median spacing {_fmt(ev.median_spacing_ps, 'ps')}"
+                          + (f", before t = {', '.join(f'{x:.6g}' for x in gap_times[:5])} ps" if gap_times else ""),
+                  advice=_advice("time.gaps"), details={"times_ps": gap_times})
+        if n_rows < few:
+            out.append(_skipped("time.gaps", "Time gaps", too_few))
+        else:
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+        if not (restarts_found and ev.n_overlaps == 0) and n_rows >= 2:
+            v = judge("time.overlaps", float(ev.n_overlaps), title="Time overlaps and reversals", unit="rows",
+                      message=f"{ev.n_overlaps} rows where time repeats or goes back",
+                      advice=_advice("time.overlaps"),
+                      details={"times_ps": [e.time_ps for e in ev.events if e.kind in ("overlap", "reversal")]})
+            out.append(v if v.level != "ok" else replace(v, advice=""))
+    out.extend(after_energy)
     # temperature
     if ta is None:
         out.append(_skipped("temperature.file_mismatch", "Kinetic temperature",
@@ -961,18 +1353,42 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
                       advice=_advice("temperature.file_mismatch"))
             out.append(v if v.level != "ok" else replace(v, advice=""))
         if ta.groups:
-            sig = [g for g in ta.groups if g.significant]
-            worst_g = max(sig or list(ta.groups), key=lambda g: abs(g.relative_difference))
-            measured = abs(worst_g.relative_difference) if sig else 0.0
             listing = "; ".join(f"{g.name}: {g.mean_K:.2f} +- {g.error_K:.2f} K ({g.z_score:+.1f} sigma)"
                                 for g in ta.groups[:12])
-            head = (f"largest significant relative difference {measured:.3%} ({worst_g.name})" if sig else
-                    f"no group differs significantly (largest |z| = {max(abs(g.z_score) for g in ta.groups):.1f} "
-                    "< 3)")
+            sp = ta.split
+            zthr = THRESHOLDS["temperature.equipartition_significance"]
+            if sp is not None and sp.get("mean_K"):
+                rel = abs(sp["split_K"]) / sp["mean_K"]
+                z = abs(sp["z"])
+                measured = rel if z > zthr.caution else 0.0
+                head = (f"largest split {sp['split_K']:.3g} +- {sp['error_K']:.2g} K ({rel:.2%} of {sp['mean_K']:.4g} K, "
+                        f"{z:.1f} sigma) between {sp['hot']} ({sp['hot_K']:.2f} K) and {sp['cold']} "
+                        f"({sp['cold_K']:.2f} K)")
+                if z <= zthr.caution:
+                    head += f"; not significant (below {zthr.caution:g} sigma)"
+            else:
+                sig = [g for g in ta.groups if g.significant]
+                worst_g = max(sig or list(ta.groups), key=lambda g: abs(g.relative_difference))
+                measured = abs(worst_g.relative_difference) if sig else 0.0
+                z = abs(worst_g.z_score)
+                head = (f"largest significant relative difference {measured:.3%} ({worst_g.name})" if sig else
+                        f"no group differs significantly (largest |z| = {max(abs(g.z_score) for g in ta.groups):.1f} "
+                        "< 3)")
             v = judge("temperature.equipartition", measured, title="Equipartition", unit="",
-                      message=f"{head}; groups: {listing} ({_src('temperature.equipartition')})",
-                      advice=_advice("temperature.equipartition"))
+                      message=f"{head}; groups: {listing} ({_src('temperature.equipartition')}; a split of caution "
+                              f"size at {zthr.problem:g} sigma or more is a problem, "
+                              f"{_src('temperature.equipartition_significance')})",
+                      advice=_advice("temperature.equipartition"),
+                      details={"split": sp})
+            if v.level == "caution" and z >= zthr.problem:
+                v = replace(v, level="problem")
             out.append(v if v.level != "ok" else replace(v, advice=""))
+        else:
+            out.append(_skipped("temperature.equipartition", "Equipartition",
+                                "needs velocities and at least two groups of atoms (species, elements or masses, "
+                                "residue kinds, or --group)" if ta.mean_from_velocities_K is None or not
+                                ta.groups_left_out else "the only groups (per-atom) cut through rigid molecules; "
+                                "give --group"))
         if ta.kinetic_distribution is not None:
             kd = ta.kinetic_distribution
             v = judge("temperature.kinetic_distribution", kd.p_value, title="Kinetic-energy distribution",
@@ -996,6 +1412,7 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
                 ta.canonical_note if "not applied" in ta.canonical_note else
                 "no unconstrained species with enough decorrelated speeds (needs velocities)")
             out.append(_skipped("temperature.maxwell", "Maxwell-Boltzmann speeds", reason))
+    out.extend(after_temperature)
     # time step (verdicts made in timestep.py: resolved motions only, expected fast motions from the topology)
     if tsa is None or tsa.frame_spacing_ps is None or (tsa.fastest is None and not tsa.expected):
         out.append(_skipped("timestep.fastest_period", "Time step", "no velocities: the fastest motion is unknown"
@@ -1055,6 +1472,8 @@ def audit_summary(result: AuditResult) -> dict[str, Any]:
     out (they are in the result object for figures)."""
     d = _plain(result)
     d["level"] = result.level
+    d["checked"] = result.checked
+    d["overall"] = result.overall
     if result.compared is not None and isinstance(d.get("compared"), dict):
         d["compared"]["level"] = result.compared.level
     d["units"] = {"time": "ps", "energy": "kJ/mol", "temperature": "K", "frequency": "1/ps",

@@ -481,7 +481,7 @@ def audit_item(run: Run, **settings: Any) -> PassItem:
     def consumer() -> Any:
         return AuditFramesConsumer.for_run(run, **{k: settings[k] for k in
                                                    ("n_constraints", "groups", "segment_frames",
-                                                    "max_spectrum_segments") if k in settings})
+                                                    "max_spectrum_segments", "temperature_K") if k in settings})
 
     return PassItem("audit", _with_defaults(audit_run, settings), consumer,
                     then=lambda frames: audit_run(run, frames=frames, **settings))

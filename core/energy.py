@@ -315,11 +315,19 @@ def select_conserved(table: EnergyTable, *, thermostatted: bool) -> ConservedSer
                         "thermostatted run: total energy plus the heat the thermostat removed")
         if total is not None:
             return made(total[0], total[1], total[2], False,
-                        "thermostatted run without a conserved quantity or bath heat in the files: the "
-                        "total energy is not expected to be conserved")
+                        "needs the thermostat's energy or the engine's conserved quantity: a thermostatted "
+                        "run's total energy is not expected to be conserved")
     elif total is not None:
         return made(total[0], total[1], total[2], True, "unthermostatted run: the total energy is conserved")
     names = ", ".join(f"{s.name} ({s.role})" for s in table.series.values()) or "none"
+    # no total: an energy series alone still shows jumps, non-finite rows and the time axis
+    for role in ("potential", "kinetic", "total"):
+        one = pot if role == "potential" else kin if role == "kinetic" else tot
+        if one is not None:
+            need = ("the thermostat's energy or the engine's conserved quantity" if thermostatted else
+                    "a total energy, or potential and kinetic energy")
+            return made(one[0], f"{role} energy (column '{one[1]}'; for jumps and the time axis only)",
+                        (one[1],), False, f"needs {need} (found {names})")
     raise MissingDataError(
         "no usable energy column: need a conserved or total energy, or potential and kinetic energy; "
         f"found {names}", path=src)

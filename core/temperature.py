@@ -409,26 +409,92 @@ def group_temperatures(
     return tuple(out)
 
 
-def default_groups(topology: Any, n_atoms: int, *, by_element: bool) -> dict[str, np.ndarray]:
-    """Groups by residue name (when there are several kinds) and by element (when asked).
+WATER_RESIDUES = frozenset({"HOH", "WAT", "SOL", "H2O", "TIP3", "TIP3P", "TIP4", "TIP4P", "TIP5", "T3P", "T4P", "SPC",
+                            "SPCE", "OPC", "DOD", "TP3", "TP4"})
+ION_RESIDUES = frozenset({"NA", "CL", "K", "MG", "CA", "ZN", "NA+", "CL-", "SOD", "CLA", "POT", "CES", "LI", "RB", "CS",
+                          "BR", "IOD", "F"})
+PER_ATOM_PREFIXES = ("element ", "mass ", "species ")  # groups that cut through molecules
 
-    Element groups cut through rigid molecules, where the kinetic energy is not shared out per atom
-    as 3/2 kT minus constraint halves, so the audit asks for them only when nothing is constrained.
+
+def default_groups(topology: Any, n_atoms: int, *, by_element: bool, masses_amu: np.ndarray | None = None,
+                   species: Sequence[Any] | None = None) -> dict[str, np.ndarray]:
+    """The equipartition groups a user would look at first.
+
+    - species (H5MD ``species`` that name no element), else elements (topology), else distinct masses
+      (no topology), when ``by_element``;
+    - residue kinds, when there are several;
+    - solute against solvent (water and ions), when the residue kinds do not already say it.
+
+    Element (species, mass) groups cut through molecules; with rigid bonds the kinetic energy is not
+    shared out per atom as 3/2 kT minus constraint halves, so the audit leaves them out of the judgement
+    when constraints are found (``PER_ATOM_PREFIXES`` names them).
     """
     groups: dict[str, np.ndarray] = {}
-    if topology is None:
-        return groups
-    by_res: dict[str, list[int]] = {}
-    by_el: dict[str, list[int]] = {}
-    for atom in topology.atoms:
-        by_res.setdefault(f"residue {atom.residue.name}", []).append(int(atom.index))
-        el = atom.element.symbol if atom.element is not None else atom.name
-        by_el.setdefault(f"element {el}", []).append(int(atom.index))
-    if len(by_res) > 1:
-        groups.update({k: np.array(v) for k, v in by_res.items()})
-    if by_element and len(by_el) > 1:
-        groups.update({k: np.array(v) for k, v in by_el.items()})
-    return {k: v for k, v in groups.items() if v.size < n_atoms}
+    if by_element:
+        if species is not None and len(species) == n_atoms:
+            by_sp: dict[str, list[int]] = {}
+            for i, sp in enumerate(species):
+                by_sp.setdefault(f"species {sp}", []).append(i)
+            if len(by_sp) > 1:
+                groups.update({k: np.array(v) for k, v in by_sp.items()})
+        elif topology is not None:
+            by_el: dict[str, list[int]] = {}
+            for atom in topology.atoms:
+                el = atom.element.symbol if atom.element is not None else atom.name
+                by_el.setdefault(f"element {el}", []).append(int(atom.index))
+            if len(by_el) > 1:
+                groups.update({k: np.array(v) for k, v in by_el.items()})
+        elif masses_amu is not None and len(masses_amu) == n_atoms:
+            m = np.asarray(masses_amu, dtype=np.float64)
+            if np.all(np.isfinite(m)):
+                by_m: dict[str, list[int]] = {}
+                for i, mi in enumerate(m):
+                    by_m.setdefault(f"mass {mi:.4g} amu", []).append(i)
+                if 1 < len(by_m) <= 16:
+                    groups.update({k: np.array(v) for k, v in by_m.items()})
+    if topology is not None:
+        by_res: dict[str, list[int]] = {}
+        solvent: list[int] = []
+        solute: list[int] = []
+        for atom in topology.atoms:
+            rname = atom.residue.name
+            by_res.setdefault(f"residue {rname}", []).append(int(atom.index))
+            is_solvent = rname.upper() in WATER_RESIDUES or rname.upper() in ION_RESIDUES
+            (solvent if is_solvent else solute).append(int(atom.index))
+        if len(by_res) > 1:
+            groups.update({k: np.array(v) for k, v in by_res.items()})
+        if solvent and solute and len(by_res) > 2:
+            groups["solute"] = np.array(solute)
+            groups["solvent (water and ions)"] = np.array(solvent)
+    return {k: v for k, v in groups.items() if 0 < v.size < n_atoms}
+
+
+def largest_split(group_kinetic_kJ_per_mol: np.ndarray, group_dof: Sequence[float], names: Sequence[str],
+                  keep: Sequence[str] | None = None) -> dict[str, Any] | None:
+    """The hottest and the coldest group and the significance of their difference.
+
+    T_g(t) = 2 K_g(t) / (N_dof,g k_B) per frame; split = mean(T_hot - T_cold) with its standard error
+    std(T_hot - T_cold) sqrt(g / n) (g of the difference series, Sokal window), z = split / error.
+
+    Returns a dict (hot, cold, their mean temperatures in K, split_K, error_K, z) or None with fewer
+    than two groups.
+    """
+    kg = np.asarray(group_kinetic_kJ_per_mol, dtype=np.float64)
+    idx = [j for j, nm in enumerate(names) if group_dof[j] > 0 and (keep is None or nm in keep)]
+    if len(idx) < 2 or kg.shape[0] < 2:
+        return None
+    temps = {j: kinetic_temperature(kg[:, j], group_dof[j]) for j in idx}
+    means = {j: float(np.mean(temps[j])) for j in idx}
+    hot = max(idx, key=lambda j: means[j])
+    cold = min(idx, key=lambda j: means[j])
+    diff = temps[hot] - temps[cold]
+    n = diff.size
+    g, _ = statistical_inefficiency_of(diff) if n >= 4 else (1.0, "")
+    err = float(np.std(diff)) * math.sqrt(g / n)
+    split = float(diff.mean())
+    z = split / err if err > 0 else (0.0 if split == 0 else math.inf)
+    return {"hot": names[hot], "cold": names[cold], "hot_K": means[hot], "cold_K": means[cold],
+            "split_K": split, "error_K": err, "z": float(z), "statistical_inefficiency": g}
 
 
 # ---------------------------------------------------------------------------------------------------

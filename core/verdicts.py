@@ -114,3 +114,122 @@ def worst(levels: list[Level]) -> Level:
     if not levels:
         return "ok"
     return max(levels, key=lambda lv: order[lv])
+
+
+# ---------------------------------------------------------------------------------------------------
+# Ensemble, partial audits, restarts, temperature assumptions, equipartition severity (the audit's
+# judgement on real runs). The audit (core/audit.py) reads these; the user may override them here.
+# ---------------------------------------------------------------------------------------------------
+
+register(
+    Threshold("ensemble", caution=0.5, problem=3.0, unit="",
+              source="common practice (an NVE run conserves its energy to sigma_E/sigma_K of 0.01-0.05; a "
+                     "thermostat lets E fluctuate with K, sigma_E/sigma_K of order 1)",
+              description="caution: sigma_E/sigma_K at or above which an unstated ensemble is inferred to be "
+                          "thermostatted; problem: the largest change of the fitted line over the run, in "
+                          "sigma_E, that still counts as 'no drift pattern'"),
+    Explanation(
+        title="Ensemble",
+        what="Whether the run was thermostatted (NVT, NPT) or not (NVE), and where that came from: the "
+             "engine's files, your statement (--ensemble, --temperature, the window's setting), or an "
+             "inference from the energies.",
+        method="From the files first, then from what you state; else inferred: a bath-heat series, or a "
+               "conserved quantity that differs from the total energy, means a thermostat; so does "
+               "sigma_E/sigma_K of 0.5 or more (E fluctuating like K) with no drift pattern (the fitted line "
+               "changes by less than 3 sigma_E over the run and the noise does not grow).",
+        threshold="sigma_E/sigma_K >= 0.5 and a line change below 3 sigma_E: common practice. The "
+                  "inference is a guess from the energies; it is shown with its evidence.",
+        advice="State the ensemble with --ensemble nve|nvt|npt (or the thermostat temperature with "
+               "--temperature K) when the inferred one is wrong. A thermostatted run is judged on its "
+               "conserved quantity, which needs the thermostat's energy in the files.",
+    ),
+)
+register(
+    Threshold("audit.min_rows", caution=3.0, problem=6.0, unit="rows",
+              source="common practice (a line through fewer than 3 points, or a robust spread of fewer than "
+                     "5 steps, says nothing)",
+              description="caution: rows needed for the drift and fluctuation checks and the time gaps; "
+                          "problem: rows needed for the energy-jump check"),
+    Explanation(
+        title="Too few rows to check",
+        what="The least data a check needs before it says anything: with fewer rows it says 'not checked'.",
+        method="Drift, fluctuations and time gaps need 3 rows; energy jumps need 6 rows (5 steps) for a "
+               "robust spread; the runaway check needs 21 rows (two tenths of 10 steps).",
+        threshold="3 and 6 rows: common practice.",
+        advice="Write the energies more often, or audit a longer stretch of the run.",
+    ),
+)
+register(
+    Threshold("time.restarts", caution=0.0, problem=10.0, unit="joins",
+              source="common practice (engines keep the later segment of a restart; a table whose time goes "
+                     "back more often than once in 10 rows is unsorted, not restarted)",
+              description="number of places where the time goes back or repeats (restarts glued into one "
+                          "file); the later segment is kept"),
+    Explanation(
+        title="Restarts glued into one file",
+        what="Places where the time of a table or trajectory goes back or repeats: a run restarted from an "
+             "earlier checkpoint and appended. The later segment is kept, as the engines themselves do, and "
+             "the rows it replaces are dropped; every check runs on what is kept.",
+        method="Row i is kept when its time is below the time of every later row (a suffix minimum), so the "
+               "later segment always wins. Each join is listed with the time the run went back from and to, "
+               "the rows dropped, and the energy step across the join.",
+        threshold="Any join is a caution (check it was meant), more than 10 a problem: common practice. A "
+                  "time axis that goes back more often than once in 10 rows is refused as unsorted.",
+        advice="Make sure the later segment is the one you want (engines restart from the last checkpoint). "
+               "An energy step at a join means the two pieces were not the same simulation state.",
+    ),
+)
+register(
+    Threshold("temperature.assumption", caution=0.02, problem=1.0, unit="",
+              source="common practice (a temperature that changes by more than 2 % under the other plausible "
+                     "count of constraints rests on that count)",
+              description="relative change of the kinetic temperature between the assumed count of "
+                          "constraints and the other plausible one (never more than a caution: it flags an "
+                          "unknown, not a wrong run)"),
+    Explanation(
+        title="Temperature resting on an assumption",
+        what="A kinetic temperature computed with a number of constraints (or half-step velocities) that "
+             "the files do not state and that could not be inferred: the value depends on that assumption.",
+        method="T = 2K / (N_dof k_B) with N_dof = 3N - constraints - centre of mass. With no topology and "
+               "no engine count the audit assumes no constraints and also shows T with the other plausible "
+               "count (rigid water: 3 per molecule, from the atom masses; or one per hydrogen for bonds to "
+               "hydrogen).",
+        threshold="A difference above 2 % between the two values is a caution (the caution level is the "
+                  "largest this check gives: it flags an unknown, not a wrong run): common practice.",
+        advice="Give --constraints N, a topology (--top) from which rigid bonds can be inferred, or the "
+               "engine's kinetic energy or temperature column.",
+    ),
+)
+register(
+    Threshold("temperature.half_step", caution=0.0, problem=1.0, unit="",
+              source="ENGINES.md (leapfrog integrators store v(t - dt/2) next to x(t); GROMACS KE(n) is the "
+                     "mean of 1/2 m v^2 of frames n and n+1)",
+              description="1 when velocities half a step off the positions were used as they are"),
+    Explanation(
+        title="Half-step velocities",
+        what="Leapfrog integrators (GROMACS md, AMBER, OpenMM Verlet) store velocities half a time step off "
+             "the positions; 1/2 m v^2 of such a frame is not the engine's kinetic energy at that time.",
+        method="Known from the files (integrator or a half-step flag). With the file's kinetic energy or "
+               "temperature present, that is shown. With frames written every step, KE(n) is the mean of "
+               "1/2 m v^2 of frames n and n+1 (as GROMACS computes it). Otherwise the velocities are used "
+               "as they are and the value is flagged.",
+        threshold="Half-step velocities used as they are: caution.",
+        advice="Write the engine's kinetic energy or temperature (energy file), or write velocities every "
+               "step, or use a velocity Verlet integrator when full-step velocities matter.",
+    ),
+)
+register(
+    Threshold("temperature.equipartition_significance", caution=3.0, problem=20.0, unit="sigma",
+              source="common practice (3 sigma for a real difference; a split at 20 sigma or more is no "
+                     "sampling accident and is judged as a problem once it reaches the caution size)",
+              description="caution: |z| at which a group split counts at all; problem: |z| at which a split "
+                          "of caution size is raised to a problem"),
+    Explanation(
+        title="Significance of an equipartition split",
+        what="How many standard errors separate the hottest and the coldest group.",
+        method="z = mean(T_hot - T_cold) / its standard error (g-corrected over frames).",
+        threshold="Below 3 sigma a split is not counted; at 20 sigma or more a split of caution size "
+                  "(2 %) is a problem: common practice.",
+        advice="See the equipartition check.",
+    ),
+)

@@ -2,8 +2,8 @@
 
 Energy conservation (drift, fluctuations, events), kinetic temperature and equipartition, canonical
 distribution checks, and the time step, each as a verdict with the measured number, the threshold and
-its source, and advice. Exit 0 when all is ok, 1 when a caution or problem was found, 2 for unusable
-input.
+its source, and advice. Exit 0 when all is ok, 1 when a caution or problem was found or when nothing could
+be checked (said so), 2 only when nothing at all can be read.
 """
 
 from __future__ import annotations
@@ -66,6 +66,9 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     w(f"phasewake audit: {head}  [ensemble: {result.ensemble}]\n")
     if result.paths:
         w(f"  files: {', '.join(result.paths)}\n")
+    if getattr(result, "ensemble_source", ""):
+        w(textwrap.fill(f"ensemble: {result.ensemble}, {result.ensemble_source}", width=100, initial_indent="  ",
+                        subsequent_indent="    ") + "\n")
     ea, ta = result.energy, result.temperature
     if ea is not None:
         w(f"  energy judged: {ea.series_label} ({ea.reason})\n")
@@ -110,7 +113,11 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
               f"{'  (significant)' if g.significant else ''}\n")
     for note in result.notes:
         w(textwrap.fill(f"note: {note}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
-    w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
+    if getattr(result, "checked", True):
+        w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
+    else:
+        w("\n  overall: not checked: nothing could be checked with what the files hold (see the 'not checked' "
+          "lines for what each check needs)\n")
 
 
 def parse_groups(texts: list[str] | None, topology: Any, n_atoms: int) -> dict[str, list[int]]:
@@ -180,4 +187,6 @@ def run(args: argparse.Namespace) -> int:
     worst = result.level
     if result.compared is not None and result.compared.level in ("caution", "problem"):
         worst = "problem" if "problem" in (worst, result.compared.level) else "caution"
+    if not result.checked:
+        return 1  # nothing could be checked: not a pass
     return 0 if worst in ("ok", "info") else 1
