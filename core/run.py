@@ -89,12 +89,24 @@ class Series:
 
 
 @dataclass(frozen=True)
+class TimeJoin:
+    """A place where a file's time went back or repeated (a restart glued in); the later segment is kept."""
+
+    time_ps: float  # time at which the kept later segment starts, ps
+    back_from_ps: float  # time of the row (frame) just before the step back, ps
+    n_dropped: int  # rows (frames) of the earlier segment dropped for it
+    index: int  # row (frame) index of the join in the kept series
+    where: str = ""  # file (and line) in words
+
+
+@dataclass(frozen=True)
 class EnergyTable:
     """Time series of scalar observables (energies, temperature, ...) with one shared time axis."""
 
     time_ps: np.ndarray  # shape (n_rows,)
     series: dict[str, Series]
     sources: tuple[str, ...] = ()
+    joins: tuple[TimeJoin, ...] = ()  # restarts glued into the files (readers keep the later segment)
 
     def by_role(self, role: str) -> Series | None:
         """The first series with this role, or None."""

@@ -332,6 +332,7 @@ def open_run(
         run = Run(name=tables[0].stem, paths=(), topology=None, masses_amu=np.zeros(0),
                   time_ps=np.zeros(0), frames=None, energies=None)
     warnings.extend(run.warnings)
+    _keep_later_segments(run)
 
     table = None
     if tables:
@@ -448,6 +449,31 @@ def _expand_folders(paths: Sequence[Path]) -> tuple[list[Path], list[str]]:
     return out, notes
 
 
+def _keep_later_segments(run: Run) -> None:
+    """Restarts glued into a trajectory or a run file's observables: keep the later segment of each (the
+    readers warned of them; ``resolve_restarts``), record the joins (frames: ``metadata.extra
+    ["frame_joins"]``; observables: ``EnergyTable.joins``)."""
+    from dataclasses import replace
+
+    from phasewake.core.readers.common import KeptFrames, resolve_restarts
+
+    where = run.paths[0] if run.paths else None
+    if run.frames is not None and run.time_ps.size > 1 and np.any(np.diff(run.time_ps) <= 0):
+        keep, joins, _ = resolve_restarts(run.time_ps, path=where, what="frame")
+        if keep is not None:
+            run.frames = KeptFrames(run.frames, keep)
+            run.time_ps = np.asarray(run.time_ps)[keep]
+            run.metadata.extra["frame_joins"] = list(joins)
+    tab = run.energies
+    if tab is not None and len(tab) > 1 and np.any(np.diff(tab.time_ps) <= 0):
+        keep, joins, _ = resolve_restarts(tab.time_ps, path=where, what="observable sample")
+        if keep is not None:
+            run.energies = EnergyTable(time_ps=np.asarray(tab.time_ps)[keep],
+                                       series={k: replace(s_, values=np.asarray(s_.values)[keep])
+                                               for k, s_ in tab.series.items()},
+                                       sources=tab.sources, joins=tab.joins + joins)
+
+
 def _is_topology_like(path: Path) -> bool:
     return path.name.lower().endswith((".pdb", ".pdb.gz", ".gro", ".mol2", ".cif", ".pdbx"))
 
@@ -508,7 +534,7 @@ def _merge_tables(a: EnergyTable | None, b: EnergyTable, warnings: list[str]) ->
         return b
     if len(a) == len(b) and np.allclose(a.time_ps, b.time_ps, rtol=1e-9, atol=1e-9):
         series = {**a.series, **b.series}
-        return EnergyTable(time_ps=b.time_ps, series=series, sources=a.sources + b.sources)
+        return EnergyTable(time_ps=b.time_ps, series=series, sources=a.sources + b.sources, joins=b.joins)
     warnings.append("the energy tables have another time axis than the run file's observables; "
                     "the tables are used")
     return b

@@ -11,7 +11,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, ImpossibleValueError, TimeAxisError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, RunMetadata, budget_chunk_frames
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    FrameChunk,
+    FrameSource,
+    RunMetadata,
+    TimeJoin,
+    budget_chunk_frames,
+)
 
 if TYPE_CHECKING:
     import mdtraj
@@ -210,11 +217,9 @@ def check_box(box_nm: np.ndarray | None, *, path: str | Path | None, first_frame
 
 
 def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str = "frame") -> list[str]:
-    """Raise TimeAxisError on non-monotonic or duplicated time; return warnings for gaps.
-
-    Never sorts: a run whose time goes backwards was probably concatenated or restarted, and the user
-    must decide what to do with it.
-    """
+    """Raise TimeAxisError on a non-finite, overflowing or unsorted time axis; return warnings for gaps and
+    for restarts glued in (time going back or repeating: ``open_run`` keeps the later segment, see
+    :func:`resolve_restarts`). Never sorts."""
     t = np.asarray(time_ps, dtype=np.float64)
     warnings: list[str] = []
     if not np.all(np.isfinite(t)):
@@ -229,16 +234,14 @@ def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str =
                             f"{t[bad + 1]:g} ps)", path=path)
     if t.size < 2:
         return warnings
-    if np.any(d == 0):
-        i = int(np.flatnonzero(d == 0)[0])
-        raise TimeAxisError(
-            f"duplicated time: {what} {i} and {i + 1} both at t = {t[i]:g} ps "
-            "(restart overlap? the run is not sorted or de-duplicated for you)", path=path)
-    if np.any(d < 0):
-        i = int(np.flatnonzero(d < 0)[0])
-        raise TimeAxisError(
-            f"time goes backwards: {what} {i + 1} at t = {t[i + 1]:g} ps after t = {t[i]:g} ps "
-            "(concatenated runs? the run is not sorted for you)", path=path)
+    if np.any(d <= 0):
+        # restarts glued into one file: found and kept-later by open_run (resolve_restarts); a time axis
+        # that goes back too often to be restarts is refused here
+        _, _, words = resolve_restarts(t, path=path, what=what)
+        warnings.extend(words)
+        d = d[d > 0]
+        if not d.size:
+            return warnings
     med = float(np.median(d))
     gaps = np.flatnonzero(d > 1.5 * med)
     if gaps.size:
@@ -248,6 +251,131 @@ def check_time_axis(time_ps: np.ndarray, *, path: str | Path | None, what: str =
             f"between {what} {i} (t = {t[i]:g} ps) and {i + 1} (t = {t[i + 1]:g} ps), "
             f"typical spacing {med:g} ps")
     return warnings
+
+
+def resolve_restarts(time_ps: np.ndarray, *, path: str | Path | None, what: str = "frame",
+                     line_numbers: np.ndarray | None = None) -> tuple[np.ndarray | None, tuple[TimeJoin, ...], list[str]]:
+    """Restarts glued into one time axis: which rows to keep (the later segment wins, as engines do).
+
+    Row i is kept when its time is below the time of every later row (a suffix minimum), so after a step
+    back (or a repeated time) the rows of the earlier segment from the restart time on are dropped.
+
+    Parameters
+    ----------
+    time_ps : ndarray, shape (n,), finite
+    path, what : the file and what a row is ("frame", "row", ...), for the messages
+    line_numbers : ndarray, shape (n,), optional
+        Line of each row in a text file, for the messages.
+
+    Returns
+    -------
+    keep : ndarray of int (indices of kept rows, increasing) or None when the time only increases
+    joins : the restarts found, each with the time it went back from and to and the rows dropped
+    warnings : one line per join (at most five, then a count)
+
+    Raises
+    ------
+    TimeAxisError
+        When the time goes back more often than once per 10 rows (the ``time.restarts`` threshold's
+        rule): an unsorted axis, not restarts.
+    """
+    t = np.asarray(time_ps, dtype=np.float64)
+    n = int(t.size)
+    d = np.diff(t)
+    back = np.flatnonzero(d <= 0)
+    if not back.size:
+        return None, (), []
+    name = Path(path).name if path else "time axis"
+
+    def loc(i: int) -> str:
+        return f"line {int(line_numbers[i])}" if line_numbers is not None else f"{what} {i}"
+
+    if back.size > max(1, n // 10):
+        i = int(back[0])
+        raise TimeAxisError(
+            f"time goes back {back.size} times in {n} {what}s (first at {loc(i + 1)}: {t[i + 1]:g} ps after "
+            f"{t[i]:g} ps): that is an unsorted time axis, not restarts glued together; it is not sorted "
+            "for you", path=path)
+    suffix_min = np.minimum.accumulate(t[::-1])[::-1]
+    keep_mask = np.ones(n, dtype=bool)
+    keep_mask[:-1] = t[:-1] < suffix_min[1:]
+    keep = np.flatnonzero(keep_mask)
+    joins: list[TimeJoin] = []
+    words: list[str] = []
+    prev = 0
+    for i in back.tolist():
+        start = i + 1
+        dropped = int(np.count_nonzero(~keep_mask[prev:start]))
+        prev = start
+        if not keep_mask[start]:
+            continue  # this segment was itself replaced by a later one
+        j = TimeJoin(time_ps=float(t[start]), back_from_ps=float(t[i]), n_dropped=dropped,
+                     index=int(np.searchsorted(keep, start)), where=f"{name}, {loc(start)}")
+        joins.append(j)
+        if len(words) < 5:
+            how = "repeats" if d[i] == 0 else "goes back"
+            words.append(f"{name}: time {how} at {loc(start)} ({t[i]:g} ps -> {t[start]:g} ps), a restart "
+                         f"glued in: the later segment is kept, {dropped} earlier {what}(s) from {t[start]:g} ps "
+                         "on dropped")
+    if len(joins) > 5:
+        words.append(f"{name}: {len(joins) - 5} more restart(s) glued in, each handled the same way")
+    return keep, tuple(joins), words
+
+
+class KeptFrames:
+    """A frame source showing only the kept frames of another (restarts glued into one trajectory).
+
+    ``keep`` (increasing indices of the inner source) comes from :func:`resolve_restarts`; each read goes to
+    the inner source in the contiguous stretches of kept frames.
+    """
+
+    def __init__(self, inner: FrameSource, keep: np.ndarray) -> None:
+        self.inner = inner
+        self.keep = np.asarray(keep, dtype=np.int64)
+        self.n_frames = int(self.keep.size)
+        self.n_atoms = inner.n_atoms
+        self.has_velocities = inner.has_velocities
+        self.velocities_estimated = inner.velocities_estimated
+        self.has_box = inner.has_box
+        for attr in ("positions_lossy", "lossy_positions"):
+            if hasattr(inner, attr):
+                setattr(self, attr, getattr(inner, attr))
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+        positions: bool = True,
+    ) -> Iterator[FrameChunk]:
+        stop = self.n_frames if stop is None else min(stop, self.n_frames)
+        want = np.arange(start, stop, stride)
+        if not want.size:
+            return
+        inner_idx = self.keep[want]
+        # stretches where the inner indices advance by exactly the stride
+        cut = np.flatnonzero(np.diff(inner_idx) != stride) + 1
+        bounds = np.concatenate([[0], cut, [want.size]])
+        for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+            lo, hi = int(inner_idx[a]), int(inner_idx[b - 1]) + 1
+            pos = a
+            for ch in iter_frame_chunks(self.inner, chunk_frames=chunk_frames, start=lo, stop=hi, stride=stride,
+                                        atom_indices=atom_indices, velocities=velocities, positions=positions):
+                ch.start = int(want[pos])
+                pos += ch.n_frames
+                yield ch
+
+    def read_frame(self, index: int) -> FrameChunk:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
+        index %= self.n_frames
+        ch = self.inner.read_frame(int(self.keep[index]))
+        ch.start = index
+        return ch
 
 
 # --- boxes ---

@@ -16,12 +16,14 @@ from __future__ import annotations
 
 import re
 from collections.abc import Iterator, Mapping, Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import TextIO
 
 import numpy as np
 
 from phasewake.core.errors import EmptyFileError, EnergyTableError, ResourceError, TimeAxisError, UnitError
+from phasewake.core.readers.common import resolve_restarts
 from phasewake.core.run import ENERGY_ROLES, EnergyTable, Series
 from phasewake.core.units import parse_unit, split_header
 
@@ -188,11 +190,19 @@ def read_table(
             time = np.arange(values.shape[1], dtype=np.float64)
             warnings.append(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)")
     _check_rows(time, line_numbers, path)
+    # restarts glued into the table: the later segment is kept (as engines do), each join reported
+    keep, joins, join_words = resolve_restarts(time, path=path, what="row", line_numbers=line_numbers)
+    if keep is not None:
+        time, line_numbers = time[keep], line_numbers[keep]
+        series = {k: replace(s, values=s.values[keep]) for k, s in series.items()}
+        warnings.extend(join_words)
     warnings.extend(_gap_warnings(time, line_numbers, path))
-    return EnergyTable(time_ps=time, series=series, sources=(str(path),)), warnings
+    return EnergyTable(time_ps=time, series=series, sources=(str(path),), joins=joins), warnings
 
 
 def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
+    """Every row has a finite time and the axis does not overflow (a time that goes back or repeats is a
+    restart: ``resolve_restarts``)."""
     finite = np.isfinite(time)
     if not finite.all():
         i = int(np.flatnonzero(~finite)[0])
@@ -204,14 +214,6 @@ def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
         i = int(np.flatnonzero(~np.isfinite(d))[0])
         raise TimeAxisError(f"line {line_numbers[i + 1]}: the time axis overflows ({time[i]:g} ps, then "
                             f"{time[i + 1]:g} ps)", path=path)
-    if np.any(d == 0):
-        i = int(np.flatnonzero(d == 0)[0])
-        raise TimeAxisError(f"line {line_numbers[i + 1]}: duplicated time {time[i]:g} ps (also on line "
-                            f"{line_numbers[i]}); the table is not sorted or de-duplicated for you", path=path)
-    if np.any(d < 0):
-        i = int(np.flatnonzero(d < 0)[0])
-        raise TimeAxisError(f"line {line_numbers[i + 1]}: time goes backwards ({time[i + 1]:g} ps after "
-                            f"{time[i]:g} ps); the table is not sorted for you", path=path)
 
 
 def _gap_warnings(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> list[str]:
@@ -395,4 +397,5 @@ def _join(a: EnergyTable, b: EnergyTable, warnings: list[str]) -> EnergyTable:
     for s in b.series.values():
         name = s.name if s.name not in series else f"{s.name} [{Path(s.source.split(':')[0]).stem}]"
         series[name] = Series(name, s.values[ib], s.unit, s.role, s.source)
-    return EnergyTable(time_ps=np.asarray(time, dtype=np.float64), series=series, sources=a.sources + b.sources)
+    return EnergyTable(time_ps=np.asarray(time, dtype=np.float64), series=series, sources=a.sources + b.sources,
+                       joins=a.joins + b.joins)

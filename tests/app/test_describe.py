@@ -125,14 +125,18 @@ def _make_bad(kind, d):
         return [p], errors.MissingDataError, "positions"
     if kind == "h5md_duplicated_time":
         p = d / "dup.h5md"
-        write_h5md(p, positions_nm=np.zeros((4, 2, 3)), time_ps=np.array([0.0, 1.0, 1.0, 2.0]))
-        return [p], errors.TimeAxisError, "duplicated time"
+        # (a single repeated time is a restart, kept-later; a time axis repeating at every row is refused)
+        write_h5md(p, positions_nm=np.zeros((4, 2, 3)), time_ps=np.array([0.0, 0.0, 1.0, 1.0]))
+        return [p], errors.TimeAxisError, "unsorted"
     tables = {
         "table_missing_unit": ("time (ps),potential energy\n0,1\n1,2\n", errors.EnergyTableError, "no unit"),
         "table_unknown_unit": ("time (ps),potential (kJ/fortnight)\n0,1\n", errors.EnergyTableError, "fortnight"),
         "table_text_row": ("time (ps),potential (kJ/mol)\n0,1\n1,n/a?\n", errors.EnergyTableError, "line 3"),
-        "table_backwards": ("time (ps),potential (kJ/mol)\n0,1\n2,1\n1,1\n", errors.TimeAxisError, "backwards"),
-        "table_duplicated": ("time (ps),potential (kJ/mol)\n0,1\n0,1\n", errors.TimeAxisError, "duplicated"),
+        # a restart glued in is read (the later segment kept); time going back at every other row is refused
+        "table_backwards": ("time (ps),potential (kJ/mol)\n0,1\n2,1\n1,1\n3,1\n2,1\n", errors.TimeAxisError,
+                            "unsorted"),
+        "table_duplicated": ("time (ps),potential (kJ/mol)\n0,1\n0,1\n1,1\n1,1\n", errors.TimeAxisError,
+                             "unsorted"),
     }
     text, cls, match = tables[kind]
     p = d / f"{kind}.csv"

@@ -189,14 +189,30 @@ def test_time_dependent_triclinic_box_and_stride(tmp_path):
 
 
 def test_non_monotonic_time_is_reported(tmp_path):
-    pos, _, time, step = _arrays(n_frames=6)
+    # was: TimeAxisError. Time going back is a restart glued in: the later segment is kept (frames 2 and 3,
+    # at or after the restart time, are dropped), the join is reported, and the kept frames read right.
+    pos, vel, time, step = _arrays(n_frames=6)
     t = time.copy()
     t[4] = t[2]  # goes backwards at frame 4
+    t[5] = t[3]
     path = tmp_path / "back.h5md"
-    write_h5md(path, positions_nm=pos, time_ps=t, step=step)
-    with pytest.raises(TimeAxisError, match="frame 4") as info:
-        open_run([path])
-    assert info.value.path == path
+    write_h5md(path, positions_nm=pos, time_ps=t, step=step, velocities_nm_per_ps=vel)
+    run = open_run([path])
+    np.testing.assert_allclose(run.time_ps, t[[0, 1, 4, 5]])
+    assert any("frame 4" in w and "later segment is kept" in w for w in run.warnings)
+    (join,) = run.metadata.extra["frame_joins"]
+    assert join.time_ps == pytest.approx(t[2]) and join.n_dropped == 2
+    got = np.concatenate([c.positions_nm for c in run.frames.iter_chunks(chunk_frames=3)])
+    np.testing.assert_array_equal(got, pos[[0, 1, 4, 5]])
+    np.testing.assert_array_equal(run.frames.read_frame(2).velocities_nm_per_ps[0], vel[4])
+    strided = list(run.frames.iter_chunks(start=1, stride=2))
+    assert [c.start for c in strided] == [1, 3]  # kept frames 1 and 3 (inner 1 and 5)
+    np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in strided]), pos[[1, 5]])
+    bad = t.copy()
+    bad[[1, 3, 5]] = bad[0] - 1.0  # back at every other frame: unsorted, refused
+    write_h5md(tmp_path / "unsorted.h5md", positions_nm=pos, time_ps=bad, step=step)
+    with pytest.raises(TimeAxisError, match="unsorted"):
+        open_run([tmp_path / "unsorted.h5md"])
 
 
 def test_missing_position_unit(tmp_path):

@@ -109,15 +109,29 @@ def test_table_errors_name_file_and_line(tmp_path, text, match):
 
 
 @pytest.mark.parametrize(
-    ("text", "match"),
+    ("text", "kept_t", "kept_u", "word"),
     [
-        ("time (ps),potential (kJ/mol)\n0,1\n1,2\n1,3\n", "line 4: duplicated time 1 ps"),
-        ("time (ps),potential (kJ/mol)\n0,1\n2,2\n1,3\n", "line 4: time goes backwards"),
+        ("time (ps),potential (kJ/mol)\n0,1\n1,2\n1,3\n", [0, 1], [1, 3], "line 4 (1 ps -> 1 ps)"),
+        ("time (ps),potential (kJ/mol)\n0,1\n2,2\n1,3\n", [0, 1], [1, 3], "line 4 (2 ps -> 1 ps)"),
     ],
 )
-def test_time_axis_errors_are_reported_not_sorted(tmp_path, text, match):
+def test_restarts_keep_the_later_segment_and_say_so(tmp_path, text, kept_t, kept_u, word):
+    # was: TimeAxisError (the table refused at the first backward step). A repeated or backward time is a
+    # restart glued in: engines keep the later segment (ENGINES.md pitfall 4: drop repeats), so do we,
+    # and the join is reported with its times and the rows dropped.
     p = _write(tmp_path / "t.csv", text)
-    with pytest.raises(TimeAxisError, match=match):
+    table, warnings = read_table(p)
+    np.testing.assert_array_equal(table.time_ps, kept_t)
+    np.testing.assert_array_equal(table.series["potential"].values, kept_u)
+    assert any(word in w and "later segment is kept" in w for w in warnings)
+    assert len(table.joins) == 1 and table.joins[0].time_ps == 1.0 and table.joins[0].n_dropped == 1
+
+
+def test_unsorted_time_is_still_refused(tmp_path):
+    # time going back at every other row is not a restart but an unsorted table: refused, not sorted
+    rows = "\n".join(f"{t},{i}" for i, t in enumerate([0, 3, 1, 4, 2, 5, 3, 6]))
+    p = _write(tmp_path / "u.csv", "time (ps),potential (kJ/mol)\n" + rows + "\n")
+    with pytest.raises(TimeAxisError, match="unsorted"):
         read_table(p)
 
 
