@@ -1136,9 +1136,10 @@ def audit_run(
     pre = [_ensemble_verdict(decision, eaudit)]
     joins = list(table.joins) if table is not None else []
     frame_joins = list(md.extra.get("frame_joins") or [])
+    part_overlaps = [str(x) for x in (md.extra.get("overlaps") or [])]  # parts joined by the reader layer
     after_energy = []
-    if joins or frame_joins:
-        after_energy.append(_restarts_verdict(joins, frame_joins, eaudit))
+    if joins or frame_joins or part_overlaps:
+        after_energy.append(_restarts_verdict(joins, frame_joins, eaudit, part_overlaps))
     verdicts = _verdicts(eaudit, temp, tsa, scaling, compared, thermostatted, has_vel, conserved, dt,
                          n_atoms_known=bool(run.n_atoms), energy_reason=energy_reason, pre=pre,
                          after_energy=after_energy, after_temperature=temp_verdicts,
@@ -1170,7 +1171,8 @@ def _ensemble_verdict(decision: EnsembleDecision, ea: EnergyAudit | None) -> Ver
                             **decision.evidence})
 
 
-def _restarts_verdict(joins: Sequence[Any], frame_joins: Sequence[Any], ea: EnergyAudit | None) -> Verdict:
+def _restarts_verdict(joins: Sequence[Any], frame_joins: Sequence[Any], ea: EnergyAudit | None,
+                      part_overlaps: Sequence[str] = ()) -> Verdict:
     """Restarts glued into the files: where, what was dropped, and the energy step across each join."""
     parts: list[str] = []
     steps: list[dict[str, Any]] = []
@@ -1202,7 +1204,10 @@ def _restarts_verdict(joins: Sequence[Any], frame_joins: Sequence[Any], ea: Ener
                      f"({j.n_dropped} earlier frame(s) dropped; {j.where})")
         steps.append({"time_ps": j.time_ps, "back_from_ps": j.back_from_ps, "n_dropped": j.n_dropped,
                       "energy_step_kJ_per_mol": None, "where": j.where, "trajectory": True})
-    n = len(joins) + len(frame_joins)
+    for text in part_overlaps:
+        parts.append(f"trajectory parts: {text}")
+        steps.append({"where": text, "trajectory": True, "energy_step_kJ_per_mol": None})
+    n = len(joins) + len(frame_joins) + len(part_overlaps)
     v = judge("time.restarts", float(n), title="Restarts glued into one file", unit="joins",
               message=f"{n} restart(s) glued in; the later segment is kept and every check runs on it: "
                       + "; ".join(parts[:8]) + (f"; ... {len(parts) - 8} more" if len(parts) > 8 else "")

@@ -148,12 +148,14 @@ def table_duplicate_headers(tmp: Path):
     return table(tmp, "time (ps),potential (kJ/mol),potential (kJ/mol)\n0,1,2\n1,2,3\n"), ["duplicate"]
 
 
+# (one step back or one repeated time is a restart glued in: read, the later segment kept; a time axis
+# going back at every other row is unsorted and refused)
 def table_time_reversed(tmp: Path):
-    return table(tmp, "time (ps),potential (kJ/mol)\n0,1\n2,2\n1,3\n"), ["time"]
+    return table(tmp, "time (ps),potential (kJ/mol)\n0,1\n2,2\n1,3\n3,1\n2,2\n"), ["time", "unsorted"]
 
 
 def table_time_duplicated(tmp: Path):
-    return table(tmp, "time (ps),potential (kJ/mol)\n0,1\n1,2\n1,3\n"), ["time"]
+    return table(tmp, "time (ps),potential (kJ/mol)\n0,1\n0,2\n1,3\n1,1\n"), ["time", "unsorted"]
 
 
 CASES: dict[str, Callable] = {f.__name__: f for f in (
