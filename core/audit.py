@@ -141,7 +141,8 @@ class AuditResult:
     @property
     def level(self) -> Level:
         """Worst verdict level: ok, caution or problem."""
-        return worst([v.level for v in self.verdicts])
+        lv = worst([v.level for v in self.verdicts])
+        return "ok" if lv == "info" else lv
 
     @property
     def checked(self) -> bool:
@@ -920,8 +921,9 @@ def audit_run(
                 constraint_weights=None if inference is None else inference.constraint_weights,
                 n_constraints=n_con)
             names = list(all_groups)
-            if n_con > 0:
-                # per-atom groups (elements, species, masses) cut through rigid molecules: not judged
+            if n_con > 0 or (con_assumed and _other_constraints(run.masses_amu) is not None):
+                # per-atom groups (elements, species, masses) cut through rigid molecules (or may: constraints
+                # unknown and hydrogens present): not judged
                 left_out = tuple(k for k in names if k.startswith(tm.PER_ATOM_PREFIXES) and k not in (groups or {}))
             judged = [k for k in names if k not in left_out]
             t_all = tm.kinetic_temperature(fp.kinetic_kJ_per_mol, n_dof)
@@ -933,7 +935,8 @@ def audit_run(
                 split["mean_K"] = float(np.mean(t_all))
             if left_out:
                 notes.append("Equipartition: the per-atom groups (" + ", ".join(left_out[:6])
-                             + ") are not judged: they cut through rigid molecules.")
+                             + ") are not judged: they cut through rigid molecules"
+                             + (", and the constraints are unknown" if n_con == 0 else "") + ".")
         # canonical checks
         kdist = None
         maxw: list[tm.DistributionCheck] = []
@@ -1392,8 +1395,8 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
             out.append(_skipped("temperature.equipartition", "Equipartition",
                                 "needs velocities and at least two groups of atoms (species, elements or masses, "
                                 "residue kinds, or --group)" if ta.mean_from_velocities_K is None or not
-                                ta.groups_left_out else "the only groups (per-atom) cut through rigid molecules; "
-                                "give --group"))
+                                ta.groups_left_out else "the only groups (elements, species or masses) cut through "
+                                "molecules that are or may be rigid; give --group"))
         if ta.kinetic_distribution is not None:
             kd = ta.kinetic_distribution
             v = judge("temperature.kinetic_distribution", kd.p_value, title="Kinetic-energy distribution",

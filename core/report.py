@@ -406,6 +406,11 @@ def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mappi
             if v]
     if meta:
         lines.append("Metadata: " + ", ".join(meta))
+    if audit is not None and getattr(audit, "ensemble_source", ""):
+        lines.append(f"Ensemble judged: {audit.ensemble}, {audit.ensemble_source}")
+    if audit is not None and not getattr(audit, "checked", True):
+        lines.append("Audit: nothing could be checked with what the files hold (each 'not checked' row says what "
+                     "its check needs).")
     why = settings.get("coordinate_reason") or ""
     lines.append("Coordinate analysed: " + str(settings.get("coordinate") or "none") + (f" ({why})" if why else ""))
     if run.warnings:
