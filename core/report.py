@@ -406,7 +406,7 @@ def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mappi
             if v]
     if meta:
         lines.append("Metadata: " + ", ".join(meta))
-    if audit is not None and getattr(audit, "ensemble_source", ""):
+    if audit is not None and getattr(audit, "ensemble_source", None):
         lines.append(f"Ensemble judged: {audit.ensemble}, {audit.ensemble_source}")
     if audit is not None and not getattr(audit, "checked", True):
         lines.append("Audit: nothing could be checked with what the files hold (each 'not checked' row says what "
