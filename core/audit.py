@@ -196,14 +196,14 @@ def _thermostat_evidence_from_table(table: EnergyTable | None) -> tuple[bool | N
     """(thermostatted?, evidence in words, numbers) from the energy table alone; None when it cannot say.
 
     A bath-heat series, or a conserved quantity that differs from the total energy, means a thermostat.
-    Otherwise sigma_E/sigma_K (E detrended): at or above the ``ensemble`` caution threshold, with no drift
-    pattern (the fitted line changes by less than its ``problem`` value in sigma_E over the run and the
-    frame-to-frame noise does not grow), E fluctuates like K: the signature of a thermostat; well below it
-    E is conserved: the signature of NVE.
+    Otherwise, with steps of E and a line removed from E and K: sigma_E/sigma_K at or above the
+    ``ensemble`` caution threshold with corr(K, U) above the ``ensemble.ku_correlation`` caution threshold
+    (K and U not traded one for one) and no growing energy noise is the signature of a thermostat;
+    sigma_E/sigma_K below the ``ensemble`` problem threshold or corr(K, U) below its problem threshold
+    (U takes what K gives) is the signature of NVE.
     """
     if table is None or len(table) < 3:
         return None, "", {}
-    thr = THRESHOLDS["ensemble"]
 
     def vals(role: str) -> np.ndarray | None:
         ser = table.by_role(role)
@@ -230,30 +230,39 @@ def _thermostat_evidence_from_table(table: EnergyTable | None) -> tuple[bool | N
     ok = np.isfinite(tot) & np.isfinite(kin) & np.isfinite(t)
     if ok.sum() < 20:
         return None, "", {}
-    tt, ee, kk = t[ok], tot[ok], kin[ok]
-    coef = np.polyfit(tt - tt.mean(), ee, 1)
-    resid = ee - np.polyval(coef, tt - tt.mean())
-    s_e, s_k = float(resid.std()), float(kk.std())
+    tt, ee, kk = t[ok], tot[ok].copy(), kin[ok]
+    # steps of E (restarts glued in, changed settings) would pass for fluctuations: take them out
+    d = np.diff(ee)
+    med = float(np.median(d))
+    s_rob = 1.4826 * float(np.median(np.abs(d - med)))
+    if s_rob > 0:
+        steps = np.where(np.abs(d - med) > THRESHOLDS["energy.jumps"].caution * s_rob, d - med, 0.0)
+        ee = ee - np.r_[0.0, np.cumsum(steps)]
+    x = tt - tt.mean()
+
+    def detrended(y: np.ndarray) -> np.ndarray:
+        return y - np.polyval(np.polyfit(x, y, 1), x)
+
+    re_, rk = detrended(ee), detrended(kk)
+    ru = re_ - rk  # U = E - K
+    s_e, s_k = float(re_.std()), float(rk.std())
     if not s_k > 0:
         return None, "", {}
     ratio = s_e / s_k
-    line_change = abs(float(coef[0])) * float(tt[-1] - tt[0])
-    d = np.diff(ee)
-    tenth = d.size // 10
-    growth = (float(np.sqrt(np.mean((d[-tenth:] - d.mean()) ** 2)) / max(np.sqrt(np.mean((d[:tenth] - d.mean()) ** 2)),
-                                                                          1e-300)) if tenth >= 2 else 1.0)
-    nums = {"sigma_E_over_sigma_K": ratio, "line_change_over_sigma_E": line_change / s_e if s_e > 0 else math.inf,
-            "noise_growth": growth}
-    no_drift = s_e > 0 and line_change < thr.problem * s_e and growth < THRESHOLDS["energy.runaway"].caution
-    if ratio >= thr.caution and no_drift:
-        return True, (f"sigma_E/sigma_K = {ratio:.3g} (>= {thr.caution:g}: E fluctuates like K) and no drift "
-                      f"pattern (the fitted line changes by {line_change / s_e:.2g} sigma_E over the run), the "
-                      "signature of a thermostat"), nums
-    if ratio < 0.1 * thr.caution:
-        return False, (f"sigma_E/sigma_K = {ratio:.3g} (the total energy is conserved), the signature of an "
-                       "unthermostatted run"), nums
-    return None, (f"sigma_E/sigma_K = {ratio:.3g}" + ("" if no_drift else " with a drift pattern")
-                  + ": neither signature is clear"), nums
+    corr = float(np.corrcoef(rk, ru)[0, 1]) if float(ru.std()) > 0 else -1.0
+    dd = np.diff(ee)
+    tenth = dd.size // 10
+    growth = (float(np.sqrt(np.mean((dd[-tenth:] - dd.mean()) ** 2))
+                    / max(float(np.sqrt(np.mean((dd[:tenth] - dd.mean()) ** 2))), 1e-300)) if tenth >= 2 else 1.0)
+    nums = {"sigma_E_over_sigma_K": ratio, "kinetic_potential_correlation": corr, "noise_growth": growth}
+    thr, cthr = THRESHOLDS["ensemble"], THRESHOLDS["ensemble.ku_correlation"]
+    words = f"sigma_E/sigma_K = {ratio:.3g}, corr(K, U) = {corr:+.2f}"
+    if ratio >= thr.caution and corr > cthr.caution and growth < THRESHOLDS["energy.runaway"].caution:
+        return True, (f"{words}: E fluctuates like K and K and U are not traded one for one, the signature of "
+                      "a thermostat"), nums
+    if ratio < thr.problem or corr < cthr.problem:
+        return False, f"{words}: U takes what K gives and E hardly moves, the signature of an NVE run", nums
+    return None, f"{words}: neither signature is clear", nums
 
 
 def decide_ensemble(run: Run, *, temperature_K: float | None = None) -> EnsembleDecision:
@@ -991,7 +1000,7 @@ def audit_run(
             canonical_note=cnote, time_ps=t_time, temperature_K=t_series, split=split, groups_left_out=left_out,
             half_step=half_words,
         )
-        if con_assumed and t_filek is None:
+        if con_assumed:
             alt = _other_constraints(run.masses_amu)
             if alt is not None:
                 alt_n, alt_words = alt
@@ -1068,9 +1077,28 @@ def audit_run(
                 tg, eg, kg = t, e, kin
             else:
                 tg, eg, kg = t[good], e[good], None if kin is None else kin[good]
+        scan_e = scan
+        if table is not None and table.joins and n_good >= 3:
+            # restarts glued in: each segment is its own run; the energy step across a join is reported by the
+            # restarts and jumps checks, not counted again as drift or fluctuation
+            eg = np.array(eg, dtype=np.float64)
+            d_all = np.diff(eg)
+            med_d = float(np.median(d_all)) if d_all.size else 0.0
+            taken = []
+            for j in table.joins:
+                i = int(np.searchsorted(tg, j.time_ps - 1e-9 * max(1.0, abs(j.time_ps))))
+                if 0 < i < eg.size:
+                    step = float(eg[i] - eg[i - 1] - med_d)
+                    eg[i:] -= step
+                    taken.append(f"{step:+.4g} kJ/mol at {float(tg[i]):.6g} ps")
+            if taken:
+                scan_e = None
+                notes.append("Restarts glued in: the energy steps across the joins (" + ", ".join(taken[:5])
+                             + ") are taken out before the drift and fluctuation checks; the jumps and restarts "
+                             "checks report them.")
         if n_good >= 3:
             drift = en.drift_fit(tg, eg, n_atoms=run.n_atoms or None, n_dof=dof_for_drift or None,
-                                 temperature_K=kT_ref, scan=scan)
+                                 temperature_K=kT_ref, scan=scan_e)
             kin_used = kg
             if kin_used is None and fp is not None:
                 fi, ti = _align(fp.time_ps, tg)
@@ -1078,8 +1106,9 @@ def audit_run(
                     kin_used = fp.kinetic_kJ_per_mol[fi[np.argsort(ti)]]
                     ksrc_e = "velocities (frames matched to energy rows by time)"
             kcol = (en._SERIES + conserved.kinetic_column
-                    if kin_used is kg and kg is not None and conserved.kinetic_column is not None else None)
-            fl = en.energy_fluctuations(tg, eg, kin_used, scan=scan, kinetic_column=kcol)
+                    if kin_used is kg and kg is not None and conserved.kinetic_column is not None
+                    and scan_e is not None else None)
+            fl = en.energy_fluctuations(tg, eg, kin_used, scan=scan_e, kinetic_column=kcol)
         eaudit = EnergyAudit(series_label=conserved.label, series_columns=conserved.columns,
                              expected_conserved=conserved.expected_conserved, reason=conserved.reason,
                              kinetic_source=ksrc_e, drift=drift, fluctuations=fl, events=events,

@@ -122,26 +122,48 @@ def worst(levels: list[Level]) -> Level:
 # ---------------------------------------------------------------------------------------------------
 
 register(
-    Threshold("ensemble", caution=0.5, problem=3.0, unit="",
-              source="common practice (an NVE run conserves its energy to sigma_E/sigma_K of 0.01-0.05; a "
-                     "thermostat lets E fluctuate with K, sigma_E/sigma_K of order 1)",
-              description="caution: sigma_E/sigma_K at or above which an unstated ensemble is inferred to be "
-                          "thermostatted; problem: the largest change of the fitted line over the run, in "
-                          "sigma_E, that still counts as 'no drift pattern'"),
+    Threshold("ensemble", caution=0.5, problem=0.05, unit="", higher_is_worse=False,
+              source="common practice (an NVE run conserves its energy to sigma_E/sigma_K of 0.01-0.05; under a "
+                     "thermostat E fluctuates with K and U, sigma_E/sigma_K of order 1 or more)",
+              description="sigma_E/sigma_K (E with steps and a line removed): at or above 'caution' (with K and U "
+                          "not traded one for one) an unstated ensemble is inferred thermostatted; below "
+                          "'problem' it is inferred NVE"),
     Explanation(
         title="Ensemble",
         what="Whether the run was thermostatted (NVT, NPT) or not (NVE), and where that came from: the "
              "engine's files, your statement (--ensemble, --temperature, the window's setting), or an "
              "inference from the energies.",
         method="From the files first, then from what you state; else inferred: a bath-heat series, or a "
-               "conserved quantity that differs from the total energy, means a thermostat; so does "
-               "sigma_E/sigma_K of 0.5 or more (E fluctuating like K) with no drift pattern (the fitted line "
-               "changes by less than 3 sigma_E over the run and the noise does not grow).",
-        threshold="sigma_E/sigma_K >= 0.5 and a line change below 3 sigma_E: common practice. The "
-                  "inference is a guess from the energies; it is shown with its evidence.",
+               "conserved quantity that differs from the total energy, means a thermostat. Otherwise two "
+               "signatures of the energy table: in NVE the potential energy takes what the kinetic energy "
+               "gives (their correlation near -1) and E hardly moves (sigma_E/sigma_K small); under a "
+               "thermostat K and U are nearly independent (canonical momenta do not depend on positions) and "
+               "sigma_E/sigma_K is of order 1 (sqrt(1 + sigma_U^2/sigma_K^2)). Steps in E (restarts) and a "
+               "straight line are removed first; a run whose energy noise grows is not inferred thermostatted.",
+        threshold="Thermostatted when sigma_E/sigma_K >= 0.5 and corr(K, U) > -0.7; NVE when sigma_E/sigma_K "
+                  "< 0.05 or corr(K, U) < -0.95; otherwise unknown and judged as NVE: common practice, checked "
+                  "on the project's GROMACS, LAMMPS and OpenMM runs (tests/data/engines). The inference is a "
+                  "guess from the energies; it is shown with its evidence.",
         advice="State the ensemble with --ensemble nve|nvt|npt (or the thermostat temperature with "
                "--temperature K) when the inferred one is wrong. A thermostatted run is judged on its "
                "conserved quantity, which needs the thermostat's energy in the files.",
+    ),
+)
+register(
+    Threshold("ensemble.ku_correlation", caution=-0.7, problem=-0.95, unit="", higher_is_worse=False,
+              source="common practice (NVE trades K and U one for one: correlation -1; canonical K and U are "
+                     "independent: correlation near 0; Langevin runs of water at 1/ps gave -0.2 to -0.5, a "
+                     "too-large NVE step -0.87)",
+              description="correlation of K and U (steps and lines removed): above 'caution' a thermostat is "
+                          "inferred, below 'problem' NVE"),
+    Explanation(
+        title="Correlation of kinetic and potential energy",
+        what="How strictly the potential energy takes what the kinetic energy gives: -1 in NVE, near 0 under "
+             "a thermostat.",
+        method="Pearson correlation of K and U = E - K after removing steps of E and a least-squares line from "
+               "each.",
+        threshold="Above -0.7 a thermostat, below -0.95 NVE: common practice (see the ensemble).",
+        advice="See the ensemble.",
     ),
 )
 register(
