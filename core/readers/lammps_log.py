@@ -6,6 +6,8 @@
 - A run's first row repeats the previous run's last step: the repeat is dropped. Columns may change from
   run to run; runs of one ensemble are joined (the columns they share); when the ensemble changes (an NVT
   equilibration, then NVE production) the last run is read, with a warning saying what was left out.
+- ``thermo_style multi`` / ``thermo_modify line multi`` records (``---- Step N ----- CPU = ...`` then
+  ``Name = value`` triplets) are read too; the ``yaml`` layout is not.
 - Inside blocks ``SHAKE stats`` lines (and a line per constrained type) and ``WARNING`` lines are skipped.
 - Units: only the echoed ``units`` command says them (default ``lj``); ``units_style`` (``--units``) is used
   when the log shows none. ``lj`` reduced units are kept as they are and labelled, never converted.
@@ -100,9 +102,14 @@ _SHAKE_COUNTS = re.compile(r"^\s*(\d+)\s*=\s*# of (size 2 clusters|size 3 cluste
                            re.M)
 
 
-def _headers(text: str, start: int = 0) -> Iterator[tuple[int, int]]:
-    """(start, end) of every thermo header line ("Step" first, then names), found with str.find (a
-    multi-line regex scan of a 100 MB log takes seconds)."""
+_MULTI = re.compile(r"-+ Step\s+\d+ -+")
+_MULTI_SPLIT = re.compile(r"^-+ Step\s+(\d+) -+.*$", re.M)
+_PAIR = re.compile(r"([A-Za-z_][\w\[\].]*)\s+=\s+(\S+)")
+
+
+def _headers(text: str, start: int = 0) -> Iterator[tuple[int, int, bool]]:
+    """(start, end, multi) of every thermo header line ("Step" first, then names) or first record of the
+    multi-line layout, found with str.find (a multi-line regex scan of a 100 MB log takes seconds)."""
     k = text.find("Step", start)
     while k >= 0:
         line_start = text.rfind("\n", 0, k) + 1
@@ -110,8 +117,34 @@ def _headers(text: str, start: int = 0) -> Iterator[tuple[int, int]]:
         line_end = len(text) if line_end < 0 else line_end
         line = text[line_start:line_end]
         if line_start >= start and _HEADER.match(line):
-            yield line_start, line_end
+            yield line_start, line_end, False
+        elif line_start >= start and _MULTI.match(line):
+            yield line_start, line_end, True
         k = text.find("Step", line_end)
+
+
+def _parse_multi(body: str, path: Path, line0: int) -> tuple[list[str], np.ndarray]:
+    """Records of ``thermo_style multi`` (``---- Step N ----- CPU = t (sec) ----`` then ``Name = value``
+    triplets) as names (Step first) and an (n, ncol) array."""
+    parts = _MULTI_SPLIT.split(body)
+    names: list[str] | None = None
+    rows: list[list[float]] = []
+    for k in range(1, len(parts) - 1, 2):
+        step = float(parts[k])
+        pairs = _PAIR.findall(parts[k + 1])
+        rec_names = ["Step"] + [n for n, _ in pairs]
+        if names is None:
+            names = rec_names
+        if rec_names != names:
+            raise EnergyTableError(f"the thermo records from line {line0} change their keywords", path=path)
+        try:
+            rows.append([step] + [float(v) for _, v in pairs])
+        except ValueError:
+            raise EnergyTableError(f"a thermo record from line {line0} holds a value that is not a number",
+                                   path=path) from None
+    if names is None:
+        return ["Step"], np.zeros((0, 1))
+    return names, np.array(rows, dtype=np.float64).reshape(len(rows), len(names))
 
 
 def _loop_line(text: str, start: int) -> re.Match[str] | None:
@@ -170,14 +203,14 @@ def _scan(text: str, path: Path) -> tuple[list[_Block], dict[str, Any]]:
         state["version"] = m.group(1)
     blocks: list[_Block] = []
     pos = 0
-    for h_start, h_end in _headers(text):
+    for h_start, h_end, multi in _headers(text):
         if h_start < pos:
             continue
         _commands(text[pos:h_start], state)
         names = text[h_start:h_end].split()
-        body_start = h_end + 1
+        body_start = h_start if multi else h_end + 1
         lm = _loop_line(text, body_start)
-        nh = next(_headers(text, body_start), None)
+        nh = next((h for h in _headers(text, h_end + 1) if not (multi and h[2])), None)
         end = lm.start() if lm else len(text)
         complete = lm is not None
         if nh is not None and nh[0] < end:
@@ -187,7 +220,10 @@ def _scan(text: str, path: Path) -> tuple[list[_Block], dict[str, Any]]:
             end = text.rfind("\n") + 1  # a run killed while writing a row: that row is not used
             state["warnings"].append(f"{path.name}: the last thermo row is cut off (the run was stopped while "
                                      "writing it); it is not used")
-        values = _parse_body(text[body_start:end], len(names), path, line0)
+        if multi:
+            names, values = _parse_multi(text[body_start:end], path, line0)
+        else:
+            values = _parse_body(text[body_start:end], len(names), path, line0)
         n_atoms = int(lm.group(2)) if (lm and complete) else None
         blocks.append(_Block(kind=state["last_cmd"] or "run", names=names, values=values, n_atoms=n_atoms,
                              units=state["units"], dt=state["dt"], fixes=dict(state["fixes"]), norm=state["norm"],
@@ -220,7 +256,7 @@ def _commands(chunk: str, state: dict[str, Any]) -> None:
             for i, p in enumerate(parts[:-1]):
                 if p == "norm":
                     state["norm"] = parts[i + 1] == "yes"
-                if p == "line" and parts[i + 1] in ("multi", "yaml"):
+                if p == "line" and parts[i + 1] == "yaml":
                     state["multi"] = True
         elif cmd in ("run", "minimize", "rerun") and len(parts) >= 2:
             state["last_cmd"] = cmd
@@ -300,8 +336,8 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
     blocks, state = _scan(text, path)
     warnings.extend(state["warnings"])
     if state["multi"]:
-        raise EnergyTableError("thermo output in the 'multi' or 'yaml' line layout is not read; rerun with the "
-                               "default one-line layout (thermo_modify line one)", path=path)
+        raise EnergyTableError("thermo output in the 'yaml' line layout is not read; rerun with the default "
+                               "one-line layout (thermo_modify line one) or 'multi'", path=path)
     md = [b for b in blocks if b.kind == "run" and b.values.shape[0] > 0]
     n_min = sum(1 for b in blocks if b.kind == "minimize")
     if not md:

@@ -641,8 +641,8 @@ def test_lammps_killed_run_and_multi_layout(tmp_path):
     p.write_text("LAMMPS (29 Sep 2021)\nunits real\nfix 1 all nve\nrun 100\nStep Temp TotEng\n 0 90 -1.0\n 10 95 -1.1\n")
     run = open_run([p])
     assert len(run.energies) == 2 and any("no 'Loop time' line" in w for w in run.warnings)
-    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nthermo_modify line multi\nrun 10\n")
-    with pytest.raises(EnergyTableError, match="'multi'"):
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nthermo_modify line yaml\nrun 10\n")
+    with pytest.raises(EnergyTableError, match="'yaml'"):
         open_run([p])
 
 
@@ -751,3 +751,15 @@ def test_md_log_and_edr_of_an_appended_restart():
     assert not any("repeated" in w for w in g.warnings)
     e = open_run([d / "md.edr"])
     np.testing.assert_allclose(e.energies.time_ps, np.arange(13) * 0.01, atol=1e-12)
+
+
+def test_lammps_multi_line_records_equal_the_one_line_rows_of_the_same_run():
+    # two logs LAMMPS wrote of one run (tests/data/engines_energy/README.md): multi prints 4 decimals
+    d = DATA.parent / "engines_energy" / "lammps_lj_multi"
+    one = open_run([d / "log.one.lammps"])
+    multi = open_run([d / "log.multi.lammps"])
+    np.testing.assert_allclose(multi.energies.time_ps, one.energies.time_ps)
+    for name in ("TotEng", "PotEng", "KinEng", "Temp", "Press"):
+        np.testing.assert_allclose(multi.energies.series[name].values, one.energies.series[name].values, atol=5e-5)
+    assert multi.metadata.n_dof == one.metadata.n_dof == 3 * 256 - 3  # KinEng = 1/2 dof T, lj units
+    assert multi.metadata.ensemble == "NVE"  # the production run after the NVT one
