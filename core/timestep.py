@@ -427,6 +427,7 @@ class ExpectedMotion:
     high_per_cm: float
     count: int  # bonds or angles of this kind
     source: str  # where it was found, in words
+    assumed: bool = False  # True: nothing says whether these bonds are constrained (assumed free)
 
     @property
     def shortest_period_ps(self) -> float:
@@ -455,6 +456,7 @@ def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraint
         rigid = {(int(min(a, b)), int(max(a, b))) for a, b in np.asarray(rigid_pairs).reshape(-1, 2)}
     all_h = any(w in words for w in ("hbond", "h-bond", "bonds to h", "hydrogen", "all bonds", "allbond", "h-angle"))
     rigid_water = "water" in words or all_h
+    assumed = False
     if n_constraints == 0:
         how = "not constrained (no constraints)"
     elif rigid_pairs is not None:
@@ -463,6 +465,7 @@ def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraint
         how = f"constraints: {constraints_words}"
     else:
         how = "constraints unknown: assumed free"
+        assumed = True
 
     def is_light(i: int) -> bool:
         return 0.0 < m[i] < LIGHT_ATOM_AMU
@@ -499,21 +502,24 @@ def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraint
             cur = stretch[key]
             cur[0], cur[1], cur[2] = min(cur[0], lo * scale), max(cur[1], hi * scale), cur[2] + 1
             neighbours_h.setdefault(x, []).append(h)
+        n_xh = int(sum(v[2] for v in stretch.values()))
+        if assumed and n_constraints is not None and n_constraints >= n_xh:
+            return ()  # enough constraints for every bond to hydrogen: taken as constrained
         for key, (lo, hi, cnt) in sorted(stretch.items(), key=lambda kv: -kv[1][1]):
-            out.append(ExpectedMotion(key, lo, hi, int(cnt), f"topology: {int(cnt)} bonds, {how}"))
+            out.append(ExpectedMotion(key, lo, hi, int(cnt), f"topology: {int(cnt)} bonds, {how}", assumed))
         bends = sum(len(hs) * (len(hs) - 1) // 2 for hs in neighbours_h.values())
         if bends:
             out.append(ExpectedMotion("H-X-H bend", HXH_BEND_CM[0], HXH_BEND_CM[1], bends,
-                                      f"topology: {bends} angles between unconstrained bonds to hydrogen"))
+                                      f"topology: {bends} angles between unconstrained bonds to hydrogen", assumed))
         return tuple(out)
     n_light = int(np.count_nonzero((m > 0) & (m < LIGHT_ATOM_AMU)))
-    if n_light and n_constraints != 0 and not all_h:
+    if n_light and not all_h and not (n_constraints is not None and n_constraints >= n_light):
         mh = float(np.median(m[(m > 0) & (m < LIGHT_ATOM_AMU)]))
         scale = math.sqrt(_USUAL_H_MASS / mh)  # X much heavier than H: the reduced mass is about m_H
         lo, hi = XH_STRETCH_OTHER_CM
         out.append(ExpectedMotion("X-H stretch", lo * scale, 3700.0 * scale, n_light,
                                   f"masses: {n_light} atoms lighter than {LIGHT_ATOM_AMU:g} amu (hydrogen), "
-                                  f"bonds unknown, {how}"))
+                                  f"bonds unknown, {how}", assumed or n_constraints is None))
     return tuple(out)
 
 
@@ -570,6 +576,11 @@ class TimestepJudgement:
     expected: tuple[ExpectedMotion, ...]
     nyquist_per_cm: float
     frame_spacing_ps: float
+    assumed: bool = False  # the period comes from an expected motion whose constraints are unknown
+
+
+ASSUMED_WORDS = ("; this rests on an assumption: nothing in the files says whether these bonds are constrained "
+                 "(give --constraints N, or the topology, to settle it), so it is a caution, not a problem")
 
 
 def judge_basis(fastest: FastestMotion | None, expected: tuple[ExpectedMotion, ...] | list[ExpectedMotion],
@@ -591,7 +602,7 @@ def judge_basis(fastest: FastestMotion | None, expected: tuple[ExpectedMotion, .
         e = min(unres or exp, key=lambda m: m.shortest_period_ps)
         why = ", which the frames cannot show" if unres else ""
         return TimestepJudgement(e.shortest_period_ps, f"{e.words()} ({e.source}){why}", False, unres, exp, ny,
-                                 frame_spacing_ps)
+                                 frame_spacing_ps, assumed=e.assumed)
     if fastest is not None:
         return TimestepJudgement(fastest.period_ps, f"the spectrum's fastest motion {fastest.wavenumber_per_cm:.0f} "
                                  f"cm^-1 ({fastest.method}), near the Nyquist limit {ny:.0f} cm^-1: a faster motion "
@@ -645,6 +656,8 @@ def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, ti
         v = judge("timestep.fastest_period", spp, title="Time step", unit="steps per period", message=msg,
                   advice=EXPLANATIONS["timestep.fastest_period"].advice,
                   details={"period_ps": jb.period_ps, "basis": jb.basis, "upper_bound": jb.upper_bound})
+        if jb.assumed and v.level == "problem":
+            v = _replace(v, level="caution", message=msg + ASSUMED_WORDS)
         if jb.upper_bound and v.level == "ok":
             v = _replace(v, level="caution", message=msg + "; the spectrum cannot show whether a faster motion "
                          "exists, so 'ok' cannot be concluded")
@@ -677,6 +690,8 @@ def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, ti
         v = judge("timestep.expected_motion", fpp, title="Frames vs expected fast motions", unit="frames per period",
                   message=msg, advice=EXPLANATIONS["timestep.expected_motion"].advice,
                   details={"unresolved": [e.name for e in jb.unresolved]})
+        if fastest_exp.assumed and v.level == "problem":
+            v = _replace(v, level="caution", message=msg + ASSUMED_WORDS)
         if jb.unresolved and v.level == "ok":  # between 0.8 and 1 of Nyquist: not resolved either
             v = _replace(v, level="caution")
         out.append(v if v.level != "ok" else _replace(v, advice=""))

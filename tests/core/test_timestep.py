@@ -270,14 +270,15 @@ def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(
 
     res = result_of(audit_run(_flexible(10, topology=topology), timestep_ps=0.003))
     v = {x.kind: x for x in res.verdicts}
-    # was "ok, 11.4 steps per period"; limit ~0.9 fs = period of 3700 cm^-1 / 10 (common practice)
-    assert v["timestep.fastest_period"].level == "problem"
+    # was "ok, 11.4 steps per period"; limit ~0.9 fs = period of 3700 cm^-1 / 10 (common practice). With the
+    # topology the positions show the bonds are free (problem); without it that is an assumption (caution)
+    assert v["timestep.fastest_period"].level == ("problem" if topology else "caution")
     period = v["timestep.fastest_period"].details["period_ps"]
     assert period == pytest.approx(1 / (3700 * C_CM_PER_S * 1e-12), rel=1e-3)  # H mass of the file, not 1.008
     what = "O-H stretch near 3400-3700 cm^-1" if topology else "X-H stretch"
     assert what in v["timestep.expected_motion"].message
     assert "cannot be seen at 10 fs frames" in v["timestep.expected_motion"].message
-    assert v["timestep.expected_motion"].level == "problem"
+    assert v["timestep.expected_motion"].level == ("problem" if topology else "caution")
 
 
 def test_flexible_water_1fs_resolves_the_stretch_and_judges_by_the_measured_peak():
@@ -292,3 +293,16 @@ def test_flexible_water_1fs_resolves_the_stretch_and_judges_by_the_measured_peak
     # the run's own step, 0.5 fs (reported.json), is ok against the measured stretch
     ok = {x.kind: x for x in result_of(audit_run(_flexible(1), timestep_ps=0.0005)).verdicts}
     assert ok["timestep.fastest_period"].level == "ok"
+
+
+def test_constraints_known_or_unknown_set_how_sure_the_check_is():
+    m = np.tile([15.999, 1.008, 1.008], 4)
+    # no topology, constraints unknown: an assumption, said so; with 8 constraints for 8 hydrogens: none expected
+    e = ts.expected_fast_motions(None, m)
+    assert e[0].assumed and "assumed free" in e[0].source
+    assert ts.expected_fast_motions(None, m, n_constraints=8) == ()
+    assert not ts.expected_fast_motions(None, m, n_constraints=0)[0].assumed
+    # an assumed stretch caps the verdicts at caution and says why
+    out = {v.kind: v for v in ts.timestep_verdicts(None, 0.010, 0.003, "user", e)}
+    assert out["timestep.fastest_period"].level == "caution" and "assumption" in out["timestep.fastest_period"].message
+    assert out["timestep.expected_motion"].level == "caution"
