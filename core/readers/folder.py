@@ -116,8 +116,9 @@ def find_run_files(folder: str | Path) -> FolderFiles:
         chosen = [p for p in ps if _FORMAT_RANK.get(_suffix(p), 5) == best]
         for p in ps:
             if p not in chosen:
-                out.left_out.append((p, f"the same run as {chosen[0].name}, which holds more"
-                                        + (" (velocities)" if best <= 2 else "")))
+                out.left_out.append((p, f"the same run as {chosen[0].name}, which "
+                                        + ("stores velocities" if best <= 2 else "is preferred")
+                                        + "; name the files to use this one instead"))
     elif tops:
         # no trajectory: a structure file (one frame) may still be a run
         struct = [p for p, _ in tops if _suffix(p) in _STRUCTURE]
