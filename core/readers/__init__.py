@@ -398,6 +398,10 @@ def open_run(
             warnings.append("velocities are estimated by central differences of positions, but the files "
                             "hold no time axis: they are per frame, not per ps, until times are given "
                             "(an energy table with one row per frame, or a trajectory format with times)")
+        elif run.metadata.extra.get("time_from") == "step number":
+            warnings.append("velocities are estimated by central differences of positions, but the time step is "
+                            "not known: they are per MD step, not per ps, until it is given (log.lammps or "
+                            "--timestep)")
         else:
             warnings.append(frame_spacing_warning(run.frames.inner, run.time_ps, run.masses_amu,
                                                   temperature_K=temp))

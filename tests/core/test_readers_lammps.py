@@ -426,3 +426,12 @@ def test_describe_labels_step_numbers_and_molecules_from_the_mol_column(tmp_path
     assert "time: 0 steps to 100 steps" in out and "time step is not known" in out
     run = open_run([p], units_style="metal")
     assert [r.n_atoms for r in run.topology.residues] == [2, 1]  # molecules 1 (ids 1, 2) and 2 (id 3)
+
+
+def test_dump_without_velocities_or_time_step_says_velocities_are_per_step(tmp_path):
+    p = tmp_path / "novel.lammpstrj"
+    p.write_text("".join(HAND.format(step=s).replace(" vx vy vz", "").replace(" 0.5 0.0 0.0 ", " ")
+                         .replace(" 0.0 1.0 0.0 ", " ").replace(" 0.0 0.0 2.0 ", " ") for s in (0, 10, 20)))
+    run = open_run([p], units_style="real")
+    assert run.frames.velocities_estimated
+    assert any("per MD step, not per ps" in w for w in run.warnings)
