@@ -763,3 +763,21 @@ def test_lammps_multi_line_records_equal_the_one_line_rows_of_the_same_run():
         np.testing.assert_allclose(multi.energies.series[name].values, one.energies.series[name].values, atol=5e-5)
     assert multi.metadata.n_dof == one.metadata.n_dof == 3 * 256 - 3  # KinEng = 1/2 dof T, lj units
     assert multi.metadata.ensemble == "NVE"  # the production run after the NVT one
+
+
+def test_lammps_norm_yes_in_real_units_gives_totals(tmp_path):
+    # thermo_modify norm yes: energies per atom, Ecouple not divided (ENGINES.md, checked on LAMMPS 2021);
+    # 10 atoms, dof = 3 x 10 - 3 = 27, KinEng per atom = 1/2 dof k_B T / N with k_B of real units
+    kB = 0.0019872067
+    ke = [0.5 * 27 * kB * T / 10 for T in (300.0, 310.0)]
+    p = tmp_path / "log.lammps"
+    p.write_text("LAMMPS (29 Sep 2021)\nunits real\nfix 1 all nvt temp 300 300 100\nthermo_modify norm yes\nrun 10\n"
+                 "Step Temp KinEng TotEng Ecouple Econserve\n"
+                 f" 0 300 {ke[0]:.10f} -5.0 0.0 -5.0\n 10 310 {ke[1]:.10f} -5.1 2.0 -4.9\n"
+                 "Loop time of 0.1 on 1 procs for 10 steps with 10 atoms\n")
+    run = open_run([p])
+    t = run.energies
+    np.testing.assert_allclose(t.by_role("total").values, np.array([-50.0, -51.0]) * KCAL)
+    np.testing.assert_allclose(t.by_role("bath_heat").values, np.array([0.0, 2.0]) * KCAL)  # already a total
+    np.testing.assert_allclose(t.by_role("conserved").values, np.array([-50.0, -49.0]) * KCAL)  # TotEng N + Ecouple
+    assert run.metadata.n_dof == 27
