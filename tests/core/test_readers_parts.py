@@ -201,3 +201,18 @@ def test_parts_whose_clocks_restart_follow_their_names(tmp_path, whole):
     np.testing.assert_allclose(run.time_ps, (np.arange(20) + 1) * DT, atol=1e-5)
     np.testing.assert_array_equal(_positions(run), xyz[:20])
     assert any("each file restarts the clock" in w for w in run.warnings)
+
+
+def test_audit_infers_no_constraints_from_xtc_positions():
+    # Issue: XTC bond lengths (0.001 nm) made rigid water look flexible, 1203 instead of 801 DOF. From
+    # the XTC the audit infers nothing (and says so); from the TRR of the same run (GROMACS 2022.5, full
+    # precision) the rigid pairs are still found. Reference: md.log nrdf 801 (reported.json).
+    from phasewake.core.audit import audit_run
+    from phasewake.core.progress import drive
+
+    d = GMX / "spce_rigid_nve_whole"
+    xtc = drive(audit_run(open_run([d / "md.xtc", d / "md.gro"])))
+    assert "inferred" not in xtc.temperature.constraints_source
+    assert "precise positions" in xtc.temperature.constraints_source
+    trr = drive(audit_run(open_run([d / "md.trr", d / "md.gro"])))
+    assert trr.temperature.constraints_source.startswith("inferred from rigid pair distances")
