@@ -108,6 +108,32 @@ def test_coordinate_spec_any_text(spec):
         pass
 
 
+@BUDGET
+@given(rows=st.lists(st.lists(st.one_of(st.floats(allow_nan=True, allow_infinity=True, width=64).map(repr),
+                                        st.integers(-10**20, 10**20).map(str),
+                                        st.sampled_from(["1e400", "-1E-400", "+.5", "5.", "1_000", "0x10", "nan",
+                                                         " 7 ", "infinity", "-Infinity", '"3.5"', "1e5"])),
+                              min_size=3, max_size=3), min_size=1, max_size=40),
+       delim=st.sampled_from([",", "\t", ";", " "]))
+def test_energy_table_numbers_match_python_float(tmp_path, rows, delim):
+    # Reference: Python's own float() of each cell (the table reader parses plain blocks with numpy's C
+    # parser and any other block cell by cell; both must agree with float() or refuse the line).
+    from phasewake.core.readers.tables import read_table
+
+    if delim == " ":
+        rows = [[c.strip() for c in r] for r in rows]
+    p = tmp_path / "fuzz_numbers.csv"
+    p.write_text(delim.join(["step", "potential (kJ/mol)", "x (nm)"]) + "\n"
+                 + "".join(delim.join(r) + "\n" for r in rows))
+    try:
+        table, _ = read_table(p)
+    except PhasewakeError:
+        return
+    want = np.array([[float(c.strip().strip('"')) for c in r] for r in rows])
+    got = np.column_stack([table.series["potential"].values, table.series["x"].values])
+    np.testing.assert_array_equal(got, want[:, 1:])
+
+
 # Numbers as a user (or a paste from elsewhere) may write them: huge indices, digits Python accepts but
 # int() or an atom list does not (superscripts, other scripts), NaN/inf literals, signs, huge ranges.
 ODD_NUMBER = st.one_of(
