@@ -673,3 +673,71 @@ def lammps_dump_open_and_read(full: bool, work: Path) -> Outcome:
         baseline_s=base, target="<= 3x the plain read", target_ratio=3.0,
         sizes={"atoms": n_atoms, "frames": n_frames, "MB": round(path.stat().st_size / 1e6, 1),
                "read_all_frames_s": round(read, 3), "read_all_ratio": round(read / base, 2)}))
+
+
+def make_energy_csv(path: Path, n_rows: int) -> Path:
+    """A CSV energy table with six columns (time, potential, kinetic, total, temperature, pressure)."""
+    if path.exists():
+        return path
+    rng = _rng()
+    tmp = path.with_suffix(".part")
+    with open(tmp, "w") as f:
+        f.write("time (ps),potential (kJ/mol),kinetic (kJ/mol),total (kJ/mol),temperature (K),pressure (bar)\n")
+        for i in range(0, n_rows, 100_000):
+            m = min(100_000, n_rows - i)
+            cols = [np.arange(i, i + m) * 0.002, rng.normal(-5e4, 50, m), rng.normal(2e4, 30, m),
+                    rng.normal(-3e4, 5, m), rng.normal(300, 3, m), rng.normal(1, 100, m)]
+            np.savetxt(f, np.column_stack(cols), delimiter=",", fmt="%.10g")
+    tmp.rename(path)
+    return path
+
+
+def _table_peak_child(path: str, kind: str, q) -> None:  # runs in a spawned process
+    import resource
+
+    from phasewake.core.readers.tables import read_table
+
+    with open("/proc/self/statm") as fh:
+        rss0 = int(fh.read().split()[1]) * resource.getpagesize() / 1e6
+    if kind == "table":
+        table, _ = read_table(path)
+        n = len(table)
+    else:
+        n = np.load(path).shape[0]
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0 * 1.048576  # KiB -> MB
+    q.put((peak - rss0, n))
+
+
+def _table_extra_peak_mb(path: Path, kind: str) -> tuple[float, int]:
+    import multiprocessing as mp
+
+    ctx = mp.get_context("spawn")
+    q = ctx.Queue()
+    p = ctx.Process(target=_table_peak_child, args=(str(path), kind, q))
+    p.start()
+    out = q.get()
+    p.join()
+    return float(out[0]), int(out[1])
+
+
+@case
+def energy_table_memory(full: bool, work: Path) -> Outcome:
+    """Peak memory of reading a CSV energy table, against loading the same numbers (float64) from a .npy
+    file: the table is streamed into one array, never held whole as text or as a str per cell."""
+    n = 10_000_000 if full else 200_000
+    path = make_energy_csv(work / f"energy{n}.csv", n)
+    npy = work / f"energy{n}.npy"
+    if not npy.exists():
+        np.save(npy, np.zeros((n, 6)))
+    p_table, rows = _table_extra_peak_mb(path, "table")
+    p_npy, _ = _table_extra_peak_mb(npy, "npy")
+    o = Outcome(
+        name="energy_table_memory", what=f"extra peak memory of reading a {n:.0e}-row, 6-column CSV energy table "
+        f"({path.stat().st_size / 1e6:.0f} MB)", baseline=f"np.load of the same numbers from .npy ({p_npy:.0f} MB)",
+        target="<= 1.5x the .npy load (the text read whole took ~14x the file's size before)", target_ratio=1.5,
+        ratio=p_table / max(p_npy, 1e-9),
+        notes=f"extra peak {p_table:.0f} MB for the CSV ({rows} rows), {p_npy:.0f} MB for the .npy",
+        sizes={"rows": n, "csv_MB": round(path.stat().st_size / 1e6, 1), "extra_peak_table_mb": p_table,
+               "extra_peak_npy_mb": p_npy})
+    o.met = o.ratio is not None and o.ratio <= 1.5
+    return o
