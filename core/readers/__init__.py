@@ -347,6 +347,7 @@ def open_run(
             run.metadata.extra.update(res.extra)
         warnings.extend(table_warnings)
     if table is not None:
+        _refuse_non_finite_time(table)
         run.energies = _merge_tables(run.energies, table, warnings)
         run.metadata.sources["energies"] = ", ".join(Path(p).name for p in table.sources)
         if run.frames is None:
@@ -476,6 +477,20 @@ def _keep_later_segments(run: Run) -> None:
                                        series={k: replace(s_, values=np.asarray(s_.values)[keep])
                                                for k, s_ in tab.series.items()},
                                        sources=tab.sources, joins=tab.joins + joins)
+
+
+def _refuse_non_finite_time(table: EnergyTable) -> None:
+    """Every energy reader's time axis, whatever its engine: NaN, infinite or overflowing times are
+    refused naming the file (backward or repeated times are the energy checks' business)."""
+    from phasewake.core.errors import TimeAxisError
+
+    t = np.asarray(table.time_ps, dtype=np.float64)
+    with np.errstate(over="ignore", invalid="ignore"):
+        bad = ~np.isfinite(t) if t.size < 2 else ~np.isfinite(t) | np.append(~np.isfinite(np.diff(t)), False)
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        raise TimeAxisError(f"energy sample {i} is at time {t[i]:g} ps: not a finite number, or the time axis "
+                            "overflows", path=table.sources[0] if table.sources else None)
 
 
 def _is_topology_like(path: Path) -> bool:

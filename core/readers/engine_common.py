@@ -118,6 +118,12 @@ def finish_table(path: Path, time_ps: np.ndarray, builder: SeriesBuilder, warnin
     """The EnergyTable of one engine file; duplicate or backward times are dropped with a warning
     (engines repeat a step on restart: the later value is kept)."""
     time_ps = np.asarray(time_ps, dtype=np.float64)
+    if not np.all(np.isfinite(time_ps)):  # NaN would pass as a "repeat" and silently drop the rows after it
+        from phasewake.core.errors import TimeAxisError
+
+        i = int(np.flatnonzero(~np.isfinite(time_ps))[0])
+        raise TimeAxisError(f"energy sample {i} has time {time_ps[i]:g} ps; every sample needs a finite time "
+                            "(NaN, infinite, or too large for its unit)", path=path)
     keep = _keep_last_of_repeats(time_ps)
     if keep is not None:
         n_drop = int(time_ps.size - keep.size)

@@ -173,6 +173,19 @@ def test_nan_or_inf_in_the_time_column_is_refused(tmp_path, capsys, bad):
     assert "line 4" in text
 
 
+def test_nan_time_in_an_engine_energy_file_is_refused_not_dropped(tmp_path, capsys):
+    # a CP2K .ener laid out per ENGINES.md (step, time in fs, kinetic, temperature, potential, conserved,
+    # used time); the NaN was taken for a restart's repeat and it and every later row dropped silently
+    head = "#     Step Nr.          Time[fs]        Kin.[a.u.]          Temp[K]            Pot.[a.u.]" \
+           "        Cons Qty[a.u.]        UsedTime[s]\n"
+    rows = "".join(f"{k:10d} {t:>19} 0.01 300.0 -1.0 -0.99 0.1\n"
+                   for k, t in enumerate(["0.000", "1.000", "NaN", "3.000", "4.000"]))
+    p = tmp_path / "run-1.ener"
+    p.write_text(head + rows)
+    text = expect_refusal(["describe", str(p)], [p], ["finite"], capsys)
+    assert "sample 2" in text
+
+
 def test_a_time_axis_that_overflows_is_refused(tmp_path, capsys):
     # finite in ns, infinite in ps: 1e306 ns = 1e309 ps > the largest float (1.8e308)
     files = table_run(tmp_path, "time (ns),potential (kJ/mol)\n0,1\n1e305,2\n1e306,3\n")
