@@ -105,7 +105,9 @@ def plain_words(text: str) -> str:
     if not text:
         return text
     text = re.sub(r"phasewake\.(?:core|app)\.(?:[A-Za-z_]+\.)*([A-Za-z_]+)", lambda m: m.group(1).replace("_", " "), text)
-    text = text.replace("+/-", "±").replace("+-", "±")
+    text = text.replace("+/-", "±").replace("+-", "±").replace(" <= ", " ≤ ").replace(" >= ", " ≥ ")
+    text = re.sub(r"\b(cm|ps|ns|fs|nm)\^-1\b", r"\1⁻¹", text)
+    text = re.sub(r"\b([AB])->([AB])\b", r"\1→\2", text)
     text = re.sub(r"\bsigma_([A-Za-z]+)\b", r"σ_\1", text)
     text = re.sub(r"(-?\d+(?:\.\d+)?(?:[eE][+-]?\d+)?) ± (\d+(?:\.\d+)?[eE][+-]?\d+)", _fix_plus_minus, text)
 
@@ -408,7 +410,7 @@ def audit_spectrum_figure(audit: Any) -> FigureSpec:
                     + (f", time steps per period {c.steps_per_period:.3g}" if c.steps_per_period else "")
                     + f"; a common rule of thumb keeps the time step below period/10 = "
                       f"{c.recommended_max_timestep_ps * 1e3:.3g} fs. ")
-    caption += tsa.note
+    caption += tsa.note[:1].upper() + tsa.note[1:] if tsa.note else ""
     return FigureSpec(key="timestep.spectrum", title=f"Velocity spectrum: {audit.run_name}",
                       plots=(PlotSpec(title="Velocity power spectrum", x=Axis("Wavenumber", "cm⁻¹", limits=limits),
                                       y=Axis("Power (normalised)", ""), items=tuple(items)),),

@@ -376,6 +376,10 @@ def _pca_settings(run: Run) -> dict[str, Any]:
     """The Phase space panel's principal components: the solute, 3 components, exact route when small."""
     coords = module_or_none("coordinates")
     group = coords.solute_atoms(run.topology, run.n_atoms)
+    if group.size < 3:
+        # a solute of one or two atoms has no shape to analyse (two atoms: only their distance varies once
+        # rotation and translation are fitted away): the components of the whole system instead
+        group = np.arange(run.n_atoms)
     method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
     return {"atom_indices": group, "n_components": 3, "method": method}
 
@@ -422,7 +426,7 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     settings = _pca_settings(ctx.run)
     group = np.asarray(settings["atom_indices"])
     if group.size < 3:
-        return PanelResult(message=f"No principal components: the solute has {plots.atoms_text(group)}; with the "
+        return PanelResult(message=f"No principal components: the run has {plots.atoms_text(group)}; with the "
                                    "rotation and translation fitted away only their distance varies, so PCA would "
                                    "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
@@ -432,8 +436,15 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     pca = yield from _relay(work, 0, 1, 1, "principal components")
     traces: dict[str, Trace] = {}
     coords_text = plots.atoms_text(group)
-    solute = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms).size < ctx.run.n_atoms
-    figs = _pca_figures(pca, traces, atoms=f"the solute, {coords_text}" if solute else coords_text)
+    solute = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
+    if solute.size < 3 and group.size == ctx.run.n_atoms:
+        atoms = (f"all {coords_text} (the solute, {plots.atoms_text(solute)}, is too small for principal components: "
+                 "two atoms only change their distance)")
+    elif solute.size < ctx.run.n_atoms:
+        atoms = f"the solute, {coords_text}"
+    else:
+        atoms = coords_text
+    figs = _pca_figures(pca, traces, atoms=atoms)
     return PanelResult(figures=tuple(figs), traces=traces, info={"pca": pca})
 
 

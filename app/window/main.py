@@ -80,6 +80,7 @@ class MainWindow(QtWidgets.QMainWindow):
         self._computed_for: Run | None = None
         self._extras_waiting: dict[str, list[PanelResult]] = {}
         self._export_counter = 0
+        self._narrow = False  # the window is narrower than NARROW_PX (the Runs column collapsed)
         self._coordinates_to_restore: dict[tuple[str, ...], str] = {}  # a session's per-run coordinates
         self._export_kinds: dict[str, str] = {}  # job key -> "Figure", "Data" or "Report"
 
@@ -915,9 +916,12 @@ class MainWindow(QtWidgets.QMainWindow):
 
     def resizeEvent(self, event):  # noqa: N802 - Qt override
         super().resizeEvent(event)
-        if self.width() < NARROW_PX and self.runs_dock.isVisible() and self.runs_dock.width() > 190:
-            # a laptop-sized window: the Runs column collapses to its narrowest, the panels get the room
-            self.resizeDocks([self.runs_dock], [180], QtCore.Qt.Orientation.Horizontal)
+        narrow = self.width() < NARROW_PX
+        if narrow != self._narrow and self.runs_dock.isVisible():
+            # crossing into a laptop-sized window, the Runs column collapses to its narrowest and the panels
+            # get the room; back on a large screen it has its width again
+            self._narrow = narrow
+            self.resizeDocks([self.runs_dock], [180 if narrow else RUNS_WIDTH], QtCore.Qt.Orientation.Horizontal)
 
     def closeEvent(self, event):  # noqa: N802 - Qt override
         self.jobs.cancel_all()

@@ -77,6 +77,21 @@ def render(paths: Sequence[str], output: Path, *, size: tuple[int, int] = DEFAUL
         if not win.grab().save(str(path)):
             raise OSError(f"could not write {path}")
         written.append(path)
+        # every other figure the panel's Show box offers (VACF, spectra, blocking, dwell times, ...)
+        panel = win.panels[name]
+        first = panel.chooser.currentIndex()
+        for k in range(panel.chooser.count()):
+            if k == first:
+                continue
+            panel.chooser.setCurrentIndex(k)
+            for _ in range(3):
+                app.processEvents()
+            key = str(panel.chooser.itemData(k) or k).replace(".", "-")
+            extra = output / f"{i + 1}-{_slug(name)}-{key}.png"
+            win.grab().save(str(extra))
+            written.append(extra)
+        if panel.chooser.count():
+            panel.chooser.setCurrentIndex(max(first, 0))
     # an explanation side note open, as after clicking a verdict's title
     energy = win.panels["Energy"]
     win.tabs.setCurrentWidget(energy)

@@ -131,13 +131,11 @@ def test_open_sample_every_panel_draws_data(win):
         assert _drawn_points(panel) > 0, name
     if analyses.module_or_none("projection") is not None:  # principal components join the Phase space panel
         keys = [f.key for f in w.panels["Phase space"].result.figures]
-        from phasewake.core.coordinates import solute_atoms
-
-        if solute_atoms(w.model.current.run.topology, w.model.current.run.n_atoms).size >= 3:
-            assert "phase.pca_variance" in keys, keys
-        else:  # the sample's solute is the dimer: PCA over 2 atoms is refused, with the reason
-            assert "phase.pca_variance" not in keys
-            assert "No principal components: the solute has atoms 0 and 1" in w.panels["Phase space"].notes_text()
+        assert "phase.pca_variance" in keys, keys
+        # the sample's solute is the dimer: two atoms have no shape, so the components are of the whole system,
+        # and the caption says which atoms and why
+        cap = next(f.caption for f in w.panels["Phase space"].result.figures if f.key == "phase.pca_variance")
+        assert "all atoms 0–53 (54 atoms)" in cap and "atoms 0 and 1" in cap, cap
     energy = w.panels["Energy"]
     assert energy.result.verdicts, "the audit's verdicts are shown on the Energy panel"
     assert any(word in energy.notes_text() for word in ("ok", "caution", "problem"))
