@@ -164,7 +164,7 @@ def run(args: argparse.Namespace) -> int:
     timestep_ps = None if args.timestep is None else args.timestep * 1e-3
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
     work = cached_audit(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
-                        temperature_K=args.temperature, require_temperature=args.constraints is not None,
+                        temperature_K=args.temperature, require_temperature=False,
                         groups=groups or None, compare=other,
                         compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3,
                         cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
