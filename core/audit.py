@@ -1035,6 +1035,14 @@ def audit_run(
         if temp.velocities_estimated and t_filek is None:
             notes.append("Velocities were estimated from positions (central differences): the kinetic "
                          "temperature from them is biased low when frames are far apart.")
+    if temp is None and file_T is not None:
+        ft = next((x for x in sampling if x.name == file_T.name), None)
+        if ft is not None:
+            temp_verdicts.append(Verdict(
+                "temperature.dof", "info", "Kinetic temperature", ft.mean, "K",
+                f"T = {_fmt(ft.mean)} +- {_fmt(ft.standard_error_of_mean)} K from the file's temperature column "
+                f"'{file_T.name}' (the engine's own value; the degrees of freedom it rests on cannot be counted "
+                "here)"))
     kT_ref = target_T if target_T is not None else (temp.mean_K if temp is not None else None)
     dof_for_drift = n_dof
     if n_dof is None and file_kin is not None and file_T is not None:
@@ -1177,8 +1185,9 @@ def audit_run(
                          after_energy=after_energy, after_temperature=temp_verdicts,
                          restarts_found=bool(joins))
     if not run.n_atoms and temp is None:
-        verdicts = [replace(v, message="not checked: the files hold no atoms (energy table only), so the degrees "
-                            "of freedom cannot be counted") if v.kind == "temperature.file_mismatch" else v
+        verdicts = [replace(v, title="Temperature vs file", message="not checked: the files hold no atoms (energy "
+                            "table only), so the degrees of freedom cannot be counted")
+                    if v.kind == "temperature.file_mismatch" else v
                     for v in verdicts]
     yield Progress(total, total, "done")
     return AuditResult(run_name=run.name, paths=tuple(str(p) for p in run.paths), ensemble=ensemble,

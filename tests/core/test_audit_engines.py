@@ -81,3 +81,13 @@ def test_gromacs_leapfrog_trr_against_the_edr_kinetic_energy():
     assert ta.n_dof == rep["degrees_of_freedom"]
     assert ta.mean_K == pytest.approx(rep["temperature_mean_K"], abs=0.05)
     assert _verdicts(res)["temperature.half_step"].level == "info"
+
+
+def test_energy_table_only_shows_the_engines_own_temperature():
+    # log.lammps alone (no atoms): the temperature is LAMMPS's own column, said so, equal to its log's value
+    d, rep = _engine("lammps/argon_real_nvt")
+    res = drive(audit_run(open_run([d / "log.lammps"])))
+    shown = [v for v in res.verdicts if v.kind == "temperature.dof"]
+    assert len(shown) == 1 and "the file's temperature column" in shown[0].message
+    assert rep["temperature_units"] == "K"
+    assert shown[0].measured == pytest.approx(rep["temperature_mean"], abs=0.05)
