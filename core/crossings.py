@@ -51,6 +51,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from phasewake.core import interrupts
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 from phasewake.core.rates import (
@@ -575,6 +576,7 @@ def _scan_part(t: np.ndarray | None, q: np.ndarray, s0: int, s1: int, surface: f
     side_buf = np.empty(_CHUNK + 1, bool)  # reused: no allocation per chunk
     pair_buf = np.empty(_CHUNK, bool)
     for s in range(s0, s1, _CHUNK):
+        interrupts.check()  # Ctrl-C / SIGTERM on the command line: stop between chunks (core/interrupts.py)
         e = min(s + _CHUNK, s1)
         lo = max(s - 1, 0)
         m = e - lo

@@ -17,6 +17,7 @@ import numpy as np
 # imported only by analyses, never by ``phasewake --help``.
 from scipy.special import gammaincinv
 
+from phasewake.core import interrupts
 from phasewake.core.errors import AnalysisError
 
 POISSON_INTERVAL_METHOD = (
@@ -147,6 +148,7 @@ def exponential_ks_test(dwells_ps: np.ndarray, *, n_monte_carlo: int | None = No
     block = max(1, 2_000_000 // n)
     done = 0
     while done < m:
+        interrupts.check()  # Ctrl-C / SIGTERM on the command line: stop between blocks (core/interrupts.py)
         k = min(block, m - done)
         sims = rng.exponential(size=(k, n))
         sims.sort(axis=1)  # in place: the same values as np.sort, without a copy

@@ -469,6 +469,28 @@ def test_crossings_real_work_ctrl_c_is_never_swallowed(tmp_path):
     assert interrupted >= 2  # the run takes ~20 s here: the signals land in the work
 
 
+def test_the_crossings_scan_and_dwell_tests_stop_at_a_noted_interrupt():
+    # The long loops of the crossings analysis (the side-change scan, the Monte Carlo of the dwell-time
+    # test) look at the noted signal between chunks, also inside their worker threads.
+    from phasewake.core import interrupts
+    from phasewake.core.crossings import _scan_part
+    from phasewake.core.rates import exponential_ks_test
+
+    q = np.sin(np.arange(200_000) / 50.0)
+    dwell = np.random.default_rng(1).exponential(size=2000)
+    with interrupts.handling():
+        os.kill(os.getpid(), signal.SIGINT)  # noted by the handler: nothing is raised here
+        time.sleep(0.01)
+        assert interrupts.requested() == signal.SIGINT
+        with pytest.raises(KeyboardInterrupt):
+            _scan_part(None, q, 0, q.size, 0.0)
+        with pytest.raises(KeyboardInterrupt):
+            exponential_ks_test(dwell)
+    # outside a command (the window, a library call) the same work runs to the end
+    assert len(_scan_part(None, q, 0, q.size, 0.0)[0]) >= 1
+    assert 0.0 < exponential_ks_test(dwell).p_value <= 1.0
+
+
 def test_stale_temporaries_of_a_killed_writer_are_swept_on_the_next_write(tmp_path, run_copy, cache_dir, capsys):
     out_dir = tmp_path / "out"
     out_dir.mkdir()
