@@ -452,6 +452,9 @@ class LammpsDumpFrames:
                 if vel is not None:
                     vel[j] = rows[:, [cols.index(c) for c in ("vx", "vy", "vz")]] * style.velocity_nm_per_ps
                 box[j] = self._idx.box[k] * style.length_nm
+            from phasewake.core.readers.common import check_box
+
+            box = check_box(box, path=self.path, first_frame=int(sel[0]))  # an edge <= 0 is refused by name
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=box)
 

@@ -126,6 +126,16 @@ def test_impossible_box_in_a_frame_of_a_time_dependent_box_names_the_frame(tmp_p
         check_box(tilted[None], path=None)
 
 
+def test_negative_box_edge_in_a_lammps_dump_is_refused(tmp_path, capsys):
+    # BOX BOUNDS lo hi per axis (LAMMPS dump layout, ENGINES.md); hi below lo is an edge < 0
+    frame = ("ITEM: TIMESTEP\n{step}\nITEM: NUMBER OF ATOMS\n2\nITEM: BOX BOUNDS pp pp pp\n0 50\n0 -50\n0 50\n"
+             "ITEM: ATOMS id type x y z\n1 1 1 1 1\n2 1 2 2 {z}\n")
+    p = tmp_path / "negbox.lammpstrj"
+    p.write_text(frame.format(step=0, z=2) + frame.format(step=10, z=2.1))
+    text = expect_refusal(["describe", str(p), "--units", "real", "--timestep", "1"], [p], ["box edge b"], capsys)
+    assert "positive" in text
+
+
 def test_negative_constraint_count_in_the_file_is_refused(tmp_path, capsys):
     # today: "659 = 3 x 54 - -500" degrees of freedom
     p = h5md_copy(tmp_path, "negc.h5md", lambda f: _set_param(f, "n_constraints", -500))
