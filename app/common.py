@@ -86,6 +86,8 @@ _POSITIVE = {
 _FINITE = {"surface": ("--surface", "")}
 _MIN_INT = {"constraints": ("--constraints", 0), "bins": ("--bins", 2), "segments": ("--segments", 2),
             "pca": ("--pca", 1), "pca_passes": ("--pca-passes", 1), "start": ("--start", 0), "stop": ("--stop", 0)}
+# a histogram with more bins than this holds no information and numpy cannot allocate 1e26 of them
+_MAX_INT = {"bins": ("--bins", 10**6)}
 
 
 def check_options(args: argparse.Namespace) -> None:
@@ -110,6 +112,10 @@ def check_options(args: argparse.Namespace) -> None:
         value = getattr(args, dest, None)
         if isinstance(value, int) and not isinstance(value, bool) and value < least:
             raise InputError(f"{option} {value}: expected a whole number of at least {least}")
+    for dest, (option, most) in _MAX_INT.items():
+        value = getattr(args, dest, None)
+        if isinstance(value, int) and not isinstance(value, bool) and value > most:
+            raise InputError(f"{option} {value}: expected a whole number of at most {most}")
     fit = getattr(args, "fit_range", None)
     if fit is not None and not (all(math.isfinite(v) for v in fit) and 0 <= fit[0] < fit[1]):
         raise InputError(f"--fit-range {fit[0]:g} {fit[1]:g}: expected two finite times 0 <= FROM < TO in ps")

@@ -298,6 +298,7 @@ def test_numeric_edge_cases_of_the_coordinate_specification(capsys, spec, words)
 
 @pytest.mark.parametrize("argv, option", [
     (["memory", str(NVE), "--bins", "0"], "--bins"),
+    (["memory", str(NVE), "--bins", "9" * 26], "--bins"),  # numpy: "Maximum allowed size exceeded"
     (["memory", str(NVE), "--segments", "1"], "--segments"),
     (["memory", str(NVE), "--vacf", "--max-lag", "nan"], "--max-lag"),
     (["memory", str(NVE), "--vacf", "--gk-limit", "nan"], "--gk-limit"),
