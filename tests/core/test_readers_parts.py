@@ -216,3 +216,49 @@ def test_audit_infers_no_constraints_from_xtc_positions():
     assert "precise positions" in xtc.temperature.constraints_source
     trr = drive(audit_run(open_run([d / "md.trr", d / "md.gro"])))
     assert trr.temperature.constraints_source.startswith("inferred from rigid pair distances")
+
+
+def _amber_nc(path: Path, xyz_nm: np.ndarray, vel_internal: np.ndarray, time_ps: np.ndarray) -> Path:
+    """An AMBER NetCDF trajectory laid out per the AMBER NetCDF convention (ENGINES.md; AMBER cannot be
+    installed here), written with scipy's NetCDF-3 writer: coordinates in Angstrom, velocities in AMBER's
+    internal unit with scale_factor 20.455, time in ps."""
+    from scipy.io import netcdf_file
+
+    with netcdf_file(str(path), "w", version=2) as nc:
+        nc.Conventions = b"AMBER"
+        nc.ConventionVersion = b"1.0"
+        nc.program = b"test"
+        nc.programVersion = b"1"
+        nc.createDimension("frame", None)
+        nc.createDimension("spatial", 3)
+        nc.createDimension("atom", xyz_nm.shape[1])
+        sp = nc.createVariable("spatial", "c", ("spatial",))
+        sp[:] = np.array(list("xyz"), dtype="S1")
+        t = nc.createVariable("time", "f", ("frame",))
+        t.units = b"picosecond"
+        c = nc.createVariable("coordinates", "f", ("frame", "atom", "spatial"))
+        c.units = b"angstrom"
+        v = nc.createVariable("velocities", "f", ("frame", "atom", "spatial"))
+        v.units = b"angstrom/picosecond"
+        v.scale_factor = np.float32(20.455)
+        t[:] = time_ps
+        c[:] = xyz_nm * 10
+        v[:] = vel_internal
+    return path
+
+
+def test_amber_netcdf_parts_prod1_prod2_join_with_velocities(tmp_path, whole):
+    # AMBER restarts continue TIME(PS) from the restart file and repeat no frame (ENGINES.md, AMBER):
+    # prod1.nc (frames 0-24) and prod2.nc (25-39) give the whole run; velocities x 20.455 x 0.1 nm/ps.
+    xyz, pdb, _ = whole
+    vel = np.random.default_rng(9).normal(size=xyz.shape).astype(np.float32)
+    t = np.arange(N_FRAMES) * DT
+    _amber_nc(tmp_path / "prod1.nc", xyz[:25], vel[:25], t[:25])
+    _amber_nc(tmp_path / "prod2.nc", xyz[25:], vel[25:], t[25:])
+    run = open_run([tmp_path / "prod2.nc", tmp_path / "prod1.nc", pdb])
+    assert run.n_frames == N_FRAMES and run.has_velocities and not run.frames.velocities_estimated
+    got = np.concatenate([c.velocities_nm_per_ps for c in run.frames.iter_chunks(chunk_frames=9)])
+    np.testing.assert_allclose(got, vel * np.float32(20.455) * 0.1, rtol=1e-5)
+    np.testing.assert_allclose(_positions(run), xyz, atol=1e-6)
+    assert run.metadata.extra["overlaps"] == [] and run.metadata.extra["gaps"] == []
+    assert [p.split(":")[0] for p in run.metadata.extra["parts"]] == ["prod1.nc", "prod2.nc"]
