@@ -83,6 +83,11 @@ def find_run_files(folder: str | Path) -> FolderFiles:
         if _suffix(p) in _NOT_RUN_FILES:
             out.left_out.append((p, "not a run file"))
             continue
+        if re.search(r"-vel-\d+\.xyz$", p.name, flags=re.IGNORECASE):
+            # CP2K's PROJECT-vel-1.xyz beside PROJECT-pos-1.xyz: velocities, not a second trajectory
+            out.left_out.append((p, "CP2K velocities (bohr per atomic time unit), not read yet: velocities are "
+                                    "estimated from the positions"))
+            continue
         try:
             entry = identify(p)
         except PhasewakeError:
