@@ -23,6 +23,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="number of holonomic constraints")
     parser.add_argument("--temperature", metavar="K", type=float, default=None,
                         help="thermostat target temperature in K")
+    parser.add_argument("--ensemble", choices=("nve", "nvt", "npt"), type=str.lower, default=None,
+                        help="the ensemble the run was made in, when the files do not say (also in the window: "
+                             "the run's settings under the Runs list)")
     parser.add_argument("--session", metavar="FILE", default=None,
                         help="restore a session saved from the window instead of opening FILES")
     parser.add_argument("--guide", action="store_true", help="show a short guide to the window")
@@ -57,5 +60,6 @@ def run(args: argparse.Namespace) -> int:
 
     apply_chunk_budget(args)
     return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
-                  n_constraints=args.constraints, temperature_K=args.temperature, session=args.session,
+                  n_constraints=args.constraints, temperature_K=args.temperature,
+                  ensemble=None if args.ensemble is None else args.ensemble.upper(), session=args.session,
                   smoke_test=args.smoke_test, smoke_timeout_s=args.smoke_timeout)

@@ -26,7 +26,7 @@ def group_runs(paths: Sequence[str | Path]) -> list[tuple[str, ...]]:
 
 def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | None = None,
            timestep_fs: float | None = None, n_constraints: int | None = None,
-           temperature_K: float | None = None, session: str | Path | None = None,
+           temperature_K: float | None = None, ensemble: str | None = None, session: str | Path | None = None,
            smoke_test: bool = False, smoke_timeout_s: float = 60.0, settings: object | None = None) -> int:
     """Open the window on one run made of ``paths`` (or a saved session) and run until it closes.
 
@@ -35,7 +35,8 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     paths : files of one run (trajectory, topology, energy tables), or several H5MD/HDF5 files, each a
         run of its own (replicas); may be empty
     guide : show a short guide to the window's parts (dismissible)
-    topology, timestep_fs, n_constraints, temperature_K : what the files do not say
+    topology, timestep_fs, n_constraints, temperature_K, ensemble : what the files do not say (they become the
+        run's settings, shown and changeable under the Runs list)
     session : a session file saved from the window (``.pwsession``) to restore instead
     smoke_test : open the window (offscreen is fine), wait until the first panel is drawn or an error
         is shown, give the other panels the rest of ``smoke_timeout_s`` seconds, write one line
@@ -70,7 +71,8 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     if session is not None:
         win.load_session(session)
     elif paths:
-        settings = RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints, temperature_K=temperature_K)
+        settings = RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints, temperature_K=temperature_K,
+                               ensemble=ensemble)
         win.open_runs([(group, topology, settings) for group in group_runs(paths)])
     if smoke_test:
         code = _smoke(app, win, smoke_timeout_s)

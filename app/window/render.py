@@ -244,8 +244,9 @@ def _draw_band(plot: pg.PlotItem, it: Band, *, log_x: bool = False, log_y: bool 
         out += [lo, hi]
     if fill is not None and it.label and plot.legend is not None:
         # pyqtgraph's legend cannot draw a sample of a FillBetweenItem: show a filled square instead
-        sample = pg.PlotDataItem([], [], pen=None, symbol="s", symbolSize=12,
-                                 symbolBrush=qcolour(it.style.colour, max(it.style.alpha, 0.35)), symbolPen=None)
+        # a ScatterPlotItem: the legend draws an empty PlotDataItem's symbol in pyqtgraph's default colour
+        sample = pg.ScatterPlotItem(symbol="s", size=12, brush=qcolour(it.style.colour, max(it.style.alpha, 0.35)),
+                                    pen=pg.mkPen(qcolour(it.style.colour, 0.8)))
         plot.legend.addItem(sample, it.label)
         fill._legend_sample = sample  # keep the Python object alive with the fill
     return out
@@ -337,8 +338,8 @@ def _legend_sample(legend: pg.LegendItem, m: Mark) -> None:
     if m.kind == "hline":
         sample = pg.PlotDataItem([], [], pen=make_pen(m.style))
     else:
-        sample = pg.PlotDataItem([], [], pen=None, symbol="s", symbolSize=12,
-                                 symbolBrush=qcolour(m.style.colour, max(m.style.alpha, 0.35)), symbolPen=None)
+        sample = pg.ScatterPlotItem(symbol="s", size=12, brush=qcolour(m.style.colour, max(m.style.alpha, 0.35)),
+                                    pen=pg.mkPen(qcolour(m.style.colour, 0.8)))
     legend.addItem(sample, m.label)
     legend._phasewake_samples = [*getattr(legend, "_phasewake_samples", []), sample]  # keep them alive
 
