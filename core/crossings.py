@@ -1016,15 +1016,15 @@ def _spread_blocks(x: np.ndarray, fraction: float, n_blocks: int = 200) -> np.nd
     return np.concatenate([x[a:a + length] for a in starts])
 
 
-def _check_moves(traces: Sequence[Trace], unit: str) -> None:
+def _check_moves(values: Sequence[np.ndarray], unit: str) -> None:
     """Refuse a coordinate that is constant to constraint tolerance or round-off (``crossings.constant``):
     its 'crossings' would be the noise of a rigid bond."""
     n = 0
     s1 = 0.0
     s2 = 0.0
     shift = 0.0
-    for tr in traces:
-        v = np.asarray(tr.values, dtype=float)
+    for x in values:
+        v = np.asarray(x, dtype=float).ravel()
         v = v[:: max(1, v.size // 100_000)]  # a spread check needs no more (long series stay cheap)
         v = v[np.isfinite(v)]
         if v.size:
@@ -1134,7 +1134,7 @@ def crossings_work(
     """
     trs = [as_trace(x) for x in traces]
     _check_traces(trs)
-    _check_moves(trs, unit)
+    _check_moves([tr.values for tr in trs], unit)
     total = float(len(trs) * 2 + 2)
     yield Progress(0, total, "crossings: checking states")
     suggestion: StateSuggestion | None = None
@@ -1481,6 +1481,7 @@ def check_not_stiff_bond(coordinate: str, run: Run, values: Sequence[np.ndarray]
         return
     if fn != "distance":
         return
+    _check_moves(values, unit)  # a constant says so first
     v = np.concatenate([np.asarray(x, dtype=float).ravel() for x in values])
     v = v[np.isfinite(v)]
     if v.size < 2 or not float(np.mean(v)) > 0:

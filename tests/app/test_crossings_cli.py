@@ -145,7 +145,7 @@ def test_kappa_window_and_confidence_options(capsys):
 ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm"
 
 
-@pytest.mark.parametrize("name,why", [("tip3p_rigid_nve_verlet", "constant"),
+@pytest.mark.parametrize("name,why", [("tip3p_rigid_nve_verlet", "the coordinate is constant"),
                                       ("tip3p_flexible_frames_1fs", "stiff bond")])
 def test_water_bond_gets_no_states_one_line_exit_2(name, why, capsys):
     # water made with OpenMM (tests/data/engines): an O-H bond of rigid water is constant to round-off (the
