@@ -307,9 +307,12 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
         out["vacf"] = vres
         if not args.mass_weighted:
             fit = tuple(args.fit_range) if args.fit_range else None
-            tr = run_with_progress(V.transport(run, groups=groups, limit_ps=args.gk_limit, max_lag_ps=args.max_lag,
-                                               fit_range_ps=fit, start=args.start, stop=args.stop,
-                                               vacf_result=vres), "Green-Kubo and MSD with block errors")
+            tkw: dict[str, Any] = dict(groups=groups, limit_ps=args.gk_limit, max_lag_ps=args.max_lag,
+                                       fit_range_ps=fit, start=args.start, stop=args.stop)
+            # through the cache like the VACF (the VACF just computed is handed over, not part of the key)
+            tr = run_with_progress(cached_work(run, "transport", _with_defaults(V.transport, tkw),
+                                               V.transport(run, **tkw, vacf_result=vres), cache=cache),
+                                   "Green-Kubo and MSD with block errors")
             out["transport"] = tr
             out["green_kubo"] = list(tr.green_kubo)
             if args.viscosity is not None:

@@ -91,3 +91,12 @@ def test_rigid_water_frames_every_50_steps():
     dm = float(tr.msd.diffusion_nm2_per_ps[0])
     assert (not g.reliable) or g.diffusion_nm2_per_ps == pytest.approx(dm, rel=0.30)
     assert not g.reliable  # water's VACF falls to 1/e within tens of fs: under one frame here
+
+
+def test_trapezoid_bias_on_an_exponential_matches_the_threshold_source():
+    # analytic: the trapezoid sum of exp(-x k) over k >= 0 times the spacing, against the integral 1/x
+    for frames_per_decay, bias in ((2.0, 0.0208), (1.0, 0.0820), (1 / 3, 0.657)):
+        x = 1 / frames_per_decay
+        k = np.arange(0, 20_000)
+        trap = x * (np.sum(np.exp(-x * k)) - 0.5)  # trapezoid: half weight at lag 0, spacing x in decay units
+        assert trap - 1 == pytest.approx(bias, abs=2e-3)
