@@ -410,6 +410,8 @@ def test_cp2k_main_output_gives_ensemble_and_dof(run: str, capsys: pytest.Captur
 @pytest.mark.parametrize("folder,name", [("amber/water_langevin_layout", "mdout"),
                                          ("namd/water_langevin_layout", "water.log")])
 def test_amber_and_namd_layouts(folder: str, name: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the records written into the file (reported.json: the OpenMM Langevin run's energies and
+    # temperatures every 100 steps, in kcal/mol = kJ/mol / 4.184)
     info = reported(folder)
     assert "not engine output" in info["origin"]
     rep = info["reported"]
