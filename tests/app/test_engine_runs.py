@@ -350,6 +350,18 @@ def test_openmm_dcd_run_matches_the_engine(run: str, capsys: pytest.CaptureFixtu
     assert abs(a["temperature"]["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
 
 
+def test_openmm_langevin_not_judged_as_nve(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the run used LangevinMiddleIntegrator (300 K, 1/ps); nothing in its files says so, and its
+    # total energy falls by 69 kJ/mol in 2 ps (CSV) as the thermostat takes heat out
+    rep = reported("openmm/tip3p_rigid_nvt_langevin")["reported"]
+    assert rep["ensemble"] == "NVT"
+    d_ = ENGINES / "openmm" / "tip3p_rigid_nvt_langevin"
+    code, a, err = cli(capsys, "audit", d_ / "trajectory.dcd", d_ / "energies.csv", "--top", d_ / "start.pdb")
+    assert code in (0, 1), err
+    assert "treated as NVE" not in a["ensemble"] and not a["ensemble"].upper().startswith("NVE"), a["ensemble"]
+    assert not [v for v in verdicts(a, "energy.") if v["level"] == "problem"], verdicts(a, "energy.")
+
+
 @pytest.mark.parametrize("run", ["tip3p_flexible_frames_1fs", "tip3p_flexible_frames_10fs"])
 def test_openmm_flexible_h5md_matches_the_engine(run: str, capsys: pytest.CaptureFixture[str]) -> None:
     # reference: OpenMM's State at each frame (frame count and spacing), its System (81 atoms, no
