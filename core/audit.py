@@ -230,7 +230,8 @@ def _thermostat_evidence_from_table(table: EnergyTable | None) -> tuple[bool | N
     ok = np.isfinite(tot) & np.isfinite(kin) & np.isfinite(t)
     if ok.sum() < 20:
         return None, "", {}
-    tt, ee, kk = t[ok], tot[ok].copy(), kin[ok]
+    stride = max(1, int(ok.size) // (1 << 18))  # the signatures need no more than ~260,000 rows
+    tt, ee, kk = t[ok][::stride], tot[ok][::stride].copy(), kin[ok][::stride]
     # steps of E (restarts glued in, changed settings) would pass for fluctuations: take them out
     d = np.diff(ee)
     med = float(np.median(d))

@@ -461,7 +461,8 @@ def default_groups(topology: Any, n_atoms: int, *, by_element: bool, masses_amu:
             by_res.setdefault(f"residue {rname}", []).append(int(atom.index))
             is_solvent = rname.upper() in WATER_RESIDUES or rname.upper() in ION_RESIDUES
             (solvent if is_solvent else solute).append(int(atom.index))
-        if len(by_res) > 1:
+        one_atom_residues = topology.n_residues == topology.n_atoms  # a topology made from elements
+        if len(by_res) > 1 and not one_atom_residues:
             groups.update({k: np.array(v) for k, v in by_res.items()})
         if solvent and solute and len(by_res) > 2:
             groups["solute"] = np.array(solute)

@@ -173,3 +173,29 @@ def test_constrained_xh_bond_counts_one():
     acc = tm.RigidPairAccumulator(tm.candidate_pairs(top), 6)
     acc.update(pos)
     assert acc.finish().n_constraints == 1
+
+
+def test_default_groups_species_elements_masses_residues_and_solvent():
+    import mdtraj as md
+
+    from phasewake.core.readers.common import topology_from_elements
+    from phasewake.core.temperature import default_groups
+
+    # a topology made from elements (one residue per atom): element groups only, not residue duplicates
+    top = topology_from_elements(["Ar", "Ar", "Ne", "Ne"])
+    assert set(default_groups(top, 4, by_element=True)) == {"element Ar", "element Ne"}
+    # no topology: distinct masses, or the file's species when given
+    m = np.array([39.948, 39.948, 20.18, 20.18])
+    assert set(default_groups(None, 4, by_element=True, masses_amu=m)) == {"mass 39.95 amu", "mass 20.18 amu"}
+    assert set(default_groups(None, 4, by_element=True, masses_amu=m, species=[1, 1, 2, 2])) == {"species 1", "species 2"}
+    # residues: a solute, water and an ion give residue kinds plus solute against solvent
+    t = md.Topology()
+    ch = t.add_chain()
+    for name, els in (("ALA", ["C", "C", "N"]), ("HOH", ["O", "H", "H"]), ("HOH", ["O", "H", "H"]), ("NA", ["Na"])):
+        r = t.add_residue(name, ch)
+        for e in els:
+            t.add_atom(e, md.element.get_by_symbol(e), r)
+    g = default_groups(t, t.n_atoms, by_element=False)
+    assert set(g) == {"residue ALA", "residue HOH", "residue NA", "solute", "solvent (water and ions)"}
+    np.testing.assert_array_equal(g["solute"], [0, 1, 2])
+    np.testing.assert_array_equal(g["solvent (water and ions)"], [3, 4, 5, 6, 7, 8, 9])
