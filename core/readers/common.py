@@ -128,8 +128,9 @@ def check_masses(masses_amu: np.ndarray, *, path: str | Path | None, where: str 
     if bad.size:
         i = int(bad[0])
         more = f" ({bad.size} atoms in all)" if bad.size > 1 else ""
+        hint = " (massless virtual sites are not supported: write the run without them)" if m[i] == 0 else ""
         raise ImpossibleValueError(f"{where}: atom {i} has mass {m[i]:g} amu{more}; a mass must be a positive "
-                                   "number", path=path)
+                                   f"number{hint}", path=path)
 
 
 def check_timestep(timestep_ps: float | None, *, path: str | Path | None, where: str = "time step") -> None:
@@ -158,12 +159,13 @@ def check_constraints(n_constraints: int | None, *, n_atoms: int | None, path: s
 
 
 def check_temperature(temperature_K: float | None, *, path: str | Path | None,
-                      where: str = "target temperature") -> None:
-    """ImpossibleValueError for a thermostat target that is NaN, infinite, zero or negative."""
+                      where: str = "target temperature", allow_zero: bool = False) -> None:
+    """ImpossibleValueError for a thermostat target that is NaN, infinite or negative, or zero unless
+    ``allow_zero`` (an engine file may state a 0 K target: a quench; analyses then use the measured one)."""
     if temperature_K is None:
         return
     t = float(temperature_K)
-    if not (math.isfinite(t) and t > 0):
+    if not (math.isfinite(t) and (t > 0 or (allow_zero and t == 0))):
         raise ImpossibleValueError(f"{where} is {t:g} K; it must be a positive number of kelvin", path=path)
 
 
@@ -177,7 +179,8 @@ def check_metadata(md: RunMetadata, *, n_atoms: int | None, path: str | Path | N
     check_timestep(md.timestep_ps, path=path, where=where("timestep_ps", "time step"))
     check_constraints(md.n_constraints, n_atoms=n_atoms, path=path,
                       where=where("n_constraints", "constraint count"))
-    check_temperature(md.temperature_K, path=path, where=where("temperature_K", "target temperature"))
+    check_temperature(md.temperature_K, path=path, where=where("temperature_K", "target temperature"),
+                      allow_zero=md.sources.get("temperature_K") != "user")
 
 
 _EDGE = "abc"

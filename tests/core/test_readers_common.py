@@ -1,6 +1,8 @@
 """Shared reader pieces: estimated velocities (central differences, minimum image in rectangular and
 triclinic boxes), box conversions against mdtraj, time-axis checks."""
 
+from pathlib import Path
+
 import mdtraj as md
 import numpy as np
 import pytest
@@ -58,3 +60,28 @@ def test_time_axis_checks():
     assert any("frame 2" in w and "1 ps -> 0.5 ps" in w for w in check_time_axis(np.array([0.0, 1.0, 0.5]), path="x.h5md"))
     with pytest.raises(TimeAxisError, match="unsorted"):
         check_time_axis(np.array([0.0, 2.0, 1.0, 3.0, 2.0, 4.0]), path="x.h5md")
+
+
+def test_impossible_value_checks_keep_what_engines_legitimately_write(tmp_path):
+    # a thermostat target of 0 K stated by an engine file (a quench) is kept; given by the user it is refused
+    import shutil
+
+    import h5py
+
+    from phasewake.core.errors import ImpossibleValueError
+    from phasewake.core.readers import open_run
+    from phasewake.core.readers.common import check_box, check_metadata
+    from phasewake.core.run import RunMetadata
+
+    src = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
+    p = tmp_path / "quench.h5md"
+    shutil.copy(src, p)
+    with h5py.File(p, "r+") as f:
+        f["parameters"]["temperature_K"] = 0.0
+    assert open_run([p]).metadata.temperature_K == 0.0
+    with pytest.raises(ImpossibleValueError, match="as given"):
+        md = RunMetadata(temperature_K=0.0)
+        md.sources["temperature_K"] = "user"
+        check_metadata(md, n_atoms=3, path=None)
+    # an all-zero box is the engines' "no periodic box" (GROMACS in vacuum), not an impossible one
+    assert check_box(np.zeros((2, 3, 3)), path=None) is None
