@@ -334,8 +334,8 @@ def _has_labels(ps: PlotSpec) -> bool:
 
 
 def _legend_sample(legend: pg.LegendItem, m: Mark) -> None:
-    """A legend entry for a horizontal line or shaded span (their own labels would sit on the data)."""
-    if m.kind == "hline":
+    """A legend entry for a line or shaded span (their own labels would sit on the data)."""
+    if m.kind in ("hline", "vline"):
         sample = pg.PlotDataItem([], [], pen=make_pen(m.style))
     else:
         sample = pg.ScatterPlotItem(symbol="s", size=12, brush=qcolour(m.style.colour, max(m.style.alpha, 0.35)),
@@ -457,12 +457,15 @@ class FigureView(QtWidgets.QWidget):
                 rp.items.append(_draw_image(plot, it))
             elif isinstance(it, Mark):
                 movable = it.role in self.movable_roles
-                # with a legend above the plot, horizontal lines and shaded spans are named there
-                named_in_legend = outside_legend is not None and it.label and it.kind in ("hline", "hspan")
+                # where the plot has a legend, lines and shaded spans are named there: a label drawn on the
+                # line sat over the data or over the plot's note; a mark the user drags keeps its own label
+                legend_obj = outside_legend if outside_legend is not None else plot.legend
+                named_in_legend = (legend_obj is not None and bool(it.label) and not movable
+                                   and it.kind in ("hline", "hspan", "vline", "vspan"))
                 item = _draw_mark(plot, it, movable=movable, log_x=log_x, log_y=log_y,
                                   inline_label=not named_in_legend)
                 if item is not None and named_in_legend:
-                    _legend_sample(outside_legend, it)
+                    _legend_sample(legend_obj, it)
                 if item is not None and movable:
                     rp.movable_marks.append((it, item))
                     self._watch_mark(it, item, log=log_y if it.kind in ("hline", "hspan") else log_x)
