@@ -108,6 +108,7 @@ def plain_words(text: str) -> str:
     text = text.replace("+/-", "±").replace("+-", "±").replace(" <= ", " ≤ ").replace(" >= ", " ≥ ")
     text = re.sub(r"\b(cm|ps|ns|fs|nm)\^-1\b", r"\1⁻¹", text)
     text = re.sub(r"\b([AB])->([AB])\b", r"\1→\2", text)
+    text = text.replace(" x sqrt(g)", " × √g").replace("sqrt(g)", "√g")
     text = re.sub(r"\bsigma_([A-Za-z]+)\b", r"σ_\1", text)
     text = re.sub(r"(-?\d+(?:\.\d+)?(?:[eE][+-]?\d+)?) ± (\d+(?:\.\d+)?[eE][+-]?\d+)", _fix_plus_minus, text)
 

@@ -290,3 +290,42 @@ def test_time_series_legend_sits_above_the_trace(qtbot):
     assert "dividing surface" in names  # named in the legend, not by a label drawn over the data
     lines = [it for it in rp.plot.items if isinstance(it, pg.InfiniteLine) and it is not rp.cursor]
     assert lines and all(getattr(line, "label", None) is None for line in lines)
+
+
+# ---- 10. plain words ------------------------------------------------------------------------------
+
+def test_window_text_is_in_plain_words():
+    from phasewake.app.window.words import for_window
+
+    # what the issue saw in captions and dialogs, and what a reader should see instead
+    text = for_window("g by phasewake.core.correlation.statistical_inefficiency (Sokal window); n_atoms = 54; "
+                      "temperature_K = 122.259; significance_z = 3; mean -545 ± 1.9e+02 kJ/mol; sigma_E/sigma_K "
+                      "= 0.02 +- 0.01; 6 A->B transitions")
+    for bad in ("phasewake.core", "n_atoms =", "temperature_K", "significance_z", "e+02", "sigma_E", "+-", "->"):
+        assert bad not in text, (bad, text)
+    for good in ("statistical inefficiency", "54 atoms", "temperature 122.3 K", "-545 ± 190", "σ_E/σ_K",
+                 "0.02 ± 0.01", "A→B"):
+        assert good in text, (good, text)
+    # dialogs say what to do in the window, not which option to give
+    msg = for_window("a .dcd trajectory holds no topology: give one (--top FILE: PDB, GRO, PSF, PRMTOP)")
+    assert "--top" not in msg and "Open run files" in msg
+    msg = for_window("the time step is unknown (give --timestep FS); common practice asks for at most 2 fs")
+    assert "--timestep" not in msg and "Time step" in msg and "Apply" in msg
+
+
+def test_exported_figures_write_symbols_as_mathtext(tmp_path):
+    from phasewake.core.export import _wrap_label, export_figure, mathtext
+    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec
+
+    assert mathtext("σ_E/σ_K = 1.02") == r"$\sigma_E/\sigma_K$ = 1.02"
+    assert mathtext("τ_int = 3 ps") == r"$\tau_\mathrm{int}$ = 3 ps"
+    assert mathtext("potential_energy (kJ/mol)") == "potential_energy (kJ/mol)"  # a name is not a symbol
+    wrapped = _wrap_label("Fluctuation ratio σ_E/σ_K = 1.02 and a drift of 3.2 kJ/mol/ns over the run", 24)
+    for line in wrapped.splitlines():  # never broken inside "σ_E/σ_K = 1.02" or "3.2 kJ/mol/ns"
+        assert not line.rstrip().endswith(("=", "3.2", "σ_E/σ_K")), wrapped
+    x = np.linspace(0, 1, 50)
+    spec = FigureSpec(key="k", title="t", plots=(PlotSpec(title="Fluctuations", x=Axis("Time", "ps"),
+                                                          y=Axis("σ_E/σ_K"), items=(Line(x, x, label="N_dof = 12"),),
+                                                          note="σ_E/σ_K = 0.02"),))
+    out = export_figure(spec, tmp_path / "f.svg", preset="single").path  # mathtext that did not parse would raise
+    assert out.stat().st_size > 0
