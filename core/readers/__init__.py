@@ -104,6 +104,9 @@ READERS: tuple[ReaderEntry, ...] = (
     ReaderEntry("mdtraj-hdf5", "run", (".h5", ".hdf5", ".lh5"), "mdtraj's HDF5 trajectory (read with h5py)", _claim_mdtraj_h5),
     ReaderEntry("lammps-dump", "trajectory", (".lammpstrj", ".lammpsdump", ".dump"),
                 "LAMMPS text dumps (dump custom/atom; our own reader, lazily in chunks)", _claim_lammps_dump),
+    ReaderEntry("cp2k-xyz", "trajectory", (".xyz",),
+                "CP2K MD xyz: PROJECT-pos-1.xyz with PROJECT-vel-1.xyz (our own reader, lazily in chunks)",
+                _engine_claim("cp2k_xyz")),
     ReaderEntry("lammps-data", "topology", (".data", ".lmp", ".lammps"),
                 "LAMMPS data files as topology (masses, molecules, bonds)", _claim_lammps_data),
     ReaderEntry("trajectory", "trajectory",
@@ -267,14 +270,22 @@ def open_run(
     folder_notes: list[str] = []
     if any(p.is_dir() for p in all_paths):
         all_paths, folder_notes = _expand_folders(all_paths)
+    from phasewake.core.readers import cp2k_xyz
     from phasewake.core.readers.velocity_file import is_velocity_file
 
-    vel_files = [p for p in all_paths if is_velocity_file(p)] + ([Path(velocities)] if velocities else [])
-    all_paths = [p for p in all_paths if not is_velocity_file(p)]
+    def _is_vel(p: Path) -> bool:
+        return is_velocity_file(p) or cp2k_xyz.is_velocity_name(p)
+
+    vel_files = [p for p in all_paths if _is_vel(p)] + ([Path(velocities)] if velocities else [])
+    all_paths = [p for p in all_paths if not _is_vel(p)]
     if len(vel_files) > 1:
         raise InputError(f"more than one velocity file given ({', '.join(p.name for p in vel_files)}); give one")
     for p in vel_files:
         _check_file(p)
+    # CP2K's -vel- xyz is paired with its -pos- xyz by the CP2K reader itself (by MD step)
+    cp2k_vel = vel_files[0] if vel_files and cp2k_xyz.claim(vel_files[0]) else None
+    if cp2k_vel is not None:
+        vel_files = []
     entries: list[tuple[Path, ReaderEntry]] = []
     for p in all_paths:
         entries.append((p, identify(p)))
@@ -297,6 +308,8 @@ def open_run(
                              "is opened alone, one run at a time")
 
     warnings: list[str] = list(folder_notes)
+    if cp2k_vel is not None and not trajs:
+        raise MissingDataError("a CP2K velocity xyz needs its positions xyz (PROJECT-pos-1.xyz) too", path=cp2k_vel)
     if runs:
         with _unexpected_is_corrupt(runs[0][0]):
             run = _open_self_contained(runs[0][0], runs[0][1], group=group, units=units)
@@ -309,7 +322,15 @@ def open_run(
             raise InputError(f"the trajectories {', '.join(p.name for p, _ in trajs)} mix LAMMPS dumps with other "
                              "formats; parts of one run are of one format: open one run at a time")
         parts = []
-        for tp, te in trajs:
+        if cp2k_vel is not None:
+            if len(trajs) > 1:
+                raise InputError(f"a CP2K velocity file ({cp2k_vel.name}) pairs with one positions file; "
+                                 f"{len(trajs)} trajectories given")
+            cp2k_xyz.require_cp2k(trajs[0][1].name, cp2k_vel)
+            with _unexpected_is_corrupt(trajs[0][0]):
+                parts.append(cp2k_xyz.open_xyz_run(trajs[0][0], top_path, velocities=cp2k_vel))
+            all_paths.append(cp2k_vel)
+        for tp, te in trajs if cp2k_vel is None else []:
             with _unexpected_is_corrupt(tp):
                 parts.append(_open_trajectory(tp, te, top_path))
         if len(parts) == 1:
@@ -429,6 +450,10 @@ def _open_trajectory(path: Path, entry: ReaderEntry, top_path: Path | None) -> R
         from phasewake.core.readers import lammps_dump
 
         return lammps_dump.open_dump_run(path, top_path)
+    if entry.name == "cp2k-xyz":
+        from phasewake.core.readers import cp2k_xyz
+
+        return cp2k_xyz.open_xyz_run(path, top_path)
     from phasewake.core.readers import trajectory
 
     return trajectory.open_trajectory_run(path, top_path)

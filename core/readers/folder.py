@@ -75,18 +75,15 @@ def find_run_files(folder: str | Path) -> FolderFiles:
     trajs: list[Path] = []
     tops: list[tuple[Path, str]] = []
     others: list[tuple[Path, str]] = []
+    from phasewake.core.readers.cp2k_xyz import is_velocity_name
     from phasewake.core.readers.velocity_file import is_velocity_file
 
-    velocity_files = [p for p in entries if is_velocity_file(p)]
-    entries = [p for p in entries if not is_velocity_file(p)]
+    # NAMD velocity DCDs and CP2K's PROJECT-vel-1.xyz: velocities of the positions beside them
+    velocity_files = [p for p in entries if is_velocity_file(p) or is_velocity_name(p)]
+    entries = [p for p in entries if p not in velocity_files]
     for p in entries:
         if _suffix(p) in _NOT_RUN_FILES:
             out.left_out.append((p, "not a run file"))
-            continue
-        if re.search(r"-vel-\d+\.xyz$", p.name, flags=re.IGNORECASE):
-            # CP2K's PROJECT-vel-1.xyz beside PROJECT-pos-1.xyz: velocities, not a second trajectory
-            out.left_out.append((p, "CP2K velocities (bohr per atomic time unit), not read yet: velocities are "
-                                    "estimated from the positions"))
             continue
         try:
             entry = identify(p)

@@ -158,9 +158,11 @@ def test_real_lammps_folder_with_two_dumps_is_ambiguous_and_one_dump_opens(tmp_p
     assert run.metadata.units_style == "lammps metal" and run.energies is not None
 
 
-def test_cp2k_folder_takes_positions_and_leaves_out_the_velocity_xyz(tmp_path):
-    # CP2K writes PROJECT-pos-1.xyz and PROJECT-vel-1.xyz of one run (ENGINES.md, CP2K): not two runs.
+def test_cp2k_folder_pairs_the_positions_with_the_velocity_xyz(tmp_path):
+    # CP2K writes PROJECT-pos-1.xyz and PROJECT-vel-1.xyz of one run (ENGINES.md, CP2K): not two runs,
+    # the velocities of the positions
     src = ENGINES / "cp2k" / "argon_fist_nve"
     found = find_run_files(src)
-    assert "argon-pos-1.xyz" in [p.name for p in found.paths]
-    assert ("argon-vel-1.xyz" in [p.name for p, _ in found.left_out])
+    taken = [p.name for p in found.paths]
+    assert "argon-pos-1.xyz" in taken and "argon-vel-1.xyz" in taken
+    assert "argon-1.ener" in taken and "argon.out" in taken
