@@ -28,6 +28,7 @@ import numpy as np
 import scipy.constants as sc
 
 from phasewake.core.errors import EnergyTableError, InputError
+from phasewake.core.readers import lammps_units
 from phasewake.core.readers.engine_common import (
     EngineEnergy,
     SeriesBuilder,
@@ -49,7 +50,8 @@ _SKIP = {"Time", "Elapsed", "Elaplong", "CPU", "CPULeft", "TPS", "SPCPU", "Part"
 _BOHR_M = sc.physical_constants["Bohr radius"][0]
 
 # unit style -> (time unit of dt and Step*dt, energy, temperature, pressure, volume, density, default dt,
-#                k_B in energy units per kelvin) [LAMMPS units doc, ENGINES.md table]
+#                k_B in energy units per kelvin) [LAMMPS units doc, ENGINES.md table]; the time unit is the
+#                word for messages, its factor to ps comes from lammps_units.STYLES (shared with the dump reader)
 STYLES: dict[str, dict[str, Any]] = {
     "real": {"time": "fs", "energy": "kcal/mol", "pressure": "atm", "volume": "Å^3", "density": "g/cm^3",
              "dt": 1.0, "kB": 0.0019872067},
@@ -71,7 +73,6 @@ UNIT_STYLES = tuple(STYLES)
 _LJ_LABELS = {"energy": "ε (lj reduced)", "energy_atom": "ε per atom (lj reduced)", "temperature":
               "ε/k_B (lj reduced)", "pressure": "ε/σ³ (lj reduced)", "volume": "σ³ (lj reduced)",
               "density": "m/σ³ (lj reduced)", "time": "τ (lj reduced)"}
-_TIME_TO_PS = {"fs": 1e-3, "ps": 1.0, "s": 1e12, "us": 1e6, "ns": 1e3}
 
 
 def claim(path: Path) -> bool:
@@ -390,6 +391,7 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
     t_end = 0.0
     last_step: float | None = None
     dts = []
+    to_ps = lammps_units.STYLES[style].time_ps  # the style's time unit in ps (one table for log and dump)
     for b in md:
         idx = [b.names.index(n) for n in common]
         v = b.values[:, idx]
@@ -400,7 +402,7 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
             continue
         dt_native = b.dt if b.dt is not None else st["dt"]
         dts.append(dt_native)
-        dt = float(timestep_ps) if timestep_ps is not None else (dt_native if lj else dt_native * _TIME_TO_PS[st["time"]])
+        dt = float(timestep_ps) if timestep_ps is not None else (dt_native if lj else dt_native * to_ps)
         base_step = last_step if last_step is not None else 0.0
         times.append(t_end + (step - base_step) * dt)
         t_end = float(times[-1][-1])
@@ -494,7 +496,7 @@ def _facts(md: list[_Block], style: str, st: dict[str, Any], norm: bool, n_atoms
         fsrc["timestep_ps"] = (f"{path.name} (echoed 'timestep {dt_native:g}', τ in lj reduced units)"
                                if last.dt is not None else "LAMMPS default for units lj (0.005 τ)")
     else:
-        facts["timestep_ps"] = dt_native * _TIME_TO_PS[st["time"]]
+        facts["timestep_ps"] = dt_native * lammps_units.STYLES[style].time_ps
         fsrc["timestep_ps"] = (f"{path.name} (echoed 'timestep {dt_native:g}', {st['time']})" if last.dt is not None
                                else f"LAMMPS default for units {style} ({dt_native:g} {st['time']})")
     thermo, baro, T, P, integ = _thermostat(last.fixes)
