@@ -158,18 +158,18 @@ def _scan_edr(data: np.ndarray, start: int, nre_header: int, path: Path, warning
         real = _frame_real_size(buf, p)
         if real is None:
             if size - p < 16:
-                warnings.append(f"{path.name}: the file ends {size - p} bytes into frame {frame} (counting from "
-                                f"0); the {frame} complete frame(s) before it are used")
-                break
+                raise CorruptFileError(f"the file ends {size - p} bytes into frame {frame} (counting from 0): it "
+                                       f"is truncated (a run stopped mid-write?); the {frame} frame(s) before "
+                                       "it are complete", path=path)
             raise CorruptFileError(f"frame {frame} (byte {p}) does not start with the frame marker: the file is "
                                    "damaged", path=path)
         try:
             lay = _Layout(buf, p, real)
         except (struct.error, ValueError):
             if p + 256 >= size:
-                warnings.append(f"{path.name}: the file ends inside the header of frame {frame} (counting from "
-                                f"0, time unknown); the {frame} complete frame(s) before it are used")
-                break
+                raise CorruptFileError(f"the file ends inside the header of frame {frame} (counting from 0): "
+                                       f"it is truncated (a run stopped mid-write?); the {frame} frame(s) "
+                                       "before it are complete", path=path) from None
             raise CorruptFileError(f"frame {frame} (byte {p}) has a damaged header", path=path) from None
         if lay.nre not in (0, nre_header):
             raise CorruptFileError(f"frame {frame} (time {lay.t:g} ps) holds {lay.nre} terms, the header names "
@@ -177,9 +177,9 @@ def _scan_edr(data: np.ndarray, start: int, nre_header: int, path: Path, warning
         if lay.variable:
             raise CorruptFileError(f"frame {frame} holds string blocks, which this reader does not skip", path=path)
         if p + lay.size > size:
-            warnings.append(f"{path.name}: the file ends inside frame {frame} (step {lay.step}, time {lay.t:g} ps), "
-                            f"probably a run that was stopped; the {frame} complete frame(s) before it are used")
-            break
+            raise CorruptFileError(f"the file ends inside frame {frame} (step {lay.step}, time {lay.t:g} ps): it "
+                                   f"is truncated (a run stopped mid-write?); the {frame} frame(s) before it are "
+                                   "complete", path=path)
         # how many frames of this layout follow at a fixed stride (checked in growing windows)
         fixed = lay.fixed_ints()
         template = [struct.unpack_from(">i", buf, p + off)[0] for off in fixed]
@@ -216,8 +216,9 @@ def read_edr(path: Path, *, column_roles: Mapping[str, str] | None = None, times
              units_style: str | None = None) -> EngineEnergy:
     """Read a GROMACS .edr: every term in internal units, time from the frames, dt from the frame header.
 
-    A file that ends inside a frame (a run stopped mid-write) keeps its complete frames with a warning
-    naming the frame, as GROMACS' own tools do; a frame marker missing elsewhere is an error.
+    A file that ends inside a frame (a run stopped mid-write) is an error naming the frame and how many
+    before it are complete, as a cut trajectory (XTC, TRR, DCD, LAMMPS dump) is; so is a missing frame
+    marker.
     """
     path = Path(path)
     data = np.fromfile(path, dtype=np.uint8)

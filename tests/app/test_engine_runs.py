@@ -529,3 +529,13 @@ def test_parts_with_different_atom_counts(tmp_path: Path, capsys: pytest.Capture
     t.atom_slice(range(t.n_atoms - 3)).save_xtc(str(small))
     err = one_line_error(capsys, parts / "md.xtc", small, "--top", parts / "md.gro")
     assert "md.part0002.xtc" in err and "399" in err
+
+
+def test_edr_cut_mid_frame_is_refused(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # issue check: "an .edr cut mid-frame ... one line, exit 2"; the real file, its last 30 bytes gone
+    data = (ENGINES / "gromacs" / "spce_flexible_nve_0.5fs" / "md.edr").read_bytes()
+    cut = tmp_path / "md.edr"
+    cut.write_bytes(data[:-30])
+    code = main(["describe", str(cut)])
+    err = capsys.readouterr().err
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "md.edr" in err and "truncated" in err, err

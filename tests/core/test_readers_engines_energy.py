@@ -102,15 +102,15 @@ def test_edr_written_to_the_layout_reads_back(tmp_path, double, nsum):
     assert run.metadata.extra["edr_precision"] == ("double" if double else "single")
 
 
-def test_edr_cut_mid_frame_keeps_complete_frames_and_says_which(tmp_path):
-    # a run stopped by the queue leaves a half-written last frame: GROMACS' own tools read up to it
+def test_edr_cut_mid_frame_is_refused_naming_the_frame(tmp_path):
+    # a run stopped by the queue leaves a half-written last frame: refused like a cut trajectory, naming the
+    # frame and saying how many before it are complete
     p = write_edr(tmp_path / "full.edr", NAMES, UNITS, _frames(8))
     data = p.read_bytes()
     cut = tmp_path / "cut.edr"
     cut.write_bytes(data[:-30])
-    run = open_run([cut])
-    assert len(run.energies) == 7
-    assert any("cut.edr: the file ends inside frame 7 (step 70" in w for w in run.warnings)
+    with pytest.raises(CorruptFileError, match=r"ends inside frame 7 \(step 70.*7 frame\(s\) before it are complete"):
+        open_run([cut])
 
 
 def test_edr_without_a_complete_frame_or_damaged_is_an_error(tmp_path):
