@@ -675,7 +675,7 @@ def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, ti
         if fastest.near_nyquist and v.level == "ok":
             v = _replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: it is not "
                          "resolved and may be an aliased faster motion")
-        out.append(v if v.level != "ok" else _replace(v, advice=""))
+        out.append(_about_the_frames(v))
     exp = jb.expected
     if exp:
         fastest_exp = min(exp, key=lambda e: e.shortest_period_ps)
@@ -694,5 +694,21 @@ def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, ti
             v = _replace(v, level="caution", message=msg + ASSUMED_WORDS)
         if jb.unresolved and v.level == "ok":  # between 0.8 and 1 of Nyquist: not resolved either
             v = _replace(v, level="caution")
-        out.append(v if v.level != "ok" else _replace(v, advice=""))
+        out.append(_about_the_frames(v))
     return out
+
+
+FRAMES_NOT_THE_RUN = ("; this limits what the frames and their spectrum can show, not the run itself (frames are "
+                      "usually written far less often than every step): the time step is judged above")
+
+
+def _about_the_frames(v: Any) -> Any:
+    """A frame-spacing verdict says what the frames can show; it never flags the run. Unresolved or
+    near-Nyquist motions are "info" with that said (never "ok"); the time-step verdict carries the judgement."""
+    from dataclasses import replace as _replace
+
+    if v.level == "ok":
+        return _replace(v, advice="")
+    if v.level in ("caution", "problem"):
+        return _replace(v, level="info", message=v.message + FRAMES_NOT_THE_RUN)
+    return v

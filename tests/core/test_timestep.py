@@ -201,7 +201,9 @@ def test_peak_at_nyquist_is_never_ok():
     out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.0001, "user")}
     assert out["timestep.fastest_period"].level == "caution"
     assert "at most" in out["timestep.fastest_period"].message
-    assert out["timestep.nyquist"].level != "ok"
+    # a frame-spacing verdict is never "ok" here, and never flags the run either: it says what the frames
+    # cannot show (the time step is judged by its own verdict above)
+    assert out["timestep.nyquist"].level == "info" and "not the run itself" in out["timestep.nyquist"].message
     # the advice no longer swaps the bounds: the frequency found is a lower bound, the period an upper bound
     assert "lower bound on the fastest frequency" in out["timestep.nyquist"].message
     assert "upper bound on the fastest period" in out["timestep.nyquist"].message
@@ -219,7 +221,7 @@ def test_unresolved_oh_stretch_decides_the_time_step_not_its_alias():
     step = out["timestep.fastest_period"]
     assert step.level == "problem" and step.measured == pytest.approx(9.01 / 3, rel=0.01)
     assert "the O-H stretch near 3400-3700 cm^-1 cannot be seen at 10 fs frames" in out["timestep.expected_motion"].message
-    assert out["timestep.expected_motion"].level == "problem"
+    assert out["timestep.expected_motion"].level == "info"  # what the frames show, not a fault of the run
     # with a 0.5 fs step (common practice for flexible X-H) the same frames give 18 steps per period: ok
     ok = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.0005, "user", exp)}
     assert ok["timestep.fastest_period"].level == "ok"
@@ -278,7 +280,8 @@ def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(
     what = "O-H stretch near 3400-3700 cm^-1" if topology else "X-H stretch"
     assert what in v["timestep.expected_motion"].message
     assert "cannot be seen at 10 fs frames" in v["timestep.expected_motion"].message
-    assert v["timestep.expected_motion"].level == ("problem" if topology else "caution")
+    # frames 10 fs apart are a choice of output, not a fault of the run: said, not flagged
+    assert v["timestep.expected_motion"].level == "info"
 
 
 def test_flexible_water_1fs_resolves_the_stretch_and_judges_by_the_measured_peak():
@@ -305,4 +308,4 @@ def test_constraints_known_or_unknown_set_how_sure_the_check_is():
     # an assumed stretch caps the verdicts at caution and says why
     out = {v.kind: v for v in ts.timestep_verdicts(None, 0.010, 0.003, "user", e)}
     assert out["timestep.fastest_period"].level == "caution" and "assumption" in out["timestep.fastest_period"].message
-    assert out["timestep.expected_motion"].level == "caution"
+    assert out["timestep.expected_motion"].level == "info"
