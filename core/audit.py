@@ -880,7 +880,8 @@ def audit_run(
             t_series, t_time = t_filek, np.asarray(table.time_ps, dtype=np.float64)
             ksrc = (f"the file's kinetic energy (column '{file_kin.name}'), preferred over the velocities: "  # type: ignore[union-attr]
                     + (f"they are half a step off the positions ({half_src})" if half else
-                       "leapfrog-type integrators store velocities half a step off"))
+                       "it is the engine's own" if md.velocities_half_step is False else
+                       "the velocities may be half a step off the positions (leapfrog-type integrators)"))
             if half:
                 half_words = f"velocities half a step off the positions ({half_src}): the file's kinetic energy is shown"
         else:

@@ -299,7 +299,9 @@ def test_audit_nve_traps_against_analytic_values():
     assert res.temperature.n_dof == 3 * n
     assert res.temperature.implied_file_dof == pytest.approx(3 * n - 3, rel=1e-9)
     by_kind = {v.kind: v for v in res.verdicts}
-    assert by_kind["energy.fluctuation_ratio"].level == "caution"  # R = 0.0225 > 0.01
+    # R = 0.0225: between 0.01 (good) and 0.05 (acceptable), common practice; 20.9 steps per period is a
+    # step the period/10 rule accepts, so not flagged (a flexible X-H run at 0.5 fs gives about the same R)
+    assert by_kind["energy.fluctuation_ratio"].level == "ok"
     assert by_kind["timestep.fastest_period"].level == "ok"  # 20.9 steps per period
     assert by_kind["temperature.file_mismatch"].level in ("caution", "problem")  # 1 / 191 = 0.5 %
     assert by_kind["temperature.kinetic_distribution"].level == "info"  # NVE: skipped with a reason
