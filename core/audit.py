@@ -1198,6 +1198,24 @@ def audit_run(
                        settings=settings, ensemble_source=decision.source, ensemble_origin=decision.origin)
 
 
+def _conservation_settles_a_bound(step_verdicts: list[Verdict], earlier: list[Verdict]) -> list[Verdict]:
+    """A time step judged only against an upper bound on the fastest period (a peak near the frames' Nyquist
+    limit, nothing faster expected from the topology and masses) is a caution by itself; when the energy
+    conservation was judged and is ok on both drift and fluctuation ratio, that conservation settles it:
+    a step too large for a hidden faster motion would show there."""
+    judged = {v.kind: v.level for v in earlier}
+    if judged.get("energy.drift") != "ok" or judged.get("energy.fluctuation_ratio") != "ok":
+        return step_verdicts
+    out = []
+    for v in step_verdicts:
+        if (v.kind == "timestep.fastest_period" and v.level == "caution" and (v.details or {}).get("upper_bound")
+                and "assumption" not in v.message):
+            v = replace(v, level="ok", advice="", message=v.message + "; the energy conservation (drift and "
+                        "fluctuation ratio both ok) shows no sign of a step too large for a faster motion")
+        out.append(v)
+    return out
+
+
 def _ensemble_verdict(decision: EnsembleDecision, ea: EnergyAudit | None) -> Verdict:
     """The ensemble the run is judged in and where it came from (information, not a verdict)."""
     msg = f"{decision.label}: {decision.source}"
@@ -1466,8 +1484,9 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
         out.append(_skipped("timestep.fastest_period", "Time step", "no velocities: the fastest motion is unknown"
                             if tsa is None or tsa.note == "no velocities" else tsa.note))
     else:
-        out.extend(ts.timestep_verdicts(tsa.fastest, tsa.frame_spacing_ps, dt, tsa.timestep_source, tsa.expected,
-                                        group=tsa.fastest_group))
+        out.extend(_conservation_settles_a_bound(
+            ts.timestep_verdicts(tsa.fastest, tsa.frame_spacing_ps, dt, tsa.timestep_source, tsa.expected,
+                                 group=tsa.fastest_group), out))
     if scaling is not None:
         dev = abs(scaling.exponent - scaling.expected_exponent)
         v = judge("timestep.scaling", dev, title="Fluctuation vs time step", unit="",

@@ -82,7 +82,8 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
     for v in result.verdicts:
         thr, src = _threshold_text(v)
-        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}: {_num(v.measured, v.unit)}\n")
+        shown = f": {_num(v.measured, v.unit)}" if v.measured is not None else ""
+        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}{shown}\n")
         w(wrap.fill(v.message) + "\n")
         if v.threshold is not None:
             w(wrap.fill(f"threshold: {thr}" + ("" if src in v.message else f" (source: {src})")) + "\n")
