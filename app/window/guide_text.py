@@ -38,9 +38,10 @@ should be, how correlated are the frames, did the run visit its phase space even
 cleanly did it cross a barrier.</p>
 
 <h3>Opening runs</h3>
-<p><i>File ▸ Open run files…</i> (Ctrl+O), dropping files on the window, or
-<code>phasewake open FILES…</code> on the command line. Give the files of one run together: a
-trajectory, its topology and its energy tables. Several H5MD or HDF5 files given together are
+<p><i>File ▸ Open run files…</i> (Ctrl+O), <i>File ▸ Open run folder…</i> (Ctrl+Shift+F: the folder
+your engine wrote; its trajectory parts, topology, energy file and log are found for you), dropping
+files or a folder on the window, or <code>phasewake open FILES…</code> on the command line. Give the
+files of one run together: a trajectory, its topology and its energy tables. Several H5MD or HDF5 files given together are
 replicas, one run each; the Sampling panel compares them. When the files do not say, state the time
 step, the number of constraints and the thermostat temperature in the Runs list (or with
 <code>--timestep</code>, <code>--constraints</code>, <code>--temperature</code>). Opening reads

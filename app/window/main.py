@@ -208,6 +208,8 @@ class MainWindow(QtWidgets.QMainWindow):
         f = mb.addMenu("&File")
         self.act_open = self._action(f, "Open run files\u2026", self.runs.ask_for_files, "Ctrl+O",
                                      "Add a run from its files")
+        self._action(f, "Open run folder\u2026", self.runs.ask_for_folder, "Ctrl+Shift+F",
+                     "Add a run from the folder its engine wrote (trajectory parts, topology, energies, log)")
         self._action(f, "Close run", self.runs.remove_selected, "Ctrl+W")
         f.addSeparator()
         self._action(f, "Open session\u2026", self.ask_open_session, "Ctrl+Shift+O")

@@ -255,13 +255,24 @@ class RunsList(QtWidgets.QWidget):
     def ask_for_files(self) -> None:
         settings = self.app_settings
         folder = str(settings.value(self.folder_key, "") or "")
+        from phasewake.core.readers import file_patterns
+
+        # the suffixes every reader accepts, plus engine files named without one (log.lammps is *.lammps)
+        patterns = " ".join(file_patterns())
         paths, _ = QtWidgets.QFileDialog.getOpenFileNames(
-            self, "Open run files", folder,
-            "Run files (*.h5md *.h5 *.hdf5 *.dcd *.xtc *.trr *.nc *.pdb *.gro *.csv *.tsv *.txt *.dat "
-            "*.xvg *.prmtop *.parm7 *.psf *.lammpstrj *.xyz);;All files (*)")
+            self, "Open run files", folder, f"Run files ({patterns});;All files (*)")
         if paths:
             settings.setValue(self.folder_key, str(Path(paths[0]).parent))
             self.addRequested.emit(paths)
+
+    def ask_for_folder(self) -> None:
+        """A run folder: the engine's files in it are found as on the command line (core.readers.folder)."""
+        settings = self.app_settings
+        start = str(settings.value(self.folder_key, "") or "")
+        folder = QtWidgets.QFileDialog.getExistingDirectory(self, "Open a run folder", start)
+        if folder:
+            settings.setValue(self.folder_key, str(Path(folder).parent))
+            self.addRequested.emit([folder])
 
     # ---- drag and drop ------------------------------------------------------------------------
     def dragEnterEvent(self, event):  # noqa: N802 - Qt override

@@ -138,6 +138,11 @@ READERS: tuple[ReaderEntry, ...] = (
 )
 
 
+def file_patterns() -> tuple[str, ...]:
+    """Glob patterns of every suffix a reader in :data:`READERS` accepts (for a file dialog's filter)."""
+    return tuple(sorted({f"*{suffix}" for r in READERS for suffix in r.suffixes} | {"*.veldcd"}))
+
+
 def supported_formats() -> str:
     """One line per reader: what it reads and its suffixes."""
     return "; ".join(f"{r.description} [{' '.join(r.suffixes)}]" for r in READERS)
@@ -599,5 +604,5 @@ def require_frames(run: Run) -> None:
                                path=run.paths[0] if run.paths else None)
 
 
-__all__ = ["READERS", "ReaderEntry", "describe_run", "identify", "open_run", "require_frames",
+__all__ = ["READERS", "ReaderEntry", "describe_run", "file_patterns", "identify", "open_run", "require_frames",
            "supported_formats"]

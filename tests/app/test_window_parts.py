@@ -224,3 +224,31 @@ def test_files_given_together_are_grouped_into_runs():
     # a trajectory with its topology and energy table is one run
     assert group_runs(["run.dcd", "run.pdb", "energy.csv"]) == [("run.dcd", "run.pdb", "energy.csv")]
     assert group_runs(["only.h5md"]) == [("only.h5md",)]
+
+
+def test_open_dialog_offers_every_reader_suffix_and_a_folder(qtbot, monkeypatch, tmp_path):
+    # the Open dialog's filter comes from the reader registry (engine files included), and a folder can be
+    # chosen: it goes to the same route as a dropped folder
+    from PySide6 import QtWidgets
+
+    from phasewake.app.window.main import MainWindow
+    from phasewake.core.readers import READERS
+
+    seen = {}
+
+    def fake_files(parent, title, folder, filters):
+        seen["filters"] = filters
+        return [], ""
+
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getOpenFileNames", staticmethod(fake_files))
+    monkeypatch.setattr(QtWidgets.QFileDialog, "getExistingDirectory", staticmethod(lambda *a: str(tmp_path)))
+    win = MainWindow()
+    qtbot.addWidget(win)
+    asked = []
+    win.runs.addRequested.connect(asked.append)
+    win.runs.ask_for_files()
+    for suffix in (s for r in READERS for s in r.suffixes):
+        assert f"*{suffix}" in seen["filters"]
+    assert "*.edr" in seen["filters"] and "*.veldcd" in seen["filters"]
+    win.runs.ask_for_folder()
+    assert asked == [[str(tmp_path)]]
