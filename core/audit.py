@@ -1357,7 +1357,7 @@ def _verdicts(ea: EnergyAudit | None, ta: TemperatureAudit | None, tsa: Timestep
                 v = judge("energy.fluctuation_ratio", f.ratio, title="Energy fluctuation ratio", unit="",
                           message=f"sigma_E/sigma_K = {_fmt(f.sigma_total_kJ_per_mol)} / "
                                   f"{_fmt(f.sigma_kinetic_kJ_per_mol)} kJ/mol = {_fmt(f.ratio)} against "
-                                  f"{thr.caution:g} good / {thr.problem:g} acceptable ({thr.source})",
+                                  f"a caution above {thr.caution:g}, a problem above {thr.problem:g} ({thr.source})",
                           advice=_advice("energy.fluctuation_ratio"))
                 out.append(v if v.level != "ok" else replace(v, advice=""))
             elif f is not None:
