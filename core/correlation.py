@@ -573,16 +573,21 @@ def auto_estimate(x: Any, *, c: float = 5.0, max_lag: int | None = None) -> Auto
     primary = "geyer" if oscillating else "sokal"
     disagree = verdicts.THRESHOLDS["sampling.estimator_agreement"].level(z) != "ok"
     why = "oscillating autocorrelation" if oscillating else "no oscillation"
-    g, method = estimates[primary][0], f"{primary} ({why})"
+    g, method = estimates[primary][0], f"{_ESTIMATOR_WORDS.get(primary, primary)} ({why})"
     if disagree:
         top = max(names, key=lambda m: estimates[m][0])
         g = estimates[top][0]
-        method = (f"{top} (the largest of estimators that disagree by {z:.1f} standard errors; "
-                  f"{why}, first choice {primary})")
+        method = (f"{_ESTIMATOR_WORDS.get(top, top)} (the largest of estimators that disagree by {z:.1f} "
+                  f"standard errors; {why}, first choice {_ESTIMATOR_WORDS.get(primary, primary)})")
     est = est_g if primary == "geyer" else est_s
     return AutoEstimate(g=float(max(g, 1.0)), method=method, primary=primary, oscillating=oscillating,
                         oscillation_depth=depth, estimates=estimates, disagreement_z=float(z), disagree=disagree,
                         window=int(est.window), converged=bool(est.converged), sums=sums, lags=k)
+
+
+# how the automatic choice names an estimator in text a user reads
+_ESTIMATOR_WORDS = {"sokal": "Sokal's window", "geyer": "Geyer's initial sequence", "first_zero": "first zero",
+                    "blocking": "blocking"}
 
 
 def _estimate(x: Any, *, method: str, c: float, max_lag: int | None, axis: int) -> tuple[_GEstimate, int]:

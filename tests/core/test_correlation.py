@@ -307,7 +307,7 @@ def test_auto_on_ar1_is_sokal_and_estimators_agree(phi, tol):
     r = C.analyse_series(x, dt_ps=1.0)
     # analytic g = (1 + phi)/(1 - phi) (Sokal 1997); no oscillation, no disagreement
     assert r.oscillating is False and r.estimators_disagree is False
-    assert r.method.startswith("sokal")
+    assert r.method.startswith("Sokal's window")
     assert r.statistical_inefficiency == pytest.approx((1 + phi) / (1 - phi), rel=tol)
     assert C.statistical_inefficiency(x, method="auto") == pytest.approx(r.statistical_inefficiency)
     v = C.judge_estimators(r)
