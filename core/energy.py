@@ -38,9 +38,8 @@ def boltzmann_kJ_per_mol_K() -> float:
 
 register(
     Threshold("energy.fluctuation_ratio", caution=0.05, problem=0.1, unit="",
-              source="common practice (sigma_E/sigma_K <= 0.01 good, <= 0.05 acceptable); for velocity Verlet "
-                     "on a harmonic mode R = (omega dt)^2/4 (Tuckerman 2010 eq. 3.13.3), so 0.05 and 0.1 are "
-                     "about period/14 and period/10, the time-step rule of thumb used by the time-step check",
+              source="common practice (sigma_E/sigma_K <= 0.01 good, <= 0.05 acceptable; 0.1 is a step of "
+                     "about period/10 on a harmonic mode, Tuckerman 2010 eq. 3.13.3)",
               description="RMS of the detrended conserved energy over the RMS of the kinetic energy"),
     Explanation(
         title="Energy fluctuation ratio",
