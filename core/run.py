@@ -168,6 +168,32 @@ class FrameSource(Protocol):
     def read_frame(self, index: int) -> FrameChunk: ...
 
 
+class ChunkedFrames:
+    """Base of the readers' frame sources: :meth:`read_frame` is the one-frame chunk of ``iter_chunks``
+    (negative indices count from the end; out of range is an IndexError)."""
+
+    n_frames: int
+
+    def iter_chunks(
+        self,
+        *,
+        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
+        start: int = 0,
+        stop: int | None = None,
+        stride: int = 1,
+        atom_indices: Sequence[int] | np.ndarray | None = None,
+        velocities: bool = True,
+        positions: bool = True,
+    ) -> Iterator[FrameChunk]:
+        raise NotImplementedError
+
+    def read_frame(self, index: int) -> FrameChunk:
+        if not -self.n_frames <= index < self.n_frames:
+            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
+        index %= self.n_frames
+        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
+
+
 @dataclass
 class RunMetadata:
     """What is known about how the run was made; None means unknown."""

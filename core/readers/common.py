@@ -13,6 +13,7 @@ import numpy as np
 from phasewake.core.errors import CorruptFileError, ImpossibleValueError, TimeAxisError
 from phasewake.core.run import (
     DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
     FrameChunk,
     FrameSource,
     RunMetadata,
@@ -463,7 +464,7 @@ def iter_frame_chunks(frames: FrameSource, *, positions: bool = True, **kwargs: 
 # --- estimated velocities ---
 
 
-class EstimatedVelocityFrames:
+class EstimatedVelocityFrames(ChunkedFrames):
     """Wraps a frame source that has positions only; velocities are central differences.
 
     v(t_i) = (x(t_{i+1}) - x(t_{i-1})) / (t_{i+1} - t_{i-1}), one-sided at the two ends. Positions
@@ -539,12 +540,6 @@ class EstimatedVelocityFrames:
             yield FrameChunk(start=int(sel[0]), time_ps=self.time_ps[sel],
                              positions_nm=pos[k] if positions else np.empty((sel.size, 0, 3), np.float32),
                              velocities_nm_per_ps=vel, box_nm=None if box is None else box[k])
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 def frame_spacing_warning(frames: FrameSource, time_ps: np.ndarray, masses_amu: np.ndarray,

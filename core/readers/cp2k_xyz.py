@@ -28,7 +28,14 @@ import numpy as np
 from scipy import constants as sc
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata, budget_chunk_frames
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    FrameChunk,
+    Run,
+    RunMetadata,
+    budget_chunk_frames,
+)
 
 _HEADER = re.compile(rb"^\s*i\s*=\s*(-?\d+)\s*,\s*time\s*=\s*([-+0-9.eEdD]+)\s*,\s*E\s*=")
 _VEL_NAME = re.compile(r"-vel-\d+\.xyz$", re.IGNORECASE)
@@ -227,7 +234,7 @@ def element_symbol(label: str) -> str | None:
     return None
 
 
-class Cp2kXyzFrames:
+class Cp2kXyzFrames(ChunkedFrames):
     """A FrameSource over CP2K's ``-pos-`` xyz (Angstrom) and, when given, its ``-vel-`` xyz (atomic units)."""
 
     positions_precision_nm: float | None = None
@@ -289,12 +296,6 @@ class Cp2kXyzFrames:
                     vel[j] = (rows if sel_atoms is None else rows[sel_atoms]) * VELOCITY_AU_TO_NM_PER_PS
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=None)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 def pair(pos: XyzIndex, vel: XyzIndex) -> np.ndarray:

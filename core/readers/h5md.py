@@ -38,6 +38,7 @@ from phasewake.core.readers.common import (
 )
 from phasewake.core.run import (
     DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
     EnergyTable,
     FrameChunk,
     RunMetadata,
@@ -404,7 +405,7 @@ class _BufferPool:
         return b
 
 
-class H5MDFrames:
+class H5MDFrames(ChunkedFrames):
     """Lazy chunked frames of one particle group of an H5MD file (a FrameSource).
 
     Frames are the position samples. Velocities and a time-dependent box are aligned to them BY STEP.
@@ -565,12 +566,6 @@ class H5MDFrames:
                 pos = (pos + np.einsum("fnk,fkj->fnj", img, box)).astype(np.float32)
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=box)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 @dataclass

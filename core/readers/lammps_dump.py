@@ -31,7 +31,7 @@ import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
 from phasewake.core.readers.lammps_units import UnitStyle
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, budget_chunk_frames
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, Run, budget_chunk_frames
 
 DUMP_SUFFIXES = (".lammpstrj", ".lammpsdump", ".dump")
 
@@ -264,7 +264,7 @@ def _parse_block(raw: bytes, cols: tuple[str, ...], n: int) -> np.ndarray | None
     return rows
 
 
-class LammpsDumpFrames:
+class LammpsDumpFrames(ChunkedFrames):
     """A FrameSource over a LAMMPS text dump (frames read lazily, a chunk at a time)."""
 
     positions_precision_nm: float | None = None  # text: as many digits as the dump wrote (6 with %g)
@@ -445,12 +445,6 @@ class LammpsDumpFrames:
             box = check_box(box, path=self.path, first_frame=int(sel[0]))  # an edge <= 0 is refused by name
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=box)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 @dataclass

@@ -25,6 +25,7 @@ from phasewake.core.readers.common import (
 )
 from phasewake.core.run import (
     DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
     EnergyTable,
     FrameChunk,
     Run,
@@ -80,7 +81,7 @@ def _factor(f: h5py.File, name: str, path: Path) -> float:
         raise UnitError(f"{name}: {exc.problem}", path=path) from exc
 
 
-class MdtrajH5Frames:
+class MdtrajH5Frames(ChunkedFrames):
     """Lazy chunked frames of an mdtraj HDF5 file (a FrameSource)."""
 
     def __init__(self, path: Path, *, n_frames: int, n_atoms: int, time_ps: np.ndarray, pos_factor: float,
@@ -153,12 +154,6 @@ class MdtrajH5Frames:
                                     first_frame=int(sel[0]))
                 yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                                  velocities_nm_per_ps=vel, box_nm=box)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 def open_mdtraj_h5_run(path: str | Path) -> Run:

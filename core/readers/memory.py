@@ -8,6 +8,7 @@ import numpy as np
 
 from phasewake.core.run import (
     DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
     EnergyTable,
     FrameChunk,
     Run,
@@ -16,7 +17,7 @@ from phasewake.core.run import (
 )
 
 
-class ArrayFrames:
+class ArrayFrames(ChunkedFrames):
     """Frames held in numpy arrays, served through the same chunked API as file readers."""
 
     def __init__(
@@ -81,12 +82,6 @@ class ArrayFrames:
                 velocities_nm_per_ps=vel,
                 box_nm=None if self._box is None else np.asarray(self._box[sel]),
             )
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 def run_from_arrays(

@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import TopologyMismatchError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, Run
+from phasewake.core.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, FrameSource, Run
 
 
 @dataclass(frozen=True)
@@ -44,7 +44,7 @@ class Part:
     n_keep: int  # frames 0 .. n_keep-1 are part of the joined run
 
 
-class PartsFrames:
+class PartsFrames(ChunkedFrames):
     """A FrameSource over the kept frames of several parts, one after the other."""
 
     def __init__(self, parts: Sequence[Part], time: np.ndarray) -> None:
@@ -119,12 +119,6 @@ class PartsFrames:
                 idx = np.arange(g, g + ch.n_frames * stride, stride)[: ch.n_frames]
                 yield FrameChunk(start=int(g), time_ps=self._time[idx], positions_nm=ch.positions_nm,
                                  velocities_nm_per_ps=ch.velocities_nm_per_ps, box_nm=ch.box_nm)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 def natural_key(path: Path) -> list[Any]:

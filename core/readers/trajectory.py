@@ -34,7 +34,14 @@ from phasewake.core.errors import (
     TopologyMismatchError,
 )
 from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run, RunMetadata, budget_chunk_frames
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    FrameChunk,
+    Run,
+    RunMetadata,
+    budget_chunk_frames,
+)
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -306,7 +313,7 @@ def trr_velocity_frames(path: str | Path, offsets: np.ndarray) -> np.ndarray:
 # ------------------------------------------------------------------------------ frame source
 
 
-class MdtrajFrames:
+class MdtrajFrames(ChunkedFrames):
     """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
 
     # XTC keeps positions to its precision (0.001 nm by default): too coarse to infer constraints from
@@ -429,12 +436,6 @@ class MdtrajFrames:
         if done < expected.size:
             raise CorruptFileError(f"file ended after {start + done * stride} of {self.n_frames} frames "
                                    "(truncated?)", path=self.path)
-
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
 
 
 # --------------------------------------------------------------------------------- opening

@@ -19,7 +19,13 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, TopologyMismatchError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk, FrameSource, budget_chunk_frames
+from phasewake.core.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    FrameChunk,
+    FrameSource,
+    budget_chunk_frames,
+)
 
 # Angstrom per AKMA time unit (48.88821 fs) -> Angstrom/ps (ENGINES.md, NAMD: NAMD's PDBVELFACTOR).
 NAMD_VELOCITY_TO_A_PER_PS = 20.45482706
@@ -54,7 +60,7 @@ def _dcd_counts(path: Path) -> tuple[int, int, int, int]:
     return int(natoms), int(n), int(icntrl[1]), int(icntrl[2])
 
 
-class VelocityFileFrames:
+class VelocityFileFrames(ChunkedFrames):
     """Positions (and box) from one frame source, velocities from a velocity DCD, frame by frame."""
 
     def __init__(self, inner: FrameSource, path: Path, positions_name: str) -> None:
@@ -129,8 +135,3 @@ class VelocityFileFrames:
         except (OSError, ValueError, IndexError, struct.error) as exc:
             raise CorruptFileError(f"cannot read velocities ({type(exc).__name__}: {exc})", path=self.path) from exc
 
-    def read_frame(self, index: int) -> FrameChunk:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (run has {self.n_frames})")
-        index %= self.n_frames
-        return next(self.iter_chunks(start=index, stop=index + 1, chunk_frames=1))
