@@ -439,7 +439,7 @@ def test_crossings_real_work_ctrl_c_is_never_swallowed(tmp_path):
 
     from phasewake.core.crossings import crossings_of_runs  # noqa: F401  (the code under test)
 
-    n = 400_000
+    n = 2_000_000  # ~4 s of work on a quiet machine at 400,000 (measured): too short for signals at 2.3-3.5 s
     path = tmp_path / "long.h5md"
     rng = np.random.default_rng(3)
     q = 0.48 + 0.06 * np.sign(np.sin(np.arange(n) / 300.0)) + 0.01 * rng.standard_normal(n)
@@ -461,12 +461,14 @@ def test_crossings_real_work_ctrl_c_is_never_swallowed(tmp_path):
         time.sleep(2.0 + delay)  # past the imports, into the work
         proc.send_signal(signal.SIGINT)
         out, err = proc.communicate(timeout=120)
-        if proc.returncode == 0:
-            continue  # it finished before the signal: nothing to judge
+        if proc.returncode in (0, 1):  # it finished (1: a caution found) before the signal: nothing to judge,
+            # unless the finish came from swallowing the interrupt and carrying on
+            assert "Exception ignored" not in err and "Traceback" not in err, err
+            continue
         assert proc.returncode == 130, err
         assert one_clean_line(err) == "phasewake crossings: interrupted"
         interrupted += 1
-    assert interrupted >= 2  # the run takes ~20 s here: the signals land in the work
+    assert interrupted >= 2  # the run takes several times the last signal's 3.5 s: the signals land in the work
 
 
 def test_the_crossings_scan_and_dwell_tests_stop_at_a_noted_interrupt():
