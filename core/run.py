@@ -187,6 +187,11 @@ class ChunkedFrames:
     ) -> Iterator[FrameChunk]:
         raise NotImplementedError
 
+    def frame_indices(self, start: int, stop: int | None, stride: int) -> np.ndarray:
+        """The run frames ``iter_chunks(start=, stop=, stride=)`` yields: ``stop`` clamped to the run."""
+        stop = self.n_frames if stop is None else min(stop, self.n_frames)
+        return np.arange(start, stop, stride)
+
     def read_frame(self, index: int) -> FrameChunk:
         if not -self.n_frames <= index < self.n_frames:
             raise IndexError(f"frame {index} out of range (run has {self.n_frames})")

@@ -326,7 +326,7 @@ def resolve_restarts(time_ps: np.ndarray, *, path: str | Path | None, what: str 
     return keep, tuple(joins), words
 
 
-class KeptFrames:
+class KeptFrames(ChunkedFrames):
     """A frame source showing only the kept frames of another (restarts glued into one trajectory).
 
     ``keep`` (increasing indices of the inner source) comes from :func:`resolve_restarts`; each read goes to
@@ -356,8 +356,7 @@ class KeptFrames:
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        want = np.arange(start, stop, stride)
+        want = self.frame_indices(start, stop, stride)
         if not want.size:
             return
         inner_idx = self.keep[want]

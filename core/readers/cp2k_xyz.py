@@ -274,8 +274,7 @@ class Cp2kXyzFrames(ChunkedFrames):
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        want = np.arange(start, stop, stride)
+        want = self.frame_indices(start, stop, stride)
         if want.size == 0:
             return
         sel_atoms = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)

@@ -508,8 +508,7 @@ class H5MDFrames(ChunkedFrames):
     ) -> Iterator[FrameChunk]:
         import h5py
 
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        idx = np.arange(start, stop, stride)
+        idx = self.frame_indices(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
         want_vel = velocities and self.has_velocities
         chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,

@@ -414,8 +414,7 @@ class LammpsDumpFrames(ChunkedFrames):
             raise MissingDataError("the LAMMPS units style is not known (give log.lammps, which echoes "
                                    "'units', or state it)", path=self.path)
         style = self.style
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        want = np.arange(start, stop, stride)
+        want = self.frame_indices(start, stop, stride)
         if want.size == 0:
             return
         cols_sel = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)

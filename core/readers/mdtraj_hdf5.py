@@ -110,8 +110,7 @@ class MdtrajH5Frames(ChunkedFrames):
     ) -> Iterator[FrameChunk]:
         import h5py
 
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        idx = np.arange(start, stop, stride)
+        idx = self.frame_indices(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
         try:
             f = h5py.File(self.path, "r")

@@ -60,8 +60,7 @@ class ArrayFrames(ChunkedFrames):
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        idx = np.arange(start, stop, stride)
+        idx = self.frame_indices(start, stop, stride)
         cols = None if atom_indices is None else np.asarray(atom_indices)
         chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
                                            n_arrays=int(positions) + int(velocities and self._vel is not None),
