@@ -64,7 +64,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     # Ctrl-C and SIGTERM are noted and acted on between chunks of work (core/interrupts.py); the window
     # verbs keep Qt's own handling.
-    from phasewake.core.cache import take_notices
+    from phasewake.core.store.cache import take_notices
 
     take_notices()  # notices of earlier work in this process are not this command's
     guard = interrupts.handling() if args.verb not in WINDOW_VERBS else contextlib.nullcontext()
@@ -105,7 +105,7 @@ WINDOW_VERBS = ("open", "demo")
 
 def _print_notices(verb: str) -> None:
     """The result cache's notices ("cache skipped", a damaged entry replaced) as warning lines."""
-    from phasewake.core.cache import take_notices
+    from phasewake.core.store.cache import take_notices
 
     for text in take_notices():
         sys.stderr.write(f"phasewake {verb}: warning: {text}\n")

@@ -12,8 +12,8 @@ from collections.abc import Generator
 from pathlib import Path
 from typing import Any, TypeVar
 
-from phasewake.core.jsonable import to_jsonable
 from phasewake.core.progress import Progress, drive
+from phasewake.core.store.jsonable import to_jsonable
 
 T = TypeVar("T")
 
@@ -62,7 +62,7 @@ def _positive_mb(text: str) -> float:
 
 
 def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
-    """``--chunk-mb``: the memory budget of one chunk of frames (``phasewake.core.run.chunk_budget_mb``)."""
+    """``--chunk-mb``: the memory budget of one chunk of frames (``phasewake.core.model.run.chunk_budget_mb``)."""
     parser.add_argument("--chunk-mb", metavar="MB", type=_positive_mb, default=None,
                         help="memory for one chunk of frames while streaming (default: PHASEWAKE_CHUNK_MB or 128); "
                              "lower it for very large systems or small machines")
@@ -70,7 +70,7 @@ def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
 
 def apply_chunk_budget(args: argparse.Namespace) -> None:
     """Use ``--chunk-mb`` for every frame read in this process (no-op when not given)."""
-    from phasewake.core.run import set_chunk_budget_mb
+    from phasewake.core.model.run import set_chunk_budget_mb
 
     if getattr(args, "chunk_mb", None) is not None:
         set_chunk_budget_mb(args.chunk_mb)
@@ -194,7 +194,7 @@ def reader_options(args: argparse.Namespace) -> dict[str, Any]:
 def column_roles_from_args(args: argparse.Namespace) -> dict[str, str] | None:
     """``--column NAME=ROLE`` options as a mapping; InputError for a malformed one or an unknown role."""
     from phasewake.core.errors import InputError
-    from phasewake.core.run import ENERGY_ROLES
+    from phasewake.core.model.run import ENERGY_ROLES
 
     items = getattr(args, "column", None)
     if not items:

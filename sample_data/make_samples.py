@@ -16,7 +16,7 @@ The scenario (our own; see README.md beside this file):
 - solute: a dimer whose bond is the double well V(r) = h [1 - (r - r0 - w)^2 / w^2]^2 (compact minimum
   r0, extended minimum r0 + 2w, barrier h at r0 + w), the model of Dellago, Bolhuis and Chandler,
   J. Chem. Phys. 110, 6617 (1999); its atoms interact with the bath through the same WCA potential;
-- integrators from :mod:`phasewake.core.integrators` (velocity Verlet; BAOAB Langevin with the bath heat).
+- integrators from :mod:`phasewake.core.model.integrators` (velocity Verlet; BAOAB Langevin with the bath heat).
 
 Every number is reproducible: fixed seeds (numpy PCG64), plain numpy arithmetic, and HDF5 files written
 without timestamps. The dynamics is chaotic, so last-bit differences between CPUs or numpy builds grow
@@ -35,7 +35,7 @@ from pathlib import Path
 
 import numpy as np
 
-from phasewake.core.integrators import IntegratedRun, run_baoab, run_velocity_verlet
+from phasewake.core.model.integrators import IntegratedRun, run_baoab, run_velocity_verlet
 from phasewake.core.progress import Progress, Work, drive, result_of
 from phasewake.core.units import KB_KJ_PER_MOL_K
 

@@ -59,7 +59,7 @@ def _threshold_text(v: Any) -> tuple[str, str]:
 
 
 def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> None:
-    from phasewake.core.verdicts import EXPLANATIONS
+    from phasewake.core.analyses.verdicts import EXPLANATIONS
 
     w = out.write
     head = label or result.run_name
@@ -151,11 +151,11 @@ def parse_groups(texts: list[str] | None, topology: Any, n_atoms: int) -> dict[s
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.core.audit import audit_summary
-    from phasewake.core.cache import ResultCache
-    from phasewake.core.cached import cached_audit
+    from phasewake.core.analyses.audit import audit_summary
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
     from phasewake.core.readers import open_run
-    from phasewake.core.verdicts import HEURISTIC_NOTE
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import cached_audit
 
     the_run = open_run_from_args(args)
     other = None
@@ -173,7 +173,7 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         summary = audit_summary(result)
         if args.explain:
-            from phasewake.core.verdicts import EXPLANATIONS
+            from phasewake.core.analyses.verdicts import EXPLANATIONS
 
             summary["explanations"] = {v.kind: EXPLANATIONS[v.kind] for v in result.verdicts
                                        if v.kind in EXPLANATIONS}

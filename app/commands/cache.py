@@ -34,7 +34,7 @@ def _summary(entries: int, size_bytes: int, by_analysis: dict[str, int]) -> str:
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.core.cache import ResultCache
+    from phasewake.core.store.cache import ResultCache
 
     cache = ResultCache()
     if cache.owned() is False:  # someone else's files and no mark of ours: touch nothing

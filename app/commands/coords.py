@@ -96,7 +96,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def _pca_group(text: str, run: Any) -> np.ndarray:
     """Atoms of a group written in the coordinate grammar (reuses the rg(...) parser)."""
-    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.analyses.coordspec import parse, resolve
     from phasewake.core.errors import CoordinateSpecError
 
     wrapped = f"rg({text})"
@@ -110,14 +110,14 @@ def _pca_group(text: str, run: Any) -> np.ndarray:
 
 def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, np.ndarray]], np.ndarray, dict]:
     """Compute everything; returns (name, unit, values) columns, the time axis and a summary."""
-    from phasewake.core.cache import ResultCache
-    from phasewake.core.cached import cached_coordinates
     from phasewake.core.errors import InputError
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import cached_coordinates
 
     specs = list(args.coordinate)
     summary: dict[str, Any] = {"run": run.name, "files": [str(p) for p in run.paths], "coordinates": []}
     if not specs and args.pca is None:
-        from phasewake.core.coordinate_choice import choose_coordinate
+        from phasewake.core.analyses.coordinate_choice import choose_coordinate
         from phasewake.core.errors import MissingDataError
 
         choice = choose_coordinate(run)
@@ -154,7 +154,7 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
                 "velocities_estimated": s.velocities_estimated,
             })
     if args.pca is not None:
-        from phasewake.core.cached import cached_pca
+        from phasewake.core.store.cached import cached_pca
 
         if args.pca < 1:
             raise InputError("--pca needs K >= 1")
@@ -212,7 +212,7 @@ def _write_h5md(path: Path, cols: list[tuple[str, str, np.ndarray]], time: np.nd
 
     Built in memory and written in one atomic write: a full disk never reaches the HDF5 library."""
     from phasewake.core import __version__
-    from phasewake.core.atomic import atomic_hdf5
+    from phasewake.core.store.atomic import atomic_hdf5
 
     with atomic_hdf5(path) as f:
         h = f.create_group("h5md")
@@ -266,7 +266,7 @@ def run(args: argparse.Namespace) -> int:
     if out.suffix.lower() in (".h5md", ".h5", ".hdf5"):
         _write_h5md(out, cols, time, summary, args.start)
     else:
-        from phasewake.core.atomic import atomic_open
+        from phasewake.core.store.atomic import atomic_open
 
         with atomic_open(out, "w", encoding="utf-8", newline="") as fh:
             _write_csv(fh, cols, time, summary)

@@ -149,8 +149,8 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
 
 
 def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) -> None:
-    from phasewake.core.atomic import OutputError
     from phasewake.core.errors import InputError
+    from phasewake.core.store.atomic import OutputError
 
     target = path.resolve()
     for p in inputs:
@@ -164,7 +164,7 @@ def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) ->
 
 
 def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
-    from phasewake.core.atomic import atomic_open
+    from phasewake.core.store.atomic import atomic_open
 
     u = res.velocity_unit
     with atomic_open(path, "w", encoding="utf-8", newline="") as fh:
@@ -180,9 +180,9 @@ def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import quiet_stdout
-    from phasewake.core.cache import ResultCache
-    from phasewake.core.cached import cached_crossings_of_runs
     from phasewake.core.readers import open_run
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import cached_crossings_of_runs
 
     if args.events:
         from phasewake.app.common import check_output_path

@@ -104,10 +104,10 @@ def run(args: argparse.Namespace) -> int:
 def write_demo_output(path: Path, out: Path) -> dict[str, Path]:
     """Write the headless demo files for the run at ``path`` into ``out``; return them by name."""
     from phasewake.app.common import quiet_stdout, run_with_progress
-    from phasewake.core.atomic import write_text
-    from phasewake.core.export import export_figure, provenance_of_run, to_jsonable
+    from phasewake.core.figures.export import export_figure, provenance_of_run, to_jsonable
+    from phasewake.core.figures.report import build_report
     from phasewake.core.readers import describe_run, open_run
-    from phasewake.core.report import build_report
+    from phasewake.core.store.atomic import write_text
 
     written: dict[str, Path] = {}
     with quiet_stdout():
@@ -160,7 +160,7 @@ def _summary_text(desc: dict[str, Any]) -> str:
 
 
 def _audit_text(audit: Any) -> str:
-    from phasewake.core.plots import verdict_rows
+    from phasewake.core.figures.plots import verdict_rows
 
     lines = [f"phasewake audit of {audit.run_name} (ensemble {audit.ensemble})", ""]
     for r in verdict_rows(audit.verdicts):

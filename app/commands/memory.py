@@ -169,7 +169,7 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
         if run.energies is not None and run.energies.series:
             names = [k for k, s in run.energies.series.items() if s.role not in _SKIP_ROLES]
         else:
-            from phasewake.core.coordinate_choice import choose_coordinate
+            from phasewake.core.analyses.coordinate_choice import choose_coordinate
             from phasewake.core.errors import MissingDataError
 
             choice = choose_coordinate(run)
@@ -187,7 +187,7 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
         out.append({"name": s.name, "unit": s.unit, "values": values[ok], "time_ps": t[ok],
                     "source": s.source or "energy table", "kind": "series"})
     if args.coordinate:
-        from phasewake.core.coordinates import compute_coordinates
+        from phasewake.core.analyses.coordinates import compute_coordinates
 
         series = run_with_progress(compute_coordinates(run, args.coordinate, start=args.start, stop=args.stop),
                                    "coordinates")
@@ -203,7 +203,7 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
 def _groups(args: argparse.Namespace, run: Any) -> dict[str, np.ndarray] | None:
     if not args.group:
         return None
-    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.analyses.coordspec import parse, resolve
     from phasewake.core.errors import CoordinateSpecError
 
     out: dict[str, np.ndarray] = {}
@@ -223,8 +223,8 @@ def _groups(args: argparse.Namespace, run: Any) -> dict[str, np.ndarray] | None:
 
 
 def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[Any]) -> dict[str, Any]:
-    from phasewake.core import correlation as C
-    from phasewake.core import sampling as S
+    from phasewake.core.analyses import correlation as C
+    from phasewake.core.analyses import sampling as S
 
     x = item["values"]
     dt = _time_step(item["time_ps"], f"series {item['name']}")
@@ -266,7 +266,7 @@ def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[
 
 
 def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args: argparse.Namespace) -> Any:
-    from phasewake.core import sampling as S
+    from phasewake.core.analyses import sampling as S
 
     chains = [x]
     for rep in replicas:
@@ -274,7 +274,7 @@ def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args
             s = _find_series(rep, item["name"])
             chains.append(np.asarray(s.values, float)[args.start:args.stop])
         else:
-            from phasewake.core.coordinates import compute_coordinates
+            from phasewake.core.analyses.coordinates import compute_coordinates
 
             c = run_with_progress(compute_coordinates(rep, [item["source"]], start=args.start, stop=args.stop),
                                   "replica coordinates")[0]
@@ -287,10 +287,10 @@ def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args
 
 
 def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
-    from phasewake.core import sampling as S
-    from phasewake.core import velocity as V
-    from phasewake.core.cache import ResultCache
-    from phasewake.core.cached import _with_defaults, cached_work
+    from phasewake.core.analyses import sampling as S
+    from phasewake.core.analyses import velocity as V
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import _with_defaults, cached_work
 
     out: dict[str, Any] = {}
     groups = _groups(args, run)
@@ -447,7 +447,7 @@ def _g(x: float) -> str:
 
 
 def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], explain: bool, out: Any) -> None:
-    from phasewake.core.verdicts import EXPLANATIONS, HEURISTIC_NOTE
+    from phasewake.core.analyses.verdicts import EXPLANATIONS, HEURISTIC_NOTE
 
     w = out.write
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
@@ -589,8 +589,8 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import quiet_stdout, run_overrides
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, worst
     from phasewake.core.readers import open_run
-    from phasewake.core.verdicts import HEURISTIC_NOTE, worst
 
     run_ = open_run_from_args(args)
     replicas = []

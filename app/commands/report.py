@@ -62,7 +62,7 @@ def _states(text: str | None) -> tuple[float, float] | None:
 def _check_explicit(args: argparse.Namespace, run_: object, states: tuple[float, float] | None) -> None:
     """Options given explicitly are checked before the report is built, so a mistake exits 2 like
     ``crossings`` and ``coords`` instead of leaving a section out of the report."""
-    from phasewake.core.coordinates import resolve_for_run
+    from phasewake.core.analyses.coordinates import resolve_for_run
     from phasewake.core.errors import InputError
 
     if args.coordinate is not None:
@@ -76,9 +76,9 @@ def _check_explicit(args: argparse.Namespace, run_: object, states: tuple[float,
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import check_output_folder, check_output_path
-    from phasewake.core.cache import ResultCache
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.report import build_report
+    from phasewake.core.figures.report import build_report
+    from phasewake.core.store.cache import ResultCache
 
     out = Path(args.output)
     if out.suffix.lower() != ".pdf":

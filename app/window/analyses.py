@@ -2,7 +2,7 @@
 
 Every panel has one job in :data:`PANEL_JOBS`: a function of an :class:`AnalysisContext` that
 returns a progress generator (``phasewake.core.progress``) whose result is a :class:`PanelResult`.
-The jobs call the core analyses and the figure builders of ``phasewake.core.plots``; they run in a
+The jobs call the core analyses and the figure builders of ``phasewake.core.figures.plots``; they run in a
 worker thread (``workers.JobRunner``). An analysis that is not in this build yet gives a result with
 no figure and a plain sentence saying so: the window never shows made-up data.
 """
@@ -17,10 +17,10 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core import plots
-from phasewake.core.figures import FigureSpec
+from phasewake.core.figures import plots
+from phasewake.core.figures.spec import FigureSpec
+from phasewake.core.model.run import Run
 from phasewake.core.progress import Progress
-from phasewake.core.run import Run
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
 
@@ -65,7 +65,7 @@ class PanelResult:
     message: str = ""
     traces: dict[str, Trace] = field(default_factory=dict)  # figure key -> trace
     events: tuple[EventRow, ...] = ()
-    verdicts: tuple[Any, ...] = ()  # phasewake.core.verdicts.Verdict
+    verdicts: tuple[Any, ...] = ()  # phasewake.core.analyses.verdicts.Verdict
     info: dict[str, Any] = field(default_factory=dict)
 
 
@@ -85,10 +85,13 @@ class AnalysisContext:
 Job = Callable[[AnalysisContext], Generator[Progress, None, PanelResult]]
 
 
+_ROOMS = {"cached": "store", "report": "figures", "export": "figures", "plots": "figures"}
+
+
 def module_or_none(name: str) -> Any:
     """Import ``phasewake.core.<name>`` if it is in this build, else None."""
     try:
-        return importlib.import_module(f"phasewake.core.{name}")
+        return importlib.import_module(f"phasewake.core.{_ROOMS.get(name, 'analyses')}.{name}")
     except ModuleNotFoundError as exc:
         if exc.name and exc.name.startswith("phasewake.core"):
             return None
@@ -141,7 +144,7 @@ def window_run(run: Run, start: int, stop: int) -> Run:
     """The run cut to frames [start, stop) (energies cut to the same time span); no data copied."""
     import dataclasses
 
-    from phasewake.core.run import EnergyTable
+    from phasewake.core.model.run import EnergyTable
 
     if start <= 0 and stop >= run.n_frames:
         return run
@@ -162,7 +165,7 @@ def window_run(run: Run, start: int, stop: int) -> Run:
 def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:
     import dataclasses
 
-    from phasewake.core.run import EnergyTable
+    from phasewake.core.model.run import EnergyTable
 
     table = run.energies
     if table is None or window_ps is None:
@@ -214,7 +217,7 @@ _CACHE_SIZE = 8
 
 def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[Progress, None, Any]:
     """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window in memory, and
-    for runs with files in the result cache, ``phasewake.core.cached``)."""
+    for runs with files in the result cache, ``phasewake.core.store.cached``)."""
     key = (id(run), spec, start, stop)
     with _CACHE_LOCK:
         hit = _CACHE.get(key)
@@ -222,7 +225,7 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
         return hit[1]
     coords = module_or_none("coordinates")
     if coords is None:
-        raise ModuleNotFoundError("phasewake.core.coordinates")
+        raise ModuleNotFoundError("phasewake.core.analyses.coordinates")
     cached = module_or_none("cached")  # the on-disk result cache: reopening a run reads no frames
     work = (cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache()) if cached is not None
             else coords.compute_coordinates(run, [spec], start=start, stop=stop))
@@ -239,14 +242,14 @@ USE_CACHE = True  # the window's Analysis > Use the result cache (remembered in 
 
 def window_cache() -> Any:
     """The result cache the panels use: the default one, or a disabled one when the user turned it off."""
-    from phasewake.core.cache import ResultCache
+    from phasewake.core.store.cache import ResultCache
 
     return ResultCache() if USE_CACHE else ResultCache(enabled=False)
 
 
 def through_cache(run: Run, analysis: str, settings: dict[str, Any],
                   work: Generator[Progress, None, Any]) -> Generator[Progress, None, Any]:
-    """``work`` through the on-disk result cache (``phasewake.core.cached.cached_work``): a panel shown again,
+    """``work`` through the on-disk result cache (``phasewake.core.store.cached.cached_work``): a panel shown again,
     or the same file reopened, reads no frames. ``settings`` must hold everything that changes the result.
     Analysis \u25b8 Use the result cache or ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are
     never cached."""
@@ -312,7 +315,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         figs = _audit_figures(res, run, ctx.window_ps)
     if not figs:
         figs = list(quick.figures)
-    from phasewake.core.verdicts import HEURISTIC_NOTE
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
@@ -603,7 +606,7 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
             notes.append(f"R-hat across replicas: {exc}")
     if not figs and not verdicts:
         return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
-    from phasewake.core.verdicts import HEURISTIC_NOTE
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
 

@@ -66,7 +66,7 @@ def cursor_redraw_seconds(n_points: int = 10_000_000, *, moves: int = 20) -> flo
     from PySide6 import QtCore
 
     from phasewake.app.window.render import FigureView
-    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec
+    from phasewake.core.figures.spec import Axis, FigureSpec, Line, PlotSpec
 
     app = _app()
     t = np.arange(n_points, dtype=np.float64) * 1e-3

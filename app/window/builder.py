@@ -1,6 +1,6 @@
 """The coordinate builder: write a coordinate specification by picking atoms, or type one.
 
-The specification language is ``phasewake.core.coordspec`` (documented there). Picking atoms in
+The specification language is ``phasewake.core.analyses.coordspec`` (documented there). Picking atoms in
 the table (with their names and residues) and choosing a kind writes the text for the user; typed
 text is checked as it is typed, and a mistake is pointed at by character.
 """
@@ -10,7 +10,7 @@ from __future__ import annotations
 from PySide6 import QtCore, QtWidgets
 
 from phasewake.core.errors import PhasewakeError
-from phasewake.core.run import Run
+from phasewake.core.model.run import Run
 
 # kind -> (function name, number of atoms, what it is)
 KINDS: tuple[tuple[str, int, str], ...] = (
@@ -110,7 +110,7 @@ def check_spec(spec: str, run: Run | None) -> str:
     if not spec.strip():
         return "type a coordinate, e.g. distance(0, 1)"
     try:
-        from phasewake.core import coordspec
+        from phasewake.core.analyses import coordspec
     except ImportError:
         return ""  # no checker in this build: the analysis itself will report problems
     try:

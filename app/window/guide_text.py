@@ -2,7 +2,7 @@
 
 Kept apart from the widgets so the text can be read and edited as text. The user guide is HTML for
 a ``QTextBrowser``; the table of coordinate functions and the list of file formats are filled in from
-``phasewake.core.coordspec.FUNCTIONS`` and ``phasewake.core.readers.READERS`` so they cannot go stale.
+``phasewake.core.analyses.coordspec.FUNCTIONS`` and ``phasewake.core.readers.READERS`` so they cannot go stale.
 """
 
 from __future__ import annotations
@@ -118,7 +118,7 @@ and your group's practice decide whether a run is good enough.</p>
 
 def coordinate_section() -> str:
     """The coordinate specification, with its functions listed from the parser itself."""
-    from phasewake.core.coordspec import FUNCTIONS
+    from phasewake.core.analyses.coordspec import FUNCTIONS
 
     rows = []
     for name, (kinds, required, unit, what) in FUNCTIONS.items():

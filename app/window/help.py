@@ -84,7 +84,7 @@ def version() -> str:
 
 def about_html() -> str:
     """The About box: version, licences of the dependencies, how to cite the methods, the caution."""
-    from phasewake.core.verdicts import HEURISTIC_NOTE
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 
     rows = "".join(f"<tr><td>{html.escape(d.name)}</td><td>{html.escape(d.version)}</td>"
                    f"<td>{html.escape(d.licence)}</td></tr>" for d in dependency_licences())

@@ -30,8 +30,8 @@ from phasewake.app.window.panels import PANEL_CLASSES, Panel
 from phasewake.app.window.ruler import TimeRuler
 from phasewake.app.window.runs import RunsList
 from phasewake.app.window.workers import JobOutcome, JobRunner
+from phasewake.core.model.run import Run
 from phasewake.core.progress import Progress
-from phasewake.core.run import Run
 
 Opener = Callable[[Sequence[str], str | None, RunSettings], Run]
 
@@ -285,8 +285,8 @@ class MainWindow(QtWidgets.QMainWindow):
                  "The result cache is off: every panel is computed afresh.")
 
     def clear_cache(self) -> None:
-        from phasewake.core.cache import ResultCache
         from phasewake.core.errors import PhasewakeError
+        from phasewake.core.store.cache import ResultCache
 
         cache = ResultCache()
         try:
@@ -756,7 +756,7 @@ class MainWindow(QtWidgets.QMainWindow):
                                 "coordinate": self.model.coordinate}
         if e is not None:
             try:
-                from phasewake.core.export import provenance_of_run
+                from phasewake.core.figures.export import provenance_of_run
 
                 prov.update(provenance_of_run(e.run, settings={"time_window_ps": list(self.model.effective_window_ps),
                                                                 "coordinate": self.model.coordinate}))
@@ -770,7 +770,7 @@ class MainWindow(QtWidgets.QMainWindow):
         Returns the path at once; the status line says when the file is written (``wait_idle`` waits).
         """
         from phasewake.core.errors import MissingDataError
-        from phasewake.core.export import export_figure
+        from phasewake.core.figures.export import export_figure
 
         spec = self.current_panel().current_figure()
         if spec is None:
@@ -788,7 +788,7 @@ class MainWindow(QtWidgets.QMainWindow):
     def export_data_to(self, path: str | Path) -> Path:
         """The data of the figure on top as CSV, as a background job (returns the path at once)."""
         from phasewake.core.errors import MissingDataError
-        from phasewake.core.export import export_csv
+        from phasewake.core.figures.export import export_csv
 
         spec = self.current_panel().current_figure()
         if spec is None:

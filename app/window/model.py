@@ -17,7 +17,7 @@ from typing import Any
 import numpy as np
 from PySide6 import QtCore
 
-from phasewake.core.run import Run
+from phasewake.core.model.run import Run
 
 
 @dataclass(frozen=True)

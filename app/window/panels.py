@@ -18,8 +18,8 @@ from phasewake.app.window.analyses import EventRow, PanelResult, Trace
 from phasewake.app.window.model import WindowModel
 from phasewake.app.window.render import CURSOR_COLOUR, FigureView
 from phasewake.app.window.words import for_window
-from phasewake.core import explain
-from phasewake.core.figures import LEVEL_STYLE, FigureSpec, Mark
+from phasewake.core.analyses import explain
+from phasewake.core.figures.spec import LEVEL_STYLE, FigureSpec, Mark
 
 LEVEL_SYMBOL = {"ok": "\u25cf", "caution": "\u25b2", "problem": "\u2716", "info": "\u25a0"}  # shape + word
 DEFAULT_TRAIL = 60  # frames of recent path drawn behind the current point
@@ -527,7 +527,7 @@ class CrossingsPanel(Panel):
         return doc.toPlainText()
 
     def show_result(self, result: PanelResult) -> None:
-        from phasewake.core import plots
+        from phasewake.core.figures import plots
 
         res = result.info.get("crossings")
         self._rates_html = ""

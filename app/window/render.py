@@ -1,6 +1,6 @@
-"""Draw a declarative :class:`phasewake.core.figures.FigureSpec` live with pyqtgraph.
+"""Draw a declarative :class:`phasewake.core.figures.spec.FigureSpec` live with pyqtgraph.
 
-The same description is drawn by ``phasewake.core.export`` with matplotlib, so what a user exports
+The same description is drawn by ``phasewake.core.figures.export`` with matplotlib, so what a user exports
 is what they see here. Time axes (``PlotSpec.x_is_time``) are x-linked inside a figure and carry the
 shared cursor as a draggable vertical line. Long monotonic series use peak downsampling and clip to
 view, so 1e7-point curves stay smooth (measured in ``/work/shared/PERFORMANCE.md``).
@@ -14,7 +14,7 @@ import numpy as np
 import pyqtgraph as pg
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from phasewake.core.figures import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
+from phasewake.core.figures.spec import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
 
 _DASH = {
     "solid": QtCore.Qt.PenStyle.SolidLine,

@@ -11,7 +11,7 @@ from pathlib import Path
 from PySide6 import QtCore, QtWidgets
 
 from phasewake.app.window.model import RunSettings, WindowModel
-from phasewake.core.run import Run
+from phasewake.core.model.run import Run
 
 
 def _file_temperature(run: Run) -> str:

@@ -34,7 +34,7 @@ from pathlib import Path
 from typing import Any
 
 from phasewake.core.errors import SessionError
-from phasewake.core.jsonable import to_jsonable
+from phasewake.core.store.jsonable import to_jsonable
 
 FORMAT = "phasewake-session"
 VERSION = 1
@@ -93,7 +93,7 @@ def to_json(state: SessionState, session_path: str | Path) -> str:
 
 def save(state: SessionState, path: str | Path) -> Path:
     """Write the session to ``path`` atomically; returns the path written."""
-    from phasewake.core.atomic import write_text
+    from phasewake.core.store.atomic import write_text
 
     path = Path(path)
     write_text(path, to_json(state, path))

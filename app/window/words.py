@@ -2,14 +2,14 @@
 
 The core's messages name command-line options ("give --timestep FS"); in the window the same advice
 must say where to click. :func:`for_window` rewrites them, after
-:func:`phasewake.core.plots.plain_words` (no module paths, "±", σ_E).
+:func:`phasewake.core.figures.plots.plain_words` (no module paths, "±", σ_E).
 """
 
 from __future__ import annotations
 
 import re
 
-from phasewake.core.plots import plain_words
+from phasewake.core.figures.plots import plain_words
 
 # option -> what to do in the window instead
 WINDOW_ADVICE: dict[str, str] = {

@@ -29,7 +29,7 @@ from phasewake.core.errors import (
     TopologyMismatchError,
     UnknownFormatError,
 )
-from phasewake.core.run import EnergyTable, Run, RunMetadata
+from phasewake.core.model.run import EnergyTable, Run, RunMetadata
 
 
 @dataclass(frozen=True)
@@ -238,7 +238,7 @@ def open_run(
     velocities : a file of velocities beside the positions (NAMD velocity DCD); files named ``*.veldcd``
         or ``*.vel.dcd`` among ``paths`` are taken as such too.
     energy_files : more energy tables (joined on time).
-    column_roles : energy-table column name -> role (see ``phasewake.core.run.ENERGY_ROLES``),
+    column_roles : energy-table column name -> role (see ``phasewake.core.model.run.ENERGY_ROLES``),
         overriding recognition by name; a name may carry its unit, "Epot (kcal/mol)".
     timestep_ps, n_constraints, temperature_K, ensemble, **metadata : override RunMetadata fields.
     chunk_frames : default chunk size for frame iteration (unused by readers that choose their own).

@@ -11,7 +11,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, ImpossibleValueError, TimeAxisError
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     FrameChunk,

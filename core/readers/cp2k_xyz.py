@@ -28,7 +28,7 @@ import numpy as np
 from scipy import constants as sc
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     FrameChunk,

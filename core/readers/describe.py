@@ -7,7 +7,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.run import Run
+from phasewake.core.model.run import Run
 
 
 def describe(run: Run) -> dict[str, Any]:

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import EnergyTableError, UnitError
-from phasewake.core.run import ENERGY_ROLES, EnergyTable, RunMetadata, Series
+from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, RunMetadata, Series
 from phasewake.core.units import parse_unit, split_header
 
 # dimension a role's unit must have (the same rule as the generic tables)

@@ -24,6 +24,15 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, ResourceError, UnitError
+from phasewake.core.model.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    EnergyTable,
+    FrameChunk,
+    RunMetadata,
+    Series,
+    budget_chunk_frames,
+)
 from phasewake.core.readers.common import (
     box_matrix,
     check_box,
@@ -35,15 +44,6 @@ from phasewake.core.readers.common import (
     topology_from_elements,
     topology_from_json,
     topology_to_json,
-)
-from phasewake.core.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    EnergyTable,
-    FrameChunk,
-    RunMetadata,
-    Series,
-    budget_chunk_frames,
 )
 from phasewake.core.units import parse_unit
 
@@ -149,7 +149,7 @@ def write_h5md(
     dstep = float(np.median(np.diff(st))) if n_frames > 1 else 1.0
 
     path = Path(path)
-    from phasewake.core.atomic import atomic_path  # the project's one atomic writer
+    from phasewake.core.store.atomic import atomic_path  # the project's one atomic writer
 
     with atomic_path(path) as tmp:
         with h5py.File(tmp, "w") as f:

@@ -30,8 +30,8 @@ from pathlib import Path
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, Run, budget_chunk_frames
 from phasewake.core.readers.lammps_units import UnitStyle
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, Run, budget_chunk_frames
 
 DUMP_SUFFIXES = (".lammpstrj", ".lammpsdump", ".dump")
 
@@ -505,8 +505,8 @@ def open_dump_run(path: Path, top_path: Path | None) -> Run:
     :func:`finish_run` applies the units style and the time step once the run's metadata is known
     (``open_run`` calls it after reading log.lammps and the user's statements).
     """
+    from phasewake.core.model.run import Run, RunMetadata
     from phasewake.core.readers import lammps_data
-    from phasewake.core.run import Run, RunMetadata
 
     ds = open_dump(path)
     frames = ds.frames

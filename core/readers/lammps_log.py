@@ -28,6 +28,7 @@ import numpy as np
 import scipy.constants as sc
 
 from phasewake.core.errors import EnergyTableError, InputError
+from phasewake.core.model.run import EnergyTable, Series
 from phasewake.core.readers import lammps_units
 from phasewake.core.readers.engine_common import (
     EngineEnergy,
@@ -36,7 +37,6 @@ from phasewake.core.readers.engine_common import (
     head_text,
     numbers,
 )
-from phasewake.core.run import EnergyTable, Series
 
 # LAMMPS thermo keywords as printed -> our roles
 ROLES = {"PotEng": "potential", "KinEng": "kinetic", "TotEng": "total", "Econserve": "conserved",

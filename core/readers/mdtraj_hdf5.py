@@ -15,15 +15,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, UnitError
-from phasewake.core.readers.common import (
-    box_vectors_from_lengths_angles,
-    check_box,
-    check_time_axis,
-    decode,
-    masses_from_topology,
-    topology_from_json,
-)
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     EnergyTable,
@@ -32,6 +24,14 @@ from phasewake.core.run import (
     RunMetadata,
     Series,
     budget_chunk_frames,
+)
+from phasewake.core.readers.common import (
+    box_vectors_from_lengths_angles,
+    check_box,
+    check_time_axis,
+    decode,
+    masses_from_topology,
+    topology_from_json,
 )
 from phasewake.core.units import parse_unit
 

@@ -6,7 +6,7 @@ from collections.abc import Iterator, Sequence
 
 import numpy as np
 
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     EnergyTable,

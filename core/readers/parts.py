@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import TopologyMismatchError
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, FrameSource, Run
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, FrameSource, Run
 
 
 @dataclass(frozen=True)

@@ -23,8 +23,8 @@ from typing import TextIO
 import numpy as np
 
 from phasewake.core.errors import EmptyFileError, EnergyTableError, ResourceError, TimeAxisError, UnitError
+from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, Series
 from phasewake.core.readers.common import resolve_restarts
-from phasewake.core.run import ENERGY_ROLES, EnergyTable, Series
 from phasewake.core.units import parse_unit, split_header
 
 TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene")

@@ -33,8 +33,7 @@ from phasewake.core.errors import (
     MissingDataError,
     TopologyMismatchError,
 )
-from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     FrameChunk,
@@ -42,6 +41,7 @@ from phasewake.core.run import (
     RunMetadata,
     budget_chunk_frames,
 )
+from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, TopologyMismatchError
-from phasewake.core.run import (
+from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     FrameChunk,

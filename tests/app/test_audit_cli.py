@@ -218,7 +218,7 @@ def test_sample_langevin_ok_on_conserved_quantity(capsys):
 
 @pytest.mark.slow
 def test_openmm_water_temperature_and_4fs_flagged_worse(openmm_water_1fs, openmm_water_4fs):
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
 
@@ -248,7 +248,7 @@ def test_openmm_water_temperature_and_4fs_flagged_worse(openmm_water_1fs, openmm
 def test_openmm_water_constraints_inferred_without_metadata(openmm_water_1fs):
     # DCD + PDB + CSV carry no constraint count: inferred from rigid pairs = OpenMM's own count
     # (System.getNumConstraints: 3 per rigid water), and T equals OpenMM's within 0.1 K.
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
 

@@ -96,7 +96,7 @@ def test_crossings_twice_and_no_cache(tmp_path, cache_dir, h5md_reads, capsys):
 
 
 def test_report_twice_reads_frames_once(tmp_path, cache_dir, h5md_reads, capsys, monkeypatch):
-    from phasewake.core import report
+    from phasewake.core.figures import report
 
     # drawing the pages (matplotlib, ~10 s) is not what is cached: count them instead of drawing them
     monkeypatch.setattr(report, "_write_pdf", lambda target, pages, **kw: len(report._paginate(pages)))

@@ -46,7 +46,7 @@ CACHED = {"Energy": {"audit"}, "Correlation": {"coordinates", "correlation", "va
 
 @pytest.mark.parametrize("job", sorted(CACHED))
 def test_panel_shown_again_reads_no_frames(tmp_path, cache_dir, job):
-    from phasewake.core.cache import ResultCache
+    from phasewake.core.store.cache import ResultCache
 
     name = "dimer_langevin.h5md" if job == "Crossings" else "dimer_nve.h5md"
     data = tmp_path / "data"

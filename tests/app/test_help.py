@@ -51,7 +51,7 @@ def test_help_dialogs_open_and_close(window, qtbot, entry, attr, words):
 
 
 def test_user_guide_lists_every_coordinate_function_and_format():
-    from phasewake.core.coordspec import FUNCTIONS
+    from phasewake.core.analyses.coordspec import FUNCTIONS
     from phasewake.core.readers import READERS
 
     text = guide_text.user_guide_html()

@@ -219,7 +219,7 @@ def test_oscillating_oh_distance_estimators_disagree_and_the_largest_is_used(cap
     assert s["estimates"]["sokal"]["g"] < 1.5 < s["statistical_inefficiency_g"]
     kinds = {v["kind"]: v["level"] for v in s["verdicts"]}
     assert kinds["sampling.estimator_agreement"] == "caution"
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.progress import result_of  # noqa: F401  (imported for parity with other tests)
     from phasewake.core.readers import open_run
 

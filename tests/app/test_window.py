@@ -452,7 +452,7 @@ def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_pat
     """Analysis > Use the result cache is remembered in the settings and switches the panels' cache off;
     Analysis > Clear the result cache empties the cache folder (the input files are untouched)."""
     from phasewake.app.window import analyses
-    from phasewake.core.cache import ResultCache
+    from phasewake.core.store.cache import ResultCache
 
     monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / "cache"))
     monkeypatch.setattr(analyses, "USE_CACHE", True)

@@ -12,8 +12,8 @@ import pytest
 from PySide6 import QtCore, QtGui, QtWidgets
 
 from phasewake.app.window.main import MainWindow
-from phasewake.core import explain
-from phasewake.core.verdicts import EXPLANATIONS
+from phasewake.core.analyses import explain
+from phasewake.core.analyses.verdicts import EXPLANATIONS
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -113,7 +113,7 @@ def test_explanations_of_numbers_are_complete_and_cite_their_method():
 
 
 def test_threshold_words_show_the_configured_limits():
-    from phasewake.core import verdicts
+    from phasewake.core.analyses import verdicts
 
     explain.explanation("energy.fluctuation_ratio")
     old = verdicts.THRESHOLDS["energy.fluctuation_ratio"]

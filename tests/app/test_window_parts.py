@@ -16,7 +16,7 @@ from phasewake.app.window.model import RunEntry, WindowModel  # noqa: E402
 from phasewake.app.window.render import FigureView  # noqa: E402
 from phasewake.app.window.workers import JobRunner  # noqa: E402
 from phasewake.core.errors import AnalysisError, SessionError  # noqa: E402
-from phasewake.core.figures import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec  # noqa: E402
+from phasewake.core.figures.spec import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec  # noqa: E402
 from phasewake.core.progress import Progress  # noqa: E402
 from phasewake.core.readers.memory import run_from_arrays  # noqa: E402
 

@@ -21,9 +21,9 @@ from phasewake.app.window.analyses import replica_difference, replicas_of  # noq
 from phasewake.app.window.main import MainWindow  # noqa: E402
 from phasewake.app.window.model import RunEntry, RunSettings, WindowModel  # noqa: E402
 from phasewake.app.window.render import FigureView, LogAxis  # noqa: E402
-from phasewake.core import plots  # noqa: E402
+from phasewake.core.figures import plots  # noqa: E402
+from phasewake.core.model.run import RunMetadata  # noqa: E402
 from phasewake.core.readers.memory import run_from_arrays  # noqa: E402
-from phasewake.core.run import RunMetadata  # noqa: E402
 
 pytestmark = pytest.mark.gui
 
@@ -48,7 +48,7 @@ def _window(qtbot, tmp_path) -> MainWindow:
 # ---- 2. the blocking curve on its log axis ------------------------------------------------------
 
 def test_blocking_band_is_drawn_in_log_space(qtbot):
-    from phasewake.core.correlation import blocking
+    from phasewake.core.analyses.correlation import blocking
 
     rng = np.random.default_rng(3)
     x = np.convolve(rng.normal(size=20_000), np.ones(20) / 20, mode="same")  # correlated over ~20 samples
@@ -208,7 +208,7 @@ def test_settings_form_reaches_the_run_and_can_be_undone(qtbot, tmp_path):
 # ---- 9. plots that do not mislead ------------------------------------------------------------------
 
 def test_vacf_axis_ends_where_the_decay_is_over():
-    from phasewake.core.velocity import vacf_from_velocities
+    from phasewake.core.analyses.velocity import vacf_from_velocities
 
     # Ornstein-Uhlenbeck velocities: C(t)/C(0) = exp(-t/tau) exactly in expectation (tau = 0.05 ps)
     rng = np.random.default_rng(0)
@@ -272,7 +272,7 @@ def test_pca_says_which_atoms_and_explains_two(qtbot):
 
 
 def test_time_series_legend_sits_above_the_trace(qtbot):
-    from phasewake.core.figures import Axis, FigureSpec, Line, Mark, PlotSpec
+    from phasewake.core.figures.spec import Axis, FigureSpec, Line, Mark, PlotSpec
 
     t = np.linspace(0, 10, 500)
     spec = FigureSpec(key="k", title="t", plots=(PlotSpec(
@@ -298,7 +298,7 @@ def test_window_text_is_in_plain_words():
     from phasewake.app.window.words import for_window
 
     # what the issue saw in captions and dialogs, and what a reader should see instead
-    text = for_window("g by phasewake.core.correlation.statistical_inefficiency (Sokal window); n_atoms = 54; "
+    text = for_window("g by phasewake.core.analyses.correlation.statistical_inefficiency (Sokal window); n_atoms = 54; "
                       "temperature_K = 122.259; significance_z = 3; mean -545 ± 1.9e+02 kJ/mol; sigma_E/sigma_K "
                       "= 0.02 +- 0.01; 6 A->B transitions")
     for bad in ("phasewake.core", "n_atoms =", "temperature_K", "significance_z", "e+02", "sigma_E", "+-", "->"):
@@ -314,8 +314,8 @@ def test_window_text_is_in_plain_words():
 
 
 def test_exported_figures_write_symbols_as_mathtext(tmp_path):
-    from phasewake.core.export import _wrap_label, export_figure, mathtext
-    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec
+    from phasewake.core.figures.export import _wrap_label, export_figure, mathtext
+    from phasewake.core.figures.spec import Axis, FigureSpec, Line, PlotSpec
 
     assert mathtext("σ_E/σ_K = 1.02") == r"$\sigma_E/\sigma_K$ = 1.02"
     assert mathtext("τ_int = 3 ps") == r"$\tau_\mathrm{int}$ = 3 ps"

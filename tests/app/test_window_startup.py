@@ -43,8 +43,8 @@ def test_this_machines_libraries_are_looked_up_one_by_one():
 
 
 def test_exported_metadata_names_the_input_file_not_its_folder(tmp_path):
-    from phasewake.core.export import export_csv, export_figure, provenance_for
-    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec
+    from phasewake.core.figures.export import export_csv, export_figure, provenance_for
+    from phasewake.core.figures.spec import Axis, FigureSpec, Line, PlotSpec
 
     folder = tmp_path / "private" / "project"
     folder.mkdir(parents=True)

@@ -116,7 +116,7 @@ def test_many_exports_and_a_report_in_a_busy_window(qapp, qtbot, tmp_path, monke
     import numpy as np
 
     from phasewake.app.window.main import MainWindow
-    from phasewake.core.figures import Axis, FigureSpec, Line, PlotSpec
+    from phasewake.core.figures.spec import Axis, FigureSpec, Line, PlotSpec
 
     monkeypatch.setattr(workers, "PROGRESS_INTERVAL_S", 0.0)
     w = MainWindow(settings=QtCore.QSettings(str(tmp_path / "s.ini"), QtCore.QSettings.Format.IniFormat))

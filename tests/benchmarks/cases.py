@@ -145,7 +145,7 @@ def open_run_time(full: bool, work: Path) -> Outcome:
 
 @case
 def coordinate_with_momentum(full: bool, work: Path) -> Outcome:
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
@@ -166,7 +166,7 @@ def coordinate_dcd(full: bool, work: Path) -> Outcome:
 
     import mdtraj as md
 
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
 
     s = _sizes(full)
     frames = s["frames"] * 3 if full else s["frames"]
@@ -196,7 +196,7 @@ def _pca_file(full: bool, work: Path) -> Path:
 def pca_exact(full: bool, work: Path) -> Outcome:
     import h5py
 
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
 
     s = _sizes(full)
     path = _pca_file(full, work)
@@ -223,7 +223,7 @@ def pca_exact(full: bool, work: Path) -> Outcome:
 
 @case
 def pca_fast(full: bool, work: Path) -> Outcome:
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
 
     s = _sizes(full)
     path = _pca_file(full, work)
@@ -242,9 +242,9 @@ def pca_fast(full: bool, work: Path) -> Outcome:
 def audit_energy_table(full: bool, work: Path) -> Outcome:
     import h5py
 
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.model.run import EnergyTable, RunMetadata, Series
     from phasewake.core.readers.memory import run_from_arrays
-    from phasewake.core.run import EnergyTable, RunMetadata, Series
 
     s = _sizes(full)
     n = s["table_rows"]
@@ -284,7 +284,7 @@ def audit_energy_table(full: bool, work: Path) -> Outcome:
 
 @case
 def audit_velocities(full: bool, work: Path) -> Outcome:
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
@@ -301,7 +301,7 @@ def audit_velocities(full: bool, work: Path) -> Outcome:
 
 @case
 def vacf_trajectory(full: bool, work: Path) -> Outcome:
-    from phasewake.core.velocity import vacf
+    from phasewake.core.analyses.velocity import vacf
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
@@ -317,7 +317,7 @@ def vacf_trajectory(full: bool, work: Path) -> Outcome:
 
 @case
 def crossings_long_series(full: bool, work: Path) -> Outcome:
-    from phasewake.core.crossings import crossings_work
+    from phasewake.core.analyses.crossings import crossings_work
 
     s = _sizes(full)
     n = s["series"]
@@ -349,7 +349,7 @@ def crossings_long_series(full: bool, work: Path) -> Outcome:
 
 @case
 def acf_long_series(full: bool, work: Path) -> Outcome:
-    from phasewake.core.correlation import analyse_series
+    from phasewake.core.analyses.correlation import analyse_series
 
     s = _sizes(full)
     n = s["acf"]
@@ -367,7 +367,7 @@ def acf_long_series(full: bool, work: Path) -> Outcome:
 
 @case
 def g_many_series(full: bool, work: Path) -> Outcome:
-    from phasewake.core.correlation import statistical_inefficiency
+    from phasewake.core.analyses.correlation import statistical_inefficiency
 
     s = _sizes(full)
     rng = _rng()
@@ -405,9 +405,9 @@ def window_first_panel_and_cursor(full: bool, work: Path) -> Outcome:
 def one_pass_many(full: bool, work: Path) -> Outcome:
     """Coordinates + group temperatures + VACF from one read (core.onepass), against the sum of the three
     separate analyses and against the plain read of positions + velocities."""
-    from phasewake.core.coordinates import compute_coordinates
-    from phasewake.core.onepass import FramePass
-    from phasewake.core.velocity import vacf
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.analyses.velocity import vacf
+    from phasewake.core.model.framepass import FramePass
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
@@ -420,7 +420,7 @@ def one_pass_many(full: bool, work: Path) -> Outcome:
         return _drain(fp.vacf("v", max_lag_ps=0.5).work())
 
     def separate():
-        from phasewake.core.onepass import GroupTemperatureConsumer, run_pass
+        from phasewake.core.model.framepass import GroupTemperatureConsumer, run_pass
 
         _drain(compute_coordinates(run, specs))
         _drain(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0, n_constraints=0)}))
@@ -445,12 +445,12 @@ def _peak_child(path: str, budget_mb: float, q) -> None:  # runs in a spawned pr
     import scipy.signal  # noqa: F401
     import scipy.stats  # noqa: F401
 
-    import phasewake.core.coordinates  # noqa: F401
-    import phasewake.core.temperature  # noqa: F401
-    import phasewake.core.velocity  # noqa: F401
-    from phasewake.core.onepass import FramePass
+    import phasewake.core.analyses.coordinates  # noqa: F401
+    import phasewake.core.analyses.temperature  # noqa: F401
+    import phasewake.core.analyses.velocity  # noqa: F401
+    from phasewake.core.model.framepass import FramePass
+    from phasewake.core.model.run import set_chunk_budget_mb
     from phasewake.core.readers import open_run
-    from phasewake.core.run import set_chunk_budget_mb
 
     set_chunk_budget_mb(budget_mb)
     run = open_run([path])
@@ -507,8 +507,8 @@ def memory_bounded_by_chunk(full: bool, work: Path) -> Outcome:
 def cache_repeat_audit(full: bool, work: Path) -> Outcome:
     """Looking at the same run again: open + audit through the result cache, against the first audit
     (compute and store) of the same file in the same process."""
-    from phasewake.core.cache import ResultCache
-    from phasewake.core.cached import cached_audit
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import cached_audit
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])

@@ -117,7 +117,7 @@ def machine() -> dict[str, Any]:
 
 
 def write_summary(results: list[dict[str, Any]], path: Path, *, full: bool) -> None:
-    from phasewake.core.atomic import write_text
+    from phasewake.core.store.atomic import write_text
 
     write_text(path, json.dumps({"mode": "full" if full else "quick", "machine": machine(),
                                  "when_unix": time.time(), "results": results}, indent=2))

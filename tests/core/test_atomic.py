@@ -9,7 +9,7 @@ import time
 
 import pytest
 
-from phasewake.core.atomic import atomic_open, write_text
+from phasewake.core.store.atomic import atomic_open, write_text
 
 
 def test_replaces_whole_file(tmp_path):
@@ -37,7 +37,7 @@ def test_killed_writer_leaves_previous_intact(tmp_path):
     code = textwrap.dedent(
         f"""
         import pathlib, time
-        from phasewake.core.atomic import atomic_open
+        from phasewake.core.store.atomic import atomic_open
         with atomic_open({str(target)!r}) as fh:
             fh.write('{{"version": 2, "partial": ')
             fh.flush()
@@ -71,7 +71,7 @@ def test_new_files_honour_the_umask_and_replacements_keep_their_mode(tmp_path):
 
 
 def test_temporary_names_stay_short_and_are_recognised(tmp_path):
-    from phasewake.core.atomic import is_our_temp, temp_name
+    from phasewake.core.store.atomic import is_our_temp, temp_name
 
     for name in ("a.csv", "x" * 255, "é" * 127, "数" * 85):
         t = temp_name(name)
@@ -83,7 +83,7 @@ def test_temporary_names_stay_short_and_are_recognised(tmp_path):
 
 
 def test_sweep_removes_only_our_stale_temporaries(tmp_path):
-    from phasewake.core.atomic import STALE_AFTER_S, sweep_stale, temp_name
+    from phasewake.core.store.atomic import STALE_AFTER_S, sweep_stale, temp_name
 
     old_ours, new_ours = tmp_path / temp_name("r.csv"), tmp_path / temp_name("r.csv")
     folder_like = tmp_path / temp_name("d")
@@ -100,7 +100,7 @@ def test_sweep_removes_only_our_stale_temporaries(tmp_path):
 
 
 def test_write_errors_are_one_typed_error_and_leave_no_litter(tmp_path):
-    from phasewake.core.atomic import OutputError
+    from phasewake.core.store.atomic import OutputError
 
     (tmp_path / "folder").mkdir()
     with pytest.raises(OutputError, match="folder of that name"):
@@ -115,7 +115,7 @@ def test_hdf5_is_built_in_memory_then_written_once(tmp_path, monkeypatch):
     import h5py
     import numpy as np
 
-    from phasewake.core import atomic
+    from phasewake.core.store import atomic
 
     writes = []
     real = atomic.write_bytes

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from phasewake.core.audit import audit_run
+from phasewake.core.analyses.audit import audit_run
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 

@@ -12,12 +12,12 @@ import dataclasses
 import numpy as np
 import pytest
 
-from phasewake.core import timestep as ts
-from phasewake.core.audit import AuditFramesConsumer, audit_run, audit_summary
-from phasewake.core.onepass import CoordinatesConsumer, run_pass
+from phasewake.core.analyses import timestep as ts
+from phasewake.core.analyses.audit import AuditFramesConsumer, audit_run, audit_summary
+from phasewake.core.model.framepass import CoordinatesConsumer, run_pass
+from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.run import RunMetadata
 from tests.counting import counted
 
 
@@ -98,7 +98,7 @@ def test_frame_sums_match_their_definitions(chunk):
     # speeds of kept frames: |v| of the stored velocities (every stride-th frame)
     sp = next(iter(fr.speeds_nm_per_ps))
     got = fr.speeds_nm_per_ps[sp]
-    from phasewake.core.temperature import species_of
+    from phasewake.core.analyses.temperature import species_of
 
     idx = species_of(run.topology, m)[sp][: got.shape[1]]
     ref = np.sqrt((v[:: fr.speed_frame_stride] ** 2).sum(axis=2))[:, idx]
@@ -141,9 +141,9 @@ def test_centre_of_mass_sums_only_when_the_audit_needs_them():
 
 def test_frame_pass_builder_carries_the_audit_with_the_pca_and_vacf():
     """FramePass.audit_frames next to a PCA and a VACF: one read; each equals its own analysis run alone."""
-    from phasewake.core.onepass import FramePass
-    from phasewake.core.projection import compute_pca
-    from phasewake.core.velocity import vacf
+    from phasewake.core.analyses.projection import compute_pca
+    from phasewake.core.analyses.velocity import vacf
+    from phasewake.core.model.framepass import FramePass
 
     run, counter = _counting(_water_ions())
     got = drive(FramePass(run).audit_frames("audit").pca("pca", atom_indices=np.arange(6), n_components=2)

@@ -15,12 +15,12 @@ import numpy as np
 import pytest
 
 from phasewake.app.cli import main
-from phasewake.core.audit import audit_run, decide_ensemble
-from phasewake.core.integrators import run_baoab
+from phasewake.core.analyses.audit import audit_run, decide_ensemble
+from phasewake.core.model.integrators import run_baoab
+from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.run import EnergyTable, RunMetadata, Series
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 (R / 1000)
 

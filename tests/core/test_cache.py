@@ -8,7 +8,7 @@ import textwrap
 import numpy as np
 
 from phasewake.app.cli import main
-from phasewake.core.cache import ENTRY_SUFFIX, ResultCache, make_key, take_notices
+from phasewake.core.store.cache import ENTRY_SUFFIX, ResultCache, make_key, take_notices
 
 
 def _inputs(tmp_path):
@@ -65,7 +65,7 @@ def test_two_writers_same_key(tmp_path):
     code = textwrap.dedent(
         f"""
         import numpy as np
-        from phasewake.core.cache import ResultCache
+        from phasewake.core.store.cache import ResultCache
         c = ResultCache({str(folder)!r}, enabled=True)
         for i in range(20):
             c.put({"c" * 32!r}, {{"x": np.full(50_000, float(i))}})

@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core.cache import ResultCache
-from phasewake.core.cached import cached_coordinates
-from phasewake.core.coordinates import compute_coordinates
+from phasewake.core.analyses.coordinates import compute_coordinates
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.store.cache import ResultCache
+from phasewake.core.store.cached import cached_coordinates
 from tests.counting import CountingFrames, counted
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -177,8 +177,8 @@ def _entries(cache_dir):
 
 
 def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, cache_dir):
-    from phasewake.core.audit import audit_run
-    from phasewake.core.cached import cached_audit
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.store.cached import cached_audit
 
     path = _copy(tmp_path)
     run, frames = _counted(path)
@@ -203,7 +203,7 @@ def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, 
 
 
 def test_touching_the_input_invalidates_an_analysis(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_vacf
+    from phasewake.core.store.cached import cached_vacf
 
     path = _copy(tmp_path)
     run, _ = _counted(path)
@@ -216,7 +216,7 @@ def test_touching_the_input_invalidates_an_analysis(tmp_path, cache_dir):
 
 
 def test_pca_settings_that_change_the_result_change_the_key(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_pca
+    from phasewake.core.store.cached import cached_pca
 
     path = _copy(tmp_path)
     run, frames = _counted(path)
@@ -237,7 +237,7 @@ def test_pca_settings_that_change_the_result_change_the_key(tmp_path, cache_dir)
 
 def test_window_runs_key_on_their_frame_range(tmp_path, cache_dir):
     from phasewake.app.window.analyses import window_run
-    from phasewake.core.cached import cached_spectrum
+    from phasewake.core.store.cached import cached_spectrum
 
     path = _copy(tmp_path)
     run, frames = _counted(path)
@@ -252,7 +252,7 @@ def test_window_runs_key_on_their_frame_range(tmp_path, cache_dir):
 
 
 def test_compare_run_joins_the_key_and_in_memory_settings_are_not_cached(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_audit
+    from phasewake.core.store.cached import cached_audit
 
     path = _copy(tmp_path)
     big = _copy(tmp_path, "dimer_nve_bigstep.h5md")
@@ -270,7 +270,7 @@ def test_compare_run_joins_the_key_and_in_memory_settings_are_not_cached(tmp_pat
 
 
 def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_work
+    from phasewake.core.store.cached import cached_work
 
     path = _copy(tmp_path)
     blocker = tmp_path / "not-a-folder"
@@ -281,8 +281,8 @@ def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
         yield Progress(0, 1, "x")
         return np.arange(3.0)
 
-    from phasewake.core.cache import take_notices
     from phasewake.core.progress import Progress
+    from phasewake.core.store.cache import take_notices
 
     take_notices()
     got = drive(cached_work(open_run([path]), "test", {}, work(), cache=cache))
@@ -304,8 +304,8 @@ def test_unwritable_cache_still_returns_the_result(tmp_path, cache_dir):
 
 
 def test_a_result_the_codec_cannot_store_is_simply_not_cached(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_work
     from phasewake.core.progress import Progress
+    from phasewake.core.store.cached import cached_work
 
     path = _copy(tmp_path)
     marker = object()
@@ -328,11 +328,11 @@ def test_two_processes_caching_the_same_analysis_leave_a_readable_entry(tmp_path
     code = textwrap.dedent(
         f"""
         import numpy as np
-        from phasewake.core.cache import ResultCache
-        from phasewake.core.cached import cached_work
+        from phasewake.core.store.cache import ResultCache
+        from phasewake.core.store.cached import cached_work
         from phasewake.core.progress import drive, Progress
         from phasewake.core.readers import open_run
-        from phasewake.core.verdicts import Threshold
+        from phasewake.core.analyses.verdicts import Threshold
         cache = ResultCache({str(cache_dir)!r}, enabled=True)
         run = open_run([{str(path)!r}])
         def work():
@@ -353,8 +353,8 @@ def test_two_processes_caching_the_same_analysis_leave_a_readable_entry(tmp_path
 def test_a_hit_is_served_when_the_entry_cannot_be_touched(tmp_path, cache_dir, monkeypatch):
     # A read-only cache (shared, or on a read-only file system): marking the entry as recently used fails,
     # the entry is still served. Simulated by making os.utime fail (root ignores folder permissions).
-    from phasewake.core import cache as cache_mod
-    from phasewake.core.cached import cached_vacf
+    from phasewake.core.store import cache as cache_mod
+    from phasewake.core.store.cached import cached_vacf
 
     path = _copy(tmp_path)
     run, _ = _counted(path)
@@ -370,8 +370,8 @@ def test_a_hit_is_served_when_the_entry_cannot_be_touched(tmp_path, cache_dir, m
 
 
 def test_a_hit_never_starts_the_analysis(tmp_path, cache_dir):
-    from phasewake.core.cached import cached_work
     from phasewake.core.progress import Progress
+    from phasewake.core.store.cached import cached_work
 
     path = _copy(tmp_path)
     started = []
@@ -398,8 +398,9 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
     """Audit + coordinate + PCA from one read (and the PCA's projection pass): results equal to the separate
     analyses (the reference: audit_run, compute_coordinates and compute_pca on their own), and the entries it
     writes are the ones cached_audit / cached_coordinates / cached_pca look up."""
-    from phasewake.core.audit import audit_run
-    from phasewake.core.cached import (
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.analyses.projection import compute_pca
+    from phasewake.core.store.cached import (
         audit_item,
         cached_audit,
         cached_pass,
@@ -407,7 +408,6 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
         coordinates_item,
         pca_item,
     )
-    from phasewake.core.projection import compute_pca
 
     path = _copy(tmp_path)
     pca_kw = {"atom_indices": np.arange(2, 12), "n_components": 3, "method": "exact"}
@@ -440,8 +440,8 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
 
 
 def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):
-    from phasewake.core.cached import PassItem, cached_pass, coordinates_item, pca_item
     from phasewake.core.errors import AnalysisError, CoordinateSpecError
+    from phasewake.core.store.cached import PassItem, cached_pass, coordinates_item, pca_item
 
     class FailsMidway:  # an analysis that gives up on its second chunk
         atoms = None

@@ -14,12 +14,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core import run as run_mod
+from phasewake.core.model import run as run_mod
+from phasewake.core.model.run import budget_chunk_frames, chunk_budget_mb, set_chunk_budget_mb
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.h5md import write_h5md
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.run import budget_chunk_frames, chunk_budget_mb, set_chunk_budget_mb
 
 SAMPLE = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
 
@@ -79,9 +79,9 @@ def test_h5md_and_memory_readers_honour_the_budget(tmp_path):
 def test_analyses_do_not_depend_on_the_chunking():
     """Coordinates with momenta, the kinetic temperature from the velocities and the VACF of the sample run
     with 7-frame chunks equal those with the default chunks (the reference: the same analyses, default chunks)."""
-    from phasewake.core.coordinates import compute_coordinates
-    from phasewake.core.onepass import GroupTemperatureConsumer, run_pass
-    from phasewake.core.velocity import vacf
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.analyses.velocity import vacf
+    from phasewake.core.model.framepass import GroupTemperatureConsumer, run_pass
 
     def compute():
         r = open_run([SAMPLE])

@@ -14,13 +14,13 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from phasewake.core.coordinates import (
+from phasewake.core.analyses.coordinates import (
     compute_coordinates,
     default_coordinates,
     evaluate_arrays,
     value_and_gradient,
 )
-from phasewake.core.coordspec import resolve
+from phasewake.core.analyses.coordspec import resolve
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
 

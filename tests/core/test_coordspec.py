@@ -1,6 +1,6 @@
 """The coordinate specification language: parsing, error positions, resolution against a run.
 
-Sources: the grammar is our own (documented in phasewake.core.coordspec); atom queries are checked
+Sources: the grammar is our own (documented in phasewake.core.analyses.coordspec); atom queries are checked
 against mdtraj.Topology.select itself (reference library).
 """
 
@@ -10,7 +10,7 @@ import mdtraj as md
 import numpy as np
 import pytest
 
-from phasewake.core.coordspec import GroupArg, IntArg, PathArg, describe_functions, parse, resolve
+from phasewake.core.analyses.coordspec import GroupArg, IntArg, PathArg, describe_functions, parse, resolve
 from phasewake.core.errors import CoordinateSpecError
 
 

@@ -1,4 +1,4 @@
-"""Checks of phasewake.core.correlation against analytic AR(1) results and reference libraries."""
+"""Checks of phasewake.core.analyses.correlation against analytic AR(1) results and reference libraries."""
 
 from __future__ import annotations
 
@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 from scipy.signal import lfilter
 
-from phasewake.core import correlation as C
-from phasewake.core import verdicts
+from phasewake.core.analyses import correlation as C
+from phasewake.core.analyses import verdicts
 from phasewake.core.errors import AnalysisError, TooShortError
 
 

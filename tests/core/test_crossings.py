@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
-from phasewake.core.crossings import (
+from phasewake.core.analyses.crossings import (
     EVENT_DTYPE,
     analyse_crossings,
     committed_states,
@@ -18,9 +18,9 @@ from phasewake.core.crossings import (
     pool_crossings,
     suggest_states,
 )
+from phasewake.core.analyses.verdicts import EXPLANATIONS, THRESHOLDS
 from phasewake.core.errors import AnalysisError
 from phasewake.core.progress import Progress
-from phasewake.core.verdicts import EXPLANATIONS, THRESHOLDS
 
 sys.path.insert(0, str(Path(__file__).parent))
 from langevin_models import baoab_double_well, brownian_double_well  # noqa: E402
@@ -409,7 +409,7 @@ SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 def test_sample_dimer_against_mdtraj_distances_and_a_plain_loop():
     import mdtraj as md
 
-    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.analyses.crossings import crossings_of_runs
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
 
@@ -451,7 +451,7 @@ def test_sample_dimer_against_mdtraj_distances_and_a_plain_loop():
 def test_periodic_coordinate_wraps_are_not_crossings():
     # A dihedral turning steadily: q = wrap(w t) into (-pi, pi]. Each turn crosses q* = 0 once upwards
     # (A -> B) and jumps from +pi to -pi (B -> A over the other barrier) without crossing q*.
-    from phasewake.core.crossings import Trace
+    from phasewake.core.analyses.crossings import Trace
 
     w = 2 * np.pi / 10.0  # one turn per 10 ps
     t = np.arange(0.0, 50.0, 0.01) + 0.0037

@@ -3,7 +3,7 @@
 The reference below walks the series one sample at a time with the definitions of the core-set
 (hysteresis) states of Buchete and Hummer, J. Phys. Chem. B 112, 6057 (2008): the committed state
 changes only on entry into the other core; a crossing of q* is a transition when the trajectory then
-reaches the other core before crossing again. It shares no code with phasewake.core.crossings, and the
+reaches the other core before crossing again. It shares no code with phasewake.core.analyses.crossings, and the
 chunk size is made tiny so that chunk and thread boundaries fall everywhere, also on crossings.
 """
 
@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from phasewake.core import crossings as C
+from phasewake.core.analyses import crossings as C
 from phasewake.core.progress import result_of
 
 A_HI, B_LO, SURF = -0.5, 0.5, 0.0

@@ -11,12 +11,12 @@ import mdtraj as md
 import numpy as np
 import pytest
 
-from phasewake.core.coordinate_choice import barrier_kT, choose_coordinate
-from phasewake.core.crossings import analyse_crossings, crossings_of_runs
+from phasewake.core.analyses.coordinate_choice import barrier_kT, choose_coordinate
+from phasewake.core.analyses.crossings import analyse_crossings, crossings_of_runs
+from phasewake.core.analyses.verdicts import THRESHOLDS
 from phasewake.core.errors import AnalysisError
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.verdicts import THRESHOLDS
 
 sys.path.insert(0, str(Path(__file__).parent))
 from langevin_models import boltzmann_positions  # noqa: E402
@@ -131,9 +131,9 @@ def test_flexible_water_bond_gets_no_states():
 
 @pytest.mark.skipif(not (SAMPLES / "dimer_nve.h5md").exists(), reason="sample runs not generated")
 def test_report_and_window_use_the_same_choice_with_its_reason():
-    from phasewake.core.coordinates import default_coordinates
+    from phasewake.core.analyses.coordinates import default_coordinates
+    from phasewake.core.figures.report import _report_coordinate
     from phasewake.core.readers import open_run
-    from phasewake.core.report import _report_coordinate
 
     run = open_run([SAMPLES / "dimer_nve.h5md"])
     spec, reason = _report_coordinate(run, None)

@@ -17,7 +17,7 @@ def _blocks_in_time_order(x):
 
 
 def test_thirumalai_mountain_over_dask_blocks():
-    from phasewake.core.sampling import TMAccumulator
+    from phasewake.core.analyses.sampling import TMAccumulator
 
     rng = np.random.default_rng(5)
     e = rng.standard_normal((4000, 50)).cumsum(axis=0) * 0.01 + rng.standard_normal((4000, 50))
@@ -33,7 +33,7 @@ def test_thirumalai_mountain_over_dask_blocks():
 
 
 def test_rigid_pair_inference_over_dask_blocks():
-    from phasewake.core.temperature import RigidPairAccumulator
+    from phasewake.core.analyses.temperature import RigidPairAccumulator
 
     rng = np.random.default_rng(6)
     n_frames = 600

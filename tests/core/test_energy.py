@@ -8,10 +8,10 @@ import math
 import numpy as np
 import pytest
 
-from phasewake.core import energy as en
+from phasewake.core.analyses import energy as en
 from phasewake.core.errors import MissingDataError
+from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import Progress, drive
-from phasewake.core.run import EnergyTable, RunMetadata, Series
 
 
 def verlet_oscillator(dt, *, n_periods=200, m=1.0, w=1.0, x0=1.0):
@@ -57,7 +57,7 @@ def test_fluctuation_ratio_matches_omega_dt_squared_over_four():
 def test_sigma_ratio_is_four_when_dt_halves():
     # Second-order symplectic integrator: sigma_E ~ dt^2 (Hairer, Lubich & Wanner 2006); for the HO
     # REFERENCES.md §1.2 gives 4 +- 1 %.
-    from phasewake.core.timestep import timestep_scaling
+    from phasewake.core.analyses.timestep import timestep_scaling
 
     t1, _, _, e1, k1 = verlet_oscillator(0.1)
     t2, _, _, e2, k2 = verlet_oscillator(0.05)
@@ -276,7 +276,7 @@ def _trap_run(gamma=None, *, temperature_col=None, **kw):
 
 
 def test_audit_nve_traps_against_analytic_values():
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     dt, w = 0.002, 150.0
     n = 64
@@ -310,7 +310,7 @@ def test_audit_nve_traps_against_analytic_values():
 
 
 def test_audit_langevin_traps_conserved_quantity_and_canonical_checks():
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     run = _trap_run(gamma=5.0, n_atoms=100, n_steps=20000, every=10, w=60.0, seed=1)
     res = drive(audit_run(run))
@@ -327,7 +327,7 @@ def test_audit_langevin_traps_conserved_quantity_and_canonical_checks():
 
 
 def test_audit_without_energies_or_velocities_is_an_error():
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.readers.memory import run_from_arrays
 
     run = run_from_arrays(np.zeros((1, 2, 3)), np.arange(1.0), np.ones(2))
@@ -361,7 +361,7 @@ def test_audit_compares_velocity_temperature_with_file_when_no_kinetic_column():
     # The file holds only total energy and a temperature written with 3N - 3 degrees of freedom; the
     # audit computes K = sum m v^2 / 2 from the velocities (frames matched to rows by time) and finds
     # the N_dof the file used (3N - 3 = 189 for 64 atoms), as the definition T = 2K/(N_dof k_B) implies.
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.readers.memory import run_from_arrays
 
     t, X, V, kin, pot, _ = harmonic_traps(n_atoms=64, n_steps=2000, every=2, w=50.0, seed=3)

@@ -11,8 +11,8 @@ import math
 import numpy as np
 import pytest
 
-from phasewake.core import energy as en
-from phasewake.core.run import EnergyTable, RunMetadata, Series
+from phasewake.core.analyses import energy as en
+from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 
 
 def _noisy(n: int, seed: int, offset: float = -3.0e5, sigma: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
@@ -106,10 +106,10 @@ def test_series_sampling_matches_numpy():
 def test_audit_of_a_long_table_matches_direct_numpy_numbers():
     """An energy table longer than the windowed-g threshold (2^21 rows): the audit's numbers from the
     one-pass route against numpy on the whole arrays (the previous route's formulas)."""
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.analyses.temperature import kinetic_temperature
     from phasewake.core.progress import drive
     from phasewake.core.readers.memory import run_from_arrays
-    from phasewake.core.temperature import kinetic_temperature
 
     n = (1 << 21) + 4096
     rng = np.random.default_rng(9)
@@ -145,7 +145,7 @@ def test_audit_of_a_long_table_matches_direct_numpy_numbers():
 def test_audit_with_non_finite_rows_takes_the_masked_route():
     """A NaN kinetic energy and an infinite potential energy: the rows are dropped, and the numbers are
     numpy's on the remaining rows (reference)."""
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import drive
     from phasewake.core.readers.memory import run_from_arrays
 

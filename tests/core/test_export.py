@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from phasewake.core import __version__
-from phasewake.core.export import (
+from phasewake.core.figures.export import (
     PRESETS,
     ExportError,
     export_csv,
@@ -22,7 +22,7 @@ from phasewake.core.export import (
     provenance_for,
     render_figure,
 )
-from phasewake.core.figures import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec, series_style
+from phasewake.core.figures.spec import Axis, Band, FigureSpec, Image, Line, Mark, PlotSpec, series_style
 
 CM = 2.54
 PT_PER_INCH = 72.0

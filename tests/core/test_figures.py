@@ -9,12 +9,12 @@ the same as in core/figures.py's comment).
 import numpy as np
 import pytest
 
-from phasewake.core import plots
-from phasewake.core.export import render_figure
-from phasewake.core.figures import Band, FigureSpec, Image, Line, Mark
+from phasewake.core.figures import plots
+from phasewake.core.figures.export import render_figure
+from phasewake.core.figures.spec import Band, FigureSpec, Image, Line, Mark
+from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.run import EnergyTable, RunMetadata, Series
 
 # Okabe & Ito (2008): black, orange, sky blue, bluish green, yellow, blue, vermillion, reddish purple
 OKABE_ITO = {"#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
@@ -54,9 +54,9 @@ def _switching_run(n=2500, seed=5):
 @pytest.fixture(scope="module")
 def results():
     """One real result of each analysis module (small inputs, computed by those modules)."""
-    from phasewake.core import correlation, crossings, landscape, projection, velocity
-    from phasewake.core.audit import audit_run
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses import correlation, crossings, landscape, projection, velocity
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.analyses.coordinates import compute_coordinates
 
     rng = np.random.default_rng(9)
     run = _switching_run()
@@ -83,7 +83,7 @@ def results():
     pos = rng.normal(0, 0.05, (300, 5, 3)) + np.arange(5)[None, :, None] * 0.3
     pca = projection.pca_arrays(pos, np.full(5, 12.0), n_components=4)
     audit = drive(audit_run(run))
-    from phasewake.core import sampling
+    from phasewake.core.analyses import sampling
 
     per_particle = rng.normal(0, 1, (1000, 8))  # independent noise per particle: an ergodic case
     samp = {
@@ -239,7 +239,7 @@ def test_pca_figures_carry_the_explained_variance_of_sklearn(results):
     rng = np.random.default_rng(4)
     # anisotropic Gaussian cloud of 4 atoms, no fit needed: compare with scikit-learn on the same data
     pos = rng.normal(0, 1, (500, 4, 3)) * np.array([0.3, 0.1, 0.02])[None, None, :] + np.arange(4)[None, :, None]
-    from phasewake.core import projection
+    from phasewake.core.analyses import projection
 
     pca = projection.pca_arrays(pos, np.full(4, 1.0), n_components=3, fit=False)
     figs = plots.principal_component_figures(pca)

@@ -1,11 +1,11 @@
-"""Checks of phasewake.core.integrators against analytic results for the harmonic oscillator."""
+"""Checks of phasewake.core.model.integrators against analytic results for the harmonic oscillator."""
 
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from phasewake.core.integrators import (
+from phasewake.core.model.integrators import (
     baoab_step,
     kinetic_energy,
     run_baoab,

@@ -13,8 +13,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from phasewake.core.errors import AnalysisError
-from phasewake.core.landscape import (
+from phasewake.core.analyses.landscape import (
     auto_bins,
     free_energy_profile,
     free_energy_surface,
@@ -22,6 +21,7 @@ from phasewake.core.landscape import (
     histogram_2d,
     poincare_section,
 )
+from phasewake.core.errors import AnalysisError
 
 KB = 0.00831446261815324
 T_UNIT_KT = 1.0 / KB  # temperature at which kT = 1 kJ/mol
@@ -145,8 +145,8 @@ def test_poincare_section_of_incommensurate_2d_oscillator_is_one_closed_curve():
 
 def test_series_adapters():
     """The adapters pass a CoordinateSeries through; checked on the analytic 2D oscillator above."""
-    from phasewake.core.coordinates import compute_coordinates
-    from phasewake.core.landscape import free_energy_of_series, poincare_from_series
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.analyses.landscape import free_energy_of_series, poincare_from_series
     from phasewake.core.progress import result_of
     from phasewake.core.readers.memory import run_from_arrays
 

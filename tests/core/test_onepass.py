@@ -12,20 +12,20 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core.coordinates import compute_coordinates
+from phasewake.core.analyses.coordinates import compute_coordinates
+from phasewake.core.analyses.velocity import vacf
 from phasewake.core.errors import CoordinateSpecError
-from phasewake.core.onepass import (
+from phasewake.core.model.framepass import (
     CoordinatesConsumer,
     FramePass,
     GroupTemperatureConsumer,
     VACFConsumer,
     run_pass,
 )
+from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.run import RunMetadata
-from phasewake.core.velocity import vacf
 from tests.counting import CountingFrames, counted
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -131,7 +131,7 @@ def test_vacf_equals_vacf_sample_run():
 
 
 def test_group_temperatures_match_definition_and_audit():
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     run = _synthetic(n_frames=200, n_atoms=30, box=False)
     groups = {"first": np.arange(0, 10), "second": np.arange(10, 30)}
@@ -211,7 +211,7 @@ def test_velocity_only_pass_does_not_ask_for_positions():
 def test_dask_blocks_drive_the_same_consumer():
     """The chunk reduction over dask.array blocks gives the same VACF (DEVELOPERS.md, Scaling out)."""
     da = pytest.importorskip("dask.array", reason="dask is not installed")
-    from phasewake.core.run import FrameChunk
+    from phasewake.core.model.run import FrameChunk
 
     run = _synthetic(n_frames=120)
     vel = da.from_array(run.frames._vel, chunks=(25, -1, -1))
@@ -233,7 +233,7 @@ def test_dask_blocks_drive_the_same_consumer():
 
 
 def _pca_equal(a, b, tol=1e-10):
-    from phasewake.core.projection import PCAResult
+    from phasewake.core.analyses.projection import PCAResult
 
     assert isinstance(a, PCAResult) and isinstance(b, PCAResult)
     for f in fields(a):
@@ -249,7 +249,7 @@ def _pca_equal(a, b, tol=1e-10):
 def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
     """run_pass with {PCA, coordinates, VACF}: the frames are read once, each result equals its separate call
     (the separate analyses are checked against scikit-learn, numpy and analytic results in their own files)."""
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
 
     run0 = _synthetic(n_frames=260, n_atoms=12)
     run, counter = _counting(run0)
@@ -269,8 +269,8 @@ def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
 
 
 def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
-    from phasewake.core.onepass import PCAConsumer
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
+    from phasewake.core.model.framepass import PCAConsumer
 
     run0 = _synthetic(n_frames=200, n_atoms=10)
     run, counter = _counting(run0)
@@ -282,7 +282,7 @@ def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
     # the mode momenta of unit-mass (mass-weighted) modes: p_k = e_k . M^1/2 v (definition), checked directly
     v = np.asarray(run0.frames._vel, dtype=np.float64)
     pos = np.asarray(run0.frames._pos, dtype=np.float64)
-    from phasewake.core.coordinates import kabsch
+    from phasewake.core.analyses.coordinates import kabsch
 
     rot, _, _ = kabsch(pos, pos[0], run0.masses_amu)
     pv = (np.matmul(v, rot) * np.sqrt(run0.masses_amu)[None, :, None]).reshape(len(v), -1) @ sep.eigenvectors
@@ -291,7 +291,7 @@ def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
 
 def test_pca_consumer_refuses_what_one_pass_cannot_do():
     from phasewake.core.errors import AnalysisError
-    from phasewake.core.onepass import PCAConsumer
+    from phasewake.core.model.framepass import PCAConsumer
 
     run = _synthetic(n_frames=30)
     with pytest.raises(AnalysisError, match="n_iter"):
@@ -303,7 +303,7 @@ def test_pca_consumer_refuses_what_one_pass_cannot_do():
 
 
 def test_compute_pca_reads_once_per_pass_and_no_extra_frame():
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
 
     run0 = _synthetic(n_frames=120)
     run, counter = _counting(run0)

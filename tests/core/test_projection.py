@@ -10,9 +10,14 @@ import numpy as np
 import pytest
 from sklearn.decomposition import PCA
 
-from phasewake.core.coordinates import compute_coordinates
+from phasewake.core.analyses.coordinates import compute_coordinates
+from phasewake.core.analyses.projection import (
+    compute_pca,
+    cosine_content,
+    pca_arrays,
+    quasi_harmonic_frequencies,
+)
 from phasewake.core.progress import result_of
-from phasewake.core.projection import compute_pca, cosine_content, pca_arrays, quasi_harmonic_frequencies
 from phasewake.core.readers.memory import run_from_arrays
 
 KB = 0.00831446261815324  # kJ/mol/K (REFERENCES.md section 9)
@@ -146,8 +151,8 @@ def test_single_pass_nystrom_route():
 
 
 def test_cosine_content_verdict():
-    from phasewake.core.projection import cosine_content_verdict
-    from phasewake.core.verdicts import EXPLANATIONS
+    from phasewake.core.analyses.projection import cosine_content_verdict
+    from phasewake.core.analyses.verdicts import EXPLANATIONS
 
     rng = np.random.default_rng(8)
     walk = np.cumsum(rng.normal(size=(3000, 20, 3)), axis=0).astype(np.float32)
@@ -169,7 +174,7 @@ def test_many_coordinates_lanczos_route_matches_numpy():
 def test_stride_and_reader_chunks():
     """A strided PCA equals the PCA of the strided frames (definition), and the reader's chunking (a 7-frame
     chunk budget) changes nothing: the products run on blocks of chunk_frames frames."""
-    from phasewake.core.run import set_chunk_budget_mb
+    from phasewake.core.model.run import set_chunk_budget_mb
 
     pos, m = _correlated(n=900, g=8, seed=13)
     run = run_from_arrays(pos, np.arange(len(pos)) * 0.1, m)

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from scipy.integrate import quad
 
+from phasewake.core.analyses.rates import exponential_ks_test, poisson_rate, tst_rate
 from phasewake.core.errors import AnalysisError
-from phasewake.core.rates import exponential_ks_test, poisson_rate, tst_rate
 
 
 @pytest.mark.parametrize("n,T", [(1, 3.0), (5, 10.0), (37, 1234.5), (400, 2.0e4)])

@@ -69,9 +69,9 @@ def test_impossible_value_checks_keep_what_engines_legitimately_write(tmp_path):
     import h5py
 
     from phasewake.core.errors import ImpossibleValueError
+    from phasewake.core.model.run import RunMetadata
     from phasewake.core.readers import open_run
     from phasewake.core.readers.common import check_box, check_metadata
-    from phasewake.core.run import RunMetadata
 
     src = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
     p = tmp_path / "quench.h5md"

@@ -207,7 +207,7 @@ def test_audit_infers_no_constraints_from_xtc_positions():
     # Issue: XTC bond lengths (0.001 nm) made rigid water look flexible, 1203 instead of 801 DOF. From
     # the XTC the audit infers nothing (and says so); from the TRR of the same run (GROMACS 2022.5, full
     # precision) the rigid pairs are still found. Reference: md.log nrdf 801 (reported.json).
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import drive
 
     d = GMX / "spce_rigid_nve_whole"

@@ -14,11 +14,11 @@ import numpy as np
 import pytest
 
 from phasewake.core import __version__
+from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
+from phasewake.core.figures.report import SECTION_TITLES, build_report
+from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
-from phasewake.core.report import SECTION_TITLES, build_report
-from phasewake.core.run import EnergyTable, RunMetadata, Series
-from phasewake.core.verdicts import HEURISTIC_NOTE
 
 pytestmark = pytest.mark.slow  # each report draws about ten pages (seconds)
 
@@ -173,7 +173,7 @@ def test_missing_velocities_give_an_honest_page(tmp_path):
 
     full = dimer_run(300)
     # the same run with an energy table only: no frames at all
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
     run = Run(name="energies only", paths=(), topology=None, masses_amu=full.masses_amu, time_ps=full.time_ps,
               frames=None, energies=full.energies, metadata=full.metadata)
@@ -207,7 +207,7 @@ def test_report_is_cancellable_and_leaves_no_file(tmp_path):
 def test_phase_page_draws_the_density_of_distance_and_reduced_mass_momentum(report):
     run, res = report
     spec = next(f for f in res.figures if f.key == "report.phase")
-    from phasewake.core.figures import Image
+    from phasewake.core.figures.spec import Image
 
     img = next(it for p in spec.plots for it in p.items if isinstance(it, Image))
     # reference made here with numpy: q = |x1 - x0| (the atoms move along x), p = mu dq/dt with the
@@ -227,8 +227,8 @@ def test_phase_page_draws_the_density_of_distance_and_reduced_mass_momentum(repo
 
 
 def test_captions_carry_the_explanations_the_window_shows(report):
-    from phasewake.core import explain
-    from phasewake.core.verdicts import EXPLANATIONS
+    from phasewake.core.analyses import explain
+    from phasewake.core.analyses.verdicts import EXPLANATIONS
 
     _, res = report
     text = html.unescape(res.html_path.read_text(encoding="utf-8"))
@@ -245,8 +245,8 @@ def test_report_reads_the_frames_once(tmp_path, h5md_reads):
     (tests/core/test_cached.py checks the shared pass against them)."""
     from pathlib import Path
 
-    from phasewake.core.cache import ResultCache
     from phasewake.core.readers import open_run
+    from phasewake.core.store.cache import ResultCache
 
     sample = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
     res = drive(build_report(open_run([sample]), tmp_path / "r.pdf", cache=ResultCache(enabled=False)))

@@ -27,6 +27,6 @@ def test_exact_pca_of_too_many_coordinates_is_refused_before_reading(monkeypatch
     rng = np.random.default_rng(0)
     run = run_from_arrays(rng.standard_normal((20, 200, 3)), np.arange(20.0), np.ones(200))
     with pytest.raises(ResourceError, match="exact PCA of 600 coordinates"):
-        from phasewake.core.projection import compute_pca
+        from phasewake.core.analyses.projection import compute_pca
 
         drive(compute_pca(run, atom_indices=np.arange(200), fit=False))

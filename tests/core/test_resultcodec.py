@@ -14,10 +14,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core import resultcodec
-from phasewake.core.cache import ResultCache
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
+from phasewake.core.store import codec as resultcodec
+from phasewake.core.store.cache import ResultCache
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
@@ -78,7 +78,7 @@ class _Colour(enum.Enum):  # defined outside phasewake.core: must not be stored
 
 
 def test_awkward_values(tmp_path):
-    from phasewake.core.verdicts import Threshold
+    from phasewake.core.analyses.verdicts import Threshold
 
     rec = np.zeros(3, dtype=[("kind", "U10"), ("t", "<f8"), ("n", "<i4"), ("xyz", "<f4", (3,))])
     rec["kind"] = ["transition", "recross", ""]
@@ -125,8 +125,8 @@ def test_foreign_classes_are_not_stored():
 
 def test_reconstruction_never_imports_outside_phasewake_core():
     good_arrays, tree = resultcodec.encode(dataclasses.replace(_threshold()))
-    for ref in ("os:system", "subprocess:Popen", "phasewake.app.cli:main", "phasewake.core.cache:os.system",
-                "phasewake.corex:Thing", "phasewake.core.verdicts:<locals>.X", "phasewake.core.cache:make_key"):
+    for ref in ("os:system", "subprocess:Popen", "phasewake.app.cli:main", "phasewake.core.store.cache:os.system",
+                "phasewake.corex:Thing", "phasewake.core.analyses.verdicts:<locals>.X", "phasewake.core.store.cache:make_key"):
         t = {"codec": tree["codec"], "root": {**tree["root"], "cls": ref}}
         with pytest.raises(resultcodec.Undecodable):
             resultcodec.decode(good_arrays, t)
@@ -139,7 +139,7 @@ def test_reconstruction_never_imports_outside_phasewake_core():
 
 
 def _threshold():
-    from phasewake.core.verdicts import Threshold
+    from phasewake.core.analyses.verdicts import Threshold
 
     return Threshold(kind="k", caution=1.0, problem=2.0, unit="K", source="common practice")
 
@@ -147,7 +147,7 @@ def _threshold():
 # ---- real results ----------------------------------------------------------------------------------
 
 def test_audit_result_roundtrip(nve_run, tmp_path):
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     res = drive(audit_run(nve_run))
     assert res.energy is not None and res.temperature is not None  # the parts worth checking are there
@@ -155,7 +155,7 @@ def test_audit_result_roundtrip(nve_run, tmp_path):
 
 
 def test_vacf_and_spectrum_roundtrip(nve_run, tmp_path):
-    from phasewake.core.velocity import vacf, vibrational_spectrum
+    from phasewake.core.analyses.velocity import vacf, vibrational_spectrum
 
     v = drive(vacf(nve_run, groups={"dimer": [0, 1], "bath": list(range(2, nve_run.n_atoms))}))
     roundtrip(v, tmp_path)
@@ -163,15 +163,15 @@ def test_vacf_and_spectrum_roundtrip(nve_run, tmp_path):
 
 
 def test_pca_roundtrip(nve_run, tmp_path):
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
 
     pca = drive(compute_pca(nve_run, atom_indices=np.arange(6), n_components=3, stop=120))
     roundtrip(pca, tmp_path)
 
 
 def test_crossings_roundtrip(tmp_path):
-    from phasewake.core.coordinates import compute_coordinates
-    from phasewake.core.crossings import analyse_crossings, crossings_work
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.analyses.crossings import analyse_crossings, crossings_work
 
     run = open_run([SAMPLES / "dimer_langevin.h5md"])
     s = drive(compute_coordinates(run, ["distance(0, 1)"]))[0]
@@ -183,7 +183,7 @@ def test_crossings_roundtrip(tmp_path):
 
 
 def test_correlation_and_sampling_results_roundtrip(nve_run, tmp_path):
-    from phasewake.core import correlation, sampling
+    from phasewake.core.analyses import correlation, sampling
 
     rng = np.random.default_rng(7)
     x = np.cumsum(rng.normal(size=4000)) * 0.01 + rng.normal(size=4000)

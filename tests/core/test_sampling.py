@@ -1,4 +1,4 @@
-"""Checks of phasewake.core.sampling: Thirumalai-Mountain, R-hat, divergence, coverage, recurrence."""
+"""Checks of phasewake.core.analyses.sampling: Thirumalai-Mountain, R-hat, divergence, coverage, recurrence."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ from scipy.linalg import expm
 from scipy.signal import lfilter
 from scipy.spatial.distance import jensenshannon
 
-from phasewake.core import sampling as S
-from phasewake.core import verdicts
+from phasewake.core.analyses import sampling as S
+from phasewake.core.analyses import verdicts
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays

@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from scipy.spatial.transform import Rotation
 
-from phasewake.core.coordinates import kabsch
-from phasewake.core.projection import pca_arrays
-from phasewake.core.superpose import FrameFitter, qcp_rotations
+from phasewake.core.analyses.coordinates import kabsch
+from phasewake.core.analyses.projection import pca_arrays
+from phasewake.core.analyses.superpose import FrameFitter, qcp_rotations
 
 
 def _frames(n=300, g=40, seed=0, noise=0.05, offset=5.0):

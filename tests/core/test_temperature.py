@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from phasewake.core import temperature as tm
+from phasewake.core.analyses import temperature as tm
 from phasewake.core.errors import AnalysisError
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 exact (k_B N_A)
@@ -178,8 +178,8 @@ def test_constrained_xh_bond_counts_one():
 def test_default_groups_species_elements_masses_residues_and_solvent():
     import mdtraj as md
 
+    from phasewake.core.analyses.temperature import default_groups
     from phasewake.core.readers.common import topology_from_elements
-    from phasewake.core.temperature import default_groups
 
     # a topology made from elements (one residue per atom): element groups only, not residue duplicates
     top = topology_from_elements(["Ar", "Ar", "Ne", "Ne"])

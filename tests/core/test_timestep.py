@@ -9,7 +9,7 @@ import math
 import numpy as np
 import pytest
 
-from phasewake.core import timestep as ts
+from phasewake.core.analyses import timestep as ts
 from phasewake.core.errors import AnalysisError
 
 C_CM_PER_S = 2.99792458e10  # exact
@@ -104,7 +104,7 @@ def test_scaling_exponent_and_errors():
 def test_few_fast_atoms_are_not_drowned_by_many_slow_ones():
     # 200 heavy atoms at 300 cm^-1 and 2 light atoms at 3000 cm^-1 carrying 0.03 % of the mass-weighted
     # power: the total spectrum alone would miss the fast motion; the per-group spectra find it.
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import drive
     from phasewake.core.readers.memory import run_from_arrays
 
@@ -242,8 +242,8 @@ def _flexible(frames_fs: int, *, topology: bool = True):
 
 
 def test_flexible_water_1fs_vdos_top_peak_is_the_oh_stretch():
+    from phasewake.core.analyses.velocity import vibrational_spectrum
     from phasewake.core.progress import result_of
-    from phasewake.core.velocity import vibrational_spectrum
 
     s = result_of(vibrational_spectrum(_flexible(1)))
     # the top (highest-frequency) significant peak is the O-H stretch of flexible TIP3P, in 3000-4000 cm^-1
@@ -255,8 +255,8 @@ def test_flexible_water_1fs_vdos_top_peak_is_the_oh_stretch():
 @pytest.mark.parametrize("topology", [True, False])
 def test_flexible_water_10fs_peaks_are_not_motions(topology):
     # the issue: at 10 fs the stretches and the bend fold to ~350, 417 and 967 cm^-1 and were listed as motions
+    from phasewake.core.analyses.velocity import vibrational_spectrum
     from phasewake.core.progress import result_of
-    from phasewake.core.velocity import vibrational_spectrum
 
     s = result_of(vibrational_spectrum(_flexible(10, topology=topology)))
     assert s.peaks and all(p.not_a_motion for p in s.peaks)
@@ -267,7 +267,7 @@ def test_flexible_water_10fs_peaks_are_not_motions(topology):
 
 @pytest.mark.parametrize("topology", [True, False])
 def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(topology):
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import result_of
 
     res = result_of(audit_run(_flexible(10, topology=topology), timestep_ps=0.003))
@@ -285,7 +285,7 @@ def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(
 
 
 def test_flexible_water_1fs_resolves_the_stretch_and_judges_by_the_measured_peak():
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import result_of
 
     res = result_of(audit_run(_flexible(1), timestep_ps=0.003))

@@ -1,4 +1,4 @@
-"""Checks of phasewake.core.velocity: VACF, Green-Kubo and Einstein diffusion, VDOS, Yeh-Hummer."""
+"""Checks of phasewake.core.analyses.velocity: VACF, Green-Kubo and Einstein diffusion, VDOS, Yeh-Hummer."""
 
 from __future__ import annotations
 
@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy.signal import lfilter
 
-from phasewake.core import velocity as V
+from phasewake.core.analyses import velocity as V
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from phasewake.core import velocity as V
+from phasewake.core.analyses import velocity as V
 
 
 def direct_sums(x: np.ndarray, lags: int, w: np.ndarray) -> np.ndarray:

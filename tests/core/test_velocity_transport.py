@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core import velocity as V
+from phasewake.core.analyses import velocity as V
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
 

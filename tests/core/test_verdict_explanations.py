@@ -9,7 +9,7 @@ import pkgutil
 import pytest
 
 import phasewake.core as core
-from phasewake.core import verdicts
+from phasewake.core.analyses import verdicts
 
 
 @pytest.fixture(scope="module", autouse=True)

@@ -89,7 +89,7 @@ def test_zero_or_negative_mass_in_h5md_is_refused_on_every_verb(tmp_path, capsys
 
 def test_impossible_mass_from_a_library_caller_is_refused_in_compute_coordinates():
     # the coordinate code refuses them too (a Run built by hand, not through a reader)
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.errors import PhasewakeError
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
@@ -250,7 +250,7 @@ def test_h5md_observable_claiming_more_rows_than_the_file_holds_is_refused(tmp_p
 def test_atom_range_is_checked_against_the_atom_count_before_a_list_is_built(capsys):
     import tracemalloc
 
-    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.analyses.coordspec import parse, resolve
     from phasewake.core.errors import CoordinateSpecError
 
     tracemalloc.start()

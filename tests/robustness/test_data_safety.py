@@ -25,8 +25,8 @@ import numpy as np
 import pytest
 
 from phasewake.app.cli import main
-from phasewake.core.atomic import STALE_AFTER_S, temp_name
-from phasewake.core.cache import ENTRY_SUFFIX, MARK_NAME, ResultCache, take_notices
+from phasewake.core.store.atomic import STALE_AFTER_S, temp_name
+from phasewake.core.store.cache import ENTRY_SUFFIX, MARK_NAME, ResultCache, take_notices
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 NVE = SAMPLES / "dimer_nve.h5md"
@@ -269,7 +269,7 @@ def test_bytes_flipped_in_a_stored_array_are_a_miss_recomputed_and_replaced(run_
 
 def _entry_with_header(path: Path, key: str, head: dict, payload: bytes = b"") -> None:
     """An entry of the right layout and a valid checksum but odd content (what other code might write)."""
-    from phasewake.core.cache import _FIXED, LAYOUT, MAGIC
+    from phasewake.core.store.cache import _FIXED, LAYOUT, MAGIC
 
     header = json.dumps(head).encode()
     digest = hashlib.sha256(header + payload).digest()
@@ -321,7 +321,7 @@ def test_outputs_honour_the_umask_and_keep_the_mode_they_replace(tmp_path, run_c
         assert _mode(p) == 0o644, p
     for p in [*cache_dir.glob("*" + ENTRY_SUFFIX), cache_dir / MARK_NAME]:
         assert _mode(p) == 0o644, p
-    from phasewake.core.atomic import write_text
+    from phasewake.core.store.atomic import write_text
 
     write_text(tmp_path / "s.pwsession", "{}")
     assert _mode(tmp_path / "s.pwsession") == 0o644
@@ -334,12 +334,12 @@ def test_outputs_honour_the_umask_and_keep_the_mode_they_replace(tmp_path, run_c
 
 
 def test_one_atomic_writer_for_the_whole_project():
-    # only core/atomic.py creates temporary files and renames them into place
+    # only core/store/atomic.py creates temporary files and renames them into place
     root = Path(__file__).resolve().parents[2]
     offenders = []
     for folder in ("core", "app"):
         for p in (root / folder).rglob("*.py"):
-            if p.name == "atomic.py" and p.parent.name == "core":
+            if p.name == "atomic.py" and p.parent.name == "store":
                 continue
             text = p.read_text(encoding="utf-8")
             for needle in ("mkstemp(", "os.replace(", "os.rename(", "NamedTemporaryFile("):
@@ -399,7 +399,7 @@ def test_signal_during_an_output_write_removes_the_temporary_file(tmp_path, run_
 
 _SLOW_CHUNKS = """
 import pathlib, sys, time
-import phasewake.core.coordinates as K
+import phasewake.core.analyses.coordinates as K
 real = K.compute_coordinates
 def slow(*a, **k):
     result = yield from real(*a, **k)
@@ -437,7 +437,7 @@ def test_crossings_real_work_ctrl_c_is_never_swallowed(tmp_path):
     # moments: every try ends with exit 130 and one line, never "Exception ignored" and carrying on.
     import h5py
 
-    from phasewake.core.crossings import crossings_of_runs  # noqa: F401  (the code under test)
+    from phasewake.core.analyses.crossings import crossings_of_runs  # noqa: F401  (the code under test)
 
     n = 2_000_000  # ~4 s of work on a quiet machine at 400,000 (measured): too short for signals at 2.3-3.5 s
     path = tmp_path / "long.h5md"
@@ -475,8 +475,8 @@ def test_the_crossings_scan_and_dwell_tests_stop_at_a_noted_interrupt():
     # The long loops of the crossings analysis (the side-change scan, the Monte Carlo of the dwell-time
     # test) look at the noted signal between chunks, also inside their worker threads.
     from phasewake.core import interrupts
-    from phasewake.core.crossings import _scan_part
-    from phasewake.core.rates import exponential_ks_test
+    from phasewake.core.analyses.crossings import _scan_part
+    from phasewake.core.analyses.rates import exponential_ks_test
 
     q = np.sin(np.arange(200_000) / 50.0)
     dwell = np.random.default_rng(1).exponential(size=2000)
@@ -536,7 +536,7 @@ def test_a_legal_250_character_output_name_is_written(tmp_path, run_copy, capsys
 
 def test_notices_do_not_leak_between_commands(capsys):
     take_notices()
-    from phasewake.core.cache import note
+    from phasewake.core.store.cache import note
 
     note("cache skipped: something earlier")
     rc, out, err = cli(["cache", "--json"], capsys)
@@ -569,10 +569,10 @@ BUDGET = settings(max_examples=3000 if LONG else 150, deadline=None, derandomize
 @pytest.fixture(scope="module")
 def stored_result(tmp_path_factory):
     """A real result (coordinate series of the sample run) stored as a cache entry: (folder, key, result, blob)."""
-    from phasewake.core import resultcodec
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
+    from phasewake.core.store import codec as resultcodec
 
     series = drive(compute_coordinates(open_run([NVE]), [COORD, "distance(0, 2)"]))
     folder = tmp_path_factory.mktemp("fuzzcache") / "cache"
@@ -630,7 +630,7 @@ def _mutate(blob: bytes, mutations) -> bytes:
 @BUDGET
 @given(mutations=st.lists(_MUTATION, min_size=1, max_size=3))
 def test_a_damaged_entry_is_a_miss_or_the_right_answer(stored_result, mutations):
-    from phasewake.core import resultcodec
+    from phasewake.core.store import codec as resultcodec
 
     folder, key, series, blob = stored_result
     damaged = _mutate(blob, mutations)
@@ -649,7 +649,7 @@ def test_the_fuzz_is_not_vacuous(stored_result):
     folder, key, series, blob = stored_result
     path = folder / (key + ENTRY_SUFFIX)
     path.write_bytes(blob)
-    from phasewake.core import resultcodec
+    from phasewake.core.store import codec as resultcodec
 
     entry = ResultCache(folder, enabled=True).get(key)
     assert entry is not None and _same_result(resultcodec.from_entry(entry.arrays), series)

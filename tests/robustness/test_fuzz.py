@@ -87,7 +87,7 @@ SPEC_TOKENS = st.sampled_from(["distance", "angle", "dihedral", "x", "y", "z", "
 @BUDGET
 @given(st.lists(SPEC_TOKENS, max_size=12).map("".join))
 def test_coordinate_spec(spec):
-    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.analyses.coordspec import parse, resolve
 
     try:
         defn = parse(spec)
@@ -100,7 +100,7 @@ def test_coordinate_spec(spec):
 @BUDGET
 @given(st.text(max_size=30))
 def test_coordinate_spec_any_text(spec):
-    from phasewake.core.coordspec import parse
+    from phasewake.core.analyses.coordspec import parse
 
     try:
         parse(spec)
@@ -151,7 +151,7 @@ GROUP = st.one_of(ODD_NUMBER, st.lists(ODD_NUMBER, min_size=1, max_size=3).map(l
 @given(fn=st.sampled_from(["x", "distance", "angle", "rg", "com_distance", "pc"]),
        args=st.lists(GROUP, min_size=1, max_size=4), n_atoms=st.integers(1, 60))
 def test_coordinate_spec_numeric_edge_cases(fn, args, n_atoms):
-    from phasewake.core.coordspec import parse, resolve
+    from phasewake.core.analyses.coordspec import parse, resolve
 
     spec = f"{fn}({', '.join(args)})"
     try:

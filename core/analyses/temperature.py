@@ -1,7 +1,7 @@
 """Kinetic temperature, degrees of freedom, constraint inference, equipartition and canonical checks.
 
 Pure array kernels plus small streaming accumulators (``update`` per frame chunk, then ``finish``);
-:func:`phasewake.core.audit.audit_run` drives them over a Run.
+:func:`phasewake.core.analyses.audit.audit_run` drives them over a Run.
 
 Units: velocities nm/ps, masses amu, kinetic energy kJ/mol (1 amu nm^2/ps^2 = 1 kJ/mol), T in K.
 
@@ -17,9 +17,9 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.energy import boltzmann_kJ_per_mol_K, statistical_inefficiency_of
+from phasewake.core.analyses.energy import boltzmann_kJ_per_mol_K, statistical_inefficiency_of
+from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError
-from phasewake.core.verdicts import Explanation, Threshold, register
 
 register(
     Threshold("temperature.file_mismatch", caution=0.005, problem=0.02, unit="",

@@ -30,10 +30,10 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.verdicts import THRESHOLDS, Explanation, Threshold, register
+from phasewake.core.analyses.verdicts import THRESHOLDS, Explanation, Threshold, register
 
 if TYPE_CHECKING:
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 register(
     Threshold("coordinate.stiff_pair", caution=0.05, problem=0.05, unit="relative standard deviation",
@@ -80,11 +80,11 @@ class CoordinateChoice:
 def barrier_kT(values: np.ndarray) -> float:
     """Height in kT of the highest barrier of -kT ln P(q) seen from both sides (0 when unimodal).
 
-    From :func:`phasewake.core.landscape.free_energy_profile` (minima closer than 0.5 kT merged), as the
+    From :func:`phasewake.core.analyses.landscape.free_energy_profile` (minima closer than 0.5 kT merged), as the
     state suggestion of ``crossings`` uses it.
     """
+    from phasewake.core.analyses.landscape import free_energy_profile
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.landscape import free_energy_profile
 
     q = np.asarray(values, dtype=float)
     q = q[np.isfinite(q)]
@@ -161,8 +161,8 @@ def _dihedral_values(p: np.ndarray, quad: tuple[int, int, int, int]) -> np.ndarr
 def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, max_pair_atoms: int = 40,
                       max_dihedrals: int = 60) -> CoordinateChoice:
     """The default coordinate of ``run`` with the reason for it (see the module docstring)."""
-    from phasewake.core.coordinates import solvent_atoms
-    from phasewake.core.temperature import pair_distances
+    from phasewake.core.analyses.coordinates import solvent_atoms
+    from phasewake.core.analyses.temperature import pair_distances
 
     n = run.n_atoms
     top = run.topology
@@ -182,7 +182,7 @@ def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, 
                                 "told from the solvent; give a coordinate with --coordinate", "none")
     sset = set(int(i) for i in solute)
     stiff = THRESHOLDS["coordinate.stiff_pair"].caution
-    import phasewake.core.crossings  # noqa: F401  (registers crossings.barrier)
+    import phasewake.core.analyses.crossings  # noqa: F401  (registers crossings.barrier)
 
     need_barrier = THRESHOLDS["crossings.barrier"].caution
 

@@ -32,16 +32,16 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
+from phasewake.core.analyses.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import check_masses
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES
 
 if TYPE_CHECKING:
     import mdtraj
 
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 
 @dataclass(frozen=True)
@@ -298,7 +298,7 @@ def value_and_gradient(
             grad = res / (nat * value)[:, None, None]
         return value, idx, grad
     if fn == "pc":
-        from phasewake.core.projection import pc_value_and_gradient
+        from phasewake.core.analyses.projection import pc_value_and_gradient
 
         if resolved.pca is None:
             raise AnalysisError(f"{resolved.spec}: the principal components have not been computed yet")
@@ -396,11 +396,11 @@ def solute_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
 def default_coordinates(run: Run) -> list[str]:
     """The default coordinate of a run as a list of zero or one spec.
 
-    Chosen by :func:`phasewake.core.coordinate_choice.choose_coordinate` (one rule for every caller;
+    Chosen by :func:`phasewake.core.analyses.coordinate_choice.choose_coordinate` (one rule for every caller;
     never a stiff bond or a constant; empty for a pure liquid). Use that function to get the reason,
     which every output shows ("chosen automatically: ...").
     """
-    from phasewake.core.coordinate_choice import choose_coordinate
+    from phasewake.core.analyses.coordinate_choice import choose_coordinate
 
     choice = choose_coordinate(run)
     return [] if choice.spec is None else [choice.spec]
@@ -430,7 +430,7 @@ def compute_coordinates(
 
     A generator: yields :class:`Progress`, returns ``list[CoordinateSeries]`` in the order of
     ``specs``. ``pc(k)`` specifications trigger a first pass that computes the PCA of their group
-    (see :func:`phasewake.core.projection.compute_pca`; ``mass_weighted_pca`` and ``fit_pca`` are
+    (see :func:`phasewake.core.analyses.projection.compute_pca`; ``mass_weighted_pca`` and ``fit_pca`` are
     its settings).
 
     Raises
@@ -454,7 +454,7 @@ def compute_coordinates(
             continue
         key = tuple(int(a) for a in r.groups[0])
         if key not in pcas:
-            from phasewake.core.projection import compute_pca
+            from phasewake.core.analyses.projection import compute_pca
 
             n_comp = max(int(q.pc_index or 0) + 1 for q in resolved
                          if q.function == "pc" and tuple(int(a) for a in q.groups[0]) == key)

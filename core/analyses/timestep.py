@@ -17,8 +17,8 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, TooShortError
-from phasewake.core.verdicts import Explanation, Threshold, register
 
 C_CM_PER_PS = 2.99792458e-2  # speed of light, exact: 2.99792458e10 cm/s = 2.99792458e-2 cm/ps
 
@@ -622,7 +622,7 @@ def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, ti
     """
     from dataclasses import replace as _replace
 
-    from phasewake.core.verdicts import EXPLANATIONS, THRESHOLDS, Verdict, judge
+    from phasewake.core.analyses.verdicts import EXPLANATIONS, THRESHOLDS, Verdict, judge
 
     def src(kind: str) -> str:
         return THRESHOLDS[kind].source

@@ -1,4 +1,4 @@
-"""Figure builders: analysis results -> :class:`~phasewake.core.figures.FigureSpec`.
+"""Figure builders: analysis results -> :class:`~phasewake.core.figures.spec.FigureSpec`.
 
 One function per figure kind. :data:`FIGURE_BUILDERS` maps a figure key to its builder and
 :data:`RESULT_FIGURES` maps a result type (by class name) to the figure keys drawn from it, so the
@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.figures import (
+from phasewake.core.figures.spec import (
     LEVEL_STYLE,
     PALETTE,
     Axis,
@@ -33,7 +33,7 @@ from phasewake.core.figures import (
     Style,
     series_style,
 )
-from phasewake.core.run import EnergyTable, Series
+from phasewake.core.model.run import EnergyTable, Series
 
 TIME = Axis("Time", "ps")
 _GREY = "#777777"
@@ -252,13 +252,13 @@ def temperature_figure(
 
 
 # --------------------------------------------------------------------------------------------------
-# correlation (phasewake.core.correlation)
+# correlation (phasewake.core.analyses.correlation)
 
 
 def autocorrelation_figure(result: Any, *, name: str = "series", max_lag_ps: float | None = None) -> FigureSpec:
     """The normalised autocorrelation of one series with the summation window and g noted.
 
-    ``result`` is a ``phasewake.core.correlation.CorrelationResult``.
+    ``result`` is a ``phasewake.core.analyses.correlation.CorrelationResult``.
     """
     lag = np.asarray(result.acf_lag_ps, float)
     acf = np.asarray(result.acf, float)
@@ -310,7 +310,7 @@ def blocking_figure(result: Any, *, name: str = "series") -> FigureSpec:
 
 
 # --------------------------------------------------------------------------------------------------
-# audit (phasewake.core.audit)
+# audit (phasewake.core.analyses.audit)
 
 
 def audit_energy_figure(audit: Any, *, cursor_ps: float | None = None) -> FigureSpec:
@@ -447,7 +447,7 @@ def _empty(key: str, title: str, why: str) -> FigureSpec:
 
 
 # --------------------------------------------------------------------------------------------------
-# coordinates and phase space (phasewake.core.coordinates, projection, landscape)
+# coordinates and phase space (phasewake.core.analyses.coordinates, projection, landscape)
 
 
 def coordinate_series_figure(series: Any, *, crossings: Any = None, cursor_ps: float | None = None,
@@ -651,7 +651,7 @@ def poincare_figure(section: Any, *, q2_label: str = "q2", p2_label: str = "p2")
 
 
 # --------------------------------------------------------------------------------------------------
-# sampling (phasewake.core.sampling)
+# sampling (phasewake.core.analyses.sampling)
 
 
 def running_average_figure(result: Any, *, name: str = "series", key: str = "sampling.running",
@@ -764,7 +764,7 @@ def recurrence_figure(result: Any) -> FigureSpec:
 
 
 # --------------------------------------------------------------------------------------------------
-# velocities (phasewake.core.velocity)
+# velocities (phasewake.core.analyses.velocity)
 
 
 def vacf_figure(result: Any) -> FigureSpec:
@@ -844,7 +844,7 @@ def vdos_figure(result: Any, *, max_cm1: float | None = None) -> FigureSpec:
 
 
 # --------------------------------------------------------------------------------------------------
-# crossings (phasewake.core.crossings)
+# crossings (phasewake.core.analyses.crossings)
 
 
 def dwell_times_figure(result: Any) -> FigureSpec:
@@ -1020,7 +1020,7 @@ def _momentum_of(series: Any) -> tuple[np.ndarray, str, str] | None:
 def phase_density_figure(series: Any, histogram: Any) -> FigureSpec:
     """Density of the frames in the (q, p) plane (key ``phase.density``); empty cells blank.
 
-    histogram : phasewake.core.landscape.Histogram2D of (q, p), computed by the caller.
+    histogram : phasewake.core.analyses.landscape.Histogram2D of (q, p), computed by the caller.
     """
     mp = _momentum_of(series)
     pu, pname = (mp[1], mp[2]) if mp is not None else ("", "Momentum")
@@ -1056,7 +1056,7 @@ def coordinate_pair_figure(first: Any, second: Any) -> FigureSpec:
 
 def poincare_pair_figure(first: Any, second: Any, section: Any) -> FigureSpec:
     """Poincaré section of a coordinate pair: (q2, p2) where q1 crosses ``section.value`` upwards
-    (key ``phase.poincare_pair``). section : phasewake.core.landscape.PoincareSection."""
+    (key ``phase.poincare_pair``). section : phasewake.core.analyses.landscape.PoincareSection."""
     level = float(section.value)
     title = f"Poincar\u00e9 section at {first.spec} = {level:.4g} {first.unit}"
     return FigureSpec(
@@ -1100,7 +1100,7 @@ def principal_component_figures(pca: Any, *, atoms: str = "") -> list[FigureSpec
     """Explained variance per component (``phase.pca_variance``), PC 1 against its momentum
     (``phase.pc1``) and PC 1 against PC 2 (``phase.pc12``, when PC 2 carries variance).
 
-    pca : phasewake.core.projection.PCAResult.
+    pca : phasewake.core.analyses.projection.PCAResult.
     atoms : which atoms, in words, for the captions (e.g. "the solute: atoms 0–53 (54 atoms)"); default
         from ``pca.atom_indices``.
     """
@@ -1149,7 +1149,7 @@ def landscape_states_figure(profile: Any, series: Any, *, states: tuple[float, f
     """The free-energy profile with the core-state edges A, B and the dividing surface as marks a user
     can drag (key ``landscape.states``; roles ``state`` and ``surface``).
 
-    profile : phasewake.core.landscape.FreeEnergyProfile; series : the coordinate it was made from;
+    profile : phasewake.core.analyses.landscape.FreeEnergyProfile; series : the coordinate it was made from;
     states : (A_hi, B_lo) in the coordinate's unit.
     """
     x = np.asarray(profile.centers, float)

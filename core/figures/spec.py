@@ -2,7 +2,7 @@
 
 A :class:`FigureSpec` holds data, axes with labels and units, and marks (states, dividing surface,
 drift line, cursor, annotations). The window draws it live with pyqtgraph (``phasewake.app.window``);
-``phasewake.core.export`` draws the same description with matplotlib. One description, two
+``phasewake.core.figures.export`` draws the same description with matplotlib. One description, two
 renderers, so an export matches the screen.
 
 Colours: the Okabe and Ito (2008) colour-blind-safe palette; every series also gets a line style or

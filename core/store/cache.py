@@ -9,7 +9,7 @@ Each entry is one file ``<key>.pwcache``: a fixed header (our magic bytes, the l
 lengths, a SHA-256 of everything after it), a JSON header (the key, the meta mapping, the arrays' dtypes,
 shapes and offsets) and the arrays' bytes. Every read checks the SHA-256, so a damaged entry is a miss
 (recomputed and replaced, with one notice), never a wrong answer. Entries are written through
-:mod:`phasewake.core.atomic` (temporary file, then rename): two windows using the cache at once, or a
+:mod:`phasewake.core.store.atomic` (temporary file, then rename): two windows using the cache at once, or a
 process killed half-way, never leave a damaged entry. Nothing here goes through the HDF5 library, so a
 full disk is an ordinary OSError.
 
@@ -47,7 +47,8 @@ from typing import Any
 import numpy as np
 
 from phasewake.core import __version__
-from phasewake.core.atomic import (
+from phasewake.core.errors import PhasewakeError
+from phasewake.core.store.atomic import (
     STALE_AFTER_S,
     OutputError,
     atomic_open,
@@ -57,7 +58,6 @@ from phasewake.core.atomic import (
     sweep_stale,
     write_text,
 )
-from phasewake.core.errors import PhasewakeError
 
 _EDGE = 64 * 1024
 
@@ -421,7 +421,7 @@ class ResultCache:
     def put(self, key: str, arrays: Mapping[str, np.ndarray], meta: Mapping[str, Any] | None = None) -> None:
         """Store ``arrays`` and ``meta`` (JSON-able) under ``key``.
 
-        Raises OSError or :class:`~phasewake.core.atomic.OutputError` when the folder cannot be written,
+        Raises OSError or :class:`~phasewake.core.store.atomic.OutputError` when the folder cannot be written,
         ValueError for arrays it does not store, :class:`CacheFolderError` when the folder is not ours.
         """
         if not self.enabled:

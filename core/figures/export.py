@@ -1,4 +1,4 @@
-"""Draw a :class:`~phasewake.core.figures.FigureSpec` with matplotlib and write it to disk.
+"""Draw a :class:`~phasewake.core.figures.spec.FigureSpec` with matplotlib and write it to disk.
 
 One figure description, two renderers: the window draws a FigureSpec live with pyqtgraph, this module
 draws the same description for files (PNG at a chosen DPI, SVG and PDF as vectors) so an export
@@ -37,10 +37,10 @@ from typing import TYPE_CHECKING, Any, Literal
 import numpy as np
 
 from phasewake.core import __version__
-from phasewake.core.atomic import atomic_open, write_bytes
 from phasewake.core.errors import PhasewakeError
-from phasewake.core.figures import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
-from phasewake.core.jsonable import to_jsonable
+from phasewake.core.figures.spec import Band, FigureSpec, Image, Line, Mark, PlotSpec, Style
+from phasewake.core.store.atomic import atomic_open, write_bytes
+from phasewake.core.store.jsonable import to_jsonable
 
 if TYPE_CHECKING:
     from matplotlib.axes import Axes
@@ -172,7 +172,7 @@ def provenance_for(
 
 
 def provenance_of_run(run: Any, *, settings: Mapping[str, Any] | None = None) -> dict[str, Any]:
-    """Provenance of a :class:`~phasewake.core.run.Run`: its files (hashed) and the run name."""
+    """Provenance of a :class:`~phasewake.core.model.run.Run`: its files (hashed) and the run name."""
     paths = [p for p in getattr(run, "paths", ()) if Path(p).is_file()]
     return provenance_for(paths, settings=settings, extra={"run": getattr(run, "name", "")})
 

@@ -7,11 +7,11 @@ hands each chunk to every consumer. A consumer is a chunk reduction built on the
 
 * ``prepare(columns, start=, stop=, chunk_frames=)``: told which run atoms the chunk's atom axis holds
   (``columns``, shape (n_read,), or None for all atoms) and the frame range of the pass;
-* ``update(chunk)``: one :class:`~phasewake.core.run.FrameChunk`;
+* ``update(chunk)``: one :class:`~phasewake.core.model.run.FrameChunk`;
 * ``finish()``: the same frozen result the separate analysis returns.
 
 Consumers here: :class:`CoordinatesConsumer` (``coordinates.evaluate_arrays`` per chunk, finishing into the
-``CoordinateSeries`` that :func:`~phasewake.core.coordinates.compute_coordinates` returns; pc(k) specs need
+``CoordinateSeries`` that :func:`~phasewake.core.analyses.coordinates.compute_coordinates` returns; pc(k) specs need
 a PCA pass first and are refused), :class:`GroupTemperatureConsumer` (``temperature.kinetic_energy`` per
 group, then ``group_degrees_of_freedom`` and ``group_temperatures`` as the audit does),
 :class:`VACFConsumer` (``velocity.BlockCorrelator`` and the finish of ``velocity.vacf``),
@@ -37,17 +37,17 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
+from phasewake.core.analyses.projection import PCAProjection, PCAReduction
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 from phasewake.core.progress import Progress, Work
-from phasewake.core.projection import PCAProjection, PCAReduction
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 
 if TYPE_CHECKING:
-    from phasewake.core.coordinates import CoordinateSeries
-    from phasewake.core.projection import PCAResult
-    from phasewake.core.run import Run
-    from phasewake.core.temperature import GroupTemperature
-    from phasewake.core.velocity import VACFResult
+    from phasewake.core.analyses.coordinates import CoordinateSeries
+    from phasewake.core.analyses.projection import PCAResult
+    from phasewake.core.analyses.temperature import GroupTemperature
+    from phasewake.core.analyses.velocity import VACFResult
+    from phasewake.core.model.run import Run
 
 
 class ChunkConsumer(Protocol):
@@ -97,7 +97,7 @@ class CoordinatesConsumer:
     ----------
     run : Run
     specs : sequence of str
-        Coordinate specifications (``phasewake.core.coordspec``); not ``pc(k)``.
+        Coordinate specifications (``phasewake.core.analyses.coordspec``); not ``pc(k)``.
 
     ``finish()`` returns ``list[CoordinateSeries]`` in the order of ``specs``, field for field what
     ``compute_coordinates(run, specs, start=, stop=, chunk_frames=)`` returns for the pass's range.
@@ -106,7 +106,7 @@ class CoordinatesConsumer:
     needs_positions = True
 
     def __init__(self, run: Run, specs: Sequence[str]) -> None:
-        from phasewake.core.coordinates import resolve_for_run
+        from phasewake.core.analyses.coordinates import resolve_for_run
         from phasewake.core.readers.common import check_masses
 
         if run.frames is None:
@@ -139,7 +139,7 @@ class CoordinatesConsumer:
         self._masses = m if columns is None else m[columns]
 
     def update(self, chunk: FrameChunk) -> None:
-        from phasewake.core.coordinates import evaluate_arrays, refuse_not_finite
+        from phasewake.core.analyses.coordinates import evaluate_arrays, refuse_not_finite
 
         vel = chunk.velocities_nm_per_ps if self.needs_velocities else None
         if self.needs_velocities and vel is None:
@@ -156,7 +156,7 @@ class CoordinatesConsumer:
                 self._meff[k].append(me)
 
     def finish(self) -> list[CoordinateSeries]:
-        from phasewake.core.coordinates import CoordinateSeries, finite_difference_velocity, units_of
+        from phasewake.core.analyses.coordinates import CoordinateSeries, finite_difference_velocity, units_of
 
         start, stop, chunk = self._range
         time = np.concatenate(self._time) if self._time else np.zeros(0)
@@ -236,7 +236,7 @@ class GroupTemperatureConsumer:
 
     def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
                  n_com: int = 3, n_constraints: int | None = None, significance_z: float = 3.0) -> None:
-        from phasewake.core import temperature as tm
+        from phasewake.core.analyses import temperature as tm
 
         if run.frames is None or not run.frames.has_velocities:
             raise MissingDataError("the run holds no velocities (and none can be estimated)", path=_path(run))
@@ -286,7 +286,7 @@ class GroupTemperatureConsumer:
         self._com.append(np.einsum("fi,fi->f", p, p) / (2.0 * self._mtot))
 
     def finish(self) -> GroupKinetics:
-        from phasewake.core import temperature as tm
+        from phasewake.core.analyses import temperature as tm
 
         start, stop, chunk = self._range
         kin = np.concatenate(self._kin) if self._kin else np.zeros(0)
@@ -317,7 +317,7 @@ class GroupTemperatureConsumer:
 
 
 class VACFConsumer:
-    """Velocity autocorrelation, as :func:`phasewake.core.velocity.vacf` with stride 1.
+    """Velocity autocorrelation, as :func:`phasewake.core.analyses.velocity.vacf` with stride 1.
 
     Parameters are those of ``vacf`` (``groups``, ``mass_weighted``, ``max_lag_ps``,
     ``max_buffer_bytes``); ``start``/``stop`` must be the pass's range (they set the lag window).
@@ -330,7 +330,7 @@ class VACFConsumer:
     def __init__(self, run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
                  mass_weighted: bool = False, max_lag_ps: float | None = None, start: int = 0,
                  stop: int | None = None, max_buffer_bytes: int | None = None) -> None:
-        from phasewake.core import velocity as vel
+        from phasewake.core.analyses import velocity as vel
 
         if run.frames is None or not run.frames.has_velocities:
             raise MissingDataError("the run holds no velocities (and none can be estimated)", path=_path(run))
@@ -358,7 +358,7 @@ class VACFConsumer:
         self._corr: Any = None
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        from phasewake.core.velocity import BlockCorrelator
+        from phasewake.core.analyses.velocity import BlockCorrelator
 
         want_stop = self.run.n_frames if self.stop is None else min(int(self.stop), self.run.n_frames)
         if (start, stop) != (self.start, want_stop):
@@ -376,7 +376,7 @@ class VACFConsumer:
         self._corr.update(chunk.velocities_nm_per_ps)
 
     def finish(self) -> VACFResult:
-        from phasewake.core.velocity import _vacf_finish
+        from phasewake.core.analyses.velocity import _vacf_finish
 
         settings = {"groups": {k: len(v) for k, v in (self.groups or {}).items()},
                     "mass_weighted": self.mass_weighted, "max_lag": self.lag, "start": self.start,
@@ -394,8 +394,8 @@ class VACFConsumer:
 class PCAConsumer(PCAReduction):
     """The PCA covariance (exact route) or the one-pass Nystrom sketch (randomized, ``n_iter=0``).
 
-    Settings are those of :func:`phasewake.core.projection.compute_pca` except ``start``, ``stop`` (the
-    pass's) and ``projections``; ``finish()`` returns the :class:`~phasewake.core.projection.PCAResult`
+    Settings are those of :func:`phasewake.core.analyses.projection.compute_pca` except ``start``, ``stop`` (the
+    pass's) and ``projections``; ``finish()`` returns the :class:`~phasewake.core.analyses.projection.PCAResult`
     that ``compute_pca(run, ..., start=, stop=, projections=False)`` returns, to float rounding identical
     (the same reduction: blocks of ``chunk_frames`` frames whatever the pass's chunks; reference: the
     first frame of the pass unless ``reference_nm``). Subspace iteration (``n_iter`` > 0) needs more
@@ -573,11 +573,11 @@ class FramePass:
         return self.add(name, PCAProjectionConsumer(self.run, pca))
 
     def audit_frames(self, name: str, **settings: Any) -> FramePass:
-        """The audit's frame part (:class:`phasewake.core.audit.AuditFramesConsumer` with the choices
+        """The audit's frame part (:class:`phasewake.core.analyses.audit.AuditFramesConsumer` with the choices
         ``audit_run`` makes; settings ``n_constraints``, ``groups``, ``segment_frames``,
         ``max_spectrum_segments``). Hand the result to ``audit_run(run, frames=..., same settings)``, which
         then reads no frames; it needs a pass over all frames and every atom."""
-        from phasewake.core.audit import AuditFramesConsumer
+        from phasewake.core.analyses.audit import AuditFramesConsumer
 
         return self.add(name, AuditFramesConsumer.for_run(self.run, **settings))
 

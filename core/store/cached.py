@@ -23,7 +23,7 @@ A cache that cannot be read or written (read-only folder, full disk) never fails
 result is returned uncached and one notice "cache skipped" is recorded (``core.cache.take_notices``;
 the command line prints it as a warning line). A damaged entry is a miss (its checksum is checked on
 every read). A result the codec cannot store is simply not cached. A cache folder that is not ours
-(files and no mark) raises :class:`~phasewake.core.cache.CacheFolderError`.
+(files and no mark) raises :class:`~phasewake.core.store.cache.CacheFolderError`.
 """
 
 from __future__ import annotations
@@ -39,14 +39,15 @@ from typing import TYPE_CHECKING, Any, TypeVar
 
 import numpy as np
 
-from phasewake.core import resultcodec
-from phasewake.core.atomic import OutputError
-from phasewake.core.cache import CacheEntry, ResultCache, file_identity, make_key, skipped
 from phasewake.core.progress import Progress, Work
+from phasewake.core.store import codec as resultcodec
+from phasewake.core.store.atomic import OutputError
+from phasewake.core.store.cache import CacheEntry, ResultCache, file_identity, make_key, skipped
 
 if TYPE_CHECKING:
-    from phasewake.core.coordinates import CoordinateSeries
-    from phasewake.core.run import Run
+    from phasewake.core.analyses.coordinates import CoordinateSeries
+    from phasewake.core.analyses.request import AnalysisRequest
+    from phasewake.core.model.run import Run
 
 T = TypeVar("T")
 
@@ -70,7 +71,7 @@ def _digest(a: np.ndarray) -> str:
 @functools.lru_cache(maxsize=1)
 def code_fingerprint() -> str:
     """A hash of the sizes and modification times of the phasewake.core source files (once per process)."""
-    root = Path(__file__).resolve().parent
+    root = Path(__file__).resolve().parent.parent  # core/
     h = hashlib.sha256()
     for p in sorted(root.rglob("*.py")):
         try:
@@ -83,7 +84,7 @@ def code_fingerprint() -> str:
 
 def _canon(x: Any) -> Any:
     """A JSON-ready, stable form of a setting (raises _Uncacheable for what has none)."""
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
     if x is None or isinstance(x, (bool, str)):
         return x
@@ -242,12 +243,22 @@ def cached_work(run: Run, analysis: str, settings: Mapping[str, Any], work: Work
     return result
 
 
+def requested(run: Run, request: AnalysisRequest, *, cache: ResultCache | None = None) -> Work[Any]:
+    """The result of ``request`` for ``run`` through the result cache: the one road of every front end.
+
+    The key comes from ``request.name``, ``request.settings()`` and ``request.reference_paths()``; the
+    work from ``request.work(run)`` (see :mod:`phasewake.core.analyses.request`).
+    """
+    return (yield from cached_work(run, request.name, request.settings(), request.work(run), cache=cache,
+                                   extra_paths=request.reference_paths()))
+
+
 # ---------------------------------------------------------------------------------------------------
 # cached variants of the analyses users repeat (same keywords and results as the originals)
 # ---------------------------------------------------------------------------------------------------
 
 def _reference_paths(run: Run, specs: Sequence[str]) -> list[str]:
-    from phasewake.core.coordinates import resolve_for_run
+    from phasewake.core.analyses.coordinates import resolve_for_run
 
     refs = []
     for s in specs:
@@ -260,13 +271,13 @@ def _reference_paths(run: Run, specs: Sequence[str]) -> list[str]:
 def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
                        stop: int | None = None, chunk_frames: int | None = None, mass_weighted_pca: bool = True,
                        fit_pca: bool = True) -> Work[list[CoordinateSeries]]:
-    """:func:`phasewake.core.coordinates.compute_coordinates` through the result cache.
+    """:func:`phasewake.core.analyses.coordinates.compute_coordinates` through the result cache.
 
     Same settings and result (``list[CoordinateSeries]``); a hit reads no frames. ``cache`` defaults to
     ``ResultCache()`` (``PHASEWAKE_CACHE_DIR``, ``PHASEWAKE_NO_CACHE``); pass ``ResultCache(enabled=False)``
     to bypass it. In-memory runs (no files) are never cached.
     """
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
 
     work = compute_coordinates(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
                                mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
@@ -279,37 +290,37 @@ def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | N
 
 
 def cached_audit(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.audit.audit_run` through the result cache (same keywords and result).
+    """:func:`phasewake.core.analyses.audit.audit_run` through the result cache (same keywords and result).
 
     Every keyword of ``audit_run`` (``n_constraints``, ``timestep_ps``, ``temperature_K``, ``groups``,
     ``require_temperature``, ``compare`` (a Run: its own files join the key), ``compare_timestep_ps``,
     ``chunk_frames``, ``segment_frames``, ``max_spectrum_segments``) is part of the key.
     """
-    from phasewake.core.audit import audit_run
+    from phasewake.core.analyses.audit import audit_run
 
     return (yield from cached_work(run, "audit", _with_defaults(audit_run, settings),
                                    audit_run(run, **settings), cache=cache))
 
 
 def cached_pca(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.projection.compute_pca` through the result cache (same keywords and result)."""
-    from phasewake.core.projection import compute_pca
+    """:func:`phasewake.core.analyses.projection.compute_pca` through the result cache (same keywords and result)."""
+    from phasewake.core.analyses.projection import compute_pca
 
     return (yield from cached_work(run, "pca", _with_defaults(compute_pca, settings),
                                    compute_pca(run, **settings), cache=cache))
 
 
 def cached_vacf(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.velocity.vacf` through the result cache (same keywords and result)."""
-    from phasewake.core.velocity import vacf
+    """:func:`phasewake.core.analyses.velocity.vacf` through the result cache (same keywords and result)."""
+    from phasewake.core.analyses.velocity import vacf
 
     return (yield from cached_work(run, "vacf", _with_defaults(vacf, settings), vacf(run, **settings),
                                    cache=cache))
 
 
 def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.velocity.vibrational_spectrum` through the result cache."""
-    from phasewake.core.velocity import vibrational_spectrum
+    """:func:`phasewake.core.analyses.velocity.vibrational_spectrum` through the result cache."""
+    from phasewake.core.analyses.velocity import vibrational_spectrum
 
     return (yield from cached_work(run, "spectrum", _with_defaults(vibrational_spectrum, settings),
                                    vibrational_spectrum(run, **settings), cache=cache))
@@ -317,13 +328,13 @@ def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: A
 
 def cached_crossings_of_runs(runs: Run | Sequence[Run], coordinate: str, *, cache: ResultCache | None = None,
                              **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.crossings.crossings_of_runs` through the result cache.
+    """:func:`phasewake.core.analyses.crossings.crossings_of_runs` through the result cache.
 
     The key is that of the first run, with every run's fingerprint, the coordinate and every keyword.
     """
-    from phasewake.core.crossings import crossings_of_runs
+    from phasewake.core.analyses.crossings import crossings_of_runs
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.run import Run as _Run
+    from phasewake.core.model.run import Run as _Run
 
     all_runs = [runs] if isinstance(runs, _Run) else list(runs)
     work = crossings_of_runs(runs, coordinate, **settings)
@@ -418,7 +429,7 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
                 load_hits: bool = True) -> Work[dict[str, Any]]:
     """Several analyses of all frames of ``run`` from one read, each looked up in and stored to the cache.
 
-    Items found in the cache are not computed; the others share one :func:`phasewake.core.onepass.run_pass`
+    Items found in the cache are not computed; the others share one :func:`phasewake.core.model.framepass.run_pass`
     over the frames (then their ``then`` step). Returns ``{name: result}``, where a result may be the
     :class:`~phasewake.core.errors.PhasewakeError` that stopped that analysis (the others go on), or None
     when the analysis cannot be fed from a shared pass with these settings (its consumer refused them, e.g.
@@ -428,7 +439,7 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
     neither read nor decoded (None in the returned mapping).
     """
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.onepass import run_pass
+    from phasewake.core.model.framepass import run_pass
 
     cache = ResultCache() if cache is None else cache
     out: dict[str, Any] = {}
@@ -476,7 +487,7 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
 
 def audit_item(run: Run, **settings: Any) -> PassItem:
     """The audit as a :class:`PassItem` (the key of :func:`cached_audit` with the same keywords)."""
-    from phasewake.core.audit import AuditFramesConsumer, audit_run
+    from phasewake.core.analyses.audit import AuditFramesConsumer, audit_run
 
     def consumer() -> Any:
         return AuditFramesConsumer.for_run(run, **{k: settings[k] for k in
@@ -498,7 +509,7 @@ def coordinates_settings(run: Run, specs: Sequence[str], *, start: int = 0, stop
 
 def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
     """Coordinates of all frames as a :class:`PassItem` (the key of :func:`cached_coordinates`)."""
-    from phasewake.core.onepass import CoordinatesConsumer
+    from phasewake.core.model.framepass import CoordinatesConsumer
 
     return PassItem("coordinates", coordinates_settings(run, specs), lambda: CoordinatesConsumer(run, specs),
                     extra_paths=_reference_paths(run, specs))
@@ -507,8 +518,8 @@ def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
 def pca_item(run: Run, **settings: Any) -> PassItem:
     """A PCA of all frames as a :class:`PassItem` (the key of :func:`cached_pca`); its projections are a
     second pass over the frames, as in ``compute_pca``."""
-    from phasewake.core.onepass import PCAConsumer, PCAProjectionConsumer, run_pass
-    from phasewake.core.projection import compute_pca
+    from phasewake.core.analyses.projection import compute_pca
+    from phasewake.core.model.framepass import PCAConsumer, PCAProjectionConsumer, run_pass
 
     def then(pca: Any) -> Work[Any]:
         if not settings.get("projections", True):

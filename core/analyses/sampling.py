@@ -13,7 +13,7 @@
 * Running averages with error bands, recurrence plots (J.-P. Eckmann, S. O. Kamphorst and D. Ruelle,
   Europhys. Lett. 4, 973 (1987)), phase-space coverage of a fixed grid over time (common practice).
 
-All diagnostics here are heuristics (see :data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+All diagnostics here are heuristics (see :data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`).
 """
 
 from __future__ import annotations
@@ -25,14 +25,14 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core import verdicts
-from phasewake.core.correlation import statistical_inefficiency
+from phasewake.core.analyses import verdicts
+from phasewake.core.analyses.correlation import statistical_inefficiency
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import iter_frame_chunks
 
 if TYPE_CHECKING:
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 # ---------------------------------------------------------------------------------------------------
 # Verdict kinds

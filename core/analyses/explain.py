@@ -22,7 +22,7 @@ import html
 import importlib
 from collections.abc import Sequence
 
-from phasewake.core.verdicts import EXPLANATIONS, HEURISTIC_NOTE, THRESHOLDS, Explanation, register
+from phasewake.core.analyses.verdicts import EXPLANATIONS, HEURISTIC_NOTE, THRESHOLDS, Explanation, register
 
 NO_THRESHOLD = "No threshold: a number to read, not a verdict."
 
@@ -230,7 +230,7 @@ def explanation(kind: str) -> Explanation | None:
         module = _PREFIX_MODULES.get(kind.split(".", 1)[0])
         if module is not None:
             try:
-                importlib.import_module(f"phasewake.core.{module}")
+                importlib.import_module(f"phasewake.core.analyses.{module}")
             except ImportError:
                 return None
     return EXPLANATIONS.get(kind)

@@ -39,7 +39,7 @@ exit from the origin core) looked up, locally. Noise flickering at a core bounda
 nothing; 1e8 samples take about 0.7-1.0 s on a shared 2-core machine, 4-5x one numpy pass
 (tests/benchmarks: crossings_long_series), of which the pass is ~2.6x and the events, the dwell tests
 (Monte Carlo) and the TST histogram the rest. Everything here is a heuristic read of finite data; see
-:data:`phasewake.core.verdicts.HEURISTIC_NOTE`.
+:data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`.
 """
 
 from __future__ import annotations
@@ -52,9 +52,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core import interrupts
-from phasewake.core.errors import AnalysisError, TooShortError
-from phasewake.core.progress import Progress, Work, result_of
-from phasewake.core.rates import (
+from phasewake.core.analyses.rates import (
     ExponentialTest,
     PoissonRate,
     TSTRate,
@@ -64,7 +62,7 @@ from phasewake.core.rates import (
     poisson_rate,
     tst_rate_from_counts,
 )
-from phasewake.core.verdicts import (
+from phasewake.core.analyses.verdicts import (
     HEURISTIC_NOTE,
     THRESHOLDS,
     Explanation,
@@ -73,9 +71,11 @@ from phasewake.core.verdicts import (
     judge,
     register,
 )
+from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.progress import Progress, Work, result_of
 
 if TYPE_CHECKING:
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 # --------------------------------------------------------------------------------------------------
 # Verdict kinds
@@ -944,7 +944,7 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
     """Core sets and dividing surface from the free-energy profile F(q) = -kT ln P(q).
 
     The profile, its minima and barrier tops come from
-    :func:`phasewake.core.landscape.free_energy_profile` (no Jacobian: the states are where q itself
+    :func:`phasewake.core.analyses.landscape.free_energy_profile` (no Jacobian: the states are where q itself
     dwells). Of its barriers the one highest seen from both sides is used; the surface is its top;
     each core reaches from its minimum towards the barrier until F has risen by min(1 kT, half that
     side's barrier). These choices are ours (a heuristic): check them against the profile and adjust.
@@ -956,7 +956,7 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
     temperature_K : float, optional
         Only sets the kJ/mol scale of the profile; F in kT does not depend on it.
     """
-    from phasewake.core.landscape import free_energy_profile
+    from phasewake.core.analyses.landscape import free_energy_profile
 
     q = np.asarray(q, dtype=float).ravel()
     fin = np.isfinite(q)
@@ -1000,7 +1000,7 @@ def suggest_states(q: np.ndarray, *, unit: str = "", temperature_K: float | None
         a_hi=a_hi, b_lo=b_lo, surface=surface, minimum_a=float(centres[i]), minimum_b=float(centres[j]),
         barrier_from_a_kT=float(f[b] - f[i]), barrier_from_b_kT=float(f[b] - f[j]),
         centres=centres, free_energy_kT=prof.free_energy_kT, unit=unit,
-        method="free-energy profile -kT ln P(q) (phasewake.core.landscape); surface at the top of the "
+        method="free-energy profile -kT ln P(q) (phasewake.core.analyses.landscape); surface at the top of the "
                "barrier highest from both sides; cores where F is within min(1 kT, half the barrier) of "
                "each minimum (our heuristic)",
     )
@@ -1471,8 +1471,8 @@ def check_not_stiff_bond(coordinate: str, run: Run, values: Sequence[np.ndarray]
     """Refuse to suggest states on a distance that only vibrates about one length (a covalent bond):
     two peaks of its histogram are the turning points of the vibration (in a run without a thermostat a
     single bond keeps its energy for a long time), not two states. ``coordinate.stiff_pair``."""
-    from phasewake.core.coordinate_choice import THRESHOLDS as _T  # registers coordinate.stiff_pair
-    from phasewake.core.coordinates import resolve_for_run
+    from phasewake.core.analyses.coordinate_choice import THRESHOLDS as _T  # registers coordinate.stiff_pair
+    from phasewake.core.analyses.coordinates import resolve_for_run
     from phasewake.core.errors import PhasewakeError
 
     try:
@@ -1511,10 +1511,10 @@ def crossings_of_runs(
     """Crossings of ``coordinate`` (a coordinate spec, e.g. ``"distance(0, 1)"``) in one or more runs.
 
     Each run is a replica; their events pool. The coordinate and dq/dt come from
-    :func:`phasewake.core.coordinates.compute_coordinates`, read chunk by chunk. Temperature (for the
+    :func:`phasewake.core.analyses.coordinates.compute_coordinates`, read chunk by chunk. Temperature (for the
     TST flux factor when there are no velocities) defaults to the first run's thermostat target.
     """
-    from phasewake.core.coordinates import compute_coordinates
+    from phasewake.core.analyses.coordinates import compute_coordinates
 
     run_list: list[Run] = [runs] if not isinstance(runs, Sequence) else list(runs)
     if not run_list:

@@ -430,7 +430,7 @@ def poincare_section(
 
 
 def poincare_from_series(q1_series: Any, q2_series: Any, *, value: float = 0.0, direction: str = "up") -> PoincareSection:
-    """Surface of section from two :class:`~phasewake.core.coordinates.CoordinateSeries` of one run.
+    """Surface of section from two :class:`~phasewake.core.analyses.coordinates.CoordinateSeries` of one run.
 
     Records (q2, p2) when q1 crosses ``value``; p2 is q2's conjugate momentum (its velocity when the
     run gives no effective mass).

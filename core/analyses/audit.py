@@ -6,14 +6,14 @@ energy per frame and per group, centre-of-mass motion, rigid-pair distances for 
 the velocity spectrum, speed samples) and works on the energy table for the rest.
 
 The frame pass is a chunk reduction, :class:`AuditFramesConsumer` (``prepare`` / ``update`` /
-``finish``, the protocol of :mod:`phasewake.core.onepass`): ``audit_run`` drives it through
+``finish``, the protocol of :mod:`phasewake.core.model.framepass`): ``audit_run`` drives it through
 ``onepass.run_pass``, and a shared one-pass request can feed it next to other consumers and hand its
 :class:`AuditFrames` to ``audit_run(run, frames=...)``, which then reads no frames. The energy table is
-summed in one blocked pass (:func:`phasewake.core.energy.scan_energy_table`) that feeds the events,
+summed in one blocked pass (:func:`phasewake.core.analyses.energy.scan_energy_table`) that feeds the events,
 the drift, the fluctuations and the sampling of every series.
 
 Every verdict names what was measured, the threshold and its source, and advice. These diagnostics are
-heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+heuristics (:data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`).
 """
 
 from __future__ import annotations
@@ -25,14 +25,11 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core import energy as en
-from phasewake.core import temperature as tm
-from phasewake.core import timestep as ts
-from phasewake.core.correlation import one_blas_thread
-from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.progress import Progress, Work
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, Run
-from phasewake.core.verdicts import (
+from phasewake.core.analyses import energy as en
+from phasewake.core.analyses import temperature as tm
+from phasewake.core.analyses import timestep as ts
+from phasewake.core.analyses.correlation import one_blas_thread
+from phasewake.core.analyses.verdicts import (
     EXPLANATIONS,
     HEURISTIC_NOTE,
     THRESHOLDS,
@@ -43,6 +40,9 @@ from phasewake.core.verdicts import (
     register,
     worst,
 )
+from phasewake.core.errors import AnalysisError, MissingDataError
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, Run
+from phasewake.core.progress import Progress, Work
 
 register(None, Explanation(
     title="Degrees of freedom",
@@ -447,9 +447,9 @@ class AuditFramesConsumer:
 
     Kinetic energy per frame of all atoms and of every group, the centre-of-mass kinetic energy, the
     rigid-pair statistics for constraint inference (positions of the first 500 frames), the streaming
-    velocity power spectrum (:class:`~phasewake.core.timestep.VelocitySpectrumAccumulator`) and speed
+    velocity power spectrum (:class:`~phasewake.core.analyses.timestep.VelocitySpectrumAccumulator`) and speed
     samples for the Maxwell-Boltzmann test. It follows the ``ChunkConsumer`` protocol of
-    :mod:`phasewake.core.onepass`, so one frame pass can feed the audit together with other analyses;
+    :mod:`phasewake.core.model.framepass`, so one frame pass can feed the audit together with other analyses;
     :func:`audit_run` drives this same consumer through ``onepass.run_pass``.
 
     Parameters
@@ -642,7 +642,7 @@ class AuditFramesConsumer:
 def _frame_pass(run: Run, consumer: AuditFramesConsumer, *, chunk_frames: int, done0: float,
                 total: float) -> Work[AuditFrames]:
     """Drive the consumer through the one-pass engine (``onepass.run_pass``), progress on the audit's scale."""
-    from phasewake.core.onepass import run_pass
+    from phasewake.core.model.framepass import run_pass
 
     work = run_pass(run, {"audit": consumer}, chunk_frames=chunk_frames)
     try:

@@ -2,13 +2,13 @@
 
 Pure array kernels (``drift_fit``, ``energy_fluctuations``, ``find_energy_events``,
 ``statistical_inefficiency_of``) plus :func:`select_conserved`, which picks the series to judge from an
-:class:`~phasewake.core.run.EnergyTable` and says which one it picked. The Run adapter that runs all
-checks is :func:`phasewake.core.audit.audit_run`.
+:class:`~phasewake.core.model.run.EnergyTable` and says which one it picked. The Run adapter that runs all
+checks is :func:`phasewake.core.analyses.audit.audit_run`.
 
 Units: time ps, energies kJ/mol, temperatures K. Drift is reported per ns.
 
-Every threshold used here is registered in :mod:`phasewake.core.verdicts` with its source; these are
-heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+Every threshold used here is registered in :mod:`phasewake.core.analyses.verdicts` with its source; these are
+heuristics (:data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`).
 """
 
 from __future__ import annotations
@@ -20,9 +20,9 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError, UnitError
-from phasewake.core.run import EnergyTable
-from phasewake.core.verdicts import Explanation, Threshold, register
+from phasewake.core.model.run import EnergyTable
 
 
 def boltzmann_kJ_per_mol_K() -> float:
@@ -176,14 +176,14 @@ def _sokal_statistical_inefficiency(x: np.ndarray, c: float = 5.0) -> float:
 
 def _g_full(x: np.ndarray) -> tuple[float, str]:
     try:
-        from phasewake.core.correlation import statistical_inefficiency
+        from phasewake.core.analyses.correlation import statistical_inefficiency
     except ImportError:
         return _sokal_statistical_inefficiency(x), "Sokal automatic window (c = 5), audit's own estimator"
     try:
         g = float(statistical_inefficiency(x))
     except AnalysisError:
         return 1.0, "constant series (g = 1)"
-    return max(1.0, g), "phasewake.core.correlation.statistical_inefficiency (Sokal window)"
+    return max(1.0, g), "phasewake.core.analyses.correlation.statistical_inefficiency (Sokal window)"
 
 
 WINDOW_ABOVE = 1 << 21  # series longer than this get g from evenly spaced stretches
@@ -210,7 +210,7 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABO
                                 window: int = WINDOW, value_range: float | None = None) -> tuple[float, str]:
     """Statistical inefficiency g (>= 1) of a series and the name of the estimator used.
 
-    Uses ``phasewake.core.correlation.statistical_inefficiency`` when that module exists, else a
+    Uses ``phasewake.core.analyses.correlation.statistical_inefficiency`` when that module exists, else a
     private Sokal-window estimator (Sokal 1997, c = 5). Series longer than ``window_above`` are
     estimated as the mean g of ``n_windows`` evenly spaced stretches of ``window`` samples (the FFT of
     the whole series dominates the audit's cost otherwise); when g is too large for the stretches to
@@ -410,7 +410,7 @@ def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
     block : int
         Rows per block.
     """
-    from phasewake.core.correlation import one_blas_thread
+    from phasewake.core.analyses.correlation import one_blas_thread
 
     names = tuple(columns)
     cols = [np.asarray(columns[k], dtype=np.float64) for k in names]

@@ -143,7 +143,7 @@ class ResolvedCoordinate:
     reference_nm: np.ndarray | None = None
     reference_path: str | None = None
     pc_index: int | None = None
-    pca: Any = None  # phasewake.core.projection.PCAResult once computed
+    pca: Any = None  # phasewake.core.analyses.projection.PCAResult once computed
     extra: dict[str, Any] = field(default_factory=dict)
 
     @property

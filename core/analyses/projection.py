@@ -59,15 +59,15 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.coordinates import kabsch, solute_atoms
+from phasewake.core.analyses.coordinates import kabsch, solute_atoms
+from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 from phasewake.core.progress import Progress, Work
-from phasewake.core.run import DEFAULT_CHUNK_FRAMES, FrameChunk
 from phasewake.core.units import KB_KJ_PER_MOL_K
-from phasewake.core.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 
 if TYPE_CHECKING:
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
@@ -404,7 +404,7 @@ def _few_threads(n_elements: int) -> Any:
 
     if n_elements < _FEW_THREADS_MIN:
         return contextlib.nullcontext()
-    from phasewake.core.correlation import one_blas_thread
+    from phasewake.core.analyses.correlation import one_blas_thread
 
     return one_blas_thread()
 
@@ -539,7 +539,7 @@ class PCAReduction:
         return pos if self._local is None else np.take(pos, self._local, axis=1)
 
     def _start(self, x: np.ndarray) -> None:
-        from phasewake.core.superpose import FrameFitter
+        from phasewake.core.analyses.superpose import FrameFitter
 
         if self.reference is None:
             self.reference = np.asarray(x[0], dtype=np.float64)  # the first frame of the window
@@ -614,7 +614,7 @@ class PCAProjection:
     needs_positions = True
 
     def __init__(self, run: Run, pca: PCAResult) -> None:
-        from phasewake.core.superpose import FrameFitter
+        from phasewake.core.analyses.superpose import FrameFitter
 
         if run.frames is None:
             raise MissingDataError("the run has no frames (positions)", path=_path(run))
@@ -717,7 +717,7 @@ def compute_pca(
         "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content (fitted in float64)
     """
-    from phasewake.core.onepass import feed
+    from phasewake.core.model.framepass import feed
 
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=_path(run))

@@ -5,7 +5,7 @@ temperature; the velocity spectrum behind the time-step check; the coordinate ag
 phase portrait; time correlations (autocorrelation and blocking); sampling (free-energy profile of
 the coordinate, whole run against each half); barrier crossings (summary table, dwell times).
 Each figure has a caption saying what was computed with which settings, and every page carries the
-reminder that these diagnostics are heuristics (:data:`phasewake.core.verdicts.HEURISTIC_NOTE`).
+reminder that these diagnostics are heuristics (:data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`).
 
 An analysis that cannot run on the data (no velocities, too short, no transitions, module not
 present) gives a page that says so and why, never an invented figure.
@@ -30,11 +30,9 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core import __version__
-from phasewake.core.atomic import write_bytes, write_text
-from phasewake.core.cache import ResultCache
-from phasewake.core.cached import cached_audit, cached_coordinates, cached_pca
+from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
-from phasewake.core.export import (
+from phasewake.core.figures.export import (
     Preset,
     _check_writable,
     _metadata,
@@ -44,14 +42,16 @@ from phasewake.core.export import (
     provenance_json,
     provenance_of_run,
 )
-from phasewake.core.figures import LEVEL_STYLE, FigureSpec, PlotSpec
+from phasewake.core.figures.spec import LEVEL_STYLE, FigureSpec, PlotSpec
 from phasewake.core.progress import Progress, Work
-from phasewake.core.verdicts import HEURISTIC_NOTE
+from phasewake.core.store.atomic import write_bytes, write_text
+from phasewake.core.store.cache import ResultCache
+from phasewake.core.store.cached import cached_audit, cached_coordinates, cached_pca
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
 # A4 landscape: a printed handout and a projected page both read well at this size.
 PAGE_CM = (29.7, 21.0)
@@ -101,7 +101,7 @@ class ReportResult:
     verdict_levels: tuple[str, ...]
     settings: dict[str, Any] = field(default_factory=dict)
     figures: tuple[FigureSpec, ...] = ()  # every figure drawn in the report (to export one on its own)
-    verdicts: tuple[Any, ...] = ()  # phasewake.core.verdicts.Verdict of the audit and crossings
+    verdicts: tuple[Any, ...] = ()  # phasewake.core.analyses.verdicts.Verdict of the audit and crossings
     audit: Any = None  # the AuditResult, when the audit ran
 
 
@@ -195,7 +195,7 @@ def build_report(
     # 1. audit ------------------------------------------------------------------------------------
     yield Progress(0, total, "auditing energies and temperature")
     audit = None
-    audit_mod = _optional("phasewake.core.audit")
+    audit_mod = _optional("phasewake.core.analyses.audit")
     if audit_mod is None:
         audit_reason = "the audit module is not part of this build"
     else:
@@ -211,7 +211,7 @@ def build_report(
     yield Progress(1, total, "computing the coordinate")
     series = None
     coord_reason = ""
-    coords_mod = _optional("phasewake.core.coordinates")
+    coords_mod = _optional("phasewake.core.analyses.coordinates")
     if coords_mod is None:
         coord_reason = "the coordinate module is not part of this build"
     elif run.frames is None:
@@ -234,7 +234,7 @@ def build_report(
     yield Progress(2, total, "finding barrier crossings")
     crossings = None
     cross_reason = coord_reason
-    cross_mod = _optional("phasewake.core.crossings")
+    cross_mod = _optional("phasewake.core.analyses.crossings")
     if series is not None:
         if cross_mod is None:
             cross_reason = "the crossings module is not part of this build"
@@ -252,7 +252,7 @@ def build_report(
             except PhasewakeError as exc:
                 cross_reason = f"crossings could not be analysed: {exc}"
 
-    from phasewake.core import plots
+    from phasewake.core.figures import plots
 
     # pages ---------------------------------------------------------------------------------------
     # sampling numbers of the coordinate (their verdicts go into the table) ----------------------
@@ -388,7 +388,7 @@ def _crossing_kwargs(mod: Any, states: tuple[float, float] | None, surface: floa
 
 
 def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mapping[str, Any]) -> ReportPage:
-    from phasewake.core import plots
+    from phasewake.core.figures import plots
 
     lines = [f"Run: {run.name}", f"Files: {', '.join(str(p) for p in run.paths) or '(in memory)'}",
              f"{run.n_atoms} atoms, {run.n_frames} frames"
@@ -435,10 +435,10 @@ def _summary_page(run: Run, verdicts: Sequence[Any], audit: Any, settings: Mappi
 
 
 def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
-    corr = _optional("phasewake.core.correlation")
+    corr = _optional("phasewake.core.analyses.correlation")
     if corr is None:
         return None
-    from phasewake.core import plots
+    from phasewake.core.figures import plots
 
     candidates: list[tuple[str, np.ndarray, float, str]] = []
     if series is not None and series.values.size > 20:
@@ -472,8 +472,8 @@ def _correlation_page(run: Run, audit: Any, series: Any) -> ReportPage | None:
 
 def _explained(page: ReportPage) -> ReportPage:
     """The page with the explanation of its figure's numbers appended to its caption: the words of the
-    window's tooltips (``phasewake.core.explain``)."""
-    from phasewake.core import explain
+    window's tooltips (``phasewake.core.analyses.explain``)."""
+    from phasewake.core.analyses import explain
 
     if page.figure is None:
         return page
@@ -492,8 +492,8 @@ PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route
 
 def _report_coordinate(run: Run, coordinate: str | None) -> tuple[str | None, str]:
     """The report's coordinate and why: the one given (reason ""), else the automatic choice of
-    :func:`phasewake.core.coordinate_choice.choose_coordinate` with its reason (spec None for a pure liquid)."""
-    chooser = _optional("phasewake.core.coordinate_choice")
+    :func:`phasewake.core.analyses.coordinate_choice.choose_coordinate` with its reason (spec None for a pure liquid)."""
+    chooser = _optional("phasewake.core.analyses.coordinate_choice")
     if coordinate is not None or chooser is None or run.frames is None:
         return coordinate, ""
     try:
@@ -505,8 +505,8 @@ def _report_coordinate(run: Run, coordinate: str | None) -> tuple[str | None, st
 
 def _pca_request(run: Run) -> dict[str, Any] | None:
     """The principal-components settings of the report (solute atoms; exact route when small), or None."""
-    coords = _optional("phasewake.core.coordinates")
-    if coords is None or run.frames is None or _optional("phasewake.core.projection") is None:
+    coords = _optional("phasewake.core.analyses.coordinates")
+    if coords is None or run.frames is None or _optional("phasewake.core.analyses.projection") is None:
         return None
     group = coords.solute_atoms(run.topology, run.n_atoms)
     if group is None or np.asarray(group).size < 3:  # 2 atoms: one distance, no PCA
@@ -519,15 +519,15 @@ def _shared_pass(run: Run, spec: str | None, audit_kw: Mapping[str, Any],
                  cache: ResultCache | None) -> Generator[Progress, None, dict[str, Any]]:
     """The audit, the coordinate and the principal components from one read of the frames (each looked up in
     the result cache first: ``cached.cached_pass``). Analyses that cannot share it are left to run alone."""
-    from phasewake.core import cached as cached_mod
+    from phasewake.core.store import cached as cached_mod
 
     if run.frames is None:
         return {}
     items: dict[str, Any] = {}
     try:
-        if _optional("phasewake.core.audit") is not None:
+        if _optional("phasewake.core.analyses.audit") is not None:
             items["audit"] = cached_mod.audit_item(run, **audit_kw)
-        if spec is not None and _optional("phasewake.core.coordinates") is not None:
+        if spec is not None and _optional("phasewake.core.analyses.coordinates") is not None:
             items["coordinate"] = cached_mod.coordinates_item(run, [spec])
         pca_kw = _pca_request(run)
         if pca_kw is not None:
@@ -552,12 +552,12 @@ def _or_alone(shared: Mapping[str, Any], name: str, alone: Any) -> Generator[Pro
 def _phase_page(run: Run, series: Any, base: float, total: float, *, cache: ResultCache | None = None,
                 shared: Mapping[str, Any] | None = None) -> Generator[Progress, None, ReportPage | str]:
     """Density of the coordinate in the (q, p) plane and the principal components of the solute."""
-    from phasewake.core import plots
+    from phasewake.core.figures import plots
 
     yield Progress(base, total, "phase-space density")
     figs: list[FigureSpec] = []
     reasons: list[str] = []
-    land = _optional("phasewake.core.landscape")
+    land = _optional("phasewake.core.analyses.landscape")
     if series is None:
         reasons.append("no coordinate")
     elif land is None:
@@ -574,8 +574,8 @@ def _phase_page(run: Run, series: Any, base: float, total: float, *, cache: Resu
                 figs.append(plots.phase_density_figure(series, h))
             except PhasewakeError as exc:
                 reasons.append(f"the density could not be computed: {exc}")
-    proj = _optional("phasewake.core.projection")
-    coords = _optional("phasewake.core.coordinates")
+    proj = _optional("phasewake.core.analyses.projection")
+    coords = _optional("phasewake.core.analyses.coordinates")
     group = None if coords is None or run.frames is None else coords.solute_atoms(run.topology, run.n_atoms)
     if proj is not None and group is not None and np.asarray(group).size >= 3:  # 2 atoms: one distance, no PCA
         try:
@@ -601,7 +601,7 @@ def _phase_page(run: Run, series: Any, base: float, total: float, *, cache: Resu
 
 def _sampling_numbers(series: Any) -> dict[str, Any]:
     """Running average, half-against-half divergence and segment R-hat of the coordinate, with verdicts."""
-    samp = _optional("phasewake.core.sampling")
+    samp = _optional("phasewake.core.analyses.sampling")
     out: dict[str, Any] = {"verdicts": []}
     if samp is None or series is None:
         return out
@@ -611,7 +611,7 @@ def _sampling_numbers(series: Any) -> dict[str, Any]:
         return out
     dt = float(np.median(np.diff(series.time_ps)))
     name = series.label
-    corr = _optional("phasewake.core.correlation")
+    corr = _optional("phasewake.core.analyses.correlation")
     if corr is not None and hasattr(corr, "judge_estimators"):
         try:  # the estimators of g compared (an oscillating coordinate closes Sokal's window early)
             est = corr.judge_estimators(corr.analyse_series(q, dt_ps=dt, unit=series.unit), name=name)
@@ -648,13 +648,13 @@ def _sampling_numbers(series: Any) -> dict[str, Any]:
 def _sampling_page(series: Any, temperature_K: float, crossings: Any,
                    sampling: Mapping[str, Any] | None = None) -> ReportPage | str:
     """Free-energy profile of the coordinate over the whole run and over each half (a sampling check)."""
-    land = _optional("phasewake.core.landscape")
+    land = _optional("phasewake.core.analyses.landscape")
     if land is None:
         return "the landscape module is not part of this build"
     if series is None:
         return "no coordinate"
-    from phasewake.core import plots
-    from phasewake.core.figures import Line, Style, series_style
+    from phasewake.core.figures import plots
+    from phasewake.core.figures.spec import Line, Style, series_style
 
     q = np.asarray(series.values, float)
     q = q[np.isfinite(q)]

@@ -1,7 +1,7 @@
 """Rate statistics for barrier crossings: counts over exposure, exact intervals, dwell-time tests, TST.
 
 Pure functions on small arrays (event counts, dwell times, a coordinate's samples). The event finding
-itself lives in :mod:`phasewake.core.crossings`.
+itself lives in :mod:`phasewake.core.analyses.crossings`.
 
 Units: times in ps, rates in 1/ps, the coordinate in whatever unit it carries (``unit``).
 """

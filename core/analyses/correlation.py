@@ -38,7 +38,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from phasewake.core import verdicts
+from phasewake.core.analyses import verdicts
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 

@@ -44,9 +44,9 @@ from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import iter_frame_chunks
 
 if TYPE_CHECKING:
-    from phasewake.core.run import Run
+    from phasewake.core.model.run import Run
 
-from phasewake.core.verdicts import Explanation, Threshold, register  # noqa: E402
+from phasewake.core.analyses.verdicts import Explanation, Threshold, register  # noqa: E402
 
 register(
     Threshold("transport.vacf_resolution", caution=3.0, problem=2.0, unit="frames per decay",
@@ -762,7 +762,7 @@ def green_kubo(result: VACFResult, *, group: int | str = 0, limit_ps: float | No
 
 
 def _threshold(kind: str) -> Threshold:
-    from phasewake.core.verdicts import THRESHOLDS
+    from phasewake.core.analyses.verdicts import THRESHOLDS
 
     return THRESHOLDS[kind]
 
@@ -809,7 +809,7 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
     """
     import dataclasses
 
-    from phasewake.core.verdicts import judge
+    from phasewake.core.analyses.verdicts import judge
 
     if vacf_result is not None and not vacf_result.mass_weighted:
         res = vacf_result  # the same run, groups and frames, computed already (not re-read)
@@ -878,7 +878,7 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
                           unit="combined standard errors", message=words + f" ({z:.1f} combined standard errors)",
                           advice=_explanation("transport.gk_msd_agreement"))
             else:
-                from phasewake.core.verdicts import THRESHOLDS, Verdict
+                from phasewake.core.analyses.verdicts import THRESHOLDS, Verdict
 
                 v = Verdict("transport.gk_msd_agreement", "info", f"Green-Kubo vs MSD ({g.group})", None, "",
                             words + " (no error bars: too few frames for blocks)",
@@ -895,7 +895,7 @@ def _pm(value: float, error: float | None) -> str:
 
 
 def _explanation(kind: str) -> str:
-    from phasewake.core.verdicts import EXPLANATIONS
+    from phasewake.core.analyses.verdicts import EXPLANATIONS
 
     return EXPLANATIONS[kind].advice
 
@@ -932,7 +932,7 @@ class _Unwrapper:
         self.acc: np.ndarray | None = None  # unwrapped displacement of the last frame seen
 
     def __call__(self, pos: np.ndarray, box: np.ndarray | None) -> np.ndarray:
-        from phasewake.core.coordinates import minimum_image
+        from phasewake.core.analyses.coordinates import minimum_image
 
         p = np.asarray(pos, dtype=np.float64)
         if self.last is None:
@@ -1229,7 +1229,7 @@ def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray |
 
 def _expected_motions(run: Run, idx: np.ndarray) -> tuple[Any, ...]:
     """Fast motions the topology and masses of the atoms used imply (timestep.expected_fast_motions)."""
-    from phasewake.core.timestep import expected_fast_motions
+    from phasewake.core.analyses.timestep import expected_fast_motions
 
     md = run.metadata
     top = run.topology
@@ -1244,13 +1244,13 @@ def judge_peaks(result: VDOSResult, expected: Sequence[Any] = ()) -> VDOSResult:
 
     A peak is only a motion when the frames resolve it: peaks in the top 20% below the Nyquist limit may
     be aliases of faster motions, and when a fast motion expected from the topology and masses
-    (:func:`phasewake.core.timestep.expected_fast_motions`) lies beyond what the frames show, peaks where
+    (:func:`phasewake.core.analyses.timestep.expected_fast_motions`) lies beyond what the frames show, peaks where
     its band folds to (Nyquist-Shannon) may be its aliases. ``highest_significant_peak_cm1`` then counts
     motions only, and a note says in words what cannot be seen.
     """
     import dataclasses
 
-    from phasewake.core.timestep import HXH_BEND_CM, alias_band, unresolved_motions
+    from phasewake.core.analyses.timestep import HXH_BEND_CM, alias_band, unresolved_motions
 
     dt = result.dt_ps
     ny = result.nyquist_cm1

@@ -1,0 +1,1 @@
+"""phasewake for notebooks and scripts (installed as the top-level package ``phasewake``)."""

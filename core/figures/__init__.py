@@ -1,0 +1,1 @@
+"""Figures: FigureSpec, builders from results, matplotlib export and the report."""

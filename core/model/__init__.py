@@ -1,0 +1,1 @@
+"""The run model: a Run, its frame sources and the one frame-pass engine."""

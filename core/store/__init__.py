@@ -1,0 +1,1 @@
+"""What phasewake writes: atomic writes, the result cache and its codec, JSON values."""
