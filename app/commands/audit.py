@@ -151,25 +151,24 @@ def parse_groups(texts: list[str] | None, topology: Any, n_atoms: int) -> dict[s
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.core.analyses.audit import audit_summary
+    from phasewake.core.analyses.audit import AuditRequest, audit_summary
     from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
     from phasewake.core.readers import open_run
     from phasewake.core.store.cache import ResultCache
-    from phasewake.core.store.cached import cached_audit
+    from phasewake.core.store.cached import requested
 
     the_run = open_run_from_args(args)
     other = None
     if args.compare:
         with quiet_stdout():
             other = open_run(args.compare, topology=args.top, **reader_options(args))
-    timestep_ps = None if args.timestep is None else args.timestep * 1e-3
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
-    work = cached_audit(the_run, n_constraints=args.constraints, timestep_ps=timestep_ps,
-                        temperature_K=args.temperature, require_temperature=False,
-                        groups=groups or None, compare=other,
-                        compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3,
-                        cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
-    result = run_with_progress(work, "audit")
+    request = AuditRequest(n_constraints=args.constraints,
+                           timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
+                           temperature_K=args.temperature, groups=groups or None, compare=other,
+                           compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3)
+    work = requested(the_run, request, cache=ResultCache(enabled=False) if args.no_cache else None)
+    result = run_with_progress(work, request.label)
     if args.json:
         summary = audit_summary(result)
         if args.explain:

@@ -20,8 +20,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, replace
-from typing import Any
+from dataclasses import dataclass, field, fields, replace
+from typing import Any, ClassVar
 
 import numpy as np
 
@@ -29,6 +29,7 @@ from phasewake.core.analyses import energy as en
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.analyses.correlation import one_blas_thread
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import (
     EXPLANATIONS,
     HEURISTIC_NOTE,
@@ -425,6 +426,12 @@ class AuditFrames:
     settings: dict[str, Any] = field(default_factory=dict)
 
 
+def _reads_velocities(run: Run) -> bool:
+    """Whether the audit reads the run's velocities: it has them and every atom's mass is known."""
+    m = run.masses_amu
+    return bool(run.has_velocities and run.n_atoms and np.all(np.isfinite(m)) and np.all(m > 0))
+
+
 def _needs_com(run: Run, thermostatted: bool) -> bool:
     """Whether the audit decides the removed centre-of-mass motion from the frames (see ``audit_run``)."""
     return thermostatted and run.metadata.com_motion_removed is None
@@ -735,10 +742,9 @@ def audit_run(
     thermostatted, ensemble = decision.thermostatted, decision.label
     verdicts: list[Verdict] = []
     table: EnergyTable | None = run.energies if run.energies is not None and len(run.energies) else None
-    has_vel = run.has_velocities
+    has_vel = _reads_velocities(run)
     notes: list[str] = []
-    if has_vel and not (run.n_atoms and np.all(np.isfinite(run.masses_amu)) and np.all(run.masses_amu > 0)):
-        has_vel = False
+    if run.has_velocities and not has_vel:
         notes.append("Atom masses are unknown: nothing per atom (temperature from velocities, spectrum) was computed.")
     if table is None and not has_vel:
         notes.append("Nothing to audit: the run has neither an energy table nor velocities.")
@@ -1546,3 +1552,86 @@ def audit_summary(result: AuditResult) -> dict[str, Any]:
     d["units"] = {"time": "ps", "energy": "kJ/mol", "temperature": "K", "frequency": "1/ps",
                   "wavenumber": "cm^-1", "drift": "kJ/mol/ns (kT/DOF/ns where named)"}
     return d  # type: ignore[no-any-return]
+
+
+# ---------------------------------------------------------------------------------------------------
+# The audit as an analysis request: the one road of the command line, the window, the report and the API
+# ---------------------------------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class AuditRequest(AnalysisRequest):
+    """The audit of a run with every setting a user can give; defaults are decided here.
+
+    The ensemble, thermostat and constraint facts of the files, and a user's ``--ensemble``, stay on the
+    run's metadata (the run's fingerprint is part of the cache key); the fields below are the audit's own
+    settings (those of :func:`audit_run`). Build it with keywords, hand it to
+    :func:`phasewake.core.store.cached.requested`.
+
+    Parameters
+    ----------
+    n_constraints : int, optional
+        Holonomic constraints (overrides the files and inference; labelled "user (--constraints)").
+    timestep_ps : float, optional
+        Integration time step, ps (overrides the files; labelled "user (--timestep)").
+    temperature_K : float, optional
+        Thermostat target temperature, K (also given to the comparison run).
+    groups : mapping name -> atom indices, optional
+        Equipartition groups added to the residue-name groups (stored as tuples of ints).
+    require_temperature : bool
+        Raise MissingDataError when no kinetic temperature can be had (instead of skipping).
+    compare : Run, optional
+        A second run of the same system at another time step (the dt^2 scaling check).
+    compare_timestep_ps : float, optional
+        Time step of ``compare``, ps, when its files do not say.
+    chunk_frames : int
+        Frames per chunk read.
+    segment_frames : int
+        Frames per velocity-spectrum segment.
+    max_spectrum_segments : int or None
+        At most this many spectrum segments (None: all).
+
+    Examples
+    --------
+    >>> from phasewake.core.analyses.audit import AuditRequest
+    >>> AuditRequest(groups={"solute": [1, 0]}).groups
+    {'solute': (1, 0)}
+    """
+
+    name: ClassVar[str] = "audit"
+    label: ClassVar[str] = "audit"
+
+    n_constraints: int | None = None
+    timestep_ps: float | None = None
+    temperature_K: float | None = None
+    groups: Mapping[str, Sequence[int]] | None = field(default=None, hash=False)
+    require_temperature: bool = False
+    compare: Run | None = field(default=None, hash=False)
+    compare_timestep_ps: float | None = None
+    chunk_frames: int = DEFAULT_CHUNK_FRAMES
+    segment_frames: int = 256
+    max_spectrum_segments: int | None = 64
+
+    def __post_init__(self) -> None:
+        if self.groups is not None:  # equal requests compare equal whatever sequence type the indices came in
+            object.__setattr__(self, "groups", {str(k): tuple(int(i) for i in np.asarray(v).reshape(-1))
+                                                for k, v in self.groups.items()} or None)
+
+    def _keywords(self) -> dict[str, Any]:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+    def work(self, run: Run) -> Work[AuditResult]:
+        return (yield from audit_run(run, **self._keywords()))
+
+    def consumer(self, run: Run) -> AuditFramesConsumer | None:
+        """The audit's frame part for a shared pass over all frames; None when the audit reads no velocities
+        (an energy table only, unknown masses): then :meth:`work` does it all."""
+        if not _reads_velocities(run):
+            return None
+        return AuditFramesConsumer.for_run(run, n_constraints=self.n_constraints, groups=self.groups,
+                                           segment_frames=self.segment_frames,
+                                           max_spectrum_segments=self.max_spectrum_segments,
+                                           temperature_K=self.temperature_K)
+
+    def after_pass(self, run: Run, finished: AuditFrames) -> Work[AuditResult]:
+        """The energy part, the judgement and any comparison run, from the frame part of a shared pass."""
+        return (yield from audit_run(run, frames=finished, **self._keywords()))

@@ -290,16 +290,10 @@ def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | N
 
 
 def cached_audit(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.analyses.audit.audit_run` through the result cache (same keywords and result).
+    """:class:`phasewake.core.analyses.audit.AuditRequest` of ``settings`` through :func:`requested`."""
+    from phasewake.core.analyses.audit import AuditRequest
 
-    Every keyword of ``audit_run`` (``n_constraints``, ``timestep_ps``, ``temperature_K``, ``groups``,
-    ``require_temperature``, ``compare`` (a Run: its own files join the key), ``compare_timestep_ps``,
-    ``chunk_frames``, ``segment_frames``, ``max_spectrum_segments``) is part of the key.
-    """
-    from phasewake.core.analyses.audit import audit_run
-
-    return (yield from cached_work(run, "audit", _with_defaults(audit_run, settings),
-                                   audit_run(run, **settings), cache=cache))
+    return (yield from requested(run, AuditRequest(**settings), cache=cache))
 
 
 def cached_pca(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
@@ -486,16 +480,19 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
 
 
 def audit_item(run: Run, **settings: Any) -> PassItem:
-    """The audit as a :class:`PassItem` (the key of :func:`cached_audit` with the same keywords)."""
-    from phasewake.core.analyses.audit import AuditFramesConsumer, audit_run
+    """The audit as a :class:`PassItem` (the key of :class:`~phasewake.core.analyses.audit.AuditRequest`)."""
+    from phasewake.core.analyses.audit import AuditRequest
+    from phasewake.core.errors import MissingDataError
+
+    request = AuditRequest(**settings)
 
     def consumer() -> Any:
-        return AuditFramesConsumer.for_run(run, **{k: settings[k] for k in
-                                                   ("n_constraints", "groups", "segment_frames",
-                                                    "max_spectrum_segments", "temperature_K") if k in settings})
+        made = request.consumer(run)
+        if made is None:
+            raise MissingDataError("the audit reads no frames of this run", path=run.paths[0] if run.paths else None)
+        return made
 
-    return PassItem("audit", _with_defaults(audit_run, settings), consumer,
-                    then=lambda frames: audit_run(run, frames=frames, **settings))
+    return PassItem(request.name, request.settings(), consumer, then=lambda frames: request.after_pass(run, frames))
 
 
 def coordinates_settings(run: Run, specs: Sequence[str], *, start: int = 0, stop: int | None = None,

@@ -153,3 +153,26 @@ def test_frame_pass_builder_carries_the_audit_with_the_pca_and_vacf():
     alone = drive(compute_pca(run, atom_indices=np.arange(6), n_components=2, projections=False))
     np.testing.assert_array_equal(got["pca"].eigenvalues, alone.eigenvalues)
     np.testing.assert_allclose(got["v"].vacf, drive(vacf(run, max_lag_ps=0.02)).vacf, rtol=1e-10)
+
+
+def test_audit_request_consumer_then_after_pass_equals_its_work():
+    """AuditRequest joins a shared pass with its consumer; after_pass gives what work() gives alone (reference:
+    the request's own work, which reads the frames itself)."""
+    from phasewake.core.analyses.audit import AuditRequest
+
+    run, counter = _counting(_water_ions())
+    request = AuditRequest(groups={"ions": range(180, 200)}, chunk_frames=64)
+    assert request == AuditRequest(groups={"ions": np.arange(180, 200)}, chunk_frames=64)  # indices as tuples
+    consumer = request.consumer(run)
+    assert consumer is not None
+    fr = drive(run_pass(run, {"audit": consumer, "q": CoordinatesConsumer(run, ["distance(0, 1)"])},
+                        chunk_frames=request.chunk_frames))["audit"]
+    shared = drive(request.after_pass(run, fr))
+    assert counter.calls == 1
+    alone = drive(request.work(run))
+    assert counter.calls == 2
+    assert audit_summary(shared) == audit_summary(alone)
+    assert [g.name for g in alone.temperature.groups].count("ions") == 1
+    # an energy table alone: the audit joins no pass and its work reads no frames
+    no_velocities = dataclasses.replace(run, frames=None)
+    assert AuditRequest().consumer(no_velocities) is None
