@@ -42,6 +42,12 @@ from phasewake.core.model.run import (
     budget_chunk_frames,
 )
 from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
+from phasewake.core.readers.xdr import (  # noqa: F401 - _check_xdr_complete and trr_velocity_frames: names kept here
+    _check_xdr_complete,
+    _trr_header,
+    frame_index,
+    trr_velocity_frames,
+)
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -187,6 +193,29 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
         raise
 
 
+def topologies_for(paths: Sequence[str | Path]) -> dict[tuple[str, int, int], mdtraj.Topology]:
+    """The parsed topologies kept for these files (unchanged since): handed to worker processes
+    (:func:`seed_topologies`) so they need not parse a large PDB again."""
+    want = set()
+    for path in paths:
+        try:
+            p = Path(path)
+            st = p.stat()
+        except OSError:
+            continue
+        want.add((str(p.resolve()), st.st_size, st.st_mtime_ns))
+    return {k: v for k, v in _TOPOLOGY_CACHE.items() if k in want}
+
+
+def seed_topologies(found: dict[tuple[str, int, int], mdtraj.Topology]) -> None:
+    """Keep topologies parsed by another process (keyed by path, size and modification time, so a file
+    changed since is parsed afresh)."""
+    for key, top in found.items():
+        if len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
+            _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
+        _TOPOLOGY_CACHE[key] = top
+
+
 def _close_files_of(exc: BaseException) -> None:
     """Close the file a reader object opened when its constructor failed (mdtraj's GRO reader opens the
     file, then raises from ``__init__`` without closing it: the handle would leak)."""
@@ -254,62 +283,6 @@ def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
     return (istart + np.arange(n_frames) * nsavc) * float(delta) * _AKMA_PS
 
 
-def _xdr_times(path: Path, offsets: np.ndarray, kind: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(time_ps, step, has_velocities) of each XTC/TRR frame from its header at ``offsets``.
-
-    One pass over the headers (a seek and a few bytes a frame); XTC frames never hold velocities.
-    """
-    times = np.empty(offsets.size)
-    steps = np.empty(offsets.size, dtype=np.int64)
-    has_v = np.zeros(offsets.size, dtype=bool)
-    with open(path, "rb") as f:
-        for i, off in enumerate(offsets):
-            f.seek(int(off))
-            if kind == ".xtc":
-                _magic, _natoms, step, t = struct.unpack(">iiif", f.read(16))
-                times[i], steps[i] = t, step
-            else:
-                h = _trr_header(f, path)
-                times[i], steps[i], has_v[i] = h["time"], h["step"], h["v"] > 0
-    return times, steps, has_v
-
-
-def _trr_header(f: Any, path: Path) -> dict[str, Any]:
-    """Parse one TRR frame header (XDR, big-endian) at the current position (GROMACS trr layout)."""
-    raw = f.read(8)
-    if len(raw) < 8:
-        raise CorruptFileError("TRR frame header is cut short", path=path)
-    magic, _slen = struct.unpack(">ii", raw)
-    if magic != 1993:
-        raise CorruptFileError(f"bad TRR frame magic {magic}", path=path)
-    (strlen,) = struct.unpack(">i", f.read(4))
-    f.read((strlen + 3) // 4 * 4)
-    fields = struct.unpack(">13i", f.read(52))
-    names = ("ir", "e", "box", "vir", "pres", "top", "sym", "x", "v", "f", "natoms", "step", "nre")
-    h = dict(zip(names, fields))
-    natoms = h["natoms"]
-    size = 4
-    for key, count in (("box", 9), ("x", 3 * natoms), ("v", 3 * natoms), ("f", 3 * natoms)):
-        if h[key]:
-            size = h[key] // count
-            break
-    fmt = ">ff" if size == 4 else ">dd"
-    h["time"], h["lambda"] = struct.unpack(fmt, f.read(2 * size))
-    h["real_size"] = size
-    return h
-
-
-def trr_velocity_frames(path: str | Path, offsets: np.ndarray) -> np.ndarray:
-    """For each TRR frame, whether its header says velocities follow (v_size > 0)."""
-    p = Path(path)
-    out = np.zeros(offsets.size, dtype=bool)
-    with open(p, "rb") as f:
-        for i, off in enumerate(offsets):
-            f.seek(int(off))
-            out[i] = _trr_header(f, p)["v"] > 0
-    return out
-
-
 # ------------------------------------------------------------------------------ frame source
 
 
@@ -333,6 +306,7 @@ class MdtrajFrames(ChunkedFrames):
         self._vfactor = velocity_factor
         self.has_velocities = velocity_kind is not None
         self.velocities_estimated = False
+        self.offsets: np.ndarray | None = None  # XTC/TRR: byte offset of each frame (readers.xdr)
 
     def retime(self, time_ps: np.ndarray) -> None:
         """Use another clock for the frames (a table with one row per frame, for formats without time)."""
@@ -454,13 +428,10 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
         _check_dcd_size(path, n, top.n_atoms)
         return n, _dcd_time(path, n), True, info
     if suf in (".xtc", ".trr"):
-        cls = md.formats.XTCTrajectoryFile if suf == ".xtc" else md.formats.TRRTrajectoryFile
-        with _quiet_mdtraj(), cls(str(path)) as f:
-            n = len(f)
-            offsets = np.asarray(f.offsets, dtype=np.int64)
-        _check_xdr_complete(path, offsets, suf)
-        t_xdr, step, has_v = _xdr_times(path, offsets, suf)
+        index = frame_index(path, suf)  # kept in the result cache: a second open does not walk the file
+        n, t_xdr, step, has_v = index.n_frames, index.time_ps, index.step, index.has_velocities
         info["step"] = step
+        info["offsets"] = index.offsets
         if suf == ".trr":
             info["trr_velocity_frames"] = int(has_v.sum())
             if has_v.all():
@@ -543,34 +514,6 @@ def _check_dcd_size(path: Path, n: int, n_atoms: int) -> None:
             path=path)
 
 
-def _check_xdr_complete(path: Path, offsets: np.ndarray, kind: str) -> None:
-    """The last XTC/TRR frame must end where the file ends; mdtraj silently drops a cut last frame."""
-    size = path.stat().st_size
-    if offsets.size == 0:
-        raise CorruptFileError(f"{kind[1:].upper()} file holds no complete frame (truncated?)", path=path)
-    off = int(offsets[-1])
-    with open(path, "rb") as f:
-        f.seek(off)
-        if kind == ".xtc":
-            head = f.read(92)
-            if len(head) < 56:
-                end = size + 1
-            else:
-                natoms = struct.unpack(">i", head[4:8])[0]
-                if natoms <= 9:
-                    end = off + 56 + 12 * natoms
-                else:
-                    nbytes = struct.unpack(">i", head[88:92])[0]
-                    end = off + 92 + (nbytes + 3) // 4 * 4
-        else:
-            h = _trr_header(f, path)
-            body = sum(h[k] for k in ("ir", "e", "box", "vir", "pres", "top", "sym", "x", "v", "f"))
-            end = f.tell() + body
-    if end != size:
-        raise CorruptFileError(f"{kind[1:].upper()} file has {size - end} bytes after its last whole frame "
-                               f"(frame {offsets.size}): truncated or damaged", path=path)
-
-
 def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
     """A Run over a trajectory read by mdtraj (and a topology file)."""
     suf = _suffix(path)
@@ -627,6 +570,7 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
         md_meta.sources["masses"] = "element masses of the topology"
     frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
                           velocity_kind=info.get("velocity_kind"), velocity_factor=info.get("velocity_factor", 1.0))
+    frames.offsets = info.get("offsets")
     md_meta.sources["positions"] = path.name
     step = dcd_header_timestep(path) if suf == ".dcd" else None
     if step is not None:  # the integration step, not the frame spacing
