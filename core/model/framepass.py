@@ -502,7 +502,7 @@ def feed(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, st
 
 
 def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0, stop: int | None = None,
-             chunk_frames: int | None = None) -> Work[dict[str, Any]]:
+             chunk_frames: int | None = None, workers: int | None = None) -> Work[dict[str, Any]]:
     """Read frames [start, stop) once and feed every chunk to every consumer.
 
     Parameters
@@ -516,6 +516,9 @@ def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0
     chunk_frames : int, optional
         Frames per chunk (default ``run.DEFAULT_CHUNK_FRAMES``); peak memory is about one chunk of the
         atoms read.
+    workers : int, optional
+        Worker processes reading frame ranges (``phasewake.core.model.parallel``); default: the
+        ``--workers`` setting, else automatic (several only for a large pass over XTC, TRR or DCD).
 
     Returns
     -------
@@ -524,6 +527,12 @@ def run_pass(run: Run, consumers: Mapping[str, ChunkConsumer], *, start: int = 0
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=_path(run))
     start_, stop_ = _frame_range(run, start, stop)
+    if workers != 1:
+        from phasewake.core.model import parallel
+
+        if parallel.parallel_wanted(run, consumers, start_, stop_, workers):
+            return (yield from parallel.ranges_pass(run, consumers, start=start_, stop=stop_,
+                                                    chunk_frames=chunk_frames, workers=workers))
     n_total = stop_ - start_
     label = "one pass: " + ", ".join(consumers)
     for done in feed(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames):
