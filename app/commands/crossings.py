@@ -57,7 +57,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="each FILE is a separate replica run; their events pool")
     parser.add_argument("--events", metavar="CSV", default=None,
                         help="write the table of every crossing to this CSV file")
-    parser.add_argument("--confidence", metavar="P", type=float, default=0.95,
+    parser.add_argument("--confidence", metavar="P", type=float, default=None,
                         help="coverage of the rate intervals (default 0.95)")
     parser.add_argument("--kappa-window", metavar="T1,T2", default=None,
                         help="lag window in ps over which the reactive-flux kappa(t) is averaged "
@@ -180,9 +180,10 @@ def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import quiet_stdout
+    from phasewake.core.analyses.crossings import CrossingsRequest
     from phasewake.core.readers import open_run
     from phasewake.core.store.cache import ResultCache
-    from phasewake.core.store.cached import cached_crossings_of_runs
+    from phasewake.core.store.cached import requested
 
     if args.events:
         from phasewake.app.common import check_output_path
@@ -191,7 +192,7 @@ def run(args: argparse.Namespace) -> int:
     states = None if args.states is None else _floats(args.states, 2, "--states")
     surface = None if args.surface is None else _floats(args.surface, 1, "--surface")[0]
     window = None if args.kappa_window is None else _floats(args.kappa_window, 2, "--kappa-window")
-    if not 0.0 < args.confidence < 1.0:
+    if args.confidence is not None and not 0.0 < args.confidence < 1.0:
         from phasewake.core.errors import AnalysisError
 
         raise AnalysisError(f"--confidence must lie between 0 and 1, got {args.confidence}")
@@ -204,10 +205,13 @@ def run(args: argparse.Namespace) -> int:
                 runs.append(open_run([f], topology=args.top, **run_overrides(args)))
     else:
         runs = [open_run_from_args(args)]
-    work = cached_crossings_of_runs(runs, args.coordinate, states=states, surface=surface,
-                                    confidence=args.confidence, kappa_window_ps=window,
-                                    temperature_K=args.temperature,
-                                    cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
+    # only what the user gave: every default (and the temperature, which --temperature set on the runs)
+    # is the request's own, so the window and the report build the same request for the same run
+    given = {k: v for k, v in (("states", states), ("surface", surface), ("confidence", args.confidence),
+                               ("kappa_window_ps", window)) if v is not None}
+    request = CrossingsRequest(coordinate=args.coordinate, replicas=tuple(runs[1:]), **given)
+    work = requested(runs[0], request,
+                     cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None)
     res = run_with_progress(work, "crossings")
     names = [r.name for r in runs]
     if args.events:

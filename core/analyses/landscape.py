@@ -445,12 +445,22 @@ def poincare_from_series(q1_series: Any, q2_series: Any, *, value: float = 0.0, 
                             direction=direction, q2_unit=q2_series.unit, p2_unit=unit)
 
 
+DISTANCE_FUNCTIONS = ("distance", "com_distance")  # coordinates that are a distance in 3D
+
+
+def jacobian_of(spec: str) -> str:
+    """The Jacobian of a coordinate's profile from its parsed specification: ``"distance"`` (4 pi r^2)
+    for a distance between two points in 3D, ``"none"`` for the others (angles, dihedrals, rmsd, pc)."""
+    from phasewake.core.analyses.coordspec import parse
+
+    return "distance" if parse(spec).function in DISTANCE_FUNCTIONS else "none"
+
+
 def free_energy_of_series(series: Any, *, temperature_K: float, jacobian: str = "auto", n_blocks: int = 10,
                           bins: int | np.ndarray | None = None, min_depth_kT: float = 1.0) -> FreeEnergyProfile:
     """Free-energy profile of a CoordinateSeries. ``jacobian="auto"`` applies the distance Jacobian
     -kT ln[P(r)/4 pi r^2] to ``distance`` and ``com_distance`` coordinates and none to the others."""
     if jacobian == "auto":
-        fn = series.spec.split("(", 1)[0].strip()
-        jacobian = "distance" if fn in ("distance", "com_distance") else "none"
+        jacobian = jacobian_of(series.spec)
     return free_energy_profile(series.values, temperature_K=temperature_K, jacobian=jacobian, n_blocks=n_blocks,
                                bins=bins, unit=series.unit, min_depth_kT=min_depth_kT)

@@ -35,8 +35,8 @@ class AnalysisRequest:
         """Every setting that changes the result (the cache key's part): all fields, by default."""
         return {f.name: getattr(self, f.name) for f in fields(self)}
 
-    def reference_paths(self) -> tuple[str, ...]:
-        """Files besides the run's own that the result depends on (e.g. an rmsd reference)."""
+    def reference_paths(self, run: Run) -> tuple[str, ...]:
+        """Files besides ``run``'s own that the result depends on (e.g. an rmsd reference)."""
         return ()
 
     def work(self, run: Run) -> Work[Any]:

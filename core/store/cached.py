@@ -246,11 +246,11 @@ def cached_work(run: Run, analysis: str, settings: Mapping[str, Any], work: Work
 def requested(run: Run, request: AnalysisRequest, *, cache: ResultCache | None = None) -> Work[Any]:
     """The result of ``request`` for ``run`` through the result cache: the one road of every front end.
 
-    The key comes from ``request.name``, ``request.settings()`` and ``request.reference_paths()``; the
+    The key comes from ``request.name``, ``request.settings()`` and ``request.reference_paths(run)``; the
     work from ``request.work(run)`` (see :mod:`phasewake.core.analyses.request`).
     """
     return (yield from cached_work(run, request.name, request.settings(), request.work(run), cache=cache,
-                                   extra_paths=request.reference_paths()))
+                                   extra_paths=request.reference_paths(run)))
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -318,29 +318,6 @@ def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: A
 
     return (yield from cached_work(run, "spectrum", _with_defaults(vibrational_spectrum, settings),
                                    vibrational_spectrum(run, **settings), cache=cache))
-
-
-def cached_crossings_of_runs(runs: Run | Sequence[Run], coordinate: str, *, cache: ResultCache | None = None,
-                             **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.analyses.crossings.crossings_of_runs` through the result cache.
-
-    The key is that of the first run, with every run's fingerprint, the coordinate and every keyword.
-    """
-    from phasewake.core.analyses.crossings import crossings_of_runs
-    from phasewake.core.errors import PhasewakeError
-    from phasewake.core.model.run import Run as _Run
-
-    all_runs = [runs] if isinstance(runs, _Run) else list(runs)
-    work = crossings_of_runs(runs, coordinate, **settings)
-    if not all_runs:
-        return (yield from work)
-    key_settings = _with_defaults(crossings_of_runs, settings)
-    key_settings.update({"coordinate": coordinate, "runs": all_runs})
-    try:
-        refs = _reference_paths(all_runs[0], [coordinate])
-    except (PhasewakeError, ValueError):  # a bad spec is reported by the analysis itself, uncached
-        return (yield from work)
-    return (yield from cached_work(all_runs[0], "crossings", key_settings, work, cache=cache, extra_paths=refs))
 
 
 def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:
