@@ -31,10 +31,9 @@ from phasewake.core.errors import UnitError
 
 # CODATA constants, by name (scipy.constants).
 AVOGADRO_PER_MOL = _sc.Avogadro  # N_A, exact since SI 2019
-BOLTZMANN_J_PER_K = _sc.Boltzmann  # k_B, exact since SI 2019
-MOLAR_GAS_CONSTANT_J_PER_MOL_K = _sc.R  # R = N_A k_B
-#: Molar Boltzmann constant in kJ mol^-1 K^-1 (R/1000): 0.00831446261815324.
-KB_KJ_PER_MOL_K: float = _sc.R / 1000.0
+#: The one Boltzmann constant of phasewake, molar, in kJ mol^-1 K^-1: k_B N_A / 1000 with the exact SI-2019
+#: values of CODATA 2018 (k_B = 1.380649e-23 J/K, N_A = 6.02214076e23 /mol) = 0.00831446261815324 (= R/1000).
+KB_KJ_PER_MOL_K: float = _sc.Boltzmann * _sc.Avogadro / 1000.0
 ELEMENTARY_CHARGE_C = _sc.elementary_charge
 ATOMIC_MASS_KG = _sc.atomic_mass  # dalton (unified atomic mass unit)
 HARTREE_J = _sc.physical_constants["Hartree energy"][0]

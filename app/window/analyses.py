@@ -21,6 +21,7 @@ from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
 from phasewake.core.progress import Progress
+from phasewake.core.units import KB_KJ_PER_MOL_K
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
 
@@ -104,8 +105,6 @@ def missing(what: str, module: str) -> PanelResult:
 
 
 # ---- helpers ----------------------------------------------------------------------------------
-
-KB_KJ_PER_MOL_K = 0.00831446261815324  # molar gas constant R/1000 (CODATA 2018, exact)
 
 
 class WindowFrames:

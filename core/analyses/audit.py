@@ -44,6 +44,7 @@ from phasewake.core.analyses.verdicts import (
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, EnergyTable, FrameChunk, Run
 from phasewake.core.progress import Progress, Work
+from phasewake.core.units import KB_KJ_PER_MOL_K
 
 register(None, Explanation(
     title="Degrees of freedom",
@@ -357,13 +358,13 @@ def _engine_dof(run: Run, table: EnergyTable | None, fp: AuditFrames | None,
         kv = np.asarray(fk.values, dtype=np.float64)
         ok = np.isfinite(kv) & np.isfinite(tv) & (tv > 0)
         if ok.sum() >= 1:
-            dof = 2.0 * float(kv[ok].mean()) / (en.boltzmann_kJ_per_mol_K() * float(tv[ok].mean()))
+            dof = 2.0 * float(kv[ok].mean()) / (KB_KJ_PER_MOL_K * float(tv[ok].mean()))
             return int(round(dof)), (f"2 <K> / (k_B <T>) of the file's columns '{fk.name}' and '{ft.name}'")
     if fp is not None and not _half_step(run)[0] and not (run.frames is not None and run.frames.velocities_estimated):
         fi, ti = _align(fp.time_ps, np.asarray(table.time_ps, dtype=np.float64))
         ok = np.isfinite(tv[ti]) & (tv[ti] > 0)
         if ok.sum() >= 1:
-            dof = 2.0 * float(fp.kinetic_kJ_per_mol[fi][ok].mean()) / (en.boltzmann_kJ_per_mol_K()
+            dof = 2.0 * float(fp.kinetic_kJ_per_mol[fi][ok].mean()) / (KB_KJ_PER_MOL_K
                                                                       * float(tv[ti][ok].mean()))
             return int(round(dof)), (f"2 <K> / (k_B <T>) of the velocities and the file's temperature column "
                                      f"'{ft.name}'")
@@ -1065,7 +1066,7 @@ def audit_run(
             k_mean = float(kv[ok].mean()) if ok.any() else math.nan
             t_mean = float(tv[ok].mean()) if ok.any() else math.nan
         if t_mean > 0:
-            dof_for_drift = int(round(2.0 * k_mean / (en.boltzmann_kJ_per_mol_K() * t_mean)))
+            dof_for_drift = int(round(2.0 * k_mean / (KB_KJ_PER_MOL_K * t_mean)))
             kT_ref = kT_ref if kT_ref is not None else t_mean
             notes.append(f"No atoms in the files: N_dof = {dof_for_drift} for the per-DOF drift comes from the "
                          "file's kinetic energy and temperature (2 <K> / (k_B <T>)).")

@@ -23,14 +23,7 @@ import numpy as np
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError, UnitError
 from phasewake.core.model.run import EnergyTable
-
-
-def boltzmann_kJ_per_mol_K() -> float:
-    """k_B in kJ/mol/K (the molar gas constant / 1000; CODATA via scipy.constants, see core.units)."""
-    from phasewake.core.units import KB_KJ_PER_MOL_K
-
-    return KB_KJ_PER_MOL_K
-
+from phasewake.core.units import KB_KJ_PER_MOL_K
 
 # ---------------------------------------------------------------------------------------------------
 # Thresholds (all common practice unless a source is named) and explanations
@@ -579,7 +572,7 @@ def drift_fit(
     per_dof = slope_ns / n_dof if n_dof else None
     kt_dof = None
     if n_dof and temperature_K:
-        kt_dof = slope_ns / (n_dof * boltzmann_kJ_per_mol_K() * temperature_K)
+        kt_dof = slope_ns / (n_dof * KB_KJ_PER_MOL_K * temperature_K)
     return DriftResult(
         slope_kJ_per_mol_per_ns=slope_ns,
         slope_error_kJ_per_mol_per_ns=se * 1e3,

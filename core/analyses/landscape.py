@@ -30,8 +30,6 @@ import numpy as np
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.units import KB_KJ_PER_MOL_K
 
-K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
-
 
 def auto_bins(values: np.ndarray, *, min_bins: int = 10, max_bins: int = 200,
               value_range: tuple[float, float] | None = None) -> np.ndarray:
@@ -265,7 +263,7 @@ def free_energy_profile(
         raise TooShortError("a free-energy profile", have=int(v.size), need=2 * n_blocks)
     if temperature_K is None or not temperature_K > 0:
         raise AnalysisError("a free-energy profile needs a temperature above 0 K")
-    kt = K_B_KJ_PER_MOL_K * float(temperature_K)
+    kt = KB_KJ_PER_MOL_K * float(temperature_K)
     hist = histogram_1d(v, bins=bins, value_range=value_range, unit=unit, max_bins=max_bins)
     edges, centers = hist.edges, hist.centers
     nbins = centers.size
@@ -352,7 +350,7 @@ def free_energy_surface(
     """2D free-energy surface with block errors; minima are bins lower than their 8 neighbours."""
     if temperature_K is None or not temperature_K > 0:
         raise AnalysisError("a free-energy surface needs a temperature above 0 K")
-    kt = K_B_KJ_PER_MOL_K * float(temperature_K)
+    kt = KB_KJ_PER_MOL_K * float(temperature_K)
     h = histogram_2d(x, y, bins=bins, value_range=value_range, x_unit=x_unit, y_unit=y_unit, max_bins=max_bins)
     with np.errstate(divide="ignore"):
         f = -kt * np.log(h.density)

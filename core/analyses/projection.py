@@ -69,7 +69,6 @@ from phasewake.core.units import KB_KJ_PER_MOL_K
 if TYPE_CHECKING:
     from phasewake.core.model.run import Run
 
-K_B_KJ_PER_MOL_K = KB_KJ_PER_MOL_K  # molar Boltzmann constant (CODATA, from phasewake.core.units)
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
 # Frames per block of the PCA's products: the d x d accumulation is paid once per block, so blocks are
 # longer than the reader's chunks; at most PCA_CHUNK_FRAMES frames and PCA_BLOCK_BYTES per block buffer.
@@ -160,7 +159,7 @@ def quasi_harmonic_frequencies(eigenvalues_amu_nm2: np.ndarray, temperature_K: f
     omega = sqrt(kT/lambda) with kT in kJ/mol = amu nm^2/ps^2 (Karplus and Kushick 1981).
     Divide by 2 pi c (c = 0.0299792458 cm/ps) for wavenumbers in cm^-1.
     """
-    kt = K_B_KJ_PER_MOL_K * float(temperature_K)
+    kt = KB_KJ_PER_MOL_K * float(temperature_K)
     return np.sqrt(kt / np.asarray(eigenvalues_amu_nm2, dtype=np.float64))
 
 

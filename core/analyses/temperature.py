@@ -17,9 +17,10 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.analyses.energy import boltzmann_kJ_per_mol_K, statistical_inefficiency_of
+from phasewake.core.analyses.energy import statistical_inefficiency_of
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError
+from phasewake.core.units import KB_KJ_PER_MOL_K
 
 register(
     Threshold("temperature.file_mismatch", caution=0.005, problem=0.02, unit="",
@@ -134,7 +135,7 @@ def kinetic_temperature(kinetic_kJ_per_mol: np.ndarray | float, n_dof: float) ->
 
     One multiplication by 2 / (N_dof k_B) (a single pass over long series; within 1 ulp of 2 K / (N_dof k_B)).
     """
-    return np.asarray(kinetic_kJ_per_mol, dtype=np.float64) * (2.0 / (n_dof * boltzmann_kJ_per_mol_K()))
+    return np.asarray(kinetic_kJ_per_mol, dtype=np.float64) * (2.0 / (n_dof * KB_KJ_PER_MOL_K))
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -540,7 +541,7 @@ def kinetic_energy_distribution_check(
     from scipy import stats
 
     k = np.asarray(kinetic_kJ_per_mol, dtype=np.float64)
-    kt = boltzmann_kJ_per_mol_K() * temperature_K
+    kt = KB_KJ_PER_MOL_K * temperature_K
     dist = stats.gamma(a=n_dof / 2.0, scale=kt)
     res = stats.kstest(k, dist.cdf)
     return DistributionCheck(name="kinetic energy", reference=f"gamma(a={n_dof / 2:g}, scale={kt:.6g} kJ/mol)",
@@ -559,7 +560,7 @@ def maxwell_speed_check(speeds_nm_per_ps: np.ndarray, mass_amu: float, temperatu
     from scipy import stats
 
     s = np.asarray(speeds_nm_per_ps, dtype=np.float64)
-    a = math.sqrt(boltzmann_kJ_per_mol_K() * temperature_K / mass_amu)
+    a = math.sqrt(KB_KJ_PER_MOL_K * temperature_K / mass_amu)
     dist = stats.maxwell(scale=a)
     res = stats.kstest(s, dist.cdf)
     return DistributionCheck(name=name, reference=f"maxwell(scale={a:.6g} nm/ps)", n_samples=int(s.size),

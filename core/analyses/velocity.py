@@ -88,7 +88,6 @@ register(
 
 SPEED_OF_LIGHT_CM_PER_S = 2.99792458e10  # exact (SI 2019)
 PS_PER_S = 1e12
-BOLTZMANN_KJ_PER_MOL_K = 0.00831446261815324  # N_A k_B, exact since SI 2019
 YEH_HUMMER_XI = 2.837297  # Yeh & Hummer (2004), cubic box
 NM2_PER_PS_TO_CM2_PER_S = 1e-2
 

@@ -136,14 +136,6 @@ def test_private_sokal_estimator_matches_ar1_g():
         assert g == pytest.approx((1 + phi) / (1 - phi), rel=0.2 if phi == 0.9 else 0.07)
 
 
-def test_boltzmann_constant_is_codata_2018():
-    # CODATA 2018 / SI 2019 exact: k_B N_A = 8.31446261815324 J/mol/K; also scipy.constants.R.
-    import scipy.constants as sc
-
-    assert en.boltzmann_kJ_per_mol_K() == pytest.approx(0.00831446261815324, rel=1e-15)
-    assert en.boltzmann_kJ_per_mol_K() == pytest.approx(sc.R / 1000.0, rel=1e-15)
-
-
 # --- Events -----------------------------------------------------------------------------------------
 
 
