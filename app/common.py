@@ -18,7 +18,7 @@ from phasewake.core.store.jsonable import to_jsonable
 T = TypeVar("T")
 
 
-def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> None:
+def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True, frames: bool = True) -> None:
     """FILES plus the options that say how to read them."""
     parser.add_argument("files", nargs="+" if many else 1, metavar="FILE",
                         help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run")
@@ -45,6 +45,8 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True) -> 
                              "cgs electron micro nano; LAMMPS' default is lj); a units command in the log wins")
     parser.add_argument("--json", action="store_true", help="print JSON with every number and its unit")
     add_chunk_argument(parser)
+    if frames:
+        add_parallel_arguments(parser)
 
 
 #: LAMMPS unit styles (phasewake.core.readers.lammps_log.STYLES), for --units
@@ -66,6 +68,49 @@ def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--chunk-mb", metavar="MB", type=_positive_mb, default=None,
                         help="memory for one chunk of frames while streaming (default: PHASEWAKE_CHUNK_MB or 128); "
                              "lower it for very large systems or small machines")
+
+
+def _workers(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"expected a whole number of processes, 1 or more, not {text!r}")
+    return n
+
+
+def add_parallel_arguments(parser: argparse.ArgumentParser) -> None:
+    """``--workers`` and ``--scheduler`` (``phasewake.core.model.parallel``, ``cluster``)."""
+    from phasewake.core.model.parallel import usable_cores
+
+    parser.add_argument("--workers", metavar="N", type=_workers, default=None,
+                        help="processes reading frames in parallel (default: for XTC, TRR and DCD, whose "
+                             f"decoding is the bottleneck, the usable cores ({usable_cores()} here) on passes "
+                             "over many frames; 1 for H5MD and other files read at memory speed; "
+                             "PHASEWAKE_WORKERS sets it too); memory per worker stays within --chunk-mb")
+    parser.add_argument("--scheduler", metavar="ADDRESS", default=None,
+                        help="send frame ranges and replicas to a running Dask scheduler (tcp://host:8786); "
+                             "its workers must see the files at the same paths and run this phasewake version")
+
+
+def apply_parallel(args: argparse.Namespace) -> None:
+    """Use ``--workers`` and ``--scheduler`` for every frame pass in this process."""
+    from phasewake.core.model import cluster, parallel
+
+    parallel.set_workers(getattr(args, "workers", None))  # given or not: never an earlier command's
+    address = getattr(args, "scheduler", None) or None
+    if address != cluster.scheduler():
+        cluster.set_scheduler(address)
+
+
+def run_files(args: argparse.Namespace, files: Any = None):  # -> parallel.RunFiles
+    """How worker processes open the run(s) of these arguments again (files, --top and the options)."""
+    from phasewake.core.model.parallel import RunFiles
+
+    paths = args.files if files is None else files
+    return RunFiles(paths=tuple(str(p) for p in paths), topology=None if args.top is None else str(args.top),
+                    options=run_overrides(args))
 
 
 def apply_chunk_budget(args: argparse.Namespace) -> None:
@@ -210,11 +255,14 @@ def column_roles_from_args(args: argparse.Namespace) -> dict[str, str] | None:
 
 
 def open_run_from_args(args: argparse.Namespace):  # -> Run
+    from phasewake.core.model.parallel import remember_files
     from phasewake.core.readers import open_run
 
     apply_chunk_budget(args)
+    apply_parallel(args)
     with quiet_stdout():
-        return open_run(args.files, topology=args.top, **run_overrides(args))
+        run = open_run(args.files, topology=args.top, **run_overrides(args))
+    return remember_files(run, run_files(args))
 
 
 @contextlib.contextmanager

@@ -9,7 +9,7 @@ from phasewake.app.common import add_run_arguments, print_json, quiet_stdout, ru
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_run_arguments(parser)
+    add_run_arguments(parser, frames=False)
     parser.add_argument("--group", metavar="NAME", default=None,
                         help="H5MD particle group to read (default: the first with positions)")
     parser.add_argument("--unit", metavar="DIMENSION=UNIT", action="append", default=[],

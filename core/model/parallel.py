@@ -114,15 +114,25 @@ def parallel_wanted(run: Run, consumers: Mapping[str, Any], start: int, stop: in
     """Whether :func:`~phasewake.core.model.framepass.run_pass` should go through :func:`ranges_pass`:
     more than one worker (asked for, or automatic on a large decode-bound pass), consumers that merge,
     and files to open again."""
+    if not mergeable(consumers) or not (run.paths or id(run) in _files_of) or workers == 1:
+        return False
+    if _on_cluster():
+        return True
     asked = workers if workers is not None else (_workers if _workers is not None else _env_workers())
     n = workers_for(run) if asked is None else min(int(asked), max(1, stop - start))
-    if n <= 1 or not mergeable(consumers) or not (run.paths or id(run) in _files_of):
+    if n <= 1:
         return False
     if asked is None:
         atoms = [c.atoms for c in consumers.values()]
         n_read = run.n_atoms if any(a is None for a in atoms) else len(set().union(*map(set, atoms)))
         return (stop - start) * n_read >= MIN_AUTO_ATOM_FRAMES
     return True
+
+
+def _on_cluster() -> bool:
+    from phasewake.core.model import cluster
+
+    return cluster.scheduler() is not None
 
 
 # ------------------------------------------------------------------------------------------ the run's files
@@ -385,6 +395,11 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 
     start_, stop_ = _frame_range(run, start, stop)
+    if _on_cluster() and mergeable(consumers) and workers != 1:
+        from phasewake.core.model.cluster import cluster_pass
+
+        return (yield from cluster_pass(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames,
+                                        files=files))
     n = workers_for(run) if workers is None else max(1, int(workers))
     chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
     ranges = cut_ranges(start_, stop_, 2 * n, align=chunk)
@@ -401,3 +416,48 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     merged = merge_in_order(parts)
     return {name: c.finish() for name, c in merged.items()}
 
+
+
+# ------------------------------------------------------------------------------------------ many runs
+
+
+def _call_task(index: int, fn: Callable[..., Any], args: Sequence[Any]) -> Any:
+    done, stop_event = _worker_state["done"], _worker_state["stop"]
+    if stop_event.is_set():
+        raise Cancelled()
+    try:
+        out = fn(*args)
+    except PhasewakeError as exc:
+        raise carry(exc) from None
+    done[index] = 1
+    return out
+
+
+def map_workers(fn: Callable[..., Any], arg_lists: Sequence[Sequence[Any]], *, workers: int | None = None,
+                label: str = "runs") -> Work[list[Any]]:
+    """``[fn(*args) for args in arg_lists]`` over worker processes (or the Dask cluster set with
+    ``--scheduler``), results in the order given: one task per run of a replica ensemble.
+
+    ``fn`` must be importable by name and its arguments picklable (a :class:`RunFiles` rather than a
+    Run). With one worker (``workers``, else :func:`set_workers`, else ``PHASEWAKE_WORKERS``, else the
+    usable cores) the calls run here, one after another. Progress counts finished tasks; cancel stops
+    the tasks not yet started and waits for the running ones; the first failure is raised as raised.
+    """
+    total = len(arg_lists)
+    if _on_cluster():
+        from phasewake.core.model.cluster import cluster_map
+
+        return (yield from cluster_map(fn, arg_lists, label=label))
+    asked = workers if workers is not None else (_workers if _workers is not None else _env_workers())
+    n = max(1, min(usable_cores() if asked is None else int(asked), total))
+    if n <= 1:
+        out = []
+        for k, args in enumerate(arg_lists):
+            yield Progress(k, total, label)
+            out.append(fn(*args))
+        yield Progress(total, total, label)
+        return out
+    with ProcessRanges(n, total) as pool:
+        futures = [pool.submit(_call_task, k, fn, list(args)) for k, args in enumerate(arg_lists)]
+        yield from follow(futures, pool.frames_done, total, f"{label} over {n} workers")
+        return [f.result() for f in futures]
