@@ -147,12 +147,12 @@ def _follow(cl: Any, job: str, futures: list[Any], weights: Sequence[float], tot
             label: str) -> Work[list[Any]]:
     """Progress until every future is done; the first failure raised as the worker raised it. Leaving
     early (cancel, failure) sets the job's stop event and releases every future."""
-    from distributed import Event, wait
+    from distributed import Event
 
     done = [False] * len(futures)
     try:
         while not all(done):
-            wait([f for f, d in zip(futures, done) if not d], timeout=0.2, return_when="FIRST_COMPLETED")
+            time.sleep(0.1)  # futures are polled: distributed.wait wants a default client, which we never set
             for k, f in enumerate(futures):
                 if not done[k] and f.done():
                     if f.status == "error":

@@ -461,3 +461,9 @@ def map_workers(fn: Callable[..., Any], arg_lists: Sequence[Sequence[Any]], *, w
         futures = [pool.submit(_call_task, k, fn, list(args)) for k, args in enumerate(arg_lists)]
         yield from follow(futures, pool.frames_done, total, f"{label} over {n} workers")
         return [f.result() for f in futures]
+
+
+def frame_count(files: RunFiles) -> int:
+    """The number of frames of the run of ``files`` (a small task: for tests and for a first look at an
+    ensemble)."""
+    return opened(files, {}).n_frames

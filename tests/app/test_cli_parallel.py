@@ -1,0 +1,124 @@
+"""--workers and --scheduler on the command line; Ctrl-C with worker processes running."""
+
+from __future__ import annotations
+
+import os
+import signal
+import socket
+import subprocess
+import sys
+import textwrap
+import time
+from pathlib import Path
+
+import pytest
+
+from phasewake.app.cli import main
+from phasewake.core.model import parallel
+from tests.core.test_parallel import make_xtc
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_an_unreachable_scheduler_is_one_line_and_exit_2(tmp_path, capsys):
+    xtc, pdb = make_xtc(tmp_path)
+    out = tmp_path / "q.csv"
+    code = main(["coords", str(xtc), "--top", str(pdb), "-c", "distance(0, 1)", "-o", str(out),
+                 "--scheduler", f"tcp://127.0.0.1:{_free_port()}"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.count("\n") == 1 and "cannot reach the Dask scheduler" in err and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_workers_must_be_a_positive_whole_number(tmp_path, capsys):
+    xtc, pdb = make_xtc(tmp_path)
+    with pytest.raises(SystemExit) as stop:
+        main(["coords", str(xtc), "--top", str(pdb), "-c", "distance(0, 1)", "--workers", "0"])
+    assert stop.value.code == 2 and "--workers" in capsys.readouterr().err
+
+
+def test_help_says_where_workers_help(capsys):
+    with pytest.raises(SystemExit):
+        main(["coords", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert "--workers N" in text and "XTC, TRR and DCD" in text and "1 for H5MD" in text
+    assert "--scheduler ADDRESS" in text
+
+
+def test_coords_with_two_workers_writes_what_one_worker_writes(tmp_path, capsys, monkeypatch):
+    xtc, pdb = make_xtc(tmp_path, n_frames=300)
+    used = []
+    real = parallel.ranges_pass
+
+    def spy(*a, **kw):
+        used.append(kw.get("workers"))
+        return (yield from real(*a, **kw))
+
+    monkeypatch.setattr(parallel, "ranges_pass", spy)
+    one, two = tmp_path / "one.csv", tmp_path / "two.csv"
+    base = ["coords", str(xtc), "--top", str(pdb), "-c", "distance(0, 1)", "-c", "angle(0, 1, 2)", "--no-cache"]
+    assert main([*base, "-o", str(one), "--workers", "1"]) == 0
+    assert main([*base, "-o", str(two), "--workers", "2"]) == 0
+    assert two.read_bytes() == one.read_bytes()
+    # once the coordinates consumer can merge partial states, the two-worker command reads in ranges
+    from phasewake.core.model import framepass
+
+    consumer = getattr(framepass, "CoordinatesConsumer", None)
+    if consumer is not None and callable(getattr(consumer, "merge", None)):
+        assert 2 in used
+    assert parallel._workers is None or parallel._workers == 2  # the last command's own setting
+
+
+CTRL_C_CHILD = textwrap.dedent("""
+    import sys
+    from phasewake.core import interrupts
+    from phasewake.core.model import parallel
+    from phasewake.core.progress import drive
+    from phasewake.core.readers import open_run
+    from tests.parallel_consumers import FrameSums
+
+    run = open_run([sys.argv[1]], topology=sys.argv[2])
+    seen = []
+
+    def show(p):
+        if p.done > 0 and not seen:
+            seen.append(1)
+            print("running", flush=True)
+
+    try:
+        with interrupts.handling():
+            drive(parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.3)}, workers=2, chunk_frames=2),
+                  show, interrupts.token())
+    except Exception as exc:
+        print("stopped:", type(exc).__name__, flush=True)
+        sys.exit(130)
+    print("finished", flush=True)
+""")
+
+
+def test_ctrl_c_stops_every_worker(tmp_path):
+    psutil = pytest.importorskip("psutil")
+    xtc, pdb = make_xtc(tmp_path, n_frames=400)
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
+    child = subprocess.Popen([sys.executable, "-c", CTRL_C_CHILD, str(xtc), str(pdb)], stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, text=True, env=env, start_new_session=True)
+    try:
+        assert child.stdout.readline().strip() == "running"
+        family = psutil.Process(child.pid).children(recursive=True)
+        assert len(family) >= 2  # the workers (and the server they are forked from)
+        t0 = time.monotonic()
+        os.killpg(child.pid, signal.SIGINT)  # as a terminal's Ctrl-C: the whole process group
+        out, err = child.communicate(timeout=60)
+    finally:
+        if child.poll() is None:
+            child.kill()
+    assert "stopped: Cancelled" in out and child.returncode == 130
+    assert time.monotonic() - t0 < 30
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err
+    time.sleep(0.5)
+    assert not [p for p in family if p.is_running() and p.status() != psutil.STATUS_ZOMBIE]
