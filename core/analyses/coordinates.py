@@ -20,8 +20,9 @@ rounded to the nearest image; for triclinic boxes the 27 neighbours of that imag
 [0, pi], dihedrals in (-pi, pi] with the sign convention of mdtraj.compute_dihedrals. rmsd assumes
 the group is whole (no minimum image).
 
-Streaming: :func:`compute_coordinates` reads only the atoms the coordinates need, chunk by chunk,
-and evaluates every coordinate vectorised over frames and atoms.
+Streaming: :func:`compute_coordinates` is the frame pass (``core/model/framepass.py``) with one
+:class:`CoordinatesConsumer`, which reads only the atoms the coordinates need, chunk by chunk, and evaluates
+every coordinate vectorised over frames and atoms.
 """
 
 from __future__ import annotations
@@ -41,7 +42,7 @@ from phasewake.core.readers.common import check_masses
 if TYPE_CHECKING:
     import mdtraj
 
-    from phasewake.core.model.run import Run
+    from phasewake.core.model.run import FrameChunk, Run
 
 
 @dataclass(frozen=True)
@@ -416,6 +417,110 @@ def resolve_for_run(spec: str | CoordinateDef, run: Run) -> ResolvedCoordinate:
     return resolved
 
 
+class CoordinatesConsumer:
+    """Coordinates with velocities, effective masses and momenta: the frame consumer of
+    :func:`compute_coordinates` (see :mod:`phasewake.core.model.framepass`).
+
+    Parameters
+    ----------
+    run : Run
+    specs : sequence of str or ResolvedCoordinate
+        Coordinate specifications (``phasewake.core.analyses.coordspec``); a ``pc(k)`` one only resolved
+        with its PCA attached (``compute_coordinates`` computes it first).
+
+    ``finish()`` returns ``list[CoordinateSeries]`` in the order of ``specs``. ``merge(later)`` appends the
+    frames a consumer of the same specs saw right after these; dq/dt from finite differences (no stored
+    velocities) is taken in ``finish``, over the whole range, so it equals the serial pass.
+    """
+
+    needs_positions = True
+
+    def __init__(self, run: Run, specs: Sequence[str | ResolvedCoordinate]) -> None:
+        if run.frames is None:
+            raise MissingDataError("the run has no frames (positions)", path=run.paths[0] if run.paths else None)
+        if not specs:
+            raise CoordinateSpecError("no coordinate given")
+        self.path = run.paths[0] if run.paths else None
+        check_masses(run.masses_amu, path=self.path, where=run.metadata.sources.get("masses", "masses"))
+        self.resolved = [s if isinstance(s, ResolvedCoordinate) else resolve_for_run(s, run) for s in specs]
+        for r in self.resolved:
+            if r.function == "pc" and r.pca is None:
+                raise CoordinateSpecError("pc(k) needs a PCA pass first: use coordinates.compute_coordinates",
+                                          spec=r.spec)
+        self.atoms: np.ndarray | None = np.unique(np.concatenate([r.atoms for r in self.resolved])).astype(np.int64)
+        self.needs_velocities = bool(run.frames.has_velocities)
+        self.estimated_by_reader = bool(getattr(run.frames, "velocities_estimated", False))
+        self.masses = np.asarray(run.masses_amu, dtype=np.float64)
+        self._remap: list[ResolvedCoordinate] = []
+        self._local_masses = np.zeros(0)
+        self._values: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._dqdt: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._meff: list[list[np.ndarray]] = [[] for _ in self.resolved]
+        self._time: list[np.ndarray] = []
+        self._got_vel = self.needs_velocities
+        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        from phasewake.core.model.framepass import local_columns
+
+        self._range = (start, stop, chunk_frames)
+        self._remap = [replace(r, groups=tuple(local_columns(columns, np.asarray(g, dtype=np.int64))
+                                               for g in r.groups)) for r in self.resolved]
+        self._local_masses = self.masses if columns is None else self.masses[columns]
+
+    def update(self, chunk: FrameChunk) -> None:
+        vel = chunk.velocities_nm_per_ps if self.needs_velocities else None
+        if self.needs_velocities and vel is None:
+            self._got_vel = False
+        self._time.append(np.asarray(chunk.time_ps, dtype=np.float64))
+        for k, r in enumerate(self._remap):
+            v, dq, me = evaluate_arrays(r, chunk.positions_nm, vel, self._local_masses, chunk.box_nm)
+            if not np.all(np.isfinite(v)):  # names the file and the frame
+                refuse_not_finite(r, chunk, v, self.path)
+            self._values[k].append(v)
+            if dq is not None:
+                self._dqdt[k].append(dq)
+            if me is not None:
+                self._meff[k].append(me)
+
+    def merge(self, later: CoordinatesConsumer) -> None:
+        from phasewake.core.model.framepass import check_next
+
+        check_next(self._range[:2], later._range[:2], "coordinates")
+        if [r.spec for r in later.resolved] != [r.spec for r in self.resolved]:
+            raise AnalysisError("coordinates: only consumers of the same coordinates can be merged")
+        self._time += later._time
+        for k in range(len(self.resolved)):
+            self._values[k] += later._values[k]
+            self._dqdt[k] += later._dqdt[k]
+            self._meff[k] += later._meff[k]
+        self._got_vel = self._got_vel and later._got_vel
+        self._range = (self._range[0], later._range[1], self._range[2])
+
+    def finish(self) -> list[CoordinateSeries]:
+        start, stop, chunk = self._range
+        time = np.concatenate(self._time) if self._time else np.zeros(0)
+        out: list[CoordinateSeries] = []
+        for k, r in enumerate(self.resolved):
+            values = np.concatenate(self._values[k]) if self._values[k] else np.zeros(0)
+            meff = np.concatenate(self._meff[k]) if self._meff[k] else np.zeros(0)
+            vu, velu, mu, pu = units_of(r)
+            periodic = r.function == "dihedral"
+            if self._got_vel and len(self._dqdt[k]) == len(self._values[k]) and self._dqdt[k]:
+                vel_k: np.ndarray | None = np.concatenate(self._dqdt[k])
+                estimated = self.estimated_by_reader
+            else:
+                vel_k = finite_difference_velocity(values, time, periodic=periodic)
+                estimated = True
+            mom = None if vel_k is None else meff * vel_k
+            out.append(CoordinateSeries(
+                spec=r.spec, label=r.label, unit=vu, time_ps=time, values=values, velocity=vel_k, m_eff=meff,
+                momentum=mom, momentum_unit=pu, velocities_estimated=estimated, velocity_unit=velu,
+                m_eff_unit=mu, periodic=periodic, start=start, stop=stop, chunk_frames=chunk,
+            ))
+        return out
+
+
 def compute_coordinates(
     run: Run,
     specs: Sequence[str],
@@ -429,42 +534,51 @@ def compute_coordinates(
     """Compute coordinates (with velocities, effective masses and momenta) over a run, streaming.
 
     A generator: yields :class:`Progress`, returns ``list[CoordinateSeries]`` in the order of
-    ``specs``. ``pc(k)`` specifications trigger a first pass that computes the PCA of their group
-    (see :func:`phasewake.core.analyses.projection.compute_pca`; ``mass_weighted_pca`` and ``fit_pca`` are
-    its settings).
+    ``specs``: the frame pass with one :class:`CoordinatesConsumer`. ``pc(k)`` specifications trigger a
+    first pass that computes the PCA of their group (see
+    :func:`phasewake.core.analyses.projection.compute_pca`; ``mass_weighted_pca`` and ``fit_pca`` are its
+    settings).
 
     Raises
     ------
     CoordinateSpecError for bad specifications; MissingDataError when the run has no frames.
     """
+    from phasewake.core.model.framepass import frame_range, run_one
+
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=run.paths[0] if run.paths else None)
     if not specs:
         raise CoordinateSpecError("no coordinate given")
-    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
-    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
-    if not 0 <= start < stop_:
-        raise AnalysisError(f"empty frame range {start}:{stop_} (the run has {run.n_frames} frames)")
+    start, stop_ = frame_range(run, start, stop)
     resolved = [resolve_for_run(s, run) for s in specs]
+    if any(r.function == "pc" for r in resolved):
+        resolved = yield from _with_pcas(run, resolved, start=start, stop=stop_, chunk_frames=chunk_frames,
+                                         mass_weighted=mass_weighted_pca, fit=fit_pca)
+    consumer = CoordinatesConsumer(run, resolved)
+    return (yield from run_one(run, consumer, label="coordinates", start=start, stop=stop_,
+                               chunk_frames=chunk_frames))
 
-    # first pass(es): one PCA per distinct pc group
+
+def _with_pcas(run: Run, resolved: list[ResolvedCoordinate], *, start: int, stop: int, chunk_frames: int | None,
+               mass_weighted: bool, fit: bool) -> Work[list[ResolvedCoordinate]]:
+    """``resolved`` with the PCA of each pc(k) group attached: one PCA pass per distinct group."""
+    from phasewake.core.analyses.projection import compute_pca
+
     pcas: dict[tuple[int, ...], Any] = {}
+    out = list(resolved)
     for k, r in enumerate(resolved):
         if r.function != "pc":
             continue
         key = tuple(int(a) for a in r.groups[0])
         if key not in pcas:
-            from phasewake.core.analyses.projection import compute_pca
-
             n_comp = max(int(q.pc_index or 0) + 1 for q in resolved
                          if q.function == "pc" and tuple(int(a) for a in q.groups[0]) == key)
-            sub = yield from _relay(
-                compute_pca(run, atom_indices=np.asarray(key), start=start, stop=stop_, chunk_frames=chunk,
-                            mass_weighted=mass_weighted_pca, fit=fit_pca, n_components=max(n_comp, 1),
-                            projections=False),
+            pcas[key] = yield from _relay(
+                compute_pca(run, atom_indices=np.asarray(key), start=start, stop=stop,
+                            chunk_frames=int(chunk_frames or DEFAULT_CHUNK_FRAMES),
+                            mass_weighted=mass_weighted, fit=fit, n_components=max(n_comp, 1), projections=False),
                 label=f"PCA for {r.spec}",
             )
-            pcas[key] = sub
         pca = pcas[key]
         if int(r.pc_index or 0) >= pca.eigenvalues.shape[0]:
             raise CoordinateSpecError(
@@ -473,67 +587,7 @@ def compute_coordinates(
                 spec=r.spec,
                 position=3,
             )
-        resolved[k] = replace(r, pca=pca)
-
-    used = np.unique(np.concatenate([r.atoms for r in resolved]))
-    local = {int(a): i for i, a in enumerate(used)}
-    remap = [replace(r, groups=tuple(np.array([local[int(a)] for a in grp], dtype=np.int64) for grp in r.groups))
-             for r in resolved]
-    where = run.paths[0] if run.paths else None
-    check_masses(run.masses_amu, path=where, where=run.metadata.sources.get("masses", "masses"))
-    masses = np.asarray(run.masses_amu, dtype=np.float64)[used]
-    want_vel = bool(run.frames.has_velocities)
-    n_total = stop_ - start
-    values = [np.empty(n_total) for _ in remap]
-    dqdt = [np.empty(n_total) for _ in remap] if want_vel else None
-    meff = [np.empty(n_total) for _ in remap]
-    time = np.empty(n_total)
-    done = 0
-    got_vel = want_vel
-    for ch in run.frames.iter_chunks(chunk_frames=chunk, start=start, stop=stop_, atom_indices=used,
-                                     velocities=want_vel):
-        m = ch.n_frames
-        sl = slice(done, done + m)
-        time[sl] = ch.time_ps
-        vel = ch.velocities_nm_per_ps if want_vel else None
-        if want_vel and vel is None:
-            got_vel = False
-        for k, r in enumerate(remap):
-            v, dq, me = evaluate_arrays(r, ch.positions_nm, vel, masses, ch.box_nm)
-            if not np.all(np.isfinite(v)):
-                refuse_not_finite(r, ch, v, where)
-            values[k][sl] = v
-            if dqdt is not None and dq is not None:
-                dqdt[k][sl] = dq
-            if me is not None:
-                meff[k][sl] = me
-        done += m
-        yield Progress(done, n_total, "coordinates")
-    if done != n_total:
-        values = [v[:done] for v in values]
-        meff = [v[:done] for v in meff]
-        time = time[:done]
-        if dqdt is not None:
-            dqdt = [v[:done] for v in dqdt]
-
-    estimated_by_reader = bool(getattr(run.frames, "velocities_estimated", False))
-    out: list[CoordinateSeries] = []
-    for k, r in enumerate(resolved):
-        vu, velu, mu, pu = units_of(r)
-        periodic = r.function == "dihedral"
-        if got_vel and dqdt is not None:
-            vel_k: np.ndarray | None = dqdt[k]
-            estimated = estimated_by_reader
-        else:
-            vel_k = finite_difference_velocity(values[k], time, periodic=periodic)
-            estimated = True
-        mom = None if vel_k is None else meff[k] * vel_k
-        out.append(CoordinateSeries(
-            spec=r.spec, label=r.label, unit=vu, time_ps=time, values=values[k], velocity=vel_k,
-            m_eff=meff[k], momentum=mom, momentum_unit=pu, velocities_estimated=estimated,
-            velocity_unit=velu, m_eff_unit=mu, periodic=periodic, start=start, stop=stop_,
-            chunk_frames=chunk,
-        ))
+        out[k] = replace(r, pca=pca)
     return out
 
 

@@ -327,6 +327,41 @@ class _Accumulator:
             self._omega_t = np.ascontiguousarray(omega, dtype=dt)
             self.z = np.zeros((d, omega.shape[1]))
 
+    def __getstate__(self) -> dict[str, Any]:
+        """Without the BLAS routine and the scratch blocks (a worker process sends this back)."""
+        state = dict(self.__dict__)
+        for name in ("_syrk", "ybuf", "_prod"):
+            state.pop(name, None)
+        if state.get("xbuf") is not None:
+            state["xbuf"] = state["xbuf"][: self.fill].copy() if self.fill else None
+        return state
+
+    def __setstate__(self, state: dict[str, Any]) -> None:
+        self.__dict__.update(state)
+        dt = self.fitter.dtype
+        self.ybuf = np.empty((self.block, self.d), dtype=dt)
+        if self.xbuf is not None:
+            xbuf = np.empty((self.block,) + self.xbuf.shape[1:], dtype=self.xbuf.dtype)
+            xbuf[: self.fill] = self.xbuf[: self.fill]
+            self.xbuf = xbuf
+        if self.mode == "exact":
+            from scipy.linalg import blas
+
+            self._syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
+            self._prod = np.zeros((self.d, self.d), dtype=dt, order="F")
+
+    def merge(self, later: _Accumulator) -> None:
+        """Add the sums of ``later`` (the frames after these; same fit and sketch); both are flushed first."""
+        self.flush()
+        later.flush()
+        self.n += later.n
+        self.s1 += later.s1
+        self.sqnorm += later.sqnorm
+        if self.mode == "exact":
+            self.s2 += later.s2
+        else:
+            self.z += later.z
+
     def update(self, x: np.ndarray) -> None:
         """Positions (m, g, 3) of the next frames, in order."""
         i, m, b = 0, x.shape[0], self.block
@@ -490,7 +525,8 @@ class PCAReduction:
         if method == "randomized" and n_iter > 0 and not _allow_iterations:
             raise AnalysisError(f"the randomized PCA with n_iter={n_iter} reads the frames {n_iter + 1} times; "
                                 "a one-pass consumer supports n_iter=0 (the Nystrom sketch) or the exact route")
-        self.run = run
+        self.n_atoms, self.path = run.n_atoms, _path(run)
+        self.velocities_estimated = bool(getattr(run.frames, "velocities_estimated", False))
         self.idx, self.masses = _group_and_masses(run, atom_indices)
         g = self.idx.size
         self.d = 3 * g
@@ -529,7 +565,7 @@ class PCAReduction:
         self._range = (0, run.n_frames)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        self._local = _local_positions(columns, self.idx, self.run.n_atoms)
+        self._local = _local_positions(columns, self.idx, self.n_atoms)
         self._range = (int(start), int(stop))
 
     def group_positions(self, chunk: FrameChunk) -> np.ndarray:
@@ -544,7 +580,7 @@ class PCAReduction:
             self.reference = np.asarray(x[0], dtype=np.float64)  # the first frame of the window
         if not np.all(np.isfinite(self.reference)):
             raise AnalysisError("the PCA reference (default: the first frame of the window) has non-finite "
-                                "positions", path=_path(self.run))
+                                "positions", path=self.path)
         self.fitter = FrameFitter(self.reference, self.fit_w, scale=self.sq, dtype=self.dt, fit=self.fit)
         omega = None if self.omega0 is None else self.omega0[self.fitter.order]
         self.acc = _Accumulator(self.fitter, block=self.block, mode=self.method, omega=omega)
@@ -557,6 +593,35 @@ class PCAReduction:
             self._start(x)
         assert self.acc is not None
         self.acc.update(x)
+
+    def use_first_frame_of(self, run: Run, start: int) -> None:
+        """Take frame ``start`` as the reference now (what a serial pass from ``start`` takes from its first
+        chunk), so consumers fed parts of the frames share it and can be merged."""
+        if self.reference is None:
+            chunk = run.frames.read_frame(int(start)) if run.frames is not None else None
+            if chunk is None:
+                raise MissingDataError("the run has no frames (positions)", path=self.path)
+            self.reference = np.asarray(chunk.positions_nm[0][self.idx], dtype=np.float64)
+
+    def merge(self, later: PCAReduction) -> None:
+        """Fold in the sums of the frames right after these (see the class docstring)."""
+        from phasewake.core.model.framepass import check_next
+
+        check_next(self._range, later._range, "PCA")
+        if later.acc is None:
+            self._range = (self._range[0], later._range[1])
+            return
+        if self.acc is None:  # this part saw no frames: the later one's state is the whole
+            self.acc, self.fitter, self.reference = later.acc, later.fitter, later.reference
+            self._range = (self._range[0], later._range[1])
+            return
+        same = self.reference is not None and later.reference is not None and np.array_equal(self.reference,
+                                                                                             later.reference)
+        if not same or later.method != self.method:
+            raise AnalysisError("PCA: parts of one PCA need one reference and method: give reference_nm, or "
+                                "call use_first_frame_of(run, start) on the consumer before the parts are fed")
+        self.acc.merge(later.acc)
+        self._range = (self._range[0], later._range[1])
 
     def finish(self) -> PCAResult:
         acc = self.acc
@@ -594,7 +659,7 @@ class PCAReduction:
             n_frames=int(n), eigenvalue_unit="amu nm^2" if mw else "nm^2",
             projection_unit="nm amu^1/2" if mw else "nm",
             momentum_unit="nm amu^1/2/ps" if mw else "nm/ps (velocity projected on unit vector)",
-            velocities_estimated=bool(getattr(self.run.frames, "velocities_estimated", False)),
+            velocities_estimated=self.velocities_estimated,
             mass_weighted=mw, fit=self.fit, method=self.method, n_components=self.k, start=start, stop=stop,
             stride=self.stride, chunk_frames=self.block, n_iter=self.n_iter if self.method == "randomized" else 0,
             oversample=self.oversample if self.method == "randomized" else 0, seed=self.seed,
@@ -617,7 +682,7 @@ class PCAProjection:
 
         if run.frames is None:
             raise MissingDataError("the run has no frames (positions)", path=_path(run))
-        self.run, self.pca = run, pca
+        self.pca, self.n_atoms = pca, run.n_atoms
         self.idx = np.asarray(pca.atom_indices, dtype=np.int64)
         self.atoms = _group_columns(self.idx, run.n_atoms)
         self.needs_velocities = bool(run.frames.has_velocities)
@@ -634,9 +699,11 @@ class PCAProjection:
         self._t: list[np.ndarray] = []
         self._got_v = self.needs_velocities
         self._y = np.zeros((0, 3 * g))
+        self._range = (0, run.n_frames)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        self._local = _local_positions(columns, self.idx, self.run.n_atoms)
+        self._local = _local_positions(columns, self.idx, self.n_atoms)
+        self._range = (int(start), int(stop))
 
     def update(self, chunk: FrameChunk) -> None:
         pos = np.asarray(chunk.positions_nm)
@@ -659,6 +726,17 @@ class PCAProjection:
             if rot is not None:
                 v = np.matmul(v, rot)
             self._p.append((v * self.sq[None, :, None]).reshape(m, -1) @ self.pca.eigenvectors)
+
+    def merge(self, later: PCAProjection) -> None:
+        """Append the projections of the frames right after these (per frame: exact)."""
+        from phasewake.core.model.framepass import check_next
+
+        check_next(self._range, later._range, "PCA projections")
+        self._q += later._q
+        self._p += later._p
+        self._t += later._t
+        self._got_v = self._got_v and later._got_v
+        self._range = (self._range[0], later._range[1])
 
     def finish(self) -> PCAResult:
         from dataclasses import replace
@@ -792,6 +870,34 @@ class _Stage:
 
     def finish(self) -> None:
         self.acc.flush()
+
+
+class PCAConsumer(PCAReduction):
+    """The PCA covariance (exact route) or the one-pass Nystrom sketch (randomized, ``n_iter=0``), as a
+    consumer of a shared frame pass.
+
+    Settings are those of :func:`compute_pca` except ``start``, ``stop`` (the pass's) and ``projections``;
+    ``finish()`` returns the :class:`PCAResult` that ``compute_pca(run, ..., start=, stop=, projections=False)``
+    returns, to float rounding identical (the same reduction: blocks of ``chunk_frames`` frames whatever the
+    pass's chunks; reference: the first frame of the pass unless ``reference_nm``). Subspace iteration
+    (``n_iter`` > 0) needs more passes and is refused; projections need the eigenvectors, so a later pass
+    with :class:`PCAProjectionConsumer`.
+    """
+
+    def __init__(self, run: Run, *, projections: bool = False, **settings: Any) -> None:
+        if projections:
+            raise AnalysisError("PCA projections need the eigenvectors first: add a PCAProjectionConsumer to a "
+                                "second pass, or call projection.compute_pca")
+        if "stride" in settings and int(settings["stride"]) != 1:
+            raise AnalysisError("a frame pass reads every frame: stride must be 1 (use compute_pca for a stride)")
+        for key in ("start", "stop"):
+            if key in settings:
+                raise AnalysisError(f"{key} is the pass's setting (FramePass / run_pass), not the PCA's")
+        super().__init__(run, **settings)
+
+
+class PCAProjectionConsumer(PCAProjection):
+    """q_k(t), p_k(t) and cosine contents of a computed PCA (``compute_pca``'s projection pass)."""
 
 
 def pca_arrays(

@@ -391,10 +391,10 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     A generator yielding :class:`Progress` and returning ``{name: consumer.finish()}``, equal to the
     serial pass's.
     """
-    from phasewake.core.model.framepass import _frame_range, run_pass
+    from phasewake.core.model.framepass import frame_range, run_pass
     from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 
-    start_, stop_ = _frame_range(run, start, stop)
+    start_, stop_ = frame_range(run, start, stop)
     if _on_cluster() and mergeable(consumers) and workers != 1:
         from phasewake.core.model.cluster import cluster_pass
 

@@ -483,7 +483,7 @@ def coordinates_settings(run: Run, specs: Sequence[str], *, start: int = 0, stop
 
 def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
     """Coordinates of all frames as a :class:`PassItem` (the key of :func:`cached_coordinates`)."""
-    from phasewake.core.model.framepass import CoordinatesConsumer
+    from phasewake.core.analyses.coordinates import CoordinatesConsumer
 
     return PassItem("coordinates", coordinates_settings(run, specs), lambda: CoordinatesConsumer(run, specs),
                     extra_paths=_reference_paths(run, specs))
@@ -492,8 +492,8 @@ def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
 def pca_item(run: Run, **settings: Any) -> PassItem:
     """A PCA of all frames as a :class:`PassItem` (the key of :func:`cached_pca`); its projections are a
     second pass over the frames, as in ``compute_pca``."""
-    from phasewake.core.analyses.projection import compute_pca
-    from phasewake.core.model.framepass import PCAConsumer, PCAProjectionConsumer, run_pass
+    from phasewake.core.analyses.projection import PCAConsumer, PCAProjectionConsumer, compute_pca
+    from phasewake.core.model.framepass import run_pass
 
     def then(pca: Any) -> Work[Any]:
         if not settings.get("projections", True):

@@ -405,9 +405,10 @@ def window_first_panel_and_cursor(full: bool, work: Path) -> Outcome:
 def one_pass_many(full: bool, work: Path) -> Outcome:
     """Coordinates + group temperatures + VACF from one read (core.onepass), against the sum of the three
     separate analyses and against the plain read of positions + velocities."""
-    from phasewake.core.analyses.coordinates import compute_coordinates
-    from phasewake.core.analyses.velocity import vacf
-    from phasewake.core.model.framepass import FramePass
+    from phasewake.core.analyses.coordinates import CoordinatesConsumer, compute_coordinates
+    from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
+    from phasewake.core.analyses.velocity import VACFConsumer, vacf
+    from phasewake.core.model.framepass import FramePass, run_pass
 
     s = _sizes(full)
     path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
@@ -416,12 +417,11 @@ def one_pass_many(full: bool, work: Path) -> Outcome:
     specs = ["distance(0, 1)"]
 
     def one_pass():
-        fp = FramePass(run).coordinates("q", specs).temperatures("T", groups=groups, n_com=0, n_constraints=0)
-        return _drain(fp.vacf("v", max_lag_ps=0.5).work())
+        fp = FramePass(run).add("q", CoordinatesConsumer(run, specs))
+        fp.add("T", GroupTemperatureConsumer(run, groups=groups, n_com=0, n_constraints=0))
+        return _drain(fp.add("v", VACFConsumer(run, max_lag_ps=0.5)).work())
 
     def separate():
-        from phasewake.core.model.framepass import GroupTemperatureConsumer, run_pass
-
         _drain(compute_coordinates(run, specs))
         _drain(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0, n_constraints=0)}))
         _drain(vacf(run, max_lag_ps=0.5))
@@ -448,6 +448,9 @@ def _peak_child(path: str, budget_mb: float, q) -> None:  # runs in a spawned pr
     import phasewake.core.analyses.coordinates  # noqa: F401
     import phasewake.core.analyses.temperature  # noqa: F401
     import phasewake.core.analyses.velocity  # noqa: F401
+    from phasewake.core.analyses.coordinates import CoordinatesConsumer
+    from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
+    from phasewake.core.analyses.velocity import VACFConsumer
     from phasewake.core.model.framepass import FramePass
     from phasewake.core.model.run import set_chunk_budget_mb
     from phasewake.core.readers import open_run
@@ -456,8 +459,9 @@ def _peak_child(path: str, budget_mb: float, q) -> None:  # runs in a spawned pr
     run = open_run([path])
     with open("/proc/self/statm") as fh:
         rss0 = int(fh.read().split()[1]) * resource.getpagesize() / 1e6
-    fp = FramePass(run).coordinates("q", ["distance(0, 1)"]).temperatures("T", n_com=0, n_constraints=0)
-    _drain(fp.vacf("v", max_lag_ps=0.05).work())
+    fp = FramePass(run).add("q", CoordinatesConsumer(run, ["distance(0, 1)"]))
+    fp.add("T", GroupTemperatureConsumer(run, n_com=0, n_constraints=0))
+    _drain(fp.add("v", VACFConsumer(run, max_lag_ps=0.05)).work())
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0 * 1.048576  # KiB -> MB
     q.put(peak - rss0)
 

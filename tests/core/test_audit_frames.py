@@ -14,7 +14,8 @@ import pytest
 
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.analyses.audit import AuditFramesConsumer, audit_run, audit_summary
-from phasewake.core.model.framepass import CoordinatesConsumer, run_pass
+from phasewake.core.analyses.coordinates import CoordinatesConsumer
+from phasewake.core.model.framepass import run_pass
 from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
@@ -140,14 +141,15 @@ def test_centre_of_mass_sums_only_when_the_audit_needs_them():
 
 
 def test_frame_pass_builder_carries_the_audit_with_the_pca_and_vacf():
-    """FramePass.audit_frames next to a PCA and a VACF: one read; each equals its own analysis run alone."""
-    from phasewake.core.analyses.projection import compute_pca
-    from phasewake.core.analyses.velocity import vacf
+    """The audit's frames next to a PCA and a VACF: one read; each equals its own analysis run alone."""
+    from phasewake.core.analyses.projection import PCAConsumer, compute_pca
+    from phasewake.core.analyses.velocity import VACFConsumer, vacf
     from phasewake.core.model.framepass import FramePass
 
     run, counter = _counting(_water_ions())
-    got = drive(FramePass(run).audit_frames("audit").pca("pca", atom_indices=np.arange(6), n_components=2)
-                .vacf("v", max_lag_ps=0.02).work())
+    got = drive(FramePass(run).add("audit", AuditFramesConsumer.for_run(run))
+                .add("pca", PCAConsumer(run, atom_indices=np.arange(6), n_components=2))
+                .add("v", VACFConsumer(run, max_lag_ps=0.02)).work())
     assert counter.calls == 1
     assert audit_summary(drive(audit_run(run, frames=got["audit"]))) == audit_summary(drive(audit_run(run)))
     alone = drive(compute_pca(run, atom_indices=np.arange(6), n_components=2, projections=False))

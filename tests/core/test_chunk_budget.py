@@ -80,8 +80,9 @@ def test_analyses_do_not_depend_on_the_chunking():
     """Coordinates with momenta, the kinetic temperature from the velocities and the VACF of the sample run
     with 7-frame chunks equal those with the default chunks (the reference: the same analyses, default chunks)."""
     from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
     from phasewake.core.analyses.velocity import vacf
-    from phasewake.core.model.framepass import GroupTemperatureConsumer, run_pass
+    from phasewake.core.model.framepass import run_pass
 
     def compute():
         r = open_run([SAMPLE])

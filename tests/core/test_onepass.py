@@ -12,16 +12,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core.analyses.coordinates import compute_coordinates
-from phasewake.core.analyses.velocity import vacf
+from phasewake.core.analyses.coordinates import CoordinatesConsumer, compute_coordinates
+from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
+from phasewake.core.analyses.projection import PCAConsumer, PCAProjectionConsumer
+from phasewake.core.analyses.velocity import VACFConsumer, vacf
 from phasewake.core.errors import CoordinateSpecError
-from phasewake.core.model.framepass import (
-    CoordinatesConsumer,
-    FramePass,
-    GroupTemperatureConsumer,
-    VACFConsumer,
-    run_pass,
-)
+from phasewake.core.model.framepass import FramePass, run_pass
 from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
@@ -171,7 +167,8 @@ def test_frames_are_read_once_for_three_analyses():
     counter = Spy(run0.frames)
     run = dataclasses.replace(run0, frames=counter)
     fp = FramePass(run, start=0, stop=None, chunk_frames=50)
-    fp.coordinates("q", ["distance(0, 1)", "angle(0, 1, 2)"]).temperatures("T", n_com=0).vacf("v", max_lag_ps=0.3)
+    fp.add("q", CoordinatesConsumer(run, ["distance(0, 1)", "angle(0, 1, 2)"]))
+    fp.add("T", GroupTemperatureConsumer(run, n_com=0)).add("v", VACFConsumer(run, max_lag_ps=0.3))
     out = drive(fp.work())
     assert set(out) == {"q", "T", "v"}
     if run.n_atoms >= 12:  # the coordinates' 3 atoms are read apart; everybody's velocities without positions
@@ -256,7 +253,8 @@ def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
     group = [2, 3, 4, 5, 6, 7, 8, 9]  # not all atoms: the pass reads the union with the coordinates' atoms
     settings = {"atom_indices": group, "method": method, "n_components": 4, "chunk_frames": 64, "oversample": 8}
     fp = FramePass(run, chunk_frames=37)  # other chunks than the PCA's blocks: the result must not change
-    fp.pca("pca", **settings).coordinates("q", ["distance(0, 1)"]).vacf("v", max_lag_ps=0.3)
+    fp.add("pca", PCAConsumer(run, **settings)).add("q", CoordinatesConsumer(run, ["distance(0, 1)"]))
+    fp.add("v", VACFConsumer(run, max_lag_ps=0.3))
     out = drive(fp.work())
     assert counter.calls == 1 and counter.frames_read == run.n_frames
     sep = drive(compute_pca(run0, projections=False, **settings))
@@ -270,12 +268,12 @@ def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
 
 def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
     from phasewake.core.analyses.projection import compute_pca
-    from phasewake.core.model.framepass import PCAConsumer
 
     run0 = _synthetic(n_frames=200, n_atoms=10)
     run, counter = _counting(run0)
     first = drive(run_pass(run, {"pca": PCAConsumer(run, n_components=3)}))["pca"]
-    second = drive(FramePass(run).pca_projections("proj", first).temperatures("T", n_com=0).work())
+    second = drive(FramePass(run).add("proj", PCAProjectionConsumer(run, first))
+                   .add("T", GroupTemperatureConsumer(run, n_com=0)).work())
     assert counter.calls == 2
     sep = drive(compute_pca(run0, n_components=3))  # covariance pass + projection pass
     _pca_equal(second["proj"], sep)
@@ -291,7 +289,6 @@ def test_pca_projection_consumer_in_a_second_pass_equals_compute_pca():
 
 def test_pca_consumer_refuses_what_one_pass_cannot_do():
     from phasewake.core.errors import AnalysisError
-    from phasewake.core.model.framepass import PCAConsumer
 
     run = _synthetic(n_frames=30)
     with pytest.raises(AnalysisError, match="n_iter"):
