@@ -107,58 +107,9 @@ def missing(what: str, module: str) -> PanelResult:
 # ---- helpers ----------------------------------------------------------------------------------
 
 
-class WindowFrames:
-    """A FrameSource restricted to frames [offset, offset + n_frames) of another one.
-
-    Chunk ``start`` indices are relative to the window, as for a run cut to that span.
-    """
-
-    def __init__(self, base: Any, offset: int, stop: int) -> None:
-        self.base = base
-        self.offset = int(offset)
-        self.n_frames = int(stop) - int(offset)
-        self.n_atoms = base.n_atoms
-        self.has_velocities = base.has_velocities
-        self.velocities_estimated = base.velocities_estimated
-        self.has_box = base.has_box
-
-    def iter_chunks(self, *, chunk_frames: int = 256, start: int = 0, stop: int | None = None,
-                    stride: int = 1, atom_indices: Any = None, velocities: bool = True) -> Any:
-        stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
-        for ch in self.base.iter_chunks(chunk_frames=chunk_frames, start=self.offset + int(start),
-                                        stop=self.offset + stop, stride=stride, atom_indices=atom_indices,
-                                        velocities=velocities):
-            ch.start = ch.start - self.offset
-            yield ch
-
-    def read_frame(self, index: int) -> Any:
-        if not -self.n_frames <= index < self.n_frames:
-            raise IndexError(f"frame {index} out of range (window has {self.n_frames})")
-        ch = self.base.read_frame(self.offset + index % self.n_frames)
-        ch.start -= self.offset
-        return ch
-
-
 def window_run(run: Run, start: int, stop: int) -> Run:
-    """The run cut to frames [start, stop) (energies cut to the same time span); no data copied."""
-    import dataclasses
-
-    from phasewake.core.model.run import EnergyTable
-
-    if start <= 0 and stop >= run.n_frames:
-        return run
-    t = run.time_ps
-    lo, hi = float(t[start]), float(t[stop - 1])
-    energies = run.energies
-    if energies is not None:
-        et = np.asarray(energies.time_ps, float)
-        sel = (et >= lo - 1e-9 * max(1.0, abs(lo))) & (et <= hi + 1e-9 * max(1.0, abs(hi)))
-        energies = EnergyTable(time_ps=et[sel], sources=energies.sources,
-                               series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
-                                       for k, v in energies.series.items()})
-    frames = None if run.frames is None else WindowFrames(run.frames, start, stop)
-    return dataclasses.replace(run, time_ps=t[start:stop], frames=frames, energies=energies,
-                               name=run.name)
+    """The run cut to frames [start, stop): ``Run.window`` (``core/model/window.py``)."""
+    return run.window(start, stop)
 
 
 def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:

@@ -125,7 +125,6 @@ def _backbone_dihedrals(topology: Any, solute: set[int]) -> list[tuple[str, tupl
 def _sample_positions(run: Run, atoms: np.ndarray, max_frames: int) -> tuple[np.ndarray, np.ndarray | None] | None:
     """Positions (F, len(atoms), 3) of at most ``max_frames`` frames spread over the run, and the box."""
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.readers.common import iter_frame_chunks
 
     frames = run.frames
     if frames is None or run.n_frames < 1:
@@ -134,8 +133,7 @@ def _sample_positions(run: Run, atoms: np.ndarray, max_frames: int) -> tuple[np.
     pos: list[np.ndarray] = []
     box: list[np.ndarray] = []
     try:
-        for ch in iter_frame_chunks(frames, chunk_frames=256, stride=stride, atom_indices=atoms,
-                                    velocities=False):
+        for ch in frames.iter_chunks(chunk_frames=256, stride=stride, atom_indices=atoms, velocities=False):
             pos.append(np.asarray(ch.positions_nm, dtype=np.float64))
             if ch.box_nm is not None:
                 box.append(np.asarray(ch.box_nm, dtype=np.float64))

@@ -29,7 +29,6 @@ from phasewake.core.analyses import verdicts
 from phasewake.core.analyses.correlation import statistical_inefficiency
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
-from phasewake.core.readers.common import iter_frame_chunks
 
 if TYPE_CHECKING:
     from phasewake.core.model.run import Run
@@ -222,8 +221,8 @@ def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.nd
     dt = float(np.median(np.diff(t)))
     acc = TMAccumulator()
     done = 0
-    for chunk in iter_frame_chunks(run.frames, chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                   atom_indices=idx, velocities=True, positions=False):
+    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                        atom_indices=idx, velocities=True, positions=False):
         v = chunk.velocities_nm_per_ps
         if v is None:
             raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)

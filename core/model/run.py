@@ -160,9 +160,8 @@ class FrameSource(Protocol):
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
         """Chunks of frames. ``positions=False`` (for velocity-only analyses) may skip reading positions:
-        ``positions_nm`` is then an empty array of shape (n, 0, 3) and ``box_nm`` may be None. Call it
-        through :func:`phasewake.core.readers.common.iter_frame_chunks` when the source may predate the
-        keyword."""
+        ``positions_nm`` is then an empty array of shape (n, 0, 3) and ``box_nm`` may be None. Every frame
+        source takes every one of these keywords."""
         ...
 
     def read_frame(self, index: int) -> FrameChunk: ...
@@ -256,6 +255,12 @@ class Run:
     @property
     def has_velocities(self) -> bool:
         return self.frames is not None and self.frames.has_velocities
+
+    def window(self, start: int, stop: int) -> Run:
+        """This run cut to frames [start, stop) (``phasewake.core.model.window.window_run``)."""
+        from phasewake.core.model.window import window_run
+
+        return window_run(self, start, stop)
 
 
 def open_run(

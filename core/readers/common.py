@@ -366,8 +366,8 @@ class KeptFrames(ChunkedFrames):
         for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
             lo, hi = int(inner_idx[a]), int(inner_idx[b - 1]) + 1
             pos = a
-            for ch in iter_frame_chunks(self.inner, chunk_frames=chunk_frames, start=lo, stop=hi, stride=stride,
-                                        atom_indices=atom_indices, velocities=velocities, positions=positions):
+            for ch in self.inner.iter_chunks(chunk_frames=chunk_frames, start=lo, stop=hi, stride=stride,
+                                             atom_indices=atom_indices, velocities=velocities, positions=positions):
                 ch.start = int(want[pos])
                 pos += ch.n_frames
                 yield ch
@@ -423,43 +423,6 @@ def box_matrix(box: np.ndarray, n_frames: int) -> np.ndarray:
     raise ValueError(f"box of shape {b.shape} is not (3,), (3,3), (F,3) or (F,3,3)")
 
 
-# --- chunk iteration ---
-
-_TAKES_POSITIONS: dict[type, bool] = {}
-
-
-def iter_frame_chunks(frames: FrameSource, *, positions: bool = True, **kwargs: Any) -> Iterator[FrameChunk]:
-    """``frames.iter_chunks(**kwargs)``, passing ``positions=False`` only to sources that accept it.
-
-    Velocity-only analyses ask for ``positions=False`` so readers skip the position read (half the I/O
-    of a file with both); a frame source written before that keyword (a wrapper, a test double) still
-    works and just returns its positions.
-
-    Parameters
-    ----------
-    frames : FrameSource
-    positions : bool
-        False: the positions are not needed (``positions_nm`` may then have shape (n, 0, 3)).
-    **kwargs
-        The other keywords of :meth:`FrameSource.iter_chunks`.
-    """
-    if not positions:
-        kind = type(frames)
-        takes = _TAKES_POSITIONS.get(kind)
-        if takes is None:
-            import inspect
-
-            try:
-                params = inspect.signature(frames.iter_chunks).parameters
-            except (TypeError, ValueError):
-                params = {}  # type: ignore[assignment]
-            takes = "positions" in params or any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
-            _TAKES_POSITIONS[kind] = takes
-        if takes:
-            kwargs["positions"] = False
-    return frames.iter_chunks(**kwargs)
-
-
 # --- estimated velocities ---
 
 
@@ -510,9 +473,8 @@ class EstimatedVelocityFrames(ChunkedFrames):
     ) -> Iterator[FrameChunk]:
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         if not velocities or not self.has_velocities:
-            yield from iter_frame_chunks(self.inner, chunk_frames=chunk_frames, start=start, stop=stop,
-                                         stride=stride, atom_indices=atom_indices, velocities=False,
-                                         positions=positions)
+            yield from self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                              atom_indices=atom_indices, velocities=False, positions=positions)
             return
         want = np.arange(start, stop, stride)
         n_read = self.n_atoms if atom_indices is None else len(atom_indices)

@@ -103,8 +103,6 @@ class PartsFrames(ChunkedFrames):
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
-        from phasewake.core.readers.common import iter_frame_chunks
-
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         want = np.arange(start, stop, max(1, int(stride)))
         for k, part in enumerate(self.parts):
@@ -112,9 +110,9 @@ class PartsFrames(ChunkedFrames):
             mine = want[(want >= lo) & (want < hi)]
             if mine.size == 0:
                 continue
-            for ch in iter_frame_chunks(part.frames, chunk_frames=chunk_frames, start=int(mine[0]) - lo,
-                                        stop=int(mine[-1]) - lo + 1, stride=stride, atom_indices=atom_indices,
-                                        velocities=velocities, positions=positions):
+            for ch in part.frames.iter_chunks(chunk_frames=chunk_frames, start=int(mine[0]) - lo,
+                                              stop=int(mine[-1]) - lo + 1, stride=stride, atom_indices=atom_indices,
+                                              velocities=velocities, positions=positions):
                 g = ch.start + lo
                 idx = np.arange(g, g + ch.n_frames * stride, stride)[: ch.n_frames]
                 yield FrameChunk(start=int(g), time_ps=self._time[idx], positions_nm=ch.positions_nm,

@@ -117,8 +117,6 @@ class VelocityFileFrames(ChunkedFrames):
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
-        from phasewake.core.readers.common import iter_frame_chunks
-
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
         atoms = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
         n_read = self.n_atoms if atoms is None else atoms.size
@@ -126,7 +124,7 @@ class VelocityFileFrames(ChunkedFrames):
         kw: dict[str, Any] = {"chunk_frames": per, "start": start, "stop": stop, "stride": stride,
                               "atom_indices": atom_indices, "velocities": False}
         try:
-            for ch in iter_frame_chunks(self.inner, positions=positions, **kw):
+            for ch in self.inner.iter_chunks(positions=positions, **kw):
                 vel = None
                 if velocities:
                     vel = self._velocities(ch.start, ch.start + ch.n_frames * stride, stride, atoms)

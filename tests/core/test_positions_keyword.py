@@ -6,7 +6,7 @@ reader's output.
 
 import numpy as np
 
-from phasewake.core.readers.common import EstimatedVelocityFrames, iter_frame_chunks
+from phasewake.core.readers.common import EstimatedVelocityFrames
 from phasewake.core.readers.memory import ArrayFrames
 
 
@@ -39,7 +39,7 @@ def _h5md(path, pos, vel):
 
 
 def _check(frames, vel, **kw):
-    got = list(iter_frame_chunks(frames, chunk_frames=3, velocities=True, positions=False, **kw))
+    got = list(frames.iter_chunks(chunk_frames=3, velocities=True, positions=False, **kw))
     cols = kw.get("atom_indices")
     want = vel if cols is None else vel[:, cols]
     assert sum(c.n_frames for c in got) == want.shape[0]
@@ -102,26 +102,9 @@ def test_estimated_velocities_without_positions():
     want[1:-1] = (p64[2:] - p64[:-2]) / (t[2:] - t[:-2])[:, None, None]
     want[0] = (p64[1] - p64[0]) / (t[1] - t[0])
     want[-1] = (p64[-1] - p64[-2]) / (t[-1] - t[-2])
-    got = list(iter_frame_chunks(est, chunk_frames=3, velocities=True, positions=False))
+    got = list(est.iter_chunks(chunk_frames=3, velocities=True, positions=False))
     assert all(c.positions_nm.shape == (c.n_frames, 0, 3) for c in got)
     np.testing.assert_allclose(np.concatenate([c.velocities_nm_per_ps for c in got]), want, rtol=1e-5)
-
-
-def test_old_sources_still_get_their_positions():
-    class Legacy:  # a frame source written before the keyword
-        def __init__(self, inner):
-            self.inner = inner
-
-        def iter_chunks(self, *, chunk_frames=256, start=0, stop=None, stride=1, atom_indices=None,
-                        velocities=True):
-            return self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                          atom_indices=atom_indices, velocities=velocities)
-
-    pos, vel = _data()
-    got = list(iter_frame_chunks(Legacy(ArrayFrames(pos, np.arange(7) * 0.02, vel)), chunk_frames=4,
-                                 positions=False))
-    np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in got]), pos)
-    np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in got]), vel)
 
 
 def test_h5md_few_atoms_read_as_a_hyperslab(tmp_path):
