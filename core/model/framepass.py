@@ -34,6 +34,7 @@ import numpy as np
 
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
+from phasewake.core.model.window import WindowFrames
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -190,7 +191,8 @@ def run_pass(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=run_path(run))
     start_, stop_ = frame_range(run, start, stop)
-    if workers != 1 and int(stride) == 1:
+    if workers != 1 and int(stride) == 1 and not isinstance(run.frames, WindowFrames):
+        # (a worker opens the run again from its files: the whole run, not a window of it)
         from phasewake.core.model import parallel
 
         if parallel.parallel_wanted(run, consumers, start_, stop_, workers):
