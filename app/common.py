@@ -319,3 +319,27 @@ def run_with_progress(work: Generator[Progress, None, T], label: str) -> T:
 
 def print_json(obj: Any) -> None:
     sys.stdout.write(json.dumps(to_jsonable(obj), indent=2, allow_nan=False) + "\n")
+
+
+def _thread_count(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"a whole number of threads, got {text!r}") from None
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"at least 1 thread, got {n}")
+    return n
+
+
+def add_threads_argument(parser: argparse.ArgumentParser) -> None:
+    """``--threads N``: threads of the long numpy kernels (:mod:`phasewake.core.settings`)."""
+    parser.add_argument("--threads", metavar="N", type=_thread_count, default=None,
+                        help="threads of the long computations (default: every core this process may use); "
+                             "the numbers do not depend on it")
+
+
+def apply_threads(args: argparse.Namespace) -> None:
+    if getattr(args, "threads", None) is not None:
+        from phasewake.core.settings import set_threads
+
+        set_threads(args.threads)

@@ -27,7 +27,14 @@ import textwrap
 from pathlib import Path
 from typing import Any
 
-from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+from phasewake.app.common import (
+    add_run_arguments,
+    add_threads_argument,
+    apply_threads,
+    open_run_from_args,
+    print_json,
+    run_with_progress,
+)
 
 LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 
@@ -64,6 +71,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(default: from the transition-path durations)")
     parser.add_argument("--no-cache", action="store_true",
                         help="compute afresh; neither read nor write the result cache")
+    add_threads_argument(parser)
 
 
 def _floats(text: str, n: int, what: str) -> tuple[float, ...]:
@@ -185,6 +193,7 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.store.cache import ResultCache
     from phasewake.core.store.cached import requested
 
+    apply_threads(args)
     if args.events:
         from phasewake.app.common import check_output_path
 

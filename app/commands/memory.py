@@ -65,7 +65,14 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+from phasewake.app.common import (
+    add_run_arguments,
+    add_threads_argument,
+    apply_threads,
+    open_run_from_args,
+    print_json,
+    run_with_progress,
+)
 
 LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 _SKIP_ROLES = ("time", "step")
@@ -73,6 +80,7 @@ _SKIP_ROLES = ("time", "step")
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_run_arguments(parser)
+    add_threads_argument(parser)
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = textwrap.dedent("""\
         examples:
@@ -592,6 +600,7 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, worst
     from phasewake.core.readers import open_run
 
+    apply_threads(args)
     run_ = open_run_from_args(args)
     replicas = []
     for files in args.replica:

@@ -32,7 +32,6 @@ Every kernel accepts 2D input with ``axis=`` so that many series are handled in 
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -41,6 +40,7 @@ import numpy as np
 from phasewake.core.analyses import verdicts
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
+from phasewake.core.settings import threads
 
 Normalisation = Literal["biased", "unbiased"]
 Method = Literal["sokal", "geyer", "first_zero", "auto"]
@@ -48,7 +48,6 @@ METHODS: tuple[str, ...] = ("sokal", "geyer", "first_zero")  # the single estima
 AUTO = "auto"  # Sokal, or Geyer on an oscillating ACF; the largest estimate when the estimators disagree
 
 MIN_SAMPLES = 4
-_WORKERS = max(1, min(2, os.cpu_count() or 1))
 
 # ---------------------------------------------------------------------------------------------------
 # Verdict kinds owned by this module
@@ -186,10 +185,10 @@ def _full_sums(d: np.ndarray, max_lag: int) -> np.ndarray:
     rows = int(max(1, _FFT_BYTES // (nfft * 24)))
     out = np.empty((r, max_lag + 1))
     for i in range(0, r, rows):
-        f = scipy.fft.rfft(d[i : i + rows], n=nfft, axis=-1, workers=_WORKERS)
+        f = scipy.fft.rfft(d[i : i + rows], n=nfft, axis=-1, workers=threads())
         power = f.real * f.real + f.imag * f.imag
         del f
-        out[i : i + rows] = scipy.fft.irfft(power, n=nfft, axis=-1, workers=_WORKERS)[:, : max_lag + 1]
+        out[i : i + rows] = scipy.fft.irfft(power, n=nfft, axis=-1, workers=threads())[:, : max_lag + 1]
     return out
 
 
@@ -213,7 +212,7 @@ def _blocked_sums(d: np.ndarray, max_lag: int) -> np.ndarray:
     per = int(max(2, _FFT_BYTES // (2 * bsize * 24)))
     prev_f = None
     for i in range(0, nb + 1, per):
-        f = scipy.fft.rfft(blocks[i : i + per], n=2 * bsize, axis=-1, workers=_WORKERS)
+        f = scipy.fft.rfft(blocks[i : i + per], n=2 * bsize, axis=-1, workers=threads())
         if prev_f is not None:
             f = np.concatenate([prev_f, f], axis=0)
         nxt = f[1:]
@@ -368,9 +367,9 @@ def cross_correlation(
     if sx == 0 or sy == 0:
         raise AnalysisError("a series has no variance: cross-correlation undefined")
     nfft = scipy.fft.next_fast_len(n + k + 1, real=True)
-    fa = scipy.fft.rfft(da, nfft, workers=_WORKERS)
-    fb = scipy.fft.rfft(db, nfft, workers=_WORKERS)
-    full = scipy.fft.irfft(np.conj(fa) * fb, nfft, workers=_WORKERS)
+    fa = scipy.fft.rfft(da, nfft, workers=threads())
+    fb = scipy.fft.rfft(db, nfft, workers=threads())
+    full = scipy.fft.irfft(np.conj(fa) * fb, nfft, workers=threads())
     pos = full[: k + 1]  # sum_t da(t) db(t+k)
     neg = full[nfft - k :][::-1] if k > 0 else full[:0]  # lags -1..-k
     lags = np.arange(-k, k + 1)

@@ -135,7 +135,7 @@ def _blas_single_thread() -> Any:
 _THREADPOOL_CONTROLLER: Any = None
 
 
-GRAM_THREADS: int | None = None  # threads of the Gram engine; None: 2 when a core is idle, else 1
+GRAM_THREADS: int | None = None  # threads of the Gram engine; None: the threads setting (core/settings.py)
 
 
 def _gram_subblock(max_lag: int) -> int:
@@ -146,13 +146,13 @@ def _gram_subblock(max_lag: int) -> int:
 
 
 def _gram_workers(n_origins: int, sub: int) -> int:
-    """Threads for one banded sum: 2 when a core is idle right now
-    (:func:`phasewake.core.cpuload.kernel_threads`) and the work is large, else 1."""
-    from phasewake.core.cpuload import kernel_threads
+    """Threads for one banded sum: the threads setting (:func:`phasewake.core.settings.threads`) when the
+    work is large, else 1."""
+    from phasewake.core.settings import threads
 
     if n_origins < 8 * sub:
         return 1
-    return kernel_threads(GRAM_THREADS)
+    return max(1, int(GRAM_THREADS)) if GRAM_THREADS is not None else threads()
 
 
 class BlockCorrelator:

@@ -158,3 +158,17 @@ def test_water_bond_gets_no_states_one_line_exit_2(name, why, capsys):
     err = capsys.readouterr().err
     assert rc == 2 and len(err.strip().splitlines()) == 1
     assert why in err
+
+
+def test_threads_option_changes_nothing_in_the_numbers(capsys, monkeypatch):
+    from phasewake.core import settings
+
+    monkeypatch.setattr(settings, "_threads", None)  # restored after the test (the option sets it)
+    outs = []
+    for n in ("1", "2"):
+        assert main(["crossings", str(LANGEVIN), "-c", COORD, "--json", "--no-cache", "--threads", n]) in (0, 1)
+        outs.append(capsys.readouterr().out)
+    assert outs[0] == outs[1] and settings.threads() == 2
+    with pytest.raises(SystemExit) as exc:  # argparse's own usage error: exit 2, one message
+        main(["crossings", str(LANGEVIN), "-c", COORD, "--threads", "0"])
+    assert exc.value.code == 2 and "at least 1 thread" in capsys.readouterr().err

@@ -12,7 +12,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from phasewake.core import settings
 from phasewake.core.analyses import crossings as C
+from phasewake.core.analyses.crossings import scan as S
 from phasewake.core.progress import result_of
 
 A_HI, B_LO, SURF = -0.5, 0.5, 0.0
@@ -89,8 +91,8 @@ def noisy_two_state(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 @pytest.mark.parametrize("threads", [1, 3])
 @pytest.mark.parametrize("seed", [1, 2])
 def test_scan_matches_python_state_machine(monkeypatch: pytest.MonkeyPatch, threads: int, seed: int) -> None:
-    monkeypatch.setattr(C, "_CHUNK", 64)  # ~100 chunk boundaries, several parts
-    monkeypatch.setattr(C, "SCAN_THREADS", threads)
+    monkeypatch.setattr(S, "_CHUNK", 64)  # ~100 chunk boundaries, several parts
+    monkeypatch.setattr(settings, "_threads", threads)
     t, q = noisy_two_state(6000, seed)
     ref = reference(q)
     res = result_of(C.crossings_work([(t, q)], states=(A_HI, B_LO), surface=SURF, kappa_time_series=False,
@@ -117,14 +119,14 @@ def test_scan_matches_python_state_machine(monkeypatch: pytest.MonkeyPatch, thre
 
 def test_threaded_scan_equals_single_part(monkeypatch: pytest.MonkeyPatch) -> None:
     """Parts split at chunk boundaries give exactly the one-part scan (a crossing on every split too)."""
-    monkeypatch.setattr(C, "_CHUNK", 50)
+    monkeypatch.setattr(S, "_CHUNK", 50)
     t, q = noisy_two_state(20_000, 7)
     q[49:51] = [-1.0, 1.0]  # crossings exactly at chunk starts
     q[9999:10001] = [1.0, -1.0]
     out = {}
     for threads in (1, 2, 5):
-        monkeypatch.setattr(C, "SCAN_THREADS", threads)
-        sc = C._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
+        monkeypatch.setattr(settings, "_threads", threads)
+        sc = S._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
         out[threads] = sc
     for threads in (2, 5):
         for name in ("entries", "labels", "exits", "crossings", "next_entry", "next_label"):
@@ -133,23 +135,21 @@ def test_threaded_scan_equals_single_part(monkeypatch: pytest.MonkeyPatch) -> No
 
 
 def test_scan_flags_nan_and_time_order_in_any_part(monkeypatch: pytest.MonkeyPatch) -> None:
-    monkeypatch.setattr(C, "_CHUNK", 64)
-    monkeypatch.setattr(C, "SCAN_THREADS", 3)
+    monkeypatch.setattr(S, "_CHUNK", 64)
+    monkeypatch.setattr(settings, "_threads", 3)
     t, q = noisy_two_state(3000, 3)
     q2 = q.copy()
     q2[2500] = np.nan
-    assert not C._scan(t, q2, a_hi=A_HI, b_lo=B_LO, surface=SURF).finite
+    assert not S._scan(t, q2, a_hi=A_HI, b_lo=B_LO, surface=SURF).finite
     t2 = t.copy()
     t2[2100] = t2[2099]
-    assert not C._scan(t2, q, a_hi=A_HI, b_lo=B_LO, surface=SURF).time_increasing
-    ok = C._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
+    assert not S._scan(t2, q, a_hi=A_HI, b_lo=B_LO, surface=SURF).time_increasing
+    ok = S._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
     assert ok.finite and ok.time_increasing
 
 
 def test_dwell_tests_same_with_two_threads(monkeypatch: pytest.MonkeyPatch) -> None:
     """The two Monte Carlo KS tests (Lilliefors 1969) run at once when a core is idle: same numbers."""
-    from phasewake.core import cpuload
-
     rng = np.random.default_rng(9)
     n = 400_000
     switches = np.cumsum(rng.exponential(80.0, size=n // 40)).astype(np.int64)
@@ -159,7 +159,7 @@ def test_dwell_tests_same_with_two_threads(monkeypatch: pytest.MonkeyPatch) -> N
     t = np.arange(n) * 0.001
     out = {}
     for threads in (1, 2):
-        monkeypatch.setattr(cpuload, "kernel_threads", lambda *a, _n=threads, **k: _n)
+        monkeypatch.setattr(settings, "_threads", threads)
         res = result_of(C.crossings_work([(t, q)], states=(A_HI, B_LO), surface=SURF, kappa_time_series=False))
         out[threads] = res.dwell_tests
     assert min(test.n for test in out[1].values()) >= 1000  # the threaded path is taken

@@ -475,7 +475,7 @@ def test_the_crossings_scan_and_dwell_tests_stop_at_a_noted_interrupt():
     # The long loops of the crossings analysis (the side-change scan, the Monte Carlo of the dwell-time
     # test) look at the noted signal between chunks, also inside their worker threads.
     from phasewake.core import interrupts
-    from phasewake.core.analyses.crossings import _scan_part
+    from phasewake.core.analyses.crossings.scan import _scan_part
     from phasewake.core.analyses.rates import exponential_ks_test
 
     q = np.sin(np.arange(200_000) / 50.0)

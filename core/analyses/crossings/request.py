@@ -1,0 +1,192 @@
+"""CrossingsRequest: the one request of crossings for the command line, the window, the report and the
+Python API. The temperature, kT/m_eff, the profile's Jacobian and every default are decided here."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import TYPE_CHECKING, Any, ClassVar
+
+import numpy as np
+
+from phasewake.core.analyses.crossings.checks import check_not_stiff_bond
+from phasewake.core.analyses.crossings.pooled import crossings_work
+from phasewake.core.analyses.crossings.results import CrossingsResult, as_trace
+from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.errors import AnalysisError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.units import KB_KJ_PER_MOL_K
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
+
+JACOBIANS = ("none", "auto")
+
+
+def run_temperature(run: Run) -> tuple[float | None, str]:
+    """The temperature (K) of ``run`` for kT, and where it comes from; (None, why) when unknown.
+
+    The run's own statement first (the thermostat target from its files, or a ``--temperature`` given
+    when it was opened), else the mean kinetic temperature of its energy table. Never a guess: with
+    neither, the temperature is unknown and whatever needs kT says so.
+    """
+    if run.metadata.temperature_K:
+        return float(run.metadata.temperature_K), "thermostat target of the run"
+    if run.energies is not None:
+        s = run.energies.by_role("temperature")
+        if s is not None:
+            v = np.asarray(s.values, dtype=float)
+            if np.isfinite(v).any():
+                return float(np.nanmean(v)), "mean kinetic temperature in the energy table"
+    return None, ("the temperature is unknown (no thermostat target in the files and no temperature column): "
+                  "give it (--temperature) for the TST flux factor of a coordinate without velocities")
+
+
+def kt_over_m_eff(temperature_K: float | None, series: Sequence[Any]) -> float | None:
+    """kT <1/m_eff> in (unit/ps)^2 over every frame of every series (equipartition of dq/dt; see
+    :mod:`phasewake.core.analyses.coordinates`), or None when the temperature or an m_eff is unknown."""
+    if temperature_K is None:
+        return None
+    inverse = []
+    for s in series:
+        m = getattr(s, "m_eff", None)
+        if m is None or not np.all(np.isfinite(m)):
+            return None
+        inverse.append(1.0 / np.asarray(m, dtype=float))
+    return float(KB_KJ_PER_MOL_K * float(temperature_K) * np.mean(np.concatenate(inverse)))
+
+
+def profile_jacobian(jacobian: str, coordinate: str) -> str:
+    """The Jacobian of the free-energy profile: ``"auto"`` reads the parsed specification (a distance in
+    3D gets the 4 pi r^2 correction, see :func:`phasewake.core.analyses.landscape.jacobian_of`)."""
+    from phasewake.core.analyses.landscape import jacobian_of
+
+    if jacobian not in JACOBIANS:
+        raise AnalysisError(f"unknown jacobian {jacobian!r}: use one of {', '.join(JACOBIANS)}")
+    return jacobian_of(coordinate) if jacobian == "auto" else "none"
+
+
+@dataclass(frozen=True)
+class CrossingsRequest(AnalysisRequest):
+    """Crossings of ``coordinate`` in a run (and its ``replicas``, pooled): the one request of every front end.
+
+    The defaults are decided here and nowhere else:
+
+    - temperature: ``temperature_K`` when given, else :func:`run_temperature` of the first run (its
+      thermostat target, else its mean kinetic temperature); unknown is said in the result's warnings,
+      never replaced by a guess;
+    - kT/m_eff for the TST flux factor of a coordinate without velocities: :func:`kt_over_m_eff` over
+      every replica's frames;
+    - the Jacobian of the profile from which states are suggested: ``"none"`` by default, since the
+      dividing surface of least TST rate lies at the minimum of P(q) itself (Truhlar, Garrett and
+      Klippenstein, J. Phys. Chem. 100, 12771 (1996), variational TST), where q dwells; ``"auto"`` applies
+      the distance Jacobian to distances (from the parsed specification);
+    - states and surface suggested from the profile when not given (:func:`suggest_states`), refused for
+      a stiff bond (:func:`check_not_stiff_bond`).
+
+    ``start``/``stop`` select frames [start, stop) of every run. ``chunk_frames`` only sets how many
+    frames are read at once (it never changes the result and is not part of the cache key).
+    """
+
+    name: ClassVar[str] = "crossings"
+    label: ClassVar[str] = "crossings"
+
+    coordinate: str
+    states: tuple[float, float] | None = None
+    surface: float | None = None
+    confidence: float = 0.95
+    kappa_window_ps: tuple[float, float] | None = None
+    temperature_K: float | None = None
+    jacobian: str = "none"
+    replicas: tuple[Run, ...] = ()
+    start: int = 0
+    stop: int | None = None
+    chunk_frames: int | None = field(default=None, compare=False)
+
+    def settings(self) -> Mapping[str, Any]:
+        out = dict(super().settings())
+        del out["chunk_frames"]
+        return out
+
+    def reference_paths(self, run: Run) -> tuple[str, ...]:
+        from phasewake.core.analyses.coordinates import resolve_for_run
+        from phasewake.core.errors import PhasewakeError
+
+        try:
+            ref = resolve_for_run(self.coordinate, run).reference_path
+        except PhasewakeError:  # a bad specification is reported by the analysis itself
+            return ()
+        return (str(ref),) if ref else ()
+
+    def work(self, run: Run) -> Work[CrossingsResult]:
+        runs = [run, *self.replicas]
+        series = yield from self._series(runs)
+        return (yield from self.analyse(runs, series, base=len(runs), total=len(runs) + 1))
+
+    def _series(self, runs: Sequence[Run]) -> Work[list[Any]]:
+        """Step 1: the coordinate (and dq/dt, m_eff) of every run, read chunk by chunk."""
+        from phasewake.core.analyses.coordinates import compute_coordinates
+
+        out = []
+        for k, r in enumerate(runs):
+            work = compute_coordinates(r, [self.coordinate], start=self.start, stop=self.stop,
+                                       chunk_frames=self.chunk_frames)
+            s = yield from _relay(work, k, len(runs) + 1, r.name)
+            out.append(s[0])
+        return out
+
+    def analyse(self, runs: Sequence[Run], series: Sequence[Any], *, base: float = 0.0,
+                total: float = 1.0) -> Work[CrossingsResult]:
+        """Step 2: crossings of given coordinate series of ``runs`` (one per run; CoordinateSeries, Trace or
+        (time_ps, q[, dq/dt]) as :func:`as_trace` reads them) with this request's settings.
+
+        For a front end that already holds the series; :meth:`work` is both steps.
+        """
+        profile_jacobian(self.jacobian, self.coordinate)  # an unknown Jacobian is refused before any work
+        temp, why = ((float(self.temperature_K), "given") if self.temperature_K is not None
+                     else run_temperature(runs[0]))
+        traces = [as_trace(s, name=r.name) for s, r in zip(series, runs)]
+        unit = str(getattr(series[0], "unit", ""))
+        if self.states is None:
+            check_not_stiff_bond(self.coordinate, runs[0], [tr.values for tr in traces], unit)
+        inner = crossings_work(traces, states=self.states, surface=self.surface, unit=unit,
+                               confidence=self.confidence, kappa_window_ps=self.kappa_window_ps,
+                               temperature_K=temp, kT_over_m_eff=kt_over_m_eff(temp, series),
+                               jacobian=profile_jacobian(self.jacobian, self.coordinate))
+        result: CrossingsResult = yield from _relay(inner, base, total, "")
+        if temp is None:
+            result = replace(result, warnings=(*result.warnings, why))
+        return replace(result, settings=replace(result.settings, temperature_source=why))
+
+
+def _relay(work: Work[Any], base: float, total: float, prefix: str) -> Work[Any]:
+    """Run ``work`` as the part [base, base + 1) of ``total``, its messages after ``prefix``."""
+    try:
+        while True:
+            p = next(work)
+            msg = f"{prefix}: {p.message}" if prefix and p.message else (prefix or p.message)
+            yield Progress(base + (p.fraction or 0.0), total, msg)
+    except StopIteration as stop:
+        return stop.value
+
+
+def crossings_of_runs(
+    runs: Run | Sequence[Run],
+    coordinate: str,
+    *,
+    states: tuple[float, float] | None = None,
+    surface: float | None = None,
+    confidence: float = 0.95,
+    kappa_window_ps: tuple[float, float] | None = None,
+    temperature_K: float | None = None,
+    chunk_frames: int | None = None,
+) -> Work[CrossingsResult]:
+    """Crossings of ``coordinate`` (a coordinate spec, e.g. ``"distance(0, 1)"``) in one or more runs:
+    :class:`CrossingsRequest` on the first run with the others as replicas (their events pool)."""
+    run_list: list[Run] = [runs] if not isinstance(runs, Sequence) else list(runs)
+    if not run_list:
+        raise AnalysisError("no run given")
+    request = CrossingsRequest(coordinate=coordinate, states=states, surface=surface, confidence=confidence,
+                               kappa_window_ps=kappa_window_ps, temperature_K=temperature_K,
+                               replicas=tuple(run_list[1:]), chunk_frames=chunk_frames)
+    return (yield from request.work(run_list[0]))
