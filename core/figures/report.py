@@ -34,11 +34,11 @@ from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures.export import (
     Preset,
-    _check_writable,
-    _metadata,
-    _rc,
+    check_writable,
     draw_into,
     figure_png_bytes,
+    file_metadata,
+    preset_rc,
     provenance_json,
     provenance_of_run,
 )
@@ -170,9 +170,9 @@ def build_report(
     ReportResult (from the generator's ``return``; drive it with ``phasewake.core.progress.drive``)
     """
     target = Path(path)
-    _check_writable(target)
+    check_writable(target)
     if html_path is not None:
-        _check_writable(Path(html_path))
+        check_writable(Path(html_path))
     settings: dict[str, Any] = {"coordinate": coordinate, "temperature_K": temperature_K,
                                 "n_constraints": n_constraints, "timestep_ps": timestep_ps,
                                 "states": states, "surface": surface, "max_points": max_points}
@@ -349,7 +349,7 @@ def build_report(
         for i, p in enumerate(laid):
             fig = _page_figure(p, run_name=run.name, number=i + 1, n_total=len(laid))
             buf = io.BytesIO()
-            with _rc(_BODY):
+            with preset_rc(_BODY):
                 fig.savefig(buf, format="png", dpi=preview_dpi)
             write_bytes(folder / f"page-{i + 1:02d}.png", buf.getbuffer())
     html_out = None
@@ -860,9 +860,9 @@ def _write_pdf(target: Path, pages: Sequence[ReportPage], *, run_name: str, prov
     from matplotlib.backends.backend_pdf import PdfPages
 
     laid = _paginate(pages)
-    meta = _metadata("pdf", f"phasewake report: {run_name}", provenance)
+    meta = file_metadata("pdf", f"phasewake report: {run_name}", provenance)
     buf = io.BytesIO()  # the whole PDF in memory first: a full disk meets one plain write, not the PDF writer
-    with _rc(_BODY), PdfPages(buf, metadata=meta) as pdf:
+    with preset_rc(_BODY), PdfPages(buf, metadata=meta) as pdf:
         for i, p in enumerate(laid):
             fig = _page_figure(p, run_name=run_name, number=i + 1, n_total=len(laid))
             pdf.savefig(fig)
@@ -905,6 +905,6 @@ def _write_html(target: Path, pages: Sequence[ReportPage], *, run_name: str, pro
                          f"<figcaption class='caption'>{esc(p.caption)}</figcaption></figure>")
         parts.append("</section>")
     parts.append(f"<p class='note'>phasewake {esc(__version__)}. {esc(HEURISTIC_NOTE)}</p></body></html>")
-    _check_writable(target)
+    check_writable(target)
     write_text(target, "\n".join(parts))
     return target

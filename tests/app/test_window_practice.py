@@ -314,7 +314,8 @@ def test_window_text_is_in_plain_words():
 
 
 def test_exported_figures_write_symbols_as_mathtext(tmp_path):
-    from phasewake.core.figures.export import _wrap_label, export_figure, mathtext
+    from phasewake.core.figures.draw import wrap_label as _wrap_label
+    from phasewake.core.figures.export import export_figure, mathtext
     from phasewake.core.figures.spec import Axis, FigureSpec, Line, PlotSpec
 
     assert mathtext("σ_E/σ_K = 1.02") == r"$\sigma_E/\sigma_K$ = 1.02"
