@@ -206,12 +206,15 @@ def run(args: argparse.Namespace) -> int:
 
         raise AnalysisError(f"--confidence must lie between 0 and 1, got {args.confidence}")
     if args.replicas:
-        from phasewake.app.common import run_overrides
+        from phasewake.app.common import apply_parallel, run_files, run_overrides
+        from phasewake.core.model.parallel import remember_files
 
+        apply_parallel(args)
         runs = []
         with quiet_stdout():
             for f in args.files:
-                runs.append(open_run([f], topology=args.top, **run_overrides(args)))
+                runs.append(remember_files(open_run([f], topology=args.top, **run_overrides(args)),
+                                           run_files(args, [f])))
     else:
         runs = [open_run_from_args(args)]
     # only what the user gave: every default (and the temperature, which --temperature set on the runs)

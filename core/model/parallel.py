@@ -255,6 +255,7 @@ def _init_worker(done: Any, stop: Any, chunk_mb: float | None, topologies: bytes
     from phasewake.core.model.run import set_chunk_budget_mb
 
     set_chunk_budget_mb(chunk_mb)
+    set_workers(1)  # a worker's own passes stay in it: no pools within pools
     _worker_state.update(done=done, stop=stop, runs={})
     if topologies:
         from phasewake.core.readers.trajectory import seed_topologies
@@ -467,3 +468,37 @@ def frame_count(files: RunFiles) -> int:
     """The number of frames of the run of ``files`` (a small task: for tests and for a first look at an
     ensemble)."""
     return opened(files, {}).n_frames
+
+
+# --------------------------------------------------------------------------------- replica ensembles
+
+
+def spread_runs(runs: Sequence[Run]) -> bool:
+    """Whether the runs of an ensemble go to workers, one task per run: more than one run, each with
+    files to open again, and more than one worker (asked for, a Dask scheduler, or automatic when the
+    runs together hold at least :data:`MIN_AUTO_ATOM_FRAMES` atom-frames)."""
+    if len(runs) < 2 or not all(r.paths or id(r) in _files_of for r in runs):
+        return False
+    if _on_cluster():
+        return True
+    asked = _workers if _workers is not None else _env_workers()
+    if asked is not None:
+        return asked > 1
+    return usable_cores() > 1 and sum(r.n_frames * r.n_atoms for r in runs) >= MIN_AUTO_ATOM_FRAMES
+
+
+def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunk_frames: int | None) -> Any:
+    """One replica's coordinate series (``compute_coordinates``), in the worker that opens its files."""
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.progress import drive
+
+    set_workers(1)  # on a Dask worker too: the replicas are the parallel part
+    run = opened(files, _worker_state.setdefault("runs", {}))
+    return drive(compute_coordinates(run, [spec], start=start, stop=stop, chunk_frames=chunk_frames))[0]
+
+
+def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None,
+                        chunk_frames: int | None = None) -> Work[list[Any]]:
+    """The coordinate ``spec`` of every run, one worker task per run (:func:`map_workers`), in order."""
+    tasks = [(files_of(r), spec, start, stop, chunk_frames) for r in runs]
+    return (yield from map_workers(coordinate_series, tasks, label=f"{spec} in {len(runs)} replicas"))

@@ -122,3 +122,28 @@ def test_ctrl_c_stops_every_worker(tmp_path):
     assert "Traceback" not in err and "KeyboardInterrupt" not in err
     time.sleep(0.5)
     assert not [p for p in family if p.is_running() and p.status() != psutil.STATUS_ZOMBIE]
+
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
+
+
+def test_replicas_over_two_workers_pool_as_over_one(capsys, monkeypatch):
+    import json
+
+    spread = []
+    real = parallel.replica_coordinates
+
+    def spy(*a, **kw):
+        spread.append(len(a[0]))
+        return (yield from real(*a, **kw))
+
+    monkeypatch.setattr(parallel, "replica_coordinates", spy)
+    files = [str(SAMPLES / f"dimer_langevin{s}.h5md") for s in ("", "_r2", "_r3")]
+    base = ["crossings", *files, "--replicas", "-c", "distance(0, 1)", "--json", "--no-cache"]
+    main([*base, "--workers", "1"])
+    one = json.loads(capsys.readouterr().out)
+    assert spread == []
+    main([*base, "--workers", "2"])
+    two = json.loads(capsys.readouterr().out)
+    assert spread == [3]
+    assert two == one  # every count, rate and table equal: the same series, pooled alike

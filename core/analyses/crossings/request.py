@@ -126,7 +126,11 @@ class CrossingsRequest(AnalysisRequest):
     def _series(self, runs: Sequence[Run]) -> Work[list[Any]]:
         """Step 1: the coordinate (and dq/dt, m_eff) of every run, read chunk by chunk."""
         from phasewake.core.analyses.coordinates import compute_coordinates
+        from phasewake.core.model import parallel
 
+        if parallel.spread_runs(runs):  # one worker task per replica (--workers, --scheduler)
+            return (yield from parallel.replica_coordinates(runs, self.coordinate, start=self.start,
+                                                            stop=self.stop, chunk_frames=self.chunk_frames))
         out = []
         for k, r in enumerate(runs):
             work = compute_coordinates(r, [self.coordinate], start=self.start, stop=self.stop,
