@@ -31,6 +31,7 @@ The same ranges go to a running Dask scheduler with :func:`phasewake.core.model.
 
 from __future__ import annotations
 
+import contextlib
 import os
 import pickle
 import signal
@@ -311,6 +312,31 @@ def topology_seed(run: Run) -> bytes:
     return pickle.dumps(found) if found else b""
 
 
+@contextlib.contextmanager
+def _without_main() -> Iterator[None]:
+    """Start processes that do not run the caller's main script again.
+
+    Workers run only phasewake's own functions, found by module name, so they need nothing from
+    ``__main__``; multiprocessing would still run a script's top level in each of them (as
+    ``__mp_main__``), and a script without the ``if __name__ == "__main__":`` guard would then start
+    workers from its workers and fail."""
+    import multiprocessing.spawn as spawn
+
+    real = spawn.get_preparation_data
+
+    def prepared(name: str) -> dict[str, Any]:
+        data = real(name)
+        data.pop("init_main_from_path", None)
+        data.pop("init_main_from_name", None)
+        return data
+
+    spawn.get_preparation_data = prepared  # type: ignore[assignment]
+    try:
+        yield
+    finally:
+        spawn.get_preparation_data = real  # type: ignore[assignment]
+
+
 class ProcessRanges:
     """A pool of worker processes for one pass (or one ensemble): shared progress counters, a stop flag.
 
@@ -332,6 +358,9 @@ class ProcessRanges:
         self.stop = ctx.Event()
         self.pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_worker,
                                         initargs=(self.done, self.stop, _chunk_mb, topologies))
+        with _without_main():  # every worker starts here (one per submit while none is idle)
+            for _ in range(workers):
+                self.pool.submit(int)
 
     def __enter__(self) -> ProcessRanges:
         return self

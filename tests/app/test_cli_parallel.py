@@ -147,3 +147,24 @@ def test_replicas_over_two_workers_pool_as_over_one(capsys, monkeypatch):
     two = json.loads(capsys.readouterr().out)
     assert spread == [3]
     assert two == one  # every count, rate and table equal: the same series, pooled alike
+
+
+def test_a_script_without_a_main_guard_can_use_workers(tmp_path):
+    # a notebook-style script: no `if __name__ == "__main__":` (workers must not run it again)
+    xtc, pdb = make_xtc(tmp_path, n_frames=64)
+    script = tmp_path / "user_script.py"
+    script.write_text(textwrap.dedent(f"""
+        from phasewake.core.model import parallel
+        from phasewake.core.progress import drive
+        from phasewake.core.readers import open_run
+        from tests.parallel_consumers import FrameSums
+
+        print("top level ran")
+        run = open_run([{str(xtc)!r}], topology={str(pdb)!r})
+        got = drive(parallel.ranges_pass(run, {{"s": FrameSums()}}, workers=2, chunk_frames=8))
+        print("frames", got["s"]["count"])
+    """))
+    env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}
+    done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, env=env, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split("\n")[:2] == ["top level ran", "frames 64"]

@@ -78,7 +78,7 @@ def _child(name: str, full: bool, workdir: str, q: Any) -> None:
     import scipy.signal  # noqa: F401
     import scipy.stats  # noqa: F401
 
-    from tests.benchmarks import cases  # noqa: F401 - registers the cases in this process too
+    from tests.benchmarks import cases, parallel_cases  # noqa: F401 - registers the cases in this process too
 
     try:
         out = CASES[name](full, Path(workdir))
@@ -92,7 +92,7 @@ def _child(name: str, full: bool, workdir: str, q: Any) -> None:
 def run_cases(names: list[str], *, full: bool, workdir: Path | None = None) -> list[dict[str, Any]]:
     import os
 
-    from tests.benchmarks import cases  # noqa: F401 - registers the cases
+    from tests.benchmarks import cases, parallel_cases  # noqa: F401 - registers the cases
 
     ctx = mp.get_context("spawn")
     results = []
