@@ -1,6 +1,6 @@
 """Energy conservation: conserved-quantity selection, drift, fluctuations and events.
 
-Pure array kernels (``drift_fit``, ``energy_fluctuations``, ``find_energy_events``,
+Pure array kernels (``drift_fit``, ``energy_fluctuations``, events in energy_events.py,
 ``statistical_inefficiency_of``) plus :func:`select_conserved`, which picks the series to judge from an
 :class:`~phasewake.core.model.run.EnergyTable` and says which one it picked. The Run adapter that runs all
 checks is :func:`phasewake.core.analyses.audit.audit_run`.
@@ -20,6 +20,8 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.core.analyses.correlation import statistical_inefficiency
+from phasewake.core.analyses.energy_scan import _T, _Y, ENERGY_UNIT, TableScan, scan_columns
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError, UnitError
 from phasewake.core.model.run import EnergyTable
@@ -138,40 +140,11 @@ register(
 
 
 # ---------------------------------------------------------------------------------------------------
-# Statistical inefficiency (correlation module when present, else a private Sokal-window estimator)
+# Statistical inefficiency (of phasewake.core.analyses.correlation, on long series from stretches)
 # ---------------------------------------------------------------------------------------------------
 
 
-def _sokal_statistical_inefficiency(x: np.ndarray, c: float = 5.0) -> float:
-    """g = 1 + 2 sum_k rho(k) with Sokal's automatic window (smallest M with M >= c * g(M)).
-
-    Sokal, "Monte Carlo Methods in Statistical Mechanics", NATO ASI Series B 361 (1997). FFT
-    autocovariance, zero-padded to avoid wrap-around, biased (divide by N) normalisation.
-    """
-    x = np.asarray(x, dtype=np.float64)
-    n = x.shape[0]
-    if n < 4:
-        return 1.0
-    y = x - x.mean()
-    var = float(np.dot(y, y)) / n
-    if not var > 0.0:
-        return 1.0
-    nfft = 1 << int(math.ceil(math.log2(2 * n)))
-    f = np.fft.rfft(y, nfft)
-    acov = np.fft.irfft(f * np.conj(f), nfft)[:n] / n
-    rho = acov / acov[0]
-    g_m = 1.0 + 2.0 * np.cumsum(rho[1:])
-    m = np.arange(1, n)
-    ok = np.nonzero(m >= c * g_m)[0]
-    g = float(g_m[ok[0]]) if ok.size else float(g_m[-1])
-    return max(1.0, g)
-
-
 def _g_full(x: np.ndarray) -> tuple[float, str]:
-    try:
-        from phasewake.core.analyses.correlation import statistical_inefficiency
-    except ImportError:
-        return _sokal_statistical_inefficiency(x), "Sokal automatic window (c = 5), audit's own estimator"
     try:
         g = float(statistical_inefficiency(x))
     except AnalysisError:
@@ -203,9 +176,8 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABO
                                 window: int = WINDOW, value_range: float | None = None) -> tuple[float, str]:
     """Statistical inefficiency g (>= 1) of a series and the name of the estimator used.
 
-    Uses ``phasewake.core.analyses.correlation.statistical_inefficiency`` when that module exists, else a
-    private Sokal-window estimator (Sokal 1997, c = 5). Series longer than ``window_above`` are
-    estimated as the mean g of ``n_windows`` evenly spaced stretches of ``window`` samples (the FFT of
+    Uses ``phasewake.core.analyses.correlation.statistical_inefficiency`` (Sokal 1997 window). Series
+    longer than ``window_above`` are estimated as the mean g of ``n_windows`` evenly spaced stretches of ``window`` samples (the FFT of
     the whole series dominates the audit's cost otherwise); when g is too large for the stretches to
     hold 50 g samples (the rule emcee applies, Sokal 1997), the whole series is used.
 
@@ -234,9 +206,6 @@ def statistical_inefficiency_of(x: np.ndarray, *, window_above: int = WINDOW_ABO
 # ---------------------------------------------------------------------------------------------------
 # Conserved quantity
 # ---------------------------------------------------------------------------------------------------
-
-ENERGY_UNIT = "kJ/mol"
-
 
 @dataclass(frozen=True)
 class ConservedSeries:
@@ -327,168 +296,6 @@ def select_conserved(table: EnergyTable, *, thermostatted: bool) -> ConservedSer
     raise MissingDataError(
         "no usable energy column: need a conserved or total energy, or potential and kinetic energy; "
         f"found {names}", path=src)
-
-
-# ---------------------------------------------------------------------------------------------------
-# One blocked pass over the columns of a table (issue 9)
-# ---------------------------------------------------------------------------------------------------
-
-SCAN_BLOCK = 1 << 16  # rows per block: a few columns of a block stay in cache while they are summed
-
-
-@dataclass(frozen=True)
-class DiffScan:
-    """Frame-to-frame differences d_i = x_(i+1) - x_i of one column, as seen by the pass.
-
-    ``block_min`` / ``block_max`` (n_blocks,) bound the differences of each block of rows (block b covers
-    d indices max(b B - 1, 0) .. (b + 1) B - 2), so only blocks that can hold an event are looked at
-    again; ``sample`` is d[::stride] (the even subsample the robust medians use).
-    """
-
-    block_min: np.ndarray
-    block_max: np.ndarray
-    sample: np.ndarray
-    stride: int
-
-
-@dataclass(frozen=True)
-class TableScan:
-    """Moments of equally long float64 columns from one blocked pass (:func:`scan_columns`).
-
-    ``mean``, ``m2`` (centred sums of squares), ``minimum``, ``maximum``: shape (C,), in the columns'
-    units (squared for ``m2``); ``cross`` maps the pairs asked for to their centred cross sums
-    sum_i (x_i - mean_x)(y_i - mean_y). ``finite`` is False when any value is NaN or infinite: then
-    the moments are not usable and the callers take their masked routes.
-    """
-
-    n_rows: int
-    names: tuple[str, ...]
-    mean: np.ndarray
-    m2: np.ndarray
-    minimum: np.ndarray
-    maximum: np.ndarray
-    cross: dict[tuple[str, str], float]
-    finite: bool
-    diffs: dict[str, DiffScan]
-    block_rows: int
-
-    def index(self, name: str) -> int:
-        return self.names.index(name)
-
-    def std(self, name: str) -> float:
-        """Population standard deviation of a column."""
-        return math.sqrt(max(float(self.m2[self.index(name)]), 0.0) / self.n_rows)
-
-
-def scan_columns(columns: dict[str, np.ndarray], *, diffs: tuple[str, ...] = (),
-                 cross: tuple[tuple[str, str], ...] = (), no_extremes: tuple[str, ...] = (),
-                 robust_sample: int = 1 << 20, block: int = SCAN_BLOCK) -> TableScan:
-    """Means, extremes, centred sums of squares and cross sums of columns, and difference bounds, in one pass.
-
-    Per block of rows (in cache) every column is shifted by a reference value (the mean of an even
-    subsample, so the shifted sums do not cancel) and its sum and sum of squares taken; the cross sums
-    of the pairs in ``cross`` likewise. Centred sums follow as S_xy - n m_x m_y of the shifted means
-    m (Chan, Golub and LeVeque 1983: with the shift within a few standard deviations of the mean the
-    error is that of the two-pass sums). The differences of the columns in ``diffs`` are made per
-    block too. Dot products run with one BLAS thread.
-
-    Parameters
-    ----------
-    columns : dict name -> ndarray, shape (n,), float64
-    diffs : names of columns whose differences are scanned
-    cross : pairs of names whose centred cross sums are wanted
-    no_extremes : names of columns whose minimum and maximum are not needed (reported as NaN)
-    robust_sample : int
-        The difference subsample holds at most this many values, every ceil((n - 1) / robust_sample)-th.
-    block : int
-        Rows per block.
-    """
-    from phasewake.core.analyses.correlation import one_blas_thread
-
-    names = tuple(columns)
-    cols = [np.asarray(columns[k], dtype=np.float64) for k in names]
-    n = int(cols[0].shape[0]) if cols else 0
-    c = len(cols)
-    if any(x.shape != (n,) for x in cols):
-        raise AnalysisError("the columns of one scan must be 1D and equally long")
-    stride_sub = max(1, n // 1024)
-    with np.errstate(invalid="ignore", over="ignore"):
-        shift = np.array([float(np.mean(x[::stride_sub])) if n else 0.0 for x in cols])
-    if not np.all(np.isfinite(shift)):
-        shift = np.zeros(c)  # a non-finite value in the subsample: the pass reports it below
-    pairs = [(names.index(a), names.index(b)) for a, b in cross]
-    extremes = [k not in no_extremes for k in names]
-    nd = max(n - 1, 0)
-    dstride = int(math.ceil(nd / robust_sample)) if nd > robust_sample else 1
-    n_blocks = -(-n // block) if n else 0
-    dsc = {k: (np.full(n_blocks, np.inf), np.full(n_blocks, -np.inf), np.empty(-(-nd // dstride) if nd else 0))
-           for k in diffs}
-    sums = np.zeros(c)
-    sq = np.zeros(c)
-    xy = np.zeros(len(pairs))
-    lo = np.full(c, np.inf)
-    hi = np.full(c, -np.inf)
-    width = min(block, max(n, 1))
-    buf = np.empty((c, width))
-    dbuf = np.empty(width)
-    # non-finite values only make the sums non-finite (reported as finite=False): no warnings for them
-    with one_blas_thread(), np.errstate(invalid="ignore", over="ignore"):
-        for b in range(n_blocks):
-            a0, a1 = b * block, min(n, (b + 1) * block)
-            m = a1 - a0
-            for j, col in enumerate(cols):
-                raw = col[a0:a1]
-                if extremes[j]:
-                    lo[j] = min(lo[j], raw.min())
-                    hi[j] = max(hi[j], raw.max())
-                x = np.subtract(raw, shift[j], out=buf[j, :m])
-                sums[j] += x.sum()
-                sq[j] += np.vecdot(x, x)
-            for q, (ja, jb) in enumerate(pairs):
-                xy[q] += np.vecdot(buf[ja, :m], buf[jb, :m])
-            for k in diffs:
-                col = cols[names.index(k)]
-                d0 = max(a0 - 1, 0)
-                if a1 - d0 < 2:
-                    continue
-                d = np.subtract(col[d0 + 1:a1], col[d0:a1 - 1], out=dbuf[:a1 - d0 - 1])
-                bmin, bmax, sub = dsc[k]
-                bmin[b] = d.min()
-                bmax[b] = d.max()
-                first = -(-d0 // dstride) * dstride
-                if first < d0 + d.size:
-                    got = d[first - d0 :: dstride]
-                    sub[first // dstride : first // dstride + got.size] = got
-    ext = np.array(extremes, dtype=bool)
-    finite = bool(np.all(np.isfinite(sums)) and np.all(np.isfinite(sq)) and np.all(np.isfinite(lo[ext]))
-                  and np.all(np.isfinite(hi[ext])))
-    lo[~ext] = np.nan
-    hi[~ext] = np.nan
-    mu = sums / n if n else sums
-    with np.errstate(invalid="ignore", over="ignore"):
-        m2 = sq - n * mu * mu
-        xc = {cross[q]: float(xy[q] - n * mu[ja] * mu[jb]) for q, (ja, jb) in enumerate(pairs)}
-    return TableScan(n_rows=n, names=names, mean=shift + mu, m2=m2, minimum=lo, maximum=hi, cross=xc,
-                     finite=finite, diffs={k: DiffScan(v[0], v[1], v[2], dstride) for k, v in dsc.items()},
-                     block_rows=block)
-
-
-def fast_median(x: np.ndarray, *, overwrite: bool = False) -> float:
-    """np.median of a finite 1D array by one partition (np.median partitions at two ranks plus a NaN check).
-
-    ``overwrite``: partition ``x`` itself (a float64 array the caller no longer needs) instead of a copy.
-    """
-    a = np.asarray(x, dtype=np.float64)
-    n = a.size
-    h = n // 2
-    if overwrite and a is x:
-        a.partition(h)
-        part = a
-    else:
-        part = np.partition(a, h)
-    if n % 2:
-        return float(part[h])
-    return float((part[:h].max() + part[h]) / 2.0)
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -639,9 +446,6 @@ def _dot(a: np.ndarray, b: np.ndarray) -> float:
     return float(np.einsum("i,i->", a, b))
 
 
-_T, _Y = "@time", "@energy"  # column names of the time and the judged energy in a scan
-
-
 def _fit_scan(t: np.ndarray, y: np.ndarray) -> TableScan:
     return scan_columns({_T: t, _Y: y}, cross=((_T, _Y),), no_extremes=(_T,))
 
@@ -722,252 +526,6 @@ def energy_fluctuations(
 
 
 # ---------------------------------------------------------------------------------------------------
-# Events
-# ---------------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class EnergyEvent:
-    """One located event: ``kind`` in nonfinite, jump, gap, overlap, reversal, runaway."""
-
-    kind: str
-    index: int  # row index (for a spacing event: the row after the spacing)
-    time_ps: float
-    size: float
-    unit: str
-    description: str
-
-
-@dataclass(frozen=True)
-class EventsResult:
-    events: tuple[EnergyEvent, ...]
-    n_nonfinite: int
-    n_jumps: int
-    n_gaps: int
-    n_overlaps: int  # repeated times and reversals
-    max_jump_robust_sigma: float  # largest |d - median d| / robust spread; 0 when too short
-    runaway_ratio: float | None  # RMS step noise last tenth / first tenth
-    median_spacing_ps: float | None
-    settings: dict[str, Any] = field(default_factory=dict)
-
-
-def find_energy_events(
-    time_ps: np.ndarray,
-    energy_kJ_per_mol: np.ndarray,
-    *,
-    jump_robust_sigma: float = 8.0,
-    gap_factor: float = 1.5,
-    max_listed: int = 50,
-    robust_sample: int = 1 << 20,
-    scan: TableScan | None = None,
-) -> EventsResult:
-    """Locate non-finite rows, jumps, time gaps/overlaps/reversals and a runaway trend.
-
-    Parameters
-    ----------
-    time_ps : ndarray, shape (n,), ps
-    energy_kJ_per_mol : ndarray, shape (n,), kJ/mol (may contain NaN/inf)
-    jump_robust_sigma : float
-        A frame-to-frame change this many robust spreads from the median change is a jump.
-    gap_factor : float
-        A spacing above this many median spacings is a gap.
-    max_listed : int
-        At most this many events of each kind are listed (all are counted).
-    robust_sample : int
-        Median and MAD of the steps come from at most this many evenly spaced steps.
-    scan : TableScan, optional
-        A scan of these arrays from :func:`scan_energy_table` (made here when not given). When every
-        value is finite the events come from it (one pass; only blocks whose bounds can hold an event are
-        looked at again), else from the masked arrays.
-    """
-    t = np.asarray(time_ps, dtype=np.float64)
-    e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
-    settings = {"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor, "max_listed": max_listed,
-                "robust_sample": robust_sample}
-    if scan is None or scan.n_rows != e.shape[0] or _Y not in scan.diffs or _T not in scan.diffs:
-        scan = scan_columns({_T: t, _Y: e}, diffs=(_T, _Y), no_extremes=(_T,), robust_sample=robust_sample)
-    if scan.finite and e.shape[0] >= 2:
-        return _events_from_scan(t, e, scan, jump_robust_sigma=jump_robust_sigma, gap_factor=gap_factor,
-                                 max_listed=max_listed, settings=settings)
-    return _events_masked(t, e, jump_robust_sigma=jump_robust_sigma, gap_factor=gap_factor, max_listed=max_listed,
-                          robust_sample=robust_sample, settings=settings)
-
-
-def _events_masked(t: np.ndarray, e: np.ndarray, *, jump_robust_sigma: float, gap_factor: float, max_listed: int,
-                   robust_sample: int, settings: dict[str, Any]) -> EventsResult:
-    """:func:`find_energy_events` on whole arrays with non-finite rows masked out (several passes)."""
-    events: list[EnergyEvent] = []
-
-    good = np.isfinite(e)
-    bad = np.flatnonzero(~good) if not good.all() else np.zeros(0, np.int64)
-    for i in bad[:max_listed]:
-        events.append(EnergyEvent("nonfinite", int(i), float(t[i]), float(e[i]) if not np.isnan(e[i]) else math.nan,
-                                  ENERGY_UNIT, f"non-finite energy at t = {t[i]:.6g} ps"))
-
-    dt = np.diff(t)
-    median_dt: float | None = None
-    n_gaps = n_over = 0
-    if dt.size:
-        dsub = dt if dt.size <= robust_sample else dt[:: int(math.ceil(dt.size / robust_sample))]
-        pos = dsub[dsub > 0]
-        median_dt = float(np.median(pos)) if pos.size else None
-        over = np.nonzero(dt <= 0)[0]
-        n_over = int(over.size)
-        for i in over[:max_listed]:
-            kind = "overlap" if dt[i] == 0 else "reversal"
-            events.append(EnergyEvent(kind, int(i + 1), float(t[i + 1]), float(dt[i]), "ps",
-                                      f"time {'repeats' if kind == 'overlap' else 'goes back'} at row {i + 1}: "
-                                      f"{t[i]:.6g} ps -> {t[i + 1]:.6g} ps"))
-        if median_dt is not None:
-            gaps = np.nonzero(dt > gap_factor * median_dt)[0]
-            n_gaps = int(gaps.size)
-            for i in gaps[:max_listed]:
-                events.append(EnergyEvent("gap", int(i + 1), float(t[i + 1]), float(dt[i]), "ps",
-                                          f"gap of {dt[i]:.6g} ps (median spacing {median_dt:.6g} ps) "
-                                          f"before t = {t[i + 1]:.6g} ps"))
-
-    if bad.size:
-        ef, tf = e[good], t[good]
-        idx = np.nonzero(good)[0]
-    else:  # the usual case: no copies of long series
-        ef, tf = e, t
-        idx = None  # row numbers are the positions themselves
-    max_jump = 0.0
-    n_jumps = 0
-    runaway: float | None = None
-    if ef.size >= 5:
-        d = np.diff(ef)
-        # robust centre and spread; on very long series from an even subsample (medians are the cost)
-        sub = d if d.size <= robust_sample else d[:: int(math.ceil(d.size / robust_sample))]
-        med = float(np.median(sub))
-        s = 1.4826 * float(np.median(np.abs(sub - med)))
-        floor = 1e-12 * max(1.0, float(ef.max()), -float(ef.min()))
-        s = max(s, floor)
-        # |d - med| / s from the extremes and two comparisons: no full-length float temporaries
-        max_jump = max(float(d.max()) - med, med - float(d.min())) / s
-        band = jump_robust_sigma * s * (1.0 - 1e-9)  # a little inside, then the exact rule below
-        jumps = np.flatnonzero((d > med + band) | (d < med - band))
-        jumps = jumps[np.abs(d[jumps] - med) / s > jump_robust_sigma]  # the exact rule at the border
-        score_j = np.abs(d[jumps] - med) / s
-        n_jumps = int(jumps.size)
-        for r in np.argsort(-score_j)[:max_listed]:
-            j = jumps[r]
-            events.append(EnergyEvent("jump", int(j + 1 if idx is None else idx[j + 1]), float(tf[j + 1]), float(d[j]), ENERGY_UNIT,
-                                      f"energy step of {d[j]:.6g} kJ/mol ({score_j[r]:.1f} robust sigma) at "
-                                      f"t = {tf[j + 1]:.6g} ps"))
-        tenth = d.size // 10
-        if tenth >= 2:
-            first = float(np.sqrt(np.mean((d[:tenth] - med) ** 2)))
-            last = float(np.sqrt(np.mean((d[-tenth:] - med) ** 2)))
-            runaway = last / max(first, floor)
-            if runaway > 3.0:
-                events.append(EnergyEvent("runaway", int(e.size - 1 if idx is None else idx[-1]), float(tf[-1]), runaway, "",
-                                          f"frame-to-frame energy noise grew {runaway:.3g}-fold from the "
-                                          "first to the last tenth of the run"))
-    events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
-    return EventsResult(events=tuple(events), n_nonfinite=int(bad.size), n_jumps=n_jumps, n_gaps=n_gaps,
-                        n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
-                        median_spacing_ps=median_dt, settings=settings)
-
-
-def _rows_of_blocks(flag: np.ndarray, block: int, n_diffs: int) -> list[tuple[int, int]]:
-    """d-index ranges [lo, hi) of the flagged blocks of a scan (block b: max(bB - 1, 0) .. (b + 1)B - 2)."""
-    out = []
-    for b in np.flatnonzero(flag):
-        lo = max(int(b) * block - 1, 0)
-        hi = min((int(b) + 1) * block - 1, n_diffs)
-        if hi > lo:
-            out.append((lo, hi))
-    return out
-
-
-def _events_from_scan(t: np.ndarray, e: np.ndarray, scan: TableScan, *, jump_robust_sigma: float,
-                      gap_factor: float, max_listed: int, settings: dict[str, Any]) -> EventsResult:
-    """:func:`find_energy_events` for finite arrays from a scan: the same rules, the same events."""
-    events: list[EnergyEvent] = []
-    n = e.shape[0]
-    nd = n - 1
-    B = scan.block_rows
-    dt_s, de_s = scan.diffs[_T], scan.diffs[_Y]
-    # time spacings: overlaps/reversals (d <= 0) and gaps, looked for only in blocks that can hold one
-    pos = dt_s.sample[dt_s.sample > 0]  # a copy: partitioned in place below
-    median_dt = fast_median(pos, overwrite=True) if pos.size else None
-    over_l: list[np.ndarray] = []
-    for lo, hi in _rows_of_blocks(dt_s.block_min <= 0, B, nd):
-        dt = np.diff(t[lo:hi + 1])
-        over_l.append(lo + np.nonzero(dt <= 0)[0])
-    over = np.concatenate(over_l) if over_l else np.zeros(0, np.int64)
-    over = np.unique(over)  # neighbouring blocks share one spacing
-    n_over = int(over.size)
-    for i in over[:max_listed]:
-        dti = float(t[i + 1] - t[i])
-        kind = "overlap" if dti == 0 else "reversal"
-        events.append(EnergyEvent(kind, int(i + 1), float(t[i + 1]), dti, "ps",
-                                  f"time {'repeats' if kind == 'overlap' else 'goes back'} at row {i + 1}: "
-                                  f"{t[i]:.6g} ps -> {t[i + 1]:.6g} ps"))
-    n_gaps = 0
-    if median_dt is not None:
-        lim = gap_factor * median_dt
-        gap_l = []
-        for lo, hi in _rows_of_blocks(dt_s.block_max > lim, B, nd):
-            dt = np.diff(t[lo:hi + 1])
-            gap_l.append(lo + np.nonzero(dt > lim)[0])
-        gaps = np.unique(np.concatenate(gap_l)) if gap_l else np.zeros(0, np.int64)
-        n_gaps = int(gaps.size)
-        for i in gaps[:max_listed]:
-            dti = float(t[i + 1] - t[i])
-            events.append(EnergyEvent("gap", int(i + 1), float(t[i + 1]), dti, "ps",
-                                      f"gap of {dti:.6g} ps (median spacing {median_dt:.6g} ps) "
-                                      f"before t = {t[i + 1]:.6g} ps"))
-    max_jump = 0.0
-    n_jumps = 0
-    runaway: float | None = None
-    if n >= 5:
-        sub = de_s.sample
-        med = fast_median(sub)
-        dev = np.subtract(sub, med)
-        s = 1.4826 * fast_median(np.abs(dev, out=dev), overwrite=True)
-        ie = scan.index(_Y)
-        floor = 1e-12 * max(1.0, float(scan.maximum[ie]), -float(scan.minimum[ie]))
-        s = max(s, floor)
-        dmax, dmin = float(de_s.block_max.max()), float(de_s.block_min.min())
-        max_jump = max(dmax - med, med - dmin) / s
-        band = jump_robust_sigma * s * (1.0 - 1e-9)  # a little inside, then the exact rule below
-        flag = (de_s.block_max > med + band) | (de_s.block_min < med - band)
-        jl: list[np.ndarray] = []
-        for lo, hi in _rows_of_blocks(flag, B, nd):
-            d = np.diff(e[lo:hi + 1])
-            j = np.flatnonzero((d > med + band) | (d < med - band))
-            jl.append(lo + j[np.abs(d[j] - med) / s > jump_robust_sigma])  # the exact rule at the border
-        jumps = np.unique(np.concatenate(jl)) if jl else np.zeros(0, np.int64)
-        dj = e[jumps + 1] - e[jumps]
-        score_j = np.abs(dj - med) / s
-        n_jumps = int(jumps.size)
-        for r in np.argsort(-score_j)[:max_listed]:
-            jr = int(jumps[r])
-            events.append(EnergyEvent("jump", jr + 1, float(t[jr + 1]), float(dj[r]), ENERGY_UNIT,
-                                      f"energy step of {dj[r]:.6g} kJ/mol ({score_j[r]:.1f} robust sigma) at "
-                                      f"t = {t[jr + 1]:.6g} ps"))
-        tenth = nd // 10
-        if tenth >= 2:
-            def rms(d: np.ndarray) -> float:  # sqrt(mean((d - med)^2)) without further temporaries
-                d -= med
-                return float(np.sqrt(np.mean(np.square(d, out=d))))
-
-            first = rms(np.diff(e[:tenth + 1]))
-            last = rms(np.diff(e[nd - tenth:]))
-            runaway = last / max(first, floor)
-            if runaway > 3.0:
-                events.append(EnergyEvent("runaway", int(n - 1), float(t[-1]), runaway, "",
-                                          f"frame-to-frame energy noise grew {runaway:.3g}-fold from the "
-                                          "first to the last tenth of the run"))
-    events.sort(key=lambda ev: (ev.time_ps if math.isfinite(ev.time_ps) else math.inf, ev.kind))
-    return EventsResult(events=tuple(events), n_nonfinite=0, n_jumps=n_jumps, n_gaps=n_gaps,
-                        n_overlaps=n_over, max_jump_robust_sigma=max_jump, runaway_ratio=runaway,
-                        median_spacing_ps=median_dt, settings=settings)
-
-
-# ---------------------------------------------------------------------------------------------------
 # Effective sample sizes of energy-table series
 # ---------------------------------------------------------------------------------------------------
 
@@ -1029,7 +587,7 @@ def scan_energy_table(time_ps: np.ndarray, energy_kJ_per_mol: np.ndarray,
                       table: EnergyTable | None = None) -> TableScan:
     """One blocked pass over the time, the judged energy and every numeric series of ``table``.
 
-    The result feeds :func:`find_energy_events`, :func:`drift_fit`, :func:`energy_fluctuations` and
+    The result feeds :func:`~phasewake.core.analyses.energy_events.find_energy_events`, :func:`drift_fit`, :func:`energy_fluctuations` and
     :func:`series_sampling` (``scan=``), which otherwise each pass over the columns themselves. Series of
     another length than the time are left out (their kernels sum them alone).
     """

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from phasewake.core.analyses import energy as en
+from phasewake.core.analyses.energy_events import find_energy_events
 from phasewake.core.errors import MissingDataError
 from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import Progress, drive
@@ -126,13 +127,13 @@ def test_drift_error_bar_covers_truth_95_percent_of_seeds():
     assert hit_ols / n_seeds < 0.6
 
 
-def test_private_sokal_estimator_matches_ar1_g():
+def test_statistical_inefficiency_matches_ar1_g():
     # AR(1): g = (1 + phi)/(1 - phi) (REFERENCES.md §3.7); Sokal c = 5 gives 19.5 +- 1.2 at N = 1e5 for
     # phi = 0.9 (REFERENCES.md §3.2 table [C]); tolerance +-20 % as suggested there.
     rng = np.random.default_rng(5)
     for phi in (0.5, 0.9):
         x = _ar1(rng, 1, 100_000, phi)[0]
-        g = en._sokal_statistical_inefficiency(x)
+        g, _ = en.statistical_inefficiency_of(x)
         assert g == pytest.approx((1 + phi) / (1 - phi), rel=0.2 if phi == 0.9 else 0.07)
 
 
@@ -149,7 +150,7 @@ def test_events_are_located_in_time():
     t[1500:] += 0.05  # a gap of 25 spacings
     t = np.concatenate([t[:1800], t[1790:1800], t[1800:]])  # 10 rows repeated (restart appended)
     e = np.concatenate([e[:1800], e[1790:1800], e[1800:]])
-    res = en.find_energy_events(t, e)
+    res = find_energy_events(t, e)
     assert res.n_nonfinite == 1
     assert [ev.time_ps for ev in res.events if ev.kind == "nonfinite"] == [pytest.approx(1.4)]
     jumps = [ev for ev in res.events if ev.kind == "jump"]
@@ -166,9 +167,9 @@ def test_runaway_growth_is_measured():
     n = 5000
     t = np.arange(n) * 0.001
     e = rng.normal(0, 0.01, n) * np.exp(np.linspace(0, 4, n))  # noise grows e^4 ~ 55-fold
-    res = en.find_energy_events(t, e)
+    res = find_energy_events(t, e)
     assert res.runaway_ratio > 10
-    quiet = en.find_energy_events(t, rng.normal(0, 0.01, n))
+    quiet = find_energy_events(t, rng.normal(0, 0.01, n))
     assert quiet.runaway_ratio < 1.5
 
 

@@ -1,7 +1,8 @@
 """The energy audit's one-pass route (issue 9) against numpy and against the masked multi-pass route.
 
 References: numpy's own mean / var / min / max / polyfit / median (outside the project), and the
-previous float64 route of the events (``energy._events_masked``, the code that ran before the scan).
+previous float64 route of the events (``events_masked`` in tests/core/energy_events_reference.py, the code
+that ran before the scan).
 """
 
 from __future__ import annotations
@@ -12,7 +13,10 @@ import numpy as np
 import pytest
 
 from phasewake.core.analyses import energy as en
+from phasewake.core.analyses import energy_events as en_events
+from phasewake.core.analyses.energy_scan import _T, _Y, fast_median, scan_columns
 from phasewake.core.model.run import EnergyTable, RunMetadata, Series
+from tests.core.energy_events_reference import events_masked
 
 
 def _noisy(n: int, seed: int, offset: float = -3.0e5, sigma: float = 0.05) -> tuple[np.ndarray, np.ndarray]:
@@ -25,7 +29,7 @@ def _noisy(n: int, seed: int, offset: float = -3.0e5, sigma: float = 0.05) -> tu
 def test_scan_moments_match_numpy_with_a_large_offset():
     t, e = _noisy(300_001, seed=1)
     k = 500.0 + 10.0 * np.random.default_rng(2).standard_normal(t.size)
-    sc = en.scan_columns({"t": t, "e": e, "k": k}, cross=(("t", "e"),), block=4096)
+    sc = scan_columns({"t": t, "e": e, "k": k}, cross=(("t", "e"),), block=4096)
     assert sc.finite
     for name, x in (("t", t), ("e", e), ("k", k)):
         i = sc.index(name)
@@ -38,7 +42,7 @@ def test_scan_moments_match_numpy_with_a_large_offset():
     assert sc.cross[("t", "e")] == pytest.approx(ref_cross, rel=1e-9)
     bad = e.copy()
     bad[12345] = np.nan
-    assert not en.scan_columns({"t": t, "e": bad}).finite
+    assert not scan_columns({"t": t, "e": bad}).finite
 
 
 def test_line_fit_matches_polyfit_and_the_residual_sum():
@@ -69,22 +73,34 @@ def _planted(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 @pytest.mark.parametrize("block", [1000, 4096, 1 << 16])
 def test_events_from_the_scan_equal_the_masked_route(block):
     t, e = _planted(30_000, seed=5)
-    sc = en.scan_columns({en._T: t, en._Y: e}, diffs=(en._T, en._Y), no_extremes=(en._T,), block=block,
+    sc = scan_columns({_T: t, _Y: e}, diffs=(_T, _Y), no_extremes=(_T,), block=block,
                          robust_sample=7000)  # a subsample, as on long series
     settings = {"jump_robust_sigma": 8.0, "gap_factor": 1.5, "max_listed": 50, "robust_sample": 7000}
-    fast = en.find_energy_events(t, e, robust_sample=7000, scan=sc)
-    ref = en._events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=7000,
+    fast = en_events.find_energy_events(t, e, robust_sample=7000, scan=sc)
+    ref = events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=7000,
                             settings=settings)  # the previous float64 route
     assert fast == ref
     assert fast.n_jumps >= 5 and fast.n_gaps >= 3 and fast.n_overlaps >= 2
+
+
+def test_events_with_non_finite_rows_equal_the_masked_route():
+    """Rows with NaN or infinite energy: listed, then left out of the steps; the spacings keep every row
+    (reference: the masked float64 route)."""
+    t, e = _planted(30_000, seed=6)
+    e[[5, 4096, 12_345]] = [np.nan, np.inf, -np.inf]
+    settings = {"jump_robust_sigma": 8.0, "gap_factor": 1.5, "max_listed": 50, "robust_sample": 7000}
+    got = en_events.find_energy_events(t, e, robust_sample=7000)
+    assert got == events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=7000,
+                                settings=settings)
+    assert got.n_nonfinite == 3 and got.n_jumps >= 5 and got.n_gaps >= 3
 
 
 def test_fast_median_is_numpys_median():
     rng = np.random.default_rng(6)
     for n in (1, 2, 7, 1000, 1001):
         x = rng.standard_normal(n)
-        assert en.fast_median(x) == float(np.median(x))  # numpy (reference), bit for bit
-        assert en.fast_median(x.copy(), overwrite=True) == float(np.median(x))
+        assert fast_median(x) == float(np.median(x))  # numpy (reference), bit for bit
+        assert fast_median(x.copy(), overwrite=True) == float(np.median(x))
 
 
 def test_series_sampling_matches_numpy():
@@ -137,7 +153,7 @@ def test_audit_of_a_long_table_matches_direct_numpy_numbers():
     g_ref, _ = en.statistical_inefficiency_of(tk)  # g of the temperature array itself (previous route)
     assert res.temperature.statistical_inefficiency == pytest.approx(g_ref, rel=1e-10)
     ev = res.energy.events
-    ref = en._events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=1 << 20,
+    ref = events_masked(t, e, jump_robust_sigma=8.0, gap_factor=1.5, max_listed=50, robust_sample=1 << 20,
                             settings=ev.settings)
     assert ev == ref
 
