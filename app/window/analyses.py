@@ -3,13 +3,12 @@
 Every panel has one job in :data:`PANEL_JOBS`: a function of an :class:`AnalysisContext` that
 returns a progress generator (``phasewake.core.progress``) whose result is a :class:`PanelResult`.
 The jobs call the core analyses and the figure builders of ``phasewake.core.figures.plots``; they run in a
-worker thread (``workers.JobRunner``). An analysis that is not in this build yet gives a result with
-no figure and a plain sentence saying so: the window never shows made-up data.
+worker thread (``workers.JobRunner``). A panel with nothing to show says why in a plain sentence: the
+window never shows made-up data.
 """
 
 from __future__ import annotations
 
-import importlib
 import threading
 from collections.abc import Callable, Generator
 from dataclasses import dataclass, field
@@ -17,10 +16,22 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.app.window.replicas import replicas_of
+from phasewake.core.analyses import (
+    coordinates,
+    correlation,
+    crossings,
+    landscape,
+    sampling,
+    velocity,
+)
+from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
+from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
 from phasewake.core.progress import Progress
+from phasewake.core.store import cached
 from phasewake.core.units import KB_KJ_PER_MOL_K
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
@@ -86,24 +97,6 @@ class AnalysisContext:
 Job = Callable[[AnalysisContext], Generator[Progress, None, PanelResult]]
 
 
-_ROOMS = {"cached": "store", "report": "figures", "export": "figures", "plots": "figures"}
-
-
-def module_or_none(name: str) -> Any:
-    """Import ``phasewake.core.<name>`` if it is in this build, else None."""
-    try:
-        return importlib.import_module(f"phasewake.core.{_ROOMS.get(name, 'analyses')}.{name}")
-    except ModuleNotFoundError as exc:
-        if exc.name and exc.name.startswith("phasewake.core"):
-            return None
-        raise
-
-
-def missing(what: str, module: str) -> PanelResult:
-    return PanelResult(message=f"{what} is not part of this installation of phasewake, so this panel has "
-                               "nothing to show. No data is made up.")
-
-
 # ---- helpers ----------------------------------------------------------------------------------
 
 
@@ -138,14 +131,6 @@ def _relay(work: Any, lo: float, hi: float, total: float, label: str) -> Generat
         return stop.value
 
 
-def _plots_figures(result: Any, **options: Any) -> list[FigureSpec]:
-    """Figures core.plots draws from ``result`` ([] when it has no builder for it yet)."""
-    try:
-        return list(plots.figures_for(result, **options))
-    except TypeError:  # a builder that takes none of these options
-        return list(plots.figures_for(result))
-
-
 def temperature_of(run: Run) -> tuple[float | None, str]:
     """The temperature to use for kT: the thermostat target, else the mean stored temperature."""
     if run.metadata.temperature_K:
@@ -165,6 +150,15 @@ _CACHE_LOCK = threading.Lock()
 _CACHE_SIZE = 8
 
 
+def forget_runs(runs: list[Run]) -> None:
+    """Drop the in-memory coordinate series of ``runs`` (a closed window or a removed run): nothing here
+    keeps a run, its open files or its series alive after the window that showed it."""
+    gone = {id(r) for r in runs}
+    with _CACHE_LOCK:
+        for key in [k for k, (run, _) in _CACHE.items() if id(run) in gone]:
+            del _CACHE[key]
+
+
 def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[Progress, None, Any]:
     """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window in memory, and
     for runs with files in the result cache, ``phasewake.core.store.cached``)."""
@@ -173,12 +167,8 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
         hit = _CACHE.get(key)
     if hit is not None and hit[0] is run:
         return hit[1]
-    coords = module_or_none("coordinates")
-    if coords is None:
-        raise ModuleNotFoundError("phasewake.core.analyses.coordinates")
-    cached = module_or_none("cached")  # the on-disk result cache: reopening a run reads no frames
-    work = (cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache()) if cached is not None
-            else coords.compute_coordinates(run, [spec], start=start, stop=stop))
+    # through the on-disk result cache: reopening a run reads no frames
+    work = cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache())
     series = yield from _relay(work, 0, 1, 1, f"coordinate {spec}")
     with _CACHE_LOCK:
         _CACHE[key] = (run, series[0])
@@ -203,9 +193,6 @@ def through_cache(run: Run, analysis: str, settings: dict[str, Any],
     or the same file reopened, reads no frames. ``settings`` must hold everything that changes the result.
     Analysis \u25b8 Use the result cache or ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are
     never cached."""
-    cached = module_or_none("cached")
-    if cached is None:
-        return (yield from work)
     return (yield from cached.cached_work(run, analysis, settings, work, cache=window_cache()))
 
 
@@ -250,42 +237,13 @@ def energy_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
 
 def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
-    audit = module_or_none("audit")
-    quick = yield from energy_job(ctx)
-    if audit is None:
-        return PanelResult(figures=quick.figures, message="The energy audit is not part of this installation: "
-                                                          "only the energy table is shown.")
+    yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    cached = module_or_none("cached")
-    work = (cached.cached_audit(run, cache=window_cache()) if cached is not None  # the key shared_frames_job uses
-            else audit.audit_run(run))
+    work = cached.cached_audit(run, cache=window_cache())  # the key shared_frames_job uses
     res = yield from _relay(work, 0, 1, 1, "audit")
-    figs = list(_plots_figures(res, run_name=run.name))
-    if not figs:
-        figs = _audit_figures(res, run, ctx.window_ps)
-    if not figs:
-        figs = list(quick.figures)
-    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
-
+    figs = plots.figures_for(res)
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
-
-
-def _audit_figures(res: Any, run: Run, window_ps: tuple[float, float] | None) -> list[FigureSpec]:
-    """The audit's figures when core.plots has no builder for its result type."""
-    figs = []
-    table = _table_in_window(run, window_ps)
-    drift = None if res.energy is None else res.energy.drift
-    if table is not None and len(table):
-        figs.append(plots.energy_series_figure(
-            table, run_name=run.name,
-            drift_slope_kJ_per_mol_per_ps=None if drift is None else drift.slope_kJ_per_mol_per_ns * 1e-3,
-            drift_intercept_kJ_per_mol=None if drift is None else drift.intercept_kJ_per_mol))
-    if res.temperature is not None and np.size(res.temperature.temperature_K):
-        figs.append(plots.audit_temperature_figure(res))
-    if res.timestep is not None and np.size(res.timestep.frequency_per_ps):
-        figs.append(plots.audit_spectrum_figure(res))
-    return figs
 
 
 # ---- Phase space ----------------------------------------------------------------------------
@@ -295,8 +253,6 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     need = _need_coordinate(ctx)
     if need is not None:
         return need
-    if module_or_none("coordinates") is None:
-        return missing("The phase-space analysis", "coordinates")
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
     figs: list[FigureSpec] = []
     traces: dict[str, Trace] = {}
@@ -306,10 +262,8 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
         figs.append(plots.phase_portrait_figure(s))
         p = np.asarray(mp, float)
         traces["phase.portrait"] = Trace(np.asarray(s.time_ps, float), q, p)
-        land = module_or_none("landscape")
-        if land is not None:
-            pu = s.momentum_unit if s.momentum is not None else s.velocity_unit
-            figs.append(plots.phase_density_figure(s, land.histogram_2d(q, p, x_unit=s.unit, y_unit=pu)))
+        pu = s.momentum_unit if s.momentum is not None else s.velocity_unit
+        figs.append(plots.phase_density_figure(s, landscape.histogram_2d(q, p, x_unit=s.unit, y_unit=pu)))
     figs.append(plots.coordinate_time_figure(s))
     spec2 = str(ctx.choices.get("coordinate2") or "").strip()
     if spec2 and spec2 != ctx.coordinate:
@@ -327,8 +281,7 @@ PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route
 
 def _pca_settings(run: Run) -> dict[str, Any]:
     """The Phase space panel's principal components: the solute, 3 components, exact route when small."""
-    coords = module_or_none("coordinates")
-    group = coords.solute_atoms(run.topology, run.n_atoms)
+    group = coordinates.solute_atoms(run.topology, run.n_atoms)
     if group.size < 3:
         # a solute of one or two atoms has no shape to analyse (two atoms: only their distance varies once
         # rotation and translation are fitted away): the components of the whole system instead
@@ -342,39 +295,31 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     cache (``cached.cached_pass``), before the panels start: their jobs then find these results there
     instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
     analysed (the keys are those of the panels' own requests); otherwise nothing is done here."""
-    cached = module_or_none("cached")
     run = ctx.run
     cache = window_cache()
-    if (cached is None or not cache.enabled or not run.paths or run.frames is None
+    if (not cache.enabled or not run.paths or run.frames is None
             or ctx.start > 0 or ctx.stop < run.n_frames):
         return PanelResult()
-    from phasewake.core.errors import PhasewakeError
-
     items: dict[str, Any] = {}
     try:
-        if module_or_none("audit") is not None:
-            items["audit"] = cached.audit_item(run)
-        if ctx.coordinate and module_or_none("coordinates") is not None:
+        items["audit"] = cached.audit_item(run)
+        if ctx.coordinate:
             items["coordinate"] = cached.coordinates_item(run, [ctx.coordinate])
-        if module_or_none("projection") is not None and module_or_none("coordinates") is not None \
-                and run.n_atoms >= 2:
+        if run.n_atoms >= 2:
             items["pca"] = cached.pca_item(run, **_pca_settings(run))
     except PhasewakeError:
         return PanelResult()  # a bad coordinate: the panels say so themselves
-    if items:
-        try:
-            yield from _relay(cached.cached_pass(run, items, cache=cache, load_hits=False), 0, 1, 1,
-                              "one read of the frames")
-        except PhasewakeError:
-            pass  # each panel runs its own analysis and reports what went wrong
+    try:
+        yield from _relay(cached.cached_pass(run, items, cache=cache, load_hits=False), 0, 1, 1,
+                          "one read of the frames")
+    except PhasewakeError:
+        pass  # each panel runs its own analysis and reports what went wrong
     return PanelResult()
 
 
 def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Principal components of the solute: figures added to the Phase space panel when ready."""
-    proj = module_or_none("projection")
-    coords = module_or_none("coordinates")
-    if proj is None or coords is None or ctx.run.frames is None or ctx.run.n_atoms < 2:
+    if ctx.run.frames is None or ctx.run.n_atoms < 2:
         return PanelResult()
     settings = _pca_settings(ctx.run)
     group = np.asarray(settings["atom_indices"])
@@ -383,13 +328,11 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                                    "rotation and translation fitted away only their distance varies, so PCA would "
                                    "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
-    cached = module_or_none("cached")
-    work = (cached.cached_pca(sub, cache=window_cache(), **settings) if cached is not None  # shared_frames_job's key
-            else proj.compute_pca(sub, **settings))
+    work = cached.cached_pca(sub, cache=window_cache(), **settings)  # shared_frames_job's key
     pca = yield from _relay(work, 0, 1, 1, "principal components")
     traces: dict[str, Trace] = {}
     coords_text = plots.atoms_text(group)
-    solute = coords.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
+    solute = coordinates.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
     if solute.size < 3 and group.size == ctx.run.n_atoms:
         atoms = (f"all {coords_text} (the solute, {plots.atoms_text(solute)}, is too small for principal components: "
                  "two atoms only change their distance)")
@@ -407,9 +350,8 @@ def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec
     q1 = np.asarray(s1.values, float)
     figs = [plots.coordinate_pair_figure(s1, s2)]
     traces["phase.pair"] = Trace(t, q1, np.asarray(s2.values, float))
-    land = module_or_none("landscape")
-    if land is not None and s2.momentum is not None:
-        sec = land.poincare_section(q1, np.asarray(s2.values, float), np.asarray(s2.momentum, float), t,
+    if s2.momentum is not None:
+        sec = landscape.poincare_section(q1, np.asarray(s2.values, float), np.asarray(s2.momentum, float), t,
                                     value=float(np.median(q1)), direction="up", q2_unit=s2.unit,
                                     p2_unit=s2.momentum_unit)
         if sec.n_points:
@@ -433,9 +375,6 @@ def _pca_figures(pca: Any, traces: dict[str, Trace], *, atoms: str = "") -> list
 # ---- Correlation ----------------------------------------------------------------------------
 
 def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
-    corr = module_or_none("correlation")
-    if corr is None:
-        return missing("The correlation analysis", "correlation")
     figs: list[FigureSpec] = []
     notes: list[str] = []
     run = ctx.run
@@ -448,7 +387,7 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
                 t = np.asarray(table.time_ps, float)
                 series.append((s.name, np.asarray(s.values, float), float(np.median(np.diff(t))), s.unit))
                 break
-    if ctx.coordinate and run.frames is not None and module_or_none("coordinates") is not None:
+    if ctx.coordinate and run.frames is not None:
         cs = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
         t = np.asarray(cs.time_ps, float)
         if t.size > 8:
@@ -458,17 +397,16 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
         yield Progress(i, len(series) + 2, f"autocorrelation of {name}")
         what = {"series": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
                 "window_ps": ctx.window_ps}
-        res, blocks = yield from through_cache(run, "correlation", what, _correlation_numbers(corr, x, dt, unit))
+        res, blocks = yield from through_cache(run, "correlation", what, _correlation_numbers(x, dt, unit))
         figs.append(plots.autocorrelation_figure(res, name=name))
-        verdicts.append(corr.judge_ess(res, name=name))
+        verdicts.append(correlation.judge_ess(res, name=name))
         figs.append(plots.blocking_figure(blocks, name=name))
-    vel = module_or_none("velocity")
-    if vel is not None and run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
+    if run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
         yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
         sub = window_run(run, ctx.start, ctx.stop)
-        v = yield from _relay(through_cache(sub, "vacf", {}, vel.vacf(sub)), 0, 1, 1, "VACF")
+        v = yield from _relay(through_cache(sub, "vacf", {}, velocity.vacf(sub)), 0, 1, 1, "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _relay(through_cache(sub, "spectrum", {}, vel.vibrational_spectrum(sub)), 0, 1, 1,
+        d = yield from _relay(through_cache(sub, "spectrum", {}, velocity.vibrational_spectrum(sub)), 0, 1, 1,
                               "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
@@ -480,10 +418,10 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes))
 
 
-def _correlation_numbers(corr: Any, x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
+def _correlation_numbers(x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
     """Autocorrelation, statistical inefficiency and block averages of one series (FFTs of the whole series)."""
     yield Progress(0, 1, "autocorrelation and block averages")
-    return corr.analyse_series(x, dt_ps=dt, unit=unit), corr.blocking(x, unit=unit)
+    return correlation.analyse_series(x, dt_ps=dt, unit=unit), correlation.blocking(x, unit=unit)
 
 
 def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
@@ -496,19 +434,14 @@ def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
 
 def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Running averages, coverage of phase space, segment divergence and R-hat (within and across runs)."""
-    sampling = module_or_none("sampling")
     yield Progress(0, None, "sampling")
-    if sampling is None:
-        return missing("The sampling analysis (R-hat, coverage, running averages)", "sampling")
-    from phasewake.core.errors import PhasewakeError
-
     figs: list[FigureSpec] = []
     verdicts: list[Any] = []
     notes: list[str] = []
     run = ctx.run
     series: list[tuple[str, str, np.ndarray, np.ndarray, str]] = []  # name, key, time, values, unit
     q_series = None
-    if ctx.coordinate and run.frames is not None and module_or_none("coordinates") is not None:
+    if ctx.coordinate and run.frames is not None:
         q_series = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
         series.append((q_series.spec, "coordinate", np.asarray(q_series.time_ps, float),
                        np.asarray(q_series.values, float), q_series.unit))
@@ -524,7 +457,7 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
         try:
             what = {"series": key, "name": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
                     "window_ps": ctx.window_ps}
-            ra, rh, div = yield from through_cache(run, "sampling", what, _sampling_numbers(sampling, x, dt, unit))
+            ra, rh, div = yield from through_cache(run, "sampling", what, _sampling_numbers(x, dt, unit))
             verdicts.append(sampling.judge_rhat(rh, name=name))
             verdicts.append(sampling.judge_divergence(div, name=name))
         except PhasewakeError as exc:
@@ -556,63 +489,10 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
             notes.append(f"R-hat across replicas: {exc}")
     if not figs and not verdicts:
         return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
-    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
-
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
 
 
-def replica_difference(run: Run, other: Run) -> str:
-    """Why ``other`` is not a replica of ``run`` ('' when it is one): the same atoms (count, masses, names
-    and elements where both have a topology) run the same way (ensemble, thermostat, its temperature and
-    the time step, where the files or the user say)."""
-    if other.frames is None:
-        return "no frames"
-    if other.n_atoms != run.n_atoms:
-        return f"{other.n_atoms} atoms, not {run.n_atoms}"
-    if not np.allclose(np.asarray(other.masses_amu, float), np.asarray(run.masses_amu, float), rtol=1e-4,
-                       equal_nan=True):
-        return "other atom masses"
-    if run.topology is not None and other.topology is not None:
-        def atoms(top: Any) -> list[tuple[str, str]]:
-            return [(a.name, a.element.symbol if a.element is not None else "") for a in top.atoms]
-        if atoms(run.topology) != atoms(other.topology):
-            return "other atom names or elements"
-    a, b = run.metadata, other.metadata
-
-    def norm(v: Any) -> str:
-        return str(v or "").strip().lower()
-
-    if norm(a.ensemble) != norm(b.ensemble):
-        return f"ensemble {b.ensemble or 'unknown'}, not {a.ensemble or 'unknown'}"
-    if norm(a.thermostat) != norm(b.thermostat):
-        return f"thermostat {b.thermostat or 'unknown'}, not {a.thermostat or 'unknown'}"
-    if (a.temperature_K is None) != (b.temperature_K is None) or (
-            a.temperature_K is not None and abs(float(a.temperature_K) - float(b.temperature_K)) > 1e-6):
-        def kelvin(v: float | None) -> str:
-            return "not stated" if v is None else f"{v:.4g} K"
-        return f"target temperature {kelvin(b.temperature_K)}, not {kelvin(a.temperature_K)}"
-    if (a.timestep_ps is None) != (b.timestep_ps is None) or (
-            a.timestep_ps is not None and abs(float(a.timestep_ps) - float(b.timestep_ps)) > 1e-9 * max(1.0, a.timestep_ps)):
-        def fs(v: float | None) -> str:
-            return "unknown" if v is None else f"{v * 1e3:.4g} fs"
-        return f"time step {fs(b.timestep_ps)}, not {fs(a.timestep_ps)}"
-    return ""
-
-
-def replicas_of(run: Run, others: tuple[Run, ...]) -> tuple[list[Run], list[tuple[str, str]]]:
-    """The runs of ``others`` that are replicas of ``run``, and (name, why not) for the rest."""
-    pooled: list[Run] = []
-    skipped: list[tuple[str, str]] = []
-    for o in others:
-        why = replica_difference(run, o)
-        if why:
-            skipped.append((o.name, why))
-        else:
-            pooled.append(o)
-    return pooled, skipped
-
-
-def _sampling_numbers(sampling: Any, x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
+def _sampling_numbers(x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
     """Running average, segment R-hat and segment divergence of one series (the heavy part: null draws)."""
     yield Progress(0, 1, "running average, R-hat and divergence")
     return (sampling.running_average(x, dt_ps=dt, unit=unit), sampling.rhat_segments(x),
@@ -621,9 +501,9 @@ def _sampling_numbers(sampling: Any, x: np.ndarray, dt: float, unit: str) -> Gen
 
 # ---- Crossings and Landscape ----------------------------------------------------------------
 
-def _given_states(ctx: AnalysisContext) -> tuple[tuple[float, float] | None, float | None]:
+def dragged_states(choices: dict[str, Any]) -> tuple[tuple[float, float] | None, float | None]:
     """States and surface dragged on the Landscape panel (choice 'landscape_marks')."""
-    marks = ctx.choices.get("landscape_marks") or {}
+    marks = choices.get("landscape_marks") or {}
     a = marks.get("state:A")
     b = marks.get("state:B")
     surf = marks.get("surface:dividing surface")
@@ -635,23 +515,20 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     need = _need_coordinate(ctx)
     if need is not None:
         return need
-    cr = module_or_none("crossings")
-    if cr is None or module_or_none("coordinates") is None:
-        return missing("The crossings analysis", "crossings")
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
     temp, _ = temperature_of(ctx.run)
-    states, surface = _given_states(ctx)
+    states, surface = dragged_states(ctx.choices)
     kt_m = None
     if temp is not None and s.m_eff is not None and np.all(np.isfinite(s.m_eff)):
         kt_m = float(KB_KJ_PER_MOL_K * temp * np.mean(1.0 / np.asarray(s.m_eff, float)))
-    work = cr.crossings_work([cr.as_trace(s, name=ctx.run.name)], states=states, surface=surface, unit=s.unit,
-                             temperature_K=temp, kT_over_m_eff=kt_m)
+    work = crossings.crossings_work([crossings.as_trace(s, name=ctx.run.name)], states=states, surface=surface,
+                                    unit=s.unit, temperature_K=temp, kT_over_m_eff=kt_m)
     what = {"coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop, "name": ctx.run.name,
             "states": states, "surface": surface, "temperature_K": temp, "kT_over_m_eff": kt_m}
     res = yield from _relay(through_cache(ctx.run, "crossings", what, work), 0, 1, 1, "crossings")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
-    figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + _plots_figures(res)
+    figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + plots.figures_for(res)
     msg = (f"{res.n_transitions} transitions and {res.n_recrossings} recrossings of the dividing surface "
            f"{res.settings.surface:.4g} {res.settings.unit} (states: A \u2264 {res.settings.a_hi:.4g}, "
            f"B \u2265 {res.settings.b_lo:.4g}; {res.settings.states_source}).")
@@ -688,9 +565,6 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     need = _need_coordinate(ctx)
     if need is not None:
         return need
-    land = module_or_none("landscape")
-    if land is None or module_or_none("coordinates") is None:
-        return missing("The free-energy landscape", "landscape")
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
     temp, source = temperature_of(ctx.run)
     if temp is None:
@@ -698,16 +572,12 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
                                    "temperature in the Runs list (the files do not say).")
     # the same profile as the report (no Jacobian), so both give the same barrier for one run; until both
     # come from one request, a distance's 4 pi r^2 correction is not applied here either
-    jac = "none"
-    try:
-        prof = land.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit, jacobian=jac)
-    except TypeError:
-        prof = land.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit)
-    states, surface = _given_states(ctx)
-    cr = module_or_none("crossings")
-    if states is None and cr is not None:
+    prof = landscape.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit,
+                                         jacobian="none")
+    states, surface = dragged_states(ctx.choices)
+    if states is None:
         try:
-            sug = cr.suggest_states(np.asarray(s.values, float), unit=s.unit)
+            sug = crossings.suggest_states(np.asarray(s.values, float), unit=s.unit)
             states, surface = (sug.a_hi, sug.b_lo), (surface if surface is not None else sug.surface)
         except Exception:  # noqa: BLE001 - a profile without two states is still worth drawing
             states = None
@@ -715,7 +585,7 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
         surface = 0.5 * (states[0] + states[1])
     # ours first: it carries the states and the dividing surface as marks a user can drag
     figs = [plots.landscape_states_figure(prof, s, states=states, surface=surface, temperature_source=source)]
-    figs += _plots_figures(prof)
+    figs += plots.figures_for(prof)
     return PanelResult(figures=tuple(figs), info={"profile": prof, "states": states, "surface": surface})
 
 

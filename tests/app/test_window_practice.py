@@ -17,10 +17,10 @@ pytest.importorskip("pytestqt")
 pg = pytest.importorskip("pyqtgraph")
 from PySide6 import QtCore  # noqa: E402
 
-from phasewake.app.window.analyses import replica_difference, replicas_of  # noqa: E402
 from phasewake.app.window.main import MainWindow  # noqa: E402
 from phasewake.app.window.model import RunEntry, RunSettings, WindowModel  # noqa: E402
 from phasewake.app.window.render import FigureView, LogAxis  # noqa: E402
+from phasewake.app.window.replicas import replica_difference, replicas_of  # noqa: E402
 from phasewake.core.figures import plots  # noqa: E402
 from phasewake.core.model.run import RunMetadata  # noqa: E402
 from phasewake.core.readers.memory import run_from_arrays  # noqa: E402
