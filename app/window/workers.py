@@ -5,7 +5,9 @@ value). :class:`JobRunner` runs each job in its own ``QThread`` with a
 :class:`~phasewake.core.progress.CancelToken`, turns the generator's yields into (rate-limited)
 progress signals, and reports the result, a cancellation or an error back on the GUI thread. Jobs
 have a key (e.g. the panel name): starting a job cancels the running one with the same key, so a
-dragged time window never piles up stale computations.
+dragged time window never piles up stale computations. Each job carries its own completion handler
+(``start(..., on_done=...)``), called on the GUI thread with the job's :class:`JobOutcome`: the window
+wires every kind of job to the code that shows its result, with no central router.
 
 Every thread carries a serial number in its signals, and the runner finds the thread by that number:
 it never asks Qt for ``sender()``. A queued progress signal can arrive after the thread that sent it
@@ -41,17 +43,22 @@ class JobOutcome:
     elapsed_s: float = 0.0
 
 
+OutcomeHandler = Callable[[JobOutcome], None]
+
+
 class _Thread(QtCore.QThread):
     progressed = QtCore.Signal(int, str, float, str)  # serial, key, fraction (-1 unknown), message
     done = QtCore.Signal(int, object)  # serial, JobOutcome
 
-    def __init__(self, serial: int, key: str, job: Callable[[], Any], token: CancelToken, label: str) -> None:
+    def __init__(self, serial: int, key: str, job: Callable[[], Any], token: CancelToken, label: str,
+                 on_done: OutcomeHandler | None) -> None:
         super().__init__()
         self.serial = serial
         self.key = key
         self.job = job
         self.token = token
         self.label = label
+        self.on_done = on_done  # called on the GUI thread, never from run()
         self._last = 0.0
 
     def _on_progress(self, p: Progress) -> None:
@@ -96,7 +103,8 @@ class JobRunner(QtCore.QObject):
     progressed(str, float, str)
         key, fraction in [0, 1] (or -1 when unknown), message.
     finished(object)
-        A :class:`JobOutcome` (for results, errors and cancellations alike).
+        A :class:`JobOutcome` (for results, errors and cancellations alike), after the job's own
+        ``on_done`` handler has seen it.
     busyChanged(bool)
         Whether any job is running.
     """
@@ -120,13 +128,17 @@ class JobRunner(QtCore.QObject):
     def running(self) -> list[str]:
         return list(self._threads)
 
-    def start(self, key: str, job: Callable[[], Any], *, label: str = "") -> CancelToken:
-        """Run ``job`` in a worker thread; cancels a running job with the same key first."""
+    def start(self, key: str, job: Callable[[], Any], *, label: str = "",
+              on_done: OutcomeHandler | None = None) -> CancelToken:
+        """Run ``job`` in a worker thread; cancels a running job with the same key first.
+
+        ``on_done(outcome)`` runs on the GUI thread when the job ends (result, error or cancellation); a
+        job superseded by another of the same key is not reported (its successor will be)."""
         was_busy = self.busy
         self.cancel(key, quiet=True)
         token = CancelToken()
         self._serial += 1
-        th = _Thread(self._serial, key, job, token, label or key)
+        th = _Thread(self._serial, key, job, token, label or key, on_done)
         # bound methods of this runner (a QObject of the GUI thread): queued across threads, and the
         # serial in each signal says which thread sent it
         th.progressed.connect(self._relay_progress)
@@ -146,7 +158,7 @@ class JobRunner(QtCore.QObject):
         if th is not None:
             th.token.cancel()  # the thread stays in _live until its done signal arrives
             if not quiet:
-                self.finished.emit(JobOutcome(key, cancelled=True))
+                self._report(th.on_done, JobOutcome(key, cancelled=True))
             if not self._threads and not quiet:
                 self.busyChanged.emit(False)
 
@@ -176,14 +188,20 @@ class JobRunner(QtCore.QObject):
 
     def _on_done(self, serial: int, outcome: JobOutcome) -> None:
         current = self._current(serial, outcome.key)
+        handler = None
         if current:
-            del self._threads[outcome.key]
+            handler = self._threads.pop(outcome.key).on_done
         self._reap(serial)
         if current:
-            self.finished.emit(outcome)
+            self._report(handler, outcome)
             if not self._threads:
                 self.busyChanged.emit(False)
         # else: a superseded or cancelled job ending late; its outcome was already reported.
+
+    def _report(self, handler: OutcomeHandler | None, outcome: JobOutcome) -> None:
+        if handler is not None:
+            handler(outcome)
+        self.finished.emit(outcome)
 
     def _reap(self, serial: int) -> None:
         """Delete an ended thread: disconnect it first, so nothing it queued later can reach us."""
@@ -195,6 +213,8 @@ class JobRunner(QtCore.QObject):
             QtCore.QTimer.singleShot(5, lambda serial=serial: self._reap(serial))
             return
         del self._live[serial]
+        th.on_done = None  # the handler may hold the window's panels: nothing keeps them alive through here
+        th.job = None  # nor the job's closure (its run, its results)
         for signal in (th.progressed, th.done):
             try:
                 signal.disconnect()

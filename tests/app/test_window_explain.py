@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 from PySide6 import QtCore, QtGui, QtWidgets
 
-from phasewake.app.window.main import MainWindow
+from phasewake.app.window.main import MainWindow, delete_now
 from phasewake.core.analyses import explain
 from phasewake.core.analyses.verdicts import EXPLANATIONS
 
@@ -29,8 +29,7 @@ def window(qapp, tmp_path_factory):
     assert w.wait_idle(90_000)
     assert not w.messages, w.messages
     yield w
-    w.close()
-    w.deleteLater()
+    delete_now(w)  # now, not during a later test's event loop
 
 
 def _tooltip_through_qt(notes, point) -> str:

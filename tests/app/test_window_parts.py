@@ -151,10 +151,9 @@ def test_long_job_keeps_event_loop_responsive_and_can_be_cancelled(qtbot):
     assert runner.wait_all(3000)
     elapsed = time.monotonic() - t0
     timer.stop()
-    # a frozen event loop would tick 0-1 times; a responsive one about as often as when idle. Late in a long
-    # test session (many widgets of earlier tests still alive) 7-11 of 23-26 idle ticks were measured while
-    # the job ran, so the bar is a quarter of the idle rate: still far above a frozen loop
-    assert n_ticks >= max(3, 0.25 * baseline), f"{n_ticks} ticks in 0.5 s while busy, {baseline} when idle"
+    # a frozen event loop would tick 0-1 times; a responsive one about as often as when idle (earlier tests
+    # delete their windows at their own teardown, tests/app/conftest.py: torn down later, they stalled this loop)
+    assert n_ticks >= max(3, 0.5 * baseline), f"{n_ticks} ticks in 0.5 s while busy, {baseline} when idle"
     assert progress and 0 < max(progress) < 1
     assert outcomes and outcomes[-1].cancelled and outcomes[-1].result is None
     assert elapsed < 2.5
