@@ -25,14 +25,15 @@ from phasewake.core.analyses import (
     sampling,
     velocity,
 )
+from phasewake.core.analyses.audit import AuditRequest
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
-from phasewake.core.progress import Progress
+from phasewake.core.progress import Progress, Work
 from phasewake.core.store import cached
-from phasewake.core.units import KB_KJ_PER_MOL_K
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
 
@@ -131,17 +132,6 @@ def _relay(work: Any, lo: float, hi: float, total: float, label: str) -> Generat
         return stop.value
 
 
-def temperature_of(run: Run) -> tuple[float | None, str]:
-    """The temperature to use for kT: the thermostat target, else the mean stored temperature."""
-    if run.metadata.temperature_K:
-        return float(run.metadata.temperature_K), "thermostat target"
-    if run.energies is not None:
-        s = run.energies.by_role("temperature")
-        if s is not None and np.isfinite(s.values).any():
-            return float(np.nanmean(s.values)), "mean temperature in the energy table"
-    return None, ""
-
-
 # A small cache of coordinate series, so the panels that share a coordinate read frames once. Each entry
 # keeps its Run: a key holds id(run), and an id is only unique while the object is alive (a run closed and
 # collected could hand its id to a newly opened one, which would then be shown the old run's series).
@@ -196,6 +186,21 @@ def through_cache(run: Run, analysis: str, settings: dict[str, Any],
     return (yield from cached.cached_work(run, analysis, settings, work, cache=window_cache()))
 
 
+def requested(run: Run, request: AnalysisRequest, work: Work[Any] | None = None) -> Work[Any]:
+    """``request`` for ``run`` through the result cache the panels use (``cached.requested``): the same key as
+    the command line, the report and the Python API. ``work`` computes the same result from what the panel
+    already holds (e.g. ``CrossingsRequest.analyse`` on the coordinate series drawn beside it)."""
+    if work is None:
+        return (yield from cached.requested(run, request, cache=window_cache()))
+    return (yield from cached.cached_work(run, request.name, request.settings(), work, cache=window_cache(),
+                                          extra_paths=request.reference_paths(run)))
+
+
+def _frame_range(ctx: AnalysisContext) -> tuple[int, int | None]:
+    """The context's frames as a request states them: (0, None) for the whole run, as the command line does."""
+    return ctx.start, (None if ctx.stop >= ctx.run.n_frames else ctx.stop)
+
+
 def _need_coordinate(ctx: AnalysisContext) -> PanelResult | None:
     if ctx.run.frames is None:
         return PanelResult(message="This run has no frames (positions), so there is no coordinate to show.")
@@ -239,8 +244,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
     yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    work = cached.cached_audit(run, cache=window_cache())  # the key shared_frames_job uses
-    res = yield from _relay(work, 0, 1, 1, "audit")
+    res = yield from _relay(requested(run, AuditRequest()), 0, 1, 1, "audit")  # the key shared_frames_job uses
     figs = plots.figures_for(res)
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
@@ -512,20 +516,18 @@ def dragged_states(choices: dict[str, Any]) -> tuple[tuple[float, float] | None,
 
 
 def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """Crossings of the coordinate: :class:`~phasewake.core.analyses.crossings.CrossingsRequest` (the same request,
+    temperature rule, kT/m_eff and cache key as the command line and the report) with the dragged states."""
     need = _need_coordinate(ctx)
     if need is not None:
         return need
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
-    temp, _ = temperature_of(ctx.run)
     states, surface = dragged_states(ctx.choices)
-    kt_m = None
-    if temp is not None and s.m_eff is not None and np.all(np.isfinite(s.m_eff)):
-        kt_m = float(KB_KJ_PER_MOL_K * temp * np.mean(1.0 / np.asarray(s.m_eff, float)))
-    work = crossings.crossings_work([crossings.as_trace(s, name=ctx.run.name)], states=states, surface=surface,
-                                    unit=s.unit, temperature_K=temp, kT_over_m_eff=kt_m)
-    what = {"coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop, "name": ctx.run.name,
-            "states": states, "surface": surface, "temperature_K": temp, "kT_over_m_eff": kt_m}
-    res = yield from _relay(through_cache(ctx.run, "crossings", what, work), 0, 1, 1, "crossings")
+    start, stop = _frame_range(ctx)
+    request = crossings.CrossingsRequest(coordinate=ctx.coordinate, states=states, surface=surface, start=start,
+                                         stop=stop)
+    # the series is already here (the panel draws it): the request's second step on it, under its own key
+    res = yield from _relay(requested(ctx.run, request, request.analyse([ctx.run], [s])), 0, 1, 1, "crossings")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
     figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + plots.figures_for(res)
@@ -566,7 +568,7 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     if need is not None:
         return need
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
-    temp, source = temperature_of(ctx.run)
+    temp, source = crossings.run_temperature(ctx.run)  # the one temperature rule of kT
     if temp is None:
         return PanelResult(message="The free-energy profile needs a temperature: state the thermostat "
                                    "temperature in the Runs list (the files do not say).")

@@ -33,7 +33,7 @@ def first_panel_seconds(path: str | Path, *, timeout_s: float = 120.0) -> float:
     t0 = time.perf_counter()  # what a user waits for includes loading the window's code
     from PySide6 import QtCore
 
-    from phasewake.app.window.main import MainWindow
+    from phasewake.app.window.main import MainWindow, delete_now
 
     app = _app()
     with tempfile.TemporaryDirectory() as tmp:
@@ -55,9 +55,7 @@ def first_panel_seconds(path: str | Path, *, timeout_s: float = 120.0) -> float:
         if win.messages:
             raise RuntimeError(win.messages[-1])
         win.jobs.wait_all(10_000)
-        win.close()
-        win.deleteLater()
-        app.processEvents()
+        delete_now(win)
     return elapsed
 
 

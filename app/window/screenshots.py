@@ -47,7 +47,7 @@ def render(paths: Sequence[str], output: Path, *, size: tuple[int, int] = DEFAUL
     from PySide6 import QtCore, QtWidgets
 
     from phasewake.app.window.analyses import PANELS
-    from phasewake.app.window.main import MainWindow
+    from phasewake.app.window.main import MainWindow, delete_now
 
     pg.setConfigOptions(antialias=True)
     app = QtWidgets.QApplication.instance() or QtWidgets.QApplication(["phasewake-screenshots"])
@@ -113,7 +113,7 @@ def render(paths: Sequence[str], output: Path, *, size: tuple[int, int] = DEFAUL
         first.append(gpath)
         dlg.close()
     written[:0] = first
-    win.close()
+    delete_now(win)  # the next run's window starts without this one's plots to tear down
     return written
 
 
