@@ -1,0 +1,396 @@
+"""The analyses behind a report, each a named step that returns its result or the reason it is missing.
+
+:func:`collect_analyses` runs them in order: the coordinate (given, or chosen for the run), one read of
+the frames for the audit, the coordinate and the principal components (each looked up in the result
+cache first), the crossings of the coordinate, then the analyses of the coordinate's values (time
+correlations, sampling checks, the phase-space density, the free-energy profile), which read no frames.
+The report's pages are drawn from the :class:`ReportAnalyses` it returns
+(:mod:`phasewake.core.figures.report_sections`); nothing is computed while drawing.
+
+An analysis that cannot run on the data (no frames, no velocities, too short, no temperature) leaves
+its result None and says why, so its page can say so instead of inventing a figure.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Generator, Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.errors import PhasewakeError
+from phasewake.core.progress import Progress, Work
+from phasewake.core.store.cached import (
+    audit_item,
+    cached_audit,
+    cached_coordinates,
+    cached_pass,
+    cached_pca,
+    cached_work,
+    coordinates_item,
+    pca_item,
+)
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
+    from phasewake.core.store.cache import ResultCache
+
+PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
+MIN_SERIES_FRAMES = 40  # fewer frames of the coordinate: no sampling checks or free-energy profile
+
+
+@dataclass(frozen=True)
+class ReportSettings:
+    """What a user sets for a report (every other choice is the analyses' own default)."""
+
+    coordinate: str | None = None  # coordinate specification; None: chosen for the run
+    temperature_K: float | None = None
+    n_constraints: int | None = None
+    timestep_ps: float | None = None
+    states: tuple[float, float] | None = None  # core-set limits (A_hi, B_lo) in the coordinate's unit
+    surface: float | None = None
+    max_points: int = 20_000  # largest number of frames drawn in a scatter figure
+
+    def audit_settings(self) -> dict[str, Any]:
+        return {"n_constraints": self.n_constraints, "timestep_ps": self.timestep_ps,
+                "temperature_K": self.temperature_K}
+
+
+@dataclass(frozen=True)
+class SeriesAnalyses:
+    """Analyses of the coordinate's values (and of the potential energy's), computed without the frames."""
+
+    correlations: tuple[tuple[str, Any], ...] = ()  # (series name, CorrelationResult), coordinate first
+    blocking: tuple[str, Any] | None = None  # (series name, BlockingResult) of the first correlated series
+    running: Any = None  # sampling.RunningAverage of the coordinate
+    divergence: Any = None  # sampling.DivergenceResult, first half against second
+    coverage: Any = None  # sampling.CoverageResult in the (q, p) plane
+    rhat: Any = None  # sampling.RhatResult over segments
+    verdicts: tuple[Any, ...] = ()  # of the estimators, the divergence and R-hat
+    density: Any = None  # landscape.Histogram2D of (q, p)
+    density_reason: str = ""
+    profile: Any = None  # landscape.FreeEnergyProfile of the whole run
+    halves: tuple[Any, ...] = ()  # the same on the same bins from each half
+    profile_reason: str = ""
+    temperature_K: float | None = None  # of the profile
+    temperature_source: str = ""
+
+
+@dataclass(frozen=True)
+class ReportAnalyses:
+    """Every result a report draws, each with the reason it is missing (empty when present)."""
+
+    coordinate: str | None  # the coordinate analysed
+    coordinate_reason: str  # why it was chosen, or why there is none
+    audit: Any = None
+    audit_reason: str = ""
+    series: Any = None  # CoordinateSeries of the coordinate
+    series_reason: str = ""
+    crossings: Any = None
+    crossings_reason: str = ""
+    pca: Any = None
+    pca_reason: str = ""
+    of_series: SeriesAnalyses = field(default_factory=SeriesAnalyses)
+
+    @property
+    def verdicts(self) -> list[Any]:
+        """The verdicts of the audit, the crossings and the sampling checks, in that order."""
+        out: list[Any] = []
+        if self.audit is not None:
+            out.extend(self.audit.verdicts)
+        if self.crossings is not None:
+            out.extend(self.crossings.verdicts)
+        out.extend(self.of_series.verdicts)
+        return out
+
+
+def relay(work: Work[Any], base: float, total: float, label: str) -> Work[Any]:
+    """Run ``work`` as the part [base, base + 1) of ``total`` steps, its messages after ``label``."""
+    try:
+        while True:
+            p = next(work)
+            frac = p.fraction or 0.0
+            yield Progress(base + min(frac, 0.999), total, f"{label}: {p.message}" if p.message else label)
+    except StopIteration as stop:
+        return stop.value
+
+
+def collect_analyses(run: Run, settings: ReportSettings, *, cache: ResultCache | None = None,
+                     total: float = 8.0) -> Work[ReportAnalyses]:
+    """Every analysis of the report, as steps 0 to 4 of ``total`` progress steps."""
+    spec, spec_reason = choose_report_coordinate(run, settings.coordinate)
+    shared = yield from relay(shared_pass(run, spec, settings, cache), 0, total, "one pass over the frames")
+    yield Progress(0, total, "auditing energies and temperature")
+    audit, audit_reason = yield from relay(audit_step(run, settings, shared, cache), 0, total, "audit")
+    yield Progress(1, total, "computing the coordinate")
+    series, series_reason = yield from relay(coordinate_step(run, spec, spec_reason, shared, cache), 1, total,
+                                             "coordinate")
+    yield Progress(2, total, "finding barrier crossings")
+    crossings, crossings_reason = yield from relay(crossings_step(run, spec, series, settings, cache), 2, total,
+                                                   "crossings")
+    yield Progress(3, total, "principal components")
+    pca, pca_reason = yield from relay(pca_step(run, shared, cache), 3, total, "principal components")
+    yield Progress(4, total, "correlations, sampling and the free-energy profile")
+    temperature, source = report_temperature(run, settings.temperature_K)
+    return ReportAnalyses(coordinate=spec, coordinate_reason=spec_reason, audit=audit, audit_reason=audit_reason,
+                          series=series, series_reason=series_reason, crossings=crossings,
+                          crossings_reason=crossings_reason or series_reason, pca=pca, pca_reason=pca_reason,
+                          of_series=series_analyses(run, series, temperature, source))
+
+
+def choose_report_coordinate(run: Run, coordinate: str | None) -> tuple[str | None, str]:
+    """The report's coordinate and why: the one given (reason ""), else the automatic choice of
+    :func:`phasewake.core.analyses.coordinate_choice.choose_coordinate` with its reason (None for a pure liquid)."""
+    from phasewake.core.analyses.coordinate_choice import choose_coordinate
+
+    if coordinate is not None or run.frames is None:
+        return coordinate, ""
+    try:
+        choice = choose_coordinate(run)
+    except PhasewakeError as exc:
+        return None, f"no coordinate could be chosen automatically: {exc}"
+    return choice.spec, choice.reason
+
+
+def pca_settings(run: Run) -> dict[str, Any] | None:
+    """The principal-components settings of the report (solute atoms; exact route when small), or None
+    when there is nothing to decompose (no frames; two atoms: one distance)."""
+    from phasewake.core.analyses.coordinates import solute_atoms
+
+    if run.frames is None:
+        return None
+    group = np.asarray(solute_atoms(run.topology, run.n_atoms))
+    if group.size < 3:
+        return None
+    method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
+    return {"atom_indices": group, "n_components": 3, "method": method}
+
+
+def shared_pass(run: Run, spec: str | None, settings: ReportSettings,
+                cache: ResultCache | None) -> Generator[Progress, None, dict[str, Any]]:
+    """The audit, the coordinate and the principal components from one read of the frames (each looked up in
+    the result cache first: ``cached.cached_pass``). Analyses that cannot share it are left to run alone."""
+    if run.frames is None:
+        return {}
+    items: dict[str, Any] = {"audit": audit_item(run, **settings.audit_settings())}
+    try:
+        if spec is not None:
+            items["coordinate"] = coordinates_item(run, [spec])
+    except PhasewakeError:
+        pass  # a coordinate that cannot be read: its section says why (coordinate_step raises it again)
+    pca = pca_settings(run)
+    if pca is not None:
+        items["pca"] = pca_item(run, **pca)
+    return (yield from cached_pass(run, items, cache=cache))
+
+
+def from_shared(shared: Mapping[str, Any], name: str, alone: Any) -> Generator[Progress, None, Any]:
+    """The shared pass's result for ``name`` (raising the error that stopped it), else ``alone()`` run alone."""
+    value = shared.get(name)
+    if isinstance(value, PhasewakeError):
+        raise value
+    if value is not None:
+        return value
+    return (yield from alone())
+
+
+def audit_step(run: Run, settings: ReportSettings, shared: Mapping[str, Any],
+               cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+    """The audit of the run (energies, temperature, time step), or the reason it could not run."""
+    try:
+        audit = yield from from_shared(shared, "audit", lambda: cached_audit(
+            run, cache=cache, **settings.audit_settings()))
+    except PhasewakeError as exc:
+        return None, f"the audit could not run: {exc}"
+    return audit, ""
+
+
+def coordinate_step(run: Run, spec: str | None, spec_reason: str, shared: Mapping[str, Any],
+                    cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+    """The coordinate series (with its momentum when the run has velocities), or the reason there is none."""
+    if run.frames is None:
+        return None, "the run has no frames (energy table only)"
+    if spec is None:
+        return None, ("no coordinate was given and " + (spec_reason or "none could be suggested")
+                      + ("" if "--coordinate" in spec_reason else " (use --coordinate)"))
+    try:
+        out = yield from from_shared(shared, "coordinate", lambda: cached_coordinates(run, [spec], cache=cache))
+    except PhasewakeError as exc:
+        return None, f"the coordinate could not be computed: {exc}"
+    return out[0], ""
+
+
+def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSettings,
+                   cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+    """Barrier crossings of the coordinate: the command line's :class:`CrossingsRequest` (its temperature
+    rule, kT/m_eff, Jacobian and defaults), analysed on the series already read and kept in the result cache
+    under the request's own key (so ``phasewake crossings`` of the same run finds it, and the other way round).
+    """
+    from phasewake.core.analyses.crossings import CrossingsRequest
+
+    if series is None or spec is None:
+        return None, ""
+    request = CrossingsRequest(coordinate=spec, states=settings.states, surface=settings.surface,
+                               temperature_K=settings.temperature_K)
+    try:
+        result = yield from cached_work(run, request.name, request.settings(), request.analyse([run], [series]),
+                                        cache=cache, extra_paths=request.reference_paths(run))
+    except PhasewakeError as exc:
+        return None, f"crossings could not be analysed: {exc}"
+    return result, ""
+
+
+def pca_step(run: Run, shared: Mapping[str, Any],
+             cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+    """The principal components of the solute atoms, or the reason there are none."""
+    if run.frames is None:
+        return None, "the run has no frames"
+    pca = pca_settings(run)
+    if pca is None:
+        return None, "principal components left out: the solute has fewer than 3 atoms"
+    try:
+        result = yield from from_shared(shared, "pca", lambda: cached_pca(run, cache=cache, **pca))
+    except PhasewakeError as exc:
+        return None, f"the principal components could not be computed: {exc}"
+    return result, ""
+
+
+def report_temperature(run: Run, given: float | None) -> tuple[float | None, str]:
+    """The temperature (K) for kT in the report and where it comes from: the one given, else the rule of
+    :func:`phasewake.core.analyses.crossings.run_temperature` (the crossings use the same); (None, why)
+    when unknown, never a guess."""
+    from phasewake.core.analyses.crossings import run_temperature
+
+    if given is not None:
+        return float(given), "given by the user"
+    return run_temperature(run)
+
+
+def series_analyses(run: Run, series: Any, temperature_K: float | None, temperature_source: str) -> SeriesAnalyses:
+    """Correlations, sampling checks, phase-space density and free-energy profile of the coordinate's values."""
+    density, density_reason = phase_density(series)
+    profile, halves, profile_reason = free_energy_profiles(series, temperature_K, temperature_source)
+    correlations, blocking = correlations_of(run, series)
+    own = correlations[0][1] if correlations and series is not None and correlations[0][0] == series.label else None
+    sampling = sampling_checks(series, own)
+    return SeriesAnalyses(correlations=correlations, blocking=blocking, density=density,
+                          density_reason=density_reason, profile=profile, halves=halves,
+                          profile_reason=profile_reason, temperature_K=temperature_K,
+                          temperature_source=temperature_source, **sampling)
+
+
+def _finite_values(series: Any) -> np.ndarray:
+    q = np.asarray(series.values, float)
+    return q[np.isfinite(q)]
+
+
+def _spacing_ps(time_ps: Any) -> float:
+    return float(np.median(np.diff(np.asarray(time_ps, float))))
+
+
+def correlations_of(run: Run, series: Any) -> tuple[tuple[tuple[str, Any], ...], tuple[str, Any] | None]:
+    """Autocorrelation of the coordinate and of the potential energy (the first also by blocking)."""
+    from phasewake.core.analyses.correlation import analyse_series, blocking
+
+    candidates: list[tuple[str, np.ndarray, float, str]] = []
+    if series is not None and series.values.size > 20:
+        candidates.append((series.label, np.asarray(series.values, float), _spacing_ps(series.time_ps), series.unit))
+    if run.energies is not None and len(run.energies) > 20:
+        pot = run.energies.by_role("potential")
+        if pot is not None:
+            candidates.append((pot.name, np.asarray(pot.values, float), _spacing_ps(run.energies.time_ps), pot.unit))
+    results: list[tuple[str, Any]] = []
+    blocked: tuple[str, Any] | None = None
+    for name, x, dt, unit in candidates:
+        x = x[np.isfinite(x)]
+        try:
+            results.append((name, analyse_series(x, dt_ps=dt, unit=unit)))
+            if len(results) == 1:
+                blocked = (name, blocking(x, unit=unit))
+        except PhasewakeError:
+            continue
+    return tuple(results), blocked
+
+
+def sampling_checks(series: Any, correlation: Any = None) -> dict[str, Any]:
+    """Running average, half-against-half divergence, (q, p) coverage and segment R-hat of the coordinate,
+    with the verdicts of the divergence, R-hat and the estimators of the statistical inefficiency (from
+    ``correlation``, the coordinate's CorrelationResult, when there is one)."""
+    from phasewake.core.analyses import sampling
+    from phasewake.core.analyses.correlation import judge_estimators
+
+    out: dict[str, Any] = {}
+    if series is None or _finite_values(series).size < MIN_SERIES_FRAMES:
+        return out
+    q, dt, name = _finite_values(series), _spacing_ps(series.time_ps), series.label
+    verdicts: list[Any] = []
+    if correlation is not None:  # the estimators of g compared (an oscillating coordinate closes Sokal's window early)
+        est = judge_estimators(correlation, name=name)
+        if est is not None:
+            verdicts.append(est)
+    steps = {"running": lambda: sampling.running_average(q, dt_ps=dt, unit=series.unit),
+             "divergence": lambda: sampling.segment_divergence(q),
+             "coverage": lambda: _coverage(series, dt),
+             "rhat": lambda: sampling.rhat_segments(q)}
+    for key, step in steps.items():
+        try:
+            out[key] = step()
+        except PhasewakeError:
+            continue  # the page leaves that part out
+    if out.get("divergence") is not None:
+        verdicts.append(sampling.judge_divergence(out["divergence"], name=name))
+    if out.get("rhat") is not None:
+        verdicts.append(sampling.judge_rhat(out["rhat"], name=name))
+    out["verdicts"] = tuple(verdicts)
+    return out
+
+
+def _coverage(series: Any, dt_ps: float) -> Any:
+    from phasewake.core.analyses.sampling import coverage_over_time
+
+    p = series.momentum if series.momentum is not None else series.velocity
+    if p is None or np.asarray(p).size != np.asarray(series.values).size:
+        return None
+    both = np.isfinite(series.values) & np.isfinite(p)
+    return coverage_over_time(np.asarray(series.values)[both], np.asarray(p)[both], dt_ps=dt_ps)
+
+
+def phase_density(series: Any) -> tuple[Any, str]:
+    """The density of the coordinate in the (q, p) plane, or the reason there is none."""
+    from phasewake.core.analyses.landscape import histogram_2d
+
+    if series is None:
+        return None, "no coordinate"
+    p = series.momentum if series.momentum is not None else series.velocity
+    if p is None:
+        return None, "the coordinate has no momentum (no velocities)"
+    p_unit = series.momentum_unit if series.momentum is not None else series.velocity_unit
+    try:
+        return histogram_2d(np.asarray(series.values, float), np.asarray(p, float), x_unit=series.unit,
+                            y_unit=p_unit), ""
+    except PhasewakeError as exc:
+        return None, f"the density could not be computed: {exc}"
+
+
+def free_energy_profiles(series: Any, temperature_K: float | None,
+                         temperature_source: str) -> tuple[Any, tuple[Any, ...], str]:
+    """The free-energy profile of the coordinate over the whole run and over each half on the same bins
+    (``temperature_source``: why the temperature is what it is, or unknown)."""
+    from phasewake.core.analyses.landscape import free_energy_profile
+
+    if series is None:
+        return None, (), "no coordinate"
+    q = _finite_values(series)
+    if q.size < MIN_SERIES_FRAMES:
+        return None, (), f"the coordinate has only {q.size} frames"
+    if temperature_K is None:
+        return None, (), temperature_source
+    try:
+        whole = free_energy_profile(q, temperature_K=temperature_K, unit=series.unit)
+        half = q.size // 2
+        halves = tuple(free_energy_profile(part, temperature_K=temperature_K, unit=series.unit,
+                                           bins=np.asarray(whole.edges)) for part in (q[:half], q[half:]))
+    except PhasewakeError as exc:
+        return None, (), f"the free-energy profile could not be computed: {exc}"
+    return whole, halves, ""

@@ -1,0 +1,301 @@
+"""The sections of a report, each drawn from the results of :mod:`phasewake.core.figures.report_analyses`.
+
+:func:`build_sections` makes a page per section, in :data:`SECTION_ORDER`: the run and the verdicts
+table; energy conservation; kinetic temperature; the velocity spectrum behind the time-step check; the
+coordinate against time and its phase portrait; the phase-space density and principal components; time
+correlations; sampling; barrier crossings. A section whose analysis is missing gets a page that says why.
+Each figure's caption says what was computed with which settings and ends with the explanation of its
+numbers that the window shows as tooltips (:mod:`phasewake.core.analyses.explain`).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
+from phasewake.core.figures import plots
+from phasewake.core.figures.report_analyses import ReportAnalyses, ReportSettings
+from phasewake.core.figures.report_pages import SECTION_TITLES, ReportPage
+from phasewake.core.figures.spec import FigureSpec, Line, PlotSpec, Style, series_style
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
+
+
+@dataclass(frozen=True)
+class ReportSections:
+    """The report's pages in order, the sections left out (with the reason) and the verdicts of the table."""
+
+    pages: tuple[ReportPage, ...]
+    skipped: tuple[tuple[str, str], ...]
+    verdicts: tuple[Any, ...]
+
+
+def missing(section: str, reason: str) -> ReportPage:
+    """The page of a section that is not in the report, saying why."""
+    return ReportPage(section=section, title=SECTION_TITLES[section],
+                      text=f"This section is not in the report: {reason}")
+
+
+def build_sections(run: Run, got: ReportAnalyses, settings: ReportSettings,
+                   shown: Mapping[str, Any]) -> ReportSections:
+    """A page (or a few) per section from the analyses; ``shown`` is the settings table of the summary."""
+    verdicts = got.verdicts
+    made: list[ReportPage | tuple[str, str]] = [
+        summary_page(run, verdicts, got.audit, shown),
+        energy_page(run, got), temperature_page(run, got), timestep_page(got),
+        coordinate_page(got, settings.max_points), phase_page(got), correlation_page(got), sampling_page(got),
+        *crossings_pages(got),
+    ]
+    pages: list[ReportPage] = []
+    skipped: list[tuple[str, str]] = []
+    for item in made:
+        if isinstance(item, ReportPage):
+            pages.append(explained(item))
+        else:
+            skipped.append(item)
+            pages.append(missing(*item))
+    return ReportSections(pages=tuple(pages), skipped=tuple(skipped), verdicts=tuple(verdicts))
+
+
+def _figure_page(section: str, fig: FigureSpec, caption: str | None = None, title: str | None = None) -> ReportPage:
+    return ReportPage(section, title or SECTION_TITLES[section], figure=fig,
+                      caption=fig.caption if caption is None else caption)
+
+
+def _joined(key: str, title: str, figs: Sequence[FigureSpec], caption: str) -> FigureSpec:
+    """Several figures side by side as one (their plots in a row, each part's key kept for the explanations)."""
+    return FigureSpec(key=key, title=title, plots=tuple(p for f in figs for p in f.plots), grid=(1, len(figs)),
+                      caption=caption, provenance={"parts": [f.key for f in figs]})
+
+
+def _lettered(figs: Sequence[FigureSpec], *, full_stop: bool) -> list[str]:
+    """Captions as "(a) ... (b) ...", each ended by a full stop when ``full_stop``."""
+    out = []
+    for i, f in enumerate(figs):
+        c = f.caption.rstrip()
+        out.append(f"({chr(97 + i)}) {c}" + ("." if full_stop and not c.endswith(".") else ""))
+    return out
+
+
+def summary_page(run: Run, verdicts: Sequence[Any], audit: Any, shown: Mapping[str, Any]) -> ReportPage:
+    """The run in a few lines (files, atoms, frames, velocities, energy terms, metadata) and the verdicts table."""
+    lines = [f"Run: {run.name}", f"Files: {', '.join(str(p) for p in run.paths) or '(in memory)'}",
+             f"{run.n_atoms} atoms, {run.n_frames} frames"
+             + (f", {run.time_ps[0]:.4g}–{run.time_ps[-1]:.4g} ps" if run.n_frames else "")
+             + (f", frame spacing {run.frame_spacing_ps:.4g} ps" if run.frame_spacing_ps else ""),
+             "Velocities: " + ("estimated from positions" if run.frames is not None and
+                               run.frames.velocities_estimated else
+                               "stored" if run.has_velocities else "none"),
+             "Energy terms: " + (", ".join(f"{s.name} ({s.unit})" for s in run.energies.series.values())
+                                 if run.energies is not None else "none")]
+    md = run.metadata
+    meta = [f"{k} {v}" for k, v in (("ensemble", md.ensemble), ("thermostat", md.thermostat),
+                                   ("time step", f"{md.timestep_ps * 1e3:g} fs" if md.timestep_ps else None),
+                                   ("target", f"{md.temperature_K:g} K" if md.temperature_K else None))
+            if v]
+    if meta:
+        lines.append("Metadata: " + ", ".join(meta))
+    if audit is not None and audit.ensemble_source:
+        lines.append(f"Ensemble judged: {audit.ensemble}, {audit.ensemble_source}")
+    if audit is not None and not audit.checked:
+        lines.append("Audit: nothing could be checked with what the files hold (each 'not checked' row says what "
+                     "its check needs).")
+    why = shown.get("coordinate_reason") or ""
+    lines.append("Coordinate analysed: " + str(shown.get("coordinate") or "none") + (f" ({why})" if why else ""))
+    if run.warnings:
+        lines.append("Reader warnings: " + " ".join(run.warnings))
+    if audit is not None and audit.notes:
+        notes = [n for n in audit.notes if not any(w in n or n in w for w in run.warnings)]
+        if notes:
+            lines.append("Audit notes: " + " ".join(notes))
+    table, levels = verdict_table(verdicts)
+    if len(table) == 1:
+        lines.append("No verdicts: no analysis that judges the run could run on it.")
+    return ReportPage("summary", SECTION_TITLES["summary"], table=table, table_levels=levels,
+                      text="\n".join(lines))
+
+
+def verdict_table(verdicts: Sequence[Any]) -> tuple[tuple[tuple[str, ...], ...], tuple[str, ...]]:
+    """The verdicts as table rows (header first) and the level of each row."""
+    table: list[tuple[str, ...]] = [("Verdict", "Check", "Measured", "Threshold (source)",
+                                     "What was measured; what to do")]
+    levels = []
+    for r in plots.verdict_rows(verdicts):
+        thr = r["threshold"] + (f" ({r['source']})" if r["source"] else "")
+        table.append((r["level"], r["check"], r["measured"], thr,
+                      r["message"].replace(HEURISTIC_NOTE, "").strip()
+                      + (" Advice: " + r["advice"] if r["advice"] and r["level"] in ("caution", "problem") else "")))
+        levels.append(r["level"])
+    return tuple(table), tuple(levels)
+
+
+def energy_page(run: Run, got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    if got.audit is not None and got.audit.energy is not None:
+        return _figure_page("energy", plots.audit_energy_figure(got.audit))
+    if run.energies is not None:
+        fig = plots.energy_series_figure(run.energies, run_name=run.name)
+        return _figure_page("energy", fig, fig.caption + (f" (No audit: {got.audit_reason}.)"
+                                                          if got.audit_reason else ""))
+    return "energy", "the run has no energy table"
+
+
+def temperature_page(run: Run, got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    if got.audit is not None and got.audit.temperature is not None:
+        return _figure_page("temperature", plots.audit_temperature_figure(got.audit))
+    if run.energies is not None and run.energies.by_role("temperature") is not None:
+        return _figure_page("temperature", plots.temperature_figure(run.energies, run_name=run.name,
+                                                                    target_K=run.metadata.temperature_K))
+    return "temperature", got.audit_reason or "no velocities and no temperature column"
+
+
+def timestep_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    audit = got.audit
+    if audit is not None and audit.timestep is not None and np.asarray(audit.timestep.frequency_per_ps).size:
+        return _figure_page("timestep", plots.audit_spectrum_figure(audit))
+    note = (audit.timestep.note if audit.timestep is not None else "") if audit is not None else got.audit_reason
+    return "timestep", note or "no velocity spectrum could be computed"
+
+
+def coordinate_page(got: ReportAnalyses, max_points: int) -> ReportPage | tuple[str, str]:
+    """The coordinate against time beside its phase portrait (core sets and crossings marked)."""
+    series = got.series
+    if series is None:
+        return "coordinate", got.series_reason
+    f1 = plots.coordinate_series_figure(series, crossings=got.crossings)
+    f2 = plots.phase_portrait_figure(series, crossings=got.crossings, max_points=max_points)
+    both = _joined("report.coordinate", f"{series.label}: time series and phase portrait", (f1, f2),
+                   f1.caption + " " + f2.caption)
+    caption = f"Coordinate {series.label}, {got.coordinate_reason}. " + both.caption if got.coordinate_reason \
+        else both.caption
+    return _figure_page("coordinate", both, caption)
+
+
+def phase_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    """Density of the coordinate in the (q, p) plane and the principal components of the solute."""
+    of = got.of_series
+    figs: list[FigureSpec] = []
+    reasons = []
+    if of.density is not None:
+        figs.append(plots.phase_density_figure(got.series, of.density))
+    elif of.density_reason:
+        reasons.append(of.density_reason)
+    if got.pca is not None:
+        figs.append(plots.pca_variance_figure(got.pca))
+    elif got.pca_reason:
+        reasons.append(got.pca_reason)
+    if not figs:
+        return "phase", "; ".join(reasons) or "nothing to draw"
+    caption = " ".join(_lettered(figs, full_stop=False) + [r[0].upper() + r[1:] + "." for r in reasons])
+    return _figure_page("phase", _joined("report.phase", SECTION_TITLES["phase"], figs, caption))
+
+
+def correlation_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    """Autocorrelation and blocking of the coordinate, autocorrelation of the potential energy."""
+    of = got.of_series
+    figs = [plots.autocorrelation_figure(res, name=name) for name, res in of.correlations]
+    if of.blocking is not None:
+        figs.insert(1, plots.blocking_figure(of.blocking[1], name=of.blocking[0]))
+    if not figs:
+        return "correlation", "no series long enough to correlate"
+    spec = _joined("report.correlation", "Time correlations", figs, " ".join(_lettered(figs, full_stop=True)))
+    return _figure_page("correlation", spec)
+
+
+def sampling_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
+    """Free-energy profile of the coordinate over the whole run and each half, the running average and the
+    (q, p) coverage over time, with the half-against-half divergence and R-hat in the caption."""
+    of, series = got.of_series, got.series
+    if series is None:
+        return "sampling", got.series_reason or "no coordinate"
+    plots_: list[PlotSpec] = []
+    parts: list[str] = []
+    caption = ""
+    if of.profile is not None:
+        plot, caption = _profile_with_halves(got)
+        plots_.append(plot)
+        parts.append("landscape.profile")
+    elif of.running is None:
+        return "sampling", of.profile_reason
+    else:
+        caption = f"No free-energy profile: {of.profile_reason}."
+    places = ("Right", "Far right") if plots_ else ("Left", "Right")
+    for (key, fig), where in zip(_sampling_figures(got), places):
+        plots_.extend(fig.plots)
+        parts.append(key)
+        caption += f" {where}: " + fig.caption
+    if of.divergence is not None:
+        d = of.divergence
+        caption += (f" Half against half, the Jensen–Shannon divergence of {series.label} is "
+                    f"{d.half_jsd_nats:.3g} nats against {d.half_null_nats:.2g} nats expected from noise.")
+    if of.rhat is not None:
+        rh = of.rhat
+        caption += (f" Rank-normalised split R̂ over {rh.n_chains} segments (Vehtari et al. 2021): {rh.rhat:.3f} "
+                    f"(threshold {rh.threshold:g}).")
+    spec = FigureSpec(key="report.sampling", title="Sampling", plots=tuple(plots_), grid=(1, len(plots_)),
+                      caption=caption.strip(), provenance={"parts": parts})
+    return _figure_page("sampling", spec)
+
+
+def _profile_with_halves(got: ReportAnalyses) -> tuple[PlotSpec, str]:
+    """The whole run's free-energy profile with each half's drawn over it, and its caption."""
+    of, series = got.of_series, got.series
+    base = plots.free_energy_profile_figure(of.profile, label=series.label, crossings=got.crossings)
+    items = list(base.plots[0].items)
+    for i, (h, name) in enumerate(zip(of.halves, ("first half", "second half"))):
+        f = np.asarray(h.free_energy_kJ_per_mol, float)
+        ok = np.isfinite(f)
+        st = series_style(i + 1, marker=True)
+        items.append(Line(np.asarray(h.centers)[ok], f[ok], label=name,
+                          style=Style(colour=st.colour, dash=st.dash, marker=st.marker, width=1.2)))
+    p0 = base.plots[0]
+    caption = (base.caption + f" T: {of.temperature_source}."
+               " Dashed and dotted: the same profile from the first and the second half of the "
+               "run on the same bins; halves that disagree beyond the block errors mean the run has not "
+               "sampled the coordinate's distribution yet.")
+    return PlotSpec(title=p0.title, x=p0.x, y=p0.y, items=tuple(items), note=p0.note), caption
+
+
+def _sampling_figures(got: ReportAnalyses) -> list[tuple[str, FigureSpec]]:
+    """The running average and the (q, p) coverage figures, with their keys."""
+    of, series = got.of_series, got.series
+    out = []
+    if of.running is not None:
+        out.append(("sampling.running", plots.running_average_figure(of.running, name=series.label)))
+    if of.coverage is not None:
+        out.append(("sampling.coverage", plots.coverage_figure(of.coverage, x_label=series.label, y_label="p")))
+    return out
+
+
+def crossings_pages(got: ReportAnalyses) -> list[ReportPage | tuple[str, str]]:
+    """The crossings summary table and the dwell-time figure."""
+    c = got.crossings
+    if c is None:
+        return [("crossings", got.crossings_reason or "no coordinate")]
+    rows = tuple((a, b) for a, b in plots.crossings_summary_rows(c))
+    fig = plots.dwell_times_figure(c)
+    return [ReportPage("crossings", SECTION_TITLES["crossings"], table=(("Quantity", "Value"),) + rows,
+                       text=" ".join(c.warnings)),
+            _figure_page("crossings", fig, title=SECTION_TITLES["crossings"] + ": dwell times")]
+
+
+def explained(page: ReportPage) -> ReportPage:
+    """The page with the explanation of its figure's numbers appended to its caption: the words of the
+    window's tooltips (``phasewake.core.analyses.explain``)."""
+    from phasewake.core.analyses import explain
+
+    if page.figure is None:
+        return page
+    parts = page.figure.provenance.get("parts") if isinstance(page.figure.provenance, dict) else None
+    note = explain.caption_note(list(parts) if parts else page.figure.key,
+                                numbers_only=True)  # verdicts: explained in the verdict table
+    if not note:
+        return page
+    caption = page.caption.rstrip()
+    caption = (caption + ("" if not caption or caption.endswith(".") else ".") + " About the numbers. " + note).strip()
+    return dataclasses.replace(page, caption=caption)
