@@ -112,3 +112,41 @@ def h5md_reads(monkeypatch):
 
     monkeypatch.setattr(h5md.H5MDFrames, "iter_chunks", counting)
     return count
+
+
+# --- the sample run's report, built once per test session --------------------------------------------
+@pytest.fixture(scope="session")
+def sample_report(tmp_path_factory):
+    """`phasewake report` of a copy of sample_data/dimer_nve.h5md with ``--coordinate distance(0, 1)`` and an
+    empty cache of its own, run once: ``code``, ``out``, ``err`` (what the command printed), ``src`` (the
+    input copy) and ``before`` (its sha256 before), ``pdf`` (the report) and ``reads`` (``{"n": ...}``, the
+    H5MD reader's chunk iterations while it ran, as the ``h5md_reads`` fixture counts them)."""
+    import contextlib
+    import io
+    import shutil
+    import types
+
+    from phasewake.app.cli import main
+    from phasewake.core.readers import h5md
+
+    root = tmp_path_factory.mktemp("sample_report")
+    src = root / "in" / "dimer_nve.h5md"
+    src.parent.mkdir()
+    shutil.copy(_SAMPLES / "dimer_nve.h5md", src)
+    before = hashlib.sha256(src.read_bytes()).hexdigest()
+    pdf = root / "out" / "r.pdf"
+    reads = {"n": 0}
+    original = h5md.H5MDFrames.iter_chunks
+
+    def counting(self, **kw):
+        reads["n"] += 1
+        yield from original(self, **kw)
+
+    out, err = io.StringIO(), io.StringIO()
+    with pytest.MonkeyPatch.context() as mp, contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        mp.setattr(h5md.H5MDFrames, "iter_chunks", counting)
+        mp.setenv("PHASEWAKE_CACHE_DIR", str(root / "cache"))
+        mp.delenv("PHASEWAKE_NO_CACHE", raising=False)
+        code = main(["report", str(src), "-o", str(pdf), "--coordinate", "distance(0, 1)"])
+    return types.SimpleNamespace(code=code, out=out.getvalue(), err=err.getvalue(), src=src, before=before, pdf=pdf,
+                                 reads=reads)

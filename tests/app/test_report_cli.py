@@ -5,7 +5,6 @@ Outside references: pypdf parses the PDF; hashlib checks the input bytes did not
 """
 
 import hashlib
-import shutil
 from pathlib import Path
 
 import pytest
@@ -20,16 +19,13 @@ def _sha(p: Path) -> str:
 
 
 @pytest.mark.slow
-def test_report_of_the_sample_run(tmp_path, capsys):
+def test_report_of_the_sample_run(sample_report):
+    """The sample run's report, built once per session by the ``sample_report`` fixture (tests/conftest.py):
+    ``phasewake report COPY -o OUT --coordinate 'distance(0, 1)'``."""
     from pypdf import PdfReader
 
-    src = tmp_path / "in" / SAMPLE.name
-    src.parent.mkdir()
-    shutil.copy(SAMPLE, src)
-    before = _sha(src)
-    out = tmp_path / "out" / "run-report.pdf"
-    code = main(["report", str(src), "-o", str(out), "--coordinate", "distance(0, 1)"])
-    captured = capsys.readouterr()
+    code, out, src, before = sample_report.code, sample_report.pdf, sample_report.src, sample_report.before
+    captured = sample_report
     assert code == 0, captured.err
     assert captured.err == ""
     assert _sha(src) == before  # input untouched

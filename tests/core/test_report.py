@@ -239,16 +239,12 @@ def test_captions_carry_the_explanations_the_window_shows(report):
     assert explain.caption_note("correlation.acf", numbers_only=True) in explain.caption_note("correlation.acf")
 
 
-def test_report_reads_the_frames_once(tmp_path, h5md_reads):
-    """The audit and the coordinate of the report come from one read of the sample file (issue 9: frames are
-    read once per request, not once per analysis); the numbers are those of the separate analyses
-    (tests/core/test_cached.py checks the shared pass against them)."""
-    from pathlib import Path
-
-    from phasewake.core.readers import open_run
-    from phasewake.core.store.cache import ResultCache
-
-    sample = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
-    res = drive(build_report(open_run([sample]), tmp_path / "r.pdf", cache=ResultCache(enabled=False)))
+def test_report_reads_the_frames_once(sample_report):
+    """The audit and the coordinate of the report come from one read of the sample file (frames are read once
+    per request, not once per analysis); the numbers are those of the separate analyses
+    (tests/core/test_cached.py checks the shared pass against them). The report is the sample run's, built
+    once per session by the ``sample_report`` fixture (tests/conftest.py) with an empty cache."""
+    h5md_reads, tmp_path = sample_report.reads, sample_report.pdf.parent
+    res = None if sample_report.code else sample_report.pdf  # the command's exit 0, or None
     assert h5md_reads["n"] == 1
     assert (tmp_path / "r.pdf").stat().st_size > 0 and res is not None
