@@ -1,12 +1,214 @@
-"""Architecture contracts from DESIGN.md, checked by running code, not by reading it."""
+"""Architecture contracts, checked by running code or by reading the source's syntax trees.
 
+- core never imports Qt, pyqtgraph or app (every core module imported with them blocked);
+- no import cycle among phasewake modules (module-level and function-level imports alike);
+- layering: model below readers below analyses below figures, and core below app;
+- no module in core/ or app/ over 700 lines, no function in core/ over 80 lines.
+
+The lists below are today's known exceptions. They may only shrink: an entry that is no longer needed
+fails the test ("remove ... from the list"), and a listed module or function that grows fails too. One
+entry per line, so whoever fixes one deletes that line alone.
+"""
+
+from __future__ import annotations
+
+import ast
 import subprocess
 import sys
 import textwrap
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+# Imports that close an import cycle today (importer -> imported); each is to go.
+KNOWN_CYCLE_IMPORTS = (
+    "core.model.framepass -> core.analyses.audit",
+    "core.model.framepass -> core.analyses.coordinates",
+    "core.model.framepass -> core.analyses.projection",
+    "core.model.framepass -> core.analyses.velocity",
+    "core.analyses.coordinates -> core.analyses.coordinate_choice",
+    "core.analyses.coordinates -> core.analyses.projection",
+    "core.analyses.coordinate_choice -> core.analyses.crossings",
+    "app.window.main -> app.window",
+)
+
+# Imports against the layering today (importer -> imported); each is to go.
+KNOWN_LAYER_BREACHES = (
+    "core.model.framepass -> core.analyses.audit",
+    "core.model.framepass -> core.analyses.coordinates",
+    "core.model.framepass -> core.analyses.projection",
+    "core.model.framepass -> core.analyses.temperature",
+    "core.model.framepass -> core.analyses.velocity",
+    "core.readers.h5md_write -> core.store.atomic",
+)
+
+# Modules over MAX_MODULE_LINES today: path -> lines (a ceiling: may only shrink).
+KNOWN_LONG_MODULES = {
+    "core/analyses/audit.py": 1548,
+    "core/analyses/correlation.py": 1073,
+    "core/analyses/crossings.py": 1549,
+    "core/analyses/energy.py": 1050,
+    "core/analyses/projection.py": 851,
+    "core/analyses/timestep.py": 714,
+    "core/analyses/velocity.py": 1286,
+    "core/figures/export.py": 818,
+    "core/figures/plots.py": 1242,
+    "core/figures/report.py": 910,
+    "app/window/analyses.py": 783,
+    "app/window/main.py": 970,
+}
+
+# Functions in core/ over MAX_FUNCTION_LINES today: path::qualified name -> lines (a ceiling).
+KNOWN_LONG_FUNCTIONS = {
+    "core/analyses/audit.py::audit_run": 523,
+    "core/analyses/audit.py::_verdicts": 207,
+    "core/analyses/coordinate_choice.py::choose_coordinate": 115,
+    "core/analyses/coordinates.py::value_and_gradient": 135,
+    "core/analyses/coordinates.py::compute_coordinates": 119,
+    "core/analyses/coordspec.py::resolve": 101,
+    "core/analyses/correlation.py::analyse_series": 90,
+    "core/analyses/crossings.py::_replica_events": 129,
+    "core/analyses/crossings.py::crossings_work": 346,
+    "core/analyses/energy.py::scan_columns": 91,
+    "core/analyses/energy.py::_events_from_scan": 84,
+    "core/analyses/landscape.py::free_energy_profile": 92,
+    "core/analyses/projection.py::compute_pca": 100,
+    "core/analyses/timestep.py::expected_fast_motions": 84,
+    "core/analyses/timestep.py::timestep_verdicts": 85,
+    "core/analyses/velocity.py::transport": 95,
+    "core/figures/report.py::build_report": 229,
+    "core/readers/folder.py::find_run_files": 95,
+    "core/readers/lammps_data.py::read_data": 109,
+    "core/readers/lammps_dump.py::scan": 103,
+    "core/readers/lammps_dump.py::finish_run": 96,
+    "core/readers/lammps_log.py::read_log": 141,
+    "core/readers/parts.py::join_runs": 97,
+    "core/readers/tables.py::read_table": 90,
+}
+
+MAX_MODULE_LINES = 700
+MAX_FUNCTION_LINES = 80
+
+# Layering: modules under the first prefix import nothing under the others (prefixes without "phasewake.").
+LAYERS = (
+    ("core.model", ("core.analyses", "core.figures", "core.store", "app")),
+    ("core.readers", ("core.analyses", "core.figures", "core.store", "app")),
+    ("core.analyses", ("core.figures", "app")),
+    ("core", ("app",)),
+)
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+# ------------------------------------------------------------------------------ the source, read
+
+
+def _module_name(path: Path) -> str:
+    """Dotted name without the leading "phasewake." (app/api installs as the top-level package)."""
+    parts = list(path.relative_to(ROOT).with_suffix("").parts)
+    if parts[:2] == ["app", "api"]:
+        parts = ["api", *parts[2:]]  # phasewake itself; "api" keeps it apart from the other names
+    if parts[-1] == "__init__":
+        parts = parts[:-1]
+    return ".".join(parts)
+
+
+def _sources() -> dict[str, Path]:
+    return {_module_name(p): p for top in ("core", "app") for p in sorted((ROOT / top).rglob("*.py"))}
+
+
+def _imported_names(tree: ast.AST, module: str, is_package: bool) -> Iterator[str]:
+    """Every dotted name a module imports, wherever the import statement is (in a function too):
+    ``from a.b import c`` gives ``a.b.c`` when that is a module of ours, else ``a.b`` (see _import_graph)."""
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            yield from (a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            base = node.module or ""
+            if node.level:
+                package = module.split(".") if is_package else module.split(".")[:-1]
+                package = package[: len(package) - node.level + 1]
+                base = ".".join(["phasewake", *package, *([base] if base else [])])
+            yield from (f"{base}.{alias.name}" for alias in node.names)
+
+
+def _import_graph() -> dict[str, set[str]]:
+    """Module -> the modules of ours it imports (names without the leading "phasewake.")."""
+    sources = _sources()
+
+    def ours(name: str) -> str | None:
+        parts = name.split(".")
+        if parts[0] != "phasewake":
+            return None
+        parts = parts[1:] if parts[1:2] in (["core"], ["app"]) else ["api", *parts[1:]]
+        while parts and ".".join(parts) not in sources:
+            parts.pop()  # a name defined in a module, not a submodule: the module it is in
+        return ".".join(parts) or None
+
+    graph: dict[str, set[str]] = {}
+    for module, path in sources.items():
+        tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+        targets = {ours(n) for n in _imported_names(tree, module, path.name == "__init__.py")}
+        graph[module] = {t for t in targets if t is not None and t != module}
+    return graph
+
+
+def _cycle_through(graph: dict[str, set[str]], start: str) -> list[str] | None:
+    """A shortest import cycle through ``start`` (as a list of modules, first = last), or None."""
+    paths = {start: [start]}
+    frontier = [start]
+    while frontier:
+        nxt = []
+        for node in frontier:
+            for child in sorted(graph.get(node, ())):
+                if child == start:
+                    return [*paths[node], start]
+                if child not in paths:
+                    paths[child] = [*paths[node], child]
+                    nxt.append(child)
+        frontier = nxt
+    return None
+
+
+def _named(cycle: list[str]) -> str:
+    """A cycle as text, started at its smallest name (so each cycle is named once)."""
+    ring = cycle[:-1]
+    i = ring.index(min(ring))
+    return " -> ".join([*ring[i:], *ring[:i], ring[i]])
+
+
+def _edges(listed: tuple[str, ...]) -> list[tuple[str, str]]:
+    return [tuple(e.split(" -> ")) for e in listed]  # type: ignore[misc]
+
+
+def _functions(tree: ast.AST, prefix: str = "") -> Iterator[tuple[str, int]]:
+    """(qualified name, lines) of every function and method, nested ones too."""
+    for node in ast.iter_child_nodes(tree):
+        if isinstance(node, ast.FunctionDef | ast.AsyncFunctionDef):
+            name = prefix + node.name
+            yield name, node.end_lineno - node.lineno + 1  # type: ignore[operator]
+            yield from _functions(node, name + ".")
+        elif isinstance(node, ast.ClassDef):
+            yield from _functions(node, prefix + node.name + ".")
+        else:
+            yield from _functions(node, prefix)
+
+
+def _breaches(graph: dict[str, set[str]]) -> set[tuple[str, str]]:
+    def under(module: str, prefix: str) -> bool:
+        return module == prefix or module.startswith(prefix + ".")
+
+    return {(m, t) for m, targets in graph.items() for t in targets
+            for low, above in LAYERS if under(m, low) and any(under(t, a) for a in above)}
+
+
+# ------------------------------------------------------------------------------ the contracts
 
 
 def test_core_never_imports_qt():
-    # Import every core module with Qt and pyqtgraph blocked: any import of them fails loudly.
+    # Import every core module (each folder of core/ too) with Qt, pyqtgraph and app blocked: any import
+    # of them fails loudly.
     code = textwrap.dedent(
         """
         import importlib, pkgutil, sys
@@ -20,12 +222,17 @@ def test_core_never_imports_qt():
         import phasewake.core as core
         for m in pkgutil.walk_packages(core.__path__, 'phasewake.core.'):
             importlib.import_module(m.name)
+        print(' '.join(sorted(n for n in sys.modules if n.startswith('phasewake.core'))))
         print('ok')
         """
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert out.returncode == 0, out.stderr
-    assert out.stdout.strip().endswith("ok")
+    lines = out.stdout.strip().splitlines()
+    assert lines[-1] == "ok"
+    imported = set(lines[-2].split())
+    missed = {f"phasewake.{m}" for m in _sources() if m.startswith("core")} - imported
+    assert not missed, f"core modules the Qt-blocked import did not reach: {sorted(missed)}"
 
 
 def test_cli_help_does_not_import_qt():
@@ -46,3 +253,94 @@ def test_installed_as_namespaced_packages(tmp_path):
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path)
     assert out.returncode == 0, out.stderr
     assert out.stdout.split() == ["True", "True", "True"]
+
+
+def test_import_graph_reads_every_kind_of_import():
+    # The graph the next tests judge: module-level, function-level, relative and type-checking imports.
+    code = textwrap.dedent(
+        """
+        import phasewake.core.errors
+        from phasewake.core.model import run
+        from . import sibling
+        if TYPE_CHECKING:
+            from phasewake.core.store.cache import Cache
+        def f():
+            from ..model.framepass import run_pass
+        """
+    )
+    names = set(_imported_names(ast.parse(code), "core.readers.h5md", is_package=False))
+    assert names == {"phasewake.core.errors", "phasewake.core.model.run", "phasewake.core.readers.sibling",
+                     "phasewake.core.store.cache.Cache", "phasewake.core.model.framepass.run_pass"}
+    graph = _import_graph()
+    assert "core.model.run" in graph["core.readers"]  # "from ... import Run": the module it is in
+    assert "core.readers.lammps_dump" in graph["core.readers"]  # in a function, "from package import module"
+    assert {"core", "app", "api"} <= set(graph)  # app/api installs as the top-level phasewake package
+
+
+def test_no_import_cycles():
+    graph = _import_graph()
+    known = _edges(KNOWN_CYCLE_IMPORTS)
+    for importer, imported in known:
+        assert imported in graph.get(importer, ()), (
+            f"{importer} no longer imports {imported}: remove it from KNOWN_CYCLE_IMPORTS")
+        assert _cycle_through(graph, importer) is not None and _cycle_through(
+            {**graph, importer: {imported}}, importer) is not None, (
+            f"{importer} -> {imported} closes no cycle now: remove it from KNOWN_CYCLE_IMPORTS")
+    pruned = {m: {t for t in targets if (m, t) not in known} for m, targets in graph.items()}
+    cycles = {_named(c) for m in sorted(pruned) if (c := _cycle_through(pruned, m)) is not None}
+    assert not cycles, "import cycles (module-level and function-level imports):\n" + "\n".join(sorted(cycles))
+
+
+def test_layering():
+    breaches = _breaches(_import_graph())
+    known = set(_edges(KNOWN_LAYER_BREACHES))
+    stale = sorted(f"{a} -> {b}" for a, b in known - breaches)
+    assert not stale, f"no longer imported: remove {stale} from KNOWN_LAYER_BREACHES"
+    new = sorted(f"{a} -> {b}" for a, b in breaches - known)
+    assert not new, f"imports against the layering {LAYERS}:\n" + "\n".join(new)
+
+
+def test_module_sizes():
+    problems = []
+    sizes = {str(p.relative_to(ROOT)): len(p.read_text(encoding="utf-8").splitlines())
+             for p in _sources().values()}
+    for name, lines in sorted(sizes.items()):
+        ceiling = KNOWN_LONG_MODULES.get(name)
+        if ceiling is None and lines > MAX_MODULE_LINES:
+            problems.append(f"{name} has {lines} lines (at most {MAX_MODULE_LINES}): split it")
+        elif ceiling is not None and lines > ceiling:
+            problems.append(f"{name} grew from {ceiling} to {lines} lines: split it instead")
+    for name in sorted(KNOWN_LONG_MODULES):
+        if sizes.get(name, 0) <= MAX_MODULE_LINES:
+            problems.append(f"{name} is no longer over {MAX_MODULE_LINES} lines: remove it from KNOWN_LONG_MODULES")
+    assert not problems, "\n".join(problems)
+
+
+def test_function_sizes():
+    problems = []
+    lengths = {}
+    for path in _sources().values():
+        if path.relative_to(ROOT).parts[0] != "core":
+            continue
+        tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+        for name, lines in _functions(tree):
+            lengths[f"{path.relative_to(ROOT)}::{name}"] = lines
+    for name, lines in sorted(lengths.items()):
+        ceiling = KNOWN_LONG_FUNCTIONS.get(name)
+        if ceiling is None and lines > MAX_FUNCTION_LINES:
+            problems.append(f"{name} has {lines} lines (at most {MAX_FUNCTION_LINES}): cut it into named steps")
+        elif ceiling is not None and lines > ceiling:
+            problems.append(f"{name} grew from {ceiling} to {lines} lines: cut it into named steps instead")
+    for name in sorted(KNOWN_LONG_FUNCTIONS):
+        if lengths.get(name, 0) <= MAX_FUNCTION_LINES:
+            problems.append(f"{name} is gone or no longer over {MAX_FUNCTION_LINES} lines: "
+                            "remove it from KNOWN_LONG_FUNCTIONS")
+    assert not problems, "\n".join(problems)
+
+
+@pytest.mark.parametrize("graph, cycle", [
+    ({"a": {"b"}, "b": {"c"}, "c": {"a"}}, ["a", "b", "c", "a"]),
+    ({"a": {"b"}, "b": set()}, None),
+])
+def test_cycle_finder(graph, cycle):
+    assert _cycle_through(graph, "a") == cycle

@@ -262,17 +262,3 @@ class Run:
 
         return window_run(self, start, stop)
 
-
-def open_run(
-    paths: Sequence[str | Path],
-    *,
-    topology: str | Path | None = None,
-    **overrides: Any,
-) -> Run:
-    """Build a Run from a list of files (trajectory + topology + energy tables) or one H5MD/HDF5 file.
-
-    Delegates to the reader registry (``phasewake.core.readers.open_run``).
-    """
-    from phasewake.core.readers import open_run as _open
-
-    return _open(paths, topology=topology, **overrides)
