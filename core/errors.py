@@ -102,3 +102,28 @@ class Cancelled(PhasewakeError):
 
     def __init__(self, message: str = "cancelled") -> None:
         super().__init__(message)
+
+
+class Caveat(str):
+    """A warning for the user that later code acts on: shown as its text, like every warning, while
+    ``code`` says what it is about, so code tests the code and never searches the words."""
+
+    code: str
+
+    def __new__(cls, text: str, code: str) -> Caveat:
+        self = super().__new__(cls, text)
+        self.code = code
+        return self
+
+    def __getnewargs__(self) -> tuple[str, str]:  # type: ignore[override]
+        return str(self), self.code
+
+
+#: Caveat codes: frames numbered 0, 1, 2 because the trajectory holds no times; table rows numbered so.
+NO_FRAME_TIMES = "no frame times"
+NUMBERED_ROWS = "numbered rows"
+
+
+def has_caveat(warnings: list[str], code: str) -> bool:
+    """Whether one of ``warnings`` is a :class:`Caveat` with ``code``."""
+    return any(isinstance(w, Caveat) and w.code == code for w in warnings)

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 from scipy import constants as sc
 
-from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
+from phasewake.core.errors import CorruptFileError, TopologyMismatchError
 from phasewake.core.model.run import (
     DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
@@ -386,10 +386,3 @@ def open_xyz_run(path: Path, top_path: Path | None = None, velocities: Path | No
     paths = (path,) + ((velocities,) if velocities is not None else ()) + ((top_path,) if top_path else ())
     return Run(name=path.stem, paths=paths, topology=top, masses_amu=np.asarray(masses_amu, np.float64),
                time_ps=time_ps, frames=frames, energies=None, metadata=meta, warnings=warnings)
-
-
-def require_cp2k(entry_name: str, vel: Path) -> None:
-    """A CP2K velocity xyz pairs only with CP2K's positions xyz."""
-    if entry_name != "cp2k-xyz":
-        raise MissingDataError("a CP2K velocity xyz pairs with CP2K's positions xyz (PROJECT-pos-1.xyz); give "
-                               "that file too", path=vel)

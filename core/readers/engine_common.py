@@ -2,16 +2,16 @@
 
 Each engine reader (``gromacs``, ``lammps_log``, ``amber``, ``namd``, ``cp2k``, ``openmm_csv``) returns an
 :class:`EngineEnergy`: an energy table in internal units (kJ/mol, K, bar, nm^3, g/cm^3, ps), the run
-facts its file states (RunMetadata field -> value) and warnings. :func:`read_energy_sources` reads every
-energy or parameter file of one run (generic tables through ``tables``), joins the tables on time and
-collects the facts with the file each came from.
+facts its file states (RunMetadata field -> value) and warnings. The registry (``registry.py``) tells each
+what it needs to know of the run (:class:`EnergyOptions`); ``energy_files.py`` reads every energy or
+parameter file of one run and joins the tables on time.
 """
 
 from __future__ import annotations
 
 import re
 import warnings as _warnings
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -222,74 +222,21 @@ def ensemble_of(thermostat: str | None, barostat: str | None) -> str:
 
 # ---- several files of one run ------------------------------------------------------------------------
 
-Reader = Callable[..., EngineEnergy]
+@dataclass(frozen=True)
+class EnergyOptions:
+    """What an energy or parameter reader is told about the run it reads for.
 
-
-def read_energy_sources(
-    items: Sequence[tuple[Path, str]],
-    *,
-    column_roles: Mapping[str, str] | None = None,
-    timestep_ps: float | None = None,
-    assumed_units: Mapping[str, str] | None = None,
-    units_style: str | None = None,
-    frame_timestep_ps: float | None = None,
-) -> tuple[EnergyTable | None, list[EngineEnergy], list[str]]:
-    """Read the energy and parameter files of one run.
-
-    ``items`` are (path, registry reader name). Engine readers read their own layout; anything else goes
-    to the generic table reader. ``timestep_ps`` is the time step the user states (engine readers use it
-    for their time axis); ``frame_timestep_ps`` one known from other files, for step-only tables. Returns (joined energy table or None, the per-file results in reading
-    order, warnings).
+    ``timestep_ps`` is the time step the user states (engine readers use it for their time axis);
+    ``known_timestep_ps`` the best one known (stated, from the frames, or from a parameter file), for
+    tables that count steps. ``energies=False``: read the run parameters only.
     """
-    from phasewake.core.readers import tables as tables_mod
 
-    results: list[EngineEnergy] = []
-    warnings: list[str] = []
-    engine_readers = engine_reader_table()
-    # parameter files first: a time step they give sets the time axis of step-only tables
-    params = [(p, n) for p, n in items if n in PARAMETER_READERS]
-    energy = [(p, n) for p, n in items if n not in PARAMETER_READERS]
-    dt = timestep_ps or frame_timestep_ps
-    param_results: list[EngineEnergy] = []
-    for p, name in params:
-        res = engine_readers[name](p)
-        param_results.append(res)
-        warnings.extend(res.warnings)
-        if dt is None and res.facts.get("timestep_ps"):
-            dt = res.facts["timestep_ps"]
-    tabs: list[tuple[str, EnergyTable]] = []
-    have_edr = any(name == "gromacs-edr" for _, name in energy)
-    for p, name in energy:
-        if name == "gromacs-log" and have_edr:  # md.log is used for energies only when no .edr is given
-            from phasewake.core.readers import gromacs
-
-            res = gromacs.read_md_log(p, energies=False)
-            res.warnings.append(f"{p.name}: energies taken from the .edr (every energy frame); the log gives the "
-                                "run's parameters")
-        elif name in engine_readers:
-            res = engine_readers[name](p, column_roles=column_roles, timestep_ps=timestep_ps,
-                                       units_style=units_style)
-        else:
-            table, w = tables_mod.read_table(p, column_roles=column_roles, timestep_ps=dt,
-                                             assumed_units=assumed_units)
-            res = EngineEnergy(table=table, source=p.name, warnings=w)
-        results.append(res)
-        warnings.extend(res.warnings)
-        if res.table is not None:
-            tabs.append((name, res.table))
-    results += param_results  # after the energy files and logs: their resolved values come first
-    if not tabs:
-        return None, results, warnings
-    # parts of one run (same reader, same terms, e.g. md.edr md.part0002.edr): joined in time order;
-    # different files of the same time (an .edr and a CSV): joined on their shared times
-    groups: dict[tuple[str, tuple[str, ...]], list[EnergyTable]] = {}
-    for name, t in tabs:
-        groups.setdefault((name, tuple(t.series)), []).append(t)
-    joined = [join_parts(g, warnings) for g in groups.values()]
-    out = joined[0]
-    for nxt in joined[1:]:
-        out = tables_mod._join(out, nxt, warnings)
-    return out, results, warnings
+    column_roles: Mapping[str, str] | None = None
+    timestep_ps: float | None = None
+    known_timestep_ps: float | None = None
+    assumed_units: Mapping[str, str] | None = None
+    units_style: str | None = None
+    energies: bool = True
 
 
 def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable:
@@ -328,23 +275,3 @@ def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable
     series = {k: Series(s.name, acc[k], s.unit, s.role, s.source) for k, s in first.series.items()}
     sources = tuple(src for t in order for src in t.sources)
     return EnergyTable(time_ps=acc_t, series=series, sources=sources)
-
-
-#: registry names of readers that give only run parameters (no energies)
-PARAMETER_READERS = ("gromacs-mdp", "cp2k-output")
-
-
-def engine_reader_table() -> dict[str, Reader]:
-    from phasewake.core.readers import amber, cp2k, gromacs, lammps_log, namd, openmm_csv
-
-    return {
-        "gromacs-edr": gromacs.read_edr,
-        "gromacs-log": gromacs.read_md_log,
-        "gromacs-mdp": gromacs.read_mdp,
-        "lammps-log": lammps_log.read_log,
-        "amber-mdout": amber.read_mdout,
-        "namd-log": namd.read_log,
-        "cp2k-ener": cp2k.read_ener,
-        "cp2k-output": cp2k.read_output,
-        "openmm-csv": openmm_csv.read_csv,
-    }

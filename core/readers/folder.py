@@ -62,8 +62,8 @@ def run_family(path: Path) -> str:
 
 def find_run_files(folder: str | Path) -> FolderFiles:
     """Choose the files of one run in ``folder``; InputError (one line, candidates named) when ambiguous."""
-    from phasewake.core.readers import identify
     from phasewake.core.readers.parts import natural_key
+    from phasewake.core.readers.registry import identify
 
     d = Path(folder)
     out = FolderFiles(folder=d)

@@ -22,7 +22,15 @@ from typing import TextIO
 
 import numpy as np
 
-from phasewake.core.errors import EmptyFileError, EnergyTableError, ResourceError, TimeAxisError, UnitError
+from phasewake.core.errors import (
+    NUMBERED_ROWS,
+    Caveat,
+    EmptyFileError,
+    EnergyTableError,
+    ResourceError,
+    TimeAxisError,
+    UnitError,
+)
 from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, Series
 from phasewake.core.readers.common import resolve_restarts
 from phasewake.core.units import parse_unit, split_header
@@ -188,7 +196,7 @@ def read_table(
             warnings.append(f"{path.name}: no time column; time = step x {timestep_ps:g} ps")
         else:
             time = np.arange(values.shape[1], dtype=np.float64)
-            warnings.append(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)")
+            warnings.append(Caveat(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)", NUMBERED_ROWS))
     _check_rows(time, line_numbers, path)
     # restarts glued into the table: the later segment is kept (as engines do), each join reported
     keep, joins, join_words = resolve_restarts(time, path=path, what="row", line_numbers=line_numbers)
@@ -414,11 +422,12 @@ def read_tables(
         warnings.extend(w)
     out = tables[0]
     for nxt in tables[1:]:
-        out = _join(out, nxt, warnings)
+        out = join_on_time(out, nxt, warnings)
     return out, warnings
 
 
-def _join(a: EnergyTable, b: EnergyTable, warnings: list[str]) -> EnergyTable:
+def join_on_time(a: EnergyTable, b: EnergyTable, warnings: list[str]) -> EnergyTable:
+    """Two tables of one run joined on the times they share (all rows when their axes are the same)."""
     if len(a) == len(b) and np.allclose(a.time_ps, b.time_ps, rtol=1e-9, atol=1e-9):
         ia = ib = slice(None)
         time = a.time_ps

@@ -29,6 +29,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.errors import (
+    NO_FRAME_TIMES,
+    Caveat,
     CorruptFileError,
     MissingDataError,
     TopologyMismatchError,
@@ -556,8 +558,8 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
         t = None
     if t is None:
         t = np.arange(n, dtype=np.float64)
-        warnings.append(f"{path.name}: the file holds no time axis; frames are numbered 0, 1, 2, ... (not ps). "
-                        "An energy table with one row per frame supplies the time")
+        warnings.append(Caveat(f"{path.name}: the file holds no time axis; frames are numbered 0, 1, 2, ... "
+                               "(not ps). An energy table with one row per frame supplies the time", NO_FRAME_TIMES))
         md_meta.extra["time_from"] = "frame index"
     else:
         md_meta.extra["time_from"] = f"{path.name} headers"
