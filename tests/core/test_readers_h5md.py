@@ -279,3 +279,35 @@ def test_image_element_unwraps_positions(tmp_path):
     got = next(run.frames.iter_chunks(chunk_frames=10, velocities=False)).positions_nm
     np.testing.assert_allclose(got, unwrapped, atol=2e-5)
     assert "images" in run.metadata.sources
+
+
+def test_chunks_kept_by_a_consumer_are_never_overwritten(tmp_path):
+    # The reader reuses its chunk buffers: a consumer that keeps every chunk (or only a view of one) must
+    # still see the data of its own frames, equal to what was written.
+    pos, vel, time, step = _arrays(n_frames=40, n_atoms=5)
+    path = tmp_path / "keep.h5md"
+    write_h5md(path, positions_nm=pos, time_ps=time, step=step, velocities_nm_per_ps=vel)
+    frames = open_run([path]).frames
+    kept = list(frames.iter_chunks(chunk_frames=3))
+    views = [c.velocities_nm_per_ps[:, 1] for c in frames.iter_chunks(chunk_frames=4)]
+    np.testing.assert_array_equal(np.concatenate([c.positions_nm for c in kept]), pos)
+    np.testing.assert_array_equal(np.concatenate([c.velocities_nm_per_ps for c in kept]), vel)
+    np.testing.assert_array_equal(np.concatenate(views), vel[:, 1])
+
+
+def test_buffer_pool_lends_a_buffer_again_only_once_its_loan_is_gone():
+    from phasewake.core.readers.h5md_frames import BufferPool
+
+    def address(a):
+        return a.__array_interface__["data"][0]
+
+    pool = BufferPool(size=4)
+    a = pool.lend((3, 2, 3), np.float32)
+    first = address(a)
+    view = a[1:, 0]  # a view alone keeps the loan
+    del a
+    b = pool.lend((3, 2, 3), np.float32)
+    assert address(b) != first
+    del view
+    c = pool.lend((2, 2, 3), np.float32)  # smaller: fits in the freed buffer
+    assert address(c) == first and c.shape == (2, 2, 3) and c.flags.writeable
