@@ -229,10 +229,7 @@ def explanation(kind: str) -> Explanation | None:
     if kind not in EXPLANATIONS:
         module = _PREFIX_MODULES.get(kind.split(".", 1)[0])
         if module is not None:
-            try:
-                importlib.import_module(f"phasewake.core.analyses.{module}")
-            except ImportError:
-                return None
+            importlib.import_module(f"phasewake.core.analyses.{module}")
     return EXPLANATIONS.get(kind)
 
 
