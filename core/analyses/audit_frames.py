@@ -16,13 +16,14 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.core.analyses import motion_spectrum as ms
 from phasewake.core.analyses import temperature as tm
-from phasewake.core.analyses import timestep as ts
 from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.analyses.ensemble import is_thermostatted
 from phasewake.core.errors import AnalysisError, MissingDataError
+from phasewake.core.model.framepass import run_pass
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run
-from phasewake.core.progress import Progress, Work
+from phasewake.core.progress import Progress, Work, result_of
 
 
 @dataclass(frozen=True)
@@ -81,7 +82,7 @@ def can_infer(run: Run) -> bool:
     (a frame source may say its positions are lossy, e.g. XTC's 0.001 nm)."""
     if run.topology is None or run.frames is None:
         return False
-    return not any(bool(getattr(run.frames, a, False)) for a in ("positions_lossy", "lossy_positions"))
+    return not bool(getattr(run.frames, "positions_lossy", False))  # said only by sources whose format is lossy
 
 
 
@@ -106,7 +107,7 @@ class AuditFramesConsumer:
 
     Kinetic energy per frame of all atoms and of every group, the centre-of-mass kinetic energy, the
     rigid-pair statistics for constraint inference (positions of the first 500 frames), the streaming
-    velocity power spectrum (:class:`~phasewake.core.analyses.timestep.VelocitySpectrumAccumulator`) and speed
+    velocity power spectrum (:class:`~phasewake.core.analyses.motion_spectrum.VelocitySpectrumAccumulator`) and speed
     samples for the Maxwell-Boltzmann test. It follows the ``ChunkConsumer`` protocol of
     :mod:`phasewake.core.model.framepass`, so one frame pass can feed the audit together with other analyses;
     :func:`audit_run` drives this same consumer through ``framepass.run_pass``.
@@ -193,7 +194,7 @@ class AuditFramesConsumer:
         self._gk = np.empty((n, g))
         self._times = np.empty(n)
         self.spectrum_note = ""
-        self.spec: ts.VelocitySpectrumAccumulator | None = None
+        self.spec: ms.VelocitySpectrumAccumulator | None = None
         self.spec_names: list[str] = []
         t = np.asarray(run.time_ps)[start:stop]
         if n >= 32 and t.size == n:
@@ -201,8 +202,8 @@ class AuditFramesConsumer:
             h = float(np.median(dt))
             if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
                 seg = int(min(self.segment_frames, n // 2))
-                labels, self.spec_names = ts.spectrum_groups(run.topology, run.masses_amu)
-                self.spec = ts.VelocitySpectrumAccumulator(run.masses_amu, h, segment_frames=seg,
+                labels, self.spec_names = ms.spectrum_groups(run.topology, run.masses_amu)
+                self.spec = ms.VelocitySpectrumAccumulator(run.masses_amu, h, segment_frames=seg,
                                                            labels=labels if len(self.spec_names) > 1 else None,
                                                            max_segments=self.max_segments)
             else:
@@ -301,8 +302,6 @@ class AuditFramesConsumer:
 def frame_pass(run: Run, consumer: AuditFramesConsumer, *, chunk_frames: int, done0: float,
                 total: float) -> Work[AuditFrames]:
     """Drive the consumer through the one-pass engine (``framepass.run_pass``), progress on the audit's scale."""
-    from phasewake.core.model.framepass import run_pass
-
     work = run_pass(run, {"audit": consumer}, chunk_frames=chunk_frames)
     try:
         while True:
@@ -312,21 +311,38 @@ def frame_pass(run: Run, consumer: AuditFramesConsumer, *, chunk_frames: int, do
         return stop.value["audit"]  # type: ignore[no-any-return]
 
 
+class RigidPairsConsumer:
+    """Rigid-pair distance statistics of the first frames, from positions only: the constraint inference of a
+    run whose velocities the audit does not read (the consumer protocol of :mod:`phasewake.core.model.framepass`)."""
+
+    atoms: np.ndarray | None = None
+    needs_positions = True
+    needs_velocities = False
+
+    def __init__(self, pairs: np.ndarray, n_atoms: int) -> None:
+        self.acc = tm.RigidPairAccumulator(pairs, n_atoms)
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        if columns is not None:
+            raise AnalysisError("the constraint inference needs every atom's position")
+
+    def update(self, chunk: FrameChunk) -> None:
+        self.acc.update(chunk.positions_nm, chunk.box_nm)  # ignores frames once it holds enough
+
+    def finish(self) -> tm.ConstraintInference:
+        return self.acc.finish()
+
+
 def infer_constraints_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None:
+    """Constraints inferred from the first frames' positions (None without a topology, frames or candidate pairs)."""
     if run.topology is None or run.frames is None:
         return None
     pairs = tm.candidate_pairs(run.topology)
     if not pairs.size:
         return None
-    acc = tm.RigidPairAccumulator(pairs, run.n_atoms)
-    chunks = run.frames.iter_chunks(chunk_frames=chunk_frames, stop=acc.max_frames, velocities=False)
-    try:
-        for chunk in chunks:
-            acc.update(chunk.positions_nm, chunk.box_nm)
-            if acc.full:
-                break
-    finally:
-        close = getattr(chunks, "close", None)
-        if close is not None:
-            close()  # a reader generator left suspended would hold its file open
-    return acc.finish()
+    consumer = RigidPairsConsumer(pairs, run.n_atoms)
+    if not run.n_frames:
+        return consumer.finish()
+    got = result_of(run_pass(run, {"rigid": consumer}, stop=consumer.acc.max_frames, chunk_frames=chunk_frames,
+                             workers=1))
+    return got["rigid"]  # type: ignore[no-any-return]

@@ -1,10 +1,8 @@
 """Time-step checks: the fastest motion, steps per period, Nyquist, and dt^2 scaling between two runs.
 
 The fastest motion is the highest-frequency significant peak of the mass-weighted velocity power
-spectrum (vibrational density of states up to a factor; Dickey and Paskin 1969). This module has a small
-streaming Welch estimator of its own (Welch, IEEE Trans. Audio Electroacoust. 15, 70 (1967)): the
-Hann-windowed spectrum of each segment of frames, summed over atoms with their masses, averaged over
-segments, so memory stays bounded by one chunk.
+spectrum (vibrational density of states up to a factor; Dickey and Paskin 1969), streamed by
+:mod:`phasewake.core.analyses.motion_spectrum`.
 
 Units: ps, 1/ps (frequency), cm^-1 (wavenumber), fs only in messages.
 """
@@ -12,13 +10,21 @@ Units: ps, 1/ps (frequency), cm^-1 (wavenumber), fs only in messages.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
 
-from phasewake.core.analyses.verdicts import Explanation, Threshold, register
-from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.analyses.verdicts import (
+    EXPLANATIONS,
+    THRESHOLDS,
+    Explanation,
+    Threshold,
+    Verdict,
+    judge,
+    register,
+)
+from phasewake.core.errors import AnalysisError
 
 C_CM_PER_PS = 2.99792458e-2  # speed of light, exact: 2.99792458e10 cm/s = 2.99792458e-2 cm/ps
 
@@ -104,179 +110,6 @@ register(
                "large), or the runs differ in more than the step (cut-offs, constraints, precision).",
     ),
 )
-
-
-# ---------------------------------------------------------------------------------------------------
-# Streaming mass-weighted velocity power spectrum (Welch)
-# ---------------------------------------------------------------------------------------------------
-
-
-class VelocitySpectrumAccumulator:
-    """Welch average of sum_i m_i |FFT(w v_i)|^2 over segments of ``segment_frames`` frames.
-
-    Feed chunks of velocities in time order with :meth:`update`; frames are cut into consecutive
-    segments of equal length (a remainder shorter than a segment is carried into the next chunk).
-    With ``labels`` (one integer group per atom) the power is also kept per group, so a few fast
-    atoms (one stiff bond among many slow atoms) are not drowned in the total. At most
-    ``max_atoms_per_group`` atoms of a group are used (evenly spread; enough for a stable spectrum),
-    and atoms are processed in blocks, so memory and work stay bounded.
-    """
-
-    def __init__(self, masses_amu: np.ndarray, frame_spacing_ps: float, *, segment_frames: int = 256,
-                 labels: np.ndarray | None = None, block_atoms: int = 4096, max_segments: int | None = None,
-                 max_atoms_per_group: int | None = 2000) -> None:
-        if segment_frames < 8:
-            raise TooShortError("a velocity spectrum segment", have=segment_frames, need=8)
-        masses = np.asarray(masses_amu, dtype=np.float64)
-        self.spacing_ps = float(frame_spacing_ps)
-        self.segment_frames = int(segment_frames)
-        self.block_atoms = int(block_atoms)
-        self.max_segments = max_segments  # later segments are ignored (bounds the FFT work on long runs)
-        from scipy.signal import get_window
-
-        self.window = get_window("hann", self.segment_frames)  # periodic Hann, as scipy.signal.welch uses
-        n_freq = self.segment_frames // 2 + 1
-        lab_all = np.zeros(masses.size, np.int64) if labels is None else np.asarray(labels, dtype=np.int64)
-        # at most max_atoms_per_group atoms of each group, evenly spread, each weighted by
-        # n_group / n_kept so the total stays an estimate of the whole system's spectrum
-        keep: list[np.ndarray] = []
-        weight = np.zeros(masses.size)
-        for g in np.unique(lab_all):
-            idx = np.nonzero(lab_all == g)[0]
-            if max_atoms_per_group is not None and idx.size > max_atoms_per_group:
-                idx = idx[np.linspace(0, idx.size - 1, max_atoms_per_group).astype(np.int64)]
-            weight[idx] = np.count_nonzero(lab_all == g) / idx.size
-            keep.append(idx)
-        sel = np.sort(np.concatenate(keep))
-        self.atoms: np.ndarray | None = None if sel.size == masses.size else sel
-        self.masses = masses[sel]
-        self._weight = weight[sel]
-        self.labels = None if labels is None else lab_all[sel]
-        n_groups = 0 if labels is None else int(lab_all.max()) + 1
-        self._power = np.zeros(n_freq)
-        self._group_power = np.zeros((n_groups, n_freq))
-        self._n_segments = 0
-        self._carry: np.ndarray | None = None
-        self._colw: np.ndarray | None = None  # per-column weights of the flat layout, made on first use
-        self._bufs: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # work buffers by block width
-        self._win32 = np.zeros((0, 1), np.float32)
-
-    def _segment(self, seg: np.ndarray) -> None:
-        """One segment (L, n_atoms, 3). Works on the flat (L, 3 n) layout: numpy reductions over a
-        trailing axis of length 3 are slow, so the sums over components, atoms and groups are one
-        float64 matrix product with per-column weights. The masses are in those weights too
-        (|FFT(sqrt(m) v)|^2 = m |FFT(v)|^2), and the power comes from squaring the transform's real
-        and imaginary parts in place (columns 2j, 2j + 1 of its float32 view): fewer passes over the
-        segment than scaling, squaring and adding separate arrays."""
-        import scipy.fft
-
-        if self._colw is None:
-            cols = [self._weight]
-            if self.labels is not None:
-                for g in range(self._group_power.shape[0]):
-                    cols.append(np.where(self.labels == g, self._weight, 0.0))
-            w = np.stack(cols, axis=1) * self.masses[:, None]  # (n, 1 + G) float64
-            self._colw = np.repeat(w, 6, axis=0)  # (6 n, 1 + G): x, y, z, each as real and imaginary part
-            self._win32 = self.window.astype(np.float32)[:, None]
-        flat = np.ascontiguousarray(seg, dtype=np.float32).reshape(seg.shape[0], -1)
-        width = 3 * self.block_atoms
-        for c0 in range(0, flat.shape[1], width):
-            x = flat[:, c0:c0 + width]
-            w = x.shape[1]
-            bufs = self._bufs.get(w)
-            if bufs is None:  # reused between segments: fresh pages of large temporaries are slow to touch
-                bufs = self._bufs[w] = (np.empty((x.shape[0], w), np.float32),
-                                        np.empty((x.shape[0] // 2 + 1, 2 * w), np.float64))
-            blk = np.subtract(x, x.mean(axis=0, keepdims=True), out=bufs[0])
-            blk *= self._win32
-            f = scipy.fft.rfft(blk, axis=0)  # float32 in, complex64 (n_freq, cols) out
-            fv = f.view(np.float32)  # (n_freq, 2 cols): real and imaginary parts side by side
-            np.multiply(fv, fv, out=fv)
-            pw = bufs[1]
-            pw[...] = fv  # float64 sums from here on
-            both = pw @ self._colw[2 * c0:2 * (c0 + w)]  # (n_freq, 1 + G)
-            self._power += both[:, 0]
-            if self.labels is not None:
-                self._group_power += both[:, 1:].T
-        self._n_segments += 1
-
-    def update(self, velocities_nm_per_ps: np.ndarray) -> None:
-        """velocities : ndarray, shape (n_frames, n_atoms, 3), nm/ps."""
-        if self.full:
-            return
-        v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
-        if self.atoms is not None:
-            v = np.take(v, self.atoms, axis=1)  # C-ordered (v[:, idx] is not: every later pass was slow)
-        self.update_selected(v)
-
-    def update_selected(self, velocities_nm_per_ps: np.ndarray) -> None:
-        """Like :meth:`update` with the velocities of the atoms kept (``self.atoms``, or all) only,
-        shape (n_frames, n_kept, 3): for callers that gathered them while the chunk was in cache."""
-        if self.full:
-            return
-        v = np.asarray(velocities_nm_per_ps, dtype=np.float32)
-        if self._carry is not None:
-            v = np.concatenate([self._carry, v], axis=0)
-            self._carry = None
-        L = self.segment_frames
-        n_full = v.shape[0] // L
-        for k in range(n_full):
-            if self.full:
-                return
-            self._segment(v[k * L:(k + 1) * L])
-        rest = v[n_full * L:]
-        if rest.shape[0]:
-            self._carry = np.array(rest, copy=True)
-
-    @property
-    def n_segments(self) -> int:
-        return self._n_segments
-
-    @property
-    def full(self) -> bool:
-        return self.max_segments is not None and self._n_segments >= self.max_segments
-
-    def finish(self) -> tuple[np.ndarray, np.ndarray]:
-        """Frequencies (1/ps), shape (L//2+1,), and the average power (arbitrary units, amu nm^2/ps^2)."""
-        if self._n_segments == 0:
-            raise TooShortError("a velocity spectrum", have=0 if self._carry is None else self._carry.shape[0],
-                                need=self.segment_frames)
-        freq = np.fft.rfftfreq(self.segment_frames, d=self.spacing_ps)
-        return freq, self._power / self._n_segments
-
-    def finish_groups(self) -> np.ndarray:
-        """Average power per label group, shape (n_groups, L//2+1); empty without labels."""
-        return self._group_power / max(self._n_segments, 1)
-
-
-def spectrum_groups(topology: Any, masses_amu: np.ndarray, *, max_groups: int = 64) -> tuple[np.ndarray, list[str]]:
-    """Atom labels for per-group spectra: residue and atom name (when at most ``max_groups`` kinds),
-    else element, else mass. Returns labels (n_atoms,) int and the group names."""
-    m = np.asarray(masses_amu, dtype=np.float64)
-    keys: list[str] = []
-    if topology is not None:
-        keys = [f"{a.residue.name}:{a.name}" for a in topology.atoms]
-        if len(set(keys)) > max_groups:
-            keys = [a.element.symbol if a.element is not None else a.name for a in topology.atoms]
-    if not keys or len(set(keys)) > max_groups:
-        # by mass: format each distinct mass once (a Python loop over every atom took 25-50 ms at 20k atoms)
-        um, inverse = np.unique(m, return_inverse=True)
-        ukeys = [f"mass {x:.4g} amu" for x in um]
-        names = sorted(set(ukeys))
-        index = {k: i for i, k in enumerate(names)}
-        return np.array([index[k] for k in ukeys], dtype=np.int64)[inverse.reshape(-1)], names
-    names = sorted(set(keys))
-    index = {k: i for i, k in enumerate(names)}
-    return np.array([index[k] for k in keys], dtype=np.int64), names
-
-
-def velocity_power_spectrum(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarray, frame_spacing_ps: float,
-                            *, segment_frames: int = 256) -> tuple[np.ndarray, np.ndarray]:
-    """Array form of :class:`VelocitySpectrumAccumulator` (one call over all frames)."""
-    acc = VelocitySpectrumAccumulator(masses_amu, frame_spacing_ps,
-                                      segment_frames=min(segment_frames, velocities_nm_per_ps.shape[0]))
-    acc.update(velocities_nm_per_ps)
-    return acc.finish()
 
 
 @dataclass(frozen=True)
@@ -437,6 +270,34 @@ class ExpectedMotion:
         return f"the {self.name} near {self.low_per_cm:.0f}-{self.high_per_cm:.0f} cm^-1"
 
 
+def _xh_stretches(bonds: list[tuple[int, int]], atoms: list[Any], m: np.ndarray,
+                  free: Any) -> tuple[dict[str, list[float]], dict[int, list[int]]]:
+    """X-H stretch bands by element of X ({name: [low, high, count]}, cm^-1, scaled by the reduced mass) and
+    the hydrogens on each X, over the bonds to hydrogen that ``free(h, x, in_water)`` keeps."""
+    stretch: dict[str, list[float]] = {}
+    neighbours_h: dict[int, list[int]] = {}
+    for a, b in bonds:
+        if a >= m.size or b >= m.size:
+            continue
+        light_a, light_b = 0.0 < m[a] < LIGHT_ATOM_AMU, 0.0 < m[b] < LIGHT_ATOM_AMU
+        if light_a == light_b:
+            continue
+        h, x = (a, b) if light_a else (b, a)
+        if not free(h, x, bool(atoms[x].residue.is_water)):
+            continue
+        el = atoms[x].element.symbol if atoms[x].element is not None else ""
+        lo, hi = XH_STRETCH_CM.get(el, XH_STRETCH_OTHER_CM)
+        mu0 = _USUAL_MASS.get(el, m[x]) * _USUAL_H_MASS / (_USUAL_MASS.get(el, m[x]) + _USUAL_H_MASS)
+        mu = m[x] * m[h] / (m[x] + m[h])
+        scale = math.sqrt(mu0 / mu) if mu > 0 else 1.0
+        key = f"{el or 'X'}-H stretch"
+        stretch.setdefault(key, [lo * scale, hi * scale, 0.0])
+        cur = stretch[key]
+        cur[0], cur[1], cur[2] = min(cur[0], lo * scale), max(cur[1], hi * scale), cur[2] + 1
+        neighbours_h.setdefault(x, []).append(h)
+    return stretch, neighbours_h
+
+
 def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraints: int | None = None,
                           rigid_pairs: np.ndarray | None = None,
                           constraints_words: str | None = None) -> tuple[ExpectedMotion, ...]:
@@ -467,41 +328,18 @@ def expected_fast_motions(topology: Any, masses_amu: np.ndarray, *, n_constraint
         how = "constraints unknown: assumed free"
         assumed = True
 
-    def is_light(i: int) -> bool:
-        return 0.0 < m[i] < LIGHT_ATOM_AMU
-
     out: list[ExpectedMotion] = []
     bonds: list[tuple[int, int]] = []
     if topology is not None:
         bonds = [(int(b[0].index), int(b[1].index)) for b in topology.bonds]
     if bonds:
-        stretch: dict[str, list[float]] = {}
-        neighbours_h: dict[int, list[int]] = {}
-        water_of: dict[int, bool] = {}
-        atoms = list(topology.atoms)
-        for a, b in bonds:
-            if a >= m.size or b >= m.size:
-                continue
-            if is_light(a) == is_light(b):
-                continue
-            h, x = (a, b) if is_light(a) else (b, a)
-            water = bool(atoms[x].residue.is_water)
-            water_of[x] = water
-            if n_constraints != 0:
-                if (min(h, x), max(h, x)) in rigid:
-                    continue
-                if rigid_pairs is None and (all_h or (water and rigid_water)):
-                    continue
-            el = atoms[x].element.symbol if atoms[x].element is not None else ""
-            lo, hi = XH_STRETCH_CM.get(el, XH_STRETCH_OTHER_CM)
-            mu0 = _USUAL_MASS.get(el, m[x]) * _USUAL_H_MASS / (_USUAL_MASS.get(el, m[x]) + _USUAL_H_MASS)
-            mu = m[x] * m[h] / (m[x] + m[h])
-            scale = math.sqrt(mu0 / mu) if mu > 0 else 1.0
-            key = f"{el or 'X'}-H stretch"
-            stretch.setdefault(key, [lo * scale, hi * scale, 0.0])
-            cur = stretch[key]
-            cur[0], cur[1], cur[2] = min(cur[0], lo * scale), max(cur[1], hi * scale), cur[2] + 1
-            neighbours_h.setdefault(x, []).append(h)
+        def free(h: int, x: int, water: bool) -> bool:
+            if n_constraints == 0:
+                return True
+            return ((min(h, x), max(h, x)) not in rigid
+                    and not (rigid_pairs is None and (all_h or (water and rigid_water))))
+
+        stretch, neighbours_h = _xh_stretches(bonds, list(topology.atoms), m, free)
         n_xh = int(sum(v[2] for v in stretch.values()))
         if assumed and n_constraints is not None and n_constraints >= n_xh:
             return ()  # enough constraints for every bond to hydrogen: taken as constrained
@@ -613,102 +451,108 @@ def judge_basis(fastest: FastestMotion | None, expected: tuple[ExpectedMotion, .
 
 def timestep_verdicts(fastest: FastestMotion | None, frame_spacing_ps: float, timestep_ps: float | None,
                       timestep_source: str, expected: tuple[ExpectedMotion, ...] | list[ExpectedMotion] = (),
-                      *, group: str = "all atoms") -> list[Any]:
+                      *, group: str = "all atoms") -> list[Verdict]:
     """The time-step and frame-spacing verdicts (``timestep.fastest_period``, ``timestep.nyquist``,
     ``timestep.expected_motion``), judged on :func:`judge_basis`.
 
     Never "ok" on a period that is only an upper bound (a peak near the Nyquist frequency, which may be an
     alias of a faster motion): a caution at best.
     """
-    from dataclasses import replace as _replace
-
-    from phasewake.core.analyses.verdicts import EXPLANATIONS, THRESHOLDS, Verdict, judge
-
-    def src(kind: str) -> str:
-        return THRESHOLDS[kind].source
-
     jb = judge_basis(fastest, expected, frame_spacing_ps)
-    out: list[Any] = []
     spacing_fs = frame_spacing_ps * 1e3
     cant_see = "; ".join(f"{e.words()} cannot be seen at {spacing_fs:.3g} fs frames" for e in jb.unresolved)
-    # time step
-    if jb.period_ps is None:
-        out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "", "not checked: no fastest "
-                           "motion known (no velocity spectrum and no fast motion expected from the topology)",
-                           threshold=THRESHOLDS["timestep.fastest_period"]))
-    elif not timestep_ps:
-        out.append(Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
-                           f"fastest period {jb.period_ps * 1e3:.3g} fs from {jb.basis}; the time step is unknown "
-                           f"(give --timestep FS); common practice asks for at most {jb.period_ps * 1e2:.3g} fs",
-                           threshold=THRESHOLDS["timestep.fastest_period"]))
-    else:
-        spp = jb.period_ps / timestep_ps
-        bound = "at most " if jb.upper_bound else ""
-        msg = (f"dt = {timestep_ps * 1e3:.4g} fs ({timestep_source}) against the fastest period "
-               f"{jb.period_ps * 1e3:.4g} fs from {jb.basis}: {bound}{spp:.3g} steps per period, limit "
-               f"period/10 = {jb.period_ps * 1e2:.3g} fs ({src('timestep.fastest_period')})")
-        if jb.unresolved:
-            msg += (f". {cant_see[0].upper() + cant_see[1:]}: the verdict rests on the expected motion from the "
-                    "topology and masses and on the energy conservation (see its verdicts), not on the spectrum's "
-                    "peaks, which may be aliases")
-        if fastest is not None and group != "all atoms" and not jb.unresolved and not jb.upper_bound:
-            msg += f" (fastest motion in {group})"
-        v = judge("timestep.fastest_period", spp, title="Time step", unit="steps per period", message=msg,
-                  advice=EXPLANATIONS["timestep.fastest_period"].advice,
-                  details={"period_ps": jb.period_ps, "basis": jb.basis, "upper_bound": jb.upper_bound})
-        if jb.assumed and v.level == "problem":
-            v = _replace(v, level="caution", message=msg + ASSUMED_WORDS)
-        if jb.upper_bound and v.level == "ok":
-            v = _replace(v, level="caution", message=msg + "; the spectrum cannot show whether a faster motion "
-                         "exists, so 'ok' cannot be concluded")
-        out.append(v if v.level != "ok" else _replace(v, advice=""))
-    # frames against what they must show
+    out = [_step_verdict(jb, fastest, timestep_ps, timestep_source, group, cant_see)]
     if fastest is not None:
-        fpp = fastest.period_ps / frame_spacing_ps
-        msg = (f"frame spacing {spacing_fs:.4g} fs gives {fpp:.3g} frames per period of the fastest motion seen "
-               f"({fastest.wavenumber_per_cm:.0f} cm^-1; Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1). A motion seen in "
-               f"the frames is at or below the Nyquist limit, so {fastest.wavenumber_per_cm:.0f} cm^-1 is a lower bound "
-               f"on the fastest frequency and {fastest.period_ps * 1e3:.3g} fs an upper bound on the fastest period "
-               f"({src('timestep.nyquist')})")
-        v = judge("timestep.nyquist", fpp, title="Frame spacing vs fastest motion", unit="frames per period",
-                  message=msg, advice=EXPLANATIONS["timestep.nyquist"].advice)
-        if fastest.near_nyquist and v.level == "ok":
-            v = _replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: it is not "
-                         "resolved and may be an aliased faster motion")
-        out.append(_about_the_frames(v))
-    exp = jb.expected
-    if exp:
-        fastest_exp = min(exp, key=lambda e: e.shortest_period_ps)
-        fpp = fastest_exp.shortest_period_ps / frame_spacing_ps
-        if jb.unresolved:
-            msg = (f"{cant_see} (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1; {fpp:.2g} frames per "
-                   f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period); spectrum peaks may be its aliases "
-                   f"({src('timestep.expected_motion')})")
-        else:
-            msg = (f"{fastest_exp.words()} ({fastest_exp.source}) is resolved: {fpp:.3g} frames per "
-                   f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1)")
-        v = judge("timestep.expected_motion", fpp, title="Frames vs expected fast motions", unit="frames per period",
-                  message=msg, advice=EXPLANATIONS["timestep.expected_motion"].advice,
-                  details={"unresolved": [e.name for e in jb.unresolved]})
-        if fastest_exp.assumed and v.level == "problem":
-            v = _replace(v, level="caution", message=msg + ASSUMED_WORDS)
-        if jb.unresolved and v.level == "ok":  # between 0.8 and 1 of Nyquist: not resolved either
-            v = _replace(v, level="caution")
-        out.append(_about_the_frames(v))
+        out.append(_about_the_frames(_nyquist_verdict(jb, fastest, frame_spacing_ps)))
+    if jb.expected:
+        out.append(_about_the_frames(_expected_verdict(jb, frame_spacing_ps, cant_see)))
     return out
+
+
+def _src(kind: str) -> str:
+    return THRESHOLDS[kind].source
+
+
+def _step_verdict(jb: TimestepJudgement, fastest: FastestMotion | None, timestep_ps: float | None, timestep_source: str,
+                  group: str, cant_see: str) -> Verdict:
+    """The time step against the fastest period (``timestep.fastest_period``)."""
+    if jb.period_ps is None:
+        return Verdict("timestep.fastest_period", "info", "Time step", None, "", "not checked: no fastest "
+                       "motion known (no velocity spectrum and no fast motion expected from the topology)",
+                       threshold=THRESHOLDS["timestep.fastest_period"])
+    if not timestep_ps:
+        return Verdict("timestep.fastest_period", "info", "Time step", None, "steps per period",
+                       f"fastest period {jb.period_ps * 1e3:.3g} fs from {jb.basis}; the time step is unknown "
+                       f"(give --timestep FS); common practice asks for at most {jb.period_ps * 1e2:.3g} fs",
+                       threshold=THRESHOLDS["timestep.fastest_period"])
+    spp = jb.period_ps / timestep_ps
+    bound = "at most " if jb.upper_bound else ""
+    msg = (f"dt = {timestep_ps * 1e3:.4g} fs ({timestep_source}) against the fastest period "
+           f"{jb.period_ps * 1e3:.4g} fs from {jb.basis}: {bound}{spp:.3g} steps per period, limit "
+           f"period/10 = {jb.period_ps * 1e2:.3g} fs ({_src('timestep.fastest_period')})")
+    if jb.unresolved:
+        msg += (f". {cant_see[0].upper() + cant_see[1:]}: the verdict rests on the expected motion from the "
+                "topology and masses and on the energy conservation (see its verdicts), not on the spectrum's "
+                "peaks, which may be aliases")
+    if fastest is not None and group != "all atoms" and not jb.unresolved and not jb.upper_bound:
+        msg += f" (fastest motion in {group})"
+    v = judge("timestep.fastest_period", spp, title="Time step", unit="steps per period", message=msg,
+              advice=EXPLANATIONS["timestep.fastest_period"].advice,
+              details={"period_ps": jb.period_ps, "basis": jb.basis, "upper_bound": jb.upper_bound})
+    if jb.assumed and v.level == "problem":
+        v = replace(v, level="caution", message=msg + ASSUMED_WORDS)
+    if jb.upper_bound and v.level == "ok":
+        v = replace(v, level="caution", message=msg + "; the spectrum cannot show whether a faster motion "
+                    "exists, so 'ok' cannot be concluded")
+    return v if v.level != "ok" else replace(v, advice="")
+
+
+def _nyquist_verdict(jb: TimestepJudgement, fastest: FastestMotion, frame_spacing_ps: float) -> Verdict:
+    """The frames against the fastest motion seen (``timestep.nyquist``)."""
+    fpp = fastest.period_ps / frame_spacing_ps
+    msg = (f"frame spacing {frame_spacing_ps * 1e3:.4g} fs gives {fpp:.3g} frames per period of the fastest motion "
+           f"seen ({fastest.wavenumber_per_cm:.0f} cm^-1; Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1). A motion seen "
+           f"in the frames is at or below the Nyquist limit, so {fastest.wavenumber_per_cm:.0f} cm^-1 is a lower "
+           f"bound on the fastest frequency and {fastest.period_ps * 1e3:.3g} fs an upper bound on the fastest "
+           f"period ({_src('timestep.nyquist')})")
+    v = judge("timestep.nyquist", fpp, title="Frame spacing vs fastest motion", unit="frames per period",
+              message=msg, advice=EXPLANATIONS["timestep.nyquist"].advice)
+    if fastest.near_nyquist and v.level == "ok":
+        v = replace(v, level="caution", message=msg + "; the peak lies near the Nyquist frequency: it is not "
+                    "resolved and may be an aliased faster motion")
+    return v
+
+
+def _expected_verdict(jb: TimestepJudgement, frame_spacing_ps: float, cant_see: str) -> Verdict:
+    """The frames against the fast motions the topology and masses imply (``timestep.expected_motion``)."""
+    fastest_exp = min(jb.expected, key=lambda e: e.shortest_period_ps)
+    fpp = fastest_exp.shortest_period_ps / frame_spacing_ps
+    if jb.unresolved:
+        msg = (f"{cant_see} (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1; {fpp:.2g} frames per "
+               f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period); spectrum peaks may be its aliases "
+               f"({_src('timestep.expected_motion')})")
+    else:
+        msg = (f"{fastest_exp.words()} ({fastest_exp.source}) is resolved: {fpp:.3g} frames per "
+               f"{fastest_exp.shortest_period_ps * 1e3:.3g} fs period (Nyquist limit {jb.nyquist_per_cm:.0f} cm^-1)")
+    v = judge("timestep.expected_motion", fpp, title="Frames vs expected fast motions", unit="frames per period",
+              message=msg, advice=EXPLANATIONS["timestep.expected_motion"].advice,
+              details={"unresolved": [e.name for e in jb.unresolved]})
+    if fastest_exp.assumed and v.level == "problem":
+        v = replace(v, level="caution", message=msg + ASSUMED_WORDS)
+    if jb.unresolved and v.level == "ok":  # between 0.8 and 1 of Nyquist: not resolved either
+        v = replace(v, level="caution")
+    return v
 
 
 FRAMES_NOT_THE_RUN = ("; this limits what the frames and their spectrum can show, not the run itself (frames are "
                       "usually written far less often than every step): the time step is judged above")
 
 
-def _about_the_frames(v: Any) -> Any:
+def _about_the_frames(v: Verdict) -> Verdict:
     """A frame-spacing verdict says what the frames can show; it never flags the run. Unresolved or
     near-Nyquist motions are "info" with that said (never "ok"); the time-step verdict carries the judgement."""
-    from dataclasses import replace as _replace
-
     if v.level == "ok":
-        return _replace(v, advice="")
+        return replace(v, advice="")
     if v.level in ("caution", "problem"):
-        return _replace(v, level="info", message=v.message + FRAMES_NOT_THE_RUN)
+        return replace(v, level="info", message=v.message + FRAMES_NOT_THE_RUN)
     return v

@@ -12,7 +12,7 @@ import dataclasses
 import numpy as np
 import pytest
 
-from phasewake.core.analyses import timestep as ts
+from phasewake.core.analyses import motion_spectrum as ms
 from phasewake.core.analyses.audit import AuditFramesConsumer, audit_run, audit_summary
 from phasewake.core.analyses.coordinates import CoordinatesConsumer
 from phasewake.core.model.framepass import run_pass
@@ -87,9 +87,9 @@ def test_frame_sums_match_their_definitions(chunk):
     # the total momentum is a sum with cancellation in float32: its error is judged against K itself
     np.testing.assert_allclose(fr.com_kinetic_kJ_per_mol, com_ref, atol=1e-6 * float(k_ref.mean()))
     # the spectrum equals the accumulator fed the whole array at once (previous route), to float32 rounding
-    labels, names = ts.spectrum_groups(run.topology, m)
+    labels, names = ms.spectrum_groups(run.topology, m)
     h = float(np.median(np.diff(run.time_ps)))  # the frame spacing, as the audit takes it
-    acc = ts.VelocitySpectrumAccumulator(m, h, segment_frames=64, labels=labels, max_segments=64)
+    acc = ms.VelocitySpectrumAccumulator(m, h, segment_frames=64, labels=labels, max_segments=64)
     acc.update(v.astype(np.float32))
     f_ref, p_ref = acc.finish()
     np.testing.assert_array_equal(fr.spectrum_frequency_per_ps, f_ref)
@@ -109,7 +109,7 @@ def test_frame_sums_match_their_definitions(chunk):
 
 def test_spectrum_groups_by_mass_match_the_per_atom_rule():
     m = np.random.default_rng(0).choice([1.008, 15.999, 12.011, 1.0080001, 39.948], 3000)
-    labels, names = ts.spectrum_groups(None, m)
+    labels, names = ms.spectrum_groups(None, m)
     keys = [f"mass {x:.4g} amu" for x in m]  # the rule, atom by atom
     assert names == sorted(set(keys))
     assert [names[i] for i in labels] == keys

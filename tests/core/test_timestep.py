@@ -9,6 +9,7 @@ import math
 import numpy as np
 import pytest
 
+from phasewake.core.analyses import motion_spectrum as ms
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.errors import AnalysisError
 
@@ -30,7 +31,7 @@ def oscillating_atoms(wavenumbers_cm, amplitudes, masses, dt_ps, n_frames, seed=
 def test_fastest_peak_is_the_oh_stretch_within_one_bin():
     # A 3657 cm^-1 and a 1595 cm^-1 motion (H2O fundamentals, REFERENCES.md §9 [V2]) sampled every 0.5 fs.
     t, v, m = oscillating_atoms([1595.0, 3657.0], [1.0, 1.0], [16.0, 1.0], 0.0005, 8192)
-    freq, power = ts.velocity_power_spectrum(v, m, 0.0005, segment_frames=2048)
+    freq, power = ms.velocity_power_spectrum(v, m, 0.0005, segment_frames=2048)
     fm = ts.fastest_motion(freq, power)
     assert abs(fm.wavenumber_per_cm - 3657.0) <= fm.resolution_per_ps / (C_CM_PER_S * 1e-12)
     assert fm.period_ps * 1e3 == pytest.approx(1e15 / (3657 * C_CM_PER_S), rel=0.01)  # 9.12 fs, REFERENCES §1.4
@@ -45,7 +46,7 @@ def test_spectrum_shape_matches_scipy_welch():
     n, L = 4096, 512
     v = rng.normal(size=(n, 4, 3)).cumsum(axis=0) * 0.01 + rng.normal(size=(n, 4, 3))
     m = np.array([1.0, 12.0, 16.0, 2.0])
-    acc = ts.VelocitySpectrumAccumulator(m, 0.001, segment_frames=L)
+    acc = ms.VelocitySpectrumAccumulator(m, 0.001, segment_frames=L)
     for start in range(0, n, 700):  # chunks that do not align with segments
         acc.update(v[start:start + 700])
     freq, ours = acc.finish()
@@ -68,21 +69,21 @@ def test_broad_band_upper_edge():
     spec = np.fft.rfft(rng.normal(size=(n, 20, 3)), axis=0)
     spec[f > cut] = 0.0
     v = np.fft.irfft(spec, n, axis=0)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, np.ones(20), dt, segment_frames=512))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, np.ones(20), dt, segment_frames=512))
     assert fm.method.startswith("upper edge")
     assert abs(fm.wavenumber_per_cm - 1000.0) <= 2 * fm.resolution_per_ps / (C_CM_PER_S * 1e-12)
 
 
 def test_weak_peak_below_prominence_is_ignored():
     t, v, m = oscillating_atoms([1000.0, 3000.0], [1.0, 0.01], [1.0, 1.0], 0.0005, 4096)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, 0.0005, segment_frames=1024))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, 0.0005, segment_frames=1024))
     assert fm.wavenumber_per_cm == pytest.approx(1000.0, abs=35.0)
 
 
 def test_aliasing_when_frames_are_too_coarse():
     # 5 fs frames: Nyquist 3336 cm^-1 (REFERENCES.md §4.3 [C]); a 3000 cm^-1 motion sits near it.
     t, v, m = oscillating_atoms([3000.0], [1.0], [1.0], 0.005, 2048)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, 0.005, segment_frames=512))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, 0.005, segment_frames=512))
     assert fm.nyquist_per_ps / (C_CM_PER_S * 1e-12) == pytest.approx(3336, abs=1)
     assert fm.near_nyquist
     chk = ts.check_timestep(fm.period_ps, 0.005, 0.001)
@@ -113,7 +114,7 @@ def test_few_fast_atoms_are_not_drowned_by_many_slow_ones():
     _, v_fast, _ = oscillating_atoms([3000.0] * 2, [1.0] * 2, [1.0] * 2, dt, n, seed=2)
     v = np.concatenate([v_slow, v_fast], axis=1)
     m = np.array([40.0] * 200 + [1.0] * 2)
-    f_tot, p_tot = ts.velocity_power_spectrum(v, m, dt, segment_frames=1024)
+    f_tot, p_tot = ms.velocity_power_spectrum(v, m, dt, segment_frames=1024)
     assert ts.fastest_motion(f_tot, p_tot).wavenumber_per_cm < 400  # the total alone misses it
     pos = np.cumsum(v, axis=0) * dt
     run = run_from_arrays(pos, t, m, velocities_nm_per_ps=v)
@@ -182,7 +183,7 @@ def test_alias_folds_about_nyquist_like_the_sampled_spectrum():
     # frequency |3657 - 2 x 1667.8| = 321.4 cm^-1 (sampling theorem, analytic)
     dt = 0.010
     t, v, m = oscillating_atoms([3657.0], [1.0], [1.0], dt, 4096)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=1024))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, dt, segment_frames=1024))
     ny = 1 / (2 * dt * 1e-12 * C_CM_PER_S)
     assert ts.alias_of(3657.0, dt) == pytest.approx(abs(3657.0 - 2 * ny), rel=1e-12)
     assert fm.wavenumber_per_cm == pytest.approx(ts.alias_of(3657.0, dt), abs=fm.resolution_per_ps / (C_CM_PER_S * 1e-12))
@@ -196,7 +197,7 @@ def test_peak_at_nyquist_is_never_ok():
     dt = 0.005
     ny = 1 / (2 * dt * 1e-12 * C_CM_PER_S)
     t, v, m = oscillating_atoms([0.95 * ny], [1.0], [12.0], dt, 2048)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=512))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, dt, segment_frames=512))
     assert fm.near_nyquist
     out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.0001, "user")}
     assert out["timestep.fastest_period"].level == "caution"
@@ -214,7 +215,7 @@ def test_unresolved_oh_stretch_decides_the_time_step_not_its_alias():
     # 3 fs step; the O-H stretch from the topology (period 9.0 fs: limit 0.9 fs, common practice) does not.
     dt = 0.010
     t, v, m = oscillating_atoms([3657.0], [1.0], [1.0], dt, 4096)
-    fm = ts.fastest_motion(*ts.velocity_power_spectrum(v, m, dt, segment_frames=1024))
+    fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, dt, segment_frames=1024))
     top = _water_topology(2)
     exp = ts.expected_fast_motions(top, np.tile([15.999, 1.008, 1.008], 2), n_constraints=0)
     out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.003, "user (--timestep)", exp)}
