@@ -45,7 +45,6 @@ KNOWN_LAYER_BREACHES = (
 KNOWN_LONG_MODULES = {
     "core/analyses/correlation.py": 1072,
     "core/analyses/projection.py": 956,
-    "core/analyses/timestep.py": 714,
     "core/analyses/velocity.py": 1423,
 }
 
@@ -57,8 +56,6 @@ KNOWN_LONG_FUNCTIONS = {
     "core/analyses/correlation.py::analyse_series": 90,
     "core/analyses/landscape.py::free_energy_profile": 92,
     "core/analyses/projection.py::compute_pca": 100,
-    "core/analyses/timestep.py::expected_fast_motions": 84,
-    "core/analyses/timestep.py::timestep_verdicts": 85,
     "core/analyses/velocity.py::transport": 95,
     "core/readers/folder.py::find_run_files": 95,
     "core/readers/lammps_data.py::read_data": 109,
