@@ -18,6 +18,7 @@ from phasewake.core.analyses import energy as en
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.analyses.energy_events import EventsResult
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Level, Verdict, worst
 
 
@@ -83,7 +84,7 @@ class TimestepAudit:
 
 
 @dataclass(frozen=True)
-class AuditResult:
+class AuditResult(ResultMixin):
     """Everything the audit measured, with units, plus the verdicts and the settings used."""
 
     run_name: str

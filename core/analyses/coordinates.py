@@ -34,6 +34,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.analyses.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.progress import Progress, Work
@@ -46,7 +47,7 @@ if TYPE_CHECKING:
 
 
 @dataclass(frozen=True)
-class CoordinateSeries:
+class CoordinateSeries(ResultMixin):
     """One coordinate over the frames of a run.
 
     time_ps : (n_frames,) ps

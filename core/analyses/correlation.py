@@ -38,6 +38,7 @@ from typing import Any, Literal
 import numpy as np
 
 from phasewake.core.analyses import verdicts
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 from phasewake.core.settings import threads
@@ -659,7 +660,7 @@ def effective_sample_size(
 
 
 @dataclass(frozen=True)
-class CorrelationResult:
+class CorrelationResult(ResultMixin):
     """Memory of one series.
 
     ``statistical_inefficiency`` is g (samples); ``tau_int_sokal_*`` is Sokal's g / 2.
@@ -846,7 +847,7 @@ def judge_estimators(result: CorrelationResult, *, name: str = "series") -> verd
 
 
 @dataclass(frozen=True)
-class BlockingResult:
+class BlockingResult(ResultMixin):
     """The blocking curve and the level read as the plateau.
 
     ``sem[k]`` is the standard error of the mean (in ``unit``) estimated from 2^k-sample blocks,

@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.units import KB_KJ_PER_MOL_K
 
@@ -165,7 +166,7 @@ class Barrier:
 
 
 @dataclass(frozen=True)
-class FreeEnergyProfile:
+class FreeEnergyProfile(ResultMixin):
     """F(q) = -kT ln P(q) (+ Jacobian term), lowest bin at 0; NaN in empty bins.
 
     centers, edges in ``unit``; free_energy_kJ_per_mol and error_kJ_per_mol per bin.

@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.analyses.rates import ExponentialTest, TSTRate
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Verdict
 from phasewake.core.errors import AnalysisError
 
@@ -221,7 +222,7 @@ class StateSuggestion:
 
 
 @dataclass(frozen=True)
-class CrossingsResult:
+class CrossingsResult(ResultMixin):
     """Everything :func:`pool_crossings` finds. Tables are numpy structured arrays (see the dtypes)."""
 
     settings: CrossingSettings

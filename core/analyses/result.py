@@ -1,0 +1,70 @@
+"""What every main analysis result offers besides its fields: plain data and a figure.
+
+:class:`ResultMixin` is a base of the frozen result dataclasses (``AuditResult``, ``CoordinateSeries``,
+``PCAResult``, ...). It adds no fields (the cache codec and the results' equality are unchanged):
+
+- :meth:`ResultMixin.to_dict`: the result as JSON-ready values (the one converter every JSON we
+  write uses, :func:`phasewake.core.store.jsonable.to_jsonable`);
+- :meth:`ResultMixin.figure_specs` / :meth:`ResultMixin.figure`: the figure descriptions drawn from
+  the result (:data:`phasewake.core.figures.plots.RESULT_FIGURES`, the table the window and the report
+  use), and one of them drawn by matplotlib (:func:`phasewake.core.figures.export.render_figure`),
+  so a notebook shows what the window shows and the report prints.
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
+    from phasewake.core.figures.spec import FigureSpec
+
+
+class ResultMixin:
+    """``to_dict()`` and ``figure()`` for a result dataclass (no fields of its own)."""
+
+    __slots__ = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        """Every field as plain JSON-ready values (arrays as lists, NaN as None, paths as text)."""
+        from phasewake.core.store.jsonable import to_jsonable
+
+        out = to_jsonable(self)
+        assert isinstance(out, dict)
+        return out
+
+    def figure_specs(self, **options: Any) -> list[FigureSpec]:
+        """The figure descriptions drawn from this result (what the window's panels and the report show)."""
+        from phasewake.core.figures.plots import figures_for
+
+        return figures_for(self, **options)
+
+    def figure(self, which: int | str = 0, *, preset: str = "slide", **options: Any) -> Figure:
+        """One figure of this result as a matplotlib Figure (no pyplot, no display needed).
+
+        Parameters
+        ----------
+        which : int or str
+            The figure's position in :meth:`figure_specs` or its key (e.g. ``"phase.portrait"``).
+        preset : str
+            Size and fonts: ``"slide"`` (default), ``"single"`` or ``"double"`` (journal column widths),
+            as the window's export offers.
+        **options
+            Passed to the figure builder (e.g. ``cursor_ps``).
+        """
+        from phasewake.core.errors import AnalysisError
+        from phasewake.core.figures.export import render_figure
+
+        specs = self.figure_specs(**options)
+        keys = [s.key for s in specs]
+        if isinstance(which, str):
+            if which not in keys:
+                raise AnalysisError(f"{type(self).__name__} has no figure {which!r}; it has: {', '.join(keys) or 'none'}")
+            spec = specs[keys.index(which)]
+        elif -len(specs) <= which < len(specs):
+            spec = specs[which]
+        else:
+            raise AnalysisError(f"{type(self).__name__} has {len(specs)} figure(s) ({', '.join(keys) or 'none'}); "
+                                f"asked for number {which}")
+        return render_figure(spec, preset=preset)
