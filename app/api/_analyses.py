@@ -16,6 +16,7 @@ if TYPE_CHECKING:
     from phasewake.core.analyses.correlation import CorrelationResult
     from phasewake.core.analyses.crossings import CrossingsResult
     from phasewake.core.analyses.projection import PCAResult
+    from phasewake.core.analyses.request import AnalysisRequest
     from phasewake.core.analyses.velocity import VACFResult, VDOSResult
     from phasewake.core.figures.report import ReportResult
     from phasewake.core.model.run import Run
@@ -32,6 +33,13 @@ def _cache(cache: bool) -> ResultCache | None:
     from phasewake.core.store.cache import ResultCache
 
     return None if cache else ResultCache(enabled=False)
+
+
+def _requested(run: Run, request: AnalysisRequest, cache: bool) -> Work[Any]:
+    """The request through the result cache: the one road of the command line, the window and the report."""
+    from phasewake.core.store.cached import requested
+
+    return requested(run, request, cache=_cache(cache))
 
 
 def _drive(work: Work[T], progress: ProgressCallback | None) -> T:
@@ -131,16 +139,15 @@ def audit(run: Run, *, groups: Mapping[str, Atoms] | None = None, compare: Run |
     >>> [f.key for f in result.figure_specs()]
     ['energy.audit', 'temperature.audit', 'timestep.spectrum']
     """
-    from phasewake.core.store.cached import cached_audit
+    from phasewake.core.analyses.audit import AuditRequest
 
     run = _run_of(run, "pw.audit")
     stated = _stated(run)
-    work = cached_audit(run, n_constraints=stated["n_constraints"], timestep_ps=stated["timestep_ps"],
-                        temperature_K=stated["temperature_K"], require_temperature=False,
-                        groups=_groups(run, groups, "groups"),
-                        compare=None if compare is None else _run_of(compare, "compare"),
-                        compare_timestep_ps=None if compare_timestep_fs is None else compare_timestep_fs * 1e-3,
-                        cache=_cache(cache))
+    request = AuditRequest(n_constraints=stated["n_constraints"], timestep_ps=stated["timestep_ps"],
+                           temperature_K=stated["temperature_K"], groups=_groups(run, groups, "groups"),
+                           compare=None if compare is None else _run_of(compare, "compare"),
+                           compare_timestep_ps=None if compare_timestep_fs is None else compare_timestep_fs * 1e-3)
+    work = _requested(run, request, cache)
     result: AuditResult = _drive(work, progress)
     return result
 
@@ -407,7 +414,8 @@ def correlation(source: Any, series: str | None = None, *, dt_ps: float | None =
 def crossings(runs: Run | Sequence[Run], coordinate: str, *, states: tuple[float, float] | None = None,
               surface: float | None = None, confidence: float = 0.95,
               kappa_window_ps: tuple[float, float] | None = None, temperature_K: float | None = None,
-              cache: bool = True, progress: ProgressCallback | None = None) -> CrossingsResult:
+              start: int = 0, stop: int | None = None, cache: bool = True,
+              progress: ProgressCallback | None = None) -> CrossingsResult:
     """Barrier crossings of a coordinate: core-set states, crossings and recrossings of the dividing
     surface, transition paths, dwell times, rates with intervals, transmission coefficients and the
     transition-state-theory comparison (``phasewake crossings``).
@@ -428,7 +436,10 @@ def crossings(runs: Run | Sequence[Run], coordinate: str, *, states: tuple[float
     kappa_window_ps : (float, float), optional
         Plateau window of the transmission coefficient, in ps.
     temperature_K : float, optional
-        For the flux factor when there are no velocities (default: the first run's thermostat target).
+        For kT (default: the first run's thermostat target, as stated in :func:`phasewake.open`, else
+        its mean kinetic temperature).
+    start, stop : int
+        Frames ``start`` up to ``stop`` (excluded) of every run.
     cache, progress
         As in :func:`phasewake.audit`.
 
@@ -446,14 +457,21 @@ def crossings(runs: Run | Sequence[Run], coordinate: str, *, states: tuple[float
     >>> result.n_transitions > 0
     True
     """
+    from phasewake.core.analyses.crossings import CrossingsRequest
+    from phasewake.core.errors import InputError
     from phasewake.core.model.run import Run
-    from phasewake.core.store.cached import cached_crossings_of_runs
 
     all_runs = [_run_of(runs, "pw.crossings")] if isinstance(runs, Run) else [
         _run_of(r, "pw.crossings") for r in runs]
-    work = cached_crossings_of_runs(all_runs, coordinate, states=states, surface=surface, confidence=confidence,
-                                    kappa_window_ps=kappa_window_ps, temperature_K=temperature_K,
-                                    cache=_cache(cache))
+    if not all_runs:
+        raise InputError("pw.crossings: no run given")
+    # only what the caller gave: every default is the request's own, as on the command line
+    given = {k: v for k, v in (("states", None if states is None else (float(states[0]), float(states[1]))),
+                               ("surface", surface), ("confidence", confidence),
+                               ("kappa_window_ps", kappa_window_ps), ("temperature_K", temperature_K))
+             if v is not None}
+    request = CrossingsRequest(coordinate=coordinate, replicas=tuple(all_runs[1:]), start=start, stop=stop, **given)
+    work = _requested(all_runs[0], request, cache)
     result: CrossingsResult = _drive(work, progress)
     return result
 
