@@ -14,9 +14,12 @@ are frozen dataclasses with units in their field names or a ``unit`` field; the 
 """
 
 from phasewake._analyses import audit, coordinates, correlation, crossings, pca, report, spectrum, vacf
+from phasewake._figures import install as _install_figures
 from phasewake._runs import describe, open, sample_path
 from phasewake.core import __version__
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, InputError, PhasewakeError
+
+_install_figures()  # result.figure() draws with core.figures, which core.analyses may not import
 
 __all__ = [
     "AnalysisError", "CoordinateSpecError", "InputError", "PhasewakeError", "__version__", "audit", "coordinates",

@@ -37,8 +37,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-from phasewake.core.analyses import verdicts
-from phasewake.core.analyses.result import ResultMixin
+from phasewake.core.analyses import result, verdicts
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 from phasewake.core.settings import threads
@@ -660,7 +659,7 @@ def effective_sample_size(
 
 
 @dataclass(frozen=True)
-class CorrelationResult(ResultMixin):
+class CorrelationResult(result.ResultMixin):
     """Memory of one series.
 
     ``statistical_inefficiency`` is g (samples); ``tau_int_sokal_*`` is Sokal's g / 2.
@@ -847,7 +846,7 @@ def judge_estimators(result: CorrelationResult, *, name: str = "series") -> verd
 
 
 @dataclass(frozen=True)
-class BlockingResult(ResultMixin):
+class BlockingResult(result.ResultMixin):
     """The blocking curve and the level read as the plateau.
 
     ``sem[k]`` is the standard error of the mean (in ``unit``) estimated from 2^k-sample blocks,

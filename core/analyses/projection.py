@@ -60,7 +60,6 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from phasewake.core.analyses.coordinates import kabsch, solute_atoms
-from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
@@ -102,7 +101,7 @@ register(
 
 
 @dataclass(frozen=True)
-class PCAResult(ResultMixin):
+class PCAResult:
     """Principal components of an atom group.
 
     atom_indices : (g,) atoms of the run used (d = 3 g coordinates, ordered atom-major: x0 y0 z0 x1 ...)

@@ -5,20 +5,30 @@
 
 - :meth:`ResultMixin.to_dict`: the result as JSON-ready values (the one converter every JSON we
   write uses, :func:`phasewake.core.store.jsonable.to_jsonable`);
-- :meth:`ResultMixin.figure_specs` / :meth:`ResultMixin.figure`: the figure descriptions drawn from
-  the result (:data:`phasewake.core.figures.plots.RESULT_FIGURES`, the table the window and the report
-  use), and one of them drawn by matplotlib (:func:`phasewake.core.figures.export.render_figure`),
-  so a notebook shows what the window shows and the report prints.
+- :meth:`ResultMixin.figure_specs` / :meth:`ResultMixin.figure`: the figure descriptions drawn from the
+  result (``phasewake.core.figures.plots.RESULT_FIGURES``, the table the window and the report use) and
+  one of them drawn by matplotlib, so a notebook shows what the window shows and the report prints.
+
+The analyses may not import the figures (the layering contract: figures are built from results, not the
+other way round), so how a result becomes figures is handed in once by :func:`use_figures`; the
+top-level package ``phasewake`` (``app/api``), which every import of phasewake runs first, does it.
 """
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any
+from collections.abc import Callable
+from typing import Any
 
-if TYPE_CHECKING:
-    from matplotlib.figure import Figure
+# (result, **options) -> list of FigureSpec;  (FigureSpec, preset=) -> matplotlib Figure
+_figure_specs: Callable[..., list[Any]] | None = None
+_render: Callable[..., Any] | None = None
 
-    from phasewake.core.figures.spec import FigureSpec
+
+def use_figures(figure_specs: Callable[..., list[Any]], render: Callable[..., Any]) -> None:
+    """How results become figures: the FigureSpecs of a result, and a FigureSpec drawn as a matplotlib
+    Figure (``plots.figures_for`` and ``export.render_figure``)."""
+    global _figure_specs, _render
+    _figure_specs, _render = figure_specs, render
 
 
 class ResultMixin:
@@ -34,13 +44,16 @@ class ResultMixin:
         assert isinstance(out, dict)
         return out
 
-    def figure_specs(self, **options: Any) -> list[FigureSpec]:
-        """The figure descriptions drawn from this result (what the window's panels and the report show)."""
-        from phasewake.core.figures.plots import figures_for
+    def figure_specs(self, **options: Any) -> list[Any]:
+        """The figure descriptions (FigureSpec) drawn from this result: what the window's panels and the
+        report show."""
+        from phasewake.core.errors import AnalysisError
 
-        return figures_for(self, **options)
+        if _figure_specs is None:
+            raise AnalysisError("no figure builders: import phasewake (the package) to draw results")
+        return _figure_specs(self, **options)
 
-    def figure(self, which: int | str = 0, *, preset: str = "slide", **options: Any) -> Figure:
+    def figure(self, which: int | str = 0, *, preset: str = "slide", **options: Any) -> Any:
         """One figure of this result as a matplotlib Figure (no pyplot, no display needed).
 
         Parameters
@@ -52,9 +65,12 @@ class ResultMixin:
             as the window's export offers.
         **options
             Passed to the figure builder (e.g. ``cursor_ps``).
+
+        Returns
+        -------
+        matplotlib.figure.Figure
         """
         from phasewake.core.errors import AnalysisError
-        from phasewake.core.figures.export import render_figure
 
         specs = self.figure_specs(**options)
         keys = [s.key for s in specs]
@@ -67,4 +83,5 @@ class ResultMixin:
         else:
             raise AnalysisError(f"{type(self).__name__} has {len(specs)} figure(s) ({', '.join(keys) or 'none'}); "
                                 f"asked for number {which}")
-        return render_figure(spec, preset=preset)
+        assert _render is not None
+        return _render(spec, preset=preset)

@@ -39,7 +39,6 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 
@@ -462,7 +461,7 @@ def _group_labels(n_atoms: int, groups: Mapping[str, Sequence[int] | np.ndarray]
 
 
 @dataclass(frozen=True)
-class VACFResult(ResultMixin):
+class VACFResult:
     """Velocity autocorrelation per atom group, averaged over atoms and time origins.
 
     vacf : (n_groups, L) in ``unit``: <v_i(0).v_i(t)> (nm^2/ps^2), or <m_i v_i(0).v_i(t)>
@@ -1213,7 +1212,7 @@ class Peak:
 
 
 @dataclass(frozen=True)
-class VDOSResult(ResultMixin):
+class VDOSResult:
     """Vibrational density of states from the mass-weighted VACF.
 
     ``intensity`` is normalised so that its integral over wavenumber (cm^-1) is ``n_dof``;
