@@ -539,20 +539,15 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
 
 
 def _event_rows(res: Any, ctx: AnalysisContext) -> tuple[EventRow, ...]:
-    ev = res.events
+    """The event table of a CrossingsResult, each row with the span to highlight in the phase portrait: its
+    transition path (leaving the origin core to entering the destination core), else a few frames around it."""
     rows = []
-    paths = res.paths
-    for r in ev:
-        start_ps = end_ps = None
-        if int(r["path"]) >= 0 and paths is not None and len(paths):
-            pr = paths[int(r["path"])]
-            names = pr.dtype.names or ()
-            s_key = next((n for n in ("start_ps", "exit_ps", "t_start_ps", "time_start_ps") if n in names), None)
-            e_key = next((n for n in ("end_ps", "entry_ps", "t_end_ps", "time_end_ps") if n in names), None)
-            if s_key and e_key:
-                start_ps, end_ps = float(pr[s_key]), float(pr[e_key])
-        if start_ps is None:  # a few frames around the crossing
-            dt = float(res.frame_spacing_ps)
+    dt = float(res.frame_spacing_ps)
+    for r in res.events:
+        if int(r["path"]) >= 0:
+            path = res.paths[int(r["path"])]
+            start_ps, end_ps = float(path["exit_time_ps"]), float(path["entry_time_ps"])
+        else:
             start_ps, end_ps = float(r["time_ps"]) - 5 * dt, float(r["time_ps"]) + 5 * dt
         dur = float(r["path_duration_ps"])
         rows.append(EventRow(index=int(r["index"]), time_ps=float(r["time_ps"]), frame=int(r["frame"]) + ctx.start,

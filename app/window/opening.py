@@ -12,6 +12,7 @@ from pathlib import Path
 
 from phasewake.app.window.file_dialogs import FOLDER_KEYS
 from phasewake.app.window.model import RunEntry, RunSettings, apply_settings
+from phasewake.app.window.run_groups import group_runs
 from phasewake.app.window.workers import JobOutcome
 from phasewake.core.model.run import Run
 
@@ -33,9 +34,7 @@ class RunOpening:
     def open_paths(self, paths: Sequence[str], *, topology: str | None = None,
                    settings: RunSettings | None = None) -> None:
         """Open ``paths`` in the background and add to the Runs list: one run, or one run per file when
-        they are several self-contained run files (replicas; see ``phasewake.app.window.group_runs``)."""
-        from phasewake.app.window import group_runs
-
+        they are several self-contained run files (replicas; see :func:`group_runs`)."""
         self.open_runs([(group, topology, settings or RunSettings()) for group in group_runs(paths)])
 
     def open_runs(self, specs: Sequence[tuple[tuple[str, ...], str | None, RunSettings]]) -> None:

@@ -179,6 +179,14 @@ def test_selecting_an_event_moves_the_cursor_there(win, qtbot):
     assert abs(w.model.cursor_time_ps - pick.time_ps) <= 0.5 * spacing + 1e-9
     assert w.model.choice("highlight_ps") == (pick.start_ps, pick.end_ps)
     assert w.panels["Phase space"].highlighted_points() > 0  # the crossing's segment is drawn in the portrait
+    # a transition highlights its whole transition path: from leaving one core to entering the other
+    res = cross.result.info["crossings"]
+    assert any(e.kind == "transition" for e in events)
+    for e in events:
+        if e.kind == "transition":
+            path = res.paths[int(res.events[e.index]["path"])]
+            assert (e.start_ps, e.end_ps) == (float(path["exit_time_ps"]), float(path["entry_time_ps"]))
+            assert e.start_ps <= e.time_ps <= e.end_ps
     cross.filter.setCurrentIndex(cross.filter.findData("recrossing"))
     assert all(e.kind == "recrossing" for e in cross.visible_events())
 
