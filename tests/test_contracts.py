@@ -30,7 +30,6 @@ KNOWN_CYCLE_IMPORTS = (
     "core.readers.xdr -> core.readers.trajectory",
     "core.model.parallel -> core.model.cluster",
     "core.model.run -> core.model.window",
-    "app.window.opening -> app.window",
 )
 
 # Imports against the layering today (importer -> imported); each is to go.
