@@ -142,6 +142,8 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
         w(f"    TST ({t.flux_source}): k_TST(A->B) = {_g(t.rate_up_per_ps, '/ps')}, "
           f"k_TST(B->A) = {_g(t.rate_down_per_ps, '/ps')};  k/k_TST = {_g(res.tst.kappa_up)} and "
           f"{_g(res.tst.kappa_down)}\n")
+    if res.n_replicas > 1 and res.replicas:
+        _write_replicas(res, w)
     w("\n")
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
     for v in res.verdicts:
@@ -154,6 +156,21 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
     for msg in res.warnings:
         w(textwrap.fill(f"warning: {msg}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
     w("\n" + textwrap.fill(res.note, width=100) + "\n")
+
+
+def _write_replicas(res: Any, w: Any) -> None:
+    """One line per replica (core/analyses/replica_table.py): its transitions, rates, share of the
+    between-replica spread of the mean (what raises R-hat) and drift."""
+    u = res.settings.unit
+    w(f"\n  per replica: transitions, rates (/ps), share of the between-replica spread of the mean q "
+      f"(R-hat), drift of q ({u}/ns)\n")
+    w(f"    {'replica':<24} {'ps':>9} {'A->B':>5} {'B->A':>5} {'k(A->B)':>10} {'k(B->A)':>10} "
+      f"{'mean q':>9} {'share':>6} {'drift':>10}\n")
+    for r in res.replicas:
+        share = "-" if math.isnan(r.between_share) else f"{100 * r.between_share:.0f}%"
+        w(f"    {r.name[:24]:<24} {r.time_ps:>9.4g} {r.transitions_ab:>5} {r.transitions_ba:>5} "
+          f"{_g(r.rate_ab_per_ps):>10} {_g(r.rate_ba_per_ps):>10} {r.mean:>9.4g} {share:>6} "
+          f"{_g(r.drift_per_ns):>10}\n")
 
 
 def _write_events(path: Path, res: Any, names: list[str], inputs: list[Path]) -> None:

@@ -160,7 +160,10 @@ class CrossingsRequest(AnalysisRequest):
         result: CrossingsResult = yield from _relay(inner, base, total, "")
         if temp is None:
             result = replace(result, warnings=(*result.warnings, why))
-        return replace(result, settings=replace(result.settings, temperature_source=why))
+        from phasewake.core.analyses.replica_table import replica_rows
+
+        return replace(result, settings=replace(result.settings, temperature_source=why),
+                       replicas=replica_rows(result, traces, unit))
 
 
 def _relay(work: Work[Any], base: float, total: float, prefix: str) -> Work[Any]:

@@ -247,6 +247,7 @@ class CrossingsResult(ResultMixin):
     warnings: tuple[str, ...]
     note: str = HEURISTIC_NOTE
     replica_names: tuple[str, ...] = field(default_factory=tuple)
+    replicas: tuple[Any, ...] = field(default_factory=tuple)  # replica_table.ReplicaRow, one per replica
 
     @property
     def n_transitions(self) -> int:
@@ -295,6 +296,7 @@ class CrossingsResult(ResultMixin):
             "verdicts": [v.to_dict() for v in self.verdicts],
             "warnings": list(self.warnings),
             "note": self.note,
+            "replicas": [asdict(r) for r in self.replicas],
         }
         if self.suggestion is not None:
             s = asdict(self.suggestion)
