@@ -177,6 +177,7 @@ def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: in
     files_ = parallel.files_of(run) if files is None else files
     chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
     ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunk)
+    parallel.before_parts(run, consumers, start)
     job = f"phasewake-{uuid.uuid4().hex}"
     futures = [cl.submit(range_task, job, files_, consumers, a, b, chunk_frames, pure=False)
                for a, b in ranges]

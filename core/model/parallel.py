@@ -203,6 +203,15 @@ def mergeable(consumers: Mapping[str, Any]) -> bool:
     return all(callable(getattr(c, "merge", None)) for c in consumers.values())
 
 
+def before_parts(run: Run, consumers: Mapping[str, Any], start: int) -> None:
+    """Fix now what a serial pass takes from its first frame (the PCA's superposition reference), so
+    consumers fed different ranges share it and can be merged."""
+    for consumer in consumers.values():
+        first = getattr(consumer, "use_first_frame_of", None)
+        if callable(first):
+            first(run, start)
+
+
 def merge_in_order(parts: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
     """Fold the consumers of consecutive ranges into the first range's, in frame order."""
     merged = dict(parts[0])
@@ -437,6 +446,7 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
         return (yield from run_pass(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames,
                                     workers=1))
     files_ = files_of(run) if files is None else files
+    before_parts(run, consumers, start_)
     label = f"one pass over {n} workers: " + ", ".join(consumers)
     with ProcessRanges(min(n, len(ranges)), len(ranges), topology_seed(run)) as pool:
         futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunk_frames)

@@ -236,3 +236,34 @@ def test_run_pass_with_workers_goes_through_the_ranges(tmp_path, monkeypatch):
     monkeypatch.delenv(parallel.WORKERS_ENV, raising=False)
     drive(run_pass(run, {"s": FrameSums()}, chunk_frames=16))
     assert used == [2]
+
+
+def test_every_consumer_over_two_workers_equals_the_serial_pass():
+    # the real consumers at once on a sample run with velocities, read by 2 worker processes in 4 ranges
+    # (cuts at frames 384, 768 and 1152 of 1600; cuts inside transition paths: test_frame_merge.py); the
+    # tolerances of the merge tests of each consumer there: frames exact, sums of float32 products
+    # regrouped to 1e-5 relative (PCA), 1e-9 elsewhere
+    from phasewake.core.analyses.coordinates import CoordinatesConsumer
+    from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
+    from phasewake.core.analyses.projection import PCAConsumer
+    from phasewake.core.analyses.velocity import VACFConsumer
+
+    run = open_run([SAMPLES / "dimer_nve.h5md"])
+
+    def consumers():
+        return {"q": CoordinatesConsumer(run, ["distance(0, 1)", "angle(0, 1, 2)"]),
+                "T": GroupTemperatureConsumer(run), "v": VACFConsumer(run, max_lag_ps=0.2),
+                "p": PCAConsumer(run, atom_indices=np.arange(12), n_components=3, method="exact")}
+
+    serial = drive(run_pass(run, consumers(), chunk_frames=128, workers=1))
+    par = drive(parallel.ranges_pass(run, consumers(), chunk_frames=128, workers=2))
+    assert parallel.cut_ranges(0, 1600, 4, align=128) == [(0, 384), (384, 768), (768, 1152), (1152, 1600)]
+    for a, b in zip(par["q"], serial["q"], strict=True):
+        np.testing.assert_array_equal(a.time_ps, b.time_ps)
+        np.testing.assert_allclose(a.values, b.values, rtol=1e-12)
+        np.testing.assert_allclose(a.momentum, b.momentum, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(par["T"].temperature_K, serial["T"].temperature_K, rtol=1e-9)
+    assert par["T"].n_dof == serial["T"].n_dof
+    np.testing.assert_allclose(par["v"].vacf, serial["v"].vacf, rtol=1e-9, atol=1e-12)
+    assert par["p"].n_frames == serial["p"].n_frames == run.n_frames
+    np.testing.assert_allclose(par["p"].eigenvalues, serial["p"].eigenvalues, rtol=1e-5)
