@@ -56,13 +56,6 @@ KNOWN_LONG_FUNCTIONS = {
     "core/analyses/landscape.py::free_energy_profile": 92,
     "core/analyses/projection.py::compute_pca": 100,
     "core/analyses/velocity.py::transport": 95,
-    "core/readers/folder.py::find_run_files": 95,
-    "core/readers/lammps_data.py::read_data": 109,
-    "core/readers/lammps_dump.py::scan": 103,
-    "core/readers/lammps_dump.py::finish_run": 96,
-    "core/readers/lammps_log.py::read_log": 141,
-    "core/readers/parts.py::join_runs": 97,
-    "core/readers/tables.py::read_table": 90,
 }
 
 MAX_MODULE_LINES = 700

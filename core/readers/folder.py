@@ -62,8 +62,9 @@ def run_family(path: Path) -> str:
 
 def find_run_files(folder: str | Path) -> FolderFiles:
     """Choose the files of one run in ``folder``; InputError (one line, candidates named) when ambiguous."""
+    from phasewake.core.readers.cp2k_xyz import is_velocity_name
     from phasewake.core.readers.parts import natural_key
-    from phasewake.core.readers.registry import identify
+    from phasewake.core.readers.velocity_file import is_velocity_file
 
     d = Path(folder)
     out = FolderFiles(folder=d)
@@ -71,17 +72,40 @@ def find_run_files(folder: str | Path) -> FolderFiles:
         entries = sorted((p for p in d.iterdir() if p.is_file() and not p.name.startswith(".")), key=natural_key)
     except PermissionError as exc:
         raise InputError("cannot list the folder: permission denied", path=d) from exc
-    runs: list[Path] = []
-    trajs: list[Path] = []
-    tops: list[tuple[Path, str]] = []
-    others: list[tuple[Path, str]] = []
-    from phasewake.core.readers.cp2k_xyz import is_velocity_name
-    from phasewake.core.readers.velocity_file import is_velocity_file
-
     # NAMD velocity DCDs and CP2K's PROJECT-vel-1.xyz: velocities of the positions beside them
     velocity_files = [p for p in entries if is_velocity_file(p) or is_velocity_name(p)]
-    entries = [p for p in entries if p not in velocity_files]
-    for p in entries:
+    runs, trajs, tops, others = _sort_files([p for p in entries if p not in velocity_files], out)
+    chosen, tops = _choose_frames(d, runs, trajs, tops, out)
+    top = _choose_topology(chosen, tops, out) if tops and chosen and not runs else None
+    if len(velocity_files) > 1:
+        raise InputError(f"the folder holds {len(velocity_files)} velocity files "
+                         f"({', '.join(p.name for p in velocity_files)}). Name the files to open", path=d)
+    out.paths = chosen + ([top] if top is not None else []) + (velocity_files if chosen else []) + \
+        [p for p, _ in others]
+    if not out.paths:
+        raise InputError("the folder holds no file of a run that we read"
+                         + (f" (found {', '.join(p.name for p, _ in out.left_out[:6])})" if out.left_out else ""),
+                         path=d)
+    took = ", ".join(p.name for p in out.paths)
+    note = f"run folder {d.resolve().name or d}: took {took}"
+    if out.left_out:
+        note += "; left out " + ", ".join(f"{p.name} ({why})" for p, why in out.left_out)
+    out.notes.append(note)
+    return out
+
+
+_Named = list[tuple[Path, str]]  # (path, the name of the reader that claims it)
+
+
+def _sort_files(files: list[Path], out: FolderFiles) -> tuple[list[Path], list[Path], _Named, _Named]:
+    """(run files, trajectories, topologies, energy and parameter files); the rest goes to ``out.left_out``."""
+    from phasewake.core.readers.registry import identify
+
+    runs: list[Path] = []
+    trajs: list[Path] = []
+    tops: _Named = []
+    others: _Named = []
+    for p in files:
         if _suffix(p) in _NOT_RUN_FILES:
             out.left_out.append((p, "not a run file"))
             continue
@@ -98,7 +122,13 @@ def find_run_files(folder: str | Path) -> FolderFiles:
             tops.append((p, entry.name))
         else:
             others.append((p, entry.name))
+    return runs, trajs, tops, others
 
+
+def _choose_frames(d: Path, runs: list[Path], trajs: list[Path], tops: _Named,
+                   out: FolderFiles) -> tuple[list[Path], _Named]:
+    """The frame files of the one run in the folder (a run file, the parts of one trajectory in its best
+    format, or a structure file), and the topologies left to choose from."""
     families: dict[str, list[Path]] = {}
     for p in trajs:
         families.setdefault(run_family(p), []).append(p)
@@ -107,12 +137,10 @@ def find_run_files(folder: str | Path) -> FolderFiles:
     if len(families) + len(runs) > 1:
         raise InputError(f"the folder holds {len(families) + len(runs)} candidate runs that are not parts of one "
                          f"run: {'; '.join(candidates)}. Name the files to open", path=d)
-    chosen: list[Path] = []
     if runs:
-        chosen = runs
         out.left_out += [(p, "a self-contained run file needs no topology") for p, _ in tops]
-        tops = []
-    elif families:
+        return runs, []
+    if families:
         (fam, ps), = families.items()
         best = min(_FORMAT_RANK.get(_suffix(p), 5) for p in ps)
         chosen = [p for p in ps if _FORMAT_RANK.get(_suffix(p), 5) == best]
@@ -121,37 +149,27 @@ def find_run_files(folder: str | Path) -> FolderFiles:
                 out.left_out.append((p, f"the same run as {chosen[0].name}, which "
                                         + ("stores velocities" if best <= 2 else "is preferred")
                                         + "; name the files to use this one instead"))
-    elif tops:
-        # no trajectory: a structure file (one frame) may still be a run
-        struct = [p for p, _ in tops if _suffix(p) in _STRUCTURE]
-        if struct:
-            chosen = [struct[-1]]
-            tops = [(p, n) for p, n in tops if p != chosen[0]]
-    top: Path | None = None
-    if tops and chosen and not runs:
-        fam = run_family(chosen[0])
+        return chosen, tops
+    # no trajectory: a structure file (one frame) may still be a run
+    struct = [p for p, _ in tops if _suffix(p) in _STRUCTURE]
+    if not struct:
+        return [], tops
+    return [struct[-1]], [(p, n) for p, n in tops if p != struct[-1]]
 
-        def rank(item: tuple[Path, str]) -> tuple[int, int, list]:
-            p, name = item
-            kind_rank = _TOPOLOGY_RANK.get(name, _TOPOLOGY_RANK.get(_suffix(p), 3))
-            return (0 if run_family(p) == fam else 1, kind_rank, natural_key(p))
 
-        ordered = sorted(tops, key=rank)
-        top = ordered[0][0]
-        for p, _ in ordered[1:]:
-            out.left_out.append((p, f"another topology ({top.name} taken)"))
-    if len(velocity_files) > 1:
-        raise InputError(f"the folder holds {len(velocity_files)} velocity files "
-                         f"({', '.join(p.name for p in velocity_files)}). Name the files to open", path=d)
-    out.paths = chosen + ([top] if top is not None else []) + (velocity_files if chosen else []) + \
-        [p for p, _ in others]
-    if not out.paths:
-        raise InputError("the folder holds no file of a run that we read"
-                         + (f" (found {', '.join(p.name for p, _ in out.left_out[:6])})" if out.left_out else ""),
-                         path=d)
-    took = ", ".join(p.name for p in out.paths)
-    note = f"run folder {d.resolve().name or d}: took {took}"
-    if out.left_out:
-        note += "; left out " + ", ".join(f"{p.name} ({why})" for p, why in out.left_out)
-    out.notes.append(note)
-    return out
+def _choose_topology(chosen: list[Path], tops: _Named, out: FolderFiles) -> Path:
+    """The topology of the run's family first, then by kind; the others go to ``out.left_out``."""
+    from phasewake.core.readers.parts import natural_key
+
+    fam = run_family(chosen[0])
+
+    def rank(item: tuple[Path, str]) -> tuple[int, int, list]:
+        p, name = item
+        kind_rank = _TOPOLOGY_RANK.get(name, _TOPOLOGY_RANK.get(_suffix(p), 3))
+        return (0 if run_family(p) == fam else 1, kind_rank, natural_key(p))
+
+    ordered = sorted(tops, key=rank)
+    top = ordered[0][0]
+    for p, _ in ordered[1:]:
+        out.left_out.append((p, f"another topology ({top.name} taken)"))
+    return top

@@ -97,6 +97,20 @@ def read_data(path: str | Path) -> DataFile:
     m = re.search(r"timestep\s*=\s*(\d+)", lines[0] if lines else "")
     if m:
         header_step = int(m.group(1))
+    counts, first_section = _header_counts(lines)
+    if "atoms" not in counts:
+        raise CorruptFileError("no 'N atoms' line in the header: not a LAMMPS data file", path=p)
+    sections = _sections(lines, first_section, p)
+    ids, types, molecules, style = _atoms(sections, counts["atoms"], p)
+    return DataFile(path=p, ids=ids, types=types, molecules=molecules, type_masses=_type_masses(sections, p),
+                    bonds=_bonds(sections, ids, p), atom_style=style, header_step=header_step)
+
+
+_Sections = dict[str, tuple[str, list[list[str]], int]]  # name -> (comment, rows, line number)
+
+
+def _header_counts(lines: list[str]) -> tuple[dict[str, int], int]:
+    """The header's "N atoms", "N bonds", ... counts, and the index of the first section's line."""
     counts: dict[str, int] = {}
     i = 1
     while i < len(lines):
@@ -107,10 +121,11 @@ def read_data(path: str | Path) -> DataFile:
         if cm:
             counts[cm.group(2).strip()] = int(cm.group(1))
         i += 1
-    if "atoms" not in counts:
-        raise CorruptFileError("no 'N atoms' line in the header: not a LAMMPS data file", path=p)
-    n_atoms = counts["atoms"]
-    sections: dict[str, tuple[str, list[list[str]], int]] = {}  # name -> (comment, rows, line number)
+    return counts, i
+
+
+def _sections(lines: list[str], i: int, p: Path) -> _Sections:
+    sections: _Sections = {}
     while i < len(lines):
         raw = lines[i]
         text = _strip(raw)
@@ -131,7 +146,11 @@ def read_data(path: str | Path) -> DataFile:
             rows.append(_strip(lines[i]).split())
             i += 1
         sections[name] = (comment, rows, start)
+    return sections
 
+
+def _atoms(sections: _Sections, n_atoms: int, p: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, str]:
+    """(atom ids in ascending order, their types, their molecules or None, the atom style) of the Atoms section."""
     if "Atoms" not in sections:
         raise MissingDataError("the data file has no Atoms section", path=p)
     comment, rows, line0 = sections["Atoms"]
@@ -164,37 +183,39 @@ def read_data(path: str | Path) -> DataFile:
     ids = table[:, 0].astype(np.int64)
     if np.any(np.diff(ids) == 0):
         raise CorruptFileError("the Atoms section lists an atom id twice", path=p)
-    types = table[:, type_col].astype(np.int64)
     molecules = None if mol_col is None else table[:, mol_col].astype(np.int64)
+    return ids, table[:, type_col].astype(np.int64), molecules, style
 
+
+def _type_masses(sections: _Sections, p: Path) -> dict[int, float]:
     type_masses: dict[int, float] = {}
-    if "Masses" in sections:
-        for r in sections["Masses"][1]:
-            try:
-                type_masses[int(r[0])] = float(r[1])
-            except (ValueError, IndexError) as exc:
-                raise CorruptFileError(f"Masses section: cannot read the row {' '.join(r)!r}", path=p) from exc
-        bad = {t: mval for t, mval in type_masses.items() if not (mval > 0 and np.isfinite(mval))}
-        if bad:
-            t, mval = next(iter(bad.items()))
-            raise CorruptFileError(f"Masses section: atom type {t} has mass {mval:g}; masses must be positive",
-                                   path=p)
-
-    bonds = np.zeros((0, 2), dtype=np.int64)
-    if "Bonds" in sections:
+    for r in sections["Masses"][1] if "Masses" in sections else []:
         try:
-            pairs = np.array([[int(r[2]), int(r[3])] for r in sections["Bonds"][1]], dtype=np.int64)
+            type_masses[int(r[0])] = float(r[1])
         except (ValueError, IndexError) as exc:
-            raise CorruptFileError("Bonds section: a row that is not 'id type atom1 atom2'", path=p) from exc
-        if pairs.size:
-            pos = np.searchsorted(ids, pairs)
-            pos_c = np.minimum(pos, ids.size - 1)
-            if np.any(ids[pos_c] != pairs):
-                raise CorruptFileError("Bonds section: a bond names an atom id the Atoms section does not have",
-                                       path=p)
-            bonds = pos_c
-    return DataFile(path=p, ids=ids, types=types, molecules=molecules, type_masses=type_masses, bonds=bonds,
-                    atom_style=style, header_step=header_step)
+            raise CorruptFileError(f"Masses section: cannot read the row {' '.join(r)!r}", path=p) from exc
+    bad = {t: mval for t, mval in type_masses.items() if not (mval > 0 and np.isfinite(mval))}
+    if bad:
+        t, mval = next(iter(bad.items()))
+        raise CorruptFileError(f"Masses section: atom type {t} has mass {mval:g}; masses must be positive", path=p)
+    return type_masses
+
+
+def _bonds(sections: _Sections, ids: np.ndarray, p: Path) -> np.ndarray:
+    """Bonded pairs as indices into ``ids`` (shape (M, 2))."""
+    if "Bonds" not in sections:
+        return np.zeros((0, 2), dtype=np.int64)
+    try:
+        pairs = np.array([[int(r[2]), int(r[3])] for r in sections["Bonds"][1]], dtype=np.int64)
+    except (ValueError, IndexError) as exc:
+        raise CorruptFileError("Bonds section: a row that is not 'id type atom1 atom2'", path=p) from exc
+    if not pairs.size:
+        return np.zeros((0, 2), dtype=np.int64)
+    pos = np.searchsorted(ids, pairs)
+    pos_c = np.minimum(pos, ids.size - 1)
+    if np.any(ids[pos_c] != pairs):
+        raise CorruptFileError("Bonds section: a bond names an atom id the Atoms section does not have", path=p)
+    return pos_c
 
 
 def _element_for_mass(mass: float) -> str | None:

@@ -24,13 +24,22 @@ from __future__ import annotations
 
 import io
 from collections.abc import Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, Run, budget_chunk_frames
+from phasewake.core.model.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    FrameChunk,
+    Run,
+    RunMetadata,
+    budget_chunk_frames,
+)
+from phasewake.core.readers.lammps_dump_index import DumpIndex, scan
 from phasewake.core.readers.lammps_units import UnitStyle
 
 DUMP_SUFFIXES = (".lammpstrj", ".lammpsdump", ".dump")
@@ -47,196 +56,6 @@ def claim(path: Path) -> bool:
     except OSError:
         return False
     return head.lstrip().startswith(b"ITEM:")
-
-
-@dataclass
-class _Index:
-    """What the opening scan learnt about every frame (before de-duplication of repeated steps)."""
-
-    offset: list[int] = field(default_factory=list)  # byte offset of the first atom row
-    end: list[int] = field(default_factory=list)  # byte offset after the last atom row
-    step: list[int] = field(default_factory=list)
-    n_atoms: list[int] = field(default_factory=list)
-    columns: list[int] = field(default_factory=list)  # index into column_sets
-    box: list[np.ndarray] = field(default_factory=list)  # (3, 3) edge vectors as rows, style length
-    origin: list[np.ndarray] = field(default_factory=list)  # (3,) box corner, style length
-    time: list[float | None] = field(default_factory=list)
-    units: list[str | None] = field(default_factory=list)
-    column_sets: list[tuple[str, ...]] = field(default_factory=list)
-
-
-def _box_from_bounds(rows: list[list[float]], triclinic: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Edge vectors (rows) and origin from the three BOX BOUNDS lines.
-
-    Triclinic dumps give the bounding box ``xlo_bound xhi_bound xy`` etc.; the box itself is
-    xlo = xlo_bound - min(0, xy, xz, xy + xz), xhi = xhi_bound - max(0, xy, xz, xy + xz),
-    ylo = ylo_bound - min(0, yz), yhi = yhi_bound - max(0, yz), with edges a = (lx, 0, 0),
-    b = (xy, ly, 0), c = (xz, yz, lz) (LAMMPS documentation, "Triclinic (non-orthogonal) simulation
-    boxes" and the dump command page; from memory, checked against a real triclinic dump in the tests).
-    """
-    (xlo, xhi, *t0), (ylo, yhi, *t1), (zlo, zhi, *t2) = rows
-    xy = xz = yz = 0.0
-    if triclinic:
-        xy, xz, yz = t0[0], t1[0], t2[0]
-        xlo -= min(0.0, xy, xz, xy + xz)
-        xhi -= max(0.0, xy, xz, xy + xz)
-        ylo -= min(0.0, yz)
-        yhi -= max(0.0, yz)
-    box = np.array([[xhi - xlo, 0.0, 0.0], [xy, yhi - ylo, 0.0], [xz, yz, zhi - zlo]])
-    return box, np.array([xlo, ylo, zlo])
-
-
-def _skip_lines(f: io.BufferedReader, pos: int, n: int, size: int, line_guess: float) -> tuple[int, int]:
-    """Byte offset after ``n`` more newlines from ``pos``, and how many were found (< n: file ended).
-
-    Newlines are counted with numpy over blocks of about the expected size, so skipping a frame costs a
-    read of its bytes and no Python loop over its rows. A last row without a newline at the very end of
-    the file counts as a row.
-    """
-    # fast path: the rows end where the next frame's "ITEM:" begins; count the newlines before it
-    # (bytes.find and bytes.count run in C: a 20,000-atom frame costs about its read)
-    span = int(min(size - pos, max(1 << 16, n * line_guess * 1.25 + 4096)))
-    f.seek(pos)
-    head = f.read(span)
-    item = head.find(b"ITEM:")
-    if item >= 0 and head.count(b"\n", 0, item) == n and (item == 0 or head[item - 1 : item] == b"\n"):
-        return pos + item, n
-    if item < 0 and pos + len(head) >= size and head.count(b"\n") == n and head.endswith(b"\n"):
-        return size, n
-    found = 0
-    p = pos
-    while found < n and p < size:
-        want = n - found
-        span = int(min(size - p, max(1 << 16, want * line_guess * 1.25 + 4096)))
-        f.seek(p)
-        buf = np.frombuffer(f.read(span), dtype=np.uint8)
-        nl = np.flatnonzero(buf == 10)
-        if nl.size >= want:
-            return p + int(nl[want - 1]) + 1, n
-        found += int(nl.size)
-        p += span
-    if found == n - 1 and p >= size and size > pos:
-        # the last row has no newline: a complete file written by hand, or a cut one (checked by the caller)
-        f.seek(max(pos, size - 1))
-        if f.read(1) != b"\n":
-            return size, n
-    return p, found
-
-
-def scan(path: Path) -> _Index:
-    """One pass over the dump: the frame index. Errors name the file, the frame and its step."""
-    idx = _Index()
-    size = path.stat().st_size
-    sets: dict[tuple[str, ...], int] = {}
-    line_guess = 40.0
-    with open(path, "rb") as f:
-        pos = 0
-        frame = 0
-        while pos < size:
-            f.seek(pos)
-            step: int | None = None
-            n: int | None = None
-            box = origin = None
-            time: float | None = None
-            units: str | None = None
-            cols: tuple[str, ...] | None = None
-            while cols is None:
-                line = f.readline()
-                if not line:
-                    if step is None and n is None and frame > 0 and not line.strip():
-                        return idx  # trailing blank lines
-                    raise CorruptFileError(f"file ends inside the header of frame {frame}"
-                                           + (f" (step {step})" if step is not None else "")
-                                           + ": truncated", path=path)
-                text = line.decode("utf-8", errors="replace").strip()
-                if not text:
-                    continue
-                if not text.startswith("ITEM:"):
-                    raise CorruptFileError(f"expected an 'ITEM:' line in the header of frame {frame}, found "
-                                           f"{text[:40]!r}", path=path)
-                item = text[5:].strip()
-                try:
-                    if item == "TIMESTEP":
-                        step = int(f.readline().split()[0])
-                    elif item == "NUMBER OF ATOMS":
-                        n = int(f.readline().split()[0])
-                    elif item == "TIME":
-                        time = float(f.readline().split()[0])
-                    elif item == "UNITS":
-                        units = f.readline().decode("utf-8", errors="replace").strip().lower()
-                    elif item.startswith("BOX BOUNDS"):
-                        flags = item.split()[2:]
-                        triclinic = len(flags) >= 3 and flags[:3] == ["xy", "xz", "yz"]
-                        rows = [[float(v) for v in f.readline().split()] for _ in range(3)]
-                        if any(len(r) < (3 if triclinic else 2) for r in rows):
-                            raise ValueError("box bounds line too short")
-                        box, origin = _box_from_bounds(rows, triclinic)
-                    elif item.startswith("ATOMS"):
-                        cols = tuple(item.split()[1:])
-                    else:
-                        raise CorruptFileError(f"unknown header item 'ITEM: {item[:30]}' in frame {frame}",
-                                               path=path)
-                except (ValueError, IndexError) as exc:
-                    raise CorruptFileError(f"cannot read 'ITEM: {item[:30]}' of frame {frame}"
-                                           + (f" (step {step})" if step is not None else "")
-                                           + f": truncated or damaged ({exc})", path=path) from exc
-            missing = [name for name, v in (("TIMESTEP", step), ("NUMBER OF ATOMS", n), ("BOX BOUNDS", box))
-                       if v is None]
-            if missing:
-                raise CorruptFileError(f"frame {frame} has no 'ITEM: {missing[0]}' before its atoms", path=path)
-            assert step is not None and n is not None and box is not None and origin is not None
-            if "id" not in cols:
-                raise MissingDataError(
-                    f"the dump has no 'id' column (ITEM: ATOMS {' '.join(cols)}): atoms cannot be matched "
-                    "from frame to frame. Write the dump with 'id' (dump custom ... id type x y z vx vy vz)",
-                    path=path)
-            if n < 0:
-                raise CorruptFileError(f"frame {frame} (step {step}) claims {n} atoms", path=path)
-            start = f.tell()
-            # Each row holds at least one character and a separator per column: a claimed atom count
-            # the remaining bytes cannot hold is a truncated file, found before anything is allocated.
-            if n * 2 * len(cols) > size - start + 1:
-                raise CorruptFileError(
-                    f"frame {frame} (step {step}) claims {n} atoms, more than the {size - start} bytes left in "
-                    "the file can hold: truncated or damaged", path=path)
-            end, got = _skip_lines(f, start, n, size, line_guess)
-            if got < n:
-                raise CorruptFileError(f"frame {frame} (step {step}) is cut short: {got} of {n} atom rows "
-                                       f"(the file is truncated; frames 0 to {frame - 1} are complete)"
-                                       if frame else f"frame 0 (step {step}) is cut short: {got} of {n} atom "
-                                       "rows (the file is truncated)", path=path)
-            if end == size and n:
-                _check_last_row(f, start, end, len(cols), path, frame, step)
-            if frame == 0 and n:
-                line_guess = max(4.0, (end - start) / n)
-            if cols not in sets:
-                sets[cols] = len(sets)
-                idx.column_sets.append(cols)
-            idx.offset.append(start)
-            idx.end.append(end)
-            idx.step.append(step)
-            idx.n_atoms.append(n)
-            idx.columns.append(sets[cols])
-            idx.box.append(box)
-            idx.origin.append(origin)
-            idx.time.append(time)
-            idx.units.append(units)
-            pos = end
-            frame += 1
-    if not idx.offset:
-        raise CorruptFileError("the dump holds no frame", path=path)
-    return idx
-
-
-def _check_last_row(f: io.BufferedReader, start: int, end: int, ncols: int, path: Path, frame: int,
-                    step: int) -> None:
-    """The file's last row must hold every column (a cut inside the last row leaves fewer fields)."""
-    f.seek(max(start, end - 4096))
-    tail = f.read(end - max(start, end - 4096))
-    last = tail.rstrip(b"\n").rsplit(b"\n", 1)[-1]
-    if len(last.split()) != ncols:
-        raise CorruptFileError(f"the last atom row of frame {frame} (step {step}) is cut short "
-                               f"({len(last.split())} of {ncols} fields): the file is truncated", path=path)
 
 
 _NUMERIC = frozenset(("id", "type", "x", "y", "z", "xu", "yu", "zu", "xs", "ys", "zs", "xsu", "ysu", "zsu",
@@ -269,7 +88,7 @@ class LammpsDumpFrames(ChunkedFrames):
 
     positions_precision_nm: float | None = None  # text: as many digits as the dump wrote (6 with %g)
 
-    def __init__(self, path: Path, index: _Index, keep: np.ndarray) -> None:
+    def __init__(self, path: Path, index: DumpIndex, keep: np.ndarray) -> None:
         self.path = path
         self._idx = index
         self._keep = keep  # file frame of each run frame
@@ -574,14 +393,26 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     (``run.metadata.timestep_ps``; for lj the log's time step in tau, ``extra["timestep_tau"]``), else
     the dump's ``ITEM: TIME``, else the step number (said so).
     """
-    from phasewake.core.readers import lammps_data
-    from phasewake.core.readers.common import check_time_axis
-    from phasewake.core.readers.lammps_units import style_from_text
-
     frames = run.frames
     info: LammpsTopology = frames.lammps  # type: ignore[union-attr]
-    md = run.metadata
     warnings: list[str] = []
+    style = _units_style(run.metadata, frames, info, stated, warnings)
+    frames.set_units(style)  # type: ignore[union-attr]
+    run.metadata.engine = run.metadata.engine or "LAMMPS"
+    _apply_time(run, style, info, warnings)
+    _apply_topology_and_masses(run, style, info, warnings)
+    if style.reduced:
+        warnings.append(f"{info.dump_path.name}: LAMMPS lj units are reduced: positions, times, velocities and "
+                        "masses are in sigma, tau, sigma/tau and m, shown as numbers without conversion "
+                        "(the labels nm, ps, amu do not apply)")
+    return warnings
+
+
+def _units_style(md: RunMetadata, frames: Any, info: LammpsTopology, stated: str | None,
+                 warnings: list[str]) -> UnitStyle:
+    """The style the log echoes or the user set, else the dump's ITEM: UNITS, else ``stated``; or refused."""
+    from phasewake.core.readers.lammps_units import style_from_text
+
     style = style_from_text(md.units_style)
     if md.units_style and style is None:
         raise MissingDataError(f"units style {md.units_style!r} is not a LAMMPS style (lj, real, metal, si, "
@@ -606,9 +437,16 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     if style is None:
         raise MissingDataError("the LAMMPS units style is not known: give log.lammps (it echoes 'units') with "
                                "the dump, or state it (--units real, metal, lj, ...)", path=info.dump_path)
-    frames.set_units(style)  # type: ignore[union-attr]
-    md.engine = md.engine or "LAMMPS"
-    steps = np.asarray(frames.steps, dtype=np.float64)  # type: ignore[union-attr]
+    return style
+
+
+def _apply_time(run: Run, style: UnitStyle, info: LammpsTopology, warnings: list[str]) -> None:
+    """Frame times: step x time step, else the dump's ITEM: TIME, else the step number (said so)."""
+    from phasewake.core.readers.common import check_time_axis
+
+    frames: Any = run.frames
+    md = run.metadata
+    steps = np.asarray(frames.steps, dtype=np.float64)
     dt = md.timestep_ps
     dt_source = md.sources.get("timestep_ps", "the run")
     if style.reduced and md.extra.get("timestep_tau") is not None and md.sources.get("timestep_ps") != "user":
@@ -616,7 +454,7 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     if dt is not None:
         t = steps * float(dt)
         md.extra["time_from"] = f"step x time step ({dt:g} {'tau' if style.reduced else 'ps'} from {dt_source})"
-    elif (dump_t := frames.dump_times()) is not None:  # type: ignore[union-attr]
+    elif (dump_t := frames.dump_times()) is not None:
         t = dump_t * style.time_ps
         md.extra["time_from"] = f"ITEM: TIME of {info.dump_path.name}"
     else:
@@ -624,11 +462,18 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
         md.extra["time_from"] = "step number"
         warnings.append(f"{info.dump_path.name}: the time step is not known, so time is the step number (not ps): "
                         "give log.lammps (it echoes 'timestep') or --timestep")
-    frames.retime(t)  # type: ignore[union-attr]
+    frames.retime(t)
     run.time_ps = np.asarray(t, dtype=np.float64)
     warnings.extend(check_time_axis(run.time_ps, path=info.dump_path, what="frame"))
 
+
+def _apply_topology_and_masses(run: Run, style: UnitStyle, info: LammpsTopology, warnings: list[str]) -> None:
+    """Topology from the data file, an mdtraj topology or the dump's columns; masses from the dump's mass
+    column, the data file's Masses, or the elements."""
+    from phasewake.core.readers import lammps_data
+
     masses = None
+    src = ""
     g_per_mol = style.name in ("real", "metal", "electron")
     if info.dump_masses is not None:
         masses, src = info.dump_masses * style.mass_amu, f"mass column of {info.dump_path.name}"
@@ -645,22 +490,17 @@ def finish_run(run: Run, stated: str | None = None) -> list[str]:
     if masses is None and run.topology is not None:
         from phasewake.core.readers.common import masses_from_topology
 
-        masses = masses_from_topology(run.topology, frames.n_atoms)  # type: ignore[union-attr]
+        masses = masses_from_topology(run.topology, run.frames.n_atoms)  # type: ignore[union-attr]
         src = "element masses of " + (info.top_path.name if info.mdtraj_top is not None and info.top_path
                                       else f"the element column of {info.dump_path.name}")
-    if masses is not None:
-        if not np.all(np.isfinite(masses)) or np.any(masses <= 0):
-            raise CorruptFileError("masses must be positive finite numbers", path=info.dump_path)
-        run.masses_amu = np.asarray(masses, dtype=np.float64)
-        md.sources["masses"] = src
-    else:
+    if masses is None:
         warnings.append(f"{info.dump_path.name}: masses unknown: give the LAMMPS data file (its Masses section), "
                         "or dump a mass or element column")
-    if style.reduced:
-        warnings.append(f"{info.dump_path.name}: LAMMPS lj units are reduced: positions, times, velocities and "
-                        "masses are in sigma, tau, sigma/tau and m, shown as numbers without conversion "
-                        "(the labels nm, ps, amu do not apply)")
-    return warnings
+        return
+    if not np.all(np.isfinite(masses)) or np.any(masses <= 0):
+        raise CorruptFileError("masses must be positive finite numbers", path=info.dump_path)
+    run.masses_amu = np.asarray(masses, dtype=np.float64)
+    run.metadata.sources["masses"] = src
 
 
 def _topology_of_types(types: np.ndarray | None, elements: list[str] | None,

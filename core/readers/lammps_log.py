@@ -336,6 +336,43 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
     warnings: list[str] = []
     blocks, state = _scan(text, path)
     warnings.extend(state["warnings"])
+    md = _md_blocks(blocks, state, path, warnings)
+    style = _units_style(md[-1].units, units_style, path, warnings)
+    st = STYLES[style]
+    lj = style == "lj"
+    common = _shared_columns(md, path, warnings)
+    vals, time = _rows_and_time(md, common, timestep_ps, style, path, warnings)
+    n_atoms = next((b.n_atoms for b in reversed(md) if b.n_atoms), None)
+    norm = md[-1].norm if md[-1].norm is not None else lj
+    builder = SeriesBuilder(path, column_roles, ROLES)
+    col = {n: vals[:, k] for k, n in enumerate(common)}
+    if norm and "Econserve" in col and "TotEng" in col and "Ecouple" in col and n_atoms:
+        col["Econserve"] = col["TotEng"] + col["Ecouple"] / n_atoms
+        warnings.append(f"{path.name}: energies are per atom (thermo_modify norm yes) but Ecouple is not divided "
+                        f"by the {n_atoms} atoms; Econserve rebuilt as TotEng + Ecouple / {n_atoms}")
+    elif norm and "Econserve" in col and not n_atoms:
+        del col["Econserve"]
+        warnings.append(f"{path.name}: Econserve left out: energies are per atom but the atom count is unknown")
+    _add_columns(builder, [(n, col[n]) for n in common[1:] if n in col and n not in _SKIP], style, norm, n_atoms,
+                 path, warnings)
+    if norm and not lj and n_atoms:
+        warnings.append(f"{path.name}: energies printed per atom (thermo_modify norm yes) are multiplied by the "
+                        f"{n_atoms} atoms")
+    table = EnergyTable(time_ps=time, series=builder.series, sources=(str(path),))
+    if lj:
+        warnings.append(f"{path.name}: LAMMPS lj reduced units: energies, temperature and time are kept in ε, "
+                        "ε/k_B and τ, not converted to kJ/mol, K and ps")
+    facts, fsrc, extra = _facts(md, style, st, norm, n_atoms, path, bool(units_style) and md[-1].units is None)
+    facts["engine"] = f"LAMMPS ({state['version']})" if state["version"] else "LAMMPS"
+    if "Econserve" in builder.series:
+        facts["conserved_quantity"] = "Econserve"
+    _check_time(table, path)
+    return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings,
+                        extra=extra)
+
+
+def _md_blocks(blocks: list[_Block], state: dict[str, Any], path: Path, warnings: list[str]) -> list[_Block]:
+    """The thermo blocks of MD runs that are read: all of them when they share one ensemble, else the last."""
     if state["multi"]:
         raise EnergyTableError("thermo output in the 'yaml' line layout is not read; rerun with the default "
                                "one-line layout (thermo_modify line one) or 'multi'", path=path)
@@ -350,8 +387,6 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
         if not b.complete:
             warnings.append(f"{path.name}: the thermo block from line {b.line} has no 'Loop time' line (the run "
                             "was stopped?); its rows are used")
-
-    # one ensemble: join; otherwise the last run
     ens = [_thermostat(b.fixes)[:2] for b in md]
     if len(set(ens)) > 1:
         left = md[:-1]
@@ -359,33 +394,41 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
                         f"{int(md[-1].values[0, 0])}) is read, the earlier {len(left)} (steps "
                         f"{int(left[0].values[0, 0])}-{int(left[-1].values[-1, 0])}) left out")
         md = md[-1:]
+    return md
 
-    # units style
-    style = md[-1].units
+
+def _units_style(shown: str | None, stated: str | None, path: Path, warnings: list[str]) -> str:
+    """The units style: the one the log shows, else the one stated, else LAMMPS' default 'lj'."""
+    style = shown
     if style is None:
-        if units_style:
-            style = units_style
-            warnings.append(f"{path.name}: the log shows no 'units' command; using '{units_style}' as stated")
+        if stated:
+            style = stated
+            warnings.append(f"{path.name}: the log shows no 'units' command; using '{stated}' as stated")
         else:
             style = "lj"
             warnings.append(f"{path.name}: the log shows no 'units' command: LAMMPS' default 'lj' (reduced units) "
                             "is assumed; state another with --units")
-    elif units_style and units_style != style:
-        warnings.append(f"{path.name}: the log says 'units {style}'; the stated '{units_style}' is not used")
+    elif stated and stated != style:
+        warnings.append(f"{path.name}: the log says 'units {style}'; the stated '{stated}' is not used")
     if style not in STYLES:
         raise EnergyTableError(f"unknown LAMMPS units style {style!r}", path=path)
-    st = STYLES[style]
-    lj = style == "lj"
+    return style
 
-    # columns the joined runs share
+
+def _shared_columns(md: list[_Block], path: Path, warnings: list[str]) -> list[str]:
     common = [n for n in md[0].names if all(n in b.names for b in md)]
     dropped = sorted({n for b in md for n in b.names} - set(common) - _SKIP)
     if dropped:
         warnings.append(f"{path.name}: column(s) {', '.join(dropped)} are not printed in every run; left out")
     if "Step" not in common:
         raise EnergyTableError("thermo blocks without a Step column", path=path)
+    return common
 
-    # rows: drop a run's first row when it repeats the previous run's last step; time = cumulative step x dt
+
+def _rows_and_time(md: list[_Block], common: list[str], timestep_ps: float | None, style: str, path: Path,
+                   warnings: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """The rows of every block (a run's first row dropped when it repeats the previous run's last step) and
+    their times: cumulative step x time step, in ps (or in tau for lj)."""
     cols: list[np.ndarray] = []
     times: list[np.ndarray] = []
     t_end = 0.0
@@ -400,37 +443,27 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
             v, step = v[1:], step[1:]
         if not step.size:
             continue
-        dt_native = b.dt if b.dt is not None else st["dt"]
+        dt_native = b.dt if b.dt is not None else STYLES[style]["dt"]
         dts.append(dt_native)
-        dt = float(timestep_ps) if timestep_ps is not None else (dt_native if lj else dt_native * to_ps)
+        dt = float(timestep_ps) if timestep_ps is not None else (dt_native if style == "lj" else dt_native * to_ps)
         base_step = last_step if last_step is not None else 0.0
         times.append(t_end + (step - base_step) * dt)
         t_end = float(times[-1][-1])
         last_step = float(step[-1])
         cols.append(v)
-    vals = np.concatenate(cols)
-    time = np.concatenate(times)
     if len(set(dts)) > 1:
         warnings.append(f"{path.name}: the time step changes between runs ({', '.join(f'{d:g}' for d in dts)}); "
                         "time is accumulated run by run")
+    return np.concatenate(cols), np.concatenate(times)
 
-    n_atoms = next((b.n_atoms for b in reversed(md) if b.n_atoms), None)
-    norm = md[-1].norm if md[-1].norm is not None else lj
-    builder = SeriesBuilder(path, column_roles, ROLES)
-    col = {n: vals[:, k] for k, n in enumerate(common)}
-    if norm and "Econserve" in col and "TotEng" in col and "Ecouple" in col and n_atoms:
-        col["Econserve"] = col["TotEng"] + col["Ecouple"] / n_atoms
-        warnings.append(f"{path.name}: energies are per atom (thermo_modify norm yes) but Ecouple is not divided "
-                        f"by the {n_atoms} atoms; Econserve rebuilt as TotEng + Ecouple / {n_atoms}")
-    elif norm and "Econserve" in col and not n_atoms:
-        del col["Econserve"]
-        warnings.append(f"{path.name}: Econserve left out: energies are per atom but the atom count is unknown")
-    for name in common[1:]:
-        if name not in col or name in _SKIP:
-            continue
-        v = col[name]
+
+def _add_columns(builder: SeriesBuilder, columns: list[tuple[str, np.ndarray]], style: str, norm: bool,
+                 n_atoms: int | None, path: Path, warnings: list[str]) -> None:
+    """Each thermo column with its unit: the style's, per atom times the atom count (norm yes), or lj labels."""
+    st = STYLES[style]
+    for name, v in columns:
         kind = _kind(name)
-        if lj:
+        if style == "lj":
             if kind is None:
                 builder.add(name, v, None, label="lj reduced units")
                 continue
@@ -447,20 +480,6 @@ def read_log(path: Path, *, column_roles: Mapping[str, str] | None = None, times
                 continue
             v = v * n_atoms
         builder.add(name, v, unit)
-    if norm and not lj and n_atoms:
-        warnings.append(f"{path.name}: energies printed per atom (thermo_modify norm yes) are multiplied by the "
-                        f"{n_atoms} atoms")
-    table = EnergyTable(time_ps=time, series=builder.series, sources=(str(path),))
-    if lj:
-        warnings.append(f"{path.name}: LAMMPS lj reduced units: energies, temperature and time are kept in ε, "
-                        "ε/k_B and τ, not converted to kJ/mol, K and ps")
-    facts, fsrc, extra = _facts(md, style, st, norm, n_atoms, path, bool(units_style) and md[-1].units is None)
-    facts["engine"] = f"LAMMPS ({state['version']})" if state["version"] else "LAMMPS"
-    if "Econserve" in builder.series:
-        facts["conserved_quantity"] = "Econserve"
-    _check_time(table, path)
-    return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings,
-                        extra=extra)
 
 
 def _kind(name: str) -> str | None:

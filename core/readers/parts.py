@@ -31,7 +31,14 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import TopologyMismatchError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, FrameSource, Run
+from phasewake.core.model.run import (
+    DEFAULT_CHUNK_FRAMES,
+    ChunkedFrames,
+    FrameChunk,
+    FrameSource,
+    Run,
+    RunMetadata,
+)
 
 
 @dataclass(frozen=True)
@@ -151,12 +158,47 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
     else:
         order = sorted(runs, key=lambda r: (float(r.time_ps[0]), natural_key(r.paths[0])))
     warnings: list[str] = []
-    overlaps: list[str] = []
+    keep, overlaps = ([len(r.time_ps) for r in order], []) if numbered else _kept_frames(order, clock)
+    pieces = [np.asarray(r.time_ps, dtype=np.float64)[:k] for r, k in zip(order, keep)]
     gaps: list[str] = []
+    if restarted:
+        time = _continued_clocks(pieces)
+        warnings.append(f"the parts start at the same time ({_at(min(starts), clock)}): each file restarts the "
+                        "clock (as OpenMM reporters do), so they are joined in the order of their file names "
+                        f"({', '.join(r.paths[0].name for r in order)}), each continuing the previous one's "
+                        "time; check that order")
+    elif numbered:
+        time = np.arange(sum(keep), dtype=np.float64)
+        warnings.append("the parts hold no time axis: they are joined in the order of their file names "
+                        f"({', '.join(r.paths[0].name for r in order)})")
+    else:
+        time = np.concatenate(pieces)
+        gaps = _gaps(order, pieces, clock)
+    parts = [Part(path=r.paths[0], frames=r.frames, time=np.asarray(r.time_ps), n_keep=k)  # type: ignore[arg-type]
+             for r, k in zip(order, keep)]
+    overlaps += [f"{p.path.name} is replaced entirely by later parts" for p in parts if p.n_keep == 0]
+    frames = PartsFrames(parts, time)
+    meta = _joined_metadata(order, parts, frames, numbered, clock, warnings)
+    meta.extra["overlaps"] = list(meta.extra.get("overlaps", [])) + overlaps
+    meta.extra["gaps"] = gaps
+    warnings += overlaps + gaps
+    for r in order:
+        warnings.extend(r.warnings)
+    top = next((r.topology for r in order if r.topology is not None), None)
+    joined = Run(name=order[0].name, paths=tuple(dict.fromkeys(p for r in order for p in r.paths)),
+                 topology=top, masses_amu=order[0].masses_amu, time_ps=time, frames=frames,
+                 energies=order[0].energies, metadata=meta, warnings=list(dict.fromkeys(warnings)))
+    return joined, warnings
+
+
+def _kept_frames(order: Sequence[Run], clock: str) -> tuple[list[int], list[str]]:
+    """Frames kept of each part in time order (those before the next part starts; a restart from an earlier
+    checkpoint replaces the frames it repeats), and what was replaced."""
     keep = []
+    overlaps = []
     for i, r in enumerate(order):
         t = np.asarray(r.time_ps, dtype=np.float64)
-        if numbered or i == len(order) - 1:
+        if i == len(order) - 1:
             keep.append(t.size)
             continue
         later_start = min(float(o.time_ps[0]) for o in order[i + 1 :])
@@ -170,37 +212,35 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
                             f"{r.paths[0].name} ended ({_at(float(t[-1]), clock)}): it {what} "
                             f"{dropped.size} frame(s) of {r.paths[0].name} ({_at(float(dropped[0]), clock)} to "
                             f"{_at(float(dropped[-1]), clock)}); the later part's frames are kept")
-    pieces = [np.asarray(r.time_ps, dtype=np.float64)[:k] for r, k in zip(order, keep)]
-    if restarted:
-        shifted = [pieces[0]]
-        for piece in pieces[1:]:
-            step = float(np.median(np.diff(piece))) if piece.size > 1 else float(np.median(np.diff(shifted[-1])))
-            shifted.append(piece - piece[0] + shifted[-1][-1] + step)
-        time = np.concatenate(shifted)
-        warnings.append(f"the parts start at the same time ({_at(min(starts), clock)}): each file restarts the "
-                        "clock (as OpenMM reporters do), so they are joined in the order of their file names "
-                        f"({', '.join(r.paths[0].name for r in order)}), each continuing the previous one's "
-                        "time; check that order")
-    elif numbered:
-        time = np.arange(sum(keep), dtype=np.float64)
-        warnings.append("the parts hold no time axis: they are joined in the order of their file names "
-                        f"({', '.join(r.paths[0].name for r in order)})")
-    else:
-        time = np.concatenate(pieces)
-        spacing = [float(np.median(np.diff(piece))) for piece in pieces if piece.size > 1]
-        typical = float(np.median(spacing)) if spacing else None
-        ends = [(r, p) for r, p in zip(order, pieces) if p.size]
-        for (ra, pa), (rb, pb) in zip(ends, ends[1:]):
-            if typical is not None and pb[0] - pa[-1] > 1.5 * typical:
-                gaps.append(f"gap of {_span(float(pb[0] - pa[-1]), clock)} between {ra.paths[0].name} (last frame "
-                            f"at {_at(float(pa[-1]), clock)}) and {rb.paths[0].name} (first frame at "
-                            f"{_at(float(pb[0]), clock)}); typical frame spacing {_span(typical, clock)}")
-    parts = [Part(path=r.paths[0], frames=r.frames, time=np.asarray(r.time_ps), n_keep=k)  # type: ignore[arg-type]
-             for r, k in zip(order, keep)]
-    for p in parts:
-        if p.n_keep == 0:
-            overlaps.append(f"{p.path.name} is replaced entirely by later parts")
-    frames = PartsFrames(parts, time)
+    return keep, overlaps
+
+
+def _continued_clocks(pieces: list[np.ndarray]) -> np.ndarray:
+    """Parts whose clocks restart: each continues the previous part's clock at its own frame spacing."""
+    shifted = [pieces[0]]
+    for piece in pieces[1:]:
+        step = float(np.median(np.diff(piece))) if piece.size > 1 else float(np.median(np.diff(shifted[-1])))
+        shifted.append(piece - piece[0] + shifted[-1][-1] + step)
+    return np.concatenate(shifted)
+
+
+def _gaps(order: Sequence[Run], pieces: list[np.ndarray], clock: str) -> list[str]:
+    """Gaps between parts wider than 1.5 typical frame spacings."""
+    spacing = [float(np.median(np.diff(piece))) for piece in pieces if piece.size > 1]
+    typical = float(np.median(spacing)) if spacing else None
+    ends = [(r, p) for r, p in zip(order, pieces) if p.size]
+    gaps = []
+    for (ra, pa), (rb, pb) in zip(ends, ends[1:]):
+        if typical is not None and pb[0] - pa[-1] > 1.5 * typical:
+            gaps.append(f"gap of {_span(float(pb[0] - pa[-1]), clock)} between {ra.paths[0].name} (last frame "
+                        f"at {_at(float(pa[-1]), clock)}) and {rb.paths[0].name} (first frame at "
+                        f"{_at(float(pb[0]), clock)}); typical frame spacing {_span(typical, clock)}")
+    return gaps
+
+
+def _joined_metadata(order: Sequence[Run], parts: list[Part], frames: PartsFrames, numbered: bool, clock: str,
+                     warnings: list[str]) -> RunMetadata:
+    """The first part's metadata, with the sources and extents of every part."""
     meta = order[0].metadata
     names = [r.paths[0].name for r in order]
     meta.sources["positions"] = " + ".join(names)
@@ -215,16 +255,7 @@ def join_runs(runs: Sequence[Run], *, clock: str = "ps") -> tuple[Run, list[str]
     meta.extra["parts"] = [f"{p.path.name}: {p.n_keep} of {p.frames.n_frames} frames"
                            + (f", {_at(float(p.time[0]), clock)} to {_at(float(p.time[p.n_keep - 1]), clock)}"
                               if p.n_keep and not numbered else "") for p in parts]
-    meta.extra["overlaps"] = list(meta.extra.get("overlaps", [])) + overlaps
-    meta.extra["gaps"] = gaps
-    warnings += overlaps + gaps
-    for r in order:
-        warnings.extend(r.warnings)
-    top = next((r.topology for r in order if r.topology is not None), None)
-    joined = Run(name=order[0].name, paths=tuple(dict.fromkeys(p for r in order for p in r.paths)),
-                 topology=top, masses_amu=order[0].masses_amu, time_ps=time, frames=frames,
-                 energies=order[0].energies, metadata=meta, warnings=list(dict.fromkeys(warnings)))
-    return joined, warnings
+    return meta
 
 
 def _at(value: float, clock: str) -> str:

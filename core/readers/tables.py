@@ -150,16 +150,7 @@ def read_table(
     time = None
     step = None
     for k, header_name in enumerate(names):
-        name, unit_text = split_header(header_name)
-        role = role_for(name)
-        given = overrides.get(header_name, overrides.get(name))
-        if given is not None:
-            role_text, role_unit = split_header(given)
-            role = role_text.strip()
-            if role not in ENERGY_ROLES:
-                raise EnergyTableError(f"column role {role!r} for {name!r} is not one of {', '.join(ENERGY_ROLES)}",
-                                       path=path)
-            unit_text = role_unit or unit_text
+        name, role, unit_text = _role_and_unit(header_name, overrides, path)
         col = values[k]
         if role == "step":
             step = col
@@ -191,12 +182,7 @@ def read_table(
         key = name if name not in series else f"{name} ({k + 1})"
         series[key] = Series(name=key, values=conv, unit=u.internal, role=role, source=f"{path.name}:{name}")
     if time is None:
-        if step is not None and timestep_ps is not None:
-            time = step * timestep_ps
-            warnings.append(f"{path.name}: no time column; time = step x {timestep_ps:g} ps")
-        else:
-            time = np.arange(values.shape[1], dtype=np.float64)
-            warnings.append(Caveat(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)", NUMBERED_ROWS))
+        time = _time_without_column(step, timestep_ps, values.shape[1], path, warnings)
     _check_rows(time, line_numbers, path)
     # restarts glued into the table: the later segment is kept (as engines do), each join reported
     keep, joins, join_words = resolve_restarts(time, path=path, what="row", line_numbers=line_numbers)
@@ -206,6 +192,32 @@ def read_table(
         warnings.extend(join_words)
     warnings.extend(_gap_warnings(time, line_numbers, path))
     return EnergyTable(time_ps=time, series=series, sources=(str(path),), joins=joins), warnings
+
+
+def _time_without_column(step: np.ndarray | None, timestep_ps: float | None, n_rows: int, path: Path,
+                         warnings: list[str]) -> np.ndarray:
+    """A table without a time column: step x time step when both are known, else the row numbers."""
+    if step is not None and timestep_ps is not None:
+        warnings.append(f"{path.name}: no time column; time = step x {timestep_ps:g} ps")
+        return step * timestep_ps
+    warnings.append(Caveat(f"{path.name}: no time column; rows are numbered 0, 1, 2, ... (not ps)", NUMBERED_ROWS))
+    return np.arange(n_rows, dtype=np.float64)
+
+
+def _role_and_unit(header_name: str, overrides: Mapping[str, str], path: Path) -> tuple[str, str, str | None]:
+    """(column name, role, unit text or None) of a header field: its role by name unless the user gave one
+    (with a unit maybe: "potential (kcal/mol)")."""
+    name, unit_text = split_header(header_name)
+    role = role_for(name)
+    given = overrides.get(header_name, overrides.get(name))
+    if given is not None:
+        role_text, role_unit = split_header(given)
+        role = role_text.strip()
+        if role not in ENERGY_ROLES:
+            raise EnergyTableError(f"column role {role!r} for {name!r} is not one of {', '.join(ENERGY_ROLES)}",
+                                   path=path)
+        unit_text = role_unit or unit_text
+    return name, role, unit_text
 
 
 def _check_rows(time: np.ndarray, line_numbers: np.ndarray, path: Path) -> None:
