@@ -41,7 +41,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     import pyqtgraph as pg
     from PySide6 import QtCore, QtWidgets
 
-    from phasewake.app.window.main import MainWindow
+    from phasewake.app.window.main import MainWindow, delete_now
     from phasewake.app.window.model import RunSettings
 
     pg.setConfigOptions(antialias=True, background="w", foreground="k")
@@ -64,6 +64,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
         win.open_runs([(group, topology, settings) for group in group_runs(paths)])
     if smoke_test:
         code = _smoke(app, win, smoke_timeout_s)
+        delete_now(win)
         if scratch is not None:
             scratch.cleanup()
         return code
@@ -81,6 +82,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
         sys.stdout.flush()
         sys.stderr.flush()
         os._exit(code)
+    delete_now(win)  # a host program (or a test) that launches again starts with no dead window to tear down
     return code
 
 

@@ -121,13 +121,12 @@ def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:
                                for k, v in table.series.items()})
 
 
-def _relay(work: Any, lo: float, hi: float, total: float, label: str) -> Generator[Progress, None, Any]:
-    """Re-yield an inner generator's progress scaled into [lo, hi] of ``total``; return its result."""
+def _labelled(work: Work[Any], label: str) -> Work[Any]:
+    """``work`` with ``label`` before each progress message (the status line says what is running); its result."""
     try:
         while True:
             p = next(work)
-            frac = p.fraction if p.fraction is not None else 0.0
-            yield Progress(lo + (hi - lo) * frac, total, f"{label}: {p.message}" if p.message else label)
+            yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
     except StopIteration as stop:
         return stop.value
 
@@ -159,7 +158,7 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
         return hit[1]
     # through the on-disk result cache: reopening a run reads no frames
     work = cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache())
-    series = yield from _relay(work, 0, 1, 1, f"coordinate {spec}")
+    series = yield from _labelled(work, f"coordinate {spec}")
     with _CACHE_LOCK:
         _CACHE[key] = (run, series[0])
         while len(_CACHE) > _CACHE_SIZE:
@@ -244,7 +243,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
     yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    res = yield from _relay(requested(run, AuditRequest()), 0, 1, 1, "audit")  # the key shared_frames_job uses
+    res = yield from _labelled(requested(run, AuditRequest()), "audit")  # the key shared_frames_job uses
     figs = plots.figures_for(res)
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
@@ -314,8 +313,7 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     except PhasewakeError:
         return PanelResult()  # a bad coordinate: the panels say so themselves
     try:
-        yield from _relay(cached.cached_pass(run, items, cache=cache, load_hits=False), 0, 1, 1,
-                          "one read of the frames")
+        yield from _labelled(cached.cached_pass(run, items, cache=cache, load_hits=False), "one read of the frames")
     except PhasewakeError:
         pass  # each panel runs its own analysis and reports what went wrong
     return PanelResult()
@@ -333,7 +331,7 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                                    "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
     work = cached.cached_pca(sub, cache=window_cache(), **settings)  # shared_frames_job's key
-    pca = yield from _relay(work, 0, 1, 1, "principal components")
+    pca = yield from _labelled(work, "principal components")
     traces: dict[str, Trace] = {}
     coords_text = plots.atoms_text(group)
     solute = coordinates.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
@@ -408,10 +406,10 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     if run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
         yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
         sub = window_run(run, ctx.start, ctx.stop)
-        v = yield from _relay(through_cache(sub, "vacf", {}, velocity.vacf(sub)), 0, 1, 1, "VACF")
+        v = yield from _labelled(through_cache(sub, "vacf", {}, velocity.vacf(sub)), "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _relay(through_cache(sub, "spectrum", {}, velocity.vibrational_spectrum(sub)), 0, 1, 1,
-                              "vibrational spectrum")
+        d = yield from _labelled(through_cache(sub, "spectrum", {}, velocity.vibrational_spectrum(sub)),
+                                 "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
@@ -527,7 +525,7 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     request = crossings.CrossingsRequest(coordinate=ctx.coordinate, states=states, surface=surface, start=start,
                                          stop=stop)
     # the series is already here (the panel draws it): the request's second step on it, under its own key
-    res = yield from _relay(requested(ctx.run, request, request.analyse([ctx.run], [s])), 0, 1, 1, "crossings")
+    res = yield from _labelled(requested(ctx.run, request, request.analyse([ctx.run], [s])), "crossings")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
     figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + plots.figures_for(res)
