@@ -13,6 +13,7 @@ from scipy.signal import lfilter
 
 from phasewake.core.analyses import correlation as C
 from phasewake.core.analyses import verdicts
+from phasewake.core.analyses.correlation import inefficiency as CI
 from phasewake.core.errors import AnalysisError, TooShortError
 
 
@@ -208,9 +209,9 @@ def test_direct_lag_sums_give_the_fft_route_g(monkeypatch, phi, method):
     # The direct route must give the g of the FFT route (the previous float64 route), to rounding:
     # each estimator stops at the first lag meeting its rule, so the lag window does not matter.
     x = ar1(phi, 300_000, seed=21)
-    assert C._direct_estimate(np.asarray(x), None, method, 5.0) is not None  # the direct route is taken
+    assert CI._direct_estimate(np.asarray(x), None, method, 5.0) is not None  # the direct route is taken
     g_direct = C.statistical_inefficiency(x, method=method)
-    monkeypatch.setattr(C, "_DIRECT_LAGS", 0)
+    monkeypatch.setattr(CI, "_DIRECT_LAGS", 0)
     g_fft = C.statistical_inefficiency(x, method=method)
     assert g_direct == pytest.approx(g_fft, rel=1e-12)
     # and the analytic AR(1) value g = (1 + phi) / (1 - phi) (Priestley 1981), clipped at 1 as documented;
@@ -220,7 +221,7 @@ def test_direct_lag_sums_give_the_fft_route_g(monkeypatch, phi, method):
 
 def test_long_memory_series_falls_back_to_fft():
     x = ar1(0.95, 100_000, seed=22)  # g = 39: Sokal's window lies far beyond 32 lags
-    assert C._direct_estimate(np.asarray(x), None, "sokal", 5.0) is None
+    assert CI._direct_estimate(np.asarray(x), None, "sokal", 5.0) is None
     assert C.statistical_inefficiency(x) == pytest.approx(39.0, rel=0.25)  # analytic AR(1) g
 
 
