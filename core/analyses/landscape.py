@@ -22,14 +22,20 @@ These are descriptions of the sampled data; whether a profile is converged is th
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import Any
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.progress import Progress, Work
 from phasewake.core.units import KB_KJ_PER_MOL_K
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
 
 
 def auto_bins(values: np.ndarray, *, min_bins: int = 10, max_bins: int = 200,
@@ -463,3 +469,87 @@ def free_energy_of_series(series: Any, *, temperature_K: float, jacobian: str = 
         jacobian = jacobian_of(series.spec)
     return free_energy_profile(series.values, temperature_K=temperature_K, jacobian=jacobian, n_blocks=n_blocks,
                                bins=bins, unit=series.unit, min_depth_kT=min_depth_kT)
+
+
+# ---------------------------------------------------------------------------------------------------
+# The temperature of a run and the request of every front end
+# ---------------------------------------------------------------------------------------------------
+
+UNKNOWN_TEMPERATURE = ("the temperature is unknown (no thermostat target in the files and no temperature column); "
+                       "state it: --temperature on the command line, the thermostat temperature in the window's "
+                       "Runs list")
+
+
+def run_temperature(run: Run) -> tuple[float | None, str]:
+    """The temperature (K) of ``run`` for kT, and where it comes from; ``(None, why)`` when unknown.
+
+    The run's own statement first (the thermostat target from its files, or a temperature stated when it
+    was opened), else the mean kinetic temperature of its energy table. Never a guess: with neither, the
+    temperature is unknown and whatever needs kT says so.
+    """
+    if run.metadata.temperature_K:
+        return float(run.metadata.temperature_K), "thermostat target of the run"
+    if run.energies is not None:
+        s = run.energies.by_role("temperature")
+        if s is not None:
+            v = np.asarray(s.values, dtype=float)
+            if np.isfinite(v).any():
+                return float(np.nanmean(v)), "mean kinetic temperature in the energy table"
+    return None, UNKNOWN_TEMPERATURE
+
+
+JACOBIANS = ("none", "auto")
+
+
+def resolve_jacobian(jacobian: str, coordinate: str) -> str:
+    """``"none"``, or for ``"auto"`` the Jacobian of the parsed specification (:func:`jacobian_of`)."""
+    if jacobian not in JACOBIANS:
+        raise AnalysisError(f"unknown jacobian {jacobian!r}: use one of {', '.join(JACOBIANS)}")
+    return jacobian_of(coordinate) if jacobian == "auto" else "none"
+
+
+@dataclass(frozen=True)
+class LandscapeRequest(AnalysisRequest):
+    """The free-energy profile -kT ln P(q) of ``coordinate`` over frames [start, stop): one request for the
+    command line, the window and the report.
+
+    Decided here: the temperature (``temperature_K`` when given, else :func:`run_temperature`; unknown is
+    an error that says how to state it, never a guess) and the Jacobian: ``"none"`` by default, the same
+    profile the crossings analysis suggests its states from (:class:`phasewake.core.analyses.crossings.
+    CrossingsRequest`), so the barriers of both agree; ``"auto"`` applies 4 pi r^2 to a distance (from the
+    parsed specification). ``chunk_frames`` only sets the reading (not part of the cache key).
+    """
+
+    name: ClassVar[str] = "landscape"
+    label: ClassVar[str] = "free-energy profile"
+
+    coordinate: str
+    jacobian: str = "none"
+    temperature_K: float | None = None
+    bins: int | None = None
+    n_blocks: int = 10
+    min_depth_kT: float = 1.0
+    start: int = 0
+    stop: int | None = None
+    chunk_frames: int | None = field(default=None, compare=False)
+
+    def settings(self) -> Mapping[str, Any]:
+        out = dict(super().settings())
+        del out["chunk_frames"]
+        return out
+
+    def work(self, run: Run) -> Work[FreeEnergyProfile]:
+        from phasewake.core.analyses.coordinates import compute_coordinates
+
+        jacobian = resolve_jacobian(self.jacobian, self.coordinate)
+        temp = self.temperature_K if self.temperature_K is not None else run_temperature(run)[0]
+        if temp is None:
+            raise AnalysisError(f"no free-energy profile: {UNKNOWN_TEMPERATURE}")
+        series = yield from compute_coordinates(run, [self.coordinate], start=self.start, stop=self.stop,
+                                                chunk_frames=self.chunk_frames)
+        s = series[0]
+        v = np.asarray(s.values, dtype=float)
+        yield Progress(1, 1, "free-energy profile")
+        return free_energy_profile(v[np.isfinite(v)], temperature_K=float(temp), bins=self.bins,
+                                   n_blocks=self.n_blocks, jacobian=jacobian, unit=s.unit,
+                                   min_depth_kT=self.min_depth_kT)

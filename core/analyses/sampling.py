@@ -1,9 +1,6 @@
 """Sampling adequacy and ergodicity diagnostics.
 
-* Thirumalai-Mountain fluctuation metric Omega(t) of per-particle time averages: an effectively
-  ergodic run decays as Omega(t)/Omega(0) ~ 1/(D t); a non-ergodic one plateaus (D. Thirumalai,
-  R. D. Mountain and T. R. Kirkpatrick, Phys. Rev. A 39, 3563 (1989); R. D. Mountain and
-  D. Thirumalai, J. Phys. Chem. 93, 6975 (1989)).
+* Thirumalai-Mountain fluctuation metric (in :mod:`phasewake.core.analyses.ergodicity`, names kept here).
 * Histogram divergence (Jensen-Shannon, J. Lin, IEEE Trans. Inf. Theory 37, 145 (1991)) between halves
   or segments of a run, with the level expected from noise alone for the effective sample size.
 * Rank-normalised split R-hat with folding (A. Vehtari, A. Gelman, D. Simpson, B. Carpenter and
@@ -19,15 +16,22 @@ All diagnostics here are heuristics (see :data:`phasewake.core.analyses.verdicts
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
 from phasewake.core.analyses import verdicts
-from phasewake.core.analyses.correlation import statistical_inefficiency
-from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
+from phasewake.core.analyses.correlation import Method, statistical_inefficiency
+from phasewake.core.analyses.correlation.request import Series1D, read_series, sample_spacing
+from phasewake.core.analyses.ergodicity import TMAccumulator as TMAccumulator
+from phasewake.core.analyses.ergodicity import TMResult as TMResult
+from phasewake.core.analyses.ergodicity import judge_tm as judge_tm
+from phasewake.core.analyses.ergodicity import thirumalai_mountain as thirumalai_mountain
+from phasewake.core.analyses.ergodicity import thirumalai_mountain_kinetic as thirumalai_mountain_kinetic
+from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -75,174 +79,6 @@ verdicts.register(
         "transitions, drift). Extend the run or use enhanced sampling; compare replicas.",
     ),
 )
-
-verdicts.register(
-    verdicts.Threshold(
-        kind="sampling.tm_slope", caution=-0.7, problem=-0.3, unit="log-log slope",
-        source="common practice (the Thirumalai-Mountain metric decays with slope -1 when effectively ergodic)",
-        description="late-time log-log slope of the Thirumalai-Mountain metric",
-    ),
-    verdicts.Explanation(
-        title="Thirumalai-Mountain metric",
-        what="Spread between the time averages of equivalent particles (their energies, kinetic energies or "
-        "a chosen coordinate). In an effectively ergodic run every particle sees the same average and the "
-        "spread falls as 1/(D t).",
-        method="Omega(t) = mean_j (eps_j(t) - <eps(t)>)^2 of running time averages (Thirumalai, Mountain "
-        "and Kirkpatrick, Phys. Rev. A 39, 3563 (1989)); slope of log Omega against log t at late times "
-        "and a fit of Omega(0)/Omega(t) = D t + b.",
-        threshold="caution when the late slope is flatter than -0.7, problem when flatter than -0.3 "
-        "(common practice; ergodic decay has slope -1).",
-        advice="A plateau means particles do not exchange their environments on the time scale of the run "
-        "(a glassy or trapped system, or particles that are not equivalent). Check that the particles "
-        "compared are equivalent; run longer.",
-    ),
-)
-
-
-# ---------------------------------------------------------------------------------------------------
-# Thirumalai-Mountain
-# ---------------------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class TMResult:
-    """Thirumalai-Mountain metric over time.
-
-    omega : (T,) Omega(t) in ``unit``^2; ratio : (T,) Omega(t)/Omega(0) with Omega(0) the
-    instantaneous spread between particles averaged over frames.
-    """
-
-    time_ps: np.ndarray
-    omega: np.ndarray
-    omega0: float
-    ratio: np.ndarray
-    d_per_ps: float  # fitted D of Omega(0)/Omega(t) = D t + b over the fit range
-    late_slope: float  # d log Omega / d log t over the fit range
-    plateau: bool  # late slope flatter than the caution threshold
-    fit_range_ps: tuple[float, float]
-    n_particles: int
-    unit: str
-    quantity: str
-    settings: dict[str, Any] = field(default_factory=dict)
-
-
-class TMAccumulator:
-    """Streaming Thirumalai-Mountain metric: feed (n, N) per-particle values chunk by chunk."""
-
-    def __init__(self) -> None:
-        self._sum: np.ndarray | None = None
-        self._count = 0
-        self._omega: list[np.ndarray] = []
-        self._inst_sum = 0.0
-
-    def update(self, values: np.ndarray) -> None:
-        e = np.asarray(values, dtype=np.float64)
-        if e.ndim != 2:
-            raise AnalysisError("per-particle values must have shape (n_frames, n_particles)")
-        if self._sum is None:
-            self._sum = np.zeros(e.shape[1])
-        cs = self._sum + np.cumsum(e, axis=0)
-        counts = self._count + np.arange(1, e.shape[0] + 1)
-        avg = cs / counts[:, None]
-        self._omega.append(avg.var(axis=1))
-        self._inst_sum += float(e.var(axis=1).sum())
-        self._sum = cs[-1]
-        self._count += e.shape[0]
-
-    def finish(self, *, dt_ps: float, fit_range_ps: tuple[float, float] | None = None, unit: str = "",
-               quantity: str = "", n_particles: int = 0) -> TMResult:
-        if self._count < 8:
-            raise TooShortError("the Thirumalai-Mountain metric", have=self._count, need=8)
-        omega = np.concatenate(self._omega)
-        omega0 = self._inst_sum / self._count
-        if not omega0 > 0:
-            raise AnalysisError("the particles' values do not differ: the Thirumalai-Mountain metric is undefined")
-        t = (np.arange(omega.size) + 1) * dt_ps  # the average over the first k frames covers k dt
-        lo, hi = fit_range_ps if fit_range_ps is not None else (0.1 * t[-1], t[-1])
-        sel = (t >= lo) & (t <= hi) & (omega > 0)
-        if sel.sum() < 3:
-            raise AnalysisError("the Thirumalai-Mountain fit range holds fewer than three points")
-        ratio = omega / omega0
-        inv = 1.0 / ratio[sel]
-        d, b = np.polyfit(t[sel], inv, 1)
-        slope = float(np.polyfit(np.log(t[sel]), np.log(omega[sel]), 1)[0])
-        thr = verdicts.THRESHOLDS["sampling.tm_slope"]
-        return TMResult(time_ps=t, omega=omega, omega0=omega0, ratio=ratio, d_per_ps=float(d),
-                        late_slope=slope, plateau=slope > thr.caution, fit_range_ps=(float(lo), float(hi)),
-                        n_particles=n_particles, unit=unit, quantity=quantity,
-                        settings={"fit_range_ps": fit_range_ps})
-
-
-def thirumalai_mountain(values: np.ndarray, *, dt_ps: float, fit_range_ps: tuple[float, float] | None = None,
-                        unit: str = "", quantity: str = "per-particle values") -> TMResult:
-    """Thirumalai-Mountain metric of per-particle series.
-
-    Parameters
-    ----------
-    values : ndarray, shape (T, N)
-        One series per particle (energy in kJ/mol, or any per-particle quantity in ``unit``).
-    dt_ps : float
-        Frame spacing (ps).
-    fit_range_ps : (float, float), optional
-        Range for the late-time fits; default the last 90% of the run.
-
-    Returns
-    -------
-    TMResult
-        ``d_per_ps`` is D_e in Omega(0)/Omega(t) = D_e t; for independent stationary series with
-        statistical inefficiency g, D_e = 1 / (g dt).
-    """
-    e = np.asarray(values, dtype=np.float64)
-    if e.ndim != 2 or e.shape[1] < 2:
-        raise AnalysisError("the Thirumalai-Mountain metric needs values of shape (n_frames, n_particles >= 2)")
-    acc = TMAccumulator()
-    for i in range(0, e.shape[0], 65536):
-        acc.update(e[i : i + 65536])
-    return acc.finish(dt_ps=dt_ps, fit_range_ps=fit_range_ps, unit=unit, quantity=quantity, n_particles=e.shape[1])
-
-
-def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.ndarray | None = None,
-                                fit_range_ps: tuple[float, float] | None = None, chunk_frames: int = 256,
-                                start: int = 0, stop: int | None = None, stride: int = 1) -> Work[TMResult]:
-    """TM metric of per-atom kinetic energies (1/2 m v^2, kJ/mol) of a run, streamed.
-
-    Use atoms that are equivalent (one species); the metric compares their time averages.
-    """
-    if run.frames is None or not run.frames.has_velocities:
-        raise MissingDataError("the Thirumalai-Mountain metric of kinetic energies needs velocities",
-                               path=run.paths[0] if run.paths else None)
-    idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
-    if idx.size < 2:
-        raise AnalysisError("the Thirumalai-Mountain metric needs at least two atoms")
-    m = np.asarray(run.masses_amu, float)[idx]
-    t = np.asarray(run.time_ps)[start:stop:stride]
-    if t.size < 2:
-        raise TooShortError("the Thirumalai-Mountain metric", have=int(t.size), need=8)
-    dt = float(np.median(np.diff(t)))
-    acc = TMAccumulator()
-    done = 0
-    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                        atom_indices=idx, velocities=True, positions=False):
-        v = chunk.velocities_nm_per_ps
-        if v is None:
-            raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
-        ke = 0.5 * m[None, :] * np.einsum("fnc,fnc->fn", v.astype(np.float64), v.astype(np.float64))
-        acc.update(ke)
-        done += chunk.n_frames
-        yield Progress(done, t.size, "Thirumalai-Mountain metric")
-    return acc.finish(dt_ps=dt, fit_range_ps=fit_range_ps, unit="kJ/mol", quantity="kinetic energy per atom",
-                      n_particles=int(idx.size))
-
-
-def judge_tm(result: TMResult) -> verdicts.Verdict:
-    return verdicts.judge(
-        "sampling.tm_slope", result.late_slope, title="Thirumalai-Mountain metric", unit="log-log slope",
-        message=f"The spread between time averages of {result.n_particles} particles ({result.quantity}) falls "
-        f"with late log-log slope {result.late_slope:.2f} (ergodic decay: -1). " + verdicts.HEURISTIC_NOTE,
-        advice=verdicts.EXPLANATIONS["sampling.tm_slope"].advice,
-        details={"d_per_ps": result.d_per_ps},
-    )
-
 
 # ---------------------------------------------------------------------------------------------------
 # Histogram divergence
@@ -676,3 +512,90 @@ def coverage_over_time(x: Any, y: Any, *, dt_ps: float = 1.0, bins: int = 50,
     return CoverageResult(time_ps=ks * float(dt_ps), fraction=cum[ks - 1], x_edges=xe, y_edges=ye, visits=visits,
                           settings={"bins": bins, "x_range": xr, "y_range": yr, "n_sigma": n_sigma})
 
+
+# ---------------------------------------------------------------------------------------------------
+# The request of every front end
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SamplingReport:
+    """What :class:`SamplingRequest` finds for one series (None where the series is too short for it)."""
+
+    name: str
+    unit: str
+    running: RunningAverage
+    rhat_segments: RhatResult | None
+    divergence: DivergenceResult | None
+    coverage: CoverageResult | None  # of (q, p) for a coordinate with a momentum
+    rhat_replicas: RhatResult | None
+    verdicts: tuple[verdicts.Verdict, ...]  # R-hat over segments, divergence, R-hat across replicas
+
+
+@dataclass(frozen=True)
+class SamplingRequest(AnalysisRequest):
+    """Running average (g-corrected band), R-hat over ``segments`` contiguous segments, the half-against-half
+    divergence (``bins``), the (q, p) coverage of a coordinate, and R-hat across ``replicas`` of one series
+    (an energy column ``series`` or a ``coordinate``; see :func:`phasewake.core.analyses.correlation.request.
+    read_series`). g of the band by ``method`` over at most ``max_lag_ps``."""
+
+    name: ClassVar[str] = "sampling"
+    label: ClassVar[str] = "sampling"
+
+    series: str = ""
+    coordinate: str = ""
+    segments: int = 4
+    bins: int = 50
+    method: Method = "auto"
+    max_lag_ps: float | None = None
+    replicas: tuple[Run, ...] = ()
+    start: int = 0
+    stop: int | None = None
+    chunk_frames: int | None = field(default=None, compare=False)
+
+    def settings(self) -> Mapping[str, Any]:
+        out = dict(super().settings())
+        del out["chunk_frames"]
+        return out
+
+    def _read(self, run: Run) -> Work[Series1D]:
+        return (yield from read_series(run, series=self.series, coordinate=self.coordinate, start=self.start,
+                                       stop=self.stop, chunk_frames=self.chunk_frames))
+
+    def work(self, run: Run) -> Work[SamplingReport]:
+        s = yield from self._read(run)
+        chains = [s.values]
+        for rep in self.replicas:
+            chains.append((yield from self._read(rep)).values)
+        yield Progress(0, 1, f"sampling of {s.name}")
+        return self.analyse(s, chains[1:])
+
+    def analyse(self, s: Series1D, replica_values: list[np.ndarray]) -> SamplingReport:
+        """The numbers of a series already read (and of the same series in each replica)."""
+        x = s.values
+        dt = sample_spacing(s.time_ps, f"series {s.name}")
+        max_lag = None if self.max_lag_ps is None else max(1, int(round(self.max_lag_ps / dt)))
+        seg = max(2, int(self.segments))
+        rh = rhat_segments(x, n_segments=seg) if x.size >= 4 * seg else None
+        div = segment_divergence(x, n_segments=2, bins=self.bins) if x.size >= 20 and np.ptp(x) > 0 else None
+        g = statistical_inefficiency(x, method=self.method, max_lag=max_lag)
+        mom = s.momentum
+        cov = None
+        if mom is not None and mom.shape == x.shape and np.all(np.isfinite(mom)) and np.ptp(mom) > 0:
+            cov = coverage_over_time(x, mom, dt_ps=dt, bins=self.bins)
+        rep = _replica_rhat([x, *replica_values]) if replica_values else None
+        found = [judge_rhat(rh, name=f"{s.name} ({seg} segments)") if rh is not None else None,
+                 judge_divergence(div, name=s.name) if div is not None else None,
+                 judge_rhat(rep, name=f"{s.name} across {rep.n_chains} replicas") if rep is not None else None]
+        return SamplingReport(name=s.name, unit=s.unit, running=running_average(x, dt_ps=dt, g=g, unit=s.unit),
+                              rhat_segments=rh, divergence=div, coverage=cov, rhat_replicas=rep,
+                              verdicts=tuple(v for v in found if v is not None))
+
+
+def _replica_rhat(chains: list[np.ndarray]) -> RhatResult | None:
+    """Split R-hat across runs of one series, each cut to the shortest (None below 4 samples)."""
+    finite = [c[np.isfinite(c)] for c in chains]
+    n = min(c.size for c in finite)
+    if n < 4:
+        return None
+    return rhat(np.vstack([c[:n] for c in finite]), split=True)

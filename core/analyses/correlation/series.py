@@ -81,6 +81,20 @@ class CorrelationResult(result.ResultMixin):
         }
 
 
+def _g_of_series(a: np.ndarray, method: Method, c: float, max_lag: int | None, notes: list[str]
+                 ) -> tuple[np.ndarray, int, float, int, bool, str, AutoEstimate | None]:
+    """Autocovariance sums, lags computed, g, window, window met, estimator name, and the automatic choice."""
+    if method == AUTO:
+        auto = auto_estimate(a, c=c, max_lag=max_lag)
+        if auto.disagree:
+            listing = ", ".join(f"{m} {v[0]:.3g} +- {v[1]:.2g}" for m, v in auto.estimates.items())
+            notes.append(f"the estimators of g disagree by {auto.disagreement_z:.1f} standard errors ({listing}); "
+                         f"the largest, {auto.g:.3g}, is used (conservative)")
+        return auto.sums, auto.lags, auto.g, auto.window, auto.converged, auto.method, auto
+    s, est, k = _sums_adaptive(a, 0, max_lag, method, c)
+    return s, k, float(est.g), int(est.window), bool(est.converged), method, None
+
+
 def analyse_series(
     x: Any,
     *,
@@ -125,18 +139,7 @@ def analyse_series(
         raise AnalysisError(f"the sample spacing must be positive, got {dt_ps} ps")
     n = a.size
     notes: list[str] = []
-    auto: AutoEstimate | None = None
-    if method == AUTO:
-        auto = auto_estimate(a, c=c, max_lag=max_lag)
-        s, k = auto.sums, auto.lags
-        g, window, window_ok, label = auto.g, auto.window, auto.converged, auto.method
-        if auto.disagree:
-            listing = ", ".join(f"{m} {v[0]:.3g} +- {v[1]:.2g}" for m, v in auto.estimates.items())
-            notes.append(f"the estimators of g disagree by {auto.disagreement_z:.1f} standard errors ({listing}); "
-                         f"the largest, {g:.3g}, is used (conservative)")
-    else:
-        s, est, k = _sums_adaptive(a, 0, max_lag, method, c)
-        g, window, window_ok, label = float(est.g), int(est.window), bool(est.converged), method
+    s, k, g, window, window_ok, label, auto = _g_of_series(a, method, c, max_lag, notes)
     rho = s / s[0]
     var = float(s[0] / n)
     n_keep = acf_lags if acf_lags is not None else max(50, 5 * max(window, 1))

@@ -52,11 +52,9 @@ from phasewake.core.analyses.crossings.checks import check_not_stiff_bond
 from phasewake.core.analyses.crossings.kappa import reactive_flux
 from phasewake.core.analyses.crossings.pooled import analyse_crossings, crossings_work, pool_crossings
 from phasewake.core.analyses.crossings.request import (
-    JACOBIANS,
     CrossingsRequest,
     crossings_of_runs,
     kt_over_m_eff,
-    profile_jacobian,
     run_temperature,
 )
 from phasewake.core.analyses.crossings.results import (
@@ -77,11 +75,12 @@ from phasewake.core.analyses.crossings.results import (
 )
 from phasewake.core.analyses.crossings.scan import committed_states
 from phasewake.core.analyses.crossings.states import suggest_states
+from phasewake.core.analyses.landscape import JACOBIANS
 
 __all__ = [
     "DWELL_DTYPE", "EVENT_DTYPE", "JACOBIANS", "PATH_DTYPE", "STATE_CODES", "CrossingSettings", "CrossingsRequest",
     "CrossingsResult", "Event", "PathTimes", "RateEstimate", "StateSuggestion", "TSTComparison", "Trace",
     "TransmissionCoefficient", "analyse_crossings", "as_trace", "check_not_stiff_bond", "committed_states",
-    "crossings_of_runs", "crossings_work", "kt_over_m_eff", "pool_crossings", "profile_jacobian", "reactive_flux",
+    "crossings_of_runs", "crossings_work", "kt_over_m_eff", "pool_crossings", "reactive_flux",
     "run_temperature", "suggest_states",
 ]

@@ -12,6 +12,7 @@ import numpy as np
 from phasewake.core.analyses.crossings.checks import check_not_stiff_bond
 from phasewake.core.analyses.crossings.pooled import crossings_work
 from phasewake.core.analyses.crossings.results import CrossingsResult, as_trace
+from phasewake.core.analyses.landscape import resolve_jacobian, run_temperature
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.errors import AnalysisError
 from phasewake.core.progress import Progress, Work
@@ -19,28 +20,6 @@ from phasewake.core.units import KB_KJ_PER_MOL_K
 
 if TYPE_CHECKING:
     from phasewake.core.model.run import Run
-
-JACOBIANS = ("none", "auto")
-
-
-def run_temperature(run: Run) -> tuple[float | None, str]:
-    """The temperature (K) of ``run`` for kT, and where it comes from; (None, why) when unknown.
-
-    The run's own statement first (the thermostat target from its files, or a ``--temperature`` given
-    when it was opened), else the mean kinetic temperature of its energy table. Never a guess: with
-    neither, the temperature is unknown and whatever needs kT says so.
-    """
-    if run.metadata.temperature_K:
-        return float(run.metadata.temperature_K), "thermostat target of the run"
-    if run.energies is not None:
-        s = run.energies.by_role("temperature")
-        if s is not None:
-            v = np.asarray(s.values, dtype=float)
-            if np.isfinite(v).any():
-                return float(np.nanmean(v)), "mean kinetic temperature in the energy table"
-    return None, ("the temperature is unknown (no thermostat target in the files and no temperature column): "
-                  "give it (--temperature) for the TST flux factor of a coordinate without velocities")
-
 
 def kt_over_m_eff(temperature_K: float | None, series: Sequence[Any]) -> float | None:
     """kT <1/m_eff> in (unit/ps)^2 over every frame of every series (equipartition of dq/dt; see
@@ -54,16 +33,6 @@ def kt_over_m_eff(temperature_K: float | None, series: Sequence[Any]) -> float |
             return None
         inverse.append(1.0 / np.asarray(m, dtype=float))
     return float(KB_KJ_PER_MOL_K * float(temperature_K) * np.mean(np.concatenate(inverse)))
-
-
-def profile_jacobian(jacobian: str, coordinate: str) -> str:
-    """The Jacobian of the free-energy profile: ``"auto"`` reads the parsed specification (a distance in
-    3D gets the 4 pi r^2 correction, see :func:`phasewake.core.analyses.landscape.jacobian_of`)."""
-    from phasewake.core.analyses.landscape import jacobian_of
-
-    if jacobian not in JACOBIANS:
-        raise AnalysisError(f"unknown jacobian {jacobian!r}: use one of {', '.join(JACOBIANS)}")
-    return jacobian_of(coordinate) if jacobian == "auto" else "none"
 
 
 @dataclass(frozen=True)
@@ -146,7 +115,7 @@ class CrossingsRequest(AnalysisRequest):
 
         For a front end that already holds the series; :meth:`work` is both steps.
         """
-        profile_jacobian(self.jacobian, self.coordinate)  # an unknown Jacobian is refused before any work
+        resolve_jacobian(self.jacobian, self.coordinate)  # an unknown Jacobian is refused before any work
         temp, why = ((float(self.temperature_K), "given") if self.temperature_K is not None
                      else run_temperature(runs[0]))
         traces = [as_trace(s, name=r.name) for s, r in zip(series, runs)]
@@ -156,10 +125,11 @@ class CrossingsRequest(AnalysisRequest):
         inner = crossings_work(traces, states=self.states, surface=self.surface, unit=unit,
                                confidence=self.confidence, kappa_window_ps=self.kappa_window_ps,
                                temperature_K=temp, kT_over_m_eff=kt_over_m_eff(temp, series),
-                               jacobian=profile_jacobian(self.jacobian, self.coordinate))
+                               jacobian=resolve_jacobian(self.jacobian, self.coordinate))
         result: CrossingsResult = yield from _relay(inner, base, total, "")
         if temp is None:
-            result = replace(result, warnings=(*result.warnings, why))
+            result = replace(result, warnings=(*result.warnings, f"{why} (the TST flux factor of a coordinate "
+                                                                 "without velocities needs it)"))
         from phasewake.core.analyses.replica_table import replica_rows
 
         return replace(result, settings=replace(result.settings, temperature_source=why),

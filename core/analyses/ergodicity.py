@@ -1,0 +1,187 @@
+"""Thirumalai-Mountain fluctuation metric Omega(t) of per-particle time averages: an effectively ergodic run
+decays as Omega(t)/Omega(0) ~ 1/(D t); a non-ergodic one plateaus (D. Thirumalai, R. D. Mountain and
+T. R. Kirkpatrick, Phys. Rev. A 39, 3563 (1989); R. D. Mountain and D. Thirumalai, J. Phys. Chem. 93,
+6975 (1989)). A heuristic (see :data:`phasewake.core.analyses.verdicts.HEURISTIC_NOTE`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from phasewake.core.analyses import verdicts
+from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
+from phasewake.core.progress import Progress, Work
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
+
+verdicts.register(
+    verdicts.Threshold(
+        kind="sampling.tm_slope", caution=-0.7, problem=-0.3, unit="log-log slope",
+        source="common practice (the Thirumalai-Mountain metric decays with slope -1 when effectively ergodic)",
+        description="late-time log-log slope of the Thirumalai-Mountain metric",
+    ),
+    verdicts.Explanation(
+        title="Thirumalai-Mountain metric",
+        what="Spread between the time averages of equivalent particles (their energies, kinetic energies or "
+        "a chosen coordinate). In an effectively ergodic run every particle sees the same average and the "
+        "spread falls as 1/(D t).",
+        method="Omega(t) = mean_j (eps_j(t) - <eps(t)>)^2 of running time averages (Thirumalai, Mountain "
+        "and Kirkpatrick, Phys. Rev. A 39, 3563 (1989)); slope of log Omega against log t at late times "
+        "and a fit of Omega(0)/Omega(t) = D t + b.",
+        threshold="caution when the late slope is flatter than -0.7, problem when flatter than -0.3 "
+        "(common practice; ergodic decay has slope -1).",
+        advice="A plateau means particles do not exchange their environments on the time scale of the run "
+        "(a glassy or trapped system, or particles that are not equivalent). Check that the particles "
+        "compared are equivalent; run longer.",
+    ),
+)
+
+
+# ---------------------------------------------------------------------------------------------------
+# Thirumalai-Mountain
+# ---------------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class TMResult:
+    """Thirumalai-Mountain metric over time.
+
+    omega : (T,) Omega(t) in ``unit``^2; ratio : (T,) Omega(t)/Omega(0) with Omega(0) the
+    instantaneous spread between particles averaged over frames.
+    """
+
+    time_ps: np.ndarray
+    omega: np.ndarray
+    omega0: float
+    ratio: np.ndarray
+    d_per_ps: float  # fitted D of Omega(0)/Omega(t) = D t + b over the fit range
+    late_slope: float  # d log Omega / d log t over the fit range
+    plateau: bool  # late slope flatter than the caution threshold
+    fit_range_ps: tuple[float, float]
+    n_particles: int
+    unit: str
+    quantity: str
+    settings: dict[str, Any] = field(default_factory=dict)
+
+
+class TMAccumulator:
+    """Streaming Thirumalai-Mountain metric: feed (n, N) per-particle values chunk by chunk."""
+
+    def __init__(self) -> None:
+        self._sum: np.ndarray | None = None
+        self._count = 0
+        self._omega: list[np.ndarray] = []
+        self._inst_sum = 0.0
+
+    def update(self, values: np.ndarray) -> None:
+        e = np.asarray(values, dtype=np.float64)
+        if e.ndim != 2:
+            raise AnalysisError("per-particle values must have shape (n_frames, n_particles)")
+        if self._sum is None:
+            self._sum = np.zeros(e.shape[1])
+        cs = self._sum + np.cumsum(e, axis=0)
+        counts = self._count + np.arange(1, e.shape[0] + 1)
+        avg = cs / counts[:, None]
+        self._omega.append(avg.var(axis=1))
+        self._inst_sum += float(e.var(axis=1).sum())
+        self._sum = cs[-1]
+        self._count += e.shape[0]
+
+    def finish(self, *, dt_ps: float, fit_range_ps: tuple[float, float] | None = None, unit: str = "",
+               quantity: str = "", n_particles: int = 0) -> TMResult:
+        if self._count < 8:
+            raise TooShortError("the Thirumalai-Mountain metric", have=self._count, need=8)
+        omega = np.concatenate(self._omega)
+        omega0 = self._inst_sum / self._count
+        if not omega0 > 0:
+            raise AnalysisError("the particles' values do not differ: the Thirumalai-Mountain metric is undefined")
+        t = (np.arange(omega.size) + 1) * dt_ps  # the average over the first k frames covers k dt
+        lo, hi = fit_range_ps if fit_range_ps is not None else (0.1 * t[-1], t[-1])
+        sel = (t >= lo) & (t <= hi) & (omega > 0)
+        if sel.sum() < 3:
+            raise AnalysisError("the Thirumalai-Mountain fit range holds fewer than three points")
+        ratio = omega / omega0
+        inv = 1.0 / ratio[sel]
+        d, b = np.polyfit(t[sel], inv, 1)
+        slope = float(np.polyfit(np.log(t[sel]), np.log(omega[sel]), 1)[0])
+        thr = verdicts.THRESHOLDS["sampling.tm_slope"]
+        return TMResult(time_ps=t, omega=omega, omega0=omega0, ratio=ratio, d_per_ps=float(d),
+                        late_slope=slope, plateau=slope > thr.caution, fit_range_ps=(float(lo), float(hi)),
+                        n_particles=n_particles, unit=unit, quantity=quantity,
+                        settings={"fit_range_ps": fit_range_ps})
+
+
+def thirumalai_mountain(values: np.ndarray, *, dt_ps: float, fit_range_ps: tuple[float, float] | None = None,
+                        unit: str = "", quantity: str = "per-particle values") -> TMResult:
+    """Thirumalai-Mountain metric of per-particle series.
+
+    Parameters
+    ----------
+    values : ndarray, shape (T, N)
+        One series per particle (energy in kJ/mol, or any per-particle quantity in ``unit``).
+    dt_ps : float
+        Frame spacing (ps).
+    fit_range_ps : (float, float), optional
+        Range for the late-time fits; default the last 90% of the run.
+
+    Returns
+    -------
+    TMResult
+        ``d_per_ps`` is D_e in Omega(0)/Omega(t) = D_e t; for independent stationary series with
+        statistical inefficiency g, D_e = 1 / (g dt).
+    """
+    e = np.asarray(values, dtype=np.float64)
+    if e.ndim != 2 or e.shape[1] < 2:
+        raise AnalysisError("the Thirumalai-Mountain metric needs values of shape (n_frames, n_particles >= 2)")
+    acc = TMAccumulator()
+    for i in range(0, e.shape[0], 65536):
+        acc.update(e[i : i + 65536])
+    return acc.finish(dt_ps=dt_ps, fit_range_ps=fit_range_ps, unit=unit, quantity=quantity, n_particles=e.shape[1])
+
+
+def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.ndarray | None = None,
+                                fit_range_ps: tuple[float, float] | None = None, chunk_frames: int = 256,
+                                start: int = 0, stop: int | None = None, stride: int = 1) -> Work[TMResult]:
+    """TM metric of per-atom kinetic energies (1/2 m v^2, kJ/mol) of a run, streamed.
+
+    Use atoms that are equivalent (one species); the metric compares their time averages.
+    """
+    if run.frames is None or not run.frames.has_velocities:
+        raise MissingDataError("the Thirumalai-Mountain metric of kinetic energies needs velocities",
+                               path=run.paths[0] if run.paths else None)
+    idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
+    if idx.size < 2:
+        raise AnalysisError("the Thirumalai-Mountain metric needs at least two atoms")
+    m = np.asarray(run.masses_amu, float)[idx]
+    t = np.asarray(run.time_ps)[start:stop:stride]
+    if t.size < 2:
+        raise TooShortError("the Thirumalai-Mountain metric", have=int(t.size), need=8)
+    dt = float(np.median(np.diff(t)))
+    acc = TMAccumulator()
+    done = 0
+    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
+                                        atom_indices=idx, velocities=True, positions=False):
+        v = chunk.velocities_nm_per_ps
+        if v is None:
+            raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
+        ke = 0.5 * m[None, :] * np.einsum("fnc,fnc->fn", v.astype(np.float64), v.astype(np.float64))
+        acc.update(ke)
+        done += chunk.n_frames
+        yield Progress(done, t.size, "Thirumalai-Mountain metric")
+    return acc.finish(dt_ps=dt, fit_range_ps=fit_range_ps, unit="kJ/mol", quantity="kinetic energy per atom",
+                      n_particles=int(idx.size))
+
+
+def judge_tm(result: TMResult) -> verdicts.Verdict:
+    return verdicts.judge(
+        "sampling.tm_slope", result.late_slope, title="Thirumalai-Mountain metric", unit="log-log slope",
+        message=f"The spread between time averages of {result.n_particles} particles ({result.quantity}) falls "
+        f"with late log-log slope {result.late_slope:.2f} (ergodic decay: -1). " + verdicts.HEURISTIC_NOTE,
+        advice=verdicts.EXPLANATIONS["sampling.tm_slope"].advice,
+        details={"d_per_ps": result.d_per_ps},
+    )
