@@ -135,45 +135,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 # ---------------------------------------------------------------------------------------------------
 
 
-def _find_series(run: Any, name: str) -> Any:
-    from phasewake.core.errors import MissingDataError
-
-    table = run.energies
-    where = run.paths[0] if run.paths else None
-    if table is None:
-        raise MissingDataError("the run has no energy table; use --coordinate for a coordinate", path=where)
-    if name in table.series:
-        return table.series[name]
-    low = {k.lower(): k for k in table.series}
-    if name.lower() in low:
-        return table.series[low[name.lower()]]
-    by_role = table.by_role(name.lower())
-    if by_role is not None:
-        return by_role
-    names = ", ".join(sorted(table.series)) or "none"
-    raise MissingDataError(f"no energy series named {name!r}; the run has: {names}", path=where)
-
-
-def _time_step(time_ps: np.ndarray, what: str) -> float:
-    from phasewake.core.errors import AnalysisError, TooShortError
-
-    t = np.asarray(time_ps, dtype=float)
-    if t.size < 4:
-        raise TooShortError(what, have=int(t.size), need=4)
-    d = np.diff(t)
-    dt = float(np.median(d))
-    if not dt > 0 or np.max(np.abs(d - dt)) > 1e-3 * dt + 1e-12:
-        raise AnalysisError(f"{what}: samples are not evenly spaced in time")
-    return dt
-
-
-def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
-    """name, unit, values, dt_ps, source of every series asked for."""
-    out: list[dict[str, Any]] = []
-    reasons: dict[str, str] = {}  # spec -> why it was chosen (automatic default only)
+def _series_inputs(args: argparse.Namespace, run: Any) -> list[tuple[str, str, str]]:
+    """(kind, text, reason) of every series asked for: ("series", column name or role, "") or
+    ("coordinate", spec, why it was chosen when it was chosen automatically)."""
+    out: list[tuple[str, str, str]] = []
     names = list(args.series)
+    coords = [(c, "") for c in args.coordinate]
     velocity_mode = args.vacf or args.msd or args.spectrum or args.tm
-    if not names and not args.coordinate and not velocity_mode:
+    if not names and not coords and not velocity_mode:
         if run.energies is not None and run.energies.series:
             names = [k for k, s in run.energies.series.items() if s.role not in _SKIP_ROLES]
         else:
@@ -184,27 +153,9 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[dict[str, Any]]:
             if choice.spec is None:
                 raise MissingDataError(f"the run has no energy table, and {choice.reason}",
                                        path=run.paths[0] if run.paths else None)
-            args.coordinate = [choice.spec]
-            reasons[choice.spec] = choice.reason
-    sl = slice(args.start, args.stop)
-    for nm in names:
-        s = _find_series(run, nm)
-        values = np.asarray(s.values, float)[sl]
-        t = np.asarray(run.energies.time_ps, float)[sl]
-        ok = np.isfinite(values)
-        out.append({"name": s.name, "unit": s.unit, "values": values[ok], "time_ps": t[ok],
-                    "source": s.source or "energy table", "kind": "series"})
-    if args.coordinate:
-        from phasewake.core.analyses.coordinates import compute_coordinates
-
-        series = run_with_progress(compute_coordinates(run, args.coordinate, start=args.start, stop=args.stop),
-                                   "coordinates")
-        for c in series:
-            src = f"{c.spec}, {reasons[c.spec]}" if c.spec in reasons else c.spec
-            out.append({"name": c.label, "unit": c.unit, "values": np.asarray(c.values, float),
-                        "time_ps": np.asarray(c.time_ps, float), "source": src, "kind": "coordinate",
-                        "momentum": None if c.momentum is None else np.asarray(c.momentum, float),
-                        "momentum_unit": c.momentum_unit, "periodic": bool(c.periodic)})
+            coords = [(choice.spec, choice.reason)]
+    out.extend(("series", nm, "") for nm in names)
+    out.extend(("coordinate", spec, why) for spec, why in coords)
     return out
 
 
@@ -230,68 +181,29 @@ def _groups(args: argparse.Namespace, run: Any) -> dict[str, np.ndarray] | None:
 # ---------------------------------------------------------------------------------------------------
 
 
-def _analyse_one(item: dict[str, Any], args: argparse.Namespace, replicas: list[Any]) -> dict[str, Any]:
-    from phasewake.core.analyses import correlation as C
-    from phasewake.core.analyses import sampling as S
+def _analyse_one(item: tuple[str, str, str], args: argparse.Namespace, run: Any, replicas: list[Any],
+                 cache: Any) -> dict[str, Any]:
+    """The correlation and sampling requests of one series (the same requests as the window and the report)."""
+    from phasewake.core.analyses.correlation.request import CorrelationRequest
+    from phasewake.core.analyses.sampling import SamplingRequest
+    from phasewake.core.store.cached import requested
 
-    x = item["values"]
-    dt = _time_step(item["time_ps"], f"series {item['name']}")
-    max_lag = None if args.max_lag is None else max(1, int(round(args.max_lag / dt)))
-    res = C.analyse_series(x, dt_ps=dt, method=args.method, max_lag=max_lag, unit=item["unit"])
-    g_all = {m: C.statistical_inefficiency(x, method=m, max_lag=max_lag) for m in C.METHODS}
-    block = C.blocking(x, unit=item["unit"]) if x.size >= 32 else None
-    equil = run_with_progress(C.equilibration_work(x, dt_ps=dt, method=args.method, max_lag=max_lag),
-                              f"equilibration {item['name']}")
-    seg = max(2, int(args.segments))
-    rh = S.rhat_segments(x, n_segments=seg) if x.size >= 4 * seg else None
-    div = S.segment_divergence(x, n_segments=2, bins=args.bins) if x.size >= 20 and np.ptp(x) > 0 else None
-    verdict_list = [C.judge_ess(res, name=item["name"]), C.judge_equilibration(equil, name=item["name"])]
-    agreement = C.judge_estimators(res, name=item["name"])
-    if agreement is not None:
-        verdict_list.insert(1, agreement)
-    if rh is not None:
-        verdict_list.append(S.judge_rhat(rh, name=f"{item['name']} ({seg} segments)"))
-    if div is not None:
-        verdict_list.append(S.judge_divergence(div, name=item["name"]))
-    running = S.running_average(x, dt_ps=dt, g=res.statistical_inefficiency, unit=item["unit"])
-    coverage = None
-    mom = item.get("momentum")
-    if mom is not None and mom.shape == x.shape and np.all(np.isfinite(mom)) and np.ptp(mom) > 0:
-        coverage = S.coverage_over_time(x, mom, dt_ps=dt, bins=args.bins)
-    rep = None
-    if replicas:
-        rep = _replica_rhat(item, x, replicas, args)
-        if rep is not None:
-            verdict_list.append(S.judge_rhat(rep, name=f"{item['name']} across {rep.n_chains} replicas"))
+    kind, text, why = item
+    which = {"series": text} if kind == "series" else {"coordinate": text}
+    corr = run_with_progress(requested(run, CorrelationRequest(
+        **which, method=args.method, max_lag_ps=args.max_lag, start=args.start, stop=args.stop), cache=cache),
+        f"autocorrelation of {text}")
+    samp = run_with_progress(requested(run, SamplingRequest(
+        **which, segments=args.segments, bins=args.bins, method=args.method, max_lag_ps=args.max_lag,
+        replicas=tuple(replicas), start=args.start, stop=args.stop), cache=cache), f"sampling of {text}")
     return {
-        "name": item["name"], "kind": item["kind"], "source": item["source"], "unit": item["unit"],
-        "correlation": res, "g_by_method": g_all, "blocking": block, "equilibration": equil,
-        "rhat_segments": rh, "divergence": div, "rhat_replicas": rep, "verdicts": verdict_list,
-        "running": running, "coverage": coverage, "momentum_unit": item.get("momentum_unit", ""),
-        "notes": (["a periodic coordinate (an angle in (-pi, pi]): jumps across +-pi count as large changes; "
-                   "if it sits near +-pi, analyse cos or sin of it instead"] if item.get("periodic") else []),
+        "name": corr.name, "kind": corr.kind, "source": f"{corr.source}, {why}" if why else corr.source,
+        "unit": corr.unit, "correlation": corr.correlation, "g_by_method": corr.g_by_method,
+        "blocking": corr.blocking, "equilibration": corr.equilibration, "rhat_segments": samp.rhat_segments,
+        "divergence": samp.divergence, "rhat_replicas": samp.rhat_replicas,
+        "verdicts": [*corr.verdicts, *samp.verdicts], "running": samp.running, "coverage": samp.coverage,
+        "momentum_unit": samp.momentum_unit, "notes": list(corr.notes),
     }
-
-
-def _replica_rhat(item: dict[str, Any], x: np.ndarray, replicas: list[Any], args: argparse.Namespace) -> Any:
-    from phasewake.core.analyses import sampling as S
-
-    chains = [x]
-    for rep in replicas:
-        if item["kind"] == "series":
-            s = _find_series(rep, item["name"])
-            chains.append(np.asarray(s.values, float)[args.start:args.stop])
-        else:
-            from phasewake.core.analyses.coordinates import compute_coordinates
-
-            c = run_with_progress(compute_coordinates(rep, [item["source"]], start=args.start, stop=args.stop),
-                                  "replica coordinates")[0]
-            chains.append(np.asarray(c.values, float))
-    chains = [c[np.isfinite(c)] for c in chains]
-    n = min(c.size for c in chains)
-    if n < 4:
-        return None
-    return S.rhat(np.vstack([c[:n] for c in chains]), split=True)
 
 
 def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
@@ -606,8 +518,10 @@ def run(args: argparse.Namespace) -> int:
     for files in args.replica:
         with quiet_stdout():
             replicas.append(open_run(files, topology=args.top, **run_overrides(args)))
-    items = _series_inputs(args, run_)
-    analyses = [_analyse_one(it, args, replicas) for it in items]
+    from phasewake.core.store.cache import ResultCache
+
+    cache = ResultCache(enabled=False) if getattr(args, "no_cache", False) else None
+    analyses = [_analyse_one(it, args, run_, replicas, cache) for it in _series_inputs(args, run_)]
     vel = _velocity_analyses(args, run_) if (args.vacf or args.msd or args.spectrum or args.tm) else {}
     levels = [v.level for a in analyses for v in a["verdicts"]]
     if "tm_verdict" in vel:

@@ -530,6 +530,7 @@ class SamplingReport:
     coverage: CoverageResult | None  # of (q, p) for a coordinate with a momentum
     rhat_replicas: RhatResult | None
     verdicts: tuple[verdicts.Verdict, ...]  # R-hat over segments, divergence, R-hat across replicas
+    momentum_unit: str = ""  # of the coverage's second axis
 
 
 @dataclass(frozen=True)
@@ -589,7 +590,7 @@ class SamplingRequest(AnalysisRequest):
                  judge_rhat(rep, name=f"{s.name} across {rep.n_chains} replicas") if rep is not None else None]
         return SamplingReport(name=s.name, unit=s.unit, running=running_average(x, dt_ps=dt, g=g, unit=s.unit),
                               rhat_segments=rh, divergence=div, coverage=cov, rhat_replicas=rep,
-                              verdicts=tuple(v for v in found if v is not None))
+                              verdicts=tuple(v for v in found if v is not None), momentum_unit=s.momentum_unit)
 
 
 def _replica_rhat(chains: list[np.ndarray]) -> RhatResult | None:
