@@ -350,9 +350,9 @@ def _series_of(source: Any, series: str | None, dt_ps: float | None) -> tuple[np
         if series is None:
             raise InputError("pw.correlation: name the run's energy series (series='potential', a column "
                              "name or role) or pass a coordinate from pw.coordinates(...)")
-        from phasewake.app.commands.memory import _find_series
+        from phasewake.core.analyses.correlation.request import find_energy_series
 
-        s = _find_series(source, series)
+        s = find_energy_series(source, series)
         assert source.energies is not None
         time = np.asarray(source.energies.time_ps if getattr(s, "time_ps", None) is None else s.time_ps)
         return np.asarray(s.values, dtype=np.float64), _spacing(time, s.name), s.unit, s.name
@@ -365,9 +365,9 @@ def _series_of(source: Any, series: str | None, dt_ps: float | None) -> tuple[np
 
 
 def _spacing(time_ps: np.ndarray, what: str) -> float:
-    from phasewake.app.commands.memory import _time_step
+    from phasewake.core.analyses.correlation.request import sample_spacing
 
-    return float(_time_step(np.asarray(time_ps, dtype=np.float64), what))
+    return float(sample_spacing(np.asarray(time_ps, dtype=np.float64), what))
 
 
 def correlation(source: Any, series: str | None = None, *, dt_ps: float | None = None, method: str = "auto",
