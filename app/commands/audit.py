@@ -66,7 +66,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     w(f"phasewake audit: {head}  [ensemble: {result.ensemble}]\n")
     if result.paths:
         w(f"  files: {', '.join(result.paths)}\n")
-    if getattr(result, "ensemble_source", ""):
+    if result.ensemble_source:
         w(textwrap.fill(f"ensemble: {result.ensemble}, {result.ensemble_source}", width=100, initial_indent="  ",
                         subsequent_indent="    ") + "\n")
     ea, ta = result.energy, result.temperature
@@ -114,7 +114,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
               f"{'  (significant)' if g.significant else ''}\n")
     for note in result.notes:
         w(textwrap.fill(f"note: {note}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
-    if getattr(result, "checked", True):
+    if result.checked:
         w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
     else:
         w("\n  overall: not checked: nothing could be checked with what the files hold (see the 'not checked' "
