@@ -21,7 +21,7 @@ from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.analyses.ensemble import is_thermostatted
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.framepass import run_pass
+from phasewake.core.model.framepass import check_next, run_pass
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run
 from phasewake.core.progress import Progress, Work, result_of
 
@@ -145,12 +145,19 @@ class AuditFramesConsumer:
         if run.frames is None or not run.frames.has_velocities:
             raise MissingDataError("the run holds no velocities (and none can be estimated)",
                                    path=run.paths[0] if run.paths else None)
-        self.run = run
+        # what is needed of the run, kept as arrays (the consumer pickles: a worker sends it back)
+        self._path = run.paths[0] if run.paths else None
+        self._n_pass = int(run.n_frames)  # the audit's pass is over every frame of the run
+        self._time_all = np.asarray(run.time_ps)
+        self._n_atoms = int(run.n_atoms)
+        self._masses = np.asarray(run.masses_amu)
         self.groups = {k: np.asarray(v, dtype=np.int64) for k, v in groups.items()}
         self.want_speeds = bool(want_speeds)
         self.want_com = bool(want_com)
         self.segment_frames = int(segment_frames)
         self.max_segments = max_segments
+        self._spec_groups = ms.spectrum_groups(run.topology, run.masses_amu) if self._n_pass >= 32 else None
+        self._species = tm.species_of(run.topology, run.masses_amu) if self.want_speeds else {}
         self.rigid: tm.RigidPairAccumulator | None = None
         if infer and run.topology is not None:
             pairs = tm.candidate_pairs(run.topology)
@@ -182,49 +189,69 @@ class AuditFramesConsumer:
                    segment_frames=segment_frames, max_segments=max_spectrum_segments)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        """Frames [start, stop) of the pass over every frame; a later range of a pass cut into ranges
+        keeps its frames in the pass's frame numbering (speed samples, spectrum segments, the first frames
+        of the constraint inference), so :meth:`merge` gives what one serial pass gives."""
         if columns is not None:
             raise AnalysisError("the audit needs every atom's velocity")
-        run = self.run
         n = int(stop - start)
         self._range = (int(start), int(stop), int(chunk_frames))
         self._pos = 0
-        g = len(self.groups)
         self._kin = np.empty(n)
         self._com = np.empty(n)
-        self._gk = np.empty((n, g))
+        self._gk = np.empty((n, len(self.groups)))
         self._times = np.empty(n)
+        if self.rigid is not None and start > 0:  # only the pass's first frames are used
+            self.rigid = tm.RigidPairAccumulator(self.rigid.pairs, self._n_atoms,
+                                                 max_frames=max(0, self.rigid.max_frames - int(start)))
+        self._prepare_spectrum(int(start))
+        n_all = self._n_pass
+        self.stride = max(1, n_all // 200)
+        self.speed_atoms = {sp: idx[: max(1, 100_000 // max(1, n_all // self.stride))][:2000]
+                            for sp, idx in self._species.items()}
+        self.speed_store: dict[str, list[np.ndarray]] = {sp: [] for sp in self._species}
+        self._sq = np.empty((self.SUB_FRAMES, 3 * self._n_atoms), np.float32)  # reused (fresh pages are slow)
+        self._sel = (np.empty((chunk_frames, self.spec.atoms.size, 3), np.float32)
+                     if self.spec is not None and self.spec.atoms is not None else None)
+
+    def _prepare_spectrum(self, start: int) -> None:
+        """The spectrum accumulator; segments are cut from the pass's first frame, so a range that starts
+        inside a segment keeps those first frames (``_head``) for :meth:`merge`."""
         self.spectrum_note = ""
         self.spec: ms.VelocitySpectrumAccumulator | None = None
         self.spec_names: list[str] = []
-        t = np.asarray(run.time_ps)[start:stop]
-        if n >= 32 and t.size == n:
-            dt = np.diff(t)
-            h = float(np.median(dt))
-            if h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9):
-                seg = int(min(self.segment_frames, n // 2))
-                labels, self.spec_names = ms.spectrum_groups(run.topology, run.masses_amu)
-                self.spec = ms.VelocitySpectrumAccumulator(run.masses_amu, h, segment_frames=seg,
-                                                           labels=labels if len(self.spec_names) > 1 else None,
-                                                           max_segments=self.max_segments)
-            else:
-                self.spectrum_note = "frame spacing is not uniform: no velocity spectrum"
-        else:
+        self._head: list[np.ndarray] = []
+        self._head_needed = 0
+        n = self._n_pass
+        t = self._time_all[:n]
+        if not (n >= 32 and t.size == n and self._spec_groups is not None):
             self.spectrum_note = f"too few frames for a velocity spectrum ({n} < 32)"
-        species = tm.species_of(run.topology, run.masses_amu) if self.want_speeds else {}
-        self.stride = max(1, n // 200)
-        self.speed_atoms = {sp: idx[: max(1, 100_000 // max(1, n // self.stride))][:2000]
-                            for sp, idx in species.items()}
-        self.speed_store: dict[str, list[np.ndarray]] = {sp: [] for sp in species}
-        n_atoms = run.n_atoms
-        self._sq = np.empty((self.SUB_FRAMES, 3 * n_atoms), np.float32)  # reused (fresh pages are slow)
-        self._sel = (np.empty((chunk_frames, self.spec.atoms.size, 3), np.float32)
-                     if self.spec is not None and self.spec.atoms is not None else None)
+            return
+        dt = np.diff(t)
+        h = float(np.median(dt))
+        if not (h > 0 and np.allclose(dt, h, rtol=1e-3, atol=1e-9)):
+            self.spectrum_note = "frame spacing is not uniform: no velocity spectrum"
+            return
+        seg = int(min(self.segment_frames, n // 2))
+        labels, self.spec_names = self._spec_groups
+        head = (-start) % seg  # frames before this range's first segment boundary
+        first = (start + head) // seg  # the pass's index of this range's first whole segment
+        most = None if self.max_segments is None else max(0, self.max_segments - first)
+        self.spec = ms.VelocitySpectrumAccumulator(self._masses, h, segment_frames=seg,
+                                                   labels=labels if len(self.spec_names) > 1 else None,
+                                                   max_segments=most)
+        if head and (self.max_segments is None or start // seg < self.max_segments):
+            self._head_needed = head
+
+    def __getstate__(self) -> dict[str, Any]:
+        state = dict(self.__dict__)
+        state["_sq"] = state["_sel"] = None  # work buffers, made again by prepare
+        return state
 
     def update(self, chunk: FrameChunk) -> None:
         v = chunk.velocities_nm_per_ps
         if v is None:
-            raise MissingDataError("velocities are missing in a chunk of frames",
-                                   path=self.run.paths[0] if self.run.paths else None)
+            raise MissingDataError("velocities are missing in a chunk of frames", path=self._path)
         with one_blas_thread():
             self._update(chunk, np.ascontiguousarray(v, dtype=np.float32))
 
@@ -235,7 +262,7 @@ class AuditFramesConsumer:
         vf = v.reshape(k, 3 * n_atoms)
         both = np.empty((k, self._w3.shape[1]), np.float32)
         p = np.empty((k, 3), np.float32)
-        spec = self.spec if self.spec is not None and not self.spec.full else None
+        spec = self.spec if self.spec is not None and (not self.spec.full or self._head_needed) else None
         idx = None if spec is None else spec.atoms
         sel = self._sel
         if sel is not None and sel.shape[0] < k:
@@ -260,15 +287,46 @@ class AuditFramesConsumer:
         if self.rigid is not None and not self.rigid.full:
             self.rigid.update(chunk.positions_nm, chunk.box_nm)
         if spec is not None:
-            spec.update_selected(v if idx is None or sel is None else sel[:k])
+            self._feed_spectrum(spec, v if idx is None or sel is None else sel[:k])
         if self.speed_atoms:
-            keep = np.nonzero(np.arange(pos, pos + k) % self.stride == 0)[0]
+            keep = np.nonzero(np.arange(self._range[0] + pos, self._range[0] + pos + k) % self.stride == 0)[0]
             if keep.size:
                 vk = v[keep]
                 sp_all = np.sqrt((vk * vk).sum(axis=2))
                 for sp, ia in self.speed_atoms.items():
                     self.speed_store[sp].append(sp_all[:, ia])
         self._pos = pos + k
+
+    def _feed_spectrum(self, spec: ms.VelocitySpectrumAccumulator, v: np.ndarray) -> None:
+        h = min(self._head_needed, v.shape[0])
+        if h:  # frames of a segment that began in the range before this one: kept for merge
+            self._head.append(np.array(v[:h], copy=True))
+            self._head_needed -= h
+        if h < v.shape[0]:
+            spec.update_selected(v[h:] if h else v)
+
+    def merge(self, later: AuditFramesConsumer) -> None:
+        """Fold in the consumer of the frames right after these (same settings): afterwards this one covers
+        both ranges and :meth:`finish` gives the serial pass's result (per-frame values exactly; the
+        spectrum and the pair statistics to floating-point rounding of their sums)."""
+        check_next(self._range[:2], later._range[:2], "audit frames")
+        if list(later.groups) != list(self.groups) or later.segment_frames != self.segment_frames:
+            raise AnalysisError("audit frames: only consumers of the same settings can be merged")
+        pos, lp = self._pos, later._pos
+        self._kin = np.concatenate([self._kin[:pos], later._kin[:lp]])
+        self._com = np.concatenate([self._com[:pos], later._com[:lp]])
+        self._gk = np.concatenate([self._gk[:pos], later._gk[:lp]])
+        self._times = np.concatenate([self._times[:pos], later._times[:lp]])
+        self._pos = pos + lp
+        self._range = (self._range[0], later._range[1], self._range[2])
+        if self.rigid is not None and later.rigid is not None:
+            self.rigid.merge(later.rigid)
+        if self.spec is not None and later.spec is not None:
+            if later._head:
+                self.spec.update_selected(np.concatenate(later._head))  # completes the segment across the cut
+            self.spec.merge(later.spec)
+        for sp, got in later.speed_store.items():
+            self.speed_store[sp].extend(got)
 
     def finish(self) -> AuditFrames:
         pos = self._pos

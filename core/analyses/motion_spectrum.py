@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.errors import TooShortError
+from phasewake.core.errors import AnalysisError, TooShortError
 
 
 class VelocitySpectrumAccumulator:
@@ -133,6 +133,22 @@ class VelocitySpectrumAccumulator:
         rest = v[n_full * L:]
         if rest.shape[0]:
             self._carry = np.array(rest, copy=True)
+
+    def merge(self, later: VelocitySpectrumAccumulator) -> None:
+        """Add the segments of an accumulator fed the frames after this one's, whose segments continue this
+        one's cut (the caller completes the segment across the cut first, with :meth:`update_selected`)."""
+        if later.segment_frames != self.segment_frames or later._power.shape != self._power.shape:
+            raise AnalysisError("velocity spectra of other segment lengths cannot be merged")
+        self._power += later._power
+        self._group_power += later._group_power
+        self._n_segments += later._n_segments
+        if later._n_segments or later._carry is not None:
+            self._carry = later._carry
+
+    def __getstate__(self) -> dict[str, Any]:
+        state = dict(self.__dict__)
+        state["_bufs"], state["_colw"] = {}, None  # work buffers and weights, made again on first use
+        return state
 
     @property
     def n_segments(self) -> int:

@@ -254,6 +254,20 @@ class RigidPairAccumulator:
         self._sum2 += (dd * dd).sum(axis=0)
         self._n += d.shape[0]
 
+    def merge(self, later: RigidPairAccumulator) -> None:
+        """Add the statistics of an accumulator of the same pairs fed later frames (its sums move to this
+        one's reference distances: sum (d - s1) = sum (d - s2) + n2 (s2 - s1), and likewise the squares)."""
+        if later._n == 0 or later._shift is None:
+            return
+        if self._shift is None:
+            self._shift, self._sum, self._sum2 = later._shift.copy(), later._sum.copy(), later._sum2.copy()
+            self._n = later._n
+            return
+        d = later._shift - self._shift
+        self._sum2 += later._sum2 + 2.0 * d * later._sum + later._n * d * d
+        self._sum += later._sum + later._n * d
+        self._n += later._n
+
     def finish(self) -> ConstraintInference:
         n = self._n
         if self.pairs.shape[0] == 0 or n < 2 or self._shift is None:

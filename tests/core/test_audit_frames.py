@@ -178,3 +178,50 @@ def test_audit_request_consumer_then_after_pass_equals_its_work():
     # an energy table alone: the audit joins no pass and its work reads no frames
     no_velocities = dataclasses.replace(run, frames=None)
     assert AuditRequest().consumer(no_velocities) is None
+
+
+def _fed(run, consumer, lo, hi, chunk):
+    """A consumer fed frames [lo, hi) and sent through pickle both ways, as a worker process would."""
+    import pickle
+
+    from phasewake.core.model.framepass import feed
+
+    c = pickle.loads(pickle.dumps(consumer))
+    for _ in feed(run, {"a": c}, start=lo, stop=hi, chunk_frames=chunk):
+        pass
+    return pickle.loads(pickle.dumps(c))
+
+
+@pytest.mark.parametrize(("cuts", "max_segments"), [((100,), 64), ((37, 300), 64), ((512,), 5), ((128, 250, 700), 5),
+                                                    ((20, 21, 1000), None)])
+def test_audit_consumer_merged_from_ranges_equals_the_serial_pass(cuts, max_segments):
+    """Ranges cut anywhere (inside a spectrum segment, inside the first 500 frames of the constraint
+    inference, past the last segment kept), each consumer pickled as a worker sends it: merged in order they
+    give the serial pass (reference: the serial pass of the same consumer; per-frame values and counts
+    exactly, the spectrum and the pair statistics to float64 rounding of their sums)."""
+    run = _water_ions(n_frames=1200)
+    make = lambda: AuditFramesConsumer.for_run(run, segment_frames=64, max_spectrum_segments=max_segments)  # noqa: E731
+    serial = drive(run_pass(run, {"a": make()}, chunk_frames=50, workers=1))["a"]
+    bounds = [0, *cuts, run.n_frames]
+    parts = [_fed(run, make(), lo, hi, 50) for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
+    merged = parts[0]
+    for later in parts[1:]:
+        merged.merge(later)
+    got = merged.finish()
+    np.testing.assert_array_equal(got.time_ps, serial.time_ps)
+    np.testing.assert_allclose(got.kinetic_kJ_per_mol, serial.kinetic_kJ_per_mol, rtol=1e-6)  # float32 sums
+    np.testing.assert_allclose(got.group_kinetic_kJ_per_mol, serial.group_kinetic_kJ_per_mol, rtol=1e-6)
+    np.testing.assert_allclose(got.com_kinetic_kJ_per_mol, serial.com_kinetic_kJ_per_mol, rtol=1e-5)
+    np.testing.assert_array_equal(got.spectrum_frequency_per_ps, serial.spectrum_frequency_per_ps)
+    np.testing.assert_allclose(got.spectrum_power, serial.spectrum_power, rtol=1e-9)
+    for name in serial.group_spectra:
+        np.testing.assert_allclose(got.group_spectra[name], serial.group_spectra[name], rtol=1e-9)
+    assert got.speed_frame_stride == serial.speed_frame_stride
+    assert got.speeds_nm_per_ps.keys() == serial.speeds_nm_per_ps.keys()
+    for sp in serial.speeds_nm_per_ps:
+        np.testing.assert_array_equal(got.speeds_nm_per_ps[sp], serial.speeds_nm_per_ps[sp])
+    gi, si = got.inference, serial.inference
+    assert (gi.n_constraints, gi.n_rigid_pairs, gi.n_frames_used) == (si.n_constraints, si.n_rigid_pairs,
+                                                                        si.n_frames_used)
+    assert gi.smallest_flexible_relative_std == pytest.approx(si.smallest_flexible_relative_std, rel=1e-9)
+    assert got.settings == serial.settings
