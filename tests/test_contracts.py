@@ -51,7 +51,6 @@ KNOWN_LONG_FUNCTIONS = {
     "core/analyses/coordinate_choice.py::choose_coordinate": 115,
     "core/analyses/coordinates.py::value_and_gradient": 135,
     "core/analyses/coordspec.py::resolve": 101,
-    "core/analyses/landscape.py::free_energy_profile": 92,
     "core/analyses/projection.py::compute_pca": 100,
     "core/analyses/velocity.py::transport": 95,
 }

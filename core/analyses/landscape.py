@@ -238,6 +238,44 @@ def _find_minima(f: np.ndarray, window: int) -> list[int]:
     return out
 
 
+def _top_between(f: np.ndarray, a: int, b: int) -> int:
+    seg = f[a : b + 1]
+    seg = np.where(np.isfinite(seg), seg, np.inf)  # an empty bin is an infinite barrier
+    return a + int(np.argmax(seg))
+
+
+def _minima_and_barriers(f: np.ndarray, centers: np.ndarray, err: np.ndarray, pb: np.ndarray, p: np.ndarray,
+                         kt: float, min_depth: float) -> tuple[tuple[Extremum, ...], tuple[Barrier, ...]]:
+    """Local minima of F (neighbours closer than ``min_depth`` kJ/mol in barrier merged into the lower) and the
+    barrier top between each pair, with block errors."""
+    mins = _find_minima(f, max(1, centers.size // 25))
+    changed = True
+    while changed and len(mins) > 1:
+        changed = False
+        for k in range(len(mins) - 1):
+            a, b = mins[k], mins[k + 1]
+            t = _top_between(f, a, b)
+            ft = f[t] if np.isfinite(f[t]) else np.inf
+            if ft - max(f[a], f[b]) < min_depth:
+                mins.pop(k + 1 if f[b] >= f[a] else k)
+                changed = True
+                break
+    minima = tuple(Extremum(float(centers[i]), int(i), float(f[i]), float(err[i])) for i in mins)
+    barriers = []
+    for k in range(len(mins) - 1):
+        a, b = mins[k], mins[k + 1]
+        t = _top_between(f, a, b)
+        ft = float(f[t]) if np.isfinite(f[t]) else float("inf")
+        barriers.append(Barrier(
+            position=float(centers[t]), index=int(t), left_minimum=float(centers[a]),
+            right_minimum=float(centers[b]), height_from_left_kJ_per_mol=ft - float(f[a]),
+            height_from_right_kJ_per_mol=ft - float(f[b]),
+            error_from_left_kJ_per_mol=_delta_error(pb, p, t, a, kt),
+            error_from_right_kJ_per_mol=_delta_error(pb, p, t, b, kt),
+        ))
+    return minima, tuple(barriers)
+
+
 def free_energy_profile(
     values: np.ndarray,
     *,
@@ -274,7 +312,6 @@ def free_energy_profile(
     hist = histogram_1d(v, bins=bins, value_range=value_range, unit=unit, max_bins=max_bins)
     edges, centers = hist.edges, hist.centers
     nbins = centers.size
-    widths = np.diff(edges)
     dens = hist.density.copy()
     if jacobian == "distance":
         if np.any(centers <= 0):
@@ -290,44 +327,11 @@ def free_energy_profile(
     pb = _block_probabilities(idx, nbins, n_blocks)
     p = hist.counts / max(hist.counts.sum(), 1.0)
     err = np.array([_delta_error(pb, p, i, None, kt) if p[i] > 0 else np.nan for i in range(nbins)])
-    del widths
 
-    window = max(1, nbins // 25)
-    mins = _find_minima(f, window)
-    min_depth = float(min_depth_kT) * kt
-
-    def top_between(a: int, b: int) -> int:
-        seg = f[a : b + 1]
-        seg = np.where(np.isfinite(seg), seg, np.inf)  # an empty bin is an infinite barrier
-        return a + int(np.argmax(seg))
-
-    changed = True
-    while changed and len(mins) > 1:
-        changed = False
-        for k in range(len(mins) - 1):
-            a, b = mins[k], mins[k + 1]
-            t = top_between(a, b)
-            ft = f[t] if np.isfinite(f[t]) else np.inf
-            if ft - max(f[a], f[b]) < min_depth:
-                mins.pop(k + 1 if f[b] >= f[a] else k)
-                changed = True
-                break
-    minima = tuple(Extremum(float(centers[i]), int(i), float(f[i]), float(err[i])) for i in mins)
-    barriers = []
-    for k in range(len(mins) - 1):
-        a, b = mins[k], mins[k + 1]
-        t = top_between(a, b)
-        ft = float(f[t]) if np.isfinite(f[t]) else float("inf")
-        barriers.append(Barrier(
-            position=float(centers[t]), index=int(t), left_minimum=float(centers[a]),
-            right_minimum=float(centers[b]), height_from_left_kJ_per_mol=ft - float(f[a]),
-            height_from_right_kJ_per_mol=ft - float(f[b]),
-            error_from_left_kJ_per_mol=_delta_error(pb, p, t, a, kt),
-            error_from_right_kJ_per_mol=_delta_error(pb, p, t, b, kt),
-        ))
+    minima, barriers = _minima_and_barriers(f, centers, err, pb, p, kt, float(min_depth_kT) * kt)
     return FreeEnergyProfile(
         edges=edges, centers=centers, free_energy_kJ_per_mol=f, error_kJ_per_mol=err, counts=hist.counts,
-        minima=minima, barriers=tuple(barriers), unit=unit, kT_kJ_per_mol=kt, temperature_K=float(temperature_K),
+        minima=minima, barriers=barriers, unit=unit, kT_kJ_per_mol=kt, temperature_K=float(temperature_K),
         jacobian=jacobian, n_blocks=int(n_blocks), min_depth_kT=float(min_depth_kT), n_samples=int(v.size),
     )
 
