@@ -38,7 +38,7 @@ class EnergySeriesChoice:
 
     def stats(self, name: str) -> tuple[float, float, float] | None:
         """Mean, population std and g of a table series from the scan (None: take the masked route)."""
-        key = en._SERIES + name
+        key = en.SERIES_PREFIX + name
         if self.scan is None or key not in self.scan.names:
             return None
         g = next((x.statistical_inefficiency for x in self.sampling if x.name == name), None)
@@ -152,7 +152,7 @@ def energy_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | None, *,
             if fi.size == n_good:
                 kin_used = fp.kinetic_kJ_per_mol[fi[np.argsort(ti)]]
                 ksrc = "velocities (frames matched to energy rows by time)"
-        kcol = (en._SERIES + conserved.kinetic_column
+        kcol = (en.SERIES_PREFIX + conserved.kinetic_column
                 if kin_used is kg and kg is not None and conserved.kinetic_column is not None
                 and scan_e is not None else None)
         fl = en.energy_fluctuations(tg, eg, kin_used, scan=scan_e, kinetic_column=kcol)

@@ -21,7 +21,13 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.analyses.correlation import statistical_inefficiency
-from phasewake.core.analyses.energy_scan import _T, _Y, ENERGY_UNIT, TableScan, scan_columns
+from phasewake.core.analyses.energy_scan import (
+    ENERGY_COLUMN,
+    ENERGY_UNIT,
+    TIME_COLUMN,
+    TableScan,
+    scan_columns,
+)
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError, UnitError
 from phasewake.core.model.run import EnergyTable
@@ -447,7 +453,7 @@ def _dot(a: np.ndarray, b: np.ndarray) -> float:
 
 
 def _fit_scan(t: np.ndarray, y: np.ndarray) -> TableScan:
-    return scan_columns({_T: t, _Y: y}, cross=((_T, _Y),), no_extremes=(_T,))
+    return scan_columns({TIME_COLUMN: t, ENERGY_COLUMN: y}, cross=((TIME_COLUMN, ENERGY_COLUMN),), no_extremes=(TIME_COLUMN,))
 
 
 def _line_fit(t: np.ndarray, y: np.ndarray, scan: TableScan | None = None) -> _LineFit:
@@ -457,11 +463,11 @@ def _line_fit(t: np.ndarray, y: np.ndarray, scan: TableScan | None = None) -> _L
     The residual sum of squares is S_yy - S_xy^2 / S_xx; when that cancels (residuals below 1e-6 of the
     spread, a nearly perfect line) it is summed again exactly from the residuals, in blocks.
     """
-    if scan is None or not scan.finite or scan.n_rows != t.shape[0] or (_T, _Y) not in scan.cross:
+    if scan is None or not scan.finite or scan.n_rows != t.shape[0] or (TIME_COLUMN, ENERGY_COLUMN) not in scan.cross:
         scan = _fit_scan(t, y)
-    it, iy = scan.index(_T), scan.index(_Y)
+    it, iy = scan.index(TIME_COLUMN), scan.index(ENERGY_COLUMN)
     tmean, ymean = float(scan.mean[it]), float(scan.mean[iy])
-    sxx, sxy, syy = float(scan.m2[it]), scan.cross[(_T, _Y)], float(scan.m2[iy])
+    sxx, sxy, syy = float(scan.m2[it]), scan.cross[(TIME_COLUMN, ENERGY_COLUMN)], float(scan.m2[iy])
     slope = sxy / sxx if sxx > 0 else 0.0
     ssr = syy - slope * sxy
     if not ssr > 1e-6 * syy:
@@ -557,7 +563,7 @@ def series_sampling(table: EnergyTable, *, scan: TableScan | None = None) -> tup
         if s.role in ("time", "step"):
             continue
         v = np.asarray(s.values, dtype=np.float64)
-        key = _SERIES + s.name
+        key = SERIES_PREFIX + s.name
         if scan is not None and scan.finite and key in scan.names and v.size == scan.n_rows:
             i = scan.index(key)
             if v.size < 4:
@@ -580,7 +586,7 @@ def series_sampling(table: EnergyTable, *, scan: TableScan | None = None) -> tup
     return tuple(out)
 
 
-_SERIES = "series:"  # prefix of the table series' names in the scan of an energy table
+SERIES_PREFIX = "series:"  # prefix of the table series' names in the scan of an energy table
 
 
 def scan_energy_table(time_ps: np.ndarray, energy_kJ_per_mol: np.ndarray,
@@ -592,10 +598,10 @@ def scan_energy_table(time_ps: np.ndarray, energy_kJ_per_mol: np.ndarray,
     another length than the time are left out (their kernels sum them alone).
     """
     t = np.asarray(time_ps, dtype=np.float64)
-    cols = {_T: t, _Y: np.asarray(energy_kJ_per_mol, dtype=np.float64)}
+    cols = {TIME_COLUMN: t, ENERGY_COLUMN: np.asarray(energy_kJ_per_mol, dtype=np.float64)}
     if table is not None:
         for s in table.series.values():
             v = np.asarray(s.values)
             if s.role not in ("time", "step") and v.shape == t.shape:
-                cols[_SERIES + s.name] = v
-    return scan_columns(cols, diffs=(_T, _Y), cross=((_T, _Y),), no_extremes=(_T,))
+                cols[SERIES_PREFIX + s.name] = v
+    return scan_columns(cols, diffs=(TIME_COLUMN, ENERGY_COLUMN), cross=((TIME_COLUMN, ENERGY_COLUMN),), no_extremes=(TIME_COLUMN,))

@@ -14,7 +14,14 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.analyses.energy_scan import _T, _Y, ENERGY_UNIT, TableScan, fast_median, scan_columns
+from phasewake.core.analyses.energy_scan import (
+    ENERGY_COLUMN,
+    ENERGY_UNIT,
+    TIME_COLUMN,
+    TableScan,
+    fast_median,
+    scan_columns,
+)
 
 
 @dataclass(frozen=True)
@@ -74,8 +81,8 @@ def find_energy_events(
     e = np.asarray(energy_kJ_per_mol, dtype=np.float64)
     settings = {"jump_robust_sigma": jump_robust_sigma, "gap_factor": gap_factor, "max_listed": max_listed,
                 "robust_sample": robust_sample}
-    if scan is None or scan.n_rows != e.shape[0] or _Y not in scan.diffs or _T not in scan.diffs:
-        scan = scan_columns({_T: t, _Y: e}, diffs=(_T, _Y), no_extremes=(_T,), robust_sample=robust_sample)
+    if scan is None or scan.n_rows != e.shape[0] or ENERGY_COLUMN not in scan.diffs or TIME_COLUMN not in scan.diffs:
+        scan = scan_columns({TIME_COLUMN: t, ENERGY_COLUMN: e}, diffs=(TIME_COLUMN, ENERGY_COLUMN), no_extremes=(TIME_COLUMN,), robust_sample=robust_sample)
     events: list[EnergyEvent] = []
     rows = None  # rows of the finite energies (None: every row)
     time_scan = energy_scan = scan
@@ -90,8 +97,8 @@ def find_energy_events(
                                       ENERGY_UNIT, f"non-finite energy at t = {t[i]:.6g} ps"))
         if bad.size:
             rows, tf, ef = np.flatnonzero(good), t[good], e[good]
-        time_scan = scan_columns({_T: t}, diffs=(_T,), no_extremes=(_T,), robust_sample=robust_sample)
-        energy_scan = scan_columns({_T: tf, _Y: ef}, diffs=(_Y,), no_extremes=(_T,), robust_sample=robust_sample)
+        time_scan = scan_columns({TIME_COLUMN: t}, diffs=(TIME_COLUMN,), no_extremes=(TIME_COLUMN,), robust_sample=robust_sample)
+        energy_scan = scan_columns({TIME_COLUMN: tf, ENERGY_COLUMN: ef}, diffs=(ENERGY_COLUMN,), no_extremes=(TIME_COLUMN,), robust_sample=robust_sample)
     spacing = _spacing_events(t, time_scan, gap_factor=gap_factor, max_listed=max_listed)
     steps = _step_events(tf, ef, energy_scan, rows, jump_robust_sigma=jump_robust_sigma, max_listed=max_listed)
     events += spacing[0] + steps[0]
@@ -123,7 +130,7 @@ def _spacing_events(t: np.ndarray, scan: TableScan, *, gap_factor: float,
                     max_listed: int) -> tuple[list[EnergyEvent], int, int, float | None]:
     """(events, overlaps and reversals, gaps, median spacing) of the time column."""
     events: list[EnergyEvent] = []
-    dt_s = scan.diffs[_T]
+    dt_s = scan.diffs[TIME_COLUMN]
     pos = dt_s.sample[dt_s.sample > 0]  # a copy: partitioned in place below
     median_dt = fast_median(pos, overwrite=True) if pos.size else None
     over = _flagged(t, scan, dt_s.block_min <= 0, lambda d: d <= 0)
@@ -154,10 +161,10 @@ def _step_events(t: np.ndarray, e: np.ndarray, scan: TableScan, rows: np.ndarray
     n = e.shape[0]
     if n < 5:
         return events, 0.0, 0, None
-    de_s = scan.diffs[_Y]
+    de_s = scan.diffs[ENERGY_COLUMN]
     med = fast_median(de_s.sample)
     dev = np.subtract(de_s.sample, med)
-    ie = scan.index(_Y)
+    ie = scan.index(ENERGY_COLUMN)
     floor = 1e-12 * max(1.0, float(scan.maximum[ie]), -float(scan.minimum[ie]))
     s = max(1.4826 * fast_median(np.abs(dev, out=dev), overwrite=True), floor)
     max_jump = max(float(de_s.block_max.max()) - med, med - float(de_s.block_min.min())) / s

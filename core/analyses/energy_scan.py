@@ -16,7 +16,7 @@ from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.errors import AnalysisError
 
 ENERGY_UNIT = "kJ/mol"
-_T, _Y = "@time", "@energy"  # column names of the time and the judged energy in a scan
+TIME_COLUMN, ENERGY_COLUMN = "@time", "@energy"  # column names of the time and the judged energy in a scan
 
 SCAN_BLOCK = 1 << 16  # rows per block: a few columns of a block stay in cache while they are summed
 

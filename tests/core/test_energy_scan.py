@@ -14,7 +14,7 @@ import pytest
 
 from phasewake.core.analyses import energy as en
 from phasewake.core.analyses import energy_events as en_events
-from phasewake.core.analyses.energy_scan import _T, _Y, fast_median, scan_columns
+from phasewake.core.analyses.energy_scan import ENERGY_COLUMN, TIME_COLUMN, fast_median, scan_columns
 from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from tests.core.energy_events_reference import events_masked
 
@@ -73,7 +73,7 @@ def _planted(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 @pytest.mark.parametrize("block", [1000, 4096, 1 << 16])
 def test_events_from_the_scan_equal_the_masked_route(block):
     t, e = _planted(30_000, seed=5)
-    sc = scan_columns({_T: t, _Y: e}, diffs=(_T, _Y), no_extremes=(_T,), block=block,
+    sc = scan_columns({TIME_COLUMN: t, ENERGY_COLUMN: e}, diffs=(TIME_COLUMN, ENERGY_COLUMN), no_extremes=(TIME_COLUMN,), block=block,
                          robust_sample=7000)  # a subsample, as on long series
     settings = {"jump_robust_sigma": 8.0, "gap_factor": 1.5, "max_listed": 50, "robust_sample": 7000}
     fast = en_events.find_energy_events(t, e, robust_sample=7000, scan=sc)
