@@ -341,9 +341,8 @@ class KeptFrames(ChunkedFrames):
         self.has_velocities = inner.has_velocities
         self.velocities_estimated = inner.velocities_estimated
         self.has_box = inner.has_box
-        for attr in ("positions_lossy", "lossy_positions"):
-            if hasattr(inner, attr):
-                setattr(self, attr, getattr(inner, attr))
+        if hasattr(inner, "positions_lossy"):
+            self.positions_lossy = inner.positions_lossy
 
     def iter_chunks(
         self,

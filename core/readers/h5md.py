@@ -109,7 +109,7 @@ class _Axis:
     time_ps: np.ndarray | None  # (K,) or None when the element has no time
 
 
-def _check_claimed_rows(ds: h5py.Dataset, *, path: Path, name: str) -> None:
+def check_claimed_rows(ds: h5py.Dataset, *, path: Path, name: str) -> None:
     """CorruptFileError when a dataset's first dimension claims more rows than the file holds data for.
 
     Checked before anything of that length is allocated: a damaged or hostile header may claim 1e12
@@ -136,8 +136,8 @@ def _check_claimed_rows(ds: h5py.Dataset, *, path: Path, name: str) -> None:
             written = max(room, 0) // row_bytes
         else:
             return
-    except (AttributeError, OSError, ValueError, TypeError):
-        return  # an older library without these calls: the reads themselves fail cleanly later
+    except (OSError, ValueError):
+        return  # a layout the HDF5 library cannot describe: the reads themselves fail with a clear error
     if written < n:
         raise CorruptFileError(f"{name} claims {n} rows, but the file holds data for at most {written} "
                                "(a damaged header, or a file that was never finished)", path=path)
@@ -148,7 +148,7 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
     import h5py
 
     if "value" in g and isinstance(g["value"], h5py.Dataset):
-        _check_claimed_rows(g["value"], path=path, name=f"{name}/value")
+        check_claimed_rows(g["value"], path=path, name=f"{name}/value")
 
     def values(key: str) -> np.ndarray | None:
         if key not in g:
@@ -314,7 +314,7 @@ def _observable_series(f: h5py.File, path: Path, warnings: list[str]) -> list[_S
         base = name.rsplit("/", 1)[-1]
         role_dim = _ROLE_DIMENSION.get(OBSERVABLE_ROLES.get(base, "other"))
         u = _observable_unit(ds, name, role_dim, path)
-        _check_claimed_rows(ds, path=path, name=f"observables/{name}/value")
+        check_claimed_rows(ds, path=path, name=f"observables/{name}/value")
         values = np.asarray(ds[()], dtype=np.float64) * u.factor
         if thermo and base in _THERMO_PER_PARTICLE:
             if particle_number is None:

@@ -175,9 +175,9 @@ def open_mdtraj_h5_run(path: str | Path) -> Run:
         n_frames, n_atoms = int(shape[0]), int(shape[1])
         if n_frames == 0:
             raise MissingDataError("mdtraj HDF5 file has no frames", path=path)
-        from phasewake.core.readers.h5md import _check_claimed_rows
+        from phasewake.core.readers.h5md import check_claimed_rows
 
-        _check_claimed_rows(f["coordinates"], path=path, name="/coordinates")  # before n_frames is allocated
+        check_claimed_rows(f["coordinates"], path=path, name="/coordinates")  # before n_frames is allocated
         pf = _factor(f, "coordinates", path)
         if "time" in f:
             time = np.asarray(f["time"][()], dtype=np.float64) * _factor(f, "time", path)
