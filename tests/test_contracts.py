@@ -27,7 +27,6 @@ KNOWN_CYCLE_IMPORTS = (
     "core.analyses.coordinates -> core.analyses.projection",
     "core.analyses.coordinate_choice -> core.analyses.crossings",
     "core.model.framepass -> core.model.parallel",
-    "core.readers.xdr -> core.readers.trajectory",
     "core.model.parallel -> core.model.cluster",
     "core.model.run -> core.model.window",
 )

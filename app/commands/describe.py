@@ -34,7 +34,7 @@ def _units(items: list[str]) -> dict[str, str] | None:
 def run(args: argparse.Namespace) -> int:
     from phasewake.core.readers import describe_run, open_run
     from phasewake.core.readers.describe import format_description
-    from phasewake.core.readers.trajectory import quiet_c_stdout
+    from phasewake.core.readers.quiet import quiet_c_stdout
 
     units = _units(args.unit)
     with quiet_stdout(), quiet_c_stdout():

@@ -17,10 +17,7 @@ from __future__ import annotations
 
 import contextlib
 import math
-import os
 import struct
-import sys
-import threading
 import warnings as _warnings
 from collections.abc import Iterator, Sequence
 from pathlib import Path
@@ -44,6 +41,7 @@ from phasewake.core.model.run import (
     budget_chunk_frames,
 )
 from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
+from phasewake.core.readers.quiet import quiet_mdtraj
 from phasewake.core.readers.xdr import (  # noqa: F401 - _check_xdr_complete and trr_velocity_frames: names kept here
     _check_xdr_complete,
     _trr_header,
@@ -68,64 +66,6 @@ _NEEDS_N_ATOMS = (".mdcrd", ".crd")
 def _suffix(path: Path) -> str:
     name = path.name.lower()
     return ".pdb.gz" if name.endswith(".pdb.gz") else path.suffix.lower()
-
-
-_QUIET_LOCK = threading.RLock()
-_QUIET_DEPTH = 0
-
-
-@contextlib.contextmanager
-def quiet_c_stdout() -> Iterator[None]:
-    """Silence writes to file descriptor 1 (mdtraj's DCD plugin prints there from C) and Python's stdout.
-
-    Library code never prints; mdtraj's C plugins do, below Python. This swaps fd 1 for /dev/null for
-    the duration. The swap is process-wide, so it is serialised by a lock (re-entrant, nesting counted)
-    and callers keep it short: one chunk read at a time, never across a ``yield``.
-    """
-    global _QUIET_DEPTH
-    with _QUIET_LOCK:
-        _QUIET_DEPTH += 1
-        saved = None
-        fd = 1
-        sink = None
-        saved_py = sys.stdout
-        try:
-            if _QUIET_DEPTH == 1:
-                try:
-                    fd = sys.__stdout__.fileno() if sys.__stdout__ is not None else 1
-                except (AttributeError, ValueError, OSError):
-                    fd = 1
-                try:
-                    sys.stdout.flush()
-                except (AttributeError, ValueError, OSError):
-                    pass
-                try:
-                    saved = os.dup(fd)
-                    devnull = os.open(os.devnull, os.O_WRONLY)
-                    os.dup2(devnull, fd)
-                    os.close(devnull)
-                except OSError:
-                    saved = None
-                sink = open(os.devnull, "w")  # noqa: SIM115
-                sys.stdout = sink
-            yield
-        finally:
-            _QUIET_DEPTH -= 1
-            if sink is not None:
-                sys.stdout = saved_py
-                sink.close()
-            if saved is not None:
-                os.dup2(saved, fd)
-                os.close(saved)
-
-
-@contextlib.contextmanager
-def _quiet_mdtraj() -> Iterator[None]:
-    """No chatter on stdout and no mdtraj advice warnings (netCDF4 missing, ...)."""
-    with quiet_c_stdout(), _warnings.catch_warnings():
-        _warnings.filterwarnings("ignore", message=".*netCDF4.*")
-        _warnings.filterwarnings("ignore", category=DeprecationWarning)
-        yield
 
 
 def _sniff(path: Path) -> str | None:
@@ -180,7 +120,7 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
         key = (str(p.resolve()), st.st_size, st.st_mtime_ns)
         if key in _TOPOLOGY_CACHE:
             return _TOPOLOGY_CACHE[key]
-        with _quiet_mdtraj():
+        with quiet_mdtraj():
             top = md.load_topology(str(p))
         if len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
             _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
@@ -328,7 +268,7 @@ class MdtrajFrames(ChunkedFrames):
             import mdtraj as md
 
             out = []
-            with _quiet_mdtraj(), md.formats.TRRTrajectoryFile(str(self.path)) as f:
+            with quiet_mdtraj(), md.formats.TRRTrajectoryFile(str(self.path)) as f:
                 for i in sel:
                     f.seek(int(i))
                     res = f._read(1, None, get_velocities=True, get_forces=False)
@@ -372,7 +312,7 @@ class MdtrajFrames(ChunkedFrames):
             for i in range(0, expected.size, per_chunk):
                 sel = expected[i : i + per_chunk]
                 try:
-                    with _quiet_mdtraj():
+                    with quiet_mdtraj():
                         only_vel = self._velocities(sel, cols)
                 except read_errors as exc:
                     raise CorruptFileError(f"cannot read velocities at frame {int(sel[0])} "
@@ -382,14 +322,14 @@ class MdtrajFrames(ChunkedFrames):
                                  velocities_nm_per_ps=only_vel, box_nm=None)
             return
         try:
-            with _quiet_mdtraj():
+            with quiet_mdtraj():
                 chunks = iter(md.iterload(str(self.path), chunk=per_chunk, skip=start, stride=stride,
                                           atom_indices=cols, **self._load_kwargs()))
         except read_errors as exc:
             raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
         while done < expected.size:
             try:
-                with _quiet_mdtraj():
+                with quiet_mdtraj():
                     tr = next(chunks, None)
                     if tr is None:
                         break
@@ -425,7 +365,7 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
     info: dict[str, Any] = {}
     t: np.ndarray | None
     if suf == ".dcd":
-        with _quiet_mdtraj(), md.formats.DCDTrajectoryFile(str(path)) as f:
+        with quiet_mdtraj(), md.formats.DCDTrajectoryFile(str(path)) as f:
             n = len(f)
         _check_dcd_size(path, n, top.n_atoms)
         return n, _dcd_time(path, n), True, info
@@ -471,7 +411,7 @@ def _count_and_time(path: Path, top: mdtraj.Topology, warnings: list[str]) -> tu
     n = 0
     times = []
     has_box = False
-    with _quiet_mdtraj():
+    with quiet_mdtraj():
         for tr in md.iterload(str(path), chunk=1000, **kw):
             n += tr.n_frames
             times.append(np.asarray(tr.time, dtype=np.float64))

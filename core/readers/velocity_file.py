@@ -90,11 +90,11 @@ class VelocityFileFrames(ChunkedFrames):
     def _velocities(self, start: int, stop: int, stride: int, atoms: np.ndarray | None) -> np.ndarray:
         import mdtraj as md
 
-        from phasewake.core.readers.trajectory import _quiet_mdtraj
+        from phasewake.core.readers.quiet import quiet_mdtraj
 
         # mdtraj reads atoms in increasing order: read the sorted set, then put them in the order asked
         read = None if atoms is None else np.unique(atoms)
-        with _quiet_mdtraj(), md.formats.DCDTrajectoryFile(str(self.path)) as f:
+        with quiet_mdtraj(), md.formats.DCDTrajectoryFile(str(self.path)) as f:
             f.seek(start)
             n = len(range(start, stop, stride))
             out = f.read(n_frames=n, stride=stride, atom_indices=read)

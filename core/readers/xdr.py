@@ -88,10 +88,10 @@ def scan_index(path: Path, kind: str) -> FrameIndex:
     """Walk the file: mdtraj's offsets, the last frame checked whole, each header's time and step."""
     import mdtraj as md
 
-    from phasewake.core.readers.trajectory import _quiet_mdtraj
+    from phasewake.core.readers.quiet import quiet_mdtraj
 
     cls = md.formats.XTCTrajectoryFile if kind == ".xtc" else md.formats.TRRTrajectoryFile
-    with _quiet_mdtraj(), cls(str(path)) as f:
+    with quiet_mdtraj(), cls(str(path)) as f:
         offsets = np.asarray(f.offsets, dtype=np.int64)
     _check_xdr_complete(path, offsets, kind)
     times, steps, has_v = _xdr_times(path, offsets, kind)
