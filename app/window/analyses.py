@@ -19,14 +19,15 @@ import numpy as np
 from phasewake.app.window.replicas import replicas_of
 from phasewake.core.analyses import (
     coordinates,
-    correlation,
     crossings,
     landscape,
-    sampling,
     velocity,
 )
 from phasewake.core.analyses.audit import AuditRequest
+from phasewake.core.analyses.correlation.request import CorrelationRequest
+from phasewake.core.analyses.landscape import LandscapeRequest
 from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.sampling import SamplingRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
@@ -377,53 +378,55 @@ def _pca_figures(pca: Any, traces: dict[str, Trace], *, atoms: str = "") -> list
 # ---- Correlation ----------------------------------------------------------------------------
 
 def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    """The memory of an energy series and of the coordinate (CorrelationRequest each: autocorrelation, g and
+    block averages), and the velocity autocorrelation and vibrational spectrum of the window's frames."""
     figs: list[FigureSpec] = []
     notes: list[str] = []
-    run = ctx.run
-    series: list[tuple[str, np.ndarray, float, str]] = []
-    table = _table_in_window(run, ctx.window_ps)
-    if table is not None and len(table) > 8:
-        for role in ("potential", "total", "temperature"):
-            s = table.by_role(role)
-            if s is not None:
-                t = np.asarray(table.time_ps, float)
-                series.append((s.name, np.asarray(s.values, float), float(np.median(np.diff(t))), s.unit))
-                break
+    verdicts: list[Any] = []
+    run = window_run(ctx.run, ctx.start, ctx.stop)  # the window's frames and energy rows
+    requests = [CorrelationRequest(series=name) for name in _energy_series(run, ("potential", "total", "temperature"))]
     if ctx.coordinate and run.frames is not None:
-        cs = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
-        t = np.asarray(cs.time_ps, float)
-        if t.size > 8:
-            series.append((cs.spec, np.asarray(cs.values, float), float(np.median(np.diff(t))), cs.unit))
-    verdicts = []
-    for i, (name, x, dt, unit) in enumerate(series):
-        yield Progress(i, len(series) + 2, f"autocorrelation of {name}")
-        what = {"series": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
-                "window_ps": ctx.window_ps}
-        res, blocks = yield from through_cache(run, "correlation", what, _correlation_numbers(x, dt, unit))
-        figs.append(plots.autocorrelation_figure(res, name=name))
-        verdicts.append(correlation.judge_ess(res, name=name))
-        figs.append(plots.blocking_figure(blocks, name=name))
-    if run.frames is not None and run.frames.has_velocities and ctx.stop - ctx.start > 16:
-        yield Progress(len(series), len(series) + 2, "velocity autocorrelation")
-        sub = window_run(run, ctx.start, ctx.stop)
-        v = yield from _labelled(through_cache(sub, "vacf", {}, velocity.vacf(sub)), "VACF")
+        requests.append(CorrelationRequest(coordinate=ctx.coordinate))
+    for i, request in enumerate(requests):
+        what = request.series or request.coordinate
+        yield Progress(i, len(requests) + 2, f"autocorrelation of {what}")
+        try:
+            report = yield from _labelled(requested(run, request), f"autocorrelation of {what}")
+        except PhasewakeError as exc:
+            notes.append(f"{what}: {exc}")
+            continue
+        figs.append(plots.autocorrelation_figure(report.correlation, name=report.name))
+        verdicts.extend(report.verdicts)
+        if report.blocking is not None:
+            figs.append(plots.blocking_figure(report.blocking, name=report.name))
+    if run.frames is not None and run.frames.has_velocities and run.n_frames > 16:
+        yield Progress(len(requests), len(requests) + 2, "velocity autocorrelation")
+        v = yield from _labelled(through_cache(run, "vacf", {}, velocity.vacf(run)), "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _labelled(through_cache(sub, "spectrum", {}, velocity.vibrational_spectrum(sub)),
+        d = yield from _labelled(through_cache(run, "spectrum", {}, velocity.vibrational_spectrum(run)),
                                  "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
     if not figs:
-        return PanelResult(message="Nothing to correlate: the run has no energy series and no coordinate.")
+        return PanelResult(message=" ".join(notes) or "Nothing to correlate: the run has no energy series and no "
+                                                       "coordinate.")
     # the ACF of a series in time: give the keys a suffix so each can be chosen on its own
     figs = [_rekey(f, i) for i, f in enumerate(figs)]
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes))
 
 
-def _correlation_numbers(x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
-    """Autocorrelation, statistical inefficiency and block averages of one series (FFTs of the whole series)."""
-    yield Progress(0, 1, "autocorrelation and block averages")
-    return correlation.analyse_series(x, dt_ps=dt, unit=unit), correlation.blocking(x, unit=unit)
+def _energy_series(run: Run, roles: tuple[str, ...], min_rows: int = 8) -> list[str]:
+    """The name of the first energy column with one of ``roles`` (as a list: none when the run has no such
+    column or no more than ``min_rows`` rows in the window)."""
+    table = run.energies
+    if table is None or len(table) <= min_rows:
+        return []
+    for role in roles:
+        s = table.by_role(role)
+        if s is not None:
+            return [s.name]
+    return []
 
 
 def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
@@ -435,70 +438,42 @@ def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
 # ---- Sampling -------------------------------------------------------------------------------
 
 def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
-    """Running averages, coverage of phase space, segment divergence and R-hat (within and across runs)."""
+    """Running averages, coverage of phase space, segment divergence and R-hat, of the coordinate (with the open
+    runs that are replicas of this one) and of an energy series: SamplingRequest each."""
     yield Progress(0, None, "sampling")
     figs: list[FigureSpec] = []
     verdicts: list[Any] = []
     notes: list[str] = []
-    run = ctx.run
-    series: list[tuple[str, str, np.ndarray, np.ndarray, str]] = []  # name, key, time, values, unit
-    q_series = None
-    if ctx.coordinate and run.frames is not None:
-        q_series = yield from coordinate_series(run, ctx.coordinate, ctx.start, ctx.stop)
-        series.append((q_series.spec, "coordinate", np.asarray(q_series.time_ps, float),
-                       np.asarray(q_series.values, float), q_series.unit))
-    table = _table_in_window(run, ctx.window_ps)
-    if table is not None and len(table) > 16:
-        s = table.by_role("potential") or table.by_role("total")
-        if s is not None:
-            series.append((s.name, "energy", np.asarray(table.time_ps, float), np.asarray(s.values, float), s.unit))
-    for name, key, t, x, unit in series:
-        if t.size < 16:
-            continue
-        dt = float(np.median(np.diff(t)))
-        try:
-            what = {"series": key, "name": name, "coordinate": ctx.coordinate, "start": ctx.start, "stop": ctx.stop,
-                    "window_ps": ctx.window_ps}
-            ra, rh, div = yield from through_cache(run, "sampling", what, _sampling_numbers(x, dt, unit))
-            verdicts.append(sampling.judge_rhat(rh, name=name))
-            verdicts.append(sampling.judge_divergence(div, name=name))
-        except PhasewakeError as exc:
-            notes.append(f"{name}: {exc}")
-            continue
-        figs.append(plots.running_average_figure(ra, name=name, key=f"sampling.running.{key}",
-                                                 time_offset_ps=float(t[0])))
-    if q_series is not None and q_series.momentum is not None and q_series.values.size > 16:
-        t = np.asarray(q_series.time_ps, float)
-        cov = sampling.coverage_over_time(q_series.values, q_series.momentum, dt_ps=float(np.median(np.diff(t))))
-        figs.append(plots.coverage_figure(cov, x_label=q_series.spec, y_label="p", time_offset_ps=float(t[0])))
-    # across replicas: R-hat of the coordinate between the open runs that really are replicas of this one
-    pooled, skipped = replicas_of(run, ctx.others)
+    run = window_run(ctx.run, ctx.start, ctx.stop)
+    # across replicas: the open runs that really are replicas of this one
+    pooled, skipped = replicas_of(ctx.run, ctx.others)
     if skipped:
         notes.append("Not pooled as replicas: " + "; ".join(f"{name} ({why})" for name, why in skipped) + ".")
-    if pooled and q_series is not None:
-        chains = [np.asarray(q_series.values, float)]
-        for k, other in enumerate(pooled):
-            yield Progress(k, len(pooled), f"replica {other.name}")
-            o = yield from coordinate_series(other, ctx.coordinate, 0, other.n_frames)
-            chains.append(np.asarray(o.values, float))
-        n = min(c.size for c in chains)
-        names = ", ".join([run.name] + [o.name for o in pooled])
+    wanted: list[tuple[str, SamplingRequest, float]] = []  # figure key, request, time of its first sample
+    if ctx.coordinate and run.frames is not None and run.n_frames >= 16:
+        wanted.append(("coordinate", SamplingRequest(coordinate=ctx.coordinate, replicas=tuple(pooled)),
+                       float(run.time_ps[0])))
+    for name in _energy_series(run, ("potential", "total"), min_rows=16):
+        t0 = float(run.energies.time_ps[0])  # type: ignore[union-attr]
+        wanted.append(("energy", SamplingRequest(series=name), t0))
+    for key, request, t0 in wanted:
+        what = request.series or request.coordinate
         try:
-            verdicts.append(sampling.judge_rhat(sampling.rhat(np.stack([c[:n] for c in chains])),
-                                                name=f"{ctx.coordinate} across {len(chains)} replicas ({names})"))
-            notes.append(f"Pooled as replicas (same atoms, ensemble, thermostat, temperature and time step): {names}.")
+            report = yield from _labelled(requested(run, request), f"sampling of {what}")
         except PhasewakeError as exc:
-            notes.append(f"R-hat across replicas: {exc}")
+            notes.append(f"{what}: {exc}")
+            continue
+        verdicts.extend(report.verdicts)
+        figs.append(plots.running_average_figure(report.running, name=report.name, key=f"sampling.running.{key}",
+                                                 time_offset_ps=t0))
+        if report.coverage is not None:
+            figs.append(plots.coverage_figure(report.coverage, x_label=report.name, y_label="p", time_offset_ps=t0))
+        if report.rhat_replicas is not None:
+            names = ", ".join([ctx.run.name] + [o.name for o in pooled])
+            notes.append(f"Pooled as replicas (same atoms, ensemble, thermostat, temperature and time step): {names}.")
     if not figs and not verdicts:
         return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
     return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
-
-
-def _sampling_numbers(x: np.ndarray, dt: float, unit: str) -> Generator[Progress, None, Any]:
-    """Running average, segment R-hat and segment divergence of one series (the heavy part: null draws)."""
-    yield Progress(0, 1, "running average, R-hat and divergence")
-    return (sampling.running_average(x, dt_ps=dt, unit=unit), sampling.rhat_segments(x),
-            sampling.segment_divergence(x))
 
 
 # ---- Crossings and Landscape ----------------------------------------------------------------
@@ -561,20 +536,20 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     if need is not None:
         return need
     s = yield from coordinate_series(ctx.run, ctx.coordinate, ctx.start, ctx.stop)
-    temp, source = crossings.run_temperature(ctx.run)  # the one temperature rule of kT
+    temp, source = crossings.run_temperature(ctx.run)  # what LandscapeRequest takes when none is given
     if temp is None:
         return PanelResult(message="The free-energy profile needs a temperature: state the thermostat "
                                    "temperature in the Runs list (the files do not say).")
-    # the same profile as the report (no Jacobian), so both give the same barrier for one run; until both
-    # come from one request, a distance's 4 pi r^2 correction is not applied here either
-    prof = landscape.free_energy_profile(np.asarray(s.values, float), temperature_K=temp, unit=s.unit,
-                                         jacobian="none")
+    # the request of the command line and the report: the same profile (and Jacobian) for one run
+    start, stop = _frame_range(ctx)
+    prof = yield from _labelled(requested(ctx.run, LandscapeRequest(coordinate=ctx.coordinate, start=start,
+                                                                    stop=stop)), "free-energy profile")
     states, surface = dragged_states(ctx.choices)
     if states is None:
         try:
             sug = crossings.suggest_states(np.asarray(s.values, float), unit=s.unit)
             states, surface = (sug.a_hi, sug.b_lo), (surface if surface is not None else sug.surface)
-        except Exception:  # noqa: BLE001 - a profile without two states is still worth drawing
+        except PhasewakeError:  # a profile without two states is still worth drawing
             states = None
     if surface is None and states is not None:
         surface = 0.5 * (states[0] + states[1])
