@@ -1,11 +1,16 @@
 """The analyses behind a report, each a named step that returns its result or the reason it is missing.
 
-:func:`collect_analyses` runs them in order: the coordinate (given, or chosen for the run), one read of
-the frames for the audit, the coordinate and the principal components (each looked up in the result
-cache first), the crossings of the coordinate, then the analyses of the coordinate's values (time
-correlations, sampling checks, the phase-space density, the free-energy profile), which read no frames.
-The report's pages are drawn from the :class:`ReportAnalyses` it returns
-(:mod:`phasewake.core.figures.report_sections`); nothing is computed while drawing.
+The report builds the same requests as the command line and the window (:mod:`phasewake.core.analyses.
+request`) and runs them through the result cache: :func:`collect_analyses` runs the audit, the coordinate
+and the principal components in one read of the frames (``cached.cached_pass``), then, on the
+coordinate series already read, the crossings (``CrossingsRequest``), the time correlations
+(``CorrelationRequest``, also of the potential energy) and the sampling checks (``SamplingRequest``), each
+stored under its request's own key, so ``phasewake crossings`` or ``phasewake memory`` of the same run
+find them and the other way round. The phase-space density and the free-energy profile (whole run and
+each half on the same bins; the temperature by the one rule, ``crossings.run_temperature``, and the
+Jacobian ``"none"``, as ``LandscapeRequest`` decides) are computed from the same series. The report's
+pages are drawn from the :class:`ReportAnalyses` it returns (:mod:`phasewake.core.figures.report_sections`);
+nothing is computed while drawing.
 
 An analysis that cannot run on the data (no frames, no velocities, too short, no temperature) leaves
 its result None and says why, so its page can say so instead of inventing a figure.
@@ -13,9 +18,9 @@ its result None and says why, so its page can say so instead of inventing a figu
 
 from __future__ import annotations
 
-from collections.abc import Generator, Mapping
+from collections.abc import Callable, Generator, Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, TypeVar
 
 import numpy as np
 
@@ -30,11 +35,16 @@ from phasewake.core.store.cached import (
     cached_work,
     coordinates_item,
     pca_item,
+    requested,
 )
 
 if TYPE_CHECKING:
+    from phasewake.core.analyses.correlation.request import Series1D
+    from phasewake.core.analyses.request import AnalysisRequest
     from phasewake.core.model.run import Run
     from phasewake.core.store.cache import ResultCache
+
+T = TypeVar("T")
 
 PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (as in the window)
 MIN_SERIES_FRAMES = 40  # fewer frames of the coordinate: no sampling checks or free-energy profile
@@ -59,15 +69,10 @@ class ReportSettings:
 
 @dataclass(frozen=True)
 class SeriesAnalyses:
-    """Analyses of the coordinate's values (and of the potential energy's), computed without the frames."""
+    """Analyses of the coordinate's values (and of the potential energy's), reading no frames again."""
 
-    correlations: tuple[tuple[str, Any], ...] = ()  # (series name, CorrelationResult), coordinate first
-    blocking: tuple[str, Any] | None = None  # (series name, BlockingResult) of the first correlated series
-    running: Any = None  # sampling.RunningAverage of the coordinate
-    divergence: Any = None  # sampling.DivergenceResult, first half against second
-    coverage: Any = None  # sampling.CoverageResult in the (q, p) plane
-    rhat: Any = None  # sampling.RhatResult over segments
-    verdicts: tuple[Any, ...] = ()  # of the estimators, the divergence and R-hat
+    correlations: tuple[Any, ...] = ()  # CorrelationReport of the coordinate, then of the potential energy
+    sampling: Any = None  # SamplingReport of the coordinate
     density: Any = None  # landscape.Histogram2D of (q, p)
     density_reason: str = ""
     profile: Any = None  # landscape.FreeEnergyProfile of the whole run
@@ -75,6 +80,17 @@ class SeriesAnalyses:
     profile_reason: str = ""
     temperature_K: float | None = None  # of the profile
     temperature_source: str = ""
+
+    @property
+    def verdicts(self) -> list[Any]:
+        """The coordinate's correlation verdicts (effective samples, estimators, equilibration) and its sampling
+        verdicts (R-hat over segments, half against half)."""
+        out: list[Any] = []
+        if self.correlations and self.correlations[0].kind == "coordinate":
+            out.extend(self.correlations[0].verdicts)
+        if self.sampling is not None:
+            out.extend(self.sampling.verdicts)
+        return out
 
 
 @dataclass(frozen=True)
@@ -136,7 +152,8 @@ def collect_analyses(run: Run, settings: ReportSettings, *, cache: ResultCache |
     return ReportAnalyses(coordinate=spec, coordinate_reason=spec_reason, audit=audit, audit_reason=audit_reason,
                           series=series, series_reason=series_reason, crossings=crossings,
                           crossings_reason=crossings_reason or series_reason, pca=pca, pca_reason=pca_reason,
-                          of_series=series_analyses(run, series, temperature, source))
+                          of_series=(yield from relay(series_analyses(run, spec, series, temperature, source, cache),
+                                                      4, total, "memory of the coordinate")))
 
 
 def choose_report_coordinate(run: Run, coordinate: str | None) -> tuple[str | None, str]:
@@ -222,7 +239,7 @@ def coordinate_step(run: Run, spec: str | None, spec_reason: str, shared: Mappin
 
 
 def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSettings,
-                   cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+                   cache: ResultCache | None) -> Work[tuple[Any, str]]:
     """Barrier crossings of the coordinate: the command line's :class:`CrossingsRequest` (its temperature
     rule, kT/m_eff, Jacobian and defaults), analysed on the series already read and kept in the result cache
     under the request's own key (so ``phasewake crossings`` of the same run finds it, and the other way round).
@@ -234,8 +251,7 @@ def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSett
     request = CrossingsRequest(coordinate=spec, states=settings.states, surface=settings.surface,
                                temperature_K=settings.temperature_K)
     try:
-        result = yield from cached_work(run, request.name, request.settings(), request.analyse([run], [series]),
-                                        cache=cache, extra_paths=request.reference_paths(run))
+        result = yield from on_series(run, request, request.analyse([run], [series]), cache)
     except PhasewakeError as exc:
         return None, f"crossings could not be analysed: {exc}"
     return result, ""
@@ -267,17 +283,18 @@ def report_temperature(run: Run, given: float | None) -> tuple[float | None, str
     return run_temperature(run)
 
 
-def series_analyses(run: Run, series: Any, temperature_K: float | None, temperature_source: str) -> SeriesAnalyses:
-    """Correlations, sampling checks, phase-space density and free-energy profile of the coordinate's values."""
+def series_analyses(run: Run, spec: str | None, series: Any, temperature_K: float | None, temperature_source: str,
+                    cache: ResultCache | None) -> Work[SeriesAnalyses]:
+    """Correlations, sampling checks, phase-space density and free-energy profile of the coordinate's values
+    (the correlations and sampling checks are the requests of ``phasewake memory`` and the window)."""
     density, density_reason = phase_density(series)
     profile, halves, profile_reason = free_energy_profiles(series, temperature_K, temperature_source)
-    correlations, blocking = correlations_of(run, series)
-    own = correlations[0][1] if correlations and series is not None and correlations[0][0] == series.label else None
-    sampling = sampling_checks(series, own)
-    return SeriesAnalyses(correlations=correlations, blocking=blocking, density=density,
+    correlations = yield from correlation_step(run, spec, series, cache)
+    sampling = yield from sampling_step(run, spec, series, cache)
+    return SeriesAnalyses(correlations=correlations, sampling=sampling, density=density,
                           density_reason=density_reason, profile=profile, halves=halves,
                           profile_reason=profile_reason, temperature_K=temperature_K,
-                          temperature_source=temperature_source, **sampling)
+                          temperature_source=temperature_source)
 
 
 def _finite_values(series: Any) -> np.ndarray:
@@ -285,75 +302,60 @@ def _finite_values(series: Any) -> np.ndarray:
     return q[np.isfinite(q)]
 
 
-def _spacing_ps(time_ps: Any) -> float:
-    return float(np.median(np.diff(np.asarray(time_ps, float))))
+def on_series(run: Run, request: AnalysisRequest, work: Work[T], cache: ResultCache | None) -> Work[T]:
+    """``work``, the request's own analysis of a series the report has already read, kept in the result cache
+    under the request's key (that of ``requested(run, request)``): the command line's request of the same run
+    finds it, and the other way round, and the frames are not read again."""
+    return (yield from cached_work(run, request.name, request.settings(), work, cache=cache,
+                                   extra_paths=request.reference_paths(run)))
 
 
-def correlations_of(run: Run, series: Any) -> tuple[tuple[tuple[str, Any], ...], tuple[str, Any] | None]:
-    """Autocorrelation of the coordinate and of the potential energy (the first also by blocking)."""
-    from phasewake.core.analyses.correlation import analyse_series, blocking
+def _now(make: Callable[[], T]) -> Work[T]:
+    """A result made at once, as work (for the cache)."""
+    return make()
+    yield  # pragma: no cover - makes this a generator
 
-    candidates: list[tuple[str, np.ndarray, float, str]] = []
-    if series is not None and series.values.size > 20:
-        candidates.append((series.label, np.asarray(series.values, float), _spacing_ps(series.time_ps), series.unit))
-    if run.energies is not None and len(run.energies) > 20:
-        pot = run.energies.by_role("potential")
-        if pot is not None:
-            candidates.append((pot.name, np.asarray(pot.values, float), _spacing_ps(run.energies.time_ps), pot.unit))
-    results: list[tuple[str, Any]] = []
-    blocked: tuple[str, Any] | None = None
-    for name, x, dt, unit in candidates:
-        x = x[np.isfinite(x)]
+
+def as_series_1d(series: Any) -> Series1D:
+    """A coordinate series as the memory requests read one (``correlation.request.read_series``)."""
+    from phasewake.core.analyses.correlation.request import Series1D
+
+    return Series1D(name=series.label, unit=series.unit, kind="coordinate", source=series.spec,
+                    time_ps=np.asarray(series.time_ps, float), values=np.asarray(series.values, float),
+                    momentum=None if series.momentum is None else np.asarray(series.momentum, float),
+                    momentum_unit=series.momentum_unit, periodic=bool(series.periodic))
+
+
+def correlation_step(run: Run, spec: str | None, series: Any, cache: ResultCache | None) -> Work[tuple[Any, ...]]:
+    """:class:`CorrelationRequest` of the coordinate and of the potential energy (those that can be had)."""
+    from phasewake.core.analyses.correlation.request import CorrelationRequest
+
+    out = []
+    if series is not None and spec is not None:
+        request = CorrelationRequest(coordinate=spec)
         try:
-            results.append((name, analyse_series(x, dt_ps=dt, unit=unit)))
-            if len(results) == 1:
-                blocked = (name, blocking(x, unit=unit))
+            out.append((yield from on_series(run, request, request.analyse(as_series_1d(series)), cache)))
         except PhasewakeError:
-            continue
-    return tuple(results), blocked
-
-
-def sampling_checks(series: Any, correlation: Any = None) -> dict[str, Any]:
-    """Running average, half-against-half divergence, (q, p) coverage and segment R-hat of the coordinate,
-    with the verdicts of the divergence, R-hat and the estimators of the statistical inefficiency (from
-    ``correlation``, the coordinate's CorrelationResult, when there is one)."""
-    from phasewake.core.analyses import sampling
-    from phasewake.core.analyses.correlation import judge_estimators
-
-    out: dict[str, Any] = {}
-    if series is None or _finite_values(series).size < MIN_SERIES_FRAMES:
-        return out
-    q, dt, name = _finite_values(series), _spacing_ps(series.time_ps), series.label
-    verdicts: list[Any] = []
-    if correlation is not None:  # the estimators of g compared (an oscillating coordinate closes Sokal's window early)
-        est = judge_estimators(correlation, name=name)
-        if est is not None:
-            verdicts.append(est)
-    steps = {"running": lambda: sampling.running_average(q, dt_ps=dt, unit=series.unit),
-             "divergence": lambda: sampling.segment_divergence(q),
-             "coverage": lambda: _coverage(series, dt),
-             "rhat": lambda: sampling.rhat_segments(q)}
-    for key, step in steps.items():
+            pass  # too short or constant: the page says no series could be correlated
+    if run.energies is not None and run.energies.by_role("potential") is not None:
         try:
-            out[key] = step()
+            out.append((yield from requested(run, CorrelationRequest(series="potential"), cache=cache)))
         except PhasewakeError:
-            continue  # the page leaves that part out
-    if out.get("divergence") is not None:
-        verdicts.append(sampling.judge_divergence(out["divergence"], name=name))
-    if out.get("rhat") is not None:
-        verdicts.append(sampling.judge_rhat(out["rhat"], name=name))
-    out["verdicts"] = tuple(verdicts)
-    return out
+            pass
+    return tuple(out)
 
 
-def _coverage(series: Any, dt_ps: float) -> Any:
-    from phasewake.core.analyses.sampling import coverage_over_time
+def sampling_step(run: Run, spec: str | None, series: Any, cache: ResultCache | None) -> Work[Any]:
+    """:class:`SamplingRequest` of the coordinate, or None when it cannot be had."""
+    from phasewake.core.analyses.sampling import SamplingRequest
 
-    p = series.momentum if series.momentum is not None else series.velocity
-    if p is None or np.asarray(p).size != np.asarray(series.values).size:
+    if series is None or spec is None or _finite_values(series).size < MIN_SERIES_FRAMES:
         return None
-    both = np.isfinite(series.values) & np.isfinite(p)
-    return coverage_over_time(np.asarray(series.values)[both], np.asarray(p)[both], dt_ps=dt_ps)
+    request = SamplingRequest(coordinate=spec)
+    try:
+        return (yield from on_series(run, request, _now(lambda: request.analyse(as_series_1d(series), [])), cache))
+    except PhasewakeError:
+        return None
 
 
 def phase_density(series: Any) -> tuple[Any, str]:

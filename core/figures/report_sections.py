@@ -197,10 +197,10 @@ def phase_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
 
 def correlation_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
     """Autocorrelation and blocking of the coordinate, autocorrelation of the potential energy."""
-    of = got.of_series
-    figs = [plots.autocorrelation_figure(res, name=name) for name, res in of.correlations]
-    if of.blocking is not None:
-        figs.insert(1, plots.blocking_figure(of.blocking[1], name=of.blocking[0]))
+    reports = got.of_series.correlations
+    figs = [plots.autocorrelation_figure(r.correlation, name=r.name) for r in reports]
+    if reports and reports[0].blocking is not None:
+        figs.insert(1, plots.blocking_figure(reports[0].blocking, name=reports[0].name))
     if not figs:
         return "correlation", "no series long enough to correlate"
     spec = _joined("report.correlation", "Time correlations", figs, " ".join(_lettered(figs, full_stop=True)))
@@ -220,7 +220,7 @@ def sampling_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
         plot, caption = _profile_with_halves(got)
         plots_.append(plot)
         parts.append("landscape.profile")
-    elif of.running is None:
+    elif of.sampling is None:
         return "sampling", of.profile_reason
     else:
         caption = f"No free-energy profile: {of.profile_reason}."
@@ -229,12 +229,13 @@ def sampling_page(got: ReportAnalyses) -> ReportPage | tuple[str, str]:
         plots_.extend(fig.plots)
         parts.append(key)
         caption += f" {where}: " + fig.caption
-    if of.divergence is not None:
-        d = of.divergence
+    sampling = of.sampling
+    if sampling is not None and sampling.divergence is not None:
+        d = sampling.divergence
         caption += (f" Half against half, the Jensen–Shannon divergence of {series.label} is "
                     f"{d.half_jsd_nats:.3g} nats against {d.half_null_nats:.2g} nats expected from noise.")
-    if of.rhat is not None:
-        rh = of.rhat
+    if sampling is not None and sampling.rhat_segments is not None:
+        rh = sampling.rhat_segments
         caption += (f" Rank-normalised split R̂ over {rh.n_chains} segments (Vehtari et al. 2021): {rh.rhat:.3f} "
                     f"(threshold {rh.threshold:g}).")
     spec = FigureSpec(key="report.sampling", title="Sampling", plots=tuple(plots_), grid=(1, len(plots_)),
@@ -263,12 +264,12 @@ def _profile_with_halves(got: ReportAnalyses) -> tuple[PlotSpec, str]:
 
 def _sampling_figures(got: ReportAnalyses) -> list[tuple[str, FigureSpec]]:
     """The running average and the (q, p) coverage figures, with their keys."""
-    of, series = got.of_series, got.series
-    out = []
-    if of.running is not None:
-        out.append(("sampling.running", plots.running_average_figure(of.running, name=series.label)))
-    if of.coverage is not None:
-        out.append(("sampling.coverage", plots.coverage_figure(of.coverage, x_label=series.label, y_label="p")))
+    sampling, series = got.of_series.sampling, got.series
+    if sampling is None:
+        return []
+    out = [("sampling.running", plots.running_average_figure(sampling.running, name=series.label))]
+    if sampling.coverage is not None:
+        out.append(("sampling.coverage", plots.coverage_figure(sampling.coverage, x_label=series.label, y_label="p")))
     return out
 
 
