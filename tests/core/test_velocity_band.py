@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from phasewake.core.analyses import velocity as V
+from phasewake.core.analyses.velocity import correlator
 
 
 def direct_sums(x: np.ndarray, lags: int, w: np.ndarray) -> np.ndarray:
@@ -46,7 +47,7 @@ def feed(c: V.BlockCorrelator, x: np.ndarray, sizes: list[int], scratch: bool) -
 ])
 def test_gram_band_equals_direct_sum(monkeypatch: pytest.MonkeyPatch, threads: int, lag: int,
                                      sizes: list[int]) -> None:
-    monkeypatch.setattr(V, "GRAM_THREADS", threads)
+    monkeypatch.setattr(correlator, "GRAM_THREADS", threads)
     rng = np.random.default_rng(lag * 10 + threads)
     f = 611
     x = rng.standard_normal((f, 6, 3))
@@ -118,7 +119,7 @@ def test_float32_sums_do_not_depend_on_chunking_or_threads(monkeypatch: pytest.M
     x = np.random.default_rng(5).standard_normal((500, 300, 3)).astype(np.float32)
     out = []
     for sizes, threads in (([256], 1), ([37], 1), ([1, 90, 3, 200], 2), ([500], 2)):
-        monkeypatch.setattr(V, "GRAM_THREADS", threads)
+        monkeypatch.setattr(correlator, "GRAM_THREADS", threads)
         c = V.BlockCorrelator(n_atoms=300, max_lag=50, weights=np.ones(300), group_of_atom=np.zeros(300, int),
                               n_groups=1, dtype=np.float32, engine="gram")
         out.append(feed(c, x, sizes, scratch=True)[0])
