@@ -29,11 +29,12 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
 from phasewake.core.analyses.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
@@ -624,3 +625,48 @@ def _relay(work: Work[Any], *, label: str) -> Work[Any]:
             yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
     except StopIteration as stop:
         return stop.value
+
+
+@dataclass(frozen=True)
+class CoordinatesRequest(AnalysisRequest):
+    """Coordinates with velocities, effective masses and momenta, with every setting a user can give (those
+    of :func:`compute_coordinates`); build it and hand it to :func:`phasewake.core.store.cached.requested`.
+
+    Examples
+    --------
+    >>> from phasewake.core.analyses.coordinates import CoordinatesRequest
+    >>> CoordinatesRequest(["distance(0, 1)"], stop=100).specs
+    ('distance(0, 1)',)
+    """
+
+    name: ClassVar[str] = "coordinates"
+    label: ClassVar[str] = "coordinates"
+
+    specs: Sequence[str] = ()
+    start: int = 0
+    stop: int | None = None
+    chunk_frames: int | None = None
+    mass_weighted_pca: bool = True
+    fit_pca: bool = True
+
+    def __post_init__(self) -> None:
+        specs = (self.specs,) if isinstance(self.specs, str) else self.specs
+        object.__setattr__(self, "specs", tuple(str(s) for s in specs))
+
+    def reference_paths(self, run: Run) -> tuple[str, ...]:
+        """The rmsd reference structures the specifications name (a bad specification raises here)."""
+        refs = (resolve_for_run(s, run).reference_path for s in self.specs)
+        return tuple(str(r) for r in refs if r)
+
+    def work(self, run: Run) -> Work[list[CoordinateSeries]]:
+        return (yield from compute_coordinates(run, list(self.specs), start=self.start, stop=self.stop,
+                                               chunk_frames=self.chunk_frames, mass_weighted_pca=self.mass_weighted_pca,
+                                               fit_pca=self.fit_pca))
+
+    def consumer(self, run: Run) -> CoordinatesConsumer | None:
+        """The coordinates of every frame in a shared pass (its chunks); None for part of the frames, a chunk
+        size of its own, or a pc(k), whose PCA is a pass of its own first."""
+        whole = self.start == 0 and (self.stop is None or self.stop >= run.n_frames) and self.chunk_frames is None
+        if not whole or any(resolve_for_run(s, run).function == "pc" for s in self.specs):
+            return None
+        return CoordinatesConsumer(run, self.specs)

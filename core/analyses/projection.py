@@ -30,12 +30,10 @@ Two routes:
   decays slowly. ``n_iter`` > 0 reads the frames ``n_iter + 1`` times (range finder passes, then the
   Rayleigh-Ritz step on the last sketch).
 
-Chunk reductions (issue 9): the accumulation is :class:`PCAReduction` (``prepare``, ``update(chunk)``,
-``finish()``, the ``onepass.ChunkConsumer`` protocol) and the projections are :class:`PCAProjection`, a
-second reduction that needs the eigenvectors. :func:`compute_pca` drives them through ``onepass.feed``
-(the loop of ``onepass.run_pass``), so ``onepass.PCAConsumer`` in a shared pass with other analyses gives
-bitwise the same result as ``compute_pca(..., projections=False)`` with the same settings. A one-pass
-consumer supports the exact route and the single-pass sketch (``n_iter=0``) only.
+Frame consumers (``core/model/framepass.py``): :class:`PCAReduction` accumulates, :class:`PCAProjection`
+projects (it needs the eigenvectors: a second pass); :func:`compute_pca` feeds them, and :class:`PCAConsumer`
+in a shared pass gives bitwise what ``compute_pca(..., projections=False)`` gives (exact route or the
+single-pass sketch, ``n_iter=0``). The block sums live in :mod:`~phasewake.core.analyses.pca_kernels`.
 
 Reference structure: ``reference_nm`` if given, else the first frame of the window (taken from the first
 chunk of the pass, so no extra read). There is no iterative mean-structure refit; fitting onto the mean
@@ -54,31 +52,35 @@ Memory is bounded by the block size and d x d (exact) or d x l (randomized), nev
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
-from phasewake.core.analyses.coordinates import kabsch, solute_atoms
+from phasewake.core.analyses.coordinates import solute_atoms
+from phasewake.core.analyses.pca_kernels import (  # noqa: F401 - PCAResult and the kernels' public names live here too
+    C_CM_PER_PS,
+    PCA_BLOCK_BYTES,
+    PCA_CHUNK_FRAMES,
+    Accumulator,
+    PCAResult,
+    cosine_content,
+    default_block_frames,
+    few_threads,
+    finish_exact,
+    nystrom,
+    pc_value_and_gradient,
+    quasi_harmonic_frequencies,
+    sketch_cq,
+)
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
+from phasewake.core.model.run import FrameChunk
 from phasewake.core.progress import Progress, Work
-from phasewake.core.units import KB_KJ_PER_MOL_K
 
 if TYPE_CHECKING:
     from phasewake.core.model.run import Run
-
-C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
-# Frames per block of the PCA's products: the d x d accumulation is paid once per block, so blocks are
-# longer than the reader's chunks; at most PCA_CHUNK_FRAMES frames and PCA_BLOCK_BYTES per block buffer.
-PCA_CHUNK_FRAMES = 2048
-PCA_BLOCK_BYTES = 32 * 2**20
-
-
-def default_block_frames(n_coordinates: int, itemsize: int = 4) -> int:
-    """Frames per PCA block when ``chunk_frames`` is not given: min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES / row)."""
-    return int(max(16, min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES // max(1, n_coordinates * itemsize))))
 
 register(
     Threshold(
@@ -98,163 +100,6 @@ register(
         advice="Run longer or treat that component as unconverged; it is a heuristic, not a proof.",
     ),
 )
-
-
-@dataclass(frozen=True)
-class PCAResult:
-    """Principal components of an atom group.
-
-    atom_indices : (g,) atoms of the run used (d = 3 g coordinates, ordered atom-major: x0 y0 z0 x1 ...)
-    reference_nm : (g, 3) structure the frames were fitted onto
-    mean : (d,) mean of y (nm, or nm amu^1/2 when mass-weighted)
-    eigenvalues : (k,) in ``eigenvalue_unit`` (nm^2, or amu nm^2 when mass-weighted), descending
-    eigenvectors : (d, k), orthonormal columns
-    total_variance : trace of the covariance, same unit as eigenvalues
-    explained_variance_ratio : (k,)
-    cosine_content : (k,) or None (Hess 2002)
-    projections : (n_frames, k) q_k(t) in ``projection_unit``, or None
-    momenta : (n_frames, k) p_k(t) in ``momentum_unit``, or None (no velocities)
-    time_ps : (n_frames,) or None
-    """
-
-    atom_indices: np.ndarray
-    masses_amu: np.ndarray
-    reference_nm: np.ndarray
-    mean: np.ndarray
-    eigenvalues: np.ndarray
-    eigenvectors: np.ndarray
-    total_variance: float
-    explained_variance_ratio: np.ndarray
-    n_frames: int
-    eigenvalue_unit: str
-    projection_unit: str
-    momentum_unit: str
-    cosine_content: np.ndarray | None = None
-    projections: np.ndarray | None = None
-    momenta: np.ndarray | None = None
-    time_ps: np.ndarray | None = None
-    velocities_estimated: bool = False
-    # settings that produced it
-    mass_weighted: bool = True
-    fit: bool = True
-    method: str = "exact"
-    n_components: int = 10
-    start: int = 0
-    stop: int | None = None
-    stride: int = 1
-    chunk_frames: int = DEFAULT_CHUNK_FRAMES
-    n_iter: int = 0
-    oversample: int = 0
-    seed: int = 0
-    precision: str = "float32"
-
-    def quasi_harmonic_frequencies_rad_per_ps(self, temperature_K: float) -> np.ndarray:
-        """omega_k = sqrt(kT / lambda_k) (Karplus and Kushick 1981); meaningful when mass-weighted."""
-        return quasi_harmonic_frequencies(self.eigenvalues, temperature_K)
-
-
-def quasi_harmonic_frequencies(eigenvalues_amu_nm2: np.ndarray, temperature_K: float) -> np.ndarray:
-    """Quasi-harmonic angular frequencies in rad/ps from mass-weighted eigenvalues (amu nm^2).
-
-    omega = sqrt(kT/lambda) with kT in kJ/mol = amu nm^2/ps^2 (Karplus and Kushick 1981).
-    Divide by 2 pi c (c = 0.0299792458 cm/ps) for wavenumbers in cm^-1.
-    """
-    kt = KB_KJ_PER_MOL_K * float(temperature_K)
-    return np.sqrt(kt / np.asarray(eigenvalues_amu_nm2, dtype=np.float64))
-
-
-def cosine_content(q: np.ndarray, k: int) -> float:
-    """Cosine content of a projection with the cosine of half-period count ``k`` (Hess 2002).
-
-    q : (n_frames,) equally spaced in time. Midpoint rule: t_j = (j + 1/2) T/n.
-    """
-    q = np.asarray(q, dtype=np.float64)
-    q = q - q.mean()
-    n = q.shape[0]
-    c = np.cos(k * np.pi * (np.arange(n) + 0.5) / n)
-    den = float(q @ q)
-    if den == 0.0:
-        return float("nan")
-    return float(2.0 / n * (c @ q) ** 2 / den)
-
-
-def _fitted(x: np.ndarray, reference: np.ndarray, weights: np.ndarray, fit: bool) -> tuple[np.ndarray, np.ndarray | None]:
-    """Fit frames (n, g, 3) onto reference; returns fitted positions and the rotations (or None)."""
-    if not fit:
-        return x.astype(np.float64), None
-    rot, cx, cy = kabsch(x, reference, weights)
-    return np.matmul(x - cx[:, None, :], rot) + cy, rot
-
-
-def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Value of component k (0-based) and its gradient with respect to the group's atoms.
-
-    positions_nm : (n, g, 3) positions of ``pca.atom_indices``. The gradient treats the fitting
-    rotation as fixed for the frame (exact without fitting; for a mass-weighted fit the translation
-    part drops out exactly because the modes are orthogonal to rigid translations).
-
-    Returns values (n,) and gradient (n, g, 3).
-    """
-    x = np.asarray(positions_nm, dtype=np.float64)
-    sq = np.sqrt(pca.masses_amu) if pca.mass_weighted else np.ones(pca.masses_amu.shape[0])
-    xf, rot = _fitted(x, pca.reference_nm, pca.masses_amu if pca.mass_weighted else np.ones_like(sq), pca.fit)
-    e = pca.eigenvectors[:, k].reshape(-1, 3)
-    y = xf * sq[None, :, None] - pca.mean.reshape(-1, 3)[None]
-    q = np.einsum("nia,ia->n", y, e)
-    a = sq[:, None] * e
-    grad = np.broadcast_to(a, x.shape).copy() if rot is None else np.einsum("nab,ib->nia", rot, a)
-    return q, grad
-
-
-def _leading_eigenpairs(cov: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
-    """The k largest eigenpairs of a symmetric matrix.
-
-    Few of many (k <= d/10, d >= 500): Lanczos (scipy.sparse.linalg.eigsh, ARPACK), relative tolerance
-    1e-10 (eigenvalues then agree with a machine-precision run to ~1e-14), from a fixed start vector, so
-    results are reproducible; otherwise LAPACK syevr on the index subset (scipy.linalg.eigh).
-    """
-    d = cov.shape[0]
-    if d >= 500 and k <= d // 10:
-        from scipy.sparse.linalg import ArpackError, eigsh
-
-        v0 = np.cos(np.arange(d) * 0.7071067811865476) + 1.5  # fixed, not orthogonal to anything special
-        try:
-            # ncv = 40 Lanczos vectors (ARPACK's default is 2k + 1): fewer restarts when the top of the
-            # spectrum is crowded; tol 1e-10 (relative, on the Ritz values) instead of machine precision.
-            # 3000 coordinates of noise, one core: 2.2 -> 1.4 s; eigenvalues the same to 6e-15 and
-            # eigenvectors to 1e-15 (1 - overlap) as with tol = 0 (the error of a Ritz value is about the
-            # square of its residual)
-            w, v = eigsh(cov, k=k, which="LA", v0=v0, tol=1e-10, ncv=min(d - 1, max(2 * k + 1, 40)))
-            return w, v
-        except ArpackError:  # no convergence: fall back to the dense route below
-            pass
-    import scipy.linalg
-
-    return scipy.linalg.eigh(cov, subset_by_index=[d - k, d - 1], driver="evr")  # type: ignore[no-any-return]
-
-
-def _nystrom(omega: np.ndarray, y: np.ndarray, k: int, eps: float) -> tuple[np.ndarray, np.ndarray]:
-    """Leading eigenpairs of a PSD matrix C from one sketch Y = C Omega (Omega orthonormal, d x l).
-
-    The stabilised Nystrom approximation C ~ Y (Omega^T Y)^+ Y^T of Tropp, Yurtsever, Udell and
-    Cevher, "Fixed-rank approximation of a positive-semidefinite matrix from streaming data", NeurIPS
-    2017 (Alg. 3): shift by nu = sqrt(d) eps ||Y||, Cholesky of Omega^T Y_nu, SVD, remove the shift.
-    """
-    d = y.shape[0]
-    nu = np.sqrt(d) * eps * np.linalg.norm(y, 2)
-    y_nu = y + nu * omega
-    b = omega.T @ y_nu
-    b = 0.5 * (b + b.T)
-    try:
-        chol = np.linalg.cholesky(b)
-        e = np.linalg.solve(chol, y_nu.T).T
-    except np.linalg.LinAlgError:
-        w, v = np.linalg.eigh(b)
-        keep = w > w.max() * 1e-12
-        e = y_nu @ v[:, keep] / np.sqrt(w[keep])
-    u, sv, _ = np.linalg.svd(e, full_matrices=False)
-    lam = np.clip(sv**2 - nu, 0.0, None)
-    return lam[:k], u[:, :k]
 
 
 def _group_and_masses(run: Run, atom_indices: Sequence[int] | np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
@@ -292,189 +137,6 @@ def _local_positions(columns: np.ndarray | None, idx: np.ndarray, n_atoms: int) 
     return pos.astype(np.int64)
 
 
-class _Accumulator:
-    """Frames gathered into blocks of ``block`` frames, fitted (``superpose.FrameFitter``) a block at a time;
-    per block of fitted displacements y either y^T y (exact: BLAS syrk in the working precision, upper triangle added into float64) or the sketch
-    y^T (y Omega) (randomized), plus sum(y) and sum |y|^2 in float64.
-
-    The sketch products and sums run on each cache-sized sub-block of the fit right after it is written
-    (``FrameFitter.displacements(on_rows=)``), the exact route's syrk on the whole block.
-    Blocks, not the reader's chunks, set the rounding (BLAS kernels round differently for different row
-    counts): results depend on ``block`` only, so a PCA fed from a shared pass (other consumers, other
-    chunk sizes) equals the separate call bitwise.
-    """
-
-    def __init__(self, fitter: Any, *, block: int, mode: str, omega: np.ndarray | None = None,
-                 sums: bool = True) -> None:
-        self.fitter, self.block, self.mode, self.sums = fitter, int(block), mode, sums
-        d, dt = fitter.d, fitter.dtype
-        self.d = d
-        self.ybuf = np.empty((self.block, d), dtype=dt)
-        self.xbuf: np.ndarray | None = None  # positions of a block being gathered across chunks
-        self.fill = 0
-        self.n = 0
-        self.s1 = np.zeros(d)
-        self.sqnorm = 0.0
-        if mode == "exact":
-            from scipy.linalg import blas
-
-            self._syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
-            self.s2 = np.zeros((d, d), order="F")
-            self._prod = np.zeros((d, d), dtype=dt, order="F")
-        else:
-            assert omega is not None
-            self.omega = omega
-            self._omega_t = np.ascontiguousarray(omega, dtype=dt)
-            self.z = np.zeros((d, omega.shape[1]))
-
-    def __getstate__(self) -> dict[str, Any]:
-        """Without the BLAS routine and the scratch blocks (a worker process sends this back)."""
-        state = dict(self.__dict__)
-        for name in ("_syrk", "ybuf", "_prod"):
-            state.pop(name, None)
-        if state.get("xbuf") is not None:
-            state["xbuf"] = state["xbuf"][: self.fill].copy() if self.fill else None
-        return state
-
-    def __setstate__(self, state: dict[str, Any]) -> None:
-        self.__dict__.update(state)
-        dt = self.fitter.dtype
-        self.ybuf = np.empty((self.block, self.d), dtype=dt)
-        if self.xbuf is not None:
-            xbuf = np.empty((self.block,) + self.xbuf.shape[1:], dtype=self.xbuf.dtype)
-            xbuf[: self.fill] = self.xbuf[: self.fill]
-            self.xbuf = xbuf
-        if self.mode == "exact":
-            from scipy.linalg import blas
-
-            self._syrk = blas.ssyrk if dt is np.float32 else blas.dsyrk
-            self._prod = np.zeros((self.d, self.d), dtype=dt, order="F")
-
-    def merge(self, later: _Accumulator) -> None:
-        """Add the sums of ``later`` (the frames after these; same fit and sketch); both are flushed first."""
-        self.flush()
-        later.flush()
-        self.n += later.n
-        self.s1 += later.s1
-        self.sqnorm += later.sqnorm
-        if self.mode == "exact":
-            self.s2 += later.s2
-        else:
-            self.z += later.z
-
-    def update(self, x: np.ndarray) -> None:
-        """Positions (m, g, 3) of the next frames, in order."""
-        i, m, b = 0, x.shape[0], self.block
-        if self.xbuf is None:
-            self.xbuf = np.empty((b,) + x.shape[1:], dtype=np.result_type(x.dtype, self.fitter.dtype))
-        while i < m:
-            if self.fill == 0 and m - i >= b and x.dtype == self.xbuf.dtype:
-                self._fit_reduce(x[i:i + b])  # a whole block straight from the chunk (the usual case)
-                i += b
-                continue
-            p = min(b - self.fill, m - i)
-            self.xbuf[self.fill:self.fill + p] = x[i:i + p]
-            self.fill += p
-            i += p
-            if self.fill == b:
-                self._fit_reduce(self.xbuf)
-                self.fill = 0
-
-    def flush(self) -> None:
-        if self.fill:
-            assert self.xbuf is not None
-            self._fit_reduce(self.xbuf[:self.fill])
-            self.fill = 0
-
-    def _fit_reduce(self, x: np.ndarray) -> None:
-        y = self.ybuf[:x.shape[0]]
-        # the fit's products are skinny (3 and 9 columns): one BLAS thread, as for other short products on
-        # this shared machine (correlation.one_blas_thread); the block's big products below keep them all
-        sub = self.mode != "exact"
-        try:
-            with _few_threads(y.size):
-                # the sketch products run on each fitted sub-block while it is in the cache; the exact
-                # route's syrk wants the whole block (long products)
-                self.fitter.displacements(x, y, on_rows=(lambda i, j: self._reduce(y[i:j])) if sub else None)
-        except AnalysisError as exc:
-            raise AnalysisError(f"{exc}; the block starts at frame {self.n} of the PCA window (counted from its "
-                                "first frame)") from exc
-        if not sub:
-            self._reduce(y)
-
-    def _reduce(self, y: np.ndarray) -> None:
-        m = y.shape[0]
-        if self.mode == "exact":
-            # y^T y by the symmetric rank-k update (upper triangle only, half the flops of a GEMM)
-            prod = self._syrk(1.0, y.T, beta=0.0, c=self._prod, trans=0, lower=0, overwrite_c=1)
-            self._prod = prod
-            d = self.d
-            step = 256  # add the upper triangle only, by column panels (Fortran order: contiguous columns)
-            for j0 in range(0, d, step):
-                j1 = min(d, j0 + step)
-                self.s2[:j1, j0:j1] += prod[:j1, j0:j1]
-        else:
-            t = y @ self._omega_t
-            self.z += y.T @ t
-            if self.sums:
-                self.sqnorm += float(np.einsum("fd,fd->f", y, y).sum(dtype=np.float64))
-        if self.sums:
-            cs = _column_sums(y)
-            if not np.all(np.isfinite(cs)):
-                raise AnalysisError(f"non-finite positions (NaN or inf) in frames {self.n}-{self.n + m - 1} of the "
-                                    "PCA window (counted from its first frame)")
-            self.s1 += cs
-        self.n += m
-
-
-# Below this many elements a BLAS call is too small to be worth threads, and the first use of the
-# thread limiter costs ~40 ms (threadpoolctl scans the loaded libraries): small PCAs skip it.
-_FEW_THREADS_MIN = 1 << 20
-
-
-def _few_threads(n_elements: int) -> Any:
-    """One BLAS thread for skinny or thin-matrix work of this size (``correlation.one_blas_thread``)."""
-    import contextlib
-
-    if n_elements < _FEW_THREADS_MIN:
-        return contextlib.nullcontext()
-    from phasewake.core.analyses.correlation import one_blas_thread
-
-    return one_blas_thread()
-
-
-def _column_sums(y: np.ndarray) -> np.ndarray:
-    """sum(y, axis=0) in float64 from float32 partial sums over 64 rows (rounding ~64 eps of the terms at
-    most, below that of the block's float32 products; 4x cheaper than converting every element)."""
-    m, d = y.shape
-    q = m // 64
-    out = np.zeros(d)
-    if q:
-        out += y[:q * 64].reshape(q, 64, d).sum(axis=1).sum(axis=0, dtype=np.float64)
-    if m > q * 64:
-        out += y[q * 64:].sum(axis=0, dtype=np.float64)
-    return out
-
-
-def _finish_exact(acc: _Accumulator, k: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
-    n = acc.n
-    # s2 holds the upper triangle and zeros below (syrk never writes the lower triangle of its zeroed
-    # output): mirror it with one sum; every step keeps the matrix exactly symmetric (few d x d passes:
-    # each costs ~30 ms at d = 3000)
-    cov = acc.s2 + acc.s2.T
-    cov[np.diag_indices_from(cov)] -= np.diag(acc.s2)
-    mu = acc.s1 / n
-    cov -= n * np.outer(mu, mu)
-    cov /= n - 1
-    evals, evecs = _leading_eigenpairs(cov, k)
-    order = np.argsort(evals)[::-1]
-    return np.clip(evals[order], 0.0, None), evecs[:, order], mu, float(np.trace(cov))
-
-
-def _sketch_cq(acc: _Accumulator, n: int, mu: np.ndarray) -> np.ndarray:
-    """C Omega from the pass's sketch sum y^T y Omega (centred with the mean of the first pass)."""
-    return (acc.z - n * np.outer(mu, mu @ acc.omega)) / (n - 1)
-
 
 class PCAReduction:
     """The PCA of an atom group as a chunk reduction: ``prepare``, ``update(chunk)``, ``finish()``.
@@ -492,7 +154,7 @@ class PCAReduction:
 
     ``finish()`` returns a :class:`PCAResult` without projections (they need the eigenvectors, so a second
     pass: :class:`PCAProjection`). Attributes ``atoms``, ``needs_positions``, ``needs_velocities`` follow
-    the ``onepass.ChunkConsumer`` protocol.
+    the ``framepass.FrameConsumer`` protocol.
     """
 
     needs_positions = True
@@ -554,13 +216,13 @@ class PCAReduction:
             self.reference = None
         self.atoms = _group_columns(self.idx, run.n_atoms)
         self._local: np.ndarray | None = None
-        self.acc: _Accumulator | None = None
+        self.acc: Accumulator | None = None
         self.fitter: Any = None
         self.omega0: np.ndarray | None = None
         if method == "randomized":
             rng = np.random.default_rng(self.seed)
             ell = int(min(self.d, self.k + max(0, self.oversample)))
-            with _few_threads(self.d * ell):  # a thin QR: threads only synchronise (0.5 s instead of 5 ms at load 3)
+            with few_threads(self.d * ell):  # a thin QR: threads only synchronise (0.5 s instead of 5 ms at load 3)
                 self.omega0, _ = np.linalg.qr(rng.standard_normal((self.d, ell)))  # atom-major rows
         self._range = (0, run.n_frames)
 
@@ -583,7 +245,7 @@ class PCAReduction:
                                 "positions", path=self.path)
         self.fitter = FrameFitter(self.reference, self.fit_w, scale=self.sq, dtype=self.dt, fit=self.fit)
         omega = None if self.omega0 is None else self.omega0[self.fitter.order]
-        self.acc = _Accumulator(self.fitter, block=self.block, mode=self.method, omega=omega)
+        self.acc = Accumulator(self.fitter, block=self.block, mode=self.method, omega=omega)
 
     def update(self, chunk: FrameChunk) -> None:
         x = self.group_positions(chunk)
@@ -629,12 +291,12 @@ class PCAReduction:
             raise TooShortError("a PCA", have=0 if acc is None else acc.n + acc.fill, need=2)
         acc.flush()
         if self.method == "exact":
-            evals, evecs, mu, total = _finish_exact(acc, self.k)
+            evals, evecs, mu, total = finish_exact(acc, self.k)
         else:
             n = acc.n
             mu = acc.s1 / n
-            with _few_threads(acc.z.size):  # thin QR/SVD/Cholesky of d x l matrices
-                evals, evecs = _nystrom(acc.omega, _sketch_cq(acc, n, mu), self.k, float(np.finfo(self.dt).eps))
+            with few_threads(acc.z.size):  # thin QR/SVD/Cholesky of d x l matrices
+                evals, evecs = nystrom(acc.omega, sketch_cq(acc, n, mu), self.k, float(np.finfo(self.dt).eps))
             total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
         return self._result(evals, evecs, mu, total, acc.n)
 
@@ -772,7 +434,7 @@ def compute_pca(
 
     The passes are :class:`PCAReduction` (covariance or sketch), ``n_iter`` more sketch passes for the
     randomized subspace iteration, and :class:`PCAProjection` when ``projections``; each reads the frames
-    once through ``onepass.feed`` (the same loop as ``onepass.run_pass``).
+    once through ``framepass.feed`` (the loop of ``framepass.run_pass``).
 
     Parameters
     ----------
@@ -817,38 +479,45 @@ def compute_pca(
     if n_extra == 0:
         res = red.finish()
     else:
-        # randomized subspace iteration (Halko et al. 2011, Alg. 4.4), Rayleigh-Ritz at the end (Alg. 5.3)
-        acc = red.acc
-        assert acc is not None
-        acc.flush()
-        n = acc.n
-        mu = acc.s1 / n
-        total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
-        z = _sketch_cq(acc, n, mu)
-        q_block = acc.omega
-        for it in range(n_extra):
-            with _few_threads(z.size):
-                q_block, _ = np.linalg.qr(z)
-            sketch = _Accumulator(red.fitter, block=red.block, mode="randomized", omega=q_block, sums=False)
-            stage = _Stage(red, sketch)
-            for done in feed(run, {"pca": stage}, **read):
-                yield Progress((it + 1) * n_sel + done, total_work, f"PCA randomized pass {it + 2}/{n_extra + 1}")
-            sketch.flush()
-            z = _sketch_cq(sketch, n, mu)
-        b = q_block.T @ z
-        b = 0.5 * (b + b.T)
-        w, v = np.linalg.eigh(b)
-        order = np.argsort(w)[::-1]
-        evals = np.clip(w[order][:red.k], 0.0, None)
-        evecs = (q_block @ v[:, order])[:, :red.k]
-        res = red._result(evals, evecs, mu, total, n)
+        res = yield from _subspace_iteration(run, red, read, n_extra, n_sel, total_work)
     if projections:
         proj = PCAProjection(run, res)
         offset = (1 + n_extra) * n_sel
-        for done in feed(run, {"pca": proj}, **{**read, "chunk_frames": red.block}):
+        for done in feed(run, {"pca": proj}, **read):
             yield Progress(offset + done, total_work, "PCA projections")
         res = proj.finish()
     return res
+
+
+def _subspace_iteration(run: Run, red: PCAReduction, read: dict[str, Any], n_extra: int, n_sel: int,
+                        total_work: float) -> Work[PCAResult]:
+    """``n_extra`` more sketch passes after the first (Halko et al. 2011, Alg. 4.4), Rayleigh-Ritz at the end
+    (Alg. 5.3)."""
+    from phasewake.core.model.framepass import feed
+
+    acc = red.acc
+    assert acc is not None
+    acc.flush()
+    n = acc.n
+    mu = acc.s1 / n
+    total = (acc.sqnorm - n * float(mu @ mu)) / (n - 1)
+    z = sketch_cq(acc, n, mu)
+    q_block = acc.omega
+    for it in range(n_extra):
+        with few_threads(z.size):
+            q_block, _ = np.linalg.qr(z)
+        sketch = Accumulator(red.fitter, block=red.block, mode="randomized", omega=q_block, sums=False)
+        for done in feed(run, {"pca": _Stage(red, sketch)}, **read):
+            yield Progress((it + 1) * n_sel + done, total_work, f"PCA randomized pass {it + 2}/{n_extra + 1}")
+        sketch.flush()
+        z = sketch_cq(sketch, n, mu)
+    b = q_block.T @ z
+    b = 0.5 * (b + b.T)
+    w, v = np.linalg.eigh(b)
+    order = np.argsort(w)[::-1]
+    evals = np.clip(w[order][:red.k], 0.0, None)
+    evecs = (q_block @ v[:, order])[:, :red.k]
+    return red._result(evals, evecs, mu, total, n)
 
 
 class _Stage:
@@ -857,7 +526,7 @@ class _Stage:
     needs_positions = True
     needs_velocities = False
 
-    def __init__(self, red: PCAReduction, acc: _Accumulator) -> None:
+    def __init__(self, red: PCAReduction, acc: Accumulator) -> None:
         self.red, self.acc, self.atoms = red, acc, red.atoms
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
@@ -867,6 +536,9 @@ class _Stage:
         x = self.red.group_positions(chunk)
         if x.shape[0]:
             self.acc.update(x)
+
+    def merge(self, later: _Stage) -> None:
+        self.acc.merge(later.acc)
 
     def finish(self) -> None:
         self.acc.flush()
@@ -954,3 +626,74 @@ def cosine_content_verdict(pca: PCAResult, *, component: int = 1) -> Verdict:
                "run longer, or do not read free energies along it.",
         details={"component": k, "method": pca.method, "n_frames": pca.n_frames},
     )
+
+
+@dataclass(frozen=True)
+class PCARequest(AnalysisRequest):
+    """A PCA with every setting a user can give (those of :func:`compute_pca`); defaults decided here.
+
+    ``atom_indices`` and ``reference_nm`` are kept as tuples so equal requests compare equal.
+
+    Examples
+    --------
+    >>> from phasewake.core.analyses.projection import PCARequest
+    >>> PCARequest(atom_indices=[4, 5, 6], n_components=2).atom_indices
+    (4, 5, 6)
+    """
+
+    name: ClassVar[str] = "pca"
+    label: ClassVar[str] = "principal components"
+
+    atom_indices: Sequence[int] | None = field(default=None, hash=False)
+    start: int = 0
+    stop: int | None = None
+    stride: int = 1
+    chunk_frames: int | None = None
+    mass_weighted: bool = True
+    fit: bool = True
+    reference_nm: Any = field(default=None, hash=False)
+    n_components: int = 10
+    method: str = "exact"
+    n_iter: int = 0
+    oversample: int = 30
+    seed: int = 0
+    precision: str = "float32"
+    projections: bool = True
+
+    def __post_init__(self) -> None:
+        if self.atom_indices is not None:
+            object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).reshape(-1)))
+        if self.reference_nm is not None:
+            ref = np.asarray(self.reference_nm, dtype=np.float64)
+            object.__setattr__(self, "reference_nm", tuple(tuple(float(v) for v in row) for row in ref.reshape(-1, 3)))
+
+    def _keywords(self) -> dict[str, Any]:
+        kw = {k: getattr(self, k) for k in self.settings()}
+        if kw["reference_nm"] is not None:
+            kw["reference_nm"] = np.asarray(kw["reference_nm"], dtype=np.float64)
+        return kw
+
+    def work(self, run: Run) -> Work[PCAResult]:
+        return (yield from compute_pca(run, **self._keywords()))
+
+    def consumer(self, run: Run) -> PCAConsumer | None:
+        """The covariance (or one-pass sketch) of every frame in a shared pass; None for part of the frames, a
+        stride, or subspace iteration (several passes)."""
+        whole = self.start == 0 and self.stride == 1 and (self.stop is None or self.stop >= run.n_frames)
+        if not whole or (self.method == "randomized" and self.n_iter > 0):
+            return None
+        kw = self._keywords()
+        for key in ("start", "stop", "stride", "projections"):
+            kw.pop(key)
+        made = PCAConsumer(run, **kw)
+        made.use_first_frame_of(run, 0)  # parts of a split pass share the serial pass's reference
+        return made
+
+    def after_pass(self, run: Run, finished: PCAResult) -> Work[PCAResult]:
+        """The projection pass when ``projections`` (it needs the eigenvectors)."""
+        from phasewake.core.model.framepass import run_one
+
+        if not self.projections:
+            return finished
+        return (yield from run_one(run, PCAProjectionConsumer(run, finished), label="PCA projections",
+                                   chunk_frames=finished.chunk_frames))

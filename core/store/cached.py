@@ -254,109 +254,8 @@ def requested(run: Run, request: AnalysisRequest, *, cache: ResultCache | None =
 
 
 # ---------------------------------------------------------------------------------------------------
-# cached variants of the analyses users repeat (same keywords and results as the originals)
+# several requests from one read, each through the cache
 # ---------------------------------------------------------------------------------------------------
-
-def _reference_paths(run: Run, specs: Sequence[str]) -> list[str]:
-    from phasewake.core.analyses.coordinates import resolve_for_run
-
-    refs = []
-    for s in specs:
-        r = resolve_for_run(s, run)
-        if r.reference_path:
-            refs.append(str(r.reference_path))
-    return refs
-
-
-def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
-                       stop: int | None = None, chunk_frames: int | None = None, mass_weighted_pca: bool = True,
-                       fit_pca: bool = True) -> Work[list[CoordinateSeries]]:
-    """:func:`phasewake.core.analyses.coordinates.compute_coordinates` through the result cache.
-
-    Same settings and result (``list[CoordinateSeries]``); a hit reads no frames. ``cache`` defaults to
-    ``ResultCache()`` (``PHASEWAKE_CACHE_DIR``, ``PHASEWAKE_NO_CACHE``); pass ``ResultCache(enabled=False)``
-    to bypass it. In-memory runs (no files) are never cached.
-    """
-    from phasewake.core.analyses.coordinates import compute_coordinates
-
-    work = compute_coordinates(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
-                               mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
-    if not run.paths or run.frames is None or not specs:
-        return (yield from work)
-    settings = coordinates_settings(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
-                                    mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
-    return (yield from cached_work(run, "coordinates", settings, work, cache=cache,
-                                   extra_paths=_reference_paths(run, specs)))
-
-
-def cached_audit(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:class:`phasewake.core.analyses.audit.AuditRequest` of ``settings`` through :func:`requested`."""
-    from phasewake.core.analyses.audit import AuditRequest
-
-    return (yield from requested(run, AuditRequest(**settings), cache=cache))
-
-
-def cached_pca(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.analyses.projection.compute_pca` through the result cache (same keywords and result)."""
-    from phasewake.core.analyses.projection import compute_pca
-
-    return (yield from cached_work(run, "pca", _with_defaults(compute_pca, settings),
-                                   compute_pca(run, **settings), cache=cache))
-
-
-def cached_vacf(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.analyses.velocity.vacf` through the result cache (same keywords and result)."""
-    from phasewake.core.analyses.velocity import vacf
-
-    return (yield from cached_work(run, "vacf", _with_defaults(vacf, settings), vacf(run, **settings),
-                                   cache=cache))
-
-
-def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
-    """:func:`phasewake.core.analyses.velocity.vibrational_spectrum` through the result cache."""
-    from phasewake.core.analyses.velocity import vibrational_spectrum
-
-    return (yield from cached_work(run, "spectrum", _with_defaults(vibrational_spectrum, settings),
-                                   vibrational_spectrum(run, **settings), cache=cache))
-
-
-def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:
-    """The keyword-only settings of ``func`` with their defaults, updated by ``given`` (all join the key)."""
-    import inspect
-
-    out: dict[str, Any] = {}
-    for name, p in inspect.signature(func).parameters.items():
-        if p.kind is inspect.Parameter.KEYWORD_ONLY:
-            out[name] = p.default
-    unknown = set(given) - set(out)
-    if unknown:
-        raise TypeError(f"{func.__name__}() got unexpected keyword(s) {sorted(unknown)}")
-    out.update(given)
-    return out
-
-
-# ---------------------------------------------------------------------------------------------------
-# several analyses from one read, each through the cache
-# ---------------------------------------------------------------------------------------------------
-
-@dataclasses.dataclass(frozen=True)
-class PassItem:
-    """One analysis of a :func:`cached_pass`.
-
-    analysis, settings, extra_paths : the cache key, exactly as the analysis's own cached variant makes it
-        (so a later ``cached_audit`` / ``cached_pca`` / ``cached_coordinates`` of the same settings hits
-        the entry written here, and the other way round);
-    consumer : makes the chunk consumer (called only on a miss);
-    then : optional; turns ``consumer.finish()`` into the analysis's result (a generator: the audit's
-        energy part, or the PCA's projection pass, which reads the frames a second time).
-    """
-
-    analysis: str
-    settings: Mapping[str, Any]
-    consumer: Any  # Callable[[], ChunkConsumer]
-    then: Any = None  # Callable[[Any], Work[Any]] | None
-    extra_paths: Sequence[str | Path] = ()
-
 
 class _Guarded:
     """A consumer whose failure (a PhasewakeError) stops feeding it, not the pass."""
@@ -368,45 +267,64 @@ class _Guarded:
         self.needs_velocities = inner.needs_velocities
         self.error: BaseException | None = None
 
-    def prepare(self, columns: Any, *, start: int, stop: int, chunk_frames: int) -> None:
-        from phasewake.core.errors import PhasewakeError
-
-        try:
-            self.inner.prepare(columns, start=start, stop=stop, chunk_frames=chunk_frames)
-        except PhasewakeError as exc:
-            self.error = exc
-
-    def update(self, chunk: Any) -> None:
+    def _guard(self, step: Any, *args: Any, **kwargs: Any) -> Any:
         from phasewake.core.errors import PhasewakeError
 
         if self.error is None:
             try:
-                self.inner.update(chunk)
+                return step(*args, **kwargs)
             except PhasewakeError as exc:
                 self.error = exc
+        return None
+
+    def prepare(self, columns: Any, *, start: int, stop: int, chunk_frames: int) -> None:
+        self._guard(self.inner.prepare, columns, start=start, stop=stop, chunk_frames=chunk_frames)
+
+    def update(self, chunk: Any) -> None:
+        self._guard(self.inner.update, chunk)
 
     def finish(self) -> Any:
-        from phasewake.core.errors import PhasewakeError
-
-        if self.error is not None:
-            return self.error
-        try:
-            return self.inner.finish()
-        except PhasewakeError as exc:
-            return exc
+        got = self._guard(self.inner.finish)
+        return self.error if self.error is not None else got
 
 
-def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache | None = None,
-                load_hits: bool = True) -> Work[dict[str, Any]]:
-    """Several analyses of all frames of ``run`` from one read, each looked up in and stored to the cache.
+class _GuardedMerging(_Guarded):
+    """The same for a consumer with ``merge`` (so the pass may still be split over workers)."""
 
-    Items found in the cache are not computed; the others share one :func:`phasewake.core.model.framepass.run_pass`
-    over the frames (then their ``then`` step). Returns ``{name: result}``, where a result may be the
-    :class:`~phasewake.core.errors.PhasewakeError` that stopped that analysis (the others go on), or None
-    when the analysis cannot be fed from a shared pass with these settings (its consumer refused them, e.g.
-    a PCA by subspace iteration, which needs several passes): the caller then runs it on its own.
+    def merge(self, later: _Guarded) -> None:
+        self.error = self.error or later.error
+        self._guard(self.inner.merge, later.inner)
 
-    ``load_hits=False`` only fills the cache for later requests: an item whose entry is already there is
+
+def _guarded(inner: Any) -> _Guarded:
+    return _GuardedMerging(inner) if callable(getattr(inner, "merge", None)) else _Guarded(inner)
+
+
+def _pass_key(run: Run, request: AnalysisRequest, cache: ResultCache) -> str | None:
+    """The request's cache key (that of :func:`requested`), or None when it is not cached."""
+    if not run.paths or not cache.enabled:
+        return None
+    paths = request.reference_paths(run)  # a bad setting (a coordinate outside the run) raises here
+    try:
+        return analysis_key(run, request.name, request.settings(), extra_paths=paths)
+    except (_Uncacheable, OSError):
+        return None
+
+
+def requested_pass(run: Run, requests: Mapping[str, AnalysisRequest], *, cache: ResultCache | None = None,
+                   load_hits: bool = True, alone: bool = False) -> Work[dict[str, Any]]:
+    """Several requests of ``run`` from one read of its frames, each looked up in and stored to the cache.
+
+    Requests found in the cache are not computed; the others that offer a consumer (``request.consumer(run)``)
+    share one :func:`phasewake.core.model.framepass.run_pass` over every frame, then each its
+    ``after_pass`` step (the audit's energy part, the PCA's projection pass, which reads the frames again),
+    and each result is stored under the key :func:`requested` uses for that request alone, so a later
+    ``requested`` of one of them hits, and the other way round. Returns ``{name: result}``, where a result
+    may be the :class:`~phasewake.core.errors.PhasewakeError` that stopped that analysis (the others go on),
+    or None for a request that cannot join a shared pass (its consumer is None: part of the frames, a PCA by
+    subspace iteration, ...) unless ``alone``, which then runs it on its own through :func:`requested`.
+
+    ``load_hits=False`` only fills the cache for later requests: a request whose entry is already there is
     neither read nor decoded (None in the returned mapping).
     """
     from phasewake.core.errors import PhasewakeError
@@ -414,93 +332,118 @@ def cached_pass(run: Run, items: Mapping[str, PassItem], *, cache: ResultCache |
 
     cache = ResultCache() if cache is None else cache
     out: dict[str, Any] = {}
-    keys: dict[str, str | None] = {}
-    for name, item in items.items():
-        key = None
-        if run.paths and cache.enabled:
-            try:
-                key = analysis_key(run, item.analysis, item.settings, extra_paths=item.extra_paths)
-            except (_Uncacheable, OSError):
-                key = None
-        keys[name] = key
+    keys = {name: _pass_key(run, request, cache) for name, request in requests.items()}
+    for name, request in requests.items():
+        key = keys[name]
         if key is not None and not load_hits and cache.has(key):
             out[name] = None
         elif key is not None:
-            ok, value = lookup(cache, key, item.analysis)
+            ok, value = lookup(cache, key, request.name)
             if ok:
                 out[name] = value
-    missing = {n: it for n, it in items.items() if n not in out}
     if out:
         yield Progress(1, 1, ", ".join(out) + " (from the cache)")
+    missing = {n: r for n, r in requests.items() if n not in out}
     consumers: dict[str, _Guarded] = {}
-    for name, item in missing.items():
+    for name, request in missing.items():
         try:
-            consumers[name] = _Guarded(item.consumer())
+            made = request.consumer(run)
         except PhasewakeError:
-            continue  # not from a shared pass: None, the caller runs it alone
+            made = None
+        if made is not None:
+            consumers[name] = _guarded(made)
     if consumers:
-        firsts = yield from run_pass(run, consumers)
+        firsts = yield from run_pass(run, consumers, label="one pass: " + ", ".join(r.label or r.name for n, r
+                                                                                  in missing.items() if n in consumers))
         for name, first in firsts.items():
-            item = missing[name]
-            if isinstance(first, PhasewakeError) or item.then is None:
+            if isinstance(first, PhasewakeError):
                 out[name] = first
                 continue
             try:
-                out[name] = yield from item.then(first)
+                out[name] = yield from missing[name].after_pass(run, first)
             except PhasewakeError as exc:
                 out[name] = exc
-    for name in consumers:
-        key = keys[name]
-        if key is not None and not isinstance(out.get(name), BaseException):
-            store(cache, key, missing[name].analysis, out[name])
-    return {name: out.get(name) for name in items}
+        for name in consumers:
+            key = keys[name]
+            if key is not None and not isinstance(out.get(name), BaseException):
+                store(cache, key, missing[name].name, out[name])
+    for name, request in missing.items():
+        if name not in consumers and alone:
+            try:
+                out[name] = yield from requested(run, request, cache=cache)
+            except PhasewakeError as exc:
+                out[name] = exc
+    return {name: out.get(name) for name in requests}
 
 
-def audit_item(run: Run, **settings: Any) -> PassItem:
-    """The audit as a :class:`PassItem` (the key of :class:`~phasewake.core.analyses.audit.AuditRequest`)."""
+# ---------------------------------------------------------------------------------------------------
+# the earlier names, thin over the requests (for callers not yet switched to ``requested``)
+# ---------------------------------------------------------------------------------------------------
+
+def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
+                       stop: int | None = None, chunk_frames: int | None = None, mass_weighted_pca: bool = True,
+                       fit_pca: bool = True) -> Work[list[CoordinateSeries]]:
+    """``requested(run, CoordinatesRequest(specs, ...))`` (:mod:`phasewake.core.analyses.coordinates`)."""
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+
+    request = CoordinatesRequest(specs, start=start, stop=stop, chunk_frames=chunk_frames,
+                                 mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
+    return (yield from requested(run, request, cache=cache))
+
+
+def cached_audit(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """:class:`phasewake.core.analyses.audit.AuditRequest` of ``settings`` through :func:`requested`."""
     from phasewake.core.analyses.audit import AuditRequest
-    from phasewake.core.errors import MissingDataError
 
-    request = AuditRequest(**settings)
-
-    def consumer() -> Any:
-        made = request.consumer(run)
-        if made is None:
-            raise MissingDataError("the audit reads no frames of this run", path=run.paths[0] if run.paths else None)
-        return made
-
-    return PassItem(request.name, request.settings(), consumer, then=lambda frames: request.after_pass(run, frames))
+    return (yield from requested(run, AuditRequest(**settings), cache=cache))
 
 
-def coordinates_settings(run: Run, specs: Sequence[str], *, start: int = 0, stop: int | None = None,
-                         chunk_frames: int | None = None, mass_weighted_pca: bool = True,
-                         fit_pca: bool = True) -> dict[str, Any]:
-    """The key settings of :func:`cached_coordinates`."""
-    stop_ = run.n_frames if stop is None else min(int(stop), run.n_frames)
-    return {"specs": list(specs), "start": int(start), "stop": stop_, "chunk_frames": chunk_frames,
-            "mass_weighted_pca": bool(mass_weighted_pca), "fit_pca": bool(fit_pca)}
+def cached_pca(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """``requested(run, PCARequest(**settings))`` (:mod:`phasewake.core.analyses.projection`)."""
+    from phasewake.core.analyses.projection import PCARequest
+
+    return (yield from requested(run, PCARequest(**settings), cache=cache))
 
 
-def coordinates_item(run: Run, specs: Sequence[str]) -> PassItem:
-    """Coordinates of all frames as a :class:`PassItem` (the key of :func:`cached_coordinates`)."""
-    from phasewake.core.analyses.coordinates import CoordinatesConsumer
+def cached_vacf(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """``requested(run, VACFRequest(**settings))`` (:mod:`phasewake.core.analyses.velocity`)."""
+    from phasewake.core.analyses.velocity import VACFRequest
 
-    return PassItem("coordinates", coordinates_settings(run, specs), lambda: CoordinatesConsumer(run, specs),
-                    extra_paths=_reference_paths(run, specs))
+    return (yield from requested(run, VACFRequest(**settings), cache=cache))
 
 
-def pca_item(run: Run, **settings: Any) -> PassItem:
-    """A PCA of all frames as a :class:`PassItem` (the key of :func:`cached_pca`); its projections are a
-    second pass over the frames, as in ``compute_pca``."""
-    from phasewake.core.analyses.projection import PCAConsumer, PCAProjectionConsumer, compute_pca
-    from phasewake.core.model.framepass import run_pass
+def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: Any) -> Work[Any]:
+    """``requested(run, SpectrumRequest(**settings))`` (:mod:`phasewake.core.analyses.velocity`)."""
+    from phasewake.core.analyses.velocity import SpectrumRequest
 
-    def then(pca: Any) -> Work[Any]:
-        if not settings.get("projections", True):
-            return pca
-        got = yield from run_pass(run, {"p": PCAProjectionConsumer(run, pca)})
-        return got["p"]
+    return (yield from requested(run, SpectrumRequest(**settings), cache=cache))
 
-    return PassItem("pca", _with_defaults(compute_pca, settings),
-                    lambda: PCAConsumer(run, **{k: v for k, v in settings.items() if k != "projections"}),
-                    then=then)
+
+def cached_pass(run: Run, items: Mapping[str, AnalysisRequest], *, cache: ResultCache | None = None,
+                load_hits: bool = True) -> Work[dict[str, Any]]:
+    """:func:`requested_pass` (the items are requests)."""
+    return (yield from requested_pass(run, items, cache=cache, load_hits=load_hits))
+
+
+def audit_item(run: Run, **settings: Any) -> AnalysisRequest:
+    """``AuditRequest(**settings)``, for :func:`requested_pass`."""
+    from phasewake.core.analyses.audit import AuditRequest
+
+    return AuditRequest(**settings)
+
+
+def coordinates_item(run: Run, specs: Sequence[str]) -> AnalysisRequest:
+    """``CoordinatesRequest(specs)`` of every frame, for :func:`requested_pass` (a bad specification raises
+    here)."""
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+
+    request = CoordinatesRequest(specs)
+    request.reference_paths(run)
+    return request
+
+
+def pca_item(run: Run, **settings: Any) -> AnalysisRequest:
+    """``PCARequest(**settings)`` of every frame, for :func:`requested_pass`."""
+    from phasewake.core.analyses.projection import PCARequest
+
+    return PCARequest(**settings)

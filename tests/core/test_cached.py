@@ -440,8 +440,12 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
 
 
 def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):
+    from dataclasses import dataclass
+    from typing import ClassVar
+
+    from phasewake.core.analyses.request import AnalysisRequest
     from phasewake.core.errors import AnalysisError, CoordinateSpecError
-    from phasewake.core.store.cached import PassItem, cached_pass, coordinates_item, pca_item
+    from phasewake.core.store.cached import cached_pass, coordinates_item, pca_item
 
     class FailsMidway:  # an analysis that gives up on its second chunk
         atoms = None
@@ -462,12 +466,20 @@ def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(
         def finish(self):
             return "never"
 
+    @dataclass(frozen=True)
+    class Failing(AnalysisRequest):
+        name: ClassVar[str] = "failing"
+        x: int = 1
+
+        def consumer(self, run):
+            return FailsMidway()
+
     path = _copy(tmp_path)
     run, frames = _counted(path)
     items = {"q": coordinates_item(run, SPECS),
              # subspace iteration needs several passes: its consumer refuses, the caller runs it alone
              "pca": pca_item(run, atom_indices=np.arange(2, 12), n_components=2, method="randomized", n_iter=2),
-             "bad": PassItem("failing", {"x": 1}, FailsMidway)}
+             "bad": Failing()}
     got = drive(cached_pass(run, items, cache=ResultCache(enabled=False)))
     assert frames.calls == 1
     assert got["pca"] is None
@@ -475,3 +487,29 @@ def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(
     _equal(got["q"], drive(compute_coordinates(open_run([path]), SPECS)))
     with pytest.raises(CoordinateSpecError):  # a bad specification is refused when the request is made
         coordinates_item(run, [f"distance(0, {run.n_atoms + 5})"])
+
+
+def test_requested_pass_of_velocity_requests_reads_once_and_each_single_request_hits(tmp_path, cache_dir):
+    """VACF and spectrum of every frame from one read; each equals its own analysis (the reference: vacf and
+    vibrational_spectrum alone) and is stored under its request's key; a request of part of the frames
+    cannot join and runs alone with ``alone=True``."""
+    from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest, vacf, vibrational_spectrum
+    from phasewake.core.store.cached import requested, requested_pass
+
+    path = _copy(tmp_path)
+    run, frames = _counted(path)
+    reqs = {"v": VACFRequest(max_lag_ps=0.5), "s": SpectrumRequest(),
+            "part": VACFRequest(max_lag_ps=0.5, stop=100)}
+    got = drive(requested_pass(run, reqs, alone=True))
+    assert frames.calls == 2  # the shared pass, then the part alone
+    plain = open_run([path])
+    np.testing.assert_allclose(got["v"].vacf, drive(vacf(plain, max_lag_ps=0.5)).vacf, rtol=1e-10)
+    np.testing.assert_allclose(got["part"].vacf, drive(vacf(plain, max_lag_ps=0.5, stop=100)).vacf, rtol=1e-10)
+    alone = drive(vibrational_spectrum(plain))
+    np.testing.assert_allclose(got["s"].intensity, alone.intensity, rtol=1e-9, atol=1e-12 * np.abs(alone.intensity).max())
+    run2, frames2 = _counted(path)
+    for name, request in reqs.items():
+        drive(requested(run2, request))
+    assert frames2.calls == 0
+    without = drive(requested_pass(run2, {"part": VACFRequest(max_lag_ps=0.3, stop=100)}))
+    assert without == {"part": None} and frames2.calls == 0  # cannot join, not asked to run alone
