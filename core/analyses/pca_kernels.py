@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.analyses.coordinates import kabsch
+from phasewake.core.analyses.geometry import kabsch
 from phasewake.core.errors import AnalysisError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.units import KB_KJ_PER_MOL_K

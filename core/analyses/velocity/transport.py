@@ -22,7 +22,6 @@ from phasewake.core.analyses.velocity.autocorrelation import (
     _default_lag,
     _frame_spacing,
     _group_labels,
-    vacf,
 )
 from phasewake.core.analyses.velocity.correlator import BlockCorrelator
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
@@ -215,22 +214,17 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
     error also holds half the spread of the running integral from the limit to twice it. The Green-Kubo
     value is marked unreliable (and the comparison says so) when the VACF decays within fewer frames than
     ``transport.vacf_resolution`` allows: with velocities 100 fs apart in water the first trapezoid alone
-    overestimates D several times. Blocks shorter than 4 limits (or 16 frames) are not used.
+    overestimates D several times. Blocks shorter than 4 limits (or 16 frames) are not used. The VACF and
+    the MSD of a span come from one frame pass.
     """
     import dataclasses
 
-    from phasewake.core.analyses.verdicts import judge
-
-    if vacf_result is not None and not vacf_result.mass_weighted:
-        res = vacf_result  # the same run, groups and frames, computed already (not re-read)
-    else:
-        res = yield from vacf(run, groups=groups, max_lag_ps=max_lag_ps, start=start, stop=stop,
-                              chunk_frames=chunk_frames)
+    known = vacf_result if vacf_result is not None and not vacf_result.mass_weighted else None
+    res, msd_res = yield from _vacf_and_msd(run, groups=groups, vacf_lag_ps=max_lag_ps, msd_lag_ps=max_lag_ps,
+                                            fit_range_ps=fit_range_ps, start=start, stop=stop,
+                                            with_msd=with_msd and run.frames is not None,
+                                            chunk_frames=chunk_frames, known=known)
     gks = [green_kubo(res, group=i, limit_ps=limit_ps) for i in range(len(res.groups))]
-    msd_res = None
-    if with_msd and run.frames is not None:
-        msd_res = yield from msd(run, groups=groups, max_lag_ps=max_lag_ps, fit_range_ps=fit_range_ps,
-                                 start=start, stop=stop, chunk_frames=chunk_frames)
     n_total = len(range(start, run.n_frames if stop is None else min(stop, run.n_frames)))
     k_max = max(int(round(g.limit_ps / res.dt_ps)) for g in gks)
     b = int(n_blocks)
@@ -244,17 +238,18 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
         msd_blocks = np.zeros((len(res.groups), b))
         for j in range(b):
             s0 = start + j * size
-            rb = yield from vacf(run, groups=groups, max_lag_ps=max(k_max + 1, 8) * res.dt_ps, start=s0, stop=s0 + size,
-                                 chunk_frames=chunk_frames)
-            for i, g in enumerate(gks):
-                gk_blocks[i, j] = green_kubo(rb, group=i, limit_ps=g.limit_ps).diffusion_nm2_per_ps
+            fit, msd_lag = None, None
             if msd_res is not None:
                 lo, hi = msd_res.fit_range_ps
                 half = (size // 2) * res.dt_ps
                 same = hi <= half - res.dt_ps  # the whole run's fit range fits in the block: use it
-                mb = yield from msd(run, groups=groups, max_lag_ps=hi + res.dt_ps if same else half,
-                                    fit_range_ps=(lo, hi) if same else None, start=s0, stop=s0 + size,
-                                    chunk_frames=chunk_frames)
+                fit, msd_lag = ((lo, hi) if same else None), (hi + res.dt_ps if same else half)
+            rb, mb = yield from _vacf_and_msd(run, groups=groups, vacf_lag_ps=max(k_max + 1, 8) * res.dt_ps,
+                                              msd_lag_ps=msd_lag, fit_range_ps=fit, start=s0, stop=s0 + size,
+                                              with_msd=msd_res is not None, chunk_frames=chunk_frames)
+            for i, g in enumerate(gks):
+                gk_blocks[i, j] = green_kubo(rb, group=i, limit_ps=g.limit_ps).diffusion_nm2_per_ps
+            if mb is not None:
                 msd_blocks[:, j] = mb.diffusion_nm2_per_ps
         gks = [dataclasses.replace(g, block_values_nm2_per_ps=gk_blocks[i],
                                    block_error_nm2_per_ps=float(np.std(gk_blocks[i], ddof=1) / math.sqrt(b)))
@@ -264,40 +259,69 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
     else:
         notes.append(f"no block error bars: {n_total} frames make fewer than 3 blocks of at least "
                      f"{max(16, 4 * k_max)} frames (4 Green-Kubo limits)")
+    return TransportResult(vacf=res, green_kubo=tuple(gks), msd=msd_res, msd_block_error_nm2_per_ps=tuple(msd_err),
+                           n_blocks=b if b >= 3 else 0, verdicts=_transport_verdicts(gks, msd_res, msd_err, res.dt_ps),
+                           notes=tuple(notes))
+
+
+def _vacf_and_msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None, vacf_lag_ps: float | None,
+                  msd_lag_ps: float | None, fit_range_ps: tuple[float, float] | None, start: int, stop: int | None,
+                  with_msd: bool, chunk_frames: int, known: VACFResult | None = None
+                  ) -> Work[tuple[VACFResult, MSDResult | None]]:
+    """The VACF (unless ``known``) and the MSD (when ``with_msd``) of frames [start, stop), from one pass."""
+    from phasewake.core.analyses.velocity.autocorrelation import VACFConsumer
+    from phasewake.core.model.framepass import run_pass
+
+    consumers: dict[str, Any] = {}
+    if known is None:
+        consumers["velocity autocorrelation"] = VACFConsumer(run, groups=groups, max_lag_ps=vacf_lag_ps,
+                                                             start=start, stop=stop)
+    if with_msd:
+        consumers["mean-squared displacement"] = MSDConsumer(run, groups=groups, max_lag_ps=msd_lag_ps,
+                                                             fit_range_ps=fit_range_ps, start=start, stop=stop)
+    got = (yield from run_pass(run, consumers, start=start, stop=stop, chunk_frames=chunk_frames)) if consumers else {}
+    res = known if known is not None else got["velocity autocorrelation"]
+    return res, got.get("mean-squared displacement")
+
+
+def _transport_verdicts(gks: Sequence[GreenKuboResult], msd_res: MSDResult | None, msd_err: Sequence[float | None],
+                        dt_ps: float) -> tuple[Any, ...]:
+    """Resolution of each Green-Kubo value and its agreement with the MSD value."""
+    import dataclasses
+
+    from phasewake.core.analyses.verdicts import THRESHOLDS, Verdict, judge
+
     verdicts = []
     for i, g in enumerate(gks):
-        spacing_fs = res.dt_ps * 1e3
-        msg = (f"{g.group}: the VACF falls to 1/e within {g.decay_frames:.2g} frames ({spacing_fs:.3g} fs apart)")
+        msg = f"{g.group}: the VACF falls to 1/e within {g.decay_frames:.2g} frames ({dt_ps * 1e3:.3g} fs apart)"
         if not g.reliable:
             msg += (f": the Green-Kubo value {g.diffusion_nm2_per_ps:.3g} nm^2/ps rests on the first interval or two "
                     "and is unreliable (biased high); it is not used")
         verdicts.append(judge("transport.vacf_resolution", g.decay_frames, title=f"Green-Kubo resolution ({g.group})",
                               unit="frames per decay", message=msg,
                               advice=_explanation("transport.vacf_resolution")))
-        if msd_res is not None:
-            dm = float(msd_res.diffusion_nm2_per_ps[i])
-            rel = (g.diffusion_nm2_per_ps - dm) / dm if dm else float("inf")
-            e1, e2 = g.error_nm2_per_ps, msd_err[i]
-            words = (f"{g.group}: Green-Kubo D = {_pm(g.diffusion_nm2_per_ps, e1)} nm^2/ps, MSD (Einstein) D = "
-                     f"{_pm(dm, e2)} nm^2/ps: Green-Kubo is {100 * rel:+.0f}% of the MSD value")
-            if not g.reliable:
-                words += "; the Green-Kubo value is unreliable (coarse frames): use the MSD value"
-            if e1 is not None and e2 is not None and (e1 > 0 or e2 > 0):
-                z = abs(g.diffusion_nm2_per_ps - dm) / math.hypot(e1, e2)
-                v = judge("transport.gk_msd_agreement", z, title=f"Green-Kubo vs MSD ({g.group})",
-                          unit="combined standard errors", message=words + f" ({z:.1f} combined standard errors)",
-                          advice=_explanation("transport.gk_msd_agreement"))
-            else:
-                from phasewake.core.analyses.verdicts import THRESHOLDS, Verdict
-
-                v = Verdict("transport.gk_msd_agreement", "info", f"Green-Kubo vs MSD ({g.group})", None, "",
-                            words + " (no error bars: too few frames for blocks)",
-                            threshold=THRESHOLDS["transport.gk_msd_agreement"])
-            if not g.reliable and v.level in ("ok", "info"):
-                v = dataclasses.replace(v, level="caution")
-            verdicts.append(v)
-    return TransportResult(vacf=res, green_kubo=tuple(gks), msd=msd_res, msd_block_error_nm2_per_ps=tuple(msd_err),
-                           n_blocks=b if b >= 3 else 0, verdicts=tuple(verdicts), notes=tuple(notes))
+        if msd_res is None:
+            continue
+        dm = float(msd_res.diffusion_nm2_per_ps[i])
+        rel = (g.diffusion_nm2_per_ps - dm) / dm if dm else float("inf")
+        e1, e2 = g.error_nm2_per_ps, msd_err[i]
+        words = (f"{g.group}: Green-Kubo D = {_pm(g.diffusion_nm2_per_ps, e1)} nm^2/ps, MSD (Einstein) D = "
+                 f"{_pm(dm, e2)} nm^2/ps: Green-Kubo is {100 * rel:+.0f}% of the MSD value")
+        if not g.reliable:
+            words += "; the Green-Kubo value is unreliable (coarse frames): use the MSD value"
+        if e1 is not None and e2 is not None and (e1 > 0 or e2 > 0):
+            z = abs(g.diffusion_nm2_per_ps - dm) / math.hypot(e1, e2)
+            v = judge("transport.gk_msd_agreement", z, title=f"Green-Kubo vs MSD ({g.group})",
+                      unit="combined standard errors", message=words + f" ({z:.1f} combined standard errors)",
+                      advice=_explanation("transport.gk_msd_agreement"))
+        else:
+            v = Verdict("transport.gk_msd_agreement", "info", f"Green-Kubo vs MSD ({g.group})", None, "",
+                        words + " (no error bars: too few frames for blocks)",
+                        threshold=THRESHOLDS["transport.gk_msd_agreement"])
+        if not g.reliable and v.level in ("ok", "info"):
+            v = dataclasses.replace(v, level="caution")
+        verdicts.append(v)
+    return tuple(verdicts)
 
 
 def _pm(value: float, error: float | None) -> str:
@@ -342,7 +366,7 @@ class _Unwrapper:
         self.acc: np.ndarray | None = None  # unwrapped displacement of the last frame seen
 
     def __call__(self, pos: np.ndarray, box: np.ndarray | None) -> np.ndarray:
-        from phasewake.core.analyses.coordinates import minimum_image
+        from phasewake.core.analyses.geometry import minimum_image
 
         p = np.asarray(pos, dtype=np.float64)
         if self.last is None:
@@ -540,7 +564,7 @@ class MSDConsumer:
         return np.concatenate(self._tail)[-(self.lag - 1):] if self._tail else self._head[:0]
 
     def merge(self, later: MSDConsumer) -> None:
-        from phasewake.core.analyses.coordinates import minimum_image
+        from phasewake.core.analyses.geometry import minimum_image
         from phasewake.core.model.framepass import check_next
 
         check_next(self._range, later._range, "mean-squared displacement")
