@@ -508,7 +508,7 @@ def test_requested_pass_of_velocity_requests_reads_once_and_each_single_request_
     alone = drive(vibrational_spectrum(plain))
     np.testing.assert_allclose(got["s"].intensity, alone.intensity, rtol=1e-9, atol=1e-12 * np.abs(alone.intensity).max())
     run2, frames2 = _counted(path)
-    for name, request in reqs.items():
+    for request in reqs.values():
         drive(requested(run2, request))
     assert frames2.calls == 0
     without = drive(requested_pass(run2, {"part": VACFRequest(max_lag_ps=0.3, stop=100)}))
