@@ -103,7 +103,7 @@ Job = Callable[[AnalysisContext], Generator[Progress, None, PanelResult]]
 
 
 def window_run(run: Run, start: int, stop: int) -> Run:
-    """The run cut to frames [start, stop): ``Run.window`` (``core/model/window.py``)."""
+    """The run cut to frames [start, stop): ``Run.window`` (``core/model/run.py``)."""
     return run.window(start, stop)
 
 

@@ -33,6 +33,7 @@ from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
+from phasewake.core.analyses.atom_groups import solute_atoms, solvent_atoms  # noqa: F401 - re-exported
 from phasewake.core.analyses.coordspec import CoordinateDef, ResolvedCoordinate, parse, resolve
 from phasewake.core.analyses.geometry import (  # noqa: F401 - re-exported: the coordinates' kernels
     evaluate_arrays,
@@ -48,7 +49,6 @@ from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import check_masses
 
 if TYPE_CHECKING:
-    import mdtraj
 
     from phasewake.core.model.run import FrameChunk, Run
 
@@ -113,31 +113,6 @@ def units_of(resolved: ResolvedCoordinate) -> tuple[str, str, str, str]:
 # geometry kernels (pure numpy, vectorised over frames)
 
 
-
-
-def solvent_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
-    """Atoms that look like solvent: water, or small residues (<= 4 atoms) whose name occurs >= 10 times.
-
-    A heuristic (common practice) used only to choose defaults (the PCA group, the first coordinate
-    shown); the user can always name atoms explicitly.
-    """
-    if topology is None:
-        return np.zeros(0, dtype=np.int64)
-    from collections import Counter
-
-    counts = Counter(r.name for r in topology.residues)
-    out: list[int] = []
-    for res in topology.residues:
-        if res.is_water or (res.n_atoms <= 4 and counts[res.name] >= 10):
-            out.extend(a.index for a in res.atoms)
-    return np.asarray(sorted(out), dtype=np.int64)
-
-
-def solute_atoms(topology: mdtraj.Topology | None, n_atoms: int) -> np.ndarray:
-    """All atoms that :func:`solvent_atoms` does not call solvent (all atoms when that leaves none)."""
-    solvent = solvent_atoms(topology, n_atoms)
-    rest = np.setdiff1d(np.arange(n_atoms), solvent)
-    return rest if rest.size else np.arange(n_atoms)
 
 
 def default_coordinates(run: Run) -> list[str]:
@@ -398,7 +373,10 @@ class CoordinatesRequest(AnalysisRequest):
         object.__setattr__(self, "specs", tuple(str(s) for s in specs))
 
     def reference_paths(self, run: Run) -> tuple[str, ...]:
-        """The rmsd reference structures the specifications name (a bad specification raises here)."""
+        """The rmsd reference structures the specifications name (a bad specification raises here; a run
+        without frames has none: the work says so)."""
+        if run.frames is None:
+            return ()
         refs = (resolve_for_run(s, run).reference_path for s in self.specs)
         return tuple(str(r) for r in refs if r)
 

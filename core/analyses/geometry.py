@@ -5,12 +5,15 @@ frames, with the minimum image of periodic boxes and optimal superposition (the 
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from phasewake.core.analyses.coordspec import ResolvedCoordinate
 from phasewake.core.errors import AnalysisError, CoordinateSpecError
+
+if TYPE_CHECKING:
+    from phasewake.core.analyses.pca_kernels import PCAResult
 
 
 def minimum_image(d: np.ndarray, box_nm: np.ndarray | None) -> np.ndarray:
@@ -239,8 +242,6 @@ def _rmsd_kernel(resolved: ResolvedCoordinate, pos: np.ndarray, masses_amu: np.n
 def _pc_kernel(resolved: ResolvedCoordinate, pos: np.ndarray, masses_amu: np.ndarray | None,
                box_nm: np.ndarray | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     g = resolved.groups
-    from phasewake.core.analyses.projection import pc_value_and_gradient
-
     if resolved.pca is None:
         raise AnalysisError(f"{resolved.spec}: the principal components have not been computed yet")
     idx = np.asarray(g[0])
@@ -320,3 +321,31 @@ def _frame_boxes(box_nm: np.ndarray | None, n: int) -> np.ndarray | None:
 
 # ----------------------------------------------------------------------------------------------
 # Run adapters
+
+
+def _fitted(x: np.ndarray, reference: np.ndarray, weights: np.ndarray, fit: bool) -> tuple[np.ndarray, np.ndarray | None]:
+    """Fit frames (n, g, 3) onto reference; returns fitted positions and the rotations (or None)."""
+    if not fit:
+        return x.astype(np.float64), None
+    rot, cx, cy = kabsch(x, reference, weights)
+    return np.matmul(x - cx[:, None, :], rot) + cy, rot
+
+
+def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Value of component k (0-based) and its gradient with respect to the group's atoms.
+
+    positions_nm : (n, g, 3) positions of ``pca.atom_indices``. The gradient treats the fitting
+    rotation as fixed for the frame (exact without fitting; for a mass-weighted fit the translation
+    part drops out exactly because the modes are orthogonal to rigid translations).
+
+    Returns values (n,) and gradient (n, g, 3).
+    """
+    x = np.asarray(positions_nm, dtype=np.float64)
+    sq = np.sqrt(pca.masses_amu) if pca.mass_weighted else np.ones(pca.masses_amu.shape[0])
+    xf, rot = _fitted(x, pca.reference_nm, pca.masses_amu if pca.mass_weighted else np.ones_like(sq), pca.fit)
+    e = pca.eigenvectors[:, k].reshape(-1, 3)
+    y = xf * sq[None, :, None] - pca.mean.reshape(-1, 3)[None]
+    q = np.einsum("nia,ia->n", y, e)
+    a = sq[:, None] * e
+    grad = np.broadcast_to(a, x.shape).copy() if rot is None else np.einsum("nab,ib->nia", rot, a)
+    return q, grad

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.analyses.geometry import kabsch
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.units import KB_KJ_PER_MOL_K
@@ -32,7 +32,7 @@ def default_block_frames(n_coordinates: int, itemsize: int = 4) -> int:
 
 
 @dataclass(frozen=True)
-class PCAResult:
+class PCAResult(ResultMixin):
     """Principal components of an atom group.
 
     atom_indices : (g,) atoms of the run used (d = 3 g coordinates, ordered atom-major: x0 y0 z0 x1 ...)
@@ -107,37 +107,6 @@ def cosine_content(q: np.ndarray, k: int) -> float:
     if den == 0.0:
         return float("nan")
     return float(2.0 / n * (c @ q) ** 2 / den)
-
-
-def _fitted(x: np.ndarray, reference: np.ndarray, weights: np.ndarray, fit: bool) -> tuple[np.ndarray, np.ndarray | None]:
-    """Fit frames (n, g, 3) onto reference; returns fitted positions and the rotations (or None)."""
-    if not fit:
-        return x.astype(np.float64), None
-    rot, cx, cy = kabsch(x, reference, weights)
-    return np.matmul(x - cx[:, None, :], rot) + cy, rot
-
-
-def pc_value_and_gradient(pca: PCAResult, k: int, positions_nm: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Value of component k (0-based) and its gradient with respect to the group's atoms.
-
-    positions_nm : (n, g, 3) positions of ``pca.atom_indices``. The gradient treats the fitting
-    rotation as fixed for the frame (exact without fitting; for a mass-weighted fit the translation
-    part drops out exactly because the modes are orthogonal to rigid translations).
-
-    Returns values (n,) and gradient (n, g, 3).
-    """
-    x = np.asarray(positions_nm, dtype=np.float64)
-    sq = np.sqrt(pca.masses_amu) if pca.mass_weighted else np.ones(pca.masses_amu.shape[0])
-    xf, rot = _fitted(x, pca.reference_nm, pca.masses_amu if pca.mass_weighted else np.ones_like(sq), pca.fit)
-    e = pca.eigenvectors[:, k].reshape(-1, 3)
-    y = xf * sq[None, :, None] - pca.mean.reshape(-1, 3)[None]
-    q = np.einsum("nia,ia->n", y, e)
-    a = sq[:, None] * e
-    grad = np.broadcast_to(a, x.shape).copy() if rot is None else np.einsum("nab,ib->nia", rot, a)
-    return q, grad
-
-
-
 
 
 def leading_eigenpairs(cov: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:

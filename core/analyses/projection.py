@@ -57,7 +57,8 @@ from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
-from phasewake.core.analyses.coordinates import solute_atoms
+from phasewake.core.analyses.atom_groups import solute_atoms
+from phasewake.core.analyses.geometry import pc_value_and_gradient  # noqa: F401 - re-exported
 from phasewake.core.analyses.pca_kernels import (  # noqa: F401 - PCAResult and the kernels' public names live here too
     C_CM_PER_PS,
     PCA_BLOCK_BYTES,
@@ -69,7 +70,6 @@ from phasewake.core.analyses.pca_kernels import (  # noqa: F401 - PCAResult and 
     few_threads,
     finish_exact,
     nystrom,
-    pc_value_and_gradient,
     quasi_harmonic_frequencies,
     sketch_cq,
 )

@@ -33,8 +33,7 @@ from typing import TYPE_CHECKING, Any, Protocol
 import numpy as np
 
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk
-from phasewake.core.model.window import WindowFrames
+from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk, WindowFrames
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:

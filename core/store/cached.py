@@ -386,8 +386,8 @@ def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | N
     """``requested(run, CoordinatesRequest(specs, ...))`` (:mod:`phasewake.core.analyses.coordinates`)."""
     from phasewake.core.analyses.coordinates import CoordinatesRequest
 
-    whole = stop is None or int(stop) >= run.n_frames  # "to the end" keys alike however it was said
-    request = CoordinatesRequest(specs, start=start, stop=None if whole else int(stop), chunk_frames=chunk_frames,
+    to_end = None if stop is None or int(stop) >= run.n_frames else int(stop)  # keyed alike however it was said
+    request = CoordinatesRequest(specs, start=start, stop=to_end, chunk_frames=chunk_frames,
                                  mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
     return (yield from requested(run, request, cache=cache))
 

@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Work
 
@@ -52,7 +53,7 @@ def _group_labels(n_atoms: int, groups: Mapping[str, Sequence[int] | np.ndarray]
 
 
 @dataclass(frozen=True)
-class VACFResult:
+class VACFResult(ResultMixin):
     """Velocity autocorrelation per atom group, averaged over atoms and time origins.
 
     vacf : (n_groups, L) in ``unit``: <v_i(0).v_i(t)> (nm^2/ps^2), or <m_i v_i(0).v_i(t)>

@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Work
 
@@ -52,7 +53,7 @@ class Peak:
 
 
 @dataclass(frozen=True)
-class VDOSResult:
+class VDOSResult(ResultMixin):
     """Vibrational density of states from the mass-weighted VACF.
 
     ``intensity`` is normalised so that its integral over wavenumber (cm^-1) is ``n_dof``;
