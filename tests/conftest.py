@@ -42,7 +42,7 @@ def openmm_water_4fs(tmp_path_factory):
     return _engine_runs().water_box_nve(tmp_path_factory.mktemp("openmm_water"), dt_fs=4.0, n_steps=150, report_every=2)
 
 
-# --- inputs are never written (issue 10) ------------------------------------------------------------
+# --- inputs are never written ------------------------------------------------------------
 # Every sample file's sha256 is taken when the test session starts and checked when it ends: a full
 # run of every command over the sample data must leave them byte for byte unchanged.
 import hashlib  # noqa: E402
@@ -73,7 +73,7 @@ def pytest_sessionfinish(session, exitstatus):
         session.exitstatus = 1
 
 
-# --- the result cache never touches ~/.cache during tests (issue 9) ---------------------------------
+# --- the result cache never touches ~/.cache during tests ---------------------------------
 @pytest.fixture(scope="session", autouse=True)
 def _session_cache_dir(tmp_path_factory):
     """Point PHASEWAKE_CACHE_DIR at a session temporary folder (tests may monkeypatch it further)."""

@@ -232,7 +232,7 @@ def _write_files(run: EngineRun, out: Path, stem: str) -> dict[str, Path]:
 
 
 def write_mdtraj_layout_h5(path: Path, run: EngineRun) -> None:
-    """mdtraj's HDF5 layout ("Pande" conventions 1.1) written with plain h5py, as FORMATS.md describes it.
+    """mdtraj's HDF5 layout ("Pande" conventions 1.1) written with plain h5py, as mdtraj documents it.
 
     Written independently of our reader so a test of the reader checks it against the layout, not itself.
     """

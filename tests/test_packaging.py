@@ -1,4 +1,4 @@
-"""Installing as an application (issue 11): the wheel, the desktop entry, the icon.
+"""Installing as an application: the wheel, the desktop entry, the icon.
 
 The wheel is built from this checkout and installed into a fresh virtual environment that sees the
 pinned dependencies of .venv but not the editable install, so the smoke commands run the installed

@@ -1,4 +1,4 @@
-"""Guard against the PySide6 6.12.0 + CPython 3.11 crash (FORMATS.md, first section).
+"""Guard against the PySide6 6.12.0 + CPython 3.11 crash.
 
 Every void Qt call in that release drops one reference to None; after enough calls Python aborts.
 We make ~1e5 void calls and check that None's reference count did not fall. An upgrade that brings

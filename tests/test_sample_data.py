@@ -102,7 +102,7 @@ def test_committed_files_match_the_manifest():
         path = SAMPLES / name
         assert path.stat().st_size == info["bytes"], name
         assert sha256(path) == info["sha256"], name
-    # the size budget of the sample folder (issue 2): at most about 8 MB in all
+    # the size budget of the sample folder: at most about 8 MB in all
     assert sum(info["bytes"] for info in files.values()) <= 8 * 1024**2
 
 
@@ -158,7 +158,7 @@ def test_frames_resolve_the_bond_vibration():
     p = run["params"]
     k = 8 * p["dimer_barrier_kJ_per_mol"] / p["dimer_w_nm"] ** 2
     period = 2 * np.pi / np.sqrt(k / (MASS / 2))
-    assert period / (run["t"][1] - run["t"][0]) >= 10  # >= 10 frames per period (issue 2)
+    assert period / (run["t"][1] - run["t"][0]) >= 10  # >= 10 frames per period
 
 
 def test_stored_energies_agree_with_an_independent_recomputation():

@@ -279,7 +279,7 @@ def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                                "(T toggles it); a crossing selected in the Crossings panel is drawn thick.")
 
 
-PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (PERFORMANCE.md: eigh of
+PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route (eigh of
 # a 3000 x 3000 covariance takes seconds, and the full covariance grows as the square)
 
 

@@ -3,7 +3,7 @@
 The same description is drawn by ``phasewake.core.figures.export`` with matplotlib, so what a user exports
 is what they see here. Time axes (``PlotSpec.x_is_time``) are x-linked inside a figure and carry the
 shared cursor as a draggable vertical line. Long monotonic series use peak downsampling and clip to
-view, so 1e7-point curves stay smooth (measured in ``/work/shared/PERFORMANCE.md``).
+view, so 1e7-point curves stay smooth.
 """
 
 from __future__ import annotations

@@ -204,7 +204,7 @@ def _from_velocities(run: Run, fp: AuditFrames, n_dof: int, half: bool, half_src
     spacing = float(np.median(np.diff(fp.time_ps))) if fp.time_ps.size > 1 else math.nan
     step = timestep_ps if timestep_ps is not None else run.metadata.timestep_ps
     if step and fp.time_ps.size > 2 and abs(spacing - step) <= 1e-3 * step:
-        # every step written: KE(n) = mean of 1/2 m v^2 of frames n and n+1 (ENGINES.md, GROMACS)
+        # every step written: KE(n) = mean of 1/2 m v^2 of frames n and n+1 (GROMACS leap-frog)
         k_full = 0.5 * (fp.kinetic_kJ_per_mol[:-1] + fp.kinetic_kJ_per_mol[1:])
         return (tm.kinetic_temperature(k_full, n_dof), fp.time_ps[:-1],
                 f"velocities half a step off the positions ({half_src}), averaged to full steps: "

@@ -347,7 +347,7 @@ def drift_fit(
 
     The OLS standard error assumes independent residuals; MD residuals are correlated, so it is
     multiplied by sqrt(g), g the statistical inefficiency of the residuals (common practice;
-    common practice). Closed-form sums, no polyfit (PERFORMANCE.md).
+    common practice). Closed-form sums, no polyfit (faster on long series).
 
     Parameters
     ----------

@@ -2,7 +2,7 @@
 
 One figure description, two renderers: the window draws a FigureSpec live with pyqtgraph, this module
 draws the same description for files (PNG at a chosen DPI, SVG and PDF as vectors) so an export
-matches the screen. pyqtgraph's own SVG exporter is broken with current Qt (FORMATS.md), which is why
+matches the screen. pyqtgraph's own SVG exporter is broken with current Qt, which is why
 exports go through matplotlib.
 
 The drawing itself is :mod:`phasewake.core.figures.draw`; the sizes for a slide, a journal column or a

@@ -1,6 +1,6 @@
-"""AMBER ``mdout`` (sander, pmemd): the NSTEP energy records and the run parameters, as in ENGINES.md.
+"""AMBER ``mdout`` (sander, pmemd): the NSTEP energy records and the run parameters.
 
-Laid out from public mdout excerpts and the sander source (ENGINES.md: not run here). AMBER works in
+Laid out from public mdout excerpts and the sander source (AMBER was not run to make them). AMBER works in
 Å, ps, kcal/mol, K, bar.
 
 - Records: `` NSTEP = 500  TIME(PS) = 1021.000  TEMP(K) = 302.32  PRESS = 0.0`` then rows of up to three

@@ -1,4 +1,4 @@
-"""CP2K ``PROJECT-1.ener``: one row per MD step, as in ENGINES.md (checked on CP2K 2023.1 Fist output).
+"""CP2K ``PROJECT-1.ener``: one row per MD step (checked on CP2K 2023.1 Fist output).
 
 Header ``#     Step Nr.          Time[fs]        Kin.[a.u.]          Temp[K]            Pot.[a.u.]
 Cons Qty[a.u.]        UsedTime[s]``; energies in Hartree (converted with scipy.constants' Hartree
@@ -99,7 +99,7 @@ def _field(lines: list[str], prefix: str) -> str | None:
 def read_output(path: Path, **_: object) -> EngineEnergy:
     """Run facts from a CP2K main output: ``MD_PAR| Ensemble type``, ``Time step [fs]``, ``Temperature
     [K]``, ``DOF| Degrees of freedom`` (3N - constraints - invariants), ``THERMOSTAT| Type of thermostat``
-    (ENGINES.md, checked on CP2K 2023.1)."""
+    (checked on CP2K 2023.1)."""
     path = Path(path)
     lines = [ln.strip() for ln in path.read_text(encoding="utf-8", errors="replace").splitlines()]
     facts: dict[str, object] = {"integrator": "velocity Verlet", "velocities_half_step": False}

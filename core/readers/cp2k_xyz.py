@@ -1,6 +1,6 @@
 """CP2K's MD trajectories ``PROJECT-pos-1.xyz`` and ``PROJECT-vel-1.xyz``: our own reader, lazily in chunks.
 
-Layout (ENGINES.md, CP2K; checked on CP2K 2023.1 Fist output): per frame a line with the atom count N,
+Layout (checked on CP2K 2023.1 Fist output): per frame a line with the atom count N,
 a line ``i =        0, time =        0.000, E =        -0.0976846878`` (MD step, time in fs, potential
 energy in Hartree), then N rows ``El x y z``. The ``-pos-`` file holds positions in Angstrom, the
 ``-vel-`` file velocities in bohr per atomic unit of time; they are full-step velocities (1/2 m v^2 with

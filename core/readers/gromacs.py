@@ -1,6 +1,6 @@
 """GROMACS files that say how a run went: the ``.edr`` energy file, ``md.log`` and ``.mdp`` parameters.
 
-Layouts as in ENGINES.md (checked on GROMACS 2022.5 output); GROMACS works in nm, ps, kJ/mol, K, bar.
+Layouts checked on GROMACS 2022.5 output; GROMACS works in nm, ps, kJ/mol, K, bar.
 
 - ``.edr`` (XDR, big-endian): header ``-55555, version, nre, nre x (name, unit)`` as XDR strings; each
   frame ``real -2e10, int -7777777, int version, double t, int64 step, int nsum, int64 nsteps, double dt,

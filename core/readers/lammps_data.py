@@ -1,6 +1,6 @@
 """LAMMPS data files (``write_data`` or hand-written) as a topology: masses per type, molecules, bonds.
 
-Layout (ENGINES.md, LAMMPS): a first comment line, header counts (``N atoms``, ``N atom types``,
+Layout (LAMMPS read_data): a first comment line, header counts (``N atoms``, ``N atom types``,
 ``N bonds``, ...), box lines (``xlo xhi`` ...), then sections: a keyword line (``Masses``, ``Atoms #
 full``, ``Velocities``, ``Bonds``, ``* Coeffs``, ...), a blank line and one row per entry, in any
 order. The data file holds no units style, no time step and no constraints.

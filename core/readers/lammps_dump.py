@@ -1,6 +1,6 @@
 """LAMMPS text dumps (``dump custom``, ``dump atom``): our own reader, lazily in chunks.
 
-Layout (ENGINES.md, LAMMPS): per frame optional ``ITEM: UNITS`` and ``ITEM: TIME``, then ``ITEM:
+Layout (LAMMPS dump): per frame optional ``ITEM: UNITS`` and ``ITEM: TIME``, then ``ITEM:
 TIMESTEP``, ``ITEM: NUMBER OF ATOMS``, ``ITEM: BOX BOUNDS`` (+ ``xy xz yz`` for a triclinic box) with
 three ``lo hi [tilt]`` lines, ``ITEM: ATOMS <columns>`` and one row per atom in arbitrary order.
 
@@ -10,7 +10,7 @@ three ``lo hi [tilt]`` lines, ``ITEM: ATOMS <columns>`` and one row per atom in 
 - Positions: ``xu yu zu`` (unwrapped) when present, else ``x y z`` plus ``ix iy iz`` images (unwrapped
   with the box), else scaled ``xs ys zs`` / ``xsu ysu zsu``; without images wrapped positions are used
   as they are, and said so.
-- Velocities ``vx vy vz`` are full-step (the same step as the positions) [V:L in ENGINES.md].
+- Velocities ``vx vy vz`` are full-step (the same step as the positions), as LAMMPS writes them.
 - An appended continuation repeats the restart step (and may change columns): a frame whose step is not
   after the previous one replaces the earlier frames from that step on, as the engine's restart did.
 - A last frame cut short is an error naming the file, the frame and its step (like a cut DCD/XTC/TRR):

@@ -1,4 +1,4 @@
-"""LAMMPS ``log.lammps``: thermo blocks and the echoed input (units, timestep, fixes), as in ENGINES.md.
+"""LAMMPS ``log.lammps``: thermo blocks and the echoed input (units, timestep, fixes), as LAMMPS writes them.
 
 - The log starts ``LAMMPS (<version>)`` and echoes every input command. Each ``run`` or ``minimize``
   prints a header row starting ``Step``, whitespace-separated rows, then ``Loop time of T on P procs for
@@ -50,7 +50,7 @@ _SKIP = {"Time", "Elapsed", "Elaplong", "CPU", "CPULeft", "TPS", "SPCPU", "Part"
 _BOHR_M = sc.physical_constants["Bohr radius"][0]
 
 # unit style -> (time unit of dt and Step*dt, energy, temperature, pressure, volume, density, default dt,
-#                k_B in energy units per kelvin) [LAMMPS units doc, ENGINES.md table]; the time unit is the
+#                k_B in energy units per kelvin) [LAMMPS units documentation]; the time unit is the
 #                word for messages, its factor to ps comes from lammps_units.STYLES (shared with the dump reader)
 STYLES: dict[str, dict[str, Any]] = {
     "real": {"time": "fs", "energy": "kcal/mol", "pressure": "atm", "volume": "Å^3", "density": "g/cm^3",

@@ -2,7 +2,7 @@
 
 LAMMPS files carry no units: the style comes from the ``units`` command echoed in log.lammps (default
 ``lj``), from ``ITEM: UNITS`` in a dump written with ``dump_modify units yes``, or from the user. Factors
-follow the LAMMPS units documentation as summarised in ENGINES.md (LAMMPS section). ``lj`` is reduced
+follow the LAMMPS units documentation (the units command). ``lj`` is reduced
 units: its numbers are kept as they are and labelled, never passed off as nm or ps.
 """
 

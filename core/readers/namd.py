@@ -1,6 +1,6 @@
-"""NAMD logs: ``ETITLE:`` / ``ENERGY:`` lines and the ``Info:`` start-up lines, as in ENGINES.md.
+"""NAMD logs: ``ETITLE:`` / ``ENERGY:`` lines and the ``Info:`` start-up lines.
 
-Laid out from public NAMD logs and Controller.C (ENGINES.md: not run here). NAMD works in Å, fs,
+Laid out from public NAMD logs and Controller.C (NAMD was not run to make them). NAMD works in Å, fs,
 kcal/mol, K, bar. Each ``ENERGY:`` line is read with the columns of the latest ``ETITLE:``; ``TS`` is the
 step, time = TS x the ``Info: TIMESTEP`` (fs). ``TOTAL3`` is a smoothed total, not a conserved quantity.
 """

@@ -1,6 +1,6 @@
 """OpenMM StateDataReporter CSV: read by the generic table reader (``tables``); this module claims it by
 its header (``#"Step","Time (ps)",...``) and adds what its Step and Time columns say: the time step
-dt = (Time_2 - Time_1) / (Step_2 - Step_1) (ENGINES.md, checked on OpenMM 8.6.1 output)."""
+dt = (Time_2 - Time_1) / (Step_2 - Step_1) (checked on OpenMM 8.6.1 output)."""
 
 from __future__ import annotations
 

@@ -109,7 +109,7 @@ _TOPOLOGY_CACHE_SIZE = 8
 def load_topology(path: str | Path) -> mdtraj.Topology:
     """A topology file through mdtraj (PDB, GRO, PSF, PRMTOP, mol2, ...).
 
-    Parsing a large PDB costs more than reading a whole DCD (PERFORMANCE.md), so topologies are kept
+    Parsing a large PDB costs more than reading a whole DCD, so topologies are kept
     (a few, keyed by path, size and modification time). The same object is returned: do not modify it.
     """
     import mdtraj as md
@@ -187,7 +187,7 @@ _AKMA_PS = math.sqrt(1e-20 * 1.66053906892e-27 / (4184.0 / 6.02214076e23)) * 1e1
 
 def dcd_header_timestep(path: Path) -> tuple[float, int] | None:
     """(integration time step in ps, steps between frames) from a DCD header's DELTA (AKMA time units) and
-    NSAVC (ENGINES.md: OpenMM and NAMD write them so), or None when the header holds no real step."""
+    NSAVC (OpenMM and NAMD write them so), or None when the header holds no real step."""
     try:
         with open(path, "rb") as f:
             head = f.read(92)
@@ -232,7 +232,7 @@ class MdtrajFrames(ChunkedFrames):
     """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
 
     # XTC keeps positions to its precision (0.001 nm by default): too coarse to infer constraints from
-    # bond lengths (rigid water looks 0.4% flexible), so the audit does not (ENGINES.md, XTC)
+    # bond lengths (rigid water looks 0.4% flexible), so the audit does not
     positions_precision_nm: float | None = None
     positions_lossy = False
 

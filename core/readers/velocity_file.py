@@ -1,6 +1,6 @@
 """Velocities written to a file of their own, beside the positions: NAMD's velocity DCD (``velDCDfile``).
 
-ENGINES.md (NAMD): a velocity DCD has the CHARMM DCD layout of the positions file, no unit cell, and
+NAMD: a velocity DCD has the CHARMM DCD layout of the positions file, no unit cell, and
 holds velocities in NAMD's internal unit, Angstrom per 48.88821 fs; x 20.45482706 gives Angstrom/ps
 (NAMD Output.C). NAMD integrates with velocity Verlet, so they are full-step velocities.
 
@@ -27,7 +27,7 @@ from phasewake.core.model.run import (
     budget_chunk_frames,
 )
 
-# Angstrom per AKMA time unit (48.88821 fs) -> Angstrom/ps (ENGINES.md, NAMD: NAMD's PDBVELFACTOR).
+# Angstrom per AKMA time unit (48.88821 fs) -> Angstrom/ps (NAMD's PDBVELFACTOR).
 NAMD_VELOCITY_TO_A_PER_PS = 20.45482706
 _TO_NM_PER_PS = 0.1 * NAMD_VELOCITY_TO_A_PER_PS
 

@@ -229,7 +229,7 @@ def test_openmm_water_temperature_and_4fs_flagged_worse(openmm_water_1fs, openmm
     assert r1.temperature.n_dof == openmm_water_1fs.n_dof
     # kinetic temperature equals OpenMM's own (its kinetic energy, its DOF count) within 0.1 K
     assert r1.temperature.mean_K == pytest.approx(float(np.mean(openmm_water_1fs.temperature_K)), abs=0.1)
-    # the 4 fs run is worse: larger fluctuation ratio (FORMATS.md: ~9x spread seen at 4 fs), flagged
+    # the 4 fs run is worse: larger fluctuation ratio (~9x spread seen at 4 fs), flagged
     f1 = r1.energy.fluctuations.ratio
     f4 = r4.energy.fluctuations.ratio
     assert f4 > 3 * f1

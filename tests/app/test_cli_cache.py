@@ -1,4 +1,4 @@
-"""The result cache from the command line (issue 9): `audit`, `crossings` and `report` run twice on an
+"""The result cache from the command line: `audit`, `crossings` and `report` run twice on an
 unchanged file read the frames once and print the same thing; `--no-cache` neither h5md_reads nor writes it;
 `phasewake cache` counts the entries by analysis.
 

@@ -1,4 +1,4 @@
-"""The window's panel jobs through the result cache (issue 9): the same file reopened (a new Run object,
+"""The window's panel jobs through the result cache: the same file reopened (a new Run object,
 as a new window or a reopened file makes) draws every panel again without reading a frame, and shows the
 same numbers. No Qt needed: the jobs are plain generators (app/window/analyses.py).
 

@@ -2,7 +2,7 @@
 
 Every run under tests/data/engines was made by the engine itself (GROMACS 2022.5, LAMMPS 29Sep2021,
 OpenMM 8.6.1, CP2K 2023.1; see tests/data/engines/README.md); the AMBER mdout and NAMD log are laid out
-per ENGINES.md (not engine output) with the numbers of an OpenMM run. The outside reference of every
+as the engine lays the file out (not engine output) with the numbers of an OpenMM run. The outside reference of every
 test is what the engine reported in its own log or API, read by make_engine_runs.py into
 ``reported.json`` (never by phasewake's readers): GROMACS md.log (nrdf, averages, "Conserved energy
 drift"), LAMMPS log.lammps (thermo rows, echoed commands), CP2K argon.out and .ener, OpenMM's
@@ -415,7 +415,7 @@ def test_cp2k_main_output_gives_ensemble_and_dof(run: str, capsys: pytest.Captur
 
 
 # ------------------------------------------------------------------------------------------------
-# AMBER mdout and NAMD log laid out per ENGINES.md (NOT engine output); reference: the numbers written
+# AMBER mdout and NAMD log laid out as the engines document them (NOT engine output); reference: the numbers written
 # into them (reported.json), themselves those of the OpenMM Langevin run in kcal/mol
 
 
@@ -440,7 +440,7 @@ def test_amber_and_namd_layouts(folder: str, name: str, capsys: pytest.CaptureFi
 @pytest.mark.parametrize("folder,name", [("amber/water_langevin_layout", "mdout"),
                                          ("namd/water_langevin_layout", "water.log")])
 def test_amber_and_namd_layouts_thermostat(folder: str, name: str, capsys: pytest.CaptureFixture[str]) -> None:
-    # reference: the Langevin section of the mdout (ENGINES.md: "a section named by ntt"; &cntrl ntt=3,
+    # reference: the Langevin section of the mdout ("a section named by ntt"; &cntrl ntt=3,
     # temp0=300) and NAMD's "Info: LANGEVIN TEMPERATURE 300"
     rep = reported(folder)["reported"]
     code, d, err = cli(capsys, "describe", ENGINES / folder / name)
@@ -452,7 +452,7 @@ def test_amber_and_namd_layouts_thermostat(folder: str, name: str, capsys: pytes
 
 
 def test_amber_layout_dof(capsys: pytest.CaptureFixture[str]) -> None:
-    # reference: the mdout line 'TOTAL # of degrees of freedom (RNDF) = 771.' (ENGINES.md)
+    # reference: the mdout line 'TOTAL # of degrees of freedom (RNDF) = 771.'
     rep = reported("amber/water_langevin_layout")["reported"]
     code, d, err = cli(capsys, "describe", ENGINES / "amber" / "water_langevin_layout" / "mdout")
     assert code == 0, err

@@ -81,7 +81,7 @@ def test_about_states_version_and_licences_from_package_metadata():
             assert any(d.licence.split("; ")[0] in c for c in md.get_all("Classifier"))
     about = help_dialogs.about_html()
     assert f"phasewake {__version__}" in about
-    # the papers cited beside the code (task list of issue 11)
+    # the papers cited beside the code
     for author in ("Tuckerman", "Flyvbjerg", "Sokal", "Geyer", "Chodera", "Vehtari", "Kramers", "Bennett",
                    "Chandler", "Buchete", "Hess", "Halko", "Amadei", "Karplus", "Yeh", "Thirumalai", "Okabe",
                    "de Buyl"):

@@ -1,4 +1,4 @@
-"""Every verdict and derived number shown in the window explains itself (issue 11).
+"""Every verdict and derived number shown in the window explains itself.
 
 The window's tooltip for each verdict shown must be exactly the explanation the analysis registered
 (core.verdicts.EXPLANATIONS, rendered by core.explain), so the words a user reads on screen are those

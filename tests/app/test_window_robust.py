@@ -1,4 +1,4 @@
-"""The window and faults (issue 10): a file that disappears while open is reported, the window stays
+"""The window and faults: a file that disappears while open is reported, the window stays
 usable, and nothing crashes."""
 
 import shutil

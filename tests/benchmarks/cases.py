@@ -1,4 +1,4 @@
-"""The benchmark cases (issue 9). Each returns an Outcome with a same-run baseline and a target.
+"""The benchmark cases. Each returns an Outcome with a same-run baseline and a target.
 
 Synthetic data is made on the fly in the run's work folder and shared between cases.
 Full sizes (``--full``, see ``_sizes``): 20,000 atoms x 2,200 frames of positions + velocities in
@@ -539,7 +539,7 @@ _EDR_TERMS = ("LJ (SR)", "Coulomb (SR)", "Coul. recip.", "Potential", "Kinetic E
 
 
 def make_edr(path: Path, n_frames: int, *, nsum_from: int = 1) -> Path:
-    """A single-precision .edr laid out as ENGINES.md describes (what GROMACS 2022 writes): frame 0 without
+    """A single-precision .edr laid out as GROMACS 2022 writes it: frame 0 without
     accumulators, the rest with two per term (nsum > 0), written with numpy structured big-endian records."""
     if path.exists():
         return path
@@ -578,7 +578,7 @@ def make_edr(path: Path, n_frames: int, *, nsum_from: int = 1) -> Path:
 
 
 def make_lammps_log(path: Path, n_rows: int) -> Path:
-    """A log.lammps of one NVE run in real units with n_rows thermo rows, in the 2021 layout (ENGINES.md),
+    """A log.lammps of one NVE run in real units with n_rows thermo rows, in the 2021 layout,
     with a SHAKE-free block as LAMMPS prints it ('%10d' step, '%-14.8g'-style values)."""
     if path.exists():
         return path

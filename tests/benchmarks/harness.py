@@ -2,7 +2,7 @@
 
 Each case runs in its own subprocess (so its peak memory is its own), measures a baseline and the
 phasewake operation in the same process, and reports the ratio against the case's target. Absolute
-times vary up to 2x on this shared machine; same-run ratios are stable to ~15% (PERFORMANCE.md).
+times vary up to 2x on this shared machine; same-run ratios are stable to ~15%.
 
 ``python -m tests.benchmarks [--full] [--only NAME] [--output summary.json]``
 """

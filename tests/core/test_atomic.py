@@ -1,4 +1,4 @@
-"""Atomic writes: a writer killed half-way leaves the previous file intact (issue 10)."""
+"""Atomic writes: a writer killed half-way leaves the previous file intact."""
 
 import os
 import signal

@@ -71,7 +71,7 @@ def test_openmm_h5md_without_topology_names_the_assumption_and_the_engines_count
 
 
 def test_gromacs_leapfrog_trr_against_the_edr_kinetic_energy():
-    # GROMACS md (leap-frog): TRR frames hold v(t - dt/2) (ENGINES.md); the edr's kinetic energy is shown,
+    # GROMACS md (leap-frog): TRR frames hold v(t - dt/2); the edr's kinetic energy is shown,
     # said to be preferred because the velocities are half a step off, and it gives md.log's temperature
     d, rep = _engine("gromacs/spce_flexible_nve_2fs")
     run = open_run([d])

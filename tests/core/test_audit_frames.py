@@ -1,4 +1,4 @@
-"""The audit's frame pass as a chunk reduction (issue 9): AuditFramesConsumer in a shared one pass.
+"""The audit's frame pass as a chunk reduction: AuditFramesConsumer in a shared one pass.
 
 References: the definition K = sum_i m_i v_i^2 / 2 in float64 numpy, |sum_i m_i v_i|^2 / (2M) for the
 centre-of-mass part, and the array form of the streaming Welch spectrum fed the whole velocity array at

@@ -5,7 +5,7 @@ Every case is made here with a known answer: BAOAB Langevin dynamics (Leimkuhler
 harmonic traps, Maxwell-Boltzmann velocities drawn at set temperatures (equipartition theorem: <1/2 m
 v_x^2> = kT/2 per quadratic degree of freedom), velocities projected onto rigid water (a rigid molecule
 has 6 kinetic degrees of freedom), and leapfrog half-step velocities whose full-step kinetic energy is
-defined as GROMACS writes it (ENGINES.md: KE(n) = mean of 1/2 m v^2 of TRR frames n and n+1).
+defined as GROMACS writes it (KE(n) = mean of 1/2 m v^2 of TRR frames n and n+1).
 """
 
 import json
@@ -312,7 +312,7 @@ def test_leapfrog_every_step_is_averaged_to_full_steps_as_gromacs_does():
     run = run_from_arrays(x, t, m, velocities_nm_per_ps=v, metadata=_half_step_md(dt))
     res = drive(audit_run(run))
     k_half = 0.5 * np.einsum("a,fai,fai->f", m, v, v)
-    k_full = 0.5 * (k_half[:-1] + k_half[1:])  # ENGINES.md: edr KE(n) = mean of frames n and n+1
+    k_full = 0.5 * (k_half[:-1] + k_half[1:])  # GROMACS leap-frog: edr KE(n) = mean of frames n and n+1
     n_dof = 3 * 32 - 3
     np.testing.assert_allclose(res.temperature.temperature_K, 2 * k_full / (n_dof * KB), rtol=1e-5)
     assert "averaged to full steps" in res.temperature.kinetic_source

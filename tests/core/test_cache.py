@@ -1,4 +1,4 @@
-"""The result cache (issue 9): keyed by input identity and settings, invalidated on change, atomic."""
+"""The result cache: keyed by input identity and settings, invalidated on change, atomic."""
 
 import os
 import subprocess

@@ -1,4 +1,4 @@
-"""The result cache in use (issue 9): cached coordinates are served without reading frames, equal the
+"""The result cache in use: cached coordinates are served without reading frames, equal the
 computed ones, and are invalidated when an input file changes. Every test points the cache at tmp_path.
 
 The coordinate values themselves are checked against outside references in test_coordinates.py; here the
@@ -141,7 +141,7 @@ def test_window_coordinate_series_uses_the_result_cache(tmp_path, cache_dir):
     _equal([second], [first])
 
 
-# ---- cached_work: any analysis (issue 9, "looking at the same run again is instant") ---------------
+# ---- cached_work: any analysis ("looking at the same run again is instant") ---------------
 
 def _same(a, b, where="root"):
     """Deep equality for results: same classes, arrays equal with NaN in place and the same dtype."""

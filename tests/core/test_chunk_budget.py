@@ -1,4 +1,4 @@
-"""The chunk memory budget (issue 9: peak memory bounded by a configurable chunk size).
+"""The chunk memory budget (peak memory bounded by a configurable chunk size).
 
 Readers cut the frames per chunk so that one chunk's per-atom arrays fit in ``chunk_budget_mb``; every
 analysis must give the same numbers whatever the chunking. The references here are plain arithmetic

@@ -48,7 +48,7 @@ def test_ar1_acf_matches_phi_power_k():
 def test_ar1_statistical_inefficiency(phi, tol, method):
     x = ar1(phi, 100_000, seed=3)
     g = C.statistical_inefficiency(x, method=method)
-    # analytic g = (1 + phi) / (1 - phi); tolerances suited to N = 1e5 (issue 5)
+    # analytic g = (1 + phi) / (1 - phi); tolerances suited to N = 1e5
     assert g == pytest.approx((1 + phi) / (1 - phi), rel=tol)
 
 
@@ -201,7 +201,7 @@ def test_verdict_kinds_registered_with_sources():
     assert v.level in ("caution", "problem")  # ~2000/199 = 10 independent samples
 
 
-# --- short-memory series: direct lag sums instead of FFTs (issue 9) ---------------------------------
+# --- short-memory series: direct lag sums instead of FFTs ---------------------------------
 
 @pytest.mark.parametrize("phi", [-0.4, 0.0, 0.3, 0.6])
 @pytest.mark.parametrize("method", C.METHODS)

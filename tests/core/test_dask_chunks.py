@@ -1,5 +1,5 @@
 """The analysis kernels are chunk reductions (update per chunk, then finish), so they run unchanged
-over the blocks of a distributed array (issue 9). Here: two kernels fed from dask.array blocks along
+over the blocks of a distributed array. Here: two kernels fed from dask.array blocks along
 the time axis give exactly what they give on the whole in-memory array.
 """
 

@@ -1,4 +1,4 @@
-"""The energy audit's one-pass route (issue 9) against numpy and against the masked multi-pass route.
+"""The energy audit's one-pass route against numpy and against the masked multi-pass route.
 
 References: numpy's own mean / var / min / max / polyfit / median (outside the project), and the
 previous float64 route of the events (``events_masked`` in tests/core/energy_events_reference.py, the code

@@ -1,4 +1,4 @@
-"""One pass over the frames for many analyses (issue 9): each consumer equals its separate analysis, and
+"""One pass over the frames for many analyses: each consumer equals its separate analysis, and
 the frames are read once.
 
 The separate analyses are themselves tested against outside references (analytic results, scipy,

@@ -74,7 +74,7 @@ def test_folder_opens_positions_and_velocities_as_cp2k_wrote_them(run):
 
 @pytest.mark.parametrize("run", RUNS)
 def test_kinetic_energy_and_temperature_equal_the_ener_at_each_frame(run):
-    # ENGINES.md (CP2K): the -vel- file's velocities are full-step, 1/2 m v^2 equals Kin.[a.u.] exactly.
+    # CP2K: the -vel- file's velocities are full-step, 1/2 m v^2 equals Kin.[a.u.] exactly.
     rep = _reported(run)
     r = open_run([CP2K / run])
     ener = _ener(run)

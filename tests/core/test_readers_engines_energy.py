@@ -5,7 +5,7 @@ Two kinds of reference:
 - real engine output committed in tests/data/engines (GROMACS 2022.5, LAMMPS 29 Sep 2021), compared with
   what each engine reported in its own log (reported.json, written by make_engine_runs.py from md.log /
   log.lammps, not by our readers);
-- files laid out by hand (or by a tiny writer here) exactly as ENGINES.md describes each format (AMBER
+- files laid out by hand (or by a tiny writer here) exactly as each engine lays the format out (AMBER
   and NAMD cannot be run here; the .edr writer makes the cases the real files do not have: double
   precision, accumulators, blocks, cuts).
 """
@@ -37,7 +37,7 @@ def _reported(folder: str) -> dict:
     return json.loads((DATA / folder / "reported.json").read_text())
 
 
-# ---- a writer of the .edr layout of ENGINES.md ---------------------------------------------------------
+# ---- a writer of the .edr layout GROMACS writes ---------------------------------------------------------
 
 def _xdr_string(s: str) -> bytes:
     b = s.encode()
@@ -262,7 +262,7 @@ def test_lammps_lj_units_are_kept_and_labelled():
     assert "time step 0.005 τ" in format_description(describe(run))
 
 
-# ---- LAMMPS: laid out by hand (ENGINES.md) ----------------------------------------------------------------
+# ---- LAMMPS: laid out by hand (as LAMMPS writes it) ----------------------------------------------------------------
 
 LOG_HEAD = """LAMMPS (29 Sep 2021 - Update 2)
 {units}atom_style full
@@ -307,7 +307,7 @@ def _ke(T, dof, kB):
 
 def test_lammps_hand_log_shake_minimise_warning(tmp_path):
     # 12 atoms (4 waters), 4 frozen angles (3 constraints each, LAMMPS fix shake): dof = 36 - 3 - 12 = 21
-    kB = 0.0019872067  # kcal/mol/K, LAMMPS real units (ENGINES.md table)
+    kB = 0.0019872067  # kcal/mol/K, LAMMPS real units (LAMMPS units documentation)
     kes = {f"ke{i}": f"{_ke(T, 21, kB):.8f}" for i, T in enumerate((290, 305, 310, 300))}
     p = tmp_path / "log.lammps"
     p.write_text(LOG_HEAD.format(units="units real\n", **kes))
@@ -361,7 +361,7 @@ def test_column_role_reaches_an_engine_reader(tmp_path, capsys):
     assert {s["name"]: s["role"] for s in out["energy_terms"]}["Econserve"] == "other"
 
 
-# ---- AMBER mdout, laid out by hand (ENGINES.md: public mdout excerpts, sander source) ----------------------
+# ---- AMBER mdout, laid out by hand (public mdout excerpts, sander source) ----------------------
 
 MDOUT = """
           -------------------------------------------------------
@@ -455,7 +455,7 @@ def test_amber_mdout_records_without_averages(tmp_path):
     assert md.velocities_half_step is True
 
 
-# ---- NAMD log, laid out by hand (ENGINES.md: public logs, Controller.C) -------------------------------------
+# ---- NAMD log, laid out by hand (public logs, Controller.C) -------------------------------------
 
 NAMD = """Charm++: standalone mode (not using charmrun)
 Info: NAMD 2.14 for Linux-x86_64-multicore
@@ -492,7 +492,7 @@ def test_namd_log_maps_energy_lines_by_the_latest_etitle(tmp_path):
     assert md.engine == "NAMD 2.14" and md.constraints.startswith("bonds to hydrogen")
 
 
-# ---- CP2K .ener (ENGINES.md: checked on CP2K 2023.1) and OpenMM CSV ---------------------------------------
+# ---- CP2K .ener (checked on CP2K 2023.1) and OpenMM CSV ---------------------------------------
 
 def test_cp2k_ener_hartree_and_fs(tmp_path):
     p = tmp_path / "water-1.ener"
@@ -766,7 +766,7 @@ def test_lammps_multi_line_records_equal_the_one_line_rows_of_the_same_run():
 
 
 def test_lammps_norm_yes_in_real_units_gives_totals(tmp_path):
-    # thermo_modify norm yes: energies per atom, Ecouple not divided (ENGINES.md, checked on LAMMPS 2021);
+    # thermo_modify norm yes: energies per atom, Ecouple not divided (checked on LAMMPS 2021);
     # 10 atoms, dof = 3 x 10 - 3 = 27, KinEng per atom = 1/2 dof k_B T / N with k_B of real units
     kB = 0.0019872067
     ke = [0.5 * 27 * kB * T / 10 for T in (300.0, 310.0)]

@@ -6,9 +6,9 @@ Outside references:
   step, the engine's own numbers), its dump (x y z, ix iy iz, xu yu zu, xs ys zs, vx vy vz written by
   LAMMPS itself; an appended continuation repeating step 150 with other columns, unsorted rows) and its
   write_data file (Masses, 2 Bonds, Atoms # full).
-- LAMMPS units table (ENGINES.md, from the LAMMPS units documentation): real = g/mol, Angstrom, fs,
+- LAMMPS units table (from the LAMMPS units documentation): real = g/mol, Angstrom, fs,
   Angstrom/fs, kcal/mol with mvv2e = 48.88821291^2; metal = g/mol, Angstrom, ps, Angstrom/ps.
-- Small dumps written here by hand in the layout ENGINES.md describes (marked as such).
+- Small dumps written here by hand in the layout LAMMPS writes (marked as such).
 """
 
 from __future__ import annotations
@@ -61,7 +61,7 @@ def _real_run(**kw):
 
 def test_real_dump_kinetic_energy_equals_lammps_thermo():
     # Reference: LAMMPS's thermo KinEng at each dumped step (log.lammps); KE = 1/2 mvv2e sum m v^2 with
-    # full-step velocities (ENGINES.md [V:L]). kcal/mol -> kJ/mol x 4.184 (NIST SP 811). The dump writes
+    # full-step velocities (v at the step of x). kcal/mol -> kJ/mol x 4.184 (NIST SP 811). The dump writes
     # 6 digits (%g), hence rtol 2e-5.
     run = _real_run()
     thermo = _thermo_kineng()
@@ -187,7 +187,7 @@ def _hand(tmp_path: Path, steps=(0, 10), name="hand.lammpstrj") -> Path:
 @pytest.mark.parametrize(("style", "length", "velocity"), [("metal", 0.1, 0.1), ("real", 0.1, 100.0),
                                                            ("lj", 1.0, 1.0)])
 def test_units_by_style(tmp_path, style, length, velocity):
-    # Hand-written dump in the layout of ENGINES.md; factors from the LAMMPS units table (ENGINES.md):
+    # Hand-written dump in the layout LAMMPS writes; factors from the LAMMPS units documentation:
     # metal Angstrom -> 0.1 nm, Angstrom/ps -> 0.1 nm/ps; real Angstrom/fs -> 100 nm/ps; lj unchanged.
     run = open_run([_hand(tmp_path)], units_style=style)
     pos, vel, box, t = _all(run)
@@ -202,7 +202,7 @@ def test_units_by_style(tmp_path, style, length, velocity):
 
 
 def test_units_and_time_items_of_the_dump(tmp_path):
-    # dump_modify units yes / time yes write ITEM: UNITS and ITEM: TIME before ITEM: TIMESTEP (ENGINES.md).
+    # dump_modify units yes / time yes write ITEM: UNITS and ITEM: TIME before ITEM: TIMESTEP (LAMMPS dump_modify).
     p = tmp_path / "timed.lammpstrj"
     p.write_text("".join(f"ITEM: UNITS\nmetal\nITEM: TIME\n{0.001 * s}\n" + HAND.format(step=s)
                          for s in (0, 10, 20)))
@@ -268,7 +268,7 @@ def test_dump_without_id_is_one_line(tmp_path, capsys):
 
 @pytest.mark.parametrize("cut", ["inside the last frame", "inside the last row", "inside the header"])
 def test_truncated_dump_is_an_error_naming_the_frame(tmp_path, capsys, cut):
-    # A file cut short (issue: a lammpstrj cut inside its last frame is detected, as DCD/XTC/TRR are).
+    # A file cut short (a lammpstrj cut inside its last frame is detected, as DCD/XTC/TRR are).
     data = DUMP.read_bytes()
     last = data.rindex(b"ITEM: TIMESTEP")
     if cut == "inside the last frame":
@@ -334,7 +334,7 @@ def _engine_run(name: str, dump: str = "dump.lammpstrj"):
 @pytest.mark.parametrize("name", ["argon_real_nve", "argon_metal_nve", "argon_real_nvt"])
 def test_engine_runs_temperature_at_the_dump_steps_equals_lammps(name):
     # Reference: LAMMPS's Temp at the dump steps (reported.json, temperature_mean_at_dump_steps) with its
-    # dof 765 = 3N - 3; T = sum m v^2 / (dof R) from the dump's velocities. Within 0.5 K (issue), and
+    # dof 765 = 3N - 3; T = sum m v^2 / (dof R) from the dump's velocities. Within 0.5 K, and
     # in fact to the dump's 6 digits.
     run, rep = _engine_run(name)
     assert run.n_atoms == rep["atoms"] and run.n_frames == rep["frames"]["dump.lammpstrj"]

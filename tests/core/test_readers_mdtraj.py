@@ -190,7 +190,7 @@ def test_trr_velocities(tmp_path, files, traj):
 
 
 def test_trr_with_frames_lacking_velocities_is_not_trusted(tmp_path, files, traj):
-    # FORMATS.md trap: mdtraj checks velocities on frame 0 only; frames without them would be garbage.
+    # A trap: mdtraj checks velocities on frame 0 only; frames without them would be garbage.
     vel = np.ones(traj.xyz.shape, np.float32)
     mask = np.ones(N_FRAMES, bool)
     mask[7] = False

@@ -3,7 +3,7 @@
 Outside references: the whole trajectory the parts were cut from (written with mdtraj's XTC writer and
 read back with mdtraj.load), and the real LAMMPS dump of tests/data/lammps_small split into two files.
 The joining rule (an overlap keeps the later part's frames; GROMACS -noappend repeats the checkpoint
-frame) is ENGINES.md's ("Restarts", "Duplicate steps").
+frame) is what the engines do on a restart (the restarted part's frames replace the repeated ones).
 """
 
 from __future__ import annotations
@@ -164,7 +164,7 @@ def test_gromacs_noappend_parts_give_the_whole_run(fmt):
 
 
 def test_xtc_positions_are_marked_lossy_and_the_estimate_says_so():
-    # ENGINES.md (XTC): positions kept to 0.001 nm (precision 1000 in the frame header of GROMACS's
+    # XTC: positions kept to 0.001 nm (precision 1000 in the frame header of GROMACS's
     # md.xtc); constraint inference must not run on them (the audit reads positions_lossy).
     d = GMX / "spce_rigid_nve_whole"
     xtc = open_run([d / "md.xtc", d / "md.gro"])
@@ -187,7 +187,7 @@ def test_a_dump_and_an_xtc_are_not_parts_of_one_run(tmp_path, whole):
 
 
 def test_parts_whose_clocks_restart_follow_their_names(tmp_path, whole):
-    # OpenMM reporters start each new file's time at the report interval (ENGINES.md, OpenMM pitfall 5):
+    # OpenMM reporters start each new file's time at the report interval (seen in OpenMM 8 output):
     # two parts both starting at t = 0.5 ps are joined by name, the second continuing the first's clock.
     xyz, pdb, _ = whole
     a = tmp_path / "run1.xtc"
@@ -219,7 +219,7 @@ def test_audit_infers_no_constraints_from_xtc_positions():
 
 
 def _amber_nc(path: Path, xyz_nm: np.ndarray, vel_internal: np.ndarray, time_ps: np.ndarray) -> Path:
-    """An AMBER NetCDF trajectory laid out per the AMBER NetCDF convention (ENGINES.md; AMBER cannot be
+    """An AMBER NetCDF trajectory laid out per the AMBER NetCDF convention (AMBER cannot be
     installed here), written with scipy's NetCDF-3 writer: coordinates in Angstrom, velocities in AMBER's
     internal unit with scale_factor 20.455, time in ps."""
     from scipy.io import netcdf_file
@@ -248,7 +248,7 @@ def _amber_nc(path: Path, xyz_nm: np.ndarray, vel_internal: np.ndarray, time_ps:
 
 
 def test_amber_netcdf_parts_prod1_prod2_join_with_velocities(tmp_path, whole):
-    # AMBER restarts continue TIME(PS) from the restart file and repeat no frame (ENGINES.md, AMBER):
+    # AMBER restarts continue TIME(PS) from the restart file and repeat no frame (AMBER documentation):
     # prod1.nc (frames 0-24) and prod2.nc (25-39) give the whole run; velocities x 20.455 x 0.1 nm/ps.
     xyz, pdb, _ = whole
     vel = np.random.default_rng(9).normal(size=xyz.shape).astype(np.float32)

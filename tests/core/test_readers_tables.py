@@ -117,7 +117,7 @@ def test_table_errors_name_file_and_line(tmp_path, text, match):
 )
 def test_restarts_keep_the_later_segment_and_say_so(tmp_path, text, kept_t, kept_u, word):
     # was: TimeAxisError (the table refused at the first backward step). A repeated or backward time is a
-    # restart glued in: engines keep the later segment (ENGINES.md pitfall 4: drop repeats), so do we,
+    # restart glued in: engines keep the later segment (the repeated rows are dropped), so do we,
     # and the join is reported with its times and the rows dropped.
     p = _write(tmp_path / "t.csv", text)
     table, warnings = read_table(p)

@@ -1,9 +1,8 @@
 """Velocities in a file of their own: NAMD's velocity DCD (core/readers/velocity_file.py).
 
-NAMD cannot be installed here, so the files are laid out as ENGINES.md describes (marked as such): a
+NAMD cannot be installed here, so the files are laid out as NAMD writes them (marked as such): a
 positions DCD and a velocity DCD in the CHARMM layout, written with mdtraj's DCD writer, the velocities
-in NAMD's internal unit (Angstrom per 48.88821 fs; x 20.45482706 = Angstrom/ps, NAMD Output.C as quoted
-in ENGINES.md).
+in NAMD's internal unit (Angstrom per 48.88821 fs; x 20.45482706 = Angstrom/ps, NAMD's Output.C).
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""An analysis that would need more memory than is available says so before it starts (issue 10)."""
+"""An analysis that would need more memory than is available says so before it starts."""
 
 import numpy as np
 import pytest

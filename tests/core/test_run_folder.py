@@ -1,6 +1,6 @@
 """A run folder: `phasewake describe FOLDER` finds the engine's files (core/readers/folder.py).
 
-Folders are laid out as ENGINES.md lists each engine's files (GROMACS `mdrun -deffnm md` with
+Folders are laid out as each engine writes its files (GROMACS `mdrun -deffnm md` with
 -noappend parts, a LAMMPS run with its dump, data file and log); file contents are written by mdtraj or
 come from the real LAMMPS run in tests/data/lammps_small.
 """
@@ -159,7 +159,7 @@ def test_real_lammps_folder_with_two_dumps_is_ambiguous_and_one_dump_opens(tmp_p
 
 
 def test_cp2k_folder_pairs_the_positions_with_the_velocity_xyz(tmp_path):
-    # CP2K writes PROJECT-pos-1.xyz and PROJECT-vel-1.xyz of one run (ENGINES.md, CP2K): not two runs,
+    # CP2K writes PROJECT-pos-1.xyz and PROJECT-vel-1.xyz of one run: not two runs,
     # the velocities of the positions
     src = ENGINES / "cp2k" / "argon_fist_nve"
     found = find_run_files(src)

@@ -132,7 +132,7 @@ def _random_rotations(rng, n):
 
 
 def test_rigid_water_gives_three_constraints_each_flexible_chain_none():
-    # Rigid water: 3 constraints per molecule, N_dof = 3N - 3 n_waters - 3 (FORMATS.md "A real MD engine").
+    # Rigid water: 3 constraints per molecule, N_dof = 3N - 3 n_waters - 3.
     rng = np.random.default_rng(5)
     n_w, n_f, n_frames = 20, 2, 60
     top = _water_topology(n_w, n_f)

@@ -104,7 +104,7 @@ def test_green_kubo_diffusion_of_langevin_particle(ou):
     r = V.vacf_from_velocities(ou["v"].astype(np.float32), ou["dt"], max_lag=400)
     for limit in (5 / ou["gamma"], 10 / ou["gamma"]):
         gk = V.green_kubo(r, limit_ps=limit)
-        assert gk.diffusion_nm2_per_ps == pytest.approx(d_exact, rel=0.02)  # issue 5: within 2%
+        assert gk.diffusion_nm2_per_ps == pytest.approx(d_exact, rel=0.02)  # within 2%
         assert gk.limit_rule == "user"
     auto = V.green_kubo(r)
     assert auto.diffusion_nm2_per_ps == pytest.approx(d_exact, rel=0.02)
@@ -224,4 +224,4 @@ def test_openmm_langevin_free_particles_diffusion():
     # OU velocity autocorrelation 3 (kT/m) exp(-gamma t) and Einstein D = kT/(m gamma)
     np.testing.assert_allclose(r.vacf[0][:17], 3 * kT / mass * np.exp(-gamma * t), rtol=0.05, atol=0.01)
     gk = V.green_kubo(r)
-    assert gk.diffusion_nm2_per_ps == pytest.approx(kT / (mass * gamma), rel=0.02)  # issue 5: within 2%
+    assert gk.diffusion_nm2_per_ps == pytest.approx(kT / (mass * gamma), rel=0.02)  # within 2%

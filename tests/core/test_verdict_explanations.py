@@ -1,4 +1,4 @@
-"""Every verdict kind explains itself (issue 11): what it is, how it is computed (method and paper),
+"""Every verdict kind explains itself: what it is, how it is computed (method and paper),
 the threshold and its source, and what to do when it is off. The same text is what the window's
 tooltips, the report's captions and `phasewake audit --explain` show.
 """

@@ -1,4 +1,4 @@
-"""The catalogue of bad inputs (issue 10): each gives one clear line that names the file and the
+"""The catalogue of bad inputs: each gives one clear line that names the file and the
 problem, exit code 2, no traceback, and the input file is unchanged (sha256 before and after).
 
 Every case is run through the real command line (`phasewake describe` and, where it applies,

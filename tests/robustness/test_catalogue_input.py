@@ -1,4 +1,4 @@
-"""Impossible values, claimed sizes, bad options and unwritable outputs (issue 15, points 7-11).
+"""Impossible values, claimed sizes, bad options and unwritable outputs.
 
 Each case runs through the real command line in-process (``main(argv)``), as a user meets it: exit code
 2, a short message naming the file or the option and the problem, no traceback, and every input file
@@ -127,7 +127,7 @@ def test_impossible_box_in_a_frame_of_a_time_dependent_box_names_the_frame(tmp_p
 
 
 def test_negative_box_edge_in_a_lammps_dump_is_refused(tmp_path, capsys):
-    # BOX BOUNDS lo hi per axis (LAMMPS dump layout, ENGINES.md); hi below lo is an edge < 0
+    # BOX BOUNDS lo hi per axis (LAMMPS dump layout); hi below lo is an edge < 0
     frame = ("ITEM: TIMESTEP\n{step}\nITEM: NUMBER OF ATOMS\n2\nITEM: BOX BOUNDS pp pp pp\n0 50\n0 -50\n0 50\n"
              "ITEM: ATOMS id type x y z\n1 1 1 1 1\n2 1 2 2 {z}\n")
     p = tmp_path / "negbox.lammpstrj"
@@ -184,7 +184,7 @@ def test_nan_or_inf_in_the_time_column_is_refused(tmp_path, capsys, bad):
 
 
 def test_nan_time_in_an_engine_energy_file_is_refused_not_dropped(tmp_path, capsys):
-    # a CP2K .ener laid out per ENGINES.md (step, time in fs, kinetic, temperature, potential, conserved,
+    # a CP2K .ener laid out as CP2K writes it (step, time in fs, kinetic, temperature, potential, conserved,
     # used time); the NaN was taken for a restart's repeat and it and every later row dropped silently
     head = "#     Step Nr.          Time[fs]        Kin.[a.u.]          Temp[K]            Pot.[a.u.]" \
            "        Cons Qty[a.u.]        UsedTime[s]\n"

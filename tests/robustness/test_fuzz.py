@@ -1,4 +1,4 @@
-"""Property-based fuzzing (hypothesis) of every parser we wrote (issue 10): the unit parser, the
+"""Property-based fuzzing (hypothesis) of every parser we wrote: the unit parser, the
 energy-table reader, the coordinate specification, the H5MD reader on randomly perturbed layouts and
 the window's session file. Every outcome is a result or one of our typed errors, never anything else.
 

@@ -16,7 +16,7 @@ Lennard-Jones argon lattice for LAMMPS and CP2K, TIP3P water built from code for
 fixed; every run takes seconds on one CPU thread.
 
 The AMBER mdout and NAMD log made by ``layouts`` are NOT engine output (neither engine can be installed
-here): they are laid out as /work/shared/ENGINES.md (copied into the project's knowledge) describes,
+here): they are laid out as each engine's documentation and public examples show,
 with numbers taken from the OpenMM water run, and say so in their README and JSON.
 """
 
@@ -1073,7 +1073,7 @@ def make_cp2k(root: Path) -> None:
 
 # ----------------------------------------------------------------------------------------------------
 # AMBER mdout and NAMD log: NOT engine output. Neither engine can be installed here, so these files are
-# laid out as ENGINES.md describes an AMBER (sander) mdout and a NAMD log, with the numbers of the OpenMM
+# laid out as the engines document an AMBER (sander) mdout and a NAMD log, with the numbers of the OpenMM
 # Langevin water run (kcal/mol = kJ/mol / 4.184). The split of the potential into VDWAALS/VDW and
 # EELEC/ELECT is OpenMM's: the Lennard-Jones part is the energy of the same frame with all charges off.
 
