@@ -21,13 +21,15 @@ from phasewake.core.analyses import (
     coordinates,
     crossings,
     landscape,
-    velocity,
 )
 from phasewake.core.analyses.audit import AuditRequest
+from phasewake.core.analyses.coordinates import CoordinatesRequest
 from phasewake.core.analyses.correlation.request import CorrelationRequest
 from phasewake.core.analyses.landscape import LandscapeRequest
+from phasewake.core.analyses.projection import PCARequest
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.sampling import SamplingRequest
+from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
@@ -158,8 +160,8 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
     if hit is not None and hit[0] is run:
         return hit[1]
     # through the on-disk result cache: reopening a run reads no frames
-    work = cached.cached_coordinates(run, [spec], start=start, stop=stop, cache=window_cache())
-    series = yield from _labelled(work, f"coordinate {spec}")
+    request = CoordinatesRequest([spec], start=start, stop=None if stop >= run.n_frames else stop)
+    series = yield from _labelled(requested(run, request), f"coordinate {spec}")
     with _CACHE_LOCK:
         _CACHE[key] = (run, series[0])
         while len(_CACHE) > _CACHE_SIZE:
@@ -175,15 +177,6 @@ def window_cache() -> Any:
     from phasewake.core.store.cache import ResultCache
 
     return ResultCache() if USE_CACHE else ResultCache(enabled=False)
-
-
-def through_cache(run: Run, analysis: str, settings: dict[str, Any],
-                  work: Generator[Progress, None, Any]) -> Generator[Progress, None, Any]:
-    """``work`` through the on-disk result cache (``phasewake.core.store.cached.cached_work``): a panel shown again,
-    or the same file reopened, reads no frames. ``settings`` must hold everything that changes the result.
-    Analysis \u25b8 Use the result cache or ``PHASEWAKE_NO_CACHE=1`` turns it off; runs without files are
-    never cached."""
-    return (yield from cached.cached_work(run, analysis, settings, work, cache=window_cache()))
 
 
 def requested(run: Run, request: AnalysisRequest, work: Work[Any] | None = None) -> Work[Any]:
@@ -295,28 +288,27 @@ def _pca_settings(run: Run) -> dict[str, Any]:
 
 
 def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
-    """One read of the frames for the audit, the coordinate and the principal components, into the result
-    cache (``cached.cached_pass``), before the panels start: their jobs then find these results there
-    instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
+    """One read of the frames for the audit, the coordinate, the principal components and the velocity
+    autocorrelation and spectrum, into the result cache (``cached.requested_pass``), before the panels start:
+    their jobs then find these results there instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
     analysed (the keys are those of the panels' own requests); otherwise nothing is done here."""
     run = ctx.run
     cache = window_cache()
     if (not cache.enabled or not run.paths or run.frames is None
             or ctx.start > 0 or ctx.stop < run.n_frames):
         return PanelResult()
-    items: dict[str, Any] = {}
+    requests: dict[str, AnalysisRequest] = {"audit": AuditRequest()}
+    if ctx.coordinate:
+        requests["coordinate"] = CoordinatesRequest([ctx.coordinate])
+    if run.n_atoms >= 2:
+        requests["pca"] = PCARequest(**_pca_settings(run))
+    if run.frames.has_velocities and run.n_frames > 16:  # the Correlation panel's
+        requests.update(vacf=VACFRequest(), spectrum=SpectrumRequest())
     try:
-        items["audit"] = cached.audit_item(run)
-        if ctx.coordinate:
-            items["coordinate"] = cached.coordinates_item(run, [ctx.coordinate])
-        if run.n_atoms >= 2:
-            items["pca"] = cached.pca_item(run, **_pca_settings(run))
+        yield from _labelled(cached.requested_pass(run, requests, cache=cache, load_hits=False),
+                             "one read of the frames")
     except PhasewakeError:
-        return PanelResult()  # a bad coordinate: the panels say so themselves
-    try:
-        yield from _labelled(cached.cached_pass(run, items, cache=cache, load_hits=False), "one read of the frames")
-    except PhasewakeError:
-        pass  # each panel runs its own analysis and reports what went wrong
+        pass  # a bad coordinate or a damaged frame: each panel runs its own request and says what went wrong
     return PanelResult()
 
 
@@ -331,8 +323,7 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                                    "rotation and translation fitted away only their distance varies, so PCA would "
                                    "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
-    work = cached.cached_pca(sub, cache=window_cache(), **settings)  # shared_frames_job's key
-    pca = yield from _labelled(work, "principal components")
+    pca = yield from _labelled(requested(sub, PCARequest(**settings)), "principal components")  # shared_frames_job's key
     traces: dict[str, Trace] = {}
     coords_text = plots.atoms_text(group)
     solute = coordinates.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
@@ -401,10 +392,9 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
             figs.append(plots.blocking_figure(report.blocking, name=report.name))
     if run.frames is not None and run.frames.has_velocities and run.n_frames > 16:
         yield Progress(len(requests), len(requests) + 2, "velocity autocorrelation")
-        v = yield from _labelled(through_cache(run, "vacf", {}, velocity.vacf(run)), "VACF")
+        v = yield from _labelled(requested(run, VACFRequest()), "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _labelled(through_cache(run, "spectrum", {}, velocity.vibrational_spectrum(run)),
-                                 "vibrational spectrum")
+        d = yield from _labelled(requested(run, SpectrumRequest()), "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
