@@ -122,28 +122,57 @@ def _backbone_dihedrals(topology: Any, solute: set[int]) -> list[tuple[str, tupl
     return out
 
 
+class _PositionSample:
+    """Positions (float64) of some atoms, and boxes, of every frame fed: a frame consumer
+    (``core/model/framepass.py``) for the sample :func:`choose_coordinate` looks at."""
+
+    needs_positions = True
+    needs_velocities = False
+
+    def __init__(self, atoms: np.ndarray) -> None:
+        self.want = np.asarray(atoms, dtype=np.int64)
+        self.atoms: np.ndarray | None = np.unique(self.want)
+        self._local = self.want
+        self.pos: list[np.ndarray] = []
+        self.box: list[np.ndarray] = []
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        from phasewake.core.model.framepass import local_columns
+
+        self._local = local_columns(columns, self.want)
+
+    def update(self, chunk: Any) -> None:
+        self.pos.append(np.asarray(chunk.positions_nm, dtype=np.float64)[:, self._local])
+        if chunk.box_nm is not None:
+            self.box.append(np.asarray(chunk.box_nm, dtype=np.float64))
+
+    def merge(self, later: _PositionSample) -> None:
+        self.pos += later.pos
+        self.box += later.box
+
+    def finish(self) -> tuple[np.ndarray, np.ndarray | None] | None:
+        if not self.pos:
+            return None
+        p = np.concatenate(self.pos)
+        b = np.concatenate(self.box) if self.box and sum(x.shape[0] for x in self.box) == p.shape[0] else None
+        return p, b
+
+
 def _sample_positions(run: Run, atoms: np.ndarray, max_frames: int) -> tuple[np.ndarray, np.ndarray | None] | None:
     """Positions (F, len(atoms), 3) of at most ``max_frames`` frames spread over the run, and the box."""
     from phasewake.core.errors import PhasewakeError
+    from phasewake.core.model.framepass import feed
 
-    frames = run.frames
-    if frames is None or run.n_frames < 1:
+    if run.frames is None or run.n_frames < 1:
         return None
     stride = max(1, -(-run.n_frames // max_frames))
-    pos: list[np.ndarray] = []
-    box: list[np.ndarray] = []
+    sample = _PositionSample(atoms)
     try:
-        for ch in frames.iter_chunks(chunk_frames=256, stride=stride, atom_indices=atoms, velocities=False):
-            pos.append(np.asarray(ch.positions_nm, dtype=np.float64))
-            if ch.box_nm is not None:
-                box.append(np.asarray(ch.box_nm, dtype=np.float64))
+        for _ in feed(run, {"sample": sample}, stride=stride):
+            pass
     except PhasewakeError:
         return None
-    if not pos:
-        return None
-    p = np.concatenate(pos)
-    b = np.concatenate(box) if box and sum(x.shape[0] for x in box) == p.shape[0] else None
-    return p, b
+    return sample.finish()
 
 
 def _dihedral_values(p: np.ndarray, quad: tuple[int, int, int, int]) -> np.ndarray:
