@@ -1,16 +1,17 @@
 """The analyses behind a report, each a named step that returns its result or the reason it is missing.
 
 The report builds the same requests as the command line and the window (:mod:`phasewake.core.analyses.
-request`) and runs them through the result cache: :func:`collect_analyses` runs the audit, the coordinate
-and the principal components in one read of the frames (``cached.cached_pass``), then, on the
-coordinate series already read, the crossings (``CrossingsRequest``), the time correlations
-(``CorrelationRequest``, also of the potential energy) and the sampling checks (``SamplingRequest``), each
-stored under its request's own key, so ``phasewake crossings`` or ``phasewake memory`` of the same run
-find them and the other way round. The phase-space density and the free-energy profile (whole run and
-each half on the same bins; the temperature by the one rule, ``crossings.run_temperature``, and the
-Jacobian ``"none"``, as ``LandscapeRequest`` decides) are computed from the same series. The report's
-pages are drawn from the :class:`ReportAnalyses` it returns (:mod:`phasewake.core.figures.report_sections`);
-nothing is computed while drawing.
+request`) and runs them through the result cache: :func:`collect_analyses` runs the audit, the
+coordinate and the principal components (``AuditRequest``, ``CoordinatesRequest``, ``PCARequest``) in one
+read of the frames (``cached.requested_pass``), then, on the coordinate series already read, the
+crossings (``CrossingsRequest``), the time correlations (``CorrelationRequest``, also of the potential
+energy) and the sampling checks (``SamplingRequest``), each stored under its request's own key, so
+``phasewake crossings`` or ``phasewake memory`` of the same run find them and the other way round. The
+phase-space density and the free-energy profile (whole run and each half on the same bins; the
+temperature by the one rule, ``crossings.run_temperature``, and the Jacobian ``"none"``, as
+``LandscapeRequest`` decides) are computed from the same series. The report's pages are drawn from the
+:class:`ReportAnalyses` it returns (:mod:`phasewake.core.figures.report_sections`); nothing is computed
+while drawing.
 
 An analysis that cannot run on the data (no frames, no velocities, too short, no temperature) leaves
 its result None and says why, so its page can say so instead of inventing a figure.
@@ -18,7 +19,7 @@ its result None and says why, so its page can say so instead of inventing a figu
 
 from __future__ import annotations
 
-from collections.abc import Callable, Generator, Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, TypeVar
 
@@ -26,20 +27,11 @@ import numpy as np
 
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.progress import Progress, Work
-from phasewake.core.store.cached import (
-    audit_item,
-    cached_audit,
-    cached_coordinates,
-    cached_pass,
-    cached_pca,
-    cached_work,
-    coordinates_item,
-    pca_item,
-    requested,
-)
+from phasewake.core.store.cached import cached_work, requested, requested_pass
 
 if TYPE_CHECKING:
     from phasewake.core.analyses.correlation.request import Series1D
+    from phasewake.core.analyses.projection import PCARequest
     from phasewake.core.analyses.request import AnalysisRequest
     from phasewake.core.model.run import Run
     from phasewake.core.store.cache import ResultCache
@@ -136,17 +128,14 @@ def collect_analyses(run: Run, settings: ReportSettings, *, cache: ResultCache |
                      total: float = 8.0) -> Work[ReportAnalyses]:
     """Every analysis of the report, as steps 0 to 4 of ``total`` progress steps."""
     spec, spec_reason = choose_report_coordinate(run, settings.coordinate)
-    shared = yield from relay(shared_pass(run, spec, settings, cache), 0, total, "one pass over the frames")
-    yield Progress(0, total, "auditing energies and temperature")
-    audit, audit_reason = yield from relay(audit_step(run, settings, shared, cache), 0, total, "audit")
-    yield Progress(1, total, "computing the coordinate")
-    series, series_reason = yield from relay(coordinate_step(run, spec, spec_reason, shared, cache), 1, total,
-                                             "coordinate")
+    requests, refused = frame_requests(run, spec, settings)
+    got = yield from relay(requested_pass(run, requests, cache=cache, alone=True), 0, total, "one pass over the frames")
+    audit, audit_reason = outcome(got, "audit", "the audit could not run")
+    series, series_reason = coordinate_outcome(run, spec, spec_reason, refused, got)
+    pca, pca_reason = pca_outcome(run, got)
     yield Progress(2, total, "finding barrier crossings")
     crossings, crossings_reason = yield from relay(crossings_step(run, spec, series, settings, cache), 2, total,
                                                    "crossings")
-    yield Progress(3, total, "principal components")
-    pca, pca_reason = yield from relay(pca_step(run, shared, cache), 3, total, "principal components")
     yield Progress(4, total, "correlations, sampling and the free-energy profile")
     temperature, source = report_temperature(run, settings.temperature_K)
     return ReportAnalyses(coordinate=spec, coordinate_reason=spec_reason, audit=audit, audit_reason=audit_reason,
@@ -170,10 +159,11 @@ def choose_report_coordinate(run: Run, coordinate: str | None) -> tuple[str | No
     return choice.spec, choice.reason
 
 
-def pca_settings(run: Run) -> dict[str, Any] | None:
-    """The principal-components settings of the report (solute atoms; exact route when small), or None
-    when there is nothing to decompose (no frames; two atoms: one distance)."""
-    from phasewake.core.analyses.coordinates import solute_atoms
+def pca_request(run: Run) -> PCARequest | None:
+    """The principal components of the report (solute atoms; exact route when small), or None when there is
+    nothing to decompose (no frames; two atoms: one distance)."""
+    from phasewake.core.analyses.atom_groups import solute_atoms
+    from phasewake.core.analyses.projection import PCARequest
 
     if run.frames is None:
         return None
@@ -181,61 +171,60 @@ def pca_settings(run: Run) -> dict[str, Any] | None:
     if group.size < 3:
         return None
     method = "exact" if 3 * group.size <= PCA_EXACT_MAX_COORDS else "randomized"
-    return {"atom_indices": group, "n_components": 3, "method": method}
+    return PCARequest(atom_indices=group, n_components=3, method=method)
 
 
-def shared_pass(run: Run, spec: str | None, settings: ReportSettings,
-                cache: ResultCache | None) -> Generator[Progress, None, dict[str, Any]]:
-    """The audit, the coordinate and the principal components from one read of the frames (each looked up in
-    the result cache first: ``cached.cached_pass``). Analyses that cannot share it are left to run alone."""
-    if run.frames is None:
-        return {}
-    items: dict[str, Any] = {"audit": audit_item(run, **settings.audit_settings())}
-    try:
-        if spec is not None:
-            items["coordinate"] = coordinates_item(run, [spec])
-    except PhasewakeError:
-        pass  # a coordinate that cannot be read: its section says why (coordinate_step raises it again)
-    pca = pca_settings(run)
+def frame_requests(run: Run, spec: str | None,
+                   settings: ReportSettings) -> tuple[dict[str, AnalysisRequest], str]:
+    """The requests of the one pass over the frames (the audit; the coordinate and the principal components
+    when the run has frames) and why the coordinate was refused ("" when it was not)."""
+    from phasewake.core.analyses.audit import AuditRequest
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+
+    requests: dict[str, AnalysisRequest] = {"audit": AuditRequest(**settings.audit_settings())}
+    refused = ""
+    if run.frames is not None and spec is not None:
+        coordinate = CoordinatesRequest([spec])
+        try:
+            coordinate.reference_paths(run)  # a specification the run cannot resolve raises here
+            requests["coordinate"] = coordinate
+        except PhasewakeError as exc:
+            refused = f"the coordinate could not be computed: {exc}"
+    pca = pca_request(run)
     if pca is not None:
-        items["pca"] = pca_item(run, **pca)
-    return (yield from cached_pass(run, items, cache=cache))
+        requests["pca"] = pca
+    return requests, refused
 
 
-def from_shared(shared: Mapping[str, Any], name: str, alone: Any) -> Generator[Progress, None, Any]:
-    """The shared pass's result for ``name`` (raising the error that stopped it), else ``alone()`` run alone."""
-    value = shared.get(name)
+def outcome(got: Mapping[str, Any], name: str, failed: str) -> tuple[Any, str]:
+    """The result of request ``name`` of the pass, or None and why (``failed``: what the error follows)."""
+    value = got.get(name)
     if isinstance(value, PhasewakeError):
-        raise value
-    if value is not None:
-        return value
-    return (yield from alone())
+        return None, f"{failed}: {value}"
+    return value, ""
 
 
-def audit_step(run: Run, settings: ReportSettings, shared: Mapping[str, Any],
-               cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
-    """The audit of the run (energies, temperature, time step), or the reason it could not run."""
-    try:
-        audit = yield from from_shared(shared, "audit", lambda: cached_audit(
-            run, cache=cache, **settings.audit_settings()))
-    except PhasewakeError as exc:
-        return None, f"the audit could not run: {exc}"
-    return audit, ""
-
-
-def coordinate_step(run: Run, spec: str | None, spec_reason: str, shared: Mapping[str, Any],
-                    cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
+def coordinate_outcome(run: Run, spec: str | None, spec_reason: str, refused: str,
+                       got: Mapping[str, Any]) -> tuple[Any, str]:
     """The coordinate series (with its momentum when the run has velocities), or the reason there is none."""
     if run.frames is None:
         return None, "the run has no frames (energy table only)"
     if spec is None:
         return None, ("no coordinate was given and " + (spec_reason or "none could be suggested")
                       + ("" if "--coordinate" in spec_reason else " (use --coordinate)"))
-    try:
-        out = yield from from_shared(shared, "coordinate", lambda: cached_coordinates(run, [spec], cache=cache))
-    except PhasewakeError as exc:
-        return None, f"the coordinate could not be computed: {exc}"
-    return out[0], ""
+    if refused:
+        return None, refused
+    series, why = outcome(got, "coordinate", "the coordinate could not be computed")
+    return (None, why) if series is None else (series[0], "")
+
+
+def pca_outcome(run: Run, got: Mapping[str, Any]) -> tuple[Any, str]:
+    """The principal components of the solute atoms, or the reason there are none."""
+    if run.frames is None:
+        return None, "the run has no frames"
+    if "pca" not in got:
+        return None, "principal components left out: the solute has fewer than 3 atoms"
+    return outcome(got, "pca", "the principal components could not be computed")
 
 
 def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSettings,
@@ -254,21 +243,6 @@ def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSett
         result = yield from on_series(run, request, request.analyse([run], [series]), cache)
     except PhasewakeError as exc:
         return None, f"crossings could not be analysed: {exc}"
-    return result, ""
-
-
-def pca_step(run: Run, shared: Mapping[str, Any],
-             cache: ResultCache | None) -> Generator[Progress, None, tuple[Any, str]]:
-    """The principal components of the solute atoms, or the reason there are none."""
-    if run.frames is None:
-        return None, "the run has no frames"
-    pca = pca_settings(run)
-    if pca is None:
-        return None, "principal components left out: the solute has fewer than 3 atoms"
-    try:
-        result = yield from from_shared(shared, "pca", lambda: cached_pca(run, cache=cache, **pca))
-    except PhasewakeError as exc:
-        return None, f"the principal components could not be computed: {exc}"
     return result, ""
 
 
