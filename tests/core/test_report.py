@@ -248,3 +248,45 @@ def test_report_reads_the_frames_once(sample_report):
     res = None if sample_report.code else sample_report.pdf  # the command's exit 0, or None
     assert h5md_reads["n"] == 1
     assert (tmp_path / "r.pdf").stat().st_size > 0 and res is not None
+
+
+def test_report_numbers_are_those_of_the_requests_the_command_line_and_window_build():
+    """The report's free-energy profile, time correlation, sampling checks and crossings of the sample's
+    coordinate equal those of LandscapeRequest, CorrelationRequest, SamplingRequest and CrossingsRequest run on
+    their own through cached.requested (the road of `phasewake memory`, `phasewake crossings` and the window)."""
+    from pathlib import Path
+
+    from phasewake.core.analyses.correlation.request import CorrelationRequest
+    from phasewake.core.analyses.crossings import CrossingsRequest
+    from phasewake.core.analyses.landscape import LandscapeRequest
+    from phasewake.core.analyses.sampling import SamplingRequest
+    from phasewake.core.figures.report_analyses import ReportSettings, collect_analyses
+    from phasewake.core.readers import open_run
+    from phasewake.core.store.cache import ResultCache
+    from phasewake.core.store.cached import requested
+
+    sample = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_langevin.h5md"
+    off = ResultCache(enabled=False)
+    got = drive(collect_analyses(open_run([sample]), ReportSettings(), cache=off))
+    spec = got.coordinate
+    assert spec == "distance(0, 1)"
+
+    def alone(request):
+        return drive(requested(open_run([sample]), request, cache=off))
+
+    land = alone(LandscapeRequest(coordinate=spec))
+    profile = got.of_series.profile
+    assert profile.temperature_K == land.temperature_K == 120.0  # the file's thermostat target
+    np.testing.assert_array_equal(profile.free_energy_kJ_per_mol, land.free_energy_kJ_per_mol)
+    assert [b.position for b in profile.barriers] == [b.position for b in land.barriers]
+    corr = alone(CorrelationRequest(coordinate=spec))
+    mine = got.of_series.correlations[0]
+    assert mine.correlation.statistical_inefficiency == corr.correlation.statistical_inefficiency
+    assert [(v.kind, v.level, v.measured) for v in mine.verdicts] == [(v.kind, v.level, v.measured)
+                                                                     for v in corr.verdicts]
+    samp = alone(SamplingRequest(coordinate=spec))
+    assert got.of_series.sampling.rhat_segments.rhat == samp.rhat_segments.rhat
+    assert got.of_series.sampling.divergence.half_jsd_nats == samp.divergence.half_jsd_nats
+    # NaN fields compare equal as JSON text
+    assert json.dumps(got.crossings.to_dict(), sort_keys=True, default=str) == json.dumps(
+        alone(CrossingsRequest(coordinate=spec)).to_dict(), sort_keys=True, default=str)
