@@ -366,56 +366,50 @@ def _g(x: float) -> str:
     return f"{x:.4g}"
 
 
-def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], explain: bool, out: Any) -> None:
-    from phasewake.core.analyses.verdicts import EXPLANATIONS, HEURISTIC_NOTE
+def _write_series(a: dict[str, Any], w: Any, wrap: textwrap.TextWrapper) -> None:
+    r = a["correlation"]
+    u = f" {a['unit']}" if a["unit"] else ""
+    w(f"\n  {a['name']} [{a['unit'] or 'dimensionless'}] ({a['source']}): {r.n_samples} samples every "
+      f"{_g(r.dt_ps)} ps\n")
+    gm = a["g_by_method"]
+    w(f"    statistical inefficiency g = {_g(r.statistical_inefficiency)} ({r.method}, window {r.window_lags} "
+      f"lags); sokal {_g(gm['sokal'])} | geyer {_g(gm['geyer'])} | first-zero {_g(gm['first_zero'])}\n")
+    if r.estimates:
+        listing = " | ".join(f"{m} {_g(v[0])} +- {v[1]:.2g}" for m, v in r.estimates.items())
+        state = "DISAGREE" if r.estimators_disagree else "agree"
+        w(f"    estimates with their standard errors: {listing} ({state}: {r.disagreement_z:.1f} standard "
+          f"errors apart at most)\n")
+    w(f"    tau_int (Sokal, g/2) = {_g(r.tau_int_sokal_ps)} ps; effective samples N/g = "
+      f"{r.effective_sample_size:.0f}\n")
+    w(f"    mean {_g(r.mean)}{u} +- {_g(r.standard_error_of_mean)}{u} (g-corrected standard error)\n")
+    b = a["blocking"]
+    if b is not None:
+        state = "plateau" if b.plateau_found else "no clear plateau; largest usable"
+        w(f"    blocking standard error {_g(b.plateau_sem)}{u} ({state} at blocks of {b.block_size[b.plateau_level]} "
+          f"samples; naive {_g(b.naive_sem)})\n")
+    e = a["equilibration"]
+    w(f"    equilibrated from t0 = {_g(e.t0_ps)} ps ({100 * e.fraction_discarded:.1f}% of the run before it), "
+      f"{e.effective_sample_size:.0f} effective samples after\n")
+    rh = a["rhat_segments"]
+    if rh is not None:
+        w(f"    split R-hat over {rh.n_chains} segments {rh.rhat:.4f} (bulk {rh.bulk:.4f}, tail {rh.tail:.4f})\n")
+    dv = a["divergence"]
+    if dv is not None:
+        w(f"    half against half: Jensen-Shannon {dv.half_jsd_nats:.3g} nats, {dv.ratio[0, 1]:.2g}x the noise "
+          f"level {dv.half_null_nats:.3g}\n")
+    cov = a["coverage"]
+    if cov is not None:
+        half = cov.fraction[np.searchsorted(cov.time_ps, cov.time_ps[-1] / 2)]
+        w(f"    phase-space coverage (q, p) of a {cov.visits.shape[0]} x {cov.visits.shape[1]} grid: "
+          f"{100 * half:.1f}% of cells by half time, {100 * cov.fraction[-1]:.1f}% at the end\n")
+    rr = a["rhat_replicas"]
+    if rr is not None:
+        w(f"    R-hat across {rr.n_chains} replicas {rr.rhat:.4f}\n")
+    for n in (*r.notes, *a["notes"]):
+        w(wrap.fill(f"note: {n}") + "\n")
 
-    w = out.write
-    wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
-    w(f"phasewake memory: {run.name}\n")
-    for text in run.warnings:
-        w(textwrap.fill(f"note from reading the files: {text}", width=100, initial_indent="  ",
-                        subsequent_indent="    ") + "\n")
-    for a in analyses:
-        r = a["correlation"]
-        u = f" {a['unit']}" if a["unit"] else ""
-        w(f"\n  {a['name']} [{a['unit'] or 'dimensionless'}] ({a['source']}): {r.n_samples} samples every "
-          f"{_g(r.dt_ps)} ps\n")
-        gm = a["g_by_method"]
-        w(f"    statistical inefficiency g = {_g(r.statistical_inefficiency)} ({r.method}, window {r.window_lags} "
-          f"lags); sokal {_g(gm['sokal'])} | geyer {_g(gm['geyer'])} | first-zero {_g(gm['first_zero'])}\n")
-        if r.estimates:
-            listing = " | ".join(f"{m} {_g(v[0])} +- {v[1]:.2g}" for m, v in r.estimates.items())
-            state = "DISAGREE" if r.estimators_disagree else "agree"
-            w(f"    estimates with their standard errors: {listing} ({state}: {r.disagreement_z:.1f} standard "
-              f"errors apart at most)\n")
-        w(f"    tau_int (Sokal, g/2) = {_g(r.tau_int_sokal_ps)} ps; effective samples N/g = "
-          f"{r.effective_sample_size:.0f}\n")
-        w(f"    mean {_g(r.mean)}{u} +- {_g(r.standard_error_of_mean)}{u} (g-corrected standard error)\n")
-        b = a["blocking"]
-        if b is not None:
-            state = "plateau" if b.plateau_found else "no clear plateau; largest usable"
-            w(f"    blocking standard error {_g(b.plateau_sem)}{u} ({state} at blocks of {b.block_size[b.plateau_level]} "
-              f"samples; naive {_g(b.naive_sem)})\n")
-        e = a["equilibration"]
-        w(f"    equilibrated from t0 = {_g(e.t0_ps)} ps ({100 * e.fraction_discarded:.1f}% of the run before it), "
-          f"{e.effective_sample_size:.0f} effective samples after\n")
-        rh = a["rhat_segments"]
-        if rh is not None:
-            w(f"    split R-hat over {rh.n_chains} segments {rh.rhat:.4f} (bulk {rh.bulk:.4f}, tail {rh.tail:.4f})\n")
-        dv = a["divergence"]
-        if dv is not None:
-            w(f"    half against half: Jensen-Shannon {dv.half_jsd_nats:.3g} nats, {dv.ratio[0, 1]:.2g}x the noise "
-              f"level {dv.half_null_nats:.3g}\n")
-        cov = a["coverage"]
-        if cov is not None:
-            half = cov.fraction[np.searchsorted(cov.time_ps, cov.time_ps[-1] / 2)]
-            w(f"    phase-space coverage (q, p) of a {cov.visits.shape[0]} x {cov.visits.shape[1]} grid: "
-              f"{100 * half:.1f}% of cells by half time, {100 * cov.fraction[-1]:.1f}% at the end\n")
-        rr = a["rhat_replicas"]
-        if rr is not None:
-            w(f"    R-hat across {rr.n_chains} replicas {rr.rhat:.4f}\n")
-        for n in (*r.notes, *a["notes"]):
-            w(wrap.fill(f"note: {n}") + "\n")
+
+def _write_velocity(vel: dict[str, Any], w: Any, wrap: textwrap.TextWrapper) -> None:
     if "vacf" in vel:
         r = vel["vacf"]
         w(f"\n  velocity autocorrelation ({'mass-weighted, ' if r.mass_weighted else ''}{r.n_frames} frames, lag window "
@@ -483,6 +477,12 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
         t = vel["tm"]
         w(f"\n  Thirumalai-Mountain metric ({t.n_particles} atoms, {t.quantity}): late log-log slope "
           f"{t.late_slope:.2f} (ergodic: -1), D = {_g(t.d_per_ps)} 1/ps\n")
+
+
+def _write_verdicts(analyses: list[dict[str, Any]], vel: dict[str, Any], explain: bool, w: Any,
+                    wrap: textwrap.TextWrapper) -> None:
+    from phasewake.core.analyses.verdicts import EXPLANATIONS
+
     verdict_list = [v for a in analyses for v in a["verdicts"]]
     if "transport" in vel:
         verdict_list.extend(vel["transport"].verdicts)
@@ -504,6 +504,21 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
                 ex = EXPLANATIONS[v.kind]
                 for part, text in (("what", ex.what), ("method", ex.method), ("threshold", ex.threshold)):
                     w(wrap.fill(f"{part}: {text}") + "\n")
+
+
+def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], explain: bool, out: Any) -> None:
+    from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
+
+    w = out.write
+    wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
+    w(f"phasewake memory: {run.name}\n")
+    for text in run.warnings:
+        w(textwrap.fill(f"note from reading the files: {text}", width=100, initial_indent="  ",
+                        subsequent_indent="    ") + "\n")
+    for a in analyses:
+        _write_series(a, w, wrap)
+    _write_velocity(vel, w, wrap)
+    _write_verdicts(analyses, vel, explain, w, wrap)
     w("\n" + textwrap.fill(HEURISTIC_NOTE, width=100, initial_indent="  ", subsequent_indent="  ") + "\n")
 
 
