@@ -209,21 +209,22 @@ def _analyse_one(item: tuple[str, str, str], args: argparse.Namespace, run: Any,
 def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
     from phasewake.core.analyses import sampling as S
     from phasewake.core.analyses import velocity as V
+    from phasewake.core.analyses.ergodicity import ThirumalaiMountainRequest
     from phasewake.core.store.cache import ResultCache
-    from phasewake.core.store.cached import _with_defaults, cached_work
+    from phasewake.core.store.cached import _with_defaults, cached_work, requested
 
     out: dict[str, Any] = {}
     groups = _groups(args, run)
     cache = ResultCache(enabled=False) if getattr(args, "no_cache", False) else ResultCache()
 
     def through_cache(name: str, func: Any, **settings: Any) -> Any:
-        # every keyword of the analysis, with its defaults, joins the key
+        # every keyword of the analysis, with its defaults, joins the key (MSD: no request yet)
         return cached_work(run, name, _with_defaults(func, settings), func(run, **settings), cache=cache)
 
     if args.vacf:
         kw: dict[str, Any] = dict(groups=groups, mass_weighted=args.mass_weighted, max_lag_ps=args.max_lag,
                                   start=args.start, stop=args.stop)
-        vres = run_with_progress(through_cache("vacf", V.vacf, **kw), "VACF")
+        vres = run_with_progress(requested(run, V.VACFRequest(**kw), cache=cache), "VACF")
         out["vacf"] = vres
         if not args.mass_weighted:
             fit = tuple(args.fit_range) if args.fit_range else None
@@ -261,14 +262,14 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
             idx = np.unique(np.concatenate(list(groups.values())))
         kw = dict(atom_indices=idx, max_lag_ps=args.max_lag, peak_prominence=args.peak_prominence,
                   start=args.start, stop=args.stop)
-        out["spectrum"] = run_with_progress(through_cache("spectrum", V.vibrational_spectrum, **kw),
-                                            "spectrum")
+        out["spectrum"] = run_with_progress(requested(run, V.SpectrumRequest(**kw), cache=cache), "spectrum")
     if args.tm:
         idx = None
         if groups:
             idx = np.unique(np.concatenate(list(groups.values())))
-        tm = run_with_progress(through_cache("thirumalai_mountain", S.thirumalai_mountain_kinetic, atom_indices=idx,
-                                             start=args.start, stop=args.stop), "Thirumalai-Mountain")
+        tm = run_with_progress(requested(run, ThirumalaiMountainRequest(atom_indices=idx, start=args.start,
+                                                                        stop=args.stop), cache=cache),
+                               "Thirumalai-Mountain")
         out["tm"] = tm
         out["tm_verdict"] = S.judge_tm(tm)
     return out

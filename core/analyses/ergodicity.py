@@ -8,11 +8,12 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
 from phasewake.core.analyses import verdicts
+from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 
@@ -185,3 +186,33 @@ def judge_tm(result: TMResult) -> verdicts.Verdict:
         advice=verdicts.EXPLANATIONS["sampling.tm_slope"].advice,
         details={"d_per_ps": result.d_per_ps},
     )
+
+
+@dataclass(frozen=True)
+class ThirumalaiMountainRequest(AnalysisRequest):
+    """The Thirumalai-Mountain metric of per-atom kinetic energies (:func:`thirumalai_mountain_kinetic`) of
+    ``atom_indices`` (None: every atom; use equivalent atoms) over frames [start, stop)."""
+
+    name: ClassVar[str] = "thirumalai_mountain"
+    label: ClassVar[str] = "Thirumalai-Mountain metric"
+
+    atom_indices: tuple[int, ...] | None = None
+    fit_range_ps: tuple[float, float] | None = None
+    start: int = 0
+    stop: int | None = None
+    stride: int = 1
+    chunk_frames: int = field(default=256, compare=False)
+
+    def __post_init__(self) -> None:
+        if self.atom_indices is not None:
+            object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).ravel()))
+
+    def settings(self) -> dict[str, Any]:
+        out = dict(super().settings())
+        del out["chunk_frames"]
+        return out
+
+    def work(self, run: Run) -> Work[TMResult]:
+        return (yield from thirumalai_mountain_kinetic(
+            run, atom_indices=self.atom_indices, fit_range_ps=self.fit_range_ps, chunk_frames=self.chunk_frames,
+            start=self.start, stop=self.stop, stride=self.stride))

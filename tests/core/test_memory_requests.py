@@ -114,3 +114,20 @@ def test_memory_command_and_request_share_one_cache_entry(tmp_path, cache_dir, c
         rep = stop.value
     assert any("from the cache" in m for m in messages)
     assert rep.correlation.statistical_inefficiency == out["series"][0]["statistical_inefficiency_g"]
+
+
+def test_thirumalai_mountain_request_of_independent_velocities_decays_as_one_over_t():
+    """Independent Maxwell-Boltzmann velocities every frame: the spread of the atoms' time averages falls as
+    1/t (the central limit theorem), a late log-log slope of -1 (Thirumalai and Mountain 1989)."""
+    from phasewake.core.analyses.ergodicity import ThirumalaiMountainRequest, thirumalai_mountain_kinetic
+
+    rng = np.random.default_rng(2)
+    n, atoms = 4000, 40
+    v = rng.standard_normal((n, atoms, 3)).astype(np.float32)
+    run = run_from_arrays(np.zeros_like(v), np.arange(n) * 0.01, np.full(atoms, 16.0), velocities_nm_per_ps=v)
+    req = ThirumalaiMountainRequest(atom_indices=np.arange(atoms)[::-1], chunk_frames=100)
+    assert req.atom_indices == tuple(range(atoms - 1, -1, -1)) and "chunk_frames" not in req.settings()
+    tm = result_of(req.work(run))
+    assert tm.late_slope == pytest.approx(-1.0, abs=0.1)
+    same = result_of(thirumalai_mountain_kinetic(run, atom_indices=np.arange(atoms)[::-1], chunk_frames=100))
+    np.testing.assert_array_equal(tm.omega, same.omega)
