@@ -14,10 +14,9 @@ energies it defines are multiplied by ``particle_number`` as the module says.
 
 from __future__ import annotations
 
-import contextvars
 import os
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -46,22 +45,20 @@ if TYPE_CHECKING:
 
 H5MD_SUFFIXES = (".h5md", ".h5", ".hdf5", ".hdf")
 
-# Units the user stated for elements whose file gives none (dimension -> unit text), set by read_h5md.
-_ASSUMED_UNITS: contextvars.ContextVar[Mapping[str, str] | None] = contextvars.ContextVar(
-    "phasewake_h5md_assumed_units", default=None)
-_ASSUMED_USED: contextvars.ContextVar[list[str] | None] = contextvars.ContextVar(
-    "phasewake_h5md_assumed_used", default=None)
+@dataclass
+class _StatedUnits:
+    """Units the user stated (dimension -> unit text) for elements whose file gives none, and each use."""
 
+    stated: Mapping[str, str] | None
+    used: list[str] = field(default_factory=list)
 
-def _assumed(dimension: str | None, name: str) -> str | None:
-    """The unit the user stated for this dimension, or None; noted for the run's warnings."""
-    units = _ASSUMED_UNITS.get()
-    if not units or dimension is None or dimension not in units:
-        return None
-    used = _ASSUMED_USED.get()
-    if used is not None:
-        used.append(f"{name} has no unit in the file; using {units[dimension]!r} as stated")
-    return units[dimension]
+    def assumed(self, dimension: str | None, name: str) -> str | None:
+        """The unit the user stated for this dimension, or None; noted for the run's warnings."""
+        if not self.stated or dimension is None or dimension not in self.stated:
+            return None
+        self.used.append(f"{name} has no unit in the file; using {self.stated[dimension]!r} as stated")
+        return self.stated[dimension]
+
 
 # Observable name -> energy-table role (our names and common names other engines write).
 OBSERVABLE_ROLES: dict[str, str] = {
@@ -143,7 +140,7 @@ def check_claimed_rows(ds: h5py.Dataset, *, path: Path, name: str) -> None:
                                "(a damaged header, or a file that was never finished)", path=path)
 
 
-def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
+def _axis(g: h5py.Group, n: int, *, path: Path, units: _StatedUnits, name: str) -> _Axis:
     """Step and time arrays of element ``g`` with ``n`` samples (array or scalar with offset)."""
     import h5py
 
@@ -168,7 +165,7 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
     if time is not None:
         unit = g["time"].attrs.get("unit")
         if unit is None:
-            unit = _assumed("time", f"{name}/time")
+            unit = units.assumed("time", f"{name}/time")
         if unit is None:
             raise UnitError(f"{name}/time has no unit attribute (state it or add unit=\"ps\")", path=path)
         try:
@@ -187,10 +184,11 @@ def _axis(g: h5py.Group, n: int, *, path: Path, name: str) -> _Axis:
     return _Axis(step_f.astype(np.int64), time)
 
 
-def _unit_factor(ds: h5py.Dataset, *, path: Path, name: str, expect: str | None) -> tuple[float, str]:
+def _unit_factor(ds: h5py.Dataset, *, path: Path, units: _StatedUnits, name: str,
+                 expect: str | None) -> tuple[float, str]:
     unit = ds.attrs.get("unit")
     if unit is None:
-        unit = _assumed(expect, name)
+        unit = units.assumed(expect, name)
     if unit is None:
         raise UnitError(f"{name} has no unit attribute (state it: units={{{expect!r}: ...}})", path=path)
     try:
@@ -242,12 +240,12 @@ _Sampled = tuple[str, np.ndarray, "np.ndarray | None", np.ndarray, str]  # name,
 
 
 def _read_observables(f: h5py.File, path: Path, frame_steps: np.ndarray, frame_time: np.ndarray,
-                      warnings: list[str], dt_ps: float | None,
-                      other_tables: list[EnergyTable]) -> EnergyTable | None:
+                      warnings: list[str], dt_ps: float | None, other_tables: list[EnergyTable],
+                      units: _StatedUnits) -> EnergyTable | None:
     """The observables sampled like the longest one as an EnergyTable; the others into ``other_tables``."""
     if "observables" not in f:
         return None
-    series = _observable_series(f, path, warnings)
+    series = _observable_series(f, path, warnings, units)
     if not series:
         return None
 
@@ -294,7 +292,7 @@ def _series(name: str, values: np.ndarray, unit: str, path: Path) -> Series:
                   source=f"{path.name}:/observables/{name}")
 
 
-def _observable_series(f: h5py.File, path: Path, warnings: list[str]) -> list[_Sampled]:
+def _observable_series(f: h5py.File, path: Path, warnings: list[str], units: _StatedUnits) -> list[_Sampled]:
     """Every scalar time series under /observables, in internal units, with its own steps and times."""
     import h5py
 
@@ -313,7 +311,7 @@ def _observable_series(f: h5py.File, path: Path, warnings: list[str]) -> list[_S
             continue  # vector observables are not energy-table columns
         base = name.rsplit("/", 1)[-1]
         role_dim = _ROLE_DIMENSION.get(OBSERVABLE_ROLES.get(base, "other"))
-        u = _observable_unit(ds, name, role_dim, path)
+        u = _observable_unit(ds, name, role_dim, path, units)
         check_claimed_rows(ds, path=path, name=f"observables/{name}/value")
         values = np.asarray(ds[()], dtype=np.float64) * u.factor
         if thermo and base in _THERMO_PER_PARTICLE:
@@ -323,16 +321,16 @@ def _observable_series(f: h5py.File, path: Path, warnings: list[str]) -> list[_S
             else:
                 pnv = np.asarray(particle_number, dtype=np.float64)
                 values = values * (pnv if pnv.ndim == 0 else pnv[: values.size])
-        ax = _axis(obj, values.shape[0], path=path, name=f"observables/{name}")
+        ax = _axis(obj, values.shape[0], path=path, units=units, name=f"observables/{name}")
         series.append((name, ax.step, ax.time_ps, values, u.internal))
     return series
 
 
-def _observable_unit(ds: h5py.Dataset, name: str, role_dim: str | None, path: Path) -> Any:
+def _observable_unit(ds: h5py.Dataset, name: str, role_dim: str | None, path: Path, units: _StatedUnits) -> Any:
     """The parsed unit of an observable: stated, or assumed by the user; none for a dimensionless one."""
     unit = ds.attrs.get("unit")
     if unit is None:
-        unit = _assumed(role_dim, f"observables/{name}")
+        unit = units.assumed(role_dim, f"observables/{name}")
     if unit is None:
         if role_dim is not None:
             raise UnitError(f"observable {name} has no unit attribute (state it: units={{{role_dim!r}: ...}})",
@@ -358,25 +356,20 @@ def read_h5md(path: str | Path, *, group: str | None = None,
     Raises MissingDataError when no particle group has positions (or ``group`` is not there),
     UnitError for a missing/unknown unit, CorruptFileError for inconsistent shapes or a damaged layout.
     """
-    used: list[str] = []
-    tok_units = _ASSUMED_UNITS.set(assumed_units)
-    tok_used = _ASSUMED_USED.set(used)
+    units = _StatedUnits(assumed_units)
     try:
-        contents = _read_h5md(Path(path), group=group)
+        contents = _read_h5md(Path(path), group=group, units=units)
     except LAYOUT_ERRORS as exc:
         raise CorruptFileError(f"damaged or unexpected H5MD layout ({type(exc).__name__}: {exc})",
                                path=path) from exc
     except MemoryError as exc:
         raise ResourceError(f"not enough memory to read the file's headers and observables ({exc})",
                             path=path) from None
-    finally:
-        _ASSUMED_UNITS.reset(tok_units)
-        _ASSUMED_USED.reset(tok_used)
-    contents.warnings.extend(f"{Path(path).name}: {u}" for u in dict.fromkeys(used))
+    contents.warnings.extend(f"{Path(path).name}: {u}" for u in dict.fromkeys(units.used))
     return contents
 
 
-def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
+def _read_h5md(path: Path, *, group: str | None, units: _StatedUnits) -> H5MDContents:
     import h5py
 
     path = Path(path)
@@ -390,17 +383,17 @@ def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
         pg = f["particles"][gname]
         where = f"/particles/{gname}"
         n_rows, n_atoms = _position_shape(pg, where, path)
-        pos_factor, _ = _unit_factor(pg["position"]["value"], path=path, name=f"{where}/position", expect="length")
-        pax = _axis(pg["position"], n_rows, path=path, name=f"{where}/position")
+        pos_factor, _ = _unit_factor(pg["position"]["value"], path=path, units=units, name=f"{where}/position", expect="length")
+        pax = _axis(pg["position"], n_rows, path=path, units=units, name=f"{where}/position")
         md, params = _metadata(f, n_atoms, path)
         md.sources["positions"] = f"{path.name}:{where}/position"
         time = _frame_time(pax, md.timestep_ps, path, warnings)
-        vel_rows, vel_factor = _velocity_rows(pg, where, pax, n_atoms, md, path, warnings)
+        vel_rows, vel_factor = _velocity_rows(pg, where, pax, units, n_atoms, md, path, warnings)
         if "force" in pg:
             md.extra["has_forces"] = True
-        box_fixed, box_rows, box_factor = _box(pg, where, pax, md, path, warnings)
+        box_fixed, box_rows, box_factor = _box(pg, where, pax, units, md, path, warnings)
         has_box = box_fixed is not None or box_rows is not None
-        image_rows = _image_rows(pg, where, pax, n_atoms, md, path, warnings) if has_box else None
+        image_rows = _image_rows(pg, where, pax, units, n_atoms, md, path, warnings) if has_box else None
         masses = _masses(pg, where, n_atoms, md, path, warnings)
         topology = _topology(f, pg, where, params, n_atoms, md, path)
         if masses is None:
@@ -408,7 +401,7 @@ def _read_h5md(path: Path, *, group: str | None) -> H5MDContents:
             if masses is not None:
                 md.sources["masses"] = "element masses of the topology"
         other_tables: list[EnergyTable] = []
-        energies = _read_observables(f, path, pax.step, time, warnings, md.timestep_ps, other_tables)
+        energies = _read_observables(f, path, pax.step, time, warnings, md.timestep_ps, other_tables, units)
         if other_tables:
             md.extra["other_energy_tables"] = other_tables
         if energies is not None:
@@ -512,7 +505,7 @@ def _frame_time(pax: _Axis, timestep_ps: float | None, path: Path, warnings: lis
     return np.asarray(time)
 
 
-def _velocity_rows(pg: h5py.Group, where: str, pax: _Axis, n_atoms: int, md: RunMetadata, path: Path,
+def _velocity_rows(pg: h5py.Group, where: str, pax: _Axis, units: _StatedUnits, n_atoms: int, md: RunMetadata, path: Path,
                    warnings: list[str]) -> tuple[np.ndarray | None, float]:
     """Row of velocity/value for each frame (-1 where missing; None without velocities) and the unit factor."""
     if "velocity" not in pg:
@@ -521,8 +514,8 @@ def _velocity_rows(pg: h5py.Group, where: str, pax: _Axis, n_atoms: int, md: Run
     vds = vel_el["value"]
     if vds.ndim != 3 or vds.shape[1] != n_atoms:
         raise CorruptFileError(f"{where}/velocity/value has shape {vds.shape} for {n_atoms} particles", path=path)
-    vel_factor, _ = _unit_factor(vds, path=path, name=f"{where}/velocity", expect="velocity")
-    vax = _axis(vel_el, int(vds.shape[0]), path=path, name=f"{where}/velocity")
+    vel_factor, _ = _unit_factor(vds, path=path, units=units, name=f"{where}/velocity", expect="velocity")
+    vax = _axis(vel_el, int(vds.shape[0]), path=path, units=units, name=f"{where}/velocity")
     vel_rows = _align(pax.step, vax.step)
     n_with = int(np.sum(vel_rows >= 0))
     n_rows = pax.step.size
@@ -536,7 +529,7 @@ def _velocity_rows(pg: h5py.Group, where: str, pax: _Axis, n_atoms: int, md: Run
     return vel_rows, vel_factor
 
 
-def _box(pg: h5py.Group, where: str, pax: _Axis, md: RunMetadata, path: Path,
+def _box(pg: h5py.Group, where: str, pax: _Axis, units: _StatedUnits, md: RunMetadata, path: Path,
          warnings: list[str]) -> tuple[np.ndarray | None, np.ndarray | None, float]:
     """(fixed box (3, 3) nm or None, row of box/edges/value for each frame or None, unit factor)."""
     import h5py
@@ -554,12 +547,12 @@ def _box(pg: h5py.Group, where: str, pax: _Axis, md: RunMetadata, path: Path,
     md.sources["box"] = f"{path.name}:{where}/box"
     ed = bx["edges"]
     if isinstance(ed, h5py.Dataset):
-        box_factor, _ = _unit_factor(ed, path=path, name=f"{where}/box/edges", expect="length")
+        box_factor, _ = _unit_factor(ed, path=path, units=units, name=f"{where}/box/edges", expect="length")
         box_fixed = box_matrix(ed[()] * box_factor, 1)[0]
         checked = check_box(box_fixed[None], path=path)
         return (None if checked is None else box_fixed), None, box_factor
-    box_factor, _ = _unit_factor(ed["value"], path=path, name=f"{where}/box/edges", expect="length")
-    bax = _axis(ed, int(ed["value"].shape[0]), path=path, name=f"{where}/box/edges")
+    box_factor, _ = _unit_factor(ed["value"], path=path, units=units, name=f"{where}/box/edges", expect="length")
+    bax = _axis(ed, int(ed["value"].shape[0]), path=path, units=units, name=f"{where}/box/edges")
     box_rows = _align(pax.step, bax.step)
     if np.any(box_rows < 0):
         # a box sampled less often: use the latest box at or before each frame's step
@@ -571,7 +564,7 @@ def _box(pg: h5py.Group, where: str, pax: _Axis, md: RunMetadata, path: Path,
     return None, box_rows, box_factor
 
 
-def _image_rows(pg: h5py.Group, where: str, pax: _Axis, n_atoms: int, md: RunMetadata, path: Path,
+def _image_rows(pg: h5py.Group, where: str, pax: _Axis, units: _StatedUnits, n_atoms: int, md: RunMetadata, path: Path,
                 warnings: list[str]) -> np.ndarray | None:
     """Row of image/value for each frame (positions get unwrapped), or None."""
     import h5py
@@ -579,7 +572,7 @@ def _image_rows(pg: h5py.Group, where: str, pax: _Axis, n_atoms: int, md: RunMet
     if "image" not in pg or not isinstance(pg["image"], h5py.Group):
         return None
     iel = pg["image"]
-    iax = _axis(iel, int(iel["value"].shape[0]), path=path, name=f"{where}/image")
+    iax = _axis(iel, int(iel["value"].shape[0]), path=path, units=units, name=f"{where}/image")
     image_rows = _align(pax.step, iax.step)
     if np.any(image_rows < 0) or iel["value"].shape[1:] != (n_atoms, 3):
         warnings.append(f"{path.name}: periodic images do not match the positions' steps or shape; "
