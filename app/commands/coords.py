@@ -110,9 +110,10 @@ def _pca_group(text: str, run: Any) -> np.ndarray:
 
 def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, np.ndarray]], np.ndarray, dict]:
     """Compute everything; returns (name, unit, values) columns, the time axis and a summary."""
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
     from phasewake.core.errors import InputError
     from phasewake.core.store.cache import ResultCache
-    from phasewake.core.store.cached import cached_coordinates
+    from phasewake.core.store.cached import requested
 
     specs = list(args.coordinate)
     summary: dict[str, Any] = {"run": run.name, "files": [str(p) for p in run.paths], "coordinates": []}
@@ -135,9 +136,10 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
     time = None
     if specs:
         series = run_with_progress(
-            cached_coordinates(run, specs, start=args.start, stop=args.stop,
-                               mass_weighted_pca=not args.no_mass_weight, fit_pca=not args.no_fit,
-                               cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
+            requested(run, CoordinatesRequest.for_run(run, specs, start=args.start, stop=args.stop,
+                                                      mass_weighted_pca=not args.no_mass_weight,
+                                                      fit_pca=not args.no_fit),
+                      cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
             "coordinates",
         )
         time = series[0].time_ps
@@ -154,16 +156,17 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
                 "velocities_estimated": s.velocities_estimated,
             })
     if args.pca is not None:
-        from phasewake.core.store.cached import cached_pca
+        from phasewake.core.analyses.projection import PCARequest
 
         if args.pca < 1:
             raise InputError("--pca needs K >= 1")
         group = None if args.pca_group is None else _pca_group(args.pca_group, run)
         res = run_with_progress(
-            cached_pca(run, atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
-                       mass_weighted=not args.no_mass_weight, fit=not args.no_fit,
-                       method="randomized" if args.pca_fast else "exact", n_iter=max(0, args.pca_passes - 1),
-                       cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
+            requested(run, PCARequest(atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
+                                      mass_weighted=not args.no_mass_weight, fit=not args.no_fit,
+                                      method="randomized" if args.pca_fast else "exact",
+                                      n_iter=max(0, args.pca_passes - 1)),
+                      cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
             "PCA",
         )
         if time is None:

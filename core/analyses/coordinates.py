@@ -372,6 +372,14 @@ class CoordinatesRequest(AnalysisRequest):
         specs = (self.specs,) if isinstance(self.specs, str) else self.specs
         object.__setattr__(self, "specs", tuple(str(s) for s in specs))
 
+    @classmethod
+    def for_run(cls, run: Run, specs: Sequence[str], *, start: int = 0, stop: int | None = None,
+                **settings: Any) -> CoordinatesRequest:
+        """The request of frames [start, stop) of ``run``, "to the end" said one way (``stop`` None) however
+        it was given, so every front end keys the same frames alike."""
+        to_end = stop is None or int(stop) >= run.n_frames
+        return cls(specs, start=int(start), stop=None if to_end or stop is None else int(stop), **settings)
+
     def reference_paths(self, run: Run) -> tuple[str, ...]:
         """The rmsd reference structures the specifications name (a bad specification raises here; a run
         without frames has none: the work says so)."""

@@ -383,12 +383,11 @@ def requested_pass(run: Run, requests: Mapping[str, AnalysisRequest], *, cache: 
 def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
                        stop: int | None = None, chunk_frames: int | None = None, mass_weighted_pca: bool = True,
                        fit_pca: bool = True) -> Work[list[CoordinateSeries]]:
-    """``requested(run, CoordinatesRequest(specs, ...))`` (:mod:`phasewake.core.analyses.coordinates`)."""
+    """``requested(run, CoordinatesRequest.for_run(run, specs, ...))`` (:mod:`phasewake.core.analyses.coordinates`)."""
     from phasewake.core.analyses.coordinates import CoordinatesRequest
 
-    to_end = None if stop is None or int(stop) >= run.n_frames else int(stop)  # keyed alike however it was said
-    request = CoordinatesRequest(specs, start=start, stop=to_end, chunk_frames=chunk_frames,
-                                 mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
+    request = CoordinatesRequest.for_run(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
+                                         mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
     return (yield from requested(run, request, cache=cache))
 
 
