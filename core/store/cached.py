@@ -302,9 +302,9 @@ def _guarded(inner: Any) -> _Guarded:
 
 def _pass_key(run: Run, request: AnalysisRequest, cache: ResultCache) -> str | None:
     """The request's cache key (that of :func:`requested`), or None when it is not cached."""
+    paths = request.reference_paths(run)  # a bad setting (a coordinate outside the run) raises here
     if not run.paths or not cache.enabled:
         return None
-    paths = request.reference_paths(run)  # a bad setting (a coordinate outside the run) raises here
     try:
         return analysis_key(run, request.name, request.settings(), extra_paths=paths)
     except (_Uncacheable, OSError):
@@ -417,36 +417,6 @@ def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: A
     from phasewake.core.analyses.velocity import SpectrumRequest
 
     return (yield from requested(run, SpectrumRequest(**settings), cache=cache))
-
-
-def cached_pass(run: Run, items: Mapping[str, AnalysisRequest], *, cache: ResultCache | None = None,
-                load_hits: bool = True) -> Work[dict[str, Any]]:
-    """:func:`requested_pass` (the items are requests)."""
-    return (yield from requested_pass(run, items, cache=cache, load_hits=load_hits))
-
-
-def audit_item(run: Run, **settings: Any) -> AnalysisRequest:
-    """``AuditRequest(**settings)``, for :func:`requested_pass`."""
-    from phasewake.core.analyses.audit import AuditRequest
-
-    return AuditRequest(**settings)
-
-
-def coordinates_item(run: Run, specs: Sequence[str]) -> AnalysisRequest:
-    """``CoordinatesRequest(specs)`` of every frame, for :func:`requested_pass` (a bad specification raises
-    here)."""
-    from phasewake.core.analyses.coordinates import CoordinatesRequest
-
-    request = CoordinatesRequest(specs)
-    request.reference_paths(run)
-    return request
-
-
-def pca_item(run: Run, **settings: Any) -> AnalysisRequest:
-    """``PCARequest(**settings)`` of every frame, for :func:`requested_pass`."""
-    from phasewake.core.analyses.projection import PCARequest
-
-    return PCARequest(**settings)
 
 
 def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:

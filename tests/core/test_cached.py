@@ -394,27 +394,21 @@ def test_a_hit_never_starts_the_analysis(tmp_path, cache_dir):
     assert started == [1, 1]
 
 
-def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_analyses(tmp_path, cache_dir):
+def test_requested_pass_reads_the_frames_once_and_shares_entries_with_the_single_analyses(tmp_path, cache_dir):
     """Audit + coordinate + PCA from one read (and the PCA's projection pass): results equal to the separate
     analyses (the reference: audit_run, compute_coordinates and compute_pca on their own), and the entries it
     writes are the ones cached_audit / cached_coordinates / cached_pca look up."""
-    from phasewake.core.analyses.audit import audit_run
-    from phasewake.core.analyses.projection import compute_pca
-    from phasewake.core.store.cached import (
-        audit_item,
-        cached_audit,
-        cached_pass,
-        cached_pca,
-        coordinates_item,
-        pca_item,
-    )
+    from phasewake.core.analyses.audit import AuditRequest, audit_run
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+    from phasewake.core.analyses.projection import PCARequest, compute_pca
+    from phasewake.core.store.cached import cached_audit, cached_pca, requested_pass
 
     path = _copy(tmp_path)
     pca_kw = {"atom_indices": np.arange(2, 12), "n_components": 3, "method": "exact"}
     run, frames = _counted(path)
-    items = {"audit": audit_item(run, n_constraints=0), "q": coordinates_item(run, SPECS),
-             "pca": pca_item(run, **pca_kw)}
-    got = drive(cached_pass(run, items))
+    items = {"audit": AuditRequest(n_constraints=0), "q": CoordinatesRequest(SPECS),
+             "pca": PCARequest(**pca_kw)}
+    got = drive(requested_pass(run, items))
     assert frames.calls == 2  # one shared pass, then the PCA's projections
     assert len(_entries(cache_dir)) == 3
     plain = open_run([path])
@@ -430,22 +424,24 @@ def test_cached_pass_reads_the_frames_once_and_shares_entries_with_the_single_an
     drive(cached_pca(run2, **pca_kw))
     assert frames2.calls == 0
     # and the pass itself is served from the cache the second time
-    again = drive(cached_pass(run2, {"audit": audit_item(run2, n_constraints=0), "q": coordinates_item(run2, SPECS)}))
+    again = drive(requested_pass(run2, {"audit": AuditRequest(n_constraints=0), "q": CoordinatesRequest(SPECS)}))
     assert frames2.calls == 0
     _same(again["audit"], got["audit"])
     # only filling the cache (the window's shared read): entries already there are not even read
-    filled = drive(cached_pass(run2, {"audit": audit_item(run2, n_constraints=0), "q": coordinates_item(run2, SPECS)},
+    filled = drive(requested_pass(run2, {"audit": AuditRequest(n_constraints=0), "q": CoordinatesRequest(SPECS)},
                                load_hits=False))
     assert frames2.calls == 0 and filled == {"audit": None, "q": None}
 
 
-def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):
+def test_requested_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(tmp_path, cache_dir):
     from dataclasses import dataclass
     from typing import ClassVar
 
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+    from phasewake.core.analyses.projection import PCARequest
     from phasewake.core.analyses.request import AnalysisRequest
     from phasewake.core.errors import AnalysisError, CoordinateSpecError
-    from phasewake.core.store.cached import cached_pass, coordinates_item, pca_item
+    from phasewake.core.store.cached import requested_pass
 
     class FailsMidway:  # an analysis that gives up on its second chunk
         atoms = None
@@ -476,17 +472,18 @@ def test_cached_pass_runs_what_cannot_share_a_pass_alone_and_keeps_errors_apart(
 
     path = _copy(tmp_path)
     run, frames = _counted(path)
-    items = {"q": coordinates_item(run, SPECS),
+    items = {"q": CoordinatesRequest(SPECS),
              # subspace iteration needs several passes: its consumer refuses, the caller runs it alone
-             "pca": pca_item(run, atom_indices=np.arange(2, 12), n_components=2, method="randomized", n_iter=2),
+             "pca": PCARequest(atom_indices=np.arange(2, 12), n_components=2, method="randomized", n_iter=2),
              "bad": Failing()}
-    got = drive(cached_pass(run, items, cache=ResultCache(enabled=False)))
+    got = drive(requested_pass(run, items, cache=ResultCache(enabled=False)))
     assert frames.calls == 1
     assert got["pca"] is None
     assert isinstance(got["bad"], AnalysisError) and "gave up" in str(got["bad"])
     _equal(got["q"], drive(compute_coordinates(open_run([path]), SPECS)))
-    with pytest.raises(CoordinateSpecError):  # a bad specification is refused when the request is made
-        coordinates_item(run, [f"distance(0, {run.n_atoms + 5})"])
+    with pytest.raises(CoordinateSpecError):  # a bad specification is refused before the pass starts
+        drive(requested_pass(run, {"q": CoordinatesRequest([f"distance(0, {run.n_atoms + 5})"])},
+                             cache=ResultCache(enabled=False)))
 
 
 def test_requested_pass_of_velocity_requests_reads_once_and_each_single_request_hits(tmp_path, cache_dir):
