@@ -15,8 +15,12 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+
+if TYPE_CHECKING:
+    from phasewake.core.model.run import Run
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -59,16 +63,16 @@ def _states(text: str | None) -> tuple[float, float] | None:
     return a, b
 
 
-def _check_explicit(args: argparse.Namespace, run_: object, states: tuple[float, float] | None) -> None:
+def _check_explicit(args: argparse.Namespace, run_: Run, states: tuple[float, float] | None) -> None:
     """Options given explicitly are checked before the report is built, so a mistake exits 2 like
     ``crossings`` and ``coords`` instead of leaving a section out of the report."""
     from phasewake.core.analyses.coordinates import resolve_for_run
     from phasewake.core.errors import InputError
 
     if args.coordinate is not None:
-        if getattr(run_, "frames", None) is None:
+        if run_.frames is None:
             raise InputError("--coordinate needs trajectory frames; this run has only an energy table")
-        resolve_for_run(args.coordinate, run_)  # type: ignore[arg-type]
+        resolve_for_run(args.coordinate, run_)
     if states is not None and args.surface is not None and not states[0] < args.surface < states[1]:
         raise InputError(f"--surface {args.surface:g} must lie strictly between the cores of --states "
                          f"({states[0]:g} and {states[1]:g})")
@@ -102,7 +106,7 @@ def run(args: argparse.Namespace) -> int:
                      temperature_K=args.temperature, n_constraints=args.constraints,
                      timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
                      states=states, surface=args.surface, preview_folder=args.preview,
-                     cache=ResultCache(enabled=False) if getattr(args, "no_cache", False) else None),
+                     cache=ResultCache(enabled=False) if args.no_cache else None),
         "report")
     if args.json:
         print_json({"path": result.path, "html_path": result.html_path, "n_pages": result.n_pages,
