@@ -187,72 +187,120 @@ def _dihedral_values(p: np.ndarray, quad: tuple[int, int, int, int]) -> np.ndarr
 
 def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, max_pair_atoms: int = 40,
                       max_dihedrals: int = 60) -> CoordinateChoice:
-    """The default coordinate of ``run`` with the reason for it (see the module docstring)."""
-    from phasewake.core.analyses.coordinates import solvent_atoms
-    from phasewake.core.analyses.temperature import pair_distances
+    """The default coordinate of ``run`` with the reason for it (see the module docstring).
+
+    In steps: the solute (or a choice made without one), the widest backbone dihedral of a protein, the
+    first principal component of a large solute, else the widest two-state distance between solute atoms.
+    """
+    solute, early = _solute_or_choice(run, max_pair_atoms)
+    if early is not None:
+        return early
+    assert solute is not None
+    if run.topology is not None:
+        backbone = _backbone_choice(run, solute, max_frames=max_frames, min_frames=min_frames,
+                                    max_dihedrals=max_dihedrals)
+        if backbone is not None:
+            return backbone
+    if solute.size > max_pair_atoms:
+        return CoordinateChoice("pc(1)", f"chosen automatically: the first principal component of the "
+                                f"{solute.size} solute atoms (mass-weighted, fitted)", "principal component")
+    if solute.size == 2:  # one candidate: nothing to compare, no frames read (crossings judge it where used)
+        return _only_pair_choice(run, int(solute[0]), int(solute[1]))
+    return _pair_choice(run, solute, max_frames=max_frames, min_frames=min_frames)
+
+
+def default_coordinates(run: Run) -> list[str]:
+    """The default coordinate of a run as a list of zero or one spec.
+
+    Chosen by :func:`choose_coordinate` (one rule for every caller; never a stiff bond or a constant; empty
+    for a pure liquid). Use that function to get the reason, which every output shows ("chosen
+    automatically: ...").
+    """
+    choice = choose_coordinate(run)
+    return [] if choice.spec is None else [choice.spec]
+
+
+def _solute_or_choice(run: Run, max_pair_atoms: int) -> tuple[np.ndarray | None, CoordinateChoice | None]:
+    """The solute atoms, or the choice already made (no atoms, one atom, only solvent, no topology)."""
+    from phasewake.core.analyses.atom_groups import solvent_atoms
 
     n = run.n_atoms
     top = run.topology
     if n < 1:
-        return CoordinateChoice(None, "no atoms: no coordinate", "none")
+        return None, CoordinateChoice(None, "no atoms: no coordinate", "none")
     if n == 1:
-        return CoordinateChoice("x(0)", "chosen automatically: the x position of the only atom", "position")
+        return None, CoordinateChoice("x(0)", "chosen automatically: the x position of the only atom", "position")
     if top is not None:
         solvent = solvent_atoms(top, n)
         if solvent.size >= n:
-            return CoordinateChoice(None, SOLVENT_NOTE, "none", {"solvent_atoms": int(solvent.size)})
-        solute = np.setdiff1d(np.arange(n), solvent)
-    elif n <= max_pair_atoms:
-        solute = np.arange(n)
-    else:
-        return CoordinateChoice(None, "no obvious reaction coordinate: without a topology the solute cannot be "
-                                "told from the solvent; give a coordinate with --coordinate", "none")
-    sset = set(int(i) for i in solute)
-    stiff = THRESHOLDS["coordinate.stiff_pair"].caution
-    import phasewake.core.analyses.crossings  # noqa: F401  (registers crossings.barrier)
+            return None, CoordinateChoice(None, SOLVENT_NOTE, "none", {"solvent_atoms": int(solvent.size)})
+        return np.setdiff1d(np.arange(n), solvent), None
+    if n <= max_pair_atoms:
+        return np.arange(n), None
+    return None, CoordinateChoice(None, "no obvious reaction coordinate: without a topology the solute cannot "
+                                  "be told from the solvent; give a coordinate with --coordinate", "none")
 
-    need_barrier = THRESHOLDS["crossings.barrier"].caution
 
-    # protein backbone: the widest backbone dihedral
+def _backbone_choice(run: Run, solute: np.ndarray, *, max_frames: int, min_frames: int,
+                     max_dihedrals: int) -> CoordinateChoice | None:
+    """A protein's backbone dihedral with the widest spread, or None when the solute has none."""
+    dihedrals = _backbone_dihedrals(run.topology, set(int(i) for i in solute))[:max_dihedrals]
+    if not dihedrals:
+        return None
+    atoms = np.unique(np.array([q for _, quad in dihedrals for q in quad]))
+    local = {int(a): i for i, a in enumerate(atoms)}
+    got = _sample_positions(run, atoms, max_frames)
+    if got is None or got[0].shape[0] < min_frames:
+        name, quad = dihedrals[0]
+        return CoordinateChoice(f"dihedral({', '.join(str(i) for i in quad)})",
+                                f"chosen automatically: the backbone dihedral {name} (too few frames to "
+                                "compare the backbone dihedrals)", "backbone dihedral")
+    spreads = []
+    for _name, quad in dihedrals:
+        ang = _dihedral_values(got[0], tuple(local[i] for i in quad))  # type: ignore[arg-type]
+        spreads.append(1.0 - float(np.abs(np.mean(np.exp(1j * ang)))))  # circular variance
+    k = int(np.argmax(spreads))
+    name, quad = dihedrals[k]
+    return CoordinateChoice(
+        f"dihedral({', '.join(str(i) for i in quad)})",
+        f"chosen automatically: the backbone dihedral {name}, the widest spread (circular variance "
+        f"{spreads[k]:.2f}) of the {len(dihedrals)} backbone dihedrals", "backbone dihedral",
+        {"circular_variance": spreads[k]})
+
+
+def _only_pair_choice(run: Run, a: int, b: int) -> CoordinateChoice:
+    """The distance of the only two solute atoms, unless it is a bond to hydrogen."""
+    light = [i for i in (a, b) if 0 < float(run.masses_amu[i]) < 4.0]
+    if light:
+        return CoordinateChoice(None, "no obvious reaction coordinate: the only two solute atoms make a bond "
+                                "to hydrogen, a fast vibration; give one with --coordinate", "none")
+    where = ""
+    top = run.topology
     if top is not None:
-        dihedrals = _backbone_dihedrals(top, sset)[:max_dihedrals]
-        if dihedrals:
-            atoms = np.unique(np.array([q for _, quad in dihedrals for q in quad]))
-            local = {int(a): i for i, a in enumerate(atoms)}
-            got = _sample_positions(run, atoms, max_frames)
-            if got is None or got[0].shape[0] < min_frames:
-                name, quad = dihedrals[0]
-                return CoordinateChoice(f"dihedral({', '.join(str(i) for i in quad)})",
-                                        f"chosen automatically: the backbone dihedral {name} (too few frames to "
-                                        "compare the backbone dihedrals)", "backbone dihedral")
-            spreads = []
-            for _name, quad in dihedrals:
-                ang = _dihedral_values(got[0], tuple(local[i] for i in quad))  # type: ignore[arg-type]
-                spreads.append(1.0 - float(np.abs(np.mean(np.exp(1j * ang)))))  # circular variance
-            k = int(np.argmax(spreads))
-            name, quad = dihedrals[k]
-            return CoordinateChoice(
-                f"dihedral({', '.join(str(i) for i in quad)})",
-                f"chosen automatically: the backbone dihedral {name}, the widest spread (circular variance "
-                f"{spreads[k]:.2f}) of the {len(dihedrals)} backbone dihedrals", "backbone dihedral",
-                {"circular_variance": spreads[k]})
+        res = top.atom(a).residue
+        where = f" (residue {res.name})" if res is top.atom(b).residue else ""
+    return CoordinateChoice(f"distance({a}, {b})", f"chosen automatically: the distance between atoms {a} and "
+                            f"{b}, the only pair of solute atoms{where}", "pair distance")
 
-    if solute.size > max_pair_atoms:
-        return CoordinateChoice("pc(1)", f"chosen automatically: the first principal component of the "
-                                f"{solute.size} solute atoms (mass-weighted, fitted)", "principal component")
 
-    if solute.size == 2:  # one candidate: nothing to compare, no frames read (crossings judge it where used)
-        a, b = int(solute[0]), int(solute[1])
-        light = [i for i in (a, b) if 0 < float(run.masses_amu[i]) < 4.0]
-        if light:
-            return CoordinateChoice(None, "no obvious reaction coordinate: the only two solute atoms make a bond "
-                                    "to hydrogen, a fast vibration; give one with --coordinate", "none")
-        where = ""
-        if top is not None:
-            res = top.atom(a).residue
-            where = f" (residue {res.name})" if res is top.atom(b).residue else ""
-        return CoordinateChoice(f"distance({a}, {b})", f"chosen automatically: the distance between atoms {a} and "
-                                f"{b}, the only pair of solute atoms{where}", "pair distance")
+def _stiff_pairs(run: Run, solute: np.ndarray, pairs_local: np.ndarray, mean: np.ndarray,
+                 rel: np.ndarray) -> np.ndarray:
+    """Pairs that are a stiff bond: bonded (or closer than a covalent length) with a small relative spread."""
+    stiff = THRESHOLDS["coordinate.stiff_pair"].caution
+    bonded = np.zeros(pairs_local.shape[0], dtype=bool)
+    top = run.topology
+    if top is not None:
+        local = {int(a): i for i, a in enumerate(solute)}
+        bset = {(min(local[b[0].index], local[b[1].index]), max(local[b[0].index], local[b[1].index]))
+                for b in top.bonds if b[0].index in local and b[1].index in local}
+        bonded = np.array([(int(i), int(j)) in bset for i, j in pairs_local], dtype=bool)
+    return (rel < stiff) & (bonded | (mean < COVALENT_NM))
+
+
+def _pair_choice(run: Run, solute: np.ndarray, *, max_frames: int, min_frames: int) -> CoordinateChoice:
+    """The widest two-state distance between solute atoms (never a stiff bond or a constant)."""
+    from phasewake.core.analyses.temperature import pair_distances
+
     ii, jj = np.triu_indices(solute.size, k=1)
     pairs_local = np.stack([ii, jj], axis=1)
     got = _sample_positions(run, solute, max_frames)
@@ -265,21 +313,14 @@ def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, 
     std = d.std(axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.where(mean > 0, std / mean, 0.0)
-    bonded = np.zeros(pairs_local.shape[0], dtype=bool)
-    if top is not None:
-        local = {int(a): i for i, a in enumerate(solute)}
-        bset = {(min(local[b[0].index], local[b[1].index]), max(local[b[0].index], local[b[1].index]))
-                for b in top.bonds if b[0].index in local and b[1].index in local}
-        bonded = np.array([(int(i), int(j)) in bset for i, j in pairs_local], dtype=bool)
-    # a stiff bond: a bonded (or closer than 0.2 nm: covalent length) pair with a small relative spread;
     # a constant: any pair below the crossings.constant spread
-    constant = THRESHOLDS["crossings.constant"].caution
-    stiff_pair = (rel < stiff) & (bonded | (mean < COVALENT_NM))
-    flexible = np.flatnonzero(~stiff_pair & (rel >= constant))
+    stiff_pair = _stiff_pairs(run, solute, pairs_local, mean, rel)
+    flexible = np.flatnonzero(~stiff_pair & (rel >= THRESHOLDS["crossings.constant"].caution))
     if flexible.size == 0:
         return CoordinateChoice(None, "no obvious reaction coordinate: every distance between solute atoms is a "
-                                f"stiff bond (relative spread below {stiff:g}) or held rigid; give one with "
-                                "--coordinate", "none")
+                                f"stiff bond (relative spread below {THRESHOLDS['coordinate.stiff_pair'].caution:g})"
+                                " or held rigid; give one with --coordinate", "none")
+    need_barrier = THRESHOLDS["crossings.barrier"].caution
     order = flexible[np.argsort(-std[flexible])]
     bimodal = [(int(p), h) for p in order[:200] if (h := barrier_kT(d[:, p])) >= need_barrier]
     if bimodal:
@@ -300,3 +341,45 @@ def choose_coordinate(run: Run, *, max_frames: int = 400, min_frames: int = 20, 
     return CoordinateChoice(f"distance({a}, {b})", f"chosen automatically: the distance between atoms {a} and "
                             f"{b} (the only solute pair; it shows no barrier of {need_barrier:g} kT)",
                             "pair distance", {"std_nm": float(std[p])})
+
+
+# Thresholds of a coordinate that the chooser and the crossings both judge by (registered here, where
+# the default coordinate is chosen, so that neither imports the other's module for them).
+register(
+    Threshold(
+        kind="crossings.barrier", caution=1.0, problem=1.0, unit="kT", higher_is_worse=False,
+        source="common practice: a dip of less than about 1 kT in -kT ln P(q) is within thermal noise, "
+               "not two states",
+        description="highest barrier of the coordinate's free-energy profile, seen from both sides",
+    ),
+    Explanation(
+        title="A barrier to define states",
+        what="Whether the coordinate's distribution has two states separated by a barrier, so that "
+             "crossings between them mean something.",
+        method="The free-energy profile -kT ln P(q) (histogram, minima closer than 0.5 kT merged); the "
+               "barrier highest from both sides.",
+        threshold="States are only suggested over a barrier of at least 1 kT (common practice); below it the "
+                  "crossings would count noise, and no states are defined.",
+        advice="Choose a coordinate that separates the states of your process, or give the states "
+               "yourself (--states) if you know them from elsewhere.",
+    ),
+)
+register(
+    Threshold(
+        kind="crossings.constant", caution=1e-3, problem=1e-3, unit="relative standard deviation",
+        higher_is_worse=False,
+        source="the rigid-pair criterion of the constraint inference (relative spread 1e-3: constraint "
+               "solvers hold bonds to 1e-4 or better; float32 round-off is 6e-8)",
+        description="spread of the coordinate relative to its mean below which it is constant",
+    ),
+    Explanation(
+        title="A coordinate that moves",
+        what="Whether the coordinate changes at all beyond constraint tolerance and round-off.",
+        method="Standard deviation of the coordinate over all frames against its mean magnitude "
+               "(and an absolute floor of 1e-6 of its unit).",
+        threshold="Below a relative 1e-3 the coordinate is constant (a constrained bond, a rigid "
+                  "molecule); its crossings would be round-off noise and are refused.",
+        advice="Choose a coordinate that moves: for a rigid molecule a distance between molecules, an "
+               "angle, or a principal component.",
+    ),
+)

@@ -115,19 +115,6 @@ def units_of(resolved: ResolvedCoordinate) -> tuple[str, str, str, str]:
 
 
 
-def default_coordinates(run: Run) -> list[str]:
-    """The default coordinate of a run as a list of zero or one spec.
-
-    Chosen by :func:`phasewake.core.analyses.coordinate_choice.choose_coordinate` (one rule for every caller;
-    never a stiff bond or a constant; empty for a pure liquid). Use that function to get the reason,
-    which every output shows ("chosen automatically: ...").
-    """
-    from phasewake.core.analyses.coordinate_choice import choose_coordinate
-
-    choice = choose_coordinate(run)
-    return [] if choice.spec is None else [choice.spec]
-
-
 def resolve_for_run(spec: str | CoordinateDef, run: Run) -> ResolvedCoordinate:
     """Parse (if needed) and resolve a specification against a run, filling pc's default group."""
     base = run.paths[0].parent if run.paths else None

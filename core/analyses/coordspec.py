@@ -464,65 +464,13 @@ def resolve(
     if isinstance(defn, str):
         defn = parse(defn)
     spec = defn.spec
-    kinds = FUNCTIONS[defn.function][0]
-    groups: list[np.ndarray] = []
-    reference = None
-    reference_path = None
-    pc_index = None
-    for kind, arg in zip(kinds, defn.args, strict=False):
-        if isinstance(arg, GroupArg):
-            groups.append(
-                _resolve_group(arg, spec=spec, n_atoms=n_atoms, topology=topology, single=kind == "atom")
-            )
-        elif isinstance(arg, IntArg):
-            if arg.value > 3 * max(n_atoms, 1):
-                raise CoordinateSpecError(
-                    f"component {arg.value} does not exist: {n_atoms} atoms have at most {3 * n_atoms} "
-                    "principal components", spec=spec, position=arg.position)
-            pc_index = arg.value - 1
-        elif isinstance(arg, PathArg):
-            reference_path = arg.path
+    groups, pc_index, reference_path = _resolve_args(defn, n_atoms=n_atoms, topology=topology)
     fn = defn.function
-    if fn in ("distance", "angle", "dihedral"):
-        flat = [int(g[0]) for g in groups]
-        if len(set(flat)) != len(flat):
-            raise CoordinateSpecError(f"the atoms of {fn} must differ", spec=spec, position=defn.args[0].position)
-    if fn == "com_distance":
-        a, b = groups
-        if np.intersect1d(a, b).size:
-            raise CoordinateSpecError(
-                "the two groups of com_distance share atoms", spec=spec, position=defn.args[1].position
-            )
-    if fn == "rg" and groups[0].size < 2:
-        raise CoordinateSpecError("rg needs a group of at least 2 atoms", spec=spec, position=defn.args[0].position)
+    _check_groups(defn, groups)
+    reference = None
     if fn == "rmsd":
         assert reference_path is not None
-        path_arg = defn.args[0]
-        ref_xyz, ref_n = _load_reference(reference_path, spec=spec, position=path_arg.position, base_dir=base_dir)
-        if len(groups) == 0:
-            if ref_n != n_atoms:
-                raise CoordinateSpecError(
-                    f"the reference has {ref_n} atoms but the run has {n_atoms}; give a group, e.g. "
-                    f"rmsd({reference_path}, 0-{min(ref_n, n_atoms) - 1})",
-                    spec=spec,
-                    position=path_arg.position,
-                )
-            groups.append(np.arange(n_atoms, dtype=np.int64))
-            reference = ref_xyz
-        else:
-            g = groups[0]
-            if g.size < 3:
-                raise CoordinateSpecError("rmsd needs at least 3 atoms", spec=spec, position=defn.args[1].position)
-            if ref_n == n_atoms:
-                reference = ref_xyz[g]
-            elif ref_n == g.size:
-                reference = ref_xyz
-            else:
-                raise CoordinateSpecError(
-                    f"the reference has {ref_n} atoms, neither the run's {n_atoms} nor the group's {g.size}",
-                    spec=spec,
-                    position=path_arg.position,
-                )
+        reference = _rmsd_reference(defn, groups, reference_path, n_atoms=n_atoms, base_dir=base_dir)
     if fn == "pc" and len(groups) == 0:
         groups.append(np.zeros(0, dtype=np.int64))  # filled by the PCA's default group
     label = _label(defn, groups, topology)
@@ -573,3 +521,73 @@ def _label(defn: CoordinateDef, groups: list[np.ndarray], topology: mdtraj.Topol
         names = ", ".join(_atom_name(int(g[0]), topology) for g in groups)
         return f"{fn}({names})"
     return " ".join(defn.spec.split())
+
+
+def _resolve_args(defn: CoordinateDef, *, n_atoms: int, topology: mdtraj.Topology | None,
+                  ) -> tuple[list[np.ndarray], int | None, str | None]:
+    """The specification's groups as atom indices, its component index (pc) and reference path (rmsd)."""
+    spec = defn.spec
+    groups: list[np.ndarray] = []
+    pc_index = None
+    reference_path = None
+    for kind, arg in zip(FUNCTIONS[defn.function][0], defn.args, strict=False):
+        if isinstance(arg, GroupArg):
+            groups.append(
+                _resolve_group(arg, spec=spec, n_atoms=n_atoms, topology=topology, single=kind == "atom")
+            )
+        elif isinstance(arg, IntArg):
+            if arg.value > 3 * max(n_atoms, 1):
+                raise CoordinateSpecError(
+                    f"component {arg.value} does not exist: {n_atoms} atoms have at most {3 * n_atoms} "
+                    "principal components", spec=spec, position=arg.position)
+            pc_index = arg.value - 1
+        elif isinstance(arg, PathArg):
+            reference_path = arg.path
+    return groups, pc_index, reference_path
+
+
+def _check_groups(defn: CoordinateDef, groups: list[np.ndarray]) -> None:
+    """Atoms that must differ, groups that must not overlap, a radius of gyration of two atoms or more."""
+    fn, spec = defn.function, defn.spec
+    if fn in ("distance", "angle", "dihedral"):
+        flat = [int(g[0]) for g in groups]
+        if len(set(flat)) != len(flat):
+            raise CoordinateSpecError(f"the atoms of {fn} must differ", spec=spec, position=defn.args[0].position)
+    if fn == "com_distance":
+        a, b = groups
+        if np.intersect1d(a, b).size:
+            raise CoordinateSpecError(
+                "the two groups of com_distance share atoms", spec=spec, position=defn.args[1].position
+            )
+    if fn == "rg" and groups[0].size < 2:
+        raise CoordinateSpecError("rg needs a group of at least 2 atoms", spec=spec, position=defn.args[0].position)
+
+
+def _rmsd_reference(defn: CoordinateDef, groups: list[np.ndarray], reference_path: str, *, n_atoms: int,
+                    base_dir: str | Path | None) -> np.ndarray:
+    """The rmsd reference positions matched to the group (all atoms when no group is given: appended)."""
+    spec = defn.spec
+    path_arg = defn.args[0]
+    ref_xyz, ref_n = _load_reference(reference_path, spec=spec, position=path_arg.position, base_dir=base_dir)
+    if len(groups) == 0:
+        if ref_n != n_atoms:
+            raise CoordinateSpecError(
+                f"the reference has {ref_n} atoms but the run has {n_atoms}; give a group, e.g. "
+                f"rmsd({reference_path}, 0-{min(ref_n, n_atoms) - 1})",
+                spec=spec,
+                position=path_arg.position,
+            )
+        groups.append(np.arange(n_atoms, dtype=np.int64))
+        return np.asarray(ref_xyz)
+    g = groups[0]
+    if g.size < 3:
+        raise CoordinateSpecError("rmsd needs at least 3 atoms", spec=spec, position=defn.args[1].position)
+    if ref_n == n_atoms:
+        return np.asarray(ref_xyz[g])
+    if ref_n == g.size:
+        return np.asarray(ref_xyz)
+    raise CoordinateSpecError(
+        f"the reference has {ref_n} atoms, neither the run's {n_atoms} nor the group's {g.size}",
+        spec=spec,
+        position=path_arg.position,
+    )

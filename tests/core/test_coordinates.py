@@ -14,9 +14,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from phasewake.core.analyses.coordinate_choice import default_coordinates
 from phasewake.core.analyses.coordinates import (
     compute_coordinates,
-    default_coordinates,
     evaluate_arrays,
     value_and_gradient,
 )

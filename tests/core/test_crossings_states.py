@@ -131,7 +131,7 @@ def test_flexible_water_bond_gets_no_states():
 
 @pytest.mark.skipif(not (SAMPLES / "dimer_nve.h5md").exists(), reason="sample runs not generated")
 def test_report_and_window_use_the_same_choice_with_its_reason():
-    from phasewake.core.analyses.coordinates import default_coordinates
+    from phasewake.core.analyses.coordinate_choice import default_coordinates
     from phasewake.core.figures.report_analyses import choose_report_coordinate as _report_coordinate
     from phasewake.core.readers import open_run
 

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from phasewake.core.analyses import coordinate_choice  # noqa: F401  (registers crossings.barrier, crossings.constant)
 from phasewake.core.analyses.crossings.results import Trace
 from phasewake.core.analyses.verdicts import THRESHOLDS, Explanation, Threshold, register
 from phasewake.core.errors import AnalysisError, TooShortError
@@ -53,44 +54,6 @@ register(
         advice="Non-exponential dwells suggest hidden intermediate states, a poor reaction coordinate, "
                "core sets too close to the barrier, or a run barely longer than the dwells (completed "
                "dwells are then biased short). Try other core boundaries or another coordinate.",
-    ),
-)
-register(
-    Threshold(
-        kind="crossings.barrier", caution=1.0, problem=1.0, unit="kT", higher_is_worse=False,
-        source="common practice: a dip of less than about 1 kT in -kT ln P(q) is within thermal noise, "
-               "not two states",
-        description="highest barrier of the coordinate's free-energy profile, seen from both sides",
-    ),
-    Explanation(
-        title="A barrier to define states",
-        what="Whether the coordinate's distribution has two states separated by a barrier, so that "
-             "crossings between them mean something.",
-        method="The free-energy profile -kT ln P(q) (histogram, minima closer than 0.5 kT merged); the "
-               "barrier highest from both sides.",
-        threshold="States are only suggested over a barrier of at least 1 kT (common practice); below it the "
-                  "crossings would count noise, and no states are defined.",
-        advice="Choose a coordinate that separates the states of your process, or give the states "
-               "yourself (--states) if you know them from elsewhere.",
-    ),
-)
-register(
-    Threshold(
-        kind="crossings.constant", caution=1e-3, problem=1e-3, unit="relative standard deviation",
-        higher_is_worse=False,
-        source="the rigid-pair criterion of the constraint inference (relative spread 1e-3: constraint "
-               "solvers hold bonds to 1e-4 or better; float32 round-off is 6e-8)",
-        description="spread of the coordinate relative to its mean below which it is constant",
-    ),
-    Explanation(
-        title="A coordinate that moves",
-        what="Whether the coordinate changes at all beyond constraint tolerance and round-off.",
-        method="Standard deviation of the coordinate over all frames against its mean magnitude "
-               "(and an absolute floor of 1e-6 of its unit).",
-        threshold="Below a relative 1e-3 the coordinate is constant (a constrained bond, a rigid "
-                  "molecule); its crossings would be round-off noise and are refused.",
-        advice="Choose a coordinate that moves: for a rigid molecule a distance between molecules, an "
-               "angle, or a principal component.",
     ),
 )
 register(
