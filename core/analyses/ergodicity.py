@@ -15,7 +15,7 @@ import numpy as np
 from phasewake.core.analyses import verdicts
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
-from phasewake.core.progress import Progress, Work
+from phasewake.core.progress import Work
 
 if TYPE_CHECKING:
     from phasewake.core.model.run import Run
@@ -158,24 +158,50 @@ def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.nd
     idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
     if idx.size < 2:
         raise AnalysisError("the Thirumalai-Mountain metric needs at least two atoms")
-    m = np.asarray(run.masses_amu, float)[idx]
     t = np.asarray(run.time_ps)[start:stop:stride]
     if t.size < 2:
         raise TooShortError("the Thirumalai-Mountain metric", have=int(t.size), need=8)
     dt = float(np.median(np.diff(t)))
-    acc = TMAccumulator()
-    done = 0
-    for chunk in run.frames.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                        atom_indices=idx, velocities=True, positions=False):
-        v = chunk.velocities_nm_per_ps
-        if v is None:
-            raise MissingDataError("the frames came without velocities", path=run.paths[0] if run.paths else None)
-        ke = 0.5 * m[None, :] * np.einsum("fnc,fnc->fn", v.astype(np.float64), v.astype(np.float64))
-        acc.update(ke)
-        done += chunk.n_frames
-        yield Progress(done, t.size, "Thirumalai-Mountain metric")
+    from phasewake.core.model.framepass import run_one
+
+    consumer = KineticEnergySeries(run, idx)
+    acc = yield from run_one(run, consumer, label="Thirumalai-Mountain metric", start=start, stop=stop,
+                             stride=stride, chunk_frames=chunk_frames)
     return acc.finish(dt_ps=dt, fit_range_ps=fit_range_ps, unit="kJ/mol", quantity="kinetic energy per atom",
                       n_particles=int(idx.size))
+
+
+class KineticEnergySeries:
+    """Per-atom kinetic energies 1/2 m v^2 (kJ/mol) of every frame fed into a :class:`TMAccumulator`: the
+    frame consumer (``core/model/framepass.py``) of :func:`thirumalai_mountain_kinetic`. No ``merge``: the
+    running time averages of a later range need this range's sums per atom and frame, so the pass stays in
+    one process."""
+
+    needs_positions = False
+    needs_velocities = True
+
+    def __init__(self, run: Run, atoms: np.ndarray) -> None:
+        self.path = run.paths[0] if run.paths else None
+        self.want = np.asarray(atoms, dtype=np.int64)
+        self.atoms: np.ndarray | None = np.unique(self.want)
+        self.masses = np.asarray(run.masses_amu, float)[self.want]
+        self._local = self.want
+        self.acc = TMAccumulator()
+
+    def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
+        from phasewake.core.model.framepass import local_columns
+
+        self._local = local_columns(columns, self.want)
+
+    def update(self, chunk: Any) -> None:
+        v = chunk.velocities_nm_per_ps
+        if v is None:
+            raise MissingDataError("the frames came without velocities", path=self.path)
+        v = np.asarray(v, dtype=np.float64)[:, self._local]
+        self.acc.update(0.5 * self.masses[None, :] * np.einsum("fnc,fnc->fn", v, v))
+
+    def finish(self) -> TMAccumulator:
+        return self.acc
 
 
 def judge_tm(result: TMResult) -> verdicts.Verdict:
