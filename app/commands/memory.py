@@ -211,15 +211,11 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
     from phasewake.core.analyses import velocity as V
     from phasewake.core.analyses.ergodicity import ThirumalaiMountainRequest
     from phasewake.core.store.cache import ResultCache
-    from phasewake.core.store.cached import _with_defaults, cached_work, requested
+    from phasewake.core.store.cached import requested
 
     out: dict[str, Any] = {}
     groups = _groups(args, run)
     cache = ResultCache(enabled=False) if getattr(args, "no_cache", False) else ResultCache()
-
-    def through_cache(name: str, func: Any, **settings: Any) -> Any:
-        # every keyword of the analysis, with its defaults, joins the key (MSD: no request yet)
-        return cached_work(run, name, _with_defaults(func, settings), func(run, **settings), cache=cache)
 
     if args.vacf:
         kw: dict[str, Any] = dict(groups=groups, mass_weighted=args.mass_weighted, max_lag_ps=args.max_lag,
@@ -230,9 +226,8 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
             fit = tuple(args.fit_range) if args.fit_range else None
             tkw: dict[str, Any] = dict(groups=groups, limit_ps=args.gk_limit, max_lag_ps=args.max_lag,
                                        fit_range_ps=fit, start=args.start, stop=args.stop)
-            # through the cache like the VACF (the VACF just computed is handed over, not part of the key)
-            tr = run_with_progress(cached_work(run, "transport", _with_defaults(V.transport, tkw),
-                                               V.transport(run, **tkw, vacf_result=vres), cache=cache),
+            # the VACF just computed is handed over (not part of the key)
+            tr = run_with_progress(requested(run, V.TransportRequest(**tkw, vacf_result=vres), cache=cache),
                                    "Green-Kubo and MSD with block errors")
             out["transport"] = tr
             out["green_kubo"] = list(tr.green_kubo)
@@ -255,7 +250,7 @@ def _velocity_analyses(args: argparse.Namespace, run: Any) -> dict[str, Any]:
     if args.msd:
         kw = dict(groups=groups, max_lag_ps=args.max_lag,
                   fit_range_ps=tuple(args.fit_range) if args.fit_range else None, start=args.start, stop=args.stop)
-        out["msd"] = run_with_progress(through_cache("msd", V.msd, **kw), "MSD")
+        out["msd"] = run_with_progress(requested(run, V.MSDRequest(**kw), cache=cache), "MSD")
     if args.spectrum:
         idx = None
         if groups:

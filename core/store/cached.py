@@ -417,20 +417,3 @@ def cached_spectrum(run: Run, *, cache: ResultCache | None = None, **settings: A
     from phasewake.core.analyses.velocity import SpectrumRequest
 
     return (yield from requested(run, SpectrumRequest(**settings), cache=cache))
-
-
-def _with_defaults(func: Any, given: Mapping[str, Any]) -> dict[str, Any]:
-    """The keyword-only settings of ``func`` with their defaults, updated by ``given``: the key of
-    ``app/commands/memory.py``'s analyses that have no request yet (MSD, Green-Kubo, the sampling metric);
-    to go when they do."""
-    import inspect
-
-    out: dict[str, Any] = {}
-    for name, p in inspect.signature(func).parameters.items():
-        if p.kind is inspect.Parameter.KEYWORD_ONLY:
-            out[name] = p.default
-    unknown = set(given) - set(out)
-    if unknown:
-        raise TypeError(f"{func.__name__}() got unexpected keyword(s) {sorted(unknown)}")
-    out.update(given)
-    return out

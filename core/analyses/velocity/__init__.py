@@ -91,7 +91,7 @@ if TYPE_CHECKING:
 __all__ = [
     "DEFAULT_BUFFER_BYTES", "DEFAULT_SPECTRUM_LAG_PS", "GRAM_MAX_LAG", "NM2_PER_PS_TO_CM2_PER_S", "PS_PER_S",
     "SPEED_OF_LIGHT_CM_PER_S", "YEH_HUMMER_XI", "BlockCorrelator", "GreenKuboResult", "MSDConsumer", "MSDResult",
-    "Peak", "SpectrumRequest", "TransportResult", "VACFConsumer", "VACFRequest", "VACFResult", "VDOSResult",
+    "MSDRequest", "Peak", "SpectrumRequest", "TransportRequest", "TransportResult", "VACFConsumer", "VACFRequest", "VACFResult", "VDOSResult",
     "decay_frames", "green_kubo", "judge_peaks", "msd", "msd_from_positions", "nyquist_cm1", "spectrum_from_vacf",
     "spectrum_lag_ps", "straddling_sums", "transport", "vacf", "vacf_from_velocities", "vacf_result",
     "vdos_from_vacf", "vdos_from_velocities", "vibrational_spectrum", "wavenumber_cm1_from_thz",
@@ -202,3 +202,70 @@ class SpectrumRequest(AnalysisRequest):
         return spectrum_from_vacf(run, finished, idx, window=self.window, n_dof=self.n_dof,
                                   peak_prominence=self.peak_prominence)
         yield  # pragma: no cover - makes this a generator
+
+
+@dataclass(frozen=True)
+class MSDRequest(AnalysisRequest):
+    """The mean-squared displacement and Einstein diffusion with every setting a user can give (those of
+    :func:`msd`).
+
+    Examples
+    --------
+    >>> from phasewake.core.analyses.velocity import MSDRequest
+    >>> MSDRequest(groups={"ions": [0, 1]}, fit_range_ps=(1, 5)).fit_range_ps
+    (1.0, 5.0)
+    """
+
+    name: ClassVar[str] = "msd"
+    label: ClassVar[str] = "mean-squared displacement"
+
+    groups: Mapping[str, Sequence[int]] | None = field(default=None, hash=False)
+    max_lag_ps: float | None = None
+    fit_range_ps: tuple[float, float] | None = None
+    start: int = 0
+    stop: int | None = None
+    stride: int = 1
+    chunk_frames: int = 256
+    max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
+    dimensions: int = 3
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "groups", _frozen_groups(self.groups))
+        if self.fit_range_ps is not None:
+            object.__setattr__(self, "fit_range_ps", tuple(float(x) for x in self.fit_range_ps))
+
+    def work(self, run: Run) -> Work[MSDResult]:
+        return (yield from msd(run, **{k: getattr(self, k) for k in self.settings()}))
+
+
+@dataclass(frozen=True)
+class TransportRequest(AnalysisRequest):
+    """Green-Kubo and Einstein diffusion with block errors and their comparison (the settings of
+    :func:`transport`). ``vacf_result``, a VACF of the same run already computed, is handed over to save
+    its pass; it is not a setting (it does not change the result) and is left out of the key.
+    """
+
+    name: ClassVar[str] = "transport"
+    label: ClassVar[str] = "Green-Kubo and MSD with block errors"
+
+    groups: Mapping[str, Sequence[int]] | None = field(default=None, hash=False)
+    limit_ps: float | None = None
+    max_lag_ps: float | None = None
+    fit_range_ps: tuple[float, float] | None = None
+    start: int = 0
+    stop: int | None = None
+    n_blocks: int = 5
+    with_msd: bool = True
+    chunk_frames: int = 256
+    vacf_result: VACFResult | None = field(default=None, compare=False, hash=False, repr=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "groups", _frozen_groups(self.groups))
+        if self.fit_range_ps is not None:
+            object.__setattr__(self, "fit_range_ps", tuple(float(x) for x in self.fit_range_ps))
+
+    def settings(self) -> Mapping[str, Any]:
+        return {k: v for k, v in super().settings().items() if k != "vacf_result"}
+
+    def work(self, run: Run) -> Work[TransportResult]:
+        return (yield from transport(run, **self.settings(), vacf_result=self.vacf_result))
