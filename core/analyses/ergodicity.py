@@ -233,11 +233,6 @@ class ThirumalaiMountainRequest(AnalysisRequest):
         if self.atom_indices is not None:
             object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).ravel()))
 
-    def settings(self) -> dict[str, Any]:
-        out = dict(super().settings())
-        del out["chunk_frames"]
-        return out
-
     def work(self, run: Run) -> Work[TMResult]:
         return (yield from thirumalai_mountain_kinetic(
             run, atom_indices=self.atom_indices, fit_range_ps=self.fit_range_ps, chunk_frames=self.chunk_frames,

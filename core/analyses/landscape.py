@@ -22,7 +22,6 @@ These are descriptions of the sampled data; whether a profile is converged is th
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, ClassVar
 
@@ -536,11 +535,6 @@ class LandscapeRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     chunk_frames: int | None = field(default=None, compare=False)
-
-    def settings(self) -> Mapping[str, Any]:
-        out = dict(super().settings())
-        del out["chunk_frames"]
-        return out
 
     def work(self, run: Run) -> Work[FreeEnergyProfile]:
         from phasewake.core.analyses.coordinates import compute_coordinates

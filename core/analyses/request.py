@@ -32,8 +32,9 @@ class AnalysisRequest:
     label: ClassVar[str] = ""  # what progress says while it runs
 
     def settings(self) -> Mapping[str, Any]:
-        """Every setting that changes the result (the cache key's part): all fields, by default."""
-        return {f.name: getattr(self, f.name) for f in fields(self)}
+        """Every setting that changes the result (the cache key's part): every field but those declared
+        ``field(compare=False)``, which say how to compute (a chunk size, a result handed over), not what."""
+        return {f.name: getattr(self, f.name) for f in fields(self) if f.compare}
 
     def reference_paths(self, run: Run) -> tuple[str, ...]:
         """Files besides ``run``'s own that the result depends on (e.g. an rmsd reference)."""

@@ -16,7 +16,6 @@ All diagnostics here are heuristics (see :data:`phasewake.core.analyses.verdicts
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, ClassVar
 
@@ -553,11 +552,6 @@ class SamplingRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     chunk_frames: int | None = field(default=None, compare=False)
-
-    def settings(self) -> Mapping[str, Any]:
-        out = dict(super().settings())
-        del out["chunk_frames"]
-        return out
 
     def _read(self, run: Run) -> Work[Series1D]:
         return (yield from read_series(run, series=self.series, coordinate=self.coordinate, start=self.start,

@@ -7,9 +7,8 @@ A series is an energy-table column (``series``: its name or role, e.g. ``"potent
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 
@@ -141,11 +140,6 @@ class CorrelationRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     chunk_frames: int | None = field(default=None, compare=False)
-
-    def settings(self) -> Mapping[str, Any]:
-        out = dict(super().settings())
-        del out["chunk_frames"]
-        return out
 
     def work(self, run: Run) -> Work[CorrelationReport]:
         s = yield from read_series(run, series=self.series, coordinate=self.coordinate, start=self.start,

@@ -3,7 +3,7 @@ Python API. The temperature, kT/m_eff, the profile's Jacobian and every default 
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import TYPE_CHECKING, Any, ClassVar
 
@@ -71,11 +71,6 @@ class CrossingsRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     chunk_frames: int | None = field(default=None, compare=False)
-
-    def settings(self) -> Mapping[str, Any]:
-        out = dict(super().settings())
-        del out["chunk_frames"]
-        return out
 
     def reference_paths(self, run: Run) -> tuple[str, ...]:
         from phasewake.core.analyses.coordinates import resolve_for_run

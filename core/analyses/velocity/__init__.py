@@ -242,7 +242,8 @@ class MSDRequest(AnalysisRequest):
 class TransportRequest(AnalysisRequest):
     """Green-Kubo and Einstein diffusion with block errors and their comparison (the settings of
     :func:`transport`). ``vacf_result``, a VACF of the same run already computed, is handed over to save
-    its pass; it is not a setting (it does not change the result) and is left out of the key.
+    its pass; it is not a setting (it does not change the result: ``compare=False``) and is left out of
+    the key.
     """
 
     name: ClassVar[str] = "transport"
@@ -263,9 +264,6 @@ class TransportRequest(AnalysisRequest):
         object.__setattr__(self, "groups", _frozen_groups(self.groups))
         if self.fit_range_ps is not None:
             object.__setattr__(self, "fit_range_ps", tuple(float(x) for x in self.fit_range_ps))
-
-    def settings(self) -> Mapping[str, Any]:
-        return {k: v for k, v in super().settings().items() if k != "vacf_result"}
 
     def work(self, run: Run) -> Work[TransportResult]:
         return (yield from transport(run, **self.settings(), vacf_result=self.vacf_result))
