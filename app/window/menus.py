@@ -70,6 +70,10 @@ class MenuActions:
         analyses.USE_CACHE = self.act_use_cache.isChecked()
         self._action(a, "Clear the result cache", self.clear_cache,
                      tip="Delete every stored result (inputs are never touched)")
+        self._action(a, "Worker processes\u2026", self.ask_frame_workers,
+                     tip="How many processes decode a run's frames at once (automatic: every usable core for "
+                         "XTC, TRR and DCD, one for H5MD and other files)")
+        self.set_frame_workers(self._frame_workers_setting(), remember=False)
         a.addSeparator()
         self._action(a, "Cancel background work", self.cancel_work, "Esc")
 
@@ -111,6 +115,36 @@ class MenuActions:
         self.settings.sync()
         self.say("Results are kept in the result cache." if on else
                  "The result cache is off: every panel is computed afresh.")
+
+    def _frame_workers_setting(self) -> int:
+        """The remembered number of frame-reading processes (0: automatic)."""
+        try:
+            return max(0, int(self.settings.value("frame_workers", 0)))
+        except (TypeError, ValueError):
+            return 0
+
+    def set_frame_workers(self, n: int, *, remember: bool = True) -> None:
+        """Frame passes of this window use ``n`` worker processes (0: automatic, as on the command line)."""
+        from phasewake.core.model import parallel
+
+        parallel.set_workers(n if n > 0 else None)
+        if remember:
+            self.settings.setValue("frame_workers", int(n))
+            self.settings.sync()
+            self.say("Frames are read by " + (f"{n} worker process{'es' if n != 1 else ''}." if n > 0 else
+                     "as many processes as there are usable cores for XTC, TRR and DCD, one otherwise."))
+
+    def ask_frame_workers(self) -> None:
+        from phasewake.core.model import parallel
+
+        n, ok = QtWidgets.QInputDialog.getInt(
+            self, "Worker processes",
+            "Processes that decode a run's frames at once (0: automatic).\n"
+            f"This computer lets phasewake use {parallel.usable_cores()} cores. More processes help with "
+            "compressed\nframes (XTC, TRR) and DCD; results are the same whatever the number.",
+            self._frame_workers_setting(), 0, 256)
+        if ok:
+            self.set_frame_workers(n)
 
     def clear_cache(self) -> None:
         from phasewake.core.errors import PhasewakeError

@@ -470,6 +470,26 @@ def test_result_cache_can_be_turned_off_and_cleared_from_the_menu(qtbot, tmp_pat
     assert ResultCache().info().entries == 0 and "Removed 1 stored result" in w2.status_label.text()
 
 
+def test_worker_processes_are_a_remembered_window_setting(qtbot, tmp_path, monkeypatch):
+    """Analysis > Worker processes sets how many processes decode frames (as --workers does on the command
+    line), is remembered, and 0 goes back to the automatic choice."""
+    from PySide6 import QtWidgets
+
+    from phasewake.core.model import parallel
+
+    monkeypatch.setattr(parallel, "_workers", None)
+    monkeypatch.setattr(QtWidgets.QInputDialog, "getInt", staticmethod(lambda *a, **k: (2, True)))
+    w = _window(qtbot, tmp_path)
+    w.ask_frame_workers()
+    assert parallel._workers == 2 and int(w.settings.value("frame_workers")) == 2
+    assert "2 worker processes" in w.status_label.text()
+    parallel.set_workers(None)
+    _window(qtbot, tmp_path)  # a new window with the same settings applies the remembered number
+    assert parallel._workers == 2
+    w.set_frame_workers(0)
+    assert parallel._workers is None and int(w.settings.value("frame_workers")) == 0
+
+
 @pytest.mark.slow
 def test_opening_a_run_reads_the_frames_once_for_audit_coordinate_and_pca(qtbot, tmp_path, monkeypatch,
                                                                           h5md_reads):
