@@ -4,7 +4,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test lint typecheck unit bench fuzz screenshots bundle wheel-check clean samples
+.PHONY: demo test check lint typecheck unit quick bench fuzz screenshots bundle wheel-check clean samples
 
 $(STAMP): pyproject.toml constraints.txt
 	$(PYTHON) -m venv $(VENV)
@@ -17,6 +17,9 @@ demo: $(STAMP)
 
 test: $(STAMP) lint typecheck unit
 
+# the fast round while working: lint, types and every test not marked slow (under 2 minutes on 2 cores)
+check: $(STAMP) lint typecheck quick
+
 lint: $(STAMP)
 	$(BIN)/ruff check core app tests sample_data packaging
 
@@ -25,6 +28,9 @@ typecheck: $(STAMP)
 
 unit: $(STAMP)
 	QT_QPA_PLATFORM=offscreen $(BIN)/python -m pytest -q -p no:cacheprovider
+
+quick: $(STAMP)
+	QT_QPA_PLATFORM=offscreen $(BIN)/python -m pytest -q -p no:cacheprovider -m "not slow"
 
 bench: $(STAMP)
 	QT_QPA_PLATFORM=offscreen $(BIN)/python -m tests.benchmarks --full --output bench-results/summary.json
