@@ -14,6 +14,7 @@ are frozen dataclasses with units in their field names or a ``unit`` field; the 
 """
 
 from phasewake._analyses import audit, coordinates, correlation, crossings, pca, report, spectrum, vacf
+from phasewake._figures import figure
 from phasewake._figures import install as _install_figures
 from phasewake._runs import describe, open, sample_path
 from phasewake.core import __version__
@@ -23,5 +24,5 @@ _install_figures()  # result.figure() draws with core.figures, which core.analys
 
 __all__ = [
     "AnalysisError", "CoordinateSpecError", "InputError", "PhasewakeError", "__version__", "audit", "coordinates",
-    "correlation", "crossings", "describe", "open", "pca", "report", "sample_path", "spectrum", "vacf",
+    "correlation", "crossings", "describe", "figure", "open", "pca", "report", "sample_path", "spectrum", "vacf",
 ]

@@ -23,3 +23,34 @@ def install() -> None:
     from phasewake.core.analyses.result import use_figures
 
     use_figures(_figure_specs, _render)
+
+
+def figure(result: Any, which: int | str = 0, *, preset: str = "slide", **options: Any) -> Any:
+    """A figure of a result (or of a run's energy table) as a matplotlib Figure, drawn from the same figure
+    description as the window's panel and the report's page.
+
+    Parameters
+    ----------
+    result : a result of phasewake's analyses, or ``run.energies``
+    which : int or str
+        The figure's position among the result's figures, or its key (``"phase.portrait"``, ...).
+    preset : {"slide", "single", "double"}
+        Size and fonts (a slide, or a journal column of one or two widths).
+    **options
+        Passed to the figure builder.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+
+    Examples
+    --------
+    >>> import phasewake as pw
+    >>> run = pw.open(pw.sample_path("dimer_langevin_r2.h5md"))
+    >>> fig = pw.figure(run.energies, "energy.series")
+    >>> fig.axes[0].get_xlabel()
+    'Time (ps)'
+    """
+    from phasewake.core.analyses.result import draw
+
+    return draw(result, which, preset=preset, **options)

@@ -70,18 +70,24 @@ class ResultMixin:
         -------
         matplotlib.figure.Figure
         """
-        from phasewake.core.errors import AnalysisError
+        return draw(self, which, preset=preset, **options)
 
-        specs = self.figure_specs(**options)
-        keys = [s.key for s in specs]
-        if isinstance(which, str):
-            if which not in keys:
-                raise AnalysisError(f"{type(self).__name__} has no figure {which!r}; it has: {', '.join(keys) or 'none'}")
-            spec = specs[keys.index(which)]
-        elif -len(specs) <= which < len(specs):
-            spec = specs[which]
-        else:
-            raise AnalysisError(f"{type(self).__name__} has {len(specs)} figure(s) ({', '.join(keys) or 'none'}); "
-                                f"asked for number {which}")
-        assert _render is not None
-        return _render(spec, preset=preset)
+
+def draw(result: Any, which: int | str = 0, *, preset: str = "slide", **options: Any) -> Any:
+    """Figure ``which`` (position or key) of any result the figure builders know, as a matplotlib Figure."""
+    from phasewake.core.errors import AnalysisError
+
+    if _figure_specs is None or _render is None:
+        raise AnalysisError("no figure builders: import phasewake (the package) to draw results")
+    specs = _figure_specs(result, **options)
+    keys = [s.key for s in specs]
+    name = type(result).__name__
+    if isinstance(which, str):
+        if which not in keys:
+            raise AnalysisError(f"{name} has no figure {which!r}; it has: {', '.join(keys) or 'none'}")
+        spec = specs[keys.index(which)]
+    elif -len(specs) <= which < len(specs):
+        spec = specs[which]
+    else:
+        raise AnalysisError(f"{name} has {len(specs)} figure(s) ({', '.join(keys) or 'none'}); asked for number {which}")
+    return _render(spec, preset=preset)

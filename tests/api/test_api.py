@@ -167,3 +167,17 @@ def test_report_refuses_to_overwrite_its_input_and_a_non_pdf(tmp_path, cache_dir
     with pytest.raises(CoordinateSpecError, match="99"):
         pw.report(run, tmp_path / "report.pdf", coordinate="distance(0, 99)")
     assert not list(tmp_path.iterdir())
+
+
+def test_pw_figure_draws_any_result_the_builders_know(cache_dir):
+    from matplotlib.figure import Figure
+
+    from phasewake.core.errors import AnalysisError
+    from phasewake.core.figures.plots import RESULT_FIGURES
+
+    run = pw.open(pw.sample_path(SMALL))
+    result = pw.pca(run, atoms=[0, 1], n_components=2)
+    assert isinstance(pw.figure(result), Figure)
+    assert isinstance(pw.figure(run.energies, RESULT_FIGURES["EnergyTable"][1], preset="single"), Figure)
+    with pytest.raises(AnalysisError, match="has 0 figure"):
+        pw.figure(run)

@@ -5,9 +5,9 @@ import doctest
 import pytest
 
 import phasewake
-from phasewake import _analyses, _runs
+from phasewake import _analyses, _figures, _runs
 
-MODULES = [phasewake, _runs, _analyses]
+MODULES = [phasewake, _runs, _analyses, _figures]
 
 
 @pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
