@@ -506,9 +506,10 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     >>> import tempfile, pathlib
     >>> import phasewake as pw
     >>> folder = pathlib.Path(tempfile.mkdtemp())
-    >>> done = pw.report(pw.open(pw.sample_path()), folder / "nve.pdf", coordinate="distance(0, 1)")
+    >>> run = pw.open(pw.sample_path("dimer_langevin_r2.h5md"))
+    >>> done = pw.report(run, folder / "langevin.pdf", coordinate="distance(0, 1)")
     >>> done.path.name, done.n_pages > 1
-    ('nve.pdf', True)
+    ('langevin.pdf', True)
     """
     from phasewake.app.commands.report import _check_explicit
     from phasewake.core.errors import InputError

@@ -8,23 +8,28 @@ import phasewake
 from phasewake import _analyses, _figures, _runs
 
 MODULES = [phasewake, _runs, _analyses, _figures]
+SLOW = {"phasewake._analyses.report"}  # writes a 13-page PDF: ~9 s of CPU
 
 
-@pytest.mark.parametrize("module", MODULES, ids=lambda m: m.__name__)
-def test_docstring_examples_run(module, cache_dir):
+def _examples():
     finder = doctest.DocTestFinder(exclude_empty=True)
+    found = [t for m in MODULES for t in finder.find(m, m.__name__) if t.examples]
+    return [pytest.param(t, id=t.name, marks=[pytest.mark.slow] if t.name in SLOW else []) for t in found]
+
+
+@pytest.mark.parametrize("test", _examples())
+def test_docstring_example_runs(test, cache_dir):
     runner = doctest.DocTestRunner(optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE)
-    tests = [t for t in finder.find(module, module.__name__) if t.examples]
-    assert tests, f"{module.__name__} has no examples"
-    for t in tests:
-        runner.run(t)
+    runner.run(test)
     result = runner.summarize(verbose=False)
-    assert result.failed == 0, f"{result.failed} of {result.attempted} examples failed in {module.__name__} (see above)"
+    assert result.attempted and result.failed == 0, f"{result.failed} of {result.attempted} examples of {test.name} failed"
 
 
 def test_every_public_function_has_a_runnable_example():
+    names = {t.values[0].name for t in _examples()}
     for name in phasewake.__all__:
         obj = getattr(phasewake, name)
         if callable(obj) and not isinstance(obj, type):
             doc = obj.__doc__ or ""
             assert "Examples\n    --------" in doc and ">>> " in doc, f"pw.{name} has no Examples section"
+            assert f"{obj.__module__}.{obj.__name__}" in names
