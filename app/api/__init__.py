@@ -13,7 +13,18 @@ are frozen dataclasses with units in their field names or a ``unit`` field; the 
 ``phasewake.core.errors`` (``InputError`` and its kin), naming the file and the problem.
 """
 
-from phasewake._analyses import audit, coordinates, correlation, crossings, pca, report, spectrum, vacf
+from phasewake._analyses import (
+    audit,
+    coordinates,
+    correlation,
+    crossings,
+    free_energy,
+    pca,
+    report,
+    sampling,
+    spectrum,
+    vacf,
+)
 from phasewake._figures import figure
 from phasewake._figures import install as _install_figures
 from phasewake._runs import describe, open, sample_path
@@ -24,5 +35,6 @@ _install_figures()  # result.figure() draws with core.figures, which core.analys
 
 __all__ = [
     "AnalysisError", "CoordinateSpecError", "InputError", "PhasewakeError", "__version__", "audit", "coordinates",
-    "correlation", "crossings", "describe", "figure", "open", "pca", "report", "sample_path", "spectrum", "vacf",
+    "correlation", "crossings", "describe", "figure", "free_energy", "open", "pca", "report", "sample_path", "sampling",
+    "spectrum", "vacf",
 ]

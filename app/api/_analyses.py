@@ -13,10 +13,12 @@ import numpy as np
 if TYPE_CHECKING:
     from phasewake.core.analyses.audit import AuditResult
     from phasewake.core.analyses.coordinates import CoordinateSeries
-    from phasewake.core.analyses.correlation import CorrelationResult
+    from phasewake.core.analyses.correlation.request import CorrelationReport, Series1D
     from phasewake.core.analyses.crossings import CrossingsResult
+    from phasewake.core.analyses.landscape import FreeEnergyProfile
     from phasewake.core.analyses.projection import PCAResult
     from phasewake.core.analyses.request import AnalysisRequest
+    from phasewake.core.analyses.sampling import SamplingReport
     from phasewake.core.analyses.velocity import VACFResult, VDOSResult
     from phasewake.core.figures.report import ReportResult
     from phasewake.core.model.run import Run
@@ -248,12 +250,13 @@ def pca(run: Run, *, atoms: Atoms | None = None, n_components: int = 10, mass_we
     >>> bool(result.explained_variance_ratio[0] > result.explained_variance_ratio[1])
     True
     """
-    from phasewake.core.store.cached import cached_pca
+    from phasewake.core.analyses.projection import PCARequest
 
     run = _run_of(run, "pw.pca")
-    work = cached_pca(run, atom_indices=_atoms(run, atoms, "atoms"), start=start, stop=stop,
-                      n_components=n_components, mass_weighted=mass_weighted, fit=fit,
-                      method="randomized" if fast else "exact", n_iter=max(0, passes - 1), cache=_cache(cache))
+    request = PCARequest(atom_indices=_atoms(run, atoms, "atoms"), start=start, stop=stop, n_components=n_components,
+                         mass_weighted=mass_weighted, fit=fit, method="randomized" if fast else "exact",
+                         n_iter=max(0, passes - 1))
+    work = _requested(run, request, cache)
     result: PCAResult = _drive(work, progress)
     return result
 
@@ -288,11 +291,12 @@ def vacf(run: Run, *, groups: Mapping[str, Atoms] | None = None, mass_weighted: 
     >>> float(result.normalised[0, 0])
     1.0
     """
-    from phasewake.core.store.cached import cached_vacf
+    from phasewake.core.analyses.velocity import VACFRequest
 
     run = _run_of(run, "pw.vacf")
-    work = cached_vacf(run, groups=_groups(run, groups, "groups"), mass_weighted=mass_weighted,
-                       max_lag_ps=max_lag_ps, start=start, stop=stop, cache=_cache(cache))
+    request = VACFRequest(groups=_groups(run, groups, "groups"), mass_weighted=mass_weighted, max_lag_ps=max_lag_ps,
+                          start=start, stop=stop)
+    work = _requested(run, request, cache)
     result: VACFResult = _drive(work, progress)
     return result
 
@@ -329,86 +333,190 @@ def spectrum(run: Run, *, atoms: Atoms | None = None, max_lag_ps: float | None =
     >>> result.n_dof  # 3 per atom: the intensity integrates to it over wavenumber
     6.0
     """
-    from phasewake.core.store.cached import cached_spectrum
+    from phasewake.core.analyses.velocity import SpectrumRequest
 
     run = _run_of(run, "pw.spectrum")
-    work = cached_spectrum(run, atom_indices=_atoms(run, atoms, "atoms"), max_lag_ps=max_lag_ps,
-                           peak_prominence=peak_prominence, start=start, stop=stop, cache=_cache(cache))
+    request = SpectrumRequest(atom_indices=_atoms(run, atoms, "atoms"), max_lag_ps=max_lag_ps,
+                              peak_prominence=peak_prominence, start=start, stop=stop)
+    work = _requested(run, request, cache)
     result: VDOSResult = _drive(work, progress)
     return result
 
 
-def _series_of(source: Any, series: str | None, dt_ps: float | None) -> tuple[np.ndarray, float, str, str]:
-    """(values, spacing ps, unit, name) of an array, a CoordinateSeries, or a run's energy column."""
+def _which(series: str | None, coordinate: str | None, what: str) -> dict[str, str]:
+    from phasewake.core.errors import InputError
+
+    if bool(series) == bool(coordinate):
+        raise InputError(f"{what}: name either an energy series (series='potential', a column name or role) or a "
+                         "coordinate (coordinate='distance(0, 1)'), not both or neither")
+    return {"series": series} if series else {"coordinate": str(coordinate)}
+
+
+def _series1d(values: Any, dt_ps: float | None, unit: str) -> Series1D:
+    """An array of equally spaced samples, or a CoordinateSeries, as the series the requests analyse."""
     from phasewake.core.analyses.coordinates import CoordinateSeries
+    from phasewake.core.analyses.correlation.request import Series1D
     from phasewake.core.errors import InputError, MissingDataError
-    from phasewake.core.model.run import Run
 
-    if isinstance(source, CoordinateSeries):
-        return source.values, _spacing(source.time_ps, source.spec), source.unit, source.label
-    if isinstance(source, Run):
-        if series is None:
-            raise InputError("pw.correlation: name the run's energy series (series='potential', a column "
-                             "name or role) or pass a coordinate from pw.coordinates(...)")
-        from phasewake.core.analyses.correlation.request import find_energy_series
-
-        s = find_energy_series(source, series)
-        assert source.energies is not None
-        time = np.asarray(source.energies.time_ps if getattr(s, "time_ps", None) is None else s.time_ps)
-        return np.asarray(s.values, dtype=np.float64), _spacing(time, s.name), s.unit, s.name
-    values = np.asarray(source, dtype=np.float64)
-    if values.ndim != 1:
-        raise InputError(f"pw.correlation: expected one series (a 1-d array), got shape {values.shape}")
+    if isinstance(values, CoordinateSeries):  # as read_series makes it from a run's coordinate
+        return Series1D(name=values.label, unit=values.unit, kind="coordinate", source=values.spec,
+                        time_ps=np.asarray(values.time_ps, float), values=np.asarray(values.values, float),
+                        momentum=None if values.momentum is None else np.asarray(values.momentum, float),
+                        momentum_unit=values.momentum_unit, periodic=bool(values.periodic))
+    x = np.asarray(values, dtype=np.float64)
+    if x.ndim != 1:
+        raise InputError(f"expected one series (a 1-d array), got shape {x.shape}")
     if dt_ps is None:
-        raise MissingDataError("pw.correlation: an array needs its sample spacing, dt_ps=")
-    return values, float(dt_ps), "", series or "series"
+        raise MissingDataError("an array needs its sample spacing, dt_ps=")
+    return Series1D(name="series", unit=unit, kind="series", source="array", time_ps=np.arange(x.size) * float(dt_ps),
+                    values=x)
 
 
-def _spacing(time_ps: np.ndarray, what: str) -> float:
-    from phasewake.core.analyses.correlation.request import sample_spacing
-
-    return float(sample_spacing(np.asarray(time_ps, dtype=np.float64), what))
-
-
-def correlation(source: Any, series: str | None = None, *, dt_ps: float | None = None, method: str = "auto",
-                max_lag: int | None = None) -> CorrelationResult:
-    """Memory of one series: autocorrelation, statistical inefficiency g, integrated correlation time,
-    effective sample size and the g-corrected standard error of the mean (``phasewake memory``).
+def correlation(source: Any, series: str | None = None, *, coordinate: str | None = None, dt_ps: float | None = None,
+                unit: str = "", method: str = "auto", max_lag_ps: float | None = None, start: int = 0,
+                stop: int | None = None, cache: bool = True,
+                progress: ProgressCallback | None = None) -> CorrelationReport:
+    """Memory of one series: autocorrelation, statistical inefficiency g by every estimator, integrated
+    correlation time, effective sample size, the g-corrected standard error of the mean, blocking and the
+    start of equilibrated data (``phasewake memory``).
 
     Parameters
     ----------
-    source : CoordinateSeries, Run or array
-        A coordinate from :func:`phasewake.coordinates`; a run (then ``series`` names an energy column
-        by name or role, e.g. ``"potential"``); or a 1-d array of equally spaced samples (give ``dt_ps``).
-    series : str, optional
-        The energy column of a run.
+    source : Run, CoordinateSeries or array
+        A run (then name ``series``, an energy column by name or role such as ``"potential"``, or a
+        ``coordinate``); a coordinate from :func:`phasewake.coordinates`; or a 1-d array of equally spaced
+        samples (give ``dt_ps``, and its ``unit``).
+    series, coordinate : str, optional
+        What to read from a run (exactly one).
     dt_ps : float, optional
         Sample spacing in ps (arrays only).
+    unit : str
+        Unit of an array's values.
     method : {"auto", "sokal", "geyer", "first_zero"}
         Estimator of g: ``auto`` takes Sokal's window, Geyer's initial sequence on an oscillating
         autocorrelation, compares them with blocking and keeps the largest when they disagree.
-    max_lag : int, optional
-        Largest lag in samples.
+    max_lag_ps : float, optional
+        Largest lag used for g, in ps (default: the whole series).
+    start, stop : int
+        Rows of the energy table, or frames, of a run.
+    cache, progress
+        As in :func:`phasewake.audit` (only runs are cached).
 
     Returns
     -------
-    CorrelationResult
-        ``statistical_inefficiency``, ``tau_int_sokal_ps``, ``effective_sample_size``, ``standard_error_of_mean``,
-        ``acf``; ``.figure()``.
+    CorrelationReport
+        ``correlation`` (``statistical_inefficiency``, ``tau_int_sokal_ps``, ``effective_sample_size``,
+        ``standard_error_of_mean``, ``acf``; ``.figure()``), ``g_by_method``, ``blocking``,
+        ``equilibration``, ``verdicts``.
 
     Examples
     --------
     >>> import phasewake as pw
-    >>> run = pw.open(pw.sample_path())
-    >>> result = pw.correlation(run, "potential")
-    >>> bool(result.effective_sample_size < result.n_samples)
-    True
+    >>> run = pw.open(pw.sample_path("dimer_langevin_r2.h5md"))
+    >>> report = pw.correlation(run, "potential")
+    >>> g = report.correlation
+    >>> bool(g.effective_sample_size < g.n_samples), g.unit
+    (True, 'kJ/mol')
     >>> noise = pw.correlation([0.3, -1.2, 0.8, 0.1, -0.5, 1.1, -0.9, 0.4] * 8, dt_ps=0.01)
     """
-    from phasewake.core.analyses.correlation import analyse_series
+    from phasewake.core.analyses.correlation.request import CorrelationRequest
+    from phasewake.core.model.run import Run
 
-    values, dt, unit, _name = _series_of(source, series, dt_ps)
-    return analyse_series(values, dt_ps=dt, method=method, max_lag=max_lag, unit=unit)  # type: ignore[arg-type]
+    if isinstance(source, Run):
+        request = CorrelationRequest(**_which(series, coordinate, "pw.correlation"), method=method,  # type: ignore[arg-type]
+                                     max_lag_ps=max_lag_ps, start=start, stop=stop)
+        report: CorrelationReport = _drive(_requested(source, request, cache), progress)
+        return report
+    request = CorrelationRequest(method=method, max_lag_ps=max_lag_ps)  # type: ignore[arg-type]
+    report = _drive(request.analyse(_series1d(source, dt_ps, unit)), progress)
+    return report
+
+
+def sampling(run: Run, series: str | None = None, *, coordinate: str | None = None, segments: int = 4,
+             bins: int = 50, method: str = "auto", max_lag_ps: float | None = None, replicas: Sequence[Run] = (),
+             start: int = 0, stop: int | None = None, cache: bool = True,
+             progress: ProgressCallback | None = None) -> SamplingReport:
+    """Did the run sample ergodically? Running average with its error band, split R-hat over segments (and
+    across replicas), half-against-half divergence and, for a coordinate with a momentum, the (q, p)
+    coverage over time (``phasewake memory``). Heuristics: your judgement decides.
+
+    Parameters
+    ----------
+    run : Run
+    series, coordinate : str
+        An energy column (name or role) or a coordinate specification (exactly one).
+    segments : int
+        Contiguous segments of the split R-hat.
+    bins : int
+        Histogram bins of the divergence.
+    method, max_lag_ps
+        As in :func:`phasewake.correlation`.
+    replicas : list of Run
+        Other runs of the same system: R-hat across them.
+    start, stop, cache, progress
+        As in :func:`phasewake.correlation`.
+
+    Returns
+    -------
+    SamplingReport
+        ``running``, ``rhat_segments``, ``divergence``, ``coverage``, ``rhat_replicas``, ``verdicts``.
+
+    Examples
+    --------
+    >>> import phasewake as pw
+    >>> run = pw.open(pw.sample_path("dimer_langevin_r2.h5md"))
+    >>> report = pw.sampling(run, coordinate="distance(0, 1)")
+    >>> report.rhat_segments.n_chains
+    4
+    """
+    from phasewake.core.analyses.sampling import SamplingRequest
+
+    run = _run_of(run, "pw.sampling")
+    request = SamplingRequest(**_which(series, coordinate, "pw.sampling"), segments=segments, bins=bins,  # type: ignore[arg-type]
+                              method=method, max_lag_ps=max_lag_ps,
+                              replicas=tuple(_run_of(r, "replicas") for r in replicas), start=start, stop=stop)
+    report: SamplingReport = _drive(_requested(run, request, cache), progress)
+    return report
+
+
+def free_energy(run: Run, coordinate: str, *, jacobian: str = "none", bins: int | None = None, n_blocks: int = 10,
+                start: int = 0, stop: int | None = None, cache: bool = True,
+                progress: ProgressCallback | None = None) -> FreeEnergyProfile:
+    """The free-energy profile F(q) = -kT ln P(q) of a coordinate, with block errors, at the run's
+    temperature (the same rule as :func:`phasewake.crossings`).
+
+    Parameters
+    ----------
+    run : Run
+    coordinate : str
+        A coordinate specification, e.g. ``"distance(0, 1)"``.
+    jacobian : {"none", "auto"}
+        ``"auto"`` removes the distance Jacobian 4 pi r^2 from a distance's histogram.
+    bins : int, optional
+        Histogram bins (default: chosen from the data).
+    n_blocks : int
+        Blocks of the error estimate.
+    start, stop, cache, progress
+        As in :func:`phasewake.coordinates`.
+
+    Returns
+    -------
+    FreeEnergyProfile
+        ``centers`` (in ``unit``), F in kJ/mol with block errors, ``minima``, ``barriers``; ``.figure()``.
+
+    Examples
+    --------
+    >>> import phasewake as pw
+    >>> profile = pw.free_energy(pw.open(pw.sample_path("dimer_langevin.h5md")), "distance(0, 1)")
+    >>> fig = profile.figure()
+    """
+    from phasewake.core.analyses.landscape import LandscapeRequest
+
+    run = _run_of(run, "pw.free_energy")
+    request = LandscapeRequest(coordinate=coordinate, jacobian=jacobian, bins=bins, n_blocks=n_blocks, start=start,
+                               stop=stop)
+    result: FreeEnergyProfile = _drive(_requested(run, request, cache), progress)
+    return result
 
 
 def crossings(runs: Run | Sequence[Run], coordinate: str, *, states: tuple[float, float] | None = None,

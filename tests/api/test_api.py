@@ -153,7 +153,31 @@ def test_results_give_json_and_the_figures_the_window_draws(cache_dir):
         q.figure(5)
 
 
-def test_correlation_of_an_array_needs_its_spacing():
+def test_memory_of_a_coordinate_equals_the_command_line(capsys, cache_dir):
+    path = str(pw.sample_path(SMALL))
+    code, cli = _cli_json(capsys, "memory", path, "-c", "distance(0, 1)", "--json", "--no-cache")
+    assert code in (0, 1)
+    row = cli["series"][0]
+    run = pw.open(path)
+    report = pw.correlation(run, coordinate="distance(0, 1)")
+    assert report.correlation.statistical_inefficiency == pytest.approx(row["statistical_inefficiency_g"], rel=1e-12)
+    assert report.correlation.standard_error_of_mean == pytest.approx(row["standard_error_of_mean"], rel=1e-12)
+    # the same series handed over as a coordinate already computed, or as a bare array of the same spacing
+    q = pw.coordinates(run, "distance(0, 1)")
+    again = pw.correlation(q).correlation
+    bare = pw.correlation(q.values, dt_ps=float(q.time_ps[1] - q.time_ps[0])).correlation
+    assert again.statistical_inefficiency == report.correlation.statistical_inefficiency
+    assert bare.statistical_inefficiency == pytest.approx(report.correlation.statistical_inefficiency, rel=1e-9)
+    sampling = pw.sampling(run, coordinate="distance(0, 1)")
+    assert sampling.rhat_segments.rhat == pytest.approx(row["rhat_segments"]["rhat"], rel=1e-12)
+
+
+def test_correlation_needs_one_series_and_an_arrays_spacing():
+    run = pw.open(pw.sample_path(SMALL))
+    with pytest.raises(InputError, match="either"):
+        pw.correlation(run)
+    with pytest.raises(InputError, match="either"):
+        pw.sampling(run, "potential", coordinate="distance(0, 1)")
     with pytest.raises(MissingDataError, match="dt_ps"):
         pw.correlation(np.zeros(64))
     with pytest.raises(InputError, match="1-d"):
