@@ -10,6 +10,8 @@ import json
 import shutil
 from pathlib import Path
 
+import pytest
+
 from phasewake.app.cli import main
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -118,6 +120,7 @@ def test_report_twice_reads_frames_once(tmp_path, cache_dir, h5md_reads, capsys,
     assert h5md_reads["n"] > n1
 
 
+@pytest.mark.slow  # measured 0.9 s of CPU
 def test_memory_and_pca_twice_second_run_is_from_the_cache(tmp_path, cache_dir, h5md_reads, capsys):
     """`memory` (VACF, MSD, spectrum, Thirumalai-Mountain) and `coords --pca`: the second run h5md_reads no frames,
     prints the same JSON, and `--no-cache` recomputes without writing."""

@@ -101,6 +101,7 @@ CTRL_C_CHILD = textwrap.dedent("""
 """)
 
 
+@pytest.mark.slow  # worker processes and a signal: ~1 s of CPU, more wall
 def test_ctrl_c_stops_every_worker(tmp_path):
     psutil = pytest.importorskip("psutil")
     xtc, pdb = make_xtc(tmp_path, n_frames=400)

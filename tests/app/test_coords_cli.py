@@ -48,6 +48,7 @@ def _read_csv(text):
     return header, data
 
 
+@pytest.mark.slow  # measured 1.1 s of CPU
 def test_csv_table_matches_mdtraj(run_file, capsys):
     path, pos, _vel, masses, top = run_file
     digest = hashlib.sha256(path.read_bytes()).hexdigest()

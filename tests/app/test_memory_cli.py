@@ -56,6 +56,7 @@ def _json(capsys):
     return json.loads(capsys.readouterr().out)
 
 
+@pytest.mark.slow  # measured 1.3-6.3 s of CPU
 def test_default_summarises_every_energy_series(files, capsys):
     import emcee
 
@@ -133,6 +134,7 @@ def test_spectrum_of_analytic_oscillators(tmp_path, capsys):
     assert "Nyquist limit" in text and "highest significant peak" in text and "THz" in text
 
 
+@pytest.mark.slow  # measured 1.3-6.3 s of CPU
 def test_replicas_rhat(files, capsys):
     main(["memory", str(files["run"]), "--series", "potential_energy", "--replica", str(files["same"]), "--json"])
     same = _json(capsys)["series"][0]["rhat_replicas"]
@@ -144,6 +146,7 @@ def test_replicas_rhat(files, capsys):
     assert shifted["rhat"] > 1.1  # one replica offset by 3 (about 1.3 sigma): flagged as a problem
 
 
+@pytest.mark.slow  # measured 1.3-6.3 s of CPU
 def test_coordinate_and_groups(files, capsys):
     rc = main(["memory", str(files["run"]), "-c", "x(0)", "--stop", "5000", "--json"])
     out = _json(capsys)

@@ -98,6 +98,7 @@ def test_each_run_keeps_its_own_coordinate(qtbot):
     assert m.coordinate == "x(0)"
 
 
+@pytest.mark.slow  # measured ~1 s of CPU
 def test_a_one_atom_run_beside_the_dimer_breaks_nothing(qtbot, tmp_path):
     w = _window(qtbot, tmp_path)
     w.add_run(_run(2, name="dimer"))
@@ -178,6 +179,7 @@ def test_coordinate_builder_guesses_elements_from_masses(qtbot):
 
 # ---- 7. run settings reach the analyses -----------------------------------------------------------
 
+@pytest.mark.slow  # measured ~1 s of CPU
 def test_settings_form_reaches_the_run_and_can_be_undone(qtbot, tmp_path):
     w = _window(qtbot, tmp_path)
     w.add_run(_run(2, name="stated later", metadata=RunMetadata(ensemble=None)))

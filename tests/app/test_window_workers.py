@@ -111,6 +111,7 @@ def test_cancelled_job_is_deleted_once_it_ends(qapp, qtbot, runner):
     assert len(outcomes) == 1  # the cancelled job's own late outcome is not reported again
 
 
+@pytest.mark.slow  # measured 1.8 s of CPU
 def test_many_exports_and_a_report_in_a_busy_window(qapp, qtbot, tmp_path, monkeypatch):
     """Figure exports and a report as jobs of the window, started while others still run."""
     import numpy as np

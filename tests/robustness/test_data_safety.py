@@ -28,6 +28,8 @@ from phasewake.app.cli import main
 from phasewake.core.store.atomic import STALE_AFTER_S, temp_name
 from phasewake.core.store.cache import ENTRY_SUFFIX, MARK_NAME, ResultCache, take_notices
 
+pytestmark = pytest.mark.slow  # real command runs, full disks and signals: 49 s of CPU in all
+
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 NVE = SAMPLES / "dimer_nve.h5md"
 LANGEVIN = SAMPLES / "dimer_langevin.h5md"

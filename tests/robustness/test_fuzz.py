@@ -19,6 +19,8 @@ from hypothesis import strategies as st
 
 from phasewake.core.errors import PhasewakeError
 
+pytestmark = pytest.mark.slow  # 150 hypothesis examples per property: 15 s of CPU in all (make fuzz for more)
+
 LONG = os.environ.get("PHASEWAKE_FUZZ") == "long"
 BUDGET = settings(max_examples=3000 if LONG else 150, deadline=None, derandomize=not LONG,
                   suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
