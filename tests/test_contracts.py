@@ -13,6 +13,7 @@ entry per line, so whoever fixes one deletes that line alone.
 from __future__ import annotations
 
 import ast
+import functools
 import subprocess
 import sys
 import textwrap
@@ -93,6 +94,7 @@ def _imported_names(tree: ast.AST, module: str, is_package: bool) -> Iterator[st
             yield from (f"{base}.{alias.name}" for alias in node.names)
 
 
+@functools.lru_cache(maxsize=1)  # read once per session (three tests judge it; none changes it)
 def _import_graph() -> dict[str, set[str]]:
     """Module -> the modules of ours it imports (names without the leading "phasewake.")."""
     sources = _sources()
