@@ -106,6 +106,7 @@ def test_committed_files_match_the_manifest():
     assert sum(info["bytes"] for info in files.values()) <= 8 * 1024**2
 
 
+@pytest.mark.slow  # measured 0.8 s of CPU
 def test_a_reduced_generation_is_bitwise_deterministic(tmp_path):
     # Fixed seeds, plain numpy arithmetic, HDF5 without timestamps, DCD/PDB dates removed: two runs of the
     # generator give the same bytes. A reduced plan keeps this to a few seconds.
@@ -300,6 +301,7 @@ def test_dcd_pdb_csv_repeat_the_nve_run():
         assert np.allclose(table[:, col], run["obs"][key][0], atol=1e-5), key
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_the_project_reader_opens_every_sample():
     # integration: phasewake's own reader layer sees what the files say
     from phasewake.core.readers import open_run

@@ -57,6 +57,7 @@ def _table(t, **cols):
                                for name, (v, unit, role) in cols.items()})
 
 
+@pytest.mark.slow  # measured 0.6 s of CPU
 def test_langevin_run_without_ensemble_gets_no_conservation_problem(langevin_traps):
     r = langevin_traps
     # the files hold K, U and their total but say nothing of a thermostat or a bath

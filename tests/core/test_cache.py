@@ -6,6 +6,7 @@ import sys
 import textwrap
 
 import numpy as np
+import pytest
 
 from phasewake.app.cli import main
 from phasewake.core.store.cache import ENTRY_SUFFIX, ResultCache, make_key, take_notices
@@ -59,6 +60,7 @@ def test_disabled_by_environment(tmp_path, monkeypatch):
     assert cache.get("b" * 32) is None
 
 
+@pytest.mark.slow  # measured 0.9 s of CPU
 def test_two_writers_same_key(tmp_path):
     # Two processes write the same entry at once; readers always see a complete file.
     folder = tmp_path / "cache"

@@ -176,6 +176,7 @@ def _entries(cache_dir):
     return sorted(cache_dir.glob("*.pwcache")) if cache_dir.exists() else []
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, cache_dir):
     from phasewake.core.analyses.audit import audit_run
     from phasewake.core.store.cached import cached_audit
@@ -251,6 +252,7 @@ def test_window_runs_key_on_their_frame_range(tmp_path, cache_dir):
     _same(again, b)
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_compare_run_joins_the_key_and_in_memory_settings_are_not_cached(tmp_path, cache_dir):
     from phasewake.core.store.cached import cached_audit
 

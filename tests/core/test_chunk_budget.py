@@ -102,6 +102,7 @@ def test_analyses_do_not_depend_on_the_chunking():
     np.testing.assert_allclose(v1.vacf, v0.vacf, rtol=1e-9, atol=1e-15)
 
 
+@pytest.mark.slow  # measured 1.5 s of CPU
 def test_command_line_chunk_option(tmp_path):
     bad = subprocess.run([sys.executable, "-m", "phasewake.app.cli", "describe", str(SAMPLE), "--chunk-mb", "0"],
                          capture_output=True, text=True)

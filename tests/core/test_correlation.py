@@ -73,6 +73,7 @@ def test_g_at_least_one_for_anticorrelated_series():
 
 # --- reference libraries ---
 
+@pytest.mark.slow  # measured 1.2 s of CPU
 def test_acf_matches_statsmodels_biased_and_unbiased():
     from statsmodels.tsa.stattools import acf
 
@@ -160,6 +161,7 @@ def test_blocking_of_white_noise_stops_early():
 
 # --- Chodera 2016 equilibration detection ---
 
+@pytest.mark.slow  # measured 0.9 s of CPU
 def test_equilibration_after_transient():
     n = 100_000
     x = ar1(0.9, n, seed=17) + 5.0 * np.exp(-np.arange(n) / 200.0)
@@ -290,6 +292,7 @@ def test_oscillating_bond_plus_slow_environment_sokal_closes_early_auto_uses_gey
     assert v is not None and v.level == "caution" and "largest" in v.message
 
 
+@pytest.mark.slow  # measured 0.6 s of CPU
 def test_damped_oscillator_auto_is_never_below_the_analytic_g():
     # a pure damped oscillator: g from its analytic ACF; the automatic choice may be conservative, never low
     n, omega, gamma = 100_000, 2 * np.pi / 9, 0.6

@@ -302,6 +302,7 @@ def test_audit_nve_traps_against_analytic_values():
     assert by_kind["energy.drift"].level == "ok"
 
 
+@pytest.mark.slow  # measured 0.6 s of CPU
 def test_audit_langevin_traps_conserved_quantity_and_canonical_checks():
     from phasewake.core.analyses.audit import audit_run
 

@@ -57,6 +57,7 @@ def input_file(tmp_path):
 
 
 @pytest.mark.parametrize("preset", ["slide", "single", "double"])
+@pytest.mark.slow  # measured 1.3 s of CPU
 def test_png_has_requested_pixel_size_and_dpi(tmp_path, preset):
     from PIL import Image as PILImage  # Pillow reads the PNG header and pHYs chunk (reference)
 
@@ -98,6 +99,7 @@ def test_svg_parses_keeps_text_and_provenance(tmp_path, input_file):
     assert meta["settings"] == {"coordinate": "distance(0, 1)"}
 
 
+@pytest.mark.slow  # measured 1.9 s of CPU
 def test_pdf_page_size_text_and_provenance(tmp_path, input_file):
     from pypdf import PdfReader  # reference PDF parser
 
@@ -117,6 +119,7 @@ def test_pdf_page_size_text_and_provenance(tmp_path, input_file):
     assert __version__ in reader.metadata["/Creator"]
 
 
+@pytest.mark.slow  # measured 1.7 s of CPU
 def test_vector_exports_are_reproducible(tmp_path):
     spec = _spec(100, marks=False)
     for fmt in ("pdf", "svg"):
@@ -151,6 +154,7 @@ def test_drawn_data_ranges_match_spec(n):
         assert vy[0] <= y0 + 1e-9 and vy[1] >= y1 - 1e-9
 
 
+@pytest.mark.slow  # measured 1.1 s of CPU
 def test_long_series_stays_small_in_vector_files(tmp_path):
     spec = _spec(400_000, marks=False)
     res = export_figure(spec, tmp_path / "long.pdf")
@@ -176,6 +180,7 @@ def test_csv_holds_the_data_with_units(tmp_path):
     assert any(r["kind"] == "mark:vline" and float(r["x"]) == 20.0 for r in rows)
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_atomic_write_keeps_previous_file_on_failure(tmp_path):
     target = tmp_path / "fig.png"
     export_figure(_spec(100), target, dpi=50)

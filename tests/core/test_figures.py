@@ -182,6 +182,7 @@ def test_energy_figure_holds_the_table_data(results):
     np.testing.assert_allclose(bottom.items[0].y, pot - pot.mean(), rtol=0, atol=1e-12)
 
 
+@pytest.mark.slow  # measured 1.7 s of CPU
 def test_matplotlib_draws_the_spec_data_ranges(results):
     # the exported figure shows the same data ranges as the description (what the window shows too)
     for spec in _all_specs(results):

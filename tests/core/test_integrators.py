@@ -58,6 +58,7 @@ def test_velocity_verlet_energy_error_is_second_order():
     assert stds[0] / stds[1] == pytest.approx(4.0, rel=0.01)
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_baoab_harmonic_equipartition():
     # Equipartition (Gibbs 1902): <x^2> = kT/k and <v^2> = kT/m per component. Independent walkers started
     # at rest relax for 15 ps at gamma = 2/ps (the second moments relax at rate gamma: e^-30 of the start
@@ -104,6 +105,7 @@ def _anharmonic(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return -(x + x**3), np.sum(0.5 * x**2 + 0.25 * x**4, axis=(-2, -1))
 
 
+@pytest.mark.slow  # measured 0.8 s of CPU
 def test_baoab_bath_heat_makes_the_conserved_quantity_flat():
     # Bookkeeping of Sivak, Chodera and Crooks (Phys. Rev. X 3, 011007 (2013), from memory) and of the
     # "effective energy" of Bussi, Donadio and Parrinello (J. Chem. Phys. 126, 014101 (2007)): total energy

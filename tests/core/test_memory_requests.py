@@ -47,6 +47,7 @@ def _run_with_column(values: np.ndarray, *, positions: np.ndarray | None = None,
                            metadata=RunMetadata(temperature_K=temperature_K))
 
 
+@pytest.mark.slow  # measured 7.2 s of CPU
 def test_correlation_request_reads_a_column_by_role_and_finds_the_ar1_g():
     phi = 0.6
     run = _run_with_column(_ar1(phi, 200_000, seed=4))

@@ -205,6 +205,7 @@ def test_velocity_only_pass_does_not_ask_for_positions():
     np.testing.assert_array_equal(seen[0]["atom_indices"], [1, 3])
 
 
+@pytest.mark.slow  # measured 0.8 s of CPU
 def test_dask_blocks_drive_the_same_consumer():
     """The chunk reduction over dask.array blocks gives the same VACF (DEVELOPERS.md, Scaling out)."""
     da = pytest.importorskip("dask.array", reason="dask is not installed")

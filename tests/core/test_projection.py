@@ -45,6 +45,7 @@ def test_exact_pca_matches_scikit_learn():
     assert res.eigenvalue_unit == "amu nm^2" and res.projection_unit == "nm amu^1/2"
 
 
+@pytest.mark.slow  # measured 1.4 s of CPU
 def test_streaming_equals_in_memory():
     pos, m = _correlated(n=3001)
     # the chunking itself changes nothing (all in float64)
@@ -162,6 +163,7 @@ def test_cosine_content_verdict():
     assert cosine_content_verdict(pca_arrays(still, np.ones(20), fit=False, n_components=2)).level == "ok"
 
 
+@pytest.mark.slow  # measured 0.8 s of CPU
 def test_many_coordinates_lanczos_route_matches_numpy():
     """d = 600 >= 500 with k = 5: the Lanczos (ARPACK) route against numpy's dense eigh."""
     pos, m = _correlated(n=1500, g=200, seed=12)

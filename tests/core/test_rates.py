@@ -56,6 +56,7 @@ def test_interval_coverage_by_simulation():
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.slow  # measured 0.6 s of CPU
 def test_exponential_ks_agrees_with_statsmodels_lilliefors(seed):
     from statsmodels.stats.diagnostic import lilliefors
 
@@ -84,6 +85,7 @@ def test_exponential_ks_too_few():
     assert t.n == 3 and math.isnan(t.p_value)
 
 
+@pytest.mark.slow  # measured 0.5 s of CPU
 def test_tst_rate_of_iid_boltzmann_samples_matches_quadrature():
     # Exact 1D TST for V = dE (x^2 - 1)^2, m = kT = 1 (Eyring 1935; Wigner 1938):
     # k_TST = (1/sqrt(2 pi)) exp(-V(0)) / int_{-inf}^0 exp(-V) dx, by scipy quadrature.

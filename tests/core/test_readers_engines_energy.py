@@ -708,6 +708,7 @@ _FUZZ = settings(max_examples=120, deadline=None, derandomize=True,
 @_FUZZ
 @given(st.lists(st.tuples(st.integers(0, 10**6), st.integers(0, 255)), min_size=1, max_size=6),
        st.integers(0, 10**6))
+@pytest.mark.slow  # measured 1.1 s of CPU
 def test_fuzz_damaged_edr(tmp_path, flips, cut):
     src = DATA.parent / "engines_energy" / "gromacs_nsum_double" / "md.edr"
     data = bytearray(src.read_bytes())
@@ -727,6 +728,7 @@ def test_fuzz_damaged_edr(tmp_path, flips, cut):
 @given(st.lists(st.tuples(st.integers(0, 10**5), st.sampled_from(["\n", " ", "x", "1", "-", "Step ", "Loop time of ",
                                                                  "units lj\n", "e+", "SHAKE stats", "\n\n"])),
                 min_size=1, max_size=6))
+@pytest.mark.slow  # measured 1.0 s of CPU
 def test_fuzz_damaged_lammps_log(tmp_path, edits):
     text = (DATA / "lammps" / "argon_real_two_runs" / "log.lammps").read_text()
     for pos, piece in edits:

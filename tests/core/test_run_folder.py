@@ -102,6 +102,7 @@ def test_empty_folder_is_one_line(tmp_path, capsys):
     assert code == 2 and "no file of a run" in err and err.count("\n") == 1
 
 
+@pytest.mark.slow  # measured 0.9 s of CPU
 def test_window_opens_a_dropped_folder(tmp_path):
     # The window's drop and open route (group_runs, then the default opener) takes a folder as one run,
     # and several folders as one run each.

@@ -92,6 +92,7 @@ def test_streaming_run_adapter_matches_kernel():
 
 # --- Langevin free particle: VACF = (kT/m) exp(-gamma t) per component, D = kT/(m gamma) (Einstein) ---
 
+@pytest.mark.slow  # measured 1.1 s of CPU
 def test_langevin_vacf_is_exponential(ou):
     r = V.vacf_from_velocities(ou["v"].astype(np.float32), ou["dt"], max_lag=400)
     t = r.lag_ps[:20]  # up to ~3/gamma
@@ -112,6 +113,7 @@ def test_green_kubo_diffusion_of_langevin_particle(ou):
     assert auto.diffusion_cm2_per_s == pytest.approx(auto.diffusion_nm2_per_ps * 1e-2)
 
 
+@pytest.mark.slow  # measured 0.8 s of CPU
 def test_msd_diffusion_of_langevin_particle(ou):
     d_exact = ou["kT"] / (ou["m"] * ou["gamma"])
     r = V.msd_from_positions(ou["x"], ou["dt"], max_lag=200)

@@ -46,6 +46,7 @@ def test_decay_frames_of_an_exponential():
     assert V.decay_frames(c) == pytest.approx(6.0, abs=0.05)
 
 
+@pytest.mark.slow  # measured 0.6 s of CPU
 def test_langevin_fine_frames_green_kubo_and_msd_agree_with_error_bars():
     # spacing 0.01 ps, gamma 3/ps: the VACF falls to 1/e in 33 frames; D = kT/(m gamma) (Einstein relation)
     run, d_exact = _langevin_run(spacing_ps=0.01, n_frames=8000)
