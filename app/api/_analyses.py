@@ -196,16 +196,16 @@ def coordinates(run: Run, specs: str | Sequence[str], *, momentum: bool = False,
     ('nm', 'amu nm/ps', (1600,))
     >>> fig = q.figure("phase.portrait")
     """
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
     from phasewake.core.errors import InputError, MissingDataError
-    from phasewake.core.store.cached import cached_coordinates
 
     run = _run_of(run, "pw.coordinates")
     one = isinstance(specs, str)
     spec_list = [specs] if isinstance(specs, str) else [str(s) for s in specs]
     if not spec_list:
         raise InputError("pw.coordinates: no coordinate given")
-    series: list[CoordinateSeries] = _drive(
-        cached_coordinates(run, spec_list, start=start, stop=stop, cache=_cache(cache)), progress)
+    request = CoordinatesRequest.for_run(run, spec_list, start=start, stop=stop)
+    series: list[CoordinateSeries] = _drive(_requested(run, request, cache), progress)
     if momentum:
         for s in series:
             if s.momentum is None:
