@@ -30,6 +30,7 @@ from phasewake.core.analyses.ergodicity import judge_tm as judge_tm
 from phasewake.core.analyses.ergodicity import thirumalai_mountain as thirumalai_mountain
 from phasewake.core.analyses.ergodicity import thirumalai_mountain_kinetic as thirumalai_mountain_kinetic
 from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work
 
@@ -518,7 +519,7 @@ def coverage_over_time(x: Any, y: Any, *, dt_ps: float = 1.0, bins: int = 50,
 
 
 @dataclass(frozen=True)
-class SamplingReport:
+class SamplingReport(ResultMixin):
     """What :class:`SamplingRequest` finds for one series (None where the series is too short for it)."""
 
     name: str

@@ -170,6 +170,8 @@ def test_memory_of_a_coordinate_equals_the_command_line(capsys, cache_dir):
     assert bare.statistical_inefficiency == pytest.approx(report.correlation.statistical_inefficiency, rel=1e-9)
     sampling = pw.sampling(run, coordinate="distance(0, 1)")
     assert sampling.rhat_segments.rhat == pytest.approx(row["rhat_segments"]["rhat"], rel=1e-12)
+    json.dumps(report.to_dict(), allow_nan=False)
+    assert sampling.to_dict()["rhat_segments"]["rhat"] == pytest.approx(row["rhat_segments"]["rhat"], rel=1e-12)
 
 
 def test_correlation_needs_one_series_and_an_arrays_spacing():

@@ -26,6 +26,7 @@ from phasewake.core.analyses.correlation.series import (
     judge_estimators,
 )
 from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Progress, Work
 
@@ -103,7 +104,7 @@ def read_series(run: Run, *, series: str = "", coordinate: str = "", start: int 
 
 
 @dataclass(frozen=True)
-class CorrelationReport:
+class CorrelationReport(ResultMixin):
     """What :class:`CorrelationRequest` finds for one series."""
 
     name: str
