@@ -187,6 +187,17 @@ class ChunkedFrames:
     ) -> Iterator[FrameChunk]:
         raise NotImplementedError
 
+    def describe_as(self, inner: FrameSource, n_frames: int) -> None:
+        """Say of this source's frames what ``inner`` says of its own (for a source wrapping another): atoms,
+        velocities, box and the precision of the positions; the wrapper then sets what it changes."""
+        self.n_frames = int(n_frames)
+        self.n_atoms = inner.n_atoms
+        self.has_velocities = inner.has_velocities
+        self.velocities_estimated = inner.velocities_estimated
+        self.has_box = inner.has_box
+        self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
+        self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
+
     def frame_indices(self, start: int, stop: int | None, stride: int) -> np.ndarray:
         """The run frames ``iter_chunks(start=, stop=, stride=)`` yields: ``stop`` clamped to the run."""
         stop = self.n_frames if stop is None else min(stop, self.n_frames)
@@ -281,11 +292,7 @@ class WindowFrames(ChunkedFrames):
             offset, stop, base = base.offset + int(offset), base.offset + int(stop), base.base
         self.base = base
         self.offset = int(offset)
-        self.n_frames = int(stop) - int(offset)
-        self.n_atoms = base.n_atoms
-        self.has_velocities = base.has_velocities
-        self.velocities_estimated = base.velocities_estimated
-        self.has_box = base.has_box
+        self.describe_as(base, int(stop) - int(offset))
 
     def iter_chunks(
         self,

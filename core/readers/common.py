@@ -336,13 +336,7 @@ class KeptFrames(ChunkedFrames):
     def __init__(self, inner: FrameSource, keep: np.ndarray) -> None:
         self.inner = inner
         self.keep = np.asarray(keep, dtype=np.int64)
-        self.n_frames = int(self.keep.size)
-        self.n_atoms = inner.n_atoms
-        self.has_velocities = inner.has_velocities
-        self.velocities_estimated = inner.velocities_estimated
-        self.has_box = inner.has_box
-        if hasattr(inner, "positions_lossy"):
-            self.positions_lossy = inner.positions_lossy
+        self.describe_as(inner, int(self.keep.size))
 
     def iter_chunks(
         self,
@@ -436,13 +430,9 @@ class EstimatedVelocityFrames(ChunkedFrames):
     def __init__(self, inner: FrameSource, time_ps: np.ndarray) -> None:
         self.inner = inner
         self.time_ps = np.asarray(time_ps, dtype=np.float64)
-        self.n_frames = inner.n_frames
-        self.n_atoms = inner.n_atoms
+        self.describe_as(inner, inner.n_frames)
         self.has_velocities = inner.n_frames >= 2
         self.velocities_estimated = True
-        self.has_box = inner.has_box
-        self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
-        self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
 
     @staticmethod
     def _step(a: np.ndarray, b: np.ndarray, box: np.ndarray | None) -> np.ndarray:

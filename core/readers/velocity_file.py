@@ -73,14 +73,10 @@ class VelocityFileFrames(ChunkedFrames):
                                         f"{inner.n_frames}: they cannot be paired", path=path)
         self.inner = inner
         self.path = path
-        self.n_frames = inner.n_frames
-        self.n_atoms = inner.n_atoms
-        self.has_box = inner.has_box
+        self.describe_as(inner, inner.n_frames)
         self.has_velocities = True
         self.velocities_estimated = False
         self.first_step, self.step_interval = istart, nsavc
-        self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
-        self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
 
     def retime(self, time_ps: np.ndarray) -> None:
         retime = getattr(self.inner, "retime", None)
