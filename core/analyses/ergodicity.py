@@ -164,7 +164,7 @@ def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.nd
     dt = float(np.median(np.diff(t)))
     from phasewake.core.model.framepass import run_one
 
-    consumer = KineticEnergySeries(run, idx)
+    consumer = KineticEnergySeries(run, idx, start=start)
     acc = yield from run_one(run, consumer, label="Thirumalai-Mountain metric", start=start, stop=stop,
                              stride=stride, chunk_frames=chunk_frames)
     return acc.finish(dt_ps=dt, fit_range_ps=fit_range_ps, unit="kJ/mol", quantity="kinetic energy per atom",
@@ -173,34 +173,66 @@ def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.nd
 
 class KineticEnergySeries:
     """Per-atom kinetic energies 1/2 m v^2 (kJ/mol) of every frame fed into a :class:`TMAccumulator`: the
-    frame consumer (``core/model/framepass.py``) of :func:`thirumalai_mountain_kinetic`. No ``merge``: the
-    running time averages of a later range need this range's sums per atom and frame, so the pass stays in
-    one process."""
+    frame consumer (``core/model/framepass.py``) of :func:`thirumalai_mountain_kinetic`, whose pass starts at
+    frame ``start``.
+
+    ``merge(later)`` folds in a consumer fed the frames right after this one's. The running time averages of
+    a later range need the sums per atom of every frame before it, which that range's worker does not have:
+    a part fed frames after ``start`` therefore holds its per-atom energies (frames x atoms, float64) and
+    the part from ``start`` feeds them to its accumulator when it merges them, chunk by chunk in frame order,
+    as the serial pass does.
+    """
 
     needs_positions = False
     needs_velocities = True
 
-    def __init__(self, run: Run, atoms: np.ndarray) -> None:
+    def __init__(self, run: Run, atoms: np.ndarray, *, start: int = 0) -> None:
         self.path = run.paths[0] if run.paths else None
         self.want = np.asarray(atoms, dtype=np.int64)
         self.atoms: np.ndarray | None = np.unique(self.want)
         self.masses = np.asarray(run.masses_amu, float)[self.want]
         self._local = self.want
         self.acc = TMAccumulator()
+        self.first = int(start)
+        self._range = (self.first, self.first)
+        self._held: list[np.ndarray] | None = None  # a later part's per-atom energies, fed in at the merge
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
         from phasewake.core.model.framepass import local_columns
 
         self._local = local_columns(columns, self.want)
+        self._range = (int(start), int(stop))
+        self._held = [] if start > self.first else None
 
     def update(self, chunk: Any) -> None:
         v = chunk.velocities_nm_per_ps
         if v is None:
             raise MissingDataError("the frames came without velocities", path=self.path)
         v = np.asarray(v, dtype=np.float64)[:, self._local]
-        self.acc.update(0.5 * self.masses[None, :] * np.einsum("fnc,fnc->fn", v, v))
+        energies = 0.5 * self.masses[None, :] * np.einsum("fnc,fnc->fn", v, v)
+        if self._held is not None:
+            self._held.append(energies)
+        else:
+            self.acc.update(energies)
+
+    def merge(self, later: KineticEnergySeries) -> None:
+        from phasewake.core.model.framepass import check_next
+
+        check_next(self._range, later._range, "Thirumalai-Mountain metric")
+        if later._held is None:
+            raise AnalysisError(f"Thirumalai-Mountain metric: the part from frame {later._range[0]} is the first "
+                                "of the pass and cannot be merged into another")
+        if self._held is not None:
+            self._held.extend(later._held)
+        else:
+            for energies in later._held:
+                self.acc.update(energies)
+        self._range = (self._range[0], later._range[1])
 
     def finish(self) -> TMAccumulator:
+        if self._held is not None:
+            raise AnalysisError(f"Thirumalai-Mountain metric: the frames from {self._range[0]} were not merged "
+                                f"into the part from frame {self.first}")
         return self.acc
 
 

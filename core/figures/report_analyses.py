@@ -294,10 +294,7 @@ def as_series_1d(series: Any) -> Series1D:
     """A coordinate series as the memory requests read one (``correlation.request.read_series``)."""
     from phasewake.core.analyses.correlation.request import Series1D
 
-    return Series1D(name=series.label, unit=series.unit, kind="coordinate", source=series.spec,
-                    time_ps=np.asarray(series.time_ps, float), values=np.asarray(series.values, float),
-                    momentum=None if series.momentum is None else np.asarray(series.momentum, float),
-                    momentum_unit=series.momentum_unit, periodic=bool(series.periodic))
+    return Series1D.of_coordinate(series)
 
 
 def correlation_step(run: Run, spec: str | None, series: Any, cache: ResultCache | None) -> Work[tuple[Any, ...]]:

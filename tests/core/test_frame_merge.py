@@ -230,3 +230,41 @@ def test_msd_merge_equals_the_serial_pass_across_box_crossings(cuts, chunk):
     got = split_and_merge(run, lambda: MSDConsumer(run, **kw), cuts, chunk_frames=chunk)
     assert got.n_frames == serial.n_frames
     _equal(got, serial, rtol=1e-9, atol=1e-12)
+
+
+@pytest.mark.parametrize("start,cuts,chunk", [(0, [1], 7), (0, [120], 64), (30, [31, 100, 101, 200], 9)])
+def test_thirumalai_mountain_merge_equals_the_serial_pass(start, cuts, chunk):
+    # the later parts hold their per-atom energies and the first part feeds them to its running averages at
+    # the merge: counts and time axis exact, Omega and the fits to 1e-12 relative (cumulative sums over
+    # chunks cut elsewhere round the last bits)
+    from phasewake.core.analyses.ergodicity import KineticEnergySeries
+
+    run = _synthetic()
+    atoms = np.arange(1, 9)
+    serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms, start=start)}, start=start,
+                            chunk_frames=19))["tm"]
+    got = split_and_merge(run, lambda: KineticEnergySeries(run, atoms, start=start), cuts, start=start,
+                          chunk_frames=chunk)
+    assert got._count == serial._count == run.n_frames - start
+    kw = {"dt_ps": 0.01, "unit": "kJ/mol", "n_particles": atoms.size}
+    a, b = got.finish(**kw), serial.finish(**kw)
+    np.testing.assert_array_equal(a.time_ps, b.time_ps)
+    for name in ("omega", "ratio", "omega0", "d_per_ps", "late_slope"):
+        np.testing.assert_allclose(getattr(a, name), getattr(b, name), rtol=1e-12, err_msg=name)
+    assert (a.plateau, a.fit_range_ps, a.n_particles, a.settings) == (b.plateau, b.fit_range_ps, b.n_particles,
+                                                                      b.settings)
+
+
+def test_thirumalai_mountain_part_left_unmerged_is_refused():
+    from phasewake.core.analyses.ergodicity import KineticEnergySeries
+
+    run = _synthetic()
+    a, b = KineticEnergySeries(run, np.arange(4)), KineticEnergySeries(run, np.arange(4))
+    own = KineticEnergySeries(run, np.arange(4), start=100)  # a pass of its own from frame 100
+    for c, (lo, hi) in ((a, (0, 100)), (b, (100, 240)), (own, (100, 240))):
+        for _ in feed(run, {"c": c}, start=lo, stop=hi):
+            pass
+    with pytest.raises(AnalysisError, match="not merged"):
+        b.finish()
+    with pytest.raises(AnalysisError, match="first of the pass"):
+        a.merge(own)

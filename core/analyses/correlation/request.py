@@ -8,7 +8,7 @@ A series is an energy-table column (``series``: its name or role, e.g. ``"potent
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
@@ -47,6 +47,15 @@ class Series1D:
     momentum: np.ndarray | None = None  # m_eff dq/dt of a coordinate, in momentum_unit
     momentum_unit: str = ""
     periodic: bool = False
+
+    @classmethod
+    def of_coordinate(cls, c: Any) -> Series1D:
+        """The samples of a coordinate series (a ``coordinates.CoordinateSeries``: label, unit, spec, times,
+        values, optional momentum): the one builder of a coordinate's Series1D, for requests and the report."""
+        return cls(name=c.label, unit=c.unit, kind="coordinate", source=c.spec,
+                   time_ps=np.asarray(c.time_ps, float), values=np.asarray(c.values, float),
+                   momentum=None if c.momentum is None else np.asarray(c.momentum, float),
+                   momentum_unit=c.momentum_unit, periodic=bool(c.periodic))
 
 
 def find_energy_series(run: Run, name: str) -> Series:
@@ -96,11 +105,7 @@ def read_series(run: Run, *, series: str = "", coordinate: str = "", start: int 
     from phasewake.core.analyses.coordinates import compute_coordinates
 
     out = yield from compute_coordinates(run, [coordinate], start=start, stop=stop, chunk_frames=chunk_frames)
-    c = out[0]
-    return Series1D(name=c.label, unit=c.unit, kind="coordinate", source=c.spec,
-                    time_ps=np.asarray(c.time_ps, float), values=np.asarray(c.values, float),
-                    momentum=None if c.momentum is None else np.asarray(c.momentum, float),
-                    momentum_unit=c.momentum_unit, periodic=bool(c.periodic))
+    return Series1D.of_coordinate(out[0])
 
 
 @dataclass(frozen=True)
