@@ -25,6 +25,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -262,6 +263,36 @@ class _Recorder:
         self.heat[self.i] = q
         self.i += 1
 
+    def result(self, **settings: Any) -> IntegratedRun:
+        """The recorded frames as an :class:`IntegratedRun` with the integrator's ``settings``."""
+        return IntegratedRun(time_ps=self.step * settings["timestep_ps"], step=self.step, positions_nm=self.pos,
+                             velocities_nm_per_ps=self.vel, potential_kJ_per_mol=self.pot,
+                             kinetic_kJ_per_mol=self.kin, bath_heat_kJ_per_mol=self.heat, **settings)
+
+
+# one step: (x, v, f) -> (x, v, f, potential, heat the bath took in this step or None without a bath)
+_StepResult = tuple[np.ndarray, np.ndarray, np.ndarray, "np.ndarray | float", "np.ndarray | None"]
+
+
+def _integrate(x: np.ndarray, v: np.ndarray, m: np.ndarray, force_fn: ForceFunction,
+               step: Callable[[np.ndarray, np.ndarray, np.ndarray], _StepResult], *, n_steps: int,
+               record_every: int, label: str) -> Work[_Recorder]:
+    """The loop of every integrator: ``n_steps`` calls of ``step``, the start and every ``record_every``-th
+    state recorded with the cumulative bath heat, progress every ``_PROGRESS_EVERY_STEPS`` steps."""
+    f, u = force_fn(x)
+    rec = _Recorder(x, n_steps, record_every)
+    heat = np.zeros(x.shape[:-2])
+    rec.add(x, v, u, kinetic_energy(v, m), heat)
+    for i in range(1, n_steps + 1):
+        x, v, f, u, q = step(x, v, f)
+        if q is not None:
+            heat = heat + q
+        if i % record_every == 0 and rec.i < rec.pos.shape[0]:
+            rec.add(x, v, u, kinetic_energy(v, m), heat)
+        if i % _PROGRESS_EVERY_STEPS == 0:
+            yield Progress(i, n_steps, label)
+    return rec
+
 
 def run_velocity_verlet(
     positions_nm: np.ndarray,
@@ -292,21 +323,14 @@ def run_velocity_verlet(
     """
     x, v, m = _check_inputs(positions_nm, velocities_nm_per_ps, masses_amu, timestep_ps, n_steps, record_every)
     inv_m = (1.0 / m)[:, None]
-    f, u = force_fn(x)
-    rec = _Recorder(x, n_steps, record_every)
-    zero = np.zeros(x.shape[:-2])
-    rec.add(x, v, u, kinetic_energy(v, m), zero)
-    for step in range(1, n_steps + 1):
-        x, v, f, u = velocity_verlet_step(x, v, f, inv_masses=inv_m, force_fn=force_fn, timestep_ps=timestep_ps)
-        if step % record_every == 0 and rec.i < rec.pos.shape[0]:
-            rec.add(x, v, u, kinetic_energy(v, m), zero)
-        if step % _PROGRESS_EVERY_STEPS == 0:
-            yield Progress(step, n_steps, "velocity Verlet")
-    return IntegratedRun(
-        time_ps=rec.step * timestep_ps, step=rec.step, positions_nm=rec.pos, velocities_nm_per_ps=rec.vel,
-        potential_kJ_per_mol=rec.pot, kinetic_kJ_per_mol=rec.kin, bath_heat_kJ_per_mol=rec.heat,
-        integrator="velocity-verlet", timestep_ps=float(timestep_ps), record_every=record_every, n_steps=n_steps,
-    )
+
+    def step(x: np.ndarray, v: np.ndarray, f: np.ndarray) -> _StepResult:
+        return (*velocity_verlet_step(x, v, f, inv_masses=inv_m, force_fn=force_fn, timestep_ps=timestep_ps), None)
+
+    rec = yield from _integrate(x, v, m, force_fn, step, n_steps=n_steps, record_every=record_every,
+                                label="velocity Verlet")
+    return rec.result(integrator="velocity-verlet", timestep_ps=float(timestep_ps), record_every=record_every,
+                      n_steps=n_steps)
 
 
 def run_baoab(
@@ -326,19 +350,14 @@ def run_baoab(
 
     Parameters
     ----------
-    positions_nm, velocities_nm_per_ps : ndarray, shape (..., n_atoms, dim)
-        Start state (recorded as frame 0).
-    masses_amu : ndarray, shape (n_atoms,)
-    force_fn : ForceFunction
-    timestep_ps : float
-    n_steps : int
+    positions_nm, velocities_nm_per_ps, masses_amu, force_fn, timestep_ps, n_steps, record_every
+        As for :func:`run_velocity_verlet`.
     temperature_K : float
         Bath temperature.
     friction_per_ps : float
         Collision rate gamma (1/ps); applied to every atom.
     seed : int or numpy.random.Generator
         An int seeds a fresh PCG64 stream, so a run is reproducible from its settings.
-    record_every : int
 
     Returns
     -------
@@ -352,21 +371,12 @@ def run_baoab(
     m_col = m[:, None]
     inv_m = 1.0 / m_col
     c1, sigma = _ou_coefficients(m_col, timestep_ps, friction_per_ps, temperature_K)
-    f, u = force_fn(x)
-    rec = _Recorder(x, n_steps, record_every)
-    heat = np.zeros(x.shape[:-2])
-    rec.add(x, v, u, kinetic_energy(v, m), heat)
-    for step in range(1, n_steps + 1):
-        x, v, f, u, q = _baoab(x, v, f, m_col, inv_m, c1, sigma, force_fn, timestep_ps, rng)
-        heat = heat + q
-        if step % record_every == 0 and rec.i < rec.pos.shape[0]:
-            rec.add(x, v, u, kinetic_energy(v, m), heat)
-        if step % _PROGRESS_EVERY_STEPS == 0:
-            yield Progress(step, n_steps, "BAOAB Langevin")
-    return IntegratedRun(
-        time_ps=rec.step * timestep_ps, step=rec.step, positions_nm=rec.pos, velocities_nm_per_ps=rec.vel,
-        potential_kJ_per_mol=rec.pot, kinetic_kJ_per_mol=rec.kin, bath_heat_kJ_per_mol=rec.heat,
-        integrator="baoab", timestep_ps=float(timestep_ps), record_every=record_every, n_steps=n_steps,
-        temperature_K=float(temperature_K), friction_per_ps=float(friction_per_ps),
-        seed=None if isinstance(seed, np.random.Generator) else int(seed),
-    )
+
+    def step(x: np.ndarray, v: np.ndarray, f: np.ndarray) -> _StepResult:
+        return _baoab(x, v, f, m_col, inv_m, c1, sigma, force_fn, timestep_ps, rng)
+
+    rec = yield from _integrate(x, v, m, force_fn, step, n_steps=n_steps, record_every=record_every,
+                                label="BAOAB Langevin")
+    return rec.result(integrator="baoab", timestep_ps=float(timestep_ps), record_every=record_every,
+                      n_steps=n_steps, temperature_K=float(temperature_K), friction_per_ps=float(friction_per_ps),
+                      seed=None if isinstance(seed, np.random.Generator) else int(seed))
