@@ -104,15 +104,6 @@ def apply_parallel(args: argparse.Namespace) -> None:
         cluster.set_scheduler(address)
 
 
-def run_files(args: argparse.Namespace, files: Any = None):  # -> parallel.RunFiles
-    """How worker processes open the run(s) of these arguments again (files, --top and the options)."""
-    from phasewake.core.model.parallel import RunFiles
-
-    paths = args.files if files is None else files
-    return RunFiles(paths=tuple(str(p) for p in paths), topology=None if args.top is None else str(args.top),
-                    options=run_overrides(args))
-
-
 def apply_chunk_budget(args: argparse.Namespace) -> None:
     """Use ``--chunk-mb`` for every frame read in this process (no-op when not given)."""
     from phasewake.core.model.run import set_chunk_budget_mb
@@ -209,26 +200,21 @@ def _check_folder_writable(folder: Path, option: str, target: Path, what: str = 
 
 
 def run_overrides(args: argparse.Namespace) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    if getattr(args, "timestep", None) is not None:
-        out["timestep_ps"] = args.timestep * 1e-3
-    if getattr(args, "constraints", None) is not None:
-        out["n_constraints"] = args.constraints
-    if getattr(args, "temperature", None) is not None:
-        out["temperature_K"] = args.temperature
-    if getattr(args, "ensemble", None) is not None:
-        out["ensemble"] = args.ensemble.upper()
-    if getattr(args, "velocities", None) is not None:
-        out["velocities"] = args.velocities  # a file (open_run's own keyword, not metadata)
-    out.update(reader_options(args))
-    return out
+    """``open_run`` keywords of the run options (``phasewake.core.readers.stated.stated_options``)."""
+    from phasewake.core.readers.stated import stated_options
+
+    return stated_options(timestep_fs=getattr(args, "timestep", None), n_constraints=getattr(args, "constraints", None),
+                          temperature_K=getattr(args, "temperature", None), ensemble=getattr(args, "ensemble", None),
+                          velocities=getattr(args, "velocities", None), **reader_options(args))
 
 
 def reader_options(args: argparse.Namespace) -> dict[str, Any]:
     """How to read the files (open_run keywords): ``--column`` roles and the ``--units`` LAMMPS style,
     for every reader of every run a verb opens."""
+    from phasewake.core.readers.stated import column_roles
+
     out: dict[str, Any] = {}
-    roles = column_roles_from_args(args)
+    roles = column_roles(getattr(args, "column", None), option="--column")
     if roles:
         out["column_roles"] = roles
     if getattr(args, "units", None) is not None:
@@ -236,33 +222,12 @@ def reader_options(args: argparse.Namespace) -> dict[str, Any]:
     return out
 
 
-def column_roles_from_args(args: argparse.Namespace) -> dict[str, str] | None:
-    """``--column NAME=ROLE`` options as a mapping; InputError for a malformed one or an unknown role."""
-    from phasewake.core.errors import InputError
-    from phasewake.core.model.run import ENERGY_ROLES
-
-    items = getattr(args, "column", None)
-    if not items:
-        return None
-    roles: dict[str, str] = {}
-    for item in items:
-        name, sep, role = item.rpartition("=")
-        name, role = name.strip(), role.strip().lower()
-        if not sep or not name or role not in ENERGY_ROLES:
-            raise InputError(f"--column {item!r}: expected NAME=ROLE with ROLE one of {', '.join(ENERGY_ROLES)}")
-        roles[name] = role
-    return roles
-
-
 def open_run_from_args(args: argparse.Namespace):  # -> Run
-    from phasewake.core.model.parallel import remember_files
-    from phasewake.core.readers import open_run
+    from phasewake.core.readers.stated import open_stated
 
     apply_chunk_budget(args)
     apply_parallel(args)
-    with quiet_stdout():
-        run = open_run(args.files, topology=args.top, **run_overrides(args))
-    return remember_files(run, run_files(args))
+    return open_stated(args.files, topology=args.top, options=run_overrides(args))
 
 
 @contextlib.contextmanager

@@ -77,9 +77,9 @@ def _atoms(run: Run, atoms: Atoms | None, what: str) -> np.ndarray | None:
     if atoms is None:
         return None
     if isinstance(atoms, str):
-        from phasewake.app.commands.coords import _pca_group
+        from phasewake.core.analyses.coordinates import resolve_group
 
-        return _pca_group(atoms, run)
+        return resolve_group(atoms, run, option=what)
     idx = np.asarray(atoms)
     if idx.ndim != 1 or idx.size == 0 or idx.dtype.kind not in "iu":
         raise InputError(f"{what}: expected atom indices (a non-empty list of whole numbers) or a group text")
@@ -619,7 +619,8 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     >>> done.path.name, done.n_pages > 1
     ('langevin.pdf', True)
     """
-    from phasewake.app.commands.report import _check_explicit
+    from phasewake.core.analyses.coordinates import stated_coordinate
+    from phasewake.core.analyses.crossings.states import stated_states
     from phasewake.core.errors import InputError
     from phasewake.core.figures.report import build_report
 
@@ -632,13 +633,9 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     for target in (out, html_path):
         if target is not None and target.resolve() in inputs:
             raise InputError("the report would overwrite one of the input files", path=target)
-    if states is not None:
-        states = (float(states[0]), float(states[1]))
-        if not states[0] < states[1]:
-            raise InputError(f"states={states}: core A (q <= {states[0]:g}) must lie below core B (q >= {states[1]:g})")
-    from argparse import Namespace
-
-    _check_explicit(Namespace(coordinate=coordinate, surface=surface), run, states)
+    states = stated_states(states, surface, option="states", surface_option="surface")
+    if coordinate is not None:
+        stated_coordinate(coordinate, run, option="coordinate")
     stated = _stated(run)
     work = build_report(run, out, coordinate=coordinate, html_path=html_path, temperature_K=stated["temperature_K"],
                         n_constraints=stated["n_constraints"], timestep_ps=stated["timestep_ps"], states=states,

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import argparse
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -52,23 +51,14 @@ def sample_path(name: str = "dimer_nve.h5md") -> Path:
     return path
 
 
-def _column_items(columns: Mapping[str, str] | Sequence[str] | None) -> list[str] | None:
-    """``columns`` as the command line's ``NAME=ROLE`` items (a role the run model does not know is
-    refused here, with the keyword named)."""
-    from phasewake.core.errors import InputError
-    from phasewake.core.model.run import ENERGY_ROLES
+def _column_roles(columns: Mapping[str, str] | Sequence[str] | None) -> dict[str, str] | None:
+    """``columns`` (a mapping NAME -> ROLE, or ``NAME=ROLE`` items as on the command line) as roles."""
+    from phasewake.core.readers.stated import column_roles
 
-    if columns is None:
-        return None
     if isinstance(columns, str):
         columns = [columns]
-    items = [f"{k}={v}" for k, v in columns.items()] if isinstance(columns, Mapping) else list(columns)
-    for item in items:
-        _name, sep, role = str(item).rpartition("=")
-        if not sep or role.strip().lower() not in ENERGY_ROLES:
-            raise InputError(f"columns: {item!r}: expected NAME=ROLE (or {{NAME: ROLE}}) with ROLE one of "
-                             f"{', '.join(ENERGY_ROLES)}")
-    return items
+    items = [f"{k}={v}" for k, v in columns.items()] if isinstance(columns, Mapping) else columns
+    return column_roles(items, option="columns:")
 
 
 def open(  # pw.open: the name a notebook user expects (shadows the builtin only in this module)
@@ -137,8 +127,8 @@ def open(  # pw.open: the name a notebook user expects (shadows the builtin only
     >>> stated.metadata.timestep_ps, stated.metadata.sources["timestep_ps"]
     (0.002, 'user')
     """
-    from phasewake.app.common import open_run_from_args
     from phasewake.core.errors import InputError
+    from phasewake.core.readers.stated import open_stated, stated_options
 
     files: list[str] = []
     for p in paths:
@@ -148,15 +138,10 @@ def open(  # pw.open: the name a notebook user expects (shadows the builtin only
             files.extend(str(q) for q in p)
     if not files:
         raise InputError("pw.open: no files given")
-    if ensemble is not None and str(ensemble).lower() not in ("nve", "nvt", "npt"):
-        raise InputError(f"ensemble={ensemble!r}: expected 'nve', 'nvt' or 'npt'")
-    args = argparse.Namespace(
-        files=files, top=None if top is None else str(top), velocities=None if velocities is None else str(velocities),
-        timestep=timestep_fs, constraints=constraints, temperature=temperature_K,
-        ensemble=None if ensemble is None else str(ensemble).lower(), column=_column_items(columns), units=units,
-        chunk_mb=None)
-    run: Run = open_run_from_args(args)
-    return run
+    options = stated_options(timestep_fs=timestep_fs, n_constraints=constraints, temperature_K=temperature_K,
+                             ensemble=ensemble, velocities=velocities, column_roles=_column_roles(columns),
+                             units_style=units)
+    return open_stated(files, topology=top, options=options)
 
 
 def describe(run: Run) -> dict[str, Any]:

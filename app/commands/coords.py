@@ -94,23 +94,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "default: CSV on standard output")
 
 
-def _pca_group(text: str, run: Any) -> np.ndarray:
-    """Atoms of a group written in the coordinate grammar (reuses the rg(...) parser)."""
-    from phasewake.core.analyses.coordspec import parse, resolve
-    from phasewake.core.errors import CoordinateSpecError
-
-    wrapped = f"rg({text})"
-    try:
-        r = resolve(parse(wrapped), n_atoms=run.n_atoms, topology=run.topology)
-    except CoordinateSpecError as exc:
-        pos = None if exc.position is None else max(0, exc.position - 3)
-        raise CoordinateSpecError(f"--pca-group: {exc.problem.splitlines()[0]}", spec=text, position=pos) from exc
-    return r.groups[0]
-
-
 def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, np.ndarray]], np.ndarray, dict]:
     """Compute everything; returns (name, unit, values) columns, the time axis and a summary."""
-    from phasewake.core.analyses.coordinates import CoordinatesRequest
+    from phasewake.core.analyses.coordinates import CoordinatesRequest, resolve_group
     from phasewake.core.errors import InputError
     from phasewake.core.store.cache import ResultCache
     from phasewake.core.store.cached import requested
@@ -160,7 +146,7 @@ def _columns(args: argparse.Namespace, run: Any) -> tuple[list[tuple[str, str, n
 
         if args.pca < 1:
             raise InputError("--pca needs K >= 1")
-        group = None if args.pca_group is None else _pca_group(args.pca_group, run)
+        group = None if args.pca_group is None else resolve_group(args.pca_group, run, option="--pca-group")
         res = run_with_progress(
             requested(run, PCARequest(atom_indices=group, start=args.start, stop=args.stop, n_components=args.pca,
                                       mass_weighted=not args.no_mass_weight, fit=not args.no_fit,

@@ -204,9 +204,7 @@ def _write_events_rows(path: Path, res: Any, names: list[str]) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.app.common import quiet_stdout
     from phasewake.core.analyses.crossings import CrossingsRequest
-    from phasewake.core.readers import open_run
     from phasewake.core.store.cache import ResultCache
     from phasewake.core.store.cached import requested
 
@@ -223,15 +221,11 @@ def run(args: argparse.Namespace) -> int:
 
         raise AnalysisError(f"--confidence must lie between 0 and 1, got {args.confidence}")
     if args.replicas:
-        from phasewake.app.common import apply_parallel, run_files, run_overrides
-        from phasewake.core.model.parallel import remember_files
+        from phasewake.app.common import apply_parallel, run_overrides
+        from phasewake.core.readers.stated import open_stated
 
         apply_parallel(args)
-        runs = []
-        with quiet_stdout():
-            for f in args.files:
-                runs.append(remember_files(open_run([f], topology=args.top, **run_overrides(args)),
-                                           run_files(args, [f])))
+        runs = [open_stated([f], topology=args.top, options=run_overrides(args)) for f in args.files]
     else:
         runs = [open_run_from_args(args)]
     # only what the user gave: every default (and the temperature, which --temperature set on the runs)

@@ -162,18 +162,9 @@ def _series_inputs(args: argparse.Namespace, run: Any) -> list[tuple[str, str, s
 def _groups(args: argparse.Namespace, run: Any) -> dict[str, np.ndarray] | None:
     if not args.group:
         return None
-    from phasewake.core.analyses.coordspec import parse, resolve
-    from phasewake.core.errors import CoordinateSpecError
+    from phasewake.core.analyses.coordinates import resolve_group
 
-    out: dict[str, np.ndarray] = {}
-    for text in args.group:
-        try:
-            r = resolve(parse(f"rg({text})"), n_atoms=run.n_atoms, topology=run.topology)
-        except CoordinateSpecError as exc:
-            pos = None if exc.position is None else max(0, exc.position - 3)
-            raise CoordinateSpecError(f"--group: {exc.problem.splitlines()[0]}", spec=text, position=pos) from exc
-        out[text] = r.groups[0]
-    return out
+    return {text: resolve_group(text, run, option="--group") for text in args.group}
 
 
 # ---------------------------------------------------------------------------------------------------
@@ -519,16 +510,13 @@ def _write_text(run: Any, analyses: list[dict[str, Any]], vel: dict[str, Any], e
 
 
 def run(args: argparse.Namespace) -> int:
-    from phasewake.app.common import quiet_stdout, run_overrides
+    from phasewake.app.common import run_overrides
     from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, worst
-    from phasewake.core.readers import open_run
+    from phasewake.core.readers.stated import open_stated
 
     apply_threads(args)
     run_ = open_run_from_args(args)
-    replicas = []
-    for files in args.replica:
-        with quiet_stdout():
-            replicas.append(open_run(files, topology=args.top, **run_overrides(args)))
+    replicas = [open_stated(files, topology=args.top, options=run_overrides(args)) for files in args.replica]
     from phasewake.core.store.cache import ResultCache
 
     cache = ResultCache(enabled=False) if getattr(args, "no_cache", False) else None

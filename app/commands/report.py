@@ -15,12 +15,8 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
-
-if TYPE_CHECKING:
-    from phasewake.core.model.run import Run
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -44,9 +40,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def _states(text: str | None) -> tuple[float, float] | None:
-    """``--states A_HI,B_LO`` as two finite numbers with A below B (InputError otherwise)."""
-    import math
-
+    """``--states A_HI,B_LO`` as two numbers (InputError otherwise; their order is checked in core)."""
     from phasewake.core.errors import InputError
 
     if text is None:
@@ -56,30 +50,13 @@ def _states(text: str | None) -> tuple[float, float] | None:
         a, b = (float(p) for p in parts)
     except ValueError:
         raise InputError(f"--states wants two numbers A_HI,B_LO, got {text!r}") from None
-    if not (math.isfinite(a) and math.isfinite(b)):
-        raise InputError(f"--states wants two finite numbers A_HI,B_LO, got {text!r}")
-    if not a < b:
-        raise InputError(f"--states {text}: core A (q <= {a:g}) must lie below core B (q >= {b:g})")
     return a, b
-
-
-def _check_explicit(args: argparse.Namespace, run_: Run, states: tuple[float, float] | None) -> None:
-    """Options given explicitly are checked before the report is built, so a mistake exits 2 like
-    ``crossings`` and ``coords`` instead of leaving a section out of the report."""
-    from phasewake.core.analyses.coordinates import resolve_for_run
-    from phasewake.core.errors import InputError
-
-    if args.coordinate is not None:
-        if run_.frames is None:
-            raise InputError("--coordinate needs trajectory frames; this run has only an energy table")
-        resolve_for_run(args.coordinate, run_)
-    if states is not None and args.surface is not None and not states[0] < args.surface < states[1]:
-        raise InputError(f"--surface {args.surface:g} must lie strictly between the cores of --states "
-                         f"({states[0]:g} and {states[1]:g})")
 
 
 def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import check_output_folder, check_output_path
+    from phasewake.core.analyses.coordinates import stated_coordinate
+    from phasewake.core.analyses.crossings.states import stated_states
     from phasewake.core.errors import PhasewakeError
     from phasewake.core.figures.report import build_report
     from phasewake.core.store.cache import ResultCache
@@ -98,9 +75,12 @@ def run(args: argparse.Namespace) -> int:
         check_output_path(html_path, "--html")
     if args.preview is not None:
         check_output_folder(args.preview, "--preview")
-    states = _states(args.states)
+    # options given explicitly are checked before the report is built, so a mistake exits 2 like
+    # ``crossings`` and ``coords`` instead of leaving a section out of the report
+    states = stated_states(_states(args.states), args.surface)
     run_ = open_run_from_args(args)
-    _check_explicit(args, run_, states)
+    if args.coordinate is not None:
+        stated_coordinate(args.coordinate, run_)
     result = run_with_progress(
         build_report(run_, out, coordinate=args.coordinate, html_path=html_path,
                      temperature_K=args.temperature, n_constraints=args.constraints,

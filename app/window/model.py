@@ -34,18 +34,10 @@ class RunSettings:
 
     def overrides(self) -> dict[str, Any]:
         """Keyword overrides for ``phasewake.core.readers.open_run`` (internal units)."""
-        out: dict[str, Any] = {}
-        if self.timestep_fs is not None:
-            out["timestep_ps"] = self.timestep_fs * 1e-3
-        if self.n_constraints is not None:
-            out["n_constraints"] = self.n_constraints
-        if self.temperature_K is not None:
-            out["temperature_K"] = self.temperature_K
-        if self.ensemble:
-            out["ensemble"] = self.ensemble
-        if self.thermostat:
-            out["thermostat"] = self.thermostat
-        return out
+        from phasewake.core.readers.stated import stated_options
+
+        return stated_options(timestep_fs=self.timestep_fs, n_constraints=self.n_constraints,
+                              temperature_K=self.temperature_K, ensemble=self.ensemble, thermostat=self.thermostat)
 
     def to_dict(self) -> dict[str, Any]:
         return {k: getattr(self, k) for k in self.FIELDS}

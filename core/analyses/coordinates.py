@@ -43,7 +43,7 @@ from phasewake.core.analyses.geometry import (  # noqa: F401 - re-exported: the 
 )
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.result import ResultMixin
-from phasewake.core.errors import AnalysisError, CoordinateSpecError, MissingDataError
+from phasewake.core.errors import AnalysisError, CoordinateSpecError, InputError, MissingDataError
 from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import check_masses
@@ -123,6 +123,30 @@ def resolve_for_run(spec: str | CoordinateDef, run: Run) -> ResolvedCoordinate:
     if resolved.function == "pc" and resolved.groups[0].size == 0:
         resolved = replace(resolved, groups=(solute_atoms(run.topology, run.n_atoms),))
     return resolved
+
+
+def stated_coordinate(spec: str, run: Run, *, option: str = "--coordinate") -> ResolvedCoordinate:
+    """A coordinate the user gave by name (``option``: how they gave it), checked before any work: the run
+    must have frames and the specification must resolve on it (InputError / CoordinateSpecError)."""
+    if run.frames is None:
+        raise InputError(f"{option} needs trajectory frames; this run has only an energy table")
+    return resolve_for_run(spec, run)
+
+
+def resolve_group(text: str, run: Run, *, option: str) -> np.ndarray:
+    """The atom indices of a group written in the coordinate grammar's group form (an index, a range
+    ``"0-9"``, a list ``"[0, 4]"`` or a quoted mdtraj query), as inside ``rg(...)``.
+
+    A mistake raises CoordinateSpecError naming ``option`` (how the user gave the group) with the
+    position in ``text``.
+    """
+    wrapped = f"rg({text})"
+    try:
+        r = resolve(parse(wrapped), n_atoms=run.n_atoms, topology=run.topology)
+    except CoordinateSpecError as exc:
+        pos = None if exc.position is None else max(0, exc.position - 3)  # 3: len("rg(")
+        raise CoordinateSpecError(f"{option}: {exc.problem.splitlines()[0]}", spec=text, position=pos) from exc
+    return r.groups[0]
 
 
 class CoordinatesConsumer:

@@ -8,9 +8,29 @@ import numpy as np
 
 from phasewake.core.analyses.crossings.results import StateSuggestion
 from phasewake.core.analyses.verdicts import THRESHOLDS
-from phasewake.core.errors import AnalysisError, TooShortError
+from phasewake.core.errors import AnalysisError, InputError, TooShortError
 
 _NOMINAL_K = 300.0  # scale of a profile read only in kT (suggest_states): no result depends on it
+
+
+def stated_states(states: tuple[float, float] | None, surface: float | None, *, option: str = "--states",
+                  surface_option: str = "--surface") -> tuple[float, float] | None:
+    """Core sets A (q <= a) and B (q >= b) and a dividing surface as the user gave them (``option`` and
+    ``surface_option``: how they gave them), checked before any work: finite, A below B, the surface
+    strictly between. Returns the cores as two floats (None when not given); InputError otherwise."""
+    if surface is not None and not math.isfinite(surface):
+        raise InputError(f"{surface_option} {surface:g}: expected a finite number")
+    if states is None:
+        return None
+    a, b = float(states[0]), float(states[1])
+    if not (math.isfinite(a) and math.isfinite(b)):
+        raise InputError(f"{option} wants two finite numbers A_HI,B_LO, got {a:g},{b:g}")
+    if not a < b:
+        raise InputError(f"{option} {a:g},{b:g}: core A (q <= {a:g}) must lie below core B (q >= {b:g})")
+    if surface is not None and not a < surface < b:
+        raise InputError(f"{surface_option} {surface:g} must lie strictly between the cores of {option} "
+                         f"({a:g} and {b:g})")
+    return a, b
 
 
 def _refine_top(centres: np.ndarray, f: np.ndarray, counts: np.ndarray, b: int, i: int, j: int) -> float:
