@@ -139,6 +139,15 @@ def _as_float_array(x: Any, axis: int) -> tuple[np.ndarray, int]:
     return a, axis
 
 
+def one_series(x: Any, what: str) -> np.ndarray:
+    """``x`` as one float64 series, checked as :func:`_as_float_array` does; AnalysisError "``what`` takes
+    one 1D series" for another shape."""
+    a, _ = _as_float_array(x, 0)
+    if a.ndim != 1:
+        raise AnalysisError(f"{what} takes one 1D series")
+    return a
+
+
 _FFT_BYTES = 256 * 2**20  # memory budget of one FFT batch
 _ADAPTIVE_ABOVE = 2**14  # series longer than this start with a shorter lag window, widened as needed
 _FIRST_LAG = 2**15

@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.analyses import result
-from phasewake.core.analyses.correlation.acf import _as_float_array
+from phasewake.core.analyses.correlation.acf import one_series
 from phasewake.core.errors import AnalysisError, TooShortError
 
 # ---------------------------------------------------------------------------------------------------
@@ -65,9 +65,7 @@ def blocking(x: Any, *, min_blocks: int = 16, confidence: float = 0.99, unit: st
     """
     from scipy.stats import chi2
 
-    a, _ = _as_float_array(x, 0)
-    if a.ndim != 1:
-        raise AnalysisError("blocking takes one 1D series")
+    a = one_series(x, "blocking")
     if a.size < 2 * min_blocks:
         raise TooShortError("blocking", have=int(a.size), need=2 * min_blocks)
     sizes, nbl, sems, errs, mstat = [], [], [], [], []

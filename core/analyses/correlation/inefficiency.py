@@ -18,6 +18,7 @@ from phasewake.core.analyses.correlation.acf import (
     Method,
     _as_float_array,
     _autocovariance_sums,
+    one_series,
 )
 from phasewake.core.analyses.correlation.blocking import blocking
 from phasewake.core.errors import AnalysisError
@@ -191,9 +192,7 @@ def auto_estimate(x: Any, *, c: float = 5.0, max_lag: int | None = None) -> Auto
     within their standard errors; beyond ``sampling.estimator_agreement`` the largest g (the
     conservative one) is reported and the disagreement is flagged.
     """
-    a, _ = _as_float_array(x, 0)
-    if a.ndim != 1:
-        raise AnalysisError("the automatic estimator takes one 1D series")
+    a = one_series(x, "the automatic estimator")
     n = a.size
     s_s, est_s, k_s = _sums_adaptive(a, 0, max_lag, "sokal", c)
     s_g, est_g, k_g = _sums_adaptive(a, 0, max_lag, "geyer", c)

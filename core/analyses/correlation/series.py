@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.analyses import result, verdicts
-from phasewake.core.analyses.correlation.acf import AUTO, MIN_SAMPLES, Method, _as_float_array
+from phasewake.core.analyses.correlation.acf import AUTO, MIN_SAMPLES, Method, one_series
 from phasewake.core.analyses.correlation.inefficiency import (
     AutoEstimate,
     _estimate,
@@ -132,9 +132,7 @@ def analyse_series(
     -------
     CorrelationResult
     """
-    a, _ = _as_float_array(x, 0)
-    if a.ndim != 1:
-        raise AnalysisError("analyse_series takes one 1D series")
+    a = one_series(x, "analyse_series")
     if not dt_ps > 0:
         raise AnalysisError(f"the sample spacing must be positive, got {dt_ps} ps")
     n = a.size
@@ -239,9 +237,7 @@ def equilibration_work(
     max_points: int = 100_000,
 ) -> Work[EquilibrationResult]:
     """Generator form of :func:`detect_equilibration` (yields Progress, returns the result)."""
-    a0, _ = _as_float_array(x, 0)
-    if a0.ndim != 1:
-        raise AnalysisError("equilibration detection takes one 1D series")
+    a0 = one_series(x, "equilibration detection")
     n_orig = a0.size
     # Long series: scan block means of s samples. Averaging s neighbours keeps the effective sample size
     # (g of the means ~ g/s while s << g) and bounds the cost; t0 is then known to s samples.
