@@ -3,7 +3,7 @@ with that one consumer (see :mod:`phasewake.core.analyses.velocity`)."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
@@ -189,6 +189,14 @@ def _frame_spacing(run: Run, start: int, stop: int | None, stride: int) -> float
     return dt
 
 
+def _pass_range(window: tuple[int, int], start: int, stop: int, what: str) -> tuple[int, int]:
+    """``(start, stop)`` of a pass (or part of one) inside the frames ``window`` a consumer of ``what`` was set
+    up for; AnalysisError otherwise."""
+    if not (window[0] <= start and stop <= window[1]):
+        raise AnalysisError(f"the {what} was set up for frames {window[0]}:{window[1]}, the pass reads {start}:{stop}")
+    return int(start), int(stop)
+
+
 class VACFConsumer:
     """Velocity autocorrelation as a frame consumer (:mod:`phasewake.core.model.framepass`): the sums over
     time origins of :class:`BlockCorrelator`, per group.
@@ -244,10 +252,7 @@ class VACFConsumer:
         self._tail: list[np.ndarray] = []  # blocks holding at least the last L - 1 frames fed
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        if not (self.window[0] <= start and stop <= self.window[1]):
-            raise AnalysisError(f"the VACF was set up for frames {self.window[0]}:{self.window[1]}, the pass "
-                                f"reads {start}:{stop}")
-        self._range = (int(start), int(stop))
+        self._range = _pass_range(self.window, start, stop, "VACF")
         cols = np.arange(self.lab.size) if columns is None else columns
         w = self.masses[cols] if self.mass_weighted else np.ones(cols.size)
         self._corr = BlockCorrelator(n_atoms=cols.size, max_lag=self.lag, weights=w, group_of_atom=self.lab[cols],
@@ -330,20 +335,27 @@ def straddling_sums(before: np.ndarray, after: np.ndarray, group_of_atom: np.nda
     ``before`` (T, 3 n) holds the last frames before a boundary, ``after`` (H, 3 n) the first after it;
     returns (n_groups, L) in float64 (lag k of before's row i and after's row j is (T - i) + j).
     """
+    col_w = np.repeat(np.asarray(weights, dtype=np.float64), 3)
+    a = np.asarray(before, dtype=np.float64)
+    b = np.asarray(after, dtype=np.float64)
+    return sum_by_straddling_lag(a.shape[0], b.shape[0], group_of_atom, n_groups, max_lag,
+                                 lambda cols: (a[:, cols] * col_w[cols]) @ b[:, cols].T)
+
+
+def sum_by_straddling_lag(t: int, h: int, group_of_atom: np.ndarray, n_groups: int, max_lag: int,
+                          pairs: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
+    """Per group, the sums over lags k < L of ``pairs(columns of the group)`` (T, H): the values of the pairs of
+    row i of the T frames before a boundary and row j of the H frames after it, whose lag is (T - i) + j.
+    Returns (n_groups, L), float64."""
     out = np.zeros((n_groups, max_lag))
-    t, h = before.shape[0], after.shape[0]
     if t == 0 or h == 0:
         return out
     lag = (t - np.arange(t))[:, None] + np.arange(h)[None, :]
     inside = lag < max_lag
     col_group = np.repeat(group_of_atom, 3)
-    col_w = np.repeat(np.asarray(weights, dtype=np.float64), 3)
-    a = np.asarray(before, dtype=np.float64)
-    b = np.asarray(after, dtype=np.float64)
     for g in range(n_groups):
-        cols = col_group == g
-        gram = (a[:, cols] * col_w[cols]) @ b[:, cols].T
-        out[g] = np.bincount(lag[inside], weights=gram[inside], minlength=max_lag)[:max_lag]
+        values = pairs(col_group == g)
+        out[g] = np.bincount(lag[inside], weights=values[inside], minlength=max_lag)[:max_lag]
     return out
 
 

@@ -22,6 +22,7 @@ from phasewake.core.analyses.velocity.autocorrelation import (
     _default_lag,
     _frame_spacing,
     _group_labels,
+    _pass_range,
 )
 from phasewake.core.analyses.velocity.correlator import BlockCorrelator
 from phasewake.core.analyses.verdicts import Explanation, Threshold, register
@@ -516,10 +517,7 @@ class MSDConsumer:
         self._tail: list[np.ndarray] = []
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        if not (self.window[0] <= start and stop <= self.window[1]):
-            raise AnalysisError(f"the MSD was set up for frames {self.window[0]}:{self.window[1]}, the pass "
-                                f"reads {start}:{stop}")
-        self._range = (int(start), int(stop))
+        self._range = _pass_range(self.window, start, stop, "MSD")
         cols = np.arange(self.lab.size) if columns is None else columns
         self._sel = np.flatnonzero(self.lab[cols] >= 0)
         self._corr = BlockCorrelator(n_atoms=self._sel.size, max_lag=self.lag, weights=np.ones(self._sel.size),
@@ -605,22 +603,16 @@ def _straddling_squares(before: np.ndarray, after: np.ndarray, group_of_atom: np
                         max_lag: int) -> np.ndarray:
     """sum of |r(t+k) - r(t)|^2 over t in ``before`` (T, 3n) and t + k in ``after`` (H, 3n), k < L, per group:
     |a|^2 + |b|^2 - 2 a.b, the cross term by :func:`straddling_sums`."""
-    from phasewake.core.analyses.velocity.autocorrelation import straddling_sums
+    from phasewake.core.analyses.velocity.autocorrelation import straddling_sums, sum_by_straddling_lag
 
-    out = -2.0 * straddling_sums(before, after, group_of_atom, np.ones(group_of_atom.size), n_groups, max_lag)
-    t, h = before.shape[0], after.shape[0]
-    if t == 0 or h == 0:
-        return out
-    lag = (t - np.arange(t))[:, None] + np.arange(h)[None, :]
-    inside = lag < max_lag
-    col_group = np.repeat(group_of_atom, 3)
-    for g in range(n_groups):
-        cols = col_group == g
+    def squares(cols: np.ndarray) -> np.ndarray:
         a2 = np.einsum("ij,ij->i", before[:, cols], before[:, cols])
         b2 = np.einsum("ij,ij->i", after[:, cols], after[:, cols])
-        both = a2[:, None] + b2[None, :]
-        out[g] += np.bincount(lag[inside], weights=both[inside], minlength=max_lag)[:max_lag]
-    return out
+        return a2[:, None] + b2[None, :]
+
+    cross = straddling_sums(before, after, group_of_atom, np.ones(group_of_atom.size), n_groups, max_lag)
+    return -2.0 * cross + sum_by_straddling_lag(before.shape[0], after.shape[0], group_of_atom, n_groups, max_lag,
+                                                squares)
 
 
 def msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
