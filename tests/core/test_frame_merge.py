@@ -268,3 +268,20 @@ def test_thirumalai_mountain_part_left_unmerged_is_refused():
         b.finish()
     with pytest.raises(AnalysisError, match="first of the pass"):
         a.merge(own)
+
+
+def test_thirumalai_mountain_over_two_workers_equals_the_serial_pass():
+    # the real worker processes (each part pickled there and back, ranges cut by parallel.cut_ranges) on a
+    # sample run with velocities; tolerance as in the merge test above
+    from phasewake.core.analyses.ergodicity import KineticEnergySeries
+    from phasewake.core.model import parallel
+
+    run = open_run([SAMPLES / "dimer_nve.h5md"])
+    atoms = np.arange(run.n_atoms)
+    serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms)}, chunk_frames=128, workers=1))["tm"]
+    par = drive(parallel.ranges_pass(run, {"tm": KineticEnergySeries(run, atoms)}, chunk_frames=128, workers=2))["tm"]
+    kw = {"dt_ps": float(np.median(np.diff(run.time_ps))), "n_particles": atoms.size}
+    a, b = par.finish(**kw), serial.finish(**kw)
+    assert a.omega.size == b.omega.size == run.n_frames
+    np.testing.assert_allclose(a.omega, b.omega, rtol=1e-12)
+    assert a.d_per_ps == pytest.approx(b.d_per_ps, rel=1e-12)
