@@ -74,6 +74,16 @@ def _edges(values: np.ndarray, bins: int | np.ndarray | None, value_range: tuple
     return e
 
 
+def _free_energy(density: np.ndarray, kt: float) -> np.ndarray:
+    """F = -kT ln(density) (kJ/mol) shifted to a minimum of 0; NaN where the density is 0 (no samples)."""
+    with np.errstate(divide="ignore"):
+        f = -kt * np.log(density)
+    f[~np.isfinite(f)] = np.nan
+    if np.all(np.isnan(f)):
+        raise AnalysisError("no samples inside the histogram range")
+    return f - np.nanmin(f)
+
+
 def _bin_index(values: np.ndarray, edges: np.ndarray) -> np.ndarray:
     """Bin of each value (the last edge is inside the last bin); -1 outside."""
     i = np.searchsorted(edges, values, side="right") - 1
@@ -316,12 +326,7 @@ def free_energy_profile(
         if np.any(centers <= 0):
             raise AnalysisError("the distance Jacobian needs positive values")
         dens = dens / (4.0 * np.pi * centers**2)
-    with np.errstate(divide="ignore"):
-        f = -kt * np.log(dens)
-    f[~np.isfinite(f)] = np.nan
-    if np.all(np.isnan(f)):
-        raise AnalysisError("no samples inside the histogram range")
-    f = f - np.nanmin(f)
+    f = _free_energy(dens, kt)
     idx = _bin_index(v, edges)
     pb = _block_probabilities(idx, nbins, n_blocks)
     p = hist.counts / max(hist.counts.sum(), 1.0)
@@ -362,12 +367,7 @@ def free_energy_surface(
         raise AnalysisError("a free-energy surface needs a temperature above 0 K")
     kt = KB_KJ_PER_MOL_K * float(temperature_K)
     h = histogram_2d(x, y, bins=bins, value_range=value_range, x_unit=x_unit, y_unit=y_unit, max_bins=max_bins)
-    with np.errstate(divide="ignore"):
-        f = -kt * np.log(h.density)
-    f[~np.isfinite(f)] = np.nan
-    if np.all(np.isnan(f)):
-        raise AnalysisError("no samples inside the histogram range")
-    f = f - np.nanmin(f)
+    f = _free_energy(h.density, kt)
     nx, ny = f.shape
     ix = _bin_index(np.asarray(x, dtype=np.float64), h.x_edges)
     iy = _bin_index(np.asarray(y, dtype=np.float64), h.y_edges)
