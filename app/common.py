@@ -230,6 +230,23 @@ def open_run_from_args(args: argparse.Namespace):  # -> Run
     return open_stated(args.files, topology=args.top, options=run_overrides(args))
 
 
+def add_replicas_argument(parser: argparse.ArgumentParser) -> None:
+    """``--replicas``: each FILE is a complete run of its own (read by :func:`open_runs_from_args`)."""
+    parser.add_argument("--replicas", action="store_true",
+                        help="each FILE is a separate replica run; their events pool")
+
+
+def open_runs_from_args(args: argparse.Namespace) -> list:  # -> list[Run]
+    """The run of FILES, or with ``--replicas`` one run per FILE (the first is the ensemble's own run)."""
+    from phasewake.core.readers.stated import open_stated
+
+    if not getattr(args, "replicas", False):
+        return [open_run_from_args(args)]
+    apply_chunk_budget(args)
+    apply_parallel(args)
+    return [open_stated([f], topology=args.top, options=run_overrides(args)) for f in args.files]
+
+
 @contextlib.contextmanager
 def quiet_stdout():
     """Keep library chatter (mdtraj's DCD plugin prints to stdout) out of our output."""

@@ -28,10 +28,11 @@ from pathlib import Path
 from typing import Any
 
 from phasewake.app.common import (
+    add_replicas_argument,
     add_run_arguments,
     add_threads_argument,
     apply_threads,
-    open_run_from_args,
+    open_runs_from_args,
     print_json,
     run_with_progress,
 )
@@ -60,8 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "default: suggested from the free-energy profile")
     parser.add_argument("--surface", metavar="VALUE", default=None,
                         help="dividing surface q* between the cores (default: the barrier top, or midway)")
-    parser.add_argument("--replicas", action="store_true",
-                        help="each FILE is a separate replica run; their events pool")
+    add_replicas_argument(parser)
     parser.add_argument("--events", metavar="CSV", default=None,
                         help="write the table of every crossing to this CSV file")
     parser.add_argument("--confidence", metavar="P", type=float, default=None,
@@ -220,14 +220,7 @@ def run(args: argparse.Namespace) -> int:
         from phasewake.core.errors import AnalysisError
 
         raise AnalysisError(f"--confidence must lie between 0 and 1, got {args.confidence}")
-    if args.replicas:
-        from phasewake.app.common import apply_parallel, run_overrides
-        from phasewake.core.readers.stated import open_stated
-
-        apply_parallel(args)
-        runs = [open_stated([f], topology=args.top, options=run_overrides(args)) for f in args.files]
-    else:
-        runs = [open_run_from_args(args)]
+    runs = open_runs_from_args(args)
     # only what the user gave: every default (and the temperature, which --temperature set on the runs)
     # is the request's own, so the window and the report build the same request for the same run
     given = {k: v for k, v in (("states", states), ("surface", surface), ("confidence", args.confidence),

@@ -4,7 +4,10 @@ The report holds the run's summary and the verdicts table, energy conservation, 
 the velocity spectrum behind the time-step check, the coordinate against time with its phase
 portrait, time correlations, sampling and barrier crossings; every figure has a caption with what
 was computed and with which settings. ``--html`` writes an HTML page with the same content beside
-the PDF (figures embedded as PNG, one self-contained file).
+the PDF (figures embedded as PNG, one self-contained file). With ``--replicas`` each FILE is one
+complete run of a replica ensemble: the crossings pages pool their events (as ``phasewake crossings
+--replicas``) and add a row per replica (transitions, rates, share of the spread behind R-hat, drift);
+the other pages are of the first FILE.
 
 Exit 0 when the report was written (whatever its verdicts say: read them in the report, or use
 ``phasewake audit`` for an exit code), 2 for unusable input or an output that cannot be written.
@@ -16,7 +19,13 @@ import argparse
 import sys
 from pathlib import Path
 
-from phasewake.app.common import add_run_arguments, open_run_from_args, print_json, run_with_progress
+from phasewake.app.common import (
+    add_replicas_argument,
+    add_run_arguments,
+    open_runs_from_args,
+    print_json,
+    run_with_progress,
+)
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -33,6 +42,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "coordinate's unit (default: suggested from its free-energy profile)")
     parser.add_argument("--surface", metavar="VALUE", type=float, default=None,
                         help="dividing surface for the crossings page, in the coordinate's unit")
+    add_replicas_argument(parser)
     parser.add_argument("--preview", metavar="DIR", default=None,
                         help="also draw each page as PNG into DIR (page-01.png, ...)")
     parser.add_argument("--no-cache", action="store_true",
@@ -78,7 +88,7 @@ def run(args: argparse.Namespace) -> int:
     # options given explicitly are checked before the report is built, so a mistake exits 2 like
     # ``crossings`` and ``coords`` instead of leaving a section out of the report
     states = stated_states(_states(args.states), args.surface)
-    run_ = open_run_from_args(args)
+    run_, *replicas = open_runs_from_args(args)
     if args.coordinate is not None:
         stated_coordinate(args.coordinate, run_)
     result = run_with_progress(
@@ -86,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
                      temperature_K=args.temperature, n_constraints=args.constraints,
                      timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
                      states=states, surface=args.surface, preview_folder=args.preview,
-                     cache=ResultCache(enabled=False) if args.no_cache else None),
+                     cache=ResultCache(enabled=False) if args.no_cache else None, replicas=replicas),
         "report")
     if args.json:
         print_json({"path": result.path, "html_path": result.html_path, "n_pages": result.n_pages,

@@ -21,7 +21,7 @@ drawn from those results) and :func:`write_report` (the PDF, the HTML and the pa
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -81,6 +81,7 @@ def build_report(
     preview_folder: str | Path | None = None,
     preview_dpi: float = 60.0,
     cache: ResultCache | None = None,
+    replicas: Sequence[Run] = (),
 ) -> Work[ReportResult]:
     """Analyse ``run`` and write a multi-page PDF report (and optionally an HTML one).
 
@@ -100,6 +101,9 @@ def build_report(
     preview_dpi : resolution of the page previews
     cache : the result cache of the analyses (default: the default cache, ``ResultCache()``;
         ``ResultCache(enabled=False)`` computes everything afresh)
+    replicas : the other runs of a replica ensemble (``run`` is the first): the crossings pool every run's
+        events, as ``phasewake crossings --replicas`` does, and a page gives the per-replica table (transitions,
+        rates, share of the between-replica spread behind R-hat, drift); the other pages are of ``run``
 
     Returns
     -------
@@ -112,9 +116,11 @@ def build_report(
         check_writable(Path(html_path))
     settings = ReportSettings(coordinate=coordinate, temperature_K=temperature_K, n_constraints=n_constraints,
                               timestep_ps=timestep_ps, states=states, surface=surface, max_points=max_points)
-    got = yield from collect_analyses(run, settings, cache=cache, total=total)
+    got = yield from collect_analyses(run, settings, cache=cache, total=total, replicas=replicas)
     yield Progress(5, total, "drawing figures")
     shown = shown_settings(settings, got)
+    if replicas:
+        shown["replicas"] = [r.name for r in (run, *replicas)]
     sections = build_sections(run, got, settings, shown)
     yield Progress(7, total, "writing the PDF")
     result = write_report(run, target, sections, got, shown, html_path=html_path, preview_folder=preview_folder,

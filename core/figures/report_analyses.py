@@ -19,7 +19,7 @@ its result None and says why, so its page can say so instead of inventing a figu
 
 from __future__ import annotations
 
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any, TypeVar
 
@@ -125,8 +125,9 @@ def relay(work: Work[Any], base: float, total: float, label: str) -> Work[Any]:
 
 
 def collect_analyses(run: Run, settings: ReportSettings, *, cache: ResultCache | None = None,
-                     total: float = 8.0) -> Work[ReportAnalyses]:
-    """Every analysis of the report, as steps 0 to 4 of ``total`` progress steps."""
+                     total: float = 8.0, replicas: Sequence[Run] = ()) -> Work[ReportAnalyses]:
+    """Every analysis of the report, as steps 0 to 4 of ``total`` progress steps (``replicas``: the other runs
+    of a replica ensemble, pooled with ``run`` in the crossings)."""
     spec, spec_reason = choose_report_coordinate(run, settings.coordinate)
     requests, refused = frame_requests(run, spec, settings)
     got = yield from relay(requested_pass(run, requests, cache=cache, alone=True), 0, total, "one pass over the frames")
@@ -134,8 +135,8 @@ def collect_analyses(run: Run, settings: ReportSettings, *, cache: ResultCache |
     series, series_reason = coordinate_outcome(run, spec, spec_reason, refused, got)
     pca, pca_reason = pca_outcome(run, got)
     yield Progress(2, total, "finding barrier crossings")
-    crossings, crossings_reason = yield from relay(crossings_step(run, spec, series, settings, cache), 2, total,
-                                                   "crossings")
+    crossings, crossings_reason = yield from relay(crossings_step(run, spec, series, settings, cache, replicas), 2,
+                                                   total, "crossings")
     yield Progress(4, total, "correlations, sampling and the free-energy profile")
     temperature, source = report_temperature(run, settings.temperature_K)
     return ReportAnalyses(coordinate=spec, coordinate_reason=spec_reason, audit=audit, audit_reason=audit_reason,
@@ -227,20 +228,23 @@ def pca_outcome(run: Run, got: Mapping[str, Any]) -> tuple[Any, str]:
     return outcome(got, "pca", "the principal components could not be computed")
 
 
-def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSettings,
-                   cache: ResultCache | None) -> Work[tuple[Any, str]]:
+def crossings_step(run: Run, spec: str | None, series: Any, settings: ReportSettings, cache: ResultCache | None,
+                   replicas: Sequence[Run] = ()) -> Work[tuple[Any, str]]:
     """Barrier crossings of the coordinate: the command line's :class:`CrossingsRequest` (its temperature
     rule, kT/m_eff, Jacobian and defaults), analysed on the series already read and kept in the result cache
     under the request's own key (so ``phasewake crossings`` of the same run finds it, and the other way round).
+    With ``replicas`` it is the request of ``phasewake crossings --replicas`` (every run's coordinate read by
+    the request, spread over the workers as there), whose result holds the per-replica table.
     """
     from phasewake.core.analyses.crossings import CrossingsRequest
 
     if series is None or spec is None:
         return None, ""
     request = CrossingsRequest(coordinate=spec, states=settings.states, surface=settings.surface,
-                               temperature_K=settings.temperature_K)
+                               temperature_K=settings.temperature_K, replicas=tuple(replicas))
     try:
-        result = yield from on_series(run, request, request.analyse([run], [series]), cache)
+        result = yield from (requested(run, request, cache=cache) if replicas
+                             else on_series(run, request, request.analyse([run], [series]), cache))
     except PhasewakeError as exc:
         return None, f"crossings could not be analysed: {exc}"
     return result, ""

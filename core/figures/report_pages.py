@@ -10,7 +10,7 @@ import html
 import io
 import textwrap
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -65,6 +65,7 @@ class ReportPage:
     table_levels: tuple[str, ...] = ()  # verdict level of each data row (for the level marker)
     text: str = ""  # free text above the figure or table (summary, or why a section is missing)
     caption: str = ""
+    widths: tuple[int, ...] = ()  # characters per line of each table column (default: by the column count)
 
 
 def paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
@@ -83,23 +84,24 @@ def paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
         for i, r in enumerate(rows):
             h = _row_height(r, p)
             if chunk and used + h > budget:
-                out.append(ReportPage(p.section, p.title if first else p.title + " (continued)",
-                                      table=(header, *chunk), table_levels=tuple(lv),
-                                      text=p.text if first else "", caption=p.caption))
+                out.append(replace(p, title=p.title if first else p.title + " (continued)",
+                                   table=(header, *chunk), table_levels=tuple(lv), text=p.text if first else ""))
                 first, chunk, lv, used, budget = False, [], [], 0, 42
             chunk.append(r)
             if p.table_levels:
                 lv.append(p.table_levels[i])
             used += h
-        out.append(ReportPage(p.section, p.title if first else p.title + " (continued)",
-                              table=(header, *chunk), table_levels=tuple(lv), text=p.text if first else "",
-                              caption=p.caption))
+        out.append(replace(p, title=p.title if first else p.title + " (continued)", table=(header, *chunk),
+                           table_levels=tuple(lv), text=p.text if first else ""))
     return out
 
 
-def _widths(ncols: int) -> list[int]:
+def _widths(ncols: int, page: ReportPage | None = None) -> list[int]:
     """Characters per column line: the page body is 785 pt wide and a DejaVu Sans character is about
-    0.6 em, so about 160 characters fit at 8 pt and 130 at 10 pt; the rest is the gap between columns."""
+    0.6 em, so about 160 characters fit at 8 pt and 130 at 10 pt; the rest is the gap between columns.
+    A page's own ``widths`` win."""
+    if page is not None and len(page.widths) == ncols:
+        return list(page.widths)
     if ncols == 5:
         return [13, 24, 14, 28, 85]
     if ncols == 2:
@@ -119,7 +121,7 @@ def wrap_text(text: str, width: int) -> list[str]:
 
 
 def _row_height(row: Sequence[str], page: ReportPage) -> int:
-    w = _widths(len(row))
+    w = _widths(len(row), page)
     return max(len(wrap_text(c, w[i])) for i, c in enumerate(row)) + 0
 
 
@@ -162,7 +164,7 @@ def page_figure(page: ReportPage, *, run_name: str, number: int, n_total: int) -
 
 
 def _draw_table(fig: Figure, page: ReportPage, y: float, h_in: float) -> None:
-    widths = _widths(len(page.table[0]))
+    widths = _widths(len(page.table[0]), page)
     total = sum(widths)
     x0, x1 = 0.035, 0.965
     xs = [x0]

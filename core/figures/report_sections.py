@@ -11,6 +11,7 @@ numbers that the window shows as tooltips (:mod:`phasewake.core.analyses.explain
 from __future__ import annotations
 
 import dataclasses
+import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
@@ -106,6 +107,10 @@ def summary_page(run: Run, verdicts: Sequence[Any], audit: Any, shown: Mapping[s
     if audit is not None and not audit.checked:
         lines.append("Audit: nothing could be checked with what the files hold (each 'not checked' row says what "
                      "its check needs).")
+    if shown.get("replicas"):
+        names = list(shown["replicas"])
+        lines.append(f"Replica ensemble: {len(names)} runs ({', '.join(names)}); the barrier-crossing pages pool "
+                     f"all of them and give a row per replica; every other page is of {names[0]}.")
     why = shown.get("coordinate_reason") or ""
     lines.append("Coordinate analysed: " + str(shown.get("coordinate") or "none") + (f" ({why})" if why else ""))
     if run.warnings:
@@ -280,9 +285,51 @@ def crossings_pages(got: ReportAnalyses) -> list[ReportPage | tuple[str, str]]:
         return [("crossings", got.crossings_reason or "no coordinate")]
     rows = tuple((a, b) for a, b in plots.crossings_summary_rows(c))
     fig = plots.dwell_times_figure(c)
-    return [ReportPage("crossings", SECTION_TITLES["crossings"], table=(("Quantity", "Value"),) + rows,
-                       text=" ".join(c.warnings)),
-            _figure_page("crossings", fig, title=SECTION_TITLES["crossings"] + ": dwell times")]
+    pooled = f"Pooled over {c.n_replicas} replicas (a row per replica on the next page).\n" if c.n_replicas > 1 else ""
+    pages: list[ReportPage | tuple[str, str]] = [
+        ReportPage("crossings", SECTION_TITLES["crossings"], table=(("Quantity", "Value"),) + rows,
+                   text=(pooled + "\n".join(f"Warning: {w}" for w in c.warnings)).strip())]
+    if c.n_replicas > 1 and c.replicas:
+        pages.append(replica_page(c))
+    pages.append(_figure_page("crossings", fig, title=SECTION_TITLES["crossings"] + ": dwell times"))
+    return pages
+
+
+#: characters per line of the per-replica table's columns (11 columns at 8 pt, ~160 characters a line)
+REPLICA_WIDTHS = (26, 9, 5, 5, 9, 9, 10, 10, 10, 10, 11)
+
+
+def replica_table(result: Any) -> tuple[tuple[str, ...], ...]:
+    """The per-replica rows of a crossings result (``result.replicas``, core/analyses/replica_table.py) as
+    table cells, header first: the numbers of ``phasewake crossings --replicas`` to the same 4 digits."""
+    u = result.settings.unit
+
+    def g(x: float) -> str:
+        return "–" if math.isnan(x) else f"{x:.4g}"
+
+    table: list[tuple[str, ...]] = [("Replica", "Length (ps)", "A→B", "B→A", "In A (ps)", "In B (ps)",
+                                     "k(A→B) (1/ps)", "k(B→A) (1/ps)", f"Mean q ({u})", "Share of spread (R̂)",
+                                     f"Drift ({u}/ns)")]
+    for r in result.replicas:
+        share = "–" if math.isnan(r.between_share) else f"{100 * r.between_share:.0f}%"
+        table.append((r.name, g(r.time_ps), str(r.transitions_ab), str(r.transitions_ba), g(r.time_in_a_ps),
+                      g(r.time_in_b_ps), g(r.rate_ab_per_ps), g(r.rate_ba_per_ps), g(r.mean), share,
+                      g(r.drift_per_ns)))
+    return tuple(table)
+
+
+def replica_page(result: Any) -> ReportPage:
+    """The per-replica table, with what each column means."""
+    u = result.settings.unit
+    text = (f"One row per replica of the {result.n_replicas} runs pooled on the previous page. Transitions and the "
+            "time committed to each core set (In A, In B) are the replica's own; its rates are transitions / time "
+            "in the origin state (– where it never committed to that state). Share of spread: the replica's part "
+            "n_r (mean_r − mean)² of the between-replica spread of the mean q, the between-chain part of the "
+            "Gelman–Rubin R̂ (Gelman and Rubin 1992); a replica with a large share is the one that keeps R̂ above 1. "
+            f"Drift: least-squares slope of q against time ({u}/ns); a replica whose q still drifts has not "
+            "relaxed. These point at a replica worth a look; they are not verdicts on it.")
+    return ReportPage("crossings", SECTION_TITLES["crossings"] + ": per replica", table=replica_table(result),
+                      text=text, widths=REPLICA_WIDTHS)
 
 
 def explained(page: ReportPage) -> ReportPage:
