@@ -58,7 +58,7 @@ from phasewake.core.analyses.ensemble import EnsembleDecision, decide_ensemble, 
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import Verdict
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, EnergyTable, Run
+from phasewake.core.model.run import EnergyTable, Run
 from phasewake.core.progress import Progress, Work
 
 __all__ = ["AuditFrames", "AuditFramesConsumer", "AuditRequest", "AuditResult", "EnergyAudit", "EnsembleDecision",
@@ -107,8 +107,7 @@ def _checked_frames(run: Run, frames: AuditFrames, all_groups: Mapping[str, np.n
 
 
 def _frames_part(run: Run, inputs: _Inputs, frames: AuditFrames | None, *, n_constraints: int | None,
-                 groups: Mapping[str, Sequence[int] | np.ndarray] | None, thermostatted: bool, chunk_frames: int,
-                 segment_frames: int, max_spectrum_segments: int | None,
+                 groups: Mapping[str, Sequence[int] | np.ndarray] | None, thermostatted: bool, segment_frames: int, max_spectrum_segments: int | None,
                  total: float) -> Work[tuple[AuditFrames | None, tm.ConstraintInference | None, dict[str, np.ndarray]]]:
     """(frame results, constraint inference, equipartition groups): one pass over the frames, or none."""
     infer = can_infer(run)
@@ -116,7 +115,7 @@ def _frames_part(run: Run, inputs: _Inputs, frames: AuditFrames | None, *, n_con
         inputs.notes.append("The positions are stored with too little precision to tell rigid bonds from flexible "
                             "ones (a lossy format): constraints are not inferred from them.")
     if not inputs.reads_velocities:
-        return None, infer_constraints_only(run, chunk_frames=chunk_frames) if infer else None, {}
+        return None, infer_constraints_only(run) if infer else None, {}
     # groups are fixed before the pass; element groups only when nothing is constrained
     all_groups = audit_groups(run, n_constraints=n_constraints, groups=groups)
     if frames is not None:
@@ -125,7 +124,7 @@ def _frames_part(run: Run, inputs: _Inputs, frames: AuditFrames | None, *, n_con
         consumer = AuditFramesConsumer(run, groups=all_groups, infer=infer, want_speeds=thermostatted,
                                        want_com=needs_com(run, thermostatted),
                                        segment_frames=segment_frames, max_segments=max_spectrum_segments)
-        fp = yield from frame_pass(run, consumer, chunk_frames=chunk_frames, done0=0.0, total=total)
+        fp = yield from frame_pass(run, consumer, done0=0.0, total=total)
     return fp, fp.inference, all_groups
 
 
@@ -181,11 +180,11 @@ def _nested(work: Work[AuditResult], done0: float, total: float) -> Work[AuditRe
 
 
 def _comparison_part(compare: Run, eaudit: EnergyAudit | None, dt: float | None, *, temperature_K: float | None,
-                     compare_timestep_ps: float | None, chunk_frames: int, segment_frames: int,
+                     compare_timestep_ps: float | None, segment_frames: int,
                      max_spectrum_segments: int | None, done0: float, total: float,
                      notes: list[str]) -> Work[tuple[AuditResult, ts.ScalingResult | None]]:
     """The audit of a run at another time step, and the dt^2 scaling of the energy fluctuation."""
-    compared = yield from _nested(audit_run(compare, temperature_K=temperature_K, chunk_frames=chunk_frames,
+    compared = yield from _nested(audit_run(compare, temperature_K=temperature_K,
                                             timestep_ps=compare_timestep_ps, segment_frames=segment_frames,
                                             max_spectrum_segments=max_spectrum_segments), done0, total)
     dt2 = compare_timestep_ps if compare_timestep_ps is not None else compare.metadata.timestep_ps
@@ -238,7 +237,6 @@ def audit_run(
     require_temperature: bool = False,
     compare: Run | None = None,
     compare_timestep_ps: float | None = None,
-    chunk_frames: int = DEFAULT_CHUNK_FRAMES,
     segment_frames: int = 256,
     max_spectrum_segments: int | None = 64,
     frames: AuditFrames | None = None,
@@ -260,7 +258,7 @@ def audit_run(
     """
     settings = {"n_constraints": n_constraints, "timestep_ps": timestep_ps, "temperature_K": temperature_K,
                 "groups": {k: list(map(int, v)) for k, v in (groups or {}).items()},
-                "require_temperature": require_temperature, "chunk_frames": chunk_frames,
+                "require_temperature": require_temperature,
                 "segment_frames": segment_frames, "max_spectrum_segments": max_spectrum_segments,
                 "compare": None if compare is None else compare.name}
     md = run.metadata
@@ -275,8 +273,7 @@ def audit_run(
     choice = choose_energy_series(inputs.table, thermostatted=decision.thermostatted)
     fp, inference, all_groups = yield from _frames_part(
         run, inputs, frames, n_constraints=n_constraints, groups=groups, thermostatted=decision.thermostatted,
-        chunk_frames=chunk_frames, segment_frames=segment_frames, max_spectrum_segments=max_spectrum_segments,
-        total=total)
+        segment_frames=segment_frames, max_spectrum_segments=max_spectrum_segments, total=total)
     dof: DofCount = count_dof(run, inputs.table, fp, inference, n_constraints=n_constraints,
                               thermostatted=decision.thermostatted, notes=notes)
     target_T = temperature_K if temperature_K is not None else md.temperature_K
@@ -292,7 +289,7 @@ def audit_run(
     if compare is not None:
         compared, scaling = yield from _comparison_part(
             compare, eaudit, dt, temperature_K=temperature_K, compare_timestep_ps=compare_timestep_ps,
-            chunk_frames=chunk_frames, segment_frames=segment_frames, max_spectrum_segments=max_spectrum_segments,
+            segment_frames=segment_frames, max_spectrum_segments=max_spectrum_segments,
             done0=frames_total, total=total, notes=notes)
     verdicts = _overall(run, decision, choice, eaudit, temp, temp_verdicts, tsa, scaling, compared, dt)
     yield Progress(total, total, "done")
@@ -331,8 +328,6 @@ class AuditRequest(AnalysisRequest):
         A second run of the same system at another time step (the dt^2 scaling check).
     compare_timestep_ps : float, optional
         Time step of ``compare``, ps, when its files do not say.
-    chunk_frames : int
-        Frames per chunk read.
     segment_frames : int
         Frames per velocity-spectrum segment.
     max_spectrum_segments : int or None
@@ -355,7 +350,6 @@ class AuditRequest(AnalysisRequest):
     require_temperature: bool = False
     compare: Run | None = field(default=None, hash=False)
     compare_timestep_ps: float | None = None
-    chunk_frames: int = DEFAULT_CHUNK_FRAMES
     segment_frames: int = 256
     max_spectrum_segments: int | None = 64
 

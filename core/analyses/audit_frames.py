@@ -22,7 +22,7 @@ from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.analyses.ensemble import is_thermostatted
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.framepass import check_next, run_pass
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk, Run
+from phasewake.core.model.run import FrameChunk, Run
 from phasewake.core.progress import Progress, Work, result_of
 
 
@@ -174,7 +174,7 @@ class AuditFramesConsumer:
         for j, nm in enumerate(names):
             w[self.groups[nm], 1 + j] = 0.5 * m[self.groups[nm]]
         self._w3 = np.repeat(w, 3, axis=0).astype(np.float32)  # (3 n_atoms, 1 + G): W3[3i + c, j] = m_i / 2
-        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+        self._range = (0, 0)
         self._pos = 0
 
     @classmethod
@@ -195,7 +195,7 @@ class AuditFramesConsumer:
         if columns is not None:
             raise AnalysisError("the audit needs every atom's velocity")
         n = int(stop - start)
-        self._range = (int(start), int(stop), int(chunk_frames))
+        self._range = (int(start), int(stop))
         self._pos = 0
         self._kin = np.empty(n)
         self._com = np.empty(n)
@@ -309,7 +309,7 @@ class AuditFramesConsumer:
         """Fold in the consumer of the frames right after these (same settings): afterwards this one covers
         both ranges and :meth:`finish` gives the serial pass's result (per-frame values exactly; the
         spectrum and the pair statistics to floating-point rounding of their sums)."""
-        check_next(self._range[:2], later._range[:2], "audit frames")
+        check_next(self._range, later._range, "audit frames")
         if list(later.groups) != list(self.groups) or later.segment_frames != self.segment_frames:
             raise AnalysisError("audit frames: only consumers of the same settings can be merged")
         pos, lp = self._pos, later._pos
@@ -318,7 +318,7 @@ class AuditFramesConsumer:
         self._gk = np.concatenate([self._gk[:pos], later._gk[:lp]])
         self._times = np.concatenate([self._times[:pos], later._times[:lp]])
         self._pos = pos + lp
-        self._range = (self._range[0], later._range[1], self._range[2])
+        self._range = (self._range[0], later._range[1])
         if self.rigid is not None and later.rigid is not None:
             self.rigid.merge(later.rigid)
         if self.spec is not None and later.spec is not None:
@@ -340,7 +340,7 @@ class AuditFramesConsumer:
                     group_spectra = dict(zip(self.spec_names, self.spec.finish_groups(), strict=True))
             else:
                 note = "too few frames for one spectrum segment"
-        start, stop, chunk = self._range
+        start, stop = self._range
         return AuditFrames(
             time_ps=self._times[:pos], kinetic_kJ_per_mol=self._kin[:pos],
             com_kinetic_kJ_per_mol=self._com[:pos] if self.want_com else None,
@@ -353,14 +353,13 @@ class AuditFramesConsumer:
             settings={"groups": {k: int(v.size) for k, v in self.groups.items()},
                       "infer": self.rigid is not None, "want_speeds": self.want_speeds, "want_com": self.want_com,
                       "segment_frames": self.segment_frames, "max_segments": self.max_segments,
-                      "start": start, "stop": stop, "chunk_frames": chunk},
+                      "start": start, "stop": stop},
         )
 
 
-def frame_pass(run: Run, consumer: AuditFramesConsumer, *, chunk_frames: int, done0: float,
-                total: float) -> Work[AuditFrames]:
+def frame_pass(run: Run, consumer: AuditFramesConsumer, *, done0: float, total: float) -> Work[AuditFrames]:
     """Drive the consumer through the one-pass engine (``framepass.run_pass``), progress on the audit's scale."""
-    work = run_pass(run, {"audit": consumer}, chunk_frames=chunk_frames)
+    work = run_pass(run, {"audit": consumer})
     try:
         while True:
             p = next(work)
@@ -391,7 +390,7 @@ class RigidPairsConsumer:
         return self.acc.finish()
 
 
-def infer_constraints_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInference | None:
+def infer_constraints_only(run: Run) -> tm.ConstraintInference | None:
     """Constraints inferred from the first frames' positions (None without a topology, frames or candidate pairs)."""
     if run.topology is None or run.frames is None:
         return None
@@ -401,6 +400,5 @@ def infer_constraints_only(run: Run, *, chunk_frames: int) -> tm.ConstraintInfer
     consumer = RigidPairsConsumer(pairs, run.n_atoms)
     if not run.n_frames:
         return consumer.finish()
-    got = result_of(run_pass(run, {"rigid": consumer}, stop=consumer.acc.max_frames, chunk_frames=chunk_frames,
-                             workers=1))
+    got = result_of(run_pass(run, {"rigid": consumer}, stop=consumer.acc.max_frames, workers=1))
     return got["rigid"]  # type: ignore[no-any-return]

@@ -44,13 +44,16 @@ from phasewake.core.analyses.geometry import (  # noqa: F401 - re-exported: the 
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, InputError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.progress import Progress, Work
 from phasewake.core.readers.common import check_masses
 
 if TYPE_CHECKING:
 
     from phasewake.core.model.run import FrameChunk, Run
+
+# Frames per block of the PCA products behind pc(k) (float32 sums depend on the blocks): 256, the blocks
+# pc(k) has always used; independent of how many frames a pass reads at a time.
+PC_BLOCK_FRAMES = 256
 
 
 @dataclass(frozen=True)
@@ -81,7 +84,6 @@ class CoordinateSeries(ResultMixin):
     periodic: bool = False  # True for dihedrals (period 2 pi)
     start: int = 0
     stop: int | None = None
-    chunk_frames: int = DEFAULT_CHUNK_FRAMES
 
 
 _UNITS: dict[str, tuple[str, str, str, str]] = {
@@ -190,12 +192,12 @@ class CoordinatesConsumer:
         self._meff: list[list[np.ndarray]] = [[] for _ in self.resolved]
         self._time: list[np.ndarray] = []
         self._got_vel = self.needs_velocities
-        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+        self._range = (0, 0)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
         from phasewake.core.model.framepass import local_columns
 
-        self._range = (start, stop, chunk_frames)
+        self._range = (start, stop)
         self._remap = [replace(r, groups=tuple(local_columns(columns, np.asarray(g, dtype=np.int64))
                                                for g in r.groups)) for r in self.resolved]
         self._local_masses = self.masses if columns is None else self.masses[columns]
@@ -218,7 +220,7 @@ class CoordinatesConsumer:
     def merge(self, later: CoordinatesConsumer) -> None:
         from phasewake.core.model.framepass import check_next
 
-        check_next(self._range[:2], later._range[:2], "coordinates")
+        check_next(self._range, later._range, "coordinates")
         if [r.spec for r in later.resolved] != [r.spec for r in self.resolved]:
             raise AnalysisError("coordinates: only consumers of the same coordinates can be merged")
         self._time += later._time
@@ -227,10 +229,10 @@ class CoordinatesConsumer:
             self._dqdt[k] += later._dqdt[k]
             self._meff[k] += later._meff[k]
         self._got_vel = self._got_vel and later._got_vel
-        self._range = (self._range[0], later._range[1], self._range[2])
+        self._range = (self._range[0], later._range[1])
 
     def finish(self) -> list[CoordinateSeries]:
-        start, stop, chunk = self._range
+        start, stop = self._range
         time = np.concatenate(self._time) if self._time else np.zeros(0)
         out: list[CoordinateSeries] = []
         for k, r in enumerate(self.resolved):
@@ -248,7 +250,7 @@ class CoordinatesConsumer:
             out.append(CoordinateSeries(
                 spec=r.spec, label=r.label, unit=vu, time_ps=time, values=values, velocity=vel_k, m_eff=meff,
                 momentum=mom, momentum_unit=pu, velocities_estimated=estimated, velocity_unit=velu,
-                m_eff_unit=mu, periodic=periodic, start=start, stop=stop, chunk_frames=chunk,
+                m_eff_unit=mu, periodic=periodic, start=start, stop=stop,
             ))
         return out
 
@@ -259,7 +261,6 @@ def compute_coordinates(
     *,
     start: int = 0,
     stop: int | None = None,
-    chunk_frames: int | None = None,
     mass_weighted_pca: bool = True,
     fit_pca: bool = True,
 ) -> Work[list[CoordinateSeries]]:
@@ -284,16 +285,16 @@ def compute_coordinates(
     start, stop_ = frame_range(run, start, stop)
     resolved = [resolve_for_run(s, run) for s in specs]
     if any(r.function == "pc" for r in resolved):
-        resolved = yield from _with_pcas(run, resolved, start=start, stop=stop_, chunk_frames=chunk_frames,
-                                         mass_weighted=mass_weighted_pca, fit=fit_pca)
+        resolved = yield from _with_pcas(run, resolved, start=start, stop=stop_, mass_weighted=mass_weighted_pca,
+                                         fit=fit_pca)
     consumer = CoordinatesConsumer(run, resolved)
-    return (yield from run_one(run, consumer, label="coordinates", start=start, stop=stop_,
-                               chunk_frames=chunk_frames))
+    return (yield from run_one(run, consumer, label="coordinates", start=start, stop=stop_))
 
 
-def _with_pcas(run: Run, resolved: list[ResolvedCoordinate], *, start: int, stop: int, chunk_frames: int | None,
-               mass_weighted: bool, fit: bool) -> Work[list[ResolvedCoordinate]]:
-    """``resolved`` with the PCA of each pc(k) group attached: one PCA pass per distinct group."""
+def _with_pcas(run: Run, resolved: list[ResolvedCoordinate], *, start: int, stop: int, mass_weighted: bool,
+               fit: bool) -> Work[list[ResolvedCoordinate]]:
+    """``resolved`` with the PCA of each pc(k) group attached: one PCA pass per distinct group (its products
+    in blocks of ``PC_BLOCK_FRAMES`` frames, whatever the reading chunks)."""
     from phasewake.core.analyses.projection import compute_pca
 
     pcas: dict[tuple[int, ...], Any] = {}
@@ -307,7 +308,7 @@ def _with_pcas(run: Run, resolved: list[ResolvedCoordinate], *, start: int, stop
                          if q.function == "pc" and tuple(int(a) for a in q.groups[0]) == key)
             pcas[key] = yield from _relay(
                 compute_pca(run, atom_indices=np.asarray(key), start=start, stop=stop,
-                            chunk_frames=int(chunk_frames or DEFAULT_CHUNK_FRAMES),
+                            block_frames=PC_BLOCK_FRAMES,
                             mass_weighted=mass_weighted, fit=fit, n_components=max(n_comp, 1), projections=False),
                 label=f"PCA for {r.spec}",
             )
@@ -375,7 +376,6 @@ class CoordinatesRequest(AnalysisRequest):
     specs: Sequence[str] = ()
     start: int = 0
     stop: int | None = None
-    chunk_frames: int | None = None
     mass_weighted_pca: bool = True
     fit_pca: bool = True
 
@@ -401,13 +401,12 @@ class CoordinatesRequest(AnalysisRequest):
 
     def work(self, run: Run) -> Work[list[CoordinateSeries]]:
         return (yield from compute_coordinates(run, list(self.specs), start=self.start, stop=self.stop,
-                                               chunk_frames=self.chunk_frames, mass_weighted_pca=self.mass_weighted_pca,
-                                               fit_pca=self.fit_pca))
+                                               mass_weighted_pca=self.mass_weighted_pca, fit_pca=self.fit_pca))
 
     def consumer(self, run: Run) -> CoordinatesConsumer | None:
-        """The coordinates of every frame in a shared pass (its chunks); None for part of the frames, a chunk
-        size of its own, or a pc(k), whose PCA is a pass of its own first."""
-        whole = self.start == 0 and (self.stop is None or self.stop >= run.n_frames) and self.chunk_frames is None
+        """The coordinates of every frame in a shared pass (its chunks); None for part of the frames or a
+        pc(k), whose PCA is a pass of its own first."""
+        whole = self.start == 0 and (self.stop is None or self.stop >= run.n_frames)
         if not whole or any(resolve_for_run(s, run).function == "pc" for s in self.specs):
             return None
         return CoordinatesConsumer(run, self.specs)

@@ -146,7 +146,7 @@ def thirumalai_mountain(values: np.ndarray, *, dt_ps: float, fit_range_ps: tuple
 
 
 def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.ndarray | None = None,
-                                fit_range_ps: tuple[float, float] | None = None, chunk_frames: int = 256,
+                                fit_range_ps: tuple[float, float] | None = None,
                                 start: int = 0, stop: int | None = None, stride: int = 1) -> Work[TMResult]:
     """TM metric of per-atom kinetic energies (1/2 m v^2, kJ/mol) of a run, streamed.
 
@@ -166,7 +166,7 @@ def thirumalai_mountain_kinetic(run: Run, *, atom_indices: Sequence[int] | np.nd
 
     consumer = KineticEnergySeries(run, idx, start=start)
     acc = yield from run_one(run, consumer, label="Thirumalai-Mountain metric", start=start, stop=stop,
-                             stride=stride, chunk_frames=chunk_frames)
+                             stride=stride)
     return acc.finish(dt_ps=dt, fit_range_ps=fit_range_ps, unit="kJ/mol", quantity="kinetic energy per atom",
                       n_particles=int(idx.size))
 
@@ -259,7 +259,6 @@ class ThirumalaiMountainRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int = field(default=256, compare=False)
 
     def __post_init__(self) -> None:
         if self.atom_indices is not None:
@@ -267,5 +266,5 @@ class ThirumalaiMountainRequest(AnalysisRequest):
 
     def work(self, run: Run) -> Work[TMResult]:
         return (yield from thirumalai_mountain_kinetic(
-            run, atom_indices=self.atom_indices, fit_range_ps=self.fit_range_ps, chunk_frames=self.chunk_frames,
+            run, atom_indices=self.atom_indices, fit_range_ps=self.fit_range_ps,
             start=self.start, stop=self.stop, stride=self.stride))

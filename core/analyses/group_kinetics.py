@@ -16,7 +16,6 @@ import numpy as np
 
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 
 if TYPE_CHECKING:
     from phasewake.core.model.run import FrameChunk, Run
@@ -29,7 +28,7 @@ class GroupKinetics:
     time_ps : (n,) ps; kinetic_kJ_per_mol, com_kinetic_kJ_per_mol : (n,) kJ/mol; temperature_K : (n,) K
     group_kinetic_kJ_per_mol : (n, G) kJ/mol, columns in the order of ``group_names``
     groups : per-group temperatures with errors (``temperature.group_temperatures``)
-    settings : n_com, n_constraints, group sizes, start, stop, chunk_frames
+    settings : n_com, n_constraints, group sizes, start, stop
     """
 
     time_ps: np.ndarray
@@ -91,7 +90,7 @@ class GroupTemperatureConsumer:
         self._com: list[np.ndarray] = []
         self._gk: list[np.ndarray] = []
         self._time: list[np.ndarray] = []
-        self._range = (0, 0, DEFAULT_CHUNK_FRAMES)
+        self._range = (0, 0)
         w = np.zeros((run.n_atoms, 1 + len(self.group_atoms)))
         w[:, 0] = 0.5 * self._masses
         for j, idx in enumerate(self.group_atoms.values()):
@@ -103,7 +102,7 @@ class GroupTemperatureConsumer:
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
         if columns is not None:
             raise AnalysisError("the temperature needs every atom's velocity")
-        self._range = (start, stop, chunk_frames)
+        self._range = (start, stop)
 
     def update(self, chunk: FrameChunk) -> None:
         v = chunk.velocities_nm_per_ps
@@ -123,17 +122,17 @@ class GroupTemperatureConsumer:
     def merge(self, later: GroupTemperatureConsumer) -> None:
         from phasewake.core.model.framepass import check_next
 
-        check_next(self._range[:2], later._range[:2], "group temperatures")
+        check_next(self._range, later._range, "group temperatures")
         if list(later.group_atoms) != list(self.group_atoms) or later.n_com != self.n_com:
             raise AnalysisError("group temperatures: only consumers of the same settings can be merged")
         self._kin += later._kin
         self._com += later._com
         self._gk += later._gk
         self._time += later._time
-        self._range = (self._range[0], later._range[1], self._range[2])
+        self._range = (self._range[0], later._range[1])
 
     def finish(self) -> GroupKinetics:
-        start, stop, chunk = self._range
+        start, stop = self._range
         kin = np.concatenate(self._kin) if self._kin else np.zeros(0)
         com = np.concatenate(self._com) if self._com else np.zeros(0)
         names = tuple(self.group_atoms)
@@ -152,6 +151,5 @@ class GroupTemperatureConsumer:
             velocities_estimated=self.velocities_estimated,
             settings={"n_com": self.n_com, "n_constraints": self.n_constraints,
                       "groups": {k: int(v.size) for k, v in self.group_atoms.items()},
-                      "significance_z": self.significance_z, "start": start, "stop": stop,
-                      "chunk_frames": chunk},
+                      "significance_z": self.significance_z, "start": start, "stop": stop},
         )

@@ -22,7 +22,7 @@ These are descriptions of the sampled data; whether a profile is converged is th
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
@@ -520,7 +520,7 @@ class LandscapeRequest(AnalysisRequest):
     an error that says how to state it, never a guess) and the Jacobian: ``"none"`` by default, the same
     profile the crossings analysis suggests its states from (:class:`phasewake.core.analyses.crossings.
     CrossingsRequest`), so the barriers of both agree; ``"auto"`` applies 4 pi r^2 to a distance (from the
-    parsed specification). ``chunk_frames`` only sets the reading (not part of the cache key).
+    parsed specification).
     """
 
     name: ClassVar[str] = "landscape"
@@ -534,7 +534,6 @@ class LandscapeRequest(AnalysisRequest):
     min_depth_kT: float = 1.0
     start: int = 0
     stop: int | None = None
-    chunk_frames: int | None = field(default=None, compare=False)
 
     def work(self, run: Run) -> Work[FreeEnergyProfile]:
         from phasewake.core.analyses.coordinates import compute_coordinates
@@ -543,8 +542,7 @@ class LandscapeRequest(AnalysisRequest):
         temp = self.temperature_K if self.temperature_K is not None else run_temperature(run)[0]
         if temp is None:
             raise AnalysisError(f"no free-energy profile: {UNKNOWN_TEMPERATURE}")
-        series = yield from compute_coordinates(run, [self.coordinate], start=self.start, stop=self.stop,
-                                                chunk_frames=self.chunk_frames)
+        series = yield from compute_coordinates(run, [self.coordinate], start=self.start, stop=self.stop)
         s = series[0]
         v = np.asarray(s.values, dtype=float)
         yield Progress(1, 1, "free-energy profile")

@@ -16,7 +16,6 @@ import numpy as np
 
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
 from phasewake.core.units import KB_KJ_PER_MOL_K
 
 C_CM_PER_PS = 2.99792458e-2  # speed of light (exact), cm/ps
@@ -27,7 +26,7 @@ PCA_BLOCK_BYTES = 32 * 2**20
 
 
 def default_block_frames(n_coordinates: int, itemsize: int = 4) -> int:
-    """Frames per PCA block when ``chunk_frames`` is not given: min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES / row)."""
+    """Frames per PCA block when ``block_frames`` is not given: min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES / row)."""
     return int(max(16, min(PCA_CHUNK_FRAMES, PCA_BLOCK_BYTES // max(1, n_coordinates * itemsize))))
 
 
@@ -73,7 +72,7 @@ class PCAResult(ResultMixin):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int = DEFAULT_CHUNK_FRAMES
+    block_frames: int = 256  # frames per block of the products
     n_iter: int = 0
     oversample: int = 0
     seed: int = 0

@@ -43,7 +43,7 @@ PCA (reshaped to (g, 3), divided by sqrt(mass)) as ``reference_nm``.
 Fitting (``core/superpose.py``): per block, centres and correlation matrices by BLAS products, rotations
 by the quaternion method (Horn 1987; Theobald 2005) in float64, the fitted block in float32 in a
 component-major layout (x0 x1 ... y0 ... z0 ...; eigenvectors and means are returned atom-major). Blocks
-of ``chunk_frames`` frames are gathered across the reader's chunks, so the result does not depend on
+of ``block_frames`` frames are gathered across the reader's chunks, so the result does not depend on
 how a reader cuts the frames. The projection pass fits in float64 (as :func:`pc_value_and_gradient`).
 
 Memory is bounded by the block size and d x d (exact) or d x l (randomized), never the file.
@@ -166,7 +166,7 @@ class PCAReduction:
         *,
         atom_indices: Sequence[int] | np.ndarray | None = None,
         stride: int = 1,
-        chunk_frames: int | None = None,
+        block_frames: int | None = None,
         mass_weighted: bool = True,
         fit: bool = True,
         reference_nm: np.ndarray | None = None,
@@ -200,7 +200,7 @@ class PCAReduction:
                            hint="choose fewer atoms (e.g. pc(1, \"name CA\")) or the randomized route",
                            path=_path(run))
         self.k = int(min(max(1, n_components), self.d))
-        self.block = int(chunk_frames or default_block_frames(self.d, 4 if precision == "float32" else 8))
+        self.block = int(block_frames or default_block_frames(self.d, 4 if precision == "float32" else 8))
         self.stride = int(stride)
         self.mass_weighted, self.fit, self.method = bool(mass_weighted), bool(fit), method
         self.n_iter, self.oversample, self.seed, self.precision = int(n_iter), int(oversample), int(seed), precision
@@ -323,7 +323,7 @@ class PCAReduction:
             momentum_unit="nm amu^1/2/ps" if mw else "nm/ps (velocity projected on unit vector)",
             velocities_estimated=self.velocities_estimated,
             mass_weighted=mw, fit=self.fit, method=self.method, n_components=self.k, start=start, stop=stop,
-            stride=self.stride, chunk_frames=self.block, n_iter=self.n_iter if self.method == "randomized" else 0,
+            stride=self.stride, block_frames=self.block, n_iter=self.n_iter if self.method == "randomized" else 0,
             oversample=self.oversample if self.method == "randomized" else 0, seed=self.seed,
             precision=self.precision,
         )
@@ -418,7 +418,7 @@ def compute_pca(
     start: int = 0,
     stop: int | None = None,
     stride: int = 1,
-    chunk_frames: int | None = None,
+    block_frames: int | None = None,
     mass_weighted: bool = True,
     fit: bool = True,
     reference_nm: np.ndarray | None = None,
@@ -449,9 +449,9 @@ def compute_pca(
         fastest; each extra pass costs another read and gains accuracy: on a synthetic spectrum the
         leading eigenvalues were within ~2% after one pass, 3e-4 after two, 1e-7 after five);
         ``oversample`` extra sketch columns (default 30); ``seed`` of the random sketch.
-    chunk_frames : frames per block of the products (default :func:`default_block_frames`: 2048 frames,
+    block_frames : frames per block of the products (default :func:`default_block_frames`: 2048 frames,
         fewer for big groups, at most 32 MB per block); results depend on it (float32 rounding), not on
-        the reader's chunking
+        the reader's chunking (the covariance pass reads in chunks of one block, within the chunk budget)
     precision : "float32" (fit and products in float32, 3 x 3 algebra and accumulation in float64) or
         "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content (fitted in float64)
@@ -466,7 +466,7 @@ def compute_pca(
         raise AnalysisError(f"unknown PCA method {method!r}: use 'exact' or 'randomized'")
     if n_sel < 2:
         raise TooShortError("a PCA", have=n_sel, need=2)
-    red = PCAReduction(run, atom_indices=atom_indices, stride=stride, chunk_frames=chunk_frames,
+    red = PCAReduction(run, atom_indices=atom_indices, stride=stride, block_frames=block_frames,
                        mass_weighted=mass_weighted, fit=fit, reference_nm=reference_nm, n_components=n_components,
                        method=method, n_iter=n_iter, oversample=oversample, seed=seed, precision=precision,
                        _allow_iterations=True)
@@ -550,7 +550,7 @@ class PCAConsumer(PCAReduction):
 
     Settings are those of :func:`compute_pca` except ``start``, ``stop`` (the pass's) and ``projections``;
     ``finish()`` returns the :class:`PCAResult` that ``compute_pca(run, ..., start=, stop=, projections=False)``
-    returns, to float rounding identical (the same reduction: blocks of ``chunk_frames`` frames whatever the
+    returns, to float rounding identical (the same reduction: blocks of ``block_frames`` frames whatever the
     pass's chunks; reference: the first frame of the pass unless ``reference_nm``). Subspace iteration
     (``n_iter`` > 0) needs more passes and is refused; projections need the eigenvectors, so a later pass
     with :class:`PCAProjectionConsumer`.
@@ -579,7 +579,7 @@ def pca_arrays(
     velocities_nm_per_ps: np.ndarray | None = None,
     time_ps: np.ndarray | None = None,
     atom_indices: Sequence[int] | np.ndarray | None = None,
-    chunk_frames: int | None = None,
+    block_frames: int | None = None,
     mass_weighted: bool = True,
     fit: bool = True,
     reference_nm: np.ndarray | None = None,
@@ -603,7 +603,7 @@ def pca_arrays(
     t = np.arange(pos.shape[0], dtype=np.float64) if time_ps is None else np.asarray(time_ps)
     run = run_from_arrays(pos, t, masses_amu, velocities_nm_per_ps=velocities_nm_per_ps)
     return result_of(compute_pca(
-        run, atom_indices=atom_indices, chunk_frames=chunk_frames, mass_weighted=mass_weighted, fit=fit,
+        run, atom_indices=atom_indices, block_frames=block_frames, mass_weighted=mass_weighted, fit=fit,
         reference_nm=reference_nm, n_components=n_components, method=method, n_iter=n_iter,
         oversample=oversample, seed=seed, precision=precision, projections=projections,
     ))
@@ -648,7 +648,7 @@ class PCARequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int | None = None
+    block_frames: int | None = None
     mass_weighted: bool = True
     fit: bool = True
     reference_nm: Any = field(default=None, hash=False)
@@ -695,5 +695,4 @@ class PCARequest(AnalysisRequest):
 
         if not self.projections:
             return finished
-        return (yield from run_one(run, PCAProjectionConsumer(run, finished), label="PCA projections",
-                                   chunk_frames=finished.chunk_frames))
+        return (yield from run_one(run, PCAProjectionConsumer(run, finished), label="PCA projections"))

@@ -552,11 +552,10 @@ class SamplingRequest(AnalysisRequest):
     replicas: tuple[Run, ...] = ()
     start: int = 0
     stop: int | None = None
-    chunk_frames: int | None = field(default=None, compare=False)
 
     def _read(self, run: Run) -> Work[Series1D]:
         return (yield from read_series(run, series=self.series, coordinate=self.coordinate, start=self.start,
-                                       stop=self.stop, chunk_frames=self.chunk_frames))
+                                       stop=self.stop))
 
     def work(self, run: Run) -> Work[SamplingReport]:
         s = yield from self._read(run)

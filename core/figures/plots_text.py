@@ -42,7 +42,6 @@ _SETTING_WORDS: dict[str, tuple[str, str]] = {
     "block_frames": ("block length", "frames"),
     "n_blocks": ("{} blocks", ""),
     "segment_frames": ("segment length", "frames"),
-    "chunk_frames": ("frames read at a time", ""),
 }
 
 

@@ -121,7 +121,7 @@ def _stop_check(job: str) -> Any:
 
 
 def range_task(job: str, files: parallel.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
-               chunk_frames: int | None) -> dict[str, Any]:
+               chunk_frames: int) -> dict[str, Any]:
     """One frame range on a Dask worker (see :func:`phasewake.core.model.parallel.read_range`)."""
     check = _stop_check(job)
     try:
@@ -166,20 +166,21 @@ def _follow(cl: Any, job: str, futures: list[Any], weights: Sequence[float], tot
             cl.cancel(futures)
 
 
-def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: int, chunk_frames: int | None,
+def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: int,
                  files: parallel.RunFiles | None = None, cl: Any = None) -> Work[dict[str, Any]]:
-    """:func:`phasewake.core.model.parallel.ranges_pass` with the ranges run by Dask workers."""
-    from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
+    """:func:`phasewake.core.model.parallel.ranges_pass` with the ranges run by Dask workers (in chunks of
+    this process's chunk setting)."""
+    from phasewake.core.settings import chunk_frames
 
     cl = cl if cl is not None else _client
     if cl is None:
         raise InputError("no Dask scheduler set (--scheduler ADDRESS)")
     files_ = parallel.files_of(run) if files is None else files
-    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    chunk = chunk_frames()
     ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunk)
     parallel.before_parts(run, consumers, start)
     job = f"phasewake-{uuid.uuid4().hex}"
-    futures = [cl.submit(range_task, job, files_, consumers, a, b, chunk_frames, pure=False)
+    futures = [cl.submit(range_task, job, files_, consumers, a, b, chunk, pure=False)
                for a, b in ranges]
     label = f"one pass on the Dask cluster ({len(ranges)} ranges): " + ", ".join(consumers)
     parts = yield from _follow(cl, job, futures, [b - a for a, b in ranges], stop - start, label)

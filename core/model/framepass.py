@@ -32,8 +32,9 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
+from phasewake.core import settings
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, FrameChunk, WindowFrames
+from phasewake.core.model.run import FrameChunk, WindowFrames
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -129,14 +130,16 @@ def feed(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0, st
     positions want only a few atoms (at most a quarter of the others'), those few are read apart
     (positions and velocities) and the rest without positions, the two reads interleaved chunk by chunk
     (:func:`_plan`). Every consumer sees its frames in order, in chunks of any length (at most
-    ``chunk_frames``, default ``DEFAULT_CHUNK_FRAMES``, fewer when the chunk memory budget says so).
+    :func:`phasewake.core.settings.chunk_frames`, fewer when the chunk memory budget says so; both are
+    read when the pass starts). ``chunk_frames`` is for a loop of the engine's own that reads in the
+    blocks its reduction works in (``projection.compute_pca``); analyses leave it to the setting.
     """
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=run_path(run))
     if not consumers:
         raise AnalysisError("a frame pass needs at least one analysis")
     start_, stop_ = frame_range(run, start, stop)
-    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    chunk = int(chunk_frames) if chunk_frames is not None else settings.chunk_frames()
     reads = []
     for group in _plan(run, consumers):
         columns = _columns(run, group)
@@ -165,8 +168,7 @@ def feed(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0, st
 
 
 def run_pass(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0, stop: int | None = None,
-             stride: int = 1, chunk_frames: int | None = None, label: str | None = None,
-             workers: int | None = None) -> Work[dict[str, Any]]:
+             stride: int = 1, label: str | None = None, workers: int | None = None) -> Work[dict[str, Any]]:
     """Read frames [start, stop) once and feed every chunk to every consumer.
 
     Parameters
@@ -175,8 +177,6 @@ def run_pass(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0
     consumers : mapping name -> :class:`FrameConsumer`
     start, stop, stride : int
         Frame range (``stop`` None: to the end) and step.
-    chunk_frames : int, optional
-        Most frames per chunk (default ``DEFAULT_CHUNK_FRAMES``; the chunk memory budget may cut it).
     label : str, optional
         Progress text (default "one pass: " and the names).
     workers : int, optional
@@ -195,20 +195,18 @@ def run_pass(run: Run, consumers: Mapping[str, FrameConsumer], *, start: int = 0
         from phasewake.core.model import parallel
 
         if parallel.parallel_wanted(run, consumers, start_, stop_, workers):
-            return (yield from parallel.ranges_pass(run, consumers, start=start_, stop=stop_,
-                                                    chunk_frames=chunk_frames, workers=workers))
+            return (yield from parallel.ranges_pass(run, consumers, start=start_, stop=stop_, workers=workers))
     n_total = len(range(start_, stop_, int(stride)))
     text = label if label is not None else "one pass: " + ", ".join(consumers)
-    for done in feed(run, consumers, start=start_, stop=stop_, stride=stride, chunk_frames=chunk_frames):
+    for done in feed(run, consumers, start=start_, stop=stop_, stride=stride):
         yield Progress(done, n_total, text)
     return {name: c.finish() for name, c in consumers.items()}
 
 
 def run_one(run: Run, consumer: FrameConsumer, *, label: str, start: int = 0, stop: int | None = None,
-            stride: int = 1, chunk_frames: int | None = None) -> Work[Any]:
+            stride: int = 1) -> Work[Any]:
     """The pass with one consumer: a single analysis (yields Progress, returns ``consumer.finish()``)."""
-    got = yield from run_pass(run, {label: consumer}, start=start, stop=stop, stride=stride,
-                              chunk_frames=chunk_frames, label=label)
+    got = yield from run_pass(run, {label: consumer}, start=start, stop=stop, stride=stride, label=label)
     return got[label]
 
 
@@ -222,9 +220,9 @@ class FramePass:
         results = drive(fp.work())   # {"q": [...], "T": GroupKinetics}
     """
 
-    def __init__(self, run: Run, *, start: int = 0, stop: int | None = None, chunk_frames: int | None = None) -> None:
+    def __init__(self, run: Run, *, start: int = 0, stop: int | None = None) -> None:
         self.run = run
-        self.start, self.stop, self.chunk_frames = int(start), stop, chunk_frames
+        self.start, self.stop = int(start), stop
         self.consumers: dict[str, FrameConsumer] = {}
 
     def add(self, name: str, consumer: FrameConsumer) -> FramePass:
@@ -234,4 +232,4 @@ class FramePass:
         return self
 
     def work(self) -> Work[dict[str, Any]]:
-        return run_pass(self.run, self.consumers, start=self.start, stop=self.stop, chunk_frames=self.chunk_frames)
+        return run_pass(self.run, self.consumers, start=self.start, stop=self.stop)

@@ -3,9 +3,9 @@
 XTC and TRR are decode-bound (decompressing a frame costs 12-30x reading its bytes) and mdtraj decodes in
 one thread, so a pass over them is as fast as one core. Here a pass over frames [start, stop) is cut into
 consecutive ranges at frame boundaries (every frame of an XTC/TRR with its offsets, of a DCD, NetCDF or
-H5MD is a seekable point), aligned to the chunk size so a consumer that works in blocks of
-``chunk_frames`` frames sees the same blocks as the serial pass. Each range runs the consumers in a worker
-process:
+H5MD is a seekable point), aligned to the chunk size (the chunk setting of :mod:`phasewake.core.settings`,
+handed to every range) so a consumer that works in whole chunks sees the same chunks as the serial pass.
+Each range runs the consumers in a worker process:
 
 * the worker reopens the run from its files and options (:class:`RunFiles`; nothing open is pickled),
   keeping it for the next range it gets; the parent's parsed topologies go along once per worker, so a
@@ -262,7 +262,7 @@ _worker_state: dict[str, Any] = {}
 def _init_worker(done: Any, stop: Any, chunk_mb: float | None, topologies: bytes) -> None:
     """Runs once in each worker process."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to act on (module docstring)
-    from phasewake.core.model.run import set_chunk_budget_mb
+    from phasewake.core.settings import set_chunk_budget_mb
 
     set_chunk_budget_mb(chunk_mb)
     set_workers(1)  # a worker's own passes stay in it: no pools within pools
@@ -282,19 +282,22 @@ def opened(files: RunFiles, runs: dict[bytes, Any]) -> Run:
     return runs[key]
 
 
-def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunk_frames: int | None,
+def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunk_frames: int,
                tick: Callable[[int], None]) -> dict[str, Any]:
-    """Feed frames [start, stop) of ``run`` to ``consumers``; ``tick(frames done)`` after every chunk
-    (it raises to stop). Returns the consumers with their partial state."""
+    """Feed frames [start, stop) of ``run`` to ``consumers`` in chunks of at most ``chunk_frames`` frames;
+    ``tick(frames done)`` after every chunk (it raises to stop). Returns the consumers with their partial
+    state."""
     from phasewake.core.model.framepass import feed
+    from phasewake.core.settings import chunking
 
-    for n in feed(run, consumers, start=start, stop=stop, chunk_frames=chunk_frames):
-        tick(n)
+    with chunking(frames=chunk_frames):  # the parent's setting (a pool may outlive a change of it)
+        for n in feed(run, consumers, start=start, stop=stop):
+            tick(n)
     return dict(consumers)
 
 
 def _range_task(index: int, files: RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
-                chunk_frames: int | None) -> dict[str, Any]:
+                chunk_frames: int) -> dict[str, Any]:
     done, stop_event = _worker_state["done"], _worker_state["stop"]
 
     def tick(n: int) -> None:
@@ -357,7 +360,7 @@ class ProcessRanges:
         import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
 
-        from phasewake.core.model.run import _chunk_mb
+        from phasewake.core.settings import _chunk_mb
 
         ctx = mp.get_context(_START_METHOD)
         if _START_METHOD == "forkserver":  # workers forked from a server that imported these once
@@ -405,8 +408,7 @@ def follow(futures: Sequence[Any], frames_done: Callable[[], float], total: floa
 
 
 def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop: int | None = None,
-                chunk_frames: int | None = None, workers: int | None = None,
-                files: RunFiles | None = None) -> Work[dict[str, Any]]:
+                workers: int | None = None, files: RunFiles | None = None) -> Work[dict[str, Any]]:
     """:func:`~phasewake.core.model.framepass.run_pass` over ``workers`` processes (module docstring).
 
     Parameters
@@ -417,9 +419,6 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
         Built from ``run``; unprepared. They must pickle (no open file in their state).
     start, stop : int
         Frame range (``stop`` None: to the end).
-    chunk_frames : int, optional
-        Frames per chunk in every worker (default ``run.DEFAULT_CHUNK_FRAMES``); memory per worker is
-        about one chunk, bounded by the chunk budget like a serial pass.
     workers : int, optional
         Default :func:`workers_for`. With 1, or consumers without ``merge``, the serial pass runs here.
     files : RunFiles, optional
@@ -431,25 +430,23 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     serial pass's.
     """
     from phasewake.core.model.framepass import frame_range, run_pass
-    from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES
+    from phasewake.core.settings import chunk_frames
 
     start_, stop_ = frame_range(run, start, stop)
     if _on_cluster() and mergeable(consumers) and workers != 1:
         from phasewake.core.model.cluster import cluster_pass
 
-        return (yield from cluster_pass(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames,
-                                        files=files))
+        return (yield from cluster_pass(run, consumers, start=start_, stop=stop_, files=files))
     n = workers_for(run) if workers is None else max(1, int(workers))
-    chunk = int(chunk_frames or DEFAULT_CHUNK_FRAMES)
+    chunk = chunk_frames()  # every worker reads in the chunks a serial pass would (module docstring)
     ranges = cut_ranges(start_, stop_, 2 * n, align=chunk)
     if n <= 1 or len(ranges) < 2 or not mergeable(consumers):
-        return (yield from run_pass(run, consumers, start=start_, stop=stop_, chunk_frames=chunk_frames,
-                                    workers=1))
+        return (yield from run_pass(run, consumers, start=start_, stop=stop_, workers=1))
     files_ = files_of(run) if files is None else files
     before_parts(run, consumers, start_)
     label = f"one pass over {n} workers: " + ", ".join(consumers)
     with ProcessRanges(min(n, len(ranges)), len(ranges), topology_seed(run)) as pool:
-        futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunk_frames)
+        futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunk)
                    for i, (a, b) in enumerate(ranges)]
         yield from follow(futures, pool.frames_done, stop_ - start_, label)
         parts = [f.result() for f in futures]
@@ -526,18 +523,23 @@ def spread_runs(runs: Sequence[Run]) -> bool:
     return usable_cores() > 1 and sum(r.n_frames * r.n_atoms for r in runs) >= MIN_AUTO_ATOM_FRAMES
 
 
-def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunk_frames: int | None) -> Any:
-    """One replica's coordinate series (``compute_coordinates``), in the worker that opens its files."""
+def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunk_frames: int) -> Any:
+    """One replica's coordinate series (``compute_coordinates``, in chunks of at most ``chunk_frames``
+    frames), in the worker that opens its files."""
     from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.progress import drive
+    from phasewake.core.settings import chunking
 
     set_workers(1)  # on a Dask worker too: the replicas are the parallel part
     run = opened(files, _worker_state.setdefault("runs", {}))
-    return drive(compute_coordinates(run, [spec], start=start, stop=stop, chunk_frames=chunk_frames))[0]
+    with chunking(frames=chunk_frames):
+        return drive(compute_coordinates(run, [spec], start=start, stop=stop))[0]
 
 
-def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None,
-                        chunk_frames: int | None = None) -> Work[list[Any]]:
+def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None
+                        ) -> Work[list[Any]]:
     """The coordinate ``spec`` of every run, one worker task per run (:func:`map_workers`), in order."""
-    tasks = [(files_of(r), spec, start, stop, chunk_frames) for r in runs]
+    from phasewake.core.settings import chunk_frames
+
+    tasks = [(files_of(r), spec, start, stop, chunk_frames()) for r in runs]
     return (yield from map_workers(coordinate_series, tasks, label=f"{spec} in {len(runs)} replicas"))

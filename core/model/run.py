@@ -16,50 +16,17 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
+# The chunk settings are process settings (core/settings.py, like the thread count); the frame sources
+# take these names from here.
+from phasewake.core.settings import CHUNK_BUDGET_ENV as CHUNK_BUDGET_ENV
+from phasewake.core.settings import DEFAULT_CHUNK_FRAMES as DEFAULT_CHUNK_FRAMES
+from phasewake.core.settings import DEFAULT_CHUNK_MB as DEFAULT_CHUNK_MB
+from phasewake.core.settings import budget_chunk_frames as budget_chunk_frames
+from phasewake.core.settings import chunk_budget_mb as chunk_budget_mb
+from phasewake.core.settings import set_chunk_budget_mb as set_chunk_budget_mb
+
 if TYPE_CHECKING:  # mdtraj is heavy; import it only where frames or topologies are built
     import mdtraj
-
-DEFAULT_CHUNK_FRAMES = 256
-
-# Memory budget of one chunk (every per-atom array a reader hands out at once). Readers cut the frames
-# per chunk so a chunk stays inside it whatever the number of atoms: 256 frames of 20,000 atoms with
-# positions and velocities in float32 are 123 MB; the same 256 frames of 1,000,000 atoms would be 6 GB.
-CHUNK_BUDGET_ENV = "PHASEWAKE_CHUNK_MB"
-DEFAULT_CHUNK_MB = 128.0
-_chunk_mb: float | None = None  # set_chunk_budget_mb (command line --chunk-mb); None: the environment
-
-
-def set_chunk_budget_mb(mb: float | None) -> None:
-    """Set the chunk memory budget in MB for this process (None: ``PHASEWAKE_CHUNK_MB`` or the default)."""
-    global _chunk_mb
-    if mb is not None and not (mb > 0 and np.isfinite(mb)):
-        raise ValueError(f"the chunk budget must be a positive number of MB, not {mb!r}")
-    _chunk_mb = None if mb is None else float(mb)
-
-
-def chunk_budget_mb() -> float:
-    """The chunk memory budget in MB: :func:`set_chunk_budget_mb`, else ``PHASEWAKE_CHUNK_MB``, else 128."""
-    if _chunk_mb is not None:
-        return _chunk_mb
-    import os
-
-    text = os.environ.get(CHUNK_BUDGET_ENV, "").strip()
-    if text:
-        try:
-            value = float(text)
-        except ValueError:
-            value = float("nan")
-        if value > 0 and np.isfinite(value):
-            return value
-    return DEFAULT_CHUNK_MB
-
-
-def budget_chunk_frames(chunk_frames: int, n_atoms: int, *, n_arrays: int = 1, itemsize: int = 4) -> int:
-    """Frames per chunk: at most ``chunk_frames``, and few enough that ``n_arrays`` arrays of shape
-    (frames, n_atoms, 3) and ``itemsize`` bytes per value fit in :func:`chunk_budget_mb`. At least 1."""
-    per_frame = max(1, int(n_atoms)) * 3 * max(1, int(itemsize)) * max(1, int(n_arrays))
-    fit = int(chunk_budget_mb() * 1e6) // per_frame
-    return max(1, min(int(chunk_frames), fit))
 
 # Roles an energy-table column can play. Readers map file column names onto these.
 ENERGY_ROLES = (

@@ -65,7 +65,6 @@ def open_run(
     n_constraints: int | None = None,
     temperature_K: float | None = None,
     ensemble: str | None = None,
-    chunk_frames: int | None = None,
     group: str | None = None,
     units: Mapping[str, str] | None = None,
     units_style: str | None = None,
@@ -84,7 +83,6 @@ def open_run(
     column_roles : energy-table column name -> role (see ``phasewake.core.model.run.ENERGY_ROLES``),
         overriding recognition by name; a name may carry its unit, "Epot (kcal/mol)".
     timestep_ps, n_constraints, temperature_K, ensemble, **metadata : override RunMetadata fields.
-    chunk_frames : default chunk size for frame iteration (unused by readers that choose their own).
     group : H5MD particle group to read (default: the first with positions).
     units : units the user states for quantities whose files give none, by dimension
         ({"length": "A", "time": "fs", "energy": "kcal/mol", "temperature": "K", ...}); used only where a
@@ -110,8 +108,6 @@ def open_run(
         run.metadata.sources["units_style"] = "stated (--units)"
     _apply_overrides(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
                                     "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
-    if chunk_frames is not None:
-        run.metadata.extra["chunk_frames"] = int(chunk_frames)
     _finish_lammps_dump(run, warnings)
     _attach_velocity_file(run, inputs)
     _estimate_velocities(run, warnings)

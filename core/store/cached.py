@@ -381,12 +381,12 @@ def requested_pass(run: Run, requests: Mapping[str, AnalysisRequest], *, cache: 
 # ---------------------------------------------------------------------------------------------------
 
 def cached_coordinates(run: Run, specs: Sequence[str], *, cache: ResultCache | None = None, start: int = 0,
-                       stop: int | None = None, chunk_frames: int | None = None, mass_weighted_pca: bool = True,
+                       stop: int | None = None, mass_weighted_pca: bool = True,
                        fit_pca: bool = True) -> Work[list[CoordinateSeries]]:
     """``requested(run, CoordinatesRequest.for_run(run, specs, ...))`` (:mod:`phasewake.core.analyses.coordinates`)."""
     from phasewake.core.analyses.coordinates import CoordinatesRequest
 
-    request = CoordinatesRequest.for_run(run, specs, start=start, stop=stop, chunk_frames=chunk_frames,
+    request = CoordinatesRequest.for_run(run, specs, start=start, stop=stop,
                                          mass_weighted_pca=mass_weighted_pca, fit_pca=fit_pca)
     return (yield from requested(run, request, cache=cache))
 

@@ -7,7 +7,7 @@ A series is an energy-table column (``series``: its name or role, e.g. ``"potent
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
@@ -88,8 +88,8 @@ def sample_spacing(time_ps: np.ndarray, what: str) -> float:
     return dt
 
 
-def read_series(run: Run, *, series: str = "", coordinate: str = "", start: int = 0, stop: int | None = None,
-                chunk_frames: int | None = None) -> Work[Series1D]:
+def read_series(run: Run, *, series: str = "", coordinate: str = "", start: int = 0,
+                stop: int | None = None) -> Work[Series1D]:
     """The energy column ``series`` (finite rows of [start, stop)) or the coordinate ``coordinate`` (frames
     [start, stop)) of ``run``: exactly one of them."""
     if bool(series) == bool(coordinate):
@@ -104,7 +104,7 @@ def read_series(run: Run, *, series: str = "", coordinate: str = "", start: int 
                         time_ps=t[ok], values=values[ok])
     from phasewake.core.analyses.coordinates import compute_coordinates
 
-    out = yield from compute_coordinates(run, [coordinate], start=start, stop=stop, chunk_frames=chunk_frames)
+    out = yield from compute_coordinates(run, [coordinate], start=start, stop=stop)
     return Series1D.of_coordinate(out[0])
 
 
@@ -145,11 +145,10 @@ class CorrelationRequest(AnalysisRequest):
     max_lag_ps: float | None = None
     start: int = 0
     stop: int | None = None
-    chunk_frames: int | None = field(default=None, compare=False)
 
     def work(self, run: Run) -> Work[CorrelationReport]:
         s = yield from read_series(run, series=self.series, coordinate=self.coordinate, start=self.start,
-                                   stop=self.stop, chunk_frames=self.chunk_frames)
+                                   stop=self.stop)
         return (yield from self.analyse(s))
 
     def analyse(self, s: Series1D) -> Work[CorrelationReport]:

@@ -4,7 +4,7 @@ Python API. The temperature, kT/m_eff, the profile's Jacobian and every default 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
@@ -53,8 +53,8 @@ class CrossingsRequest(AnalysisRequest):
     - states and surface suggested from the profile when not given (:func:`suggest_states`), refused for
       a stiff bond (:func:`check_not_stiff_bond`).
 
-    ``start``/``stop`` select frames [start, stop) of every run. ``chunk_frames`` only sets how many
-    frames are read at once (it never changes the result and is not part of the cache key).
+    ``start``/``stop`` select frames [start, stop) of every run (how many frames are read at once is the
+    process's chunk setting, :mod:`phasewake.core.settings`: it never changes the result).
     """
 
     name: ClassVar[str] = "crossings"
@@ -70,7 +70,6 @@ class CrossingsRequest(AnalysisRequest):
     replicas: tuple[Run, ...] = ()
     start: int = 0
     stop: int | None = None
-    chunk_frames: int | None = field(default=None, compare=False)
 
     def reference_paths(self, run: Run) -> tuple[str, ...]:
         from phasewake.core.analyses.coordinates import resolve_for_run
@@ -94,11 +93,10 @@ class CrossingsRequest(AnalysisRequest):
 
         if parallel.spread_runs(runs):  # one worker task per replica (--workers, --scheduler)
             return (yield from parallel.replica_coordinates(runs, self.coordinate, start=self.start,
-                                                            stop=self.stop, chunk_frames=self.chunk_frames))
+                                                            stop=self.stop))
         out = []
         for k, r in enumerate(runs):
-            work = compute_coordinates(r, [self.coordinate], start=self.start, stop=self.stop,
-                                       chunk_frames=self.chunk_frames)
+            work = compute_coordinates(r, [self.coordinate], start=self.start, stop=self.stop)
             s = yield from _relay(work, k, len(runs) + 1, r.name)
             out.append(s[0])
         return out
@@ -151,7 +149,6 @@ def crossings_of_runs(
     confidence: float = 0.95,
     kappa_window_ps: tuple[float, float] | None = None,
     temperature_K: float | None = None,
-    chunk_frames: int | None = None,
 ) -> Work[CrossingsResult]:
     """Crossings of ``coordinate`` (a coordinate spec, e.g. ``"distance(0, 1)"``) in one or more runs:
     :class:`CrossingsRequest` on the first run with the others as replicas (their events pool)."""
@@ -160,5 +157,5 @@ def crossings_of_runs(
         raise AnalysisError("no run given")
     request = CrossingsRequest(coordinate=coordinate, states=states, surface=surface, confidence=confidence,
                                kappa_window_ps=kappa_window_ps, temperature_K=temperature_K,
-                               replicas=tuple(run_list[1:]), chunk_frames=chunk_frames)
+                               replicas=tuple(run_list[1:]))
     return (yield from request.work(run_list[0]))

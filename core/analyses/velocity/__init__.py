@@ -131,7 +131,6 @@ class VACFRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int = 256
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
 
     def __post_init__(self) -> None:
@@ -147,9 +146,7 @@ class VACFRequest(AnalysisRequest):
         """The VACF of every frame in a shared pass (None for a part of the frames or a stride)."""
         if not _whole(run, self.start, self.stop, self.stride):
             return None
-        kw = self._keywords()
-        kw.pop("chunk_frames")
-        return VACFConsumer(run, **kw)
+        return VACFConsumer(run, **self._keywords())
 
 
 @dataclass(frozen=True)
@@ -175,7 +172,6 @@ class SpectrumRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int = 256
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
 
     def __post_init__(self) -> None:
@@ -225,7 +221,6 @@ class MSDRequest(AnalysisRequest):
     start: int = 0
     stop: int | None = None
     stride: int = 1
-    chunk_frames: int = 256
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
     dimensions: int = 3
 
@@ -257,7 +252,6 @@ class TransportRequest(AnalysisRequest):
     stop: int | None = None
     n_blocks: int = 5
     with_msd: bool = True
-    chunk_frames: int = 256
     vacf_result: VACFResult | None = field(default=None, compare=False, hash=False, repr=False)
 
     def __post_init__(self) -> None:

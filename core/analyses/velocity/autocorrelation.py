@@ -368,7 +368,6 @@ def vacf(
     start: int = 0,
     stop: int | None = None,
     stride: int = 1,
-    chunk_frames: int = 256,
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES,
 ) -> Work[VACFResult]:
     """Streaming VACF of a run (generator: yields Progress, returns VACFResult): the frame pass with one
@@ -386,8 +385,6 @@ def vacf(
         ``max_buffer_bytes``.
     start, stop, stride : int
         Frames analysed.
-    chunk_frames : int
-        Frames read at a time.
     max_buffer_bytes : int
         Memory allowed for the two blocks of frames.
     """
@@ -396,6 +393,6 @@ def vacf(
     consumer = VACFConsumer(run, groups=groups, mass_weighted=mass_weighted, max_lag_ps=max_lag_ps, start=start,
                             stop=stop, stride=stride, max_buffer_bytes=max_buffer_bytes)
     return (yield from run_one(run, consumer, label="velocity autocorrelation", start=start, stop=stop,
-                               stride=stride, chunk_frames=chunk_frames))
+                               stride=stride))
 
 

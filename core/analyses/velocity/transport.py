@@ -206,7 +206,7 @@ class TransportResult:
 def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
               limit_ps: float | None = None, max_lag_ps: float | None = None,
               fit_range_ps: tuple[float, float] | None = None, start: int = 0, stop: int | None = None,
-              n_blocks: int = 5, with_msd: bool = True, chunk_frames: int = 256,
+              n_blocks: int = 5, with_msd: bool = True,
               vacf_result: VACFResult | None = None) -> Work[TransportResult]:
     """Green-Kubo and Einstein diffusion with error bars and their comparison (generator).
 
@@ -224,7 +224,7 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
     res, msd_res = yield from _vacf_and_msd(run, groups=groups, vacf_lag_ps=max_lag_ps, msd_lag_ps=max_lag_ps,
                                             fit_range_ps=fit_range_ps, start=start, stop=stop,
                                             with_msd=with_msd and run.frames is not None,
-                                            chunk_frames=chunk_frames, known=known)
+                                            known=known)
     gks = [green_kubo(res, group=i, limit_ps=limit_ps) for i in range(len(res.groups))]
     n_total = len(range(start, run.n_frames if stop is None else min(stop, run.n_frames)))
     k_max = max(int(round(g.limit_ps / res.dt_ps)) for g in gks)
@@ -247,7 +247,7 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
                 fit, msd_lag = ((lo, hi) if same else None), (hi + res.dt_ps if same else half)
             rb, mb = yield from _vacf_and_msd(run, groups=groups, vacf_lag_ps=max(k_max + 1, 8) * res.dt_ps,
                                               msd_lag_ps=msd_lag, fit_range_ps=fit, start=s0, stop=s0 + size,
-                                              with_msd=msd_res is not None, chunk_frames=chunk_frames)
+                                              with_msd=msd_res is not None)
             for i, g in enumerate(gks):
                 gk_blocks[i, j] = green_kubo(rb, group=i, limit_ps=g.limit_ps).diffusion_nm2_per_ps
             if mb is not None:
@@ -267,7 +267,7 @@ def transport(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | No
 
 def _vacf_and_msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None, vacf_lag_ps: float | None,
                   msd_lag_ps: float | None, fit_range_ps: tuple[float, float] | None, start: int, stop: int | None,
-                  with_msd: bool, chunk_frames: int, known: VACFResult | None = None
+                  with_msd: bool, known: VACFResult | None = None
                   ) -> Work[tuple[VACFResult, MSDResult | None]]:
     """The VACF (unless ``known``) and the MSD (when ``with_msd``) of frames [start, stop), from one pass."""
     from phasewake.core.analyses.velocity.autocorrelation import VACFConsumer
@@ -280,7 +280,7 @@ def _vacf_and_msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] 
     if with_msd:
         consumers["mean-squared displacement"] = MSDConsumer(run, groups=groups, max_lag_ps=msd_lag_ps,
                                                              fit_range_ps=fit_range_ps, start=start, stop=stop)
-    got = (yield from run_pass(run, consumers, start=start, stop=stop, chunk_frames=chunk_frames)) if consumers else {}
+    got = (yield from run_pass(run, consumers, start=start, stop=stop)) if consumers else {}
     res = known if known is not None else got["velocity autocorrelation"]
     return res, got.get("mean-squared displacement")
 
@@ -617,7 +617,7 @@ def _straddling_squares(before: np.ndarray, after: np.ndarray, group_of_atom: np
 
 def msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = None,
         max_lag_ps: float | None = None, fit_range_ps: tuple[float, float] | None = None,
-        start: int = 0, stop: int | None = None, stride: int = 1, chunk_frames: int = 256,
+        start: int = 0, stop: int | None = None, stride: int = 1,
         max_buffer_bytes: int = DEFAULT_BUFFER_BYTES, dimensions: int = 3) -> Work[MSDResult]:
     """Streaming MSD of a run, positions unwrapped with the box (generator returning MSDResult): the frame
     pass with one :class:`MSDConsumer`."""
@@ -626,6 +626,6 @@ def msd(run: Run, *, groups: Mapping[str, Sequence[int] | np.ndarray] | None = N
     consumer = MSDConsumer(run, groups=groups, max_lag_ps=max_lag_ps, fit_range_ps=fit_range_ps, start=start,
                            stop=stop, stride=stride, max_buffer_bytes=max_buffer_bytes, dimensions=dimensions)
     return (yield from run_one(run, consumer, label="mean-squared displacement", start=start, stop=stop,
-                               stride=stride, chunk_frames=chunk_frames))
+                               stride=stride))
 
 

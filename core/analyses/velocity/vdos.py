@@ -182,7 +182,7 @@ def vdos_from_velocities(velocities_nm_per_ps: np.ndarray, masses_amu: np.ndarra
 def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray | None = None,
                          window: str = "hann", max_lag_ps: float | None = None, n_dof: float | None = None,
                          peak_prominence: float = 0.05, start: int = 0, stop: int | None = None,
-                         stride: int = 1, chunk_frames: int = 256,
+                         stride: int = 1,
                          max_buffer_bytes: int = DEFAULT_BUFFER_BYTES) -> Work[VDOSResult]:
     """Streaming VDOS of a run (generator: yields Progress, returns VDOSResult).
 
@@ -195,7 +195,7 @@ def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray |
     idx = np.arange(run.n_atoms) if atom_indices is None else np.asarray(atom_indices, dtype=np.int64)
     res = yield from vacf(run, groups={"atoms": idx}, mass_weighted=True,
                           max_lag_ps=spectrum_lag_ps(run, max_lag_ps, start, stop, stride), start=start,
-                          stop=stop, stride=stride, chunk_frames=chunk_frames, max_buffer_bytes=max_buffer_bytes)
+                          stop=stop, stride=stride, max_buffer_bytes=max_buffer_bytes)
     return spectrum_from_vacf(run, res, idx, window=window, n_dof=n_dof, peak_prominence=peak_prominence)
 
 
