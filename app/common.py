@@ -106,7 +106,7 @@ def apply_parallel(args: argparse.Namespace) -> None:
 
 def apply_chunk_budget(args: argparse.Namespace) -> None:
     """Use ``--chunk-mb`` for every frame read in this process (no-op when not given)."""
-    from phasewake.core.model.run import set_chunk_budget_mb
+    from phasewake.core.settings import set_chunk_budget_mb
 
     if getattr(args, "chunk_mb", None) is not None:
         set_chunk_budget_mb(args.chunk_mb)

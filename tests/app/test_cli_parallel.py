@@ -80,6 +80,7 @@ CTRL_C_CHILD = textwrap.dedent("""
     from phasewake.core.model import parallel
     from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
+    from phasewake.core.settings import chunking
     from tests.parallel_consumers import FrameSums
 
     run = open_run([sys.argv[1]], topology=sys.argv[2])
@@ -92,8 +93,9 @@ CTRL_C_CHILD = textwrap.dedent("""
 
     try:
         with interrupts.handling():
-            drive(parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.3)}, workers=2, chunk_frames=2),
-                  show, interrupts.token())
+            with chunking(frames=2):
+                drive(parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.3)}, workers=2), show,
+                      interrupts.token())
     except Exception as exc:
         print("stopped:", type(exc).__name__, flush=True)
         sys.exit(130)
@@ -158,11 +160,13 @@ def test_a_script_without_a_main_guard_can_use_workers(tmp_path):
         from phasewake.core.model import parallel
         from phasewake.core.progress import drive
         from phasewake.core.readers import open_run
+        from phasewake.core.settings import chunking
         from tests.parallel_consumers import FrameSums
 
         print("top level ran")
         run = open_run([{str(xtc)!r}], topology={str(pdb)!r})
-        got = drive(parallel.ranges_pass(run, {{"s": FrameSums()}}, workers=2, chunk_frames=8))
+        with chunking(frames=8):
+            got = drive(parallel.ranges_pass(run, {{"s": FrameSums()}}, workers=2))
         print("frames", got["s"]["count"])
     """))
     env = {**os.environ, "PYTHONPATH": str(Path(__file__).resolve().parents[2])}

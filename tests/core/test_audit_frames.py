@@ -19,6 +19,7 @@ from phasewake.core.model.framepass import run_pass
 from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 from tests.counting import counted
 
 
@@ -54,14 +55,16 @@ _counting = counted
 def test_one_pass_feeds_the_audit_and_coordinates_reading_frames_once():
     run, counter = _counting(_water_ions())
     consumers = {"audit": AuditFramesConsumer.for_run(run), "q": CoordinatesConsumer(run, ["distance(0, 1)"])}
-    out = drive(run_pass(run, consumers, chunk_frames=64))
+    with chunking(frames=64):
+        out = drive(run_pass(run, consumers))
     assert counter.calls == 1 and counter.frames_read == run.n_frames
     fr = out["audit"]
     assert fr.kinetic_kJ_per_mol.shape == (run.n_frames,) and out["q"][0].values.shape == (run.n_frames,)
     # the audit fed from the shared pass reads no frames and says exactly what its own pass says
-    shared = drive(audit_run(run, frames=fr, chunk_frames=64))
-    assert counter.calls == 1
-    alone = drive(audit_run(run, chunk_frames=64))
+    with chunking(frames=64):
+        shared = drive(audit_run(run, frames=fr))
+        assert counter.calls == 1
+        alone = drive(audit_run(run))
     assert counter.calls == 2
     assert audit_summary(shared) == audit_summary(alone)
     np.testing.assert_array_equal(shared.temperature.temperature_K, alone.temperature.temperature_K)
@@ -73,7 +76,8 @@ def test_frame_sums_match_their_definitions(chunk):
     run = _water_ions(n_frames=301, thermostatted=False)
     groups = {"water": np.arange(180), "ions": np.arange(180, 200), "some": np.arange(5, 50, 3)}
     c = AuditFramesConsumer(run, groups=groups, infer=True, want_speeds=True, segment_frames=64)
-    fr = drive(run_pass(run, {"a": c}, chunk_frames=chunk))["a"]
+    with chunking(frames=chunk):
+        fr = drive(run_pass(run, {"a": c}))["a"]
     v = np.asarray(run.frames.iter_chunks(chunk_frames=run.n_frames).__next__().velocities_nm_per_ps,
                    dtype=np.float64)
     m = run.masses_amu
@@ -163,15 +167,15 @@ def test_audit_request_consumer_then_after_pass_equals_its_work():
     from phasewake.core.analyses.audit import AuditRequest
 
     run, counter = _counting(_water_ions())
-    request = AuditRequest(groups={"ions": range(180, 200)}, chunk_frames=64)
-    assert request == AuditRequest(groups={"ions": np.arange(180, 200)}, chunk_frames=64)  # indices as tuples
+    request = AuditRequest(groups={"ions": range(180, 200)})
+    assert request == AuditRequest(groups={"ions": np.arange(180, 200)})  # indices as tuples
     consumer = request.consumer(run)
     assert consumer is not None
-    fr = drive(run_pass(run, {"audit": consumer, "q": CoordinatesConsumer(run, ["distance(0, 1)"])},
-                        chunk_frames=request.chunk_frames))["audit"]
-    shared = drive(request.after_pass(run, fr))
-    assert counter.calls == 1
-    alone = drive(request.work(run))
+    with chunking(frames=64):
+        fr = drive(run_pass(run, {"audit": consumer, "q": CoordinatesConsumer(run, ["distance(0, 1)"])}))["audit"]
+        shared = drive(request.after_pass(run, fr))
+        assert counter.calls == 1
+        alone = drive(request.work(run))
     assert counter.calls == 2
     assert audit_summary(shared) == audit_summary(alone)
     assert [g.name for g in alone.temperature.groups].count("ions") == 1
@@ -201,7 +205,8 @@ def test_audit_consumer_merged_from_ranges_equals_the_serial_pass(cuts, max_segm
     exactly, the spectrum and the pair statistics to float64 rounding of their sums)."""
     run = _water_ions(n_frames=1200)
     make = lambda: AuditFramesConsumer.for_run(run, segment_frames=64, max_spectrum_segments=max_segments)  # noqa: E731
-    serial = drive(run_pass(run, {"a": make()}, chunk_frames=50, workers=1))["a"]
+    with chunking(frames=50):
+        serial = drive(run_pass(run, {"a": make()}, workers=1))["a"]
     bounds = [0, *cuts, run.n_frames]
     parts = [_fed(run, make(), lo, hi, 50) for lo, hi in zip(bounds[:-1], bounds[1:], strict=False)]
     merged = parts[0]

@@ -110,3 +110,29 @@ def test_command_line_chunk_option(tmp_path):
     ok = subprocess.run([sys.executable, "-m", "phasewake.app.cli", "coords", str(SAMPLE), "-c", "distance(0, 1)",
                          "--chunk-mb", "0.5", "--no-cache", "--json"], capture_output=True, text=True)
     assert ok.returncode == 0, ok.stderr
+
+
+def test_chunking_setting_sets_every_pass_and_comes_back():
+    """``chunking(frames=)`` sets the most frames per chunk of a pass driven inside the block (chunk starts
+    0, 7, 14, ...: plain arithmetic), the memory budget may still cut it, and both settings come back on
+    leaving the block, also when a value is refused."""
+    from phasewake.core import settings
+    from phasewake.core.model.framepass import run_pass
+    from tests.parallel_consumers import FrameSums
+
+    run = run_from_arrays(np.zeros((50, 4, 3), np.float32), np.arange(50) * 0.1, np.ones(4))
+    with settings.chunking(frames=7):
+        assert settings.chunk_frames() == 7
+        got = drive(run_pass(run, {"s": FrameSums()}))["s"]
+    assert got["first_frames"] == list(range(0, 50, 7)) and got["count"] == 50
+    assert settings.chunk_frames() == settings.DEFAULT_CHUNK_FRAMES
+    with settings.chunking(frames=20, mb=4 * 3 * 4 * 3 / 1e6):  # 3 frames of one float32 array of 4 atoms
+        assert chunk_budget_mb() == pytest.approx(1.44e-4)
+        got = drive(run_pass(run, {"s": FrameSums(atoms=(0, 1, 2, 3))}))["s"]
+    assert max(np.diff([*got["first_frames"], 50])) <= 3 and got["count"] == 50
+    assert chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB and settings.chunk_frames() == 256
+    with pytest.raises(ValueError), settings.chunking(frames=0):
+        pass
+    with pytest.raises(ValueError), settings.chunking(frames=3, mb=-1.0):
+        pass
+    assert settings.chunk_frames() == 256 and chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB

@@ -10,6 +10,7 @@ from phasewake.core.errors import CorruptFileError, InputError
 from phasewake.core.model import cluster, parallel
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
+from phasewake.core.settings import chunking
 from tests.core.test_parallel import _damage_frame, _same, _serial, make_xtc
 from tests.parallel_consumers import FrameSums
 
@@ -42,15 +43,17 @@ def test_frame_ranges_on_the_cluster_equal_the_serial_pass(tmp_path, on_cluster)
     xtc, pdb = make_xtc(tmp_path, n_frames=150)
     run = open_run([xtc], topology=pdb)
     records = []
-    got = drive(parallel.ranges_pass(run, {"a": FrameSums(), "b": FrameSums(atoms=(2, 9))}, start=3,
-                                     chunk_frames=8), records.append)
+    with chunking(frames=8):
+        got = drive(parallel.ranges_pass(run, {"a": FrameSums(), "b": FrameSums(atoms=(2, 9))}, start=3),
+                    records.append)
     _same(got["a"], _serial(run, 3, None, 8))
     _same(got["b"], _serial(run, 3, None, 8, atoms=(2, 9)))
     assert records[-1].done == records[-1].total == 147
     # run_pass goes to the cluster as soon as a scheduler is set
     from phasewake.core.model.framepass import run_pass
 
-    _same(drive(run_pass(run, {"s": FrameSums()}, chunk_frames=8))["s"], _serial(run, 0, None, 8))
+    with chunking(frames=8):
+        _same(drive(run_pass(run, {"s": FrameSums()}))["s"], _serial(run, 0, None, 8))
 
 
 def test_a_damaged_frame_on_a_dask_worker_is_the_serial_error(tmp_path, on_cluster):
@@ -58,9 +61,9 @@ def test_a_damaged_frame_on_a_dask_worker_is_the_serial_error(tmp_path, on_clust
     _damage_frame(xtc, 101)  # a frame whose damage the decoder notices (not every flipped byte is)
     run = open_run([xtc], topology=pdb)
     with pytest.raises(CorruptFileError) as serial:
-        _serial(run, chunk_frames=10)
-    with pytest.raises(CorruptFileError) as remote:
-        drive(parallel.ranges_pass(run, {"s": FrameSums()}, chunk_frames=10))
+        _serial(run, frames=10)
+    with pytest.raises(CorruptFileError) as remote, chunking(frames=10):
+        drive(parallel.ranges_pass(run, {"s": FrameSums()}))
     assert str(remote.value) == str(serial.value) and remote.value.path == xtc
 
 

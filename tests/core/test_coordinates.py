@@ -23,6 +23,7 @@ from phasewake.core.analyses.coordinates import (
 from phasewake.core.analyses.coordspec import resolve
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 exact (REFERENCES.md section 9)
 
@@ -180,7 +181,8 @@ def test_harmonic_oscillator_phase_portrait_area_and_arcsine_marginal():
     vel = np.zeros_like(pos)
     vel[:, 0, 0] = v
     run = run_from_arrays(pos, np.arange(x.size) * dt, np.array([m]), velocities_nm_per_ps=vel)
-    (s,) = result_of(compute_coordinates(run, ["x(0)"], chunk_frames=1000))
+    with chunking(frames=1000):
+        (s,) = result_of(compute_coordinates(run, ["x(0)"]))
     assert s.momentum_unit == "amu nm/ps" and not s.velocities_estimated
     np.testing.assert_allclose(s.m_eff, m)
     q, p = s.values, s.momentum
@@ -206,7 +208,8 @@ def test_streaming_equals_whole_arrays_and_pbc():
     m = rng.uniform(1, 40, na)
     specs = ["distance(0, 6)", "angle(1, 2, 3)", "dihedral(0, 2, 4, 6)", "com_distance([0-2], [4, 5])", "y(5)"]
     run = run_from_arrays(pos, np.arange(n) * 0.01, m, velocities_nm_per_ps=vel, box_nm=box)
-    series = result_of(compute_coordinates(run, specs, chunk_frames=10))
+    with chunking(frames=10):
+        series = result_of(compute_coordinates(run, specs))
     for spec, s in zip(specs, series, strict=True):
         v, dq, me = evaluate_arrays(resolve(spec, n_atoms=na), pos, vel, m, box)
         np.testing.assert_allclose(s.values, v, rtol=1e-12, atol=1e-12)
@@ -216,7 +219,8 @@ def test_streaming_equals_whole_arrays_and_pbc():
     np.testing.assert_allclose(series[0].values, md.compute_distances(t, [[0, 6]], periodic=True)[:, 0], atol=5e-6)
     assert series[2].periodic and series[2].unit == "rad" and series[1].m_eff_unit == "amu nm^2/rad^2"
     # a range of frames
-    part = result_of(compute_coordinates(run, ["distance(0, 6)"], start=100, stop=150, chunk_frames=16))[0]
+    with chunking(frames=16):
+        part = result_of(compute_coordinates(run, ["distance(0, 6)"], start=100, stop=150))[0]
     np.testing.assert_allclose(part.values, series[0].values[100:150])
     np.testing.assert_allclose(part.time_ps, np.arange(100, 150) * 0.01)
 

@@ -26,6 +26,7 @@ from phasewake.core.analyses.crossings import (
 from phasewake.core.analyses.landscape import jacobian_of
 from phasewake.core.errors import AnalysisError
 from phasewake.core.progress import result_of
+from phasewake.core.settings import chunking
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
@@ -94,8 +95,10 @@ def test_unknown_jacobian_refused():
 
 
 def test_settings_are_the_cache_key_without_chunking():
-    a = CrossingsRequest(coordinate="distance(0, 1)", chunk_frames=10)
-    b = CrossingsRequest(coordinate="distance(0, 1)", chunk_frames=999)
+    with chunking(frames=10):
+        a = CrossingsRequest(coordinate="distance(0, 1)")
+    with chunking(frames=999):
+        b = CrossingsRequest(coordinate="distance(0, 1)")
     assert a == b and a.settings() == b.settings() and "chunk_frames" not in a.settings()
     assert a.settings()["jacobian"] == "none" and a.settings()["temperature_K"] is None
 

@@ -13,6 +13,7 @@ from phasewake.core.analyses.energy_events import find_energy_events
 from phasewake.core.errors import MissingDataError
 from phasewake.core.model.run import EnergyTable, RunMetadata, Series
 from phasewake.core.progress import Progress, drive
+from phasewake.core.settings import chunking
 
 
 def verlet_oscillator(dt, *, n_periods=200, m=1.0, w=1.0, x0=1.0):
@@ -277,7 +278,8 @@ def test_audit_nve_traps_against_analytic_values():
     run = _trap_run(dt=dt, w=w, n_atoms=n,
                     temperature_col=lambda k: 2 * k / ((3 * n - 3) * 0.00831446261815324))
     seen = []
-    res = drive(audit_run(run, chunk_frames=500), seen.append)
+    with chunking(frames=500):
+        res = drive(audit_run(run), seen.append)
     assert seen and all(isinstance(p, Progress) for p in seen)
     fl = res.energy.fluctuations
     # independent identical VV oscillators: E = H~ - K a/(1 - a) with a = (w dt)^2/4 (Tuckerman 2010

@@ -23,6 +23,7 @@ from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
@@ -40,15 +41,17 @@ def _synthetic(n_frames=240, n_atoms=10, seed=11):
                            metadata=RunMetadata(n_constraints=0, com_motion_removed=False))
 
 
-def split_and_merge(run, make, cuts, *, start=0, stop=None, chunk_frames=None):
-    """Feed ``make()`` consumers frames [start, c0), [c0, c1), ..., pickle each, merge in order, finish."""
+def split_and_merge(run, make, cuts, *, start=0, stop=None, frames=None):
+    """Feed ``make()`` consumers frames [start, c0), [c0, c1), ... (in chunks of at most ``frames``
+    frames), pickle each, merge in order, finish."""
     stop = run.n_frames if stop is None else stop
     edges = [start, *cuts, stop]
     parts = []
     for lo, hi in zip(edges[:-1], edges[1:], strict=True):
         c = make()
-        for _ in feed(run, {"c": c}, start=lo, stop=hi, chunk_frames=chunk_frames):
-            pass
+        with chunking(frames=frames):
+            for _ in feed(run, {"c": c}, start=lo, stop=hi):
+                pass
         parts.append(pickle.loads(pickle.dumps(c)))
     first = parts[0]
     for later in parts[1:]:
@@ -81,8 +84,9 @@ def test_coordinates_merge_equals_the_serial_pass(cuts, chunk):
     # per-frame values: equal to 1e-12 relative (a chunk of another length, e.g. one frame, may round
     # the vectorised products differently in the last bit)
     run = _synthetic()
-    serial = drive(compute_coordinates(run, SPECS, chunk_frames=chunk))
-    got = split_and_merge(run, lambda: CoordinatesConsumer(run, SPECS), cuts, chunk_frames=chunk)
+    with chunking(frames=chunk):
+        serial = drive(compute_coordinates(run, SPECS))
+    got = split_and_merge(run, lambda: CoordinatesConsumer(run, SPECS), cuts, frames=chunk)
     for a, b in zip(got, serial, strict=True):
         _equal(a, b, rtol=1e-12, atol=1e-15)
 
@@ -115,8 +119,9 @@ def test_group_temperatures_merge_equals_the_serial_pass(cuts):
     # group statistics come from them in finish
     run = _synthetic()
     groups = {"first": np.arange(4), "rest": np.arange(4, 10)}
-    serial = drive(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0)}, chunk_frames=19))["T"]
-    got = split_and_merge(run, lambda: GroupTemperatureConsumer(run, groups=groups, n_com=0), cuts, chunk_frames=19)
+    with chunking(frames=19):
+        serial = drive(run_pass(run, {"T": GroupTemperatureConsumer(run, groups=groups, n_com=0)}))["T"]
+    got = split_and_merge(run, lambda: GroupTemperatureConsumer(run, groups=groups, n_com=0), cuts, frames=19)
     _equal(got, serial, rtol=1e-12, atol=1e-12)
 
 
@@ -128,8 +133,9 @@ def test_vacf_merge_adds_the_origin_pairs_across_each_cut(lag_ps, cuts, chunk):
     run = _synthetic()
     groups = {"a": [0, 2, 4], "b": [5, 6, 7, 8]}
     kw = {"groups": groups, "mass_weighted": True, "max_lag_ps": lag_ps}
-    serial = drive(vacf(run, **kw, chunk_frames=chunk))
-    got = split_and_merge(run, lambda: VACFConsumer(run, **kw), cuts, chunk_frames=chunk)
+    with chunking(frames=chunk):
+        serial = drive(vacf(run, **kw))
+    got = split_and_merge(run, lambda: VACFConsumer(run, **kw), cuts, frames=chunk)
     assert got.n_frames == serial.n_frames and got.vacf.shape == serial.vacf.shape
     _equal(got, serial, rtol=1e-6, atol=1e-6 * np.abs(serial.vacf_sum).max())
 
@@ -164,9 +170,9 @@ def _pca_consumer(run, **kw):
 def test_pca_merge_equals_the_serial_pass(method, cuts):
     # sums of fitted float32 displacements over other blocks: eigenvalues and projections to 1e-5 relative
     run = _synthetic()
-    kw = {"atom_indices": np.arange(10), "n_components": 3, "method": method, "chunk_frames": 64}
+    kw = {"atom_indices": np.arange(10), "n_components": 3, "method": method, "block_frames": 64}
     serial = drive(compute_pca(run, **kw, projections=False))
-    got = split_and_merge(run, lambda: _pca_consumer(run, **kw), cuts, chunk_frames=23)
+    got = split_and_merge(run, lambda: _pca_consumer(run, **kw), cuts, frames=23)
     assert got.n_frames == serial.n_frames and (got.start, got.stop) == (serial.start, serial.stop)
     np.testing.assert_allclose(got.eigenvalues, serial.eigenvalues, rtol=1e-5)
     np.testing.assert_allclose(got.mean, serial.mean, rtol=1e-6)
@@ -188,8 +194,9 @@ def test_pca_projection_merge_equals_the_serial_pass():
     # contents from them in finish
     run = _synthetic()
     pca = drive(compute_pca(run, atom_indices=np.arange(10), n_components=3, projections=False))
-    serial = drive(run_pass(run, {"p": PCAProjectionConsumer(run, pca)}, chunk_frames=31))["p"]
-    got = split_and_merge(run, lambda: PCAProjectionConsumer(run, pca), [1, 90, 91], chunk_frames=31)
+    with chunking(frames=31):
+        serial = drive(run_pass(run, {"p": PCAProjectionConsumer(run, pca)}))["p"]
+    got = split_and_merge(run, lambda: PCAProjectionConsumer(run, pca), [1, 90, 91], frames=31)
     _equal(got, serial, rtol=1e-12, atol=1e-12)
 
 
@@ -226,8 +233,9 @@ def test_msd_merge_equals_the_serial_pass_across_box_crossings(cuts, chunk):
     pos = np.mod(np.cumsum(steps, axis=0), 2.0).astype(np.float32)  # wrapped into a 2 nm box
     run = run_from_arrays(pos, np.arange(240) * 0.01, np.ones(6), box_nm=np.array([2.0, 2.0, 2.0]))
     kw = {"groups": {"a": [0, 1, 2], "b": [3, 4]}, "max_lag_ps": 0.6}
-    serial = drive(msd(run, **kw, chunk_frames=chunk))
-    got = split_and_merge(run, lambda: MSDConsumer(run, **kw), cuts, chunk_frames=chunk)
+    with chunking(frames=chunk):
+        serial = drive(msd(run, **kw))
+    got = split_and_merge(run, lambda: MSDConsumer(run, **kw), cuts, frames=chunk)
     assert got.n_frames == serial.n_frames
     _equal(got, serial, rtol=1e-9, atol=1e-12)
 

@@ -22,6 +22,7 @@ from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 from tests.counting import CountingFrames, counted
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -68,8 +69,9 @@ SPECS = ["distance(0, 1)", "angle(0, 1, 2)", "dihedral(2, 3, 4, 5)", "com_distan
 
 def test_coordinates_equal_compute_coordinates_synthetic():
     run = _synthetic()
-    sep = drive(compute_coordinates(run, SPECS, start=10, stop=250, chunk_frames=64))
-    got = drive(run_pass(run, {"q": CoordinatesConsumer(run, SPECS)}, start=10, stop=250, chunk_frames=64))["q"]
+    with chunking(frames=64):
+        sep = drive(compute_coordinates(run, SPECS, start=10, stop=250))
+        got = drive(run_pass(run, {"q": CoordinatesConsumer(run, SPECS)}, start=10, stop=250))["q"]
     _assert_series_equal(got, sep)
 
 
@@ -102,8 +104,9 @@ def test_vacf_equals_vacf_synthetic_groups_and_mass_weighting():
     run = _synthetic()
     groups = {"a": [0, 2, 4], "b": [5, 6, 7, 8]}
     sep = drive(vacf(run, groups=groups, mass_weighted=True, max_lag_ps=0.5, start=5, stop=280))
-    got = drive(run_pass(run, {"v": VACFConsumer(run, groups=groups, mass_weighted=True, max_lag_ps=0.5,
-                                                 start=5, stop=280)}, start=5, stop=280, chunk_frames=37))["v"]
+    with chunking(frames=37):
+        got = drive(run_pass(run, {"v": VACFConsumer(run, groups=groups, mass_weighted=True, max_lag_ps=0.5,
+                                                     start=5, stop=280)}, start=5, stop=280))["v"]
     for f in fields(sep):
         x, y = getattr(sep, f.name), getattr(got, f.name)
         if isinstance(x, np.ndarray):
@@ -166,10 +169,11 @@ def test_frames_are_read_once_for_three_analyses():
 
     counter = Spy(run0.frames)
     run = dataclasses.replace(run0, frames=counter)
-    fp = FramePass(run, start=0, stop=None, chunk_frames=50)
+    fp = FramePass(run, start=0, stop=None)
     fp.add("q", CoordinatesConsumer(run, ["distance(0, 1)", "angle(0, 1, 2)"]))
     fp.add("T", GroupTemperatureConsumer(run, n_com=0)).add("v", VACFConsumer(run, max_lag_ps=0.3))
-    out = drive(fp.work())
+    with chunking(frames=50):
+        out = drive(fp.work())
     assert set(out) == {"q", "T", "v"}
     if run.n_atoms >= 12:  # the coordinates' 3 atoms are read apart; everybody's velocities without positions
         assert counter.calls == 2
@@ -180,7 +184,8 @@ def test_frames_are_read_once_for_three_analyses():
         assert counter.calls == 1
     assert counter.frames_read == counter.calls * run.n_frames  # every frame once per read
     # the separate analyses read the frames once each, and agree with the pass
-    sep_q = drive(compute_coordinates(run, ["distance(0, 1)", "angle(0, 1, 2)"], chunk_frames=50))
+    with chunking(frames=50):
+        sep_q = drive(compute_coordinates(run, ["distance(0, 1)", "angle(0, 1, 2)"]))
     sep_v = drive(vacf(run, max_lag_ps=0.3))
     np.testing.assert_allclose(out["v"].vacf, sep_v.vacf, rtol=1e-10)
     for a, b in zip(out["q"], sep_q, strict=True):
@@ -252,18 +257,20 @@ def test_pca_coordinates_and_vacf_in_one_pass_equal_the_separate_calls(method):
     run0 = _synthetic(n_frames=260, n_atoms=12)
     run, counter = _counting(run0)
     group = [2, 3, 4, 5, 6, 7, 8, 9]  # not all atoms: the pass reads the union with the coordinates' atoms
-    settings = {"atom_indices": group, "method": method, "n_components": 4, "chunk_frames": 64, "oversample": 8}
-    fp = FramePass(run, chunk_frames=37)  # other chunks than the PCA's blocks: the result must not change
+    settings = {"atom_indices": group, "method": method, "n_components": 4, "block_frames": 64, "oversample": 8}
+    fp = FramePass(run)
     fp.add("pca", PCAConsumer(run, **settings)).add("q", CoordinatesConsumer(run, ["distance(0, 1)"]))
     fp.add("v", VACFConsumer(run, max_lag_ps=0.3))
-    out = drive(fp.work())
+    with chunking(frames=37):  # other chunks than the PCA's blocks: the result must not change
+        out = drive(fp.work())
     assert counter.calls == 1 and counter.frames_read == run.n_frames
     sep = drive(compute_pca(run0, projections=False, **settings))
     _pca_equal(out["pca"], sep)
     # the same blocks of frames meet the same BLAS calls: bitwise equal, whatever the pass's chunks
     np.testing.assert_array_equal(out["pca"].eigenvalues, sep.eigenvalues)
     np.testing.assert_array_equal(out["pca"].eigenvectors, sep.eigenvectors)
-    _assert_series_equal(out["q"], drive(compute_coordinates(run0, ["distance(0, 1)"], chunk_frames=37)))
+    with chunking(frames=37):
+        _assert_series_equal(out["q"], drive(compute_coordinates(run0, ["distance(0, 1)"])))
     np.testing.assert_allclose(out["v"].vacf, drive(vacf(run0, max_lag_ps=0.3)).vacf, rtol=1e-10)
 
 

@@ -22,6 +22,7 @@ from phasewake.core.model import parallel
 from phasewake.core.model.framepass import run_pass
 from phasewake.core.progress import CancelToken, drive
 from phasewake.core.readers import open_run
+from phasewake.core.settings import chunking
 from tests.parallel_consumers import FrameSums, NoMerge
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -47,8 +48,10 @@ def make_xtc(folder: Path, n_atoms: int = 30, n_frames: int = 61, *, name: str =
     return xtc, pdb
 
 
-def _serial(run, start=0, stop=None, chunk_frames=None, **kw):
-    return drive(run_pass(run, {"s": FrameSums(**kw)}, start=start, stop=stop, chunk_frames=chunk_frames))["s"]
+def _serial(run, start=0, stop=None, frames=None, **kw):
+    """The serial pass, in chunks of at most ``frames`` frames (None: the default chunk setting)."""
+    with chunking(frames=frames):
+        return drive(run_pass(run, {"s": FrameSums(**kw)}, start=start, stop=stop))["s"]
 
 
 def _same(a, b):
@@ -79,7 +82,7 @@ def test_awkward_splits_merge_to_the_serial_pass(tmp_path):
     # ranges of one frame, one cut inside a chunk, uneven tails; read in this process, merged in order
     xtc, pdb = make_xtc(tmp_path)
     run = open_run([xtc], topology=pdb)
-    serial = _serial(run, chunk_frames=8)
+    serial = _serial(run, frames=8)
     for edges in ([0, 1, 2, 61], [0, 30, 31, 61], [0, 13, 60, 61], [0, 61]):
         parts = []
         for a, b in zip(edges[:-1], edges[1:]):
@@ -91,14 +94,16 @@ def test_awkward_splits_merge_to_the_serial_pass(tmp_path):
 def test_parallel_pass_equals_the_serial_pass_on_a_sample_run_and_an_xtc(tmp_path):
     run = open_run([SAMPLES / "dimer_nve.dcd"], topology=SAMPLES / "dimer_nve.pdb")
     records = []
-    got = drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2, chunk_frames=64), records.append)
-    _same(got["s"], _serial(run, chunk_frames=64))
+    with chunking(frames=64):
+        got = drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2), records.append)
+    _same(got["s"], _serial(run, frames=64))
     assert records and records[-1].done == run.n_frames and records[-1].total == run.n_frames
 
     xtc, pdb = make_xtc(tmp_path, n_frames=203)
     run = open_run([xtc], topology=pdb)
-    got = drive(parallel.ranges_pass(run, {"a": FrameSums(), "b": FrameSums(atoms=(3, 7, 29))}, workers=2,
-                                     start=11, stop=190, chunk_frames=16))
+    with chunking(frames=16):
+        got = drive(parallel.ranges_pass(run, {"a": FrameSums(), "b": FrameSums(atoms=(3, 7, 29))}, workers=2,
+                                         start=11, stop=190))
     _same(got["a"], _serial(run, 11, 190, 16))
     _same(got["b"], _serial(run, 11, 190, 16, atoms=(3, 7, 29)))
     # ranges start at chunk multiples after the start: every chunk is a chunk of the serial pass
@@ -108,8 +113,9 @@ def test_parallel_pass_equals_the_serial_pass_on_a_sample_run_and_an_xtc(tmp_pat
 def test_a_consumer_without_merge_keeps_the_pass_serial(tmp_path):
     xtc, pdb = make_xtc(tmp_path)
     run = open_run([xtc], topology=pdb)
-    got = drive(parallel.ranges_pass(run, {"s": NoMerge()}, workers=2, chunk_frames=8))
-    _same(got["s"], _serial(run, chunk_frames=8))
+    with chunking(frames=8):
+        got = drive(parallel.ranges_pass(run, {"s": NoMerge()}, workers=2))
+    _same(got["s"], _serial(run, frames=8))
 
 
 def test_workers_default_to_the_usable_cores_for_decode_bound_formats(monkeypatch, tmp_path):
@@ -147,9 +153,9 @@ def test_a_damaged_frame_in_one_worker_fails_the_pass_with_the_serial_error(tmp_
     _damage_frame(xtc, 101)
     run = open_run([xtc], topology=pdb)
     with pytest.raises(CorruptFileError) as serial:
-        _serial(run, chunk_frames=10)
-    with pytest.raises(CorruptFileError) as par:
-        drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2, chunk_frames=10))
+        _serial(run, frames=10)
+    with pytest.raises(CorruptFileError) as par, chunking(frames=10):
+        drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2))
     assert str(par.value) == str(serial.value)
     assert par.value.path == serial.value.path == xtc and "100" in str(par.value)
     assert not any(p.is_alive() for p in __import__("multiprocessing").active_children())
@@ -167,9 +173,8 @@ def test_cancel_stops_every_worker(tmp_path):
             token.cancel()
 
     t0 = time.monotonic()
-    with pytest.raises(Cancelled):
-        drive(parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.05)}, workers=2, chunk_frames=4),
-              on_progress, token)
+    with pytest.raises(Cancelled), chunking(frames=4):
+        drive(parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.05)}, workers=2), on_progress, token)
     # serially the pass would take 100 chunks x 0.05 s = 5 s; stopped, it ends one chunk after the cancel
     assert time.monotonic() - t0 < 4.0 + 3.0  # generous: worker start-up on a loaded machine
     assert seen[-1] < 400
@@ -229,12 +234,14 @@ def test_run_pass_with_workers_goes_through_the_ranges(tmp_path, monkeypatch):
         return (yield from real(*a, **kw))
 
     monkeypatch.setattr(parallel, "ranges_pass", spy)
-    got = drive(run_pass(run, {"s": FrameSums()}, workers=2, chunk_frames=16))
+    with chunking(frames=16):
+        got = drive(run_pass(run, {"s": FrameSums()}, workers=2))
     assert used == [2]
-    _same(got["s"], _serial(run, chunk_frames=16))
+    _same(got["s"], _serial(run, frames=16))
     # a small pass with nothing asked for stays in this process (workers would cost more than they save)
     monkeypatch.delenv(parallel.WORKERS_ENV, raising=False)
-    drive(run_pass(run, {"s": FrameSums()}, chunk_frames=16))
+    with chunking(frames=16):
+        drive(run_pass(run, {"s": FrameSums()}))
     assert used == [2]
 
 
@@ -255,8 +262,9 @@ def test_every_consumer_over_two_workers_equals_the_serial_pass():
                 "T": GroupTemperatureConsumer(run), "v": VACFConsumer(run, max_lag_ps=0.2),
                 "p": PCAConsumer(run, atom_indices=np.arange(12), n_components=3, method="exact")}
 
-    serial = drive(run_pass(run, consumers(), chunk_frames=128, workers=1))
-    par = drive(parallel.ranges_pass(run, consumers(), chunk_frames=128, workers=2))
+    with chunking(frames=128):
+        serial = drive(run_pass(run, consumers(), workers=1))
+        par = drive(parallel.ranges_pass(run, consumers(), workers=2))
     assert parallel.cut_ranges(0, 1600, 4, align=128) == [(0, 384), (384, 768), (768, 1152), (1152, 1600)]
     for a, b in zip(par["q"], serial["q"], strict=True):
         np.testing.assert_array_equal(a.time_ps, b.time_ps)

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from sklearn.decomposition import PCA
 
-from phasewake.core.analyses.coordinates import compute_coordinates
+from phasewake.core.analyses.coordinates import PC_BLOCK_FRAMES, compute_coordinates
 from phasewake.core.analyses.projection import (
     compute_pca,
     cosine_content,
@@ -19,6 +19,7 @@ from phasewake.core.analyses.projection import (
 )
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 
 KB = 0.00831446261815324  # kJ/mol/K (REFERENCES.md section 9)
 
@@ -32,7 +33,7 @@ def _correlated(n=4000, g=10, seed=0):
 
 def test_exact_pca_matches_scikit_learn():
     pos, m = _correlated()
-    res = pca_arrays(pos, m, mass_weighted=True, fit=False, n_components=6, chunk_frames=128)
+    res = pca_arrays(pos, m, mass_weighted=True, fit=False, n_components=6, block_frames=128)
     y = (pos.astype(np.float64) * np.sqrt(m)[None, :, None]).reshape(len(pos), -1)
     sk = PCA(n_components=6).fit(y)  # scikit-learn: covariance with ddof=1, like ours
     np.testing.assert_allclose(res.eigenvalues, sk.explained_variance_, rtol=1e-6)
@@ -49,12 +50,12 @@ def test_exact_pca_matches_scikit_learn():
 def test_streaming_equals_in_memory():
     pos, m = _correlated(n=3001)
     # the chunking itself changes nothing (all in float64)
-    small = pca_arrays(pos, m, n_components=5, chunk_frames=7, precision="float64")
-    whole = pca_arrays(pos, m, n_components=5, chunk_frames=len(pos), precision="float64")
+    small = pca_arrays(pos, m, n_components=5, block_frames=7, precision="float64")
+    whole = pca_arrays(pos, m, n_components=5, block_frames=len(pos), precision="float64")
     np.testing.assert_allclose(small.eigenvalues, whole.eigenvalues, rtol=1e-9)
     np.testing.assert_allclose(small.projections, whole.projections, atol=1e-9 * np.sqrt(whole.eigenvalues[0]))
     # the default: float32 GEMM per chunk accumulated in float64, against the all-float64 result
-    f32 = pca_arrays(pos, m, n_components=5, chunk_frames=7)
+    f32 = pca_arrays(pos, m, n_components=5, block_frames=7)
     np.testing.assert_allclose(f32.eigenvalues, whole.eigenvalues, rtol=1e-6)
     np.testing.assert_allclose(f32.projections, whole.projections, atol=1e-5 * np.sqrt(whole.eigenvalues[0]))
 
@@ -90,7 +91,7 @@ def test_quasi_harmonic_eigenvalues_and_mode_momenta():
         pos[:, j, j] = rng.normal(size=n) * np.sqrt(kt / ks[j])
     pos += np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0]])
     res = pca_arrays(pos, masses, velocities_nm_per_ps=vel, mass_weighted=True, fit=False, n_components=3,
-                     chunk_frames=20_000)
+                     block_frames=20_000)
     w2 = ks / masses
     expected = np.sort(kt / w2)[::-1]
     np.testing.assert_allclose(res.eigenvalues, expected, rtol=0.02)
@@ -130,9 +131,11 @@ def test_pc_coordinate_has_unit_mass_and_matches_projection():
     rng = np.random.default_rng(4)
     vel = rng.normal(size=pos.shape).astype(np.float32)
     run = run_from_arrays(pos, np.arange(len(pos)) * 0.1, m, velocities_nm_per_ps=vel)
-    # the same blocks of 50 frames as the PCA inside compute_coordinates (float32 sums depend on the blocks)
-    res = result_of(compute_pca(run, n_components=3, fit=True, chunk_frames=50))
-    s1, s3 = result_of(compute_coordinates(run, ["pc(1)", "pc(3, 0-5)"], chunk_frames=50))
+    # the same blocks of frames as the PCA inside compute_coordinates (float32 sums depend on the blocks),
+    # read in chunks of 50 frames
+    res = result_of(compute_pca(run, n_components=3, fit=True, block_frames=PC_BLOCK_FRAMES))
+    with chunking(frames=50):
+        s1, s3 = result_of(compute_coordinates(run, ["pc(1)", "pc(3, 0-5)"]))
     np.testing.assert_allclose(s1.values, res.projections[:, 0], atol=1e-6 * np.sqrt(res.eigenvalues[0]))
     np.testing.assert_allclose(s3.values, res.projections[:, 2], atol=1e-6 * np.sqrt(res.eigenvalues[0]))
     np.testing.assert_allclose(s1.m_eff, 1.0, rtol=1e-9)  # orthogonal mass-weighted transform (7.3)
@@ -175,22 +178,22 @@ def test_many_coordinates_lanczos_route_matches_numpy():
 
 def test_stride_and_reader_chunks():
     """A strided PCA equals the PCA of the strided frames (definition), and the reader's chunking (a 7-frame
-    chunk budget) changes nothing: the products run on blocks of chunk_frames frames."""
+    chunk budget) changes nothing: the products run on blocks of block_frames frames."""
     from phasewake.core.model.run import set_chunk_budget_mb
 
     pos, m = _correlated(n=900, g=8, seed=13)
     run = run_from_arrays(pos, np.arange(len(pos)) * 0.1, m)
-    strided = result_of(compute_pca(run, stride=3, n_components=3, chunk_frames=64))
-    direct = pca_arrays(pos[::3], m, n_components=3, chunk_frames=64)
+    strided = result_of(compute_pca(run, stride=3, n_components=3, block_frames=64))
+    direct = pca_arrays(pos[::3], m, n_components=3, block_frames=64)
     np.testing.assert_array_equal(strided.eigenvalues, direct.eigenvalues)
     np.testing.assert_array_equal(strided.projections, direct.projections)
     assert strided.stride == 3 and strided.n_frames == 300
     try:
         set_chunk_budget_mb(8 * 12 * 7 / 1e6)  # 7 frames of 8 atoms per chunk
-        small = result_of(compute_pca(run, n_components=3, chunk_frames=64))
+        small = result_of(compute_pca(run, n_components=3, block_frames=64))
     finally:
         set_chunk_budget_mb(None)
-    whole = result_of(compute_pca(run, n_components=3, chunk_frames=64))
+    whole = result_of(compute_pca(run, n_components=3, block_frames=64))
     np.testing.assert_array_equal(small.eigenvalues, whole.eigenvalues)
     np.testing.assert_array_equal(small.eigenvectors, whole.eigenvectors)
 
@@ -202,7 +205,7 @@ def test_non_finite_positions_are_named():
     pos[123, 2, 1] = np.nan
     for fit in (True, False):
         with pytest.raises(AnalysisError, match="non-finite"):
-            pca_arrays(pos, m, fit=fit, n_components=2, chunk_frames=100)
+            pca_arrays(pos, m, fit=fit, n_components=2, block_frames=100)
     pos[123, 2, 1] = 0.0
     pos[0, 1, 0] = np.inf  # in the reference frame
     with pytest.raises(AnalysisError, match="reference"):

@@ -13,6 +13,7 @@ from phasewake.core.analyses import verdicts
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 
 
 def ar1_columns(phi: float, n: int, cols: int, seed: int) -> np.ndarray:
@@ -192,7 +193,8 @@ def test_tm_kinetic_streams_over_run():
     v = (rng.standard_normal((500, 20, 3)) * 0.3).astype(np.float32)
     m = np.full(20, 39.948)
     run = run_from_arrays(np.zeros_like(v), np.arange(500) * 0.01, m, velocities_nm_per_ps=v)
-    r = result_of(S.thirumalai_mountain_kinetic(run, chunk_frames=64))
+    with chunking(frames=64):
+        r = result_of(S.thirumalai_mountain_kinetic(run))
     ke = 0.5 * m * np.sum(v.astype(float) ** 2, axis=2)
     direct = S.thirumalai_mountain(ke, dt_ps=0.01)
     np.testing.assert_allclose(r.omega, direct.omega, rtol=1e-10)

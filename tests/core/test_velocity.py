@@ -10,6 +10,7 @@ from phasewake.core.analyses import velocity as V
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.progress import result_of
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import chunking
 
 C_CM_PER_S = 2.99792458e10  # exact (SI 2019)
 
@@ -82,7 +83,8 @@ def test_streaming_run_adapter_matches_kernel():
     v = np.random.default_rng(4).standard_normal((301, 6, 3)).astype(np.float32)
     t = np.arange(301) * 0.002
     run = run_from_arrays(np.zeros_like(v), t, np.full(6, 12.0), velocities_nm_per_ps=v)
-    streamed = result_of(V.vacf(run, max_lag_ps=0.1, chunk_frames=17))  # chunks do not align with blocks
+    with chunking(frames=17):  # chunks do not align with blocks
+        streamed = result_of(V.vacf(run, max_lag_ps=0.1))
     kernel = V.vacf_from_velocities(v, 0.002, max_lag=50)
     np.testing.assert_allclose(streamed.vacf, kernel.vacf, rtol=1e-5, atol=1e-6)
     no_vel = run_from_arrays(np.zeros_like(v), t, np.full(6, 12.0))
@@ -135,7 +137,8 @@ def test_msd_unwraps_through_the_box():
     r = V.msd_from_positions(wrapped, dt, box_nm=np.array([2.0, 2.0, 2.0]), max_lag=100)
     np.testing.assert_allclose(r.msd_nm2[0], np.mean(np.sum(u ** 2, 1)) * r.lag_ps ** 2, rtol=1e-9, atol=1e-12)
     run = run_from_arrays(wrapped, t, np.ones(2), box_nm=np.array([2.0, 2.0, 2.0]))
-    streamed = result_of(V.msd(run, max_lag_ps=1.0, chunk_frames=33))
+    with chunking(frames=33):
+        streamed = result_of(V.msd(run, max_lag_ps=1.0))
     np.testing.assert_allclose(streamed.msd_nm2, r.msd_nm2, rtol=1e-6, atol=1e-6)  # positions stored as float32
 
 
@@ -180,7 +183,8 @@ def test_streaming_spectrum_matches_kernel():
     v = np.random.default_rng(2).standard_normal((2000, 3, 3)).astype(np.float32)
     v[:, :, 0] += np.cos(2 * np.pi * C_CM_PER_S * 2000 * t * 1e-12)[:, None]
     run = run_from_arrays(np.zeros_like(v), t, np.array([1.0, 12.0, 16.0]), velocities_nm_per_ps=v)
-    a = result_of(V.vibrational_spectrum(run, chunk_frames=64))
+    with chunking(frames=64):
+        a = result_of(V.vibrational_spectrum(run))
     b = V.vdos_from_velocities(v, np.array([1.0, 12.0, 16.0]), dt)
     assert a.max_lag_ps == pytest.approx(1.0)  # half of the 2 ps run
     np.testing.assert_allclose(a.intensity, b.intensity, rtol=1e-4, atol=1e-9)
