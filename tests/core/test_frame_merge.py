@@ -249,10 +249,10 @@ def test_thirumalai_mountain_merge_equals_the_serial_pass(start, cuts, chunk):
 
     run = _synthetic()
     atoms = np.arange(1, 9)
-    serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms, start=start)}, start=start,
-                            chunk_frames=19))["tm"]
+    with chunking(frames=19):
+        serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms, start=start)}, start=start))["tm"]
     got = split_and_merge(run, lambda: KineticEnergySeries(run, atoms, start=start), cuts, start=start,
-                          chunk_frames=chunk)
+                          frames=chunk)
     assert got._count == serial._count == run.n_frames - start
     kw = {"dt_ps": 0.01, "unit": "kJ/mol", "n_particles": atoms.size}
     a, b = got.finish(**kw), serial.finish(**kw)
