@@ -286,8 +286,9 @@ def test_thirumalai_mountain_over_two_workers_equals_the_serial_pass():
 
     run = open_run([SAMPLES / "dimer_nve.h5md"])
     atoms = np.arange(run.n_atoms)
-    serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms)}, chunk_frames=128, workers=1))["tm"]
-    par = drive(parallel.ranges_pass(run, {"tm": KineticEnergySeries(run, atoms)}, chunk_frames=128, workers=2))["tm"]
+    with chunking(frames=128):
+        serial = drive(run_pass(run, {"tm": KineticEnergySeries(run, atoms)}, workers=1))["tm"]
+        par = drive(parallel.ranges_pass(run, {"tm": KineticEnergySeries(run, atoms)}, workers=2))["tm"]
     kw = {"dt_ps": float(np.median(np.diff(run.time_ps))), "n_particles": atoms.size}
     a, b = par.finish(**kw), serial.finish(**kw)
     assert a.omega.size == b.omega.size == run.n_frames
