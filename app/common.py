@@ -64,7 +64,7 @@ def _positive_mb(text: str) -> float:
 
 
 def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
-    """``--chunk-mb``: the memory budget of one chunk of frames (``phasewake.core.model.run.chunk_budget_mb``)."""
+    """``--chunk-mb``: the memory budget of one chunk of frames (``phasewake.core.settings.chunk_budget_mb``)."""
     parser.add_argument("--chunk-mb", metavar="MB", type=_positive_mb, default=None,
                         help="memory for one chunk of frames while streaming (default: PHASEWAKE_CHUNK_MB or 128); "
                              "lower it for very large systems or small machines")

@@ -102,6 +102,12 @@ def chunk_budget_mb() -> float:
     return DEFAULT_CHUNK_MB
 
 
+def chunk_setting() -> tuple[int, float]:
+    """(most frames per chunk, budget in MB) as this process has them: what a worker is handed, so it reads
+    in the chunks this process would (``with chunking(frames=f, mb=mb)``)."""
+    return chunk_frames(), chunk_budget_mb()
+
+
 @contextmanager
 def chunking(*, frames: int | None = None, mb: float | None = None) -> Iterator[None]:
     """Within the block, chunks of at most ``frames`` frames and ``mb`` MB (None: leave that setting as

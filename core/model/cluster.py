@@ -121,12 +121,12 @@ def _stop_check(job: str) -> Any:
 
 
 def range_task(job: str, files: parallel.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
-               chunk_frames: int) -> dict[str, Any]:
+               chunks: tuple[int, float]) -> dict[str, Any]:
     """One frame range on a Dask worker (see :func:`phasewake.core.model.parallel.read_range`)."""
     check = _stop_check(job)
     try:
         run = parallel.opened(files, _runs)
-        return parallel.read_range(run, consumers, start, stop, chunk_frames, lambda n: check())
+        return parallel.read_range(run, consumers, start, stop, chunks, lambda n: check())
     except PhasewakeError as exc:
         raise parallel.carry(exc) from None
 
@@ -168,19 +168,19 @@ def _follow(cl: Any, job: str, futures: list[Any], weights: Sequence[float], tot
 
 def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: int,
                  files: parallel.RunFiles | None = None, cl: Any = None) -> Work[dict[str, Any]]:
-    """:func:`phasewake.core.model.parallel.ranges_pass` with the ranges run by Dask workers (in chunks of
-    this process's chunk setting)."""
-    from phasewake.core.settings import chunk_frames
+    """:func:`phasewake.core.model.parallel.ranges_pass` with the ranges run by Dask workers (in this
+    process's chunks and chunk budget, :func:`phasewake.core.settings.chunk_setting`)."""
+    from phasewake.core.settings import chunk_setting
 
     cl = cl if cl is not None else _client
     if cl is None:
         raise InputError("no Dask scheduler set (--scheduler ADDRESS)")
     files_ = parallel.files_of(run) if files is None else files
-    chunk = chunk_frames()
-    ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunk)
+    chunks = chunk_setting()
+    ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunks[0])
     parallel.before_parts(run, consumers, start)
     job = f"phasewake-{uuid.uuid4().hex}"
-    futures = [cl.submit(range_task, job, files_, consumers, a, b, chunk, pure=False)
+    futures = [cl.submit(range_task, job, files_, consumers, a, b, chunks, pure=False)
                for a, b in ranges]
     label = f"one pass on the Dask cluster ({len(ranges)} ranges): " + ", ".join(consumers)
     parts = yield from _follow(cl, job, futures, [b - a for a, b in ranges], stop - start, label)

@@ -282,22 +282,22 @@ def opened(files: RunFiles, runs: dict[bytes, Any]) -> Run:
     return runs[key]
 
 
-def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunk_frames: int,
+def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunks: tuple[int, float],
                tick: Callable[[int], None]) -> dict[str, Any]:
-    """Feed frames [start, stop) of ``run`` to ``consumers`` in chunks of at most ``chunk_frames`` frames;
-    ``tick(frames done)`` after every chunk (it raises to stop). Returns the consumers with their partial
-    state."""
+    """Feed frames [start, stop) of ``run`` to ``consumers`` in the parent's chunks (``chunks``: its
+    :func:`~phasewake.core.settings.chunk_setting`); ``tick(frames done)`` after every chunk (it raises to
+    stop). Returns the consumers with their partial state."""
     from phasewake.core.model.framepass import feed
     from phasewake.core.settings import chunking
 
-    with chunking(frames=chunk_frames):  # the parent's setting (a pool may outlive a change of it)
+    with chunking(frames=chunks[0], mb=chunks[1]):  # the parent's (a pool may outlive a change of it)
         for n in feed(run, consumers, start=start, stop=stop):
             tick(n)
     return dict(consumers)
 
 
 def _range_task(index: int, files: RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
-                chunk_frames: int) -> dict[str, Any]:
+                chunks: tuple[int, float]) -> dict[str, Any]:
     done, stop_event = _worker_state["done"], _worker_state["stop"]
 
     def tick(n: int) -> None:
@@ -308,7 +308,7 @@ def _range_task(index: int, files: RunFiles, consumers: Mapping[str, Any], start
     try:
         if stop_event.is_set():
             raise Cancelled()
-        return read_range(opened(files, _worker_state["runs"]), consumers, start, stop, chunk_frames, tick)
+        return read_range(opened(files, _worker_state["runs"]), consumers, start, stop, chunks, tick)
     except PhasewakeError as exc:
         raise carry(exc) from None
 
@@ -430,7 +430,7 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     serial pass's.
     """
     from phasewake.core.model.framepass import frame_range, run_pass
-    from phasewake.core.settings import chunk_frames
+    from phasewake.core.settings import chunk_setting
 
     start_, stop_ = frame_range(run, start, stop)
     if _on_cluster() and mergeable(consumers) and workers != 1:
@@ -438,15 +438,15 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
 
         return (yield from cluster_pass(run, consumers, start=start_, stop=stop_, files=files))
     n = workers_for(run) if workers is None else max(1, int(workers))
-    chunk = chunk_frames()  # every worker reads in the chunks a serial pass would (module docstring)
-    ranges = cut_ranges(start_, stop_, 2 * n, align=chunk)
+    chunks = chunk_setting()  # every worker reads in the chunks a serial pass would (module docstring)
+    ranges = cut_ranges(start_, stop_, 2 * n, align=chunks[0])
     if n <= 1 or len(ranges) < 2 or not mergeable(consumers):
         return (yield from run_pass(run, consumers, start=start_, stop=stop_, workers=1))
     files_ = files_of(run) if files is None else files
     before_parts(run, consumers, start_)
     label = f"one pass over {n} workers: " + ", ".join(consumers)
     with ProcessRanges(min(n, len(ranges)), len(ranges), topology_seed(run)) as pool:
-        futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunk)
+        futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunks)
                    for i, (a, b) in enumerate(ranges)]
         yield from follow(futures, pool.frames_done, stop_ - start_, label)
         parts = [f.result() for f in futures]
@@ -523,23 +523,23 @@ def spread_runs(runs: Sequence[Run]) -> bool:
     return usable_cores() > 1 and sum(r.n_frames * r.n_atoms for r in runs) >= MIN_AUTO_ATOM_FRAMES
 
 
-def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunk_frames: int) -> Any:
-    """One replica's coordinate series (``compute_coordinates``, in chunks of at most ``chunk_frames``
-    frames), in the worker that opens its files."""
+def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunks: tuple[int, float]) -> Any:
+    """One replica's coordinate series (``compute_coordinates``, in the parent's chunks: ``chunks`` is its
+    :func:`~phasewake.core.settings.chunk_setting`), in the worker that opens its files."""
     from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.progress import drive
     from phasewake.core.settings import chunking
 
     set_workers(1)  # on a Dask worker too: the replicas are the parallel part
     run = opened(files, _worker_state.setdefault("runs", {}))
-    with chunking(frames=chunk_frames):
+    with chunking(frames=chunks[0], mb=chunks[1]):
         return drive(compute_coordinates(run, [spec], start=start, stop=stop))[0]
 
 
 def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None
                         ) -> Work[list[Any]]:
     """The coordinate ``spec`` of every run, one worker task per run (:func:`map_workers`), in order."""
-    from phasewake.core.settings import chunk_frames
+    from phasewake.core.settings import chunk_setting
 
-    tasks = [(files_of(r), spec, start, stop, chunk_frames()) for r in runs]
+    tasks = [(files_of(r), spec, start, stop, chunk_setting()) for r in runs]
     return (yield from map_workers(coordinate_series, tasks, label=f"{spec} in {len(runs)} replicas"))

@@ -56,6 +56,19 @@ def test_frame_ranges_on_the_cluster_equal_the_serial_pass(tmp_path, on_cluster)
         _same(drive(run_pass(run, {"s": FrameSums()}))["s"], _serial(run, 0, None, 8))
 
 
+def test_dask_workers_read_in_this_process_s_chunks_and_budget(tmp_path, on_cluster):
+    # the chunk setting travels with every range: a 2-frame budget (plain arithmetic: 30 atoms x 3 x 4 bytes
+    # per float32 frame) cuts every worker's chunks, as it cuts the serial pass's
+    xtc, pdb = make_xtc(tmp_path, n_frames=40)
+    run = open_run([xtc], topology=pdb)
+    atoms = tuple(range(30))
+    with chunking(frames=8, mb=30 * 12 * 2 / 1e6):
+        got = drive(parallel.ranges_pass(run, {"s": FrameSums(atoms=atoms)}))["s"]
+        serial = _serial(run, atoms=atoms)
+    assert max(np.diff([*got["first_frames"], 40])) <= 2
+    _same(got, serial)
+
+
 def test_a_damaged_frame_on_a_dask_worker_is_the_serial_error(tmp_path, on_cluster):
     xtc, pdb = make_xtc(tmp_path, n_frames=120)
     _damage_frame(xtc, 101)  # a frame whose damage the decoder notices (not every flipped byte is)

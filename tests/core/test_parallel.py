@@ -86,7 +86,7 @@ def test_awkward_splits_merge_to_the_serial_pass(tmp_path):
     for edges in ([0, 1, 2, 61], [0, 30, 31, 61], [0, 13, 60, 61], [0, 61]):
         parts = []
         for a, b in zip(edges[:-1], edges[1:]):
-            parts.append(parallel.read_range(run, {"s": FrameSums()}, a, b, 8, lambda n: None))
+            parts.append(parallel.read_range(run, {"s": FrameSums()}, a, b, (8, 128.0), lambda n: None))
         merged = parallel.merge_in_order(parts)["s"].finish()
         _same(merged, serial)
 
