@@ -40,11 +40,15 @@ def set_threads(n: int | None) -> int | None:
     Raises ValueError for a count below 1.
     """
     global _threads
-    if n is not None and int(n) < 1:
-        raise ValueError(f"the thread count must be at least 1, got {n}")
-    previous = _threads
-    _threads = None if n is None else int(n)
+    previous, _threads = _threads, _count_or_none(n, "the thread count")
     return previous
+
+
+def _count_or_none(n: int | None, what: str) -> int | None:
+    """``n`` as an int (None stays None); ValueError naming ``what`` below 1."""
+    if n is not None and int(n) < 1:
+        raise ValueError(f"{what} must be at least 1, got {n}")
+    return None if n is None else int(n)
 
 
 # ------------------------------------------------------------------------------------------------ chunking
@@ -69,10 +73,7 @@ def set_chunk_frames(n: int | None) -> int | None:
     Raises ValueError for a count below 1.
     """
     global _chunk_frames
-    if n is not None and int(n) < 1:
-        raise ValueError(f"a chunk must hold at least 1 frame, got {n}")
-    previous = _chunk_frames
-    _chunk_frames = None if n is None else int(n)
+    previous, _chunk_frames = _chunk_frames, _count_or_none(n, "the frames per chunk")
     return previous
 
 
