@@ -17,25 +17,16 @@ from phasewake.core.store.jsonable import to_jsonable
 
 T = TypeVar("T")
 
+#: how the command line writes a verdict level (the two that need attention in capitals)
+WORD_OF = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 
-def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True, frames: bool = True) -> None:
-    """FILES plus the options that say how to read them."""
+
+def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True, frames: bool = True,
+                      threads: bool = False) -> None:
+    """FILES plus the options that say how to read them (and ``--threads`` for verbs with long kernels)."""
     parser.add_argument("files", nargs="+" if many else 1, metavar="FILE",
                         help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run")
-    parser.add_argument("--top", metavar="FILE", default=None,
-                        help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
-    parser.add_argument("--velocities", metavar="FILE", default=None,
-                        help="velocities written beside the positions (NAMD velocity DCD; files named "
-                             "*.veldcd or *.vel.dcd are recognised without this option)")
-    parser.add_argument("--timestep", metavar="FS", type=float, default=None,
-                        help="integration time step in fs, when the files do not say")
-    parser.add_argument("--constraints", metavar="N", type=int, default=None,
-                        help="number of holonomic constraints (overrides what the files or inference say)")
-    parser.add_argument("--temperature", metavar="K", type=float, default=None,
-                        help="thermostat target temperature in K")
-    parser.add_argument("--ensemble", choices=("nve", "nvt", "npt"), type=str.lower, default=None,
-                        help="the ensemble the run was made in, when the files do not say (a thermostatted run "
-                             "is judged by its conserved quantity, not by its total energy)")
+    add_stated_arguments(parser)
     parser.add_argument("--column", metavar="NAME=ROLE", action="append", default=None,
                         help="the role of an energy-table column the files do not name clearly, e.g. "
                              "\"TotEng=total\" (roles: potential, kinetic, total, conserved, bath_heat, "
@@ -47,6 +38,31 @@ def add_run_arguments(parser: argparse.ArgumentParser, *, many: bool = True, fra
     add_chunk_argument(parser)
     if frames:
         add_parallel_arguments(parser)
+    if threads:
+        add_threads_argument(parser)
+
+
+def add_stated_arguments(parser: argparse.ArgumentParser, *, velocities: bool = True,
+                         ensemble_note: str = "a thermostatted run is judged by its conserved quantity, not by "
+                                              "its total energy") -> None:
+    """``--top`` and what a user may state about a run (``phasewake.core.readers.stated``): ``--velocities``,
+    ``--timestep``, ``--constraints``, ``--temperature``, ``--ensemble``."""
+    from phasewake.core.readers.stated import ENSEMBLES
+
+    parser.add_argument("--top", metavar="FILE", default=None,
+                        help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
+    if velocities:
+        parser.add_argument("--velocities", metavar="FILE", default=None,
+                            help="velocities written beside the positions (NAMD velocity DCD; files named "
+                                 "*.veldcd or *.vel.dcd are recognised without this option)")
+    parser.add_argument("--timestep", metavar="FS", type=float, default=None,
+                        help="integration time step in fs, when the files do not say")
+    parser.add_argument("--constraints", metavar="N", type=int, default=None,
+                        help="number of holonomic constraints (overrides what the files or inference say)")
+    parser.add_argument("--temperature", metavar="K", type=float, default=None,
+                        help="thermostat target temperature in K")
+    parser.add_argument("--ensemble", choices=ENSEMBLES, type=str.lower, default=None,
+                        help=f"the ensemble the run was made in, when the files do not say ({ensemble_note})")
 
 
 #: LAMMPS unit styles (phasewake.core.readers.lammps_log.STYLES), for --units
@@ -70,21 +86,26 @@ def add_chunk_argument(parser: argparse.ArgumentParser) -> None:
                              "lower it for very large systems or small machines")
 
 
-def _workers(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        n = 0
-    if n < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number of processes, 1 or more, not {text!r}")
-    return n
+def _at_least_one(unit: str, units: str):
+    """An argparse type: a whole number, 1 or more, of ``units``, named in the message."""
+    def parse(text: str) -> int:
+        try:
+            n = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"a whole number of {units}, got {text!r}") from None
+        if n < 1:
+            raise argparse.ArgumentTypeError(f"at least 1 {unit}, got {n}")
+        return n
+
+    parse.__name__ = f"number of {units}"  # argparse names the type in some messages
+    return parse
 
 
 def add_parallel_arguments(parser: argparse.ArgumentParser) -> None:
     """``--workers`` and ``--scheduler`` (``phasewake.core.model.parallel``, ``cluster``)."""
     from phasewake.core.model.parallel import usable_cores
 
-    parser.add_argument("--workers", metavar="N", type=_workers, default=None,
+    parser.add_argument("--workers", metavar="N", type=_at_least_one("process", "processes"), default=None,
                         help="processes reading frames in parallel (default: for XTC, TRR and DCD, whose "
                              f"decoding is the bottleneck, the usable cores ({usable_cores()} here) on passes "
                              "over many frames; 1 for H5MD and other files read at memory speed; "
@@ -95,8 +116,11 @@ def add_parallel_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def apply_parallel(args: argparse.Namespace) -> None:
-    """Use ``--workers`` and ``--scheduler`` for every frame pass in this process."""
+    """Use ``--workers``, ``--scheduler`` and ``--threads`` (where the verb has them) for every frame pass
+    and long kernel in this process."""
     from phasewake.core.model import cluster, parallel
+
+    apply_threads(args)
 
     parallel.set_workers(getattr(args, "workers", None))  # given or not: never an earlier command's
     address = getattr(args, "scheduler", None) or None
@@ -303,19 +327,9 @@ def print_json(obj: Any) -> None:
     sys.stdout.write(json.dumps(to_jsonable(obj), indent=2, allow_nan=False) + "\n")
 
 
-def _thread_count(text: str) -> int:
-    try:
-        n = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"a whole number of threads, got {text!r}") from None
-    if n < 1:
-        raise argparse.ArgumentTypeError(f"at least 1 thread, got {n}")
-    return n
-
-
 def add_threads_argument(parser: argparse.ArgumentParser) -> None:
     """``--threads N``: threads of the long numpy kernels (:mod:`phasewake.core.settings`)."""
-    parser.add_argument("--threads", metavar="N", type=_thread_count, default=None,
+    parser.add_argument("--threads", metavar="N", type=_at_least_one("thread", "threads"), default=None,
                         help="threads of the long computations (default: every core this process may use); "
                              "the numbers do not depend on it")
 

@@ -14,6 +14,7 @@ import textwrap
 from typing import Any
 
 from phasewake.app.common import (
+    WORD_OF,
     add_run_arguments,
     open_run_from_args,
     print_json,
@@ -21,8 +22,6 @@ from phasewake.app.common import (
     reader_options,
     run_with_progress,
 )
-
-LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -83,7 +82,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     for v in result.verdicts:
         thr, src = _threshold_text(v)
         shown = f": {_num(v.measured, v.unit)}" if v.measured is not None else ""
-        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}{shown}\n")
+        w(f"  {WORD_OF[v.level]:<8} {v.title}{shown}\n")
         w(wrap.fill(v.message) + "\n")
         if v.threshold is not None:
             w(wrap.fill(f"threshold: {thr}" + ("" if src in v.message else f" (source: {src})")) + "\n")
@@ -115,7 +114,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
     for note in result.notes:
         w(textwrap.fill(f"note: {note}", width=100, initial_indent="  ", subsequent_indent="    ") + "\n")
     if result.checked:
-        w(f"\n  overall: {LEVEL_WORD[result.level]}\n")
+        w(f"\n  overall: {WORD_OF[result.level]}\n")
     else:
         w("\n  overall: not checked: nothing could be checked with what the files hold (see the 'not checked' "
           "lines for what each check needs)\n")

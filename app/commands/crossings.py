@@ -28,17 +28,13 @@ from pathlib import Path
 from typing import Any
 
 from phasewake.app.common import (
+    WORD_OF,
     add_replicas_argument,
     add_run_arguments,
-    add_threads_argument,
-    apply_threads,
     open_runs_from_args,
     print_json,
     run_with_progress,
 )
-
-LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
-
 
 EPILOG = """\
 examples:
@@ -53,7 +49,7 @@ values that start with a minus sign need the = form: --states=-2.5,-0.5 --surfac
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.epilog = EPILOG
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
-    add_run_arguments(parser)
+    add_run_arguments(parser, threads=True)
     parser.add_argument("--coordinate", "-c", metavar="SPEC", required=True,
                         help='reaction coordinate, e.g. "distance(0, 1)" (see phasewake coords --help)')
     parser.add_argument("--states", metavar="A_HI,B_LO", default=None,
@@ -71,7 +67,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(default: from the transition-path durations)")
     parser.add_argument("--no-cache", action="store_true",
                         help="compute afresh; neither read nor write the result cache")
-    add_threads_argument(parser)
 
 
 def _floats(text: str, n: int, what: str) -> tuple[float, ...]:
@@ -147,7 +142,7 @@ def _write_text(res: Any, names: list[str], out: Any) -> None:
     w("\n")
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")
     for v in res.verdicts:
-        w(f"  {LEVEL_WORD[v.level]:<8} {v.title}: {_g(v.measured, v.unit)}\n")
+        w(f"  {WORD_OF[v.level]:<8} {v.title}: {_g(v.measured, v.unit)}\n")
         w(wrap.fill(v.message) + "\n")
         if v.threshold is not None:
             op = ">" if v.threshold.higher_is_worse else "<"
@@ -208,7 +203,6 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.store.cache import ResultCache
     from phasewake.core.store.cached import requested
 
-    apply_threads(args)
     if args.events:
         from phasewake.app.common import check_output_path
 

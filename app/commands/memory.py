@@ -65,22 +65,13 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.app.common import (
-    add_run_arguments,
-    add_threads_argument,
-    apply_threads,
-    open_run_from_args,
-    print_json,
-    run_with_progress,
-)
+from phasewake.app.common import WORD_OF, add_run_arguments, open_run_from_args, print_json, run_with_progress
 
-LEVEL_WORD = {"ok": "ok", "caution": "CAUTION", "problem": "PROBLEM", "info": "info"}
 _SKIP_ROLES = ("time", "step")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    add_run_arguments(parser)
-    add_threads_argument(parser)
+    add_run_arguments(parser, threads=True)
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = textwrap.dedent("""\
         examples:
@@ -479,7 +470,7 @@ def _write_verdicts(analyses: list[dict[str, Any]], vel: dict[str, Any], explain
         w("\n  verdicts\n")
         for v in verdict_list:
             meas = "-" if v.measured is None else f"{v.measured:.4g} {v.unit}".strip()
-            w(f"    {LEVEL_WORD[v.level]:<8} {v.title}: {meas}")
+            w(f"    {WORD_OF[v.level]:<8} {v.title}: {meas}")
             if v.threshold is not None:
                 t = v.threshold
                 op = ">" if t.higher_is_worse else "<"
@@ -514,7 +505,6 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, worst
     from phasewake.core.readers.stated import open_stated
 
-    apply_threads(args)
     run_ = open_run_from_args(args)
     replicas = [open_stated(files, topology=args.top, options=run_overrides(args)) for files in args.replica]
     from phasewake.core.store.cache import ResultCache

@@ -15,17 +15,10 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("files", nargs="*", metavar="FILE",
                         help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run "
                              "(none: an empty window)")
-    parser.add_argument("--top", metavar="FILE", default=None,
-                        help="topology file (PDB, GRO, PSF, PRMTOP, ...) when the trajectory has none")
-    parser.add_argument("--timestep", metavar="FS", type=float, default=None,
-                        help="integration time step in fs, when the files do not say")
-    parser.add_argument("--constraints", metavar="N", type=int, default=None,
-                        help="number of holonomic constraints")
-    parser.add_argument("--temperature", metavar="K", type=float, default=None,
-                        help="thermostat target temperature in K")
-    parser.add_argument("--ensemble", choices=("nve", "nvt", "npt"), type=str.lower, default=None,
-                        help="the ensemble the run was made in, when the files do not say (also in the window: "
-                             "the run's settings under the Runs list)")
+    from phasewake.app.common import add_chunk_argument, add_stated_arguments
+
+    add_stated_arguments(parser, velocities=False,
+                         ensemble_note="also in the window: the run's settings under the Runs list")
     parser.add_argument("--session", metavar="FILE", default=None,
                         help="restore a session saved from the window instead of opening FILES")
     parser.add_argument("--guide", action="store_true", help="show a short guide to the window")
@@ -35,8 +28,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "error was shown)")
     parser.add_argument("--smoke-timeout", metavar="S", type=float, default=60.0,
                         help="seconds the smoke test waits for the panels (default 60)")
-    from phasewake.app.common import add_chunk_argument
-
     add_chunk_argument(parser)
 
 
