@@ -75,6 +75,17 @@ def drive(
         return stop.value  # type: ignore[no-any-return]
 
 
+def labelled(work: Generator[Progress, None, T], label: str) -> Generator[Progress, None, T]:
+    """``work`` with ``label`` before each progress message (so a status line says what is running);
+    returns its result."""
+    try:
+        while True:
+            p = next(work)
+            yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
+    except StopIteration as stop:
+        return stop.value  # type: ignore[no-any-return]
+
+
 def result_of(work: Generator[Progress, None, T]) -> T:
     """Shorthand for :func:`drive` with no progress display."""
     return drive(work)

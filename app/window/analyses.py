@@ -35,7 +35,7 @@ from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
-from phasewake.core.progress import Progress, Work
+from phasewake.core.progress import Progress, Work, labelled
 from phasewake.core.store import cached
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
@@ -124,16 +124,6 @@ def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:
                                for k, v in table.series.items()})
 
 
-def _labelled(work: Work[Any], label: str) -> Work[Any]:
-    """``work`` with ``label`` before each progress message (the status line says what is running); its result."""
-    try:
-        while True:
-            p = next(work)
-            yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
-    except StopIteration as stop:
-        return stop.value
-
-
 # A small cache of coordinate series, so the panels that share a coordinate read frames once. Each entry
 # keeps its Run: a key holds id(run), and an id is only unique while the object is alive (a run closed and
 # collected could hand its id to a newly opened one, which would then be shown the old run's series).
@@ -161,7 +151,7 @@ def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[P
         return hit[1]
     # through the on-disk result cache: reopening a run reads no frames
     request = CoordinatesRequest([spec], start=start, stop=None if stop >= run.n_frames else stop)
-    series = yield from _labelled(requested(run, request), f"coordinate {spec}")
+    series = yield from labelled(requested(run, request), f"coordinate {spec}")
     with _CACHE_LOCK:
         _CACHE[key] = (run, series[0])
         while len(_CACHE) > _CACHE_SIZE:
@@ -237,7 +227,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
     yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    res = yield from _labelled(requested(run, AuditRequest()), "audit")  # the key shared_frames_job uses
+    res = yield from labelled(requested(run, AuditRequest()), "audit")  # the key shared_frames_job uses
     figs = plots.figures_for(res)
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
@@ -305,7 +295,7 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     if run.frames.has_velocities and run.n_frames > 16:  # the Correlation panel's
         requests.update(vacf=VACFRequest(), spectrum=SpectrumRequest())
     try:
-        yield from _labelled(cached.requested_pass(run, requests, cache=cache, load_hits=False),
+        yield from labelled(cached.requested_pass(run, requests, cache=cache, load_hits=False),
                              "one read of the frames")
     except PhasewakeError:
         pass  # a bad coordinate or a damaged frame: each panel runs its own request and says what went wrong
@@ -323,7 +313,7 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
                                    "rotation and translation fitted away only their distance varies, so PCA would "
                                    "show 100% in one component by construction. Use the distance as the coordinate.")
     sub = window_run(ctx.run, ctx.start, ctx.stop)
-    pca = yield from _labelled(requested(sub, PCARequest(**settings)), "principal components")  # shared_frames_job's key
+    pca = yield from labelled(requested(sub, PCARequest(**settings)), "principal components")  # shared_frames_job's key
     traces: dict[str, Trace] = {}
     coords_text = plots.atoms_text(group)
     solute = coordinates.solute_atoms(ctx.run.topology, ctx.run.n_atoms)
@@ -382,7 +372,7 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
         what = request.series or request.coordinate
         yield Progress(i, len(requests) + 2, f"autocorrelation of {what}")
         try:
-            report = yield from _labelled(requested(run, request), f"autocorrelation of {what}")
+            report = yield from labelled(requested(run, request), f"autocorrelation of {what}")
         except PhasewakeError as exc:
             notes.append(f"{what}: {exc}")
             continue
@@ -392,9 +382,9 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
             figs.append(plots.blocking_figure(report.blocking, name=report.name))
     if run.frames is not None and run.frames.has_velocities and run.n_frames > 16:
         yield Progress(len(requests), len(requests) + 2, "velocity autocorrelation")
-        v = yield from _labelled(requested(run, VACFRequest()), "VACF")
+        v = yield from labelled(requested(run, VACFRequest()), "VACF")
         figs.append(plots.vacf_figure(v))
-        d = yield from _labelled(requested(run, SpectrumRequest()), "vibrational spectrum")
+        d = yield from labelled(requested(run, SpectrumRequest()), "vibrational spectrum")
         figs.append(plots.vdos_figure(d))
     elif run.frames is not None and not run.has_velocities:
         notes.append("No velocities: the VACF and the vibrational spectrum need them.")
@@ -449,7 +439,7 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
     for key, request, t0 in wanted:
         what = request.series or request.coordinate
         try:
-            report = yield from _labelled(requested(run, request), f"sampling of {what}")
+            report = yield from labelled(requested(run, request), f"sampling of {what}")
         except PhasewakeError as exc:
             notes.append(f"{what}: {exc}")
             continue
@@ -490,7 +480,7 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     request = crossings.CrossingsRequest(coordinate=ctx.coordinate, states=states, surface=surface, start=start,
                                          stop=stop)
     # the series is already here (the panel draws it): the request's second step on it, under its own key
-    res = yield from _labelled(requested(ctx.run, request, request.analyse([ctx.run], [s])), "crossings")
+    res = yield from labelled(requested(ctx.run, request, request.analyse([ctx.run], [s])), "crossings")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
     figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + plots.figures_for(res)
@@ -532,7 +522,7 @@ def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
                                    "temperature in the Runs list (the files do not say).")
     # the request of the command line and the report: the same profile (and Jacobian) for one run
     start, stop = _frame_range(ctx)
-    prof = yield from _labelled(requested(ctx.run, LandscapeRequest(coordinate=ctx.coordinate, start=start,
+    prof = yield from labelled(requested(ctx.run, LandscapeRequest(coordinate=ctx.coordinate, start=start,
                                                                     stop=stop)), "free-energy profile")
     states, surface = dragged_states(ctx.choices)
     if states is None:

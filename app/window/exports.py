@@ -50,26 +50,21 @@ class ExportActions:
 
         Returns the path at once; the status line says when the file is written (``wait_idle`` waits).
         """
-        from phasewake.core.errors import MissingDataError
         from phasewake.core.figures.export import export_figure
 
-        spec = self.current_panel().current_figure()
-        if spec is None:
-            raise MissingDataError("the panel on top has no figure to export yet")
-        target = Path(path)
-        provenance = self._provenance()
-
-        def job():
-            yield Progress(0, None, f"writing {target.name}")
-            return export_figure(spec, target, preset=preset, dpi=dpi, provenance=provenance).path
-
-        self._start_export(target, job, "Figure")
-        return target
+        return self._export_current(path, "Figure", lambda spec, target, provenance: export_figure(
+            spec, target, preset=preset, dpi=dpi, provenance=provenance).path)
 
     def export_data_to(self, path: str | Path) -> Path:
         """The data of the figure on top as CSV, as a background job (returns the path at once)."""
-        from phasewake.core.errors import MissingDataError
         from phasewake.core.figures.export import export_csv
+
+        return self._export_current(path, "Data", lambda spec, target, provenance: export_csv(
+            spec, target, provenance=provenance))
+
+    def _export_current(self, path: str | Path, what: str, write: Callable[[Any, Path, dict[str, Any]], Any]) -> Path:
+        """``write(spec, target, provenance)`` of the figure on top, as a background job; the path at once."""
+        from phasewake.core.errors import MissingDataError
 
         spec = self.current_panel().current_figure()
         if spec is None:
@@ -79,9 +74,9 @@ class ExportActions:
 
         def job():
             yield Progress(0, None, f"writing {target.name}")
-            return export_csv(spec, target, provenance=provenance)
+            return write(spec, target, provenance)
 
-        self._start_export(target, job, "Data")
+        self._start_export(target, job, what)
         return target
 
     def _start_export(self, target: Path, job: Callable[[], Any], what: str) -> None:

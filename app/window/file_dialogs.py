@@ -13,6 +13,24 @@ from PySide6 import QtCore, QtWidgets
 FOLDER_KEYS = {"runs": "last_run_folder", "export": "last_export_folder", "session": "last_session_folder"}
 
 
+class TakesDroppedFiles:
+    """Files dropped on a widget (put this before the Qt class in the bases and call ``setAcceptDrops``):
+    each drop of local files calls ``files_dropped(paths)``."""
+
+    def files_dropped(self, paths: list[str]) -> None:
+        raise NotImplementedError
+
+    def dragEnterEvent(self, event):  # noqa: N802 - Qt override
+        if event.mimeData().hasUrls():
+            event.acceptProposedAction()
+
+    def dropEvent(self, event):  # noqa: N802 - Qt override
+        paths = [u.toLocalFile() for u in event.mimeData().urls() if u.isLocalFile()]
+        if paths:
+            self.files_dropped(paths)
+            event.acceptProposedAction()
+
+
 def ask_path(parent: QtWidgets.QWidget, settings: QtCore.QSettings, title: str, filters: str, *, save: bool,
              suggested: str = "", kind: str = "export") -> str:
     """A file dialog starting in the last folder used for this ``kind``; '' when the user cancels."""

@@ -19,7 +19,7 @@ from phasewake.app.window import session as session_io
 from phasewake.app.window.analyses import PANELS, PanelResult, forget_runs
 from phasewake.app.window.computing import PanelComputing
 from phasewake.app.window.exports import ExportActions, ExportDialog
-from phasewake.app.window.file_dialogs import FOLDER_KEYS
+from phasewake.app.window.file_dialogs import FOLDER_KEYS, TakesDroppedFiles
 from phasewake.app.window.menus import MenuActions
 from phasewake.app.window.model import WindowModel
 from phasewake.app.window.opening import Opener, RunOpening, default_opener
@@ -38,7 +38,8 @@ NARROW_PX = 1200  # below this width the Runs column takes the least room it can
 CLOSE_WAIT_MS = 30_000  # closing waits this long for the jobs to stop (each stops at its next progress step)
 
 
-class MainWindow(MenuActions, RunOpening, PanelComputing, SessionActions, ExportActions, QtWidgets.QMainWindow):
+class MainWindow(MenuActions, RunOpening, PanelComputing, SessionActions, ExportActions, TakesDroppedFiles,
+                 QtWidgets.QMainWindow):
     """The window of phasewake; its parts (menus, opening runs, computing the panels, sessions and
     exports) are in the modules of the classes it is made of, named after what they do."""
 
@@ -168,15 +169,8 @@ class MainWindow(MenuActions, RunOpening, PanelComputing, SessionActions, Export
         self.message_box = box
 
     # ---- window events ------------------------------------------------------------------------
-    def dragEnterEvent(self, event):  # noqa: N802 - Qt override
-        if event.mimeData().hasUrls():
-            event.acceptProposedAction()
-
-    def dropEvent(self, event):  # noqa: N802 - Qt override
-        paths = [u.toLocalFile() for u in event.mimeData().urls() if u.isLocalFile()]
-        if paths:
-            self.open_paths(paths)
-            event.acceptProposedAction()
+    def files_dropped(self, paths: list[str]) -> None:
+        self.open_paths(paths)
 
     def resizeEvent(self, event):  # noqa: N802 - Qt override
         super().resizeEvent(event)

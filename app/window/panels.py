@@ -179,14 +179,18 @@ class Panel(QtWidgets.QWidget):
         if self.result is None or not self.result.figures:
             self.view.show_message(text or f"Computing the {self.name} panel\u2026")
 
-    def show_loading(self, run_label: str, *, has_frames: bool = True) -> None:
-        """A run is listed and being read: say so (its figures replace this when computed)."""
+    def _clear(self) -> None:
+        """No result, no error, no chooser, no notes: the panel before a message takes it."""
         self.result = None
         self.error = None
         self._set_chooser_visible(False)
         self._note_lines = []
         self._numbers_line = ""
         self._set_notes()
+
+    def show_loading(self, run_label: str, *, has_frames: bool = True) -> None:
+        """A run is listed and being read: say so (its figures replace this when computed)."""
+        self._clear()
         what = "its frames are being read" if has_frames else "its energy table is being read"
         self.view.show_message(f"Loading {run_label}: {what}. The {self.name} panel is drawn when they are "
                                "ready (the progress bar below shows how far it is).")
@@ -207,12 +211,7 @@ class Panel(QtWidgets.QWidget):
                           "compute again.")
 
     def show_empty(self) -> None:
-        self.result = None
-        self.error = None
-        self._set_chooser_visible(False)
-        self._note_lines = []
-        self._numbers_line = ""
-        self._set_notes()
+        self._clear()
         self.view.show_message("No run is open. Open run files with File \u25b8 Open run files\u2026 "
                                "or drop them on the window.")
 

@@ -10,6 +10,7 @@ from pathlib import Path
 
 from PySide6 import QtCore, QtWidgets
 
+from phasewake.app.window.file_dialogs import TakesDroppedFiles
 from phasewake.app.window.model import RunSettings, WindowModel
 from phasewake.core.model.run import Run
 
@@ -79,6 +80,16 @@ THERMOSTATS = (("", "as in files"), ("none", "none"), ("langevin", "Langevin"), 
                ("csvr", "stochastic velocity rescaling"), ("berendsen", "Berendsen"), ("andersen", "Andersen"))
 
 
+def _stated_number(top: float, decimals: int, suffix: str) -> QtWidgets.QDoubleSpinBox:
+    """A number a user may state, 0 to ``top``; 0 reads "as in files" (keep the files' value)."""
+    box = QtWidgets.QDoubleSpinBox()
+    box.setRange(0.0, top)
+    box.setDecimals(decimals)
+    box.setSuffix(suffix)
+    box.setSpecialValueText("as in files")
+    return box
+
+
 class SettingsForm(QtWidgets.QGroupBox):
     """Time step, constraints, ensemble, thermostat and its temperature a user states for a run
     (blank: keep the files'). Apply sends them to the run's metadata and the panels recompute."""
@@ -87,19 +98,11 @@ class SettingsForm(QtWidgets.QGroupBox):
 
     def __init__(self, parent: QtWidgets.QWidget | None = None) -> None:
         super().__init__("Settings of the selected run", parent)
-        self.timestep = QtWidgets.QDoubleSpinBox()
-        self.timestep.setRange(0.0, 100.0)
-        self.timestep.setDecimals(3)
-        self.timestep.setSuffix(" fs")
-        self.timestep.setSpecialValueText("as in files")
+        self.timestep = _stated_number(100.0, 3, " fs")
         self.constraints = QtWidgets.QSpinBox()
         self.constraints.setRange(-1, 10_000_000)
         self.constraints.setSpecialValueText("as in files")
-        self.temperature = QtWidgets.QDoubleSpinBox()
-        self.temperature.setRange(0.0, 100_000.0)
-        self.temperature.setDecimals(2)
-        self.temperature.setSuffix(" K")
-        self.temperature.setSpecialValueText("as in files")
+        self.temperature = _stated_number(100_000.0, 2, " K")
         self.ensemble = QtWidgets.QComboBox()
         for value, text in ENSEMBLES:
             self.ensemble.addItem(text, value)
@@ -140,7 +143,7 @@ class SettingsForm(QtWidgets.QGroupBox):
         self.thermostat.setCurrentIndex(max(0, self.thermostat.findData(s.thermostat or "")))
 
 
-class RunsList(QtWidgets.QWidget):
+class RunsList(TakesDroppedFiles, QtWidgets.QWidget):
     """Signals: ``addRequested(list)`` of file paths (from the dialog or a drop)."""
 
     addRequested = QtCore.Signal(list)
@@ -275,13 +278,6 @@ class RunsList(QtWidgets.QWidget):
             self.addRequested.emit([folder])
 
     # ---- drag and drop ------------------------------------------------------------------------
-    def dragEnterEvent(self, event):  # noqa: N802 - Qt override
-        if event.mimeData().hasUrls():
-            event.acceptProposedAction()
-
-    def dropEvent(self, event):  # noqa: N802 - Qt override
-        paths = [u.toLocalFile() for u in event.mimeData().urls() if u.isLocalFile()]
-        if paths:
-            self.addRequested.emit(paths)
-            event.acceptProposedAction()
+    def files_dropped(self, paths: list[str]) -> None:
+        self.addRequested.emit(paths)
 

@@ -44,7 +44,7 @@ from phasewake.core.analyses.geometry import (  # noqa: F401 - re-exported: the 
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.errors import AnalysisError, CoordinateSpecError, InputError, MissingDataError
-from phasewake.core.progress import Progress, Work
+from phasewake.core.progress import Work, labelled
 from phasewake.core.readers.common import check_masses
 
 if TYPE_CHECKING:
@@ -306,7 +306,7 @@ def _with_pcas(run: Run, resolved: list[ResolvedCoordinate], *, start: int, stop
         if key not in pcas:
             n_comp = max(int(q.pc_index or 0) + 1 for q in resolved
                          if q.function == "pc" and tuple(int(a) for a in q.groups[0]) == key)
-            pcas[key] = yield from _relay(
+            pcas[key] = yield from labelled(
                 compute_pca(run, atom_indices=np.asarray(key), start=start, stop=stop,
                             block_frames=PC_BLOCK_FRAMES,
                             mass_weighted=mass_weighted, fit=fit, n_components=max(n_comp, 1), projections=False),
@@ -346,16 +346,6 @@ def finite_difference_velocity(values: np.ndarray, time_ps: np.ndarray, *, perio
         return None
     q = np.unwrap(values) if periodic else values
     return np.gradient(q, time_ps)
-
-
-def _relay(work: Work[Any], *, label: str) -> Work[Any]:
-    """Pass a sub-computation's progress through with a label; return its result."""
-    try:
-        while True:
-            p = next(work)
-            yield Progress(p.done, p.total, f"{label}: {p.message}" if p.message else label)
-    except StopIteration as stop:
-        return stop.value
 
 
 @dataclass(frozen=True)
