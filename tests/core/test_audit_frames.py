@@ -191,8 +191,9 @@ def _fed(run, consumer, lo, hi, chunk):
     from phasewake.core.model.framepass import feed
 
     c = pickle.loads(pickle.dumps(consumer))
-    for _ in feed(run, {"a": c}, start=lo, stop=hi, chunk_frames=chunk):
-        pass
+    with chunking(frames=chunk):
+        for _ in feed(run, {"a": c}, start=lo, stop=hi):
+            pass
     return pickle.loads(pickle.dumps(c))
 
 
