@@ -20,7 +20,7 @@ from phasewake.core.analyses.crossings import (
 )
 from phasewake.core.analyses.verdicts import EXPLANATIONS, THRESHOLDS
 from phasewake.core.errors import AnalysisError
-from phasewake.core.progress import Progress
+from phasewake.core.progress import Progress, drive
 
 sys.path.insert(0, str(Path(__file__).parent))
 from langevin_models import baoab_double_well, brownian_double_well  # noqa: E402
@@ -164,13 +164,8 @@ def test_replicas_pool_their_events():
 
 def test_work_yields_progress_and_returns_result():
     t, q, v = designed()
-    gen = crossings_work([(t, q, v)], states=(-0.8, 0.8), surface=0.0)
     seen = []
-    try:
-        while True:
-            seen.append(next(gen))
-    except StopIteration as stop:
-        result = stop.value
+    result = drive(crossings_work([(t, q, v)], states=(-0.8, 0.8), surface=0.0), on_progress=seen.append)
     assert seen and all(isinstance(p, Progress) for p in seen)
     assert seen[-1].fraction == 1.0
     assert result.n_transitions == 3
@@ -410,7 +405,6 @@ def test_sample_dimer_against_mdtraj_distances_and_a_plain_loop():
     import mdtraj as md
 
     from phasewake.core.analyses.crossings import crossings_of_runs
-    from phasewake.core.progress import drive
     from phasewake.core.readers import open_run
 
     run = open_run([SAMPLES / "dimer_langevin.h5md"])

@@ -25,7 +25,7 @@ from phasewake.core.analyses.crossings import (
 )
 from phasewake.core.analyses.landscape import jacobian_of
 from phasewake.core.errors import AnalysisError
-from phasewake.core.progress import result_of
+from phasewake.core.progress import drive, result_of
 from phasewake.core.settings import chunking
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
@@ -117,12 +117,8 @@ def test_command_line_and_request_share_one_cache_entry(tmp_path, cache_dir, h5m
     n = h5md_reads["n"]
     run = open_run([path])
     seen = []
-    work = requested(run, CrossingsRequest(coordinate="distance(0, 1)"))
-    try:
-        while True:
-            seen.append(next(work).message)
-    except StopIteration as stop:
-        res = stop.value
+    res = drive(requested(run, CrossingsRequest(coordinate="distance(0, 1)")),
+                on_progress=lambda p: seen.append(p.message))
     assert h5md_reads["n"] == n and any("from the cache" in m for m in seen)
     assert res.n_transitions == out["n_transitions"]
     assert res.rate_ab.rate_per_ps == out["rate_ab"]["rate_per_ps"]

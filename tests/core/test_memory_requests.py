@@ -21,7 +21,7 @@ from phasewake.core.analyses.landscape import LandscapeRequest, free_energy_prof
 from phasewake.core.analyses.sampling import SamplingRequest
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.run import EnergyTable, RunMetadata, Series
-from phasewake.core.progress import result_of
+from phasewake.core.progress import drive, result_of
 from phasewake.core.readers.memory import run_from_arrays
 from phasewake.core.settings import chunking
 
@@ -108,12 +108,8 @@ def test_memory_command_and_request_share_one_cache_entry(tmp_path, cache_dir, c
     assert main(["memory", str(path), "--series", "potential", "--json"]) in (0, 1)
     out = json.loads(capsys.readouterr().out)
     messages = []
-    work = requested(open_run([path]), CorrelationRequest(series="potential"))
-    try:
-        while True:
-            messages.append(next(work).message)
-    except StopIteration as stop:
-        rep = stop.value
+    rep = drive(requested(open_run([path]), CorrelationRequest(series="potential")),
+                on_progress=lambda p: messages.append(p.message))
     assert any("from the cache" in m for m in messages)
     assert rep.correlation.statistical_inefficiency == out["series"][0]["statistical_inefficiency_g"]
 
