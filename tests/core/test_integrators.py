@@ -12,7 +12,7 @@ from phasewake.core.model.integrators import (
     run_velocity_verlet,
     velocity_verlet_step,
 )
-from phasewake.core.progress import Progress, result_of
+from phasewake.core.progress import Progress, drive, result_of
 from phasewake.core.units import KB_KJ_PER_MOL_K
 
 
@@ -65,19 +65,25 @@ def test_baoab_harmonic_equipartition():
     # left), then give one sample each: n = 3 x 20000 values, so
     # the relative standard error of a mean square is sqrt(2/n) = 0.58%; tolerance 4 sigma = 2.3%.
     # At w dt = 0.1 the known O(dt^2) velocity bias (next test) is 0.25%, well inside it.
+    x2, v2, tol = _baoab_harmonic_moments(w_dt=0.1, relax_ps=15.0, friction_per_ps=2.0, seed=11)
+    assert x2 == pytest.approx(1.0, abs=tol)
+    assert v2 == pytest.approx(1.0, abs=tol)
+
+
+def _baoab_harmonic_moments(w_dt: float, relax_ps: float, friction_per_ps: float, seed: int):
+    """<x^2>/(kT/k) and <v^2>/(kT/m) of 20000 independent 3-D harmonic walkers (m = 2 amu, k = 3 kJ/mol/nm^2,
+    300 K) started at rest and run with BAOAB at w dt = ``w_dt`` for ``relax_ps``, one sample each at the end;
+    and 4 standard errors of a mean square of n Gaussian values, 4 sqrt(2/n)."""
     m, k, temp = 2.0, 3.0, 300.0
     kt = KB_KJ_PER_MOL_K * temp
-    w = np.sqrt(k / m)
-    dt = 0.1 / w
+    dt = w_dt / np.sqrt(k / m)
     x0 = np.zeros((20000, 1, 3))
-    n = int(round(15.0 / dt))
+    n = int(round(relax_ps / dt))
     run = result_of(run_baoab(x0, np.zeros_like(x0), np.array([m]), harmonic(k), timestep_ps=dt, n_steps=n,
-                              temperature_K=temp, friction_per_ps=2.0, seed=11, record_every=n))
+                              temperature_K=temp, friction_per_ps=friction_per_ps, seed=seed, record_every=n))
     x = run.positions_nm[-1]
     v = run.velocities_nm_per_ps[-1]
-    tol = 4 * np.sqrt(2 / x.size)
-    assert np.mean(x * x) / (kt / k) == pytest.approx(1.0, abs=tol)
-    assert np.mean(v * v) / (kt / m) == pytest.approx(1.0, abs=tol)
+    return np.mean(x * x) / (kt / k), np.mean(v * v) / (kt / m), 4 * np.sqrt(2 / x.size)
 
 
 def test_baoab_exact_configurations_at_large_step():
@@ -85,19 +91,10 @@ def test_baoab_exact_configurations_at_large_step():
     # exactly at any stable step, <x^2> = kT/k, while full-step velocities follow the velocity-Verlet
     # shadow Hamiltonian (Tuckerman 2010 eq. 3.13.3): <v^2> = (kT/m)(1 - w^2 dt^2/4). At w dt = 1 that is a
     # 25% velocity bias and no position bias. Tolerance as above (4 sigma = 2.3%).
-    m, k, temp = 2.0, 3.0, 300.0
-    kt = KB_KJ_PER_MOL_K * temp
-    w = np.sqrt(k / m)
-    dt = 1.0 / w
-    x0 = np.zeros((20000, 1, 3))
-    n = int(round(30.0 / dt))
-    run = result_of(run_baoab(x0, np.zeros_like(x0), np.array([m]), harmonic(k), timestep_ps=dt, n_steps=n,
-                              temperature_K=temp, friction_per_ps=1.0, seed=12, record_every=n))
-    x = run.positions_nm[-1]
-    v = run.velocities_nm_per_ps[-1]
-    tol = 4 * np.sqrt(2 / x.size)
-    assert np.mean(x * x) / (kt / k) == pytest.approx(1.0, abs=tol)
-    assert np.mean(v * v) / (kt / m) == pytest.approx(1 - (w * dt) ** 2 / 4, abs=tol)
+    w_dt = 1.0
+    x2, v2, tol = _baoab_harmonic_moments(w_dt=w_dt, relax_ps=30.0, friction_per_ps=1.0, seed=12)
+    assert x2 == pytest.approx(1.0, abs=tol)
+    assert v2 == pytest.approx(1 - w_dt**2 / 4, abs=tol)
 
 
 def _anharmonic(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -165,14 +162,9 @@ def test_steps_match_drivers_and_progress_is_reported():
                                friction_per_ps=2.0, seed=np.random.default_rng(1)))
     assert np.array_equal(lang.positions_nm[1], x2) and lang.bath_heat_kJ_per_mol[1] == q
     assert kinetic_energy(v, m) == pytest.approx(0.5 * (0.09 + 2 * 0.01))
-    gen = run_baoab(x, v, m, force, timestep_ps=0.01, n_steps=1200, temperature_K=300.0, friction_per_ps=1.0,
-                    seed=2, record_every=600)
     records = []
-    try:
-        while True:
-            records.append(next(gen))
-    except StopIteration as stop:
-        result = stop.value
+    result = drive(run_baoab(x, v, m, force, timestep_ps=0.01, n_steps=1200, temperature_K=300.0,
+                             friction_per_ps=1.0, seed=2, record_every=600), on_progress=records.append)
     assert records and all(isinstance(r, Progress) for r in records)
     assert result.n_frames == 3 and list(result.step) == [0, 600, 1200]
     assert result.seed == 2 and result.integrator == "baoab"
