@@ -21,6 +21,7 @@ from phasewake.core.readers.memory import run_from_arrays
 from phasewake.core.store.cache import ResultCache
 from phasewake.core.store.cached import cached_coordinates
 from tests.counting import CountingFrames, counted
+from tests.helpers import assert_same
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 SPECS = ["distance(0, 1)", "x(0)"]
@@ -143,34 +144,6 @@ def test_window_coordinate_series_uses_the_result_cache(tmp_path, cache_dir):
 
 # ---- cached_work: any analysis ("looking at the same run again is instant") ---------------
 
-def _same(a, b, where="root"):
-    """Deep equality for results: same classes, arrays equal with NaN in place and the same dtype."""
-    import math
-
-    assert type(a) is type(b), where
-    if isinstance(a, np.ndarray):
-        assert a.dtype == b.dtype and a.shape == b.shape, where
-        if a.dtype.names:
-            for n in a.dtype.names:
-                _same(a[n], b[n], f"{where}[{n}]")
-        else:
-            assert np.array_equal(a, b, equal_nan=a.dtype.kind in "fc"), where
-    elif dataclasses.is_dataclass(a):
-        for f in fields(a):
-            _same(getattr(a, f.name), getattr(b, f.name), f"{where}.{f.name}")
-    elif isinstance(a, dict):
-        assert list(a) == list(b), where
-        for k in a:
-            _same(a[k], b[k], f"{where}[{k!r}]")
-    elif isinstance(a, (list, tuple)):
-        assert len(a) == len(b), where
-        for i, (x, y) in enumerate(zip(a, b, strict=True)):
-            _same(x, y, f"{where}[{i}]")
-    elif isinstance(a, float) and math.isnan(a):
-        assert math.isnan(b), where
-    else:
-        assert a == b, f"{where}: {a!r} != {b!r}"
-
 
 def _entries(cache_dir):
     return sorted(cache_dir.glob("*.pwcache")) if cache_dir.exists() else []
@@ -190,8 +163,8 @@ def test_audit_second_call_reads_no_frames_and_equals_the_computation(tmp_path, 
     second = drive(cached_audit(run2), messages.append)
     assert frames2.calls == 0
     assert [m.message for m in messages] == ["audit (from the cache)"]
-    _same(second, first)
-    _same(second, drive(audit_run(open_run([path]))))  # the uncached computation of the same request
+    assert_same(second, first)
+    assert_same(second, drive(audit_run(open_run([path]))))  # the uncached computation of the same request
     # a changed setting is another entry (and reads frames again)
     drive(cached_audit(run2, timestep_ps=0.002))
     drive(cached_audit(run2, groups={"dimer": [0, 1]}))
@@ -249,7 +222,7 @@ def test_window_runs_key_on_their_frame_range(tmp_path, cache_dir):
     run2, frames2 = _counted(path)
     again = drive(cached_spectrum(window_run(run2, 50, 200), max_lag_ps=0.5))
     assert frames2.calls == 0
-    _same(again, b)
+    assert_same(again, b)
 
 
 @pytest.mark.slow  # measured 0.5 s of CPU
@@ -367,7 +340,7 @@ def test_a_hit_is_served_when_the_entry_cannot_be_touched(tmp_path, cache_dir, m
 
     monkeypatch.setattr(cache_mod.os, "utime", refuse)
     run2, frames2 = _counted(path)
-    _same(drive(cached_vacf(run2)), first)
+    assert_same(drive(cached_vacf(run2)), first)
     assert frames2.calls == 0
 
 
@@ -390,7 +363,7 @@ def test_a_hit_never_starts_the_analysis(tmp_path, cache_dir):
     seen.clear()
     second = drive(cached_work(open_run([path]), "toy", {"a": 1}, work()), seen.append)
     assert started == [1] and [p.message for p in seen] == ["toy (from the cache)"]
-    _same(second, first)
+    assert_same(second, first)
     # the same settings under another analysis name are another entry
     drive(cached_work(open_run([path]), "toy2", {"a": 1}, work()))
     assert started == [1, 1]
@@ -414,7 +387,7 @@ def test_requested_pass_reads_the_frames_once_and_shares_entries_with_the_single
     assert frames.calls == 2  # one shared pass, then the PCA's projections
     assert len(_entries(cache_dir)) == 3
     plain = open_run([path])
-    _same(got["audit"], drive(audit_run(plain, n_constraints=0)))
+    assert_same(got["audit"], drive(audit_run(plain, n_constraints=0)))
     _equal(got["q"], drive(compute_coordinates(plain, SPECS)))
     alone = drive(compute_pca(plain, **pca_kw))
     np.testing.assert_allclose(got["pca"].eigenvalues, alone.eigenvalues, rtol=1e-9)
@@ -428,7 +401,7 @@ def test_requested_pass_reads_the_frames_once_and_shares_entries_with_the_single
     # and the pass itself is served from the cache the second time
     again = drive(requested_pass(run2, {"audit": AuditRequest(n_constraints=0), "q": CoordinatesRequest(SPECS)}))
     assert frames2.calls == 0
-    _same(again["audit"], got["audit"])
+    assert_same(again["audit"], got["audit"])
     # only filling the cache (the window's shared read): entries already there are not even read
     filled = drive(requested_pass(run2, {"audit": AuditRequest(n_constraints=0), "q": CoordinatesRequest(SPECS)},
                                load_hits=False))

@@ -14,6 +14,7 @@ import pytest
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
 from phasewake.core.readers import open_run
+from tests.helpers import amber_netcdf
 
 N_ATOMS = 12
 N_FRAMES = 20
@@ -216,31 +217,10 @@ def test_truncated_trr_frame(tmp_path, files, traj):
 def test_amber_netcdf_velocities_with_scale_factor(tmp_path, files, traj):
     # AMBER NetCDF convention: velocities(frame, atom, spatial), units "angstrom/picosecond",
     # scale_factor 20.455 (AMBER's internal velocity unit); written here with scipy's NetCDF-3 writer.
-    from scipy.io import netcdf_file
-
     rng = np.random.default_rng(8)
     stored = rng.normal(size=traj.xyz.shape).astype(np.float32)
     path = tmp_path / "amber.nc"
-    with netcdf_file(str(path), "w", version=2) as nc:
-        nc.Conventions = b"AMBER"
-        nc.ConventionVersion = b"1.0"
-        nc.program = b"test"
-        nc.programVersion = b"1"
-        nc.createDimension("frame", None)
-        nc.createDimension("spatial", 3)
-        nc.createDimension("atom", N_ATOMS)
-        sp = nc.createVariable("spatial", "c", ("spatial",))
-        sp[:] = np.array(list("xyz"), dtype="S1")
-        t = nc.createVariable("time", "f", ("frame",))
-        t.units = b"picosecond"
-        c = nc.createVariable("coordinates", "f", ("frame", "atom", "spatial"))
-        c.units = b"angstrom"
-        v = nc.createVariable("velocities", "f", ("frame", "atom", "spatial"))
-        v.units = b"angstrom/picosecond"
-        v.scale_factor = np.float32(20.455)
-        t[:] = traj.time
-        c[:] = traj.xyz * 10
-        v[:] = stored
+    amber_netcdf(path, traj.xyz, stored, traj.time)
     with contextlib.redirect_stdout(io.StringIO()), warnings.catch_warnings():
         warnings.filterwarnings("ignore", message=".*netCDF4.*")
         ref = md.load(str(path), top=str(files["pdb"]))

@@ -19,6 +19,7 @@ import pytest
 from phasewake.app.cli import main
 from phasewake.core.errors import TopologyMismatchError
 from phasewake.core.readers import open_run
+from tests.helpers import amber_netcdf
 
 N_ATOMS = 6
 N_FRAMES = 40
@@ -218,43 +219,14 @@ def test_audit_infers_no_constraints_from_xtc_positions():
     assert trr.temperature.constraints_source.startswith("inferred from rigid pair distances")
 
 
-def _amber_nc(path: Path, xyz_nm: np.ndarray, vel_internal: np.ndarray, time_ps: np.ndarray) -> Path:
-    """An AMBER NetCDF trajectory laid out per the AMBER NetCDF convention (AMBER cannot be
-    installed here), written with scipy's NetCDF-3 writer: coordinates in Angstrom, velocities in AMBER's
-    internal unit with scale_factor 20.455, time in ps."""
-    from scipy.io import netcdf_file
-
-    with netcdf_file(str(path), "w", version=2) as nc:
-        nc.Conventions = b"AMBER"
-        nc.ConventionVersion = b"1.0"
-        nc.program = b"test"
-        nc.programVersion = b"1"
-        nc.createDimension("frame", None)
-        nc.createDimension("spatial", 3)
-        nc.createDimension("atom", xyz_nm.shape[1])
-        sp = nc.createVariable("spatial", "c", ("spatial",))
-        sp[:] = np.array(list("xyz"), dtype="S1")
-        t = nc.createVariable("time", "f", ("frame",))
-        t.units = b"picosecond"
-        c = nc.createVariable("coordinates", "f", ("frame", "atom", "spatial"))
-        c.units = b"angstrom"
-        v = nc.createVariable("velocities", "f", ("frame", "atom", "spatial"))
-        v.units = b"angstrom/picosecond"
-        v.scale_factor = np.float32(20.455)
-        t[:] = time_ps
-        c[:] = xyz_nm * 10
-        v[:] = vel_internal
-    return path
-
-
 def test_amber_netcdf_parts_prod1_prod2_join_with_velocities(tmp_path, whole):
     # AMBER restarts continue TIME(PS) from the restart file and repeat no frame (AMBER documentation):
     # prod1.nc (frames 0-24) and prod2.nc (25-39) give the whole run; velocities x 20.455 x 0.1 nm/ps.
     xyz, pdb, _ = whole
     vel = np.random.default_rng(9).normal(size=xyz.shape).astype(np.float32)
     t = np.arange(N_FRAMES) * DT
-    _amber_nc(tmp_path / "prod1.nc", xyz[:25], vel[:25], t[:25])
-    _amber_nc(tmp_path / "prod2.nc", xyz[25:], vel[25:], t[25:])
+    amber_netcdf(tmp_path / "prod1.nc", xyz[:25], vel[:25], t[:25])
+    amber_netcdf(tmp_path / "prod2.nc", xyz[25:], vel[25:], t[25:])
     run = open_run([tmp_path / "prod2.nc", tmp_path / "prod1.nc", pdb])
     assert run.n_frames == N_FRAMES and run.has_velocities and not run.frames.velocities_estimated
     got = np.concatenate([c.velocities_nm_per_ps for c in run.frames.iter_chunks(chunk_frames=9)])

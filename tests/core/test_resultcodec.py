@@ -18,38 +18,9 @@ from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.store import codec as resultcodec
 from phasewake.core.store.cache import ResultCache
+from tests.helpers import assert_same
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
-
-
-def assert_same(a, b, where="root"):
-    """Deep equality: same type, arrays equal incl. NaN positions and dtype, NaN == NaN for floats."""
-    assert type(a) is type(b), f"{where}: {type(a)} vs {type(b)}"
-    if isinstance(a, np.ndarray):
-        assert a.dtype == b.dtype and a.shape == b.shape, f"{where}: {a.dtype}{a.shape} vs {b.dtype}{b.shape}"
-        if a.dtype.names:
-            for n in a.dtype.names:
-                assert_same(a[n], b[n], f"{where}[{n}]")
-        elif a.dtype.kind == "O":
-            for i, (x, y) in enumerate(zip(a.ravel(), b.ravel(), strict=True)):
-                assert_same(x, y, f"{where}[{i}]")
-        else:
-            assert np.array_equal(a, b, equal_nan=a.dtype.kind in "fc"), where
-    elif dataclasses.is_dataclass(a):
-        for f in dataclasses.fields(a):
-            assert_same(getattr(a, f.name), getattr(b, f.name), f"{where}.{f.name}")
-    elif isinstance(a, dict):
-        assert list(a) == list(b), where
-        for k in a:
-            assert_same(a[k], b[k], f"{where}[{k!r}]")
-    elif isinstance(a, (list, tuple)):
-        assert len(a) == len(b), where
-        for i, (x, y) in enumerate(zip(a, b, strict=True)):
-            assert_same(x, y, f"{where}[{i}]")
-    elif isinstance(a, (float, np.floating)) and math.isnan(a):
-        assert math.isnan(b), where
-    else:
-        assert a == b, f"{where}: {a!r} vs {b!r}"
 
 
 def through_cache(obj, tmp_path):

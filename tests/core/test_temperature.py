@@ -10,6 +10,7 @@ import pytest
 
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.errors import AnalysisError
+from tests.helpers import water_topology
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 exact (k_B N_A)
 
@@ -100,26 +101,6 @@ def test_equipartition_flags_hot_group_only_when_significant():
 # --- Constraint inference -----------------------------------------------------------------------------
 
 
-def _water_topology(n_waters, flexible_extra=0):
-    import mdtraj as md
-
-    top = md.Topology()
-    chain = top.add_chain()
-    for _ in range(n_waters):
-        r = top.add_residue("HOH", chain)
-        o = top.add_atom("O", md.element.oxygen, r)
-        h1 = top.add_atom("H1", md.element.hydrogen, r)
-        h2 = top.add_atom("H2", md.element.hydrogen, r)
-        top.add_bond(o, h1)
-        top.add_bond(o, h2)
-    for _ in range(flexible_extra):  # a 6-atom chain C-C-C-C-C-C, flexible, not a small residue
-        r = top.add_residue("HEX", chain)
-        atoms = [top.add_atom(f"C{i}", md.element.carbon, r) for i in range(6)]
-        for a, b in zip(atoms[:-1], atoms[1:]):
-            top.add_bond(a, b)
-    return top
-
-
 def _random_rotations(rng, n):
     q = rng.normal(size=(n, 4))
     q /= np.linalg.norm(q, axis=1, keepdims=True)
@@ -135,7 +116,7 @@ def test_rigid_water_gives_three_constraints_each_flexible_chain_none():
     # Rigid water: 3 constraints per molecule, N_dof = 3N - 3 n_waters - 3.
     rng = np.random.default_rng(5)
     n_w, n_f, n_frames = 20, 2, 60
-    top = _water_topology(n_w, n_f)
+    top = water_topology(n_w, n_f)
     body = np.array([[0.0, 0.0, 0.0], [0.09572, 0.0, 0.0], [-0.02399, 0.09266, 0.0]])  # TIP3P geometry
     pos = np.empty((n_frames, top.n_atoms, 3))
     for f in range(n_frames):

@@ -12,6 +12,7 @@ import pytest
 from phasewake.core.analyses import motion_spectrum as ms
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.errors import AnalysisError
+from tests.helpers import water_topology
 
 C_CM_PER_S = 2.99792458e10  # exact
 
@@ -129,24 +130,9 @@ def test_few_fast_atoms_are_not_drowned_by_many_slow_ones():
 
 # --- coarse frames: only resolved motions count; expected fast motions from the topology and masses ---
 
-def _water_topology(n_waters: int, *, bonds: bool = True):
-    import mdtraj as md
-
-    top = md.Topology()
-    chain = top.add_chain()
-    for _ in range(n_waters):
-        r = top.add_residue("HOH", chain)
-        o = top.add_atom("O", md.element.oxygen, r)
-        h1 = top.add_atom("H1", md.element.hydrogen, r)
-        h2 = top.add_atom("H2", md.element.hydrogen, r)
-        if bonds:
-            top.add_bond(o, h1)
-            top.add_bond(o, h2)
-    return top
-
 
 def test_expected_motions_of_flexible_and_rigid_water():
-    top = _water_topology(4)
+    top = water_topology(4)
     m = np.tile([15.999, 1.008, 1.008], 4)
     flex = ts.expected_fast_motions(top, m, n_constraints=0)
     names = [e.name for e in flex]
@@ -164,7 +150,7 @@ def test_expected_motions_of_flexible_and_rigid_water():
 def test_heavy_hydrogens_scale_the_stretch_by_the_reduced_mass():
     # harmonic frequency ~ 1/sqrt(mu): hydrogen mass 3.024 amu (repartitioned) lowers the O-H band by
     # sqrt(mu(16, 1.008) / mu(16, 3.024)) (analytic)
-    top = _water_topology(1)
+    top = water_topology(1)
     mu = lambda a, b: a * b / (a + b)  # noqa: E731
     e = ts.expected_fast_motions(top, np.array([15.999, 3.024, 3.024]), n_constraints=0)[0]
     assert e.high_per_cm == pytest.approx(3700 * np.sqrt(mu(15.999, 1.008) / mu(15.999, 3.024)), rel=1e-9)
@@ -216,7 +202,7 @@ def test_unresolved_oh_stretch_decides_the_time_step_not_its_alias():
     dt = 0.010
     t, v, m = oscillating_atoms([3657.0], [1.0], [1.0], dt, 4096)
     fm = ts.fastest_motion(*ms.velocity_power_spectrum(v, m, dt, segment_frames=1024))
-    top = _water_topology(2)
+    top = water_topology(2)
     exp = ts.expected_fast_motions(top, np.tile([15.999, 1.008, 1.008], 2), n_constraints=0)
     out = {v.kind: v for v in ts.timestep_verdicts(fm, dt, 0.003, "user (--timestep)", exp)}
     step = out["timestep.fastest_period"]
