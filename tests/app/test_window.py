@@ -23,6 +23,7 @@ from phasewake.app.window import analyses  # noqa: E402
 from phasewake.app.window.analyses import PANELS  # noqa: E402
 from phasewake.app.window.main import MainWindow, delete_now  # noqa: E402
 from phasewake.core.progress import Progress  # noqa: E402
+from tests.app.test_window_parts import idle_ticks  # noqa: E402
 
 pytestmark = [pytest.mark.gui, pytest.mark.slow]  # opening the sample computes every panel (seconds)
 SAMPLE = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
@@ -87,17 +88,6 @@ def win(opened):
     opened.model.set_cursor_frame(0)
     assert opened.wait_idle(60_000)
     return opened
-
-
-def _idle_ticks(qtbot, ms: int) -> int:
-    """Ticks of a 20 ms timer in ``ms`` with nothing running: the same-run baseline (a shared machine)."""
-    ticks = []
-    timer = QtCore.QTimer()
-    timer.timeout.connect(lambda: ticks.append(1))
-    timer.start(20)
-    qtbot.wait(ms)
-    timer.stop()
-    return len(ticks)
 
 
 def _drawn_points(panel) -> int:
@@ -216,7 +206,7 @@ def test_long_computation_keeps_window_responsive_and_cancels(win, qtbot, monkey
         return analyses.PanelResult(message="finished")
 
     monkeypatch.setitem(analyses.PANEL_JOBS, "Correlation", slow)
-    baseline = _idle_ticks(qtbot, 400)
+    baseline = idle_ticks(qtbot, 400)
     ticks = []
     timer = QtCore.QTimer()
     timer.timeout.connect(lambda: ticks.append(1))
