@@ -118,27 +118,34 @@ def test_series_sampling_matches_numpy():
             en.statistical_inefficiency_of(k)[0], rel=1e-12)
 
 
+def _audit_of_table(t: np.ndarray, ke: np.ndarray, pe: np.ndarray, n_atoms: int):  # -> AuditResult
+    """The audit of an NVE run of ``n_atoms`` atoms (1 fs step) that has only an energy table: kinetic and
+    potential energy (kJ/mol) at times ``t`` (ps)."""
+    from phasewake.core.analyses.audit import audit_run
+    from phasewake.core.progress import drive
+    from phasewake.core.readers.memory import run_from_arrays
+
+    table = EnergyTable(time_ps=t, series={"kinetic": Series("kinetic", ke, "kJ/mol", "kinetic"),
+                                           "potential": Series("potential", pe, "kJ/mol", "potential")})
+    run = run_from_arrays(np.zeros((1, n_atoms, 3)), np.zeros(1), np.ones(n_atoms), energies=table,
+                          metadata=RunMetadata(ensemble="NVE", timestep_ps=0.001))
+    run.frames = None
+    run.time_ps = t[:0]
+    return drive(audit_run(run))
+
+
 @pytest.mark.slow
 def test_audit_of_a_long_table_matches_direct_numpy_numbers():
     """An energy table longer than the windowed-g threshold (2^21 rows): the audit's numbers from the
     one-pass route against numpy on the whole arrays (the previous route's formulas)."""
-    from phasewake.core.analyses.audit import audit_run
     from phasewake.core.analyses.temperature import kinetic_temperature
-    from phasewake.core.progress import drive
-    from phasewake.core.readers.memory import run_from_arrays
 
     n = (1 << 21) + 4096
     rng = np.random.default_rng(9)
     t = np.arange(n) * 1e-3
     ke = 500 + 10 * rng.standard_normal(n)
     pe = -800 + 1e-5 * t - (ke - 500) + 0.05 * rng.standard_normal(n)
-    table = EnergyTable(time_ps=t, series={"kinetic": Series("kinetic", ke, "kJ/mol", "kinetic"),
-                                           "potential": Series("potential", pe, "kJ/mol", "potential")})
-    run = run_from_arrays(np.zeros((1, 100, 3)), np.zeros(1), np.ones(100), energies=table,
-                          metadata=RunMetadata(ensemble="NVE", timestep_ps=0.001))
-    run.frames = None
-    run.time_ps = t[:0]
-    res = drive(audit_run(run))
+    res = _audit_of_table(t, ke, pe, n_atoms=100)
     e = pe + ke
     slope, icpt = np.polyfit(t, e, 1)  # numpy least squares (reference)
     d = res.energy.drift
@@ -161,10 +168,6 @@ def test_audit_of_a_long_table_matches_direct_numpy_numbers():
 def test_audit_with_non_finite_rows_takes_the_masked_route():
     """A NaN kinetic energy and an infinite potential energy: the rows are dropped, and the numbers are
     numpy's on the remaining rows (reference)."""
-    from phasewake.core.analyses.audit import audit_run
-    from phasewake.core.progress import drive
-    from phasewake.core.readers.memory import run_from_arrays
-
     n = 20_000
     rng = np.random.default_rng(10)
     t = np.arange(n) * 1e-3
@@ -172,13 +175,7 @@ def test_audit_with_non_finite_rows_takes_the_masked_route():
     pe = -800 - (ke - 500) + 0.05 * rng.standard_normal(n)
     ke[123] = np.nan
     pe[4567] = np.inf
-    table = EnergyTable(time_ps=t, series={"kinetic": Series("kinetic", ke, "kJ/mol", "kinetic"),
-                                           "potential": Series("potential", pe, "kJ/mol", "potential")})
-    run = run_from_arrays(np.zeros((1, 10, 3)), np.zeros(1), np.ones(10), energies=table,
-                          metadata=RunMetadata(ensemble="NVE", timestep_ps=0.001))
-    run.frames = None
-    run.time_ps = t[:0]
-    res = drive(audit_run(run))
+    res = _audit_of_table(t, ke, pe, n_atoms=10)
     ok = np.isfinite(ke) & np.isfinite(pe)
     e = (pe + ke)[ok]
     assert res.energy.events.n_nonfinite == 2
