@@ -87,37 +87,39 @@ def topology_mismatch(tmp: Path):
     return [tmp / "run.dcd", top], ["atom"]
 
 
-def h5md_without_positions(tmp: Path):
-    p = tmp / "nopos.h5md"
+def _edited_positions(tmp: Path, name: str, edit) -> Path:
+    """A copy of the good H5MD in ``tmp`` with ``edit(group)`` applied to each particle group that holds
+    positions."""
+    p = tmp / name
     shutil.copy(GOOD_H5MD, p)
     with h5py.File(p, "r+") as f:
         for g in f["particles"].values():
             if "position" in g:
-                del g["position"]
-    return [p], ["position"]
+                edit(g)
+    return p
+
+
+def h5md_without_positions(tmp: Path):
+    def drop(g):
+        del g["position"]
+
+    return [_edited_positions(tmp, "nopos.h5md", drop)], ["position"]
 
 
 def h5md_unknown_unit(tmp: Path):
-    p = tmp / "badunit.h5md"
-    shutil.copy(GOOD_H5MD, p)
-    with h5py.File(p, "r+") as f:
-        for g in f["particles"].values():
-            if "position" in g:
-                g["position/value"].attrs["unit"] = "furlong"
-    return [p], ["furlong"]
+    def furlong(g):
+        g["position/value"].attrs["unit"] = "furlong"
+
+    return [_edited_positions(tmp, "badunit.h5md", furlong)], ["furlong"]
 
 
 def h5md_misshaped(tmp: Path):
-    p = tmp / "misshaped.h5md"
-    shutil.copy(GOOD_H5MD, p)
-    with h5py.File(p, "r+") as f:
-        for g in f["particles"].values():
-            if "position" in g:
-                val = g["position/value"]
-                unit = val.attrs.get("unit", "nm")
-                del g["position/value"]
-                g["position"].create_dataset("value", data=np.zeros((5, 7), np.float32)).attrs["unit"] = unit
-    return [p], ["shape"]
+    def misshape(g):
+        unit = g["position/value"].attrs.get("unit", "nm")
+        del g["position/value"]
+        g["position"].create_dataset("value", data=np.zeros((5, 7), np.float32)).attrs["unit"] = unit
+
+    return [_edited_positions(tmp, "misshaped.h5md", misshape)], ["shape"]
 
 
 def table(tmp: Path, text: str, name: str = "energy.csv"):

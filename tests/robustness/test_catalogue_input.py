@@ -393,15 +393,20 @@ def read_only_folder(tmp_path_factory):
     shutil.rmtree(base)
 
 
-def _refused_in_read_only_folder(argv: list[str], option: str, capsys) -> None:
+def _main_without_privileges(argv: list[str], capsys) -> tuple[int, str]:
+    """``main(argv)``'s exit code and stderr as a user without special rights: root reads and writes
+    anywhere, so as root the imports are warmed in this process and the command runs in a child that
+    drops privileges."""
     if os.geteuid() == 0:
-        # root writes anywhere: warm the imports in this process, then drop privileges in a child
         main(["describe", str(NVE)])
         capsys.readouterr()
-        code, err = _as_unprivileged(argv)
-    else:
-        code = main(argv)
-        err = capsys.readouterr().err
+        return _as_unprivileged(argv)
+    code = main(argv)
+    return code, capsys.readouterr().err
+
+
+def _refused_in_read_only_folder(argv: list[str], option: str, capsys) -> None:
+    code, err = _main_without_privileges(argv, capsys)
     assert code == 2, err
     assert "Traceback" not in err and err.strip().count("\n") == 0, err
     assert option in err and "permission denied" in err.lower(), err
@@ -448,14 +453,7 @@ def test_unreadable_file_says_permission_denied(read_only_folder, capsys):
     shutil.copy(NVE, p)
     p.chmod(0o000)
     try:
-        argv = ["describe", str(p)]
-        if os.geteuid() == 0:
-            main(["describe", str(NVE)])
-            capsys.readouterr()
-            code, err = _as_unprivileged(argv)
-        else:
-            code = main(argv)
-            err = capsys.readouterr().err
+        code, err = _main_without_privileges(["describe", str(p)], capsys)
     finally:
         p.chmod(0o644)
     assert code == 2 and "Traceback" not in err, err
