@@ -277,23 +277,31 @@ def test_layering():
 
 
 def test_module_sizes():
-    problems = []
     sizes = {str(p.relative_to(ROOT)): len(p.read_text(encoding="utf-8").splitlines())
              for p in _sources().values()}
-    for name, lines in sorted(sizes.items()):
-        ceiling = KNOWN_LONG_MODULES.get(name)
-        if ceiling is None and lines > MAX_MODULE_LINES:
-            problems.append(f"{name} has {lines} lines (at most {MAX_MODULE_LINES}): split it")
-        elif ceiling is not None and lines > ceiling:
-            problems.append(f"{name} grew from {ceiling} to {lines} lines: split it instead")
-    for name in sorted(KNOWN_LONG_MODULES):
-        if sizes.get(name, 0) <= MAX_MODULE_LINES:
-            problems.append(f"{name} is no longer over {MAX_MODULE_LINES} lines: remove it from KNOWN_LONG_MODULES")
+    problems = _over_the_limit(sizes, KNOWN_LONG_MODULES, MAX_MODULE_LINES, "split it", "KNOWN_LONG_MODULES",
+                               gone="is no longer over")
     assert not problems, "\n".join(problems)
 
 
-def test_function_sizes():
+def _over_the_limit(lengths: dict[str, int], known: dict[str, int], most: int, advice: str, known_name: str, *,
+                    gone: str) -> list[str]:
+    """What breaks the limit of ``most`` lines: a new piece over it, a known long one grown past its
+    ceiling in ``known``, or a known one no longer over it (to be taken off the list)."""
     problems = []
+    for name, lines in sorted(lengths.items()):
+        ceiling = known.get(name)
+        if ceiling is None and lines > most:
+            problems.append(f"{name} has {lines} lines (at most {most}): {advice}")
+        elif ceiling is not None and lines > ceiling:
+            problems.append(f"{name} grew from {ceiling} to {lines} lines: {advice} instead")
+    for name in sorted(known):
+        if lengths.get(name, 0) <= most:
+            problems.append(f"{name} {gone} {most} lines: remove it from {known_name}")
+    return problems
+
+
+def test_function_sizes():
     lengths = {}
     for path in _sources().values():
         if path.relative_to(ROOT).parts[0] != "core":
@@ -301,16 +309,8 @@ def test_function_sizes():
         tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
         for name, lines in _functions(tree):
             lengths[f"{path.relative_to(ROOT)}::{name}"] = lines
-    for name, lines in sorted(lengths.items()):
-        ceiling = KNOWN_LONG_FUNCTIONS.get(name)
-        if ceiling is None and lines > MAX_FUNCTION_LINES:
-            problems.append(f"{name} has {lines} lines (at most {MAX_FUNCTION_LINES}): cut it into named steps")
-        elif ceiling is not None and lines > ceiling:
-            problems.append(f"{name} grew from {ceiling} to {lines} lines: cut it into named steps instead")
-    for name in sorted(KNOWN_LONG_FUNCTIONS):
-        if lengths.get(name, 0) <= MAX_FUNCTION_LINES:
-            problems.append(f"{name} is gone or no longer over {MAX_FUNCTION_LINES} lines: "
-                            "remove it from KNOWN_LONG_FUNCTIONS")
+    problems = _over_the_limit(lengths, KNOWN_LONG_FUNCTIONS, MAX_FUNCTION_LINES, "cut it into named steps",
+                               "KNOWN_LONG_FUNCTIONS", gone="is gone or no longer over")
     assert not problems, "\n".join(problems)
 
 
