@@ -55,7 +55,7 @@ from phasewake.core.analyses.audit_results import (
 from phasewake.core.analyses.audit_temperature import DofCount, count_dof, temperature_part
 from phasewake.core.analyses.audit_verdicts import audit_verdicts
 from phasewake.core.analyses.ensemble import EnsembleDecision, decide_ensemble, ensemble_verdict
-from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.request import AnalysisRequest, index_groups
 from phasewake.core.analyses.verdicts import Verdict
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.run import EnergyTable, Run
@@ -354,9 +354,7 @@ class AuditRequest(AnalysisRequest):
     max_spectrum_segments: int | None = 64
 
     def __post_init__(self) -> None:
-        if self.groups is not None:  # equal requests compare equal whatever sequence type the indices came in
-            object.__setattr__(self, "groups", {str(k): tuple(int(i) for i in np.asarray(v).reshape(-1))
-                                                for k, v in self.groups.items()} or None)
+        object.__setattr__(self, "groups", index_groups(self.groups))
 
     def _keywords(self) -> dict[str, Any]:
         return {f.name: getattr(self, f.name) for f in fields(self)}

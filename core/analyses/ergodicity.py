@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any, ClassVar
 import numpy as np
 
 from phasewake.core.analyses import verdicts
-from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.request import AnalysisRequest, index_tuple
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.progress import Work
 
@@ -261,8 +261,7 @@ class ThirumalaiMountainRequest(AnalysisRequest):
     stride: int = 1
 
     def __post_init__(self) -> None:
-        if self.atom_indices is not None:
-            object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).ravel()))
+        object.__setattr__(self, "atom_indices", index_tuple(self.atom_indices))
 
     def work(self, run: Run) -> Work[TMResult]:
         return (yield from thirumalai_mountain_kinetic(

@@ -73,7 +73,7 @@ from phasewake.core.analyses.pca_kernels import (  # noqa: F401 - PCAResult and 
     quasi_harmonic_frequencies,
     sketch_cq,
 )
-from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.request import AnalysisRequest, index_tuple
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Explanation, Threshold, Verdict, judge, register
 from phasewake.core.errors import AnalysisError, MissingDataError, TooShortError
 from phasewake.core.model.run import FrameChunk
@@ -661,14 +661,13 @@ class PCARequest(AnalysisRequest):
     projections: bool = True
 
     def __post_init__(self) -> None:
-        if self.atom_indices is not None:
-            object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).reshape(-1)))
+        object.__setattr__(self, "atom_indices", index_tuple(self.atom_indices))
         if self.reference_nm is not None:
             ref = np.asarray(self.reference_nm, dtype=np.float64)
             object.__setattr__(self, "reference_nm", tuple(tuple(float(v) for v in row) for row in ref.reshape(-1, 3)))
 
     def _keywords(self) -> dict[str, Any]:
-        kw = {k: getattr(self, k) for k in self.settings()}
+        kw = dict(self.settings())
         if kw["reference_nm"] is not None:
             kw["reference_nm"] = np.asarray(kw["reference_nm"], dtype=np.float64)
         return kw

@@ -14,14 +14,29 @@ consumer's finished value into the request's result (the identity for most).
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any, ClassVar
+
+import numpy as np
 
 if TYPE_CHECKING:
     from phasewake.core.model.framepass import FrameConsumer
     from phasewake.core.model.run import Run
     from phasewake.core.progress import Work
+
+
+def index_tuple(indices: Sequence[int] | np.ndarray | None) -> tuple[int, ...] | None:
+    """Atom indices as a flat tuple of ints (None stays None), so that equal requests compare (and key) equal
+    whatever sequence type the indices came in."""
+    return None if indices is None else tuple(int(i) for i in np.asarray(indices).reshape(-1))
+
+
+def index_groups(groups: Mapping[str, Sequence[int] | np.ndarray] | None) -> dict[str, tuple[int, ...]] | None:
+    """Groups as {name: tuple of ints} (see :func:`index_tuple`); None for none or an empty mapping."""
+    if groups is None:
+        return None
+    return {str(k): tuple(int(i) for i in np.asarray(v).reshape(-1)) for k, v in groups.items()} or None
 
 
 @dataclass(frozen=True)

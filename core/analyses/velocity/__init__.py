@@ -39,11 +39,11 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, ClassVar
+from typing import TYPE_CHECKING, ClassVar
 
 import numpy as np
 
-from phasewake.core.analyses.request import AnalysisRequest
+from phasewake.core.analyses.request import AnalysisRequest, index_groups, index_tuple
 from phasewake.core.analyses.velocity.autocorrelation import (
     DEFAULT_BUFFER_BYTES,
     VACFConsumer,
@@ -99,13 +99,6 @@ __all__ = [
 ]
 
 
-def _frozen_groups(groups: Mapping[str, Sequence[int]] | None) -> dict[str, tuple[int, ...]] | None:
-    """Groups as {name: tuple of ints}, so equal requests compare (and key) equal."""
-    if groups is None:
-        return None
-    return {str(k): tuple(int(i) for i in np.asarray(v).reshape(-1)) for k, v in groups.items()} or None
-
-
 def _whole(run: Run, start: int, stop: int | None, stride: int) -> bool:
     """Whether the frames asked for are every frame of ``run`` (what a shared pass reads)."""
     return start == 0 and stride == 1 and (stop is None or stop >= run.n_frames)
@@ -134,19 +127,16 @@ class VACFRequest(AnalysisRequest):
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "groups", _frozen_groups(self.groups))
-
-    def _keywords(self) -> dict[str, Any]:
-        return {k: getattr(self, k) for k in self.settings()}
+        object.__setattr__(self, "groups", index_groups(self.groups))
 
     def work(self, run: Run) -> Work[VACFResult]:
-        return (yield from vacf(run, **self._keywords()))
+        return (yield from vacf(run, **self.settings()))
 
     def consumer(self, run: Run) -> VACFConsumer | None:
         """The VACF of every frame in a shared pass (None for a part of the frames or a stride)."""
         if not _whole(run, self.start, self.stop, self.stride):
             return None
-        return VACFConsumer(run, **self._keywords())
+        return VACFConsumer(run, **self.settings())
 
 
 @dataclass(frozen=True)
@@ -175,14 +165,10 @@ class SpectrumRequest(AnalysisRequest):
     max_buffer_bytes: int = DEFAULT_BUFFER_BYTES
 
     def __post_init__(self) -> None:
-        if self.atom_indices is not None:
-            object.__setattr__(self, "atom_indices", tuple(int(i) for i in np.asarray(self.atom_indices).reshape(-1)))
-
-    def _keywords(self) -> dict[str, Any]:
-        return {k: getattr(self, k) for k in self.settings()}
+        object.__setattr__(self, "atom_indices", index_tuple(self.atom_indices))
 
     def work(self, run: Run) -> Work[VDOSResult]:
-        return (yield from vibrational_spectrum(run, **self._keywords()))
+        return (yield from vibrational_spectrum(run, **self.settings()))
 
     def consumer(self, run: Run) -> VACFConsumer | None:
         """The mass-weighted VACF of the atoms over every frame, for a shared pass (None otherwise)."""
@@ -225,12 +211,12 @@ class MSDRequest(AnalysisRequest):
     dimensions: int = 3
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "groups", _frozen_groups(self.groups))
+        object.__setattr__(self, "groups", index_groups(self.groups))
         if self.fit_range_ps is not None:
             object.__setattr__(self, "fit_range_ps", tuple(float(x) for x in self.fit_range_ps))
 
     def work(self, run: Run) -> Work[MSDResult]:
-        return (yield from msd(run, **{k: getattr(self, k) for k in self.settings()}))
+        return (yield from msd(run, **self.settings()))
 
 
 @dataclass(frozen=True)
@@ -255,7 +241,7 @@ class TransportRequest(AnalysisRequest):
     vacf_result: VACFResult | None = field(default=None, compare=False, hash=False, repr=False)
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "groups", _frozen_groups(self.groups))
+        object.__setattr__(self, "groups", index_groups(self.groups))
         if self.fit_range_ps is not None:
             object.__setattr__(self, "fit_range_ps", tuple(float(x) for x in self.fit_range_ps))
 
