@@ -114,6 +114,25 @@ def h5md_reads(monkeypatch):
     return count
 
 
+@pytest.fixture
+def spy_on(monkeypatch):
+    """``calls = spy_on(module, "name", note)``: the generator function ``module.name`` replaced for the test by
+    one that appends ``note(args, kwargs)`` of each call to ``calls`` and then runs the real one."""
+
+    def install(module, name, note):
+        calls = []
+        real = getattr(module, name)
+
+        def spy(*a, **kw):
+            calls.append(note(a, kw))
+            return (yield from real(*a, **kw))
+
+        monkeypatch.setattr(module, name, spy)
+        return calls
+
+    return install
+
+
 # --- the sample run's report, built once per test session --------------------------------------------
 @pytest.fixture(scope="session")
 def sample_report(tmp_path_factory):

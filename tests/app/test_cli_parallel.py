@@ -18,6 +18,13 @@ from phasewake.core.model import parallel
 from tests.core.test_parallel import make_xtc
 
 
+@pytest.fixture(autouse=True)
+def _worker_setting_given_back(monkeypatch):
+    """--workers is a process setting (parallel.set_workers): each test here leaves it as it found it, so a
+    later test's pass does not go to workers it never asked for."""
+    monkeypatch.setattr(parallel, "_workers", parallel._workers)
+
+
 def _free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
@@ -50,16 +57,9 @@ def test_help_says_where_workers_help(capsys):
     assert "--scheduler ADDRESS" in text
 
 
-def test_coords_with_two_workers_writes_what_one_worker_writes(tmp_path, capsys, monkeypatch):
+def test_coords_with_two_workers_writes_what_one_worker_writes(tmp_path, capsys, spy_on):
     xtc, pdb = make_xtc(tmp_path, n_frames=300)
-    used = []
-    real = parallel.ranges_pass
-
-    def spy(*a, **kw):
-        used.append(kw.get("workers"))
-        return (yield from real(*a, **kw))
-
-    monkeypatch.setattr(parallel, "ranges_pass", spy)
+    used = spy_on(parallel, "ranges_pass", lambda a, kw: kw.get("workers"))
     one, two = tmp_path / "one.csv", tmp_path / "two.csv"
     base = ["coords", str(xtc), "--top", str(pdb), "-c", "distance(0, 1)", "-c", "angle(0, 1, 2)", "--no-cache"]
     assert main([*base, "-o", str(one), "--workers", "1"]) == 0
@@ -130,17 +130,10 @@ def test_ctrl_c_stops_every_worker(tmp_path):
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
 
-def test_replicas_over_two_workers_pool_as_over_one(capsys, monkeypatch):
+def test_replicas_over_two_workers_pool_as_over_one(capsys, spy_on):
     import json
 
-    spread = []
-    real = parallel.replica_coordinates
-
-    def spy(*a, **kw):
-        spread.append(len(a[0]))
-        return (yield from real(*a, **kw))
-
-    monkeypatch.setattr(parallel, "replica_coordinates", spy)
+    spread = spy_on(parallel, "replica_coordinates", lambda a, kw: len(a[0]))
     files = [str(SAMPLES / f"dimer_langevin{s}.h5md") for s in ("", "_r2", "_r3")]
     base = ["crossings", *files, "--replicas", "-c", "distance(0, 1)", "--json", "--no-cache"]
     main([*base, "--workers", "1"])

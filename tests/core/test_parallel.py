@@ -223,17 +223,10 @@ def test_a_cut_xtc_is_refused_whether_or_not_its_index_was_kept(tmp_path, cache_
     assert struct.unpack(">i", data[:4])[0] == 1995
 
 
-def test_run_pass_with_workers_goes_through_the_ranges(tmp_path, monkeypatch):
+def test_run_pass_with_workers_goes_through_the_ranges(tmp_path, monkeypatch, spy_on):
     xtc, pdb = make_xtc(tmp_path, n_frames=90)
     run = open_run([xtc], topology=pdb)
-    used = []
-    real = parallel.ranges_pass
-
-    def spy(*a, **kw):
-        used.append(kw.get("workers"))
-        return (yield from real(*a, **kw))
-
-    monkeypatch.setattr(parallel, "ranges_pass", spy)
+    used = spy_on(parallel, "ranges_pass", lambda a, kw: kw.get("workers"))
     with chunking(frames=16):
         got = drive(run_pass(run, {"s": FrameSums()}, workers=2))
     assert used == [2]
