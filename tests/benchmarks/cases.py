@@ -12,6 +12,7 @@ minimum over more runs is lower, so unequal repeats biased the ratios (fixed 202
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -282,14 +283,19 @@ def audit_energy_table(full: bool, work: Path) -> Outcome:
         notes="includes drift fit, fluctuation ratio, events and the statistical inefficiency by FFT"))
 
 
+def _big_run_and_velocity_read(full: bool, work: Path) -> tuple[dict[str, int], Any, float]:
+    """The sizes, the run of the big H5MD file and the baseline of a velocity case: the best of 2 plain h5py
+    reads of its velocities."""
+    s = _sizes(full)
+    path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
+    return s, _open([path]), best_of(lambda: _h5_plain_read(path, names=("velocity",)), repeat=2)
+
+
 @case
 def audit_velocities(full: bool, work: Path) -> Outcome:
     from phasewake.core.analyses.audit import audit_run
 
-    s = _sizes(full)
-    path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
-    run = _open([path])
-    base = best_of(lambda: _h5_plain_read(path, names=("velocity",)), repeat=2)
+    s, run, base = _big_run_and_velocity_read(full, work)
     meas = best_of(lambda: _drain(audit_run(run, n_constraints=0)), repeat=2)  # as many runs as the baseline
     return finish(Outcome(
         name="audit_velocities", what="kinetic temperature, DOF and equipartition from stored velocities",
@@ -303,10 +309,7 @@ def audit_velocities(full: bool, work: Path) -> Outcome:
 def vacf_trajectory(full: bool, work: Path) -> Outcome:
     from phasewake.core.analyses.velocity import vacf
 
-    s = _sizes(full)
-    path = make_h5md(work / "big.h5md", s["atoms"], s["frames"])
-    run = _open([path])
-    base = best_of(lambda: _h5_plain_read(path, names=("velocity",)), repeat=2)
+    s, run, base = _big_run_and_velocity_read(full, work)
     meas = best_of(lambda: _drain(vacf(run, max_lag_ps=0.5)), repeat=2)  # as many runs as the baseline
     return finish(Outcome(
         name="vacf_trajectory", what="velocity autocorrelation, streamed (50-frame lag window)",
