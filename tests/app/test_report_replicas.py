@@ -75,18 +75,21 @@ def _same_4_digits(cell: str, value: float | None) -> bool:
 
 
 @pytest.mark.slow
-def test_report_table_equals_the_crossings_commands_rows(replica_files, tmp_path, capsys):
-    rc = main(["crossings", *replica_files, "--replicas", "-c", COORD, "--json", "--no-cache"])
-    crossings = json.loads(capsys.readouterr().out)
-    assert rc in (0, 1)
-    rows = crossings["replicas"]
-    assert len(rows) == 3 and sum(r["transitions_ab"] + r["transitions_ba"] for r in rows) > 0
-
+def test_report_table_equals_the_crossings_commands_rows(replica_files, tmp_path, capsys, cache_dir, h5md_reads):
     pdf = tmp_path / "ensemble.pdf"
-    rc = main(["report", *replica_files, "--replicas", "--coordinate", COORD, "-o", str(pdf), "--html",
-               "--no-cache", "--json"])
+    rc = main(["report", *replica_files, "--replicas", "--coordinate", COORD, "-o", str(pdf), "--html", "--json"])
     written = json.loads(capsys.readouterr().out)
     assert rc == 0
+    # the same CrossingsRequest: the command finds the report's result in the cache and reads no frame
+    reads = h5md_reads["n"]
+    rc = main(["crossings", *replica_files, "--replicas", "-c", COORD, "--json"])
+    crossings = json.loads(capsys.readouterr().out)
+    assert rc in (0, 1) and h5md_reads["n"] == reads
+    rows = crossings["replicas"]
+    assert len(rows) == 3 and sum(r["transitions_ab"] + r["transitions_ba"] for r in rows) > 0
+    rc = main(["crossings", *replica_files, "--replicas", "-c", COORD, "--json", "--no-cache"])
+    assert json.loads(capsys.readouterr().out) == crossings  # and computed afresh, the same rows
+    assert h5md_reads["n"] > reads  # (afresh, the command does read the frames: the counter sees it)
     assert written["settings"]["replicas"] == [Path(f).stem for f in replica_files]
     parser = _Sections()
     parser.feed(pdf.with_suffix(".html").read_text(encoding="utf-8"))
