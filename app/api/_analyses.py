@@ -621,18 +621,10 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     """
     from phasewake.core.analyses.coordinates import stated_coordinate
     from phasewake.core.analyses.crossings.states import stated_states
-    from phasewake.core.errors import InputError
-    from phasewake.core.figures.report import build_report
+    from phasewake.core.figures.report import build_report, report_targets
 
     run = _run_of(run, "pw.report")
-    out = Path(path)
-    if out.suffix.lower() != ".pdf":
-        raise InputError("the report is a PDF: give a path ending in .pdf", path=out)
-    html_path = out.with_suffix(".html") if html else None
-    inputs = {Path(p).resolve() for p in run.paths}
-    for target in (out, html_path):
-        if target is not None and target.resolve() in inputs:
-            raise InputError("the report would overwrite one of the input files", path=target)
+    out, html_path = report_targets(path, html=html, inputs=run.paths)
     states = stated_states(states, surface, option="states", surface_option="surface")
     if coordinate is not None:
         stated_coordinate(coordinate, run, option="coordinate")

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-from pathlib import Path
 
 from phasewake.app.common import (
     add_replicas_argument,
@@ -67,18 +66,10 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.app.common import check_output_folder, check_output_path
     from phasewake.core.analyses.coordinates import stated_coordinate
     from phasewake.core.analyses.crossings.states import stated_states
-    from phasewake.core.errors import PhasewakeError
-    from phasewake.core.figures.report import build_report
+    from phasewake.core.figures.report import build_report, report_targets
     from phasewake.core.store.cache import ResultCache
 
-    out = Path(args.output)
-    if out.suffix.lower() != ".pdf":
-        raise PhasewakeError("the report is a PDF: give an output name ending in .pdf", path=out)
-    inputs = {Path(f).resolve() for f in args.files}
-    html_path = out.with_suffix(".html") if args.html else None
-    for target in (out, html_path):
-        if target is not None and target.resolve() in inputs:
-            raise PhasewakeError("the report would overwrite one of the input files", path=target)
+    out, html_path = report_targets(args.output, html=args.html, inputs=args.files)
     # every output is checked before any analysis runs
     check_output_path(out, "-o/--output")
     if html_path is not None:

@@ -21,7 +21,7 @@ drawn from those results) and :func:`write_report` (the PDF, the HTML and the pa
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -159,3 +159,20 @@ def write_report(run: Run, target: Path, sections: ReportSections, got: ReportAn
                         sections=tuple(p.section for p in _paginate(pages)), skipped=sections.skipped,
                         verdict_levels=tuple(v.level for v in sections.verdicts), settings=dict(shown),
                         figures=tuple(figures), verdicts=sections.verdicts, audit=got.audit)
+
+
+def report_targets(path: str | Path, *, html: bool, inputs: Iterable[str | Path]) -> tuple[Path, Path | None]:
+    """The report's PDF and, with ``html``, the HTML page beside it (same name, ``.html``), checked before
+    any analysis runs: a name ending in .pdf, and neither over one of the ``inputs`` (InputError otherwise;
+    the command line and ``pw.report`` both ask here)."""
+    from phasewake.core.errors import InputError
+
+    out = Path(path)
+    if out.suffix.lower() != ".pdf":
+        raise InputError("the report is a PDF: give an output name ending in .pdf", path=out)
+    html_path = out.with_suffix(".html") if html else None
+    given = {Path(p).resolve() for p in inputs}
+    for target in (out, html_path):
+        if target is not None and target.resolve() in given:
+            raise InputError("the report would overwrite one of the input files", path=target)
+    return out, html_path

@@ -103,3 +103,17 @@ def test_open_stated_applies_the_statements_and_notes_them_for_workers():
     again = parallel.files_of(run)
     assert again.paths == (str(path),) and dict(again.options) == options
     assert again.open().metadata.timestep_ps == run.metadata.timestep_ps
+
+
+def test_report_targets_are_a_pdf_and_never_an_input(tmp_path):
+    from phasewake.core.figures.report import report_targets
+
+    run_file = tmp_path / "run.h5md"
+    assert report_targets(tmp_path / "r.pdf", html=True, inputs=[run_file]) == (tmp_path / "r.pdf",
+                                                                                  tmp_path / "r.html")
+    assert report_targets(tmp_path / "R.PDF", html=False, inputs=[]) == (tmp_path / "R.PDF", None)
+    with pytest.raises(InputError, match=r"ending in \.pdf"):
+        report_targets(tmp_path / "r.png", html=False, inputs=[])
+    with pytest.raises(InputError, match="overwrite one of the input files") as info:
+        report_targets(tmp_path / "run.pdf", html=True, inputs=[tmp_path / "run.html"])  # the HTML page beside it
+    assert info.value.path == tmp_path / "run.html"
