@@ -66,6 +66,7 @@ class ReportPage:
     text: str = ""  # free text above the figure or table (summary, or why a section is missing)
     caption: str = ""
     widths: tuple[int, ...] = ()  # characters per line of each table column (default: by the column count)
+    right_aligned: tuple[int, ...] = ()  # table columns (0-based) of numbers, set flush right
 
 
 def paginate(pages: Sequence[ReportPage]) -> list[ReportPage]:
@@ -189,8 +190,10 @@ def _draw_table(fig: Figure, page: ReportPage, y: float, h_in: float) -> None:
                 dx = 0.016
                 colour = "black"
                 weight = "bold" if level in ("caution", "problem") else "normal"
-            fig.text(xs[i] + dx, y, text, fontsize=font, va="top", color=colour, weight=weight,
-                     linespacing=1.3)
+            right = i in page.right_aligned
+            x = ((xs[i + 1] if i + 1 < len(xs) else x1) - 0.012) if right else xs[i] + dx
+            fig.text(x, y, text, fontsize=font, va="top", ha="right" if right else "left", color=colour,
+                     weight=weight, linespacing=1.3, multialignment="right" if right else "left")
         y -= line_h * n + 0.012
         fig.lines.append(_hline(fig, x0, x1, y + 0.006))
 
@@ -250,13 +253,15 @@ def write_html(target: Path, pages: Sequence[ReportPage], *, run_name: str, prov
         if p.text:
             parts.append("<p>" + "<br>".join(esc(ln) for ln in p.text.split("\n")) + "</p>")
         if p.table:
-            parts.append("<table><tr>" + "".join(f"<th>{esc(c)}</th>" for c in p.table[0]) + "</tr>")
+            right = ["" if i not in p.right_aligned else " style='text-align:right'" for i in range(len(p.table[0]))]
+            parts.append("<table><tr>" + "".join(f"<th{right[i]}>{esc(c)}</th>" for i, c in enumerate(p.table[0]))
+                         + "</tr>")
             for i, row in enumerate(p.table[1:]):
                 lv = p.table_levels[i] if p.table_levels else ""
                 cells = [esc(c) for c in row]
                 if lv:
                     cells[0] = f"<span class='{lv}'>{symbol.get(lv, '')} {cells[0]}</span>"
-                parts.append("<tr>" + "".join(f"<td>{c}</td>" for c in cells) + "</tr>")
+                parts.append("<tr>" + "".join(f"<td{right[i]}>{c}</td>" for i, c in enumerate(cells)) + "</tr>")
             parts.append("</table>")
         if p.figure is not None:
             png = base64.b64encode(figure_png_bytes(p.figure, preset="double", dpi=110)).decode("ascii")

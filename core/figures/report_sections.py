@@ -296,7 +296,7 @@ def crossings_pages(got: ReportAnalyses) -> list[ReportPage | tuple[str, str]]:
 
 
 #: characters per line of the per-replica table's columns (11 columns at 8 pt, ~160 characters a line)
-REPLICA_WIDTHS = (26, 9, 5, 5, 9, 9, 10, 10, 10, 10, 11)
+REPLICA_WIDTHS = (22, 9, 5, 5, 9, 9, 10, 10, 10, 14, 11)
 
 
 def replica_table(result: Any) -> tuple[tuple[str, ...], ...]:
@@ -329,7 +329,7 @@ def replica_page(result: Any) -> ReportPage:
             f"Drift: least-squares slope of q against time ({u}/ns); a replica whose q still drifts has not "
             "relaxed. These point at a replica worth a look; they are not verdicts on it.")
     return ReportPage("crossings", SECTION_TITLES["crossings"] + ": per replica", table=replica_table(result),
-                      text=text, widths=REPLICA_WIDTHS)
+                      text=text, widths=REPLICA_WIDTHS, right_aligned=tuple(range(1, len(REPLICA_WIDTHS))))
 
 
 def explained(page: ReportPage) -> ReportPage:
