@@ -59,16 +59,6 @@ def _run_of(run: Any, what: str) -> Run:
     return run
 
 
-def _stated(run: Run) -> dict[str, Any]:
-    """What the user stated when opening (``pw.open(..., timestep_fs=, constraints=, temperature_K=)``),
-    handed to the analyses as the command line hands its options: the same settings, the same cache key."""
-    meta = run.metadata
-    user = {k for k, v in meta.sources.items() if v == "user"}
-    return {"n_constraints": meta.n_constraints if "n_constraints" in user else None,
-            "timestep_ps": meta.timestep_ps if "timestep_ps" in user else None,
-            "temperature_K": meta.temperature_K if "temperature_K" in user else None}
-
-
 def _atoms(run: Run, atoms: Atoms | None, what: str) -> np.ndarray | None:
     """An atom group: indices, or text in the coordinate grammar's group form (``"0-9"``, ``"[0, 4]"``,
     ``'"resname DIM"'``, as the command line's ``--pca-group``)."""
@@ -142,11 +132,10 @@ def audit(run: Run, *, groups: Mapping[str, Atoms] | None = None, compare: Run |
     ['energy.audit', 'temperature.audit', 'timestep.spectrum']
     """
     from phasewake.core.analyses.audit import AuditRequest
+    from phasewake.core.readers.stated import stated_settings
 
     run = _run_of(run, "pw.audit")
-    stated = _stated(run)
-    request = AuditRequest(n_constraints=stated["n_constraints"], timestep_ps=stated["timestep_ps"],
-                           temperature_K=stated["temperature_K"], groups=_groups(run, groups, "groups"),
+    request = AuditRequest(**stated_settings(run), groups=_groups(run, groups, "groups"),
                            compare=None if compare is None else _run_of(compare, "compare"),
                            compare_timestep_ps=None if compare_timestep_fs is None else compare_timestep_fs * 1e-3)
     work = _requested(run, request, cache)
@@ -622,15 +611,14 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     from phasewake.core.analyses.coordinates import stated_coordinate
     from phasewake.core.analyses.crossings.states import stated_states
     from phasewake.core.figures.report import build_report, report_targets
+    from phasewake.core.readers.stated import stated_settings
 
     run = _run_of(run, "pw.report")
     out, html_path = report_targets(path, html=html, inputs=run.paths)
     states = stated_states(states, surface, option="states", surface_option="surface")
     if coordinate is not None:
         stated_coordinate(coordinate, run, option="coordinate")
-    stated = _stated(run)
-    work = build_report(run, out, coordinate=coordinate, html_path=html_path, temperature_K=stated["temperature_K"],
-                        n_constraints=stated["n_constraints"], timestep_ps=stated["timestep_ps"], states=states,
+    work = build_report(run, out, coordinate=coordinate, html_path=html_path, **stated_settings(run), states=states,
                         surface=surface, cache=_cache(cache))
     result: ReportResult = _drive(work, progress)
     return result

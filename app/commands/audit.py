@@ -153,6 +153,7 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.analyses.audit import AuditRequest, audit_summary
     from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
     from phasewake.core.readers import open_run
+    from phasewake.core.readers.stated import stated_settings
     from phasewake.core.store.cache import ResultCache
     from phasewake.core.store.cached import requested
 
@@ -162,9 +163,7 @@ def run(args: argparse.Namespace) -> int:
         with quiet_stdout():
             other = open_run(args.compare, topology=args.top, **reader_options(args))
     groups = parse_groups(args.group, the_run.topology, the_run.n_atoms)
-    request = AuditRequest(n_constraints=args.constraints,
-                           timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
-                           temperature_K=args.temperature, groups=groups or None, compare=other,
+    request = AuditRequest(**stated_settings(the_run), groups=groups or None, compare=other,
                            compare_timestep_ps=None if args.compare_timestep is None else args.compare_timestep * 1e-3)
     work = requested(the_run, request, cache=ResultCache(enabled=False) if args.no_cache else None)
     result = run_with_progress(work, request.label)

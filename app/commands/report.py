@@ -67,6 +67,7 @@ def run(args: argparse.Namespace) -> int:
     from phasewake.core.analyses.coordinates import stated_coordinate
     from phasewake.core.analyses.crossings.states import stated_states
     from phasewake.core.figures.report import build_report, report_targets
+    from phasewake.core.readers.stated import stated_settings
     from phasewake.core.store.cache import ResultCache
 
     out, html_path = report_targets(args.output, html=args.html, inputs=args.files)
@@ -84,8 +85,7 @@ def run(args: argparse.Namespace) -> int:
         stated_coordinate(args.coordinate, run_)
     result = run_with_progress(
         build_report(run_, out, coordinate=args.coordinate, html_path=html_path,
-                     temperature_K=args.temperature, n_constraints=args.constraints,
-                     timestep_ps=None if args.timestep is None else args.timestep * 1e-3,
+                     **stated_settings(run_),
                      states=states, surface=args.surface, preview_folder=args.preview,
                      cache=ResultCache(enabled=False) if args.no_cache else None, replicas=replicas),
         "report")

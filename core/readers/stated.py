@@ -65,6 +65,17 @@ def stated_options(*, timestep_fs: float | None = None, n_constraints: int | Non
     return out
 
 
+def stated_settings(run: Run) -> dict[str, Any]:
+    """What the user stated when opening ``run`` (sources "user"), as the analyses' own settings
+    (``n_constraints``, ``timestep_ps``, ``temperature_K``; None where the files decide): every front end
+    hands these to the audit and the report, so the same run gives the same request and cache key."""
+    meta = run.metadata
+    user = {k for k, v in meta.sources.items() if v == "user"}
+    return {"n_constraints": meta.n_constraints if "n_constraints" in user else None,
+            "timestep_ps": meta.timestep_ps if "timestep_ps" in user else None,
+            "temperature_K": meta.temperature_K if "temperature_K" in user else None}
+
+
 def open_stated(files: Sequence[str | Path], *, topology: str | Path | None = None,
                 options: Mapping[str, Any] | None = None) -> Run:
     """Open one run from ``files`` with ``options`` (:func:`stated_options`), keeping library chatter

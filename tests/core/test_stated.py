@@ -14,7 +14,7 @@ from phasewake.core.analyses.coordinates import resolve_group, stated_coordinate
 from phasewake.core.analyses.crossings.states import stated_states
 from phasewake.core.errors import CoordinateSpecError, InputError
 from phasewake.core.model import parallel
-from phasewake.core.readers.stated import column_roles, open_stated, stated_options
+from phasewake.core.readers.stated import column_roles, open_stated, stated_options, stated_settings
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
@@ -117,3 +117,14 @@ def test_report_targets_are_a_pdf_and_never_an_input(tmp_path):
     with pytest.raises(InputError, match="overwrite one of the input files") as info:
         report_targets(tmp_path / "run.pdf", html=True, inputs=[tmp_path / "run.html"])  # the HTML page beside it
     assert info.value.path == tmp_path / "run.html"
+
+
+def test_stated_settings_are_what_the_user_stated_and_nothing_the_files_say():
+    path = SAMPLES / "dimer_nve.h5md"
+    plain = open_stated([path])
+    assert plain.metadata.timestep_ps is not None  # the file says it ...
+    assert stated_settings(plain) == {"n_constraints": None, "timestep_ps": None, "temperature_K": None}  # ... not the user
+    run = open_stated([path], options=stated_options(timestep_fs=4.0, n_constraints=0, temperature_K=120.0))
+    # 4 fs = 4e-3 ps (SI prefixes)
+    assert stated_settings(run) == {"n_constraints": 0, "timestep_ps": pytest.approx(4e-3, rel=1e-15),
+                                    "temperature_K": 120.0}
