@@ -135,11 +135,61 @@ class FrameSource(Protocol):
     def read_frame(self, index: int) -> FrameChunk: ...
 
 
+def no_positions(n_frames: int) -> np.ndarray:
+    """The ``positions_nm`` of a chunk read without positions: shape (n_frames, 0, 3)."""
+    return np.empty((n_frames, 0, 3), np.float32)
+
+
+@dataclass(frozen=True)
+class FrameRequest:
+    """One ``iter_chunks`` call as :meth:`ChunkedFrames.iter_chunks` hands it to a source's ``_read``:
+    checked, clamped to the run and cut to the chunk budget."""
+
+    frames: np.ndarray  # run frames to read, increasing (never empty): start, stop clamped to the run, stride
+    stride: int
+    atoms: np.ndarray | None  # the atoms to read (intp, in the order asked), or None for every atom
+    n_read: int  # atoms per frame read
+    velocities: bool  # velocities asked for (a source hands them out where it has them)
+    positions: bool
+    chunk: int  # frames per chunk: at most ``chunk_frames`` and within the chunk memory budget
+
+    @property
+    def start(self) -> int:
+        return int(self.frames[0])
+
+    @property
+    def stop(self) -> int:
+        return int(self.frames[-1]) + 1
+
+    def batches(self) -> Iterator[np.ndarray]:
+        """The run frames of each chunk, in order."""
+        for i in range(0, self.frames.size, self.chunk):
+            yield self.frames[i : i + self.chunk]
+
+    def pick(self, per_atom: np.ndarray) -> np.ndarray:
+        """The asked atoms of an array (frames, atoms, ...): C-ordered, unlike ``a[:, atoms]``."""
+        return per_atom if self.atoms is None else np.take(per_atom, self.atoms, axis=1)
+
+    def keywords(self, **change: Any) -> dict[str, Any]:
+        """``iter_chunks`` keywords asking another source for these frames (a wrapper's read), with changes."""
+        kw: dict[str, Any] = {"chunk_frames": self.chunk, "start": self.start, "stop": self.stop,
+                              "stride": self.stride, "atom_indices": self.atoms, "velocities": self.velocities,
+                              "positions": self.positions}
+        kw.update(change)
+        return kw
+
+
 class ChunkedFrames:
-    """Base of the readers' frame sources: :meth:`read_frame` is the one-frame chunk of ``iter_chunks``
-    (negative indices count from the end; out of range is an IndexError)."""
+    """Base of the frame sources: :meth:`iter_chunks` checks and clamps its arguments, applies the chunk
+    memory budget and hands one :class:`FrameRequest` to the source's :meth:`_read`, which yields the
+    chunks. :meth:`read_frame` is the one-frame chunk of ``iter_chunks`` (negative indices count from the
+    end; out of range is an IndexError)."""
 
     n_frames: int
+    n_atoms: int
+    has_velocities: bool
+    velocities_estimated: bool
+    has_box: bool
 
     def iter_chunks(
         self,
@@ -152,6 +202,28 @@ class ChunkedFrames:
         velocities: bool = True,
         positions: bool = True,
     ) -> Iterator[FrameChunk]:
+        """Chunks of frames ``start:stop:stride`` (``stop`` clamped to the run; nothing when the range is
+        empty) of the atoms ``atom_indices`` (all when None); see :class:`FrameSource`."""
+        start, stride = int(start), int(stride)
+        if start < 0 or stride < 1:
+            raise ValueError(f"frames {start}:{stop}:{stride}: start must be 0 or more and stride 1 or more")
+        frames = np.arange(start, self.n_frames if stop is None else min(int(stop), self.n_frames), stride)
+        atoms = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
+        if atoms is not None and (atoms.ndim != 1 or np.any((atoms < 0) | (atoms >= self.n_atoms))):
+            raise IndexError(f"atom indices must be a list of atoms 0 to {self.n_atoms - 1} of the run, not "
+                             f"{np.asarray(atom_indices).tolist()!r:.80}")
+        n_read = self.n_atoms if atoms is None else int(atoms.size)
+        chunk = budget_chunk_frames(chunk_frames, n_read, n_arrays=self._arrays_per_frame(velocities, positions))
+        if frames.size:
+            yield from self._read(FrameRequest(frames=frames, stride=stride, atoms=atoms, n_read=n_read,
+                                               velocities=bool(velocities), positions=bool(positions), chunk=chunk))
+
+    def _arrays_per_frame(self, velocities: bool, positions: bool) -> int:
+        """Per-atom arrays a chunk holds at once (for the chunk budget): positions and velocities asked for."""
+        return int(positions) + int(velocities and self.has_velocities)
+
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        """The chunks of a checked request: what each frame source implements."""
         raise NotImplementedError
 
     def describe_as(self, inner: FrameSource, n_frames: int) -> None:
@@ -164,11 +236,6 @@ class ChunkedFrames:
         self.has_box = inner.has_box
         self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
         self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
-
-    def frame_indices(self, start: int, stop: int | None, stride: int) -> np.ndarray:
-        """The run frames ``iter_chunks(start=, stop=, stride=)`` yields: ``stop`` clamped to the run."""
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        return np.arange(start, stop, stride)
 
     def read_frame(self, index: int) -> FrameChunk:
         if not -self.n_frames <= index < self.n_frames:
@@ -261,21 +328,9 @@ class WindowFrames(ChunkedFrames):
         self.offset = int(offset)
         self.describe_as(base, int(stop) - int(offset))
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(int(stop), self.n_frames)
-        for ch in self.base.iter_chunks(chunk_frames=chunk_frames, start=self.offset + int(start),
-                                        stop=self.offset + stop, stride=stride, atom_indices=atom_indices,
-                                        velocities=velocities, positions=positions):
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        for ch in self.base.iter_chunks(**request.keywords(start=self.offset + request.start,
+                                                           stop=self.offset + request.stop)):
             ch.start = ch.start - self.offset
             yield ch
 

@@ -12,13 +12,13 @@ import numpy as np
 
 from phasewake.core.errors import CorruptFileError, ImpossibleValueError, TimeAxisError
 from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     FrameChunk,
+    FrameRequest,
     FrameSource,
     RunMetadata,
     TimeJoin,
-    budget_chunk_frames,
+    no_positions,
 )
 
 if TYPE_CHECKING:
@@ -326,6 +326,23 @@ def resolve_restarts(time_ps: np.ndarray, *, path: str | Path | None, what: str 
     return keep, tuple(joins), words
 
 
+class ClockedFrames(ChunkedFrames):
+    """A frame source that keeps its frames' clock (``time_ps``), which ``open_run`` may replace by another
+    of one entry per frame (:meth:`retime`: a table of the run's times, a LAMMPS time step)."""
+
+    _time: np.ndarray
+
+    @property
+    def time_ps(self) -> np.ndarray:
+        return self._time
+
+    def retime(self, time_ps: np.ndarray) -> None:
+        t = np.asarray(time_ps, dtype=np.float64)
+        if t.shape != (self.n_frames,):
+            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
+        self._time = t
+
+
 class KeptFrames(ChunkedFrames):
     """A frame source showing only the kept frames of another (restarts glued into one trajectory).
 
@@ -338,29 +355,16 @@ class KeptFrames(ChunkedFrames):
         self.keep = np.asarray(keep, dtype=np.int64)
         self.describe_as(inner, int(self.keep.size))
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        want = self.frame_indices(start, stop, stride)
-        if not want.size:
-            return
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        want = request.frames
         inner_idx = self.keep[want]
         # stretches where the inner indices advance by exactly the stride
-        cut = np.flatnonzero(np.diff(inner_idx) != stride) + 1
+        cut = np.flatnonzero(np.diff(inner_idx) != request.stride) + 1
         bounds = np.concatenate([[0], cut, [want.size]])
         for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
             lo, hi = int(inner_idx[a]), int(inner_idx[b - 1]) + 1
             pos = a
-            for ch in self.inner.iter_chunks(chunk_frames=chunk_frames, start=lo, stop=hi, stride=stride,
-                                             atom_indices=atom_indices, velocities=velocities, positions=positions):
+            for ch in self.inner.iter_chunks(**request.keywords(start=lo, stop=hi)):
                 ch.start = int(want[pos])
                 pos += ch.n_frames
                 yield ch
@@ -449,32 +453,20 @@ class EstimatedVelocityFrames(ChunkedFrames):
         frac -= np.round(frac)
         return np.einsum("fnk,fkj->fnj", frac, box)
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        if not velocities or not self.has_velocities:
-            yield from self.inner.iter_chunks(chunk_frames=chunk_frames, start=start, stop=stop, stride=stride,
-                                              atom_indices=atom_indices, velocities=False, positions=positions)
+    def _arrays_per_frame(self, velocities: bool, positions: bool) -> int:
+        # the neighbours' positions and the velocities beside the positions handed out
+        return 2 + int(positions) if velocities and self.has_velocities else int(positions)
+
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        if not request.velocities or not self.has_velocities:
+            yield from self.inner.iter_chunks(**request.keywords(velocities=False))
             return
-        want = np.arange(start, stop, stride)
-        n_read = self.n_atoms if atom_indices is None else len(atom_indices)
-        chunk_frames = budget_chunk_frames(chunk_frames, n_read, n_arrays=2 + int(positions))
-        for i in range(0, want.size, chunk_frames):
-            sel = want[i : i + chunk_frames]
+        for sel in request.batches():
             lo = max(int(sel[0]) - 1, 0)
             hi = min(int(sel[-1]) + 2, self.n_frames)
             pos_parts, box_parts = [], []
             for ch in self.inner.iter_chunks(chunk_frames=max(hi - lo, 1), start=lo, stop=hi,
-                                             atom_indices=atom_indices, velocities=False):
+                                             atom_indices=request.atoms, velocities=False):
                 pos_parts.append(ch.positions_nm)
                 box_parts.append(ch.box_nm)
             pos = np.concatenate(pos_parts)
@@ -488,7 +480,7 @@ class EstimatedVelocityFrames(ChunkedFrames):
             dt = (t[kp] - t[km])[:, None, None]
             vel = (disp / dt).astype(np.float32)
             yield FrameChunk(start=int(sel[0]), time_ps=self.time_ps[sel],
-                             positions_nm=pos[k] if positions else np.empty((sel.size, 0, 3), np.float32),
+                             positions_nm=pos[k] if request.positions else no_positions(sel.size),
                              velocities_nm_per_ps=vel, box_nm=None if box is None else box[k])
 
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import io
 import re
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -28,13 +28,12 @@ import numpy as np
 from scipy import constants as sc
 
 from phasewake.core.errors import CorruptFileError, TopologyMismatchError
-from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    FrameChunk,
-    Run,
-    RunMetadata,
-    budget_chunk_frames,
+from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
+from phasewake.core.readers.common import (
+    ClockedFrames,
+    check_time_axis,
+    masses_from_topology,
+    topology_from_elements,
 )
 
 _HEADER = re.compile(rb"^\s*i\s*=\s*(-?\d+)\s*,\s*time\s*=\s*([-+0-9.eEdD]+)\s*,\s*E\s*=")
@@ -234,7 +233,7 @@ def element_symbol(label: str) -> str | None:
     return None
 
 
-class Cp2kXyzFrames(ChunkedFrames):
+class Cp2kXyzFrames(ClockedFrames):
     """A FrameSource over CP2K's ``-pos-`` xyz (Angstrom) and, when given, its ``-vel-`` xyz (atomic units)."""
 
     positions_precision_nm: float | None = None
@@ -253,46 +252,20 @@ class Cp2kXyzFrames(ChunkedFrames):
         self.velocities_estimated = False
         self._time = pos.time_fs * 1e-3
 
-    @property
-    def time_ps(self) -> np.ndarray:
-        return self._time
-
-    def retime(self, time_ps: np.ndarray) -> None:
-        t = np.asarray(time_ps, dtype=np.float64)
-        if t.shape != (self.n_frames,):
-            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
-        self._time = t
-
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        want = self.frame_indices(start, stop, stride)
-        if want.size == 0:
-            return
-        sel_atoms = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
-        n_read = self.n_atoms if sel_atoms is None else sel_atoms.size
-        with_v = velocities and self.vel is not None
-        per = budget_chunk_frames(max(1, int(chunk_frames)), n_read, n_arrays=int(positions) + int(with_v))
-        for i in range(0, want.size, per):
-            sel = want[i : i + per]
-            pos = np.empty((sel.size, n_read if positions else 0, 3), np.float32)
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        atoms, n_read = request.atoms, request.n_read
+        with_v = request.velocities and self.vel is not None
+        for sel in request.batches():
+            pos = np.empty((sel.size, n_read if request.positions else 0, 3), np.float32)
             vel = np.empty((sel.size, n_read, 3), np.float32) if with_v else None
             for j, fi in enumerate(sel):
-                if positions:
+                if request.positions:
                     rows = _read_rows(self.pos, int(fi))
-                    pos[j] = (rows if sel_atoms is None else rows[sel_atoms]) * ANGSTROM_NM
+                    pos[j] = (rows if atoms is None else rows[atoms]) * ANGSTROM_NM
                 if vel is not None:
                     assert self.vel is not None and self._vel_frame is not None
                     rows = _read_rows(self.vel, int(self._vel_frame[fi]))
-                    vel[j] = (rows if sel_atoms is None else rows[sel_atoms]) * VELOCITY_AU_TO_NM_PER_PS
+                    vel[j] = (rows if atoms is None else rows[atoms]) * VELOCITY_AU_TO_NM_PER_PS
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=None)
 
@@ -320,8 +293,6 @@ def pair(pos: XyzIndex, vel: XyzIndex) -> np.ndarray:
 
 def open_xyz_run(path: Path, top_path: Path | None = None, velocities: Path | None = None) -> Run:
     """A Run over CP2K's positions xyz, with the velocities xyz beside it when given."""
-    from phasewake.core.readers.common import check_time_axis, masses_from_topology, topology_from_elements
-
     pos = scan(path)
     meta = RunMetadata()
     meta.sources["positions"] = f"{path.name} (CP2K xyz, Angstrom)"

@@ -3,14 +3,14 @@
 from __future__ import annotations
 
 import weakref
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError
-from phasewake.core.model.run import DEFAULT_CHUNK_FRAMES, ChunkedFrames, FrameChunk, budget_chunk_frames
+from phasewake.core.model.run import ChunkedFrames, FrameChunk, FrameRequest, no_positions
 from phasewake.core.readers.common import box_matrix, check_box
 
 if TYPE_CHECKING:
@@ -64,7 +64,36 @@ class BufferPool:
         return np.asarray(loan)
 
 
-class H5MDFrames(ChunkedFrames):
+def in_float32(values: np.ndarray, factor: float) -> np.ndarray:
+    """Values read from a file as float32, times a unit factor (kept float32)."""
+    values = np.asarray(values, dtype=np.float32)
+    return values if factor == 1.0 else (values * factor).astype(np.float32)
+
+
+class HDF5Frames(ChunkedFrames):
+    """Frames of an HDF5 file: each read opens it once and calls :meth:`_chunks`; a layout it did not
+    expect is a CorruptFileError naming the file."""
+
+    path: Path
+
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        import h5py
+
+        try:
+            f = h5py.File(self.path, "r")
+        except OSError as exc:
+            raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
+        with f:
+            try:
+                yield from self._chunks(f, request)
+            except LAYOUT_ERRORS as exc:
+                raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
+
+    def _chunks(self, f: h5py.File, request: FrameRequest) -> Iterator[FrameChunk]:
+        raise NotImplementedError
+
+
+class H5MDFrames(HDF5Frames):
     """Lazy chunked frames of one particle group of an H5MD file (a FrameSource).
 
     Frames are the position samples. Velocities and a time-dependent box are aligned to them BY STEP.
@@ -154,69 +183,32 @@ class H5MDFrames(ChunkedFrames):
         whole = local.size == hi - lo and bool(np.all(local == np.arange(hi - lo)))
         return slice(lo, hi), None if whole else local
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        import h5py
-
-        idx = self.frame_indices(start, stop, stride)
-        cols = None if atom_indices is None else np.asarray(atom_indices)
-        want_vel = velocities and self.has_velocities
-        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
-                                           n_arrays=int(positions) + int(want_vel))
-        try:
-            f = h5py.File(self.path, "r")
-        except OSError as exc:
-            raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
-        with f:
-            try:
-                yield from self._chunks(f, idx, cols, want_vel, chunk_frames, positions)
-            except LAYOUT_ERRORS as exc:
-                raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
-
-    def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, want_vel: bool,
-                chunk_frames: int, want_pos: bool = True) -> Iterator[FrameChunk]:
+    def _chunks(self, f: h5py.File, request: FrameRequest) -> Iterator[FrameChunk]:
+        want_vel = request.velocities and self.has_velocities
         pg = f["particles"][self.group]
         pos_ds = pg["position"]["value"]
         vel_ds = pg["velocity"]["value"] if want_vel else None
         box_ds = pg["box"]["edges"]["value"] if self._box_rows is not None else None
         img_ds = pg["image"]["value"] if self._image_rows is not None else None
-        span, cols = self._atom_span(cols)
+        span, cols = self._atom_span(request.atoms)
         pool = BufferPool()
-        for i in range(0, idx.size, chunk_frames):
-            sel = idx[i : i + chunk_frames]
-            if want_pos:
+        for sel in request.batches():
+            if request.positions:
                 pos = self._read_rows_into(pos_ds, self._rows[sel], span, pool)
-                if cols is not None:
-                    pos = np.take(pos, cols, axis=1)  # C-ordered, unlike pos[:, cols]
-                pos = np.asarray(pos, dtype=np.float32)
-                if self._pos_factor != 1.0:
-                    pos = (pos * self._pos_factor).astype(np.float32)
+                pos = in_float32(pos if cols is None else np.take(pos, cols, axis=1), self._pos_factor)
             else:  # a velocity-only analysis: half the reading
-                pos = np.empty((sel.size, 0, 3), np.float32)
+                pos = no_positions(sel.size)
             vel = None
             if vel_ds is not None and self._vel_rows is not None:
                 vel = self._read_rows_into(vel_ds, self._vel_rows[sel], span, pool)
-                if cols is not None:
-                    vel = np.take(vel, cols, axis=1)
-                vel = np.asarray(vel, dtype=np.float32)
-                if self._vel_factor != 1.0:
-                    vel = (vel * self._vel_factor).astype(np.float32)
+                vel = in_float32(vel if cols is None else np.take(vel, cols, axis=1), self._vel_factor)
             box = None
             if box_ds is not None and self._box_rows is not None:
                 box = box_matrix(self._read_rows(box_ds, self._box_rows[sel]) * self._box_factor, sel.size)
                 box = check_box(box, path=self.path, first_frame=int(sel[0]))
             elif self._box_fixed is not None:
                 box = np.broadcast_to(self._box_fixed, (sel.size, 3, 3)).copy()
-            if want_pos and img_ds is not None and self._image_rows is not None and box is not None:
+            if request.positions and img_ds is not None and self._image_rows is not None and box is not None:
                 # H5MD: the unwrapped position is position + image . box edges
                 img = np.asarray(self._read_rows(img_ds, self._image_rows[sel], span), dtype=np.float64)
                 if cols is not None:

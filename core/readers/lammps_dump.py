@@ -23,7 +23,7 @@ Units: a dump carries none (unless ``ITEM: UNITS``). The style is fixed later by
 from __future__ import annotations
 
 import io
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -31,14 +31,8 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
-from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    FrameChunk,
-    Run,
-    RunMetadata,
-    budget_chunk_frames,
-)
+from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
+from phasewake.core.readers.common import ClockedFrames, check_box
 from phasewake.core.readers.lammps_dump_index import DumpIndex, scan
 from phasewake.core.readers.lammps_units import UnitStyle
 
@@ -83,7 +77,7 @@ def _parse_block(raw: bytes, cols: tuple[str, ...], n: int) -> np.ndarray | None
     return rows
 
 
-class LammpsDumpFrames(ChunkedFrames):
+class LammpsDumpFrames(ClockedFrames):
     """A FrameSource over a LAMMPS text dump (frames read lazily, a chunk at a time)."""
 
     positions_precision_nm: float | None = None  # text: as many digits as the dump wrote (6 with %g)
@@ -110,16 +104,6 @@ class LammpsDumpFrames(ChunkedFrames):
     # -- units and time, fixed once the run's metadata is known
     def set_units(self, style: UnitStyle) -> None:
         self.style = style
-
-    def retime(self, time_ps: np.ndarray) -> None:
-        t = np.asarray(time_ps, dtype=np.float64)
-        if t.shape != (self.n_frames,):
-            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
-        self._time = t
-
-    @property
-    def time_ps(self) -> np.ndarray:
-        return self._time
 
     def dump_times(self) -> np.ndarray | None:
         """The ``ITEM: TIME`` values (style time units) of the frames, or None when some frame has none."""
@@ -218,31 +202,14 @@ class LammpsDumpFrames(ChunkedFrames):
                     return True
         return False
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
         if self.style is None:
             raise MissingDataError("the LAMMPS units style is not known (give log.lammps, which echoes "
                                    "'units', or state it)", path=self.path)
-        style = self.style
-        want = self.frame_indices(start, stop, stride)
-        if want.size == 0:
-            return
-        cols_sel = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
-        n_read = self.n_atoms if cols_sel is None else cols_sel.size
-        with_v = velocities and self.has_velocities
-        per = budget_chunk_frames(max(1, int(chunk_frames)), n_read, n_arrays=int(positions) + int(with_v))
-        for i in range(0, want.size, per):
-            sel = want[i : i + per]
-            pos = np.empty((sel.size, n_read if positions else 0, 3), np.float32)
+        style, atoms, n_read = self.style, request.atoms, request.n_read
+        with_v = request.velocities and self.has_velocities
+        for sel in request.batches():
+            pos = np.empty((sel.size, n_read if request.positions else 0, 3), np.float32)
             vel = np.empty((sel.size, n_read, 3), np.float32) if with_v else None
             box = np.empty((sel.size, 3, 3))
             for j, fi in enumerate(sel):
@@ -251,15 +218,13 @@ class LammpsDumpFrames(ChunkedFrames):
                 if rows.shape[0] != self.n_atoms:
                     raise CorruptFileError(f"frame {k} (step {self._idx.step[k]}) has {rows.shape[0]} atoms, "
                                            f"the first frame {self.n_atoms}", path=self.path)
-                if cols_sel is not None:
-                    rows = rows[cols_sel]
-                if positions:
+                if atoms is not None:
+                    rows = rows[atoms]
+                if request.positions:
                     pos[j] = self._positions(cols, rows, k) * style.length_nm
                 if vel is not None:
                     vel[j] = rows[:, [cols.index(c) for c in ("vx", "vy", "vz")]] * style.velocity_nm_per_ps
                 box[j] = self._idx.box[k] * style.length_nm
-            from phasewake.core.readers.common import check_box
-
             box = check_box(box, path=self.path, first_frame=int(sel[0]))  # an edge <= 0 is refused by name
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
                              velocities_nm_per_ps=vel, box_nm=box)

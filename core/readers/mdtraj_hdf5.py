@@ -8,7 +8,7 @@ unit attribute is absent the convention's unit is used (nm, ps, degrees, kJ/mol,
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -16,14 +16,13 @@ import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, UnitError
 from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
     EnergyTable,
     FrameChunk,
+    FrameRequest,
     Run,
     RunMetadata,
     Series,
-    budget_chunk_frames,
+    no_positions,
 )
 from phasewake.core.readers.common import (
     box_vectors_from_lengths_angles,
@@ -33,6 +32,7 @@ from phasewake.core.readers.common import (
     masses_from_topology,
     topology_from_json,
 )
+from phasewake.core.readers.h5md_frames import HDF5Frames, in_float32
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -81,7 +81,7 @@ def _factor(f: h5py.File, name: str, path: Path) -> float:
         raise UnitError(f"{name}: {exc.problem}", path=path) from exc
 
 
-class MdtrajH5Frames(ChunkedFrames):
+class MdtrajH5Frames(HDF5Frames):
     """Lazy chunked frames of an mdtraj HDF5 file (a FrameSource)."""
 
     def __init__(self, path: Path, *, n_frames: int, n_atoms: int, time_ps: np.ndarray, pos_factor: float,
@@ -97,62 +97,23 @@ class MdtrajH5Frames(ChunkedFrames):
         self.velocities_estimated = False
         self.has_box = box_factor is not None
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        import h5py
-
-        idx = self.frame_indices(start, stop, stride)
-        cols = None if atom_indices is None else np.asarray(atom_indices)
-        try:
-            f = h5py.File(self.path, "r")
-        except OSError as exc:
-            raise CorruptFileError(f"cannot open for reading frames ({exc})", path=self.path) from exc
-        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
-                                           n_arrays=int(positions) + int(velocities and self.has_velocities))
-        with f:
-            try:
-                yield from self._chunks(f, idx, cols, stride, velocities, chunk_frames, positions)
-            except (KeyError, ValueError, TypeError, IndexError, OSError) as exc:
-                raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
-
-    def _chunks(self, f: h5py.File, idx: np.ndarray, cols: np.ndarray | None, stride: int, velocities: bool,
-                chunk_frames: int, positions: bool = True) -> Iterator[FrameChunk]:
-        if idx.size:
-            for i in range(0, idx.size, chunk_frames):
-                sel = idx[i : i + chunk_frames]
-                sl = slice(int(sel[0]), int(sel[-1]) + 1, stride)
-                if positions:
-                    pos = np.asarray(f["coordinates"][sl], dtype=np.float32)
-                    if cols is not None:
-                        pos = np.take(pos, cols, axis=1)  # C-ordered, unlike pos[:, cols]
-                    if self._pf != 1.0:
-                        pos = (pos * self._pf).astype(np.float32)
-                else:  # a velocity-only analysis
-                    pos = np.empty((sel.size, 0, 3), np.float32)
-                vel = None
-                if velocities and self._vf is not None:
-                    vel = np.asarray(f["velocities"][sl], dtype=np.float32)
-                    if cols is not None:
-                        vel = np.take(vel, cols, axis=1)
-                    if self._vf != 1.0:
-                        vel = (vel * self._vf).astype(np.float32)
-                box = None
-                if self._bf is not None:
-                    lengths = f["cell_lengths"][sl] * self._bf
-                    angles = f["cell_angles"][sl] if "cell_angles" in f else np.full_like(lengths, 90.0)
-                    box = check_box(box_vectors_from_lengths_angles(lengths, angles), path=self.path,
-                                    first_frame=int(sel[0]))
-                yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
-                                 velocities_nm_per_ps=vel, box_nm=box)
+    def _chunks(self, f: h5py.File, request: FrameRequest) -> Iterator[FrameChunk]:
+        for sel in request.batches():
+            sl = slice(int(sel[0]), int(sel[-1]) + 1, request.stride)
+            pos = no_positions(sel.size)  # a velocity-only analysis reads none
+            if request.positions:
+                pos = in_float32(request.pick(f["coordinates"][sl]), self._pf)
+            vel = None
+            if request.velocities and self._vf is not None:
+                vel = in_float32(request.pick(f["velocities"][sl]), self._vf)
+            box = None
+            if self._bf is not None:
+                lengths = f["cell_lengths"][sl] * self._bf
+                angles = f["cell_angles"][sl] if "cell_angles" in f else np.full_like(lengths, 90.0)
+                box = check_box(box_vectors_from_lengths_angles(lengths, angles), path=self.path,
+                                first_frame=int(sel[0]))
+            yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
+                             velocities_nm_per_ps=vel, box_nm=box)
 
 
 def open_mdtraj_h5_run(path: str | Path) -> Run:

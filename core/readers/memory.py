@@ -2,18 +2,18 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 
 import numpy as np
 
 from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
     ChunkedFrames,
     EnergyTable,
     FrameChunk,
+    FrameRequest,
     Run,
     RunMetadata,
-    budget_chunk_frames,
+    no_positions,
 )
 
 
@@ -49,35 +49,15 @@ class ArrayFrames(ChunkedFrames):
         self.velocities_estimated = velocities_estimated
         self.has_box = self._box is not None
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        idx = self.frame_indices(start, stop, stride)
-        cols = None if atom_indices is None else np.asarray(atom_indices)
-        chunk_frames = budget_chunk_frames(chunk_frames, self.n_atoms if cols is None else cols.size,
-                                           n_arrays=int(positions) + int(velocities and self._vel is not None),
-                                           itemsize=self._pos.dtype.itemsize)
-
-        def pick(a: np.ndarray, sel: np.ndarray) -> np.ndarray:
-            return a[sel] if cols is None else np.take(a[sel], cols, axis=1)  # C-ordered, unlike a[sel][:, cols]
-
-        for i in range(0, idx.size, chunk_frames):
-            sel = idx[i : i + chunk_frames]
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        for sel in request.batches():
             vel = None
-            if velocities and self._vel is not None:
-                vel = pick(self._vel, sel)
+            if request.velocities and self._vel is not None:
+                vel = request.pick(self._vel[sel])
             yield FrameChunk(
                 start=int(sel[0]),
                 time_ps=self._time[sel],
-                positions_nm=pick(self._pos, sel) if positions else np.empty((sel.size, 0, 3), np.float32),
+                positions_nm=request.pick(self._pos[sel]) if request.positions else no_positions(sel.size),
                 velocities_nm_per_ps=vel,
                 box_nm=None if self._box is None else np.asarray(self._box[sel]),
             )

@@ -31,14 +31,8 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import TopologyMismatchError
-from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    FrameChunk,
-    FrameSource,
-    Run,
-    RunMetadata,
-)
+from phasewake.core.model.run import FrameChunk, FrameRequest, FrameSource, Run, RunMetadata
+from phasewake.core.readers.common import ClockedFrames
 
 
 @dataclass(frozen=True)
@@ -51,7 +45,7 @@ class Part:
     n_keep: int  # frames 0 .. n_keep-1 are part of the joined run
 
 
-class PartsFrames(ChunkedFrames):
+class PartsFrames(ClockedFrames):
     """A FrameSource over the kept frames of several parts, one after the other."""
 
     def __init__(self, parts: Sequence[Part], time: np.ndarray) -> None:
@@ -88,38 +82,15 @@ class PartsFrames(ChunkedFrames):
             out.append(t[: p.n_keep])
         return np.concatenate(out)
 
-    def retime(self, time_ps: np.ndarray) -> None:
-        t = np.asarray(time_ps, dtype=np.float64)
-        if t.shape != (self.n_frames,):
-            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
-        self._time = t
-
-    @property
-    def time_ps(self) -> np.ndarray:
-        return self._time
-
     # ---- frames
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        want = np.arange(start, stop, max(1, int(stride)))
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        want, stride = request.frames, request.stride
         for k, part in enumerate(self.parts):
             lo, hi = int(self._starts[k]), int(self._starts[k + 1])
             mine = want[(want >= lo) & (want < hi)]
             if mine.size == 0:
                 continue
-            for ch in part.frames.iter_chunks(chunk_frames=chunk_frames, start=int(mine[0]) - lo,
-                                              stop=int(mine[-1]) - lo + 1, stride=stride, atom_indices=atom_indices,
-                                              velocities=velocities, positions=positions):
+            for ch in part.frames.iter_chunks(**request.keywords(start=int(mine[0]) - lo, stop=int(mine[-1]) - lo + 1)):
                 g = ch.start + lo
                 idx = np.arange(g, g + ch.n_frames * stride, stride)[: ch.n_frames]
                 yield FrameChunk(start=int(g), time_ps=self._time[idx], positions_nm=ch.positions_nm,

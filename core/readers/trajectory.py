@@ -32,15 +32,8 @@ from phasewake.core.errors import (
     MissingDataError,
     TopologyMismatchError,
 )
-from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    FrameChunk,
-    Run,
-    RunMetadata,
-    budget_chunk_frames,
-)
-from phasewake.core.readers.common import check_box, check_time_axis, masses_from_topology
+from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata, no_positions
+from phasewake.core.readers.common import ClockedFrames, check_box, check_time_axis, masses_from_topology
 from phasewake.core.readers.quiet import quiet_mdtraj
 from phasewake.core.readers.xdr import (  # noqa: F401 - _check_xdr_complete and trr_velocity_frames: names kept here
     _check_xdr_complete,
@@ -227,8 +220,10 @@ def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
 
 # ------------------------------------------------------------------------------ frame source
 
+_READ_ERRORS = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, AssertionError)
 
-class MdtrajFrames(ChunkedFrames):
+
+class MdtrajFrames(ClockedFrames):
     """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
 
     # XTC keeps positions to its precision (0.001 nm by default): too coarse to infer constraints from
@@ -249,13 +244,6 @@ class MdtrajFrames(ChunkedFrames):
         self.has_velocities = velocity_kind is not None
         self.velocities_estimated = False
         self.offsets: np.ndarray | None = None  # XTC/TRR: byte offset of each frame (readers.xdr)
-
-    def retime(self, time_ps: np.ndarray) -> None:
-        """Use another clock for the frames (a table with one row per frame, for formats without time)."""
-        t = np.asarray(time_ps, dtype=np.float64)
-        if t.shape != (self.n_frames,):
-            raise ValueError(f"time axis of {t.shape[0]} entries for {self.n_frames} frames")
-        self._time = t
 
     def _load_kwargs(self) -> dict[str, Any]:
         kw: dict[str, Any] = {}
@@ -285,47 +273,19 @@ class MdtrajFrames(ChunkedFrames):
             v = (v * self._vfactor).astype(np.float32)
         return v if cols is None else np.take(v, cols, axis=1)
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        if not request.positions and request.velocities and self.has_velocities:
+            yield from self._velocity_chunks(request)  # no position decode at all; no box either
+            return
         import mdtraj as md
 
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        if start >= stop:
-            return
-        cols = None if atom_indices is None else np.asarray(atom_indices)
-        per_chunk = budget_chunk_frames(max(1, int(chunk_frames)), self.n_atoms if cols is None else cols.size,
-                                        n_arrays=int(positions) + int(velocities and self.has_velocities))
-        expected = np.arange(start, stop, stride)
+        start, stride, cols, expected = request.start, request.stride, request.atoms, request.frames
         done = 0
-        read_errors = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.error, AssertionError)
-        if not positions and velocities and self.has_velocities:
-            # velocities are read on their own (TRR, NetCDF): no position decode at all; no box either
-            for i in range(0, expected.size, per_chunk):
-                sel = expected[i : i + per_chunk]
-                try:
-                    with quiet_mdtraj():
-                        only_vel = self._velocities(sel, cols)
-                except read_errors as exc:
-                    raise CorruptFileError(f"cannot read velocities at frame {int(sel[0])} "
-                                           f"({type(exc).__name__}: {exc})", path=self.path) from exc
-                yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel],
-                                 positions_nm=np.empty((sel.size, 0, 3), np.float32),
-                                 velocities_nm_per_ps=only_vel, box_nm=None)
-            return
         try:
             with quiet_mdtraj():
-                chunks = iter(md.iterload(str(self.path), chunk=per_chunk, skip=start, stride=stride,
+                chunks = iter(md.iterload(str(self.path), chunk=request.chunk, skip=start, stride=stride,
                                           atom_indices=cols, **self._load_kwargs()))
-        except read_errors as exc:
+        except _READ_ERRORS as exc:
             raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
         while done < expected.size:
             try:
@@ -334,8 +294,8 @@ class MdtrajFrames(ChunkedFrames):
                     if tr is None:
                         break
                     sel = expected[done : done + tr.n_frames]
-                    vel = self._velocities(sel, cols) if (velocities and self.has_velocities) else None
-            except read_errors as exc:
+                    vel = self._velocities(sel, cols) if (request.velocities and self.has_velocities) else None
+            except _READ_ERRORS as exc:
                 raise CorruptFileError(f"cannot read frames after frame {start + done * stride} "
                                        f"({type(exc).__name__}: {exc})", path=self.path) from exc
             except Exception as exc:
@@ -352,6 +312,18 @@ class MdtrajFrames(ChunkedFrames):
         if done < expected.size:
             raise CorruptFileError(f"file ended after {start + done * stride} of {self.n_frames} frames "
                                    "(truncated?)", path=self.path)
+
+    def _velocity_chunks(self, request: FrameRequest) -> Iterator[FrameChunk]:
+        """Velocities read on their own (TRR, NetCDF), for an analysis that needs no positions."""
+        for sel in request.batches():
+            try:
+                with quiet_mdtraj():
+                    only_vel = self._velocities(sel, request.atoms)
+            except _READ_ERRORS as exc:
+                raise CorruptFileError(f"cannot read velocities at frame {int(sel[0])} "
+                                       f"({type(exc).__name__}: {exc})", path=self.path) from exc
+            yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=no_positions(sel.size),
+                             velocities_nm_per_ps=only_vel, box_nm=None)
 
 
 # --------------------------------------------------------------------------------- opening

@@ -12,20 +12,13 @@ positions; the frames are paired one to one.
 from __future__ import annotations
 
 import struct
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, TopologyMismatchError
-from phasewake.core.model.run import (
-    DEFAULT_CHUNK_FRAMES,
-    ChunkedFrames,
-    FrameChunk,
-    FrameSource,
-    budget_chunk_frames,
-)
+from phasewake.core.model.run import ChunkedFrames, FrameChunk, FrameRequest, FrameSource
 
 # Angstrom per AKMA time unit (48.88821 fs) -> Angstrom/ps (NAMD's PDBVELFACTOR).
 NAMD_VELOCITY_TO_A_PER_PS = 20.45482706
@@ -102,30 +95,17 @@ class VelocityFileFrames(ChunkedFrames):
                                    path=self.path)
         return v.astype(np.float32)
 
-    def iter_chunks(
-        self,
-        *,
-        chunk_frames: int = DEFAULT_CHUNK_FRAMES,
-        start: int = 0,
-        stop: int | None = None,
-        stride: int = 1,
-        atom_indices: Sequence[int] | np.ndarray | None = None,
-        velocities: bool = True,
-        positions: bool = True,
-    ) -> Iterator[FrameChunk]:
-        stop = self.n_frames if stop is None else min(stop, self.n_frames)
-        atoms = None if atom_indices is None else np.asarray(atom_indices, dtype=np.intp)
-        n_read = self.n_atoms if atoms is None else atoms.size
-        per = budget_chunk_frames(max(1, int(chunk_frames)), n_read, n_arrays=2)
-        kw: dict[str, Any] = {"chunk_frames": per, "start": start, "stop": stop, "stride": stride,
-                              "atom_indices": atom_indices, "velocities": False}
+    def _arrays_per_frame(self, velocities: bool, positions: bool) -> int:
+        return 2  # the positions read from the inner source and the velocities beside them
+
+    def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
         try:
-            for ch in self.inner.iter_chunks(positions=positions, **kw):
+            for ch in self.inner.iter_chunks(**request.keywords(velocities=False)):
                 vel = None
-                if velocities:
-                    vel = self._velocities(ch.start, ch.start + ch.n_frames * stride, stride, atoms)
+                if request.velocities:
+                    vel = self._velocities(ch.start, ch.start + ch.n_frames * request.stride, request.stride,
+                                           request.atoms)
                 yield FrameChunk(start=ch.start, time_ps=ch.time_ps, positions_nm=ch.positions_nm,
                                  velocities_nm_per_ps=vel, box_nm=ch.box_nm)
         except (OSError, ValueError, IndexError, struct.error) as exc:
             raise CorruptFileError(f"cannot read velocities ({type(exc).__name__}: {exc})", path=self.path) from exc
-
