@@ -16,14 +16,8 @@ from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
-# The chunk settings are process settings (core/settings.py, like the thread count); the frame sources
-# take these names from here.
-from phasewake.core.settings import CHUNK_BUDGET_ENV as CHUNK_BUDGET_ENV
-from phasewake.core.settings import DEFAULT_CHUNK_FRAMES as DEFAULT_CHUNK_FRAMES
-from phasewake.core.settings import DEFAULT_CHUNK_MB as DEFAULT_CHUNK_MB
-from phasewake.core.settings import budget_chunk_frames as budget_chunk_frames
-from phasewake.core.settings import chunk_budget_mb as chunk_budget_mb
-from phasewake.core.settings import set_chunk_budget_mb as set_chunk_budget_mb
+# the chunk settings are process settings, like the thread count
+from phasewake.core.settings import DEFAULT_CHUNK_FRAMES, budget_chunk_frames
 
 if TYPE_CHECKING:  # mdtraj is heavy; import it only where frames or topologies are built
     import mdtraj

@@ -455,8 +455,8 @@ def _peak_child(path: str, budget_mb: float, q) -> None:  # runs in a spawned pr
     from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
     from phasewake.core.analyses.velocity import VACFConsumer
     from phasewake.core.model.framepass import FramePass
-    from phasewake.core.model.run import set_chunk_budget_mb
     from phasewake.core.readers import open_run
+    from phasewake.core.settings import set_chunk_budget_mb
 
     set_chunk_budget_mb(budget_mb)
     run = open_run([path])

@@ -14,34 +14,34 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core.model import run as run_mod
-from phasewake.core.model.run import budget_chunk_frames, chunk_budget_mb, set_chunk_budget_mb
+from phasewake.core import settings
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run
 from phasewake.core.readers.h5md import write_h5md
 from phasewake.core.readers.memory import run_from_arrays
+from phasewake.core.settings import budget_chunk_frames, chunk_budget_mb, set_chunk_budget_mb
 
 SAMPLE = Path(__file__).resolve().parents[2] / "sample_data" / "dimer_nve.h5md"
 
 
 @pytest.fixture(autouse=True)
 def _reset_budget(monkeypatch):
-    monkeypatch.delenv(run_mod.CHUNK_BUDGET_ENV, raising=False)
+    monkeypatch.delenv(settings.CHUNK_BUDGET_ENV, raising=False)
     set_chunk_budget_mb(None)
     yield
     set_chunk_budget_mb(None)
 
 
 def test_budget_arithmetic_and_sources(monkeypatch):
-    assert chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB
-    monkeypatch.setenv(run_mod.CHUNK_BUDGET_ENV, "12")
+    assert chunk_budget_mb() == settings.DEFAULT_CHUNK_MB
+    monkeypatch.setenv(settings.CHUNK_BUDGET_ENV, "12")
     assert chunk_budget_mb() == 12.0
     # 12 MB / (1000 atoms x 3 x 4 bytes x 2 arrays = 24,000 B per frame) = 500 frames
     assert budget_chunk_frames(10_000, 1000, n_arrays=2) == 500
     assert budget_chunk_frames(100, 1000, n_arrays=2) == 100  # never more than asked
     assert budget_chunk_frames(256, 10**9, n_arrays=2) == 1  # never fewer than one frame
-    monkeypatch.setenv(run_mod.CHUNK_BUDGET_ENV, "not a number")
-    assert chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB  # a bad value falls back to the default
+    monkeypatch.setenv(settings.CHUNK_BUDGET_ENV, "not a number")
+    assert chunk_budget_mb() == settings.DEFAULT_CHUNK_MB  # a bad value falls back to the default
     set_chunk_budget_mb(0.5)  # the command line's --chunk-mb wins over the environment
     assert chunk_budget_mb() == 0.5
     with pytest.raises(ValueError):
@@ -116,7 +116,6 @@ def test_chunking_setting_sets_every_pass_and_comes_back():
     """``chunking(frames=)`` sets the most frames per chunk of a pass driven inside the block (chunk starts
     0, 7, 14, ...: plain arithmetic), the memory budget may still cut it, and both settings come back on
     leaving the block, also when a value is refused."""
-    from phasewake.core import settings
     from phasewake.core.model.framepass import run_pass
     from tests.parallel_consumers import FrameSums
 
@@ -130,9 +129,9 @@ def test_chunking_setting_sets_every_pass_and_comes_back():
         assert chunk_budget_mb() == pytest.approx(1.44e-4)
         got = drive(run_pass(run, {"s": FrameSums(atoms=(0, 1, 2, 3))}))["s"]
     assert max(np.diff([*got["first_frames"], 50])) <= 3 and got["count"] == 50
-    assert chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB and settings.chunk_frames() == 256
+    assert chunk_budget_mb() == settings.DEFAULT_CHUNK_MB and settings.chunk_frames() == 256
     with pytest.raises(ValueError), settings.chunking(frames=0):
         pass
     with pytest.raises(ValueError), settings.chunking(frames=3, mb=-1.0):
         pass
-    assert settings.chunk_frames() == 256 and chunk_budget_mb() == run_mod.DEFAULT_CHUNK_MB
+    assert settings.chunk_frames() == 256 and chunk_budget_mb() == settings.DEFAULT_CHUNK_MB

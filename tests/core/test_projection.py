@@ -179,8 +179,6 @@ def test_many_coordinates_lanczos_route_matches_numpy():
 def test_stride_and_reader_chunks():
     """A strided PCA equals the PCA of the strided frames (definition), and the reader's chunking (a 7-frame
     chunk budget) changes nothing: the products run on blocks of block_frames frames."""
-    from phasewake.core.model.run import set_chunk_budget_mb
-
     pos, m = _correlated(n=900, g=8, seed=13)
     run = run_from_arrays(pos, np.arange(len(pos)) * 0.1, m)
     strided = result_of(compute_pca(run, stride=3, n_components=3, block_frames=64))
@@ -188,11 +186,8 @@ def test_stride_and_reader_chunks():
     np.testing.assert_array_equal(strided.eigenvalues, direct.eigenvalues)
     np.testing.assert_array_equal(strided.projections, direct.projections)
     assert strided.stride == 3 and strided.n_frames == 300
-    try:
-        set_chunk_budget_mb(8 * 12 * 7 / 1e6)  # 7 frames of 8 atoms per chunk
+    with chunking(mb=8 * 12 * 7 / 1e6):  # 7 frames of 8 atoms per chunk
         small = result_of(compute_pca(run, n_components=3, block_frames=64))
-    finally:
-        set_chunk_budget_mb(None)
     whole = result_of(compute_pca(run, n_components=3, block_frames=64))
     np.testing.assert_array_equal(small.eigenvalues, whole.eigenvalues)
     np.testing.assert_array_equal(small.eigenvectors, whole.eigenvectors)
