@@ -25,6 +25,16 @@ if TYPE_CHECKING:
     import mdtraj
 
 
+def file_head(path: Path, n_bytes: int) -> bytes | None:
+    """The first ``n_bytes`` of a file (fewer when it is shorter), or None when it cannot be read: what a
+    reader's claim looks at."""
+    try:
+        with open(path, "rb") as f:
+            return f.read(n_bytes)
+    except OSError:
+        return None
+
+
 def decode(value: Any) -> Any:
     """HDF5 strings come back as bytes, numpy bytes or str: give str (recursively for arrays)."""
     if isinstance(value, bytes | np.bytes_):

@@ -32,6 +32,7 @@ from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
 from phasewake.core.readers.common import (
     ClockedFrames,
     check_time_axis,
+    file_head,
     masses_from_topology,
     topology_from_elements,
 )
@@ -55,10 +56,8 @@ def is_velocity_name(path: Path) -> bool:
 
 def claim(path: Path) -> bool:
     """A CP2K MD xyz: an atom count line, then CP2K's ``i = <step>, time = <fs>, E = <Hartree>`` line."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(512)
-    except OSError:
+    head = file_head(path, 512)
+    if head is None:
         return False
     lines = head.split(b"\n")
     if len(lines) < 2:

@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, EmptyFileError, EnergyTableError, UnitError
+from phasewake.core.readers.common import file_head
 from phasewake.core.readers.engine_common import (
     EngineEnergy,
     SeriesBuilder,
@@ -61,10 +62,8 @@ _BLOCK_ITEM_BYTES = {0: 4, 1: 4, 2: 8, 3: 8, 4: 4}  # int, float, double, int64,
 
 def claim_edr(path: Path) -> bool:
     """Starts with the .edr magic -55555 (or has the .edr suffix, so a damaged one gets a clear error)."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(8)
-    except OSError:
+    head = file_head(path, 8)
+    if head is None:
         return False
     if len(head) >= 4 and struct.unpack(">i", head[:4])[0] == EDR_MAGIC:
         return True
@@ -511,18 +510,14 @@ def _facts_from_params(params: Mapping[str, str]) -> dict[str, Any]:
         facts["thermostat"] = thermostat
         facts["barostat"] = barostat
         facts["ensemble"] = ensemble_of(thermostat, barostat)
-        for key in ("ref-t", "ref_t"):
-            if key in params and thermostat != "none":
-                try:
-                    facts["temperature_K"] = float(params[key].split()[0])
-                except (ValueError, IndexError):
-                    pass
-        for key in ("ref-p", "ref_p"):
-            if key in params and barostat != "none":
-                try:
-                    facts["pressure_bar"] = float(params[key].split()[0])
-                except (ValueError, IndexError):
-                    pass
+        for name, keys, coupling in (("temperature_K", ("ref-t", "ref_t"), thermostat),
+                                     ("pressure_bar", ("ref-p", "ref_p"), barostat)):
+            for key in keys:
+                if key in params and coupling != "none":
+                    try:
+                        facts[name] = float(params[key].split()[0])  # the first group's reference
+                    except (ValueError, IndexError):
+                        pass
     return facts
 
 

@@ -21,6 +21,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError
+from phasewake.core.readers.common import file_head
 
 if TYPE_CHECKING:
     import mdtraj
@@ -47,10 +48,8 @@ _XBOX = re.compile(rb"^\s*\S+\s+\S+\s+xlo\s+xhi", re.MULTILINE)
 
 def claim(path: Path) -> bool:
     """A LAMMPS data file by content: an ``N atoms`` line and an ``xlo xhi`` line near the top."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(4096)
-    except OSError:
+    head = file_head(path, 4096)
+    if head is None:
         return False
     if b"\0" in head:
         return False

@@ -32,7 +32,7 @@ import numpy as np
 
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
 from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
-from phasewake.core.readers.common import ClockedFrames, check_box
+from phasewake.core.readers.common import ClockedFrames, check_box, file_head
 from phasewake.core.readers.lammps_dump_index import DumpIndex, scan
 from phasewake.core.readers.lammps_units import UnitStyle
 
@@ -44,10 +44,8 @@ _POSITION_SETS = (("xu", "yu", "zu"), ("x", "y", "z"), ("xsu", "ysu", "zsu"), ("
 
 def claim(path: Path) -> bool:
     """A LAMMPS text dump: starts with an ``ITEM:`` line (any suffix: dumps are often named dump.*)."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(64)
-    except OSError:
+    head = file_head(path, 64)
+    if head is None:
         return False
     return head.lstrip().startswith(b"ITEM:")
 

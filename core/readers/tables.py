@@ -32,7 +32,7 @@ from phasewake.core.errors import (
     UnitError,
 )
 from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, Series
-from phasewake.core.readers.common import resolve_restarts
+from phasewake.core.readers.common import file_head, resolve_restarts
 from phasewake.core.units import parse_unit, split_header
 
 TABLE_SUFFIXES = (".csv", ".tsv", ".txt", ".dat", ".log", ".out", ".ene")
@@ -66,10 +66,8 @@ def claim(path: Path) -> bool:
     """A text file with a table suffix (the header is checked when reading)."""
     if path.suffix.lower() not in TABLE_SUFFIXES:
         return False
-    try:
-        with open(path, "rb") as f:
-            head = f.read(4096)
-    except OSError:
+    head = file_head(path, 4096)
+    if head is None:
         return False
     return b"\x00" not in head
 

@@ -33,7 +33,13 @@ from phasewake.core.errors import (
     TopologyMismatchError,
 )
 from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata, no_positions
-from phasewake.core.readers.common import ClockedFrames, check_box, check_time_axis, masses_from_topology
+from phasewake.core.readers.common import (
+    ClockedFrames,
+    check_box,
+    check_time_axis,
+    file_head,
+    masses_from_topology,
+)
 from phasewake.core.readers.quiet import quiet_mdtraj
 from phasewake.core.readers.xdr import (  # noqa: F401 - _check_xdr_complete and trr_velocity_frames: names kept here
     _check_xdr_complete,
@@ -63,10 +69,8 @@ def _suffix(path: Path) -> str:
 
 def _sniff(path: Path) -> str | None:
     """The format the first bytes say, for formats with a signature; None when they say nothing."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(96)
-    except OSError:
+    head = file_head(path, 96)
+    if head is None:
         return None
     if len(head) >= 8 and head[4:8] == b"CORD":
         return ".dcd"
@@ -178,15 +182,10 @@ def _raise_if_bare(exc: Exception, path: Path, what: str) -> None:
 _AKMA_PS = math.sqrt(1e-20 * 1.66053906892e-27 / (4184.0 / 6.02214076e23)) * 1e12
 
 
-def dcd_header_timestep(path: Path) -> tuple[float, int] | None:
-    """(integration time step in ps, steps between frames) from a DCD header's DELTA (AKMA time units) and
-    NSAVC (OpenMM and NAMD write them so), or None when the header holds no real step."""
-    try:
-        with open(path, "rb") as f:
-            head = f.read(92)
-    except OSError:
-        return None
-    if len(head) < 92:
+def _dcd_clock(head: bytes | None) -> tuple[int, int, float] | None:
+    """(ISTART, NSAVC, DELTA in AKMA time units) of a DCD header's first 92 bytes, or None when it holds no
+    real time step (mdtraj writes delta=1, nsavc=1, istart=0)."""
+    if head is None or len(head) < 92:
         return None
     for endian in ("<", ">"):
         if struct.unpack(endian + "i", head[:4])[0] == 84:
@@ -197,24 +196,26 @@ def dcd_header_timestep(path: Path) -> tuple[float, int] | None:
     istart, nsavc, delta = icntrl[1], icntrl[2], icntrl[9]
     if not (delta > 0 and nsavc > 0) or (delta == 1.0 and nsavc == 1 and istart == 0):
         return None
+    return istart, nsavc, delta
+
+
+def dcd_header_timestep(path: Path) -> tuple[float, int] | None:
+    """(integration time step in ps, steps between frames) from a DCD header's DELTA (AKMA time units) and
+    NSAVC (OpenMM and NAMD write them so), or None when the header holds no real step."""
+    clock = _dcd_clock(file_head(path, 92))
+    if clock is None:
+        return None
+    _, nsavc, delta = clock
     return float(f"{delta * _AKMA_PS:.6g}"), int(nsavc)  # DELTA is float32: 6 digits are what it holds
 
 
 def _dcd_time(path: Path, n_frames: int) -> np.ndarray | None:
     """Frame times from a DCD header, or None when it holds no real time step (mdtraj writes delta=1, nsavc=1)."""
     with open(path, "rb") as f:
-        head = f.read(92)
-    if len(head) < 92:
+        clock = _dcd_clock(f.read(92))
+    if clock is None:
         return None
-    for endian in ("<", ">"):
-        if struct.unpack(endian + "i", head[:4])[0] == 84:
-            break
-    else:
-        return None
-    icntrl = struct.unpack(endian + "9if10i", head[8:88])
-    istart, nsavc, delta = icntrl[1], icntrl[2], icntrl[9]
-    if not (delta > 0 and nsavc > 0) or (delta == 1.0 and nsavc == 1 and istart == 0):
-        return None
+    istart, nsavc, delta = clock
     return (istart + np.arange(n_frames) * nsavc) * float(delta) * _AKMA_PS
 
 
