@@ -65,23 +65,10 @@ class RunEntry:
 
 
 def apply_settings(run: Run, settings: RunSettings) -> None:
-    """Write a user's per-run settings into the run's metadata (in place)."""
-    md = run.metadata
-    if settings.timestep_fs is not None:
-        md.timestep_ps = settings.timestep_fs * 1e-3
-        md.sources["timestep"] = "user"
-    if settings.n_constraints is not None:
-        md.n_constraints = settings.n_constraints
-        md.constraints_source = "user"
-    if settings.temperature_K is not None:
-        md.temperature_K = settings.temperature_K
-        md.sources["temperature"] = "user"
-    if settings.ensemble:
-        md.ensemble = settings.ensemble
-        md.sources["ensemble"] = "user"
-    if settings.thermostat:
-        md.thermostat = settings.thermostat
-        md.sources["thermostat"] = "user"
+    """Write a user's per-run settings into the run's metadata (in place), as ``open_run`` does."""
+    from phasewake.core.readers import apply_stated
+
+    apply_stated(run.metadata, settings.overrides())
 
 
 class WindowModel(QtCore.QObject):
@@ -179,7 +166,7 @@ class WindowModel(QtCore.QObject):
             return
         if e.files_metadata is None:  # what the files said, before any of the user's settings
             e.files_metadata = copy.deepcopy(e.run.metadata)
-            for k in ("timestep", "temperature", "ensemble", "thermostat"):
+            for k in ("timestep_ps", "temperature_K", "ensemble", "thermostat", "n_constraints"):
                 if e.files_metadata.sources.get(k) == "user":
                     e.files_metadata.sources.pop(k, None)
         e.settings = replace(settings)

@@ -60,7 +60,7 @@ def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
     rows.append(("ensemble", md.ensemble or "unknown"))
     if md.thermostat:
         rows.append(("thermostat", md.thermostat))
-    src = md.sources.get("temperature", "")
+    src = md.sources.get("temperature_K", "")
     rows.append(("target temperature", "none stated" if md.temperature_K is None else
                  f"{md.temperature_K:.4g} K" + (" (yours)" if src == "user" else "")))
     rows.append(("kinetic temperature", kinetic or _file_temperature(run) or

@@ -42,7 +42,9 @@ from phasewake.core.readers.registry import (
 )
 
 
-def _apply_overrides(md: RunMetadata, overrides: Mapping[str, Any]) -> None:
+def apply_stated(md: RunMetadata, overrides: Mapping[str, Any]) -> None:
+    """Write what the user states (RunMetadata fields, internal units; None: not stated) over ``md``, each
+    marked "user" in ``md.sources`` (``open_run`` does, and the window when a run's settings change)."""
     for key, val in overrides.items():
         if val is None:
             continue
@@ -106,7 +108,7 @@ def open_run(
     if units_style and run.metadata.units_style is None:  # stated for files that do not say (dumps, tables)
         run.metadata.units_style = f"lammps {units_style}"
         run.metadata.sources["units_style"] = "stated (--units)"
-    _apply_overrides(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
+    apply_stated(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
                                     "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
     _finish_lammps_dump(run, warnings)
     _attach_velocity_file(run, inputs)
