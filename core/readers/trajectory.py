@@ -282,9 +282,13 @@ class MdtrajFrames(ClockedFrames):
 
         start, stride, cols, expected = request.start, request.stride, request.atoms, request.frames
         done = 0
+        # mdtraj's TRR reader (1.11) corrupts memory (the process aborts) when asked for a stride and some
+        # atoms together: such a read goes frame by frame, in chunks of whole strides, keeping every stride-th
+        thin = stride if stride > 1 and cols is not None and _suffix(self.path) == ".trr" else 1
+        per = max(thin, request.chunk // thin * thin)
         try:
             with quiet_mdtraj():
-                chunks = iter(md.iterload(str(self.path), chunk=request.chunk, skip=start, stride=stride,
+                chunks = iter(md.iterload(str(self.path), chunk=per, skip=start, stride=stride // thin,
                                           atom_indices=cols, **self._load_kwargs()))
         except _READ_ERRORS as exc:
             raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
@@ -294,6 +298,7 @@ class MdtrajFrames(ClockedFrames):
                     tr = next(chunks, None)
                     if tr is None:
                         break
+                    tr = tr[::thin] if thin > 1 else tr
                     sel = expected[done : done + tr.n_frames]
                     vel = self._velocities(sel, cols) if (request.velocities and self.has_velocities) else None
             except _READ_ERRORS as exc:

@@ -305,3 +305,21 @@ def test_quiet_stdout_restored_after_concurrent_reads(files, capfd):
     capfd.readouterr()
     os.write(1, b"still here\n")
     assert capfd.readouterr().out == "still here\n"
+
+
+@pytest.mark.parametrize("start, stride, atoms, chunk", [(0, 2, [0, 1], 256), (1, 3, [1, 2], 3), (0, 3, [5], 1)])
+def test_trr_read_with_a_stride_and_some_atoms_is_the_full_read_thinned(start, stride, atoms, chunk):
+    # mdtraj 1.11's TRR reader aborted the process (heap corruption) on a stride with an atom subset; the
+    # reference is mdtraj's own plain read of the whole file (GROMACS's output), sliced
+    from pathlib import Path
+
+    run_dir = Path(__file__).resolve().parents[1] / "data" / "engines" / "gromacs" / "spce_flexible_nve_2fs"
+    run = open_run([run_dir / "md.trr"], topology=run_dir / "md.gro")
+    with contextlib.redirect_stdout(io.StringIO()):
+        ref = md.load(str(run_dir / "md.trr"), top=str(run_dir / "md.gro"))
+    chunks = list(run.frames.iter_chunks(start=start, stride=stride, atom_indices=atoms, chunk_frames=chunk))
+    pos = np.concatenate([c.positions_nm for c in chunks])
+    np.testing.assert_array_equal(pos, ref.xyz[start::stride][:, atoms])
+    np.testing.assert_array_equal(np.concatenate([c.box_nm for c in chunks]),
+                                  ref.unitcell_vectors[start::stride].astype(np.float64))
+    assert [c.start for c in chunks][0] == start and sum(c.n_frames for c in chunks) == len(range(start, run.n_frames, stride))
