@@ -402,13 +402,14 @@ def test_signal_during_an_output_write_removes_the_temporary_file(tmp_path, run_
 _SLOW_CHUNKS = """
 import pathlib, sys, time
 import phasewake.core.analyses.coordinates as K
+from phasewake.core.progress import Progress
 real = K.compute_coordinates
 def slow(*a, **k):
     result = yield from real(*a, **k)
     pathlib.Path({flag!r}).write_text("started")
     for i in range(200):  # 200 more chunks of 50 ms: 10 s unless the interrupt is honoured between them
         time.sleep(0.05)
-        yield K.Progress(i, 200, "chunk")
+        yield Progress(i, 200, "chunk")
     return result
 K.compute_coordinates = slow
 from phasewake.app.cli import main
