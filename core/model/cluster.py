@@ -6,7 +6,9 @@ back and are merged in frame order; a replica ensemble sends one task per run. D
 tasks: phasewake starts no scheduler and no workers of its own. Someone starts them (README, "Beyond one
 machine"); the workers must see the input files at the same paths and run the same phasewake version.
 
-Each worker keeps the last run it opened (a second range of the same run does not open it again).
+A run whose frame source is portable (XTC, TRR) travels to the workers as it is, without its topology
+(:func:`phasewake.core.model.parallel.travelling`); any other is opened on the worker from its files,
+and each worker keeps the last run it opened (a second range of the same run does not open it again).
 Progress counts the frames of finished ranges (the ranges are smaller than on one machine, four per
 worker, so the bar moves often); cancelling releases every task and asks running ones to stop at their
 next chunk (a Dask ``Event`` named for the job).
@@ -100,9 +102,6 @@ def n_workers(cl: Any) -> int:
 
 # ------------------------------------------------------------------------------------------ worker side
 
-_runs: dict[bytes, Any] = {}  # per worker process: the run opened last
-
-
 def _stop_check(job: str) -> Any:
     """A function that raises Cancelled once the job's stop event is set (asked at most twice a second)."""
     from distributed import Event
@@ -120,12 +119,12 @@ def _stop_check(job: str) -> Any:
     return check
 
 
-def range_task(job: str, files: parallel.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
+def range_task(job: str, files: Run | parallel.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
                chunks: tuple[int, float]) -> dict[str, Any]:
     """One frame range on a Dask worker (see :func:`phasewake.core.model.parallel.read_range`)."""
     check = _stop_check(job)
     try:
-        run = parallel.opened(files, _runs)
+        run = parallel.worker_run(files)  # as it travelled, or opened once per worker from its files
         return parallel.read_range(run, consumers, start, stop, chunks, lambda n: check())
     except PhasewakeError as exc:
         raise parallel.carry(exc) from None
@@ -175,7 +174,7 @@ def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: in
     cl = cl if cl is not None else _client
     if cl is None:
         raise InputError("no Dask scheduler set (--scheduler ADDRESS)")
-    files_ = parallel.files_of(run) if files is None else files
+    files_ = parallel.travelling(run, parallel.files_of(run)) if files is None else files
     chunks = chunk_setting()
     ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunks[0])
     parallel.before_parts(run, consumers, start)

@@ -7,9 +7,12 @@ H5MD is a seekable point), aligned to the chunk size (the chunk setting of :mod:
 handed to every range) so a consumer that works in whole chunks sees the same chunks as the serial pass.
 Each range runs the consumers in a worker process:
 
-* the worker reopens the run from its files and options (:class:`RunFiles`; nothing open is pickled),
-  keeping it for the next range it gets; the parent's parsed topologies go along once per worker, so a
-  20,000-atom PDB is not parsed again in every process;
+* a run whose frame source is *portable* (XTC and TRR: a path, the frame offsets and the clock; and
+  wrappers over them) travels to the worker as it is, without its topology and energies
+  (:func:`travelling`): the worker opens nothing but the file's frames;
+* any other run is opened again in the worker from its files and options (:class:`RunFiles`; nothing
+  open is pickled), kept for the next range it gets; the parent's parsed topologies go along once per
+  worker, so a 20,000-atom PDB is not parsed again in every process;
 * the consumers, built in the parent from the parent's run, travel unprepared; the worker prepares them
   for its range, feeds them every chunk (:func:`phasewake.core.model.framepass.feed`) and sends them
   back with their partial state;
@@ -282,6 +285,24 @@ def opened(files: RunFiles, runs: dict[bytes, Any]) -> Run:
     return runs[key]
 
 
+def travelling(run: Run, files: RunFiles) -> Run | RunFiles:
+    """What a worker process gets to read ``run``'s frames: the run itself, without its topology, energies
+    and warnings (a few bytes per frame and atom), when its frame source is portable; else ``files``, to
+    open it again there."""
+    import dataclasses
+
+    if run.frames is not None and getattr(run.frames, "portable", False):
+        return dataclasses.replace(run, topology=None, energies=None, warnings=[])
+    return files
+
+
+def worker_run(got: Run | RunFiles) -> Run:
+    """The run a worker reads: as it travelled (:func:`travelling`), or opened from its files once."""
+    if isinstance(got, RunFiles):
+        return opened(got, _worker_state.setdefault("runs", {}))
+    return got
+
+
 def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunks: tuple[int, float],
                tick: Callable[[int], None]) -> dict[str, Any]:
     """Feed frames [start, stop) of ``run`` to ``consumers`` in the parent's chunks (``chunks``: its
@@ -296,7 +317,7 @@ def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, ch
     return dict(consumers)
 
 
-def _range_task(index: int, files: RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
+def _range_task(index: int, files: Run | RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
                 chunks: tuple[int, float]) -> dict[str, Any]:
     done, stop_event = _worker_state["done"], _worker_state["stop"]
 
@@ -308,7 +329,7 @@ def _range_task(index: int, files: RunFiles, consumers: Mapping[str, Any], start
     try:
         if stop_event.is_set():
             raise Cancelled()
-        return read_range(opened(files, _worker_state["runs"]), consumers, start, stop, chunks, tick)
+        return read_range(worker_run(files), consumers, start, stop, chunks, tick)
     except PhasewakeError as exc:
         raise carry(exc) from None
 
@@ -442,10 +463,11 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     ranges = cut_ranges(start_, stop_, 2 * n, align=chunks[0])
     if n <= 1 or len(ranges) < 2 or not mergeable(consumers):
         return (yield from run_pass(run, consumers, start=start_, stop=stop_, workers=1))
-    files_ = files_of(run) if files is None else files
+    files_ = travelling(run, files_of(run)) if files is None else files
     before_parts(run, consumers, start_)
     label = f"one pass over {n} workers: " + ", ".join(consumers)
-    with ProcessRanges(min(n, len(ranges)), len(ranges), topology_seed(run)) as pool:
+    seed = topology_seed(run) if isinstance(files_, RunFiles) else b""
+    with ProcessRanges(min(n, len(ranges)), len(ranges), seed) as pool:
         futures = [pool.submit(_range_task, i, files_, consumers, a, b, chunks)
                    for i, (a, b) in enumerate(ranges)]
         yield from follow(futures, pool.frames_done, stop_ - start_, label)
@@ -523,15 +545,17 @@ def spread_runs(runs: Sequence[Run]) -> bool:
     return usable_cores() > 1 and sum(r.n_frames * r.n_atoms for r in runs) >= MIN_AUTO_ATOM_FRAMES
 
 
-def coordinate_series(files: RunFiles, spec: str, start: int, stop: int | None, chunks: tuple[int, float]) -> Any:
+def coordinate_series(files: Run | RunFiles, spec: str, start: int, stop: int | None, chunks: tuple[int, float]
+                      ) -> Any:
     """One replica's coordinate series (``compute_coordinates``, in the parent's chunks: ``chunks`` is its
-    :func:`~phasewake.core.settings.chunk_setting`), in the worker that opens its files."""
+    :func:`~phasewake.core.settings.chunk_setting`), in a worker: the run as it travelled
+    (:func:`travelling`) or opened there from its files."""
     from phasewake.core.analyses.coordinates import compute_coordinates
     from phasewake.core.progress import drive
     from phasewake.core.settings import chunking
 
     set_workers(1)  # on a Dask worker too: the replicas are the parallel part
-    run = opened(files, _worker_state.setdefault("runs", {}))
+    run = worker_run(files)
     with chunking(frames=chunks[0], mb=chunks[1]):
         return drive(compute_coordinates(run, [spec], start=start, stop=stop))[0]
 
@@ -541,5 +565,5 @@ def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop:
     """The coordinate ``spec`` of every run, one worker task per run (:func:`map_workers`), in order."""
     from phasewake.core.settings import chunk_setting
 
-    tasks = [(files_of(r), spec, start, stop, chunk_setting()) for r in runs]
+    tasks = [(travelling(r, files_of(r)), spec, start, stop, chunk_setting()) for r in runs]
     return (yield from map_workers(coordinate_series, tasks, label=f"{spec} in {len(runs)} replicas"))

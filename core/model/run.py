@@ -184,6 +184,9 @@ class ChunkedFrames:
     has_velocities: bool
     velocities_estimated: bool
     has_box: bool
+    # True for a source that pickles small and holds no open file (its path, an index, a clock): a worker
+    # process can take it as it is instead of opening the run again (core/model/parallel.py)
+    portable: bool = False
 
     def iter_chunks(
         self,
@@ -230,6 +233,7 @@ class ChunkedFrames:
         self.has_box = inner.has_box
         self.positions_lossy = bool(getattr(inner, "positions_lossy", False))
         self.positions_precision_nm = getattr(inner, "positions_precision_nm", None)
+        self.portable = bool(getattr(inner, "portable", False))
 
     def read_frame(self, index: int) -> FrameChunk:
         if not -self.n_frames <= index < self.n_frames:

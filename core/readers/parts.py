@@ -61,6 +61,7 @@ class PartsFrames(ClockedFrames):
         known = [x for x in precisions if x is not None]
         self.positions_precision_nm = max(known) if known else None
         self.positions_lossy = any(bool(getattr(p.frames, "positions_lossy", False)) for p in self.parts)
+        self.portable = all(bool(getattr(p.frames, "portable", False)) for p in self.parts)
         # LAMMPS dumps: units and time step are applied to every part by lammps_dump.finish_run
         self.lammps = getattr(self.parts[0].frames, "lammps", None)
 

@@ -47,6 +47,7 @@ from phasewake.core.readers.xdr import (  # noqa: F401 - _check_xdr_complete and
     frame_index,
     trr_velocity_frames,
 )
+from phasewake.core.readers.xdr_frames import XdrFrames
 from phasewake.core.units import parse_unit
 
 if TYPE_CHECKING:
@@ -225,7 +226,8 @@ _READ_ERRORS = (OSError, ValueError, RuntimeError, IndexError, EOFError, struct.
 
 
 class MdtrajFrames(ClockedFrames):
-    """Lazy chunked frames through mdtraj (a FrameSource); velocities from TRR/NetCDF when stored."""
+    """Lazy chunked frames through mdtraj's ``iterload`` (a FrameSource) for the formats other than XTC and
+    TRR (those are :class:`~phasewake.core.readers.xdr_frames.XdrFrames`); NetCDF velocities when stored."""
 
     # XTC keeps positions to its precision (0.001 nm by default): too coarse to infer constraints from
     # bond lengths (rigid water looks 0.4% flexible), so the audit does not
@@ -240,11 +242,10 @@ class MdtrajFrames(ClockedFrames):
         self.n_atoms = topology.n_atoms
         self._time = time_ps
         self.has_box = has_box
-        self._vkind = velocity_kind  # "trr", "netcdf" or None
+        self._vkind = velocity_kind  # "netcdf" or None
         self._vfactor = velocity_factor
         self.has_velocities = velocity_kind is not None
         self.velocities_estimated = False
-        self.offsets: np.ndarray | None = None  # XTC/TRR: byte offset of each frame (readers.xdr)
 
     def _load_kwargs(self) -> dict[str, Any]:
         kw: dict[str, Any] = {}
@@ -253,25 +254,14 @@ class MdtrajFrames(ClockedFrames):
         return kw
 
     def _velocities(self, sel: np.ndarray, cols: np.ndarray | None) -> np.ndarray:
-        if self._vkind == "trr":
-            import mdtraj as md
+        from scipy.io import netcdf_file
 
-            out = []
-            with quiet_mdtraj(), md.formats.TRRTrajectoryFile(str(self.path)) as f:
-                for i in sel:
-                    f.seek(int(i))
-                    res = f._read(1, None, get_velocities=True, get_forces=False)
-                    out.append(res[5][0])
-            v = np.asarray(out, dtype=np.float32)
-        else:
-            from scipy.io import netcdf_file
-
-            with _warnings.catch_warnings():
-                _warnings.simplefilter("ignore")
-                with netcdf_file(str(self.path), "r", mmap=False, maskandscale=True) as nc:
-                    var = nc.variables["velocities"]
-                    v = np.asarray(var[sel], dtype=np.float64)
-            v = (v * self._vfactor).astype(np.float32)
+        with _warnings.catch_warnings():
+            _warnings.simplefilter("ignore")
+            with netcdf_file(str(self.path), "r", mmap=False, maskandscale=True) as nc:
+                var = nc.variables["velocities"]
+                v = np.asarray(var[sel], dtype=np.float64)
+        v = (v * self._vfactor).astype(np.float32)
         return v if cols is None else np.take(v, cols, axis=1)
 
     def _read(self, request: FrameRequest) -> Iterator[FrameChunk]:
@@ -282,13 +272,9 @@ class MdtrajFrames(ClockedFrames):
 
         start, stride, cols, expected = request.start, request.stride, request.atoms, request.frames
         done = 0
-        # mdtraj's TRR reader (1.11) corrupts memory (the process aborts) when asked for a stride and some
-        # atoms together: such a read goes frame by frame, in chunks of whole strides, keeping every stride-th
-        thin = stride if stride > 1 and cols is not None and _suffix(self.path) == ".trr" else 1
-        per = max(thin, request.chunk // thin * thin)
         try:
             with quiet_mdtraj():
-                chunks = iter(md.iterload(str(self.path), chunk=per, skip=start, stride=stride // thin,
+                chunks = iter(md.iterload(str(self.path), chunk=request.chunk, skip=start, stride=stride,
                                           atom_indices=cols, **self._load_kwargs()))
         except _READ_ERRORS as exc:
             raise CorruptFileError(f"cannot read frames ({type(exc).__name__}: {exc})", path=self.path) from exc
@@ -298,7 +284,6 @@ class MdtrajFrames(ClockedFrames):
                     tr = next(chunks, None)
                     if tr is None:
                         break
-                    tr = tr[::thin] if thin > 1 else tr
                     sel = expected[done : done + tr.n_frames]
                     vel = self._velocities(sel, cols) if (request.velocities and self.has_velocities) else None
             except _READ_ERRORS as exc:
@@ -488,17 +473,20 @@ def open_trajectory_run(path: Path, top_path: Path | None) -> Run:
         warnings.append(f"{path.name}: some atoms have no element, so masses are unknown")
     else:
         md_meta.sources["masses"] = "element masses of the topology"
-    frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
-                          velocity_kind=info.get("velocity_kind"), velocity_factor=info.get("velocity_factor", 1.0))
-    frames.offsets = info.get("offsets")
+    frames: MdtrajFrames | XdrFrames
+    if suf in (".xtc", ".trr"):
+        frames = XdrFrames(path, kind=suf, n_atoms=top.n_atoms, offsets=info["offsets"],
+                           time_ps=np.asarray(t, np.float64), velocities=info.get("velocity_kind") == "trr",
+                           precision_nm=_xtc_precision_nm(path) if suf == ".xtc" else None)
+    else:
+        frames = MdtrajFrames(path, top, n_frames=n, time_ps=np.asarray(t, np.float64), has_box=has_box,
+                              velocity_kind=info.get("velocity_kind"),
+                              velocity_factor=info.get("velocity_factor", 1.0))
     md_meta.sources["positions"] = path.name
     step = dcd_header_timestep(path) if suf == ".dcd" else None
     if step is not None:  # the integration step, not the frame spacing
         md_meta.timestep_ps = step[0]
         md_meta.sources["timestep_ps"] = f"{path.name} (header: DELTA, a frame every {step[1]} steps)"
-    if suf == ".xtc":
-        frames.positions_precision_nm = _xtc_precision_nm(path)
-        frames.positions_lossy = True
     if frames.has_velocities:
         md_meta.sources["velocities"] = path.name
     return Run(name=path.stem, paths=(path,) + ((top_path,) if top_path else ()), topology=top,

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from phasewake.core.errors import Cancelled, CorruptFileError
+from phasewake.core.errors import Cancelled, CorruptFileError, PhasewakeError
 from phasewake.core.model import parallel
 from phasewake.core.model.framepass import run_pass
 from phasewake.core.progress import CancelToken, drive
@@ -268,3 +268,28 @@ def test_every_consumer_over_two_workers_equals_the_serial_pass():
     np.testing.assert_allclose(par["v"].vacf, serial["v"].vacf, rtol=1e-9, atol=1e-12)
     assert par["p"].n_frames == serial["p"].n_frames == run.n_frames
     np.testing.assert_allclose(par["p"].eigenvalues, serial["p"].eigenvalues, rtol=1e-5)
+
+
+def test_an_xtc_run_travels_to_the_workers_and_is_not_opened_again(tmp_path):
+    # XTC frames are portable (path, offsets, clock): the workers read them without the topology file,
+    # which is gone by the time the pass runs; the result is still the serial pass's
+    xtc, pdb = make_xtc(tmp_path, n_frames=120)
+    run = open_run([xtc], topology=pdb)
+    sent = parallel.travelling(run, parallel.files_of(run))
+    assert sent.topology is None and sent.frames is run.frames and sent.paths == run.paths
+    pdb.unlink()
+    with chunking(frames=16):
+        got = drive(parallel.ranges_pass(run, {"s": FrameSums(), "b": FrameSums(atoms=(4, 2))}, workers=2))
+    _same(got["s"], _serial(run, frames=16))
+    _same(got["b"], _serial(run, frames=16, atoms=(4, 2)))
+
+
+def test_a_run_that_is_not_portable_is_opened_again_from_its_files(tmp_path):
+    dcd, pdb = tmp_path / "d.dcd", tmp_path / "d.pdb"
+    shutil.copy(SAMPLES / "dimer_nve.dcd", dcd)
+    shutil.copy(SAMPLES / "dimer_nve.pdb", pdb)
+    run = open_run([dcd], topology=pdb)
+    assert isinstance(parallel.travelling(run, parallel.files_of(run)), parallel.RunFiles)
+    pdb.unlink()  # the workers open the run again, so they need its topology file
+    with pytest.raises(PhasewakeError, match="d.pdb"), chunking(frames=64):
+        drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2))

@@ -108,7 +108,9 @@ def test_randomized_route_matches_exact():
     np.testing.assert_allclose(fast.eigenvalues, exact.eigenvalues, rtol=1e-4)
     overlap = np.abs(np.sum(fast.eigenvectors[:, :3] * exact.eigenvectors[:, :3], axis=0))
     np.testing.assert_allclose(overlap, 1.0, atol=1e-3)
-    np.testing.assert_allclose(fast.total_variance, exact.total_variance, rtol=1e-7)  # float32 products
+    # both routes form float32 products (float32 eps = 1.2e-7), in blocks whose sizes follow the chunk
+    # budget: they agree to a few float32 roundings, not below one (1.1e-7 apart was measured)
+    np.testing.assert_allclose(fast.total_variance, exact.total_variance, rtol=1e-6)
 
 
 def test_cosine_content_of_random_diffusion():
