@@ -69,11 +69,49 @@ def usable_cores() -> int:
 
 
 def set_workers(n: int | None) -> None:
-    """Worker processes for frame passes in this process (None: ``PHASEWAKE_WORKERS``, else automatic)."""
+    """Worker processes for frame passes in this process (None: ``PHASEWAKE_WORKERS``, else automatic).
+
+    Asking for more than one starts, in the background, the server the workers are forked from
+    (:func:`warm_up`), so its start overlaps the opening of the run."""
     if n is not None and int(n) < 1:
         raise InputError(f"the number of workers must be 1 or more, not {n}")
     global _workers
     _workers = None if n is None else int(n)
+    if (_workers if _workers is not None else _env_workers() or 1) > 1:
+        warm_up()
+
+
+def _context() -> Any:
+    """The multiprocessing context of the workers (their server preloads what every worker imports)."""
+    import multiprocessing as mp
+
+    ctx = mp.get_context(_START_METHOD)
+    if _START_METHOD == "forkserver":  # workers forked from a server that imported these once
+        ctx.set_forkserver_preload(["numpy", "mdtraj", "phasewake.core.model.parallel",
+                                    "phasewake.core.model.framepass", "phasewake.core.readers"])
+    return ctx
+
+
+def warm_up() -> None:
+    """Start the workers' fork server in a background thread and return at once.
+
+    The server imports numpy, mdtraj and phasewake's readers once (0.7-1 s on this machine); started
+    while the command line opens the run (parsing a large PDB takes as long), the first pass's workers
+    are then forked from a ready server instead of waiting for it. Nothing is started twice: the pool
+    waits on the same server (multiprocessing holds a lock around its start)."""
+    import threading
+
+    if _START_METHOD != "forkserver":
+        return
+
+    def start() -> None:
+        from multiprocessing import forkserver
+
+        _context()
+        with contextlib.suppress(Exception):  # a server that cannot start now fails the pool later, named
+            forkserver.ensure_running()
+
+    threading.Thread(target=start, name="phasewake-worker-server", daemon=True).start()
 
 
 def _env_workers() -> int | None:
@@ -204,6 +242,19 @@ def cut_ranges(start: int, stop: int, parts: int, *, align: int = 1) -> list[tup
 def mergeable(consumers: Mapping[str, Any]) -> bool:
     """Whether every consumer can fold a later consumer's partial state into its own (``merge``)."""
     return all(callable(getattr(c, "merge", None)) for c in consumers.values())
+
+
+# A partial state larger than this goes back from a worker once, not once per range (a PCA's covariance).
+LARGE_STATE_BYTES = 8 << 20
+
+
+def ranges_per_worker(consumers: Mapping[str, Any]) -> int:
+    """Frame ranges per worker: 2, so a worker that finishes early takes another's share, unless the
+    consumers' partial states are large (``state_bytes``, the exact PCA's d x d sums): then 1, since
+    every range's state is pickled back to the parent and added there (2 x 72 MB per worker for a PCA
+    of 1,000 atoms cost more than the balance saves)."""
+    size = sum(int(getattr(c, "state_bytes", 0)) for c in consumers.values())
+    return 1 if size > LARGE_STATE_BYTES else 2
 
 
 def before_parts(run: Run, consumers: Mapping[str, Any], start: int) -> None:
@@ -378,19 +429,15 @@ class ProcessRanges:
     """
 
     def __init__(self, workers: int, n_tasks: int, topologies: bytes = b"") -> None:
-        import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
 
-        from phasewake.core.settings import _chunk_mb
+        from phasewake.core.settings import chunk_budget_mb
 
-        ctx = mp.get_context(_START_METHOD)
-        if _START_METHOD == "forkserver":  # workers forked from a server that imported these once
-            ctx.set_forkserver_preload(["numpy", "mdtraj", "phasewake.core.model.parallel",
-                                        "phasewake.core.model.framepass", "phasewake.core.readers"])
+        ctx = _context()
         self.done = ctx.Array("q", max(1, n_tasks), lock=False)
         self.stop = ctx.Event()
         self.pool = ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_worker,
-                                        initargs=(self.done, self.stop, _chunk_mb, topologies))
+                                        initargs=(self.done, self.stop, chunk_budget_mb(), topologies))
         with _without_main():  # every worker starts here (one per submit while none is idle)
             for _ in range(workers):
                 self.pool.submit(int)
@@ -460,7 +507,7 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
         return (yield from cluster_pass(run, consumers, start=start_, stop=stop_, files=files))
     n = workers_for(run) if workers is None else max(1, int(workers))
     chunks = chunk_setting()  # every worker reads in the chunks a serial pass would (module docstring)
-    ranges = cut_ranges(start_, stop_, 2 * n, align=chunks[0])
+    ranges = cut_ranges(start_, stop_, ranges_per_worker(consumers) * n, align=chunks[0])
     if n <= 1 or len(ranges) < 2 or not mergeable(consumers):
         return (yield from run_pass(run, consumers, start=start_, stop=stop_, workers=1))
     files_ = travelling(run, files_of(run)) if files is None else files

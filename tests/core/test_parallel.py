@@ -293,3 +293,19 @@ def test_a_run_that_is_not_portable_is_opened_again_from_its_files(tmp_path):
     pdb.unlink()  # the workers open the run again, so they need its topology file
     with pytest.raises(PhasewakeError, match="d.pdb"), chunking(frames=64):
         drive(parallel.ranges_pass(run, {"s": FrameSums()}, workers=2))
+
+
+def test_a_consumer_with_a_large_state_gets_one_range_per_worker():
+    # the exact PCA of 1,000 atoms sends back a 3,000 x 3,000 float64 matrix (72 MB) per range; a
+    # coordinate sends a few bytes a frame
+    from phasewake.core.analyses.projection import PCAConsumer
+    from phasewake.core.readers.memory import run_from_arrays
+
+    rng = np.random.default_rng(0)
+    run = run_from_arrays(rng.standard_normal((10, 1000, 3)).astype(np.float32), np.arange(10.0), np.ones(1000))
+    big = PCAConsumer(run, n_components=3, method="exact")
+    assert big.state_bytes == 8 * 3000 * 3001
+    assert parallel.ranges_per_worker({"pca": big}) == 1
+    assert parallel.ranges_per_worker({"s": FrameSums()}) == 2
+    small = PCAConsumer(run, atom_indices=np.arange(20), n_components=3, method="exact")
+    assert parallel.ranges_per_worker({"pca": small, "s": FrameSums()}) == 2
