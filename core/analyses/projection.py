@@ -137,7 +137,6 @@ def _local_positions(columns: np.ndarray | None, idx: np.ndarray, n_atoms: int) 
     return pos.astype(np.int64)
 
 
-
 class PCAReduction:
     """The PCA of an atom group as a chunk reduction: ``prepare``, ``update(chunk)``, ``finish()``.
 
@@ -231,11 +230,8 @@ class PCAReduction:
         self._range = (int(start), int(stop))
 
     @property
-    def state_bytes(self) -> int:
-        """Bytes of the partial state a worker sends back for merging: the d x d sums of the exact route
-        (72 MB for 1,000 atoms), the d x l sketch of the randomized one."""
-        width = self.d if self.method == "exact" else (0 if self.omega0 is None else self.omega0.shape[1])
-        return 8 * self.d * (width + 1)
+    def state_bytes(self) -> int:  # sent back by a worker: the exact route's d x d sums, else the d x l sketch
+        return 8 * self.d * (1 + (self.d if self.omega0 is None else self.omega0.shape[1]))
 
     def group_positions(self, chunk: FrameChunk) -> np.ndarray:
         """The group's positions (m, g, 3) from a chunk of the pass."""
