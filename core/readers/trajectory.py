@@ -100,29 +100,61 @@ def claim_topology(path: Path) -> bool:
     return _suffix(path) in TOPOLOGY_SUFFIXES and _suffix(path) != ".h5"
 
 
-_TOPOLOGY_CACHE: dict[tuple[str, int, int], mdtraj.Topology] = {}
+# Parsed topologies, a few, keyed by the file's kind and content (replicas often carry copies of one
+# topology file, one per folder: one parse serves them all); and each file seen (path, size, modification
+# time) -> its content key, so an unchanged file is not read again to find it.
+_TOPOLOGY_CACHE: dict[tuple[str, str], mdtraj.Topology] = {}
 _TOPOLOGY_CACHE_SIZE = 8
+_CONTENT_OF_FILE: dict[tuple[str, int, int], tuple[str, str]] = {}
+_CONTENT_OF_FILE_SIZE = 4096
+
+
+def _file_key(p: Path) -> tuple[str, int, int]:
+    st = p.stat()
+    return (str(p.resolve()), st.st_size, st.st_mtime_ns)
+
+
+def _content_key(p: Path, fkey: tuple[str, int, int]) -> tuple[str, str]:
+    """(format, BLAKE2 digest of the bytes) of a topology file: hashing 1 MB costs ~1 ms, parsing the
+    PDB it holds ~0.5 s."""
+    import hashlib
+
+    got = _CONTENT_OF_FILE.get(fkey)
+    if got is None:
+        digest = hashlib.blake2b(digest_size=20)
+        with open(p, "rb") as fh:
+            while block := fh.read(1 << 20):
+                digest.update(block)
+        got = (_suffix(p), digest.hexdigest())
+        if len(_CONTENT_OF_FILE) >= _CONTENT_OF_FILE_SIZE:
+            _CONTENT_OF_FILE.pop(next(iter(_CONTENT_OF_FILE)))
+        _CONTENT_OF_FILE[fkey] = got
+    return got
+
+
+def _keep_topology(key: tuple[str, str], top: mdtraj.Topology) -> None:
+    if key not in _TOPOLOGY_CACHE and len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
+        _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
+    _TOPOLOGY_CACHE[key] = top
 
 
 def load_topology(path: str | Path) -> mdtraj.Topology:
     """A topology file through mdtraj (PDB, GRO, PSF, PRMTOP, mol2, ...).
 
-    Parsing a large PDB costs more than reading a whole DCD, so topologies are kept
-    (a few, keyed by path, size and modification time). The same object is returned: do not modify it.
+    Parsing a large PDB costs more than reading a whole DCD, so topologies are kept (a few, keyed by the
+    file's format and content: files with the same bytes share one parse). The same object is
+    returned: do not modify it.
     """
     import mdtraj as md
 
     p = Path(path)
     try:
-        st = p.stat()
-        key = (str(p.resolve()), st.st_size, st.st_mtime_ns)
+        key = _content_key(p, _file_key(p))
         if key in _TOPOLOGY_CACHE:
             return _TOPOLOGY_CACHE[key]
         with quiet_mdtraj():
             top = md.load_topology(str(p))
-        if len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
-            _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
-        _TOPOLOGY_CACHE[key] = top
+        _keep_topology(key, top)
         return top
     except (OSError, ValueError, KeyError, IndexError, TypeError, RuntimeError, struct.error,
             AssertionError) as exc:
@@ -133,27 +165,33 @@ def load_topology(path: str | Path) -> mdtraj.Topology:
         raise
 
 
-def topologies_for(paths: Sequence[str | Path]) -> dict[tuple[str, int, int], mdtraj.Topology]:
-    """The parsed topologies kept for these files (unchanged since): handed to worker processes
-    (:func:`seed_topologies`) so they need not parse a large PDB again."""
-    want = set()
+def forget_topologies() -> None:
+    """Drop every kept topology (a benchmark that times parsing; a test)."""
+    _TOPOLOGY_CACHE.clear()
+    _CONTENT_OF_FILE.clear()
+
+
+def topologies_for(paths: Sequence[str | Path]) -> dict[tuple[str, int, int], tuple[tuple[str, str], mdtraj.Topology]]:
+    """The parsed topologies kept for these files (unchanged since), with their content keys: handed to
+    worker processes (:func:`seed_topologies`) so they need not parse a large PDB again."""
+    found = {}
     for path in paths:
         try:
-            p = Path(path)
-            st = p.stat()
+            fkey = _file_key(Path(path))
         except OSError:
             continue
-        want.add((str(p.resolve()), st.st_size, st.st_mtime_ns))
-    return {k: v for k, v in _TOPOLOGY_CACHE.items() if k in want}
+        ckey = _CONTENT_OF_FILE.get(fkey)
+        if ckey is not None and ckey in _TOPOLOGY_CACHE:
+            found[fkey] = (ckey, _TOPOLOGY_CACHE[ckey])
+    return found
 
 
-def seed_topologies(found: dict[tuple[str, int, int], mdtraj.Topology]) -> None:
-    """Keep topologies parsed by another process (keyed by path, size and modification time, so a file
-    changed since is parsed afresh)."""
-    for key, top in found.items():
-        if len(_TOPOLOGY_CACHE) >= _TOPOLOGY_CACHE_SIZE:
-            _TOPOLOGY_CACHE.pop(next(iter(_TOPOLOGY_CACHE)))
-        _TOPOLOGY_CACHE[key] = top
+def seed_topologies(found: dict[tuple[str, int, int], tuple[tuple[str, str], mdtraj.Topology]]) -> None:
+    """Keep topologies parsed by another process (a file changed since has another size or modification
+    time, so it is read and parsed afresh)."""
+    for fkey, (ckey, top) in found.items():
+        _CONTENT_OF_FILE[fkey] = ckey
+        _keep_topology(ckey, top)
 
 
 def _close_files_of(exc: BaseException) -> None:

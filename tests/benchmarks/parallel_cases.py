@@ -92,12 +92,21 @@ def _warm(*paths: Path | None) -> None:
 def _fresh_topologies() -> None:
     from phasewake.core.readers import trajectory
 
-    trajectory._TOPOLOGY_CACHE.clear()
+    trajectory.forget_topologies()
 
 
 def _workers(n: int | None) -> None:
+    """Set the workers as ``--workers n`` does, from a process without a worker server yet: every timed
+    repetition then pays the server's start as a command does (overlapping the open, parallel.warm_up),
+    not only the first (the server would otherwise outlive the repetition; ``_stop`` is what
+    multiprocessing's own tests call)."""
+    from multiprocessing import forkserver
+
     from phasewake.core.model import parallel
 
+    stop = getattr(forkserver._forkserver, "_stop", None)
+    if stop is not None:
+        stop()
     parallel.set_workers(n)
 
 
@@ -179,6 +188,7 @@ def _phasewake_pca(xtc: Path, pdb: Path, n_atoms: int, workers: int) -> np.ndarr
     from phasewake.core.readers import open_run
 
     _fresh_topologies()
+    _workers(workers)
     with contextlib.redirect_stdout(io.StringIO()):
         run = open_run([xtc], topology=pdb)
     consumer = PCAConsumer(run, atom_indices=np.arange(n_atoms), n_components=10, fit=True, method="exact",
@@ -202,6 +212,7 @@ def pca_xtc_workers(full: bool, work: Path) -> Outcome:
     one = best_of(lambda: _phasewake_pca(xtc, pdb, s["pca_atoms"], 1), repeat=2)
     _warm(xtc, pdb)
     meas = best_of(lambda: _phasewake_pca(xtc, pdb, s["pca_atoms"], 2), repeat=2)
+    _workers(None)
     return finish(Outcome(
         name="pca_xtc_workers", what=f"10-component PCA of {s['pca_atoms']} atoms from an XTC, 2 workers",
         baseline="the user's script: mdtraj.load + superpose + scikit-learn PCA", measured_s=meas,
@@ -229,8 +240,9 @@ def _crossings(files: list[tuple[Path, Path]], workers: int):
 
     _fresh_topologies()
     _workers(workers)
+    top = files[0][1]  # one topology for the ensemble, as `phasewake crossings --replicas --top FILE` takes it
     with contextlib.redirect_stdout(io.StringIO()):
-        runs = [open_run([x], topology=p) for x, p in files]
+        runs = [open_run([x], topology=top) for x, _ in files]
     request = CrossingsRequest(coordinate="distance(0, 1)", states=(0.45, 0.55), surface=0.5, temperature_K=300.0,
                                replicas=tuple(runs[1:]))
     return drive(request.work(runs[0]))

@@ -6,6 +6,7 @@ import io
 import json
 import struct
 import warnings
+from pathlib import Path
 
 import h5py
 import mdtraj as md
@@ -15,6 +16,8 @@ import pytest
 from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
 from phasewake.core.readers import open_run
 from tests.helpers import amber_netcdf
+
+SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 
 N_ATOMS = 12
 N_FRAMES = 20
@@ -323,3 +326,24 @@ def test_trr_read_with_a_stride_and_some_atoms_is_the_full_read_thinned(start, s
     np.testing.assert_array_equal(np.concatenate([c.box_nm for c in chunks]),
                                   ref.unitcell_vectors[start::stride].astype(np.float64))
     assert [c.start for c in chunks][0] == start and sum(c.n_frames for c in chunks) == len(range(start, run.n_frames, stride))
+
+
+def test_copies_of_one_topology_share_a_parse_and_a_changed_file_is_parsed_again(tmp_path):
+    # replicas often carry a copy of the same topology file each: one parse serves them all (kept by
+    # content), while a file whose bytes differ, or that changed since, is parsed afresh
+    from phasewake.core.readers import trajectory
+
+    src = (SAMPLES / "dimer_nve.pdb").read_bytes()
+    paths = []
+    for k in range(3):
+        (tmp_path / f"r{k}").mkdir()
+        paths.append(tmp_path / f"r{k}" / "top.pdb")
+        paths[-1].write_bytes(src)
+    trajectory.forget_topologies()
+    tops = [trajectory.load_topology(p) for p in paths]
+    assert tops[0] is tops[1] is tops[2]
+    assert tops[0].n_atoms == md.load_topology(str(paths[0])).n_atoms
+    paths[2].write_bytes(src.replace(b"ATOM      1", b"HETATM    1", 1))  # other bytes, same size
+    changed = trajectory.load_topology(paths[2])
+    assert changed is not tops[0]
+    assert trajectory.load_topology(paths[0]) is tops[0]
