@@ -185,7 +185,7 @@ def check_output_path(path: str | Path, option: str, what: str = "") -> Path:
     """Refuse an output that cannot be written, before any analysis runs (InputError naming the option).
 
     An existing folder where a file is wanted, a folder on the way that is a file, a folder without
-    write permission (a missing folder is made by the writer where its parent permits). Writing itself stays with the atomic writer (core/atomic.py).
+    write permission (a missing folder is made by the writer where its parent permits). Writing itself stays with the atomic writer (core/store/atomic.py).
     """
     from phasewake.core.errors import InputError
 

@@ -15,7 +15,7 @@ dq/dt, effective mass and conjugate momentum p = m_eff dq/dt. ``--pca K`` adds t
 components of an atom group (and, with ``--momentum``, their momenta p_k = e_k . M^1/2 v), and a
 summary of eigenvalues, explained variance and cosine content.
 
-Coordinates (not the ``--pca`` table) are kept in the result cache (``phasewake cache``; folder
+Coordinates and the ``--pca`` components are kept in the result cache (``phasewake cache``; folder
 ``PHASEWAKE_CACHE_DIR``, off with ``PHASEWAKE_NO_CACHE=1``), keyed by the input files' identity and the
 settings: asking again for the same coordinates of an unchanged file reads no frames. ``--no-cache``
 computes afresh and stores nothing.
@@ -88,7 +88,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--start", type=int, default=0, metavar="N", help="first frame (0-based)")
     parser.add_argument("--stop", type=int, default=None, metavar="N", help="stop before this frame")
     parser.add_argument("--no-cache", action="store_true",
-                        help="compute the coordinates afresh; neither read nor write the result cache")
+                        help="compute the coordinates (and --pca) afresh; neither read nor write the result cache")
     parser.add_argument("-o", "--output", metavar="FILE", default=None,
                         help="write the table to FILE (.csv, or .h5md/.h5 for H5MD observables); "
                              "default: CSV on standard output")

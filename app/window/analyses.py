@@ -36,6 +36,7 @@ from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
 from phasewake.core.progress import Progress, Work, labelled
+from phasewake.core.readers.stated import stated_settings
 from phasewake.core.store import cached
 
 PANELS: tuple[str, ...] = ("Energy", "Phase space", "Correlation", "Sampling", "Crossings", "Landscape")
@@ -227,7 +228,8 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
     yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
-    res = yield from labelled(requested(run, AuditRequest()), "audit")  # the key shared_frames_job uses
+    # what the user stated, as the command line gives it (the same key as `phasewake audit`, shared_frames_job's)
+    res = yield from labelled(requested(run, AuditRequest(**stated_settings(run))), "audit")
     figs = plots.figures_for(res)
     return PanelResult(figures=tuple(figs), verdicts=tuple(res.verdicts), message=HEURISTIC_NOTE,
                        info={"audit": res})
@@ -287,7 +289,7 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     if (not cache.enabled or not run.paths or run.frames is None
             or ctx.start > 0 or ctx.stop < run.n_frames):
         return PanelResult()
-    requests: dict[str, AnalysisRequest] = {"audit": AuditRequest()}
+    requests: dict[str, AnalysisRequest] = {"audit": AuditRequest(**stated_settings(run))}
     if ctx.coordinate:
         requests["coordinate"] = CoordinatesRequest([ctx.coordinate])
     if run.n_atoms >= 2:

@@ -108,7 +108,7 @@ class AuditFramesConsumer:
     Kinetic energy per frame of all atoms and of every group, the centre-of-mass kinetic energy, the
     rigid-pair statistics for constraint inference (positions of the first 500 frames), the streaming
     velocity power spectrum (:class:`~phasewake.core.analyses.motion_spectrum.VelocitySpectrumAccumulator`) and speed
-    samples for the Maxwell-Boltzmann test. It follows the ``ChunkConsumer`` protocol of
+    samples for the Maxwell-Boltzmann test. It follows the ``FrameConsumer`` protocol of
     :mod:`phasewake.core.model.framepass`, so one frame pass can feed the audit together with other analyses;
     :func:`audit_run` drives this same consumer through ``framepass.run_pass``.
 

@@ -118,7 +118,7 @@ def worst(levels: list[Level]) -> Level:
 
 # ---------------------------------------------------------------------------------------------------
 # Ensemble, partial audits, restarts, temperature assumptions, equipartition severity (the audit's
-# judgement on real runs). The audit (core/audit.py) reads these; the user may override them here.
+# judgement on real runs). The audit (core/analyses/audit*.py) reads these; the user may override them here.
 # ---------------------------------------------------------------------------------------------------
 
 register(

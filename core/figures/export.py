@@ -10,7 +10,7 @@ page width are the presets of :mod:`phasewake.core.figures.presets`. Axis labels
 Every file carries its provenance (input files with their SHA-256, phasewake version, settings) in its
 metadata: PNG text chunks, the SVG ``<metadata>`` block (Dublin
 Core description) and the PDF information dictionary (Subject). Files are drawn in memory, then written
-atomically by ``core/atomic.py`` (a temporary file beside the target, then ``os.replace``).
+atomically by ``core/store/atomic.py`` (a temporary file beside the target, then ``os.replace``).
 """
 
 from __future__ import annotations
@@ -149,7 +149,7 @@ def _merged_provenance(spec: FigureSpec, provenance: Mapping[str, Any] | None) -
 
 
 # --------------------------------------------------------------------------------------------------
-# writing goes through the project's one atomic writer (core/atomic.py): figures are drawn into memory
+# writing goes through the project's one atomic writer (core/store/atomic.py): figures are drawn into memory
 # first, so a full disk meets a plain write (OutputError, the old file intact), never a half-drawn file
 
 

@@ -20,7 +20,7 @@ A consumer (:class:`FrameConsumer`) is a reduction over chunks of frames:
 
 Consumers keep what they need of the run as arrays (no Run, no open file), so they pickle after
 ``prepare``/``update``. Each lives beside its analysis (``analyses/coordinates.py``,
-``analyses/temperature.py``, ``analyses/velocity.py``, ``analyses/projection.py``, ``analyses/audit.py``);
+``analyses/group_kinetics.py``, ``analyses/velocity/``, ``analyses/projection.py``, ``analyses/audit_frames.py``, ...);
 this module is the engine only and imports no analysis.
 """
 

@@ -1,7 +1,7 @@
-"""Cached analyses: results kept in the result cache (``core/cache.py``) and rebuilt on the next request.
+"""Cached analyses: results kept in the result cache (``core/store/cache.py``) and rebuilt on the next request.
 
 :func:`cached_work` wraps any analysis generator (``Work[T]``) of a run: the first request computes and
-stores the result (through the codec of ``core/resultcodec.py``), a later request with the same key
+stores the result (through the codec of ``core/store/codec.py``), a later request with the same key
 reads no frames and returns an equal result. Only runs read from files are cached (``run.paths``
 non-empty); in-memory runs are always computed.
 

@@ -88,3 +88,29 @@ def test_no_cache_environment_turns_the_window_cache_off(tmp_path, cache_dir, mo
     ctx2, frames2 = _context(path, 0, 200)
     drive(analyses.PANEL_JOBS["Energy"](ctx2))
     assert frames.calls >= 1 and frames2.calls >= 1 and not cache_dir.exists()
+
+
+def test_energy_panel_of_a_run_with_a_stated_time_step_finds_the_audit_commands_entry(tmp_path, cache_dir, capsys):
+    # What a user states when opening (here the time step) reaches the audit request as on the command line
+    # (readers.stated.stated_settings), so the window's Energy panel is the command's audit: same cache key,
+    # no frame read, same verdicts.
+    import json
+
+    from phasewake.app.cli import main
+    from phasewake.app.window.model import RunSettings
+    from phasewake.core.store.cache import ResultCache
+
+    path = tmp_path / "dimer_nve.h5md"
+    shutil.copyfile(SAMPLES / "dimer_nve.h5md", path)
+    assert main(["audit", str(path), "--timestep", "2", "--json"]) in (0, 1)
+    printed = json.loads(capsys.readouterr().out)
+    run = open_run([path], **RunSettings(timestep_fs=2.0).overrides())
+    frames = CountingFrames(run.frames)
+    run = dataclasses.replace(run, frames=frames)
+    t = run.time_ps
+    ctx = analyses.AnalysisContext(run=run, start=0, stop=run.n_frames, window_ps=(float(t[0]), float(t[-1])),
+                                   coordinate="distance(0, 1)")
+    shown = drive(analyses.PANEL_JOBS["Energy"](ctx))
+    assert frames.calls == 0, "the window computed its own audit instead of finding the command's"
+    assert ResultCache().entries_by_analysis() == {"audit": 1}
+    assert [v.kind for v in shown.info["audit"].verdicts] == [v["kind"] for v in printed["verdicts"]]

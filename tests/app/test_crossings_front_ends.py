@@ -1,8 +1,9 @@
-"""The command line, the window's Crossings panel and the report build the same CrossingsRequest for the
-sample run dimer_langevin.h5md and get equal results: barrier heights, rates, counts, temperature.
+"""The command line, the window's Crossings panel, the report and the Python API build the same
+CrossingsRequest for the sample run dimer_langevin.h5md and get equal results: barrier heights, rates,
+counts, temperature.
 
 Each front end computes afresh (its own cache folder), so equal numbers come from equal requests, not from
-one reading the other's entry; a shared cache then holds a single crossings entry for all three (one key).
+one reading the other's entry; a shared cache then holds a single crossings entry for all four (one key).
 The numbers themselves are checked against outside references in tests/core/test_crossings*.py.
 """
 
@@ -71,7 +72,13 @@ def _report(path: Path) -> dict:
     return _numbers(res)
 
 
-def test_three_front_ends_build_one_request_and_agree(tmp_path, monkeypatch, capsys):
+def _python_api(path: Path) -> dict:
+    import phasewake as pw
+
+    return _numbers(pw.crossings(pw.open(path), COORD))
+
+
+def test_four_front_ends_build_one_request_and_agree(tmp_path, monkeypatch, capsys):
     from phasewake.core.store.cache import ResultCache
 
     path = tmp_path / "dimer_langevin.h5md"
@@ -79,19 +86,21 @@ def test_three_front_ends_build_one_request_and_agree(tmp_path, monkeypatch, cap
     monkeypatch.delenv("PHASEWAKE_NO_CACHE", raising=False)
     found = {}
     for name, front in (("command line", lambda: _command_line(path, capsys)), ("window", lambda: _window(path)),
-                        ("report", lambda: _report(path))):
+                        ("report", lambda: _report(path)), ("python api", lambda: _python_api(path))):
         monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / f"cache-{len(found)}"))
         found[name] = front()
     assert found["window"] == found["command line"]
     assert found["report"] == found["command line"]
+    assert found["python api"] == found["command line"]
     cli = found["command line"]
     assert cli["temperature_K"] == 120.0 and cli["jacobian"] == "none"  # the file's thermostat target
     assert cli["counts"][0] > 0 and cli["barrier_kT"][0] > 1.0
-    # one key: in one shared cache the three leave a single crossings entry
+    # one key: in one shared cache the four leave a single crossings entry
     monkeypatch.setenv("PHASEWAKE_CACHE_DIR", str(tmp_path / "shared"))
     _command_line(path, capsys)
     _window(path)
     _report(path)
+    _python_api(path)
     assert ResultCache().entries_by_analysis().get("crossings") == 1
 
 

@@ -102,7 +102,7 @@ def test_explanations_of_numbers_are_complete_and_cite_their_method():
     for k in numbers:
         text = explain.explanation_text(k)
         assert text.count("\n") == 4, k  # title + four parts
-    # papers named beside the methods (the references of core/correlation.py, crossings.py, velocity.py)
+    # papers named beside the methods (the references of core/analyses/correlation/, crossings/, velocity/)
     assert "Sokal" in EXPLANATIONS["number.statistical_inefficiency"].method
     assert "Flyvbjerg" in EXPLANATIONS["number.block_sem"].method
     assert "Yeh" in EXPLANATIONS["number.diffusion"].method

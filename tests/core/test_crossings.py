@@ -21,6 +21,7 @@ from phasewake.core.analyses.crossings import (
 from phasewake.core.analyses.verdicts import EXPLANATIONS, THRESHOLDS
 from phasewake.core.errors import AnalysisError
 from phasewake.core.progress import Progress, drive
+from tests.core.test_crossings_scan import reference
 
 sys.path.insert(0, str(Path(__file__).parent))
 from langevin_models import baoab_double_well, brownian_double_well  # noqa: E402
@@ -463,44 +464,6 @@ def test_periodic_coordinate_wraps_are_not_crossings():
     assert len(naive.events) > len(r.events)
 
 
-def _reference_events(q: np.ndarray, a_hi: float, b_lo: float, qs: float):
-    """The definitions written as plain per-frame loops (slow, obvious): kinds, from/to states, counts."""
-    n = q.size
-    core = np.where(q <= a_hi, 0, np.where(q >= b_lo, 1, -1))
-    committed = np.empty(n, int)
-    state = -1
-    n_ab = n_ba = 0
-    for i in range(n):
-        if core[i] >= 0 and core[i] != state:
-            if state == 0:
-                n_ab += 1
-            elif state == 1:
-                n_ba += 1
-            state = core[i]
-        committed[i] = state
-    side = q >= qs
-    cross = [i for i in range(1, n) if side[i] != side[i - 1]]
-    kinds, froms, tos = [], [], []
-    for k, i in enumerate(cross):
-        nxt = cross[k + 1] if k + 1 < len(cross) else n
-        frm = committed[i - 1]
-        first_core = next((j for j in range(i, n) if core[j] >= 0), None)
-        to = -1 if first_core is None else core[first_core]
-        hit = first_core is not None and first_core < nxt
-        if frm < 0:
-            kind = "censored"
-        elif hit and to != frm:
-            kind = "transition"
-        elif first_core is None and nxt == n:
-            kind = "censored"
-        else:
-            kind = "recrossing"
-        kinds.append(kind)
-        froms.append("AB"[frm] if frm >= 0 else "")
-        tos.append("AB"[to] if to >= 0 else "")
-    return n_ab, n_ba, kinds, froms, tos, committed
-
-
 @pytest.mark.parametrize("seed", range(12))
 def test_vectorised_kernel_matches_plain_loops_on_random_signals(seed):
     rng = np.random.default_rng(100 + seed)
@@ -515,7 +478,10 @@ def test_vectorised_kernel_matches_plain_loops_on_random_signals(seed):
     qs = float(rng.uniform(a_hi + 0.01, b_lo - 0.01))
     t = np.cumsum(rng.uniform(0.5, 1.5, n))
     r = analyse_crossings(t, q, states=(a_hi, b_lo), surface=qs, kappa_time_series=False, test_dwells=False)
-    n_ab, n_ba, kinds, froms, tos, committed = _reference_events(q, a_hi, b_lo, qs)
+    ref = reference(q, a_hi=a_hi, b_lo=b_lo, surface=qs)  # the definitions as plain per-frame loops
+    n_ab = sum(1 for path in ref["paths"] if path[0] == "A")
+    n_ba = sum(1 for path in ref["paths"] if path[0] == "B")
+    kinds, froms, tos, committed = ref["kinds"], ref["from"], ref["to"], ref["states"]
     assert r.rate_ab.n_transitions == n_ab and r.rate_ba.n_transitions == n_ba
     assert list(r.events["kind"]) == kinds
     assert list(r.events["from_state"]) == froms

@@ -20,13 +20,14 @@ from phasewake.core.progress import result_of
 A_HI, B_LO, SURF = -0.5, 0.5, 0.0
 
 
-def reference(q: np.ndarray) -> dict[str, list]:
-    """Crossings, kinds, paths and dwells by a per-sample Python loop (slow, obvious)."""
+def reference(q: np.ndarray, *, a_hi: float = A_HI, b_lo: float = B_LO, surface: float = SURF) -> dict[str, list]:
+    """Crossings, kinds, paths and dwells by a per-sample Python loop (slow, obvious); core A is
+    q <= a_hi, core B is q >= b_lo, the dividing surface q = surface."""
     n = len(q)
     qs = [float(x) for x in q]
 
     def core(x: float) -> int:
-        return 0 if x <= A_HI else (1 if x >= B_LO else -1)
+        return 0 if x <= a_hi else (1 if x >= b_lo else -1)
 
     state = []
     s = -1
@@ -35,7 +36,7 @@ def reference(q: np.ndarray) -> dict[str, list]:
         if c >= 0:
             s = c
         state.append(s)
-    cross = [i for i in range(1, n) if (qs[i - 1] >= SURF) != (qs[i] >= SURF)]
+    cross = [i for i in range(1, n) if (qs[i - 1] >= surface) != (qs[i] >= surface)]
     kinds, frm, to, direction, frames = [], [], [], [], []
     for j, c in enumerate(cross):
         nxt = cross[j + 1] if j + 1 < len(cross) else None
@@ -56,7 +57,7 @@ def reference(q: np.ndarray) -> dict[str, list]:
         frm.append("AB"[origin] if origin >= 0 else "")
         to.append("AB"[dest] if dest >= 0 else "")
         direction.append(1 if qs[c] > qs[c - 1] else -1)
-        f = (SURF - qs[c - 1]) / (qs[c] - qs[c - 1])
+        f = (surface - qs[c - 1]) / (qs[c] - qs[c - 1])
         frames.append(c - 1 + (1 if f >= 0.5 else 0))
     changes = [i for i in range(n) if state[i] >= 0 and (i == 0 or state[i] != state[i - 1])]
     paths = []

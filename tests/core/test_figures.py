@@ -3,7 +3,7 @@ matplotlib draws with the same data ranges as FigureSpec.data_ranges().
 
 Outside references: matplotlib's own record of what it drew (Axes.dataLim); numpy for the expected
 data; the Okabe and Ito (2008) palette as published (hex values from memory of the paper's table,
-the same as in core/figures.py's comment).
+the same as in core/figures/spec.py's comment).
 """
 
 import numpy as np

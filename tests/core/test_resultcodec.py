@@ -1,4 +1,4 @@
-"""The result codec (core/resultcodec.py): real analysis results survive a cache entry field for field.
+"""The result codec (core/store/codec.py): real analysis results survive a cache entry field for field.
 
 The reference for every round trip is the object itself (the analyses' numbers are checked against
 outside references in their own test files); here we check that what comes back from an HDF5 entry
