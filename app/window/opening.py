@@ -20,12 +20,12 @@ Opener = Callable[[Sequence[str], str | None, RunSettings], Run]
 
 
 def default_opener(paths: Sequence[str], topology: str | None, settings: RunSettings) -> Run:
-    """Open a run through the reader registry, keeping library chatter off stdout."""
-    from phasewake.app.common import quiet_stdout
-    from phasewake.core.readers import open_run
+    """Open a run through the reader registry with what the user stated, as the command line does
+    (library chatter kept off stdout; the files and options noted for worker processes, which open
+    the run again with them)."""
+    from phasewake.core.readers.stated import open_stated
 
-    with quiet_stdout():
-        return open_run(list(paths), topology=topology, **settings.overrides())
+    return open_stated(list(paths), topology=topology, options=settings.overrides())
 
 
 class RunOpening:

@@ -166,3 +166,17 @@ def test_a_script_without_a_main_guard_can_use_workers(tmp_path):
     done = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, env=env, timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split("\n")[:2] == ["top level ran", "frames 64"]
+
+
+def test_the_window_notes_what_the_user_stated_for_the_workers():
+    # a worker that opens a run again (a DCD) must open it as the window did, with the stated time step
+    from phasewake.app.window.model import RunSettings
+    from phasewake.app.window.opening import default_opener
+
+    samples = Path(__file__).resolve().parents[2] / "sample_data"
+    settings = RunSettings(timestep_fs=1.5, temperature_K=290.0)
+    run = default_opener([str(samples / "dimer_nve.dcd")], str(samples / "dimer_nve.pdb"), settings)
+    files = parallel.files_of(run)
+    assert dict(files.options) == settings.overrides() and files.topology == str(samples / "dimer_nve.pdb")
+    again = files.open()
+    assert again.metadata.timestep_ps == run.metadata.timestep_ps == pytest.approx(0.0015)
