@@ -228,6 +228,40 @@ def test_long_computation_keeps_window_responsive_and_cancels(win, qtbot, monkey
     assert not w.jobs.busy
 
 
+@pytest.mark.slow  # worker processes: ~1 s of CPU
+def test_a_pass_over_two_workers_shows_their_merged_progress_and_cancel_stops_them(win, qtbot, monkeypatch,
+                                                                                  tmp_path):
+    import multiprocessing
+
+    from phasewake.core.model import parallel
+    from phasewake.core.readers import open_run
+    from phasewake.core.settings import chunking
+    from tests.core.test_parallel import make_xtc
+    from tests.parallel_consumers import FrameSums
+
+    w = win
+    xtc, pdb = make_xtc(tmp_path, n_frames=400)
+    run = open_run([xtc], topology=pdb)
+
+    def over_workers(ctx):
+        with chunking(frames=4):  # 100 chunks of 0.05 s: 5 s serially, 2.5 s over two workers
+            yield from parallel.ranges_pass(run, {"s": FrameSums(pause_s=0.05)}, workers=2)
+        return analyses.PanelResult(message="finished")
+
+    monkeypatch.setitem(analyses.PANEL_JOBS, "Correlation", over_workers)
+    w.schedule_recompute(["Correlation"])
+    qtbot.waitUntil(lambda: "Correlation" in w.jobs.running(), timeout=3000)
+    # the bar moves with the frames done in both workers together (never the indefinite busy bar only)
+    qtbot.waitUntil(lambda: w.progress.maximum() == 1000 and 0 < w.progress.value() < 1000, timeout=20_000)
+    workers = multiprocessing.active_children()
+    assert len(workers) >= 2
+    qtbot.mouseClick(w.cancel_button, QtCore.Qt.MouseButton.LeftButton)
+    assert w.jobs.wait_all(20_000)
+    panel = w.panels["Correlation"]
+    assert "cancelled" in panel.view.message.text() or "cancelled" in panel.notes_text()
+    assert not [p for p in workers if p.is_alive()]
+
+
 def test_bad_file_shows_a_message_and_window_stays_usable(qtbot, tmp_path, sample_path):
     w = _window(qtbot, tmp_path)
     bad = tmp_path / "broken.h5md"
