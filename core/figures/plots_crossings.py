@@ -138,6 +138,9 @@ def crossings_summary_rows(result: Any) -> list[tuple[str, str]]:
     rows.append(("Transmission coefficient", f"κ = {result.kappa.plateau:.3g} (reactive flux), "
                  f"{result.kappa.counting:.3g} (counting)"))
     if result.tst is not None:
-        rows.append(("κ from rates / TST", f"A→B {result.tst.kappa_up:.3g}, B→A {result.tst.kappa_down:.3g}"))
+        t = result.tst.tst
+        why = "" if t.rate_up_per_ps > 0 and t.rate_down_per_ps > 0 else " (k_TST = 0: no sample in the band at the surface)"
+        rows.append(("κ from rates / TST", f"A→B {fmt_number(result.tst.kappa_up)}, "
+                     f"B→A {fmt_number(result.tst.kappa_down)}{why}"))
     rows.append(("Velocities at crossings", result.velocity_source))
     return rows

@@ -263,3 +263,19 @@ def test_landscape_states_marks_can_be_dragged_and_profile_is_minus_kT_ln_p(resu
     ref = -KB * 120.0 * np.log(counts[ok] / np.diff(prof.edges)[ok])
     ref -= ref.min()
     np.testing.assert_allclose(np.asarray(line.y)[ok], ref, atol=1e-6)
+
+
+def test_kappa_from_rates_is_not_a_number_to_read_when_no_sample_lies_at_the_surface():
+    # A two-state series that hops from 0.40 to 0.60 nm between frames is never sampled at the surface:
+    # the TST rate (flux factor x density at q*) is then 0 by its definition, and k/k_TST has no value;
+    # the table says so instead of printing "nan"
+    from phasewake.core.analyses.crossings.pooled import analyse_crossings
+    from phasewake.core.figures.plots_crossings import crossings_summary_rows
+
+    rng = np.random.default_rng(1)
+    n = 4000
+    q = np.where((np.arange(n) // 37) % 2 == 0, 0.40, 0.60) + 0.005 * rng.standard_normal(n)
+    r = analyse_crossings(np.arange(n) * 0.1, q, states=(0.45, 0.55), surface=0.5, unit="nm", kT_over_m_eff=1.0)
+    assert r.tst.tst.rate_up_per_ps == 0.0 and r.tst.tst.n_at_surface == 0
+    row = dict(crossings_summary_rows(r))["κ from rates / TST"]
+    assert "nan" not in row and "n/a" in row and "k_TST = 0" in row
