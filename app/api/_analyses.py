@@ -573,14 +573,16 @@ def crossings(runs: Run | Sequence[Run], coordinate: str, *, states: tuple[float
     return result
 
 
-def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: bool = False,
+def report(run: Run | Sequence[Run], path: str | Path, *, coordinate: str | None = None, html: bool = False,
            states: tuple[float, float] | None = None, surface: float | None = None, cache: bool = True,
            progress: ProgressCallback | None = None) -> ReportResult:
     """Write a multi-page PDF report of a run, with captions, for a group meeting (``phasewake report``).
 
     Parameters
     ----------
-    run : Run
+    run : Run or list of Run
+        One run, or replicas of one system (``phasewake report --replicas``): the first run's pages,
+        the crossings pooled over all of them and a page with one row per replica.
     path : str or Path
         The PDF to write (atomically; never over an input file).
     coordinate : str, optional
@@ -610,15 +612,20 @@ def report(run: Run, path: str | Path, *, coordinate: str | None = None, html: b
     """
     from phasewake.core.analyses.coordinates import stated_coordinate
     from phasewake.core.analyses.crossings.states import stated_states
+    from phasewake.core.errors import InputError
     from phasewake.core.figures.report import build_report, report_targets
+    from phasewake.core.model.run import Run
     from phasewake.core.readers.stated import stated_settings
 
-    run = _run_of(run, "pw.report")
-    out, html_path = report_targets(path, html=html, inputs=run.paths)
+    runs = [_run_of(run, "pw.report")] if isinstance(run, Run) else [_run_of(r, "pw.report") for r in run]
+    if not runs:
+        raise InputError("pw.report: no run given")
+    run, replicas = runs[0], runs[1:]
+    out, html_path = report_targets(path, html=html, inputs=tuple(p for r in runs for p in r.paths))
     states = stated_states(states, surface, option="states", surface_option="surface")
     if coordinate is not None:
         stated_coordinate(coordinate, run, option="coordinate")
     work = build_report(run, out, coordinate=coordinate, html_path=html_path, **stated_settings(run), states=states,
-                        surface=surface, cache=_cache(cache))
+                        surface=surface, cache=_cache(cache), replicas=replicas)
     result: ReportResult = _drive(work, progress)
     return result

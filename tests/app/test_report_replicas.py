@@ -117,6 +117,16 @@ def test_report_table_equals_the_crossings_commands_rows(replica_files, tmp_path
 
     text = " ".join(p.extract_text() for p in PdfReader(pdf).pages)
     assert "Barrier crossings: per replica" in text and "Replica ensemble: 3 runs" in text
+    # pw.report of the same runs builds the same requests: the same per-replica table, no frame read
+    import phasewake as pw
+
+    api_pdf = tmp_path / "api.pdf"
+    reads = h5md_reads["n"]
+    done = pw.report([pw.open(f) for f in replica_files], api_pdf, coordinate=COORD, html=True)
+    assert done.path == api_pdf and h5md_reads["n"] == reads
+    api = _Sections()
+    api.feed(api_pdf.with_suffix(".html").read_text(encoding="utf-8"))
+    assert api.sections["Barrier crossings: per replica"] == table
 
 
 @pytest.mark.slow
