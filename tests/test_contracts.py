@@ -23,15 +23,10 @@ from pathlib import Path
 import pytest
 
 # Imports that close an import cycle today (importer -> imported); each is to go.
-KNOWN_CYCLE_IMPORTS = (
-    "core.model.framepass -> core.model.parallel",
-    "core.model.parallel -> core.model.cluster",
-)
+KNOWN_CYCLE_IMPORTS = ()
 
 # Imports against the layering today (importer -> imported); each is to go.
-KNOWN_LAYER_BREACHES = (
-    "core.model.parallel -> core.analyses.coordinates",
-)
+KNOWN_LAYER_BREACHES = ()
 
 # Modules over MAX_MODULE_LINES today: path -> lines (a ceiling: may only shrink).
 KNOWN_LONG_MODULES: dict[str, int] = {}

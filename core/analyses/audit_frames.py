@@ -21,7 +21,8 @@ from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.analyses.ensemble import is_thermostatted
 from phasewake.core.errors import AnalysisError, MissingDataError
-from phasewake.core.model.framepass import check_next, run_pass
+from phasewake.core.model.feeding import check_next
+from phasewake.core.model.framepass import run_pass
 from phasewake.core.model.run import FrameChunk, Run
 from phasewake.core.progress import Progress, Work, result_of
 

@@ -137,7 +137,7 @@ class _PositionSample:
         self.box: list[np.ndarray] = []
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        from phasewake.core.model.framepass import local_columns
+        from phasewake.core.model.feeding import local_columns
 
         self._local = local_columns(columns, self.want)
 
@@ -161,7 +161,7 @@ class _PositionSample:
 def _sample_positions(run: Run, atoms: np.ndarray, max_frames: int) -> tuple[np.ndarray, np.ndarray | None] | None:
     """Positions (F, len(atoms), 3) of at most ``max_frames`` frames spread over the run, and the box."""
     from phasewake.core.errors import PhasewakeError
-    from phasewake.core.model.framepass import feed
+    from phasewake.core.model.feeding import feed
 
     if run.frames is None or run.n_frames < 1:
         return None

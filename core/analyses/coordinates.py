@@ -195,7 +195,7 @@ class CoordinatesConsumer:
         self._range = (0, 0)
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        from phasewake.core.model.framepass import local_columns
+        from phasewake.core.model.feeding import local_columns
 
         self._range = (start, stop)
         self._remap = [replace(r, groups=tuple(local_columns(columns, np.asarray(g, dtype=np.int64))
@@ -218,7 +218,7 @@ class CoordinatesConsumer:
                 self._meff[k].append(me)
 
     def merge(self, later: CoordinatesConsumer) -> None:
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "coordinates")
         if [r.spec for r in later.resolved] != [r.spec for r in self.resolved]:
@@ -276,7 +276,8 @@ def compute_coordinates(
     ------
     CoordinateSpecError for bad specifications; MissingDataError when the run has no frames.
     """
-    from phasewake.core.model.framepass import frame_range, run_one
+    from phasewake.core.model.feeding import frame_range
+    from phasewake.core.model.framepass import run_one
 
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=run.paths[0] if run.paths else None)

@@ -198,7 +198,7 @@ class KineticEnergySeries:
         self._held: list[np.ndarray] | None = None  # a later part's per-atom energies, fed in at the merge
 
     def prepare(self, columns: np.ndarray | None, *, start: int, stop: int, chunk_frames: int) -> None:
-        from phasewake.core.model.framepass import local_columns
+        from phasewake.core.model.feeding import local_columns
 
         self._local = local_columns(columns, self.want)
         self._range = (int(start), int(stop))
@@ -216,7 +216,7 @@ class KineticEnergySeries:
             self.acc.update(energies)
 
     def merge(self, later: KineticEnergySeries) -> None:
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "Thirumalai-Mountain metric")
         if later._held is None:

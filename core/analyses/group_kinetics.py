@@ -120,7 +120,7 @@ class GroupTemperatureConsumer:
         self._com.append(np.einsum("fi,fi->f", p, p) / (2.0 * self._mtot))
 
     def merge(self, later: GroupTemperatureConsumer) -> None:
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "group temperatures")
         if list(later.group_atoms) != list(self.group_atoms) or later.n_com != self.n_com:

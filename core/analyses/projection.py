@@ -153,7 +153,7 @@ class PCAReduction:
 
     ``finish()`` returns a :class:`PCAResult` without projections (they need the eigenvectors, so a second
     pass: :class:`PCAProjection`). Attributes ``atoms``, ``needs_positions``, ``needs_velocities`` follow
-    the ``framepass.FrameConsumer`` protocol.
+    the ``feeding.FrameConsumer`` protocol.
     """
 
     needs_positions = True
@@ -270,7 +270,7 @@ class PCAReduction:
 
     def merge(self, later: PCAReduction) -> None:
         """Fold in the sums of the frames right after these (see the class docstring)."""
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "PCA")
         if later.acc is None:
@@ -394,7 +394,7 @@ class PCAProjection:
 
     def merge(self, later: PCAProjection) -> None:
         """Append the projections of the frames right after these (per frame: exact)."""
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "PCA projections")
         self._q += later._q
@@ -437,7 +437,7 @@ def compute_pca(
 
     The passes are :class:`PCAReduction` (covariance or sketch), ``n_iter`` more sketch passes for the
     randomized subspace iteration, and :class:`PCAProjection` when ``projections``; each reads the frames
-    once through ``framepass.feed`` (the loop of ``framepass.run_pass``).
+    once through ``feeding.feed`` (the loop of ``framepass.run_pass``).
 
     Parameters
     ----------
@@ -459,7 +459,7 @@ def compute_pca(
         "float64"
     projections : also make a second pass for q_k(t), p_k(t) and the cosine content (fitted in float64)
     """
-    from phasewake.core.model.framepass import feed
+    from phasewake.core.model.feeding import feed
 
     if run.frames is None:
         raise MissingDataError("the run has no frames (positions)", path=_path(run))
@@ -496,7 +496,7 @@ def _subspace_iteration(run: Run, red: PCAReduction, read: dict[str, Any], n_ext
                         total_work: float) -> Work[PCAResult]:
     """``n_extra`` more sketch passes after the first (Halko et al. 2011, Alg. 4.4), Rayleigh-Ritz at the end
     (Alg. 5.3)."""
-    from phasewake.core.model.framepass import feed
+    from phasewake.core.model.feeding import feed
 
     acc = red.acc
     assert acc is not None

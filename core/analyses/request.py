@@ -21,7 +21,7 @@ from typing import TYPE_CHECKING, Any, ClassVar
 import numpy as np
 
 if TYPE_CHECKING:
-    from phasewake.core.model.framepass import FrameConsumer
+    from phasewake.core.model.feeding import FrameConsumer
     from phasewake.core.model.run import Run
     from phasewake.core.progress import Work
 

@@ -7,7 +7,7 @@ tasks: phasewake starts no scheduler and no workers of its own. Someone starts t
 machine"); the workers must see the input files at the same paths and run the same phasewake version.
 
 A run whose frame source is portable (XTC, TRR) travels to the workers as it is, without its topology
-(:func:`phasewake.core.model.parallel.travelling`); any other is opened on the worker from its files,
+(:func:`phasewake.core.model.ranges.travelling`); any other is opened on the worker from its files,
 and each worker keeps the last run it opened (a second range of the same run does not open it again).
 Progress counts the frames of finished ranges (the ranges are smaller than on one machine, four per
 worker, so the bar moves often); cancelling releases every task and asks running ones to stop at their
@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING, Any
 from urllib.parse import urlsplit
 
 from phasewake.core.errors import Cancelled, InputError, PhasewakeError
-from phasewake.core.model import parallel
+from phasewake.core.model import ranges
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -119,15 +119,15 @@ def _stop_check(job: str) -> Any:
     return check
 
 
-def range_task(job: str, files: Run | parallel.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
+def range_task(job: str, files: Run | ranges.RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
                chunks: tuple[int, float]) -> dict[str, Any]:
-    """One frame range on a Dask worker (see :func:`phasewake.core.model.parallel.read_range`)."""
+    """One frame range on a Dask worker (see :func:`phasewake.core.model.ranges.read_range`)."""
     check = _stop_check(job)
     try:
-        run = parallel.worker_run(files)  # as it travelled, or opened once per worker from its files
-        return parallel.read_range(run, consumers, start, stop, chunks, lambda n: check())
+        run = ranges.worker_run(files)  # as it travelled, or opened once per worker from its files
+        return ranges.read_range(run, consumers, start, stop, chunks, lambda n: check())
     except PhasewakeError as exc:
-        raise parallel.carry(exc) from None
+        raise ranges.carry(exc) from None
 
 
 def call_task(job: str, fn: Any, args: Sequence[Any]) -> Any:
@@ -136,7 +136,7 @@ def call_task(job: str, fn: Any, args: Sequence[Any]) -> Any:
     try:
         return fn(*args)
     except PhasewakeError as exc:
-        raise parallel.carry(exc) from None
+        raise ranges.carry(exc) from None
 
 
 # ------------------------------------------------------------------------------------------ client side
@@ -155,7 +155,7 @@ def _follow(cl: Any, job: str, futures: list[Any], weights: Sequence[float], tot
             for k, f in enumerate(futures):
                 if not done[k] and f.done():
                     if f.status == "error":
-                        parallel.reraise(f.exception())
+                        ranges.reraise(f.exception())
                     done[k] = True
             yield Progress(sum(w for w, d in zip(weights, done) if d), total, label)
         return [f.result() for f in futures]
@@ -166,7 +166,7 @@ def _follow(cl: Any, job: str, futures: list[Any], weights: Sequence[float], tot
 
 
 def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: int,
-                 files: parallel.RunFiles | None = None, cl: Any = None) -> Work[dict[str, Any]]:
+                 files: ranges.RunFiles | None = None, cl: Any = None) -> Work[dict[str, Any]]:
     """:func:`phasewake.core.model.parallel.ranges_pass` with the ranges run by Dask workers (in this
     process's chunks and chunk budget, :func:`phasewake.core.settings.chunk_setting`)."""
     from phasewake.core.settings import chunk_setting
@@ -174,16 +174,16 @@ def cluster_pass(run: Run, consumers: Mapping[str, Any], *, start: int, stop: in
     cl = cl if cl is not None else _client
     if cl is None:
         raise InputError("no Dask scheduler set (--scheduler ADDRESS)")
-    files_ = parallel.travelling(run, parallel.files_of(run)) if files is None else files
+    files_ = ranges.travelling(run, ranges.files_of(run)) if files is None else files
     chunks = chunk_setting()
-    ranges = parallel.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunks[0])
-    parallel.before_parts(run, consumers, start)
+    cuts = ranges.cut_ranges(start, stop, RANGES_PER_WORKER * n_workers(cl), align=chunks[0])
+    ranges.before_parts(run, consumers, start)
     job = f"phasewake-{uuid.uuid4().hex}"
     futures = [cl.submit(range_task, job, files_, consumers, a, b, chunks, pure=False)
-               for a, b in ranges]
-    label = f"one pass on the Dask cluster ({len(ranges)} ranges): " + ", ".join(consumers)
-    parts = yield from _follow(cl, job, futures, [b - a for a, b in ranges], stop - start, label)
-    merged = parallel.merge_in_order(parts)
+               for a, b in cuts]
+    label = f"one pass on the Dask cluster ({len(cuts)} ranges): " + ", ".join(consumers)
+    parts = yield from _follow(cl, job, futures, [b - a for a, b in cuts], stop - start, label)
+    merged = ranges.merge_in_order(parts)
     return {name: c.finish() for name, c in merged.items()}
 
 

@@ -9,12 +9,13 @@ Each range runs the consumers in a worker process:
 
 * a run whose frame source is *portable* (XTC and TRR: a path, the frame offsets and the clock; and
   wrappers over them) travels to the worker as it is, without its topology and energies
-  (:func:`travelling`): the worker opens nothing but the file's frames;
-* any other run is opened again in the worker from its files and options (:class:`RunFiles`; nothing
-  open is pickled), kept for the next range it gets; the parent's parsed topologies go along once per
-  worker, so a 20,000-atom PDB is not parsed again in every process;
+  (:func:`phasewake.core.model.ranges.travelling`): the worker opens nothing but the file's frames;
+* any other run is opened again in the worker from its files and options
+  (:class:`~phasewake.core.model.ranges.RunFiles`; nothing open is pickled), kept for the next range it
+  gets; the parent's parsed topologies go along once per worker, so a 20,000-atom PDB is not parsed
+  again in every process;
 * the consumers, built in the parent from the parent's run, travel unprepared; the worker prepares them
-  for its range, feeds them every chunk (:func:`phasewake.core.model.framepass.feed`) and sends them
+  for its range, feeds them every chunk (:func:`phasewake.core.model.feeding.feed`) and sends them
   back with their partial state;
 * the parent folds them in frame order with ``consumer.merge(later)`` and calls ``finish()`` once, so the
   result is the serial pass's (counts exactly, sums to floating-point rounding).
@@ -28,8 +29,8 @@ are told to stop and nothing is returned.
 Workers ignore SIGINT: Ctrl-C reaches the whole process group, and the parent alone decides (through
 :mod:`phasewake.core.interrupts`) to stop them, so no worker prints a traceback.
 
-The same ranges go to a running Dask scheduler with :func:`phasewake.core.model.cluster.cluster_pass`
-(``--scheduler``).
+What a range's work needs wherever it runs is in :mod:`phasewake.core.model.ranges`; the same ranges go
+to a running Dask scheduler with :func:`phasewake.core.model.cluster.cluster_pass` (``--scheduler``).
 """
 
 from __future__ import annotations
@@ -38,13 +39,26 @@ import contextlib
 import os
 import pickle
 import signal
-import weakref
 from collections.abc import Callable, Iterator, Mapping, Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from phasewake.core.errors import AnalysisError, Cancelled, InputError, PhasewakeError
+from phasewake.core.errors import Cancelled, InputError, PhasewakeError
+from phasewake.core.model.ranges import (
+    RunFiles,
+    before_parts,
+    carry,
+    cut_ranges,
+    files_of,
+    has_files,
+    merge_in_order,
+    mergeable,
+    ranges_per_worker,
+    read_range,
+    reraise,
+    travelling,
+    worker_run,
+)
 from phasewake.core.progress import Progress, Work
 
 if TYPE_CHECKING:
@@ -156,7 +170,7 @@ def parallel_wanted(run: Run, consumers: Mapping[str, Any], start: int, stop: in
     """Whether :func:`~phasewake.core.model.framepass.run_pass` should go through :func:`ranges_pass`:
     more than one worker (asked for, or automatic on a large decode-bound pass), consumers that merge,
     and files to open again."""
-    if not mergeable(consumers) or not (run.paths or id(run) in _files_of) or workers == 1:
+    if not mergeable(consumers) or not has_files(run) or workers == 1:
         return False
     if _on_cluster():
         return True
@@ -177,140 +191,9 @@ def _on_cluster() -> bool:
     return cluster.scheduler() is not None
 
 
-# ------------------------------------------------------------------------------------------ the run's files
-
-
-@dataclass(frozen=True)
-class RunFiles:
-    """How to open a run again in another process: its files and :func:`open_run` keywords.
-
-    Only plain values (paths as text, numbers, mappings of them): no open file, no parsed topology.
-    """
-
-    paths: tuple[str, ...]
-    topology: str | None = None
-    options: Mapping[str, Any] = field(default_factory=dict)
-
-    def open(self) -> Run:
-        from phasewake.core.readers import open_run
-
-        return open_run(list(self.paths), topology=self.topology, **dict(self.options))
-
-    def key(self) -> bytes:
-        return pickle.dumps((self.paths, self.topology, sorted(dict(self.options).items())))
-
-
-_files_of: dict[int, RunFiles] = {}
-
-
-def remember_files(run: Run, files: RunFiles) -> Run:
-    """Note how ``run`` was opened (the command line does, with the options given), for the workers."""
-    key = id(run)
-    _files_of[key] = files
-    weakref.finalize(run, _files_of.pop, key, None)
-    return run
-
-
-def files_of(run: Run) -> RunFiles:
-    """The :class:`RunFiles` noted for ``run``, else its paths (a trajectory with its topology, an H5MD
-    file: enough to read the same frames again)."""
-    got = _files_of.get(id(run))
-    if got is not None:
-        return got
-    if not run.paths:
-        raise AnalysisError("the run has no files to read in another process")
-    return RunFiles(paths=tuple(str(p) for p in run.paths))
-
-
-# ---------------------------------------------------------------------------------------------- the ranges
-
-
-def cut_ranges(start: int, stop: int, parts: int, *, align: int = 1) -> list[tuple[int, int]]:
-    """Cut frames [start, stop) into at most ``parts`` consecutive non-empty ranges of near-equal length,
-    each boundary a multiple of ``align`` frames after ``start`` (so blocks of ``align`` frames are the
-    serial pass's blocks). Fewer ranges when there are fewer blocks than parts."""
-    n = int(stop) - int(start)
-    if n <= 0:
-        raise AnalysisError(f"empty frame range {start}:{stop}")
-    align = max(1, int(align))
-    blocks = -(-n // align)
-    parts = max(1, min(int(parts), blocks))
-    edges = [int(start) + min(n, (blocks * k // parts) * align) for k in range(parts + 1)]
-    return [(a, b) for a, b in zip(edges[:-1], edges[1:]) if b > a]
-
-
-def mergeable(consumers: Mapping[str, Any]) -> bool:
-    """Whether every consumer can fold a later consumer's partial state into its own (``merge``)."""
-    return all(callable(getattr(c, "merge", None)) for c in consumers.values())
-
-
-# A partial state larger than this goes back from a worker once, not once per range (a PCA's covariance).
-LARGE_STATE_BYTES = 8 << 20
-
-
-def ranges_per_worker(consumers: Mapping[str, Any]) -> int:
-    """Frame ranges per worker: 2, so a worker that finishes early takes another's share, unless the
-    consumers' partial states are large (``state_bytes``, the exact PCA's d x d sums): then 1, since
-    every range's state is pickled back to the parent and added there (2 x 72 MB per worker for a PCA
-    of 1,000 atoms cost more than the balance saves)."""
-    size = sum(int(getattr(c, "state_bytes", 0)) for c in consumers.values())
-    return 1 if size > LARGE_STATE_BYTES else 2
-
-
-def before_parts(run: Run, consumers: Mapping[str, Any], start: int) -> None:
-    """Fix now what a serial pass takes from its first frame (the PCA's superposition reference), so
-    consumers fed different ranges share it and can be merged."""
-    for consumer in consumers.values():
-        first = getattr(consumer, "use_first_frame_of", None)
-        if callable(first):
-            first(run, start)
-
-
-def merge_in_order(parts: Sequence[Mapping[str, Any]]) -> dict[str, Any]:
-    """Fold the consumers of consecutive ranges into the first range's, in frame order."""
-    merged = dict(parts[0])
-    for later in parts[1:]:
-        for name, consumer in merged.items():
-            consumer.merge(later[name])
-    return merged
-
-
-# ------------------------------------------------------------------------------------ failures from workers
-
-
-class _Failure(Exception):
-    """A phasewake error raised in a worker, carried back whole (its class and attributes): the parent
-    raises the same error the serial pass would (``TooShortError(what, have=, need=)`` and the like do
-    not survive plain pickling)."""
-
-    def __init__(self, cls: type[BaseException], text: str, state: dict[str, Any]) -> None:
-        super().__init__(text)
-        self.cls, self.text, self.state = cls, text, state
-
-    def __reduce__(self) -> tuple[Any, ...]:
-        return (_Failure, (self.cls, self.text, self.state))
-
-    def rebuild(self) -> BaseException:
-        exc = self.cls.__new__(self.cls)
-        Exception.__init__(exc, self.text)
-        exc.__dict__.update(self.state)
-        return exc
-
-
-def carry(exc: PhasewakeError) -> _Failure:
-    return _Failure(type(exc), str(exc), dict(exc.__dict__))
-
-
-def reraise(exc: BaseException) -> None:
-    """Raise what a worker raised: a carried phasewake error as itself, anything else unchanged."""
-    if isinstance(exc, _Failure):
-        raise exc.rebuild() from None
-    raise exc
-
-
 # ------------------------------------------------------------------------------------------------ the worker
 
-_worker_state: dict[str, Any] = {}
+_worker_state: dict[str, Any] = {}  # in a worker process: the pool's progress counters and stop flag
 
 
 def _init_worker(done: Any, stop: Any, chunk_mb: float | None, topologies: bytes) -> None:
@@ -320,52 +203,11 @@ def _init_worker(done: Any, stop: Any, chunk_mb: float | None, topologies: bytes
 
     set_chunk_budget_mb(chunk_mb)
     set_workers(1)  # a worker's own passes stay in it: no pools within pools
-    _worker_state.update(done=done, stop=stop, runs={})
+    _worker_state.update(done=done, stop=stop)
     if topologies:
         from phasewake.core.readers.trajectory import seed_topologies
 
         seed_topologies(pickle.loads(topologies))
-
-
-def opened(files: RunFiles, runs: dict[bytes, Any]) -> Run:
-    """The run of ``files``, opened once per worker process."""
-    key = files.key()
-    if key not in runs:
-        runs.clear()  # one run at a time: a replica ensemble moves on from run to run
-        runs[key] = files.open()
-    return runs[key]
-
-
-def travelling(run: Run, files: RunFiles) -> Run | RunFiles:
-    """What a worker process gets to read ``run``'s frames: the run itself, without its topology, energies
-    and warnings (a few bytes per frame and atom), when its frame source is portable; else ``files``, to
-    open it again there."""
-    import dataclasses
-
-    if run.frames is not None and getattr(run.frames, "portable", False):
-        return dataclasses.replace(run, topology=None, energies=None, warnings=[])
-    return files
-
-
-def worker_run(got: Run | RunFiles) -> Run:
-    """The run a worker reads: as it travelled (:func:`travelling`), or opened from its files once."""
-    if isinstance(got, RunFiles):
-        return opened(got, _worker_state.setdefault("runs", {}))
-    return got
-
-
-def read_range(run: Run, consumers: Mapping[str, Any], start: int, stop: int, chunks: tuple[int, float],
-               tick: Callable[[int], None]) -> dict[str, Any]:
-    """Feed frames [start, stop) of ``run`` to ``consumers`` in the parent's chunks (``chunks``: its
-    :func:`~phasewake.core.settings.chunk_setting`); ``tick(frames done)`` after every chunk (it raises to
-    stop). Returns the consumers with their partial state."""
-    from phasewake.core.model.framepass import feed
-    from phasewake.core.settings import chunking
-
-    with chunking(frames=chunks[0], mb=chunks[1]):  # the parent's (a pool may outlive a change of it)
-        for n in feed(run, consumers, start=start, stop=stop):
-            tick(n)
-    return dict(consumers)
 
 
 def _range_task(index: int, files: Run | RunFiles, consumers: Mapping[str, Any], start: int, stop: int,
@@ -497,7 +339,7 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     A generator yielding :class:`Progress` and returning ``{name: consumer.finish()}``, equal to the
     serial pass's.
     """
-    from phasewake.core.model.framepass import frame_range, run_pass
+    from phasewake.core.model.feeding import frame_range, serial_pass
     from phasewake.core.settings import chunk_setting
 
     start_, stop_ = frame_range(run, start, stop)
@@ -509,7 +351,7 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
     chunks = chunk_setting()  # every worker reads in the chunks a serial pass would (module docstring)
     ranges = cut_ranges(start_, stop_, ranges_per_worker(consumers) * n, align=chunks[0])
     if n <= 1 or len(ranges) < 2 or not mergeable(consumers):
-        return (yield from run_pass(run, consumers, start=start_, stop=stop_, workers=1))
+        return (yield from serial_pass(run, consumers, start=start_, stop=stop_))
     files_ = travelling(run, files_of(run)) if files is None else files
     before_parts(run, consumers, start_)
     label = f"one pass over {n} workers: " + ", ".join(consumers)
@@ -521,7 +363,6 @@ def ranges_pass(run: Run, consumers: Mapping[str, Any], *, start: int = 0, stop:
         parts = [f.result() for f in futures]
     merged = merge_in_order(parts)
     return {name: c.finish() for name, c in merged.items()}
-
 
 
 # ------------------------------------------------------------------------------------------ many runs
@@ -569,12 +410,6 @@ def map_workers(fn: Callable[..., Any], arg_lists: Sequence[Sequence[Any]], *, w
         return [f.result() for f in futures]
 
 
-def frame_count(files: RunFiles) -> int:
-    """The number of frames of the run of ``files`` (a small task: for tests and for a first look at an
-    ensemble)."""
-    return opened(files, {}).n_frames
-
-
 # --------------------------------------------------------------------------------- replica ensembles
 
 
@@ -582,7 +417,7 @@ def spread_runs(runs: Sequence[Run]) -> bool:
     """Whether the runs of an ensemble go to workers, one task per run: more than one run, each with
     files to open again, and more than one worker (asked for, a Dask scheduler, or automatic when the
     runs together hold at least :data:`MIN_AUTO_ATOM_FRAMES` atom-frames)."""
-    if len(runs) < 2 or not all(r.paths or id(r) in _files_of for r in runs):
+    if len(runs) < 2 or not all(has_files(r) for r in runs):
         return False
     if _on_cluster():
         return True
@@ -590,27 +425,3 @@ def spread_runs(runs: Sequence[Run]) -> bool:
     if asked is not None:
         return asked > 1
     return usable_cores() > 1 and sum(r.n_frames * r.n_atoms for r in runs) >= MIN_AUTO_ATOM_FRAMES
-
-
-def coordinate_series(files: Run | RunFiles, spec: str, start: int, stop: int | None, chunks: tuple[int, float]
-                      ) -> Any:
-    """One replica's coordinate series (``compute_coordinates``, in the parent's chunks: ``chunks`` is its
-    :func:`~phasewake.core.settings.chunk_setting`), in a worker: the run as it travelled
-    (:func:`travelling`) or opened there from its files."""
-    from phasewake.core.analyses.coordinates import compute_coordinates
-    from phasewake.core.progress import drive
-    from phasewake.core.settings import chunking
-
-    set_workers(1)  # on a Dask worker too: the replicas are the parallel part
-    run = worker_run(files)
-    with chunking(frames=chunks[0], mb=chunks[1]):
-        return drive(compute_coordinates(run, [spec], start=start, stop=stop))[0]
-
-
-def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None
-                        ) -> Work[list[Any]]:
-    """The coordinate ``spec`` of every run, one worker task per run (:func:`map_workers`), in order."""
-    from phasewake.core.settings import chunk_setting
-
-    tasks = [(travelling(r, files_of(r)), spec, start, stop, chunk_setting()) for r in runs]
-    return (yield from map_workers(coordinate_series, tasks, label=f"{spec} in {len(runs)} replicas"))

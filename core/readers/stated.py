@@ -80,7 +80,7 @@ def open_stated(files: Sequence[str | Path], *, topology: str | Path | None = No
                 options: Mapping[str, Any] | None = None) -> Run:
     """Open one run from ``files`` with ``options`` (:func:`stated_options`), keeping library chatter
     (mdtraj's DCD plugin prints) off stdout, and note how it was opened for worker processes."""
-    from phasewake.core.model.parallel import RunFiles, remember_files
+    from phasewake.core.model.ranges import RunFiles, remember_files
     from phasewake.core.readers import open_run
 
     opts = dict(options or {})

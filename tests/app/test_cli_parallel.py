@@ -133,7 +133,9 @@ SAMPLES = Path(__file__).resolve().parents[2] / "sample_data"
 def test_replicas_over_two_workers_pool_as_over_one(capsys, spy_on):
     import json
 
-    spread = spy_on(parallel, "replica_coordinates", lambda a, kw: len(a[0]))
+    from phasewake.core.analyses.crossings import request as crossings_request
+
+    spread = spy_on(crossings_request, "replica_coordinates", lambda a, kw: len(a[0]))
     files = [str(SAMPLES / f"dimer_langevin{s}.h5md") for s in ("", "_r2", "_r3")]
     base = ["crossings", *files, "--replicas", "-c", "distance(0, 1)", "--json", "--no-cache"]
     main([*base, "--workers", "1"])

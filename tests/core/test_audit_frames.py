@@ -188,7 +188,7 @@ def _fed(run, consumer, lo, hi, chunk):
     """A consumer fed frames [lo, hi) and sent through pickle both ways, as a worker process would."""
     import pickle
 
-    from phasewake.core.model.framepass import feed
+    from phasewake.core.model.feeding import feed
 
     c = pickle.loads(pickle.dumps(consumer))
     with chunking(frames=chunk):

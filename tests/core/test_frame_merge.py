@@ -18,7 +18,8 @@ from phasewake.core.analyses.group_kinetics import GroupTemperatureConsumer
 from phasewake.core.analyses.projection import PCAConsumer, PCAProjectionConsumer, compute_pca
 from phasewake.core.analyses.velocity import VACFConsumer, vacf
 from phasewake.core.errors import AnalysisError
-from phasewake.core.model.framepass import feed, run_pass
+from phasewake.core.model.feeding import feed
+from phasewake.core.model.framepass import run_pass
 from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import drive
 from phasewake.core.readers import open_run

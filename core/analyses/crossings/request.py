@@ -92,8 +92,7 @@ class CrossingsRequest(AnalysisRequest):
         from phasewake.core.model import parallel
 
         if parallel.spread_runs(runs):  # one worker task per replica (--workers, --scheduler)
-            return (yield from parallel.replica_coordinates(runs, self.coordinate, start=self.start,
-                                                            stop=self.stop))
+            return (yield from replica_coordinates(runs, self.coordinate, start=self.start, stop=self.stop))
         out = []
         for k, r in enumerate(runs):
             work = compute_coordinates(r, [self.coordinate], start=self.start, stop=self.stop)
@@ -127,6 +126,33 @@ class CrossingsRequest(AnalysisRequest):
 
         return replace(result, settings=replace(result.settings, temperature_source=why),
                        replicas=replica_rows(result, traces, unit))
+
+
+def replica_series(got: Any, spec: str, start: int, stop: int | None, chunks: tuple[int, float]) -> Any:
+    """One replica's coordinate series in a worker process (``compute_coordinates`` in the parent's chunks:
+    ``chunks`` is its :func:`~phasewake.core.settings.chunk_setting`); ``got`` is the run as it travelled
+    or its files (:func:`phasewake.core.model.ranges.travelling`)."""
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.model.parallel import set_workers
+    from phasewake.core.model.ranges import worker_run
+    from phasewake.core.progress import drive
+    from phasewake.core.settings import chunking
+
+    set_workers(1)  # on a Dask worker too: the replicas are the parallel part
+    with chunking(frames=chunks[0], mb=chunks[1]):
+        return drive(compute_coordinates(worker_run(got), [spec], start=start, stop=stop))[0]
+
+
+def replica_coordinates(runs: Sequence[Run], spec: str, *, start: int = 0, stop: int | None = None
+                        ) -> Work[list[Any]]:
+    """The coordinate ``spec`` of every run, one worker task per run
+    (:func:`phasewake.core.model.parallel.map_workers`), in order."""
+    from phasewake.core.model.parallel import map_workers
+    from phasewake.core.model.ranges import files_of, travelling
+    from phasewake.core.settings import chunk_setting
+
+    tasks = [(travelling(r, files_of(r)), spec, start, stop, chunk_setting()) for r in runs]
+    return (yield from map_workers(replica_series, tasks, label=f"{spec} in {len(runs)} replicas"))
 
 
 def _relay(work: Work[Any], base: float, total: float, prefix: str) -> Work[Any]:

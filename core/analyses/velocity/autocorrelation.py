@@ -299,7 +299,7 @@ class VACFConsumer:
         return np.concatenate(self._tail)[-keep:]
 
     def merge(self, later: VACFConsumer) -> None:
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "velocity autocorrelation")
         if (later.lag, later.names, later.mass_weighted) != (self.lag, self.names, self.mass_weighted):

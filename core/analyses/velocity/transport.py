@@ -563,7 +563,7 @@ class MSDConsumer:
 
     def merge(self, later: MSDConsumer) -> None:
         from phasewake.core.analyses.geometry import minimum_image
-        from phasewake.core.model.framepass import check_next
+        from phasewake.core.model.feeding import check_next
 
         check_next(self._range, later._range, "mean-squared displacement")
         self._settle()
