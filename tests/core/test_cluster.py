@@ -81,9 +81,11 @@ def test_a_damaged_frame_on_a_dask_worker_is_the_serial_error(tmp_path, on_clust
 
 
 def test_replicas_map_over_the_cluster_in_order(tmp_path, on_cluster):
-    runs = [parallel.RunFiles(paths=(str(p),), topology=str(q))
+    from phasewake.core.model import ranges
+
+    runs = [ranges.RunFiles(paths=(str(p),), topology=str(q))
             for p, q in (make_xtc(tmp_path, n_frames=20 + 5 * k, name=f"r{k}") for k in range(3))]
-    got = drive(parallel.map_workers(parallel.frame_count, [(f,) for f in runs], label="replicas"))
+    got = drive(parallel.map_workers(ranges.frame_count, [(f,) for f in runs], label="replicas"))
     assert got == [20, 25, 30]
 
 
