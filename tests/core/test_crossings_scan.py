@@ -133,6 +133,12 @@ def test_threaded_scan_equals_single_part(monkeypatch: pytest.MonkeyPatch) -> No
         for name in ("entries", "labels", "exits", "crossings", "next_entry", "next_label"):
             np.testing.assert_array_equal(getattr(out[threads], name), getattr(out[1], name))
     assert np.array_equal(out[1].crossings, 1 + np.flatnonzero((q[1:] >= SURF) != (q[:-1] >= SURF)))
+    # the extremes come from the segment extremes, not a pass of their own: numpy's min and max
+    q[0], q[50] = q.max() + 1.0, q.min() - 1.0  # on the first frame and on a chunk's first frame
+    for threads in (1, 2, 5):
+        monkeypatch.setattr(settings, "_threads", threads)
+        sc = S._scan(t, q, a_hi=A_HI, b_lo=B_LO, surface=SURF)
+        assert (sc.q_min, sc.q_max) == (q.min(), q.max())
 
 
 def test_scan_flags_nan_and_time_order_in_any_part(monkeypatch: pytest.MonkeyPatch) -> None:

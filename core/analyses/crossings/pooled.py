@@ -88,8 +88,8 @@ def scan_replicas(trs: Sequence[Trace], st: _States, unit: str, warnings: list[s
         sc = _scan(tr.time_ps, tr.values, a_hi=st.a_hi, b_lo=st.b_lo, surface=st.surface)
         _check_scan(sc, k, tr)
         scans.append(sc)
-    q_min = min(float(tr.values.min()) for tr in trs)
-    q_max = max(float(tr.values.max()) for tr in trs)
+    q_min = min(sc.q_min for sc in scans)
+    q_max = max(sc.q_max for sc in scans)
     if not any(sc.crossings.size for sc in scans) and not q_min < st.surface < q_max:
         raise AnalysisError(
             f"the dividing surface {st.surface:g} {unit} lies outside the range of the coordinate "

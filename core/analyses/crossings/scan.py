@@ -40,6 +40,8 @@ class _Scan:
     next_label: np.ndarray  # its label (-1 if none)
     finite: bool  # no NaN or infinity in q
     time_increasing: bool
+    q_min: float  # the extremes of q, from the segment extremes (no extra pass over q)
+    q_max: float
 
 
 def _first_index(q: np.ndarray, start: int, stop: int, level: float, above: bool, *, last: bool = False) -> int:
@@ -223,7 +225,8 @@ def _scan(t: np.ndarray | None, q: np.ndarray, *, a_hi: float, b_lo: float, surf
         match = has & (kseg[ik] == nseg)
         next_entry[match] = entries[ik[match]]
     return _Scan(first=first, entries=entries, labels=klab.astype(np.int8), exits=exits, crossings=cr,
-                 next_entry=next_entry, next_label=next_label, finite=finite, time_increasing=increasing)
+                 next_entry=next_entry, next_label=next_label, finite=finite, time_increasing=increasing,
+                 q_min=float(seg_min.min()), q_max=float(seg_max.max()))
 
 
 def _interp_time(t: np.ndarray, q: np.ndarray, i0: np.ndarray, level: float | np.ndarray
