@@ -14,8 +14,10 @@ Strings understood (examples):
   :func:`split_header`).
 
 An unknown or missing unit raises :class:`~phasewake.core.errors.UnitError` naming it; nothing is
-guessed. Constants come from ``scipy.constants`` (CODATA 2018, the exact SI-2019 values for k_B, N_A
-and e); the thermochemical calorie is 4.184 J exactly (NIST SP 811, 2008, B.8).
+guessed. Constants are CODATA values as ``scipy.constants`` gives them (the exact SI-2019 values for
+k_B, N_A and e; the dalton and the Hartree energy of CODATA 2022), written out here so that importing
+phasewake does not load scipy (about 0.1 s); tests/core/test_units.py holds them to scipy.constants. The
+thermochemical calorie is 4.184 J exactly (NIST SP 811, 2008, B.8).
 """
 
 from __future__ import annotations
@@ -25,18 +27,20 @@ from dataclasses import dataclass
 from fractions import Fraction
 
 import numpy as np
-import scipy.constants as _sc
 
 from phasewake.core.errors import UnitError
 
-# CODATA constants, by name (scipy.constants).
-AVOGADRO_PER_MOL = _sc.Avogadro  # N_A, exact since SI 2019
+# CODATA constants (the values of scipy.constants; tests/core/test_units.py compares them).
+AVOGADRO_PER_MOL = 6.02214076e23  # N_A, exact since SI 2019
+BOLTZMANN_J_PER_K = 1.380649e-23  # k_B, exact since SI 2019
 #: The one Boltzmann constant of phasewake, molar, in kJ mol^-1 K^-1: k_B N_A / 1000 with the exact SI-2019
-#: values of CODATA 2018 (k_B = 1.380649e-23 J/K, N_A = 6.02214076e23 /mol) = 0.00831446261815324 (= R/1000).
-KB_KJ_PER_MOL_K: float = _sc.Boltzmann * _sc.Avogadro / 1000.0
-ELEMENTARY_CHARGE_C = _sc.elementary_charge
-ATOMIC_MASS_KG = _sc.atomic_mass  # dalton (unified atomic mass unit)
-HARTREE_J = _sc.physical_constants["Hartree energy"][0]
+#: values (k_B = 1.380649e-23 J/K, N_A = 6.02214076e23 /mol) = 0.00831446261815324 (= R/1000).
+KB_KJ_PER_MOL_K: float = BOLTZMANN_J_PER_K * AVOGADRO_PER_MOL / 1000.0
+ELEMENTARY_CHARGE_C = 1.602176634e-19  # e, exact since SI 2019
+ATOMIC_MASS_KG = 1.66053906892e-27  # dalton (unified atomic mass unit), CODATA 2022
+HARTREE_J = 4.359744722206e-18  # Hartree energy, CODATA 2022
+BOHR_M = 5.29177210544e-11  # Bohr radius a0, CODATA 2022
+HBAR_J_S = 1.0545718176461565e-34  # h / 2 pi, exact since SI 2019 (h = 6.62607015e-34 J s)
 
 # Dimension vector: powers of (length, time, mass, temperature, charge). ``mol`` is a pure number
 # (N_A particles), tracked separately so molar/per-particle conversions stay exact where possible.

@@ -17,19 +17,8 @@ from typing import Any
 import numpy as np
 
 from phasewake.app.window.replicas import replicas_of
-from phasewake.core.analyses import (
-    coordinates,
-    crossings,
-    landscape,
-)
 from phasewake.core.analyses.audit import AuditRequest
-from phasewake.core.analyses.coordinates import CoordinatesRequest
-from phasewake.core.analyses.correlation.request import CorrelationRequest
-from phasewake.core.analyses.landscape import LandscapeRequest
-from phasewake.core.analyses.projection import PCARequest
 from phasewake.core.analyses.request import AnalysisRequest
-from phasewake.core.analyses.sampling import SamplingRequest
-from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
 from phasewake.core.figures import plots
@@ -145,6 +134,7 @@ def forget_runs(runs: list[Run]) -> None:
 def coordinate_series(run: Run, spec: str, start: int, stop: int) -> Generator[Progress, None, Any]:
     """One CoordinateSeries of ``spec`` over frames [start, stop) (cached per run and window in memory, and
     for runs with files in the result cache, ``phasewake.core.store.cached``)."""
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
     key = (id(run), spec, start, stop)
     with _CACHE_LOCK:
         hit = _CACHE.get(key)
@@ -239,6 +229,7 @@ def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
 
 def phase_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Coordinate against its conjugate momentum, its density, a Poincaré-style section, and PCA."""
+    from phasewake.core.analyses import landscape
     need = _need_coordinate(ctx)
     if need is not None:
         return need
@@ -270,6 +261,7 @@ PCA_EXACT_MAX_COORDS = 3_000  # above this many coordinates the randomized route
 
 def _pca_settings(run: Run) -> dict[str, Any]:
     """The Phase space panel's principal components: the solute, 3 components, exact route when small."""
+    from phasewake.core.analyses import coordinates
     group = coordinates.solute_atoms(run.topology, run.n_atoms)
     if group.size < 3:
         # a solute of one or two atoms has no shape to analyse (two atoms: only their distance varies once
@@ -284,6 +276,9 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     autocorrelation and spectrum, into the result cache (``cached.requested_pass``), before the panels start:
     their jobs then find these results there instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
     analysed (the keys are those of the panels' own requests); otherwise nothing is done here."""
+    from phasewake.core.analyses.coordinates import CoordinatesRequest
+    from phasewake.core.analyses.projection import PCARequest
+    from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest
     run = ctx.run
     cache = window_cache()
     if (not cache.enabled or not run.paths or run.frames is None
@@ -306,6 +301,8 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
 
 def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Principal components of the solute: figures added to the Phase space panel when ready."""
+    from phasewake.core.analyses import coordinates
+    from phasewake.core.analyses.projection import PCARequest
     if ctx.run.frames is None or ctx.run.n_atoms < 2:
         return PanelResult()
     settings = _pca_settings(ctx.run)
@@ -332,6 +329,7 @@ def pca_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
 
 def _pair_figures(s1: Any, s2: Any, traces: dict[str, Trace]) -> list[FigureSpec]:
     """Two coordinates against each other, and the Poincaré section (q2, p2) where q1 crosses its median."""
+    from phasewake.core.analyses import landscape
     t = np.asarray(s1.time_ps, float)
     q1 = np.asarray(s1.values, float)
     figs = [plots.coordinate_pair_figure(s1, s2)]
@@ -363,6 +361,8 @@ def _pca_figures(pca: Any, traces: dict[str, Trace], *, atoms: str = "") -> list
 def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The memory of an energy series and of the coordinate (CorrelationRequest each: autocorrelation, g and
     block averages), and the velocity autocorrelation and vibrational spectrum of the window's frames."""
+    from phasewake.core.analyses.correlation.request import CorrelationRequest
+    from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest
     figs: list[FigureSpec] = []
     notes: list[str] = []
     verdicts: list[Any] = []
@@ -422,6 +422,7 @@ def _rekey(fig: FigureSpec, i: int) -> FigureSpec:
 def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Running averages, coverage of phase space, segment divergence and R-hat, of the coordinate (with the open
     runs that are replicas of this one) and of an energy series: SamplingRequest each."""
+    from phasewake.core.analyses.sampling import SamplingRequest
     yield Progress(0, None, "sampling")
     figs: list[FigureSpec] = []
     verdicts: list[Any] = []
@@ -473,6 +474,7 @@ def dragged_states(choices: dict[str, Any]) -> tuple[tuple[float, float] | None,
 def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """Crossings of the coordinate: :class:`~phasewake.core.analyses.crossings.CrossingsRequest` (the same request,
     temperature rule, kT/m_eff and cache key as the command line and the report) with the dragged states."""
+    from phasewake.core.analyses import crossings
     need = _need_coordinate(ctx)
     if need is not None:
         return need
@@ -514,6 +516,8 @@ def _event_rows(res: Any, ctx: AnalysisContext) -> tuple[EventRow, ...]:
 
 
 def landscape_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
+    from phasewake.core.analyses import crossings
+    from phasewake.core.analyses.landscape import LandscapeRequest
     need = _need_coordinate(ctx)
     if need is not None:
         return need

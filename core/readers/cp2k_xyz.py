@@ -25,7 +25,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-from scipy import constants as sc
 
 from phasewake.core.errors import CorruptFileError, TopologyMismatchError
 from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
@@ -36,13 +35,14 @@ from phasewake.core.readers.common import (
     masses_from_topology,
     topology_from_elements,
 )
+from phasewake.core.units import BOHR_M, HARTREE_J, HBAR_J_S
 
 _HEADER = re.compile(rb"^\s*i\s*=\s*(-?\d+)\s*,\s*time\s*=\s*([-+0-9.eEdD]+)\s*,\s*E\s*=")
 _VEL_NAME = re.compile(r"-vel-\d+\.xyz$", re.IGNORECASE)
 
-# CP2K's atomic units (CODATA via scipy.constants): length bohr (a0), time hbar/Hartree energy.
-BOHR_NM = sc.physical_constants["Bohr radius"][0] * 1e9
-AU_TIME_PS = sc.hbar / sc.physical_constants["Hartree energy"][0] * 1e12
+# CP2K's atomic units (CODATA, core/units.py): length bohr (a0), time hbar/Hartree energy.
+BOHR_NM = BOHR_M * 1e9
+AU_TIME_PS = HBAR_J_S / HARTREE_J * 1e12
 VELOCITY_AU_TO_NM_PER_PS = BOHR_NM / AU_TIME_PS
 ANGSTROM_NM = 0.1
 

@@ -25,7 +25,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import scipy.constants as sc
 
 from phasewake.core.errors import EnergyTableError, InputError
 from phasewake.core.model.run import EnergyTable, Series
@@ -37,6 +36,7 @@ from phasewake.core.readers.engine_common import (
     head_text,
     numbers,
 )
+from phasewake.core.units import BOHR_M
 
 # LAMMPS thermo keywords as printed -> our roles
 ROLES = {"PotEng": "potential", "KinEng": "kinetic", "TotEng": "total", "Econserve": "conserved",
@@ -47,7 +47,7 @@ _ENERGY_NAMES = {"PotEng", "KinEng", "TotEng", "Econserve", "Ecouple", "E_pair",
 
 # clocks and counters of the run itself, not observables of the system (time is Step x dt)
 _SKIP = {"Time", "Elapsed", "Elaplong", "CPU", "CPULeft", "TPS", "SPCPU", "Part", "Dt", "Atoms"}
-_BOHR_M = sc.physical_constants["Bohr radius"][0]
+_BOHR_M = BOHR_M
 
 # unit style -> (time unit of dt and Step*dt, energy, temperature, pressure, volume, density, default dt,
 #                k_B in energy units per kelvin) [LAMMPS units documentation]; the time unit is the

@@ -36,6 +36,16 @@ def test_molar_boltzmann_constant():
     assert KB_KJ_PER_MOL_K == pytest.approx(0.00831446261815324, rel=1e-15)
 
 
+def test_written_out_constants_are_scipys():
+    # core/units.py writes the CODATA values out (importing scipy.constants costs ~0.1 s at start-up)
+    from phasewake.core import units
+
+    assert units.AVOGADRO_PER_MOL == sc.Avogadro and units.BOLTZMANN_J_PER_K == sc.Boltzmann
+    assert units.ELEMENTARY_CHARGE_C == sc.elementary_charge
+    assert units.ATOMIC_MASS_KG == pytest.approx(sc.atomic_mass, rel=1e-9)  # CODATA 2022 (2018: 3e-10 off)
+    assert units.HARTREE_J == pytest.approx(sc.physical_constants["Hartree energy"][0], rel=1e-9)
+
+
 @pytest.mark.parametrize(
     ("text", "factor", "internal"),
     [
