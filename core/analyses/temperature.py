@@ -224,6 +224,13 @@ class RigidPairAccumulator:
 
     A rigid cluster (atoms joined by rigid pairs) of n atoms holds min(rigid pairs, 3n - 6) constraints
     (1 for n = 2): a rigid triangle (water) holds 3, a rigid X-H bond 1.
+
+    One frame may be off: a run continued from a structure file of lower precision (a .gro or .pdb
+    start, GROMACS ``continuation = yes``) writes that structure as its first frame, before the first
+    constraint step; its water O-H lengths are off by ~1e-3 nm. So from 4 frames on, each pair's spread
+    is taken without its most extreme frame (the smaller of the spreads without the lowest and without
+    the highest distance, from the running minimum and maximum: still one pass, still mergeable). A
+    flexible bond fluctuates in every frame and stays flexible.
     """
 
     def __init__(self, pairs: np.ndarray, n_atoms: int, *, max_frames: int = 500,
@@ -235,6 +242,8 @@ class RigidPairAccumulator:
         self._n = 0
         self._sum = np.zeros(self.pairs.shape[0])
         self._sum2 = np.zeros(self.pairs.shape[0])
+        self._lo = np.full(self.pairs.shape[0], np.inf)  # extremes of the shifted distances
+        self._hi = np.full(self.pairs.shape[0], -np.inf)
         self._shift: np.ndarray | None = None  # first frame's distances, for a stable variance
 
     @property
@@ -252,6 +261,8 @@ class RigidPairAccumulator:
         dd = d - self._shift
         self._sum += dd.sum(axis=0)
         self._sum2 += (dd * dd).sum(axis=0)
+        np.minimum(self._lo, dd.min(axis=0), out=self._lo)
+        np.maximum(self._hi, dd.max(axis=0), out=self._hi)
         self._n += d.shape[0]
 
     def merge(self, later: RigidPairAccumulator) -> None:
@@ -261,12 +272,29 @@ class RigidPairAccumulator:
             return
         if self._shift is None:
             self._shift, self._sum, self._sum2 = later._shift.copy(), later._sum.copy(), later._sum2.copy()
+            self._lo, self._hi = later._lo.copy(), later._hi.copy()
             self._n = later._n
             return
         d = later._shift - self._shift
         self._sum2 += later._sum2 + 2.0 * d * later._sum + later._n * d * d
         self._sum += later._sum + later._n * d
+        np.minimum(self._lo, later._lo + d, out=self._lo)
+        np.maximum(self._hi, later._hi + d, out=self._hi)
         self._n += later._n
+
+    def _relative_spread(self) -> tuple[np.ndarray, np.ndarray]:
+        """(mean distance, relative standard deviation) of each pair; from 4 frames on without the pair's
+        most extreme frame (see the class)."""
+        assert self._shift is not None
+        n = self._n
+        mean = self._sum / n
+        var = np.maximum(self._sum2 / n - mean ** 2, 0.0)
+        if n >= 4:
+            for x in (self._lo, self._hi):
+                m1 = (self._sum - x) / (n - 1)
+                var = np.minimum(var, np.maximum((self._sum2 - x * x) / (n - 1) - m1 ** 2, 0.0))
+        mean_d = self._shift + mean
+        return mean_d, np.sqrt(var) / np.where(mean_d > 0, mean_d, np.inf)
 
     def finish(self) -> ConstraintInference:
         n = self._n
@@ -274,9 +302,7 @@ class RigidPairAccumulator:
             return ConstraintInference(0, int(self.pairs.shape[0]), 0, 0, n, self.rigid_relative_std,
                                        np.zeros((0, 2), np.int64), np.zeros(0), None, None,
                                        {"max_frames": self.max_frames})
-        mean = self._shift + self._sum / n
-        var = np.maximum(self._sum2 / n - (self._sum / n) ** 2, 0.0)
-        rel = np.sqrt(var) / np.where(mean > 0, mean, np.inf)
+        _, rel = self._relative_spread()
         rigid = rel < self.rigid_relative_std
         rp = self.pairs[rigid]
         # connected clusters of the rigid-pair graph (union-find over atoms)
@@ -315,7 +341,8 @@ class RigidPairAccumulator:
             rigid_pairs=rp, constraint_weights=weights,
             largest_rigid_relative_std=float(rel[rigid].max()) if rigid.any() else None,
             smallest_flexible_relative_std=float(rel[~rigid].min()) if (~rigid).any() else None,
-            settings={"max_frames": self.max_frames, "rigid_relative_std": self.rigid_relative_std},
+            settings={"max_frames": self.max_frames, "rigid_relative_std": self.rigid_relative_std,
+                      "spread": "without each pair's most extreme frame (from 4 frames on)"},
         )
 
 

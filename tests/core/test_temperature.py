@@ -135,6 +135,47 @@ def test_rigid_water_gives_three_constraints_each_flexible_chain_none():
     assert inf.smallest_flexible_relative_std > 1e-2
 
 
+def test_one_unconstrained_start_frame_leaves_rigid_pairs_rigid():
+    # A run continued from a .gro start (3 decimals, nm) writes that structure, not yet constrained, as its
+    # first frame: its bond lengths are off by up to 5e-4 nm (the rounding), 5e-3 relative for a 0.1 nm
+    # bond; the GROMACS SPC/E run in tests/data/engines shows this (frame 0: O-H 0.0988 nm, later 0.1000).
+    rng = np.random.default_rng(11)
+    n_w, n_f, n_frames = 20, 2, 40
+    top = water_topology(n_w, n_f)
+    body = np.array([[0.0, 0.0, 0.0], [0.1, 0.0, 0.0], [-0.0333, 0.0943, 0.0]])  # SPC/E geometry
+    pos = np.empty((n_frames, top.n_atoms, 3))
+    for f in range(n_frames):
+        rot = _random_rotations(rng, n_w)
+        pos[f, : 3 * n_w] = (np.einsum("wij,aj->wai", rot, body) + rng.uniform(0, 2, (n_w, 1, 3))).reshape(-1, 3)
+        chain = np.cumsum(np.concatenate([np.zeros((n_f, 1, 3)),
+                                          rng.normal(0, 0.09, (n_f, 5, 3)) + [0.15, 0, 0]], axis=1), axis=1)
+        pos[f, 3 * n_w:] = chain.reshape(-1, 3)
+    pos[0] = np.round(pos[0], 3)  # the .gro start
+    pairs = tm.candidate_pairs(top)
+    whole = tm.RigidPairAccumulator(pairs, top.n_atoms)
+    whole.update(pos)
+    got = whole.finish()
+    assert got.n_constraints == 3 * n_w and got.n_rigid_clusters == n_w
+    assert got.smallest_flexible_relative_std > 1e-2
+    # the plain spread (every frame) would call the waters flexible: the test is not empty
+    d = tm.pair_distances(pos, got.rigid_pairs)
+    assert (d.std(axis=0) / d.mean(axis=0)).max() > tm.RIGID_RELATIVE_STD
+    # streamed in pieces and merged (as over worker processes): the same pairs, the same spreads
+    first, later = tm.RigidPairAccumulator(pairs, top.n_atoms), tm.RigidPairAccumulator(pairs, top.n_atoms)
+    first.update(pos[:3])
+    later.update(pos[3:17])
+    later.update(pos[17:])
+    first.merge(later)
+    merged = first.finish()
+    assert merged.rigid_pairs.tolist() == got.rigid_pairs.tolist()
+    assert merged.largest_rigid_relative_std == pytest.approx(got.largest_rigid_relative_std, rel=1e-6, abs=1e-12)
+    # only one frame is left out: bonds that jump in several frames are not rigid
+    pos[5:9, : 3 * n_w] += rng.normal(0, 5e-3, (4, 3 * n_w, 3))
+    several = tm.RigidPairAccumulator(pairs, top.n_atoms)
+    several.update(pos)
+    assert several.finish().n_constraints == 0
+
+
 def test_constrained_xh_bond_counts_one():
     import mdtraj as md
 
