@@ -19,7 +19,7 @@ from phasewake.core.analyses import energy as en
 from phasewake.core.analyses.audit_frames import AuditFrames, align_by_time
 from phasewake.core.analyses.audit_results import EnergyAudit
 from phasewake.core.analyses.audit_verdicts import advice_of, source_of
-from phasewake.core.analyses.energy_events import find_energy_events
+from phasewake.core.analyses.energy_events import EventsResult, find_energy_events
 from phasewake.core.analyses.verdicts import THRESHOLDS, Verdict, judge
 from phasewake.core.errors import MissingDataError
 from phasewake.core.model.run import EnergyTable, Run, Series
@@ -138,8 +138,12 @@ def energy_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | None, *,
             good &= np.isfinite(kin)
         if not good.all():
             tg, eg, kg = t[good], e[good], None if kin is None else kin[good]
-    n_good = int(eg.size)
     scan_e = scan
+    start = _start_step(t, tg, events, notes)
+    if start is not None:
+        tg, eg, kg = tg[1:], eg[1:], None if kg is None else kg[1:]
+        scan_e = None
+    n_good = int(eg.size)
     if choice.table is not None and choice.table.joins and n_good >= 3:
         eg, changed = _without_join_steps(tg, eg, choice.table, notes)
         scan_e = None if changed else scan_e
@@ -159,7 +163,31 @@ def energy_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | None, *,
     return EnergyAudit(series_label=conserved.label, series_columns=conserved.columns,
                        expected_conserved=conserved.expected_conserved, reason=conserved.reason,
                        kinetic_source=ksrc, drift=drift, fluctuations=fl, events=events,
-                       sampling=choice.sampling, time_ps=t, values_kJ_per_mol=e)
+                       sampling=choice.sampling, time_ps=t, values_kJ_per_mol=e, fits_from_ps=start,
+                       engine_drift=tuple(run.metadata.extra.get("engine_drift") or ()),
+                       drift_tolerance=run.metadata.extra.get("drift_tolerance"))
+
+
+def _start_step(t: np.ndarray, tg: np.ndarray, events: EventsResult, notes: list[str]) -> float | None:
+    """The time the drift and fluctuation fits begin at when the very first step of the series is a jump
+    (None when it is not): that row is left out of both fits and the jumps check reports the step.
+
+    A run continued from a structure file of lower precision (a .gro start, GROMACS ``continuation = yes``)
+    or from a state its first step changes (constraints applied, a changed setting) writes that first
+    energy before the change; GROMACS's own first-to-last drift line takes it in whole (on its rigid SPC/E
+    runs in tests/data/engines the first step is 10-15 kJ/mol, a tenth of the drift lines' span).
+    """
+    if tg.size < 4 or t.size < 2 or tg[0] != t[0] or tg[1] != t[1]:
+        return None
+    first = [ev for ev in events.events if ev.kind == "jump" and ev.index == 1]
+    if not first:
+        return None
+    ev = first[0]
+    notes.append(f"The first energy row (t = {float(t[0]):.6g} ps) is left out of the drift and fluctuation fits: "
+                 f"the {ev.description} is a jump, as when a run starts from a structure "
+                 "before its first constraint step (continued from a .gro or .pdb) or with a changed setting; "
+                 "the jumps check reports it.")
+    return float(t[1])
 
 
 def _robust_steps(ea: EnergyAudit | None) -> tuple[np.ndarray | None, np.ndarray | None, float, float]:

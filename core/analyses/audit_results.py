@@ -35,6 +35,9 @@ class EnergyAudit:
     sampling: tuple[en.SeriesSampling, ...]
     time_ps: np.ndarray  # shape (n_rows,), for figures
     values_kJ_per_mol: np.ndarray  # shape (n_rows,)
+    fits_from_ps: float | None = None  # the drift and fluctuation fits begin here (a start-up step left out)
+    engine_drift: tuple[dict[str, Any], ...] = ()  # the engine's own drift lines (kJ/mol/ps per atom)
+    drift_tolerance: dict[str, Any] | None = None  # the engine's target for its drift (kJ/mol/ps per atom)
 
 
 @dataclass(frozen=True)

@@ -71,7 +71,13 @@ register(
         threshold="|drift| <= 0.01 kT/DOF/ns ok, <= 0.1 caution, above that a problem: common practice, "
                   "no citable source. The value judged is the lower end of the drift's 95 % interval "
                   "(|drift| - 1.96 error), so a drift is flagged only when it exceeds the threshold beyond "
-                  "its own error bar.",
+                  "its own error bar. When the upper end of the interval is above the problem size and the "
+                  "lower end below the caution size, the run cannot tell: the drift is shown as unresolved "
+                  "(info), not ok. "
+                  "When the engine states its own target (GROMACS verlet-buffer-tolerance, in kJ/mol/ps "
+                  "per atom, read from md.log) and the whole interval lies within it, a problem becomes a "
+                  "caution. A first row that differs from the next by a jump (a start before the first "
+                  "constraint step) is left out of the fit.",
         advice="A steady drift usually means a too-large time step, loose constraint tolerances, "
                "cut-off artefacts, or single-precision accumulation. Compare with a run at half the step.",
     ),

@@ -273,7 +273,9 @@ def _read_energy_files(run: Run, inputs: _Inputs, options: EnergyOptions, warnin
         table, engine_results, table_warnings = read_energy_sources(inputs.energy, options)
     for res in engine_results:
         apply_facts(run.metadata, res.facts, res.source, res.fact_sources)
-        run.metadata.extra.update(res.extra)
+        for key, val in res.extra.items():  # lists (one entry per part of a run) add up
+            had = run.metadata.extra.get(key)
+            run.metadata.extra[key] = had + val if isinstance(had, list) and isinstance(val, list) else val
     warnings.extend(table_warnings)
     if table is None:
         return

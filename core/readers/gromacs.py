@@ -272,6 +272,7 @@ def read_edr(path: Path, *, column_roles: Mapping[str, str] | None = None, times
                                 **{k: v for k, v in res.fact_sources.items() if k not in extra.facts}}
             if "timestep_ps" in facts:
                 res.fact_sources["timestep_ps"] = f"{path.name} (frame header)"
+            res.extra.update(extra.extra)
             warnings.extend(extra.warnings)
     _mdp_beside(path, res)
     return res
@@ -322,8 +323,9 @@ def read_md_log(path: Path, *, column_roles: Mapping[str, str] | None = None, ti
     lines = text.splitlines()
     warnings: list[str] = []
     facts, fsrc = _md_log_facts(lines, path)
+    extra = _md_log_drift(lines, path)
     if not energies:
-        return EngineEnergy(table=None, facts=facts, source=path.name, warnings=warnings)
+        return EngineEnergy(table=None, facts=facts, source=path.name, warnings=warnings, extra=extra)
 
     names: list[str] | None = None
     rows: list[str] = []
@@ -381,9 +383,60 @@ def read_md_log(path: Path, *, column_roles: Mapping[str, str] | None = None, ti
     table = finish_table(path, np.asarray(times), builder, warnings)
     if "Conserved En." in names:
         facts["conserved_quantity"] = "Conserved En."
-    res = EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings)
+    res = EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings,
+                       extra=extra)
     _mdp_beside(path, res)
     return res
+
+
+_DRIFT_PART = re.compile(r"^Energy conservation over simulation part #(\d+) of length (\S+) ps, "
+                         r"time (\S+) to (\S+) ps")
+_DRIFT_LINE = re.compile(r"^\s*Conserved energy drift:\s*(\S+) kJ/mol/ps per atom")
+
+
+def _md_log_drift(lines: list[str], path: Path) -> dict[str, Any]:
+    """What GROMACS says of its own energy conservation, for ``RunMetadata.extra``.
+
+    ``engine_drift``: the closing ``Conserved energy drift`` line of each part (kJ/mol/ps per atom, with the
+    part's time span); GROMACS takes it from the first and last conserved energy of the part, so a step at
+    the start weighs in fully. ``drift_tolerance``: ``verlet-buffer-tolerance`` from the input parameters
+    (kJ/mol/ps per atom; the pair-list buffer is set so that its own drift stays below it; -1 switches the
+    buffer estimate off and gives nothing here).
+    """
+    out: dict[str, Any] = {}
+    parts = []
+    span: tuple[int, float, float] | None = None
+    for ln in lines[-400:]:  # the closing lines of the log
+        m = _DRIFT_PART.match(ln)
+        if m:
+            try:
+                span = (int(m.group(1)), float(m.group(3)), float(m.group(4)))
+            except ValueError:
+                span = None
+            continue
+        m = _DRIFT_LINE.match(ln)
+        if m:
+            try:
+                value = float(m.group(1))
+            except ValueError:
+                continue
+            parts.append({"kJ_mol_ps_atom": value, "source": path.name,
+                          **({"part": span[0], "from_ps": span[1], "to_ps": span[2]} if span else {})})
+            span = None
+    if parts:
+        out["engine_drift"] = parts
+    for ln in lines:
+        if ln.startswith("   verlet-buffer-tolerance"):
+            try:
+                tol = float(ln.split("=", 1)[1])
+            except (IndexError, ValueError):
+                break
+            if tol > 0:
+                out["drift_tolerance"] = {"kJ_mol_ps_atom": tol, "source": f"{path.name} (verlet-buffer-tolerance)"}
+            break
+        if _STEP_HEADER.match(ln):
+            break
+    return out
 
 
 def _log_name_unit(raw: str) -> tuple[str, str]:

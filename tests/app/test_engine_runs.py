@@ -566,6 +566,8 @@ def test_gromacs_flexible_05fs_not_flagged(capsys: pytest.CaptureFixture[str]) -
     # common practice (the issue: "its 0.5 fs run is not [flagged]")
     code, a, _ = cli(capsys, "audit", *gmx_files("spce_flexible_nve_0.5fs"))
     levels = {v["kind"]: v["level"] for v in a["verdicts"]}
-    assert levels.get("energy.drift") == "ok", verdicts(a, "energy.drift")
+    # not flagged; over its 2 ps the drift's 95 % interval (0 to ~0.15 kT/DOF/ns) cannot rule out the caution
+    # size, so it is said to be unresolved (info) rather than ok
+    assert levels.get("energy.drift") in ("ok", "info"), verdicts(a, "energy.drift")
     assert levels.get("energy.fluctuation_ratio") == "ok", verdicts(a, "energy.fluctuation_ratio")
     assert code == 0, [(v["kind"], v["level"], v["message"]) for v in a["verdicts"] if v["level"] != "ok"]
