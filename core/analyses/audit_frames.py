@@ -20,6 +20,7 @@ from phasewake.core.analyses import motion_spectrum as ms
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses.correlation import one_blas_thread
 from phasewake.core.analyses.ensemble import is_thermostatted
+from phasewake.core.analyses.molecule_motion import MoleculeMomenta, molecule_labels
 from phasewake.core.errors import AnalysisError, MissingDataError
 from phasewake.core.model.feeding import check_next
 from phasewake.core.model.framepass import run_pass
@@ -52,6 +53,11 @@ class AuditFrames:
     speeds_nm_per_ps: dict[str, np.ndarray]
     speed_frame_stride: int
     settings: dict[str, Any] = field(default_factory=dict)
+    # the molecules' translational kinetic energy and the whole kinetic energy on every
+    # ``speed_frame_stride``-th frame (None without molecules: no topology, or single atoms only)
+    translation_kJ_per_mol: np.ndarray | None = None
+    translation_total_kJ_per_mol: np.ndarray | None = None
+    n_molecules: int = 0
 
 
 def reads_velocities(run: Run) -> bool:
@@ -158,6 +164,10 @@ class AuditFramesConsumer:
         self.segment_frames = int(segment_frames)
         self.max_segments = max_segments
         self._spec_groups = ms.spectrum_groups(run.topology, run.masses_amu) if self._n_pass >= 32 else None
+        labels = molecule_labels(run.topology, run.n_atoms)
+        n_mol = 0 if labels is None else int(labels.max()) + 1
+        self._molecules = MoleculeMomenta(labels, run.masses_amu) if labels is not None and 2 <= n_mol < run.n_atoms \
+            else None
         self._species = tm.species_of(run.topology, run.masses_amu) if self.want_speeds else {}
         self.rigid: tm.RigidPairAccumulator | None = None
         if infer and run.topology is not None:
@@ -211,6 +221,8 @@ class AuditFramesConsumer:
         self.speed_atoms = {sp: idx[: max(1, 100_000 // max(1, n_all // self.stride))][:2000]
                             for sp, idx in self._species.items()}
         self.speed_store: dict[str, list[np.ndarray]] = {sp: [] for sp in self._species}
+        self._trans: list[np.ndarray] = []  # K_trans on the sampled frames
+        self._trans_total: list[np.ndarray] = []  # K on the same frames
         self._sq = np.empty((self.SUB_FRAMES, 3 * self._n_atoms), np.float32)  # reused (fresh pages are slow)
         self._sel = (np.empty((chunk_frames, self.spec.atoms.size, 3), np.float32)
                      if self.spec is not None and self.spec.atoms is not None else None)
@@ -289,13 +301,17 @@ class AuditFramesConsumer:
             self.rigid.update(chunk.positions_nm, chunk.box_nm)
         if spec is not None:
             self._feed_spectrum(spec, v if idx is None or sel is None else sel[:k])
-        if self.speed_atoms:
+        if self.speed_atoms or self._molecules is not None:
             keep = np.nonzero(np.arange(self._range[0] + pos, self._range[0] + pos + k) % self.stride == 0)[0]
             if keep.size:
                 vk = v[keep]
-                sp_all = np.sqrt((vk * vk).sum(axis=2))
-                for sp, ia in self.speed_atoms.items():
-                    self.speed_store[sp].append(sp_all[:, ia])
+                if self._molecules is not None:
+                    self._trans.append(self._molecules.kinetic(vk))
+                    self._trans_total.append(both[keep, 0].astype(np.float64))
+                if self.speed_atoms:
+                    sp_all = np.sqrt((vk * vk).sum(axis=2))
+                    for sp, ia in self.speed_atoms.items():
+                        self.speed_store[sp].append(sp_all[:, ia])
         self._pos = pos + k
 
     def _feed_spectrum(self, spec: ms.VelocitySpectrumAccumulator, v: np.ndarray) -> None:
@@ -328,6 +344,8 @@ class AuditFramesConsumer:
             self.spec.merge(later.spec)
         for sp, got in later.speed_store.items():
             self.speed_store[sp].extend(got)
+        self._trans.extend(later._trans)
+        self._trans_total.extend(later._trans_total)
 
     def finish(self) -> AuditFrames:
         pos = self._pos
@@ -351,6 +369,9 @@ class AuditFramesConsumer:
             speeds_nm_per_ps={sp: (np.concatenate(v_) if v_ else np.zeros((0, 0), np.float32))
                               for sp, v_ in self.speed_store.items()},
             speed_frame_stride=self.stride,
+            translation_kJ_per_mol=np.concatenate(self._trans) if self._trans else None,
+            translation_total_kJ_per_mol=np.concatenate(self._trans_total) if self._trans_total else None,
+            n_molecules=0 if self._molecules is None else self._molecules.n_molecules,
             settings={"groups": {k: int(v.size) for k, v in self.groups.items()},
                       "infer": self.rigid is not None, "want_speeds": self.want_speeds, "want_com": self.want_com,
                       "segment_frames": self.segment_frames, "max_segments": self.max_segments,

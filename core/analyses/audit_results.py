@@ -18,6 +18,7 @@ from phasewake.core.analyses import energy as en
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.analyses import timestep as ts
 from phasewake.core.analyses.energy_events import EventsResult
+from phasewake.core.analyses.molecule_motion import TranslationSplit
 from phasewake.core.analyses.result import ResultMixin
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE, Level, Verdict, worst
 
@@ -70,6 +71,7 @@ class TemperatureAudit:
     groups_left_out: tuple[str, ...] = ()  # per-atom groups not judged (they cut through rigid molecules)
     assumption: dict[str, Any] | None = None  # the other plausible constraint count and its temperature
     half_step: str = ""  # how half-step velocities were handled, in words ("" when they are not)
+    translation: TranslationSplit | None = None  # molecules' translation against rotation and internal motion
 
 
 @dataclass(frozen=True)

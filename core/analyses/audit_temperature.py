@@ -23,6 +23,7 @@ from phasewake.core.analyses.audit_energy import EnergySeriesChoice
 from phasewake.core.analyses.audit_frames import AuditFrames, align_by_time
 from phasewake.core.analyses.audit_results import TemperatureAudit
 from phasewake.core.analyses.audit_verdicts import advice_of, fmt, source_of
+from phasewake.core.analyses.molecule_motion import translation_split
 from phasewake.core.analyses.verdicts import THRESHOLDS, Explanation, Verdict, judge, register
 from phasewake.core.errors import AnalysisError
 from phasewake.core.model.run import EnergyTable, Run
@@ -449,6 +450,11 @@ def temperature_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | Non
     left_out: tuple[str, ...] = ()
     if fp is not None and all_groups and kt.from_velocities is not None:
         gtemps, split, left_out = _equipartition(run, fp, dof, inference, all_groups, user_groups, notes)
+    translation = None
+    if fp is not None and kt.from_velocities is not None and fp.translation_kJ_per_mol is not None \
+            and fp.translation_total_kJ_per_mol is not None:
+        translation = translation_split(fp.translation_kJ_per_mol, fp.translation_total_kJ_per_mol,
+                                        n_molecules=fp.n_molecules, n_dof=dof.n_dof, n_com=dof.n_com)
     kdist, maxw, cnote = _canonical_checks(
         run, fp, kt, dof, inference, file_kinetic=None if file_kin is None else np.asarray(file_kin.values,
                                                                                           dtype=np.float64),
@@ -465,7 +471,7 @@ def temperature_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | Non
         velocities_estimated=bool(run.frames is not None and run.frames.velocities_estimated),
         constraint_inference=inference, groups=gtemps, kinetic_distribution=kdist, maxwell=tuple(maxw),
         canonical_note=cnote, time_ps=kt.time_ps, temperature_K=kt.series, split=split, groups_left_out=left_out,
-        half_step=kt.half_words,
+        half_step=kt.half_words, translation=translation,
     )
     verdicts: list[Verdict] = []
     if dof.assumed:

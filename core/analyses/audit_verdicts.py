@@ -329,12 +329,40 @@ def _temperature_verdicts(ta: TemperatureAudit) -> list[Verdict]:
             v = replace(v, level="problem")
         out.append(v if v.level != "ok" else replace(v, advice=""))
     else:
-        out.append(not_checked("temperature.equipartition", "Equipartition",
-                            "needs velocities and at least two groups of atoms (species, elements or masses, "
-                            "residue kinds, or --group)" if ta.mean_from_velocities_K is None or not
-                            ta.groups_left_out else "the only groups (elements, species or masses) cut through "
-                            "molecules that are or may be rigid; give --group"))
+        if ta.mean_from_velocities_K is None:
+            why = "needs velocities"
+        elif ta.groups_left_out or ta.n_constraints > 0:
+            why = ("the only groups of atoms (elements, species or masses) cut through molecules that are or may "
+                   "be rigid, and there is one kind of residue; give --group to compare parts of the system"
+                   + ("; translation against rotation is checked below" if ta.translation is not None else ""))
+        else:
+            why = "needs at least two groups of atoms (species, elements or masses, residue kinds, or --group)"
+        out.append(not_checked("temperature.equipartition", "Equipartition", why))
+    out.extend(_translation_verdict(ta))
     return out
+
+
+def _translation_verdict(ta: TemperatureAudit) -> list[Verdict]:
+    """Translation of whole molecules against their rotation and internal motion (none without molecules)."""
+    tr = ta.translation
+    if tr is None:
+        return []
+    zthr = THRESHOLDS["temperature.equipartition_significance"]
+    rel = abs(tr.relative_difference)
+    measured = rel if abs(tr.z_score) > zthr.caution else 0.0
+    v = judge("temperature.translation", measured, title="Translation against rotation", unit="",
+              message=f"T_trans = {tr.translation_K:.2f} K over {tr.dof_translation:g} degrees of freedom "
+                      f"({tr.n_molecules} molecules), T_rest = {tr.rest_K:.2f} K over {tr.dof_rest:g} (rotation "
+                      f"and internal motion); difference {tr.difference_K:+.3g} +- {tr.difference_error_K:.2g} K "
+                      f"({rel:.2%}, {tr.z_score:+.1f} sigma) on {tr.n_frames} frames"
+                      + ("" if abs(tr.z_score) > zthr.caution else f"; not significant (below {zthr.caution:g} sigma)")
+                      + f" ({source_of('temperature.translation')})",
+              advice=advice_of("temperature.translation"),
+              details={"translation_K": tr.translation_K, "rest_K": tr.rest_K, "z": tr.z_score})
+    if v.level == "caution" and abs(tr.z_score) >= zthr.problem:
+        v = replace(v, level="problem")
+    v = replace(v, measured=rel)  # shown as measured; judged only where significant
+    return [v if v.level != "ok" else replace(v, advice="")]
 
 
 def _canonical_verdicts(ta: TemperatureAudit, thermostatted: bool) -> list[Verdict]:
