@@ -13,7 +13,9 @@ translation and rotation unequally shows here.
 
 The split is taken on a sample of frames (every ``stride``-th frame of the audit's pass), so it costs
 little beside the pass; its error bar comes from the per-frame difference T_trans - T_rest and its
-statistical inefficiency (both from the same frames, so their correlation is kept).
+statistical inefficiency (both from the same frames, so their correlation is kept). Its threshold and
+explanation (``temperature.translation``) are registered in :mod:`phasewake.core.analyses.temperature`
+beside the equipartition groups'.
 """
 
 from __future__ import annotations
@@ -25,31 +27,7 @@ from typing import Any
 import numpy as np
 
 from phasewake.core.analyses.energy import statistical_inefficiency_of
-from phasewake.core.analyses.verdicts import Explanation, Threshold, register
 from phasewake.core.units import KB_KJ_PER_MOL_K
-
-register(
-    Threshold("temperature.translation", caution=0.02, problem=0.05, unit="",
-              source="common practice (relative difference of the translational and the rotational-internal "
-                     "temperature; judged only when significant at 3 sigma), as for the equipartition groups",
-              description="|T_trans - T_rest| / T over the sampled frames"),
-    Explanation(
-        title="Translation against rotation",
-        what="Whether the kinetic energy is shared equally between the translation of whole molecules and "
-             "their rotation and internal motion (equipartition theorem).",
-        method="Molecules from the topology's bonds (atoms of a small residue without bonds count as one "
-               "molecule). On every k-th frame: K_trans = sum over molecules of |P|^2 / 2M with P the "
-               "molecule's momentum; T_trans = 2 K_trans / (k_B (3 N_mol - n_com)), T_rest from the rest of "
-               "the kinetic energy and of N_dof. The error is that of the mean per-frame difference, "
-               "inflated by its statistical inefficiency.",
-        threshold="A relative difference above 0.02 is a caution, above 0.05 a problem, only when the "
-                  "difference is beyond 3 sigma: common practice, as for the equipartition groups.",
-        advice="A thermostat acting on atoms should heat both alike; a gap points at a thermostat or "
-               "integrator setting (too weak coupling to a part, a removed motion counted as present), or a "
-               "run not yet equilibrated. Check the degrees of freedom the engine counts (constraints, "
-               "centre-of-mass removal) first: a wrong count shifts T_rest.",
-    ),
-)
 
 
 def molecule_labels(topology: Any, n_atoms: int, *, small_residue_atoms: int = 5) -> np.ndarray | None:

@@ -93,6 +93,29 @@ register(
     ),
 )
 
+register(
+    Threshold("temperature.translation", caution=0.02, problem=0.05, unit="",
+              source="common practice (relative difference of the translational and the rotational-internal "
+                     "temperature; judged only when significant at 3 sigma), as for the equipartition groups",
+              description="|T_trans - T_rest| / T over the sampled frames"),
+    Explanation(
+        title="Translation against rotation",
+        what="Whether the kinetic energy is shared equally between the translation of whole molecules and "
+             "their rotation and internal motion (equipartition theorem).",
+        method="Molecules from the topology's bonds (atoms of a small residue without bonds count as one "
+               "molecule). On every k-th frame: K_trans = sum over molecules of |P|^2 / 2M with P the "
+               "molecule's momentum; T_trans = 2 K_trans / (k_B (3 N_mol - n_com)), T_rest from the rest of "
+               "the kinetic energy and of N_dof. The error is that of the mean per-frame difference, "
+               "inflated by its statistical inefficiency.",
+        threshold="A relative difference above 0.02 is a caution, above 0.05 a problem, only when the "
+                  "difference is beyond 3 sigma: common practice, as for the equipartition groups.",
+        advice="A thermostat acting on atoms should heat both alike; a gap points at a thermostat or "
+               "integrator setting (too weak coupling to a part, a removed motion counted as present), or a "
+               "run not yet equilibrated. Check the degrees of freedom the engine counts (constraints, "
+               "centre-of-mass removal) first: a wrong count shifts T_rest.",
+    ),
+)
+
 RIGID_RELATIVE_STD = 1e-3  # a pair distance fluctuating less than this (relative) is held rigid
 
 
