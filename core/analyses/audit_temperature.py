@@ -453,8 +453,12 @@ def temperature_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | Non
     translation = None
     if fp is not None and kt.from_velocities is not None and fp.translation_kJ_per_mol is not None \
             and fp.translation_total_kJ_per_mol is not None:
-        translation = translation_split(fp.translation_kJ_per_mol, fp.translation_total_kJ_per_mol,
-                                        n_molecules=fp.n_molecules, n_dof=dof.n_dof, n_com=dof.n_com)
+        if run.frames is not None and run.frames.velocities_estimated:
+            notes.append("Translation against rotation is not checked: the velocities are estimated from the "
+                         "positions of neighbouring frames, which misses rotation faster than the frame spacing.")
+        else:
+            translation = translation_split(fp.translation_kJ_per_mol, fp.translation_total_kJ_per_mol,
+                                            n_molecules=fp.n_molecules, n_dof=dof.n_dof, n_com=dof.n_com)
     kdist, maxw, cnote = _canonical_checks(
         run, fp, kt, dof, inference, file_kinetic=None if file_kin is None else np.asarray(file_kin.values,
                                                                                           dtype=np.float64),
