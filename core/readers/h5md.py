@@ -395,7 +395,7 @@ def _read_h5md(path: Path, *, group: str | None, units: _StatedUnits) -> H5MDCon
         has_box = box_fixed is not None or box_rows is not None
         image_rows = _image_rows(pg, where, pax, units, n_atoms, md, path, warnings) if has_box else None
         masses = _masses(pg, where, n_atoms, md, path, warnings)
-        topology = _topology(f, pg, where, params, n_atoms, md, path)
+        topology = _topology(f, pg, where, params, n_atoms, md, path, masses)
         if masses is None:
             masses = masses_from_topology(topology, n_atoms)
             if masses is not None:
@@ -608,7 +608,7 @@ def _masses(pg: h5py.Group, where: str, n_atoms: int, md: RunMetadata, path: Pat
 
 
 def _topology(f: h5py.File, pg: h5py.Group, where: str, params: dict[str, Any], n_atoms: int,
-              md: RunMetadata, path: Path) -> mdtraj.Topology | None:
+              md: RunMetadata, path: Path, masses: np.ndarray | None = None) -> mdtraj.Topology | None:
     """The stored topology (/parameters/topology_json), else one made of the species and bonds."""
     import h5py
 
@@ -623,13 +623,34 @@ def _topology(f: h5py.File, pg: h5py.Group, where: str, params: dict[str, Any], 
         return None
     sp = pg["species"]
     sval = sp[()] if isinstance(sp, h5py.Dataset) else sp["value"][()]
-    symbols = _species_symbols(sval, decode(sp.attrs.get("phasewake_meaning", "")))
+    meaning = decode(sp.attrs.get("phasewake_meaning", ""))
+    symbols = _species_symbols(sval, meaning if meaning or not _masses_say_atomic_numbers(sval, masses)
+                               else "atomic number")
     if symbols is None or len(symbols) != n_atoms:
         md.extra["species"] = np.asarray(sval).tolist()
         return None
     bonds = f["connectivity"]["bonds"][()] if "connectivity" in f and "bonds" in f["connectivity"] else None
-    md.sources["topology"] = f"{path.name}:{where}/species"
+    md.sources["topology"] = f"{path.name}:{where}/species" + ("" if meaning else " (atomic numbers, as the masses show)")
     return topology_from_elements(symbols, bonds)
+
+
+def _masses_say_atomic_numbers(sval: Any, masses: np.ndarray | None) -> bool:
+    """Integer species whose every value is an atomic number with the standard atomic weight of the stored
+    mass (within 0.1 amu): the species are atomic numbers, as OpenMM-based and other writers store them
+    without saying so. Anything else (force-field types 1, 2, ... with argon masses, deuterium) is not."""
+    vals = np.asarray(sval)
+    if masses is None or vals.dtype.kind not in "iu" or vals.shape != masses.shape or vals.size == 0:
+        return False
+    from mdtraj.core import element as elem
+
+    for z in np.unique(vals):
+        try:
+            weight = elem.Element.getByAtomicNumber(int(z)).mass
+        except KeyError:
+            return False
+        if not np.all(np.abs(masses[vals == z] - weight) <= 0.1):
+            return False
+    return True
 
 
 def _species_symbols(sval: Any, meaning: Any) -> list[str] | None:

@@ -382,6 +382,35 @@ def test_openmm_langevin_not_judged_as_nve(capsys: pytest.CaptureFixture[str]) -
     assert not [v for v in verdicts(a, "energy.") if v["level"] == "problem"], verdicts(a, "energy.")
 
 
+@pytest.mark.parametrize("run", ["tip3p_rigid_nve_verlet", "tip3p_rigid_nvt_langevin", "tip3p_flexible_frames_1fs",
+                                 "tip3p_flexible_frames_10fs"])
+def test_openmm_h5md_alone_gives_the_engine_dof(run: str, capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: OpenMM's System.getNumConstraints() and particles (reported.json: dof 771 rigid, 240
+    # flexible). The H5MD holds species as bare integers (no attribute saying they are atomic numbers),
+    # masses and bonds; the masses show the integers are atomic numbers, so the file alone gives a topology,
+    # and the rigid waters are found from the frames (before: no topology, 0 constraints assumed, 1158).
+    rep = reported(f"openmm/{run}")["reported"]
+    code, a, err = cli(capsys, "audit", ENGINES / "openmm" / run / "frames.h5md")
+    assert code in (0, 1), err
+    assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"], a["temperature"]["constraints_source"]
+
+
+def test_integer_species_that_are_not_atomic_numbers_make_no_topology(tmp_path: Path) -> None:
+    # LAMMPS-style type ids 1 and 2 with argon and neon masses: 1 and 2 are not H and He here
+    from phasewake.core.readers import open_run
+    from phasewake.core.readers.h5md import write_h5md
+
+    pos = np.random.default_rng(1).uniform(0, 2, (3, 4, 3)).astype(np.float32)
+    path = tmp_path / "lj.h5md"
+    write_h5md(path, positions_nm=pos, time_ps=np.arange(3) * 0.01, masses_amu=np.array([39.948, 39.948, 20.18, 20.18]))
+    import h5py
+
+    with h5py.File(path, "a") as f:
+        f["particles/all"].create_dataset("species", data=np.array([1, 1, 2, 2], np.int32))
+    run = open_run([path])
+    assert run.topology is None and run.metadata.extra.get("species") == [1, 1, 2, 2]
+
+
 @pytest.mark.parametrize("run", ["tip3p_flexible_frames_1fs", "tip3p_flexible_frames_10fs"])
 def test_openmm_flexible_h5md_matches_the_engine(run: str, capsys: pytest.CaptureFixture[str]) -> None:
     # reference: OpenMM's State at each frame (frame count and spacing), its System (81 atoms, no

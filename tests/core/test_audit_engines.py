@@ -55,12 +55,21 @@ def test_openmm_verlet_twin_is_inferred_nve_and_judged_on_its_total_energy():
     assert res.energy.fluctuations.ratio < 0.05
 
 
-def test_openmm_h5md_without_topology_names_the_assumption_and_the_engines_count_is_the_other():
-    # frames.h5md carries masses, species as atomic numbers and OpenMM's kinetic energy, but no topology
-    # the audit can use and no DOF count: T with 0 constraints is a caution, and the other value (rigid
-    # water, 3 per molecule, from the masses) is OpenMM's own temperature at those frames
+def test_openmm_h5md_without_topology_names_the_assumption_and_the_engines_count_is_the_other(tmp_path):
+    # frames.h5md carries masses, species as atomic numbers and OpenMM's kinetic energy; its species and
+    # masses now give a topology (tests/app/test_engine_runs.py), so a copy without the species stands for a
+    # file with no topology the audit can use and no DOF count: T with 0 constraints is a caution, and the
+    # other value (rigid water, 3 per molecule, from the masses) is OpenMM's own temperature at those frames
+    import shutil
+
+    import h5py
+
     d, rep = _engine("openmm/tip3p_rigid_nvt_langevin")
-    res = drive(audit_run(open_run([d / "frames.h5md"])))
+    bare = tmp_path / "frames.h5md"
+    shutil.copyfile(d / "frames.h5md", bare)
+    with h5py.File(bare, "a") as f:
+        del f["particles/all/species"]
+    res = drive(audit_run(open_run([bare])))
     a = _verdicts(res)["temperature.assumption"]
     assert a.level == "caution" and "rigid" in a.message
     ta = res.temperature
