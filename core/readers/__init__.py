@@ -273,9 +273,10 @@ def _read_energy_files(run: Run, inputs: _Inputs, options: EnergyOptions, warnin
         table, engine_results, table_warnings = read_energy_sources(inputs.energy, options)
     for res in engine_results:
         apply_facts(run.metadata, res.facts, res.source, res.fact_sources)
-        for key, val in res.extra.items():  # lists (one entry per part of a run) add up
-            had = run.metadata.extra.get(key)
-            run.metadata.extra[key] = had + val if isinstance(had, list) and isinstance(val, list) else val
+        for key, val in res.extra.items():  # lists (one entry per part of a run) add up, each entry once
+            had = run.metadata.extra.get(key)  # (a log read itself and beside its .edr says the same)
+            run.metadata.extra[key] = had + [x for x in val if x not in had] \
+                if isinstance(had, list) and isinstance(val, list) else val
     warnings.extend(table_warnings)
     if table is None:
         return

@@ -117,6 +117,13 @@ def test_gromacs_drift_line_read_and_its_rule_reproduced(run_name):
     assert ours == pytest.approx(lines[0]["kJ_mol_ps_atom"], rel=6e-3)
 
 
+def test_a_log_given_beside_its_edr_says_its_drift_once():
+    # the folder holds md.log: read on its own and again as the .edr's neighbour, its line is kept once
+    d = ENGINES / "spce_rigid_nvt_vrescale"
+    for files in ([d], [d / "md.edr", d / "md.log"]):
+        assert len(open_run(files).metadata.extra["engine_drift"]) == 1
+
+
 def test_gromacs_parts_give_one_drift_line_each():
     d = ENGINES / "spce_rigid_nve_parts"
     run = open_run(sorted(d.glob("md*.edr")))
