@@ -296,7 +296,8 @@ def audit_run(
     return AuditResult(run_name=run.name, paths=tuple(str(p) for p in run.paths), ensemble=decision.label,
                        thermostatted=decision.thermostatted, energy=eaudit, temperature=temp, timestep=tsa,
                        scaling=scaling, compared=compared, verdicts=tuple(verdicts), notes=tuple(notes),
-                       settings=settings, ensemble_source=decision.source, ensemble_origin=decision.origin)
+                       settings=settings, ensemble_source=decision.source, ensemble_origin=decision.origin,
+                       target_temperature_K=target_T if decision.thermostatted else None)
 
 
 # ---------------------------------------------------------------------------------------------------

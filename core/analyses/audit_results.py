@@ -107,6 +107,7 @@ class AuditResult(ResultMixin):
     settings: dict[str, Any] = field(default_factory=dict)
     ensemble_source: str = ""  # where the ensemble came from, in words (files, stated, inferred + evidence)
     ensemble_origin: str = ""  # "files", "stated", "inferred" or "unknown"
+    target_temperature_K: float | None = None  # the thermostat's target (stated, else the files'); None in NVE
 
     @property
     def level(self) -> Level:

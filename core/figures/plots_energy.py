@@ -195,7 +195,9 @@ def audit_temperature_figure(audit: Any, *, cursor_ps: float | None = None) -> F
                                   style=indexed_style(0))]
     items.append(Mark("hline", float(ta.mean_K), label=f"mean {ta.mean_K:.1f} K", role="annotation",
                       style=Style(colour=PALETTE[0], dash="dash", width=1.2)))
-    target = audit.settings.get("temperature_K") if isinstance(audit.settings, Mapping) else None
+    target = getattr(audit, "target_temperature_K", None)
+    if target is None and isinstance(audit.settings, Mapping):
+        target = audit.settings.get("temperature_K")
     if target:
         items.append(Mark("hline", float(target), label=f"target {float(target):g} K", role="threshold",
                           style=Style(colour=PALETTE[6], dash="dot", width=1.4)))
@@ -209,7 +211,8 @@ def audit_temperature_figure(audit: Any, *, cursor_ps: float | None = None) -> F
                + (f" File temperature mean {ta.file_temperature_mean_K:.2f} K." if ta.file_temperature_mean_K
                   is not None else "")
                + (" Velocities estimated from positions by central differences." if ta.velocities_estimated
-                  else ""))
+                  else "")
+               + (f" Dotted: the thermostat's target {float(target):g} K." if target else ""))
     return FigureSpec(key="temperature.audit", title=f"Kinetic temperature: {audit.run_name}",
                       plots=(PlotSpec(title="Kinetic temperature", x=TIME, y=Axis("Temperature", "K"),
                                       items=tuple(items), x_is_time=True,

@@ -100,3 +100,18 @@ def test_energy_table_only_shows_the_engines_own_temperature():
     assert len(shown) == 1 and "the file's temperature column" in shown[0].message
     assert rep["temperature_units"] == "K"
     assert shown[0].measured == pytest.approx(rep["temperature_mean"], abs=0.05)
+
+
+def test_thermostat_target_drawn_on_the_temperature_figure():
+    # reference: md.log ref-t of the v-rescale run (reported.json target_temperature_K = 300); the NVE run has
+    # no target. The figure the window and the report draw carries the target as a dotted line.
+    from phasewake.core.figures import plots
+
+    d, rep = _engine("gromacs/spce_rigid_nvt_vrescale")
+    res = drive(audit_run(open_run([d / "md.edr", d / "md.trr", d / "md.gro"])))
+    assert res.target_temperature_K == rep["target_temperature_K"]
+    fig = plots.audit_temperature_figure(res)
+    marks = [m for p in fig.plots for m in p.items if getattr(m, "kind", None) == "hline"]
+    assert any(m.value == pytest.approx(300.0) and "target" in m.label for m in marks), marks
+    d2, _ = _engine("gromacs/spce_rigid_nve_whole")
+    assert drive(audit_run(open_run([d2 / "md.edr"]))).target_temperature_K is None
