@@ -29,6 +29,19 @@ def _file_temperature(run: Run) -> str:
     return f"{v.mean():.4g} K (mean of the energy table's {s.name})" if v.size else ""
 
 
+def _energy_terms(run: Run, most: int = 6) -> str:
+    """The energy table's terms: all when few; else their number and those the analyses use (the total,
+    kinetic, potential, conserved and temperature columns), the full list in the cell's tooltip."""
+    if run.energies is None or not run.energies.series:
+        return "none"
+    series = [s for s in run.energies.series.values() if s.role not in ("time", "step")]
+    names = [f"{s.name} ({s.unit})" if s.unit else s.name for s in series]
+    if len(names) <= most:
+        return ", ".join(names) or "none"
+    used = [n for s, n in zip(series, names) if s.role not in (None, "", "other")][:most]
+    return f"{len(names)} terms" + (f", among them {', '.join(used)}" if used else "") + " (hover for all)"
+
+
 def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
     """What a run holds, as (what, value) rows for the Runs list.
 
@@ -49,12 +62,6 @@ def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
     else:
         vel = "none"
     rows.append(("velocities", vel))
-    if run.energies is not None and run.energies.series:
-        terms = [f"{s.name} ({s.unit})" if s.unit else s.name for s in run.energies.series.values()
-                 if s.role not in ("time", "step")]
-        rows.append(("energy terms", ", ".join(terms) if terms else "none"))
-    else:
-        rows.append(("energy terms", "none"))
     md = run.metadata
     rows.append(("time step", "unknown" if md.timestep_ps is None else f"{md.timestep_ps * 1e3:.4g} fs"))
     rows.append(("ensemble", md.ensemble or "unknown"))
@@ -67,6 +74,7 @@ def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
                  ("being measured" if run.has_velocities else "unknown (no velocities, no temperature column)")))
     rows.append(("constraints", "unknown" if md.n_constraints is None else
                  f"{md.n_constraints}" + (f" ({md.constraints_source})" if md.constraints_source else "")))
+    rows.append(("energy terms", _energy_terms(run)))
     if run.paths:
         rows.append(("files", ", ".join(Path(p).name for p in run.paths)))
     for w in run.warnings[:4]:
@@ -234,7 +242,13 @@ class RunsList(TakesDroppedFiles, QtWidgets.QWidget):
         self.details.setRowCount(len(rows))
         for r, (k, v) in enumerate(rows):
             self.details.setItem(r, 0, QtWidgets.QTableWidgetItem(k))
-            self.details.setItem(r, 1, QtWidgets.QTableWidgetItem(v))
+            cell = QtWidgets.QTableWidgetItem(v)
+            if k == "energy terms" and e is not None and e.run.energies is not None:
+                cell.setToolTip("\n".join(f"{s.name} ({s.unit})" if s.unit else s.name
+                                           for s in e.run.energies.series.values()))
+            else:
+                cell.setToolTip(v)
+            self.details.setItem(r, 1, cell)
         self.details.resizeColumnToContents(0)
         self.details.resizeRowsToContents()
         self.settings.setEnabled(e is not None)
