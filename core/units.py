@@ -155,6 +155,7 @@ _INTERNAL_TEXT: dict[_Dim, tuple[str, str]] = {
     (1, -1, 1, 0, 0): ("amu nm/ps", "momentum"),
     (2, -1, 1, 0, 0): ("kJ ps/mol", "action"),
     (-1, 0, 1, 0, 0): ("amu/nm", "linear density"),
+    (0, -2, 1, 0, 0): ("bar nm", "surface tension"),  # GROMACS's #Surf*SurfTen; 1 bar nm = 0.1 mN/m
 }
 _BASE_TEXT = ("nm", "ps", "amu", "K", "e")
 

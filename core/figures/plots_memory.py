@@ -51,8 +51,8 @@ def autocorrelation_figure(result: Any, *, name: str = "series", max_lag_ps: flo
     note = (f"g = {result.statistical_inefficiency:.3g}, τ_int = {result.tau_int_sokal_ps:.3g} ps, "
             f"N_eff = {result.effective_sample_size:.0f}")
     caption = (f"Normalised autocorrelation of {name} ({result.n_samples} samples, {result.dt_ps:.3g} ps apart), "
-               f"by FFT (biased estimator). Statistical inefficiency g = 1 + 2 Σρ by the {result.method} "
-               f"method (window M = {result.window_lags} lags): g = {result.statistical_inefficiency:.3g}, "
+               f"by FFT (biased estimator). Statistical inefficiency g = 1 + 2 Σρ, summed by "
+               f"{result.method} (window M = {result.window_lags} lags): g = {result.statistical_inefficiency:.3g}, "
                f"Sokal's τ_int = g/2 = {result.tau_int_sokal_ps:.3g} ps, effective sample size "
                f"{result.effective_sample_size:.0f}, standard error of the mean "
                f"{fmt_number(result.standard_error_of_mean, result.unit)}."

@@ -93,7 +93,8 @@ def summary_page(run: Run, verdicts: Sequence[Any], audit: Any, shown: Mapping[s
              "Velocities: " + ("estimated from positions" if run.frames is not None and
                                run.frames.velocities_estimated else
                                "stored" if run.has_velocities else "none"),
-             "Energy terms: " + (", ".join(f"{s.name} ({s.unit})" for s in run.energies.series.values())
+             "Energy terms: " + (", ".join(f"{s.name} ({s.unit})" if s.unit else s.name
+                                           for s in run.energies.series.values())
                                  if run.energies is not None else "none")]
     md = run.metadata
     meta = [f"{k} {v}" for k, v in (("ensemble", md.ensemble), ("thermostat", md.thermostat),

@@ -131,3 +131,10 @@ def test_degenerate_factors_and_powers_are_errors(text):
     # a conversion factor must be positive and finite (found by the fuzz tests in tests/robustness)
     with pytest.raises(UnitError):
         parse_unit(text)
+
+
+def test_surface_tension_in_bar_nm():
+    # GROMACS writes #Surf*SurfTen in bar nm; 1 bar nm = 1e5 Pa x 1e-9 m = 1e-4 N/m = 0.1 mN/m (SI definitions)
+    u = parse_unit("bar nm")
+    assert (u.internal, u.dimension, u.factor) == ("bar nm", "surface tension", 1.0)
+    assert parse_unit("J/m^2").factor == pytest.approx(1e4, rel=1e-12)  # 1 J/m^2 = 1 N/m
