@@ -69,8 +69,22 @@ def amber_netcdf(path: Path, xyz_nm: np.ndarray, vel_internal: np.ndarray, time_
     return path
 
 
-def water_topology(n_waters: int, flexible_extra: int = 0):  # -> mdtraj.Topology
-    """``n_waters`` waters (O bonded to H1 and H2) and ``flexible_extra`` six-carbon chains."""
+def random_rotations(rng: np.random.Generator, n: int) -> np.ndarray:
+    """``n`` rotation matrices, shape (n, 3, 3), uniform over the rotations (unit quaternions from
+    normalised Gaussians; Shoemake, Graphics Gems III, 1992, from memory)."""
+    q = rng.normal(size=(n, 4))
+    q /= np.linalg.norm(q, axis=1, keepdims=True)
+    w, x, y, z = q.T
+    return np.stack([
+        np.stack([1 - 2 * (y * y + z * z), 2 * (x * y - z * w), 2 * (x * z + y * w)], -1),
+        np.stack([2 * (x * y + z * w), 1 - 2 * (x * x + z * z), 2 * (y * z - x * w)], -1),
+        np.stack([2 * (x * z - y * w), 2 * (y * z + x * w), 1 - 2 * (x * x + y * y)], -1),
+    ], -2)
+
+
+def water_topology(n_waters: int, flexible_extra: int = 0, *, bonds: bool = True):  # -> mdtraj.Topology
+    """``n_waters`` waters (O bonded to H1 and H2 unless ``bonds`` is False) and ``flexible_extra``
+    six-carbon chains."""
     import mdtraj as md
 
     top = md.Topology()
@@ -80,8 +94,9 @@ def water_topology(n_waters: int, flexible_extra: int = 0):  # -> mdtraj.Topolog
         o = top.add_atom("O", md.element.oxygen, r)
         h1 = top.add_atom("H1", md.element.hydrogen, r)
         h2 = top.add_atom("H2", md.element.hydrogen, r)
-        top.add_bond(o, h1)
-        top.add_bond(o, h2)
+        if bonds:
+            top.add_bond(o, h1)
+            top.add_bond(o, h2)
     for _ in range(flexible_extra):  # a 6-atom chain C-C-C-C-C-C, flexible, not a small residue
         r = top.add_residue("HEX", chain)
         atoms = [top.add_atom(f"C{i}", md.element.carbon, r) for i in range(6)]

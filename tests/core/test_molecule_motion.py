@@ -23,34 +23,12 @@ from phasewake.core.model.run import RunMetadata
 from phasewake.core.progress import result_of
 from phasewake.core.readers import open_run
 from phasewake.core.readers.memory import run_from_arrays
+from tests.helpers import random_rotations, water_topology
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 (R / 1000)
 ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "gromacs"
 BODY = np.array([[0.0, 0.0, 0.0], [0.1, 0.0, 0.0], [-0.0333, 0.0943, 0.0]])  # SPC/E O, H, H (nm)
 MASSES = np.array([15.9994, 1.008, 1.008])
-
-
-def water_topology(n_w: int, bonds: bool = False) -> md.Topology:
-    top = md.Topology()
-    ch = top.add_chain()
-    for _ in range(n_w):
-        r = top.add_residue("HOH", ch)
-        o = top.add_atom("O", md.element.oxygen, r)
-        h1 = top.add_atom("H1", md.element.hydrogen, r)
-        h2 = top.add_atom("H2", md.element.hydrogen, r)
-        if bonds:
-            top.add_bond(o, h1)
-            top.add_bond(o, h2)
-    return top
-
-
-def _rotations(rng: np.random.Generator, n: int) -> np.ndarray:
-    q = rng.standard_normal((n, 4))
-    q /= np.linalg.norm(q, axis=1, keepdims=True)
-    w, x, y, z = q.T
-    return np.stack([np.stack([1 - 2 * (y * y + z * z), 2 * (x * y - z * w), 2 * (x * z + y * w)], -1),
-                     np.stack([2 * (x * y + z * w), 1 - 2 * (x * x + z * z), 2 * (y * z - x * w)], -1),
-                     np.stack([2 * (x * z - y * w), 2 * (y * z + x * w), 1 - 2 * (x * x + y * y)], -1)], 1)
 
 
 def rigid_water_frames(rng: np.random.Generator, n_w: int, n_frames: int, temp: float,
@@ -68,7 +46,7 @@ def rigid_water_frames(rng: np.random.Generator, n_w: int, n_frames: int, temp: 
     vel = np.empty_like(pos)
     big_m = MASSES.sum()
     for f in range(n_frames):
-        rot = _rotations(rng, n_w)
+        rot = random_rotations(rng, n_w)
         centre = rng.uniform(0, 3, (n_w, 1, 3))
         r = np.einsum("wij,aj->wai", rot, body)
         v_com = rng.normal(0, math.sqrt(kt / big_m), (n_w, 1, 3)) * translation_scale
@@ -79,7 +57,7 @@ def rigid_water_frames(rng: np.random.Generator, n_w: int, n_frames: int, temp: 
 
 
 def test_molecules_from_bonds_match_mdtraj_and_small_residues_count_without_bonds():
-    top = water_topology(5, bonds=True)
+    top = water_topology(5)
     labels = molecule_labels(top, top.n_atoms)
     ref = sorted(sorted(a.index for a in mol) for mol in top.find_molecules())
     got = sorted(sorted(np.flatnonzero(labels == k).tolist()) for k in range(labels.max() + 1))
@@ -109,7 +87,7 @@ def test_canonical_rigid_water_shares_equally_hot_translation_is_found(scale, le
     rng = np.random.default_rng(8)
     n_w, n_frames, temp = 60, 120, 300.0
     pos, vel = rigid_water_frames(rng, n_w, n_frames, temp, translation_scale=scale)
-    top = water_topology(n_w)
+    top = water_topology(n_w, bonds=False)
     m = np.tile(MASSES, n_w)
     md_ = RunMetadata(ensemble="NVT", thermostat="test", temperature_K=temp, n_constraints=3 * n_w,
                       com_motion_removed=False)

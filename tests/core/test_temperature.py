@@ -10,7 +10,7 @@ import pytest
 
 from phasewake.core.analyses import temperature as tm
 from phasewake.core.errors import AnalysisError
-from tests.helpers import water_topology
+from tests.helpers import random_rotations, water_topology
 
 KB = 0.00831446261815324  # kJ/mol/K, CODATA 2018 exact (k_B N_A)
 
@@ -101,15 +101,17 @@ def test_equipartition_flags_hot_group_only_when_significant():
 # --- Constraint inference -----------------------------------------------------------------------------
 
 
-def _random_rotations(rng, n):
-    q = rng.normal(size=(n, 4))
-    q /= np.linalg.norm(q, axis=1, keepdims=True)
-    w, x, y, z = q.T
-    return np.stack([
-        np.stack([1 - 2 * (y * y + z * z), 2 * (x * y - z * w), 2 * (x * z + y * w)], -1),
-        np.stack([2 * (x * y + z * w), 1 - 2 * (x * x + z * z), 2 * (y * z - x * w)], -1),
-        np.stack([2 * (x * z - y * w), 2 * (y * z + x * w), 1 - 2 * (x * x + y * y)], -1),
-    ], -2)
+def _waters_and_chains(rng, body, n_w, n_f, n_frames):
+    """Frames of n_w rigid waters (``body`` geometry, random orientations and places) then n_f flexible
+    six-atom chains, as water_topology(n_w, n_f) orders them."""
+    pos = np.empty((n_frames, 3 * n_w + 6 * n_f, 3))
+    for f in range(n_frames):
+        rot = random_rotations(rng, n_w)
+        pos[f, : 3 * n_w] = (np.einsum("wij,aj->wai", rot, body) + rng.uniform(0, 2, (n_w, 1, 3))).reshape(-1, 3)
+        chain = np.cumsum(np.concatenate([np.zeros((n_f, 1, 3)),
+                                          rng.normal(0, 0.09, (n_f, 5, 3)) + [0.15, 0, 0]], axis=1), axis=1)
+        pos[f, 3 * n_w:] = chain.reshape(-1, 3)
+    return pos
 
 
 def test_rigid_water_gives_three_constraints_each_flexible_chain_none():
@@ -118,13 +120,7 @@ def test_rigid_water_gives_three_constraints_each_flexible_chain_none():
     n_w, n_f, n_frames = 20, 2, 60
     top = water_topology(n_w, n_f)
     body = np.array([[0.0, 0.0, 0.0], [0.09572, 0.0, 0.0], [-0.02399, 0.09266, 0.0]])  # TIP3P geometry
-    pos = np.empty((n_frames, top.n_atoms, 3))
-    for f in range(n_frames):
-        rot = _random_rotations(rng, n_w)
-        pos[f, : 3 * n_w] = (np.einsum("wij,aj->wai", rot, body) + rng.uniform(0, 2, (n_w, 1, 3))).reshape(-1, 3)
-        chain = np.cumsum(np.concatenate([np.zeros((n_f, 1, 3)),
-                                          rng.normal(0, 0.09, (n_f, 5, 3)) + [0.15, 0, 0]], axis=1), axis=1)
-        pos[f, 3 * n_w:] = chain.reshape(-1, 3)
+    pos = _waters_and_chains(rng, body, n_w, n_f, n_frames)
     pairs = tm.candidate_pairs(top)
     acc = tm.RigidPairAccumulator(pairs, top.n_atoms)
     acc.update(pos[:25].astype(np.float32))
@@ -143,13 +139,7 @@ def test_one_unconstrained_start_frame_leaves_rigid_pairs_rigid():
     n_w, n_f, n_frames = 20, 2, 40
     top = water_topology(n_w, n_f)
     body = np.array([[0.0, 0.0, 0.0], [0.1, 0.0, 0.0], [-0.0333, 0.0943, 0.0]])  # SPC/E geometry
-    pos = np.empty((n_frames, top.n_atoms, 3))
-    for f in range(n_frames):
-        rot = _random_rotations(rng, n_w)
-        pos[f, : 3 * n_w] = (np.einsum("wij,aj->wai", rot, body) + rng.uniform(0, 2, (n_w, 1, 3))).reshape(-1, 3)
-        chain = np.cumsum(np.concatenate([np.zeros((n_f, 1, 3)),
-                                          rng.normal(0, 0.09, (n_f, 5, 3)) + [0.15, 0, 0]], axis=1), axis=1)
-        pos[f, 3 * n_w:] = chain.reshape(-1, 3)
+    pos = _waters_and_chains(rng, body, n_w, n_f, n_frames)
     pos[0] = np.round(pos[0], 3)  # the .gro start
     pairs = tm.candidate_pairs(top)
     whole = tm.RigidPairAccumulator(pairs, top.n_atoms)
