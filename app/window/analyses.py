@@ -17,7 +17,6 @@ from typing import Any
 import numpy as np
 
 from phasewake.app.window.replicas import replicas_of
-from phasewake.core.analyses.audit import AuditRequest
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
 from phasewake.core.errors import PhasewakeError
@@ -216,6 +215,7 @@ def energy_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
 
 def audit_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]:
     """The energy audit (drift, fluctuations, temperature, time step) with its verdicts."""
+    from phasewake.core.analyses.audit import AuditRequest
     yield from energy_job(ctx)
     run = window_run(ctx.run, ctx.start, ctx.stop)
     # what the user stated, as the command line gives it (the same key as `phasewake audit`, shared_frames_job's)
@@ -276,6 +276,7 @@ def shared_frames_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelRe
     autocorrelation and spectrum, into the result cache (``cached.requested_pass``), before the panels start:
     their jobs then find these results there instead of each reading the frames. Only when the cache is on, the run has files and the whole run is
     analysed (the keys are those of the panels' own requests); otherwise nothing is done here."""
+    from phasewake.core.analyses.audit import AuditRequest
     from phasewake.core.analyses.coordinates import CoordinatesRequest
     from phasewake.core.analyses.projection import PCARequest
     from phasewake.core.analyses.velocity import SpectrumRequest, VACFRequest
