@@ -75,7 +75,7 @@ def _write_table(result: Any, out: Any, *, explain: bool, label: str = "") -> No
             w(f"  kinetic energy for sigma_K: {ea.kinetic_source}\n")
     if ta is not None:
         w(f"  kinetic temperature: {ta.mean_K:.2f} +- {ta.error_K:.2f} K from {ta.kinetic_source}\n")
-        w(f"  degrees of freedom: {ta.n_dof} = 3 x {ta.n_atoms} - {ta.n_constraints} constraints "
+        w(f"  degrees of freedom: {ta.n_dof} = {ta.atoms_words} - {ta.n_constraints} constraints "
           f"[{ta.constraints_source}] - {ta.n_com_removed} centre of mass [{ta.com_source}]\n")
     w("\n")
     wrap = textwrap.TextWrapper(width=100, initial_indent="      ", subsequent_indent="      ")

@@ -61,9 +61,10 @@ class AuditFrames:
 
 
 def reads_velocities(run: Run) -> bool:
-    """Whether the audit reads the run's velocities: it has them and every atom's mass is known."""
+    """Whether the audit reads the run's velocities: it has them and every atom's mass is known (0 for a
+    virtual site)."""
     m = run.masses_amu
-    return bool(run.has_velocities and run.n_atoms and np.all(np.isfinite(m)) and np.all(m > 0))
+    return bool(run.has_velocities and run.n_atoms and np.all(np.isfinite(m)) and np.all(m >= 0) and np.any(m > 0))
 
 
 def needs_com(run: Run, thermostatted: bool) -> bool:
@@ -171,7 +172,7 @@ class AuditFramesConsumer:
         self._species = tm.species_of(run.topology, run.masses_amu) if self.want_speeds else {}
         self.rigid: tm.RigidPairAccumulator | None = None
         if infer and run.topology is not None:
-            pairs = tm.candidate_pairs(run.topology)
+            pairs = tm.candidate_pairs(run.topology, exclude=run.virtual_sites)
             if pairs.size:
                 self.rigid = tm.RigidPairAccumulator(pairs, run.n_atoms)
         # positions only for the constraint inference: velocity-only reads are half the I/O
@@ -416,7 +417,7 @@ def infer_constraints_only(run: Run) -> tm.ConstraintInference | None:
     """Constraints inferred from the first frames' positions (None without a topology, frames or candidate pairs)."""
     if run.topology is None or run.frames is None:
         return None
-    pairs = tm.candidate_pairs(run.topology)
+    pairs = tm.candidate_pairs(run.topology, exclude=run.virtual_sites)
     if not pairs.size:
         return None
     consumer = RigidPairsConsumer(pairs, run.n_atoms)

@@ -72,6 +72,14 @@ class TemperatureAudit:
     assumption: dict[str, Any] | None = None  # the other plausible constraint count and its temperature
     half_step: str = ""  # how half-step velocities were handled, in words ("" when they are not)
     translation: TranslationSplit | None = None  # molecules' translation against rotation and internal motion
+    n_virtual_sites: int = 0  # massless particles: no degrees of freedom
+
+    @property
+    def atoms_words(self) -> str:
+        """'3 x N' of the degrees of freedom, saying the virtual sites left out when there are any."""
+        n = self.n_atoms - self.n_virtual_sites
+        return f"3 x {n}" + (f" ({self.n_virtual_sites} massless virtual sites have none)" if self.n_virtual_sites
+                             else "")
 
 
 @dataclass(frozen=True)

@@ -164,15 +164,15 @@ def count_dof(run: Run, table: EnergyTable | None, fp: AuditFrames | None,
     n_con, con_src, assumed = _constraints(run, n_constraints, inference, notes)
     n_com, com_src = _com_removed(run, fp, thermostatted)
     try:
-        n_dof = tm.degrees_of_freedom(run.n_atoms, n_constraints=n_con, n_com=n_com) if run.n_atoms else None
+        n_dof = tm.degrees_of_freedom(run.n_massive, n_constraints=n_con, n_com=n_com) if run.n_atoms else None
     except AnalysisError:
         n_dof = None
         notes.append("The degrees of freedom could not be counted (too many constraints for the atoms).")
     if n_constraints is None and run.n_atoms and (md.n_dof is not None or assumed):
         engine_dof, engine_src = _engine_dof(run, table, fp, n_com)
-        if engine_dof is not None and 0 < engine_dof <= 3 * run.n_atoms:
+        if engine_dof is not None and 0 < engine_dof <= 3 * run.n_massive:
             n_dof = int(engine_dof)
-            n_con = max(0, 3 * run.n_atoms - n_com - n_dof)
+            n_con = max(0, 3 * run.n_massive - n_com - n_dof)
             con_src = f"from the engine's own count of degrees of freedom, N_dof = {n_dof} ({engine_src})"
             assumed = False
     return DofCount(n_dof, n_con, con_src, assumed, n_com, com_src)
@@ -336,7 +336,7 @@ def _maxwell_checks(run: Run, fp: AuditFrames, dof: DofCount, inference: tm.Cons
         if dof.n_constraints > 0 and inference is None:
             continue  # cannot tell constrained atoms apart
         s = speeds[::step][:, cols].ravel()
-        if s.size >= 50:
+        if s.size >= 50 and float(run.masses_amu[kept[cols]][0]) > 0:  # virtual sites have no speed of their own
             mass = float(run.masses_amu[kept[cols]][0])
             maxw.append(tm.maxwell_speed_check(s, mass, target_T, name=sp))
     return maxw
@@ -387,7 +387,7 @@ def _assumption(temp: TemperatureAudit, run: Run, dof: DofCount) -> tuple[Temper
         return temp, None
     alt_n, alt_words = alt
     try:
-        dof_alt = tm.degrees_of_freedom(run.n_atoms, n_constraints=n_con + alt_n, n_com=dof.n_com)
+        dof_alt = tm.degrees_of_freedom(run.n_massive, n_constraints=n_con + alt_n, n_com=dof.n_com)
     except AnalysisError:
         dof_alt = 0
     if not (dof_alt > 0 and math.isfinite(mean_T)):
@@ -475,7 +475,7 @@ def temperature_part(run: Run, choice: EnergySeriesChoice, fp: AuditFrames | Non
         velocities_estimated=bool(run.frames is not None and run.frames.velocities_estimated),
         constraint_inference=inference, groups=gtemps, kinetic_distribution=kdist, maxwell=tuple(maxw),
         canonical_note=cnote, time_ps=kt.time_ps, temperature_K=kt.series, split=split, groups_left_out=left_out,
-        half_step=kt.half_words, translation=translation,
+        half_step=kt.half_words, translation=translation, n_virtual_sites=int(run.virtual_sites.size),
     )
     verdicts: list[Verdict] = []
     if dof.assumed:

@@ -286,7 +286,7 @@ def _temperature_verdicts(ta: TemperatureAudit) -> list[Verdict]:
     out: list[Verdict] = []
     out.append(Verdict("temperature.dof", "info", "Kinetic temperature", ta.mean_K, "K",
                        f"T = {fmt(ta.mean_K)} +- {fmt(ta.error_K)} K from {ta.kinetic_source}; N_dof = "
-                       f"{ta.n_dof} = 3 x {ta.n_atoms} - {ta.n_constraints} constraints ({ta.constraints_source}) "
+                       f"{ta.n_dof} = {ta.atoms_words} - {ta.n_constraints} constraints ({ta.constraints_source}) "
                        f"- {ta.n_com_removed} centre of mass ({ta.com_source})"))
     if ta.file_mismatch_relative is not None:
         v = judge("temperature.file_mismatch", abs(ta.file_mismatch_relative), title="Temperature vs file",

@@ -177,10 +177,18 @@ class CoordinatesConsumer:
         self.path = run.paths[0] if run.paths else None
         check_masses(run.masses_amu, path=self.path, where=run.metadata.sources.get("masses", "masses"))
         self.resolved = [s if isinstance(s, ResolvedCoordinate) else resolve_for_run(s, run) for s in specs]
+        virtual = set(run.virtual_sites.tolist())
         for r in self.resolved:
             if r.function == "pc" and r.pca is None:
                 raise CoordinateSpecError("pc(k) needs a PCA pass first: use coordinates.compute_coordinates",
                                           spec=r.spec)
+            hit = sorted(virtual.intersection(r.atoms.tolist())) if r.function != "pc" else []
+            if hit:  # m_eff = [sum |grad_i q|^2 / m_i]^-1 has no meaning with m_i = 0
+                raise AnalysisError(
+                    f"coordinate {r.spec}: atom {hit[0]} is a massless virtual site"
+                    + (f" ({len(hit)} in all)" if len(hit) > 1 else "") + ": it is placed from other atoms and "
+                    "has no momentum of its own, so the coordinate would have no conjugate momentum; use atoms "
+                    "with mass (e.g. the oxygen of a TIP4P water)", path=self.path)
         self.atoms: np.ndarray | None = np.unique(np.concatenate([r.atoms for r in self.resolved])).astype(np.int64)
         self.needs_velocities = bool(run.frames.has_velocities)
         self.estimated_by_reader = bool(getattr(run.frames, "velocities_estimated", False))

@@ -84,7 +84,7 @@ class GroupTemperatureConsumer:
             groups = tm.default_groups(run.topology, run.n_atoms, by_element=(self.n_constraints == 0))
         self.group_atoms = {k: np.asarray(v, dtype=np.int64) for k, v in groups.items()}
         self.atoms: np.ndarray | None = None
-        self.n_atoms = run.n_atoms
+        self.n_atoms = run.n_massive  # the atoms with degrees of freedom (virtual sites have none)
         self._masses = np.asarray(run.masses_amu, dtype=np.float64)
         self._kin: list[np.ndarray] = []
         self._com: list[np.ndarray] = []

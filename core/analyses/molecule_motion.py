@@ -70,10 +70,11 @@ class MoleculeMomenta:
     then per frame one weighted sum per molecule (``np.add.reduceat``)."""
 
     def __init__(self, labels: np.ndarray, masses_amu: np.ndarray) -> None:
-        self.order = np.argsort(labels, kind="stable")
+        m = np.asarray(masses_amu, dtype=np.float64)
+        massive = np.flatnonzero(m > 0)  # virtual sites (mass 0) carry no momentum: a molecule of them is none
+        self.order = massive[np.argsort(labels[massive], kind="stable")]
         sorted_labels = labels[self.order]
         self.starts = np.flatnonzero(np.concatenate(([True], sorted_labels[1:] != sorted_labels[:-1])))
-        m = np.asarray(masses_amu, dtype=np.float64)
         self.m_sorted = m[self.order].astype(np.float32)
         self.molecule_mass = np.add.reduceat(m[self.order], self.starts)
         self.n_molecules = int(self.starts.size)

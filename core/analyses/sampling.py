@@ -311,8 +311,9 @@ def rhat(chains: Any, *, split: bool = True) -> RhatResult:
     if c.ndim != 2 or c.shape[0] < 1:
         raise AnalysisError("R-hat needs chains of shape (n_chains, n_draws)")
     m, n = c.shape
-    if (m < 2 and not split) or n < 4:
-        raise TooShortError("R-hat", have=int(c.size), need=8)
+    least = 8 if split else 4  # each (half-)chain needs 4 draws for its statistical inefficiency
+    if (m < 2 and not split) or n < least:
+        raise TooShortError("R-hat", have=int(n), need=least)
     if not np.all(np.isfinite(c)):
         raise AnalysisError("the chains hold NaN or infinite values")
     if split:
@@ -340,8 +341,8 @@ def rhat_segments(x: Any, *, n_segments: int = 4) -> RhatResult:
     if a.ndim != 1:
         raise AnalysisError("rhat_segments takes one 1D series")
     n = a.size // n_segments
-    if n < 4:
-        raise TooShortError("R-hat over segments", have=int(a.size), need=4 * n_segments)
+    if n < 8:  # split halves of 4 draws at least
+        raise TooShortError("R-hat over segments", have=int(a.size), need=8 * n_segments)
     return rhat(a[: n * n_segments].reshape(n_segments, n), split=True)
 
 
@@ -571,7 +572,7 @@ class SamplingRequest(AnalysisRequest):
         dt = sample_spacing(s.time_ps, f"series {s.name}")
         max_lag = None if self.max_lag_ps is None else max(1, int(round(self.max_lag_ps / dt)))
         seg = max(2, int(self.segments))
-        rh = rhat_segments(x, n_segments=seg) if x.size >= 4 * seg else None
+        rh = rhat_segments(x, n_segments=seg) if x.size >= 8 * seg else None
         div = segment_divergence(x, n_segments=2, bins=self.bins) if x.size >= 20 and np.ptp(x) > 0 else None
         g = statistical_inefficiency(x, method=self.method, max_lag=max_lag)
         mom = s.momentum
@@ -588,9 +589,9 @@ class SamplingRequest(AnalysisRequest):
 
 
 def _replica_rhat(chains: list[np.ndarray]) -> RhatResult | None:
-    """Split R-hat across runs of one series, each cut to the shortest (None below 4 samples)."""
+    """Split R-hat across runs of one series, each cut to the shortest (None below 8 samples)."""
     finite = [c[np.isfinite(c)] for c in chains]
     n = min(c.size for c in finite)
-    if n < 4:
+    if n < 8:
         return None
     return rhat(np.vstack([c[:n] for c in finite]), split=True)

@@ -166,12 +166,13 @@ def kinetic_temperature(kinetic_kJ_per_mol: np.ndarray | float, n_dof: float) ->
 # ---------------------------------------------------------------------------------------------------
 
 
-def candidate_pairs(topology: Any, *, small_residue_atoms: int = 5) -> np.ndarray:
+def candidate_pairs(topology: Any, *, small_residue_atoms: int = 5, exclude: np.ndarray | None = None) -> np.ndarray:
     """Atom pairs whose distance could be constrained.
 
     Topology bonds, pairs of atoms bonded to a common atom (they make a rigid triangle in rigid water
     and other rigid molecules), and every pair inside residues of at most ``small_residue_atoms``
-    atoms (water written without bonds).
+    atoms (water written without bonds); none with an ``exclude`` atom (virtual sites: placed from other
+    atoms, so rigid with them without being constrained).
 
     Returns
     -------
@@ -197,6 +198,9 @@ def candidate_pairs(topology: Any, *, small_residue_atoms: int = 5) -> np.ndarra
             for i in range(len(idx)):
                 for j in range(i + 1, len(idx)):
                     pairs.add((min(idx[i], idx[j]), max(idx[i], idx[j])))
+    if exclude is not None and len(exclude):  # virtual sites: placed from other atoms, not constrained
+        gone = {int(i) for i in exclude}
+        pairs = {p for p in pairs if p[0] not in gone and p[1] not in gone}
     if not pairs:
         return np.zeros((0, 2), dtype=np.int64)
     return np.array(sorted(pairs), dtype=np.int64)
@@ -408,12 +412,14 @@ def group_degrees_of_freedom(
         np.add.at(per_atom, constraint_pairs[:, 0], 0.5 * w)
         np.add.at(per_atom, constraint_pairs[:, 1], 0.5 * w)
     elif n_constraints > 0:
-        per_atom[:] = n_constraints / n_atoms
+        massive = m != 0.0
+        per_atom[massive] = n_constraints / max(int(massive.sum()), 1)
     mtot = float(m.sum())
     out: dict[str, float] = {}
     for name, idx in groups.items():
         idx = np.asarray(idx, dtype=np.int64)
-        out[name] = 3.0 * idx.size - float(per_atom[idx].sum()) - n_com * float(m[idx].sum()) / mtot
+        n_massive = int(np.count_nonzero(m[idx] != 0.0))  # virtual sites (mass 0) have no degree of freedom
+        out[name] = 3.0 * n_massive - float(per_atom[idx].sum()) - n_com * float(m[idx].sum()) / mtot
     return out
 
 
@@ -532,7 +538,9 @@ def default_groups(topology: Any, n_atoms: int, *, by_element: bool, masses_amu:
         if solvent and solute and len(by_res) > 2:
             groups["solute"] = np.array(solute)
             groups["solvent (water and ions)"] = np.array(solvent)
-    return {k: v for k, v in groups.items() if 0 < v.size < n_atoms}
+    m_all = None if masses_amu is None or len(masses_amu) != n_atoms else np.asarray(masses_amu, dtype=np.float64)
+    return {k: v for k, v in groups.items() if 0 < v.size < n_atoms  # a group of virtual sites only: no DOF
+            and (m_all is None or not np.all(m_all[v] == 0.0))}
 
 
 def largest_split(group_kinetic_kJ_per_mol: np.ndarray, group_dof: Sequence[float], names: Sequence[str],

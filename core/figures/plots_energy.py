@@ -204,7 +204,7 @@ def audit_temperature_figure(audit: Any, *, cursor_ps: float | None = None) -> F
     if cursor_ps is not None:
         items.append(Mark("vline", cursor_ps, role="cursor", style=Style(colour=GREY, dash="dot")))
     caption = (f"Kinetic temperature of {audit.run_name}: {ta.kinetic_source}; N_dof = {ta.n_dof} "
-               f"(3N = {3 * ta.n_atoms}, constraints {ta.n_constraints} from {ta.constraints_source}, "
+               f"(3N = {3 * (ta.n_atoms - ta.n_virtual_sites)}, constraints {ta.n_constraints} from {ta.constraints_source}, "
                f"centre-of-mass {ta.n_com_removed} from {ta.com_source}). Mean {ta.mean_K:.2f} ± "
                f"{ta.error_K:.2g} K (g-corrected standard error, g = {ta.statistical_inefficiency:.3g}), "
                f"standard deviation {ta.std_K:.3g} K."

@@ -287,6 +287,17 @@ class Run:
         return int(self.masses_amu.shape[0])
 
     @property
+    def virtual_sites(self) -> np.ndarray:
+        """Indices of the massless particles (virtual sites such as TIP4P's M: placed from other atoms, they
+        carry no degree of freedom and no kinetic energy). Unknown (NaN) masses are not counted."""
+        return np.flatnonzero(np.asarray(self.masses_amu) == 0.0)
+
+    @property
+    def n_massive(self) -> int:
+        """Particles with mass (or unknown mass): the atoms whose 3 coordinates are degrees of freedom."""
+        return self.n_atoms - int(self.virtual_sites.size)
+
+    @property
     def n_frames(self) -> int:
         return int(self.time_ps.shape[0])
 

@@ -132,16 +132,18 @@ def masses_from_topology(top: mdtraj.Topology | None, n_atoms: int) -> np.ndarra
 
 
 def check_masses(masses_amu: np.ndarray, *, path: str | Path | None, where: str = "masses") -> None:
-    """ImpossibleValueError when a known mass is zero, negative or infinite (NaN means unknown: allowed)."""
+    """ImpossibleValueError when a known mass is negative or infinite, or when every mass is zero. NaN means
+    unknown, zero a massless virtual site (TIP4P's M, a lone pair): both allowed."""
     m = np.asarray(masses_amu, dtype=np.float64).ravel()
     known = ~np.isnan(m)
-    bad = np.flatnonzero(known & ~((m > 0) & np.isfinite(m)))
+    bad = np.flatnonzero(known & ~((m >= 0) & np.isfinite(m)))
     if bad.size:
         i = int(bad[0])
         more = f" ({bad.size} atoms in all)" if bad.size > 1 else ""
-        hint = " (massless virtual sites are not supported: write the run without them)" if m[i] == 0 else ""
         raise ImpossibleValueError(f"{where}: atom {i} has mass {m[i]:g} amu{more}; a mass must be a positive "
-                                   f"number{hint}", path=path)
+                                   "number (or 0 for a massless virtual site)", path=path)
+    if m.size and known.all() and not (m > 0).any():
+        raise ImpossibleValueError(f"{where}: every mass is 0; only virtual sites may be massless", path=path)
 
 
 def check_timestep(timestep_ps: float | None, *, path: str | Path | None, where: str = "time step") -> None:

@@ -600,3 +600,39 @@ def test_gromacs_flexible_05fs_not_flagged(capsys: pytest.CaptureFixture[str]) -
     assert levels.get("energy.drift") in ("ok", "info"), verdicts(a, "energy.drift")
     assert levels.get("energy.fluctuation_ratio") == "ok", verdicts(a, "energy.fluctuation_ratio")
     assert code == 0, [(v["kind"], v["level"], v["message"]) for v in a["verdicts"] if v["level"] != "ok"]
+
+
+# ------------------------------------------------------------------------------------------------
+# OpenMM TIP4P-Ew: 126 massless virtual sites (M) among 504 particles; reference: OpenMM's System
+# (isVirtualSite, getNumConstraints: dof 753 = 3 x 378 - 378 - 3) and its State at the H5MD frames
+
+TIP4P = ENGINES / "openmm" / "tip4pew_rigid_nve_verlet"
+
+
+def test_openmm_tip4p_virtual_sites_have_no_degrees_of_freedom(capsys: pytest.CaptureFixture[str]) -> None:
+    rep = reported("openmm/tip4pew_rigid_nve_verlet")["reported"]
+    assert rep["virtual_sites"] == 126 and rep["atoms"] == 504
+    code, a, err = cli(capsys, "audit", TIP4P / "frames.h5md")
+    assert code in (0, 1), err
+    t = a["temperature"]
+    assert t["n_dof"] == rep["degrees_of_freedom"] and t["n_virtual_sites"] == rep["virtual_sites"]
+    assert t["constraint_inference"]["n_constraints"] == rep["constraints"]  # M left out of the pairs
+    assert abs(t["mean_K"] - rep["temperature_mean_at_h5md_frames_K"]) < T_TOL_K
+    tr = t["translation"]  # 126 molecules of O, H, H; M carries no momentum
+    assert tr["n_molecules"] == rep["waters"] and tr["dof_translation"] + tr["dof_rest"] == rep["degrees_of_freedom"]
+
+
+def test_openmm_tip4p_coordinates_refuse_a_virtual_site_only(capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(["coords", str(TIP4P / "frames.h5md"), "-c", "distance(0, 3)", "--momentum", "--no-cache"])
+    err = capsys.readouterr().err
+    assert code == 2 and "atom 3 is a massless virtual site" in err and len(err.strip().splitlines()) == 1, err
+    code = main(["coords", str(TIP4P / "frames.h5md"), "-c", "distance(0, 4)", "--momentum", "--no-cache"])
+    out = capsys.readouterr().out
+    assert code == 0 and "m_eff distance" in out
+
+
+def test_memory_on_a_short_run_works(capsys: pytest.CaptureFixture[str]) -> None:
+    # 21 frames: too few for split R-hat over segments, which is left out rather than failing the verb
+    code = main(["memory", str(TIP4P / "frames.h5md"), "--no-cache"])
+    captured = capsys.readouterr()
+    assert code in (0, 1), captured.err

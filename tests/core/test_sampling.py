@@ -233,3 +233,16 @@ def test_errors_and_verdicts_registered():
     for kind in ("sampling.rhat", "sampling.divergence", "sampling.tm_slope"):
         assert verdicts.THRESHOLDS[kind].source and kind in verdicts.EXPLANATIONS
 
+
+
+def test_short_series_leaves_split_rhat_out_instead_of_failing():
+    # 21 samples in 4 segments of 5: split halves of 2 cannot give a statistical inefficiency (4 needed);
+    # 'phasewake memory' on a 21-frame run used to fail with exit 2 here
+    from phasewake.core.errors import TooShortError
+
+    x = np.random.default_rng(4).normal(size=21)
+    with pytest.raises(TooShortError):
+        S.rhat(x[:20].reshape(4, 5), split=True)
+    with pytest.raises(TooShortError):
+        S.rhat_segments(x)
+    assert S.rhat_segments(np.random.default_rng(5).normal(size=32)).n_draws == 8  # 4 segments of 8, split in halves of 4

@@ -5,6 +5,7 @@ nu~ = f / c (REFERENCES.md §4.3; c exact), Hairer, Lubich & Wanner 2006 for the
 """
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -216,16 +217,29 @@ def test_unresolved_oh_stretch_decides_the_time_step_not_its_alias():
 
 # --- real flexible-water runs made with OpenMM (tests/data/engines/openmm, see its README and reported.json) ---
 
-ENGINES = __import__("pathlib").Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm"
+ENGINES = Path(__file__).resolve().parents[1] / "data" / "engines" / "openmm"
 
 
-def _flexible(frames_fs: int, *, topology: bool = True):
+def _flexible(frames_fs: int, *, topology: bool = True, tmp: Path | None = None):
+    """The run with start.pdb as its topology, or (``topology=False``) with none at all: a copy in ``tmp``
+    of the H5MD without its species, whose atomic numbers and bonds would otherwise give one."""
+    import shutil
+
+    import h5py
+
     from phasewake.core.readers import open_run
 
     folder = ENGINES / f"tip3p_flexible_frames_{frames_fs}fs"
     if not (folder / "frames.h5md").exists():
         pytest.skip("engine runs not generated")
-    return open_run([folder / "frames.h5md"], topology=folder / "start.pdb" if topology else None)
+    if topology:
+        return open_run([folder / "frames.h5md"], topology=folder / "start.pdb")
+    assert tmp is not None
+    bare = tmp / "frames.h5md"
+    shutil.copyfile(folder / "frames.h5md", bare)
+    with h5py.File(bare, "a") as f:
+        del f["particles/all/species"]
+    return open_run([bare])
 
 
 def test_flexible_water_1fs_vdos_top_peak_is_the_oh_stretch():
@@ -240,12 +254,12 @@ def test_flexible_water_1fs_vdos_top_peak_is_the_oh_stretch():
 
 
 @pytest.mark.parametrize("topology", [True, False])
-def test_flexible_water_10fs_peaks_are_not_motions(topology):
+def test_flexible_water_10fs_peaks_are_not_motions(topology, tmp_path):
     # the issue: at 10 fs the stretches and the bend fold to ~350, 417 and 967 cm^-1 and were listed as motions
     from phasewake.core.analyses.velocity import vibrational_spectrum
     from phasewake.core.progress import result_of
 
-    s = result_of(vibrational_spectrum(_flexible(10, topology=topology)))
+    s = result_of(vibrational_spectrum(_flexible(10, topology=topology, tmp=tmp_path)))
     assert s.peaks and all(p.not_a_motion for p in s.peaks)
     assert s.highest_significant_peak_cm1 is None
     what = "the O-H stretch near 3400-3700 cm^-1" if topology else "the X-H stretch"
@@ -253,11 +267,11 @@ def test_flexible_water_10fs_peaks_are_not_motions(topology):
 
 
 @pytest.mark.parametrize("topology", [True, False])
-def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(topology):
+def test_flexible_water_10fs_says_the_stretch_is_not_resolved_and_3fs_is_not_ok(topology, tmp_path):
     from phasewake.core.analyses.audit import audit_run
     from phasewake.core.progress import result_of
 
-    res = result_of(audit_run(_flexible(10, topology=topology), timestep_ps=0.003))
+    res = result_of(audit_run(_flexible(10, topology=topology, tmp=tmp_path), timestep_ps=0.003))
     v = {x.kind: x for x in res.verdicts}
     # was "ok, 11.4 steps per period"; limit ~0.9 fs = period of 3700 cm^-1 / 10 (common practice). With the
     # topology the positions show the bonds are free (problem); without it that is an assumption (caution)

@@ -72,19 +72,32 @@ def _set_param(f: h5py.File, key: str, value) -> None:
 # ---------------------------------------------------------------- 7. impossible physical values
 
 
-@pytest.mark.parametrize("masses", [(0.0, 39.9), (-3.0, 39.9)])
-def test_zero_or_negative_mass_in_h5md_is_refused_on_every_verb(tmp_path, capsys, masses):
+def _masses_set(tmp_path, masses):
     def change(f):
         m = f["particles/all/mass"]
         a = m[()]
         a[:2] = masses
         m[...] = a
 
-    p = h5md_copy(tmp_path, "badmass.h5md", change)
+    return h5md_copy(tmp_path, "badmass.h5md", change)
+
+
+def test_negative_mass_in_h5md_is_refused_on_every_verb(tmp_path, capsys):
+    p = _masses_set(tmp_path, (-3.0, 39.9))
     # today coords --momentum printed an effective mass from them and audit called them "unknown"
     for argv in (["coords", str(p), "-c", COORD, "--momentum"], ["audit", str(p)], ["describe", str(p)]):
         text = expect_refusal(argv, [p], ["mass"], capsys)
         assert "atom 0" in text and "positive" in text
+
+
+def test_zero_mass_is_a_virtual_site_a_coordinate_through_it_is_refused(tmp_path, capsys):
+    # mass 0 marks a massless virtual site (TIP4P's M): the run opens, but a coordinate through that atom
+    # has no conjugate momentum
+    p = _masses_set(tmp_path, (0.0, 39.9))
+    text = expect_refusal(["coords", str(p), "-c", COORD, "--momentum"], [p], ["virtual site"], capsys)
+    assert "atom 0" in text
+    assert main(["describe", str(p)]) == 0
+    capsys.readouterr()
 
 
 def test_impossible_mass_from_a_library_caller_is_refused_in_compute_coordinates():

@@ -653,18 +653,23 @@ OPENMM_RUNS: dict[str, dict[str, Any]] = {
         note="the same flexible TIP3P from the same start, NVE, dt 0.5 fs, 4000 steps (2 ps); H5MD frames "
              "every 20 steps = 10 fs, too far apart to resolve the O-H stretch; CSV every 20 steps",
         flexible=True, integrator="verlet", dt_fs=0.5, n_steps=4000, csv_every=20, dcd_every=0, h5_every=20),
+    "tip4pew_rigid_nve_verlet": dict(
+        note="rigid TIP4P-Ew (126 waters: 378 atoms and 126 massless virtual sites M, 504 particles), NVE with "
+             "VerletIntegrator, dt 2 fs, 1000 steps; CSV every 10 steps, DCD and H5MD every 50 steps",
+        flexible=False, integrator="verlet", dt_fs=2.0, n_steps=1000, csv_every=10, dcd_every=50, h5_every=50,
+        model="tip4pew"),
 }
 
 
-def _openmm_system(flexible: bool):
+def _openmm_system(flexible: bool, model: str = "tip3p"):
     import openmm as mm
     import openmm.app as app
     import openmm.unit as u
 
-    ff = app.ForceField("amber14/tip3p.xml")
+    ff = app.ForceField(f"amber14/{model}.xml")
     modeller = app.Modeller(app.Topology(), [] * u.nanometer)
     edge, cutoff = (0.95, 0.45) if flexible else (1.6, 0.7)
-    modeller.addSolvent(ff, model="tip3p", boxSize=mm.Vec3(edge, edge, edge) * u.nanometer)
+    modeller.addSolvent(ff, model=model, boxSize=mm.Vec3(edge, edge, edge) * u.nanometer)
     system = ff.createSystem(modeller.topology, nonbondedMethod=app.PME, nonbondedCutoff=cutoff * u.nanometer,
                              constraints=None if flexible else app.HBonds, rigidWater=not flexible,
                              ewaldErrorTolerance=5e-5)
@@ -677,13 +682,13 @@ def _openmm_platform():
     return mm.Platform.getPlatformByName("CPU"), {"Threads": "1", "DeterministicForces": "true"}
 
 
-def _openmm_start(flexible: bool):
+def _openmm_start(flexible: bool, model: str = "tip3p"):
     """Minimise, give 300 K velocities (seeded), equilibrate 1 ps with a Langevin thermostat."""
     import openmm as mm
     import openmm.app as app
     import openmm.unit as u
 
-    modeller, system = _openmm_system(flexible)
+    modeller, system = _openmm_system(flexible, model)
     dt = 0.5 if flexible else 2.0
     integ = mm.LangevinMiddleIntegrator(300 * u.kelvin, 5.0 / u.picosecond, dt * u.femtosecond)
     integ.setRandomNumberSeed(SEED)
@@ -770,7 +775,7 @@ def _parse_openmm_csv(path: Path) -> dict[str, list[float]]:
     return cols
 
 
-def make_openmm(root: Path) -> None:
+def make_openmm(root: Path, only: str | None = None) -> None:
     try:
         import openmm as mm
         import openmm.app as app
@@ -784,11 +789,13 @@ def make_openmm(root: Path) -> None:
     starts = {}
     kb = u.MOLAR_GAS_CONSTANT_R.value_in_unit(u.kilojoule_per_mole / u.kelvin)
     for name, cfg in OPENMM_RUNS.items():
-        flexible = cfg["flexible"]
-        if flexible not in starts:
-            starts[flexible] = _openmm_start(flexible)
-        modeller, state0 = starts[flexible]
-        _, system = _openmm_system(flexible)
+        if only is not None and name != only:
+            continue
+        flexible, model = cfg["flexible"], cfg.get("model", "tip3p")
+        if (flexible, model) not in starts:
+            starts[(flexible, model)] = _openmm_start(flexible, model)
+        modeller, state0 = starts[(flexible, model)]
+        _, system = _openmm_system(flexible, model)
         dt = cfg["dt_fs"]
         if cfg["integrator"] == "verlet":
             integ = mm.VerletIntegrator(dt * u.femtosecond)
@@ -825,7 +832,7 @@ def make_openmm(root: Path) -> None:
             if isinstance(r, app.DCDReporter):  # it closes its file only when garbage-collected
                 r._out.close()
         masses = [system.getParticleMass(i).value_in_unit(u.dalton) for i in range(system.getNumParticles())]
-        species = [a.element.atomic_number for a in modeller.topology.atoms()]
+        species = [a.element.atomic_number if a.element is not None else 0 for a in modeller.topology.atoms()]
         bonds = [(b[0].index, b[1].index) for b in modeller.topology.bonds()]
         box = state0.getPeriodicBoxVectors(asNumpy=True).value_in_unit(u.nanometer)
         _write_h5md(dest / "frames.h5md", frames, masses, species, bonds, [box[0][0], box[1][1], box[2][2]],
@@ -846,6 +853,7 @@ def make_openmm(root: Path) -> None:
             "thermostat": thermostat,
             "target_temperature_K": target,
             "constraints": n_con,
+            "virtual_sites": sum(1 for i in range(system.getNumParticles()) if system.isVirtualSite(i)),
             "rigid_water": not flexible,
             "cm_motion_removed": has_cmm,
             "degrees_of_freedom": dof,
@@ -1369,10 +1377,13 @@ MAKERS = {"gromacs": make_gromacs, "lammps": make_lammps, "openmm": make_openmm,
 
 
 def main(argv: list[str]) -> int:
+    """Make the named engines' runs (all by default); ``openmm:RUN`` makes one OpenMM run."""
     which = argv or ["gromacs", "lammps", "openmm", "cp2k", "layouts"]
-    which = [w for w in which if w in MAKERS]
     for name in which:
-        MAKERS[name](HERE)
+        if name.startswith("openmm:"):
+            make_openmm(HERE, only=name.split(":", 1)[1])
+        elif name in MAKERS:
+            MAKERS[name](HERE)
     return 0
 
 
