@@ -119,12 +119,15 @@ def topology_from_elements(symbols: Sequence[str], bonds: np.ndarray | None = No
 
 
 def masses_from_topology(top: mdtraj.Topology | None, n_atoms: int) -> np.ndarray | None:
-    """Masses (amu) from element data, or None when any atom has no element mass."""
+    """Masses (amu) from element data, or None when any atom has no element mass. mdtraj's virtual-site
+    element (atomic number 0, e.g. GROMACS's MW of TIP4P water) gives 0: a massless site."""
     if top is None or top.n_atoms != n_atoms:
         return None
     masses = np.array([a.element.mass if a.element is not None else np.nan for a in top.atoms], float)
-    if not np.all(np.isfinite(masses)) or np.any(masses <= 0):
+    virtual = np.array([a.element is not None and a.element.atomic_number == 0 for a in top.atoms], bool)
+    if not np.all(np.isfinite(masses)) or np.any((masses <= 0) & ~virtual) or virtual.all():
         return None
+    masses[virtual] = 0.0
     return masses
 
 

@@ -85,3 +85,20 @@ def test_impossible_value_checks_keep_what_engines_legitimately_write(tmp_path):
         check_metadata(md, n_atoms=3, path=None)
     # an all-zero box is the engines' "no periodic box" (GROMACS in vacuum), not an impossible one
     assert check_box(np.zeros((2, 3, 3)), path=None) is None
+
+
+def test_gromacs_tip4p_virtual_site_from_a_gro_is_massless(tmp_path):
+    # GROMACS names TIP4P's massless site MW; mdtraj's .gro reader gives it its virtual-site element (atomic
+    # number 0, mass 0): the run's masses are O, H, H, 0 (not unknown), and the sites have no DOF
+    from phasewake.core.readers import open_run
+
+    gro = tmp_path / "tip4p.gro"
+    gro.write_text("tip4p\n    8\n"
+                   "    1SOL     OW    1   0.126   1.624   1.679\n    1SOL    HW1    2   0.190   1.661   1.747\n"
+                   "    1SOL    HW2    3   0.177   1.568   1.613\n    1SOL     MW    4   0.142   1.616   1.686\n"
+                   "    2SOL     OW    5   1.059   0.701   1.113\n    2SOL    HW1    6   1.026   0.610   1.123\n"
+                   "    2SOL    HW2    7   1.000   0.749   1.053\n    2SOL     MW    8   1.048   0.700   1.104\n"
+                   "   1.86206   1.86206   1.86206\n")
+    run = open_run([gro])
+    assert run.virtual_sites.tolist() == [3, 7] and run.n_massive == 6
+    assert run.masses_amu[:3] == pytest.approx([15.999, 1.008, 1.008], abs=1e-2)  # IUPAC standard weights
