@@ -47,7 +47,8 @@ def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
 
     kinetic : the kinetic temperature measured by the audit, in words, when it has run.
     """
-    rows = [("atoms", f"{run.n_atoms}")]
+    n_sites = int(run.virtual_sites.size)
+    rows = [("atoms", f"{run.n_atoms}" + (f" ({n_sites} massless virtual sites)" if n_sites else ""))]
     t = run.time_ps
     rows.append(("frames", f"{run.n_frames}"))
     if t.size:

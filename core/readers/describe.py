@@ -36,6 +36,7 @@ def describe(run: Run) -> dict[str, Any]:
         else ("estimated" if frames.velocities_estimated else "stored"),
         "box": "none" if frames is None or not frames.has_box else "yes",
         "masses_known": bool(run.masses_amu.size and np.all(np.isfinite(run.masses_amu))),
+        "virtual_sites": int(run.virtual_sites.size),
         "total_mass_amu": float(np.sum(run.masses_amu)) if run.masses_amu.size and np.all(np.isfinite(run.masses_amu)) else None,
         "topology": None if run.topology is None else {
             "n_atoms": run.topology.n_atoms, "n_residues": run.topology.n_residues,
@@ -104,7 +105,8 @@ def format_description(d: dict[str, Any]) -> str:
         lines.append("positions: stored")
         lines.append(f"velocities: {d['velocities']}")
         lines.append(f"box: {'periodic' if d['box'] != 'none' else 'none'}")
-        lines.append(f"masses: {num(d['total_mass_amu'], 'amu in total') if d['masses_known'] else 'unknown'}")
+        lines.append(f"masses: {num(d['total_mass_amu'], 'amu in total') if d['masses_known'] else 'unknown'}"
+                     + (f"; {d['virtual_sites']} massless virtual sites" if d.get("virtual_sites") else ""))
         if d["topology"]:
             tp = d["topology"]
             lines.append(f"topology: {tp['n_chains']} chains, {tp['n_residues']} residues, {tp['n_bonds']} bonds")
