@@ -575,7 +575,13 @@ class CrossingsPanel(Panel):
         self.table.blockSignals(False)
         self.table.resizeColumnsToContents()
         n = len(events)
-        self.lower.setTabText(1, f"Events ({n})" if n else "Events")
+        kinds = {k: sum(1 for e in events if e.kind == k) for k in ("transition", "recrossing", "censored")}
+        words = {"transition": "transitions", "recrossing": "recrossings", "censored": "unfinished at an end"}
+        parts = ", ".join(f"{kinds[k]} {words[k]}" for k in words if kinds[k])
+        self.lower.setTabText(1, f"Events ({n}: {parts})" if n else "Events")
+        self.lower.setTabToolTip(1, "Crossings of the dividing surface: transitions (they commit to the other "
+                                    "state), recrossings (back before committing), and crossings whose outcome "
+                                    "the run does not show (before the first or after the last core visit)")
 
     def select_event(self, row: int) -> None:
         self.table.selectRow(row)
