@@ -99,6 +99,7 @@ class MainWindow(MenuActions, RunOpening, PanelComputing, SessionActions, Export
         self.model.coordinateChanged.connect(lambda _: self.schedule_recompute())
         self.model.choicesChanged.connect(self._choice_changed)
         self.model.runsChanged.connect(self._runs_changed)
+        self.model.reopenRequested.connect(self.reopen_run)
         self.jobs.progressed.connect(self._job_progress)
         self.jobs.started.connect(self._job_started)
         self.jobs.busyChanged.connect(self._busy_changed)

@@ -64,6 +64,21 @@ class RunEntry:
         return self.run.name
 
 
+def _note_for_workers(run: Run, settings: RunSettings) -> None:
+    """Worker processes that open the run again do so with what the user states now."""
+    from dataclasses import replace as with_
+
+    from phasewake.core.model.ranges import files_of, has_files, remember_files
+
+    if has_files(run):
+        files = files_of(run)
+        kept = {k: v for k, v in files.options.items() if k not in _SETTING_OPTIONS}  # e.g. a units style
+        remember_files(run, with_(files, options={**kept, **settings.overrides()}))
+
+
+_SETTING_OPTIONS = frozenset({"timestep_ps", "n_constraints", "temperature_K", "ensemble", "thermostat"})
+
+
 def apply_settings(run: Run, settings: RunSettings) -> None:
     """Write a user's per-run settings into the run's metadata (in place), as ``open_run`` does."""
     from phasewake.core.readers import apply_stated
@@ -91,6 +106,7 @@ class WindowModel(QtCore.QObject):
     """
 
     runsChanged = QtCore.Signal()
+    reopenRequested = QtCore.Signal(int, object)  # run index, RunSettings: open its files again with these
     currentRunChanged = QtCore.Signal(int)
     cursorChanged = QtCore.Signal(int)
     timeWindowChanged = QtCore.Signal()
@@ -118,6 +134,10 @@ class WindowModel(QtCore.QObject):
     @property
     def current(self) -> RunEntry | None:
         return self._entries[self._current] if 0 <= self._current < len(self._entries) else None
+
+    def entry(self, index: int) -> RunEntry | None:
+        """Run ``index`` of the list, or None."""
+        return self._entries[index] if 0 <= index < len(self._entries) else None
 
     @property
     def time_ps(self) -> np.ndarray:
@@ -164,6 +184,12 @@ class WindowModel(QtCore.QObject):
         e = self._entries[index]
         if e.settings == settings:
             return
+        if e.paths and settings.timestep_fs != e.settings.timestep_fs \
+                and str(e.run.metadata.extra.get("time_from", "")).startswith("step"):
+            # the run's times were made of step numbers (a LAMMPS dump's time is step x time step): open the
+            # files again with the new step, as the command line's --timestep does (in the background)
+            self.reopenRequested.emit(index, replace(settings))
+            return
         if e.files_metadata is None:  # what the files said, before any of the user's settings
             e.files_metadata = copy.deepcopy(e.run.metadata)
             for k in ("timestep_ps", "temperature_K", "ensemble", "thermostat", "n_constraints"):
@@ -172,9 +198,21 @@ class WindowModel(QtCore.QObject):
         e.settings = replace(settings)
         e.run.metadata = copy.deepcopy(e.files_metadata)
         apply_settings(e.run, settings)
+        _note_for_workers(e.run, settings)
         self.runsChanged.emit()
         if index == self._current:
             self.timeWindowChanged.emit()  # analyses depend on the settings: recompute
+
+    def replace_run(self, index: int, entry: RunEntry) -> None:
+        """Put ``entry`` (the same files opened again) in place of run ``index``, keeping its coordinate."""
+        if not 0 <= index < len(self._entries):
+            return
+        entry.coordinate = entry.coordinate or self._entries[index].coordinate
+        self._entries[index] = entry
+        self.runsChanged.emit()
+        if index == self._current:
+            self.currentRunChanged.emit(index)
+            self.timeWindowChanged.emit()
 
     def set_current(self, index: int) -> None:
         if index == self._current or not 0 <= index < len(self._entries):

@@ -72,6 +72,32 @@ class RunOpening:
         return self.model.add_run(RunEntry(run=run, paths=tuple(paths), topology=topology,
                                            settings=settings or RunSettings()))
 
+    def reopen_run(self, index: int, settings: RunSettings) -> None:
+        """Open run ``index``'s files again with ``settings`` (a changed time step is read into the run) in
+        the background, then put it in place of the old one."""
+        entry = self.model.entry(index)
+        if entry is None:
+            return
+        opener, paths, top = self.opener, entry.paths, entry.topology
+
+        def job():
+            from phasewake.core.progress import Progress
+
+            yield Progress(0, 1, f"opening {Path(paths[0]).name} again")
+            run = opener(paths, top, settings)
+            apply_settings(run, settings)
+            return RunEntry(run=run, paths=tuple(paths), topology=top, settings=settings, coordinate=entry.coordinate)
+
+        def done(outcome: JobOutcome) -> None:
+            if outcome.error:
+                self.show_problem("Could not open the run again with the new settings", outcome.error)
+            elif not outcome.cancelled and self.model.entry(index) is entry:
+                self.model.replace_run(index, outcome.result)
+                self.say(f"Opened {outcome.result.label} again with the new settings.")
+
+        self._open_counter += 1
+        self.jobs.start(f"open:{self._open_counter}", job, label="Opening the run again", on_done=done)
+
     def _runs_opened(self, outcome: JobOutcome) -> None:
         if outcome.error:
             self.show_problem("Could not open files", outcome.error)

@@ -207,6 +207,37 @@ def test_settings_form_reaches_the_run_and_can_be_undone(qtbot, tmp_path):
     assert RunSettings.from_dict(st.to_dict()) == st
 
 
+def test_a_time_step_stated_in_the_window_is_read_into_the_run(qtbot, tmp_path):
+    # A LAMMPS dump's times are step x time step: stating another step opens the files again with it, as
+    # --timestep does (before, only the metadata changed and the time axis stayed at the log's 4 fs). The
+    # log's own dt is 4 fs (tests/data/engines/lammps/argon_real_nve/reported.json).
+    import json
+    from pathlib import Path
+
+    from phasewake.core.model.ranges import files_of
+
+    folder = Path(__file__).resolve().parents[1] / "data" / "engines" / "lammps" / "argon_real_nve"
+    dt_log = json.loads((folder / "reported.json").read_text())["reported"]["time_step_ps"]
+    w = _window(qtbot, tmp_path)
+    w.open_paths([str(folder / "dump.lammpstrj"), str(folder / "log.lammps")])
+    qtbot.waitUntil(lambda: w.model.current is not None, timeout=60_000)
+    assert w.wait_idle(60_000)
+    before = w.model.current.run
+    t_log = before.time_ps.copy()
+    form = w.runs.settings
+    form.timestep.setValue(1e3 * dt_log / 2)
+    qtbot.mouseClick(form.apply, QtCore.Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: w.model.current.run is not before, timeout=60_000)
+    run = w.model.current.run
+    np.testing.assert_allclose(run.time_ps, t_log / 2, rtol=1e-12)
+    assert run.metadata.timestep_ps == pytest.approx(dt_log / 2) and run.metadata.sources["timestep_ps"] == "user"
+    assert files_of(run).options["timestep_ps"] == pytest.approx(dt_log / 2)  # what worker processes open
+    # the other settings change the run in place, and reach the workers too
+    w.model.update_settings(0, RunSettings(timestep_fs=1e3 * dt_log / 2, temperature_K=120.0))
+    assert w.model.current.run is run and files_of(run).options["temperature_K"] == 120.0
+    assert w.wait_idle(60_000)
+
+
 # ---- 9. plots that do not mislead ------------------------------------------------------------------
 
 def test_vacf_axis_ends_where_the_decay_is_over():
