@@ -111,6 +111,7 @@ def open_run(
     apply_stated(run.metadata, {"timestep_ps": timestep_ps, "n_constraints": n_constraints,
                                     "temperature_K": temperature_K, "ensemble": ensemble, **metadata})
     _finish_lammps_dump(run, warnings)
+    _fixed_cell(run, warnings)
     _attach_velocity_file(run, inputs)
     _estimate_velocities(run, warnings)
     _check_run(run, inputs)
@@ -259,6 +260,26 @@ def _open_trajectories(inputs: _Inputs) -> Run:
     clock = "step" if all(r.metadata.extra.get("time_from") == "step number" for r in parts) else "ps"
     joined, _ = join_runs(parts, clock=clock)
     return joined
+
+
+def _fixed_cell(run: Run, warnings: list[str]) -> None:
+    """A cell an engine's output states (``metadata.extra["cell"]``, e.g. CP2K's MD_INI lines) for frames whose
+    files hold none, when it stays fixed."""
+    cell = run.metadata.extra.get("cell")
+    frames = run.frames
+    if not cell or frames is None or frames.has_box or not hasattr(frames, "set_fixed_box"):
+        return
+    if not cell.get("fixed", False):
+        warnings.append(f"the cell of {cell.get('source', 'the output')} changes under the barostat and the frames do "
+                        "not hold it: distances are not wrapped")
+        return
+    import mdtraj
+
+    a, b, c = cell["lengths_nm"]
+    alpha, beta, gamma = cell["angles_deg"]
+    vecs = mdtraj.utils.lengths_and_angles_to_box_vectors(a, b, c, alpha, beta, gamma)
+    frames.set_fixed_box(np.array(vecs, dtype=np.float64))
+    run.metadata.sources["box"] = cell.get("source", "engine output")
 
 
 def _read_energy_files(run: Run, inputs: _Inputs, options: EnergyOptions, warnings: list[str]) -> None:

@@ -79,7 +79,11 @@ def read_ener(path: Path, *, column_roles: Mapping[str, str] | None = None, time
             if key not in facts or key == "engine":  # the output names the version
                 facts[key] = val
                 fsrc[key] = f"{out.name} (beside {path.name})"
-    return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings)
+        extra = more.extra
+    else:
+        extra = {}
+    return EngineEnergy(table=table, facts=facts, source=path.name, fact_sources=fsrc, warnings=warnings,
+                        extra=extra)
 
 
 # ---- the main output (stdout of cp2k): run parameters -----------------------------------------------------
@@ -130,7 +134,27 @@ def read_output(path: Path, **_: object) -> EngineEnergy:
     if inv is not None:
         facts["com_motion_removed"] = inv >= 3
     return EngineEnergy(table=None, facts=facts, source=path.name,
-                        fact_sources={k: f"{path.name} (MD_PAR, DOF, THERMOSTAT lines)" for k in facts})
+                        fact_sources={k: f"{path.name} (MD_PAR, DOF, THERMOSTAT lines)" for k in facts},
+                        extra=_cell(lines, path, str(facts.get("ensemble", ""))))
+
+
+def _cell(lines: list[str], path: Path, ensemble: str) -> dict[str, object]:
+    """The periodic cell from ``MD_INI| Cell lengths [ang]`` and ``Cell angles [deg]`` (CP2K's positions
+    xyz holds none), as ``extra["cell"]``: lengths in nm, angles in degrees, where from, and whether it
+    stays fixed (not under a barostat: NPT and NPE change it, and only the first cell is printed here)."""
+    lengths = _field(lines, "MD_INI| Cell lengths [ang]")
+    angles = _field(lines, "MD_INI| Cell angles [deg]")
+    if lengths is None:
+        return {}
+    try:
+        abc = [float(x) * 0.1 for x in lengths.split()[:3]]
+        ang = [float(x) for x in angles.split()[:3]] if angles else [90.0, 90.0, 90.0]
+    except ValueError:
+        return {}
+    if len(abc) != 3 or len(ang) != 3 or min(abc) <= 0:
+        return {}
+    return {"cell": {"lengths_nm": abc, "angles_deg": ang, "source": f"{path.name} (MD_INI| Cell lengths, angles)",
+                     "fixed": not ensemble.upper().startswith(("NPT", "NPE"))}}
 
 
 def output_beside(ener: Path) -> Path | None:

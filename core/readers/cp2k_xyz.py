@@ -247,6 +247,7 @@ class Cp2kXyzFrames(ClockedFrames):
         self.n_atoms = pos.n_atoms
         self.steps = pos.step.copy()
         self.has_box = False
+        self.box_nm: np.ndarray | None = None  # a fixed cell (3, 3), nm: from the main output (set_fixed_box)
         self.has_velocities = vel is not None
         self.velocities_estimated = False
         self._time = pos.time_fs * 1e-3
@@ -265,8 +266,14 @@ class Cp2kXyzFrames(ClockedFrames):
                     assert self.vel is not None and self._vel_frame is not None
                     rows = _read_rows(self.vel, int(self._vel_frame[fi]))
                     vel[j] = (rows if atoms is None else rows[atoms]) * VELOCITY_AU_TO_NM_PER_PS
+            box = None if self.box_nm is None else np.repeat(self.box_nm[None], sel.size, axis=0)
             yield FrameChunk(start=int(sel[0]), time_ps=self._time[sel], positions_nm=pos,
-                             velocities_nm_per_ps=vel, box_nm=None)
+                             velocities_nm_per_ps=vel, box_nm=box)
+
+    def set_fixed_box(self, box_nm: np.ndarray) -> None:
+        """Every frame's cell: box edge vectors as rows, shape (3, 3), nm (the run's cell does not change)."""
+        self.box_nm = np.asarray(box_nm, dtype=np.float64).reshape(3, 3)
+        self.has_box = True
 
 
 def pair(pos: XyzIndex, vel: XyzIndex) -> np.ndarray:

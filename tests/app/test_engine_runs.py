@@ -463,6 +463,35 @@ def test_cp2k_main_output_gives_ensemble_and_dof(run: str, capsys: pytest.Captur
     assert a["thermostatted"] is (rep["ensemble"] == "NVT")
 
 
+@pytest.mark.parametrize("run", ["argon_fist_nve", "argon_fist_nvt_csvr"])
+def test_cp2k_cell_from_the_main_output_wraps_distances(run: str) -> None:
+    # reference: the cell CP2K printed (argon.out 'MD_INI| Cell lengths [ang] 22.876', as argon.inp's &CELL ABC),
+    # and mdtraj's own minimum-image distances (compute_distances, periodic) on the same positions and cell
+    import mdtraj as md
+
+    from phasewake.core.analyses.coordinates import compute_coordinates
+    from phasewake.core.progress import result_of
+    from phasewake.core.readers import open_run
+
+    d_ = ENGINES / "cp2k" / run
+    inp = (d_ / "argon.inp").read_text()
+    edge_nm = 0.1 * float(inp.split("ABC", 1)[1].split()[0])
+    r = open_run([d_ / "argon-pos-1.xyz", d_ / "argon-vel-1.xyz", d_ / "argon-1.ener"])
+    assert r.frames.has_box and "argon.out" in r.metadata.sources["box"]
+    chunk = next(iter(r.frames.iter_chunks(positions=True, velocities=False)))
+    np.testing.assert_allclose(chunk.box_nm[0], np.eye(3) * edge_nm, atol=1e-12)
+    pos = chunk.positions_nm[:3]
+    traj = md.Trajectory(pos, md.Topology.from_dataframe(
+        __import__("pandas").DataFrame({"serial": range(r.n_atoms), "name": "Ar", "element": "Ar", "resSeq": range(r.n_atoms),
+                                        "resName": "AR", "chainID": 0}), None),
+        unitcell_lengths=np.full((3, 3), edge_nm), unitcell_angles=np.full((3, 3), 90.0))
+    far = int(np.argmax(np.linalg.norm(pos[0] - pos[0, 0], axis=1)))  # the atom furthest away in the raw cell
+    ref = md.compute_distances(traj, [[0, far]], periodic=True)[:, 0]
+    got = result_of(compute_coordinates(r, [f"distance(0, {far})"], stop=3))[0].values
+    np.testing.assert_allclose(got, ref, rtol=1e-5)
+    assert ref[0] < 0.5 * np.sqrt(3) * edge_nm  # wrapped: shorter than the raw distance across the box
+
+
 # ------------------------------------------------------------------------------------------------
 # AMBER mdout and NAMD log laid out as the engines document them (NOT engine output); reference: the numbers written
 # into them (reported.json), themselves those of the OpenMM Langevin run in kcal/mol
