@@ -12,14 +12,14 @@ from __future__ import annotations
 import re
 import warnings as _warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
 from phasewake.core.errors import EnergyTableError, UnitError
-from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, RunMetadata, Series
+from phasewake.core.model.run import ENERGY_ROLES, EnergyTable, RunMetadata, Series, TimeJoin
 from phasewake.core.units import parse_unit, split_header
 
 # dimension a role's unit must have (the same rule as the generic tables)
@@ -250,6 +250,7 @@ def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable
     acc = {k: s.values for k, s in order[0].series.items()}
     name = lambda t: Path(t.sources[0]).name if t.sources else "?"  # noqa: E731
     prev = order[0]
+    joins: list[TimeJoin] = list(order[0].joins)
     for part in order[1:]:
         if not len(part):
             continue
@@ -257,7 +258,9 @@ def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable
         spacing = float(np.median(np.diff(part.time_ps))) if len(part) > 1 else 0.0
         tol = 1e-6 * max(spacing, 1e-9)
         keep = acc_t < t0 - tol
-        n_over = int(acc_t.size - np.count_nonzero(keep))
+        n_keep = int(np.count_nonzero(keep))
+        n_over = int(acc_t.size - n_keep)
+        joins = [j for j in joins if j.index < n_keep]  # joins inside the rows this part replaces go
         if n_over == 1 and abs(float(acc_t[-1]) - t0) <= tol:
             warnings.append(f"energy parts: {name(part)} repeats the row at {t0:g} ps (the step it restarted "
                             "from); its row is kept")
@@ -265,13 +268,18 @@ def join_parts(parts: Sequence[EnergyTable], warnings: list[str]) -> EnergyTable
             warnings.append(f"energy parts: {name(part)} starts at {t0:g} ps, before {name(prev)} ended "
                             f"({float(acc_t[-1]):g} ps); {n_over} overlapping row(s) {t0:g}-{float(acc_t[-1]):g} ps "
                             f"are taken from {name(part)} (the restart)")
+            # a restart from an earlier checkpoint: a join, as one glued into a single file is
+            joins.append(TimeJoin(time_ps=t0, back_from_ps=float(acc_t[-1]), n_dropped=n_over,
+                                  index=n_keep,
+                                  where=f"{name(part)} restarted before {name(prev)} ended"))
         elif acc_t.size and spacing and t0 - float(acc_t[-1]) > 1.5 * spacing:
             warnings.append(f"energy parts: a gap between {name(prev)} (ends {float(acc_t[-1]):g} ps) and "
                             f"{name(part)} (starts {t0:g} ps)")
+        joins += [replace(j, index=j.index + n_keep) for j in part.joins]
         acc_t = np.concatenate([acc_t[keep], part.time_ps])
         acc = {k: np.concatenate([v[keep], part.series[k].values]) for k, v in acc.items()}
         prev = part
     first = order[0]
     series = {k: Series(s.name, acc[k], s.unit, s.role, s.source) for k, s in first.series.items()}
     sources = tuple(src for t in order for src in t.sources)
-    return EnergyTable(time_ps=acc_t, series=series, sources=sources)
+    return EnergyTable(time_ps=acc_t, series=series, sources=sources, joins=tuple(joins))

@@ -208,6 +208,18 @@ def engine_folder(folder: str, tmp_path: Path) -> Path:
     return dest
 
 
+
+def test_gromacs_energy_parts_record_the_restart_as_a_join(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: the parts' logs (README): part 3 restarted from part 2's checkpoint at step 1120 (2.24 ps)
+    # while part 2 had run to 1200 (2.4 ps); the .edr rows are 0.04 ps apart, so 5 rows overlap
+    parts = ENGINES / "gromacs" / "spce_rigid_nve_parts"
+    code, a, err = cli(capsys, "audit", parts / "md.edr", parts / "md.part0002.edr", parts / "md.part0003.edr")
+    assert code in (0, 1), err
+    v = verdicts(a, "time.restarts")[0]
+    (join,) = v["details"]["joins"]
+    assert (join["time_ps"], join["back_from_ps"], join["n_dropped"]) == (pytest.approx(2.24), pytest.approx(2.4), 5)
+    assert "md.part0003.edr" in join["where"]
+
 @pytest.mark.parametrize("run", GMX_RUNS)
 def test_gromacs_run_folder(run: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     # reference: md.log (atoms, dt, tcoupl, nrdf) and nsteps/nstxout + 1 frames of md.trr (the file with
