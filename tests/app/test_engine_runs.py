@@ -677,3 +677,21 @@ def test_memory_on_a_short_run_works(capsys: pytest.CaptureFixture[str]) -> None
     code = main(["memory", str(TIP4P / "frames.h5md"), "--no-cache"])
     captured = capsys.readouterr()
     assert code in (0, 1), captured.err
+
+
+def test_gromacs_tip4p_virtual_sites(capsys: pytest.CaptureFixture[str]) -> None:
+    # reference: GROMACS 2022.5's md.log of a rigid TIP4P run: 'There are: 393 Atoms', '131 VSites', nrdf 783,
+    # the A V E R A G E S temperature; the .gro names the site MW (mass 0 for mdtraj's virtual-site element)
+    rep = reported("gromacs/tip4p_rigid_nve")["reported"]
+    d_ = ENGINES / "gromacs" / "tip4p_rigid_nve"
+    code, a, err = cli(capsys, "audit", d_ / "md.trr", d_ / "md.edr", "--top", d_ / "md.gro")
+    assert code in (0, 1), err
+    t = a["temperature"]
+    assert t["n_virtual_sites"] == rep["virtual_sites"] and t["n_atoms"] - t["n_virtual_sites"] == rep["atoms"]
+    assert t["n_dof"] == rep["degrees_of_freedom"]
+    assert t["constraint_inference"]["n_constraints"] == 3 * rep["waters"]  # SETTLE; MW in no pair
+    assert abs(t["mean_K"] - rep["temperature_mean_K"]) < T_TOL_K
+    # the frames alone (no md.log, no .edr) give the engine's count too: the sites' own DOF are left out
+    code, a, err = cli(capsys, "audit", d_ / "md.trr", "--top", d_ / "md.gro")
+    assert code in (0, 1), err
+    assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"]

@@ -1372,13 +1372,67 @@ default_name
     print(f"layouts: {len(rows)} records, T {_mean(temps):.3f} K")
 
 
-MAKERS = {"gromacs": make_gromacs, "lammps": make_lammps, "openmm": make_openmm,
-          "cp2k": make_cp2k, "layouts": make_layouts}
+GMX_TIP4P_TOP = """; TIP4P water box made by make_engine_runs.py (gmx solvate from tip4p.gro)
+#include "oplsaa.ff/forcefield.itp"
+#include "oplsaa.ff/tip4p.itp"
+
+[ system ]
+TIP4P water
+
+[ molecules ]
+SOL {n}
+"""
+
+
+def make_gromacs_tip4p(root: Path) -> None:
+    """Rigid TIP4P (SETTLE plus a massless virtual site MW per water), NVE at 2 fs: the GROMACS run of the
+    virtual-site checks. GROMACS writes MW's positions and velocities in the .trr and leaves it out of nrdf."""
+    gmx = shutil.which("gmx")
+    if gmx is None:
+        print("gmx not found: GROMACS TIP4P run skipped")
+        return
+    work = Path(tempfile.mkdtemp(prefix="pw_gmx4_"))
+    version = _gmx_version(gmx, work)
+    _run([gmx, "-quiet", "solvate", "-cs", "tip4p.gro", "-box", "1.6", "1.6", "1.6", "-o", "conf.gro"], work)
+    n_water = int((work / "conf.gro").read_text().splitlines()[1]) // 4
+    top = GMX_TIP4P_TOP.format(n=n_water)
+    (work / "topol.top").write_text(top)
+    _gmx_run(gmx, work, _mdp(integrator="steep", nsteps=200), "conf.gro", "em")
+    _gmx_run(gmx, work, _mdp(integrator="md", dt=0.002, nsteps=2500, tcoupl="v-rescale", tc_grps="System",
+                             tau_t=0.1, ref_t=300, gen_vel="yes", gen_temp=300, gen_seed=SEED, ld_seed=SEED,
+                             constraints="none", nstenergy=100, nstcalcenergy=100, nstlog=500), "em.gro", "eq")
+    name = "tip4p_rigid_nve"
+    params = dict(integrator="md", dt=0.002, nsteps=1000, tcoupl="no", nstxout=50, nstvout=50,
+                  nstxout_compressed=0, nstenergy=10, nstcalcenergy=10, nstlog=100)
+    w = _fresh(work / name)
+    shutil.copy2(work / "eq.gro", w / "start.gro")
+    (w / "topol.top").write_text(top)
+    _gmx_run(gmx, w, _mdp(gen_vel="no", continuation="yes", constraints="none", **params), "start.gro")
+    dest = _fresh(root / "gromacs" / name)
+    files = ["grompp.mdp", "mdout.mdp", "topol.top", "md.log", "md.edr", "md.trr", "md.gro"]
+    _copy(w, files, dest)
+    report = _gmx_report(name, (w / "md.log").read_text(), params, files,
+                         f"rigid TIP4P (OPLS-AA tip4p.itp: SETTLE and a massless site MW), {n_water} waters, "
+                         "NVE, leap-frog, dt 2 fs, 2 ps")
+    report["engine_version"] = report["engine_version"] or version
+    report["reported"]["constraints"] = "SETTLE (rigid TIP4P) and one virtual site per water"
+    report["reported"]["waters"] = n_water
+    vsites = re.search(r"There are: (\d+) VSites", (w / "md.log").read_text())
+    report["reported"]["virtual_sites"] = int(vsites.group(1)) if vsites else None
+    report["sources"]["virtual_sites"] = "md.log 'There are: N VSites'"
+    report["sources"]["atoms"] = "md.log 'There are: N Atoms' (the atoms with mass; the sites are counted apart)"
+    _write_json(dest / "reported.json", report)
+    print(f"{name}: T {report['reported']['temperature_mean_K']} K, nrdf {report['reported']['degrees_of_freedom']}")
+    shutil.rmtree(work)
+
+
+MAKERS = {"gromacs": make_gromacs, "gromacs-tip4p": make_gromacs_tip4p, "lammps": make_lammps,
+          "openmm": make_openmm, "cp2k": make_cp2k, "layouts": make_layouts}
 
 
 def main(argv: list[str]) -> int:
     """Make the named engines' runs (all by default); ``openmm:RUN`` makes one OpenMM run."""
-    which = argv or ["gromacs", "lammps", "openmm", "cp2k", "layouts"]
+    which = argv or ["gromacs", "gromacs-tip4p", "lammps", "openmm", "cp2k", "layouts"]
     for name in which:
         if name.startswith("openmm:"):
             make_openmm(HERE, only=name.split(":", 1)[1])
