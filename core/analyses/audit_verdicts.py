@@ -327,6 +327,9 @@ def _temperature_verdicts(ta: TemperatureAudit) -> list[Verdict]:
                   details={"split": sp})
         if v.level == "caution" and z >= zthr.problem:
             v = replace(v, level="problem")
+        shown = abs(sp["split_K"]) / sp["mean_K"] if sp is not None and sp.get("mean_K") else \
+            max(abs(g.relative_difference) for g in ta.groups)
+        v = replace(v, measured=shown)  # shown as measured; judged only where significant
         out.append(v if v.level != "ok" else replace(v, advice=""))
     else:
         if ta.mean_from_velocities_K is None:
