@@ -240,15 +240,24 @@ def _gmx_report(run: str, log_text: str, mdp: dict[str, Any], files: list[str], 
     }
 
 
-def make_gromacs(root: Path) -> None:
+def _gmx_water_box(solvent: str, atoms_per_water: int) -> tuple[str, Path, str, int] | None:
+    """gmx, a fresh work folder, the GROMACS version and the water count of a 1.6 nm box of ``solvent``
+    (``gmx solvate -cs``) in work/conf.gro; None (said) when gmx is not installed."""
     gmx = shutil.which("gmx")
     if gmx is None:
-        print("gmx not found: GROMACS runs skipped")
-        return
+        print(f"gmx not found: GROMACS runs with {solvent} skipped")
+        return None
     work = Path(tempfile.mkdtemp(prefix="pw_gmx_"))
     version = _gmx_version(gmx, work)
-    _run([gmx, "-quiet", "solvate", "-cs", "spc216.gro", "-box", "1.6", "1.6", "1.6", "-o", "conf.gro"], work)
-    n_water = int((work / "conf.gro").read_text().splitlines()[1]) // 3
+    _run([gmx, "-quiet", "solvate", "-cs", solvent, "-box", "1.6", "1.6", "1.6", "-o", "conf.gro"], work)
+    return gmx, work, version, int((work / "conf.gro").read_text().splitlines()[1]) // atoms_per_water
+
+
+def make_gromacs(root: Path) -> None:
+    box = _gmx_water_box("spc216.gro", 3)
+    if box is None:
+        return
+    gmx, work, version, n_water = box
     top = GMX_TOP.format(n=n_water)
     base = work / "base"
     base.mkdir()
@@ -1387,14 +1396,10 @@ SOL {n}
 def make_gromacs_tip4p(root: Path) -> None:
     """Rigid TIP4P (SETTLE plus a massless virtual site MW per water), NVE at 2 fs: the GROMACS run of the
     virtual-site checks. GROMACS writes MW's positions and velocities in the .trr and leaves it out of nrdf."""
-    gmx = shutil.which("gmx")
-    if gmx is None:
-        print("gmx not found: GROMACS TIP4P run skipped")
+    box = _gmx_water_box("tip4p.gro", 4)
+    if box is None:
         return
-    work = Path(tempfile.mkdtemp(prefix="pw_gmx4_"))
-    version = _gmx_version(gmx, work)
-    _run([gmx, "-quiet", "solvate", "-cs", "tip4p.gro", "-box", "1.6", "1.6", "1.6", "-o", "conf.gro"], work)
-    n_water = int((work / "conf.gro").read_text().splitlines()[1]) // 4
+    gmx, work, version, n_water = box
     top = GMX_TIP4P_TOP.format(n=n_water)
     (work / "topol.top").write_text(top)
     _gmx_run(gmx, work, _mdp(integrator="steep", nsteps=200), "conf.gro", "em")
