@@ -367,6 +367,7 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
     figs: list[FigureSpec] = []
     notes: list[str] = []
     verdicts: list[Any] = []
+    reports: dict[str, Any] = {}
     run = window_run(ctx.run, ctx.start, ctx.stop)  # the window's frames and energy rows
     requests = [CorrelationRequest(series=name) for name in _energy_series(run, ("potential", "total", "temperature"))]
     if ctx.coordinate and run.frames is not None:
@@ -381,6 +382,7 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
             continue
         figs.append(plots.autocorrelation_figure(report.correlation, name=report.name))
         verdicts.extend(report.verdicts)
+        reports[what] = report
         if report.blocking is not None:
             figs.append(plots.blocking_figure(report.blocking, name=report.name))
     if run.frames is not None and run.frames.has_velocities and run.n_frames > 16:
@@ -396,7 +398,8 @@ def correlation_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResu
                                                        "coordinate.")
     # the ACF of a series in time: give the keys a suffix so each can be chosen on its own
     figs = [_rekey(f, i) for i, f in enumerate(figs)]
-    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes))
+    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes),
+                       info={"correlation": reports})
 
 
 def _energy_series(run: Run, roles: tuple[str, ...], min_rows: int = 8) -> list[str]:
@@ -428,6 +431,7 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
     figs: list[FigureSpec] = []
     verdicts: list[Any] = []
     notes: list[str] = []
+    reports: dict[str, Any] = {}
     run = window_run(ctx.run, ctx.start, ctx.stop)
     # across replicas: the open runs that really are replicas of this one
     pooled, skipped = replicas_of(ctx.run, ctx.others)
@@ -448,6 +452,7 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
             notes.append(f"{what}: {exc}")
             continue
         verdicts.extend(report.verdicts)
+        reports[what] = report
         figs.append(plots.running_average_figure(report.running, name=report.name, key=f"sampling.running.{key}",
                                                  time_offset_ps=t0))
         if report.coverage is not None:
@@ -457,7 +462,8 @@ def sampling_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult]
             notes.append(f"Pooled as replicas (same atoms, ensemble, thermostat, temperature and time step): {names}.")
     if not figs and not verdicts:
         return PanelResult(message="Nothing to judge: the run has no coordinate and no energy series.")
-    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]))
+    return PanelResult(figures=tuple(figs), verdicts=tuple(verdicts), message=" ".join(notes + [HEURISTIC_NOTE]),
+                       info={"sampling": reports})
 
 
 # ---- Crossings and Landscape ----------------------------------------------------------------
