@@ -99,18 +99,12 @@ def window_run(run: Run, start: int, stop: int) -> Run:
 
 
 def _table_in_window(run: Run, window_ps: tuple[float, float] | None) -> Any:
-    import dataclasses
+    """The energy rows of the time window, cut as core cuts a windowed run's (``table_in_span``)."""
+    from phasewake.core.model.run import table_in_span
 
-    from phasewake.core.model.run import EnergyTable
-
-    table = run.energies
-    if table is None or window_ps is None:
-        return table
-    t = np.asarray(table.time_ps, float)
-    sel = (t >= window_ps[0]) & (t <= window_ps[1])
-    return EnergyTable(time_ps=t[sel], sources=table.sources,
-                       series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
-                               for k, v in table.series.items()})
+    if run.energies is None or window_ps is None:
+        return run.energies
+    return table_in_span(run.energies, float(window_ps[0]), float(window_ps[1]))
 
 
 # A small cache of coordinate series, so the panels that share a coordinate read frames once. Each entry

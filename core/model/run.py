@@ -344,6 +344,16 @@ class WindowFrames(ChunkedFrames):
             yield ch
 
 
+def table_in_span(table: EnergyTable, lo: float, hi: float) -> EnergyTable:
+    """The rows of ``table`` with lo <= t <= hi (ps), both ends within 1e-9 relative (frame and row times
+    written by different files round differently)."""
+    et = np.asarray(table.time_ps, float)
+    sel = (et >= lo - 1e-9 * max(1.0, abs(lo))) & (et <= hi + 1e-9 * max(1.0, abs(hi)))
+    return EnergyTable(time_ps=et[sel], sources=table.sources,
+                       series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
+                               for k, v in table.series.items()})
+
+
 def window_run(run: Run, start: int, stop: int) -> Run:
     """The run cut to frames [start, stop) (energies cut to the same time span); no data copied.
 
@@ -353,13 +363,6 @@ def window_run(run: Run, start: int, stop: int) -> Run:
     if start <= 0 and stop >= run.n_frames:
         return run
     t = run.time_ps
-    lo, hi = float(t[start]), float(t[stop - 1])
-    energies = run.energies
-    if energies is not None:
-        et = np.asarray(energies.time_ps, float)
-        sel = (et >= lo - 1e-9 * max(1.0, abs(lo))) & (et <= hi + 1e-9 * max(1.0, abs(hi)))
-        energies = EnergyTable(time_ps=et[sel], sources=energies.sources,
-                               series={k: dataclasses.replace(v, values=np.asarray(v.values)[sel])
-                                       for k, v in energies.series.items()})
+    energies = None if run.energies is None else table_in_span(run.energies, float(t[start]), float(t[stop - 1]))
     frames = None if run.frames is None else WindowFrames(run.frames, start, stop)
     return dataclasses.replace(run, time_ps=t[start:stop], frames=frames, energies=energies, name=run.name)
