@@ -46,6 +46,11 @@ class MissingDataError(InputError):
     """The file is readable but lacks what was asked for (positions, velocities, an energy column)."""
 
 
+class UnitsStyleUnknown(MissingDataError):
+    """A LAMMPS dump whose units style nothing states (no log.lammps, no ITEM: UNITS): a front end may ask the
+    user for it and open the run again with ``units_style``."""
+
+
 class UnitError(PhasewakeError):
     """A unit string is missing, unknown or of the wrong dimension."""
 

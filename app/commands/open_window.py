@@ -15,10 +15,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("files", nargs="*", metavar="FILE",
                         help="trajectory, topology, energy-table, H5MD or mdtraj HDF5 files of one run "
                              "(none: an empty window)")
-    from phasewake.app.common import add_chunk_argument, add_stated_arguments
+    from phasewake.app.common import LAMMPS_UNIT_STYLES, add_chunk_argument, add_stated_arguments
 
     add_stated_arguments(parser, velocities=False,
                          ensemble_note="also in the window: the run's settings under the Runs list")
+    parser.add_argument("--units", metavar="STYLE", choices=LAMMPS_UNIT_STYLES, default=None,
+                        help="LAMMPS unit style of a dump opened without its log.lammps (the window asks when "
+                             "nothing says it)")
     parser.add_argument("--session", metavar="FILE", default=None,
                         help="restore a session saved from the window instead of opening FILES")
     parser.add_argument("--guide", action="store_true", help="show a short guide to the window")
@@ -52,5 +55,6 @@ def run(args: argparse.Namespace) -> int:
     apply_chunk_budget(args)
     return launch(args.files, guide=args.guide, topology=args.top, timestep_fs=args.timestep,
                   n_constraints=args.constraints, temperature_K=args.temperature,
-                  ensemble=None if args.ensemble is None else args.ensemble.upper(), session=args.session,
+                  ensemble=None if args.ensemble is None else args.ensemble.upper(), units_style=args.units,
+                  session=args.session,
                   smoke_test=args.smoke_test, smoke_timeout_s=args.smoke_timeout)

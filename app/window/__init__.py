@@ -15,7 +15,8 @@ from phasewake.app.window.run_groups import group_runs
 def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | None = None,
            timestep_fs: float | None = None, n_constraints: int | None = None,
            temperature_K: float | None = None, ensemble: str | None = None, session: str | Path | None = None,
-           smoke_test: bool = False, smoke_timeout_s: float = 60.0, settings: object | None = None) -> int:
+           smoke_test: bool = False, smoke_timeout_s: float = 60.0, settings: object | None = None,
+           units_style: str | None = None) -> int:
     """Open the window on one run made of ``paths`` (or a saved session) and run until it closes.
 
     Parameters
@@ -23,7 +24,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
     paths : files of one run (trajectory, topology, energy tables), or several H5MD/HDF5 files, each a
         run of its own (replicas); may be empty
     guide : show a short guide to the window's parts (dismissible)
-    topology, timestep_fs, n_constraints, temperature_K, ensemble : what the files do not say (they become the
+    topology, timestep_fs, n_constraints, temperature_K, ensemble, units_style : what the files do not say (they become the
         run's settings, shown and changeable under the Runs list)
     session : a session file saved from the window (``.pwsession``) to restore instead
     smoke_test : open the window (offscreen is fine), wait until the first panel is drawn or an error
@@ -66,7 +67,7 @@ def launch(paths: Sequence[str | Path], *, guide: bool = False, topology: str | 
         win.load_session(session)
     elif paths:
         settings = RunSettings(timestep_fs=timestep_fs, n_constraints=n_constraints, temperature_K=temperature_K,
-                               ensemble=ensemble)
+                               ensemble=ensemble, units_style=units_style)
         win.open_runs([(group, topology, settings) for group in group_runs(paths)])
     if smoke_test:
         code = _smoke(app, win, smoke_timeout_s)

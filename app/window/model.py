@@ -29,15 +29,17 @@ class RunSettings:
     temperature_K: float | None = None  # the thermostat's target temperature
     ensemble: str | None = None  # "NVE", "NVT", "NPT" (RunMetadata.ensemble)
     thermostat: str | None = None  # "none", "langevin", "nose-hoover", ... (RunMetadata.thermostat)
+    units_style: str | None = None  # a LAMMPS units style ("real", "metal", "lj", ...) for a dump without a log
 
-    FIELDS = ("timestep_fs", "n_constraints", "temperature_K", "ensemble", "thermostat")
+    FIELDS = ("timestep_fs", "n_constraints", "temperature_K", "ensemble", "thermostat", "units_style")
 
     def overrides(self) -> dict[str, Any]:
         """Keyword overrides for ``phasewake.core.readers.open_run`` (internal units)."""
         from phasewake.core.readers.stated import stated_options
 
         return stated_options(timestep_fs=self.timestep_fs, n_constraints=self.n_constraints,
-                              temperature_K=self.temperature_K, ensemble=self.ensemble, thermostat=self.thermostat)
+                              temperature_K=self.temperature_K, ensemble=self.ensemble, thermostat=self.thermostat,
+                              units_style=self.units_style)
 
     def to_dict(self) -> dict[str, Any]:
         return {k: getattr(self, k) for k in self.FIELDS}
@@ -76,14 +78,14 @@ def _note_for_workers(run: Run, settings: RunSettings) -> None:
         remember_files(run, with_(files, options={**kept, **settings.overrides()}))
 
 
-_SETTING_OPTIONS = frozenset({"timestep_ps", "n_constraints", "temperature_K", "ensemble", "thermostat"})
+_SETTING_OPTIONS = frozenset({"timestep_ps", "n_constraints", "temperature_K", "ensemble", "thermostat", "units_style"})
 
 
 def apply_settings(run: Run, settings: RunSettings) -> None:
     """Write a user's per-run settings into the run's metadata (in place), as ``open_run`` does."""
     from phasewake.core.readers import apply_stated
 
-    apply_stated(run.metadata, settings.overrides())
+    apply_stated(run.metadata, {k: v for k, v in settings.overrides().items() if k != "units_style"})  # read only
 
 
 class WindowModel(QtCore.QObject):
@@ -184,10 +186,11 @@ class WindowModel(QtCore.QObject):
         e = self._entries[index]
         if e.settings == settings:
             return
-        if e.paths and settings.timestep_fs != e.settings.timestep_fs \
-                and str(e.run.metadata.extra.get("time_from", "")).startswith("step"):
-            # the run's times were made of step numbers (a LAMMPS dump's time is step x time step): open the
-            # files again with the new step, as the command line's --timestep does (in the background)
+        steps = str(e.run.metadata.extra.get("time_from", "")).startswith("step")
+        if e.paths and ((settings.timestep_fs != e.settings.timestep_fs and steps)
+                        or settings.units_style != e.settings.units_style):
+            # what is read into the run changed: a LAMMPS dump's time is step x time step, its units come from
+            # its style. Open the files again with it, as --timestep / --units do (in the background)
             self.reopenRequested.emit(index, replace(settings))
             return
         if e.files_metadata is None:  # what the files said, before any of the user's settings

@@ -8,6 +8,7 @@ registry, ``phasewake.core.readers.open_run``); the panels are computed once a r
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
+from dataclasses import replace
 from pathlib import Path
 
 from phasewake.app.window.file_dialogs import FOLDER_KEYS
@@ -43,7 +44,7 @@ class RunOpening:
         opener = self.opener
 
         def job():
-            from phasewake.core.errors import PhasewakeError
+            from phasewake.core.errors import PhasewakeError, UnitsStyleUnknown
             from phasewake.core.progress import Progress
 
             opened = []
@@ -52,6 +53,9 @@ class RunOpening:
                 yield Progress(i, len(specs), f"opening {Path(paths[0]).name if paths else ''}")
                 try:
                     run = opener(paths, top, st)
+                except UnitsStyleUnknown as exc:  # asked for in the window thread, then opened again
+                    failures.append((paths, top, st, exc))
+                    continue
                 except PhasewakeError as exc:
                     failures.append(str(exc))
                     continue
@@ -71,6 +75,20 @@ class RunOpening:
         """Add an already opened run (tests, synthetic runs)."""
         return self.model.add_run(RunEntry(run=run, paths=tuple(paths), topology=topology,
                                            settings=settings or RunSettings()))
+
+    def ask_units_style(self, paths: Sequence[str], why: str) -> str | None:
+        """The LAMMPS units style of a dump opened without its log, asked of the user (None: cancelled)."""
+        from PySide6 import QtWidgets
+
+        from phasewake.app.window.runs import UNITS_STYLES
+
+        names = [text for value, text in UNITS_STYLES if value]
+        text, ok = QtWidgets.QInputDialog.getItem(
+            self, "LAMMPS units style", f"{Path(paths[0]).name}: the units style is not in the files (no "
+            "log.lammps). Which style did the run use?", names, 0, False)
+        if not ok:
+            return None
+        return next(value for value, label in UNITS_STYLES if label == text)
 
     def reopen_run(self, index: int, settings: RunSettings) -> None:
         """Open run ``index``'s files again with ``settings`` (a changed time step is read into the run) in
@@ -108,6 +126,14 @@ class RunOpening:
             self._pending_state = None
             return
         opened, failures = outcome.result
+        retry = [f for f in failures if isinstance(f, tuple)]
+        failures = [f for f in failures if not isinstance(f, tuple)]
+        for paths, top, st, exc in retry:
+            style = self.ask_units_style(paths, str(exc))
+            if style:
+                self.open_runs([(paths, top, replace(st, units_style=style))])
+            else:
+                failures.append(str(exc))
         for entry in opened:
             entry.coordinate = self._coordinates_to_restore.pop(tuple(entry.paths), entry.coordinate)
             self.model.add_run(entry)

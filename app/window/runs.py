@@ -85,6 +85,9 @@ def run_summary(run: Run, *, kinetic: str = "") -> list[tuple[str, str]]:
 
 ENSEMBLES = (("", "as in files"), ("NVE", "NVE (no thermostat)"), ("NVT", "NVT (thermostat)"),
              ("NPT", "NPT (thermostat and barostat)"))
+UNITS_STYLES = (("", "as in files"), ("real", "real (Å, fs, kcal/mol)"), ("metal", "metal (Å, ps, eV)"),
+                ("lj", "lj (reduced)"), ("si", "si"), ("cgs", "cgs"), ("electron", "electron"), ("micro", "micro"),
+                ("nano", "nano"))
 THERMOSTATS = (("", "as in files"), ("none", "none"), ("langevin", "Langevin"), ("nose-hoover", "Nos\u00e9\u2013Hoover"),
                ("csvr", "stochastic velocity rescaling"), ("berendsen", "Berendsen"), ("andersen", "Andersen"))
 
@@ -120,7 +123,11 @@ class SettingsForm(QtWidgets.QGroupBox):
         self.thermostat = QtWidgets.QComboBox()
         for value, text in THERMOSTATS:
             self.thermostat.addItem(text, value)
-        for combo in (self.ensemble, self.thermostat):
+        self.units = QtWidgets.QComboBox()
+        for value, text in UNITS_STYLES:
+            self.units.addItem(text, value)
+        self.units.setToolTip("The LAMMPS units style of a dump opened without its log.lammps (the log echoes it)")
+        for combo in (self.ensemble, self.thermostat, self.units):
             combo.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
             combo.setMinimumContentsLength(8)
         self.apply = QtWidgets.QPushButton("Apply")
@@ -133,6 +140,7 @@ class SettingsForm(QtWidgets.QGroupBox):
         form.addRow("Ensemble", self.ensemble)
         form.addRow("Thermostat", self.thermostat)
         form.addRow("Target temperature", self.temperature)
+        form.addRow("LAMMPS units", self.units)
         form.addRow(self.apply)
 
     def settings(self) -> RunSettings:
@@ -142,6 +150,7 @@ class SettingsForm(QtWidgets.QGroupBox):
             temperature_K=self.temperature.value() or None,
             ensemble=self.ensemble.currentData() or None,
             thermostat=self.thermostat.currentData() or None,
+            units_style=self.units.currentData() or None,
         )
 
     def show_settings(self, s: RunSettings) -> None:
@@ -150,6 +159,7 @@ class SettingsForm(QtWidgets.QGroupBox):
         self.temperature.setValue(s.temperature_K or 0.0)
         self.ensemble.setCurrentIndex(max(0, self.ensemble.findData(s.ensemble or "")))
         self.thermostat.setCurrentIndex(max(0, self.thermostat.findData(s.thermostat or "")))
+        self.units.setCurrentIndex(max(0, self.units.findData(s.units_style or "")))
 
 
 class RunsList(TakesDroppedFiles, QtWidgets.QWidget):

@@ -30,7 +30,7 @@ from typing import Any
 
 import numpy as np
 
-from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError
+from phasewake.core.errors import CorruptFileError, MissingDataError, TopologyMismatchError, UnitsStyleUnknown
 from phasewake.core.model.run import FrameChunk, FrameRequest, Run, RunMetadata
 from phasewake.core.readers.common import ClockedFrames, check_box, file_head
 from phasewake.core.readers.lammps_dump_index import DumpIndex, scan
@@ -398,8 +398,8 @@ def _units_style(md: RunMetadata, frames: Any, info: LammpsTopology, stated: str
         md.units_style = f"lammps {style.name}"
         md.sources["units_style"] = "stated (--units)"
     if style is None:
-        raise MissingDataError("the LAMMPS units style is not known: give log.lammps (it echoes 'units') with "
-                               "the dump, or state it (--units real, metal, lj, ...)", path=info.dump_path)
+        raise UnitsStyleUnknown("the LAMMPS units style is not known: give log.lammps (it echoes 'units') with "
+                                "the dump, or state it (--units real, metal, lj, ...)", path=info.dump_path)
     return style
 
 

@@ -238,6 +238,37 @@ def test_a_time_step_stated_in_the_window_is_read_into_the_run(qtbot, tmp_path):
     assert w.wait_idle(60_000)
 
 
+def test_a_lammps_dump_without_its_log_asks_for_the_units_style(qtbot, tmp_path, monkeypatch):
+    # nothing says the style (no log.lammps, no ITEM: UNITS): the window asks, then opens with the answer,
+    # as 'phasewake describe --units real' does; the answer is the run's setting (LAMMPS units)
+    from pathlib import Path
+
+    from phasewake.core.readers import open_run
+
+    folder = Path(__file__).resolve().parents[1] / "data" / "engines" / "lammps" / "argon_real_nve"
+    files = [str(folder / "dump.lammpstrj"), str(folder / "argon.data")]
+    w = _window(qtbot, tmp_path)
+    asked = []
+    monkeypatch.setattr(w, "ask_units_style", lambda paths, why: asked.append(why) or "real")
+    w.open_paths(files)
+    qtbot.waitUntil(lambda: w.model.current is not None, timeout=60_000)
+    assert asked and "units style is not known" in asked[0]
+    run = w.model.current.run
+    ref = open_run(files, units_style="real")
+    np.testing.assert_array_equal(run.masses_amu, ref.masses_amu)
+    assert run.metadata.units_style == "lammps real" and w.model.current.settings.units_style == "real"
+    assert w.runs.settings.units.currentData() == "real"
+    assert w.wait_idle(60_000)
+    # cancelled: nothing opened, and the reason is shown
+    monkeypatch.setattr(w, "ask_units_style", lambda paths, why: None)
+    shown = []
+    monkeypatch.setattr(w, "show_problem", lambda title, text: shown.append(text))
+    w.open_paths(files)
+    qtbot.waitUntil(lambda: bool(shown), timeout=60_000)
+    assert len(w.model.entries) == 1 and "units style is not known" in shown[0]
+    assert w.wait_idle(60_000)
+
+
 # ---- 9. plots that do not mislead ------------------------------------------------------------------
 
 def test_vacf_axis_ends_where_the_decay_is_over():

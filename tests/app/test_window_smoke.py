@@ -46,3 +46,16 @@ def test_smoke_test_fails_on_a_file_no_reader_claims(qapp, tmp_path, capsys):
     assert code == 1
     assert out.out == ""
     assert out.err.startswith("smoke test failed:") and len(out.err.strip().splitlines()) == 1
+
+
+def test_open_with_units_opens_a_lammps_dump_without_its_log(qapp, capsys):
+    # 'phasewake open --units real' states the style of a dump whose log is not given; without it the window
+    # would ask (tests/app/test_window_practice.py)
+    from pathlib import Path
+
+    folder = Path(__file__).resolve().parents[1] / "data" / "engines" / "lammps" / "argon_real_nve"
+    code = main(["open", "--smoke-test", "--smoke-timeout", "60", "--units", "real",
+                 str(folder / "dump.lammpstrj"), str(folder / "argon.data")])
+    out = capsys.readouterr()
+    assert code == 0, out.err
+    assert out.out.startswith("smoke test: window opened, ")
