@@ -9,7 +9,9 @@ Format (``"format": "phasewake-session"``, ``"version": 1``), UTF-8 JSON::
         {"paths": ["/abs/run.h5md"],             # files of the run, absolute
          "relative_paths": ["run.h5md"],         # the same, relative to the session file's folder
          "topology": null,                       # topology file or null
-         "settings": {"timestep_fs": null, "n_constraints": null, "temperature_K": null}}
+         "settings": {"timestep_fs": null, "n_constraints": null, "temperature_K": null,
+                      "ensemble": null, "thermostat": null, "units_style": null}}   # RunSettings.FIELDS;
+                                                 # a key missing from an older session reads as null
       ],
       "current_run": 0,                          # index into runs, -1 for none
       "cursor_frame": 120,                       # frame index of the cursor in the current run
