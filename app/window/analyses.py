@@ -19,7 +19,7 @@ import numpy as np
 from phasewake.app.window.replicas import replicas_of
 from phasewake.core.analyses.request import AnalysisRequest
 from phasewake.core.analyses.verdicts import HEURISTIC_NOTE
-from phasewake.core.errors import PhasewakeError, TooShortError
+from phasewake.core.errors import AnalysisError, PhasewakeError
 from phasewake.core.figures import plots
 from phasewake.core.figures.spec import FigureSpec
 from phasewake.core.model.run import Run
@@ -487,10 +487,11 @@ def crossings_job(ctx: AnalysisContext) -> Generator[Progress, None, PanelResult
     # the series is already here (the panel draws it): the request's second step on it, under its own key
     try:
         res = yield from labelled(requested(ctx.run, request, request.analyse([ctx.run], [s])), "crossings")
-    except TooShortError as exc:  # a short run is not a fault: the panel says what it needs, with the series
+    except AnalysisError as exc:  # what the data do not allow (too short, never crossed) is not a fault:
+        # the panel draws the series and says why, and what the user can change
         return PanelResult(figures=(plots.coordinate_series_figure(s, key="crossings.series"),),
-                           message=f"Not enough frames for crossings: {exc}. States dragged on the Landscape "
-                                   "panel need no suggestion from the profile; a wider time window has more frames.")
+                           message=f"No crossings counted: {exc}. States dragged on the Landscape panel need no "
+                                   "suggestion from the profile; a wider time window has more frames.")
     events = _event_rows(res, ctx)
     # the coordinate against time (linked to the cursor) first, then what core.plots draws of the result
     figs = [plots.coordinate_series_figure(s, crossings=res, key="crossings.series")] + plots.figures_for(res)

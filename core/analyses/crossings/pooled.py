@@ -37,7 +37,7 @@ from phasewake.core.analyses.crossings.scan import _check_scan, _Scan, _scan
 from phasewake.core.analyses.crossings.states import suggest_states
 from phasewake.core.analyses.rates import ExponentialTest, PoissonRate, exponential_ks_test, poisson_rate
 from phasewake.core.analyses.verdicts import Verdict, judge
-from phasewake.core.errors import AnalysisError
+from phasewake.core.errors import AnalysisError, TooShortError
 from phasewake.core.progress import Progress, Work, result_of
 
 
@@ -56,7 +56,11 @@ def resolve_states(trs: Sequence[Trace], states: tuple[float, float] | None, sur
     suggestion: StateSuggestion | None = None
     if states is None:
         pooled = trs[0].values if len(trs) == 1 else np.concatenate([tr.values for tr in trs])
-        suggestion = suggest_states(pooled, unit=unit, temperature_K=temperature_K, jacobian=jacobian)
+        try:
+            suggestion = suggest_states(pooled, unit=unit, temperature_K=temperature_K, jacobian=jacobian)
+        except TooShortError as exc:
+            raise AnalysisError(f"{exc}; state the two cores instead (A: q <= a_hi, B: q >= b_lo; on the command "
+                                "line --states A_HI,B_LO)") from None
         del pooled
         a_hi, b_lo = suggestion.a_hi, suggestion.b_lo
         if surface is None:
