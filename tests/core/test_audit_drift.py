@@ -147,3 +147,19 @@ def test_gromacs_vrescale_run_start_step_and_engine_target():
     per_atom = res.energy.drift.slope_per_atom_kJ_per_mol_per_ns / 1000.0
     assert abs(per_atom) < 0.005  # within GROMACS's own target...
     assert v.level == "caution"  # ...so not a problem, though above our common-practice threshold
+
+
+def test_a_large_drift_only_two_sigma_from_zero_is_a_caution():
+    # 2 ps of noisy energies with a drift of ~2 kT/DOF/ns: its 95 % interval clears the problem size but
+    # it is only ~2.5 standard errors from zero; the same drift on quiet energies (many sigma) is a problem
+    def level(noise: float) -> tuple[str, float, str]:
+        run, _, _ = _run(2.0, noise=noise, n=200, span_ps=2.0, seed=3)
+        res = result_of(audit_run(run))
+        v = _drift(res)
+        return v.level, res.energy.drift.z_score, v.message
+
+    noisy, z_noisy, words = level(22.0)
+    quiet, z_quiet, _ = level(0.05)
+    assert 2.0 < abs(z_noisy) < 3.0 and noisy == "caution", z_noisy
+    assert "not 3 standard errors from zero" in words  # a problem by its interval alone, capped
+    assert abs(z_quiet) > 10 and quiet == "problem", z_quiet
