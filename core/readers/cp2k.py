@@ -1,7 +1,7 @@
 """CP2K ``PROJECT-1.ener``: one row per MD step (checked on CP2K 2023.1 Fist output).
 
 Header ``#     Step Nr.          Time[fs]        Kin.[a.u.]          Temp[K]            Pot.[a.u.]
-Cons Qty[a.u.]        UsedTime[s]``; energies in Hartree (converted with scipy.constants' Hartree
+Cons Qty[a.u.]        UsedTime[s]``; energies in Hartree (converted with the CODATA Hartree
 energy and N_A), time in fs. ``Cons Qty`` includes the thermostat's energy: it is the conserved quantity.
 """
 
