@@ -88,6 +88,7 @@ ENSEMBLES = (("", "as in files"), ("NVE", "NVE (no thermostat)"), ("NVT", "NVT (
 UNITS_STYLES = (("", "as in files"), ("real", "real (Å, fs, kcal/mol)"), ("metal", "metal (Å, ps, eV)"),
                 ("lj", "lj (reduced)"), ("si", "si"), ("cgs", "cgs"), ("electron", "electron"), ("micro", "micro"),
                 ("nano", "nano"))
+UNITS_TIP = "The LAMMPS units style of a dump opened without its log.lammps (the log echoes it)"
 THERMOSTATS = (("", "as in files"), ("none", "none"), ("langevin", "Langevin"), ("nose-hoover", "Nos\u00e9\u2013Hoover"),
                ("csvr", "stochastic velocity rescaling"), ("berendsen", "Berendsen"), ("andersen", "Andersen"))
 
@@ -126,7 +127,7 @@ class SettingsForm(QtWidgets.QGroupBox):
         self.units = QtWidgets.QComboBox()
         for value, text in UNITS_STYLES:
             self.units.addItem(text, value)
-        self.units.setToolTip("The LAMMPS units style of a dump opened without its log.lammps (the log echoes it)")
+        self.units.setToolTip(UNITS_TIP)
         for combo in (self.ensemble, self.thermostat, self.units):
             combo.setSizeAdjustPolicy(QtWidgets.QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
             combo.setMinimumContentsLength(8)
@@ -265,6 +266,10 @@ class RunsList(TakesDroppedFiles, QtWidgets.QWidget):
         self.settings.setEnabled(e is not None)
         if e is not None:
             self.settings.show_settings(e.settings)
+            # the units style is read from a LAMMPS dump's log: asked of other runs it would only confuse
+            lammps = str(e.run.metadata.engine or "").startswith("LAMMPS") or e.settings.units_style is not None
+            self.settings.units.setEnabled(lammps)
+            self.settings.units.setToolTip(UNITS_TIP if lammps else "Only for LAMMPS dumps (this run is not one)")
 
     # ---- user intent --------------------------------------------------------------------------
     def _row_changed(self, row: int) -> None:
