@@ -232,8 +232,8 @@ def restarts_verdict(joins: Sequence[Any], frame_joins: Sequence[Any], ea: Energ
         parts.append(f"trajectory parts: {text}")
         steps.append({"where": text, "trajectory": True, "energy_step_kJ_per_mol": None})
     n = len(joins) + len(frame_joins) + len(part_overlaps)
-    return judge("time.restarts", float(n), title="Restarts glued into one file", unit="joins",
-                 message=f"{n} restart(s) glued in; the later segment is kept and every check runs on it: "
+    return judge("time.restarts", float(n), title="Restarts in the run", unit="joins",
+                 message=f"{n} restart(s) in the run; the later segment is kept and every check runs on it: "
                          + "; ".join(parts[:8]) + (f"; ... {len(parts) - 8} more" if len(parts) > 8 else "")
                          + f" ({source_of('time.restarts')})",
                  advice=advice_of("time.restarts"), details={"joins": steps})

@@ -186,11 +186,12 @@ register(
               source="common practice (engines keep the later segment of a restart; a table whose time goes "
                      "back more often than once in 10 rows is unsorted, not restarted)",
               description="number of places where the time goes back or repeats (restarts glued into one "
-                          "file); the later segment is kept"),
+                          "file, or a part that restarted before the previous part ended); the later segment is "
+                          "kept"),
     Explanation(
-        title="Restarts glued into one file",
+        title="Restarts in the run",
         what="Places where the time of a table or trajectory goes back or repeats: a run restarted from an "
-             "earlier checkpoint and appended. The later segment is kept, as the engines themselves do, and "
+             "earlier checkpoint and appended, or written in parts of which one began before the last ended. The later segment is kept, as the engines themselves do, and "
              "the rows it replaces are dropped; every check runs on what is kept.",
         method="Row i is kept when its time is below the time of every later row (a suffix minimum), so the "
                "later segment always wins. Each join is listed with the time the run went back from and to, "
