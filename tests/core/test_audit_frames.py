@@ -226,6 +226,9 @@ def test_audit_consumer_merged_from_ranges_equals_the_serial_pass(cuts, max_segm
     assert got.speeds_nm_per_ps.keys() == serial.speeds_nm_per_ps.keys()
     for sp in serial.speeds_nm_per_ps:
         np.testing.assert_array_equal(got.speeds_nm_per_ps[sp], serial.speeds_nm_per_ps[sp])
+    assert serial.n_molecules == got.n_molecules == 80  # 60 waters and 20 ions
+    np.testing.assert_array_equal(got.translation_kJ_per_mol, serial.translation_kJ_per_mol)
+    np.testing.assert_array_equal(got.translation_total_kJ_per_mol, serial.translation_total_kJ_per_mol)
     gi, si = got.inference, serial.inference
     assert (gi.n_constraints, gi.n_rigid_pairs, gi.n_frames_used) == (si.n_constraints, si.n_rigid_pairs,
                                                                         si.n_frames_used)
