@@ -211,4 +211,17 @@ def run_facts(run: Run) -> list[dict[str, Any]]:
         add("com_motion_removed", "centre-of-mass motion " + ("removed" if md.com_motion_removed else "not removed"))
     if md.conserved_quantity:
         add("conserved_quantity", f"conserved quantity '{md.conserved_quantity}'")
+    for line in md.extra.get("engine_drift") or ():
+        span = f" over {line['from_ps']:g}-{line['to_ps']:g} ps" if "from_ps" in line else ""
+        add("engine_drift", f"the engine's own drift {line['kJ_mol_ps_atom']:g} kJ/mol/ps per atom{span}",
+            f"from {line.get('source', 'its log')}")
+    tol = md.extra.get("drift_tolerance")
+    if tol:
+        add("drift_tolerance", f"drift target of its pair-list buffer {tol['kJ_mol_ps_atom']:g} kJ/mol/ps per atom",
+            f"from {tol.get('source', 'its parameters')}")
+    cell = md.extra.get("cell")
+    if cell:
+        a, b, c = cell["lengths_nm"]
+        add("cell", f"cell {a:.5g} x {b:.5g} x {c:.5g} nm" + ("" if cell.get("fixed") else " (at the start; it changes)"),
+            f"from {cell.get('source', 'the output')}")
     return out
