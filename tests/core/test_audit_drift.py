@@ -163,3 +163,11 @@ def test_a_large_drift_only_two_sigma_from_zero_is_a_caution():
     assert 2.0 < abs(z_noisy) < 3.0 and noisy == "caution", z_noisy
     assert "not 3 standard errors from zero" in words  # a problem by its interval alone, capped
     assert abs(z_quiet) > 10 and quiet == "problem", z_quiet
+
+
+def test_describe_says_the_engines_drift_and_target():
+    from phasewake.core.readers.describe import run_facts
+
+    facts = {f["field"]: f for f in run_facts(open_run([ENGINES / "spce_rigid_nvt_vrescale" / "md.edr"]))}
+    assert "-0.00923 kJ/mol/ps per atom over 0-4 ps" in facts["engine_drift"]["text"]
+    assert facts["drift_tolerance"]["where"] == "from md.log (verlet-buffer-tolerance)"
