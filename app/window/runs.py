@@ -38,7 +38,9 @@ def _energy_terms(run: Run, most: int = 6) -> str:
     names = [f"{s.name} ({s.unit})" if s.unit else s.name for s in series]
     if len(names) <= most:
         return ", ".join(names) or "none"
-    used = [n for s, n in zip(series, names) if s.role not in (None, "", "other")][:most]
+    order = ("total", "conserved", "potential", "kinetic", "temperature", "bath_heat", "pressure", "volume")
+    ranked = sorted((order.index(s.role), n) for s, n in zip(series, names) if s.role in order)
+    used = [n for _, n in ranked][:most]
     return f"{len(names)} terms" + (f", among them {', '.join(used)}" if used else "") + " (hover for all)"
 
 

@@ -394,3 +394,18 @@ def test_exported_figures_write_symbols_as_mathtext(tmp_path):
                                                           note="σ_E/σ_K = 0.02"),))
     out = export_figure(spec, tmp_path / "f.svg", preset="single").path  # mathtext that did not parse would raise
     assert out.stat().st_size > 0
+
+
+def test_runs_list_puts_the_runs_facts_before_a_long_list_of_energy_terms():
+    # a GROMACS run's .edr holds 32 terms: counted, the ones the analyses use named first, after the facts
+    from pathlib import Path
+
+    from phasewake.app.window.runs import run_summary
+    from phasewake.core.readers import open_run
+
+    run = open_run([Path(__file__).resolve().parents[1] / "data" / "engines" / "gromacs" / "spce_rigid_nvt_vrescale"])
+    rows = run_summary(run)
+    keys = [k for k, _ in rows]
+    assert keys.index("time step") < keys.index("energy terms") and keys.index("constraints") < keys.index("energy terms")
+    terms = dict(rows)["energy terms"]
+    assert terms.startswith(f"{len(run.energies.series)} terms, among them Total Energy (kJ/mol), Conserved En.")
