@@ -695,3 +695,15 @@ def test_gromacs_tip4p_virtual_sites(capsys: pytest.CaptureFixture[str]) -> None
     code, a, err = cli(capsys, "audit", d_ / "md.trr", "--top", d_ / "md.gro")
     assert code in (0, 1), err
     assert a["temperature"]["n_dof"] == rep["degrees_of_freedom"]
+
+
+@pytest.mark.parametrize("run", ["spce_rigid_nvt_vrescale", "spce_flexible_nve_0.5fs"])
+def test_vdos_area_is_the_engines_degrees_of_freedom(run: str) -> None:
+    # reference: md.log nrdf (801 rigid, 1203 flexible): with the constraint count known from the files, the
+    # whole-system VDOS is normalised to the run's N_dof (the equipartition sum m<v^2>/kT), not to 3N
+    import phasewake as pw
+
+    rep = reported(f"gromacs/{run}")["reported"]
+    v = pw.spectrum(pw.open(ENGINES / "gromacs" / run), cache=False)
+    assert v.n_dof == rep["degrees_of_freedom"]
+    assert np.trapezoid(v.intensity, v.wavenumber_cm1) == pytest.approx(rep["degrees_of_freedom"], rel=1e-6)

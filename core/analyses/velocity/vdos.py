@@ -187,7 +187,7 @@ def vibrational_spectrum(run: Run, *, atom_indices: Sequence[int] | np.ndarray |
     """Streaming VDOS of a run (generator: yields Progress, returns VDOSResult).
 
     ``max_lag_ps`` defaults to 2 ps (at most half the run; see :func:`vdos_from_velocities`).
-    ``n_dof`` defaults to 3 x the atoms used, virtual sites left out (constraints are not subtracted: the spectrum of a
+    ``n_dof`` defaults to :func:`spectrum_dof` (for a subset of atoms constraints are not subtracted: the spectrum of a
     constrained run simply has less weight at the constrained frequencies, and the normalisation is a
     convention). The highest significant peak (``highest_significant_peak_cm1``) is what the time-step
     check uses.
@@ -208,11 +208,22 @@ def spectrum_lag_ps(run: Run, max_lag_ps: float | None, start: int, stop: int | 
     return min(DEFAULT_SPECTRUM_LAG_PS, 0.5 * span) if span > 0 else None
 
 
+def spectrum_dof(run: Run, idx: np.ndarray) -> float:
+    """The degrees of freedom a VDOS of atoms ``idx`` is normalised to: 3 per atom with mass; for the whole
+    system with its constraint count known (the files or the user), that count and a removed centre-of-mass
+    motion come off too, so the area is the run's N_dof (the equipartition sum m<v^2>/kT)."""
+    m = np.asarray(run.masses_amu)
+    massive = int(np.count_nonzero(m[idx] != 0.0))  # virtual sites: no DOF
+    md = run.metadata
+    if idx.size == run.n_atoms and md.n_constraints is not None:
+        return float(3 * massive - md.n_constraints - (3 if md.com_motion_removed else 0))
+    return 3.0 * massive
+
+
 def spectrum_from_vacf(run: Run, res: VACFResult, idx: np.ndarray, *, window: str = "hann",
                        n_dof: float | None = None, peak_prominence: float = 0.05) -> VDOSResult:
     """The VDOS of the mass-weighted VACF ``res`` of atoms ``idx`` (one group), peaks judged."""
-    massive = int(np.count_nonzero(np.asarray(run.masses_amu)[idx] != 0.0))  # virtual sites: no DOF
-    out = vdos_from_vacf(res.lag_ps, res.vacf_sum[0], n_dof=3.0 * massive if n_dof is None else n_dof,
+    out = vdos_from_vacf(res.lag_ps, res.vacf_sum[0], n_dof=spectrum_dof(run, idx) if n_dof is None else n_dof,
                          window=window, peak_prominence=peak_prominence,
                          velocities_estimated=res.velocities_estimated, notes=res.notes)
     return judge_peaks(out, _expected_motions(run, idx))
