@@ -40,8 +40,7 @@ if TYPE_CHECKING:
 def auto_bins(values: np.ndarray, *, min_bins: int = 10, max_bins: int = 200,
               value_range: tuple[float, float] | None = None) -> np.ndarray:
     """Bin edges by the Freedman-Diaconis rule, with between ``min_bins`` and ``max_bins`` bins."""
-    v = np.asarray(values, dtype=np.float64)
-    v = v[np.isfinite(v)]
+    v = _finite(values)
     if v.size < 2:
         raise TooShortError("a histogram", have=int(v.size), need=2)
     lo, hi = (float(v.min()), float(v.max())) if value_range is None else (float(value_range[0]), float(value_range[1]))
@@ -64,8 +63,7 @@ def _edges(values: np.ndarray, bins: int | np.ndarray | None, value_range: tuple
     if bins is None:
         return auto_bins(values, value_range=value_range, max_bins=max_bins)
     if np.ndim(bins) == 0:
-        v = np.asarray(values, dtype=np.float64)
-        v = v[np.isfinite(v)]
+        v = _finite(values)
         lo, hi = (float(v.min()), float(v.max())) if value_range is None else value_range
         return np.linspace(lo, hi, int(bins) + 1)  # type: ignore[arg-type]
     e = np.asarray(bins, dtype=np.float64)
@@ -82,6 +80,33 @@ def _free_energy(density: np.ndarray, kt: float) -> np.ndarray:
     if np.all(np.isnan(f)):
         raise AnalysisError("no samples inside the histogram range")
     return f - np.nanmin(f)
+
+
+def _finite(values: np.ndarray) -> np.ndarray:
+    """The finite values, as float64; no copy when they all are (a series of 1e8 samples is 0.8 GB)."""
+    v = np.asarray(values, dtype=np.float64).ravel()
+    return v if np.isfinite(v).all() else v[np.isfinite(v)]
+
+
+_COUNT_CHUNK = 1 << 20  # samples binned at a time: the bin indices of a chunk, not of the whole series
+
+
+def _block_counts(values: np.ndarray, edges: np.ndarray, n_blocks: int) -> tuple[np.ndarray, int]:
+    """Counts per bin in each of ``n_blocks`` contiguous blocks of the series, shape (n_blocks, n_bins), and
+    the number of samples outside the edges (or not finite); chunk by chunk, so no index array of the whole
+    series is made (the blocks are those of :func:`_block_probabilities`)."""
+    v = np.asarray(values, dtype=np.float64)
+    n_bins = edges.size - 1
+    bounds = np.linspace(0, v.size, n_blocks + 1).astype(int)
+    out = np.zeros((n_blocks, n_bins), np.int64)
+    outside = 0
+    for b in range(n_blocks):
+        for s in range(int(bounds[b]), int(bounds[b + 1]), _COUNT_CHUNK):
+            i = _bin_index(v[s:min(s + _COUNT_CHUNK, int(bounds[b + 1]))], edges)
+            inside = i[i >= 0]
+            outside += i.size - inside.size
+            out[b] += np.bincount(inside, minlength=n_bins)
+    return out, outside
 
 
 def _bin_index(values: np.ndarray, edges: np.ndarray) -> np.ndarray:
@@ -111,14 +136,18 @@ def histogram_1d(values: np.ndarray, *, bins: int | np.ndarray | None = None,
     """Histogram of one coordinate with automatic (Freedman-Diaconis) bins by default."""
     v = np.asarray(values, dtype=np.float64)
     edges = _edges(v, bins, value_range, max_bins)
-    idx = _bin_index(v, edges)
-    inside = idx >= 0
-    counts = np.bincount(idx[inside], minlength=edges.size - 1).astype(np.float64)
+    by_block, outside = _block_counts(v, edges, 1)
+    return _histogram(edges, by_block.sum(axis=0), unit=unit, n_samples=int(v.size), n_outside=outside,
+                      bins_rule="freedman-diaconis" if bins is None else "given")
+
+
+def _histogram(edges: np.ndarray, counts: np.ndarray, *, unit: str, n_samples: int, n_outside: int,
+               bins_rule: str) -> Histogram1D:
+    counts = np.asarray(counts, dtype=np.float64)
     total = counts.sum()
     density = counts / (total * np.diff(edges)) if total > 0 else np.zeros_like(counts)
     return Histogram1D(edges=edges, centers=0.5 * (edges[1:] + edges[:-1]), counts=counts, density=density,
-                       unit=unit, n_samples=int(v.size), n_outside=int((~inside).sum()),
-                       bins_rule="freedman-diaconis" if bins is None else "given")
+                       unit=unit, n_samples=n_samples, n_outside=n_outside, bins_rule=bins_rule)
 
 
 @dataclass(frozen=True)
@@ -318,8 +347,11 @@ def free_energy_profile(
     if temperature_K is None or not temperature_K > 0:
         raise AnalysisError("a free-energy profile needs a temperature above 0 K")
     kt = KB_KJ_PER_MOL_K * float(temperature_K)
-    hist = histogram_1d(v, bins=bins, value_range=value_range, unit=unit, max_bins=max_bins)
-    edges, centers = hist.edges, hist.centers
+    edges = _edges(v, bins, value_range, max_bins)
+    by_block, outside = _block_counts(v, edges, n_blocks)  # one chunked pass: the histogram and its blocks
+    hist = _histogram(edges, by_block.sum(axis=0), unit=unit, n_samples=int(v.size), n_outside=outside,
+                      bins_rule="freedman-diaconis" if bins is None else "given")
+    centers = hist.centers
     nbins = centers.size
     dens = hist.density.copy()
     if jacobian == "distance":
@@ -327,8 +359,8 @@ def free_energy_profile(
             raise AnalysisError("the distance Jacobian needs positive values")
         dens = dens / (4.0 * np.pi * centers**2)
     f = _free_energy(dens, kt)
-    idx = _bin_index(v, edges)
-    pb = _block_probabilities(idx, nbins, n_blocks)
+    in_block = by_block.sum(axis=1, keepdims=True)
+    pb = np.divide(by_block, in_block, out=np.zeros((n_blocks, nbins)), where=in_block > 0)
     p = hist.counts / max(hist.counts.sum(), 1.0)
     err = np.array([_delta_error(pb, p, i, None, kt) if p[i] > 0 else np.nan for i in range(nbins)])
 

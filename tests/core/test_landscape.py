@@ -164,3 +164,30 @@ def test_series_adapters():
     assert sec.p2_unit == "amu nm/ps"
     prof = free_energy_of_series(sx, temperature_K=T_UNIT_KT)
     assert prof.jacobian == "none" and prof.unit == "nm"
+
+
+def test_chunked_block_counts_equal_one_pass_over_the_whole_series(monkeypatch):
+    # the profile bins the series chunk by chunk (no index array of the whole series): the same counts as
+    # numpy's histogram of each block (values on the last edge in the last bin, NaN and values outside left
+    # out), chunks cut across the block boundaries, and the same profile as with one chunk
+    from phasewake.core.analyses import landscape as L
+
+    rng = np.random.default_rng(12)
+    x = np.concatenate([rng.normal(-1, 0.3, 5000), rng.normal(1, 0.3, 5000)])
+    x[[7, 900, 4321]] = np.nan
+    edges = np.linspace(-1.5, 1.5, 41)
+    x[50] = edges[-1]
+    n_blocks = 7
+    monkeypatch.setattr(L, "_COUNT_CHUNK", 333)
+    got, outside = L._block_counts(x, edges, n_blocks)
+    bounds = np.linspace(0, x.size, n_blocks + 1).astype(int)
+    for b in range(n_blocks):
+        part = x[bounds[b]:bounds[b + 1]]
+        ref, _ = np.histogram(part[np.isfinite(part)], bins=edges)
+        np.testing.assert_array_equal(got[b], ref)
+    assert outside == x.size - got.sum()
+    small = L.free_energy_profile(x[np.isfinite(x)], temperature_K=300.0)
+    monkeypatch.setattr(L, "_COUNT_CHUNK", 1 << 30)
+    whole = L.free_energy_profile(x[np.isfinite(x)], temperature_K=300.0)
+    np.testing.assert_array_equal(small.counts, whole.counts)
+    np.testing.assert_array_equal(small.error_kJ_per_mol, whole.error_kJ_per_mol)
