@@ -49,12 +49,13 @@ class RunOpening:
 
             opened = []
             failures = []
+            no_style = []  # runs whose LAMMPS units style nothing states: asked for when the job is done
             for i, (paths, top, st) in enumerate(specs):
                 yield Progress(i, len(specs), f"opening {Path(paths[0]).name if paths else ''}")
                 try:
                     run = opener(paths, top, st)
                 except UnitsStyleUnknown as exc:  # asked for in the window thread, then opened again
-                    failures.append((paths, top, st, exc))
+                    no_style.append((paths, top, st, str(exc)))
                     continue
                 except PhasewakeError as exc:
                     failures.append(str(exc))
@@ -64,7 +65,7 @@ class RunOpening:
                     continue
                 apply_settings(run, st)
                 opened.append(RunEntry(run=run, paths=tuple(paths), topology=top, settings=st))
-            return opened, failures
+            return opened, failures, no_style
 
         self._open_counter += 1
         self.jobs.start(f"open:{self._open_counter}", job, label="Opening run files", on_done=self._runs_opened)
@@ -125,15 +126,13 @@ class RunOpening:
             self.say("Opening cancelled.")
             self._pending_state = None
             return
-        opened, failures = outcome.result
-        retry = [f for f in failures if isinstance(f, tuple)]
-        failures = [f for f in failures if not isinstance(f, tuple)]
-        for paths, top, st, exc in retry:
-            style = self.ask_units_style(paths, str(exc))
+        opened, failures, no_style = outcome.result
+        for paths, top, st, why in no_style:
+            style = self.ask_units_style(paths, why)
             if style:
                 self.open_runs([(paths, top, replace(st, units_style=style))])
             else:
-                failures.append(str(exc))
+                failures.append(why)
         for entry in opened:
             entry.coordinate = self._coordinates_to_restore.pop(tuple(entry.paths), entry.coordinate)
             self.model.add_run(entry)

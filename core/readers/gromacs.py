@@ -322,8 +322,8 @@ def read_md_log(path: Path, *, column_roles: Mapping[str, str] | None = None, ti
         raise CorruptFileError(f"cannot read ({exc})", path=path) from exc
     lines = text.splitlines()
     warnings: list[str] = []
-    facts, fsrc = _md_log_facts(lines, path)
-    extra = _md_log_drift(lines, path)
+    facts, fsrc, params = _md_log_facts(lines, path)
+    extra = _md_log_drift(lines, path, params)
     if not energies:
         return EngineEnergy(table=None, facts=facts, source=path.name, warnings=warnings, extra=extra)
 
@@ -394,7 +394,7 @@ _DRIFT_PART = re.compile(r"^Energy conservation over simulation part #(\d+) of l
 _DRIFT_LINE = re.compile(r"^\s*Conserved energy drift:\s*(\S+) kJ/mol/ps per atom")
 
 
-def _md_log_drift(lines: list[str], path: Path) -> dict[str, Any]:
+def _md_log_drift(lines: list[str], path: Path, params: Mapping[str, str]) -> dict[str, Any]:
     """What GROMACS says of its own energy conservation, for ``RunMetadata.extra``.
 
     ``engine_drift``: the closing ``Conserved energy drift`` line of each part (kJ/mol/ps per atom, with the
@@ -425,17 +425,12 @@ def _md_log_drift(lines: list[str], path: Path) -> dict[str, Any]:
             span = None
     if parts:
         out["engine_drift"] = parts
-    for ln in lines:
-        if ln.startswith("   verlet-buffer-tolerance"):
-            try:
-                tol = float(ln.split("=", 1)[1])
-            except (IndexError, ValueError):
-                break
-            if tol > 0:
-                out["drift_tolerance"] = {"kJ_mol_ps_atom": tol, "source": f"{path.name} (verlet-buffer-tolerance)"}
-            break
-        if _STEP_HEADER.match(ln):
-            break
+    try:
+        tol = float(params.get("verlet-buffer-tolerance", ""))
+    except ValueError:
+        tol = -1.0
+    if tol > 0:
+        out["drift_tolerance"] = {"kJ_mol_ps_atom": tol, "source": f"{path.name} (verlet-buffer-tolerance)"}
     return out
 
 
@@ -460,7 +455,9 @@ _INTEGRATORS = {
 }
 
 
-def _md_log_facts(lines: list[str], path: Path) -> tuple[dict[str, Any], dict[str, str]]:
+def _md_log_facts(lines: list[str], path: Path) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
+    """Run facts of the log's input parameters (RunMetadata fields), where each came from, and the
+    parameters themselves (``key -> value`` as listed)."""
     params: dict[str, str] = {}
     grp: dict[str, list[str]] = {}
     n_atoms = None
@@ -533,7 +530,7 @@ def _md_log_facts(lines: list[str], path: Path) -> tuple[dict[str, Any], dict[st
             f"{' - 3 (centre-of-mass motion removed)' if facts.get('com_motion_removed') else ''})"
     if "n_dof" in facts:
         fsrc["n_dof"] = f"{path.name} (grpopts nrdf)"
-    return facts, fsrc
+    return facts, fsrc, params
 
 
 def _facts_from_params(params: Mapping[str, str]) -> dict[str, Any]:
