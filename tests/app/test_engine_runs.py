@@ -707,3 +707,11 @@ def test_vdos_area_is_the_engines_degrees_of_freedom(run: str) -> None:
     v = pw.spectrum(pw.open(ENGINES / "gromacs" / run), cache=False)
     assert v.n_dof == rep["degrees_of_freedom"]
     assert np.trapezoid(v.intensity, v.wavenumber_cm1) == pytest.approx(rep["degrees_of_freedom"], rel=1e-6)
+
+
+def test_crossings_on_a_run_too_short_to_suggest_states_names_the_file(capsys: pytest.CaptureFixture[str]) -> None:
+    # 21 frames: below the 50 samples a suggested profile needs; one line, the file named, what to do instead
+    code = main(["crossings", str(TIP4P / "frames.h5md"), "-c", "distance(0, 4)", "--no-cache"])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and len(err.splitlines()) == 1, err
+    assert "frames.h5md" in err and "--states A_HI,B_LO" in err

@@ -118,7 +118,12 @@ class CrossingsRequest(AnalysisRequest):
                                confidence=self.confidence, kappa_window_ps=self.kappa_window_ps,
                                temperature_K=temp, kT_over_m_eff=kt_over_m_eff(temp, series),
                                jacobian=resolve_jacobian(self.jacobian, self.coordinate))
-        result: CrossingsResult = yield from _relay(inner, base, total, "")
+        try:
+            result: CrossingsResult = yield from _relay(inner, base, total, "")
+        except AnalysisError as exc:  # what the series do not allow: said of the run's files
+            if exc.path is not None or not runs or not runs[0].paths:
+                raise
+            raise AnalysisError(str(exc), path=runs[0].paths[0]) from None
         if temp is None:
             result = replace(result, warnings=(*result.warnings, f"{why} (the TST flux factor of a coordinate "
                                                                  "without velocities needs it)"))
